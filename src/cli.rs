@@ -1,0 +1,65 @@
+//! Command-line definition (clap derive). Parsing only: `main` turns these into library calls.
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand};
+
+/// Splits expected test error into noise, bias² and variance across a model family's complexity
+/// grid, by Monte Carlo over many training sets.
+#[derive(Debug, Parser)]
+#[command(name = "lossprism", version, about, long_about = None, after_help = EXAMPLES)]
+pub struct Cli {
+    /// What to do.
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+const EXAMPLES: &str = "\
+Examples:
+  lossprism run                                   run the embedded default scenario (an invented orchard)
+  lossprism run scenarios/friedman1-tree.toml --out r.json --csv r.csv
+  lossprism run scenarios/friedman1-knn.toml --replicates 50 --threads 2
+  lossprism validate my-scenario.toml             check a file without running it
+  lossprism families                              list model families and their knobs";
+
+/// Subcommands.
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Run a scenario and print the decomposition table.
+    Run(RunArgs),
+    /// Check a scenario file without running it (exit 0 when valid, 2 with the error).
+    Validate {
+        /// The scenario file.
+        scenario: PathBuf,
+    },
+    /// List the model families, their knobs and what the knob means.
+    Families,
+}
+
+/// Options of `run`.
+#[derive(Debug, Args)]
+pub struct RunArgs {
+    /// Scenario file (TOML). Without it, the embedded default scenario runs.
+    pub scenario: Option<PathBuf>,
+    /// Write the result document (JSON) here; `-` for standard output.
+    #[arg(long, value_name = "FILE.json")]
+    pub out: Option<PathBuf>,
+    /// Write one CSV row per grid value here.
+    #[arg(long, value_name = "FILE.csv")]
+    pub csv: Option<PathBuf>,
+    /// Write one CSV row per evaluation point and grid value here.
+    #[arg(long, value_name = "FILE.csv")]
+    pub points: Option<PathBuf>,
+    /// Override the number of replicates R (at least 2).
+    #[arg(long, value_name = "R")]
+    pub replicates: Option<u64>,
+    /// Override the master seed.
+    #[arg(long)]
+    pub seed: Option<u64>,
+    /// Worker threads (0 = one per core). Results do not depend on it.
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
+    /// Do not print the table.
+    #[arg(long, short)]
+    pub quiet: bool,
+}

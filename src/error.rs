@@ -1,0 +1,78 @@
+//! Error types of the library. Every error is one line that names the file, line, key, column or
+//! replicate at fault; `main` maps them to exit codes (2 for bad input, 1 never comes from here).
+
+use std::path::PathBuf;
+
+/// An error in a scenario file: where it is and what is wrong.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+#[error("{}{}{}", location(.file, .line), key_part(.key), .message)]
+pub struct ScenarioError {
+    /// The scenario file as the user named it (`<embedded default>` for the built-in one).
+    pub file: String,
+    /// 1-based line in the file, when known.
+    pub line: Option<usize>,
+    /// Dotted key path (`data.truth.formula`), when known.
+    pub key: Option<String>,
+    /// What is wrong, and where useful how to fix it.
+    pub message: String,
+}
+
+fn location(file: &str, line: &Option<usize>) -> String {
+    match line {
+        Some(l) => format!("{file}:{l}: "),
+        None => format!("{file}: "),
+    }
+}
+
+fn key_part(key: &Option<String>) -> String {
+    match key {
+        Some(k) => format!("key `{k}`: "),
+        None => String::new(),
+    }
+}
+
+/// Any error the library reports.
+#[derive(Debug, thiserror::Error)]
+pub enum Error {
+    /// The scenario file is malformed or inconsistent.
+    #[error(transparent)]
+    Scenario(#[from] ScenarioError),
+    /// Reading or writing a file failed.
+    #[error("{}: {message}", .path.display())]
+    Io {
+        /// The file concerned.
+        path: PathBuf,
+        /// The operating system's message.
+        message: String,
+    },
+    /// A formula produced a value that is not a finite number (or a negative noise level) at a
+    /// drawn input.
+    #[error("{0}")]
+    Data(String),
+    /// A model fit failed on a replicate's training set.
+    #[error("replicate {replicate}: {family} fit failed: {message}")]
+    Fit {
+        /// Replicate index (0-based).
+        replicate: u64,
+        /// Family name.
+        family: String,
+        /// The family's message.
+        message: String,
+    },
+    /// A request that makes no sense (bad flag value, incompatible documents).
+    #[error("{0}")]
+    Usage(String),
+}
+
+impl Error {
+    /// Builds an I/O error for `path`.
+    pub fn io(path: impl Into<PathBuf>, err: &std::io::Error) -> Self {
+        Error::Io {
+            path: path.into(),
+            message: err.to_string(),
+        }
+    }
+}
+
+/// Library result type.
+pub type Result<T> = std::result::Result<T, Error>;

@@ -1,0 +1,69 @@
+//! Scenario files: `spec` is exactly what the user wrote (serde), `plan` is the validated,
+//! expanded form the runner executes (grid expanded, family built, defaults filled).
+
+pub mod plan;
+pub mod spec;
+
+pub use plan::{Design, GridKind, LossKind, Plan, PlanOptions, Source, SyntheticPlan};
+
+use crate::error::{Error, ScenarioError};
+use std::path::Path;
+
+/// The embedded default scenario (an invented orchard), run by `lossprism run` with no file.
+pub const DEFAULT_SCENARIO: &str = include_str!("../../scenarios/orchard-yield.toml");
+
+/// Name shown in messages for the embedded default scenario.
+pub const DEFAULT_NAME: &str = "<embedded default: orchard-yield>";
+
+/// Parses scenario text. `file` is only used in error messages.
+pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError> {
+    toml::from_str::<spec::ScenarioSpec>(src).map_err(|e| {
+        let line = e.span().map(|s| line_of(src, s.start));
+        let mut message = e.message().trim().replace('\n', " ");
+        if let Some(span) = e.span() {
+            if let Some(text) = src.get(span.clone()) {
+                let text = text.lines().next().unwrap_or("").trim();
+                if !text.is_empty() && text.len() < 80 && !message.contains(text) {
+                    message = format!("{message} (at `{text}`)");
+                }
+            }
+        }
+        ScenarioError {
+            file: file.to_string(),
+            line,
+            key: None,
+            message,
+        }
+    })
+}
+
+/// Loads, parses and plans a scenario file.
+pub fn load(path: &Path, opts: &PlanOptions) -> Result<Plan, Error> {
+    let src = std::fs::read_to_string(path).map_err(|e| Error::io(path, &e))?;
+    let file = path.display().to_string();
+    let spec = parse(&src, &file)?;
+    let base = path.parent().map(Path::to_path_buf).unwrap_or_default();
+    Ok(Plan::from_spec(&spec, &src, &file, &base, opts)?)
+}
+
+/// Plans the embedded default scenario.
+pub fn load_default(opts: &PlanOptions) -> Result<Plan, Error> {
+    let spec = parse(DEFAULT_SCENARIO, DEFAULT_NAME)?;
+    Ok(Plan::from_spec(
+        &spec,
+        DEFAULT_SCENARIO,
+        DEFAULT_NAME,
+        Path::new("."),
+        opts,
+    )?)
+}
+
+/// 1-based line number of a byte offset.
+pub fn line_of(src: &str, offset: usize) -> usize {
+    let end = offset.min(src.len());
+    src.as_bytes()[..end]
+        .iter()
+        .filter(|&&b| b == b'\n')
+        .count()
+        + 1
+}

@@ -1,0 +1,770 @@
+//! A validated, expanded scenario: every default filled, the grid expanded and sorted, the
+//! family built, formulas compiled. Building a plan is the only place scenario semantics are
+//! checked; every error names the file, the line and the key.
+
+use std::ops::Range;
+use std::path::Path;
+use std::sync::Arc;
+
+use toml::Spanned;
+
+use super::spec::{DataSpec, InputSpec, ModelSpec, ScenarioSpec};
+use crate::dgp::{Builtin, Input, InputDist, Noise, Synthetic, Truth};
+use crate::error::ScenarioError;
+use crate::expr::Formula;
+use crate::family::{self, Family, Task};
+
+/// Default number of replicates when the file gives none.
+pub const DEFAULT_REPLICATES: u64 = 200;
+/// Default master seed when the file gives none.
+pub const DEFAULT_SEED: u64 = 1;
+/// Default number of blocks is `min(R, DEFAULT_MAX_BLOCKS)`.
+pub const DEFAULT_MAX_BLOCKS: u64 = 32;
+
+/// Command-line overrides applied on top of the file.
+#[derive(Debug, Clone, Default)]
+pub struct PlanOptions {
+    /// Replaces `replicates`.
+    pub replicates: Option<u64>,
+    /// Replaces `seed`.
+    pub seed: Option<u64>,
+}
+
+/// Training-input design.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Design {
+    /// Fresh inputs every replicate.
+    Random,
+    /// Inputs drawn once; only the noise is redrawn (the setting of the closed forms).
+    Fixed,
+}
+
+/// How the grid was written (the plot uses a log axis for `Log`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum GridKind {
+    /// An explicit list.
+    List,
+    /// `{ from, to, step }`.
+    Range,
+    /// `{ log = [lo, hi], count }`.
+    Log,
+}
+
+/// The loss being decomposed.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum LossKind {
+    /// Squared error.
+    Squared,
+}
+
+impl LossKind {
+    /// Name as written in files and results.
+    pub fn name(self) -> &'static str {
+        match self {
+            LossKind::Squared => "squared",
+        }
+    }
+}
+
+/// A synthetic source, resolved.
+#[derive(Debug, Clone)]
+pub struct SyntheticPlan {
+    /// The process.
+    pub process: Synthetic,
+    /// Training set size n.
+    pub train_size: usize,
+    /// Number of evaluation points m (equals n when evaluating at the design).
+    pub eval_size: usize,
+    /// Random or fixed design.
+    pub design: Design,
+    /// Evaluate at the training inputs (fixed design only).
+    pub eval_at_design: bool,
+}
+
+/// Where training sets come from.
+#[derive(Debug, Clone)]
+pub enum Source {
+    /// A known generating process.
+    Synthetic(SyntheticPlan),
+}
+
+/// A scenario ready to run.
+#[derive(Clone)]
+pub struct Plan {
+    /// File name as given (for messages).
+    pub file: String,
+    /// Scenario name.
+    pub name: String,
+    /// Description.
+    pub about: String,
+    /// Master seed.
+    pub seed: u64,
+    /// Replicates R.
+    pub replicates: u64,
+    /// Number of replicate blocks.
+    pub blocks: u64,
+    /// Data source.
+    pub source: Source,
+    /// The family.
+    pub family: Arc<dyn Family>,
+    /// Grid values, ascending, distinct.
+    pub grid: Vec<f64>,
+    /// How the grid was written.
+    pub grid_kind: GridKind,
+    /// Loss.
+    pub loss: LossKind,
+    /// Regression or classification.
+    pub task: Task,
+}
+
+impl std::fmt::Debug for Plan {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Plan")
+            .field("name", &self.name)
+            .field("seed", &self.seed)
+            .field("replicates", &self.replicates)
+            .field("family", &self.family.name())
+            .field("grid", &self.grid)
+            .finish()
+    }
+}
+
+struct Ctx<'a> {
+    file: &'a str,
+    src: &'a str,
+}
+
+impl Ctx<'_> {
+    fn err(
+        &self,
+        span: Option<Range<usize>>,
+        key: &str,
+        message: impl Into<String>,
+    ) -> ScenarioError {
+        ScenarioError {
+            file: self.file.to_string(),
+            line: span.map(|s| super::line_of(self.src, s.start)),
+            key: Some(key.to_string()),
+            message: message.into(),
+        }
+    }
+
+    fn positive<T: Copy + Into<i64>>(
+        &self,
+        v: &Spanned<T>,
+        key: &str,
+        min: i64,
+    ) -> Result<u64, ScenarioError> {
+        let x: i64 = (*v.get_ref()).into();
+        if x < min {
+            return Err(self.err(
+                Some(v.span()),
+                key,
+                format!("must be at least {min}, got {x}"),
+            ));
+        }
+        Ok(x as u64)
+    }
+}
+
+impl Plan {
+    /// Validates a spec. `src` is the file text (for line numbers), `base` the folder that
+    /// relative paths in the file are resolved against.
+    pub fn from_spec(
+        spec: &ScenarioSpec,
+        src: &str,
+        file: &str,
+        _base: &Path,
+        opts: &PlanOptions,
+    ) -> Result<Plan, ScenarioError> {
+        let cx = Ctx { file, src };
+        let name = spec.name.get_ref().trim().to_string();
+        if name.is_empty() {
+            return Err(cx.err(Some(spec.name.span()), "name", "must not be empty"));
+        }
+        let replicates = match (opts.replicates, &spec.replicates) {
+            (Some(r), _) => {
+                if r < 2 {
+                    return Err(ScenarioError {
+                        file: file.to_string(),
+                        line: None,
+                        key: Some("--replicates".into()),
+                        message: format!("must be at least 2, got {r}"),
+                    });
+                }
+                r
+            }
+            (None, Some(r)) => cx.positive(r, "replicates", 2)?,
+            (None, None) => DEFAULT_REPLICATES,
+        };
+        let blocks = match &spec.blocks {
+            Some(b) => {
+                let b = cx.positive(b, "blocks", 1)?;
+                b.min(replicates)
+            }
+            None => replicates.min(DEFAULT_MAX_BLOCKS),
+        };
+        let seed = opts.seed.or(spec.seed).unwrap_or(DEFAULT_SEED);
+
+        let source_name = spec.data.source.get_ref().as_str();
+        let source = match source_name {
+            "synthetic" => Source::Synthetic(synthetic(&cx, &spec.data)?),
+            "table" | "twin" => {
+                return Err(cx.err(
+                    Some(spec.data.source.span()),
+                    "data.source",
+                    format!(
+                        "source `{source_name}` is not supported by this version; use `synthetic`"
+                    ),
+                ))
+            }
+            other => {
+                return Err(cx.err(
+                    Some(spec.data.source.span()),
+                    "data.source",
+                    format!("unknown source `{other}`; expected `synthetic`, `table` or `twin`"),
+                ))
+            }
+        };
+
+        let loss = match &spec.loss {
+            None => LossKind::Squared,
+            Some(l) => match l.kind.get_ref().as_str() {
+                "squared" => LossKind::Squared,
+                "zero_one" => {
+                    return Err(cx.err(
+                        Some(l.kind.span()),
+                        "loss.kind",
+                        "`zero_one` needs a classification scenario ([data.classes]), which this version does not support yet",
+                    ))
+                }
+                other => {
+                    return Err(cx.err(
+                        Some(l.kind.span()),
+                        "loss.kind",
+                        format!("unknown loss `{other}`; expected `squared` or `zero_one`"),
+                    ))
+                }
+            },
+        };
+        let task = Task::Regress;
+
+        let (n_train, n_inputs) = match &source {
+            Source::Synthetic(s) => (s.train_size, s.process.inputs.len()),
+        };
+        let fam = build_family(&cx, &spec.model)?;
+        if !fam.supports(task) {
+            return Err(cx.err(
+                Some(spec.model.family.span()),
+                "model.family",
+                format!("family `{}` does not support this task", fam.name()),
+            ));
+        }
+        let (grid, grid_kind) = expand_grid(&cx, &spec.model.grid)?;
+        fam.check_grid(&grid, n_train, n_inputs)
+            .map_err(|m| cx.err(Some(spec.model.grid.span()), "model.grid", m))?;
+
+        Ok(Plan {
+            file: file.to_string(),
+            name,
+            about: spec.about.clone().unwrap_or_default(),
+            seed,
+            replicates,
+            blocks,
+            source,
+            family: fam,
+            grid,
+            grid_kind,
+            loss,
+            task,
+        })
+    }
+
+    /// Number of training rows per replicate.
+    pub fn train_size(&self) -> usize {
+        match &self.source {
+            Source::Synthetic(s) => s.train_size,
+        }
+    }
+
+    /// Replicate index range `[start, end)` of block `b` (blocks differ in size by at most one).
+    pub fn block_range(&self, b: u64) -> (u64, u64) {
+        let r = self.replicates;
+        let nb = self.blocks;
+        (b * r / nb, (b + 1) * r / nb)
+    }
+}
+
+fn build_family(cx: &Ctx<'_>, m: &ModelSpec) -> Result<Arc<dyn Family>, ScenarioError> {
+    let name = m.family.get_ref().as_str();
+    let reject =
+        |present: bool, key: &str, span: Option<Range<usize>>| -> Result<(), ScenarioError> {
+            if present {
+                Err(cx.err(
+                    span,
+                    &format!("model.{key}"),
+                    format!("not an option of family `{name}`"),
+                ))
+            } else {
+                Ok(())
+            }
+        };
+    let fam: Arc<dyn Family> = match name {
+        "tree" => {
+            reject(
+                m.standardize.is_some(),
+                "standardize",
+                Some(m.family.span()),
+            )?;
+            let mut t = family::tree::TreeFamily::default();
+            if let Some(l) = &m.min_samples_leaf {
+                t.min_samples_leaf = cx.positive(l, "model.min_samples_leaf", 1)? as usize;
+            }
+            if let Some(c) = &m.criterion {
+                t.criterion = match c.get_ref().as_str() {
+                    "gini" => family::tree::Criterion::Gini,
+                    "entropy" => family::tree::Criterion::Entropy,
+                    other => {
+                        return Err(cx.err(
+                            Some(c.span()),
+                            "model.criterion",
+                            format!("unknown criterion `{other}`; expected `gini` or `entropy`"),
+                        ))
+                    }
+                };
+            }
+            Arc::new(t)
+        }
+        "knn" => {
+            reject(
+                m.min_samples_leaf.is_some(),
+                "min_samples_leaf",
+                m.min_samples_leaf.as_ref().map(|s| s.span()),
+            )?;
+            reject(
+                m.criterion.is_some(),
+                "criterion",
+                m.criterion.as_ref().map(|s| s.span()),
+            )?;
+            let mut k = family::knn::KnnFamily::default();
+            if let Some(s) = m.standardize {
+                k.standardize = s;
+            }
+            Arc::new(k)
+        }
+        "poly" | "ridge" => {
+            reject(
+                m.min_samples_leaf.is_some(),
+                "min_samples_leaf",
+                m.min_samples_leaf.as_ref().map(|s| s.span()),
+            )?;
+            reject(
+                m.criterion.is_some(),
+                "criterion",
+                m.criterion.as_ref().map(|s| s.span()),
+            )?;
+            reject(
+                m.standardize.is_some(),
+                "standardize",
+                Some(m.family.span()),
+            )?;
+            if name == "poly" {
+                Arc::new(family::poly::PolyFamily)
+            } else {
+                Arc::new(family::ridge::RidgeFamily)
+            }
+        }
+        other => {
+            let known: Vec<&str> = family::catalogue().iter().map(|f| f.name).collect();
+            return Err(cx.err(
+                Some(m.family.span()),
+                "model.family",
+                format!("unknown family `{other}`; known: {}", known.join(", ")),
+            ));
+        }
+    };
+    Ok(fam)
+}
+
+fn number(v: &toml::Value) -> Option<f64> {
+    match v {
+        toml::Value::Integer(i) => Some(*i as f64),
+        toml::Value::Float(f) => Some(*f),
+        _ => None,
+    }
+}
+
+fn expand_grid(
+    cx: &Ctx<'_>,
+    g: &Spanned<toml::Value>,
+) -> Result<(Vec<f64>, GridKind), ScenarioError> {
+    let span = Some(g.span());
+    let e = |m: String| cx.err(span.clone(), "model.grid", m);
+    let (mut vals, kind) = match g.get_ref() {
+        toml::Value::Array(a) => {
+            let mut out = Vec::with_capacity(a.len());
+            for (i, v) in a.iter().enumerate() {
+                match number(v) {
+                    Some(x) if x.is_finite() => out.push(x),
+                    _ => return Err(e(format!("entry {} is not a finite number", i + 1))),
+                }
+            }
+            (out, GridKind::List)
+        }
+        toml::Value::Table(t) => {
+            for k in t.keys() {
+                if !["from", "to", "step", "log", "count"].contains(&k.as_str()) {
+                    return Err(e(format!(
+                        "unknown grid key `{k}`; use `{{ from, to, step }}` or `{{ log = [lo, hi], count }}`"
+                    )));
+                }
+            }
+            if let Some(lg) = t.get("log") {
+                let pair: Vec<f64> = lg
+                    .as_array()
+                    .map(|a| a.iter().filter_map(number).collect())
+                    .unwrap_or_default();
+                if pair.len() != 2 || !(pair[0] > 0.0 && pair[1] > pair[0] && pair[1].is_finite()) {
+                    return Err(e("`log` must be [lo, hi] with 0 < lo < hi".into()));
+                }
+                let count = t.get("count").and_then(|c| c.as_integer()).unwrap_or(0);
+                if !(2..=10_000).contains(&count) {
+                    return Err(e("`count` must be a whole number from 2 to 10000".into()));
+                }
+                if t.contains_key("from") || t.contains_key("to") || t.contains_key("step") {
+                    return Err(e(
+                        "mix of `log` with `from`/`to`/`step`; use one form".into()
+                    ));
+                }
+                let (a, b) = (pair[0].ln(), pair[1].ln());
+                let n = count as usize;
+                let v = (0..n)
+                    .map(|i| {
+                        if i == 0 {
+                            pair[0]
+                        } else if i == n - 1 {
+                            pair[1]
+                        } else {
+                            (a + (b - a) * i as f64 / (n - 1) as f64).exp()
+                        }
+                    })
+                    .collect();
+                (v, GridKind::Log)
+            } else {
+                let from = t.get("from").and_then(number);
+                let to = t.get("to").and_then(number);
+                let step = t.get("step").map(number).unwrap_or(Some(1.0));
+                let (Some(from), Some(to), Some(step)) = (from, to, step) else {
+                    return Err(e(
+                        "a range grid needs numbers `from` and `to` (and optionally `step`)".into(),
+                    ));
+                };
+                if t.contains_key("count") {
+                    return Err(e("`count` goes with `log`; a range uses `step`".into()));
+                }
+                if !(step > 0.0) || !from.is_finite() || !to.is_finite() || to < from {
+                    return Err(e(format!(
+                        "range from {from} to {to} step {step} is empty or invalid"
+                    )));
+                }
+                let n = ((to - from) / step + 1e-9).floor() as usize + 1;
+                if n > 10_000 {
+                    return Err(e(format!("range has {n} values; at most 10000")));
+                }
+                (
+                    (0..n).map(|i| from + step * i as f64).collect(),
+                    GridKind::Range,
+                )
+            }
+        }
+        _ => {
+            return Err(e(
+                "must be a list of numbers, `{ from, to, step }` or `{ log = [lo, hi], count }`"
+                    .into(),
+            ))
+        }
+    };
+    if vals.is_empty() {
+        return Err(e("is empty; give at least one value".into()));
+    }
+    vals.sort_by(|a, b| a.total_cmp(b));
+    for w in vals.windows(2) {
+        if w[0] == w[1] {
+            return Err(e(format!("value {} appears twice", w[0])));
+        }
+    }
+    Ok((vals, kind))
+}
+
+fn pair(cx: &Ctx<'_>, v: &Spanned<Vec<f64>>, key: &str) -> Result<(f64, f64), ScenarioError> {
+    let a = v.get_ref();
+    if a.len() != 2 || !a[0].is_finite() || !a[1].is_finite() {
+        return Err(cx.err(Some(v.span()), key, "must be two finite numbers [a, b]"));
+    }
+    Ok((a[0], a[1]))
+}
+
+fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> {
+    let key = format!("data.inputs[{i}]");
+    let name = s.name.get_ref().clone();
+    let valid_name = name
+        .chars()
+        .next()
+        .is_some_and(|c| c.is_ascii_alphabetic() || c == '_')
+        && name.chars().all(|c| c.is_ascii_alphanumeric() || c == '_');
+    if !valid_name || name == "pi" || name == "e" {
+        return Err(cx.err(
+            Some(s.name.span()),
+            &format!("{key}.name"),
+            format!("`{name}` is not a usable variable name (letters, digits, _; not `pi` or `e`)"),
+        ));
+    }
+    let given = [s.uniform.is_some(), s.normal.is_some(), s.even.is_some()]
+        .iter()
+        .filter(|&&b| b)
+        .count();
+    if given != 1 {
+        return Err(cx.err(
+            Some(s.name.span()),
+            &key,
+            format!("input `{name}` needs exactly one of `uniform`, `normal`, `even`"),
+        ));
+    }
+    let dist = if let Some(u) = &s.uniform {
+        let (a, b) = pair(cx, u, &format!("{key}.uniform"))?;
+        if b <= a {
+            return Err(cx.err(Some(u.span()), &format!("{key}.uniform"), "needs lo < hi"));
+        }
+        InputDist::Uniform(a, b)
+    } else if let Some(n) = &s.normal {
+        let (m, sd) = pair(cx, n, &format!("{key}.normal"))?;
+        if sd <= 0.0 {
+            return Err(cx.err(Some(n.span()), &format!("{key}.normal"), "sd must be > 0"));
+        }
+        InputDist::Normal(m, sd)
+    } else if let Some(ev) = &s.even {
+        let (a, b) = pair(cx, ev, &format!("{key}.even"))?;
+        if b <= a {
+            return Err(cx.err(Some(ev.span()), &format!("{key}.even"), "needs lo < hi"));
+        }
+        InputDist::Even(a, b)
+    } else {
+        unreachable!("exactly one distribution checked above")
+    };
+    Ok(Input { name, dist })
+}
+
+fn formula(
+    cx: &Ctx<'_>,
+    f: &Spanned<String>,
+    key: &str,
+    names: &[&str],
+) -> Result<Formula, ScenarioError> {
+    Formula::parse(f.get_ref(), names)
+        .map_err(|e| cx.err(Some(f.span()), key, format!("in `{}`: {e}", f.get_ref())))
+}
+
+fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError> {
+    let train_size = match &d.train_size {
+        Some(n) => cx.positive(n, "data.train_size", 2)? as usize,
+        None => {
+            return Err(cx.err(
+                Some(d.source.span()),
+                "data.train_size",
+                "is required for a synthetic source",
+            ))
+        }
+    };
+    let design = match d.design.as_ref().map(|s| s.get_ref().as_str()) {
+        None | Some("random") => Design::Random,
+        Some("fixed") => Design::Fixed,
+        Some(other) => {
+            return Err(cx.err(
+                d.design.as_ref().map(|s| s.span()),
+                "data.design",
+                format!("unknown design `{other}`; expected `random` or `fixed`"),
+            ))
+        }
+    };
+    let eval_at_design = match d.eval.as_ref().map(|s| s.get_ref().as_str()) {
+        None | Some("fresh") => false,
+        Some("design") => {
+            if design != Design::Fixed {
+                return Err(cx.err(
+                    d.eval.as_ref().map(|s| s.span()),
+                    "data.eval",
+                    "`design` evaluation needs `design = \"fixed\"` (random designs change the inputs every replicate)",
+                ));
+            }
+            true
+        }
+        Some(other) => {
+            return Err(cx.err(
+                d.eval.as_ref().map(|s| s.span()),
+                "data.eval",
+                format!("unknown value `{other}`; expected `fresh` or `design`"),
+            ))
+        }
+    };
+    let eval_size = if eval_at_design {
+        if let Some(m) = &d.eval_size {
+            if m.get_ref() != &(train_size as i64) {
+                return Err(cx.err(
+                    Some(m.span()),
+                    "data.eval_size",
+                    "with `eval = \"design\"` the evaluation points are the training inputs; drop eval_size or set it to train_size",
+                ));
+            }
+        }
+        train_size
+    } else {
+        match &d.eval_size {
+            Some(m) => cx.positive(m, "data.eval_size", 1)? as usize,
+            None => 1000,
+        }
+    };
+
+    let Some(truth_spec) = &d.truth else {
+        return Err(cx.err(
+            Some(d.source.span()),
+            "data.truth",
+            "a synthetic source needs [data.truth]",
+        ));
+    };
+    let builtin = match &truth_spec.builtin {
+        Some(b) => Some(Builtin::from_name(b.get_ref()).ok_or_else(|| {
+            cx.err(
+                Some(b.span()),
+                "data.truth.builtin",
+                format!(
+                    "unknown builtin `{}`; expected friedman1, friedman2 or friedman3",
+                    b.get_ref()
+                ),
+            )
+        })?),
+        None => None,
+    };
+    let inputs: Vec<Input> = match (&d.inputs, builtin) {
+        (Some(list), _) => list
+            .iter()
+            .enumerate()
+            .map(|(i, s)| input(cx, i, s))
+            .collect::<Result<_, _>>()?,
+        (None, Some(b)) => b.default_inputs(),
+        (None, None) => {
+            return Err(cx.err(
+                Some(d.source.span()),
+                "data.inputs",
+                "a synthetic source needs at least one [[data.inputs]]",
+            ))
+        }
+    };
+    if inputs.is_empty() {
+        return Err(cx.err(
+            Some(d.source.span()),
+            "data.inputs",
+            "needs at least one input",
+        ));
+    }
+    for (i, a) in inputs.iter().enumerate() {
+        if inputs[..i].iter().any(|b| b.name == a.name) {
+            let span = d
+                .inputs
+                .as_ref()
+                .and_then(|l| l.get(i))
+                .map(|s| s.name.span());
+            return Err(cx.err(
+                span,
+                &format!("data.inputs[{i}].name"),
+                format!("input `{}` is defined twice", a.name),
+            ));
+        }
+    }
+    let names: Vec<&str> = inputs.iter().map(|i| i.name.as_str()).collect();
+    let truth = match (&truth_spec.formula, builtin) {
+        (Some(_), Some(_)) => {
+            return Err(cx.err(
+                truth_spec.formula.as_ref().map(|s| s.span()),
+                "data.truth",
+                "give either `formula` or `builtin`, not both",
+            ))
+        }
+        (Some(f), None) => Truth::Formula(formula(cx, f, "data.truth.formula", &names)?),
+        (None, Some(b)) => {
+            if inputs.len() < b.min_inputs() {
+                return Err(cx.err(
+                    truth_spec.builtin.as_ref().map(|s| s.span()),
+                    "data.inputs",
+                    format!(
+                        "{} reads {} inputs; only {} given",
+                        b.name(),
+                        b.min_inputs(),
+                        inputs.len()
+                    ),
+                ));
+            }
+            Truth::Builtin(b)
+        }
+        (None, None) => {
+            return Err(cx.err(
+                Some(d.source.span()),
+                "data.truth",
+                "needs `formula` or `builtin`",
+            ))
+        }
+    };
+    let noise = match &d.noise {
+        None => match builtin {
+            Some(b) => Noise::Constant(b.default_sd()),
+            None => {
+                return Err(cx.err(
+                    Some(d.source.span()),
+                    "data.noise",
+                    "a formula truth needs [data.noise] with `sd` or `sd_formula`",
+                ))
+            }
+        },
+        Some(n) => match (&n.sd, &n.sd_formula) {
+            (Some(sd), None) => {
+                let v = *sd.get_ref();
+                if !(v.is_finite() && v >= 0.0) {
+                    return Err(cx.err(
+                        Some(sd.span()),
+                        "data.noise.sd",
+                        format!("must be a finite number >= 0, got {v}"),
+                    ));
+                }
+                Noise::Constant(v)
+            }
+            (None, Some(f)) => Noise::Formula(formula(cx, f, "data.noise.sd_formula", &names)?),
+            (Some(sd), Some(_)) => {
+                return Err(cx.err(
+                    Some(sd.span()),
+                    "data.noise",
+                    "give either `sd` or `sd_formula`, not both",
+                ))
+            }
+            (None, None) => match builtin {
+                Some(b) => Noise::Constant(b.default_sd()),
+                None => {
+                    return Err(cx.err(
+                        Some(d.source.span()),
+                        "data.noise",
+                        "needs `sd` or `sd_formula`",
+                    ))
+                }
+            },
+        },
+    };
+    Ok(SyntheticPlan {
+        process: Synthetic {
+            inputs,
+            truth,
+            noise,
+        },
+        train_size,
+        eval_size,
+        design,
+        eval_at_design,
+    })
+}

@@ -1,0 +1,132 @@
+//! The scenario file exactly as the user wrote it (TOML, deserialized with serde). Nothing here
+//! is validated beyond types and unknown keys; `plan` turns a spec into a checked plan.
+//! This is the only module whose types derive `Deserialize`.
+
+use serde::Deserialize;
+use toml::Spanned;
+
+/// Top level of a scenario file.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ScenarioSpec {
+    /// Short name, used in outputs.
+    pub name: Spanned<String>,
+    /// One or two sentences saying what the scenario represents.
+    #[serde(default)]
+    pub about: Option<String>,
+    /// Master seed; every random stream derives from it.
+    #[serde(default)]
+    pub seed: Option<u64>,
+    /// Number of replicate training sets R (at least 2).
+    #[serde(default)]
+    pub replicates: Option<Spanned<i64>>,
+    /// Number of replicate blocks (the unit of parallel work, shards, checkpoints and the
+    /// jackknife); default `min(R, 32)`.
+    #[serde(default)]
+    pub blocks: Option<Spanned<i64>>,
+    /// Where training sets come from.
+    pub data: DataSpec,
+    /// The model family and its complexity grid.
+    pub model: ModelSpec,
+    /// The loss to decompose.
+    #[serde(default)]
+    pub loss: Option<LossSpec>,
+}
+
+/// `[data]`: the data-generating process.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct DataSpec {
+    /// `synthetic` (other sources arrive with later versions).
+    pub source: Spanned<String>,
+    /// Training set size n.
+    #[serde(default)]
+    pub train_size: Option<Spanned<i64>>,
+    /// Number of evaluation points m.
+    #[serde(default)]
+    pub eval_size: Option<Spanned<i64>>,
+    /// `random` (fresh inputs every replicate) or `fixed` (inputs drawn once, noise redrawn).
+    #[serde(default)]
+    pub design: Option<Spanned<String>>,
+    /// `design` evaluates at the training inputs (fixed design only); `fresh` (default) draws
+    /// evaluation inputs from the input distribution.
+    #[serde(default)]
+    pub eval: Option<Spanned<String>>,
+    /// Inputs, in order; names are the formula's variables.
+    #[serde(default)]
+    pub inputs: Option<Vec<InputSpec>>,
+    /// The regression function f(x).
+    #[serde(default)]
+    pub truth: Option<TruthSpec>,
+    /// The noise model.
+    #[serde(default)]
+    pub noise: Option<NoiseSpec>,
+}
+
+/// `[[data.inputs]]`: one input and its distribution (exactly one of the distribution keys).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct InputSpec {
+    /// Variable name.
+    pub name: Spanned<String>,
+    /// `[lo, hi]`: uniform on the interval.
+    #[serde(default)]
+    pub uniform: Option<Spanned<Vec<f64>>>,
+    /// `[mean, sd]`: Gaussian.
+    #[serde(default)]
+    pub normal: Option<Spanned<Vec<f64>>>,
+    /// `[lo, hi]`: evenly spaced over the sample (point i of n at lo + (hi-lo)·i/(n-1)).
+    #[serde(default)]
+    pub even: Option<Spanned<Vec<f64>>>,
+}
+
+/// `[data.truth]`: a formula or a built-in published test function.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct TruthSpec {
+    /// Formula over the input names.
+    #[serde(default)]
+    pub formula: Option<Spanned<String>>,
+    /// `friedman1`, `friedman2` or `friedman3` (Friedman 1991).
+    #[serde(default)]
+    pub builtin: Option<Spanned<String>>,
+}
+
+/// `[data.noise]`: Gaussian noise with a constant or input-dependent standard deviation.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct NoiseSpec {
+    /// Constant standard deviation.
+    #[serde(default)]
+    pub sd: Option<Spanned<f64>>,
+    /// Standard deviation as a formula over the inputs.
+    #[serde(default)]
+    pub sd_formula: Option<Spanned<String>>,
+}
+
+/// `[model]`: family, grid and family options.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ModelSpec {
+    /// Family name (`lossprism families` lists them).
+    pub family: Spanned<String>,
+    /// The knob values: a list, `{ from, to, step }` or `{ log = [lo, hi], count }`.
+    pub grid: Spanned<toml::Value>,
+    /// Tree: minimum samples per leaf (default 1).
+    #[serde(default)]
+    pub min_samples_leaf: Option<Spanned<i64>>,
+    /// Tree (classification): `gini` or `entropy`.
+    #[serde(default)]
+    pub criterion: Option<Spanned<String>>,
+    /// k-NN: standardize inputs with the training mean and sd (default false).
+    #[serde(default)]
+    pub standardize: Option<bool>,
+}
+
+/// `[loss]`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct LossSpec {
+    /// `squared` (default) or `zero_one`.
+    pub kind: Spanned<String>,
+}
