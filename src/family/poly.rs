@@ -330,7 +330,7 @@ impl HouseholderQr {
             let tail = &mut col[k..];
             let r = norm(tail);
             if let Some(t) = drop_rtol {
-                if !(r > t * orig) {
+                if r <= t * orig {
                     pos.push(None);
                     continue;
                 }

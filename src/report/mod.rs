@@ -266,8 +266,28 @@ pub fn fmt_value(v: f64) -> String {
     } else if v != 0.0 && (v.abs() < 1e-3 || v.abs() >= 1e6) {
         format!("{v:.3e}")
     } else {
-        let s = format!("{v:.6}");
-        s.trim_end_matches('0').trim_end_matches('.').to_string()
+        // Four significant digits, trailing zeros dropped (3.162, 31.62, 0.01).
+        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
+        let s = format!("{v:.digits$}");
+        if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        }
+    }
+}
+
+/// Formats a standard error with two significant digits.
+pub fn fmt_se(v: f64) -> String {
+    if !v.is_finite() {
+        return "n/a".into();
+    }
+    let a = v.abs();
+    if a != 0.0 && (a < 1e-3 || a >= 1e6) {
+        format!("{v:.1e}")
+    } else {
+        let digits = if a == 0.0 { 2 } else { (1 - a.log10().floor() as i32).clamp(0, 6) as usize };
+        format!("{v:.digits$}")
     }
 }
 
@@ -289,41 +309,56 @@ pub fn fmt_num(v: f64) -> String {
     }
 }
 
-fn ranges(knob: &str, values: &[f64]) -> String {
-    match values {
-        [] => String::new(),
-        [v] => format!("{knob} = {}", fmt_value(*v)),
-        [a, .., b] => format!("{knob} from {} to {}", fmt_value(*a), fmt_value(*b)),
+/// Describes the grid values where `pick` holds as runs of consecutive grid values
+/// (`1 to 3 and 8`).
+fn runs(points: &[PointRow], pick: impl Fn(&PointRow) -> bool) -> String {
+    let mut parts: Vec<String> = Vec::new();
+    let mut i = 0;
+    while i < points.len() {
+        if !pick(&points[i]) {
+            i += 1;
+            continue;
+        }
+        let start = i;
+        while i + 1 < points.len() && pick(&points[i + 1]) {
+            i += 1;
+        }
+        parts.push(if start == i {
+            fmt_value(points[i].value)
+        } else {
+            format!("{} to {}", fmt_value(points[start].value), fmt_value(points[i].value))
+        });
+        i += 1;
+    }
+    match parts.len() {
+        0 => String::new(),
+        1 => parts.remove(0),
+        _ => {
+            let last = parts.pop().unwrap_or_default();
+            format!("{} and {last}", parts.join(", "))
+        }
     }
 }
 
 /// One plain sentence (or two) reading the curve: where bias² dominates, where variance does,
 /// and where the lowest expected loss lies.
 pub fn reading(knob: &str, points: &[PointRow], best: &Best) -> String {
-    let bias_side: Vec<f64> = points
-        .iter()
-        .filter(|p| p.bias_sq > p.variance)
-        .map(|p| p.value)
-        .collect();
-    let var_side: Vec<f64> = points
-        .iter()
-        .filter(|p| p.bias_sq <= p.variance)
-        .map(|p| p.value)
-        .collect();
-    let mut out = if var_side.is_empty() {
-        format!("Bias² exceeds variance at every {knob} tried: the family underfits across the grid (consider larger values).")
-    } else if bias_side.is_empty() {
-        format!("Variance exceeds bias² at every {knob} tried: the family overfits across the grid (consider smaller values).")
+    let bias_dominates = |p: &PointRow| p.bias_sq > p.variance;
+    let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
+    let mut out = if n_bias == points.len() {
+        format!("Bias² exceeds variance at every {knob} tried: the family underfits across the whole grid.")
+    } else if n_bias == 0 {
+        format!("Variance exceeds bias² at every {knob} tried: the family overfits across the whole grid.")
     } else {
         format!(
-            "Bias² dominates for {} and variance dominates for {}.",
-            ranges(knob, &bias_side),
-            ranges(knob, &var_side)
+            "Bias² dominates at {knob} {}; variance dominates at {knob} {}.",
+            runs(points, bias_dominates),
+            runs(points, |p| !bias_dominates(p))
         )
     };
     let se = best
         .stderr
-        .map(|s| format!(" ± {}", fmt_num(s)))
+        .map(|s| format!(" ± {}", fmt_se(s)))
         .unwrap_or_default();
     out.push_str(&format!(
         " Lowest expected loss at {knob} = {}: {}{se}",
@@ -339,10 +374,7 @@ pub fn reading(knob: &str, points: &[PointRow], best: &Best) -> String {
     if others.is_empty() {
         out.push('.');
     } else {
-        out.push_str(&format!(
-            "; {} within one standard error.",
-            others.join(", ")
-        ));
+        out.push_str(&format!(" ({} within one standard error).", others.join(", ")));
     }
     out
 }

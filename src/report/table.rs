@@ -1,11 +1,11 @@
 //! The terminal table: aligned columns, `±` standard errors, the best row marked, a one-line
 //! legend and the reading of the curve.
 
-use super::{fmt_num, fmt_value, ResultDoc};
+use super::{fmt_num, fmt_se, fmt_value, ResultDoc};
 
 fn with_se(v: f64, se: Option<f64>) -> String {
     match se {
-        Some(s) => format!("{} ± {}", fmt_num(v), fmt_num(s)),
+        Some(s) => format!("{} ± {}", fmt_num(v), fmt_se(s)),
         None => fmt_num(v),
     }
 }
