@@ -1327,13 +1327,12 @@ mod tests {
             let f = Formula::parse(src, &vars).unwrap();
             let mut out = vec![f64::NAN; n];
             f.eval_rows(x.view(), &mut out);
-            for r in 0..n {
+            for (r, got) in out.iter().enumerate() {
                 let row = x.row(r).to_vec();
                 let want = f.eval(&row);
                 assert!(
-                    out[r].to_bits() == want.to_bits() || (out[r].is_nan() && want.is_nan()),
-                    "{src} at row {r}: {} vs {want}",
-                    out[r]
+                    got.to_bits() == want.to_bits() || (got.is_nan() && want.is_nan()),
+                    "{src} at row {r}: {got} vs {want}"
                 );
             }
         }

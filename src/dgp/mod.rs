@@ -174,15 +174,70 @@ impl Noise {
     }
 }
 
-/// A synthetic regression process.
+/// How the true class probabilities are given.
+#[derive(Debug, Clone)]
+pub enum ClassKind {
+    /// Two classes: P(second label | x).
+    Probability(Formula),
+    /// K logits, class probabilities by softmax.
+    Logits(Vec<Formula>),
+    /// A deterministic rule (class index, or a 0/1 condition for two classes) with label-flip
+    /// noise: the label is replaced with probability `flip` by one of the other K-1 classes,
+    /// uniformly.
+    Flip {
+        /// The rule.
+        rule: Formula,
+        /// Flip probability.
+        flip: f64,
+    },
+}
+
+/// A classification response: labels and P(Y = c | x).
+#[derive(Debug, Clone)]
+pub struct ClassModel {
+    /// Labels; class c is `labels[c]`.
+    pub labels: Vec<String>,
+    /// The probability model.
+    pub kind: ClassKind,
+}
+
+impl ClassModel {
+    /// Human-readable form.
+    pub fn describe(&self) -> String {
+        match &self.kind {
+            ClassKind::Probability(f) => format!("P({} | x) = {}", self.labels[1], f.source()),
+            ClassKind::Logits(fs) => format!(
+                "softmax of logits [{}]",
+                fs.iter().map(|f| f.source()).collect::<Vec<_>>().join(", ")
+            ),
+            ClassKind::Flip { rule, flip } => {
+                format!("rule {} with labels flipped with probability {flip}", rule.source())
+            }
+        }
+    }
+}
+
+/// What is observed at an input: a noisy real response or a class label.
+#[derive(Debug, Clone)]
+pub enum Response {
+    /// `y = f(x) + σ(x) z`.
+    Regression {
+        /// f(x).
+        truth: Truth,
+        /// σ(x).
+        noise: Noise,
+    },
+    /// `y ~ Categorical(p(x))`.
+    Classes(ClassModel),
+}
+
+/// A synthetic process: inputs and a response model.
 #[derive(Debug, Clone)]
 pub struct Synthetic {
     /// Inputs in column order.
     pub inputs: Vec<Input>,
-    /// f(x).
-    pub truth: Truth,
-    /// σ(x).
-    pub noise: Noise,
+    /// The response model.
+    pub response: Response,
 }
 
 fn describe_row(inputs: &[Input], row: &[f64]) -> String {
@@ -221,17 +276,21 @@ impl Synthetic {
         x
     }
 
-    /// f at each row; an error names the formula and the input values where it is not finite.
+    /// f at each row (regression); an error names the formula and the input values where it is
+    /// not finite.
     pub fn truth_at(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>, Error> {
+        let Response::Regression { truth, .. } = &self.response else {
+            return Err(Error::Data("a classification process has no regression truth".into()));
+        };
         let mut out = Array1::zeros(x.nrows());
         let mut buf = vec![0.0; x.ncols()];
         for (i, row) in x.rows().into_iter().enumerate() {
             copy_row(row, &mut buf);
-            let v = self.truth.eval_row(&buf);
+            let v = truth.eval_row(&buf);
             if !v.is_finite() {
                 return Err(Error::Data(format!(
                     "truth `{}` gives {v} at {}",
-                    self.truth.describe(),
+                    truth.describe(),
                     describe_row(&self.inputs, &buf)
                 )));
             }
@@ -240,9 +299,79 @@ impl Synthetic {
         Ok(out)
     }
 
+    /// Class probabilities at each row (`n × K`, rows sum to 1). An error names the formula and
+    /// the inputs where a probability is outside [0, 1] or not finite.
+    pub fn probs_at(&self, x: ArrayView2<'_, f64>) -> Result<Array2<f64>, Error> {
+        let Response::Classes(model) = &self.response else {
+            return Err(Error::Data("a regression process has no class probabilities".into()));
+        };
+        let k = model.labels.len();
+        let mut out = Array2::zeros((x.nrows(), k));
+        let mut buf = vec![0.0; x.ncols()];
+        let mut logits = vec![0.0; k];
+        for (i, row) in x.rows().into_iter().enumerate() {
+            copy_row(row, &mut buf);
+            let at = || describe_row(&self.inputs, &buf);
+            match &model.kind {
+                ClassKind::Probability(f) => {
+                    let p = f.eval(&buf);
+                    if !(0.0..=1.0).contains(&p) {
+                        return Err(Error::Data(format!(
+                            "classes probability `{}` gives {p} at {} (must be within [0, 1])",
+                            f.source(),
+                            at()
+                        )));
+                    }
+                    out[[i, 0]] = 1.0 - p;
+                    out[[i, 1]] = p;
+                }
+                ClassKind::Logits(fs) => {
+                    for (c, f) in fs.iter().enumerate() {
+                        let v = f.eval(&buf);
+                        if !v.is_finite() {
+                            return Err(Error::Data(format!(
+                                "classes logit `{}` gives {v} at {}",
+                                f.source(),
+                                at()
+                            )));
+                        }
+                        logits[c] = v;
+                    }
+                    let mx = logits.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+                    let z: f64 = logits.iter().map(|l| (l - mx).exp()).sum();
+                    for c in 0..k {
+                        out[[i, c]] = (logits[c] - mx).exp() / z;
+                    }
+                }
+                ClassKind::Flip { rule, flip } => {
+                    let v = rule.eval(&buf);
+                    if !(v.is_finite() && v >= 0.0 && v.fract() == 0.0 && (v as usize) < k) {
+                        return Err(Error::Data(format!(
+                            "classes rule `{}` gives {v} at {} (must be a class index 0..{})",
+                            rule.source(),
+                            at(),
+                            k - 1
+                        )));
+                    }
+                    let other = flip / (k - 1) as f64;
+                    for c in 0..k {
+                        out[[i, c]] = other;
+                    }
+                    out[[i, v as usize]] = 1.0 - flip;
+                }
+            }
+        }
+        Ok(out)
+    }
+
     /// σ(x) at each row; an error names the formula and inputs where it is negative or not finite.
+    /// A classification process has σ = 0.
     pub fn sd_at(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>, Error> {
-        match &self.noise {
+        let noise = match &self.response {
+            Response::Regression { noise, .. } => noise,
+            Response::Classes(_) => return Ok(Array1::zeros(x.nrows())),
+        };
+        match noise {
             Noise::Constant(s) => Ok(Array1::from_elem(x.nrows(), *s)),
             Noise::Formula(f) => {
                 let mut out = Array1::zeros(x.nrows());
@@ -269,6 +398,27 @@ fn copy_row(row: ArrayView1<'_, f64>, buf: &mut [f64]) {
     for (b, v) in buf.iter_mut().zip(row.iter()) {
         *b = *v;
     }
+}
+
+/// Draws one label per row from the class probabilities (`n × K`) by inverse CDF with one
+/// uniform draw per row, in row order. Labels are class indices stored as `f64`.
+pub fn draw_labels<R: Rng + ?Sized>(probs: &Array2<f64>, rng: &mut R) -> Array1<f64> {
+    let k = probs.ncols();
+    let mut y = Array1::zeros(probs.nrows());
+    for (i, row) in probs.rows().into_iter().enumerate() {
+        let u: f64 = rng.gen();
+        let mut acc = 0.0;
+        let mut label = k - 1;
+        for (c, p) in row.iter().enumerate() {
+            acc += p;
+            if u < acc {
+                label = c;
+                break;
+            }
+        }
+        y[i] = label as f64;
+    }
+    y
 }
 
 /// Adds Gaussian noise: `y_i = f_i + σ_i z_i` with z drawn from `rng` in index order.
@@ -301,8 +451,10 @@ mod tests {
                 name: "t".into(),
                 dist: InputDist::Even(0.0, 1.0),
             }],
-            truth: Truth::Builtin(Builtin::Friedman1),
-            noise: Noise::Constant(1.0),
+            response: Response::Regression {
+                truth: Truth::Builtin(Builtin::Friedman1),
+                noise: Noise::Constant(1.0),
+            },
         };
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(1);
         let x = s.draw_inputs(5, &mut rng);

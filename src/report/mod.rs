@@ -8,7 +8,7 @@ use std::path::Path;
 
 use serde::Serialize;
 
-use crate::dgp::{Noise, Truth};
+use crate::dgp::Response;
 use crate::error::Error;
 use crate::runner::Outcome;
 use crate::scenario::{Design, GridKind, Plan, Source};
@@ -48,6 +48,9 @@ pub struct ScenarioEcho {
     pub truth: String,
     /// Noise in words.
     pub noise: String,
+    /// Class labels (classification only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub labels: Option<Vec<String>>,
     /// Grid values.
     pub grid: Vec<f64>,
     /// `list`, `range` or `log`.
@@ -175,12 +178,17 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
                 distribution: i.dist.describe(),
             })
             .collect(),
-        truth: match &s.process.truth {
-            Truth::Formula(f) => f.source().to_string(),
-            Truth::Builtin(b) => b.name().to_string(),
+        truth: match &s.process.response {
+            Response::Regression { truth, .. } => truth.describe(),
+            Response::Classes(m) => m.describe(),
         },
-        noise: match &s.process.noise {
-            Noise::Constant(_) | Noise::Formula(_) => s.process.noise.describe(),
+        noise: match &s.process.response {
+            Response::Regression { noise, .. } => noise.describe(),
+            Response::Classes(_) => "label noise from the class probabilities".into(),
+        },
+        labels: match &s.process.response {
+            Response::Regression { .. } => None,
+            Response::Classes(m) => Some(m.labels.clone()),
         },
         grid: plan.grid.clone(),
         grid_kind: match plan.grid_kind {
@@ -286,7 +294,11 @@ pub fn fmt_se(v: f64) -> String {
     if a != 0.0 && (a < 1e-3 || a >= 1e6) {
         format!("{v:.1e}")
     } else {
-        let digits = if a == 0.0 { 2 } else { (1 - a.log10().floor() as i32).clamp(0, 6) as usize };
+        let digits = if a == 0.0 {
+            2
+        } else {
+            (1 - a.log10().floor() as i32).clamp(0, 6) as usize
+        };
         format!("{v:.digits$}")
     }
 }
@@ -326,7 +338,11 @@ fn runs(points: &[PointRow], pick: impl Fn(&PointRow) -> bool) -> String {
         parts.push(if start == i {
             fmt_value(points[i].value)
         } else {
-            format!("{} to {}", fmt_value(points[start].value), fmt_value(points[i].value))
+            format!(
+                "{} to {}",
+                fmt_value(points[start].value),
+                fmt_value(points[i].value)
+            )
         });
         i += 1;
     }
@@ -374,7 +390,10 @@ pub fn reading(knob: &str, points: &[PointRow], best: &Best) -> String {
     if others.is_empty() {
         out.push('.');
     } else {
-        out.push_str(&format!(" ({} within one standard error).", others.join(", ")));
+        out.push_str(&format!(
+            " ({} within one standard error).",
+            others.join(", ")
+        ));
     }
     out
 }

@@ -8,8 +8,10 @@ use std::sync::Arc;
 
 use toml::Spanned;
 
-use super::spec::{DataSpec, InputSpec, ModelSpec, ScenarioSpec};
-use crate::dgp::{Builtin, Input, InputDist, Noise, Synthetic, Truth};
+use super::spec::{ClassesSpec, DataSpec, InputSpec, ModelSpec, ScenarioSpec};
+use crate::dgp::{
+    Builtin, ClassKind, ClassModel, Input, InputDist, Noise, Response, Synthetic, Truth,
+};
 use crate::error::ScenarioError;
 use crate::expr::Formula;
 use crate::family::{self, Family, Task};
@@ -55,6 +57,8 @@ pub enum GridKind {
 pub enum LossKind {
     /// Squared error.
     Squared,
+    /// 0-1 loss (misclassification).
+    ZeroOne,
 }
 
 impl LossKind {
@@ -62,6 +66,7 @@ impl LossKind {
     pub fn name(self) -> &'static str {
         match self {
             LossKind::Squared => "squared",
+            LossKind::ZeroOne => "zero_one",
         }
     }
 }
@@ -227,18 +232,33 @@ impl Plan {
             }
         };
 
-        let loss = match &spec.loss {
-            None => LossKind::Squared,
-            Some(l) => match l.kind.get_ref().as_str() {
-                "squared" => LossKind::Squared,
-                "zero_one" => {
+        let classes = match &source {
+            Source::Synthetic(s) => match &s.process.response {
+                Response::Classes(m) => Some(m.labels.len()),
+                Response::Regression { .. } => None,
+            },
+        };
+        let loss = match (&spec.loss, classes) {
+            (None, None) => LossKind::Squared,
+            (None, Some(_)) => LossKind::ZeroOne,
+            (Some(l), _) => match (l.kind.get_ref().as_str(), classes) {
+                ("squared", None) => LossKind::Squared,
+                ("zero_one", Some(_)) => LossKind::ZeroOne,
+                ("zero_one", None) => {
                     return Err(cx.err(
                         Some(l.kind.span()),
                         "loss.kind",
-                        "`zero_one` needs a classification scenario ([data.classes]), which this version does not support yet",
+                        "`zero_one` needs a classification scenario: add [data.classes] (or use `squared`)",
                     ))
                 }
-                other => {
+                ("squared", Some(_)) => {
+                    return Err(cx.err(
+                        Some(l.kind.span()),
+                        "loss.kind",
+                        "a classification scenario ([data.classes]) is decomposed under `zero_one` loss",
+                    ))
+                }
+                (other, _) => {
                     return Err(cx.err(
                         Some(l.kind.span()),
                         "loss.kind",
@@ -247,7 +267,10 @@ impl Plan {
                 }
             },
         };
-        let task = Task::Regress;
+        let task = match classes {
+            Some(k) => Task::Classify { classes: k },
+            None => Task::Regress,
+        };
 
         let (n_train, n_inputs) = match &source {
             Source::Synthetic(s) => (s.train_size, s.process.inputs.len()),
@@ -257,7 +280,19 @@ impl Plan {
             return Err(cx.err(
                 Some(spec.model.family.span()),
                 "model.family",
-                format!("family `{}` does not support this task", fam.name()),
+                match task {
+                    Task::Regress => format!("family `{}` does not do regression", fam.name()),
+                    Task::Classify { .. } => format!(
+                        "family `{}` does not classify; with [data.classes] use one of: {}",
+                        fam.name(),
+                        family::catalogue()
+                            .iter()
+                            .filter(|f| f.tasks.contains("classification"))
+                            .map(|f| f.name)
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    ),
+                },
             ));
         }
         let (grid, grid_kind) = expand_grid(&cx, &spec.model.grid)?;
@@ -624,14 +659,14 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
         }
     };
 
-    let Some(truth_spec) = &d.truth else {
+    if d.classes.is_some() && (d.truth.is_some() || d.noise.is_some()) {
         return Err(cx.err(
             Some(d.source.span()),
-            "data.truth",
-            "a synthetic source needs [data.truth]",
+            "data.classes",
+            "give either [data.classes] (classification) or [data.truth] and [data.noise] (regression), not both",
         ));
-    };
-    let builtin = match &truth_spec.builtin {
+    }
+    let builtin = match d.truth.as_ref().and_then(|t| t.builtin.as_ref()) {
         Some(b) => Some(Builtin::from_name(b.get_ref()).ok_or_else(|| {
             cx.err(
                 Some(b.span()),
@@ -681,6 +716,26 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
         }
     }
     let names: Vec<&str> = inputs.iter().map(|i| i.name.as_str()).collect();
+    if let Some(c) = &d.classes {
+        let model = class_model(cx, c, &names)?;
+        return Ok(SyntheticPlan {
+            process: Synthetic {
+                inputs,
+                response: Response::Classes(model),
+            },
+            train_size,
+            eval_size,
+            design,
+            eval_at_design,
+        });
+    }
+    let Some(truth_spec) = &d.truth else {
+        return Err(cx.err(
+            Some(d.source.span()),
+            "data.truth",
+            "a synthetic source needs [data.truth] (regression) or [data.classes] (classification)",
+        ));
+    };
     let truth = match (&truth_spec.formula, builtin) {
         (Some(_), Some(_)) => {
             return Err(cx.err(
@@ -759,12 +814,107 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
     Ok(SyntheticPlan {
         process: Synthetic {
             inputs,
-            truth,
-            noise,
+            response: Response::Regression { truth, noise },
         },
         train_size,
         eval_size,
         design,
         eval_at_design,
     })
+}
+
+fn class_model(
+    cx: &Ctx<'_>,
+    c: &ClassesSpec,
+    names: &[&str],
+) -> Result<ClassModel, ScenarioError> {
+    let labels: Vec<String> = c.labels.get_ref().clone();
+    if labels.len() < 2 {
+        return Err(cx.err(
+            Some(c.labels.span()),
+            "data.classes.labels",
+            format!("needs at least 2 labels, got {}", labels.len()),
+        ));
+    }
+    for (i, l) in labels.iter().enumerate() {
+        if labels[..i].contains(l) {
+            return Err(cx.err(
+                Some(c.labels.span()),
+                "data.classes.labels",
+                format!("label `{l}` appears twice"),
+            ));
+        }
+    }
+    let k = labels.len();
+    let given = [c.probability.is_some(), c.logits.is_some(), c.rule.is_some()]
+        .iter()
+        .filter(|&&b| b)
+        .count();
+    if given != 1 {
+        return Err(cx.err(
+            Some(c.labels.span()),
+            "data.classes",
+            "give exactly one of `probability` (two classes), `logits` (one per label) or `rule` (with `flip`)",
+        ));
+    }
+    if c.flip.is_some() && c.rule.is_none() {
+        let span = c.flip.as_ref().map(|f| f.span());
+        return Err(cx.err(span, "data.classes.flip", "`flip` goes with `rule`"));
+    }
+    let kind = if let Some(p) = &c.probability {
+        if k != 2 {
+            return Err(cx.err(
+                Some(p.span()),
+                "data.classes.probability",
+                format!("`probability` describes two classes; with {k} labels use `logits`"),
+            ));
+        }
+        ClassKind::Probability(formula(cx, p, "data.classes.probability", names)?)
+    } else if let Some(ls) = &c.logits {
+        if ls.get_ref().len() != k {
+            return Err(cx.err(
+                Some(ls.span()),
+                "data.classes.logits",
+                format!(
+                    "{} logits for {k} labels; give exactly one logit per label",
+                    ls.get_ref().len()
+                ),
+            ));
+        }
+        let fs = ls
+            .get_ref()
+            .iter()
+            .map(|src| {
+                Formula::parse(src, names).map_err(|e| {
+                    cx.err(
+                        Some(ls.span()),
+                        "data.classes.logits",
+                        format!("in `{src}`: {e}"),
+                    )
+                })
+            })
+            .collect::<Result<Vec<_>, _>>()?;
+        ClassKind::Logits(fs)
+    } else {
+        let rule = c.rule.as_ref().expect("checked above");
+        let flip = match &c.flip {
+            Some(f) => {
+                let v = *f.get_ref();
+                if !(0.0..1.0).contains(&v) {
+                    return Err(cx.err(
+                        Some(f.span()),
+                        "data.classes.flip",
+                        format!("must be in [0, 1), got {v}"),
+                    ));
+                }
+                v
+            }
+            None => 0.0,
+        };
+        ClassKind::Flip {
+            rule: formula(cx, rule, "data.classes.rule", names)?,
+            flip,
+        }
+    };
+    Ok(ClassModel { labels, kind })
 }

@@ -61,6 +61,31 @@ pub struct DataSpec {
     /// The noise model.
     #[serde(default)]
     pub noise: Option<NoiseSpec>,
+    /// Classification instead of truth/noise.
+    #[serde(default)]
+    pub classes: Option<ClassesSpec>,
+}
+
+/// `[data.classes]`: labels and the true class probabilities P(Y = c | x).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ClassesSpec {
+    /// Class labels (at least 2), in order; class c is `labels[c]`.
+    pub labels: Spanned<Vec<String>>,
+    /// Two classes: P(second label | x) as a formula.
+    #[serde(default)]
+    pub probability: Option<Spanned<String>>,
+    /// K formulas, one per label: class probabilities are their softmax.
+    #[serde(default)]
+    pub logits: Option<Spanned<Vec<String>>>,
+    /// A deterministic rule giving the class index (0-based; for two classes a condition that
+    /// is 1 for the second label), used with `flip`.
+    #[serde(default)]
+    pub rule: Option<Spanned<String>>,
+    /// Label-flip noise on top of `rule`: with this probability the label is replaced by one of
+    /// the other classes, chosen uniformly.
+    #[serde(default)]
+    pub flip: Option<Spanned<f64>>,
 }
 
 /// `[[data.inputs]]`: one input and its distribution (exactly one of the distribution keys).
