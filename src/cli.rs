@@ -2,7 +2,7 @@
 
 use std::path::PathBuf;
 
-use clap::{Args, Parser, Subcommand};
+use clap::{Args, Parser, Subcommand, ValueEnum};
 
 /// Splits expected test error into noise, bias² and variance across a model family's complexity
 /// grid, by Monte Carlo over many training sets.
@@ -59,7 +59,35 @@ pub struct RunArgs {
     /// Worker threads (0 = one per core). Results do not depend on it.
     #[arg(long, default_value_t = 0)]
     pub threads: usize,
+    /// Which 0-1 loss decomposition the table shows (the JSON always holds all three).
+    #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
+    pub decomposition: DecompositionView,
     /// Do not print the table.
     #[arg(long, short)]
     pub quiet: bool,
+}
+
+/// Table view for 0-1 loss.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum DecompositionView {
+    /// Domingos (2000): bias, variance, net variance.
+    Domingos,
+    /// Kohavi and Wolpert (1996): noise, bias², variance.
+    KohaviWolpert,
+    /// James (2003): systematic and variance effects.
+    James,
+    /// All three.
+    All,
+}
+
+impl From<DecompositionView> for crate::report::table::View {
+    fn from(v: DecompositionView) -> Self {
+        use crate::report::table::View;
+        match v {
+            DecompositionView::Domingos => View::Domingos,
+            DecompositionView::KohaviWolpert => View::KohaviWolpert,
+            DecompositionView::James => View::James,
+            DecompositionView::All => View::All,
+        }
+    }
 }

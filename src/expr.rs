@@ -1,4 +1,4 @@
-//! The formula language of scenario files: parses arithmetic text into a flat, constant-folded stack program and evaluates it fast.
+//! The formula language of scenario files: a parser to a constant-folded stack program, and its fast evaluator.
 //!
 //! A formula such as `30 + 12*sin(pi*moisture) - 0.8*(sun-6)^2` is parsed once by a
 //! recursive-descent parser that emits stack-machine code directly (no tree is kept), folds

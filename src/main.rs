@@ -79,7 +79,7 @@ fn run(args: RunArgs) -> anyhow::Result<u8> {
         report::write_atomic(p, report::points_csv(&plan, &outcome).as_bytes())?;
     }
     if !args.quiet {
-        let table = report::table::render(&doc);
+        let table = report::table::render_view(&doc, args.decomposition.into());
         if to_stdout {
             eprint!("{table}");
         } else {

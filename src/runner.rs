@@ -9,11 +9,12 @@ use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 use rayon::prelude::*;
 
+use crate::decompose::zero_one::{self, ZeroOneAcc, ZeroOneSummary};
 use crate::decompose::{self, SquaredAcc, SquaredSummary};
-use crate::dgp::add_noise;
+use crate::dgp::{add_noise, draw_labels};
 use crate::error::Error;
-use crate::family::FitInput;
-use crate::scenario::{Design, Plan, Source};
+use crate::family::{FitInput, Task};
+use crate::scenario::{Design, LossKind, Plan, Source};
 
 /// Stream purposes (the high bits of the ChaCha stream number).
 pub mod purpose {
@@ -39,12 +40,16 @@ pub fn stream(seed: u64, purpose: u64, index: u64) -> ChaCha8Rng {
 pub struct Prepared {
     /// Evaluation inputs `m × p`.
     pub eval_x: Array2<f64>,
-    /// f at the evaluation points.
+    /// Regression: f at the evaluation points. Classification: the Bayes class index.
     pub eval_truth: Array1<f64>,
-    /// σ at the evaluation points.
+    /// σ at the evaluation points (0 for classification).
     pub eval_sd: Array1<f64>,
-    /// Fixed design: training inputs, f and σ there.
+    /// Classification: class probabilities at the evaluation points (`m × K`).
+    pub eval_probs: Option<Array2<f64>>,
+    /// Fixed design: training inputs, f and σ there (f = 0, σ = 0 for classification).
     pub fixed: Option<(Array2<f64>, Array1<f64>, Array1<f64>)>,
+    /// Fixed design, classification: class probabilities at the training inputs.
+    pub fixed_probs: Option<Array2<f64>>,
 }
 
 impl Prepared {
@@ -54,15 +59,34 @@ impl Prepared {
     }
 }
 
+/// Index of the largest value (first on ties).
+fn argmax(row: ndarray::ArrayView1<'_, f64>) -> usize {
+    let mut best = 0;
+    for (i, &v) in row.iter().enumerate() {
+        if v > row[best] {
+            best = i;
+        }
+    }
+    best
+}
+
 /// Draws the evaluation points (and a fixed design) for a plan.
 pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
     let Source::Synthetic(s) = &plan.source;
+    let classify = matches!(plan.task, Task::Classify { .. });
+    let mut fixed_probs = None;
     let fixed = if s.design == Design::Fixed {
         let mut rng = stream(plan.seed, purpose::DESIGN, 0);
         let x = s.process.draw_inputs(s.train_size, &mut rng);
-        let f = s.process.truth_at(x.view())?;
-        let sd = s.process.sd_at(x.view())?;
-        Some((x, f, sd))
+        if classify {
+            fixed_probs = Some(s.process.probs_at(x.view())?);
+            let n = x.nrows();
+            Some((x, Array1::zeros(n), Array1::zeros(n)))
+        } else {
+            let f = s.process.truth_at(x.view())?;
+            let sd = s.process.sd_at(x.view())?;
+            Some((x, f, sd))
+        }
     } else {
         None
     };
@@ -73,71 +97,146 @@ pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
             s.process.draw_inputs(s.eval_size, &mut rng)
         }
     };
-    let eval_truth = s.process.truth_at(eval_x.view())?;
-    let eval_sd = s.process.sd_at(eval_x.view())?;
-    Ok(Prepared {
-        eval_x,
-        eval_truth,
-        eval_sd,
-        fixed,
-    })
+    let m = eval_x.nrows();
+    if classify {
+        let probs = s.process.probs_at(eval_x.view())?;
+        let bayes = Array1::from_iter(probs.rows().into_iter().map(|r| argmax(r) as f64));
+        Ok(Prepared {
+            eval_x,
+            eval_truth: bayes,
+            eval_sd: Array1::zeros(m),
+            eval_probs: Some(probs),
+            fixed,
+            fixed_probs,
+        })
+    } else {
+        let eval_truth = s.process.truth_at(eval_x.view())?;
+        let eval_sd = s.process.sd_at(eval_x.view())?;
+        Ok(Prepared {
+            eval_x,
+            eval_truth,
+            eval_sd,
+            eval_probs: None,
+            fixed,
+            fixed_probs,
+        })
+    }
+}
+
+/// The accumulator of one block, by loss.
+#[derive(Debug, Clone, PartialEq)]
+pub enum BlockAcc {
+    /// Squared loss.
+    Squared(SquaredAcc),
+    /// 0-1 loss.
+    ZeroOne(ZeroOneAcc),
+}
+
+/// One replicate's training set and fresh responses at the evaluation points.
+struct Draw {
+    x: Array2<f64>,
+    y: Array1<f64>,
+    fresh: Array1<f64>,
+}
+
+fn draw_replicate(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
+    let Source::Synthetic(s) = &plan.source;
+    let mut rng = stream(plan.seed, purpose::REPLICATE, r);
+    match (&prep.eval_probs, &prep.fixed) {
+        (None, Some((x, f, sd))) => {
+            let y = add_noise(f, sd, &mut rng);
+            let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+            Ok(Draw { x: x.clone(), y, fresh })
+        }
+        (None, None) => {
+            let x = s.process.draw_inputs(s.train_size, &mut rng);
+            let f = s.process.truth_at(x.view())?;
+            let sd = s.process.sd_at(x.view())?;
+            let y = add_noise(&f, &sd, &mut rng);
+            let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+            Ok(Draw { x, y, fresh })
+        }
+        (Some(eval_probs), fixed) => {
+            let (x, probs) = match (fixed, &prep.fixed_probs) {
+                (Some((x, _, _)), Some(p)) => (x.clone(), p.clone()),
+                _ => {
+                    let x = s.process.draw_inputs(s.train_size, &mut rng);
+                    let p = s.process.probs_at(x.view())?;
+                    (x, p)
+                }
+            };
+            let y = draw_labels(&probs, &mut rng);
+            let fresh = draw_labels(eval_probs, &mut rng);
+            Ok(Draw { x, y, fresh })
+        }
+    }
 }
 
 /// Runs the replicates of block `b` sequentially and returns its accumulator.
-pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<SquaredAcc, Error> {
-    let Source::Synthetic(s) = &plan.source;
+pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockAcc, Error> {
     let (start, end) = plan.block_range(b);
     let g = plan.grid.len();
     let m = prep.eval_x.nrows();
-    let mut acc = SquaredAcc::new(g, m);
+    let mut acc = match plan.task {
+        Task::Regress => BlockAcc::Squared(SquaredAcc::new(g, m)),
+        Task::Classify { classes } => BlockAcc::ZeroOne(ZeroOneAcc::new(g, m, classes)),
+    };
     let mut preds = Array2::<f64>::zeros((g, m));
     let mut direct = vec![0.0; g];
+    let fit_err = |r: u64, message: String| Error::Fit {
+        replicate: r,
+        family: plan.family.name().to_string(),
+        message,
+    };
     for r in start..end {
-        let mut rng = stream(plan.seed, purpose::REPLICATE, r);
-        let (x, y) = match &prep.fixed {
-            Some((x, f, sd)) => (x.clone(), add_noise(f, sd, &mut rng)),
-            None => {
-                let x = s.process.draw_inputs(s.train_size, &mut rng);
-                let f = s.process.truth_at(x.view())?;
-                let sd = s.process.sd_at(x.view())?;
-                let y = add_noise(&f, &sd, &mut rng);
-                (x, y)
-            }
-        };
-        let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+        let draw = draw_replicate(plan, prep, r)?;
         let input = FitInput {
-            x: x.view(),
-            y: y.view(),
+            x: draw.x.view(),
+            y: draw.y.view(),
             eval: prep.eval_x.view(),
             task: plan.task,
         };
         preds.fill(0.0);
         plan.family
             .fit_predict(&input, &plan.grid, preds.view_mut())
-            .map_err(|e| Error::Fit {
-                replicate: r,
-                family: plan.family.name().to_string(),
-                message: e.0,
-            })?;
+            .map_err(|e| fit_err(r, e.0))?;
         for (gi, row) in preds.rows().into_iter().enumerate() {
-            let mut sse = 0.0;
-            for (p, yf) in row.iter().zip(fresh.iter()) {
-                sse += (p - yf) * (p - yf);
-            }
-            direct[gi] = sse / m as f64;
-            if let Some(bad) = row.iter().find(|v| !v.is_finite()) {
-                return Err(Error::Fit {
-                    replicate: r,
-                    family: plan.family.name().to_string(),
-                    message: format!(
-                        "prediction {bad} at {} = {}",
-                        plan.family.knob(),
-                        plan.grid[gi]
-                    ),
-                });
+            let knob = || format!("{} = {}", plan.family.knob(), plan.grid[gi]);
+            match plan.task {
+                Task::Regress => {
+                    if let Some(bad) = row.iter().find(|v| !v.is_finite()) {
+                        return Err(fit_err(r, format!("prediction {bad} at {}", knob())));
+                    }
+                    let sse: f64 = row
+                        .iter()
+                        .zip(draw.fresh.iter())
+                        .map(|(p, y)| (p - y) * (p - y))
+                        .sum();
+                    direct[gi] = sse / m as f64;
+                }
+                Task::Classify { classes } => {
+                    if let Some(bad) = row
+                        .iter()
+                        .find(|v| !(v.fract() == 0.0 && **v >= 0.0 && **v < classes as f64))
+                    {
+                        return Err(fit_err(
+                            r,
+                            format!("predicted {bad}, not a class index 0..{classes}, at {}", knob()),
+                        ));
+                    }
+                    let wrong = row
+                        .iter()
+                        .zip(draw.fresh.iter())
+                        .filter(|(p, y)| p != y)
+                        .count();
+                    direct[gi] = wrong as f64 / m as f64;
+                }
             }
         }
-        acc.push(preds.view(), &direct);
+        match &mut acc {
+            BlockAcc::Squared(a) => a.push(preds.view(), &direct),
+            BlockAcc::ZeroOne(a) => a.push(preds.view(), &direct),
+        }
     }
     Ok(acc)
 }
@@ -149,12 +248,12 @@ pub fn run_blocks(
     prep: &Prepared,
     blocks: &[u64],
     threads: usize,
-) -> Result<Vec<SquaredAcc>, Error> {
+) -> Result<Vec<BlockAcc>, Error> {
     let pool = rayon::ThreadPoolBuilder::new()
         .num_threads(threads)
         .build()
         .map_err(|e| Error::Usage(format!("cannot start {threads} worker threads: {e}")))?;
-    let results: Vec<Result<SquaredAcc, Error>> = pool.install(|| {
+    let results: Vec<Result<BlockAcc, Error>> = pool.install(|| {
         blocks
             .par_iter()
             .map(|&b| run_block(plan, prep, b))
@@ -163,13 +262,77 @@ pub fn run_blocks(
     results.into_iter().collect()
 }
 
+/// The decomposition of a finished run, by loss.
+#[derive(Debug, Clone)]
+pub enum Summary {
+    /// Squared loss.
+    Squared(SquaredSummary),
+    /// 0-1 loss.
+    ZeroOne(ZeroOneSummary),
+}
+
+impl Summary {
+    /// The squared-loss summary, if this is one.
+    pub fn squared(&self) -> Option<&SquaredSummary> {
+        match self {
+            Summary::Squared(s) => Some(s),
+            Summary::ZeroOne(_) => None,
+        }
+    }
+
+    /// The 0-1 summary, if this is one.
+    pub fn zero_one(&self) -> Option<&ZeroOneSummary> {
+        match self {
+            Summary::ZeroOne(s) => Some(s),
+            Summary::Squared(_) => None,
+        }
+    }
+}
+
+/// Folds block accumulators (in the order given) into the decomposition.
+pub fn summarize(plan: &Plan, prep: &Prepared, blocks: &[BlockAcc]) -> Result<Summary, Error> {
+    let empty = || Error::Usage("no replicates to summarize".into());
+    match plan.loss {
+        LossKind::Squared => {
+            let accs: Vec<SquaredAcc> = blocks
+                .iter()
+                .filter_map(|b| match b {
+                    BlockAcc::Squared(a) => Some(a.clone()),
+                    BlockAcc::ZeroOne(_) => None,
+                })
+                .collect();
+            let truth = prep.eval_truth.to_vec();
+            decompose::squared::summarize(&accs, &truth, &prep.noise_var())
+                .map(Summary::Squared)
+                .ok_or_else(empty)
+        }
+        LossKind::ZeroOne => {
+            let accs: Vec<ZeroOneAcc> = blocks
+                .iter()
+                .filter_map(|b| match b {
+                    BlockAcc::ZeroOne(a) => Some(a.clone()),
+                    BlockAcc::Squared(_) => None,
+                })
+                .collect();
+            let probs = prep
+                .eval_probs
+                .as_ref()
+                .map(|p| p.iter().copied().collect::<Vec<f64>>())
+                .ok_or_else(empty)?;
+            zero_one::summarize(&accs, &probs)
+                .map(Summary::ZeroOne)
+                .ok_or_else(empty)
+        }
+    }
+}
+
 /// A finished run.
 #[derive(Debug, Clone)]
 pub struct Outcome {
     /// Fixed inputs of the run.
     pub prepared: Prepared,
     /// Decomposition and standard errors.
-    pub summary: SquaredSummary,
+    pub summary: Summary,
 }
 
 /// Runs a whole plan.
@@ -177,11 +340,6 @@ pub fn run(plan: &Plan, threads: usize) -> Result<Outcome, Error> {
     let prepared = prepare(plan)?;
     let ids: Vec<u64> = (0..plan.blocks).collect();
     let blocks = run_blocks(plan, &prepared, &ids, threads)?;
-    let summary = decompose::squared::summarize(
-        &blocks,
-        prepared.eval_truth.as_slice().expect("contiguous"),
-        &prepared.noise_var(),
-    )
-    .ok_or_else(|| Error::Usage("no replicates to run".into()))?;
+    let summary = summarize(plan, &prepared, &blocks)?;
     Ok(Outcome { prepared, summary })
 }

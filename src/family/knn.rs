@@ -26,13 +26,13 @@
 //!
 //! # Path fit
 //!
-//! For every evaluation point the `K = max(grid)` nearest neighbours are found once (a linear scan
-//! with a bounded max-heap on the keys above), then the prediction for every `k` of the grid is
+//! For every evaluation point the `K = max(grid)` nearest neighbours are found once (exact search:
+//! all squared distances, a linear-time selection of the `K` smallest keys above, a sort of those
+//! `K`), then the prediction for every `k` of the grid is
 //! read off running sums (regression) or running vote counts with a running leader
 //! (classification). The cost of the whole grid is that of one fit at `K`.
 
 use std::borrow::Cow;
-use std::collections::BinaryHeap;
 
 use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2};
 
@@ -63,35 +63,52 @@ fn key_index(key: u128) -> usize {
     (key & u128::from(u64::MAX)) as usize
 }
 
-/// Squared Euclidean distance between two equally long slices (summed in index order).
-#[inline]
-fn sq_dist(a: &[f64], b: &[f64]) -> f64 {
-    a.iter().zip(b).map(|(u, v)| (u - v) * (u - v)).sum()
+/// Transposes a row-major `n × p` buffer into column-major order (column `j` occupies
+/// `[j * n, (j + 1) * n)`), applying `(v - shift) / scale` per column when a scaling is given.
+fn column_major(rows: &[f64], n: usize, p: usize, scaling: Option<&[(f64, f64)]>) -> Vec<f64> {
+    let mut cols = vec![0.0; n * p];
+    for j in 0..p {
+        let (shift, scale) = scaling.map_or((0.0, 1.0), |s| s[j]);
+        for (i, c) in cols[j * n..(j + 1) * n].iter_mut().enumerate() {
+            let v = rows[i * p + j];
+            *c = if scaling.is_some() {
+                (v - shift) / scale
+            } else {
+                v
+            };
+        }
+    }
+    cols
 }
 
-/// Finds the `kmax` nearest rows of `train` (row-major, `p` columns) to `query` and leaves their
-/// keys in `keys`, sorted ascending. `keys` is scratch reused across queries; `1 <= kmax <= n`.
+/// Finds the `kmax` nearest training rows to `query` and leaves their keys, sorted ascending, in
+/// `keys[..kmax]`. `cols` holds the training inputs column-major (`n` rows, `query.len()`
+/// columns); `dist` (length `n`) and `keys` are scratch reused across queries; `1 <= kmax <= n`.
+///
+/// Squared distances are accumulated column by column, which vectorises across training rows
+/// while keeping, for every row, the plain left-to-right summation order over the inputs. The
+/// `kmax` smallest keys are then selected in linear time and only those are sorted.
 fn nearest_into(
-    train: &[f64],
-    p: usize,
+    cols: &[f64],
     n: usize,
     query: &[f64],
     kmax: usize,
+    dist: &mut [f64],
     keys: &mut Vec<u128>,
 ) {
-    keys.clear();
-    let mut heap = BinaryHeap::from(std::mem::take(keys));
-    for i in 0..n {
-        let k = key(sq_dist(&train[i * p..(i + 1) * p], query), i);
-        if heap.len() < kmax {
-            heap.push(k);
-        } else if let Some(mut top) = heap.peek_mut() {
-            if k < *top {
-                *top = k;
-            }
+    dist.fill(0.0);
+    for (j, &q) in query.iter().enumerate() {
+        for (d, &x) in dist.iter_mut().zip(&cols[j * n..(j + 1) * n]) {
+            let t = x - q;
+            *d += t * t;
         }
     }
-    *keys = heap.into_sorted_vec();
+    keys.clear();
+    keys.extend(dist.iter().enumerate().map(|(i, &d)| key(d, i)));
+    if kmax < n {
+        keys.select_nth_unstable(kmax - 1);
+    }
+    keys[..kmax].sort_unstable();
 }
 
 /// Returns the rows of an `n × p` view as one contiguous row-major slice, borrowing when the view
@@ -121,11 +138,12 @@ pub fn neighbours(train: ArrayView2<f64>, query: ArrayView1<f64>, k: usize) -> V
     if k == 0 {
         return Vec::new();
     }
-    let rows = contiguous(&train);
+    let cols = column_major(&contiguous(&train), n, p, None);
     let q: Vec<f64> = query.iter().copied().collect();
-    let mut keys = Vec::with_capacity(k);
-    nearest_into(&rows, p, n, &q, k, &mut keys);
-    keys.into_iter().map(key_index).collect()
+    let mut dist = vec![0.0; n];
+    let mut keys = Vec::with_capacity(n);
+    nearest_into(&cols, n, &q, k, &mut dist, &mut keys);
+    keys[..k].iter().map(|&kk| key_index(kk)).collect()
 }
 
 /// Column shift and scale for standardisation: training mean and population standard deviation;
@@ -148,17 +166,6 @@ fn column_scaling(x: &[f64], n: usize, p: usize) -> Vec<(f64, f64)> {
             } else {
                 (0.0, 1.0)
             }
-        })
-        .collect()
-}
-
-/// Applies the column scaling to a row-major buffer.
-fn scaled(x: &[f64], p: usize, scaling: &[(f64, f64)]) -> Vec<f64> {
-    x.iter()
-        .enumerate()
-        .map(|(i, &v)| {
-            let (shift, scale) = scaling[i % p];
-            (v - shift) / scale
         })
         .collect()
 }
@@ -271,16 +278,23 @@ impl Family for KnnFamily {
             None => Cow::Owned(input.y.to_vec()),
         };
 
-        let mut train = contiguous(&input.x);
+        let rows = contiguous(&input.x);
+        let scaling = self.standardize.then(|| column_scaling(&rows, n, p));
+        let cols = column_major(&rows, n, p, scaling.as_deref());
+        drop(rows);
         let mut eval = contiguous(&input.eval);
-        if self.standardize && n > 0 {
-            let scaling = column_scaling(&train, n, p);
-            train = Cow::Owned(scaled(&train, p, &scaling));
-            eval = Cow::Owned(scaled(&eval, p, &scaling));
+        if let Some(s) = &scaling {
+            let scaled = eval
+                .iter()
+                .enumerate()
+                .map(|(i, &v)| (v - s[i % p].0) / s[i % p].1)
+                .collect();
+            eval = Cow::Owned(scaled);
         }
 
         // Scratch reused across evaluation points.
-        let mut keys: Vec<u128> = Vec::with_capacity(kmax);
+        let mut dist = vec![0.0; n];
+        let mut keys: Vec<u128> = Vec::with_capacity(n);
         // by_rank[j] = prediction using the first j + 1 neighbours.
         let mut by_rank = vec![0.0; kmax];
         let mut counts = vec![0usize; labels.as_ref().map_or(0, |l| l.1)];
@@ -288,7 +302,8 @@ impl Family for KnnFamily {
 
         for e in 0..m {
             let query = &eval[e * p..(e + 1) * p];
-            nearest_into(&train, p, n, query, kmax, &mut keys);
+            nearest_into(&cols, n, query, kmax, &mut dist, &mut keys);
+            let keys = &keys[..kmax];
             match &labels {
                 None => {
                     let mut sum = 0.0;

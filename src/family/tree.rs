@@ -983,10 +983,38 @@ mod tests {
         }
     }
 
+    /// Number of leaves of `tree` cut at `depth` whose training class counts have a tied maximum.
+    fn tied_leaves(
+        tree: &Tree,
+        x: &Array2<f64>,
+        y: &Array1<f64>,
+        classes: usize,
+        depth: usize,
+    ) -> usize {
+        let mut counts = vec![vec![0usize; classes]; tree.n_nodes()];
+        for (row, &label) in x.rows().into_iter().zip(y.iter()) {
+            let (mut k, mut d) = (0, 0);
+            while tree.nodes[k].left != 0 && d < depth {
+                let nd = tree.nodes[k];
+                k = nd.left as usize + usize::from(row[nd.feature as usize] > nd.threshold);
+                d += 1;
+            }
+            counts[k][label as usize] += 1;
+        }
+        counts
+            .iter()
+            .filter(|c| {
+                let top = c.iter().copied().max().unwrap_or(0);
+                top > 0 && c.iter().filter(|&&v| v == top).count() > 1
+            })
+            .count()
+    }
+
     #[test]
     fn agrees_with_linfa_trees() {
         // Reference library: linfa-trees 0.8 (`linfa_trees::DecisionTree`, Gini, same max_depth).
-        // Known differences, which is why agreement is required on 99% of points, not all:
+        // Known differences, which is why agreement is required on 99% of points, not all (all
+        // of them were confirmed by comparing the two trees node by node):
         // - linfa computes impurities in f32, so near-tied splits may be resolved differently;
         // - linfa's threshold is the midpoint between the node's last left value and the next
         //   value of that input in the WHOLE training set (possibly a sample outside the node),
@@ -995,9 +1023,15 @@ mod tests {
         //   the two thresholds fall on different sides. The gaps shrink like 1/n; on these data
         //   about 0.35·2^(d+1)/n of held-out points are affected at depth d (2.8% at n = 400,
         //   d = 4, measured), hence training sets of 2500-3500 rows;
-        // - linfa breaks ties in the majority class by HashMap order (arbitrary), ours to the
-        //   smallest class index; linfa also sends `x < t` left at prediction time (vs `<=`), which
-        //   does not matter for continuous held-out points.
+        // - linfa treats consecutive sorted values closer than 1e-5 as equal and does not split
+        //   between them, where "consecutive" is again in the whole training set; we split between
+        //   any two distinct values. With ~3000 uniform values, a few percent of gaps are below
+        //   1e-5, so linfa occasionally has to pick a different (worse) split;
+        // - linfa breaks ties in the majority class by HashMap order (arbitrary, it varies from run
+        //   to run), ours to the smallest class index. The data sets below were chosen so that no
+        //   leaf has a tied majority (checked first), which keeps this test deterministic;
+        // - linfa sends `x < t` left at prediction time (vs `<=`), which does not matter for
+        //   continuous held-out points.
         // linfa requires a positive min_impurity_decrease; 1e-9 is below any real Gini decrease
         // at these sizes (the smallest is of order 1/n²) but above its f32 rounding of zero.
         use linfa::prelude::*;
@@ -1005,7 +1039,7 @@ mod tests {
         let fam = TreeFamily::default();
         let mut total = 0usize;
         let mut agree = 0usize;
-        for (seed, n, p) in [(21u64, 3000usize, 3usize), (22, 3500, 3), (23, 2500, 4)] {
+        for (seed, n, p) in [(23u64, 3000usize, 3usize), (22, 3500, 3), (24, 2500, 4)] {
             let mut rng = ChaCha8Rng::seed_from_u64(seed);
             let x = random_x(&mut rng, n, p);
             let y = class_y(&mut rng, &x);
@@ -1022,9 +1056,9 @@ mod tests {
                 let tree = fam
                     .grow(x.view(), y.view(), Task::Classify { classes: 3 }, d)
                     .unwrap();
-                // Training points: the partitions are identical, only leaves with a tied majority
-                // may differ (measured: one leaf with counts [9, 9, 0] at seed 21, depth 5, i.e.
-                // 18 of 3000 points; linfa's choice there varies from run to run).
+                assert_eq!(tied_leaves(&tree, &x, &y, 3, d), 0, "seed {seed} depth {d}");
+                // Training points: the partitions agree except where linfa's 1e-5 rule removed the
+                // split we chose (measured: 1 of 3500 points differs at seed 22, depth 4).
                 let want_train = reference.predict(&x);
                 let mut a = 0;
                 for (row, &w) in x.rows().into_iter().zip(want_train.iter()) {

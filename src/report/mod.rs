@@ -10,8 +10,10 @@ use serde::Serialize;
 
 use crate::dgp::Response;
 use crate::error::Error;
-use crate::runner::Outcome;
-use crate::scenario::{Design, GridKind, Plan, Source};
+use crate::decompose::zero_one::ZeroOneTerms;
+use crate::decompose::SquaredTerms;
+use crate::runner::{Outcome, Summary};
+use crate::scenario::{Design, GridKind, LossKind, Plan, Source};
 
 /// Identifier of the result format.
 pub const FORMAT: &str = "lossprism-result/1";
@@ -59,36 +61,103 @@ pub struct ScenarioEcho {
     pub blocks: u64,
 }
 
-/// Standard errors of the averaged terms.
+/// Kohavi–Wolpert terms (0-1 loss).
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct KohaviWolpert {
+    /// `½(1 − Σ p_t²)`.
+    pub noise: Option<f64>,
+    /// `½ Σ (p_t − p_D)²`, finite-R corrected.
+    pub bias_sq: Option<f64>,
+    /// `½(1 − Σ p_D²)`, finite-R corrected.
+    pub variance: Option<f64>,
+}
+
+/// James (2003) terms (0-1 loss).
+#[derive(Debug, Clone, Serialize, PartialEq)]
+pub struct James {
+    /// Systematic effect.
+    pub systematic_effect: Option<f64>,
+    /// Variance effect.
+    pub variance_effect: Option<f64>,
+}
+
+/// Standard errors of the averaged terms (jackknife over replicate blocks); `null` where they
+/// cannot be computed (fewer than two blocks). Fields that do not apply to the loss are absent.
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct Stderr {
     /// Of `expected_loss`.
     pub expected_loss: Option<f64>,
-    /// Of `bias_sq`.
-    pub bias_sq: Option<f64>,
+    /// Of `bias_sq` (squared loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bias_sq: Option<Option<f64>>,
+    /// Of `bias` (0-1 loss, Domingos).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bias: Option<Option<f64>>,
     /// Of `variance`.
     pub variance: Option<f64>,
     /// Of `expected_loss_direct`.
     pub expected_loss_direct: Option<f64>,
+    /// Of `net_variance` (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub net_variance: Option<Option<f64>>,
+    /// Of `unbiased_variance` (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unbiased_variance: Option<Option<f64>>,
+    /// Of `biased_variance` (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub biased_variance: Option<Option<f64>>,
+    /// Of the Kohavi–Wolpert terms (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub kohavi_wolpert: Option<KohaviWolpert>,
+    /// Of the James terms (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub james: Option<James>,
 }
 
-/// One grid value's decomposition.
+/// One grid value's decomposition. Squared loss fills `bias_sq`; 0-1 loss fills `bias` (Domingos)
+/// and the 0-1 fields. `variance` is the squared-loss variance or Domingos' variance.
 #[derive(Debug, Clone, Serialize, PartialEq)]
 pub struct PointRow {
     /// Knob value.
     pub value: f64,
-    /// `noise + bias_sq + variance`.
+    /// Expected loss: `noise + bias_sq + variance` (squared); `1 − Σ p_t p_D` (0-1).
     pub expected_loss: f64,
-    /// Unbiased squared bias, averaged over evaluation points.
-    pub bias_sq: f64,
-    /// Unbiased variance, averaged.
+    /// Unbiased squared bias, averaged over evaluation points (squared loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bias_sq: Option<f64>,
+    /// Domingos bias: share of points whose main prediction is not the Bayes class (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bias: Option<f64>,
+    /// Variance, averaged.
     pub variance: f64,
-    /// Known noise variance, averaged.
+    /// Known noise: σ² (squared) or the Bayes error (0-1), averaged.
     pub noise: f64,
-    /// Mean squared error against fresh noisy responses (cross-check of `expected_loss`).
+    /// Loss against fresh responses (independent cross-check of `expected_loss`).
     pub expected_loss_direct: f64,
+    /// Domingos net variance `E[c2 V]` (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub net_variance: Option<f64>,
+    /// Domingos unbiased variance `E[(1 − B) V]` (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub unbiased_variance: Option<f64>,
+    /// Domingos biased variance `E[B V]` (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub biased_variance: Option<f64>,
+    /// Kohavi–Wolpert decomposition (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub kohavi_wolpert: Option<KohaviWolpert>,
+    /// James decomposition (0-1 loss).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub james: Option<James>,
     /// Jackknife standard errors over replicate blocks.
     pub stderr: Stderr,
+}
+
+impl PointRow {
+    /// The bias-type term shown against variance: bias² (squared) or Domingos bias (0-1).
+    pub fn bias_term(&self) -> f64 {
+        self.bias_sq.or(self.bias).unwrap_or(f64::NAN)
+    }
 }
 
 /// The grid value with the lowest expected loss.
@@ -129,25 +198,6 @@ pub struct ResultDoc {
     pub best: Best,
     /// One plain sentence reading the curve.
     pub reading: String,
-}
-
-/// One row of the per-evaluation-point CSV.
-#[derive(Debug, Clone, Serialize, PartialEq)]
-pub struct PointDetail {
-    /// Knob value.
-    pub value: f64,
-    /// Evaluation point index.
-    pub point: usize,
-    /// f at the point.
-    pub truth: f64,
-    /// Noise variance at the point.
-    pub noise: f64,
-    /// Mean prediction.
-    pub mean_prediction: f64,
-    /// Unbiased squared bias.
-    pub bias_sq: f64,
-    /// Unbiased variance.
-    pub variance: f64,
 }
 
 fn opt(v: f64) -> Option<f64> {
@@ -201,34 +251,96 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
     }
 }
 
+fn squared_row(value: f64, t: &SquaredTerms, e: &SquaredTerms) -> PointRow {
+    PointRow {
+        value,
+        expected_loss: t.expected_loss,
+        bias_sq: Some(t.bias_sq),
+        bias: None,
+        variance: t.variance,
+        noise: t.noise,
+        expected_loss_direct: t.expected_loss_direct,
+        net_variance: None,
+        unbiased_variance: None,
+        biased_variance: None,
+        kohavi_wolpert: None,
+        james: None,
+        stderr: Stderr {
+            expected_loss: opt(e.expected_loss),
+            bias_sq: Some(opt(e.bias_sq)),
+            bias: None,
+            variance: opt(e.variance),
+            expected_loss_direct: opt(e.expected_loss_direct),
+            net_variance: None,
+            unbiased_variance: None,
+            biased_variance: None,
+            kohavi_wolpert: None,
+            james: None,
+        },
+    }
+}
+
+fn zero_one_row(value: f64, t: &ZeroOneTerms, e: &ZeroOneTerms) -> PointRow {
+    PointRow {
+        value,
+        expected_loss: t.expected_loss,
+        bias_sq: None,
+        bias: Some(t.bias),
+        variance: t.variance,
+        noise: t.noise,
+        expected_loss_direct: t.expected_loss_direct,
+        net_variance: Some(t.net_variance),
+        unbiased_variance: Some(t.unbiased_variance),
+        biased_variance: Some(t.biased_variance),
+        kohavi_wolpert: Some(KohaviWolpert {
+            noise: opt(t.kw_noise),
+            bias_sq: opt(t.kw_bias_sq),
+            variance: opt(t.kw_variance),
+        }),
+        james: Some(James {
+            systematic_effect: opt(t.james_systematic),
+            variance_effect: opt(t.james_variance),
+        }),
+        stderr: Stderr {
+            expected_loss: opt(e.expected_loss),
+            bias_sq: None,
+            bias: Some(opt(e.bias)),
+            variance: opt(e.variance),
+            expected_loss_direct: opt(e.expected_loss_direct),
+            net_variance: Some(opt(e.net_variance)),
+            unbiased_variance: Some(opt(e.unbiased_variance)),
+            biased_variance: Some(opt(e.biased_variance)),
+            kohavi_wolpert: Some(KohaviWolpert {
+                noise: opt(e.kw_noise),
+                bias_sq: opt(e.kw_bias_sq),
+                variance: opt(e.kw_variance),
+            }),
+            james: Some(James {
+                systematic_effect: opt(e.james_systematic),
+                variance_effect: opt(e.james_variance),
+            }),
+        },
+    }
+}
+
 /// Builds the result document of a finished run.
 pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
-    let s = &outcome.summary;
-    let points: Vec<PointRow> = plan
-        .grid
-        .iter()
-        .enumerate()
-        .map(|(g, &value)| {
-            let t = s.terms[g];
-            let e = s.stderr[g];
-            PointRow {
-                value,
-                expected_loss: t.expected_loss,
-                bias_sq: t.bias_sq,
-                variance: t.variance,
-                noise: t.noise,
-                expected_loss_direct: t.expected_loss_direct,
-                stderr: Stderr {
-                    expected_loss: opt(e.expected_loss),
-                    bias_sq: opt(e.bias_sq),
-                    variance: opt(e.variance),
-                    expected_loss_direct: opt(e.expected_loss_direct),
-                },
-            }
-        })
-        .collect();
+    let points: Vec<PointRow> = match &outcome.summary {
+        Summary::Squared(s) => plan
+            .grid
+            .iter()
+            .enumerate()
+            .map(|(g, &v)| squared_row(v, &s.terms[g], &s.stderr[g]))
+            .collect(),
+        Summary::ZeroOne(s) => plan
+            .grid
+            .iter()
+            .enumerate()
+            .map(|(g, &v)| zero_one_row(v, &s.terms[g], &s.stderr[g]))
+            .collect(),
+    };
     let best = best_of(&points);
-    let reading = reading(plan.family.knob(), &points, &best);
+    let reading = reading(plan.family.knob(), plan.loss, &points, &best);
     ResultDoc {
         format: FORMAT.into(),
         version: env!("CARGO_PKG_VERSION").into(),
@@ -358,16 +470,20 @@ fn runs(points: &[PointRow], pick: impl Fn(&PointRow) -> bool) -> String {
 
 /// One plain sentence (or two) reading the curve: where bias² dominates, where variance does,
 /// and where the lowest expected loss lies.
-pub fn reading(knob: &str, points: &[PointRow], best: &Best) -> String {
-    let bias_dominates = |p: &PointRow| p.bias_sq > p.variance;
+pub fn reading(knob: &str, loss: LossKind, points: &[PointRow], best: &Best) -> String {
+    let bias_dominates = |p: &PointRow| p.bias_term() > p.variance;
     let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
+    let bias_word = match loss {
+        LossKind::Squared => "Bias²",
+        LossKind::ZeroOne => "Bias (Domingos)",
+    };
     let mut out = if n_bias == points.len() {
-        format!("Bias² exceeds variance at every {knob} tried: the family underfits across the whole grid.")
+        format!("{bias_word} exceeds variance at every {knob} tried: the family underfits across the whole grid.")
     } else if n_bias == 0 {
-        format!("Variance exceeds bias² at every {knob} tried: the family overfits across the whole grid.")
+        format!("Variance exceeds {} at every {knob} tried: the family overfits across the whole grid.", bias_word.to_lowercase())
     } else {
         format!(
-            "Bias² dominates at {knob} {}; variance dominates at {knob} {}.",
+            "{bias_word} dominates at {knob} {}; variance dominates at {knob} {}.",
             runs(points, bias_dominates),
             runs(points, |p| !bias_dominates(p))
         )
@@ -396,29 +512,6 @@ pub fn reading(knob: &str, points: &[PointRow], best: &Best) -> String {
         ));
     }
     out
-}
-
-/// Per-evaluation-point rows.
-pub fn point_details(plan: &Plan, outcome: &Outcome) -> Vec<PointDetail> {
-    let total = &outcome.summary.total;
-    let truth = &outcome.prepared.eval_truth;
-    let nv = outcome.prepared.noise_var();
-    let mut rows = Vec::with_capacity(total.grid * total.points);
-    for (g, &value) in plan.grid.iter().enumerate() {
-        for e in 0..total.points {
-            let p = crate::decompose::squared::point(total, g, e, truth[e]);
-            rows.push(PointDetail {
-                value,
-                point: e,
-                truth: truth[e],
-                noise: nv[e],
-                mean_prediction: p.mean_prediction,
-                bias_sq: p.bias_sq,
-                variance: p.variance,
-            });
-        }
-    }
-    rows
 }
 
 /// Writes `bytes` to `path` atomically: a temporary file in the same folder, then a rename.
@@ -458,66 +551,125 @@ pub fn to_json(doc: &ResultDoc) -> String {
     s
 }
 
-/// CSV of the per-grid rows (one header, one row per grid value; stderr columns flattened).
-pub fn to_csv(doc: &ResultDoc) -> String {
-    #[derive(Serialize)]
-    struct Row<'a> {
-        #[serde(rename = "knob")]
-        knob: &'a str,
-        value: f64,
-        expected_loss: f64,
-        bias_sq: f64,
-        variance: f64,
-        noise: f64,
-        expected_loss_direct: f64,
-        se_expected_loss: Option<f64>,
-        se_bias_sq: Option<f64>,
-        se_variance: Option<f64>,
-        se_expected_loss_direct: Option<f64>,
+/// Flattens a JSON object into `(column, value)` pairs, nested keys joined with `_`
+/// (`stderr_expected_loss`, `kohavi_wolpert_bias_sq`).
+fn flatten(prefix: &str, v: &serde_json::Value, out: &mut Vec<(String, String)>) {
+    match v {
+        serde_json::Value::Object(map) => {
+            for (k, v) in map {
+                let key = if prefix.is_empty() {
+                    k.clone()
+                } else {
+                    format!("{prefix}_{k}")
+                };
+                flatten(&key, v, out);
+            }
+        }
+        serde_json::Value::Null => out.push((prefix.to_string(), String::new())),
+        serde_json::Value::String(s) => out.push((prefix.to_string(), s.clone())),
+        other => out.push((prefix.to_string(), other.to_string())),
     }
+}
+
+/// CSV of the per-grid rows: the same `PointRow` values as the JSON, nested fields flattened
+/// (`stderr_bias_sq`), one header and one row per grid value; the first column names the knob.
+pub fn to_csv(doc: &ResultDoc) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
-    for p in &doc.points {
-        w.serialize(Row {
-            knob: &doc.knob,
-            value: p.value,
-            expected_loss: p.expected_loss,
-            bias_sq: p.bias_sq,
-            variance: p.variance,
-            noise: p.noise,
-            expected_loss_direct: p.expected_loss_direct,
-            se_expected_loss: p.stderr.expected_loss,
-            se_bias_sq: p.stderr.bias_sq,
-            se_variance: p.stderr.variance,
-            se_expected_loss_direct: p.stderr.expected_loss_direct,
-        })
-        .expect("in-memory csv");
+    for (i, p) in doc.points.iter().enumerate() {
+        let mut cells = vec![("knob".to_string(), doc.knob.clone())];
+        let v = serde_json::to_value(p).expect("result types serialize");
+        flatten("", &v, &mut cells);
+        if i == 0 {
+            w.write_record(cells.iter().map(|c| c.0.as_str()))
+                .expect("in-memory csv");
+        }
+        w.write_record(cells.iter().map(|c| c.1.as_str()))
+            .expect("in-memory csv");
     }
     String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
 }
 
-/// CSV of the per-point rows, with the evaluation inputs as leading columns.
+/// CSV with one row per evaluation point and grid value: the inputs, then the per-point terms.
 pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
     let Source::Synthetic(s) = &plan.source;
-    let names: Vec<String> = s.process.inputs.iter().map(|i| i.name.clone()).collect();
+    let prep = &outcome.prepared;
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["value".to_string(), "point".to_string()];
-    header.extend(names.iter().cloned());
-    header.extend(["truth", "noise", "mean_prediction", "bias_sq", "variance"].map(String::from));
-    w.write_record(&header).expect("in-memory csv");
-    for d in point_details(plan, outcome) {
-        let mut rec = vec![d.value.to_string(), d.point.to_string()];
-        rec.extend(
-            outcome
-                .prepared
-                .eval_x
-                .row(d.point)
-                .iter()
-                .map(|v| v.to_string()),
-        );
-        rec.extend(
-            [d.truth, d.noise, d.mean_prediction, d.bias_sq, d.variance].map(|v| v.to_string()),
-        );
-        w.write_record(&rec).expect("in-memory csv");
+    header.extend(s.process.inputs.iter().map(|i| i.name.clone()));
+    let num = |v: f64| if v.is_finite() { v.to_string() } else { String::new() };
+    match &outcome.summary {
+        Summary::Squared(sum) => {
+            header.extend(
+                ["truth", "noise", "mean_prediction", "bias_sq", "variance"].map(String::from),
+            );
+            w.write_record(&header).expect("in-memory csv");
+            let nv = prep.noise_var();
+            for (g, &value) in plan.grid.iter().enumerate() {
+                for e in 0..sum.total.points {
+                    let t = prep.eval_truth[e];
+                    let p = crate::decompose::squared::point(&sum.total, g, e, t);
+                    let mut rec = vec![value.to_string(), e.to_string()];
+                    rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
+                    rec.extend(
+                        [t, nv[e], p.mean_prediction, p.bias_sq, p.variance].map(num),
+                    );
+                    w.write_record(&rec).expect("in-memory csv");
+                }
+            }
+        }
+        Summary::ZeroOne(sum) => {
+            let labels = match &s.process.response {
+                Response::Classes(m) => m.labels.clone(),
+                Response::Regression { .. } => Vec::new(),
+            };
+            header.extend(
+                [
+                    "bayes_class",
+                    "main_prediction",
+                    "expected_loss",
+                    "noise",
+                    "bias",
+                    "variance",
+                    "c1",
+                    "c2",
+                    "kw_bias_sq",
+                    "kw_variance",
+                    "james_systematic_effect",
+                    "james_variance_effect",
+                ]
+                .map(String::from),
+            );
+            w.write_record(&header).expect("in-memory csv");
+            let probs = prep.eval_probs.as_ref().expect("classification has probabilities");
+            for (g, &value) in plan.grid.iter().enumerate() {
+                for e in 0..sum.total.points {
+                    let pt: Vec<f64> = probs.row(e).to_vec();
+                    let p = crate::decompose::zero_one::point(&sum.total, g, e, &pt);
+                    let label = |c: usize| labels.get(c).cloned().unwrap_or_else(|| c.to_string());
+                    let mut rec = vec![value.to_string(), e.to_string()];
+                    rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
+                    rec.push(label(p.bayes_class));
+                    rec.push(label(p.main_prediction));
+                    let t = &p.terms;
+                    rec.extend(
+                        [
+                            t.expected_loss,
+                            t.noise,
+                            t.bias,
+                            t.variance,
+                            p.c1,
+                            p.c2,
+                            t.kw_bias_sq,
+                            t.kw_variance,
+                            t.james_systematic,
+                            t.james_variance,
+                        ]
+                        .map(num),
+                    );
+                    w.write_record(&rec).expect("in-memory csv");
+                }
+            }
+        }
     }
     String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
 }

@@ -1,7 +1,22 @@
 //! The terminal table: aligned columns, `±` standard errors, the best row marked, a one-line
-//! legend and the reading of the curve.
+//! legend and the reading of the curve. For 0-1 loss the columns follow the chosen
+//! decomposition (Domingos by default).
 
-use super::{fmt_num, fmt_se, fmt_value, ResultDoc};
+use super::{fmt_num, fmt_se, fmt_value, PointRow, ResultDoc};
+
+/// Which 0-1 decomposition the table shows (squared loss has one).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum View {
+    /// Domingos (2000): bias, variance, net variance.
+    #[default]
+    Domingos,
+    /// Kohavi and Wolpert (1996): noise, bias², variance.
+    KohaviWolpert,
+    /// James (2003): systematic effect, variance effect.
+    James,
+    /// All three side by side.
+    All,
+}
 
 fn with_se(v: f64, se: Option<f64>) -> String {
     match se {
@@ -10,8 +25,132 @@ fn with_se(v: f64, se: Option<f64>) -> String {
     }
 }
 
-/// Renders the table for a result document.
+fn opt_se(v: Option<f64>, se: Option<Option<f64>>) -> String {
+    match v {
+        Some(v) => with_se(v, se.flatten()),
+        None => "n/a".into(),
+    }
+}
+
+type Column = (&'static str, Box<dyn Fn(&PointRow) -> String>);
+
+fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
+    let mut cols: Vec<Column> = vec![(
+        "expected loss",
+        Box::new(|p: &PointRow| with_se(p.expected_loss, p.stderr.expected_loss)),
+    )];
+    if doc.loss == "squared" {
+        cols.push(("bias²", Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq.clone()))));
+        cols.push(("variance", Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance))));
+        cols.push(("noise", Box::new(|p: &PointRow| fmt_num(p.noise))));
+    } else {
+        cols.push(("noise (Bayes)", Box::new(|p: &PointRow| fmt_num(p.noise))));
+        if matches!(view, View::Domingos | View::All) {
+            cols.push(("bias", Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias.clone()))));
+            cols.push(("variance", Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance))));
+            cols.push((
+                "net variance",
+                Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance.clone())),
+            ));
+            cols.push((
+                "unbiased var",
+                Box::new(|p: &PointRow| opt_se(p.unbiased_variance, p.stderr.unbiased_variance.clone())),
+            ));
+            cols.push((
+                "biased var",
+                Box::new(|p: &PointRow| opt_se(p.biased_variance, p.stderr.biased_variance.clone())),
+            ));
+        }
+        if matches!(view, View::KohaviWolpert | View::All) {
+            cols.push((
+                "KW noise",
+                Box::new(|p: &PointRow| {
+                    fmt_num(p.kohavi_wolpert.as_ref().and_then(|k| k.noise).unwrap_or(f64::NAN))
+                }),
+            ));
+            cols.push((
+                "KW bias²",
+                Box::new(|p: &PointRow| {
+                    opt_se(
+                        p.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq),
+                        p.stderr.kohavi_wolpert.as_ref().map(|k| k.bias_sq),
+                    )
+                }),
+            ));
+            cols.push((
+                "KW variance",
+                Box::new(|p: &PointRow| {
+                    opt_se(
+                        p.kohavi_wolpert.as_ref().and_then(|k| k.variance),
+                        p.stderr.kohavi_wolpert.as_ref().map(|k| k.variance),
+                    )
+                }),
+            ));
+        }
+        if matches!(view, View::James | View::All) {
+            cols.push((
+                "systematic effect",
+                Box::new(|p: &PointRow| {
+                    opt_se(
+                        p.james.as_ref().and_then(|j| j.systematic_effect),
+                        p.stderr.james.as_ref().map(|j| j.systematic_effect),
+                    )
+                }),
+            ));
+            cols.push((
+                "variance effect",
+                Box::new(|p: &PointRow| {
+                    opt_se(
+                        p.james.as_ref().and_then(|j| j.variance_effect),
+                        p.stderr.james.as_ref().map(|j| j.variance_effect),
+                    )
+                }),
+            ));
+        }
+    }
+    cols.push((
+        "direct check",
+        Box::new(|p: &PointRow| with_se(p.expected_loss_direct, p.stderr.expected_loss_direct)),
+    ));
+    cols
+}
+
+fn legend(doc: &ResultDoc, view: View) -> String {
+    let mut s = String::from("legend: ");
+    if doc.loss == "squared" {
+        s.push_str(
+            "expected loss = noise + bias² + variance (squared units of the response), averaged over \
+             evaluation points",
+        );
+    } else {
+        s.push_str("expected loss = misclassification rate 1 − Σ p_true·p_predicted, averaged over evaluation points; noise = Bayes error");
+        if matches!(view, View::Domingos | View::All) {
+            s.push_str(
+                "; Domingos (2000): bias = share of points whose majority prediction is not the Bayes class, \
+                 loss = c1·noise + bias + net variance, net variance = unbiased − biased variance",
+            );
+        }
+        if matches!(view, View::KohaviWolpert | View::All) {
+            s.push_str("; Kohavi-Wolpert (1996): KW noise + KW bias² + KW variance = expected loss");
+        }
+        if matches!(view, View::James | View::All) {
+            s.push_str("; James (2003): noise + systematic effect + variance effect = expected loss");
+        }
+    }
+    s.push_str(
+        "; ± one standard error (jackknife over replicate blocks); direct check = loss against fresh \
+         responses; * lowest expected loss.\n",
+    );
+    s
+}
+
+/// Renders the table for a result document (Domingos view for 0-1 loss).
 pub fn render(doc: &ResultDoc) -> String {
+    render_view(doc, View::Domingos)
+}
+
+/// Renders the table with the chosen 0-1 decomposition view.
+pub fn render_view(doc: &ResultDoc, view: View) -> String {
     let mut out = String::new();
     out.push_str(&format!(
         "{} · family {} (knob {}) · {} loss · R = {} replicates · seed {}\n",
@@ -22,34 +161,17 @@ pub fn render(doc: &ResultDoc) -> String {
         out.push('\n');
     }
     out.push('\n');
-    let header = [
-        doc.knob.clone(),
-        "expected loss".into(),
-        "bias²".into(),
-        "variance".into(),
-        "noise".into(),
-        "direct check".into(),
-    ];
-    let mut rows: Vec<[String; 6]> = Vec::new();
+    let cols = columns(doc, view);
+    let mut header: Vec<String> = vec![doc.knob.clone()];
+    header.extend(cols.iter().map(|c| c.0.to_string()));
+    let mut rows: Vec<Vec<String>> = Vec::new();
     for p in &doc.points {
-        let mark = if p.value == doc.best.value {
-            " *"
-        } else {
-            "  "
-        };
-        rows.push([
-            format!("{}{mark}", fmt_value(p.value)),
-            with_se(p.expected_loss, p.stderr.expected_loss),
-            with_se(p.bias_sq, p.stderr.bias_sq),
-            with_se(p.variance, p.stderr.variance),
-            fmt_num(p.noise),
-            with_se(p.expected_loss_direct, p.stderr.expected_loss_direct),
-        ]);
+        let mark = if p.value == doc.best.value { " *" } else { "  " };
+        let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
+        r.extend(cols.iter().map(|c| (c.1)(p)));
+        rows.push(r);
     }
-    let mut widths = [0usize; 6];
-    for (i, h) in header.iter().enumerate() {
-        widths[i] = h.chars().count();
-    }
+    let mut widths: Vec<usize> = header.iter().map(|h| h.chars().count()).collect();
     for r in &rows {
         for (i, c) in r.iter().enumerate() {
             widths[i] = widths[i].max(c.chars().count());
@@ -70,11 +192,7 @@ pub fn render(doc: &ResultDoc) -> String {
         out.push_str(&line(r));
     }
     out.push('\n');
-    out.push_str(
-        "legend: expected loss = noise + bias² + variance (squared units of the response), averaged over \
-         evaluation points; ± one standard error (jackknife over replicate blocks); direct check = mean \
-         squared error against fresh noisy responses; * lowest expected loss.\n",
-    );
+    out.push_str(&legend(doc, view));
     out.push_str(&format!("reading: {}\n", doc.reading));
     out
 }
