@@ -54,13 +54,31 @@ fn bench_family(c: &mut Criterion, label: &str, fam: &dyn Family, grid: &[f64], 
 
 fn path_fits(c: &mut Criterion) {
     let depths: Vec<f64> = (1..=12).map(f64::from).collect();
-    bench_family(c, "tree depth 1..12", &TreeFamily::default(), &depths, &[12.0]);
+    bench_family(
+        c,
+        "tree depth 1..12",
+        &TreeFamily::default(),
+        &depths,
+        &[12.0],
+    );
     let ks = [1.0, 2.0, 3.0, 5.0, 8.0, 12.0, 20.0, 30.0, 50.0];
     bench_family(c, "knn k 1..50", &KnnFamily::default(), &ks, &[1.0]);
     let degrees = [0.0, 1.0, 2.0, 3.0];
-    bench_family(c, "poly degree 0..3 (10 inputs)", &PolyFamily, &degrees, &[3.0]);
+    bench_family(
+        c,
+        "poly degree 0..3 (10 inputs)",
+        &PolyFamily,
+        &degrees,
+        &[3.0],
+    );
     let penalties: Vec<f64> = (0..20).map(|i| 10f64.powf(-3.0 + 0.3 * i as f64)).collect();
-    bench_family(c, "ridge 20 penalties", &RidgeFamily, &penalties, &[penalties[0]]);
+    bench_family(
+        c,
+        "ridge 20 penalties",
+        &RidgeFamily,
+        &penalties,
+        &[penalties[0]],
+    );
 }
 
 criterion_group! {

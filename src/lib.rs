@@ -28,5 +28,6 @@ pub mod family;
 pub mod report;
 pub mod runner;
 pub mod scenario;
+pub mod shard;
 
 pub use error::{Error, ScenarioError};

@@ -146,7 +146,11 @@ fn draw_replicate(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
         (None, Some((x, f, sd))) => {
             let y = add_noise(f, sd, &mut rng);
             let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
-            Ok(Draw { x: x.clone(), y, fresh })
+            Ok(Draw {
+                x: x.clone(),
+                y,
+                fresh,
+            })
         }
         (None, None) => {
             let x = s.process.draw_inputs(s.train_size, &mut rng);
@@ -221,7 +225,10 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockAcc, Error
                     {
                         return Err(fit_err(
                             r,
-                            format!("predicted {bad}, not a class index 0..{classes}, at {}", knob()),
+                            format!(
+                                "predicted {bad}, not a class index 0..{classes}, at {}",
+                                knob()
+                            ),
                         ));
                     }
                     let wrong = row

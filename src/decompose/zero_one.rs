@@ -809,7 +809,7 @@ mod tests {
         let p: Vec<f64> = (0..8).flat_map(|_| simplex(&mut s, 3)).collect();
         let (blocks, all) = random_blocks(&[10, 10, 10, 10, 10]);
 
-        let one = summarize(&[all.clone()], &p).unwrap();
+        let one = summarize(std::slice::from_ref(&all), &p).unwrap();
         assert!(one.stderr.iter().all(|t| t.expected_loss.is_nan()
             && t.variance.is_nan()
             && t.kw_variance.is_nan()

@@ -211,7 +211,10 @@ impl ClassModel {
                 fs.iter().map(|f| f.source()).collect::<Vec<_>>().join(", ")
             ),
             ClassKind::Flip { rule, flip } => {
-                format!("rule {} with labels flipped with probability {flip}", rule.source())
+                format!(
+                    "rule {} with labels flipped with probability {flip}",
+                    rule.source()
+                )
             }
         }
     }
@@ -280,7 +283,9 @@ impl Synthetic {
     /// not finite.
     pub fn truth_at(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>, Error> {
         let Response::Regression { truth, .. } = &self.response else {
-            return Err(Error::Data("a classification process has no regression truth".into()));
+            return Err(Error::Data(
+                "a classification process has no regression truth".into(),
+            ));
         };
         let mut out = Array1::zeros(x.nrows());
         let mut buf = vec![0.0; x.ncols()];
@@ -303,7 +308,9 @@ impl Synthetic {
     /// the inputs where a probability is outside [0, 1] or not finite.
     pub fn probs_at(&self, x: ArrayView2<'_, f64>) -> Result<Array2<f64>, Error> {
         let Response::Classes(model) = &self.response else {
-            return Err(Error::Data("a regression process has no class probabilities".into()));
+            return Err(Error::Data(
+                "a regression process has no class probabilities".into(),
+            ));
         };
         let k = model.labels.len();
         let mut out = Array2::zeros((x.nrows(), k));

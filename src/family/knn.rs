@@ -28,9 +28,9 @@
 //!
 //! For every evaluation point the `K = max(grid)` nearest neighbours are found once (exact search:
 //! all squared distances, a linear-time selection of the `K` smallest keys above, a sort of those
-//! `K`), then the prediction for every `k` of the grid is
-//! read off running sums (regression) or running vote counts with a running leader
-//! (classification). The cost of the whole grid is that of one fit at `K`.
+//! `K`), then the prediction for every `k` of the grid is read off running sums (regression) or
+//! running vote counts with a running leader (classification). The cost of the whole grid is that
+//! of one fit at `K`.
 
 use std::borrow::Cow;
 

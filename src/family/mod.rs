@@ -10,6 +10,7 @@
 use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2};
 
 pub mod knn;
+pub mod logistic;
 pub mod poly;
 pub mod ridge;
 pub mod tree;
@@ -133,6 +134,13 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             knob: "penalty",
             meaning: "ridge penalty λ on standardized inputs (sum-of-squares scale); smaller = more complex",
             tasks: "regression",
+            options: "none",
+        },
+        FamilyInfo {
+            name: "logistic",
+            knob: "inverse_penalty",
+            meaning: "C = 1/λ, inverse strength of an L2 penalty on standardized inputs; larger = more complex",
+            tasks: "classification (two classes: logistic; K > 2: multinomial)",
             options: "none",
         },
     ]

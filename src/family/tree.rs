@@ -671,17 +671,17 @@ impl Grower<'_> {
             let val = &mut self.val[f * n + start..f * n + end];
             let mut w = 0;
             let mut r = 0;
+            // Branch-free: write to both destinations, advance one (directions are unpredictable).
+            let (sidx, sval) = (&mut self.scratch_idx, &mut self.scratch_val);
             for k in 0..idx.len() {
                 let (i, v) = (idx[k], val[k]);
-                if self.goes_left[i as usize] {
-                    idx[w] = i;
-                    val[w] = v;
-                    w += 1;
-                } else {
-                    self.scratch_idx[r] = i;
-                    self.scratch_val[r] = v;
-                    r += 1;
-                }
+                let l = usize::from(self.goes_left[i as usize]);
+                idx[w] = i;
+                val[w] = v;
+                sidx[r] = i;
+                sval[r] = v;
+                w += l;
+                r += 1 - l;
             }
             idx[w..].copy_from_slice(&self.scratch_idx[..r]);
             val[w..].copy_from_slice(&self.scratch_val[..r]);
@@ -1075,10 +1075,6 @@ mod tests {
                 assert!(
                     a as f64 >= 0.99 * eval.nrows() as f64,
                     "seed {seed} depth {d}: {a} of {} agree",
-                    eval.nrows()
-                );
-                eprintln!(
-                    "seed {seed} depth {d}: {a} of {} held-out agree",
                     eval.nrows()
                 );
                 agree += a;

@@ -1,6 +1,7 @@
 //! The result document and its renderings (JSON, CSV, per-point CSV, terminal table). These are
 //! the only types that derive `Serialize`; CSV rows and JSON come from the same structs.
 
+pub mod part;
 pub mod table;
 
 use std::io::Write;
@@ -8,10 +9,10 @@ use std::path::Path;
 
 use serde::Serialize;
 
-use crate::dgp::Response;
-use crate::error::Error;
 use crate::decompose::zero_one::ZeroOneTerms;
 use crate::decompose::SquaredTerms;
+use crate::dgp::Response;
+use crate::error::Error;
 use crate::runner::{Outcome, Summary};
 use crate::scenario::{Design, GridKind, LossKind, Plan, Source};
 
@@ -480,7 +481,10 @@ pub fn reading(knob: &str, loss: LossKind, points: &[PointRow], best: &Best) -> 
     let mut out = if n_bias == points.len() {
         format!("{bias_word} exceeds variance at every {knob} tried: the family underfits across the whole grid.")
     } else if n_bias == 0 {
-        format!("Variance exceeds {} at every {knob} tried: the family overfits across the whole grid.", bias_word.to_lowercase())
+        format!(
+            "Variance exceeds {} at every {knob} tried: the family overfits across the whole grid.",
+            bias_word.to_lowercase()
+        )
     } else {
         format!(
             "{bias_word} dominates at {knob} {}; variance dominates at {knob} {}.",
@@ -596,7 +600,13 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["value".to_string(), "point".to_string()];
     header.extend(s.process.inputs.iter().map(|i| i.name.clone()));
-    let num = |v: f64| if v.is_finite() { v.to_string() } else { String::new() };
+    let num = |v: f64| {
+        if v.is_finite() {
+            v.to_string()
+        } else {
+            String::new()
+        }
+    };
     match &outcome.summary {
         Summary::Squared(sum) => {
             header.extend(
@@ -610,9 +620,7 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
                     let p = crate::decompose::squared::point(&sum.total, g, e, t);
                     let mut rec = vec![value.to_string(), e.to_string()];
                     rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
-                    rec.extend(
-                        [t, nv[e], p.mean_prediction, p.bias_sq, p.variance].map(num),
-                    );
+                    rec.extend([t, nv[e], p.mean_prediction, p.bias_sq, p.variance].map(num));
                     w.write_record(&rec).expect("in-memory csv");
                 }
             }
@@ -640,7 +648,10 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
                 .map(String::from),
             );
             w.write_record(&header).expect("in-memory csv");
-            let probs = prep.eval_probs.as_ref().expect("classification has probabilities");
+            let probs = prep
+                .eval_probs
+                .as_ref()
+                .expect("classification has probabilities");
             for (g, &value) in plan.grid.iter().enumerate() {
                 for e in 0..sum.total.points {
                     let pt: Vec<f64> = probs.row(e).to_vec();

@@ -40,32 +40,53 @@ fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
         Box::new(|p: &PointRow| with_se(p.expected_loss, p.stderr.expected_loss)),
     )];
     if doc.loss == "squared" {
-        cols.push(("bias²", Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq.clone()))));
-        cols.push(("variance", Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance))));
+        cols.push((
+            "bias²",
+            Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq.clone())),
+        ));
+        cols.push((
+            "variance",
+            Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance)),
+        ));
         cols.push(("noise", Box::new(|p: &PointRow| fmt_num(p.noise))));
     } else {
         cols.push(("noise (Bayes)", Box::new(|p: &PointRow| fmt_num(p.noise))));
         if matches!(view, View::Domingos | View::All) {
-            cols.push(("bias", Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias.clone()))));
-            cols.push(("variance", Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance))));
+            cols.push((
+                "bias",
+                Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias.clone())),
+            ));
+            cols.push((
+                "variance",
+                Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance)),
+            ));
             cols.push((
                 "net variance",
                 Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance.clone())),
             ));
             cols.push((
                 "unbiased var",
-                Box::new(|p: &PointRow| opt_se(p.unbiased_variance, p.stderr.unbiased_variance.clone())),
+                Box::new(|p: &PointRow| {
+                    opt_se(p.unbiased_variance, p.stderr.unbiased_variance.clone())
+                }),
             ));
             cols.push((
                 "biased var",
-                Box::new(|p: &PointRow| opt_se(p.biased_variance, p.stderr.biased_variance.clone())),
+                Box::new(|p: &PointRow| {
+                    opt_se(p.biased_variance, p.stderr.biased_variance.clone())
+                }),
             ));
         }
         if matches!(view, View::KohaviWolpert | View::All) {
             cols.push((
                 "KW noise",
                 Box::new(|p: &PointRow| {
-                    fmt_num(p.kohavi_wolpert.as_ref().and_then(|k| k.noise).unwrap_or(f64::NAN))
+                    fmt_num(
+                        p.kohavi_wolpert
+                            .as_ref()
+                            .and_then(|k| k.noise)
+                            .unwrap_or(f64::NAN),
+                    )
                 }),
             ));
             cols.push((
@@ -131,10 +152,14 @@ fn legend(doc: &ResultDoc, view: View) -> String {
             );
         }
         if matches!(view, View::KohaviWolpert | View::All) {
-            s.push_str("; Kohavi-Wolpert (1996): KW noise + KW bias² + KW variance = expected loss");
+            s.push_str(
+                "; Kohavi-Wolpert (1996): KW noise + KW bias² + KW variance = expected loss",
+            );
         }
         if matches!(view, View::James | View::All) {
-            s.push_str("; James (2003): noise + systematic effect + variance effect = expected loss");
+            s.push_str(
+                "; James (2003): noise + systematic effect + variance effect = expected loss",
+            );
         }
     }
     s.push_str(
@@ -166,7 +191,11 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
     header.extend(cols.iter().map(|c| c.0.to_string()));
     let mut rows: Vec<Vec<String>> = Vec::new();
     for p in &doc.points {
-        let mark = if p.value == doc.best.value { " *" } else { "  " };
+        let mark = if p.value == doc.best.value {
+            " *"
+        } else {
+            "  "
+        };
         let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
         r.extend(cols.iter().map(|c| (c.1)(p)));
         rows.push(r);

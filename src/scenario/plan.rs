@@ -409,6 +409,24 @@ fn build_family(cx: &Ctx<'_>, m: &ModelSpec) -> Result<Arc<dyn Family>, Scenario
                 Arc::new(family::ridge::RidgeFamily)
             }
         }
+        "logistic" => {
+            reject(
+                m.min_samples_leaf.is_some(),
+                "min_samples_leaf",
+                m.min_samples_leaf.as_ref().map(|s| s.span()),
+            )?;
+            reject(
+                m.criterion.is_some(),
+                "criterion",
+                m.criterion.as_ref().map(|s| s.span()),
+            )?;
+            reject(
+                m.standardize.is_some(),
+                "standardize",
+                Some(m.family.span()),
+            )?;
+            Arc::new(family::logistic::LogisticFamily)
+        }
         other => {
             let known: Vec<&str> = family::catalogue().iter().map(|f| f.name).collect();
             return Err(cx.err(
@@ -823,11 +841,7 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
     })
 }
 
-fn class_model(
-    cx: &Ctx<'_>,
-    c: &ClassesSpec,
-    names: &[&str],
-) -> Result<ClassModel, ScenarioError> {
+fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassModel, ScenarioError> {
     let labels: Vec<String> = c.labels.get_ref().clone();
     if labels.len() < 2 {
         return Err(cx.err(
@@ -846,10 +860,14 @@ fn class_model(
         }
     }
     let k = labels.len();
-    let given = [c.probability.is_some(), c.logits.is_some(), c.rule.is_some()]
-        .iter()
-        .filter(|&&b| b)
-        .count();
+    let given = [
+        c.probability.is_some(),
+        c.logits.is_some(),
+        c.rule.is_some(),
+    ]
+    .iter()
+    .filter(|&&b| b)
+    .count();
     if given != 1 {
         return Err(cx.err(
             Some(c.labels.span()),

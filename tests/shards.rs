@@ -1,0 +1,469 @@
+//! Integration tests of shards, merging and checkpoints through the `lossprism` binary: merged
+//! shards and resumed runs are byte-identical to the plain run, every merge refusal exits 2 with a
+//! one-line message naming the files, bad `--shard` values are usage errors, and the block
+//! accumulators' size does not depend on the number of replicates.
+
+use std::fs;
+use std::path::Path;
+use std::process::{Command, Output};
+
+use serde_json::Value;
+
+/// A small squared-loss scenario (invented: a smooth 1-D curve with Gaussian noise), 14 blocks of
+/// two replicates each.
+const SMALL: &str = r#"name = "shard-probe"
+about = "Invented: a smooth curve with noise, for shard tests."
+seed = 3
+replicates = 28
+blocks = 14
+
+[data]
+source = "synthetic"
+train_size = 40
+eval_size = 25
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "sin(3*x)"
+
+[data.noise]
+sd = 0.5
+
+[model]
+family = "tree"
+grid = [1, 2, 3, 4]
+"#;
+
+fn bin() -> &'static str {
+    env!("CARGO_BIN_EXE_lossprism")
+}
+
+/// Runs the binary with `args` in folder `cwd`.
+fn lossprism(cwd: &Path, args: &[&str]) -> Output {
+    Command::new(bin())
+        .args(args)
+        .current_dir(cwd)
+        .env("NO_COLOR", "1")
+        .output()
+        .expect("the lossprism binary starts")
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+/// Runs and asserts success.
+fn ok(cwd: &Path, args: &[&str]) -> Output {
+    let o = lossprism(cwd, args);
+    assert_eq!(o.status.code(), Some(0), "{args:?}: {}", stderr(&o));
+    o
+}
+
+/// Runs and asserts exit 2 with a one-line error message; returns the message.
+fn refused(cwd: &Path, args: &[&str]) -> String {
+    let o = lossprism(cwd, args);
+    let err = stderr(&o);
+    assert_eq!(o.status.code(), Some(2), "{args:?}: {err}");
+    let line = err.trim_end();
+    assert!(!line.contains('\n'), "{args:?}: not one line: {err}");
+    assert!(line.starts_with("error: "), "{args:?}: {err}");
+    line.to_string()
+}
+
+fn read(dir: &Path, f: &str) -> String {
+    fs::read_to_string(dir.join(f)).unwrap_or_else(|e| panic!("{f}: {e}"))
+}
+
+/// The 0-1 loss scenario shipped in `scenarios/`, with 14 blocks (R comes from `--replicates`).
+fn packing_line(dir: &Path) -> &'static str {
+    let src = fs::read_to_string(
+        Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/packing-line-tree.toml"),
+    )
+    .expect("shipped scenario");
+    assert!(src.contains("\nreplicates = "));
+    let src = src.replacen("\nreplicates = ", "\nblocks = 14\nreplicates = ", 1);
+    fs::write(dir.join("packing.toml"), src).unwrap();
+    "packing.toml"
+}
+
+/// Runs every shard of an `n`-way split (extra args appended) and merges them; returns the
+/// merged JSON text.
+fn shard_and_merge(dir: &Path, scenario: &str, extra: &[&str], n: u64) -> String {
+    let mut parts = Vec::new();
+    for i in 1..=n {
+        let part = format!("part-{n}-{i}.json");
+        let spec = format!("{i}/{n}");
+        let mut args = vec!["run", scenario, "--shard", &spec, "--out", &part];
+        args.extend_from_slice(extra);
+        ok(dir, &args);
+        parts.push(part);
+    }
+    let out = format!("merged-{n}.json");
+    let mut args = vec!["merge"];
+    args.extend(parts.iter().map(String::as_str));
+    args.extend_from_slice(&["--out", &out, "--quiet"]);
+    ok(dir, &args);
+    read(dir, &out)
+}
+
+#[test]
+fn merged_shards_are_byte_identical_to_the_unsharded_run_squared_loss() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    ok(d, &["run", "s.toml", "--out", "full.json", "--quiet"]);
+    let full = read(d, "full.json");
+    for n in [1, 3, 7] {
+        assert_eq!(shard_and_merge(d, "s.toml", &[], n), full, "{n} shards");
+    }
+    // parts given in any order, and CSV from merge equals CSV from run
+    ok(d, &["run", "s.toml", "--csv", "full.csv", "--quiet"]);
+    ok(
+        d,
+        &[
+            "merge",
+            "part-3-3.json",
+            "part-3-1.json",
+            "part-3-2.json",
+            "--csv",
+            "m.csv",
+            "--quiet",
+        ],
+    );
+    assert_eq!(read(d, "m.csv"), read(d, "full.csv"));
+    // the merge prints the same table as the run
+    let run_table = ok(d, &["run", "s.toml"]).stdout;
+    let merge_table = ok(d, &["merge", "part-1-1.json"]).stdout;
+    assert_eq!(run_table, merge_table);
+}
+
+#[test]
+fn merged_shards_are_byte_identical_to_the_unsharded_run_zero_one_loss() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let s = packing_line(d);
+    let r = ["--replicates", "28"];
+    ok(
+        d,
+        &["run", s, "--replicates", "28", "--out", "full.json", "-q"],
+    );
+    let full = read(d, "full.json");
+    let v: Value = serde_json::from_str(&full).unwrap();
+    assert_eq!(v["loss"], "zero_one");
+    assert_eq!(v["replicates"], 28);
+    assert_eq!(v["scenario"]["blocks"], 14);
+    for n in [1, 3, 7] {
+        assert_eq!(shard_and_merge(d, s, &r, n), full, "{n} shards");
+    }
+}
+
+#[test]
+fn merge_refuses_parts_that_do_not_make_one_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    fs::write(
+        d.join("other.toml"),
+        SMALL.replace("grid = [1, 2, 3, 4]", "grid = [1, 2, 3, 5]"),
+    )
+    .unwrap();
+    for i in 1..=3 {
+        let (spec, out) = (format!("{i}/3"), format!("p{i}.json"));
+        ok(d, &["run", "s.toml", "--shard", &spec, "--out", &out]);
+    }
+    ok(
+        d,
+        &[
+            "run",
+            "s.toml",
+            "--shard",
+            "2/3",
+            "--seed",
+            "9",
+            "--out",
+            "seed9.json",
+        ],
+    );
+    ok(
+        d,
+        &["run", "other.toml", "--shard", "2/3", "--out", "other.json"],
+    );
+    ok(
+        d,
+        &["run", "s.toml", "--shard", "2/7", "--out", "seven.json"],
+    );
+    ok(d, &["run", "s.toml", "--checkpoint", "ck.json", "-q"]);
+
+    let msg = refused(d, &["merge", "p1.json", "seed9.json", "p3.json"]);
+    assert!(
+        msg.contains("p1.json") && msg.contains("seed9.json"),
+        "{msg}"
+    );
+    assert!(msg.contains("seed 3 vs 9"), "{msg}");
+
+    let msg = refused(d, &["merge", "p1.json", "other.json", "p3.json"]);
+    assert!(
+        msg.contains("other.json") && msg.contains("grid [1, 2, 3, 4] vs [1, 2, 3, 5]"),
+        "{msg}"
+    );
+
+    let msg = refused(d, &["merge", "p1.json", "seven.json", "p3.json"]);
+    assert!(
+        msg.contains("shard 1/3") && msg.contains("seven.json is shard 2/7"),
+        "{msg}"
+    );
+
+    let msg = refused(d, &["merge", "p1.json", "p3.json"]);
+    assert!(msg.contains("block 4") && msg.contains("missing"), "{msg}");
+    assert!(msg.contains("shard 2/3"), "{msg}");
+
+    let msg = refused(d, &["merge", "p1.json", "p2.json", "p2.json", "p3.json"]);
+    assert!(
+        msg.contains("p2.json and p2.json are both shard 2/3 (duplicated part)"),
+        "{msg}"
+    );
+    fs::copy(d.join("p2.json"), d.join("copy.json")).unwrap();
+    let msg = refused(d, &["merge", "p1.json", "p2.json", "copy.json", "p3.json"]);
+    assert!(
+        msg.contains("duplicated part") && msg.contains("copy.json"),
+        "{msg}"
+    );
+
+    let msg = refused(d, &["merge", "ck.json"]);
+    assert!(msg.contains("ck.json is a checkpoint"), "{msg}");
+
+    // a part with a block removed by hand: the merge names the block and the file
+    let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
+    v["completed"].as_array_mut().unwrap().remove(1);
+    fs::write(d.join("cut.json"), v.to_string()).unwrap();
+    let msg = refused(d, &["merge", "p1.json", "cut.json", "p3.json"]);
+    assert!(
+        msg.contains("block 5") && msg.contains("cut.json (shard 2/3) lacks it"),
+        "{msg}"
+    );
+
+    // a part with a block listed twice
+    let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
+    let first = v["completed"][0].clone();
+    v["completed"].as_array_mut().unwrap().push(first);
+    fs::write(d.join("twice.json"), v.to_string()).unwrap();
+    let msg = refused(d, &["merge", "p1.json", "twice.json", "p3.json"]);
+    assert!(msg.contains("twice.json holds block 4 twice"), "{msg}");
+
+    // a tampered accumulator (replicate count) and a non-part file
+    let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
+    v["completed"][0]["acc"]["n"] = Value::from(3);
+    fs::write(d.join("bad.json"), v.to_string()).unwrap();
+    let msg = refused(d, &["merge", "p1.json", "bad.json", "p3.json"]);
+    assert!(msg.contains("bad.json: block 4"), "{msg}");
+    ok(d, &["run", "s.toml", "--out", "result.json", "-q"]);
+    let msg = refused(d, &["merge", "result.json"]);
+    assert!(
+        msg.contains("result.json") && msg.contains("lossprism-result/1"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn bad_shard_flags_are_usage_errors_naming_the_flag() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    for bad in ["3", "0/3", "4/3", "a/b"] {
+        let o = lossprism(d, &["run", "s.toml", "--shard", bad, "--out", "p.json"]);
+        assert_eq!(o.status.code(), Some(2), "{bad}");
+        let err = stderr(&o);
+        assert!(err.contains("--shard") && err.contains(bad), "{bad}: {err}");
+    }
+    let o = lossprism(d, &["run", "s.toml", "--shard", "1/3"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("--out"), "{}", stderr(&o));
+    // more shards than blocks (14)
+    let msg = refused(d, &["run", "s.toml", "--shard", "1/15", "--out", "p.json"]);
+    assert!(
+        msg.contains("--shard 1/15") && msg.contains("`blocks`"),
+        "{msg}"
+    );
+    assert!(!d.join("p.json").exists());
+}
+
+#[test]
+fn an_interrupted_run_resumes_to_the_uninterrupted_result() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    ok(d, &["run", "s.toml", "--out", "full.json", "-q"]);
+    let base = [
+        "run",
+        "s.toml",
+        "--threads",
+        "2",
+        "--checkpoint",
+        "ck.json",
+        "--out",
+        "r.json",
+        "-q",
+    ];
+
+    let mut stop = base.to_vec();
+    stop.extend_from_slice(&["--stop-after-blocks", "3"]);
+    let o = lossprism(d, &stop);
+    assert_eq!(o.status.code(), Some(3), "{}", stderr(&o));
+    assert!(stderr(&o).contains("stopped"), "{}", stderr(&o));
+    assert!(!d.join("r.json").exists());
+    let ck: Value = serde_json::from_str(&read(d, "ck.json")).unwrap();
+    assert_eq!(ck["checkpoint"], true);
+    assert_eq!(ck["completed"].as_array().unwrap().len(), 3);
+
+    // a second interruption adds four more blocks to the same checkpoint
+    let mut stop = base.to_vec();
+    stop.extend_from_slice(&["--stop-after-blocks", "4"]);
+    assert_eq!(lossprism(d, &stop).status.code(), Some(3));
+    let ck: Value = serde_json::from_str(&read(d, "ck.json")).unwrap();
+    assert_eq!(ck["completed"].as_array().unwrap().len(), 7);
+
+    ok(d, &base);
+    assert_eq!(read(d, "r.json"), read(d, "full.json"));
+    let ck: Value = serde_json::from_str(&read(d, "ck.json")).unwrap();
+    assert_eq!(ck["completed"].as_array().unwrap().len(), 14);
+    // rerunning a finished checkpoint recomputes nothing and gives the same result
+    ok(d, &base);
+    assert_eq!(read(d, "r.json"), read(d, "full.json"));
+
+    // a checkpointed shard, interrupted and resumed, writes the same part as a plain shard
+    ok(
+        d,
+        &["run", "s.toml", "--shard", "2/3", "--out", "plain.json"],
+    );
+    let shard = [
+        "run",
+        "s.toml",
+        "--shard",
+        "2/3",
+        "--checkpoint",
+        "ck2.json",
+        "--out",
+        "resumed.json",
+    ];
+    let mut stop = shard.to_vec();
+    stop.extend_from_slice(&["--stop-after-blocks", "2"]);
+    assert_eq!(lossprism(d, &stop).status.code(), Some(3));
+    ok(d, &shard);
+    assert_eq!(read(d, "resumed.json"), read(d, "plain.json"));
+    // the checkpoint belongs to shard 2/3, not to shard 1/3
+    let msg = refused(
+        d,
+        &[
+            "run",
+            "s.toml",
+            "--shard",
+            "1/3",
+            "--checkpoint",
+            "ck2.json",
+            "--out",
+            "x.json",
+        ],
+    );
+    assert!(
+        msg.contains("shard 2/3") && msg.contains("shard 1/3"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn a_stale_checkpoint_from_another_seed_is_refused_and_left_alone() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    let o = lossprism(
+        d,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--stop-after-blocks",
+            "2",
+            "-q",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(3));
+    let before = read(d, "ck.json");
+    let msg = refused(
+        d,
+        &[
+            "run",
+            "s.toml",
+            "--seed",
+            "4",
+            "--checkpoint",
+            "ck.json",
+            "-q",
+        ],
+    );
+    assert!(
+        msg.contains("checkpoint ck.json belongs to another scenario/seed")
+            && msg.contains("seed 3 vs 4")
+            && msg.contains("delete it or choose another file"),
+        "{msg}"
+    );
+    assert_eq!(read(d, "ck.json"), before);
+    // a file that is not a checkpoint at all
+    fs::write(d.join("junk.json"), "{\"hello\": 1}").unwrap();
+    let msg = refused(d, &["run", "s.toml", "--checkpoint", "junk.json", "-q"]);
+    assert!(
+        msg.contains("junk.json") && msg.contains("delete it"),
+        "{msg}"
+    );
+}
+
+#[test]
+fn block_accumulator_size_does_not_depend_on_the_number_of_replicates() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let small = SMALL.replace("blocks = 14", "blocks = 4");
+    fs::write(d.join("s.toml"), small).unwrap();
+    let accs = |r: &str, out: &str| -> Vec<Value> {
+        ok(
+            d,
+            &[
+                "run",
+                "s.toml",
+                "--replicates",
+                r,
+                "--shard",
+                "1/1",
+                "--out",
+                out,
+            ],
+        );
+        let v: Value = serde_json::from_str(&read(d, out)).unwrap();
+        v["completed"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|b| b["acc"].clone())
+            .collect()
+    };
+    let a = accs("40", "r40.json");
+    let b = accs("400", "r400.json");
+    assert_eq!(a.len(), 4);
+    assert_eq!(b.len(), 4);
+    for (x, y) in a.iter().zip(&b) {
+        assert_eq!(x["n"], 10);
+        assert_eq!(y["n"], 100);
+        for key in ["mean", "m2", "direct"] {
+            let (lx, ly) = (
+                x[key].as_str().unwrap().len(),
+                y[key].as_str().unwrap().len(),
+            );
+            assert_eq!(lx, ly, "{key}");
+        }
+        // 4 grid values × 25 points, 16 hex digits per value
+        assert_eq!(x["mean"].as_str().unwrap().len(), 4 * 25 * 16);
+        assert_eq!(x["direct"].as_str().unwrap().len(), 4 * 16);
+    }
+}
