@@ -23,7 +23,9 @@ Examples:
   lossprism families                              list model families and their knobs
   lossprism run s.toml --shard 2/8 --out part-2.json   one of 8 shards (e.g. a Slurm array task)
   lossprism merge part-*.json --out r.json        combine the shards into one result
-  lossprism run s.toml --checkpoint ck.json --out r.json   resumable run (rerun after a kill)";
+  lossprism run s.toml --checkpoint ck.json --out r.json   resumable run (rerun after a kill)
+  lossprism check r.json --baseline base.json     fail (exit 1) when a term regressed
+  lossprism check r.json --baseline base.json --update   accept the new result as the baseline";
 
 /// Subcommands.
 #[derive(Debug, Subcommand)]
@@ -41,6 +43,32 @@ pub enum Command {
     /// byte to the unsharded run. Refuses parts of different runs or shard counts, duplicated
     /// parts and missing blocks (exit 2).
     Merge(MergeArgs),
+    /// Compare a result with a baseline result of the same scenario: "identical" when every
+    /// number agrees; otherwise a term is worse when it grew by more than --sigma standard
+    /// errors and more than the margin. Exit 0 nothing worse, 1 something worse, 2 the documents
+    /// cannot be compared (different scenario, family, knob, grid or loss; missing standard
+    /// errors).
+    Check(CheckArgs),
+    /// Draw the curve picture (SVG) of a saved result document, and the selection histogram
+    /// when the result holds a cross-validation audit.
+    Plot(PlotArgs),
+}
+
+/// Options of `plot`.
+#[derive(Debug, Args)]
+pub struct PlotArgs {
+    /// A result document (`lossprism run --out RESULT.json`).
+    #[arg(value_name = "RESULT.json")]
+    pub result: PathBuf,
+    /// Write the curve picture here.
+    #[arg(long, value_name = "FILE.svg")]
+    pub out: PathBuf,
+    /// Write the selection histogram here (needs the result's `selection` section).
+    #[arg(long, value_name = "FILE.svg")]
+    pub selection: Option<PathBuf>,
+    /// Which 0-1 loss decomposition the curve shows.
+    #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
+    pub decomposition: DecompositionView,
 }
 
 /// Options of `run`.
@@ -69,12 +97,26 @@ pub struct RunArgs {
     /// Which 0-1 loss decomposition the table shows (the JSON always holds all three).
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
     pub decomposition: DecompositionView,
-    /// Do not print the table.
+    /// Do not print the table (nor the progress bar).
     #[arg(long, short)]
     pub quiet: bool,
+    /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<PathBuf>,
+    /// Draw the truth and mean predictions along one input (SVG; squared loss).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot_points: Option<PathBuf>,
+    /// The input on the x axis of --plot-points when the scenario has several (the others are
+    /// averaged over).
+    #[arg(long, value_name = "NAME", requires = "plot_points")]
+    pub input: Option<String>,
+    /// Write a self-contained HTML report (scenario, reading, pictures, table).
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
     /// Compute only shard I of N (1-based, as `sbatch --array=1-N`) and write its part document
     /// to `--out`; combine the parts with `lossprism merge`.
-    #[arg(long, value_name = "I/N", requires = "out", conflicts_with_all = ["csv", "points"],
+    #[arg(long, value_name = "I/N", requires = "out",
+          conflicts_with_all = ["csv", "points", "plot", "plot_points", "report"],
           value_parser = crate::shard::ShardSpec::parse)]
     pub shard: Option<crate::shard::ShardSpec>,
     /// Save the finished blocks here (atomically, after every block) and resume from it when it
@@ -84,6 +126,36 @@ pub struct RunArgs {
     /// Testing aid: stop with exit code 3 after K newly completed blocks (needs --checkpoint).
     #[arg(long, value_name = "K", hide = true, requires = "checkpoint")]
     pub stop_after_blocks: Option<u64>,
+    /// Table scenarios with a locked holdout (`holdout = 0.2` in [data]): fit the family at this
+    /// knob value on every non-holdout row and report the holdout loss once. Each assessment is
+    /// counted in `<scenario>.holdout-ledger.json` beside the scenario; from the second one a
+    /// warning says the holdout is no longer an unbiased estimate.
+    #[arg(long, value_name = "VALUE", conflicts_with_all = ["shard", "checkpoint"])]
+    pub assess: Option<f64>,
+}
+
+/// Options of `check`.
+#[derive(Debug, Args)]
+pub struct CheckArgs {
+    /// The new result document (`lossprism run --out RESULT.json`).
+    #[arg(value_name = "RESULT.json")]
+    pub result: PathBuf,
+    /// The stored baseline result document.
+    #[arg(long, value_name = "BASE.json")]
+    pub baseline: PathBuf,
+    /// Standard errors a change must exceed to count (default 4).
+    #[arg(long, default_value_t = 4.0)]
+    pub sigma: f64,
+    /// Relative change a term must exceed to count: `2%` or `0.02`.
+    #[arg(long, default_value = "2%", value_parser = crate::check::parse_margin)]
+    pub margin: f64,
+    /// Margin for one term, overriding --margin (repeatable): `variance=5%`.
+    #[arg(long, value_name = "TERM=MARGIN", value_parser = crate::check::parse_term_margin)]
+    pub margin_term: Vec<(String, f64)>,
+    /// After printing, replace the baseline with the result (atomically); creates the baseline
+    /// when it does not exist yet. Exit 0 unless the documents cannot be compared.
+    #[arg(long)]
+    pub update: bool,
 }
 
 /// Options of `merge`.

@@ -19,15 +19,18 @@
 //! println!("{}", report::table::render(&doc));
 //! ```
 
+pub mod check;
 pub mod cli;
 pub mod decompose;
 pub mod dgp;
 pub mod error;
 pub mod expr;
 pub mod family;
+pub mod harness;
 pub mod report;
 pub mod runner;
 pub mod scenario;
 pub mod shard;
+pub mod table;
 
 pub use error::{Error, ScenarioError};

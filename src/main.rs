@@ -1,11 +1,12 @@
 //! The `lossprism` binary: parse the command line, call the library, map errors to exit codes
-//! (0 success, 1 a check found a regression, 2 bad input or usage).
+//! (0 success, 1 a check found a regression, 2 bad input or usage, 3 stopped on request by the
+//! hidden testing flag `--stop-after-blocks`).
 
 use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::Parser;
-use lossprism::cli::{Cli, Command, DecompositionView, MergeArgs, RunArgs};
+use lossprism::cli::{CheckArgs, Cli, Command, DecompositionView, MergeArgs, PlotArgs, RunArgs};
 use lossprism::scenario::{self, Plan, PlanOptions};
 use lossprism::{family, report, runner, shard};
 
@@ -31,8 +32,11 @@ fn dispatch(cli: Cli) -> anyhow::Result<u8> {
     match cli.command {
         Command::Run(args) => run(args),
         Command::Merge(args) => merge(args),
+        Command::Check(args) => check(args),
+        Command::Plot(args) => plot(args),
         Command::Validate { scenario } => {
             let plan = scenario::load(&scenario, &PlanOptions::default())?;
+            refuse_custom(&plan)?;
             runner::prepare(&plan)?;
             println!(
                 "{}: valid ({} family, {} grid values, R = {}, n = {})",
@@ -58,6 +62,8 @@ fn dispatch(cli: Cli) -> anyhow::Result<u8> {
 }
 
 fn run(args: RunArgs) -> anyhow::Result<u8> {
+    // Wall time goes to the HTML report only, never into the result document.
+    let started = std::time::Instant::now();
     let opts = PlanOptions {
         replicates: args.replicates,
         seed: args.seed,
@@ -69,6 +75,13 @@ fn run(args: RunArgs) -> anyhow::Result<u8> {
         Some(p) => scenario::load(p, &opts)?,
         None => scenario::load_default(&opts)?,
     };
+    refuse_custom(&plan)?;
+    if args.assess.is_some() || matches!(plan.source, scenario::Source::Table(_)) {
+        return run_table(&args, &plan);
+    }
+    if args.plot_points.is_some() {
+        report::plot::check_point_request(&plan, args.input.as_deref())?;
+    }
     let outcome = runner::run(&plan, args.threads)?;
     let outputs = Outputs {
         out: &args.out,
@@ -76,6 +89,7 @@ fn run(args: RunArgs) -> anyhow::Result<u8> {
         points: &args.points,
         view: args.decomposition,
         quiet: args.quiet,
+        pictures: Pictures::of_run(&args, started),
     };
     emit(&plan, &outcome, &outputs)
 }
@@ -87,6 +101,38 @@ struct Outputs<'a> {
     points: &'a Option<PathBuf>,
     view: DecompositionView,
     quiet: bool,
+    pictures: Pictures<'a>,
+}
+
+/// The pictures and the HTML report a run asked for, and when it started (for the wall time).
+struct Pictures<'a> {
+    plot: Option<&'a PathBuf>,
+    plot_points: Option<&'a PathBuf>,
+    input: Option<&'a str>,
+    report: Option<&'a PathBuf>,
+    started: Option<std::time::Instant>,
+}
+
+impl<'a> Pictures<'a> {
+    fn of_run(args: &'a RunArgs, started: std::time::Instant) -> Self {
+        Pictures {
+            plot: args.plot.as_ref(),
+            plot_points: args.plot_points.as_ref(),
+            input: args.input.as_deref(),
+            report: args.report.as_ref(),
+            started: Some(started),
+        }
+    }
+
+    fn none() -> Self {
+        Pictures {
+            plot: None,
+            plot_points: None,
+            input: None,
+            report: None,
+            started: None,
+        }
+    }
 }
 
 fn emit(plan: &Plan, outcome: &runner::Outcome, o: &Outputs<'_>) -> anyhow::Result<u8> {
@@ -94,15 +140,56 @@ fn emit(plan: &Plan, outcome: &runner::Outcome, o: &Outputs<'_>) -> anyhow::Resu
     let to_stdout = [o.out, o.csv, o.points]
         .iter()
         .any(|p| p.as_ref().is_some_and(|p| p.as_os_str() == "-"));
+    // Render every picture before writing anything, so a refusal leaves no partial outputs.
+    let pics = &o.pictures;
+    let curve = if pics.plot.is_some() || pics.report.is_some() {
+        Some(report::plot::curve_svg(&doc, o.view.into())?)
+    } else {
+        None
+    };
+    let points_svg = match pics.plot_points {
+        Some(_) => {
+            let v = report::plot::point_view(plan, outcome, &doc, pics.input)?;
+            Some(report::plot::points_svg(&v)?)
+        }
+        None => None,
+    };
+    let selection = match (pics.report, serde_json::to_value(&doc)) {
+        (Some(_), Ok(v)) => match report::plot::SelectionView::from_json(&v) {
+            Some(sel) => Some(report::plot::selection_svg(&sel, &doc.knob)?),
+            None => None,
+        },
+        _ => None,
+    };
+    // All outputs are staged as temporary files first and renamed together, so one bad path
+    // leaves none of the outputs behind.
+    let mut files: Vec<(&std::path::Path, Vec<u8>)> = Vec::new();
     if let Some(p) = o.out {
-        report::write_atomic(p, report::to_json(&doc).as_bytes())?;
+        files.push((p, report::to_json(&doc).into_bytes()));
     }
     if let Some(p) = o.csv {
-        report::write_atomic(p, report::to_csv(&doc).as_bytes())?;
+        files.push((p, report::to_csv(&doc).into_bytes()));
     }
     if let Some(p) = o.points {
-        report::write_atomic(p, report::points_csv(plan, outcome).as_bytes())?;
+        files.push((p, report::points_csv(plan, outcome).into_bytes()));
     }
+    if let (Some(p), Some(svg)) = (pics.plot, &curve) {
+        files.push((p, svg.clone().into_bytes()));
+    }
+    if let (Some(p), Some(svg)) = (pics.plot_points, &points_svg) {
+        files.push((p, svg.clone().into_bytes()));
+    }
+    if let Some(p) = pics.report {
+        let wall = pics.started.map(|t| t.elapsed().as_secs_f64());
+        let all = report::html::Pictures {
+            curve,
+            points: points_svg,
+            selection,
+        };
+        let html = report::html::render(&doc, o.view.into(), &all, wall);
+        files.push((p, html.into_bytes()));
+    }
+    report::write_all_atomic(&files)?;
     if !o.quiet {
         let table = report::table::render_view(&doc, o.view.into());
         if to_stdout {
@@ -117,8 +204,13 @@ fn emit(plan: &Plan, outcome: &runner::Outcome, o: &Outputs<'_>) -> anyhow::Resu
 /// `run` with `--shard` and/or `--checkpoint`: runs the job's blocks (resuming from the
 /// checkpoint), then writes the shard's part document or the whole run's result.
 fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
+    let started = std::time::Instant::now();
     let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
     let plan = source.plan(opts)?;
+    refuse_custom(&plan)?;
+    if args.plot_points.is_some() {
+        report::plot::check_point_request(&plan, args.input.as_deref())?;
+    }
     let job = shard::Job {
         plan: &plan,
         source: &source,
@@ -169,13 +261,14 @@ fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
         }
         return Ok(0);
     }
-    let outcome = shard::outcome(&plan, done)?;
+    let outcome = shard::outcome(&plan, *done)?;
     let outputs = Outputs {
         out: &args.out,
         csv: &args.csv,
         points: &args.points,
         view: args.decomposition,
         quiet: args.quiet,
+        pictures: Pictures::of_run(&args, started),
     };
     emit(&plan, &outcome, &outputs)
 }
@@ -188,6 +281,137 @@ fn merge(args: MergeArgs) -> anyhow::Result<u8> {
         points: &args.points,
         view: args.decomposition,
         quiet: args.quiet,
+        pictures: Pictures::none(),
     };
     emit(&merged.plan, &merged.outcome, &outputs)
+}
+
+/// `family = "custom"` needs an estimator supplied from Rust; the command line has none.
+fn refuse_custom(plan: &Plan) -> anyhow::Result<()> {
+    if plan.family.name() == "custom" {
+        anyhow::bail!("{}: key `model.family`: {}", plan.file, lossprism::harness::CLI_REFUSAL);
+    }
+    Ok(())
+}
+
+/// `check`: compare a result with a baseline; exit 0 nothing worse, 1 something worse.
+fn check(args: CheckArgs) -> anyhow::Result<u8> {
+    use lossprism::check;
+    let read = |p: &std::path::Path| -> anyhow::Result<(String, report::ResultDoc)> {
+        let text = std::fs::read_to_string(p)
+            .map_err(|e| anyhow::anyhow!("{}: {e}", p.display()))?;
+        let doc = check::parse_result(&text, &p.display().to_string())?;
+        Ok((text, doc))
+    };
+    let (text, new) = read(&args.result)?;
+    if args.update && !args.baseline.exists() {
+        report::write_atomic(&args.baseline, text.as_bytes())?;
+        println!("baseline {} created from {}", args.baseline.display(), args.result.display());
+        return Ok(0);
+    }
+    if !args.baseline.exists() {
+        anyhow::bail!(
+            "{}: baseline not found; create it with `lossprism check {} --baseline {} --update`",
+            args.baseline.display(),
+            args.result.display(),
+            args.baseline.display()
+        );
+    }
+    let (_, base) = read(&args.baseline)?;
+    let opts = check::CheckOptions {
+        sigma: args.sigma,
+        margin: args.margin,
+        term_margins: args.margin_term,
+    };
+    let rep = check::compare(&new, &base, &opts)?;
+    print!("{rep}");
+    if args.update {
+        report::write_atomic(&args.baseline, text.as_bytes())?;
+        println!("baseline {} updated", args.baseline.display());
+        return Ok(0);
+    }
+    Ok(rep.exit_code())
+}
+
+/// `plot`: the curve picture (and the selection histogram) of a saved result document.
+fn plot(args: PlotArgs) -> anyhow::Result<u8> {
+    let name = args.result.display().to_string();
+    let text = std::fs::read_to_string(&args.result).map_err(|e| anyhow::anyhow!("{name}: {e}"))?;
+    let value: serde_json::Value = serde_json::from_str(&text)
+        .map_err(|e| anyhow::anyhow!("{name}: not a result document (JSON): {e}"))?;
+    let doc: report::ResultDoc = serde_json::from_value(value.clone())
+        .map_err(|e| anyhow::anyhow!("{name}: not a lossprism result document: {e}"))?;
+    let curve = report::plot::curve_svg(&doc, args.decomposition.into())?;
+    let selection = match &args.selection {
+        Some(_) => {
+            let sel = report::plot::SelectionView::from_json(&value).ok_or_else(|| {
+                anyhow::anyhow!(
+                    "{name}: no `selection` section (run the cross-validation audit first); \
+                     drop --selection"
+                )
+            })?;
+            Some(report::plot::selection_svg(&sel, &doc.knob)?)
+        }
+        None => None,
+    };
+    report::write_atomic(&args.out, curve.as_bytes())?;
+    if let (Some(p), Some(svg)) = (&args.selection, selection) {
+        report::write_atomic(p, svg.as_bytes())?;
+    }
+    Ok(0)
+}
+
+/// `run` on a table scenario: the resampling decomposition, or with `--assess` the one-off
+/// holdout assessment (counted in the ledger beside the scenario file).
+fn run_table(args: &RunArgs, plan: &Plan) -> anyhow::Result<u8> {
+    use lossprism::table;
+    if let Some(value) = args.assess {
+        let Some(path) = &args.scenario else {
+            anyhow::bail!("--assess needs a table scenario file with a holdout");
+        };
+        let ledger = table::holdout::ledger_path(path);
+        let a = table::holdout::assess(plan, value, &ledger)?;
+        println!(
+            "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
+             (assessment {} of this holdout, hash {}, ledger {})",
+            plan.name,
+            plan.family.knob(),
+            report::fmt_value(a.value),
+            a.train_rows,
+            plan.loss.name(),
+            report::fmt_num(a.loss),
+            report::fmt_se(a.stderr),
+            a.rows,
+            a.count,
+            a.hash,
+            ledger.display()
+        );
+        if let Some(w) = &a.warning {
+            eprintln!("{w}");
+        }
+        return Ok(0);
+    }
+    let outcome = table::resample::run(plan, args.threads)?;
+    let doc = table::report::build(plan, &outcome);
+    let to_stdout = [&args.out, &args.csv, &args.points]
+        .iter()
+        .any(|p| p.as_ref().is_some_and(|p| p.as_os_str() == "-"));
+    if let Some(p) = &args.out {
+        report::write_atomic(p, report::to_json(&doc).as_bytes())?;
+    }
+    if let Some(p) = &args.csv {
+        report::write_atomic(p, report::to_csv(&doc).as_bytes())?;
+    }
+    if let Some(p) = &args.points {
+        report::write_atomic(p, table::resample::points_csv(plan, &outcome).as_bytes())?;
+    }
+    if !args.quiet {
+        let text = report::table::render_view(&doc, args.decomposition.into());
+        if to_stdout {
+            eprint!("{text}");
+        } else {
+            print!("{text}");
+        }
+    }
+    Ok(0)
 }

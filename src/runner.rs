@@ -24,6 +24,8 @@ pub mod purpose {
     pub const DESIGN: u64 = 2;
     /// Replicate r's training set and fresh responses.
     pub const REPLICATE: u64 = 3;
+    /// The locked holdout rows of a table (drawn once from the file's seed).
+    pub const HOLDOUT: u64 = 4;
 }
 
 /// The random stream for (seed, purpose, index): ChaCha8 keyed by the seed, with the stream
@@ -72,7 +74,35 @@ fn argmax(row: ndarray::ArrayView1<'_, f64>) -> usize {
 
 /// Draws the evaluation points (and a fixed design) for a plan.
 pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
-    let Source::Synthetic(s) = &plan.source;
+    prepare_inner(plan).map_err(|e| with_file(plan, e))
+}
+
+/// Prefixes a data error with the scenario file, so it names file and key.
+fn with_file(plan: &Plan, e: Error) -> Error {
+    match e {
+        Error::Data(m) => Error::Data(format!("{}: {m}", plan.file)),
+        other => other,
+    }
+}
+
+fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
+    let s = match &plan.source {
+        Source::Synthetic(s) => s,
+        // A table's evaluation points are its working rows (observed responses as "truth");
+        // its replicate loop lives in `crate::table::resample`.
+        Source::Table(t) => {
+            let w = t.work_table();
+            let m = w.rows();
+            return Ok(Prepared {
+                eval_x: w.x,
+                eval_truth: w.y,
+                eval_sd: Array1::zeros(m),
+                eval_probs: None,
+                fixed: None,
+                fixed_probs: None,
+            });
+        }
+    };
     let classify = matches!(plan.task, Task::Classify { .. });
     let mut fixed_probs = None;
     let fixed = if s.design == Design::Fixed {
@@ -140,7 +170,16 @@ struct Draw {
 }
 
 fn draw_replicate(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
-    let Source::Synthetic(s) = &plan.source;
+    draw_replicate_inner(plan, prep, r).map_err(|e| with_file(plan, e))
+}
+
+fn draw_replicate_inner(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
+    let Source::Synthetic(s) = &plan.source else {
+        return Err(Error::Usage(format!(
+            "{}: table scenarios run whole (`lossprism run FILE`); --shard and --checkpoint do not support them yet",
+            plan.file
+        )));
+    };
     let mut rng = stream(plan.seed, purpose::REPLICATE, r);
     match (&prep.eval_probs, &prep.fixed) {
         (None, Some((x, f, sd))) => {
@@ -174,6 +213,17 @@ fn draw_replicate(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
             Ok(Draw { x, y, fresh })
         }
     }
+}
+
+/// Replicate `r`'s training set (inputs `n × p` and responses), re-drawn from its own stream:
+/// exactly the data the run fitted for that replicate (used by the per-point picture).
+pub fn training_set(
+    plan: &Plan,
+    prep: &Prepared,
+    r: u64,
+) -> Result<(Array2<f64>, Array1<f64>), Error> {
+    let d = draw_replicate(plan, prep, r)?;
+    Ok((d.x, d.y))
 }
 
 /// Runs the replicates of block `b` sequentially and returns its accumulator.

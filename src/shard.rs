@@ -457,7 +457,7 @@ pub struct Completed {
 #[derive(Debug, Clone)]
 pub enum Finish {
     /// Every requested block is available.
-    Done(Completed),
+    Done(Box<Completed>),
     /// Stopped on request after `new_blocks` newly completed blocks; `remaining` are left.
     Stopped {
         /// Blocks completed in this session.
@@ -617,12 +617,12 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
             remaining,
         });
     }
-    Ok(Finish::Done(Completed {
+    Ok(Finish::Done(Box::new(Completed {
         prepared,
         blocks: st.blocks,
         fingerprint: fp,
         resumed,
-    }))
+    })))
 }
 
 /// Folds completed blocks (all of the plan's, in index order) into the run's outcome.

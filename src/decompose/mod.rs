@@ -9,6 +9,7 @@
 //! identity `(1/R) Σ (ŷ_r - f)² = B̂² + V̂` holds to rounding.
 
 pub mod squared;
+pub mod table;
 pub mod zero_one;
 
 pub use squared::{jackknife_se, SquaredAcc, SquaredPoint, SquaredSummary, SquaredTerms};

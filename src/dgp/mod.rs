@@ -294,7 +294,8 @@ impl Synthetic {
             let v = truth.eval_row(&buf);
             if !v.is_finite() {
                 return Err(Error::Data(format!(
-                    "truth `{}` gives {v} at {}",
+                    "key `data.truth.{}`: `{}` gives {v} at {}",
+                    if matches!(truth, Truth::Builtin(_)) { "builtin" } else { "formula" },
                     truth.describe(),
                     describe_row(&self.inputs, &buf)
                 )));
@@ -324,7 +325,7 @@ impl Synthetic {
                     let p = f.eval(&buf);
                     if !(0.0..=1.0).contains(&p) {
                         return Err(Error::Data(format!(
-                            "classes probability `{}` gives {p} at {} (must be within [0, 1])",
+                            "key `data.classes.probability`: `{}` gives {p} at {} (must be within [0, 1])",
                             f.source(),
                             at()
                         )));
@@ -337,7 +338,7 @@ impl Synthetic {
                         let v = f.eval(&buf);
                         if !v.is_finite() {
                             return Err(Error::Data(format!(
-                                "classes logit `{}` gives {v} at {}",
+                                "key `data.classes.logits`: `{}` gives {v} at {}",
                                 f.source(),
                                 at()
                             )));
@@ -354,7 +355,7 @@ impl Synthetic {
                     let v = rule.eval(&buf);
                     if !(v.is_finite() && v >= 0.0 && v.fract() == 0.0 && (v as usize) < k) {
                         return Err(Error::Data(format!(
-                            "classes rule `{}` gives {v} at {} (must be a class index 0..{})",
+                            "key `data.classes.rule`: `{}` gives {v} at {} (must be a class index 0..{})",
                             rule.source(),
                             at(),
                             k - 1
@@ -388,7 +389,7 @@ impl Synthetic {
                     let v = f.eval(&buf);
                     if !v.is_finite() || v < 0.0 {
                         return Err(Error::Data(format!(
-                            "noise sd_formula `{}` gives {v} at {} (must be a finite number >= 0)",
+                            "key `data.noise.sd_formula`: `{}` gives {v} at {} (must be a finite number >= 0)",
                             f.source(),
                             describe_row(&self.inputs, &buf)
                         )));

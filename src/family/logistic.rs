@@ -425,10 +425,10 @@ impl Problem<'_> {
         let (p, k) = (self.p, self.blocks);
         let q = p + 1;
         let d = self.dim();
-        if let Some(g) = grad.as_deref_mut() {
+        if let Some(g) = grad.as_mut() {
             g.fill(0.0);
         }
-        if let Some(h) = hess.as_deref_mut() {
+        if let Some(h) = hess.as_mut() {
             h.fill(0.0);
         }
         let mut eta = vec![0.0; k];
@@ -464,14 +464,14 @@ impl Problem<'_> {
                     resid[yi] -= 1.0;
                 }
             }
-            if let Some(g) = grad.as_deref_mut() {
+            if let Some(g) = grad.as_mut() {
                 for c in 0..k {
                     for (gv, x) in g[c * q..(c + 1) * q].iter_mut().zip(&xt) {
                         *gv += resid[c] * x;
                     }
                 }
             }
-            if let Some(h) = hess.as_deref_mut() {
+            if let Some(h) = hess.as_mut() {
                 for c in 0..k {
                     for c2 in c..k {
                         let wc = curv[c * k + c2];
@@ -497,7 +497,7 @@ impl Problem<'_> {
                 pen += v * v;
             }
         }
-        if let Some(g) = grad.as_deref_mut() {
+        if let Some(g) = grad.as_mut() {
             for c in 0..k {
                 for j in 1..q {
                     g[c * q + j] += self.inv_c * theta[c * q + j];
@@ -507,7 +507,7 @@ impl Problem<'_> {
                 g[0] = 0.0;
             }
         }
-        if let Some(h) = hess.as_deref_mut() {
+        if let Some(h) = hess.as_mut() {
             for c in 0..k {
                 for j in 1..q {
                     let r = c * q + j;
@@ -550,7 +550,7 @@ fn line_search(
     trial: &mut [f64],
 ) -> Option<(f64, f64)> {
     let gd = dot(grad, dir);
-    if !(gd < 0.0) {
+    if gd.is_nan() || gd >= 0.0 {
         return None;
     }
     let mut t = 1.0;
@@ -629,9 +629,10 @@ fn lbfgs(prob: &Problem<'_>, theta: &mut [f64]) -> Option<Status> {
     let mut dir = vec![0.0; d];
     let mut trial = vec![0.0; d];
     let mut hist: VecDeque<(Vec<f64>, Vec<f64>, f64)> = VecDeque::new();
-    let mut alpha = vec![0.0; LBFGS_MEMORY];
-    // Initial inverse-curvature scale: standardized columns have mean square 1, so each diagonal
-    // entry of the loss Hessian is at most n/4 (binary) or n/4-ish (softmax).
+    let mut alpha = [0.0; LBFGS_MEMORY];
+    // Initial inverse-curvature scale: standardized columns (and the intercept's column of ones)
+    // have mean square at most 1 and p(1 − p) ≤ 1/4, so each diagonal entry of the loss Hessian
+    // is at most n/4.
     let gamma0 = 1.0 / (0.25 * prob.n as f64 + prob.inv_c);
     let mut f = prob.evaluate(theta, Some(&mut grad), None);
     if !f.is_finite() {
@@ -1081,8 +1082,8 @@ mod tests {
             let grid = [1.0, 1e3, 1e6];
             let inp = input(&x, &y, &x, k);
             let pred = predict(&inp, &grid);
-            for g in 0..grid.len() {
-                assert_eq!(pred.row(g), y.view(), "k={k}, C={}", grid[g]);
+            for (g, c) in grid.iter().enumerate() {
+                assert_eq!(pred.row(g), y.view(), "k={k}, C={c}");
             }
             let pr = fit_probabilities(&inp, &grid).expect("probabilities");
             assert!(pr.iter().all(|v| v.is_finite() && (0.0..=1.0).contains(v)));

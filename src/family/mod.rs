@@ -9,6 +9,7 @@
 
 use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2};
 
+pub mod external;
 pub mod knn;
 pub mod logistic;
 pub mod poly;
@@ -141,6 +142,20 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             knob: "inverse_penalty",
             meaning: "C = 1/λ, inverse strength of an L2 penalty on standardized inputs; larger = more complex",
             tasks: "classification (two classes: logistic; K > 2: multinomial)",
+            options: "none",
+        },
+        FamilyInfo {
+            name: "external",
+            knob: "(`knob`)",
+            meaning: "an estimator in any language, run as a long-lived process speaking docs/external-protocol.md; the knob is whatever it names",
+            tasks: "whatever the process implements",
+            options: "command = [\"python3\", \"model.py\"], knob = \"name\", timeout_seconds (default 60)",
+        },
+        FamilyInfo {
+            name: "custom",
+            knob: "(the estimator's)",
+            meaning: "a Rust estimator supplied through lossprism::harness (library use only; the command line refuses it)",
+            tasks: "whatever the estimator supports",
             options: "none",
         },
     ]

@@ -127,8 +127,7 @@ impl Tree {
         let mut node = self.nodes[0];
         let mut d = 0;
         while node.left != 0 && d < depth {
-            let go_right = !(row[node.feature as usize] <= node.threshold);
-            node = self.nodes[node.left as usize + go_right as usize];
+            node = self.nodes[node.left as usize + right_offset(row[node.feature as usize], node)];
             d += 1;
         }
         node.value
@@ -154,13 +153,18 @@ impl Tree {
         buf[0] = node.value;
         let mut d = 0;
         while node.left != 0 && d < max_depth {
-            let go_right = !(row[node.feature as usize] <= node.threshold);
-            node = nodes[node.left as usize + go_right as usize];
+            node = nodes[node.left as usize + right_offset(row[node.feature as usize], node)];
             d += 1;
             buf[d] = node.value;
         }
         d
     }
+}
+
+/// 0 if `v` goes to `node`'s left child (`v <= threshold`), 1 if right (NaN goes right).
+#[inline]
+fn right_offset(v: f64, node: Node) -> usize {
+    1 - usize::from(v <= node.threshold)
 }
 
 /// The best split found at a node: input, number of samples going left, threshold.

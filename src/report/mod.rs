@@ -1,13 +1,16 @@
 //! The result document and its renderings (JSON, CSV, per-point CSV, terminal table). These are
-//! the only types that derive `Serialize`; CSV rows and JSON come from the same structs.
+//! the only types that derive `Serialize`; CSV rows and JSON come from the same structs. The
+//! result document types also derive `Deserialize` (read back by `check`).
 
+pub mod html;
 pub mod part;
+pub mod plot;
 pub mod table;
 
 use std::io::Write;
 use std::path::Path;
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::decompose::zero_one::ZeroOneTerms;
 use crate::decompose::SquaredTerms;
@@ -20,7 +23,7 @@ use crate::scenario::{Design, GridKind, LossKind, Plan, Source};
 pub const FORMAT: &str = "lossprism-result/1";
 
 /// One input as resolved.
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct InputEcho {
     /// Name.
     pub name: String,
@@ -29,7 +32,7 @@ pub struct InputEcho {
 }
 
 /// The scenario as resolved (defaults filled, grid expanded).
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct ScenarioEcho {
     /// Name.
     pub name: String,
@@ -63,7 +66,7 @@ pub struct ScenarioEcho {
 }
 
 /// Kohavi–Wolpert terms (0-1 loss).
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct KohaviWolpert {
     /// `½(1 − Σ p_t²)`.
     pub noise: Option<f64>,
@@ -74,7 +77,7 @@ pub struct KohaviWolpert {
 }
 
 /// James (2003) terms (0-1 loss).
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct James {
     /// Systematic effect.
     pub systematic_effect: Option<f64>,
@@ -84,7 +87,7 @@ pub struct James {
 
 /// Standard errors of the averaged terms (jackknife over replicate blocks); `null` where they
 /// cannot be computed (fewer than two blocks). Fields that do not apply to the loss are absent.
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct Stderr {
     /// Of `expected_loss`.
     pub expected_loss: Option<f64>,
@@ -113,11 +116,14 @@ pub struct Stderr {
     /// Of the James terms (0-1 loss).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub james: Option<James>,
+    /// Of `bias_sq_plus_noise` (table source, squared loss).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub bias_sq_plus_noise: Option<Option<f64>>,
 }
 
 /// One grid value's decomposition. Squared loss fills `bias_sq`; 0-1 loss fills `bias` (Domingos)
 /// and the 0-1 fields. `variance` is the squared-loss variance or Domingos' variance.
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct PointRow {
     /// Knob value.
     pub value: f64,
@@ -150,6 +156,14 @@ pub struct PointRow {
     /// James decomposition (0-1 loss).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub james: Option<James>,
+    /// Table source, squared loss: `(mean − y)² − V/R` per row, averaged (bias² and noise
+    /// together, since the noise of observed responses is unknown).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub bias_sq_plus_noise: Option<f64>,
+    /// `true` when `bias_sq` and `noise` are estimates (table source: `noise` is the noise
+    /// estimate and `bias_sq = bias_sq_plus_noise − noise`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub estimated: Option<bool>,
     /// Jackknife standard errors over replicate blocks.
     pub stderr: Stderr,
 }
@@ -162,7 +176,7 @@ impl PointRow {
 }
 
 /// The grid value with the lowest expected loss.
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct Best {
     /// Knob value.
     pub value: f64,
@@ -175,7 +189,7 @@ pub struct Best {
 }
 
 /// The result document (`lossprism-result/1`).
-#[derive(Debug, Clone, Serialize, PartialEq)]
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct ResultDoc {
     /// Always [`FORMAT`].
     pub format: String,
@@ -199,6 +213,57 @@ pub struct ResultDoc {
     pub best: Best,
     /// One plain sentence reading the curve.
     pub reading: String,
+    /// Table source: the file, rows used and held out, encodings, resampling.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub table: Option<TableEcho>,
+    /// Table source, squared loss: the noise-variance estimate.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise_estimate: Option<NoiseEstimateEcho>,
+    /// Table source: the known distortion of the resampling scheme.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub scheme_note: Option<String>,
+}
+
+/// A noise-variance estimate on a table (`noise_estimate`).
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct NoiseEstimateEcho {
+    /// Estimated σ².
+    pub value: f64,
+    /// Its standard error.
+    pub stderr: Option<f64>,
+    /// `nn`, `gamma` or `gsjs`.
+    pub method: String,
+    /// The method in words, with its source.
+    pub about: String,
+}
+
+/// How a table was read and resampled (`table`).
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct TableEcho {
+    /// The CSV file.
+    pub path: String,
+    /// The target column.
+    pub target: String,
+    /// Rows read (after dropping).
+    pub rows: usize,
+    /// Rows dropped under `missing = "drop"`.
+    pub dropped_rows: usize,
+    /// Rows locked in the holdout (never used by the decomposition).
+    pub holdout_rows: usize,
+    /// Rows the decomposition resamples.
+    pub working_rows: usize,
+    /// Working rows held out in fewer than 2 replicates, skipped by the averages.
+    pub skipped_rows: usize,
+    /// `bootstrap`, `half` or `subsample`.
+    pub resample: String,
+    /// Training rows per replicate.
+    pub train_size: usize,
+    /// Mean share of working rows held out per replicate.
+    pub held_out_share: f64,
+    /// Its standard error over replicates.
+    pub held_out_share_stderr: Option<f64>,
+    /// One line per one-hot encoded text column.
+    pub encodings: Vec<String>,
 }
 
 fn opt(v: f64) -> Option<f64> {
@@ -207,7 +272,10 @@ fn opt(v: f64) -> Option<f64> {
 
 /// Resolved scenario echo of a plan.
 pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
-    let Source::Synthetic(s) = &plan.source;
+    let s = match &plan.source {
+        Source::Synthetic(s) => s,
+        Source::Table(t) => return crate::table::report::scenario_echo(plan, t),
+    };
     ScenarioEcho {
         name: plan.name.clone(),
         about: plan.about.clone(),
@@ -266,6 +334,8 @@ fn squared_row(value: f64, t: &SquaredTerms, e: &SquaredTerms) -> PointRow {
         biased_variance: None,
         kohavi_wolpert: None,
         james: None,
+        bias_sq_plus_noise: None,
+        estimated: None,
         stderr: Stderr {
             expected_loss: opt(e.expected_loss),
             bias_sq: Some(opt(e.bias_sq)),
@@ -277,6 +347,7 @@ fn squared_row(value: f64, t: &SquaredTerms, e: &SquaredTerms) -> PointRow {
             biased_variance: None,
             kohavi_wolpert: None,
             james: None,
+            bias_sq_plus_noise: None,
         },
     }
 }
@@ -302,6 +373,8 @@ fn zero_one_row(value: f64, t: &ZeroOneTerms, e: &ZeroOneTerms) -> PointRow {
             systematic_effect: opt(t.james_systematic),
             variance_effect: opt(t.james_variance),
         }),
+        bias_sq_plus_noise: None,
+        estimated: None,
         stderr: Stderr {
             expected_loss: opt(e.expected_loss),
             bias_sq: None,
@@ -320,6 +393,7 @@ fn zero_one_row(value: f64, t: &ZeroOneTerms, e: &ZeroOneTerms) -> PointRow {
                 systematic_effect: opt(e.james_systematic),
                 variance_effect: opt(e.james_variance),
             }),
+            bias_sq_plus_noise: None,
         },
     }
 }
@@ -354,6 +428,9 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         points,
         best,
         reading,
+        table: None,
+        noise_estimate: None,
+        scheme_note: None,
     }
 }
 
@@ -518,6 +595,57 @@ pub fn reading(knob: &str, loss: LossKind, points: &[PointRow], best: &Best) -> 
     out
 }
 
+/// Writes several files so that either all of them appear or none does: every file is first
+/// written to a temporary file beside its destination, then all are renamed. `-` entries are
+/// written to standard output after the renames.
+pub fn write_all_atomic(files: &[(&Path, Vec<u8>)]) -> Result<(), Error> {
+    let mut staged: Vec<(std::path::PathBuf, &Path)> = Vec::new();
+    let cleanup = |staged: &[(std::path::PathBuf, &Path)]| {
+        for (tmp, _) in staged {
+            let _ = std::fs::remove_file(tmp);
+        }
+    };
+    for (path, bytes) in files {
+        if path.as_os_str() == "-" {
+            continue;
+        }
+        let tmp = temp_name(path)?;
+        if let Err(e) = std::fs::write(&tmp, bytes) {
+            let _ = std::fs::remove_file(&tmp);
+            cleanup(&staged);
+            return Err(Error::io(*path, &e));
+        }
+        staged.push((tmp, path));
+    }
+    for (i, (tmp, path)) in staged.iter().enumerate() {
+        if let Err(e) = std::fs::rename(tmp, path) {
+            cleanup(&staged[i..]);
+            return Err(Error::io(*path, &e));
+        }
+    }
+    for (path, bytes) in files {
+        if path.as_os_str() == "-" {
+            write_atomic(path, bytes)?;
+        }
+    }
+    Ok(())
+}
+
+fn temp_name(path: &Path) -> Result<std::path::PathBuf, Error> {
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d.to_path_buf(),
+        _ => std::path::PathBuf::from("."),
+    };
+    let file_name = path
+        .file_name()
+        .ok_or_else(|| Error::Usage(format!("{}: not a file name", path.display())))?;
+    Ok(dir.join(format!(
+        ".{}.{}.tmp",
+        file_name.to_string_lossy(),
+        std::process::id()
+    )))
+}
+
 /// Writes `bytes` to `path` atomically: a temporary file in the same folder, then a rename.
 /// `-` writes to standard output.
 pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), Error> {
@@ -595,7 +723,10 @@ pub fn to_csv(doc: &ResultDoc) -> String {
 
 /// CSV with one row per evaluation point and grid value: the inputs, then the per-point terms.
 pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
-    let Source::Synthetic(s) = &plan.source;
+    let Source::Synthetic(s) = &plan.source else {
+        // Table runs write their per-row CSV with `table::resample::points_csv`.
+        return String::new();
+    };
     let prep = &outcome.prepared;
     let mut w = csv::Writer::from_writer(Vec::new());
     let mut header = vec!["value".to_string(), "point".to_string()];

@@ -34,7 +34,90 @@ fn opt_se(v: Option<f64>, se: Option<Option<f64>>) -> String {
 
 type Column = (&'static str, Box<dyn Fn(&PointRow) -> String>);
 
+/// Columns of a table-source result: out-of-bag loss, bias²+noise (or bias against the observed
+/// labels), variance, and for squared loss the noise estimate and the estimated bias².
+fn table_source_columns(doc: &ResultDoc) -> Vec<Column> {
+    let mut cols: Vec<Column> = vec![(
+        "expected loss (OOB)",
+        Box::new(|p: &PointRow| with_se(p.expected_loss, p.stderr.expected_loss)),
+    )];
+    if doc.loss == "squared" {
+        cols.push((
+            "bias²+noise",
+            Box::new(|p: &PointRow| {
+                opt_se(p.bias_sq_plus_noise, p.stderr.bias_sq_plus_noise.clone())
+            }),
+        ));
+        cols.push((
+            "variance",
+            Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance)),
+        ));
+        cols.push(("noise (est.)", Box::new(|p: &PointRow| fmt_num(p.noise))));
+        cols.push((
+            "bias² (est.)",
+            Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq.clone())),
+        ));
+    } else {
+        cols.push((
+            "bias+noise",
+            Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias.clone())),
+        ));
+        cols.push((
+            "variance",
+            Box::new(|p: &PointRow| with_se(p.variance, p.stderr.variance)),
+        ));
+        cols.push((
+            "net variance",
+            Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance.clone())),
+        ));
+    }
+    cols
+}
+
+/// Legend of a table-source result: what the columns mean, the noise estimate and the
+/// resampling scheme's known distortion.
+fn table_source_legend(doc: &ResultDoc) -> String {
+    let mut s = String::from("legend: ");
+    if doc.loss == "squared" {
+        s.push_str(
+            "expected loss = mean out-of-bag squared error = bias²+noise + variance exactly; \
+             bias²+noise = (mean OOB prediction − observed)² − variance/R_i per row, averaged",
+        );
+        if let Some(n) = &doc.noise_estimate {
+            s.push_str(&format!(
+                "; noise (est.) = {} ± {} by {}; bias² (est.) = bias²+noise − noise (est.)",
+                fmt_num(n.value),
+                fmt_se(n.stderr.unwrap_or(f64::NAN)),
+                n.about
+            ));
+        }
+    } else {
+        s.push_str(
+            "expected loss = out-of-bag misclassification rate; bias+noise = share of rows whose \
+             majority OOB prediction is not the observed label (Domingos 2000, noise folded in); \
+             variance = share of OOB predictions differing from the majority",
+        );
+    }
+    s.push_str("; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n");
+    if let Some(t) = &doc.table {
+        s.push_str(&format!(
+            "table: {} · target `{}` · {} rows ({} dropped, {} locked in the holdout, {} resampled; {} skipped: held out in fewer than 2 replicates)\n",
+            t.path, t.target, t.rows, t.dropped_rows, t.holdout_rows, t.working_rows, t.skipped_rows
+        ));
+        for e in &t.encodings {
+            s.push_str(&format!("encoding: {e}\n"));
+        }
+    }
+    if let Some(n) = &doc.scheme_note {
+        s.push_str(&format!("scheme: {n}\n"));
+    }
+    s
+}
+
 fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
+    if doc.table.is_some() {
+        return table_source_columns(doc);
+    }
     let mut cols: Vec<Column> = vec![(
         "expected loss",
         Box::new(|p: &PointRow| with_se(p.expected_loss, p.stderr.expected_loss)),
@@ -137,6 +220,9 @@ fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
 }
 
 fn legend(doc: &ResultDoc, view: View) -> String {
+    if doc.table.is_some() {
+        return table_source_legend(doc);
+    }
     let mut s = String::from("legend: ");
     if doc.loss == "squared" {
         s.push_str(
@@ -167,6 +253,24 @@ fn legend(doc: &ResultDoc, view: View) -> String {
          responses; * lowest expected loss.\n",
     );
     s
+}
+
+/// The table without layout, for other renderings (the HTML report): the header cells, one row
+/// of cells per grid value (knob value first, unmarked) and the one-line legend.
+pub fn cells(doc: &ResultDoc, view: View) -> (Vec<String>, Vec<Vec<String>>, String) {
+    let cols = columns(doc, view);
+    let mut header = vec![doc.knob.clone()];
+    header.extend(cols.iter().map(|c| c.0.to_string()));
+    let rows = doc
+        .points
+        .iter()
+        .map(|p| {
+            let mut r = vec![fmt_value(p.value)];
+            r.extend(cols.iter().map(|c| (c.1)(p)));
+            r
+        })
+        .collect();
+    (header, rows, legend(doc, view).trim_end().to_string())
 }
 
 /// Renders the table for a result document (Domingos view for 0-1 loss).

@@ -31,9 +31,45 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
         ScenarioError {
             file: file.to_string(),
             line,
-            key: None,
+            key: e.span().and_then(|s| key_path_at(src, s.start)),
             message,
         }
+    })
+}
+
+/// The dotted key path of the `key = value` line holding byte `offset` (`model.depth`), with the
+/// nearest table header above it; `None` when the line is not a key line.
+pub fn key_path_at(src: &str, offset: usize) -> Option<String> {
+    let offset = offset.min(src.len());
+    let start = src[..offset].rfind('\n').map_or(0, |i| i + 1);
+    let line = src[start..].lines().next().unwrap_or("");
+    let (key, _) = line.split_once('=')?;
+    let key = key.trim().trim_matches('"');
+    if key.is_empty()
+        || !key
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-' || c == '.')
+    {
+        return None;
+    }
+    let header = src[..start].lines().rev().find_map(|l| {
+        let t = l.trim();
+        if t.starts_with('[') {
+            Some(
+                t.trim_start_matches('[')
+                    .split(']')
+                    .next()
+                    .unwrap_or("")
+                    .trim()
+                    .to_string(),
+            )
+        } else {
+            None
+        }
+    });
+    Some(match header {
+        Some(h) if !h.is_empty() => format!("{h}.{key}"),
+        _ => key.to_string(),
     })
 }
 

@@ -91,6 +91,8 @@ pub struct SyntheticPlan {
 pub enum Source {
     /// A known generating process.
     Synthetic(SyntheticPlan),
+    /// A CSV table, decomposed by resampling its rows (see [`crate::table`]).
+    Table(Box<crate::table::TablePlan>),
 }
 
 /// A scenario ready to run.
@@ -168,6 +170,14 @@ impl Ctx<'_> {
                 format!("must be at least {min}, got {x}"),
             ));
         }
+        let max = upper_limit(key);
+        if x > max {
+            return Err(self.err(
+                Some(v.span()),
+                key,
+                format!("{x} is more than this tool accepts (at most {max})"),
+            ));
+        }
         Ok(x as u64)
     }
 }
@@ -179,7 +189,7 @@ impl Plan {
         spec: &ScenarioSpec,
         src: &str,
         file: &str,
-        _base: &Path,
+        base: &Path,
         opts: &PlanOptions,
     ) -> Result<Plan, ScenarioError> {
         let cx = Ctx { file, src };
@@ -189,6 +199,17 @@ impl Plan {
         }
         let replicates = match (opts.replicates, &spec.replicates) {
             (Some(r), _) => {
+                if r > upper_limit("--replicates") as u64 {
+                    return Err(ScenarioError {
+                        file: file.to_string(),
+                        line: None,
+                        key: Some("--replicates".into()),
+                        message: format!(
+                            "{r} is more than this tool accepts (at most {})",
+                            upper_limit("--replicates")
+                        ),
+                    });
+                }
                 if r < 2 {
                     return Err(ScenarioError {
                         file: file.to_string(),
@@ -213,8 +234,18 @@ impl Plan {
 
         let source_name = spec.data.source.get_ref().as_str();
         let source = match source_name {
-            "synthetic" => Source::Synthetic(synthetic(&cx, &spec.data)?),
-            "table" | "twin" => {
+            "synthetic" => {
+                crate::table::reject_table_keys(&spec.data, src, file)?;
+                Source::Synthetic(synthetic(&cx, &spec.data)?)
+            }
+            "table" => Source::Table(Box::new(crate::table::from_spec(
+                &spec.data,
+                src,
+                file,
+                base,
+                spec.seed.unwrap_or(DEFAULT_SEED),
+            )?)),
+            "twin" => {
                 return Err(cx.err(
                     Some(spec.data.source.span()),
                     "data.source",
@@ -236,6 +267,10 @@ impl Plan {
             Source::Synthetic(s) => match &s.process.response {
                 Response::Classes(m) => Some(m.labels.len()),
                 Response::Regression { .. } => None,
+            },
+            Source::Table(t) => match t.table.task {
+                Task::Classify { classes } => Some(classes),
+                Task::Regress => None,
             },
         };
         let loss = match (&spec.loss, classes) {
@@ -274,8 +309,9 @@ impl Plan {
 
         let (n_train, n_inputs) = match &source {
             Source::Synthetic(s) => (s.train_size, s.process.inputs.len()),
+            Source::Table(t) => (t.train_size(), t.table.x.ncols()),
         };
-        let fam = build_family(&cx, &spec.model)?;
+        let fam = build_family(&cx, &spec.model, base)?;
         if !fam.supports(task) {
             return Err(cx.err(
                 Some(spec.model.family.span()),
@@ -298,6 +334,23 @@ impl Plan {
         let (grid, grid_kind) = expand_grid(&cx, &spec.model.grid)?;
         fam.check_grid(&grid, n_train, n_inputs)
             .map_err(|m| cx.err(Some(spec.model.grid.span()), "model.grid", m))?;
+        let n_eval = match &source {
+            Source::Synthetic(s) => s.eval_size,
+            Source::Table(t) => t.table.x.nrows(),
+        };
+        let bytes = accumulator_bytes(blocks, grid.len(), n_eval, task);
+        if bytes > MAX_ACCUMULATOR_BYTES {
+            return Err(cx.err(
+                Some(spec.model.grid.span()),
+                "model.grid",
+                format!(
+                    "{} blocks × {} grid values × {n_eval} evaluation points need {:.1} GiB of accumulators (at most 8); lower `blocks`, the grid or `eval_size`",
+                    blocks,
+                    grid.len(),
+                    bytes / 1024f64.powi(3)
+                ),
+            ));
+        }
 
         Ok(Plan {
             file: file.to_string(),
@@ -319,7 +372,38 @@ impl Plan {
     pub fn train_size(&self) -> usize {
         match &self.source {
             Source::Synthetic(s) => s.train_size,
+            Source::Table(t) => t.train_size(),
         }
+    }
+
+    /// Replaces the family (for estimators supplied from Rust, see [`crate::harness`]),
+    /// checking that it supports the task and accepts the grid, as planning a file would.
+    pub fn with_family(mut self, family: Arc<dyn Family>) -> Result<Plan, ScenarioError> {
+        let n_inputs = match &self.source {
+            Source::Synthetic(s) => s.process.inputs.len(),
+            Source::Table(t) => t.table.x.ncols(),
+        };
+        let err = |key: &str, message: String| ScenarioError {
+            file: self.file.clone(),
+            line: None,
+            key: Some(key.to_string()),
+            message,
+        };
+        if !family.supports(self.task) {
+            let what = match self.task {
+                Task::Regress => "regression".to_string(),
+                Task::Classify { classes } => format!("classification with {classes} classes"),
+            };
+            return Err(err(
+                "model.family",
+                format!("family `{}` does not support {what}", family.name()),
+            ));
+        }
+        family
+            .check_grid(&self.grid, self.train_size(), n_inputs)
+            .map_err(|m| err("model.grid", m))?;
+        self.family = family;
+        Ok(self)
     }
 
     /// Replicate index range `[start, end)` of block `b` (blocks differ in size by at most one).
@@ -330,7 +414,35 @@ impl Plan {
     }
 }
 
-fn build_family(cx: &Ctx<'_>, m: &ModelSpec) -> Result<Arc<dyn Family>, ScenarioError> {
+/// Upper limits on sizes, so that an absurd value is a clear error rather than an allocation
+/// failure. Generous for a laptop or a cluster node.
+fn upper_limit(key: &str) -> i64 {
+    match key {
+        "data.train_size" => 10_000_000,
+        "data.eval_size" => 1_000_000,
+        "replicates" | "--replicates" => 1_000_000_000,
+        "blocks" => 100_000,
+        _ => 1_000_000_000,
+    }
+}
+
+/// Bytes the block accumulators of a run hold at the end (all blocks are kept for the jackknife).
+fn accumulator_bytes(blocks: u64, grid: usize, eval: usize, task: Task) -> f64 {
+    let per_cell = match task {
+        Task::Regress => 16.0,
+        Task::Classify { classes } => 4.0 * classes as f64,
+    };
+    blocks as f64 * grid as f64 * eval as f64 * per_cell
+}
+
+/// Largest accumulator memory accepted (8 GiB).
+const MAX_ACCUMULATOR_BYTES: f64 = 8.0 * 1024.0 * 1024.0 * 1024.0;
+
+fn build_family(
+    cx: &Ctx<'_>,
+    m: &ModelSpec,
+    base: &Path,
+) -> Result<Arc<dyn Family>, ScenarioError> {
     let name = m.family.get_ref().as_str();
     let reject =
         |present: bool, key: &str, span: Option<Range<usize>>| -> Result<(), ScenarioError> {
@@ -344,6 +456,13 @@ fn build_family(cx: &Ctx<'_>, m: &ModelSpec) -> Result<Arc<dyn Family>, Scenario
                 Ok(())
             }
         };
+    if name != "external" {
+        let span = |s: Option<Range<usize>>| s.or_else(|| Some(m.family.span()));
+        reject(m.command.is_some(), "command", span(m.command.as_ref().map(|s| s.span())))?;
+        reject(m.knob.is_some(), "knob", span(m.knob.as_ref().map(|s| s.span())))?;
+        let timeout = m.timeout_seconds.as_ref().map(|s| s.span());
+        reject(m.timeout_seconds.is_some(), "timeout_seconds", span(timeout))?;
+    }
     let fam: Arc<dyn Family> = match name {
         "tree" => {
             reject(
@@ -427,6 +546,19 @@ fn build_family(cx: &Ctx<'_>, m: &ModelSpec) -> Result<Arc<dyn Family>, Scenario
             )?;
             Arc::new(family::logistic::LogisticFamily)
         }
+        "external" | "custom" => {
+            let span = |s: Option<Range<usize>>| s.or_else(|| Some(m.family.span()));
+            let leaf = m.min_samples_leaf.as_ref().map(|s| s.span());
+            reject(m.min_samples_leaf.is_some(), "min_samples_leaf", span(leaf))?;
+            let criterion = m.criterion.as_ref().map(|s| s.span());
+            reject(m.criterion.is_some(), "criterion", span(criterion))?;
+            reject(m.standardize.is_some(), "standardize", span(None))?;
+            if name == "custom" {
+                Arc::new(crate::harness::Placeholder)
+            } else {
+                external_family(cx, m, base)?
+            }
+        }
         other => {
             let known: Vec<&str> = family::catalogue().iter().map(|f| f.name).collect();
             return Err(cx.err(
@@ -437,6 +569,45 @@ fn build_family(cx: &Ctx<'_>, m: &ModelSpec) -> Result<Arc<dyn Family>, Scenario
         }
     };
     Ok(fam)
+}
+
+/// Builds `family = "external"` from `command`, `knob` and `timeout_seconds`.
+fn external_family(
+    cx: &Ctx<'_>,
+    m: &ModelSpec,
+    base: &Path,
+) -> Result<Arc<dyn Family>, ScenarioError> {
+    use family::external::{ExternalFamily, DEFAULT_TIMEOUT_SECONDS};
+    let Some(command) = &m.command else {
+        return Err(cx.err(
+            Some(m.family.span()),
+            "model.command",
+            "family `external` needs `command`, e.g. command = [\"python3\", \"my_model.py\"]",
+        ));
+    };
+    let Some(knob) = &m.knob else {
+        return Err(cx.err(
+            Some(m.family.span()),
+            "model.knob",
+            "family `external` needs `knob`, the name of the knob the grid sets",
+        ));
+    };
+    let timeout = match &m.timeout_seconds {
+        Some(t) => *t.get_ref(),
+        None => DEFAULT_TIMEOUT_SECONDS,
+    };
+    let fam = ExternalFamily::new(command.get_ref(), knob.get_ref(), timeout, base).map_err(|e| {
+        let (key, span) = match e.key {
+            "knob" => ("model.knob", knob.span()),
+            "timeout_seconds" => (
+                "model.timeout_seconds",
+                m.timeout_seconds.as_ref().map_or(m.family.span(), |t| t.span()),
+            ),
+            _ => ("model.command", command.span()),
+        };
+        cx.err(Some(span), key, e.message)
+    })?;
+    Ok(Arc::new(fam))
 }
 
 fn number(v: &toml::Value) -> Option<f64> {

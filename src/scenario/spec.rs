@@ -1,6 +1,6 @@
 //! The scenario file exactly as the user wrote it (TOML, deserialized with serde). Nothing here
 //! is validated beyond types and unknown keys; `plan` turns a spec into a checked plan.
-//! This is the only module whose types derive `Deserialize`.
+//! Only this module's types and the result document types in `report` derive `Deserialize`.
 
 use serde::Deserialize;
 use toml::Spanned;
@@ -64,6 +64,33 @@ pub struct DataSpec {
     /// Classification instead of truth/noise.
     #[serde(default)]
     pub classes: Option<ClassesSpec>,
+    /// Table: the CSV file, relative to the scenario file's folder.
+    #[serde(default)]
+    pub path: Option<Spanned<String>>,
+    /// Table: the response column.
+    #[serde(default)]
+    pub target: Option<Spanned<String>>,
+    /// Table: feature columns (default: every column but the target).
+    #[serde(default)]
+    pub features: Option<Spanned<Vec<String>>>,
+    /// Table: `bootstrap` (default; evaluation out-of-bag) or `half` (evaluation on the rest).
+    #[serde(default)]
+    pub resample: Option<Spanned<String>>,
+    /// Table: training fraction of a subsample without replacement (default 0.5 with `half`).
+    #[serde(default)]
+    pub train_fraction: Option<Spanned<f64>>,
+    /// Table: fraction of rows locked away as a holdout (default 0).
+    #[serde(default)]
+    pub holdout: Option<Spanned<f64>>,
+    /// Table: `error` (default) or `drop` for missing or non-numeric cells.
+    #[serde(default)]
+    pub missing: Option<Spanned<String>>,
+    /// Table: `regress` (default) or `classify` (labels from the target's values).
+    #[serde(default)]
+    pub task: Option<Spanned<String>>,
+    /// Table: `nn`, `gamma` or `gsjs` (default: `gsjs` with one input, else `nn`).
+    #[serde(default)]
+    pub noise_estimator: Option<Spanned<String>>,
 }
 
 /// `[data.classes]`: labels and the true class probabilities P(Y = c | x).
@@ -146,6 +173,16 @@ pub struct ModelSpec {
     /// k-NN: standardize inputs with the training mean and sd (default false).
     #[serde(default)]
     pub standardize: Option<bool>,
+    /// External: the program and its arguments (`["python3", "my_model.py"]`), started in the
+    /// scenario file's folder; it speaks the protocol of `docs/external-protocol.md`.
+    #[serde(default)]
+    pub command: Option<Spanned<Vec<String>>>,
+    /// External: the name of the knob the grid values set.
+    #[serde(default)]
+    pub knob: Option<Spanned<String>>,
+    /// External: seconds to wait for each answer of the process (default 60).
+    #[serde(default)]
+    pub timeout_seconds: Option<Spanned<f64>>,
 }
 
 /// `[loss]`.

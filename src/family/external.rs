@@ -1,0 +1,688 @@
+//! The external-process family (`family = "external"`): an estimator written in any language,
+//! run as long-lived child processes that speak the line protocol of
+//! `docs/external-protocol.md` over their standard input and output.
+//!
+//! # Processes
+//!
+//! Processes are started lazily, on the first fit that finds no idle one, so there are at most
+//! as many as there are worker threads fitting at the same time ("one per worker thread"). A
+//! fit checks a process out of a pool, sends one request, reads the answer and checks the
+//! process back in. Each process has three helper threads: one writes requests (so a process
+//! that stops reading cannot block lossprism), one reads standard output line by line into a
+//! channel (so every read can time out), one keeps the last lines of standard error (quoted in
+//! error messages).
+//!
+//! # Failures
+//!
+//! Every request has a deadline (`timeout_seconds`, default 60). A process that does not answer
+//! in time, exits, answers with the wrong number of lines or values, or sends something that is
+//! not a finite number is killed and waited for, and the fit fails with a one-line message
+//! naming the command and the request. After the first failure the family refuses further fits
+//! with the same message, so a run stops at once instead of starting a new process per block.
+//! Idle processes are sent end-of-file, given half a second to exit, then killed and waited for
+//! when the family is dropped: no process outlives the run.
+//!
+//! # Numbers
+//!
+//! lossprism writes every number with 17 significant digits in scientific notation
+//! (`{:.16e}`), which any correctly rounding parser reads back to the same `f64`; the process
+//! may answer in any decimal notation (`repr` of a Python float is exact).
+
+use std::collections::VecDeque;
+use std::fmt::Write as _;
+use std::io::{BufRead, BufReader, Read, Write};
+use std::path::{Path, PathBuf};
+use std::process::{Child, ChildStdin, Command, Stdio};
+use std::sync::mpsc::{self, Receiver, RecvTimeoutError, Sender};
+use std::sync::{Arc, Mutex};
+use std::time::{Duration, Instant};
+
+use ndarray::ArrayViewMut2;
+
+use super::{Family, FitError, FitInput, Task};
+
+/// Version of the line protocol spoken (the `hello` line carries it).
+pub const PROTOCOL_VERSION: u32 = 1;
+
+/// Seconds to wait for an answer when the scenario gives no `timeout_seconds`.
+pub const DEFAULT_TIMEOUT_SECONDS: f64 = 60.0;
+
+/// Lines of standard error kept per process for error messages.
+const STDERR_TAIL: usize = 20;
+
+/// A configuration problem: which `[model]` key and what is wrong.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ConfigError {
+    /// `command`, `knob` or `timeout_seconds`.
+    pub key: &'static str,
+    /// What is wrong.
+    pub message: String,
+}
+
+/// Formats a number for the protocol: 17 significant digits, scientific notation, which reads
+/// back to the same `f64` with any correctly rounding parser.
+pub fn format_number(v: f64) -> String {
+    format!("{v:.16e}")
+}
+
+/// Parses a number sent by a process (any decimal notation Rust accepts); `None` when it is not
+/// a finite number.
+pub fn parse_number(token: &str) -> Option<f64> {
+    token.parse::<f64>().ok().filter(|v| v.is_finite())
+}
+
+/// What the stdout reader thread delivers.
+enum Line {
+    Text(String),
+    Eof,
+    Failed(String),
+}
+
+/// One running process and its helper threads.
+struct Worker {
+    child: Child,
+    /// Requests to the writer thread; dropping it closes the process's standard input.
+    requests: Option<Sender<Vec<u8>>>,
+    lines: Receiver<Line>,
+    stderr_tail: Arc<Mutex<VecDeque<String>>>,
+    /// Requests sent so far (the request id).
+    sent: u64,
+}
+
+impl Worker {
+    /// Kills the process (if still running) and reaps it.
+    fn kill(&mut self) {
+        self.requests = None;
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+
+    /// Closes standard input, gives the process half a second to exit, then kills it.
+    fn close(&mut self) {
+        self.requests = None;
+        for _ in 0..50 {
+            match self.child.try_wait() {
+                Ok(Some(_)) => return,
+                Ok(None) => std::thread::sleep(Duration::from_millis(10)),
+                Err(_) => break,
+            }
+        }
+        self.kill();
+    }
+
+    fn last_stderr(&self) -> Option<String> {
+        let tail = self.stderr_tail.lock().ok()?;
+        tail.iter().rev().find(|l| !l.trim().is_empty()).cloned()
+    }
+}
+
+impl Drop for Worker {
+    fn drop(&mut self) {
+        if self.requests.is_some() {
+            self.close();
+        }
+    }
+}
+
+/// An estimator run as external processes; see the [module documentation](self).
+pub struct ExternalFamily {
+    command: Vec<String>,
+    knob: &'static str,
+    timeout: Duration,
+    dir: Option<PathBuf>,
+    idle: Mutex<Vec<Worker>>,
+    /// The first failure; later fits repeat it without starting processes.
+    failed: Mutex<Option<String>>,
+}
+
+impl std::fmt::Debug for ExternalFamily {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("ExternalFamily")
+            .field("command", &self.command)
+            .field("knob", &self.knob)
+            .field("timeout", &self.timeout)
+            .finish()
+    }
+}
+
+impl ExternalFamily {
+    /// Configures the family: `command` is the program and its arguments, `knob` the knob name
+    /// (letters, digits, `_`, `-`, `.`), `timeout_seconds` the per-request deadline, `dir` the
+    /// folder the processes start in (the scenario file's folder; empty = current folder).
+    ///
+    /// The knob name is leaked to give the `&'static str` the [`Family`] trait asks for (a few
+    /// bytes per plan).
+    pub fn new(
+        command: &[String],
+        knob: &str,
+        timeout_seconds: f64,
+        dir: &Path,
+    ) -> Result<ExternalFamily, ConfigError> {
+        if command.is_empty() || command[0].trim().is_empty() {
+            return Err(ConfigError {
+                key: "command",
+                message: "must name a program, e.g. [\"python3\", \"my_model.py\"]".into(),
+            });
+        }
+        let ok_char = |c: char| c.is_ascii_alphanumeric() || matches!(c, '_' | '-' | '.');
+        if knob.is_empty() || !knob.chars().all(ok_char) {
+            return Err(ConfigError {
+                key: "knob",
+                message: format!(
+                    "`{knob}` is not a knob name: use letters, digits, `_`, `-` or `.` (no spaces)"
+                ),
+            });
+        }
+        if !(timeout_seconds.is_finite() && timeout_seconds > 0.0 && timeout_seconds <= 1e6) {
+            return Err(ConfigError {
+                key: "timeout_seconds",
+                message: format!("must be a number of seconds in (0, 1e6], got {timeout_seconds}"),
+            });
+        }
+        Ok(ExternalFamily {
+            command: command.to_vec(),
+            knob: Box::leak(knob.to_string().into_boxed_str()),
+            timeout: Duration::from_secs_f64(timeout_seconds),
+            dir: (!dir.as_os_str().is_empty()).then(|| dir.to_path_buf()),
+            idle: Mutex::new(Vec::new()),
+            failed: Mutex::new(None),
+        })
+    }
+
+    /// The command as one string, for messages.
+    pub fn command_line(&self) -> String {
+        self.command.join(" ")
+    }
+
+    /// The per-request deadline.
+    pub fn timeout(&self) -> Duration {
+        self.timeout
+    }
+
+    /// Stops every idle process (end of input, then kill after half a second) and reaps it.
+    pub fn shutdown(&self) {
+        let workers: Vec<Worker> = match self.idle.lock() {
+            Ok(mut g) => g.drain(..).collect(),
+            Err(_) => Vec::new(),
+        };
+        drop(workers);
+    }
+
+    fn who(&self) -> String {
+        format!("external process `{}`", self.command_line())
+    }
+
+    /// Starts a process and performs the handshake.
+    fn spawn(&self) -> Result<Worker, String> {
+        let mut cmd = Command::new(&self.command[0]);
+        cmd.args(&self.command[1..])
+            .stdin(Stdio::piped())
+            .stdout(Stdio::piped())
+            .stderr(Stdio::piped());
+        if let Some(d) = &self.dir {
+            cmd.current_dir(d);
+        }
+        let mut child = cmd.spawn().map_err(|e| {
+            let dir = self
+                .dir
+                .as_ref()
+                .map(|d| format!(" in {}", d.display()))
+                .unwrap_or_default();
+            format!("cannot start {}{dir}: {e}", self.who())
+        })?;
+        let (stdin, stdout, stderr) =
+            match (child.stdin.take(), child.stdout.take(), child.stderr.take()) {
+                (Some(i), Some(o), Some(e)) => (i, o, e),
+                _ => {
+                    let _ = child.kill();
+                    let _ = child.wait();
+                    return Err(format!("cannot connect to {}", self.who()));
+                }
+            };
+        let (req_tx, req_rx) = mpsc::channel::<Vec<u8>>();
+        std::thread::spawn(move || write_loop(stdin, req_rx));
+        let (line_tx, line_rx) = mpsc::channel::<Line>();
+        std::thread::spawn(move || read_loop(stdout, line_tx));
+        let tail = Arc::new(Mutex::new(VecDeque::new()));
+        let tail2 = Arc::clone(&tail);
+        std::thread::spawn(move || stderr_loop(stderr, tail2));
+        let mut w = Worker {
+            child,
+            requests: Some(req_tx),
+            lines: line_rx,
+            stderr_tail: tail,
+            sent: 0,
+        };
+        let hello = format!("lossprism-external {PROTOCOL_VERSION}\n");
+        let deadline = Instant::now() + self.timeout;
+        let what = "the handshake (`lossprism-external 1`)";
+        self.send(&mut w, hello.into_bytes(), what)?;
+        let line = self.recv(&mut w, deadline, what)?;
+        let mut t = line.split_ascii_whitespace();
+        match (t.next(), t.next()) {
+            (Some("ready"), Some(v)) if v == PROTOCOL_VERSION.to_string() => Ok(w),
+            (Some("ready"), Some(v)) => {
+                w.kill();
+                Err(format!(
+                    "{} speaks protocol version {v}; lossprism speaks {PROTOCOL_VERSION}",
+                    self.who()
+                ))
+            }
+            _ => {
+                w.kill();
+                Err(format!(
+                    "{} answered the handshake with {:?} instead of `ready {PROTOCOL_VERSION}`",
+                    self.who(),
+                    clip(&line)
+                ))
+            }
+        }
+    }
+
+    fn send(&self, w: &mut Worker, bytes: Vec<u8>, what: &str) -> Result<(), String> {
+        let ok = w.requests.as_ref().is_some_and(|tx| tx.send(bytes).is_ok());
+        if ok {
+            Ok(())
+        } else {
+            let msg = self.died(w, what);
+            Err(msg)
+        }
+    }
+
+    /// Kills the process and describes its end (status and last standard error line).
+    fn died(&self, w: &mut Worker, what: &str) -> String {
+        w.requests = None;
+        let _ = w.child.kill();
+        let status = w
+            .child
+            .wait()
+            .map(|s| s.to_string())
+            .unwrap_or_else(|e| e.to_string());
+        // Give the stderr thread a moment to collect the final lines (the pipe is closed now).
+        std::thread::sleep(Duration::from_millis(20));
+        let last = w
+            .last_stderr()
+            .map(|l| format!("; last line on its standard error: {}", clip(&l)))
+            .unwrap_or_default();
+        format!("{} stopped during {what} ({status}){last}", self.who())
+    }
+
+    /// Reads one line before the deadline; kills the process on timeout or end of output.
+    fn recv(&self, w: &mut Worker, deadline: Instant, what: &str) -> Result<String, String> {
+        let left = deadline.saturating_duration_since(Instant::now());
+        match w.lines.recv_timeout(left) {
+            Ok(Line::Text(s)) => Ok(s),
+            Ok(Line::Eof) | Err(RecvTimeoutError::Disconnected) => Err(self.died(w, what)),
+            Ok(Line::Failed(e)) => {
+                w.kill();
+                Err(format!(
+                    "{}: reading its output during {what} failed: {e}",
+                    self.who()
+                ))
+            }
+            Err(RecvTimeoutError::Timeout) => {
+                w.kill();
+                Err(format!(
+                    "{} did not answer within {} s during {what}; it was stopped \
+                     (raise `timeout_seconds` in [model] if fits are legitimately slow)",
+                    self.who(),
+                    fmt_secs(self.timeout)
+                ))
+            }
+        }
+    }
+
+    /// One fit on a checked-out worker.
+    fn fit_on(
+        &self,
+        w: &mut Worker,
+        input: &FitInput<'_>,
+        grid: &[f64],
+        out: &mut ArrayViewMut2<'_, f64>,
+    ) -> Result<(), String> {
+        let (n, p) = input.x.dim();
+        let m = input.eval.nrows();
+        let g = grid.len();
+        w.sent += 1;
+        let id = w.sent;
+        let (task, classes) = match input.task {
+            Task::Regress => ("regress", 0),
+            Task::Classify { classes } => ("classify", classes),
+        };
+        let what = format!(
+            "request {id} (fit: task {task}, n = {n} training rows, p = {p} inputs, \
+             m = {m} evaluation points, {g} values of {})",
+            self.knob
+        );
+        let mut req = String::with_capacity(32 * (n * (p + 1) + m * p + g) + 128);
+        let _ = writeln!(
+            req,
+            "fit {id} {task} {classes} {} {n} {p} {m} {g}",
+            self.knob
+        );
+        push_row(&mut req, "grid", grid.iter().copied());
+        for row in input.x.rows() {
+            push_row(&mut req, "x", row.iter().copied());
+        }
+        push_row(&mut req, "y", input.y.iter().copied());
+        for row in input.eval.rows() {
+            push_row(&mut req, "eval", row.iter().copied());
+        }
+        req.push_str("end\n");
+        self.send(w, req.into_bytes(), &what)?;
+        let deadline = Instant::now() + self.timeout;
+        let head = self.recv(w, deadline, &what)?;
+        let mut t = head.split_ascii_whitespace();
+        match t.next() {
+            Some("ok") => {}
+            Some("error") => {
+                let rest: Vec<&str> = t.collect();
+                let msg = rest.get(1..).map(|r| r.join(" ")).unwrap_or_default();
+                // The process stays usable, but the run stops at this failure anyway.
+                return Err(format!(
+                    "{} reported a failure for {what}: {msg}",
+                    self.who()
+                ));
+            }
+            _ => {
+                w.kill();
+                return Err(format!(
+                    "{} answered {what} with {:?} instead of `ok {id}` or `error {id} ...` \
+                     (write logs to standard error, not standard output)",
+                    self.who(),
+                    clip(&head)
+                ));
+            }
+        }
+        if t.next() != Some(id.to_string().as_str()) {
+            w.kill();
+            return Err(format!(
+                "{} answered {what} with {:?}: wrong request id (expected `ok {id}`)",
+                self.who(),
+                clip(&head)
+            ));
+        }
+        for (gi, &v) in grid.iter().enumerate() {
+            let line = self.recv(w, deadline, &what)?;
+            let mut toks = line.split_ascii_whitespace();
+            let at = format!("{} = {v}", self.knob);
+            if toks.next() != Some("pred") {
+                w.kill();
+                return Err(format!(
+                    "{} sent {:?} where line {} of {g} (`pred ...` for {at}) of the answer to {what} was expected",
+                    self.who(),
+                    clip(&line),
+                    gi + 1
+                ));
+            }
+            let mut count = 0usize;
+            for tok in toks {
+                if count < m {
+                    match parse_number(tok) {
+                        Some(x) => out[[gi, count]] = x,
+                        None => {
+                            w.kill();
+                            return Err(format!(
+                                "{} sent {:?} where prediction {} of {m} for {at} (a finite number) was expected, answering {what}",
+                                self.who(),
+                                clip(tok),
+                                count + 1
+                            ));
+                        }
+                    }
+                }
+                count += 1;
+            }
+            if count != m {
+                w.kill();
+                return Err(format!(
+                    "{} sent {count} predictions for {at}, expected {m} (one per evaluation point), answering {what}",
+                    self.who()
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    fn fail(&self, msg: String) -> FitError {
+        if let Ok(mut f) = self.failed.lock() {
+            if f.is_none() {
+                *f = Some(msg.clone());
+            }
+        }
+        FitError(msg)
+    }
+}
+
+impl Drop for ExternalFamily {
+    fn drop(&mut self) {
+        self.shutdown();
+    }
+}
+
+fn fmt_secs(d: Duration) -> String {
+    let s = d.as_secs_f64();
+    if s.fract() == 0.0 {
+        format!("{}", s as u64)
+    } else {
+        format!("{s}")
+    }
+}
+
+/// Shortens a line for an error message.
+fn clip(s: &str) -> String {
+    let s = s.trim_end();
+    if s.chars().count() > 60 {
+        let head: String = s.chars().take(60).collect();
+        format!("{head}...")
+    } else {
+        s.to_string()
+    }
+}
+
+fn push_row(buf: &mut String, tag: &str, values: impl Iterator<Item = f64>) {
+    buf.push_str(tag);
+    for v in values {
+        buf.push(' ');
+        buf.push_str(&format_number(v));
+    }
+    buf.push('\n');
+}
+
+fn write_loop(mut stdin: ChildStdin, rx: Receiver<Vec<u8>>) {
+    for bytes in rx {
+        if stdin.write_all(&bytes).and_then(|_| stdin.flush()).is_err() {
+            return;
+        }
+    }
+}
+
+fn read_loop(stdout: impl Read, tx: Sender<Line>) {
+    let mut r = BufReader::new(stdout);
+    loop {
+        let mut s = String::new();
+        match r.read_line(&mut s) {
+            Ok(0) => {
+                let _ = tx.send(Line::Eof);
+                return;
+            }
+            Ok(_) => {
+                let t = s.trim_end_matches(['\n', '\r']).to_string();
+                if tx.send(Line::Text(t)).is_err() {
+                    return;
+                }
+            }
+            Err(e) => {
+                let _ = tx.send(Line::Failed(e.to_string()));
+                return;
+            }
+        }
+    }
+}
+
+fn stderr_loop(stderr: impl Read, tail: Arc<Mutex<VecDeque<String>>>) {
+    let mut r = BufReader::new(stderr);
+    let mut buf = Vec::new();
+    loop {
+        buf.clear();
+        match r.read_until(b'\n', &mut buf) {
+            Ok(0) | Err(_) => return,
+            Ok(_) => {
+                let line = String::from_utf8_lossy(&buf).trim_end().to_string();
+                if let Ok(mut t) = tail.lock() {
+                    if t.len() == STDERR_TAIL {
+                        t.pop_front();
+                    }
+                    t.push_back(line);
+                }
+            }
+        }
+    }
+}
+
+impl Family for ExternalFamily {
+    fn name(&self) -> &'static str {
+        "external"
+    }
+
+    fn knob(&self) -> &'static str {
+        self.knob
+    }
+
+    /// Any non-empty grid of finite numbers: the process judges its own knob values (it answers
+    /// `error` for values it cannot use).
+    fn check_grid(&self, grid: &[f64], _n_train: usize, _n_inputs: usize) -> Result<(), String> {
+        if grid.is_empty() {
+            return Err(format!("the grid of {} is empty", self.knob));
+        }
+        if let Some(v) = grid.iter().find(|v| !v.is_finite()) {
+            return Err(format!("{} = {v} is not a finite number", self.knob));
+        }
+        Ok(())
+    }
+
+    fn supports(&self, _task: Task) -> bool {
+        true
+    }
+
+    fn fit_predict(
+        &self,
+        input: &FitInput<'_>,
+        grid: &[f64],
+        mut out: ArrayViewMut2<'_, f64>,
+    ) -> Result<(), FitError> {
+        if let Ok(f) = self.failed.lock() {
+            if let Some(msg) = f.as_ref() {
+                return Err(FitError(format!("stopped after an earlier failure: {msg}")));
+            }
+        }
+        if out.dim() != (grid.len(), input.eval.nrows()) {
+            return Err(FitError(format!(
+                "external: output has shape {:?}, expected ({}, {})",
+                out.dim(),
+                grid.len(),
+                input.eval.nrows()
+            )));
+        }
+        let pooled = self.idle.lock().ok().and_then(|mut g| g.pop());
+        let mut w = match pooled {
+            Some(w) => w,
+            None => self.spawn().map_err(|e| self.fail(e))?,
+        };
+        match self.fit_on(&mut w, input, grid, &mut out) {
+            Ok(()) => {
+                if let Ok(mut g) = self.idle.lock() {
+                    g.push(w);
+                }
+                Ok(())
+            }
+            Err(e) => {
+                drop(w);
+                Err(self.fail(e))
+            }
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+
+    // Exact identity: 17 significant digits identify every finite f64 (IEEE 754-2008, §5.12.2:
+    // 17 decimal digits suffice for binary64), and Rust's parser rounds correctly, so
+    // format-then-parse returns the same bits. Random bit patterns cover subnormals and extremes.
+    #[test]
+    fn numbers_round_trip_exactly() {
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let mut specials = vec![
+            0.0,
+            -0.0,
+            1.0,
+            0.1,
+            f64::MIN_POSITIVE,
+            f64::MAX,
+            f64::MIN,
+            5e-324,
+            1.0 / 3.0,
+        ];
+        specials.extend((0..20000).map(|_| f64::from_bits(rng.gen::<u64>())));
+        for v in specials.into_iter().filter(|v| v.is_finite()) {
+            let back = parse_number(&format_number(v)).unwrap();
+            assert_eq!(back.to_bits(), v.to_bits(), "{v:e}");
+        }
+        assert_eq!(parse_number("nan"), None);
+        assert_eq!(parse_number("inf"), None);
+        assert_eq!(parse_number("abc"), None);
+        assert_eq!(parse_number("0.30000000000000004"), Some(0.1 + 0.2));
+    }
+
+    #[test]
+    fn configuration_is_checked() {
+        let cmd = vec!["python3".to_string(), "m.py".to_string()];
+        let dir = Path::new("");
+        assert!(ExternalFamily::new(&cmd, "depth", 60.0, dir).is_ok());
+        assert_eq!(
+            ExternalFamily::new(&[], "depth", 60.0, dir)
+                .unwrap_err()
+                .key,
+            "command"
+        );
+        assert_eq!(
+            ExternalFamily::new(&cmd, "max depth", 60.0, dir)
+                .unwrap_err()
+                .key,
+            "knob"
+        );
+        assert_eq!(
+            ExternalFamily::new(&cmd, "k", 0.0, dir).unwrap_err().key,
+            "timeout_seconds"
+        );
+        let f = ExternalFamily::new(&cmd, "k", 1.5, dir).unwrap();
+        assert_eq!(f.knob(), "k");
+        assert!(f.check_grid(&[1.0, 2.5], 10, 1).is_ok());
+        assert!(f.check_grid(&[], 10, 1).is_err());
+        assert!(f.check_grid(&[f64::NAN], 10, 1).is_err());
+    }
+
+    #[test]
+    fn missing_program_is_a_clear_error() {
+        let cmd = vec!["/nonexistent/lossprism-no-such-program".to_string()];
+        let f = ExternalFamily::new(&cmd, "k", 5.0, Path::new("")).unwrap();
+        let x = ndarray::Array2::<f64>::zeros((3, 1));
+        let y = ndarray::Array1::<f64>::zeros(3);
+        let mut out = ndarray::Array2::<f64>::zeros((1, 3));
+        let input = FitInput {
+            x: x.view(),
+            y: y.view(),
+            eval: x.view(),
+            task: Task::Regress,
+        };
+        let e = f.fit_predict(&input, &[1.0], out.view_mut()).unwrap_err();
+        assert!(e.0.contains("cannot start external process"), "{e}");
+        // Later fits repeat the first failure without trying again.
+        let e2 = f.fit_predict(&input, &[1.0], out.view_mut()).unwrap_err();
+        assert!(e2.0.contains("earlier failure"), "{e2}");
+    }
+}

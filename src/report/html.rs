@@ -1,0 +1,379 @@
+//! The HTML report: one self-contained file (inline SVG and CSS, no scripts, no external
+//! references) with the scenario in words, the reading of the curve, the pictures, the table and
+//! the facts of the run.
+
+use std::fmt::Write as _;
+
+use super::table::{self, View};
+use super::{fmt_num, fmt_se, fmt_value, PointRow, ResultDoc};
+
+/// The pictures of a report, as SVG text (from [`super::plot`]).
+#[derive(Debug, Clone, Default)]
+pub struct Pictures {
+    /// The curve picture.
+    pub curve: Option<String>,
+    /// The per-point picture.
+    pub points: Option<String>,
+    /// The selection histogram.
+    pub selection: Option<String>,
+}
+
+/// Escapes text for HTML element content and attribute values.
+pub fn escape(s: &str) -> String {
+    let mut out = String::with_capacity(s.len());
+    for c in s.chars() {
+        match c {
+            '&' => out.push_str("&amp;"),
+            '<' => out.push_str("&lt;"),
+            '>' => out.push_str("&gt;"),
+            '"' => out.push_str("&quot;"),
+            '\'' => out.push_str("&#39;"),
+            c => out.push(c),
+        }
+    }
+    out
+}
+
+/// Formats a wall time in seconds (`0.84 s`, `12.3 s`, `2 min 05 s`, `1 h 02 min`).
+pub fn fmt_duration(secs: f64) -> String {
+    if !secs.is_finite() || secs < 0.0 {
+        return "n/a".into();
+    }
+    if secs < 10.0 {
+        format!("{secs:.2} s")
+    } else if secs < 60.0 {
+        format!("{secs:.1} s")
+    } else if secs < 3600.0 {
+        let s = secs.round() as u64;
+        format!("{} min {:02} s", s / 60, s % 60)
+    } else {
+        let m = (secs / 60.0).round() as u64;
+        format!("{} h {:02} min", m / 60, m % 60)
+    }
+}
+
+/// Makes plotters' SVG fit for inlining: drops the namespace declaration (implied in HTML) and
+/// lets the picture shrink with the page.
+fn inline_svg(svg: &str, label: &str) -> String {
+    let body = svg
+        .trim_start_matches(|c: char| c != '<')
+        .replacen(" xmlns=\"http://www.w3.org/2000/svg\"", "", 1);
+    body.replacen(
+        "<svg ",
+        &format!(
+            "<svg role=\"img\" aria-label=\"{}\" style=\"max-width:100%;height:auto\" ",
+            escape(label)
+        ),
+        1,
+    )
+}
+
+/// The scenario in plain words: where the data come from, the model family and its grid, the
+/// loss.
+pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
+    let s = &doc.scenario;
+    let inputs: Vec<String> = s
+        .inputs
+        .iter()
+        .map(|i| format!("{} ({})", i.name, i.distribution))
+        .collect();
+    let design = if s.design == "fixed" {
+        "the same training inputs in every replicate (fixed design), with fresh noise"
+    } else {
+        "fresh training inputs and noise in every replicate (random design)"
+    };
+    let eval = if s.eval == "design" {
+        "at the training inputs themselves".to_string()
+    } else {
+        format!("at {} evaluation points drawn once", s.eval_size)
+    };
+    let mut out = vec![
+        format!(
+            "Data ({}, invented by the scenario): {} training points per replicate, {design}. \
+             Inputs: {}.",
+            s.source,
+            s.train_size,
+            inputs.join("; ")
+        ),
+        match &s.labels {
+            None => format!("Truth: {}. Noise: {}.", s.truth, s.noise),
+            Some(l) => format!(
+                "Classes: {}. Class probabilities: {}. {}.",
+                l.join(", "),
+                s.truth,
+                s.noise
+            ),
+        },
+        format!(
+            "Model: the {} family, fitted at {} = {} ({} values{}).",
+            doc.family,
+            doc.knob,
+            grid_words(&s.grid),
+            s.grid.len(),
+            if s.grid_kind == "log" {
+                ", spaced on a logarithmic scale"
+            } else {
+                ""
+            }
+        ),
+        format!(
+            "Loss: {} loss, measured {eval}; each term is averaged over those points and over \
+             {} replicate training sets.",
+            doc.loss, doc.replicates
+        ),
+    ];
+    if !s.about.is_empty() {
+        out.insert(0, s.about.clone());
+    }
+    out
+}
+
+fn grid_words(grid: &[f64]) -> String {
+    if grid.len() <= 8 {
+        grid.iter()
+            .map(|v| fmt_value(*v))
+            .collect::<Vec<_>>()
+            .join(", ")
+    } else {
+        format!(
+            "{}, {}, {}, …, {}",
+            fmt_value(grid[0]),
+            fmt_value(grid[1]),
+            fmt_value(grid[2]),
+            fmt_value(grid[grid.len() - 1])
+        )
+    }
+}
+
+/// The reading of the curve in plain sentences: which region is bias-dominated and which
+/// variance-dominated (the document's `reading`), where the lowest expected loss lies and how
+/// sure that is given the standard errors.
+pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
+    let knob = &doc.knob;
+    let pts = &doc.points;
+    let mut out = vec![doc.reading.clone()];
+    let Some(bi) = pts.iter().position(|p| p.value == doc.best.value) else {
+        return out;
+    };
+    let best = &pts[bi];
+    let se_b = doc.best.stderr;
+    let gap = |p: &PointRow| -> String {
+        let d = p.expected_loss - best.expected_loss;
+        match (se_b, p.stderr.expected_loss) {
+            (Some(a), Some(b)) if a > 0.0 || b > 0.0 => format!(
+                "{knob} = {} is higher by {} ({:.1} standard errors of the difference)",
+                fmt_value(p.value),
+                fmt_num(d),
+                d / (a * a + b * b).sqrt()
+            ),
+            _ => format!(
+                "{knob} = {} is higher by {}",
+                fmt_value(p.value),
+                fmt_num(d)
+            ),
+        }
+    };
+    let mut near: Vec<String> = Vec::new();
+    if bi > 0 {
+        near.push(gap(&pts[bi - 1]));
+    }
+    if bi + 1 < pts.len() {
+        near.push(gap(&pts[bi + 1]));
+    }
+    if !near.is_empty() {
+        out.push(format!(
+            "Next to the best value, {}. Differences count as clear beyond about two standard \
+             errors; the standard errors of neighbouring values are positively correlated (they \
+             share training sets), so these ratios understate how clear the differences are.",
+            near.join(" and ")
+        ));
+    }
+    let others: Vec<String> = doc
+        .best
+        .within_one_se
+        .iter()
+        .filter(|v| **v != doc.best.value)
+        .map(|v| fmt_value(*v))
+        .collect();
+    out.push(if others.is_empty() {
+        format!(
+            "No other {knob} comes within one standard error of the lowest expected loss: the \
+             choice {knob} = {} is clear at this number of replicates.",
+            fmt_value(doc.best.value)
+        )
+    } else {
+        format!(
+            "{knob} = {} {} within one standard error of the lowest expected loss: with these \
+             replicates the data cannot tell {} apart from the best; the simplest of them is a \
+             safe pick.",
+            others.join(", "),
+            if others.len() == 1 { "is" } else { "are" },
+            if others.len() == 1 { "it" } else { "them" }
+        )
+    });
+    if pts.len() > 1 && (bi == 0 || bi == pts.len() - 1) {
+        out.push(format!(
+            "The lowest expected loss lies at the {} end of the grid: the true best {knob} may \
+             lie beyond it; extend the grid to be sure.",
+            if bi == 0 { "lower" } else { "upper" }
+        ));
+    }
+    if pts.iter().any(|p| p.net_variance.is_some_and(|v| v < 0.0)) {
+        out.push(
+            "Net variance is negative at some values: there the spread of predictions moves \
+             biased points towards the right class more often than it moves unbiased points \
+             away from it."
+                .into(),
+        );
+    }
+    out
+}
+
+const STYLE: &str = "
+body{font-family:system-ui,-apple-system,'Segoe UI',sans-serif;color:#1f1d3d;background:#fbfaf6;
+margin:0;line-height:1.5}
+main{max-width:1000px;margin:0 auto;padding:24px 20px 48px}
+h1{font-size:1.6em;margin:0.2em 0 0.1em}
+h2{font-size:1.15em;margin:1.8em 0 0.5em;border-bottom:2px solid #e4eed8;padding-bottom:2px}
+p.lead{color:#555;margin-top:0}
+figure{margin:12px 0;background:#fff;border:1px solid #e2e0d8;border-radius:6px;padding:8px}
+figcaption{font-size:0.9em;color:#555;padding:4px 6px}
+table{border-collapse:collapse;font-variant-numeric:tabular-nums;font-size:0.92em;background:#fff}
+th,td{padding:4px 10px;text-align:right;border-bottom:1px solid #e8e6de;white-space:nowrap}
+th{background:#f1efe6}
+tr.best td{background:#e4eed8;font-weight:600}
+.wide{overflow-x:auto}
+dl.facts{display:grid;grid-template-columns:max-content auto;gap:2px 16px}
+dl.facts dt{color:#555}
+dl.facts dd{margin:0}
+.legend{font-size:0.88em;color:#555}
+";
+
+/// Renders the report. `wall_seconds` is the run's wall time (not part of the result document,
+/// which stays identical across runs); `view` chooses the 0-1 decomposition of the table.
+pub fn render(doc: &ResultDoc, view: View, pictures: &Pictures, wall_seconds: Option<f64>) -> String {
+    let mut h = String::new();
+    let e = escape;
+    let _ = write!(
+        h,
+        "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n\
+         <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n\
+         <title>{} · bias and variance across {}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<main>\n",
+        e(&doc.scenario.name),
+        e(&doc.knob)
+    );
+    let _ = writeln!(
+        h,
+        "<h1>{}: bias and variance across {}</h1>\n<p class=\"lead\">How the expected test loss of \
+         the {} family splits into noise, bias and variance as {} changes, estimated from {} \
+         simulated training sets.</p>",
+        e(&doc.scenario.name),
+        e(&doc.knob),
+        e(&doc.family),
+        e(&doc.knob),
+        doc.replicates
+    );
+
+    h.push_str("<h2>What was simulated</h2>\n");
+    for line in scenario_words(doc) {
+        let _ = writeln!(h, "<p>{}</p>", e(&line));
+    }
+
+    h.push_str("<h2>Reading the curve</h2>\n");
+    for line in reading_words(doc) {
+        let _ = writeln!(h, "<p>{}</p>", e(&line));
+    }
+
+    if let Some(svg) = &pictures.curve {
+        let _ = writeln!(
+            h,
+            "<figure>{}<figcaption>Expected loss and its parts against {}, with bands of ±2 \
+             standard errors; the ring marks the lowest expected loss, the pale column the values \
+             within one standard error of it.</figcaption></figure>",
+            inline_svg(svg, "curve of expected loss, bias, variance and noise"),
+            e(&doc.knob)
+        );
+    }
+    if let Some(svg) = &pictures.points {
+        let _ = writeln!(
+            h,
+            "<h2>Underfitting and overfitting as shapes</h2>\n<figure>{}<figcaption>The truth \
+             and the mean prediction at the smallest, the best and the largest {} with ±1 \
+             prediction standard deviation; dots are one replicate's training set. A mean curve \
+             that misses the truth is bias; a wide band is variance.</figcaption></figure>",
+            inline_svg(svg, "per-point view of truth and mean predictions"),
+            e(&doc.knob)
+        );
+    }
+    if let Some(svg) = &pictures.selection {
+        let _ = writeln!(
+            h,
+            "<h2>What cross-validation would pick</h2>\n<figure>{}<figcaption>How often \
+             cross-validation chose each {}; the dark bar is the value with the lowest expected \
+             loss.</figcaption></figure>",
+            inline_svg(svg, "histogram of the value chosen by cross-validation"),
+            e(&doc.knob)
+        );
+    }
+
+    h.push_str("<h2>The numbers</h2>\n<div class=\"wide\"><table>\n<thead><tr>");
+    let (header, rows, legend) = table::cells(doc, view);
+    for c in &header {
+        let _ = write!(h, "<th>{}</th>", e(c));
+    }
+    h.push_str("<th></th></tr></thead>\n<tbody>\n");
+    for (p, r) in doc.points.iter().zip(&rows) {
+        let best = p.value == doc.best.value;
+        let _ = write!(
+            h,
+            "<tr{} data-value=\"{}\">",
+            if best { " class=\"best\"" } else { "" },
+            p.value
+        );
+        for c in r {
+            let _ = write!(h, "<td>{}</td>", e(c));
+        }
+        let _ = writeln!(
+            h,
+            "<td>{}</td></tr>",
+            if best { "lowest" } else { "" }
+        );
+    }
+    let _ = writeln!(
+        h,
+        "</tbody>\n</table></div>\n<p class=\"legend\">{}</p>",
+        e(legend.trim_start_matches("legend: "))
+    );
+
+    h.push_str("<h2>The run</h2>\n<dl class=\"facts\">\n");
+    let mut fact = |k: &str, v: String| {
+        let _ = writeln!(h, "<dt>{}</dt><dd>{}</dd>", e(k), e(&v));
+    };
+    fact("scenario", doc.scenario.name.clone());
+    fact("seed", doc.seed.to_string());
+    fact("replicates", doc.replicates.to_string());
+    fact(
+        "replicate blocks (for standard errors)",
+        doc.scenario.blocks.to_string(),
+    );
+    fact("lossprism version", doc.version.clone());
+    fact(
+        "wall time",
+        wall_seconds.map(fmt_duration).unwrap_or_else(|| "not measured".into()),
+    );
+    fact(
+        "best value",
+        format!(
+            "{} = {} (expected loss {}{})",
+            doc.knob,
+            fmt_value(doc.best.value),
+            fmt_num(doc.best.expected_loss),
+            doc.best
+                .stderr
+                .map(|s| format!(" ± {}", fmt_se(s)))
+                .unwrap_or_default()
+        ),
+    );
+    h.push_str("</dl>\n</main>\n</body>\n</html>\n");
+    h
+}

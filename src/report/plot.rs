@@ -1,0 +1,1070 @@
+//! The pictures of a result, as self-contained SVG text (plotters' SVG backend, no fonts needed):
+//! the curve of expected loss and its parts against the knob, the per-point view of truth against
+//! mean predictions, and the histogram of the knob chosen by cross-validation.
+
+use plotters::coord::Shift;
+use plotters::prelude::*;
+
+use super::table::View;
+use super::{fmt_value, ResultDoc};
+use crate::error::Error;
+use crate::runner::{self, Outcome};
+use crate::scenario::{Plan, Source};
+
+/// Width and height of the curve picture in pixels.
+pub const CURVE_SIZE: (u32, u32) = (960, 560);
+/// Width and height of the per-point picture in pixels.
+pub const POINTS_SIZE: (u32, u32) = (960, 560);
+/// Width and height of the selection histogram in pixels.
+pub const SELECTION_SIZE: (u32, u32) = (760, 420);
+
+/// Width of the side panel that holds the legend.
+const PANEL: u32 = 250;
+
+// The palette of lossprism's pictures: four hues that stay apart for the common colour-vision
+// deficiencies (dark ink, burnt orange, sky blue, mid grey) and, because their lightness differs,
+// in grey-scale too. Every series also has its own dash pattern and marker.
+const INK: RGBColor = RGBColor(0x1f, 0x1d, 0x3d);
+const RUST: RGBColor = RGBColor(0xb0, 0x4e, 0x0f);
+const SKY: RGBColor = RGBColor(0x4a, 0xa3, 0xdf);
+const STONE: RGBColor = RGBColor(0x70, 0x70, 0x70);
+const PAPER: RGBColor = RGBColor(0xff, 0xff, 0xff);
+const SAGE: RGBColor = RGBColor(0xe4, 0xee, 0xd8);
+const FONT: &str = "sans-serif";
+
+fn draw_err<E: std::error::Error + Send + Sync>(e: DrawingAreaErrorKind<E>) -> Error {
+    Error::Usage(format!("cannot draw the picture: {e}"))
+}
+
+/// How a series is stroked: solid, or dashes of `on` pixels separated by `off` pixels.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Dash {
+    Solid,
+    Dashed(u32, u32),
+}
+
+/// How a series marks its data points.
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Marker {
+    Dot,
+    Square,
+    Triangle,
+    Cross,
+    Diamond,
+    None,
+}
+
+/// The look of one series.
+#[derive(Debug, Clone, Copy)]
+struct Look {
+    color: RGBColor,
+    width: u32,
+    dash: Dash,
+    marker: Marker,
+}
+
+/// One series of the curve picture: a value and a standard error per grid value.
+#[derive(Debug, Clone)]
+struct Series {
+    label: String,
+    values: Vec<f64>,
+    se: Vec<Option<f64>>,
+    look: Look,
+}
+
+fn looks() -> [Look; 4] {
+    [
+        Look {
+            color: INK,
+            width: 3,
+            dash: Dash::Solid,
+            marker: Marker::Dot,
+        },
+        Look {
+            color: RUST,
+            width: 2,
+            dash: Dash::Dashed(10, 5),
+            marker: Marker::Square,
+        },
+        Look {
+            color: SKY,
+            width: 2,
+            dash: Dash::Dashed(3, 4),
+            marker: Marker::Triangle,
+        },
+        Look {
+            color: STONE,
+            width: 2,
+            dash: Dash::Dashed(16, 6),
+            marker: Marker::Cross,
+        },
+    ]
+}
+
+/// The four series the curve shows for a document: expected loss, the bias-type term, the
+/// variance-type term and noise. For 0-1 loss the terms follow `view` (Domingos for `All`).
+fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
+    let p = &doc.points;
+    let col = |f: &dyn Fn(&super::PointRow) -> f64| p.iter().map(f).collect::<Vec<f64>>();
+    let cse = |f: &dyn Fn(&super::PointRow) -> Option<f64>| p.iter().map(f).collect();
+    let nan = f64::NAN;
+    let [l0, l1, l2, l3] = looks();
+    let loss = Series {
+        label: "expected loss".into(),
+        values: col(&|r| r.expected_loss),
+        se: cse(&|r| r.stderr.expected_loss),
+        look: l0,
+    };
+    let mk = |label: &str, values: Vec<f64>, se: Vec<Option<f64>>, look: Look| Series {
+        label: label.into(),
+        values,
+        se,
+        look,
+    };
+    if doc.loss == "squared" {
+        return vec![
+            loss,
+            mk(
+                "bias²",
+                col(&|r| r.bias_sq.unwrap_or(nan)),
+                cse(&|r| r.stderr.bias_sq.flatten()),
+                l1,
+            ),
+            mk(
+                "variance",
+                col(&|r| r.variance),
+                cse(&|r| r.stderr.variance),
+                l2,
+            ),
+            mk("noise", col(&|r| r.noise), cse(&|_| Some(0.0)), l3),
+        ];
+    }
+    match view {
+        View::KohaviWolpert => vec![
+            loss,
+            mk(
+                "bias² (Kohavi-Wolpert)",
+                col(&|r| r.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq).unwrap_or(nan)),
+                cse(&|r| r.stderr.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq)),
+                l1,
+            ),
+            mk(
+                "variance (Kohavi-Wolpert)",
+                col(&|r| {
+                    r.kohavi_wolpert
+                        .as_ref()
+                        .and_then(|k| k.variance)
+                        .unwrap_or(nan)
+                }),
+                cse(&|r| r.stderr.kohavi_wolpert.as_ref().and_then(|k| k.variance)),
+                l2,
+            ),
+            mk(
+                "noise (Kohavi-Wolpert)",
+                col(&|r| r.kohavi_wolpert.as_ref().and_then(|k| k.noise).unwrap_or(nan)),
+                cse(&|_| Some(0.0)),
+                l3,
+            ),
+        ],
+        View::James => vec![
+            loss,
+            mk(
+                "systematic effect (James)",
+                col(&|r| {
+                    r.james
+                        .as_ref()
+                        .and_then(|j| j.systematic_effect)
+                        .unwrap_or(nan)
+                }),
+                cse(&|r| r.stderr.james.as_ref().and_then(|j| j.systematic_effect)),
+                l1,
+            ),
+            mk(
+                "variance effect (James)",
+                col(&|r| {
+                    r.james
+                        .as_ref()
+                        .and_then(|j| j.variance_effect)
+                        .unwrap_or(nan)
+                }),
+                cse(&|r| r.stderr.james.as_ref().and_then(|j| j.variance_effect)),
+                l2,
+            ),
+            mk(
+                "noise (Bayes error)",
+                col(&|r| r.noise),
+                cse(&|_| Some(0.0)),
+                l3,
+            ),
+        ],
+        View::Domingos | View::All => vec![
+            loss,
+            mk(
+                "bias (Domingos)",
+                col(&|r| r.bias.unwrap_or(nan)),
+                cse(&|r| r.stderr.bias.flatten()),
+                l1,
+            ),
+            mk(
+                "net variance (Domingos)",
+                col(&|r| r.net_variance.unwrap_or(nan)),
+                cse(&|r| r.stderr.net_variance.flatten()),
+                l2,
+            ),
+            mk(
+                "noise (Bayes error)",
+                col(&|r| r.noise),
+                cse(&|_| Some(0.0)),
+                l3,
+            ),
+        ],
+    }
+}
+
+/// Whether the x axis is logarithmic: a `log` grid of positive values.
+fn log_axis(doc: &ResultDoc) -> bool {
+    doc.scenario.grid_kind == "log" && doc.points.iter().all(|p| p.value > 0.0)
+}
+
+/// A padded range holding all finite `values` (and `also`).
+fn padded(values: impl Iterator<Item = f64>, also: &[f64], pad: f64) -> (f64, f64) {
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    for v in values.chain(also.iter().copied()).filter(|v| v.is_finite()) {
+        lo = lo.min(v);
+        hi = hi.max(v);
+    }
+    if !lo.is_finite() {
+        return (0.0, 1.0);
+    }
+    let span = if hi > lo { hi - lo } else { lo.abs().max(1.0) };
+    (lo - pad * span, hi + pad * span)
+}
+
+fn style(look: &Look) -> ShapeStyle {
+    look.color.stroke_width(look.width)
+}
+
+/// Draws a marker centred at pixel `(x, y)`.
+fn marker_at<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    m: Marker,
+    c: RGBColor,
+    (x, y): (i32, i32),
+) -> Result<(), Error> {
+    let s = c.stroke_width(2);
+    match m {
+        Marker::Dot => area.draw(&Circle::new((x, y), 5, c.filled())),
+        Marker::Square => area.draw(&Rectangle::new([(x - 4, y - 4), (x + 4, y + 4)], c.filled())),
+        Marker::Triangle => area.draw(&TriangleMarker::new((x, y), 6, c.filled())),
+        Marker::Cross => area.draw(&Cross::new((x, y), 5, s)),
+        Marker::Diamond => area.draw(&Polygon::new(
+            vec![(x, y - 6), (x + 6, y), (x, y + 6), (x - 6, y)],
+            c.filled(),
+        )),
+        Marker::None => Ok(()),
+    }
+    .map_err(draw_err)
+}
+
+/// Draws a short sample of a line look from `x0` to `x1` at height `y` (pixel coordinates).
+fn sample_line<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    look: &Look,
+    x0: i32,
+    x1: i32,
+    y: i32,
+) -> Result<(), Error> {
+    let st = style(look);
+    match look.dash {
+        Dash::Solid => area
+            .draw(&PathElement::new(vec![(x0, y), (x1, y)], st))
+            .map_err(draw_err)?,
+        Dash::Dashed(on, off) => {
+            let mut x = x0;
+            while x < x1 {
+                let e = (x + on as i32).min(x1);
+                area.draw(&PathElement::new(vec![(x, y), (e, y)], st))
+                    .map_err(draw_err)?;
+                x = e + off as i32;
+            }
+        }
+    }
+    marker_at(area, look.marker, look.color, ((x0 + x1) / 2, y))
+}
+
+/// Writes `text` in the side panel at pixel `(x, y)`, wrapped at `width` characters; returns the
+/// y below the last line.
+fn panel_text<DB: DrawingBackend>(
+    area: &DrawingArea<DB, Shift>,
+    text: &str,
+    (x, y): (i32, i32),
+    size: u32,
+    color: RGBColor,
+    width: usize,
+) -> Result<i32, Error> {
+    let mut lines: Vec<String> = Vec::new();
+    let mut cur = String::new();
+    for w in text.split_whitespace() {
+        if !cur.is_empty() && cur.chars().count() + 1 + w.chars().count() > width {
+            lines.push(std::mem::take(&mut cur));
+        }
+        if !cur.is_empty() {
+            cur.push(' ');
+        }
+        cur.push_str(w);
+    }
+    if !cur.is_empty() {
+        lines.push(cur);
+    }
+    let mut y = y;
+    let font = (FONT, size).into_font().color(&color);
+    for l in lines {
+        area.draw(&Text::new(l, (x, y), font.clone()))
+            .map_err(draw_err)?;
+        y += size as i32 + 4;
+    }
+    Ok(y)
+}
+
+/// Polygon of a band between `lo` and `hi` over `xs` (skipping non-finite entries).
+fn band(xs: &[f64], lo: &[f64], hi: &[f64]) -> Vec<(f64, f64)> {
+    let idx: Vec<usize> = (0..xs.len())
+        .filter(|&i| xs[i].is_finite() && lo[i].is_finite() && hi[i].is_finite())
+        .collect();
+    let mut poly: Vec<(f64, f64)> = idx.iter().map(|&i| (xs[i], hi[i])).collect();
+    poly.extend(idx.iter().rev().map(|&i| (xs[i], lo[i])));
+    poly
+}
+
+/// The curve picture: expected loss, the bias-type and variance-type terms and noise against the
+/// knob, each with a ±2 standard error band, the lowest expected loss marked and the values
+/// within one standard error of it shaded. The x axis is logarithmic for a `log` grid; the y
+/// axis always includes zero (net variance and unbiased bias² may be negative).
+pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
+    if doc.points.is_empty() {
+        return Err(Error::Usage("the result has no grid values to plot".into()));
+    }
+    let series = curve_series(doc, view);
+    let log = log_axis(doc);
+    let tx = |v: f64| if log { v.log10() } else { v };
+    let xs: Vec<f64> = doc.points.iter().map(|p| tx(p.value)).collect();
+    let (x0, x1) = padded(xs.iter().copied(), &[], 0.04);
+    let mut ys: Vec<f64> = Vec::new();
+    for s in &series {
+        for (v, e) in s.values.iter().zip(&s.se) {
+            let e = e.unwrap_or(0.0);
+            ys.push(v - 2.0 * e);
+            ys.push(v + 2.0 * e);
+        }
+    }
+    let (y0, y1) = padded(ys.into_iter(), &[0.0], 0.06);
+    let unit = if doc.loss == "squared" {
+        "loss (squared units of the response)"
+    } else {
+        "loss (share of points misclassified)"
+    };
+    let knob = doc.knob.clone();
+    let best_x = tx(doc.best.value);
+    let within: Vec<f64> = doc.best.within_one_se.iter().map(|v| tx(*v)).collect();
+
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, CURVE_SIZE).into_drawing_area();
+        root.fill(&PAPER).map_err(draw_err)?;
+        let title = format!(
+            "Where {knob} balances bias against variance ({}, {} family)",
+            doc.scenario.name, doc.family
+        );
+        let (top, body) = root.split_vertically(44);
+        top.draw(&Text::new(
+            title,
+            (18, 14),
+            (FONT, 21).into_font().style(FontStyle::Bold).color(&INK),
+        ))
+        .map_err(draw_err)?;
+        let (plot, panel) = body.split_horizontally(CURVE_SIZE.0 - PANEL);
+        let mut chart = ChartBuilder::on(&plot)
+            .margin_left(10)
+            .margin_right(16)
+            .margin_bottom(8)
+            .x_label_area_size(52)
+            .y_label_area_size(74)
+            .build_cartesian_2d(x0..x1, y0..y1)
+            .map_err(draw_err)?;
+        let xfmt = |v: &f64| {
+            if log {
+                fmt_value(10f64.powf(*v))
+            } else {
+                fmt_value(*v)
+            }
+        };
+        let x_desc = if log {
+            format!("{knob} (logarithmic axis)")
+        } else {
+            knob.clone()
+        };
+        let n_labels = if log {
+            ((x1 - x0).ceil() as usize + 1).clamp(2, 12)
+        } else {
+            doc.points.len().clamp(2, 12)
+        };
+        chart
+            .configure_mesh()
+            .light_line_style(RGBColor(0xee, 0xee, 0xee))
+            .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
+            .x_labels(n_labels)
+            .y_labels(8)
+            .x_label_formatter(&xfmt)
+            .y_label_formatter(&|v: &f64| super::fmt_num(*v))
+            .x_desc(x_desc)
+            .y_desc(unit)
+            .axis_desc_style((FONT, 16))
+            .label_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+
+        // The values within one standard error of the best: a pale column behind everything.
+        if let (Some(a), Some(b)) = (
+            within.iter().copied().reduce(f64::min),
+            within.iter().copied().reduce(f64::max),
+        ) {
+            let step = if xs.len() > 1 {
+                (xs[xs.len() - 1] - xs[0]) / (xs.len() - 1) as f64 * 0.3
+            } else {
+                0.3
+            };
+            chart
+                .draw_series(std::iter::once(Rectangle::new(
+                    [(a - step, y0), (b + step, y1)],
+                    SAGE.filled(),
+                )))
+                .map_err(draw_err)?;
+        }
+        if y0 < 0.0 {
+            chart
+                .draw_series(LineSeries::new(
+                    vec![(x0, 0.0), (x1, 0.0)],
+                    BLACK.stroke_width(1),
+                ))
+                .map_err(draw_err)?;
+        }
+        // Bands first, so that every line stays visible on top of them.
+        for s in &series {
+            let lo: Vec<f64> = s
+                .values
+                .iter()
+                .zip(&s.se)
+                .map(|(v, e)| v - 2.0 * e.unwrap_or(0.0))
+                .collect();
+            let hi: Vec<f64> = s
+                .values
+                .iter()
+                .zip(&s.se)
+                .map(|(v, e)| v + 2.0 * e.unwrap_or(0.0))
+                .collect();
+            let poly = band(&xs, &lo, &hi);
+            if poly.len() >= 3 {
+                chart
+                    .draw_series(std::iter::once(Polygon::new(
+                        poly,
+                        s.look.color.mix(0.22).filled(),
+                    )))
+                    .map_err(draw_err)?;
+            }
+        }
+        for s in &series {
+            let pts: Vec<(f64, f64)> = xs
+                .iter()
+                .zip(&s.values)
+                .filter(|(x, y)| x.is_finite() && y.is_finite())
+                .map(|(x, y)| (*x, *y))
+                .collect();
+            match s.look.dash {
+                Dash::Solid => chart
+                    .draw_series(LineSeries::new(pts.clone(), style(&s.look)))
+                    .map_err(draw_err)?,
+                Dash::Dashed(on, off) => chart
+                    .draw_series(DashedLineSeries::new(
+                        pts.clone(),
+                        on as i32,
+                        off as i32,
+                        style(&s.look),
+                    ))
+                    .map_err(draw_err)?,
+            };
+            for &(x, y) in &pts {
+                let px = chart.backend_coord(&(x, y));
+                marker_at(&root, s.look.marker, s.look.color, px)?;
+            }
+        }
+        // The best value: a ring around its expected loss and a label above the plot area.
+        let best_y = doc.best.expected_loss;
+        chart
+            .draw_series(std::iter::once(Circle::new(
+                (best_x, best_y),
+                11,
+                INK.stroke_width(2),
+            )))
+            .map_err(draw_err)?;
+        chart
+            .draw_series(DashedLineSeries::new(
+                vec![(best_x, y0), (best_x, y1)],
+                2,
+                5,
+                INK.stroke_width(1),
+            ))
+            .map_err(draw_err)?;
+
+        // Side panel: legend, then how to read it.
+        let mut y = 16;
+        y = panel_text(&panel, "Series (band: ±2 standard errors)", (8, y), 14, INK, 34)?;
+        y += 8;
+        for s in &series {
+            sample_line(&panel, &s.look, 10, 58, y + 7)?;
+            let ny = panel_text(&panel, &s.label, (68, y), 14, INK, 27)?;
+            y = ny.max(y + 22) + 6;
+        }
+        y += 6;
+        panel
+            .draw(&Circle::new((34, y + 7), 9, INK.stroke_width(2)))
+            .map_err(draw_err)?;
+        let best_text = format!(
+            "lowest expected loss: {knob} = {}",
+            fmt_value(doc.best.value)
+        );
+        y = panel_text(&panel, &best_text, (68, y), 14, INK, 27)? + 8;
+        panel
+            .draw(&Rectangle::new([(12, y), (56, y + 16)], SAGE.filled()))
+            .map_err(draw_err)?;
+        y = panel_text(
+            &panel,
+            "within one standard error of the lowest",
+            (68, y),
+            14,
+            INK,
+            24,
+        )? + 14;
+        let note = if doc.loss == "squared" {
+            "Expected loss = noise + bias² + variance. Left of the best value bias² dominates \
+             (underfitting); right of it variance grows (overfitting)."
+        } else {
+            "Expected loss of 0-1 predictions and the chosen decomposition's terms; a net \
+             variance below zero means variance helps where the model is biased."
+        };
+        panel_text(&panel, note, (8, y), 12, STONE, 38)?;
+        root.present().map_err(draw_err)?;
+    }
+    Ok(buf)
+}
+
+/// One mean-prediction curve of the per-point view.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PointCurve {
+    /// The knob value.
+    pub value: f64,
+    /// Why it was picked: `smallest`, `best` or `largest`.
+    pub role: String,
+    /// Mean prediction (over replicates) at each x of the view.
+    pub mean: Vec<f64>,
+    /// Prediction standard deviation (over replicates) at each x of the view.
+    pub sd: Vec<f64>,
+}
+
+/// The data of the per-point view, ready to draw.
+#[derive(Debug, Clone, PartialEq)]
+pub struct PointView {
+    /// Scenario name.
+    pub scenario: String,
+    /// Family name.
+    pub family: String,
+    /// Knob name.
+    pub knob: String,
+    /// The input on the x axis.
+    pub input: String,
+    /// The other inputs, averaged over within bins of `input` (empty for one input).
+    pub averaged_over: Vec<String>,
+    /// x positions (evaluation points, or bin centres when other inputs are averaged over).
+    pub x: Vec<f64>,
+    /// The truth f at `x` (averaged within a bin).
+    pub truth: Vec<f64>,
+    /// Two or three knob values: the smallest, the best and the largest.
+    pub curves: Vec<PointCurve>,
+    /// Replicate 0's training inputs (the chosen input).
+    pub train_x: Vec<f64>,
+    /// Replicate 0's training responses.
+    pub train_y: Vec<f64>,
+}
+
+/// The column of the input on the x axis of the per-point view; several inputs need a name.
+fn input_column(names: &[String], input: Option<&str>) -> Result<usize, Error> {
+    match input {
+        Some(name) => names.iter().position(|n| n == name).ok_or_else(|| {
+            Error::Usage(format!(
+                "--input {name}: no such input; the scenario's inputs are {}",
+                names.join(", ")
+            ))
+        }),
+        None if names.len() == 1 => Ok(0),
+        None => Err(Error::Usage(format!(
+            "--plot-points shows one input but the scenario has {}: choose one with --input NAME \
+             ({}); the others are averaged over",
+            names.len(),
+            names.join(", ")
+        ))),
+    }
+}
+
+/// Checks before a run that the per-point view can be drawn for `plan` with `input`, so a
+/// long run does not end in a refusal.
+pub fn check_point_request(plan: &Plan, input: Option<&str>) -> Result<(), Error> {
+    if !matches!(plan.source, Source::Synthetic(_)) || plan.loss != crate::scenario::LossKind::Squared
+    {
+        return Err(Error::Usage(
+            "--plot-points needs a synthetic scenario with squared loss (a known truth and mean \
+             predictions)"
+                .into(),
+        ));
+    }
+    let names: Vec<String> = super::scenario_echo(plan)
+        .inputs
+        .iter()
+        .map(|i| i.name.clone())
+        .collect();
+    input_column(&names, input).map(|_| ())
+}
+
+/// Builds the per-point view of a finished squared-loss run: the truth and the mean prediction
+/// (±1 prediction sd) at the smallest, the best and the largest knob value, against one input.
+/// With several inputs, `input` names the one on the x axis and the others are averaged over
+/// within equal-width bins of it; without `input` a run with several inputs is refused.
+pub fn point_view(
+    plan: &Plan,
+    outcome: &Outcome,
+    doc: &ResultDoc,
+    input: Option<&str>,
+) -> Result<PointView, Error> {
+    if !matches!(plan.source, Source::Synthetic(_)) {
+        return Err(Error::Usage(
+            "the per-point view needs a synthetic scenario (a known truth f)".into(),
+        ));
+    }
+    let Some(sum) = outcome.summary.squared() else {
+        return Err(Error::Usage(
+            "the per-point view needs squared loss (mean predictions); this run uses 0-1 loss"
+                .into(),
+        ));
+    };
+    let names: Vec<String> = doc.scenario.inputs.iter().map(|i| i.name.clone()).collect();
+    let col = input_column(&names, input)?;
+    let prep = &outcome.prepared;    let acc = &sum.total;
+    let m = acc.points;
+    let ex: Vec<f64> = prep.eval_x.column(col).to_vec();
+    let grid = &plan.grid;
+    let best_g = grid
+        .iter()
+        .position(|v| *v == doc.best.value)
+        .unwrap_or(0);
+    let mut picks: Vec<(usize, &str)> = vec![(0, "smallest")];
+    if best_g != 0 {
+        picks.push((best_g, "best"));
+    } else {
+        picks[0].1 = "smallest, best";
+    }
+    if grid.len() > 1 && best_g != grid.len() - 1 {
+        picks.push((grid.len() - 1, "largest"));
+    } else if grid.len() > 1 {
+        if let Some(last) = picks.last_mut() {
+            last.1 = "best, largest";
+        }
+    }
+    let cell = |g: usize, e: usize| crate::decompose::squared::point(acc, g, e, prep.eval_truth[e]);
+    // Group evaluation points: one group per point (sorted by x) for one input, equal-width bins
+    // of the chosen input otherwise.
+    let mut order: Vec<usize> = (0..m).filter(|&e| ex[e].is_finite()).collect();
+    order.sort_by(|&a, &b| ex[a].total_cmp(&ex[b]));
+    let groups: Vec<Vec<usize>> = if names.len() == 1 {
+        order.iter().map(|&e| vec![e]).collect()
+    } else {
+        let bins = (m / 12).clamp(5, 40);
+        let (lo, hi) = (
+            order.first().map(|&e| ex[e]).unwrap_or(0.0),
+            order.last().map(|&e| ex[e]).unwrap_or(1.0),
+        );
+        let w = if hi > lo { (hi - lo) / bins as f64 } else { 1.0 };
+        let mut g: Vec<Vec<usize>> = vec![Vec::new(); bins];
+        for &e in &order {
+            let b = (((ex[e] - lo) / w) as usize).min(bins - 1);
+            g[b].push(e);
+        }
+        g.into_iter().filter(|v| !v.is_empty()).collect()
+    };
+    let avg = |v: &dyn Fn(usize) -> f64, grp: &[usize]| {
+        grp.iter().map(|&e| v(e)).sum::<f64>() / grp.len() as f64
+    };
+    let x: Vec<f64> = groups.iter().map(|g| avg(&|e| ex[e], g)).collect();
+    let truth: Vec<f64> = groups
+        .iter()
+        .map(|g| avg(&|e| prep.eval_truth[e], g))
+        .collect();
+    let curves = picks
+        .iter()
+        .map(|&(g, role)| PointCurve {
+            value: grid[g],
+            role: role.to_string(),
+            mean: groups
+                .iter()
+                .map(|grp| avg(&|e| cell(g, e).mean_prediction, grp))
+                .collect(),
+            sd: groups
+                .iter()
+                .map(|grp| avg(&|e| cell(g, e).variance, grp).sqrt())
+                .collect(),
+        })
+        .collect();
+    let (tx, ty) = runner::training_set(plan, prep, 0)?;
+    Ok(PointView {
+        scenario: plan.name.clone(),
+        family: plan.family.name().to_string(),
+        knob: plan.family.knob().to_string(),
+        input: names[col].clone(),
+        averaged_over: names
+            .iter()
+            .enumerate()
+            .filter(|(i, _)| *i != col)
+            .map(|(_, n)| n.clone())
+            .collect(),
+        x,
+        truth,
+        curves,
+        train_x: tx.column(col).to_vec(),
+        train_y: ty.to_vec(),
+    })
+}
+
+/// The per-point picture: replicate 0's training points, the truth, and the mean prediction with
+/// a ±1 prediction sd band at each chosen knob value.
+pub fn points_svg(v: &PointView) -> Result<String, Error> {
+    if v.x.is_empty() || v.curves.is_empty() {
+        return Err(Error::Usage("the per-point view has nothing to draw".into()));
+    }
+    let (x0, x1) = padded(
+        v.x.iter().chain(&v.train_x).copied(),
+        &[],
+        0.02,
+    );
+    let ys = v
+        .truth
+        .iter()
+        .copied()
+        .chain(v.train_y.iter().copied())
+        .chain(v.curves.iter().flat_map(|c| {
+            c.mean
+                .iter()
+                .zip(&c.sd)
+                .flat_map(|(m, s)| [m - s, m + s])
+                .collect::<Vec<f64>>()
+        }));
+    let (y0, y1) = padded(ys, &[], 0.05);
+    let curve_looks = [
+        Look {
+            color: RUST,
+            width: 2,
+            dash: Dash::Dashed(10, 5),
+            marker: Marker::Square,
+        },
+        Look {
+            color: INK,
+            width: 3,
+            dash: Dash::Solid,
+            marker: Marker::Diamond,
+        },
+        Look {
+            color: SKY,
+            width: 2,
+            dash: Dash::Dashed(3, 4),
+            marker: Marker::Triangle,
+        },
+    ];
+    let truth_look = Look {
+        color: RGBColor(0x9a, 0xb8, 0x7a),
+        width: 6,
+        dash: Dash::Solid,
+        marker: Marker::None,
+    };
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, POINTS_SIZE).into_drawing_area();
+        root.fill(&PAPER).map_err(draw_err)?;
+        let (top, body) = root.split_vertically(44);
+        top.draw(&Text::new(
+            format!(
+                "Mean prediction against the truth along {} ({}, {} family)",
+                v.input, v.scenario, v.family
+            ),
+            (18, 14),
+            (FONT, 21).into_font().style(FontStyle::Bold).color(&INK),
+        ))
+        .map_err(draw_err)?;
+        let (plot, panel) = body.split_horizontally(POINTS_SIZE.0 - PANEL);
+        let mut chart = ChartBuilder::on(&plot)
+            .margin_left(10)
+            .margin_right(16)
+            .margin_bottom(8)
+            .x_label_area_size(52)
+            .y_label_area_size(74)
+            .build_cartesian_2d(x0..x1, y0..y1)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .light_line_style(RGBColor(0xee, 0xee, 0xee))
+            .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
+            .x_label_formatter(&|x: &f64| super::fmt_num(*x))
+            .y_label_formatter(&|y: &f64| super::fmt_num(*y))
+            .x_desc(v.input.clone())
+            .y_desc("response")
+            .axis_desc_style((FONT, 16))
+            .label_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+        chart
+            .draw_series(
+                v.train_x
+                    .iter()
+                    .zip(&v.train_y)
+                    .filter(|(x, y)| x.is_finite() && y.is_finite())
+                    .map(|(x, y)| Circle::new((*x, *y), 2, STONE.mix(0.55).filled())),
+            )
+            .map_err(draw_err)?;
+        for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
+            let lo: Vec<f64> = c.mean.iter().zip(&c.sd).map(|(m, s)| m - s).collect();
+            let hi: Vec<f64> = c.mean.iter().zip(&c.sd).map(|(m, s)| m + s).collect();
+            let poly = band(&v.x, &lo, &hi);
+            if poly.len() >= 3 {
+                chart
+                    .draw_series(std::iter::once(Polygon::new(
+                        poly,
+                        look.color.mix(0.16).filled(),
+                    )))
+                    .map_err(draw_err)?;
+            }
+        }
+        let tpts: Vec<(f64, f64)> = v.x.iter().copied().zip(v.truth.iter().copied()).collect();
+        chart
+            .draw_series(LineSeries::new(tpts, style(&truth_look)))
+            .map_err(draw_err)?;
+        for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
+            let pts: Vec<(f64, f64)> = v
+                .x
+                .iter()
+                .zip(&c.mean)
+                .filter(|(x, y)| x.is_finite() && y.is_finite())
+                .map(|(x, y)| (*x, *y))
+                .collect();
+            match look.dash {
+                Dash::Solid => chart
+                    .draw_series(LineSeries::new(pts.clone(), style(look)))
+                    .map_err(draw_err)?,
+                Dash::Dashed(on, off) => chart
+                    .draw_series(DashedLineSeries::new(
+                        pts.clone(),
+                        on as i32,
+                        off as i32,
+                        style(look),
+                    ))
+                    .map_err(draw_err)?,
+            };
+            // A few markers along the curve so the styles stay apart in print.
+            let step = (pts.len() / 8).max(1);
+            let offset = step / 2;
+            for &(x, y) in pts.iter().skip(offset).step_by(step) {
+                let (px, py) = chart.backend_coord(&(x, y));
+                marker_at(&root, look.marker, look.color, (px, py))?;
+            }
+        }
+        let mut y = 16;
+        y = panel_text(&panel, "What is drawn", (8, y), 14, INK, 34)? + 8;
+        sample_line(&panel, &truth_look, 10, 58, y + 7)?;
+        y = panel_text(&panel, "truth f", (68, y), 14, INK, 27)?.max(y + 22) + 6;
+        for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
+            sample_line(&panel, look, 10, 58, y + 7)?;
+            let label = format!(
+                "mean prediction, {} = {} ({})",
+                v.knob,
+                fmt_value(c.value),
+                c.role
+            );
+            y = panel_text(&panel, &label, (68, y), 14, INK, 27)?.max(y + 22) + 6;
+        }
+        panel
+            .draw(&Circle::new((34, y + 7), 3, STONE.mix(0.55).filled()))
+            .map_err(draw_err)?;
+        y = panel_text(
+            &panel,
+            "training set of replicate 0",
+            (68, y),
+            14,
+            INK,
+            24,
+        )?
+        .max(y + 22)
+            + 10;
+        let mut note = String::from(
+            "Bands: ±1 standard deviation of the prediction across replicates. A mean curve \
+             that misses the truth is bias (underfitting); a wide band is variance \
+             (overfitting).",
+        );
+        if !v.averaged_over.is_empty() {
+            note.push_str(&format!(
+                " Averaged over {} within bins of {}.",
+                v.averaged_over.join(", "),
+                v.input
+            ));
+        }
+        panel_text(&panel, &note, (8, y), 12, STONE, 38)?;
+        root.present().map_err(draw_err)?;
+    }
+    Ok(buf)
+}
+
+/// What the selection histogram needs: how often cross-validation chose each grid value, and
+/// the oracle best (lowest expected loss).
+#[derive(Debug, Clone, PartialEq)]
+pub struct SelectionView {
+    /// Grid values.
+    pub grid: Vec<f64>,
+    /// How many replicates chose each grid value.
+    pub counts: Vec<u64>,
+    /// The grid value with the lowest expected loss.
+    pub oracle: f64,
+}
+
+impl SelectionView {
+    /// Reads the `selection` section of a result document's JSON, when it is there: an object
+    /// with `chosen_counts` (a list of counts in grid order, a list of `{value, count}` objects,
+    /// or an object from value to count) and `oracle_best` (a number or `{value, ...}`).
+    pub fn from_json(doc: &serde_json::Value) -> Option<SelectionView> {
+        let sel = doc.get("selection")?;
+        let grid: Vec<f64> = doc
+            .get("scenario")?
+            .get("grid")?
+            .as_array()?
+            .iter()
+            .filter_map(|v| v.as_f64())
+            .collect();
+        let cc = sel.get("chosen_counts")?;
+        let mut counts = vec![0u64; grid.len()];
+        let put = |counts: &mut Vec<u64>, value: f64, n: u64| {
+            if let Some(i) = grid.iter().position(|g| *g == value) {
+                counts[i] += n;
+            }
+        };
+        match cc {
+            serde_json::Value::Array(a) if a.iter().all(|v| v.is_number()) => {
+                if a.len() != grid.len() {
+                    return None;
+                }
+                counts = a.iter().map(|v| v.as_u64().unwrap_or(0)).collect();
+            }
+            serde_json::Value::Array(a) => {
+                for e in a {
+                    let value = e.get("value")?.as_f64()?;
+                    let n = e.get("count")?.as_u64()?;
+                    put(&mut counts, value, n);
+                }
+            }
+            serde_json::Value::Object(o) => {
+                for (k, n) in o {
+                    put(&mut counts, k.parse().ok()?, n.as_u64()?);
+                }
+            }
+            _ => return None,
+        }
+        let ob = sel.get("oracle_best")?;
+        let oracle = ob
+            .as_f64()
+            .or_else(|| ob.get("value").and_then(|v| v.as_f64()))?;
+        Some(SelectionView {
+            grid,
+            counts,
+            oracle,
+        })
+    }
+}
+
+/// The selection histogram: one bar per grid value with how often cross-validation chose it; the
+/// oracle best value's bar is dark and labelled.
+pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
+    let g = v.grid.len();
+    if g == 0 || v.counts.len() != g {
+        return Err(Error::Usage(
+            "the selection audit needs one count per grid value".into(),
+        ));
+    }
+    let total: u64 = v.counts.iter().sum();
+    let top = v.counts.iter().copied().max().unwrap_or(0).max(1) as f64;
+    let oracle_i = v.grid.iter().position(|x| *x == v.oracle);
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, SELECTION_SIZE).into_drawing_area();
+        root.fill(&PAPER).map_err(draw_err)?;
+        let (head, body) = root.split_vertically(44);
+        head.draw(&Text::new(
+            format!("Which {knob} cross-validation picked, in {total} replicates"),
+            (18, 14),
+            (FONT, 19).into_font().style(FontStyle::Bold).color(&INK),
+        ))
+        .map_err(draw_err)?;
+        let grid = v.grid.clone();
+        let mut chart = ChartBuilder::on(&body)
+            .margin_left(10)
+            .margin_right(20)
+            .margin_bottom(8)
+            .x_label_area_size(48)
+            .y_label_area_size(64)
+            .build_cartesian_2d(-0.6f64..(g as f64 - 0.4), 0f64..top * 1.18)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .disable_x_mesh()
+            .light_line_style(RGBColor(0xee, 0xee, 0xee))
+            .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
+            .x_labels(g.min(20) * 2 + 1)
+            .x_label_formatter(&|x: &f64| {
+                let i = x.round();
+                if (x - i).abs() < 1e-6 && i >= 0.0 && (i as usize) < grid.len() {
+                    fmt_value(grid[i as usize])
+                } else {
+                    String::new()
+                }
+            })
+            .y_label_formatter(&|y: &f64| format!("{y:.0}"))
+            .x_desc(knob.to_string())
+            .y_desc("replicates choosing it")
+            .axis_desc_style((FONT, 15))
+            .label_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+        for (i, &n) in v.counts.iter().enumerate() {
+            let oracle = Some(i) == oracle_i;
+            let (fill, edge) = if oracle { (INK, INK) } else { (SKY, INK) };
+            let rect = [(i as f64 - 0.36, 0.0), (i as f64 + 0.36, n as f64)];
+            chart
+                .draw_series(std::iter::once(Rectangle::new(rect, fill.mix(0.85).filled())))
+                .map_err(draw_err)?;
+            chart
+                .draw_series(std::iter::once(Rectangle::new(rect, edge.stroke_width(1))))
+                .map_err(draw_err)?;
+            if oracle {
+                let (px, py) = chart.backend_coord(&(i as f64, n as f64));
+                root.draw(&Text::new(
+                    "oracle best",
+                    (px - 34, py - 22),
+                    (FONT, 14).into_font().color(&INK),
+                ))
+                .map_err(draw_err)?;
+            }
+        }
+        root.present().map_err(draw_err)?;
+    }
+    Ok(buf)
+}

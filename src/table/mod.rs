@@ -1,0 +1,942 @@
+//! Real tables: CSV loading and typing ([`load_csv`] → [`Table`]), the scenario side of a
+//! `source = "table"` plan ([`TablePlan`]), resampling decompositions ([`resample`]), noise
+//! estimators ([`noise`]) and the locked holdout with its ledger ([`holdout`]).
+//!
+//! Typing rules of [`load_csv`] (stated here because users see their consequences):
+//! - the first line is a header of column names (a first line made only of numbers is refused);
+//! - a cell is *missing* when it is empty or one of `NA`, `N/A`, `NaN`, `nan`, `null`, `?`;
+//! - a column is *numeric* when at least half of its non-missing cells parse as finite numbers;
+//!   its other cells are then errors (naming column and line) unless `missing = "drop"`;
+//! - any other column is *text*: with at most [`MAX_LEVELS`] distinct levels it is one-hot
+//!   encoded with the first-appearing level as the baseline (drop-first), otherwise an error;
+//! - line numbers are 1-based and count the header as line 1.
+
+pub mod holdout;
+pub mod noise;
+pub mod report;
+pub mod resample;
+
+use std::fmt;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use ndarray::{Array1, Array2};
+
+use crate::error::ScenarioError;
+use crate::family::Task;
+
+/// Most levels a text feature may have before it is refused (one-hot encoding would explode).
+pub const MAX_LEVELS: usize = 20;
+
+/// Cell spellings read as missing.
+pub const MISSING_SPELLINGS: [&str; 6] = ["NA", "N/A", "NaN", "nan", "null", "?"];
+
+/// What to do with a row whose numeric cell is missing or not a number.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Missing {
+    /// Refuse the table, naming column and line (default).
+    #[default]
+    Error,
+    /// Drop the row and report how many were dropped.
+    Drop,
+}
+
+/// How the target column is read.
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
+pub enum TargetKind {
+    /// A numeric response (regression).
+    #[default]
+    Numeric,
+    /// Class labels. `Some(labels)` fixes the labels and their order; `None` takes the target's
+    /// distinct values in order of first appearance.
+    Classes(Option<Vec<String>>),
+}
+
+/// Options of [`load_csv`].
+#[derive(Debug, Clone, Default)]
+pub struct TableOptions {
+    /// Name of the target column.
+    pub target: String,
+    /// Feature columns in order; `None` takes every column but the target.
+    pub features: Option<Vec<String>>,
+    /// Missing or non-numeric cells in numeric columns.
+    pub missing: Missing,
+    /// Regression or classification.
+    pub target_kind: TargetKind,
+    /// Fewest usable rows accepted (at least 3 is always required).
+    pub min_rows: usize,
+}
+
+/// How one text feature column was one-hot encoded.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Encoding {
+    /// The text column.
+    pub column: String,
+    /// Its levels in order of first appearance; `levels[0]` is the baseline (no indicator column),
+    /// `levels[1..]` each get an indicator column named `column=level`.
+    pub levels: Vec<String>,
+}
+
+impl Encoding {
+    /// One line for the output: `door: one-hot, baseline "closed"; indicators "open"`.
+    pub fn describe(&self) -> String {
+        let rest: Vec<String> = self.levels[1..]
+            .iter()
+            .map(|l| format!("\"{l}\""))
+            .collect();
+        format!(
+            "{}: one-hot (drop-first, levels in order of first appearance), baseline \"{}\"; indicators {}",
+            self.column,
+            self.levels[0],
+            if rest.is_empty() {
+                "none (a single level)".to_string()
+            } else {
+                rest.join(", ")
+            }
+        )
+    }
+}
+
+/// A typed table: inputs, response, and how it was read.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Table {
+    /// The file read (for messages).
+    pub path: PathBuf,
+    /// Name of each column of `x` (numeric features by name; indicators as `column=level`).
+    pub names: Vec<String>,
+    /// Inputs, `rows × names.len()`.
+    pub x: Array2<f64>,
+    /// Response: a number (regression) or the class index as `f64` (classification).
+    pub y: Array1<f64>,
+    /// Regression or classification.
+    pub task: Task,
+    /// Class labels, in class-index order (empty for regression).
+    pub labels: Vec<String>,
+    /// The target column's name.
+    pub target: String,
+    /// One-hot encodings of the text features, in feature order.
+    pub encodings: Vec<Encoding>,
+    /// Rows dropped under `missing = "drop"`.
+    pub dropped_rows: usize,
+    /// The file line (1-based, header = 1) of each kept row.
+    pub lines: Vec<usize>,
+}
+
+impl Table {
+    /// Number of rows.
+    pub fn rows(&self) -> usize {
+        self.y.len()
+    }
+
+    /// The rows `idx` as a new table (same columns and encodings).
+    pub fn select(&self, idx: &[usize]) -> Table {
+        Table {
+            path: self.path.clone(),
+            names: self.names.clone(),
+            x: self.x.select(ndarray::Axis(0), idx),
+            y: self.y.select(ndarray::Axis(0), idx),
+            task: self.task,
+            labels: self.labels.clone(),
+            target: self.target.clone(),
+            encodings: self.encodings.clone(),
+            dropped_rows: self.dropped_rows,
+            lines: idx.iter().map(|&i| self.lines[i]).collect(),
+        }
+    }
+}
+
+/// A table that cannot be used: the file, the line and column when known, and what is wrong.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct TableError {
+    /// The file as given.
+    pub file: String,
+    /// 1-based line (header = 1), when the fault is in one line.
+    pub line: Option<usize>,
+    /// The column at fault, when one is.
+    pub column: Option<String>,
+    /// What is wrong, and how to fix it where useful.
+    pub message: String,
+}
+
+impl fmt::Display for TableError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(f, "{}", self.file)?;
+        if let Some(l) = self.line {
+            write!(f, ":{l}")?;
+        }
+        write!(f, ": ")?;
+        if let Some(c) = &self.column {
+            write!(f, "column `{c}`: ")?;
+        }
+        write!(f, "{}", self.message)
+    }
+}
+
+impl std::error::Error for TableError {}
+
+impl From<TableError> for ScenarioError {
+    fn from(e: TableError) -> Self {
+        ScenarioError {
+            file: e.file,
+            line: e.line,
+            key: None,
+            message: match e.column {
+                Some(c) => format!("column `{c}`: {}", e.message),
+                None => e.message,
+            },
+        }
+    }
+}
+
+impl From<TableError> for crate::error::Error {
+    fn from(e: TableError) -> Self {
+        crate::error::Error::Scenario(e.into())
+    }
+}
+
+fn is_missing(cell: &str) -> bool {
+    cell.is_empty() || MISSING_SPELLINGS.contains(&cell)
+}
+
+fn number(cell: &str) -> Option<f64> {
+    cell.parse::<f64>().ok().filter(|v| v.is_finite())
+}
+
+/// Reads and types a CSV file with a header. See the module docs for the typing rules.
+pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
+    let file = path.display().to_string();
+    let err = |line: Option<usize>, column: Option<&str>, message: String| TableError {
+        file: file.clone(),
+        line,
+        column: column.map(str::to_string),
+        message,
+    };
+    let bytes = std::fs::read(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+    if bytes.iter().all(|b| b.is_ascii_whitespace()) {
+        return Err(err(
+            None,
+            None,
+            "the file is empty; a table needs a header line and data rows".into(),
+        ));
+    }
+    let mut rdr = csv::ReaderBuilder::new()
+        .has_headers(true)
+        .trim(csv::Trim::All)
+        .from_reader(bytes.as_slice());
+    let header: Vec<String> = rdr
+        .headers()
+        .map_err(|e| err(Some(1), None, format!("cannot read the header: {e}")))?
+        .iter()
+        .map(str::to_string)
+        .collect();
+    if header.iter().all(|h| number(h).is_some() || h.is_empty()) {
+        return Err(err(
+            Some(1),
+            None,
+            "no header: the first line must name the columns (it holds numbers or nothing)".into(),
+        ));
+    }
+    for (i, h) in header.iter().enumerate() {
+        if h.is_empty() {
+            return Err(err(
+                Some(1),
+                None,
+                format!("column {} has an empty name", i + 1),
+            ));
+        }
+        if header[..i].contains(h) {
+            return Err(err(Some(1), Some(h), "appears twice in the header".into()));
+        }
+    }
+    let col_of = |name: &str, what: &str| -> Result<usize, TableError> {
+        header.iter().position(|h| h == name).ok_or_else(|| {
+            err(
+                Some(1),
+                None,
+                format!(
+                    "no {what} column `{name}`; the columns are: {}",
+                    header.join(", ")
+                ),
+            )
+        })
+    };
+    if opts.target.is_empty() {
+        return Err(err(None, None, "no target column named".into()));
+    }
+    let target_col = col_of(&opts.target, "target")?;
+    let feature_cols: Vec<usize> = match &opts.features {
+        Some(fs) => {
+            let mut out = Vec::with_capacity(fs.len());
+            for f in fs {
+                let c = col_of(f, "feature")?;
+                if c == target_col {
+                    return Err(err(
+                        None,
+                        Some(f),
+                        "is the target; it cannot also be a feature".into(),
+                    ));
+                }
+                if out.contains(&c) {
+                    return Err(err(None, Some(f), "is listed twice in `features`".into()));
+                }
+                out.push(c);
+            }
+            out
+        }
+        None => (0..header.len()).filter(|&c| c != target_col).collect(),
+    };
+    if feature_cols.is_empty() {
+        return Err(err(
+            None,
+            None,
+            "no feature columns: the table needs at least one column besides the target".into(),
+        ));
+    }
+
+    // Read every record once (as text), with its line.
+    let mut cells: Vec<Vec<String>> = Vec::new();
+    let mut lines: Vec<usize> = Vec::new();
+    for rec in rdr.records() {
+        let rec = rec.map_err(|e| {
+            let line = e.position().map(|p| p.line() as usize);
+            err(line, None, format!("{}", e).replace('\n', " "))
+        })?;
+        let line = rec.position().map(|p| p.line() as usize).unwrap_or(0);
+        if rec.iter().all(|c| c.is_empty()) {
+            continue;
+        }
+        cells.push(rec.iter().map(str::to_string).collect());
+        lines.push(line);
+    }
+    if cells.is_empty() {
+        return Err(err(
+            None,
+            None,
+            "the file has a header but no data rows".into(),
+        ));
+    }
+
+    // Type the used columns.
+    let numeric = |c: usize| -> bool {
+        let present: Vec<&str> = cells
+            .iter()
+            .map(|r| r[c].as_str())
+            .filter(|s| !is_missing(s))
+            .collect();
+        let nums = present.iter().filter(|s| number(s).is_some()).count();
+        !present.is_empty() && 2 * nums >= present.len()
+    };
+    let classify = matches!(opts.target_kind, TargetKind::Classes(_));
+    let mut used: Vec<(usize, bool)> = feature_cols.iter().map(|&c| (c, numeric(c))).collect();
+    used.push((target_col, classify || numeric(target_col)));
+    if !classify && !used.last().map(|u| u.1).unwrap_or(false) {
+        return Err(err(
+            None,
+            Some(&opts.target),
+            "the target is not numeric; for class labels add `task = \"classify\"` or [data.classes]"
+                .into(),
+        ));
+    }
+
+    // Row filter: missing or non-numeric cells in numeric columns (and missing text cells).
+    let mut keep = vec![true; cells.len()];
+    let mut dropped = 0usize;
+    for (ri, row) in cells.iter().enumerate() {
+        for &(c, is_num) in &used {
+            let cell = row[c].as_str();
+            let is_target_label = c == target_col && classify;
+            let bad = if is_missing(cell) {
+                Some("is missing a value".to_string())
+            } else if is_num && !is_target_label && number(cell).is_none() {
+                Some(format!("`{cell}` is not a number (the column is numeric)"))
+            } else {
+                None
+            };
+            if let Some(why) = bad {
+                match opts.missing {
+                    Missing::Error => {
+                        return Err(err(
+                            Some(lines[ri]),
+                            Some(&header[c]),
+                            format!("{why}; fix the cell or set `missing = \"drop\"` in [data]"),
+                        ))
+                    }
+                    Missing::Drop => {
+                        keep[ri] = false;
+                        dropped += 1;
+                        break;
+                    }
+                }
+            }
+        }
+    }
+    let rows: Vec<usize> = (0..cells.len()).filter(|&i| keep[i]).collect();
+    let min_rows = opts.min_rows.max(3);
+    if rows.len() < min_rows {
+        return Err(err(
+            None,
+            None,
+            format!(
+                "only {} usable rows{}; at least {min_rows} are needed",
+                rows.len(),
+                if dropped > 0 {
+                    format!(" after dropping {dropped}")
+                } else {
+                    String::new()
+                }
+            ),
+        ));
+    }
+
+    // Build the feature matrix.
+    let mut names = Vec::new();
+    let mut encodings = Vec::new();
+    let mut columns: Vec<Vec<f64>> = Vec::new();
+    for &(c, is_num) in &used[..used.len() - 1] {
+        if is_num {
+            names.push(header[c].clone());
+            columns.push(
+                rows.iter()
+                    .map(|&r| number(&cells[r][c]).unwrap_or(f64::NAN))
+                    .collect(),
+            );
+        } else {
+            let mut levels: Vec<String> = Vec::new();
+            for &r in &rows {
+                let v = &cells[r][c];
+                if !levels.contains(v) {
+                    if levels.len() == MAX_LEVELS {
+                        return Err(err(
+                            Some(lines[r]),
+                            Some(&header[c]),
+                            format!(
+                                "is a text column with more than {MAX_LEVELS} distinct values; \
+                                 one-hot encoding takes at most {MAX_LEVELS}: leave it out of `features` \
+                                 or recode it as numbers"
+                            ),
+                        ));
+                    }
+                    levels.push(v.clone());
+                }
+            }
+            for l in &levels[1..] {
+                names.push(format!("{}={l}", header[c]));
+                columns.push(
+                    rows.iter()
+                        .map(|&r| if &cells[r][c] == l { 1.0 } else { 0.0 })
+                        .collect(),
+                );
+            }
+            encodings.push(Encoding {
+                column: header[c].clone(),
+                levels,
+            });
+        }
+    }
+    let n = rows.len();
+    let p = columns.len();
+    if p == 0 {
+        return Err(err(
+            None,
+            None,
+            "the features give no input columns (text features with a single level only)".into(),
+        ));
+    }
+    let mut x = Array2::<f64>::zeros((n, p));
+    for (j, col) in columns.iter().enumerate() {
+        for (i, v) in col.iter().enumerate() {
+            x[[i, j]] = *v;
+        }
+    }
+
+    // The target.
+    let (y, task, labels) = match &opts.target_kind {
+        TargetKind::Numeric => {
+            let y: Vec<f64> = rows
+                .iter()
+                .map(|&r| number(&cells[r][target_col]).unwrap_or(f64::NAN))
+                .collect();
+            if y.iter().all(|v| *v == y[0]) {
+                return Err(err(
+                    None,
+                    Some(&opts.target),
+                    format!(
+                        "the target is constant ({}); there is nothing to decompose",
+                        y[0]
+                    ),
+                ));
+            }
+            (Array1::from(y), Task::Regress, Vec::new())
+        }
+        TargetKind::Classes(given) => {
+            let mut labels: Vec<String> = given.clone().unwrap_or_default();
+            let mut y = Vec::with_capacity(n);
+            for &r in &rows {
+                let v = &cells[r][target_col];
+                let k = match labels.iter().position(|l| l == v) {
+                    Some(k) => k,
+                    None if given.is_none() => {
+                        labels.push(v.clone());
+                        labels.len() - 1
+                    }
+                    None => {
+                        return Err(err(
+                            Some(lines[r]),
+                            Some(&opts.target),
+                            format!(
+                                "label `{v}` is not one of [data.classes] labels: {}",
+                                labels.join(", ")
+                            ),
+                        ))
+                    }
+                };
+                y.push(k as f64);
+            }
+            let distinct = {
+                let mut seen = vec![false; labels.len()];
+                y.iter().for_each(|&k| seen[k as usize] = true);
+                seen.iter().filter(|&&s| s).count()
+            };
+            if distinct < 2 {
+                return Err(err(
+                    None,
+                    Some(&opts.target),
+                    "the target is constant (a single class); there is nothing to classify".into(),
+                ));
+            }
+            if labels.len() < 2 {
+                return Err(err(
+                    None,
+                    Some(&opts.target),
+                    "needs at least 2 class labels".into(),
+                ));
+            }
+            let k = labels.len();
+            (Array1::from(y), Task::Classify { classes: k }, labels)
+        }
+    };
+
+    Ok(Table {
+        path: path.to_path_buf(),
+        names,
+        x,
+        y,
+        task,
+        labels,
+        target: opts.target.clone(),
+        encodings,
+        dropped_rows: dropped,
+        lines: rows.iter().map(|&r| lines[r]).collect(),
+    })
+}
+
+/// The resampling scheme of a table decomposition.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Scheme {
+    /// n rows drawn with replacement; evaluation out-of-bag.
+    Bootstrap,
+    /// `fraction` of the rows drawn without replacement; evaluation on the rest.
+    Subsample {
+        /// Training fraction, in (0, 1).
+        fraction: f64,
+    },
+}
+
+impl Scheme {
+    /// Training rows per replicate out of `n` working rows.
+    pub fn train_size(&self, n: usize) -> usize {
+        match self {
+            Scheme::Bootstrap => n,
+            Scheme::Subsample { fraction } => {
+                ((fraction * n as f64).round() as usize).clamp(1, n.saturating_sub(1).max(1))
+            }
+        }
+    }
+
+    /// Name as written in scenario files.
+    pub fn name(&self) -> &'static str {
+        match self {
+            Scheme::Bootstrap => "bootstrap",
+            Scheme::Subsample { fraction } if *fraction == 0.5 => "half",
+            Scheme::Subsample { .. } => "subsample",
+        }
+    }
+
+    /// The known distortion the scheme carries, in one or two sentences.
+    pub fn note(&self, n: usize) -> String {
+        match self {
+            Scheme::Bootstrap => {
+                let distinct = 1.0 - (1.0 - 1.0 / n as f64).powi(n as i32);
+                format!(
+                    "bootstrap: each training set draws {n} rows with replacement and holds about {:.1}% distinct rows \
+                     (1 - (1 - 1/n)^n), so each row is out-of-bag in about {:.1}% of replicates; a model sees fewer \
+                     distinct points than n, which tends to inflate variance and bias relative to fresh samples of size n",
+                    100.0 * distinct,
+                    100.0 * (1.0 - distinct)
+                )
+            }
+            Scheme::Subsample { .. } => {
+                let m = self.train_size(n);
+                format!(
+                    "subsampling {m} of {n} rows without replacement: training sets overlap, which scales the variance \
+                     of a mean by about (1 - m/N) = {:.3} (finite population correction, Cochran, Sampling Techniques), \
+                     so variance is understated relative to independent samples of size {m}",
+                    1.0 - m as f64 / n as f64
+                )
+            }
+        }
+    }
+}
+
+/// The resolved `[data]` section of a table scenario.
+#[derive(Debug, Clone)]
+pub struct TablePlan {
+    /// The whole table (holdout rows included).
+    pub table: Arc<Table>,
+    /// Resampling scheme.
+    pub scheme: Scheme,
+    /// Holdout fraction as written (0 = none).
+    pub holdout_fraction: f64,
+    /// Row indices of the locked holdout (sorted).
+    pub holdout: Vec<usize>,
+    /// Row indices the decomposition uses (sorted; everything not in the holdout).
+    pub work: Vec<usize>,
+    /// Noise estimator.
+    pub noise_method: noise::Method,
+}
+
+impl TablePlan {
+    /// Training rows per replicate.
+    pub fn train_size(&self) -> usize {
+        self.scheme.train_size(self.work.len())
+    }
+
+    /// The working rows (not the holdout) as a table.
+    pub fn work_table(&self) -> Table {
+        self.table.select(&self.work)
+    }
+}
+
+/// Options read from a `[data]` section with `source = "table"`, already checked for syntax.
+/// [`crate::scenario::Plan::from_spec`] builds this from the spec and calls [`plan_table`].
+#[derive(Debug, Clone)]
+pub struct TableRequest {
+    /// The CSV file, resolved against the scenario's folder.
+    pub path: PathBuf,
+    /// Loader options.
+    pub options: TableOptions,
+    /// Resampling scheme.
+    pub scheme: Scheme,
+    /// Holdout fraction in [0, 0.9].
+    pub holdout: f64,
+    /// Noise estimator (`None` chooses: GSJS with one input, nearest neighbour otherwise).
+    pub noise_method: Option<noise::Method>,
+    /// Seed of the holdout stream (the file's seed, so `--seed` does not move the holdout).
+    pub holdout_seed: u64,
+}
+
+/// Loads the table and locks the holdout.
+pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
+    let table = load_csv(&req.path, &req.options)?;
+    let holdout = holdout::choose(&table, req.holdout, req.holdout_seed);
+    let mut is_h = vec![false; table.rows()];
+    holdout.iter().for_each(|&i| is_h[i] = true);
+    let work: Vec<usize> = (0..table.rows()).filter(|&i| !is_h[i]).collect();
+    let file = req.path.display().to_string();
+    if work.len() < 4 || req.scheme.train_size(work.len()) < 2 {
+        return Err(TableError {
+            file,
+            line: None,
+            column: None,
+            message: format!(
+                "only {} rows outside the holdout; at least 4 are needed for a resampling decomposition",
+                work.len()
+            ),
+        });
+    }
+    let noise_method = req.noise_method.unwrap_or(if table.x.ncols() == 1 {
+        noise::Method::Gsjs
+    } else {
+        noise::Method::NearestNeighbour
+    });
+    if noise_method == noise::Method::Gsjs && table.x.ncols() != 1 {
+        return Err(TableError {
+            file,
+            line: None,
+            column: None,
+            message: format!(
+                "the GSJS noise estimator needs exactly one input column; this table has {} ({}); use `nn` or `gamma`",
+                table.x.ncols(),
+                table.names.join(", ")
+            ),
+        });
+    }
+    Ok(TablePlan {
+        table: Arc::new(table),
+        scheme: req.scheme,
+        holdout_fraction: req.holdout,
+        holdout,
+        work,
+        noise_method,
+    })
+}
+
+fn spanned_err<T>(
+    src: &str,
+    file: &str,
+    v: Option<&toml::Spanned<T>>,
+    key: &str,
+    message: impl Into<String>,
+) -> ScenarioError {
+    ScenarioError {
+        file: file.to_string(),
+        line: v.map(|s| crate::scenario::line_of(src, s.span().start)),
+        key: Some(key.to_string()),
+        message: message.into(),
+    }
+}
+
+/// Refuses the table keys of `[data]` in a non-table source (they would be ignored silently).
+pub fn reject_table_keys(
+    d: &crate::scenario::spec::DataSpec,
+    src: &str,
+    file: &str,
+) -> Result<(), ScenarioError> {
+    let source = d.source.get_ref();
+    let check = |present: Option<std::ops::Range<usize>>, key: &str| match present {
+        Some(span) => Err(ScenarioError {
+            file: file.to_string(),
+            line: Some(crate::scenario::line_of(src, span.start)),
+            key: Some(format!("data.{key}")),
+            message: format!("belongs to `source = \"table\"`; a {source} source does not use it"),
+        }),
+        None => Ok(()),
+    };
+    check(d.path.as_ref().map(|s| s.span()), "path")?;
+    check(d.target.as_ref().map(|s| s.span()), "target")?;
+    check(d.features.as_ref().map(|s| s.span()), "features")?;
+    check(d.resample.as_ref().map(|s| s.span()), "resample")?;
+    check(d.train_fraction.as_ref().map(|s| s.span()), "train_fraction")?;
+    check(d.holdout.as_ref().map(|s| s.span()), "holdout")?;
+    check(d.missing.as_ref().map(|s| s.span()), "missing")?;
+    check(d.task.as_ref().map(|s| s.span()), "task")?;
+    check(
+        d.noise_estimator.as_ref().map(|s| s.span()),
+        "noise_estimator",
+    )
+}
+
+/// Builds the table source of a scenario from its `[data]` section: checks the keys (errors name
+/// file, line and key), resolves `path` against `base` (the scenario's folder), loads the table
+/// and locks the holdout with `holdout_seed` (the file's seed, so that `--seed` does not move it).
+pub fn from_spec(
+    d: &crate::scenario::spec::DataSpec,
+    src: &str,
+    file: &str,
+    base: &Path,
+    holdout_seed: u64,
+) -> Result<TablePlan, ScenarioError> {
+    let e = |v: Option<&toml::Spanned<String>>, key: &str, m: String| {
+        spanned_err(src, file, v, key, m)
+    };
+    let src_span = Some(&d.source);
+    let unused: [(bool, &str); 6] = [
+        (d.train_size.is_some(), "train_size"),
+        (d.eval_size.is_some(), "eval_size"),
+        (d.design.is_some(), "design"),
+        (d.eval.is_some(), "eval"),
+        (d.inputs.is_some(), "inputs"),
+        (d.truth.is_some() || d.noise.is_some(), "truth"),
+    ];
+    for (present, key) in unused {
+        if present {
+            return Err(e(
+                src_span,
+                &format!("data.{key}"),
+                format!("a table source takes its rows, inputs and responses from the file; remove `{key}`"),
+            ));
+        }
+    }
+    let Some(path) = &d.path else {
+        return Err(e(
+            src_span,
+            "data.path",
+            "a table source needs `path` (the CSV file, relative to this scenario's folder)".into(),
+        ));
+    };
+    let Some(target) = &d.target else {
+        return Err(e(
+            src_span,
+            "data.target",
+            "a table source needs `target` (the response column's name)".into(),
+        ));
+    };
+    let missing = match d.missing.as_ref().map(|s| s.get_ref().as_str()) {
+        None | Some("error") => Missing::Error,
+        Some("drop") => Missing::Drop,
+        Some(other) => {
+            return Err(e(
+                d.missing.as_ref(),
+                "data.missing",
+                format!("unknown value `{other}`; expected `error` or `drop`"),
+            ))
+        }
+    };
+    let classify = match d.task.as_ref().map(|s| s.get_ref().as_str()) {
+        None => d.classes.is_some(),
+        Some("classify") => true,
+        Some("regress") => {
+            if d.classes.is_some() {
+                return Err(e(
+                    d.task.as_ref(),
+                    "data.task",
+                    "`regress` contradicts [data.classes]".into(),
+                ));
+            }
+            false
+        }
+        Some(other) => {
+            return Err(e(
+                d.task.as_ref(),
+                "data.task",
+                format!("unknown task `{other}`; expected `regress` or `classify`"),
+            ))
+        }
+    };
+    let target_kind = if classify {
+        match &d.classes {
+            Some(c) => {
+                if c.probability.is_some()
+                    || c.logits.is_some()
+                    || c.rule.is_some()
+                    || c.flip.is_some()
+                {
+                    return Err(spanned_err(
+                        src,
+                        file,
+                        Some(&c.labels),
+                        "data.classes",
+                        "a table's classes come from the target column: give only `labels`",
+                    ));
+                }
+                let labels = c.labels.get_ref().clone();
+                if labels.len() < 2 {
+                    return Err(spanned_err(
+                        src,
+                        file,
+                        Some(&c.labels),
+                        "data.classes.labels",
+                        format!("needs at least 2 labels, got {}", labels.len()),
+                    ));
+                }
+                TargetKind::Classes(Some(labels))
+            }
+            None => TargetKind::Classes(None),
+        }
+    } else {
+        TargetKind::Numeric
+    };
+    let scheme = match d.resample.as_ref().map(|s| s.get_ref().as_str()) {
+        None | Some("bootstrap") => {
+            if let Some(f) = &d.train_fraction {
+                return Err(spanned_err(
+                    src,
+                    file,
+                    Some(f),
+                    "data.train_fraction",
+                    "goes with `resample = \"half\"` (a bootstrap draws n rows with replacement)",
+                ));
+            }
+            Scheme::Bootstrap
+        }
+        Some("half") => {
+            let fraction = match &d.train_fraction {
+                Some(f) => {
+                    let v = *f.get_ref();
+                    if !(v > 0.0 && v < 1.0) {
+                        return Err(spanned_err(
+                            src,
+                            file,
+                            Some(f),
+                            "data.train_fraction",
+                            format!("must be strictly between 0 and 1, got {v}"),
+                        ));
+                    }
+                    v
+                }
+                None => 0.5,
+            };
+            Scheme::Subsample { fraction }
+        }
+        Some(other) => {
+            return Err(e(
+                d.resample.as_ref(),
+                "data.resample",
+                format!("unknown scheme `{other}`; expected `bootstrap` or `half`"),
+            ))
+        }
+    };
+    let holdout = match &d.holdout {
+        Some(h) => {
+            let v = *h.get_ref();
+            if !(0.0..=0.9).contains(&v) {
+                return Err(spanned_err(
+                    src,
+                    file,
+                    Some(h),
+                    "data.holdout",
+                    format!("must be between 0 and 0.9, got {v}"),
+                ));
+            }
+            v
+        }
+        None => 0.0,
+    };
+    let noise_method = match &d.noise_estimator {
+        Some(s) => Some(noise::Method::from_name(s.get_ref()).ok_or_else(|| {
+            e(
+                Some(s),
+                "data.noise_estimator",
+                format!(
+                    "unknown estimator `{}`; expected `nn`, `gamma` or `gsjs`",
+                    s.get_ref()
+                ),
+            )
+        })?),
+        None => None,
+    };
+    if noise_method.is_some() && classify {
+        return Err(e(
+            d.noise_estimator.as_ref(),
+            "data.noise_estimator",
+            "noise estimators apply to a numeric target; with classes the bias is measured against the observed labels (noise folded in)".into(),
+        ));
+    }
+    let req = TableRequest {
+        path: base.join(path.get_ref()),
+        options: TableOptions {
+            target: target.get_ref().clone(),
+            features: d.features.as_ref().map(|f| f.get_ref().clone()),
+            missing,
+            target_kind,
+            min_rows: 5,
+        },
+        scheme,
+        holdout,
+        noise_method,
+        holdout_seed,
+    };
+    let plan = plan_table(&req).map_err(|err| {
+        // A missing file is the scenario's fault: point at `path`.
+        if err.line.is_none() && err.column.is_none() && err.message.starts_with("cannot read") {
+            e(
+                Some(path),
+                "data.path",
+                format!("{}: {}", req.path.display(), err.message),
+            )
+        } else {
+            err.into()
+        }
+    })?;
+    Ok(plan)
+}

@@ -1,0 +1,358 @@
+//! The external-process family end to end: the standard-library Python k-NN example
+//! (`docs/examples/knn_stdlib.py`) against the built-in `knn` family, exact number exchange with
+//! Python, the optional scikit-learn example, and misbehaving processes (crash, wrong count,
+//! non-numeric output, no answer): each a one-line error with exit 2, fast, with no process left.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::time::Instant;
+
+use lossprism::family::external::{format_number, parse_number};
+use lossprism::report::{self, ResultDoc};
+use lossprism::runner;
+use lossprism::scenario::{self, PlanOptions};
+
+fn repo() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+}
+
+fn python_ok() -> bool {
+    Command::new("python3")
+        .arg("--version")
+        .output()
+        .is_ok_and(|o| o.status.success())
+}
+
+/// Regression scenario (invented: a packing line's fill weight against two settings).
+fn regression(model: &str) -> String {
+    format!(
+        r#"name = "fill-weight"
+seed = 17
+replicates = 24
+
+[data]
+source = "synthetic"
+train_size = 50
+eval_size = 25
+
+[[data.inputs]]
+name = "speed"
+uniform = [0.0, 1.0]
+[[data.inputs]]
+name = "temp"
+normal = [0.0, 1.0]
+
+[data.truth]
+formula = "sin(3*speed) + 0.5*temp"
+
+[data.noise]
+sd = 0.4
+
+[model]
+{model}
+grid = [1, 2, 3, 7, 15, 50]
+"#
+    )
+}
+
+/// Two-class scenario with a rounded input (distance ties) for the vote tie rule.
+fn classification(model: &str) -> String {
+    format!(
+        r#"name = "bruise-check"
+seed = 23
+replicates = 20
+
+[data]
+source = "synthetic"
+train_size = 40
+eval_size = 30
+
+[[data.inputs]]
+name = "firmness"
+even = [0.0, 1.0]
+
+[data.classes]
+labels = ["sound", "bruised"]
+probability = "1/(1+exp(-(6*firmness - 3)))"
+
+[model]
+{model}
+grid = [1, 2, 4, 9]
+"#
+    )
+}
+
+fn run_text(dir: &Path, name: &str, text: &str) -> ResultDoc {
+    let path = dir.join(name);
+    std::fs::write(&path, text).unwrap();
+    let plan = scenario::load(&path, &PlanOptions::default()).expect("plans");
+    let outcome = runner::run(&plan, 2).expect("runs");
+    report::build(&plan, &outcome)
+}
+
+fn rel(a: f64, b: f64) -> f64 {
+    if a == b {
+        0.0
+    } else {
+        (a - b).abs() / a.abs().max(b.abs())
+    }
+}
+
+/// Every number of the decomposition rows, in a fixed order.
+fn numbers(doc: &ResultDoc) -> Vec<f64> {
+    let v = serde_json::to_value(&doc.points).unwrap();
+    let mut out = Vec::new();
+    fn walk(v: &serde_json::Value, out: &mut Vec<f64>) {
+        match v {
+            serde_json::Value::Number(n) => out.push(n.as_f64().unwrap()),
+            serde_json::Value::Array(a) => a.iter().for_each(|x| walk(x, out)),
+            serde_json::Value::Object(m) => m.values().for_each(|x| walk(x, out)),
+            _ => {}
+        }
+    }
+    walk(&v, &mut out);
+    out
+}
+
+// Reference: the built-in `knn` family (itself checked against ESL eq. 7.10 and brute force).
+// The Python example uses the same neighbour order (squared distance accumulated input by
+// input, ties by training row index), the same running sums nearest-first and the same vote
+// tie rule, and numbers cross the pipe exactly, so the predictions are the same floats; 1e-9
+// relative allows only for a different summation order, which does not occur here (the two
+// agree bit for bit in practice).
+#[test]
+fn stdlib_knn_matches_builtin_knn() {
+    if !python_ok() {
+        println!("skipped: python3 is not available");
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let script = repo().join("docs/examples/knn_stdlib.py");
+    let ext = format!(
+        "family = \"external\"\ncommand = [\"python3\", {:?}]\nknob = \"k\"",
+        script.display().to_string()
+    );
+    for (make, what) in [
+        (regression as fn(&str) -> String, "regression"),
+        (classification, "classification"),
+    ] {
+        let a = run_text(dir.path(), "ext.toml", &make(&ext));
+        let b = run_text(dir.path(), "knn.toml", &make("family = \"knn\""));
+        assert_eq!(a.family, "external");
+        assert_eq!(a.knob, "k");
+        let (na, nb) = (numbers(&a), numbers(&b));
+        assert_eq!(na.len(), nb.len());
+        let worst = na
+            .iter()
+            .zip(&nb)
+            .map(|(x, y)| rel(*x, *y))
+            .fold(0.0, f64::max);
+        println!(
+            "{what}: largest relative difference {worst:e} over {} numbers",
+            na.len()
+        );
+        assert!(worst <= 1e-9, "{what}: {worst}");
+    }
+}
+
+// Exact identity: 17 significant digits identify every binary64 value and both Python's
+// `float()`/`repr()` and Rust's parser round correctly, so numbers survive the round trip
+// lossprism -> Python -> lossprism bit for bit.
+#[test]
+fn numbers_round_trip_through_python() {
+    if !python_ok() {
+        println!("skipped: python3 is not available");
+        return;
+    }
+    let mut state = 0x1234_5678_9abc_def0u64;
+    let mut values = vec![
+        0.0,
+        -0.0,
+        0.1,
+        1.0 / 3.0,
+        5e-324,
+        f64::MAX,
+        f64::MIN_POSITIVE,
+    ];
+    while values.len() < 3000 {
+        // xorshift64 (Marsaglia 2003) over raw bit patterns: every exponent range appears.
+        state ^= state << 13;
+        state ^= state >> 7;
+        state ^= state << 17;
+        let v = f64::from_bits(state);
+        if v.is_finite() {
+            values.push(v);
+        }
+    }
+    let input: String = values.iter().map(|v| format_number(*v) + "\n").collect();
+    let mut child = Command::new("python3")
+        .args([
+            "-c",
+            "import sys\nfor l in sys.stdin:\n    print(repr(float(l)))",
+        ])
+        .stdin(std::process::Stdio::piped())
+        .stdout(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(input.as_bytes())
+        .unwrap();
+    let out = child.wait_with_output().unwrap();
+    let back: Vec<f64> = String::from_utf8(out.stdout)
+        .unwrap()
+        .lines()
+        .map(|l| parse_number(l).unwrap())
+        .collect();
+    assert_eq!(back.len(), values.len());
+    for (a, b) in values.iter().zip(&back) {
+        assert_eq!(a.to_bits(), b.to_bits(), "{a:e} came back as {b:e}");
+    }
+}
+
+#[test]
+fn sklearn_example_runs_when_available() {
+    let ok = Command::new("python3")
+        .args(["-c", "import sklearn, numpy"])
+        .output()
+        .is_ok_and(|o| o.status.success());
+    if !ok {
+        println!("skipped: scikit-learn/numpy are not importable by python3 (docs/examples/sklearn_tree.py not run)");
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let script = repo().join("docs/examples/sklearn_tree.py");
+    let ext = format!(
+        "family = \"external\"\ncommand = [\"python3\", {:?}]\nknob = \"max_depth\"",
+        script.display().to_string()
+    );
+    let text = regression(&ext).replace("[1, 2, 3, 7, 15, 50]", "[1, 2, 4, 8]");
+    let doc = run_text(dir.path(), "sk.toml", &text);
+    assert_eq!(doc.points.len(), 4);
+    // Deeper trees fit the training set more closely: more variance than a stump.
+    assert!(doc.points[3].variance > doc.points[0].variance);
+}
+
+/// A misbehaving estimator: answers `good` fits correctly-shaped (constant 0.5), then
+/// misbehaves as `mode` says.
+const BAD: &str = r#"
+import sys, time
+mode, good = sys.argv[1], int(sys.argv[2])
+inp, out = sys.stdin, sys.stdout
+inp.readline()
+out.write("ready 1\n"); out.flush()
+done = 0
+while True:
+    head = inp.readline().split()
+    if not head:
+        sys.exit(0)
+    rid, m, g = head[1], int(head[7]), int(head[8])
+    while inp.readline().strip() != "end":
+        pass
+    if done >= good:
+        if mode == "crash":
+            raise RuntimeError("simulated crash in the estimator")
+        if mode == "sleep":
+            time.sleep(120)
+        if mode == "count":
+            m -= 1
+        if mode == "text":
+            out.write("ok %s\n" % rid)
+            out.write("pred " + " ".join(["0.5"] * (m - 1) + ["oops"]) + "\n")
+            out.flush()
+            continue
+    out.write("ok %s\n" % rid)
+    for _ in range(g):
+        out.write("pred " + " ".join(["0.5"] * m) + "\n")
+    out.flush()
+    done += 1
+"#;
+
+fn leftover(tag: &str) -> bool {
+    Command::new("pgrep")
+        .args(["-f", tag])
+        .output()
+        .is_ok_and(|o| o.status.success())
+}
+
+/// Runs the CLI on a scenario whose process misbehaves; returns (exit code, stderr, seconds).
+fn misbehave(mode: &str, good: u32, timeout: Option<u32>) -> (i32, String, f64, String) {
+    let dir = tempfile::tempdir().unwrap();
+    let tag = format!("lp_ext_{mode}_{}", std::process::id());
+    let script = format!("{tag}.py");
+    std::fs::write(dir.path().join(&script), BAD).unwrap();
+    let mut model = format!(
+        "family = \"external\"\ncommand = [\"python3\", \"{script}\", \"{mode}\", \"{good}\"]\nknob = \"k\""
+    );
+    if let Some(t) = timeout {
+        model.push_str(&format!("\ntimeout_seconds = {t}"));
+    }
+    std::fs::write(dir.path().join("s.toml"), regression(&model)).unwrap();
+    let start = Instant::now();
+    let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .args(["run", "s.toml", "--threads", "2"])
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    let secs = start.elapsed().as_secs_f64();
+    let err = String::from_utf8_lossy(&out.stderr).into_owned();
+    assert!(
+        !leftover(&tag),
+        "{mode}: a process running {script} is still alive"
+    );
+    (out.status.code().unwrap_or(-1), err, secs, script)
+}
+
+fn assert_clean_failure(mode: &str, good: u32, timeout: Option<u32>, needle: &str, max_secs: f64) {
+    if !python_ok() {
+        println!("skipped: python3 is not available");
+        return;
+    }
+    let (code, err, secs, script) = misbehave(mode, good, timeout);
+    println!("{mode} ({secs:.2} s): {err}");
+    assert_eq!(code, 2, "{mode}: {err}");
+    assert_eq!(
+        err.trim_end().lines().count(),
+        1,
+        "{mode}: not one line: {err}"
+    );
+    assert!(
+        err.contains(&format!(
+            "external process `python3 {script} {mode} {good}`"
+        )),
+        "{mode}: command not named: {err}"
+    );
+    assert!(err.contains("request"), "{mode}: request not named: {err}");
+    assert!(err.contains(needle), "{mode}: {err}");
+    assert!(secs < max_secs, "{mode}: took {secs} s");
+}
+
+#[test]
+fn crash_mid_run_is_a_clear_error() {
+    assert_clean_failure("crash", 3, None, "simulated crash in the estimator", 20.0);
+}
+
+#[test]
+fn wrong_number_of_predictions_is_a_clear_error() {
+    assert_clean_failure(
+        "count",
+        2,
+        None,
+        "sent 24 predictions for k = 1, expected 25",
+        20.0,
+    );
+}
+
+#[test]
+fn non_numeric_output_is_a_clear_error() {
+    assert_clean_failure("text", 1, None, "\"oops\" where prediction 25 of 25", 20.0);
+}
+
+#[test]
+fn a_process_that_never_answers_times_out() {
+    // timeout_seconds = 1: the run must end well before the script's 120 s sleep.
+    assert_clean_failure("sleep", 1, Some(1), "did not answer within 1 s", 15.0);
+}

@@ -1,0 +1,458 @@
+//! Tests of the pictures and reports: each SVG rendered to pixels (resvg), the HTML report parsed
+//! (scraper), snapshots of the table, CSV and JSON (insta), and the command line's picture flags
+//! (no progress bar without a terminal). The ignored test `render_docs_pictures` writes the PNGs
+//! under `docs/` from the default scenario.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+
+use lossprism::report::html::{self, Pictures};
+use lossprism::report::plot::{self, SelectionView};
+use lossprism::report::table::View;
+use lossprism::report::{self, ResultDoc};
+use lossprism::runner::{self, Outcome};
+use lossprism::scenario::{self, Plan, PlanOptions};
+
+/// Invented scenario: a smooth one-input curve with Gaussian noise, small enough to run in
+/// milliseconds, with a fixed seed.
+const TINY: &str = r#"name = "tiny-wave"
+about = "Invented scenario: a smooth wave with noise, for tests."
+seed = 11
+replicates = 24
+
+[data]
+source = "synthetic"
+train_size = 40
+eval_size = 30
+design = "random"
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "sin(6*x)"
+
+[data.noise]
+sd = 0.3
+
+[model]
+family = "tree"
+grid = [1, 2, 3, 4]
+"#;
+
+/// Invented scenario: ridge penalties on a logarithmic grid, two inputs.
+const TINY_LOG: &str = r#"name = "tiny-ridge"
+seed = 5
+replicates = 16
+
+[data]
+source = "synthetic"
+train_size = 30
+eval_size = 40
+design = "random"
+
+[[data.inputs]]
+name = "a"
+uniform = [-1.0, 1.0]
+[[data.inputs]]
+name = "b"
+uniform = [-1.0, 1.0]
+
+[data.truth]
+formula = "a + 0.5*b"
+
+[data.noise]
+sd = 0.5
+
+[model]
+family = "ridge"
+grid = { log = [0.001, 100.0], count = 6 }
+"#;
+
+/// Invented scenario: two classes from a logistic probability of one input (0-1 loss).
+const TINY_CLASSES: &str = r#"name = "tiny-sorter"
+seed = 9
+replicates = 16
+
+[data]
+source = "synthetic"
+train_size = 60
+eval_size = 50
+
+[[data.inputs]]
+name = "firmness"
+normal = [0.0, 1.0]
+
+[data.classes]
+labels = ["sound", "bruised"]
+probability = "logistic(-2*firmness)"
+
+[model]
+family = "tree"
+grid = [1, 2, 3]
+
+[loss]
+kind = "zero_one"
+"#;
+
+fn plan_of(src: &str) -> Plan {
+    let spec = scenario::parse(src, "test").expect("scenario parses");
+    Plan::from_spec(&spec, src, "test", Path::new("."), &PlanOptions::default())
+        .expect("scenario plans")
+}
+
+fn run(src: &str) -> (Plan, Outcome, ResultDoc) {
+    let plan = plan_of(src);
+    let outcome = runner::run(&plan, 1).expect("run succeeds");
+    let doc = report::build(&plan, &outcome);
+    (plan, outcome, doc)
+}
+
+/// Renders an SVG to pixels; returns (width, height, pixels differing from white).
+fn render(svg: &str) -> (u32, u32, usize, resvg::tiny_skia::Pixmap) {
+    let mut opt = resvg::usvg::Options::default();
+    opt.fontdb_mut().load_system_fonts();
+    let tree = resvg::usvg::Tree::from_str(svg, &opt).expect("valid SVG");
+    let size = tree.size().to_int_size();
+    let mut pixmap =
+        resvg::tiny_skia::Pixmap::new(size.width(), size.height()).expect("non-empty picture");
+    pixmap.fill(resvg::tiny_skia::Color::WHITE);
+    resvg::render(
+        &tree,
+        resvg::tiny_skia::Transform::default(),
+        &mut pixmap.as_mut(),
+    );
+    let inked = pixmap
+        .pixels()
+        .iter()
+        .filter(|p| !(p.red() > 250 && p.green() > 250 && p.blue() > 250))
+        .count();
+    (size.width(), size.height(), inked, pixmap)
+}
+
+/// The text content of every `<text>` element.
+fn texts(svg: &str) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut rest = svg;
+    while let Some(i) = rest.find("<text") {
+        rest = &rest[i..];
+        let Some(open) = rest.find('>') else { break };
+        let Some(close) = rest.find("</text>") else {
+            break;
+        };
+        out.push(rest[open + 1..close].trim().to_string());
+        rest = &rest[close..];
+    }
+    out
+}
+
+/// Number of drawn paths (plotters writes lines as `polyline`, areas as `polygon`).
+fn paths(svg: &str) -> usize {
+    ["<polyline", "<polygon", "<path"]
+        .iter()
+        .map(|t| svg.matches(t).count())
+        .sum()
+}
+
+#[test]
+fn curve_has_four_series_bands_and_marks_the_best() {
+    let (_, _, doc) = run(TINY);
+    let svg = plot::curve_svg(&doc, View::Domingos).unwrap();
+    let (w, h, inked, _) = render(&svg);
+    assert_eq!((w, h), plot::CURVE_SIZE);
+    // At least 4% of the picture carries ink (axes, four lines, bands, legend, text).
+    assert!(inked > (w * h) as usize / 25, "only {inked} inked pixels");
+    let t = texts(&svg);
+    for label in ["expected loss", "bias²", "variance", "noise"] {
+        assert!(t.iter().any(|s| s == label), "legend label {label} missing");
+    }
+    // Legend entries may wrap onto two lines: look in the joined text.
+    assert!(t.join(" ").contains("lowest expected loss: max_depth ="));
+    // Four bands (polygons) plus four lines (dashed ones in several pieces) and the best mark.
+    assert!(svg.matches("<polygon").count() >= 4);
+    assert!(paths(&svg) >= 12, "{} paths", paths(&svg));
+    assert!(!t.iter().any(|s| s.contains("logarithmic")));
+}
+
+#[test]
+fn log_grid_gets_a_log_axis() {
+    let (_, _, doc) = run(TINY_LOG);
+    assert_eq!(doc.scenario.grid_kind, "log");
+    let svg = plot::curve_svg(&doc, View::Domingos).unwrap();
+    let (w, h, inked, _) = render(&svg);
+    assert_eq!((w, h), plot::CURVE_SIZE);
+    assert!(inked > (w * h) as usize / 25);
+    let t = texts(&svg);
+    assert!(t.iter().any(|s| s == "lambda (logarithmic axis)" || s.ends_with("(logarithmic axis)")));
+    // Decade ticks: 0.001 and 100 are grid ends, so 0.01 … 10 are labelled.
+    for tick in ["0.01", "0.1", "1", "10"] {
+        assert!(t.iter().any(|s| s == tick), "tick {tick} missing: {t:?}");
+    }
+}
+
+#[test]
+fn zero_one_curve_follows_the_decomposition_and_shows_negatives() {
+    let (_, _, mut doc) = run(TINY_CLASSES);
+    // Force a negative net variance to check the axis reaches below zero.
+    doc.points[0].net_variance = Some(-0.05);
+    let svg = plot::curve_svg(&doc, View::Domingos).unwrap();
+    let t = texts(&svg);
+    for label in [
+        "expected loss",
+        "bias (Domingos)",
+        "net variance (Domingos)",
+        "noise (Bayes error)",
+    ] {
+        assert!(t.iter().any(|s| s == label), "{label} missing");
+    }
+    assert!(
+        t.iter().any(|s| s.starts_with('-')),
+        "no negative tick: {t:?}"
+    );
+    let kw = plot::curve_svg(&doc, View::KohaviWolpert).unwrap();
+    assert!(texts(&kw).iter().any(|s| s == "bias² (Kohavi-Wolpert)"));
+    let james = plot::curve_svg(&doc, View::James).unwrap();
+    assert!(texts(&james).join(" ").contains("systematic effect (James)"));
+    let (_, _, inked, _) = render(&james);
+    assert!(inked > 20_000);
+}
+
+#[test]
+fn per_point_view_shows_truth_predictions_and_training_points() {
+    let (plan, outcome, doc) = run(TINY);
+    let v = plot::point_view(&plan, &outcome, &doc, None).unwrap();
+    // One input: one x per evaluation point, sorted.
+    assert_eq!(v.x.len(), 30);
+    assert!(v.x.windows(2).all(|w| w[0] <= w[1]));
+    assert_eq!(v.train_x.len(), 40);
+    assert!(v.curves.len() >= 2 && v.curves.len() <= 3);
+    assert_eq!(v.curves[0].value, 1.0);
+    // Replicate 0's training set is re-drawn identically.
+    let (x0, y0) = runner::training_set(&plan, &outcome.prepared, 0).unwrap();
+    assert_eq!(x0.column(0).to_vec(), v.train_x);
+    assert_eq!(y0.to_vec(), v.train_y);
+    let svg = plot::points_svg(&v).unwrap();
+    let (w, h, inked, _) = render(&svg);
+    assert_eq!((w, h), plot::POINTS_SIZE);
+    assert!(inked > (w * h) as usize / 25);
+    let t = texts(&svg);
+    assert!(t.iter().any(|s| s == "truth f"));
+    assert!(t.join(" ").contains("mean prediction, max_depth = 1"));
+    assert!(t.join(" ").contains("training set of replicate 0"));
+    // 40 training dots.
+    assert!(svg.matches("<circle").count() >= 40);
+}
+
+#[test]
+fn per_point_view_needs_an_input_name_with_several_inputs() {
+    let (plan, outcome, doc) = run(TINY_LOG);
+    let err = plot::point_view(&plan, &outcome, &doc, None).unwrap_err();
+    assert!(err.to_string().contains("--input"), "{err}");
+    let err = plot::point_view(&plan, &outcome, &doc, Some("zz")).unwrap_err();
+    assert!(err.to_string().contains("a, b"), "{err}");
+    let v = plot::point_view(&plan, &outcome, &doc, Some("b")).unwrap();
+    assert_eq!(v.averaged_over, vec!["a".to_string()]);
+    assert!(v.x.len() >= 2 && v.x.len() <= 40);
+    assert!(plot::points_svg(&v).is_ok());
+    let (cplan, cout, cdoc) = run(TINY_CLASSES);
+    assert!(plot::point_view(&cplan, &cout, &cdoc, None).is_err());
+    assert!(plot::check_point_request(&cplan, None).is_err());
+    assert!(plot::check_point_request(&plan, Some("a")).is_ok());
+}
+
+#[test]
+fn selection_histogram_marks_the_oracle() {
+    let v = SelectionView {
+        grid: vec![1.0, 2.0, 3.0, 4.0, 5.0],
+        counts: vec![0, 3, 11, 7, 3],
+        oracle: 3.0,
+    };
+    let svg = plot::selection_svg(&v, "max_depth").unwrap();
+    let (w, h, inked, _) = render(&svg);
+    assert_eq!((w, h), plot::SELECTION_SIZE);
+    assert!(inked > (w * h) as usize / 40);
+    let t = texts(&svg);
+    assert!(t.iter().any(|s| s == "oracle best"));
+    assert!(t.iter().any(|s| s.contains("in 24 replicates")));
+    // The section is read from a result's JSON in either count layout.
+    let doc = serde_json::json!({
+        "scenario": {"grid": [1.0, 2.0, 3.0]},
+        "selection": {"chosen_counts": [{"value": 2.0, "count": 5}, {"value": 3.0, "count": 1}],
+                      "oracle_best": {"value": 2.0}}
+    });
+    let s = SelectionView::from_json(&doc).unwrap();
+    assert_eq!(s.counts, vec![0, 5, 1]);
+    assert_eq!(s.oracle, 2.0);
+    let doc = serde_json::json!({
+        "scenario": {"grid": [1.0, 2.0]},
+        "selection": {"chosen_counts": [4, 2], "oracle_best": 1.0}
+    });
+    assert_eq!(SelectionView::from_json(&doc).unwrap().counts, vec![4, 2]);
+    assert!(SelectionView::from_json(&serde_json::json!({"scenario": {"grid": [1.0]}})).is_none());
+}
+
+#[test]
+fn html_report_is_self_contained_and_has_every_row() {
+    let (plan, outcome, doc) = run(TINY);
+    let v = plot::point_view(&plan, &outcome, &doc, None).unwrap();
+    let pics = Pictures {
+        curve: Some(plot::curve_svg(&doc, View::Domingos).unwrap()),
+        points: Some(plot::points_svg(&v).unwrap()),
+        selection: None,
+    };
+    let text = html::render(&doc, View::Domingos, &pics, Some(1.25));
+    let page = scraper::Html::parse_document(&text);
+    assert!(page.errors.is_empty(), "{:?}", page.errors);
+    let sel = |s: &str| scraper::Selector::parse(s).unwrap();
+    let rows: Vec<_> = page.select(&sel("tbody tr")).collect();
+    assert_eq!(rows.len(), doc.points.len());
+    for (r, p) in rows.iter().zip(&doc.points) {
+        let first = r.select(&sel("td")).next().unwrap().text().collect::<String>();
+        assert_eq!(first, report::fmt_value(p.value));
+    }
+    assert_eq!(page.select(&sel("tr.best")).count(), 1);
+    assert_eq!(page.select(&sel("svg")).count(), 2);
+    assert_eq!(page.select(&sel("script")).count(), 0);
+    assert!(!text.contains("http"), "external reference");
+    assert!(!text.contains("src="), "external source");
+    assert!(!text.contains("<link"));
+    let body: String = page.root_element().text().collect();
+    for needle in [
+        "seed",
+        "11",
+        "replicates",
+        "24",
+        "1.25 s",
+        env!("CARGO_PKG_VERSION"),
+        "Reading the curve",
+        "within one standard error",
+        "sin(6*x)",
+    ] {
+        assert!(body.contains(needle), "report lacks {needle}");
+    }
+}
+
+#[test]
+fn snapshots_of_table_csv_and_json() {
+    let (_, _, doc) = run(TINY);
+    insta::assert_snapshot!("tiny_table", report::table::render(&doc));
+    insta::assert_snapshot!("tiny_csv", report::to_csv(&doc));
+    insta::assert_snapshot!("tiny_json", report::to_json(&doc));
+}
+
+#[test]
+fn table_columns_line_up() {
+    let (_, _, doc) = run(TINY);
+    let table = report::table::render(&doc);
+    // Every row of the numeric block has the same display width (², ± and · are one column
+    // wide each, so characters count columns here).
+    let block: Vec<&str> = table
+        .lines()
+        .skip_while(|l| !l.trim_start().starts_with("max_depth"))
+        .take(doc.points.len() + 1)
+        .collect();
+    assert_eq!(block.len(), doc.points.len() + 1);
+    let w = block[0].chars().count();
+    assert!(block.iter().all(|l| l.chars().count() == w), "{block:#?}");
+    assert_eq!(block.iter().filter(|l| l.contains(" * ")).count(), 1);
+}
+
+fn bin() -> &'static str {
+    env!("CARGO_BIN_EXE_lossprism")
+}
+
+#[test]
+fn cli_writes_pictures_and_report_without_progress_bar() {
+    let dir = tempfile::tempdir().unwrap();
+    let scen = dir.path().join("tiny.toml");
+    std::fs::write(&scen, TINY).unwrap();
+    let out = Command::new(bin())
+        .args([
+            "run",
+            "tiny.toml",
+            "--out",
+            "r.json",
+            "--plot",
+            "curve.svg",
+            "--plot-points",
+            "points.svg",
+            "--report",
+            "report.html",
+        ])
+        .current_dir(dir.path())
+        .env("NO_COLOR", "1")
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    // Standard error is not a terminal here: no progress bar, nothing at all.
+    assert!(out.stderr.is_empty(), "{}", String::from_utf8_lossy(&out.stderr));
+    for f in ["r.json", "curve.svg", "points.svg", "report.html"] {
+        assert!(dir.path().join(f).exists(), "{f} missing");
+    }
+    // The saved result plots to the same curve.
+    let out = Command::new(bin())
+        .args(["plot", "r.json", "--out", "again.svg"])
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert_eq!(
+        std::fs::read(dir.path().join("curve.svg")).unwrap(),
+        std::fs::read(dir.path().join("again.svg")).unwrap()
+    );
+    // No selection section yet: --selection is refused with a message.
+    let out = Command::new(bin())
+        .args(["plot", "r.json", "--out", "x.svg", "--selection", "s.svg"])
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("selection"));
+}
+
+#[test]
+fn cli_refuses_points_view_before_running_and_writes_nothing() {
+    let dir = tempfile::tempdir().unwrap();
+    let scen = dir.path().join("two.toml");
+    std::fs::write(&scen, TINY_LOG).unwrap();
+    let out = Command::new(bin())
+        .args([
+            "run",
+            "two.toml",
+            "--out",
+            "r.json",
+            "--plot-points",
+            "p.svg",
+        ])
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(err.contains("--input NAME"), "{err}");
+    assert!(!dir.path().join("r.json").exists());
+    assert!(!dir.path().join("p.svg").exists());
+}
+
+fn docs() -> PathBuf {
+    PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("docs")
+}
+
+/// Writes `docs/curve.png` and `docs/points.png` from the default scenario (run with
+/// `cargo test --release --test report -- --ignored render_docs_pictures`).
+#[test]
+#[ignore]
+fn render_docs_pictures() {
+    let plan = scenario::load_default(&PlanOptions::default()).unwrap();
+    let outcome = runner::run(&plan, 0).unwrap();
+    let doc = report::build(&plan, &outcome);
+    let curve = plot::curve_svg(&doc, View::Domingos).unwrap();
+    let v = plot::point_view(&plan, &outcome, &doc, Some("moisture")).unwrap();
+    let points = plot::points_svg(&v).unwrap();
+    std::fs::create_dir_all(docs()).unwrap();
+    for (name, svg) in [("curve.png", curve), ("points.png", points)] {
+        let (_, _, _, pixmap) = render(&svg);
+        pixmap.save_png(docs().join(name)).unwrap();
+    }
+}
