@@ -33,8 +33,9 @@ use std::fmt;
 
 use crate::report::{fmt_num, fmt_se, fmt_value, PointRow, ResultDoc, FORMAT};
 
-/// Terms compared under squared loss.
-pub const SQUARED_TERMS: [&str; 3] = ["expected_loss", "bias_sq", "variance"];
+/// Terms compared under squared loss (`bias_sq_plus_noise` only where noise is unknown, on
+/// table sources).
+pub const SQUARED_TERMS: [&str; 4] = ["expected_loss", "bias_sq", "variance", "bias_sq_plus_noise"];
 
 /// Terms compared under 0-1 loss.
 pub const ZERO_ONE_TERMS: [&str; 8] = [
@@ -399,6 +400,9 @@ fn term_of(row: &PointRow, term: &str) -> Option<(f64, Option<f64>)> {
         "expected_loss" => Some((row.expected_loss, s.expected_loss)),
         "variance" => Some((row.variance, s.variance)),
         "bias_sq" => row.bias_sq.map(|v| (v, flat(&s.bias_sq))),
+        "bias_sq_plus_noise" => row
+            .bias_sq_plus_noise
+            .map(|v| (v, flat(&s.bias_sq_plus_noise))),
         "bias" => row.bias.map(|v| (v, flat(&s.bias))),
         "net_variance" => row.net_variance.map(|v| (v, flat(&s.net_variance))),
         "kohavi_wolpert.bias_sq" => row
@@ -474,6 +478,27 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
                 ));
             }
         }
+    }
+    // A table source: the same data and resampling (Monte Carlo shares and the file's location
+    // may differ).
+    let ta = serde_json::to_value(&new.table).unwrap_or_default();
+    let tb = serde_json::to_value(&base.table).unwrap_or_default();
+    match (ta.as_object(), tb.as_object()) {
+        (Some(ma), Some(mb)) => {
+            let skip = ["path", "held_out_share", "held_out_share_stderr"];
+            for (k, va) in ma.iter().filter(|(k, _)| !skip.contains(&k.as_str())) {
+                if mb.get(k) != Some(va) {
+                    let null = serde_json::Value::Null;
+                    return Some(format!(
+                        "table.{k} differs: {} in the result, {} in the baseline",
+                        show(va),
+                        show(mb.get(k).unwrap_or(&null))
+                    ));
+                }
+            }
+        }
+        (None, None) => {}
+        _ => return Some("one document comes from a table, the other does not".into()),
     }
     if new.points.len() != base.points.len()
         || new
@@ -592,74 +617,32 @@ pub fn compare(
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::report::{Best, InputEcho, ScenarioEcho, Stderr};
 
-    fn row(value: f64, el: f64, b2: f64, var: f64, se: Option<f64>) -> PointRow {
-        PointRow {
-            value,
-            expected_loss: el,
-            bias_sq: Some(b2),
-            bias: None,
-            variance: var,
-            noise: 0.25,
-            expected_loss_direct: el,
-            net_variance: None,
-            unbiased_variance: None,
-            biased_variance: None,
-            kohavi_wolpert: None,
-            james: None,
-            stderr: Stderr {
-                expected_loss: se,
-                bias_sq: Some(se),
-                bias: None,
-                variance: se,
-                expected_loss_direct: se,
-                net_variance: None,
-                unbiased_variance: None,
-                biased_variance: None,
-                kohavi_wolpert: None,
-                james: None,
-            },
-        }
+    fn row(value: f64, el: f64, b2: f64, var: f64, se: Option<f64>) -> serde_json::Value {
+        serde_json::json!({
+            "value": value, "expected_loss": el, "bias_sq": b2, "variance": var,
+            "noise": 0.25, "expected_loss_direct": el,
+            "stderr": { "expected_loss": se, "bias_sq": se, "variance": se,
+                        "expected_loss_direct": se }
+        })
     }
 
-    fn doc(points: Vec<PointRow>) -> ResultDoc {
-        ResultDoc {
-            format: FORMAT.into(),
-            version: "0".into(),
-            scenario: ScenarioEcho {
-                name: "t".into(),
-                about: String::new(),
-                source: "synthetic".into(),
-                train_size: 10,
-                eval_size: 5,
-                design: "random".into(),
-                eval: "fresh".into(),
-                inputs: vec![InputEcho {
-                    name: "x".into(),
-                    distribution: "U".into(),
-                }],
-                truth: "x".into(),
-                noise: "0.5".into(),
-                labels: None,
-                grid: points.iter().map(|p| p.value).collect(),
-                grid_kind: "list".into(),
-                blocks: 4,
+    fn doc(points: Vec<serde_json::Value>) -> ResultDoc {
+        let grid: Vec<serde_json::Value> = points.iter().map(|p| p["value"].clone()).collect();
+        let v = serde_json::json!({
+            "format": FORMAT, "version": "0",
+            "scenario": {
+                "name": "t", "about": "", "source": "synthetic", "train_size": 10,
+                "eval_size": 5, "design": "random", "eval": "fresh",
+                "inputs": [{ "name": "x", "distribution": "U" }],
+                "truth": "x", "noise": "0.5", "grid": grid, "grid_kind": "list", "blocks": 4
             },
-            family: "f".into(),
-            knob: "k".into(),
-            loss: "squared".into(),
-            replicates: 8,
-            seed: 1,
-            best: Best {
-                value: points[0].value,
-                expected_loss: points[0].expected_loss,
-                stderr: None,
-                within_one_se: vec![],
-            },
-            points,
-            reading: String::new(),
-        }
+            "family": "f", "knob": "k", "loss": "squared", "replicates": 8, "seed": 1,
+            "points": points,
+            "best": { "value": 1.0, "expected_loss": 1.0, "stderr": null, "within_one_se": [] },
+            "reading": ""
+        });
+        serde_json::from_value(v).expect("a valid result document")
     }
 
     // Hand-computed cases of the rule: se = √(0.01² + 0.01²) = 0.014142; 4·se = 0.056569.

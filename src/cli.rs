@@ -28,6 +28,8 @@ Examples:
   lossprism check r.json --baseline base.json --update   accept the new result as the baseline";
 
 /// Subcommands.
+// Parsed once per process: the size of the largest variant does not matter.
+#[allow(clippy::large_enum_variant)]
 #[derive(Debug, Subcommand)]
 pub enum Command {
     /// Run a scenario and print the decomposition table.
@@ -52,6 +54,36 @@ pub enum Command {
     /// Draw the curve picture (SVG) of a saved result document, and the selection histogram
     /// when the result holds a cross-validation audit.
     Plot(PlotArgs),
+    /// Fit a simulated twin of a table (k-NN reference for E[y|x], k by 10-fold
+    /// cross-validation, and a noise estimate) and write a `source = "twin"` scenario; prints the
+    /// reference's cross-validated fit quality and the noise estimate with its standard error.
+    Twin(TwinArgs),
+}
+
+/// Options of `twin`.
+#[derive(Debug, Args)]
+pub struct TwinArgs {
+    /// The CSV table (with a header line).
+    #[arg(value_name = "TABLE.csv")]
+    pub table: PathBuf,
+    /// The response column.
+    #[arg(long)]
+    pub target: String,
+    /// Feature columns, comma-separated (default: every other column).
+    #[arg(long, value_delimiter = ',')]
+    pub features: Option<Vec<String>>,
+    /// The target holds class labels (classification twin).
+    #[arg(long)]
+    pub classes: bool,
+    /// Noise varying with x (smoothed squared residuals) instead of a constant.
+    #[arg(long)]
+    pub varying: bool,
+    /// Where to write the scenario.
+    #[arg(long, default_value = "twin.toml", value_name = "FILE.toml")]
+    pub out: PathBuf,
+    /// Seed of the cross-validation folds (also the scenario's seed).
+    #[arg(long, default_value_t = 1)]
+    pub seed: u64,
 }
 
 /// Options of `plot`.

@@ -19,6 +19,7 @@
 //! println!("{}", report::table::render(&doc));
 //! ```
 
+pub mod audit;
 pub mod check;
 pub mod cli;
 pub mod decompose;
@@ -27,10 +28,12 @@ pub mod error;
 pub mod expr;
 pub mod family;
 pub mod harness;
+pub mod progress;
 pub mod report;
 pub mod runner;
 pub mod scenario;
 pub mod shard;
 pub mod table;
+pub mod twin;
 
 pub use error::{Error, ScenarioError};

@@ -34,6 +34,19 @@ fn dispatch(cli: Cli) -> anyhow::Result<u8> {
         Command::Merge(args) => merge(args),
         Command::Check(args) => check(args),
         Command::Plot(args) => plot(args),
+        Command::Twin(a) => {
+            let text = lossprism::twin::command(&lossprism::twin::TwinOptions {
+                table: a.table,
+                target: a.target,
+                features: a.features,
+                classes: a.classes,
+                out: a.out,
+                seed: a.seed,
+                varying: a.varying,
+            })?;
+            print!("{text}");
+            Ok(0)
+        }
         Command::Validate { scenario } => {
             let plan = scenario::load(&scenario, &PlanOptions::default())?;
             refuse_custom(&plan)?;
@@ -82,7 +95,21 @@ fn run(args: RunArgs) -> anyhow::Result<u8> {
     if args.plot_points.is_some() {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
-    let outcome = runner::run(&plan, args.threads)?;
+    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::FinishBlocks);
+    let watch = lossprism::progress::Progress::new(plan.replicates, args.quiet);
+    let outcome = match runner::run_watched(&plan, args.threads, &watch)? {
+        Ok(o) => o,
+        Err(stopped) => {
+            watch.clear();
+            eprintln!(
+                "interrupted after {} of {} replicates (the blocks in flight finished); nothing \
+                 was written: rerun to start again",
+                stopped.replicates_done, stopped.replicates
+            );
+            return Ok(130);
+        }
+    };
+    watch.clear();
     let outputs = Outputs {
         out: &args.out,
         csv: &args.csv,
@@ -211,6 +238,9 @@ fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
     if args.plot_points.is_some() {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
+    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::ExitNow {
+        checkpoint: args.checkpoint.clone(),
+    });
     let job = shard::Job {
         plan: &plan,
         source: &source,
@@ -289,7 +319,11 @@ fn merge(args: MergeArgs) -> anyhow::Result<u8> {
 /// `family = "custom"` needs an estimator supplied from Rust; the command line has none.
 fn refuse_custom(plan: &Plan) -> anyhow::Result<()> {
     if plan.family.name() == "custom" {
-        anyhow::bail!("{}: key `model.family`: {}", plan.file, lossprism::harness::CLI_REFUSAL);
+        anyhow::bail!(
+            "{}: key `model.family`: {}",
+            plan.file,
+            lossprism::harness::CLI_REFUSAL
+        );
     }
     Ok(())
 }
@@ -298,15 +332,19 @@ fn refuse_custom(plan: &Plan) -> anyhow::Result<()> {
 fn check(args: CheckArgs) -> anyhow::Result<u8> {
     use lossprism::check;
     let read = |p: &std::path::Path| -> anyhow::Result<(String, report::ResultDoc)> {
-        let text = std::fs::read_to_string(p)
-            .map_err(|e| anyhow::anyhow!("{}: {e}", p.display()))?;
+        let text =
+            std::fs::read_to_string(p).map_err(|e| anyhow::anyhow!("{}: {e}", p.display()))?;
         let doc = check::parse_result(&text, &p.display().to_string())?;
         Ok((text, doc))
     };
     let (text, new) = read(&args.result)?;
     if args.update && !args.baseline.exists() {
         report::write_atomic(&args.baseline, text.as_bytes())?;
-        println!("baseline {} created from {}", args.baseline.display(), args.result.display());
+        println!(
+            "baseline {} created from {}",
+            args.baseline.display(),
+            args.result.display()
+        );
         return Ok(0);
     }
     if !args.baseline.exists() {

@@ -26,6 +26,10 @@ pub mod purpose {
     pub const REPLICATE: u64 = 3;
     /// The locked holdout rows of a table (drawn once from the file's seed).
     pub const HOLDOUT: u64 = 4;
+    /// Replicate r's cross-validation folds in the selection audit (`crate::audit`).
+    pub const AUDIT: u64 = 5;
+    /// The folds that choose a twin's reference k (`crate::twin`).
+    pub const TWIN: u64 = 6;
 }
 
 /// The random stream for (seed, purpose, index): ChaCha8 keyed by the seed, with the stream
@@ -226,9 +230,29 @@ pub fn training_set(
     Ok((d.x, d.y))
 }
 
-/// Runs the replicates of block `b` sequentially and returns its accumulator.
+/// Runs the replicates of block `b` sequentially and returns its accumulator. Refuses a plan
+/// with a selection audit (its counts would be lost): use [`run_block_audited`].
 pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockAcc, Error> {
+    if plan.audit.is_some() {
+        return Err(Error::Usage(format!(
+            "{}: key `audit`: `run_block` would drop the selection audit's counts; call `run_block_audited`",
+            plan.file
+        )));
+    }
+    Ok(run_block_audited(plan, prep, b)?.0)
+}
+
+/// Runs the replicates of block `b` sequentially: its accumulator and, with `[audit]`, the
+/// counts of the grid values cross-validation chose in its replicates.
+pub fn run_block_audited(
+    plan: &Plan,
+    prep: &Prepared,
+    b: u64,
+) -> Result<(BlockAcc, Option<crate::audit::AuditAcc>), Error> {
     let (start, end) = plan.block_range(b);
+    let mut audit = plan
+        .audit
+        .map(|_| crate::audit::AuditAcc::new(plan.grid.len()));
     let g = plan.grid.len();
     let m = prep.eval_x.nrows();
     let mut acc = match plan.task {
@@ -244,6 +268,10 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockAcc, Error
     };
     for r in start..end {
         let draw = draw_replicate(plan, prep, r)?;
+        if let (Some(a), Some(counts)) = (&plan.audit, audit.as_mut()) {
+            let g = crate::audit::choose(plan, a, draw.x.view(), draw.y.view(), r)?;
+            counts.counts[g] += 1;
+        }
         let input = FitInput {
             x: draw.x.view(),
             y: draw.y.view(),
@@ -295,7 +323,7 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockAcc, Error
             BlockAcc::ZeroOne(a) => a.push(preds.view(), &direct),
         }
     }
-    Ok(acc)
+    Ok((acc, audit))
 }
 
 /// Runs the given blocks on `threads` worker threads (0 = all cores) and returns their
@@ -319,6 +347,26 @@ pub fn run_blocks(
     results.into_iter().collect()
 }
 
+/// Like [`run_blocks`], also returning each block's audit counts (with `[audit]`).
+pub fn run_blocks_audited(
+    plan: &Plan,
+    prep: &Prepared,
+    blocks: &[u64],
+    threads: usize,
+) -> Result<Vec<(BlockAcc, Option<crate::audit::AuditAcc>)>, Error> {
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| Error::Usage(format!("cannot start {threads} worker threads: {e}")))?;
+    let results: Vec<Result<_, Error>> = pool.install(|| {
+        blocks
+            .par_iter()
+            .map(|&b| run_block_audited(plan, prep, b))
+            .collect()
+    });
+    results.into_iter().collect()
+}
+
 /// The decomposition of a finished run, by loss.
 #[derive(Debug, Clone)]
 pub enum Summary {
@@ -326,6 +374,8 @@ pub enum Summary {
     Squared(SquaredSummary),
     /// 0-1 loss.
     ZeroOne(ZeroOneSummary),
+    /// A table source: the out-of-bag decomposition (see [`crate::table::resample`]).
+    Table(Box<crate::table::resample::TableOutcome>),
 }
 
 impl Summary {
@@ -333,7 +383,7 @@ impl Summary {
     pub fn squared(&self) -> Option<&SquaredSummary> {
         match self {
             Summary::Squared(s) => Some(s),
-            Summary::ZeroOne(_) => None,
+            Summary::ZeroOne(_) | Summary::Table(_) => None,
         }
     }
 
@@ -341,7 +391,7 @@ impl Summary {
     pub fn zero_one(&self) -> Option<&ZeroOneSummary> {
         match self {
             Summary::ZeroOne(s) => Some(s),
-            Summary::Squared(_) => None,
+            Summary::Squared(_) | Summary::Table(_) => None,
         }
     }
 }
@@ -390,13 +440,112 @@ pub struct Outcome {
     pub prepared: Prepared,
     /// Decomposition and standard errors.
     pub summary: Summary,
+    /// Selection audit counts summed over blocks (with `[audit]`).
+    pub audit: Option<crate::audit::AuditAcc>,
+}
+
+/// Watches a run from outside (a progress display, an interruption); both methods default to
+/// doing nothing.
+pub trait Watch: Sync {
+    /// Called after each finished block with the number of replicates it held.
+    fn block_done(&self, _replicates: u64) {}
+    /// Asked before each block starts; `true` skips it (the blocks in flight still finish).
+    fn stop(&self) -> bool {
+        false
+    }
+}
+
+/// The watch that does nothing.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct NoWatch;
+
+impl Watch for NoWatch {}
+
+/// How far a run stopped by its [`Watch`] got.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Stopped {
+    /// Replicates in the blocks that finished.
+    pub replicates_done: u64,
+    /// Replicates of the whole run.
+    pub replicates: u64,
 }
 
 /// Runs a whole plan.
 pub fn run(plan: &Plan, threads: usize) -> Result<Outcome, Error> {
+    run_watched(plan, threads, &NoWatch)?.map_err(|s| {
+        Error::Usage(format!(
+            "run stopped after {} of {} replicates",
+            s.replicates_done, s.replicates
+        ))
+    })
+}
+
+/// Runs a whole plan under a [`Watch`]: `Ok(Err(Stopped))` when the watch stopped it (nothing
+/// is summarized then).
+pub fn run_watched(
+    plan: &Plan,
+    threads: usize,
+    watch: &dyn Watch,
+) -> Result<Result<Outcome, Stopped>, Error> {
     let prepared = prepare(plan)?;
+    if matches!(plan.source, Source::Table(_)) {
+        // Tables resample their rows; their blocks fold in `table::resample` (same block order).
+        let t = crate::table::resample::run(plan, threads)?;
+        return Ok(Ok(Outcome {
+            prepared,
+            summary: Summary::Table(Box::new(t)),
+            audit: None,
+        }));
+    }
     let ids: Vec<u64> = (0..plan.blocks).collect();
-    let blocks = run_blocks(plan, &prepared, &ids, threads)?;
+    let pool = rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| Error::Usage(format!("cannot start {threads} worker threads: {e}")))?;
+    let results: Vec<Result<Option<_>, Error>> = pool.install(|| {
+        ids.par_iter()
+            .map(|&b| {
+                if watch.stop() {
+                    return Ok(None);
+                }
+                let out = run_block_audited(plan, &prepared, b)?;
+                let (s, e) = plan.block_range(b);
+                watch.block_done(e - s);
+                Ok(Some(out))
+            })
+            .collect()
+    });
+    let results: Vec<Option<_>> = results.into_iter().collect::<Result<_, Error>>()?;
+    if results.iter().any(Option::is_none) {
+        let replicates_done = ids
+            .iter()
+            .zip(&results)
+            .filter(|(_, r)| r.is_some())
+            .map(|(&b, _)| {
+                let (s, e) = plan.block_range(b);
+                e - s
+            })
+            .sum();
+        return Ok(Err(Stopped {
+            replicates_done,
+            replicates: plan.replicates,
+        }));
+    }
+    let done: Vec<_> = results.into_iter().flatten().collect();
+    let mut audit = plan
+        .audit
+        .map(|_| crate::audit::AuditAcc::new(plan.grid.len()));
+    let mut blocks = Vec::with_capacity(done.len());
+    for (acc, counts) in done {
+        if let (Some(total), Some(c)) = (audit.as_mut(), counts.as_ref()) {
+            total.merge(c);
+        }
+        blocks.push(acc);
+    }
     let summary = summarize(plan, &prepared, &blocks)?;
-    Ok(Outcome { prepared, summary })
+    Ok(Ok(Outcome {
+        prepared,
+        summary,
+        audit,
+    }))
 }

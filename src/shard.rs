@@ -17,6 +17,7 @@ use std::sync::Mutex;
 
 use rayon::prelude::*;
 
+use crate::audit::AuditAcc;
 use crate::decompose::zero_one::ZeroOneAcc;
 use crate::decompose::SquaredAcc;
 use crate::error::Error;
@@ -24,7 +25,7 @@ use crate::family::Task;
 use crate::report::part::{AccRecord, BlockRecord, PartDoc, ShardRef, PART_FORMAT};
 use crate::report::{self, fmt_value};
 use crate::runner::{self, BlockAcc, Outcome, Prepared};
-use crate::scenario::{self, Plan, PlanOptions};
+use crate::scenario::{self, Plan, PlanOptions, Source};
 
 /// Version of the writing program (part of the fingerprint).
 const VERSION: &str = env!("CARGO_PKG_VERSION");
@@ -179,9 +180,32 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
         "seed": plan.seed,
         "replicates": plan.replicates,
         "blocks": plan.blocks,
+        "data": data_digest(plan),
     });
     let canonical = serde_json::to_string(&material).map_err(fail)?;
     Ok(format!("fnv1a64:{:016x}", fnv1a64(canonical.as_bytes())))
+}
+
+/// FNV-1a digest of the data a plan read from files (a table's shape, names, labels, inputs and
+/// responses, bit for bit); `None` for synthetic sources, which the scenario text describes fully.
+fn data_digest(plan: &Plan) -> Option<String> {
+    match &plan.source {
+        Source::Table(t) => {
+            let tb = &t.table;
+            let mut bytes: Vec<u8> = Vec::new();
+            bytes.extend_from_slice(&(tb.x.nrows() as u64).to_le_bytes());
+            bytes.extend_from_slice(&(tb.x.ncols() as u64).to_le_bytes());
+            for name in tb.names.iter().chain(&tb.labels).chain([&tb.target]) {
+                bytes.extend_from_slice(name.as_bytes());
+                bytes.push(0);
+            }
+            for v in tb.x.iter().chain(tb.y.iter()) {
+                bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+            }
+            Some(format!("fnv1a64:{:016x}", fnv1a64(&bytes)))
+        }
+        _ => None,
+    }
 }
 
 /// Encodes a block accumulator exactly.
@@ -292,6 +316,65 @@ fn check_acc(acc: &BlockAcc, plan: &Plan, points: usize, b: u64) -> Result<(), S
     Ok(())
 }
 
+/// A finished block: its accumulator and, with `[audit]`, the selection counts of its replicates.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Block {
+    /// The block's accumulator.
+    pub acc: BlockAcc,
+    /// Selection audit counts per grid value (plans with `[audit]` only).
+    pub audit: Option<AuditAcc>,
+}
+
+/// Encodes block `b` exactly.
+pub fn encode_block(plan: &Plan, b: u64, block: &Block) -> BlockRecord {
+    let (first_replicate, end_replicate) = plan.block_range(b);
+    BlockRecord {
+        block: b,
+        first_replicate,
+        end_replicate,
+        acc: encode_acc(&block.acc),
+        audit: block.audit.as_ref().map(|a| a.counts.clone()),
+    }
+}
+
+/// Decodes a block record and checks it against block `rec.block` of `plan` (with `points`
+/// evaluation points).
+pub fn decode_block(plan: &Plan, points: usize, rec: &BlockRecord) -> Result<Block, String> {
+    let b = rec.block;
+    if b >= plan.blocks {
+        return Err(format!("no such block (the run has {})", plan.blocks));
+    }
+    let (r0, r1) = plan.block_range(b);
+    if (rec.first_replicate, rec.end_replicate) != (r0, r1) {
+        return Err(format!(
+            "replicates {}..{}, the block covers {r0}..{r1}",
+            rec.first_replicate, rec.end_replicate
+        ));
+    }
+    let acc = decode_acc(&rec.acc)?;
+    check_acc(&acc, plan, points, b)?;
+    let audit = match (&plan.audit, &rec.audit) {
+        (None, None) => None,
+        (Some(_), Some(counts)) => {
+            if counts.len() != plan.grid.len() || counts.iter().sum::<u64>() != r1 - r0 {
+                return Err(format!(
+                    "audit counts must be {} values adding up to {}",
+                    plan.grid.len(),
+                    r1 - r0
+                ));
+            }
+            Some(AuditAcc {
+                counts: counts.clone(),
+            })
+        }
+        (Some(_), None) => {
+            return Err("the scenario has [audit] but the block has no audit counts".into())
+        }
+        (None, Some(_)) => return Err("audit counts, but the scenario has no [audit]".into()),
+    };
+    Ok(Block { acc, audit })
+}
+
 /// The part document of `blocks` (a shard's or a checkpoint's).
 pub fn part_doc(
     plan: &Plan,
@@ -299,7 +382,7 @@ pub fn part_doc(
     fingerprint: &str,
     shard: Option<ShardSpec>,
     checkpoint: bool,
-    blocks: &BTreeMap<u64, BlockAcc>,
+    blocks: &BTreeMap<u64, Block>,
 ) -> PartDoc {
     PartDoc {
         format: PART_FORMAT.into(),
@@ -325,15 +408,7 @@ pub fn part_doc(
         scenario_text: source.text.clone(),
         completed: blocks
             .iter()
-            .map(|(&b, acc)| {
-                let (first_replicate, end_replicate) = plan.block_range(b);
-                BlockRecord {
-                    block: b,
-                    first_replicate,
-                    end_replicate,
-                    acc: encode_acc(acc),
-                }
-            })
+            .map(|(&b, block)| encode_block(plan, b, block))
             .collect(),
     }
 }
@@ -445,8 +520,8 @@ pub struct Job<'a> {
 pub struct Completed {
     /// Evaluation points and truth.
     pub prepared: Prepared,
-    /// Block accumulators by block index.
-    pub blocks: BTreeMap<u64, BlockAcc>,
+    /// Finished blocks by block index.
+    pub blocks: BTreeMap<u64, Block>,
     /// The run's fingerprint.
     pub fingerprint: String,
     /// Blocks taken from the checkpoint rather than computed.
@@ -487,7 +562,7 @@ fn load_checkpoint(
     fingerprint: &str,
     wanted: &Range<u64>,
     points: usize,
-) -> Result<Option<BTreeMap<u64, BlockAcc>>, Error> {
+) -> Result<Option<BTreeMap<u64, Block>>, Error> {
     if !path.exists() {
         return Ok(None);
     }
@@ -535,9 +610,8 @@ fn load_checkpoint(
                 wanted.start, wanted.end
             )));
         }
-        let acc = decode_acc(&rec.acc).map_err(bad)?;
-        check_acc(&acc, job.plan, points, b).map_err(bad)?;
-        if out.insert(b, acc).is_some() {
+        let block = decode_block(job.plan, points, rec).map_err(bad)?;
+        if out.insert(b, block).is_some() {
             return Err(bad("present twice".into()));
         }
     }
@@ -545,7 +619,7 @@ fn load_checkpoint(
 }
 
 struct Progress {
-    blocks: BTreeMap<u64, BlockAcc>,
+    blocks: BTreeMap<u64, Block>,
     new_blocks: u64,
 }
 
@@ -553,6 +627,13 @@ struct Progress {
 /// of the job on `threads` workers, and rewrites the checkpoint atomically after every block.
 pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
     let plan = job.plan;
+    if !matches!(plan.source, Source::Synthetic(_)) {
+        return Err(Error::Usage(format!(
+            "{}: table scenarios run whole (`lossprism run FILE`); --shard and --checkpoint do \
+             not support them yet",
+            plan.file
+        )));
+    }
     let fp = fingerprint(plan, &job.source.text)?;
     let wanted = job_blocks(plan, job.shard)?;
     let prepared = runner::prepare(plan)?;
@@ -571,14 +652,14 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
     if job.stop_after_blocks == Some(0) {
         stop.store(true, Ordering::SeqCst);
     }
-    let record = |b: u64, acc: BlockAcc| -> Result<(), Error> {
+    let record = |b: u64, block: Block| -> Result<(), Error> {
         let mut st = state.lock().unwrap_or_else(|e| e.into_inner());
         if let Some(k) = job.stop_after_blocks {
             if st.new_blocks >= k {
                 return Ok(());
             }
         }
-        st.blocks.insert(b, acc);
+        st.blocks.insert(b, block);
         st.new_blocks += 1;
         if let Some(path) = job.checkpoint {
             let doc = part_doc(plan, job.source, &fp, job.shard, true, &st.blocks);
@@ -602,8 +683,8 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
                     if stop.load(Ordering::SeqCst) {
                         return Ok(());
                     }
-                    let acc = runner::run_block(plan, &prepared, b)?;
-                    record(b, acc)
+                    let (acc, audit) = runner::run_block_audited(plan, &prepared, b)?;
+                    record(b, Block { acc, audit })
                 })
                 .collect()
         });
@@ -634,11 +715,19 @@ pub fn outcome(plan: &Plan, done: Completed) -> Result<Outcome, Error> {
             plan.blocks
         )));
     }
-    let blocks: Vec<BlockAcc> = done.blocks.into_values().collect();
+    let mut audit = plan.audit.as_ref().map(|_| AuditAcc::new(plan.grid.len()));
+    let mut blocks: Vec<BlockAcc> = Vec::with_capacity(done.blocks.len());
+    for block in done.blocks.into_values() {
+        if let (Some(total), Some(counts)) = (audit.as_mut(), block.audit.as_ref()) {
+            total.merge(counts);
+        }
+        blocks.push(block.acc);
+    }
     let summary = runner::summarize(plan, &done.prepared, &blocks)?;
     Ok(Outcome {
         prepared: done.prepared,
         summary,
+        audit,
     })
 }
 
@@ -737,11 +826,17 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
     })?;
     let fp = fingerprint(&plan, &source.text)?;
     if fp != first.fingerprint || plan.blocks != first.blocks {
+        let why = if first.version != VERSION {
+            format!(
+                "it was written by lossprism {}, this is {VERSION}",
+                first.version
+            )
+        } else {
+            "the scenario's data file or the part file changed since the shards ran".into()
+        };
         return Err(refuse(format!(
-            "{}: fingerprint does not match its embedded scenario (written by lossprism {}, this \
-             is {VERSION}, or the file was edited)",
-            name(0),
-            first.version
+            "{}: fingerprint does not match its embedded scenario ({why})",
+            name(0)
         )));
     }
     if count > plan.blocks {
@@ -754,7 +849,7 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
 
     let prepared = runner::prepare(&plan)?;
     let points = prepared.eval_x.nrows();
-    let mut blocks: BTreeMap<u64, BlockAcc> = BTreeMap::new();
+    let mut blocks: BTreeMap<u64, Block> = BTreeMap::new();
     for (i, d) in docs.iter().enumerate() {
         let s = shards[i];
         let range = s.block_range(plan.blocks);
@@ -768,10 +863,9 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
                     range.end
                 )));
             }
-            let acc = decode_acc(&rec.acc)
-                .and_then(|a| check_acc(&a, &plan, points, b).map(|_| a))
+            let block = decode_block(&plan, points, rec)
                 .map_err(|m| refuse(format!("{}: block {b}: {m}", name(i))))?;
-            if blocks.insert(b, acc).is_some() {
+            if blocks.insert(b, block).is_some() {
                 return Err(refuse(format!(
                     "{} holds block {b} twice (duplicated block)",
                     name(i)

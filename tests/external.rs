@@ -356,3 +356,59 @@ fn a_process_that_never_answers_times_out() {
     // timeout_seconds = 1: the run must end well before the script's 120 s sleep.
     assert_clean_failure("sleep", 1, Some(1), "did not answer within 1 s", 15.0);
 }
+
+#[test]
+fn external_keys_are_checked() {
+    let dir = tempfile::tempdir().unwrap();
+    let cases = [
+        (
+            "family = \"knn\"\ncommand = [\"python3\", \"m.py\"]",
+            "key `model.command`: not an option of family `knn`",
+        ),
+        (
+            "family = \"tree\"\ntimeout_seconds = 5",
+            "model.timeout_seconds",
+        ),
+        ("family = \"external\"\nknob = \"k\"", "needs `command`"),
+        (
+            "family = \"external\"\ncommand = [\"python3\"]",
+            "needs `knob`",
+        ),
+        (
+            "family = \"external\"\ncommand = [\"python3\"]\nknob = \"max depth\"",
+            "not a knob name",
+        ),
+        (
+            "family = \"external\"\ncommand = []\nknob = \"k\"",
+            "key `model.command`: must name a program",
+        ),
+        (
+            "family = \"external\"\ncommand = [\"python3\"]\nknob = \"k\"\ntimeout_seconds = -1",
+            "key `model.timeout_seconds`",
+        ),
+        (
+            "family = \"external\"\ncommand = [\"python3\"]\nknob = \"k\"\nstandardize = true",
+            "not an option of family `external`",
+        ),
+    ];
+    for (model, needle) in cases {
+        std::fs::write(dir.path().join("s.toml"), regression(model)).unwrap();
+        let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+            .args(["validate", "s.toml"])
+            .current_dir(dir.path())
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{model}: {err}");
+        assert!(err.contains(needle), "{model}: {err}");
+    }
+    // A valid external scenario validates without starting the process.
+    let ok = "family = \"external\"\ncommand = [\"/nonexistent/program\"]\nknob = \"k\"";
+    std::fs::write(dir.path().join("s.toml"), regression(ok)).unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .args(["validate", "s.toml"])
+        .current_dir(dir.path())
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(0));
+}

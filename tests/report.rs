@@ -112,7 +112,20 @@ fn run(src: &str) -> (Plan, Outcome, ResultDoc) {
 /// Renders an SVG to pixels; returns (width, height, pixels differing from white).
 fn render(svg: &str) -> (u32, u32, usize, resvg::tiny_skia::Pixmap) {
     let mut opt = resvg::usvg::Options::default();
-    opt.fontdb_mut().load_system_fonts();
+    let db = opt.fontdb_mut();
+    db.load_system_fonts();
+    // Map the SVG's generic `sans-serif` to a font that is installed (pixels of text are not
+    // asserted: a machine without fonts still passes).
+    let installed: Vec<String> = db
+        .faces()
+        .flat_map(|f| f.families.iter().map(|(n, _)| n.clone()))
+        .collect();
+    if let Some(fam) = ["DejaVu Sans", "Liberation Sans", "Noto Sans", "Arial"]
+        .iter()
+        .find(|f| installed.iter().any(|n| n == *f))
+    {
+        db.set_sans_serif_family(*fam);
+    }
     let tree = resvg::usvg::Tree::from_str(svg, &opt).expect("valid SVG");
     let size = tree.size().to_int_size();
     let mut pixmap =
@@ -184,7 +197,9 @@ fn log_grid_gets_a_log_axis() {
     assert_eq!((w, h), plot::CURVE_SIZE);
     assert!(inked > (w * h) as usize / 25);
     let t = texts(&svg);
-    assert!(t.iter().any(|s| s == "lambda (logarithmic axis)" || s.ends_with("(logarithmic axis)")));
+    assert!(t
+        .iter()
+        .any(|s| s == "lambda (logarithmic axis)" || s.ends_with("(logarithmic axis)")));
     // Decade ticks: 0.001 and 100 are grid ends, so 0.01 … 10 are labelled.
     for tick in ["0.01", "0.1", "1", "10"] {
         assert!(t.iter().any(|s| s == tick), "tick {tick} missing: {t:?}");
@@ -213,7 +228,9 @@ fn zero_one_curve_follows_the_decomposition_and_shows_negatives() {
     let kw = plot::curve_svg(&doc, View::KohaviWolpert).unwrap();
     assert!(texts(&kw).iter().any(|s| s == "bias² (Kohavi-Wolpert)"));
     let james = plot::curve_svg(&doc, View::James).unwrap();
-    assert!(texts(&james).join(" ").contains("systematic effect (James)"));
+    assert!(texts(&james)
+        .join(" ")
+        .contains("systematic effect (James)"));
     let (_, _, inked, _) = render(&james);
     assert!(inked > 20_000);
 }
@@ -308,7 +325,12 @@ fn html_report_is_self_contained_and_has_every_row() {
     let rows: Vec<_> = page.select(&sel("tbody tr")).collect();
     assert_eq!(rows.len(), doc.points.len());
     for (r, p) in rows.iter().zip(&doc.points) {
-        let first = r.select(&sel("td")).next().unwrap().text().collect::<String>();
+        let first = r
+            .select(&sel("td"))
+            .next()
+            .unwrap()
+            .text()
+            .collect::<String>();
         assert_eq!(first, report::fmt_value(p.value));
     }
     assert_eq!(page.select(&sel("tr.best")).count(), 1);
@@ -384,9 +406,17 @@ fn cli_writes_pictures_and_report_without_progress_bar() {
         .env("NO_COLOR", "1")
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     // Standard error is not a terminal here: no progress bar, nothing at all.
-    assert!(out.stderr.is_empty(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.stderr.is_empty(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     for f in ["r.json", "curve.svg", "points.svg", "report.html"] {
         assert!(dir.path().join(f).exists(), "{f} missing");
     }
@@ -396,7 +426,11 @@ fn cli_writes_pictures_and_report_without_progress_bar() {
         .current_dir(dir.path())
         .output()
         .unwrap();
-    assert!(out.status.success(), "{}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     assert_eq!(
         std::fs::read(dir.path().join("curve.svg")).unwrap(),
         std::fs::read(dir.path().join("again.svg")).unwrap()

@@ -467,3 +467,29 @@ fn block_accumulator_size_does_not_depend_on_the_number_of_replicates() {
         assert_eq!(x["direct"].as_str().unwrap().len(), 4 * 16);
     }
 }
+
+#[test]
+fn shards_and_checkpoints_carry_the_selection_audit() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("a.toml"), format!("{SMALL}\n[audit]\nfolds = 3\n")).unwrap();
+    ok(d, &["run", "a.toml", "--out", "full.json", "-q"]);
+    let full = read(d, "full.json");
+    let v: Value = serde_json::from_str(&full).unwrap();
+    assert!(v.get("selection").is_some(), "the audit is in the result");
+    assert_eq!(shard_and_merge(d, "a.toml", &[], 3), full);
+    let base = [
+        "run",
+        "a.toml",
+        "--checkpoint",
+        "ck.json",
+        "--out",
+        "r.json",
+        "-q",
+    ];
+    let mut stop = base.to_vec();
+    stop.extend_from_slice(&["--stop-after-blocks", "5"]);
+    assert_eq!(lossprism(d, &stop).status.code(), Some(3));
+    ok(d, &base);
+    assert_eq!(read(d, "r.json"), full);
+}

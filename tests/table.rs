@@ -61,7 +61,17 @@ fn diabetes_loads_and_a_bootstrap_tree_decomposition_runs() {
     assert_eq!(x.dim(), (441, 10));
     let dir = tmp();
     let names = [
-        "age", "sex", "bmi", "bp", "s1", "s2", "s3", "s4", "s5", "s6", "progression",
+        "age",
+        "sex",
+        "bmi",
+        "bp",
+        "s1",
+        "s2",
+        "s3",
+        "s4",
+        "s5",
+        "s6",
+        "progression",
     ];
     let rows: Vec<Vec<f64>> = (0..x.nrows())
         .map(|i| {
@@ -121,7 +131,11 @@ grid = { from = 1, to = 10 }
     assert_eq!(out.summary.total.skipped_rows(), 0);
     for t in &out.summary.terms {
         // Exact identity: bias²+noise + variance = the mean out-of-bag squared error.
-        approx::assert_relative_eq!(t.expected_loss, t.expected_loss_direct, max_relative = 1e-10);
+        approx::assert_relative_eq!(
+            t.expected_loss,
+            t.expected_loss_direct,
+            max_relative = 1e-10
+        );
         assert!(t.variance > 0.0 && t.bias_plus_noise > 0.0);
     }
 }
@@ -138,7 +152,10 @@ fn mean_table(dir: &Path, n: usize) -> Vec<f64> {
     rows.iter().map(|r| r[1]).collect()
 }
 
-fn mean_scenario(resample: &str, r: usize) -> String {
+fn mean_scenario(resample: &str, r: usize, fraction: Option<f64>) -> String {
+    let fraction = fraction
+        .map(|f| format!("train_fraction = {f}"))
+        .unwrap_or_default();
     format!(
         r#"
 name = "mean"
@@ -150,6 +167,7 @@ source = "table"
 path = "m.csv"
 target = "y"
 resample = "{resample}"
+{fraction}
 [model]
 family = "poly"
 grid = [0]
@@ -166,7 +184,7 @@ fn bootstrap_variance_of_the_mean_is_the_plug_in_variance_over_n() {
     let dir = tmp();
     let n = 30;
     let y = mean_table(dir.path(), n);
-    let plan = plan_in(dir.path(), &mean_scenario("bootstrap", 20000));
+    let plan = plan_in(dir.path(), &mean_scenario("bootstrap", 20000, None));
     let out = resample::run(&plan, 0).expect("runs");
     let target: f64 = (0..n)
         .map(|i| {
@@ -190,23 +208,26 @@ fn half_sampling_variance_of_the_mean_carries_the_finite_population_factor() {
     let dir = tmp();
     let n = 30;
     let y = mean_table(dir.path(), n);
-    let plan = plan_in(dir.path(), &mean_scenario("half", 20000));
-    let out = resample::run(&plan, 0).expect("runs");
-    let m = 15.0;
-    let target: f64 = (0..n)
-        .map(|i| {
-            let rest: Vec<f64> = (0..n).filter(|&j| j != i).map(|j| y[j]).collect();
-            let np = rest.len() as f64;
-            let mu = rest.iter().sum::<f64>() / np;
-            let s2 = rest.iter().map(|v| (v - mu) * (v - mu)).sum::<f64>() / (np - 1.0);
-            s2 / m * (1.0 - m / np)
-        })
-        .sum::<f64>()
-        / n as f64;
-    let v = out.summary.terms[0].variance;
-    let se = out.summary.stderr[0].variance;
-    println!("half: variance {v} ± {se}, exact {target}");
-    assert!((v - target).abs() < 4.0 * se, "{v} vs {target} ± {se}");
+    // m = N/2 (the default) and m = 9 of 30 (train_fraction = 0.3). At m = N/2 the exact value
+    // coincides with the bootstrap's (N − 2)/(N(N − 1))·S²-type limit; 0.3 tells them apart.
+    for (fraction, m) in [(None, 15.0), (Some(0.3), 9.0)] {
+        let plan = plan_in(dir.path(), &mean_scenario("half", 20000, fraction));
+        let out = resample::run(&plan, 0).expect("runs");
+        let target: f64 = (0..n)
+            .map(|i| {
+                let rest: Vec<f64> = (0..n).filter(|&j| j != i).map(|j| y[j]).collect();
+                let np = rest.len() as f64;
+                let mu = rest.iter().sum::<f64>() / np;
+                let s2 = rest.iter().map(|v| (v - mu) * (v - mu)).sum::<f64>() / (np - 1.0);
+                s2 / m * (1.0 - m / np)
+            })
+            .sum::<f64>()
+            / n as f64;
+        let v = out.summary.terms[0].variance;
+        let se = out.summary.stderr[0].variance;
+        println!("subsample m = {m}: variance {v} ± {se}, exact {target}");
+        assert!((v - target).abs() < 4.0 * se, "{v} vs {target} ± {se}");
+    }
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -226,7 +247,11 @@ fn gsjs_is_unbiased_for_a_linear_truth() {
         .map(|s| {
             let mut rng = ChaCha8Rng::seed_from_u64(1000 + s);
             let x = draw_x(&mut rng, 50, 1);
-            let y = Array1::from_iter(x.column(0).iter().map(|v| 1.0 + 2.0 * v + nd.sample(&mut rng)));
+            let y = Array1::from_iter(
+                x.column(0)
+                    .iter()
+                    .map(|v| 1.0 + 2.0 * v + nd.sample(&mut rng)),
+            );
             noise::gsjs(x.column(0), y.view()).unwrap().value
         })
         .collect();
@@ -256,20 +281,38 @@ fn nearest_neighbour_estimator_constant_truth_unbiased_and_smooth_truth_within_i
         let x = draw_x(&mut rng, 500, 2);
         let f = Array1::from_iter(x.rows().into_iter().map(smooth_f));
         let e = Array1::from_iter((0..500).map(|_| nd.sample(&mut rng)));
-        flat.push(noise::nearest_neighbour(x.view(), (&e + 3.0).view()).unwrap().value);
+        flat.push(
+            noise::nearest_neighbour(x.view(), (&e + 3.0).view())
+                .unwrap()
+                .value,
+        );
         let b = noise::nearest_neighbour(x.view(), f.view()).unwrap().value;
-        smooth.push(noise::nearest_neighbour(x.view(), (&f + &e).view()).unwrap().value - b);
+        smooth.push(
+            noise::nearest_neighbour(x.view(), (&f + &e).view())
+                .unwrap()
+                .value
+                - b,
+        );
         bias.push(b);
     }
     let (m, sd) = mean_sd(&flat);
     let se = sd / (flat.len() as f64).sqrt();
-    assert!((m - sigma2).abs() < 4.0 * se, "constant f: {m} vs {sigma2} ± {se}");
+    assert!(
+        (m - sigma2).abs() < 4.0 * se,
+        "constant f: {m} vs {sigma2} ± {se}"
+    );
     let (m, sd) = mean_sd(&smooth);
     let se = sd / (smooth.len() as f64).sqrt();
-    assert!((m - sigma2).abs() < 4.0 * se, "smooth f, bias removed: {m} vs {sigma2} ± {se}");
+    assert!(
+        (m - sigma2).abs() < 4.0 * se,
+        "smooth f, bias removed: {m} vs {sigma2} ± {se}"
+    );
     // Stated tolerance on the smooth f at n = 500, p = 2: the estimator's bias is under 5% of σ².
     let (b, _) = mean_sd(&bias);
-    println!("nn bias on smooth f: {b} ({:.2}% of σ²)", 100.0 * b / sigma2);
+    println!(
+        "nn bias on smooth f: {b} ({:.2}% of σ²)",
+        100.0 * b / sigma2
+    );
     assert!(b < 0.05 * sigma2, "bias {b}");
 }
 
@@ -362,14 +405,23 @@ grid = {grid}
 "#
     );
     let spec = scenario::parse(&src, "fresh").unwrap();
-    let fresh = Plan::from_spec(&spec, &src, "fresh", Path::new("."), &PlanOptions::default())
-        .expect("plans");
+    let fresh = Plan::from_spec(
+        &spec,
+        &src,
+        "fresh",
+        Path::new("."),
+        &PlanOptions::default(),
+    )
+    .expect("plans");
     let fout = runner::run(&fresh, 0).expect("runs");
     let fs = fout.summary.squared().unwrap();
     for g in 0..3 {
         let vt = tout.summary.terms[g].variance;
         let vf = fs.terms[g].variance;
-        println!("depth grid[{g}]: table variance {vt:.4}, fresh variance {vf:.4}, ratio {:.2}", vt / vf);
+        println!(
+            "depth grid[{g}]: table variance {vt:.4}, fresh variance {vf:.4}, ratio {:.2}",
+            vt / vf
+        );
         assert!(vt / vf > 0.5 && vt / vf < 2.0, "ratio {}", vt / vf);
         // The table's bias²+noise estimates noise + bias²: compare with the fresh decomposition
         // within a factor 2 as well (same bootstrap distortion).
@@ -455,10 +507,26 @@ fn bad_tables_exit_2_with_a_message_naming_file_column_and_line() {
     let cases: [(&str, &str, &[&str]); 7] = [
         ("", "empty", &["d.csv", "empty"]),
         ("1,2\n3,4\n5,6\n", "no header", &["d.csv:1", "no header"]),
-        ("a,b\n1,2\n3,4\n5,6\n6,7\n8,9\n", "missing target", &["d.csv:1", "no target column `y`", "a, b"]),
-        ("a,y\n1,2\n3,2\n5,2\n6,2\n7,2\n", "constant target", &["d.csv", "column `y`", "constant"]),
-        ("a,y\n1,2\n3,4\nx7,5\n6,7\n8,9\n9,1\n", "non-numeric cell", &["d.csv:4", "column `a`", "`x7` is not a number"]),
-        ("a,y\n1,2\n3,4\n5,6\n", "too few rows", &["d.csv", "only 3 usable rows", "at least 5"]),
+        (
+            "a,b\n1,2\n3,4\n5,6\n6,7\n8,9\n",
+            "missing target",
+            &["d.csv:1", "no target column `y`", "a, b"],
+        ),
+        (
+            "a,y\n1,2\n3,2\n5,2\n6,2\n7,2\n",
+            "constant target",
+            &["d.csv", "column `y`", "constant"],
+        ),
+        (
+            "a,y\n1,2\n3,4\nx7,5\n6,7\n8,9\n9,1\n",
+            "non-numeric cell",
+            &["d.csv:4", "column `a`", "`x7` is not a number"],
+        ),
+        (
+            "a,y\n1,2\n3,4\n5,6\n",
+            "too few rows",
+            &["d.csv", "only 3 usable rows", "at least 5"],
+        ),
         (
             &many_levels(),
             "too many levels",
@@ -505,7 +573,10 @@ fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     let first = run_in(dir.path(), &["run", "c.toml", "--assess", "4"]);
     assert_eq!(first.status.code(), Some(0), "{}", stderr(&first));
     let out = String::from_utf8_lossy(&first.stdout);
-    assert!(out.contains("over 60 rows") && out.contains("assessment 1"), "{out}");
+    assert!(
+        out.contains("over 60 rows") && out.contains("assessment 1"),
+        "{out}"
+    );
     assert!(!stderr(&first).contains("warning"));
     let second = run_in(dir.path(), &["run", "c.toml", "--assess", "6"]);
     assert_eq!(second.status.code(), Some(0));
@@ -519,9 +590,15 @@ fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     )
     .unwrap();
     assert_eq!(ledger["holdouts"][0]["assessments"], 2);
-    assert_eq!(ledger["holdouts"][0]["values"], serde_json::json!([4.0, 6.0]));
+    assert_eq!(
+        ledger["holdouts"][0]["values"],
+        serde_json::json!([4.0, 6.0])
+    );
     // The decomposition never touches the holdout: 240 of 300 rows are resampled.
-    let run = run_in(dir.path(), &["run", "c.toml", "--replicates", "20", "--out", "r.json"]);
+    let run = run_in(
+        dir.path(),
+        &["run", "c.toml", "--replicates", "20", "--out", "r.json"],
+    );
     assert_eq!(run.status.code(), Some(0), "{}", stderr(&run));
     let doc: serde_json::Value =
         serde_json::from_str(&fs::read_to_string(dir.path().join("r.json")).unwrap()).unwrap();
@@ -574,13 +651,21 @@ grid = [1, 5, 15]
     };
     // Stratified: each class contributes round(0.25 · n_c) rows.
     for (c, &nc) in counts.iter().enumerate() {
-        let got = tp.holdout.iter().filter(|&&i| tp.table.y[i] as usize == c).count();
+        let got = tp
+            .holdout
+            .iter()
+            .filter(|&&i| tp.table.y[i] as usize == c)
+            .count();
         assert_eq!(got, (0.25 * nc as f64).round() as usize);
     }
     let out = resample::run(&plan, 0).expect("runs");
     for t in &out.summary.terms {
         // Exact identity (Domingos 2000 with the observed label): loss = bias + net variance.
-        approx::assert_relative_eq!(t.expected_loss, t.bias_plus_noise + t.net_variance, max_relative = 1e-12);
+        approx::assert_relative_eq!(
+            t.expected_loss,
+            t.bias_plus_noise + t.net_variance,
+            max_relative = 1e-12
+        );
         assert!(t.expected_loss > 0.0 && t.expected_loss < 0.5);
     }
     let dir_path: PathBuf = dir.path().to_path_buf();

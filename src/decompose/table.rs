@@ -56,7 +56,14 @@ impl TableAcc {
             mean: vec![0.0; cells],
             m2: vec![0.0; cells],
             sse: vec![0.0; cells],
-            votes: vec![0; if classes == 0 { 0 } else { grid * rows * classes }],
+            votes: vec![
+                0;
+                if classes == 0 {
+                    0
+                } else {
+                    grid * rows * classes
+                }
+            ],
             held_share_sum: 0.0,
             held_share_sq: 0.0,
         }
@@ -316,7 +323,12 @@ pub fn summarize(blocks: &[TableAcc], y: &[f64]) -> Option<TableSummary> {
     let nb = blocks.len();
     let loo: Vec<Vec<TableTerms>> = if nb >= 2 {
         (0..nb)
-            .map(|b| terms(&TableAcc::fold(blocks, Some(b)).expect("a block remains"), y))
+            .map(|b| {
+                terms(
+                    &TableAcc::fold(blocks, Some(b)).expect("a block remains"),
+                    y,
+                )
+            })
             .collect()
     } else {
         Vec::new()
@@ -419,7 +431,12 @@ mod tests {
         let (g, n, k) = (1, 3, 3);
         let y = [0.0, 1.0, 2.0];
         let mut acc = TableAcc::new(g, n, k);
-        let votes = [[0.0, 0.0, 1.0], [0.0, 1.0, 1.0], [2.0, 1.0, 0.0], [0.0, 1.0, 2.0]];
+        let votes = [
+            [0.0, 0.0, 1.0],
+            [0.0, 1.0, 1.0],
+            [2.0, 1.0, 0.0],
+            [0.0, 1.0, 2.0],
+        ];
         for v in votes {
             let p = Array2::from_shape_vec((1, 3), v.to_vec()).unwrap();
             acc.push(&[0, 1, 2], p.view(), &y);

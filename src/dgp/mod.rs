@@ -18,6 +18,16 @@ pub enum InputDist {
     Normal(f64, f64),
     /// Evenly spaced over the sample: point i of n sits at `lo + (hi-lo)·i/(n-1)`.
     Even(f64, f64),
+    /// Column `column` of a table's rows (a twin, see [`crate::twin`]). When every input is
+    /// empirical, whole rows are drawn with replacement, so the columns keep their joint law.
+    Empirical {
+        /// The table's input rows.
+        rows: std::sync::Arc<ndarray::Array2<f64>>,
+        /// Which column.
+        column: usize,
+        /// The table file, for descriptions.
+        source: String,
+    },
 }
 
 impl InputDist {
@@ -27,6 +37,9 @@ impl InputDist {
             InputDist::Uniform(a, b) => format!("uniform({a}, {b})"),
             InputDist::Normal(m, s) => format!("normal(mean {m}, sd {s})"),
             InputDist::Even(a, b) => format!("evenly spaced over [{a}, {b}]"),
+            InputDist::Empirical { rows, source, .. } => {
+                format!("the {} rows of {source}, resampled", rows.nrows())
+            }
         }
     }
 }
@@ -136,6 +149,8 @@ pub enum Truth {
     Formula(Formula),
     /// A published test function.
     Builtin(Builtin),
+    /// A twin's reference fit on a table.
+    Reference(std::sync::Arc<crate::twin::Reference>),
 }
 
 impl Truth {
@@ -144,6 +159,7 @@ impl Truth {
         match self {
             Truth::Formula(f) => f.source().to_string(),
             Truth::Builtin(b) => b.name().to_string(),
+            Truth::Reference(r) => r.describe(),
         }
     }
 
@@ -151,6 +167,7 @@ impl Truth {
         match self {
             Truth::Formula(f) => f.eval(row),
             Truth::Builtin(b) => b.eval(row),
+            Truth::Reference(r) => r.mean_at(row),
         }
     }
 }
@@ -162,6 +179,8 @@ pub enum Noise {
     Constant(f64),
     /// σ(x) as a formula over the inputs.
     Formula(Formula),
+    /// A twin's varying noise: σ²(x) from the reference's smoothed squared residuals.
+    Reference(std::sync::Arc<crate::twin::Reference>),
 }
 
 impl Noise {
@@ -170,6 +189,7 @@ impl Noise {
         match self {
             Noise::Constant(s) => format!("gaussian, sd {s}"),
             Noise::Formula(f) => format!("gaussian, sd = {}", f.source()),
+            Noise::Reference(r) => r.describe_noise(),
         }
     }
 }
@@ -190,6 +210,8 @@ pub enum ClassKind {
         /// Flip probability.
         flip: f64,
     },
+    /// A twin's reference fit: neighbour shares with add-one smoothing.
+    Reference(std::sync::Arc<crate::twin::Reference>),
 }
 
 /// A classification response: labels and P(Y = c | x).
@@ -215,6 +237,9 @@ impl ClassModel {
                     "rule {} with labels flipped with probability {flip}",
                     rule.source()
                 )
+            }
+            ClassKind::Reference(r) => {
+                format!("class shares (add-one smoothed) of the {}", r.describe())
             }
         }
     }
@@ -256,6 +281,9 @@ impl Synthetic {
     /// Draws `n` input rows from the input distributions.
     pub fn draw_inputs<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Array2<f64> {
         let p = self.inputs.len();
+        if let Some(rows) = self.empirical_rows() {
+            return crate::twin::resample_rows(rows, n, rng);
+        }
         let mut x = Array2::<f64>::zeros((n, p));
         // Column by column so that each input's draws do not depend on the other inputs' kinds.
         for (j, input) in self.inputs.iter().enumerate() {
@@ -266,6 +294,10 @@ impl Synthetic {
                         let z: f64 = StandardNormal.sample(rng);
                         m + s * z
                     }
+                    // Mixed with other kinds (not produced by a plan): one row per value.
+                    InputDist::Empirical {
+                        ref rows, column, ..
+                    } => rows[[rng.gen_range(0..rows.nrows()), column]],
                     InputDist::Even(a, b) => {
                         if n == 1 {
                             0.5 * (a + b)
@@ -277,6 +309,24 @@ impl Synthetic {
             }
         }
         x
+    }
+
+    /// The shared table rows when every input is an empirical column `0..p` of the same rows
+    /// in order (a twin), else `None`.
+    pub fn empirical_rows(&self) -> Option<&ndarray::Array2<f64>> {
+        let InputDist::Empirical { rows, .. } = &self.inputs.first()?.dist else {
+            return None;
+        };
+        let all = self.inputs.iter().enumerate().all(|(j, i)| {
+            matches!(&i.dist, InputDist::Empirical { rows: r, column, .. }
+                if std::sync::Arc::ptr_eq(r, rows) && *column == j)
+        }) && rows.ncols() == self.inputs.len();
+        all.then_some(rows.as_ref())
+    }
+
+    /// `true` for a twin (inputs resampled from a table's rows).
+    pub fn is_twin(&self) -> bool {
+        self.empirical_rows().is_some()
     }
 
     /// f at each row (regression); an error names the formula and the input values where it is
@@ -295,7 +345,11 @@ impl Synthetic {
             if !v.is_finite() {
                 return Err(Error::Data(format!(
                     "key `data.truth.{}`: `{}` gives {v} at {}",
-                    if matches!(truth, Truth::Builtin(_)) { "builtin" } else { "formula" },
+                    if matches!(truth, Truth::Builtin(_)) {
+                        "builtin"
+                    } else {
+                        "formula"
+                    },
                     truth.describe(),
                     describe_row(&self.inputs, &buf)
                 )));
@@ -367,6 +421,12 @@ impl Synthetic {
                     }
                     out[[i, v as usize]] = 1.0 - flip;
                 }
+                ClassKind::Reference(r) => {
+                    r.probs_at(&buf, &mut logits);
+                    for c in 0..k {
+                        out[[i, c]] = logits[c];
+                    }
+                }
             }
         }
         Ok(out)
@@ -381,6 +441,15 @@ impl Synthetic {
         };
         match noise {
             Noise::Constant(s) => Ok(Array1::from_elem(x.nrows(), *s)),
+            Noise::Reference(r) => {
+                let mut out = Array1::zeros(x.nrows());
+                let mut buf = vec![0.0; x.ncols()];
+                for (i, row) in x.rows().into_iter().enumerate() {
+                    copy_row(row, &mut buf);
+                    out[i] = r.var_at(&buf).unwrap_or(0.0).max(0.0).sqrt();
+                }
+                Ok(out)
+            }
             Noise::Formula(f) => {
                 let mut out = Array1::zeros(x.nrows());
                 let mut buf = vec![0.0; x.ncols()];

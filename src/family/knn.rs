@@ -81,13 +81,49 @@ fn column_major(rows: &[f64], n: usize, p: usize, scaling: Option<&[(f64, f64)]>
     cols
 }
 
+/// Training rows per distance block: the partial sums of a block stay in registers while the
+/// inputs are scanned.
+const DIST_BLOCK: usize = 8;
+
+/// Squared Euclidean distances from `query` to every training row (`cols` column-major, `n`
+/// rows), written into `dist`. For every row the sum runs over the inputs left to right starting
+/// from 0.0, so the value does not depend on the blocking.
+fn distances_into(cols: &[f64], n: usize, query: &[f64], dist: &mut [f64]) {
+    let mut chunks = dist.chunks_exact_mut(DIST_BLOCK);
+    let mut i0 = 0;
+    for chunk in &mut chunks {
+        let mut acc = [0.0f64; DIST_BLOCK];
+        for (j, &q) in query.iter().enumerate() {
+            let c = &cols[j * n + i0..j * n + i0 + DIST_BLOCK];
+            for (a, &x) in acc.iter_mut().zip(c) {
+                let t = x - q;
+                *a += t * t;
+            }
+        }
+        chunk.copy_from_slice(&acc);
+        i0 += DIST_BLOCK;
+    }
+    for (l, d) in chunks.into_remainder().iter_mut().enumerate() {
+        let i = i0 + l;
+        let mut a = 0.0;
+        for (j, &q) in query.iter().enumerate() {
+            let t = cols[j * n + i] - q;
+            a += t * t;
+        }
+        *d = a;
+    }
+}
+
 /// Finds the `kmax` nearest training rows to `query` and leaves their keys, sorted ascending, in
 /// `keys[..kmax]`. `cols` holds the training inputs column-major (`n` rows, `query.len()`
 /// columns); `dist` (length `n`) and `keys` are scratch reused across queries; `1 <= kmax <= n`.
 ///
-/// Squared distances are accumulated column by column, which vectorises across training rows
-/// while keeping, for every row, the plain left-to-right summation order over the inputs. The
-/// `kmax` smallest keys are then selected in linear time and only those are sorted.
+/// Squared distances are computed in blocks of training rows (see [`distances_into`]). The
+/// `kmax` smallest keys are then found with a filter: the first `kmax` rows are kept, and a later
+/// row is appended (without a branch) only when its distance bits are strictly below those of
+/// the largest kept key — on equal distance the kept, earlier row is the smaller key, so nothing
+/// rejected can be among the `kmax` smallest. When `2 × kmax` keys are held, a linear-time
+/// selection keeps the `kmax` smallest and tightens the filter. Only the final `kmax` are sorted.
 fn nearest_into(
     cols: &[f64],
     n: usize,
@@ -96,17 +132,27 @@ fn nearest_into(
     dist: &mut [f64],
     keys: &mut Vec<u128>,
 ) {
-    dist.fill(0.0);
-    for (j, &q) in query.iter().enumerate() {
-        for (d, &x) in dist.iter_mut().zip(&cols[j * n..(j + 1) * n]) {
-            let t = x - q;
-            *d += t * t;
+    distances_into(cols, n, query, dist);
+    let cap = 2 * kmax;
+    keys.clear();
+    keys.resize(cap + 1, 0);
+    for (i, (k, &d)) in keys.iter_mut().zip(&dist[..kmax]).enumerate() {
+        *k = key(d, i);
+    }
+    let mut len = kmax;
+    let mut top = (keys[..kmax].iter().copied().max().unwrap_or(0) >> 64) as u64;
+    for (i, &d) in dist.iter().enumerate().skip(kmax) {
+        let bits = d.to_bits();
+        keys[len] = key(d, i);
+        len += usize::from(bits < top);
+        if len == cap {
+            keys[..len].select_nth_unstable(kmax - 1);
+            len = kmax;
+            top = (keys[kmax - 1] >> 64) as u64;
         }
     }
-    keys.clear();
-    keys.extend(dist.iter().enumerate().map(|(i, &d)| key(d, i)));
-    if kmax < n {
-        keys.select_nth_unstable(kmax - 1);
+    if len > kmax {
+        keys[..len].select_nth_unstable(kmax - 1);
     }
     keys[..kmax].sort_unstable();
 }

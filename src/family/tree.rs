@@ -198,6 +198,47 @@ fn sort_key(v: f64) -> u64 {
     }
 }
 
+/// Sorts `pairs` by their `u64` key, stably (pairs with equal keys keep their order): a
+/// least-significant-digit radix sort on bytes, skipping the bytes every key shares. `tmp` is
+/// scratch of the same length. Linear in the length, where a comparison sort is not.
+fn radix_sort_stable(pairs: &mut [(u64, u32)], tmp: &mut [(u64, u32)]) {
+    let n = pairs.len();
+    let mut hist = [[0usize; 256]; 8];
+    for &(k, _) in pairs.iter() {
+        for (b, h) in hist.iter_mut().enumerate() {
+            h[((k >> (8 * b)) & 0xff) as usize] += 1;
+        }
+    }
+    let mut in_pairs = true;
+    for (b, h) in hist.iter_mut().enumerate() {
+        if h.iter().any(|&c| c == n) {
+            continue;
+        }
+        let mut sum = 0;
+        for c in h.iter_mut() {
+            let t = *c;
+            *c = sum;
+            sum += t;
+        }
+        let scatter = |src: &[(u64, u32)], dst: &mut [(u64, u32)], h: &mut [usize; 256]| {
+            for &e in src {
+                let d = ((e.0 >> (8 * b)) & 0xff) as usize;
+                dst[h[d]] = e;
+                h[d] += 1;
+            }
+        };
+        if in_pairs {
+            scatter(pairs, tmp, h);
+        } else {
+            scatter(tmp, pairs, h);
+        }
+        in_pairs = !in_pairs;
+    }
+    if !in_pairs {
+        pairs.copy_from_slice(&tmp[..n]);
+    }
+}
+
 /// Responses in the form the split search needs.
 enum Target<'a> {
     Regress(&'a [f64]),
@@ -317,6 +358,7 @@ impl TreeFamily {
         let mut idx = vec![0u32; n * p];
         let mut val = vec![0.0f64; n * p];
         let mut pairs: Vec<(u64, u32)> = Vec::with_capacity(n);
+        let mut radix_tmp: Vec<(u64, u32)> = vec![(0, 0); n];
         for f in 0..p {
             pairs.clear();
             pairs.extend(
@@ -325,7 +367,8 @@ impl TreeFamily {
                     .enumerate()
                     .map(|(i, &v)| (sort_key(v), i as u32)),
             );
-            pairs.sort_unstable();
+            // Built in index order, so a stable sort by key is the sort by (key, index).
+            radix_sort_stable(&mut pairs, &mut radix_tmp);
             let col = x.column(f);
             for (k, &(_, i)) in pairs.iter().enumerate() {
                 idx[f * n + k] = i;

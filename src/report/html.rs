@@ -55,9 +55,11 @@ pub fn fmt_duration(secs: f64) -> String {
 /// Makes plotters' SVG fit for inlining: drops the namespace declaration (implied in HTML) and
 /// lets the picture shrink with the page.
 fn inline_svg(svg: &str, label: &str) -> String {
-    let body = svg
-        .trim_start_matches(|c: char| c != '<')
-        .replacen(" xmlns=\"http://www.w3.org/2000/svg\"", "", 1);
+    let body = svg.trim_start_matches(|c: char| c != '<').replacen(
+        " xmlns=\"http://www.w3.org/2000/svg\"",
+        "",
+        1,
+    );
     body.replacen(
         "<svg ",
         &format!(
@@ -251,7 +253,12 @@ dl.facts dd{margin:0}
 
 /// Renders the report. `wall_seconds` is the run's wall time (not part of the result document,
 /// which stays identical across runs); `view` chooses the 0-1 decomposition of the table.
-pub fn render(doc: &ResultDoc, view: View, pictures: &Pictures, wall_seconds: Option<f64>) -> String {
+pub fn render(
+    doc: &ResultDoc,
+    view: View,
+    pictures: &Pictures,
+    wall_seconds: Option<f64>,
+) -> String {
     let mut h = String::new();
     let e = escape;
     let _ = write!(
@@ -333,11 +340,7 @@ pub fn render(doc: &ResultDoc, view: View, pictures: &Pictures, wall_seconds: Op
         for c in r {
             let _ = write!(h, "<td>{}</td>", e(c));
         }
-        let _ = writeln!(
-            h,
-            "<td>{}</td></tr>",
-            if best { "lowest" } else { "" }
-        );
+        let _ = writeln!(h, "<td>{}</td></tr>", if best { "lowest" } else { "" });
     }
     let _ = writeln!(
         h,
@@ -359,7 +362,9 @@ pub fn render(doc: &ResultDoc, view: View, pictures: &Pictures, wall_seconds: Op
     fact("lossprism version", doc.version.clone());
     fact(
         "wall time",
-        wall_seconds.map(fmt_duration).unwrap_or_else(|| "not measured".into()),
+        wall_seconds
+            .map(fmt_duration)
+            .unwrap_or_else(|| "not measured".into()),
     );
     fact(
         "best value",

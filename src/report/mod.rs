@@ -222,6 +222,9 @@ pub struct ResultDoc {
     /// Table source: the known distortion of the resampling scheme.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub scheme_note: Option<String>,
+    /// The selection audit (`[audit]`): what cross-validation chose in each replicate.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub selection: Option<crate::audit::Selection>,
 }
 
 /// A noise-variance estimate on a table (`noise_estimate`).
@@ -279,7 +282,12 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
     ScenarioEcho {
         name: plan.name.clone(),
         about: plan.about.clone(),
-        source: "synthetic".into(),
+        source: if s.process.is_twin() {
+            "twin"
+        } else {
+            "synthetic"
+        }
+        .into(),
         train_size: s.train_size,
         eval_size: s.eval_size,
         design: match s.design {
@@ -401,6 +409,7 @@ fn zero_one_row(value: f64, t: &ZeroOneTerms, e: &ZeroOneTerms) -> PointRow {
 /// Builds the result document of a finished run.
 pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     let points: Vec<PointRow> = match &outcome.summary {
+        Summary::Table(t) => return crate::table::report::build(plan, t),
         Summary::Squared(s) => plan
             .grid
             .iter()
@@ -416,6 +425,10 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     };
     let best = best_of(&points);
     let reading = reading(plan.family.knob(), plan.loss, &points, &best);
+    let selection = match (&plan.audit, &outcome.audit) {
+        (Some(a), Some(c)) => Some(crate::audit::selection(a, &c.counts, &points, &best)),
+        _ => None,
+    };
     ResultDoc {
         format: FORMAT.into(),
         version: env!("CARGO_PKG_VERSION").into(),
@@ -431,6 +444,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         table: None,
         noise_estimate: None,
         scheme_note: None,
+        selection,
     }
 }
 
@@ -724,8 +738,10 @@ pub fn to_csv(doc: &ResultDoc) -> String {
 /// CSV with one row per evaluation point and grid value: the inputs, then the per-point terms.
 pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
     let Source::Synthetic(s) = &plan.source else {
-        // Table runs write their per-row CSV with `table::resample::points_csv`.
-        return String::new();
+        return match &outcome.summary {
+            Summary::Table(t) => crate::table::resample::points_csv(plan, t),
+            _ => String::new(),
+        };
     };
     let prep = &outcome.prepared;
     let mut w = csv::Writer::from_writer(Vec::new());
@@ -756,6 +772,7 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
                 }
             }
         }
+        Summary::Table(_) => {}
         Summary::ZeroOne(sum) => {
             let labels = match &s.process.response {
                 Response::Classes(m) => m.labels.clone(),

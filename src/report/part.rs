@@ -71,6 +71,9 @@ pub struct BlockRecord {
     pub end_replicate: u64,
     /// The block's accumulator.
     pub acc: AccRecord,
+    /// Selection audit counts per grid value (scenarios with `[audit]` only).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub audit: Option<Vec<u64>>,
 }
 
 /// The part document (`lossprism-part/1`), written by `run --shard` and `run --checkpoint`.

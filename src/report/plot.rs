@@ -144,7 +144,12 @@ fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
             loss,
             mk(
                 "bias² (Kohavi-Wolpert)",
-                col(&|r| r.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq).unwrap_or(nan)),
+                col(&|r| {
+                    r.kohavi_wolpert
+                        .as_ref()
+                        .and_then(|k| k.bias_sq)
+                        .unwrap_or(nan)
+                }),
                 cse(&|r| r.stderr.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq)),
                 l1,
             ),
@@ -161,7 +166,12 @@ fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
             ),
             mk(
                 "noise (Kohavi-Wolpert)",
-                col(&|r| r.kohavi_wolpert.as_ref().and_then(|k| k.noise).unwrap_or(nan)),
+                col(&|r| {
+                    r.kohavi_wolpert
+                        .as_ref()
+                        .and_then(|k| k.noise)
+                        .unwrap_or(nan)
+                }),
                 cse(&|_| Some(0.0)),
                 l3,
             ),
@@ -254,7 +264,10 @@ fn marker_at<DB: DrawingBackend>(
     let s = c.stroke_width(2);
     match m {
         Marker::Dot => area.draw(&Circle::new((x, y), 5, c.filled())),
-        Marker::Square => area.draw(&Rectangle::new([(x - 4, y - 4), (x + 4, y + 4)], c.filled())),
+        Marker::Square => area.draw(&Rectangle::new(
+            [(x - 4, y - 4), (x + 4, y + 4)],
+            c.filled(),
+        )),
         Marker::Triangle => area.draw(&TriangleMarker::new((x, y), 6, c.filled())),
         Marker::Cross => area.draw(&Cross::new((x, y), 5, s)),
         Marker::Diamond => area.draw(&Polygon::new(
@@ -386,6 +399,7 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         let mut chart = ChartBuilder::on(&plot)
             .margin_left(10)
             .margin_right(16)
+            .margin_top(26)
             .margin_bottom(8)
             .x_label_area_size(52)
             .y_label_area_size(74)
@@ -410,12 +424,12 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         };
         chart
             .configure_mesh()
-            .light_line_style(RGBColor(0xee, 0xee, 0xee))
+            .light_line_style(RGBColor(0xf3, 0xf3, 0xf3))
             .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
             .x_labels(n_labels)
             .y_labels(8)
             .x_label_formatter(&xfmt)
-            .y_label_formatter(&|v: &f64| super::fmt_num(*v))
+            .y_label_formatter(&|v: &f64| fmt_value(*v))
             .x_desc(x_desc)
             .y_desc(unit)
             .axis_desc_style((FONT, 16))
@@ -515,9 +529,39 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             ))
             .map_err(draw_err)?;
 
+        // Above the plot area: which part of the grid is bias-dominated, which variance-dominated.
+        let region = |pick: &dyn Fn(usize) -> bool| -> Option<f64> {
+            let v: Vec<f64> = (0..xs.len()).filter(|&i| pick(i)).map(|i| xs[i]).collect();
+            (!v.is_empty()).then(|| (v[0] + v[v.len() - 1]) / 2.0)
+        };
+        let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
+        let font = (FONT, 14).into_font().color(&STONE);
+        for (centre, text) in [
+            (region(&bias_dom), "bias dominates: underfitting"),
+            (region(&|i| !bias_dom(i)), "variance dominates: overfitting"),
+        ] {
+            if let Some(c) = centre {
+                let (px, _) = chart.backend_coord(&(c, y1));
+                let (_, top_y) = chart.backend_coord(&(c, y1));
+                let half = (text.chars().count() as i32 * 7) / 2;
+                let lo = chart.backend_coord(&(x0, y1)).0;
+                let hi = chart.backend_coord(&(x1, y1)).0;
+                let x = (px - half).clamp(lo, (hi - 2 * half).max(lo));
+                root.draw(&Text::new(text, (x, top_y - 20), font.clone()))
+                    .map_err(draw_err)?;
+            }
+        }
+
         // Side panel: legend, then how to read it.
         let mut y = 16;
-        y = panel_text(&panel, "Series (band: ±2 standard errors)", (8, y), 14, INK, 34)?;
+        y = panel_text(
+            &panel,
+            "Series (band: ±2 standard errors)",
+            (8, y),
+            14,
+            INK,
+            34,
+        )?;
         y += 8;
         for s in &series {
             sample_line(&panel, &s.look, 10, 58, y + 7)?;
@@ -617,7 +661,8 @@ fn input_column(names: &[String], input: Option<&str>) -> Result<usize, Error> {
 /// Checks before a run that the per-point view can be drawn for `plan` with `input`, so a
 /// long run does not end in a refusal.
 pub fn check_point_request(plan: &Plan, input: Option<&str>) -> Result<(), Error> {
-    if !matches!(plan.source, Source::Synthetic(_)) || plan.loss != crate::scenario::LossKind::Squared
+    if !matches!(plan.source, Source::Synthetic(_))
+        || plan.loss != crate::scenario::LossKind::Squared
     {
         return Err(Error::Usage(
             "--plot-points needs a synthetic scenario with squared loss (a known truth and mean \
@@ -656,14 +701,12 @@ pub fn point_view(
     };
     let names: Vec<String> = doc.scenario.inputs.iter().map(|i| i.name.clone()).collect();
     let col = input_column(&names, input)?;
-    let prep = &outcome.prepared;    let acc = &sum.total;
+    let prep = &outcome.prepared;
+    let acc = &sum.total;
     let m = acc.points;
     let ex: Vec<f64> = prep.eval_x.column(col).to_vec();
     let grid = &plan.grid;
-    let best_g = grid
-        .iter()
-        .position(|v| *v == doc.best.value)
-        .unwrap_or(0);
+    let best_g = grid.iter().position(|v| *v == doc.best.value).unwrap_or(0);
     let mut picks: Vec<(usize, &str)> = vec![(0, "smallest")];
     if best_g != 0 {
         picks.push((best_g, "best"));
@@ -685,12 +728,16 @@ pub fn point_view(
     let groups: Vec<Vec<usize>> = if names.len() == 1 {
         order.iter().map(|&e| vec![e]).collect()
     } else {
-        let bins = (m / 12).clamp(5, 40);
+        let bins = (m / 25).clamp(5, 30);
         let (lo, hi) = (
             order.first().map(|&e| ex[e]).unwrap_or(0.0),
             order.last().map(|&e| ex[e]).unwrap_or(1.0),
         );
-        let w = if hi > lo { (hi - lo) / bins as f64 } else { 1.0 };
+        let w = if hi > lo {
+            (hi - lo) / bins as f64
+        } else {
+            1.0
+        };
         let mut g: Vec<Vec<usize>> = vec![Vec::new(); bins];
         for &e in &order {
             let b = (((ex[e] - lo) / w) as usize).min(bins - 1);
@@ -745,13 +792,11 @@ pub fn point_view(
 /// a ±1 prediction sd band at each chosen knob value.
 pub fn points_svg(v: &PointView) -> Result<String, Error> {
     if v.x.is_empty() || v.curves.is_empty() {
-        return Err(Error::Usage("the per-point view has nothing to draw".into()));
+        return Err(Error::Usage(
+            "the per-point view has nothing to draw".into(),
+        ));
     }
-    let (x0, x1) = padded(
-        v.x.iter().chain(&v.train_x).copied(),
-        &[],
-        0.02,
-    );
+    let (x0, x1) = padded(v.x.iter().chain(&v.train_x).copied(), &[], 0.02);
     let ys = v
         .truth
         .iter()
@@ -816,10 +861,10 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .map_err(draw_err)?;
         chart
             .configure_mesh()
-            .light_line_style(RGBColor(0xee, 0xee, 0xee))
+            .light_line_style(RGBColor(0xf3, 0xf3, 0xf3))
             .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
-            .x_label_formatter(&|x: &f64| super::fmt_num(*x))
-            .y_label_formatter(&|y: &f64| super::fmt_num(*y))
+            .x_label_formatter(&|x: &f64| fmt_value(*x))
+            .y_label_formatter(&|y: &f64| fmt_value(*y))
             .x_desc(v.input.clone())
             .y_desc("response")
             .axis_desc_style((FONT, 16))
@@ -853,13 +898,12 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .draw_series(LineSeries::new(tpts, style(&truth_look)))
             .map_err(draw_err)?;
         for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
-            let pts: Vec<(f64, f64)> = v
-                .x
-                .iter()
-                .zip(&c.mean)
-                .filter(|(x, y)| x.is_finite() && y.is_finite())
-                .map(|(x, y)| (*x, *y))
-                .collect();
+            let pts: Vec<(f64, f64)> =
+                v.x.iter()
+                    .zip(&c.mean)
+                    .filter(|(x, y)| x.is_finite() && y.is_finite())
+                    .map(|(x, y)| (*x, *y))
+                    .collect();
             match look.dash {
                 Dash::Solid => chart
                     .draw_series(LineSeries::new(pts.clone(), style(look)))
@@ -898,15 +942,7 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
         panel
             .draw(&Circle::new((34, y + 7), 3, STONE.mix(0.55).filled()))
             .map_err(draw_err)?;
-        y = panel_text(
-            &panel,
-            "training set of replicate 0",
-            (68, y),
-            14,
-            INK,
-            24,
-        )?
-        .max(y + 22)
+        y = panel_text(&panel, "training set of replicate 0", (68, y), 14, INK, 24)?.max(y + 22)
             + 10;
         let mut note = String::from(
             "Bands: ±1 standard deviation of the prediction across replicates. A mean curve \
@@ -1026,7 +1062,7 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
         chart
             .configure_mesh()
             .disable_x_mesh()
-            .light_line_style(RGBColor(0xee, 0xee, 0xee))
+            .light_line_style(RGBColor(0xf3, 0xf3, 0xf3))
             .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
             .x_labels(g.min(20) * 2 + 1)
             .x_label_formatter(&|x: &f64| {
@@ -1049,7 +1085,10 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
             let (fill, edge) = if oracle { (INK, INK) } else { (SKY, INK) };
             let rect = [(i as f64 - 0.36, 0.0), (i as f64 + 0.36, n as f64)];
             chart
-                .draw_series(std::iter::once(Rectangle::new(rect, fill.mix(0.85).filled())))
+                .draw_series(std::iter::once(Rectangle::new(
+                    rect,
+                    fill.mix(0.85).filled(),
+                )))
                 .map_err(draw_err)?;
             chart
                 .draw_series(std::iter::once(Rectangle::new(rect, edge.stroke_width(1))))

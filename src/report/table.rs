@@ -44,9 +44,7 @@ fn table_source_columns(doc: &ResultDoc) -> Vec<Column> {
     if doc.loss == "squared" {
         cols.push((
             "bias²+noise",
-            Box::new(|p: &PointRow| {
-                opt_se(p.bias_sq_plus_noise, p.stderr.bias_sq_plus_noise.clone())
-            }),
+            Box::new(|p: &PointRow| opt_se(p.bias_sq_plus_noise, p.stderr.bias_sq_plus_noise)),
         ));
         cols.push((
             "variance",
@@ -55,12 +53,12 @@ fn table_source_columns(doc: &ResultDoc) -> Vec<Column> {
         cols.push(("noise (est.)", Box::new(|p: &PointRow| fmt_num(p.noise))));
         cols.push((
             "bias² (est.)",
-            Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq.clone())),
+            Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq)),
         ));
     } else {
         cols.push((
             "bias+noise",
-            Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias.clone())),
+            Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias)),
         ));
         cols.push((
             "variance",
@@ -68,7 +66,7 @@ fn table_source_columns(doc: &ResultDoc) -> Vec<Column> {
         ));
         cols.push((
             "net variance",
-            Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance.clone())),
+            Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance)),
         ));
     }
     cols
@@ -98,7 +96,9 @@ fn table_source_legend(doc: &ResultDoc) -> String {
              variance = share of OOB predictions differing from the majority",
         );
     }
-    s.push_str("; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n");
+    s.push_str(
+        "; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n",
+    );
     if let Some(t) = &doc.table {
         s.push_str(&format!(
             "table: {} · target `{}` · {} rows ({} dropped, {} locked in the holdout, {} resampled; {} skipped: held out in fewer than 2 replicates)\n",
@@ -327,5 +327,9 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
     out.push('\n');
     out.push_str(&legend(doc, view));
     out.push_str(&format!("reading: {}\n", doc.reading));
+    if let Some(sel) = &doc.selection {
+        let sentence = crate::audit::sentence(sel, &doc.knob, &doc.scenario.grid);
+        out.push_str(&format!("selection: {sentence}\n"));
+    }
     out
 }

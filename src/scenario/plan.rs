@@ -122,6 +122,8 @@ pub struct Plan {
     pub loss: LossKind,
     /// Regression or classification.
     pub task: Task,
+    /// The selection audit (`[audit]`), if any.
+    pub audit: Option<crate::audit::AuditPlan>,
 }
 
 impl std::fmt::Debug for Plan {
@@ -236,7 +238,20 @@ impl Plan {
         let source = match source_name {
             "synthetic" => {
                 crate::table::reject_table_keys(&spec.data, src, file)?;
+                reject_twin_keys(&cx, &spec.data)?;
                 Source::Synthetic(synthetic(&cx, &spec.data)?)
+            }
+            "twin" => Source::Synthetic(crate::twin::from_spec(&spec.data, src, file, base)?),
+            "table" if spec.data.reference.is_some() || spec.audit.is_some() => {
+                return Err(cx.err(
+                    Some(spec.data.source.span()),
+                    if spec.audit.is_some() {
+                        "audit"
+                    } else {
+                        "data.reference"
+                    },
+                    "belongs to a synthetic or twin source, not to `source = \"table\"`",
+                ))
             }
             "table" => Source::Table(Box::new(crate::table::from_spec(
                 &spec.data,
@@ -245,15 +260,6 @@ impl Plan {
                 base,
                 spec.seed.unwrap_or(DEFAULT_SEED),
             )?)),
-            "twin" => {
-                return Err(cx.err(
-                    Some(spec.data.source.span()),
-                    "data.source",
-                    format!(
-                        "source `{source_name}` is not supported by this version; use `synthetic`"
-                    ),
-                ))
-            }
             other => {
                 return Err(cx.err(
                     Some(spec.data.source.span()),
@@ -334,6 +340,18 @@ impl Plan {
         let (grid, grid_kind) = expand_grid(&cx, &spec.model.grid)?;
         fam.check_grid(&grid, n_train, n_inputs)
             .map_err(|m| cx.err(Some(spec.model.grid.span()), "model.grid", m))?;
+        let audit = match &spec.audit {
+            Some(a) => Some(crate::audit::from_spec(
+                a,
+                src,
+                file,
+                fam.as_ref(),
+                &grid,
+                n_train,
+                n_inputs,
+            )?),
+            None => None,
+        };
         let n_eval = match &source {
             Source::Synthetic(s) => s.eval_size,
             Source::Table(t) => t.table.x.nrows(),
@@ -365,6 +383,7 @@ impl Plan {
             grid_kind,
             loss,
             task,
+            audit,
         })
     }
 
@@ -458,10 +477,22 @@ fn build_family(
         };
     if name != "external" {
         let span = |s: Option<Range<usize>>| s.or_else(|| Some(m.family.span()));
-        reject(m.command.is_some(), "command", span(m.command.as_ref().map(|s| s.span())))?;
-        reject(m.knob.is_some(), "knob", span(m.knob.as_ref().map(|s| s.span())))?;
+        reject(
+            m.command.is_some(),
+            "command",
+            span(m.command.as_ref().map(|s| s.span())),
+        )?;
+        reject(
+            m.knob.is_some(),
+            "knob",
+            span(m.knob.as_ref().map(|s| s.span())),
+        )?;
         let timeout = m.timeout_seconds.as_ref().map(|s| s.span());
-        reject(m.timeout_seconds.is_some(), "timeout_seconds", span(timeout))?;
+        reject(
+            m.timeout_seconds.is_some(),
+            "timeout_seconds",
+            span(timeout),
+        )?;
     }
     let fam: Arc<dyn Family> = match name {
         "tree" => {
@@ -596,17 +627,20 @@ fn external_family(
         Some(t) => *t.get_ref(),
         None => DEFAULT_TIMEOUT_SECONDS,
     };
-    let fam = ExternalFamily::new(command.get_ref(), knob.get_ref(), timeout, base).map_err(|e| {
-        let (key, span) = match e.key {
-            "knob" => ("model.knob", knob.span()),
-            "timeout_seconds" => (
-                "model.timeout_seconds",
-                m.timeout_seconds.as_ref().map_or(m.family.span(), |t| t.span()),
-            ),
-            _ => ("model.command", command.span()),
-        };
-        cx.err(Some(span), key, e.message)
-    })?;
+    let fam =
+        ExternalFamily::new(command.get_ref(), knob.get_ref(), timeout, base).map_err(|e| {
+            let (key, span) = match e.key {
+                "knob" => ("model.knob", knob.span()),
+                "timeout_seconds" => (
+                    "model.timeout_seconds",
+                    m.timeout_seconds
+                        .as_ref()
+                        .map_or(m.family.span(), |t| t.span()),
+                ),
+                _ => ("model.command", command.span()),
+            };
+            cx.err(Some(span), key, e.message)
+        })?;
     Ok(Arc::new(fam))
 }
 
@@ -786,6 +820,25 @@ fn formula(
 ) -> Result<Formula, ScenarioError> {
     Formula::parse(f.get_ref(), names)
         .map_err(|e| cx.err(Some(f.span()), key, format!("in `{}`: {e}", f.get_ref())))
+}
+
+/// Refuses the twin-only keys (`reference`, `noise.varying`) in a synthetic source.
+fn reject_twin_keys(cx: &Ctx<'_>, d: &DataSpec) -> Result<(), ScenarioError> {
+    if d.reference.is_some() {
+        return Err(cx.err(
+            Some(d.source.span()),
+            "data.reference",
+            "belongs to `source = \"twin\"`; a synthetic source uses [data.truth]",
+        ));
+    }
+    if let Some(v) = d.noise.as_ref().and_then(|n| n.varying.as_ref()) {
+        return Err(cx.err(
+            Some(v.span()),
+            "data.noise.varying",
+            "belongs to `source = \"twin\"`; a synthetic source uses `sd_formula`",
+        ));
+    }
+    Ok(())
 }
 
 fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError> {

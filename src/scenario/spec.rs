@@ -31,6 +31,36 @@ pub struct ScenarioSpec {
     /// The loss to decompose.
     #[serde(default)]
     pub loss: Option<LossSpec>,
+    /// Selection audit: k-fold cross-validation inside every replicate (see [`crate::audit`]).
+    #[serde(default)]
+    pub audit: Option<AuditSpec>,
+}
+
+/// `[audit]`: run k-fold cross-validation on every replicate's training set and record the knob
+/// it would choose.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct AuditSpec {
+    /// Number of folds k (at least 2).
+    pub folds: Spanned<i64>,
+    /// `min` (default: the lowest cross-validated loss) or `one_se` (the simplest value within
+    /// one standard error of the lowest).
+    #[serde(default)]
+    pub rule: Option<Spanned<String>>,
+}
+
+/// `reference = { family = "knn", k = 7, standardize = true }` of a twin source: the flexible
+/// fit of E[y | x] refitted on the table at plan time (see [`crate::twin`]).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ReferenceSpec {
+    /// Only `knn`.
+    pub family: Spanned<String>,
+    /// Number of neighbours.
+    pub k: Spanned<i64>,
+    /// Standardize inputs with the table's mean and sd (default true).
+    #[serde(default)]
+    pub standardize: Option<bool>,
 }
 
 /// `[data]`: the data-generating process.
@@ -91,6 +121,9 @@ pub struct DataSpec {
     /// Table: `nn`, `gamma` or `gsjs` (default: `gsjs` with one input, else `nn`).
     #[serde(default)]
     pub noise_estimator: Option<Spanned<String>>,
+    /// Twin: the reference fit that serves as the truth.
+    #[serde(default)]
+    pub reference: Option<ReferenceSpec>,
 }
 
 /// `[data.classes]`: labels and the true class probabilities P(Y = c | x).
@@ -154,6 +187,9 @@ pub struct NoiseSpec {
     /// Standard deviation as a formula over the inputs.
     #[serde(default)]
     pub sd_formula: Option<Spanned<String>>,
+    /// Twin: σ²(x) from the reference's smoothed squared residuals instead of a constant.
+    #[serde(default)]
+    pub varying: Option<Spanned<bool>>,
 }
 
 /// `[model]`: family, grid and family options.

@@ -119,7 +119,9 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         )));
     }
     if !value.is_finite() {
-        return Err(Error::Usage(format!("--assess {value}: not a finite number")));
+        return Err(Error::Usage(format!(
+            "--assess {value}: not a finite number"
+        )));
     }
     let table = &tp.table;
     plan.family
@@ -224,7 +226,11 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
             list.last_mut().expect("just pushed")
         }
     };
-    let count = entry.get("assessments").and_then(Value::as_u64).unwrap_or(0) + 1;
+    let count = entry
+        .get("assessments")
+        .and_then(Value::as_u64)
+        .unwrap_or(0)
+        + 1;
     entry["assessments"] = json!(count);
     let mut values: Vec<f64> = entry
         .get("values")

@@ -716,7 +716,10 @@ pub fn reject_table_keys(
     check(d.target.as_ref().map(|s| s.span()), "target")?;
     check(d.features.as_ref().map(|s| s.span()), "features")?;
     check(d.resample.as_ref().map(|s| s.span()), "resample")?;
-    check(d.train_fraction.as_ref().map(|s| s.span()), "train_fraction")?;
+    check(
+        d.train_fraction.as_ref().map(|s| s.span()),
+        "train_fraction",
+    )?;
     check(d.holdout.as_ref().map(|s| s.span()), "holdout")?;
     check(d.missing.as_ref().map(|s| s.span()), "missing")?;
     check(d.task.as_ref().map(|s| s.span()), "task")?;
@@ -736,9 +739,8 @@ pub fn from_spec(
     base: &Path,
     holdout_seed: u64,
 ) -> Result<TablePlan, ScenarioError> {
-    let e = |v: Option<&toml::Spanned<String>>, key: &str, m: String| {
-        spanned_err(src, file, v, key, m)
-    };
+    let e =
+        |v: Option<&toml::Spanned<String>>, key: &str, m: String| spanned_err(src, file, v, key, m);
     let src_span = Some(&d.source);
     let unused: [(bool, &str); 6] = [
         (d.train_size.is_some(), "train_size"),

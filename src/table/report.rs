@@ -136,7 +136,9 @@ pub fn build(plan: &Plan, out: &TableOutcome) -> ResultDoc {
     let mut reading = reading(plan.family.knob(), plan.loss, &points, &best);
     reading.push_str(match plan.loss {
         LossKind::Squared => " (On a table, bias² is bias²+noise minus an estimated noise.)",
-        LossKind::ZeroOne => " (On a table, the bias is measured against the observed labels, noise included.)",
+        LossKind::ZeroOne => {
+            " (On a table, the bias is measured against the observed labels, noise included.)"
+        }
     });
     let (share, share_se) = s.total.held_share();
     ResultDoc {
@@ -172,5 +174,6 @@ pub fn build(plan: &Plan, out: &TableOutcome) -> ResultDoc {
             about: n.method.describe().into(),
         }),
         scheme_note: Some(tp.scheme.note(tp.work.len())),
+        selection: None,
     }
 }

@@ -1,0 +1,156 @@
+//! Progress on standard error while a run works (an `indicatif` bar with replicates done, rate
+//! and time left, shown only on a terminal and never with `--quiet`), and clean interruption by
+//! Ctrl-C: the blocks in flight finish, the rest are skipped and nothing is written.
+
+use std::io::IsTerminal;
+use std::path::PathBuf;
+use std::sync::atomic::{AtomicBool, Ordering};
+
+use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
+
+use crate::runner::Watch;
+
+/// Set by the Ctrl-C handler; read by [`Progress::stop`].
+static INTERRUPTED: AtomicBool = AtomicBool::new(false);
+
+/// Whether the bar is shown: only when standard error is a terminal and the run is not quiet.
+pub fn should_show(stderr_is_terminal: bool, quiet: bool) -> bool {
+    stderr_is_terminal && !quiet
+}
+
+/// Whether coloured output is allowed: not when `NO_COLOR` is set to a non-empty value
+/// (<https://no-color.org> convention).
+pub fn colour_allowed() -> bool {
+    match std::env::var_os("NO_COLOR") {
+        Some(v) => v.is_empty(),
+        None => true,
+    }
+}
+
+/// Whether Ctrl-C was pressed during this process.
+pub fn interrupted() -> bool {
+    INTERRUPTED.load(Ordering::SeqCst)
+}
+
+/// What Ctrl-C does.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum OnInterrupt {
+    /// Ask the run to stop after the blocks in flight (the run's [`Progress`] watch reads it); a
+    /// second Ctrl-C ends the process at once.
+    FinishBlocks,
+    /// End the process at once (exit 130), saying what is kept: with a checkpoint, every write
+    /// is an atomic rename, so the file holds whole blocks and rerunning resumes from it.
+    ExitNow {
+        /// The checkpoint in use, if any.
+        checkpoint: Option<PathBuf>,
+    },
+}
+
+/// Installs the Ctrl-C handler. Installing twice is harmless (the second call is ignored).
+pub fn install_interrupt(mode: OnInterrupt) {
+    let _ = ctrlc::set_handler(move || match &mode {
+        OnInterrupt::ExitNow {
+            checkpoint: Some(ck),
+        } => {
+            eprintln!(
+                "\ninterrupted: the finished blocks are saved in {}; rerun the same command to \
+                 resume",
+                ck.display()
+            );
+            std::process::exit(130);
+        }
+        OnInterrupt::ExitNow { checkpoint: None } => {
+            eprintln!("\ninterrupted: nothing written");
+            std::process::exit(130);
+        }
+        OnInterrupt::FinishBlocks => {
+            if INTERRUPTED.swap(true, Ordering::SeqCst) {
+                eprintln!("\ninterrupted twice: stopping now, nothing written");
+                std::process::exit(130);
+            }
+            eprintln!(
+                "\ninterrupt: finishing the blocks in flight, then stopping (Ctrl-C again to \
+                 stop now)"
+            );
+        }
+    });
+}
+
+/// The progress display of one run; a [`Watch`] for [`crate::runner::run_watched`].
+pub struct Progress {
+    bar: ProgressBar,
+}
+
+impl Progress {
+    /// A bar over `replicates`, drawn on standard error when [`should_show`] says so (hidden
+    /// otherwise). Uses colour unless `NO_COLOR` is set.
+    pub fn new(replicates: u64, quiet: bool) -> Self {
+        Self::with_terminal(replicates, quiet, std::io::stderr().is_terminal())
+    }
+
+    /// As [`Progress::new`], with the terminal test given (for tests).
+    pub fn with_terminal(replicates: u64, quiet: bool, stderr_is_terminal: bool) -> Self {
+        if !should_show(stderr_is_terminal, quiet) {
+            return Progress {
+                bar: ProgressBar::hidden(),
+            };
+        }
+        let bar = if colour_allowed() {
+            "{bar:36.blue/white}"
+        } else {
+            "{bar:36}"
+        };
+        let template = format!(
+            "{bar} {{pos}}/{{len}} replicates · {{per_sec}} · {{eta}} left · {{elapsed}} so far"
+        );
+        let style = ProgressStyle::with_template(&template)
+            .unwrap_or_else(|_| ProgressStyle::default_bar())
+            .progress_chars("█▌ ");
+        let bar = ProgressBar::with_draw_target(Some(replicates), ProgressDrawTarget::stderr())
+            .with_style(style);
+        Progress { bar }
+    }
+
+    /// Whether the bar is drawn.
+    pub fn shown(&self) -> bool {
+        !self.bar.is_hidden()
+    }
+
+    /// Replicates counted so far.
+    pub fn done(&self) -> u64 {
+        self.bar.position()
+    }
+
+    /// Removes the bar (the run finished or stopped).
+    pub fn clear(&self) {
+        self.bar.finish_and_clear();
+    }
+}
+
+impl Watch for Progress {
+    fn block_done(&self, replicates: u64) {
+        self.bar.inc(replicates);
+    }
+
+    fn stop(&self) -> bool {
+        interrupted()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn bar_only_on_a_terminal_and_not_quiet() {
+        assert!(should_show(true, false));
+        assert!(!should_show(false, false));
+        assert!(!should_show(true, true));
+        assert!(!Progress::with_terminal(10, false, false).shown());
+        assert!(!Progress::with_terminal(10, true, true).shown());
+        let p = Progress::with_terminal(10, false, false);
+        p.block_done(4);
+        assert_eq!(p.done(), 4);
+        assert!(!p.stop());
+    }
+}

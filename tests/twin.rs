@@ -1,0 +1,212 @@
+//! Simulated twins: on a table drawn from a known process the twin's noise estimate and best knob
+//! match the truth's; the written scenario round-trips (twin → validate → run); classification
+//! twins never have a zero class probability.
+
+use std::fs;
+use std::path::Path;
+
+use lossprism::scenario::{self, Plan, PlanOptions};
+use lossprism::twin::{self, TwinOptions};
+use lossprism::{report, runner};
+use rand::{Rng, SeedableRng};
+use rand_distr::{Distribution, StandardNormal};
+
+/// The known process: x ~ U(0, 1), f(x) = 2 sin(2πx) + x, y = f + 0.5 z (σ² = 0.25).
+const TRUTH: &str = "2*sin(2*pi*x) + x";
+const SD: f64 = 0.5;
+
+fn write_table(path: &Path, n: usize, seed: u64) {
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let mut s = String::from("x,y\n");
+    for _ in 0..n {
+        let x: f64 = rng.gen();
+        let z: f64 = StandardNormal.sample(&mut rng);
+        let f = 2.0 * (2.0 * std::f64::consts::PI * x).sin() + x;
+        s.push_str(&format!("{x},{}\n", f + SD * z));
+    }
+    fs::write(path, s).unwrap();
+}
+
+fn opts(dir: &Path, classes: bool, target: &str) -> TwinOptions {
+    TwinOptions {
+        table: dir.join("t.csv"),
+        target: target.into(),
+        features: None,
+        classes,
+        out: dir.join("twin.toml"),
+        seed: 3,
+        varying: false,
+    }
+}
+
+fn load(path: &Path) -> Plan {
+    scenario::load(path, &PlanOptions::default()).expect("plans")
+}
+
+#[test]
+fn twin_noise_and_best_knob_match_the_known_process() {
+    let dir = tempfile::tempdir().unwrap();
+    let n = 400;
+    write_table(&dir.path().join("t.csv"), n, 11);
+    let o = opts(dir.path(), false, "y");
+    let msg = twin::command(&o).expect("twin");
+    assert!(msg.contains("R²") && msg.contains("noise: σ²"), "{msg}");
+
+    // Noise: one input, so the Gasser-Sroka-Jennen-Steinmetz estimator (Biometrika 1986; exactly
+    // unbiased for linear f, nearly so for a smooth f at this density) must land within 4 of its
+    // standard errors of the true σ² = 0.25.
+    let t = lossprism::table::load_csv(
+        &o.table,
+        &lossprism::table::TableOptions {
+            target: "y".into(),
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    let fit = twin::fit(&t, o.seed, true).unwrap();
+    let e = fit.noise.expect("noise estimate");
+    assert!(
+        (e.value - SD * SD).abs() < 4.0 * e.stderr,
+        "σ̂² = {} ± {}",
+        e.value,
+        e.stderr
+    );
+    assert!(fit.quality > 0.8, "R² = {}", fit.quality);
+
+    // Best knob: the same family and grid on the twin and on the true process, same n.
+    let model = "\n[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 8 }\n";
+    let twin_text = fs::read_to_string(&o.out).unwrap();
+    let twin_text = twin_text
+        .split("\n[model]\n")
+        .next()
+        .unwrap()
+        .replace("replicates = 200", "replicates = 120")
+        .to_string()
+        + model;
+    fs::write(&o.out, &twin_text).unwrap();
+    let twin_plan = load(&o.out);
+    let twin_doc = report::build(&twin_plan, &runner::run(&twin_plan, 0).unwrap());
+    let truth_text = format!(
+        "name = \"truth\"\nseed = 3\nreplicates = 120\n[data]\nsource = \"synthetic\"\ntrain_size = {n}\neval_size = 400\n\
+         [[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n[data.truth]\nformula = \"{TRUTH}\"\n[data.noise]\nsd = {SD}\n{model}"
+    );
+    fs::write(dir.path().join("truth.toml"), &truth_text).unwrap();
+    let truth_plan = load(&dir.path().join("truth.toml"));
+    let truth_doc = report::build(&truth_plan, &runner::run(&truth_plan, 0).unwrap());
+    let (tb, wb) = (truth_doc.best.value, twin_doc.best.value);
+    eprintln!(
+        "noise {} ± {} (true 0.25); CV R² {}; k {}; truth best {tb} {:?}; twin best {wb} {:?}",
+        e.value,
+        e.stderr,
+        fit.quality,
+        fit.k,
+        truth_doc.best.within_one_se,
+        twin_doc.best.within_one_se
+    );
+    // "Close": within one grid step of the truth's best, or inside the truth's 1-SE set.
+    assert!(
+        (tb - wb).abs() <= 1.0 || truth_doc.best.within_one_se.contains(&wb),
+        "truth best {tb} (1-SE set {:?}), twin best {wb}",
+        truth_doc.best.within_one_se
+    );
+    assert_eq!(twin_doc.scenario.source, "twin");
+}
+
+#[test]
+fn twin_scenario_round_trips_with_audit_and_varying_noise() {
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("t.csv"), 120, 5);
+    let mut o = opts(dir.path(), false, "y");
+    o.varying = true;
+    twin::command(&o).expect("twin");
+    let text = fs::read_to_string(&o.out).unwrap();
+    assert!(text.contains("source = \"twin\"") && text.contains("varying = true"));
+    assert!(text.contains("path = \"t.csv\""), "{text}");
+    let plan = scenario::load(
+        &o.out,
+        &PlanOptions {
+            replicates: Some(8),
+            seed: None,
+        },
+    )
+    .expect("plans");
+    let out = runner::run(&plan, 1).unwrap();
+    // Varying noise: σ(x) differs across evaluation points and is positive.
+    let sd = &out.prepared.eval_sd;
+    assert!(sd.iter().all(|s| *s > 0.0));
+    assert!(sd.iter().any(|s| (s - sd[0]).abs() > 1e-12));
+    let doc = report::build(&plan, &out);
+    let sel = doc.selection.clone().expect("audit written by `twin` runs");
+    assert_eq!(sel.chosen_counts.iter().sum::<u64>(), 8);
+    // Deterministic: the same plan gives the same document on two threads.
+    let again = report::build(&plan, &runner::run(&plan, 2).unwrap());
+    assert_eq!(report::to_json(&again), report::to_json(&doc));
+}
+
+#[test]
+fn classification_twin_has_no_zero_probability() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(9);
+    let mut s = String::from("a,b,grade\n");
+    for _ in 0..150 {
+        let (a, b): (f64, f64) = (rng.gen(), rng.gen());
+        let label = if a + 0.3 * rng.gen::<f64>() > 0.6 {
+            "sound"
+        } else {
+            "bruised"
+        };
+        s.push_str(&format!("{a},{b},{label}\n"));
+    }
+    fs::write(dir.path().join("t.csv"), s).unwrap();
+    let o = opts(dir.path(), true, "grade");
+    let msg = twin::command(&o).expect("twin");
+    assert!(msg.contains("accuracy"), "{msg}");
+    let text = fs::read_to_string(&o.out).unwrap();
+    assert!(text.contains("[data.classes]"), "{text}");
+    let plan = scenario::load(
+        &o.out,
+        &PlanOptions {
+            replicates: Some(6),
+            seed: None,
+        },
+    )
+    .unwrap();
+    let out = runner::run(&plan, 0).unwrap();
+    let probs = out
+        .prepared
+        .eval_probs
+        .as_ref()
+        .expect("class probabilities");
+    // Add-one smoothing: every probability is at least 1/(k + K) > 0; rows sum to 1.
+    assert!(probs.iter().all(|p| *p > 0.0));
+    for row in probs.rows() {
+        assert!((row.sum() - 1.0).abs() < 1e-12);
+    }
+}
+
+#[test]
+fn bad_twin_scenarios_name_the_key() {
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("t.csv"), 30, 1);
+    let base = "name = \"t\"\n[data]\nsource = \"twin\"\npath = \"t.csv\"\ntarget = \"y\"\n";
+    let model = "\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\n";
+    for (body, key) in [
+        ("[data.noise]\nsd = 0.5\n", "data.reference"),
+        (
+            "reference = { family = \"forest\", k = 3 }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.family",
+        ),
+        (
+            "reference = { family = \"knn\", k = 99 }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.k",
+        ),
+        ("reference = { family = \"knn\", k = 3 }\n", "data.noise"),
+    ] {
+        let f = dir.path().join("bad.toml");
+        fs::write(&f, format!("{base}{body}{model}")).unwrap();
+        let err = scenario::load(&f, &PlanOptions::default())
+            .expect_err("refused")
+            .to_string();
+        assert!(err.contains(key), "{err}");
+    }
+}
