@@ -89,8 +89,8 @@ fn run(args: RunArgs) -> anyhow::Result<u8> {
         None => scenario::load_default(&opts)?,
     };
     refuse_custom(&plan)?;
-    if args.assess.is_some() || matches!(plan.source, scenario::Source::Table(_)) {
-        return run_table(&args, &plan);
+    if let Some(value) = args.assess {
+        return assess(&args, &plan, value);
     }
     if args.plot_points.is_some() {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
@@ -399,57 +399,32 @@ fn plot(args: PlotArgs) -> anyhow::Result<u8> {
     Ok(0)
 }
 
-/// `run` on a table scenario: the resampling decomposition, or with `--assess` the one-off
-/// holdout assessment (counted in the ledger beside the scenario file).
-fn run_table(args: &RunArgs, plan: &Plan) -> anyhow::Result<u8> {
-    use lossprism::table;
-    if let Some(value) = args.assess {
-        let Some(path) = &args.scenario else {
-            anyhow::bail!("--assess needs a table scenario file with a holdout");
-        };
-        let ledger = table::holdout::ledger_path(path);
-        let a = table::holdout::assess(plan, value, &ledger)?;
-        println!(
-            "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
-             (assessment {} of this holdout, hash {}, ledger {})",
-            plan.name,
-            plan.family.knob(),
-            report::fmt_value(a.value),
-            a.train_rows,
-            plan.loss.name(),
-            report::fmt_num(a.loss),
-            report::fmt_se(a.stderr),
-            a.rows,
-            a.count,
-            a.hash,
-            ledger.display()
-        );
-        if let Some(w) = &a.warning {
-            eprintln!("{w}");
-        }
-        return Ok(0);
-    }
-    let outcome = table::resample::run(plan, args.threads)?;
-    let doc = table::report::build(plan, &outcome);
-    let to_stdout = [&args.out, &args.csv, &args.points]
-        .iter()
-        .any(|p| p.as_ref().is_some_and(|p| p.as_os_str() == "-"));
-    if let Some(p) = &args.out {
-        report::write_atomic(p, report::to_json(&doc).as_bytes())?;
-    }
-    if let Some(p) = &args.csv {
-        report::write_atomic(p, report::to_csv(&doc).as_bytes())?;
-    }
-    if let Some(p) = &args.points {
-        report::write_atomic(p, table::resample::points_csv(plan, &outcome).as_bytes())?;
-    }
-    if !args.quiet {
-        let text = report::table::render_view(&doc, args.decomposition.into());
-        if to_stdout {
-            eprint!("{text}");
-        } else {
-            print!("{text}");
-        }
+/// `run --assess VALUE` on a table scenario with a holdout: the one-off holdout assessment,
+/// counted in the ledger beside the scenario file.
+fn assess(args: &RunArgs, plan: &Plan, value: f64) -> anyhow::Result<u8> {
+    use lossprism::table::holdout;
+    let Some(path) = &args.scenario else {
+        anyhow::bail!("--assess needs a table scenario file with a holdout");
+    };
+    let ledger = holdout::ledger_path(path);
+    let a = holdout::assess(plan, value, &ledger)?;
+    println!(
+        "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
+         (assessment {} of this holdout, hash {}, ledger {})",
+        plan.name,
+        plan.family.knob(),
+        report::fmt_value(a.value),
+        a.train_rows,
+        plan.loss.name(),
+        report::fmt_num(a.loss),
+        report::fmt_se(a.stderr),
+        a.rows,
+        a.count,
+        a.hash,
+        ledger.display()
+    );
+    if let Some(w) = &a.warning {
+        eprintln!("{w}");
     }
     Ok(0)
 }

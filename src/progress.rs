@@ -96,15 +96,19 @@ impl Progress {
             };
         }
         let bar = if colour_allowed() {
-            "{bar:36.blue/white}"
+            "{bar:30.blue/white}"
         } else {
-            "{bar:36}"
+            "{bar:30}"
         };
-        let template = format!(
-            "{bar} {{pos}}/{{len}} replicates · {{per_sec}} · {{eta}} left · {{elapsed}} so far"
-        );
+        let template = format!("{bar} {{pos}}/{{len}} replicates · {{rate}} · {{eta}} left");
         let style = ProgressStyle::with_template(&template)
             .unwrap_or_else(|_| ProgressStyle::default_bar())
+            .with_key(
+                "rate",
+                |s: &indicatif::ProgressState, w: &mut dyn std::fmt::Write| {
+                    let _ = write!(w, "{:.0}/s", s.per_sec());
+                },
+            )
             .progress_chars("█▌ ");
         let bar = ProgressBar::with_draw_target(Some(replicates), ProgressDrawTarget::stderr())
             .with_style(style);

@@ -110,7 +110,7 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     let classify = matches!(plan.task, Task::Classify { .. });
     let mut fixed_probs = None;
     let fixed = if s.design == Design::Fixed {
-        let mut rng = stream(plan.seed, purpose::DESIGN, 0);
+        let mut rng = stream(plan.eval_seed, purpose::DESIGN, 0);
         let x = s.process.draw_inputs(s.train_size, &mut rng);
         if classify {
             fixed_probs = Some(s.process.probs_at(x.view())?);
@@ -127,7 +127,7 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     let eval_x = match (&fixed, s.eval_at_design) {
         (Some((x, _, _)), true) => x.clone(),
         _ => {
-            let mut rng = stream(plan.seed, purpose::EVAL, 0);
+            let mut rng = stream(plan.eval_seed, purpose::EVAL, 0);
             s.process.draw_inputs(s.eval_size, &mut rng)
         }
     };

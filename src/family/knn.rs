@@ -114,16 +114,17 @@ fn distances_into(cols: &[f64], n: usize, query: &[f64], dist: &mut [f64]) {
     }
 }
 
+/// Coarse buckets over the distance range, used to bound the `kmax`-th distance.
+const COARSE_BUCKETS: usize = 64;
+
 /// Finds the `kmax` nearest training rows to `query` and leaves their keys, sorted ascending, in
 /// `keys[..kmax]`. `cols` holds the training inputs column-major (`n` rows, `query.len()`
-/// columns); `dist` (length `n`) and `keys` are scratch reused across queries; `1 <= kmax <= n`.
+/// columns); `dist` (length `n`), `keys` and `counts` are scratch reused across queries;
+/// `1 <= kmax <= n`.
 ///
-/// Squared distances are computed in blocks of training rows (see [`distances_into`]). The
-/// `kmax` smallest keys are then found with a filter: the first `kmax` rows are kept, and a later
-/// row is appended (without a branch) only when its distance bits are strictly below those of
-/// the largest kept key — on equal distance the kept, earlier row is the smaller key, so nothing
-/// rejected can be among the `kmax` smallest. When `2 × kmax` keys are held, a linear-time
-/// selection keeps the `kmax` smallest and tightens the filter. Only the final `kmax` are sorted.
+/// Squared distances are computed in blocks of training rows (see [`distances_into`]); the
+/// `kmax` smallest keys are then found by bucketing ([`bucket_nearest`]), or, when the distances
+/// are not all finite and distinct in range, by a linear-time selection over all keys.
 fn nearest_into(
     cols: &[f64],
     n: usize,
@@ -131,30 +132,108 @@ fn nearest_into(
     kmax: usize,
     dist: &mut [f64],
     keys: &mut Vec<u128>,
+    counts: &mut Vec<usize>,
 ) {
     distances_into(cols, n, query, dist);
-    let cap = 2 * kmax;
-    keys.clear();
-    keys.resize(cap + 1, 0);
-    for (i, (k, &d)) in keys.iter_mut().zip(&dist[..kmax]).enumerate() {
-        *k = key(d, i);
+    if !bucket_nearest(dist, kmax, keys, counts) {
+        keys.clear();
+        keys.extend(dist.iter().enumerate().map(|(i, &d)| key(d, i)));
+        if kmax < keys.len() {
+            keys.select_nth_unstable(kmax - 1);
+        }
+        keys.truncate(kmax);
+        keys.sort_unstable();
     }
-    let mut len = kmax;
-    let mut top = (keys[..kmax].iter().copied().max().unwrap_or(0) >> 64) as u64;
-    for (i, &d) in dist.iter().enumerate().skip(kmax) {
-        let bits = d.to_bits();
-        keys[len] = key(d, i);
-        len += usize::from(bits < top);
-        if len == cap {
-            keys[..len].select_nth_unstable(kmax - 1);
-            len = kmax;
-            top = (keys[kmax - 1] >> 64) as u64;
+}
+
+/// Exact `kmax` smallest keys by bucketing, sorted, in `keys[..kmax]`; `false` (and nothing
+/// useful in `keys`) when the distances are not all finite or all equal.
+///
+/// Any map `d -> floor((d - lo) × s)` with `s > 0`, computed in floating point, is monotone (each
+/// rounding step is), so a row in a higher bucket is strictly farther than every row in a lower
+/// one. Step 1 counts rows in [`COARSE_BUCKETS`] buckets over `[min, max]` and keeps, as
+/// candidates, the rows of the lowest buckets that together hold at least `kmax` rows: no other
+/// row can be among the `kmax` nearest. Step 2 orders the candidates by a counting sort into as
+/// many finer buckets as there are candidates, scattering them in row order, so that only rows
+/// sharing a fine bucket can be out of (distance, row) order; an insertion sort on the full keys
+/// fixes those. The cost is a few linear passes over the distances plus work proportional to the
+/// candidates, instead of a selection over all rows and a comparison sort.
+fn bucket_nearest(
+    dist: &[f64],
+    kmax: usize,
+    keys: &mut Vec<u128>,
+    counts: &mut Vec<usize>,
+) -> bool {
+    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+    let mut finite = true;
+    for &d in dist {
+        lo = if d < lo { d } else { lo };
+        hi = if d > hi { d } else { hi };
+        finite &= d.is_finite();
+    }
+    let scale = COARSE_BUCKETS as f64 / (hi - lo);
+    if !finite || !(hi > lo) || !scale.is_finite() {
+        return false;
+    }
+    let coarse = |d: f64| (((d - lo) * scale) as usize).min(COARSE_BUCKETS - 1);
+    let mut hist = [0usize; COARSE_BUCKETS];
+    for &d in dist {
+        hist[coarse(d)] += 1;
+    }
+    let (mut c, mut last) = (0, COARSE_BUCKETS - 1);
+    for (b, &h) in hist.iter().enumerate() {
+        c += h;
+        if c >= kmax {
+            last = b;
+            break;
         }
     }
-    if len > kmax {
-        keys[..len].select_nth_unstable(kmax - 1);
+    // Candidates, in row order, into keys[..c] (branch-free: always write, advance on a hit);
+    // keys[c..2c] receives them sorted.
+    keys.clear();
+    keys.resize(2 * c + 1, 0);
+    let mut w = 0;
+    for (i, &d) in dist.iter().enumerate() {
+        keys[w] = key(d, i);
+        w += usize::from(coarse(d) <= last);
     }
-    keys[..kmax].sort_unstable();
+    debug_assert_eq!(w, c);
+    let (cand, sorted) = keys.split_at_mut(c);
+    let sorted = &mut sorted[..c];
+    let dist_of = |k: u128| f64::from_bits((k >> 64) as u64);
+    let cmax = cand.iter().map(|&k| dist_of(k)).fold(lo, f64::max);
+    let fine_scale = c as f64 / (cmax - lo);
+    if cmax > lo && fine_scale.is_finite() {
+        let fine = |d: f64| (((d - lo) * fine_scale) as usize).min(c - 1);
+        counts.clear();
+        counts.resize(c + 1, 0);
+        for &k in cand.iter() {
+            counts[fine(dist_of(k)) + 1] += 1;
+        }
+        for b in 1..=c {
+            counts[b] += counts[b - 1];
+        }
+        for &k in cand.iter() {
+            let b = fine(dist_of(k));
+            sorted[counts[b]] = k;
+            counts[b] += 1;
+        }
+    } else {
+        sorted.copy_from_slice(cand);
+    }
+    // Insertion sort: linear when only rows sharing a fine bucket are out of order.
+    for i in 1..c {
+        let x = sorted[i];
+        let mut j = i;
+        while j > 0 && sorted[j - 1] > x {
+            sorted[j] = sorted[j - 1];
+            j -= 1;
+        }
+        sorted[j] = x;
+    }
+    keys.copy_within(c..c + kmax, 0);
+    keys.truncate(kmax);
+    true
 }
 
 /// Returns the rows of an `n × p` view as one contiguous row-major slice, borrowing when the view
@@ -188,7 +267,8 @@ pub fn neighbours(train: ArrayView2<f64>, query: ArrayView1<f64>, k: usize) -> V
     let q: Vec<f64> = query.iter().copied().collect();
     let mut dist = vec![0.0; n];
     let mut keys = Vec::with_capacity(n);
-    nearest_into(&cols, n, &q, k, &mut dist, &mut keys);
+    let mut counts = Vec::new();
+    nearest_into(&cols, n, &q, k, &mut dist, &mut keys, &mut counts);
     keys[..k].iter().map(|&kk| key_index(kk)).collect()
 }
 
@@ -341,6 +421,7 @@ impl Family for KnnFamily {
         // Scratch reused across evaluation points.
         let mut dist = vec![0.0; n];
         let mut keys: Vec<u128> = Vec::with_capacity(n);
+        let mut bucket_counts: Vec<usize> = Vec::new();
         // by_rank[j] = prediction using the first j + 1 neighbours.
         let mut by_rank = vec![0.0; kmax];
         let mut counts = vec![0usize; labels.as_ref().map_or(0, |l| l.1)];
@@ -348,7 +429,7 @@ impl Family for KnnFamily {
 
         for e in 0..m {
             let query = &eval[e * p..(e + 1) * p];
-            nearest_into(&cols, n, query, kmax, &mut dist, &mut keys);
+            nearest_into(&cols, n, query, kmax, &mut dist, &mut keys, &mut bucket_counts);
             let keys = &keys[..kmax];
             match &labels {
                 None => {

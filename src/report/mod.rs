@@ -44,6 +44,9 @@ pub struct ScenarioEcho {
     pub train_size: usize,
     /// Evaluation points m.
     pub eval_size: usize,
+    /// The scenario's explicit `eval_seed` (absent when the evaluation points follow `seed`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub eval_seed: Option<u64>,
     /// `random` or `fixed`.
     pub design: String,
     /// `fresh` or `design`.
@@ -280,6 +283,7 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
         Source::Table(t) => return crate::table::report::scenario_echo(plan, t),
     };
     ScenarioEcho {
+        eval_seed: plan.eval_seed_explicit.then_some(plan.eval_seed),
         name: plan.name.clone(),
         about: plan.about.clone(),
         source: if s.process.is_twin() {

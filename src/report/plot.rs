@@ -537,8 +537,11 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
         let font = (FONT, 14).into_font().color(&STONE);
         for (centre, text) in [
-            (region(&bias_dom), "bias dominates: underfitting"),
-            (region(&|i| !bias_dom(i)), "variance dominates: overfitting"),
+            (
+                region(&bias_dom),
+                "bias-dominated (bias term above variance)",
+            ),
+            (region(&|i| !bias_dom(i)), "variance-dominated"),
         ] {
             if let Some(c) = centre {
                 let (px, _) = chart.backend_coord(&(c, y1));

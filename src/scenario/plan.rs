@@ -106,6 +106,10 @@ pub struct Plan {
     pub about: String,
     /// Master seed.
     pub seed: u64,
+    /// Seed of the evaluation points and of a fixed design (the file's `eval_seed`, else `seed`).
+    pub eval_seed: u64,
+    /// Whether the file set `eval_seed` explicitly.
+    pub eval_seed_explicit: bool,
     /// Replicates R.
     pub replicates: u64,
     /// Number of replicate blocks.
@@ -233,6 +237,7 @@ impl Plan {
             None => replicates.min(DEFAULT_MAX_BLOCKS),
         };
         let seed = opts.seed.or(spec.seed).unwrap_or(DEFAULT_SEED);
+        let eval_seed = spec.eval_seed.unwrap_or(seed);
 
         let source_name = spec.data.source.get_ref().as_str();
         let source = match source_name {
@@ -375,6 +380,8 @@ impl Plan {
             name,
             about: spec.about.clone().unwrap_or_default(),
             seed,
+            eval_seed,
+            eval_seed_explicit: spec.eval_seed.is_some(),
             replicates,
             blocks,
             source,

@@ -17,6 +17,11 @@ pub struct ScenarioSpec {
     /// Master seed; every random stream derives from it.
     #[serde(default)]
     pub seed: Option<u64>,
+    /// Seed of the evaluation points and of a fixed design (default: `seed`). Fixing it keeps
+    /// the evaluation points in place when `seed` changes, so runs with fresh seeds compare the
+    /// same points (see `lossprism check`).
+    #[serde(default)]
+    pub eval_seed: Option<u64>,
     /// Number of replicate training sets R (at least 2).
     #[serde(default)]
     pub replicates: Option<Spanned<i64>>,

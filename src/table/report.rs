@@ -26,6 +26,7 @@ pub fn scenario_echo(plan: &Plan, t: &TablePlan) -> ScenarioEcho {
         .map(|e| e.column.as_str())
         .collect();
     ScenarioEcho {
+        eval_seed: None,
         name: plan.name.clone(),
         about: plan.about.clone(),
         source: "table".into(),
