@@ -323,6 +323,9 @@ fn check_fixed_design_knn(src: &str, what: &str) {
     let m = run.points();
     let r = run.summary.total.n as f64;
     let gap_needed = 6.0 / r.sqrt();
+    // Clear points whose main prediction is not the Bayes class (the B = 1 branch of Domingos'
+    // coefficients), over the whole grid: the scenario must have some.
+    let mut biased_clear = 0usize;
     assert_eq!(m, x.nrows(), "evaluation at the design");
 
     for (g, &kf) in run.plan.grid.iter().enumerate() {
@@ -399,6 +402,7 @@ fn check_fixed_design_knn(src: &str, what: &str) {
                 pt.terms.james_systematic, exact[e].1.james_systematic,
                 "{at}, point {e}"
             );
+            biased_clear += (exact[e].1.bias == 1.0) as usize;
         }
         type Pick = fn(&zero_one::ZeroOneTerms, f64, f64) -> f64;
         let terms: [(&str, Pick, fn(&Exact) -> f64); 7] = [
@@ -444,14 +448,20 @@ fn check_fixed_design_knn(src: &str, what: &str) {
             assert_within(&format!("{at}: {name} (clear points)"), estimate, truth, se);
         }
     }
+    println!("{what}: {biased_clear} clear (point, k) cells with main prediction ≠ Bayes class");
+    assert!(
+        biased_clear > 0,
+        "{what}: the biased branch is not exercised"
+    );
 }
 
 #[test]
 fn fixed_design_knn_two_classes_matches_the_exact_vote_distribution() {
     // Invented scenario: a sorting gate reads one position along a belt at 40 fixed, evenly
-    // spaced places; the chance a parcel is diverted rises with the position. Evenly spaced
-    // inputs make neighbours tie on distance (the row index decides, as in the family), and even
-    // k makes vote ties (the nearest neighbour's class wins).
+    // spaced places; parcels are diverted often beyond 0.7 and in a narrow band around 0.3, where
+    // large k smooths the band away (points whose main prediction is clearly not the Bayes
+    // class). Evenly spaced inputs make neighbours tie on distance (the row index decides, as in
+    // the family), and even k makes vote ties (the nearest neighbour's class wins).
     // Source of the exact values: the vote count among the k neighbours is Poisson-binomial over
     // the neighbours' class probabilities (design §7), computed exactly by dynamic programming.
     let src = r#"
@@ -469,10 +479,10 @@ name = "position"
 even = [0.0, 1.0]
 [data.classes]
 labels = ["pass", "divert"]
-probability = "0.05 + 0.9*logistic(8*(position - 0.5))"
+probability = "0.1 + 0.55*(abs(position - 0.3) < 0.06) + 0.8*(position > 0.7)"
 [model]
 family = "knn"
-grid = [1, 2, 3, 4, 5, 8, 9]
+grid = [1, 2, 3, 4, 5, 8, 9, 15]
 [loss]
 kind = "zero_one"
 "#;
@@ -506,7 +516,7 @@ labels = ["seal", "bearing", "sensor"]
 logits = ["0", "5*(a - 0.4)", "5*(b - 0.5) + 1"]
 [model]
 family = "knn"
-grid = [1, 2, 3, 5, 7]
+grid = [1, 2, 3, 5, 7, 15]
 [loss]
 kind = "zero_one"
 "#;

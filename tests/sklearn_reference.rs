@@ -242,7 +242,10 @@ fn compare_tree(label: &str, ours: &[f64], case: &Case, tol: f64) -> TreeTally {
     assert_eq!(sk.len(), ours.len());
     assert_eq!(case.tie_depth.len(), ours.len());
     if case.n_tied_nodes + case.n_zero_gain_nodes == 0 {
-        assert!(case.tie_depth.iter().all(|&t| t < 0), "{label}: stray tie depth");
+        assert!(
+            case.tie_depth.iter().all(|&t| t < 0),
+            "{label}: stray tie depth"
+        );
     }
     let mut t = TreeTally::default();
     for (e, ((&a, &b), &tie)) in ours.iter().zip(&sk).zip(&case.tie_depth).enumerate() {
@@ -329,10 +332,7 @@ fn tree_classifier_matches_sklearn() {
                 criterion,
                 ..TreeFamily::default()
             };
-            let grid: Vec<f64> = cases
-                .iter()
-                .map(|c| c.max_depth.unwrap() as f64)
-                .collect();
+            let grid: Vec<f64> = cases.iter().map(|c| c.max_depth.unwrap() as f64).collect();
             let out = data.fit(&fam, &grid);
             let (mut clean, mut tied, mut differ) = (0, 0, 0);
             for (g, case) in cases.iter().enumerate() {

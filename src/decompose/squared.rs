@@ -150,8 +150,8 @@ pub fn terms(acc: &SquaredAcc, truth: &[f64], noise_var: &[f64]) -> Vec<SquaredT
     (0..acc.grid)
         .map(|g| {
             let (mut b2, mut v) = (0.0, 0.0);
-            for e in 0..acc.points {
-                let p = point(acc, g, e, truth[e]);
+            for (e, &f) in truth.iter().enumerate().take(acc.points) {
+                let p = point(acc, g, e, f);
                 b2 += p.bias_sq;
                 v += p.variance;
             }

@@ -117,6 +117,16 @@ fn distances_into(cols: &[f64], n: usize, query: &[f64], dist: &mut [f64]) {
 /// Coarse buckets over the distance range, used to bound the `kmax`-th distance.
 const COARSE_BUCKETS: usize = 64;
 
+/// `2^52`: for `0 <= x < 2^52`, the low 52 bits of `x + 2^52` are `x` rounded to the nearest
+/// whole number, a monotone map to integers that needs no float-to-integer conversion.
+const ROUND_MAGIC: f64 = 4_503_599_627_370_496.0;
+
+/// `x` (finite, `0 <= x < 2^52`) rounded to a whole number, monotone in `x`.
+#[inline]
+fn round_index(x: f64) -> usize {
+    ((x + ROUND_MAGIC).to_bits() & ((1 << 52) - 1)) as usize
+}
+
 /// Finds the `kmax` nearest training rows to `query` and leaves their keys, sorted ascending, in
 /// `keys[..kmax]`. `cols` holds the training inputs column-major (`n` rows, `query.len()`
 /// columns); `dist` (length `n`), `keys` and `counts` are scratch reused across queries;
@@ -149,7 +159,7 @@ fn nearest_into(
 /// Exact `kmax` smallest keys by bucketing, sorted, in `keys[..kmax]`; `false` (and nothing
 /// useful in `keys`) when the distances are not all finite or all equal.
 ///
-/// Any map `d -> floor((d - lo) × s)` with `s > 0`, computed in floating point, is monotone (each
+/// Any map `d -> round((d - lo) × s)` with `s > 0`, computed in floating point, is monotone (each
 /// rounding step is), so a row in a higher bucket is strictly farther than every row in a lower
 /// one. Step 1 counts rows in [`COARSE_BUCKETS`] buckets over `[min, max]` and keeps, as
 /// candidates, the rows of the lowest buckets that together hold at least `kmax` rows: no other
@@ -172,15 +182,17 @@ fn bucket_nearest(
         finite &= d.is_finite();
     }
     let scale = COARSE_BUCKETS as f64 / (hi - lo);
-    if !finite || !(hi > lo) || !scale.is_finite() {
+    // `hi > lo` is false for equal distances (and never NaN here: the distances are finite).
+    if !finite || hi <= lo || !scale.is_finite() {
         return false;
     }
-    let coarse = |d: f64| (((d - lo) * scale) as usize).min(COARSE_BUCKETS - 1);
-    let mut hist = [0usize; COARSE_BUCKETS];
+    // (d - lo) × scale lies in [0, COARSE_BUCKETS] up to rounding: bucket indices 0..=COARSE_BUCKETS.
+    let coarse = |d: f64| round_index((d - lo) * scale).min(COARSE_BUCKETS);
+    let mut hist = [0usize; COARSE_BUCKETS + 1];
     for &d in dist {
         hist[coarse(d)] += 1;
     }
-    let (mut c, mut last) = (0, COARSE_BUCKETS - 1);
+    let (mut c, mut last) = (0, COARSE_BUCKETS);
     for (b, &h) in hist.iter().enumerate() {
         c += h;
         if c >= kmax {
@@ -204,13 +216,13 @@ fn bucket_nearest(
     let cmax = cand.iter().map(|&k| dist_of(k)).fold(lo, f64::max);
     let fine_scale = c as f64 / (cmax - lo);
     if cmax > lo && fine_scale.is_finite() {
-        let fine = |d: f64| (((d - lo) * fine_scale) as usize).min(c - 1);
+        let fine = |d: f64| round_index((d - lo) * fine_scale).min(c);
         counts.clear();
-        counts.resize(c + 1, 0);
+        counts.resize(c + 2, 0);
         for &k in cand.iter() {
             counts[fine(dist_of(k)) + 1] += 1;
         }
-        for b in 1..=c {
+        for b in 1..=c + 1 {
             counts[b] += counts[b - 1];
         }
         for &k in cand.iter() {
@@ -429,7 +441,15 @@ impl Family for KnnFamily {
 
         for e in 0..m {
             let query = &eval[e * p..(e + 1) * p];
-            nearest_into(&cols, n, query, kmax, &mut dist, &mut keys, &mut bucket_counts);
+            nearest_into(
+                &cols,
+                n,
+                query,
+                kmax,
+                &mut dist,
+                &mut keys,
+                &mut bucket_counts,
+            );
             let keys = &keys[..kmax];
             match &labels {
                 None => {

@@ -211,7 +211,7 @@ fn radix_sort_stable(pairs: &mut [(u64, u32)], tmp: &mut [(u64, u32)]) {
     }
     let mut in_pairs = true;
     for (b, h) in hist.iter_mut().enumerate() {
-        if h.iter().any(|&c| c == n) {
+        if h.contains(&n) {
             continue;
         }
         let mut sum = 0;

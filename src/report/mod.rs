@@ -499,7 +499,7 @@ pub fn fmt_se(v: f64) -> String {
         return "n/a".into();
     }
     let a = v.abs();
-    if a != 0.0 && (a < 1e-3 || a >= 1e6) {
+    if a != 0.0 && !(1e-3..1e6).contains(&a) {
         format!("{v:.1e}")
     } else {
         let digits = if a == 0.0 {
@@ -517,7 +517,7 @@ pub fn fmt_num(v: f64) -> String {
         return "n/a".into();
     }
     let a = v.abs();
-    if a != 0.0 && (a < 1e-3 || a >= 1e6) {
+    if a != 0.0 && !(1e-3..1e6).contains(&a) {
         format!("{v:.3e}")
     } else {
         let digits = if a == 0.0 {
@@ -766,12 +766,12 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
             w.write_record(&header).expect("in-memory csv");
             let nv = prep.noise_var();
             for (g, &value) in plan.grid.iter().enumerate() {
-                for e in 0..sum.total.points {
+                for (e, &noise_e) in nv.iter().enumerate().take(sum.total.points) {
                     let t = prep.eval_truth[e];
                     let p = crate::decompose::squared::point(&sum.total, g, e, t);
                     let mut rec = vec![value.to_string(), e.to_string()];
                     rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
-                    rec.extend([t, nv[e], p.mean_prediction, p.bias_sq, p.variance].map(num));
+                    rec.extend([t, noise_e, p.mean_prediction, p.bias_sq, p.variance].map(num));
                     w.write_record(&rec).expect("in-memory csv");
                 }
             }

@@ -537,10 +537,7 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
         let font = (FONT, 14).into_font().color(&STONE);
         for (centre, text) in [
-            (
-                region(&bias_dom),
-                "bias-dominated (bias term above variance)",
-            ),
+            (region(&bias_dom), "bias-dominated"),
             (region(&|i| !bias_dom(i)), "variance-dominated"),
         ] {
             if let Some(c) = centre {

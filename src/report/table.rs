@@ -125,7 +125,7 @@ fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
     if doc.loss == "squared" {
         cols.push((
             "bias²",
-            Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq.clone())),
+            Box::new(|p: &PointRow| opt_se(p.bias_sq, p.stderr.bias_sq)),
         ));
         cols.push((
             "variance",
@@ -137,7 +137,7 @@ fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
         if matches!(view, View::Domingos | View::All) {
             cols.push((
                 "bias",
-                Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias.clone())),
+                Box::new(|p: &PointRow| opt_se(p.bias, p.stderr.bias)),
             ));
             cols.push((
                 "variance",
@@ -145,19 +145,15 @@ fn columns(doc: &ResultDoc, view: View) -> Vec<Column> {
             ));
             cols.push((
                 "net variance",
-                Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance.clone())),
+                Box::new(|p: &PointRow| opt_se(p.net_variance, p.stderr.net_variance)),
             ));
             cols.push((
                 "unbiased var",
-                Box::new(|p: &PointRow| {
-                    opt_se(p.unbiased_variance, p.stderr.unbiased_variance.clone())
-                }),
+                Box::new(|p: &PointRow| opt_se(p.unbiased_variance, p.stderr.unbiased_variance)),
             ));
             cols.push((
                 "biased var",
-                Box::new(|p: &PointRow| {
-                    opt_se(p.biased_variance, p.stderr.biased_variance.clone())
-                }),
+                Box::new(|p: &PointRow| opt_se(p.biased_variance, p.stderr.biased_variance)),
             ));
         }
         if matches!(view, View::KohaviWolpert | View::All) {

@@ -727,7 +727,8 @@ fn expand_grid(
                 if t.contains_key("count") {
                     return Err(e("`count` goes with `log`; a range uses `step`".into()));
                 }
-                if !(step > 0.0) || !from.is_finite() || !to.is_finite() || to < from {
+                if step.is_nan() || step <= 0.0 || !from.is_finite() || !to.is_finite() || to < from
+                {
                     return Err(e(format!(
                         "range from {from} to {to} step {step} is empty or invalid"
                     )));
