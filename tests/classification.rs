@@ -404,8 +404,10 @@ fn check_fixed_design_knn(src: &str, what: &str) {
             );
             biased_clear += (exact[e].1.bias == 1.0) as usize;
         }
+        // (name, the library's point value from (terms, c1, N), the exact value)
         type Pick = fn(&zero_one::ZeroOneTerms, f64, f64) -> f64;
-        let terms: [(&str, Pick, fn(&Exact) -> f64); 7] = [
+        type ExactOf = fn(&Exact) -> f64;
+        let terms: [(&str, Pick, ExactOf); 7] = [
             ("Domingos variance", |t, _, _| t.variance, |t| t.variance),
             (
                 "Domingos net variance",
@@ -492,7 +494,9 @@ kind = "zero_one"
 #[test]
 fn fixed_design_knn_three_classes_matches_the_exact_vote_distribution() {
     // Invented scenario: a sensor line classifies three fault types from two fixed test
-    // readings at 50 fixed settings; the true class probabilities are a softmax of the readings.
+    // readings at 50 fixed settings; the true class probabilities are a softmax of the readings,
+    // with a small island where the third fault is the most likely (large k votes it away:
+    // points whose main prediction is clearly not the Bayes class).
     // Source of the exact values: the vote vector is a sum of independent categorical draws,
     // its distribution computed exactly by dynamic programming over the neighbours.
     let src = r#"
@@ -513,7 +517,7 @@ name = "b"
 uniform = [0.0, 1.0]
 [data.classes]
 labels = ["seal", "bearing", "sensor"]
-logits = ["0", "5*(a - 0.4)", "5*(b - 0.5) + 1"]
+logits = ["0", "4*(a - 0.5)", "2 - 40*((a - 0.8)^2 + (b - 0.2)^2)"]
 [model]
 family = "knn"
 grid = [1, 2, 3, 5, 7, 15]
