@@ -198,7 +198,14 @@ pub fn jackknife_se(leave_out: &[f64]) -> f64 {
     let gf = g as f64;
     let mean = leave_out.iter().sum::<f64>() / gf;
     let ss: f64 = leave_out.iter().map(|x| (x - mean) * (x - mean)).sum();
-    ((gf - 1.0) / gf * ss).sqrt()
+    let se = ((gf - 1.0) / gf * ss).sqrt();
+    // A statistic that is the same in every block-deleted set (a share that no block moves)
+    // differs across them only by rounding: report 0 rather than ~1e-16 of round-off.
+    if se <= 1e-12 * mean.abs() {
+        0.0
+    } else {
+        se
+    }
 }
 
 /// Folds blocks in index order and computes terms with jackknife standard errors over blocks.

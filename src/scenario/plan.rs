@@ -710,7 +710,10 @@ fn expand_grid(
                         } else if i == n - 1 {
                             pair[1]
                         } else {
-                            (a + (b - a) * i as f64 / (n - 1) as f64).exp()
+                            // Twelve significant digits, so that decades print as 10, not
+                            // 9.999999999999993.
+                            let v = (a + (b - a) * i as f64 / (n - 1) as f64).exp();
+                            format!("{v:.11e}").parse::<f64>().unwrap_or(v)
                         }
                     })
                     .collect();
@@ -1092,6 +1095,10 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
         }
     }
     let k = labels.len();
+    if c.flip.is_some() && c.rule.is_none() {
+        let span = c.flip.as_ref().map(|f| f.span());
+        return Err(cx.err(span, "data.classes.flip", "`flip` goes with `rule`"));
+    }
     let given = [
         c.probability.is_some(),
         c.logits.is_some(),
@@ -1106,10 +1113,6 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
             "data.classes",
             "give exactly one of `probability` (two classes), `logits` (one per label) or `rule` (with `flip`)",
         ));
-    }
-    if c.flip.is_some() && c.rule.is_none() {
-        let span = c.flip.as_ref().map(|f| f.span());
-        return Err(cx.err(span, "data.classes.flip", "`flip` goes with `rule`"));
     }
     let kind = if let Some(p) = &c.probability {
         if k != 2 {
