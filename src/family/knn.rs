@@ -233,7 +233,10 @@ fn bucket_nearest(
     } else {
         sorted.copy_from_slice(cand);
     }
-    // Insertion sort: linear when only rows sharing a fine bucket are out of order.
+    // Insertion sort: linear when only rows sharing a fine bucket are out of order. Many close
+    // but unequal distances in one bucket could make it quadratic: past a budget of moves, a
+    // comparison sort finishes the job (same result, the keys are distinct).
+    let mut budget = 16 * c + 64;
     for i in 1..c {
         let x = sorted[i];
         let mut j = i;
@@ -242,6 +245,11 @@ fn bucket_nearest(
             j -= 1;
         }
         sorted[j] = x;
+        budget = budget.saturating_sub(i - j);
+        if budget == 0 {
+            sorted.sort_unstable();
+            break;
+        }
     }
     keys.copy_within(c..c + kmax, 0);
     keys.truncate(kmax);
@@ -584,6 +592,31 @@ mod tests {
                 let want = brute_mean(&x, &y, q, k);
                 assert!((out[[k - 1, e]] - want).abs() <= 1e-12, "e={e} k={k}");
             }
+        }
+    }
+
+    // Exact identity with the full sort by (distance, row): many interleaved, unequal but very
+    // close distances share one fine bucket (the insertion sort runs out of budget and the
+    // comparison sort finishes), next to exact ties and far rows.
+    #[test]
+    fn bucketed_search_matches_full_sort_on_near_ties() {
+        // 150 rows at each of the two close distances, interleaved: about 150²/2 = 11 250 moves,
+        // over the budget of 16 × 450 + 64 for the 450 candidates.
+        let n = 600;
+        let x = Array2::from_shape_fn((n, 1), |(i, _)| match i % 4 {
+            0 => 1.0,
+            1 => 1.0 + 1e-9,
+            2 => 2.0,
+            _ => 50.0 + i as f64,
+        });
+        let q = ndarray::arr1(&[0.0]);
+        let full = brute_order(&x, q.view());
+        for k in [1, 2, 50, 150, 300, 450, 600] {
+            assert_eq!(
+                neighbours(x.view(), q.view(), k),
+                full[..k].to_vec(),
+                "k={k}"
+            );
         }
     }
 
