@@ -211,6 +211,20 @@ pub struct MergeArgs {
     /// Do not print the table.
     #[arg(long, short)]
     pub quiet: bool,
+    /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot: Option<PathBuf>,
+    /// Draw the truth and mean predictions along one input (SVG; squared loss).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot_points: Option<PathBuf>,
+    /// The input on the x axis of --plot-points when the scenario has several (the others are
+    /// averaged over).
+    #[arg(long, value_name = "NAME", requires = "plot_points")]
+    pub input: Option<String>,
+    /// Write a self-contained HTML report (scenario, reading, pictures, table); its wall time is
+    /// the merge's own.
+    #[arg(long, value_name = "FILE.html")]
+    pub report: Option<PathBuf>,
 }
 
 /// Table view for 0-1 loss.

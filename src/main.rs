@@ -1,6 +1,6 @@
 //! The `lossprism` binary: parse the command line, call the library, map errors to exit codes
 //! (0 success, 1 a check found a regression, 2 bad input or usage, 3 stopped on request by the
-//! hidden testing flag `--stop-after-blocks`).
+//! hidden testing flag `--stop-after-blocks`, 130 interrupted by Ctrl-C).
 
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -138,6 +138,8 @@ struct Pictures<'a> {
     input: Option<&'a str>,
     report: Option<&'a PathBuf>,
     started: Option<std::time::Instant>,
+    /// What the wall time measured, as the HTML report names it.
+    wall_label: &'static str,
 }
 
 impl<'a> Pictures<'a> {
@@ -148,16 +150,19 @@ impl<'a> Pictures<'a> {
             input: args.input.as_deref(),
             report: args.report.as_ref(),
             started: Some(started),
+            wall_label: "wall time",
         }
     }
 
-    fn none() -> Self {
+    /// `merge`'s pictures; the wall time is the merge's own (the shards' times are unknown).
+    fn of_merge(args: &'a MergeArgs, started: std::time::Instant) -> Self {
         Pictures {
-            plot: None,
-            plot_points: None,
-            input: None,
-            report: None,
-            started: None,
+            plot: args.plot.as_ref(),
+            plot_points: args.plot_points.as_ref(),
+            input: args.input.as_deref(),
+            report: args.report.as_ref(),
+            started: Some(started),
+            wall_label: "merge wall time",
         }
     }
 }
@@ -213,7 +218,14 @@ fn emit(plan: &Plan, outcome: &runner::Outcome, o: &Outputs<'_>) -> anyhow::Resu
             points: points_svg,
             selection,
         };
-        let html = report::html::render(&doc, o.view.into(), &all, wall);
+        let mut html = report::html::render(&doc, o.view.into(), &all, wall);
+        if pics.wall_label != "wall time" {
+            html = html.replacen(
+                "<dt>wall time</dt>",
+                &format!("<dt>{}</dt>", pics.wall_label),
+                1,
+            );
+        }
         files.push((p, html.into_bytes()));
     }
     report::write_all_atomic(&files)?;
@@ -238,9 +250,19 @@ fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
     if args.plot_points.is_some() {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
-    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::ExitNow {
-        checkpoint: args.checkpoint.clone(),
-    });
+    // As for plain runs: Ctrl-C lets the blocks in flight finish (each rewrites the checkpoint
+    // atomically), then the job stops; the bar shows only on a terminal and without --quiet.
+    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::FinishBlocks);
+    let job_replicates = match shard::job_blocks(&plan, args.shard) {
+        Ok(blocks) => blocks
+            .map(|b| {
+                let (s, e) = plan.block_range(b);
+                e - s
+            })
+            .sum(),
+        Err(_) => plan.replicates,
+    };
+    let watch = lossprism::progress::Progress::new(job_replicates, args.quiet);
     let job = shard::Job {
         plan: &plan,
         source: &source,
@@ -248,11 +270,35 @@ fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
         checkpoint: args.checkpoint.as_deref(),
         stop_after_blocks: args.stop_after_blocks,
         threads: args.threads,
+        watch: &watch,
     };
-    let done = match shard::execute(&job)? {
+    let finish = shard::execute(&job);
+    watch.clear();
+    let done = match finish? {
         shard::Finish::Stopped {
             new_blocks,
             remaining,
+            interrupted: true,
+        } => {
+            let total = job_block_count(&plan, args.shard);
+            let kept = match &args.checkpoint {
+                Some(p) => format!(
+                    "the checkpoint {} holds them: rerun the same command to resume",
+                    p.display()
+                ),
+                None => "nothing was written: rerun to start again".into(),
+            };
+            eprintln!(
+                "interrupted after {} of {total} blocks ({new_blocks} completed in this session; \
+                 the blocks in flight finished); {kept}",
+                total - remaining
+            );
+            return Ok(130);
+        }
+        shard::Finish::Stopped {
+            new_blocks,
+            remaining,
+            interrupted: false,
         } => {
             let ck = args
                 .checkpoint
@@ -303,15 +349,27 @@ fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
     emit(&plan, &outcome, &outputs)
 }
 
+/// The number of blocks a job covers (the whole run's when the shard is refused).
+fn job_block_count(plan: &Plan, shard: Option<shard::ShardSpec>) -> u64 {
+    shard::job_blocks(plan, shard)
+        .map(|r| r.end - r.start)
+        .unwrap_or(plan.blocks)
+}
+
 fn merge(args: MergeArgs) -> anyhow::Result<u8> {
+    // The HTML report's wall time is the merge's own, labelled so.
+    let started = std::time::Instant::now();
     let merged = shard::merge(&args.parts)?;
+    if args.plot_points.is_some() {
+        report::plot::check_point_request(&merged.plan, args.input.as_deref())?;
+    }
     let outputs = Outputs {
         out: &args.out,
         csv: &args.csv,
         points: &args.points,
         view: args.decomposition,
         quiet: args.quiet,
-        pictures: Pictures::none(),
+        pictures: Pictures::of_merge(&args, started),
     };
     emit(&merged.plan, &merged.outcome, &outputs)
 }

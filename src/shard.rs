@@ -499,7 +499,7 @@ fn shard_words(s: Option<ShardRef>) -> String {
 }
 
 /// What to run: the whole plan or one shard, optionally with a checkpoint file.
-#[derive(Debug, Clone)]
+#[derive(Clone)]
 pub struct Job<'a> {
     /// The plan (built from `source`).
     pub plan: &'a Plan,
@@ -513,6 +513,23 @@ pub struct Job<'a> {
     pub stop_after_blocks: Option<u64>,
     /// Worker threads (0 = one per core).
     pub threads: usize,
+    /// Told of every finished block (resumed blocks are reported when the job starts) and asked
+    /// before each block whether to stop (a progress display, Ctrl-C); [`runner::NoWatch`] for
+    /// none.
+    pub watch: &'a dyn runner::Watch,
+}
+
+impl std::fmt::Debug for Job<'_> {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Job")
+            .field("plan", &self.plan.name)
+            .field("source", &self.source)
+            .field("shard", &self.shard)
+            .field("checkpoint", &self.checkpoint)
+            .field("stop_after_blocks", &self.stop_after_blocks)
+            .field("threads", &self.threads)
+            .finish_non_exhaustive()
+    }
 }
 
 /// All blocks a job asked for, computed or resumed.
@@ -533,12 +550,16 @@ pub struct Completed {
 pub enum Finish {
     /// Every requested block is available.
     Done(Box<Completed>),
-    /// Stopped on request after `new_blocks` newly completed blocks; `remaining` are left.
+    /// Stopped on request after `new_blocks` newly completed blocks; `remaining` are left. The
+    /// checkpoint, if any, holds every completed block, so rerunning the job resumes.
     Stopped {
         /// Blocks completed in this session.
         new_blocks: u64,
         /// Blocks still to run.
         remaining: u64,
+        /// Whether the job's [`Job::watch`] asked to stop (an interruption) rather than
+        /// [`Job::stop_after_blocks`].
+        interrupted: bool,
     },
 }
 
@@ -643,12 +664,20 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         None => BTreeMap::new(),
     };
     let resumed = start.len() as u64;
+    let replicates_of = |b: u64| {
+        let (s, e) = plan.block_range(b);
+        e - s
+    };
+    for &b in start.keys() {
+        job.watch.block_done(replicates_of(b));
+    }
     let todo: Vec<u64> = wanted.clone().filter(|b| !start.contains_key(b)).collect();
     let state = Mutex::new(Progress {
         blocks: start,
         new_blocks: 0,
     });
     let stop = AtomicBool::new(false);
+    let watch_stopped = AtomicBool::new(false);
     if job.stop_after_blocks == Some(0) {
         stop.store(true, Ordering::SeqCst);
     }
@@ -668,6 +697,7 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         if job.stop_after_blocks == Some(st.new_blocks) {
             stop.store(true, Ordering::SeqCst);
         }
+        job.watch.block_done(replicates_of(b));
         Ok(())
     };
     if !todo.is_empty() {
@@ -683,6 +713,10 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
                     if stop.load(Ordering::SeqCst) {
                         return Ok(());
                     }
+                    if job.watch.stop() {
+                        watch_stopped.store(true, Ordering::SeqCst);
+                        return Ok(());
+                    }
                     let (acc, audit) = runner::run_block_audited(plan, &prepared, b)?;
                     record(b, Block { acc, audit })
                 })
@@ -696,6 +730,7 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         return Ok(Finish::Stopped {
             new_blocks: st.new_blocks,
             remaining,
+            interrupted: watch_stopped.load(Ordering::SeqCst),
         });
     }
     Ok(Finish::Done(Box::new(Completed {

@@ -490,3 +490,76 @@ fn render_docs_pictures() {
         pixmap.save_png(docs().join(name)).unwrap();
     }
 }
+
+/// Drops the wall-time line of an HTML report (the only line that may differ between runs).
+fn without_wall_time(html: &str) -> String {
+    let kept: Vec<&str> = html
+        .lines()
+        .filter(|l| !l.contains("wall time</dt>"))
+        .collect();
+    assert_eq!(kept.len() + 1, html.lines().count(), "one wall-time line");
+    kept.join("\n")
+}
+
+#[test]
+fn merge_writes_the_same_pictures_and_report_as_run() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    std::fs::write(d.join("tiny.toml"), TINY).unwrap();
+    let go = |args: &[&str]| {
+        let out = Command::new(bin())
+            .args(args)
+            .current_dir(d)
+            .env("NO_COLOR", "1")
+            .output()
+            .unwrap();
+        assert!(
+            out.status.success(),
+            "{args:?}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+    };
+    go(&[
+        "run",
+        "tiny.toml",
+        "-q",
+        "--out",
+        "r.json",
+        "--plot",
+        "run.svg",
+        "--plot-points",
+        "run-points.svg",
+        "--input",
+        "x",
+        "--report",
+        "run.html",
+    ]);
+    for i in ["1/2", "2/2"] {
+        let part = format!("part{}.json", &i[..1]);
+        go(&["run", "tiny.toml", "-q", "--shard", i, "--out", &part]);
+    }
+    go(&[
+        "merge",
+        "part1.json",
+        "part2.json",
+        "-q",
+        "--out",
+        "m.json",
+        "--plot",
+        "merge.svg",
+        "--plot-points",
+        "merge-points.svg",
+        "--input",
+        "x",
+        "--report",
+        "merge.html",
+    ]);
+    let read = |f: &str| std::fs::read_to_string(d.join(f)).unwrap();
+    assert_eq!(read("r.json"), read("m.json"));
+    assert_eq!(read("run.svg"), read("merge.svg"));
+    assert_eq!(read("run-points.svg"), read("merge-points.svg"));
+    let (run, merged) = (read("run.html"), read("merge.html"));
+    assert!(run.contains("<dt>wall time</dt>"), "run report");
+    assert!(merged.contains("<dt>merge wall time</dt>"), "merge report");
+    assert_eq!(without_wall_time(&run), without_wall_time(&merged));
+}

@@ -493,3 +493,88 @@ fn shards_and_checkpoints_carry_the_selection_audit() {
     ok(d, &base);
     assert_eq!(read(d, "r.json"), full);
 }
+
+/// A watch that asks to stop once `after` blocks have finished, counting the replicates it is
+/// told about (as the progress bar does).
+struct StopAfter {
+    after: u64,
+    blocks: std::sync::atomic::AtomicU64,
+    replicates: std::sync::atomic::AtomicU64,
+}
+
+impl lossprism::runner::Watch for StopAfter {
+    fn block_done(&self, replicates: u64) {
+        use std::sync::atomic::Ordering;
+        self.blocks.fetch_add(1, Ordering::SeqCst);
+        self.replicates.fetch_add(replicates, Ordering::SeqCst);
+    }
+    fn stop(&self) -> bool {
+        self.blocks.load(std::sync::atomic::Ordering::SeqCst) >= self.after
+    }
+}
+
+#[test]
+fn a_watch_stops_a_checkpointed_job_which_then_resumes_to_the_plain_result() {
+    use lossprism::shard::{self, Finish, Job, ScenarioSource};
+    use std::sync::atomic::{AtomicU64, Ordering};
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    let source = ScenarioSource::read(Some(&d.join("s.toml"))).unwrap();
+    let plan = source.plan(&Default::default()).unwrap();
+    let ck = d.join("ck.json");
+    let watch = StopAfter {
+        after: 3,
+        blocks: AtomicU64::new(0),
+        replicates: AtomicU64::new(0),
+    };
+    let job = Job {
+        plan: &plan,
+        source: &source,
+        shard: None,
+        checkpoint: Some(&ck),
+        stop_after_blocks: None,
+        threads: 1,
+        watch: &watch,
+    };
+    // One worker: the watch is asked before every block, so exactly three finish.
+    match shard::execute(&job).unwrap() {
+        Finish::Stopped {
+            new_blocks,
+            remaining,
+            interrupted,
+        } => {
+            assert!(interrupted);
+            assert_eq!((new_blocks, remaining), (3, 11));
+        }
+        Finish::Done(_) => panic!("the watch did not stop the job"),
+    }
+    // SMALL has two replicates per block.
+    assert_eq!(watch.replicates.load(Ordering::SeqCst), 6);
+    let doc: Value = serde_json::from_str(&read(d, "ck.json")).unwrap();
+    assert_eq!(doc["completed"].as_array().unwrap().len(), 3);
+
+    // Resuming reports the three saved blocks first, then computes the other eleven.
+    let watch = StopAfter {
+        after: u64::MAX,
+        blocks: AtomicU64::new(0),
+        replicates: AtomicU64::new(0),
+    };
+    let job = Job {
+        watch: &watch,
+        ..job
+    };
+    let done = match shard::execute(&job).unwrap() {
+        Finish::Done(done) => done,
+        Finish::Stopped { .. } => panic!("the resumed job stopped"),
+    };
+    assert_eq!(done.resumed, 3);
+    assert_eq!(watch.blocks.load(Ordering::SeqCst), 14);
+    assert_eq!(watch.replicates.load(Ordering::SeqCst), 28);
+    let merged = shard::outcome(&plan, *done).unwrap();
+    let plain = lossprism::runner::run(&plan, 1).unwrap();
+    assert_eq!(
+        lossprism::report::to_json(&lossprism::report::build(&plan, &merged)),
+        lossprism::report::to_json(&lossprism::report::build(&plan, &plain))
+    );
+}
