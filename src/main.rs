@@ -95,7 +95,9 @@ fn run(args: RunArgs) -> anyhow::Result<u8> {
     if args.plot_points.is_some() {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
-    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::FinishBlocks);
+    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::FinishBlocks {
+        checkpoint: None,
+    });
     let watch = lossprism::progress::Progress::new(plan.replicates, args.quiet);
     let outcome = match runner::run_watched(&plan, args.threads, &watch)? {
         Ok(o) => o,
@@ -252,7 +254,9 @@ fn run_in_blocks(args: RunArgs, opts: &PlanOptions) -> anyhow::Result<u8> {
     }
     // As for plain runs: Ctrl-C lets the blocks in flight finish (each rewrites the checkpoint
     // atomically), then the job stops; the bar shows only on a terminal and without --quiet.
-    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::FinishBlocks);
+    lossprism::progress::install_interrupt(lossprism::progress::OnInterrupt::FinishBlocks {
+        checkpoint: args.checkpoint.clone(),
+    });
     let job_replicates = match shard::job_blocks(&plan, args.shard) {
         Ok(blocks) => blocks
             .map(|b| {

@@ -37,7 +37,11 @@ pub fn interrupted() -> bool {
 pub enum OnInterrupt {
     /// Ask the run to stop after the blocks in flight (the run's [`Progress`] watch reads it); a
     /// second Ctrl-C ends the process at once.
-    FinishBlocks,
+    FinishBlocks {
+        /// The checkpoint in use, if any: it keeps every finished block even after a second
+        /// Ctrl-C (each write is an atomic rename).
+        checkpoint: Option<PathBuf>,
+    },
     /// End the process at once (exit 130), saying what is kept: with a checkpoint, every write
     /// is an atomic rename, so the file holds whole blocks and rerunning resumes from it.
     ExitNow {
@@ -63,9 +67,16 @@ pub fn install_interrupt(mode: OnInterrupt) {
             eprintln!("\ninterrupted: nothing written");
             std::process::exit(130);
         }
-        OnInterrupt::FinishBlocks => {
+        OnInterrupt::FinishBlocks { checkpoint } => {
             if INTERRUPTED.swap(true, Ordering::SeqCst) {
-                eprintln!("\ninterrupted twice: stopping now, nothing written");
+                match checkpoint {
+                    Some(ck) => eprintln!(
+                        "\ninterrupted twice: stopping now; the finished blocks are saved in {}; \
+                         rerun the same command to resume",
+                        ck.display()
+                    ),
+                    None => eprintln!("\ninterrupted twice: stopping now, nothing written"),
+                }
                 std::process::exit(130);
             }
             eprintln!(
