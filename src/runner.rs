@@ -4,6 +4,8 @@
 //! each block is accumulated sequentially and blocks are folded in index order, so results are
 //! bit-identical for any thread count, any shard split and after a resume.
 
+use std::borrow::Cow;
+
 use ndarray::{Array1, Array2};
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
@@ -166,18 +168,19 @@ pub enum BlockAcc {
     ZeroOne(ZeroOneAcc),
 }
 
-/// One replicate's training set and fresh responses at the evaluation points.
-struct Draw {
-    x: Array2<f64>,
+/// One replicate's training set and fresh responses at the evaluation points. A fixed design
+/// is borrowed, not copied, in every replicate.
+struct Draw<'a> {
+    x: Cow<'a, Array2<f64>>,
     y: Array1<f64>,
     fresh: Array1<f64>,
 }
 
-fn draw_replicate(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
+fn draw_replicate<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, Error> {
     draw_replicate_inner(plan, prep, r).map_err(|e| with_file(plan, e))
 }
 
-fn draw_replicate_inner(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Error> {
+fn draw_replicate_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, Error> {
     let Source::Synthetic(s) = &plan.source else {
         return Err(Error::Usage(format!(
             "{}: table scenarios run whole (`lossprism run FILE`); --shard and --checkpoint do not support them yet",
@@ -190,7 +193,7 @@ fn draw_replicate_inner(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Er
             let y = add_noise(f, sd, &mut rng);
             let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
             Ok(Draw {
-                x: x.clone(),
+                x: Cow::Borrowed(x),
                 y,
                 fresh,
             })
@@ -201,15 +204,19 @@ fn draw_replicate_inner(plan: &Plan, prep: &Prepared, r: u64) -> Result<Draw, Er
             let sd = s.process.sd_at(x.view())?;
             let y = add_noise(&f, &sd, &mut rng);
             let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
-            Ok(Draw { x, y, fresh })
+            Ok(Draw {
+                x: Cow::Owned(x),
+                y,
+                fresh,
+            })
         }
         (Some(eval_probs), fixed) => {
             let (x, probs) = match (fixed, &prep.fixed_probs) {
-                (Some((x, _, _)), Some(p)) => (x.clone(), p.clone()),
+                (Some((x, _, _)), Some(p)) => (Cow::Borrowed(x), Cow::Borrowed(p)),
                 _ => {
                     let x = s.process.draw_inputs(s.train_size, &mut rng);
                     let p = s.process.probs_at(x.view())?;
-                    (x, p)
+                    (Cow::Owned(x), Cow::Owned(p))
                 }
             };
             let y = draw_labels(&probs, &mut rng);
@@ -227,7 +234,7 @@ pub fn training_set(
     r: u64,
 ) -> Result<(Array2<f64>, Array1<f64>), Error> {
     let d = draw_replicate(plan, prep, r)?;
-    Ok((d.x, d.y))
+    Ok((d.x.into_owned(), d.y))
 }
 
 /// Runs the replicates of block `b` sequentially and returns its accumulator. Refuses a plan

@@ -62,8 +62,8 @@
 //! objective or coefficient is a [`FitError`].
 
 use super::poly::check_shapes;
-use super::{Family, FitError, FitInput, Task};
-use ndarray::{Array3, ArrayView2, ArrayViewMut2};
+use super::{Family, FitError, FitInput, Standardizer, Task};
+use ndarray::{Array3, ArrayViewMut2};
 use std::collections::VecDeque;
 
 /// Largest number of parameters fitted by full Newton; above it L-BFGS is used.
@@ -184,45 +184,6 @@ enum Status {
     Stalled,
     /// Iteration cap reached; the last iterate is used.
     MaxIter,
-}
-
-/// Training mean and sd per input; `inv_sd = 0` marks a constant column.
-struct Standardizer {
-    mean: Vec<f64>,
-    inv_sd: Vec<f64>,
-}
-
-impl Standardizer {
-    fn from_training(x: ArrayView2<'_, f64>) -> Self {
-        let n = x.nrows() as f64;
-        let mut mean = Vec::with_capacity(x.ncols());
-        let mut inv_sd = Vec::with_capacity(x.ncols());
-        for c in x.columns() {
-            let mu = c.sum() / n;
-            let var = c.iter().map(|v| (v - mu) * (v - mu)).sum::<f64>() / n;
-            let sd = var.sqrt();
-            let big = c.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
-            mean.push(mu);
-            inv_sd.push(if sd > 1e-12 * big && sd > 0.0 {
-                1.0 / sd
-            } else {
-                0.0
-            });
-        }
-        Standardizer { mean, inv_sd }
-    }
-
-    /// Row-major standardized copy of `x`.
-    fn apply_row_major(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
-        let (m, p) = x.dim();
-        let mut z = vec![0.0; m * p];
-        for i in 0..m {
-            for j in 0..p {
-                z[i * p + j] = (x[[i, j]] - self.mean[j]) * self.inv_sd[j];
-            }
-        }
-        z
-    }
 }
 
 /// Coefficients for every grid value (grid order), in the standardized scale.

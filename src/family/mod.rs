@@ -160,3 +160,54 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         },
     ]
 }
+
+/// Training mean and population sd per input (shared by the families that standardize); `inv_sd = 0` marks a constant column.
+pub(crate) struct Standardizer {
+    pub(crate) mean: Vec<f64>,
+    pub(crate) inv_sd: Vec<f64>,
+}
+
+impl Standardizer {
+    pub(crate) fn from_training(x: ArrayView2<'_, f64>) -> Self {
+        let n = x.nrows() as f64;
+        let mut mean = Vec::with_capacity(x.ncols());
+        let mut inv_sd = Vec::with_capacity(x.ncols());
+        for c in x.columns() {
+            let mu = c.sum() / n;
+            let var = c.iter().map(|v| (v - mu) * (v - mu)).sum::<f64>() / n;
+            let sd = var.sqrt();
+            let big = c.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+            mean.push(mu);
+            inv_sd.push(if sd > 1e-12 * big && sd > 0.0 {
+                1.0 / sd
+            } else {
+                0.0
+            });
+        }
+        Standardizer { mean, inv_sd }
+    }
+
+    /// Column-major standardized copy of `x`.
+    pub(crate) fn apply(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
+        let (n, p) = x.dim();
+        let mut z = vec![0.0; n * p];
+        for j in 0..p {
+            for i in 0..n {
+                z[j * n + i] = (x[[i, j]] - self.mean[j]) * self.inv_sd[j];
+            }
+        }
+        z
+    }
+
+    /// Row-major standardized copy of `x`.
+    pub(crate) fn apply_row_major(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
+        let (m, p) = x.dim();
+        let mut z = vec![0.0; m * p];
+        for i in 0..m {
+            for j in 0..p {
+                z[i * p + j] = (x[[i, j]] - self.mean[j]) * self.inv_sd[j];
+            }
+        }
+        z
+    }
+}

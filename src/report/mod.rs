@@ -674,18 +674,7 @@ pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), Error> {
             .and_then(|_| out.flush())
             .map_err(|e| Error::io(path, &e));
     }
-    let dir = match path.parent() {
-        Some(d) if !d.as_os_str().is_empty() => d.to_path_buf(),
-        _ => std::path::PathBuf::from("."),
-    };
-    let file_name = path
-        .file_name()
-        .ok_or_else(|| Error::Usage(format!("{}: not a file name", path.display())))?;
-    let tmp = dir.join(format!(
-        ".{}.{}.tmp",
-        file_name.to_string_lossy(),
-        std::process::id()
-    ));
+    let tmp = temp_name(path)?;
     let res = std::fs::write(&tmp, bytes).and_then(|_| std::fs::rename(&tmp, path));
     if let Err(e) = res {
         let _ = std::fs::remove_file(&tmp);
