@@ -31,23 +31,44 @@
 
 use std::fmt;
 
-use crate::report::{fmt_num, fmt_se, fmt_value, PointRow, ResultDoc, FORMAT};
+use crate::decompose::{self, Shape};
+use crate::fmt::{fmt_num, fmt_se, fmt_value};
+use crate::report::{PointRow, ResultDoc, FORMAT};
 
-/// Terms compared under squared loss (`bias_sq_plus_noise` only where noise is unknown, on
-/// table sources).
-pub const SQUARED_TERMS: [&str; 4] = ["expected_loss", "bias_sq", "variance", "bias_sq_plus_noise"];
+/// The terms a document's rows are compared on: those its term description gives a standard
+/// error, except the direct cross-check, noise terms and the detail-only terms.
+pub fn compared_terms(doc: &ResultDoc) -> Vec<String> {
+    doc.term_docs()
+        .into_iter()
+        .filter(|t| t.stderr && t.role != "direct" && t.role != "noise" && t.group != "detail")
+        .map(|t| t.key)
+        .collect()
+}
 
-/// Terms compared under 0-1 loss.
-pub const ZERO_ONE_TERMS: [&str; 8] = [
-    "expected_loss",
-    "bias",
-    "variance",
-    "net_variance",
-    "kohavi_wolpert.bias_sq",
-    "kohavi_wolpert.variance",
-    "james.systematic_effect",
-    "james.variance_effect",
-];
+/// Every term name any loss can report (for `--margin-term`).
+pub fn all_terms() -> Vec<&'static str> {
+    let mut v: Vec<&'static str> = Vec::new();
+    for loss in decompose::registry() {
+        for observed in [false, true] {
+            for (fits, ensemble) in [(1, false), (2, true)] {
+                let shape = Shape {
+                    grid: 1,
+                    points: 1,
+                    classes: 2,
+                    fits,
+                    all_points: !observed,
+                    ensemble,
+                };
+                for t in loss.describe(&shape, observed) {
+                    if !v.contains(&t.key) {
+                        v.push(t.key);
+                    }
+                }
+            }
+        }
+    }
+    v
+}
 
 /// Thresholds of the comparison.
 #[derive(Debug, Clone, PartialEq)]
@@ -95,7 +116,7 @@ impl CheckOptions {
             )));
         }
         for (t, m) in &self.term_margins {
-            if !SQUARED_TERMS.contains(&t.as_str()) && !ZERO_ONE_TERMS.contains(&t.as_str()) {
+            if !all_terms().contains(&t.as_str()) {
                 return Err(CheckError::Options(format!(
                     "--margin-term: unknown term `{t}`; terms: {}",
                     all_terms().join(", ")
@@ -109,12 +130,6 @@ impl CheckOptions {
         }
         Ok(())
     }
-}
-
-fn all_terms() -> Vec<&'static str> {
-    let mut v: Vec<&str> = SQUARED_TERMS.to_vec();
-    v.extend(ZERO_ONE_TERMS.iter().filter(|t| !SQUARED_TERMS.contains(t)));
-    v
 }
 
 /// Parses a margin: `2%` (percent) or `0.02` (a fraction).
@@ -218,7 +233,7 @@ pub struct Comparison {
     /// Knob value.
     pub value: f64,
     /// Term name (`variance`, `kohavi_wolpert.bias_sq`, ...).
-    pub term: &'static str,
+    pub term: String,
     /// Baseline value.
     pub baseline: f64,
     /// New value.
@@ -276,11 +291,11 @@ impl CheckReport {
     }
 
     /// Names of the terms that got worse (each once, in term order).
-    pub fn worse_terms(&self) -> Vec<&'static str> {
-        let mut v: Vec<&'static str> = Vec::new();
+    pub fn worse_terms(&self) -> Vec<String> {
+        let mut v: Vec<String> = Vec::new();
         for c in self.worse() {
             if !v.contains(&c.term) {
-                v.push(c.term);
+                v.push(c.term.clone());
             }
         }
         v
@@ -394,39 +409,7 @@ impl fmt::Display for CheckReport {
 
 /// Value and standard error of a term in a row. Outer `None`: the term is absent from the row.
 fn term_of(row: &PointRow, term: &str) -> Option<(f64, Option<f64>)> {
-    let s = &row.stderr;
-    let flat = |o: &Option<Option<f64>>| o.flatten();
-    match term {
-        "expected_loss" => Some((row.expected_loss, s.expected_loss)),
-        "variance" => Some((row.variance, s.variance)),
-        "bias_sq" => row.bias_sq.map(|v| (v, flat(&s.bias_sq))),
-        "bias_sq_plus_noise" => row
-            .bias_sq_plus_noise
-            .map(|v| (v, flat(&s.bias_sq_plus_noise))),
-        "bias" => row.bias.map(|v| (v, flat(&s.bias))),
-        "net_variance" => row.net_variance.map(|v| (v, flat(&s.net_variance))),
-        "kohavi_wolpert.bias_sq" => row
-            .kohavi_wolpert
-            .as_ref()
-            .and_then(|k| k.bias_sq)
-            .map(|v| (v, s.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq))),
-        "kohavi_wolpert.variance" => row
-            .kohavi_wolpert
-            .as_ref()
-            .and_then(|k| k.variance)
-            .map(|v| (v, s.kohavi_wolpert.as_ref().and_then(|k| k.variance))),
-        "james.systematic_effect" => row
-            .james
-            .as_ref()
-            .and_then(|j| j.systematic_effect)
-            .map(|v| (v, s.james.as_ref().and_then(|j| j.systematic_effect))),
-        "james.variance_effect" => row
-            .james
-            .as_ref()
-            .and_then(|j| j.variance_effect)
-            .map(|v| (v, s.james.as_ref().and_then(|j| j.variance_effect))),
-        _ => None,
-    }
+    row.has(term).then(|| (row.get(term), row.se(term)))
 }
 
 /// The first difference that makes two documents incomparable, if any.
@@ -535,19 +518,18 @@ pub fn compare(
     if let Some(m) = mismatch(new, baseline) {
         return Err(CheckError::Mismatch(m));
     }
-    let terms: &[&'static str] = match new.loss.as_str() {
-        "squared" => &SQUARED_TERMS,
-        "zero_one" => &ZERO_ONE_TERMS,
-        other => {
-            return Err(CheckError::BadDocument(format!(
-                "unknown loss `{other}` in the result"
-            )))
-        }
-    };
+    if decompose::by_name(&new.loss).is_none() {
+        return Err(CheckError::BadDocument(format!(
+            "unknown loss `{}` in the result",
+            new.loss
+        )));
+    }
+    let terms = compared_terms(new);
     let identical = new.points == baseline.points;
     let mut comparisons = Vec::new();
     for (a, b) in new.points.iter().zip(&baseline.points) {
-        for &term in terms {
+        for term in &terms {
+            let term = term.as_str();
             let at = || format!("`{term}` at {} = {}", new.knob, fmt_value(a.value));
             let (ta, tb) = (term_of(a, term), term_of(b, term));
             let ((va, sa), (vb, sb)) = match (ta, tb) {
@@ -565,7 +547,7 @@ pub fn compare(
             if identical {
                 comparisons.push(Comparison {
                     value: a.value,
-                    term,
+                    term: term.to_string(),
                     baseline: vb,
                     new: va,
                     diff,
@@ -597,7 +579,7 @@ pub fn compare(
             };
             comparisons.push(Comparison {
                 value: a.value,
-                term,
+                term: term.to_string(),
                 baseline: vb,
                 new: va,
                 diff,

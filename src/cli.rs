@@ -1,4 +1,4 @@
-//! Command-line definition (clap derive). Parsing only: `main` turns these into library calls.
+//! Command-line definition (clap derive). Parsing only: [`crate::commands`] carries them out.
 
 use std::path::PathBuf;
 
@@ -238,16 +238,4 @@ pub enum DecompositionView {
     James,
     /// All three.
     All,
-}
-
-impl From<DecompositionView> for crate::report::table::View {
-    fn from(v: DecompositionView) -> Self {
-        use crate::report::table::View;
-        match v {
-            DecompositionView::Domingos => View::Domingos,
-            DecompositionView::KohaviWolpert => View::KohaviWolpert,
-            DecompositionView::James => View::James,
-            DecompositionView::All => View::All,
-        }
-    }
 }

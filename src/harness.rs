@@ -11,9 +11,8 @@
 //!
 //! ```
 //! use std::sync::Arc;
-//! use lossprism::family::{Family, FitError, FitInput, Task};
+//! use lossprism::family::{Family, FitError, FitInput, Out, Task};
 //! use lossprism::{check, harness};
-//! use ndarray::ArrayViewMut2;
 //!
 //! /// Shrinks the training mean towards zero by the knob `shrink` (an invented toy estimator).
 //! struct ShrunkMean;
@@ -28,11 +27,11 @@
 //!         }
 //!     }
 //!     fn supports(&self, task: Task) -> bool { task == Task::Regress }
-//!     fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], mut out: ArrayViewMut2<'_, f64>)
+//!     fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], mut out: Out<'_>)
 //!         -> Result<(), FitError> {
 //!         let mean = input.y.sum() / input.y.len() as f64;
 //!         for (g, s) in grid.iter().enumerate() {
-//!             out.row_mut(g).fill((1.0 - s) * mean);
+//!             out.values.row_mut(g).fill((1.0 - s) * mean);
 //!         }
 //!         Ok(())
 //!     }
@@ -72,59 +71,15 @@
 use std::path::Path;
 use std::sync::Arc;
 
-use ndarray::ArrayViewMut2;
-
 use crate::error::Error;
-use crate::family::{Family, FitError, FitInput, Task};
+use crate::family::Family;
 use crate::report::{self, ResultDoc};
 use crate::scenario::{self, Plan, PlanOptions};
 
 /// Name used in messages for scenario text given to the harness.
 pub const SCENARIO_NAME: &str = "<harness scenario>";
 
-/// The stand-in family of `family = "custom"`: accepts any non-empty grid of finite values and
-/// every task, and refuses to fit (the estimator must be supplied with [`Plan::with_family`],
-/// as [`run_with_family`] does).
-#[derive(Debug, Clone, Copy, Default)]
-pub struct Placeholder;
-
-impl Family for Placeholder {
-    fn name(&self) -> &'static str {
-        "custom"
-    }
-
-    fn knob(&self) -> &'static str {
-        "knob"
-    }
-
-    fn check_grid(&self, grid: &[f64], _n_train: usize, _n_inputs: usize) -> Result<(), String> {
-        if grid.is_empty() {
-            return Err("the grid is empty".into());
-        }
-        match grid.iter().find(|v| !v.is_finite()) {
-            Some(v) => Err(format!("grid value {v} is not a finite number")),
-            None => Ok(()),
-        }
-    }
-
-    fn supports(&self, _task: Task) -> bool {
-        true
-    }
-
-    fn fit_predict(
-        &self,
-        _input: &FitInput<'_>,
-        _grid: &[f64],
-        _out: ArrayViewMut2<'_, f64>,
-    ) -> Result<(), FitError> {
-        Err(FitError(CLI_REFUSAL.into()))
-    }
-}
-
-/// Why a `family = "custom"` scenario cannot run on its own.
-pub const CLI_REFUSAL: &str = "family `custom` stands for an estimator supplied from Rust \
-     (lossprism::harness::run_with_family); the command line cannot run it: use a built-in \
-     family or `external`";
+pub use crate::family::custom::{Placeholder, CLI_REFUSAL};
 
 /// Plans scenario text with `family` in place of the file's family (normally `custom`),
 /// checking that the family supports the task and accepts the grid.
@@ -165,5 +120,5 @@ pub fn load_result(path: &Path) -> Result<ResultDoc, Error> {
 
 /// Writes a result document atomically (the same JSON as `lossprism run --out`).
 pub fn save_result(path: &Path, doc: &ResultDoc) -> Result<(), Error> {
-    report::write_atomic(path, report::to_json(doc).as_bytes())
+    crate::output::write_one("baseline", path, &[], report::to_json(doc).as_bytes())
 }

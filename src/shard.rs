@@ -12,23 +12,23 @@ use std::collections::BTreeMap;
 use std::ops::Range;
 use std::path::{Path, PathBuf};
 use std::str::FromStr;
-use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Mutex;
 
-use rayon::prelude::*;
-
-use crate::audit::AuditAcc;
-use crate::decompose::zero_one::ZeroOneAcc;
-use crate::decompose::SquaredAcc;
+use crate::codec::{fnv1a64, pack_floats, unpack_floats};
+use crate::decompose::{Acc, Kind, Shape};
 use crate::error::Error;
-use crate::family::Task;
-use crate::report::part::{AccRecord, BlockRecord, PartDoc, ShardRef, PART_FORMAT};
-use crate::report::{self, fmt_value};
-use crate::runner::{self, BlockAcc, Outcome, Prepared};
+use crate::report;
+use crate::report::part::{
+    AccRecord, BlockRecord, CountArray, FloatArray, PartDoc, ShapeRecord, ShardRef, PART_FORMAT,
+};
+use crate::runner::{self, audit::AuditAcc, BlockResult, Outcome, Prepared};
 use crate::scenario::{self, Plan, PlanOptions, Source};
 
 /// Version of the writing program (part of the fingerprint).
 const VERSION: &str = env!("CARGO_PKG_VERSION");
+
+/// Largest part or checkpoint file read (larger files are refused before reading).
+pub const MAX_PART_BYTES: u64 = 4 << 30;
 
 /// A shard of a run: `index` of `count`, 1-based (`--shard 2/8`, as in `sbatch --array=1-8`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -118,47 +118,11 @@ impl ScenarioSource {
     }
 }
 
-/// 64-bit FNV-1a hash (Fowler, Noll, Vo), offset basis 0xcbf29ce484222325, prime 0x100000001b3.
-pub fn fnv1a64(bytes: &[u8]) -> u64 {
-    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
-    for &b in bytes {
-        h ^= b as u64;
-        h = h.wrapping_mul(0x0000_0100_0000_01b3);
-    }
-    h
-}
-
-/// Packs floats as hex strings of their bit patterns, 16 lowercase digits per value.
-pub fn pack_f64(values: &[f64]) -> String {
-    let mut s = String::with_capacity(values.len() * 16);
-    for v in values {
-        s.push_str(&format!("{:016x}", v.to_bits()));
-    }
-    s
-}
-
-/// Unpacks [`pack_f64`]'s output; `expect` is the number of values required.
-pub fn unpack_f64(s: &str, expect: usize) -> Result<Vec<f64>, String> {
-    if !s.is_ascii() || s.len() != expect * 16 {
-        return Err(format!(
-            "expected {expect} packed values ({} hex digits), found {} characters",
-            expect * 16,
-            s.len()
-        ));
-    }
-    (0..expect)
-        .map(|i| {
-            u64::from_str_radix(&s[i * 16..(i + 1) * 16], 16)
-                .map(f64::from_bits)
-                .map_err(|_| format!("value {i} is not 16 hex digits"))
-        })
-        .collect()
-}
-
 /// The fingerprint of a run: FNV-1a (64 bit) of the canonical JSON of the part format, program
 /// version, resolved scenario echo, the scenario file's settings (parsed, so comments and layout
-/// do not count; `seed` and `replicates` are taken after overrides), family, knob, loss, the grid's
-/// bit patterns, seed, replicates and blocks.
+/// do not count; `seed` and `replicates` are taken after overrides), the models (family, knob,
+/// grid bit patterns, fits), the loss, seed, replicates, blocks, and a digest of any data the
+/// plan read from files.
 pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let mut spec: toml::Table = text
         .parse()
@@ -168,15 +132,25 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let fail = |e: serde_json::Error| Error::Usage(format!("fingerprint: {e}"));
     let echo = serde_json::to_value(report::scenario_echo(plan)).map_err(fail)?;
     let settings = serde_json::to_value(&spec).map_err(fail)?;
+    let models: Vec<serde_json::Value> = plan
+        .models
+        .iter()
+        .map(|m| {
+            serde_json::json!({
+                "family": m.family.name(),
+                "knob": m.family.knob(),
+                "grid": m.grid.iter().map(|v| format!("{:016x}", v.to_bits())).collect::<Vec<_>>(),
+                "fit_seeds": m.fit_seeds,
+            })
+        })
+        .collect();
     let material = serde_json::json!({
         "format": PART_FORMAT,
         "version": VERSION,
         "scenario": echo,
         "settings": settings,
-        "family": plan.family.name(),
-        "knob": plan.family.knob(),
+        "models": models,
         "loss": plan.loss.name(),
-        "grid": plan.grid.iter().map(|v| format!("{:016x}", v.to_bits())).collect::<Vec<_>>(),
         "seed": plan.seed,
         "replicates": plan.replicates,
         "blocks": plan.blocks,
@@ -186,13 +160,14 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     Ok(format!("fnv1a64:{:016x}", fnv1a64(canonical.as_bytes())))
 }
 
-/// FNV-1a digest of the data a plan read from files (a table's shape, names, labels, inputs and
-/// responses, bit for bit); `None` for synthetic sources, which the scenario text describes fully.
+/// FNV-1a digest of the data a plan read from files (a table's or a twin's shape, names, labels,
+/// inputs and responses, bit for bit); `None` for synthetic sources, which the scenario text
+/// describes fully.
 fn data_digest(plan: &Plan) -> Option<String> {
+    let mut bytes: Vec<u8> = Vec::new();
     match &plan.source {
         Source::Table(t) => {
             let tb = &t.table;
-            let mut bytes: Vec<u8> = Vec::new();
             bytes.extend_from_slice(&(tb.x.nrows() as u64).to_le_bytes());
             bytes.extend_from_slice(&(tb.x.ncols() as u64).to_le_bytes());
             for name in tb.names.iter().chain(&tb.labels).chain([&tb.target]) {
@@ -202,144 +177,147 @@ fn data_digest(plan: &Plan) -> Option<String> {
             for v in tb.x.iter().chain(tb.y.iter()) {
                 bytes.extend_from_slice(&v.to_bits().to_le_bytes());
             }
-            Some(format!("fnv1a64:{:016x}", fnv1a64(&bytes)))
         }
-        _ => None,
+        Source::Synthetic(s) => {
+            let rows = s.process.empirical_rows()?;
+            for v in rows.iter() {
+                bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+            }
+            bytes.extend_from_slice(&s.process.reference_digest().to_le_bytes());
+        }
+    }
+    Some(format!("fnv1a64:{:016x}", fnv1a64(&bytes)))
+}
+
+fn shape_record(s: &Shape) -> ShapeRecord {
+    ShapeRecord {
+        grid: s.grid,
+        points: s.points,
+        classes: s.classes,
+        fits: s.fits,
+        all_points: s.all_points,
+        ensemble: s.ensemble,
     }
 }
 
-/// Encodes a block accumulator exactly.
-pub fn encode_acc(acc: &BlockAcc) -> AccRecord {
-    match acc {
-        BlockAcc::Squared(a) => AccRecord::Squared {
-            n: a.n,
-            grid: a.grid,
-            points: a.points,
-            mean: pack_f64(&a.mean),
-            m2: pack_f64(&a.m2),
-            direct: pack_f64(&a.direct),
-        },
-        BlockAcc::ZeroOne(a) => AccRecord::ZeroOne {
-            n: a.n,
-            grid: a.grid,
-            points: a.points,
-            classes: a.classes,
-            counts: a.counts.clone(),
-            direct: pack_f64(&a.direct),
-        },
+/// Encodes one accumulator exactly, naming its arrays as the loss lays them out.
+pub fn encode_acc(plan: &Plan, acc: &Acc) -> AccRecord {
+    let layout = plan.loss.layout(&acc.shape);
+    let (mut fi, mut ci) = (0, 0);
+    let mut floats = Vec::new();
+    let mut counts = Vec::new();
+    for a in layout {
+        match a.kind {
+            Kind::Float => {
+                floats.push(FloatArray {
+                    name: a.name.into(),
+                    data: pack_floats(&acc.floats[fi]),
+                });
+                fi += 1;
+            }
+            Kind::Count => {
+                counts.push(CountArray {
+                    name: a.name.into(),
+                    data: acc.counts[ci].clone(),
+                });
+                ci += 1;
+            }
+        }
+    }
+    AccRecord {
+        shape: shape_record(&acc.shape),
+        replicates: acc.replicates,
+        count: (!acc.shape.all_points).then(|| acc.count.clone()),
+        floats,
+        counts,
     }
 }
 
-/// Decodes [`encode_acc`]'s record, checking every array length against the stated shape.
-pub fn decode_acc(rec: &AccRecord) -> Result<BlockAcc, String> {
-    match rec {
-        AccRecord::Squared {
-            n,
-            grid,
-            points,
-            mean,
-            m2,
-            direct,
-        } => {
-            let cells = grid
-                .checked_mul(*points)
-                .ok_or_else(|| "accumulator shape overflows".to_string())?;
-            Ok(BlockAcc::Squared(SquaredAcc {
-                n: *n,
-                grid: *grid,
-                points: *points,
-                mean: unpack_f64(mean, cells).map_err(|e| format!("mean: {e}"))?,
-                m2: unpack_f64(m2, cells).map_err(|e| format!("m2: {e}"))?,
-                direct: unpack_f64(direct, *grid).map_err(|e| format!("direct: {e}"))?,
-            }))
-        }
-        AccRecord::ZeroOne {
-            n,
-            grid,
-            points,
-            classes,
-            counts,
-            direct,
-        } => {
-            let cells = grid
-                .checked_mul(*points)
-                .and_then(|c| c.checked_mul(*classes))
-                .ok_or_else(|| "accumulator shape overflows".to_string())?;
-            if counts.len() != cells {
-                return Err(format!(
-                    "counts: expected {cells} values, found {}",
-                    counts.len()
-                ));
-            }
-            Ok(BlockAcc::ZeroOne(ZeroOneAcc {
-                n: *n,
-                grid: *grid,
-                points: *points,
-                classes: *classes,
-                counts: counts.clone(),
-                direct: unpack_f64(direct, *grid).map_err(|e| format!("direct: {e}"))?,
-            }))
-        }
-    }
-}
-
-/// Checks that a decoded accumulator fits block `b` of `plan` with `points` evaluation points.
-fn check_acc(acc: &BlockAcc, plan: &Plan, points: usize, b: u64) -> Result<(), String> {
-    let (start, end) = plan.block_range(b);
-    let g = plan.grid.len();
-    let (n, grid, pts) = match (acc, plan.task) {
-        (BlockAcc::Squared(a), Task::Regress) => (a.n, a.grid, a.points),
-        (BlockAcc::ZeroOne(a), Task::Classify { classes }) => {
-            if a.classes != classes {
-                return Err(format!("{} classes, the scenario has {classes}", a.classes));
-            }
-            for (cell, c) in a.counts.chunks(classes.max(1)).enumerate() {
-                if c.iter().map(|&v| v as u64).sum::<u64>() != a.n {
-                    return Err(format!(
-                        "vote counts of cell {cell} do not add up to {}",
-                        a.n
-                    ));
-                }
-            }
-            (a.n, a.grid, a.points)
-        }
-        _ => return Err(format!("accumulator is not for {} loss", plan.loss.name())),
-    };
-    if n != end - start {
-        return Err(format!("{n} replicates, the block has {}", end - start));
-    }
-    if grid != g || pts != points {
+/// Decodes [`encode_acc`]'s record for model `i` of `plan` with `points` evaluation points,
+/// checking the shape, every array's name and length, and the values (finite, non-negative
+/// where the loss says so, counts consistent).
+pub fn decode_acc(plan: &Plan, i: usize, points: usize, rec: &AccRecord) -> Result<Acc, String> {
+    let shape = plan.shape(i, points);
+    if rec.shape != shape_record(&shape) {
         return Err(format!(
-            "shape {grid} × {pts}, the scenario has {g} grid values × {points} points"
+            "accumulator shape {:?} does not match the scenario's {:?}",
+            rec.shape,
+            shape_record(&shape)
         ));
     }
-    Ok(())
-}
-
-/// A finished block: its accumulator and, with `[audit]`, the selection counts of its replicates.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Block {
-    /// The block's accumulator.
-    pub acc: BlockAcc,
-    /// Selection audit counts per grid value (plans with `[audit]` only).
-    pub audit: Option<AuditAcc>,
+    let layout = plan.loss.layout(&shape);
+    let (mut fi, mut ci) = (0, 0);
+    let mut floats = Vec::new();
+    let mut counts = Vec::new();
+    for a in &layout {
+        match a.kind {
+            Kind::Float => {
+                let f = rec
+                    .floats
+                    .get(fi)
+                    .ok_or_else(|| format!("array `{}` is missing", a.name))?;
+                if f.name != a.name {
+                    return Err(format!(
+                        "array `{}` where `{}` was expected",
+                        f.name, a.name
+                    ));
+                }
+                floats.push(unpack_floats(&f.data, a.len).map_err(|e| format!("{}: {e}", a.name))?);
+                fi += 1;
+            }
+            Kind::Count => {
+                let c = rec
+                    .counts
+                    .get(ci)
+                    .ok_or_else(|| format!("array `{}` is missing", a.name))?;
+                if c.name != a.name {
+                    return Err(format!(
+                        "array `{}` where `{}` was expected",
+                        c.name, a.name
+                    ));
+                }
+                counts.push(c.data.clone());
+                ci += 1;
+            }
+        }
+    }
+    if fi != rec.floats.len() || ci != rec.counts.len() {
+        return Err("more arrays than the loss defines".into());
+    }
+    let count = match (&rec.count, shape.all_points) {
+        (None, true) => vec![rec.replicates; points],
+        (Some(c), false) => c.clone(),
+        (None, false) => return Err("per-point counts are missing".into()),
+        (Some(_), true) => return Err("per-point counts where none belong".into()),
+    };
+    let acc = Acc {
+        shape,
+        replicates: rec.replicates,
+        count,
+        floats,
+        counts,
+    };
+    acc.validate(plan.loss)?;
+    plan.loss.validate(&acc)?;
+    Ok(acc)
 }
 
 /// Encodes block `b` exactly.
-pub fn encode_block(plan: &Plan, b: u64, block: &Block) -> BlockRecord {
+pub fn encode_block(plan: &Plan, b: u64, block: &BlockResult) -> BlockRecord {
     let (first_replicate, end_replicate) = plan.block_range(b);
     BlockRecord {
         block: b,
         first_replicate,
         end_replicate,
-        acc: encode_acc(&block.acc),
+        models: block.accs.iter().map(|a| encode_acc(plan, a)).collect(),
         audit: block.audit.as_ref().map(|a| a.counts.clone()),
+        held_share: block.held_share.map(|(s, s2)| pack_floats(&[s, s2])),
     }
 }
 
 /// Decodes a block record and checks it against block `rec.block` of `plan` (with `points`
 /// evaluation points).
-pub fn decode_block(plan: &Plan, points: usize, rec: &BlockRecord) -> Result<Block, String> {
+pub fn decode_block(plan: &Plan, points: usize, rec: &BlockRecord) -> Result<BlockResult, String> {
     let b = rec.block;
     if b >= plan.blocks {
         return Err(format!("no such block (the run has {})", plan.blocks));
@@ -351,15 +329,32 @@ pub fn decode_block(plan: &Plan, points: usize, rec: &BlockRecord) -> Result<Blo
             rec.first_replicate, rec.end_replicate
         ));
     }
-    let acc = decode_acc(&rec.acc)?;
-    check_acc(&acc, plan, points, b)?;
+    if rec.models.len() != plan.models.len() {
+        return Err(format!(
+            "{} model accumulators, the scenario has {} models",
+            rec.models.len(),
+            plan.models.len()
+        ));
+    }
+    let mut accs = Vec::with_capacity(rec.models.len());
+    for (i, m) in rec.models.iter().enumerate() {
+        let acc = decode_acc(plan, i, points, m)?;
+        if acc.replicates != r1 - r0 {
+            return Err(format!(
+                "{} replicates, the block has {}",
+                acc.replicates,
+                r1 - r0
+            ));
+        }
+        accs.push(acc);
+    }
+    let candidates: usize = plan.models.iter().map(|m| m.grid.len()).sum();
     let audit = match (&plan.audit, &rec.audit) {
         (None, None) => None,
         (Some(_), Some(counts)) => {
-            if counts.len() != plan.grid.len() || counts.iter().sum::<u64>() != r1 - r0 {
+            if counts.len() != candidates || counts.iter().sum::<u64>() != r1 - r0 {
                 return Err(format!(
-                    "audit counts must be {} values adding up to {}",
-                    plan.grid.len(),
+                    "audit counts must be {candidates} values adding up to {}",
                     r1 - r0
                 ));
             }
@@ -372,65 +367,105 @@ pub fn decode_block(plan: &Plan, points: usize, rec: &BlockRecord) -> Result<Blo
         }
         (None, Some(_)) => return Err("audit counts, but the scenario has no [audit]".into()),
     };
-    Ok(Block { acc, audit })
+    let is_table = matches!(plan.source, Source::Table(_));
+    let held_share = match (&rec.held_share, is_table) {
+        (Some(h), true) => {
+            let v = unpack_floats(h, 2).map_err(|e| format!("held_share: {e}"))?;
+            if !v.iter().all(|x| x.is_finite() && *x >= 0.0) {
+                return Err("held_share: not two finite non-negative numbers".into());
+            }
+            Some((v[0], v[1]))
+        }
+        (None, false) => None,
+        (None, true) => return Err("the held-out share of a table block is missing".into()),
+        (Some(_), false) => return Err("a held-out share, but the scenario is not a table".into()),
+    };
+    Ok(BlockResult {
+        accs,
+        audit,
+        held_share,
+    })
 }
 
-/// The part document of `blocks` (a shard's or a checkpoint's).
+/// The part document of `blocks` (a shard's or a checkpoint's), with its checksum.
 pub fn part_doc(
     plan: &Plan,
     source: &ScenarioSource,
     fingerprint: &str,
     shard: Option<ShardSpec>,
     checkpoint: bool,
-    blocks: &BTreeMap<u64, Block>,
+    blocks: &BTreeMap<u64, BlockResult>,
 ) -> PartDoc {
-    PartDoc {
+    let mut doc = PartDoc {
         format: PART_FORMAT.into(),
         version: VERSION.into(),
         fingerprint: fingerprint.into(),
         checkpoint,
         shard: shard.map(|s| s.as_ref()),
         name: plan.name.clone(),
-        family: plan.family.name().into(),
-        knob: plan.family.knob().into(),
+        families: plan.models.iter().map(|m| m.family.name().into()).collect(),
         loss: plan.loss.name().into(),
         seed: plan.seed,
         replicates: plan.replicates,
         blocks: plan.blocks,
-        grid: plan
-            .grid
-            .iter()
-            .map(|v| format!("{:016x}", v.to_bits()))
-            .collect(),
-        scenario: serde_json::to_value(report::scenario_echo(plan))
-            .unwrap_or(serde_json::Value::Null),
         scenario_file: source.file.clone(),
         scenario_text: source.text.clone(),
         completed: blocks
             .iter()
             .map(|(&b, block)| encode_block(plan, b, block))
             .collect(),
-    }
+        checksum: String::new(),
+    };
+    doc.checksum = checksum(&doc);
+    doc
 }
 
-/// The JSON text of a part document (newline-terminated).
+/// The checksum of a part document: FNV-1a of its compact JSON with `checksum` empty.
+pub fn checksum(doc: &PartDoc) -> String {
+    let mut d = doc.clone();
+    d.checksum.clear();
+    let text = serde_json::to_string(&d).expect("part types serialize");
+    format!("fnv1a64:{:016x}", fnv1a64(text.as_bytes()))
+}
+
+/// The JSON text of a part document (compact, newline-terminated).
 pub fn part_json(doc: &PartDoc) -> String {
-    let mut s = serde_json::to_string_pretty(doc).expect("part types serialize");
+    let mut s = serde_json::to_string(doc).expect("part types serialize");
     s.push('\n');
     s
 }
 
-/// Reads a part document (shard part or checkpoint).
+/// Reads a part document (shard part or checkpoint): refuses files larger than
+/// [`MAX_PART_BYTES`] before reading, anything but format `lossprism-part/2` written by this
+/// version, and a document whose checksum does not match its content.
 pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
+    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, &e))?;
+    if meta.is_file() && meta.len() > MAX_PART_BYTES {
+        return Err(Error::Usage(format!(
+            "{}: {} bytes, larger than any part document ({} at most); not a lossprism part",
+            path.display(),
+            meta.len(),
+            MAX_PART_BYTES
+        )));
+    }
     let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, &e))?;
-    let value: serde_json::Value = serde_json::from_str(&text).map_err(|e| {
-        Error::Usage(format!(
-            "{}: not a lossprism part document (invalid JSON: {e})",
-            path.display()
-        ))
-    })?;
-    match value.get("format").and_then(|f| f.as_str()) {
+    let head: serde_json::Value = match serde_json::from_str(&text) {
+        Ok(v) => v,
+        Err(e) => {
+            return Err(Error::Usage(format!(
+                "{}: not a lossprism part document (invalid JSON: {e})",
+                path.display()
+            )))
+        }
+    };
+    match head.get("format").and_then(|f| f.as_str()) {
         Some(PART_FORMAT) => {}
+        Some("lossprism-part/1") => {
+            return Err(Error::Usage(format!(
+                "{}: format `lossprism-part/1` was written by an earlier lossprism; rerun the shard or checkpoint with this version",
+                path.display()
+            )))
+        }
         Some(other) => {
             return Err(Error::Usage(format!(
                 "{}: format `{other}`, expected `{PART_FORMAT}`",
@@ -444,36 +479,48 @@ pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
             )))
         }
     }
-    serde_json::from_value(value).map_err(|e| {
+    match head.get("version").and_then(|f| f.as_str()) {
+        Some(VERSION) => {}
+        Some(other) => {
+            return Err(Error::Usage(format!(
+                "{}: written by lossprism {other}, this is {VERSION}; parts and checkpoints are exact only within one version: rerun them",
+                path.display()
+            )))
+        }
+        None => {
+            return Err(Error::Usage(format!(
+                "{}: malformed {PART_FORMAT} document: no `version`",
+                path.display()
+            )))
+        }
+    }
+    let doc: PartDoc = serde_json::from_value(head).map_err(|e| {
         Error::Usage(format!(
             "{}: malformed {PART_FORMAT} document: {e}",
             path.display()
         ))
-    })
-}
-
-fn grid_words(hex: &[String]) -> String {
-    let vals: Vec<String> = hex
-        .iter()
-        .map(|h| {
-            u64::from_str_radix(h, 16)
-                .map(|b| fmt_value(f64::from_bits(b)))
-                .unwrap_or_else(|_| h.clone())
-        })
-        .collect();
-    format!("[{}]", vals.join(", "))
+    })?;
+    if checksum(&doc) != doc.checksum {
+        return Err(Error::Usage(format!(
+            "{}: the checksum does not match the content: the file was edited or damaged; rerun this shard or delete the checkpoint",
+            path.display()
+        )));
+    }
+    Ok(doc)
 }
 
 /// Says in a few words how two part documents' runs differ (empty when they do not).
 pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
     if a.name != b.name {
         format!("scenario `{}` vs `{}`", a.name, b.name)
-    } else if a.family != b.family {
-        format!("family {} vs {}", a.family, b.family)
+    } else if a.families != b.families {
+        format!(
+            "families {} vs {}",
+            a.families.join(", "),
+            b.families.join(", ")
+        )
     } else if a.loss != b.loss {
         format!("loss {} vs {}", a.loss, b.loss)
-    } else if a.grid != b.grid {
-        format!("grid {} vs {}", grid_words(&a.grid), grid_words(&b.grid))
     } else if a.seed != b.seed {
         format!("seed {} vs {}", a.seed, b.seed)
     } else if a.replicates != b.replicates {
@@ -483,7 +530,7 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
     } else if a.version != b.version {
         format!("lossprism version {} vs {}", a.version, b.version)
     } else if a.scenario_text != b.scenario_text {
-        "scenario settings differ".into()
+        "scenario settings (the grid or other keys) differ".into()
     } else if a.fingerprint != b.fingerprint {
         format!("fingerprint {} vs {}", a.fingerprint, b.fingerprint)
     } else {
@@ -538,7 +585,7 @@ pub struct Completed {
     /// Evaluation points and truth.
     pub prepared: Prepared,
     /// Finished blocks by block index.
-    pub blocks: BTreeMap<u64, Block>,
+    pub blocks: BTreeMap<u64, BlockResult>,
     /// The run's fingerprint.
     pub fingerprint: String,
     /// Blocks taken from the checkpoint rather than computed.
@@ -583,7 +630,7 @@ fn load_checkpoint(
     fingerprint: &str,
     wanted: &Range<u64>,
     points: usize,
-) -> Result<Option<BTreeMap<u64, Block>>, Error> {
+) -> Result<Option<BTreeMap<u64, BlockResult>>, Error> {
     if !path.exists() {
         return Ok(None);
     }
@@ -640,25 +687,19 @@ fn load_checkpoint(
 }
 
 struct Progress {
-    blocks: BTreeMap<u64, Block>,
+    blocks: BTreeMap<u64, BlockResult>,
     new_blocks: u64,
 }
 
 /// Runs a job: resumes from the checkpoint if it exists and matches, computes the missing blocks
-/// of the job on `threads` workers, and rewrites the checkpoint atomically after every block.
+/// of the job through the engine's scheduler ([`runner::schedule`]), and rewrites the checkpoint
+/// atomically after every block. Every source (synthetic, twin, table) runs this way.
 pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
     let plan = job.plan;
-    if !matches!(plan.source, Source::Synthetic(_)) {
-        return Err(Error::Usage(format!(
-            "{}: table scenarios run whole (`lossprism run FILE`); --shard and --checkpoint do \
-             not support them yet",
-            plan.file
-        )));
-    }
     let fp = fingerprint(plan, &job.source.text)?;
     let wanted = job_blocks(plan, job.shard)?;
     let prepared = runner::prepare(plan)?;
-    let points = prepared.eval_x.nrows();
+    let points = prepared.points();
     let start = match job.checkpoint {
         Some(path) => load_checkpoint(path, job, &fp, &wanted, points)?.unwrap_or_default(),
         None => BTreeMap::new(),
@@ -676,53 +717,20 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         blocks: start,
         new_blocks: 0,
     });
-    let stop = AtomicBool::new(false);
-    let watch_stopped = AtomicBool::new(false);
-    if job.stop_after_blocks == Some(0) {
-        stop.store(true, Ordering::SeqCst);
-    }
-    let record = |b: u64, block: Block| -> Result<(), Error> {
+    let sink = |b: u64, block: &BlockResult| -> Result<bool, Error> {
         let mut st = state.lock().unwrap_or_else(|e| e.into_inner());
-        if let Some(k) = job.stop_after_blocks {
-            if st.new_blocks >= k {
-                return Ok(());
-            }
-        }
-        st.blocks.insert(b, block);
+        st.blocks.insert(b, block.clone());
         st.new_blocks += 1;
         if let Some(path) = job.checkpoint {
             let doc = part_doc(plan, job.source, &fp, job.shard, true, &st.blocks);
-            report::write_atomic(path, part_json(&doc).as_bytes())?;
+            crate::output::write_one("--checkpoint", path, &[], part_json(&doc).as_bytes())?;
         }
-        if job.stop_after_blocks == Some(st.new_blocks) {
-            stop.store(true, Ordering::SeqCst);
-        }
-        job.watch.block_done(replicates_of(b));
-        Ok(())
+        Ok(job.stop_after_blocks != Some(st.new_blocks))
     };
-    if !todo.is_empty() {
-        let pool = rayon::ThreadPoolBuilder::new()
-            .num_threads(job.threads)
-            .build()
-            .map_err(|e| {
-                Error::Usage(format!("cannot start {} worker threads: {e}", job.threads))
-            })?;
-        let results: Vec<Result<(), Error>> = pool.install(|| {
-            todo.par_iter()
-                .map(|&b| {
-                    if stop.load(Ordering::SeqCst) {
-                        return Ok(());
-                    }
-                    if job.watch.stop() {
-                        watch_stopped.store(true, Ordering::SeqCst);
-                        return Ok(());
-                    }
-                    let (acc, audit) = runner::run_block_audited(plan, &prepared, b)?;
-                    record(b, Block { acc, audit })
-                })
-                .collect()
-        });
-        results.into_iter().collect::<Result<(), Error>>()?;
+    let mut interrupted = false;
+    if job.stop_after_blocks != Some(0) {
+        let s = runner::schedule(plan, &prepared, &todo, job.threads, job.watch, &sink)?;
+        interrupted = s.interrupted;
     }
     let st = state.into_inner().unwrap_or_else(|e| e.into_inner());
     let remaining = (wanted.end - wanted.start) - st.blocks.len() as u64;
@@ -730,7 +738,7 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         return Ok(Finish::Stopped {
             new_blocks: st.new_blocks,
             remaining,
-            interrupted: watch_stopped.load(Ordering::SeqCst),
+            interrupted,
         });
     }
     Ok(Finish::Done(Box::new(Completed {
@@ -743,27 +751,7 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
 
 /// Folds completed blocks (all of the plan's, in index order) into the run's outcome.
 pub fn outcome(plan: &Plan, done: Completed) -> Result<Outcome, Error> {
-    if done.blocks.len() as u64 != plan.blocks {
-        return Err(Error::Usage(format!(
-            "{} of {} blocks available; cannot summarize a partial run",
-            done.blocks.len(),
-            plan.blocks
-        )));
-    }
-    let mut audit = plan.audit.as_ref().map(|_| AuditAcc::new(plan.grid.len()));
-    let mut blocks: Vec<BlockAcc> = Vec::with_capacity(done.blocks.len());
-    for block in done.blocks.into_values() {
-        if let (Some(total), Some(counts)) = (audit.as_mut(), block.audit.as_ref()) {
-            total.merge(counts);
-        }
-        blocks.push(block.acc);
-    }
-    let summary = runner::summarize(plan, &done.prepared, &blocks)?;
-    Ok(Outcome {
-        prepared: done.prepared,
-        summary,
-        audit,
-    })
+    runner::summarize(plan, done.prepared, &done.blocks)
 }
 
 /// A merged run: the plan rebuilt from the parts' embedded scenario and its outcome.
@@ -883,8 +871,8 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
     }
 
     let prepared = runner::prepare(&plan)?;
-    let points = prepared.eval_x.nrows();
-    let mut blocks: BTreeMap<u64, Block> = BTreeMap::new();
+    let points = prepared.points();
+    let mut blocks: BTreeMap<u64, BlockResult> = BTreeMap::new();
     for (i, d) in docs.iter().enumerate() {
         let s = shards[i];
         let range = s.block_range(plan.blocks);
@@ -948,40 +936,6 @@ mod tests {
     use super::*;
 
     #[test]
-    fn fnv1a64_matches_the_published_test_vectors() {
-        // Source: FNV test vectors of Fowler, Noll and Vo (64-bit FNV-1a of "" and "a", as listed
-        // in the FNV reference code's test suite and draft-eastlake-fnv).
-        assert_eq!(fnv1a64(b""), 0xcbf2_9ce4_8422_2325);
-        assert_eq!(fnv1a64(b"a"), 0xaf63_dc4c_8601_ec8c);
-        assert_eq!(fnv1a64(b"foobar"), 0x8594_4171_f739_67e8);
-    }
-
-    #[test]
-    fn packed_floats_round_trip_to_the_bit() {
-        let vals = [
-            0.0,
-            -0.0,
-            1.0 / 3.0,
-            f64::MIN_POSITIVE / 7.0, // subnormal
-            f64::MAX,
-            f64::INFINITY,
-            f64::NEG_INFINITY,
-            f64::NAN,
-            -1.234_567_890_123_456_7e-300,
-            0.1 + 0.2,
-        ];
-        let s = pack_f64(&vals);
-        assert_eq!(s.len(), vals.len() * 16);
-        let back = unpack_f64(&s, vals.len()).unwrap();
-        for (a, b) in vals.iter().zip(&back) {
-            assert_eq!(a.to_bits(), b.to_bits());
-        }
-        assert!(unpack_f64(&s, vals.len() - 1).is_err());
-        assert!(unpack_f64(&s.replace('0', "g"), vals.len()).is_err());
-        assert!(unpack_f64("é", 0).is_err());
-    }
-
-    #[test]
     fn shard_syntax_is_checked() {
         assert_eq!(
             ShardSpec::parse("2/8"),
@@ -1005,40 +959,6 @@ mod tests {
                 }
                 assert_eq!(next, total);
             }
-        }
-    }
-
-    #[test]
-    fn accumulators_round_trip_exactly_and_shapes_are_checked() {
-        let mut sq = SquaredAcc::new(2, 3);
-        let preds =
-            ndarray::Array2::from_shape_fn((2, 3), |(g, e)| (g as f64 + 0.1) / (e as f64 + 3.0));
-        sq.push(preds.view(), &[0.3, 0.7]);
-        sq.push((&preds * 1.7).view(), &[0.1, 1.0 / 3.0]);
-        let acc = BlockAcc::Squared(sq);
-        assert_eq!(decode_acc(&encode_acc(&acc)).unwrap(), acc);
-
-        let mut zo = ZeroOneAcc::new(2, 3, 3);
-        zo.push(ndarray::Array2::from_elem((2, 3), 2.0).view(), &[0.5, 0.25]);
-        let acc = BlockAcc::ZeroOne(zo);
-        let rec = encode_acc(&acc);
-        assert_eq!(decode_acc(&rec).unwrap(), acc);
-        // JSON round trip of the record itself
-        let text = serde_json::to_string(&rec).unwrap();
-        let back: AccRecord = serde_json::from_str(&text).unwrap();
-        assert_eq!(decode_acc(&back).unwrap(), acc);
-
-        if let AccRecord::ZeroOne { mut counts, .. } = rec.clone() {
-            counts.pop();
-            let bad = AccRecord::ZeroOne {
-                n: 1,
-                grid: 2,
-                points: 3,
-                classes: 3,
-                counts,
-                direct: pack_f64(&[0.5, 0.25]),
-            };
-            assert!(decode_acc(&bad).is_err());
         }
     }
 }

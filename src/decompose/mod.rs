@@ -1,15 +1,519 @@
-//! Pure arithmetic of the decompositions: streaming, mergeable accumulators and the estimators
-//! built from them. No I/O, no randomness, no errors: everything here is a function of the
-//! predictions handed in.
+//! Pure arithmetic of the decompositions: one accumulator skeleton ([`Acc`]: push, merge, fold
+//! over blocks, delete-a-block jackknife with shared prefixes) and one [`Loss`] trait that each
+//! loss implements in a file of its own, with a description of its terms ([`TermInfo`]) from
+//! which every output (terminal table, JSON, CSV, `check`, plots, HTML) is derived. No I/O, no
+//! randomness, no errors: everything here is a function of the predictions handed in.
 //!
 //! Squared loss (Hastie, Tibshirani, Friedman, *The Elements of Statistical Learning*, 2nd ed.,
 //! §7.3, eq. 7.9): `E[(Y - f̂(x))²] = σ²(x) + bias²(x) + variance(x)`. Over R replicate
 //! predictions ŷ_r with mean m, the unbiased variance is `V̂ = Σ(ŷ_r - m)²/(R-1)` and the unbiased
 //! squared bias is `B̂² = (m - f)² - V̂/R` (the plain `(m - f)²` is biased up by V/R). The exact
 //! identity `(1/R) Σ (ŷ_r - f)² = B̂² + V̂` holds to rounding.
+//!
+//! # Evaluation points and counts
+//!
+//! An accumulator covers `grid × points` cells. A replicate either evaluates every point
+//! (synthetic and twin sources: the evaluation points are fixed) or only some of them (a table's
+//! out-of-bag rows); [`Acc::count`] keeps, per point, the number of replicates that evaluated it.
+//! Averages over points use the points evaluated at least twice, each with the same weight.
 
 pub mod squared;
-pub mod table;
 pub mod zero_one;
 
-pub use squared::{jackknife_se, SquaredAcc, SquaredPoint, SquaredSummary, SquaredTerms};
+use ndarray::{ArrayView3, ArrayView4};
+
+use crate::family::Task;
+
+/// The shape of one accumulator.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Shape {
+    /// Grid values.
+    pub grid: usize,
+    /// Evaluation points (a table's working rows).
+    pub points: usize,
+    /// Classes (0 for regression).
+    pub classes: usize,
+    /// Fits per replicate training set (`fit_seeds`, at least 1).
+    pub fits: usize,
+    /// `true` when every replicate evaluates every point (synthetic and twin sources).
+    pub all_points: bool,
+    /// `true` when the family is an ensemble that reports its diversity.
+    pub ensemble: bool,
+}
+
+impl Shape {
+    /// Cells: grid values × points.
+    pub fn cells(&self) -> usize {
+        self.grid * self.points
+    }
+}
+
+/// Whether an array holds floats or counts.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kind {
+    /// `f64` values (sums, means, centred sums of squares).
+    Float,
+    /// `u32` counts (votes).
+    Count,
+}
+
+/// One array of an accumulator, as a loss lays it out.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct ArraySpec {
+    /// Name (used in part files).
+    pub name: &'static str,
+    /// Floats or counts.
+    pub kind: Kind,
+    /// Length.
+    pub len: usize,
+    /// Values must be non-negative (sums of squares, counts): checked when a part is loaded.
+    pub non_negative: bool,
+}
+
+/// One block's accumulator: the replicates absorbed, per-point counts, and the arrays the loss
+/// defines (floats and counts, in the order of [`Loss::layout`]). Memory is independent of the
+/// number of replicates.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Acc {
+    /// Shape.
+    pub shape: Shape,
+    /// Replicates absorbed.
+    pub replicates: u64,
+    /// Per evaluation point: replicates that evaluated it.
+    pub count: Vec<u64>,
+    /// Float arrays, in layout order.
+    pub floats: Vec<Vec<f64>>,
+    /// Count arrays, in layout order.
+    pub counts: Vec<Vec<u32>>,
+}
+
+/// One replicate's predictions at the points it evaluates, handed to [`Loss::push`].
+#[derive(Debug, Clone, Copy)]
+pub struct Batch<'a> {
+    /// The evaluated point indices (`None`: every point, in order).
+    pub held: Option<&'a [usize]>,
+    /// `values[[s, g, j]]`: fit `s`, grid value `g`, `j`-th evaluated point (real predictions or
+    /// class indices).
+    pub values: ArrayView3<'a, f64>,
+    /// `probs[[s, g, j, c]]` when the loss uses class probabilities.
+    pub probs: Option<ArrayView4<'a, f64>>,
+    /// `diversity[[s, g, j]]` for ensembles.
+    pub diversity: Option<ArrayView3<'a, f64>>,
+    /// The response seen at each evaluated point for the direct check: a fresh draw (synthetic)
+    /// or the observed value (table).
+    pub response: &'a [f64],
+}
+
+impl Batch<'_> {
+    /// Index of the `j`-th evaluated point.
+    #[inline]
+    pub fn point(&self, j: usize) -> usize {
+        match self.held {
+            Some(h) => h[j],
+            None => j,
+        }
+    }
+
+    /// Number of evaluated points.
+    pub fn len(&self) -> usize {
+        self.values.dim().2
+    }
+
+    /// `true` when no point is evaluated.
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+/// What the truth is at the evaluation points.
+#[derive(Debug, Clone, Copy)]
+pub enum Target<'a> {
+    /// Synthetic and twin sources: the truth is known.
+    Known {
+        /// f(x) per point (regression); the Bayes class index (classification).
+        truth: &'a [f64],
+        /// σ²(x) per point (0 for classification).
+        noise_var: &'a [f64],
+        /// Class probabilities per point, row-major `points × K` (classification).
+        probs: Option<&'a [f64]>,
+    },
+    /// A table: only the observed response at each point (noise folded into the bias).
+    Observed {
+        /// Observed response (class index when classifying) per point.
+        y: &'a [f64],
+        /// A noise-variance estimate (value, standard error) to split `bias² + noise`.
+        noise: Option<(f64, f64)>,
+    },
+}
+
+impl Target<'_> {
+    /// `true` for a table's observed responses.
+    pub fn observed(&self) -> bool {
+        matches!(self, Target::Observed { .. })
+    }
+}
+
+/// The part a term plays in the decomposition (plots and readings use it).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Role {
+    /// The expected loss itself.
+    Loss,
+    /// A bias-type term (bias², Domingos bias, systematic effect).
+    Bias,
+    /// A variance-type term.
+    Variance,
+    /// The noise (irreducible) term.
+    Noise,
+    /// An independent cross-check of the expected loss.
+    Direct,
+    /// Anything else (a sub-term, a combined term, a diagnostic).
+    Other,
+}
+
+/// Which view of the terminal table shows a term.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Group {
+    /// The main view (every loss).
+    Main,
+    /// Kohavi–Wolpert (0-1 loss).
+    KohaviWolpert,
+    /// James (0-1 loss).
+    James,
+    /// Only in the JSON/CSV (and `--decomposition all`).
+    Detail,
+}
+
+/// The description of one term: everything the outputs need to show it.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct TermInfo {
+    /// JSON key; dotted for a nested field (`kohavi_wolpert.bias_sq`).
+    pub key: &'static str,
+    /// Column header.
+    pub label: &'static str,
+    /// One-line meaning (legend, report).
+    pub meaning: &'static str,
+    /// Its part in the decomposition.
+    pub role: Role,
+    /// Where the terminal table shows it.
+    pub group: Group,
+    /// `true` for an estimate (a table's noise and the bias² derived from it); `false` for a
+    /// term known exactly or estimated from the replicates alone.
+    pub estimated: bool,
+    /// Whether a standard error is reported.
+    pub stderr: bool,
+}
+
+/// Terms of one grid value: values in the order of the description.
+pub type Row = Vec<f64>;
+
+/// A loss: its accumulator arithmetic and the description of its terms. One file per loss;
+/// registered in [`registry`].
+pub trait Loss: Send + Sync {
+    /// Name as written in scenario files and results (`squared`, `zero_one`, ...).
+    fn name(&self) -> &'static str;
+
+    /// Whether the loss applies to the task.
+    fn supports(&self, task: Task) -> bool;
+
+    /// How readings name the bias-type term (`Bias²`, `Bias (Domingos)`).
+    fn bias_word(&self) -> &'static str;
+
+    /// The sentence a reading adds on a table (what the bias means there).
+    fn observed_note(&self) -> &'static str;
+
+    /// Whether the loss needs class probabilities from the family.
+    fn needs_probs(&self) -> bool {
+        false
+    }
+
+    /// The arrays of an accumulator of this shape (counts per point are kept by [`Acc`]).
+    fn layout(&self, shape: &Shape) -> Vec<ArraySpec>;
+
+    /// Absorbs one replicate. [`Acc::push`] has already incremented `replicates` and the counts
+    /// of the evaluated points.
+    fn push(&self, acc: &mut Acc, batch: &Batch<'_>);
+
+    /// Merges `other` (the next block) into `acc`; both have replicates, and `acc.count`,
+    /// `other.count` are the counts before merging.
+    fn merge(&self, acc: &mut Acc, other: &Acc);
+
+    /// The terms, in order; depends on the target kind and the shape.
+    fn describe(&self, shape: &Shape, observed: bool) -> Vec<TermInfo>;
+
+    /// The terms per grid value from a folded accumulator, in the order of
+    /// [`Loss::describe`]; NaN where a term cannot be computed.
+    fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row>;
+
+    /// The loss of one prediction against an observed response (the selection audit's
+    /// cross-validation loss): `value` is a real prediction or class index, `probs` the class
+    /// probabilities when the loss uses them.
+    fn observed_loss(&self, value: f64, probs: Option<&[f64]>, y: f64) -> f64;
+
+    /// Checks a decoded accumulator beyond array lengths and finiteness (for example that vote
+    /// counts add up to the replicates). Default: nothing more.
+    fn validate(&self, _acc: &Acc) -> Result<(), String> {
+        Ok(())
+    }
+
+    /// Adjusts the standard errors after the jackknife (for example, adds the uncertainty of a
+    /// noise estimate). Default: nothing.
+    fn adjust_stderr(&self, _shape: &Shape, _target: &Target<'_>, _se: &mut [Row]) {}
+
+    /// Per-point columns for the per-point CSV: name, and whether the value is a class index to
+    /// be written as its label.
+    fn point_columns(&self, shape: &Shape, observed: bool) -> Vec<(&'static str, bool)>;
+
+    /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
+    /// label columns are written as class indices.
+    fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64>;
+}
+
+/// The built-in losses.
+pub fn registry() -> Vec<&'static dyn Loss> {
+    vec![&squared::Squared, &zero_one::ZeroOne]
+}
+
+/// The loss of a name.
+pub fn by_name(name: &str) -> Option<&'static dyn Loss> {
+    registry().into_iter().find(|l| l.name() == name)
+}
+
+impl Acc {
+    /// An empty accumulator of `loss` for `shape`.
+    pub fn new(loss: &dyn Loss, shape: Shape) -> Acc {
+        let mut floats = Vec::new();
+        let mut counts = Vec::new();
+        for a in loss.layout(&shape) {
+            match a.kind {
+                Kind::Float => floats.push(vec![0.0; a.len]),
+                Kind::Count => counts.push(vec![0; a.len]),
+            }
+        }
+        Acc {
+            shape,
+            replicates: 0,
+            count: vec![0; shape.points],
+            floats,
+            counts,
+        }
+    }
+
+    /// Absorbs one replicate (see [`Batch`]).
+    pub fn push(&mut self, loss: &dyn Loss, batch: &Batch<'_>) {
+        self.replicates += 1;
+        match batch.held {
+            Some(h) => h.iter().for_each(|&i| self.count[i] += 1),
+            None => self.count.iter_mut().for_each(|c| *c += 1),
+        }
+        loss.push(self, batch);
+    }
+
+    /// Merges `other` (the next block) into `self`; merge in block order for bit-identical
+    /// results.
+    pub fn merge(&mut self, loss: &dyn Loss, other: &Acc) {
+        if other.replicates == 0 {
+            return;
+        }
+        if self.replicates == 0 {
+            *self = other.clone();
+            return;
+        }
+        loss.merge(self, other);
+        for (a, b) in self.count.iter_mut().zip(&other.count) {
+            *a += b;
+        }
+        self.replicates += other.replicates;
+    }
+
+    /// Folds accumulators in the order given. `None` for an empty list.
+    pub fn fold<'a>(loss: &dyn Loss, parts: impl IntoIterator<Item = &'a Acc>) -> Option<Acc> {
+        let mut out: Option<Acc> = None;
+        for p in parts {
+            match &mut out {
+                None => out = Some(p.clone()),
+                Some(o) => o.merge(loss, p),
+            }
+        }
+        out
+    }
+
+    /// Points evaluated in at least two replicates (the ones averages use).
+    pub fn used_points(&self) -> usize {
+        self.count.iter().filter(|&&c| c >= 2).count()
+    }
+
+    /// Checks a decoded accumulator: array lengths, finite non-negative values where the layout
+    /// asks, counts no larger than the replicates. The message names the array.
+    pub fn validate(&self, loss: &dyn Loss) -> Result<(), String> {
+        let layout = loss.layout(&self.shape);
+        let (mut fi, mut ci) = (0, 0);
+        if self.count.len() != self.shape.points {
+            return Err(format!(
+                "count: expected {} values, found {}",
+                self.shape.points,
+                self.count.len()
+            ));
+        }
+        if let Some(c) = self.count.iter().find(|&&c| c > self.replicates) {
+            return Err(format!(
+                "count: a point counts {c} replicates, more than the block's {}",
+                self.replicates
+            ));
+        }
+        if self.shape.all_points && self.count.iter().any(|&c| c != self.replicates) {
+            return Err("count: every point must count every replicate".into());
+        }
+        for a in layout {
+            match a.kind {
+                Kind::Float => {
+                    let v = self
+                        .floats
+                        .get(fi)
+                        .ok_or_else(|| format!("{}: missing", a.name))?;
+                    fi += 1;
+                    if v.len() != a.len {
+                        return Err(format!(
+                            "{}: expected {} values, found {}",
+                            a.name,
+                            a.len,
+                            v.len()
+                        ));
+                    }
+                    if let Some((i, x)) = v.iter().enumerate().find(|(_, x)| !x.is_finite()) {
+                        return Err(format!("{}: value {i} is {x}, not a finite number", a.name));
+                    }
+                    if a.non_negative {
+                        if let Some((i, x)) = v.iter().enumerate().find(|(_, x)| **x < 0.0) {
+                            return Err(format!(
+                                "{}: value {i} is {x}, but a sum of squares cannot be negative",
+                                a.name
+                            ));
+                        }
+                    }
+                }
+                Kind::Count => {
+                    let v = self
+                        .counts
+                        .get(ci)
+                        .ok_or_else(|| format!("{}: missing", a.name))?;
+                    ci += 1;
+                    if v.len() != a.len {
+                        return Err(format!(
+                            "{}: expected {} values, found {}",
+                            a.name,
+                            a.len,
+                            v.len()
+                        ));
+                    }
+                }
+            }
+        }
+        if fi != self.floats.len() || ci != self.counts.len() {
+            return Err("more arrays than the loss defines".into());
+        }
+        Ok(())
+    }
+}
+
+/// Delete-one-group jackknife standard error: `sqrt((G-1)/G Σ (θ_(g) - θ̄)²)` (Efron and Tibshirani,
+/// *An Introduction to the Bootstrap*, 1993, eq. 11.5, applied to groups of replicates).
+pub fn jackknife_se(leave_out: &[f64]) -> f64 {
+    let g = leave_out.len();
+    if g < 2 || leave_out.iter().any(|x| !x.is_finite()) {
+        return f64::NAN;
+    }
+    let gf = g as f64;
+    let mean = leave_out.iter().sum::<f64>() / gf;
+    let ss: f64 = leave_out.iter().map(|x| (x - mean) * (x - mean)).sum();
+    let se = ((gf - 1.0) / gf * ss).sqrt();
+    // A statistic that is the same in every block-deleted set (a share that no block moves)
+    // differs across them only by rounding: report 0 rather than ~1e-16 of round-off.
+    if se <= 1e-12 * mean.abs() {
+        0.0
+    } else {
+        se
+    }
+}
+
+/// A finished decomposition: the folded accumulator, the terms per grid value, their jackknife
+/// standard errors (NaN where not reported or not computable), and the leave-one-block-out
+/// terms (blocks × grid × terms) that paired comparisons use.
+#[derive(Debug, Clone)]
+pub struct Summary {
+    /// The terms' description.
+    pub terms: Vec<TermInfo>,
+    /// Values per grid value.
+    pub values: Vec<Row>,
+    /// Standard errors per grid value.
+    pub stderr: Vec<Row>,
+    /// Terms of each leave-one-block-out fold (empty with fewer than two blocks).
+    pub leave_out: Vec<Vec<Row>>,
+    /// All blocks folded in order.
+    pub total: Acc,
+}
+
+/// Folds blocks in index order and computes the terms with delete-a-block jackknife standard
+/// errors. The leave-one-block-out folds share the fold of the blocks before the deleted one
+/// (the same merges in the same order as folding without it, half the work). `None` for an
+/// empty block list.
+pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option<Summary> {
+    let total = Acc::fold(loss, blocks)?;
+    let terms = loss.describe(&total.shape, target.observed());
+    let values = loss.evaluate(&total, target);
+    let nb = blocks.len();
+    let mut leave_out: Vec<Vec<Row>> = Vec::with_capacity(nb);
+    if nb >= 2 {
+        let mut prefix: Option<Acc> = None;
+        for b in 0..nb {
+            let mut acc = prefix.clone();
+            for p in &blocks[b + 1..] {
+                match &mut acc {
+                    None => acc = Some(p.clone()),
+                    Some(o) => o.merge(loss, p),
+                }
+            }
+            let acc = acc.expect("at least one block remains");
+            leave_out.push(loss.evaluate(&acc, target));
+            match &mut prefix {
+                None => prefix = Some(blocks[b].clone()),
+                Some(o) => o.merge(loss, &blocks[b]),
+            }
+        }
+    }
+    let mut stderr: Vec<Row> = (0..total.shape.grid)
+        .map(|g| {
+            terms
+                .iter()
+                .enumerate()
+                .map(|(t, info)| {
+                    if !info.stderr || leave_out.is_empty() {
+                        f64::NAN
+                    } else {
+                        let v: Vec<f64> = leave_out.iter().map(|l| l[g][t]).collect();
+                        jackknife_se(&v)
+                    }
+                })
+                .collect()
+        })
+        .collect();
+    loss.adjust_stderr(&total.shape, target, &mut stderr);
+    Some(Summary {
+        terms,
+        values,
+        stderr,
+        leave_out,
+        total,
+    })
+}
+
+impl Summary {
+    /// Index of the term with `key`.
+    pub fn index(&self, key: &str) -> Option<usize> {
+        self.terms.iter().position(|t| t.key == key)
+    }
+
+    /// Value of term `key` at grid index `g` (NaN when absent).
+    pub fn value(&self, g: usize, key: &str) -> f64 {
+        self.index(key).map_or(f64::NAN, |t| self.values[g][t])
+    }
+}

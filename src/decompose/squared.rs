@@ -1,274 +1,562 @@
-//! Squared-loss accumulator (per grid value × evaluation point: count, mean and centred sum of
-//! squares, merged with the pairwise update of Chan, Golub and LeVeque 1979) and the
-//! decomposition with delete-a-block jackknife standard errors.
+//! Squared loss: per cell (grid value × evaluation point) the running mean and centred sum of
+//! squares of the predictions (Welford's update; blocks merged with the pairwise update of Chan,
+//! Golub and LeVeque 1979), and the decomposition
+//! `E[(Y − f̂(x))²] = σ²(x) + bias²(x) + variance(x)` (Hastie, Tibshirani, Friedman, *The
+//! Elements of Statistical Learning*, 2nd ed., eq. 7.9) with unbiased estimators:
+//! `V̂ = M2/(R − 1)` and `B̂² = (m − f)² − V̂/R`, so that `(1/R) Σ (ŷ_r − f)² = B̂² + V̂` exactly.
+//!
+//! **Several fits per training set** (`fit_seeds = S ≥ 2`): the cell tracks the S-averaged
+//! prediction ȳ_r and the sum of the within-replicate sample variances s²_r. By the law of total
+//! variance, `Var ŷ = Var_D E_s[ŷ] + E_D Var_s[ŷ]`; the one-way random-effects (ANOVA) estimators
+//! `variance_fit = mean_r s²_r` and `variance_data = Var_r(ȳ_r) − variance_fit/S` are unbiased at
+//! any finite R and S (Searle, Casella, McCulloch, *Variance Components*, 1992, §3.5), and
+//! `variance = variance_data + variance_fit` is the variance of one fit. The separation follows
+//! Neal et al. (2018), "A Modern Take on the Bias-Variance Tradeoff in Neural Networks".
+//!
+//! **Ensembles**: the family reports per replicate the members' spread around the ensemble,
+//! `(1/T) Σ_t (h_t − h̄)²`; its mean is the `diversity`. With exchangeable members (every tree of
+//! a forest is drawn the same way) the average member bias² equals the ensemble's bias², the
+//! average member variance is `variance + diversity`, and the exact identity
+//! `expected_loss = noise + bias² + member_variance − diversity` holds (Krogh and Vedelsby 1995,
+//! the ambiguity decomposition; Wood et al. 2023, *JMLR* 24(359), the bias-variance-diversity
+//! decomposition).
+//!
+//! **Tables** (observed responses, noise unknown): per row, `bias²+noise = (m_i − y_i)² − V_i/R_i`
+//! with `R_i` the replicates holding row i out, so that `bias²+noise + V_i` is exactly the row's
+//! mean out-of-bag squared error; averages use rows held out at least twice.
 
-use ndarray::ArrayView2;
+use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use crate::family::Task;
 
-/// Streaming accumulator of one block of replicates. Memory: `3 × grid × points` floats,
-/// independent of the number of replicates.
-#[derive(Debug, Clone, PartialEq)]
-pub struct SquaredAcc {
-    /// Replicates absorbed.
-    pub n: u64,
-    /// Number of grid values.
-    pub grid: usize,
-    /// Number of evaluation points.
-    pub points: usize,
-    /// Mean prediction per cell (`g * points + e`).
-    pub mean: Vec<f64>,
-    /// Sum of squared deviations from the mean per cell.
-    pub m2: Vec<f64>,
-    /// Per grid value: sum over replicates of the mean (over points) squared error against
-    /// fresh noisy responses (the direct cross-check).
-    pub direct: Vec<f64>,
+/// The squared loss.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct Squared;
+
+const MEAN: usize = 0;
+const M2: usize = 1;
+/// Per grid value (every point evaluated): Σ_r of the replicate's mean squared error against
+/// fresh responses. Per cell (held-out rows): Σ_r of the squared error against the observed
+/// response.
+const DIRECT: usize = 2;
+
+fn within_index(shape: &Shape) -> Option<usize> {
+    (shape.fits >= 2).then_some(3)
 }
 
-impl SquaredAcc {
-    /// An empty accumulator.
-    pub fn new(grid: usize, points: usize) -> Self {
-        SquaredAcc {
-            n: 0,
-            grid,
-            points,
-            mean: vec![0.0; grid * points],
-            m2: vec![0.0; grid * points],
-            direct: vec![0.0; grid],
-        }
-    }
+fn div_index(shape: &Shape) -> Option<usize> {
+    shape.ensemble.then_some(3 + usize::from(shape.fits >= 2))
+}
 
-    /// Absorbs one replicate: `preds[[g, e]]` and, per grid value, its mean squared error
-    /// against fresh responses.
-    pub fn push(&mut self, preds: ArrayView2<'_, f64>, direct: &[f64]) {
-        debug_assert_eq!(preds.dim(), (self.grid, self.points));
-        self.n += 1;
-        let inv = 1.0 / self.n as f64;
-        for (g, row) in preds.rows().into_iter().enumerate() {
-            let base = g * self.points;
-            let mean = &mut self.mean[base..base + self.points];
-            let m2 = &mut self.m2[base..base + self.points];
-            for ((mu, s), &y) in mean.iter_mut().zip(m2.iter_mut()).zip(row.iter()) {
-                let d = y - *mu;
-                *mu += d * inv;
-                *s += d * (y - *mu);
-            }
-            self.direct[g] += direct[g];
-        }
-    }
-
-    /// Merges `other` into `self` (order matters for the last bits: merge in block order).
-    pub fn merge(&mut self, other: &SquaredAcc) {
-        if other.n == 0 {
-            return;
-        }
-        if self.n == 0 {
-            *self = other.clone();
-            return;
-        }
-        let na = self.n as f64;
-        let nb = other.n as f64;
-        let n = na + nb;
-        let (wb, wab) = (nb / n, na * nb / n);
-        let cells = self
-            .mean
-            .iter_mut()
-            .zip(self.m2.iter_mut())
-            .zip(other.mean.iter().zip(&other.m2));
-        for ((mu, s), (&om, &os)) in cells {
-            let d = om - *mu;
-            *mu += d * wb;
-            *s += os + d * d * wab;
-        }
-        for (a, b) in self.direct.iter_mut().zip(&other.direct) {
-            *a += b;
-        }
-        self.n += other.n;
-    }
-
-    /// Folds accumulators in the order given, skipping index `skip` if set.
-    pub fn fold<'a>(
-        parts: impl IntoIterator<Item = &'a SquaredAcc>,
-        skip: Option<usize>,
-    ) -> Option<SquaredAcc> {
-        let mut out: Option<SquaredAcc> = None;
-        for (i, p) in parts.into_iter().enumerate() {
-            if Some(i) == skip {
-                continue;
-            }
-            match &mut out {
-                None => out = Some(p.clone()),
-                Some(o) => o.merge(p),
-            }
-        }
-        out
+fn info(
+    key: &'static str,
+    label: &'static str,
+    meaning: &'static str,
+    role: Role,
+    group: Group,
+    estimated: bool,
+    stderr: bool,
+) -> TermInfo {
+    TermInfo {
+        key,
+        label,
+        meaning,
+        role,
+        group,
+        estimated,
+        stderr,
     }
 }
 
-/// Decomposition terms at one grid value, averaged over evaluation points.
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
-pub struct SquaredTerms {
-    /// `noise + bias_sq + variance`.
-    pub expected_loss: f64,
-    /// Unbiased squared bias.
-    pub bias_sq: f64,
-    /// Unbiased variance.
-    pub variance: f64,
-    /// Known noise variance σ²(x), averaged.
-    pub noise: f64,
-    /// Mean squared error against fresh noisy responses (independent cross-check).
-    pub expected_loss_direct: f64,
-}
-
-/// Terms at one evaluation point and grid value.
+/// Per-point terms.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct SquaredPoint {
-    /// Mean prediction over replicates.
+    /// Mean prediction over replicates (S-averaged with several fits).
     pub mean_prediction: f64,
-    /// Unbiased squared bias at the point.
+    /// Unbiased squared bias against the truth (or bias² + noise against an observed response).
     pub bias_sq: f64,
-    /// Unbiased variance at the point.
+    /// Unbiased variance of one fit.
     pub variance: f64,
+    /// `Var_D E_s ŷ` (several fits; NaN otherwise).
+    pub variance_data: f64,
+    /// `E_D Var_s ŷ` (several fits; NaN otherwise).
+    pub variance_fit: f64,
+    /// Mean diversity (ensembles; NaN otherwise).
+    pub diversity: f64,
 }
 
-/// Per-grid terms, their jackknife standard errors, and the folded accumulator.
-#[derive(Debug, Clone)]
-pub struct SquaredSummary {
-    /// Terms per grid value.
-    pub terms: Vec<SquaredTerms>,
-    /// Standard errors per grid value (`noise` is known exactly: its error is 0). NaN when
-    /// fewer than two blocks (or a block-deleted set with fewer than two replicates).
-    pub stderr: Vec<SquaredTerms>,
-    /// All blocks folded in order.
-    pub total: SquaredAcc,
-}
-
-/// Computes the averaged terms from a folded accumulator. `truth[e]` is f at point e and
-/// `noise_var[e]` is σ²(x_e).
-pub fn terms(acc: &SquaredAcc, truth: &[f64], noise_var: &[f64]) -> Vec<SquaredTerms> {
-    let m = acc.points as f64;
-    let r = acc.n as f64;
-    let noise = noise_var.iter().sum::<f64>() / m;
-    (0..acc.grid)
-        .map(|g| {
-            let (mut b2, mut v) = (0.0, 0.0);
-            for (e, &f) in truth.iter().enumerate().take(acc.points) {
-                let p = point(acc, g, e, f);
-                b2 += p.bias_sq;
-                v += p.variance;
-            }
-            let (b2, v) = (b2 / m, v / m);
-            SquaredTerms {
-                expected_loss: noise + b2 + v,
-                bias_sq: b2,
-                variance: v,
-                noise,
-                expected_loss_direct: if acc.n > 0 {
-                    acc.direct[g] / r
-                } else {
-                    f64::NAN
-                },
-            }
-        })
-        .collect()
-}
-
-/// Terms at one cell.
-pub fn point(acc: &SquaredAcc, g: usize, e: usize, truth: f64) -> SquaredPoint {
-    let i = g * acc.points + e;
-    let r = acc.n as f64;
-    let v = if acc.n >= 2 {
-        acc.m2[i] / (r - 1.0)
+/// Terms at cell (g, e) against `truth` (f(x_e), or the observed y_e).
+pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
+    let sh = &acc.shape;
+    let i = g * sh.points + e;
+    let r = acc.count[e];
+    let rf = r as f64;
+    let mean = acc.floats[MEAN][i];
+    let v_avg = if r >= 2 {
+        acc.floats[M2][i] / (rf - 1.0)
     } else {
         f64::NAN
     };
-    let d = acc.mean[i] - truth;
+    let d = mean - truth;
+    let bias_sq = d * d - v_avg / rf;
+    let (variance, vd, vf) = match within_index(sh) {
+        None => (v_avg, f64::NAN, f64::NAN),
+        Some(w) => {
+            let vf = acc.floats[w][i] / rf;
+            let vd = v_avg - vf / sh.fits as f64;
+            (vd + vf, vd, vf)
+        }
+    };
+    let diversity = div_index(sh).map_or(f64::NAN, |k| acc.floats[k][i] / rf);
     SquaredPoint {
-        mean_prediction: acc.mean[i],
-        bias_sq: d * d - v / r,
-        variance: v,
+        mean_prediction: if r >= 1 { mean } else { f64::NAN },
+        bias_sq,
+        variance,
+        variance_data: vd,
+        variance_fit: vf,
+        diversity,
     }
 }
 
-/// Delete-one-group jackknife standard error: `sqrt((G-1)/G Σ (θ_(g) - θ̄)²)` (Efron and Tibshirani,
-/// *An Introduction to the Bootstrap*, 1993, eq. 11.5, applied to groups of replicates).
-pub fn jackknife_se(leave_out: &[f64]) -> f64 {
-    let g = leave_out.len();
-    if g < 2 || leave_out.iter().any(|x| !x.is_finite()) {
-        return f64::NAN;
+impl Loss for Squared {
+    fn name(&self) -> &'static str {
+        "squared"
     }
-    let gf = g as f64;
-    let mean = leave_out.iter().sum::<f64>() / gf;
-    let ss: f64 = leave_out.iter().map(|x| (x - mean) * (x - mean)).sum();
-    let se = ((gf - 1.0) / gf * ss).sqrt();
-    // A statistic that is the same in every block-deleted set (a share that no block moves)
-    // differs across them only by rounding: report 0 rather than ~1e-16 of round-off.
-    if se <= 1e-12 * mean.abs() {
-        0.0
-    } else {
-        se
-    }
-}
 
-/// Folds blocks in index order and computes terms with jackknife standard errors over blocks.
-/// Returns `None` for an empty block list.
-pub fn summarize(
-    blocks: &[SquaredAcc],
-    truth: &[f64],
-    noise_var: &[f64],
-) -> Option<SquaredSummary> {
-    let total = SquaredAcc::fold(blocks, None)?;
-    let full = terms(&total, truth, noise_var);
-    let nb = blocks.len();
-    let mut loo: Vec<Vec<SquaredTerms>> = Vec::with_capacity(nb);
-    if nb >= 2 {
-        // Leave-one-block-out folds, each in block order. The fold of the blocks before `b` is
-        // shared (`prefix`), so only the blocks after `b` are merged per fold: the same merges
-        // in the same order as `SquaredAcc::fold(blocks, Some(b))`, half the work.
-        let mut prefix: Option<SquaredAcc> = None;
-        for b in 0..nb {
-            let mut acc = prefix.clone();
-            for p in &blocks[b + 1..] {
-                match &mut acc {
-                    None => acc = Some(p.clone()),
-                    Some(o) => o.merge(p),
+    fn supports(&self, task: Task) -> bool {
+        task == Task::Regress
+    }
+
+    fn bias_word(&self) -> &'static str {
+        "Bias²"
+    }
+
+    fn observed_note(&self) -> &'static str {
+        " (On a table, bias² is bias²+noise minus an estimated noise.)"
+    }
+
+    fn layout(&self, shape: &Shape) -> Vec<ArraySpec> {
+        let cells = shape.cells();
+        let f = |name, len, non_negative| ArraySpec {
+            name,
+            kind: Kind::Float,
+            len,
+            non_negative,
+        };
+        let mut v = vec![f("mean", cells, false), f("m2", cells, true)];
+        if shape.all_points {
+            v.push(f("direct", shape.grid, true));
+        } else {
+            v.push(f("sse", cells, true));
+        }
+        if within_index(shape).is_some() {
+            v.push(f("within", cells, true));
+        }
+        if div_index(shape).is_some() {
+            v.push(f("diversity", cells, true));
+        }
+        v
+    }
+
+    fn push(&self, acc: &mut Acc, batch: &Batch<'_>) {
+        let sh = acc.shape;
+        let s_fits = batch.values.dim().0;
+        let k = batch.len();
+        let points = sh.points;
+        let within = within_index(&sh);
+        let div = div_index(&sh);
+        let m = k as f64;
+        for g in 0..sh.grid {
+            // The direct check: the replicate's mean squared error against the responses seen,
+            // averaged over its fits.
+            let mut direct_g = 0.0;
+            for s in 0..s_fits {
+                let sse: f64 = batch
+                    .values
+                    .slice(ndarray::s![s, g, ..])
+                    .iter()
+                    .zip(batch.response.iter())
+                    .map(|(p, y)| (p - y) * (p - y))
+                    .sum();
+                direct_g += sse / m;
+            }
+            if s_fits > 1 {
+                direct_g /= s_fits as f64;
+            }
+            for j in 0..k {
+                let e = batch.point(j);
+                let cell = g * points + e;
+                let inv = 1.0 / acc.count[e] as f64;
+                let y = if s_fits == 1 {
+                    batch.values[[0, g, j]]
+                } else {
+                    let sum: f64 = (0..s_fits).map(|s| batch.values[[s, g, j]]).sum();
+                    sum / s_fits as f64
+                };
+                let mu = &mut acc.floats[MEAN][cell];
+                let dlt = y - *mu;
+                *mu += dlt * inv;
+                let new_mu = *mu;
+                acc.floats[M2][cell] += dlt * (y - new_mu);
+                if let Some(w) = within {
+                    let ss: f64 = (0..s_fits)
+                        .map(|s| {
+                            let t = batch.values[[s, g, j]] - y;
+                            t * t
+                        })
+                        .sum();
+                    acc.floats[w][cell] += ss / (s_fits - 1) as f64;
+                }
+                if let (Some(dv), Some(bd)) = (div, batch.diversity.as_ref()) {
+                    let sum: f64 = (0..s_fits).map(|s| bd[[s, g, j]]).sum();
+                    acc.floats[dv][cell] += sum / s_fits as f64;
+                }
+                if !sh.all_points {
+                    let yo = batch.response[j];
+                    let mut se = 0.0;
+                    for s in 0..s_fits {
+                        let p = batch.values[[s, g, j]];
+                        se += (p - yo) * (p - yo);
+                    }
+                    if s_fits > 1 {
+                        se /= s_fits as f64;
+                    }
+                    acc.floats[DIRECT][cell] += se;
                 }
             }
-            let acc = acc.expect("at least one block remains");
-            loo.push(terms(&acc, truth, noise_var));
-            match &mut prefix {
-                None => prefix = Some(blocks[b].clone()),
-                Some(o) => o.merge(&blocks[b]),
+            if sh.all_points {
+                acc.floats[DIRECT][g] += direct_g;
             }
         }
     }
-    let stderr = (0..total.grid)
-        .map(|g| {
-            let se = |f: fn(&SquaredTerms) -> f64| {
-                if loo.is_empty() {
-                    f64::NAN
+
+    fn merge(&self, acc: &mut Acc, other: &Acc) {
+        let sh = acc.shape;
+        // Per point: the weights of the pairwise update (Chan, Golub, LeVeque 1979).
+        let weights: Vec<Option<(f64, f64)>> = acc
+            .count
+            .iter()
+            .zip(&other.count)
+            .map(|(&a, &b)| {
+                if b == 0 {
+                    None
                 } else {
-                    jackknife_se(&loo.iter().map(|t| f(&t[g])).collect::<Vec<_>>())
+                    let (na, nb) = (a as f64, b as f64);
+                    let n = na + nb;
+                    Some((nb / n, na * nb / n))
                 }
-            };
-            SquaredTerms {
-                expected_loss: se(|t| t.expected_loss),
-                bias_sq: se(|t| t.bias_sq),
-                variance: se(|t| t.variance),
-                noise: 0.0,
-                expected_loss_direct: se(|t| t.expected_loss_direct),
+            })
+            .collect();
+        for g in 0..sh.grid {
+            for (e, w) in weights.iter().enumerate() {
+                let Some((wb, wab)) = *w else { continue };
+                let c = g * sh.points + e;
+                let d = other.floats[MEAN][c] - acc.floats[MEAN][c];
+                acc.floats[MEAN][c] += d * wb;
+                acc.floats[M2][c] += other.floats[M2][c] + d * d * wab;
             }
-        })
-        .collect();
-    Some(SquaredSummary {
-        terms: full,
-        stderr,
-        total,
-    })
+        }
+        let from = if sh.all_points { DIRECT } else { M2 + 1 };
+        for k in from..acc.floats.len() {
+            for (a, b) in acc.floats[k].iter_mut().zip(&other.floats[k]) {
+                *a += b;
+            }
+        }
+    }
+
+    fn describe(&self, shape: &Shape, observed: bool) -> Vec<TermInfo> {
+        use Group::{Detail, Main};
+        let mut v = vec![info(
+            "expected_loss",
+            if observed {
+                "expected loss (OOB)"
+            } else {
+                "expected loss"
+            },
+            if observed {
+                "mean out-of-bag squared error = bias²+noise + variance exactly"
+            } else {
+                "noise + bias² + variance (squared units of the response), averaged over evaluation points"
+            },
+            Role::Loss,
+            Main,
+            false,
+            true,
+        )];
+        v.push(info(
+            "bias_sq",
+            if observed { "bias² (est.)" } else { "bias²" },
+            if observed {
+                "bias²+noise − noise (est.): the squared bias with an estimated noise removed"
+            } else {
+                "(mean prediction − truth)² − variance/R, unbiased"
+            },
+            Role::Bias,
+            Main,
+            observed,
+            true,
+        ));
+        v.push(info(
+            "variance",
+            "variance",
+            "spread of the predictions over training sets, unbiased",
+            Role::Variance,
+            Main,
+            false,
+            true,
+        ));
+        v.push(info(
+            "noise",
+            if observed { "noise (est.)" } else { "noise" },
+            if observed {
+                "noise variance estimated from the table"
+            } else {
+                "σ²(x), known exactly from the scenario"
+            },
+            Role::Noise,
+            Main,
+            observed,
+            false,
+        ));
+        v.push(info(
+            "expected_loss_direct",
+            "direct check",
+            if observed {
+                "mean out-of-bag squared error summed directly (equals expected loss to rounding)"
+            } else {
+                "mean squared error against fresh noisy responses, an independent estimate of the expected loss"
+            },
+            Role::Direct,
+            Main,
+            false,
+            true,
+        ));
+        if observed {
+            v.push(info(
+                "bias_sq_plus_noise",
+                "bias²+noise",
+                "(mean out-of-bag prediction − observed)² − variance/R_i per row, averaged",
+                Role::Other,
+                Main,
+                false,
+                true,
+            ));
+        }
+        if shape.fits >= 2 {
+            v.push(info(
+                "variance_data",
+                "var (data)",
+                "Var over training sets of the prediction averaged over fit seeds (with a fixed design: the label-noise part)",
+                Role::Other,
+                Main,
+                false,
+                true,
+            ));
+            v.push(info(
+                "variance_fit",
+                "var (fit)",
+                "mean over training sets of the variance across fit seeds: the learner's own randomness",
+                Role::Other,
+                Main,
+                false,
+                true,
+            ));
+        }
+        if shape.ensemble {
+            v.push(info(
+                "diversity",
+                "diversity",
+                "mean spread of the ensemble's members around the ensemble, (1/T) Σ (h_t − h̄)²",
+                Role::Other,
+                Main,
+                false,
+                true,
+            ));
+            v.push(info(
+                "member_variance",
+                "member var",
+                "average member variance = variance + diversity (exchangeable members)",
+                Role::Other,
+                Detail,
+                false,
+                true,
+            ));
+            v.push(info(
+                "member_loss",
+                "member loss",
+                "average member expected loss = expected loss + diversity",
+                Role::Other,
+                Detail,
+                false,
+                true,
+            ));
+        }
+        v
+    }
+
+    fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
+        let sh = acc.shape;
+        let descr = self.describe(&sh, target.observed());
+        let idx = |k: &str| descr.iter().position(|t| t.key == k);
+        let (i_bpn, i_vd, i_vf, i_div, i_mv, i_ml) = (
+            idx("bias_sq_plus_noise"),
+            idx("variance_data"),
+            idx("variance_fit"),
+            idx("diversity"),
+            idx("member_variance"),
+            idx("member_loss"),
+        );
+        (0..sh.grid)
+            .map(|g| {
+                let mut row = vec![f64::NAN; descr.len()];
+                let (mut b2, mut v, mut vd, mut vf, mut dv, mut direct) =
+                    (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
+                let mut used = 0usize;
+                let truth_at = |e: usize| match target {
+                    Target::Known { truth, .. } => truth[e],
+                    Target::Observed { y, .. } => y[e],
+                };
+                for e in 0..sh.points {
+                    let r = acc.count[e];
+                    if r < 2 {
+                        continue;
+                    }
+                    used += 1;
+                    let p = point(acc, g, e, truth_at(e));
+                    b2 += p.bias_sq;
+                    v += p.variance;
+                    vd += p.variance_data;
+                    vf += p.variance_fit;
+                    dv += p.diversity;
+                    if !sh.all_points {
+                        direct += acc.floats[DIRECT][g * sh.points + e] / r as f64;
+                    }
+                }
+                if used == 0 {
+                    return row;
+                }
+                let u = if sh.all_points {
+                    sh.points as f64
+                } else {
+                    used as f64
+                };
+                let (b2, v) = (b2 / u, v / u);
+                let direct = if sh.all_points {
+                    acc.floats[DIRECT][g] / acc.replicates as f64
+                } else {
+                    direct / u
+                };
+                let (el, bias_sq, noise) = match target {
+                    Target::Known { noise_var, .. } => {
+                        let noise = noise_var.iter().sum::<f64>() / sh.points as f64;
+                        (noise + b2 + v, b2, noise)
+                    }
+                    Target::Observed { noise, .. } => {
+                        let n = noise.map_or(f64::NAN, |(n, _)| n);
+                        (b2 + v, b2 - n, n)
+                    }
+                };
+                row[0] = el;
+                row[1] = bias_sq;
+                row[2] = v;
+                row[3] = noise;
+                row[4] = direct;
+                if let Some(i) = i_bpn {
+                    row[i] = b2;
+                }
+                if let (Some(a), Some(b)) = (i_vd, i_vf) {
+                    row[a] = vd / u;
+                    row[b] = vf / u;
+                }
+                if let Some(i) = i_div {
+                    let d = dv / u;
+                    row[i] = d;
+                    if let Some(j) = i_mv {
+                        row[j] = v + d;
+                    }
+                    if let Some(j) = i_ml {
+                        row[j] = el + d;
+                    }
+                }
+                row
+            })
+            .collect()
+    }
+
+    fn observed_loss(&self, value: f64, _probs: Option<&[f64]>, y: f64) -> f64 {
+        (value - y) * (value - y)
+    }
+
+    fn point_columns(&self, shape: &Shape, observed: bool) -> Vec<(&'static str, bool)> {
+        let mut v = if observed {
+            vec![
+                ("observed", false),
+                ("held_out_replicates", false),
+                ("mean_prediction", false),
+                ("bias_sq_plus_noise", false),
+                ("variance", false),
+            ]
+        } else {
+            vec![
+                ("truth", false),
+                ("noise", false),
+                ("mean_prediction", false),
+                ("bias_sq", false),
+                ("variance", false),
+            ]
+        };
+        if shape.fits >= 2 {
+            v.push(("variance_data", false));
+            v.push(("variance_fit", false));
+        }
+        if shape.ensemble {
+            v.push(("diversity", false));
+        }
+        v
+    }
+
+    fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64> {
+        let (t, first, second) = match target {
+            Target::Known {
+                truth, noise_var, ..
+            } => (truth[e], truth[e], noise_var[e]),
+            Target::Observed { y, .. } => (y[e], y[e], acc.count[e] as f64),
+        };
+        let p = point(acc, g, e, t);
+        let mut v = vec![first, second, p.mean_prediction, p.bias_sq, p.variance];
+        if acc.shape.fits >= 2 {
+            v.push(p.variance_data);
+            v.push(p.variance_fit);
+        }
+        if acc.shape.ensemble {
+            v.push(p.diversity);
+        }
+        v
+    }
+
+    fn adjust_stderr(&self, shape: &Shape, target: &Target<'_>, se: &mut [Row]) {
+        if !target.observed() {
+            return;
+        }
+        // On a table bias² = bias²+noise − an estimate that does not vary across blocks: its
+        // jackknife error is that of bias²+noise.
+        let d = self.describe(shape, true);
+        let (Some(b), Some(bpn)) = (
+            d.iter().position(|t| t.key == "bias_sq"),
+            d.iter().position(|t| t.key == "bias_sq_plus_noise"),
+        ) else {
+            return;
+        };
+        for row in se.iter_mut() {
+            row[b] = row[bpn];
+        }
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use ndarray::Array2;
+    use crate::decompose::{summarize, Acc};
+    use ndarray::Array3;
 
     fn lcg(state: &mut u64) -> f64 {
         *state = state
@@ -277,25 +565,47 @@ mod tests {
         (*state >> 11) as f64 / (1u64 << 53) as f64
     }
 
+    fn shape(grid: usize, points: usize, fits: usize) -> Shape {
+        Shape {
+            grid,
+            points,
+            classes: 0,
+            fits,
+            all_points: true,
+            ensemble: false,
+        }
+    }
+
+    fn push_all(acc: &mut Acc, preds: &Array3<f64>, response: &[f64]) {
+        let b = Batch {
+            held: None,
+            values: preds.view(),
+            probs: None,
+            diversity: None,
+            response,
+        };
+        acc.push(&Squared, &b);
+    }
+
     #[test]
     fn exact_identity_mean_squared_error_equals_bias_sq_plus_variance() {
         // Exact algebraic identity: (1/R) Σ (ŷ_r - f)² = (m - f)² + V̂ (R-1)/R = B̂² + V̂.
         let (g, m, r) = (3, 7, 25);
         let mut s = 7u64;
         let truth: Vec<f64> = (0..m).map(|e| e as f64 * 0.3).collect();
-        let mut acc = SquaredAcc::new(g, m);
-        let mut preds = vec![Array2::<f64>::zeros((g, m)); r];
+        let mut acc = Acc::new(&Squared, shape(g, m, 1));
+        let mut preds = vec![Array3::<f64>::zeros((1, g, m)); r];
         for p in preds.iter_mut() {
             for v in p.iter_mut() {
                 *v = 5.0 * lcg(&mut s) - 1.0;
             }
-            acc.push(p.view(), &vec![0.0; g]);
+            push_all(&mut acc, p, &vec![0.0; m]);
         }
         for gi in 0..g {
             for e in 0..m {
                 let direct: f64 = preds
                     .iter()
-                    .map(|p| (p[[gi, e]] - truth[e]).powi(2))
+                    .map(|p| (p[[0, gi, e]] - truth[e]).powi(2))
                     .sum::<f64>()
                     / r as f64;
                 let pt = point(&acc, gi, e, truth[e]);
@@ -308,39 +618,98 @@ mod tests {
     fn merge_equals_sequential_within_rounding() {
         let (g, m) = (2, 4);
         let mut s = 3u64;
-        let mut all = SquaredAcc::new(g, m);
-        let mut a = SquaredAcc::new(g, m);
-        let mut b = SquaredAcc::new(g, m);
+        let mut all = Acc::new(&Squared, shape(g, m, 1));
+        let mut a = all.clone();
+        let mut b = all.clone();
+        let resp = vec![1.0; m];
         for i in 0..30 {
-            let mut p = Array2::<f64>::zeros((g, m));
+            let mut p = Array3::<f64>::zeros((1, g, m));
             p.iter_mut().for_each(|v| *v = lcg(&mut s) * 100.0);
-            all.push(p.view(), &[1.0, 2.0]);
+            push_all(&mut all, &p, &resp);
             if i < 11 {
-                a.push(p.view(), &[1.0, 2.0])
+                push_all(&mut a, &p, &resp)
             } else {
-                b.push(p.view(), &[1.0, 2.0])
+                push_all(&mut b, &p, &resp)
             }
         }
-        a.merge(&b);
-        assert_eq!(a.n, all.n);
-        for i in 0..a.mean.len() {
-            approx::assert_relative_eq!(a.mean[i], all.mean[i], max_relative = 1e-13);
-            approx::assert_relative_eq!(a.m2[i], all.m2[i], max_relative = 1e-11);
+        a.merge(&Squared, &b);
+        assert_eq!(a.replicates, all.replicates);
+        assert_eq!(a.count, all.count);
+        for k in 0..2 {
+            for i in 0..a.floats[k].len() {
+                approx::assert_relative_eq!(a.floats[k][i], all.floats[k][i], max_relative = 1e-11);
+            }
         }
-        assert_eq!(a.direct, all.direct);
     }
 
     #[test]
-    fn jackknife_of_a_mean_equals_the_classical_standard_error() {
-        // Exact identity: for the sample mean, the delete-one jackknife SE equals s/sqrt(n)
-        // (Efron and Tibshirani 1993, §11.2).
-        let x = [1.0, 4.0, 2.5, 7.0, 3.0, 9.5];
-        let n = x.len() as f64;
-        let mean = x.iter().sum::<f64>() / n;
-        let s2 = x.iter().map(|v| (v - mean).powi(2)).sum::<f64>() / (n - 1.0);
-        let loo: Vec<f64> = (0..x.len())
-            .map(|i| (x.iter().sum::<f64>() - x[i]) / (n - 1.0))
-            .collect();
-        approx::assert_relative_eq!(jackknife_se(&loo), (s2 / n).sqrt(), max_relative = 1e-12);
+    fn variance_split_is_unbiased_in_a_known_random_effects_model() {
+        // One-way random effects: ŷ_rs = a_r + e_rs with Var a = 4, Var e = 1 (uniforms scaled
+        // to those variances). Over many replicates the estimators approach 4 and 1, and
+        // variance_data + variance_fit = variance exactly (law of total variance, by construction).
+        let (r, fits) = (4000, 3);
+        let mut st = 17u64;
+        let mut acc = Acc::new(&Squared, shape(1, 1, fits));
+        let unif = |s: &mut u64, var: f64| (lcg(s) - 0.5) * (12.0 * var).sqrt();
+        for _ in 0..r {
+            let a = unif(&mut st, 4.0);
+            let mut p = Array3::<f64>::zeros((fits, 1, 1));
+            for f in 0..fits {
+                p[[f, 0, 0]] = a + unif(&mut st, 1.0);
+            }
+            push_all(&mut acc, &p, &[0.0]);
+        }
+        let pt = point(&acc, 0, 0, 0.0);
+        assert!((pt.variance_data + pt.variance_fit - pt.variance).abs() < 1e-12);
+        // Standard errors: Var of a sample variance of n uniforms ≈ 0.8 σ⁴ / n (kurtosis 1.8).
+        let se_fit = (0.8f64 / (r * fits) as f64).sqrt() * 1.0 * 1.3;
+        let se_data = (0.8 * 16.0 / r as f64).sqrt() * 1.3;
+        assert!((pt.variance_fit - 1.0).abs() < 4.0 * se_fit, "{pt:?}");
+        assert!((pt.variance_data - 4.0).abs() < 4.0 * se_data, "{pt:?}");
+    }
+
+    #[test]
+    fn held_out_rows_average_over_rows_seen_twice() {
+        // Row 0 held out in three replicates, row 1 once (skipped), row 2 never.
+        let sh = Shape {
+            grid: 1,
+            points: 3,
+            classes: 0,
+            fits: 1,
+            all_points: false,
+            ensemble: false,
+        };
+        let mut acc = Acc::new(&Squared, sh);
+        let y = [1.0, 5.0, 9.0];
+        for (held, vals) in [
+            (vec![0usize, 1], vec![2.0, 4.0]),
+            (vec![0], vec![4.0]),
+            (vec![0], vec![3.0]),
+        ] {
+            let p = Array3::from_shape_vec((1, 1, vals.len()), vals).unwrap();
+            let resp: Vec<f64> = held.iter().map(|&i| y[i]).collect();
+            let b = Batch {
+                held: Some(&held),
+                values: p.view(),
+                probs: None,
+                diversity: None,
+                response: &resp,
+            };
+            acc.push(&Squared, &b);
+        }
+        assert_eq!(acc.count, vec![3, 1, 0]);
+        let target = Target::Observed {
+            y: &y,
+            noise: Some((0.5, 0.1)),
+        };
+        let sum = summarize(&Squared, std::slice::from_ref(&acc), &target).unwrap();
+        // Row 0: predictions 2, 4, 3: mean 3, V = 1, bias²+noise = (3 − 1)² − 1/3.
+        let bpn = 4.0 - 1.0 / 3.0;
+        assert!((sum.value(0, "bias_sq_plus_noise") - bpn).abs() < 1e-12);
+        assert!((sum.value(0, "variance") - 1.0).abs() < 1e-12);
+        assert!((sum.value(0, "expected_loss") - (bpn + 1.0)).abs() < 1e-12);
+        // Direct: mean of (1, 9, 4) = 14/3 = bias²+noise + V exactly.
+        assert!((sum.value(0, "expected_loss_direct") - 14.0 / 3.0).abs() < 1e-12);
+        assert!((sum.value(0, "bias_sq") - (bpn - 0.5)).abs() < 1e-12);
     }
 }

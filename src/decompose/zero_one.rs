@@ -1,6 +1,5 @@
-//! Zero-one loss: the vote-count accumulator (per grid value × evaluation point × class) and the
-//! decompositions of Domingos (2000), Kohavi and Wolpert (1996) and James (2003), with
-//! delete-a-block jackknife standard errors.
+//! Zero-one loss: the vote counts per grid value × evaluation point × class, and the
+//! decompositions of Domingos (2000), Kohavi and Wolpert (1996) and James (2003).
 //!
 //! # Setting
 //!
@@ -36,7 +35,7 @@
 //! - Aggregates follow Domingos' normalisation over **all** points: unbiased variance
 //!   `V_u = E_x[(1 − B(x)) V(x)]`, biased variance `V_b = E_x[B(x) V(x)]`, net variance
 //!   `E_x[c2(x) V(x)]` (for two classes `V_u − V_b`). The averaged noise term as it enters the loss,
-//!   `E_x[c1 N]`, is [`ZeroOneTerms::domingos_noise_term`].
+//!   `E_x[c1 N]`, is the term `noise_term`.
 //! - These are plug-in estimates (the mode of the empirical votes): they converge as R grows, but
 //!   unlike the master identity they are not unbiased at finite R.
 //!
@@ -55,183 +54,30 @@
 //! `SE = P(Y ≠ Sŷ) − P(Y ≠ SY) = p_t(y*) − p_t(y_m)`, variance effect
 //! `VE = P(Y ≠ ŷ) − P(Y ≠ Sŷ) = (1 − Σ p_t p_D) − (1 − p_t(y_m))`, noise `P(Y ≠ SY) = 1 − p_t(y*)`.
 //! The sum telescopes exactly to `1 − Σ p_t p_D`.
+//!
+//! # Tables (observed labels)
+//!
+//! On a table the true class probabilities are unknown: each row's observed label stands in for
+//! them (`p_t` = the one-hot vector of the label), so the noise is folded into the bias — Domingos'
+//! bias is then the share of rows whose main out-of-bag prediction is not the observed label, and
+//! the expected loss is the out-of-bag misclassification rate `1 − p_D(y_i)`. Rows held out in
+//! fewer than two replicates are skipped.
+//!
+//! # Several fits per training set
+//!
+//! With `fit_seeds = S`, every fit votes: `p_D` is the share over the R·S fits.
 
-use ndarray::ArrayView2;
+use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use crate::family::Task;
 
-use super::squared::jackknife_se;
+/// The 0-1 loss.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct ZeroOne;
 
-/// Streaming accumulator of one block of replicates: vote counts per grid value, evaluation point
-/// and class. Memory: `grid × points × classes` counters, independent of the number of replicates.
-/// Merging is exact (integer counts).
-#[derive(Debug, Clone, PartialEq)]
-pub struct ZeroOneAcc {
-    /// Replicates absorbed.
-    pub n: u64,
-    /// Number of grid values.
-    pub grid: usize,
-    /// Number of evaluation points.
-    pub points: usize,
-    /// Number of classes K.
-    pub classes: usize,
-    /// `counts[(g * points + e) * classes + c]` = replicates predicting class c.
-    pub counts: Vec<u32>,
-    /// Per grid value: sum over replicates of the share of evaluation points where the prediction
-    /// differs from a fresh label drawn from p_t (direct cross-check).
-    pub direct: Vec<f64>,
-}
-
-impl ZeroOneAcc {
-    /// An empty accumulator.
-    pub fn new(grid: usize, points: usize, classes: usize) -> Self {
-        ZeroOneAcc {
-            n: 0,
-            grid,
-            points,
-            classes,
-            counts: vec![0; grid * points * classes],
-            direct: vec![0.0; grid],
-        }
-    }
-
-    /// Absorbs one replicate: `preds[[g, e]]` is the predicted class index stored as f64, and
-    /// `direct[g]` the share of points misclassified against fresh labels at grid value g.
-    ///
-    /// The runner validates predictions before they get here; an index outside `0..classes`
-    /// is a programming error (it panics on the out-of-range count).
-    pub fn push(&mut self, preds: ArrayView2<'_, f64>, direct: &[f64]) {
-        debug_assert_eq!(preds.dim(), (self.grid, self.points));
-        debug_assert_eq!(direct.len(), self.grid);
-        self.n += 1;
-        let k = self.classes;
-        for (g, row) in preds.rows().into_iter().enumerate() {
-            let base = g * self.points;
-            for (e, &y) in row.iter().enumerate() {
-                let c = y as usize;
-                debug_assert!(y >= 0.0 && y.fract() == 0.0 && c < k, "bad class {y}");
-                self.counts[(base + e) * k + c] += 1;
-            }
-            self.direct[g] += direct[g];
-        }
-    }
-
-    /// Merges `other` into `self`. Counts merge exactly; the direct sums are added (merge in
-    /// block order for bit-identical results).
-    pub fn merge(&mut self, other: &ZeroOneAcc) {
-        if other.n == 0 {
-            return;
-        }
-        if self.n == 0 {
-            *self = other.clone();
-            return;
-        }
-        debug_assert_eq!(self.counts.len(), other.counts.len());
-        for (a, b) in self.counts.iter_mut().zip(&other.counts) {
-            *a += b;
-        }
-        for (a, b) in self.direct.iter_mut().zip(&other.direct) {
-            *a += b;
-        }
-        self.n += other.n;
-    }
-
-    /// Folds accumulators in the order given, skipping index `skip` if set. `None` when nothing
-    /// is left to fold.
-    pub fn fold<'a>(
-        parts: impl IntoIterator<Item = &'a ZeroOneAcc>,
-        skip: Option<usize>,
-    ) -> Option<ZeroOneAcc> {
-        let mut out: Option<ZeroOneAcc> = None;
-        for (i, p) in parts.into_iter().enumerate() {
-            if Some(i) == skip {
-                continue;
-            }
-            match &mut out {
-                None => out = Some(p.clone()),
-                Some(o) => o.merge(p),
-            }
-        }
-        out
-    }
-
-    /// Vote counts of one cell (grid value g, evaluation point e), one per class.
-    pub fn cell(&self, g: usize, e: usize) -> &[u32] {
-        let i = (g * self.points + e) * self.classes;
-        &self.counts[i..i + self.classes]
-    }
-}
-
-/// Zero-one decomposition terms; in [`terms`] they are averages over evaluation points at one grid
-/// value, in [`point`] the values at one point.
-#[derive(Debug, Clone, Copy, PartialEq, Default)]
-pub struct ZeroOneTerms {
-    /// Master identity `1 − Σ_c p_t(c) p_D(c)`, averaged (exact, unbiased).
-    pub expected_loss: f64,
-    /// Direct cross-check: misclassification share against fresh labels, summed over replicates
-    /// and divided by R. Not tracked per point (NaN there).
-    pub expected_loss_direct: f64,
-    /// Bayes error `1 − max_c p_t(c)` (Domingos' N; also James' noise).
-    pub noise: f64,
-    /// Domingos: share of points where the main prediction differs from the Bayes class.
-    pub bias: f64,
-    /// Domingos: mean of `V = P_D(ŷ ≠ main prediction)`.
-    pub variance: f64,
-    /// Domingos: `E_x[(1 − B) V]`, averaged over **all** points (Domingos 2000's normalisation,
-    /// not conditional on the unbiased points).
-    pub unbiased_variance: f64,
-    /// Domingos: `E_x[B V]`, averaged over all points.
-    pub biased_variance: f64,
-    /// Domingos: `E_x[c2 V]`; for two classes `unbiased_variance − biased_variance`.
-    pub net_variance: f64,
-    /// Kohavi–Wolpert noise `½(1 − Σ p_t²)`.
-    pub kw_noise: f64,
-    /// Kohavi–Wolpert bias² `½ Σ (p_t − p_D)²` with the finite-R corrected `Σ p_D²` (NaN if R < 2).
-    pub kw_bias_sq: f64,
-    /// Kohavi–Wolpert variance `½(1 − Σ p_D²)` with the finite-R corrected `Σ p_D²` (NaN if R < 2).
-    pub kw_variance: f64,
-    /// James systematic effect `p_t(y*) − p_t(y_m)`.
-    pub james_systematic: f64,
-    /// James variance effect `p_t(y_m) − Σ p_t p_D`.
-    pub james_variance: f64,
-}
-
-impl ZeroOneTerms {
-    /// Domingos' noise term as it enters the loss, `E_x[c1 N]`: the remainder
-    /// `expected_loss − bias − net_variance` (exact, since `E L = c1 N + B + c2 V` holds at every
-    /// point and averaging is linear).
-    pub fn domingos_noise_term(&self) -> f64 {
-        self.expected_loss - self.bias - self.net_variance
-    }
-}
-
-/// Terms at one evaluation point and grid value (for a per-point CSV).
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct ZeroOnePoint {
-    /// Mode of the votes (smallest class index among ties).
-    pub main_prediction: usize,
-    /// `argmax_c p_t(c)` (smallest class index among ties).
-    pub bayes_class: usize,
-    /// Domingos' c1 at the point.
-    pub c1: f64,
-    /// Domingos' c2 at the point.
-    pub c2: f64,
-    /// The terms at this point (`expected_loss_direct` is NaN: not tracked per point).
-    pub terms: ZeroOneTerms,
-}
-
-/// Per-grid terms, their jackknife standard errors, and the folded accumulator.
-#[derive(Debug, Clone)]
-pub struct ZeroOneSummary {
-    /// Terms per grid value.
-    pub terms: Vec<ZeroOneTerms>,
-    /// Delete-a-block jackknife standard errors per grid value. `noise` and `kw_noise` are known
-    /// exactly (error 0). NaN with fewer than two blocks. The bias-type terms (Domingos bias,
-    /// James systematic effect) jump when a vote tie flips; the jackknife is unreliable for such
-    /// non-smooth statistics (Efron and Tibshirani 1993, §11.6, the median), so read their errors
-    /// as indicative only.
-    pub stderr: Vec<ZeroOneTerms>,
-    /// All blocks folded in order.
-    pub total: ZeroOneAcc,
-}
+const VOTES: usize = 0;
+/// Per grid value (every point evaluated): Σ_r of the share of points misclassified against
+/// fresh labels.
+const DIRECT: usize = 0;
 
 /// Index of the largest value, smallest index among exact ties (0 for an empty list).
 fn argmax_first<T: PartialOrd + Copy>(xs: impl IntoIterator<Item = T>) -> usize {
@@ -317,12 +163,66 @@ fn coefficients_with(
     (c1, c2)
 }
 
-/// Terms at one cell (grid value g, evaluation point e); `p_true` holds the K class
-/// probabilities at point e. With no replicates every estimated term is NaN.
-pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
-    debug_assert_eq!(p_true.len(), acc.classes);
-    let counts = acc.cell(g, e);
-    let r = acc.n as f64;
+/// Zero-one decomposition terms at one point (or averaged over points).
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct ZeroOneTerms {
+    /// Master identity `1 − Σ_c p_t(c) p_D(c)`.
+    pub expected_loss: f64,
+    /// Direct cross-check (not tracked per point: NaN there).
+    pub expected_loss_direct: f64,
+    /// Bayes error `1 − max_c p_t(c)` (Domingos' N; also James' noise).
+    pub noise: f64,
+    /// Domingos: 1 when the main prediction differs from the Bayes class.
+    pub bias: f64,
+    /// Domingos: `V = P_D(ŷ ≠ main prediction)`.
+    pub variance: f64,
+    /// Domingos: `(1 − B) V`.
+    pub unbiased_variance: f64,
+    /// Domingos: `B V`.
+    pub biased_variance: f64,
+    /// Domingos: `c2 V`.
+    pub net_variance: f64,
+    /// Domingos: `c1 N`, the noise as it enters the loss.
+    pub noise_term: f64,
+    /// Kohavi–Wolpert noise `½(1 − Σ p_t²)`.
+    pub kw_noise: f64,
+    /// Kohavi–Wolpert bias² with the finite-R corrected `Σ p_D²` (NaN if fewer than 2 votes).
+    pub kw_bias_sq: f64,
+    /// Kohavi–Wolpert variance with the finite-R corrected `Σ p_D²` (NaN if fewer than 2 votes).
+    pub kw_variance: f64,
+    /// James systematic effect `p_t(y*) − p_t(y_m)`.
+    pub james_systematic: f64,
+    /// James variance effect `p_t(y_m) − Σ p_t p_D`.
+    pub james_variance: f64,
+}
+
+/// Terms at one evaluation point and grid value (for a per-point CSV).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct ZeroOnePoint {
+    /// Mode of the votes (smallest class index among ties).
+    pub main_prediction: usize,
+    /// `argmax_c p_t(c)` (smallest class index among ties).
+    pub bayes_class: usize,
+    /// Domingos' c1 at the point.
+    pub c1: f64,
+    /// Domingos' c2 at the point.
+    pub c2: f64,
+    /// The terms at this point (`expected_loss_direct` is NaN: not tracked per point).
+    pub terms: ZeroOneTerms,
+}
+
+/// Vote counts of cell (g, e), one per class.
+pub fn cell(acc: &Acc, g: usize, e: usize) -> &[u32] {
+    let k = acc.shape.classes;
+    let i = (g * acc.shape.points + e) * k;
+    &acc.counts[VOTES][i..i + k]
+}
+
+pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
+    debug_assert_eq!(p_true.len(), acc.shape.classes);
+    let counts = cell(acc, g, e);
+    let votes = acc.count[e] * acc.shape.fits as u64;
+    let r = votes as f64;
     let q = |c: usize| counts[c] as f64 / r;
 
     let bayes = argmax_first(p_true.iter().copied());
@@ -331,7 +231,7 @@ pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoi
     let sum_pt2: f64 = p_true.iter().map(|p| p * p).sum();
     let kw_noise = 0.5 * (1.0 - sum_pt2);
 
-    if acc.n == 0 {
+    if votes == 0 {
         let nan = f64::NAN;
         return ZeroOnePoint {
             main_prediction: main,
@@ -347,6 +247,7 @@ pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoi
                 unbiased_variance: nan,
                 biased_variance: nan,
                 net_variance: nan,
+                noise_term: nan,
                 kw_noise,
                 kw_bias_sq: nan,
                 kw_variance: nan,
@@ -357,7 +258,7 @@ pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoi
     }
 
     // Master identity: label and prediction are independent given x.
-    let agree: f64 = (0..acc.classes).map(|c| p_true[c] * q(c)).sum();
+    let agree: f64 = (0..acc.shape.classes).map(|c| p_true[c] * q(c)).sum();
     let expected_loss = 1.0 - agree;
 
     // Domingos (2000).
@@ -366,7 +267,7 @@ pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoi
     let (c1, c2) = coefficients_with(p_true, q, bayes, main);
 
     // Kohavi & Wolpert (1996) with the unbiased Σ p_D² = Σ n_c(n_c − 1)/(R(R − 1)).
-    let (kw_bias_sq, kw_variance) = if acc.n >= 2 {
+    let (kw_bias_sq, kw_variance) = if votes >= 2 {
         let s: f64 = counts
             .iter()
             .map(|&n| {
@@ -398,6 +299,7 @@ pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoi
             unbiased_variance: (1.0 - bias) * variance,
             biased_variance: bias * variance,
             net_variance: c2 * variance,
+            noise_term: c1 * noise,
             kw_noise,
             kw_bias_sq,
             kw_variance,
@@ -407,106 +309,476 @@ pub fn point(acc: &ZeroOneAcc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoi
     }
 }
 
-/// Computes the terms per grid value, averaged over evaluation points, from a folded accumulator.
-/// `p_true` is `points × K` row-major (the class probabilities at each evaluation point).
-pub fn terms(acc: &ZeroOneAcc, p_true: &[f64]) -> Vec<ZeroOneTerms> {
-    let k = acc.classes;
-    debug_assert_eq!(p_true.len(), acc.points * k);
-    let m = acc.points as f64;
-    (0..acc.grid)
-        .map(|g| {
-            let mut t = ZeroOneTerms::default();
-            for e in 0..acc.points {
-                let p = point(acc, g, e, &p_true[e * k..(e + 1) * k]).terms;
-                t.expected_loss += p.expected_loss;
-                t.noise += p.noise;
-                t.bias += p.bias;
-                t.variance += p.variance;
-                t.unbiased_variance += p.unbiased_variance;
-                t.biased_variance += p.biased_variance;
-                t.net_variance += p.net_variance;
-                t.kw_noise += p.kw_noise;
-                t.kw_bias_sq += p.kw_bias_sq;
-                t.kw_variance += p.kw_variance;
-                t.james_systematic += p.james_systematic;
-                t.james_variance += p.james_variance;
-            }
-            for v in [
-                &mut t.expected_loss,
-                &mut t.noise,
-                &mut t.bias,
-                &mut t.variance,
-                &mut t.unbiased_variance,
-                &mut t.biased_variance,
-                &mut t.net_variance,
-                &mut t.kw_noise,
-                &mut t.kw_bias_sq,
-                &mut t.kw_variance,
-                &mut t.james_systematic,
-                &mut t.james_variance,
-            ] {
-                *v /= m;
-            }
-            t.expected_loss_direct = if acc.n > 0 {
-                acc.direct[g] / acc.n as f64
-            } else {
-                f64::NAN
-            };
-            t
-        })
-        .collect()
+fn info(
+    key: &'static str,
+    label: &'static str,
+    meaning: &'static str,
+    role: Role,
+    group: Group,
+    stderr: bool,
+) -> TermInfo {
+    TermInfo {
+        key,
+        label,
+        meaning,
+        role,
+        group,
+        estimated: false,
+        stderr,
+    }
 }
 
-/// Folds blocks in index order and computes terms with delete-a-block jackknife standard errors
-/// (via [`jackknife_se`]). Returns `None` for an empty block list.
-pub fn summarize(blocks: &[ZeroOneAcc], p_true: &[f64]) -> Option<ZeroOneSummary> {
-    let total = ZeroOneAcc::fold(blocks, None)?;
-    let full = terms(&total, p_true);
-    let nb = blocks.len();
-    let mut loo: Vec<Vec<ZeroOneTerms>> = Vec::with_capacity(nb);
-    if nb >= 2 {
-        for b in 0..nb {
-            let acc = ZeroOneAcc::fold(blocks, Some(b)).expect("at least one block remains");
-            loo.push(terms(&acc, p_true));
+/// The class probabilities standing for the truth at point `e`: the known `p_t`, or the one-hot
+/// vector of the observed label.
+fn truth_probs<'a>(target: &'a Target<'_>, e: usize, k: usize, buf: &'a mut Vec<f64>) -> &'a [f64] {
+    match target {
+        Target::Known { probs, .. } => match probs {
+            Some(p) => &p[e * k..(e + 1) * k],
+            None => {
+                buf.clear();
+                buf.resize(k, f64::NAN);
+                buf
+            }
+        },
+        Target::Observed { y, .. } => {
+            buf.clear();
+            buf.resize(k, 0.0);
+            let c = y[e] as usize;
+            if c < k {
+                buf[c] = 1.0;
+            }
+            buf
         }
     }
-    let stderr = (0..total.grid)
-        .map(|g| {
-            let se = |f: fn(&ZeroOneTerms) -> f64| {
-                if loo.is_empty() {
-                    f64::NAN
-                } else {
-                    jackknife_se(&loo.iter().map(|t| f(&t[g])).collect::<Vec<_>>())
+}
+
+/// Averages of the point terms at grid value `g` over the used points (every point with a vote
+/// for a known truth; points held out at least twice for observed labels).
+fn averages(acc: &Acc, target: &Target<'_>, g: usize) -> (ZeroOneTerms, usize) {
+    let k = acc.shape.classes;
+    let min = if target.observed() { 2 } else { 1 };
+    let mut t = ZeroOneTerms::default();
+    let mut used = 0usize;
+    let mut buf = Vec::with_capacity(k);
+    for e in 0..acc.shape.points {
+        if acc.count[e] < min {
+            continue;
+        }
+        used += 1;
+        let pt = truth_probs(target, e, k, &mut buf);
+        let p = point(acc, g, e, pt).terms;
+        t.expected_loss += p.expected_loss;
+        t.noise += p.noise;
+        t.bias += p.bias;
+        t.variance += p.variance;
+        t.unbiased_variance += p.unbiased_variance;
+        t.biased_variance += p.biased_variance;
+        t.net_variance += p.net_variance;
+        t.noise_term += p.noise_term;
+        t.kw_noise += p.kw_noise;
+        t.kw_bias_sq += p.kw_bias_sq;
+        t.kw_variance += p.kw_variance;
+        t.james_systematic += p.james_systematic;
+        t.james_variance += p.james_variance;
+    }
+    let m = if acc.shape.all_points && !target.observed() {
+        acc.shape.points as f64
+    } else {
+        used as f64
+    };
+    for v in [
+        &mut t.expected_loss,
+        &mut t.noise,
+        &mut t.bias,
+        &mut t.variance,
+        &mut t.unbiased_variance,
+        &mut t.biased_variance,
+        &mut t.net_variance,
+        &mut t.noise_term,
+        &mut t.kw_noise,
+        &mut t.kw_bias_sq,
+        &mut t.kw_variance,
+        &mut t.james_systematic,
+        &mut t.james_variance,
+    ] {
+        *v /= m;
+    }
+    t.expected_loss_direct = if acc.shape.all_points {
+        acc.floats[DIRECT][g] / acc.replicates as f64
+    } else {
+        t.expected_loss
+    };
+    (t, used)
+}
+
+impl Loss for ZeroOne {
+    fn name(&self) -> &'static str {
+        "zero_one"
+    }
+
+    fn supports(&self, task: Task) -> bool {
+        matches!(task, Task::Classify { .. })
+    }
+
+    fn bias_word(&self) -> &'static str {
+        "Bias (Domingos)"
+    }
+
+    fn observed_note(&self) -> &'static str {
+        " (On a table, the bias is measured against the observed labels, noise included.)"
+    }
+
+    fn layout(&self, shape: &Shape) -> Vec<ArraySpec> {
+        let mut v = vec![ArraySpec {
+            name: "votes",
+            kind: Kind::Count,
+            len: shape.cells() * shape.classes,
+            non_negative: true,
+        }];
+        if shape.all_points {
+            v.push(ArraySpec {
+                name: "direct",
+                kind: Kind::Float,
+                len: shape.grid,
+                non_negative: true,
+            });
+        }
+        v
+    }
+
+    fn push(&self, acc: &mut Acc, batch: &Batch<'_>) {
+        let sh = acc.shape;
+        let k = sh.classes;
+        let s_fits = batch.values.dim().0;
+        let m = batch.len() as f64;
+        for g in 0..sh.grid {
+            let mut direct_g = 0.0;
+            for s in 0..s_fits {
+                let row = batch.values.slice(ndarray::s![s, g, ..]);
+                let mut wrong = 0usize;
+                for (j, &y) in row.iter().enumerate() {
+                    let e = batch.point(j);
+                    let c = y as usize;
+                    debug_assert!(y >= 0.0 && y.fract() == 0.0 && c < k, "bad class {y}");
+                    acc.counts[VOTES][(g * sh.points + e) * k + c] += 1;
+                    wrong += usize::from(y != batch.response[j]);
                 }
-            };
-            ZeroOneTerms {
-                expected_loss: se(|t| t.expected_loss),
-                expected_loss_direct: se(|t| t.expected_loss_direct),
-                noise: 0.0,
-                bias: se(|t| t.bias),
-                variance: se(|t| t.variance),
-                unbiased_variance: se(|t| t.unbiased_variance),
-                biased_variance: se(|t| t.biased_variance),
-                net_variance: se(|t| t.net_variance),
-                kw_noise: 0.0,
-                kw_bias_sq: se(|t| t.kw_bias_sq),
-                kw_variance: se(|t| t.kw_variance),
-                james_systematic: se(|t| t.james_systematic),
-                james_variance: se(|t| t.james_variance),
+                direct_g += wrong as f64 / m;
             }
-        })
-        .collect();
-    Some(ZeroOneSummary {
-        terms: full,
-        stderr,
-        total,
-    })
+            if s_fits > 1 {
+                direct_g /= s_fits as f64;
+            }
+            if sh.all_points {
+                acc.floats[DIRECT][g] += direct_g;
+            }
+        }
+    }
+
+    fn merge(&self, acc: &mut Acc, other: &Acc) {
+        for (a, b) in acc.counts[VOTES].iter_mut().zip(&other.counts[VOTES]) {
+            *a += b;
+        }
+        if acc.shape.all_points {
+            for (a, b) in acc.floats[DIRECT].iter_mut().zip(&other.floats[DIRECT]) {
+                *a += b;
+            }
+        }
+    }
+
+    fn describe(&self, _shape: &Shape, observed: bool) -> Vec<TermInfo> {
+        use Group::{Detail, James, KohaviWolpert, Main};
+        let mut v = vec![
+            info(
+                "expected_loss",
+                if observed { "expected loss (OOB)" } else { "expected loss" },
+                if observed {
+                    "out-of-bag misclassification rate 1 − p_D(observed label)"
+                } else {
+                    "misclassification rate 1 − Σ p_true·p_predicted, averaged over evaluation points"
+                },
+                Role::Loss,
+                Main,
+                true,
+            ),
+            info(
+                "bias",
+                if observed { "bias+noise" } else { "bias" },
+                if observed {
+                    "share of rows whose majority out-of-bag prediction is not the observed label (Domingos 2000, noise folded in)"
+                } else {
+                    "Domingos (2000): share of points whose majority prediction is not the Bayes class"
+                },
+                Role::Bias,
+                Main,
+                true,
+            ),
+            info(
+                "variance",
+                "variance",
+                "Domingos: share of predictions differing from the majority prediction",
+                Role::Variance,
+                Main,
+                true,
+            ),
+            info(
+                "noise",
+                if observed { "noise" } else { "noise (Bayes)" },
+                if observed {
+                    "unknown on a table (folded into the bias)"
+                } else {
+                    "Bayes error 1 − max p_true"
+                },
+                Role::Noise,
+                if observed { Detail } else { Main },
+                false,
+            ),
+            info(
+                "expected_loss_direct",
+                "direct check",
+                "misclassification rate against fresh labels, an independent estimate of the expected loss",
+                Role::Direct,
+                if observed { Detail } else { Main },
+                true,
+            ),
+            info(
+                "net_variance",
+                "net variance",
+                "Domingos: c2·variance averaged (unbiased minus biased variance for two classes)",
+                Role::Other,
+                Main,
+                true,
+            ),
+            info(
+                "unbiased_variance",
+                "unbiased var",
+                "Domingos: variance where the majority prediction is right",
+                Role::Other,
+                Detail,
+                true,
+            ),
+            info(
+                "biased_variance",
+                "biased var",
+                "Domingos: variance where the majority prediction is wrong",
+                Role::Other,
+                Detail,
+                true,
+            ),
+        ];
+        if !observed {
+            v.extend([
+                info(
+                    "kohavi_wolpert.noise",
+                    "KW noise",
+                    "Kohavi-Wolpert (1996): ½(1 − Σ p_true²)",
+                    Role::Noise,
+                    KohaviWolpert,
+                    true,
+                ),
+                info(
+                    "kohavi_wolpert.bias_sq",
+                    "KW bias²",
+                    "Kohavi-Wolpert: ½ Σ (p_true − p_predicted)², finite-R corrected",
+                    Role::Bias,
+                    KohaviWolpert,
+                    true,
+                ),
+                info(
+                    "kohavi_wolpert.variance",
+                    "KW variance",
+                    "Kohavi-Wolpert: ½(1 − Σ p_predicted²), finite-R corrected",
+                    Role::Variance,
+                    KohaviWolpert,
+                    true,
+                ),
+                info(
+                    "james.systematic_effect",
+                    "systematic effect",
+                    "James (2003): p_true(Bayes class) − p_true(majority prediction)",
+                    Role::Bias,
+                    James,
+                    true,
+                ),
+                info(
+                    "james.variance_effect",
+                    "variance effect",
+                    "James (2003): p_true(majority prediction) − Σ p_true·p_predicted",
+                    Role::Variance,
+                    James,
+                    true,
+                ),
+                info(
+                    "noise_term",
+                    "c1·noise",
+                    "Domingos: the noise as it enters the loss, c1·noise averaged, so that expected loss = c1·noise + bias + net variance",
+                    Role::Other,
+                    Main,
+                    true,
+                ),
+            ]);
+        }
+        v
+    }
+
+    fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
+        let observed = target.observed();
+        (0..acc.shape.grid)
+            .map(|g| {
+                let (t, used) = averages(acc, target, g);
+                let mut row = vec![
+                    t.expected_loss,
+                    t.bias,
+                    t.variance,
+                    t.noise,
+                    t.expected_loss_direct,
+                    t.net_variance,
+                    t.unbiased_variance,
+                    t.biased_variance,
+                ];
+                if !observed {
+                    row.extend([
+                        t.kw_noise,
+                        t.kw_bias_sq,
+                        t.kw_variance,
+                        t.james_systematic,
+                        t.james_variance,
+                        t.noise_term,
+                    ]);
+                }
+                if used == 0 {
+                    row.iter_mut().for_each(|v| *v = f64::NAN);
+                }
+                row
+            })
+            .collect()
+    }
+
+    fn validate(&self, acc: &Acc) -> Result<(), String> {
+        let k = acc.shape.classes.max(1);
+        for (cell, votes) in acc.counts[VOTES].chunks(k).enumerate() {
+            let e = cell % acc.shape.points.max(1);
+            let want = acc.count[e] * acc.shape.fits as u64;
+            if votes.iter().map(|&v| u64::from(v)).sum::<u64>() != want {
+                return Err(format!(
+                    "votes: the counts of cell {cell} do not add up to {want}"
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    fn observed_loss(&self, value: f64, _probs: Option<&[f64]>, y: f64) -> f64 {
+        if value == y {
+            0.0
+        } else {
+            1.0
+        }
+    }
+
+    fn point_columns(&self, _shape: &Shape, observed: bool) -> Vec<(&'static str, bool)> {
+        if observed {
+            vec![
+                ("observed", true),
+                ("held_out_replicates", false),
+                ("main_prediction", true),
+                ("bias_plus_noise", false),
+                ("variance", false),
+            ]
+        } else {
+            vec![
+                ("bayes_class", true),
+                ("main_prediction", true),
+                ("expected_loss", false),
+                ("noise", false),
+                ("bias", false),
+                ("variance", false),
+                ("c1", false),
+                ("c2", false),
+                ("kw_bias_sq", false),
+                ("kw_variance", false),
+                ("james_systematic_effect", false),
+                ("james_variance_effect", false),
+            ]
+        }
+    }
+
+    fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64> {
+        let k = acc.shape.classes;
+        let mut buf = Vec::with_capacity(k);
+        let pt = truth_probs(target, e, k, &mut buf).to_vec();
+        let p = point(acc, g, e, &pt);
+        let t = &p.terms;
+        match target {
+            Target::Observed { y, .. } => {
+                let ok = acc.count[e] >= 2;
+                vec![
+                    y[e],
+                    acc.count[e] as f64,
+                    p.main_prediction as f64,
+                    if ok { t.bias } else { f64::NAN },
+                    if ok { t.variance } else { f64::NAN },
+                ]
+            }
+            Target::Known { .. } => vec![
+                p.bayes_class as f64,
+                p.main_prediction as f64,
+                t.expected_loss,
+                t.noise,
+                t.bias,
+                t.variance,
+                p.c1,
+                p.c2,
+                t.kw_bias_sq,
+                t.kw_variance,
+                t.james_systematic,
+                t.james_variance,
+            ],
+        }
+    }
 }
 
 #[cfg(test)]
 mod tests {
     use super::*;
-    use ndarray::Array2;
+    use crate::decompose::{summarize, Acc};
+    use ndarray::{Array2, Array3};
+
+    fn shape(g: usize, m: usize, k: usize) -> Shape {
+        Shape {
+            grid: g,
+            points: m,
+            classes: k,
+            fits: 1,
+            all_points: true,
+            ensemble: false,
+        }
+    }
+
+    fn new_acc(g: usize, m: usize, k: usize) -> Acc {
+        Acc::new(&ZeroOne, shape(g, m, k))
+    }
+
+    /// Pushes one replicate's predictions (`g × m`) against fresh labels `response`.
+    fn push(acc: &mut Acc, preds: &Array2<f64>, response: &[f64]) {
+        let (g, m) = preds.dim();
+        let v = Array3::from_shape_vec((1, g, m), preds.iter().copied().collect()).unwrap();
+        let b = Batch {
+            held: None,
+            values: v.view(),
+            probs: None,
+            diversity: None,
+            response,
+        };
+        acc.push(&ZeroOne, &b);
+    }
+
+    fn known<'a>(p: &'a [f64], noise: &'a [f64]) -> Target<'a> {
+        Target::Known {
+            truth: noise,
+            noise_var: noise,
+            probs: Some(p),
+        }
+    }
 
     const TOL: f64 = 1e-12;
 
@@ -562,11 +834,12 @@ mod tests {
     }
 
     /// One grid value, one point per count vector.
-    fn acc_from(counts: &[Vec<u32>], k: usize, r: u64) -> ZeroOneAcc {
-        let mut acc = ZeroOneAcc::new(1, counts.len(), k);
-        acc.n = r;
+    fn acc_from(counts: &[Vec<u32>], k: usize, r: u64) -> Acc {
+        let mut acc = new_acc(1, counts.len(), k);
+        acc.replicates = r;
+        acc.count.iter_mut().for_each(|c| *c = r);
         for (e, c) in counts.iter().enumerate() {
-            acc.counts[e * k..(e + 1) * k].copy_from_slice(c);
+            acc.counts[0][e * k..(e + 1) * k].copy_from_slice(c);
         }
         acc
     }
@@ -714,10 +987,12 @@ mod tests {
         let (k, m, r) = (3, 40, 12);
         let mut s = 21u64;
         let p: Vec<f64> = (0..m).flat_map(|_| simplex(&mut s, k)).collect();
-        let mut acc = ZeroOneAcc::new(2, m, k);
+        let mut acc = new_acc(2, m, k);
         let preds = Array2::<f64>::from_elem((2, m), 1.0);
+        // Fresh labels: class 1 at a quarter of the points, so a quarter is right.
+        let fresh: Vec<f64> = (0..m).map(|e| if e % 4 == 0 { 1.0 } else { 0.0 }).collect();
         for _ in 0..r {
-            acc.push(preds.view(), &[0.25, 0.5]);
+            push(&mut acc, &preds, &fresh);
         }
         let mut misses = 0;
         for e in 0..m {
@@ -733,13 +1008,16 @@ mod tests {
             misses += expect_bias as usize;
         }
         assert!(misses > 0 && misses < m);
-        let tt = terms(&acc, &p);
-        assert_eq!(tt[0].variance, 0.0);
-        assert_eq!(tt[0].kw_variance, 0.0);
-        assert_eq!(tt[0].james_variance, 0.0);
-        assert_eq!(tt[0].bias, misses as f64 / m as f64);
-        assert_eq!(tt[0].expected_loss_direct, 0.25);
-        assert_eq!(tt[1].expected_loss_direct, 0.5);
+        let zeros = vec![0.0; m];
+        let tt = ZeroOne.evaluate(&acc, &known(&p, &zeros));
+        let d = ZeroOne.describe(&acc.shape, false);
+        let at = |k: &str| d.iter().position(|t| t.key == k).unwrap();
+        assert_eq!(tt[0][at("variance")], 0.0);
+        assert_eq!(tt[0][at("kohavi_wolpert.variance")], 0.0);
+        assert_eq!(tt[0][at("james.variance_effect")], 0.0);
+        assert_eq!(tt[0][at("bias")], misses as f64 / m as f64);
+        assert_eq!(tt[0][at("expected_loss_direct")], 0.75);
+        assert_eq!(tt[1][at("expected_loss_direct")], 0.75);
     }
 
     #[test]
@@ -749,9 +1027,9 @@ mod tests {
         let (k, r) = (4, 9);
         let mut s = 33u64;
         let labels: Vec<usize> = (0..r).map(|_| below(&mut s, k)).collect();
-        let mut acc = ZeroOneAcc::new(1, 1, k);
+        let mut acc = new_acc(1, 1, k);
         for &c in &labels {
-            acc.push(Array2::from_elem((1, 1), c as f64).view(), &[0.0]);
+            push(&mut acc, &Array2::from_elem((1, 1), c as f64), &[0.0]);
         }
         let mut agree = 0usize;
         for a in 0..r {
@@ -764,13 +1042,13 @@ mod tests {
         assert!((t.kw_variance - 0.5 * (1.0 - pair_share)).abs() < TOL);
     }
 
-    fn random_blocks(sizes: &[usize]) -> (Vec<ZeroOneAcc>, ZeroOneAcc) {
+    fn random_blocks(sizes: &[usize]) -> (Vec<Acc>, Acc) {
         let (g, m, k) = (3, 8, 3);
         let mut s = 77u64;
-        let mut all = ZeroOneAcc::new(g, m, k);
+        let mut all = new_acc(g, m, k);
         let mut blocks = Vec::new();
         for &size in sizes {
-            let mut b = ZeroOneAcc::new(g, m, k);
+            let mut b = new_acc(g, m, k);
             for _ in 0..size {
                 let mut p = Array2::<f64>::zeros((g, m));
                 // grid value g leans towards class g so the terms differ across the grid
@@ -781,10 +1059,10 @@ mod tests {
                         below(&mut s, k) as f64
                     };
                 }
-                // dyadic direct shares: sums are exact in any order
-                let d: Vec<f64> = (0..g).map(|_| below(&mut s, 8) as f64 / 8.0).collect();
-                all.push(p.view(), &d);
-                b.push(p.view(), &d);
+                // m = 8 points: dyadic direct shares, so sums are exact in any order
+                let d: Vec<f64> = (0..m).map(|_| below(&mut s, k) as f64).collect();
+                push(&mut all, &p, &d);
+                push(&mut b, &p, &d);
             }
             blocks.push(b);
         }
@@ -794,62 +1072,95 @@ mod tests {
     #[test]
     fn merged_blocks_equal_one_accumulator_over_all_replicates() {
         let (blocks, all) = random_blocks(&[7, 5, 9, 1]);
-        let folded = ZeroOneAcc::fold(&blocks, None).unwrap();
+        let folded = Acc::fold(&ZeroOne, &blocks).unwrap();
         assert_eq!(folded, all);
-        let mut skipped = ZeroOneAcc::fold(&blocks, Some(1)).unwrap();
-        assert_eq!(skipped.n, 17);
-        skipped.merge(&ZeroOneAcc::new(3, 8, 3));
-        assert_eq!(skipped.n, 17);
-        assert!(ZeroOneAcc::fold(&[], None).is_none());
+        let mut skipped = Acc::fold(&ZeroOne, [&blocks[0], &blocks[2], &blocks[3]]).unwrap();
+        assert_eq!(skipped.replicates, 17);
+        skipped.merge(&ZeroOne, &new_acc(3, 8, 3));
+        assert_eq!(skipped.replicates, 17);
+        assert!(Acc::fold(&ZeroOne, &[]).is_none());
     }
 
     #[test]
     fn jackknife_errors_are_nan_for_one_block_and_finite_for_several() {
         let mut s = 2u64;
         let p: Vec<f64> = (0..8).flat_map(|_| simplex(&mut s, 3)).collect();
+        let zeros = vec![0.0; 8];
         let (blocks, all) = random_blocks(&[10, 10, 10, 10, 10]);
+        let target = known(&p, &zeros);
 
-        let one = summarize(std::slice::from_ref(&all), &p).unwrap();
-        assert!(one.stderr.iter().all(|t| t.expected_loss.is_nan()
-            && t.variance.is_nan()
-            && t.kw_variance.is_nan()
-            && t.james_variance.is_nan()));
-        assert!(one
-            .stderr
-            .iter()
-            .all(|t| t.noise == 0.0 && t.kw_noise == 0.0));
+        let one = summarize(&ZeroOne, std::slice::from_ref(&all), &target).unwrap();
+        assert!(one.stderr.iter().all(|r| r.iter().all(|v| v.is_nan())));
 
-        let several = summarize(&blocks, &p).unwrap();
+        let several = summarize(&ZeroOne, &blocks, &target).unwrap();
         assert_eq!(several.total, all);
-        assert_eq!(several.terms, one.terms);
-        for t in &several.stderr {
-            for v in [
-                t.expected_loss,
-                t.expected_loss_direct,
-                t.bias,
-                t.variance,
-                t.unbiased_variance,
-                t.biased_variance,
-                t.net_variance,
-                t.kw_bias_sq,
-                t.kw_variance,
-                t.james_systematic,
-                t.james_variance,
-            ] {
-                assert!(v.is_finite() && v >= 0.0);
+        assert_eq!(several.values, one.values);
+        let noise = several.index("noise").unwrap();
+        let kw_noise = several.index("kohavi_wolpert.noise").unwrap();
+        for r in &several.stderr {
+            for (i, v) in r.iter().enumerate() {
+                if i == noise {
+                    assert!(v.is_nan(), "noise has no standard error");
+                } else if i == kw_noise {
+                    assert_eq!(*v, 0.0, "a known term does not move");
+                } else {
+                    assert!(v.is_finite() && *v >= 0.0, "term {i}: {v}");
+                }
             }
-            assert!(t.expected_loss > 0.0);
+            assert!(r[0] > 0.0);
         }
-        assert!(summarize(&[], &p).is_none());
+        assert!(summarize(&ZeroOne, &[], &target).is_none());
     }
 
     #[test]
     fn an_empty_accumulator_gives_nan_estimates_and_the_known_noise() {
-        let acc = ZeroOneAcc::new(1, 1, 2);
-        let t = terms(&acc, &[0.3, 0.7]);
-        assert!(t[0].expected_loss.is_nan() && t[0].expected_loss_direct.is_nan());
-        assert!((t[0].noise - 0.3).abs() < TOL);
+        let acc = new_acc(1, 1, 2);
+        let t = point(&acc, 0, 0, &[0.3, 0.7]).terms;
+        assert!(t.expected_loss.is_nan() && t.expected_loss_direct.is_nan());
+        assert!((t.noise - 0.3).abs() < TOL);
         // Kohavi–Wolpert noise ½(1 − Σ p_t²) = ½(1 − 0.58) = 0.21
-        assert!((t[0].kw_noise - 0.21).abs() < TOL);
+        assert!((t.kw_noise - 0.21).abs() < TOL);
+    }
+
+    #[test]
+    fn observed_labels_give_the_out_of_bag_error_and_domingos_against_the_label() {
+        // Exact (Domingos 2000 with the observed label in place of the Bayes class):
+        // loss_i = 1 − p_D(y_i) and loss = B + c2·V.
+        let sh = Shape {
+            grid: 1,
+            points: 3,
+            classes: 3,
+            fits: 1,
+            all_points: false,
+            ensemble: false,
+        };
+        let y = [0.0, 1.0, 2.0];
+        let mut acc = Acc::new(&ZeroOne, sh);
+        for v in [
+            [0.0, 0.0, 1.0],
+            [0.0, 1.0, 1.0],
+            [2.0, 1.0, 0.0],
+            [0.0, 1.0, 2.0],
+        ] {
+            let p = Array3::from_shape_vec((1, 1, 3), v.to_vec()).unwrap();
+            let held = [0usize, 1, 2];
+            let b = Batch {
+                held: Some(&held),
+                values: p.view(),
+                probs: None,
+                diversity: None,
+                response: &y,
+            };
+            acc.push(&ZeroOne, &b);
+        }
+        let target = Target::Observed { y: &y, noise: None };
+        let r = &ZeroOne.evaluate(&acc, &target)[0];
+        // Row 0: predictions 0,0,2,0 → main 0 = y, loss 1/4, V 1/4. Row 1: 0,1,1,1 → main 1 = y,
+        // loss 1/4, V 1/4. Row 2: 1,1,0,2 → main 1 ≠ y = 2, B = 1, loss 3/4, V 1/2, c2·V = −1/4.
+        approx::assert_relative_eq!(r[0], 1.25 / 3.0, max_relative = 1e-14);
+        approx::assert_relative_eq!(r[1], 1.0 / 3.0, max_relative = 1e-14);
+        approx::assert_relative_eq!(r[2], 1.0 / 3.0, max_relative = 1e-14);
+        approx::assert_relative_eq!(r[5], 0.25 / 3.0, max_relative = 1e-12);
+        approx::assert_relative_eq!(r[7], 0.5 / 3.0, max_relative = 1e-14);
     }
 }

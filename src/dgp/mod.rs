@@ -2,6 +2,8 @@
 //! published test function) and the noise model. Everything here is deterministic given the
 //! random stream handed in; the runner owns the streams.
 
+pub mod reference;
+
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::Rng;
 use rand_distr::{Distribution, StandardNormal};
@@ -150,7 +152,7 @@ pub enum Truth {
     /// A published test function.
     Builtin(Builtin),
     /// A twin's reference fit on a table.
-    Reference(std::sync::Arc<crate::twin::Reference>),
+    Reference(std::sync::Arc<reference::Reference>),
 }
 
 impl Truth {
@@ -180,7 +182,7 @@ pub enum Noise {
     /// σ(x) as a formula over the inputs.
     Formula(Formula),
     /// A twin's varying noise: σ²(x) from the reference's smoothed squared residuals.
-    Reference(std::sync::Arc<crate::twin::Reference>),
+    Reference(std::sync::Arc<reference::Reference>),
 }
 
 impl Noise {
@@ -211,7 +213,7 @@ pub enum ClassKind {
         flip: f64,
     },
     /// A twin's reference fit: neighbour shares with add-one smoothing.
-    Reference(std::sync::Arc<crate::twin::Reference>),
+    Reference(std::sync::Arc<reference::Reference>),
 }
 
 /// A classification response: labels and P(Y = c | x).
@@ -282,7 +284,7 @@ impl Synthetic {
     pub fn draw_inputs<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Array2<f64> {
         let p = self.inputs.len();
         if let Some(rows) = self.empirical_rows() {
-            return crate::twin::resample_rows(rows, n, rng);
+            return reference::resample_rows(rows, n, rng);
         }
         let mut x = Array2::<f64>::zeros((n, p));
         // Column by column so that each input's draws do not depend on the other inputs' kinds.
@@ -322,6 +324,39 @@ impl Synthetic {
                 if std::sync::Arc::ptr_eq(r, rows) && *column == j)
         }) && rows.ncols() == self.inputs.len();
         all.then_some(rows.as_ref())
+    }
+
+    /// A digest of the data behind a twin's reference (its responses, bit for bit); 0 for any
+    /// other process.
+    pub fn reference_digest(&self) -> u64 {
+        let r = match &self.response {
+            Response::Regression {
+                truth: Truth::Reference(r),
+                ..
+            } => r,
+            Response::Classes(ClassModel {
+                kind: ClassKind::Reference(r),
+                ..
+            }) => r,
+            _ => return 0,
+        };
+        r.digest()
+    }
+
+    /// The table file a twin's reference was fitted on (an input of the run); `None` for any
+    /// other process.
+    pub fn source_file(&self) -> Option<std::path::PathBuf> {
+        match &self.response {
+            Response::Regression {
+                truth: Truth::Reference(r),
+                ..
+            } => r.path.clone(),
+            Response::Classes(ClassModel {
+                kind: ClassKind::Reference(r),
+                ..
+            }) => r.path.clone(),
+            _ => None,
+        }
     }
 
     /// `true` for a twin (inputs resampled from a table's rows).

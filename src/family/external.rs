@@ -39,7 +39,39 @@ use std::time::{Duration, Instant};
 
 use ndarray::ArrayViewMut2;
 
-use super::{Family, FitError, FitInput, Task};
+use super::{BuildContext, Family, FitError, FitInput, OptionError, Options, Out, Task};
+
+/// Builds `family = "external"` from `command`, `knob`, `timeout_seconds` and
+/// `larger_is_simpler`.
+pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+    let missing = |key: &str, message: &str| OptionError {
+        key: key.to_string(),
+        message: message.to_string(),
+    };
+    let command = opts.strings("command")?.ok_or_else(|| {
+        missing(
+            "command",
+            "family `external` needs `command`, e.g. command = [\"python3\", \"my_model.py\"]",
+        )
+    })?;
+    let knob = opts.string("knob")?.ok_or_else(|| {
+        missing(
+            "knob",
+            "family `external` needs `knob`, the name of the knob the grid sets",
+        )
+    })?;
+    let timeout = opts
+        .number("timeout_seconds", f64::MIN_POSITIVE, 1e6)?
+        .unwrap_or(DEFAULT_TIMEOUT_SECONDS);
+    let larger_is_simpler = opts.boolean("larger_is_simpler")?.unwrap_or(false);
+    let mut fam =
+        ExternalFamily::new(&command, &knob, timeout, cx.base).map_err(|e| OptionError {
+            key: e.key.to_string(),
+            message: e.message,
+        })?;
+    fam.larger_is_simpler = larger_is_simpler;
+    Ok(Arc::new(fam))
+}
 
 /// Version of the line protocol spoken (the `hello` line carries it).
 pub const PROTOCOL_VERSION: u32 = 1;
@@ -133,6 +165,8 @@ pub struct ExternalFamily {
     idle: Mutex<Vec<Worker>>,
     /// The first failure; later fits repeat it without starting processes.
     failed: Mutex<Option<String>>,
+    /// Whether a larger knob value is the simpler model (scenario option `larger_is_simpler`).
+    pub larger_is_simpler: bool,
 }
 
 impl std::fmt::Debug for ExternalFamily {
@@ -186,6 +220,7 @@ impl ExternalFamily {
             dir: (!dir.as_os_str().is_empty()).then(|| dir.to_path_buf()),
             idle: Mutex::new(Vec::new()),
             failed: Mutex::new(None),
+            larger_is_simpler: false,
         })
     }
 
@@ -549,6 +584,10 @@ impl Family for ExternalFamily {
         self.knob
     }
 
+    fn larger_is_simpler(&self) -> bool {
+        self.larger_is_simpler
+    }
+
     /// Any non-empty grid of finite numbers: the process judges its own knob values (it answers
     /// `error` for values it cannot use).
     fn check_grid(&self, grid: &[f64], _n_train: usize, _n_inputs: usize) -> Result<(), String> {
@@ -569,8 +608,9 @@ impl Family for ExternalFamily {
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
-        mut out: ArrayViewMut2<'_, f64>,
+        out: Out<'_>,
     ) -> Result<(), FitError> {
+        let mut out = out.values;
         if let Ok(f) = self.failed.lock() {
             if let Some(msg) = f.as_ref() {
                 return Err(FitError(format!("stopped after an earlier failure: {msg}")));

@@ -33,287 +33,39 @@
 //! of one fit at `K`.
 
 use std::borrow::Cow;
+use std::sync::Arc;
 
-use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2};
+use super::neighbours::{contiguous, index_of, NeighbourIndex, Scratch};
+use super::{
+    check_out, check_whole_grid, smoothed_shares, BuildContext, Caps, Family, FitError, FitInput,
+    OptionError, Options, Out, Task,
+};
 
-use super::{check_whole_grid, Family, FitError, FitInput, Task};
+pub use super::neighbours::neighbours;
 
 /// k-nearest-neighbour regression and classification, knob `k` (whole numbers `1..=n_train`).
 ///
 /// See the [module documentation](self) for the distance, standardisation and tie rules.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
 pub struct KnnFamily {
     /// Standardise each input by the training mean and population standard deviation before
     /// computing distances. Default `false`: distances on the raw inputs.
     pub standardize: bool,
+    /// Add-α smoothing of the neighbour class shares given as probabilities:
+    /// `q_c = (count_c + α) / (k + K α)` (default 0: the plain shares).
+    pub alpha: f64,
 }
 
-/// Ordering key of a training row: squared distance in the high 64 bits, row index in the low
-/// 64 bits. For non-negative (or infinite) squared distances the IEEE-754 bit pattern orders like
-/// the value, so integer comparison of keys is exactly the (distance, index) order; a NaN
-/// distance (possible only from non-finite inputs) sorts after every number.
-#[inline]
-fn key(d2: f64, index: usize) -> u128 {
-    (u128::from(d2.to_bits()) << 64) | index as u128
-}
-
-/// Training row index stored in a key.
-#[inline]
-fn key_index(key: u128) -> usize {
-    (key & u128::from(u64::MAX)) as usize
-}
-
-/// Transposes a row-major `n × p` buffer into column-major order (column `j` occupies
-/// `[j * n, (j + 1) * n)`), applying `(v - shift) / scale` per column when a scaling is given.
-fn column_major(rows: &[f64], n: usize, p: usize, scaling: Option<&[(f64, f64)]>) -> Vec<f64> {
-    let mut cols = vec![0.0; n * p];
-    for j in 0..p {
-        let (shift, scale) = scaling.map_or((0.0, 1.0), |s| s[j]);
-        for (i, c) in cols[j * n..(j + 1) * n].iter_mut().enumerate() {
-            let v = rows[i * p + j];
-            *c = if scaling.is_some() {
-                (v - shift) / scale
-            } else {
-                v
-            };
-        }
+/// Builds `family = "knn"` from its options (`standardize`, `alpha`).
+pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+    let mut k = KnnFamily::default();
+    if let Some(s) = opts.boolean("standardize")? {
+        k.standardize = s;
     }
-    cols
-}
-
-/// Training rows per distance block: the partial sums of a block stay in registers while the
-/// inputs are scanned.
-const DIST_BLOCK: usize = 8;
-
-/// Squared Euclidean distances from `query` to every training row (`cols` column-major, `n`
-/// rows), written into `dist`. For every row the sum runs over the inputs left to right starting
-/// from 0.0, so the value does not depend on the blocking.
-fn distances_into(cols: &[f64], n: usize, query: &[f64], dist: &mut [f64]) {
-    let mut chunks = dist.chunks_exact_mut(DIST_BLOCK);
-    let mut i0 = 0;
-    for chunk in &mut chunks {
-        let mut acc = [0.0f64; DIST_BLOCK];
-        for (j, &q) in query.iter().enumerate() {
-            let c = &cols[j * n + i0..j * n + i0 + DIST_BLOCK];
-            for (a, &x) in acc.iter_mut().zip(c) {
-                let t = x - q;
-                *a += t * t;
-            }
-        }
-        chunk.copy_from_slice(&acc);
-        i0 += DIST_BLOCK;
+    if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
+        k.alpha = a;
     }
-    for (l, d) in chunks.into_remainder().iter_mut().enumerate() {
-        let i = i0 + l;
-        let mut a = 0.0;
-        for (j, &q) in query.iter().enumerate() {
-            let t = cols[j * n + i] - q;
-            a += t * t;
-        }
-        *d = a;
-    }
-}
-
-/// Coarse buckets over the distance range, used to bound the `kmax`-th distance.
-const COARSE_BUCKETS: usize = 64;
-
-/// `2^52`: for `0 <= x < 2^52`, the low 52 bits of `x + 2^52` are `x` rounded to the nearest
-/// whole number, a monotone map to integers that needs no float-to-integer conversion.
-const ROUND_MAGIC: f64 = 4_503_599_627_370_496.0;
-
-/// `x` (finite, `0 <= x < 2^52`) rounded to a whole number, monotone in `x`.
-#[inline]
-fn round_index(x: f64) -> usize {
-    ((x + ROUND_MAGIC).to_bits() & ((1 << 52) - 1)) as usize
-}
-
-/// Finds the `kmax` nearest training rows to `query` and leaves their keys, sorted ascending, in
-/// `keys[..kmax]`. `cols` holds the training inputs column-major (`n` rows, `query.len()`
-/// columns); `dist` (length `n`), `keys` and `counts` are scratch reused across queries;
-/// `1 <= kmax <= n`.
-///
-/// Squared distances are computed in blocks of training rows (see [`distances_into`]); the
-/// `kmax` smallest keys are then found by bucketing ([`bucket_nearest`]), or, when the distances
-/// are not all finite and distinct in range, by a linear-time selection over all keys.
-fn nearest_into(
-    cols: &[f64],
-    n: usize,
-    query: &[f64],
-    kmax: usize,
-    dist: &mut [f64],
-    keys: &mut Vec<u128>,
-    counts: &mut Vec<usize>,
-) {
-    distances_into(cols, n, query, dist);
-    if !bucket_nearest(dist, kmax, keys, counts) {
-        keys.clear();
-        keys.extend(dist.iter().enumerate().map(|(i, &d)| key(d, i)));
-        if kmax < keys.len() {
-            keys.select_nth_unstable(kmax - 1);
-        }
-        keys.truncate(kmax);
-        keys.sort_unstable();
-    }
-}
-
-/// Exact `kmax` smallest keys by bucketing, sorted, in `keys[..kmax]`; `false` (and nothing
-/// useful in `keys`) when the distances are not all finite or all equal.
-///
-/// Any map `d -> round((d - lo) × s)` with `s > 0`, computed in floating point, is monotone (each
-/// rounding step is), so a row in a higher bucket is strictly farther than every row in a lower
-/// one. Step 1 counts rows in [`COARSE_BUCKETS`] buckets over `[min, max]` and keeps, as
-/// candidates, the rows of the lowest buckets that together hold at least `kmax` rows: no other
-/// row can be among the `kmax` nearest. Step 2 orders the candidates by a counting sort into as
-/// many finer buckets as there are candidates, scattering them in row order, so that only rows
-/// sharing a fine bucket can be out of (distance, row) order; an insertion sort on the full keys
-/// fixes those. The cost is a few linear passes over the distances plus work proportional to the
-/// candidates, instead of a selection over all rows and a comparison sort.
-fn bucket_nearest(
-    dist: &[f64],
-    kmax: usize,
-    keys: &mut Vec<u128>,
-    counts: &mut Vec<usize>,
-) -> bool {
-    let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
-    let mut finite = true;
-    for &d in dist {
-        lo = if d < lo { d } else { lo };
-        hi = if d > hi { d } else { hi };
-        finite &= d.is_finite();
-    }
-    let scale = COARSE_BUCKETS as f64 / (hi - lo);
-    // `hi > lo` is false for equal distances (and never NaN here: the distances are finite).
-    if !finite || hi <= lo || !scale.is_finite() {
-        return false;
-    }
-    // (d - lo) × scale lies in [0, COARSE_BUCKETS] up to rounding: bucket indices 0..=COARSE_BUCKETS.
-    let coarse = |d: f64| round_index((d - lo) * scale).min(COARSE_BUCKETS);
-    let mut hist = [0usize; COARSE_BUCKETS + 1];
-    for &d in dist {
-        hist[coarse(d)] += 1;
-    }
-    let (mut c, mut last) = (0, COARSE_BUCKETS);
-    for (b, &h) in hist.iter().enumerate() {
-        c += h;
-        if c >= kmax {
-            last = b;
-            break;
-        }
-    }
-    // Candidates, in row order, into keys[..c] (branch-free: always write, advance on a hit);
-    // keys[c..2c] receives them sorted.
-    keys.clear();
-    keys.resize(2 * c + 1, 0);
-    let mut w = 0;
-    for (i, &d) in dist.iter().enumerate() {
-        keys[w] = key(d, i);
-        w += usize::from(coarse(d) <= last);
-    }
-    debug_assert_eq!(w, c);
-    let (cand, sorted) = keys.split_at_mut(c);
-    let sorted = &mut sorted[..c];
-    let dist_of = |k: u128| f64::from_bits((k >> 64) as u64);
-    let cmax = cand.iter().map(|&k| dist_of(k)).fold(lo, f64::max);
-    let fine_scale = c as f64 / (cmax - lo);
-    if cmax > lo && fine_scale.is_finite() {
-        let fine = |d: f64| round_index((d - lo) * fine_scale).min(c);
-        counts.clear();
-        counts.resize(c + 2, 0);
-        for &k in cand.iter() {
-            counts[fine(dist_of(k)) + 1] += 1;
-        }
-        for b in 1..=c + 1 {
-            counts[b] += counts[b - 1];
-        }
-        for &k in cand.iter() {
-            let b = fine(dist_of(k));
-            sorted[counts[b]] = k;
-            counts[b] += 1;
-        }
-    } else {
-        sorted.copy_from_slice(cand);
-    }
-    // Insertion sort: linear when only rows sharing a fine bucket are out of order. Many close
-    // but unequal distances in one bucket could make it quadratic: past a budget of moves, a
-    // comparison sort finishes the job (same result, the keys are distinct).
-    let mut budget = 16 * c + 64;
-    for i in 1..c {
-        let x = sorted[i];
-        let mut j = i;
-        while j > 0 && sorted[j - 1] > x {
-            sorted[j] = sorted[j - 1];
-            j -= 1;
-        }
-        sorted[j] = x;
-        budget = budget.saturating_sub(i - j);
-        if budget == 0 {
-            sorted.sort_unstable();
-            break;
-        }
-    }
-    keys.copy_within(c..c + kmax, 0);
-    keys.truncate(kmax);
-    true
-}
-
-/// Returns the rows of an `n × p` view as one contiguous row-major slice, borrowing when the view
-/// is already in standard layout and copying once otherwise.
-fn contiguous<'a>(a: &'a ArrayView2<'_, f64>) -> Cow<'a, [f64]> {
-    match a.as_slice() {
-        Some(s) => Cow::Borrowed(s),
-        None => Cow::Owned(a.iter().copied().collect()),
-    }
-}
-
-/// Indices of the `k` nearest rows of `train` to `query`, nearest first, ordered by
-/// (squared Euclidean distance, row index): of two rows at the same distance the earlier row comes
-/// first. Distances are on the values as given (no standardisation). Returns `min(k, n)` indices.
-///
-/// # Panics
-///
-/// If `query.len() != train.ncols()` (a programming error, not a user input).
-pub fn neighbours(train: ArrayView2<f64>, query: ArrayView1<f64>, k: usize) -> Vec<usize> {
-    assert_eq!(
-        query.len(),
-        train.ncols(),
-        "query length must equal the number of training columns"
-    );
-    let (n, p) = train.dim();
-    let k = k.min(n);
-    if k == 0 {
-        return Vec::new();
-    }
-    let cols = column_major(&contiguous(&train), n, p, None);
-    let q: Vec<f64> = query.iter().copied().collect();
-    let mut dist = vec![0.0; n];
-    let mut keys = Vec::with_capacity(n);
-    let mut counts = Vec::new();
-    nearest_into(&cols, n, &q, k, &mut dist, &mut keys, &mut counts);
-    keys[..k].iter().map(|&kk| key_index(kk)).collect()
-}
-
-/// Column shift and scale for standardisation: training mean and population standard deviation;
-/// a column constant in the training set gets shift 0 and scale 1 (left as is).
-fn column_scaling(x: &[f64], n: usize, p: usize) -> Vec<(f64, f64)> {
-    (0..p)
-        .map(|j| {
-            let first = x[j];
-            if (0..n).all(|i| x[i * p + j] == first) {
-                return (0.0, 1.0);
-            }
-            let mean = (0..n).map(|i| x[i * p + j]).sum::<f64>() / n as f64;
-            let var = (0..n)
-                .map(|i| (x[i * p + j] - mean) * (x[i * p + j] - mean))
-                .sum::<f64>()
-                / n as f64;
-            let sd = var.sqrt();
-            if sd > 0.0 && sd.is_finite() {
-                (mean, sd)
-            } else {
-                (0.0, 1.0)
-            }
-        })
-        .collect()
+    Ok(Arc::new(k))
 }
 
 /// Converts the grid to neighbour counts, checking each is a whole number in `1..=n`.
@@ -356,11 +108,22 @@ impl Family for KnnFamily {
         }
     }
 
+    fn larger_is_simpler(&self) -> bool {
+        true
+    }
+
+    fn caps(&self, task: Task) -> Caps {
+        Caps {
+            probabilities: matches!(task, Task::Classify { .. }),
+            ..Caps::default()
+        }
+    }
+
     fn fit_predict(
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
-        mut out: ArrayViewMut2<'_, f64>,
+        mut out: Out<'_>,
     ) -> Result<(), FitError> {
         let (n, p) = input.x.dim();
         let (m, pe) = input.eval.dim();
@@ -375,28 +138,22 @@ impl Family for KnnFamily {
                 "knn: evaluation inputs have {pe} columns, training inputs {p}"
             )));
         }
-        if out.dim() != (grid.len(), m) {
-            return Err(FitError(format!(
-                "knn: output has shape {:?}, expected ({}, {m})",
-                out.dim(),
-                grid.len()
-            )));
-        }
+        check_out("knn", &out, grid.len(), m, input.task)?;
         let ks = grid_ks(grid, n).map_err(|e| FitError(format!("knn: {e}")))?;
         if m == 0 {
             return Ok(());
         }
         let kmax = ks.iter().copied().max().unwrap_or(1);
 
-        if input
-            .x
-            .iter()
-            .chain(input.eval.iter())
-            .any(|v| !v.is_finite())
-        {
-            return Err(FitError(
-                "knn: inputs contain a non-finite value".to_string(),
-            ));
+        if let Some(((i, j), v)) = input.x.indexed_iter().find(|(_, v)| !v.is_finite()) {
+            return Err(FitError(format!(
+                "knn: training input {v} at row {i}, column {j} is not a finite number"
+            )));
+        }
+        if let Some(((i, j), v)) = input.eval.indexed_iter().find(|(_, v)| !v.is_finite()) {
+            return Err(FitError(format!(
+                "knn: evaluation input {v} at row {i}, column {j} is not a finite number"
+            )));
         }
         // Class labels are validated up front; regression reads y directly.
         let labels: Option<(Vec<usize>, usize)> = match input.task {
@@ -411,7 +168,8 @@ impl Family for KnnFamily {
                 for &c in input.y {
                     if !(c.fract() == 0.0 && c >= 0.0 && c < classes as f64) {
                         return Err(FitError(format!(
-                            "knn: class label {c} is not one of 0..{classes}"
+                            "knn: class label {c} is not one of 0..{}",
+                            classes - 1
                         )));
                     }
                     labels.push(c as usize);
@@ -424,54 +182,45 @@ impl Family for KnnFamily {
             None => Cow::Owned(input.y.to_vec()),
         };
 
-        let rows = contiguous(&input.x);
-        let scaling = self.standardize.then(|| column_scaling(&rows, n, p));
-        let cols = column_major(&rows, n, p, scaling.as_deref());
-        drop(rows);
+        let index = NeighbourIndex::new(input.x, self.standardize);
         let mut eval = contiguous(&input.eval);
-        if let Some(s) = &scaling {
+        if let Some(s) = index.standardizer() {
             let scaled = eval
                 .iter()
                 .enumerate()
-                .map(|(i, &v)| (v - s[i % p].0) / s[i % p].1)
+                .map(|(i, &v)| s.z(i % p, v))
                 .collect();
             eval = Cow::Owned(scaled);
         }
 
         // Scratch reused across evaluation points.
-        let mut dist = vec![0.0; n];
-        let mut keys: Vec<u128> = Vec::with_capacity(n);
-        let mut bucket_counts: Vec<usize> = Vec::new();
+        let mut scratch = Scratch::default();
         // by_rank[j] = prediction using the first j + 1 neighbours.
         let mut by_rank = vec![0.0; kmax];
-        let mut counts = vec![0usize; labels.as_ref().map_or(0, |l| l.1)];
-        let mut first_seen = vec![0usize; counts.len()];
+        let n_classes = labels.as_ref().map_or(0, |l| l.1);
+        let mut counts = vec![0usize; n_classes];
+        let mut first_seen = vec![0usize; n_classes];
+        // Class counts after the first j + 1 neighbours, for probabilities.
+        let want_probs = out.probs.is_some();
+        let mut counts_by_rank = vec![0.0f64; if want_probs { kmax * n_classes } else { 0 }];
+        let mut shares = vec![0.0; n_classes];
 
         for e in 0..m {
             let query = &eval[e * p..(e + 1) * p];
-            nearest_into(
-                &cols,
-                n,
-                query,
-                kmax,
-                &mut dist,
-                &mut keys,
-                &mut bucket_counts,
-            );
-            let keys = &keys[..kmax];
+            let keys = index.nearest_keys(query, kmax, &mut scratch);
             match &labels {
                 None => {
                     let mut sum = 0.0;
                     for (j, &kk) in keys.iter().enumerate() {
-                        sum += y[key_index(kk)];
+                        sum += y[index_of(kk)];
                         by_rank[j] = sum / (j + 1) as f64;
                     }
                 }
                 Some((labels, _)) => {
                     counts.iter_mut().for_each(|c| *c = 0);
-                    let mut leader = labels[key_index(keys[0])];
+                    let mut leader = labels[index_of(keys[0])];
                     for (j, &kk) in keys.iter().enumerate() {
-                        let c = labels[key_index(kk)];
+                        let c = labels[index_of(kk)];
                         if counts[c] == 0 {
                             first_seen[c] = j;
                         }
@@ -484,11 +233,26 @@ impl Family for KnnFamily {
                             leader = c;
                         }
                         by_rank[j] = leader as f64;
+                        if want_probs {
+                            for (dst, &src) in counts_by_rank[j * n_classes..(j + 1) * n_classes]
+                                .iter_mut()
+                                .zip(counts.iter())
+                            {
+                                *dst = src as f64;
+                            }
+                        }
                     }
                 }
             }
             for (g, &k) in ks.iter().enumerate() {
-                out[[g, e]] = by_rank[k - 1];
+                out.values[[g, e]] = by_rank[k - 1];
+                if let Some(pr) = out.probs.as_mut() {
+                    let c = &counts_by_rank[(k - 1) * n_classes..k * n_classes];
+                    smoothed_shares(c, self.alpha, &mut shares);
+                    for (cl, &q) in shares.iter().enumerate() {
+                        pr[[g, e, cl]] = q;
+                    }
+                }
             }
         }
         Ok(())

@@ -61,9 +61,18 @@
 //! no longer decrease the objective (rounding level), the **last iterate** is used. A non-finite
 //! objective or coefficient is a [`FitError`].
 
+use std::sync::Arc;
+
+use super::linalg::norm;
 use super::poly::check_shapes;
-use super::{Family, FitError, FitInput, Standardizer, Task};
-use ndarray::{Array3, ArrayViewMut2};
+use super::standardize::Standardizer;
+use super::{BuildContext, Caps, Family, FitError, FitInput, OptionError, Options, Out, Task};
+use ndarray::Array3;
+
+/// Builds `family = "logistic"` (no options).
+pub fn build(_opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+    Ok(Arc::new(LogisticFamily))
+}
 use std::collections::VecDeque;
 
 /// Largest number of parameters fitted by full Newton; above it L-BFGS is used.
@@ -112,20 +121,35 @@ impl Family for LogisticFamily {
         matches!(task, Task::Classify { .. })
     }
 
+    fn caps(&self, task: Task) -> Caps {
+        Caps {
+            probabilities: matches!(task, Task::Classify { .. }),
+            ..Caps::default()
+        }
+    }
+
     fn fit_predict(
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
-        mut out: ArrayViewMut2<'_, f64>,
+        mut out: Out<'_>,
     ) -> Result<(), FitError> {
-        check_shapes(input, grid.len(), out.dim()).map_err(prefix)?;
+        check_shapes(input, grid.len(), out.values.dim()).map_err(prefix)?;
+        super::check_out("logistic", &out, grid.len(), input.eval.nrows(), input.task)?;
         let fit = fit_path(input, grid)?;
         let p = input.x.ncols();
-        let ze = fit.std.apply_row_major(input.eval);
+        let ze = fit.std.row_major_mul(input.eval);
+        let mut probs = vec![0.0; fit.classes];
         for g in 0..grid.len() {
-            let mut row = out.row_mut(g);
-            for (e, slot) in row.iter_mut().enumerate() {
-                *slot = fit.predict(g, &ze[e * p..(e + 1) * p]) as f64;
+            for e in 0..input.eval.nrows() {
+                let z = &ze[e * p..(e + 1) * p];
+                out.values[[g, e]] = fit.predict(g, z) as f64;
+                if let Some(pr) = out.probs.as_mut() {
+                    fit.probabilities(g, z, &mut probs);
+                    for (c, &v) in probs.iter().enumerate() {
+                        pr[[g, e, c]] = v;
+                    }
+                }
             }
         }
         Ok(())
@@ -141,7 +165,7 @@ pub fn fit_probabilities(input: &FitInput<'_>, grid: &[f64]) -> Result<Array3<f6
     check_shapes(input, grid.len(), (grid.len(), m)).map_err(prefix)?;
     let fit = fit_path(input, grid)?;
     let p = input.x.ncols();
-    let ze = fit.std.apply_row_major(input.eval);
+    let ze = fit.std.row_major_mul(input.eval);
     let mut out = Array3::zeros((grid.len(), m, fit.classes));
     let mut probs = vec![0.0; fit.classes];
     for g in 0..grid.len() {
@@ -284,7 +308,7 @@ fn fit_path(input: &FitInput<'_>, grid: &[f64]) -> Result<PathFit, FitError> {
         raw.push(c);
     }
     let present: Vec<usize> = (0..classes).filter(|&c| counts[c] > 0).collect();
-    let std = Standardizer::from_training(input.x);
+    let std = Standardizer::fit(input.x);
     let q = p + 1;
     let (shape, labels, theta0) = if present.len() == 1 {
         (Shape::Single(present[0]), Vec::new(), Vec::new())
@@ -309,7 +333,7 @@ fn fit_path(input: &FitInput<'_>, grid: &[f64]) -> Result<PathFit, FitError> {
     let mut thetas = vec![Vec::new(); grid.len()];
     let mut status = vec![Status::Converged; grid.len()];
     if !matches!(shape, Shape::Single(_)) {
-        let z = std.apply_row_major(input.x);
+        let z = std.row_major_mul(input.x);
         let mut prob = Problem {
             z: &z,
             n,
@@ -703,10 +727,6 @@ fn cholesky_solve(l: &[f64], d: usize, b: &mut [f64]) {
 
 fn dot(a: &[f64], b: &[f64]) -> f64 {
     a.iter().zip(b).map(|(x, y)| x * y).sum()
-}
-
-fn norm(a: &[f64]) -> f64 {
-    dot(a, a).sqrt()
 }
 
 /// `1 / (1 + e^{−x})` without overflow.

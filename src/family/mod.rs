@@ -1,20 +1,39 @@
-//! Model families: the trait every family implements, and the registry that builds one from a
-//! scenario's `[model]` section.
+//! Model families: the trait every family implements, what a fit receives and writes, each
+//! family's checked options, and the catalogue that builds a family from a scenario's `[model]`
+//! section.
 //!
 //! A family is fitted once per replicate training set and returns predictions at every
 //! evaluation point for **every** grid value of its complexity knob ("path fit"): a tree grown to
 //! the deepest grid depth is read at every shallower depth, k-NN sorts neighbours once for the
 //! largest k, a polynomial is decomposed once for the highest degree, ridge once for every penalty.
 //! A family that cannot share work across the grid loops over the grid inside `fit_predict`.
+//!
+//! A fit is a pure function of (training set, evaluation inputs, fit seed): a stochastic family
+//! (a forest, subsampled boosting, random features, random tie-breaks) draws only from
+//! [`FitInput::seed`]'s stream, which the engine derives from (master seed, replicate, fold,
+//! fit-seed index). Predictions are real values (regression) or class labels (classification),
+//! and, when asked, class-probability vectors and an ensemble's diversity.
 
-use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2};
+use std::path::Path;
+use std::sync::Arc;
 
+use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2, ArrayViewMut3};
+
+pub use crate::rng::FitSeed;
+
+pub mod custom;
 pub mod external;
 pub mod knn;
+pub mod linalg;
 pub mod logistic;
+pub mod neighbours;
+pub mod options;
 pub mod poly;
 pub mod ridge;
+pub mod standardize;
 pub mod tree;
+
+pub use options::{OptionError, Options};
 
 /// What the family is asked to predict.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -28,6 +47,24 @@ pub enum Task {
     },
 }
 
+impl Task {
+    /// Number of classes (0 for regression).
+    pub fn classes(self) -> usize {
+        match self {
+            Task::Regress => 0,
+            Task::Classify { classes } => classes,
+        }
+    }
+
+    /// The task in words (`regression`, `classification with 3 classes`).
+    pub fn describe(self) -> String {
+        match self {
+            Task::Regress => "regression".into(),
+            Task::Classify { classes } => format!("classification with {classes} classes"),
+        }
+    }
+}
+
 /// One training set and the evaluation inputs, as handed to a family.
 #[derive(Debug, Clone, Copy)]
 pub struct FitInput<'a> {
@@ -35,10 +72,40 @@ pub struct FitInput<'a> {
     pub x: ArrayView2<'a, f64>,
     /// Training responses, length `n` (class indices as `f64` when classifying).
     pub y: ArrayView1<'a, f64>,
-    /// Evaluation inputs, `m × p`, fixed across replicates.
+    /// Evaluation inputs, `m × p`.
     pub eval: ArrayView2<'a, f64>,
     /// Regression or classification.
     pub task: Task,
+    /// The fit's own random stream; a deterministic family ignores it.
+    pub seed: FitSeed,
+}
+
+/// Where a fit writes its predictions. `values` is always filled; `probs` and `diversity` are
+/// present only when the caller asked for them (and the family declared it can fill them, see
+/// [`Caps`]).
+#[derive(Debug)]
+pub struct Out<'a> {
+    /// `values[[g, e]]`: the prediction for grid value `g` at evaluation point `e` — a real value
+    /// (regression) or a class index stored as `f64` (classification). Shape `(grid, m)`.
+    pub values: ArrayViewMut2<'a, f64>,
+    /// `probs[[g, e, c]]`: the predicted probability of class `c` (classification). Each vector
+    /// sums to 1. Shape `(grid, m, K)`.
+    pub probs: Option<ArrayViewMut3<'a, f64>>,
+    /// `diversity[[g, e]]`: an ensemble's member spread around its prediction,
+    /// `(1/T) Σ_t (h_t − h̄)²` for regression and `(1/T) Σ_t ‖q_t − q̄‖²` over class-probability
+    /// vectors for classification (ensemble families only). Shape `(grid, m)`.
+    pub diversity: Option<ArrayViewMut2<'a, f64>>,
+}
+
+impl<'a> Out<'a> {
+    /// An output holding only values.
+    pub fn values(values: ArrayViewMut2<'a, f64>) -> Self {
+        Out {
+            values,
+            probs: None,
+            diversity: None,
+        }
+    }
 }
 
 /// A fit that could not be completed (for example a singular system). The runner reports it with
@@ -47,16 +114,37 @@ pub struct FitInput<'a> {
 #[error("{0}")]
 pub struct FitError(pub String);
 
+/// What a family can do beyond point predictions, for a given task.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct Caps {
+    /// Fills [`Out::probs`] (classification).
+    pub probabilities: bool,
+    /// Draws from the fit seed: refitting the same training set with another seed can change
+    /// the predictions.
+    pub stochastic: bool,
+    /// An average of members: fills [`Out::diversity`].
+    pub ensemble: bool,
+    /// Regression predictions are always positive (needed by losses on positive means, such as
+    /// Poisson deviance).
+    pub positive: bool,
+}
+
 /// A model family with one complexity knob.
 ///
-/// Implementations must be deterministic: the same inputs give bit-identical predictions.
-/// They hold no randomness of their own (the runner owns all randomness).
+/// Implementations must be pure functions of their inputs and [`FitInput::seed`]: the same
+/// inputs and seed give bit-identical predictions, on any thread.
 pub trait Family: Send + Sync {
     /// Short family name as written in scenario files (`tree`, `knn`, ...).
     fn name(&self) -> &'static str;
 
     /// Name of the complexity knob (`max_depth`, `k`, `degree`, `penalty`, ...).
     fn knob(&self) -> &'static str;
+
+    /// `true` when a larger knob value gives a simpler model (k-NN `k`, ridge `penalty`); used by
+    /// the one-standard-error rule and by readings of the curve.
+    fn larger_is_simpler(&self) -> bool {
+        false
+    }
 
     /// Checks a grid against the training size and the number of inputs before any fit.
     /// The message names the offending value; the caller adds file and key.
@@ -65,15 +153,15 @@ pub trait Family: Send + Sync {
     /// Whether the family supports the task (regression, or classification with K classes).
     fn supports(&self, task: Task) -> bool;
 
-    /// Fits on `input.x`, `input.y` and writes predictions at `input.eval` for each grid value:
-    /// `out[[g, e]]` is the prediction for grid value `grid[g]` at evaluation point `e`.
-    /// `out` has shape `(grid.len(), input.eval.nrows())`.
-    fn fit_predict(
-        &self,
-        input: &FitInput<'_>,
-        grid: &[f64],
-        out: ArrayViewMut2<'_, f64>,
-    ) -> Result<(), FitError>;
+    /// What the family can fill beyond values for `task` (default: values only).
+    fn caps(&self, _task: Task) -> Caps {
+        Caps::default()
+    }
+
+    /// Fits on `input.x`, `input.y` and writes predictions at `input.eval` for each grid value
+    /// into `out` (see [`Out`]).
+    fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], out: Out<'_>)
+        -> Result<(), FitError>;
 }
 
 /// Checks that every grid value is a whole number in `[lo, hi]`; used by integer knobs.
@@ -91,7 +179,53 @@ pub fn check_whole_grid(grid: &[f64], knob: &str, lo: f64, hi: f64) -> Result<()
     Ok(())
 }
 
-/// What `lossprism families` prints about a family.
+/// Checks the shape of `out` against the grid, the evaluation points and (for probabilities) the
+/// classes; `who` prefixes the message.
+pub fn check_out(
+    who: &str,
+    out: &Out<'_>,
+    grid: usize,
+    m: usize,
+    task: Task,
+) -> Result<(), FitError> {
+    if out.values.dim() != (grid, m) {
+        return Err(FitError(format!(
+            "{who}: output has shape {:?}, expected ({grid}, {m})",
+            out.values.dim()
+        )));
+    }
+    if let Some(p) = &out.probs {
+        if p.dim() != (grid, m, task.classes()) {
+            return Err(FitError(format!(
+                "{who}: probability output has shape {:?}, expected ({grid}, {m}, {})",
+                p.dim(),
+                task.classes()
+            )));
+        }
+    }
+    if let Some(d) = &out.diversity {
+        if d.dim() != (grid, m) {
+            return Err(FitError(format!(
+                "{who}: diversity output has shape {:?}, expected ({grid}, {m})",
+                d.dim()
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// What building a family may need besides its options.
+#[derive(Debug, Clone, Copy)]
+pub struct BuildContext<'a> {
+    /// Folder that relative paths (an external estimator's program) resolve against.
+    pub base: &'a Path,
+}
+
+/// Builds a family from the options of its `[model]` section; every option it reads is taken
+/// from `opts`, and the caller refuses whatever is left.
+pub type Builder = fn(&mut Options, &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError>;
+
+/// A built-in family: what `lossprism families` prints about it, and how to build it.
 #[derive(Debug, Clone, Copy)]
 pub struct FamilyInfo {
     /// Name in scenario files.
@@ -104,9 +238,11 @@ pub struct FamilyInfo {
     pub tasks: &'static str,
     /// Options accepted in `[model]`.
     pub options: &'static str,
+    /// Builds the family; `None` for `custom`, which only the library harness can supply.
+    pub build: Option<Builder>,
 }
 
-/// The built-in families.
+/// The built-in families, in the order `lossprism families` lists them.
 pub fn catalogue() -> &'static [FamilyInfo] {
     &[
         FamilyInfo {
@@ -114,14 +250,16 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             knob: "max_depth",
             meaning: "CART tree depth limit (splits on a root-to-leaf path); larger = more complex",
             tasks: "regression (squared-error splits), classification (gini or entropy)",
-            options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\"",
+            options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (add-alpha smoothing of leaf class shares, default 0)",
+            build: Some(tree::build),
         },
         FamilyInfo {
             name: "knn",
             knob: "k",
             meaning: "number of nearest neighbours averaged; smaller = more complex",
             tasks: "regression (mean), classification (majority vote)",
-            options: "standardize = true | false (default false)",
+            options: "standardize = true | false (default false), alpha (add-alpha smoothing of neighbour class shares, default 0)",
+            build: Some(knn::build),
         },
         FamilyInfo {
             name: "poly",
@@ -129,6 +267,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             meaning: "total degree of a least-squares polynomial in the inputs; larger = more complex",
             tasks: "regression",
             options: "none",
+            build: Some(poly::build),
         },
         FamilyInfo {
             name: "ridge",
@@ -136,6 +275,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             meaning: "ridge penalty λ on standardized inputs (sum-of-squares scale); smaller = more complex",
             tasks: "regression",
             options: "none",
+            build: Some(ridge::build),
         },
         FamilyInfo {
             name: "logistic",
@@ -143,13 +283,15 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             meaning: "C = 1/λ, inverse strength of an L2 penalty on standardized inputs; larger = more complex",
             tasks: "classification (two classes: logistic; K > 2: multinomial)",
             options: "none",
+            build: Some(logistic::build),
         },
         FamilyInfo {
             name: "external",
             knob: "(`knob`)",
             meaning: "an estimator in any language, run as a long-lived process speaking docs/external-protocol.md; the knob is whatever it names",
             tasks: "whatever the process implements",
-            options: "command = [\"python3\", \"model.py\"], knob = \"name\", timeout_seconds (default 60)",
+            options: "command = [\"python3\", \"model.py\"], knob = \"name\", timeout_seconds (default 60), larger_is_simpler (default false)",
+            build: Some(external::build),
         },
         FamilyInfo {
             name: "custom",
@@ -157,57 +299,27 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             meaning: "a Rust estimator supplied through lossprism::harness (library use only; the command line refuses it)",
             tasks: "whatever the estimator supports",
             options: "none",
+            build: None,
         },
     ]
 }
 
-/// Training mean and population sd per input (shared by the families that standardize); `inv_sd = 0` marks a constant column.
-pub(crate) struct Standardizer {
-    pub(crate) mean: Vec<f64>,
-    pub(crate) inv_sd: Vec<f64>,
+/// The catalogue entry of a family name.
+pub fn info(name: &str) -> Option<&'static FamilyInfo> {
+    catalogue().iter().find(|f| f.name == name)
 }
 
-impl Standardizer {
-    pub(crate) fn from_training(x: ArrayView2<'_, f64>) -> Self {
-        let n = x.nrows() as f64;
-        let mut mean = Vec::with_capacity(x.ncols());
-        let mut inv_sd = Vec::with_capacity(x.ncols());
-        for c in x.columns() {
-            let mu = c.sum() / n;
-            let var = c.iter().map(|v| (v - mu) * (v - mu)).sum::<f64>() / n;
-            let sd = var.sqrt();
-            let big = c.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
-            mean.push(mu);
-            inv_sd.push(if sd > 1e-12 * big && sd > 0.0 {
-                1.0 / sd
-            } else {
-                0.0
-            });
+/// Fills probability rows from class counts with add-α smoothing:
+/// `q_c = (count_c + α) / (total + K α)`. With `α = 0` and `total = 0` (no counts) every class
+/// gets `1/K`.
+pub fn smoothed_shares(counts: &[f64], alpha: f64, out: &mut [f64]) {
+    let k = counts.len() as f64;
+    let total: f64 = counts.iter().sum::<f64>() + k * alpha;
+    if total > 0.0 {
+        for (o, c) in out.iter_mut().zip(counts) {
+            *o = (c + alpha) / total;
         }
-        Standardizer { mean, inv_sd }
-    }
-
-    /// Column-major standardized copy of `x`.
-    pub(crate) fn apply(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
-        let (n, p) = x.dim();
-        let mut z = vec![0.0; n * p];
-        for j in 0..p {
-            for i in 0..n {
-                z[j * n + i] = (x[[i, j]] - self.mean[j]) * self.inv_sd[j];
-            }
-        }
-        z
-    }
-
-    /// Row-major standardized copy of `x`.
-    pub(crate) fn apply_row_major(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
-        let (m, p) = x.dim();
-        let mut z = vec![0.0; m * p];
-        for i in 0..m {
-            for j in 0..p {
-                z[i * p + j] = (x[[i, j]] - self.mean[j]) * self.inv_sd[j];
-            }
-        }
-        z
+    } else {
+        out.iter_mut().for_each(|o| *o = 1.0 / k);
     }
 }

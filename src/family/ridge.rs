@@ -28,9 +28,18 @@
 //! contribute nothing to `β` for any `λ`. At `λ = 0` this gives the **minimum-norm** least-squares
 //! solution (pseudo-inverse), also when `p > n`.
 
-use super::poly::{check_shapes, jacobi_svd, norm, HouseholderQr};
-use super::{Family, FitError, FitInput, Standardizer, Task};
-use ndarray::{ArrayView2, ArrayViewMut2};
+use std::sync::Arc;
+
+use super::linalg::{jacobi_svd, norm, HouseholderQr};
+use super::poly::check_shapes;
+use super::standardize::Standardizer;
+use super::{BuildContext, Family, FitError, FitInput, OptionError, Options, Out, Task};
+use ndarray::ArrayView2;
+
+/// Builds `family = "ridge"` (no options).
+pub fn build(_opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+    Ok(Arc::new(RidgeFamily))
+}
 
 /// Ridge regression on standardized inputs with an unpenalized intercept; knob `penalty` (λ).
 #[derive(Debug, Clone, Copy, Default)]
@@ -43,6 +52,10 @@ impl Family for RidgeFamily {
 
     fn knob(&self) -> &'static str {
         "penalty"
+    }
+
+    fn larger_is_simpler(&self) -> bool {
+        true
     }
 
     fn check_grid(&self, grid: &[f64], n_train: usize, _n_inputs: usize) -> Result<(), String> {
@@ -65,11 +78,12 @@ impl Family for RidgeFamily {
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
-        mut out: ArrayViewMut2<'_, f64>,
+        out: Out<'_>,
     ) -> Result<(), FitError> {
         if !matches!(input.task, Task::Regress) {
             return Err(FitError("ridge supports regression only".into()));
         }
+        let mut out = out.values;
         check_shapes(input, grid.len(), out.dim())?;
         if let Some(&l) = grid.iter().find(|l| !l.is_finite() || **l < 0.0) {
             return Err(FitError(format!(
@@ -83,10 +97,10 @@ impl Family for RidgeFamily {
         let m = input.eval.nrows();
         let ybar = input.y.sum() / n as f64;
         let yc: Vec<f64> = input.y.iter().map(|v| v - ybar).collect();
-        let std = Standardizer::from_training(input.x);
-        let spec = Spectrum::new(std.apply(input.x), n, p, &yc);
+        let std = Standardizer::fit(input.x);
+        let spec = Spectrum::new(std.col_major_mul(input.x), n, p, &yc);
         // Standardized evaluation design, row-major m × p.
-        let ze = std.apply_row_major(input.eval);
+        let ze = std.row_major_mul(input.eval);
 
         let mut w = vec![0.0; p];
         let mut beta = vec![0.0; p];
@@ -123,8 +137,8 @@ pub fn effective_df(x: ArrayView2<'_, f64>, penalty: f64) -> f64 {
     if n == 0 || p == 0 {
         return 0.0;
     }
-    let std = Standardizer::from_training(x);
-    let spec = Spectrum::new(std.apply(x), n, p, &vec![0.0; n]);
+    let std = Standardizer::fit(x);
+    let spec = Spectrum::new(std.col_major_mul(x), n, p, &vec![0.0; n]);
     spec.s2
         .iter()
         .map(|&d| if d > 0.0 { d / (d + penalty) } else { 0.0 })

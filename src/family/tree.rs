@@ -49,9 +49,14 @@
 //! partitioned stably into the two children (no re-sorting). Nodes live in one flat arena and are
 //! grown depth-first with an explicit stack.
 
-use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2};
+use std::sync::Arc;
 
-use super::{check_whole_grid, Family, FitError, FitInput, Task};
+use ndarray::{ArrayView1, ArrayView2};
+
+use super::{
+    check_out, check_whole_grid, smoothed_shares, BuildContext, Caps, Family, FitError, FitInput,
+    OptionError, Options, Out, Task,
+};
 
 /// Largest depth a grid may ask for.
 const MAX_GRID_DEPTH: usize = 64;
@@ -75,12 +80,15 @@ pub enum Criterion {
 
 /// The CART decision-tree family; the knob is `max_depth` (whole numbers in `1..=64`, where
 /// `max_depth = 1` means a single split).
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct TreeFamily {
     /// Minimum number of training samples in each child of a split (default 1; 0 acts as 1).
     pub min_samples_leaf: usize,
     /// Impurity measure used when classifying (ignored for regression).
     pub criterion: Criterion,
+    /// Add-α smoothing of a node's class shares given as probabilities:
+    /// `q_c = (count_c + α) / (n_node + K α)` (default 0: the plain shares).
+    pub alpha: f64,
 }
 
 impl Default for TreeFamily {
@@ -88,8 +96,28 @@ impl Default for TreeFamily {
         Self {
             min_samples_leaf: 1,
             criterion: Criterion::Gini,
+            alpha: 0.0,
         }
     }
+}
+
+/// Builds `family = "tree"` from its options (`min_samples_leaf`, `criterion`, `alpha`).
+pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+    let mut t = TreeFamily::default();
+    if let Some(l) = opts.int("min_samples_leaf", 1, 1_000_000_000)? {
+        t.min_samples_leaf = l as usize;
+    }
+    if let Some(c) = opts.choice("criterion", &["gini", "entropy"])? {
+        t.criterion = if c == "gini" {
+            Criterion::Gini
+        } else {
+            Criterion::Entropy
+        };
+    }
+    if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
+        t.alpha = a;
+    }
+    Ok(Arc::new(t))
 }
 
 /// One node of the flat arena. `left == 0` marks a leaf (the root is never a child); the right
@@ -108,6 +136,9 @@ pub struct Tree {
     nodes: Vec<Node>,
     depth: usize,
     n_features: usize,
+    /// Classification: class counts of every node's training samples (`node * classes + c`).
+    counts: Vec<u32>,
+    classes: usize,
 }
 
 impl Tree {
@@ -143,21 +174,40 @@ impl Tree {
         self.depth
     }
 
-    /// Writes into `buf[0..=L]` the node values along `row`'s path down to depth `max_depth` and
-    /// returns `L`, the depth reached. `row` must hold at least `n_features` entries and `buf` at
-    /// least `max_depth + 1`.
+    /// Writes into `buf[0..=L]` the node indices along `row`'s path down to depth `max_depth`
+    /// and returns `L`, the depth reached. `row` must hold at least `n_features` entries and `buf`
+    /// at least `max_depth + 1`.
     #[inline]
-    fn path_values(&self, row: &[f64], max_depth: usize, buf: &mut [f64]) -> usize {
+    pub fn path_nodes(&self, row: &[f64], max_depth: usize, buf: &mut [u32]) -> usize {
         let nodes = &self.nodes[..];
         let mut node = nodes[0];
-        buf[0] = node.value;
+        buf[0] = 0;
         let mut d = 0;
         while node.left != 0 && d < max_depth {
-            node = nodes[node.left as usize + right_offset(row[node.feature as usize], node)];
+            let at = node.left + right_offset(row[node.feature as usize], node) as u32;
+            node = nodes[at as usize];
             d += 1;
-            buf[d] = node.value;
+            buf[d] = at;
         }
         d
+    }
+
+    /// The prediction stored at node `i` (a mean response, or a majority class index).
+    #[inline]
+    pub fn node_value(&self, i: u32) -> f64 {
+        self.nodes[i as usize].value
+    }
+
+    /// Classification: the class counts of node `i`'s training samples (empty for regression).
+    #[inline]
+    pub fn node_counts(&self, i: u32) -> &[u32] {
+        let k = self.classes;
+        &self.counts[i as usize * k..(i as usize + 1) * k]
+    }
+
+    /// Number of classes of a classification tree (0 for regression).
+    pub fn classes(&self) -> usize {
+        self.classes
     }
 }
 
@@ -407,15 +457,20 @@ impl Grower<'_> {
             left: 0,
         });
         let mut tree_depth = 0;
+        let classes = self.counts.len();
+        let mut counts: Vec<u32> = Vec::new();
         if self.p == 0 {
             // No inputs: a single leaf predicting from all samples.
             self.idx = (0..n as u32).collect();
             let (value, _) = self.node_summary(0, n);
             nodes[0].value = value;
+            counts.extend(self.counts.iter().map(|&c| c as u32));
             return Tree {
                 nodes,
                 depth: 0,
                 n_features: 0,
+                counts,
+                classes,
             };
         }
         // (node, start, end, depth)
@@ -425,6 +480,15 @@ impl Grower<'_> {
             tree_depth = tree_depth.max(depth);
             let (value, splittable) = self.node_summary(start, end);
             nodes[node as usize].value = value;
+            if classes > 0 {
+                let at = node as usize * classes;
+                if counts.len() < at + classes {
+                    counts.resize(at + classes, 0);
+                }
+                for (c, &k) in counts[at..at + classes].iter_mut().zip(&self.counts) {
+                    *c = k as u32;
+                }
+            }
             let len = end - start;
             let Some(stats) = splittable else { continue };
             if depth >= max_depth || len < 2 * self.min_leaf {
@@ -452,10 +516,13 @@ impl Grower<'_> {
             stack.push((left + 1, mid as u32, end as u32, cd));
             stack.push((left, start as u32, mid as u32, cd));
         }
+        counts.resize(nodes.len() * classes, 0);
         Tree {
             nodes,
             depth: tree_depth,
             n_features: self.p,
+            counts,
+            classes,
         }
     }
 
@@ -762,21 +829,22 @@ impl Family for TreeFamily {
         true
     }
 
+    fn caps(&self, task: Task) -> Caps {
+        Caps {
+            probabilities: matches!(task, Task::Classify { .. }),
+            ..Caps::default()
+        }
+    }
+
     fn fit_predict(
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
-        mut out: ArrayViewMut2<'_, f64>,
+        mut out: Out<'_>,
     ) -> Result<(), FitError> {
         let m = input.eval.nrows();
         let p = input.x.ncols();
-        if out.dim() != (grid.len(), m) {
-            return Err(FitError(format!(
-                "tree: output has shape {:?}, expected ({}, {m})",
-                out.dim(),
-                grid.len()
-            )));
-        }
+        check_out("tree", &out, grid.len(), m, input.task)?;
         if input.eval.ncols() != p {
             return Err(FitError(format!(
                 "tree: evaluation inputs have {} columns, training inputs {p}",
@@ -797,12 +865,25 @@ impl Family for TreeFamily {
         let rows = eval
             .as_slice()
             .ok_or_else(|| FitError("tree: evaluation inputs are not contiguous".into()))?;
-        let mut buf = [0.0f64; MAX_GRID_DEPTH + 1];
+        let mut buf = [0u32; MAX_GRID_DEPTH + 1];
+        let k = tree.classes();
+        let mut counts = vec![0.0; k];
+        let mut shares = vec![0.0; k];
         for e in 0..m {
             let row = &rows[e * p..(e + 1) * p];
-            let reached = tree.path_values(row, deepest, &mut buf);
+            let reached = tree.path_nodes(row, deepest, &mut buf);
             for (g, &d) in depths.iter().enumerate() {
-                out[[g, e]] = buf[d.min(reached)];
+                let node = buf[d.min(reached)];
+                out.values[[g, e]] = tree.node_value(node);
+                if let Some(pr) = out.probs.as_mut() {
+                    for (c, &v) in counts.iter_mut().zip(tree.node_counts(node)) {
+                        *c = f64::from(v);
+                    }
+                    smoothed_shares(&counts, self.alpha, &mut shares);
+                    for (c, &q) in shares.iter().enumerate() {
+                        pr[[g, e, c]] = q;
+                    }
+                }
             }
         }
         Ok(())

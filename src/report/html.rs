@@ -4,8 +4,9 @@
 
 use std::fmt::Write as _;
 
-use super::table::{self, View};
-use super::{fmt_num, fmt_se, fmt_value, PointRow, ResultDoc};
+use super::terminal::{self, View};
+use super::{PointRow, ResultDoc};
+use crate::fmt::{fmt_num, fmt_se, fmt_value};
 
 /// The pictures of a report, as SVG text (from [`super::plot`]).
 #[derive(Debug, Clone, Default)]
@@ -160,8 +161,8 @@ pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
     let best = &pts[bi];
     let se_b = doc.best.stderr;
     let gap = |p: &PointRow| -> String {
-        let d = p.expected_loss - best.expected_loss;
-        match (se_b, p.stderr.expected_loss) {
+        let d = p.expected_loss() - best.expected_loss();
+        match (se_b, p.se("expected_loss")) {
             (Some(a), Some(b)) if a > 0.0 || b > 0.0 => format!(
                 "{knob} = {} is higher by {} ({:.1} standard errors of the difference)",
                 fmt_value(p.value),
@@ -220,7 +221,7 @@ pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
             if bi == 0 { "lower" } else { "upper" }
         ));
     }
-    if pts.iter().any(|p| p.net_variance.is_some_and(|v| v < 0.0)) {
+    if pts.iter().any(|p| p.get("net_variance") < 0.0) {
         out.push(
             "Net variance is negative at some values: there the spread of predictions moves \
              biased points towards the right class more often than it moves unbiased points \
@@ -258,6 +259,7 @@ pub fn render(
     view: View,
     pictures: &Pictures,
     wall_seconds: Option<f64>,
+    wall_label: &str,
 ) -> String {
     let mut h = String::new();
     let e = escape;
@@ -324,7 +326,7 @@ pub fn render(
     }
 
     h.push_str("<h2>The numbers</h2>\n<div class=\"wide\"><table>\n<thead><tr>");
-    let (header, rows, legend) = table::cells(doc, view);
+    let (header, rows, legend) = terminal::cells(doc, view);
     for c in &header {
         let _ = write!(h, "<th>{}</th>", e(c));
     }
@@ -361,7 +363,7 @@ pub fn render(
     );
     fact("lossprism version", doc.version.clone());
     fact(
-        "wall time",
+        wall_label,
         wall_seconds
             .map(fmt_duration)
             .unwrap_or_else(|| "not measured".into()),

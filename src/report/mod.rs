@@ -1,23 +1,28 @@
-//! The result document and its renderings (JSON, CSV, per-point CSV, terminal table). These are
-//! the only types that derive `Serialize`; CSV rows and JSON come from the same structs. The
-//! result document types also derive `Deserialize` (read back by `check`).
+//! The result document (`lossprism-result/1`) and its renderings: JSON (here), CSV
+//! ([`csv`]), the terminal table ([`terminal`]), pictures ([`plot`]), the HTML report
+//! ([`html`]); part files of shards and checkpoints ([`part`]). The rows of a result are built
+//! from the loss's description of its terms ([`crate::decompose::TermInfo`]), which the document
+//! also carries (`terms`), so every rendering — and `check` — is derived from that description,
+//! never from the loss's name.
 
+pub mod csv;
 pub mod html;
 pub mod part;
 pub mod plot;
-pub mod table;
+pub mod selection;
+pub mod terminal;
 
-use std::io::Write;
-use std::path::Path;
+use serde::de::Error as _;
+use serde::ser::SerializeMap;
+use serde::{Deserialize, Deserializer, Serialize, Serializer};
 
-use serde::{Deserialize, Serialize};
-
-use crate::decompose::zero_one::ZeroOneTerms;
-use crate::decompose::SquaredTerms;
+use crate::decompose::{self, Group, Role, TermInfo};
 use crate::dgp::Response;
-use crate::error::Error;
-use crate::runner::{Outcome, Summary};
-use crate::scenario::{Design, GridKind, LossKind, Plan, Source};
+use crate::fmt::{fmt_num, fmt_se, fmt_value};
+use crate::runner::Outcome;
+use crate::scenario::{Design, Plan, Source};
+
+pub use selection::Selection;
 
 /// Identifier of the result format.
 pub const FORMAT: &str = "lossprism-result/1";
@@ -58,7 +63,7 @@ pub struct ScenarioEcho {
     /// Noise in words.
     pub noise: String,
     /// Class labels (classification only).
-    #[serde(skip_serializing_if = "Option::is_none")]
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub labels: Option<Vec<String>>,
     /// Grid values.
     pub grid: Vec<f64>,
@@ -66,115 +71,275 @@ pub struct ScenarioEcho {
     pub grid_kind: String,
     /// Number of replicate blocks.
     pub blocks: u64,
-}
-
-/// Kohavi–Wolpert terms (0-1 loss).
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct KohaviWolpert {
-    /// `½(1 − Σ p_t²)`.
-    pub noise: Option<f64>,
-    /// `½ Σ (p_t − p_D)²`, finite-R corrected.
-    pub bias_sq: Option<f64>,
-    /// `½(1 − Σ p_D²)`, finite-R corrected.
-    pub variance: Option<f64>,
-}
-
-/// James (2003) terms (0-1 loss).
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct James {
-    /// Systematic effect.
-    pub systematic_effect: Option<f64>,
-    /// Variance effect.
-    pub variance_effect: Option<f64>,
-}
-
-/// Standard errors of the averaged terms (jackknife over replicate blocks); `null` where they
-/// cannot be computed (fewer than two blocks). Fields that do not apply to the loss are absent.
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
-pub struct Stderr {
-    /// Of `expected_loss`.
-    pub expected_loss: Option<f64>,
-    /// Of `bias_sq` (squared loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub bias_sq: Option<Option<f64>>,
-    /// Of `bias` (0-1 loss, Domingos).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub bias: Option<Option<f64>>,
-    /// Of `variance`.
-    pub variance: Option<f64>,
-    /// Of `expected_loss_direct`.
-    pub expected_loss_direct: Option<f64>,
-    /// Of `net_variance` (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub net_variance: Option<Option<f64>>,
-    /// Of `unbiased_variance` (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub unbiased_variance: Option<Option<f64>>,
-    /// Of `biased_variance` (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub biased_variance: Option<Option<f64>>,
-    /// Of the Kohavi–Wolpert terms (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub kohavi_wolpert: Option<KohaviWolpert>,
-    /// Of the James terms (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub james: Option<James>,
-    /// Of `bias_sq_plus_noise` (table source, squared loss).
+    /// Fits per training set (`fit_seeds`; absent when 1).
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub bias_sq_plus_noise: Option<Option<f64>>,
+    pub fit_seeds: Option<usize>,
 }
 
-/// One grid value's decomposition. Squared loss fills `bias_sq`; 0-1 loss fills `bias` (Domingos)
-/// and the 0-1 fields. `variance` is the squared-loss variance or Domingos' variance.
-#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+/// How a term is described in a result document (the loss's [`TermInfo`], owned).
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq, Eq)]
+pub struct TermDoc {
+    /// JSON key (dotted for a nested field).
+    pub key: String,
+    /// Column header.
+    pub label: String,
+    /// One-line meaning.
+    pub meaning: String,
+    /// `loss`, `bias`, `variance`, `noise`, `direct` or `other`.
+    pub role: String,
+    /// `main`, `kohavi_wolpert`, `james` or `detail`: which terminal view shows it.
+    pub group: String,
+    /// An estimate that depends on an estimated noise (tables).
+    pub estimated: bool,
+    /// Whether a standard error is reported.
+    pub stderr: bool,
+}
+
+impl TermDoc {
+    /// The owned form of a loss's term description.
+    pub fn from_info(t: &TermInfo) -> TermDoc {
+        TermDoc {
+            key: t.key.into(),
+            label: t.label.into(),
+            meaning: t.meaning.into(),
+            role: match t.role {
+                Role::Loss => "loss",
+                Role::Bias => "bias",
+                Role::Variance => "variance",
+                Role::Noise => "noise",
+                Role::Direct => "direct",
+                Role::Other => "other",
+            }
+            .into(),
+            group: match t.group {
+                Group::Main => "main",
+                Group::KohaviWolpert => "kohavi_wolpert",
+                Group::James => "james",
+                Group::Detail => "detail",
+            }
+            .into(),
+            estimated: t.estimated,
+            stderr: t.stderr,
+        }
+    }
+}
+
+/// One grid value's decomposition: the terms in the loss's order (JSON keys, dotted keys as
+/// nested objects), then `estimated` on tables, then the standard errors of the terms that have
+/// one (jackknife over replicate blocks; `null` where they cannot be computed).
+#[derive(Debug, Clone, PartialEq)]
 pub struct PointRow {
     /// Knob value.
     pub value: f64,
-    /// Expected loss: `noise + bias_sq + variance` (squared); `1 − Σ p_t p_D` (0-1).
-    pub expected_loss: f64,
-    /// Unbiased squared bias, averaged over evaluation points (squared loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub bias_sq: Option<f64>,
-    /// Domingos bias: share of points whose main prediction is not the Bayes class (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub bias: Option<f64>,
-    /// Variance, averaged.
-    pub variance: f64,
-    /// Known noise: σ² (squared) or the Bayes error (0-1), averaged.
-    pub noise: f64,
-    /// Loss against fresh responses (independent cross-check of `expected_loss`).
-    pub expected_loss_direct: f64,
-    /// Domingos net variance `E[c2 V]` (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub net_variance: Option<f64>,
-    /// Domingos unbiased variance `E[(1 − B) V]` (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub unbiased_variance: Option<f64>,
-    /// Domingos biased variance `E[B V]` (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub biased_variance: Option<f64>,
-    /// Kohavi–Wolpert decomposition (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub kohavi_wolpert: Option<KohaviWolpert>,
-    /// James decomposition (0-1 loss).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub james: Option<James>,
-    /// Table source, squared loss: `(mean − y)² − V/R` per row, averaged (bias² and noise
-    /// together, since the noise of observed responses is unknown).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub bias_sq_plus_noise: Option<f64>,
-    /// `true` when `bias_sq` and `noise` are estimates (table source: `noise` is the noise
-    /// estimate and `bias_sq = bias_sq_plus_noise − noise`).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    /// Family name (scenarios with several models).
+    pub family: Option<String>,
+    /// Training size (scenarios with several training sizes).
+    pub train_size: Option<u64>,
+    /// Term values in order: `(key, value)`.
+    pub terms: Vec<(String, f64)>,
+    /// `true` when some terms are estimates (a table source).
     pub estimated: Option<bool>,
-    /// Jackknife standard errors over replicate blocks.
-    pub stderr: Stderr,
+    /// Standard errors in order: `(key, value)`, NaN written as `null`.
+    pub stderr: Vec<(String, f64)>,
 }
 
 impl PointRow {
-    /// The bias-type term shown against variance: bias² (squared) or Domingos bias (0-1).
-    pub fn bias_term(&self) -> f64 {
-        self.bias_sq.or(self.bias).unwrap_or(f64::NAN)
+    /// The value of term `key` (NaN when absent).
+    pub fn get(&self, key: &str) -> f64 {
+        self.terms
+            .iter()
+            .find(|(k, _)| k == key)
+            .map_or(f64::NAN, |(_, v)| *v)
+    }
+
+    /// Whether the row has term `key`.
+    pub fn has(&self, key: &str) -> bool {
+        self.terms.iter().any(|(k, _)| k == key)
+    }
+
+    /// The standard error of term `key`: `None` when absent or not computable.
+    pub fn se(&self, key: &str) -> Option<f64> {
+        self.stderr
+            .iter()
+            .find(|(k, _)| k == key)
+            .map(|(_, v)| *v)
+            .filter(|v| v.is_finite())
+    }
+
+    /// The expected loss.
+    pub fn expected_loss(&self) -> f64 {
+        self.get("expected_loss")
+    }
+}
+
+/// Writes `(key, value)` pairs as a JSON map, grouping consecutive dotted keys with the same
+/// prefix into nested objects.
+struct Nested<'a>(&'a [(String, f64)]);
+
+impl Serialize for Nested<'_> {
+    fn serialize<S: Serializer>(&self, ser: S) -> Result<S::Ok, S::Error> {
+        let mut map = ser.serialize_map(None)?;
+        let mut i = 0;
+        let items = self.0;
+        while i < items.len() {
+            let (k, v) = &items[i];
+            match k.split_once('.') {
+                None => {
+                    map.serialize_entry(k, &finite(*v))?;
+                    i += 1;
+                }
+                Some((prefix, _)) => {
+                    let mut j = i;
+                    let mut inner: Vec<(String, f64)> = Vec::new();
+                    while j < items.len() {
+                        match items[j].0.split_once('.') {
+                            Some((p, rest)) if p == prefix => {
+                                inner.push((rest.to_string(), items[j].1));
+                                j += 1;
+                            }
+                            _ => break,
+                        }
+                    }
+                    map.serialize_entry(prefix, &Nested(&inner))?;
+                    i = j;
+                }
+            }
+        }
+        map.end()
+    }
+}
+
+fn finite(v: f64) -> Option<f64> {
+    v.is_finite().then_some(v)
+}
+
+impl Serialize for PointRow {
+    fn serialize<S: Serializer>(&self, ser: S) -> Result<S::Ok, S::Error> {
+        let mut map = ser.serialize_map(None)?;
+        map.serialize_entry("value", &self.value)?;
+        if let Some(f) = &self.family {
+            map.serialize_entry("family", f)?;
+        }
+        if let Some(n) = self.train_size {
+            map.serialize_entry("train_size", &n)?;
+        }
+        // Terms, nested by their dotted keys.
+        let mut i = 0;
+        let items = &self.terms;
+        while i < items.len() {
+            let (k, v) = &items[i];
+            match k.split_once('.') {
+                None => {
+                    map.serialize_entry(k, &finite(*v))?;
+                    i += 1;
+                }
+                Some((prefix, _)) => {
+                    let mut j = i;
+                    let mut inner = Vec::new();
+                    while j < items.len() {
+                        match items[j].0.split_once('.') {
+                            Some((p, rest)) if p == prefix => {
+                                inner.push((rest.to_string(), items[j].1));
+                                j += 1;
+                            }
+                            _ => break,
+                        }
+                    }
+                    map.serialize_entry(prefix, &Nested(&inner))?;
+                    i = j;
+                }
+            }
+        }
+        if let Some(e) = self.estimated {
+            map.serialize_entry("estimated", &e)?;
+        }
+        map.serialize_entry("stderr", &Nested(&self.stderr))?;
+        map.end()
+    }
+}
+
+/// Flattens a JSON object into `(dotted key, number)` pairs in document order; `null` becomes
+/// NaN. Anything else is an error naming the key.
+fn flatten_numbers(
+    prefix: &str,
+    obj: &serde_json::Map<String, serde_json::Value>,
+    out: &mut Vec<(String, f64)>,
+) -> Result<(), String> {
+    for (k, v) in obj {
+        let key = if prefix.is_empty() {
+            k.clone()
+        } else {
+            format!("{prefix}.{k}")
+        };
+        match v {
+            serde_json::Value::Null => out.push((key, f64::NAN)),
+            serde_json::Value::Number(n) => out.push((
+                key.clone(),
+                n.as_f64()
+                    .ok_or_else(|| format!("`{key}` is not a number"))?,
+            )),
+            serde_json::Value::Object(m) => flatten_numbers(&key, m, out)?,
+            _ => return Err(format!("`{key}` is not a number")),
+        }
+    }
+    Ok(())
+}
+
+impl<'de> Deserialize<'de> for PointRow {
+    fn deserialize<D: Deserializer<'de>>(de: D) -> Result<Self, D::Error> {
+        let obj = serde_json::Map::<String, serde_json::Value>::deserialize(de)?;
+        let value = obj
+            .get("value")
+            .and_then(|v| v.as_f64())
+            .ok_or_else(|| D::Error::custom("a point has no numeric `value`"))?;
+        let family = match obj.get("family") {
+            None => None,
+            Some(serde_json::Value::String(s)) => Some(s.clone()),
+            Some(_) => return Err(D::Error::custom("a point's `family` is not a string")),
+        };
+        let train_size = match obj.get("train_size") {
+            None => None,
+            Some(v) => Some(
+                v.as_u64()
+                    .ok_or_else(|| D::Error::custom("a point's `train_size` is not a count"))?,
+            ),
+        };
+        let estimated = match obj.get("estimated") {
+            None => None,
+            Some(serde_json::Value::Bool(b)) => Some(*b),
+            Some(_) => return Err(D::Error::custom("a point's `estimated` is not true/false")),
+        };
+        let mut terms = Vec::new();
+        let mut stderr = Vec::new();
+        for (k, v) in &obj {
+            match k.as_str() {
+                "value" | "family" | "train_size" | "estimated" => {}
+                "stderr" => {
+                    let m = v
+                        .as_object()
+                        .ok_or_else(|| D::Error::custom("a point's `stderr` is not an object"))?;
+                    flatten_numbers("", m, &mut stderr).map_err(D::Error::custom)?;
+                }
+                _ => {
+                    let mut one = serde_json::Map::new();
+                    one.insert(k.clone(), v.clone());
+                    flatten_numbers("", &one, &mut terms).map_err(D::Error::custom)?;
+                }
+            }
+        }
+        if let Some((k, v)) = stderr.iter().find(|(_, v)| *v < 0.0) {
+            return Err(D::Error::custom(format!(
+                "the standard error of `{k}` is {v}; a standard error cannot be negative"
+            )));
+        }
+        Ok(PointRow {
+            value,
+            family,
+            train_size,
+            terms,
+            estimated,
+            stderr,
+        })
     }
 }
 
@@ -227,7 +392,53 @@ pub struct ResultDoc {
     pub scheme_note: Option<String>,
     /// The selection audit (`[audit]`): what cross-validation chose in each replicate.
     #[serde(default, skip_serializing_if = "Option::is_none")]
-    pub selection: Option<crate::audit::Selection>,
+    pub selection: Option<Selection>,
+    /// The description of the terms of `points`, in order.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub terms: Vec<TermDoc>,
+    /// Whether a larger knob value is the simpler model (k-NN `k`, ridge `penalty`).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub larger_is_simpler: bool,
+}
+
+impl ResultDoc {
+    /// The description of the terms: the document's own, or (documents written before it was
+    /// recorded) the loss's.
+    pub fn term_docs(&self) -> Vec<TermDoc> {
+        if !self.terms.is_empty() {
+            return self.terms.clone();
+        }
+        let Some(loss) = decompose::by_name(&self.loss) else {
+            return Vec::new();
+        };
+        let observed = self.table.is_some();
+        let first = self.points.first();
+        let shape = decompose::Shape {
+            grid: self.points.len(),
+            points: 0,
+            classes: self.scenario.labels.as_ref().map_or(0, Vec::len),
+            fits: if first.is_some_and(|p| p.has("variance_fit")) {
+                2
+            } else {
+                1
+            },
+            all_points: !observed,
+            ensemble: first.is_some_and(|p| p.has("diversity")),
+        };
+        loss.describe(&shape, observed)
+            .iter()
+            .map(TermDoc::from_info)
+            .filter(|t| first.map_or(true, |p| p.has(&t.key)))
+            .collect()
+    }
+
+    /// The key of the first term with `role` in the main group (`bias_sq`, `bias`, ...).
+    pub fn key_of(&self, role: &str) -> Option<String> {
+        self.term_docs()
+            .into_iter()
+            .find(|t| t.role == role && t.group == "main")
+            .map(|t| t.key)
+    }
 }
 
 /// A noise-variance estimate on a table (`noise_estimate`).
@@ -272,15 +483,64 @@ pub struct TableEcho {
     pub encodings: Vec<String>,
 }
 
-fn opt(v: f64) -> Option<f64> {
-    v.is_finite().then_some(v)
-}
-
 /// Resolved scenario echo of a plan.
 pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
+    let model = plan.model();
+    let fit_seeds = (model.fit_seeds > 1).then_some(model.fit_seeds);
     let s = match &plan.source {
         Source::Synthetic(s) => s,
-        Source::Table(t) => return crate::table::report::scenario_echo(plan, t),
+        Source::Table(t) => {
+            let table = &t.table;
+            let encoded: Vec<&str> = table.encodings.iter().map(|e| e.column.as_str()).collect();
+            return ScenarioEcho {
+                eval_seed: None,
+                name: plan.name.clone(),
+                about: plan.about.clone(),
+                source: "table".into(),
+                train_size: t.train_size(),
+                eval_size: t.work.len(),
+                design: t.scheme.name().into(),
+                eval: match t.scheme {
+                    crate::dataset::Scheme::Bootstrap => "out-of-bag",
+                    crate::dataset::Scheme::Subsample { .. } => "held-out rows",
+                }
+                .into(),
+                inputs: table
+                    .names
+                    .iter()
+                    .map(|n| InputEcho {
+                        name: n.clone(),
+                        distribution: match n.split_once('=') {
+                            Some((col, level)) if encoded.contains(&col) => {
+                                format!("indicator of `{col}` = \"{level}\" (one-hot)")
+                            }
+                            _ => format!("column of {}", table.path.display()),
+                        },
+                    })
+                    .collect(),
+                truth: format!(
+                    "unknown: observed `{}` in {}",
+                    table.target,
+                    table.path.display()
+                ),
+                noise: match plan.task {
+                    crate::family::Task::Regress => {
+                        format!("unknown; estimated by {}", t.noise_method.describe())
+                    }
+                    crate::family::Task::Classify { .. } => {
+                        "unknown; folded into the bias against the observed labels".into()
+                    }
+                },
+                labels: match plan.task {
+                    crate::family::Task::Regress => None,
+                    crate::family::Task::Classify { .. } => Some(table.labels.clone()),
+                },
+                grid: model.grid.clone(),
+                grid_kind: model.grid_kind.name().into(),
+                blocks: plan.blocks,
+                fit_seeds,
+            };
+        }
     };
     ScenarioEcho {
         eval_seed: plan.eval_seed_explicit.then_some(plan.eval_seed),
@@ -321,134 +581,121 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
             Response::Regression { .. } => None,
             Response::Classes(m) => Some(m.labels.clone()),
         },
-        grid: plan.grid.clone(),
-        grid_kind: match plan.grid_kind {
-            GridKind::List => "list",
-            GridKind::Range => "range",
-            GridKind::Log => "log",
-        }
-        .into(),
+        grid: model.grid.clone(),
+        grid_kind: model.grid_kind.name().into(),
         blocks: plan.blocks,
+        fit_seeds,
     }
 }
 
-fn squared_row(value: f64, t: &SquaredTerms, e: &SquaredTerms) -> PointRow {
-    PointRow {
-        value,
-        expected_loss: t.expected_loss,
-        bias_sq: Some(t.bias_sq),
-        bias: None,
-        variance: t.variance,
-        noise: t.noise,
-        expected_loss_direct: t.expected_loss_direct,
-        net_variance: None,
-        unbiased_variance: None,
-        biased_variance: None,
-        kohavi_wolpert: None,
-        james: None,
-        bias_sq_plus_noise: None,
-        estimated: None,
-        stderr: Stderr {
-            expected_loss: opt(e.expected_loss),
-            bias_sq: Some(opt(e.bias_sq)),
-            bias: None,
-            variance: opt(e.variance),
-            expected_loss_direct: opt(e.expected_loss_direct),
-            net_variance: None,
-            unbiased_variance: None,
-            biased_variance: None,
-            kohavi_wolpert: None,
-            james: None,
-            bias_sq_plus_noise: None,
-        },
-    }
-}
-
-fn zero_one_row(value: f64, t: &ZeroOneTerms, e: &ZeroOneTerms) -> PointRow {
-    PointRow {
-        value,
-        expected_loss: t.expected_loss,
-        bias_sq: None,
-        bias: Some(t.bias),
-        variance: t.variance,
-        noise: t.noise,
-        expected_loss_direct: t.expected_loss_direct,
-        net_variance: Some(t.net_variance),
-        unbiased_variance: Some(t.unbiased_variance),
-        biased_variance: Some(t.biased_variance),
-        kohavi_wolpert: Some(KohaviWolpert {
-            noise: opt(t.kw_noise),
-            bias_sq: opt(t.kw_bias_sq),
-            variance: opt(t.kw_variance),
-        }),
-        james: Some(James {
-            systematic_effect: opt(t.james_systematic),
-            variance_effect: opt(t.james_variance),
-        }),
-        bias_sq_plus_noise: None,
-        estimated: None,
-        stderr: Stderr {
-            expected_loss: opt(e.expected_loss),
-            bias_sq: None,
-            bias: Some(opt(e.bias)),
-            variance: opt(e.variance),
-            expected_loss_direct: opt(e.expected_loss_direct),
-            net_variance: Some(opt(e.net_variance)),
-            unbiased_variance: Some(opt(e.unbiased_variance)),
-            biased_variance: Some(opt(e.biased_variance)),
-            kohavi_wolpert: Some(KohaviWolpert {
-                noise: opt(e.kw_noise),
-                bias_sq: opt(e.kw_bias_sq),
-                variance: opt(e.kw_variance),
-            }),
-            james: Some(James {
-                systematic_effect: opt(e.james_systematic),
-                variance_effect: opt(e.james_variance),
-            }),
-            bias_sq_plus_noise: None,
-        },
-    }
+/// The rows of model `i` of a finished run.
+pub fn rows(plan: &Plan, outcome: &Outcome, i: usize) -> Vec<PointRow> {
+    let s = &outcome.summaries[i];
+    let observed = outcome.prepared.table.is_some();
+    plan.models[i]
+        .grid
+        .iter()
+        .enumerate()
+        .map(|(g, &value)| PointRow {
+            value,
+            family: None,
+            train_size: None,
+            terms: s
+                .terms
+                .iter()
+                .zip(&s.values[g])
+                .map(|(t, v)| (t.key.to_string(), *v))
+                .collect(),
+            estimated: observed.then_some(true),
+            stderr: s
+                .terms
+                .iter()
+                .zip(&s.stderr[g])
+                .filter(|(t, _)| t.stderr)
+                .map(|(t, v)| (t.key.to_string(), *v))
+                .collect(),
+        })
+        .collect()
 }
 
 /// Builds the result document of a finished run.
 pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
-    let points: Vec<PointRow> = match &outcome.summary {
-        Summary::Table(t) => return crate::table::report::build(plan, t),
-        Summary::Squared(s) => plan
-            .grid
-            .iter()
-            .enumerate()
-            .map(|(g, &v)| squared_row(v, &s.terms[g], &s.stderr[g]))
-            .collect(),
-        Summary::ZeroOne(s) => plan
-            .grid
-            .iter()
-            .enumerate()
-            .map(|(g, &v)| zero_one_row(v, &s.terms[g], &s.stderr[g]))
-            .collect(),
-    };
+    let model = plan.model();
+    let points = rows(plan, outcome, 0);
     let best = best_of(&points);
-    let reading = reading(plan.family.knob(), plan.loss, &points, &best);
+    let bias_key = outcome
+        .summary()
+        .terms
+        .iter()
+        .find(|t| t.role == Role::Bias && t.group == Group::Main)
+        .map(|t| t.key)
+        .unwrap_or("bias_sq");
+    let mut reading = reading(
+        model.family.knob(),
+        plan.loss.bias_word(),
+        bias_key,
+        &points,
+        &best,
+    );
     let selection = match (&plan.audit, &outcome.audit) {
-        (Some(a), Some(c)) => Some(crate::audit::selection(a, &c.counts, &points, &best)),
+        (Some(a), Some(c)) => Some(selection::selection(a, &c.counts, &points, &best)),
         _ => None,
     };
+    let (mut table, mut noise_estimate, mut scheme_note) = (None, None, None);
+    if let (Source::Table(tp), Some(run)) = (&plan.source, &outcome.prepared.table) {
+        reading.push_str(plan.loss.observed_note());
+        let (share, share_se) = outcome.held_share.unwrap_or((f64::NAN, f64::NAN));
+        table = Some(TableEcho {
+            path: tp.table.path.display().to_string(),
+            target: tp.table.target.clone(),
+            rows: tp.table.rows(),
+            dropped_rows: tp.table.dropped_rows,
+            holdout_rows: tp.holdout.len(),
+            working_rows: tp.work.len(),
+            skipped_rows: outcome
+                .summary()
+                .total
+                .count
+                .iter()
+                .filter(|&&c| c < 2)
+                .count(),
+            resample: tp.scheme.name().into(),
+            train_size: tp.train_size(),
+            held_out_share: share,
+            held_out_share_stderr: finite(share_se),
+            encodings: tp.table.encodings.iter().map(|e| e.describe()).collect(),
+        });
+        noise_estimate = run.noise.map(|n| NoiseEstimateEcho {
+            value: n.value,
+            stderr: finite(n.stderr),
+            method: n.method.name().into(),
+            about: n.method.describe().into(),
+        });
+        scheme_note = Some(tp.scheme.note(tp.work.len()));
+    }
     ResultDoc {
         format: FORMAT.into(),
         version: env!("CARGO_PKG_VERSION").into(),
         scenario: scenario_echo(plan),
-        family: plan.family.name().into(),
-        knob: plan.family.knob().into(),
+        family: model.family.name().into(),
+        knob: model.family.knob().into(),
         loss: plan.loss.name().into(),
         replicates: plan.replicates,
         seed: plan.seed,
         points,
         best,
         reading,
-        table: None,
-        noise_estimate: None,
-        scheme_note: None,
+        table,
+        noise_estimate,
+        scheme_note,
         selection,
+        terms: outcome
+            .summary()
+            .terms
+            .iter()
+            .map(TermDoc::from_info)
+            .collect(),
+        larger_is_simpler: model.family.larger_is_simpler(),
     }
 }
 
@@ -456,77 +703,30 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
 pub fn best_of(points: &[PointRow]) -> Best {
     let mut bi = 0;
     for (i, p) in points.iter().enumerate() {
-        if p.expected_loss < points[bi].expected_loss {
+        if p.expected_loss() < points[bi].expected_loss() {
             bi = i;
         }
     }
     let b = &points[bi];
-    let se = b.stderr.expected_loss;
+    let se = b.se("expected_loss");
     let within = points
         .iter()
-        .filter(|p| p.expected_loss <= b.expected_loss + se.unwrap_or(0.0))
+        .filter(|p| p.expected_loss() <= b.expected_loss() + se.unwrap_or(0.0))
         .map(|p| p.value)
         .collect();
     Best {
         value: b.value,
-        expected_loss: b.expected_loss,
+        expected_loss: b.expected_loss(),
         stderr: se,
         within_one_se: within,
     }
 }
 
-/// Formats a knob value compactly (`3`, `0.01`, `1e-4`).
-pub fn fmt_value(v: f64) -> String {
-    if v.fract() == 0.0 && v.abs() < 1e9 {
-        format!("{}", v as i64)
-    } else if v != 0.0 && (v.abs() < 1e-3 || v.abs() >= 1e6) {
-        format!("{v:.3e}")
-    } else {
-        // Four significant digits, trailing zeros dropped (3.162, 31.62, 0.01).
-        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
-        let s = format!("{v:.digits$}");
-        if s.contains('.') {
-            s.trim_end_matches('0').trim_end_matches('.').to_string()
-        } else {
-            s
-        }
-    }
-}
-
-/// Formats a standard error with two significant digits.
-pub fn fmt_se(v: f64) -> String {
-    if !v.is_finite() {
-        return "n/a".into();
-    }
-    let a = v.abs();
-    if a != 0.0 && !(1e-3..1e6).contains(&a) {
-        format!("{v:.1e}")
-    } else {
-        let digits = if a == 0.0 {
-            2
-        } else {
-            (1 - a.log10().floor() as i32).clamp(0, 6) as usize
-        };
-        format!("{v:.digits$}")
-    }
-}
-
-/// Formats a number with 4 significant digits.
-pub fn fmt_num(v: f64) -> String {
-    if !v.is_finite() {
-        return "n/a".into();
-    }
-    let a = v.abs();
-    if a != 0.0 && !(1e-3..1e6).contains(&a) {
-        format!("{v:.3e}")
-    } else {
-        let digits = if a == 0.0 {
-            3
-        } else {
-            (3 - a.log10().floor() as i32).clamp(0, 6) as usize
-        };
-        format!("{v:.digits$}")
-    }
+/// The JSON text of a result (pretty, newline-terminated).
+pub fn to_json(doc: &ResultDoc) -> String {
+    let mut s = serde_json::to_string_pretty(doc).expect("result types serialize");
+    s.push('\n');
+    s
 }
 
 /// Describes the grid values where `pick` holds as runs of consecutive grid values
@@ -564,15 +764,18 @@ fn runs(points: &[PointRow], pick: impl Fn(&PointRow) -> bool) -> String {
     }
 }
 
-/// One plain sentence (or two) reading the curve: where bias² dominates, where variance does,
-/// and where the lowest expected loss lies.
-pub fn reading(knob: &str, loss: LossKind, points: &[PointRow], best: &Best) -> String {
-    let bias_dominates = |p: &PointRow| p.bias_term() > p.variance;
+/// One plain sentence (or two) reading the curve: where the bias-type term (`bias_key`,
+/// called `bias_word`) dominates the variance, where the variance does, and where the lowest
+/// expected loss lies.
+pub fn reading(
+    knob: &str,
+    bias_word: &str,
+    bias_key: &str,
+    points: &[PointRow],
+    best: &Best,
+) -> String {
+    let bias_dominates = |p: &PointRow| p.get(bias_key) > p.get("variance");
     let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
-    let bias_word = match loss {
-        LossKind::Squared => "Bias²",
-        LossKind::ZeroOne => "Bias (Domingos)",
-    };
     let mut out = if n_bias == points.len() {
         format!("{bias_word} exceeds variance at every {knob} tried: the family underfits across the whole grid.")
     } else if n_bias == 0 {
@@ -611,217 +814,4 @@ pub fn reading(knob: &str, loss: LossKind, points: &[PointRow], best: &Best) -> 
         ));
     }
     out
-}
-
-/// Writes several files so that either all of them appear or none does: every file is first
-/// written to a temporary file beside its destination, then all are renamed. `-` entries are
-/// written to standard output after the renames.
-pub fn write_all_atomic(files: &[(&Path, Vec<u8>)]) -> Result<(), Error> {
-    let mut staged: Vec<(std::path::PathBuf, &Path)> = Vec::new();
-    let cleanup = |staged: &[(std::path::PathBuf, &Path)]| {
-        for (tmp, _) in staged {
-            let _ = std::fs::remove_file(tmp);
-        }
-    };
-    for (path, bytes) in files {
-        if path.as_os_str() == "-" {
-            continue;
-        }
-        let tmp = temp_name(path)?;
-        if let Err(e) = std::fs::write(&tmp, bytes) {
-            let _ = std::fs::remove_file(&tmp);
-            cleanup(&staged);
-            return Err(Error::io(*path, &e));
-        }
-        staged.push((tmp, path));
-    }
-    for (i, (tmp, path)) in staged.iter().enumerate() {
-        if let Err(e) = std::fs::rename(tmp, path) {
-            cleanup(&staged[i..]);
-            return Err(Error::io(*path, &e));
-        }
-    }
-    for (path, bytes) in files {
-        if path.as_os_str() == "-" {
-            write_atomic(path, bytes)?;
-        }
-    }
-    Ok(())
-}
-
-fn temp_name(path: &Path) -> Result<std::path::PathBuf, Error> {
-    let dir = match path.parent() {
-        Some(d) if !d.as_os_str().is_empty() => d.to_path_buf(),
-        _ => std::path::PathBuf::from("."),
-    };
-    let file_name = path
-        .file_name()
-        .ok_or_else(|| Error::Usage(format!("{}: not a file name", path.display())))?;
-    Ok(dir.join(format!(
-        ".{}.{}.tmp",
-        file_name.to_string_lossy(),
-        std::process::id()
-    )))
-}
-
-/// Writes `bytes` to `path` atomically: a temporary file in the same folder, then a rename.
-/// `-` writes to standard output.
-pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), Error> {
-    if path.as_os_str() == "-" {
-        let mut out = std::io::stdout().lock();
-        return out
-            .write_all(bytes)
-            .and_then(|_| out.flush())
-            .map_err(|e| Error::io(path, &e));
-    }
-    let tmp = temp_name(path)?;
-    let res = std::fs::write(&tmp, bytes).and_then(|_| std::fs::rename(&tmp, path));
-    if let Err(e) = res {
-        let _ = std::fs::remove_file(&tmp);
-        return Err(Error::io(path, &e));
-    }
-    Ok(())
-}
-
-/// The JSON text of a result (pretty, newline-terminated).
-pub fn to_json(doc: &ResultDoc) -> String {
-    let mut s = serde_json::to_string_pretty(doc).expect("result types serialize");
-    s.push('\n');
-    s
-}
-
-/// Flattens a JSON object into `(column, value)` pairs, nested keys joined with `_`
-/// (`stderr_expected_loss`, `kohavi_wolpert_bias_sq`).
-fn flatten(prefix: &str, v: &serde_json::Value, out: &mut Vec<(String, String)>) {
-    match v {
-        serde_json::Value::Object(map) => {
-            for (k, v) in map {
-                let key = if prefix.is_empty() {
-                    k.clone()
-                } else {
-                    format!("{prefix}_{k}")
-                };
-                flatten(&key, v, out);
-            }
-        }
-        serde_json::Value::Null => out.push((prefix.to_string(), String::new())),
-        serde_json::Value::String(s) => out.push((prefix.to_string(), s.clone())),
-        other => out.push((prefix.to_string(), other.to_string())),
-    }
-}
-
-/// CSV of the per-grid rows: the same `PointRow` values as the JSON, nested fields flattened
-/// (`stderr_bias_sq`), one header and one row per grid value; the first column names the knob.
-pub fn to_csv(doc: &ResultDoc) -> String {
-    let mut w = csv::Writer::from_writer(Vec::new());
-    for (i, p) in doc.points.iter().enumerate() {
-        let mut cells = vec![("knob".to_string(), doc.knob.clone())];
-        let v = serde_json::to_value(p).expect("result types serialize");
-        flatten("", &v, &mut cells);
-        if i == 0 {
-            w.write_record(cells.iter().map(|c| c.0.as_str()))
-                .expect("in-memory csv");
-        }
-        w.write_record(cells.iter().map(|c| c.1.as_str()))
-            .expect("in-memory csv");
-    }
-    String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
-}
-
-/// CSV with one row per evaluation point and grid value: the inputs, then the per-point terms.
-pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
-    let Source::Synthetic(s) = &plan.source else {
-        return match &outcome.summary {
-            Summary::Table(t) => crate::table::resample::points_csv(plan, t),
-            _ => String::new(),
-        };
-    };
-    let prep = &outcome.prepared;
-    let mut w = csv::Writer::from_writer(Vec::new());
-    let mut header = vec!["value".to_string(), "point".to_string()];
-    header.extend(s.process.inputs.iter().map(|i| i.name.clone()));
-    let num = |v: f64| {
-        if v.is_finite() {
-            v.to_string()
-        } else {
-            String::new()
-        }
-    };
-    match &outcome.summary {
-        Summary::Squared(sum) => {
-            header.extend(
-                ["truth", "noise", "mean_prediction", "bias_sq", "variance"].map(String::from),
-            );
-            w.write_record(&header).expect("in-memory csv");
-            let nv = prep.noise_var();
-            for (g, &value) in plan.grid.iter().enumerate() {
-                for (e, &noise_e) in nv.iter().enumerate().take(sum.total.points) {
-                    let t = prep.eval_truth[e];
-                    let p = crate::decompose::squared::point(&sum.total, g, e, t);
-                    let mut rec = vec![value.to_string(), e.to_string()];
-                    rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
-                    rec.extend([t, noise_e, p.mean_prediction, p.bias_sq, p.variance].map(num));
-                    w.write_record(&rec).expect("in-memory csv");
-                }
-            }
-        }
-        Summary::Table(_) => {}
-        Summary::ZeroOne(sum) => {
-            let labels = match &s.process.response {
-                Response::Classes(m) => m.labels.clone(),
-                Response::Regression { .. } => Vec::new(),
-            };
-            header.extend(
-                [
-                    "bayes_class",
-                    "main_prediction",
-                    "expected_loss",
-                    "noise",
-                    "bias",
-                    "variance",
-                    "c1",
-                    "c2",
-                    "kw_bias_sq",
-                    "kw_variance",
-                    "james_systematic_effect",
-                    "james_variance_effect",
-                ]
-                .map(String::from),
-            );
-            w.write_record(&header).expect("in-memory csv");
-            let probs = prep
-                .eval_probs
-                .as_ref()
-                .expect("classification has probabilities");
-            for (g, &value) in plan.grid.iter().enumerate() {
-                for e in 0..sum.total.points {
-                    let pt: Vec<f64> = probs.row(e).to_vec();
-                    let p = crate::decompose::zero_one::point(&sum.total, g, e, &pt);
-                    let label = |c: usize| labels.get(c).cloned().unwrap_or_else(|| c.to_string());
-                    let mut rec = vec![value.to_string(), e.to_string()];
-                    rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
-                    rec.push(label(p.bayes_class));
-                    rec.push(label(p.main_prediction));
-                    let t = &p.terms;
-                    rec.extend(
-                        [
-                            t.expected_loss,
-                            t.noise,
-                            t.bias,
-                            t.variance,
-                            p.c1,
-                            p.c2,
-                            t.kw_bias_sq,
-                            t.kw_variance,
-                            t.james_systematic,
-                            t.james_variance,
-                        ]
-                        .map(num),
-                    );
-                    w.write_record(&rec).expect("in-memory csv");
-                }
-            }
-        }
-    }
-    String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
 }

@@ -1,17 +1,21 @@
-//! The part document `lossprism-part/1`: the block accumulators of a shard (`run --shard I/N`) or
+//! The part document `lossprism-part/2`: the block accumulators of a shard (`run --shard I/N`) or
 //! of a checkpoint (`run --checkpoint FILE`), with the scenario text and a fingerprint so that
-//! `merge` and a resumed run can rebuild and verify the plan. These are plain data types (the
-//! logic lives in [`crate::shard`]); they are report input documents, so they derive both
-//! `Serialize` and `Deserialize`.
+//! `merge` and a resumed run can rebuild and verify the plan, and a checksum over the whole
+//! content. These are plain data types (the logic lives in [`crate::shard`]); they are read back,
+//! so they derive both `Serialize` and `Deserialize`.
 //!
-//! Floats never appear as decimal JSON numbers: every `f64` array is one packed hexadecimal string
-//! of `f64::to_bits` (16 lowercase digits per value), so a round trip is exact to the bit. Counts
-//! are plain JSON integers.
+//! Floats never appear as decimal JSON numbers: every `f64` array is one string holding the
+//! base64 of the values' little-endian IEEE bytes, so a round trip is exact to the bit. Counts
+//! are plain JSON integers. An accumulator is written the way its loss lays it out (named
+//! arrays), so a new loss needs no change here.
+//!
+//! Version 2 (this one) replaced version 1's per-loss records by named arrays, added several
+//! models per block, per-point counts for tables, the held-out share and the checksum.
 
 use serde::{Deserialize, Serialize};
 
 /// Identifier of the part format.
-pub const PART_FORMAT: &str = "lossprism-part/1";
+pub const PART_FORMAT: &str = "lossprism-part/2";
 
 /// Which shard of a run a part holds (`--shard index/count`, 1-based).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
@@ -22,42 +26,56 @@ pub struct ShardRef {
     pub count: u64,
 }
 
-/// One block accumulator, by loss. `f64` arrays are packed hex strings (see the module docs).
+/// The shape of an accumulator (see [`crate::decompose::Shape`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ShapeRecord {
+    /// Grid values.
+    pub grid: usize,
+    /// Evaluation points.
+    pub points: usize,
+    /// Classes (0 for regression).
+    pub classes: usize,
+    /// Fits per training set.
+    pub fits: usize,
+    /// Every replicate evaluates every point.
+    pub all_points: bool,
+    /// The family reports its diversity.
+    pub ensemble: bool,
+}
+
+/// A named float array, packed (see the module docs).
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
-#[serde(tag = "loss")]
-pub enum AccRecord {
-    /// A squared-loss accumulator.
-    #[serde(rename = "squared")]
-    Squared {
-        /// Replicates absorbed.
-        n: u64,
-        /// Number of grid values.
-        grid: usize,
-        /// Number of evaluation points.
-        points: usize,
-        /// Mean prediction per cell, packed hex.
-        mean: String,
-        /// Centred sum of squares per cell, packed hex.
-        m2: String,
-        /// Direct loss sums per grid value, packed hex.
-        direct: String,
-    },
-    /// A 0-1 loss (vote count) accumulator.
-    #[serde(rename = "zero_one")]
-    ZeroOne {
-        /// Replicates absorbed.
-        n: u64,
-        /// Number of grid values.
-        grid: usize,
-        /// Number of evaluation points.
-        points: usize,
-        /// Number of classes.
-        classes: usize,
-        /// Vote counts per grid value × point × class.
-        counts: Vec<u32>,
-        /// Direct loss sums per grid value, packed hex.
-        direct: String,
-    },
+pub struct FloatArray {
+    /// The loss's name of the array.
+    pub name: String,
+    /// Base64 of the little-endian bytes.
+    pub data: String,
+}
+
+/// A named count array.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct CountArray {
+    /// The loss's name of the array.
+    pub name: String,
+    /// The counts.
+    pub data: Vec<u32>,
+}
+
+/// One model's accumulator of one block.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct AccRecord {
+    /// Shape.
+    pub shape: ShapeRecord,
+    /// Replicates absorbed.
+    pub replicates: u64,
+    /// Per point: replicates that evaluated it (absent when every replicate evaluates every
+    /// point).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub count: Option<Vec<u64>>,
+    /// Float arrays, in the loss's layout order.
+    pub floats: Vec<FloatArray>,
+    /// Count arrays, in the loss's layout order.
+    pub counts: Vec<CountArray>,
 }
 
 /// A completed block.
@@ -69,14 +87,17 @@ pub struct BlockRecord {
     pub first_replicate: u64,
     /// One past the last replicate of the block.
     pub end_replicate: u64,
-    /// The block's accumulator.
-    pub acc: AccRecord,
-    /// Selection audit counts per grid value (scenarios with `[audit]` only).
+    /// One accumulator per model, in model order.
+    pub models: Vec<AccRecord>,
+    /// Selection audit counts per candidate (scenarios with `[audit]` only).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub audit: Option<Vec<u64>>,
+    /// Table sources: Σ and Σ² of the held-out shares, packed like a float array.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub held_share: Option<String>,
 }
 
-/// The part document (`lossprism-part/1`), written by `run --shard` and `run --checkpoint`.
+/// The part document (`lossprism-part/2`), written by `run --shard` and `run --checkpoint`.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
 pub struct PartDoc {
     /// Always [`PART_FORMAT`].
@@ -91,10 +112,8 @@ pub struct PartDoc {
     pub shard: Option<ShardRef>,
     /// Scenario name.
     pub name: String,
-    /// Family name.
-    pub family: String,
-    /// Knob name.
-    pub knob: String,
+    /// Family names, one per model.
+    pub families: Vec<String>,
     /// Loss name.
     pub loss: String,
     /// Master seed (after overrides).
@@ -103,14 +122,13 @@ pub struct PartDoc {
     pub replicates: u64,
     /// Number of replicate blocks.
     pub blocks: u64,
-    /// Grid values as hex bit patterns (one 16-digit string each).
-    pub grid: Vec<String>,
-    /// The resolved scenario echo, for reading only (the plan is rebuilt from `scenario_text`).
-    pub scenario: serde_json::Value,
     /// The scenario file as it was named on the command line.
     pub scenario_file: String,
     /// The scenario file's text, verbatim.
     pub scenario_text: String,
     /// Completed blocks, ascending by index.
     pub completed: Vec<BlockRecord>,
+    /// FNV-1a (64 bit) of the document's compact JSON with this field empty: any change to the
+    /// content is detected on load.
+    pub checksum: String,
 }

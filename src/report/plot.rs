@@ -5,11 +5,13 @@
 use plotters::coord::Shift;
 use plotters::prelude::*;
 
-use super::table::View;
-use super::{fmt_value, ResultDoc};
+use super::terminal::View;
+use super::ResultDoc;
 use crate::error::Error;
-use crate::runner::{self, Outcome};
+use crate::fmt::fmt_value;
+use crate::runner::Outcome;
 use crate::scenario::{Plan, Source};
+use ndarray::{Array1, Array2};
 
 /// Width and height of the curve picture in pixels.
 pub const CURVE_SIZE: (u32, u32) = (960, 560);
@@ -101,134 +103,54 @@ fn looks() -> [Look; 4] {
     ]
 }
 
-/// The four series the curve shows for a document: expected loss, the bias-type term, the
-/// variance-type term and noise. For 0-1 loss the terms follow `view` (Domingos for `All`).
+/// The series the curve shows for a document: expected loss, then the bias-type, variance-type
+/// and noise terms of the view (found by their roles in the document's term description). For
+/// 0-1 loss the Domingos view draws the net variance (the variance as it enters the loss).
 fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
+    let terms = doc.term_docs();
     let p = &doc.points;
-    let col = |f: &dyn Fn(&super::PointRow) -> f64| p.iter().map(f).collect::<Vec<f64>>();
-    let cse = |f: &dyn Fn(&super::PointRow) -> Option<f64>| p.iter().map(f).collect();
-    let nan = f64::NAN;
     let [l0, l1, l2, l3] = looks();
-    let loss = Series {
-        label: "expected loss".into(),
-        values: col(&|r| r.expected_loss),
-        se: cse(&|r| r.stderr.expected_loss),
-        look: l0,
-    };
-    let mk = |label: &str, values: Vec<f64>, se: Vec<Option<f64>>, look: Look| Series {
-        label: label.into(),
-        values,
-        se,
+    let series = |key: &str, label: String, look: Look| Series {
+        label,
+        values: p.iter().map(|r| r.get(key)).collect(),
+        se: p.iter().map(|r| r.se(key)).collect(),
         look,
     };
-    if doc.loss == "squared" {
-        return vec![
-            loss,
-            mk(
-                "bias²",
-                col(&|r| r.bias_sq.unwrap_or(nan)),
-                cse(&|r| r.stderr.bias_sq.flatten()),
-                l1,
-            ),
-            mk(
-                "variance",
-                col(&|r| r.variance),
-                cse(&|r| r.stderr.variance),
-                l2,
-            ),
-            mk("noise", col(&|r| r.noise), cse(&|_| Some(0.0)), l3),
-        ];
+    let group = match view {
+        View::KohaviWolpert => "kohavi_wolpert",
+        View::James => "james",
+        View::Domingos | View::All => "main",
+    };
+    let find = |role: &str, grp: &str| {
+        terms
+            .iter()
+            .find(|t| t.role == role && t.group == grp)
+            .map(|t| (t.key.clone(), t.label.clone()))
+    };
+    let suffix = match view {
+        View::KohaviWolpert => " (Kohavi-Wolpert)",
+        View::James => " (James)",
+        _ => "",
+    };
+    let mut out = vec![series("expected_loss", "expected loss".into(), l0)];
+    if let Some((k, l)) = find("bias", group) {
+        out.push(series(&k, format!("{l}{suffix}"), l1));
     }
-    match view {
-        View::KohaviWolpert => vec![
-            loss,
-            mk(
-                "bias² (Kohavi-Wolpert)",
-                col(&|r| {
-                    r.kohavi_wolpert
-                        .as_ref()
-                        .and_then(|k| k.bias_sq)
-                        .unwrap_or(nan)
-                }),
-                cse(&|r| r.stderr.kohavi_wolpert.as_ref().and_then(|k| k.bias_sq)),
-                l1,
-            ),
-            mk(
-                "variance (Kohavi-Wolpert)",
-                col(&|r| {
-                    r.kohavi_wolpert
-                        .as_ref()
-                        .and_then(|k| k.variance)
-                        .unwrap_or(nan)
-                }),
-                cse(&|r| r.stderr.kohavi_wolpert.as_ref().and_then(|k| k.variance)),
-                l2,
-            ),
-            mk(
-                "noise (Kohavi-Wolpert)",
-                col(&|r| {
-                    r.kohavi_wolpert
-                        .as_ref()
-                        .and_then(|k| k.noise)
-                        .unwrap_or(nan)
-                }),
-                cse(&|_| Some(0.0)),
-                l3,
-            ),
-        ],
-        View::James => vec![
-            loss,
-            mk(
-                "systematic effect (James)",
-                col(&|r| {
-                    r.james
-                        .as_ref()
-                        .and_then(|j| j.systematic_effect)
-                        .unwrap_or(nan)
-                }),
-                cse(&|r| r.stderr.james.as_ref().and_then(|j| j.systematic_effect)),
-                l1,
-            ),
-            mk(
-                "variance effect (James)",
-                col(&|r| {
-                    r.james
-                        .as_ref()
-                        .and_then(|j| j.variance_effect)
-                        .unwrap_or(nan)
-                }),
-                cse(&|r| r.stderr.james.as_ref().and_then(|j| j.variance_effect)),
-                l2,
-            ),
-            mk(
-                "noise (Bayes error)",
-                col(&|r| r.noise),
-                cse(&|_| Some(0.0)),
-                l3,
-            ),
-        ],
-        View::Domingos | View::All => vec![
-            loss,
-            mk(
-                "bias (Domingos)",
-                col(&|r| r.bias.unwrap_or(nan)),
-                cse(&|r| r.stderr.bias.flatten()),
-                l1,
-            ),
-            mk(
-                "net variance (Domingos)",
-                col(&|r| r.net_variance.unwrap_or(nan)),
-                cse(&|r| r.stderr.net_variance.flatten()),
-                l2,
-            ),
-            mk(
-                "noise (Bayes error)",
-                col(&|r| r.noise),
-                cse(&|_| Some(0.0)),
-                l3,
-            ),
-        ],
+    let variance = if group == "main" && terms.iter().any(|t| t.key == "net_variance") {
+        Some(("net_variance".to_string(), "net variance".to_string()))
+    } else {
+        find("variance", group)
+    };
+    if let Some((k, l)) = variance {
+        out.push(series(&k, format!("{l}{suffix}"), l2));
     }
+    let noise = find("noise", group).or_else(|| find("noise", "main"));
+    if let Some((k, l)) = noise {
+        let mut s = series(&k, format!("{l}{suffix}"), l3);
+        s.se = vec![Some(0.0); s.values.len()];
+        out.push(s);
+    }
+    out
 }
 
 /// Whether the x axis is logarithmic: a `log` grid of positive values.
@@ -371,10 +293,10 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         }
     }
     let (y0, y1) = padded(ys.into_iter(), &[0.0], 0.06);
-    let unit = if doc.loss == "squared" {
-        "loss (squared units of the response)"
+    let unit = if doc.scenario.labels.is_some() {
+        "loss (per evaluation point)"
     } else {
-        "loss (share of points misclassified)"
+        "loss (squared units of the response)"
     };
     let knob = doc.knob.clone();
     let best_x = tx(doc.best.value);
@@ -588,17 +510,40 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             INK,
             24,
         )? + 14;
-        let note = if doc.loss == "squared" {
-            "Expected loss = noise + bias² + variance. Left of the best value bias² dominates \
-             (underfitting); right of it variance grows (overfitting)."
-        } else {
-            "Expected loss of 0-1 predictions and the chosen decomposition's terms; a net \
-             variance below zero means variance helps where the model is biased."
-        };
-        panel_text(&panel, note, (8, y), 12, STONE, 38)?;
+        let note = curve_note(doc, view);
+        panel_text(&panel, &note, (8, y), 12, STONE, 38)?;
         root.present().map_err(draw_err)?;
     }
     Ok(buf)
+}
+
+/// The footnote of the curve picture, derived from the knob's direction and the view.
+fn curve_note(doc: &ResultDoc, view: View) -> String {
+    let (simple, complex) = if doc.larger_is_simpler {
+        ("Right", "left")
+    } else {
+        ("Left", "right")
+    };
+    match view {
+        View::Domingos | View::All if doc.term_docs().iter().any(|t| t.key == "net_variance") => format!(
+            "Domingos: expected loss = c1·noise + bias + net variance. A net variance below zero \
+             means variance helps where the majority prediction is wrong. {simple} of the best \
+             value the model is simpler, {complex} of it more complex."
+        ),
+        View::KohaviWolpert => format!(
+            "Kohavi-Wolpert: expected loss = noise + bias² + variance of the predicted class \
+             distribution. {simple} of the best value the model is simpler, {complex} of it more complex."
+        ),
+        View::James => format!(
+            "James: expected loss = noise + systematic effect + variance effect. {simple} of the \
+             best value the model is simpler, {complex} of it more complex."
+        ),
+        _ => format!(
+            "Expected loss = noise + bias² + variance. {simple} of the best value the model is \
+             simpler and bias² tends to dominate (underfitting); {complex} of it variance grows \
+             (overfitting)."
+        ),
+    }
 }
 
 /// One mean-prediction curve of the per-point view.
@@ -661,9 +606,7 @@ fn input_column(names: &[String], input: Option<&str>) -> Result<usize, Error> {
 /// Checks before a run that the per-point view can be drawn for `plan` with `input`, so a
 /// long run does not end in a refusal.
 pub fn check_point_request(plan: &Plan, input: Option<&str>) -> Result<(), Error> {
-    if !matches!(plan.source, Source::Synthetic(_))
-        || plan.loss != crate::scenario::LossKind::Squared
-    {
+    if !matches!(plan.source, Source::Synthetic(_)) || plan.task != crate::family::Task::Regress {
         return Err(Error::Usage(
             "--plot-points needs a synthetic scenario with squared loss (a known truth and mean \
              predictions)"
@@ -678,34 +621,37 @@ pub fn check_point_request(plan: &Plan, input: Option<&str>) -> Result<(), Error
     input_column(&names, input).map(|_| ())
 }
 
-/// Builds the per-point view of a finished squared-loss run: the truth and the mean prediction
+/// Builds the per-point view of a finished regression run: the truth and the mean prediction
 /// (±1 prediction sd) at the smallest, the best and the largest knob value, against one input.
 /// With several inputs, `input` names the one on the x axis and the others are averaged over
 /// within equal-width bins of it; without `input` a run with several inputs is refused.
+/// `train` is replicate 0's training set (inputs and responses), which the caller draws
+/// ([`crate::runner::training_set`]).
 pub fn point_view(
     plan: &Plan,
     outcome: &Outcome,
     doc: &ResultDoc,
     input: Option<&str>,
+    train: (&Array2<f64>, &Array1<f64>),
 ) -> Result<PointView, Error> {
     if !matches!(plan.source, Source::Synthetic(_)) {
         return Err(Error::Usage(
             "the per-point view needs a synthetic scenario (a known truth f)".into(),
         ));
     }
-    let Some(sum) = outcome.summary.squared() else {
+    if plan.task != crate::family::Task::Regress {
         return Err(Error::Usage(
-            "the per-point view needs squared loss (mean predictions); this run uses 0-1 loss"
-                .into(),
+            "the per-point view needs a regression (mean predictions); this run classifies".into(),
         ));
-    };
+    }
+    let sum = outcome.summary();
     let names: Vec<String> = doc.scenario.inputs.iter().map(|i| i.name.clone()).collect();
     let col = input_column(&names, input)?;
     let prep = &outcome.prepared;
     let acc = &sum.total;
-    let m = acc.points;
+    let m = acc.shape.points;
     let ex: Vec<f64> = prep.eval_x.column(col).to_vec();
-    let grid = &plan.grid;
+    let grid = &plan.model().grid;
     let best_g = grid.iter().position(|v| *v == doc.best.value).unwrap_or(0);
     let mut picks: Vec<(usize, &str)> = vec![(0, "smallest")];
     if best_g != 0 {
@@ -768,11 +714,11 @@ pub fn point_view(
                 .collect(),
         })
         .collect();
-    let (tx, ty) = runner::training_set(plan, prep, 0)?;
+    let (tx, ty) = train;
     Ok(PointView {
         scenario: plan.name.clone(),
-        family: plan.family.name().to_string(),
-        knob: plan.family.knob().to_string(),
+        family: plan.model().family.name().to_string(),
+        knob: plan.model().family.knob().to_string(),
         input: names[col].clone(),
         averaged_over: names
             .iter()

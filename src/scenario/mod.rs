@@ -1,10 +1,14 @@
 //! Scenario files: `spec` is exactly what the user wrote (serde), `plan` is the validated,
-//! expanded form the runner executes (grid expanded, family built, defaults filled).
+//! expanded form the engine executes (grids expanded, families built, defaults filled); `table`,
+//! `twin` and `audit` plan those sections.
 
+pub mod audit;
 pub mod plan;
 pub mod spec;
+pub mod table;
+pub mod twin;
 
-pub use plan::{Design, GridKind, LossKind, Plan, PlanOptions, Source, SyntheticPlan};
+pub use plan::{Design, GridKind, ModelPlan, Plan, PlanOptions, Source, SyntheticPlan};
 
 use crate::error::{Error, ScenarioError};
 use std::path::Path;

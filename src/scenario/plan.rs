@@ -1,6 +1,7 @@
-//! A validated, expanded scenario: every default filled, the grid expanded and sorted, the
-//! family built, formulas compiled. Building a plan is the only place scenario semantics are
-//! checked; every error names the file, the line and the key.
+//! A validated, expanded scenario: every default filled, grids expanded and sorted, families
+//! built (each from its own checked options), formulas compiled, the loss resolved. Building a
+//! plan is the only place scenario semantics are checked; every error names the file, the line
+//! and the key.
 
 use std::ops::Range;
 use std::path::Path;
@@ -8,13 +9,16 @@ use std::sync::Arc;
 
 use toml::Spanned;
 
-use super::spec::{ClassesSpec, DataSpec, InputSpec, ModelSpec, ScenarioSpec};
+use super::audit::AuditPlan;
+use super::spec::{ClassesSpec, DataSpec, InputSpec, ScenarioSpec};
+use crate::dataset::TablePlan;
+use crate::decompose::{self, Loss, Shape};
 use crate::dgp::{
     Builtin, ClassKind, ClassModel, Input, InputDist, Noise, Response, Synthetic, Truth,
 };
 use crate::error::ScenarioError;
 use crate::expr::Formula;
-use crate::family::{self, Family, Task};
+use crate::family::{self, BuildContext, Family, Options, Task};
 
 /// Default number of replicates when the file gives none.
 pub const DEFAULT_REPLICATES: u64 = 200;
@@ -22,6 +26,8 @@ pub const DEFAULT_REPLICATES: u64 = 200;
 pub const DEFAULT_SEED: u64 = 1;
 /// Default number of blocks is `min(R, DEFAULT_MAX_BLOCKS)`.
 pub const DEFAULT_MAX_BLOCKS: u64 = 32;
+/// Most fits per training set (`fit_seeds`).
+pub const MAX_FIT_SEEDS: usize = 1024;
 
 /// Command-line overrides applied on top of the file.
 #[derive(Debug, Clone, Default)]
@@ -52,21 +58,13 @@ pub enum GridKind {
     Log,
 }
 
-/// The loss being decomposed.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum LossKind {
-    /// Squared error.
-    Squared,
-    /// 0-1 loss (misclassification).
-    ZeroOne,
-}
-
-impl LossKind {
-    /// Name as written in files and results.
+impl GridKind {
+    /// Name as written in results (`list`, `range`, `log`).
     pub fn name(self) -> &'static str {
         match self {
-            LossKind::Squared => "squared",
-            LossKind::ZeroOne => "zero_one",
+            GridKind::List => "list",
+            GridKind::Range => "range",
+            GridKind::Log => "log",
         }
     }
 }
@@ -89,10 +87,33 @@ pub struct SyntheticPlan {
 /// Where training sets come from.
 #[derive(Debug, Clone)]
 pub enum Source {
-    /// A known generating process.
+    /// A known generating process (a synthetic scenario or a twin).
     Synthetic(SyntheticPlan),
-    /// A CSV table, decomposed by resampling its rows (see [`crate::table`]).
-    Table(Box<crate::table::TablePlan>),
+    /// A CSV table, decomposed by resampling its rows (see [`crate::dataset`]).
+    Table(Box<TablePlan>),
+}
+
+/// One model section: a family, its grid and its fits per training set.
+#[derive(Clone)]
+pub struct ModelPlan {
+    /// The family.
+    pub family: Arc<dyn Family>,
+    /// Grid values, ascending, distinct.
+    pub grid: Vec<f64>,
+    /// How the grid was written.
+    pub grid_kind: GridKind,
+    /// Fits per replicate training set (`fit_seeds`, default 1).
+    pub fit_seeds: usize,
+}
+
+impl std::fmt::Debug for ModelPlan {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("ModelPlan")
+            .field("family", &self.family.name())
+            .field("grid", &self.grid)
+            .field("fit_seeds", &self.fit_seeds)
+            .finish()
+    }
 }
 
 /// A scenario ready to run.
@@ -116,18 +137,14 @@ pub struct Plan {
     pub blocks: u64,
     /// Data source.
     pub source: Source,
-    /// The family.
-    pub family: Arc<dyn Family>,
-    /// Grid values, ascending, distinct.
-    pub grid: Vec<f64>,
-    /// How the grid was written.
-    pub grid_kind: GridKind,
-    /// Loss.
-    pub loss: LossKind,
+    /// The model sections (at least one), all fitted on the same training sets.
+    pub models: Vec<ModelPlan>,
+    /// The loss.
+    pub loss: &'static dyn Loss,
     /// Regression or classification.
     pub task: Task,
     /// The selection audit (`[audit]`), if any.
-    pub audit: Option<crate::audit::AuditPlan>,
+    pub audit: Option<AuditPlan>,
 }
 
 impl std::fmt::Debug for Plan {
@@ -136,8 +153,8 @@ impl std::fmt::Debug for Plan {
             .field("name", &self.name)
             .field("seed", &self.seed)
             .field("replicates", &self.replicates)
-            .field("family", &self.family.name())
-            .field("grid", &self.grid)
+            .field("models", &self.models)
+            .field("loss", &self.loss.name())
             .finish()
     }
 }
@@ -157,6 +174,20 @@ impl Ctx<'_> {
         ScenarioError {
             file: self.file.to_string(),
             line: span.map(|s| super::line_of(self.src, s.start)),
+            key: Some(key.to_string()),
+            message: message.into(),
+        }
+    }
+
+    fn err_line(
+        &self,
+        line: Option<usize>,
+        key: &str,
+        message: impl Into<String>,
+    ) -> ScenarioError {
+        ScenarioError {
+            file: self.file.to_string(),
+            line,
             key: Some(key.to_string()),
             message: message.into(),
         }
@@ -188,6 +219,47 @@ impl Ctx<'_> {
     }
 }
 
+/// The lines of `src` where each `[model]` / `[[model]]` section starts (in order), and where each
+/// ends (the next table header, or the end).
+fn model_sections(src: &str) -> Vec<(usize, usize)> {
+    let lines: Vec<&str> = src.lines().collect();
+    let mut starts = Vec::new();
+    for (i, l) in lines.iter().enumerate() {
+        let t = l.trim();
+        if t == "[model]"
+            || t == "[[model]]"
+            || t.starts_with("[model]")
+            || t.starts_with("[[model]]")
+        {
+            starts.push(i);
+        }
+    }
+    starts
+        .iter()
+        .map(|&s| {
+            let end = (s + 1..lines.len())
+                .find(|&j| lines[j].trim_start().starts_with('['))
+                .unwrap_or(lines.len());
+            (s, end)
+        })
+        .collect()
+}
+
+/// 1-based line of `key = ...` within section `(start, end)` of `src`, else the section's header.
+fn key_line(src: &str, section: Option<(usize, usize)>, key: &str) -> Option<usize> {
+    let (start, end) = section?;
+    let found = src
+        .lines()
+        .enumerate()
+        .skip(start)
+        .take(end - start)
+        .find(|(_, l)| {
+            l.split_once('=')
+                .is_some_and(|(k, _)| k.trim().trim_matches('"') == key)
+        });
+    Some(found.map_or(start, |(i, _)| i) + 1)
+}
+
 impl Plan {
     /// Validates a spec. `src` is the file text (for line numbers), `base` the folder that
     /// relative paths in the file are resolved against.
@@ -199,30 +271,56 @@ impl Plan {
         opts: &PlanOptions,
     ) -> Result<Plan, ScenarioError> {
         let cx = Ctx { file, src };
-        let name = spec.name.get_ref().trim().to_string();
+        let Some(name_spec) = &spec.name else {
+            return Err(cx.err_line(
+                None,
+                "name",
+                "is missing: every scenario starts with `name = \"...\"` (a short name used in outputs)",
+            ));
+        };
+        let Some(data) = &spec.data else {
+            return Err(cx.err_line(
+                None,
+                "data",
+                "is missing: add a [data] section saying where training sets come from (source = \"synthetic\", \"table\" or \"twin\")",
+            ));
+        };
+        let Some(model_spec) = &spec.model else {
+            return Err(cx.err_line(
+                None,
+                "model",
+                "is missing: add a [model] section with `family` and `grid` (`lossprism families` lists them)",
+            ));
+        };
+        let name = name_spec.get_ref().trim().to_string();
         if name.is_empty() {
-            return Err(cx.err(Some(spec.name.span()), "name", "must not be empty"));
+            return Err(cx.err(Some(name_spec.span()), "name", "must not be empty"));
+        }
+        if name.chars().count() > 200 || name.chars().any(char::is_control) {
+            return Err(cx.err(
+                Some(name_spec.span()),
+                "name",
+                "must be one line of at most 200 characters",
+            ));
         }
         let replicates = match (opts.replicates, &spec.replicates) {
             (Some(r), _) => {
                 if r > upper_limit("--replicates") as u64 {
-                    return Err(ScenarioError {
-                        file: file.to_string(),
-                        line: None,
-                        key: Some("--replicates".into()),
-                        message: format!(
+                    return Err(cx.err_line(
+                        None,
+                        "--replicates",
+                        format!(
                             "{r} is more than this tool accepts (at most {})",
                             upper_limit("--replicates")
                         ),
-                    });
+                    ));
                 }
                 if r < 2 {
-                    return Err(ScenarioError {
-                        file: file.to_string(),
-                        line: None,
-                        key: Some("--replicates".into()),
-                        message: format!("must be at least 2, got {r}"),
-                    });
+                    return Err(cx.err_line(
+                        None,
+                        "--replicates",
+                        format!("must be at least 2, got {r}"),
+                    ));
                 }
                 r
             }
@@ -239,17 +337,17 @@ impl Plan {
         let seed = opts.seed.or(spec.seed).unwrap_or(DEFAULT_SEED);
         let eval_seed = spec.eval_seed.unwrap_or(seed);
 
-        let source_name = spec.data.source.get_ref().as_str();
+        let source_name = data.source.get_ref().as_str();
         let source = match source_name {
             "synthetic" => {
-                crate::table::reject_table_keys(&spec.data, src, file)?;
-                reject_twin_keys(&cx, &spec.data)?;
-                Source::Synthetic(synthetic(&cx, &spec.data)?)
+                super::table::reject_table_keys(data, src, file)?;
+                reject_twin_keys(&cx, data)?;
+                Source::Synthetic(synthetic(&cx, data)?)
             }
-            "twin" => Source::Synthetic(crate::twin::from_spec(&spec.data, src, file, base)?),
-            "table" if spec.data.reference.is_some() || spec.audit.is_some() => {
+            "twin" => Source::Synthetic(super::twin::from_spec(data, src, file, base)?),
+            "table" if data.reference.is_some() || spec.audit.is_some() => {
                 return Err(cx.err(
-                    Some(spec.data.source.span()),
+                    Some(data.source.span()),
                     if spec.audit.is_some() {
                         "audit"
                     } else {
@@ -258,8 +356,8 @@ impl Plan {
                     "belongs to a synthetic or twin source, not to `source = \"table\"`",
                 ))
             }
-            "table" => Source::Table(Box::new(crate::table::from_spec(
-                &spec.data,
+            "table" => Source::Table(Box::new(super::table::from_spec(
+                data,
                 src,
                 file,
                 base,
@@ -267,7 +365,7 @@ impl Plan {
             )?)),
             other => {
                 return Err(cx.err(
-                    Some(spec.data.source.span()),
+                    Some(data.source.span()),
                     "data.source",
                     format!("unknown source `{other}`; expected `synthetic`, `table` or `twin`"),
                 ))
@@ -284,92 +382,70 @@ impl Plan {
                 Task::Regress => None,
             },
         };
-        let loss = match (&spec.loss, classes) {
-            (None, None) => LossKind::Squared,
-            (None, Some(_)) => LossKind::ZeroOne,
-            (Some(l), _) => match (l.kind.get_ref().as_str(), classes) {
-                ("squared", None) => LossKind::Squared,
-                ("zero_one", Some(_)) => LossKind::ZeroOne,
-                ("zero_one", None) => {
-                    return Err(cx.err(
-                        Some(l.kind.span()),
-                        "loss.kind",
-                        "`zero_one` needs a classification scenario: add [data.classes] (or use `squared`)",
-                    ))
-                }
-                ("squared", Some(_)) => {
-                    return Err(cx.err(
-                        Some(l.kind.span()),
-                        "loss.kind",
-                        "a classification scenario ([data.classes]) is decomposed under `zero_one` loss",
-                    ))
-                }
-                (other, _) => {
-                    return Err(cx.err(
-                        Some(l.kind.span()),
-                        "loss.kind",
-                        format!("unknown loss `{other}`; expected `squared` or `zero_one`"),
-                    ))
-                }
-            },
-        };
         let task = match classes {
             Some(k) => Task::Classify { classes: k },
             None => Task::Regress,
         };
+        let loss = resolve_loss(&cx, spec, task)?;
 
         let (n_train, n_inputs) = match &source {
             Source::Synthetic(s) => (s.train_size, s.process.inputs.len()),
             Source::Table(t) => (t.train_size(), t.table.x.ncols()),
         };
-        let fam = build_family(&cx, &spec.model, base)?;
-        if !fam.supports(task) {
-            return Err(cx.err(
-                Some(spec.model.family.span()),
-                "model.family",
-                match task {
-                    Task::Regress => format!("family `{}` does not do regression", fam.name()),
-                    Task::Classify { .. } => format!(
-                        "family `{}` does not classify; with [data.classes] use one of: {}",
-                        fam.name(),
-                        family::catalogue()
-                            .iter()
-                            .filter(|f| f.tasks.contains("classification"))
-                            .map(|f| f.name)
-                            .collect::<Vec<_>>()
-                            .join(", ")
-                    ),
-                },
-            ));
-        }
-        let (grid, grid_kind) = expand_grid(&cx, &spec.model.grid)?;
-        fam.check_grid(&grid, n_train, n_inputs)
-            .map_err(|m| cx.err(Some(spec.model.grid.span()), "model.grid", m))?;
+        let models = build_models(&cx, model_spec, base, task, loss, n_train, n_inputs)?;
         let audit = match &spec.audit {
-            Some(a) => Some(crate::audit::from_spec(
+            Some(a) => Some(super::audit::from_spec(
                 a,
                 src,
                 file,
-                fam.as_ref(),
-                &grid,
+                models[0].family.as_ref(),
+                &models
+                    .iter()
+                    .flat_map(|m| m.grid.iter().copied())
+                    .collect::<Vec<_>>(),
                 n_train,
                 n_inputs,
             )?),
             None => None,
         };
+        if let Some(a) = &audit {
+            for m in &models[1..] {
+                let smallest = n_train - n_train.div_ceil(a.folds);
+                m.family.check_grid(&m.grid, smallest, n_inputs).map_err(|msg| {
+                    cx.err_line(
+                        None,
+                        "audit.folds",
+                        format!(
+                            "with {} folds a fold fit trains on {smallest} of the {n_train} rows, too few for family `{}`: {msg}",
+                            a.folds,
+                            m.family.name()
+                        ),
+                    )
+                })?;
+            }
+        }
         let n_eval = match &source {
             Source::Synthetic(s) => s.eval_size,
             Source::Table(t) => t.table.x.nrows(),
         };
-        let bytes = accumulator_bytes(blocks, grid.len(), n_eval, task);
+        let mut bytes = 0.0;
+        for m in &models {
+            let shape = Shape {
+                grid: m.grid.len(),
+                points: n_eval,
+                classes: task.classes(),
+                fits: m.fit_seeds,
+                all_points: matches!(source, Source::Synthetic(_)),
+                ensemble: m.family.caps(task).ensemble,
+            };
+            bytes += accumulator_bytes(blocks, loss, &shape);
+        }
         if bytes > MAX_ACCUMULATOR_BYTES {
-            return Err(cx.err(
-                Some(spec.model.grid.span()),
+            return Err(cx.err_line(
+                key_line(src, model_sections(src).first().copied(), "grid"),
                 "model.grid",
                 format!(
-                    "{} blocks × {} grid values × {n_eval} evaluation points need {:.1} GiB of accumulators (at most 8); lower `blocks`, the grid or `eval_size`",
-                    blocks,
-                    grid.len(),
+                    "{blocks} blocks × the grid × {n_eval} evaluation points need {:.1} GiB of accumulators (at most 8); lower `blocks`, the grid or `eval_size`",
                     bytes / 1024f64.powi(3)
                 ),
             ));
@@ -385,13 +461,16 @@ impl Plan {
             replicates,
             blocks,
             source,
-            family: fam,
-            grid,
-            grid_kind,
+            models,
             loss,
             task,
             audit,
         })
+    }
+
+    /// The first (or only) model section.
+    pub fn model(&self) -> &ModelPlan {
+        &self.models[0]
     }
 
     /// Number of training rows per replicate.
@@ -402,13 +481,31 @@ impl Plan {
         }
     }
 
-    /// Replaces the family (for estimators supplied from Rust, see [`crate::harness`]),
-    /// checking that it supports the task and accepts the grid, as planning a file would.
-    pub fn with_family(mut self, family: Arc<dyn Family>) -> Result<Plan, ScenarioError> {
-        let n_inputs = match &self.source {
+    /// Number of input columns.
+    pub fn n_inputs(&self) -> usize {
+        match &self.source {
             Source::Synthetic(s) => s.process.inputs.len(),
             Source::Table(t) => t.table.x.ncols(),
-        };
+        }
+    }
+
+    /// The accumulator shape of model `i` with `points` evaluation points.
+    pub fn shape(&self, i: usize, points: usize) -> Shape {
+        let m = &self.models[i];
+        Shape {
+            grid: m.grid.len(),
+            points,
+            classes: self.task.classes(),
+            fits: m.fit_seeds,
+            all_points: matches!(self.source, Source::Synthetic(_)),
+            ensemble: m.family.caps(self.task).ensemble,
+        }
+    }
+
+    /// Replaces the family of the first model (for estimators supplied from Rust, see
+    /// [`crate::harness`]), checking that it supports the task and accepts the grid, as planning
+    /// a file would.
+    pub fn with_family(mut self, family: Arc<dyn Family>) -> Result<Plan, ScenarioError> {
         let err = |key: &str, message: String| ScenarioError {
             file: self.file.clone(),
             line: None,
@@ -416,27 +513,38 @@ impl Plan {
             message,
         };
         if !family.supports(self.task) {
-            let what = match self.task {
-                Task::Regress => "regression".to_string(),
-                Task::Classify { classes } => format!("classification with {classes} classes"),
-            };
             return Err(err(
                 "model.family",
-                format!("family `{}` does not support {what}", family.name()),
+                format!(
+                    "family `{}` does not support {}",
+                    family.name(),
+                    self.task.describe()
+                ),
+            ));
+        }
+        if self.loss.needs_probs() && !family.caps(self.task).probabilities {
+            return Err(err(
+                "model.family",
+                format!(
+                    "family `{}` gives no class probabilities, which the {} loss needs",
+                    family.name(),
+                    self.loss.name()
+                ),
             ));
         }
         family
-            .check_grid(&self.grid, self.train_size(), n_inputs)
+            .check_grid(&self.models[0].grid, self.train_size(), self.n_inputs())
             .map_err(|m| err("model.grid", m))?;
-        self.family = family;
+        self.models[0].family = family;
         Ok(self)
     }
 
     /// Replicate index range `[start, end)` of block `b` (blocks differ in size by at most one).
     pub fn block_range(&self, b: u64) -> (u64, u64) {
-        let r = self.replicates;
-        let nb = self.blocks;
-        (b * r / nb, (b + 1) * r / nb)
+        let r = self.replicates as u128;
+        let nb = self.blocks as u128;
+        let b = b as u128;
+        ((b * r / nb) as u64, ((b + 1) * r / nb) as u64)
     }
 }
 
@@ -452,203 +560,255 @@ fn upper_limit(key: &str) -> i64 {
     }
 }
 
-/// Bytes the block accumulators of a run hold at the end (all blocks are kept for the jackknife).
-fn accumulator_bytes(blocks: u64, grid: usize, eval: usize, task: Task) -> f64 {
-    let per_cell = match task {
-        Task::Regress => 16.0,
-        Task::Classify { classes } => 4.0 * classes as f64,
-    };
-    blocks as f64 * grid as f64 * eval as f64 * per_cell
+/// Bytes the block accumulators of one model hold at the end (all blocks are kept for the
+/// jackknife).
+fn accumulator_bytes(blocks: u64, loss: &dyn Loss, shape: &Shape) -> f64 {
+    let per_block: f64 = loss
+        .layout(shape)
+        .iter()
+        .map(|a| {
+            a.len as f64
+                * match a.kind {
+                    decompose::Kind::Float => 8.0,
+                    decompose::Kind::Count => 4.0,
+                }
+        })
+        .sum::<f64>()
+        + 8.0 * shape.points as f64;
+    blocks as f64 * per_block
 }
 
 /// Largest accumulator memory accepted (8 GiB).
 const MAX_ACCUMULATOR_BYTES: f64 = 8.0 * 1024.0 * 1024.0 * 1024.0;
 
-fn build_family(
+/// The loss: `[loss] kind`, else squared for regression and 0-1 for classification; checked
+/// against the task.
+fn resolve_loss(
     cx: &Ctx<'_>,
-    m: &ModelSpec,
-    base: &Path,
-) -> Result<Arc<dyn Family>, ScenarioError> {
-    let name = m.family.get_ref().as_str();
-    let reject =
-        |present: bool, key: &str, span: Option<Range<usize>>| -> Result<(), ScenarioError> {
-            if present {
-                Err(cx.err(
-                    span,
-                    &format!("model.{key}"),
-                    format!("not an option of family `{name}`"),
-                ))
-            } else {
-                Ok(())
-            }
-        };
-    if name != "external" {
-        let span = |s: Option<Range<usize>>| s.or_else(|| Some(m.family.span()));
-        reject(
-            m.command.is_some(),
-            "command",
-            span(m.command.as_ref().map(|s| s.span())),
-        )?;
-        reject(
-            m.knob.is_some(),
-            "knob",
-            span(m.knob.as_ref().map(|s| s.span())),
-        )?;
-        let timeout = m.timeout_seconds.as_ref().map(|s| s.span());
-        reject(
-            m.timeout_seconds.is_some(),
-            "timeout_seconds",
-            span(timeout),
-        )?;
-    }
-    let fam: Arc<dyn Family> = match name {
-        "tree" => {
-            reject(
-                m.standardize.is_some(),
-                "standardize",
-                Some(m.family.span()),
-            )?;
-            let mut t = family::tree::TreeFamily::default();
-            if let Some(l) = &m.min_samples_leaf {
-                t.min_samples_leaf = cx.positive(l, "model.min_samples_leaf", 1)? as usize;
-            }
-            if let Some(c) = &m.criterion {
-                t.criterion = match c.get_ref().as_str() {
-                    "gini" => family::tree::Criterion::Gini,
-                    "entropy" => family::tree::Criterion::Entropy,
-                    other => {
-                        return Err(cx.err(
-                            Some(c.span()),
-                            "model.criterion",
-                            format!("unknown criterion `{other}`; expected `gini` or `entropy`"),
-                        ))
-                    }
-                };
-            }
-            Arc::new(t)
-        }
-        "knn" => {
-            reject(
-                m.min_samples_leaf.is_some(),
-                "min_samples_leaf",
-                m.min_samples_leaf.as_ref().map(|s| s.span()),
-            )?;
-            reject(
-                m.criterion.is_some(),
-                "criterion",
-                m.criterion.as_ref().map(|s| s.span()),
-            )?;
-            let mut k = family::knn::KnnFamily::default();
-            if let Some(s) = m.standardize {
-                k.standardize = s;
-            }
-            Arc::new(k)
-        }
-        "poly" | "ridge" => {
-            reject(
-                m.min_samples_leaf.is_some(),
-                "min_samples_leaf",
-                m.min_samples_leaf.as_ref().map(|s| s.span()),
-            )?;
-            reject(
-                m.criterion.is_some(),
-                "criterion",
-                m.criterion.as_ref().map(|s| s.span()),
-            )?;
-            reject(
-                m.standardize.is_some(),
-                "standardize",
-                Some(m.family.span()),
-            )?;
-            if name == "poly" {
-                Arc::new(family::poly::PolyFamily)
-            } else {
-                Arc::new(family::ridge::RidgeFamily)
-            }
-        }
-        "logistic" => {
-            reject(
-                m.min_samples_leaf.is_some(),
-                "min_samples_leaf",
-                m.min_samples_leaf.as_ref().map(|s| s.span()),
-            )?;
-            reject(
-                m.criterion.is_some(),
-                "criterion",
-                m.criterion.as_ref().map(|s| s.span()),
-            )?;
-            reject(
-                m.standardize.is_some(),
-                "standardize",
-                Some(m.family.span()),
-            )?;
-            Arc::new(family::logistic::LogisticFamily)
-        }
-        "external" | "custom" => {
-            let span = |s: Option<Range<usize>>| s.or_else(|| Some(m.family.span()));
-            let leaf = m.min_samples_leaf.as_ref().map(|s| s.span());
-            reject(m.min_samples_leaf.is_some(), "min_samples_leaf", span(leaf))?;
-            let criterion = m.criterion.as_ref().map(|s| s.span());
-            reject(m.criterion.is_some(), "criterion", span(criterion))?;
-            reject(m.standardize.is_some(), "standardize", span(None))?;
-            if name == "custom" {
-                Arc::new(crate::harness::Placeholder)
-            } else {
-                external_family(cx, m, base)?
-            }
-        }
-        other => {
-            let known: Vec<&str> = family::catalogue().iter().map(|f| f.name).collect();
-            return Err(cx.err(
-                Some(m.family.span()),
-                "model.family",
-                format!("unknown family `{other}`; known: {}", known.join(", ")),
-            ));
-        }
+    spec: &ScenarioSpec,
+    task: Task,
+) -> Result<&'static dyn Loss, ScenarioError> {
+    let Some(l) = &spec.loss else {
+        return Ok(match task {
+            Task::Regress => &decompose::squared::Squared,
+            Task::Classify { .. } => &decompose::zero_one::ZeroOne,
+        });
     };
-    Ok(fam)
+    let name = l.kind.get_ref().as_str();
+    let Some(loss) = decompose::by_name(name) else {
+        let known: Vec<&str> = decompose::registry().iter().map(|l| l.name()).collect();
+        return Err(cx.err(
+            Some(l.kind.span()),
+            "loss.kind",
+            format!(
+                "unknown loss `{name}`; expected one of {}",
+                known.join(", ")
+            ),
+        ));
+    };
+    if !loss.supports(task) {
+        let hint = match task {
+            Task::Regress => "this scenario is a regression (a numeric response); add [data.classes] for classification",
+            Task::Classify { .. } => "this scenario is a classification ([data.classes] or `task = \"classify\"`)",
+        };
+        return Err(cx.err(
+            Some(l.kind.span()),
+            "loss.kind",
+            format!("the `{name}` loss does not apply: {hint}"),
+        ));
+    }
+    Ok(loss)
 }
 
-/// Builds `family = "external"` from `command`, `knob` and `timeout_seconds`.
-fn external_family(
+/// Builds every model section: `family`, `grid`, `fit_seeds`, and the family's own options
+/// (taken by its builder; what is left is refused).
+fn build_models(
     cx: &Ctx<'_>,
-    m: &ModelSpec,
+    model: &Spanned<toml::Value>,
     base: &Path,
-) -> Result<Arc<dyn Family>, ScenarioError> {
-    use family::external::{ExternalFamily, DEFAULT_TIMEOUT_SECONDS};
-    let Some(command) = &m.command else {
+    task: Task,
+    loss: &'static dyn Loss,
+    n_train: usize,
+    n_inputs: usize,
+) -> Result<Vec<ModelPlan>, ScenarioError> {
+    let sections = model_sections(cx.src);
+    let tables: Vec<&toml::Table> = match model.get_ref() {
+        toml::Value::Table(t) => vec![t],
+        toml::Value::Array(a) => {
+            let mut v = Vec::with_capacity(a.len());
+            for item in a {
+                match item {
+                    toml::Value::Table(t) => v.push(t),
+                    _ => {
+                        return Err(cx.err(
+                            Some(model.span()),
+                            "model",
+                            "must be a [model] table or [[model]] tables",
+                        ))
+                    }
+                }
+            }
+            v
+        }
+        _ => {
+            return Err(cx.err(
+                Some(model.span()),
+                "model",
+                "must be a [model] table or [[model]] tables",
+            ))
+        }
+    };
+    if tables.is_empty() {
         return Err(cx.err(
-            Some(m.family.span()),
-            "model.command",
-            "family `external` needs `command`, e.g. command = [\"python3\", \"my_model.py\"]",
+            Some(model.span()),
+            "model",
+            "needs at least one model section",
         ));
-    };
-    let Some(knob) = &m.knob else {
+    }
+    if tables.len() > 64 {
         return Err(cx.err(
-            Some(m.family.span()),
-            "model.knob",
-            "family `external` needs `knob`, the name of the knob the grid sets",
+            Some(model.span()),
+            "model",
+            format!("{} model sections; at most 64", tables.len()),
         ));
-    };
-    let timeout = match &m.timeout_seconds {
-        Some(t) => *t.get_ref(),
-        None => DEFAULT_TIMEOUT_SECONDS,
-    };
-    let fam =
-        ExternalFamily::new(command.get_ref(), knob.get_ref(), timeout, base).map_err(|e| {
-            let (key, span) = match e.key {
-                "knob" => ("model.knob", knob.span()),
-                "timeout_seconds" => (
-                    "model.timeout_seconds",
-                    m.timeout_seconds
-                        .as_ref()
-                        .map_or(m.family.span(), |t| t.span()),
+    }
+    let mut out = Vec::with_capacity(tables.len());
+    for (i, t) in tables.iter().enumerate() {
+        let section = sections.get(i).copied();
+        let line = |key: &str| key_line(cx.src, section, key);
+        let prefix = if tables.len() > 1 {
+            format!("model[{i}]")
+        } else {
+            "model".to_string()
+        };
+        let key = |k: &str| format!("{prefix}.{k}");
+        let family_name = match t.get("family") {
+            Some(toml::Value::String(s)) => s.clone(),
+            Some(_) => {
+                return Err(cx.err_line(
+                    line("family"),
+                    &key("family"),
+                    "must be a family name (a string)",
+                ))
+            }
+            None => {
+                return Err(cx.err_line(
+                    section.map(|s| s.0 + 1),
+                    &key("family"),
+                    "is missing: name the family (`lossprism families` lists them)",
+                ))
+            }
+        };
+        let Some(grid_value) = t.get("grid") else {
+            return Err(cx.err_line(
+                section.map(|s| s.0 + 1),
+                &key("grid"),
+                "is missing: give the knob values, e.g. grid = [1, 2, 4, 8]",
+            ));
+        };
+        let fit_seeds = match t.get("fit_seeds") {
+            None => 1,
+            Some(toml::Value::Integer(s)) if (1..=MAX_FIT_SEEDS as i64).contains(s) => *s as usize,
+            Some(v) => {
+                return Err(cx.err_line(
+                    line("fit_seeds"),
+                    &key("fit_seeds"),
+                    format!("must be a whole number from 1 to {MAX_FIT_SEEDS}, got {v}"),
+                ))
+            }
+        };
+        let Some(info) = family::info(&family_name) else {
+            let known: Vec<&str> = family::catalogue().iter().map(|f| f.name).collect();
+            return Err(cx.err_line(
+                line("family"),
+                &key("family"),
+                format!(
+                    "unknown family `{family_name}`; known: {}",
+                    known.join(", ")
                 ),
-                _ => ("model.command", command.span()),
-            };
-            cx.err(Some(span), key, e.message)
+            ));
+        };
+        let entries: Vec<(String, toml::Value)> = t
+            .iter()
+            .filter(|(k, _)| !matches!(k.as_str(), "family" | "grid" | "fit_seeds"))
+            .map(|(k, v)| (k.clone(), v.clone()))
+            .collect();
+        let mut opts = Options::new(&family_name, entries);
+        let fam: Arc<dyn Family> = match info.build {
+            Some(build) => {
+                let built = build(&mut opts, &BuildContext { base });
+                let fam = built.map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;
+                opts.finish()
+                    .map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;
+                fam
+            }
+            None => {
+                opts.finish()
+                    .map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;
+                Arc::new(family::custom::Placeholder)
+            }
+        };
+        if !fam.supports(task) {
+            return Err(cx.err_line(
+                line("family"),
+                &key("family"),
+                match task {
+                    Task::Regress => format!("family `{}` does not do regression", fam.name()),
+                    Task::Classify { .. } => format!(
+                        "family `{}` does not classify; with [data.classes] use one of: {}",
+                        fam.name(),
+                        family::catalogue()
+                            .iter()
+                            .filter(|f| f.tasks.contains("classification"))
+                            .map(|f| f.name)
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    ),
+                },
+            ));
+        }
+        if loss.needs_probs() && fam.name() != "custom" && !fam.caps(task).probabilities {
+            return Err(cx.err_line(
+                line("family"),
+                &key("family"),
+                format!(
+                    "family `{}` gives no class probabilities, which the {} loss needs",
+                    fam.name(),
+                    loss.name()
+                ),
+            ));
+        }
+        let spanned_grid = Spanned::new(model.span(), grid_value.clone());
+        let grid_line = line("grid");
+        let (grid, grid_kind) = expand_grid(cx, &spanned_grid).map_err(|e| ScenarioError {
+            line: grid_line,
+            key: Some(key("grid")),
+            ..e
         })?;
-    Ok(Arc::new(fam))
+        fam.check_grid(&grid, n_train, n_inputs)
+            .map_err(|m| cx.err_line(grid_line, &key("grid"), m))?;
+        if fit_seeds > 1
+            && !fam.caps(task).stochastic
+            && fam.name() != "custom"
+            && fam.name() != "external"
+        {
+            return Err(cx.err_line(
+                line("fit_seeds"),
+                &key("fit_seeds"),
+                format!(
+                    "family `{}` is deterministic: refitting a training set gives the same predictions, so `fit_seeds` must be 1",
+                    fam.name()
+                ),
+            ));
+        }
+        out.push(ModelPlan {
+            family: fam,
+            grid,
+            grid_kind,
+            fit_seeds,
+        });
+    }
+    Ok(out)
 }
 
 fn number(v: &toml::Value) -> Option<f64> {

@@ -9,8 +9,9 @@ use toml::Spanned;
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ScenarioSpec {
-    /// Short name, used in outputs.
-    pub name: Spanned<String>,
+    /// Short name, used in outputs (required; missing is reported by the planner).
+    #[serde(default)]
+    pub name: Option<Spanned<String>>,
     /// One or two sentences saying what the scenario represents.
     #[serde(default)]
     pub about: Option<String>,
@@ -29,10 +30,15 @@ pub struct ScenarioSpec {
     /// jackknife); default `min(R, 32)`.
     #[serde(default)]
     pub blocks: Option<Spanned<i64>>,
-    /// Where training sets come from.
-    pub data: DataSpec,
-    /// The model family and its complexity grid.
-    pub model: ModelSpec,
+    /// Where training sets come from (required; missing is reported by the planner).
+    #[serde(default)]
+    pub data: Option<DataSpec>,
+    /// The model family and its complexity grid: one `[model]` table, or several `[[model]]`
+    /// tables compared on the same draws. Each holds `family`, `grid`, optionally `fit_seeds`,
+    /// and the family's own options, which the family's builder checks (see
+    /// [`crate::family::Options`]).
+    #[serde(default)]
+    pub model: Option<Spanned<toml::Value>>,
     /// The loss to decompose.
     #[serde(default)]
     pub loss: Option<LossSpec>,
@@ -195,35 +201,6 @@ pub struct NoiseSpec {
     /// Twin: σ²(x) from the reference's smoothed squared residuals instead of a constant.
     #[serde(default)]
     pub varying: Option<Spanned<bool>>,
-}
-
-/// `[model]`: family, grid and family options.
-#[derive(Debug, Clone, Deserialize)]
-#[serde(deny_unknown_fields)]
-pub struct ModelSpec {
-    /// Family name (`lossprism families` lists them).
-    pub family: Spanned<String>,
-    /// The knob values: a list, `{ from, to, step }` or `{ log = [lo, hi], count }`.
-    pub grid: Spanned<toml::Value>,
-    /// Tree: minimum samples per leaf (default 1).
-    #[serde(default)]
-    pub min_samples_leaf: Option<Spanned<i64>>,
-    /// Tree (classification): `gini` or `entropy`.
-    #[serde(default)]
-    pub criterion: Option<Spanned<String>>,
-    /// k-NN: standardize inputs with the training mean and sd (default false).
-    #[serde(default)]
-    pub standardize: Option<bool>,
-    /// External: the program and its arguments (`["python3", "my_model.py"]`), started in the
-    /// scenario file's folder; it speaks the protocol of `docs/external-protocol.md`.
-    #[serde(default)]
-    pub command: Option<Spanned<Vec<String>>>,
-    /// External: the name of the knob the grid values set.
-    #[serde(default)]
-    pub knob: Option<Spanned<String>>,
-    /// External: seconds to wait for each answer of the process (default 60).
-    #[serde(default)]
-    pub timeout_seconds: Option<Spanned<f64>>,
 }
 
 /// `[loss]`.

@@ -1,6 +1,6 @@
-//! The locked holdout: rows chosen once by their own seeded stream (`purpose::HOLDOUT`,
-//! stratified by class when classifying), never touched by the decomposition, and assessed with
-//! `lossprism run SCENARIO --assess VALUE`. Every assessment is counted in a ledger file
+//! `run SCENARIO --assess VALUE`: the one-off assessment of a table's locked holdout. The
+//! family is fitted at one knob value on every non-holdout row and its loss on the holdout is
+//! reported once. Every assessment is counted in a ledger file
 //! (`<scenario>.holdout-ledger.json`, beside the scenario) keyed by a hash of the holdout rows;
 //! from the second assessment of the same rows the holdout loss is no longer an unbiased
 //! estimate, and the caller is told so.
@@ -8,66 +8,15 @@
 use std::path::{Path, PathBuf};
 
 use ndarray::{Array2, Axis};
-use rand::Rng;
 
-use super::{Table, TablePlan};
+use crate::dataset::holdout::hash;
+use crate::dataset::TablePlan;
 use crate::error::Error;
-use crate::family::{FitInput, Task};
-use crate::runner::{purpose, stream};
+use crate::family::{FitInput, FitSeed, Out};
 use crate::scenario::{Plan, Source};
 
 /// Identifier of the ledger format.
 pub const LEDGER_FORMAT: &str = "lossprism-holdout-ledger/1";
-
-/// Chooses `round(fraction · n)` holdout rows (per class, `round(fraction · n_c)`) with the
-/// stream `(seed, HOLDOUT, 0)`; returns them sorted. `fraction = 0` gives none.
-pub fn choose(table: &Table, fraction: f64, seed: u64) -> Vec<usize> {
-    if fraction <= 0.0 {
-        return Vec::new();
-    }
-    let mut rng = stream(seed, purpose::HOLDOUT, 0);
-    let groups: Vec<Vec<usize>> = match table.task {
-        Task::Regress => vec![(0..table.rows()).collect()],
-        Task::Classify { classes } => (0..classes)
-            .map(|c| {
-                (0..table.rows())
-                    .filter(|&i| table.y[i] as usize == c)
-                    .collect()
-            })
-            .collect(),
-    };
-    let mut out = Vec::new();
-    for mut g in groups {
-        let take = (fraction * g.len() as f64).round() as usize;
-        for j in 0..take.min(g.len()) {
-            let k = rng.gen_range(j..g.len());
-            g.swap(j, k);
-        }
-        out.extend_from_slice(&g[..take.min(g.len())]);
-    }
-    out.sort_unstable();
-    out
-}
-
-/// FNV-1a hash (64 bits, hex) of the holdout: its row count, then each row's inputs and response
-/// as IEEE bits. Changing any holdout value, or which rows are held out, changes it.
-pub fn hash(table: &Table, rows: &[usize]) -> String {
-    let mut h: u64 = 0xcbf29ce484222325;
-    let mut eat = |v: u64| {
-        for b in v.to_le_bytes() {
-            h ^= b as u64;
-            h = h.wrapping_mul(0x100000001b3);
-        }
-    };
-    eat(rows.len() as u64);
-    for &i in rows {
-        for v in table.x.row(i) {
-            eat(v.to_bits());
-        }
-        eat(table.y[i].to_bits());
-    }
-    format!("{h:016x}")
-}
 
 /// The ledger file of a scenario: `<folder>/<stem>.holdout-ledger.json`.
 pub fn ledger_path(scenario: &Path) -> PathBuf {
@@ -124,34 +73,46 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         )));
     }
     let table = &tp.table;
-    plan.family
+    let model = plan.model();
+    model
+        .family
         .check_grid(&[value], tp.work.len(), table.x.ncols())
         .map_err(|m| Error::Usage(format!("--assess {value}: {m}")))?;
     let x = table.x.select(Axis(0), &tp.work);
     let y = table.y.select(Axis(0), &tp.work);
     let xh = table.x.select(Axis(0), &tp.holdout);
     let yh = table.y.select(Axis(0), &tp.holdout);
-    let mut pred = Array2::<f64>::zeros((1, tp.holdout.len()));
+    let nh = tp.holdout.len();
+    let k = plan.task.classes();
+    let mut pred = Array2::<f64>::zeros((1, nh));
+    let mut probs = ndarray::Array3::<f64>::zeros((1, nh, k));
     let input = FitInput {
         x: x.view(),
         y: y.view(),
         eval: xh.view(),
         task: plan.task,
+        seed: FitSeed::fixed(plan.seed),
     };
-    plan.family
-        .fit_predict(&input, &[value], pred.view_mut())
+    let out = Out {
+        values: pred.view_mut(),
+        probs: plan.loss.needs_probs().then(|| probs.view_mut()),
+        diversity: None,
+    };
+    model
+        .family
+        .fit_predict(&input, &[value], out)
         .map_err(|e| Error::Fit {
             replicate: 0,
-            family: plan.family.name().to_string(),
+            family: model.family.name().to_string(),
             message: e.0,
         })?;
-    let losses: Vec<f64> = pred
-        .row(0)
-        .iter()
-        .zip(yh.iter())
-        .map(|(p, t)| match plan.task {
-            Task::Regress => (p - t) * (p - t),
-            Task::Classify { .. } => (p != t) as u8 as f64,
+    let losses: Vec<f64> = (0..nh)
+        .map(|j| {
+            let q = plan
+                .loss
+                .needs_probs()
+                .then(|| probs.slice(ndarray::s![0, j, ..]).to_vec());
+            plan.loss.observed_loss(pred[[0, j]], q.as_deref(), yh[j])
         })
         .collect();
     let nh = losses.len() as f64;
@@ -171,7 +132,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
             tp.holdout.len(),
             values
                 .iter()
-                .map(|v| crate::report::fmt_value(*v))
+                .map(|v| crate::fmt::fmt_value(*v))
                 .collect::<Vec<_>>()
                 .join(", "),
             ledger.display()
@@ -226,11 +187,27 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
             list.last_mut().expect("just pushed")
         }
     };
-    let count = entry
-        .get("assessments")
-        .and_then(Value::as_u64)
-        .unwrap_or(0)
-        + 1;
+    let bad = |what: &str| {
+        Error::Usage(format!(
+            "{}: holdout {hash}: {what}; the ledger was edited or damaged: move it away to start a new one",
+            ledger.display()
+        ))
+    };
+    let count = match entry.get("assessments") {
+        Some(v) => match v.as_u64() {
+            Some(c) if c < 1_000_000 => c + 1,
+            _ => return Err(bad(&format!("`assessments` is {v}, not a count"))),
+        },
+        None => return Err(bad("no `assessments` count")),
+    };
+    if let Some(v) = entry.get("values") {
+        let ok = v
+            .as_array()
+            .is_some_and(|a| a.iter().all(|x| x.as_f64().is_some_and(f64::is_finite)));
+        if !ok {
+            return Err(bad("`values` is not a list of numbers"));
+        }
+    }
     entry["assessments"] = json!(count);
     let mut values: Vec<f64> = entry
         .get("values")
@@ -241,6 +218,6 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
     entry["values"] = json!(values);
     let mut text = serde_json::to_string_pretty(&doc).expect("json values serialize");
     text.push('\n');
-    crate::report::write_atomic(ledger, text.as_bytes())?;
+    crate::output::write_one("ledger", ledger, &[], text.as_bytes())?;
     Ok((count, values))
 }

@@ -1,0 +1,203 @@
+//! Exact encodings shared by the documents lossprism writes and reads back: FNV-1a hashes for
+//! fingerprints and checksums, and floats packed as the hex of their bits (a round trip is exact
+//! to the bit).
+
+/// 64-bit FNV-1a hash (Fowler, Noll, Vo), offset basis 0xcbf29ce484222325, prime 0x100000001b3.
+pub fn fnv1a64(bytes: &[u8]) -> u64 {
+    let mut h: u64 = 0xcbf2_9ce4_8422_2325;
+    for &b in bytes {
+        h ^= b as u64;
+        h = h.wrapping_mul(0x0000_0100_0000_01b3);
+    }
+    h
+}
+
+/// Packs floats as hex strings of their bit patterns, 16 lowercase digits per value.
+pub fn pack_f64(values: &[f64]) -> String {
+    let mut s = String::with_capacity(values.len() * 16);
+    for v in values {
+        s.push_str(&format!("{:016x}", v.to_bits()));
+    }
+    s
+}
+
+/// Unpacks [`pack_f64`]'s output; `expect` is the number of values required.
+pub fn unpack_f64(s: &str, expect: usize) -> Result<Vec<f64>, String> {
+    if !s.is_ascii() || Some(s.len()) != expect.checked_mul(16) {
+        return Err(format!(
+            "expected {expect} packed values ({} hex digits), found {} characters",
+            expect * 16,
+            s.len()
+        ));
+    }
+    (0..expect)
+        .map(|i| {
+            u64::from_str_radix(&s[i * 16..(i + 1) * 16], 16)
+                .map(f64::from_bits)
+                .map_err(|_| format!("value {i} is not 16 hex digits"))
+        })
+        .collect()
+}
+
+const B64: &[u8; 64] = b"ABCDEFGHIJKLMNOPQRSTUVWXYZabcdefghijklmnopqrstuvwxyz0123456789+/";
+
+/// Standard base64 (RFC 4648, with `=` padding) of `bytes`.
+pub fn base64(bytes: &[u8]) -> String {
+    let mut out = String::with_capacity(bytes.len().div_ceil(3) * 4);
+    for chunk in bytes.chunks(3) {
+        let b = [
+            chunk[0],
+            *chunk.get(1).unwrap_or(&0),
+            *chunk.get(2).unwrap_or(&0),
+        ];
+        let n = (u32::from(b[0]) << 16) | (u32::from(b[1]) << 8) | u32::from(b[2]);
+        out.push(B64[(n >> 18) as usize & 63] as char);
+        out.push(B64[(n >> 12) as usize & 63] as char);
+        out.push(if chunk.len() > 1 {
+            B64[(n >> 6) as usize & 63] as char
+        } else {
+            '='
+        });
+        out.push(if chunk.len() > 2 {
+            B64[n as usize & 63] as char
+        } else {
+            '='
+        });
+    }
+    out
+}
+
+/// Decodes [`base64`]'s output; an error says what is wrong.
+pub fn unbase64(s: &str) -> Result<Vec<u8>, String> {
+    let s = s.as_bytes();
+    if s.len() % 4 != 0 {
+        return Err(format!(
+            "base64 text of {} characters is not a multiple of 4",
+            s.len()
+        ));
+    }
+    let val = |c: u8| -> Result<u32, String> {
+        match c {
+            b'A'..=b'Z' => Ok(u32::from(c - b'A')),
+            b'a'..=b'z' => Ok(u32::from(c - b'a') + 26),
+            b'0'..=b'9' => Ok(u32::from(c - b'0') + 52),
+            b'+' => Ok(62),
+            b'/' => Ok(63),
+            _ => Err(format!("`{}` is not a base64 character", c as char)),
+        }
+    };
+    let mut out = Vec::with_capacity(s.len() / 4 * 3);
+    for (i, q) in s.chunks(4).enumerate() {
+        let last = i + 1 == s.len() / 4;
+        let pad = q.iter().rev().take_while(|&&c| c == b'=').count();
+        if pad > 2 || (pad > 0 && !last) {
+            return Err("misplaced `=` padding in base64 text".into());
+        }
+        let mut n = 0u32;
+        for &c in &q[..4 - pad] {
+            n = (n << 6) | val(c)?;
+        }
+        n <<= 6 * pad as u32;
+        let bytes = [(n >> 16) as u8, (n >> 8) as u8, n as u8];
+        out.extend_from_slice(&bytes[..3 - pad]);
+    }
+    Ok(out)
+}
+
+/// Packs floats as base64 of their little-endian IEEE bytes (exact to the bit).
+pub fn pack_floats(values: &[f64]) -> String {
+    let mut bytes = Vec::with_capacity(values.len() * 8);
+    for v in values {
+        bytes.extend_from_slice(&v.to_le_bytes());
+    }
+    base64(&bytes)
+}
+
+/// Unpacks [`pack_floats`]'s output; `expect` is the number of values required.
+pub fn unpack_floats(s: &str, expect: usize) -> Result<Vec<f64>, String> {
+    let want = expect
+        .checked_mul(8)
+        .and_then(|b| b.checked_add(2))
+        .map(|b| b / 3 * 4)
+        .ok_or_else(|| "array size overflows".to_string())?;
+    if s.len() != want {
+        return Err(format!(
+            "expected {expect} packed values ({want} base64 characters), found {} characters",
+            s.len()
+        ));
+    }
+    let bytes = unbase64(s)?;
+    if bytes.len() != expect * 8 {
+        return Err(format!(
+            "expected {expect} packed values, found {} bytes",
+            bytes.len()
+        ));
+    }
+    Ok(bytes
+        .chunks_exact(8)
+        .map(|c| f64::from_le_bytes(c.try_into().expect("8 bytes")))
+        .collect())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn fnv1a64_matches_the_published_test_vectors() {
+        // Source: FNV test vectors of Fowler, Noll and Vo (64-bit FNV-1a of "" and "a", as listed
+        // in the FNV reference code's test suite and draft-eastlake-fnv).
+        assert_eq!(fnv1a64(b""), 0xcbf2_9ce4_8422_2325);
+        assert_eq!(fnv1a64(b"a"), 0xaf63_dc4c_8601_ec8c);
+        assert_eq!(fnv1a64(b"foobar"), 0x8594_4171_f739_67e8);
+    }
+
+    #[test]
+    fn base64_matches_the_rfc_4648_test_vectors() {
+        // Source: RFC 4648, §10 (test vectors).
+        for (plain, enc) in [
+            ("", ""),
+            ("f", "Zg=="),
+            ("fo", "Zm8="),
+            ("foo", "Zm9v"),
+            ("foob", "Zm9vYg=="),
+            ("fooba", "Zm9vYmE="),
+            ("foobar", "Zm9vYmFy"),
+        ] {
+            assert_eq!(base64(plain.as_bytes()), enc);
+            assert_eq!(unbase64(enc).unwrap(), plain.as_bytes());
+        }
+        assert!(unbase64("Zm9").is_err());
+        assert!(unbase64("Zm=v").is_err());
+        assert!(unbase64("Zm9*").is_err());
+        let v = [1.5, -0.0, f64::NAN, 1e-310];
+        let back = unpack_floats(&pack_floats(&v), 4).unwrap();
+        assert!(v.iter().zip(&back).all(|(a, b)| a.to_bits() == b.to_bits()));
+        assert!(unpack_floats(&pack_floats(&v), 3).is_err());
+    }
+
+    #[test]
+    fn packed_floats_round_trip_to_the_bit() {
+        let vals = [
+            0.0,
+            -0.0,
+            1.0 / 3.0,
+            f64::MIN_POSITIVE / 7.0, // subnormal
+            f64::MAX,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::NAN,
+            -1.234_567_890_123_456_7e-300,
+            0.1 + 0.2,
+        ];
+        let s = pack_f64(&vals);
+        assert_eq!(s.len(), vals.len() * 16);
+        let back = unpack_f64(&s, vals.len()).unwrap();
+        for (a, b) in vals.iter().zip(&back) {
+            assert_eq!(a.to_bits(), b.to_bits());
+        }
+        assert!(unpack_f64(&s, vals.len() - 1).is_err());
+        assert!(unpack_f64(&s.replace('0', "g"), vals.len()).is_err());
+        assert!(unpack_f64("é", 0).is_err());
+    }
+}

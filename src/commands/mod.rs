@@ -1,0 +1,643 @@
+//! The commands of the `lossprism` binary, as library functions returning exit codes (0
+//! success, 1 a check found a regression, 2 bad input (as an `Err`), 3 stopped on request by the
+//! hidden testing flag `--stop-after-blocks`, 130 interrupted by Ctrl-C). Every output path is
+//! checked before any work ([`crate::output`]): it never replaces an input or another output,
+//! devices and FIFOs are written in place, and all outputs of a command are committed together.
+
+pub mod assess;
+pub mod twin;
+
+use std::path::{Path, PathBuf};
+
+use crate::cli::{CheckArgs, DecompositionView, MergeArgs, PlotArgs, RunArgs, TwinArgs};
+use crate::error::Error;
+use crate::output::{OutputId, Outputs};
+use crate::report::terminal::View;
+use crate::scenario::{self, Plan, PlanOptions, Source};
+use crate::{family, progress, report, runner, shard};
+
+/// The files a plan reads besides the scenario (a table, a twin's table).
+fn data_inputs(plan: &Plan) -> Vec<PathBuf> {
+    match &plan.source {
+        Source::Table(t) => vec![t.table.path.clone()],
+        Source::Synthetic(s) => s.process.source_file().into_iter().collect(),
+    }
+}
+
+/// Where a finished run's outputs go (shared by `run` and `merge`).
+struct Outputs2<'a> {
+    out: Option<&'a Path>,
+    csv: Option<&'a Path>,
+    points: Option<&'a Path>,
+    plot: Option<&'a Path>,
+    plot_points: Option<&'a Path>,
+    report: Option<&'a Path>,
+    input: Option<&'a str>,
+    view: View,
+    quiet: bool,
+    started: std::time::Instant,
+    wall_label: &'static str,
+}
+
+impl Outputs2<'_> {
+    /// Registers every output with `set` (checked at once) and returns their ids in the order
+    /// out, csv, points, plot, plot_points, report.
+    fn register(&self, set: &mut Outputs) -> Result<[Option<OutputId>; 6], Error> {
+        let mut ids = [None; 6];
+        for (i, (flag, p)) in [
+            ("--out", self.out),
+            ("--csv", self.csv),
+            ("--points", self.points),
+            ("--plot", self.plot),
+            ("--plot-points", self.plot_points),
+            ("--report", self.report),
+        ]
+        .into_iter()
+        .enumerate()
+        {
+            if let Some(p) = p {
+                ids[i] = Some(set.output(flag, p)?);
+            }
+        }
+        Ok(ids)
+    }
+
+    fn any(&self) -> bool {
+        [
+            self.out,
+            self.csv,
+            self.points,
+            self.plot,
+            self.plot_points,
+            self.report,
+        ]
+        .iter()
+        .any(Option::is_some)
+    }
+
+    fn to_stdout(&self) -> bool {
+        [
+            self.out,
+            self.csv,
+            self.points,
+            self.plot,
+            self.plot_points,
+            self.report,
+        ]
+        .iter()
+        .any(|p| p.is_some_and(|p| p.as_os_str() == "-"))
+    }
+}
+
+/// Renders and commits every output of a finished run, then prints the table.
+fn emit(
+    plan: &Plan,
+    outcome: &runner::Outcome,
+    o: &Outputs2<'_>,
+    set: Outputs,
+    ids: [Option<OutputId>; 6],
+) -> Result<u8, Error> {
+    let doc = report::build(plan, outcome);
+    // Render every picture before writing anything, so a refusal leaves no partial outputs.
+    let curve = if o.plot.is_some() || o.report.is_some() {
+        Some(report::plot::curve_svg(&doc, o.view)?)
+    } else {
+        None
+    };
+    let points_svg = match o.plot_points {
+        Some(_) => {
+            let (tx, ty) = runner::training_set(plan, &outcome.prepared, 0)?;
+            let v = report::plot::point_view(plan, outcome, &doc, o.input, (&tx, &ty))?;
+            Some(report::plot::points_svg(&v)?)
+        }
+        None => None,
+    };
+    let selection = match (o.report, serde_json::to_value(&doc)) {
+        (Some(_), Ok(v)) => match report::plot::SelectionView::from_json(&v) {
+            Some(sel) => Some(report::plot::selection_svg(&sel, &doc.knob)?),
+            None => None,
+        },
+        _ => None,
+    };
+    let mut contents: Vec<(OutputId, Vec<u8>)> = Vec::new();
+    let [out, csv, points, plot, plot_points, html] = ids;
+    if let Some(id) = out {
+        contents.push((id, report::to_json(&doc).into_bytes()));
+    }
+    if let Some(id) = csv {
+        contents.push((id, report::csv::to_csv(&doc).into_bytes()));
+    }
+    if let Some(id) = points {
+        contents.push((id, report::csv::points_csv(plan, outcome).into_bytes()));
+    }
+    if let (Some(id), Some(svg)) = (plot, &curve) {
+        contents.push((id, svg.clone().into_bytes()));
+    }
+    if let (Some(id), Some(svg)) = (plot_points, &points_svg) {
+        contents.push((id, svg.clone().into_bytes()));
+    }
+    if let Some(id) = html {
+        let wall = o.started.elapsed().as_secs_f64();
+        let all = report::html::Pictures {
+            curve,
+            points: points_svg,
+            selection,
+        };
+        let page = report::html::render(&doc, o.view, &all, Some(wall), o.wall_label);
+        contents.push((id, page.into_bytes()));
+    }
+    set.commit(contents)?;
+    if !o.quiet {
+        let table = report::terminal::render_view(&doc, o.view);
+        if o.to_stdout() {
+            eprint!("{table}");
+        } else {
+            print!("{table}");
+        }
+    }
+    Ok(0)
+}
+
+/// `lossprism run`.
+pub fn run(args: RunArgs) -> Result<u8, Error> {
+    // Wall time goes to the HTML report only, never into the result document.
+    let started = std::time::Instant::now();
+    let opts = PlanOptions {
+        replicates: args.replicates,
+        seed: args.seed,
+    };
+    let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
+    let plan = source.plan(&opts)?;
+    refuse_custom(&plan)?;
+    runner::pool_check(args.threads)?;
+    if let Some(value) = args.assess {
+        return assess(&args, &plan, value);
+    }
+    let o = Outputs2 {
+        out: args.out.as_deref(),
+        csv: args.csv.as_deref(),
+        points: args.points.as_deref(),
+        plot: args.plot.as_deref(),
+        plot_points: args.plot_points.as_deref(),
+        report: args.report.as_deref(),
+        input: args.input.as_deref(),
+        view: args.decomposition.into(),
+        quiet: args.quiet,
+        started,
+        wall_label: "wall time",
+    };
+    if args.quiet && !o.any() && args.shard.is_none() {
+        return Err(Error::Usage(
+            "--quiet with no output file would compute a result and show nothing: add --out \
+             FILE.json (or --csv, --plot, --report), or drop --quiet"
+                .into(),
+        ));
+    }
+    // Every path is checked before any work.
+    let mut set = Outputs::new();
+    if let Some(p) = &args.scenario {
+        set.input("the scenario file", p);
+    }
+    for p in data_inputs(&plan) {
+        set.input("the scenario's data file", &p);
+    }
+    if let Some(ck) = &args.checkpoint {
+        set.input("--checkpoint", ck);
+    }
+    let ids = o.register(&mut set)?;
+    if let Some(ck) = &args.checkpoint {
+        // The checkpoint is rewritten during the run: it must clash with nothing either.
+        let mut inputs: Vec<(&str, &Path)> = Vec::new();
+        if let Some(p) = &args.scenario {
+            inputs.push(("the scenario file", p));
+        }
+        let data = data_inputs(&plan);
+        for p in &data {
+            inputs.push(("the scenario's data file", p));
+        }
+        let mut outs: Vec<(&str, &Path)> = vec![("--checkpoint", ck)];
+        for (flag, p) in [
+            ("--out", o.out),
+            ("--csv", o.csv),
+            ("--points", o.points),
+            ("--plot", o.plot),
+            ("--plot-points", o.plot_points),
+            ("--report", o.report),
+        ] {
+            if let Some(p) = p {
+                outs.push((flag, p));
+            }
+        }
+        crate::output::check(&inputs, &outs)?;
+    }
+    if args.plot_points.is_some() {
+        report::plot::check_point_request(&plan, args.input.as_deref())?;
+    }
+    let checkpointed = args.shard.is_some() || args.checkpoint.is_some();
+    progress::install_interrupt(progress::OnInterrupt::FinishBlocks {
+        checkpoint: args.checkpoint.clone(),
+    });
+    if !checkpointed {
+        let watch = progress::Progress::new(plan.replicates, args.quiet);
+        let outcome = match runner::run_watched(&plan, args.threads, &watch)? {
+            Ok(o) => o,
+            Err(stopped) => {
+                watch.clear();
+                eprintln!(
+                    "interrupted after {} of {} replicates (the blocks in flight finished); nothing \
+                     was written: rerun to start again",
+                    stopped.replicates_done, stopped.replicates
+                );
+                return Ok(130);
+            }
+        };
+        watch.clear();
+        return emit(&plan, &outcome, &o, set, ids);
+    }
+    run_in_blocks(&args, &plan, &source, o, set, ids)
+}
+
+/// `run` with `--shard` and/or `--checkpoint`: runs the job's blocks (resuming from the
+/// checkpoint), then writes the shard's part document or the whole run's result.
+fn run_in_blocks(
+    args: &RunArgs,
+    plan: &Plan,
+    source: &shard::ScenarioSource,
+    o: Outputs2<'_>,
+    set: Outputs,
+    ids: [Option<OutputId>; 6],
+) -> Result<u8, Error> {
+    let job_replicates = match shard::job_blocks(plan, args.shard) {
+        Ok(blocks) => blocks
+            .map(|b| {
+                let (s, e) = plan.block_range(b);
+                e - s
+            })
+            .sum(),
+        Err(_) => plan.replicates,
+    };
+    let watch = progress::Progress::new(job_replicates, args.quiet);
+    let job = shard::Job {
+        plan,
+        source,
+        shard: args.shard,
+        checkpoint: args.checkpoint.as_deref(),
+        stop_after_blocks: args.stop_after_blocks,
+        threads: args.threads,
+        watch: &watch,
+    };
+    let finish = shard::execute(&job);
+    watch.clear();
+    let total = job_block_count(plan, args.shard);
+    let done = match finish? {
+        shard::Finish::Stopped {
+            new_blocks,
+            remaining,
+            interrupted: true,
+        } => {
+            let kept = match &args.checkpoint {
+                Some(p) => format!(
+                    "the checkpoint {} holds them: rerun the same command to resume",
+                    p.display()
+                ),
+                None => "nothing was written: rerun to start again".into(),
+            };
+            eprintln!(
+                "interrupted after {} of {total} blocks ({new_blocks} completed in this session; \
+                 the blocks in flight finished); {kept}",
+                total - remaining
+            );
+            return Ok(130);
+        }
+        shard::Finish::Stopped {
+            new_blocks,
+            remaining,
+            interrupted: false,
+        } => {
+            let ck = args
+                .checkpoint
+                .as_ref()
+                .map(|p| p.display().to_string())
+                .unwrap_or_default();
+            eprintln!(
+                "stopped as asked after {new_blocks} newly completed blocks; {remaining} blocks \
+                 remain; rerun the same command to resume from {ck}"
+            );
+            return Ok(3);
+        }
+        shard::Finish::Done(done) => done,
+    };
+    if done.resumed > 0 && !args.quiet {
+        if let Some(ck) = &args.checkpoint {
+            eprintln!(
+                "resumed: {} of {total} blocks from {}",
+                done.resumed,
+                ck.display()
+            );
+        }
+    }
+    if let Some(s) = args.shard {
+        let doc = shard::part_doc(
+            plan,
+            source,
+            &done.fingerprint,
+            Some(s),
+            false,
+            &done.blocks,
+        );
+        let Some(id) = ids[0] else {
+            return Err(Error::Usage("--shard needs --out PART.json".into()));
+        };
+        set.commit(vec![(id, shard::part_json(&doc).into_bytes())])?;
+        let range = s.block_range(plan.blocks);
+        if !args.quiet {
+            eprintln!(
+                "shard {s}: blocks {}..{} of {} written to {}; combine all {} parts with \
+                 `lossprism merge`",
+                range.start,
+                range.end,
+                plan.blocks,
+                args.out.as_deref().unwrap_or(Path::new("-")).display(),
+                s.count
+            );
+        }
+        return Ok(0);
+    }
+    let outcome = shard::outcome(plan, *done)?;
+    emit(plan, &outcome, &o, set, ids)
+}
+
+/// The number of blocks a job covers (the whole run's when the shard is refused).
+fn job_block_count(plan: &Plan, shard: Option<shard::ShardSpec>) -> u64 {
+    shard::job_blocks(plan, shard)
+        .map(|r| r.end - r.start)
+        .unwrap_or(plan.blocks)
+}
+
+/// `lossprism merge`.
+pub fn merge(args: MergeArgs) -> Result<u8, Error> {
+    // The HTML report's wall time is the merge's own, labelled so.
+    let started = std::time::Instant::now();
+    let o = Outputs2 {
+        out: args.out.as_deref(),
+        csv: args.csv.as_deref(),
+        points: args.points.as_deref(),
+        plot: args.plot.as_deref(),
+        plot_points: args.plot_points.as_deref(),
+        report: args.report.as_deref(),
+        input: args.input.as_deref(),
+        view: args.decomposition.into(),
+        quiet: args.quiet,
+        started,
+        wall_label: "merge wall time",
+    };
+    if args.quiet && !o.any() {
+        return Err(Error::Usage(
+            "--quiet with no output file would merge and show nothing: add --out FILE.json, or drop --quiet".into(),
+        ));
+    }
+    let mut set = Outputs::new();
+    for p in &args.parts {
+        set.input("a part file", p);
+    }
+    let ids = o.register(&mut set)?;
+    let merged = shard::merge(&args.parts)?;
+    for p in data_inputs(&merged.plan) {
+        set.input("the scenario's data file", &p);
+    }
+    if args.plot_points.is_some() {
+        report::plot::check_point_request(&merged.plan, args.input.as_deref())?;
+    }
+    emit(&merged.plan, &merged.outcome, &o, set, ids)
+}
+
+/// `family = "custom"` needs an estimator supplied from Rust; the command line has none.
+fn refuse_custom(plan: &Plan) -> Result<(), Error> {
+    if plan.models.iter().any(|m| m.family.name() == "custom") {
+        return Err(Error::Usage(format!(
+            "{}: key `model.family`: {}",
+            plan.file,
+            family::custom::CLI_REFUSAL
+        )));
+    }
+    Ok(())
+}
+
+/// `lossprism check`: compare a result with a baseline; exit 0 nothing worse, 1 something worse.
+pub fn check(args: CheckArgs) -> Result<u8, Error> {
+    use crate::check;
+    let read = |p: &Path| -> Result<(String, report::ResultDoc), Error> {
+        let text = read_limited(p, 1 << 30)?;
+        let doc = check::parse_result(&text, &p.display().to_string())
+            .map_err(|e| Error::Usage(e.to_string()))?;
+        Ok((text, doc))
+    };
+    let (text, new) = read(&args.result)?;
+    let write_baseline = |text: &str| -> Result<(), Error> {
+        if let Some(dir) = args.baseline.parent() {
+            if !dir.as_os_str().is_empty() && !dir.exists() {
+                std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, &e))?;
+            }
+        }
+        crate::output::write_one(
+            "--baseline",
+            &args.baseline,
+            &[("the result", args.result.as_path())],
+            text.as_bytes(),
+        )
+    };
+    if args.update && !args.baseline.exists() {
+        write_baseline(&text)?;
+        println!(
+            "baseline {} created from {}",
+            args.baseline.display(),
+            args.result.display()
+        );
+        return Ok(0);
+    }
+    if !args.baseline.exists() {
+        return Err(Error::Usage(format!(
+            "{}: baseline not found; create it with `lossprism check {} --baseline {} --update`",
+            args.baseline.display(),
+            args.result.display(),
+            args.baseline.display()
+        )));
+    }
+    let (_, base) = read(&args.baseline)?;
+    let opts = check::CheckOptions {
+        sigma: args.sigma,
+        margin: args.margin,
+        term_margins: args.margin_term,
+    };
+    let rep = check::compare(&new, &base, &opts).map_err(|e| Error::Usage(e.to_string()))?;
+    print!("{rep}");
+    if args.update {
+        write_baseline(&text)?;
+        println!("baseline {} updated", args.baseline.display());
+        return Ok(0);
+    }
+    Ok(rep.exit_code())
+}
+
+/// Reads a text file, refusing it before reading when it is larger than `limit` bytes.
+pub fn read_limited(p: &Path, limit: u64) -> Result<String, Error> {
+    let meta = std::fs::metadata(p).map_err(|e| Error::io(p, &e))?;
+    if meta.is_file() && meta.len() > limit {
+        return Err(Error::Usage(format!(
+            "{}: {} bytes, larger than any document lossprism writes ({limit} at most)",
+            p.display(),
+            meta.len()
+        )));
+    }
+    std::fs::read_to_string(p).map_err(|e| Error::io(p, &e))
+}
+
+/// `lossprism plot`: the curve picture (and the selection histogram) of a saved result document.
+pub fn plot(args: PlotArgs) -> Result<u8, Error> {
+    let name = args.result.display().to_string();
+    let mut set = Outputs::new();
+    set.input("the result", &args.result);
+    let out_id = set.output("--out", &args.out)?;
+    let sel_id = match &args.selection {
+        Some(p) => Some(set.output("--selection", p)?),
+        None => None,
+    };
+    let text = read_limited(&args.result, 1 << 30)?;
+    let value: serde_json::Value = serde_json::from_str(&text)
+        .map_err(|e| Error::Usage(format!("{name}: not a result document (JSON): {e}")))?;
+    let doc: report::ResultDoc = serde_json::from_value(value.clone())
+        .map_err(|e| Error::Usage(format!("{name}: not a lossprism result document: {e}")))?;
+    let view: View = args.decomposition.into();
+    let curve = report::plot::curve_svg(&doc, view)?;
+    let selection = match &args.selection {
+        Some(_) => {
+            let sel = report::plot::SelectionView::from_json(&value).ok_or_else(|| {
+                Error::Usage(format!(
+                    "{name}: no `selection` section (run the cross-validation audit first); \
+                     drop --selection"
+                ))
+            })?;
+            Some(report::plot::selection_svg(&sel, &doc.knob)?)
+        }
+        None => None,
+    };
+    let mut contents = vec![(out_id, curve.into_bytes())];
+    if let (Some(id), Some(svg)) = (sel_id, selection) {
+        contents.push((id, svg.into_bytes()));
+    }
+    set.commit(contents)?;
+    Ok(0)
+}
+
+/// `run --assess VALUE` on a table scenario with a holdout: the one-off holdout assessment,
+/// counted in the ledger beside the scenario file.
+fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
+    let Some(path) = &args.scenario else {
+        return Err(Error::Usage(
+            "--assess needs a table scenario file with a holdout".into(),
+        ));
+    };
+    let outputs = [
+        ("--out", &args.out),
+        ("--csv", &args.csv),
+        ("--points", &args.points),
+        ("--plot", &args.plot),
+        ("--report", &args.report),
+    ];
+    if let Some((flag, _)) = outputs.iter().find(|(_, p)| p.is_some()) {
+        return Err(Error::Usage(format!(
+            "--assess prints one holdout loss and writes no result; drop {flag}"
+        )));
+    }
+    let ledger = assess::ledger_path(path);
+    let a = assess::assess(plan, value, &ledger)?;
+    println!(
+        "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
+         (assessment {} of this holdout, hash {}, ledger {})",
+        plan.name,
+        plan.model().family.knob(),
+        crate::fmt::fmt_value(a.value),
+        a.train_rows,
+        plan.loss.name(),
+        crate::fmt::fmt_num(a.loss),
+        crate::fmt::fmt_se(a.stderr),
+        a.rows,
+        a.count,
+        a.hash,
+        ledger.display()
+    );
+    if let Some(w) = &a.warning {
+        eprintln!("{w}");
+    }
+    Ok(0)
+}
+
+/// `lossprism validate`.
+pub fn validate(scenario: &Path) -> Result<u8, Error> {
+    let plan = scenario::load(scenario, &PlanOptions::default())?;
+    refuse_custom(&plan)?;
+    runner::prepare(&plan)?;
+    let models: Vec<String> = plan
+        .models
+        .iter()
+        .map(|m| format!("{} family, {} grid values", m.family.name(), m.grid.len()))
+        .collect();
+    println!(
+        "{}: valid ({}, R = {}, n = {})",
+        scenario.display(),
+        models.join("; "),
+        plan.replicates,
+        plan.train_size()
+    );
+    Ok(0)
+}
+
+/// `lossprism families`: name, knob and meaning in aligned columns, then tasks and options.
+pub fn families() -> Result<u8, Error> {
+    let cat = family::catalogue();
+    let w_name = cat
+        .iter()
+        .map(|f| f.name.chars().count())
+        .max()
+        .unwrap_or(0);
+    let w_knob = cat
+        .iter()
+        .map(|f| f.knob.chars().count())
+        .max()
+        .unwrap_or(0);
+    for f in cat {
+        println!(
+            "{:<w_name$}  knob {:<w_knob$}  {}",
+            f.name, f.knob, f.meaning
+        );
+        println!("{:<w_name$}  tasks: {}", "", f.tasks);
+        println!("{:<w_name$}  options: {}", "", f.options);
+    }
+    Ok(0)
+}
+
+/// `lossprism twin`.
+pub fn twin(a: TwinArgs) -> Result<u8, Error> {
+    let text = twin::command(&twin::TwinOptions {
+        table: a.table,
+        target: a.target,
+        features: a.features,
+        classes: a.classes,
+        out: a.out,
+        seed: a.seed,
+        varying: a.varying,
+    })?;
+    print!("{text}");
+    Ok(0)
+}
+
+impl From<DecompositionView> for View {
+    fn from(v: DecompositionView) -> Self {
+        match v {
+            DecompositionView::Domingos => View::Domingos,
+            DecompositionView::KohaviWolpert => View::KohaviWolpert,
+            DecompositionView::James => View::James,
+            DecompositionView::All => View::All,
+        }
+    }
+}

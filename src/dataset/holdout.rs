@@ -1,0 +1,59 @@
+//! The locked holdout's rows: chosen once by their own seeded stream (`purpose::HOLDOUT`,
+//! stratified by class when classifying) and never touched by the decomposition; their hash
+//! identifies them in the assessment ledger (`lossprism run SCENARIO --assess VALUE`).
+
+use rand::Rng;
+
+use super::Table;
+use crate::family::Task;
+use crate::rng::{purpose, stream};
+
+/// Chooses `round(fraction · n)` holdout rows (per class, `round(fraction · n_c)`) with the
+/// stream `(seed, HOLDOUT, 0)`; returns them sorted. `fraction = 0` gives none.
+pub fn choose(table: &Table, fraction: f64, seed: u64) -> Vec<usize> {
+    if fraction <= 0.0 {
+        return Vec::new();
+    }
+    let mut rng = stream(seed, purpose::HOLDOUT, 0);
+    let groups: Vec<Vec<usize>> = match table.task {
+        Task::Regress => vec![(0..table.rows()).collect()],
+        Task::Classify { classes } => (0..classes)
+            .map(|c| {
+                (0..table.rows())
+                    .filter(|&i| table.y[i] as usize == c)
+                    .collect()
+            })
+            .collect(),
+    };
+    let mut out = Vec::new();
+    for mut g in groups {
+        let take = (fraction * g.len() as f64).round() as usize;
+        for j in 0..take.min(g.len()) {
+            let k = rng.gen_range(j..g.len());
+            g.swap(j, k);
+        }
+        out.extend_from_slice(&g[..take.min(g.len())]);
+    }
+    out.sort_unstable();
+    out
+}
+
+/// FNV-1a hash (64 bits, hex) of the holdout: its row count, then each row's inputs and response
+/// as IEEE bits. Changing any holdout value, or which rows are held out, changes it.
+pub fn hash(table: &Table, rows: &[usize]) -> String {
+    let mut h: u64 = 0xcbf29ce484222325;
+    let mut eat = |v: u64| {
+        for b in v.to_le_bytes() {
+            h ^= b as u64;
+            h = h.wrapping_mul(0x100000001b3);
+        }
+    };
+    eat(rows.len() as u64);
+    for &i in rows {
+        for v in table.x.row(i) {
+            eat(v.to_bits());
+        }
+        eat(table.y[i].to_bits());
+    }
+    format!("{h:016x}")
+}

@@ -1,0 +1,56 @@
+//! Number formatting shared by every rendering: knob values, estimates with four significant
+//! digits, standard errors with two.
+
+/// Formats a knob value compactly (`3`, `0.01`, `1e-4`).
+pub fn fmt_value(v: f64) -> String {
+    if v.fract() == 0.0 && v.abs() < 1e9 {
+        format!("{}", v as i64)
+    } else if v != 0.0 && (v.abs() < 1e-3 || v.abs() >= 1e6) {
+        format!("{v:.3e}")
+    } else {
+        // Four significant digits, trailing zeros dropped (3.162, 31.62, 0.01).
+        let digits = (3 - v.abs().log10().floor() as i32).clamp(0, 6) as usize;
+        let s = format!("{v:.digits$}");
+        if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        }
+    }
+}
+
+/// Formats a standard error with two significant digits.
+pub fn fmt_se(v: f64) -> String {
+    if !v.is_finite() {
+        return "n/a".into();
+    }
+    let a = v.abs();
+    if a != 0.0 && !(1e-3..1e6).contains(&a) {
+        format!("{v:.1e}")
+    } else {
+        let digits = if a == 0.0 {
+            2
+        } else {
+            (1 - a.log10().floor() as i32).clamp(0, 6) as usize
+        };
+        format!("{v:.digits$}")
+    }
+}
+
+/// Formats a number with 4 significant digits.
+pub fn fmt_num(v: f64) -> String {
+    if !v.is_finite() {
+        return "n/a".into();
+    }
+    let a = v.abs();
+    if a != 0.0 && !(1e-3..1e6).contains(&a) {
+        format!("{v:.3e}")
+    } else {
+        let digits = if a == 0.0 {
+            3
+        } else {
+            (3 - a.log10().floor() as i32).clamp(0, 6) as usize
+        };
+        format!("{v:.digits$}")
+    }
+}

@@ -1,0 +1,129 @@
+//! CSV renderings: one row per grid value ([`to_csv`]: the knob value first, then the terms in
+//! the loss's order, then their standard errors — the same values as the JSON), and one row per
+//! (grid value, evaluation point) ([`points_csv`]: the inputs, then the loss's per-point terms).
+
+use super::ResultDoc;
+use crate::runner::Outcome;
+use crate::scenario::{Plan, Source};
+
+fn num(v: f64) -> String {
+    if v.is_finite() {
+        v.to_string()
+    } else {
+        String::new()
+    }
+}
+
+fn column(key: &str) -> String {
+    key.replace('.', "_")
+}
+
+/// One header and one row per grid value: the knob value (column named after the knob), the
+/// family and training size when a run has several, every term in the loss's order, `estimated`
+/// on tables, then `stderr_<term>` for every term with a standard error.
+pub fn to_csv(doc: &ResultDoc) -> String {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let Some(first) = doc.points.first() else {
+        return String::new();
+    };
+    let mut header = vec![doc.knob.clone()];
+    let with_family = doc.points.iter().any(|p| p.family.is_some());
+    let with_size = doc.points.iter().any(|p| p.train_size.is_some());
+    if with_family {
+        header.push("family".into());
+    }
+    if with_size {
+        header.push("train_size".into());
+    }
+    header.extend(first.terms.iter().map(|(k, _)| column(k)));
+    if first.estimated.is_some() {
+        header.push("estimated".into());
+    }
+    header.extend(
+        first
+            .stderr
+            .iter()
+            .map(|(k, _)| format!("stderr_{}", column(k))),
+    );
+    w.write_record(&header).expect("in-memory csv");
+    for p in &doc.points {
+        let mut rec = vec![num(p.value)];
+        if with_family {
+            rec.push(p.family.clone().unwrap_or_default());
+        }
+        if with_size {
+            rec.push(p.train_size.map(|n| n.to_string()).unwrap_or_default());
+        }
+        rec.extend(first.terms.iter().map(|(k, _)| num(p.get(k))));
+        if let Some(e) = p.estimated {
+            rec.push(e.to_string());
+        }
+        rec.extend(first.stderr.iter().map(|(k, _)| match p.se(k) {
+            Some(v) => num(v),
+            None => String::new(),
+        }));
+        w.write_record(&rec).expect("in-memory csv");
+    }
+    String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
+}
+
+/// One row per (grid value, evaluation point): the knob value, the point's index (a table's
+/// working rows: its line in the file, the header being line 1), its inputs, then the loss's
+/// per-point columns (class indices written as their labels).
+pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let prep = &outcome.prepared;
+    let s = outcome.summary();
+    let acc = &s.total;
+    let observed = prep.table.is_some();
+    let (names, labels, lines): (Vec<String>, Vec<String>, Option<Vec<usize>>) = match &plan.source
+    {
+        Source::Synthetic(sp) => (
+            sp.process.inputs.iter().map(|i| i.name.clone()).collect(),
+            match &sp.process.response {
+                crate::dgp::Response::Classes(m) => m.labels.clone(),
+                crate::dgp::Response::Regression { .. } => Vec::new(),
+            },
+            None,
+        ),
+        Source::Table(_) => {
+            let work = &prep.table.as_ref().expect("a prepared table").work;
+            (
+                work.names.clone(),
+                work.labels.clone(),
+                Some(work.lines.clone()),
+            )
+        }
+    };
+    let cols = plan.loss.point_columns(&acc.shape, observed);
+    let mut header = vec![
+        "value".to_string(),
+        if observed { "line" } else { "point" }.to_string(),
+    ];
+    header.extend(names.iter().cloned());
+    header.extend(cols.iter().map(|c| c.0.to_string()));
+    w.write_record(&header).expect("in-memory csv");
+    let noise_var = prep.noise_var();
+    let probs = prep.flat_probs();
+    let target = prep.target(&noise_var, &probs);
+    for (g, &value) in plan.model().grid.iter().enumerate() {
+        for e in 0..acc.shape.points {
+            let mut rec = vec![
+                value.to_string(),
+                lines.as_ref().map_or(e, |l| l[e]).to_string(),
+            ];
+            rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
+            let vals = plan.loss.point_values(acc, &target, g, e);
+            for (v, (_, is_label)) in vals.iter().zip(&cols) {
+                if *is_label && v.is_finite() {
+                    let c = *v as usize;
+                    rec.push(labels.get(c).cloned().unwrap_or_else(|| c.to_string()));
+                } else {
+                    rec.push(num(*v));
+                }
+            }
+            w.write_record(&rec).expect("in-memory csv");
+        }
+    }
+    String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
+}

@@ -1,0 +1,116 @@
+//! The `selection` section of a result document: what the selection audit's cross-validation
+//! chose across replicates, against the oracle best, and its excess loss.
+
+use serde::{Deserialize, Serialize};
+
+use crate::fmt::{fmt_num, fmt_value};
+use crate::scenario::audit::AuditPlan;
+
+use super::{Best, PointRow};
+
+/// The `selection` section of a result document.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Selection {
+    /// Folds K.
+    pub folds: usize,
+    /// `min` or `one_se`.
+    pub rule: String,
+    /// Replicates choosing each grid value, in grid order.
+    pub chosen_counts: Vec<u64>,
+    /// The grid value of lowest expected loss (the oracle).
+    pub oracle_best: f64,
+    /// Mean over replicates of `EL(chosen) − EL(oracle)`.
+    pub mean_excess_loss: f64,
+    /// 90% quantile over replicates of the excess loss (lower quantile of the count
+    /// distribution: the smallest excess e with at least 90% of replicates at or below e).
+    pub q90_excess_loss: f64,
+    /// Share of replicates whose choice has expected loss within one standard error of the
+    /// oracle's (the result's `best.within_one_se`).
+    pub share_within_one_se: f64,
+    /// Share of replicates choosing the oracle value itself.
+    pub share_oracle: f64,
+}
+
+/// Builds the selection section from the summed counts and the run's per-grid rows.
+pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &Best) -> Selection {
+    let total: u64 = counts.iter().sum();
+    let el: Vec<f64> = points.iter().map(|p| p.expected_loss()).collect();
+    let min = el.iter().cloned().fold(f64::INFINITY, f64::min);
+    let excess: Vec<f64> = el.iter().map(|e| e - min).collect();
+    let share = |c: u64| {
+        if total == 0 {
+            f64::NAN
+        } else {
+            c as f64 / total as f64
+        }
+    };
+    let mean = if total == 0 {
+        f64::NAN
+    } else {
+        counts
+            .iter()
+            .zip(&excess)
+            .map(|(&c, e)| c as f64 * e)
+            .sum::<f64>()
+            / total as f64
+    };
+    let mut order: Vec<usize> = (0..counts.len()).collect();
+    order.sort_by(|&a, &b| excess[a].total_cmp(&excess[b]).then(a.cmp(&b)));
+    let mut q90 = f64::NAN;
+    let mut acc = 0u64;
+    for &g in &order {
+        acc += counts[g];
+        if total > 0 && acc * 10 >= total * 9 {
+            q90 = excess[g];
+            break;
+        }
+    }
+    let within: u64 = points
+        .iter()
+        .zip(counts)
+        .filter(|(p, _)| best.within_one_se.contains(&p.value))
+        .map(|(_, &c)| c)
+        .sum();
+    let at_oracle: u64 = points
+        .iter()
+        .zip(counts)
+        .filter(|(p, _)| p.value == best.value)
+        .map(|(_, &c)| c)
+        .sum();
+    Selection {
+        folds: audit.folds,
+        rule: audit.rule.name().into(),
+        chosen_counts: counts.to_vec(),
+        oracle_best: best.value,
+        mean_excess_loss: mean,
+        q90_excess_loss: q90,
+        share_within_one_se: share(within),
+        share_oracle: share(at_oracle),
+    }
+}
+
+/// One plain sentence for the table output.
+pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
+    let total: u64 = s.chosen_counts.iter().sum();
+    let mode = (0..s.chosen_counts.len()).fold(0, |b, j| {
+        if s.chosen_counts[j] > s.chosen_counts[b] {
+            j
+        } else {
+            b
+        }
+    });
+    format!(
+        "{}-fold cross-validation ({} rule) chose {knob} = {} most often ({} of {total} replicates); \
+         the oracle best is {} (chosen in {:.0}%); {:.0}% of choices are within one standard error of it; \
+         excess loss over the oracle: mean {}, 90% quantile {}.",
+        s.folds,
+        s.rule,
+        grid.get(mode).map(|v| fmt_value(*v)).unwrap_or_default(),
+        s.chosen_counts.get(mode).copied().unwrap_or(0),
+        fmt_value(s.oracle_best),
+        100.0 * s.share_oracle,
+        100.0 * s.share_within_one_se,
+        fmt_num(s.mean_excess_loss),
+        fmt_num(s.q90_excess_loss)
+    )
+}

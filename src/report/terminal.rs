@@ -1,0 +1,178 @@
+//! The terminal table: aligned columns, `±` standard errors, the best row marked, a legend built
+//! from the terms' own descriptions, and the reading of the curve. Which terms show follows the
+//! view: the main terms by default; for 0-1 loss the Kohavi–Wolpert or James terms, or all of
+//! them.
+
+use super::{PointRow, ResultDoc, TermDoc};
+use crate::fmt::{fmt_num, fmt_se, fmt_value};
+
+/// Which terms the table shows.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum View {
+    /// The main terms (for 0-1 loss: Domingos 2000).
+    #[default]
+    Domingos,
+    /// Kohavi and Wolpert (1996): noise, bias², variance.
+    KohaviWolpert,
+    /// James (2003): systematic effect, variance effect.
+    James,
+    /// Every term.
+    All,
+}
+
+fn with_se(v: f64, se: Option<f64>) -> String {
+    match se {
+        Some(s) => format!("{} ± {}", fmt_num(v), fmt_se(s)),
+        None => fmt_num(v),
+    }
+}
+
+/// The terms shown in `view`, in order; the direct check goes last.
+pub fn shown_terms(doc: &ResultDoc, view: View) -> Vec<TermDoc> {
+    let terms = doc.term_docs();
+    let keep = |t: &TermDoc| match view {
+        View::All => true,
+        View::Domingos => t.group == "main",
+        View::KohaviWolpert => {
+            t.role == "loss" || t.group == "kohavi_wolpert" || t.role == "direct"
+        }
+        View::James => {
+            t.role == "loss"
+                || t.group == "james"
+                || t.role == "direct"
+                || (t.role == "noise" && t.group == "main")
+        }
+    };
+    let mut out: Vec<TermDoc> = terms
+        .iter()
+        .filter(|t| keep(t) && t.role != "direct")
+        .cloned()
+        .collect();
+    out.extend(
+        terms
+            .iter()
+            .filter(|t| keep(t) && t.role == "direct")
+            .cloned(),
+    );
+    out
+}
+
+fn cell(p: &PointRow, t: &TermDoc) -> String {
+    if !p.has(&t.key) {
+        return "n/a".into();
+    }
+    let se = if t.stderr { p.se(&t.key) } else { None };
+    with_se(p.get(&t.key), se)
+}
+
+fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
+    let mut s = String::from("legend: ");
+    let parts: Vec<String> = terms
+        .iter()
+        .map(|t| format!("{} = {}", t.label, t.meaning))
+        .collect();
+    s.push_str(&parts.join("; "));
+    s.push_str(
+        "; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n",
+    );
+    if let Some(n) = &doc.noise_estimate {
+        s.push_str(&format!(
+            "noise estimate: {} ± {} by {}\n",
+            fmt_num(n.value),
+            fmt_se(n.stderr.unwrap_or(f64::NAN)),
+            n.about
+        ));
+    }
+    if let Some(t) = &doc.table {
+        s.push_str(&format!(
+            "table: {} · target `{}` · {} rows ({} dropped, {} locked in the holdout, {} resampled; {} skipped: held out in fewer than 2 replicates)\n",
+            t.path, t.target, t.rows, t.dropped_rows, t.holdout_rows, t.working_rows, t.skipped_rows
+        ));
+        for e in &t.encodings {
+            s.push_str(&format!("encoding: {e}\n"));
+        }
+    }
+    if let Some(n) = &doc.scheme_note {
+        s.push_str(&format!("scheme: {n}\n"));
+    }
+    s
+}
+
+/// The table without layout, for other renderings (the HTML report): the header cells, one row
+/// of cells per grid value (knob value first, unmarked) and the legend.
+pub fn cells(doc: &ResultDoc, view: View) -> (Vec<String>, Vec<Vec<String>>, String) {
+    let terms = shown_terms(doc, view);
+    let mut header = vec![doc.knob.clone()];
+    header.extend(terms.iter().map(|t| t.label.clone()));
+    let rows = doc
+        .points
+        .iter()
+        .map(|p| {
+            let mut r = vec![fmt_value(p.value)];
+            r.extend(terms.iter().map(|t| cell(p, t)));
+            r
+        })
+        .collect();
+    (header, rows, legend(doc, &terms).trim_end().to_string())
+}
+
+/// Renders the table for a result document (main view).
+pub fn render(doc: &ResultDoc) -> String {
+    render_view(doc, View::Domingos)
+}
+
+/// Renders the table with the chosen view.
+pub fn render_view(doc: &ResultDoc, view: View) -> String {
+    let mut out = String::new();
+    out.push_str(&format!(
+        "{} · family {} (knob {}) · {} loss · R = {} replicates · seed {}\n",
+        doc.scenario.name, doc.family, doc.knob, doc.loss, doc.replicates, doc.seed
+    ));
+    if !doc.scenario.about.is_empty() {
+        out.push_str(&doc.scenario.about);
+        out.push('\n');
+    }
+    out.push('\n');
+    let terms = shown_terms(doc, view);
+    let mut header: Vec<String> = vec![doc.knob.clone()];
+    header.extend(terms.iter().map(|t| t.label.clone()));
+    let mut rows: Vec<Vec<String>> = Vec::new();
+    for p in &doc.points {
+        let mark = if p.value == doc.best.value {
+            " *"
+        } else {
+            "  "
+        };
+        let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
+        r.extend(terms.iter().map(|t| cell(p, t)));
+        rows.push(r);
+    }
+    let mut widths: Vec<usize> = header.iter().map(|h| h.chars().count()).collect();
+    for r in &rows {
+        for (i, c) in r.iter().enumerate() {
+            widths[i] = widths[i].max(c.chars().count());
+        }
+    }
+    let line = |cells: &[String]| -> String {
+        let mut s = String::new();
+        for (i, c) in cells.iter().enumerate() {
+            let pad = widths[i] - c.chars().count();
+            s.push_str(&" ".repeat(pad + if i == 0 { 1 } else { 3 }));
+            s.push_str(c);
+        }
+        s.push('\n');
+        s
+    };
+    out.push_str(&line(&header));
+    for r in &rows {
+        out.push_str(&line(r));
+    }
+    out.push('\n');
+    out.push_str(&legend(doc, &terms));
+    out.push_str(&format!("reading: {}\n", doc.reading));
+    if let Some(sel) = &doc.selection {
+        let sentence = super::selection::sentence(sel, &doc.knob, &doc.scenario.grid);
+        out.push_str(&format!("selection: {sentence}\n"));
+    }
+    out
+}

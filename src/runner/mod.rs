@@ -1,0 +1,444 @@
+//! The engine: one replicate scheduler for every source (synthetic, twin, table) and every
+//! consumer (the decomposition of each model, the selection audit, shards, checkpoints,
+//! progress, Ctrl-C).
+//!
+//! - [`run_block`] is the only replicate loop: replicate r draws its data
+//!   ([`source::draw`]), every model is fitted `fit_seeds` times with its own fit streams
+//!   ([`crate::rng::FitSeed`]), every prediction is checked in one place
+//!   ([`check_predictions`]), and the block's accumulators absorb it.
+//! - [`schedule`] is the only thread pool: it runs a set of blocks, tells a [`Watch`] of each
+//!   finished block and hands each to a sink (a checkpoint writer), and stops early on request.
+//! - [`summarize`] folds the blocks of each model in index order into the decomposition.
+//!
+//! Replicates are grouped into blocks (contiguous index ranges); each block is accumulated
+//! sequentially and blocks are folded in index order, so results are bit-identical for any
+//! thread count, any shard split and after a resume.
+
+pub mod audit;
+pub mod source;
+
+use std::collections::BTreeMap;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Mutex;
+
+use ndarray::{Array3, Array4, ArrayView2, ArrayView3, Axis};
+use rayon::prelude::*;
+
+pub use source::{draw, prepare, training_set, Draw, Prepared};
+
+use crate::decompose::{self, Acc, Batch, Summary};
+use crate::error::Error;
+use crate::family::{FitInput, FitSeed, Out, Task};
+use crate::fmt::fmt_value;
+use crate::scenario::{ModelPlan, Plan, Source};
+use audit::AuditAcc;
+
+/// Most worker threads accepted (more only slows the start-up).
+pub const MAX_THREADS: usize = 512;
+
+/// A finished block: one accumulator per model, the audit's counts, and (tables) the sum and
+/// sum of squares of the share of rows each replicate held out.
+#[derive(Debug, Clone, PartialEq)]
+pub struct BlockResult {
+    /// Accumulators, one per model, in model order.
+    pub accs: Vec<Acc>,
+    /// Selection audit counts per candidate (plans with `[audit]` only).
+    pub audit: Option<AuditAcc>,
+    /// Table sources: Σ and Σ² over replicates of the held-out share of the working rows.
+    pub held_share: Option<(f64, f64)>,
+}
+
+/// Checks one fit's predictions: finite real values (regression), class indices `0..K`
+/// (classification), and probability vectors of non-negative finite values summing to 1. The
+/// message names the offending value and the knob value.
+pub fn check_predictions(
+    plan: &Plan,
+    model: &ModelPlan,
+    values: ArrayView2<'_, f64>,
+    probs: Option<ArrayView3<'_, f64>>,
+) -> Result<(), String> {
+    let knob = |g: usize| format!("{} = {}", model.family.knob(), fmt_value(model.grid[g]));
+    for (g, row) in values.rows().into_iter().enumerate() {
+        match plan.task {
+            Task::Regress => {
+                if let Some((e, bad)) = row.iter().enumerate().find(|(_, v)| !v.is_finite()) {
+                    return Err(format!(
+                        "prediction {bad} at evaluation point {e}, {}: not a finite number",
+                        knob(g)
+                    ));
+                }
+            }
+            Task::Classify { classes } => {
+                if let Some((e, bad)) = row
+                    .iter()
+                    .enumerate()
+                    .find(|(_, v)| !(v.fract() == 0.0 && **v >= 0.0 && **v < classes as f64))
+                {
+                    return Err(format!(
+                        "predicted {bad} at evaluation point {e}, {}: not a class index 0 to {} ({classes} classes)",
+                        knob(g),
+                        classes - 1
+                    ));
+                }
+            }
+        }
+    }
+    if let Some(p) = probs {
+        for ((g, e), _) in values.indexed_iter() {
+            let q = p.slice(ndarray::s![g, e, ..]);
+            let sum: f64 = q.iter().sum();
+            let bad = q
+                .iter()
+                .find(|v| !(v.is_finite() && **v >= 0.0 && **v <= 1.0));
+            if bad.is_some() || (sum - 1.0).abs() > 1e-9 * q.len() as f64 {
+                return Err(format!(
+                    "class probabilities {:?} at evaluation point {e}, {}: not a probability vector (values in [0, 1] adding up to 1)",
+                    q.to_vec(),
+                    knob(g)
+                ));
+            }
+        }
+    }
+    Ok(())
+}
+
+/// Runs the replicates of block `b` sequentially: the replicate loop of every source.
+pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Error> {
+    let (start, end) = plan.block_range(b);
+    let points = prep.points();
+    let k = plan.task.classes();
+    let needs_probs = plan.loss.needs_probs();
+    let mut accs: Vec<Acc> = (0..plan.models.len())
+        .map(|i| Acc::new(plan.loss, plan.shape(i, points)))
+        .collect();
+    let mut audit_acc = plan
+        .audit
+        .as_ref()
+        .map(|_| AuditAcc::new(plan.models.iter().map(|m| m.grid.len()).sum()));
+    let mut held_share = matches!(plan.source, Source::Table(_)).then_some((0.0, 0.0));
+    for r in start..end {
+        let d = draw(plan, prep, r)?;
+        if let (Some(a), Some(counts)) = (&plan.audit, audit_acc.as_mut()) {
+            let c = audit::choose(plan, a, d.x.view(), d.y.view(), r)?;
+            counts.counts[c] += 1;
+        }
+        if let (Some((s, s2)), Some(h)) = (held_share.as_mut(), &d.held) {
+            let share = h.len() as f64 / points as f64;
+            *s += share;
+            *s2 += share * share;
+        }
+        let m = d.eval.nrows();
+        for (i, model) in plan.models.iter().enumerate() {
+            let g = model.grid.len();
+            let fits = model.fit_seeds;
+            let caps = model.family.caps(plan.task);
+            let mut values = Array3::<f64>::zeros((fits, g, m));
+            let mut probs = Array4::<f64>::zeros((fits, g, m, if needs_probs { k } else { 0 }));
+            let mut diversity = Array3::<f64>::zeros((fits, g, if caps.ensemble { m } else { 0 }));
+            if m > 0 {
+                for s in 0..fits {
+                    let input = FitInput {
+                        x: d.x.view(),
+                        y: d.y.view(),
+                        eval: d.eval.view(),
+                        task: plan.task,
+                        seed: FitSeed {
+                            seed: plan.seed,
+                            replicate: r,
+                            fold: 0,
+                            copy: s as u32,
+                        },
+                    };
+                    let fit_err = |message: String| Error::Fit {
+                        replicate: r,
+                        family: model.family.name().to_string(),
+                        message,
+                    };
+                    let out = Out {
+                        values: values.index_axis_mut(Axis(0), s),
+                        probs: needs_probs.then(|| probs.index_axis_mut(Axis(0), s)),
+                        diversity: caps.ensemble.then(|| diversity.index_axis_mut(Axis(0), s)),
+                    };
+                    model
+                        .family
+                        .fit_predict(&input, &model.grid, out)
+                        .map_err(|e| fit_err(e.0))?;
+                    check_predictions(
+                        plan,
+                        model,
+                        values.index_axis(Axis(0), s),
+                        needs_probs.then(|| probs.index_axis(Axis(0), s)),
+                    )
+                    .map_err(fit_err)?;
+                }
+            }
+            let batch = Batch {
+                held: d.held.as_deref(),
+                values: values.view(),
+                probs: needs_probs.then(|| probs.view()),
+                diversity: caps.ensemble.then(|| diversity.view()),
+                response: d.response.as_slice().expect("owned contiguous array"),
+            };
+            accs[i].push(plan.loss, &batch);
+        }
+    }
+    Ok(BlockResult {
+        accs,
+        audit: audit_acc,
+        held_share,
+    })
+}
+
+/// Watches a run from outside (a progress display, an interruption); both methods default to
+/// doing nothing.
+pub trait Watch: Sync {
+    /// Called after each finished block with the number of replicates it held.
+    fn block_done(&self, _replicates: u64) {}
+    /// Asked before each block starts; `true` skips it (the blocks in flight still finish).
+    fn stop(&self) -> bool {
+        false
+    }
+}
+
+/// The watch that does nothing.
+#[derive(Debug, Clone, Copy, Default)]
+pub struct NoWatch;
+
+impl Watch for NoWatch {}
+
+/// Checks a thread count before any work: at most [`MAX_THREADS`] (0 = one per core).
+pub fn pool_check(threads: usize) -> Result<(), Error> {
+    if threads > MAX_THREADS {
+        let cores = std::thread::available_parallelism().map_or(1, |n| n.get());
+        return Err(Error::Usage(format!(
+            "--threads {threads}: at most {MAX_THREADS} worker threads (this machine has {cores} cores; 0 uses one per core)"
+        )));
+    }
+    Ok(())
+}
+
+/// Builds the worker pool: `threads` workers (0 = one per core), at most [`MAX_THREADS`].
+pub fn pool(threads: usize) -> Result<rayon::ThreadPool, Error> {
+    pool_check(threads)?;
+    rayon::ThreadPoolBuilder::new()
+        .num_threads(threads)
+        .build()
+        .map_err(|e| Error::Usage(format!("cannot start {threads} worker threads: {e}")))
+}
+
+/// How a scheduled set of blocks ended.
+#[derive(Debug, Clone)]
+pub struct Scheduled {
+    /// The blocks that finished, by index.
+    pub done: BTreeMap<u64, BlockResult>,
+    /// Whether the watch asked to stop (an interruption).
+    pub interrupted: bool,
+    /// Whether the sink asked to stop.
+    pub halted: bool,
+}
+
+/// Runs `blocks` of `plan` on a pool of `threads` workers (0 = one per core). Each finished
+/// block is told to `watch` and handed to `sink` (one call at a time, in completion order); the
+/// sink returns `false` to stop after the blocks in flight. Blocks not started when the watch or
+/// the sink asks to stop are left out of the result. The first error in block order wins.
+pub fn schedule(
+    plan: &Plan,
+    prep: &Prepared,
+    blocks: &[u64],
+    threads: usize,
+    watch: &dyn Watch,
+    sink: &(dyn Fn(u64, &BlockResult) -> Result<bool, Error> + Sync),
+) -> Result<Scheduled, Error> {
+    let done = Mutex::new(BTreeMap::new());
+    let interrupted = AtomicBool::new(false);
+    let halted = AtomicBool::new(false);
+    if !blocks.is_empty() {
+        let pool = pool(threads)?;
+        let results: Vec<Result<(), Error>> = pool.install(|| {
+            blocks
+                .par_iter()
+                .map(|&b| {
+                    if halted.load(Ordering::SeqCst) {
+                        return Ok(());
+                    }
+                    if watch.stop() {
+                        interrupted.store(true, Ordering::SeqCst);
+                        return Ok(());
+                    }
+                    let result = run_block(plan, prep, b)?;
+                    let mut d = done.lock().unwrap_or_else(|e| e.into_inner());
+                    if halted.load(Ordering::SeqCst) {
+                        return Ok(());
+                    }
+                    if !sink(b, &result)? {
+                        halted.store(true, Ordering::SeqCst);
+                    }
+                    let (s, e) = plan.block_range(b);
+                    d.insert(b, result);
+                    drop(d);
+                    watch.block_done(e - s);
+                    Ok(())
+                })
+                .collect()
+        });
+        results.into_iter().collect::<Result<(), Error>>()?;
+    }
+    Ok(Scheduled {
+        done: done.into_inner().unwrap_or_else(|e| e.into_inner()),
+        interrupted: interrupted.load(Ordering::SeqCst),
+        halted: halted.load(Ordering::SeqCst),
+    })
+}
+
+/// A finished run.
+#[derive(Debug, Clone)]
+pub struct Outcome {
+    /// Fixed inputs of the run.
+    pub prepared: Prepared,
+    /// The decomposition of each model, in model order.
+    pub summaries: Vec<Summary>,
+    /// Selection audit counts summed over blocks (with `[audit]`).
+    pub audit: Option<AuditAcc>,
+    /// Table sources: the mean share of working rows held out per replicate, and its standard
+    /// error over replicates.
+    pub held_share: Option<(f64, f64)>,
+}
+
+impl Outcome {
+    /// The first (or only) model's decomposition.
+    pub fn summary(&self) -> &Summary {
+        &self.summaries[0]
+    }
+}
+
+/// Folds every block of a plan (all of them, in index order) into the run's outcome. A term
+/// that is not a finite number is an error naming the term, the knob value and the likely
+/// cause.
+pub fn summarize(
+    plan: &Plan,
+    prepared: Prepared,
+    blocks: &BTreeMap<u64, BlockResult>,
+) -> Result<Outcome, Error> {
+    if blocks.len() as u64 != plan.blocks || blocks.keys().copied().ne(0..plan.blocks) {
+        return Err(Error::Usage(format!(
+            "{} of {} blocks available; cannot summarize a partial run",
+            blocks.len(),
+            plan.blocks
+        )));
+    }
+    let noise_var = prepared.noise_var();
+    let probs = prepared.flat_probs();
+    let target = prepared.target(&noise_var, &probs);
+    let mut summaries = Vec::with_capacity(plan.models.len());
+    for (i, model) in plan.models.iter().enumerate() {
+        let accs: Vec<Acc> = blocks.values().map(|b| b.accs[i].clone()).collect();
+        let s = decompose::summarize(plan.loss, &accs, &target)
+            .ok_or_else(|| Error::Usage("no replicates to summarize".into()))?;
+        for (g, row) in s.values.iter().enumerate() {
+            for (t, v) in row.iter().enumerate() {
+                if !v.is_finite() {
+                    return Err(Error::Data(format!(
+                        "{}: the term `{}` at {} = {} is {v}: {}",
+                        plan.file,
+                        s.terms[t].key,
+                        model.family.knob(),
+                        fmt_value(model.grid[g]),
+                        not_finite_cause(plan, &prepared)
+                    )));
+                }
+            }
+        }
+        summaries.push(s);
+    }
+    let mut audit = plan
+        .audit
+        .as_ref()
+        .map(|_| AuditAcc::new(plan.models.iter().map(|m| m.grid.len()).sum()));
+    let mut held: Option<(f64, f64)> = None;
+    for b in blocks.values() {
+        if let (Some(total), Some(c)) = (audit.as_mut(), b.audit.as_ref()) {
+            total.merge(c);
+        }
+        if let Some((s, s2)) = b.held_share {
+            let h = held.get_or_insert((0.0, 0.0));
+            h.0 += s;
+            h.1 += s2;
+        }
+    }
+    let held_share = held.map(|(sum, sq)| {
+        let r = plan.replicates as f64;
+        let mean = sum / r;
+        let var = (sq / r - mean * mean).max(0.0) * r / (r - 1.0);
+        (mean, (var / r).sqrt())
+    });
+    Ok(Outcome {
+        prepared,
+        summaries,
+        audit,
+        held_share,
+    })
+}
+
+/// The likely cause of a non-finite term, in words.
+fn not_finite_cause(plan: &Plan, prep: &Prepared) -> String {
+    let big = prep
+        .eval_truth
+        .iter()
+        .chain(prep.eval_sd.iter())
+        .fold(0.0_f64, |a, v| a.max(v.abs()));
+    if big > 1e150 || !big.is_finite() {
+        format!(
+            "the responses reach {big:e}, so their squares overflow; rescale the response (for example divide it by a power of ten)"
+        )
+    } else if plan.replicates < 4 {
+        "too few replicates per block to estimate it; raise `replicates`".into()
+    } else {
+        "the predictions or responses overflow the range of floating-point numbers; rescale the response".into()
+    }
+}
+
+/// Runs a whole plan.
+pub fn run(plan: &Plan, threads: usize) -> Result<Outcome, Error> {
+    run_watched(plan, threads, &NoWatch)?.map_err(|s| {
+        Error::Usage(format!(
+            "run stopped after {} of {} replicates",
+            s.replicates_done, s.replicates
+        ))
+    })
+}
+
+/// How far a run stopped by its [`Watch`] got.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Stopped {
+    /// Replicates in the blocks that finished.
+    pub replicates_done: u64,
+    /// Replicates of the whole run.
+    pub replicates: u64,
+}
+
+/// Runs a whole plan under a [`Watch`]: `Ok(Err(Stopped))` when the watch stopped it (nothing
+/// is summarized then).
+pub fn run_watched(
+    plan: &Plan,
+    threads: usize,
+    watch: &dyn Watch,
+) -> Result<Result<Outcome, Stopped>, Error> {
+    let prepared = prepare(plan)?;
+    let ids: Vec<u64> = (0..plan.blocks).collect();
+    let s = schedule(plan, &prepared, &ids, threads, watch, &|_, _| Ok(true))?;
+    if s.done.len() as u64 != plan.blocks {
+        let replicates_done = s
+            .done
+            .keys()
+            .map(|&b| {
+                let (s, e) = plan.block_range(b);
+                e - s
+            })
+            .sum();
+        return Ok(Err(Stopped {
+            replicates_done,
+            replicates: plan.replicates,
+        }));
+    }
+    summarize(plan, prepared, &s.done).map(Ok)
+}

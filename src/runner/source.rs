@@ -1,0 +1,288 @@
+//! What every data source gives the replicate loop: the fixed part of a run ([`Prepared`]:
+//! evaluation points and the truth there) and, for replicate r, its training set and the points
+//! it evaluates ([`Draw`]), drawn only from the streams of [`crate::rng`].
+//!
+//! - **Synthetic and twin**: evaluation points drawn once (`eval_seed`, purpose EVAL), a fixed
+//!   design once (purpose DESIGN); replicate r draws its training set and fresh responses at
+//!   every evaluation point from `(seed, REPLICATE, r)`.
+//! - **Table**: the evaluation points are the working rows (the holdout excluded) with their
+//!   observed responses; replicate r draws its training rows from `(seed, REPLICATE, r)` and
+//!   evaluates the rows it held out.
+
+use std::borrow::Cow;
+
+use ndarray::{Array1, Array2, Axis};
+
+use crate::dataset::noise::{self, NoiseEstimate};
+use crate::dataset::{resample, Table};
+use crate::decompose::Target;
+use crate::dgp::{add_noise, draw_labels};
+use crate::error::Error;
+use crate::family::Task;
+use crate::rng::{purpose, stream};
+use crate::scenario::{Design, Plan, Source};
+
+/// Everything fixed across replicates.
+#[derive(Debug, Clone)]
+pub struct Prepared {
+    /// Evaluation inputs `m × p` (a table's working rows).
+    pub eval_x: Array2<f64>,
+    /// Regression: f at the evaluation points (a table: the observed responses).
+    /// Classification: the Bayes class index (a table: the observed label).
+    pub eval_truth: Array1<f64>,
+    /// σ at the evaluation points (0 for classification and tables).
+    pub eval_sd: Array1<f64>,
+    /// Classification: class probabilities at the evaluation points (`m × K`, row-major).
+    pub eval_probs: Option<Array2<f64>>,
+    /// Fixed design: training inputs, f and σ there (f = 0, σ = 0 for classification).
+    pub fixed: Option<(Array2<f64>, Array1<f64>, Array1<f64>)>,
+    /// Fixed design, classification: class probabilities at the training inputs.
+    pub fixed_probs: Option<Array2<f64>>,
+    /// Table source: the working rows and the noise estimate on them (regression).
+    pub table: Option<TableRun>,
+}
+
+/// The table side of a prepared run.
+#[derive(Debug, Clone)]
+pub struct TableRun {
+    /// The working rows (holdout excluded).
+    pub work: Table,
+    /// The noise-variance estimate on the working rows (regression only).
+    pub noise: Option<NoiseEstimate>,
+}
+
+impl Prepared {
+    /// σ² at the evaluation points.
+    pub fn noise_var(&self) -> Vec<f64> {
+        self.eval_sd.iter().map(|s| s * s).collect()
+    }
+
+    /// Number of evaluation points.
+    pub fn points(&self) -> usize {
+        self.eval_x.nrows()
+    }
+
+    /// The truth the decomposition compares with, borrowing `noise_var` (from
+    /// [`Prepared::noise_var`]) and `probs` (the evaluation probabilities, flattened).
+    pub fn target<'a>(&'a self, noise_var: &'a [f64], probs: &'a Option<Vec<f64>>) -> Target<'a> {
+        match &self.table {
+            Some(t) => Target::Observed {
+                y: self.eval_truth.as_slice().expect("owned contiguous array"),
+                noise: t.noise.map(|n| (n.value, n.stderr)),
+            },
+            None => Target::Known {
+                truth: self.eval_truth.as_slice().expect("owned contiguous array"),
+                noise_var,
+                probs: probs.as_deref(),
+            },
+        }
+    }
+
+    /// The evaluation probabilities flattened row-major (classification).
+    pub fn flat_probs(&self) -> Option<Vec<f64>> {
+        self.eval_probs
+            .as_ref()
+            .map(|p| p.iter().copied().collect())
+    }
+}
+
+/// Index of the largest value (first on ties).
+fn argmax(row: ndarray::ArrayView1<'_, f64>) -> usize {
+    let mut best = 0;
+    for (i, &v) in row.iter().enumerate() {
+        if v > row[best] {
+            best = i;
+        }
+    }
+    best
+}
+
+/// Prefixes a data error with the scenario file, so it names file and key.
+fn with_file(plan: &Plan, e: Error) -> Error {
+    match e {
+        Error::Data(m) => Error::Data(format!("{}: {m}", plan.file)),
+        other => other,
+    }
+}
+
+/// Draws the evaluation points (and a fixed design) of a plan; a table's working rows and
+/// noise estimate.
+pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
+    prepare_inner(plan).map_err(|e| with_file(plan, e))
+}
+
+fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
+    let s = match &plan.source {
+        Source::Synthetic(s) => s,
+        Source::Table(t) => {
+            let work = t.work_table();
+            let m = work.rows();
+            let noise = match plan.task {
+                Task::Regress => noise::estimate(t.noise_method, work.x.view(), work.y.view()),
+                Task::Classify { .. } => None,
+            };
+            return Ok(Prepared {
+                eval_x: work.x.clone(),
+                eval_truth: work.y.clone(),
+                eval_sd: Array1::zeros(m),
+                eval_probs: None,
+                fixed: None,
+                fixed_probs: None,
+                table: Some(TableRun { work, noise }),
+            });
+        }
+    };
+    let classify = matches!(plan.task, Task::Classify { .. });
+    let mut fixed_probs = None;
+    let fixed = if s.design == Design::Fixed {
+        let mut rng = stream(plan.eval_seed, purpose::DESIGN, 0);
+        let x = s.process.draw_inputs(s.train_size, &mut rng);
+        if classify {
+            fixed_probs = Some(s.process.probs_at(x.view())?);
+            let n = x.nrows();
+            Some((x, Array1::zeros(n), Array1::zeros(n)))
+        } else {
+            let f = s.process.truth_at(x.view())?;
+            let sd = s.process.sd_at(x.view())?;
+            Some((x, f, sd))
+        }
+    } else {
+        None
+    };
+    let eval_x = match (&fixed, s.eval_at_design) {
+        (Some((x, _, _)), true) => x.clone(),
+        _ => {
+            let mut rng = stream(plan.eval_seed, purpose::EVAL, 0);
+            s.process.draw_inputs(s.eval_size, &mut rng)
+        }
+    };
+    let m = eval_x.nrows();
+    if classify {
+        let probs = s.process.probs_at(eval_x.view())?;
+        let bayes = Array1::from_iter(probs.rows().into_iter().map(|r| argmax(r) as f64));
+        Ok(Prepared {
+            eval_x,
+            eval_truth: bayes,
+            eval_sd: Array1::zeros(m),
+            eval_probs: Some(probs),
+            fixed,
+            fixed_probs,
+            table: None,
+        })
+    } else {
+        let eval_truth = s.process.truth_at(eval_x.view())?;
+        let eval_sd = s.process.sd_at(eval_x.view())?;
+        Ok(Prepared {
+            eval_x,
+            eval_truth,
+            eval_sd,
+            eval_probs: None,
+            fixed,
+            fixed_probs,
+            table: None,
+        })
+    }
+}
+
+/// One replicate's training set and the points it evaluates. A fixed design and the fixed
+/// evaluation points are borrowed, not copied.
+#[derive(Debug)]
+pub struct Draw<'a> {
+    /// Training inputs `n × p`.
+    pub x: Cow<'a, Array2<f64>>,
+    /// Training responses.
+    pub y: Array1<f64>,
+    /// The evaluated point indices (`None`: every evaluation point).
+    pub held: Option<Vec<usize>>,
+    /// Inputs of the evaluated points.
+    pub eval: Cow<'a, Array2<f64>>,
+    /// The response seen at each evaluated point: a fresh draw (synthetic) or the observed
+    /// value (table).
+    pub response: Array1<f64>,
+}
+
+/// Replicate `r`'s draw.
+pub fn draw<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, Error> {
+    draw_inner(plan, prep, r).map_err(|e| with_file(plan, e))
+}
+
+fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, Error> {
+    let mut rng = stream(plan.seed, purpose::REPLICATE, r);
+    let s = match &plan.source {
+        Source::Synthetic(s) => s,
+        Source::Table(tp) => {
+            let work = &prep
+                .table
+                .as_ref()
+                .expect("a table plan is prepared with its rows")
+                .work;
+            let n = work.rows();
+            let (train, held) = resample::draw(tp.scheme, n, &mut rng);
+            return Ok(Draw {
+                x: Cow::Owned(work.x.select(Axis(0), &train)),
+                y: work.y.select(Axis(0), &train),
+                eval: Cow::Owned(work.x.select(Axis(0), &held)),
+                response: work.y.select(Axis(0), &held),
+                held: Some(held),
+            });
+        }
+    };
+    let eval = Cow::Borrowed(&prep.eval_x);
+    match (&prep.eval_probs, &prep.fixed) {
+        (None, Some((x, f, sd))) => {
+            let y = add_noise(f, sd, &mut rng);
+            let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+            Ok(Draw {
+                x: Cow::Borrowed(x),
+                y,
+                held: None,
+                eval,
+                response: fresh,
+            })
+        }
+        (None, None) => {
+            let x = s.process.draw_inputs(s.train_size, &mut rng);
+            let f = s.process.truth_at(x.view())?;
+            let sd = s.process.sd_at(x.view())?;
+            let y = add_noise(&f, &sd, &mut rng);
+            let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+            Ok(Draw {
+                x: Cow::Owned(x),
+                y,
+                held: None,
+                eval,
+                response: fresh,
+            })
+        }
+        (Some(eval_probs), fixed) => {
+            let (x, probs) = match (fixed, &prep.fixed_probs) {
+                (Some((x, _, _)), Some(p)) => (Cow::Borrowed(x), Cow::Borrowed(p)),
+                _ => {
+                    let x = s.process.draw_inputs(s.train_size, &mut rng);
+                    let p = s.process.probs_at(x.view())?;
+                    (Cow::Owned(x), Cow::Owned(p))
+                }
+            };
+            let y = draw_labels(&probs, &mut rng);
+            let fresh = draw_labels(eval_probs, &mut rng);
+            Ok(Draw {
+                x,
+                y,
+                held: None,
+                eval,
+                response: fresh,
+            })
+        }
+    }
+}
+
+/// Replicate `r`'s training set (inputs `n × p` and responses), re-drawn from its own stream:
+/// exactly the data the run fitted for that replicate (the per-point picture shows it).
+pub fn training_set(
+    plan: &Plan,
+    prep: &Prepared,
+    r: u64,
+) -> Result<(Array2<f64>, Array1<f64>), Error> {
+    let d = draw(plan, prep, r)?;
+    Ok((d.x.into_owned(), d.y))
+}

@@ -1,0 +1,271 @@
+//! Planning a `source = "table"` section: checks its keys (errors name file, line and key),
+//! resolves `path` against the scenario's folder, loads the table and locks the holdout.
+
+use std::path::Path;
+
+use crate::dataset::{
+    noise, plan_table, Missing, Scheme, TableOptions, TablePlan, TableRequest, TargetKind,
+};
+use crate::error::ScenarioError;
+
+fn spanned_err<T>(
+    src: &str,
+    file: &str,
+    v: Option<&toml::Spanned<T>>,
+    key: &str,
+    message: impl Into<String>,
+) -> ScenarioError {
+    ScenarioError {
+        file: file.to_string(),
+        line: v.map(|s| crate::scenario::line_of(src, s.span().start)),
+        key: Some(key.to_string()),
+        message: message.into(),
+    }
+}
+
+/// Refuses the table keys of `[data]` in a non-table source (they would be ignored silently).
+pub fn reject_table_keys(
+    d: &crate::scenario::spec::DataSpec,
+    src: &str,
+    file: &str,
+) -> Result<(), ScenarioError> {
+    let source = d.source.get_ref();
+    let check = |present: Option<std::ops::Range<usize>>, key: &str| match present {
+        Some(span) => Err(ScenarioError {
+            file: file.to_string(),
+            line: Some(crate::scenario::line_of(src, span.start)),
+            key: Some(format!("data.{key}")),
+            message: format!("belongs to `source = \"table\"`; a {source} source does not use it"),
+        }),
+        None => Ok(()),
+    };
+    check(d.path.as_ref().map(|s| s.span()), "path")?;
+    check(d.target.as_ref().map(|s| s.span()), "target")?;
+    check(d.features.as_ref().map(|s| s.span()), "features")?;
+    check(d.resample.as_ref().map(|s| s.span()), "resample")?;
+    check(
+        d.train_fraction.as_ref().map(|s| s.span()),
+        "train_fraction",
+    )?;
+    check(d.holdout.as_ref().map(|s| s.span()), "holdout")?;
+    check(d.missing.as_ref().map(|s| s.span()), "missing")?;
+    check(d.task.as_ref().map(|s| s.span()), "task")?;
+    check(
+        d.noise_estimator.as_ref().map(|s| s.span()),
+        "noise_estimator",
+    )
+}
+
+/// Builds the table source of a scenario from its `[data]` section: checks the keys (errors name
+/// file, line and key), resolves `path` against `base` (the scenario's folder), loads the table
+/// and locks the holdout with `holdout_seed` (the file's seed, so that `--seed` does not move it).
+pub fn from_spec(
+    d: &crate::scenario::spec::DataSpec,
+    src: &str,
+    file: &str,
+    base: &Path,
+    holdout_seed: u64,
+) -> Result<TablePlan, ScenarioError> {
+    let e =
+        |v: Option<&toml::Spanned<String>>, key: &str, m: String| spanned_err(src, file, v, key, m);
+    let src_span = Some(&d.source);
+    let unused: [(bool, &str); 6] = [
+        (d.train_size.is_some(), "train_size"),
+        (d.eval_size.is_some(), "eval_size"),
+        (d.design.is_some(), "design"),
+        (d.eval.is_some(), "eval"),
+        (d.inputs.is_some(), "inputs"),
+        (d.truth.is_some() || d.noise.is_some(), "truth"),
+    ];
+    for (present, key) in unused {
+        if present {
+            return Err(e(
+                src_span,
+                &format!("data.{key}"),
+                format!("a table source takes its rows, inputs and responses from the file; remove `{key}`"),
+            ));
+        }
+    }
+    let Some(path) = &d.path else {
+        return Err(e(
+            src_span,
+            "data.path",
+            "a table source needs `path` (the CSV file, relative to this scenario's folder)".into(),
+        ));
+    };
+    let Some(target) = &d.target else {
+        return Err(e(
+            src_span,
+            "data.target",
+            "a table source needs `target` (the response column's name)".into(),
+        ));
+    };
+    let missing = match d.missing.as_ref().map(|s| s.get_ref().as_str()) {
+        None | Some("error") => Missing::Error,
+        Some("drop") => Missing::Drop,
+        Some(other) => {
+            return Err(e(
+                d.missing.as_ref(),
+                "data.missing",
+                format!("unknown value `{other}`; expected `error` or `drop`"),
+            ))
+        }
+    };
+    let classify = match d.task.as_ref().map(|s| s.get_ref().as_str()) {
+        None => d.classes.is_some(),
+        Some("classify") => true,
+        Some("regress") => {
+            if d.classes.is_some() {
+                return Err(e(
+                    d.task.as_ref(),
+                    "data.task",
+                    "`regress` contradicts [data.classes]".into(),
+                ));
+            }
+            false
+        }
+        Some(other) => {
+            return Err(e(
+                d.task.as_ref(),
+                "data.task",
+                format!("unknown task `{other}`; expected `regress` or `classify`"),
+            ))
+        }
+    };
+    let target_kind = if classify {
+        match &d.classes {
+            Some(c) => {
+                if c.probability.is_some()
+                    || c.logits.is_some()
+                    || c.rule.is_some()
+                    || c.flip.is_some()
+                {
+                    return Err(spanned_err(
+                        src,
+                        file,
+                        Some(&c.labels),
+                        "data.classes",
+                        "a table's classes come from the target column: give only `labels`",
+                    ));
+                }
+                let labels = c.labels.get_ref().clone();
+                if labels.len() < 2 {
+                    return Err(spanned_err(
+                        src,
+                        file,
+                        Some(&c.labels),
+                        "data.classes.labels",
+                        format!("needs at least 2 labels, got {}", labels.len()),
+                    ));
+                }
+                TargetKind::Classes(Some(labels))
+            }
+            None => TargetKind::Classes(None),
+        }
+    } else {
+        TargetKind::Numeric
+    };
+    let scheme = match d.resample.as_ref().map(|s| s.get_ref().as_str()) {
+        None | Some("bootstrap") => {
+            if let Some(f) = &d.train_fraction {
+                return Err(spanned_err(
+                    src,
+                    file,
+                    Some(f),
+                    "data.train_fraction",
+                    "goes with `resample = \"half\"` (a bootstrap draws n rows with replacement)",
+                ));
+            }
+            Scheme::Bootstrap
+        }
+        Some("half") => {
+            let fraction = match &d.train_fraction {
+                Some(f) => {
+                    let v = *f.get_ref();
+                    if !(v > 0.0 && v < 1.0) {
+                        return Err(spanned_err(
+                            src,
+                            file,
+                            Some(f),
+                            "data.train_fraction",
+                            format!("must be strictly between 0 and 1, got {v}"),
+                        ));
+                    }
+                    v
+                }
+                None => 0.5,
+            };
+            Scheme::Subsample { fraction }
+        }
+        Some(other) => {
+            return Err(e(
+                d.resample.as_ref(),
+                "data.resample",
+                format!("unknown scheme `{other}`; expected `bootstrap` or `half`"),
+            ))
+        }
+    };
+    let holdout = match &d.holdout {
+        Some(h) => {
+            let v = *h.get_ref();
+            if !(0.0..=0.9).contains(&v) {
+                return Err(spanned_err(
+                    src,
+                    file,
+                    Some(h),
+                    "data.holdout",
+                    format!("must be between 0 and 0.9, got {v}"),
+                ));
+            }
+            v
+        }
+        None => 0.0,
+    };
+    let noise_method = match &d.noise_estimator {
+        Some(s) => Some(noise::Method::from_name(s.get_ref()).ok_or_else(|| {
+            e(
+                Some(s),
+                "data.noise_estimator",
+                format!(
+                    "unknown estimator `{}`; expected `nn`, `gamma` or `gsjs`",
+                    s.get_ref()
+                ),
+            )
+        })?),
+        None => None,
+    };
+    if noise_method.is_some() && classify {
+        return Err(e(
+            d.noise_estimator.as_ref(),
+            "data.noise_estimator",
+            "noise estimators apply to a numeric target; with classes the bias is measured against the observed labels (noise folded in)".into(),
+        ));
+    }
+    let req = TableRequest {
+        path: base.join(path.get_ref()),
+        options: TableOptions {
+            target: target.get_ref().clone(),
+            features: d.features.as_ref().map(|f| f.get_ref().clone()),
+            missing,
+            target_kind,
+            min_rows: 5,
+        },
+        scheme,
+        holdout,
+        noise_method,
+        holdout_seed,
+    };
+    let plan = plan_table(&req).map_err(|err| {
+        // A missing file is the scenario's fault: point at `path`.
+        if err.line.is_none() && err.column.is_none() && err.message.starts_with("cannot read") {
+            e(
+                Some(path),
+                "data.path",
+                format!("{}: {}", req.path.display(), err.message),
+            )
+        } else {
+            err.into()
+        }
+    })?;
+    Ok(plan)
+}
