@@ -635,7 +635,11 @@ mod tests {
         // expected loss −0.06: better (|d| > 4 se and > 2 % of 1).
         let new = doc(vec![row(1.0, 0.94, 0.55, 0.31, Some(0.01))]);
         let r = compare(&new, &base, &CheckOptions::default()).unwrap();
-        let v: Vec<_> = r.comparisons.iter().map(|c| (c.term, c.verdict)).collect();
+        let v: Vec<_> = r
+            .comparisons
+            .iter()
+            .map(|c| (c.term.as_str(), c.verdict))
+            .collect();
         assert_eq!(
             v,
             vec![
@@ -672,7 +676,7 @@ mod tests {
         assert!(r.to_string().starts_with("identical"));
         // Null standard errors: identical documents are fine, different ones cannot be judged.
         let mut new = base.clone();
-        new.points[0].variance = 0.3;
+        new.points[0].terms[2].1 = 0.3;
         let e = compare(&new, &base, &CheckOptions::default()).unwrap_err();
         assert!(matches!(e, CheckError::MissingStderr(_)), "{e}");
         assert!(e.to_string().contains("at least 2 replicate blocks"));

@@ -878,7 +878,8 @@ mod tests {
                     // Domingos
                     let dom = pt.c1 * t.noise + t.bias + pt.c2 * t.variance;
                     assert!((dom - t.expected_loss).abs() < TOL, "k={k} r={r} e={e}");
-                    assert!((t.domingos_noise_term() - pt.c1 * t.noise).abs() < TOL);
+                    assert!((t.noise_term - pt.c1 * t.noise).abs() < TOL);
+                    assert!((t.expected_loss - t.noise_term - t.bias - t.net_variance).abs() < TOL);
                     assert_eq!(t.unbiased_variance + t.biased_variance, t.variance);
                     if k == 2 {
                         assert!(

@@ -718,11 +718,16 @@ mod tests {
             y: y.view(),
             eval: x.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
-        let e = f.fit_predict(&input, &[1.0], out.view_mut()).unwrap_err();
+        let e = f
+            .fit_predict(&input, &[1.0], crate::family::Out::values(out.view_mut()))
+            .unwrap_err();
         assert!(e.0.contains("cannot start external process"), "{e}");
         // Later fits repeat the first failure without trying again.
-        let e2 = f.fit_predict(&input, &[1.0], out.view_mut()).unwrap_err();
+        let e2 = f
+            .fit_predict(&input, &[1.0], crate::family::Out::values(out.view_mut()))
+            .unwrap_err();
         assert!(e2.0.contains("earlier failure"), "{e2}");
     }
 }

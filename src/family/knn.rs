@@ -262,7 +262,7 @@ impl Family for KnnFamily {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use ndarray::{Array1, Array2, Axis};
+    use ndarray::{Array1, Array2, ArrayView1, Axis};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
 
@@ -320,8 +320,10 @@ mod tests {
             y: y.view(),
             eval: eval.view(),
             task,
+            seed: crate::rng::FitSeed::fixed(0),
         };
-        fam.fit_predict(&input, grid, out.view_mut()).unwrap();
+        fam.fit_predict(&input, grid, crate::family::Out::values(out.view_mut()))
+            .unwrap();
         out
     }
 
@@ -432,7 +434,10 @@ mod tests {
         let mean = y.sum() / n as f64;
         for standardize in [false, true] {
             let out = run(
-                KnnFamily { standardize },
+                KnnFamily {
+                    standardize,
+                    alpha: 0.0,
+                },
                 &x,
                 &y,
                 &eval,
@@ -529,7 +534,10 @@ mod tests {
         });
         let grid = [1.0, 3.0, 5.0, 9.0];
         for standardize in [false, true] {
-            let fam = KnnFamily { standardize };
+            let fam = KnnFamily {
+                standardize,
+                alpha: 0.0,
+            };
             for (task, y) in [(Task::Regress, &yr), (Task::Classify { classes: 4 }, &yc)] {
                 let path = run(fam, &x, y, &eval, task, &grid);
                 for (g, &k) in grid.iter().enumerate() {
@@ -557,7 +565,10 @@ mod tests {
         x2.column_mut(1).mapv_inplace(|v| 1000.0 * v + 5.0);
         eval2.column_mut(1).mapv_inplace(|v| 1000.0 * v + 5.0);
         let grid = [1.0, 4.0, 10.0];
-        let fam = KnnFamily { standardize: true };
+        let fam = KnnFamily {
+            standardize: true,
+            alpha: 0.0,
+        };
         let a = run(fam, &x, &y, &eval, Task::Regress, &grid);
         let b = run(fam, &x2, &y, &eval2, Task::Regress, &grid);
         for (u, v) in a.iter().zip(&b) {
@@ -594,9 +605,10 @@ mod tests {
             y: y.view(),
             eval: et.t(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
         KnnFamily::default()
-            .fit_predict(&input, &grid, b.view_mut())
+            .fit_predict(&input, &grid, crate::family::Out::values(b.view_mut()))
             .unwrap();
         assert_eq!(a, b);
     }
@@ -628,8 +640,10 @@ mod tests {
                 y: y.view(),
                 eval: eval.view(),
                 task,
+                seed: crate::rng::FitSeed::fixed(0),
             };
-            fam.fit_predict(&input, grid, out.view_mut()).unwrap_err()
+            fam.fit_predict(&input, grid, crate::family::Out::values(out.view_mut()))
+                .unwrap_err()
         };
         let y = Array1::from(vec![0.0, 1.0, 2.0, 1.0, 0.0]);
         let two = Task::Classify { classes: 2 };
@@ -652,7 +666,10 @@ mod tests {
             y: y.view(),
             eval: eval.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
-        assert!(fam.fit_predict(&input, &[1.0], out.view_mut()).is_err());
+        assert!(fam
+            .fit_predict(&input, &[1.0], crate::family::Out::values(out.view_mut()))
+            .is_err());
     }
 }

@@ -811,13 +811,14 @@ mod tests {
             y: y.view(),
             eval: eval.view(),
             task: Task::Classify { classes: k },
+            seed: crate::rng::FitSeed::fixed(0),
         }
     }
 
     fn predict(inp: &FitInput<'_>, grid: &[f64]) -> Array2<f64> {
         let mut out = Array2::zeros((grid.len(), inp.eval.nrows()));
         LogisticFamily
-            .fit_predict(inp, grid, out.view_mut())
+            .fit_predict(inp, grid, crate::family::Out::values(out.view_mut()))
             .expect("fit");
         out
     }
@@ -1164,28 +1165,46 @@ mod tests {
         let (x, y) = data(99, 30, 2, 2);
         let mut out = Array2::zeros((1, 30));
         let e = fam
-            .fit_predict(&input(&x, &y, &x, 2), &[0.0], out.view_mut())
+            .fit_predict(
+                &input(&x, &y, &x, 2),
+                &[0.0],
+                crate::family::Out::values(out.view_mut()),
+            )
             .unwrap_err();
         assert!(e.0.contains("inverse_penalty"), "{}", e.0);
         let reg = FitInput {
             task: Task::Regress,
             ..input(&x, &y, &x, 2)
         };
-        assert!(fam.fit_predict(&reg, &[1.0], out.view_mut()).is_err());
+        assert!(fam
+            .fit_predict(&reg, &[1.0], crate::family::Out::values(out.view_mut()))
+            .is_err());
         for bad in [2.0, 0.5, -1.0] {
             let mut yb = y.clone();
             yb[3] = bad;
             let e = fam
-                .fit_predict(&input(&x, &yb, &x, 2), &[1.0], out.view_mut())
+                .fit_predict(
+                    &input(&x, &yb, &x, 2),
+                    &[1.0],
+                    crate::family::Out::values(out.view_mut()),
+                )
                 .unwrap_err();
             assert!(e.0.contains(&format!("{bad}")), "{}", e.0);
         }
         assert!(fam
-            .fit_predict(&input(&x, &y, &x, 0), &[1.0], out.view_mut())
+            .fit_predict(
+                &input(&x, &y, &x, 0),
+                &[1.0],
+                crate::family::Out::values(out.view_mut())
+            )
             .is_err());
         let mut wrong = Array2::zeros((2, 30));
         assert!(fam
-            .fit_predict(&input(&x, &y, &x, 2), &[1.0], wrong.view_mut())
+            .fit_predict(
+                &input(&x, &y, &x, 2),
+                &[1.0],
+                crate::family::Out::values(wrong.view_mut())
+            )
             .is_err());
     }
 }

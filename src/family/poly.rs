@@ -313,6 +313,7 @@ fn basis_matrix(x: ArrayView2<'_, f64>, scaler: &Scaler, exps: &[Vec<u8>], d: us
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::family::linalg::jacobi_svd;
     use ndarray::{array, Array1, Array2};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
@@ -324,9 +325,10 @@ mod tests {
             y: y.view(),
             eval: eval.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
         PolyFamily
-            .fit_predict(&input, grid, out.view_mut())
+            .fit_predict(&input, grid, crate::family::Out::values(out.view_mut()))
             .expect("fit");
         out
     }
@@ -539,9 +541,10 @@ mod tests {
             y: y.view(),
             eval: x.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
         assert!(PolyFamily
-            .fit_predict(&input, &[1.0], out.view_mut())
+            .fit_predict(&input, &[1.0], crate::family::Out::values(out.view_mut()))
             .is_err());
         let y = array![1.0, 2.0, 3.0];
         let input = FitInput {
@@ -549,20 +552,28 @@ mod tests {
             ..input
         };
         assert!(PolyFamily
-            .fit_predict(&input, &[3.0], out.view_mut())
+            .fit_predict(&input, &[3.0], crate::family::Out::values(out.view_mut()))
             .is_err());
         assert!(PolyFamily
-            .fit_predict(&input, &[0.5], out.view_mut())
+            .fit_predict(&input, &[0.5], crate::family::Out::values(out.view_mut()))
             .is_err());
         let classify = FitInput {
             task: Task::Classify { classes: 2 },
             ..input
         };
         assert!(PolyFamily
-            .fit_predict(&classify, &[1.0], out.view_mut())
+            .fit_predict(
+                &classify,
+                &[1.0],
+                crate::family::Out::values(out.view_mut())
+            )
             .is_err());
         assert!(PolyFamily
-            .fit_predict(&input, &[1.0, 2.0], out.view_mut())
+            .fit_predict(
+                &input,
+                &[1.0, 2.0],
+                crate::family::Out::values(out.view_mut())
+            )
             .is_err());
     }
 

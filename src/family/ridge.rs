@@ -222,9 +222,10 @@ mod tests {
             y: y.view(),
             eval: eval.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
         RidgeFamily
-            .fit_predict(&input, grid, out.view_mut())
+            .fit_predict(&input, grid, crate::family::Out::values(out.view_mut()))
             .expect("fit");
         out
     }
@@ -309,9 +310,10 @@ mod tests {
             y: y.view(),
             eval: x.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
         assert!(RidgeFamily
-            .fit_predict(&input, &[-2.0], out.view_mut())
+            .fit_predict(&input, &[-2.0], crate::family::Out::values(out.view_mut()))
             .is_err());
     }
 

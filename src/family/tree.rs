@@ -941,6 +941,7 @@ mod tests {
             ),
             (
                 TreeFamily {
+                    alpha: 0.0,
                     min_samples_leaf: 3,
                     criterion: Criterion::Entropy,
                 },
@@ -969,8 +970,10 @@ mod tests {
                 y,
                 eval: eval.view(),
                 task,
+                seed: crate::rng::FitSeed::fixed(0),
             };
-            fam.fit_predict(&input, &grid, out.view_mut()).unwrap();
+            fam.fit_predict(&input, &grid, crate::family::Out::values(out.view_mut()))
+                .unwrap();
             for d in 1..=8 {
                 let shallow = fam.grow(x.view(), y, task, d).unwrap();
                 for (e, row) in eval.rows().into_iter().enumerate() {
@@ -1028,6 +1031,7 @@ mod tests {
         for ml in [1, 4, 9] {
             for criterion in [Criterion::Gini, Criterion::Entropy] {
                 let fam = TreeFamily {
+                    alpha: 0.0,
                     min_samples_leaf: ml,
                     criterion,
                 };
@@ -1089,9 +1093,12 @@ mod tests {
             y: y.view(),
             eval: eval.view(),
             task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
         };
         let mut out = Array2::zeros((1, 1));
-        assert!(fam.fit_predict(&input, &[2.0], out.view_mut()).is_err());
+        assert!(fam
+            .fit_predict(&input, &[2.0], crate::family::Out::values(out.view_mut()))
+            .is_err());
     }
 
     #[test]

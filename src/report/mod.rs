@@ -126,8 +126,9 @@ impl TermDoc {
 
 /// One grid value's decomposition: the terms in the loss's order (JSON keys, dotted keys as
 /// nested objects), then `estimated` on tables, then the standard errors of the terms that have
-/// one (jackknife over replicate blocks; `null` where they cannot be computed).
-#[derive(Debug, Clone, PartialEq)]
+/// one (jackknife over replicate blocks; `null` where they cannot be computed). Two rows are
+/// equal when every number is the same bit for bit (so `null` equals `null`).
+#[derive(Debug, Clone)]
 pub struct PointRow {
     /// Knob value.
     pub value: f64,
@@ -141,6 +142,23 @@ pub struct PointRow {
     pub estimated: Option<bool>,
     /// Standard errors in order: `(key, value)`, NaN written as `null`.
     pub stderr: Vec<(String, f64)>,
+}
+
+impl PartialEq for PointRow {
+    fn eq(&self, o: &Self) -> bool {
+        let same = |a: &[(String, f64)], b: &[(String, f64)]| {
+            a.len() == b.len()
+                && a.iter()
+                    .zip(b)
+                    .all(|(x, y)| x.0 == y.0 && x.1.to_bits() == y.1.to_bits())
+        };
+        self.value.to_bits() == o.value.to_bits()
+            && self.family == o.family
+            && self.train_size == o.train_size
+            && self.estimated == o.estimated
+            && same(&self.terms, &o.terms)
+            && same(&self.stderr, &o.stderr)
+    }
 }
 
 impl PointRow {

@@ -203,7 +203,7 @@ mod tests {
 
     #[test]
     fn folds_are_balanced() {
-        let mut rng = crate::runner::stream(1, crate::runner::purpose::AUDIT, 0);
+        let mut rng = crate::rng::stream(1, crate::rng::purpose::AUDIT, 0);
         let f = fold_assignment(23, 5, &mut rng);
         for k in 0..5 {
             let c = f.iter().filter(|&&v| v == k).count();
@@ -218,8 +218,8 @@ mod tests {
         // 0.1/√3 ≈ 0.0577, so the bound is 0.9577: index 2 (0.95) is within, index 0 is not.
         let l = array![[1.0, 0.8, 0.95], [1.0, 0.9, 0.95], [1.0, 1.0, 0.95]];
         let rows = [10, 10, 10];
-        assert_eq!(pick(l.view(), &rows, &plan(Rule::Min, false)), 1);
-        assert_eq!(pick(l.view(), &rows, &plan(Rule::OneSe, false)), 1);
-        assert_eq!(pick(l.view(), &rows, &plan(Rule::OneSe, true)), 2);
+        assert_eq!(pick(l.view(), &rows, &plan(Rule::Min, false), &[]), 1);
+        assert_eq!(pick(l.view(), &rows, &plan(Rule::OneSe, false), &[]), 1);
+        assert_eq!(pick(l.view(), &rows, &plan(Rule::OneSe, true), &[]), 2);
     }
 }
