@@ -18,7 +18,7 @@ use lossprism::family::logistic::LogisticFamily;
 use lossprism::family::poly::PolyFamily;
 use lossprism::family::ridge::RidgeFamily;
 use lossprism::family::tree::TreeFamily;
-use lossprism::family::{Family, FitInput, Task};
+use lossprism::family::{Family, FitInput, Out, Task};
 
 fn data(n: usize, m: usize, p: usize) -> (Array2<f64>, Array1<f64>, Array2<f64>) {
     let mut rng = ChaCha8Rng::seed_from_u64(12345);
@@ -58,19 +58,20 @@ fn bench_task(
         y: y.view(),
         eval: eval.view(),
         task,
+        seed: lossprism::family::FitSeed::fixed(1),
     };
     let mut group = c.benchmark_group(label);
     let mut out = Array2::<f64>::zeros((grid.len(), eval.nrows()));
     group.bench_function("whole grid", |b| {
         b.iter(|| {
-            fam.fit_predict(black_box(&input), grid, out.view_mut())
+            fam.fit_predict(black_box(&input), grid, Out::values(out.view_mut()))
                 .expect("fit");
         })
     });
     let mut out1 = Array2::<f64>::zeros((single.len(), eval.nrows()));
     group.bench_function("most complex only", |b| {
         b.iter(|| {
-            fam.fit_predict(black_box(&input), single, out1.view_mut())
+            fam.fit_predict(black_box(&input), single, Out::values(out1.view_mut()))
                 .expect("fit");
         })
     });

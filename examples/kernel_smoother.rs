@@ -9,9 +9,8 @@
 
 use std::sync::Arc;
 
-use lossprism::family::{Family, FitError, FitInput, Task};
+use lossprism::family::{Family, FitError, FitInput, Out, Task};
 use lossprism::{check, harness, report};
-use ndarray::ArrayViewMut2;
 
 /// Nadaraya–Watson kernel regression (Nadaraya 1964; Watson 1964): the prediction at `x0` is
 /// `Σ K(‖xᵢ − x0‖ / h) yᵢ / Σ K(‖xᵢ − x0‖ / h)` with the Gaussian kernel `K(u) = exp(−u²/2)`
@@ -77,7 +76,7 @@ impl Family for NadarayaWatson {
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
-        mut out: ArrayViewMut2<'_, f64>,
+        mut out: Out<'_>,
     ) -> Result<(), FitError> {
         let n = input.x.nrows();
         if n == 0 || input.y.len() != n {
@@ -108,7 +107,7 @@ impl Family for NadarayaWatson {
                     let u = (r >> 11) as f64 / (1u64 << 53) as f64; // [0, 1)
                     pred += self.jitter * (2.0 * u - 1.0);
                 }
-                out[[g, e]] = pred;
+                out.values[[g, e]] = pred;
             }
         }
         Ok(())
@@ -151,7 +150,7 @@ fn main() {
             std::process::exit(2);
         }
     };
-    print!("{}", report::table::render(&doc));
+    print!("{}", report::terminal::render(&doc));
     // The same estimator, seed and replicates again: bit-identical, so `check` says "identical".
     let again = harness::run_with_family(SCENARIO, Arc::new(NadarayaWatson::default()))
         .expect("the same run succeeds twice");

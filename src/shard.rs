@@ -404,6 +404,16 @@ pub fn part_doc(
         shard: shard.map(|s| s.as_ref()),
         name: plan.name.clone(),
         families: plan.models.iter().map(|m| m.family.name().into()).collect(),
+        grids: plan
+            .models
+            .iter()
+            .map(|m| {
+                m.grid
+                    .iter()
+                    .map(|v| format!("{:016x}", v.to_bits()))
+                    .collect()
+            })
+            .collect(),
         loss: plan.loss.name().into(),
         seed: plan.seed,
         replicates: plan.replicates,
@@ -521,6 +531,14 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
         )
     } else if a.loss != b.loss {
         format!("loss {} vs {}", a.loss, b.loss)
+    } else if a.grids != b.grids {
+        let words = |g: &[Vec<String>]| {
+            g.iter()
+                .map(|grid| grid_words(grid))
+                .collect::<Vec<_>>()
+                .join(" and ")
+        };
+        format!("grid {} vs {}", words(&a.grids), words(&b.grids))
     } else if a.seed != b.seed {
         format!("seed {} vs {}", a.seed, b.seed)
     } else if a.replicates != b.replicates {
@@ -536,6 +554,18 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
     } else {
         String::new()
     }
+}
+
+fn grid_words(hex: &[String]) -> String {
+    let vals: Vec<String> = hex
+        .iter()
+        .map(|h| {
+            u64::from_str_radix(h, 16)
+                .map(|b| crate::fmt::fmt_value(f64::from_bits(b)))
+                .unwrap_or_else(|_| h.clone())
+        })
+        .collect();
+    format!("[{}]", vals.join(", "))
 }
 
 fn shard_words(s: Option<ShardRef>) -> String {

@@ -44,7 +44,7 @@ fn plan_of(text: &str) -> Plan {
     .expect("plans")
 }
 
-fn selection(text: &str, threads: usize) -> (report::ResultDoc, lossprism::audit::Selection) {
+fn selection(text: &str, threads: usize) -> (report::ResultDoc, report::Selection) {
     let plan = plan_of(text);
     let out = runner::run(&plan, threads).expect("runs");
     let doc = report::build(&plan, &out);
@@ -131,14 +131,14 @@ fn audit_is_identical_on_one_and_two_threads_and_its_numbers_follow_from_counts(
     let min = d1
         .points
         .iter()
-        .map(|p| p.expected_loss)
+        .map(|p| p.expected_loss())
         .fold(f64::INFINITY, f64::min);
     let r: u64 = s1.chosen_counts.iter().sum();
     let mean: f64 = d1
         .points
         .iter()
         .zip(&s1.chosen_counts)
-        .map(|(p, &c)| c as f64 * (p.expected_loss - min))
+        .map(|(p, &c)| c as f64 * (p.expected_loss() - min))
         .sum::<f64>()
         / r as f64;
     assert_eq!(mean, s1.mean_excess_loss);
@@ -152,7 +152,7 @@ fn audit_is_identical_on_one_and_two_threads_and_its_numbers_follow_from_counts(
         .sum();
     assert_eq!(s1.share_within_one_se, within as f64 / r as f64);
     // The table output carries the plain sentence.
-    assert!(report::table::render(&d1).contains("5-fold cross-validation (min rule)"));
+    assert!(report::terminal::render(&d1).contains("5-fold cross-validation (min rule)"));
 }
 
 #[test]

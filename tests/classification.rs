@@ -34,9 +34,10 @@ use std::path::Path;
 use std::process::{Command, Output};
 
 use lossprism::decompose::jackknife_se;
-use lossprism::decompose::zero_one::{self, domingos_coefficients, ZeroOneAcc, ZeroOneSummary};
+use lossprism::decompose::zero_one::{self, domingos_coefficients, ZeroOne, ZeroOneSummary};
+use lossprism::decompose::Acc;
 use lossprism::family::knn::neighbours;
-use lossprism::runner::{self, BlockAcc, Prepared};
+use lossprism::runner::{self, Prepared};
 use lossprism::scenario::{parse, Plan, PlanOptions};
 
 /// Number of standard errors allowed in every Monte Carlo comparison.
@@ -52,7 +53,7 @@ const TOL: f64 = 1e-12;
 struct Run {
     plan: Plan,
     prep: Prepared,
-    blocks: Vec<ZeroOneAcc>,
+    blocks: Vec<Acc>,
     summary: ZeroOneSummary,
     /// `points × K` class probabilities at the evaluation points, row-major.
     probs: Vec<f64>,
@@ -60,11 +61,11 @@ struct Run {
 
 impl Run {
     fn classes(&self) -> usize {
-        self.summary.total.classes
+        self.summary.total.shape.classes
     }
 
     fn points(&self) -> usize {
-        self.summary.total.points
+        self.summary.total.shape.points
     }
 
     /// True class probabilities at evaluation point `e`.
@@ -74,9 +75,17 @@ impl Run {
     }
 
     /// Delete-a-block jackknife standard error of any statistic of the folded accumulator.
-    fn jackknife(&self, stat: impl Fn(&ZeroOneAcc) -> f64) -> f64 {
+    fn jackknife(&self, stat: impl Fn(&Acc) -> f64) -> f64 {
         let loo: Vec<f64> = (0..self.blocks.len())
-            .map(|b| stat(&ZeroOneAcc::fold(&self.blocks, Some(b)).expect("blocks remain")))
+            .map(|b| {
+                let rest = self
+                    .blocks
+                    .iter()
+                    .enumerate()
+                    .filter(|(i, _)| *i != b)
+                    .map(|(_, a)| a);
+                stat(&Acc::fold(&ZeroOne, rest).expect("blocks remain"))
+            })
             .collect();
         jackknife_se(&loo)
     }
@@ -95,14 +104,12 @@ fn run_text(src: &str) -> Run {
     .expect("plans");
     let prep = runner::prepare(&plan).expect("prepares");
     let ids: Vec<u64> = (0..plan.blocks).collect();
-    let blocks: Vec<ZeroOneAcc> = runner::run_blocks(&plan, &prep, &ids, THREADS)
-        .expect("runs")
-        .into_iter()
-        .map(|b| match b {
-            BlockAcc::ZeroOne(a) => a,
-            BlockAcc::Squared(_) => panic!("a classification run gave a squared-loss block"),
-        })
-        .collect();
+    let done = runner::schedule(&plan, &prep, &ids, THREADS, &runner::NoWatch, &|_, _| {
+        Ok(true)
+    })
+    .expect("runs")
+    .done;
+    let blocks: Vec<Acc> = done.into_values().map(|b| b.accs[0].clone()).collect();
     let probs: Vec<f64> = prep
         .eval_probs
         .as_ref()
@@ -321,14 +328,14 @@ fn check_fixed_design_knn(src: &str, what: &str) {
         .expect("probabilities at the design");
     let k_classes = run.classes();
     let m = run.points();
-    let r = run.summary.total.n as f64;
+    let r = run.summary.total.replicates as f64;
     let gap_needed = 6.0 / r.sqrt();
     // Clear points whose main prediction is not the Bayes class (the B = 1 branch of Domingos'
     // coefficients), over the whole grid: the scenario must have some.
     let mut biased_clear = 0usize;
     assert_eq!(m, x.nrows(), "evaluation at the design");
 
-    for (g, &kf) in run.plan.grid.iter().enumerate() {
+    for (g, &kf) in run.plan.model().grid.iter().enumerate() {
         let k = kf as usize;
         let at = format!("{what}, k = {k}");
         // Exact prediction distribution at every design point.
@@ -433,7 +440,7 @@ fn check_fixed_design_knn(src: &str, what: &str) {
             ),
         ];
         for (name, pick, exact_of) in terms {
-            let subset_mean = |acc: &ZeroOneAcc| {
+            let subset_mean = |acc: &Acc| {
                 clear
                     .iter()
                     .map(|&e| {
@@ -652,9 +659,13 @@ fn a_constant_classifier_has_no_variance_and_bias_where_the_bayes_class_differs(
     ] {
         let run = constant_classifier_run(n, probability);
         let acc = &run.summary.total;
-        let r = acc.n as u32;
+        let r = acc.replicates as u32;
         for e in 0..n {
-            assert_eq!(acc.cell(0, e), &[0, r], "n = {n}, point {e}: not constant");
+            assert_eq!(
+                zero_one::cell(acc, 0, e),
+                &[0, r],
+                "n = {n}, point {e}: not constant"
+            );
         }
         let bayes_misses = (0..n).filter(|&e| argmax_first(run.p_true(e)) != 1).count();
         assert_eq!(bayes_misses, wrong, "n = {n}: the scenario's Bayes classes");
@@ -736,7 +747,11 @@ fn every_decomposition_sums_to_the_master_identity_in_full_runs() {
             let what = format!("K = {k_classes}, {family}");
             let acc = &run.summary.total;
             for (g, t) in run.summary.terms.iter().enumerate() {
-                let at = format!("{what}, {} = {}", run.plan.family.knob(), run.plan.grid[g]);
+                let at = format!(
+                    "{what}, {} = {}",
+                    run.plan.model().family.knob(),
+                    run.plan.model().grid[g]
+                );
                 let kw = t.kw_noise + t.kw_bias_sq + t.kw_variance;
                 assert!(
                     (kw - t.expected_loss).abs() < TOL,
@@ -748,8 +763,12 @@ fn every_decomposition_sums_to_the_master_identity_in_full_runs() {
                 let c1n = (0..run.points())
                     .map(|e| {
                         let pt = zero_one::point(acc, g, e, run.p_true(e));
-                        let top = *acc.cell(g, e).iter().max().unwrap();
-                        ties += (acc.cell(g, e).iter().filter(|&&c| c == top).count() > 1) as usize;
+                        let top = *zero_one::cell(acc, g, e).iter().max().unwrap();
+                        ties += (zero_one::cell(acc, g, e)
+                            .iter()
+                            .filter(|&&c| c == top)
+                            .count()
+                            > 1) as usize;
                         wrong_main += (pt.main_prediction != pt.bayes_class) as usize;
                         cells += 1;
                         pt.c1 * pt.terms.noise
@@ -757,9 +776,9 @@ fn every_decomposition_sums_to_the_master_identity_in_full_runs() {
                     .sum::<f64>()
                     / run.points() as f64;
                 assert!(
-                    (t.domingos_noise_term() - c1n).abs() < TOL,
+                    (t.noise_term - c1n).abs() < TOL,
                     "{at}: Domingos c1·N {} vs {c1n}",
-                    t.domingos_noise_term()
+                    t.noise_term
                 );
                 assert!((t.unbiased_variance + t.biased_variance - t.variance).abs() < TOL);
                 if k_classes == 2 {
@@ -796,8 +815,8 @@ fn direct_misclassification_agrees_with_the_master_identity() {
         (4, "tree", "[1, 3, 6]"),
     ] {
         let run = run_text(&wheel_scenario(k_classes, family, grid, 200, 40));
-        for g in 0..run.plan.grid.len() {
-            let diff = |acc: &ZeroOneAcc| {
+        for g in 0..run.plan.model().grid.len() {
+            let diff = |acc: &Acc| {
                 let t = &zero_one::terms(acc, &run.probs)[g];
                 t.expected_loss_direct - t.expected_loss
             };
@@ -805,8 +824,8 @@ fn direct_misclassification_agrees_with_the_master_identity() {
             assert_within(
                 &format!(
                     "K = {k_classes}, {family} {} = {}: direct − master",
-                    run.plan.family.knob(),
-                    run.plan.grid[g]
+                    run.plan.model().family.knob(),
+                    run.plan.model().grid[g]
                 ),
                 diff(&run.summary.total),
                 0.0,
@@ -865,18 +884,23 @@ kind = "zero_one"
         let excess = t.expected_loss - t.noise;
         println!(
             "C = {}: expected loss {:.5}, Bayes error {:.5}, excess {:.5} ± {:.5}, bias {:.4}",
-            run.plan.grid[g], t.expected_loss, t.noise, excess, se[g].expected_loss, t.bias
+            run.plan.model().grid[g],
+            t.expected_loss,
+            t.noise,
+            excess,
+            se[g].expected_loss,
+            t.bias
         );
         assert!(excess > -Z * se[g].expected_loss, "below the Bayes error");
         assert!(
             excess <= Z * se[g].expected_loss + MARGIN,
             "C = {}: excess {excess} over the Bayes error",
-            run.plan.grid[g]
+            run.plan.model().grid[g]
         );
         assert!(
             t.bias <= 0.02,
             "C = {}: Domingos bias {}",
-            run.plan.grid[g],
+            run.plan.model().grid[g],
             t.bias
         );
     }

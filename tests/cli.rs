@@ -4,7 +4,9 @@
 
 use std::fs;
 use std::path::{Path, PathBuf};
-use std::process::{Command, Output};
+
+mod common;
+use common::*;
 
 use serde_json::Value;
 
@@ -42,28 +44,6 @@ const BASE_GRID: [f64; 3] = [1.0, 2.0, 3.0];
 /// Evaluation points of [`BASE`].
 const BASE_EVAL: usize = 20;
 
-fn bin() -> &'static str {
-    env!("CARGO_BIN_EXE_lossprism")
-}
-
-fn repo() -> PathBuf {
-    PathBuf::from(env!("CARGO_MANIFEST_DIR"))
-}
-
-/// Runs the binary with `args` in folder `cwd`.
-fn lossprism(cwd: &Path, args: &[&str]) -> Output {
-    Command::new(bin())
-        .args(args)
-        .current_dir(cwd)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("the lossprism binary starts")
-}
-
-fn text(bytes: &[u8]) -> String {
-    String::from_utf8_lossy(bytes).into_owned()
-}
-
 /// `BASE` with `from` replaced by `to` (exactly once).
 fn edit(from: &str, to: &str) -> String {
     assert_eq!(
@@ -72,55 +52,6 @@ fn edit(from: &str, to: &str) -> String {
         "fixture edit `{from}` must be unique"
     );
     BASE.replacen(from, to, 1)
-}
-
-/// Writes `body` to `dir/name` and returns the name (relative to `dir`).
-fn put(dir: &Path, name: &str, body: &str) -> String {
-    fs::write(dir.join(name), body).expect("write fixture");
-    name.to_string()
-}
-
-fn no_panic(out: &Output) {
-    let all = format!("{}{}", text(&out.stdout), text(&out.stderr));
-    assert!(
-        !all.contains("panicked") && !all.contains("RUST_BACKTRACE"),
-        "the binary panicked:\n{all}"
-    );
-}
-
-/// Exit code 2, nothing on stdout, and stderr exactly one non-empty line starting with
-/// `error:` that contains every `needle`. Returns that line.
-fn assert_bad(out: &Output, needles: &[&str]) -> String {
-    no_panic(out);
-    let err = text(&out.stderr);
-    assert_eq!(
-        out.status.code(),
-        Some(2),
-        "expected exit code 2; stderr:\n{err}"
-    );
-    assert!(
-        out.stdout.is_empty(),
-        "nothing should go to stdout on error, got:\n{}",
-        text(&out.stdout)
-    );
-    let lines: Vec<&str> = err.lines().collect();
-    assert_eq!(
-        lines.len(),
-        1,
-        "stderr must be exactly one line, got:\n{err}"
-    );
-    let line = lines[0];
-    assert!(
-        line.starts_with("error:") && line.len() > "error:".len() + 1,
-        "stderr must start with `error:` and say something, got: {line}"
-    );
-    for n in needles {
-        assert!(
-            line.contains(n),
-            "error line must contain `{n}`, got: {line}"
-        );
-    }
-    line.to_string()
 }
 
 /// Writes `body` as `name`, runs both `validate` and `run --quiet` on it, and checks that each
@@ -529,13 +460,16 @@ fn run_without_argument_runs_the_embedded_default() {
 }
 
 #[test]
-fn quiet_prints_nothing() {
+fn quiet_prints_nothing_and_needs_an_output() {
     let dir = tempfile::tempdir().unwrap();
     let f = put(dir.path(), "ok.toml", BASE);
-    let out = lossprism(dir.path(), &["run", &f, "--quiet"]);
+    let out = lossprism(dir.path(), &["run", &f, "--quiet", "--out", "r.json"]);
     no_panic(&out);
     assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
     assert!(out.stdout.is_empty() && out.stderr.is_empty());
+    // With no output file, --quiet would compute a result and show nothing: refused.
+    let out = lossprism(dir.path(), &["run", &f, "--quiet"]);
+    assert_bad(&out, &["--quiet", "--out"]);
 }
 
 // ---------------------------------------------------------------------------------------------

@@ -10,7 +10,7 @@
 
 use std::path::Path;
 
-use lossprism::decompose::squared::{point, SquaredSummary};
+use lossprism::decompose::squared::{self, point, SquaredSummary};
 use lossprism::family::knn::neighbours;
 use lossprism::runner::{run, Outcome};
 use lossprism::scenario::{parse, Plan, PlanOptions};
@@ -37,8 +37,8 @@ fn fixed_design(out: &Outcome) -> (Array2<f64>, Array1<f64>) {
 }
 
 /// The squared-loss summary of a run (every scenario here is a regression).
-fn sq(out: &Outcome) -> &SquaredSummary {
-    out.summary.squared().expect("squared-loss summary")
+fn sq(out: &Outcome) -> SquaredSummary {
+    squared::view(out.summary()).expect("squared-loss summary")
 }
 
 /// Asserts `|estimate - exact| <= Z * se` with a readable message.
@@ -135,7 +135,7 @@ fn check_knn_fixed(label: &str, plan: &Plan, out: &Outcome, sigma: f64) {
         out.prepared.eval_x, x,
         "eval = design evaluates at the design"
     );
-    for (g, &kf) in plan.grid.iter().enumerate() {
+    for (g, &kf) in plan.model().grid.iter().enumerate() {
         let k = kf as usize;
         // ESL eq. 7.10: at a fixed design the k-NN fit at x0 has variance σ²/k and bias
         // f(x0) - (1/k) Σ_{l ∈ N_k(x0)} f(x_l).
@@ -253,7 +253,7 @@ fn check_poly_fixed(label: &str, src: &str, sigma: f64, coefs: &dyn Fn(usize) ->
     const BIAS_R: u64 = 64;
     let (plan, out) = run_text(src, &PlanOptions::default());
     let n = out.prepared.eval_x.nrows() as f64;
-    for (g, &d) in plan.grid.iter().enumerate() {
+    for (g, &d) in plan.model().grid.iter().enumerate() {
         let q = coefs(d as usize) as f64;
         let t = &sq(&out).terms[g];
         let se = &sq(&out).stderr[g];
@@ -265,7 +265,7 @@ fn check_poly_fixed(label: &str, src: &str, sigma: f64, coefs: &dyn Fn(usize) ->
             se.variance,
         );
     }
-    let mut b2 = vec![Vec::new(); plan.grid.len()];
+    let mut b2 = vec![Vec::new(); plan.model().grid.len()];
     for s in 0..BIAS_SEEDS {
         let opts = PlanOptions {
             seed: Some(plan.seed + 1 + s),
@@ -276,7 +276,7 @@ fn check_poly_fixed(label: &str, src: &str, sigma: f64, coefs: &dyn Fn(usize) ->
             v.push(sq(&o).terms[g].bias_sq);
         }
     }
-    for (g, &d) in plan.grid.iter().enumerate() {
+    for (g, &d) in plan.model().grid.iter().enumerate() {
         let (mean, se) = mean_and_se(&b2[g]);
         // The truth lies in the column space: exact bias 0 (least squares reproduces f).
         assert_within(
@@ -451,7 +451,7 @@ grid = {{ log = [0.01, 100.0], count = 5 }}
         let (x, f) = fixed_design(&out);
         let n = x.nrows();
         let sigma2 = 1.5f64 * 1.5;
-        for (g, &lambda) in plan.grid.iter().enumerate() {
+        for (g, &lambda) in plan.model().grid.iter().enumerate() {
             let s = ridge_smoother(&x, lambda);
             let exact_var = (0..n)
                 .map(|i| sigma2 * s[i].iter().map(|v| v * v).sum::<f64>())
@@ -718,7 +718,7 @@ family = "knn"
 grid = [1, 5, 20]
 "#;
     let (plan, out) = run_text(src, &PlanOptions::default());
-    for (g, &k) in plan.grid.iter().enumerate() {
+    for (g, &k) in plan.model().grid.iter().enumerate() {
         let t = &sq(&out).terms[g];
         let se = &sq(&out).stderr[g];
         let combined = (se.expected_loss.powi(2) + se.expected_loss_direct.powi(2)).sqrt();

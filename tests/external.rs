@@ -239,7 +239,7 @@ fn sklearn_example_runs_when_available() {
     let doc = run_text(dir.path(), "sk.toml", &text);
     assert_eq!(doc.points.len(), 4);
     // Deeper trees fit the training set more closely: more variance than a stump.
-    assert!(doc.points[3].variance > doc.points[0].variance);
+    assert!(doc.points[3].get("variance") > doc.points[0].get("variance"));
 }
 
 /// A misbehaving estimator: answers `good` fits correctly-shaped (constant 0.5), then

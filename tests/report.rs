@@ -8,7 +8,7 @@ use std::process::Command;
 
 use lossprism::report::html::{self, Pictures};
 use lossprism::report::plot::{self, SelectionView};
-use lossprism::report::table::View;
+use lossprism::report::terminal::View;
 use lossprism::report::{self, ResultDoc};
 use lossprism::runner::{self, Outcome};
 use lossprism::scenario::{self, Plan, PlanOptions};
@@ -168,6 +168,14 @@ fn paths(svg: &str) -> usize {
         .sum()
 }
 
+/// Replicate 0's training set of a run (what the per-point picture shows).
+fn train(
+    plan: &lossprism::scenario::Plan,
+    out: &lossprism::runner::Outcome,
+) -> (ndarray::Array2<f64>, ndarray::Array1<f64>) {
+    lossprism::runner::training_set(plan, &out.prepared, 0).expect("replicate 0")
+}
+
 #[test]
 fn curve_has_four_series_bands_and_marks_the_best() {
     let (_, _, doc) = run(TINY);
@@ -210,14 +218,19 @@ fn log_grid_gets_a_log_axis() {
 fn zero_one_curve_follows_the_decomposition_and_shows_negatives() {
     let (_, _, mut doc) = run(TINY_CLASSES);
     // Force a negative net variance to check the axis reaches below zero.
-    doc.points[0].net_variance = Some(-0.05);
+    doc.points[0]
+        .terms
+        .iter_mut()
+        .find(|t| t.0 == "net_variance")
+        .unwrap()
+        .1 = -0.05;
     let svg = plot::curve_svg(&doc, View::Domingos).unwrap();
     let t = texts(&svg);
     for label in [
         "expected loss",
         "bias (Domingos)",
         "net variance (Domingos)",
-        "noise (Bayes error)",
+        "noise (Bayes)",
     ] {
         assert!(t.iter().any(|s| s == label), "{label} missing");
     }
@@ -238,7 +251,14 @@ fn zero_one_curve_follows_the_decomposition_and_shows_negatives() {
 #[test]
 fn per_point_view_shows_truth_predictions_and_training_points() {
     let (plan, outcome, doc) = run(TINY);
-    let v = plot::point_view(&plan, &outcome, &doc, None).unwrap();
+    let v = plot::point_view(
+        &plan,
+        &outcome,
+        &doc,
+        None,
+        (&train(&plan, &outcome).0, &train(&plan, &outcome).1),
+    )
+    .unwrap();
     // One input: one x per evaluation point, sorted.
     assert_eq!(v.x.len(), 30);
     assert!(v.x.windows(2).all(|w| w[0] <= w[1]));
@@ -264,16 +284,44 @@ fn per_point_view_shows_truth_predictions_and_training_points() {
 #[test]
 fn per_point_view_needs_an_input_name_with_several_inputs() {
     let (plan, outcome, doc) = run(TINY_LOG);
-    let err = plot::point_view(&plan, &outcome, &doc, None).unwrap_err();
+    let err = plot::point_view(
+        &plan,
+        &outcome,
+        &doc,
+        None,
+        (&train(&plan, &outcome).0, &train(&plan, &outcome).1),
+    )
+    .unwrap_err();
     assert!(err.to_string().contains("--input"), "{err}");
-    let err = plot::point_view(&plan, &outcome, &doc, Some("zz")).unwrap_err();
+    let err = plot::point_view(
+        &plan,
+        &outcome,
+        &doc,
+        Some("zz"),
+        (&train(&plan, &outcome).0, &train(&plan, &outcome).1),
+    )
+    .unwrap_err();
     assert!(err.to_string().contains("a, b"), "{err}");
-    let v = plot::point_view(&plan, &outcome, &doc, Some("b")).unwrap();
+    let v = plot::point_view(
+        &plan,
+        &outcome,
+        &doc,
+        Some("b"),
+        (&train(&plan, &outcome).0, &train(&plan, &outcome).1),
+    )
+    .unwrap();
     assert_eq!(v.averaged_over, vec!["a".to_string()]);
     assert!(v.x.len() >= 2 && v.x.len() <= 40);
     assert!(plot::points_svg(&v).is_ok());
     let (cplan, cout, cdoc) = run(TINY_CLASSES);
-    assert!(plot::point_view(&cplan, &cout, &cdoc, None).is_err());
+    assert!(plot::point_view(
+        &cplan,
+        &cout,
+        &cdoc,
+        None,
+        (&train(&cplan, &cout).0, &train(&cplan, &cout).1)
+    )
+    .is_err());
     assert!(plot::check_point_request(&cplan, None).is_err());
     assert!(plot::check_point_request(&plan, Some("a")).is_ok());
 }
@@ -312,13 +360,20 @@ fn selection_histogram_marks_the_oracle() {
 #[test]
 fn html_report_is_self_contained_and_has_every_row() {
     let (plan, outcome, doc) = run(TINY);
-    let v = plot::point_view(&plan, &outcome, &doc, None).unwrap();
+    let v = plot::point_view(
+        &plan,
+        &outcome,
+        &doc,
+        None,
+        (&train(&plan, &outcome).0, &train(&plan, &outcome).1),
+    )
+    .unwrap();
     let pics = Pictures {
         curve: Some(plot::curve_svg(&doc, View::Domingos).unwrap()),
         points: Some(plot::points_svg(&v).unwrap()),
         selection: None,
     };
-    let text = html::render(&doc, View::Domingos, &pics, Some(1.25));
+    let text = html::render(&doc, View::Domingos, &pics, Some(1.25), "wall time");
     let page = scraper::Html::parse_document(&text);
     assert!(page.errors.is_empty(), "{:?}", page.errors);
     let sel = |s: &str| scraper::Selector::parse(s).unwrap();
@@ -331,7 +386,7 @@ fn html_report_is_self_contained_and_has_every_row() {
             .unwrap()
             .text()
             .collect::<String>();
-        assert_eq!(first, report::fmt_value(p.value));
+        assert_eq!(first, lossprism::fmt::fmt_value(p.value));
     }
     assert_eq!(page.select(&sel("tr.best")).count(), 1);
     assert_eq!(page.select(&sel("svg")).count(), 2);
@@ -358,15 +413,15 @@ fn html_report_is_self_contained_and_has_every_row() {
 #[test]
 fn snapshots_of_table_csv_and_json() {
     let (_, _, doc) = run(TINY);
-    insta::assert_snapshot!("tiny_table", report::table::render(&doc));
-    insta::assert_snapshot!("tiny_csv", report::to_csv(&doc));
+    insta::assert_snapshot!("tiny_table", report::terminal::render(&doc));
+    insta::assert_snapshot!("tiny_csv", report::csv::to_csv(&doc));
     insta::assert_snapshot!("tiny_json", report::to_json(&doc));
 }
 
 #[test]
 fn table_columns_line_up() {
     let (_, _, doc) = run(TINY);
-    let table = report::table::render(&doc);
+    let table = report::terminal::render(&doc);
     // Every row of the numeric block has the same display width (², ± and · are one column
     // wide each, so characters count columns here).
     let block: Vec<&str> = table
@@ -482,7 +537,14 @@ fn render_docs_pictures() {
     let outcome = runner::run(&plan, 0).unwrap();
     let doc = report::build(&plan, &outcome);
     let curve = plot::curve_svg(&doc, View::Domingos).unwrap();
-    let v = plot::point_view(&plan, &outcome, &doc, Some("moisture")).unwrap();
+    let v = plot::point_view(
+        &plan,
+        &outcome,
+        &doc,
+        Some("moisture"),
+        (&train(&plan, &outcome).0, &train(&plan, &outcome).1),
+    )
+    .unwrap();
     let points = plot::points_svg(&v).unwrap();
     std::fs::create_dir_all(docs()).unwrap();
     for (name, svg) in [("curve.png", curve), ("points.png", points)] {

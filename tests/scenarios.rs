@@ -1,6 +1,6 @@
 //! Every shipped scenario (and the embedded default) parses, plans and runs at library level
-//! with a small R, and its result document satisfies the exact decomposition identities
-//! (squared loss: noise + bias² + variance; 0-1 loss: Kohavi-Wolpert and James sums).
+//! with a small R, and its result document satisfies the exact identities its loss declares
+//! (squared loss: noise + bias² + variance; 0-1 loss: Domingos, Kohavi-Wolpert and James sums).
 
 use std::fs;
 use std::path::PathBuf;
@@ -39,7 +39,9 @@ fn close(a: f64, b: f64, what: &str) {
     );
 }
 
-/// Checks one result document against its plan.
+/// Checks one result document against its plan: finite terms, non-negative variance, and every
+/// exact identity the loss declares (squared loss: ESL eq. 7.9; 0-1 loss: Domingos, Kohavi and
+/// Wolpert, James; further losses: their own) holding at every grid value to rounding.
 fn check(what: &str, plan: &Plan, doc: &ResultDoc) {
     assert_eq!(doc.format, report::FORMAT, "{what}");
     assert_eq!(doc.replicates, R, "{what}");
@@ -47,58 +49,31 @@ fn check(what: &str, plan: &Plan, doc: &ResultDoc) {
         !doc.scenario.about.trim().is_empty(),
         "{what}: `about` is empty"
     );
-    assert_eq!(doc.points.len(), plan.grid.len(), "{what}");
-    for (p, &g) in doc.points.iter().zip(&plan.grid) {
+    let grid = &plan.model().grid;
+    assert_eq!(doc.points.len(), grid.len(), "{what}");
+    let observed = doc.table.is_some();
+    let shape = plan.shape(0, 0);
+    let identities = plan.loss.identities(&shape, observed);
+    assert!(
+        !identities.is_empty(),
+        "{what}: the loss declares no identity"
+    );
+    for (p, &g) in doc.points.iter().zip(grid) {
         assert_eq!(p.value, g, "{what}");
-        assert!(p.noise > 0.0, "{what} at {g}: noise {}", p.noise);
-        assert!(p.variance >= 0.0, "{what} at {g}: variance {}", p.variance);
+        for (k, v) in &p.terms {
+            assert!(v.is_finite(), "{what} at {g}: `{k}` = {v}");
+        }
         assert!(
-            p.expected_loss_direct.is_finite(),
-            "{what} at {g}: expected_loss_direct {}",
-            p.expected_loss_direct
+            p.get("variance") >= 0.0,
+            "{what} at {g}: variance {}",
+            p.get("variance")
         );
-        match doc.loss.as_str() {
-            "squared" => {
-                let bias_sq = p
-                    .bias_sq
-                    .unwrap_or_else(|| panic!("{what} at {g}: no bias_sq"));
-                assert!(bias_sq.is_finite(), "{what} at {g}: bias_sq {bias_sq}");
-                // Exact identity (design §1, ESL 2nd ed. eq. 7.9): expected loss is
-                // noise + bias² + variance; only rounding may separate the two sides.
-                close(
-                    p.expected_loss,
-                    p.noise + bias_sq + p.variance,
-                    &format!("{what} at {g}: noise + bias_sq + variance"),
-                );
-            }
-            "zero_one" => {
-                assert!(
-                    (0.0..=1.0).contains(&p.expected_loss),
-                    "{what} at {g}: 0-1 expected loss {}",
-                    p.expected_loss
-                );
-                assert!(p.variance <= 1.0, "{what} at {g}: variance {}", p.variance);
-                let bias = p.bias.unwrap_or_else(|| panic!("{what} at {g}: no bias"));
-                assert!((0.0..=1.0).contains(&bias), "{what} at {g}: bias {bias}");
-                // Exact identity (Kohavi & Wolpert 1996, ICML; the finite-R correction enters
-                // bias² and variance with opposite signs): noise + bias² + variance = E L.
-                let kw = p.kohavi_wolpert.as_ref().expect("Kohavi-Wolpert terms");
-                let kw_sum = kw.noise.unwrap() + kw.bias_sq.unwrap() + kw.variance.unwrap();
-                close(
-                    p.expected_loss,
-                    kw_sum,
-                    &format!("{what} at {g}: Kohavi-Wolpert sum"),
-                );
-                // Exact identity (James 2003, Machine Learning 51:115-135, the sum
-                // telescopes): Bayes error + systematic effect + variance effect = E L.
-                let j = p.james.as_ref().expect("James terms");
-                let j_sum = p.noise + j.systematic_effect.unwrap() + j.variance_effect.unwrap();
-                close(p.expected_loss, j_sum, &format!("{what} at {g}: James sum"));
-            }
-            other => panic!("{what}: unexpected loss `{other}`"),
+        for id in &identities {
+            let sum: f64 = id.parts.iter().map(|(k, c)| c * p.get(k)).sum();
+            close(p.get(id.total), sum, &format!("{what} at {g}: {}", id.name));
         }
     }
-    assert!(plan.grid.contains(&doc.best.value), "{what}: best off grid");
+    assert!(grid.contains(&doc.best.value), "{what}: best off grid");
     assert!(!doc.reading.is_empty(), "{what}: empty reading");
 }
 

@@ -109,6 +109,14 @@ fn shard_and_merge(dir: &Path, scenario: &str, extra: &[&str], n: u64) -> String
     read(dir, &out)
 }
 
+/// An edited part document with its checksum recomputed, as the program computes it.
+fn reseal(v: &Value) -> String {
+    let mut doc: lossprism::report::part::PartDoc =
+        serde_json::from_value(v.clone()).expect("still a part document");
+    doc.checksum = lossprism::shard::checksum(&doc);
+    lossprism::shard::part_json(&doc)
+}
+
 #[test]
 fn merged_shards_are_byte_identical_to_the_unsharded_run_squared_loss() {
     let dir = tempfile::tempdir().unwrap();
@@ -235,10 +243,19 @@ fn merge_refuses_parts_that_do_not_make_one_run() {
     let msg = refused(d, &["merge", "ck.json"]);
     assert!(msg.contains("ck.json is a checkpoint"), "{msg}");
 
-    // a part with a block removed by hand: the merge names the block and the file
+    // an edited part is refused by its checksum, naming the file
     let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
     v["completed"].as_array_mut().unwrap().remove(1);
-    fs::write(d.join("cut.json"), v.to_string()).unwrap();
+    fs::write(d.join("edited.json"), v.to_string()).unwrap();
+    let msg = refused(d, &["merge", "p1.json", "edited.json", "p3.json"]);
+    assert!(
+        msg.contains("edited.json") && msg.contains("checksum"),
+        "{msg}"
+    );
+
+    // a part with a block removed by hand (checksum resealed): the merge names the block and
+    // the file
+    fs::write(d.join("cut.json"), reseal(&v)).unwrap();
     let msg = refused(d, &["merge", "p1.json", "cut.json", "p3.json"]);
     assert!(
         msg.contains("block 5") && msg.contains("cut.json (shard 2/3) lacks it"),
@@ -249,14 +266,14 @@ fn merge_refuses_parts_that_do_not_make_one_run() {
     let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
     let first = v["completed"][0].clone();
     v["completed"].as_array_mut().unwrap().push(first);
-    fs::write(d.join("twice.json"), v.to_string()).unwrap();
+    fs::write(d.join("twice.json"), reseal(&v)).unwrap();
     let msg = refused(d, &["merge", "p1.json", "twice.json", "p3.json"]);
     assert!(msg.contains("twice.json holds block 4 twice"), "{msg}");
 
     // a tampered accumulator (replicate count) and a non-part file
     let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
-    v["completed"][0]["acc"]["n"] = Value::from(3);
-    fs::write(d.join("bad.json"), v.to_string()).unwrap();
+    v["completed"][0]["models"][0]["replicates"] = Value::from(3);
+    fs::write(d.join("bad.json"), reseal(&v)).unwrap();
     let msg = refused(d, &["merge", "p1.json", "bad.json", "p3.json"]);
     assert!(msg.contains("bad.json: block 4"), "{msg}");
     ok(d, &["run", "s.toml", "--out", "result.json", "-q"]);
@@ -445,26 +462,33 @@ fn block_accumulator_size_does_not_depend_on_the_number_of_replicates() {
             .as_array()
             .unwrap()
             .iter()
-            .map(|b| b["acc"].clone())
+            .map(|b| b["models"][0].clone())
             .collect()
     };
     let a = accs("40", "r40.json");
     let b = accs("400", "r400.json");
     assert_eq!(a.len(), 4);
     assert_eq!(b.len(), 4);
+    let array = |acc: &Value, name: &str| -> String {
+        acc["floats"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|f| f["name"] == name)
+            .unwrap_or_else(|| panic!("array `{name}` missing"))["data"]
+            .as_str()
+            .unwrap()
+            .to_string()
+    };
     for (x, y) in a.iter().zip(&b) {
-        assert_eq!(x["n"], 10);
-        assert_eq!(y["n"], 100);
+        assert_eq!(x["replicates"], 10);
+        assert_eq!(y["replicates"], 100);
         for key in ["mean", "m2", "direct"] {
-            let (lx, ly) = (
-                x[key].as_str().unwrap().len(),
-                y[key].as_str().unwrap().len(),
-            );
-            assert_eq!(lx, ly, "{key}");
+            assert_eq!(array(x, key).len(), array(y, key).len(), "{key}");
         }
-        // 4 grid values × 25 points, 16 hex digits per value
-        assert_eq!(x["mean"].as_str().unwrap().len(), 4 * 25 * 16);
-        assert_eq!(x["direct"].as_str().unwrap().len(), 4 * 16);
+        // 4 grid values × 25 points, 8 bytes per value, base64 (4 characters per 3 bytes)
+        assert_eq!(array(x, "mean").len(), (4 * 25 * 8usize).div_ceil(3) * 4);
+        assert_eq!(array(x, "direct").len(), (4 * 8usize).div_ceil(3) * 4);
     }
 }
 

@@ -205,10 +205,11 @@ impl Data {
             y: self.y.view(),
             eval: self.eval.view(),
             task: self.task,
+            seed: lossprism::family::FitSeed::fixed(0),
         };
         assert!(fam.check_grid(grid, self.x.nrows(), self.x.ncols()).is_ok());
         let mut out = Array2::zeros((grid.len(), self.eval.nrows()));
-        fam.fit_predict(&input, grid, out.view_mut())
+        fam.fit_predict(&input, grid, lossprism::family::Out::values(out.view_mut()))
             .expect("fit succeeds");
         out
     }

@@ -11,9 +11,9 @@ use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use rand_distr::{Distribution, Normal};
 
+use lossprism::dataset::{self as table, noise, Missing, TableOptions, TargetKind};
 use lossprism::runner;
 use lossprism::scenario::{self, Plan, PlanOptions};
-use lossprism::table::{self, noise, resample, Missing, TableOptions, TargetKind};
 
 fn bin() -> Command {
     Command::new(env!("CARGO_BIN_EXE_lossprism"))
@@ -111,32 +111,36 @@ grid = { from = 1, to = 10 }
 "#,
     );
     let started = std::time::Instant::now();
-    let out = resample::run(&plan, 0).expect("runs");
+    let out = runner::run(&plan, 0).expect("runs");
     let wall = started.elapsed();
-    let doc = table::report::build(&plan, &out);
+    let doc = lossprism::report::build(&plan, &out);
     println!(
         "{}wall time {:.2} s",
-        lossprism::report::table::render(&doc),
+        lossprism::report::terminal::render(&doc),
         wall.as_secs_f64()
     );
     let n = 441.0f64;
     // Out-of-bag share: P(row not drawn in n draws) = (1 − 1/n)^n ≈ 0.368 (Efron and Tibshirani,
     // An Introduction to the Bootstrap, 1993, §7.11 / ESL eq. 7.56's 0.632 complement).
-    let (share, se) = out.summary.total.held_share();
+    let (share, se) = out.held_share.expect("a table run has a held-out share");
     let expect = (1.0 - 1.0 / n).powf(n);
     assert!(
         (share - expect).abs() < 4.0 * se,
         "OOB share {share} vs {expect} ± {se}"
     );
-    assert_eq!(out.summary.total.skipped_rows(), 0);
-    for t in &out.summary.terms {
+    assert_eq!(
+        out.summary().total.count.iter().filter(|&&c| c < 2).count(),
+        0
+    );
+    for g in 0..out.summary().values.len() {
+        let t = out.summary().named(g);
         // Exact identity: bias²+noise + variance = the mean out-of-bag squared error.
         approx::assert_relative_eq!(
-            t.expected_loss,
-            t.expected_loss_direct,
+            t["expected_loss"],
+            t["expected_loss_direct"],
             max_relative = 1e-10
         );
-        assert!(t.variance > 0.0 && t.bias_plus_noise > 0.0);
+        assert!(t["variance"] > 0.0 && t["bias_sq_plus_noise"] > 0.0);
     }
 }
 
@@ -185,7 +189,7 @@ fn bootstrap_variance_of_the_mean_is_the_plug_in_variance_over_n() {
     let n = 30;
     let y = mean_table(dir.path(), n);
     let plan = plan_in(dir.path(), &mean_scenario("bootstrap", 20000, None));
-    let out = resample::run(&plan, 0).expect("runs");
+    let out = runner::run(&plan, 0).expect("runs");
     let target: f64 = (0..n)
         .map(|i| {
             let rest: Vec<f64> = (0..n).filter(|&j| j != i).map(|j| y[j]).collect();
@@ -194,8 +198,8 @@ fn bootstrap_variance_of_the_mean_is_the_plug_in_variance_over_n() {
         })
         .sum::<f64>()
         / n as f64;
-    let v = out.summary.terms[0].variance;
-    let se = out.summary.stderr[0].variance;
+    let v = out.summary().value(0, "variance");
+    let se = out.summary().se(0, "variance");
     println!("bootstrap: variance {v} ± {se}, exact limit {target}");
     assert!((v - target).abs() < 4.0 * se, "{v} vs {target} ± {se}");
 }
@@ -212,7 +216,7 @@ fn half_sampling_variance_of_the_mean_carries_the_finite_population_factor() {
     // coincides with the bootstrap's (N − 2)/(N(N − 1))·S²-type limit; 0.3 tells them apart.
     for (fraction, m) in [(None, 15.0), (Some(0.3), 9.0)] {
         let plan = plan_in(dir.path(), &mean_scenario("half", 20000, fraction));
-        let out = resample::run(&plan, 0).expect("runs");
+        let out = runner::run(&plan, 0).expect("runs");
         let target: f64 = (0..n)
             .map(|i| {
                 let rest: Vec<f64> = (0..n).filter(|&j| j != i).map(|j| y[j]).collect();
@@ -223,8 +227,8 @@ fn half_sampling_variance_of_the_mean_carries_the_finite_population_factor() {
             })
             .sum::<f64>()
             / n as f64;
-        let v = out.summary.terms[0].variance;
-        let se = out.summary.stderr[0].variance;
+        let v = out.summary().value(0, "variance");
+        let se = out.summary().se(0, "variance");
         println!("subsample m = {m}: variance {v} ± {se}, exact {target}");
         assert!((v - target).abs() < 4.0 * se, "{v} vs {target} ± {se}");
     }
@@ -379,7 +383,7 @@ grid = {grid}
 "#
         ),
     );
-    let tout = resample::run(&t, 0).expect("runs");
+    let tout = runner::run(&t, 0).expect("runs");
     let src = format!(
         r#"
 name = "known-fresh"
@@ -414,9 +418,9 @@ grid = {grid}
     )
     .expect("plans");
     let fout = runner::run(&fresh, 0).expect("runs");
-    let fs = fout.summary.squared().unwrap();
+    let fs = lossprism::decompose::squared::view(fout.summary()).unwrap();
     for g in 0..3 {
-        let vt = tout.summary.terms[g].variance;
+        let vt = tout.summary().value(g, "variance");
         let vf = fs.terms[g].variance;
         println!(
             "depth grid[{g}]: table variance {vt:.4}, fresh variance {vf:.4}, ratio {:.2}",
@@ -425,7 +429,7 @@ grid = {grid}
         assert!(vt / vf > 0.5 && vt / vf < 2.0, "ratio {}", vt / vf);
         // The table's bias²+noise estimates noise + bias²: compare with the fresh decomposition
         // within a factor 2 as well (same bootstrap distortion).
-        let bt = tout.summary.terms[g].bias_plus_noise;
+        let bt = tout.summary().value(g, "bias_sq_plus_noise");
         let bf = fs.terms[g].bias_sq + fs.terms[g].noise;
         assert!(bt / bf > 0.5 && bt / bf < 2.0, "bias²+noise {bt} vs {bf}");
     }
@@ -658,15 +662,16 @@ grid = [1, 5, 15]
             .count();
         assert_eq!(got, (0.25 * nc as f64).round() as usize);
     }
-    let out = resample::run(&plan, 0).expect("runs");
-    for t in &out.summary.terms {
+    let out = runner::run(&plan, 0).expect("runs");
+    for g in 0..out.summary().values.len() {
+        let t = out.summary().named(g);
         // Exact identity (Domingos 2000 with the observed label): loss = bias + net variance.
         approx::assert_relative_eq!(
-            t.expected_loss,
-            t.bias_plus_noise + t.net_variance,
+            t["expected_loss"],
+            t["bias"] + t["net_variance"],
             max_relative = 1e-12
         );
-        assert!(t.expected_loss > 0.0 && t.expected_loss < 0.5);
+        assert!(t["expected_loss"] > 0.0 && t["expected_loss"] < 0.5);
     }
     let dir_path: PathBuf = dir.path().to_path_buf();
     let o = run_in(&dir_path, &["run", "s.toml"]);

@@ -5,8 +5,9 @@
 use std::fs;
 use std::path::Path;
 
+use lossprism::commands::twin::{self, TwinOptions};
+use lossprism::dgp::reference;
 use lossprism::scenario::{self, Plan, PlanOptions};
-use lossprism::twin::{self, TwinOptions};
 use lossprism::{report, runner};
 use rand::{Rng, SeedableRng};
 use rand_distr::{Distribution, StandardNormal};
@@ -55,15 +56,15 @@ fn twin_noise_and_best_knob_match_the_known_process() {
     // Noise: one input, so the Gasser-Sroka-Jennen-Steinmetz estimator (Biometrika 1986; exactly
     // unbiased for linear f, nearly so for a smooth f at this density) must land within 4 of its
     // standard errors of the true σ² = 0.25.
-    let t = lossprism::table::load_csv(
+    let t = lossprism::dataset::load_csv(
         &o.table,
-        &lossprism::table::TableOptions {
+        &lossprism::dataset::TableOptions {
             target: "y".into(),
             ..Default::default()
         },
     )
     .unwrap();
-    let fit = twin::fit(&t, o.seed, true).unwrap();
+    let fit = reference::fit(&t, o.seed, true).unwrap();
     let e = fit.noise.expect("noise estimate");
     assert!(
         (e.value - SD * SD).abs() < 4.0 * e.stderr,

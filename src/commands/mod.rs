@@ -186,7 +186,10 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         started,
         wall_label: "wall time",
     };
-    if args.quiet && !o.any() && args.shard.is_none() {
+    if args.quiet && !o.any() && args.shard.is_none() && args.checkpoint.is_none() {
+        // Report a bad scenario first (its data errors show when the evaluation points are
+        // drawn), then the pointless request.
+        runner::prepare(&plan)?;
         return Err(Error::Usage(
             "--quiet with no output file would compute a result and show nothing: add --out \
              FILE.json (or --csv, --plot, --report), or drop --quiet"

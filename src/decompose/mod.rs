@@ -203,6 +203,18 @@ pub struct TermInfo {
     pub stderr: bool,
 }
 
+/// An exact identity among a loss's terms: `total = Σ coefficient × part`, which holds at every
+/// grid value to rounding (tests check it on every run).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Identity {
+    /// What the identity is (with its source).
+    pub name: &'static str,
+    /// The key of the total.
+    pub total: &'static str,
+    /// The parts and their coefficients.
+    pub parts: &'static [(&'static str, f64)],
+}
+
 /// Terms of one grid value: values in the order of the description.
 pub type Row = Vec<f64>;
 
@@ -239,6 +251,9 @@ pub trait Loss: Send + Sync {
 
     /// The terms, in order; depends on the target kind and the shape.
     fn describe(&self, shape: &Shape, observed: bool) -> Vec<TermInfo>;
+
+    /// The exact identities among the terms of this shape and target kind.
+    fn identities(&self, shape: &Shape, observed: bool) -> Vec<Identity>;
 
     /// The terms per grid value from a folded accumulator, in the order of
     /// [`Loss::describe`]; NaN where a term cannot be computed.
@@ -515,5 +530,19 @@ impl Summary {
     /// Value of term `key` at grid index `g` (NaN when absent).
     pub fn value(&self, g: usize, key: &str) -> f64 {
         self.index(key).map_or(f64::NAN, |t| self.values[g][t])
+    }
+
+    /// Standard error of term `key` at grid index `g` (NaN when absent or not computable).
+    pub fn se(&self, g: usize, key: &str) -> f64 {
+        self.index(key).map_or(f64::NAN, |t| self.stderr[g][t])
+    }
+
+    /// The terms at grid index `g` by key.
+    pub fn named(&self, g: usize) -> std::collections::BTreeMap<&'static str, f64> {
+        self.terms
+            .iter()
+            .zip(&self.values[g])
+            .map(|(t, v)| (t.key, *v))
+            .collect()
     }
 }

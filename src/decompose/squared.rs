@@ -25,7 +25,9 @@
 //! with `R_i` the replicates holding row i out, so that `bias²+noise + V_i` is exactly the row's
 //! mean out-of-bag squared error; averages use rows held out at least twice.
 
-use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use super::{
+    Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Summary, Target, TermInfo,
+};
 use crate::family::Task;
 
 /// The squared loss.
@@ -393,6 +395,42 @@ impl Loss for Squared {
         v
     }
 
+    fn identities(&self, shape: &Shape, observed: bool) -> Vec<Identity> {
+        let mut v = vec![if observed {
+            Identity {
+                name: "out-of-bag squared error = bias²+noise + variance (exact per row)",
+                total: "expected_loss",
+                parts: &[("bias_sq_plus_noise", 1.0), ("variance", 1.0)],
+            }
+        } else {
+            Identity {
+                name: "ESL eq. 7.9: expected loss = noise + bias² + variance",
+                total: "expected_loss",
+                parts: &[("noise", 1.0), ("bias_sq", 1.0), ("variance", 1.0)],
+            }
+        }];
+        if shape.fits >= 2 {
+            v.push(Identity {
+                name: "law of total variance: variance = variance_data + variance_fit",
+                total: "variance",
+                parts: &[("variance_data", 1.0), ("variance_fit", 1.0)],
+            });
+        }
+        if shape.ensemble && !observed {
+            v.push(Identity {
+                name: "Wood et al. 2023: loss = noise + bias² + member variance − diversity",
+                total: "expected_loss",
+                parts: &[
+                    ("noise", 1.0),
+                    ("bias_sq", 1.0),
+                    ("member_variance", 1.0),
+                    ("diversity", -1.0),
+                ],
+            });
+        }
+        v
+    }
+
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
         let sh = acc.shape;
         let descr = self.describe(&sh, target.observed());
@@ -550,6 +588,58 @@ impl Loss for Squared {
             row[b] = row[bpn];
         }
     }
+}
+
+/// The main squared-loss terms of one grid value, as named fields (a typed view of a
+/// [`Summary`]'s rows for library users and tests).
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct SquaredTerms {
+    /// `noise + bias_sq + variance`.
+    pub expected_loss: f64,
+    /// Unbiased squared bias.
+    pub bias_sq: f64,
+    /// Unbiased variance.
+    pub variance: f64,
+    /// Noise variance, averaged.
+    pub noise: f64,
+    /// Mean squared error against fresh noisy responses.
+    pub expected_loss_direct: f64,
+}
+
+/// A typed view of a squared-loss [`Summary`]: terms and standard errors per grid value, and the
+/// folded accumulator.
+#[derive(Debug, Clone)]
+pub struct SquaredSummary {
+    /// Terms per grid value.
+    pub terms: Vec<SquaredTerms>,
+    /// Standard errors per grid value (NaN where not reported).
+    pub stderr: Vec<SquaredTerms>,
+    /// All blocks folded in order.
+    pub total: Acc,
+}
+
+/// The typed view of a squared-loss summary; `None` for another loss.
+pub fn view(s: &Summary) -> Option<SquaredSummary> {
+    let at = |k: &str| s.index(k);
+    let (a, b, c, d, e) = (
+        at("expected_loss")?,
+        at("bias_sq")?,
+        at("variance")?,
+        at("noise")?,
+        at("expected_loss_direct")?,
+    );
+    let pick = |r: &Row| SquaredTerms {
+        expected_loss: r[a],
+        bias_sq: r[b],
+        variance: r[c],
+        noise: r[d],
+        expected_loss_direct: r[e],
+    };
+    Some(SquaredSummary {
+        terms: s.values.iter().map(pick).collect(),
+        stderr: s.stderr.iter().map(pick).collect(),
+        total: s.total.clone(),
+    })
 }
 
 #[cfg(test)]

@@ -67,7 +67,9 @@
 //!
 //! With `fit_seeds = S`, every fit votes: `p_D` is the share over the R·S fits.
 
-use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use super::{
+    Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Summary, Target, TermInfo,
+};
 use crate::family::Task;
 
 /// The 0-1 loss.
@@ -620,6 +622,41 @@ impl Loss for ZeroOne {
         v
     }
 
+    fn identities(&self, _shape: &Shape, observed: bool) -> Vec<Identity> {
+        let mut v = vec![Identity {
+            name: "Domingos 2000, Theorems 1-2: loss = c1·noise + bias + net variance",
+            total: "expected_loss",
+            parts: &[("bias", 1.0), ("net_variance", 1.0)],
+        }];
+        if !observed {
+            v[0].parts = &[("noise_term", 1.0), ("bias", 1.0), ("net_variance", 1.0)];
+            v.push(Identity {
+                name: "Kohavi and Wolpert 1996: loss = noise + bias² + variance",
+                total: "expected_loss",
+                parts: &[
+                    ("kohavi_wolpert.noise", 1.0),
+                    ("kohavi_wolpert.bias_sq", 1.0),
+                    ("kohavi_wolpert.variance", 1.0),
+                ],
+            });
+            v.push(Identity {
+                name: "James 2003: loss = noise + systematic effect + variance effect",
+                total: "expected_loss",
+                parts: &[
+                    ("noise", 1.0),
+                    ("james.systematic_effect", 1.0),
+                    ("james.variance_effect", 1.0),
+                ],
+            });
+        }
+        v.push(Identity {
+            name: "Domingos: variance = unbiased + biased variance",
+            total: "variance",
+            parts: &[("unbiased_variance", 1.0), ("biased_variance", 1.0)],
+        });
+        v
+    }
+
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
         let observed = target.observed();
         (0..acc.shape.grid)
@@ -735,6 +772,77 @@ impl Loss for ZeroOne {
             ],
         }
     }
+}
+
+/// A typed view of a 0-1 [`Summary`] (known truth): every term per grid value as named fields,
+/// their standard errors, and the folded accumulator.
+#[derive(Debug, Clone)]
+pub struct ZeroOneSummary {
+    /// Terms per grid value.
+    pub terms: Vec<ZeroOneTerms>,
+    /// Standard errors per grid value (NaN where not reported).
+    pub stderr: Vec<ZeroOneTerms>,
+    /// All blocks folded in order.
+    pub total: Acc,
+}
+
+fn from_row(r: &Row) -> ZeroOneTerms {
+    ZeroOneTerms {
+        expected_loss: r[0],
+        bias: r[1],
+        variance: r[2],
+        noise: r[3],
+        expected_loss_direct: r[4],
+        net_variance: r[5],
+        unbiased_variance: r[6],
+        biased_variance: r[7],
+        kw_noise: r.get(8).copied().unwrap_or(f64::NAN),
+        kw_bias_sq: r.get(9).copied().unwrap_or(f64::NAN),
+        kw_variance: r.get(10).copied().unwrap_or(f64::NAN),
+        james_systematic: r.get(11).copied().unwrap_or(f64::NAN),
+        james_variance: r.get(12).copied().unwrap_or(f64::NAN),
+        noise_term: r.get(13).copied().unwrap_or(f64::NAN),
+    }
+}
+
+/// The typed view of a 0-1 summary; `None` for another loss.
+pub fn view(s: &Summary) -> Option<ZeroOneSummary> {
+    if s.index("net_variance") != Some(5) {
+        return None;
+    }
+    Some(ZeroOneSummary {
+        terms: s.values.iter().map(from_row).collect(),
+        stderr: s.stderr.iter().map(from_row).collect(),
+        total: s.total.clone(),
+    })
+}
+
+/// The terms per grid value, averaged over evaluation points, against known class probabilities
+/// `p_true` (`points × K`, row-major).
+pub fn terms(acc: &Acc, p_true: &[f64]) -> Vec<ZeroOneTerms> {
+    let zeros = vec![0.0; acc.shape.points];
+    let target = Target::Known {
+        truth: &zeros,
+        noise_var: &zeros,
+        probs: Some(p_true),
+    };
+    ZeroOne
+        .evaluate(acc, &target)
+        .iter()
+        .map(from_row)
+        .collect()
+}
+
+/// Folds blocks and computes the terms with jackknife standard errors against known class
+/// probabilities `p_true`; `None` for an empty block list.
+pub fn summarize(blocks: &[Acc], p_true: &[f64]) -> Option<ZeroOneSummary> {
+    let zeros = vec![0.0; blocks.first()?.shape.points];
+    let target = Target::Known {
+        truth: &zeros,
+        noise_var: &zeros,
+        probs: Some(p_true),
+    };
+    view(&super::summarize(&ZeroOne, blocks, &target)?)
 }
 
 #[cfg(test)]

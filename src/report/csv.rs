@@ -18,15 +18,15 @@ fn column(key: &str) -> String {
     key.replace('.', "_")
 }
 
-/// One header and one row per grid value: the knob value (column named after the knob), the
-/// family and training size when a run has several, every term in the loss's order, `estimated`
-/// on tables, then `stderr_<term>` for every term with a standard error.
+/// One header and one row per grid value: the knob value (`value`), the family and training
+/// size when a run has several, every term in the loss's order, `estimated` on tables, then
+/// `stderr_<term>` for every term with a standard error, and last the knob's name (`knob`).
 pub fn to_csv(doc: &ResultDoc) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
     let Some(first) = doc.points.first() else {
         return String::new();
     };
-    let mut header = vec![doc.knob.clone()];
+    let mut header = vec!["value".to_string()];
     let with_family = doc.points.iter().any(|p| p.family.is_some());
     let with_size = doc.points.iter().any(|p| p.train_size.is_some());
     if with_family {
@@ -45,6 +45,7 @@ pub fn to_csv(doc: &ResultDoc) -> String {
             .iter()
             .map(|(k, _)| format!("stderr_{}", column(k))),
     );
+    header.push("knob".into());
     w.write_record(&header).expect("in-memory csv");
     for p in &doc.points {
         let mut rec = vec![num(p.value)];
@@ -62,6 +63,7 @@ pub fn to_csv(doc: &ResultDoc) -> String {
             Some(v) => num(v),
             None => String::new(),
         }));
+        rec.push(doc.knob.clone());
         w.write_record(&rec).expect("in-memory csv");
     }
     String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")

@@ -114,6 +114,8 @@ pub struct PartDoc {
     pub name: String,
     /// Family names, one per model.
     pub families: Vec<String>,
+    /// Each model's grid values as hex bit patterns (16 digits each).
+    pub grids: Vec<Vec<String>>,
     /// Loss name.
     pub loss: String,
     /// Master seed (after overrides).

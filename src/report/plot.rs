@@ -130,7 +130,11 @@ fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
     let suffix = match view {
         View::KohaviWolpert => " (Kohavi-Wolpert)",
         View::James => " (James)",
+        _ if terms.iter().any(|t| t.key == "net_variance") => " (Domingos)",
         _ => "",
+    };
+    let find = |role: &str, grp: &str| {
+        find(role, grp).map(|(k, l)| (k, l.trim_start_matches("KW ").to_string()))
     };
     let mut out = vec![series("expected_loss", "expected loss".into(), l0)];
     if let Some((k, l)) = find("bias", group) {
@@ -146,7 +150,12 @@ fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
     }
     let noise = find("noise", group).or_else(|| find("noise", "main"));
     if let Some((k, l)) = noise {
-        let mut s = series(&k, format!("{l}{suffix}"), l3);
+        let label = if group == "main" {
+            l
+        } else {
+            format!("{l}{suffix}")
+        };
+        let mut s = series(&k, label, l3);
         s.se = vec![Some(0.0); s.values.len()];
         out.push(s);
     }

@@ -607,14 +607,22 @@ fn resolve_loss(
         ));
     };
     if !loss.supports(task) {
-        let hint = match task {
-            Task::Regress => "this scenario is a regression (a numeric response); add [data.classes] for classification",
-            Task::Classify { .. } => "this scenario is a classification ([data.classes] or `task = \"classify\"`)",
+        let fitting: Vec<&str> = decompose::registry()
+            .iter()
+            .filter(|l| l.supports(task))
+            .map(|l| l.name())
+            .collect();
+        let what = match task {
+            Task::Regress => "a regression (a numeric response; add [data.classes] to classify)",
+            Task::Classify { .. } => "a classification ([data.classes] or `task = \"classify\"`)",
         };
         return Err(cx.err(
             Some(l.kind.span()),
             "loss.kind",
-            format!("the `{name}` loss does not apply: {hint}"),
+            format!(
+                "the `{name}` loss does not apply to {what}; use {}",
+                fitting.join(" or ")
+            ),
         ));
     }
     Ok(loss)
