@@ -112,9 +112,16 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
                 .loss
                 .needs_probs()
                 .then(|| probs.slice(ndarray::s![0, j, ..]).to_vec());
-            plan.loss.observed_loss(pred[[0, j]], q.as_deref(), yh[j])
+            plan.loss
+                .check_prediction(pred[[0, j]], q.as_deref())
+                .map_err(|m| Error::Fit {
+                    replicate: 0,
+                    family: model.family.name().to_string(),
+                    message: format!("holdout row {j}: {m}"),
+                })?;
+            Ok(plan.loss.observed_loss(pred[[0, j]], q.as_deref(), yh[j]))
         })
-        .collect();
+        .collect::<Result<_, Error>>()?;
     let nh = losses.len() as f64;
     let loss = losses.iter().sum::<f64>() / nh;
     let stderr = if losses.len() >= 2 {

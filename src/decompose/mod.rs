@@ -4,6 +4,9 @@
 //! which every output (terminal table, JSON, CSV, `check`, plots, HTML) is derived. No I/O, no
 //! randomness, no errors: everything here is a function of the predictions handed in.
 //!
+//! Losses: `squared` ([`squared`]), `zero_one` ([`zero_one`]), `log` (Heskes 1998, [`log_loss`]),
+//! `brier` ([`brier`]) and `poisson` (deviance as a Bregman divergence, Pfau 2013, [`poisson`]).
+//!
 //! Squared loss (Hastie, Tibshirani, Friedman, *The Elements of Statistical Learning*, 2nd ed.,
 //! §7.3, eq. 7.9): `E[(Y - f̂(x))²] = σ²(x) + bias²(x) + variance(x)`. Over R replicate
 //! predictions ŷ_r with mean m, the unbiased variance is `V̂ = Σ(ŷ_r - m)²/(R-1)` and the unbiased
@@ -17,6 +20,9 @@
 //! out-of-bag rows); [`Acc::count`] keeps, per point, the number of replicates that evaluated it.
 //! Averages over points use the points evaluated at least twice, each with the same weight.
 
+pub mod brier;
+pub mod log_loss;
+pub mod poisson;
 pub mod squared;
 pub mod zero_one;
 
@@ -238,6 +244,21 @@ pub trait Loss: Send + Sync {
         false
     }
 
+    /// Whether the loss scores non-negative count responses with positive predicted means
+    /// (Poisson deviance): the plan then asks for count responses and for a family whose
+    /// predictions are never negative ([`crate::family::Caps::positive`]).
+    fn count_responses(&self) -> bool {
+        false
+    }
+
+    /// Checks one prediction beyond what every loss requires (finite values, class indices,
+    /// probability vectors), for example that a probability is not 0 where the loss would be
+    /// infinite. Called for every prediction from `runner::check_predictions`; the message says
+    /// what is wrong and how to fix it (the caller adds family, point and knob value).
+    fn check_prediction(&self, _value: f64, _probs: Option<&[f64]>) -> Result<(), String> {
+        Ok(())
+    }
+
     /// The arrays of an accumulator of this shape (counts per point are kept by [`Acc`]).
     fn layout(&self, shape: &Shape) -> Vec<ArraySpec>;
 
@@ -285,7 +306,13 @@ pub trait Loss: Send + Sync {
 
 /// The built-in losses.
 pub fn registry() -> Vec<&'static dyn Loss> {
-    vec![&squared::Squared, &zero_one::ZeroOne]
+    vec![
+        &squared::Squared,
+        &zero_one::ZeroOne,
+        &log_loss::LogLoss,
+        &brier::Brier,
+        &poisson::Poisson,
+    ]
 }
 
 /// The loss of a name.

@@ -174,9 +174,12 @@ impl Truth {
     }
 }
 
-/// The noise standard deviation σ(x) of additive Gaussian noise.
+/// The noise: the standard deviation σ(x) of additive Gaussian noise, or Poisson counts.
 #[derive(Debug, Clone)]
 pub enum Noise {
+    /// Counts: `y ~ Poisson(f(x))`, so the truth is the mean (it must be > 0) and the noise
+    /// variance is `σ²(x) = f(x)`.
+    Poisson,
     /// Constant σ.
     Constant(f64),
     /// σ(x) as a formula over the inputs.
@@ -189,6 +192,7 @@ impl Noise {
     /// Human-readable form.
     pub fn describe(&self) -> String {
         match self {
+            Noise::Poisson => "poisson counts with mean f(x) (variance f(x))".into(),
             Noise::Constant(s) => format!("gaussian, sd {s}"),
             Noise::Formula(f) => format!("gaussian, sd = {}", f.source()),
             Noise::Reference(r) => r.describe_noise(),
@@ -250,7 +254,7 @@ impl ClassModel {
 /// What is observed at an input: a noisy real response or a class label.
 #[derive(Debug, Clone)]
 pub enum Response {
-    /// `y = f(x) + σ(x) z`.
+    /// `y = f(x) + σ(x) z`, or `y ~ Poisson(f(x))` with [`Noise::Poisson`].
     Regression {
         /// f(x).
         truth: Truth,
@@ -468,13 +472,33 @@ impl Synthetic {
     }
 
     /// σ(x) at each row; an error names the formula and inputs where it is negative or not finite.
-    /// A classification process has σ = 0.
+    /// A classification process has σ = 0; Poisson counts have `σ = √f(x)`, and an error names
+    /// the truth and inputs where the mean `f(x)` is not a finite number > 0.
     pub fn sd_at(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>, Error> {
         let noise = match &self.response {
             Response::Regression { noise, .. } => noise,
             Response::Classes(_) => return Ok(Array1::zeros(x.nrows())),
         };
         match noise {
+            Noise::Poisson => {
+                let f = self.truth_at(x)?;
+                if let Some((i, v)) = f
+                    .iter()
+                    .enumerate()
+                    .find(|(_, v)| !(v.is_finite() && **v > 0.0))
+                {
+                    let Response::Regression { truth, .. } = &self.response else {
+                        unreachable!("matched a regression above")
+                    };
+                    let row: Vec<f64> = x.row(i).to_vec();
+                    return Err(Error::Data(format!(
+                        "key `data.truth`: `{}` gives {v} at {}, but with `poisson = true` the truth is the mean count and must be > 0",
+                        truth.describe(),
+                        describe_row(&self.inputs, &row)
+                    )));
+                }
+                Ok(f.mapv(f64::sqrt))
+            }
             Noise::Constant(s) => Ok(Array1::from_elem(x.nrows(), *s)),
             Noise::Reference(r) => {
                 let mut out = Array1::zeros(x.nrows());
@@ -531,6 +555,36 @@ pub fn draw_labels<R: Rng + ?Sized>(probs: &Array2<f64>, rng: &mut R) -> Array1<
         y[i] = label as f64;
     }
     y
+}
+
+impl Synthetic {
+    /// Responses at rows with truth `f` and noise sd `sd` (from [`Synthetic::sd_at`]): Poisson
+    /// counts with mean `f` for [`Noise::Poisson`] ([`draw_counts`]), else `f` plus Gaussian
+    /// noise ([`add_noise`]).
+    pub fn respond<R: Rng + ?Sized>(
+        &self,
+        f: &Array1<f64>,
+        sd: &Array1<f64>,
+        rng: &mut R,
+    ) -> Array1<f64> {
+        match &self.response {
+            Response::Regression {
+                noise: Noise::Poisson,
+                ..
+            } => draw_counts(f, rng),
+            _ => add_noise(f, sd, rng),
+        }
+    }
+}
+
+/// Draws one Poisson count per mean, `y_i ~ Poisson(λ_i)`, from `rng` in index order (the
+/// sampler of `rand_distr`; a mean that is not a finite number > 0 gives 0, but the plan has
+/// refused such a truth through [`Synthetic::sd_at`]).
+pub fn draw_counts<R: Rng + ?Sized>(lambda: &Array1<f64>, rng: &mut R) -> Array1<f64> {
+    lambda.mapv(|l| match rand_distr::Poisson::new(l) {
+        Ok(d) => d.sample(rng),
+        Err(_) => 0.0,
+    })
 }
 
 /// Adds Gaussian noise: `y_i = f_i + σ_i z_i` with z drawn from `rng` in index order.

@@ -115,6 +115,8 @@ impl Family for KnnFamily {
     fn caps(&self, task: Task) -> Caps {
         Caps {
             probabilities: matches!(task, Task::Classify { .. }),
+            // averages of training responses: never negative on counts
+            positive: task == Task::Regress,
             ..Caps::default()
         }
     }

@@ -124,8 +124,10 @@ pub struct Caps {
     pub stochastic: bool,
     /// An average of members: fills [`Out::diversity`].
     pub ensemble: bool,
-    /// Regression predictions are always positive (needed by losses on positive means, such as
-    /// Poisson deviance).
+    /// Regression predictions are never negative when the training responses are not (an
+    /// average of training responses, as tree leaves and k-NN give), so the Poisson deviance can
+    /// score them; a loss on positive means refuses a family without it at plan time, and a
+    /// mean of exactly 0 at run time ([`crate::decompose::Loss::check_prediction`]).
     pub positive: bool,
 }
 
@@ -249,16 +251,16 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "tree",
             knob: "max_depth",
             meaning: "CART tree depth limit (splits on a root-to-leaf path); larger = more complex",
-            tasks: "regression (squared-error splits), classification (gini or entropy)",
-            options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (add-alpha smoothing of leaf class shares, default 0)",
+            tasks: "regression (squared-error splits; leaf means of counts suit the poisson loss), classification (gini or entropy)",
+            options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (add-alpha smoothing of leaf class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a pure leaf gives a class probability 0)",
             build: Some(tree::build),
         },
         FamilyInfo {
             name: "knn",
             knob: "k",
             meaning: "number of nearest neighbours averaged; smaller = more complex",
-            tasks: "regression (mean), classification (majority vote)",
-            options: "standardize = true | false (default false), alpha (add-alpha smoothing of neighbour class shares, default 0)",
+            tasks: "regression (mean; means of counts suit the poisson loss), classification (majority vote)",
+            options: "standardize = true | false (default false), alpha (add-alpha smoothing of neighbour class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a neighbourhood without a class gives it probability 0)",
             build: Some(knn::build),
         },
         FamilyInfo {

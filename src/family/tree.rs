@@ -832,6 +832,8 @@ impl Family for TreeFamily {
     fn caps(&self, task: Task) -> Caps {
         Caps {
             probabilities: matches!(task, Task::Classify { .. }),
+            // averages of training responses: never negative on counts
+            positive: task == Task::Regress,
             ..Caps::default()
         }
     }

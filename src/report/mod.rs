@@ -542,6 +542,9 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
                     table.path.display()
                 ),
                 noise: match plan.task {
+                    crate::family::Task::Regress if plan.loss.count_responses() => {
+                        "unknown; folded into the bias against the observed counts".into()
+                    }
                     crate::family::Task::Regress => {
                         format!("unknown; estimated by {}", t.noise_method.describe())
                     }

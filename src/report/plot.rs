@@ -302,10 +302,10 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         }
     }
     let (y0, y1) = padded(ys.into_iter(), &[0.0], 0.06);
-    let unit = if doc.scenario.labels.is_some() {
-        "loss (per evaluation point)"
-    } else {
+    let unit = if doc.loss == "squared" {
         "loss (squared units of the response)"
+    } else {
+        "loss (per evaluation point)"
     };
     let knob = doc.knob.clone();
     let best_x = tx(doc.best.value);
@@ -547,11 +547,23 @@ fn curve_note(doc: &ResultDoc, view: View) -> String {
             "James: expected loss = noise + systematic effect + variance effect. {simple} of the \
              best value the model is simpler, {complex} of it more complex."
         ),
-        _ => format!(
-            "Expected loss = noise + bias² + variance. {simple} of the best value the model is \
-             simpler and bias² tends to dominate (underfitting); {complex} of it variance grows \
-             (overfitting)."
-        ),
+        _ => {
+            // the loss's own name of its bias term (bias (KL), bias, ...); bias² for squared
+            let bias = match doc.loss.as_str() {
+                "squared" => None,
+                _ => doc
+                    .term_docs()
+                    .into_iter()
+                    .find(|t| t.role == "bias" && t.group == "main")
+                    .map(|t| t.label),
+            }
+            .unwrap_or_else(|| "bias²".to_string());
+            format!(
+                "Expected loss = noise + {bias} + variance. {simple} of the best value the model \
+                 is simpler and {bias} tends to dominate (underfitting); {complex} of it variance \
+                 grows (overfitting)."
+            )
+        }
     }
 }
 
@@ -615,7 +627,10 @@ fn input_column(names: &[String], input: Option<&str>) -> Result<usize, Error> {
 /// Checks before a run that the per-point view can be drawn for `plan` with `input`, so a
 /// long run does not end in a refusal.
 pub fn check_point_request(plan: &Plan, input: Option<&str>) -> Result<(), Error> {
-    if !matches!(plan.source, Source::Synthetic(_)) || plan.task != crate::family::Task::Regress {
+    if !matches!(plan.source, Source::Synthetic(_))
+        || plan.task != crate::family::Task::Regress
+        || plan.loss.name() != "squared"
+    {
         return Err(Error::Usage(
             "--plot-points needs a synthetic scenario with squared loss (a known truth and mean \
              predictions)"
@@ -652,6 +667,12 @@ pub fn point_view(
         return Err(Error::Usage(
             "the per-point view needs a regression (mean predictions); this run classifies".into(),
         ));
+    }
+    if plan.loss.name() != "squared" {
+        return Err(Error::Usage(format!(
+            "the per-point view shows mean predictions of the squared loss; this run uses the {} loss",
+            plan.loss.name()
+        )));
     }
     let sum = outcome.summary();
     let names: Vec<String> = doc.scenario.inputs.iter().map(|i| i.name.clone()).collect();

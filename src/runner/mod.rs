@@ -49,8 +49,10 @@ pub struct BlockResult {
 }
 
 /// Checks one fit's predictions: finite real values (regression), class indices `0..K`
-/// (classification), and probability vectors of non-negative finite values summing to 1. The
-/// message names the offending value and the knob value.
+/// (classification), probability vectors of non-negative finite values summing to 1, and what
+/// the loss itself needs ([`crate::decompose::Loss::check_prediction`]: no zero probability for
+/// the log-loss, positive means for the Poisson deviance). The message names the offending
+/// value and the knob value.
 pub fn check_predictions(
     plan: &Plan,
     model: &ModelPlan,
@@ -98,6 +100,21 @@ pub fn check_predictions(
                 ));
             }
         }
+    }
+    // What the loss itself needs (a positive probability, a positive mean).
+    let mut buf = Vec::new();
+    for ((g, e), &v) in values.indexed_iter() {
+        let q = match probs {
+            Some(p) => {
+                buf.clear();
+                buf.extend(p.slice(ndarray::s![g, e, ..]).iter());
+                Some(buf.as_slice())
+            }
+            None => None,
+        };
+        plan.loss
+            .check_prediction(v, q)
+            .map_err(|m| format!("at evaluation point {e}, {}: {m}", knob(g)))?;
     }
     Ok(())
 }

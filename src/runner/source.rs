@@ -16,7 +16,7 @@ use ndarray::{Array1, Array2, Axis};
 use crate::dataset::noise::{self, NoiseEstimate};
 use crate::dataset::{resample, Table};
 use crate::decompose::Target;
-use crate::dgp::{add_noise, draw_labels};
+use crate::dgp::draw_labels;
 use crate::error::Error;
 use crate::family::Task;
 use crate::rng::{purpose, stream};
@@ -117,9 +117,13 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
         Source::Table(t) => {
             let work = t.work_table();
             let m = work.rows();
+            // The Gaussian noise-variance estimate splits the squared loss's bias²+noise; a loss
+            // on counts folds the noise into the bias instead.
             let noise = match plan.task {
-                Task::Regress => noise::estimate(t.noise_method, work.x.view(), work.y.view()),
-                Task::Classify { .. } => None,
+                Task::Regress if !plan.loss.count_responses() => {
+                    noise::estimate(t.noise_method, work.x.view(), work.y.view())
+                }
+                _ => None,
             };
             return Ok(Prepared {
                 eval_x: work.x.clone(),
@@ -230,8 +234,8 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
     let eval = Cow::Borrowed(&prep.eval_x);
     match (&prep.eval_probs, &prep.fixed) {
         (None, Some((x, f, sd))) => {
-            let y = add_noise(f, sd, &mut rng);
-            let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+            let y = s.process.respond(f, sd, &mut rng);
+            let fresh = s.process.respond(&prep.eval_truth, &prep.eval_sd, &mut rng);
             Ok(Draw {
                 x: Cow::Borrowed(x),
                 y,
@@ -244,8 +248,8 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
             let x = s.process.draw_inputs(s.train_size, &mut rng);
             let f = s.process.truth_at(x.view())?;
             let sd = s.process.sd_at(x.view())?;
-            let y = add_noise(&f, &sd, &mut rng);
-            let fresh = add_noise(&prep.eval_truth, &prep.eval_sd, &mut rng);
+            let y = s.process.respond(&f, &sd, &mut rng);
+            let fresh = s.process.respond(&prep.eval_truth, &prep.eval_sd, &mut rng);
             Ok(Draw {
                 x: Cow::Owned(x),
                 y,

@@ -387,6 +387,9 @@ impl Plan {
             None => Task::Regress,
         };
         let loss = resolve_loss(&cx, spec, task)?;
+        if loss.count_responses() {
+            check_counts(&cx, spec, &source, loss)?;
+        }
 
         let (n_train, n_inputs) = match &source {
             Source::Synthetic(s) => (s.train_size, s.process.inputs.len()),
@@ -532,6 +535,12 @@ impl Plan {
                 ),
             ));
         }
+        if self.loss.count_responses() && !family.caps(self.task).positive {
+            return Err(err(
+                "model.family",
+                not_positive(family.name(), self.loss.name()),
+            ));
+        }
         family
             .check_grid(&self.models[0].grid, self.train_size(), self.n_inputs())
             .map_err(|m| err("model.grid", m))?;
@@ -626,6 +635,60 @@ fn resolve_loss(
         ));
     }
     Ok(loss)
+}
+
+/// Why a family cannot serve a loss on positive means (Poisson deviance).
+fn not_positive(family: &str, loss: &str) -> String {
+    format!(
+        "family `{family}` can predict negative means, which the {loss} loss cannot score (the deviance needs a positive mean); use `tree` or `knn`, whose predictions are averages of the counts"
+    )
+}
+
+/// A loss on counts ([`Loss::count_responses`]) needs non-negative responses: Poisson counts
+/// from a synthetic source (`[data.noise] poisson = true`), or a table whose target is never
+/// negative. A twin's noise is Gaussian, so it is refused.
+fn check_counts(
+    cx: &Ctx<'_>,
+    spec: &ScenarioSpec,
+    source: &Source,
+    loss: &dyn Loss,
+) -> Result<(), ScenarioError> {
+    let span = spec.loss.as_ref().map(|l| l.kind.span());
+    let name = loss.name();
+    match source {
+        Source::Synthetic(s) => match &s.process.response {
+            Response::Regression {
+                noise: Noise::Poisson,
+                ..
+            } => Ok(()),
+            _ if s.process.is_twin() => Err(cx.err(
+                span,
+                "loss.kind",
+                format!("the `{name}` loss needs count responses, and a twin's noise is Gaussian; use a synthetic source with `poisson = true` in [data.noise], or the table itself"),
+            )),
+            _ => Err(cx.err(
+                span,
+                "loss.kind",
+                format!("the `{name}` loss needs count responses: add `poisson = true` to [data.noise] (counts drawn Poisson with the truth as their mean) in place of `sd`"),
+            )),
+        },
+        Source::Table(t) => {
+            let table = &t.table;
+            match table.y.iter().enumerate().find(|(_, v)| !(v.is_finite() && **v >= 0.0)) {
+                None => Ok(()),
+                Some((i, v)) => Err(cx.err(
+                    span,
+                    "loss.kind",
+                    format!(
+                        "the `{name}` loss needs non-negative responses (counts), but `{}` is {v} on line {} of {}",
+                        table.target,
+                        table.lines.get(i).copied().unwrap_or(i + 2),
+                        table.path.display()
+                    ),
+                )),
+            }
+        }
+    }
 }
 
 /// Builds every model section: `family`, `grid`, `fit_seeds`, and the family's own options
@@ -784,6 +847,13 @@ fn build_models(
                     fam.name(),
                     loss.name()
                 ),
+            ));
+        }
+        if loss.count_responses() && fam.name() != "custom" && !fam.caps(task).positive {
+            return Err(cx.err_line(
+                line("family"),
+                &key("family"),
+                not_positive(fam.name(), loss.name()),
             ));
         }
         let spanned_grid = Spanned::new(model.span(), grid_value.clone());
@@ -1189,17 +1259,34 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             ))
         }
     };
+    let poisson = d
+        .noise
+        .as_ref()
+        .and_then(|n| n.poisson.as_ref())
+        .filter(|p| *p.get_ref());
     let noise = match &d.noise {
         None => match builtin {
             Some(b) => Noise::Constant(b.default_sd()),
-            None => {
-                return Err(cx.err(
-                    Some(d.source.span()),
-                    "data.noise",
-                    "a formula truth needs [data.noise] with `sd` or `sd_formula`",
-                ))
-            }
+            None => return Err(cx.err(
+                Some(d.source.span()),
+                "data.noise",
+                "a formula truth needs [data.noise] with `sd`, `sd_formula` or `poisson = true`",
+            )),
         },
+        Some(n) if poisson.is_some() => {
+            if let Some(span) =
+                n.sd.as_ref()
+                    .map(|s| s.span())
+                    .or_else(|| n.sd_formula.as_ref().map(|s| s.span()))
+            {
+                return Err(cx.err(
+                    Some(span),
+                    "data.noise",
+                    "give either `poisson = true` (counts with the truth as their mean, variance equal to the mean) or `sd` / `sd_formula`, not both",
+                ));
+            }
+            Noise::Poisson
+        }
         Some(n) => match (&n.sd, &n.sd_formula) {
             (Some(sd), None) => {
                 let v = *sd.get_ref();

@@ -188,10 +188,15 @@ pub struct TruthSpec {
     pub builtin: Option<Spanned<String>>,
 }
 
-/// `[data.noise]`: Gaussian noise with a constant or input-dependent standard deviation.
+/// `[data.noise]`: Gaussian noise with a constant or input-dependent standard deviation, or
+/// Poisson counts with the truth as their mean.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct NoiseSpec {
+    /// Synthetic source: responses are counts drawn Poisson with mean f(x) (> 0), instead of
+    /// `f(x)` plus Gaussian noise.
+    #[serde(default)]
+    pub poisson: Option<Spanned<bool>>,
     /// Constant standard deviation.
     #[serde(default)]
     pub sd: Option<Spanned<f64>>,
@@ -207,6 +212,7 @@ pub struct NoiseSpec {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct LossSpec {
-    /// `squared` (default) or `zero_one`.
+    /// `squared` (default for regression), `zero_one` (default for classification), `log`,
+    /// `brier` (classification with class probabilities) or `poisson` (count responses).
     pub kind: Spanned<String>,
 }

@@ -256,6 +256,13 @@ pub fn from_spec(
                         "a twin's noise is `sd` (constant) or `varying = true`".into(),
                     ));
                 }
+                if let Some(p) = &n.poisson {
+                    return Err(err(
+                        p.span(),
+                        "data.noise.poisson",
+                        "belongs to a synthetic source; a twin's noise is `sd` (constant) or `varying = true`".into(),
+                    ));
+                }
                 match (&n.sd, varying) {
                     (Some(sd), false) => {
                         let v = *sd.get_ref();
