@@ -38,7 +38,9 @@
 //! `bias²+noise = ‖q̄ − e_y‖² − V̂_i/R_i` per row, and `bias²+noise + V̂_i` is exactly the row's
 //! mean out-of-bag Brier score; rows held out in fewer than two replicates are skipped.
 
-use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use super::{
+    Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Target, TermInfo,
+};
 use crate::family::Task;
 
 /// The Brier score.
@@ -420,6 +422,34 @@ impl Loss for Brier {
         v
     }
 
+    fn identities(&self, shape: &Shape, observed: bool) -> Vec<Identity> {
+        let mut v = vec![Identity {
+            name: "Brier score = noise + bias² + variance (squared loss on probability vectors)",
+            total: "expected_loss",
+            parts: &[("noise", 1.0), ("bias_sq", 1.0), ("variance", 1.0)],
+        }];
+        if shape.fits >= 2 {
+            v.push(Identity {
+                name: "law of total variance: variance = variance_data + variance_fit",
+                total: "variance",
+                parts: &[("variance_data", 1.0), ("variance_fit", 1.0)],
+            });
+        }
+        if shape.ensemble && !observed {
+            v.push(Identity {
+                name: "Wood et al. 2023: loss = noise + bias² + member variance − diversity",
+                total: "expected_loss",
+                parts: &[
+                    ("noise", 1.0),
+                    ("bias_sq", 1.0),
+                    ("member_variance", 1.0),
+                    ("diversity", -1.0),
+                ],
+            });
+        }
+        v
+    }
+
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
         let sh = acc.shape;
         let k = sh.classes;
@@ -629,7 +659,7 @@ mod tests {
                     let q: Vec<Vec<f64>> = (0..m).map(|_| simplex(&mut st, k)).collect();
                     push(
                         if i < r / 2 { &mut a } else { &mut b },
-                        &[q.clone()],
+                        std::slice::from_ref(&q),
                         None,
                         &vec![0.0; m],
                     );

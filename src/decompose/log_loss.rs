@@ -61,7 +61,9 @@
 //! the bias: `bias+noise = −log q̄_y` and the expected loss is the out-of-bag log-loss
 //! `−ℓ̂_y`; rows held out in fewer than two replicates are skipped.
 
-use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use super::{
+    Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Target, TermInfo,
+};
 use crate::family::Task;
 
 /// The log-loss (cross-entropy) on class probabilities.
@@ -327,6 +329,14 @@ impl Loss for LogLoss {
                 true,
             ),
         ]
+    }
+
+    fn identities(&self, _shape: &Shape, _observed: bool) -> Vec<Identity> {
+        vec![Identity {
+            name: "Heskes 1998: log-loss = noise (entropy) + bias (KL) + variance",
+            total: "expected_loss",
+            parts: &[("noise", 1.0), ("bias", 1.0), ("variance", 1.0)],
+        }]
     }
 
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {

@@ -65,7 +65,9 @@
 //! D(y, μ̃)`, and the expected loss is the out-of-bag mean deviance
 //! `2[y(log y − ℓ̂) − y + m̂]`; rows held out in fewer than two replicates are skipped.
 
-use super::{Acc, ArraySpec, Batch, Group, Kind, Loss, Role, Row, Shape, Target, TermInfo};
+use super::{
+    Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Target, TermInfo,
+};
 use crate::family::Task;
 
 /// The Poisson deviance.
@@ -346,6 +348,15 @@ impl Loss for Poisson {
                 true,
             ),
         ]
+    }
+
+    fn identities(&self, _shape: &Shape, _observed: bool) -> Vec<Identity> {
+        vec![Identity {
+            name:
+                "Pfau 2013 (Bregman): deviance = noise + bias + variance around the geometric mean",
+            total: "expected_loss",
+            parts: &[("noise", 1.0), ("bias", 1.0), ("variance", 1.0)],
+        }]
     }
 
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
