@@ -3,8 +3,8 @@
 //! the `lossprism check` command line (exit codes, `--update`, refusals), and the false alarm
 //! rate of the statistical rule over many independent pairs of runs.
 
-use std::path::Path;
-use std::process::Command;
+mod common;
+use common::run3;
 use std::sync::Arc;
 
 use lossprism::check::{self, CheckError, CheckOptions, Verdict};
@@ -123,23 +123,6 @@ fn custom_family_must_accept_the_grid() {
     assert!(e.to_string().contains("bandwidth = -1"), "{e}");
 }
 
-fn bin() -> &'static str {
-    env!("CARGO_BIN_EXE_lossprism")
-}
-
-fn lossprism(args: &[&str], cwd: &Path) -> (i32, String, String) {
-    let out = Command::new(bin())
-        .args(args)
-        .current_dir(cwd)
-        .output()
-        .expect("binary starts");
-    (
-        out.status.code().unwrap_or(-1),
-        String::from_utf8_lossy(&out.stdout).into_owned(),
-        String::from_utf8_lossy(&out.stderr).into_owned(),
-    )
-}
-
 #[test]
 fn command_line_check() {
     let dir = tempfile::tempdir().unwrap();
@@ -160,11 +143,11 @@ fn command_line_check() {
     );
     save("one-b.json", &run(noisy(), &one_block, None));
 
-    let (code, out, _) = lossprism(&["check", "same.json", "--baseline", "base.json"], d);
+    let (code, out, _) = run3(d, &["check", "same.json", "--baseline", "base.json"]);
     assert_eq!(code, 0);
     assert!(out.starts_with("identical"), "{out}");
 
-    let (code, out, _) = lossprism(&["check", "noisy.json", "--baseline", "base.json"], d);
+    let (code, out, _) = run3(d, &["check", "noisy.json", "--baseline", "base.json"]);
     assert_eq!(code, 1, "{out}");
     assert!(
         out.contains("REGRESSED") && out.contains("variance"),
@@ -172,7 +155,8 @@ fn command_line_check() {
     );
 
     // A 1000 % margin on every term hides the change; per-term margins override it.
-    let (code, _, _) = lossprism(
+    let (code, _, _) = run3(
+        d,
         &[
             "check",
             "noisy.json",
@@ -181,10 +165,10 @@ fn command_line_check() {
             "--margin",
             "1000%",
         ],
-        d,
     );
     assert_eq!(code, 0);
-    let (code, _, _) = lossprism(
+    let (code, _, _) = run3(
+        d,
         &[
             "check",
             "noisy.json",
@@ -195,24 +179,24 @@ fn command_line_check() {
             "--margin-term",
             "variance=1%",
         ],
-        d,
     );
     assert_eq!(code, 1);
 
-    let (code, out, _) = lossprism(&["check", "base.json", "--baseline", "noisy.json"], d);
+    let (code, out, _) = run3(d, &["check", "base.json", "--baseline", "noisy.json"]);
     assert_eq!(code, 0, "{out}");
     assert!(out.contains("better"), "{out}");
 
-    let (code, _, err) = lossprism(&["check", "other.json", "--baseline", "base.json"], d);
+    let (code, _, err) = run3(d, &["check", "other.json", "--baseline", "base.json"]);
     assert_eq!(code, 2);
     assert_eq!(err.lines().count(), 1, "{err}");
     assert!(err.contains("scenario.train_size differs"), "{err}");
 
-    let (code, _, err) = lossprism(&["check", "one-b.json", "--baseline", "one-a.json"], d);
+    let (code, _, err) = run3(d, &["check", "one-b.json", "--baseline", "one-a.json"]);
     assert_eq!(code, 2);
     assert!(err.contains("at least 2 replicate blocks"), "{err}");
 
-    let (code, _, err) = lossprism(
+    let (code, _, err) = run3(
+        d,
         &[
             "check",
             "noisy.json",
@@ -221,15 +205,14 @@ fn command_line_check() {
             "--margin-term",
             "varience=1%",
         ],
-        d,
     );
     assert_eq!(code, 2);
     assert!(err.contains("unknown term"), "{err}");
 
     // --update accepts the new result: the baseline becomes its exact bytes.
-    let (code, _, _) = lossprism(
-        &["check", "noisy.json", "--baseline", "base.json", "--update"],
+    let (code, _, _) = run3(
         d,
+        &["check", "noisy.json", "--baseline", "base.json", "--update"],
     );
     assert_eq!(code, 0);
     assert_eq!(
@@ -237,12 +220,12 @@ fn command_line_check() {
         std::fs::read(d.join("noisy.json")).unwrap()
     );
     // ... and creates a missing baseline; without --update a missing baseline is an error.
-    let (code, _, err) = lossprism(&["check", "same.json", "--baseline", "new.json"], d);
+    let (code, _, err) = run3(d, &["check", "same.json", "--baseline", "new.json"]);
     assert_eq!(code, 2);
     assert!(err.contains("--update"), "{err}");
-    let (code, _, _) = lossprism(
-        &["check", "same.json", "--baseline", "new.json", "--update"],
+    let (code, _, _) = run3(
         d,
+        &["check", "same.json", "--baseline", "new.json", "--update"],
     );
     assert_eq!(code, 0);
     assert!(d.join("new.json").exists());
@@ -253,7 +236,7 @@ fn command_line_refuses_custom_family() {
     let dir = tempfile::tempdir().unwrap();
     std::fs::write(dir.path().join("c.toml"), SMALL).unwrap();
     for args in [&["run", "c.toml"][..], &["validate", "c.toml"][..]] {
-        let (code, _, err) = lossprism(args, dir.path());
+        let (code, _, err) = run3(dir.path(), args);
         assert_eq!(code, 2, "{args:?}");
         assert_eq!(err.lines().count(), 1, "{err}");
         assert!(err.contains("family `custom`"), "{err}");

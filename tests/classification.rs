@@ -28,10 +28,11 @@
 //!   unbiased, and bias and systematic effect are then exactly equal to their exact values.
 //!   The averages over **all** points of these plug-in terms are not compared with exact values.
 
+mod common;
+use common::lossprism;
 use std::collections::HashMap;
 use std::fs;
 use std::path::Path;
-use std::process::{Command, Output};
 
 use lossprism::decompose::jackknife_se;
 use lossprism::decompose::zero_one::{self, domingos_coefficients, ZeroOne, ZeroOneSummary};
@@ -911,15 +912,6 @@ kind = "zero_one"
 // ---------------------------------------------------------------------------------------------
 // Bad classification scenarios on the command line
 // ---------------------------------------------------------------------------------------------
-
-fn lossprism(cwd: &Path, args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_lossprism"))
-        .args(args)
-        .current_dir(cwd)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("the lossprism binary starts")
-}
 
 /// A classification scenario with the `[data.classes]` body, family and loss given.
 fn scenario_with(classes: &str, family: &str, loss: &str) -> String {

@@ -3,6 +3,8 @@
 //! (no progress bar without a terminal). The ignored test `render_docs_pictures` writes the PNGs
 //! under `docs/` from the default scenario.
 
+mod common;
+use common::bin;
 use std::path::{Path, PathBuf};
 use std::process::Command;
 
@@ -433,10 +435,6 @@ fn table_columns_line_up() {
     let w = block[0].chars().count();
     assert!(block.iter().all(|l| l.chars().count() == w), "{block:#?}");
     assert_eq!(block.iter().filter(|l| l.contains(" * ")).count(), 1);
-}
-
-fn bin() -> &'static str {
-    env!("CARGO_BIN_EXE_lossprism")
 }
 
 #[test]

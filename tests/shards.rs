@@ -5,7 +5,10 @@
 
 use std::fs;
 use std::path::Path;
-use std::process::{Command, Output};
+use std::process::Output;
+
+mod common;
+use common::*;
 
 use serde_json::Value;
 
@@ -36,20 +39,6 @@ sd = 0.5
 family = "tree"
 grid = [1, 2, 3, 4]
 "#;
-
-fn bin() -> &'static str {
-    env!("CARGO_BIN_EXE_lossprism")
-}
-
-/// Runs the binary with `args` in folder `cwd`.
-fn lossprism(cwd: &Path, args: &[&str]) -> Output {
-    Command::new(bin())
-        .args(args)
-        .current_dir(cwd)
-        .env("NO_COLOR", "1")
-        .output()
-        .expect("the lossprism binary starts")
-}
 
 fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()

@@ -1,7 +1,8 @@
 #!/usr/bin/env python3
 """k-nearest-neighbour estimator for lossprism's `external` family, standard library only.
 
-Speaks protocol version 1 of docs/external-protocol.md on standard input/output. The knob is
+Speaks protocol version 2 of docs/external-protocol.md on standard input/output (it ignores the
+seed: k-NN has no randomness). The knob is
 the number of neighbours k (whole numbers 1..n). It computes exactly what the built-in `knn`
 family computes (with standardize = false):
 
@@ -9,7 +10,8 @@ family computes (with standardize = false):
 - neighbour order: by (squared distance, training row index), so of two rows at the same
   distance the earlier row comes first;
 - regression: the running mean of the neighbours' responses, summed nearest first;
-- classification: majority vote; among tied classes the one whose nearest member comes first.
+- classification: majority vote; among tied classes the one whose nearest member comes first;
+  class probabilities (when asked) are the neighbour shares count_c / k.
 
 Scenario:
     [model]
@@ -20,7 +22,7 @@ Scenario:
 """
 import sys
 
-VERSION = "1"
+VERSION = "2"
 
 
 def numbers(line, tag):
@@ -30,7 +32,7 @@ def numbers(line, tag):
     return [float(t) for t in parts[1:]]
 
 
-def fit_predict(task, x, y, ev, grid):
+def fit_predict(task, classes, x, y, ev, grid):
     n = len(x)
     p = len(x[0]) if n else 0
     ks = []
@@ -41,6 +43,7 @@ def fit_predict(task, x, y, ev, grid):
     kmax = max(ks)
     cols = [[x[i][j] for i in range(n)] for j in range(p)]
     rows = [[] for _ in grid]
+    probs = [[] for _ in grid]
     for q in ev:
         d = [0.0] * n
         for j in range(p):
@@ -51,6 +54,7 @@ def fit_predict(task, x, y, ev, grid):
                 d[i] += t * t
         order = sorted(range(n), key=lambda i: (d[i], i))[:kmax]
         by_rank = []
+        shares = []
         if task == "regress":
             s = 0.0
             for j, i in enumerate(order):
@@ -71,9 +75,12 @@ def fit_predict(task, x, y, ev, grid):
                 ):
                     leader = c
                 by_rank.append(float(leader))
+                shares.append([counts.get(cl, 0) / (j + 1) for cl in range(classes)])
         for g, k in enumerate(ks):
             rows[g].append(by_rank[k - 1])
-    return rows
+            if shares:
+                probs[g].extend(shares[k - 1])
+    return rows, probs
 
 
 def main():
@@ -93,9 +100,11 @@ def main():
         if head[0] != "fit":
             sys.stderr.write("unexpected request %r\n" % line[:40])
             return 2
-        _, rid, task, _classes, _knob, n, p, m, g = head
-        n, p, m, g = int(n), int(p), int(m), int(g)
+        # version 2 adds what to send (`values`, `labels` or `probs`) and a `seed` line
+        _, rid, task, classes, _knob, n, p, m, g, want = head
+        n, p, m, g, classes = int(n), int(p), int(m), int(g), int(classes)
         grid = numbers(inp.readline(), "grid")
+        numbers(inp.readline(), "seed")  # k-NN has no randomness
         x = [numbers(inp.readline(), "x") for _ in range(n)]
         y = numbers(inp.readline(), "y")
         ev = [numbers(inp.readline(), "eval") for _ in range(m)]
@@ -103,14 +112,16 @@ def main():
             sys.stderr.write("request %s: missing `end`\n" % rid)
             return 2
         try:
-            rows = fit_predict(task, x, y, ev, grid)
+            rows, probs = fit_predict(task, classes, x, y, ev, grid)
         except ValueError as e:
             out.write("error %s %s\n" % (rid, e))
             out.flush()
             continue
         out.write("ok %s\n" % rid)
-        for r in rows:
+        for g_i, r in enumerate(rows):
             out.write("pred " + " ".join(repr(v) for v in r) + "\n")
+            if want == "probs":
+                out.write("prob " + " ".join(repr(v) for v in probs[g_i]) + "\n")
         out.flush()
 
 

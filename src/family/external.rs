@@ -33,11 +33,12 @@ use std::fmt::Write as _;
 use std::io::{BufRead, BufReader, Read, Write};
 use std::path::{Path, PathBuf};
 use std::process::{Child, ChildStdin, Command, Stdio};
+use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::mpsc::{self, Receiver, RecvTimeoutError, Sender};
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
-use ndarray::ArrayViewMut2;
+use ndarray::{ArrayViewMut2, ArrayViewMut3};
 
 use super::{BuildContext, Family, FitError, FitInput, OptionError, Options, Out, Task};
 
@@ -73,8 +74,14 @@ pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family
     Ok(Arc::new(fam))
 }
 
-/// Version of the line protocol spoken (the `hello` line carries it).
-pub const PROTOCOL_VERSION: u32 = 1;
+/// Version of the line protocol lossprism speaks (the `hello` line carries it). A process may
+/// answer `ready 2` (this version: a `seed` line in every request, class probabilities on
+/// request) or `ready 1` (version 1: no seed, labels only).
+pub const PROTOCOL_VERSION: u32 = 2;
+
+/// Longest line accepted on a process's standard error (longer lines are cut; the rest is
+/// discarded as it arrives).
+const STDERR_LINE_MAX: usize = 2000;
 
 /// Seconds to wait for an answer when the scenario gives no `timeout_seconds`.
 pub const DEFAULT_TIMEOUT_SECONDS: f64 = 60.0;
@@ -108,6 +115,8 @@ enum Line {
     Text(String),
     Eof,
     Failed(String),
+    /// A line longer than the current request can need (the reader stops).
+    TooLong(usize),
 }
 
 /// One running process and its helper threads.
@@ -119,12 +128,19 @@ struct Worker {
     stderr_tail: Arc<Mutex<VecDeque<String>>>,
     /// Requests sent so far (the request id).
     sent: u64,
+    /// Protocol version the process speaks (1 or 2).
+    version: u32,
+    /// Longest answer line the current request can need (the reader refuses longer ones).
+    max_line: Arc<AtomicUsize>,
+    /// Set when lossprism itself killed the process (so its end is not reported as a crash).
+    killed_by_us: bool,
 }
 
 impl Worker {
     /// Kills the process (if still running) and reaps it.
     fn kill(&mut self) {
         self.requests = None;
+        self.killed_by_us = true;
         let _ = self.child.kill();
         let _ = self.child.wait();
     }
@@ -277,7 +293,9 @@ impl ExternalFamily {
         let (req_tx, req_rx) = mpsc::channel::<Vec<u8>>();
         std::thread::spawn(move || write_loop(stdin, req_rx));
         let (line_tx, line_rx) = mpsc::channel::<Line>();
-        std::thread::spawn(move || read_loop(stdout, line_tx));
+        let max_line = Arc::new(AtomicUsize::new(4096));
+        let limit = Arc::clone(&max_line);
+        std::thread::spawn(move || read_loop(stdout, line_tx, limit));
         let tail = Arc::new(Mutex::new(VecDeque::new()));
         let tail2 = Arc::clone(&tail);
         std::thread::spawn(move || stderr_loop(stderr, tail2));
@@ -287,26 +305,34 @@ impl ExternalFamily {
             lines: line_rx,
             stderr_tail: tail,
             sent: 0,
+            version: PROTOCOL_VERSION,
+            max_line,
+            killed_by_us: false,
         };
         let hello = format!("lossprism-external {PROTOCOL_VERSION}\n");
         let deadline = Instant::now() + self.timeout;
-        let what = "the handshake (`lossprism-external 1`)";
+        let what = "the handshake (`lossprism-external 2`)";
         self.send(&mut w, hello.into_bytes(), what)?;
         let line = self.recv(&mut w, deadline, what)?;
         let mut t = line.split_ascii_whitespace();
         match (t.next(), t.next()) {
-            (Some("ready"), Some(v)) if v == PROTOCOL_VERSION.to_string() => Ok(w),
+            (Some("ready"), Some("2")) => Ok(w),
+            (Some("ready"), Some("1")) => {
+                w.version = 1;
+                Ok(w)
+            }
             (Some("ready"), Some(v)) => {
                 w.kill();
                 Err(format!(
-                    "{} speaks protocol version {v}; lossprism speaks {PROTOCOL_VERSION}",
-                    self.who()
+                    "{} speaks protocol version {}; lossprism speaks 2 and accepts 1",
+                    self.who(),
+                    clip(v)
                 ))
             }
             _ => {
                 w.kill();
                 Err(format!(
-                    "{} answered the handshake with {:?} instead of `ready {PROTOCOL_VERSION}`",
+                    "{} answered the handshake with {:?} instead of `ready 2` (or `ready 1`)",
                     self.who(),
                     clip(&line)
                 ))
@@ -327,22 +353,31 @@ impl ExternalFamily {
     /// Kills the process and describes its end (status and last standard error line).
     fn died(&self, w: &mut Worker, what: &str) -> String {
         w.requests = None;
-        let _ = w.child.kill();
-        let status = w
-            .child
-            .wait()
-            .map(|s| s.to_string())
-            .unwrap_or_else(|e| e.to_string());
+        // Did it end by itself? Give it a moment to exit after closing its output.
+        let mut exited = None;
+        for _ in 0..20 {
+            if let Ok(Some(st)) = w.child.try_wait() {
+                exited = Some(st);
+                break;
+            }
+            std::thread::sleep(Duration::from_millis(10));
+        }
+        let how = match exited {
+            Some(st) => format!("it exited ({st})"),
+            None => {
+                w.kill();
+                "it closed its standard output but kept running, so lossprism stopped it".into()
+            }
+        };
         // Give the stderr thread a moment to collect the final lines (the pipe is closed now).
         std::thread::sleep(Duration::from_millis(20));
         let last = w
             .last_stderr()
             .map(|l| format!("; last line on its standard error: {}", clip(&l)))
             .unwrap_or_default();
-        format!("{} stopped during {what} ({status}){last}", self.who())
+        format!("{} stopped during {what}: {how}{last}", self.who())
     }
 
-    /// Reads one line before the deadline; kills the process on timeout or end of output.
     fn recv(&self, w: &mut Worker, deadline: Instant, what: &str) -> Result<String, String> {
         let left = deadline.saturating_duration_since(Instant::now());
         match w.lines.recv_timeout(left) {
@@ -352,6 +387,14 @@ impl ExternalFamily {
                 w.kill();
                 Err(format!(
                     "{}: reading its output during {what} failed: {e}",
+                    self.who()
+                ))
+            }
+            Ok(Line::TooLong(limit)) => {
+                w.kill();
+                Err(format!(
+                    "{} sent a line longer than {limit} bytes during {what}, more than the answer \
+                     can need; it was stopped",
                     self.who()
                 ))
             }
@@ -374,10 +417,19 @@ impl ExternalFamily {
         input: &FitInput<'_>,
         grid: &[f64],
         out: &mut ArrayViewMut2<'_, f64>,
+        mut probs: Option<&mut ArrayViewMut3<'_, f64>>,
     ) -> Result<(), String> {
         let (n, p) = input.x.dim();
         let m = input.eval.nrows();
         let g = grid.len();
+        if probs.is_some() && w.version < 2 {
+            w.kill();
+            return Err(format!(
+                "{} speaks protocol version 1, which has no class probabilities; the loss needs \
+                 them: answer `ready 2` and send `prob` lines (docs/external-protocol.md)",
+                self.who()
+            ));
+        }
         w.sent += 1;
         let id = w.sent;
         let (task, classes) = match input.task {
@@ -390,12 +442,25 @@ impl ExternalFamily {
             self.knob
         );
         let mut req = String::with_capacity(32 * (n * (p + 1) + m * p + g) + 128);
-        let _ = writeln!(
-            req,
-            "fit {id} {task} {classes} {} {n} {p} {m} {g}",
-            self.knob
-        );
+        if w.version >= 2 {
+            let want = if probs.is_some() { "probs" } else { "labels" };
+            let want = if classes == 0 { "values" } else { want };
+            let _ = writeln!(
+                req,
+                "fit {id} {task} {classes} {} {n} {p} {m} {g} {want}",
+                self.knob
+            );
+        } else {
+            let _ = writeln!(
+                req,
+                "fit {id} {task} {classes} {} {n} {p} {m} {g}",
+                self.knob
+            );
+        }
         push_row(&mut req, "grid", grid.iter().copied());
+        if w.version >= 2 {
+            let _ = writeln!(req, "seed {}", input.seed.as_u64());
+        }
         for row in input.x.rows() {
             push_row(&mut req, "x", row.iter().copied());
         }
@@ -404,6 +469,10 @@ impl ExternalFamily {
             push_row(&mut req, "eval", row.iter().copied());
         }
         req.push_str("end\n");
+        // An answer line holds at most `prob` and m·K numbers of at most ~40 characters.
+        let widest = m.saturating_mul(classes.max(1)).saturating_mul(48);
+        w.max_line
+            .store(widest.saturating_add(4096), Ordering::Relaxed);
         self.send(w, req.into_bytes(), &what)?;
         let deadline = Instant::now() + self.timeout;
         let head = self.recv(w, deadline, &what)?;
@@ -475,6 +544,46 @@ impl ExternalFamily {
                     self.who()
                 ));
             }
+            if let Some(pr) = probs.as_mut() {
+                let k = classes;
+                let line = self.recv(w, deadline, &what)?;
+                let mut toks = line.split_ascii_whitespace();
+                if toks.next() != Some("prob") {
+                    w.kill();
+                    return Err(format!(
+                        "{} sent {:?} where `prob ...` ({m}×{k} class probabilities for {at}) was expected, answering {what}",
+                        self.who(),
+                        clip(&line)
+                    ));
+                }
+                let mut count = 0usize;
+                for tok in toks {
+                    if count < m * k {
+                        match parse_number(tok) {
+                            Some(x) => pr[[gi, count / k, count % k]] = x,
+                            None => {
+                                w.kill();
+                                return Err(format!(
+                                    "{} sent {:?} where probability {} of {} for {at} was expected, answering {what}",
+                                    self.who(),
+                                    clip(tok),
+                                    count + 1,
+                                    m * k
+                                ));
+                            }
+                        }
+                    }
+                    count += 1;
+                }
+                if count != m * k {
+                    w.kill();
+                    return Err(format!(
+                        "{} sent {count} probabilities for {at}, expected {} ({m} points × {k} classes), answering {what}",
+                        self.who(),
+                        m * k
+                    ));
+                }
+            }
         }
         Ok(())
     }
@@ -532,45 +641,80 @@ fn write_loop(mut stdin: ChildStdin, rx: Receiver<Vec<u8>>) {
     }
 }
 
-fn read_loop(stdout: impl Read, tx: Sender<Line>) {
+/// Reads standard output line by line; a line longer than `max_line` bytes (set per request to
+/// what the answer can need) is refused without being held whole.
+fn read_loop(stdout: impl Read, tx: Sender<Line>, max_line: Arc<AtomicUsize>) {
     let mut r = BufReader::new(stdout);
+    let mut line: Vec<u8> = Vec::new();
     loop {
-        let mut s = String::new();
-        match r.read_line(&mut s) {
-            Ok(0) => {
-                let _ = tx.send(Line::Eof);
-                return;
-            }
-            Ok(_) => {
-                let t = s.trim_end_matches(['\n', '\r']).to_string();
-                if tx.send(Line::Text(t)).is_err() {
-                    return;
-                }
-            }
+        let buf = match r.fill_buf() {
+            Ok(b) => b,
             Err(e) => {
                 let _ = tx.send(Line::Failed(e.to_string()));
+                return;
+            }
+        };
+        if buf.is_empty() {
+            let _ = tx.send(Line::Eof);
+            return;
+        }
+        let (take, done) = match buf.iter().position(|&b| b == b'\n') {
+            Some(i) => (i + 1, true),
+            None => (buf.len(), false),
+        };
+        line.extend_from_slice(&buf[..take]);
+        r.consume(take);
+        let limit = max_line.load(Ordering::Relaxed);
+        if line.len() > limit {
+            let _ = tx.send(Line::TooLong(limit));
+            return;
+        }
+        if done {
+            let t = String::from_utf8_lossy(&line)
+                .trim_end_matches(['\n', '\r'])
+                .to_string();
+            line.clear();
+            if tx.send(Line::Text(t)).is_err() {
                 return;
             }
         }
     }
 }
 
+/// Keeps the last lines of standard error, each cut to [`STDERR_LINE_MAX`] bytes, so that a
+/// process writing without newlines cannot make lossprism hold its output whole.
 fn stderr_loop(stderr: impl Read, tail: Arc<Mutex<VecDeque<String>>>) {
     let mut r = BufReader::new(stderr);
-    let mut buf = Vec::new();
-    loop {
-        buf.clear();
-        match r.read_until(b'\n', &mut buf) {
-            Ok(0) | Err(_) => return,
-            Ok(_) => {
-                let line = String::from_utf8_lossy(&buf).trim_end().to_string();
-                if let Ok(mut t) = tail.lock() {
-                    if t.len() == STDERR_TAIL {
-                        t.pop_front();
-                    }
-                    t.push_back(line);
-                }
+    let mut line: Vec<u8> = Vec::new();
+    let push = |line: &[u8]| {
+        let text = String::from_utf8_lossy(line).trim_end().to_string();
+        if let Ok(mut t) = tail.lock() {
+            if t.len() == STDERR_TAIL {
+                t.pop_front();
             }
+            t.push_back(text);
+        }
+    };
+    loop {
+        let buf = match r.fill_buf() {
+            Ok(b) if !b.is_empty() => b,
+            _ => {
+                if !line.is_empty() {
+                    push(&line);
+                }
+                return;
+            }
+        };
+        let (take, done) = match buf.iter().position(|&b| b == b'\n') {
+            Some(i) => (i + 1, true),
+            None => (buf.len(), false),
+        };
+        let room = STDERR_LINE_MAX.saturating_sub(line.len());
+        line.extend_from_slice(&buf[..take.min(room)]);
+        r.consume(take);
+        if done {
+            push(&line);
+            line.clear();
         }
     }
 }
@@ -604,13 +748,28 @@ impl Family for ExternalFamily {
         true
     }
 
+    /// The process may use the fit seed (protocol 2) and may send class probabilities
+    /// (protocol 2, when asked); a version-1 process asked for probabilities fails with a clear
+    /// message.
+    fn caps(&self, task: Task) -> super::Caps {
+        super::Caps {
+            probabilities: matches!(task, Task::Classify { .. }),
+            stochastic: true,
+            ..super::Caps::default()
+        }
+    }
+
     fn fit_predict(
         &self,
         input: &FitInput<'_>,
         grid: &[f64],
         out: Out<'_>,
     ) -> Result<(), FitError> {
-        let mut out = out.values;
+        let Out {
+            values: mut out,
+            probs: mut probs_out,
+            ..
+        } = out;
         if let Ok(f) = self.failed.lock() {
             if let Some(msg) = f.as_ref() {
                 return Err(FitError(format!("stopped after an earlier failure: {msg}")));
@@ -629,7 +788,7 @@ impl Family for ExternalFamily {
             Some(w) => w,
             None => self.spawn().map_err(|e| self.fail(e))?,
         };
-        match self.fit_on(&mut w, input, grid, &mut out) {
+        match self.fit_on(&mut w, input, grid, &mut out, probs_out.as_mut()) {
             Ok(()) => {
                 if let Ok(mut g) = self.idle.lock() {
                     g.push(w);
