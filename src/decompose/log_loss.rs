@@ -383,6 +383,10 @@ impl Loss for LogLoss {
         Ok(())
     }
 
+    fn checks_predictions(&self) -> bool {
+        true
+    }
+
     fn check_prediction(&self, _value: f64, probs: Option<&[f64]>) -> Result<(), String> {
         let Some(q) = probs else { return Ok(()) };
         match q.iter().position(|&v| v <= 0.0) {

@@ -259,6 +259,12 @@ pub trait Loss: Send + Sync {
         Ok(())
     }
 
+    /// Whether [`Loss::check_prediction`] checks anything (the engine skips the per-prediction
+    /// call otherwise). Default: no.
+    fn checks_predictions(&self) -> bool {
+        false
+    }
+
     /// The arrays of an accumulator of this shape (counts per point are kept by [`Acc`]).
     fn layout(&self, shape: &Shape) -> Vec<ArraySpec>;
 

@@ -391,6 +391,10 @@ impl Loss for Poisson {
             .collect()
     }
 
+    fn checks_predictions(&self) -> bool {
+        true
+    }
+
     fn check_prediction(&self, value: f64, _probs: Option<&[f64]>) -> Result<(), String> {
         if value > 0.0 {
             Ok(())

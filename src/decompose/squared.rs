@@ -87,9 +87,29 @@ pub struct SquaredPoint {
 }
 
 /// Terms at cell (g, e) against `truth` (f(x_e), or the observed y_e).
+#[inline]
 pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
     let sh = &acc.shape;
     let i = g * sh.points + e;
+    if sh.fits == 1 && !sh.ensemble {
+        // The common case, without the fit-seed and ensemble arrays.
+        let rf = acc.count[e] as f64;
+        let mean = acc.floats[MEAN][i];
+        let v = if acc.count[e] >= 2 {
+            acc.floats[M2][i] / (rf - 1.0)
+        } else {
+            f64::NAN
+        };
+        let d = mean - truth;
+        return SquaredPoint {
+            mean_prediction: if acc.count[e] >= 1 { mean } else { f64::NAN },
+            bias_sq: d * d - v / rf,
+            variance: v,
+            variance_data: f64::NAN,
+            variance_fit: f64::NAN,
+            diversity: f64::NAN,
+        };
+    }
     let r = acc.count[e];
     let rf = r as f64;
     let mean = acc.floats[MEAN][i];
@@ -162,6 +182,10 @@ impl Loss for Squared {
     fn push(&self, acc: &mut Acc, batch: &Batch<'_>) {
         let sh = acc.shape;
         let s_fits = batch.values.dim().0;
+        if sh.all_points && s_fits == 1 && !sh.ensemble && batch.held.is_none() {
+            push_plain(acc, batch);
+            return;
+        }
         let k = batch.len();
         let points = sh.points;
         let within = within_index(&sh);
@@ -233,6 +257,10 @@ impl Loss for Squared {
 
     fn merge(&self, acc: &mut Acc, other: &Acc) {
         let sh = acc.shape;
+        if sh.all_points {
+            merge_plain(acc, other);
+            return;
+        }
         // Per point: the weights of the pairwise update (Chan, Golub, LeVeque 1979).
         let weights: Vec<Option<(f64, f64)>> = acc
             .count
@@ -586,6 +614,60 @@ impl Loss for Squared {
         };
         for row in se.iter_mut() {
             row[b] = row[bpn];
+        }
+    }
+}
+
+/// The common case of [`Squared::push`]: every point evaluated, one fit per training set. The
+/// same arithmetic as the general path, on contiguous rows (every count equals the replicates).
+fn push_plain(acc: &mut Acc, batch: &Batch<'_>) {
+    let sh = acc.shape;
+    let points = sh.points;
+    let inv = 1.0 / acc.replicates as f64;
+    let m = points as f64;
+    let (head, rest) = acc.floats.split_at_mut(M2);
+    let (m2v, rest) = rest.split_at_mut(1);
+    let (meanv, m2v, direct) = (&mut head[MEAN], &mut m2v[0], &mut rest[0]);
+    let values = batch.values.index_axis(ndarray::Axis(0), 0);
+    for (g, row) in values.rows().into_iter().enumerate() {
+        let sse: f64 = row
+            .iter()
+            .zip(batch.response.iter())
+            .map(|(p, y)| (p - y) * (p - y))
+            .sum();
+        let base = g * points;
+        let mean = &mut meanv[base..base + points];
+        let m2 = &mut m2v[base..base + points];
+        for ((mu, s), &y) in mean.iter_mut().zip(m2.iter_mut()).zip(row.iter()) {
+            let d = y - *mu;
+            *mu += d * inv;
+            *s += d * (y - *mu);
+        }
+        direct[g] += sse / m;
+    }
+}
+
+/// The common case of [`Squared::merge`]: every point counts the same replicates, so one pair
+/// of weights serves every cell (Chan, Golub, LeVeque 1979).
+fn merge_plain(acc: &mut Acc, other: &Acc) {
+    let na = acc.replicates as f64;
+    let nb = other.replicates as f64;
+    let n = na + nb;
+    let (wb, wab) = (nb / n, na * nb / n);
+    let (head, rest) = acc.floats.split_at_mut(M2);
+    let (mean, m2) = (&mut head[MEAN], &mut rest[0]);
+    let cells = mean
+        .iter_mut()
+        .zip(m2.iter_mut())
+        .zip(other.floats[MEAN].iter().zip(&other.floats[M2]));
+    for ((mu, s), (&om, &os)) in cells {
+        let d = om - *mu;
+        *mu += d * wb;
+        *s += os + d * d * wab;
+    }
+    for k in DIRECT..acc.floats.len() {
+        for (a, b) in acc.floats[k].iter_mut().zip(&other.floats[k]) {
+            *a += b;
         }
     }
 }

@@ -147,15 +147,19 @@ impl Family for KnnFamily {
         }
         let kmax = ks.iter().copied().max().unwrap_or(1);
 
-        if let Some(((i, j), v)) = input.x.indexed_iter().find(|(_, v)| !v.is_finite()) {
-            return Err(FitError(format!(
-                "knn: training input {v} at row {i}, column {j} is not a finite number"
-            )));
-        }
-        if let Some(((i, j), v)) = input.eval.indexed_iter().find(|(_, v)| !v.is_finite()) {
-            return Err(FitError(format!(
-                "knn: evaluation input {v} at row {i}, column {j} is not a finite number"
-            )));
+        let finite =
+            input.x.iter().all(|v| v.is_finite()) && input.eval.iter().all(|v| v.is_finite());
+        if !finite {
+            if let Some(((i, j), v)) = input.x.indexed_iter().find(|(_, v)| !v.is_finite()) {
+                return Err(FitError(format!(
+                    "knn: training input {v} at row {i}, column {j} is not a finite number"
+                )));
+            }
+            if let Some(((i, j), v)) = input.eval.indexed_iter().find(|(_, v)| !v.is_finite()) {
+                return Err(FitError(format!(
+                    "knn: evaluation input {v} at row {i}, column {j} is not a finite number"
+                )));
+            }
         }
         // Class labels are validated up front; regression reads y directly.
         let labels: Option<(Vec<usize>, usize)> = match input.task {

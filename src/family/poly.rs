@@ -190,6 +190,12 @@ pub fn check_shapes(
             input.eval.nrows()
         )));
     }
+    let all_finite = input.x.iter().all(|v| v.is_finite())
+        && input.y.iter().all(|v| v.is_finite())
+        && input.eval.iter().all(|v| v.is_finite());
+    if all_finite {
+        return Ok(());
+    }
     if let Some(((i, j), v)) = input.x.indexed_iter().find(|(_, v)| !v.is_finite()) {
         return Err(FitError(format!(
             "training input {v} at row {i}, column {j} is not a finite number"

@@ -85,7 +85,7 @@ impl Standardizer {
     }
 
     /// `(v − mean_j) × (1 / sd_j)`, or 0 for a constant column.
-    #[inline]
+    #[inline(always)]
     pub fn z_mul(&self, j: usize, v: f64) -> f64 {
         (v - self.mean[j]) * self.inv_sd[j]
     }
@@ -110,10 +110,10 @@ impl Standardizer {
     /// Row-major standardized copy of `x`, by [`Standardizer::z_mul`].
     pub fn row_major_mul(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
         let (m, p) = x.dim();
-        let mut z = vec![0.0; m * p];
-        for i in 0..m {
-            for j in 0..p {
-                z[i * p + j] = self.z_mul(j, x[[i, j]]);
+        let mut z = Vec::with_capacity(m * p);
+        for row in x.rows() {
+            for ((v, mu), inv) in row.iter().zip(&self.mean).zip(&self.inv_sd) {
+                z.push((v - mu) * inv);
             }
         }
         z

@@ -192,6 +192,22 @@ impl Tree {
         d
     }
 
+    /// Writes into `buf[0..=L]` the node values along `row`'s path down to depth `max_depth` and
+    /// returns `L`, the depth reached (the fast path when no class probabilities are needed).
+    #[inline]
+    pub fn path_values(&self, row: &[f64], max_depth: usize, buf: &mut [f64]) -> usize {
+        let nodes = &self.nodes[..];
+        let mut node = nodes[0];
+        buf[0] = node.value;
+        let mut d = 0;
+        while node.left != 0 && d < max_depth {
+            node = nodes[node.left as usize + right_offset(row[node.feature as usize], node)];
+            d += 1;
+            buf[d] = node.value;
+        }
+        d
+    }
+
     /// The prediction stored at node `i` (a mean response, or a majority class index).
     #[inline]
     pub fn node_value(&self, i: u32) -> f64 {
@@ -867,6 +883,17 @@ impl Family for TreeFamily {
         let rows = eval
             .as_slice()
             .ok_or_else(|| FitError("tree: evaluation inputs are not contiguous".into()))?;
+        if out.probs.is_none() {
+            let mut vals = [0.0f64; MAX_GRID_DEPTH + 1];
+            for e in 0..m {
+                let row = &rows[e * p..(e + 1) * p];
+                let reached = tree.path_values(row, deepest, &mut vals);
+                for (g, &d) in depths.iter().enumerate() {
+                    out.values[[g, e]] = vals[d.min(reached)];
+                }
+            }
+            return Ok(());
+        }
         let mut buf = [0u32; MAX_GRID_DEPTH + 1];
         let k = tree.classes();
         let mut counts = vec![0.0; k];
