@@ -91,6 +91,16 @@ impl FitSeed {
     }
 }
 
+/// A uniformly random order of `0..n` (Fisher–Yates, Knuth's Algorithm P), from `rng`.
+pub fn permutation<R: Rng + ?Sized>(n: usize, rng: &mut R) -> Vec<usize> {
+    let mut perm: Vec<usize> = (0..n).collect();
+    for i in (1..n).rev() {
+        let j = rng.gen_range(0..=i);
+        perm.swap(i, j);
+    }
+    perm
+}
+
 /// Fold of each of `n` rows: a random permutation from `rng`, position i → fold `i mod folds`.
 pub fn fold_assignment<R: Rng + ?Sized>(n: usize, folds: usize, rng: &mut R) -> Vec<usize> {
     let mut perm: Vec<usize> = (0..n).collect();

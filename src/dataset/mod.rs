@@ -603,12 +603,39 @@ pub struct TablePlan {
     pub work: Vec<usize>,
     /// Noise estimator.
     pub noise_method: noise::Method,
+    /// Several training sizes (a learning curve): each replicate draws a random order of the
+    /// working rows; size n trains on the first n rows and is evaluated on the rest.
+    pub sizes: Option<Vec<usize>>,
 }
 
 impl TablePlan {
-    /// Training rows per replicate.
+    /// Training rows per replicate (the largest size of a learning curve).
     pub fn train_size(&self) -> usize {
-        self.scheme.train_size(self.work.len())
+        match &self.sizes {
+            Some(s) => *s.last().expect("at least one size"),
+            None => self.scheme.train_size(self.work.len()),
+        }
+    }
+
+    /// The known distortion of the resampling, in one or two sentences.
+    pub fn note(&self) -> String {
+        match &self.sizes {
+            None => self.scheme.note(self.work.len()),
+            Some(sizes) => {
+                let n = self.work.len();
+                let factors: Vec<String> = sizes
+                    .iter()
+                    .map(|&m| format!("{m}: {:.3}", 1.0 - m as f64 / n as f64))
+                    .collect();
+                format!(
+                    "learning curve on a table: each replicate orders the {n} working rows at random; size m trains on \
+                     the first m rows (without replacement) and is evaluated on the other {n} − m. Training sets \
+                     overlap, which scales the variance of a mean by about (1 − m/N) (finite population correction, \
+                     Cochran, Sampling Techniques): {}; so variance is understated, most at the largest sizes",
+                    factors.join(", ")
+                )
+            }
+        }
     }
 
     /// The working rows (not the holdout) as a table.
@@ -678,5 +705,6 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
         holdout,
         work,
         noise_method,
+        sizes: None,
     })
 }

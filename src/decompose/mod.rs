@@ -554,6 +554,98 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
     })
 }
 
+/// The accumulator restricted to evaluation point `e` (every array laid out per cell keeps that
+/// point's cells; per-grid arrays are kept whole).
+fn one_point(acc: &Acc, e: usize) -> Acc {
+    let sh = acc.shape;
+    let cells = sh.cells().max(1);
+    let slice_f = |v: &Vec<f64>| -> Vec<f64> {
+        if sh.points > 0 && v.len() % cells == 0 && v.len() >= cells && v.len() != sh.grid {
+            let k = v.len() / cells;
+            (0..sh.grid)
+                .flat_map(|g| {
+                    let i = (g * sh.points + e) * k;
+                    v[i..i + k].iter().copied()
+                })
+                .collect()
+        } else {
+            v.clone()
+        }
+    };
+    let slice_c = |v: &Vec<u32>| -> Vec<u32> {
+        let k = v.len() / cells;
+        (0..sh.grid)
+            .flat_map(|g| {
+                let i = (g * sh.points + e) * k;
+                v[i..i + k].iter().copied()
+            })
+            .collect()
+    };
+    Acc {
+        shape: Shape { points: 1, ..sh },
+        replicates: acc.replicates,
+        count: vec![acc.count[e]],
+        floats: acc.floats.iter().map(slice_f).collect(),
+        counts: acc.counts.iter().map(slice_c).collect(),
+    }
+}
+
+/// The standard deviation, across evaluation points, of each per-point term (grid × terms):
+/// the spread that makes a result's terms depend on which points were drawn (`check` adds
+/// `sd²/m` to compare results with different evaluation points). NaN where fewer than two points
+/// give a finite value.
+pub fn point_spread(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
+    let sh = acc.shape;
+    let n_terms = loss.describe(&sh, target.observed()).len();
+    let mut n = vec![vec![0u64; n_terms]; sh.grid];
+    let mut mean = vec![vec![0.0; n_terms]; sh.grid];
+    let mut m2 = vec![vec![0.0; n_terms]; sh.grid];
+    let k = sh.classes;
+    for e in 0..sh.points {
+        let one = one_point(acc, e);
+        let t = match target {
+            Target::Known {
+                truth,
+                noise_var,
+                probs,
+            } => Target::Known {
+                truth: &truth[e..e + 1],
+                noise_var: &noise_var[e..e + 1],
+                probs: probs.map(|p| &p[e * k..(e + 1) * k]),
+            },
+            Target::Observed { y, noise } => Target::Observed {
+                y: &y[e..e + 1],
+                noise: *noise,
+            },
+        };
+        let rows = loss.evaluate(&one, &t);
+        for (g, row) in rows.iter().enumerate() {
+            for (ti, &v) in row.iter().enumerate() {
+                if !v.is_finite() {
+                    continue;
+                }
+                n[g][ti] += 1;
+                let d = v - mean[g][ti];
+                mean[g][ti] += d / n[g][ti] as f64;
+                m2[g][ti] += d * (v - mean[g][ti]);
+            }
+        }
+    }
+    (0..sh.grid)
+        .map(|g| {
+            (0..n_terms)
+                .map(|t| {
+                    if n[g][t] >= 2 {
+                        (m2[g][t] / (n[g][t] - 1) as f64).sqrt()
+                    } else {
+                        f64::NAN
+                    }
+                })
+                .collect()
+        })
+        .collect()
+}
+
 impl Summary {
     /// Index of the term with `key`.
     pub fn index(&self, key: &str) -> Option<usize> {

@@ -16,7 +16,7 @@ use serde::de::Error as _;
 use serde::ser::SerializeMap;
 use serde::{Deserialize, Deserializer, Serialize, Serializer};
 
-use crate::decompose::{self, Group, Role, TermInfo};
+use crate::decompose::{self, Group, Role, Summary, TermInfo};
 use crate::dgp::Response;
 use crate::fmt::{fmt_num, fmt_se, fmt_value};
 use crate::runner::Outcome;
@@ -364,6 +364,9 @@ impl<'de> Deserialize<'de> for PointRow {
 /// The grid value with the lowest expected loss.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct Best {
+    /// The family of the best candidate (runs with several models).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub family: Option<String>,
     /// Knob value.
     pub value: f64,
     /// Its expected loss.
@@ -417,6 +420,22 @@ pub struct ResultDoc {
     /// Whether a larger knob value is the simpler model (k-NN `k`, ridge `penalty`).
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub larger_is_simpler: bool,
+    /// The model sections, when there are several (`[[model]]`); rows then carry `family`.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub models: Vec<ModelEcho>,
+    /// The training sizes, when there are several; rows then carry `train_size`.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub sizes: Vec<usize>,
+    /// Several models: each family's best value ranked at every training size, with paired
+    /// differences to the overall best.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub ranking: Vec<Ranking>,
+    /// Several sizes: each family's learning curve.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub learning: Vec<LearningCurve>,
+    /// What `check` needs for paired and unpaired comparisons.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub uncertainty: Option<Uncertainty>,
 }
 
 impl ResultDoc {
@@ -448,6 +467,65 @@ impl ResultDoc {
             .map(TermDoc::from_info)
             .filter(|t| first.map_or(true, |p| p.has(&t.key)))
             .collect()
+    }
+
+    /// The families of the document's models, in order (one unless `[[model]]` was used).
+    pub fn families(&self) -> Vec<String> {
+        if self.models.is_empty() {
+            vec![self.family.clone()]
+        } else {
+            self.models.iter().map(|m| m.family.clone()).collect()
+        }
+    }
+
+    /// The largest training size's rows of `family` (the main curve of that family).
+    pub fn curve(&self, family: &str) -> Vec<PointRow> {
+        let largest = self.sizes.last().map(|&n| n as u64);
+        self.points
+            .iter()
+            .filter(|p| p.family.as_deref().map_or(true, |f| f == family))
+            .filter(|p| largest.is_none() || p.train_size == largest)
+            .cloned()
+            .collect()
+    }
+
+    /// The document of one family's curve at the largest training size, as a single-model,
+    /// single-size run would write it (pictures and tables of several-model runs use it).
+    pub fn single(&self, family: &str) -> ResultDoc {
+        if self.models.is_empty() && self.sizes.is_empty() {
+            return self.clone();
+        }
+        let mut d = self.clone();
+        let mut points = self.curve(family);
+        for p in &mut points {
+            p.family = None;
+            p.train_size = None;
+        }
+        if let Some(m) = self.models.iter().find(|m| m.family == family) {
+            d.family = m.family.clone();
+            d.knob = m.knob.clone();
+            d.larger_is_simpler = m.larger_is_simpler;
+            d.scenario.grid = m.grid.clone();
+            d.scenario.grid_kind = m.grid_kind.clone();
+        }
+        if let Some(&n) = self.sizes.last() {
+            d.scenario.train_size = n;
+        }
+        d.best = best_of(&points);
+        d.points = points;
+        d.models.clear();
+        d.sizes.clear();
+        d.ranking.clear();
+        d.learning.clear();
+        d.uncertainty = None;
+        d.selection = None;
+        d
+    }
+
+    /// The main curve: the first model at the largest training size (every row of a
+    /// single-model, single-size run).
+    pub fn main_curve(&self) -> Vec<PointRow> {
+        self.curve(&self.family)
     }
 
     /// The key of the first term with `role` in the main group (`bias_sq`, `bias`, ...).
@@ -609,18 +687,24 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
     }
 }
 
-/// The rows of model `i` of a finished run.
-pub fn rows(plan: &Plan, outcome: &Outcome, i: usize) -> Vec<PointRow> {
-    let s = &outcome.summaries[i];
+/// The rows of cell `c` (a training size and a model, see [`Plan::cell`]) of a finished run;
+/// rows carry `family` when the run has several models and `train_size` when it has several
+/// sizes.
+pub fn rows(plan: &Plan, outcome: &Outcome, c: usize) -> Vec<PointRow> {
+    let s = &outcome.summaries[c];
     let observed = outcome.prepared.table.is_some();
-    plan.models[i]
+    let (si, mi) = (c / plan.models.len(), c % plan.models.len());
+    let model = &plan.models[mi];
+    let family = (plan.models.len() > 1).then(|| model.family.name().to_string());
+    let train_size = (plan.sizes.len() > 1).then_some(plan.sizes[si] as u64);
+    model
         .grid
         .iter()
         .enumerate()
         .map(|(g, &value)| PointRow {
             value,
-            family: None,
-            train_size: None,
+            family: family.clone(),
+            train_size,
             terms: s
                 .terms
                 .iter()
@@ -639,11 +723,386 @@ pub fn rows(plan: &Plan, outcome: &Outcome, i: usize) -> Vec<PointRow> {
         .collect()
 }
 
+/// One model section of a run with several (`models`).
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct ModelEcho {
+    /// Family name.
+    pub family: String,
+    /// Knob name.
+    pub knob: String,
+    /// Grid values.
+    pub grid: Vec<f64>,
+    /// `list`, `range` or `log`.
+    pub grid_kind: String,
+    /// Fits per training set.
+    pub fit_seeds: usize,
+    /// Whether a larger knob value is the simpler model.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub larger_is_simpler: bool,
+}
+
+/// One candidate (family × knob value) in a ranking.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Candidate {
+    /// Family name.
+    pub family: String,
+    /// Knob name.
+    pub knob: String,
+    /// The family's best knob value at this size.
+    pub value: f64,
+    /// Its expected loss.
+    pub expected_loss: f64,
+    /// Its standard error.
+    pub stderr: Option<f64>,
+    /// Expected loss minus the overall best's (0 for the best itself).
+    pub difference: f64,
+    /// Jackknife standard error of the paired difference over replicate blocks (both are
+    /// estimated on the same training sets and evaluation points).
+    pub difference_stderr: Option<f64>,
+    /// The standard error the difference would have from two independent runs,
+    /// `√(se_a² + se_b²)`, for comparison.
+    pub unpaired_stderr: Option<f64>,
+}
+
+/// The candidates at one training size, best first.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Ranking {
+    /// Training size.
+    pub train_size: usize,
+    /// Each family's best value, ranked by expected loss.
+    pub candidates: Vec<Candidate>,
+}
+
+/// One family's best value at one training size.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct SizeBest {
+    /// Training size.
+    pub train_size: usize,
+    /// The best knob value at this size.
+    pub value: f64,
+    /// Its expected loss and standard error.
+    pub expected_loss: f64,
+    /// Standard error of `expected_loss`.
+    pub stderr: Option<f64>,
+    /// The bias-type term at the best value.
+    pub bias: f64,
+    /// The variance term at the best value.
+    pub variance: f64,
+    /// The noise term at the best value.
+    pub noise: f64,
+}
+
+/// What the largest size gained over the next one, paired over replicate blocks.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Gain {
+    /// The smaller size.
+    pub from: usize,
+    /// The larger size.
+    pub to: usize,
+    /// Lowest expected loss at `from` minus lowest at `to`.
+    pub drop: f64,
+    /// Its jackknife standard error (paired: nested prefixes of the same draws).
+    pub stderr: Option<f64>,
+    /// Variance's share of the reducible loss (expected loss minus noise) at `to`.
+    pub variance_share: f64,
+    /// One sentence reading it.
+    pub reading: String,
+}
+
+/// A family's learning curve: its best value and terms at each training size.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct LearningCurve {
+    /// Family name.
+    pub family: String,
+    /// Knob name.
+    pub knob: String,
+    /// One entry per training size, ascending.
+    pub sizes: Vec<SizeBest>,
+    /// The gain from the second-largest to the largest size.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub gain: Option<Gain>,
+}
+
+/// What `check` needs to compare two results paired or unpaired (#13): the evaluation points'
+/// fingerprint, the blocks, and per row the leave-one-block-out values of every term with a
+/// standard error and the spread of the per-point terms across the evaluation points.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct Uncertainty {
+    /// FNV-1a of the evaluation points and the truth there (or of a table's working rows).
+    pub eval_fingerprint: String,
+    /// Number of evaluation points.
+    pub eval_points: usize,
+    /// The seed of the evaluation points.
+    pub eval_seed: u64,
+    /// Replicate blocks (the jackknife groups).
+    pub blocks: u64,
+    /// One entry per point row, in the order of `points`.
+    pub rows: Vec<RowUncertainty>,
+}
+
+/// The uncertainty detail of one row.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct RowUncertainty {
+    /// Per term: the term computed with each block left out (packed: base64 of the little-endian
+    /// values, one per block).
+    pub leave_out: std::collections::BTreeMap<String, String>,
+    /// Per term: the standard deviation of the per-point term across the evaluation points.
+    pub point_sd: std::collections::BTreeMap<String, f64>,
+}
+
+impl RowUncertainty {
+    /// The leave-one-block-out values of `term`, unpacked (`blocks` values).
+    pub fn leave_out_of(&self, term: &str, blocks: usize) -> Option<Vec<f64>> {
+        let packed = self.leave_out.get(term)?;
+        crate::codec::unpack_floats(packed, blocks).ok()
+    }
+}
+
+/// The evaluation points' fingerprint of a prepared run.
+pub fn eval_fingerprint(outcome: &Outcome) -> String {
+    let p = &outcome.prepared;
+    let mut bytes: Vec<u8> = Vec::with_capacity(8 * (p.eval_x.len() + 2 * p.eval_truth.len()));
+    bytes.extend_from_slice(&(p.eval_x.nrows() as u64).to_le_bytes());
+    bytes.extend_from_slice(&(p.eval_x.ncols() as u64).to_le_bytes());
+    for v in p
+        .eval_x
+        .iter()
+        .chain(p.eval_truth.iter())
+        .chain(p.eval_sd.iter())
+        .chain(p.eval_probs.iter().flat_map(|a| a.iter()))
+    {
+        bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+    }
+    format!("fnv1a64:{:016x}", crate::codec::fnv1a64(&bytes))
+}
+
+fn uncertainty(plan: &Plan, outcome: &Outcome) -> Uncertainty {
+    let noise_var = outcome.prepared.noise_var();
+    let probs = outcome.prepared.flat_probs();
+    let target = outcome.prepared.target(&noise_var, &probs);
+    let mut rows_out = Vec::new();
+    for c in 0..plan.cells() {
+        let s = &outcome.summaries[c];
+        let spread = decompose::point_spread(plan.loss, &s.total, &target);
+        for g in 0..s.values.len() {
+            let mut leave_out = std::collections::BTreeMap::new();
+            let mut point_sd = std::collections::BTreeMap::new();
+            for (t, info) in s.terms.iter().enumerate() {
+                if !info.stderr {
+                    continue;
+                }
+                if !s.leave_out.is_empty() {
+                    let v: Vec<f64> = s.leave_out.iter().map(|l| l[g][t]).collect();
+                    leave_out.insert(info.key.to_string(), crate::codec::pack_floats(&v));
+                }
+                let sd = spread[g][t];
+                if sd.is_finite() {
+                    point_sd.insert(info.key.to_string(), sd);
+                }
+            }
+            rows_out.push(RowUncertainty {
+                leave_out,
+                point_sd,
+            });
+        }
+    }
+    Uncertainty {
+        eval_fingerprint: eval_fingerprint(outcome),
+        eval_points: outcome.prepared.points(),
+        eval_seed: plan.eval_seed,
+        blocks: plan.blocks,
+        rows: rows_out,
+    }
+}
+
+/// The jackknife standard error of the paired difference `a − b` of term `t` between grid value
+/// `ga` of summary `a` and `gb` of summary `b` (same blocks).
+fn paired_se(a: &Summary, ga: usize, b: &Summary, gb: usize, t: usize) -> Option<f64> {
+    if a.leave_out.is_empty() || a.leave_out.len() != b.leave_out.len() {
+        return None;
+    }
+    let d: Vec<f64> = a
+        .leave_out
+        .iter()
+        .zip(&b.leave_out)
+        .map(|(x, y)| x[ga][t] - y[gb][t])
+        .collect();
+    finite(decompose::jackknife_se(&d))
+}
+
+/// The grid index of the lowest expected loss of a summary (first on exact ties).
+fn best_index(s: &Summary) -> usize {
+    let el = s.index("expected_loss").unwrap_or(0);
+    let mut bi = 0;
+    for (g, row) in s.values.iter().enumerate() {
+        if row[el] < s.values[bi][el] {
+            bi = g;
+        }
+    }
+    bi
+}
+
+/// The ranking of each family's best value at every training size, with paired differences.
+fn rankings(plan: &Plan, outcome: &Outcome) -> Vec<Ranking> {
+    let nm = plan.models.len();
+    plan.sizes
+        .iter()
+        .enumerate()
+        .map(|(si, &n)| {
+            let cells: Vec<(usize, usize)> = (0..nm)
+                .map(|i| {
+                    let s = &outcome.summaries[plan.cell(si, i)];
+                    (i, best_index(s))
+                })
+                .collect();
+            let el_of = |i: usize, g: usize| {
+                let s = &outcome.summaries[plan.cell(si, i)];
+                s.value(g, "expected_loss")
+            };
+            let (bi, bg) = *cells
+                .iter()
+                .min_by(|a, b| el_of(a.0, a.1).total_cmp(&el_of(b.0, b.1)))
+                .expect("at least one model");
+            let best = &outcome.summaries[plan.cell(si, bi)];
+            let t = best.index("expected_loss").unwrap_or(0);
+            let mut cands: Vec<Candidate> = cells
+                .iter()
+                .map(|&(i, g)| {
+                    let s = &outcome.summaries[plan.cell(si, i)];
+                    let m = &plan.models[i];
+                    let se = finite(s.se(g, "expected_loss"));
+                    let se_best = finite(best.se(bg, "expected_loss"));
+                    let is_best = i == bi;
+                    Candidate {
+                        family: m.family.name().into(),
+                        knob: m.family.knob().into(),
+                        value: m.grid[g],
+                        expected_loss: s.value(g, "expected_loss"),
+                        stderr: se,
+                        difference: s.value(g, "expected_loss") - best.value(bg, "expected_loss"),
+                        difference_stderr: if is_best {
+                            Some(0.0)
+                        } else {
+                            paired_se(s, g, best, bg, t)
+                        },
+                        unpaired_stderr: if is_best {
+                            Some(0.0)
+                        } else {
+                            match (se, se_best) {
+                                (Some(a), Some(b)) => Some((a * a + b * b).sqrt()),
+                                _ => None,
+                            }
+                        },
+                    }
+                })
+                .collect();
+            cands.sort_by(|a, b| a.expected_loss.total_cmp(&b.expected_loss));
+            Ranking {
+                train_size: n,
+                candidates: cands,
+            }
+        })
+        .collect()
+}
+
+/// Each family's learning curve, with the gain of the largest size read in a sentence.
+fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
+    let nz = plan.sizes.len();
+    plan.models
+        .iter()
+        .enumerate()
+        .map(|(i, m)| {
+            let pick = |s: &Summary, role: Role| {
+                s.terms
+                    .iter()
+                    .position(|t| t.role == role && t.group == Group::Main)
+            };
+            let sizes: Vec<SizeBest> = plan
+                .sizes
+                .iter()
+                .enumerate()
+                .map(|(si, &n)| {
+                    let s = &outcome.summaries[plan.cell(si, i)];
+                    let g = best_index(s);
+                    let at = |r: Role| pick(s, r).map_or(f64::NAN, |t| s.values[g][t]);
+                    SizeBest {
+                        train_size: n,
+                        value: m.grid[g],
+                        expected_loss: s.value(g, "expected_loss"),
+                        stderr: finite(s.se(g, "expected_loss")),
+                        bias: at(Role::Bias),
+                        variance: at(Role::Variance),
+                        noise: at(Role::Noise),
+                    }
+                })
+                .collect();
+            let gain = (nz >= 2).then(|| {
+                let (a, b) = (
+                    &outcome.summaries[plan.cell(nz - 2, i)],
+                    &outcome.summaries[plan.cell(nz - 1, i)],
+                );
+                let (ga, gb) = (best_index(a), best_index(b));
+                let t = a.index("expected_loss").unwrap_or(0);
+                let drop = a.value(ga, "expected_loss") - b.value(gb, "expected_loss");
+                let se = paired_se(a, ga, b, gb, t);
+                let last = sizes.last().expect("a size");
+                let reducible = last.expected_loss - if last.noise.is_finite() { last.noise } else { 0.0 };
+                let share = last.variance / reducible;
+                let (from, to) = (plan.sizes[nz - 2], plan.sizes[nz - 1]);
+                let clear = se.is_some_and(|s| drop > 2.0 * s);
+                let fam = m.family.name();
+                let se_text = se.map(|s| format!(" ± {}", fmt_se(s))).unwrap_or_default();
+                let mut reading = format!(
+                    "From {from} to {to} rows the lowest expected loss of {fam} falls by {}{se_text} (paired over replicate blocks); ",
+                    fmt_num(drop)
+                );
+                if clear && share >= 0.5 {
+                    reading.push_str(&format!(
+                        "variance is {:.0}% of the reducible loss at {to} rows, so more data should still help.",
+                        100.0 * share
+                    ));
+                } else if clear {
+                    reading.push_str(&format!(
+                        "variance is only {:.0}% of the reducible loss at {to} rows: more data helps, but a more flexible model would help more.",
+                        100.0 * share
+                    ));
+                } else {
+                    reading.push_str(&format!(
+                        "no clear gain at this precision; variance is {:.0}% of the reducible loss at {to} rows.",
+                        100.0 * share
+                    ));
+                }
+                Gain {
+                    from,
+                    to,
+                    drop,
+                    stderr: se,
+                    variance_share: share,
+                    reading,
+                }
+            });
+            LearningCurve {
+                family: m.family.name().into(),
+                knob: m.family.knob().into(),
+                sizes,
+                gain,
+            }
+        })
+        .collect()
+}
+
 /// Builds the result document of a finished run.
 pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     let model = plan.model();
-    let points = rows(plan, outcome, 0);
-    let best = best_of(&points);
+    let nm = plan.models.len();
+    let last = plan.sizes.len() - 1;
+    let mut points: Vec<PointRow> = Vec::new();
+    for c in 0..plan.cells() {
+        points.extend(rows(plan, outcome, c));
+    }
+    // The curve read by `best` and the reading: the first model at the largest size.
+    let main_rows = rows(plan, outcome, plan.cell(last, 0));
+    let mut best = best_of(&main_rows);
     let bias_key = outcome
         .summary()
         .terms
@@ -655,11 +1114,46 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         model.family.knob(),
         plan.loss.bias_word(),
         bias_key,
-        &points,
+        &main_rows,
         &best,
     );
+    let ranking = (nm > 1).then(|| rankings(plan, outcome));
+    if let Some(r) = ranking.as_ref().and_then(|r| r.last()) {
+        let top = &r.candidates[0];
+        best = Best {
+            family: Some(top.family.clone()),
+            value: top.value,
+            expected_loss: top.expected_loss,
+            stderr: top.stderr,
+            within_one_se: Vec::new(),
+        };
+        best.within_one_se = points
+            .iter()
+            .filter(|p| {
+                p.family.as_deref() == Some(top.family.as_str())
+                    && p.train_size.map_or(true, |n| n as usize == r.train_size)
+                    && p.expected_loss() <= top.expected_loss + top.stderr.unwrap_or(0.0)
+            })
+            .map(|p| p.value)
+            .collect();
+        reading = ranking_reading(r);
+    }
+    let learning_curves = (plan.sizes.len() > 1).then(|| learning(plan, outcome));
+    if let Some(curves) = &learning_curves {
+        for c in curves {
+            if let Some(g) = &c.gain {
+                reading.push(' ');
+                reading.push_str(&g.reading);
+            }
+        }
+    }
     let selection = match (&plan.audit, &outcome.audit) {
-        (Some(a), Some(c)) => Some(selection::selection(a, &c.counts, &points, &best)),
+        (Some(a), Some(c)) => {
+            let candidates: Vec<PointRow> = (0..nm)
+                .flat_map(|i| rows(plan, outcome, plan.cell(last, i)))
+                .collect();
+            Some(selection::selection(a, &c.counts, &candidates, &best))
+        }
         _ => None,
     };
     let (mut table, mut noise_estimate, mut scheme_note) = (None, None, None);
@@ -680,7 +1174,11 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
                 .iter()
                 .filter(|&&c| c < 2)
                 .count(),
-            resample: tp.scheme.name().into(),
+            resample: if tp.sizes.is_some() {
+                "nested".into()
+            } else {
+                tp.scheme.name().into()
+            },
             train_size: tp.train_size(),
             held_out_share: share,
             held_out_share_stderr: finite(share_se),
@@ -692,8 +1190,23 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             method: n.method.name().into(),
             about: n.method.describe().into(),
         });
-        scheme_note = Some(tp.scheme.note(tp.work.len()));
+        scheme_note = Some(tp.note());
     }
+    let models = if nm > 1 {
+        plan.models
+            .iter()
+            .map(|m| ModelEcho {
+                family: m.family.name().into(),
+                knob: m.family.knob().into(),
+                grid: m.grid.clone(),
+                grid_kind: m.grid_kind.name().into(),
+                fit_seeds: m.fit_seeds,
+                larger_is_simpler: m.family.larger_is_simpler(),
+            })
+            .collect()
+    } else {
+        Vec::new()
+    };
     ResultDoc {
         format: FORMAT.into(),
         version: env!("CARGO_PKG_VERSION").into(),
@@ -717,7 +1230,53 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             .map(TermDoc::from_info)
             .collect(),
         larger_is_simpler: model.family.larger_is_simpler(),
+        models,
+        sizes: if plan.sizes.len() > 1 {
+            plan.sizes.clone()
+        } else {
+            Vec::new()
+        },
+        ranking: ranking.unwrap_or_default(),
+        learning: learning_curves.unwrap_or_default(),
+        uncertainty: Some(uncertainty(plan, outcome)),
     }
+}
+
+/// The reading of a ranking: the best candidate, and how far each other family's best is behind
+/// it (paired standard errors).
+pub fn ranking_reading(r: &Ranking) -> String {
+    let top = &r.candidates[0];
+    let mut parts = vec![format!(
+        "At {} training rows the best candidate is {} {} = {} (expected loss {}{}).",
+        r.train_size,
+        top.family,
+        top.knob,
+        fmt_value(top.value),
+        fmt_num(top.expected_loss),
+        top.stderr
+            .map(|s| format!(" ± {}", fmt_se(s)))
+            .unwrap_or_default()
+    )];
+    for c in &r.candidates[1..] {
+        let se = c
+            .difference_stderr
+            .map(|s| format!(" ± {}", fmt_se(s)))
+            .unwrap_or_default();
+        let clear = c.difference_stderr.is_some_and(|s| c.difference > 2.0 * s);
+        parts.push(format!(
+            "{} {} = {} is {}{se} worse{}.",
+            c.family,
+            c.knob,
+            fmt_value(c.value),
+            fmt_num(c.difference),
+            if clear {
+                ""
+            } else {
+                " (within two standard errors of the paired difference: not clearly worse)"
+            }
+        ));
+    }
+    parts.join(" ")
 }
 
 /// The lowest expected loss (first one on exact ties) and the values within one SE of it.
@@ -736,6 +1295,7 @@ pub fn best_of(points: &[PointRow]) -> Best {
         .map(|p| p.value)
         .collect();
     Best {
+        family: b.family.clone(),
         value: b.value,
         expected_loss: b.expected_loss(),
         stderr: se,

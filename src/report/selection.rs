@@ -29,9 +29,21 @@ pub struct Selection {
     pub share_within_one_se: f64,
     /// Share of replicates choosing the oracle value itself.
     pub share_oracle: f64,
+    /// Several models: the candidate of each count (`family knob = value`), in the order of
+    /// `chosen_counts`.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub candidates: Vec<String>,
 }
 
-/// Builds the selection section from the summed counts and the run's per-grid rows.
+fn same_family(p: &PointRow, best: &Best) -> bool {
+    match (&p.family, &best.family) {
+        (Some(a), Some(b)) => a == b,
+        _ => true,
+    }
+}
+
+/// Builds the selection section from the summed counts and the rows of the candidates, in the
+/// order of the counts (with several models: every model's grid at the largest size, end to end).
 pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &Best) -> Selection {
     let total: u64 = counts.iter().sum();
     let el: Vec<f64> = points.iter().map(|p| p.expected_loss()).collect();
@@ -68,13 +80,13 @@ pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &
     let within: u64 = points
         .iter()
         .zip(counts)
-        .filter(|(p, _)| best.within_one_se.contains(&p.value))
+        .filter(|(p, _)| same_family(p, best) && best.within_one_se.contains(&p.value))
         .map(|(_, &c)| c)
         .sum();
     let at_oracle: u64 = points
         .iter()
         .zip(counts)
-        .filter(|(p, _)| p.value == best.value)
+        .filter(|(p, _)| same_family(p, best) && p.value == best.value)
         .map(|(_, &c)| c)
         .sum();
     Selection {
@@ -86,6 +98,20 @@ pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &
         q90_excess_loss: q90,
         share_within_one_se: share(within),
         share_oracle: share(at_oracle),
+        candidates: if points.iter().any(|p| p.family.is_some()) {
+            points
+                .iter()
+                .map(|p| {
+                    format!(
+                        "{} {}",
+                        p.family.as_deref().unwrap_or(""),
+                        fmt_value(p.value)
+                    )
+                })
+                .collect()
+        } else {
+            Vec::new()
+        },
     }
 }
 

@@ -121,34 +121,10 @@ pub fn render(doc: &ResultDoc) -> String {
     render_view(doc, View::Domingos)
 }
 
-/// Renders the table with the chosen view.
-pub fn render_view(doc: &ResultDoc, view: View) -> String {
-    let mut out = String::new();
-    out.push_str(&format!(
-        "{} · family {} (knob {}) · {} loss · R = {} replicates · seed {}\n",
-        doc.scenario.name, doc.family, doc.knob, doc.loss, doc.replicates, doc.seed
-    ));
-    if !doc.scenario.about.is_empty() {
-        out.push_str(&doc.scenario.about);
-        out.push('\n');
-    }
-    out.push('\n');
-    let terms = shown_terms(doc, view);
-    let mut header: Vec<String> = vec![doc.knob.clone()];
-    header.extend(terms.iter().map(|t| t.label.clone()));
-    let mut rows: Vec<Vec<String>> = Vec::new();
-    for p in &doc.points {
-        let mark = if p.value == doc.best.value {
-            " *"
-        } else {
-            "  "
-        };
-        let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
-        r.extend(terms.iter().map(|t| cell(p, t)));
-        rows.push(r);
-    }
+/// Lays out header and rows in aligned columns.
+fn layout(header: &[String], rows: &[Vec<String>]) -> String {
     let mut widths: Vec<usize> = header.iter().map(|h| h.chars().count()).collect();
-    for r in &rows {
+    for r in rows {
         for (i, c) in r.iter().enumerate() {
             widths[i] = widths[i].max(c.chars().count());
         }
@@ -163,9 +139,131 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
         s.push('\n');
         s
     };
-    out.push_str(&line(&header));
-    for r in &rows {
+    let mut out = line(header);
+    for r in rows {
         out.push_str(&line(r));
+    }
+    out
+}
+
+/// The table of one curve (rows of one family at one size), the best row marked.
+fn curve_table(doc: &ResultDoc, terms: &[TermDoc], knob: &str, rows: &[PointRow]) -> String {
+    let best = rows
+        .iter()
+        .enumerate()
+        .min_by(|a, b| a.1.expected_loss().total_cmp(&b.1.expected_loss()))
+        .map(|(i, _)| i);
+    let _ = doc;
+    let mut header: Vec<String> = vec![knob.to_string()];
+    header.extend(terms.iter().map(|t| t.label.clone()));
+    let cells: Vec<Vec<String>> = rows
+        .iter()
+        .enumerate()
+        .map(|(i, p)| {
+            let mark = if Some(i) == best { " *" } else { "  " };
+            let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
+            r.extend(terms.iter().map(|t| cell(p, t)));
+            r
+        })
+        .collect();
+    layout(&header, &cells)
+}
+
+/// Renders the table with the chosen view. A run with several models or training sizes gets
+/// one table per family (at the largest size), a learning-curve table per family, and the
+/// ranking in the reading.
+pub fn render_view(doc: &ResultDoc, view: View) -> String {
+    let mut out = String::new();
+    let several = !doc.models.is_empty() || !doc.sizes.is_empty();
+    let families = doc.families();
+    let family_words = if doc.models.is_empty() {
+        format!("family {} (knob {})", doc.family, doc.knob)
+    } else {
+        format!(
+            "families {}",
+            doc.models
+                .iter()
+                .map(|m| format!("{} (knob {})", m.family, m.knob))
+                .collect::<Vec<_>>()
+                .join(", ")
+        )
+    };
+    out.push_str(&format!(
+        "{} · {family_words} · {} loss · R = {} replicates · seed {}\n",
+        doc.scenario.name, doc.loss, doc.replicates, doc.seed
+    ));
+    if !doc.scenario.about.is_empty() {
+        out.push_str(&doc.scenario.about);
+        out.push('\n');
+    }
+    out.push('\n');
+    let terms = shown_terms(doc, view);
+    if !several {
+        let rows: Vec<PointRow> = doc.points.clone();
+        let mut header: Vec<String> = vec![doc.knob.clone()];
+        header.extend(terms.iter().map(|t| t.label.clone()));
+        let cells: Vec<Vec<String>> = rows
+            .iter()
+            .map(|p| {
+                let mark = if p.value == doc.best.value {
+                    " *"
+                } else {
+                    "  "
+                };
+                let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
+                r.extend(terms.iter().map(|t| cell(p, t)));
+                r
+            })
+            .collect();
+        out.push_str(&layout(&header, &cells));
+    } else {
+        for (i, f) in families.iter().enumerate() {
+            let knob = doc
+                .models
+                .get(i)
+                .map_or(doc.knob.clone(), |m| m.knob.clone());
+            let size = doc
+                .sizes
+                .last()
+                .map(|n| format!(" at {n} training rows"))
+                .unwrap_or_default();
+            out.push_str(&format!("{f}{size}:\n"));
+            out.push_str(&curve_table(doc, &terms, &knob, &doc.curve(f)));
+            out.push('\n');
+        }
+        for c in &doc.learning {
+            out.push_str(&format!(
+                "learning curve of {} (its best {} at each training size):\n",
+                c.family, c.knob
+            ));
+            let header: Vec<String> = [
+                "train_size",
+                c.knob.as_str(),
+                "expected loss",
+                "bias",
+                "variance",
+                "noise",
+            ]
+            .iter()
+            .map(|s| s.to_string())
+            .collect();
+            let rows: Vec<Vec<String>> = c
+                .sizes
+                .iter()
+                .map(|s| {
+                    vec![
+                        s.train_size.to_string(),
+                        fmt_value(s.value),
+                        with_se(s.expected_loss, s.stderr),
+                        fmt_num(s.bias),
+                        fmt_num(s.variance),
+                        fmt_num(s.noise),
+                    ]
+                })
+                .collect();
+            out.push_str(&layout(&header, &rows));
+            out.push('\n');
+        }
     }
     out.push('\n');
     out.push_str(&legend(doc, &terms));

@@ -125,14 +125,16 @@ pub fn check_predictions(
     Ok(())
 }
 
-/// Runs the replicates of block `b` sequentially: the replicate loop of every source.
+/// Runs the replicates of block `b` sequentially: the replicate loop of every source. Each
+/// replicate draws its data once (for the largest training size); every (training size, model)
+/// cell fits a nested prefix of it, `fit_seeds` times.
 pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Error> {
     let (start, end) = plan.block_range(b);
     let points = prep.points();
     let k = plan.task.classes();
     let needs_probs = plan.loss.needs_probs();
-    let mut accs: Vec<Acc> = (0..plan.models.len())
-        .map(|i| Acc::new(plan.loss, plan.shape(i, points)))
+    let mut accs: Vec<Acc> = (0..plan.cells())
+        .map(|c| Acc::new(plan.loss, plan.shape(c % plan.models.len(), points)))
         .collect();
     let mut audit_acc = plan
         .audit
@@ -145,64 +147,70 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
             let c = audit::choose(plan, a, d.x.view(), d.y.view(), r)?;
             counts.counts[c] += 1;
         }
-        if let (Some((s, s2)), Some(h)) = (held_share.as_mut(), &d.held) {
-            let share = h.len() as f64 / points as f64;
-            *s += share;
-            *s2 += share * share;
-        }
-        let m = d.eval.nrows();
-        for (i, model) in plan.models.iter().enumerate() {
-            let g = model.grid.len();
-            let fits = model.fit_seeds;
-            let caps = model.family.caps(plan.task);
-            let mut values = Array3::<f64>::zeros((fits, g, m));
-            let mut probs = Array4::<f64>::zeros((fits, g, m, if needs_probs { k } else { 0 }));
-            let mut diversity = Array3::<f64>::zeros((fits, g, if caps.ensemble { m } else { 0 }));
-            if m > 0 {
-                for s in 0..fits {
-                    let input = FitInput {
-                        x: d.x.view(),
-                        y: d.y.view(),
-                        eval: d.eval.view(),
-                        task: plan.task,
-                        seed: FitSeed {
-                            seed: plan.seed,
-                            replicate: r,
-                            fold: 0,
-                            copy: s as u32,
-                        },
-                    };
-                    let fit_err = |message: String| Error::Fit {
-                        replicate: r,
-                        family: model.family.name().to_string(),
-                        message,
-                    };
-                    let out = Out {
-                        values: values.index_axis_mut(Axis(0), s),
-                        probs: needs_probs.then(|| probs.index_axis_mut(Axis(0), s)),
-                        diversity: caps.ensemble.then(|| diversity.index_axis_mut(Axis(0), s)),
-                    };
-                    model
-                        .family
-                        .fit_predict(&input, &model.grid, out)
-                        .map_err(|e| fit_err(e.0))?;
-                    check_predictions(
-                        plan,
-                        model,
-                        values.index_axis(Axis(0), s),
-                        needs_probs.then(|| probs.index_axis(Axis(0), s)),
-                    )
-                    .map_err(fit_err)?;
+        for (si, &n) in plan.sizes.iter().enumerate() {
+            let sd = d.size(n, prep);
+            if si + 1 == plan.sizes.len() {
+                if let (Some((s, s2)), Some(h)) = (held_share.as_mut(), &sd.held) {
+                    let share = h.len() as f64 / points as f64;
+                    *s += share;
+                    *s2 += share * share;
                 }
             }
-            let batch = Batch {
-                held: d.held.as_deref(),
-                values: values.view(),
-                probs: needs_probs.then(|| probs.view()),
-                diversity: caps.ensemble.then(|| diversity.view()),
-                response: d.response.as_slice().expect("owned contiguous array"),
-            };
-            accs[i].push(plan.loss, &batch);
+            let m = sd.eval.nrows();
+            for (i, model) in plan.models.iter().enumerate() {
+                let g = model.grid.len();
+                let fits = model.fit_seeds;
+                let caps = model.family.caps(plan.task);
+                let mut values = Array3::<f64>::zeros((fits, g, m));
+                let mut probs = Array4::<f64>::zeros((fits, g, m, if needs_probs { k } else { 0 }));
+                let mut diversity =
+                    Array3::<f64>::zeros((fits, g, if caps.ensemble { m } else { 0 }));
+                if m > 0 {
+                    for s in 0..fits {
+                        let input = FitInput {
+                            x: sd.x,
+                            y: sd.y,
+                            eval: sd.eval.view(),
+                            task: plan.task,
+                            seed: FitSeed {
+                                seed: plan.seed,
+                                replicate: r,
+                                fold: 0,
+                                copy: s as u32,
+                            },
+                        };
+                        let fit_err = |message: String| Error::Fit {
+                            replicate: r,
+                            family: model.family.name().to_string(),
+                            message,
+                        };
+                        let out = Out {
+                            values: values.index_axis_mut(Axis(0), s),
+                            probs: needs_probs.then(|| probs.index_axis_mut(Axis(0), s)),
+                            diversity: caps.ensemble.then(|| diversity.index_axis_mut(Axis(0), s)),
+                        };
+                        model
+                            .family
+                            .fit_predict(&input, &model.grid, out)
+                            .map_err(|e| fit_err(e.0))?;
+                        check_predictions(
+                            plan,
+                            model,
+                            values.index_axis(Axis(0), s),
+                            needs_probs.then(|| probs.index_axis(Axis(0), s)),
+                        )
+                        .map_err(fit_err)?;
+                    }
+                }
+                let batch = Batch {
+                    held: sd.held.as_deref(),
+                    values: values.view(),
+                    probs: needs_probs.then(|| probs.view()),
+                    diversity: caps.ensemble.then(|| diversity.view()),
+                    response: sd.response.as_slice().expect("owned contiguous array"),
+                };
+                accs[plan.cell(si, i)].push(plan.loss, &batch);
+            }
         }
     }
     Ok(BlockResult {
@@ -318,19 +326,23 @@ pub fn schedule(
 pub struct Outcome {
     /// Fixed inputs of the run.
     pub prepared: Prepared,
-    /// The decomposition of each model, in model order.
+    /// The decomposition of each (training size, model) cell, in the order of
+    /// [`Plan::cell`] (sizes outer, models inner).
     pub summaries: Vec<Summary>,
     /// Selection audit counts summed over blocks (with `[audit]`).
     pub audit: Option<AuditAcc>,
     /// Table sources: the mean share of working rows held out per replicate, and its standard
     /// error over replicates.
     pub held_share: Option<(f64, f64)>,
+    /// Number of models (the stride of `summaries`).
+    pub models: usize,
 }
 
 impl Outcome {
-    /// The first (or only) model's decomposition.
+    /// The decomposition of the first model at the largest training size (the only one of a
+    /// single-model, single-size run).
     pub fn summary(&self) -> &Summary {
-        &self.summaries[0]
+        &self.summaries[self.summaries.len() - self.models]
     }
 }
 
@@ -352,9 +364,10 @@ pub fn summarize(
     let noise_var = prepared.noise_var();
     let probs = prepared.flat_probs();
     let target = prepared.target(&noise_var, &probs);
-    let mut summaries = Vec::with_capacity(plan.models.len());
-    for (i, model) in plan.models.iter().enumerate() {
-        let accs: Vec<Acc> = blocks.values().map(|b| b.accs[i].clone()).collect();
+    let mut summaries = Vec::with_capacity(plan.cells());
+    for c in 0..plan.cells() {
+        let model = &plan.models[c % plan.models.len()];
+        let accs: Vec<Acc> = blocks.values().map(|b| b.accs[c].clone()).collect();
         let s = decompose::summarize(plan.loss, &accs, &target)
             .ok_or_else(|| Error::Usage("no replicates to summarize".into()))?;
         for (g, row) in s.values.iter().enumerate() {
@@ -399,6 +412,7 @@ pub fn summarize(
         summaries,
         audit,
         held_share,
+        models: plan.models.len(),
     })
 }
 

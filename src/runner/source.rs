@@ -188,8 +188,9 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     }
 }
 
-/// One replicate's training set and the points it evaluates. A fixed design and the fixed
-/// evaluation points are borrowed, not copied.
+/// One replicate's training set (for the largest training size) and the points it evaluates. A
+/// fixed design and the fixed evaluation points are borrowed, not copied. Smaller training sizes
+/// use nested prefixes of it ([`Draw::size`]).
 #[derive(Debug)]
 pub struct Draw<'a> {
     /// Training inputs `n × p`.
@@ -203,6 +204,52 @@ pub struct Draw<'a> {
     /// The response seen at each evaluated point: a fresh draw (synthetic) or the observed
     /// value (table).
     pub response: Array1<f64>,
+    /// A table's learning curve: the random order of the working rows (size n trains on the
+    /// first n and is evaluated on the rest).
+    pub order: Option<Vec<usize>>,
+}
+
+/// The training set and evaluated points of one training size within a replicate's draw.
+#[derive(Debug)]
+pub struct SizeDraw<'d> {
+    /// Training inputs.
+    pub x: ndarray::ArrayView2<'d, f64>,
+    /// Training responses.
+    pub y: ndarray::ArrayView1<'d, f64>,
+    /// The evaluated point indices (`None`: every evaluation point).
+    pub held: Option<std::borrow::Cow<'d, [usize]>>,
+    /// Inputs of the evaluated points.
+    pub eval: std::borrow::Cow<'d, Array2<f64>>,
+    /// Responses seen at the evaluated points.
+    pub response: std::borrow::Cow<'d, Array1<f64>>,
+}
+
+impl<'a> Draw<'a> {
+    /// The training set of size `n` (a nested prefix of the draw) and the points it evaluates.
+    pub fn size<'d>(&'d self, n: usize, prep: &'d Prepared) -> SizeDraw<'d> {
+        use ndarray::s;
+        use std::borrow::Cow;
+        match (&self.order, &prep.table) {
+            (Some(order), Some(t)) => {
+                let mut held: Vec<usize> = order[n..].to_vec();
+                held.sort_unstable();
+                SizeDraw {
+                    x: self.x.slice(s![..n, ..]),
+                    y: self.y.slice(s![..n]),
+                    eval: Cow::Owned(t.work.x.select(Axis(0), &held)),
+                    response: Cow::Owned(t.work.y.select(Axis(0), &held)),
+                    held: Some(Cow::Owned(held)),
+                }
+            }
+            _ => SizeDraw {
+                x: self.x.slice(s![..n, ..]),
+                y: self.y.slice(s![..n]),
+                held: self.held.as_deref().map(Cow::Borrowed),
+                eval: Cow::Borrowed(self.eval.as_ref()),
+                response: Cow::Borrowed(&self.response),
+            },
+        }
+    }
 }
 
 /// Replicate `r`'s draw.
@@ -221,6 +268,18 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
                 .expect("a table plan is prepared with its rows")
                 .work;
             let n = work.rows();
+            if tp.sizes.is_some() {
+                // A learning curve: one random order of the rows; sizes take nested prefixes.
+                let order = crate::rng::permutation(n, &mut rng);
+                return Ok(Draw {
+                    x: Cow::Owned(work.x.select(Axis(0), &order)),
+                    y: work.y.select(Axis(0), &order),
+                    eval: Cow::Owned(Array2::zeros((0, work.x.ncols()))),
+                    response: Array1::zeros(0),
+                    held: None,
+                    order: Some(order),
+                });
+            }
             let (train, held) = resample::draw(tp.scheme, n, &mut rng);
             return Ok(Draw {
                 x: Cow::Owned(work.x.select(Axis(0), &train)),
@@ -228,6 +287,7 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
                 eval: Cow::Owned(work.x.select(Axis(0), &held)),
                 response: work.y.select(Axis(0), &held),
                 held: Some(held),
+                order: None,
             });
         }
     };
@@ -242,6 +302,7 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
                 held: None,
                 eval,
                 response: fresh,
+                order: None,
             })
         }
         (None, None) => {
@@ -256,6 +317,7 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
                 held: None,
                 eval,
                 response: fresh,
+                order: None,
             })
         }
         (Some(eval_probs), fixed) => {
@@ -275,6 +337,7 @@ fn draw_inner<'a>(plan: &Plan, prep: &'a Prepared, r: u64) -> Result<Draw<'a>, E
                 held: None,
                 eval,
                 response: fresh,
+                order: None,
             })
         }
     }

@@ -74,8 +74,10 @@ impl GridKind {
 pub struct SyntheticPlan {
     /// The process.
     pub process: Synthetic,
-    /// Training set size n.
+    /// Training set size n (the largest of `sizes`).
     pub train_size: usize,
+    /// Every training size, ascending (one value unless a learning curve).
+    pub sizes: Vec<usize>,
     /// Number of evaluation points m (equals n when evaluating at the design).
     pub eval_size: usize,
     /// Random or fixed design.
@@ -139,6 +141,9 @@ pub struct Plan {
     pub source: Source,
     /// The model sections (at least one), all fitted on the same training sets.
     pub models: Vec<ModelPlan>,
+    /// Training sizes, ascending: one, or several for a learning curve (every size is fitted on
+    /// a nested prefix of one draw per replicate).
+    pub sizes: Vec<usize>,
     /// The loss.
     pub loss: &'static dyn Loss,
     /// Regression or classification.
@@ -159,9 +164,9 @@ impl std::fmt::Debug for Plan {
     }
 }
 
-struct Ctx<'a> {
-    file: &'a str,
-    src: &'a str,
+pub(crate) struct Ctx<'a> {
+    pub(crate) file: &'a str,
+    pub(crate) src: &'a str,
 }
 
 impl Ctx<'_> {
@@ -395,7 +400,12 @@ impl Plan {
             Source::Synthetic(s) => (s.train_size, s.process.inputs.len()),
             Source::Table(t) => (t.train_size(), t.table.x.ncols()),
         };
-        let models = build_models(&cx, model_spec, base, task, loss, n_train, n_inputs)?;
+        let sizes = match &source {
+            Source::Synthetic(s) => s.sizes.clone(),
+            Source::Table(t) => t.sizes.clone().unwrap_or_else(|| vec![t.train_size()]),
+        };
+        let smallest = sizes[0];
+        let models = build_models(&cx, model_spec, base, task, loss, smallest, n_inputs)?;
         let audit = match &spec.audit {
             Some(a) => Some(super::audit::from_spec(
                 a,
@@ -432,7 +442,7 @@ impl Plan {
             Source::Table(t) => t.table.x.nrows(),
         };
         let mut bytes = 0.0;
-        for m in &models {
+        for m in models.iter().flat_map(|m| sizes.iter().map(move |_| m)) {
             let shape = Shape {
                 grid: m.grid.len(),
                 points: n_eval,
@@ -465,6 +475,7 @@ impl Plan {
             blocks,
             source,
             models,
+            sizes,
             loss,
             task,
             audit,
@@ -476,7 +487,7 @@ impl Plan {
         &self.models[0]
     }
 
-    /// Number of training rows per replicate.
+    /// Number of training rows per replicate (the largest training size).
     pub fn train_size(&self) -> usize {
         match &self.source {
             Source::Synthetic(s) => s.train_size,
@@ -490,6 +501,16 @@ impl Plan {
             Source::Synthetic(s) => s.process.inputs.len(),
             Source::Table(t) => t.table.x.ncols(),
         }
+    }
+
+    /// Number of (training size, model) cells: one accumulator each per block.
+    pub fn cells(&self) -> usize {
+        self.sizes.len() * self.models.len()
+    }
+
+    /// The index of (size `s`, model `i`) among the cells.
+    pub fn cell(&self, s: usize, i: usize) -> usize {
+        s * self.models.len() + i
     }
 
     /// The accumulator shape of model `i` with `points` evaluation points.
@@ -542,7 +563,7 @@ impl Plan {
             ));
         }
         family
-            .check_grid(&self.models[0].grid, self.train_size(), self.n_inputs())
+            .check_grid(&self.models[0].grid, self.sizes[0], self.n_inputs())
             .map_err(|m| err("model.grid", m))?;
         self.models[0].family = family;
         Ok(self)
@@ -1091,8 +1112,8 @@ fn reject_twin_keys(cx: &Ctx<'_>, d: &DataSpec) -> Result<(), ScenarioError> {
 }
 
 fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError> {
-    let train_size = match &d.train_size {
-        Some(n) => cx.positive(n, "data.train_size", 2)? as usize,
+    let sizes = match &d.train_size {
+        Some(n) => parse_sizes(cx, n, usize::MAX)?,
         None => {
             return Err(cx.err(
                 Some(d.source.span()),
@@ -1101,6 +1122,7 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             ))
         }
     };
+    let train_size = *sizes.last().expect("at least one size");
     let design = match d.design.as_ref().map(|s| s.get_ref().as_str()) {
         None | Some("random") => Design::Random,
         Some("fixed") => Design::Fixed,
@@ -1132,6 +1154,13 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             ))
         }
     };
+    if eval_at_design && sizes.len() > 1 {
+        return Err(cx.err(
+            d.eval.as_ref().map(|s| s.span()),
+            "data.eval",
+            "`design` evaluation needs one training size (the design is the training inputs); use `fresh` with several sizes",
+        ));
+    }
     let eval_size = if eval_at_design {
         if let Some(m) = &d.eval_size {
             if m.get_ref() != &(train_size as i64) {
@@ -1215,6 +1244,7 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
                 response: Response::Classes(model),
             },
             train_size,
+            sizes,
             eval_size,
             design,
             eval_at_design,
@@ -1325,10 +1355,49 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             response: Response::Regression { truth, noise },
         },
         train_size,
+        sizes,
         eval_size,
         design,
         eval_at_design,
     })
+}
+
+/// Parses `train_size`: a whole number, or a list of distinct whole numbers (sorted ascending),
+/// each at least 2 and at most `max` (a table's working rows less one).
+pub(crate) fn parse_sizes(
+    cx: &Ctx<'_>,
+    v: &Spanned<super::spec::Sizes>,
+    max: usize,
+) -> Result<Vec<usize>, ScenarioError> {
+    let key = "data.train_size";
+    let limit = (upper_limit(key) as usize).min(max);
+    let mut out = Vec::new();
+    let written = v.get_ref().values();
+    if written.is_empty() {
+        return Err(cx.err(Some(v.span()), key, "is empty; give at least one size"));
+    }
+    if written.len() > 64 {
+        return Err(cx.err(
+            Some(v.span()),
+            key,
+            format!("{} sizes; at most 64", written.len()),
+        ));
+    }
+    for n in written {
+        if n < 2 || n as u128 > limit as u128 {
+            return Err(cx.err(
+                Some(v.span()),
+                key,
+                format!("{n} is not a usable training size: each must be between 2 and {limit}"),
+            ));
+        }
+        out.push(n as usize);
+    }
+    out.sort_unstable();
+    if let Some(w) = out.windows(2).find(|w| w[0] == w[1]) {
+        return Err(cx.err(Some(v.span()), key, format!("size {} appears twice", w[0])));
+    }
+    Ok(out)
 }
 
 fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassModel, ScenarioError> {

@@ -74,15 +74,36 @@ pub struct ReferenceSpec {
     pub standardize: Option<bool>,
 }
 
+/// One training size or several.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(untagged)]
+pub enum Sizes {
+    /// One size.
+    One(i64),
+    /// Several sizes (a learning curve).
+    Many(Vec<i64>),
+}
+
+impl Sizes {
+    /// The sizes as written.
+    pub fn values(&self) -> Vec<i64> {
+        match self {
+            Sizes::One(n) => vec![*n],
+            Sizes::Many(v) => v.clone(),
+        }
+    }
+}
+
 /// `[data]`: the data-generating process.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct DataSpec {
     /// `synthetic` (other sources arrive with later versions).
     pub source: Spanned<String>,
-    /// Training set size n.
+    /// Training set size n, or several sizes (`[100, 200, 400]`: a learning curve, fitted on
+    /// nested prefixes of one draw per replicate).
     #[serde(default)]
-    pub train_size: Option<Spanned<i64>>,
+    pub train_size: Option<Spanned<Sizes>>,
     /// Number of evaluation points m.
     #[serde(default)]
     pub eval_size: Option<Spanned<i64>>,

@@ -69,8 +69,7 @@ pub fn from_spec(
     let e =
         |v: Option<&toml::Spanned<String>>, key: &str, m: String| spanned_err(src, file, v, key, m);
     let src_span = Some(&d.source);
-    let unused: [(bool, &str); 6] = [
-        (d.train_size.is_some(), "train_size"),
+    let unused: [(bool, &str); 5] = [
         (d.eval_size.is_some(), "eval_size"),
         (d.design.is_some(), "design"),
         (d.eval.is_some(), "eval"),
@@ -267,5 +266,20 @@ pub fn from_spec(
             err.into()
         }
     })?;
+    let mut plan = plan;
+    if let Some(ts) = &d.train_size {
+        if d.resample.is_some() || d.train_fraction.is_some() {
+            return Err(spanned_err(
+                src,
+                file,
+                Some(ts),
+                "data.train_size",
+                "several training sizes on a table draw nested subsamples of the rows; remove `resample` and `train_fraction`",
+            ));
+        }
+        let cx = crate::scenario::plan::Ctx { file, src };
+        let max = plan.work.len().saturating_sub(1);
+        plan.sizes = Some(crate::scenario::plan::parse_sizes(&cx, ts, max)?);
+    }
     Ok(plan)
 }

@@ -161,7 +161,14 @@ pub fn from_spec(
             format!("must be between {min} and 10000000, got {}", s.get_ref()),
         )),
     };
-    let train_size = size(&d.train_size, "data.train_size", 2)?;
+    let sizes = match &d.train_size {
+        Some(ts) => {
+            let cx = crate::scenario::plan::Ctx { file, src };
+            crate::scenario::plan::parse_sizes(&cx, ts, 10_000_000)?
+        }
+        None => vec![rows],
+    };
+    let train_size = *sizes.last().expect("at least one size");
     let design = match d.design.as_ref().map(|s| s.get_ref().as_str()) {
         None | Some("random") => Design::Random,
         Some("fixed") => Design::Fixed,
@@ -303,6 +310,7 @@ pub fn from_spec(
     Ok(SyntheticPlan {
         process: Synthetic { inputs, response },
         train_size,
+        sizes,
         eval_size,
         design,
         eval_at_design,
