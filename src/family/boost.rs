@@ -343,3 +343,183 @@ impl Family for BoostFamily {
         Ok(())
     }
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::family::forest::fit_all;
+    use crate::rng::FitSeed;
+    use ndarray::{Array1, Array2};
+    use rand::SeedableRng;
+    use rand_chacha::ChaCha8Rng;
+
+    const SEED: FitSeed = FitSeed {
+        seed: 31,
+        replicate: 2,
+        fold: 0,
+        copy: 0,
+    };
+
+    fn data(seed: u64, n: usize, p: usize) -> (Array2<f64>, Array1<f64>, Array1<f64>) {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let x = Array2::from_shape_fn((n, p), |_| rng.gen::<f64>());
+        let yr = Array1::from_shape_fn(n, |i| {
+            (5.0 * x[[i, 0]]).sin() + 2.0 * x[[i, 1]] * x[[i, 2]] + 0.3 * rng.gen::<f64>()
+        });
+        let yc = Array1::from_shape_fn(n, |i| {
+            f64::from(u8::from(
+                x[[i, 0]] + x[[i, 1]] + 0.5 * rng.gen::<f64>() > 1.2,
+            ))
+        });
+        (x, yr, yc)
+    }
+
+    fn bits(a: &Array2<f64>) -> Vec<u64> {
+        a.iter().map(|v| v.to_bits()).collect()
+    }
+
+    #[test]
+    fn hand_computed_regression_stumps() {
+        // Hand computation: y = 1, 1, 3, 3 at x = 0..3; F₀ = 2, every round's stump splits at 1.5
+        // and predicts ∓(current residual), so with ν = 1/2, F_r = 2 ∓ (1 − 2^−r) exactly.
+        let x = Array2::from_shape_vec((4, 1), vec![0.0, 1.0, 2.0, 3.0]).unwrap();
+        let y = Array1::from(vec![1.0, 1.0, 3.0, 3.0]);
+        let eval = Array2::from_shape_vec((2, 1), vec![0.5, 2.5]).unwrap();
+        let fam = BoostFamily {
+            learning_rate: 0.5,
+            max_depth: 1,
+            ..BoostFamily::default()
+        };
+        let grid: Vec<f64> = (0..=6).map(f64::from).collect();
+        let (v, _, _) = fit_all(
+            &fam,
+            x.view(),
+            y.view(),
+            eval.view(),
+            Task::Regress,
+            SEED,
+            &grid,
+        );
+        for r in 0..=6 {
+            let step = 1.0 - 0.5f64.powi(r);
+            assert_eq!(v[[r as usize, 0]], 2.0 - step);
+            assert_eq!(v[[r as usize, 1]], 2.0 + step);
+        }
+    }
+
+    #[test]
+    fn hand_computed_log_loss_newton_step() {
+        // Hand computation: labels 0, 0, 1, 1; share 1/2 so F₀ = 0 and p = 1/2; residuals ∓1/2;
+        // the stump's leaves get Newton steps (∓1)/(2 · 1/4) = ∓2, so with ν = 1 the scores are
+        // ∓2 and P(class 1) = σ(±2).
+        let x = Array2::from_shape_vec((4, 1), vec![0.0, 1.0, 2.0, 3.0]).unwrap();
+        let y = Array1::from(vec![0.0, 0.0, 1.0, 1.0]);
+        let eval = Array2::from_shape_vec((2, 1), vec![0.5, 2.5]).unwrap();
+        let fam = BoostFamily {
+            learning_rate: 1.0,
+            max_depth: 1,
+            ..BoostFamily::default()
+        };
+        let task = Task::Classify { classes: 2 };
+        let (v, p, _) = fit_all(
+            &fam,
+            x.view(),
+            y.view(),
+            eval.view(),
+            task,
+            SEED,
+            &[0.0, 1.0],
+        );
+        assert_eq!(v.row(0).to_vec(), vec![1.0, 1.0]); // p = 1/2 ≥ 0.5 gives class 1
+        assert_eq!(p[[0, 0, 1]], 0.5);
+        let s = 1.0 / (1.0 + (2.0f64).exp());
+        assert!((p[[1, 0, 1]] - s).abs() < 1e-15);
+        assert!((p[[1, 1, 1]] - (1.0 - s)).abs() < 1e-15);
+        assert_eq!(v.row(1).to_vec(), vec![0.0, 1.0]);
+        for e in 0..2 {
+            assert!((p[[1, e, 0]] + p[[1, e, 1]] - 1.0).abs() < 1e-15);
+        }
+    }
+
+    #[test]
+    fn staged_predictions_equal_single_round_fits() {
+        // Exact identity (design): round r's tree depends on earlier rounds and its own member
+        // stream only, so the staged predictions are the models fitted with that many rounds.
+        let (x, yr, yc) = data(1, 150, 4);
+        let (eval, _, _) = data(2, 40, 4);
+        for fam in [
+            BoostFamily::default(),
+            BoostFamily {
+                subsample: 0.6,
+                max_depth: 2,
+                min_samples_leaf: 3,
+                learning_rate: 0.3,
+                ..BoostFamily::default()
+            },
+        ] {
+            for (task, y) in [(Task::Regress, &yr), (Task::Classify { classes: 2 }, &yc)] {
+                let grid = [30.0, 0.0, 1.0, 7.0];
+                let (v, p, _) = fit_all(&fam, x.view(), y.view(), eval.view(), task, SEED, &grid);
+                for (g, &r) in grid.iter().enumerate() {
+                    let (v1, p1, _) =
+                        fit_all(&fam, x.view(), y.view(), eval.view(), task, SEED, &[r]);
+                    assert_eq!(bits(&v1), bits(&v.slice(ndarray::s![g..=g, ..]).to_owned()));
+                    let a: Vec<u64> = p1.iter().map(|v| v.to_bits()).collect();
+                    let b: Vec<u64> = p
+                        .slice(ndarray::s![g..=g, .., ..])
+                        .iter()
+                        .map(|v| v.to_bits())
+                        .collect();
+                    assert_eq!(a, b);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn subsampling_is_seeded() {
+        let (x, yr, _) = data(3, 120, 3);
+        let (eval, _, _) = data(4, 30, 3);
+        let fam = BoostFamily {
+            subsample: 0.5,
+            ..BoostFamily::default()
+        };
+        assert!(fam.caps(Task::Regress).stochastic);
+        assert!(!fam.caps(Task::Regress).ensemble);
+        let run = |s: FitSeed| {
+            fit_all(
+                &fam,
+                x.view(),
+                yr.view(),
+                eval.view(),
+                Task::Regress,
+                s,
+                &[20.0],
+            )
+            .0
+        };
+        assert_eq!(bits(&run(SEED)), bits(&run(SEED)));
+        assert_ne!(bits(&run(SEED)), bits(&run(FitSeed { copy: 1, ..SEED })));
+    }
+
+    #[test]
+    fn unsupported_tasks_and_bad_labels_are_errors() {
+        let fam = BoostFamily::default();
+        assert!(!fam.supports(Task::Classify { classes: 3 }));
+        let x = Array2::from_shape_vec((3, 1), vec![0.0, 1.0, 2.0]).unwrap();
+        let y = Array1::from(vec![0.0, 2.0, 1.0]);
+        let mut out = Array2::zeros((1, 3));
+        let input = FitInput {
+            x: x.view(),
+            y: y.view(),
+            eval: x.view(),
+            task: Task::Classify { classes: 2 },
+            seed: SEED,
+        };
+        assert!(fam
+            .fit_predict(&input, &[1.0], Out::values(out.view_mut()))
+            .is_err());
+        assert!(fam.check_grid(&[1.5], 3, 1).is_err());
+        assert!(fam.check_grid(&[0.0, 10.0], 3, 1).is_ok());
+    }
+}

@@ -250,3 +250,219 @@ impl Family for MinNormFamily {
 pub(crate) fn col_major(x: ArrayView2<f64>) -> Vec<f64> {
     x.t().iter().copied().collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::rng::FitSeed;
+    use ndarray::{Array1, Array2};
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
+    use rand_distr::StandardNormal;
+
+    fn fit(
+        fam: &MinNormFamily,
+        x: &Array2<f64>,
+        y: &Array1<f64>,
+        eval: &Array2<f64>,
+        grid: &[f64],
+    ) -> Array2<f64> {
+        let mut out = Array2::zeros((grid.len(), eval.nrows()));
+        let input = FitInput {
+            x: x.view(),
+            y: y.view(),
+            eval: eval.view(),
+            task: Task::Regress,
+            seed: FitSeed::fixed(0),
+        };
+        fam.fit_predict(&input, grid, Out::values(out.view_mut()))
+            .expect("fit");
+        out
+    }
+
+    fn gaussian(rng: &mut ChaCha8Rng, rows: usize, cols: usize) -> Array2<f64> {
+        Array2::from_shape_fn((rows, cols), |_| rng.sample(StandardNormal))
+    }
+
+    /// Solves the square system `a z = b` by Gaussian elimination with partial pivoting (an
+    /// independent check of the QR/SVD route).
+    fn solve(mut a: Array2<f64>, mut b: Array1<f64>) -> Array1<f64> {
+        let k = b.len();
+        for c in 0..k {
+            let piv = (c..k)
+                .max_by(|&i, &j| a[[i, c]].abs().total_cmp(&a[[j, c]].abs()))
+                .unwrap();
+            for j in 0..k {
+                a.swap([c, j], [piv, j]);
+            }
+            b.swap(c, piv);
+            for r in c + 1..k {
+                let f = a[[r, c]] / a[[c, c]];
+                for j in c..k {
+                    a[[r, j]] -= f * a[[c, j]];
+                }
+                b[r] -= f * b[c];
+            }
+        }
+        let mut z = Array1::zeros(k);
+        for r in (0..k).rev() {
+            let s: f64 = (r + 1..k).map(|j| a[[r, j]] * z[j]).sum();
+            z[r] = (b[r] - s) / a[[r, r]];
+        }
+        z
+    }
+
+    /// Coefficients read off predictions at the unit vectors (no intercept).
+    fn coefficients(
+        fam: &MinNormFamily,
+        x: &Array2<f64>,
+        y: &Array1<f64>,
+        p: usize,
+    ) -> Array1<f64> {
+        let d = x.ncols();
+        let eye = Array2::from_shape_fn((d, d), |(i, j)| f64::from(u8::from(i == j)));
+        fit(fam, x, y, &eye, &[p as f64]).row(0).to_owned()
+    }
+
+    #[test]
+    fn matches_normal_equations_and_interpolates_with_minimum_norm() {
+        // Independent checks: p < n gives the normal-equation solution (XᵀX)⁻¹Xᵀy; p > n gives
+        // β = Xᵀ(XXᵀ)⁻¹y (interpolating, in the row space: the minimum-norm solution).
+        let mut rng = ChaCha8Rng::seed_from_u64(3);
+        let (n, d) = (12, 20);
+        let x = gaussian(&mut rng, n, d);
+        let y = Array1::from_shape_fn(n, |_| rng.sample::<f64, _>(StandardNormal));
+        let fam = MinNormFamily::default();
+        for p in [1, 5, 11, 12, 13, 20] {
+            let beta = coefficients(&fam, &x, &y, p);
+            assert!(beta.iter().skip(p).all(|&b| b == 0.0));
+            let xp = x.slice(ndarray::s![.., ..p]).to_owned();
+            let want = if p <= n {
+                solve(xp.t().dot(&xp), xp.t().dot(&y))
+            } else {
+                xp.t().dot(&solve(xp.dot(&xp.t()), y.clone()))
+            };
+            for j in 0..p {
+                assert!(
+                    (beta[j] - want[j]).abs() <= 1e-8 * (1.0 + want[j].abs()),
+                    "p = {p}, j = {j}: {} vs {}",
+                    beta[j],
+                    want[j]
+                );
+            }
+            if p >= n {
+                let fitted = fit(&fam, &x, &y, &x, &[p as f64]);
+                for i in 0..n {
+                    assert!((fitted[[0, i]] - y[i]).abs() < 1e-9);
+                }
+            }
+        }
+    }
+
+    #[test]
+    fn repeated_inputs_share_the_coefficient() {
+        // Minimum norm by hand: with column 1 a copy of column 0, every split b₀ + b₁ = b fits
+        // equally well and the smallest norm is b₀ = b₁ = b/2; y = 3 x₀ exactly gives b = 3.
+        let mut rng = ChaCha8Rng::seed_from_u64(4);
+        let c = gaussian(&mut rng, 10, 1);
+        let x = Array2::from_shape_fn((10, 2), |(i, _)| c[[i, 0]]);
+        let y = Array1::from_shape_fn(10, |i| 3.0 * c[[i, 0]]);
+        let beta = coefficients(&MinNormFamily::default(), &x, &y, 2);
+        assert!(
+            (beta[0] - 1.5).abs() < 1e-12 && (beta[1] - 1.5).abs() < 1e-12,
+            "{beta}"
+        );
+    }
+
+    #[test]
+    fn intercept_centres_and_interpolates() {
+        // With an intercept: p + 1 ≤ n recovers an exact affine function; p ≥ n interpolates.
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let x = gaussian(&mut rng, 8, 12);
+        let y = Array1::from_shape_fn(8, |i| 4.0 + 2.0 * x[[i, 0]] - x[[i, 1]]);
+        let fam = MinNormFamily { intercept: true };
+        let eval = gaussian(&mut rng, 5, 12);
+        let out = fit(&fam, &x, &y, &eval, &[2.0]);
+        for e in 0..5 {
+            let want = 4.0 + 2.0 * eval[[e, 0]] - eval[[e, 1]];
+            assert!((out[[0, e]] - want).abs() < 1e-10);
+        }
+        let noisy = Array1::from_shape_fn(8, |_| rng.sample::<f64, _>(StandardNormal));
+        let fitted = fit(&fam, &x, &noisy, &x, &[10.0]);
+        for i in 0..8 {
+            assert!((fitted[[0, i]] - noisy[i]).abs() < 1e-9);
+        }
+    }
+
+    #[test]
+    fn grid_is_checked_against_the_inputs() {
+        let fam = MinNormFamily::default();
+        assert!(fam.check_grid(&[1.0, 5.0], 10, 5).is_ok());
+        assert!(fam.check_grid(&[6.0], 10, 5).is_err());
+        assert!(fam.check_grid(&[0.0], 10, 5).is_err());
+        assert!(fam.check_grid(&[2.5], 10, 5).is_err());
+        assert!(!fam.supports(Task::Classify { classes: 2 }));
+    }
+
+    /// Belkin, Hsu and Xu (2020), "Two models of double descent for weak features", SIAM J. Math.
+    /// Data Sci. 2(4), Theorem 1: x ~ N(0, I_D), y = xᵀβ + σε, minimum-norm least squares on the
+    /// first p coordinates T has expected squared loss at a fresh (x, y)
+    /// `(‖β_Tᶜ‖² + σ²)(1 + p/(n − p − 1))` for p ≤ n − 2 and
+    /// `‖β_T‖²(1 − n/p) + (‖β_Tᶜ‖² + σ²)(1 + n/(p − n − 1))` for p ≥ n + 2.
+    fn closed_form(p: usize, n: usize, beta: &[f64], sigma: f64) -> f64 {
+        let inside: f64 = beta[..p].iter().map(|b| b * b).sum();
+        let outside: f64 = beta[p..].iter().map(|b| b * b).sum();
+        let (p, n) = (p as f64, n as f64);
+        if p <= n - 2.0 {
+            (outside + sigma * sigma) * (1.0 + p / (n - p - 1.0))
+        } else {
+            assert!(p >= n + 2.0);
+            inside * (1.0 - n / p) + (outside + sigma * sigma) * (1.0 + n / (p - n - 1.0))
+        }
+    }
+
+    #[test]
+    fn double_descent_matches_belkin_hsu_xu_theorem_1() {
+        // Monte Carlo over training sets. Per replicate the loss at a fresh (x, y) is computed
+        // exactly from the fitted coefficients (read off predictions at the unit vectors):
+        // E[(y − xᵀβ̂)²] = ‖β − β̂‖² + σ² for x ~ N(0, I). The replicate mean must be within
+        // 4 SE (SE from the spread over replicates) of the theorem's value. The p values keep the
+        // loss's fourth moment finite (|n − p| ≥ 6), so the SE itself is reliable.
+        let (d, n, sigma) = (60usize, 30usize, 0.5);
+        let beta: Vec<f64> = (0..d)
+            .map(|j| 0.25 * (1.0 + (j % 3) as f64) / 2.0)
+            .collect();
+        let ps = [3usize, 12, 20, 24, 36, 45, 60];
+        let grid: Vec<f64> = ps.iter().map(|&p| p as f64).collect();
+        let fam = MinNormFamily::default();
+        let eye = Array2::from_shape_fn((d, d), |(i, j)| f64::from(u8::from(i == j)));
+        let reps = 2500;
+        let mut sum = vec![0.0; ps.len()];
+        let mut sum2 = vec![0.0; ps.len()];
+        let mut rng = ChaCha8Rng::seed_from_u64(2020);
+        for _ in 0..reps {
+            let x = gaussian(&mut rng, n, d);
+            let y = Array1::from_shape_fn(n, |i| {
+                let s: f64 = (0..d).map(|j| x[[i, j]] * beta[j]).sum();
+                s + sigma * rng.sample::<f64, _>(StandardNormal)
+            });
+            let coef = fit(&fam, &x, &y, &eye, &grid);
+            for (g, _) in ps.iter().enumerate() {
+                let err: f64 = (0..d).map(|j| (beta[j] - coef[[g, j]]).powi(2)).sum();
+                let loss = err + sigma * sigma;
+                sum[g] += loss;
+                sum2[g] += loss * loss;
+            }
+        }
+        let r = reps as f64;
+        for (g, &p) in ps.iter().enumerate() {
+            let mean = sum[g] / r;
+            let var = (sum2[g] - r * mean * mean) / (r - 1.0);
+            let se = (var / r).sqrt();
+            let want = closed_form(p, n, &beta, sigma);
+            let z = (mean - want) / se;
+            eprintln!("p = {p}: MC {mean:.4} ± {se:.4}, theorem {want:.4}, z = {z:.2}");
+            assert!(z.abs() < 4.0, "p = {p}: MC {mean} ± {se}, theorem {want}");
+        }
+    }
+}
