@@ -59,7 +59,6 @@
 
 use std::sync::Arc;
 
-use ndarray::Array2;
 use rand::Rng;
 
 use super::tree::{Criterion, GrowOptions, Presorted, TieBreak, Tree, TreeFamily};
@@ -519,11 +518,16 @@ pub(crate) fn fit_all<'a>(
     task: Task,
     seed: crate::rng::FitSeed,
     grid: &[f64],
-) -> (Array2<f64>, ndarray::Array3<f64>, Array2<f64>) {
+) -> (
+    ndarray::Array2<f64>,
+    ndarray::Array3<f64>,
+    ndarray::Array2<f64>,
+) {
+    use ndarray::{Array2, Array3};
     let m = eval.nrows();
     let k = task.classes();
     let mut values = Array2::zeros((grid.len(), m));
-    let mut probs = ndarray::Array3::zeros((grid.len(), m, k));
+    let mut probs = Array3::zeros((grid.len(), m, k));
     let mut div = Array2::zeros((grid.len(), m));
     let caps = family.caps(task);
     let input = FitInput {
@@ -546,7 +550,7 @@ pub(crate) fn fit_all<'a>(
 mod tests {
     use super::*;
     use crate::rng::FitSeed;
-    use ndarray::{Array1, Array3};
+    use ndarray::{Array1, Array2, Array3};
     use rand::SeedableRng;
     use rand_chacha::ChaCha8Rng;
 
