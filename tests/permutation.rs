@@ -36,6 +36,28 @@ fn permute(x: &Array2<f64>, perm: &[usize]) -> Array2<f64> {
     x.select(Axis(1), perm)
 }
 
+/// One family setting to check: a name for messages, the family, the task, the grid, and either
+/// the rounding tolerance (deterministic families) or the number of replicates (tree families).
+struct Case {
+    name: &'static str,
+    family: Box<dyn Family>,
+    task: Task,
+    grid: Vec<f64>,
+    tol: f64,
+    reps: u64,
+}
+
+fn case(name: &'static str, family: Box<dyn Family>, task: Task, grid: &[f64]) -> Case {
+    Case {
+        name,
+        family,
+        task,
+        grid: grid.to_vec(),
+        tol: 0.0,
+        reps: 0,
+    }
+}
+
 /// Values and (when the family gives them) probabilities for every grid value.
 fn fit(
     fam: &dyn Family,
@@ -93,69 +115,74 @@ fn deterministic_families_are_permutation_equivariant() {
     let (xp, ep) = (permute(&x, &PERM), permute(&eval, &PERM));
     let seed = FitSeed::fixed(3);
     let two = Task::Classify { classes: 2 };
-    let cases: Vec<(&str, Box<dyn Family>, Task, Vec<f64>, f64)> = vec![
+    let cases = vec![
         // Squared distances summed over inputs in another order: rounding only (continuous
-        // data, so no neighbour changes place); the k-th neighbour's mean is the same set.
-        (
-            "knn",
-            Box::new(KnnFamily::default()),
-            Task::Regress,
-            vec![1.0, 5.0, 20.0],
-            1e-12,
-        ),
-        (
+        // data, so no neighbour changes place); the k nearest are the same set.
+        Case {
+            tol: 1e-12,
+            ..case(
+                "knn",
+                Box::new(KnnFamily::default()),
+                Task::Regress,
+                &[1.0, 5.0, 20.0],
+            )
+        },
+        case(
             "knn standardized",
             Box::new(KnnFamily {
                 standardize: true,
                 alpha: 0.0,
             }),
             two,
-            vec![1.0, 7.0],
-            0.0,
+            &[1.0, 7.0],
         ),
         // Legendre basis: a permutation of the inputs permutes the columns within each degree;
         // the least-squares fit is the same.
-        (
-            "poly",
-            Box::new(PolyFamily),
-            Task::Regress,
-            vec![1.0, 2.0, 3.0],
-            1e-9,
-        ),
+        Case {
+            tol: 1e-9,
+            ..case(
+                "poly",
+                Box::new(PolyFamily),
+                Task::Regress,
+                &[1.0, 2.0, 3.0],
+            )
+        },
         // Standardization is per column, the penalty is on ‖β‖²: equivariant.
-        (
-            "ridge",
-            Box::new(RidgeFamily),
-            Task::Regress,
-            vec![0.0, 0.5, 20.0],
-            1e-10,
-        ),
+        Case {
+            tol: 1e-10,
+            ..case(
+                "ridge",
+                Box::new(RidgeFamily),
+                Task::Regress,
+                &[0.0, 0.5, 20.0],
+            )
+        },
         // Same objective after permuting the weights; the solver stops at a gradient tolerance,
         // so the two optima agree to about that tolerance.
-        (
-            "logistic",
-            Box::new(LogisticFamily),
-            two,
-            vec![0.1, 1.0, 10.0],
-            1e-6,
-        ),
+        Case {
+            tol: 1e-6,
+            ..case("logistic", Box::new(LogisticFamily), two, &[0.1, 1.0, 10.0])
+        },
         // All inputs: the pseudo-inverse solution is equivariant.
-        (
-            "minnorm",
-            Box::new(MinNormFamily::default()),
-            Task::Regress,
-            vec![4.0],
-            1e-9,
-        ),
+        Case {
+            tol: 1e-9,
+            ..case(
+                "minnorm",
+                Box::new(MinNormFamily::default()),
+                Task::Regress,
+                &[4.0],
+            )
+        },
     ];
-    for (name, fam, task, grid, rtol) in cases {
-        let y = if task == Task::Regress { &yr } else { &yc };
-        let (va, pa) = fit(fam.as_ref(), &x, y, &eval, task, seed, &grid);
-        let (vb, pb) = fit(fam.as_ref(), &xp, y, &ep, task, seed, &grid);
-        assert_close(&va, &vb, rtol, name);
-        if task != Task::Regress && fam.caps(task).probabilities {
+    for c in cases {
+        let y = if c.task == Task::Regress { &yr } else { &yc };
+        let fam = c.family.as_ref();
+        let (va, pa) = fit(fam, &x, y, &eval, c.task, seed, &c.grid);
+        let (vb, pb) = fit(fam, &xp, y, &ep, c.task, seed, &c.grid);
+        assert_close(&va, &vb, c.tol, c.name);
+        if c.task != Task::Regress && fam.caps(c.task).probabilities {
             for (u, v) in pa.iter().zip(pb.iter()) {
-                assert!((u - v).abs() <= rtol.max(1e-12), "{name}: {u} vs {v}");
+                assert!((u - v).abs() <= c.tol.max(1e-12), "{}: {u} vs {v}", c.name);
             }
         }
     }
@@ -277,57 +304,70 @@ fn paired_z(fam: &dyn Family, task: Task, grid: &[f64], reps: u64, seed: u64) ->
 #[test]
 fn tree_families_are_permutation_invariant_in_distribution() {
     let two = Task::Classify { classes: 2 };
-    let cases: Vec<(&str, Box<dyn Family>, Task, Vec<f64>, u64)> = vec![
-        (
-            "tree",
-            Box::new(TreeFamily::default()),
-            Task::Regress,
-            vec![1.0, 2.0, 3.0, 5.0, 8.0],
+    let reps = |reps: u64, c: Case| Case { reps, ..c };
+    let cases = vec![
+        reps(
             400,
+            case(
+                "tree",
+                Box::new(TreeFamily::default()),
+                Task::Regress,
+                &[1.0, 2.0, 3.0, 5.0, 8.0],
+            ),
         ),
-        (
-            "tree classify",
-            Box::new(TreeFamily::default()),
-            two,
-            vec![1.0, 2.0, 4.0, 8.0],
+        reps(
             400,
+            case(
+                "tree classify",
+                Box::new(TreeFamily::default()),
+                two,
+                &[1.0, 2.0, 4.0, 8.0],
+            ),
         ),
-        (
-            "forest",
-            Box::new(ForestFamily::default()),
-            Task::Regress,
-            vec![1.0, 5.0, 20.0],
+        reps(
             150,
+            case(
+                "forest",
+                Box::new(ForestFamily::default()),
+                Task::Regress,
+                &[1.0, 5.0, 20.0],
+            ),
         ),
-        (
-            "forest classify, no bootstrap",
-            Box::new(ForestFamily {
-                bootstrap: false,
-                ..ForestFamily::default()
-            }),
-            two,
-            vec![1.0, 10.0],
+        reps(
             150,
+            case(
+                "forest classify, no bootstrap",
+                Box::new(ForestFamily {
+                    bootstrap: false,
+                    ..ForestFamily::default()
+                }),
+                two,
+                &[1.0, 10.0],
+            ),
         ),
-        (
-            "boost",
-            Box::new(BoostFamily::default()),
-            Task::Regress,
-            vec![1.0, 10.0, 30.0],
+        reps(
             150,
+            case(
+                "boost",
+                Box::new(BoostFamily::default()),
+                Task::Regress,
+                &[1.0, 10.0, 30.0],
+            ),
         ),
-        (
-            "boost classify",
-            Box::new(BoostFamily::default()),
-            two,
-            vec![1.0, 10.0, 30.0],
+        reps(
             150,
+            case(
+                "boost classify",
+                Box::new(BoostFamily::default()),
+                two,
+                &[1.0, 10.0, 30.0],
+            ),
         ),
     ];
-    for (name, fam, task, grid, reps) in cases {
-        let z = paired_z(fam.as_ref(), task, &grid, reps, 11);
-        eprintln!("{name}: paired z by grid value {z:.2?}");
-        assert!(z.iter().all(|v| v.abs() < 4.0), "{name}: {z:?}");
+    for c in cases {
+        let z = paired_z(c.family.as_ref(), c.task, &c.grid, c.reps, 11);
+        eprintln!("{}: paired z by grid value {z:.2?}", c.name);
+        assert!(z.iter().all(|v| v.abs() < 4.0), "{}: {z:?}", c.name);
     }
     // Power: the lowest-index rule picks input 0 (relevant) in one order and input 1 (its copy,
     // irrelevant at the evaluation points) in the other, which this check must detect.

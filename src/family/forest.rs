@@ -455,10 +455,13 @@ impl Family for ForestFamily {
             .as_slice()
             .ok_or_else(|| FitError("forest: evaluation inputs are not contiguous".into()))?;
         let k = input.task.classes();
-        let slots = match self.knob {
-            ForestKnob::Trees => 1,
-            ForestKnob::MaxDepth => grid.len(),
+        // The depth read at each accumulator slot: one slot for the `trees` knob, one per grid
+        // depth for the `max_depth` knob.
+        let slot_depths = match self.knob {
+            ForestKnob::Trees => vec![depth],
+            ForestKnob::MaxDepth => values.clone(),
         };
+        let slots = slot_depths.len();
         let want_div = out.diversity.is_some();
         let mut acc = Accumulator::new(slots, m, k, want_div);
         let want_shares = k > 0 && (out.probs.is_some() || want_div);
@@ -478,11 +481,7 @@ impl Family for ForestFamily {
             for e in 0..m {
                 let row = &rows[e * p..(e + 1) * p];
                 let reached = tree.path_nodes(row, depth, &mut path);
-                for slot in 0..slots {
-                    let d = match self.knob {
-                        ForestKnob::Trees => depth,
-                        ForestKnob::MaxDepth => values[slot],
-                    };
+                for (slot, &d) in slot_depths.iter().enumerate() {
                     let node = path[d.min(reached)];
                     if want_shares {
                         for (c, &v) in counts.iter_mut().zip(tree.node_counts(node)) {

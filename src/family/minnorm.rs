@@ -131,20 +131,29 @@ fn pinv_square(m: &mut [f64], k: usize, b: &[f64], size: usize) -> Vec<f64> {
     out
 }
 
-/// Fits minimum-norm least squares on the columns `0..p` of the column-major `n × width` design
-/// `design` (with centring when `intercept`) and writes the predictions at the row-major
-/// `m × width` evaluation design `eval_rows` into `out`. Shared with the random-features family.
+/// A training design: `rows × width`, column-major.
+pub(crate) struct Design<'a> {
+    /// The entries, column after column.
+    pub cols: &'a [f64],
+    /// Number of rows (training rows).
+    pub rows: usize,
+    /// Number of columns.
+    pub width: usize,
+}
+
+/// Fits minimum-norm least squares on the columns `0..p` of `train` (with centring when
+/// `intercept`) and writes the predictions at the row-major `m × train.width` evaluation design
+/// `eval_rows` into `out` (length `m`).
 pub(crate) fn fit_leading(
-    design: &[f64],
-    n: usize,
+    train: &Design<'_>,
     p: usize,
     y: &[f64],
     eval_rows: &[f64],
-    width: usize,
     intercept: bool,
     out: &mut [f64],
 ) {
-    let mut a = design[..n * p].to_vec();
+    let (n, width) = (train.rows, train.width);
+    let mut a = train.cols[..n * p].to_vec();
     let mut means = vec![0.0; p];
     let mut ybar = 0.0;
     let mut yc = y.to_vec();
@@ -222,16 +231,12 @@ impl Family for MinNormFamily {
         let mut pred = vec![0.0; m];
         for (g, &v) in grid.iter().enumerate() {
             let p = v as usize;
-            fit_leading(
-                &design,
-                n,
-                p,
-                &y,
-                eval_rows,
+            let train = Design {
+                cols: &design,
+                rows: n,
                 width,
-                self.intercept,
-                &mut pred,
-            );
+            };
+            fit_leading(&train, p, &y, eval_rows, self.intercept, &mut pred);
             if let Some(e) = pred.iter().position(|v| !v.is_finite()) {
                 return Err(FitError(format!(
                     "minnorm: features = {p} gave a non-finite prediction at evaluation point {e}"
