@@ -4,9 +4,9 @@
 //! - **Deterministic families** (k-NN, poly, ridge, logistic, minnorm at all inputs): the
 //!   predictions are equal up to floating-point rounding (sums taken in another order), checked
 //!   against a small relative tolerance per family.
-//! - **Tree families** (tree, forest, boost): exact ties between splits are broken at random with
-//!   the fit's stream, so a permutation changes individual fits; what must not change is their
-//!   distribution. Over many training sets, fitted with the same fit seed in both column orders,
+//! - **Tree families** (tree, forest, boost) and **random features**: exact ties between splits
+//!   are broken at random with the fit's stream (and random-feature weights are drawn per input),
+//!   so a permutation changes individual fits; what must not change is their distribution. Over many training sets, fitted with the same fit seed in both column orders,
 //!   the paired difference of the squared error against the truth must have mean within 4 SE of
 //!   0 (SE of the paired difference over replicates). The data make ties decisive on purpose: the
 //!   second input equals the first on the training rows but not at the evaluation points, so
@@ -21,6 +21,7 @@ use lossprism::family::knn::KnnFamily;
 use lossprism::family::logistic::LogisticFamily;
 use lossprism::family::minnorm::MinNormFamily;
 use lossprism::family::poly::PolyFamily;
+use lossprism::family::random_features::RandomFeaturesFamily;
 use lossprism::family::ridge::RidgeFamily;
 use lossprism::family::tree::{TieBreak, TreeFamily};
 use lossprism::family::{Family, FitInput, FitSeed, Out, Task};
@@ -352,6 +353,17 @@ fn tree_families_are_permutation_invariant_in_distribution() {
                 Box::new(BoostFamily::default()),
                 Task::Regress,
                 &[1.0, 10.0, 30.0],
+            ),
+        ),
+        // Widths below the interpolation peak at n = 100 (where the loss is heavy-tailed), and
+        // small enough to keep the test quick; the weights are drawn per input at any width.
+        reps(
+            150,
+            case(
+                "random_features",
+                Box::new(RandomFeaturesFamily::default()),
+                Task::Regress,
+                &[5.0, 20.0, 50.0],
             ),
         ),
         reps(

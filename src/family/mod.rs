@@ -32,6 +32,7 @@ pub mod minnorm;
 pub mod neighbours;
 pub mod options;
 pub mod poly;
+pub mod random_features;
 pub mod ridge;
 pub mod standardize;
 pub mod tree;
@@ -303,6 +304,14 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             tasks: "regression",
             options: "intercept = true | false (default false)",
             build: Some(minnorm::build),
+        },
+        FamilyInfo {
+            name: "random_features",
+            knob: "width",
+            meaning: "minimum-norm least squares on the first `width` random ReLU features of the standardized inputs (drawn from the fit seed); larger = more complex",
+            tasks: "regression",
+            options: "intercept = true | false (default true)",
+            build: Some(random_features::build),
         },
         FamilyInfo {
             name: "logistic",
