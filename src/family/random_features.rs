@@ -193,7 +193,7 @@ mod tests {
 
     fn data(seed: u64, n: usize) -> (Array2<f64>, Array1<f64>) {
         let mut rng = ChaCha8Rng::seed_from_u64(seed);
-        let x = Array2::from_shape_fn((n, 3), |_| rng.gen_range(-1.0..1.0));
+        let x: Array2<f64> = Array2::from_shape_fn((n, 3), |_| rng.gen_range(-1.0..1.0));
         let y = Array1::from_shape_fn(n, |i| {
             (3.0 * x[[i, 0]]).sin() + x[[i, 1]] * x[[i, 2]] + 0.1 * rng.gen_range(-1.0..1.0)
         });
