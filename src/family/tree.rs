@@ -85,6 +85,7 @@
 //! partitioned stably into the two children (no re-sorting). Nodes live in one flat arena, in
 //! breadth-first order.
 
+use std::borrow::Cow;
 use std::sync::Arc;
 
 use ndarray::{ArrayView1, ArrayView2};
@@ -500,7 +501,13 @@ impl TreeFamily {
         rng: &mut ChaCha8Rng,
     ) -> Result<Tree, FitError> {
         let pre = Presorted::new(x)?;
-        self.grow_presorted(&pre, y, task, &GrowOptions::depth(max_depth), rng)
+        self.grow_from(
+            Cow::Owned(pre),
+            y,
+            task,
+            &GrowOptions::depth(max_depth),
+            rng,
+        )
     }
 
     /// Grows one tree on presorted inputs with the given [`GrowOptions`]; with
@@ -512,6 +519,19 @@ impl TreeFamily {
     pub fn grow_presorted(
         &self,
         pre: &Presorted,
+        y: ArrayView1<f64>,
+        task: Task,
+        opts: &GrowOptions<'_>,
+        rng: &mut ChaCha8Rng,
+    ) -> Result<Tree, FitError> {
+        self.grow_from(Cow::Borrowed(pre), y, task, opts, rng)
+    }
+
+    /// [`TreeFamily::grow_presorted`] on sorted lists it may own (then, without row counts, they
+    /// become the tree's working lists without a copy).
+    fn grow_from(
+        &self,
+        pre: Cow<'_, Presorted>,
         y: ArrayView1<f64>,
         task: Task,
         opts: &GrowOptions<'_>,
@@ -551,7 +571,10 @@ impl TreeFamily {
         // consecutive and increase with the row, so the expanded sorted lists are sorted by
         // (value, sample id) exactly as if the repeated rows had been sorted afresh).
         let (n, idx, val, yv) = match opts.counts {
-            None => (rows, pre.order.clone(), pre.val.clone(), y.to_vec()),
+            None => {
+                let pre = pre.into_owned();
+                (rows, pre.order, pre.val, y.to_vec())
+            }
             Some(counts) => {
                 if counts.len() != rows {
                     return Err(FitError(format!(
