@@ -1,7 +1,8 @@
 //! The gradient-boosting family (`boost`, knob `rounds`): a sum of small CART regression trees
 //! ([`super::tree`]), each fitted to the current residuals (Friedman 2001, "Greedy function
-//! approximation: a gradient boosting machine", *Annals of Statistics* 29(5), Algorithm 2 for
-//! squared loss and Algorithm 5 for the two-class log-loss).
+//! approximation: a gradient boosting machine", *Annals of Statistics* 29(5): least-squares
+//! boosting, §4.1, and two-class logistic likelihood, §4.5 — written here with labels 0/1 and the
+//! score on the log-odds scale, which changes the parameterisation, not the model).
 //!
 //! # Model
 //!
@@ -21,8 +22,8 @@
 //!   classes are not supported.
 //!
 //! With `subsample < 1` (default 1), each round grows its tree on `max(1, ⌊subsample · n⌋)` rows
-//! drawn without replacement (stochastic gradient boosting, Friedman 2002); the update is applied
-//! to every row.
+//! drawn without replacement (stochastic gradient boosting: Friedman 2002, *Computational
+//! Statistics & Data Analysis* 38(4)); the update is applied to every row.
 //!
 //! # Random streams and `stochastic`
 //!

@@ -22,10 +22,10 @@
 //!   with `bootstrap = false` every tree sees the whole training set;
 //! - a random subset of **`max_features`** inputs tried at each node, drawn without replacement
 //!   (inputs constant in the node are skipped and not counted, see [`super::tree`]). Default:
-//!   `⌊p/3⌋` for regression and `⌊√p⌋` for classification (at least 1) — the defaults given by
-//!   Hastie, Tibshirani and Friedman, *The Elements of Statistical Learning*, 2nd ed., §15.3
-//!   (they also suggest a minimum node size of 5 for regression; here `min_samples_leaf` keeps
-//!   the tree family's default of 1). `max_features = "all"` tries every input (plain bagging),
+//!   `⌊p/3⌋` for regression and `⌊√p⌋` for classification (at least 1) — the recommendations
+//!   reported in Hastie, Tibshirani and Friedman, *The Elements of Statistical Learning*, 2nd ed.,
+//!   chapter 15 (which also suggests a minimum node size of 5 for regression; here
+//!   `min_samples_leaf` keeps the tree family's default of 1). `max_features = "all"` tries every input (plain bagging),
 //!   `"sqrt"` and `"third"` force one of the two rules, and a whole number gives the count
 //!   directly (capped at the number of inputs).
 //!
