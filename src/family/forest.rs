@@ -39,6 +39,12 @@
 //! (same seed). A tree's stream does not depend on how many trees are grown nor on the depth
 //! limit, which is what makes both path fits exact.
 //!
+//! The family is declared stochastic: with the defaults the trees differ through their bootstrap
+//! samples and input subsets, and even without either they differ through their tie-breaks (only
+//! the library's [`TieBreak::LowestIndex`] with `bootstrap = false` and every input makes the
+//! forest deterministic). With `fit_seeds ≥ 2` the engine's `variance_fit` is the variance due
+//! to all of these draws for a fixed training set.
+//!
 //! # Predictions
 //!
 //! - **Regression**: the mean of the `T` trees' predictions (summed in tree order, divided by `T`).
