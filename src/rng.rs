@@ -42,6 +42,11 @@ pub const MAX_FIT_COPY: u32 = (1 << 10) - 1;
 /// Largest replicate index a fit stream can carry.
 pub const MAX_FIT_REPLICATE: u64 = (1 << 36) - 1;
 
+/// 32-bit words of a fit stream reserved for each ensemble member (see [`FitSeed::member_rng`]).
+pub const MEMBER_WORDS: u128 = 1 << 40;
+/// Number of ensemble members a fit stream can carry (68-bit word positions / [`MEMBER_WORDS`]).
+pub const MAX_MEMBERS: u64 = 1 << 28;
+
 /// The identity of one fit's random stream: the master seed, the replicate, the fold (0 = the
 /// main fit, `1..=K` = cross-validation fold fits of the selection audit) and the fit-seed index
 /// (`0..fit_seeds`). A stochastic family draws only from [`FitSeed::rng`], so its predictions are
@@ -80,6 +85,23 @@ impl FitSeed {
         let f = u64::from(self.fold.min(MAX_FIT_FOLD));
         let c = u64::from(self.copy.min(MAX_FIT_COPY));
         rng.set_stream((purpose::FIT << 56) | (r << 20) | (f << 10) | c);
+        rng
+    }
+
+    /// The stream of member `k` of an ensemble fit (a forest's tree `k`, a boosting round `k`):
+    /// the fit stream started [`MEMBER_WORDS`]` × k` words in. Member 0's stream is
+    /// [`FitSeed::rng`] itself, so a one-member ensemble draws exactly what a single fit draws;
+    /// members never overlap while each draws fewer than 2⁴⁰ words (32-bit), and their streams
+    /// do not depend on how many members are grown or in which order.
+    ///
+    /// # Panics
+    /// If `k ≥ 2²⁸` (ChaCha's word position has 68 bits).
+    pub fn member_rng(&self, k: u64) -> ChaCha8Rng {
+        assert!(k < MAX_MEMBERS, "member index {k} is not below 2^28");
+        let mut rng = self.rng();
+        if k > 0 {
+            rng.set_word_pos(u128::from(k) * MEMBER_WORDS);
+        }
         rng
     }
 
@@ -141,6 +163,18 @@ mod tests {
         ] {
             assert_ne!(a, other.rng().next_u64(), "{other:?}");
         }
+        // Member 0 is the fit stream itself; other members start elsewhere in it.
+        let mut m0 = base.member_rng(0);
+        let mut fit = base.rng();
+        for _ in 0..100 {
+            assert_eq!(m0.next_u64(), fit.next_u64());
+        }
+        let mut m1 = base.member_rng(1);
+        let mut skip = base.rng();
+        skip.set_word_pos(MEMBER_WORDS);
+        assert_eq!(m1.next_u64(), skip.next_u64());
+        assert_ne!(base.member_rng(1).next_u64(), a);
+        assert_ne!(base.member_rng(2).next_u64(), base.member_rng(1).next_u64());
         // A fit stream is not a replicate stream of the same seed.
         assert_ne!(a, stream(9, purpose::REPLICATE, 5).next_u64());
     }

@@ -158,8 +158,8 @@ fn missing_required_key() {
 fn unknown_family() {
     bad_scenario(
         "family.toml",
-        &edit("\"tree\"", "\"forest\""),
-        &["family.toml:22:", "model.family", "forest"],
+        &edit("\"tree\"", "\"forrest\""),
+        &["family.toml:22:", "model.family", "forrest"],
     );
 }
 

@@ -24,6 +24,14 @@
 //!   neighbours, the prediction is the class of the nearest neighbour (in the order above) that
 //!   belongs to one of the tied classes.
 //!
+//! # Input order
+//!
+//! Permuting the input columns (of training and evaluation inputs alike) leaves the model
+//! unchanged: distances and the standardization are per column and symmetric in the columns. Only
+//! the order in which squared differences are summed changes, which moves distances by rounding;
+//! that can reorder two neighbours only when their distances agree to the last bits. Exact distance
+//! ties are broken by training **row**, never by column (checked in `tests/permutation.rs`).
+//!
 //! # Path fit
 //!
 //! For every evaluation point the `K = max(grid)` nearest neighbours are found once (exact search:

@@ -1,6 +1,6 @@
 //! Small dense linear algebra shared by the linear families (pure Rust, no BLAS/LAPACK):
-//! a left-looking Householder QR with optional dropping of dependent columns (poly, minnorm) and
-//! a one-sided Jacobi SVD (ridge).
+//! a left-looking Householder QR with optional dropping of dependent columns (poly; minnorm and
+//! ridge without dropping) and a one-sided Jacobi SVD (ridge, minnorm).
 
 /// Left-looking Householder QR of a column-major `rows × cols` matrix, optionally dropping
 /// (numerically) dependent columns.
@@ -71,6 +71,14 @@ impl HouseholderQr {
         debug_assert_eq!(y.len(), self.rows);
         for (k, (v, beta)) in self.refl.iter().enumerate() {
             reflect(v, *beta, &mut y[k..]);
+        }
+    }
+
+    /// Replaces `z` (length `rows`) by `Q z` (the reflectors applied in reverse order).
+    pub fn apply_q(&self, z: &mut [f64]) {
+        debug_assert_eq!(z.len(), self.rows);
+        for (k, (v, beta)) in self.refl.iter().enumerate().rev() {
+            reflect(v, *beta, &mut z[k..]);
         }
     }
 

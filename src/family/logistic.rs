@@ -43,6 +43,13 @@
 //! The predicted class is the argmax of the class probabilities (equivalently of `η`); ties go to
 //! the smallest class index (two classes: class 1 only when `η > 0`).
 //!
+//! # Input order
+//!
+//! Standardization is per column and the penalty is symmetric in the weights, so permuting the
+//! inputs permutes the optimal weights and leaves the probabilities unchanged; the solver stops at
+//! a gradient tolerance, so two column orders agree to about that tolerance (checked in
+//! `tests/permutation.rs`).
+//!
 //! # Solver and path fit
 //!
 //! The grid is visited in ascending order of `C` (strongest penalty first). The first value starts

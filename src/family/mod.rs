@@ -21,14 +21,18 @@ use ndarray::{ArrayView1, ArrayView2, ArrayViewMut2, ArrayViewMut3};
 
 pub use crate::rng::FitSeed;
 
+pub mod boost;
 pub mod custom;
 pub mod external;
+pub mod forest;
 pub mod knn;
 pub mod linalg;
 pub mod logistic;
+pub mod minnorm;
 pub mod neighbours;
 pub mod options;
 pub mod poly;
+pub mod random_features;
 pub mod ridge;
 pub mod standardize;
 pub mod tree;
@@ -250,10 +254,26 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "tree",
             knob: "max_depth",
-            meaning: "CART tree depth limit (splits on a root-to-leaf path); larger = more complex",
+            meaning: "CART tree depth limit (splits on a root-to-leaf path); larger = more complex; exact ties between splits are broken at random with the fit seed",
             tasks: "regression (squared-error splits; leaf means of counts suit the poisson loss), classification (gini or entropy)",
             options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (add-alpha smoothing of leaf class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a pure leaf gives a class probability 0)",
             build: Some(tree::build),
+        },
+        FamilyInfo {
+            name: "forest",
+            knob: "trees",
+            meaning: "number of bagged CART trees averaged (or, with knob = \"max_depth\", their depth limit); larger = more complex",
+            tasks: "regression (mean of trees), classification (majority vote; probabilities = mean leaf class shares)",
+            options: "knob = \"trees\" | \"max_depth\" (default trees), max_depth (knob trees; default 64) or trees (knob max_depth; default 100), max_features = whole number | \"sqrt\" | \"third\" | \"all\" (default p/3 regression, sqrt(p) classification), bootstrap = true | false (default true), min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (default 0)",
+            build: Some(forest::build),
+        },
+        FamilyInfo {
+            name: "boost",
+            knob: "rounds",
+            meaning: "boosting rounds of small regression trees (staged predictions; 0 = the constant start); larger = more complex",
+            tasks: "regression (squared loss), classification with two classes (log-loss)",
+            options: "learning_rate (default 0.1), max_depth (default 3), subsample (share of rows per round, default 1), min_samples_leaf (default 1)",
+            build: Some(boost::build),
         },
         FamilyInfo {
             name: "knn",
@@ -278,6 +298,22 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             tasks: "regression",
             options: "none",
             build: Some(ridge::build),
+        },
+        FamilyInfo {
+            name: "minnorm",
+            knob: "features",
+            meaning: "minimum-norm least squares on the first p inputs (pseudo-inverse; interpolates when p > n); larger = more complex",
+            tasks: "regression",
+            options: "intercept = true | false (default false)",
+            build: Some(minnorm::build),
+        },
+        FamilyInfo {
+            name: "random_features",
+            knob: "width",
+            meaning: "minimum-norm least squares on the first `width` random ReLU features of the standardized inputs (drawn from the fit seed); larger = more complex",
+            tasks: "regression",
+            options: "intercept = true | false (default true)",
+            build: Some(random_features::build),
         },
         FamilyInfo {
             name: "logistic",

@@ -14,6 +14,14 @@
 //! than raw powers. With one input this is `1, u, …, u^d`. There are `C(p + d, d)` columns
 //! ([`n_basis`]).
 //!
+//! # Input order
+//!
+//! Permuting the inputs permutes the basis columns within each degree block and so spans the same
+//! space at every degree: the least-squares predictions are unchanged up to rounding (checked in
+//! `tests/permutation.rs`). The one exception is a rank-deficient design, where *which* of several
+//! dependent columns is dropped follows the column order; the fitted values at the training points
+//! are the least-squares fit either way.
+//!
 //! # Path fit
 //!
 //! The columns are graded by total degree (all of degree 0, then all of degree 1, …), so the

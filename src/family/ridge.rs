@@ -14,6 +14,12 @@
 //! (not divided by `n`), the intercept is not penalized, and its solution is `b0 = ȳ`. The
 //! evaluation inputs are standardized with the same training mean and sd.
 //!
+//! # Input order
+//!
+//! Standardization is per column and the penalty `‖β‖²` is symmetric in the coefficients, so
+//! permuting the inputs permutes `β` and leaves the predictions unchanged up to rounding (checked
+//! in `tests/permutation.rs`).
+//!
 //! # Path fit
 //!
 //! `Z = U S Vᵀ` is computed once (Householder QR of `Z` when `n ≥ p`, then a one-sided Jacobi SVD

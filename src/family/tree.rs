@@ -16,14 +16,53 @@
 //! Node predictions are the mean response (regression) or the majority class, ties broken to the
 //! smallest class index (classification).
 //!
-//! # Tie rule (deterministic)
+//! # Tie rule (random, from the fit's stream)
 //!
-//! Splits are compared exactly (no tolerance): among splits with equal impurity decrease the
-//! lower input index wins, then the lower threshold. Inputs are scanned in index order and
-//! thresholds in ascending order, and a candidate replaces the incumbent only if it is strictly
-//! better. For Gini the comparison is done in exact integer arithmetic on class counts (training
-//! sets up to 2²¹ rows; above that, in `f64`), so mathematically equal decreases are recognised as
-//! ties. For squared error and entropy the comparison is on the computed `f64` criterion.
+//! Splits are compared exactly (no tolerance). For Gini the comparison is done in exact integer
+//! arithmetic on class counts (training sets up to 2²¹ rows; above that, in `f64`), so
+//! mathematically equal decreases are recognised as ties. For squared error and entropy the
+//! comparison is on the computed `f64` criterion (entropy is computed from integer counts through
+//! one table, so equal count splits give equal values; for squared error, inputs that order the
+//! node's samples the same way give equal values).
+//!
+//! Among the candidates (input, threshold) that tie for the best decrease, one is chosen
+//! **uniformly at random** with the fit's own stream ([`TieBreak::Random`], the default). The scan
+//! counts, per input, the candidates tied with the best score so far (the counts restart when a
+//! strictly better candidate appears); at the end, if `c > 1` candidates tie, one number
+//! `u ∈ {0, …, c−1}` is drawn and the input holding the `u`-th tied candidate (in scan order) is
+//! scanned once more to find it. The cost stays linear (at most one extra scan of one input per
+//! tied node), nothing is drawn unless there is a tie, and the scan loop itself never calls the
+//! random stream. (Reservoir sampling inside the scan, replacing the incumbent with probability
+//! `1/c` at the `c`-th tie, gives the same distribution but made fully grown trees about 20%
+//! slower: ties are frequent in small nodes, and a call in the loop keeps the incumbent score out
+//! of registers.) No input position is favoured, so the distribution of
+//! the fitted tree does not depend on the order of the input columns; a fixed fit seed still gives
+//! a bit-identical tree. Ties are common: in a node of two samples every input that separates them
+//! gives the same split, and with discrete inputs or class labels equal counts abound. Because the
+//! fit now depends on its seed, [`TreeFamily::caps`] says `stochastic`, and with `fit_seeds ≥ 2`
+//! the engine's `variance_fit` is the share of the variance due to tie-breaking alone.
+//!
+//! [`TieBreak::LowestIndex`] keeps the earlier deterministic rule (lowest input index, then lowest
+//! threshold; inputs scanned in index order, thresholds ascending, a candidate replacing the
+//! incumbent only if strictly better). It is for library use (tests, reproducing older results):
+//! with it a tree depends on the input column order (measured on Friedman #1, relevant inputs
+//! first vs last: about 3% of expected loss at depths 8–12).
+//!
+//! Two things still depend on the column order, at rounding level only: a node's mean response is
+//! summed in the sorted order of the first input, and so is the regression criterion's total.
+//! They change last bits, which can only matter for candidates whose criteria differ in the last
+//! bits anyway.
+//!
+//! # Inputs tried at a node, and repeated rows (ensembles)
+//!
+//! [`GrowOptions::max_features`] below the number of inputs makes each node search a random subset
+//! of the inputs: inputs are drawn without replacement from the tree's stream until that many
+//! inputs *not constant in the node* have been drawn (constant ones have no threshold, as in the
+//! usual random-forest implementations). [`GrowOptions::counts`] grows the tree on a sample in
+//! which training row `i` appears `counts[i]` times (a bootstrap sample, or a subsample with
+//! counts 0/1); the sorted order is read from one [`Presorted`] of the training inputs, so no tree
+//! sorts again. A repeated row counts as that many samples everywhere (node means, class counts,
+//! `min_samples_leaf`).
 //!
 //! # When a node is a leaf
 //!
@@ -36,9 +75,12 @@
 //!
 //! # Path fit
 //!
-//! CART's greedy choice at a node depends only on the samples in that node, never on the depth
-//! limit, so the tree grown to depth `D` and cut at depth `d < D` is exactly the tree grown with
-//! `max_depth = d`, provided every internal node stores its own prediction. [`TreeFamily`] therefore
+//! CART's greedy choice at a node depends only on the samples in that node (and the random draws
+//! it makes), never on the depth limit, so the tree grown to depth `D` and cut at depth `d < D` is
+//! exactly the tree grown with `max_depth = d`, provided every internal node stores its own
+//! prediction. The random draws keep this exact: nodes are grown breadth-first and draw from one
+//! stream in that order, so the draws of the nodes above depth `d` are the same whatever the
+//! depth limit. [`TreeFamily`] therefore
 //! grows one tree to the largest grid depth and, for every evaluation point, walks down once,
 //! recording the node prediction at every depth; grid value `d` reads the value at
 //! `min(d, leaf depth)`.
@@ -46,12 +88,16 @@
 //! # Speed
 //!
 //! Each input's sample indices are sorted once at the root; at every split the sorted lists are
-//! partitioned stably into the two children (no re-sorting). Nodes live in one flat arena and are
-//! grown depth-first with an explicit stack.
+//! partitioned stably into the two children (no re-sorting). Nodes live in one flat arena, in
+//! breadth-first order.
 
+use std::borrow::Cow;
+use std::cmp::Ordering;
 use std::sync::Arc;
 
 use ndarray::{ArrayView1, ArrayView2};
+use rand::Rng;
+use rand_chacha::ChaCha8Rng;
 
 use super::{
     check_out, check_whole_grid, smoothed_shares, BuildContext, Caps, Family, FitError, FitInput,
@@ -89,6 +135,21 @@ pub struct TreeFamily {
     /// Add-α smoothing of a node's class shares given as probabilities:
     /// `q_c = (count_c + α) / (n_node + K α)` (default 0: the plain shares).
     pub alpha: f64,
+    /// How exactly tied best splits are resolved (default: at random with the fit's stream).
+    pub tie_break: TieBreak,
+}
+
+/// How a tree resolves exactly tied best splits (see the module docs).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum TieBreak {
+    /// Uniformly at random among all tied (input, threshold) candidates, drawn from the fit's
+    /// own stream (the default): no input position is favoured.
+    #[default]
+    Random,
+    /// The lowest input index, then the lowest threshold: deterministic, but the result depends
+    /// on the order of the input columns. Library use only (for tests and for reproducing results
+    /// from before random tie-breaks); scenario files cannot select it.
+    LowestIndex,
 }
 
 impl Default for TreeFamily {
@@ -97,6 +158,7 @@ impl Default for TreeFamily {
             min_samples_leaf: 1,
             criterion: Criterion::Gini,
             alpha: 0.0,
+            tie_break: TieBreak::Random,
         }
     }
 }
@@ -241,6 +303,19 @@ struct Split {
     threshold: f64,
 }
 
+impl Split {
+    /// The split sending the first `k + 1` samples of input `feature`'s sorted node list left,
+    /// between the values `a < b`.
+    #[inline]
+    fn new(feature: usize, k: usize, a: f64, b: f64) -> Split {
+        Split {
+            feature,
+            n_left: k + 1,
+            threshold: midpoint(a, b),
+        }
+    }
+}
+
 /// Midpoint between consecutive distinct sorted values `a < b`, guaranteed to satisfy
 /// `a <= t < b` so that `x <= t` separates them exactly even when they are adjacent floats.
 #[inline]
@@ -310,15 +385,151 @@ enum Target<'a> {
     Regress(&'a [f64]),
     Classify {
         labels: &'a [u32],
-        classes: usize,
         criterion: Criterion,
         /// `k ln k` for `k = 0..=n` (entropy only; empty for Gini).
         xlogx: &'a [f64],
     },
 }
 
+/// Training inputs sorted once per input column, shared by every tree grown on the same inputs
+/// (the trees of a forest, the rounds of boosting). Growing a tree on a bootstrap sample or a
+/// subsample reads the sorted order from here instead of sorting again.
+#[derive(Debug, Clone)]
+pub struct Presorted {
+    n: usize,
+    p: usize,
+    /// `order[f*n + k]`: the training row at sorted position `k` of input `f` (equal values in
+    /// row order).
+    order: Vec<u32>,
+    /// `val[f*n + k]`: the matching input value (`-0.0` stored as `0.0`).
+    val: Vec<f64>,
+}
+
+impl Presorted {
+    /// Sorts every column of `x` (`n × p`). Errors on an empty training set, non-finite inputs or
+    /// more than `u32::MAX` rows or columns.
+    pub fn new(x: ArrayView2<f64>) -> Result<Presorted, FitError> {
+        let (n, p) = x.dim();
+        if n == 0 {
+            return Err(FitError("tree: the training set is empty".into()));
+        }
+        if n >= u32::MAX as usize || p >= u32::MAX as usize {
+            return Err(FitError(format!(
+                "tree: training set of {n} × {p} is too large"
+            )));
+        }
+        if let Some(((i, j), &v)) = x.indexed_iter().find(|(_, v)| !v.is_finite()) {
+            return Err(FitError(format!(
+                "tree: input {v} at training row {i}, column {j} is not a finite number"
+            )));
+        }
+        let mut order = vec![0u32; n * p];
+        let mut val = vec![0.0f64; n * p];
+        let mut pairs: Vec<(u64, u32)> = Vec::with_capacity(n);
+        let mut radix_tmp: Vec<(u64, u32)> = vec![(0, 0); n];
+        for f in 0..p {
+            pairs.clear();
+            pairs.extend(
+                x.column(f)
+                    .iter()
+                    .enumerate()
+                    .map(|(i, &v)| (sort_key(v), i as u32)),
+            );
+            // Built in index order, so a stable sort by key is the sort by (key, index).
+            radix_sort_stable(&mut pairs, &mut radix_tmp);
+            let col = x.column(f);
+            for (k, &(_, i)) in pairs.iter().enumerate() {
+                order[f * n + k] = i;
+                val[f * n + k] = col[i as usize] + 0.0;
+            }
+        }
+        Ok(Presorted { n, p, order, val })
+    }
+
+    /// Number of training rows.
+    pub fn rows(&self) -> usize {
+        self.n
+    }
+
+    /// Number of inputs.
+    pub fn inputs(&self) -> usize {
+        self.p
+    }
+}
+
+/// How one tree is grown beyond the family's own settings; ensembles use the last two.
+#[derive(Debug, Clone, Copy)]
+pub struct GrowOptions<'a> {
+    /// Depth limit (root depth 0, so 1 is a single split).
+    pub max_depth: usize,
+    /// Number of inputs tried at each node (see the module docs); `None`, or a number at least
+    /// the number of inputs, tries every input and draws nothing.
+    pub max_features: Option<usize>,
+    /// How many times each training row enters the tree (a bootstrap sample, or 0/1 for a
+    /// subsample); `None`: every row once. A row entered `c` times weighs as `c` rows everywhere,
+    /// including `min_samples_leaf`.
+    pub counts: Option<&'a [u32]>,
+}
+
+impl GrowOptions<'_> {
+    /// Every input at every node, every row once, grown to `max_depth`.
+    pub fn depth(max_depth: usize) -> GrowOptions<'static> {
+        GrowOptions {
+            max_depth,
+            max_features: None,
+            counts: None,
+        }
+    }
+}
+
+/// The candidates tied for the best split found so far at a node, as runs
+/// `(position in the node's input list, number of tied candidates of that input)` in scan order.
+/// At most one run per input, so the size is bounded by the number of inputs.
+#[derive(Debug, Default)]
+struct TieRuns {
+    runs: Vec<(usize, u64)>,
+}
+
+impl TieRuns {
+    fn clear(&mut self) {
+        self.runs.clear();
+    }
+
+    /// A new best candidate (from input position `pos`): the only one so far.
+    #[inline]
+    fn reset(&mut self, pos: usize) {
+        self.runs.clear();
+        self.runs.push((pos, 1));
+    }
+
+    /// Another candidate equal to the best.
+    #[inline]
+    fn add(&mut self, pos: usize) {
+        match self.runs.last_mut() {
+            Some(run) if run.0 == pos => run.1 += 1,
+            _ => self.runs.push((pos, 1)),
+        }
+    }
+
+    fn total(&self) -> u64 {
+        self.runs.iter().map(|r| r.1).sum()
+    }
+
+    /// The input position and rank within that input of tied candidate `pick` (scan order).
+    fn locate(&self, mut pick: u64) -> (usize, u64) {
+        for &(pos, count) in &self.runs {
+            if pick < count {
+                return (pos, pick);
+            }
+            pick -= count;
+        }
+        unreachable!("pick below the number of tied candidates")
+    }
+}
+
 /// Scratch and sorted lists shared by the whole growth of one tree.
 struct Grower<'a> {
+    /// Number of samples (training rows counted with their multiplicity).
     n: usize,
     p: usize,
     /// `idx[f*n + k]`: sample index at sorted position `k` of input `f` (within the node's range).
@@ -333,12 +544,24 @@ struct Grower<'a> {
     left_counts: Vec<u64>,
     min_leaf: usize,
     target: Target<'a>,
+    /// Inputs searched at the current node.
+    feats: Vec<usize>,
+    /// Inputs tried at each node (`p` = all, no draws).
+    max_features: usize,
+    /// Scratch permutation for drawing the node's inputs.
+    perm: Vec<usize>,
+    /// Break exact ties at random (else: lowest input, then lowest threshold).
+    random_ties: bool,
+    /// Where the candidates tied for the best split are (scratch).
+    tie_runs: TieRuns,
+    rng: &'a mut ChaCha8Rng,
 }
 
 impl TreeFamily {
     /// Grows one tree on `x` (`n × p`) and `y` to depth `max_depth` (root depth 0, so
-    /// `max_depth = 1` is one split). Every node stores its prediction, so the result can be read
-    /// at any shallower depth with [`Tree::predict_at_depth`].
+    /// `max_depth = 1` is one split), breaking exact ties with `rng` (see the module docs; the
+    /// family's fit passes its fit stream). Every node stores its prediction, so the result can
+    /// be read at any shallower depth with [`Tree::predict_at_depth`].
     ///
     /// Errors on an empty training set, mismatched lengths, non-finite inputs or responses, labels
     /// that are not class indices `0..classes`, or more than `u32::MAX` rows.
@@ -348,21 +571,51 @@ impl TreeFamily {
         y: ArrayView1<f64>,
         task: Task,
         max_depth: usize,
+        rng: &mut ChaCha8Rng,
     ) -> Result<Tree, FitError> {
-        let (n, p) = x.dim();
-        if n == 0 {
-            return Err(FitError("tree: the training set is empty".into()));
-        }
-        if y.len() != n {
+        let pre = Presorted::new(x)?;
+        self.grow_from(
+            Cow::Owned(pre),
+            y,
+            task,
+            &GrowOptions::depth(max_depth),
+            rng,
+        )
+    }
+
+    /// Grows one tree on presorted inputs with the given [`GrowOptions`]; with
+    /// `GrowOptions::depth(d)` this is [`TreeFamily::grow`]. `y` holds one response per training
+    /// row. Draws from `rng`, in this order: the inputs tried at each node (only when
+    /// `max_features` is below the number of inputs) and the exact ties, node by node in
+    /// breadth-first order — so the tree grown to depth `D` and cut at `d` equals the tree grown
+    /// to `d` with the same stream.
+    pub fn grow_presorted(
+        &self,
+        pre: &Presorted,
+        y: ArrayView1<f64>,
+        task: Task,
+        opts: &GrowOptions<'_>,
+        rng: &mut ChaCha8Rng,
+    ) -> Result<Tree, FitError> {
+        self.grow_from(Cow::Borrowed(pre), y, task, opts, rng)
+    }
+
+    /// [`TreeFamily::grow_presorted`] on sorted lists it may own (then, without row counts, they
+    /// become the tree's working lists without a copy).
+    fn grow_from(
+        &self,
+        pre: Cow<'_, Presorted>,
+        y: ArrayView1<f64>,
+        task: Task,
+        opts: &GrowOptions<'_>,
+        rng: &mut ChaCha8Rng,
+    ) -> Result<Tree, FitError> {
+        let (rows, p) = (pre.n, pre.p);
+        if y.len() != rows {
             return Err(FitError(format!(
                 "tree: {} training rows but {} responses",
-                n,
+                rows,
                 y.len()
-            )));
-        }
-        if n >= u32::MAX as usize || p >= u32::MAX as usize {
-            return Err(FitError(format!(
-                "tree: training set of {n} × {p} is too large"
             )));
         }
         if let Some((i, &v)) = y.iter().enumerate().find(|(_, v)| !v.is_finite()) {
@@ -370,33 +623,77 @@ impl TreeFamily {
                 "tree: response {v} at training row {i} is not a finite number"
             )));
         }
-        if let Some(((i, j), &v)) = x.indexed_iter().find(|(_, v)| !v.is_finite()) {
-            return Err(FitError(format!(
-                "tree: input {v} at training row {i}, column {j} is not a finite number"
-            )));
+        if let Task::Classify { classes } = task {
+            if classes == 0 || classes > u32::MAX as usize {
+                return Err(FitError(format!(
+                    "tree: invalid number of classes {classes}"
+                )));
+            }
+            if let Some((i, &v)) = y
+                .iter()
+                .enumerate()
+                .find(|(_, &v)| v < 0.0 || v.fract() != 0.0 || v >= classes as f64)
+            {
+                return Err(FitError(format!(
+                    "tree: label {v} at training row {i} is not a class index in 0..{classes}"
+                )));
+            }
         }
 
-        let yv: Vec<f64> = y.iter().copied().collect();
+        // Samples: every row once, or row i repeated counts[i] times (sample ids of a row are
+        // consecutive and increase with the row, so the expanded sorted lists are sorted by
+        // (value, sample id) exactly as if the repeated rows had been sorted afresh).
+        let (n, idx, val, yv) = match opts.counts {
+            None => {
+                let pre = pre.into_owned();
+                (rows, pre.order, pre.val, y.to_vec())
+            }
+            Some(counts) => {
+                if counts.len() != rows {
+                    return Err(FitError(format!(
+                        "tree: {} row counts for {rows} training rows",
+                        counts.len()
+                    )));
+                }
+                let total: u64 = counts.iter().map(|&c| u64::from(c)).sum();
+                if total == 0 {
+                    return Err(FitError("tree: the training sample is empty".into()));
+                }
+                if total >= u64::from(u32::MAX) {
+                    return Err(FitError(format!(
+                        "tree: training sample of {total} rows is too large"
+                    )));
+                }
+                let n = total as usize;
+                let mut base = Vec::with_capacity(rows);
+                let mut yv = Vec::with_capacity(n);
+                let mut next = 0u32;
+                for (i, &c) in counts.iter().enumerate() {
+                    base.push(next);
+                    next += c;
+                    yv.extend(std::iter::repeat(y[i]).take(c as usize));
+                }
+                let mut idx = Vec::with_capacity(n * p);
+                let mut val = Vec::with_capacity(n * p);
+                for f in 0..p {
+                    let order = &pre.order[f * rows..(f + 1) * rows];
+                    let vals = &pre.val[f * rows..(f + 1) * rows];
+                    for (&i, &v) in order.iter().zip(vals) {
+                        let (b, c) = (base[i as usize], counts[i as usize]);
+                        idx.extend(b..b + c);
+                        val.extend(std::iter::repeat(v).take(c as usize));
+                    }
+                }
+                (n, idx, val, yv)
+            }
+        };
+
         let labels: Vec<u32>;
         let xlogx: Vec<f64>;
         let target = match task {
             Task::Regress => Target::Regress(&yv),
-            Task::Classify { classes } => {
-                if classes == 0 || classes > u32::MAX as usize {
-                    return Err(FitError(format!(
-                        "tree: invalid number of classes {classes}"
-                    )));
-                }
-                let mut l = Vec::with_capacity(n);
-                for (i, &v) in yv.iter().enumerate() {
-                    if v < 0.0 || v.fract() != 0.0 || v >= classes as f64 {
-                        return Err(FitError(format!(
-                            "tree: label {v} at training row {i} is not a class index in 0..{classes}"
-                        )));
-                    }
-                    l.push(v as u32);
-                }
-                labels = l;
+            Task::Classify { .. } => {
+                labels = yv.iter().map(|&v| v as u32).collect();
                 xlogx = if self.criterion == Criterion::Entropy {
                     (0..=n)
                         .map(|k| {
@@ -413,38 +710,12 @@ impl TreeFamily {
                 };
                 Target::Classify {
                     labels: &labels,
-                    classes,
                     criterion: self.criterion,
                     xlogx: &xlogx,
                 }
             }
         };
-
-        // Presort every input once.
-        let mut idx = vec![0u32; n * p];
-        let mut val = vec![0.0f64; n * p];
-        let mut pairs: Vec<(u64, u32)> = Vec::with_capacity(n);
-        let mut radix_tmp: Vec<(u64, u32)> = vec![(0, 0); n];
-        for f in 0..p {
-            pairs.clear();
-            pairs.extend(
-                x.column(f)
-                    .iter()
-                    .enumerate()
-                    .map(|(i, &v)| (sort_key(v), i as u32)),
-            );
-            // Built in index order, so a stable sort by key is the sort by (key, index).
-            radix_sort_stable(&mut pairs, &mut radix_tmp);
-            let col = x.column(f);
-            for (k, &(_, i)) in pairs.iter().enumerate() {
-                idx[f * n + k] = i;
-                val[f * n + k] = col[i as usize] + 0.0;
-            }
-        }
-        let classes = match task {
-            Task::Classify { classes } => classes,
-            Task::Regress => 0,
-        };
+        let classes = task.classes();
         let mut g = Grower {
             n,
             p,
@@ -457,8 +728,14 @@ impl TreeFamily {
             left_counts: vec![0; classes],
             min_leaf: self.min_samples_leaf.max(1),
             target,
+            feats: Vec::with_capacity(p),
+            max_features: opts.max_features.map_or(p, |m| m.clamp(1, p.max(1))),
+            perm: Vec::with_capacity(p),
+            random_ties: self.tie_break == TieBreak::Random,
+            tie_runs: TieRuns::default(),
+            rng,
         };
-        Ok(g.grow(max_depth))
+        Ok(g.grow(opts.max_depth))
     }
 }
 
@@ -489,15 +766,19 @@ impl Grower<'_> {
                 classes,
             };
         }
-        // (node, start, end, depth)
-        let mut stack: Vec<(u32, u32, u32, u32)> = vec![(0, 0, n as u32, 0)];
-        while let Some((node, start, end, depth)) = stack.pop() {
+        // Breadth-first: nodes are processed in arena order, which is level order, so the random
+        // draws of the nodes above depth d do not depend on the depth limit. ranges[node] =
+        // (start, end, depth).
+        let mut ranges: Vec<(u32, u32, u32)> = vec![(0, n as u32, 0)];
+        let mut node = 0usize;
+        while node < nodes.len() {
+            let (start, end, depth) = ranges[node];
             let (start, end, depth) = (start as usize, end as usize, depth as usize);
             tree_depth = tree_depth.max(depth);
             let (value, splittable) = self.node_summary(start, end);
-            nodes[node as usize].value = value;
+            nodes[node].value = value;
             if classes > 0 {
-                let at = node as usize * classes;
+                let at = node * classes;
                 if counts.len() < at + classes {
                     counts.resize(at + classes, 0);
                 }
@@ -505,11 +786,14 @@ impl Grower<'_> {
                     *c = k as u32;
                 }
             }
+            let this = node;
+            node += 1;
             let len = end - start;
             let Some(stats) = splittable else { continue };
             if depth >= max_depth || len < 2 * self.min_leaf {
                 continue;
             }
+            self.choose_features(start, end);
             let Some(split) = self.best_split(start, end, stats) else {
                 continue;
             };
@@ -523,14 +807,14 @@ impl Grower<'_> {
             };
             nodes.push(blank);
             nodes.push(blank);
-            let nd = &mut nodes[node as usize];
+            let nd = &mut nodes[this];
             nd.feature = split.feature as u32;
             nd.threshold = split.threshold;
             nd.left = left;
-            let mid = start + split.n_left;
+            let mid = (start + split.n_left) as u32;
             let cd = (depth + 1) as u32;
-            stack.push((left + 1, mid as u32, end as u32, cd));
-            stack.push((left, start as u32, mid as u32, cd));
+            ranges.push((start as u32, mid, cd));
+            ranges.push((mid, end as u32, cd));
         }
         counts.resize(nodes.len() * classes, 0);
         Tree {
@@ -539,6 +823,33 @@ impl Grower<'_> {
             n_features: self.p,
             counts,
             classes,
+        }
+    }
+
+    /// Fills `self.feats` with the inputs searched at the node `start..end`: every input in index
+    /// order when `max_features ≥ p` (no draws); otherwise inputs are drawn without replacement
+    /// (a partial Fisher–Yates shuffle from the tree's stream) until `max_features` inputs that
+    /// are not constant in the node have been drawn or none is left. Constant inputs have no
+    /// threshold, so skipping them only avoids wasting the node's budget on them.
+    fn choose_features(&mut self, start: usize, end: usize) {
+        self.feats.clear();
+        if self.max_features >= self.p {
+            self.feats.extend(0..self.p);
+            return;
+        }
+        let n = self.n;
+        self.perm.clear();
+        self.perm.extend(0..self.p);
+        for i in 0..self.p {
+            if self.feats.len() >= self.max_features {
+                break;
+            }
+            let j = self.rng.gen_range(i..self.p);
+            self.perm.swap(i, j);
+            let f = self.perm[i];
+            if self.val[f * n + start] != self.val[f * n + end - 1] {
+                self.feats.push(f);
+            }
         }
     }
 
@@ -593,192 +904,234 @@ impl Grower<'_> {
             Target::Regress(y) => self.best_split_regress(y, start, end, stats),
             Target::Classify {
                 labels,
-                classes,
                 criterion: Criterion::Gini,
                 ..
-            } => self.best_split_gini(labels, classes, start, end),
+            } => self.best_split_gini(labels, start, end),
             Target::Classify {
                 labels,
-                classes,
                 criterion: Criterion::Entropy,
                 xlogx,
-            } => self.best_split_entropy(labels, classes, xlogx, start, end),
+                ..
+            } => self.best_split_entropy(labels, xlogx, start, end),
         }
     }
 
+    /// The sorted lists of input `f` over the node's range.
+    #[inline]
+    fn lists(&self, f: usize, start: usize, end: usize) -> (&[u32], &[f64]) {
+        let n = self.n;
+        (
+            &self.idx[f * n + start..f * n + end],
+            &self.val[f * n + start..f * n + end],
+        )
+    }
+
+    /// Among the candidates tied for the best score (recorded as `runs`), draws the one to keep:
+    /// `Some((position in self.feats, rank among that input's tied candidates))`, or `None` when
+    /// there is nothing to draw (a single best candidate, or the lowest-index rule, which keeps
+    /// the first one found).
+    fn draw_tie(&mut self, runs: &TieRuns) -> Option<(usize, u64)> {
+        let ties = runs.total();
+        if ties <= 1 || !self.random_ties {
+            return None;
+        }
+        Some(runs.locate(self.rng.gen_range(0..ties)))
+    }
+
     fn best_split_regress(
-        &self,
+        &mut self,
         y: &[f64],
         start: usize,
         end: usize,
         (mean, sse): (f64, f64),
     ) -> Option<Split> {
-        let (n, len, ml) = (self.n, end - start, self.min_leaf);
+        let (len, ml) = (end - start, self.min_leaf);
         // Total of the centred responses (zero up to rounding), in feature-0 order.
         let tc: f64 = self.idx[start..end]
             .iter()
             .map(|&i| y[i as usize] - mean)
             .sum();
+        // The scan: the best score, the first candidate attaining it, and where the others are.
         let mut best_score = f64::NEG_INFINITY;
         let mut best: Option<Split> = None;
-        for f in 0..self.p {
-            let idx = &self.idx[f * n + start..f * n + end];
-            let val = &self.val[f * n + start..f * n + end];
-            let mut sl = 0.0;
-            for &i in &idx[..ml - 1] {
-                sl += y[i as usize] - mean;
-            }
-            // Candidate: first nl = k + 1 samples go left.
-            for k in (ml - 1)..(len - ml) {
-                sl += y[idx[k] as usize] - mean;
-                let (a, b) = (val[k], val[k + 1]);
-                if a == b {
-                    continue;
-                }
-                let nl = (k + 1) as f64;
-                let nr = (len - k - 1) as f64;
-                let sr = tc - sl;
-                let score = sl * sl / nl + sr * sr / nr;
+        let mut runs = std::mem::take(&mut self.tie_runs);
+        runs.clear();
+        for (pos, &f) in self.feats.iter().enumerate() {
+            let (idx, val) = self.lists(f, start, end);
+            scan_regress(idx, val, y, mean, tc, ml, |k, score, a, b| {
                 if score > best_score {
                     best_score = score;
-                    best = Some(Split {
-                        feature: f,
-                        n_left: k + 1,
-                        threshold: midpoint(a, b),
-                    });
+                    runs.reset(pos);
+                    best = Some(Split::new(f, k, a, b));
+                } else if score == best_score {
+                    runs.add(pos);
                 }
-            }
+            });
         }
         let decrease = best_score - tc * tc / len as f64;
         if decrease > REL_TOL * sse {
-            best
+            // At a tie: rescan the one input holding the drawn candidate.
+            if let Some((pos, rank)) = self.draw_tie(&runs) {
+                let f = self.feats[pos];
+                let (idx, val) = self.lists(f, start, end);
+                let mut seen = 0u64;
+                scan_regress(idx, val, y, mean, tc, ml, |k, score, a, b| {
+                    if score == best_score {
+                        if seen == rank {
+                            best = Some(Split::new(f, k, a, b));
+                        }
+                        seen += 1;
+                    }
+                });
+            }
         } else {
-            None
+            best = None;
         }
+        self.tie_runs = runs;
+        best
     }
 
-    fn best_split_gini(
-        &mut self,
-        labels: &[u32],
-        classes: usize,
-        start: usize,
-        end: usize,
-    ) -> Option<Split> {
-        let (n, len, ml) = (self.n, end - start, self.min_leaf);
-        let exact = n <= EXACT_GINI_MAX_N;
+    fn best_split_gini(&mut self, labels: &[u32], start: usize, end: usize) -> Option<Split> {
+        let len = end - start;
+        let exact = self.n <= EXACT_GINI_MAX_N;
         // Σ_c t_c² for the node.
         let st2: u64 = self.counts.iter().map(|&c| c * c).sum();
-        // Incumbent score as a fraction num/den = (sl2·nr + sr2·nl)/(nl·nr); start from the
-        // parent's Σt²/len so that only strictly positive decreases are accepted.
+        // Incumbent score as a fraction num/den = (sl2·nr + sr2·nl)/(nl·nr) (exact) or as an f64;
+        // start from the parent's Σt²/len so that only strictly positive decreases are accepted.
         let mut best_num = st2;
         let mut best_den = len as u64;
         let mut best_f = st2 as f64 / len as f64;
         let mut best: Option<Split> = None;
-        for f in 0..self.p {
-            let idx = &self.idx[f * n + start..f * n + end];
-            let val = &self.val[f * n + start..f * n + end];
-            self.left_counts[..classes].iter_mut().for_each(|c| *c = 0);
-            let lc = &mut self.left_counts;
-            let tcnt = &self.counts;
-            let mut sl2: u64 = 0;
-            let mut sr2: u64 = st2;
-            let mut step = |i: u32, sl2: &mut u64, sr2: &mut u64| {
-                let c = labels[i as usize] as usize;
-                let l = lc[c];
-                let r = tcnt[c] - l;
-                *sl2 += 2 * l + 1;
-                *sr2 -= 2 * r - 1;
-                lc[c] = l + 1;
-            };
-            for &i in &idx[..ml - 1] {
-                step(i, &mut sl2, &mut sr2);
+        let cmp = |num: u64, den: u64, s: f64, best_num: u64, best_den: u64, best_f: f64| {
+            if exact {
+                ((num as u128) * (best_den as u128)).cmp(&((best_num as u128) * (den as u128)))
+            } else {
+                s.partial_cmp(&best_f).unwrap_or(Ordering::Less)
             }
-            for k in (ml - 1)..(len - ml) {
-                step(idx[k], &mut sl2, &mut sr2);
-                let (a, b) = (val[k], val[k + 1]);
-                if a == b {
-                    continue;
-                }
-                let nl = (k + 1) as u64;
-                let nr = (len - k - 1) as u64;
-                let better = if exact {
-                    let num = sl2 * nr + sr2 * nl;
-                    let den = nl * nr;
-                    if (num as u128) * (best_den as u128) > (best_num as u128) * (den as u128) {
-                        best_num = num;
-                        best_den = den;
-                        true
-                    } else {
-                        false
+        };
+        let mut lc = std::mem::take(&mut self.left_counts);
+        let mut runs = std::mem::take(&mut self.tie_runs);
+        runs.clear();
+        let ml = self.min_leaf;
+        for (pos, &f) in self.feats.iter().enumerate() {
+            let (idx, val) = self.lists(f, start, end);
+            scan_gini(
+                idx,
+                val,
+                labels,
+                &self.counts,
+                &mut lc,
+                st2,
+                ml,
+                |k, num, den, s, a, b| {
+                    match cmp(num, den, s, best_num, best_den, best_f) {
+                        Ordering::Greater => {
+                            (best_num, best_den, best_f) = (num, den, s);
+                            runs.reset(pos);
+                            best = Some(Split::new(f, k, a, b));
+                        }
+                        // A candidate equal to the parent's score (best still None) is no decrease.
+                        Ordering::Equal if best.is_some() => runs.add(pos),
+                        _ => {}
                     }
-                } else {
-                    let s = sl2 as f64 / nl as f64 + sr2 as f64 / nr as f64;
-                    if s > best_f {
-                        best_f = s;
-                        true
-                    } else {
-                        false
-                    }
-                };
-                if better {
-                    best = Some(Split {
-                        feature: f,
-                        n_left: k + 1,
-                        threshold: midpoint(a, b),
-                    });
-                }
+                },
+            );
+        }
+        if best.is_some() {
+            if let Some((pos, rank)) = self.draw_tie(&runs) {
+                let f = self.feats[pos];
+                let (idx, val) = self.lists(f, start, end);
+                let mut seen = 0u64;
+                scan_gini(
+                    idx,
+                    val,
+                    labels,
+                    &self.counts,
+                    &mut lc,
+                    st2,
+                    ml,
+                    |k, num, den, s, a, b| {
+                        if cmp(num, den, s, best_num, best_den, best_f).is_eq() {
+                            if seen == rank {
+                                best = Some(Split::new(f, k, a, b));
+                            }
+                            seen += 1;
+                        }
+                    },
+                );
             }
         }
+        self.left_counts = lc;
+        self.tie_runs = runs;
         best
     }
 
     fn best_split_entropy(
         &mut self,
         labels: &[u32],
-        classes: usize,
         xlogx: &[f64],
         start: usize,
         end: usize,
     ) -> Option<Split> {
-        let (n, len, ml) = (self.n, end - start, self.min_leaf);
+        let len = end - start;
         // n·H = n ln n - Σ_c t_c ln t_c.
         let parent_cost = xlogx[len] - self.counts.iter().map(|&c| xlogx[c as usize]).sum::<f64>();
         let mut best_cost = f64::INFINITY;
         let mut best: Option<Split> = None;
-        for f in 0..self.p {
-            let idx = &self.idx[f * n + start..f * n + end];
-            let val = &self.val[f * n + start..f * n + end];
-            self.left_counts[..classes].iter_mut().for_each(|c| *c = 0);
-            for &i in &idx[..ml - 1] {
-                self.left_counts[labels[i as usize] as usize] += 1;
-            }
-            for k in (ml - 1)..(len - ml) {
-                self.left_counts[labels[idx[k] as usize] as usize] += 1;
-                let (a, b) = (val[k], val[k + 1]);
-                if a == b {
-                    continue;
-                }
-                let nl = k + 1;
-                let nr = len - nl;
-                let mut cost = xlogx[nl] + xlogx[nr];
-                for (&l, &t) in self.left_counts.iter().zip(self.counts.iter()) {
-                    cost -= xlogx[l as usize] + xlogx[(t - l) as usize];
-                }
-                if cost < best_cost {
-                    best_cost = cost;
-                    best = Some(Split {
-                        feature: f,
-                        n_left: nl,
-                        threshold: midpoint(a, b),
-                    });
-                }
-            }
+        let mut lc = std::mem::take(&mut self.left_counts);
+        let mut runs = std::mem::take(&mut self.tie_runs);
+        runs.clear();
+        let ml = self.min_leaf;
+        for (pos, &f) in self.feats.iter().enumerate() {
+            let (idx, val) = self.lists(f, start, end);
+            scan_entropy(
+                idx,
+                val,
+                labels,
+                xlogx,
+                &self.counts,
+                &mut lc,
+                ml,
+                |k, cost, a, b| {
+                    if cost < best_cost {
+                        best_cost = cost;
+                        runs.reset(pos);
+                        best = Some(Split::new(f, k, a, b));
+                    } else if cost == best_cost {
+                        runs.add(pos);
+                    }
+                },
+            );
         }
         if parent_cost - best_cost > REL_TOL * xlogx[len] {
-            best
+            if let Some((pos, rank)) = self.draw_tie(&runs) {
+                let f = self.feats[pos];
+                let (idx, val) = self.lists(f, start, end);
+                let mut seen = 0u64;
+                scan_entropy(
+                    idx,
+                    val,
+                    labels,
+                    xlogx,
+                    &self.counts,
+                    &mut lc,
+                    ml,
+                    |k, cost, a, b| {
+                        if cost == best_cost {
+                            if seen == rank {
+                                best = Some(Split::new(f, k, a, b));
+                            }
+                            seen += 1;
+                        }
+                    },
+                );
+            }
         } else {
-            None
+            best = None;
         }
+        self.left_counts = lc;
+        self.tie_runs = runs;
+        best
     }
 
     /// Stably partitions every input's sorted range `start..end` into the left child's samples
@@ -819,6 +1172,115 @@ impl Grower<'_> {
     }
 }
 
+/// Visits every candidate split of one input's sorted node lists for squared error:
+/// `visit(k, score, a, b)` for "the first `k + 1` samples go left", with
+/// `score = s_l²/n_l + s_r²/n_r` (centred sums) and `a < b` the values around the threshold.
+#[inline(always)]
+fn scan_regress(
+    idx: &[u32],
+    val: &[f64],
+    y: &[f64],
+    mean: f64,
+    tc: f64,
+    ml: usize,
+    mut visit: impl FnMut(usize, f64, f64, f64),
+) {
+    let len = idx.len();
+    let mut sl = 0.0;
+    for &i in &idx[..ml - 1] {
+        sl += y[i as usize] - mean;
+    }
+    for k in (ml - 1)..(len - ml) {
+        sl += y[idx[k] as usize] - mean;
+        let (a, b) = (val[k], val[k + 1]);
+        if a == b {
+            continue;
+        }
+        let nl = (k + 1) as f64;
+        let nr = (len - k - 1) as f64;
+        let sr = tc - sl;
+        visit(k, sl * sl / nl + sr * sr / nr, a, b);
+    }
+}
+
+/// Visits every candidate split of one input for Gini: `visit(k, num, den, s, a, b)` with the
+/// children's `Σ_c count_c²/size` summed as the exact fraction `num/den` and as the `f64` `s`.
+/// `lc` is scratch for the left class counts; `tcnt` the node's class counts, `st2 = Σ tcnt²`.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn scan_gini(
+    idx: &[u32],
+    val: &[f64],
+    labels: &[u32],
+    tcnt: &[u64],
+    lc: &mut [u64],
+    st2: u64,
+    ml: usize,
+    mut visit: impl FnMut(usize, u64, u64, f64, f64, f64),
+) {
+    let len = idx.len();
+    lc.iter_mut().for_each(|c| *c = 0);
+    let mut sl2: u64 = 0;
+    let mut sr2: u64 = st2;
+    let mut step = |i: u32, sl2: &mut u64, sr2: &mut u64| {
+        let c = labels[i as usize] as usize;
+        let l = lc[c];
+        let r = tcnt[c] - l;
+        *sl2 += 2 * l + 1;
+        *sr2 -= 2 * r - 1;
+        lc[c] = l + 1;
+    };
+    for &i in &idx[..ml - 1] {
+        step(i, &mut sl2, &mut sr2);
+    }
+    for k in (ml - 1)..(len - ml) {
+        step(idx[k], &mut sl2, &mut sr2);
+        let (a, b) = (val[k], val[k + 1]);
+        if a == b {
+            continue;
+        }
+        let nl = (k + 1) as u64;
+        let nr = (len - k - 1) as u64;
+        let s = sl2 as f64 / nl as f64 + sr2 as f64 / nr as f64;
+        visit(k, sl2 * nr + sr2 * nl, nl * nr, s, a, b);
+    }
+}
+
+/// Visits every candidate split of one input for entropy: `visit(k, cost, a, b)` with
+/// `cost = Σ_children (n ln n − Σ_c count_c ln count_c)` from the `xlogx` table.
+#[allow(clippy::too_many_arguments)]
+#[inline(always)]
+fn scan_entropy(
+    idx: &[u32],
+    val: &[f64],
+    labels: &[u32],
+    xlogx: &[f64],
+    tcnt: &[u64],
+    lc: &mut [u64],
+    ml: usize,
+    mut visit: impl FnMut(usize, f64, f64, f64),
+) {
+    let len = idx.len();
+    lc.iter_mut().for_each(|c| *c = 0);
+    for &i in &idx[..ml - 1] {
+        lc[labels[i as usize] as usize] += 1;
+    }
+    for k in (ml - 1)..(len - ml) {
+        lc[labels[idx[k] as usize] as usize] += 1;
+        let (a, b) = (val[k], val[k + 1]);
+        if a == b {
+            continue;
+        }
+        let nl = k + 1;
+        let nr = len - nl;
+        let mut cost = xlogx[nl] + xlogx[nr];
+        for (&l, &t) in lc.iter().zip(tcnt) {
+            cost -= xlogx[l as usize] + xlogx[(t - l) as usize];
+        }
+        visit(k, cost, a, b);
+    }
+}
+
 /// Converts grid values to depths, rejecting anything that is not a whole number in `1..=64`.
 fn grid_depths(grid: &[f64]) -> Result<Vec<usize>, FitError> {
     check_whole_grid(grid, "max_depth", 1.0, MAX_GRID_DEPTH as f64).map_err(FitError)?;
@@ -850,6 +1312,7 @@ impl Family for TreeFamily {
             probabilities: matches!(task, Task::Classify { .. }),
             // averages of training responses: never negative on counts
             positive: task == Task::Regress,
+            stochastic: self.tie_break == TieBreak::Random,
             ..Caps::default()
         }
     }
@@ -878,7 +1341,7 @@ impl Family for TreeFamily {
                 "tree: evaluation input {v} at row {e}, column {j} is not a number"
             )));
         }
-        let tree = self.grow(input.x, input.y, input.task, deepest)?;
+        let tree = self.grow(input.x, input.y, input.task, deepest, &mut input.seed.rng())?;
         let eval = input.eval.as_standard_layout();
         let rows = eval
             .as_slice()
@@ -922,9 +1385,15 @@ impl Family for TreeFamily {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::rng::FitSeed;
     use ndarray::{Array1, Array2};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
+
+    /// The stream of `FitSeed::fixed(0)`, which the family's own fits use in these tests.
+    fn seed0() -> ChaCha8Rng {
+        FitSeed::fixed(0).rng()
+    }
 
     fn random_x(rng: &mut ChaCha8Rng, n: usize, p: usize) -> Array2<f64> {
         Array2::from_shape_fn((n, p), |_| rng.gen::<f64>())
@@ -970,19 +1439,19 @@ mod tests {
             ),
             (
                 TreeFamily {
-                    alpha: 0.0,
                     min_samples_leaf: 3,
                     criterion: Criterion::Entropy,
+                    ..TreeFamily::default()
                 },
                 yc.view(),
                 Task::Classify { classes: 3 },
             ),
         ];
         for (fam, y, task) in cases {
-            let deep = fam.grow(x.view(), y, task, 8).unwrap();
+            let deep = fam.grow(x.view(), y, task, 8, &mut seed0()).unwrap();
             assert_eq!(deep.depth(), 8);
             for d in 1..=8 {
-                let shallow = fam.grow(x.view(), y, task, d).unwrap();
+                let shallow = fam.grow(x.view(), y, task, d, &mut seed0()).unwrap();
                 assert!(shallow.depth() <= d);
                 for row in eval.rows() {
                     assert_eq!(
@@ -1004,7 +1473,7 @@ mod tests {
             fam.fit_predict(&input, &grid, crate::family::Out::values(out.view_mut()))
                 .unwrap();
             for d in 1..=8 {
-                let shallow = fam.grow(x.view(), y, task, d).unwrap();
+                let shallow = fam.grow(x.view(), y, task, d, &mut seed0()).unwrap();
                 for (e, row) in eval.rows().into_iter().enumerate() {
                     assert_eq!(out[[d - 1, e]], shallow.predict_at_depth(row, 64));
                 }
@@ -1022,7 +1491,9 @@ mod tests {
         let x = Array2::from_shape_fn((7, 2), |(i, j)| if j == 0 { x1[i] } else { x2[i] });
         let y = Array1::from_iter(x1.iter().map(|&v| if v <= 0.3 { 5.0 } else { 1.0 }));
         let fam = TreeFamily::default();
-        let tree = fam.grow(x.view(), y.view(), Task::Regress, 1).unwrap();
+        let tree = fam
+            .grow(x.view(), y.view(), Task::Regress, 1, &mut seed0())
+            .unwrap();
         assert_eq!(tree.n_nodes(), 3);
         let root = tree.nodes[0];
         assert_eq!(root.feature, 0);
@@ -1032,7 +1503,9 @@ mod tests {
         // Root stores the overall mean (3·5 + 4·1)/7.
         assert_eq!(root.value, 19.0 / 7.0);
         // Pure children stay leaves even when deeper growth is allowed.
-        let deep = fam.grow(x.view(), y.view(), Task::Regress, 10).unwrap();
+        let deep = fam
+            .grow(x.view(), y.view(), Task::Regress, 10, &mut seed0())
+            .unwrap();
         assert_eq!(deep.n_nodes(), 3);
     }
 
@@ -1043,7 +1516,7 @@ mod tests {
         let x = random_x(&mut rng, 250, 3);
         let y = regress_y(&mut rng, &x);
         let tree = TreeFamily::default()
-            .grow(x.view(), y.view(), Task::Regress, 64)
+            .grow(x.view(), y.view(), Task::Regress, 64, &mut seed0())
             .unwrap();
         assert_eq!(tree.n_nodes(), 2 * 250 - 1);
         for (i, row) in x.rows().into_iter().enumerate() {
@@ -1060,15 +1533,15 @@ mod tests {
         for ml in [1, 4, 9] {
             for criterion in [Criterion::Gini, Criterion::Entropy] {
                 let fam = TreeFamily {
-                    alpha: 0.0,
                     min_samples_leaf: ml,
                     criterion,
+                    ..TreeFamily::default()
                 };
                 for (y, task) in [
                     (yr.view(), Task::Regress),
                     (yc.view(), Task::Classify { classes: 3 }),
                 ] {
-                    let tree = fam.grow(x.view(), y, task, 64).unwrap();
+                    let tree = fam.grow(x.view(), y, task, 64, &mut seed0()).unwrap();
                     // Count training samples per leaf by routing them.
                     let mut per_leaf = vec![0usize; tree.n_nodes()];
                     for row in x.rows() {
@@ -1101,17 +1574,25 @@ mod tests {
         let fam = TreeFamily::default();
         let x = Array2::<f64>::zeros((0, 2));
         let y = Array1::<f64>::zeros(0);
-        assert!(fam.grow(x.view(), y.view(), Task::Regress, 3).is_err());
+        assert!(fam
+            .grow(x.view(), y.view(), Task::Regress, 3, &mut seed0())
+            .is_err());
         let mut x = Array2::<f64>::zeros((4, 2));
         let y = Array1::from(vec![0.0, 1.0, 0.0, 1.0]);
         x[[2, 1]] = f64::NAN;
-        assert!(fam.grow(x.view(), y.view(), Task::Regress, 3).is_err());
+        assert!(fam
+            .grow(x.view(), y.view(), Task::Regress, 3, &mut seed0())
+            .is_err());
         x[[2, 1]] = 0.0;
         let bad_y = Array1::from(vec![0.0, f64::NAN, 0.0, 1.0]);
-        assert!(fam.grow(x.view(), bad_y.view(), Task::Regress, 3).is_err());
+        assert!(fam
+            .grow(x.view(), bad_y.view(), Task::Regress, 3, &mut seed0())
+            .is_err());
         let bad_lab = Array1::from(vec![0.0, 2.0, 0.0, 1.0]);
         let task = Task::Classify { classes: 2 };
-        assert!(fam.grow(x.view(), bad_lab.view(), task, 3).is_err());
+        assert!(fam
+            .grow(x.view(), bad_lab.view(), task, 3, &mut seed0())
+            .is_err());
         assert!(fam.check_grid(&[1.0, 2.5], 10, 2).is_err());
         assert!(fam.check_grid(&[0.0], 10, 2).is_err());
         assert!(fam.check_grid(&[65.0], 10, 2).is_err());
@@ -1131,19 +1612,320 @@ mod tests {
     }
 
     #[test]
-    fn ties_prefer_lower_feature_then_lower_threshold() {
+    fn lowest_index_rule_prefers_lower_feature_then_lower_threshold() {
         // Two identical inputs give identical splits, so the lower input index must win. y is
         // symmetric, so splitting off the first sample (threshold 0.15) or the last (0.35) gives
         // the same decrease, and the lower threshold must win.
         let v = [0.1, 0.2, 0.3, 0.4];
         let x = Array2::from_shape_fn((4, 2), |(i, _)| v[i]);
         let y = Array1::from(vec![1.0, 0.0, 0.0, 1.0]);
+        let fam = TreeFamily {
+            tie_break: TieBreak::LowestIndex,
+            ..TreeFamily::default()
+        };
+        assert!(!fam.caps(Task::Regress).stochastic);
         for task in [Task::Regress, Task::Classify { classes: 2 }] {
-            let tree = TreeFamily::default()
-                .grow(x.view(), y.view(), task, 1)
+            for s in 0..20 {
+                let tree = fam
+                    .grow(x.view(), y.view(), task, 1, &mut FitSeed::fixed(s).rng())
+                    .unwrap();
+                assert_eq!(tree.nodes[0].feature, 0);
+                assert_eq!(tree.nodes[0].threshold, 0.5 * 0.1 + 0.5 * 0.2);
+            }
+        }
+    }
+
+    /// `|count − S·q| ≤ 4·sqrt(S·q·(1 − q))`: a Binomial(S, q) count within 4 standard deviations
+    /// of its mean (two-sided normal tail 6e-5).
+    fn within_binomial(count: usize, s: usize, q: f64) -> bool {
+        let (s, c) = (s as f64, count as f64);
+        (c - s * q).abs() <= 4.0 * (s * q * (1.0 - q)).sqrt()
+    }
+
+    #[test]
+    fn random_ties_are_uniform_over_inputs_and_thresholds() {
+        // Two identical inputs and a symmetric response: four candidates tie exactly at the root
+        // (input 0 or 1, threshold 0.15 or 0.35), for squared error, Gini and entropy alike. Each
+        // must be chosen with probability 1/4 over fit seeds (binomial bound, 4 SD).
+        let v = [0.1, 0.2, 0.3, 0.4];
+        let x = Array2::from_shape_fn((4, 2), |(i, _)| v[i]);
+        let y = Array1::from(vec![1.0, 0.0, 0.0, 1.0]);
+        let lo = 0.5 * 0.1 + 0.5 * 0.2;
+        let hi = 0.5 * 0.3 + 0.5 * 0.4;
+        let seeds = 4000usize;
+        for (criterion, task) in [
+            (Criterion::Gini, Task::Regress),
+            (Criterion::Gini, Task::Classify { classes: 2 }),
+            (Criterion::Entropy, Task::Classify { classes: 2 }),
+        ] {
+            let fam = TreeFamily {
+                criterion,
+                ..TreeFamily::default()
+            };
+            assert!(fam.caps(task).stochastic);
+            let mut counts = [0usize; 4];
+            for s in 0..seeds {
+                let tree = fam
+                    .grow(
+                        x.view(),
+                        y.view(),
+                        task,
+                        1,
+                        &mut FitSeed::fixed(s as u64).rng(),
+                    )
+                    .unwrap();
+                let root = tree.nodes[0];
+                let t = if root.threshold == lo {
+                    0
+                } else {
+                    assert_eq!(root.threshold, hi);
+                    1
+                };
+                counts[2 * root.feature as usize + t] += 1;
+            }
+            for c in counts {
+                assert!(
+                    within_binomial(c, seeds, 0.25),
+                    "{task:?} {criterion:?}: {counts:?}"
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn swapped_columns_give_the_same_prediction_distribution() {
+        // Inputs a and b order the training samples identically, so they tie at the root; they
+        // disagree at the evaluation point (a = 0.2 is left of a's threshold, b = 3.5 right of
+        // b's), so the prediction there is 0 or 1 depending on the input chosen. With random
+        // ties the share of 0 is 1/2 in both column orders (binomial bound and a two-sample bound,
+        // 4 SD); with the lowest-index rule the two orders disagree on every seed.
+        let a = [0.1, 0.2, 0.3, 0.4];
+        let b = [1.0, 2.0, 3.0, 4.0];
+        let y = Array1::from(vec![0.0, 0.0, 1.0, 1.0]);
+        let ab = Array2::from_shape_fn((4, 2), |(i, j)| if j == 0 { a[i] } else { b[i] });
+        let ba = Array2::from_shape_fn((4, 2), |(i, j)| if j == 0 { b[i] } else { a[i] });
+        let (eval_ab, eval_ba) = ([0.2, 3.5], [3.5, 0.2]);
+        let seeds = 4000usize;
+        for task in [Task::Regress, Task::Classify { classes: 2 }] {
+            let share = |fam: &TreeFamily, x: &Array2<f64>, e: [f64; 2]| {
+                let mut zeros = 0;
+                for s in 0..seeds {
+                    let t = fam
+                        .grow(
+                            x.view(),
+                            y.view(),
+                            task,
+                            1,
+                            &mut FitSeed::fixed(s as u64).rng(),
+                        )
+                        .unwrap();
+                    zeros += usize::from(t.predict_at_depth(ndarray::aview1(&e), 1) == 0.0);
+                }
+                zeros
+            };
+            let fam = TreeFamily::default();
+            let (z1, z2) = (share(&fam, &ab, eval_ab), share(&fam, &ba, eval_ba));
+            assert!(within_binomial(z1, seeds, 0.5), "{task:?}: {z1}");
+            assert!(within_binomial(z2, seeds, 0.5), "{task:?}: {z2}");
+            let (p1, p2) = (z1 as f64 / seeds as f64, z2 as f64 / seeds as f64);
+            let pooled = 0.5 * (p1 + p2);
+            let se = (pooled * (1.0 - pooled) * 2.0 / seeds as f64).sqrt();
+            assert!((p1 - p2).abs() <= 4.0 * se, "{task:?}: {p1} vs {p2}");
+            let old = TreeFamily {
+                tie_break: TieBreak::LowestIndex,
+                ..TreeFamily::default()
+            };
+            assert_eq!(share(&old, &ab, eval_ab), seeds);
+            assert_eq!(share(&old, &ba, eval_ba), 0);
+        }
+    }
+
+    /// Inputs with few distinct values and responses with few distinct values: exact ties at many
+    /// nodes.
+    fn tie_heavy(seed: u64, n: usize, p: usize) -> (Array2<f64>, Array1<f64>, Array1<f64>) {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed);
+        let x = Array2::from_shape_fn((n, p), |_| f64::from(rng.gen_range(0..4u8)));
+        let yr = Array1::from_shape_fn(n, |i| x[[i, 0]] + f64::from(rng.gen_range(0..2u8)));
+        let yc = Array1::from_shape_fn(n, |i| {
+            f64::from(u8::from(
+                x[[i, 0]] + x[[i, 1]] + f64::from(rng.gen_range(0..3u8)) > 4.0,
+            ))
+        });
+        (x, yr, yc)
+    }
+
+    #[test]
+    fn path_property_and_determinism_with_random_ties() {
+        // Exact identity: breadth-first growth makes the draws above depth d independent of the
+        // depth limit, so the deep tree cut at d equals the tree grown to d with the same stream.
+        // The data are tie-heavy, and another seed must change some prediction (else the check
+        // would not involve the tie stream at all).
+        let (x, yr, yc) = tie_heavy(41, 120, 4);
+        let mut rng = ChaCha8Rng::seed_from_u64(42);
+        let eval = Array2::from_shape_fn((60, 4), |_| rng.gen_range(-0.5..3.5));
+        for (fam, y, task) in [
+            (TreeFamily::default(), yr.view(), Task::Regress),
+            (
+                TreeFamily::default(),
+                yc.view(),
+                Task::Classify { classes: 2 },
+            ),
+            (
+                TreeFamily {
+                    criterion: Criterion::Entropy,
+                    min_samples_leaf: 2,
+                    ..TreeFamily::default()
+                },
+                yc.view(),
+                Task::Classify { classes: 2 },
+            ),
+        ] {
+            let seed = FitSeed {
+                seed: 5,
+                replicate: 3,
+                fold: 0,
+                copy: 0,
+            };
+            let deep = fam.grow(x.view(), y, task, 12, &mut seed.rng()).unwrap();
+            let again = fam.grow(x.view(), y, task, 12, &mut seed.rng()).unwrap();
+            let others: Vec<Tree> = (1..=8)
+                .map(|copy| {
+                    fam.grow(x.view(), y, task, 12, &mut FitSeed { copy, ..seed }.rng())
+                        .unwrap()
+                })
+                .collect();
+            let mut differs = false;
+            for d in 1..=12 {
+                let shallow = fam.grow(x.view(), y, task, d, &mut seed.rng()).unwrap();
+                for row in eval.rows() {
+                    let v = deep.predict_at_depth(row, d);
+                    assert_eq!(v.to_bits(), shallow.predict_at_depth(row, 64).to_bits());
+                    assert_eq!(v.to_bits(), again.predict_at_depth(row, d).to_bits());
+                    differs |= others.iter().any(|o| v != o.predict_at_depth(row, d));
+                }
+            }
+            assert!(differs, "{task:?}: other fit seeds changed nothing");
+        }
+    }
+
+    #[test]
+    fn repeated_rows_equal_counts() {
+        // Exact identity: growing with row counts equals growing on the data with each row
+        // repeated that many times (in row order), with the same stream; counts of all ones equal
+        // no counts.
+        let (x, yr, yc) = tie_heavy(43, 80, 3);
+        let mut rng = ChaCha8Rng::seed_from_u64(44);
+        let counts: Vec<u32> = (0..80).map(|_| rng.gen_range(0..3u32)).collect();
+        let rows: Vec<usize> = (0..80)
+            .flat_map(|i| std::iter::repeat(i).take(counts[i] as usize))
+            .collect();
+        let xr = x.select(ndarray::Axis(0), &rows);
+        let eval = Array2::from_shape_fn((50, 3), |_| rng.gen_range(-0.5..3.5));
+        let fam = TreeFamily {
+            min_samples_leaf: 2,
+            ..TreeFamily::default()
+        };
+        let pre = Presorted::new(x.view()).unwrap();
+        for (y, task) in [(&yr, Task::Regress), (&yc, Task::Classify { classes: 2 })] {
+            let yrep = y.select(ndarray::Axis(0), &rows);
+            let opts = GrowOptions {
+                counts: Some(&counts),
+                ..GrowOptions::depth(10)
+            };
+            let a = fam
+                .grow_presorted(&pre, y.view(), task, &opts, &mut seed0())
                 .unwrap();
-            assert_eq!(tree.nodes[0].feature, 0);
-            assert_eq!(tree.nodes[0].threshold, 0.5 * 0.1 + 0.5 * 0.2);
+            let b = fam
+                .grow(xr.view(), yrep.view(), task, 10, &mut seed0())
+                .unwrap();
+            let ones = vec![1u32; 80];
+            let opts1 = GrowOptions {
+                counts: Some(&ones),
+                ..GrowOptions::depth(10)
+            };
+            let c = fam
+                .grow_presorted(&pre, y.view(), task, &opts1, &mut seed0())
+                .unwrap();
+            let d = fam
+                .grow(x.view(), y.view(), task, 10, &mut seed0())
+                .unwrap();
+            assert_eq!(a.n_nodes(), b.n_nodes());
+            assert_eq!(c.n_nodes(), d.n_nodes());
+            for row in eval.rows() {
+                assert_eq!(
+                    a.predict_at_depth(row, 10).to_bits(),
+                    b.predict_at_depth(row, 10).to_bits()
+                );
+                assert_eq!(
+                    c.predict_at_depth(row, 10).to_bits(),
+                    d.predict_at_depth(row, 10).to_bits()
+                );
+            }
+            for i in 0..a.n_nodes() as u32 {
+                assert_eq!(a.node_counts(i), b.node_counts(i));
+            }
+        }
+    }
+
+    #[test]
+    fn max_features_draws_uniformly_among_non_constant_inputs() {
+        // With one input tried per node, the root splits on each of the three non-constant inputs
+        // with probability 1/3 (binomial bound, 4 SD) and never on the constant one; with
+        // max_features = p nothing is drawn, so the tree equals the plain one bit for bit.
+        let mut rng = ChaCha8Rng::seed_from_u64(45);
+        let x = Array2::from_shape_fn(
+            (60, 4),
+            |(_, j)| {
+                if j == 2 {
+                    1.0
+                } else {
+                    rng.gen::<f64>()
+                }
+            },
+        );
+        let y = Array1::from_shape_fn(60, |i| 3.0 * x[[i, 0]] + rng.gen::<f64>());
+        let pre = Presorted::new(x.view()).unwrap();
+        let fam = TreeFamily::default();
+        let seeds = 3000;
+        let mut by_input = [0usize; 4];
+        for s in 0..seeds {
+            let opts = GrowOptions {
+                max_features: Some(1),
+                ..GrowOptions::depth(1)
+            };
+            let t = fam
+                .grow_presorted(
+                    &pre,
+                    y.view(),
+                    Task::Regress,
+                    &opts,
+                    &mut FitSeed::fixed(s).rng(),
+                )
+                .unwrap();
+            by_input[t.nodes[0].feature as usize] += 1;
+        }
+        assert_eq!(by_input[2], 0);
+        for f in [0, 1, 3] {
+            assert!(
+                within_binomial(by_input[f], seeds as usize, 1.0 / 3.0),
+                "{by_input:?}"
+            );
+        }
+        let all = GrowOptions {
+            max_features: Some(4),
+            ..GrowOptions::depth(6)
+        };
+        let a = fam
+            .grow_presorted(&pre, y.view(), Task::Regress, &all, &mut seed0())
+            .unwrap();
+        let b = fam
+            .grow(x.view(), y.view(), Task::Regress, 6, &mut seed0())
+            .unwrap();
+        for row in x.rows() {
+            assert_eq!(
+                a.predict_at_depth(row, 6).to_bits(),
+                b.predict_at_depth(row, 6).to_bits()
+            );
         }
     }
 
@@ -1218,7 +2000,13 @@ mod tests {
                     .unwrap();
                 let want = reference.predict(&eval);
                 let tree = fam
-                    .grow(x.view(), y.view(), Task::Classify { classes: 3 }, d)
+                    .grow(
+                        x.view(),
+                        y.view(),
+                        Task::Classify { classes: 3 },
+                        d,
+                        &mut seed0(),
+                    )
                     .unwrap();
                 assert_eq!(tied_leaves(&tree, &x, &y, 3, d), 0, "seed {seed} depth {d}");
                 // Training points: the partitions agree except where linfa's 1e-5 rule removed the
