@@ -374,6 +374,7 @@ fn html_report_is_self_contained_and_has_every_row() {
         curve: Some(plot::curve_svg(&doc, View::Domingos).unwrap()),
         points: Some(plot::points_svg(&v).unwrap()),
         selection: None,
+        extra: Vec::new(),
     };
     let text = html::render(&doc, View::Domingos, &pics, Some(1.25), "wall time");
     let page = scraper::Html::parse_document(&text);

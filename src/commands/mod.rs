@@ -98,12 +98,45 @@ fn emit(
     ids: [Option<OutputId>; 6],
 ) -> Result<u8, Error> {
     let doc = report::build(plan, outcome);
+    let several_models = !doc.models.is_empty();
     // Render every picture before writing anything, so a refusal leaves no partial outputs.
     let curve = if o.plot.is_some() || o.report.is_some() {
-        Some(report::plot::curve_svg(&doc, o.view)?)
+        Some(if several_models {
+            report::plot::families_svg(&doc)?
+        } else {
+            report::plot::curve_svg(&doc.single(&doc.family), o.view)?
+        })
     } else {
         None
     };
+    let mut extra: Vec<(String, String, String)> = Vec::new();
+    if o.report.is_some() {
+        if several_models {
+            for f in doc.families() {
+                extra.push((
+                    format!("The curve of {f}"),
+                    format!(
+                        "Expected loss and its parts for {f} at the largest training size, with bands of ±2 standard errors."
+                    ),
+                    report::plot::curve_svg(&doc.single(&f), o.view)?,
+                ));
+            }
+        }
+        if !doc.sizes.is_empty() {
+            extra.push((
+                "Would more data help?".into(),
+                "At each family's best knob value for each training size: expected loss (solid, ±2 standard errors), bias (dashed) and variance (dotted).".into(),
+                report::plot::learning_svg(&doc)?,
+            ));
+            for f in doc.families() {
+                extra.push((
+                    format!("Expected loss of {f} by size and knob"),
+                    "Darker cells have a higher expected loss relative to the best of their row, on a log scale (twice the best or more is darkest); the dot marks the best value at each size.".into(),
+                    report::plot::heatmap_svg(&doc, &f)?,
+                ));
+            }
+        }
+    }
     let points_svg = match o.plot_points {
         Some(_) => {
             let (tx, ty) = runner::training_set(plan, &outcome.prepared, 0)?;
@@ -142,6 +175,7 @@ fn emit(
             curve,
             points: points_svg,
             selection,
+            extra,
         };
         let page = report::html::render(&doc, o.view, &all, Some(wall), o.wall_label);
         contents.push((id, page.into_bytes()));

@@ -17,6 +17,8 @@ pub struct Pictures {
     pub points: Option<String>,
     /// The selection histogram.
     pub selection: Option<String>,
+    /// Further pictures (several models or training sizes): heading, caption and SVG.
+    pub extra: Vec<(String, String, String)>,
 }
 
 /// Escapes text for HTML element content and attribute values.
@@ -322,6 +324,16 @@ pub fn render(
              loss.</figcaption></figure>",
             inline_svg(svg, "histogram of the value chosen by cross-validation"),
             e(&doc.knob)
+        );
+    }
+
+    for (heading, caption, svg) in &pictures.extra {
+        let _ = writeln!(
+            h,
+            "<h2>{}</h2>\n<figure>{}<figcaption>{}</figcaption></figure>",
+            e(heading),
+            inline_svg(svg, heading),
+            e(caption)
         );
     }
 

@@ -6,7 +6,7 @@ use plotters::coord::Shift;
 use plotters::prelude::*;
 
 use super::terminal::View;
-use super::ResultDoc;
+use super::{PointRow, ResultDoc};
 use crate::error::Error;
 use crate::fmt::fmt_value;
 use crate::runner::Outcome;
@@ -1079,6 +1079,433 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
                 .map_err(draw_err)?;
             }
         }
+        root.present().map_err(draw_err)?;
+    }
+    Ok(buf)
+}
+
+/// Width and height of the study pictures (heatmap, learning curves, families).
+pub const STUDY_SIZE: (u32, u32) = (960, 520);
+
+/// Colour of a value in [0, 1] on a light-to-dark scale (pale sage to dark ink).
+fn scale(t: f64) -> RGBColor {
+    let t = if t.is_finite() {
+        t.clamp(0.0, 1.0)
+    } else {
+        1.0
+    };
+    let lerp = |a: u8, b: u8| (a as f64 + (b as f64 - a as f64) * t).round() as u8;
+    RGBColor(lerp(0xf4, 0x1f), lerp(0xf7, 0x1d), lerp(0xee, 0x3d))
+}
+
+fn title_area<'b>(
+    root: &DrawingArea<SVGBackend<'b>, Shift>,
+    title: &str,
+) -> Result<DrawingArea<SVGBackend<'b>, Shift>, Error> {
+    let (top, body) = root.split_vertically(44);
+    top.draw(&Text::new(
+        title.to_string(),
+        (18, 14),
+        (FONT, 20).into_font().style(FontStyle::Bold).color(&INK),
+    ))
+    .map_err(draw_err)?;
+    Ok(body)
+}
+
+/// The heatmap of expected loss over (training size × knob value) for one family of a
+/// learning-curve run: darker is a higher loss (each row scaled from its own lowest to its own
+/// highest, so the shape of every curve shows), the number in each cell is the expected loss,
+/// and a ring marks the best value at each size.
+pub fn heatmap_svg(doc: &ResultDoc, family: &str) -> Result<String, Error> {
+    let sizes: Vec<usize> = if doc.sizes.is_empty() {
+        vec![doc.scenario.train_size]
+    } else {
+        doc.sizes.clone()
+    };
+    let knob = doc
+        .models
+        .iter()
+        .find(|m| m.family == family)
+        .map_or(doc.knob.clone(), |m| m.knob.clone());
+    let rows: Vec<Vec<(f64, f64)>> = sizes
+        .iter()
+        .map(|&n| {
+            doc.points
+                .iter()
+                .filter(|p| p.family.as_deref().map_or(true, |f| f == family))
+                .filter(|p| p.train_size.map_or(true, |t| t as usize == n))
+                .map(|p| (p.value, p.expected_loss()))
+                .collect()
+        })
+        .collect();
+    let cols = rows.first().map_or(0, Vec::len);
+    if cols == 0 {
+        return Err(Error::Usage(format!(
+            "no rows of family `{family}` to draw"
+        )));
+    }
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, STUDY_SIZE).into_drawing_area();
+        root.fill(&PAPER).map_err(draw_err)?;
+        let body = title_area(
+            &root,
+            &format!("Expected loss of {family} by training size and {knob}"),
+        )?;
+        let mut chart = ChartBuilder::on(&body)
+            .margin(16)
+            .x_label_area_size(48)
+            .y_label_area_size(80)
+            .build_cartesian_2d(
+                -0.5f64..cols as f64 - 0.5,
+                -0.5f64..sizes.len() as f64 - 0.5,
+            )
+            .map_err(draw_err)?;
+        let values: Vec<f64> = rows[0].iter().map(|c| c.0).collect();
+        // Cells are centred on whole numbers, so the axis labels sit under their cells; a
+        // label is only written where the tick falls on a cell centre.
+        let centre = |v: f64| (v - v.round()).abs() < 1e-6 && v >= -1e-6;
+        let size_labels = sizes.clone();
+        chart
+            .configure_mesh()
+            .disable_mesh()
+            .x_labels(cols.min(20))
+            .y_labels(sizes.len())
+            .x_label_formatter(&|v: &f64| {
+                if !centre(*v) {
+                    return String::new();
+                }
+                values
+                    .get(v.round() as usize)
+                    .map(|x| fmt_value(*x))
+                    .unwrap_or_default()
+            })
+            .y_label_formatter(&|v: &f64| {
+                if !centre(*v) {
+                    return String::new();
+                }
+                size_labels
+                    .get(v.round() as usize)
+                    .map(|n| n.to_string())
+                    .unwrap_or_default()
+            })
+            .x_desc(knob.clone())
+            .y_desc("training size")
+            .axis_desc_style((FONT, 16))
+            .label_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+        for (si, row) in rows.iter().enumerate() {
+            let lo = row.iter().map(|c| c.1).fold(f64::INFINITY, f64::min);
+            let hi = row.iter().map(|c| c.1).fold(f64::NEG_INFINITY, f64::max);
+            let best = row
+                .iter()
+                .enumerate()
+                .min_by(|a, b| a.1 .1.total_cmp(&b.1 .1))
+                .map(|(i, _)| i);
+            for (ci, &(_, el)) in row.iter().enumerate() {
+                // Shade by the excess over the row's best on a log scale: twice the best loss
+                // or more is the darkest shade, so one very poor cell cannot wash out the rest.
+                let t = if lo > 0.0 {
+                    ((el / lo).ln() / 2f64.ln()).clamp(0.0, 1.0)
+                } else if hi > lo {
+                    (el - lo) / (hi - lo)
+                } else {
+                    0.0
+                };
+                let (x, y) = (ci as f64 - 0.5, si as f64 - 0.5);
+                chart
+                    .draw_series(std::iter::once(Rectangle::new(
+                        [(x + 0.03, y + 0.05), (x + 0.97, y + 0.95)],
+                        scale(0.85 * t).filled(),
+                    )))
+                    .map_err(draw_err)?;
+                let ink = if scale(0.85 * t).0 < 128 { PAPER } else { INK };
+                let label = crate::fmt::fmt_num(el);
+                chart
+                    .draw_series(std::iter::once(Text::new(
+                        label,
+                        (x + 0.08, y + 0.62),
+                        (FONT, 11).into_font().color(&ink),
+                    )))
+                    .map_err(draw_err)?;
+                if Some(ci) == best {
+                    chart
+                        .draw_series(std::iter::once(Circle::new(
+                            (x + 0.5, y + 0.25),
+                            6,
+                            RUST.filled(),
+                        )))
+                        .map_err(draw_err)?;
+                }
+            }
+        }
+        root.present().map_err(draw_err)?;
+    }
+    Ok(buf)
+}
+
+/// Learning curves: at each family's best knob value for each training size, the expected loss
+/// (solid, with a ±2 standard error band), the bias-type term (dashed) and the variance
+/// (dotted), against the training size on a logarithmic axis; one colour per family.
+pub fn learning_svg(doc: &ResultDoc) -> Result<String, Error> {
+    if doc.learning.is_empty() {
+        return Err(Error::Usage(
+            "the result has one training size: give `train_size = [..]` for learning curves".into(),
+        ));
+    }
+    let colours = [INK, RUST, SKY, STONE];
+    let xs: Vec<f64> = doc.sizes.iter().map(|&n| (n as f64).log10()).collect();
+    let (x0, x1) = padded(xs.iter().copied(), &[], 0.05);
+    let mut ys = vec![0.0];
+    for c in &doc.learning {
+        for s in &c.sizes {
+            ys.push(s.expected_loss + 2.0 * s.stderr.unwrap_or(0.0));
+            ys.push(s.bias);
+            ys.push(s.variance);
+        }
+    }
+    let (y0, y1) = padded(ys.into_iter(), &[0.0], 0.06);
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, STUDY_SIZE).into_drawing_area();
+        root.fill(&PAPER).map_err(draw_err)?;
+        let body = title_area(
+            &root,
+            "Would more data help? Loss, bias and variance against training size",
+        )?;
+        let (plot, panel) = body.split_horizontally(STUDY_SIZE.0 - PANEL);
+        let mut chart = ChartBuilder::on(&plot)
+            .margin(14)
+            .x_label_area_size(48)
+            .y_label_area_size(74)
+            .build_cartesian_2d(x0..x1, y0..y1)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .light_line_style(RGBColor(0xf3, 0xf3, 0xf3))
+            .x_labels(doc.sizes.len().clamp(2, 12))
+            .x_label_formatter(&|v: &f64| format!("{:.0}", 10f64.powf(*v)))
+            .y_label_formatter(&|v: &f64| fmt_value(*v))
+            .x_desc("training size (logarithmic axis)")
+            .y_desc("at each size's best knob value")
+            .axis_desc_style((FONT, 16))
+            .label_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+        let mut y = 8;
+        for (ci, c) in doc.learning.iter().enumerate() {
+            let col = colours[ci % colours.len()];
+            let el: Vec<(f64, f64)> = xs
+                .iter()
+                .zip(&c.sizes)
+                .map(|(x, s)| (*x, s.expected_loss))
+                .collect();
+            let lo: Vec<f64> = c
+                .sizes
+                .iter()
+                .map(|s| s.expected_loss - 2.0 * s.stderr.unwrap_or(0.0))
+                .collect();
+            let hi: Vec<f64> = c
+                .sizes
+                .iter()
+                .map(|s| s.expected_loss + 2.0 * s.stderr.unwrap_or(0.0))
+                .collect();
+            let poly = band(&xs, &lo, &hi);
+            if poly.len() >= 3 {
+                chart
+                    .draw_series(std::iter::once(Polygon::new(poly, col.mix(0.18).filled())))
+                    .map_err(draw_err)?;
+            }
+            chart
+                .draw_series(LineSeries::new(el.clone(), col.stroke_width(3)))
+                .map_err(draw_err)?;
+            let bias: Vec<(f64, f64)> =
+                xs.iter().zip(&c.sizes).map(|(x, s)| (*x, s.bias)).collect();
+            chart
+                .draw_series(DashedLineSeries::new(bias, 10, 5, col.stroke_width(2)))
+                .map_err(draw_err)?;
+            let var: Vec<(f64, f64)> = xs
+                .iter()
+                .zip(&c.sizes)
+                .map(|(x, s)| (*x, s.variance))
+                .collect();
+            chart
+                .draw_series(DashedLineSeries::new(var, 3, 4, col.stroke_width(2)))
+                .map_err(draw_err)?;
+            for &(x, v) in &el {
+                let px = chart.backend_coord(&(x, v));
+                marker_at(&root, Marker::Dot, col, px)?;
+            }
+            let look = Look {
+                color: col,
+                width: 3,
+                dash: Dash::Solid,
+                marker: Marker::Dot,
+            };
+            sample_line(&panel, &look, 10, 58, y + 7)?;
+            y = panel_text(
+                &panel,
+                &format!("{}: expected loss", c.family),
+                (68, y),
+                14,
+                INK,
+                24,
+            )? + 6;
+            let dashed = Look {
+                dash: Dash::Dashed(10, 5),
+                width: 2,
+                marker: Marker::None,
+                ..look
+            };
+            sample_line(&panel, &dashed, 10, 58, y + 7)?;
+            y = panel_text(&panel, "bias term", (68, y), 14, INK, 24)? + 6;
+            let dotted = Look {
+                dash: Dash::Dashed(3, 4),
+                ..dashed
+            };
+            sample_line(&panel, &dotted, 10, 58, y + 7)?;
+            y = panel_text(&panel, "variance", (68, y), 14, INK, 24)? + 14;
+        }
+        panel_text(
+            &panel,
+            "A falling variance line means more data still pays; a flat bias line means only a more flexible model would lower it.",
+            (8, y),
+            12,
+            STONE,
+            36,
+        )?;
+        root.present().map_err(draw_err)?;
+    }
+    Ok(buf)
+}
+
+/// Every family's expected-loss curve (largest training size) on one picture: the x axis runs
+/// from each family's simplest grid value (left) to its most complex (right), so curves of
+/// different knobs share it; the best value of each family is ringed and labelled.
+pub fn families_svg(doc: &ResultDoc) -> Result<String, Error> {
+    let families = doc.families();
+    let colours = [INK, RUST, SKY, STONE];
+    let curves: Vec<(String, String, bool, Vec<PointRow>)> = families
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            let m = doc.models.get(i);
+            (
+                f.clone(),
+                m.map_or(doc.knob.clone(), |m| m.knob.clone()),
+                m.map_or(doc.larger_is_simpler, |m| m.larger_is_simpler),
+                doc.curve(f),
+            )
+        })
+        .collect();
+    let mut ys = vec![];
+    for c in &curves {
+        for p in &c.3 {
+            ys.push(p.expected_loss() - 2.0 * p.se("expected_loss").unwrap_or(0.0));
+            ys.push(p.expected_loss() + 2.0 * p.se("expected_loss").unwrap_or(0.0));
+        }
+    }
+    let (y0, y1) = padded(ys.into_iter(), &[], 0.08);
+    let mut buf = String::new();
+    {
+        let root = SVGBackend::with_string(&mut buf, STUDY_SIZE).into_drawing_area();
+        root.fill(&PAPER).map_err(draw_err)?;
+        let size = doc.sizes.last().map_or(doc.scenario.train_size, |&n| n);
+        let body = title_area(
+            &root,
+            &format!("Which family? Expected loss of each at {size} training rows"),
+        )?;
+        let (plot, panel) = body.split_horizontally(STUDY_SIZE.0 - PANEL);
+        let mut chart = ChartBuilder::on(&plot)
+            .margin(14)
+            .x_label_area_size(48)
+            .y_label_area_size(74)
+            .build_cartesian_2d(-0.05f64..1.05f64, y0..y1)
+            .map_err(draw_err)?;
+        chart
+            .configure_mesh()
+            .light_line_style(RGBColor(0xf3, 0xf3, 0xf3))
+            .x_labels(3)
+            .x_label_formatter(&|v: &f64| {
+                if *v < 0.25 {
+                    "simplest".into()
+                } else if *v > 0.75 {
+                    "most complex".into()
+                } else {
+                    String::new()
+                }
+            })
+            .y_label_formatter(&|v: &f64| fmt_value(*v))
+            .x_desc("position in each family's grid, from simplest to most complex")
+            .y_desc("expected loss")
+            .axis_desc_style((FONT, 16))
+            .label_style((FONT, 13))
+            .draw()
+            .map_err(draw_err)?;
+        let mut y = 8;
+        for (ci, (fam, knob, larger_simpler, rows)) in curves.iter().enumerate() {
+            let col = colours[ci % colours.len()];
+            let n = rows.len().max(2) - 1;
+            let pos = |i: usize| {
+                let t = i as f64 / n as f64;
+                if *larger_simpler {
+                    1.0 - t
+                } else {
+                    t
+                }
+            };
+            let mut pts: Vec<(f64, f64)> = rows
+                .iter()
+                .enumerate()
+                .map(|(i, p)| (pos(i), p.expected_loss()))
+                .collect();
+            pts.sort_by(|a, b| a.0.total_cmp(&b.0));
+            chart
+                .draw_series(LineSeries::new(pts.clone(), col.stroke_width(3)))
+                .map_err(draw_err)?;
+            for &(x, v) in &pts {
+                let px = chart.backend_coord(&(x, v));
+                marker_at(&root, Marker::Dot, col, px)?;
+            }
+            if let Some((bi, bp)) = rows
+                .iter()
+                .enumerate()
+                .min_by(|a, b| a.1.expected_loss().total_cmp(&b.1.expected_loss()))
+            {
+                let at = (pos(bi), bp.expected_loss());
+                chart
+                    .draw_series(std::iter::once(Circle::new(at, 11, col.stroke_width(2))))
+                    .map_err(draw_err)?;
+                let look = Look {
+                    color: col,
+                    width: 3,
+                    dash: Dash::Solid,
+                    marker: Marker::Dot,
+                };
+                sample_line(&panel, &look, 10, 58, y + 7)?;
+                y = panel_text(
+                    &panel,
+                    &format!(
+                        "{fam}: best {knob} = {} ({})",
+                        fmt_value(bp.value),
+                        crate::fmt::fmt_num(bp.expected_loss())
+                    ),
+                    (68, y),
+                    14,
+                    INK,
+                    24,
+                )? + 10;
+            }
+        }
+        panel_text(
+            &panel,
+            "Rings mark each family's lowest expected loss; the reading gives the paired differences and their standard errors.",
+            (8, y + 6),
+            12,
+            STONE,
+            36,
+        )?;
         root.present().map_err(draw_err)?;
     }
     Ok(buf)

@@ -1235,6 +1235,25 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             ));
         }
     }
+    if sizes.len() > 1 {
+        // Smaller sizes train on nested prefixes of the largest draw; the prefix of an even
+        // grid covers only the low end of the range, so it is not a design of that size.
+        if let Some(i) = inputs
+            .iter()
+            .position(|a| matches!(a.dist, InputDist::Even(..)))
+        {
+            let span = d
+                .inputs
+                .as_ref()
+                .and_then(|l| l.get(i))
+                .map(|s| s.name.span());
+            return Err(cx.err(
+                span,
+                &format!("data.inputs[{i}]"),
+                "an `even` input lays one grid for one training size; with several sizes use `uniform` or `normal`",
+            ));
+        }
+    }
     let names: Vec<&str> = inputs.iter().map(|i| i.name.as_str()).collect();
     if let Some(c) = &d.classes {
         let model = class_model(cx, c, &names)?;
