@@ -92,9 +92,20 @@ pub struct PlotArgs {
     /// A result document (`lossprism run --out RESULT.json`).
     #[arg(value_name = "RESULT.json")]
     pub result: PathBuf,
-    /// Write the curve picture here.
+    /// Write the curve picture here (a result with several families: every family's expected
+    /// loss on one picture, unless `--family` picks one).
     #[arg(long, value_name = "FILE.svg")]
     pub out: PathBuf,
+    /// Draw this family's own curve (results with several `[[model]]` sections).
+    #[arg(long, value_name = "NAME")]
+    pub family: Option<String>,
+    /// Write the learning curves here (results with several training sizes).
+    #[arg(long, value_name = "FILE.svg")]
+    pub learning: Option<PathBuf>,
+    /// Write the training size × knob heatmap of expected loss here (results with several
+    /// training sizes; the family of `--family`, else the first).
+    #[arg(long, value_name = "FILE.svg")]
+    pub heatmap: Option<PathBuf>,
     /// Write the selection histogram here (needs the result's `selection` section).
     #[arg(long, value_name = "FILE.svg")]
     pub selection: Option<PathBuf>,

@@ -329,16 +329,17 @@ pub fn decode_block(plan: &Plan, points: usize, rec: &BlockRecord) -> Result<Blo
             rec.first_replicate, rec.end_replicate
         ));
     }
-    if rec.models.len() != plan.models.len() {
+    if rec.models.len() != plan.cells() {
         return Err(format!(
-            "{} model accumulators, the scenario has {} models",
+            "{} accumulators, the scenario has {} (training sizes × models)",
             rec.models.len(),
-            plan.models.len()
+            plan.cells()
         ));
     }
     let mut accs = Vec::with_capacity(rec.models.len());
-    for (i, m) in rec.models.iter().enumerate() {
-        let acc = decode_acc(plan, i, points, m)?;
+    for (c, m) in rec.models.iter().enumerate() {
+        // Cells are ordered sizes outer, models inner (`Plan::cell`).
+        let acc = decode_acc(plan, c % plan.models.len(), points, m)?;
         if acc.replicates != r1 - r0 {
             return Err(format!(
                 "{} replicates, the block has {}",

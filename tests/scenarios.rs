@@ -49,31 +49,64 @@ fn check(what: &str, plan: &Plan, doc: &ResultDoc) {
         !doc.scenario.about.trim().is_empty(),
         "{what}: `about` is empty"
     );
-    let grid = &plan.model().grid;
-    assert_eq!(doc.points.len(), grid.len(), "{what}");
     let observed = doc.table.is_some();
-    let shape = plan.shape(0, 0);
-    let identities = plan.loss.identities(&shape, observed);
-    assert!(
-        !identities.is_empty(),
-        "{what}: the loss declares no identity"
+    let cells: usize = plan.models.iter().map(|m| m.grid.len()).sum::<usize>() * plan.sizes.len();
+    assert_eq!(
+        doc.points.len(),
+        cells,
+        "{what}: one row per (size, model, value)"
     );
-    for (p, &g) in doc.points.iter().zip(grid) {
-        assert_eq!(p.value, g, "{what}");
-        for (k, v) in &p.terms {
-            assert!(v.is_finite(), "{what} at {g}: `{k}` = {v}");
-        }
-        assert!(
-            p.get("variance") >= 0.0,
-            "{what} at {g}: variance {}",
-            p.get("variance")
-        );
-        for id in &identities {
-            let sum: f64 = id.parts.iter().map(|(k, c)| c * p.get(k)).sum();
-            close(p.get(id.total), sum, &format!("{what} at {g}: {}", id.name));
+    for (s, &n) in plan.sizes.iter().enumerate() {
+        for (i, model) in plan.models.iter().enumerate() {
+            let family = model.family.name();
+            let rows: Vec<_> = doc
+                .points
+                .iter()
+                .filter(|p| p.family.as_deref().map_or(true, |f| f == family))
+                .filter(|p| p.train_size.map_or(true, |t| t as usize == n))
+                .collect();
+            let grid = &model.grid;
+            assert_eq!(
+                rows.len(),
+                grid.len(),
+                "{what}: {family} at size {n} (size {s})"
+            );
+            let identities = plan.loss.identities(&plan.shape(i, 0), observed);
+            assert!(
+                !identities.is_empty(),
+                "{what}: the loss declares no identity"
+            );
+            for (p, &g) in rows.iter().zip(grid) {
+                assert_eq!(p.value, g, "{what}");
+                for (k, v) in &p.terms {
+                    assert!(v.is_finite(), "{what} at {g}: `{k}` = {v}");
+                }
+                assert!(
+                    p.get("variance") >= 0.0,
+                    "{what} at {g}: variance {}",
+                    p.get("variance")
+                );
+                for id in &identities {
+                    let sum: f64 = id.parts.iter().map(|(k, c)| c * p.get(k)).sum();
+                    close(p.get(id.total), sum, &format!("{what} at {g}: {}", id.name));
+                }
+            }
         }
     }
-    assert!(grid.contains(&doc.best.value), "{what}: best off grid");
+    let best_model = plan
+        .models
+        .iter()
+        .find(|m| {
+            doc.best
+                .family
+                .as_deref()
+                .map_or(true, |f| f == m.family.name())
+        })
+        .expect("the best names a model");
+    assert!(
+        best_model.grid.contains(&doc.best.value),
+        "{what}: best off grid"
+    );
     assert!(!doc.reading.is_empty(), "{what}: empty reading");
 }
 

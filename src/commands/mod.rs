@@ -104,7 +104,7 @@ fn emit(
         Some(if several_models {
             report::plot::families_svg(&doc)?
         } else {
-            report::plot::curve_svg(&doc.single(&doc.family), o.view)?
+            report::plot::curve_svg(&doc.single(&doc.first_model()), o.view)?
         })
     } else {
         None
@@ -545,7 +545,35 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     let doc: report::ResultDoc = serde_json::from_value(value.clone())
         .map_err(|e| Error::Usage(format!("{name}: not a lossprism result document: {e}")))?;
     let view: View = args.decomposition.into();
-    let curve = report::plot::curve_svg(&doc, view)?;
+    let families = doc.families();
+    if let Some(f) = &args.family {
+        if !families.contains(f) {
+            return Err(Error::Usage(format!(
+                "{name}: --family {f}: the result holds {}",
+                families.join(", ")
+            )));
+        }
+    }
+    let curve = match &args.family {
+        Some(f) => report::plot::curve_svg(&doc.single(f), view)?,
+        None if families.len() > 1 => report::plot::families_svg(&doc)?,
+        None => report::plot::curve_svg(&doc.single(&doc.first_model()), view)?,
+    };
+    let mut extra = Vec::new();
+    if let Some(p) = &args.learning {
+        let id = set.output("--learning", p)?;
+        extra.push((id, report::plot::learning_svg(&doc)?));
+    }
+    if let Some(p) = &args.heatmap {
+        let id = set.output("--heatmap", p)?;
+        if doc.sizes.is_empty() {
+            return Err(Error::Usage(format!(
+                "{name}: --heatmap needs a result with several training sizes (`train_size = [..]`)"
+            )));
+        }
+        let f = args.family.clone().unwrap_or_else(|| doc.first_model());
+        extra.push((id, report::plot::heatmap_svg(&doc, &f)?));
+    }
     let selection = match &args.selection {
         Some(_) => {
             let sel = report::plot::SelectionView::from_json(&value).ok_or_else(|| {
@@ -559,6 +587,7 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
         None => None,
     };
     let mut contents = vec![(out_id, curve.into_bytes())];
+    contents.extend(extra.into_iter().map(|(id, svg)| (id, svg.into_bytes())));
     if let (Some(id), Some(svg)) = (sel_id, selection) {
         contents.push((id, svg.into_bytes()));
     }

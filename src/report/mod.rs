@@ -474,7 +474,7 @@ impl ResultDoc {
         if self.models.is_empty() {
             vec![self.family.clone()]
         } else {
-            self.models.iter().map(|m| m.family.clone()).collect()
+            self.models.iter().map(|m| m.id().to_string()).collect()
         }
     }
 
@@ -501,7 +501,7 @@ impl ResultDoc {
             p.family = None;
             p.train_size = None;
         }
-        if let Some(m) = self.models.iter().find(|m| m.family == family) {
+        if let Some(m) = self.models.iter().find(|m| m.id() == family) {
             d.family = m.family.clone();
             d.knob = m.knob.clone();
             d.larger_is_simpler = m.larger_is_simpler;
@@ -525,7 +525,14 @@ impl ResultDoc {
     /// The main curve: the first model at the largest training size (every row of a
     /// single-model, single-size run).
     pub fn main_curve(&self) -> Vec<PointRow> {
-        self.curve(&self.family)
+        self.curve(&self.first_model())
+    }
+
+    /// The name rows give the first model: its label, else the family name.
+    pub fn first_model(&self) -> String {
+        self.models
+            .first()
+            .map_or(self.family.clone(), |m| m.id().to_string())
     }
 
     /// The key of the first term with `role` in the main group (`bias_sq`, `bias`, ...).
@@ -695,7 +702,7 @@ pub fn rows(plan: &Plan, outcome: &Outcome, c: usize) -> Vec<PointRow> {
     let observed = outcome.prepared.table.is_some();
     let (si, mi) = (c / plan.models.len(), c % plan.models.len());
     let model = &plan.models[mi];
-    let family = (plan.models.len() > 1).then(|| model.family.name().to_string());
+    let family = (plan.models.len() > 1).then(|| model.label.clone());
     let train_size = (plan.sizes.len() > 1).then_some(plan.sizes[si] as u64);
     model
         .grid
@@ -728,6 +735,10 @@ pub fn rows(plan: &Plan, outcome: &Outcome, c: usize) -> Vec<PointRow> {
 pub struct ModelEcho {
     /// Family name.
     pub family: String,
+    /// The section's `label`, when it differs from the family name (rows, rankings and
+    /// learning curves name the model by it).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub label: Option<String>,
     /// Knob name.
     pub knob: String,
     /// Grid values.
@@ -739,6 +750,13 @@ pub struct ModelEcho {
     /// Whether a larger knob value is the simpler model.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub larger_is_simpler: bool,
+}
+
+impl ModelEcho {
+    /// The name rows give this model: its label, else the family name.
+    pub fn id(&self) -> &str {
+        self.label.as_deref().unwrap_or(&self.family)
+    }
 }
 
 /// One candidate (family × knob value) in a ranking.
@@ -974,7 +992,7 @@ fn rankings(plan: &Plan, outcome: &Outcome) -> Vec<Ranking> {
                     let se_best = finite(best.se(bg, "expected_loss"));
                     let is_best = i == bi;
                     Candidate {
-                        family: m.family.name().into(),
+                        family: m.label.clone(),
                         knob: m.family.knob().into(),
                         value: m.grid[g],
                         expected_loss: s.value(g, "expected_loss"),
@@ -1050,7 +1068,7 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 let share = last.variance / reducible;
                 let (from, to) = (plan.sizes[nz - 2], plan.sizes[nz - 1]);
                 let clear = se.is_some_and(|s| drop > 2.0 * s);
-                let fam = m.family.name();
+                let fam = m.label.as_str();
                 let se_text = se.map(|s| format!(" ± {}", fmt_se(s))).unwrap_or_default();
                 let mut reading = format!(
                     "From {from} to {to} rows the lowest expected loss of {fam} falls by {}{se_text} (paired over replicate blocks); ",
@@ -1082,7 +1100,7 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 }
             });
             LearningCurve {
-                family: m.family.name().into(),
+                family: m.label.clone(),
                 knob: m.family.knob().into(),
                 sizes,
                 gain,
@@ -1197,6 +1215,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             .iter()
             .map(|m| ModelEcho {
                 family: m.family.name().into(),
+                label: (m.label != m.family.name()).then(|| m.label.clone()),
                 knob: m.family.knob().into(),
                 grid: m.grid.clone(),
                 grid_kind: m.grid_kind.name().into(),

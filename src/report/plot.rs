@@ -1125,7 +1125,7 @@ pub fn heatmap_svg(doc: &ResultDoc, family: &str) -> Result<String, Error> {
     let knob = doc
         .models
         .iter()
-        .find(|m| m.family == family)
+        .find(|m| m.id() == family)
         .map_or(doc.knob.clone(), |m| m.knob.clone());
     let rows: Vec<Vec<(f64, f64)>> = sizes
         .iter()

@@ -183,7 +183,10 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
             "families {}",
             doc.models
                 .iter()
-                .map(|m| format!("{} (knob {})", m.family, m.knob))
+                .map(|m| match &m.label {
+                    Some(l) => format!("{l} = {} (knob {})", m.family, m.knob),
+                    None => format!("{} (knob {})", m.family, m.knob),
+                })
                 .collect::<Vec<_>>()
                 .join(", ")
         )

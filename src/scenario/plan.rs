@@ -106,12 +106,16 @@ pub struct ModelPlan {
     pub grid_kind: GridKind,
     /// Fits per replicate training set (`fit_seeds`, default 1).
     pub fit_seeds: usize,
+    /// The model's name in results: its `label`, else the family name. Distinct across the
+    /// model sections.
+    pub label: String,
 }
 
 impl std::fmt::Debug for ModelPlan {
     fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
         f.debug_struct("ModelPlan")
             .field("family", &self.family.name())
+            .field("label", &self.label)
             .field("grid", &self.grid)
             .field("fit_seeds", &self.fit_seeds)
             .finish()
@@ -820,9 +824,35 @@ fn build_models(
                 ),
             ));
         };
+        let label = match t.get("label") {
+            None => family_name.clone(),
+            Some(toml::Value::String(s))
+                if !s.trim().is_empty()
+                    && s.len() <= 64
+                    && s.chars().all(|c| c.is_ascii_graphic() || c == ' ') =>
+            {
+                s.trim().to_string()
+            }
+            Some(_) => {
+                return Err(cx.err_line(
+                    line("label"),
+                    &key("label"),
+                    "must be a short printable name (1 to 64 ASCII characters)",
+                ))
+            }
+        };
+        if let Some(j) = out.iter().position(|m: &ModelPlan| m.label == label) {
+            return Err(cx.err_line(
+                line("label").or(section.map(|s| s.0 + 1)),
+                &key("label"),
+                format!(
+                    "model sections {j} and {i} are both named `{label}`; give each a distinct `label = \"...\"`"
+                ),
+            ));
+        }
         let entries: Vec<(String, toml::Value)> = t
             .iter()
-            .filter(|(k, _)| !matches!(k.as_str(), "family" | "grid" | "fit_seeds"))
+            .filter(|(k, _)| !matches!(k.as_str(), "family" | "grid" | "fit_seeds" | "label"))
             .map(|(k, v)| (k.clone(), v.clone()))
             .collect();
         let mut opts = Options::new(&family_name, entries);
@@ -905,6 +935,7 @@ fn build_models(
             grid,
             grid_kind,
             fit_seeds,
+            label,
         });
     }
     Ok(out)

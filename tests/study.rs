@@ -1,0 +1,571 @@
+//! Study designs: training size as a second axis (nested prefixes of one draw per replicate) and
+//! several `[[model]]` sections fitted on the same draws, with rankings by paired differences.
+//!
+//! Outside truths: ESL (Hastie, Tibshirani & Friedman, *The Elements of Statistical Learning*,
+//! 2nd ed.) eq. 7.10 — at a fixed design the k-NN fit at x0 has variance σ²/k and bias
+//! f(x0) − (1/k) Σ_{l ∈ N_k(x0)} f(x_l) — evaluated here with a brute-force neighbour search
+//! written in this file. Monte Carlo comparisons use 4 standard errors (the runs' own jackknife
+//! standard errors), never widened by hand. All scenarios are invented.
+
+use std::path::Path;
+
+use lossprism::report::{self, PointRow, ResultDoc};
+use lossprism::runner::{run, Outcome};
+use lossprism::scenario::{parse, Plan, PlanOptions};
+use ndarray::{Array1, Array2, ArrayView1};
+
+/// Standard errors allowed in a Monte Carlo comparison.
+const Z: f64 = 4.0;
+
+fn plan_text(src: &str, opts: &PlanOptions) -> Plan {
+    let spec = parse(src, "inline.toml").expect("scenario parses");
+    Plan::from_spec(&spec, src, "inline.toml", Path::new("."), opts).expect("plans")
+}
+
+fn run_text(src: &str, opts: &PlanOptions) -> (Plan, Outcome, ResultDoc) {
+    let plan = plan_text(src, opts);
+    let outcome = run(&plan, 2).expect("runs");
+    let doc = report::build(&plan, &outcome);
+    (plan, outcome, doc)
+}
+
+fn seeded(seed: u64) -> PlanOptions {
+    PlanOptions {
+        seed: Some(seed),
+        ..PlanOptions::default()
+    }
+}
+
+/// The rows of `family` at `size`, with the family and size labels removed (so they compare
+/// with a single-family, single-size document's rows).
+fn rows(doc: &ResultDoc, family: &str, size: usize) -> Vec<PointRow> {
+    doc.points
+        .iter()
+        .filter(|p| p.family.as_deref().map_or(true, |f| f == family))
+        .filter(|p| p.train_size.map_or(true, |t| t as usize == size))
+        .cloned()
+        .map(|mut p| {
+            p.family = None;
+            p.train_size = None;
+            p
+        })
+        .collect()
+}
+
+fn assert_within(what: &str, estimate: f64, exact: f64, se: f64) {
+    assert!(se.is_finite() && se > 0.0, "{what}: unusable SE {se}");
+    println!(
+        "{what}: estimate {estimate:.5}, exact {exact:.5}, SE {se:.2e}, z = {:+.2}",
+        (estimate - exact) / se
+    );
+    assert!(
+        (estimate - exact).abs() <= Z * se,
+        "{what}: {estimate} vs exact {exact} is {:.2} SE away",
+        (estimate - exact).abs() / se
+    );
+}
+
+const FRIEDMAN_TREE: &str = r#"
+# Invented scenario: Friedman #1 with a small tree grid, for the single-size identity.
+name = "study-one-size"
+seed = 17
+replicates = 24
+blocks = 8
+
+[data]
+source = "synthetic"
+train_size = TRAIN
+eval_size = 120
+
+[data.truth]
+builtin = "friedman1"
+
+[data.noise]
+sd = 1.0
+
+[model]
+family = "tree"
+grid = { from = 1, to = 6 }
+"#;
+
+/// A list of one training size is the single-axis run, byte for byte (JSON and CSV).
+#[test]
+fn one_size_list_is_byte_identical_to_a_single_size() {
+    let (_, _, plain) = run_text(
+        &FRIEDMAN_TREE.replace("TRAIN", "150"),
+        &PlanOptions::default(),
+    );
+    let (_, _, listed) = run_text(
+        &FRIEDMAN_TREE.replace("TRAIN", "[150]"),
+        &PlanOptions::default(),
+    );
+    assert_eq!(report::to_json(&plain), report::to_json(&listed));
+    assert_eq!(report::csv::to_csv(&plain), report::csv::to_csv(&listed));
+    assert!(plain.sizes.is_empty() && plain.learning.is_empty());
+}
+
+const BAKERY: &str = r#"
+# Invented scenario (not real data): croissant demand from temperature and footfall.
+name = "study-two-families"
+seed = 11
+replicates = 30
+blocks = 10
+
+[data]
+source = "synthetic"
+train_size = SIZES
+eval_size = 150
+
+[[data.inputs]]
+name = "temperature"
+uniform = [0, 30]
+
+[[data.inputs]]
+name = "footfall"
+uniform = [0, 1]
+
+[data.truth]
+formula = "120 + 40*footfall + 25*sin(temperature/5) + 30*(footfall > 0.6)"
+
+[data.noise]
+sd = 12
+MODELS"#;
+
+const TREE: &str = r#"
+[[model]]
+family = "tree"
+grid = { from = 1, to = 7 }
+"#;
+
+const KNN: &str = r#"
+[[model]]
+family = "knn"
+grid = [1, 3, 8, 20, 40]
+standardize = true
+"#;
+
+/// Each family's rows in a two-family, two-size study equal that family's own run (same seed,
+/// same sizes) bit for bit, including the per-block leave-out values `check` uses.
+#[test]
+fn several_families_equal_their_single_family_runs() {
+    let sizes = "[60, 120]";
+    let both = BAKERY
+        .replace("SIZES", sizes)
+        .replace("MODELS", &format!("{TREE}{KNN}"));
+    let (plan, _, doc) = run_text(&both, &PlanOptions::default());
+    assert_eq!(plan.models.len(), 2);
+    assert_eq!(doc.sizes, vec![60, 120]);
+    for (family, section) in [("tree", TREE), ("knn", KNN)] {
+        let alone = BAKERY.replace("SIZES", sizes).replace("MODELS", section);
+        let (_, _, single) = run_text(&alone, &PlanOptions::default());
+        for n in [60, 120] {
+            let a = rows(&doc, family, n);
+            let b = rows(&single, family, n);
+            assert!(!a.is_empty());
+            assert_eq!(a, b, "{family} at {n} rows differs from its own run");
+        }
+        // The learning curve of the family is the same too.
+        let la = doc.learning.iter().find(|c| c.family == family).unwrap();
+        let lb = single.learning.iter().find(|c| c.family == family).unwrap();
+        assert_eq!(la.sizes, lb.sizes);
+    }
+    // Rankings hold both families at each size, best first, the best with difference 0.
+    assert_eq!(doc.ranking.len(), 2);
+    for r in &doc.ranking {
+        assert_eq!(r.candidates.len(), 2);
+        assert_eq!(r.candidates[0].difference, 0.0);
+        assert!(r.candidates[1].difference >= 0.0);
+        let (p, u) = (
+            r.candidates[1].difference_stderr.unwrap(),
+            r.candidates[1].unpaired_stderr.unwrap(),
+        );
+        assert!(p.is_finite() && u.is_finite() && p > 0.0);
+    }
+}
+
+/// The largest size of a study is the single-size run at that size (the same draw), and a
+/// smaller size agrees statistically with an independent single-size run on the same
+/// evaluation points (4 combined standard errors).
+#[test]
+fn sizes_agree_with_separate_runs() {
+    let study = BAKERY
+        .replace("SIZES", "[50, 200]")
+        .replace("MODELS", KNN)
+        .replace("seed = 11", "seed = 11\neval_seed = 4");
+    let (_, _, doc) = run_text(&study, &PlanOptions::default());
+    let single = |n: usize, seed: u64| {
+        let src = BAKERY
+            .replace("SIZES", &n.to_string())
+            .replace("MODELS", KNN)
+            .replace("seed = 11", "seed = 11\neval_seed = 4");
+        run_text(&src, &seeded(seed)).2
+    };
+    assert_eq!(rows(&doc, "knn", 200), rows(&single(200, 11), "knn", 200));
+    let other = single(50, 9001);
+    let small = rows(&doc, "knn", 50);
+    let alone = rows(&other, "knn", 50);
+    assert_eq!(small.len(), alone.len());
+    for (a, b) in small.iter().zip(&alone) {
+        for term in ["expected_loss", "bias_sq", "variance"] {
+            let se = (a.se(term).unwrap().powi(2) + b.se(term).unwrap().powi(2)).sqrt();
+            assert_within(
+                &format!("k = {} {term}: study vs separate run", a.value),
+                a.get(term),
+                b.get(term),
+                se,
+            );
+        }
+    }
+}
+
+/// Brute-force k nearest neighbours of `x0` among the rows of `x` (Euclidean).
+fn nearest(x: &Array2<f64>, x0: ArrayView1<'_, f64>, k: usize) -> Vec<usize> {
+    let mut d: Vec<(f64, usize)> = x
+        .rows()
+        .into_iter()
+        .enumerate()
+        .map(|(i, r)| (r.iter().zip(x0).map(|(a, b)| (a - b).powi(2)).sum(), i))
+        .collect();
+    d.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+    d.into_iter().take(k).map(|(_, i)| i).collect()
+}
+
+const FIXED_KNN: &str = r#"
+# Invented scenario: soil moisture at fixed probe sites, predicted at fixed check points.
+name = "study-fixed-knn"
+seed = 29
+eval_seed = 5
+replicates = 240
+blocks = 24
+
+[data]
+source = "synthetic"
+train_size = [40, 160]
+design = "fixed"
+eval_size = 120
+
+[[data.inputs]]
+name = "a"
+uniform = [0.0, 1.0]
+[[data.inputs]]
+name = "b"
+uniform = [0.0, 2.0]
+
+[data.truth]
+formula = "3*sin(3*a) + b^2 - a*b"
+
+[data.noise]
+sd = 0.5
+
+[model]
+family = "knn"
+grid = [1, 3, 9]
+"#;
+
+/// Exact ESL eq. 7.10 terms of k-NN trained on the first `n` design rows, averaged over the
+/// evaluation points: (bias², variance).
+fn esl_7_10(
+    design: &Array2<f64>,
+    f: &Array1<f64>,
+    eval: &Array2<f64>,
+    truth: &Array1<f64>,
+    n: usize,
+    k: usize,
+    sigma: f64,
+) -> (f64, f64) {
+    let x = design.slice(ndarray::s![..n, ..]).to_owned();
+    let b2 = eval
+        .rows()
+        .into_iter()
+        .zip(truth)
+        .map(|(x0, &f0)| {
+            let nb = nearest(&x, x0, k);
+            let fbar = nb.iter().map(|&l| f[l]).sum::<f64>() / k as f64;
+            (f0 - fbar).powi(2)
+        })
+        .sum::<f64>()
+        / eval.nrows() as f64;
+    (b2, sigma * sigma / k as f64)
+}
+
+/// On a fixed design, every training size (a nested prefix of the design) matches its own
+/// exact ESL eq. 7.10 bias² and variance within 4 SE.
+#[test]
+fn fixed_design_knn_matches_esl_7_10_at_every_size() {
+    let (plan, out, _) = run_text(FIXED_KNN, &PlanOptions::default());
+    let (design, f, _) = out.prepared.fixed.as_ref().expect("fixed design");
+    let (eval, truth) = (&out.prepared.eval_x, &out.prepared.eval_truth);
+    for (s, &n) in plan.sizes.iter().enumerate() {
+        let summary = &out.summaries[plan.cell(s, 0)];
+        for (g, &kf) in plan.model().grid.iter().enumerate() {
+            let k = kf as usize;
+            let (b2, var) = esl_7_10(design, f, eval, truth, n, k, 0.5);
+            for (term, exact) in [("bias_sq", b2), ("variance", var)] {
+                assert_within(
+                    &format!("n = {n}, k = {k} {term}"),
+                    summary.value(g, term),
+                    exact,
+                    summary.se(g, term),
+                );
+            }
+        }
+    }
+}
+
+const PAIR: &str = r#"
+# Invented scenario: two k-NN smoothers of a noisy dial reading at fixed positions.
+name = "study-paired"
+seed = 1
+eval_seed = 77
+replicates = 40
+blocks = 20
+
+[data]
+source = "synthetic"
+train_size = 60
+design = "fixed"
+eval_size = 80
+
+[[data.inputs]]
+name = "position"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "2*sin(4*position) + position"
+
+[data.noise]
+sd = 1.0
+
+[[model]]
+family = "knn"
+label = "knn-a"
+grid = [KA]
+
+[[model]]
+family = "knn"
+label = "knn-b"
+grid = [KB]
+"#;
+
+/// Runs the paired study of k-NN with `ka` against `kb` over `seeds` seeds: how many seeds'
+/// ±2 SE interval of the paired difference (second-ranked minus first) covers the exact
+/// difference, out of how many, and the mean paired/unpaired SE ratio.
+fn paired_study(ka: usize, kb: usize, seeds: std::ops::Range<u64>) -> (usize, usize, f64) {
+    let src = PAIR
+        .replace("KA", &ka.to_string())
+        .replace("KB", &kb.to_string());
+    let plan0 = plan_text(&src, &PlanOptions::default());
+    let out0 = run(&plan0, 1).unwrap();
+    let (design, f, _) = out0.prepared.fixed.as_ref().unwrap();
+    let (eval, truth) = (&out0.prepared.eval_x, &out0.prepared.eval_truth);
+    let loss = |k: usize| {
+        let (b2, v) = esl_7_10(design, f, eval, truth, 60, k, 1.0);
+        1.0 + b2 + v
+    };
+    let (mut covered, mut total, mut ratio) = (0, 0, 0.0);
+    for seed in seeds {
+        let (_, _, doc) = run_text(&src, &seeded(seed));
+        let r = &doc.ranking[0];
+        let (first, second) = (&r.candidates[0], &r.candidates[1]);
+        let exact = loss(second.value as usize) - loss(first.value as usize);
+        let se = second.difference_stderr.unwrap();
+        if (second.difference - exact).abs() <= 2.0 * se {
+            covered += 1;
+        }
+        ratio += se / second.unpaired_stderr.unwrap();
+        total += 1;
+    }
+    (covered, total, ratio / total as f64)
+}
+
+/// Paired differences are calibrated and tighter: over 200 seeds, ±2 SE covers the exact
+/// difference (ESL eq. 7.10) for at least 90% of them — a binomial floor: with true coverage
+/// 95%, fewer than 180 of 200 has probability below 0.1% — and the paired standard error is
+/// smaller than the unpaired combination. Two pairs: a clearly worse k (1 against 6) and a
+/// close one (4 against 6, where the ranking itself can change from seed to seed).
+#[test]
+fn paired_difference_is_calibrated_and_tighter() {
+    for (ka, kb) in [(1, 6), (4, 6)] {
+        let (covered, total, ratio) = paired_study(ka, kb, 1000..1200);
+        println!(
+            "k = {ka} against k = {kb}: ±2 SE covered {covered} of {total}; mean paired/unpaired SE ratio {ratio:.3}"
+        );
+        assert!(covered * 10 >= total * 9, "coverage {covered}/{total}");
+        assert!(ratio < 1.0, "paired SE not tighter: ratio {ratio}");
+    }
+}
+
+/// The long version of the paired study (2000 seeds per pair); results in
+/// `docs/study-calibration.md`.
+#[test]
+#[ignore]
+fn paired_difference_calibration_long() {
+    for (ka, kb) in [(1, 6), (4, 6)] {
+        let (covered, total, ratio) = paired_study(ka, kb, 10_000..12_000);
+        println!(
+            "k = {ka} against k = {kb} (long): ±2 SE covered {covered} of {total} ({:.1}%); mean paired/unpaired SE ratio {ratio:.3}",
+            100.0 * covered as f64 / total as f64
+        );
+        assert!(covered * 100 >= total * 92);
+    }
+}
+
+/// The shipped study scenario answers "tree or k-NN, and would more data help?" in one run.
+#[test]
+fn shipped_study_has_rankings_learning_curves_and_pictures() {
+    let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/bakery-study.toml");
+    let src = std::fs::read_to_string(&path).unwrap();
+    let (_, _, doc) = run_text(&src, &PlanOptions::default());
+    assert_eq!(doc.families(), vec!["tree".to_string(), "knn".to_string()]);
+    assert!(doc.sizes.len() >= 3);
+    assert_eq!(doc.ranking.len(), doc.sizes.len());
+    assert_eq!(doc.learning.len(), 2);
+    for c in &doc.learning {
+        assert_eq!(c.sizes.len(), doc.sizes.len());
+        let g = c.gain.as_ref().expect("a gain at the largest size");
+        assert!(g.stderr.is_some_and(|s| s > 0.0));
+    }
+    assert!(doc.reading.contains("tree") && doc.reading.contains("knn"));
+    for svg in [
+        report::plot::families_svg(&doc).unwrap(),
+        report::plot::learning_svg(&doc).unwrap(),
+        report::plot::heatmap_svg(&doc, "tree").unwrap(),
+        report::plot::heatmap_svg(&doc, "knn").unwrap(),
+    ] {
+        let tree = resvg::usvg::Tree::from_str(&svg, &resvg::usvg::Options::default());
+        assert!(tree.is_ok(), "picture is valid SVG");
+    }
+}
+
+mod common;
+
+fn args(v: &[String]) -> Vec<&str> {
+    v.iter().map(String::as_str).collect()
+}
+
+/// A two-family, four-size study through the command line: three shards merged, and a run
+/// stopped twice and resumed from its checkpoint, both give the plain run's JSON and CSV
+/// byte for byte; `plot` draws the families picture from the result.
+#[test]
+fn study_shards_and_checkpoints_are_byte_identical() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let scen = common::repo().join("scenarios/bakery-study.toml");
+    let scen = scen.to_str().unwrap();
+    let ok = |args: &[&str]| {
+        let (code, _, err) = common::run3(d, args);
+        assert_eq!(code, 0, "{args:?}: {err}");
+    };
+    let small = ["--replicates", "24", "--quiet"];
+    let with = |extra: &[&str]| -> Vec<String> {
+        let mut v = vec!["run".to_string(), scen.to_string()];
+        v.extend(small.iter().map(|s| s.to_string()));
+        v.extend(extra.iter().map(|s| s.to_string()));
+        v
+    };
+    ok(&args(&with(&["--out", "plain.json", "--csv", "plain.csv"])));
+    for i in 1..=3 {
+        let (s, o) = (format!("{i}/3"), format!("part-{i}.json"));
+        ok(&args(&with(&["--shard", &s, "--out", &o])));
+    }
+    ok(&[
+        "merge",
+        "part-1.json",
+        "part-2.json",
+        "part-3.json",
+        "--out",
+        "merged.json",
+        "--csv",
+        "merged.csv",
+    ]);
+    let read = |f: &str| std::fs::read(d.join(f)).unwrap();
+    assert_eq!(read("plain.json"), read("merged.json"));
+    assert_eq!(read("plain.csv"), read("merged.csv"));
+    for stop in ["2", "5"] {
+        let v = with(&[
+            "--checkpoint",
+            "ck.json",
+            "--out",
+            "resumed.json",
+            "--stop-after-blocks",
+            stop,
+        ]);
+        let (code, _, err) = common::run3(d, &args(&v));
+        assert_eq!(code, 3, "{err}");
+    }
+    ok(&args(&with(&[
+        "--checkpoint",
+        "ck.json",
+        "--out",
+        "resumed.json",
+    ])));
+    assert_eq!(read("plain.json"), read("resumed.json"));
+    ok(&[
+        "plot",
+        "plain.json",
+        "--out",
+        "families.svg",
+        "--learning",
+        "learning.svg",
+        "--heatmap",
+        "heat.svg",
+        "--family",
+        "knn",
+    ]);
+    let svg = String::from_utf8(read("families.svg")).unwrap();
+    assert!(
+        svg.contains("knn") && !svg.contains("tree:"),
+        "--family draws one family"
+    );
+    ok(&["plot", "plain.json", "--out", "families.svg"]);
+    let svg = String::from_utf8(read("families.svg")).unwrap();
+    assert!(svg.contains("tree") && svg.contains("knn"));
+    assert!(String::from_utf8(read("heat.svg"))
+        .unwrap()
+        .contains("Expected loss of knn"));
+    assert!(String::from_utf8(read("learning.svg"))
+        .unwrap()
+        .contains("training size"));
+    let (code, _, err) = common::run3(
+        d,
+        &["plot", "plain.json", "--out", "x.svg", "--family", "forest"],
+    );
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("tree, knn"), "{err}");
+}
+
+/// Two sections of one family need distinct labels; rows, rankings and learning curves name the
+/// models by them.
+#[test]
+fn model_labels_name_the_candidates() {
+    let src = PAIR.replace("KA", "1").replace("KB", "6");
+    let unlabelled = src
+        .replace("label = \"knn-a\"\n", "")
+        .replace("label = \"knn-b\"\n", "");
+    let spec = parse(&unlabelled, "inline.toml").unwrap();
+    let err = Plan::from_spec(
+        &spec,
+        &unlabelled,
+        "inline.toml",
+        Path::new("."),
+        &PlanOptions::default(),
+    )
+    .unwrap_err()
+    .to_string();
+    assert!(
+        err.contains("model[1].label") && err.contains("distinct"),
+        "{err}"
+    );
+    let (_, _, doc) = run_text(&src, &PlanOptions::default());
+    assert_eq!(
+        doc.families(),
+        vec!["knn-a".to_string(), "knn-b".to_string()]
+    );
+    assert!(doc
+        .points
+        .iter()
+        .all(|p| p.family.as_deref().is_some_and(|f| f.starts_with("knn-"))));
+    assert_eq!(doc.models[0].family, "knn");
+    let text = report::terminal::render(&doc);
+    assert!(text.contains("knn-a = knn"), "{text}");
+}
