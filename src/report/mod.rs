@@ -1070,24 +1070,40 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 let clear = se.is_some_and(|s| drop > 2.0 * s);
                 let fam = m.label.as_str();
                 let se_text = se.map(|s| format!(" ± {}", fmt_se(s))).unwrap_or_default();
+                let (va, vb) = (m.grid[ga], m.grid[gb]);
+                let knob = m.family.knob();
+                let moved = if va == vb {
+                    format!("its best {knob} stayed at {}", fmt_value(vb))
+                } else {
+                    format!("its best {knob} moved from {} to {}", fmt_value(va), fmt_value(vb))
+                };
+                let change = if drop >= 0.0 {
+                    format!("falls by {}", fmt_num(drop))
+                } else {
+                    format!("rises by {}", fmt_num(-drop))
+                };
                 let mut reading = format!(
-                    "From {from} to {to} rows the lowest expected loss of {fam} falls by {}{se_text} (paired over replicate blocks); ",
-                    fmt_num(drop)
+                    "From {from} to {to} rows the lowest expected loss of {fam} {change}{se_text} (paired over replicate blocks) and {moved}; "
                 );
-                if clear && share >= 0.5 {
+                if !clear {
                     reading.push_str(&format!(
-                        "variance is {:.0}% of the reducible loss at {to} rows, so more data should still help.",
+                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of the reducible loss at {to} rows).",
                         100.0 * share
                     ));
-                } else if clear {
+                } else if share >= 0.5 {
                     reading.push_str(&format!(
-                        "variance is only {:.0}% of the reducible loss at {to} rows: more data helps, but a more flexible model would help more.",
+                        "variance is {:.0}% of the reducible loss at {to} rows, so more data should keep lowering it.",
                         100.0 * share
+                    ));
+                } else if va != vb {
+                    reading.push_str(&format!(
+                        "bias is {:.0}% of the reducible loss at {to} rows: more data still helps, mostly by allowing a different {knob}.",
+                        100.0 * (1.0 - share)
                     ));
                 } else {
                     reading.push_str(&format!(
-                        "no clear gain at this precision; variance is {:.0}% of the reducible loss at {to} rows.",
-                        100.0 * share
+                        "bias is {:.0}% of the reducible loss at {to} rows and more data does not change the best {knob}, so a more flexible family would gain more than more data.",
+                        100.0 * (1.0 - share)
                     ));
                 }
                 Gain {

@@ -234,6 +234,10 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
             out.push_str(&curve_table(doc, &terms, &knob, &doc.curve(f)));
             out.push('\n');
         }
+        let bias_label = terms
+            .iter()
+            .find(|t| t.role == "bias")
+            .map_or("bias".to_string(), |t| t.label.clone());
         for c in &doc.learning {
             out.push_str(&format!(
                 "learning curve of {} (its best {} at each training size):\n",
@@ -243,7 +247,7 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                 "train_size",
                 c.knob.as_str(),
                 "expected loss",
-                "bias",
+                bias_label.as_str(),
                 "variance",
                 "noise",
             ]
@@ -268,7 +272,35 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
             out.push('\n');
         }
     }
-    out.push('\n');
+    if let Some(r) = doc.ranking.last().filter(|r| r.candidates.len() > 1) {
+        out.push_str(&format!(
+            "ranking at {} training rows (differences paired over replicate blocks; unpaired standard error in brackets):\n",
+            r.train_size
+        ));
+        for (i, c) in r.candidates.iter().enumerate() {
+            let what = format!("{} {} = {}", c.family, c.knob, fmt_value(c.value));
+            if i == 0 {
+                out.push_str(&format!(
+                    "  1. {what}: {}\n",
+                    with_se(c.expected_loss, c.stderr)
+                ));
+            } else {
+                let unpaired = c
+                    .unpaired_stderr
+                    .map(|u| format!(" (± {})", crate::fmt::fmt_se(u)))
+                    .unwrap_or_default();
+                out.push_str(&format!(
+                    "  {}. {what}: +{}{unpaired} worse\n",
+                    i + 1,
+                    with_se(c.difference, c.difference_stderr),
+                ));
+            }
+        }
+        out.push('\n');
+    }
+    if !several {
+        out.push('\n');
+    }
     out.push_str(&legend(doc, &terms));
     out.push_str(&format!("reading: {}\n", doc.reading));
     if let Some(sel) = &doc.selection {
