@@ -300,7 +300,7 @@ fn fit_path(input: &FitInput<'_>, grid: &[f64]) -> Result<PathFit, FitError> {
     for &v in input.y {
         if !(v.fract() == 0.0 && v >= 0.0 && v < classes as f64) {
             return Err(FitError(format!(
-                "logistic: class label {v} is not one of 0..{classes}"
+                "logistic: class label {v} is not one of the class indices 0 to {} ({classes} classes)", classes - 1
             )));
         }
         let c = v as usize;

@@ -372,7 +372,7 @@ impl TreeFamily {
         }
         if let Some(((i, j), &v)) = x.indexed_iter().find(|(_, v)| !v.is_finite()) {
             return Err(FitError(format!(
-                "tree: input {v} at training row {i}, column {j} is not a finite number"
+                "tree: input {} of {p} (in scenario or table order) is {v} at training row {i}, not a finite number", j + 1
             )));
         }
 
@@ -391,7 +391,7 @@ impl TreeFamily {
                 for (i, &v) in yv.iter().enumerate() {
                     if v < 0.0 || v.fract() != 0.0 || v >= classes as f64 {
                         return Err(FitError(format!(
-                            "tree: label {v} at training row {i} is not a class index in 0..{classes}"
+                            "tree: label {v} at training row {i} is not a class index 0 to {} ({classes} classes)", classes - 1
                         )));
                     }
                     l.push(v as u32);

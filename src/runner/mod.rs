@@ -15,6 +15,7 @@
 //! thread count, any shard split and after a resume.
 
 pub mod audit;
+pub mod memory;
 pub mod source;
 
 use std::collections::BTreeMap;
