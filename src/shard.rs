@@ -515,6 +515,15 @@ pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
             path.display()
         )));
     }
+    // The checksum covers the fields lossprism reads; the text must be exactly what it wrote,
+    // so an added field or a reformatted file is refused too.
+    if part_json(&doc).trim_end() != text.trim_end() {
+        return Err(Error::Usage(format!(
+            "{}: the file was edited (its text is not the document lossprism wrote: an added \
+             field or another layout); rerun this shard or delete the checkpoint",
+            path.display()
+        )));
+    }
     Ok(doc)
 }
 

@@ -176,7 +176,7 @@ impl fmt::Display for TableError {
         }
         write!(f, ": ")?;
         if let Some(c) = &self.column {
-            write!(f, "column `{c}`: ")?;
+            write!(f, "column `{}`: ", crate::fmt::clip(c, 100))?;
         }
         write!(f, "{}", self.message)
     }
@@ -305,7 +305,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 None,
                 format!(
                     "no {what} column `{name}`; the columns are: {}",
-                    header.join(", ")
+                    crate::fmt::clip(&header.join(", "), 300)
                 ),
             )
         })
@@ -409,7 +409,10 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             let bad = if is_missing(cell) {
                 Some("is missing a value".to_string())
             } else if is_num && !is_target_label && number(cell).is_none() {
-                Some(format!("`{cell}` is not a number (the column is numeric)"))
+                Some(format!(
+                    "`{}` is not a number (the column is numeric)",
+                    crate::fmt::clip(cell, 60)
+                ))
             } else {
                 None
             };
@@ -557,8 +560,9 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                             Some(lines[r]),
                             Some(&opts.target),
                             format!(
-                                "label `{v}` is not one of [data.classes] labels: {}",
-                                labels.join(", ")
+                                "label `{}` is not one of [data.classes] labels: {}",
+                                crate::fmt::clip(v, 60),
+                                crate::fmt::clip(&labels.join(", "), 200)
                             ),
                         ))
                     }
