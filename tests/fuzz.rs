@@ -25,6 +25,21 @@ fn config() -> Config {
     }
 }
 
+/// A scratch folder in memory where the machine has one (`/dev/shm`): the file-based readers
+/// are fed 10 000 files each, which a disk makes slow.
+fn scratch() -> tempfile::TempDir {
+    let shm = Path::new("/dev/shm");
+    if shm.is_dir() {
+        if let Ok(d) = tempfile::Builder::new()
+            .prefix("lossprism-fuzz")
+            .tempdir_in(shm)
+        {
+            return d;
+        }
+    }
+    tempfile::tempdir().unwrap()
+}
+
 /// An error message is one non-empty line.
 fn one_line(msg: &str) -> Result<(), TestCaseError> {
     prop_assert!(!msg.trim().is_empty(), "empty error message");
@@ -251,7 +266,7 @@ fn apply(edits: &[Edit]) -> String {
 
 #[test]
 fn scenario_loader_never_panics() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = scratch();
     let base = dir.path().to_path_buf();
     let mut runner = TestRunner::new(config());
     runner
@@ -328,7 +343,7 @@ fn table_text() -> impl Strategy<Value = (String, bool, bool)> {
 
 #[test]
 fn csv_loader_never_panics() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = scratch();
     let path = dir.path().join("t.csv");
     let mut runner = TestRunner::new(config());
     runner
@@ -428,7 +443,7 @@ fn mutate(bytes: &[u8], ms: &[Mutation]) -> Vec<u8> {
 
 #[test]
 fn part_reader_never_accepts_a_damaged_part() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = scratch();
     let good = part_fixture(dir.path());
     let bytes = fs::read(&good).unwrap();
     let path = dir.path().join("m.json");
@@ -457,7 +472,7 @@ fn part_reader_never_accepts_a_damaged_part() {
 /// must refuse them (or, when the damage happens to be harmless, merge to finite numbers).
 #[test]
 fn part_decoder_refuses_damaged_accumulators() {
-    let dir = tempfile::tempdir().unwrap();
+    let dir = scratch();
     let good = part_fixture(dir.path());
     let doc: serde_json::Value = serde_json::from_slice(&fs::read(&good).unwrap()).unwrap();
     let path = dir.path().join("d.json");

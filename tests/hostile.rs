@@ -292,7 +292,7 @@ impl Table {
     }
 
     /// A table case: `t.csv` holds `csv` and `s.toml` the table scenario.
-    fn table(&mut self, name: &str, csv: &[u8], extra: &str, needle: &str) {
+    fn table(&mut self, name: &str, csv: &[u8], extra: &str, needle: &str) -> &mut Case {
         let s = table_scenario(extra, TREE);
         self.add(
             "csv",
@@ -300,7 +300,7 @@ impl Table {
             &[("s.toml", s.as_bytes()), ("t.csv", csv)],
             &["run", "s.toml", "--out", "r.json", "-q"],
             needle,
-        );
+        )
     }
 }
 
@@ -1118,6 +1118,13 @@ fn csv_cases(t: &mut Table) {
         "",
         "rescale",
     );
+    t.table(
+        "target of 1e308: the tree's leaf means overflow",
+        csv_rows(40, |i| format!("{}e307", 5 + i % 5)).as_bytes(),
+        "",
+        "prediction inf",
+    )
+    .also("rescale");
     let s = table_scenario("", TREE);
     t.add(
         "csv",
