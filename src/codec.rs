@@ -163,7 +163,7 @@ pub fn read_document(
             meta.len()
         )));
     }
-    let file = std::fs::File::open(path).map_err(|e| crate::error::Error::io(path, &e))?;
+    let file = open_input(path).map_err(|e| crate::error::Error::io(path, &e))?;
     let mut r = file.take(limit.saturating_add(1));
     let mut bytes = Vec::new();
     let mut chunk = vec![0u8; 1 << 16];
@@ -206,6 +206,34 @@ pub fn read_document(
             e.utf8_error().valid_up_to()
         ))
     })
+}
+
+/// Seconds an input FIFO may take to get a writer before it is refused.
+pub const FIFO_WAIT_SECONDS: u64 = 10;
+
+/// Opens an input file for reading. A FIFO blocks its reader until something writes to it: a
+/// FIFO that gets no writer within [`FIFO_WAIT_SECONDS`] is an error instead of a hang.
+pub fn open_input(path: &std::path::Path) -> std::io::Result<std::fs::File> {
+    use std::os::unix::fs::FileTypeExt;
+    let is_fifo = std::fs::metadata(path)
+        .map(|m| m.file_type().is_fifo())
+        .unwrap_or(false);
+    if !is_fifo {
+        return std::fs::File::open(path);
+    }
+    let (tx, rx) = std::sync::mpsc::channel();
+    let p = path.to_path_buf();
+    // The thread stays blocked in `open` if nothing ever writes; the process ends without it.
+    std::thread::spawn(move || {
+        let _ = tx.send(std::fs::File::open(p));
+    });
+    match rx.recv_timeout(std::time::Duration::from_secs(FIFO_WAIT_SECONDS)) {
+        Ok(r) => r,
+        Err(_) => Err(std::io::Error::new(
+            std::io::ErrorKind::TimedOut,
+            format!("a FIFO that nothing wrote to within {FIFO_WAIT_SECONDS} s"),
+        )),
+    }
 }
 
 /// A head check for [`read_document`]: anything goes.

@@ -228,6 +228,8 @@ enum Extra {
     Sparse(&'static str, u64),
     /// A symlink (name, target).
     Link(&'static str, &'static str),
+    /// A FIFO that nothing writes to.
+    Fifo(&'static str),
 }
 
 #[derive(Clone)]
@@ -862,6 +864,22 @@ fn scenario_cases(t: &mut Table) {
         "larger than any scenario file",
     )
     .extra(Extra::Sparse("big.toml", 100 << 20));
+    t.add(
+        g,
+        "scenario is a FIFO nothing writes to",
+        &[],
+        &["validate", "fifo.toml"],
+        "nothing wrote to",
+    )
+    .extra(Extra::Fifo("fifo.toml"));
+    t.add(
+        "csv",
+        "table is a FIFO nothing writes to",
+        &[("s.toml", table_scenario("", TREE).as_bytes())],
+        &["validate", "s.toml"],
+        "nothing wrote to",
+    )
+    .extra(Extra::Fifo("t.csv"));
     t.add(
         g,
         "scenario from /dev/zero",
@@ -2174,6 +2192,16 @@ fn run_case(c: &Case, have_python: bool) -> (Verdict, String) {
             .set_len(*len)
             .unwrap(),
         Extra::Link(n, target) => std::os::unix::fs::symlink(target, dir.join(n)).unwrap(),
+        Extra::Fifo(n) => {
+            let made = Command::new("mkfifo")
+                .arg(dir.join(n))
+                .status()
+                .map(|s| s.success())
+                .unwrap_or(false);
+            if !made {
+                return (Verdict::Skipped, "mkfifo failed".into());
+            }
+        }
     }
     let before = snapshot(dir);
     let mut child = Command::new(bin())
@@ -2649,4 +2677,29 @@ fn two_replicates_say_what_to_change_for_standard_errors() {
     let (code, _, err) = status(dir, &["run", "s.toml", "--out", "c.json"]);
     assert_eq!(code, 0, "{err}");
     assert!(!err.contains("no standard errors"), "{err}");
+}
+
+#[test]
+fn validate_is_linear_in_the_inputs_and_prints_the_memory_estimate() {
+    // 100 000 inputs once took 20 s (a quadratic duplicate-name scan); now about a second.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    let mut wide = String::from(BASE.split("[[data.inputs]]").next().unwrap());
+    for i in 0..100_000 {
+        wide.push_str(&format!(
+            "[[data.inputs]]\nname = \"x{i}\"\nuniform = [0.0, 1.0]\n"
+        ));
+    }
+    wide.push_str(
+        "[data.truth]\nformula = \"x0 + x99999\"\n[data.noise]\nsd = 1.0\n[model]\nfamily = \
+         \"tree\"\ngrid = [1, 2]\n",
+    );
+    fs::write(dir.join("s.toml"), wide).unwrap();
+    let start = Instant::now();
+    let (code, out, err) = status(dir, &["validate", "s.toml"]);
+    let secs = start.elapsed().as_secs_f64();
+    assert_eq!(code, 0, "{err}");
+    assert!(secs < 10.0, "validate took {secs:.1} s");
+    assert!(out.contains("memory: about"), "{out}");
+    assert!(out.contains("largest term"), "{out}");
 }

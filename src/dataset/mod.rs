@@ -236,7 +236,8 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             ),
         ));
     }
-    let f = std::fs::File::open(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+    let f =
+        crate::codec::open_input(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
     let mut reader = std::io::BufReader::with_capacity(1 << 16, f);
     // Skip leading blank space to tell an empty file from a table.
     loop {
