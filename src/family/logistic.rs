@@ -121,6 +121,13 @@ impl Family for LogisticFamily {
         matches!(task, Task::Classify { .. })
     }
 
+    /// Newton's gradient, Hessian and its working copy over `(K − 1)(p + 1)` coefficients, and
+    /// one coefficient vector per grid value, on top of the default.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], task: Task) -> f64 {
+        let d = (task.classes().max(2) - 1) as f64 * (p as f64 + 1.0);
+        8.0 * (3.0 * n as f64 * p as f64 + (n + m) as f64 + 2.0 * d * d + grid.len() as f64 * d)
+    }
+
     fn caps(&self, task: Task) -> Caps {
         Caps {
             probabilities: matches!(task, Task::Classify { .. }),
