@@ -141,8 +141,26 @@ pub fn parse_margin(s: &str) -> Result<f64, String> {
     };
     match num.parse::<f64>() {
         Ok(v) if v.is_finite() && v >= 0.0 => Ok(v * scale),
+        Ok(v) if v < 0.0 => Err(format!(
+            "`{s}`: a margin cannot be negative (it is how much a term may grow before it \
+             counts); write a percentage like `2%` or a fraction like `0.02`, or `0` for none"
+        )),
         _ => Err(format!(
             "`{s}` is not a margin: write a percentage like `2%` or a fraction like `0.02`"
+        )),
+    }
+}
+
+/// Parses `--sigma`: a finite number of standard errors, at least 0.
+pub fn parse_sigma(s: &str) -> Result<f64, String> {
+    match s.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() && v >= 0.0 => Ok(v),
+        Ok(v) if v < 0.0 => Err(format!(
+            "`{s}`: --sigma cannot be negative (it is how many standard errors a change must \
+             exceed to count); write a number such as 4 (the default), or 0"
+        )),
+        _ => Err(format!(
+            "`{s}` is not a number of standard errors; write a number such as 4 (the default)"
         )),
     }
 }
@@ -562,8 +580,9 @@ pub fn compare(
                     let which = if x.is_none() { "result" } else { "baseline" };
                     return Err(CheckError::MissingStderr(format!(
                         "the standard error of {} is missing (null) in the {which}: \
-                         standard errors need runs with at least 2 replicate blocks \
-                         (set `blocks` >= 2 and `replicates` >= 2)",
+                         standard errors need runs with at least 2 replicate blocks and at \
+                         least 3 replicates (the jackknife leaves one block out and needs 2 \
+                         replicates in the rest): rerun with `replicates` >= 3 and `blocks` >= 2",
                         at()
                     )));
                 }

@@ -38,6 +38,9 @@ pub enum Command {
     Validate {
         /// The scenario file.
         scenario: PathBuf,
+        /// Hold the memory estimate to this size instead of the memory available (`16G`).
+        #[arg(long, value_name = "SIZE", value_parser = crate::runner::memory::parse_size)]
+        memory_limit: Option<u64>,
     },
     /// List the model families, their knobs and what the knob means.
     Families,
@@ -129,13 +132,13 @@ pub struct RunArgs {
     #[arg(long, value_name = "FILE.csv")]
     pub points: Option<PathBuf>,
     /// Override the number of replicates R (at least 2).
-    #[arg(long, value_name = "R")]
+    #[arg(long, allow_negative_numbers = true, value_name = "R")]
     pub replicates: Option<u64>,
     /// Override the master seed.
-    #[arg(long)]
+    #[arg(long, allow_negative_numbers = true)]
     pub seed: Option<u64>,
     /// Worker threads (0 = one per core). Results do not depend on it.
-    #[arg(long, default_value_t = 0)]
+    #[arg(long, allow_negative_numbers = true, default_value_t = 0)]
     pub threads: usize,
     /// Which 0-1 loss decomposition the table shows (the JSON always holds all three).
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
@@ -143,6 +146,10 @@ pub struct RunArgs {
     /// Do not print the table (nor the progress bar).
     #[arg(long, short)]
     pub quiet: bool,
+    /// Run even when the memory estimate exceeds the memory available, up to this size (`16G`,
+    /// `512M`); a run above the estimate's limit is refused before it allocates anything.
+    #[arg(long, value_name = "SIZE", value_parser = crate::runner::memory::parse_size)]
+    pub memory_limit: Option<u64>,
     /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
@@ -187,13 +194,16 @@ pub struct CheckArgs {
     #[arg(long, value_name = "BASE.json")]
     pub baseline: PathBuf,
     /// Standard errors a change must exceed to count (default 4).
-    #[arg(long, default_value_t = 4.0)]
+    #[arg(long, default_value = "4", allow_hyphen_values = true,
+          value_parser = crate::check::parse_sigma)]
     pub sigma: f64,
     /// Relative change a term must exceed to count: `2%` or `0.02`.
-    #[arg(long, default_value = "2%", value_parser = crate::check::parse_margin)]
+    #[arg(long, default_value = "2%", allow_hyphen_values = true,
+          value_parser = crate::check::parse_margin)]
     pub margin: f64,
     /// Margin for one term, overriding --margin (repeatable): `variance=5%`.
-    #[arg(long, value_name = "TERM=MARGIN", value_parser = crate::check::parse_term_margin)]
+    #[arg(long, value_name = "TERM=MARGIN", allow_hyphen_values = true,
+          value_parser = crate::check::parse_term_margin)]
     pub margin_term: Vec<(String, f64)>,
     /// After printing, replace the baseline with the result (atomically); creates the baseline
     /// when it does not exist yet. Exit 0 unless the documents cannot be compared.

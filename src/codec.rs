@@ -139,6 +139,153 @@ pub fn unpack_floats(s: &str, expect: usize) -> Result<Vec<f64>, String> {
         .collect())
 }
 
+/// Reads a text document of at most `limit` bytes: refused on its size before reading, and
+/// while reading (a device or a pipe that never ends is refused too). The first block read
+/// (up to 64 KiB) must hold no NUL byte (binary data is no document) and pass `head`, so junk
+/// of the wrong shape is refused before the rest is read. Errors name the path and `what`
+/// (`scenario file`, `part document`, ...).
+pub fn read_document(
+    path: &std::path::Path,
+    limit: u64,
+    what: &str,
+    head: &dyn Fn(&[u8]) -> Result<(), String>,
+) -> Result<String, crate::error::Error> {
+    use std::io::Read;
+    let shown = path.display();
+    let refuse = |m: String| crate::error::Error::Usage(format!("{shown}: {m}"));
+    let meta = std::fs::metadata(path).map_err(|e| crate::error::Error::io(path, &e))?;
+    if meta.is_dir() {
+        return Err(refuse(format!("is a folder, not a {what}")));
+    }
+    if meta.is_file() && meta.len() > limit {
+        return Err(refuse(format!(
+            "{} bytes, larger than any {what} lossprism reads ({limit} at most)",
+            meta.len()
+        )));
+    }
+    let file = open_input(path).map_err(|e| crate::error::Error::io(path, &e))?;
+    let mut r = file.take(limit.saturating_add(1));
+    let mut bytes = Vec::new();
+    let mut chunk = vec![0u8; 1 << 16];
+    let mut first = true;
+    loop {
+        let n = match r.read(&mut chunk) {
+            Ok(0) => break,
+            Ok(n) => n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => return Err(crate::error::Error::io(path, &e)),
+        };
+        bytes.extend_from_slice(&chunk[..n]);
+        if first && (bytes.len() >= 1 << 16 || n < chunk.len()) {
+            first = false;
+            let probe = &bytes[..bytes.len().min(1 << 16)];
+            if probe.contains(&0) {
+                return Err(refuse(format!(
+                    "holds binary data (a NUL byte), not a {what}"
+                )));
+            }
+            head(probe).map_err(|m| refuse(format!("not a {what}: {m}")))?;
+        }
+        if bytes.len() as u64 > limit {
+            return Err(refuse(format!(
+                "more than {limit} bytes, larger than any {what} lossprism reads"
+            )));
+        }
+    }
+    if first {
+        if bytes.contains(&0) {
+            return Err(refuse(format!(
+                "holds binary data (a NUL byte), not a {what}"
+            )));
+        }
+        head(&bytes).map_err(|m| refuse(format!("not a {what}: {m}")))?;
+    }
+    String::from_utf8(bytes).map_err(|e| {
+        refuse(format!(
+            "not UTF-8 text (invalid byte at offset {}), not a {what}",
+            e.utf8_error().valid_up_to()
+        ))
+    })
+}
+
+/// Seconds an input FIFO may take to get a writer before it is refused.
+pub const FIFO_WAIT_SECONDS: u64 = 10;
+
+/// Opens an input file for reading. A FIFO blocks its reader until something writes to it: a
+/// FIFO that gets no writer within [`FIFO_WAIT_SECONDS`] is an error instead of a hang.
+pub fn open_input(path: &std::path::Path) -> std::io::Result<std::fs::File> {
+    use std::os::unix::fs::FileTypeExt;
+    let is_fifo = std::fs::metadata(path)
+        .map(|m| m.file_type().is_fifo())
+        .unwrap_or(false);
+    if !is_fifo {
+        return std::fs::File::open(path);
+    }
+    let (tx, rx) = std::sync::mpsc::channel();
+    let p = path.to_path_buf();
+    // The thread stays blocked in `open` if nothing ever writes; the process ends without it.
+    std::thread::spawn(move || {
+        let _ = tx.send(std::fs::File::open(p));
+    });
+    match rx.recv_timeout(std::time::Duration::from_secs(FIFO_WAIT_SECONDS)) {
+        Ok(r) => r,
+        Err(_) => Err(std::io::Error::new(
+            std::io::ErrorKind::TimedOut,
+            format!("a FIFO that nothing wrote to within {FIFO_WAIT_SECONDS} s"),
+        )),
+    }
+}
+
+/// A head check for [`read_document`]: anything goes.
+pub fn any_text(_: &[u8]) -> Result<(), String> {
+    Ok(())
+}
+
+/// A head check for [`read_document`]: a JSON object (the first character after blank space is
+/// `{`), as every JSON document lossprism writes is.
+pub fn json_object(head: &[u8]) -> Result<(), String> {
+    let skip = head.strip_prefix(b"\xef\xbb\xbf").unwrap_or(head);
+    match skip.iter().find(|b| !b.is_ascii_whitespace()) {
+        Some(b'{') => Ok(()),
+        Some(b) => Err(format!(
+            "a JSON object (`{{ ... }}`) was expected, the text starts with `{}`",
+            char::from(*b).escape_default()
+        )),
+        None => Err("the file is empty".into()),
+    }
+}
+
+/// The top-level `format` and `version` fields of a JSON document, read without building the
+/// document: every other value is skipped as it is parsed, so memory stays small whatever the
+/// document holds.
+#[derive(Debug, Clone, Default, serde::Deserialize)]
+pub struct JsonHead {
+    /// The `format` field, when present.
+    #[serde(default)]
+    pub format: Option<serde_json::Value>,
+    /// The `version` field, when present.
+    #[serde(default)]
+    pub version: Option<serde_json::Value>,
+}
+
+impl JsonHead {
+    /// Reads the head of a JSON object; the error is serde_json's one-line message.
+    pub fn of(text: &str) -> Result<JsonHead, String> {
+        json_object(text.as_bytes())?;
+        serde_json::from_str(text).map_err(|e| format!("invalid JSON: {e}"))
+    }
+
+    /// The `format` field when it is a string.
+    pub fn format(&self) -> Option<&str> {
+        self.format.as_ref().and_then(serde_json::Value::as_str)
+    }
+
+    /// The `version` field when it is a string.
+    pub fn version(&self) -> Option<&str> {
+        self.version.as_ref().and_then(serde_json::Value::as_str)
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -43,7 +43,8 @@ pub struct ExprError {
 impl ExprError {
     fn new(message: impl Into<String>, column: usize) -> Self {
         ExprError {
-            message: message.into(),
+            // A message quotes the offending text, which may be a 200 KB identifier.
+            message: crate::fmt::clip(&message.into(), 300),
             column,
         }
     }
@@ -311,6 +312,13 @@ impl Formula {
             pos: 0,
             ops: Vec::new(),
             vars,
+            index: (vars.len() > 32).then(|| {
+                let mut m = std::collections::HashMap::with_capacity(vars.len());
+                for (i, v) in vars.iter().enumerate() {
+                    m.entry(*v).or_insert(i);
+                }
+                m
+            }),
             nesting: 0,
         };
         if matches!(p.peek().tok, Tok::End) {
@@ -651,10 +659,21 @@ struct Parser<'a> {
     pos: usize,
     ops: Vec<Op>,
     vars: &'a [&'a str],
+    /// Index of each variable name, built only for long variable lists (a scan is faster for a
+    /// few names; a map keeps a formula over 100 000 inputs linear).
+    index: Option<std::collections::HashMap<&'a str, usize>>,
     nesting: usize,
 }
 
 impl Parser<'_> {
+    /// Position of variable `name` in the variable list (the first, if named twice).
+    fn var_index(&self, name: &str) -> Option<usize> {
+        match &self.index {
+            Some(m) => m.get(name).copied(),
+            None => self.vars.iter().position(|v| *v == name),
+        }
+    }
+
     fn peek(&self) -> &Token {
         // The token list always ends with `End`, and `pos` never moves past it.
         &self.toks[self.pos.min(self.toks.len() - 1)]
@@ -822,7 +841,7 @@ impl Parser<'_> {
                 if matches!(self.peek().tok, Tok::LParen) {
                     return self.call(&name, t.col);
                 }
-                if let Some(i) = self.vars.iter().position(|v| *v == name) {
+                if let Some(i) = self.var_index(&name) {
                     self.ops.push(Op::Var(i));
                 } else if name == "pi" {
                     self.ops.push(Op::Const(std::f64::consts::PI));
@@ -884,7 +903,7 @@ impl Parser<'_> {
         let Some(&(_, arity, kind)) = FUNCTIONS.iter().find(|(n, _, _)| *n == name) else {
             let hint = match name {
                 "log" => "; write `ln` (natural) or `log10`".to_string(),
-                _ if self.vars.contains(&name) => {
+                _ if self.var_index(name).is_some() => {
                     format!("; `{name}` is a variable (write `{name}*(...)` to multiply)")
                 }
                 _ => format!("; known: {}", function_names()),

@@ -54,3 +54,15 @@ pub fn fmt_num(v: f64) -> String {
         format!("{v:.digits$}")
     }
 }
+
+/// Shortens text quoted in a one-line message: at most `max` characters, then `…` and the full
+/// length (a 200 KB formula is never echoed whole). Line breaks become spaces.
+pub fn clip(s: &str, max: usize) -> String {
+    let n = s.chars().count();
+    let one_line = |t: &str| t.replace(['\n', '\r'], " ");
+    if n <= max {
+        return one_line(s);
+    }
+    let head: String = s.chars().take(max).collect();
+    format!("{}… ({n} characters)", one_line(&head))
+}

@@ -113,7 +113,12 @@ pub fn run_with_family_opts(
 
 /// Reads a result document (`lossprism run --out FILE.json`, or [`save_result`]).
 pub fn load_result(path: &Path) -> Result<ResultDoc, Error> {
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, &e))?;
+    let text = crate::codec::read_document(
+        path,
+        1 << 30,
+        "lossprism result document",
+        &crate::codec::json_object,
+    )?;
     crate::check::parse_result(&text, &path.display().to_string())
         .map_err(|e| Error::Usage(e.to_string()))
 }

@@ -23,7 +23,10 @@ fn main() -> ExitCode {
         Command::Check(args) => commands::check(args),
         Command::Plot(args) => commands::plot(args),
         Command::Twin(args) => commands::twin(args),
-        Command::Validate { scenario } => commands::validate(&scenario),
+        Command::Validate {
+            scenario,
+            memory_limit,
+        } => commands::validate_with(&scenario, memory_limit),
         Command::Families => commands::families(),
     };
     match result {

@@ -98,7 +98,7 @@ impl ScenarioSource {
         match path {
             Some(p) => Ok(ScenarioSource {
                 file: p.display().to_string(),
-                text: std::fs::read_to_string(p).map_err(|e| Error::io(p, &e))?,
+                text: scenario::read_text(p)?,
                 base: p.parent().map(Path::to_path_buf).unwrap_or_default(),
             }),
             None => Ok(ScenarioSource {
@@ -450,26 +450,25 @@ pub fn part_json(doc: &PartDoc) -> String {
 /// [`MAX_PART_BYTES`] before reading, anything but format `lossprism-part/2` written by this
 /// version, and a document whose checksum does not match its content.
 pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
-    let meta = std::fs::metadata(path).map_err(|e| Error::io(path, &e))?;
-    if meta.is_file() && meta.len() > MAX_PART_BYTES {
-        return Err(Error::Usage(format!(
-            "{}: {} bytes, larger than any part document ({} at most); not a lossprism part",
-            path.display(),
-            meta.len(),
-            MAX_PART_BYTES
-        )));
-    }
-    let text = std::fs::read_to_string(path).map_err(|e| Error::io(path, &e))?;
-    let head: serde_json::Value = match serde_json::from_str(&text) {
-        Ok(v) => v,
+    // Streamed checks first: the size, a JSON object at the start, then `format` and
+    // `version` read without building the document; only a document that passes them is
+    // decoded (into its typed form, never a generic tree).
+    let text = crate::codec::read_document(
+        path,
+        MAX_PART_BYTES,
+        "lossprism part document",
+        &crate::codec::json_object,
+    )?;
+    let head = match crate::codec::JsonHead::of(&text) {
+        Ok(h) => h,
         Err(e) => {
             return Err(Error::Usage(format!(
-                "{}: not a lossprism part document (invalid JSON: {e})",
+                "{}: not a lossprism part document ({e})",
                 path.display()
             )))
         }
     };
-    match head.get("format").and_then(|f| f.as_str()) {
+    match head.format() {
         Some(PART_FORMAT) => {}
         Some("lossprism-part/1") => {
             return Err(Error::Usage(format!(
@@ -490,7 +489,7 @@ pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
             )))
         }
     }
-    match head.get("version").and_then(|f| f.as_str()) {
+    match head.version() {
         Some(VERSION) => {}
         Some(other) => {
             return Err(Error::Usage(format!(
@@ -505,7 +504,7 @@ pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
             )))
         }
     }
-    let doc: PartDoc = serde_json::from_value(head).map_err(|e| {
+    let doc: PartDoc = serde_json::from_str(&text).map_err(|e| {
         Error::Usage(format!(
             "{}: malformed {PART_FORMAT} document: {e}",
             path.display()
@@ -514,6 +513,15 @@ pub fn read_part(path: &Path) -> Result<PartDoc, Error> {
     if checksum(&doc) != doc.checksum {
         return Err(Error::Usage(format!(
             "{}: the checksum does not match the content: the file was edited or damaged; rerun this shard or delete the checkpoint",
+            path.display()
+        )));
+    }
+    // The checksum covers the fields lossprism reads; the text must be exactly what it wrote,
+    // so an added field or a reformatted file is refused too.
+    if part_json(&doc).trim_end() != text.trim_end() {
+        return Err(Error::Usage(format!(
+            "{}: the file was edited (its text is not the document lossprism wrote: an added \
+             field or another layout); rerun this shard or delete the checkpoint",
             path.display()
         )));
     }

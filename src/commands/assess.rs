@@ -158,21 +158,36 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
     })
 }
 
+/// Largest holdout ledger read (bytes); a ledger grows by a few dozen bytes per assessment.
+const MAX_LEDGER_BYTES: u64 = 64 << 20;
+
 /// Adds one assessment of holdout `hash` to the ledger (creating it), and returns the count and
 /// values so far.
 fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Vec<f64>), Error> {
     use serde_json::{json, Value};
-    let mut doc: Value = match std::fs::read_to_string(ledger) {
+    let read = match ledger.try_exists() {
+        Ok(true) => crate::codec::read_document(
+            ledger,
+            MAX_LEDGER_BYTES,
+            "holdout ledger",
+            &crate::codec::json_object,
+        )
+        .map_err(|e| Error::Usage(format!("{e}; move it away to start a new one"))),
+        Ok(false) => Err(Error::io(
+            ledger,
+            &std::io::Error::from(std::io::ErrorKind::NotFound),
+        )),
+        Err(e) => Err(Error::io(ledger, &e)),
+    };
+    let mut doc: Value = match read {
         Ok(text) => serde_json::from_str(&text).map_err(|e| {
             Error::Usage(format!(
                 "{}: not a holdout ledger ({e}); move it away to start a new one",
                 ledger.display()
             ))
         })?,
-        Err(e) if e.kind() == std::io::ErrorKind::NotFound => {
-            json!({ "format": LEDGER_FORMAT, "holdouts": [] })
-        }
-        Err(e) => return Err(Error::io(ledger, &e)),
+        Err(_) if !ledger.exists() => json!({ "format": LEDGER_FORMAT, "holdouts": [] }),
+        Err(e) => return Err(e),
     };
     if doc.get("format").and_then(Value::as_str) != Some(LEDGER_FORMAT) {
         return Err(Error::Usage(format!(

@@ -204,6 +204,9 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     let plan = source.plan(&opts)?;
     refuse_custom(&plan)?;
     runner::pool_check(args.threads)?;
+    // Before anything is allocated: the evaluation points, the training sets, the accumulators.
+    runner::memory::check(&plan, args.threads, args.memory_limit)?;
+    warn_no_stderr(&plan, args.quiet);
     if let Some(value) = args.assess {
         return assess(&args, &plan, value);
     }
@@ -464,7 +467,7 @@ fn refuse_custom(plan: &Plan) -> Result<(), Error> {
 pub fn check(args: CheckArgs) -> Result<u8, Error> {
     use crate::check;
     let read = |p: &Path| -> Result<(String, report::ResultDoc), Error> {
-        let text = read_limited(p, 1 << 30)?;
+        let text = read_result_text(p)?;
         let doc = check::parse_result(&text, &p.display().to_string())
             .map_err(|e| Error::Usage(e.to_string()))?;
         Ok((text, doc))
@@ -516,17 +519,40 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
     Ok(rep.exit_code())
 }
 
-/// Reads a text file, refusing it before reading when it is larger than `limit` bytes.
+/// Reads a text file, refusing it before reading when it is larger than `limit` bytes (and
+/// while reading a device or a pipe).
 pub fn read_limited(p: &Path, limit: u64) -> Result<String, Error> {
-    let meta = std::fs::metadata(p).map_err(|e| Error::io(p, &e))?;
-    if meta.is_file() && meta.len() > limit {
-        return Err(Error::Usage(format!(
-            "{}: {} bytes, larger than any document lossprism writes ({limit} at most)",
-            p.display(),
-            meta.len()
-        )));
+    crate::codec::read_document(p, limit, "document", &crate::codec::any_text)
+}
+
+/// Largest result document read by `check` and `plot` (bytes).
+pub const MAX_RESULT_BYTES: u64 = 1 << 30;
+
+/// Reads a result document's text with the streamed checks: size, a JSON object at the start,
+/// then its `format` read without building the document, so junk of any size is refused
+/// quickly and in little memory.
+fn read_result_text(p: &Path) -> Result<String, Error> {
+    let what = "lossprism result document";
+    let text = crate::codec::read_document(p, MAX_RESULT_BYTES, what, &crate::codec::json_object)?;
+    let name = p.display();
+    let head = crate::codec::JsonHead::of(&text)
+        .map_err(|e| Error::Usage(format!("{name}: not a {what} ({e})")))?;
+    match head.format() {
+        Some(report::FORMAT) => Ok(text),
+        Some(other) => Err(Error::Usage(format!(
+            "{name}: format `{}` is not a result document (`{}`){}",
+            crate::fmt::clip(other, 60),
+            report::FORMAT,
+            if other.contains("part") {
+                "; merge shard parts with `lossprism merge` first"
+            } else {
+                ""
+            }
+        ))),
+        None => Err(Error::Usage(format!(
+            "{name}: no `format` field; expected a result document written by `lossprism run --out`"
+        ))),
     }
-    std::fs::read_to_string(p).map_err(|e| Error::io(p, &e))
 }
 
 /// `lossprism plot`: the curve picture (and the selection histogram) of a saved result document.
@@ -539,10 +565,8 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
         Some(p) => Some(set.output("--selection", p)?),
         None => None,
     };
-    let text = read_limited(&args.result, 1 << 30)?;
-    let value: serde_json::Value = serde_json::from_str(&text)
-        .map_err(|e| Error::Usage(format!("{name}: not a result document (JSON): {e}")))?;
-    let doc: report::ResultDoc = serde_json::from_value(value.clone())
+    let text = read_result_text(&args.result)?;
+    let doc: report::ResultDoc = serde_json::from_str(&text)
         .map_err(|e| Error::Usage(format!("{name}: not a lossprism result document: {e}")))?;
     let view: View = args.decomposition.into();
     let families = doc.families();
@@ -576,6 +600,8 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     }
     let selection = match &args.selection {
         Some(_) => {
+            let value: serde_json::Value = serde_json::from_str(&text)
+                .map_err(|e| Error::Usage(format!("{name}: not a result document (JSON): {e}")))?;
             let sel = report::plot::SelectionView::from_json(&value).ok_or_else(|| {
                 Error::Usage(format!(
                     "{name}: no `selection` section (run the cross-validation audit first); \
@@ -638,10 +664,38 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
     Ok(0)
 }
 
+/// Says on standard error when the run will have no standard errors (fewer than 2 blocks, or a
+/// jackknife that leaves fewer than 2 replicates), and what to change.
+fn warn_no_stderr(plan: &Plan, quiet: bool) {
+    if quiet {
+        return;
+    }
+    let largest = (0..plan.blocks)
+        .map(|b| {
+            let (s, e) = plan.block_range(b);
+            e - s
+        })
+        .max()
+        .unwrap_or(0);
+    if plan.blocks < 2 || plan.replicates.saturating_sub(largest) < 2 {
+        eprintln!(
+            "note: R = {} in {} blocks gives no standard errors (the jackknife leaves one block              out and needs at least 2 replicates in the rest); use `replicates` >= 3 with              `blocks` >= 2 for them",
+            plan.replicates, plan.blocks
+        );
+    }
+}
+
 /// `lossprism validate`.
 pub fn validate(scenario: &Path) -> Result<u8, Error> {
+    validate_with(scenario, None)
+}
+
+/// `lossprism validate --memory-limit SIZE`: checks the file, prints its memory estimate and
+/// refuses it when the estimate exceeds `memory_limit` (else the memory available).
+pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, Error> {
     let plan = scenario::load(scenario, &PlanOptions::default())?;
     refuse_custom(&plan)?;
+    let (estimate, cap) = runner::memory::check(&plan, 0, memory_limit)?;
     runner::prepare(&plan)?;
     let models: Vec<String> = plan
         .models
@@ -654,6 +708,15 @@ pub fn validate(scenario: &Path) -> Result<u8, Error> {
         models.join("; "),
         plan.replicates,
         plan.train_size()
+    );
+    println!(
+        "memory: {} on {} worker threads; {}",
+        estimate.describe(),
+        estimate.workers,
+        match cap {
+            Some(c) => format!("limit {}", runner::memory::fmt_bytes(c as f64)),
+            None => "the machine's memory is unknown (not checked)".into(),
+        }
     );
     Ok(0)
 }

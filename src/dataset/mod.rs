@@ -28,6 +28,16 @@ use crate::family::Task;
 /// Most levels a text feature may have before it is refused (one-hot encoding would explode).
 pub const MAX_LEVELS: usize = 20;
 
+/// Most classes a label column may hold when the labels are read from the data (not listed in
+/// `[data.classes]`); it must also hold at least 2 rows per class on average ([`load_csv`]).
+pub const MAX_CLASSES: usize = 256;
+
+/// Largest table file read (bytes); checked before reading.
+pub const MAX_TABLE_BYTES: u64 = 4 << 30;
+
+/// Most columns a table may have (checked on the header line).
+pub const MAX_COLUMNS: usize = 100_000;
+
 /// Cell spellings read as missing.
 pub const MISSING_SPELLINGS: [&str; 6] = ["NA", "N/A", "NaN", "nan", "null", "?"];
 
@@ -166,7 +176,7 @@ impl fmt::Display for TableError {
         }
         write!(f, ": ")?;
         if let Some(c) = &self.column {
-            write!(f, "column `{c}`: ")?;
+            write!(f, "column `{}`: ", crate::fmt::clip(c, 100))?;
         }
         write!(f, "{}", self.message)
     }
@@ -211,24 +221,65 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         column: column.map(str::to_string),
         message,
     };
-    let bytes = std::fs::read(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
-    if bytes.iter().all(|b| b.is_ascii_whitespace()) {
+    // Streamed, never read whole: a malformed record stops the read where it is.
+    let meta = std::fs::metadata(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+    if meta.is_dir() {
+        return Err(err(None, None, "is a folder, not a CSV file".into()));
+    }
+    if meta.is_file() && meta.len() > MAX_TABLE_BYTES {
         return Err(err(
             None,
             None,
-            "the file is empty; a table needs a header line and data rows".into(),
+            format!(
+                "{} bytes, larger than the {MAX_TABLE_BYTES} bytes a table may have",
+                meta.len()
+            ),
         ));
+    }
+    let f =
+        crate::codec::open_input(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+    let mut reader = std::io::BufReader::with_capacity(1 << 16, f);
+    // Skip leading blank space to tell an empty file from a table.
+    loop {
+        use std::io::BufRead;
+        let buf = reader
+            .fill_buf()
+            .map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+        if buf.is_empty() {
+            return Err(err(
+                None,
+                None,
+                "the file is empty; a table needs a header line and data rows".into(),
+            ));
+        }
+        match buf.iter().position(|b| !b.is_ascii_whitespace()) {
+            Some(_) => break,
+            None => {
+                let n = buf.len();
+                reader.consume(n);
+            }
+        }
     }
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
         .trim(csv::Trim::All)
-        .from_reader(bytes.as_slice());
+        .from_reader(reader);
     let header: Vec<String> = rdr
         .headers()
         .map_err(|e| err(Some(1), None, format!("cannot read the header: {e}")))?
         .iter()
-        .map(str::to_string)
+        .map(|h| crate::fmt::clip(h, 200))
         .collect();
+    if header.len() > MAX_COLUMNS {
+        return Err(err(
+            Some(1),
+            None,
+            format!(
+                "the header has {} columns; a table may have at most {MAX_COLUMNS}",
+                header.len()
+            ),
+        ));
+    }
     if header.iter().all(|h| number(h).is_some() || h.is_empty()) {
         return Err(err(
             Some(1),
@@ -255,7 +306,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 None,
                 format!(
                     "no {what} column `{name}`; the columns are: {}",
-                    header.join(", ")
+                    crate::fmt::clip(&header.join(", "), 300)
                 ),
             )
         })
@@ -294,7 +345,8 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     }
 
     // Read every record once (as text), with its line.
-    let mut cells: Vec<Vec<String>> = Vec::new();
+    // One allocation per record (not per cell).
+    let mut cells: Vec<csv::StringRecord> = Vec::new();
     let mut lines: Vec<usize> = Vec::new();
     for rec in rdr.records() {
         let rec = rec.map_err(|e| {
@@ -305,7 +357,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         if rec.iter().all(|c| c.is_empty()) {
             continue;
         }
-        cells.push(rec.iter().map(str::to_string).collect());
+        cells.push(rec);
         lines.push(line);
     }
     if cells.is_empty() {
@@ -320,7 +372,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     let numeric = |c: usize| -> bool {
         let present: Vec<&str> = cells
             .iter()
-            .map(|r| r[c].as_str())
+            .map(|r| &r[c])
             .filter(|s| !is_missing(s))
             .collect();
         let nums = present.iter().filter(|s| number(s).is_some()).count();
@@ -329,6 +381,16 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     let classify = matches!(opts.target_kind, TargetKind::Classes(_));
     let mut used: Vec<(usize, bool)> = feature_cols.iter().map(|&c| (c, numeric(c))).collect();
     used.push((target_col, classify || numeric(target_col)));
+    if cells.iter().all(|r| is_missing(&r[target_col])) {
+        return Err(err(
+            None,
+            Some(&opts.target),
+            format!(
+                "the target column is empty: every one of its {} cells is missing",
+                cells.len()
+            ),
+        ));
+    }
     if !classify && !used.last().map(|u| u.1).unwrap_or(false) {
         return Err(err(
             None,
@@ -343,12 +405,15 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     let mut dropped = 0usize;
     for (ri, row) in cells.iter().enumerate() {
         for &(c, is_num) in &used {
-            let cell = row[c].as_str();
+            let cell = &row[c];
             let is_target_label = c == target_col && classify;
             let bad = if is_missing(cell) {
                 Some("is missing a value".to_string())
             } else if is_num && !is_target_label && number(cell).is_none() {
-                Some(format!("`{cell}` is not a number (the column is numeric)"))
+                Some(format!(
+                    "`{}` is not a number (the column is numeric)",
+                    crate::fmt::clip(cell, 60)
+                ))
             } else {
                 None
             };
@@ -404,7 +469,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             let mut levels: Vec<String> = Vec::new();
             for &r in &rows {
                 let v = &cells[r][c];
-                if !levels.contains(v) {
+                if !levels.iter().any(|l| l == v) {
                     if levels.len() == MAX_LEVELS {
                         return Err(err(
                             Some(lines[r]),
@@ -416,14 +481,14 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                             ),
                         ));
                     }
-                    levels.push(v.clone());
+                    levels.push(v.to_string());
                 }
             }
             for l in &levels[1..] {
                 names.push(format!("{}={l}", header[c]));
                 columns.push(
                     rows.iter()
-                        .map(|&r| if &cells[r][c] == l { 1.0 } else { 0.0 })
+                        .map(|&r| if &cells[r][c] == l.as_str() { 1.0 } else { 0.0 })
                         .collect(),
                 );
             }
@@ -476,7 +541,19 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 let k = match labels.iter().position(|l| l == v) {
                     Some(k) => k,
                     None if given.is_none() => {
-                        labels.push(v.clone());
+                        if labels.len() == MAX_CLASSES {
+                            return Err(err(
+                                Some(lines[r]),
+                                Some(&opts.target),
+                                format!(
+                                    "more than {MAX_CLASSES} distinct labels: a classification \
+                                     target has at most {MAX_CLASSES} classes; is the target \
+                                     continuous? drop `task = \"classify\"` (or list the labels \
+                                     in [data.classes])"
+                                ),
+                            ));
+                        }
+                        labels.push(v.to_string());
                         labels.len() - 1
                     }
                     None => {
@@ -484,8 +561,9 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                             Some(lines[r]),
                             Some(&opts.target),
                             format!(
-                                "label `{v}` is not one of [data.classes] labels: {}",
-                                labels.join(", ")
+                                "label `{}` is not one of [data.classes] labels: {}",
+                                crate::fmt::clip(v, 60),
+                                crate::fmt::clip(&labels.join(", "), 200)
                             ),
                         ))
                     }
@@ -512,6 +590,19 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 ));
             }
             let k = labels.len();
+            if given.is_none() && 2 * k > n {
+                return Err(err(
+                    None,
+                    Some(&opts.target),
+                    format!(
+                        "{k} distinct labels in {n} rows: a classification target needs at least \
+                         2 rows per class on average (at most {} classes here); is the target \
+                         continuous? drop `task = \"classify\"` (or list the labels in \
+                         [data.classes])",
+                        n / 2
+                    ),
+                ));
+            }
             (Array1::from(y), Task::Classify { classes: k }, labels)
         }
     };

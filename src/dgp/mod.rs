@@ -275,12 +275,19 @@ pub struct Synthetic {
 }
 
 fn describe_row(inputs: &[Input], row: &[f64]) -> String {
-    inputs
+    // At most a few inputs: a message stays one readable line with 100 000 inputs.
+    const SHOWN: usize = 8;
+    let mut s = inputs
         .iter()
         .zip(row)
-        .map(|(i, v)| format!("{} = {v}", i.name))
+        .take(SHOWN)
+        .map(|(i, v)| format!("{} = {v}", crate::fmt::clip(&i.name, 40)))
         .collect::<Vec<_>>()
-        .join(", ")
+        .join(", ");
+    if inputs.len() > SHOWN {
+        s.push_str(&format!(", … ({} inputs)", inputs.len()));
+    }
+    s
 }
 
 impl Synthetic {
@@ -389,7 +396,7 @@ impl Synthetic {
                     } else {
                         "formula"
                     },
-                    truth.describe(),
+                    crate::fmt::clip(&truth.describe(), 80),
                     describe_row(&self.inputs, &buf)
                 )));
             }
@@ -419,7 +426,7 @@ impl Synthetic {
                     if !(0.0..=1.0).contains(&p) {
                         return Err(Error::Data(format!(
                             "key `data.classes.probability`: `{}` gives {p} at {} (must be within [0, 1])",
-                            f.source(),
+                            crate::fmt::clip(f.source(), 80),
                             at()
                         )));
                     }
@@ -432,7 +439,7 @@ impl Synthetic {
                         if !v.is_finite() {
                             return Err(Error::Data(format!(
                                 "key `data.classes.logits`: `{}` gives {v} at {}",
-                                f.source(),
+                                crate::fmt::clip(f.source(), 80),
                                 at()
                             )));
                         }
@@ -448,8 +455,8 @@ impl Synthetic {
                     let v = rule.eval(&buf);
                     if !(v.is_finite() && v >= 0.0 && v.fract() == 0.0 && (v as usize) < k) {
                         return Err(Error::Data(format!(
-                            "key `data.classes.rule`: `{}` gives {v} at {} (must be a class index 0..{})",
-                            rule.source(),
+                            "key `data.classes.rule`: `{}` gives {v} at {} (must be a class index 0 to {}, {k} classes)",
+                            crate::fmt::clip(rule.source(), 80),
                             at(),
                             k - 1
                         )));
@@ -493,7 +500,7 @@ impl Synthetic {
                     let row: Vec<f64> = x.row(i).to_vec();
                     return Err(Error::Data(format!(
                         "key `data.truth`: `{}` gives {v} at {}, but with `poisson = true` the truth is the mean count and must be > 0",
-                        truth.describe(),
+                        crate::fmt::clip(&truth.describe(), 80),
                         describe_row(&self.inputs, &row)
                     )));
                 }
@@ -518,7 +525,7 @@ impl Synthetic {
                     if !v.is_finite() || v < 0.0 {
                         return Err(Error::Data(format!(
                             "key `data.noise.sd_formula`: `{}` gives {v} at {} (must be a finite number >= 0)",
-                            f.source(),
+                            crate::fmt::clip(f.source(), 80),
                             describe_row(&self.inputs, &buf)
                         )));
                     }

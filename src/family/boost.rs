@@ -139,6 +139,13 @@ fn subsample_counts<R: Rng>(n: usize, k: usize, rng: &mut R, perm: &mut Vec<u32>
 }
 
 impl Family for BoostFamily {
+    /// The sorted lists of the inputs, residuals and leaf indices per row, and the staged
+    /// predictions of every round in the grid.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], _task: Task) -> f64 {
+        let (n, p, m, g) = (n as f64, p as f64, m as f64, grid.len() as f64);
+        2.0 * 12.0 * n * p + 8.0 * (6.0 * n + g * m)
+    }
+
     fn name(&self) -> &'static str {
         "boost"
     }

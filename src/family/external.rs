@@ -110,6 +110,116 @@ pub fn parse_number(token: &str) -> Option<f64> {
     token.parse::<f64>().ok().filter(|v| v.is_finite())
 }
 
+/// Reads the handshake answer: `ready 2` or `ready 1` give the protocol version the process
+/// speaks; anything else is an error (completing "external process `...` ...").
+pub fn parse_ready(line: &str) -> Result<u32, String> {
+    let mut t = line.split_ascii_whitespace();
+    match (t.next(), t.next()) {
+        (Some("ready"), Some("2")) => Ok(2),
+        (Some("ready"), Some("1")) => Ok(1),
+        (Some("ready"), Some(v)) => Err(format!(
+            "speaks protocol version {}; lossprism speaks 2 and accepts 1",
+            clip(v)
+        )),
+        _ => Err(format!(
+            "answered the handshake with {:?} instead of `ready 2` (or `ready 1`)",
+            clip(line)
+        )),
+    }
+}
+
+/// The first line of an answer.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum Head {
+    /// `ok ID`: the prediction lines follow.
+    Ok,
+    /// `error ID message`: the process could not fit (the message, clipped).
+    Failed(String),
+}
+
+/// Reads the first line of the answer to request `id`: `ok ID` or `error ID message`; anything
+/// else (another id, log output on standard output) is an error (completing "... answered
+/// request N with").
+pub fn parse_head(line: &str, id: u64) -> Result<Head, String> {
+    let mut t = line.split_ascii_whitespace();
+    let kind = t.next();
+    let got = t.next();
+    let right_id = got == Some(id.to_string().as_str());
+    match kind {
+        Some("ok") if right_id => Ok(Head::Ok),
+        Some("error") if right_id => {
+            let rest: Vec<&str> = t.collect();
+            Ok(Head::Failed(clip(&rest.join(" "))))
+        }
+        Some("ok") | Some("error") if !right_id => Err(format!(
+            "{:?}: wrong request id (expected `ok {id}`)",
+            clip(line)
+        )),
+        _ => Err(format!(
+            "{:?} instead of `ok {id}` or `error {id} ...` (write logs to standard error, not \
+             standard output)",
+            clip(line)
+        )),
+    }
+}
+
+/// What is wrong with an answer line ([`parse_row`]).
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum RowError {
+    /// The line does not start with the expected tag (the line, clipped).
+    Tag(String),
+    /// Value `index` (1-based) is not a finite number (the token, clipped).
+    Value {
+        /// The offending token.
+        token: String,
+        /// Its 1-based position among the values.
+        index: usize,
+    },
+    /// The line holds this many values, not the number expected.
+    Count(usize),
+}
+
+impl std::fmt::Display for RowError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            RowError::Tag(line) => write!(f, "{line:?} does not start with the expected tag"),
+            RowError::Value { token, index } => {
+                write!(f, "{token:?} is not a finite number (value {index})")
+            }
+            RowError::Count(n) => write!(f, "{n} values, not the number expected"),
+        }
+    }
+}
+
+/// Reads one answer line `TAG v1 v2 ...` holding exactly `out.len()` finite numbers into `out`.
+/// The line is never collected whole: tokens are read one by one and counted.
+pub fn parse_row(line: &str, tag: &str, out: &mut [f64]) -> Result<(), RowError> {
+    let mut toks = line.split_ascii_whitespace();
+    if toks.next() != Some(tag) {
+        return Err(RowError::Tag(clip(line)));
+    }
+    let want = out.len();
+    let mut count = 0usize;
+    for tok in toks {
+        if count < want {
+            match parse_number(tok) {
+                Some(x) => out[count] = x,
+                None => {
+                    return Err(RowError::Value {
+                        token: clip(tok),
+                        index: count + 1,
+                    })
+                }
+            }
+        }
+        count += 1;
+    }
+    if count != want {
+        return Err(RowError::Count(count));
+    }
+    Ok(())
+}
+
 /// What the stdout reader thread delivers.
 enum Line {
     Text(String),
@@ -314,28 +424,14 @@ impl ExternalFamily {
         let what = "the handshake (`lossprism-external 2`)";
         self.send(&mut w, hello.into_bytes(), what)?;
         let line = self.recv(&mut w, deadline, what)?;
-        let mut t = line.split_ascii_whitespace();
-        match (t.next(), t.next()) {
-            (Some("ready"), Some("2")) => Ok(w),
-            (Some("ready"), Some("1")) => {
-                w.version = 1;
+        match parse_ready(&line) {
+            Ok(v) => {
+                w.version = v;
                 Ok(w)
             }
-            (Some("ready"), Some(v)) => {
+            Err(m) => {
                 w.kill();
-                Err(format!(
-                    "{} speaks protocol version {}; lossprism speaks 2 and accepts 1",
-                    self.who(),
-                    clip(v)
-                ))
-            }
-            _ => {
-                w.kill();
-                Err(format!(
-                    "{} answered the handshake with {:?} instead of `ready 2` (or `ready 1`)",
-                    self.who(),
-                    clip(&line)
-                ))
+                Err(format!("{} {m}", self.who()))
             }
         }
     }
@@ -476,112 +572,65 @@ impl ExternalFamily {
         self.send(w, req.into_bytes(), &what)?;
         let deadline = Instant::now() + self.timeout;
         let head = self.recv(w, deadline, &what)?;
-        let mut t = head.split_ascii_whitespace();
-        match t.next() {
-            Some("ok") => {}
-            Some("error") => {
-                let rest: Vec<&str> = t.collect();
-                let msg = rest.get(1..).map(|r| r.join(" ")).unwrap_or_default();
+        match parse_head(&head, id) {
+            Ok(Head::Ok) => {}
+            Ok(Head::Failed(msg)) => {
                 // The process stays usable, but the run stops at this failure anyway.
                 return Err(format!(
                     "{} reported a failure for {what}: {msg}",
                     self.who()
                 ));
             }
-            _ => {
+            Err(m) => {
                 w.kill();
-                return Err(format!(
-                    "{} answered {what} with {:?} instead of `ok {id}` or `error {id} ...` \
-                     (write logs to standard error, not standard output)",
-                    self.who(),
-                    clip(&head)
-                ));
+                return Err(format!("{} answered {what} with {m}", self.who()));
             }
         }
-        if t.next() != Some(id.to_string().as_str()) {
-            w.kill();
-            return Err(format!(
-                "{} answered {what} with {:?}: wrong request id (expected `ok {id}`)",
-                self.who(),
-                clip(&head)
-            ));
-        }
+        let mut row = vec![0.0; m * classes.max(1)];
         for (gi, &v) in grid.iter().enumerate() {
             let line = self.recv(w, deadline, &what)?;
-            let mut toks = line.split_ascii_whitespace();
             let at = format!("{} = {v}", self.knob);
-            if toks.next() != Some("pred") {
+            if let Err(e) = parse_row(&line, "pred", &mut row[..m]) {
                 w.kill();
-                return Err(format!(
-                    "{} sent {:?} where line {} of {g} (`pred ...` for {at}) of the answer to {what} was expected",
-                    self.who(),
-                    clip(&line),
-                    gi + 1
-                ));
+                let who = self.who();
+                return Err(match e {
+                    RowError::Tag(l) => format!(
+                        "{who} sent {l:?} where line {} of {g} (`pred ...` for {at}) of the answer to {what} was expected",
+                        gi + 1
+                    ),
+                    RowError::Value { token, index } => format!(
+                        "{who} sent {token:?} where prediction {index} of {m} for {at} (a finite number) was expected, answering {what}"
+                    ),
+                    RowError::Count(count) => format!(
+                        "{who} sent {count} predictions for {at}, expected {m} (one per evaluation point), answering {what}"
+                    ),
+                });
             }
-            let mut count = 0usize;
-            for tok in toks {
-                if count < m {
-                    match parse_number(tok) {
-                        Some(x) => out[[gi, count]] = x,
-                        None => {
-                            w.kill();
-                            return Err(format!(
-                                "{} sent {:?} where prediction {} of {m} for {at} (a finite number) was expected, answering {what}",
-                                self.who(),
-                                clip(tok),
-                                count + 1
-                            ));
-                        }
-                    }
-                }
-                count += 1;
-            }
-            if count != m {
-                w.kill();
-                return Err(format!(
-                    "{} sent {count} predictions for {at}, expected {m} (one per evaluation point), answering {what}",
-                    self.who()
-                ));
+            for (e, &x) in row[..m].iter().enumerate() {
+                out[[gi, e]] = x;
             }
             if let Some(pr) = probs.as_mut() {
                 let k = classes;
                 let line = self.recv(w, deadline, &what)?;
-                let mut toks = line.split_ascii_whitespace();
-                if toks.next() != Some("prob") {
+                if let Err(e) = parse_row(&line, "prob", &mut row[..m * k]) {
                     w.kill();
-                    return Err(format!(
-                        "{} sent {:?} where `prob ...` ({m}×{k} class probabilities for {at}) was expected, answering {what}",
-                        self.who(),
-                        clip(&line)
-                    ));
+                    let who = self.who();
+                    return Err(match e {
+                        RowError::Tag(l) => format!(
+                            "{who} sent {l:?} where `prob ...` ({m}×{k} class probabilities for {at}) was expected, answering {what}"
+                        ),
+                        RowError::Value { token, index } => format!(
+                            "{who} sent {token:?} where probability {index} of {} for {at} was expected, answering {what}",
+                            m * k
+                        ),
+                        RowError::Count(count) => format!(
+                            "{who} sent {count} probabilities for {at}, expected {} ({m} points × {k} classes), answering {what}",
+                            m * k
+                        ),
+                    });
                 }
-                let mut count = 0usize;
-                for tok in toks {
-                    if count < m * k {
-                        match parse_number(tok) {
-                            Some(x) => pr[[gi, count / k, count % k]] = x,
-                            None => {
-                                w.kill();
-                                return Err(format!(
-                                    "{} sent {:?} where probability {} of {} for {at} was expected, answering {what}",
-                                    self.who(),
-                                    clip(tok),
-                                    count + 1,
-                                    m * k
-                                ));
-                            }
-                        }
-                    }
-                    count += 1;
-                }
-                if count != m * k {
-                    w.kill();
-                    return Err(format!(
-                        "{} sent {count} probabilities for {at}, expected {} ({m} points × {k} classes), answering {what}",
-                        self.who(),
-                        m * k
-                    ));
+                for (c, &x) in row[..m * k].iter().enumerate() {
+                    pr[[gi, c / k, c % k]] = x;
                 }
             }
         }

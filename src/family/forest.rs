@@ -389,6 +389,14 @@ impl ForestFamily {
 }
 
 impl Family for ForestFamily {
+    /// One tree's sorted lists (expanded by bootstrap counts) and nodes at a time, plus the
+    /// running sums of every grid value's predictions and member spreads.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], task: Task) -> f64 {
+        let (n, p, m, g) = (n as f64, p as f64, m as f64, grid.len() as f64);
+        let k = task.classes().max(1) as f64;
+        2.0 * 12.0 * n * p + 96.0 * n + 8.0 * 4.0 * g * m * k
+    }
+
     fn name(&self) -> &'static str {
         "forest"
     }

@@ -182,7 +182,7 @@ impl Family for KnnFamily {
                 for &c in input.y {
                     if !(c.fract() == 0.0 && c >= 0.0 && c < classes as f64) {
                         return Err(FitError(format!(
-                            "knn: class label {c} is not one of 0..{}",
+                            "knn: class label {c} is not one of the class indices 0 to {} ({classes} classes)",
                             classes - 1
                         )));
                     }

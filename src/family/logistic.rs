@@ -128,6 +128,13 @@ impl Family for LogisticFamily {
         matches!(task, Task::Classify { .. })
     }
 
+    /// Newton's gradient, Hessian and its working copy over `(K − 1)(p + 1)` coefficients, and
+    /// one coefficient vector per grid value, on top of the default.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], task: Task) -> f64 {
+        let d = (task.classes().max(2) - 1) as f64 * (p as f64 + 1.0);
+        8.0 * (3.0 * n as f64 * p as f64 + (n + m) as f64 + 2.0 * d * d + grid.len() as f64 * d)
+    }
+
     fn caps(&self, task: Task) -> Caps {
         Caps {
             probabilities: matches!(task, Task::Classify { .. }),
@@ -307,7 +314,7 @@ fn fit_path(input: &FitInput<'_>, grid: &[f64]) -> Result<PathFit, FitError> {
     for &v in input.y {
         if !(v.fract() == 0.0 && v >= 0.0 && v < classes as f64) {
             return Err(FitError(format!(
-                "logistic: class label {v} is not one of 0..{classes}"
+                "logistic: class label {v} is not one of the class indices 0 to {} ({classes} classes)", classes - 1
             )));
         }
         let c = v as usize;

@@ -180,6 +180,14 @@ pub(crate) fn fit_leading(
 }
 
 impl Family for MinNormFamily {
+    /// The training and evaluation inputs, a Gram matrix of the smaller side and its
+    /// factorization, for the largest feature count in the grid.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], _task: Task) -> f64 {
+        let q = grid.iter().fold(0.0_f64, |a, &b| a.max(b)).min(p as f64);
+        let (n, m) = (n as f64, m as f64);
+        8.0 * (2.0 * (n + m) * q + 3.0 * n.min(q).powi(2) + n + m)
+    }
+
     fn name(&self) -> &'static str {
         "minnorm"
     }

@@ -164,6 +164,17 @@ pub trait Family: Send + Sync {
         Caps::default()
     }
 
+    /// Bytes one fit holds beyond its training set and the prediction buffers (the path fit's
+    /// work: standardized copies, sort orders, design matrices, neighbour lists) for `n`
+    /// training rows, `p` inputs, `m` evaluation points and the grid; the engine adds it per
+    /// worker thread when it estimates a run's memory before starting
+    /// ([`crate::runner`]'s memory estimate). The default, three copies of the training set plus
+    /// a number per row and point, suits families that work on the training set in place
+    /// (trees, neighbours, linear models on the inputs).
+    fn work_bytes(&self, n: usize, p: usize, m: usize, _grid: &[f64], _task: Task) -> f64 {
+        8.0 * (3.0 * n as f64 * p as f64 + n as f64 + m as f64)
+    }
+
     /// Fits on `input.x`, `input.y` and writes predictions at `input.eval` for each grid value
     /// into `out` (see [`Out`]).
     fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], out: Out<'_>)

@@ -104,6 +104,16 @@ impl Family for PolyFamily {
         matches!(task, Task::Regress)
     }
 
+    /// The training and evaluation designs of the largest degree (one column per basis
+    /// function) with the QR's working copy, and the triangular factor, on top of the default.
+    /// Measured: 20 000 rows, 20 inputs, degree 2 peak at 153 MiB on 2 threads; the estimate is
+    /// 200 MiB.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], _task: Task) -> f64 {
+        let d = grid.iter().fold(0.0_f64, |a, &b| a.max(b));
+        let cols = n_basis(p, d as usize).unwrap_or(n).min(n.max(1)) as f64;
+        8.0 * (2.0 * (n + m) as f64 * cols + cols * cols + 3.0 * n as f64 * p as f64)
+    }
+
     fn fit_predict(
         &self,
         input: &FitInput<'_>,

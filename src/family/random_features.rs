@@ -73,6 +73,14 @@ pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Famil
 }
 
 impl Family for RandomFeaturesFamily {
+    /// The random features of the training and evaluation points, the feature weights and a Gram
+    /// matrix of the smaller side with its factorization, for the widest grid value.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], _task: Task) -> f64 {
+        let w = grid.iter().fold(0.0_f64, |a, &b| a.max(b));
+        let (n, p, m) = (n as f64, p as f64, m as f64);
+        8.0 * (2.0 * (n + m) * w + w * (p + 1.0) + 3.0 * n.min(w).powi(2) + n + m)
+    }
+
     fn name(&self) -> &'static str {
         "random_features"
     }

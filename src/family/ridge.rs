@@ -80,6 +80,13 @@ impl Family for RidgeFamily {
         matches!(task, Task::Regress)
     }
 
+    /// The standardized copy of the design and its factor (`n × p`), the `p × p` triangle and
+    /// right singular vectors, on top of the default.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], _task: Task) -> f64 {
+        let (n, p) = (n as f64, p as f64);
+        8.0 * (5.0 * n * p + 2.0 * p * p + m as f64 * grid.len() as f64)
+    }
+
     fn fit_predict(
         &self,
         input: &FitInput<'_>,

@@ -420,7 +420,8 @@ impl Presorted {
         }
         if let Some(((i, j), &v)) = x.indexed_iter().find(|(_, v)| !v.is_finite()) {
             return Err(FitError(format!(
-                "tree: input {v} at training row {i}, column {j} is not a finite number"
+                "tree: input {} of {p} (in scenario or table order) is {v} at training row {i}, not a finite number",
+                j + 1
             )));
         }
         let mut order = vec![0u32; n * p];
@@ -635,7 +636,8 @@ impl TreeFamily {
                 .find(|(_, &v)| v < 0.0 || v.fract() != 0.0 || v >= classes as f64)
             {
                 return Err(FitError(format!(
-                    "tree: label {v} at training row {i} is not a class index in 0..{classes}"
+                    "tree: label {v} at training row {i} is not a class index 0 to {} ({classes} classes)",
+                    classes - 1
                 )));
             }
         }

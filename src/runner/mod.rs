@@ -15,6 +15,7 @@
 //! thread count, any shard split and after a resume.
 
 pub mod audit;
+pub mod memory;
 pub mod source;
 
 use std::collections::BTreeMap;
@@ -68,7 +69,9 @@ pub fn check_predictions(
                 }
                 if let Some((e, bad)) = row.iter().enumerate().find(|(_, v)| !v.is_finite()) {
                     return Err(format!(
-                        "prediction {bad} at evaluation point {e}, {}: not a finite number",
+                        "prediction {bad} at evaluation point {e}, {}: not a finite number (are \
+                         the responses too large? rescale them, for example divide by a power \
+                         of ten)",
                         knob(g)
                     ));
                 }

@@ -77,9 +77,23 @@ pub fn key_path_at(src: &str, offset: usize) -> Option<String> {
     })
 }
 
+/// Largest scenario file read (bytes): far above any hand-written file or a 100 000-input one.
+pub const MAX_SCENARIO_BYTES: u64 = 64 << 20;
+
+/// Reads a scenario file's text: refused on its size (also while reading a device or a pipe),
+/// on binary data and on text that is not UTF-8, before it is parsed.
+pub fn read_text(path: &Path) -> Result<String, Error> {
+    crate::codec::read_document(
+        path,
+        MAX_SCENARIO_BYTES,
+        "scenario file (TOML)",
+        &crate::codec::any_text,
+    )
+}
+
 /// Loads, parses and plans a scenario file.
 pub fn load(path: &Path, opts: &PlanOptions) -> Result<Plan, Error> {
-    let src = std::fs::read_to_string(path).map_err(|e| Error::io(path, &e))?;
+    let src = read_text(path)?;
     let file = path.display().to_string();
     let spec = parse(&src, &file)?;
     let base = path.parent().map(Path::to_path_buf).unwrap_or_default();

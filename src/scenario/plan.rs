@@ -517,6 +517,26 @@ impl Plan {
         s * self.models.len() + i
     }
 
+    /// Number of evaluation points (a table's rows, holdout included).
+    pub fn eval_size(&self) -> usize {
+        match &self.source {
+            Source::Synthetic(s) => s.eval_size,
+            Source::Table(t) => t.table.x.nrows(),
+        }
+    }
+
+    /// Bytes the block accumulators of every (training size, model) cell hold at the end of a run (all blocks are
+    /// kept for the jackknife), as the plan's size check counts them.
+    pub fn accumulator_bytes(&self) -> f64 {
+        let points = self.eval_size();
+        (0..self.cells())
+            .map(|c| {
+                let i = c % self.models.len();
+                accumulator_bytes(self.blocks, self.loss, &self.shape(i, points))
+            })
+            .sum()
+    }
+
     /// The accumulator shape of model `i` with `points` evaluation points.
     pub fn shape(&self, i: usize, points: usize) -> Shape {
         let m = &self.models[i];
@@ -1075,7 +1095,11 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         return Err(cx.err(
             Some(s.name.span()),
             &format!("{key}.name"),
-            format!("`{name}` is not a usable variable name (letters, digits, _; not `pi` or `e`)"),
+            format!(
+                "`{}` is not a usable variable name: names are ASCII, a letter or _ then letters, \
+                 digits or _ (not `pi` or `e`)",
+                crate::fmt::clip(&name, 60)
+            ),
         ));
     }
     let given = [s.uniform.is_some(), s.normal.is_some(), s.even.is_some()]
@@ -1094,11 +1118,23 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         if b <= a {
             return Err(cx.err(Some(u.span()), &format!("{key}.uniform"), "needs lo < hi"));
         }
+        overflowing_range(cx, u, &format!("{key}.uniform"), a, b)?;
         InputDist::Uniform(a, b)
     } else if let Some(n) = &s.normal {
         let (m, sd) = pair(cx, n, &format!("{key}.normal"))?;
         if sd <= 0.0 {
             return Err(cx.err(Some(n.span()), &format!("{key}.normal"), "sd must be > 0"));
+        }
+        // Draws reach about 10 standard deviations; beyond 1e300 they overflow to infinity.
+        if m.abs() + 10.0 * sd > INPUT_MAX {
+            return Err(cx.err(
+                Some(n.span()),
+                &format!("{key}.normal"),
+                format!(
+                    "mean {m:e} and sd {sd:e} give draws beyond ±{INPUT_MAX:e}, which overflow \
+                     (to infinity) once the inputs are scaled or squared; rescale the input"
+                ),
+            ));
         }
         InputDist::Normal(m, sd)
     } else if let Some(ev) = &s.even {
@@ -1106,11 +1142,38 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         if b <= a {
             return Err(cx.err(Some(ev.span()), &format!("{key}.even"), "needs lo < hi"));
         }
+        overflowing_range(cx, ev, &format!("{key}.even"), a, b)?;
         InputDist::Even(a, b)
     } else {
         unreachable!("exactly one distribution checked above")
     };
     Ok(Input { name, dist })
+}
+
+/// Largest input magnitude accepted: beyond it a width, a square or a standardization
+/// overflows.
+const INPUT_MAX: f64 = 1e300;
+
+/// Refuses an input range whose ends or width overflow (`uniform = [-1e308, 1e308]` is 2e308
+/// wide: every draw would be infinite).
+fn overflowing_range(
+    cx: &Ctx<'_>,
+    v: &Spanned<Vec<f64>>,
+    key: &str,
+    a: f64,
+    b: f64,
+) -> Result<(), ScenarioError> {
+    if a.abs() > INPUT_MAX || b.abs() > INPUT_MAX || !(b - a).is_finite() {
+        return Err(cx.err(
+            Some(v.span()),
+            key,
+            format!(
+                "[{a:e}, {b:e}] reaches beyond ±{INPUT_MAX:e}: its width or the draws overflow \
+                 (to infinity); rescale the input"
+            ),
+        ));
+    }
+    Ok(())
 }
 
 fn formula(
@@ -1119,8 +1182,13 @@ fn formula(
     key: &str,
     names: &[&str],
 ) -> Result<Formula, ScenarioError> {
-    Formula::parse(f.get_ref(), names)
-        .map_err(|e| cx.err(Some(f.span()), key, format!("in `{}`: {e}", f.get_ref())))
+    Formula::parse(f.get_ref(), names).map_err(|e| {
+        cx.err(
+            Some(f.span()),
+            key,
+            format!("in `{}`: {e}", crate::fmt::clip(f.get_ref(), 80)),
+        )
+    })
 }
 
 /// Refuses the twin-only keys (`reference`, `noise.varying`) in a synthetic source.
@@ -1252,8 +1320,10 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             "needs at least one input",
         ));
     }
+    // A set, not a scan of the earlier names: a file may declare 100 000 inputs.
+    let mut seen = std::collections::HashSet::with_capacity(inputs.len());
     for (i, a) in inputs.iter().enumerate() {
-        if inputs[..i].iter().any(|b| b.name == a.name) {
+        if !seen.insert(a.name.as_str()) {
             let span = d
                 .inputs
                 .as_ref()
@@ -1516,7 +1586,7 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
                     cx.err(
                         Some(ls.span()),
                         "data.classes.logits",
-                        format!("in `{src}`: {e}"),
+                        format!("in `{}`: {e}", crate::fmt::clip(src, 80)),
                     )
                 })
             })

@@ -1,0 +1,326 @@
+//! A run's peak memory, estimated from its sizes before anything is allocated, and the check
+//! against the memory the machine has available.
+//!
+//! The estimate adds up, in bytes:
+//! - **accumulators**: every block's accumulators of every model (kept to the end for the
+//!   jackknife), twice — the summary folds a copy of them — plus the few block-sized
+//!   accumulators of the jackknife;
+//! - **evaluation inputs**: the evaluation points (`m × p`) with the truth, noise level and class
+//!   probabilities there, a fixed design, and for a table its rows three times (the table, the
+//!   working rows, the evaluation points);
+//! - **training sets**: per worker thread, one replicate's training set (`n × p` and its
+//!   responses) and, for a table, the evaluated rows;
+//! - **predictions**: per worker thread, one replicate's prediction buffers (fits × grid × m,
+//!   times the classes when the loss needs probabilities);
+//! - **fit work**: per worker thread, what the family's path fit holds
+//!   ([`crate::family::Family::work_bytes`]), the largest over the models.
+//!
+//! The check refuses a run whose estimate exceeds the available memory (`MemAvailable` of
+//! `/proc/meminfo`, lowered by a cgroup limit when one is set), naming the estimate, its largest
+//! term and the override flag; a machine whose memory cannot be read is not checked.
+
+use crate::error::Error;
+use crate::scenario::{Design, Plan, Source};
+
+/// Bytes the program itself needs besides the run (code, thread stacks, buffers).
+const BASE_BYTES: f64 = 32.0 * 1024.0 * 1024.0;
+
+/// One term of the estimate.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Term {
+    /// Short name (`accumulators`, `training sets`, ...).
+    pub name: &'static str,
+    /// How it is counted, in words (`2 threads × 10000 rows × 100000 inputs`).
+    pub detail: String,
+    /// Bytes.
+    pub bytes: f64,
+}
+
+/// A run's estimated peak memory.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Estimate {
+    /// The terms, in a fixed order.
+    pub terms: Vec<Term>,
+    /// Worker threads counted.
+    pub workers: usize,
+}
+
+impl Estimate {
+    /// Total bytes (the terms and the program itself).
+    pub fn total(&self) -> f64 {
+        BASE_BYTES + self.terms.iter().map(|t| t.bytes).sum::<f64>()
+    }
+
+    /// The largest term.
+    pub fn main(&self) -> &Term {
+        self.terms
+            .iter()
+            .fold(&self.terms[0], |a, t| if t.bytes > a.bytes { t } else { a })
+    }
+
+    /// One line: the total and its largest term.
+    pub fn describe(&self) -> String {
+        let m = self.main();
+        format!(
+            "about {} (largest term: {} {}, {})",
+            fmt_bytes(self.total()),
+            m.name,
+            fmt_bytes(m.bytes),
+            m.detail
+        )
+    }
+}
+
+/// Bytes as `12.3 MiB`.
+pub fn fmt_bytes(b: f64) -> String {
+    const UNITS: [&str; 6] = ["bytes", "KiB", "MiB", "GiB", "TiB", "PiB"];
+    let mut v = b.max(0.0);
+    let mut u = 0;
+    while v >= 1024.0 && u + 1 < UNITS.len() {
+        v /= 1024.0;
+        u += 1;
+    }
+    if u == 0 {
+        format!("{v:.0} bytes")
+    } else {
+        format!("{v:.1} {}", UNITS[u])
+    }
+}
+
+/// Parses a memory size: bytes (`1000000`) or with a unit `K`, `M`, `G`, `T` (powers of 1024,
+/// an optional `iB`/`B` after it): `512M`, `16G`, `1.5GiB`.
+pub fn parse_size(s: &str) -> Result<u64, String> {
+    let t = s.trim();
+    let upper = t.to_ascii_uppercase();
+    let stripped = upper
+        .strip_suffix("IB")
+        .or_else(|| upper.strip_suffix('B'))
+        .unwrap_or(&upper);
+    let (num, scale) = match stripped.chars().last() {
+        Some('K') => (&stripped[..stripped.len() - 1], 1024f64),
+        Some('M') => (&stripped[..stripped.len() - 1], 1024f64.powi(2)),
+        Some('G') => (&stripped[..stripped.len() - 1], 1024f64.powi(3)),
+        Some('T') => (&stripped[..stripped.len() - 1], 1024f64.powi(4)),
+        _ => (stripped, 1.0),
+    };
+    match num.trim().parse::<f64>() {
+        Ok(v) if v.is_finite() && v > 0.0 && v * scale < 1.8e19 => Ok((v * scale) as u64),
+        _ => Err(format!(
+            "`{s}` is not a memory size; write bytes or a number with K, M, G or T (`512M`, `16G`)"
+        )),
+    }
+}
+
+/// Worker threads a run uses: `threads` (0 = one per core), never more than the blocks.
+pub fn workers(plan: &Plan, threads: usize) -> usize {
+    let t = if threads == 0 {
+        std::thread::available_parallelism().map_or(1, |n| n.get())
+    } else {
+        threads
+    };
+    (t as u64).min(plan.blocks.max(1)) as usize
+}
+
+/// Estimates the peak memory of running `plan` on `threads` worker threads (0 = one per core).
+pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
+    let w = workers(plan, threads);
+    let wf = w as f64;
+    let n = plan.train_size() as f64;
+    let p = plan.n_inputs() as f64;
+    let k = plan.task.classes() as f64;
+    let mut terms = Vec::new();
+
+    let acc = plan.accumulator_bytes();
+    let per_block = acc / plan.blocks.max(1) as f64;
+    terms.push(Term {
+        name: "accumulators",
+        detail: format!(
+            "{} blocks × {} grid values × {} evaluation points, kept for the jackknife",
+            plan.blocks,
+            plan.models.iter().map(|m| m.grid.len()).sum::<usize>(),
+            plan.eval_size()
+        ),
+        bytes: 2.0 * acc + 3.0 * per_block,
+    });
+
+    let (m, eval, train_extra) = match &plan.source {
+        Source::Synthetic(s) => {
+            let m = s.eval_size as f64;
+            let mut b = 8.0 * m * (p + 3.0 + k);
+            if s.design == Design::Fixed {
+                b += 8.0 * n * (p + 2.0 + k);
+            }
+            (m, b, 0.0)
+        }
+        Source::Table(t) => {
+            let rows = t.table.x.nrows() as f64;
+            let cols = t.table.x.ncols() as f64;
+            // The table, its working rows and the evaluation points; a replicate's evaluated
+            // rows are at most all of them.
+            (
+                rows,
+                3.0 * 8.0 * rows * (cols + 2.0),
+                8.0 * rows * (cols + 2.0),
+            )
+        }
+    };
+    terms.push(Term {
+        name: "evaluation inputs",
+        detail: format!("{m} points × {p} inputs"),
+        bytes: eval,
+    });
+    terms.push(Term {
+        name: "training sets",
+        detail: format!("{w} threads × {n} rows × {p} inputs"),
+        bytes: wf * (8.0 * n * (p + 4.0) + train_extra),
+    });
+    let probs = if plan.loss.needs_probs() { k } else { 0.0 };
+    let predictions: f64 = plan
+        .models
+        .iter()
+        .map(|mp| {
+            let ens = if mp.family.caps(plan.task).ensemble {
+                1.0
+            } else {
+                0.0
+            };
+            8.0 * mp.fit_seeds as f64 * mp.grid.len() as f64 * m * (1.0 + probs + ens)
+        })
+        .fold(0.0, f64::max);
+    terms.push(Term {
+        name: "predictions",
+        detail: format!("{w} threads × fits × grid values × {m} points"),
+        bytes: wf * predictions,
+    });
+    let work = plan
+        .models
+        .iter()
+        .map(|mp| {
+            mp.family.work_bytes(
+                plan.train_size(),
+                plan.n_inputs(),
+                m as usize,
+                &mp.grid,
+                plan.task,
+            )
+        })
+        .fold(0.0, f64::max);
+    terms.push(Term {
+        name: "fit work",
+        detail: format!(
+            "{w} threads × the {} family's path fit on {n} rows × {p} inputs",
+            plan.model().family.name()
+        ),
+        bytes: wf * work,
+    });
+    Estimate { terms, workers: w }
+}
+
+/// The memory available to this process in bytes: `MemAvailable` of `/proc/meminfo` (else
+/// `MemTotal`), lowered by the cgroup (v2) limit minus current use when one is set; `None` when
+/// neither can be read.
+pub fn available() -> Option<u64> {
+    let meminfo = std::fs::read_to_string("/proc/meminfo").ok();
+    let field = |name: &str| -> Option<u64> {
+        meminfo.as_deref()?.lines().find_map(|l| {
+            let rest = l.strip_prefix(name)?.strip_prefix(':')?;
+            let kb: u64 = rest.trim().trim_end_matches("kB").trim().parse().ok()?;
+            Some(kb.saturating_mul(1024))
+        })
+    };
+    let machine = field("MemAvailable").or_else(|| field("MemTotal"));
+    let cgroup = (|| {
+        let max: u64 = std::fs::read_to_string("/sys/fs/cgroup/memory.max")
+            .ok()?
+            .trim()
+            .parse()
+            .ok()?;
+        let cur: u64 = std::fs::read_to_string("/sys/fs/cgroup/memory.current")
+            .ok()?
+            .trim()
+            .parse()
+            .unwrap_or(0);
+        Some(max.saturating_sub(cur))
+    })();
+    match (machine, cgroup) {
+        (Some(a), Some(b)) => Some(a.min(b)),
+        (a, b) => a.or(b),
+    }
+}
+
+/// Refuses `plan` on `threads` workers when its estimate exceeds `limit` bytes (the
+/// `--memory-limit` override), else the available memory; returns the estimate and the
+/// limit it was held to (`None`: the machine's memory is unknown, nothing was checked).
+pub fn check(
+    plan: &Plan,
+    threads: usize,
+    limit: Option<u64>,
+) -> Result<(Estimate, Option<u64>), Error> {
+    let e = estimate(plan, threads);
+    let (cap, whose) = match limit {
+        Some(l) => (Some(l), "the --memory-limit"),
+        None => (available(), "the memory available on this machine"),
+    };
+    if let Some(cap) = cap {
+        if e.total() > cap as f64 {
+            let m = e.main();
+            return Err(Error::Usage(format!(
+                "{}: the run needs about {} of memory, more than {whose} ({}); the largest term \
+                 is {} {} ({}): lower it (fewer rows, inputs, evaluation points, grid values, \
+                 blocks or --threads), or pass --memory-limit SIZE (e.g. --memory-limit {}) to \
+                 run anyway",
+                plan.file,
+                fmt_bytes(e.total()),
+                fmt_bytes(cap as f64),
+                m.name,
+                fmt_bytes(m.bytes),
+                m.detail,
+                suggest(e.total())
+            )));
+        }
+    }
+    Ok((e, cap))
+}
+
+/// A `--memory-limit` value a little above `bytes`, in whole GiB (or MiB below 1 GiB).
+fn suggest(bytes: f64) -> String {
+    let gib = bytes / 1024f64.powi(3);
+    if gib >= 1.0 {
+        format!("{}G", gib.ceil() as u64 + 1)
+    } else {
+        format!("{}M", (bytes / 1024f64.powi(2)).ceil() as u64 + 64)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn sizes_parse() {
+        assert_eq!(parse_size("1000").unwrap(), 1000);
+        assert_eq!(parse_size("2K").unwrap(), 2048);
+        assert_eq!(parse_size("512M").unwrap(), 512 << 20);
+        assert_eq!(parse_size("16G").unwrap(), 16 << 30);
+        assert_eq!(parse_size("1.5GiB").unwrap(), 3 << 29);
+        assert_eq!(parse_size("1T").unwrap(), 1 << 40);
+        for bad in ["", "-1G", "G", "lots", "1e30", "0", "nan"] {
+            assert!(parse_size(bad).is_err(), "{bad}");
+        }
+    }
+
+    #[test]
+    fn bytes_format() {
+        assert_eq!(fmt_bytes(10.0), "10 bytes");
+        assert_eq!(fmt_bytes(2048.0), "2.0 KiB");
+        assert_eq!(fmt_bytes(8e9), "7.5 GiB");
+    }
+
+    #[test]
+    fn this_machine_reports_memory() {
+        // Linux always has /proc/meminfo; elsewhere the check is skipped.
+        if std::path::Path::new("/proc/meminfo").exists() {
+            assert!(available().is_some_and(|b| b > 0));
+        }
+    }
+}

@@ -1,0 +1,2699 @@
+//! The bad-input suite: scenario files, formulas, CSV tables, command-line flags, part,
+//! checkpoint, result and ledger documents, and misbehaving external processes, run as a hostile
+//! user would. Each case runs the binary in a folder of its own and asserts the exit code, a
+//! fragment of the message, and that no file in the folder was created, removed or changed
+//! (names, kinds and bytes). Then the data-damage cases: devices, FIFOs, descriptor links and
+//! outputs naming inputs, with the command line's own flags.
+//!
+//! At the end the suite prints its counts: cases, clean refusals, data damaged, hangs, and exit 0
+//! with a broken result.
+
+mod common;
+
+use std::collections::BTreeMap;
+use std::fs;
+use std::io::Read;
+use std::path::{Path, PathBuf};
+use std::process::{Command, Stdio};
+use std::sync::atomic::{AtomicUsize, Ordering};
+use std::sync::Mutex;
+use std::time::{Duration, Instant};
+
+use common::{bin, text};
+
+/// Longest a case may take before it counts as a hang.
+const HANG: Duration = Duration::from_secs(60);
+
+// ---------------------------------------------------------------------------------------------
+// Fixtures
+// ---------------------------------------------------------------------------------------------
+
+/// A tiny synthetic scenario: 4 replicates in 2 blocks, 20 training rows, 10 points.
+const BASE: &str = r#"name = "tiny"
+seed = 1
+replicates = 4
+blocks = 2
+
+[data]
+source = "synthetic"
+train_size = 20
+eval_size = 10
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "x"
+
+[data.noise]
+sd = 1.0
+
+[model]
+family = "tree"
+grid = [1, 2]
+"#;
+
+/// The base scenario with `from` replaced by `to` (which must occur).
+fn sc(from: &str, to: &str) -> String {
+    assert!(
+        BASE.contains(from),
+        "fixture: `{from}` not in the base scenario"
+    );
+    BASE.replacen(from, to, 1)
+}
+
+/// The base scenario with another truth formula.
+fn with_formula(f: &str) -> String {
+    sc("formula = \"x\"", &format!("formula = {}", toml_str(f)))
+}
+
+fn toml_str(s: &str) -> String {
+    let mut out = String::from("\"");
+    for c in s.chars() {
+        match c {
+            '"' => out.push_str("\\\""),
+            '\\' => out.push_str("\\\\"),
+            c if (c as u32) < 0x20 => out.push_str(&format!("\\u{:04x}", c as u32)),
+            c => out.push(c),
+        }
+    }
+    out.push('"');
+    out
+}
+
+/// A table scenario over `t.csv` with target `y` and extra `[data]` lines.
+fn table_scenario(extra: &str, model: &str) -> String {
+    format!(
+        "name = \"tab\"\nseed = 1\nreplicates = 4\nblocks = 2\n\n[data]\nsource = \"table\"\npath = \
+         \"t.csv\"\ntarget = \"y\"\n{extra}\n\n[model]\n{model}\n"
+    )
+}
+
+const TREE: &str = "family = \"tree\"\ngrid = [1, 2]";
+
+/// A well-formed table: `rows` rows of a, b and a noisy linear y.
+fn csv_rows(rows: usize, y: impl Fn(usize) -> String) -> String {
+    let mut s = String::from("a,b,y\n");
+    for i in 0..rows {
+        let a = (i * 7 % 13) as f64 / 13.0;
+        let b = (i * 5 % 11) as f64 / 11.0;
+        s.push_str(&format!("{a},{b},{}\n", y(i)));
+    }
+    s
+}
+
+fn good_csv() -> String {
+    csv_rows(40, |i| format!("{}", (i * 3 % 17) as f64 / 17.0))
+}
+
+/// The documents the suite damages, made once by the binary.
+struct Docs {
+    /// Parts 1/2 and 2/2 of BASE.
+    part1: Vec<u8>,
+    part2: Vec<u8>,
+    /// A checkpoint of BASE after one block.
+    checkpoint: Vec<u8>,
+    /// A result document of BASE.
+    result: Vec<u8>,
+    /// The holdout ledger after one assessment of the holdout table scenario.
+    ledger: Vec<u8>,
+}
+
+fn run_ok(dir: &Path, args: &[&str]) {
+    let out = Command::new(bin())
+        .args(args)
+        .current_dir(dir)
+        .output()
+        .unwrap();
+    assert!(
+        matches!(out.status.code(), Some(0) | Some(3)),
+        "fixture {args:?}: {}",
+        text(&out.stderr)
+    );
+}
+
+fn make_docs() -> Docs {
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("s.toml"), BASE).unwrap();
+    run_ok(
+        dir,
+        &["run", "s.toml", "--shard", "1/2", "--out", "p1.json", "-q"],
+    );
+    run_ok(
+        dir,
+        &["run", "s.toml", "--shard", "2/2", "--out", "p2.json", "-q"],
+    );
+    run_ok(
+        dir,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--stop-after-blocks",
+            "1",
+            "--threads",
+            "1",
+            "-q",
+        ],
+    );
+    run_ok(dir, &["run", "s.toml", "--out", "r.json", "-q"]);
+    fs::write(dir.join("h.toml"), table_scenario("holdout = 0.25", TREE)).unwrap();
+    fs::write(dir.join("t.csv"), good_csv()).unwrap();
+    run_ok(dir, &["run", "h.toml", "--assess", "2"]);
+    let r = |n: &str| fs::read(dir.join(n)).unwrap();
+    Docs {
+        part1: r("p1.json"),
+        part2: r("p2.json"),
+        checkpoint: r("ck.json"),
+        result: r("r.json"),
+        ledger: r("h.holdout-ledger.json"),
+    }
+}
+
+/// Edits a part or checkpoint as JSON and, when `fix` is true, recomputes its checksum (so only
+/// the validation of the content can catch the damage).
+fn edit_part(bytes: &[u8], fix: bool, f: impl FnOnce(&mut serde_json::Value)) -> Vec<u8> {
+    let mut v: serde_json::Value = serde_json::from_slice(bytes).unwrap();
+    f(&mut v);
+    if fix {
+        let mut doc: lossprism::report::part::PartDoc = serde_json::from_value(v).unwrap();
+        doc.checksum = lossprism::shard::checksum(&doc);
+        lossprism::shard::part_json(&doc).into_bytes()
+    } else {
+        serde_json::to_vec(&v).unwrap()
+    }
+}
+
+/// Replaces float array `name` of the first block's first model with `values` (packed as the
+/// part format packs them).
+fn set_floats(v: &mut serde_json::Value, name: &str, values: impl Fn(usize) -> f64) {
+    let floats = v["completed"][0]["models"][0]["floats"]
+        .as_array_mut()
+        .unwrap();
+    let at = floats.iter().position(|f| f["name"] == name).unwrap();
+    let arr = &mut floats[at]["data"];
+    let n = lossprism::codec::unpack_floats(arr.as_str().unwrap(), usize::MAX)
+        .map(|x| x.len())
+        .unwrap_or_else(|_| {
+            // The length is not known to the caller: decode the raw bytes.
+            lossprism::codec::unbase64(arr.as_str().unwrap())
+                .unwrap()
+                .len()
+                / 8
+        });
+    let vals: Vec<f64> = (0..n).map(values).collect();
+    *arr = serde_json::Value::String(lossprism::codec::pack_floats(&vals));
+}
+
+fn edit_json(bytes: &[u8], f: impl FnOnce(&mut serde_json::Value)) -> Vec<u8> {
+    let mut v: serde_json::Value = serde_json::from_slice(bytes).unwrap();
+    f(&mut v);
+    serde_json::to_vec_pretty(&v).unwrap()
+}
+
+// ---------------------------------------------------------------------------------------------
+// The case table
+// ---------------------------------------------------------------------------------------------
+
+/// What a case may leave behind besides its files: nothing (the default), or a folder.
+#[derive(Clone)]
+enum Extra {
+    None,
+    /// A folder named so.
+    Dir(&'static str),
+    /// A sparse file of this many bytes (size refusals without writing the bytes).
+    Sparse(&'static str, u64),
+    /// A symlink (name, target).
+    Link(&'static str, &'static str),
+    /// A FIFO that nothing writes to.
+    Fifo(&'static str),
+}
+
+#[derive(Clone)]
+struct Case {
+    group: &'static str,
+    name: String,
+    files: Vec<(String, Vec<u8>)>,
+    extra: Extra,
+    args: Vec<String>,
+    code: i32,
+    needles: Vec<String>,
+    python: bool,
+}
+
+struct Table(Vec<Case>);
+
+impl Table {
+    fn add(
+        &mut self,
+        group: &'static str,
+        name: impl Into<String>,
+        files: &[(&str, &[u8])],
+        args: &[&str],
+        needle: &str,
+    ) -> &mut Case {
+        self.0.push(Case {
+            group,
+            name: name.into(),
+            files: files
+                .iter()
+                .map(|(n, b)| (n.to_string(), b.to_vec()))
+                .collect(),
+            extra: Extra::None,
+            args: args.iter().map(|s| s.to_string()).collect(),
+            code: 2,
+            needles: vec![needle.to_string()],
+            python: false,
+        });
+        self.0.last_mut().unwrap()
+    }
+
+    /// A scenario case: `s.toml` holds `scenario`, run with `cmd` (validate or run).
+    fn scenario(
+        &mut self,
+        group: &'static str,
+        name: &str,
+        scenario: &str,
+        cmd: &str,
+        needle: &str,
+    ) -> &mut Case {
+        let args: Vec<&str> = match cmd {
+            "run" => vec!["run", "s.toml", "--out", "r.json", "-q"],
+            _ => vec!["validate", "s.toml"],
+        };
+        self.add(
+            group,
+            name,
+            &[("s.toml", scenario.as_bytes())],
+            &args,
+            needle,
+        )
+    }
+
+    /// A table case: `t.csv` holds `csv` and `s.toml` the table scenario.
+    fn table(&mut self, name: &str, csv: &[u8], extra: &str, needle: &str) -> &mut Case {
+        let s = table_scenario(extra, TREE);
+        self.add(
+            "csv",
+            name,
+            &[("s.toml", s.as_bytes()), ("t.csv", csv)],
+            &["run", "s.toml", "--out", "r.json", "-q"],
+            needle,
+        )
+    }
+}
+
+impl Case {
+    fn also(&mut self, needle: &str) -> &mut Self {
+        self.needles.push(needle.to_string());
+        self
+    }
+    fn extra(&mut self, e: Extra) -> &mut Self {
+        self.extra = e;
+        self
+    }
+    fn python(&mut self) -> &mut Self {
+        self.python = true;
+        self
+    }
+}
+
+fn scenario_cases(t: &mut Table) {
+    let g = "scenario";
+    let v = "validate";
+    t.scenario(
+        g,
+        "missing name",
+        &sc("name = \"tiny\"\n", ""),
+        v,
+        "key `name`: is missing",
+    );
+    t.scenario(
+        g,
+        "empty name",
+        &sc("name = \"tiny\"", "name = \"  \""),
+        v,
+        "must not be empty",
+    );
+    t.scenario(
+        g,
+        "name of 300 characters",
+        &sc(
+            "name = \"tiny\"",
+            &format!("name = \"{}\"", "n".repeat(300)),
+        ),
+        v,
+        "at most 200 characters",
+    );
+    t.scenario(
+        g,
+        "missing [model]",
+        BASE.split("[model]").next().unwrap(),
+        v,
+        "key `model`: is missing",
+    );
+    t.scenario(
+        g,
+        "missing [data]",
+        "name = \"x\"\n[model]\nfamily = \"tree\"\ngrid = [1]\n",
+        v,
+        "key `data`: is missing",
+    );
+    t.scenario(
+        g,
+        "non-ASCII input name",
+        &sc("name = \"x\"", "name = \"été\"").replace("formula = \"x\"", "formula = \"1\""),
+        v,
+        "names are ASCII",
+    );
+    t.scenario(
+        g,
+        "input named pi",
+        &sc("name = \"x\"", "name = \"pi\""),
+        v,
+        "not `pi` or `e`",
+    );
+    t.scenario(
+        g,
+        "input name starting with a digit",
+        &sc("name = \"x\"", "name = \"1x\""),
+        v,
+        "not a usable variable name",
+    );
+    t.scenario(
+        g,
+        "input defined twice",
+        &sc(
+            "[data.truth]",
+            "[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n\n[data.truth]",
+        ),
+        v,
+        "defined twice",
+    );
+    t.scenario(
+        g,
+        "uniform lo > hi",
+        &sc("uniform = [0.0, 1.0]", "uniform = [1.0, 0.0]"),
+        v,
+        "needs lo < hi",
+    );
+    t.scenario(
+        g,
+        "uniform over the whole float range",
+        &sc("uniform = [0.0, 1.0]", "uniform = [-1e308, 1e308]"),
+        v,
+        "overflow",
+    );
+    t.scenario(
+        g,
+        "uniform of one number",
+        &sc("uniform = [0.0, 1.0]", "uniform = [0.0]"),
+        v,
+        "two finite numbers",
+    );
+    t.scenario(
+        g,
+        "uniform of text",
+        &sc("uniform = [0.0, 1.0]", "uniform = \"wide\""),
+        v,
+        "data.inputs",
+    );
+    t.scenario(
+        g,
+        "normal sd 0",
+        &sc("uniform = [0.0, 1.0]", "normal = [0.0, 0.0]"),
+        v,
+        "sd must be > 0",
+    );
+    t.scenario(
+        g,
+        "normal sd 1e308",
+        &sc("uniform = [0.0, 1.0]", "normal = [0.0, 1e308]"),
+        v,
+        "overflow",
+    );
+    t.scenario(
+        g,
+        "even overflowing",
+        &sc("uniform = [0.0, 1.0]", "even = [-1e308, 1e308]"),
+        v,
+        "overflow",
+    );
+    t.scenario(
+        g,
+        "two distributions",
+        &sc(
+            "uniform = [0.0, 1.0]",
+            "uniform = [0.0, 1.0]\nnormal = [0.0, 1.0]",
+        ),
+        v,
+        "exactly one of",
+    );
+    t.scenario(
+        g,
+        "no distribution",
+        &sc("uniform = [0.0, 1.0]", ""),
+        v,
+        "exactly one of",
+    );
+    t.scenario(
+        g,
+        "train_size 0",
+        &sc("train_size = 20", "train_size = 0"),
+        v,
+        "train_size",
+    );
+    t.scenario(
+        g,
+        "train_size negative",
+        &sc("train_size = 20", "train_size = -5"),
+        v,
+        "train_size",
+    );
+    t.scenario(
+        g,
+        "train_size absurd",
+        &sc("train_size = 20", "train_size = 1000000000000"),
+        v,
+        "is not a usable training size",
+    );
+    t.scenario(
+        g,
+        "train_size as text",
+        &sc("train_size = 20", "train_size = \"20\""),
+        v,
+        "train_size",
+    );
+    t.scenario(
+        g,
+        "eval_size 0",
+        &sc("eval_size = 10", "eval_size = 0"),
+        v,
+        "eval_size",
+    );
+    t.scenario(
+        g,
+        "replicates 1",
+        &sc("replicates = 4", "replicates = 1"),
+        v,
+        "at least 2",
+    );
+    t.scenario(
+        g,
+        "replicates 0",
+        &sc("replicates = 4", "replicates = 0"),
+        v,
+        "at least 2",
+    );
+    t.scenario(
+        g,
+        "replicates beyond the limit",
+        &sc("replicates = 4", "replicates = 9000000000000"),
+        v,
+        "more than this tool accepts",
+    );
+    t.scenario(
+        g,
+        "replicates beyond i64",
+        &sc("replicates = 4", "replicates = 99999999999999999999"),
+        v,
+        "replicates",
+    );
+    t.scenario(g, "blocks 0", &sc("blocks = 2", "blocks = 0"), v, "blocks");
+    t.scenario(g, "seed negative", &sc("seed = 1", "seed = -1"), v, "seed");
+    t.scenario(
+        g,
+        "unknown source",
+        &sc("source = \"synthetic\"", "source = \"magic\""),
+        v,
+        "unknown source `magic`",
+    );
+    t.scenario(
+        g,
+        "unknown family",
+        &sc("family = \"tree\"", "family = \"oracle\""),
+        v,
+        "unknown family `oracle`",
+    );
+    t.scenario(
+        g,
+        "unknown loss",
+        &format!("{BASE}\n[loss]\nkind = \"hinge\"\n"),
+        v,
+        "hinge",
+    );
+    t.scenario(
+        g,
+        "log-loss on regression",
+        &format!("{BASE}\n[loss]\nkind = \"log_loss\"\n"),
+        v,
+        "loss",
+    );
+    t.scenario(
+        g,
+        "empty grid",
+        &sc("grid = [1, 2]", "grid = []"),
+        v,
+        "grid",
+    );
+    t.scenario(
+        g,
+        "grid value twice",
+        &sc("grid = [1, 2]", "grid = [1, 1]"),
+        v,
+        "appears twice",
+    );
+    t.scenario(
+        g,
+        "negative tree depth",
+        &sc("grid = [1, 2]", "grid = [-1, 2]"),
+        v,
+        "max_depth",
+    );
+    t.scenario(
+        g,
+        "fractional tree depth",
+        &sc("grid = [1, 2]", "grid = [1.5]"),
+        v,
+        "whole number",
+    );
+    t.scenario(
+        g,
+        "grid of NaN",
+        &sc("grid = [1, 2]", "grid = [nan]"),
+        v,
+        "grid",
+    );
+    t.scenario(
+        g,
+        "grid of text",
+        &sc("grid = [1, 2]", "grid = [\"deep\"]"),
+        v,
+        "grid",
+    );
+    t.scenario(
+        g,
+        "grid range with 0 step",
+        &sc("grid = [1, 2]", "grid = { from = 1, to = 5, step = 0 }"),
+        v,
+        "step",
+    );
+    t.scenario(
+        g,
+        "log grid of a million",
+        &sc(
+            "grid = [1, 2]",
+            "grid = { log = [1, 100], count = 1000000 }",
+        ),
+        v,
+        "count",
+    );
+    t.scenario(
+        g,
+        "knn with k above n",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"knn\"\ngrid = [1, 500]",
+        ),
+        v,
+        "500",
+    );
+    t.scenario(
+        g,
+        "poly degree above n",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"poly\"\ngrid = [30]",
+        ),
+        v,
+        "degree = 30",
+    );
+    t.scenario(
+        g,
+        "fit_seeds 0",
+        &sc("grid = [1, 2]", "grid = [1, 2]\nfit_seeds = 0"),
+        v,
+        "fit_seeds",
+    );
+    t.scenario(
+        g,
+        "fit_seeds huge",
+        &sc("grid = [1, 2]", "grid = [1, 2]\nfit_seeds = 100000"),
+        v,
+        "fit_seeds",
+    );
+    t.scenario(
+        g,
+        "unknown model option",
+        &sc("grid = [1, 2]", "grid = [1, 2]\nsplitter = \"best\""),
+        v,
+        "splitter",
+    );
+    t.scenario(
+        g,
+        "model without grid",
+        &sc("grid = [1, 2]", ""),
+        v,
+        "grid`: is missing",
+    );
+    t.scenario(
+        g,
+        "model without family",
+        &sc("family = \"tree\"\n", ""),
+        v,
+        "family",
+    );
+    t.scenario(
+        g,
+        "noise sd negative",
+        &sc("sd = 1.0", "sd = -1.0"),
+        v,
+        "sd",
+    );
+    t.scenario(g, "noise sd NaN", &sc("sd = 1.0", "sd = nan"), v, "sd");
+    t.scenario(
+        g,
+        "noise sd_formula negative",
+        &sc("sd = 1.0", "sd_formula = \"-1 - x\""),
+        v,
+        "sd_formula",
+    );
+    t.scenario(
+        g,
+        "unknown design",
+        &sc("eval_size = 10", "eval_size = 10\ndesign = \"latin\""),
+        v,
+        "design",
+    );
+    t.scenario(
+        g,
+        "design evaluation on a random design",
+        &sc("eval_size = 10", "eval = \"design\""),
+        v,
+        "design",
+    );
+    t.scenario(
+        g,
+        "TOML syntax error",
+        &sc("seed = 1", "seed = = 1"),
+        v,
+        "s.toml",
+    );
+    t.scenario(
+        g,
+        "unclosed table header",
+        &sc("[model]", "[model"),
+        v,
+        "s.toml",
+    );
+    t.scenario(
+        g,
+        "a single class label",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+            "[data.classes]\nlabels = [\"a\"]\nprobability = \"x\"\n",
+        ),
+        v,
+        "classes",
+    );
+    t.scenario(
+        g,
+        "probability outside [0, 1]",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+            "[data.classes]\nlabels = [\"a\", \"b\"]\nprobability = \"2 + x\"\n",
+        ),
+        v,
+        "within [0, 1]",
+    );
+    t.scenario(
+        g,
+        "logits of the wrong count",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+            "[data.classes]\nlabels = [\"a\", \"b\", \"c\"]\nlogits = [\"0\", \"x\"]\n",
+        ),
+        v,
+        "logits",
+    );
+    t.scenario(
+        g,
+        "flip rule outside the classes",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+            "[data.classes]\nlabels = [\"a\", \"b\"]\nrule = \"2 + x\"\nflip = 0.1\n",
+        ),
+        v,
+        "class index 0 to 1, 2 classes",
+    );
+    t.scenario(
+        g,
+        "poisson loss on a negative truth",
+        &sc("formula = \"x\"", "formula = \"x - 2\"")
+            .replace("[model]", "[loss]\nkind = \"poisson\"\n\n[model]"),
+        v,
+        "poisson",
+    );
+    t.scenario(
+        g,
+        "twin without a table",
+        &sc("source = \"synthetic\"", "source = \"twin\""),
+        v,
+        "s.toml",
+    );
+    t.scenario(
+        g,
+        "custom family on the command line",
+        &sc("family = \"tree\"", "family = \"custom\""),
+        "run",
+        "custom",
+    );
+    t.scenario(
+        g,
+        "accumulators beyond 8 GiB",
+        &sc("eval_size = 10", "eval_size = 1000000")
+            .replace("grid = [1, 2]", "grid = { from = 1, to = 64 }")
+            .replace("blocks = 2", "blocks = 100000")
+            .replace("replicates = 4", "replicates = 100000"),
+        v,
+        "GiB",
+    );
+    // 100 000 inputs × 10 000 training rows: refused at once by the memory estimate.
+    let mut wide = String::from(BASE.split("[[data.inputs]]").next().unwrap());
+    for i in 0..100_000 {
+        wide.push_str(&format!(
+            "[[data.inputs]]\nname = \"x{i}\"\nuniform = [0.0, 1.0]\n"
+        ));
+    }
+    wide.push_str("[data.truth]\nformula = \"x0\"\n[data.noise]\nsd = 1.0\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\n");
+    let wide = wide.replace("train_size = 20", "train_size = 10000");
+    t.scenario(
+        g,
+        "100 000 inputs x 10 000 rows (validate)",
+        &wide,
+        v,
+        "more than the memory available",
+    )
+    .also("--memory-limit")
+    .also("fit work");
+    t.scenario(
+        g,
+        "100 000 inputs x 10 000 rows (run)",
+        &wide,
+        "run",
+        "--memory-limit",
+    );
+    t.add(
+        g,
+        "memory above --memory-limit",
+        &[("s.toml", BASE.as_bytes())],
+        &["run", "s.toml", "--out", "r.json", "--memory-limit", "1K"],
+        "more than the --memory-limit",
+    );
+    t.add(
+        g,
+        "validate above --memory-limit",
+        &[("s.toml", BASE.as_bytes())],
+        &["validate", "s.toml", "--memory-limit", "1M"],
+        "the run needs about",
+    );
+    t.add(
+        g,
+        "empty scenario file",
+        &[("s.toml", b"")],
+        &["validate", "s.toml"],
+        "s.toml",
+    );
+    t.add(
+        g,
+        "binary scenario file",
+        &[("s.toml", b"name = \"x\"\0\0\x01")],
+        &["validate", "s.toml"],
+        "binary data",
+    );
+    t.add(
+        g,
+        "scenario not UTF-8",
+        &[("s.toml", b"name = \"\xff\xfe\"\n")],
+        &["validate", "s.toml"],
+        "not UTF-8",
+    );
+    t.add(
+        g,
+        "scenario file missing",
+        &[],
+        &["validate", "nothing.toml"],
+        "nothing.toml",
+    );
+    t.add(
+        g,
+        "scenario is a folder",
+        &[],
+        &["run", "d", "--out", "r.json"],
+        "folder",
+    )
+    .extra(Extra::Dir("d"));
+    t.add(
+        g,
+        "scenario of 100 MB",
+        &[],
+        &["validate", "big.toml"],
+        "larger than any scenario file",
+    )
+    .extra(Extra::Sparse("big.toml", 100 << 20));
+    t.add(
+        g,
+        "scenario is a FIFO nothing writes to",
+        &[],
+        &["validate", "fifo.toml"],
+        "nothing wrote to",
+    )
+    .extra(Extra::Fifo("fifo.toml"));
+    t.add(
+        "csv",
+        "table is a FIFO nothing writes to",
+        &[("s.toml", table_scenario("", TREE).as_bytes())],
+        &["validate", "s.toml"],
+        "nothing wrote to",
+    )
+    .extra(Extra::Fifo("t.csv"));
+    t.add(
+        g,
+        "scenario from /dev/zero",
+        &[],
+        &["run", "/dev/zero", "--out", "r.json"],
+        "binary data",
+    );
+}
+
+fn formula_cases(t: &mut Table) {
+    let g = "formula";
+    let v = "validate";
+    let cases: &[(&str, &str)] = &[
+        ("", "empty formula"),
+        ("x +", "formula"),
+        ("(x", "unclosed `(`"),
+        ("x)", "unmatched `)`"),
+        ("sin", "is a function"),
+        ("sin(x", "formula"),
+        ("foo(x)", "unknown function `foo`"),
+        ("y", "y"),
+        ("1e", "unexpected name `e`"),
+        ("x ** 2", "formula"),
+        ("x = 1", "write `==`"),
+        ("0 < x < 1", "formula"),
+        ("log(x)", "`ln`"),
+        ("x(2)", "is a variable"),
+        ("min(x)", "min"),
+        ("atan2(x)", "atan2"),
+        ("if(x, 1)", "if"),
+        ("@", "formula"),
+        ("x²", "formula"),
+        ("x # note", "formula"),
+        ("..5", "formula"),
+        ("1e400 * x", "formula"),
+    ];
+    for (f, needle) in cases {
+        t.scenario(g, &format!("formula `{f}`"), &with_formula(f), v, needle);
+    }
+    let deep = format!("{}x{}", "(".repeat(300), ")".repeat(300));
+    t.scenario(
+        g,
+        "nesting of 300 parentheses",
+        &with_formula(&deep),
+        v,
+        "nest",
+    );
+    let long = vec!["x"; 40_000].join(" + ") + " +";
+    t.scenario(
+        g,
+        "a 160 KB formula is clipped",
+        &with_formula(&long),
+        v,
+        "characters)",
+    );
+    let ident = "q".repeat(50_000);
+    t.scenario(
+        g,
+        "a 50 KB unknown name is clipped",
+        &with_formula(&ident),
+        v,
+        "characters)",
+    );
+    // Formulas that parse but give no number where they are evaluated.
+    t.scenario(
+        g,
+        "division by zero",
+        &with_formula("1/(x - x)"),
+        v,
+        "gives",
+    );
+    t.scenario(
+        g,
+        "exp overflow",
+        &with_formula("exp(1000 + 1000*x)"),
+        v,
+        "gives inf",
+    );
+    t.scenario(
+        g,
+        "square root of a negative",
+        &with_formula("sqrt(-1 - x)"),
+        v,
+        "gives NaN",
+    );
+    // Finite truths whose squares overflow: the run stops naming term, grid value and cause.
+    t.scenario(
+        g,
+        "truth 1e200*x",
+        &with_formula("1e200*x"),
+        "run",
+        "the term `",
+    )
+    .also("max_depth = 1")
+    .also("rescale");
+    t.scenario(
+        g,
+        "noise sd 1e200",
+        &sc("sd = 1.0", "sd = 1e200"),
+        "run",
+        "the term `",
+    )
+    .also("rescale");
+}
+
+fn csv_cases(t: &mut Table) {
+    let good = good_csv();
+    t.table("empty file", b"", "", "the file is empty");
+    t.table("blank file", b"\n\n  \n", "", "the file is empty");
+    t.table("header only", b"a,b,y\n", "", "no data rows");
+    t.table("numeric header", b"1,2,3\n4,5,6\n", "", "no header");
+    t.table("column twice", b"a,a,y\n1,2,3\n", "", "appears twice");
+    t.table("empty column name", b"a,,y\n1,2,3\n", "", "empty name");
+    t.table(
+        "no target column",
+        good.replace("a,b,y", "a,b,z").as_bytes(),
+        "",
+        "no target column `y`",
+    );
+    t.table(
+        "unknown feature",
+        good.as_bytes(),
+        "features = [\"q\"]",
+        "no feature column `q`",
+    );
+    t.table(
+        "target as feature",
+        good.as_bytes(),
+        "features = [\"y\"]",
+        "cannot also be a feature",
+    );
+    t.table(
+        "feature twice",
+        good.as_bytes(),
+        "features = [\"a\", \"a\"]",
+        "listed twice",
+    );
+    t.table(
+        "text cell in a numeric column",
+        csv_rows(40, |i| {
+            if i == 5 {
+                "n/a-ish".into()
+            } else {
+                i.to_string()
+            }
+        })
+        .as_bytes(),
+        "",
+        "is not a number",
+    );
+    t.table(
+        "inf cell",
+        good.replacen("0,0,0", "inf,0,0", 1).as_bytes(),
+        "",
+        "`inf` is not a number",
+    );
+    t.table(
+        "1e400 cell",
+        csv_rows(40, |i| {
+            if i == 3 {
+                "1e400".into()
+            } else {
+                i.to_string()
+            }
+        })
+        .as_bytes(),
+        "",
+        "`1e400` is not a number",
+    );
+    t.table(
+        "missing cell",
+        csv_rows(40, |i| if i == 3 { "".into() } else { i.to_string() }).as_bytes(),
+        "",
+        "is missing a value",
+    );
+    let mut levels = String::from("a,c,y\n");
+    for i in 0..40 {
+        levels.push_str(&format!("{i},level{i},{i}\n"));
+    }
+    t.table(
+        "text feature with 40 levels",
+        levels.as_bytes(),
+        "",
+        "distinct values",
+    );
+    t.table(
+        "empty target column",
+        csv_rows(40, |_| String::new()).as_bytes(),
+        "",
+        "the target column is empty",
+    );
+    t.table(
+        "constant target",
+        csv_rows(40, |_| "3".into()).as_bytes(),
+        "",
+        "the target is constant",
+    );
+    t.table(
+        "text target",
+        csv_rows(40, |i| format!("k{i}")).as_bytes(),
+        "",
+        "not numeric",
+    );
+    let continuous = csv_rows(40, |i| format!("{}", 0.37 * i as f64 + 0.01));
+    t.table(
+        "continuous target as classes",
+        continuous.as_bytes(),
+        "task = \"classify\"",
+        "40 distinct labels in 40 rows",
+    );
+    t.table(
+        "a single class",
+        csv_rows(40, |_| "u".into()).as_bytes(),
+        "task = \"classify\"",
+        "single class",
+    );
+    t.table(
+        "label not listed",
+        csv_rows(40, |i| if i % 2 == 0 { "u".into() } else { "w".into() }).as_bytes(),
+        "[data.classes]\nlabels = [\"u\", \"v\"]",
+        "not one of [data.classes] labels",
+    );
+    t.table("two rows", b"a,b,y\n1,2,3\n4,5,6\n", "", "usable rows");
+    t.table(
+        "ragged rows",
+        format!("{good}1,2\n").as_bytes(),
+        "",
+        "t.csv",
+    );
+    t.table("binary table", b"a,b,y\n\x00\x01\x02,1,2\n", "", "t.csv");
+    t.table("not UTF-8", b"a,b,y\n\xff,1,2\n", "", "t.csv");
+    t.table(
+        "unknown missing rule",
+        good.as_bytes(),
+        "missing = \"guess\"",
+        "missing",
+    );
+    t.table("holdout of 1", good.as_bytes(), "holdout = 1.0", "holdout");
+    t.table(
+        "holdout negative",
+        good.as_bytes(),
+        "holdout = -0.1",
+        "holdout",
+    );
+    t.table(
+        "unknown task",
+        good.as_bytes(),
+        "task = \"cluster\"",
+        "task",
+    );
+    t.table(
+        "target of 1e300",
+        csv_rows(40, |i| format!("{}e300", 1 + i % 7)).as_bytes(),
+        "",
+        "rescale",
+    );
+    t.table(
+        "target of 1e308: the tree's leaf means overflow",
+        csv_rows(40, |i| format!("{}e307", 5 + i % 5)).as_bytes(),
+        "",
+        "prediction inf",
+    )
+    .also("rescale");
+    let s = table_scenario("", TREE);
+    t.add(
+        "csv",
+        "table missing",
+        &[("s.toml", s.as_bytes())],
+        &["validate", "s.toml"],
+        "t.csv",
+    );
+    t.add(
+        "csv",
+        "table is a folder",
+        &[("s.toml", s.as_bytes())],
+        &["validate", "s.toml"],
+        "folder",
+    )
+    .extra(Extra::Dir("t.csv"));
+    t.add(
+        "csv",
+        "twin of a missing target",
+        &[("t.csv", good.as_bytes())],
+        &["twin", "t.csv", "--target", "q", "--out", "tw.toml"],
+        "no target column `q`",
+    );
+    t.add(
+        "csv",
+        "twin of a continuous target as classes",
+        &[("t.csv", continuous.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--classes",
+            "--out",
+            "tw.toml",
+        ],
+        "distinct labels",
+    );
+}
+
+fn cli_cases(t: &mut Table, docs: &Docs) {
+    let g = "cli";
+    let s: &[(&str, &[u8])] = &[("s.toml", BASE.as_bytes())];
+    let with_results: &[(&str, &[u8])] = &[("r.json", &docs.result), ("b.json", &docs.result)];
+    t.add(
+        g,
+        "--sigma -1",
+        with_results,
+        &["check", "r.json", "--baseline", "b.json", "--sigma", "-1"],
+        "--sigma cannot be negative",
+    );
+    t.add(
+        g,
+        "--sigma nan",
+        with_results,
+        &["check", "r.json", "--baseline", "b.json", "--sigma", "nan"],
+        "not a number of standard errors",
+    );
+    t.add(
+        g,
+        "--margin -5%",
+        with_results,
+        &["check", "r.json", "--baseline", "b.json", "--margin", "-5%"],
+        "a margin cannot be negative",
+    );
+    t.add(
+        g,
+        "--margin words",
+        with_results,
+        &[
+            "check",
+            "r.json",
+            "--baseline",
+            "b.json",
+            "--margin",
+            "some",
+        ],
+        "is not a margin",
+    );
+    t.add(
+        g,
+        "--margin-term unknown term",
+        with_results,
+        &[
+            "check",
+            "r.json",
+            "--baseline",
+            "b.json",
+            "--margin-term",
+            "wobble=1%",
+        ],
+        "unknown term `wobble`",
+    );
+    t.add(
+        g,
+        "--margin-term negative",
+        with_results,
+        &[
+            "check",
+            "r.json",
+            "--baseline",
+            "b.json",
+            "--margin-term",
+            "variance=-1%",
+        ],
+        "cannot be negative",
+    );
+    t.add(
+        g,
+        "--threads 100000",
+        s,
+        &["run", "s.toml", "--threads", "100000", "--out", "r.json"],
+        "at most 512 worker threads",
+    );
+    t.add(
+        g,
+        "--threads 4294967297",
+        s,
+        &[
+            "run",
+            "s.toml",
+            "--threads",
+            "4294967297",
+            "--out",
+            "r.json",
+        ],
+        "at most 512 worker threads",
+    );
+    t.add(
+        g,
+        "--threads -1",
+        s,
+        &["run", "s.toml", "--threads", "-1"],
+        "invalid value '-1'",
+    );
+    t.add(
+        g,
+        "--replicates 1",
+        s,
+        &["run", "s.toml", "--replicates", "1", "--out", "r.json"],
+        "at least 2",
+    );
+    t.add(
+        g,
+        "--replicates -1",
+        s,
+        &["run", "s.toml", "--replicates", "-1"],
+        "invalid value '-1'",
+    );
+    t.add(
+        g,
+        "--replicates huge",
+        s,
+        &[
+            "run",
+            "s.toml",
+            "--replicates",
+            "99999999999",
+            "--out",
+            "r.json",
+        ],
+        "more than this tool accepts",
+    );
+    t.add(
+        g,
+        "--seed -1",
+        s,
+        &["run", "s.toml", "--seed", "-1"],
+        "invalid value '-1'",
+    );
+    t.add(
+        g,
+        "--shard 0/2",
+        s,
+        &["run", "s.toml", "--shard", "0/2", "--out", "p.json"],
+        "--shard",
+    );
+    t.add(
+        g,
+        "--shard 3/2",
+        s,
+        &["run", "s.toml", "--shard", "3/2", "--out", "p.json"],
+        "--shard",
+    );
+    t.add(
+        g,
+        "--shard 1/0",
+        s,
+        &["run", "s.toml", "--shard", "1/0", "--out", "p.json"],
+        "--shard",
+    );
+    t.add(
+        g,
+        "--shard words",
+        s,
+        &["run", "s.toml", "--shard", "half", "--out", "p.json"],
+        "--shard",
+    );
+    t.add(
+        g,
+        "--shard more than blocks",
+        s,
+        &["run", "s.toml", "--shard", "1/3", "--out", "p.json"],
+        "fewer than 3 shards",
+    );
+    t.add(
+        g,
+        "--shard without --out",
+        s,
+        &["run", "s.toml", "--shard", "1/2"],
+        "--out",
+    );
+    t.add(
+        g,
+        "--shard with --csv",
+        s,
+        &[
+            "run", "s.toml", "--shard", "1/2", "--out", "p.json", "--csv", "c.csv",
+        ],
+        "--csv",
+    );
+    t.add(
+        g,
+        "--out - --csv -",
+        s,
+        &["run", "s.toml", "--out", "-", "--csv", "-"],
+        "both name standard output",
+    );
+    t.add(
+        g,
+        "--quiet with no output",
+        s,
+        &["run", "s.toml", "-q"],
+        "--quiet with no output",
+    );
+    t.add(
+        g,
+        "merge --quiet with no output",
+        &[("p1.json", &docs.part1), ("p2.json", &docs.part2)],
+        &["merge", "p1.json", "p2.json", "-q"],
+        "--quiet with no output",
+    );
+    t.add(
+        g,
+        "--stop-after-blocks without --checkpoint",
+        s,
+        &["run", "s.toml", "--stop-after-blocks", "1"],
+        "--checkpoint",
+    );
+    t.add(
+        g,
+        "--assess without a holdout",
+        s,
+        &["run", "s.toml", "--assess", "1"],
+        "holdout",
+    );
+    t.add(
+        g,
+        "--assess with --out",
+        s,
+        &["run", "s.toml", "--assess", "1", "--out", "r.json"],
+        "drop --out",
+    );
+    t.add(
+        g,
+        "--input without --plot-points",
+        s,
+        &["run", "s.toml", "--input", "x"],
+        "--plot-points",
+    );
+    t.add(
+        g,
+        "--plot-points of an unknown input",
+        s,
+        &["run", "s.toml", "--plot-points", "p.svg", "--input", "nope"],
+        "nope",
+    );
+    t.add(
+        g,
+        "--memory-limit words",
+        s,
+        &["run", "s.toml", "--memory-limit", "plenty"],
+        "not a memory size",
+    );
+    t.add(
+        g,
+        "--memory-limit 0",
+        s,
+        &["validate", "s.toml", "--memory-limit", "0"],
+        "not a memory size",
+    );
+    t.add(
+        g,
+        "--decomposition unknown",
+        s,
+        &["run", "s.toml", "--decomposition", "mine"],
+        "mine",
+    );
+    t.add(g, "unknown subcommand", &[], &["explode"], "explode");
+    t.add(
+        g,
+        "plot without --out",
+        with_results,
+        &["plot", "r.json"],
+        "--out",
+    );
+    t.add(
+        g,
+        "check without --baseline",
+        with_results,
+        &["check", "r.json"],
+        "--baseline",
+    );
+    t.add(
+        g,
+        "check of a missing baseline",
+        with_results,
+        &["check", "r.json", "--baseline", "none.json"],
+        "baseline not found",
+    );
+    t.add(g, "merge of nothing", &[], &["merge"], "PART");
+    t.add(
+        g,
+        "twin --seed -3",
+        &[("t.csv", good_csv().as_bytes())],
+        &["twin", "t.csv", "--target", "y", "--seed", "-3"],
+        "-3",
+    );
+    t.add(
+        g,
+        "--out in a missing folder",
+        s,
+        &["run", "s.toml", "--out", "no/such/r.json"],
+        "no/such",
+    );
+    t.add(
+        g,
+        "--out is a folder",
+        s,
+        &["run", "s.toml", "--out", "d"],
+        "folder",
+    )
+    .extra(Extra::Dir("d"));
+    t.add(
+        g,
+        "--csv is a folder with a good --out",
+        &[("s.toml", BASE.as_bytes()), ("r.json", &docs.result)],
+        &["run", "s.toml", "--out", "r.json", "--csv", "d"],
+        "--csv",
+    )
+    .extra(Extra::Dir("d"));
+    t.add(
+        g,
+        "--out and --csv name one file",
+        s,
+        &["run", "s.toml", "--out", "same.out", "--csv", "same.out"],
+        "--out",
+    )
+    .also("--csv");
+    t.add(
+        g,
+        "--plot and --out name one file",
+        &[("s.toml", BASE.as_bytes()), ("r.json", &docs.result)],
+        &["run", "s.toml", "--plot", "r.json", "--out", "r.json"],
+        "--plot",
+    )
+    .also("--out");
+    t.add(
+        g,
+        "--out through a link to the scenario",
+        s,
+        &["run", "s.toml", "--out", "link.json"],
+        "scenario",
+    )
+    .extra(Extra::Link("link.json", "s.toml"));
+}
+
+fn output_clash_cases(t: &mut Table, docs: &Docs) {
+    let g = "output=input";
+    let good = good_csv();
+    t.add(
+        g,
+        "twin --out the table",
+        &[("t.csv", good.as_bytes())],
+        &["twin", "t.csv", "--target", "y", "--out", "t.csv"],
+        "--out",
+    );
+    t.add(
+        g,
+        "twin --out ./the table",
+        &[("t.csv", good.as_bytes())],
+        &["twin", "t.csv", "--target", "y", "--out", "./t.csv"],
+        "--out",
+    );
+    t.add(
+        g,
+        "run --out the scenario",
+        &[("s.toml", BASE.as_bytes())],
+        &["run", "s.toml", "--out", "s.toml"],
+        "--out",
+    )
+    .also("scenario");
+    t.add(
+        g,
+        "run --csv the scenario",
+        &[("s.toml", BASE.as_bytes())],
+        &["run", "s.toml", "--csv", "s.toml"],
+        "--csv",
+    );
+    let s = table_scenario("", TREE);
+    t.add(
+        g,
+        "run --out the table",
+        &[("s.toml", s.as_bytes()), ("t.csv", good.as_bytes())],
+        &["run", "s.toml", "--out", "t.csv"],
+        "--out",
+    );
+    t.add(
+        g,
+        "merge --out a part",
+        &[("p1.json", &docs.part1), ("p2.json", &docs.part2)],
+        &["merge", "p1.json", "p2.json", "--out", "p1.json"],
+        "--out",
+    );
+    t.add(
+        g,
+        "merge --csv a part",
+        &[("p1.json", &docs.part1), ("p2.json", &docs.part2)],
+        &[
+            "merge", "p1.json", "p2.json", "--out", "m.json", "--csv", "p2.json",
+        ],
+        "--csv",
+    );
+    t.add(
+        g,
+        "plot --out the result",
+        &[("r.json", &docs.result)],
+        &["plot", "r.json", "--out", "r.json"],
+        "--out",
+    );
+    t.add(
+        g,
+        "plot --selection the result",
+        &[("r.json", &docs.result)],
+        &["plot", "r.json", "--out", "c.svg", "--selection", "r.json"],
+        "--selection",
+    );
+    t.add(
+        g,
+        "--checkpoint --out the same file",
+        &[("s.toml", BASE.as_bytes()), ("ck.json", &docs.checkpoint)],
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--out",
+            "ck.json",
+        ],
+        "--checkpoint",
+    );
+    t.add(
+        g,
+        "--checkpoint the scenario",
+        &[("s.toml", BASE.as_bytes())],
+        &["run", "s.toml", "--checkpoint", "s.toml", "--out", "r.json"],
+        "--checkpoint",
+    );
+    t.add(
+        g,
+        "check --update a baseline that is the result",
+        &[("r.json", &docs.result)],
+        &["check", "r.json", "--baseline", "./r.json", "--update"],
+        "--baseline",
+    );
+}
+
+fn document_cases(t: &mut Table, docs: &Docs) {
+    let g = "documents";
+    let part_cases: Vec<(&str, Vec<u8>, &str)> = vec![
+        (
+            "not JSON",
+            b"hello".to_vec(),
+            "not a lossprism part document",
+        ),
+        ("empty", Vec::new(), "part"),
+        ("a JSON array", b"[1, 2, 3]".to_vec(), "a JSON object"),
+        ("binary", b"{\0\0\0".to_vec(), "binary data"),
+        (
+            "truncated",
+            docs.part1[..docs.part1.len() / 2].to_vec(),
+            "invalid JSON",
+        ),
+        (
+            "no format",
+            edit_part(&docs.part1, false, |v| {
+                v.as_object_mut().unwrap().remove("format");
+            }),
+            "no `format` field",
+        ),
+        (
+            "format of a result",
+            edit_part(&docs.part1, false, |v| {
+                v["format"] = "lossprism-result/1".into()
+            }),
+            "expected `lossprism-part/2`",
+        ),
+        (
+            "format part/1",
+            edit_part(&docs.part1, false, |v| {
+                v["format"] = "lossprism-part/1".into()
+            }),
+            "earlier lossprism",
+        ),
+        (
+            "edited version",
+            edit_part(&docs.part1, false, |v| v["version"] = "0.0.9".into()),
+            "written by lossprism 0.0.9",
+        ),
+        (
+            "version of another type",
+            edit_part(&docs.part1, false, |v| v["version"] = 7.into()),
+            "version",
+        ),
+        (
+            "one hex digit changed",
+            {
+                let s = String::from_utf8(docs.part1.clone()).unwrap();
+                let i = s.find("\"fingerprint\":\"").unwrap() + 20;
+                let mut b = s.into_bytes();
+                b[i] = if b[i] == b'0' { b'1' } else { b'0' };
+                b
+            },
+            "checksum does not match",
+        ),
+        (
+            "seed edited",
+            edit_part(&docs.part1, false, |v| v["seed"] = 2.into()),
+            "checksum does not match",
+        ),
+        (
+            "NaN accumulator",
+            edit_part(&docs.part1, true, |v| set_floats(v, "mean", |_| f64::NAN)),
+            "p1.json",
+        ),
+        (
+            "infinite accumulator",
+            edit_part(&docs.part1, true, |v| {
+                set_floats(v, "mean", |_| f64::INFINITY)
+            }),
+            "p1.json",
+        ),
+        (
+            "negative sums",
+            edit_part(&docs.part1, true, |v| set_floats(v, "m2", |_| -1.0)),
+            "p1.json",
+        ),
+        (
+            "replicate count edited",
+            edit_part(&docs.part1, true, |v| {
+                v["completed"][0]["models"][0]["replicates"] = 99.into()
+            }),
+            "p1.json",
+        ),
+        (
+            "base64 damaged",
+            edit_part(&docs.part1, true, |v| {
+                v["completed"][0]["models"][0]["floats"][0]["data"] = "@@@@".into()
+            }),
+            "p1.json",
+        ),
+        (
+            "block index outside",
+            edit_part(&docs.part1, true, |v| v["completed"][0]["block"] = 7.into()),
+            "p1.json",
+        ),
+        (
+            "scenario text edited",
+            edit_part(&docs.part1, true, |v| {
+                v["scenario_text"] = "name = 1".into()
+            }),
+            "p1.json",
+        ),
+        (
+            "unknown field added",
+            edit_part(&docs.part1, false, |v| v["extra"] = 1.into()),
+            "the file was edited",
+        ),
+    ];
+    for (name, bytes, needle) in part_cases {
+        t.add(
+            g,
+            format!("merge: part {name}"),
+            &[("p1.json", &bytes), ("p2.json", &docs.part2)],
+            &["merge", "p1.json", "p2.json", "--out", "m.json"],
+            needle,
+        );
+    }
+    t.add(
+        g,
+        "merge: a missing part",
+        &[("p1.json", &docs.part1)],
+        &["merge", "p1.json", "--out", "m.json"],
+        "merge",
+    );
+    t.add(
+        g,
+        "merge: a part twice",
+        &[("p1.json", &docs.part1)],
+        &["merge", "p1.json", "p1.json", "--out", "m.json"],
+        "merge",
+    );
+    t.add(
+        g,
+        "merge: a checkpoint",
+        &[("p1.json", &docs.part1), ("ck.json", &docs.checkpoint)],
+        &["merge", "p1.json", "ck.json", "--out", "m.json"],
+        "is a checkpoint",
+    );
+    t.add(
+        g,
+        "merge: a result",
+        &[("p1.json", &docs.part1), ("r.json", &docs.result)],
+        &["merge", "p1.json", "r.json", "--out", "m.json"],
+        "r.json",
+    );
+    t.add(
+        g,
+        "merge: a part of 5 GB",
+        &[("p1.json", &docs.part1)],
+        &["merge", "p1.json", "big.json", "--out", "m.json"],
+        "larger than any",
+    )
+    .extra(Extra::Sparse("big.json", 5 << 30));
+    t.add(
+        g,
+        "merge: /dev/zero",
+        &[("p1.json", &docs.part1)],
+        &["merge", "p1.json", "/dev/zero", "--out", "m.json"],
+        "binary data",
+    );
+    // 20 MB of a JSON array: refused from its first byte.
+    let junk = format!("[{}1]", "1.5,".repeat(5_000_000)).into_bytes();
+    t.add(
+        g,
+        "merge: 20 MB of junk",
+        &[("p1.json", &docs.part1), ("junk.json", &junk)],
+        &["merge", "p1.json", "junk.json", "--out", "m.json"],
+        "a JSON object",
+    );
+    t.add(
+        g,
+        "check: 20 MB of junk",
+        &[("r.json", &docs.result), ("junk.json", &junk)],
+        &["check", "junk.json", "--baseline", "r.json"],
+        "a JSON object",
+    );
+    t.add(
+        g,
+        "plot: 20 MB of junk",
+        &[("junk.json", &junk)],
+        &["plot", "junk.json", "--out", "c.svg"],
+        "a JSON object",
+    );
+    let junk_obj = format!("{{\"data\": [{}1]}}", "1.5,".repeat(5_000_000)).into_bytes();
+    t.add(
+        g,
+        "check: 20 MB object without format",
+        &[("r.json", &docs.result), ("junk.json", &junk_obj)],
+        &["check", "junk.json", "--baseline", "r.json"],
+        "no `format` field",
+    );
+    t.add(
+        g,
+        "plot: 20 MB object without format",
+        &[("junk.json", &junk_obj)],
+        &["plot", "junk.json", "--out", "c.svg"],
+        "no `format` field",
+    );
+    // Result documents for check and plot.
+    let result_cases: Vec<(&str, Vec<u8>, &str)> = vec![
+        ("not JSON", b"{ nope".to_vec(), "invalid JSON"),
+        ("a part", docs.part1.clone(), "merge shard parts"),
+        (
+            "wrong format",
+            edit_json(&docs.result, |v| v["format"] = "csv".into()),
+            "format `csv`",
+        ),
+        (
+            "no format",
+            edit_json(&docs.result, |v| {
+                v.as_object_mut().unwrap().remove("format");
+            }),
+            "no `format` field",
+        ),
+        (
+            "negative standard error",
+            edit_json(&docs.result, |v| {
+                v["points"][0]["stderr"]["variance"] = (-0.5).into()
+            }),
+            "cannot be negative",
+        ),
+        (
+            "points of a string",
+            edit_json(&docs.result, |v| v["points"] = "many".into()),
+            "r.json",
+        ),
+        (
+            "no points",
+            edit_json(&docs.result, |v| {
+                v.as_object_mut().unwrap().remove("points");
+            }),
+            "points",
+        ),
+    ];
+    for (name, bytes, needle) in &result_cases {
+        t.add(
+            g,
+            format!("check: result {name}"),
+            &[("r.json", bytes), ("b.json", &docs.result)],
+            &["check", "r.json", "--baseline", "b.json"],
+            needle,
+        );
+        t.add(
+            g,
+            format!("check: baseline {name}"),
+            &[("r.json", &docs.result), ("b.json", bytes)],
+            &["check", "r.json", "--baseline", "b.json"],
+            if *needle == "r.json" {
+                "b.json"
+            } else {
+                needle
+            },
+        );
+        t.add(
+            g,
+            format!("plot: result {name}"),
+            &[("r.json", bytes)],
+            &["plot", "r.json", "--out", "c.svg"],
+            if *name == "negative standard error" {
+                "r.json"
+            } else {
+                needle
+            },
+        );
+    }
+    t.add(
+        g,
+        "plot --selection without a selection",
+        &[("r.json", &docs.result)],
+        &["plot", "r.json", "--out", "c.svg", "--selection", "h.svg"],
+        "no `selection` section",
+    );
+    // Checkpoints: the run refuses and leaves the checkpoint as it was.
+    let ck_cases: Vec<(&str, Vec<u8>, &str)> = vec![
+        ("not JSON", b"garbage".to_vec(), "checkpoint"),
+        (
+            "checksum broken",
+            {
+                let mut b = docs.checkpoint.clone();
+                let i = b.len() / 2;
+                b[i] = if b[i] == b'A' { b'B' } else { b'A' };
+                b
+            },
+            "checkpoint",
+        ),
+        (
+            "NaN accumulator",
+            edit_part(&docs.checkpoint, true, |v| {
+                set_floats(v, "mean", |_| f64::NAN)
+            }),
+            "checkpoint",
+        ),
+        (
+            "negative sums",
+            edit_part(&docs.checkpoint, true, |v| set_floats(v, "m2", |_| -1.0)),
+            "checkpoint",
+        ),
+        (
+            "edited version",
+            edit_part(&docs.checkpoint, false, |v| v["version"] = "9.9.9".into()),
+            "written by lossprism 9.9.9",
+        ),
+        ("a finished part", docs.part1.clone(), "not a checkpoint"),
+        (
+            "of another seed",
+            docs.checkpoint.clone(),
+            "another scenario/seed",
+        ),
+    ];
+    for (name, bytes, needle) in ck_cases {
+        let mut args = vec![
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--out",
+            "r.json",
+            "-q",
+        ];
+        if name == "of another seed" {
+            args.extend(["--seed", "9"]);
+        }
+        t.add(
+            g,
+            format!("resume: checkpoint {name}"),
+            &[("s.toml", BASE.as_bytes()), ("ck.json", &bytes)],
+            &args,
+            needle,
+        );
+    }
+    // The holdout ledger.
+    let hs = table_scenario("holdout = 0.25", TREE);
+    let good = good_csv();
+    for (name, body, needle) in [
+        ("not JSON", "nope".to_string(), "move it away"),
+        ("a JSON array", "[]".to_string(), "move it away"),
+        (
+            "wrong format",
+            "{\"format\": \"x\", \"holdouts\": []}".to_string(),
+            "not a",
+        ),
+        (
+            "no holdouts",
+            "{\"format\": \"lossprism-holdout-ledger/1\"}".to_string(),
+            "holdouts",
+        ),
+    ] {
+        t.add(
+            g,
+            format!("ledger {name}"),
+            &[
+                ("s.toml", hs.as_bytes()),
+                ("t.csv", good.as_bytes()),
+                ("s.holdout-ledger.json", body.as_bytes()),
+            ],
+            &["run", "s.toml", "--assess", "2"],
+            needle,
+        );
+    }
+    // Counts edited in a real ledger (its holdout hash matches the scenario's).
+    let real: serde_json::Value = serde_json::from_slice(&docs.ledger).unwrap();
+    for (name, count) in [
+        ("count 2^64 - 1", serde_json::json!(18446744073709551615u64)),
+        ("count -1", serde_json::json!(-1)),
+        ("count of text", serde_json::json!("many")),
+        ("count 1.5", serde_json::json!(1.5)),
+    ] {
+        let mut l = real.clone();
+        l["holdouts"][0]["assessments"] = count;
+        let body = serde_json::to_vec_pretty(&l).unwrap();
+        t.add(
+            g,
+            format!("ledger {name}"),
+            &[
+                ("s.toml", hs.as_bytes()),
+                ("t.csv", good.as_bytes()),
+                ("s.holdout-ledger.json", &body),
+            ],
+            &["run", "s.toml", "--assess", "2"],
+            "the ledger was edited or damaged",
+        );
+    }
+}
+
+const PY_MODEL: &str = r#"import sys, time
+mode = sys.argv[1]
+def out(s):
+    sys.stdout.write(s + "\n"); sys.stdout.flush()
+hello = sys.stdin.readline()
+if mode == "silent": time.sleep(30)
+if mode == "exit": sys.exit(3)
+if mode == "hello": out("hi there"); time.sleep(5)
+if mode == "version": out("ready 9")
+elif mode != "silent": out("ready 2")
+if mode == "close":
+    import os; os.close(1); time.sleep(30)
+while True:
+    head = sys.stdin.readline().split()
+    if not head: break
+    rid, m, g = head[1], int(head[7]), int(head[8])
+    while sys.stdin.readline().strip() != "end": pass
+    if mode == "badid": out("ok 999"); continue
+    if mode == "log": out("fitting now..."); continue
+    if mode == "error": out("error " + rid + " singular matrix"); continue
+    if mode == "crash": sys.stderr.write("Traceback: boom\n"); sys.exit(1)
+    if mode == "stderr":
+        sys.stderr.write("x" * 20000000); sys.stderr.flush(); sys.exit(1)
+    out("ok " + rid)
+    for _ in range(g):
+        if mode == "text": out("pred " + " ".join(["oops"] * m))
+        elif mode == "count": out("pred " + " ".join(["1.0"] * (m - 1)))
+        elif mode == "nan": out("pred " + " ".join(["nan"] * m))
+        elif mode == "endless":
+            while True: sys.stdout.write("1.0 " * 100000)
+        elif mode == "noprefix": out(" ".join(["1.0"] * m))
+        else: out("pred " + " ".join(["1.0"] * m))
+"#;
+
+fn external_cases(t: &mut Table) {
+    let g = "external";
+    let scenario = |mode: &str| {
+        sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            &format!(
+                "family = \"external\"\ncommand = [\"python3\", \"m.py\", \"{mode}\"]\nknob = \"k\"\ngrid = [1, 2]\ntimeout_seconds = 3"
+            ),
+        )
+    };
+    for (mode, needle) in [
+        ("silent", "did not answer within 3 s"),
+        ("exit", "it exited"),
+        ("hello", "instead of `ready 2`"),
+        ("version", "protocol version 9"),
+        ("close", "closed its standard output"),
+        ("badid", "wrong request id"),
+        ("log", "write logs to standard error"),
+        ("error", "singular matrix"),
+        ("crash", "Traceback: boom"),
+        ("stderr", "it exited"),
+        ("text", "where prediction 1 of 10"),
+        ("count", "sent 9 predictions"),
+        ("nan", "\"nan\""),
+        ("endless", "longer than"),
+        ("noprefix", "`pred ...`"),
+    ] {
+        let s = scenario(mode);
+        t.add(
+            g,
+            format!("process: {mode}"),
+            &[("s.toml", s.as_bytes()), ("m.py", PY_MODEL.as_bytes())],
+            &["run", "s.toml", "--out", "r.json", "-q", "--threads", "1"],
+            needle,
+        )
+        .python();
+    }
+    let missing = sc(
+        "family = \"tree\"\ngrid = [1, 2]",
+        "family = \"external\"\ncommand = [\"./no-such-program\"]\nknob = \"k\"\ngrid = [1, 2]",
+    );
+    t.add(
+        g,
+        "process: program missing",
+        &[("s.toml", missing.as_bytes())],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "cannot start",
+    );
+    let empty = sc(
+        "family = \"tree\"\ngrid = [1, 2]",
+        "family = \"external\"\ncommand = []\nknob = \"k\"\ngrid = [1, 2]",
+    );
+    t.add(
+        g,
+        "process: empty command",
+        &[("s.toml", empty.as_bytes())],
+        &["validate", "s.toml"],
+        "must name a program",
+    );
+}
+
+// ---------------------------------------------------------------------------------------------
+// Running the table
+// ---------------------------------------------------------------------------------------------
+
+/// Every entry of a folder (recursively): kind and bytes (files), or link target.
+fn snapshot(dir: &Path) -> BTreeMap<PathBuf, String> {
+    let mut out = BTreeMap::new();
+    fn walk(root: &Path, d: &Path, out: &mut BTreeMap<PathBuf, String>) {
+        let mut entries: Vec<_> = fs::read_dir(d).unwrap().map(|e| e.unwrap()).collect();
+        entries.sort_by_key(|e| e.file_name());
+        for e in entries {
+            let p = e.path();
+            let rel = p.strip_prefix(root).unwrap().to_path_buf();
+            let ft = fs::symlink_metadata(&p).unwrap().file_type();
+            if ft.is_symlink() {
+                out.insert(
+                    rel,
+                    format!("link -> {}", fs::read_link(&p).unwrap().display()),
+                );
+            } else if ft.is_dir() {
+                out.insert(rel, "dir".into());
+                walk(root, &p, out);
+            } else if ft.is_file() {
+                let meta = fs::metadata(&p).unwrap();
+                let digest = if meta.len() > (64 << 20) {
+                    // Sparse fixtures: size and modification time stand for the bytes.
+                    format!("{} bytes, modified {:?}", meta.len(), meta.modified().ok())
+                } else {
+                    let b = fs::read(&p).unwrap();
+                    format!(
+                        "{} bytes, fnv {:016x}",
+                        b.len(),
+                        lossprism::codec::fnv1a64(&b)
+                    )
+                };
+                out.insert(rel, format!("file {digest}"));
+            } else {
+                out.insert(rel, format!("special {ft:?}"));
+            }
+        }
+    }
+    walk(dir, dir, &mut out);
+    out
+}
+
+/// What a case did.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Verdict {
+    Clean,
+    WrongCode,
+    WrongMessage,
+    Damaged,
+    Hang,
+    Panic,
+    Skipped,
+}
+
+fn python_ok() -> bool {
+    Command::new("python3")
+        .arg("-c")
+        .arg("print(1)")
+        .output()
+        .map(|o| o.status.success())
+        .unwrap_or(false)
+}
+
+fn run_case(c: &Case, have_python: bool) -> (Verdict, String) {
+    if c.python && !have_python {
+        return (Verdict::Skipped, "python3 is not available".into());
+    }
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    for (name, bytes) in &c.files {
+        fs::write(dir.join(name), bytes).unwrap();
+    }
+    match &c.extra {
+        Extra::None => {}
+        Extra::Dir(n) => fs::create_dir(dir.join(n)).unwrap(),
+        Extra::Sparse(n, len) => fs::File::create(dir.join(n))
+            .unwrap()
+            .set_len(*len)
+            .unwrap(),
+        Extra::Link(n, target) => std::os::unix::fs::symlink(target, dir.join(n)).unwrap(),
+        Extra::Fifo(n) => {
+            let made = Command::new("mkfifo")
+                .arg(dir.join(n))
+                .status()
+                .map(|s| s.success())
+                .unwrap_or(false);
+            if !made {
+                return (Verdict::Skipped, "mkfifo failed".into());
+            }
+        }
+    }
+    let before = snapshot(dir);
+    let mut child = Command::new(bin())
+        .args(&c.args)
+        .current_dir(dir)
+        .env("NO_COLOR", "1")
+        .stdin(Stdio::null())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Drain both pipes on threads so a chatty child cannot block.
+    let mut so = child.stdout.take().unwrap();
+    let mut se = child.stderr.take().unwrap();
+    let out_t = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        let _ = so.read_to_end(&mut v);
+        v
+    });
+    let err_t = std::thread::spawn(move || {
+        let mut v = Vec::new();
+        let _ = se.read_to_end(&mut v);
+        v
+    });
+    let start = Instant::now();
+    let status = loop {
+        if let Some(st) = child.try_wait().unwrap() {
+            break Some(st);
+        }
+        if start.elapsed() > HANG {
+            let _ = child.kill();
+            let _ = child.wait();
+            break None;
+        }
+        std::thread::sleep(Duration::from_millis(5));
+    };
+    let stdout = text(&out_t.join().unwrap());
+    let stderr = text(&err_t.join().unwrap());
+    let after = snapshot(dir);
+    let Some(status) = status else {
+        return (Verdict::Hang, format!("still running after {HANG:?}"));
+    };
+    let all = format!("{stdout}{stderr}");
+    if all.contains("panicked") || all.contains("RUST_BACKTRACE") {
+        return (Verdict::Panic, all);
+    }
+    if before != after {
+        return (
+            Verdict::Damaged,
+            format!("folder before {before:?}\nafter {after:?}\nstderr: {stderr}"),
+        );
+    }
+    let code = status.code().unwrap_or(-1);
+    if code != c.code {
+        return (Verdict::WrongCode, format!("exit {code}; stderr: {stderr}"));
+    }
+    for n in &c.needles {
+        if !stderr.contains(n.as_str()) {
+            return (
+                Verdict::WrongMessage,
+                format!(
+                    "`{n}` not in: {}",
+                    stderr.chars().take(1500).collect::<String>()
+                ),
+            );
+        }
+    }
+    // A refusal is short: the first line of standard error says it (clap adds usage lines).
+    let first = stderr.lines().next().unwrap_or("");
+    if first.len() > 3000 {
+        return (
+            Verdict::WrongMessage,
+            format!("a message of {} bytes", first.len()),
+        );
+    }
+    (Verdict::Clean, first.to_string())
+}
+
+fn all_cases(docs: &Docs) -> Vec<Case> {
+    let mut t = Table(Vec::new());
+    scenario_cases(&mut t);
+    formula_cases(&mut t);
+    csv_cases(&mut t);
+    cli_cases(&mut t, docs);
+    output_clash_cases(&mut t, docs);
+    document_cases(&mut t, docs);
+    external_cases(&mut t);
+    t.0
+}
+
+#[test]
+fn hostile_inputs_are_refused_cleanly_and_change_nothing() {
+    let docs = make_docs();
+    let cases = all_cases(&docs);
+    let have_python = python_ok();
+    if !have_python {
+        println!("note: python3 is not available; the external-process cases are skipped");
+    }
+    let next = AtomicUsize::new(0);
+    let results: Mutex<Vec<(usize, Verdict, String)>> = Mutex::new(Vec::new());
+    std::thread::scope(|s| {
+        for _ in 0..3 {
+            s.spawn(|| loop {
+                let i = next.fetch_add(1, Ordering::SeqCst);
+                let Some(c) = cases.get(i) else { break };
+                let (v, msg) = run_case(c, have_python);
+                results.lock().unwrap().push((i, v, msg));
+            });
+        }
+    });
+    let mut results = results.into_inner().unwrap();
+    results.sort_by_key(|r| r.0);
+    let count = |v: Verdict| results.iter().filter(|r| r.1 == v).count();
+    let mut by_group: BTreeMap<&str, (usize, usize)> = BTreeMap::new();
+    for (i, v, _) in &results {
+        let e = by_group.entry(cases[*i].group).or_default();
+        e.0 += 1;
+        if *v == Verdict::Clean {
+            e.1 += 1;
+        }
+    }
+    for (i, v, msg) in &results {
+        if *v != Verdict::Clean {
+            println!("[{:?}] {} / {}: {msg}", v, cases[*i].group, cases[*i].name);
+        }
+    }
+    for (g, (n, clean)) in &by_group {
+        println!("group {g}: {n} cases, {clean} clean refusals");
+    }
+    println!(
+        "hostile suite: {} cases, {} clean refusals, {} data damaged, {} hangs, {} exit 0 with a \
+         broken result, {} panics, {} wrong exit codes, {} unclear messages, {} skipped",
+        results.len(),
+        count(Verdict::Clean),
+        count(Verdict::Damaged),
+        count(Verdict::Hang),
+        results
+            .iter()
+            .filter(|r| r.1 == Verdict::WrongCode && r.2.starts_with("exit 0"))
+            .count(),
+        count(Verdict::Panic),
+        count(Verdict::WrongCode),
+        count(Verdict::WrongMessage),
+        count(Verdict::Skipped),
+    );
+    assert!(results.len() >= 150, "only {} cases", results.len());
+    let bad: Vec<_> = results
+        .iter()
+        .filter(|r| !matches!(r.1, Verdict::Clean | Verdict::Skipped))
+        .map(|r| format!("{} / {}", cases[r.0].group, cases[r.0].name))
+        .collect();
+    assert!(bad.is_empty(), "{} cases failed: {bad:#?}", bad.len());
+}
+
+// ---------------------------------------------------------------------------------------------
+// Data damage: devices, FIFOs, descriptor links
+// ---------------------------------------------------------------------------------------------
+
+/// Makes a node with `mknod`; false (with a note) where that is not permitted.
+fn mknod_null(path: &Path) -> bool {
+    let ok = Command::new("mknod")
+        .arg(path)
+        .args(["c", "1", "3"])
+        .status()
+        .map(|s| s.success())
+        .unwrap_or(false);
+    if !ok {
+        println!("note: mknod is not permitted here (not root?); the device cases are skipped");
+    }
+    ok
+}
+
+fn is_null_device(path: &Path) -> bool {
+    use std::os::unix::fs::{FileTypeExt, MetadataExt};
+    let m = fs::symlink_metadata(path).unwrap();
+    m.file_type().is_char_device() && m.rdev() == fs::metadata("/dev/null").unwrap().rdev()
+}
+
+/// A folder with BASE, two parts, a result and a table.
+fn workspace(docs: &Docs) -> tempfile::TempDir {
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("s.toml"), BASE).unwrap();
+    fs::write(d.path().join("p1.json"), &docs.part1).unwrap();
+    fs::write(d.path().join("p2.json"), &docs.part2).unwrap();
+    fs::write(d.path().join("r.json"), &docs.result).unwrap();
+    fs::write(d.path().join("t.csv"), good_csv()).unwrap();
+    d
+}
+
+fn status(dir: &Path, args: &[&str]) -> (i32, String, String) {
+    let out = Command::new(bin())
+        .args(args)
+        .current_dir(dir)
+        .stdin(Stdio::null())
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        text(&out.stdout),
+        text(&out.stderr),
+    )
+}
+
+#[test]
+fn a_private_null_device_given_as_any_output_stays_a_device() {
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    let dev = dir.join("null-device");
+    if !mknod_null(&dev) {
+        return;
+    }
+    for args in [
+        &["run", "s.toml", "--out", "null-device", "-q"][..],
+        &["run", "s.toml", "--csv", "null-device", "-q"],
+        &[
+            "run",
+            "s.toml",
+            "--out",
+            "r2.json",
+            "--plot",
+            "null-device",
+            "-q",
+        ],
+        &[
+            "run",
+            "s.toml",
+            "--shard",
+            "1/2",
+            "--out",
+            "null-device",
+            "-q",
+        ],
+        &["merge", "p1.json", "p2.json", "--out", "null-device", "-q"],
+        &["plot", "r.json", "--out", "null-device"],
+        &["twin", "t.csv", "--target", "y", "--out", "null-device"],
+    ] {
+        let (code, _, err) = status(dir, args);
+        assert_eq!(code, 0, "{args:?}: {err}");
+        assert!(is_null_device(&dev), "{args:?} replaced the device");
+    }
+    // The checkpoint is rewritten during the run: a device there is refused, and kept.
+    let (code, _, err) = status(
+        dir,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "null-device",
+            "--out",
+            "r3.json",
+        ],
+    );
+    assert_eq!(code, 2, "{err}");
+    assert!(is_null_device(&dev));
+}
+
+#[test]
+fn a_fifo_given_as_the_output_receives_the_document_and_stays_a_fifo() {
+    use std::os::unix::fs::FileTypeExt;
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    let fifo = dir.join("pipe");
+    let made = Command::new("mkfifo")
+        .arg(&fifo)
+        .status()
+        .map(|s| s.success())
+        .unwrap_or(false);
+    if !made {
+        println!("note: mkfifo failed; the FIFO case is skipped");
+        return;
+    }
+    for args in [
+        &["run", "s.toml", "--out", "pipe", "-q"][..],
+        &["merge", "p1.json", "p2.json", "--out", "pipe", "-q"],
+    ] {
+        let reader = {
+            let fifo = fifo.clone();
+            std::thread::spawn(move || fs::read(fifo).unwrap())
+        };
+        let (code, _, err) = status(dir, args);
+        assert_eq!(code, 0, "{args:?}: {err}");
+        let got = reader.join().unwrap();
+        assert!(
+            got.starts_with(b"{") && text(&got).contains("lossprism-result"),
+            "{args:?}: the reader got {} bytes",
+            got.len()
+        );
+        assert!(fs::symlink_metadata(&fifo).unwrap().file_type().is_fifo());
+    }
+    // Without a reader: refused at once (no hang), the FIFO kept.
+    let start = Instant::now();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "pipe", "-q"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(start.elapsed() < Duration::from_secs(30));
+    assert!(fs::symlink_metadata(&fifo).unwrap().file_type().is_fifo());
+}
+
+#[test]
+fn a_link_to_standard_output_is_written_through_and_kept() {
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    std::os::unix::fs::symlink("/proc/self/fd/1", dir.join("stdout-link")).unwrap();
+    let (code, out, err) = status(dir, &["run", "s.toml", "--out", "stdout-link", "-q"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(out.contains("\"format\": \"lossprism-result/1\""), "{out}");
+    assert_eq!(
+        fs::read_link(dir.join("stdout-link")).unwrap(),
+        PathBuf::from("/proc/self/fd/1")
+    );
+}
+
+#[test]
+fn outputs_naming_inputs_or_each_other_destroy_nothing() {
+    // Each case of the report's data-damage list, with the bytes of every file compared.
+    let docs = make_docs();
+    let cases: &[(&[&str], &[&str])] = &[
+        (
+            &["twin", "t.csv", "--target", "y", "--out", "t.csv"],
+            &["--out", "t.csv"],
+        ),
+        (&["run", "s.toml", "--out", "s.toml"], &["--out", "s.toml"]),
+        (&["run", "s.toml", "--csv", "s.toml"], &["--csv", "s.toml"]),
+        (
+            &["merge", "p1.json", "p2.json", "--out", "p1.json"],
+            &["--out", "p1.json"],
+        ),
+        (&["plot", "r.json", "--out", "r.json"], &["--out", "r.json"]),
+        (
+            &["run", "s.toml", "--out", "r.json", "--csv", "d"],
+            &["--csv"],
+        ),
+        (
+            &["run", "s.toml", "--out", "same.out", "--csv", "same.out"],
+            &["--out", "--csv"],
+        ),
+        (
+            &["run", "s.toml", "--plot", "r.json", "--out", "r.json"],
+            &["--plot", "--out"],
+        ),
+    ];
+    for (args, needles) in cases {
+        let d = workspace(&docs);
+        let dir = d.path();
+        fs::create_dir(dir.join("d")).unwrap();
+        let before = snapshot(dir);
+        let (code, _, err) = status(dir, args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        for n in *needles {
+            assert!(err.contains(n), "{args:?}: `{n}` not in {err}");
+        }
+        assert_eq!(before, snapshot(dir), "{args:?} changed the folder");
+    }
+    // The checkpoint as the output: refused, and the rerun still resumes from it.
+    let d = workspace(&docs);
+    let dir = d.path();
+    fs::write(dir.join("ck.json"), &docs.checkpoint).unwrap();
+    let (code, _, err) = status(
+        dir,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--out",
+            "ck.json",
+        ],
+    );
+    assert_eq!(code, 2, "{err}");
+    assert_eq!(fs::read(dir.join("ck.json")).unwrap(), docs.checkpoint);
+    let (code, _, err) = status(
+        dir,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--out",
+            "r2.json",
+            "-q",
+        ],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(
+        fs::read(dir.join("r2.json")).unwrap(),
+        docs.result,
+        "the resumed run differs"
+    );
+}
+
+#[test]
+fn several_outputs_are_replaced_together() {
+    // With old versions of every output in place, a successful run replaces them all.
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    fs::write(dir.join("c.csv"), "old").unwrap();
+    fs::write(dir.join("r.json"), "old").unwrap();
+    let (code, _, err) = status(
+        dir,
+        &["run", "s.toml", "--out", "r.json", "--csv", "c.csv", "-q"],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(fs::read(dir.join("r.json")).unwrap(), docs.result);
+    assert!(
+        fs::read_to_string(dir.join("c.csv"))
+            .unwrap()
+            .starts_with("value")
+            || fs::read_to_string(dir.join("c.csv")).unwrap().len() > 10
+    );
+    // No staging files are left behind.
+    let names: Vec<String> = fs::read_dir(dir)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert!(names.iter().all(|n| !n.starts_with('.')), "{names:?}");
+}
+
+#[test]
+fn a_constant_input_fits_with_poly_or_says_why() {
+    // A constant table column: the polynomial drops it (rank deficiency), the run succeeds.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    let mut csv = String::from("a,c,y\n");
+    for i in 0..40 {
+        csv.push_str(&format!("{},5,{}\n", i as f64 / 40.0, (i * 7 % 11) as f64));
+    }
+    fs::write(dir.join("t.csv"), csv).unwrap();
+    fs::write(
+        dir.join("s.toml"),
+        table_scenario("", "family = \"poly\"\ngrid = [1, 2]"),
+    )
+    .unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r.json", "-q"]);
+    assert_eq!(code, 0, "{err}");
+    // The only feature constant: still a fit (the intercept), never an unexplained failure.
+    fs::write(
+        dir.join("s.toml"),
+        table_scenario("features = [\"c\"]", "family = \"poly\"\ngrid = [1, 2]"),
+    )
+    .unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r2.json", "-q"]);
+    assert!(code == 0 || err.contains("constant"), "{code}: {err}");
+}
+
+#[test]
+fn two_replicates_say_what_to_change_for_standard_errors() {
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("s.toml"), sc("replicates = 4", "replicates = 2")).unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "a.json"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("no standard errors") && err.contains("`replicates` >= 3"),
+        "{err}"
+    );
+    let (code, _, err) = status(
+        dir,
+        &["run", "s.toml", "--out", "b.json", "--seed", "5", "-q"],
+    );
+    assert_eq!(code, 0, "{err}");
+    let (code, _, err) = status(dir, &["check", "a.json", "--baseline", "b.json"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("at least 3 replicates"), "{err}");
+    // Three replicates in three blocks: standard errors, and no note.
+    fs::write(
+        dir.join("s.toml"),
+        sc("replicates = 4", "replicates = 3").replace("blocks = 2", "blocks = 3"),
+    )
+    .unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "c.json"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(!err.contains("no standard errors"), "{err}");
+}
+
+#[test]
+fn validate_is_linear_in_the_inputs_and_prints_the_memory_estimate() {
+    // 100 000 inputs once took 20 s (a quadratic duplicate-name scan); now about a second.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    let mut wide = String::from(BASE.split("[[data.inputs]]").next().unwrap());
+    for i in 0..100_000 {
+        wide.push_str(&format!(
+            "[[data.inputs]]\nname = \"x{i}\"\nuniform = [0.0, 1.0]\n"
+        ));
+    }
+    wide.push_str(
+        "[data.truth]\nformula = \"x0 + x99999\"\n[data.noise]\nsd = 1.0\n[model]\nfamily = \
+         \"tree\"\ngrid = [1, 2]\n",
+    );
+    fs::write(dir.join("s.toml"), wide).unwrap();
+    let start = Instant::now();
+    let (code, out, err) = status(dir, &["validate", "s.toml"]);
+    let secs = start.elapsed().as_secs_f64();
+    assert_eq!(code, 0, "{err}");
+    assert!(secs < 10.0, "validate took {secs:.1} s");
+    assert!(out.contains("memory: about"), "{out}");
+    assert!(out.contains("largest term"), "{out}");
+}
