@@ -112,9 +112,12 @@ pub struct PlotArgs {
     /// Write the selection histogram here (needs the result's `selection` section).
     #[arg(long, value_name = "FILE.svg")]
     pub selection: Option<PathBuf>,
-    /// Which 0-1 loss decomposition the curve shows.
+    /// Which 0-1 loss decomposition the curve shows (one per picture).
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
     pub decomposition: DecompositionView,
+    /// The y axis of the curve picture.
+    #[arg(long, value_enum, default_value_t = YScaleArg::Auto)]
+    pub y_scale: YScaleArg,
 }
 
 /// Options of `run`.
@@ -153,6 +156,12 @@ pub struct RunArgs {
     /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
+    /// The y axis of the curve picture (--plot and the report).
+    #[arg(long, value_enum, default_value_t = YScaleArg::Auto)]
+    pub y_scale: YScaleArg,
+    /// Draw the selection audit's histogram (SVG; scenarios with `[audit]`).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot_selection: Option<PathBuf>,
     /// Draw the truth and mean predictions along one input (SVG; squared loss).
     #[arg(long, value_name = "FILE.svg")]
     pub plot_points: Option<PathBuf>,
@@ -166,7 +175,7 @@ pub struct RunArgs {
     /// Compute only shard I of N (1-based, as `sbatch --array=1-N`) and write its part document
     /// to `--out`; combine the parts with `lossprism merge`.
     #[arg(long, value_name = "I/N", requires = "out",
-          conflicts_with_all = ["csv", "points", "plot", "plot_points", "report"],
+          conflicts_with_all = ["csv", "points", "plot", "plot_points", "plot_selection", "report"],
           value_parser = crate::shard::ShardSpec::parse)]
     pub shard: Option<crate::shard::ShardSpec>,
     /// Save the finished blocks here (atomically, after every block) and resume from it when it
@@ -235,6 +244,12 @@ pub struct MergeArgs {
     /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
+    /// The y axis of the curve picture (--plot and the report).
+    #[arg(long, value_enum, default_value_t = YScaleArg::Auto)]
+    pub y_scale: YScaleArg,
+    /// Draw the selection audit's histogram (SVG; scenarios with `[audit]`).
+    #[arg(long, value_name = "FILE.svg")]
+    pub plot_selection: Option<PathBuf>,
     /// Draw the truth and mean predictions along one input (SVG; squared loss).
     #[arg(long, value_name = "FILE.svg")]
     pub plot_points: Option<PathBuf>,
@@ -246,6 +261,29 @@ pub struct MergeArgs {
     /// the merge's own.
     #[arg(long, value_name = "FILE.html")]
     pub report: Option<PathBuf>,
+}
+
+/// The y axis of the curve picture.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum, Default)]
+pub enum YScaleArg {
+    /// Clip only when one value would squash the rest (above 6× the median expected loss).
+    #[default]
+    Auto,
+    /// Every value on a linear axis.
+    Linear,
+    /// Stop the axis at 3× the median expected loss; larger values sit on the top edge, marked
+    /// with their value.
+    Clip,
+}
+
+impl From<YScaleArg> for crate::report::plot::YScale {
+    fn from(v: YScaleArg) -> Self {
+        match v {
+            YScaleArg::Auto => Self::Auto,
+            YScaleArg::Linear => Self::Linear,
+            YScaleArg::Clip => Self::Clip,
+        }
+    }
 }
 
 /// Table view for 0-1 loss.

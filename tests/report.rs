@@ -198,6 +198,57 @@ fn curve_has_four_series_bands_and_marks_the_best() {
     assert!(!t.iter().any(|s| s.contains("logarithmic")));
 }
 
+/// One huge value (an interpolation peak, say) is clipped by default and marked with its value;
+/// `linear` shows it on the axis; `clip` clips even a modest outlier; `all` is refused.
+#[test]
+fn y_axis_clips_a_peak_and_marks_it() {
+    use lossprism::report::plot::YScale;
+    let (_, _, mut doc) = run(TINY);
+    let last = doc.points.len() - 1;
+    for (k, v) in doc.points[last].terms.iter_mut() {
+        if k == "expected_loss" || k == "variance" {
+            *v += 40.0;
+        }
+    }
+    let auto = plot::curve_svg(&doc, View::Domingos).unwrap();
+    let t = texts(&auto);
+    let peak = fmt_peak(doc.points[last].expected_loss());
+    assert!(
+        t.iter().any(|s| s == &format!("▲ {peak}")),
+        "no clip mark for {peak}: {t:?}"
+    );
+    assert!(t.join(" ").contains("--y-scale linear shows them all"));
+    // No tick near the peak on the clipped axis; the linear axis reaches it.
+    let top_tick = |svg: &str| {
+        texts(svg)
+            .iter()
+            .filter_map(|s| s.parse::<f64>().ok())
+            .fold(f64::MIN, f64::max)
+    };
+    assert!(
+        top_tick(&auto) < 10.0,
+        "clipped axis reaches {}",
+        top_tick(&auto)
+    );
+    let linear = plot::curve_svg_scaled(&doc, View::Domingos, YScale::Linear).unwrap();
+    assert!(!texts(&linear).iter().any(|s| s.starts_with('▲')));
+    assert!(
+        top_tick(&linear) >= 40.0,
+        "linear axis stops at {}",
+        top_tick(&linear)
+    );
+    // The unmodified run has no outlier: auto leaves it alone.
+    let (_, _, plain) = run(TINY);
+    let svg = plot::curve_svg(&plain, View::Domingos).unwrap();
+    assert!(!texts(&svg).iter().any(|s| s.starts_with('▲')));
+    assert!(plot::curve_svg(&plain, View::All).is_err());
+}
+
+/// The value as the clip mark prints it.
+fn fmt_peak(v: f64) -> String {
+    lossprism::fmt::fmt_num(v)
+}
+
 #[test]
 fn log_grid_gets_a_log_axis() {
     let (_, _, doc) = run(TINY_LOG);
@@ -497,6 +548,85 @@ fn cli_writes_pictures_and_report_without_progress_bar() {
         .unwrap();
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("selection"));
+}
+
+/// `run --plot-selection` draws the same histogram as `plot --selection` from the saved result,
+/// and is refused (exit 2, nothing written) for a scenario without `[audit]`; `--y-scale` is
+/// accepted by `run` and `plot` alike.
+#[test]
+fn cli_plot_selection_matches_plot_and_needs_an_audit() {
+    let dir = tempfile::tempdir().unwrap();
+    let audited = format!("{TINY}\n[audit]\nfolds = 4\nrule = \"min\"\n");
+    std::fs::write(dir.path().join("a.toml"), audited).unwrap();
+    std::fs::write(dir.path().join("plain.toml"), TINY).unwrap();
+    let go = |args: &[&str]| {
+        Command::new(bin())
+            .args(args)
+            .current_dir(dir.path())
+            .output()
+            .unwrap()
+    };
+    let out = go(&[
+        "run",
+        "a.toml",
+        "--out",
+        "r.json",
+        "--plot-selection",
+        "sel.svg",
+        "--plot",
+        "c.svg",
+        "--y-scale",
+        "linear",
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let out = go(&[
+        "plot",
+        "r.json",
+        "--out",
+        "c2.svg",
+        "--selection",
+        "sel2.svg",
+        "--y-scale",
+        "linear",
+    ]);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    for (a, b) in [("sel.svg", "sel2.svg"), ("c.svg", "c2.svg")] {
+        assert_eq!(
+            std::fs::read(dir.path().join(a)).unwrap(),
+            std::fs::read(dir.path().join(b)).unwrap(),
+            "{a} differs from {b}"
+        );
+    }
+    let out = go(&[
+        "run",
+        "plain.toml",
+        "--out",
+        "p.json",
+        "--plot-selection",
+        "none.svg",
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("audit"));
+    assert!(!dir.path().join("none.svg").exists());
+    assert!(!dir.path().join("p.json").exists());
+    let out = go(&[
+        "plot",
+        "r.json",
+        "--out",
+        "all.svg",
+        "--decomposition",
+        "all",
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(!dir.path().join("all.svg").exists());
 }
 
 #[test]

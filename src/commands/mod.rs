@@ -32,8 +32,10 @@ struct Outputs2<'a> {
     plot: Option<&'a Path>,
     plot_points: Option<&'a Path>,
     report: Option<&'a Path>,
+    plot_selection: Option<&'a Path>,
     input: Option<&'a str>,
     view: View,
+    y_scale: report::plot::YScale,
     quiet: bool,
     started: std::time::Instant,
     wall_label: &'static str,
@@ -41,9 +43,9 @@ struct Outputs2<'a> {
 
 impl Outputs2<'_> {
     /// Registers every output with `set` (checked at once) and returns their ids in the order
-    /// out, csv, points, plot, plot_points, report.
-    fn register(&self, set: &mut Outputs) -> Result<[Option<OutputId>; 6], Error> {
-        let mut ids = [None; 6];
+    /// out, csv, points, plot, plot_points, report, plot_selection.
+    fn register(&self, set: &mut Outputs) -> Result<[Option<OutputId>; 7], Error> {
+        let mut ids = [None; 7];
         for (i, (flag, p)) in [
             ("--out", self.out),
             ("--csv", self.csv),
@@ -51,6 +53,7 @@ impl Outputs2<'_> {
             ("--plot", self.plot),
             ("--plot-points", self.plot_points),
             ("--report", self.report),
+            ("--plot-selection", self.plot_selection),
         ]
         .into_iter()
         .enumerate()
@@ -70,6 +73,7 @@ impl Outputs2<'_> {
             self.plot,
             self.plot_points,
             self.report,
+            self.plot_selection,
         ]
         .iter()
         .any(Option::is_some)
@@ -83,6 +87,7 @@ impl Outputs2<'_> {
             self.plot,
             self.plot_points,
             self.report,
+            self.plot_selection,
         ]
         .iter()
         .any(|p| p.is_some_and(|p| p.as_os_str() == "-"))
@@ -95,16 +100,22 @@ fn emit(
     outcome: &runner::Outcome,
     o: &Outputs2<'_>,
     set: Outputs,
-    ids: [Option<OutputId>; 6],
+    ids: [Option<OutputId>; 7],
 ) -> Result<u8, Error> {
     let doc = report::build(plan, outcome);
     let several_models = !doc.models.is_empty();
+    // A picture shows one decomposition: with `all` (tables only) the report draws Domingos's.
+    let pic_view = if o.view == View::All {
+        View::Domingos
+    } else {
+        o.view
+    };
     // Render every picture before writing anything, so a refusal leaves no partial outputs.
     let curve = if o.plot.is_some() || o.report.is_some() {
         Some(if several_models {
             report::plot::families_svg(&doc)?
         } else {
-            report::plot::curve_svg(&doc.single(&doc.first_model()), o.view)?
+            report::plot::curve_svg_scaled(&doc.single(&doc.first_model()), pic_view, o.y_scale)?
         })
     } else {
         None
@@ -118,7 +129,7 @@ fn emit(
                     format!(
                         "Expected loss and its parts for {f} at the largest training size, with bands of ±2 standard errors."
                     ),
-                    report::plot::curve_svg(&doc.single(&f), o.view)?,
+                    report::plot::curve_svg_scaled(&doc.single(&f), pic_view, o.y_scale)?,
                 ));
             }
         }
@@ -145,7 +156,7 @@ fn emit(
         }
         None => None,
     };
-    let selection = match (o.report, serde_json::to_value(&doc)) {
+    let selection = match (o.report.or(o.plot_selection), serde_json::to_value(&doc)) {
         (Some(_), Ok(v)) => match report::plot::SelectionView::from_json(&v) {
             Some(sel) => Some(report::plot::selection_svg(&sel, &doc.knob)?),
             None => None,
@@ -153,7 +164,7 @@ fn emit(
         _ => None,
     };
     let mut contents: Vec<(OutputId, Vec<u8>)> = Vec::new();
-    let [out, csv, points, plot, plot_points, html] = ids;
+    let [out, csv, points, plot, plot_points, html, plot_selection] = ids;
     if let Some(id) = out {
         contents.push((id, report::to_json(&doc).into_bytes()));
     }
@@ -167,6 +178,15 @@ fn emit(
         contents.push((id, svg.clone().into_bytes()));
     }
     if let (Some(id), Some(svg)) = (plot_points, &points_svg) {
+        contents.push((id, svg.clone().into_bytes()));
+    }
+    if let Some(id) = plot_selection {
+        let svg = selection.as_ref().ok_or_else(|| {
+            Error::Usage(
+                "--plot-selection needs a scenario with an [audit] section (the selection audit)"
+                    .into(),
+            )
+        })?;
         contents.push((id, svg.clone().into_bytes()));
     }
     if let Some(id) = html {
@@ -219,6 +239,8 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         report: args.report.as_deref(),
         input: args.input.as_deref(),
         view: args.decomposition.into(),
+        y_scale: args.y_scale.into(),
+        plot_selection: args.plot_selection.as_deref(),
         quiet: args.quiet,
         started,
         wall_label: "wall time",
@@ -305,7 +327,7 @@ fn run_in_blocks(
     source: &shard::ScenarioSource,
     o: Outputs2<'_>,
     set: Outputs,
-    ids: [Option<OutputId>; 6],
+    ids: [Option<OutputId>; 7],
 ) -> Result<u8, Error> {
     let job_replicates = match shard::job_blocks(plan, args.shard) {
         Ok(blocks) => blocks
@@ -427,6 +449,8 @@ pub fn merge(args: MergeArgs) -> Result<u8, Error> {
         report: args.report.as_deref(),
         input: args.input.as_deref(),
         view: args.decomposition.into(),
+        y_scale: args.y_scale.into(),
+        plot_selection: args.plot_selection.as_deref(),
         quiet: args.quiet,
         started,
         wall_label: "merge wall time",
@@ -579,9 +603,13 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
         }
     }
     let curve = match &args.family {
-        Some(f) => report::plot::curve_svg(&doc.single(f), view)?,
+        Some(f) => report::plot::curve_svg_scaled(&doc.single(f), view, args.y_scale.into())?,
         None if families.len() > 1 => report::plot::families_svg(&doc)?,
-        None => report::plot::curve_svg(&doc.single(&doc.first_model()), view)?,
+        None => report::plot::curve_svg_scaled(
+            &doc.single(&doc.first_model()),
+            view,
+            args.y_scale.into(),
+        )?,
     };
     let mut extra = Vec::new();
     if let Some(p) = &args.learning {

@@ -8,7 +8,7 @@ use plotters::prelude::*;
 use super::terminal::View;
 use super::{PointRow, ResultDoc};
 use crate::error::Error;
-use crate::fmt::fmt_value;
+use crate::fmt::{fmt_num, fmt_value};
 use crate::runner::Outcome;
 use crate::scenario::{Plan, Source};
 use ndarray::{Array1, Array2};
@@ -285,10 +285,64 @@ fn band(xs: &[f64], lo: &[f64], hi: &[f64]) -> Vec<(f64, f64)> {
 /// within one standard error of it shaded. The x axis is logarithmic for a `log` grid; the y
 /// axis always includes zero (net variance and unbiased bias² may be negative).
 pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
+    curve_svg_scaled(doc, view, YScale::Auto)
+}
+
+/// How the curve picture's y axis is scaled.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum YScale {
+    /// Clip (as [`YScale::Clip`]) only when the largest value would squash the rest: when it
+    /// (with its band) exceeds six times the median expected loss over the grid.
+    #[default]
+    Auto,
+    /// Every value on a linear axis.
+    Linear,
+    /// A linear axis up to three times the median expected loss over the grid (the median,
+    /// unlike a higher quantile, stays put when a few grid values explode); values above it are
+    /// drawn at the top edge, marked ▲ with their value.
+    Clip,
+}
+
+/// The top of the y axis under `scale`, or `None` for no clipping.
+fn clip_top(doc: &ResultDoc, scale: YScale, largest: f64) -> Option<f64> {
+    let mut el: Vec<f64> = doc
+        .points
+        .iter()
+        .map(|p| p.expected_loss())
+        .filter(|v| v.is_finite())
+        .collect();
+    if el.is_empty() {
+        return None;
+    }
+    el.sort_by(f64::total_cmp);
+    let n = el.len();
+    let median = if n % 2 == 1 {
+        el[n / 2]
+    } else {
+        0.5 * (el[n / 2 - 1] + el[n / 2])
+    };
+    if median.is_nan() || median <= 0.0 {
+        return None;
+    }
+    let top = 3.0 * median;
+    match scale {
+        YScale::Linear => None,
+        YScale::Clip => (largest > top).then_some(top),
+        YScale::Auto => (largest > 6.0 * median).then_some(top),
+    }
+}
+
+/// The curve picture with a chosen y-axis scale (see [`curve_svg`]).
+pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<String, Error> {
     if doc.points.is_empty() {
         return Err(Error::Usage("the result has no grid values to plot".into()));
     }
-    let series = curve_series(doc, view);
+    if view == View::All {
+        return Err(Error::Usage(
+            "a curve picture shows one decomposition: choose --decomposition domingos, kohavi-wolpert or james (`all` is for tables)".into(),
+        ));
+    }
+    let mut series = curve_series(doc, view);
     let log = log_axis(doc);
     let tx = |v: f64| if log { v.log10() } else { v };
     let xs: Vec<f64> = doc.points.iter().map(|p| tx(p.value)).collect();
@@ -301,7 +355,45 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             ys.push(v + 2.0 * e);
         }
     }
+    let largest = ys
+        .iter()
+        .copied()
+        .filter(|v| v.is_finite())
+        .fold(f64::MIN, f64::max);
+    let clip = clip_top(doc, scale, largest);
+    // Clipped values: drawn at the top edge, remembered with their true value for a label.
+    let mut clipped: Vec<(usize, f64)> = Vec::new();
+    if let Some(t) = clip {
+        // The floor follows the values, not their bands: a band as wide as the clipped peak
+        // would squash the picture from below just as the peak did from above.
+        let floor = series
+            .iter()
+            .flat_map(|s| s.values.iter().copied())
+            .filter(|v| v.is_finite())
+            .fold(0.0_f64, f64::min);
+        let floor = floor - 0.1 * (t - floor);
+        ys.retain(|v| *v <= t && *v >= floor);
+        ys.push(t);
+        ys.push(floor);
+        for s in &mut series {
+            for (i, v) in s.values.iter_mut().enumerate() {
+                if *v > t {
+                    if !clipped.iter().any(|c| c.0 == i) {
+                        clipped.push((i, *v));
+                    } else if let Some(c) = clipped.iter_mut().find(|c| c.0 == i) {
+                        c.1 = c.1.max(*v);
+                    }
+                    *v = t;
+                }
+            }
+        }
+    }
     let (y0, y1) = padded(ys.into_iter(), &[0.0], 0.06);
+    let y1 = match clip {
+        Some(t) => t + 0.02 * (t - y0),
+        None => y1,
+    };
+    let y_floor = clip.map(|_| y0);
     let unit = if doc.loss == "squared" {
         "loss (squared units of the response)"
     } else {
@@ -405,7 +497,17 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
                 .values
                 .iter()
                 .zip(&s.se)
-                .map(|(v, e)| v + 2.0 * e.unwrap_or(0.0))
+                .map(|(v, e)| {
+                    let h = v + 2.0 * e.unwrap_or(0.0);
+                    clip.map_or(h, |t| h.min(t))
+                })
+                .collect();
+            let lo: Vec<f64> = lo
+                .into_iter()
+                .map(|l| match (clip, y_floor) {
+                    (Some(t), Some(f)) => l.min(t).max(f),
+                    _ => l,
+                })
                 .collect();
             let poly = band(&xs, &lo, &hi);
             if poly.len() >= 3 {
@@ -441,6 +543,25 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
                 let px = chart.backend_coord(&(x, y));
                 marker_at(&root, s.look.marker, s.look.color, px)?;
             }
+        }
+        // Clipped values: a ▲ at the top edge with the largest true value there.
+        for &(i, v) in &clipped {
+            let (px, py) = chart.backend_coord(&(xs[i], y1));
+            let label = format!("▲ {}", fmt_num(v));
+            // right-aligned near the plot's right edge, so the label stays inside it
+            let right = chart.backend_coord(&(x1, y1)).0;
+            let width = 7 * label.chars().count() as i32;
+            let left = if px + 10 + width <= right {
+                px + 10
+            } else {
+                px - 10 - width
+            };
+            root.draw(&Text::new(
+                label,
+                (left, py + 8),
+                (FONT, 12).into_font().color(&RUST),
+            ))
+            .map_err(draw_err)?;
         }
         // The best value: a ring around its expected loss and a label above the plot area.
         let best_y = doc.best.expected_loss;
@@ -519,7 +640,13 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             INK,
             24,
         )? + 14;
-        let note = curve_note(doc, view);
+        let mut note = curve_note(doc, view);
+        if let Some(t) = clip {
+            note.push_str(&format!(
+                " The y axis stops at {} (three times the median expected loss): larger values sit on the top edge, marked ▲ with their value; --y-scale linear shows them all.",
+                fmt_num(t)
+            ));
+        }
         panel_text(&panel, &note, (8, y), 12, STONE, 38)?;
         root.present().map_err(draw_err)?;
     }
