@@ -120,9 +120,16 @@ pub struct RunArgs {
     /// Override the number of replicates R (at least 2).
     #[arg(long, value_name = "R")]
     pub replicates: Option<u64>,
-    /// Override the master seed.
+    /// Override the master seed: fresh training sets and fit seeds. The evaluation points and a
+    /// fixed design stay where they are (see --eval-seed), so results of different seeds
+    /// estimate the same quantities and `check` can compare them.
     #[arg(long)]
     pub seed: Option<u64>,
+    /// Override the seed of the evaluation points and of a fixed design (default: the file's
+    /// `eval_seed`, else its `seed`, else 1; --seed does not move them). Synthetic and twin
+    /// sources only: a table's evaluation points are its rows.
+    #[arg(long, value_name = "N")]
+    pub eval_seed: Option<u64>,
     /// Worker threads (0 = one per core). Results do not depend on it.
     #[arg(long, default_value_t = 0)]
     pub threads: usize,

@@ -49,6 +49,7 @@ fn run(fam: NadarayaWatson, text: &str, seed: Option<u64>) -> lossprism::report:
     let opts = PlanOptions {
         seed,
         replicates: None,
+        eval_seed: None,
     };
     harness::run_with_family_opts(text, Arc::new(fam), &opts, 2).expect("run succeeds")
 }

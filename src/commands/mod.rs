@@ -199,9 +199,17 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     let opts = PlanOptions {
         replicates: args.replicates,
         seed: args.seed,
+        eval_seed: args.eval_seed,
     };
     let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
     let plan = source.plan(&opts)?;
+    if args.eval_seed.is_some() && matches!(plan.source, Source::Table(_)) {
+        return Err(Error::Usage(format!(
+            "{}: --eval-seed applies to synthetic and twin sources; a table's evaluation points \
+             are its rows (drop --eval-seed)",
+            plan.file
+        )));
+    }
     refuse_custom(&plan)?;
     runner::pool_check(args.threads)?;
     if let Some(value) = args.assess {
