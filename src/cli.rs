@@ -45,11 +45,14 @@ pub enum Command {
     /// byte to the unsharded run. Refuses parts of different runs or shard counts, duplicated
     /// parts and missing blocks (exit 2).
     Merge(MergeArgs),
-    /// Compare a result with a baseline result of the same scenario: "identical" when every
-    /// number agrees; otherwise a term is worse when it grew by more than --sigma standard
-    /// errors and more than the margin. Exit 0 nothing worse, 1 something worse, 2 the documents
-    /// cannot be compared (different scenario, family, knob, grid or loss; missing standard
-    /// errors).
+    /// Compare a result with a baseline result of the same scenario. The mode is chosen and
+    /// printed: "identical" when every number agrees; "paired" (same seed, replicates, blocks and
+    /// evaluation points: jackknife of the differences over the blocks); "unpaired" otherwise
+    /// (independent standard errors, plus the evaluation points' sampling variance when their
+    /// eval_seed differs). A term is worse when it grew by more than --sigma standard errors of
+    /// the difference and more than the margin. Exit 0 nothing worse, 1 something worse, 2 the
+    /// documents cannot be compared (different scenario, family, knob, grid or loss; missing
+    /// standard errors; an old baseline; fixed evaluation points that differ).
     Check(CheckArgs),
     /// Draw the curve picture (SVG) of a saved result document, and the selection histogram
     /// when the result holds a cross-validation audit.
@@ -182,14 +185,16 @@ pub struct CheckArgs {
     /// The stored baseline result document.
     #[arg(long, value_name = "BASE.json")]
     pub baseline: PathBuf,
-    /// Standard errors a change must exceed to count (default 4).
-    #[arg(long, default_value_t = 4.0)]
+    /// Standard errors of the difference a change must exceed to count (|z| > SIGMA).
+    #[arg(long, default_value_t = 4.0, allow_negative_numbers = true, value_name = "SIGMA")]
     pub sigma: f64,
-    /// Relative change a term must exceed to count: `2%` or `0.02`.
-    #[arg(long, default_value = "2%", value_parser = crate::check::parse_margin)]
+    /// Relative change a term must exceed to count, of the baseline's value: `2%` or `0.02`.
+    #[arg(long, default_value = "2%", allow_hyphen_values = true,
+          value_parser = crate::check::parse_margin)]
     pub margin: f64,
     /// Margin for one term, overriding --margin (repeatable): `variance=5%`.
-    #[arg(long, value_name = "TERM=MARGIN", value_parser = crate::check::parse_term_margin)]
+    #[arg(long, value_name = "TERM=MARGIN", allow_hyphen_values = true,
+          value_parser = crate::check::parse_term_margin)]
     pub margin_term: Vec<(String, f64)>,
     /// After printing, replace the baseline with the result (atomically); creates the baseline
     /// when it does not exist yet. Exit 0 unless the documents cannot be compared.

@@ -471,6 +471,12 @@ fn refuse_custom(plan: &Plan) -> Result<(), Error> {
 /// `lossprism check`: compare a result with a baseline; exit 0 nothing worse, 1 something worse.
 pub fn check(args: CheckArgs) -> Result<u8, Error> {
     use crate::check;
+    let opts = check::CheckOptions {
+        sigma: args.sigma,
+        margin: args.margin,
+        term_margins: args.margin_term.clone(),
+    };
+    opts.validate().map_err(|e| Error::Usage(e.to_string()))?;
     let read = |p: &Path| -> Result<(String, report::ResultDoc), Error> {
         let text = read_limited(p, 1 << 30)?;
         let doc = check::parse_result(&text, &p.display().to_string())
@@ -509,11 +515,6 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         )));
     }
     let (_, base) = read(&args.baseline)?;
-    let opts = check::CheckOptions {
-        sigma: args.sigma,
-        margin: args.margin,
-        term_margins: args.margin_term,
-    };
     let rep = check::compare(&new, &base, &opts).map_err(|e| Error::Usage(e.to_string()))?;
     print!("{rep}");
     if args.update {
