@@ -1104,14 +1104,20 @@ mod tests {
         assert!(r.regressed());
         assert_eq!(r.worse_terms(), vec!["variance"]);
         let text = r.to_string();
-        assert!(text.starts_with("mode: unpaired, same evaluation points"), "{text}");
+        assert!(
+            text.starts_with("mode: unpaired, same evaluation points"),
+            "{text}"
+        );
         assert!(text.contains("REGRESSED: 1 worse (variance)"), "{text}");
         assert!(
             text.contains("[unpaired, same points: z > 4 and d > 2% of |base|]"),
             "{text}"
         );
         assert!(text.contains("worse   k = 1  variance"), "{text}");
-        assert!(text.contains("0.2500 -> 0.3100  d = +0.06000 (+24.0%) ± 0.014"), "{text}");
+        assert!(
+            text.contains("0.2500 -> 0.3100  d = +0.06000 (+24.0%) ± 0.014"),
+            "{text}"
+        );
         assert!(
             !text.contains("bias_sq"),
             "unchanged terms are not listed: {text}"
@@ -1130,7 +1136,10 @@ mod tests {
         let r = compare(&new, &base, &CheckOptions::default()).unwrap();
         assert_eq!(r.mode, Mode::OtherPoints);
         assert!((r.comparisons[2].se - 0.0042f64.sqrt()).abs() < 1e-15);
-        assert!(r.comparisons.iter().all(|c| c.verdict == Verdict::Unchanged));
+        assert!(r
+            .comparisons
+            .iter()
+            .all(|c| c.verdict == Verdict::Unchanged));
         assert!(r.to_string().contains("eval_seed 7 against 1"), "{r}");
     }
 
@@ -1145,7 +1154,11 @@ mod tests {
             doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.05))]),
             "p",
             1,
-            &[("variance", lo_base), ("expected_loss", el), ("bias_sq", el)],
+            &[
+                ("variance", lo_base),
+                ("expected_loss", el),
+                ("bias_sq", el),
+            ],
             0.1,
         );
         let new = with_unc(
@@ -1163,13 +1176,19 @@ mod tests {
         // Unpaired, the same change would be 0.06 / 0.0707 = 0.85 standard errors.
         assert!((v.unpaired_se.unwrap() - 0.05 * 2f64.sqrt()).abs() < 1e-15);
         assert_eq!(v.verdict, Verdict::Worse);
-        assert!((r.se_ratio().unwrap() - 0.0).abs() < 1e-12, "two terms have se 0");
+        assert!(
+            (r.se_ratio().unwrap() - 0.0).abs() < 1e-12,
+            "two terms have se 0"
+        );
         // Equal terms with se 0: unchanged, not a division by zero.
         assert_eq!(r.comparisons[0].verdict, Verdict::Unchanged);
         assert_eq!(r.comparisons[0].z(), 0.0);
         let text = r.to_string();
         assert!(text.starts_with("mode: paired (same seed 1"), "{text}");
-        assert!(text.contains("[paired: z > 4 and d > 2% of |base|]"), "{text}");
+        assert!(
+            text.contains("[paired: z > 4 and d > 2% of |base|]"),
+            "{text}"
+        );
 
         // A difference no block moves (se = 0) is judged by the margin alone: +0.005 on an
         // expected loss of 1 is below 2 %, +0.05 above it.
@@ -1206,10 +1225,16 @@ mod tests {
         assert!(matches!(e, CheckError::MissingData(_)), "{e}");
         let msg = e.to_string();
         assert!(msg.contains("no `uncertainty` section"), "{msg}");
-        assert!(msg.contains("rerun the result") || msg.contains("rerun the"), "{msg}");
+        assert!(
+            msg.contains("rerun the result") || msg.contains("rerun the"),
+            "{msg}"
+        );
         let new = with_unc(changed.clone(), "p", 1, &[], 0.1);
         let e = compare(&new, &plain, &CheckOptions::default()).unwrap_err();
-        assert!(e.to_string().contains("the baseline has no `uncertainty`"), "{e}");
+        assert!(
+            e.to_string().contains("the baseline has no `uncertainty`"),
+            "{e}"
+        );
 
         // Different points on an evenly spaced input: refused, naming eval_seed.
         let mut even = plain.clone();
@@ -1221,7 +1246,10 @@ mod tests {
         let e = compare(&new, &base, &CheckOptions::default()).unwrap_err();
         assert!(matches!(e, CheckError::Mismatch(_)), "{e}");
         let msg = e.to_string();
-        assert!(msg.contains("eval_seed 2 in the result, 1 in the baseline"), "{msg}");
+        assert!(
+            msg.contains("eval_seed 2 in the result, 1 in the baseline"),
+            "{msg}"
+        );
         assert!(msg.contains("evenly spaced"), "{msg}");
         assert!(msg.contains("same eval_seed"), "{msg}");
         // A fixed design and tables likewise.
@@ -1259,7 +1287,10 @@ mod tests {
         let mut one = plain.clone();
         one.points[0].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);
         let mut one_new = changed.clone();
-        one_new.points[0].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);
+        one_new.points[0]
+            .stderr
+            .iter_mut()
+            .for_each(|s| s.1 = f64::NAN);
         let e = compare(
             &with_unc(one_new, "p", 1, &[], 0.1),
             &with_unc(one, "p", 1, &[], 0.1),

@@ -186,7 +186,12 @@ pub struct CheckArgs {
     #[arg(long, value_name = "BASE.json")]
     pub baseline: PathBuf,
     /// Standard errors of the difference a change must exceed to count (|z| > SIGMA).
-    #[arg(long, default_value_t = 4.0, allow_negative_numbers = true, value_name = "SIGMA")]
+    #[arg(
+        long,
+        default_value_t = 4.0,
+        allow_negative_numbers = true,
+        value_name = "SIGMA"
+    )]
     pub sigma: f64,
     /// Relative change a term must exceed to count, of the baseline's value: `2%` or `0.02`.
     #[arg(long, default_value = "2%", allow_hyphen_values = true,

@@ -285,15 +285,30 @@ fn command_line_modes_and_refusals() {
     save("noisy.json", &run(noisy(), SMALL, None));
     let (code, out, _) = run3(d, &["check", "noisy.json", "--baseline", "base.json"]);
     assert_eq!(code, 1, "{out}");
-    assert!(out.starts_with("mode: paired (same seed 5, 64 replicates, 32 blocks"), "{out}");
-    assert!(out.contains("[paired: z > 4 and d > 2% of |base|]"), "{out}");
-    assert!(out.contains("worse  bandwidth = 0.3  expected_loss"), "{out}");
+    assert!(
+        out.starts_with("mode: paired (same seed 5, 64 replicates, 32 blocks"),
+        "{out}"
+    );
+    assert!(
+        out.contains("[paired: z > 4 and d > 2% of |base|]"),
+        "{out}"
+    );
+    assert!(
+        out.contains("worse  bandwidth = 0.3  expected_loss"),
+        "{out}"
+    );
     assert!(out.contains("paired standard errors are"), "{out}");
     // A fresh seed: unpaired at the same points (evenly spaced inputs never move).
-    save("fresh.json", &run(NadarayaWatson::default(), SMALL, Some(77)));
+    save(
+        "fresh.json",
+        &run(NadarayaWatson::default(), SMALL, Some(77)),
+    );
     let (code, out, _) = run3(d, &["check", "fresh.json", "--baseline", "base.json"]);
     assert_eq!(code, 0, "{out}");
-    assert!(out.starts_with("mode: unpaired, same evaluation points (seed 77 against 5"), "{out}");
+    assert!(
+        out.starts_with("mode: unpaired, same evaluation points (seed 77 against 5"),
+        "{out}"
+    );
     assert!(out.contains("ok: "), "{out}");
 
     // The built-in k-NN through the binary: fresh seeds keep the points, --eval-seed moves them.
@@ -303,9 +318,15 @@ fn command_line_modes_and_refusals() {
     for (args, name) in [
         (&["run", "knn.toml"][..], "k-base.json"),
         (&["run", "knn.toml", "--seed", "8"][..], "k-seed.json"),
-        (&["run", "knn.toml", "--seed", "8", "--eval-seed", "9"][..], "k-eval.json"),
+        (
+            &["run", "knn.toml", "--seed", "8", "--eval-seed", "9"][..],
+            "k-eval.json",
+        ),
         (&["run", "fixed.toml"][..], "f-base.json"),
-        (&["run", "fixed.toml", "--seed", "8", "--eval-seed", "9"][..], "f-eval.json"),
+        (
+            &["run", "fixed.toml", "--seed", "8", "--eval-seed", "9"][..],
+            "f-eval.json",
+        ),
     ] {
         let mut a = args.to_vec();
         a.extend(["--quiet", "--out", name]);
@@ -317,7 +338,10 @@ fn command_line_modes_and_refusals() {
     assert!(out.starts_with("identical"), "{out}");
     let (code, out, _) = run3(d, &["check", "k-seed.json", "--baseline", "k-base.json"]);
     assert_eq!(code, 0, "{out}");
-    assert!(out.starts_with("mode: unpaired, same evaluation points"), "{out}");
+    assert!(
+        out.starts_with("mode: unpaired, same evaluation points"),
+        "{out}"
+    );
     let (code, out, _) = run3(d, &["check", "k-eval.json", "--baseline", "k-base.json"]);
     assert_eq!(code, 0, "{out}");
     assert!(
@@ -327,7 +351,11 @@ fn command_line_modes_and_refusals() {
     // A fixed design moves with the evaluation seed: refused, saying how to compare.
     let line = assert_bad(
         &lossprism(d, &["check", "f-eval.json", "--baseline", "f-base.json"]),
-        &["eval_seed 9 in the result, 3 in the baseline", "fixed design", "same eval_seed"],
+        &[
+            "eval_seed 9 in the result, 3 in the baseline",
+            "fixed design",
+            "same eval_seed",
+        ],
     );
     assert!(line.starts_with("error: cannot compare:"), "{line}");
 
@@ -336,34 +364,76 @@ fn command_line_modes_and_refusals() {
     let mut old: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(d.join("base.json")).unwrap()).unwrap();
     old.as_object_mut().unwrap().remove("uncertainty");
-    std::fs::write(d.join("old.json"), serde_json::to_string_pretty(&old).unwrap()).unwrap();
+    std::fs::write(
+        d.join("old.json"),
+        serde_json::to_string_pretty(&old).unwrap(),
+    )
+    .unwrap();
     let (code, out, _) = run3(d, &["check", "base.json", "--baseline", "old.json"]);
     assert_eq!(code, 0, "{out}");
     assert!(out.starts_with("identical"), "{out}");
     assert_bad(
         &lossprism(d, &["check", "noisy.json", "--baseline", "old.json"]),
-        &["the baseline has no `uncertainty` section", "rerun the baseline", "--update"],
+        &[
+            "the baseline has no `uncertainty` section",
+            "rerun the baseline",
+            "--update",
+        ],
     );
 
     // Thresholds: negative values are refused with a clear line (not a parser puzzle), and
     // the help shows each default once.
     assert_bad(
-        &lossprism(d, &["check", "noisy.json", "--baseline", "base.json", "--sigma", "-1"]),
+        &lossprism(
+            d,
+            &[
+                "check",
+                "noisy.json",
+                "--baseline",
+                "base.json",
+                "--sigma",
+                "-1",
+            ],
+        ),
         &["--sigma must be a non-negative number, got -1"],
     );
-    let out = lossprism(d, &["check", "noisy.json", "--baseline", "base.json", "--margin", "-5%"]);
+    let out = lossprism(
+        d,
+        &[
+            "check",
+            "noisy.json",
+            "--baseline",
+            "base.json",
+            "--margin",
+            "-5%",
+        ],
+    );
     assert_eq!(out.status.code(), Some(2));
     assert!(common::text(&out.stderr).contains("is negative"), "{out:?}");
     // `--margin` takes a fraction or a percentage.
     let (code, frac, _) = run3(
         d,
-        &["check", "noisy.json", "--baseline", "base.json", "--margin", "0.05"],
+        &[
+            "check",
+            "noisy.json",
+            "--baseline",
+            "base.json",
+            "--margin",
+            "0.05",
+        ],
     );
     assert_eq!(code, 1, "{frac}");
     assert!(frac.contains("d > 5% of |base|"), "{frac}");
     let (_, pct, _) = run3(
         d,
-        &["check", "noisy.json", "--baseline", "base.json", "--margin", "5%"],
+        &[
+            "check",
+            "noisy.json",
+            "--baseline",
+            "base.json",
+            "--margin",
+            "5%",
+        ],
     );
     assert_eq!(frac, pct);
     let (code, help, _) = run3(d, &["check", "--help"]);
@@ -376,7 +446,13 @@ fn command_line_modes_and_refusals() {
     // --update creates the baseline's folders.
     let (code, out, _) = run3(
         d,
-        &["check", "k-seed.json", "--baseline", "ci/baselines/knn.json", "--update"],
+        &[
+            "check",
+            "k-seed.json",
+            "--baseline",
+            "ci/baselines/knn.json",
+            "--update",
+        ],
     );
     assert_eq!(code, 0, "{out}");
     assert_eq!(

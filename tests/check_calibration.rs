@@ -116,8 +116,15 @@ impl Family for Subsampled {
     fn supports(&self, task: Task) -> bool {
         task == Task::Regress
     }
-    fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], out: Out<'_>) -> Result<(), FitError> {
-        let keep: Vec<usize> = (0..input.x.nrows()).filter(|i| i % 5 != self.drop).collect();
+    fn fit_predict(
+        &self,
+        input: &FitInput<'_>,
+        grid: &[f64],
+        out: Out<'_>,
+    ) -> Result<(), FitError> {
+        let keep: Vec<usize> = (0..input.x.nrows())
+            .filter(|i| i % 5 != self.drop)
+            .collect();
         let x = input.x.select(ndarray::Axis(0), &keep);
         let y = input.y.select(ndarray::Axis(0), &keep);
         let sub = FitInput {
@@ -309,7 +316,6 @@ fn paired_comparisons_detect_a_worse_estimator_and_spare_an_equal_one() {
     assert!(detected >= 19, "detected in only {detected} of {seeds}");
     assert!(equal_flagged < binomial_reject_at(20, 9.0 * normal_upper_tail(4.0), 1e-6));
 }
-
 
 /// Per-term tallies of z over many comparisons.
 #[derive(Default)]
