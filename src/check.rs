@@ -1,39 +1,62 @@
 //! Comparing a result document with a baseline (`lossprism check`): refusal when the two are
 //! not runs of the same scenario, "identical" when every number agrees bit for bit, otherwise a
-//! statistical verdict per grid value and term. Pure: no I/O (the caller reads and writes files).
+//! statistical verdict per row (family, training size, knob value) and term. Pure: no I/O (the
+//! caller reads and writes files).
 //!
 //! # The rule
 //!
-//! For every grid value and every term (squared loss: `expected_loss`, `bias_sq`, `variance`;
+//! For every row and every compared term (squared loss: `expected_loss`, `bias_sq`, `variance`;
 //! 0-1 loss: `expected_loss`, `bias`, `variance`, `net_variance`, `kohavi_wolpert.bias_sq`,
 //! `kohavi_wolpert.variance`, `james.systematic_effect`, `james.variance_effect`; larger is worse
-//! for all of them) let `d = new − base` and `se = √(se_new² + se_base²)`, the standard error of
-//! a difference of two independent estimates. The term is
+//! for all of them) let `d = new − base`, `se` the standard error of `d` (which depends on the
+//! mode, below) and `z = d / se`. The term is
 //!
-//! - **worse** when `d > sigma·se` and `d > margin·|base|`,
-//! - **better** when `d < −sigma·se` and `|d| > margin·|base|`,
+//! - **worse** when `z > sigma` and `d > margin·|base|`,
+//! - **better** when `z < −sigma` and `|d| > margin·|base|`,
 //! - **unchanged** otherwise.
 //!
-//! `sigma` (default 4) bounds false alarms from Monte Carlo noise: under no change, `d/se` is
+//! `sigma` (default 4) bounds false alarms from Monte Carlo noise: under no change `z` is
 //! approximately standard normal, so each term is flagged with probability about `1 − Φ(sigma)`
 //! (3.2e-5 at 4). `margin` (default 2 %, per term overridable) ignores changes too small to
-//! matter in practice, however precisely measured.
+//! matter in practice, however precisely measured. When `se = 0` (a paired difference that no
+//! block moves), `d = 0` is unchanged and any other `d` is judged by the margin alone.
 //!
-//! # Same seed or fresh seeds
+//! # Modes
 //!
-//! Two runs with the same seed and replicates draw the same training sets, so an unchanged
-//! estimator gives bit-identical documents and the check says "identical": any change at all in
-//! the estimator's output shows. The independence formula for `se` then ignores the positive
-//! correlation that common training sets induce between the two runs (the variance of `d` is
-//! `se_new² + se_base² − 2·cov`, with `cov > 0` for estimators that respond alike to the same
-//! data), so the standard error is overstated and the test is conservative: fewer false alarms,
-//! less power. With fresh seeds the runs are independent and the rule has its nominal level.
+//! The mode is chosen from the documents and printed:
+//!
+//! - **identical**: every number equals the baseline's bit for bit.
+//! - **paired**: same seed, replicates, blocks and evaluation points (equal fingerprints), so both
+//!   runs saw the same training sets. Each document carries every term computed with each
+//!   replicate block left out; the differences `D_(b) = new_(b) − base_(b)` give the delete-a-group
+//!   jackknife standard error `se = √((B−1)/B · Σ_b (D_(b) − D̄)²)` (Efron & Tibshirani, *An
+//!   Introduction to the Bootstrap*, 1993, eq. 11.5, applied to groups as in Shao & Tu, *The
+//!   Jackknife and Bootstrap*, 1995, §2.3). Monte Carlo noise common to both runs cancels, so a
+//!   change is detected with far fewer replicates than with independent runs.
+//! - **unpaired, same evaluation points** (fingerprints equal, seeds or replicates differ): the
+//!   runs are independent, `se = √(se_new² + se_base²)`. With the same seed and different
+//!   replicates or blocks they share training sets, which makes this conservative.
+//! - **unpaired, different evaluation points** (fingerprints differ): each term is an average over
+//!   `m` evaluation points, so it also varies with the points: `se² = se_new² + se_base² +
+//!   (point_sd_new² + point_sd_base²) / m`, where `point_sd²` is the variance of the per-point
+//!   term across the points (the variance of a mean of `m` independent draws is the draws'
+//!   variance over `m`). The per-point terms carry their own Monte Carlo noise, which `se`
+//!   already counts; each document's `point_noise` (a jackknife over blocks, see
+//!   [`crate::decompose::point_spread`]) is subtracted from `point_sd²` so it is not counted
+//!   twice (without it the test is conservative). This assumes the points are independent draws
+//!   from the same input distribution: a synthetic or twin source with a random design and fresh
+//!   evaluation points. Evenly spaced inputs, a fixed design, evaluation at the design and tables
+//!   are refused: their difference is not sampling noise.
+//!
+//! Documents written before the leave-one-block-out values and point spreads were recorded
+//! (no `uncertainty` section) can only be found identical; otherwise they are refused with a
+//! request to rerun the baseline.
 
 use std::fmt;
 
 use crate::decompose::{self, Shape};
 use crate::fmt::{fmt_num, fmt_se, fmt_value};
-use crate::report::{PointRow, ResultDoc, FORMAT};
+use crate::report::{PointRow, ResultDoc, RowUncertainty, Uncertainty, FORMAT};
 
 /// The terms a document's rows are compared on: those its term description gives a standard
 /// error, except the direct cross-check, noise terms and the detail-only terms.
@@ -189,6 +212,10 @@ pub enum CheckError {
     /// A standard error is missing, so no statistical verdict is possible.
     #[error("cannot judge: {0}")]
     MissingStderr(String),
+    /// A document lacks what the comparison's mode needs (an old document without the
+    /// `uncertainty` section, or one without point spreads).
+    #[error("cannot judge: {0}")]
+    MissingData(String),
     /// A document that is not a lossprism result.
     #[error("{0}")]
     BadDocument(String),
@@ -223,7 +250,7 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
         .map_err(|e| CheckError::BadDocument(format!("{what}: malformed result document: {e}")))
 }
 
-/// Verdict on one term at one grid value.
+/// Verdict on one term in one row.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Verdict {
     /// Larger by more than `sigma` standard errors and the margin.
@@ -245,9 +272,38 @@ impl Verdict {
     }
 }
 
-/// One term at one grid value.
+/// How the two documents are compared (see the [module documentation](self)).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Mode {
+    /// Every number equals the baseline's bit for bit.
+    Identical,
+    /// Same training sets and evaluation points: jackknife of the paired differences.
+    Paired,
+    /// Independent runs at the same evaluation points.
+    SamePoints,
+    /// Independent runs at different evaluation points (drawn from the same distribution).
+    OtherPoints,
+}
+
+impl Mode {
+    /// The mode's short name, as printed on every changed line.
+    pub fn word(self) -> &'static str {
+        match self {
+            Mode::Identical => "identical",
+            Mode::Paired => "paired",
+            Mode::SamePoints => "unpaired, same points",
+            Mode::OtherPoints => "unpaired, other points",
+        }
+    }
+}
+
+/// One term in one row.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Comparison {
+    /// The row's family (documents with several models).
+    pub family: Option<String>,
+    /// The row's training size (documents with several training sizes).
+    pub train_size: Option<u64>,
     /// Knob value.
     pub value: f64,
     /// Term name (`variance`, `kohavi_wolpert.bias_sq`, ...).
@@ -258,14 +314,19 @@ pub struct Comparison {
     pub new: f64,
     /// `new − baseline`.
     pub diff: f64,
-    /// Standard error of the difference, `√(se_new² + se_base²)` (0 when identical).
+    /// Standard error of the difference in the report's mode (0 when identical).
     pub se: f64,
+    /// `√(se_new² + se_base²)`, the standard error independent runs would give (for comparison
+    /// with a paired `se`); `None` where a standard error is missing.
+    pub unpaired_se: Option<f64>,
+    /// The relative margin that applied to this term.
+    pub margin: f64,
     /// The verdict.
     pub verdict: Verdict,
 }
 
 impl Comparison {
-    /// `diff / se` (±∞ when `se` is 0 and the values differ).
+    /// `diff / se` (±∞ when `se` is 0 and the values differ, 0 when they are equal).
     pub fn z(&self) -> f64 {
         if self.diff == 0.0 {
             0.0
@@ -273,18 +334,50 @@ impl Comparison {
             self.diff / self.se
         }
     }
+
+    /// Whether the verdict came from the margin alone (`se = 0`, values different).
+    pub fn margin_only(&self) -> bool {
+        self.se == 0.0 && self.diff != 0.0
+    }
+
+    /// The rule that produced the verdict, e.g. `z > 4 and d > 2% of |base|`.
+    pub fn rule(&self, sigma: f64) -> String {
+        let m = pct(self.margin);
+        match (self.verdict, self.margin_only()) {
+            (Verdict::Worse, false) => format!("z > {sigma} and d > {m} of |base|"),
+            (Verdict::Better, false) => format!("z < -{sigma} and |d| > {m} of |base|"),
+            (Verdict::Worse, true) => format!("se = 0, so by the margin alone: d > {m} of |base|"),
+            (Verdict::Better, true) => {
+                format!("se = 0, so by the margin alone: |d| > {m} of |base|")
+            }
+            (Verdict::Unchanged, _) => format!("|z| <= {sigma} or |d| <= {m} of |base|"),
+        }
+    }
+}
+
+/// A fraction as a percentage without float noise (`0.07` → `7%`).
+fn pct(f: f64) -> String {
+    let s = format!("{:.4}", 100.0 * f);
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    format!("{s}%")
 }
 
 /// The outcome of a comparison.
 #[derive(Debug, Clone, PartialEq)]
 pub struct CheckReport {
-    /// Knob name.
+    /// Knob name (of the first model).
     pub knob: String,
+    /// Knob name of each family (documents with several models).
+    pub knobs: Vec<(String, String)>,
     /// Every term and standard error equals the baseline exactly.
     pub identical: bool,
+    /// How the documents were compared.
+    pub mode: Mode,
+    /// The mode in words: why it applies and how `se` is computed.
+    pub about: String,
     /// The thresholds used.
     pub options: CheckOptions,
-    /// Every comparison, grid value by grid value.
+    /// Every comparison, row by row in the result's order.
     pub comparisons: Vec<Comparison>,
 }
 
@@ -319,6 +412,44 @@ impl CheckReport {
         v
     }
 
+    /// Median over the compared terms of `se / unpaired_se` (paired mode: how much pairing
+    /// shrank the standard errors); `None` when no term has both.
+    pub fn se_ratio(&self) -> Option<f64> {
+        let mut r: Vec<f64> = self
+            .comparisons
+            .iter()
+            .filter_map(|c| c.unpaired_se.filter(|u| *u > 0.0).map(|u| c.se / u))
+            .filter(|x| x.is_finite())
+            .collect();
+        if r.is_empty() {
+            return None;
+        }
+        r.sort_by(f64::total_cmp);
+        let n = r.len();
+        Some(if n % 2 == 1 {
+            r[n / 2]
+        } else {
+            0.5 * (r[n / 2 - 1] + r[n / 2])
+        })
+    }
+
+    /// The row of a comparison in words: `k = 5`, `knn k = 5, n = 100`.
+    pub fn row_words(&self, c: &Comparison) -> String {
+        let knob = c
+            .family
+            .as_ref()
+            .and_then(|f| self.knobs.iter().find(|(fam, _)| fam == f))
+            .map_or(self.knob.as_str(), |(_, k)| k.as_str());
+        let mut s = match &c.family {
+            Some(f) => format!("{f} {knob} = {}", fmt_value(c.value)),
+            None => format!("{knob} = {}", fmt_value(c.value)),
+        };
+        if let Some(n) = c.train_size {
+            s.push_str(&format!(", n = {n}"));
+        }
+        s
+    }
+
     /// Exit code of `lossprism check`: 1 when something regressed, else 0.
     pub fn exit_code(&self) -> u8 {
         u8::from(self.regressed())
@@ -334,23 +465,16 @@ impl fmt::Display for CheckReport {
                 "identical: all {n} terms and their standard errors equal the baseline exactly"
             );
         }
+        writeln!(f, "mode: {}", self.about)?;
+        let sigma = self.options.sigma;
         let moved: Vec<&Comparison> = self
             .comparisons
             .iter()
             .filter(|c| c.verdict != Verdict::Unchanged)
             .collect();
         if !moved.is_empty() {
-            let header = [
-                self.knob.clone(),
-                "term".into(),
-                "baseline".into(),
-                "new".into(),
-                "change".into(),
-                "se".into(),
-                "z".into(),
-                "verdict".into(),
-            ];
-            let rows: Vec<[String; 8]> = moved
+            const COLS: usize = 7;
+            let rows: Vec<[String; COLS]> = moved
                 .iter()
                 .map(|c| {
                     let rel = if c.baseline != 0.0 {
@@ -358,58 +482,75 @@ impl fmt::Display for CheckReport {
                     } else {
                         String::new()
                     };
+                    let z = c.z();
                     [
-                        fmt_value(c.value),
-                        c.term.to_string(),
-                        fmt_num(c.baseline),
-                        fmt_num(c.new),
-                        format!(
-                            "{}{}{rel}",
-                            if c.diff > 0.0 { "+" } else { "" },
-                            fmt_num(c.diff)
-                        ),
-                        fmt_se(c.se),
-                        format!("{:+.1}", c.z()),
                         c.verdict.word().to_string(),
+                        self.row_words(c),
+                        c.term.clone(),
+                        format!("{} -> {}", fmt_num(c.baseline), fmt_num(c.new)),
+                        format!(
+                            "d = {}{}{rel} ± {}",
+                            if c.diff > 0.0 { "+" } else { "" },
+                            fmt_num(c.diff),
+                            fmt_se(c.se)
+                        ),
+                        if z.is_finite() {
+                            format!("z = {z:+.1}")
+                        } else {
+                            "z = n/a".to_string()
+                        },
+                        format!("[{}: {}]", self.mode.word(), c.rule(sigma)),
                     ]
                 })
                 .collect();
-            let mut w = [0usize; 8];
-            for r in std::iter::once(&header).chain(rows.iter()) {
+            let mut w = [0usize; COLS];
+            for r in &rows {
                 for (i, cell) in r.iter().enumerate() {
                     w[i] = w[i].max(cell.chars().count());
                 }
             }
-            let line = |f: &mut fmt::Formatter<'_>, r: &[String; 8]| -> fmt::Result {
+            for r in &rows {
                 let mut s = String::new();
                 for (i, cell) in r.iter().enumerate() {
-                    let pad = w[i] - cell.chars().count();
-                    if i == 0 || i == 1 || i == 7 {
+                    let pad = " ".repeat(w[i] - cell.chars().count());
+                    if i == 5 {
+                        s.push_str(&pad);
                         s.push_str(cell);
-                        s.push_str(&" ".repeat(pad));
                     } else {
-                        s.push_str(&" ".repeat(pad));
                         s.push_str(cell);
+                        s.push_str(&pad);
                     }
-                    if i < 7 {
+                    if i + 1 < COLS {
                         s.push_str("  ");
                     }
                 }
-                writeln!(f, "{}", s.trim_end())
-            };
-            line(f, &header)?;
-            for r in &rows {
-                line(f, r)?;
+                writeln!(f, "{}", s.trim_end())?;
             }
         }
         let worse = self.worse().count();
         let better = self.better().count();
         let unchanged = n - worse - better;
-        let rule = format!(
-            "sigma = {}, margin = {}%",
-            self.options.sigma,
-            100.0 * self.options.margin
+        let mut rule = format!(
+            "{}; worse when z > {sigma} and d > {} of |base|",
+            self.mode.word(),
+            pct(self.options.margin)
         );
+        if !self.options.term_margins.is_empty() {
+            let per: Vec<String> = self
+                .options
+                .term_margins
+                .iter()
+                .map(|(t, m)| format!("{t} {}", pct(*m)))
+                .collect();
+            rule.push_str(&format!(" (margins: {})", per.join(", ")));
+        }
+        if self.mode == Mode::Paired {
+            if let Some(r) = self.se_ratio() {
+                rule.push_str(&format!(
+                    "; paired standard errors are {r:.2} of the unpaired ones (median)"
+                ));
+            }
+        }
         if worse > 0 {
             writeln!(
                 f,
@@ -428,6 +569,62 @@ impl fmt::Display for CheckReport {
 /// Value and standard error of a term in a row. Outer `None`: the term is absent from the row.
 fn term_of(row: &PointRow, term: &str) -> Option<(f64, Option<f64>)> {
     row.has(term).then(|| (row.get(term), row.se(term)))
+}
+
+/// A row's identity in words, for messages.
+fn row_name(doc: &ResultDoc, p: &PointRow) -> String {
+    let knob = p
+        .family
+        .as_ref()
+        .and_then(|f| doc.models.iter().find(|m| &m.family == f))
+        .map_or(doc.knob.as_str(), |m| m.knob.as_str());
+    let mut s = match &p.family {
+        Some(f) => format!("{f} {knob} = {}", fmt_value(p.value)),
+        None => format!("{knob} = {}", fmt_value(p.value)),
+    };
+    if let Some(n) = p.train_size {
+        s.push_str(&format!(", n = {n}"));
+    }
+    s
+}
+
+/// The key rows are matched by: family, training size, knob value (bits).
+fn row_key(p: &PointRow) -> (Option<&str>, Option<u64>, u64) {
+    (p.family.as_deref(), p.train_size, p.value.to_bits())
+}
+
+/// For every row of `new`, the index of the baseline row with the same key; a mismatch names
+/// the first row present in one document only.
+fn match_rows(new: &ResultDoc, base: &ResultDoc) -> Result<Vec<usize>, String> {
+    let index: std::collections::HashMap<_, usize> = base
+        .points
+        .iter()
+        .enumerate()
+        .map(|(j, p)| (row_key(p), j))
+        .collect();
+    let mut out = Vec::with_capacity(new.points.len());
+    for p in &new.points {
+        match index.get(&row_key(p)) {
+            Some(&j) => out.push(j),
+            None => {
+                return Err(format!(
+                    "the row {} is in the result but not in the baseline",
+                    row_name(new, p)
+                ))
+            }
+        }
+    }
+    if out.len() != base.points.len() {
+        let have: std::collections::HashSet<usize> = out.iter().copied().collect();
+        if let Some(p) = (0..base.points.len()).find(|j| !have.contains(j)) {
+            return Err(format!(
+                "the row {} is in the baseline but not in the result",
+                row_name(base, &base.points[p])
+            ));
+        }
+        return Err("the result repeats a row".into());
+    }
+    Ok(out)
 }
 
 /// The first difference that makes two documents incomparable, if any.
@@ -460,8 +657,9 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
         // `grid` first: the most common reason.
         keys.sort_by_key(|k| k.as_str() != "grid");
         for k in keys {
-            // The number of blocks is a precision setting, like the number of replicates.
-            if k == "blocks" {
+            // The number of blocks is a precision setting, like the number of replicates; the
+            // evaluation seed decides the mode (the points' fingerprints are compared there).
+            if k == "blocks" || k == "eval_seed" {
                 continue;
             }
             let (va, vb) = (ma.get(k.as_str()), mb.get(k.as_str()));
@@ -479,6 +677,36 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
                 ));
             }
         }
+    }
+    // Several models or training sizes: the same ones.
+    let models = |d: &ResultDoc| {
+        d.models
+            .iter()
+            .map(|m| {
+                let grid: Vec<String> = m.grid.iter().map(|v| fmt_value(*v)).collect();
+                format!(
+                    "{} {} [{}] x{}",
+                    m.family,
+                    m.knob,
+                    grid.join(", "),
+                    m.fit_seeds
+                )
+            })
+            .collect::<Vec<_>>()
+    };
+    let (ma, mb) = (models(new), models(base));
+    if ma != mb {
+        return Some(format!(
+            "the models differ: [{}] in the result, [{}] in the baseline",
+            ma.join("; "),
+            mb.join("; ")
+        ));
+    }
+    if new.sizes != base.sizes {
+        return Some(format!(
+            "the training sizes differ: {:?} in the result, {:?} in the baseline",
+            new.sizes, base.sizes
+        ));
     }
     // A table source: the same data and resampling (Monte Carlo shares and the file's location
     // may differ).
@@ -501,24 +729,110 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
         (None, None) => {}
         _ => return Some("one document comes from a table, the other does not".into()),
     }
-    if new.points.len() != base.points.len()
-        || new
-            .points
-            .iter()
-            .zip(&base.points)
-            .any(|(a, b)| a.value != b.value)
-    {
-        return Some("the grid values of the rows differ".into());
-    }
     None
 }
 
-/// Compares `new` with `baseline`; see the [module documentation](self) for the rule.
+/// The `uncertainty` sections of both documents, or why a verdict is impossible without them.
+fn uncertainties<'a>(
+    new: &'a ResultDoc,
+    base: &'a ResultDoc,
+) -> Result<(&'a Uncertainty, &'a Uncertainty), CheckError> {
+    let get = |d: &'a ResultDoc, what: &str| -> Result<&'a Uncertainty, CheckError> {
+        match &d.uncertainty {
+            None => Err(CheckError::MissingData(format!(
+                "the {what} has no `uncertainty` section (written by an older lossprism), so \
+                 only an identical result can be judged against it; rerun the {what} with this \
+                 version (a baseline: delete it and accept a new one with `check --update`)"
+            ))),
+            Some(u) if u.rows.len() != d.points.len() => Err(CheckError::BadDocument(format!(
+                "the {what}'s `uncertainty` has {} rows for {} points",
+                u.rows.len(),
+                d.points.len()
+            ))),
+            Some(u) => Ok(u),
+        }
+    };
+    Ok((get(new, "result")?, get(base, "baseline")?))
+}
+
+/// Chooses the mode of two comparable, not identical documents and says why in words.
+fn choose_mode(new: &ResultDoc, base: &ResultDoc) -> Result<(Mode, String), CheckError> {
+    let (ua, ub) = uncertainties(new, base)?;
+    if ua.eval_fingerprint == ub.eval_fingerprint {
+        if new.seed == base.seed && new.replicates == base.replicates && ua.blocks == ub.blocks {
+            return Ok((
+                Mode::Paired,
+                format!(
+                    "paired (same seed {}, {} replicates, {} blocks and evaluation points: the \
+                     same training sets); se of each difference = jackknife over the blocks of \
+                     its leave-one-block-out differences",
+                    new.seed, new.replicates, ua.blocks
+                ),
+            ));
+        }
+        let shared = if new.seed == base.seed {
+            " (same seed with different replicates or blocks: the runs share training sets, so \
+             this is conservative)"
+        } else {
+            ""
+        };
+        return Ok((
+            Mode::SamePoints,
+            format!(
+                "unpaired, same evaluation points (seed {} against {}: independent training \
+                 sets); se = sqrt(se_new² + se_base²){shared}",
+                new.seed, base.seed
+            ),
+        ));
+    }
+    let (sa, sb) = (ua.eval_seed, ub.eval_seed);
+    if sa == sb {
+        return Err(CheckError::Mismatch(format!(
+            "the evaluation points or the truth there differ although both use eval_seed {sa}: \
+             the scenario's data changed"
+        )));
+    }
+    if let Some(why) = new
+        .scenario
+        .points_not_drawn()
+        .or_else(|| base.scenario.points_not_drawn())
+    {
+        return Err(CheckError::Mismatch(format!(
+            "the evaluation points differ (eval_seed {sa} in the result, {sb} in the baseline) \
+             and {why}, so the difference is not sampling noise; rerun both with the same \
+             eval_seed (runs without --eval-seed share it)"
+        )));
+    }
+    Ok((
+        Mode::OtherPoints,
+        format!(
+            "unpaired, different evaluation points (eval_seed {sa} against {sb}; m = {} and {}, \
+             assumed independent draws from the same input distribution); se² = se_new² + \
+             se_base² + (point_sd_new² + point_sd_base²)/m, per-point Monte Carlo noise taken out",
+            ua.eval_points, ub.eval_points
+        ),
+    ))
+}
+
+/// The paired jackknife standard error of `term` between row `a` and row `b`: `None` when a
+/// document lacks the leave-one-block-out values, NaN when they are not finite.
+fn paired_se(a: &RowUncertainty, b: &RowUncertainty, term: &str, blocks: usize) -> Option<f64> {
+    let la = a.leave_out_of(term, blocks)?;
+    let lb = b.leave_out_of(term, blocks)?;
+    let d: Vec<f64> = la.iter().zip(&lb).map(|(x, y)| x - y).collect();
+    Some(decompose::jackknife_se(&d))
+}
+
+/// Compares `new` with `baseline`; see the [module documentation](self) for the modes and the
+/// rule.
 ///
 /// Errors: [`CheckError::Mismatch`] when the documents are not runs of the same scenario
-/// (scenario, family, knob, grid or loss differ; replicates, blocks and seed may differ),
-/// [`CheckError::MissingStderr`] when a standard error needed for a verdict is `null` (runs
-/// with a single replicate block), [`CheckError::Options`] for bad thresholds.
+/// (scenario, family, knob, models, sizes, grid or loss differ; replicates, blocks and seeds may
+/// differ) or when their evaluation points differ and are not random draws,
+/// [`CheckError::MissingData`] when a document that is not identical to the other lacks the
+/// `uncertainty` section, [`CheckError::MissingStderr`] when a standard error needed for a
+/// verdict cannot be computed (runs with a single replicate block), [`CheckError::Options`] for
+/// bad thresholds.
 pub fn compare(
     new: &ResultDoc,
     baseline: &ResultDoc,
@@ -536,6 +850,7 @@ pub fn compare(
     if let Some(m) = mismatch(new, baseline) {
         return Err(CheckError::Mismatch(m));
     }
+    let pairs = match_rows(new, baseline).map_err(CheckError::Mismatch)?;
     if decompose::by_name(&new.loss).is_none() {
         return Err(CheckError::BadDocument(format!(
             "unknown loss `{}` in the result",
@@ -543,14 +858,27 @@ pub fn compare(
         )));
     }
     let terms = compared_terms(new);
-    let identical = new.points == baseline.points;
+    let identical = pairs
+        .iter()
+        .enumerate()
+        .all(|(i, &j)| new.points[i] == baseline.points[j]);
+    let (mode, about) = if identical {
+        (Mode::Identical, "identical".to_string())
+    } else {
+        choose_mode(new, baseline)?
+    };
+    let knobs = new
+        .models
+        .iter()
+        .map(|m| (m.family.clone(), m.knob.clone()))
+        .collect();
     let mut comparisons = Vec::new();
-    for (a, b) in new.points.iter().zip(&baseline.points) {
+    for (i, &j) in pairs.iter().enumerate() {
+        let (a, b) = (&new.points[i], &baseline.points[j]);
         for term in &terms {
             let term = term.as_str();
-            let at = || format!("`{term}` at {} = {}", new.knob, fmt_value(a.value));
-            let (ta, tb) = (term_of(a, term), term_of(b, term));
-            let ((va, sa), (vb, sb)) = match (ta, tb) {
+            let at = || format!("`{term}` at {}", row_name(new, a));
+            let ((va, sa), (vb, sb)) = match (term_of(a, term), term_of(b, term)) {
                 (None, None) => continue,
                 (Some(x), Some(y)) => (x, y),
                 (x, _) => {
@@ -562,54 +890,120 @@ pub fn compare(
                 }
             };
             let diff = va - vb;
-            if identical {
-                comparisons.push(Comparison {
-                    value: a.value,
-                    term: term.to_string(),
-                    baseline: vb,
-                    new: va,
-                    diff,
-                    se: 0.0,
-                    verdict: Verdict::Unchanged,
-                });
-                continue;
-            }
-            let (sa, sb) = match (sa, sb) {
-                (Some(x), Some(y)) => (x, y),
-                (x, _) => {
-                    let which = if x.is_none() { "result" } else { "baseline" };
-                    return Err(CheckError::MissingStderr(format!(
-                        "the standard error of {} is missing (null) in the {which}: \
-                         standard errors need runs with at least 2 replicate blocks and at \
-                         least 3 replicates (the jackknife leaves one block out and needs 2 \
-                         replicates in the rest): rerun with `replicates` >= 3 and `blocks` >= 2",
-                        at()
-                    )));
-                }
+            let unpaired_se = match (sa, sb) {
+                (Some(x), Some(y)) => Some((x * x + y * y).sqrt()),
+                _ => None,
             };
-            let se = (sa * sa + sb * sb).sqrt();
-            let margin = opts.margin_for(term) * vb.abs();
-            let verdict = if diff > opts.sigma * se && diff > margin {
-                Verdict::Worse
-            } else if diff < -opts.sigma * se && diff.abs() > margin {
-                Verdict::Better
-            } else {
-                Verdict::Unchanged
-            };
-            comparisons.push(Comparison {
+            let margin = opts.margin_for(term);
+            let mut c = Comparison {
+                family: a.family.clone(),
+                train_size: a.train_size,
                 value: a.value,
                 term: term.to_string(),
                 baseline: vb,
                 new: va,
                 diff,
-                se,
-                verdict,
-            });
+                se: 0.0,
+                unpaired_se,
+                margin,
+                verdict: Verdict::Unchanged,
+            };
+            if mode == Mode::Identical {
+                comparisons.push(c);
+                continue;
+            }
+            let no_se = |which: &str| {
+                CheckError::MissingStderr(format!(
+                    "the standard error of {} is missing (null) in the {which}: standard errors \
+                     need runs with at least 2 replicate blocks and at least 3 replicates (the \
+                     jackknife leaves one block out and needs 2 replicates in the rest): rerun \
+                     with `replicates` >= 3 and `blocks` >= 2",
+                    at()
+                ))
+            };
+            let unpaired = || match (sa, sb) {
+                (Some(x), Some(y)) => Ok((x, y)),
+                (None, _) => Err(no_se("result")),
+                (_, None) => Err(no_se("baseline")),
+            };
+            let se = match mode {
+                Mode::Identical => 0.0,
+                Mode::Paired => {
+                    let (ua, ub) = uncertainties(new, baseline)?;
+                    let blocks = usize::try_from(ua.blocks).unwrap_or(0);
+                    match paired_se(&ua.rows[i], &ub.rows[j], term, blocks) {
+                        Some(s) if s.is_finite() => s,
+                        _ => {
+                            // Fewer than 2 blocks leave nothing out: the unpaired message says
+                            // what to change.
+                            unpaired()?;
+                            return Err(CheckError::MissingStderr(format!(
+                                "the leave-one-block-out values of {} are missing or not \
+                                 finite, so the paired standard error cannot be computed",
+                                at()
+                            )));
+                        }
+                    }
+                }
+                Mode::SamePoints => {
+                    let (x, y) = unpaired()?;
+                    (x * x + y * y).sqrt()
+                }
+                Mode::OtherPoints => {
+                    let (x, y) = unpaired()?;
+                    let (ua, ub) = uncertainties(new, baseline)?;
+                    let spread = |u: &Uncertainty, k: usize, which: &str| {
+                        let row = &u.rows[k];
+                        // The per-point terms' own Monte Carlo noise is already in se: take it
+                        // out of their spread (documents without it: the raw spread,
+                        // conservative).
+                        let noise = row.point_noise.get(term).copied().unwrap_or(0.0);
+                        match row.point_sd.get(term) {
+                            Some(sd) if sd.is_finite() && u.eval_points > 0 => {
+                                Ok((sd * sd - noise).max(0.0) / u.eval_points as f64)
+                            }
+                            _ => Err(CheckError::MissingData(format!(
+                                "the {which} has no spread across evaluation points for {}, \
+                                 needed to compare runs at different evaluation points; rerun \
+                                 both with the same eval_seed",
+                                at()
+                            ))),
+                        }
+                    };
+                    let pa = spread(ua, i, "result")?;
+                    let pb = spread(ub, j, "baseline")?;
+                    (x * x + y * y + pa + pb).sqrt()
+                }
+            };
+            c.se = se;
+            let m = margin * vb.abs();
+            c.verdict = if diff == 0.0 {
+                Verdict::Unchanged
+            } else if se == 0.0 {
+                // Nothing moves the difference across blocks: only the margin can judge it.
+                if diff > m {
+                    Verdict::Worse
+                } else if -diff > m {
+                    Verdict::Better
+                } else {
+                    Verdict::Unchanged
+                }
+            } else if diff > opts.sigma * se && diff > m {
+                Verdict::Worse
+            } else if diff < -opts.sigma * se && diff.abs() > m {
+                Verdict::Better
+            } else {
+                Verdict::Unchanged
+            };
+            comparisons.push(c);
         }
     }
     Ok(CheckReport {
         knob: new.knob.clone(),
+        knobs,
         identical,
+        mode,
+        about,
         options: opts.clone(),
         comparisons,
     })
@@ -618,6 +1012,8 @@ pub fn compare(
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::codec::pack_floats;
+    use std::collections::BTreeMap;
 
     fn row(value: f64, el: f64, b2: f64, var: f64, se: Option<f64>) -> serde_json::Value {
         serde_json::json!({
@@ -646,21 +1042,74 @@ mod tests {
         serde_json::from_value(v).expect("a valid result document")
     }
 
-    // Hand-computed cases of the rule: se = √(0.01² + 0.01²) = 0.014142; 4·se = 0.056569.
-    #[test]
-    fn rule_on_hand_made_numbers() {
-        let base = doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]);
-        // variance +0.06 > 0.0566 and > 2 % of 0.25: worse. bias² +0.05 < 4 se: unchanged.
-        // expected loss −0.06: better (|d| > 4 se and > 2 % of 1).
-        let new = doc(vec![row(1.0, 0.94, 0.55, 0.31, Some(0.01))]);
-        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
-        let v: Vec<_> = r
-            .comparisons
+    /// Adds an `uncertainty` section: every row gets the same leave-one-block-out values per
+    /// term (4 blocks) and point spread.
+    fn with_unc(
+        mut d: ResultDoc,
+        fingerprint: &str,
+        eval_seed: u64,
+        leave_out: &[(&str, [f64; 4])],
+        point_sd: f64,
+    ) -> ResultDoc {
+        let row = RowUncertainty {
+            leave_out: leave_out
+                .iter()
+                .map(|(t, v)| (t.to_string(), pack_floats(v)))
+                .collect(),
+            point_sd: ["expected_loss", "bias_sq", "variance"]
+                .iter()
+                .map(|t| (t.to_string(), point_sd))
+                .collect::<BTreeMap<_, _>>(),
+            point_noise: BTreeMap::new(),
+        };
+        d.uncertainty = Some(Uncertainty {
+            eval_fingerprint: fingerprint.into(),
+            eval_points: 5,
+            eval_seed,
+            blocks: 4,
+            rows: vec![row; d.points.len()],
+        });
+        d
+    }
+
+    /// Sets term `key` of the first row.
+    fn set(d: &mut ResultDoc, key: &str, v: f64) {
+        let t = d.points[0].terms.iter_mut().find(|t| t.0 == key).unwrap();
+        t.1 = v;
+    }
+
+    fn verdicts(r: &CheckReport) -> Vec<(&str, Verdict)> {
+        r.comparisons
             .iter()
             .map(|c| (c.term.as_str(), c.verdict))
-            .collect();
+            .collect()
+    }
+
+    // Hand-computed cases of the unpaired rule (different seeds, same points):
+    // se = √(0.01² + 0.01²) = 0.014142; 4·se = 0.056569.
+    #[test]
+    fn unpaired_rule_on_hand_made_numbers() {
+        let base = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        // variance +0.06 > 0.0566 and > 2 % of 0.25: worse. bias² +0.05 < 4 se: unchanged.
+        // expected loss −0.06: better (|d| > 4 se and > 2 % of 1).
+        let mut new = with_unc(
+            doc(vec![row(1.0, 0.94, 0.55, 0.31, Some(0.01))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        new.seed = 2;
+        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        assert_eq!(r.mode, Mode::SamePoints);
         assert_eq!(
-            v,
+            verdicts(&r),
             vec![
                 ("expected_loss", Verdict::Better),
                 ("bias_sq", Verdict::Unchanged),
@@ -671,7 +1120,20 @@ mod tests {
         assert!(r.regressed());
         assert_eq!(r.worse_terms(), vec!["variance"]);
         let text = r.to_string();
+        assert!(
+            text.starts_with("mode: unpaired, same evaluation points"),
+            "{text}"
+        );
         assert!(text.contains("REGRESSED: 1 worse (variance)"), "{text}");
+        assert!(
+            text.contains("[unpaired, same points: z > 4 and d > 2% of |base|]"),
+            "{text}"
+        );
+        assert!(text.contains("worse   k = 1  variance"), "{text}");
+        assert!(
+            text.contains("0.2500 -> 0.3100  d = +0.06000 (+24.0%) ± 0.014"),
+            "{text}"
+        );
         assert!(
             !text.contains("bias_sq"),
             "unchanged terms are not listed: {text}"
@@ -682,24 +1144,184 @@ mod tests {
             ..CheckOptions::default()
         };
         assert!(!compare(&new, &base, &opts).unwrap().regressed());
+
+        // Different evaluation points (random draws): se² = 2·0.01² + 2·0.1²/5 = 0.0042,
+        // se = 0.064807, 4·se = 0.259: nothing is flagged any more.
+        new.uncertainty.as_mut().unwrap().eval_fingerprint = "q".into();
+        new.uncertainty.as_mut().unwrap().eval_seed = 7;
+        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        assert_eq!(r.mode, Mode::OtherPoints);
+        assert!((r.comparisons[2].se - 0.0042f64.sqrt()).abs() < 1e-15);
+        assert!(r
+            .comparisons
+            .iter()
+            .all(|c| c.verdict == Verdict::Unchanged));
+        assert!(r.to_string().contains("eval_seed 7 against 1"), "{r}");
+    }
+
+    // The paired jackknife by hand: D_(b) = [0.06, 0.05, 0.07, 0.06], mean 0.06,
+    // Σ(D − D̄)² = 0.0002, se = √(3/4 · 0.0002) = 0.0122474 (Efron & Tibshirani 1993, eq. 11.5).
+    #[test]
+    fn paired_rule_on_hand_made_numbers() {
+        let lo_base = [0.25, 0.26, 0.24, 0.25];
+        let lo_new = [0.31, 0.31, 0.31, 0.31];
+        let el = [1.0, 1.0, 1.0, 1.0];
+        let base = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.05))]),
+            "p",
+            1,
+            &[
+                ("variance", lo_base),
+                ("expected_loss", el),
+                ("bias_sq", el),
+            ],
+            0.1,
+        );
+        let new = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.31, Some(0.05))]),
+            "p",
+            1,
+            &[("variance", lo_new), ("expected_loss", el), ("bias_sq", el)],
+            0.1,
+        );
+        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        assert_eq!(r.mode, Mode::Paired);
+        let v = &r.comparisons[2];
+        assert_eq!(v.term, "variance");
+        assert!((v.se - 0.00015f64.sqrt()).abs() < 1e-12, "{}", v.se);
+        // Unpaired, the same change would be 0.06 / 0.0707 = 0.85 standard errors.
+        assert!((v.unpaired_se.unwrap() - 0.05 * 2f64.sqrt()).abs() < 1e-15);
+        assert_eq!(v.verdict, Verdict::Worse);
+        assert!(
+            (r.se_ratio().unwrap() - 0.0).abs() < 1e-12,
+            "two terms have se 0"
+        );
+        // Equal terms with se 0: unchanged, not a division by zero.
+        assert_eq!(r.comparisons[0].verdict, Verdict::Unchanged);
+        assert_eq!(r.comparisons[0].z(), 0.0);
+        let text = r.to_string();
+        assert!(text.starts_with("mode: paired (same seed 1"), "{text}");
+        assert!(
+            text.contains("[paired: z > 4 and d > 2% of |base|]"),
+            "{text}"
+        );
+
+        // A difference no block moves (se = 0) is judged by the margin alone: +0.005 on an
+        // expected loss of 1 is below 2 %, +0.05 above it.
+        for (shift, verdict) in [(0.005, Verdict::Unchanged), (0.05, Verdict::Worse)] {
+            let mut n2 = new.clone();
+            set(&mut n2, "expected_loss", 1.0 + shift);
+            let u = n2.uncertainty.as_mut().unwrap();
+            u.rows[0]
+                .leave_out
+                .insert("expected_loss".into(), pack_floats(&[1.0 + shift; 4]));
+            let r = compare(&n2, &base, &CheckOptions::default()).unwrap();
+            let c = &r.comparisons[0];
+            assert_eq!((c.se, c.verdict), (0.0, verdict), "{r}");
+            if verdict == Verdict::Worse {
+                assert!(c.margin_only());
+                assert!(
+                    r.to_string()
+                        .contains("se = 0, so by the margin alone: d > 2% of |base|"),
+                    "{r}"
+                );
+            }
+        }
     }
 
     #[test]
-    fn identical_refusals_and_missing_stderr() {
+    fn refusals_by_mode() {
+        let plain = doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]);
+        let mut changed = plain.clone();
+        set(&mut changed, "variance", 0.3);
+        // Old documents (no uncertainty): identical is fine, anything else is refused.
+        let r = compare(&plain, &plain, &CheckOptions::default()).unwrap();
+        assert!(r.identical && r.mode == Mode::Identical);
+        let e = compare(&changed, &plain, &CheckOptions::default()).unwrap_err();
+        assert!(matches!(e, CheckError::MissingData(_)), "{e}");
+        let msg = e.to_string();
+        assert!(msg.contains("no `uncertainty` section"), "{msg}");
+        assert!(
+            msg.contains("rerun the result") || msg.contains("rerun the"),
+            "{msg}"
+        );
+        let new = with_unc(changed.clone(), "p", 1, &[], 0.1);
+        let e = compare(&new, &plain, &CheckOptions::default()).unwrap_err();
+        assert!(
+            e.to_string().contains("the baseline has no `uncertainty`"),
+            "{e}"
+        );
+
+        // Different points on an evenly spaced input: refused, naming eval_seed.
+        let mut even = plain.clone();
+        even.scenario.inputs[0].distribution = "evenly spaced over [0, 1]".into();
+        let mut even_new = changed.clone();
+        even_new.scenario.inputs[0].distribution = "evenly spaced over [0, 1]".into();
+        let base = with_unc(even, "p", 1, &[], 0.1);
+        let new = with_unc(even_new, "q", 2, &[], 0.1);
+        let e = compare(&new, &base, &CheckOptions::default()).unwrap_err();
+        assert!(matches!(e, CheckError::Mismatch(_)), "{e}");
+        let msg = e.to_string();
+        assert!(
+            msg.contains("eval_seed 2 in the result, 1 in the baseline"),
+            "{msg}"
+        );
+        assert!(msg.contains("evenly spaced"), "{msg}");
+        assert!(msg.contains("same eval_seed"), "{msg}");
+        // A fixed design and tables likewise.
+        for (key, value, why) in [
+            ("design", "fixed", "fixed design"),
+            ("eval", "design", "training design"),
+            ("source", "table", "table"),
+        ] {
+            let mut b = plain.clone();
+            let mut n = changed.clone();
+            for d in [&mut b, &mut n] {
+                match key {
+                    "design" => d.scenario.design = value.into(),
+                    "eval" => d.scenario.eval = value.into(),
+                    _ => d.scenario.source = value.into(),
+                }
+            }
+            let e = compare(
+                &with_unc(n, "q", 2, &[], 0.1),
+                &with_unc(b, "p", 1, &[], 0.1),
+                &CheckOptions::default(),
+            )
+            .unwrap_err();
+            assert!(e.to_string().contains(why), "{e}");
+        }
+        // Same eval_seed, different points: the data changed.
+        let e = compare(
+            &with_unc(changed.clone(), "q", 1, &[], 0.1),
+            &with_unc(plain.clone(), "p", 1, &[], 0.1),
+            &CheckOptions::default(),
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("data changed"), "{e}");
+        // Paired without leave-one-block-out values (a single block): cannot judge.
+        let mut one = plain.clone();
+        one.points[0].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);
+        let mut one_new = changed.clone();
+        one_new.points[0]
+            .stderr
+            .iter_mut()
+            .for_each(|s| s.1 = f64::NAN);
+        let e = compare(
+            &with_unc(one_new, "p", 1, &[], 0.1),
+            &with_unc(one, "p", 1, &[], 0.1),
+            &CheckOptions::default(),
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("at least 2 replicate blocks"), "{e}");
+    }
+
+    #[test]
+    fn scenario_mismatches_and_rows() {
         let base = doc(vec![
             row(1.0, 1.0, 0.5, 0.25, None),
             row(2.0, 1.0, 0.5, 0.25, None),
         ]);
-        let r = compare(&base, &base, &CheckOptions::default()).unwrap();
-        assert!(r.identical && !r.regressed());
-        assert!(r.to_string().starts_with("identical"));
-        // Null standard errors: identical documents are fine, different ones cannot be judged.
-        let mut new = base.clone();
-        new.points[0].terms[2].1 = 0.3;
-        let e = compare(&new, &base, &CheckOptions::default()).unwrap_err();
-        assert!(matches!(e, CheckError::MissingStderr(_)), "{e}");
-        assert!(e.to_string().contains("at least 2 replicate blocks"));
-
         let mut other = base.clone();
         other.scenario.train_size = 20;
         let e = compare(&other, &base, &CheckOptions::default()).unwrap_err();
@@ -720,20 +1342,35 @@ mod tests {
             compare(&other, &base, &CheckOptions::default()),
             Err(CheckError::Mismatch(_))
         ));
-        // Replicates, blocks and seed may differ.
+        // Replicates, blocks, seed and eval_seed may differ.
         let mut other = base.clone();
         other.replicates = 16;
         other.scenario.blocks = 8;
+        other.scenario.eval_seed = Some(3);
         other.seed = 9;
         assert!(compare(&other, &base, &CheckOptions::default()).is_ok());
+        // Rows are matched by (family, size, value), not by position.
+        let mut swapped = base.clone();
+        swapped.points.reverse();
+        let r = compare(&swapped, &base, &CheckOptions::default()).unwrap();
+        assert!(r.identical);
+        let mut sized = base.clone();
+        sized.points[1].train_size = Some(50);
+        let e = compare(&sized, &base, &CheckOptions::default()).unwrap_err();
+        assert_eq!(
+            e.to_string(),
+            "cannot compare: the row k = 2, n = 50 is in the result but not in the baseline"
+        );
     }
 
     #[test]
     fn margins_parse() {
         assert_eq!(parse_margin("2%").unwrap(), 0.02);
         assert_eq!(parse_margin("0.05").unwrap(), 0.05);
-        assert!(parse_margin("-1%").is_err());
+        assert!(parse_margin("-1%").unwrap_err().contains("negative"));
         assert!(parse_margin("abc").is_err());
+        assert_eq!(pct(0.07), "7%");
+        assert_eq!(pct(0.005), "0.5%");
         assert_eq!(
             parse_term_margin("variance=5%").unwrap(),
             ("variance".to_string(), 0.05)
@@ -750,7 +1387,13 @@ mod tests {
 
     #[test]
     fn documents_round_trip_through_json() {
-        let d = doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]);
+        let d = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]),
+            "p",
+            1,
+            &[("variance", [1.0, 2.0, 3.0, 4.0])],
+            0.1,
+        );
         let text = crate::report::to_json(&d);
         assert_eq!(parse_result(&text, "x").unwrap(), d);
         assert!(parse_result("{}", "x").is_err());

@@ -48,11 +48,14 @@ pub enum Command {
     /// byte to the unsharded run. Refuses parts of different runs or shard counts, duplicated
     /// parts and missing blocks (exit 2).
     Merge(MergeArgs),
-    /// Compare a result with a baseline result of the same scenario: "identical" when every
-    /// number agrees; otherwise a term is worse when it grew by more than --sigma standard
-    /// errors and more than the margin. Exit 0 nothing worse, 1 something worse, 2 the documents
-    /// cannot be compared (different scenario, family, knob, grid or loss; missing standard
-    /// errors).
+    /// Compare a result with a baseline result of the same scenario. The mode is chosen and
+    /// printed: "identical" when every number agrees; "paired" (same seed, replicates, blocks and
+    /// evaluation points: jackknife of the differences over the blocks); "unpaired" otherwise
+    /// (independent standard errors, plus the evaluation points' sampling variance when their
+    /// eval_seed differs). A term is worse when it grew by more than --sigma standard errors of
+    /// the difference and more than the margin. Exit 0 nothing worse, 1 something worse, 2 the
+    /// documents cannot be compared (different scenario, family, knob, grid or loss; missing
+    /// standard errors; an old baseline; fixed evaluation points that differ).
     Check(CheckArgs),
     /// Draw the curve picture (SVG) of a saved result document, and the selection histogram
     /// when the result holds a cross-validation audit.
@@ -137,9 +140,16 @@ pub struct RunArgs {
     /// Override the number of replicates R (at least 2).
     #[arg(long, allow_negative_numbers = true, value_name = "R")]
     pub replicates: Option<u64>,
-    /// Override the master seed.
+    /// Override the master seed: fresh training sets and fit seeds. The evaluation points and a
+    /// fixed design stay where they are (see --eval-seed), so results of different seeds
+    /// estimate the same quantities and `check` can compare them.
     #[arg(long, allow_negative_numbers = true)]
     pub seed: Option<u64>,
+    /// Override the seed of the evaluation points and of a fixed design (default: the file's
+    /// `eval_seed`, else its `seed`, else 1; --seed does not move them). Synthetic and twin
+    /// sources only: a table's evaluation points are its rows.
+    #[arg(long, value_name = "N")]
+    pub eval_seed: Option<u64>,
     /// Worker threads (0 = one per core). Results do not depend on it.
     #[arg(long, allow_negative_numbers = true, default_value_t = 0)]
     pub threads: usize,
@@ -202,11 +212,11 @@ pub struct CheckArgs {
     /// The stored baseline result document.
     #[arg(long, value_name = "BASE.json")]
     pub baseline: PathBuf,
-    /// Standard errors a change must exceed to count (default 4).
-    #[arg(long, default_value = "4", allow_hyphen_values = true,
+    /// Standard errors of the difference a change must exceed to count (|z| > SIGMA).
+    #[arg(long, default_value = "4", allow_hyphen_values = true, value_name = "SIGMA",
           value_parser = crate::check::parse_sigma)]
     pub sigma: f64,
-    /// Relative change a term must exceed to count: `2%` or `0.02`.
+    /// Relative change a term must exceed to count, of the baseline's value: `2%` or `0.02`.
     #[arg(long, default_value = "2%", allow_hyphen_values = true,
           value_parser = crate::check::parse_margin)]
     pub margin: f64,

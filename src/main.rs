@@ -12,9 +12,13 @@ fn main() -> ExitCode {
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {
-            let code = if e.use_stderr() { 2 } else { 0 };
-            let _ = e.print();
-            return ExitCode::from(code);
+            if !e.use_stderr() {
+                // --help and --version: printed in full on standard output
+                let _ = e.print();
+                return ExitCode::from(0);
+            }
+            eprintln!("{}", one_line(&e.render().to_string()));
+            return ExitCode::from(2);
         }
     };
     let result = match cli.command {
@@ -36,4 +40,37 @@ fn main() -> ExitCode {
             ExitCode::from(2)
         }
     }
+}
+
+/// A command-line parsing error on one line: the message, the items listed under it (a missing
+/// argument's name, say) and clap's tip, then a pointer to `--help`.
+fn one_line(rendered: &str) -> String {
+    let mut lines = rendered.lines();
+    let mut out = lines
+        .next()
+        .unwrap_or("error: bad command line")
+        .trim_end()
+        .to_string();
+    let mut listed = Vec::new();
+    let mut tip = None;
+    for l in lines {
+        let t = l.trim();
+        if t.starts_with("Usage:") || t.starts_with("For more information") {
+            break;
+        }
+        if let Some(rest) = t.strip_prefix("tip:") {
+            tip = Some(rest.trim().to_string());
+        } else if !t.is_empty() && l.starts_with(' ') {
+            listed.push(t.to_string());
+        }
+    }
+    if !listed.is_empty() {
+        out.push(' ');
+        out.push_str(&listed.join(", "));
+    }
+    if let Some(t) = tip {
+        out.push_str(&format!(" ({t})"));
+    }
+    out.push_str("; see --help");
+    out
 }

@@ -120,14 +120,14 @@ impl ScenarioSource {
 
 /// The fingerprint of a run: FNV-1a (64 bit) of the canonical JSON of the part format, program
 /// version, resolved scenario echo, the scenario file's settings (parsed, so comments and layout
-/// do not count; `seed` and `replicates` are taken after overrides), the models (family, knob,
-/// grid bit patterns, fits), the loss, seed, replicates, blocks, and a digest of any data the
-/// plan read from files.
+/// do not count; `replicates` is taken after overrides; the file's own `seed` stays, since it
+/// places the evaluation points and a table's holdout even under `--seed`), the models (family,
+/// knob, grid bit patterns, fits), the loss, seed and evaluation seed after overrides,
+/// replicates, blocks, and a digest of any data the plan read from files.
 pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let mut spec: toml::Table = text
         .parse()
         .map_err(|e: toml::de::Error| Error::Usage(format!("scenario text: {}", e.message())))?;
-    spec.remove("seed");
     spec.remove("replicates");
     let fail = |e: serde_json::Error| Error::Usage(format!("fingerprint: {e}"));
     let echo = serde_json::to_value(report::scenario_echo(plan)).map_err(fail)?;
@@ -152,6 +152,7 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
         "models": models,
         "loss": plan.loss.name(),
         "seed": plan.seed,
+        "eval_seed": plan.eval_seed,
         "replicates": plan.replicates,
         "blocks": plan.blocks,
         "data": data_digest(plan),
@@ -419,6 +420,7 @@ pub fn part_doc(
         seed: plan.seed,
         replicates: plan.replicates,
         blocks: plan.blocks,
+        eval_seed: plan.eval_seed_explicit.then_some(plan.eval_seed),
         scenario_file: source.file.clone(),
         scenario_text: source.text.clone(),
         completed: blocks
@@ -550,6 +552,9 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
         format!("grid {} vs {}", words(&a.grids), words(&b.grids))
     } else if a.seed != b.seed {
         format!("seed {} vs {}", a.seed, b.seed)
+    } else if a.eval_seed != b.eval_seed {
+        let w = |e: Option<u64>| e.map_or_else(|| "from the seed".to_string(), |v| v.to_string());
+        format!("eval_seed {} vs {}", w(a.eval_seed), w(b.eval_seed))
     } else if a.replicates != b.replicates {
         format!("replicates {} vs {}", a.replicates, b.replicates)
     } else if a.blocks != b.blocks {
@@ -879,6 +884,7 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
     let opts = PlanOptions {
         replicates: Some(first.replicates),
         seed: Some(first.seed),
+        eval_seed: first.eval_seed,
     };
     let plan = source.plan(&opts).map_err(|e| {
         refuse(format!(

@@ -270,6 +270,7 @@ fn check_poly_fixed(label: &str, src: &str, sigma: f64, coefs: &dyn Fn(usize) ->
         let opts = PlanOptions {
             seed: Some(plan.seed + 1 + s),
             replicates: Some(BIAS_R),
+            eval_seed: None,
         };
         let (_, o) = run_text(src, &opts);
         for (g, v) in b2.iter_mut().enumerate() {
@@ -663,6 +664,7 @@ grid = [1]
         let opts = PlanOptions {
             seed: Some(1000 + s),
             replicates: Some(r),
+            eval_seed: None,
         };
         let plan =
             Plan::from_spec(&spec, &src, "inline.toml", Path::new("."), &opts).expect("plans");

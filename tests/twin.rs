@@ -128,6 +128,7 @@ fn twin_scenario_round_trips_with_audit_and_varying_noise() {
         &PlanOptions {
             replicates: Some(8),
             seed: None,
+            eval_seed: None,
         },
     )
     .expect("plans");
@@ -169,6 +170,7 @@ fn classification_twin_has_no_zero_probability() {
         &PlanOptions {
             replicates: Some(6),
             seed: None,
+            eval_seed: None,
         },
     )
     .unwrap();

@@ -219,9 +219,17 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     let opts = PlanOptions {
         replicates: args.replicates,
         seed: args.seed,
+        eval_seed: args.eval_seed,
     };
     let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
     let plan = source.plan(&opts)?;
+    if args.eval_seed.is_some() && matches!(plan.source, Source::Table(_)) {
+        return Err(Error::Usage(format!(
+            "{}: --eval-seed applies to synthetic and twin sources; a table's evaluation points \
+             are its rows (drop --eval-seed)",
+            plan.file
+        )));
+    }
     refuse_custom(&plan)?;
     runner::pool_check(args.threads)?;
     // Before anything is allocated: the evaluation points, the training sets, the accumulators.
@@ -490,6 +498,12 @@ fn refuse_custom(plan: &Plan) -> Result<(), Error> {
 /// `lossprism check`: compare a result with a baseline; exit 0 nothing worse, 1 something worse.
 pub fn check(args: CheckArgs) -> Result<u8, Error> {
     use crate::check;
+    let opts = check::CheckOptions {
+        sigma: args.sigma,
+        margin: args.margin,
+        term_margins: args.margin_term.clone(),
+    };
+    opts.validate().map_err(|e| Error::Usage(e.to_string()))?;
     let read = |p: &Path| -> Result<(String, report::ResultDoc), Error> {
         let text = read_result_text(p)?;
         let doc = check::parse_result(&text, &p.display().to_string())
@@ -528,11 +542,6 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         )));
     }
     let (_, base) = read(&args.baseline)?;
-    let opts = check::CheckOptions {
-        sigma: args.sigma,
-        margin: args.margin,
-        term_margins: args.margin_term,
-    };
     let rep = check::compare(&new, &base, &opts).map_err(|e| Error::Usage(e.to_string()))?;
     print!("{rep}");
     if args.update {

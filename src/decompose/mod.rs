@@ -496,6 +496,10 @@ pub struct Summary {
     pub stderr: Vec<Row>,
     /// Terms of each leave-one-block-out fold (empty with fewer than two blocks).
     pub leave_out: Vec<Vec<Row>>,
+    /// Per grid value and term, the Monte Carlo share of the variance of the per-point terms
+    /// across the evaluation points (see [`point_noise`]); empty unless every replicate
+    /// evaluates every point of a known truth and there are at least two blocks.
+    pub point_noise: Vec<Row>,
     /// All blocks folded in order.
     pub total: Acc,
 }
@@ -510,6 +514,8 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
     let values = loss.evaluate(&total, target);
     let nb = blocks.len();
     let mut leave_out: Vec<Vec<Row>> = Vec::with_capacity(nb);
+    let mut noise = (nb >= 2 && total.shape.all_points && !target.observed())
+        .then(|| PointNoise::new(total.shape.points, total.shape.grid, terms.len()));
     if nb >= 2 {
         let mut prefix: Option<Acc> = None;
         for b in 0..nb {
@@ -522,6 +528,9 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
             }
             let acc = acc.expect("at least one block remains");
             leave_out.push(loss.evaluate(&acc, target));
+            if let Some(n) = &mut noise {
+                n.push(&per_point(loss, &acc, target));
+            }
             match &mut prefix {
                 None => prefix = Some(blocks[b].clone()),
                 Some(o) => o.merge(loss, &blocks[b]),
@@ -550,8 +559,123 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
         values,
         stderr,
         leave_out,
+        point_noise: noise.map(|n| n.finish()).unwrap_or_default(),
         total,
     })
+}
+
+/// Streaming state of [`point_noise`]: per point, grid value and term, Welford's running mean
+/// and sum of squares over the leave-one-block-out folds of the point's term centred on the
+/// fold's mean over points.
+struct PointNoise {
+    folds: u64,
+    grid: usize,
+    terms: usize,
+    /// Per (point, grid, term): folds with a finite value.
+    n: Vec<u64>,
+    mean: Vec<f64>,
+    m2: Vec<f64>,
+}
+
+impl PointNoise {
+    fn new(points: usize, grid: usize, terms: usize) -> PointNoise {
+        let len = points * grid * terms;
+        PointNoise {
+            folds: 0,
+            grid,
+            terms,
+            n: vec![0; len],
+            mean: vec![0.0; len],
+            m2: vec![0.0; len],
+        }
+    }
+
+    /// Adds one fold's per-point terms (`points × grid × terms`).
+    fn push(&mut self, rows: &[Vec<Row>]) {
+        self.folds += 1;
+        for g in 0..self.grid {
+            for t in 0..self.terms {
+                let (mut sum, mut k) = (0.0, 0u64);
+                for r in rows {
+                    let v = r[g][t];
+                    if v.is_finite() {
+                        sum += v;
+                        k += 1;
+                    }
+                }
+                if k == 0 {
+                    continue;
+                }
+                let centre = sum / k as f64;
+                for (e, r) in rows.iter().enumerate() {
+                    let v = r[g][t];
+                    if !v.is_finite() {
+                        continue;
+                    }
+                    let c = v - centre;
+                    let i = (e * self.grid + g) * self.terms + t;
+                    self.n[i] += 1;
+                    let d = c - self.mean[i];
+                    self.mean[i] += d / self.n[i] as f64;
+                    self.m2[i] += d * (c - self.mean[i]);
+                }
+            }
+        }
+    }
+
+    fn finish(self) -> Vec<Row> {
+        let b = self.folds as f64;
+        let points = self.n.len() / (self.grid * self.terms).max(1);
+        (0..self.grid)
+            .map(|g| {
+                (0..self.terms)
+                    .map(|t| {
+                        let (mut sum, mut k) = (0.0, 0usize);
+                        for e in 0..points {
+                            let i = (e * self.grid + g) * self.terms + t;
+                            if self.n[i] == self.folds && self.folds >= 2 {
+                                // Delete-a-group jackknife variance (Efron and Tibshirani 1993,
+                                // eq. 11.5) of the point's centred term.
+                                sum += (b - 1.0) / b * self.m2[i];
+                                k += 1;
+                            }
+                        }
+                        if k >= 2 {
+                            sum / (k - 1) as f64
+                        } else {
+                            f64::NAN
+                        }
+                    })
+                    .collect()
+            })
+            .collect()
+    }
+}
+
+/// Per point, the terms of `acc` at that point alone (`points × grid × terms`).
+fn per_point(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Vec<Row>> {
+    let k = acc.shape.classes;
+    (0..acc.shape.points)
+        .map(|e| {
+            let one = one_point(acc, e);
+            let t = match target {
+                Target::Known {
+                    truth,
+                    noise_var,
+                    probs,
+                } => Target::Known {
+                    truth: &truth[e..e + 1],
+                    noise_var: &noise_var[e..e + 1],
+                    probs: probs.map(|p| &p[e * k..(e + 1) * k]),
+                },
+                Target::Observed { y, noise } => Target::Observed {
+                    y: &y[e..e + 1],
+                    noise: *noise,
+                },
+            };
+            loss.evaluate(&one, &t)
+        })
+        .collect()
 }
 
 /// The accumulator restricted to evaluation point `e` (every array laid out per cell keeps that
@@ -594,6 +718,12 @@ fn one_point(acc: &Acc, e: usize) -> Acc {
 /// the spread that makes a result's terms depend on which points were drawn (`check` adds
 /// `sd²/m` to compare results with different evaluation points). NaN where fewer than two points
 /// give a finite value.
+///
+/// The per-point terms are Monte Carlo estimates, so their spread also holds their own noise:
+/// `E[sd²] = (spread of the true per-point terms) + (1/(m−1)) Σ_e Var(ε_e − ε̄)`, where `ε_e` is
+/// point `e`'s Monte Carlo error. [`Summary::point_noise`] estimates the second part by the
+/// jackknife over blocks of each point's term centred on the mean over points, so
+/// `sd² − point_noise` estimates the first (the evaluation points' own sampling spread).
 pub fn point_spread(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
     let sh = acc.shape;
     let n_terms = loss.describe(&sh, target.observed()).len();

@@ -76,6 +76,34 @@ pub struct ScenarioEcho {
     pub fit_seeds: Option<usize>,
 }
 
+/// The start of an evenly spaced input's description (`InputDist::Even`), recognised by
+/// [`ScenarioEcho::points_not_drawn`].
+const EVEN_DESCRIPTION: &str = "evenly spaced";
+
+impl ScenarioEcho {
+    /// Why the evaluation points of this scenario are *not* independent draws from the input
+    /// distribution, or `None` when they are (a synthetic or twin source with a random design,
+    /// fresh evaluation points and no evenly spaced input). `check` adds an evaluation-point
+    /// sampling variance to runs with different points only when they are draws.
+    pub fn points_not_drawn(&self) -> Option<String> {
+        if self.source == "table" {
+            return Some("a table's evaluation points are its rows".into());
+        }
+        if self.eval == "design" {
+            return Some("the points are the training design".into());
+        }
+        if self.design == "fixed" {
+            return Some(
+                "the fixed design moves with them, which changes what is estimated".into(),
+            );
+        }
+        self.inputs
+            .iter()
+            .find(|i| i.distribution.starts_with(EVEN_DESCRIPTION))
+            .map(|i| format!("input `{}` is evenly spaced, not drawn", i.name))
+    }
+}
+
 /// How a term is described in a result document (the loss's [`TermInfo`], owned).
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq, Eq)]
 pub struct TermDoc {
@@ -866,6 +894,12 @@ pub struct RowUncertainty {
     pub leave_out: std::collections::BTreeMap<String, String>,
     /// Per term: the standard deviation of the per-point term across the evaluation points.
     pub point_sd: std::collections::BTreeMap<String, f64>,
+    /// Per term: the part of `point_sd²` that is the per-point terms' own Monte Carlo noise
+    /// (jackknife over blocks; see [`decompose::point_spread`]), so that `point_sd² −
+    /// point_noise` estimates the spread of the true per-point terms. Synthetic and twin sources
+    /// with at least two blocks.
+    #[serde(default, skip_serializing_if = "std::collections::BTreeMap::is_empty")]
+    pub point_noise: std::collections::BTreeMap<String, f64>,
 }
 
 impl RowUncertainty {
@@ -905,6 +939,7 @@ fn uncertainty(plan: &Plan, outcome: &Outcome) -> Uncertainty {
         for g in 0..s.values.len() {
             let mut leave_out = std::collections::BTreeMap::new();
             let mut point_sd = std::collections::BTreeMap::new();
+            let mut point_noise = std::collections::BTreeMap::new();
             for (t, info) in s.terms.iter().enumerate() {
                 if !info.stderr {
                     continue;
@@ -917,10 +952,14 @@ fn uncertainty(plan: &Plan, outcome: &Outcome) -> Uncertainty {
                 if sd.is_finite() {
                     point_sd.insert(info.key.to_string(), sd);
                 }
+                if let Some(v) = s.point_noise.get(g).map(|r| r[t]).filter(|v| v.is_finite()) {
+                    point_noise.insert(info.key.to_string(), v);
+                }
             }
             rows_out.push(RowUncertainty {
                 leave_out,
                 point_sd,
+                point_noise,
             });
         }
     }
@@ -1430,4 +1469,18 @@ pub fn reading(
         ));
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    // `points_not_drawn` recognises evenly spaced inputs by the start of their description.
+    #[test]
+    fn even_inputs_are_recognised_by_their_description() {
+        let d = crate::dgp::InputDist::Even(0.0, 1.0).describe();
+        assert!(d.starts_with(EVEN_DESCRIPTION), "{d}");
+        let u = crate::dgp::InputDist::Uniform(0.0, 1.0).describe();
+        assert!(!u.starts_with(EVEN_DESCRIPTION), "{u}");
+    }
 }

@@ -124,6 +124,10 @@ pub struct PartDoc {
     pub replicates: u64,
     /// Number of replicate blocks.
     pub blocks: u64,
+    /// The seed of the evaluation points when set explicitly (by the file's `eval_seed` or by
+    /// `run --eval-seed`); absent when it follows the file's `seed`.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub eval_seed: Option<u64>,
     /// The scenario file as it was named on the command line.
     pub scenario_file: String,
     /// The scenario file's text, verbatim.

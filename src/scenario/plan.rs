@@ -36,6 +36,8 @@ pub struct PlanOptions {
     pub replicates: Option<u64>,
     /// Replaces `seed`.
     pub seed: Option<u64>,
+    /// Replaces `eval_seed` (`run --eval-seed`): moves the evaluation points and a fixed design.
+    pub eval_seed: Option<u64>,
 }
 
 /// Training-input design.
@@ -133,9 +135,11 @@ pub struct Plan {
     pub about: String,
     /// Master seed.
     pub seed: u64,
-    /// Seed of the evaluation points and of a fixed design (the file's `eval_seed`, else `seed`).
+    /// Seed of the evaluation points and of a fixed design: `--eval-seed`, else the file's
+    /// `eval_seed`, else the file's `seed`, else [`DEFAULT_SEED`]. `--seed` never moves it, so
+    /// runs with fresh seeds estimate the same quantities at the same points.
     pub eval_seed: u64,
-    /// Whether the file set `eval_seed` explicitly.
+    /// Whether `eval_seed` was set explicitly (by the file or by `--eval-seed`).
     pub eval_seed_explicit: bool,
     /// Replicates R.
     pub replicates: u64,
@@ -344,7 +348,13 @@ impl Plan {
             None => replicates.min(DEFAULT_MAX_BLOCKS),
         };
         let seed = opts.seed.or(spec.seed).unwrap_or(DEFAULT_SEED);
-        let eval_seed = spec.eval_seed.unwrap_or(seed);
+        // The evaluation points (and a fixed design) follow the file, not `--seed`: fresh seeds
+        // redraw only the training sets (issue #13).
+        let eval_seed = opts
+            .eval_seed
+            .or(spec.eval_seed)
+            .or(spec.seed)
+            .unwrap_or(DEFAULT_SEED);
 
         let source_name = data.source.get_ref().as_str();
         let source = match source_name {
@@ -474,7 +484,7 @@ impl Plan {
             about: spec.about.clone().unwrap_or_default(),
             seed,
             eval_seed,
-            eval_seed_explicit: spec.eval_seed.is_some(),
+            eval_seed_explicit: opts.eval_seed.is_some() || spec.eval_seed.is_some(),
             replicates,
             blocks,
             source,

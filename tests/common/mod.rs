@@ -2,6 +2,8 @@
 //! assertions every command-line test makes (exit code 2, one line on standard error, no panic).
 #![allow(dead_code)]
 
+pub mod stats;
+
 use std::fs;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
