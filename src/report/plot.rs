@@ -8,7 +8,7 @@ use plotters::prelude::*;
 use super::terminal::View;
 use super::{PointRow, ResultDoc};
 use crate::error::Error;
-use crate::fmt::fmt_value;
+use crate::fmt::{fmt_num, fmt_value};
 use crate::runner::Outcome;
 use crate::scenario::{Plan, Source};
 use ndarray::{Array1, Array2};
@@ -32,6 +32,12 @@ const SKY: RGBColor = RGBColor(0x4a, 0xa3, 0xdf);
 const STONE: RGBColor = RGBColor(0x70, 0x70, 0x70);
 const PAPER: RGBColor = RGBColor(0xff, 0xff, 0xff);
 const SAGE: RGBColor = RGBColor(0xe4, 0xee, 0xd8);
+// Two more hues for the terms of ensembles: plum (diversity) and ochre (average member loss),
+// each with its own dash pattern and marker; and a deeper blue for `var (data)`, the lower part
+// of the stacked split of the variance (whose upper part, `var (fit)`, is pale sky blue).
+const PLUM: RGBColor = RGBColor(0x8e, 0x3f, 0x9e);
+const OCHRE: RGBColor = RGBColor(0xb8, 0x8a, 0x00);
+const DEEP: RGBColor = RGBColor(0x1f, 0x5f, 0x96);
 const FONT: &str = "sans-serif";
 
 fn draw_err<E: std::error::Error + Send + Sync>(e: DrawingAreaErrorKind<E>) -> Error {
@@ -159,7 +165,95 @@ fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
         s.se = vec![Some(0.0); s.values.len()];
         out.push(s);
     }
+    // Ensembles: the average member's loss and the members' diversity, after the four above
+    // (whose positions the region labels use).
+    if group == "main" {
+        for (key, look) in [
+            (
+                "member_loss",
+                Look {
+                    color: OCHRE,
+                    width: 2,
+                    dash: Dash::Dashed(6, 3),
+                    marker: Marker::Dot,
+                },
+            ),
+            (
+                "diversity",
+                Look {
+                    color: PLUM,
+                    width: 2,
+                    dash: Dash::Dashed(2, 3),
+                    marker: Marker::Diamond,
+                },
+            ),
+        ] {
+            if let Some(t) = terms.iter().find(|t| t.key == key) {
+                out.push(series(key, t.label.clone(), look));
+            }
+        }
+    }
     out
+}
+
+/// The split of the variance over several fit seeds, drawn as a stacked band under the
+/// variance line: `var (data)` from zero, `var (fit)` on top of it (they add up to the variance
+/// exactly).
+struct Split {
+    data: Vec<f64>,
+    total: Vec<f64>,
+    data_label: String,
+    fit_label: String,
+}
+
+/// The variance split of the main view; `None` without fit seeds or in another view.
+fn variance_split(doc: &ResultDoc, view: View) -> Option<Split> {
+    if !matches!(view, View::Domingos | View::All) {
+        return None;
+    }
+    let terms = doc.term_docs();
+    let label = |k: &str| terms.iter().find(|t| t.key == k).map(|t| t.label.clone());
+    let (data_label, fit_label) = (label("variance_data")?, label("variance_fit")?);
+    let p = &doc.points;
+    Some(Split {
+        data: p.iter().map(|r| r.get("variance_data")).collect(),
+        total: p
+            .iter()
+            .map(|r| r.get("variance_data") + r.get("variance_fit"))
+            .collect(),
+        data_label,
+        fit_label,
+    })
+}
+
+/// The top of the y axis when some grid value's expected loss is far above the rest (as at the
+/// interpolation peak of double descent, where the expected loss is unbounded): five times the
+/// median expected loss over the grid, when some series (with its band) exceeds that.
+fn clipped_top(series: &[Series]) -> Option<f64> {
+    let loss = series.first()?;
+    let mut v: Vec<f64> = loss
+        .values
+        .iter()
+        .copied()
+        .filter(|x| x.is_finite())
+        .collect();
+    if v.len() < 3 {
+        return None;
+    }
+    v.sort_by(f64::total_cmp);
+    let median = v[v.len() / 2];
+    let cap = 5.0 * median;
+    let top = series
+        .iter()
+        .flat_map(|s| {
+            s.values
+                .iter()
+                .zip(&s.se)
+                .map(|(x, e)| x + 2.0 * e.unwrap_or(0.0))
+        })
+        .filter(|x| x.is_finite())
+        .fold(f64::NEG_INFINITY, f64::max);
+    (median > 0.0 && top > cap).then_some(cap)
 }
 
 /// Whether the x axis is logarithmic: a `log` grid of positive values.
@@ -289,6 +383,8 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
         return Err(Error::Usage("the result has no grid values to plot".into()));
     }
     let series = curve_series(doc, view);
+    let split = variance_split(doc, view);
+    let clip = clipped_top(&series);
     let log = log_axis(doc);
     let tx = |v: f64| if log { v.log10() } else { v };
     let xs: Vec<f64> = doc.points.iter().map(|p| tx(p.value)).collect();
@@ -297,11 +393,18 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
     for s in &series {
         for (v, e) in s.values.iter().zip(&s.se) {
             let e = e.unwrap_or(0.0);
-            ys.push(v - 2.0 * e);
-            ys.push(v + 2.0 * e);
+            // with a clipped axis, a band that reaches past the top does not set the range
+            if clip.map_or(true, |c| v + 2.0 * e <= c) {
+                ys.push(v - 2.0 * e);
+                ys.push(v + 2.0 * e);
+            }
         }
     }
+    if let Some(c) = clip {
+        ys.push(c);
+    }
     let (y0, y1) = padded(ys.into_iter(), &[0.0], 0.06);
+    let y1 = clip.map_or(y1, |c| c.min(y1));
     let unit = if doc.loss == "squared" {
         "loss (squared units of the response)"
     } else {
@@ -313,7 +416,10 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
 
     let mut buf = String::new();
     {
-        let root = SVGBackend::with_string(&mut buf, CURVE_SIZE).into_drawing_area();
+        // Taller when the legend has more than the four usual series.
+        let extra = series.len().saturating_sub(4) + if split.is_some() { 2 } else { 0 };
+        let size = (CURVE_SIZE.0, CURVE_SIZE.1 + 34 * extra as u32);
+        let root = SVGBackend::with_string(&mut buf, size).into_drawing_area();
         root.fill(&PAPER).map_err(draw_err)?;
         let title = format!(
             "Where {knob} balances bias against variance ({}, {} family)",
@@ -326,7 +432,7 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             (FONT, 21).into_font().style(FontStyle::Bold).color(&INK),
         ))
         .map_err(draw_err)?;
-        let (plot, panel) = body.split_horizontally(CURVE_SIZE.0 - PANEL);
+        let (plot, panel) = body.split_horizontally(size.0 - PANEL);
         let mut chart = ChartBuilder::on(&plot)
             .margin_left(10)
             .margin_right(16)
@@ -393,6 +499,32 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
                 ))
                 .map_err(draw_err)?;
         }
+        // The variance split: var (data) stacked under var (fit), below every band and line.
+        if let Some(sp) = &split {
+            let zero = vec![0.0; xs.len()];
+            for (lo, hi, color) in [
+                (&zero, &sp.data, DEEP.mix(0.40)),
+                (&sp.data, &sp.total, SKY.mix(0.16)),
+            ] {
+                let lo: Vec<f64> = lo.iter().map(|v| v.min(y1)).collect();
+                let hi: Vec<f64> = hi.iter().map(|v| v.min(y1)).collect();
+                let poly = band(&xs, &lo, &hi);
+                if poly.len() >= 3 {
+                    chart
+                        .draw_series(std::iter::once(Polygon::new(poly, color.filled())))
+                        .map_err(draw_err)?;
+                }
+            }
+            let edge: Vec<(f64, f64)> = xs
+                .iter()
+                .zip(&sp.data)
+                .filter(|(x, y)| x.is_finite() && y.is_finite())
+                .map(|(x, y)| (*x, y.min(y1)))
+                .collect();
+            chart
+                .draw_series(LineSeries::new(edge, DEEP.stroke_width(1)))
+                .map_err(draw_err)?;
+        }
         // Bands first, so that every line stays visible on top of them.
         for s in &series {
             let lo: Vec<f64> = s
@@ -405,8 +537,9 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
                 .values
                 .iter()
                 .zip(&s.se)
-                .map(|(v, e)| v + 2.0 * e.unwrap_or(0.0))
+                .map(|(v, e)| (v + 2.0 * e.unwrap_or(0.0)).min(y1))
                 .collect();
+            let lo: Vec<f64> = lo.iter().map(|v| v.clamp(y0, y1)).collect();
             let poly = band(&xs, &lo, &hi);
             if poly.len() >= 3 {
                 chart
@@ -422,7 +555,7 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
                 .iter()
                 .zip(&s.values)
                 .filter(|(x, y)| x.is_finite() && y.is_finite())
-                .map(|(x, y)| (*x, *y))
+                .map(|(x, y)| (*x, y.min(y1)))
                 .collect();
             match s.look.dash {
                 Dash::Solid => chart
@@ -440,6 +573,39 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             for &(x, y) in &pts {
                 let px = chart.backend_coord(&(x, y));
                 marker_at(&root, s.look.marker, s.look.color, px)?;
+            }
+        }
+        // Expected losses above a clipped axis: an arrow at the top edge and the value beside it.
+        // The highest gets its value written beside it.
+        let mut off_scale: Vec<String> = Vec::new();
+        if clip.is_some() {
+            let (mut top, mut right): (Option<(f64, f64)>, f64) = (None, f64::NEG_INFINITY);
+            for ((x, v), p) in xs.iter().zip(&series[0].values).zip(&doc.points) {
+                if v.is_finite() && *v > y1 {
+                    let (px, py) = chart.backend_coord(&(*x, y1));
+                    root.draw(&TriangleMarker::new((px, py + 7), 6, INK.filled()))
+                        .map_err(draw_err)?;
+                    off_scale.push(fmt_value(p.value));
+                    if top.map_or(true, |(_, t)| *v > t) {
+                        top = Some((p.value, *v));
+                    }
+                    right = right.max(*x);
+                }
+            }
+            if let Some((g, v)) = top {
+                // right of the last arrow, where the curve has come down again
+                let (px, py) = chart.backend_coord(&(right, y1));
+                let text = format!(
+                    "{} at {knob} = {} (off the scale)",
+                    fmt_num(v),
+                    fmt_value(g)
+                );
+                root.draw(&Text::new(
+                    text,
+                    (px + 14, py + 2),
+                    (FONT, 13).into_font().color(&INK),
+                ))
+                .map_err(draw_err)?;
             }
         }
         // The best value: a ring around its expected loss and a label above the plot area.
@@ -460,26 +626,34 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             ))
             .map_err(draw_err)?;
 
-        // Above the plot area: which part of the grid is bias-dominated, which variance-dominated.
-        let region = |pick: &dyn Fn(usize) -> bool| -> Option<f64> {
-            let v: Vec<f64> = (0..xs.len()).filter(|&i| pick(i)).map(|i| xs[i]).collect();
-            (!v.is_empty()).then(|| (v[0] + v[v.len() - 1]) / 2.0)
-        };
+        // Above the plot area: which parts of the grid are bias-dominated, which
+        // variance-dominated, one label per run of neighbouring grid values (a label that would
+        // overlap the previous one is left out).
         let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
+        let mut runs: Vec<(usize, usize)> = Vec::new();
+        for i in 0..xs.len() {
+            match runs.last_mut() {
+                Some((_, e)) if bias_dom(*e) == bias_dom(i) => *e = i,
+                _ => runs.push((i, i)),
+            }
+        }
         let font = (FONT, 14).into_font().color(&STONE);
-        for (centre, text) in [
-            (region(&bias_dom), "bias-dominated"),
-            (region(&|i| !bias_dom(i)), "variance-dominated"),
-        ] {
-            if let Some(c) = centre {
-                let (px, _) = chart.backend_coord(&(c, y1));
-                let (_, top_y) = chart.backend_coord(&(c, y1));
-                let half = (text.chars().count() as i32 * 7) / 2;
-                let lo = chart.backend_coord(&(x0, y1)).0;
-                let hi = chart.backend_coord(&(x1, y1)).0;
-                let x = (px - half).clamp(lo, (hi - 2 * half).max(lo));
+        let lo = chart.backend_coord(&(x0, y1)).0;
+        let hi = chart.backend_coord(&(x1, y1)).0;
+        let mut right_edge = i32::MIN;
+        for (a, b) in runs {
+            let text = if bias_dom(a) {
+                "bias-dominated"
+            } else {
+                "variance-dominated"
+            };
+            let (px, top_y) = chart.backend_coord(&((xs[a] + xs[b]) / 2.0, y1));
+            let width = text.chars().count() as i32 * 7;
+            let x = (px - width / 2).clamp(lo, (hi - width).max(lo));
+            if x > right_edge + 8 {
                 root.draw(&Text::new(text, (x, top_y - 20), font.clone()))
                     .map_err(draw_err)?;
+                right_edge = x + width;
             }
         }
 
@@ -498,6 +672,24 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             sample_line(&panel, &s.look, 10, 58, y + 7)?;
             let ny = panel_text(&panel, &s.label, (68, y), 14, INK, 27)?;
             y = ny.max(y + 22) + 6;
+        }
+        if let Some(sp) = &split {
+            for (color, text) in [
+                (
+                    SKY.mix(0.16),
+                    format!("{}: upper part of the variance", sp.fit_label),
+                ),
+                (
+                    DEEP.mix(0.40),
+                    format!("{}: lower part of the variance", sp.data_label),
+                ),
+            ] {
+                panel
+                    .draw(&Rectangle::new([(12, y), (56, y + 16)], color.filled()))
+                    .map_err(draw_err)?;
+                let ny = panel_text(&panel, &text, (68, y), 14, INK, 27)?;
+                y = ny.max(y + 22) + 6;
+            }
         }
         y += 6;
         panel
@@ -519,7 +711,14 @@ pub fn curve_svg(doc: &ResultDoc, view: View) -> Result<String, Error> {
             INK,
             24,
         )? + 14;
-        let note = curve_note(doc, view);
+        let mut note = curve_note(doc, view);
+        if !off_scale.is_empty() {
+            note.push_str(&format!(
+                " The axis stops at five times the median expected loss: at {knob} = {} the \
+                 expected loss is off the scale (its value is written at the top).",
+                off_scale.join(", ")
+            ));
+        }
         panel_text(&panel, &note, (8, y), 12, STONE, 38)?;
         root.present().map_err(draw_err)?;
     }
@@ -558,11 +757,30 @@ fn curve_note(doc: &ResultDoc, view: View) -> String {
                     .map(|t| t.label),
             }
             .unwrap_or_else(|| "bias²".to_string());
-            format!(
-                "Expected loss = noise + {bias} + variance. {simple} of the best value the model \
-                 is simpler and {bias} tends to dominate (underfitting); {complex} of it variance \
-                 grows (overfitting)."
-            )
+            let has = |k: &str| doc.term_docs().iter().any(|t| t.key == k);
+            let mut note = if has("diversity") {
+                // Averaging exchangeable members: more members leave the bias alone and shrink
+                // only the variance, so "overfitting" is not what the right side shows.
+                format!(
+                    "Expected loss = noise + {bias} + variance = avg member loss − diversity \
+                     (Krogh and Vedelsby 1995; Wood et al. 2023): averaging the members takes \
+                     their diversity off the loss of a single member. {simple} of the best value \
+                     the model is simpler, {complex} of it more complex."
+                )
+            } else {
+                format!(
+                    "Expected loss = noise + {bias} + variance. {simple} of the best value the \
+                     model is simpler and {bias} tends to dominate (underfitting); {complex} of \
+                     it variance grows (overfitting)."
+                )
+            };
+            if has("variance_fit") {
+                note.push_str(
+                    " The shaded areas under the variance add up to it: the part due to the \
+                     training data below, the learner's own randomness (across fit seeds) above.",
+                );
+            }
+            note
         }
     }
 }
