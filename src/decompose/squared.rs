@@ -412,10 +412,10 @@ impl Loss for Squared {
             ));
             v.push(info(
                 "member_loss",
-                "member loss",
-                "average member expected loss = expected loss + diversity",
+                "avg member loss",
+                "expected loss of a single member, averaged over the members = expected loss + diversity (what averaging saves)",
                 Role::Other,
-                Detail,
+                Main,
                 false,
                 true,
             ));

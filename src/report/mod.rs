@@ -1190,6 +1190,10 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         &main_rows,
         &best,
     );
+    if let Some(more) = split_reading(model.family.knob(), &main_rows, &best) {
+        reading.push(' ');
+        reading.push_str(&more);
+    }
     let ranking = (nm > 1).then(|| rankings(plan, outcome));
     if let Some(r) = ranking.as_ref().and_then(|r| r.last()) {
         let top = &r.candidates[0];
@@ -1469,6 +1473,75 @@ pub fn reading(
         ));
     }
     out
+}
+
+/// What the variance is made of and what averaging saves, when the loss reports those terms:
+/// with several fit seeds, the share of the variance that is the learner's own randomness
+/// (`variance_fit`) or the training data (`variance_data`), at the simplest grid value and at the
+/// lowest expected loss; for an ensemble, how much the members' diversity takes off the
+/// average member's loss at the lowest expected loss (exact: `member_loss − diversity =
+/// expected_loss`). `None` when neither is reported.
+pub fn split_reading(knob: &str, points: &[PointRow], best: &Best) -> Option<String> {
+    let bi = points.iter().position(|p| p.value == best.value)?;
+    let mut parts: Vec<String> = Vec::new();
+    let share = |p: &PointRow| -> Option<String> {
+        if !p.has("variance_fit") || !p.has("variance_data") {
+            return None;
+        }
+        let (vd, vf, v) = (
+            p.get("variance_data"),
+            p.get("variance_fit"),
+            p.get("variance"),
+        );
+        if !(v > 0.0 && vd.is_finite() && vf.is_finite()) {
+            return None;
+        }
+        let fit = (vf / v).clamp(0.0, 1.0);
+        let pct = |x: f64| format!("{:.0}%", 100.0 * x);
+        Some(if fit >= 0.5 {
+            format!(
+                "mostly the learner's own randomness ({} var (fit), the spread across fit seeds on one training set)",
+                pct(fit)
+            )
+        } else {
+            format!(
+                "mostly the training data ({} var (data), the spread across training sets)",
+                pct(1.0 - fit)
+            )
+        })
+    };
+    let at = |p: &PointRow| format!("{knob} = {}", fmt_value(p.value));
+    let first = &points[0];
+    let b = &points[bi];
+    match (bi > 0).then(|| share(first)).flatten() {
+        Some(s0) => {
+            if let Some(sb) = share(b) {
+                parts.push(format!(
+                    "At {} the variance is {s0}; at {} (lowest expected loss) it is {sb}.",
+                    at(first),
+                    at(b)
+                ));
+            }
+        }
+        None => {
+            if let Some(sb) = share(b) {
+                parts.push(format!("At {} the variance is {sb}.", at(b)));
+            }
+        }
+    }
+    if b.has("diversity") && b.has("member_loss") {
+        let (d, ml) = (b.get("diversity"), b.get("member_loss"));
+        if d.is_finite() && ml.is_finite() && d > 0.0 {
+            parts.push(format!(
+                "At {} a single member would lose {} on average; the members' diversity ({}) is what averaging them takes off, leaving {}.",
+                at(b),
+                fmt_num(ml),
+                fmt_num(d),
+                fmt_num(b.expected_loss())
+            ));
+        }
+    }
+    (!parts.is_empty()).then(|| parts.join(" "))
 }
 
 #[cfg(test)]

@@ -32,6 +32,12 @@ const SKY: RGBColor = RGBColor(0x4a, 0xa3, 0xdf);
 const STONE: RGBColor = RGBColor(0x70, 0x70, 0x70);
 const PAPER: RGBColor = RGBColor(0xff, 0xff, 0xff);
 const SAGE: RGBColor = RGBColor(0xe4, 0xee, 0xd8);
+// Two more hues for the terms of ensembles: plum (diversity) and ochre (average member loss),
+// each with its own dash pattern and marker; and a deeper blue for `var (data)`, the lower part
+// of the stacked split of the variance (whose upper part, `var (fit)`, is pale sky blue).
+const PLUM: RGBColor = RGBColor(0x8e, 0x3f, 0x9e);
+const OCHRE: RGBColor = RGBColor(0xb8, 0x8a, 0x00);
+const DEEP: RGBColor = RGBColor(0x1f, 0x5f, 0x96);
 const FONT: &str = "sans-serif";
 
 fn draw_err<E: std::error::Error + Send + Sync>(e: DrawingAreaErrorKind<E>) -> Error {
@@ -159,7 +165,65 @@ fn curve_series(doc: &ResultDoc, view: View) -> Vec<Series> {
         s.se = vec![Some(0.0); s.values.len()];
         out.push(s);
     }
+    // Ensembles: the average member's loss and the members' diversity, after the four above
+    // (whose positions the region labels use).
+    if group == "main" {
+        for (key, look) in [
+            (
+                "member_loss",
+                Look {
+                    color: OCHRE,
+                    width: 2,
+                    dash: Dash::Dashed(6, 3),
+                    marker: Marker::Dot,
+                },
+            ),
+            (
+                "diversity",
+                Look {
+                    color: PLUM,
+                    width: 2,
+                    dash: Dash::Dashed(2, 3),
+                    marker: Marker::Diamond,
+                },
+            ),
+        ] {
+            if let Some(t) = terms.iter().find(|t| t.key == key) {
+                out.push(series(key, t.label.clone(), look));
+            }
+        }
+    }
     out
+}
+
+/// The split of the variance over several fit seeds, drawn as a stacked band under the
+/// variance line: `var (data)` from zero, `var (fit)` on top of it (they add up to the variance
+/// exactly).
+struct Split {
+    data: Vec<f64>,
+    total: Vec<f64>,
+    data_label: String,
+    fit_label: String,
+}
+
+/// The variance split of the main view; `None` without fit seeds or in another view.
+fn variance_split(doc: &ResultDoc, view: View) -> Option<Split> {
+    if !matches!(view, View::Domingos | View::All) {
+        return None;
+    }
+    let terms = doc.term_docs();
+    let label = |k: &str| terms.iter().find(|t| t.key == k).map(|t| t.label.clone());
+    let (data_label, fit_label) = (label("variance_data")?, label("variance_fit")?);
+    let p = &doc.points;
+    Some(Split {
+        data: p.iter().map(|r| r.get("variance_data")).collect(),
+        total: p
+            .iter()
+            .map(|r| r.get("variance_data") + r.get("variance_fit"))
+            .collect(),
+        data_label,
+        fit_label,
+    })
 }
 
 /// Whether the x axis is logarithmic: a `log` grid of positive values.
@@ -343,6 +407,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         ));
     }
     let mut series = curve_series(doc, view);
+    let split = variance_split(doc, view);
     let log = log_axis(doc);
     let tx = |v: f64| if log { v.log10() } else { v };
     let xs: Vec<f64> = doc.points.iter().map(|p| tx(p.value)).collect();
@@ -393,7 +458,6 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         Some(t) => t + 0.02 * (t - y0),
         None => y1,
     };
-    let y_floor = clip.map(|_| y0);
     let unit = if doc.loss == "squared" {
         "loss (squared units of the response)"
     } else {
@@ -405,7 +469,10 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
 
     let mut buf = String::new();
     {
-        let root = SVGBackend::with_string(&mut buf, CURVE_SIZE).into_drawing_area();
+        // Taller when the legend has more than the four usual series.
+        let extra = series.len().saturating_sub(4) + if split.is_some() { 2 } else { 0 };
+        let size = (CURVE_SIZE.0, CURVE_SIZE.1 + 34 * extra as u32);
+        let root = SVGBackend::with_string(&mut buf, size).into_drawing_area();
         root.fill(&PAPER).map_err(draw_err)?;
         let title = format!(
             "Where {knob} balances bias against variance ({}, {} family)",
@@ -418,7 +485,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
             (FONT, 21).into_font().style(FontStyle::Bold).color(&INK),
         ))
         .map_err(draw_err)?;
-        let (plot, panel) = body.split_horizontally(CURVE_SIZE.0 - PANEL);
+        let (plot, panel) = body.split_horizontally(size.0 - PANEL);
         let mut chart = ChartBuilder::on(&plot)
             .margin_left(10)
             .margin_right(16)
@@ -485,6 +552,32 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
                 ))
                 .map_err(draw_err)?;
         }
+        // The variance split: var (data) stacked under var (fit), below every band and line.
+        if let Some(sp) = &split {
+            let zero = vec![0.0; xs.len()];
+            for (lo, hi, color) in [
+                (&zero, &sp.data, DEEP.mix(0.40)),
+                (&sp.data, &sp.total, SKY.mix(0.16)),
+            ] {
+                let lo: Vec<f64> = lo.iter().map(|v| v.min(y1)).collect();
+                let hi: Vec<f64> = hi.iter().map(|v| v.min(y1)).collect();
+                let poly = band(&xs, &lo, &hi);
+                if poly.len() >= 3 {
+                    chart
+                        .draw_series(std::iter::once(Polygon::new(poly, color.filled())))
+                        .map_err(draw_err)?;
+                }
+            }
+            let edge: Vec<(f64, f64)> = xs
+                .iter()
+                .zip(&sp.data)
+                .filter(|(x, y)| x.is_finite() && y.is_finite())
+                .map(|(x, y)| (*x, y.min(y1)))
+                .collect();
+            chart
+                .draw_series(LineSeries::new(edge, DEEP.stroke_width(1)))
+                .map_err(draw_err)?;
+        }
         // Bands first, so that every line stays visible on top of them.
         for s in &series {
             let lo: Vec<f64> = s
@@ -497,18 +590,9 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
                 .values
                 .iter()
                 .zip(&s.se)
-                .map(|(v, e)| {
-                    let h = v + 2.0 * e.unwrap_or(0.0);
-                    clip.map_or(h, |t| h.min(t))
-                })
+                .map(|(v, e)| (v + 2.0 * e.unwrap_or(0.0)).min(y1))
                 .collect();
-            let lo: Vec<f64> = lo
-                .into_iter()
-                .map(|l| match (clip, y_floor) {
-                    (Some(t), Some(f)) => l.min(t).max(f),
-                    _ => l,
-                })
-                .collect();
+            let lo: Vec<f64> = lo.iter().map(|v| v.clamp(y0, y1)).collect();
             let poly = band(&xs, &lo, &hi);
             if poly.len() >= 3 {
                 chart
@@ -524,7 +608,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
                 .iter()
                 .zip(&s.values)
                 .filter(|(x, y)| x.is_finite() && y.is_finite())
-                .map(|(x, y)| (*x, *y))
+                .map(|(x, y)| (*x, y.min(y1)))
                 .collect();
             match s.look.dash {
                 Dash::Solid => chart
@@ -544,21 +628,37 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
                 marker_at(&root, s.look.marker, s.look.color, px)?;
             }
         }
-        // Clipped values: a ▲ at the top edge with the largest true value there.
-        for &(i, v) in &clipped {
+        // Clipped values: a ▲ at the top edge of each, and the largest true value written
+        // beside its mark (one label, so neighbouring clipped values do not overprint).
+        for &(i, _) in &clipped {
             let (px, py) = chart.backend_coord(&(xs[i], y1));
-            let label = format!("▲ {}", fmt_num(v));
-            // right-aligned near the plot's right edge, so the label stays inside it
+            root.draw(&TriangleMarker::new((px, py + 7), 5, RUST.filled()))
+                .map_err(draw_err)?;
+        }
+        if let Some(&(i, v)) = clipped.iter().max_by(|a, b| a.1.total_cmp(&b.1)) {
+            let (px, py) = chart.backend_coord(&(xs[i], y1));
+            let label = format!(
+                "▲ {} at {knob} = {}",
+                fmt_num(v),
+                fmt_value(doc.points[i].value)
+            );
             let right = chart.backend_coord(&(x1, y1)).0;
             let width = 7 * label.chars().count() as i32;
-            let left = if px + 10 + width <= right {
-                px + 10
+            let left = if px + 12 + width <= right {
+                px + 12
             } else {
-                px - 10 - width
+                px - 12 - width
             };
+            // on a white card below the top edge, so the clamped lines do not hide it
+            let y = py + 26;
+            root.draw(&Rectangle::new(
+                [(left - 3, y - 2), (left + width + 3, y + 15)],
+                PAPER.mix(0.9).filled(),
+            ))
+            .map_err(draw_err)?;
             root.draw(&Text::new(
                 label,
-                (left, py + 8),
+                (left, y),
                 (FONT, 12).into_font().color(&RUST),
             ))
             .map_err(draw_err)?;
@@ -581,26 +681,34 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
             ))
             .map_err(draw_err)?;
 
-        // Above the plot area: which part of the grid is bias-dominated, which variance-dominated.
-        let region = |pick: &dyn Fn(usize) -> bool| -> Option<f64> {
-            let v: Vec<f64> = (0..xs.len()).filter(|&i| pick(i)).map(|i| xs[i]).collect();
-            (!v.is_empty()).then(|| (v[0] + v[v.len() - 1]) / 2.0)
-        };
+        // Above the plot area: which parts of the grid are bias-dominated, which
+        // variance-dominated, one label per run of neighbouring grid values (a label that would
+        // overlap the previous one is left out).
         let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
+        let mut runs: Vec<(usize, usize)> = Vec::new();
+        for i in 0..xs.len() {
+            match runs.last_mut() {
+                Some((_, e)) if bias_dom(*e) == bias_dom(i) => *e = i,
+                _ => runs.push((i, i)),
+            }
+        }
         let font = (FONT, 14).into_font().color(&STONE);
-        for (centre, text) in [
-            (region(&bias_dom), "bias-dominated"),
-            (region(&|i| !bias_dom(i)), "variance-dominated"),
-        ] {
-            if let Some(c) = centre {
-                let (px, _) = chart.backend_coord(&(c, y1));
-                let (_, top_y) = chart.backend_coord(&(c, y1));
-                let half = (text.chars().count() as i32 * 7) / 2;
-                let lo = chart.backend_coord(&(x0, y1)).0;
-                let hi = chart.backend_coord(&(x1, y1)).0;
-                let x = (px - half).clamp(lo, (hi - 2 * half).max(lo));
+        let lo = chart.backend_coord(&(x0, y1)).0;
+        let hi = chart.backend_coord(&(x1, y1)).0;
+        let mut right_edge = i32::MIN;
+        for (a, b) in runs {
+            let text = if bias_dom(a) {
+                "bias-dominated"
+            } else {
+                "variance-dominated"
+            };
+            let (px, top_y) = chart.backend_coord(&((xs[a] + xs[b]) / 2.0, y1));
+            let width = text.chars().count() as i32 * 7;
+            let x = (px - width / 2).clamp(lo, (hi - width).max(lo));
+            if x > right_edge + 8 {
                 root.draw(&Text::new(text, (x, top_y - 20), font.clone()))
                     .map_err(draw_err)?;
+                right_edge = x + width;
             }
         }
 
@@ -619,6 +727,24 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
             sample_line(&panel, &s.look, 10, 58, y + 7)?;
             let ny = panel_text(&panel, &s.label, (68, y), 14, INK, 27)?;
             y = ny.max(y + 22) + 6;
+        }
+        if let Some(sp) = &split {
+            for (color, text) in [
+                (
+                    SKY.mix(0.16),
+                    format!("{}: upper part of the variance", sp.fit_label),
+                ),
+                (
+                    DEEP.mix(0.40),
+                    format!("{}: lower part of the variance", sp.data_label),
+                ),
+            ] {
+                panel
+                    .draw(&Rectangle::new([(12, y), (56, y + 16)], color.filled()))
+                    .map_err(draw_err)?;
+                let ny = panel_text(&panel, &text, (68, y), 14, INK, 27)?;
+                y = ny.max(y + 22) + 6;
+            }
         }
         y += 6;
         panel
@@ -643,7 +769,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         let mut note = curve_note(doc, view);
         if let Some(t) = clip {
             note.push_str(&format!(
-                " The y axis stops at {} (three times the median expected loss): larger values sit on the top edge, marked ▲ with their value; --y-scale linear shows them all.",
+                " The y axis stops at {} (three times the median expected loss): larger values sit on the top edge, marked ▲, the largest with its value; --y-scale linear shows them all.",
                 fmt_num(t)
             ));
         }
@@ -685,11 +811,30 @@ fn curve_note(doc: &ResultDoc, view: View) -> String {
                     .map(|t| t.label),
             }
             .unwrap_or_else(|| "bias²".to_string());
-            format!(
-                "Expected loss = noise + {bias} + variance. {simple} of the best value the model \
-                 is simpler and {bias} tends to dominate (underfitting); {complex} of it variance \
-                 grows (overfitting)."
-            )
+            let has = |k: &str| doc.term_docs().iter().any(|t| t.key == k);
+            let mut note = if has("diversity") {
+                // Averaging exchangeable members: more members leave the bias alone and shrink
+                // only the variance, so "overfitting" is not what the right side shows.
+                format!(
+                    "Expected loss = noise + {bias} + variance = avg member loss − diversity \
+                     (Krogh and Vedelsby 1995; Wood et al. 2023): averaging the members takes \
+                     their diversity off the loss of a single member. {simple} of the best value \
+                     the model is simpler, {complex} of it more complex."
+                )
+            } else {
+                format!(
+                    "Expected loss = noise + {bias} + variance. {simple} of the best value the \
+                     model is simpler and {bias} tends to dominate (underfitting); {complex} of \
+                     it variance grows (overfitting)."
+                )
+            };
+            if has("variance_fit") {
+                note.push_str(
+                    " The shaded areas under the variance add up to it: the part due to the \
+                     training data below, the learner's own randomness (across fit seeds) above.",
+                );
+            }
+            note
         }
     }
 }
