@@ -60,9 +60,11 @@ pub enum Command {
     /// Draw the curve picture (SVG) of a saved result document, and the selection histogram
     /// when the result holds a cross-validation audit.
     Plot(PlotArgs),
-    /// Fit a simulated twin of a table (k-NN reference for E[y|x], k by 10-fold
-    /// cross-validation, and a noise estimate) and write a `source = "twin"` scenario; prints the
-    /// reference's cross-validated fit quality and the noise estimate with its standard error.
+    /// Fit a simulated twin of a table and write a `source = "twin"` scenario: a reference for
+    /// E[y|x] chosen among k-NN, bagged trees, local-linear regression and their blend by
+    /// cross-validated R², inputs from a smoothed bootstrap of the rows, and a noise estimate
+    /// corrected by a parametric bootstrap; then a fidelity check (tables drawn from the twin,
+    /// twinned again) says how often a twin of such a table picks the knob it should.
     Twin(TwinArgs),
 }
 
@@ -87,9 +89,35 @@ pub struct TwinArgs {
     /// Where to write the scenario.
     #[arg(long, default_value = "twin.toml", value_name = "FILE.toml")]
     pub out: PathBuf,
-    /// Seed of the cross-validation folds (also the scenario's seed).
+    /// Seed of the cross-validation folds, the bootstraps and the fidelity check (also the
+    /// scenario's seed).
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
+    /// Kernel jitter of the smoothed bootstrap of the rows, as a multiple of Silverman's
+    /// bandwidth (0: the rows resampled as they are).
+    #[arg(long, default_value_t = 1.0, value_name = "C")]
+    pub jitter: f64,
+    /// Evaluation points of the twin (drawn once).
+    #[arg(long, default_value_t = 1000, value_name = "M")]
+    pub eval_size: usize,
+    /// Reference candidate: `best` (highest cross-validated R²), `knn`, `forest`, `loclin` or
+    /// `blend`.
+    #[arg(long, default_value = "best", value_name = "NAME")]
+    pub reference: String,
+    /// Noise estimator: `gsjs` (one input), `gamma` or `nn` (default: gsjs with one input,
+    /// gamma otherwise).
+    #[arg(long, value_name = "NAME")]
+    pub noise_estimator: Option<String>,
+    /// Tables drawn from the twin for the fidelity check (0 skips it; more is slower and
+    /// steadier).
+    #[arg(long, default_value_t = 5, value_name = "T")]
+    pub fidelity: usize,
+    /// Replicates of every run of the fidelity check.
+    #[arg(long, default_value_t = 100, value_name = "R")]
+    pub fidelity_replicates: usize,
+    /// Worker threads of the fidelity check (0: all cores).
+    #[arg(long, default_value_t = 0)]
+    pub threads: usize,
 }
 
 /// Options of `plot`.

@@ -755,3 +755,58 @@ fn merge_writes_the_same_pictures_and_report_as_run() {
     assert!(merged.contains("<dt>merge wall time</dt>"), "merge report");
     assert_eq!(without_wall_time(&run), without_wall_time(&merged));
 }
+
+#[test]
+fn html_words_say_what_a_table_and_a_twin_run_did() {
+    // Tables: nothing is simulated; the words name the resampling, the rows, out-of-bag
+    // evaluation and the estimated terms. Twins: the truth is an estimate from the table.
+    let root = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("scenarios");
+    let opts = PlanOptions {
+        replicates: Some(12),
+        seed: None,
+        eval_seed: None,
+    };
+    let words = |name: &str| {
+        let plan = scenario::load(&root.join(name), &opts).expect("plans");
+        let doc = report::build(&plan, &runner::run(&plan, 1).expect("runs"));
+        let text = html::render(
+            &doc,
+            View::Domingos,
+            &Pictures::default(),
+            None,
+            "wall time",
+        );
+        (html::scenario_words(&doc).join(" "), text)
+    };
+    let (t, page) = words("cold-store-table.toml");
+    for needle in [
+        "nothing is simulated",
+        "bootstrap resample",
+        "out-of-bag",
+        "240 working rows",
+        "60 more rows are locked away",
+        "bias² (est.)",
+        "include the noise estimate's",
+    ] {
+        assert!(t.contains(needle), "`{needle}` missing: {t}");
+    }
+    for wrong in [
+        "invented by the scenario",
+        "fresh training inputs",
+        "drawn once",
+    ] {
+        assert!(!t.contains(wrong), "`{wrong}` in: {t}");
+    }
+    assert!(page.contains("resampled training sets") && page.contains("What was resampled"));
+    assert!(!page.contains("simulated training sets"));
+    let (w, _) = words("cold-store-twin.toml");
+    for needle in [
+        "simulated twin of a table",
+        "an estimate of the table's E[y | x]",
+        "estimated from the table",
+        "Fidelity check",
+    ] {
+        assert!(w.contains(needle), "`{needle}` missing: {w}");
+    }
+    assert!(!w.contains("invented by the scenario"), "{w}");
+}

@@ -234,6 +234,98 @@ fn half_sampling_variance_of_the_mean_carries_the_finite_population_factor() {
     }
 }
 
+/// Coverage of the table `bias²` interval `±2 SE` over `tables` tables of `n` rows with a
+/// constant truth (3) plus N(0, σ² = 0.25) noise and `p` uniform inputs, decomposed by bootstrap
+/// for the sample mean (poly degree 0) with noise estimator `est`. In this bootstrap world the
+/// truth is exact: given the table, a replicate holding row i out averages n draws from the
+/// other n − 1 rows, so E[ŷ | i out] = ȳ₋ᵢ and bias²+noise = mean_i (ȳ₋ᵢ − y_i)²; the noise is
+/// σ² = 0.25 by construction, so the bias² the table reports estimates mean_i (ȳ₋ᵢ − y_i)² − σ².
+/// Returns (covered at ±2 SE, covered at ±1 SE, covered at ±2 SE of bias²+noise alone).
+fn bias_sq_coverage(est: &str, p: usize, tables: usize, n: usize) -> (usize, usize, usize) {
+    let dir = tmp();
+    let nd = Normal::new(0.0, 0.5).unwrap();
+    let header: Vec<String> = (1..=p)
+        .map(|j| format!("x{j}"))
+        .chain(["y".into()])
+        .collect();
+    let header: Vec<&str> = header.iter().map(String::as_str).collect();
+    let (mut with_noise, mut one, mut without) = (0, 0, 0);
+    for t in 0..tables {
+        let mut rng = ChaCha8Rng::seed_from_u64(5000 + t as u64);
+        let rows: Vec<Vec<f64>> = (0..n)
+            .map(|_| {
+                let mut r: Vec<f64> = (0..p).map(|_| rng.gen::<f64>()).collect();
+                r.push(3.0 + nd.sample(&mut rng));
+                r
+            })
+            .collect();
+        write_csv(&dir.path().join("c.csv"), &header, &rows);
+        let y: Vec<f64> = rows.iter().map(|r| r[p]).collect();
+        let plan = plan_in(
+            dir.path(),
+            &format!(
+                "name = \"c\"\nseed = {t}\nreplicates = 100\nblocks = 20\n[data]\nsource = \"table\"\npath = \"c.csv\"\ntarget = \"y\"\nnoise_estimator = \"{est}\"\n[model]\nfamily = \"poly\"\ngrid = [0]\n"
+            ),
+        );
+        let out = runner::run(&plan, 1).expect("runs");
+        let s = out.summary();
+        let sum: f64 = y.iter().sum();
+        let truth_bpn = y
+            .iter()
+            .map(|v| {
+                let m = (sum - v) / (n as f64 - 1.0);
+                (m - v) * (m - v)
+            })
+            .sum::<f64>()
+            / n as f64;
+        let truth = truth_bpn - 0.25;
+        let err = (s.value(0, "bias_sq") - truth).abs();
+        if err <= 2.0 * s.se(0, "bias_sq") {
+            with_noise += 1;
+        }
+        if err <= s.se(0, "bias_sq") {
+            one += 1;
+        }
+        if err <= 2.0 * s.se(0, "bias_sq_plus_noise") {
+            without += 1;
+        }
+    }
+    (with_noise, one, without)
+}
+
+#[test]
+fn table_bias_sq_standard_error_covers_the_bootstrap_world_truth() {
+    // ±2 SE should cover the exact bootstrap-world bias² in about 95.4% of tables and ±1 SE in
+    // about 68.3% (normal approximation); the second also catches a standard error that is too
+    // large. Tolerance: 4 binomial standard errors of each rate over the tables. The standard
+    // error of bias²+noise alone (what bias² reported before) must fail, which shows the test
+    // can fail.
+    let tables = 160;
+    let band = |q: f64| 4.0 * (q * (1.0 - q) / tables as f64).sqrt();
+    for (est, p) in [("gsjs", 1), ("gamma", 2), ("nn", 2)] {
+        let (two, one, old) = bias_sq_coverage(est, p, tables, 200);
+        let f = |k: usize| k as f64 / tables as f64;
+        println!(
+            "{est} ({p} inputs): ±2 SE coverage {two}/{tables}, ±1 SE {one}/{tables}; with the old SE ±2 SE {old}/{tables}"
+        );
+        assert!(
+            f(two) >= 0.954 - band(0.954),
+            "{est}: ±2 SE coverage {}",
+            f(two)
+        );
+        assert!(
+            (f(one) - 0.683).abs() <= band(0.683),
+            "{est}: ±1 SE coverage {}",
+            f(one)
+        );
+        assert!(
+            f(old) < 0.954 - band(0.954),
+            "{est}: the old SE covers {}",
+            f(old)
+        );
+    }
+}
+
 // ---------------------------------------------------------------------------------------------
 // Noise estimators.
 

@@ -32,11 +32,11 @@ fn opts(dir: &Path, classes: bool, target: &str) -> TwinOptions {
     TwinOptions {
         table: dir.join("t.csv"),
         target: target.into(),
-        features: None,
         classes,
         out: dir.join("twin.toml"),
         seed: 3,
-        varying: false,
+        fidelity: 0,
+        ..Default::default()
     }
 }
 
@@ -51,7 +51,7 @@ fn twin_noise_and_best_knob_match_the_known_process() {
     write_table(&dir.path().join("t.csv"), n, 11);
     let o = opts(dir.path(), false, "y");
     let msg = twin::command(&o).expect("twin");
-    assert!(msg.contains("R²") && msg.contains("noise: σ²"), "{msg}");
+    assert!(msg.contains("R²") && msg.contains("corrected σ̂²"), "{msg}");
 
     // Noise: one input, so the Gasser-Sroka-Jennen-Steinmetz estimator (Biometrika 1986; exactly
     // unbiased for linear f, nearly so for a smooth f at this density) must land within 4 of its
@@ -73,6 +73,29 @@ fn twin_noise_and_best_knob_match_the_known_process() {
         e.stderr
     );
     assert!(fit.quality > 0.8, "R² = {}", fit.quality);
+    // The twin's corrected noise (GSJS minus its bias on the reference's fit): within 4 of its
+    // bootstrap standard errors of the true σ².
+    let rf = lossprism::dgp::twin::fit_regression(
+        t.x.view(),
+        &t.y.to_vec(),
+        o.seed,
+        lossprism::dgp::reference::select::Rule::Best,
+        None,
+        "t",
+    )
+    .unwrap();
+    let c = rf.noise.expect("corrected noise");
+    assert!(
+        (c.value - SD * SD).abs() < 4.0 * c.se,
+        "corrected σ̂² = {} ± {}",
+        c.value,
+        c.se
+    );
+    assert!(
+        rf.selection.scores.iter().all(|s| s.r2 > 0.8),
+        "{:?}",
+        rf.selection.scores
+    );
 
     // Best knob: the same family and grid on the twin and on the true process, same n.
     let model = "\n[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 8 }\n";
@@ -196,8 +219,32 @@ fn bad_twin_scenarios_name_the_key() {
     for (body, key) in [
         ("[data.noise]\nsd = 0.5\n", "data.reference"),
         (
-            "reference = { family = \"forest\", k = 3 }\n[data.noise]\nsd = 0.5\n",
+            "reference = { family = \"svm\", k = 3 }\n[data.noise]\nsd = 0.5\n",
             "data.reference.family",
+        ),
+        (
+            "reference = { family = \"forest\", k = 3 }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.trees",
+        ),
+        (
+            "reference = { family = \"loclin\" }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.bandwidth",
+        ),
+        (
+            "reference = { family = \"blend\", k = 3, bandwidth = 0.5 }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.weights",
+        ),
+        (
+            "reference = { family = \"blend\", k = 3, bandwidth = 0.5, weights = { knn = -1.0 } }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.weights",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, weights = { knn = 1.0 } }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.weights",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3 }\njitter = -1.0\n[data.noise]\nsd = 0.5\n",
+            "data.jitter",
         ),
         (
             "reference = { family = \"knn\", k = 99 }\n[data.noise]\nsd = 0.5\n",
@@ -212,4 +259,117 @@ fn bad_twin_scenarios_name_the_key() {
             .to_string();
         assert!(err.contains(key), "{err}");
     }
+}
+
+#[test]
+fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
+    // A small fidelity check (2 tables, 12 replicates) on a 3-input table: the scenario records
+    // the reference recipe, the corrected noise and the fidelity; `run` refits the reference
+    // exactly (the same predictions, bit for bit, as the fit `twin` made), and the result echoes
+    // the record. Running `twin` twice writes the same file.
+    let dir = tempfile::tempdir().unwrap();
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(21);
+    let mut s = String::from("a,b,c,y\n");
+    for _ in 0..120 {
+        let (a, b, c): (f64, f64, f64) = (rng.gen(), rng.gen(), rng.gen());
+        let z: f64 = StandardNormal.sample(&mut rng);
+        let k = (c * 4.0).floor();
+        s.push_str(&format!(
+            "{a},{b},{k},{}\n",
+            (4.0 * a).sin() + b * k + 0.3 * z
+        ));
+    }
+    fs::write(dir.path().join("t.csv"), s).unwrap();
+    let o = TwinOptions {
+        fidelity: 2,
+        fidelity_replicates: 12,
+        ..opts(dir.path(), false, "y")
+    };
+    let msg = twin::command(&o).expect("twin");
+    assert!(
+        msg.contains("Fidelity check: 2 tables") && msg.contains("bias-corrected pick"),
+        "{msg}"
+    );
+    // The integer column stays on its levels.
+    assert!(msg.contains("kept on their levels c"), "{msg}");
+    let text = fs::read_to_string(&o.out).unwrap();
+    for key in [
+        "jitter = 1.0",
+        "eval_size = 1000",
+        "[data.fit_report]",
+        "[[data.fit_report.fidelity.models]]",
+        "corrected_loss = [",
+    ] {
+        assert!(text.contains(key), "{key} missing:\n{text}");
+    }
+    twin::command(&o).expect("twin again");
+    assert_eq!(fs::read_to_string(&o.out).unwrap(), text, "deterministic");
+
+    let plan = scenario::load(
+        &o.out,
+        &PlanOptions {
+            replicates: Some(6),
+            seed: None,
+            eval_seed: None,
+        },
+    )
+    .expect("plans");
+    let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
+        panic!("a twin plans as a synthetic source")
+    };
+    let refit = sp.process.reference().expect("reference");
+    let t = lossprism::dataset::load_csv(
+        &o.table,
+        &lossprism::dataset::TableOptions {
+            target: "y".into(),
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    let fit = lossprism::dgp::twin::fit_regression(
+        t.x.view(),
+        &t.y.to_vec(),
+        o.seed,
+        lossprism::dgp::reference::select::Rule::Best,
+        None,
+        "t",
+    )
+    .unwrap();
+    assert_eq!(refit.choice.family, fit.selection.choice.family);
+    for i in 0..40 {
+        let q = [0.025 * i as f64, 1.0 - 0.02 * i as f64, (i % 4) as f64];
+        assert_eq!(
+            refit.mean_at(&q).to_bits(),
+            fit.reference.mean_at(&q).to_bits(),
+            "at {q:?}"
+        );
+    }
+    // The inputs: jittered continuous columns inside their observed range, the integer column
+    // on its levels.
+    let x = sp
+        .process
+        .draw_inputs(500, &mut rand_chacha::ChaCha8Rng::seed_from_u64(1));
+    assert!(x.column(2).iter().all(|v| [0.0, 1.0, 2.0, 3.0].contains(v)));
+    let (lo, hi) =
+        t.x.column(0)
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), v| {
+                (a.min(*v), b.max(*v))
+            });
+    assert!(x.column(0).iter().all(|v| *v >= lo && *v <= hi));
+    assert!(x
+        .column(0)
+        .iter()
+        .any(|v| !t.x.column(0).iter().any(|r| r == v)));
+
+    let doc = report::build(&plan, &runner::run(&plan, 1).unwrap());
+    let tw = doc.scenario.twin.expect("twin section");
+    assert_eq!(tw.jitter, 1.0);
+    assert_eq!(tw.cv_r2.len(), 4);
+    let f = tw.fidelity.expect("fidelity echoed");
+    assert_eq!((f.tables, f.replicates, f.models.len()), (2, 12, 2));
+    assert_eq!(f.models[0].picks.len(), 2);
+    let n = tw.noise.expect("noise echoed");
+    assert_eq!(n.method, "gamma");
+    assert!((n.raw - n.correction - n.value).abs() < 1e-12 || n.value == 0.05 * n.raw);
 }

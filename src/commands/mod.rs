@@ -784,6 +784,29 @@ pub fn families() -> Result<u8, Error> {
 
 /// `lossprism twin`.
 pub fn twin(a: TwinArgs) -> Result<u8, Error> {
+    use crate::dgp::reference::{select::Rule, Candidate};
+    let reference = match a.reference.as_str() {
+        "best" => Rule::Best,
+        other => Rule::Only(Candidate::from_name(other).ok_or_else(|| {
+            Error::Usage(format!(
+                "--reference: unknown `{other}`; expected best, knn, forest, loclin or blend"
+            ))
+        })?),
+    };
+    let noise_estimator = match &a.noise_estimator {
+        None => None,
+        Some(s) => Some(crate::dataset::noise::Method::from_name(s).ok_or_else(|| {
+            Error::Usage(format!(
+                "--noise-estimator: unknown `{s}`; expected gsjs, gamma or nn"
+            ))
+        })?),
+    };
+    if a.fidelity_replicates < 2 {
+        return Err(Error::Usage(format!(
+            "--fidelity-replicates must be at least 2, got {}",
+            a.fidelity_replicates
+        )));
+    }
     let text = twin::command(&twin::TwinOptions {
         table: a.table,
         target: a.target,
@@ -792,6 +815,14 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         out: a.out,
         seed: a.seed,
         varying: a.varying,
+        jitter: a.jitter,
+        eval_size: a.eval_size,
+        reference,
+        noise_estimator,
+        fidelity: a.fidelity,
+        fidelity_replicates: a.fidelity_replicates,
+        fidelity_families: Vec::new(),
+        threads: a.threads,
     })?;
     print!("{text}");
     Ok(0)

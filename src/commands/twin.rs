@@ -1,12 +1,71 @@
-//! `lossprism twin`: fits a simulated twin of a table (see [`crate::dgp::reference`]) and writes
-//! its scenario file, which `run` then refits exactly at plan time.
+//! `lossprism twin`: fits a simulated twin of a table and writes its scenario file, which `run`
+//! then refits exactly at plan time.
+//!
+//! Regression: the reference is chosen among k-NN, bagged trees, local-linear regression and
+//! their blend by cross-validated R² ([`crate::dgp::reference::select`]); the inputs are a
+//! smoothed bootstrap of the rows and the evaluation points are drawn once from it
+//! ([`crate::dgp::twin::Jitter`]); the noise is the default estimator for the table's dimension,
+//! corrected for its roughness bias, with a standard error from a parametric bootstrap
+//! ([`crate::dgp::twin::correct_noise`]). Then the **fidelity check** draws tables of the same
+//! size from the fitted twin, twins each of them the same way, runs the families on the twin
+//! and on each twin of the twin, and reports how often the twin of the twin picks a knob inside
+//! the twin's one-standard-error set and how far its expected-loss curve lies from the twin's —
+//! how far a twin of a table like this one can be trusted. The scenario records all of it
+//! (`[data.fit_report]`, echoed in results) and says it in comments.
+//!
+//! Classification twins keep the k-NN reference (k by cross-validated Brier score) and the
+//! resampled rows; the candidates, the smoothed bootstrap and the fidelity check were designed
+//! and measured on regression (`docs/twin-calibration.md`).
 
 use std::path::{Path, PathBuf};
 
+use crate::dataset::noise::Method;
 use crate::dataset::{self, Missing, Table, TableOptions, TargetKind};
-use crate::dgp::reference::{self, TwinFit};
+use crate::dgp::reference::select::{self, Rule};
+use crate::dgp::reference::{self, Candidate, Choice, TwinFit};
+use crate::dgp::twin::{
+    self, FidelityModel, FidelityRecord, Jitter, NoiseCorrection, RegressionFit,
+};
 use crate::error::Error;
 use crate::family::Task;
+use crate::fmt::{fmt_num, fmt_se, fmt_value};
+use crate::rng::{purpose, stream};
+use crate::scenario::twin::{TwinNoise, TwinSpec};
+use crate::scenario::{Design, Plan, Source};
+
+/// Default number of tables of the fidelity check.
+pub const FIDELITY_TABLES: usize = 5;
+/// Default replicates of every run of the fidelity check.
+pub const FIDELITY_REPLICATES: usize = 100;
+
+/// A family and grid checked by the fidelity check, as written in a `[[model]]` table.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct FidelityFamily {
+    /// The family's name.
+    pub family: String,
+    /// The rest of the `[[model]]` table (grid and options), TOML lines.
+    pub body: String,
+}
+
+/// The families of the fidelity check by default: tree depth 1–10 and k-NN (standardized
+/// inputs) with k ∈ {1, 2, 3, 5, 8, 12, 20, 30, 50} (those up to the table's rows).
+pub fn default_fidelity_families(rows: usize) -> Vec<FidelityFamily> {
+    let ks: Vec<String> = [1, 2, 3, 5, 8, 12, 20, 30, 50]
+        .iter()
+        .filter(|&&k| k <= rows)
+        .map(|k| k.to_string())
+        .collect();
+    vec![
+        FidelityFamily {
+            family: "tree".into(),
+            body: "grid = { from = 1, to = 10 }\n".into(),
+        },
+        FidelityFamily {
+            family: "knn".into(),
+            body: format!("grid = [{}]\nstandardize = true\n", ks.join(", ")),
+        },
+    ]
+}
 
 /// Options of `lossprism twin`.
 #[derive(Debug, Clone)]
@@ -21,10 +80,49 @@ pub struct TwinOptions {
     pub classes: bool,
     /// Where the scenario goes (its folder anchors the relative `path`).
     pub out: PathBuf,
-    /// Seed of the cross-validation folds, also written as the scenario's seed.
+    /// Seed of the cross-validation folds, the forest, the bootstraps and the fidelity check,
+    /// also written as the scenario's seed.
     pub seed: u64,
     /// Write `varying = true` noise instead of a constant.
     pub varying: bool,
+    /// The smoothed bootstrap's multiplier c on Silverman's rule (0: rows as they are).
+    pub jitter: f64,
+    /// Evaluation points of the twin (drawn once).
+    pub eval_size: usize,
+    /// Which reference candidates may be chosen.
+    pub reference: Rule,
+    /// The noise estimator (default: by the number of inputs).
+    pub noise_estimator: Option<Method>,
+    /// Tables of the fidelity check (0 skips it).
+    pub fidelity: usize,
+    /// Replicates of every run of the fidelity check.
+    pub fidelity_replicates: usize,
+    /// Families of the fidelity check (empty: [`default_fidelity_families`]).
+    pub fidelity_families: Vec<FidelityFamily>,
+    /// Worker threads of the fidelity runs (0: all cores).
+    pub threads: usize,
+}
+
+impl Default for TwinOptions {
+    fn default() -> Self {
+        TwinOptions {
+            table: PathBuf::new(),
+            target: String::new(),
+            features: None,
+            classes: false,
+            out: PathBuf::from("twin.toml"),
+            seed: 1,
+            varying: false,
+            jitter: 1.0,
+            eval_size: twin::EVAL_SIZE,
+            reference: Rule::Best,
+            noise_estimator: None,
+            fidelity: FIDELITY_TABLES,
+            fidelity_replicates: FIDELITY_REPLICATES,
+            fidelity_families: Vec::new(),
+            threads: 0,
+        }
+    }
 }
 
 /// `path` relative to folder `from` when both resolve (through `..` if needed), else absolute.
@@ -61,39 +159,89 @@ fn toml_str(s: &str) -> String {
     out
 }
 
-/// The text of a twin scenario for a fitted table (`table_rel`: the CSV relative to the
-/// scenario's folder).
-pub fn scenario_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &str) -> String {
-    let stem = o
-        .table
+/// A float as TOML that parses back to the same bits (`4.0`, `0.25298065845932094`).
+fn toml_f64(v: f64) -> String {
+    format!("{v:?}")
+}
+
+fn toml_list(v: &[f64]) -> String {
+    let items: Vec<String> = v.iter().map(|x| toml_f64(*x)).collect();
+    format!("[{}]", items.join(", "))
+}
+
+/// Informational numbers to 6 decimals (still TOML floats).
+fn toml_list6(v: &[f64]) -> String {
+    let items: Vec<String> = v.iter().map(|x| format!("{x:.6}")).collect();
+    format!("[{}]", items.join(", "))
+}
+
+/// The `reference = { ... }` line of a recipe.
+pub fn reference_line(c: &Choice) -> String {
+    let mut parts = vec![format!("family = {}", toml_str(c.family.name()))];
+    if let Some(k) = c.k {
+        parts.push(format!("k = {k}"));
+    }
+    parts.push(format!("standardize = {}", c.standardize));
+    if let Some(f) = c.forest {
+        parts.push(format!("trees = {}", f.trees));
+        parts.push(format!("min_leaf = {}", f.min_leaf));
+        parts.push(format!("seed = {}", f.seed));
+    }
+    if let Some(h) = c.bandwidth {
+        parts.push(format!("bandwidth = {}", toml_f64(h)));
+    }
+    if c.family == Candidate::Blend {
+        parts.push(format!(
+            "weights = {{ knn = {}, forest = {}, loclin = {} }}",
+            toml_f64(c.weights[0]),
+            toml_f64(c.weights[1]),
+            toml_f64(c.weights[2])
+        ));
+    }
+    if let Some(r2) = c.cv_r2 {
+        let names = ["knn", "forest", "loclin", "blend"];
+        let items: Vec<String> = names
+            .iter()
+            .zip(r2)
+            .filter(|(_, v)| v.is_finite())
+            .map(|(n, v)| format!("{n} = {v:.4}"))
+            .collect();
+        if !items.is_empty() {
+            parts.push(format!("cv_r2 = {{ {} }}", items.join(", ")));
+        }
+    }
+    format!("reference = {{ {} }}", parts.join(", "))
+}
+
+/// Everything the scenario text says about a regression twin.
+struct RegressionText<'a> {
+    fit: &'a RegressionFit,
+    jitter: Option<Jitter>,
+    sd: f64,
+    fidelity: Option<&'a FidelityRecord>,
+}
+
+fn stem_of(o: &TwinOptions) -> String {
+    o.table
         .file_stem()
         .map(|s| s.to_string_lossy().to_string())
-        .unwrap_or_else(|| "table".into());
+        .unwrap_or_else(|| "table".into())
+}
+
+fn header_and_top(o: &TwinOptions, t: &Table, comments: &[String], replicates: usize) -> String {
     let mut s = String::new();
     s.push_str(&format!(
         "# Simulated twin of {}, written by `lossprism twin`.\n",
         o.table.display()
     ));
-    s.push_str(&format!(
-        "# Inputs: the table's {} rows resampled with replacement; truth: k-NN reference (k = {} by {}-fold\n",
-        t.rows(),
-        f.k,
-        reference::CV_FOLDS.min(t.rows())
-    ));
-    s.push_str(&format!(
-        "# cross-validation, cross-validated {} = {:.4} ± {:.4}), refitted on the table at plan time.\n",
-        f.quality_name, f.quality, f.quality_stderr
-    ));
-    if let Some(e) = &f.noise {
-        s.push_str(&format!(
-            "# Noise: σ² = {:.6} ± {:.6} ({}).\n",
-            e.value,
-            e.stderr,
-            e.method.describe()
-        ));
+    for c in comments {
+        s.push_str(&format!("# {c}\n"));
     }
     s.push_str("# Edit [model] to the family and grid you want to study.\n");
-    s.push_str(&format!("name = {}\n", toml_str(&format!("{stem}-twin"))));
+    s.push_str(&format!(
+        "name = {}\n",
+        toml_str(&format!("{}-twin", stem_of(o)))
+    ));
     s.push_str(&format!(
         "about = {}\n",
         toml_str(&format!(
@@ -105,45 +253,384 @@ pub fn scenario_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &str) -
             t.target
         ))
     ));
-    s.push_str(&format!("seed = {}\nreplicates = 200\n\n[data]\n", o.seed));
+    s.push_str(&format!(
+        "seed = {}\nreplicates = {replicates}\n\n[data]\n",
+        o.seed
+    ));
     s.push_str("source = \"twin\"\n");
-    s.push_str(&format!("path = {}\n", toml_str(table_rel)));
-    s.push_str(&format!("target = {}\n", toml_str(&t.target)));
+    s
+}
+
+fn data_common(o: &TwinOptions, t: &Table, table_rel: &str) -> String {
+    let mut s = format!(
+        "path = {}\ntarget = {}\n",
+        toml_str(table_rel),
+        toml_str(&t.target)
+    );
     if let Some(fs) = &o.features {
         let list: Vec<String> = fs.iter().map(|f| toml_str(f)).collect();
         s.push_str(&format!("features = [{}]\n", list.join(", ")));
     }
     s.push_str(&format!("train_size = {}\n", t.rows()));
-    s.push_str(&format!(
-        "reference = {{ family = \"knn\", k = {}, standardize = true }}\n",
-        f.k
-    ));
-    match t.task {
-        Task::Classify { .. } => {
-            let labels: Vec<String> = t.labels.iter().map(|l| toml_str(l)).collect();
-            s.push_str(&format!(
-                "\n[data.classes]\nlabels = [{}]\n",
-                labels.join(", ")
-            ));
-        }
-        Task::Regress => {
-            s.push_str("\n[data.noise]\n");
-            if o.varying {
-                s.push_str("varying = true\n");
-            } else {
-                let v = f.noise.map(|e| e.value).unwrap_or(0.0).max(0.0);
-                s.push_str(&format!("sd = {}\n", v.sqrt()));
-            }
-        }
-    }
-    s.push_str("\n[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 8 }\n");
-    s.push_str("\n[audit]\nfolds = 5\n");
     s
 }
 
-/// `lossprism twin`: loads the table, fits the twin, writes the scenario to `o.out` and returns
-/// the lines to print (fit quality, noise estimate with its standard error, where it went).
-pub fn command(o: &TwinOptions) -> Result<String, Error> {
+/// The `[data]` section of a regression twin (without `[data.fit_report]`).
+fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionText<'_>) -> String {
+    let mut s = data_common(o, t, table_rel);
+    if o.jitter > 0.0 {
+        s.push_str(&format!("eval_size = {}\n", o.eval_size));
+        s.push_str(&format!("jitter = {}\n", toml_f64(o.jitter)));
+    } else if o.eval_size != t.rows() {
+        s.push_str(&format!("eval_size = {}\n", o.eval_size));
+    }
+    s.push_str(&reference_line(&r.fit.selection.choice));
+    s.push_str("\n\n[data.noise]\n");
+    if o.varying {
+        s.push_str("varying = true\n");
+    } else {
+        s.push_str(&format!("sd = {}\n", r.sd));
+    }
+    s
+}
+
+fn fit_report_text(noise: Option<&NoiseCorrection>, fidelity: Option<&FidelityRecord>) -> String {
+    let mut s = String::new();
+    if noise.is_none() && fidelity.is_none() {
+        return s;
+    }
+    s.push_str(
+        "\n[data.fit_report]  # measured by `lossprism twin`; informational, echoed in results\n",
+    );
+    if let Some(n) = noise {
+        s.push_str(&format!(
+            "noise = {{ method = {}, raw = {}, correction = {}, value = {}, stderr = {}, tables = {} }}\n",
+            toml_str(n.method.name()),
+            toml_f64(n.raw),
+            toml_f64(n.correction),
+            toml_f64(n.value),
+            toml_f64(n.se),
+            n.tables
+        ));
+    }
+    if let Some(f) = fidelity {
+        s.push_str(&format!(
+            "\n[data.fit_report.fidelity]\ntables = {}\nreplicates = {}\n",
+            f.tables, f.replicates
+        ));
+        for m in &f.models {
+            let curve_error = format!("{:.6}", m.curve_error);
+            s.push_str(&format!(
+                "\n[[data.fit_report.fidelity.models]]\nfamily = {}\nknob = {}\npick = {}\none_se = {}\npicks = {}\nin_one_se = {}\ncurve_error = {}\ncorrected_pick = {}\ngrid = {}\nloss = {}\ncorrected_loss = {}\n",
+                toml_str(&m.family),
+                toml_str(&m.knob),
+                toml_f64(m.pick),
+                toml_list(&m.one_se),
+                toml_list(&m.picks),
+                toml_f64(m.in_one_se),
+                curve_error,
+                toml_f64(m.corrected_pick),
+                toml_list(&m.grid),
+                toml_list6(&m.loss),
+                toml_list6(&m.corrected_loss)
+            ));
+        }
+    }
+    s
+}
+
+const DEFAULT_MODEL: &str = "\n[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 10 }\n";
+const DEFAULT_AUDIT: &str = "\n[audit]\nfolds = 5\n";
+
+/// Lines describing the reference candidates and the choice.
+fn reference_lines(fit: &RegressionFit, rule: Rule) -> Vec<String> {
+    let sel = &fit.selection;
+    let mut v = vec![format!(
+        "Reference for E[y | x], candidates by {}-fold cross-validated R² (± SE):",
+        sel.folds
+    )];
+    for sc in &sel.scores {
+        v.push(format!(
+            "  {:<7} {}  ({})",
+            sc.candidate.name(),
+            if sc.r2.is_finite() {
+                format!("{} ± {}", fmt_num(sc.r2), fmt_se(sc.se))
+            } else {
+                "not tried".to_string()
+            },
+            sc.tuned
+        ));
+    }
+    v.push(format!(
+        "chosen: {} ({}); `run` refits it on the table from `reference`.",
+        sel.choice.describe(),
+        match rule {
+            Rule::Best => "highest cross-validated R²".to_string(),
+            Rule::Only(c) => format!("`--reference {}` asked for it", c.name()),
+        }
+    ));
+    v
+}
+
+fn inputs_line(t: &Table, jitter: Option<&Jitter>, eval_size: usize) -> String {
+    match jitter {
+        Some(j) if !j.is_plain() => {
+            let shaken: Vec<String> = t
+                .names
+                .iter()
+                .zip(&j.h)
+                .filter(|(_, h)| **h > 0.0)
+                .map(|(n, h)| format!("{n} (h = {})", fmt_num(*h)))
+                .collect();
+            let kept: Vec<&str> = t
+                .names
+                .iter()
+                .zip(&j.h)
+                .filter(|(_, h)| **h == 0.0)
+                .map(|(n, _)| n.as_str())
+                .collect();
+            format!(
+                "Inputs: smoothed bootstrap of the {} rows (a row drawn with replacement plus Gaussian jitter, Silverman's rule × {}, reflected into the observed range): jittered {}{}; {} evaluation points drawn once from the same law.",
+                t.rows(),
+                j.scale,
+                shaken.join(", "),
+                if kept.is_empty() {
+                    String::new()
+                } else {
+                    format!("; kept on their levels {}", kept.join(", "))
+                },
+                eval_size
+            )
+        }
+        _ => format!(
+            "Inputs: the table's {} rows resampled with replacement; {} evaluation points drawn once the same way.",
+            t.rows(),
+            eval_size
+        ),
+    }
+}
+
+fn noise_line(n: &NoiseCorrection) -> String {
+    format!(
+        "Noise ({}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (SE from {} parametric-bootstrap tables drawn from the twin){}.",
+        n.method.describe(),
+        fmt_num(n.raw),
+        fmt_se(n.raw_se),
+        fmt_num(n.correction),
+        fmt_num(n.value),
+        fmt_se(n.se),
+        n.tables,
+        if n.floored {
+            "; the correction exceeded the raw estimate, so σ̂² is floored at 5% of it"
+        } else {
+            ""
+        }
+    )
+}
+
+fn values(v: &[f64]) -> String {
+    v.iter()
+        .map(|x| fmt_value(*x))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+fn fidelity_lines(f: &FidelityRecord, rows: usize) -> Vec<String> {
+    let mut v = vec![format!(
+        "Fidelity check: {} tables of {rows} rows drawn from this twin, each twinned again the same way (every run {} replicates):",
+        f.tables, f.replicates
+    )];
+    for m in &f.models {
+        let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
+        v.push(format!(
+            "  {} {}: lowest expected loss on the twin at {} (one-SE set {}); bias-corrected pick {}. Twins of the twin picked {} ({} of {} inside the set), mean curve distance {:.1}%.",
+            m.family,
+            m.knob,
+            fmt_value(m.pick),
+            values(&m.one_se),
+            fmt_value(m.corrected_pick),
+            values(&m.picks),
+            inside,
+            m.picks.len(),
+            100.0 * m.curve_error
+        ));
+    }
+    v.push("  The shares say how accurate twins of tables like this one typically are, not an error bar for this table; the bias-corrected pick (2·EL − mean EL of the twins of the twin) removes the pull of the twin's own smoothing and was the more reliable pick in docs/twin-calibration.md.".into());
+    v
+}
+
+/// The expected-loss curve, its standard errors, the pick and the one-SE set of model `i`.
+fn curve(plan: &Plan, out: &crate::runner::Outcome, i: usize) -> (Vec<f64>, f64, Vec<f64>) {
+    let rows = crate::report::rows(plan, out, i);
+    let best = crate::report::best_of(&rows);
+    (
+        rows.iter().map(|r| r.expected_loss()).collect(),
+        best.value,
+        best.within_one_se,
+    )
+}
+
+/// Draws table `t` of `n` rows from the twin of `plan` (its input law, reference and noise),
+/// from stream `(seed, TWIN_BOOT, FIDELITY_STREAM + t)`.
+pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<Table, Error> {
+    let Source::Synthetic(sp) = &plan.source else {
+        return Err(Error::Usage("the fidelity check needs a twin".into()));
+    };
+    let mut rng = stream(
+        plan.seed,
+        purpose::TWIN_BOOT,
+        twin::FIDELITY_STREAM + t as u64,
+    );
+    let x = sp.process.draw_inputs(n, &mut rng);
+    let f = sp.process.truth_at(x.view())?;
+    let sd = sp.process.sd_at(x.view())?;
+    let y = sp.process.respond(&f, &sd, &mut rng);
+    Ok(Table {
+        path: like.path.clone(),
+        names: like.names.clone(),
+        x,
+        y,
+        task: Task::Regress,
+        labels: Vec::new(),
+        target: like.target.clone(),
+        encodings: Vec::new(),
+        dropped_rows: 0,
+        lines: (2..n + 2).collect(),
+    })
+}
+
+/// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
+/// twin): the same pipeline as the first twin.
+fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
+    let y = t.y.to_vec();
+    let fit = twin::fit_regression(
+        t.x.view(),
+        &y,
+        o.seed,
+        o.reference,
+        o.noise_estimator,
+        "a table drawn from the twin",
+    )
+    .map_err(Error::Usage)?;
+    let noise = if o.varying {
+        TwinNoise::Varying
+    } else {
+        TwinNoise::Constant(fit.noise.map_or(0.0, |n| n.value.max(0.0).sqrt()))
+    };
+    let spec = TwinSpec {
+        choice: fit.selection.choice.clone(),
+        jitter: o.jitter,
+        noise: Some(noise),
+        train_size: t.rows(),
+        sizes: vec![t.rows()],
+        eval_size: if o.jitter > 0.0 {
+            o.eval_size
+        } else {
+            t.rows()
+        },
+        design: Design::Random,
+        eval_at_design: false,
+        report: None,
+    };
+    let sp = crate::scenario::twin::build(t, "a table drawn from the twin", &spec)
+        .map_err(Error::Usage)?;
+    let mut plan = base.clone();
+    plan.source = Source::Synthetic(sp);
+    Ok((plan, fit))
+}
+
+/// The fidelity check of a regression twin (see the module docs). `text_of` gives the scenario
+/// text for a `[model]` part and a replicate count.
+fn fidelity(
+    o: &TwinOptions,
+    t: &Table,
+    folder: &Path,
+    text_of: &dyn Fn(&str, usize) -> String,
+) -> Result<FidelityRecord, Error> {
+    let families = if o.fidelity_families.is_empty() {
+        default_fidelity_families(t.rows())
+    } else {
+        o.fidelity_families.clone()
+    };
+    let models: String = families
+        .iter()
+        .map(|f| format!("\n[[model]]\nfamily = {}\n{}", toml_str(&f.family), f.body))
+        .collect();
+    let reps = o.fidelity_replicates.max(2);
+    let text = text_of(&models, reps);
+    let file = format!("{} (fidelity check)", o.out.display());
+    let spec = crate::scenario::parse(&text, &file)?;
+    let plan = Plan::from_spec(&spec, &text, &file, folder, &Default::default())?;
+    let first = crate::runner::run(&plan, o.threads)?;
+    let base: Vec<(Vec<f64>, f64, Vec<f64>)> = (0..families.len())
+        .map(|i| curve(&plan, &first, i))
+        .collect();
+    let mut tot: Vec<Vec<(Vec<f64>, f64)>> = vec![Vec::new(); families.len()];
+    for k in 0..o.fidelity {
+        let drawn = draw_from_twin(&plan, t, t.rows(), k)?;
+        let (p, _) = twin_of(o, &drawn, &plan)?;
+        let out = crate::runner::run(&p, o.threads)?;
+        for (i, slot) in tot.iter_mut().enumerate() {
+            let (el, pick, _) = curve(&p, &out, i);
+            slot.push((el, pick));
+        }
+    }
+    let models = families
+        .iter()
+        .enumerate()
+        .map(|(i, f)| {
+            let (el, pick, one_se) = &base[i];
+            let runs = &tot[i];
+            let picks: Vec<f64> = runs.iter().map(|r| r.1).collect();
+            let inside = picks.iter().filter(|p| one_se.contains(p)).count();
+            let mare = runs
+                .iter()
+                .map(|(e, _)| {
+                    e.iter()
+                        .zip(el)
+                        .map(|(a, b)| (a / b - 1.0).abs())
+                        .sum::<f64>()
+                        / el.len() as f64
+                })
+                .sum::<f64>()
+                / runs.len().max(1) as f64;
+            let grid = &plan.models[i].grid;
+            let corrected: Vec<f64> = (0..el.len())
+                .map(|g| 2.0 * el[g] - runs.iter().map(|r| r.0[g]).sum::<f64>() / runs.len() as f64)
+                .collect();
+            let ci = (0..corrected.len()).fold(
+                0,
+                |b, g| {
+                    if corrected[g] < corrected[b] {
+                        g
+                    } else {
+                        b
+                    }
+                },
+            );
+            FidelityModel {
+                family: f.family.clone(),
+                knob: plan.models[i].family.knob().into(),
+                pick: *pick,
+                one_se: one_se.clone(),
+                in_one_se: inside as f64 / picks.len().max(1) as f64,
+                picks,
+                curve_error: mare,
+                corrected_pick: grid[ci],
+                grid: grid.clone(),
+                loss: el.clone(),
+                corrected_loss: corrected,
+            }
+        })
+        .collect();
+    Ok(FidelityRecord {
+        tables: o.fidelity,
+        replicates: reps,
+        models,
+    })
+}
+
+fn load(o: &TwinOptions) -> Result<Table, Error> {
     let opts = TableOptions {
         target: o.target.clone(),
         features: o.features.clone(),
@@ -155,29 +642,71 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         },
         min_rows: 5,
     };
-    let t = dataset::load_csv(&o.table, &opts)?;
-    let f = reference::fit(&t, o.seed, true)?;
+    Ok(dataset::load_csv(&o.table, &opts)?)
+}
+
+fn check_plans(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
+    let spec = crate::scenario::parse(text, &out.display().to_string())?;
+    Ok(Plan::from_spec(
+        &spec,
+        text,
+        &out.display().to_string(),
+        folder,
+        &Default::default(),
+    )?)
+}
+
+/// The text of a classification twin's scenario (`table_rel`: the CSV relative to the
+/// scenario's folder).
+pub fn classification_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &str) -> String {
+    let comments = vec![
+        format!(
+            "Inputs: the table's {} rows resampled with replacement; truth: k-NN reference (k = {} by {}-fold",
+            t.rows(),
+            f.k,
+            reference::CV_FOLDS.min(t.rows())
+        ),
+        format!(
+            "cross-validation, cross-validated {} = {:.4} ± {:.4}), refitted on the table at plan time.",
+            f.quality_name, f.quality, f.quality_stderr
+        ),
+    ];
+    let mut s = header_and_top(o, t, &comments, 200);
+    s.push_str(&data_common(o, t, table_rel));
+    s.push_str(&reference_line(&Choice::knn(f.k, true)));
+    s.push('\n');
+    let labels: Vec<String> = t.labels.iter().map(|l| toml_str(l)).collect();
+    s.push_str(&format!(
+        "\n[data.classes]\nlabels = [{}]\n",
+        labels.join(", ")
+    ));
+    s.push_str(DEFAULT_MODEL);
+    s.push_str(DEFAULT_AUDIT);
+    s
+}
+
+/// `lossprism twin`: loads the table, fits the twin, runs the fidelity check, writes the
+/// scenario to `o.out` and returns the lines to print.
+pub fn command(o: &TwinOptions) -> Result<String, Error> {
+    if !(o.jitter.is_finite() && (0.0..=crate::scenario::twin::MAX_JITTER).contains(&o.jitter)) {
+        return Err(Error::Usage(format!(
+            "--jitter must be between 0 and {}, got {}",
+            crate::scenario::twin::MAX_JITTER,
+            o.jitter
+        )));
+    }
+    if o.eval_size < 1 || o.eval_size > 10_000_000 {
+        return Err(Error::Usage(format!(
+            "--eval-size must be between 1 and 10000000, got {}",
+            o.eval_size
+        )));
+    }
+    let t = load(o)?;
     let folder = match o.out.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),
     };
     let rel = relative_path(&o.table, &folder);
-    let text = scenario_text(o, &t, &f, &rel);
-    // Check the scenario plans before writing it.
-    let spec = crate::scenario::parse(&text, &o.out.display().to_string())?;
-    crate::scenario::Plan::from_spec(
-        &spec,
-        &text,
-        &o.out.display().to_string(),
-        &folder,
-        &Default::default(),
-    )?;
-    crate::output::write_one(
-        "--out",
-        &o.out,
-        &[("table", o.table.as_path())],
-        text.as_bytes(),
-    )?;
     let mut out = format!(
         "{}: {} rows, {} inputs ({})\n",
         o.table.display(),
@@ -188,28 +717,133 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     for e in &t.encodings {
         out.push_str(&format!("  {}\n", e.describe()));
     }
-    out.push_str(&format!(
-        "reference: k-NN on standardized inputs, k = {} chosen by {}-fold cross-validation; cross-validated {} = {} ± {}\n",
-        f.k,
-        reference::CV_FOLDS.min(t.rows()),
-        f.quality_name,
-        crate::fmt::fmt_num(f.quality),
-        crate::fmt::fmt_se(f.quality_stderr)
-    ));
-    if let Some(e) = &f.noise {
-        out.push_str(&format!(
-            "noise: σ² = {} ± {} ({}); the reference's cross-validated residuals give {}\n",
-            crate::fmt::fmt_num(e.value),
-            crate::fmt::fmt_se(e.stderr),
-            e.method.describe(),
-            crate::fmt::fmt_num(f.cv_noise.unwrap_or(f64::NAN))
-        ));
-        if o.varying {
-            out.push_str(
-                "noise written as varying: σ²(x) smoothed from the reference's squared residuals\n",
-            );
+    let text = match t.task {
+        Task::Classify { .. } => {
+            let f = reference::fit(&t, o.seed, true)?;
+            let text = classification_text(o, &t, &f, &rel);
+            check_plans(&text, &o.out, &folder)?;
+            out.push_str(&format!(
+                "reference: k-NN on standardized inputs, k = {} chosen by {}-fold cross-validation; cross-validated {} = {} ± {}\n",
+                f.k,
+                reference::CV_FOLDS.min(t.rows()),
+                f.quality_name,
+                fmt_num(f.quality),
+                fmt_se(f.quality_stderr)
+            ));
+            out.push_str("inputs: the table's rows resampled with replacement (classification twins keep the k-NN reference and resampled rows); fidelity check: regression twins only\n");
+            text
         }
-    }
+        Task::Regress => {
+            if o.noise_estimator == Some(Method::Gsjs) && t.x.ncols() != 1 {
+                return Err(Error::Usage(format!(
+                    "--noise-estimator gsjs needs exactly one input; {} has {} ({}); use gamma or nn",
+                    o.table.display(),
+                    t.x.ncols(),
+                    t.names.join(", ")
+                )));
+            }
+            let y = t.y.to_vec();
+            let fit =
+                twin::fit_regression(t.x.view(), &y, o.seed, o.reference, o.noise_estimator, &rel)
+                    .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
+            if let (Rule::Only(Candidate::LocLin), true) =
+                (o.reference, t.rows() > select::LOCLIN_MAX_ROWS)
+            {
+                out.push_str(&format!(
+                    "note: the local-linear candidate is not tried on more than {} rows; the blend stands in\n",
+                    select::LOCLIN_MAX_ROWS
+                ));
+            }
+            let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));
+            let sd = fit.noise.map_or(0.0, |n| n.value.max(0.0).sqrt());
+            let eval_size = if o.jitter > 0.0 {
+                o.eval_size
+            } else {
+                o.eval_size.min(t.rows())
+            };
+            let o_eff = TwinOptions {
+                eval_size,
+                ..o.clone()
+            };
+            let body = |r: &RegressionText<'_>, model: &str, reps: usize, report: bool| {
+                let mut comments = reference_lines(r.fit, o.reference);
+                comments.push(inputs_line(&t, r.jitter.as_ref(), eval_size));
+                if let Some(n) = &r.fit.noise {
+                    comments.push(noise_line(n));
+                }
+                if o.varying {
+                    comments.push("Noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals.".into());
+                }
+                if let Some(f) = r.fidelity {
+                    comments.extend(fidelity_lines(f, t.rows()));
+                }
+                let mut s = header_and_top(&o_eff, &t, &comments, reps);
+                s.push_str(&regression_data(&o_eff, &t, &rel, r));
+                if report {
+                    let noise = if o.varying {
+                        None
+                    } else {
+                        r.fit.noise.as_ref()
+                    };
+                    s.push_str(&fit_report_text(noise, r.fidelity));
+                }
+                s.push_str(model);
+                s
+            };
+            let mut rt = RegressionText {
+                fit: &fit,
+                jitter,
+                sd,
+                fidelity: None,
+            };
+            check_plans(
+                &body(&rt, &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"), 200, true),
+                &o.out,
+                &folder,
+            )?;
+            let fid = if o.fidelity > 0 {
+                Some(fidelity(&o_eff, &t, &folder, &|models, reps| {
+                    body(&rt, models, reps, false)
+                })?)
+            } else {
+                None
+            };
+            rt.fidelity = fid.as_ref();
+            for l in reference_lines(&fit, o.reference) {
+                out.push_str(&format!("{l}\n"));
+            }
+            out.push_str(&format!(
+                "{}\n",
+                inputs_line(&t, rt.jitter.as_ref(), eval_size)
+            ));
+            match &fit.noise {
+                Some(n) => out.push_str(&format!("{}\n", noise_line(n))),
+                None => out.push_str("Noise: the estimator cannot run on this table; σ = 0 written, edit [data.noise]\n"),
+            }
+            if o.varying {
+                out.push_str(
+                    "noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals\n",
+                );
+            }
+            match &fid {
+                Some(f) => {
+                    for l in fidelity_lines(f, t.rows()) {
+                        out.push_str(&format!("{l}\n"));
+                    }
+                }
+                None => out.push_str("Fidelity check skipped (--fidelity 0).\n"),
+            }
+            let text = body(&rt, &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"), 200, true);
+            check_plans(&text, &o.out, &folder)?;
+            text
+        }
+    };
+    crate::output::write_one(
+        "--out",
+        &o.out,
+        &[("table", o.table.as_path())],
+        text.as_bytes(),
+    )?;
     out.push_str(&format!(
         "wrote {} (edit [model]; run it with `lossprism run {}`)\n",
         o.out.display(),

@@ -747,7 +747,8 @@ pub struct TableRequest {
     pub scheme: Scheme,
     /// Holdout fraction in [0, 0.9].
     pub holdout: f64,
-    /// Noise estimator (`None` chooses: GSJS with one input, nearest neighbour otherwise).
+    /// Noise estimator (`None` chooses [`noise::default_method`]: GSJS with one input, the Gamma
+    /// test otherwise).
     pub noise_method: Option<noise::Method>,
     /// Seed of the holdout stream (the file's seed, so `--seed` does not move the holdout).
     pub holdout_seed: u64,
@@ -772,11 +773,9 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
             ),
         });
     }
-    let noise_method = req.noise_method.unwrap_or(if table.x.ncols() == 1 {
-        noise::Method::Gsjs
-    } else {
-        noise::Method::NearestNeighbour
-    });
+    let noise_method = req
+        .noise_method
+        .unwrap_or(noise::default_method(table.x.ncols()));
     if noise_method == noise::Method::Gsjs && table.x.ncols() != 1 {
         return Err(TableError {
             file,

@@ -10,6 +10,13 @@
 //!   intercept estimates σ².
 //! - [`gsjs`]: Gasser, Sroka, Jennen-Steinmetz (1986, *Biometrika* 73:625–633), one input:
 //!   pseudo-residuals from consecutive points in sorted x, exactly unbiased for linear f.
+//!
+//! [`default_method`] picks the estimator by the number of inputs (GSJS with one, the Gamma
+//! test otherwise). Every estimator here is a quadratic form `yᵀAy` with `tr A = 1` under
+//! unit-variance noise, so given the inputs its expectation is `σ² + fᵀAf`: the bias is the
+//! estimator applied to the noise-free truth, whatever σ² is (the twin's correction in
+//! [`crate::dgp::twin`] uses this). [`Design`] prepares an estimator once for a set of inputs
+//! so that many response vectors (a parametric bootstrap) are cheap.
 
 use ndarray::{ArrayView1, ArrayView2};
 
@@ -67,6 +74,18 @@ pub struct NoiseEstimate {
     pub method: Method,
 }
 
+/// The default estimator for a table with `p` inputs: the one with the smallest measured bias
+/// for that dimension (`docs/twin-calibration.md`, noise study): GSJS with one input (exactly
+/// unbiased for a linear truth), the Gamma test otherwise (its intercept removes the first-order
+/// roughness term that biases the nearest-neighbour difference upwards in 2 and 3 inputs).
+pub fn default_method(p: usize) -> Method {
+    if p == 1 {
+        Method::Gsjs
+    } else {
+        Method::Gamma
+    }
+}
+
 /// Runs the chosen estimator. Returns `None` when the data cannot support it (fewer than 3
 /// rows; GSJS with more than one input; Gamma with fewer than 4 rows).
 pub fn estimate(
@@ -74,15 +93,109 @@ pub fn estimate(
     x: ArrayView2<'_, f64>,
     y: ArrayView1<'_, f64>,
 ) -> Option<NoiseEstimate> {
-    match method {
-        Method::NearestNeighbour => nearest_neighbour(x, y),
-        Method::Gamma => gamma_test(x, y),
-        Method::Gsjs => {
-            if x.ncols() != 1 {
-                return None;
+    if x.nrows() != y.len() {
+        return None;
+    }
+    Design::new(method, x)?.estimate(y)
+}
+
+/// An estimator prepared for one set of inputs: everything that depends only on x (the
+/// neighbour lists and distances, or the sort order and weights of GSJS) is computed once, so
+/// the estimate for many response vectors on the same rows (a parametric bootstrap) costs O(n)
+/// each. `Design::new(m, x)?.estimate(y)` equals `estimate(m, x, y)` bit for bit.
+#[derive(Debug, Clone)]
+pub struct Design {
+    method: Method,
+    n: usize,
+    kind: DesignKind,
+}
+
+#[derive(Debug, Clone)]
+enum DesignKind {
+    /// Nearest neighbour of each row.
+    Nn(Vec<usize>),
+    /// The `p` nearest neighbours of each row with squared distances, and the mean squared
+    /// distance per order.
+    Gamma {
+        nn: Vec<Vec<(usize, f64)>>,
+        delta: Vec<f64>,
+    },
+    /// Rows in sorted-x order and the weights `a` of the interior points.
+    Gsjs { order: Vec<usize>, a: Vec<f64> },
+}
+
+impl Design {
+    /// Prepares `method` for the rows of `x`; `None` when the estimator cannot run on them.
+    pub fn new(method: Method, x: ArrayView2<'_, f64>) -> Option<Design> {
+        let n = x.nrows();
+        let kind = match method {
+            Method::NearestNeighbour => {
+                if n < 3 {
+                    return None;
+                }
+                let z = standardize(x);
+                DesignKind::Nn(nearest(z.view(), 1).iter().map(|l| l[0].0).collect())
             }
-            gsjs(x.column(0), y)
+            Method::Gamma => {
+                if n < 4 {
+                    return None;
+                }
+                let z = standardize(x);
+                let p = GAMMA_K.min(n - 1);
+                let nn = nearest(z.view(), p);
+                let mut delta = vec![0.0; p];
+                for list in &nn {
+                    for (k, &(_, d2)) in list.iter().enumerate() {
+                        delta[k] += d2;
+                    }
+                }
+                delta.iter_mut().for_each(|d| *d /= n as f64);
+                DesignKind::Gamma { nn, delta }
+            }
+            Method::Gsjs => {
+                if n < 3 || x.ncols() != 1 {
+                    return None;
+                }
+                let x = x.column(0);
+                let mut order: Vec<usize> = (0..n).collect();
+                order.sort_by(|&a, &b| x[a].total_cmp(&x[b]).then(a.cmp(&b)));
+                let xs: Vec<f64> = order.iter().map(|&i| x[i]).collect();
+                let a = (1..n - 1)
+                    .map(|i| {
+                        let span = xs[i + 1] - xs[i - 1];
+                        if span > 0.0 {
+                            (xs[i + 1] - xs[i]) / span
+                        } else {
+                            0.5
+                        }
+                    })
+                    .collect();
+                DesignKind::Gsjs { order, a }
+            }
+        };
+        Some(Design { method, n, kind })
+    }
+
+    /// The estimator.
+    pub fn method(&self) -> Method {
+        self.method
+    }
+
+    /// The estimate for responses `y` at the prepared rows (`None` when `y` has another length).
+    pub fn estimate(&self, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
+        if y.len() != self.n {
+            return None;
         }
+        Some(match &self.kind {
+            DesignKind::Nn(nb) => nn_estimate(nb, y),
+            DesignKind::Gamma { nn, delta } => gamma_estimate(nn, delta, y),
+            DesignKind::Gsjs { order, a } => gsjs_estimate(order, a, y),
+        })
+    }
+
+    /// The estimate alone (NaN when `y` has another length): the fast path of a bootstrap.
+    pub fn value(&self, y: ArrayView1<'_, f64>) -> f64 {
+        self.estimate(y).map_or(f64::NAN, |e| e.value)
     }
 }
 
@@ -141,87 +254,150 @@ fn mean_se(t: &[f64]) -> (f64, f64) {
     (mean, (var / n).sqrt())
 }
 
-/// Nearest-neighbour difference estimator `σ̂² = (1/2n) Σ (y_i − y_{N(i)})²` on standardized
-/// inputs (Devroye, Györfi, Lugosi, Walk 2018). Standard error: the sample standard deviation of
-/// the terms `½(y_i − y_{N(i)})²` over √n; it ignores that mutual neighbours repeat a term, so it
-/// can understate the error by up to a factor √2.
-pub fn nearest_neighbour(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
-    let n = y.len();
-    if n < 3 || x.nrows() != n {
-        return None;
+/// Variance of the mean of `t` when term i and term j are dependent exactly when they share a
+/// response (`uses(i)` lists the responses term i reads): with independent noise across rows,
+/// `Var(mean t) = (1/m²) Σ_i Σ_{j ~ i} Cov(t_i, t_j)`, estimated by the plug-in
+/// `(1/(m(m−1))) Σ_i Σ_{j ~ i} (t_i − t̄)(t_j − t̄)` — the dependency-graph form of the lag
+/// window GSJS uses below — and never below the independent-terms value
+/// `Σ (t_i − t̄)² / (m(m−1))`. Pairs that share a response (mutual neighbours, a common
+/// neighbour) are positively correlated, which the independent-terms value ignores; that is why
+/// the plain standard errors understated the spread (measured in `docs/twin-calibration.md`).
+fn dependent_var_of_mean(t: &[f64], uses: &[Vec<usize>], responses: usize) -> f64 {
+    let m = t.len();
+    if m < 2 {
+        return f64::NAN;
     }
-    let z = standardize(x);
-    let nn = nearest(z.view(), 1);
+    let mean = t.iter().sum::<f64>() / m as f64;
+    let mut users: Vec<Vec<usize>> = vec![Vec::new(); responses];
+    for (i, u) in uses.iter().enumerate() {
+        for &r in u {
+            users[r].push(i);
+        }
+    }
+    let mut stamp = vec![usize::MAX; m];
+    let (mut graph, mut diag) = (0.0, 0.0);
+    for i in 0..m {
+        let di = t[i] - mean;
+        diag += di * di;
+        for &r in &uses[i] {
+            for &j in &users[r] {
+                if stamp[j] != i {
+                    stamp[j] = i;
+                    graph += di * (t[j] - mean);
+                }
+            }
+        }
+    }
+    graph.max(diag) / (m as f64 * (m as f64 - 1.0))
+}
+
+/// Nearest-neighbour difference estimator `σ̂² = (1/2n) Σ (y_i − y_{N(i)})²` on standardized
+/// inputs (Devroye, Györfi, Lugosi, Walk 2018). Standard error: the terms `½(y_i − y_{N(i)})²`
+/// of two rows that share a response (mutual neighbours, a common neighbour) are dependent, so
+/// the variance of their mean sums the plug-in covariances over those pairs (see
+/// `dependent_var_of_mean`).
+pub fn nearest_neighbour(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
+    estimate(Method::NearestNeighbour, x, y)
+}
+
+fn nn_estimate(nb: &[usize], y: ArrayView1<'_, f64>) -> NoiseEstimate {
+    let n = y.len();
     let t: Vec<f64> = (0..n)
         .map(|i| {
-            let j = nn[i][0].0;
+            let j = nb[i];
             0.5 * (y[i] - y[j]) * (y[i] - y[j])
         })
         .collect();
-    let (value, stderr) = mean_se(&t);
-    Some(NoiseEstimate {
+    let (value, _) = mean_se(&t);
+    let uses: Vec<Vec<usize>> = (0..n).map(|i| vec![i, nb[i]]).collect();
+    NoiseEstimate {
         value,
-        stderr,
+        stderr: dependent_var_of_mean(&t, &uses, n).sqrt(),
         method: Method::NearestNeighbour,
-    })
+    }
 }
 
 /// Number of neighbour orders in the Gamma test.
 pub const GAMMA_K: usize = 10;
 
 /// The Gamma test (Stefánsson, Končar, Jones 1997) on standardized inputs: least-squares line
-/// through `(δ(k), γ(k))`, k = 1..min(10, n−1); the intercept estimates σ². Standard error: the
-/// formal least-squares standard error of the intercept from the line's residuals (the points
-/// are dependent, so treat it as indicative; NaN with fewer than 3 orders).
+/// through `(δ(k), γ(k))`, k = 1..min(10, n−1); the intercept estimates σ². The intercept is a
+/// fixed linear combination `Σ_k c_k γ(k)` (weights from the δ(k) alone, summing to 1), so
+/// `σ̂² = (1/n) Σ_i u_i` with `u_i = Σ_k c_k · ½(y_{N_k(i)} − y_i)²`; standard error: the
+/// variance of that mean over rows, with the covariances of rows that share a response
+/// (see `dependent_var_of_mean`). (The least-squares standard error of the intercept treats the
+/// ten dependent points of the line as independent and understated the spread.)
 pub fn gamma_test(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
+    estimate(Method::Gamma, x, y)
+}
+
+fn gamma_estimate(
+    nn: &[Vec<(usize, f64)>],
+    delta: &[f64],
+    y: ArrayView1<'_, f64>,
+) -> NoiseEstimate {
     let n = y.len();
-    if n < 4 || x.nrows() != n {
-        return None;
-    }
-    let z = standardize(x);
-    let p = GAMMA_K.min(n - 1);
-    let nn = nearest(z.view(), p);
-    let mut delta = vec![0.0; p];
+    let p = delta.len();
     let mut gamma = vec![0.0; p];
     for (i, list) in nn.iter().enumerate() {
-        for (k, &(j, d2)) in list.iter().enumerate() {
-            delta[k] += d2;
+        for (k, &(j, _)) in list.iter().enumerate() {
             gamma[k] += 0.5 * (y[j] - y[i]) * (y[j] - y[i]);
         }
     }
-    delta.iter_mut().for_each(|d| *d /= n as f64);
     gamma.iter_mut().for_each(|g| *g /= n as f64);
-    let (a, se) = line_intercept(&delta, &gamma);
-    Some(NoiseEstimate {
+    let a = line_intercept(delta, &gamma);
+    let c = intercept_weights(delta);
+    let u: Vec<f64> = nn
+        .iter()
+        .enumerate()
+        .map(|(i, list)| {
+            list.iter()
+                .zip(&c)
+                .map(|(&(j, _), ck)| ck * 0.5 * (y[j] - y[i]) * (y[j] - y[i]))
+                .sum()
+        })
+        .collect();
+    let uses: Vec<Vec<usize>> = nn
+        .iter()
+        .enumerate()
+        .map(|(i, list)| {
+            std::iter::once(i)
+                .chain(list.iter().map(|&(j, _)| j))
+                .collect()
+        })
+        .collect();
+    NoiseEstimate {
         value: a,
-        stderr: se,
+        stderr: dependent_var_of_mean(&u, &uses, n).sqrt(),
         method: Method::Gamma,
-    })
+    }
 }
 
-/// Ordinary least-squares intercept of `g` on `d`, and its formal standard error. When every
-/// `d` is equal (all neighbours at the same distance) the intercept is the mean of `g`.
-fn line_intercept(d: &[f64], g: &[f64]) -> (f64, f64) {
+/// The weights `c_k` with `intercept = Σ_k c_k g_k` for the least-squares line of `g` on `d`:
+/// `c_k = 1/m − d̄ (d_k − d̄) / Σ (d − d̄)²`, or `1/m` when every `d` is equal.
+fn intercept_weights(d: &[f64]) -> Vec<f64> {
+    let m = d.len() as f64;
+    let dm = d.iter().sum::<f64>() / m;
+    let sdd: f64 = d.iter().map(|v| (v - dm) * (v - dm)).sum();
+    if sdd <= 0.0 || !sdd.is_finite() {
+        return vec![1.0 / m; d.len()];
+    }
+    d.iter().map(|v| 1.0 / m - dm * (v - dm) / sdd).collect()
+}
+
+/// Ordinary least-squares intercept of `g` on `d`. When every `d` is equal (all neighbours at
+/// the same distance) the intercept is the mean of `g`.
+fn line_intercept(d: &[f64], g: &[f64]) -> f64 {
     let m = d.len() as f64;
     let dm = d.iter().sum::<f64>() / m;
     let gm = g.iter().sum::<f64>() / m;
     let sdd: f64 = d.iter().map(|v| (v - dm) * (v - dm)).sum();
     if sdd <= 0.0 || !sdd.is_finite() {
-        return (gm, f64::NAN);
+        return gm;
     }
     let sdg: f64 = d.iter().zip(g).map(|(a, b)| (a - dm) * (b - gm)).sum();
     let slope = sdg / sdd;
-    let a = gm - slope * dm;
-    if d.len() < 3 {
-        return (a, f64::NAN);
-    }
-    let rss: f64 = d
-        .iter()
-        .zip(g)
-        .map(|(x, y)| (y - a - slope * x).powi(2))
-        .sum();
-    let s2 = rss / (m - 2.0);
-    (a, (s2 * (1.0 / m + dm * dm / sdd)).sqrt())
+    gm - slope * dm
 }
 
 /// Gasser–Sroka–Jennen-Steinmetz estimator (1986) for one input. With the data sorted by x and
@@ -232,22 +408,18 @@ fn line_intercept(d: &[f64], g: &[f64]) -> (f64, f64) {
 /// the terms are 2-dependent (each uses three consecutive responses), so the variance of their
 /// mean uses autocovariances up to lag 2.
 pub fn gsjs(x: ArrayView1<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
-    let n = y.len();
-    if n < 3 || x.len() != n {
+    if x.len() != y.len() {
         return None;
     }
-    let mut order: Vec<usize> = (0..n).collect();
-    order.sort_by(|&a, &b| x[a].total_cmp(&x[b]).then(a.cmp(&b)));
-    let xs: Vec<f64> = order.iter().map(|&i| x[i]).collect();
+    estimate(Method::Gsjs, x.insert_axis(ndarray::Axis(1)), y)
+}
+
+fn gsjs_estimate(order: &[usize], a: &[f64], y: ArrayView1<'_, f64>) -> NoiseEstimate {
+    let n = y.len();
     let ys: Vec<f64> = order.iter().map(|&i| y[i]).collect();
     let t: Vec<f64> = (1..n - 1)
         .map(|i| {
-            let span = xs[i + 1] - xs[i - 1];
-            let a = if span > 0.0 {
-                (xs[i + 1] - xs[i]) / span
-            } else {
-                0.5
-            };
+            let a = a[i - 1];
             let b = 1.0 - a;
             let e = a * ys[i - 1] + b * ys[i + 1] - ys[i];
             e * e / (a * a + b * b + 1.0)
@@ -266,7 +438,7 @@ pub fn gsjs(x: ArrayView1<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstim
             / m
     };
     let var_mean = (acov(0) + 2.0 * acov(1) + 2.0 * acov(2)).max(acov(0)) / m;
-    Some(NoiseEstimate {
+    NoiseEstimate {
         value: mean,
         stderr: if t.len() >= 3 {
             var_mean.sqrt()
@@ -274,7 +446,7 @@ pub fn gsjs(x: ArrayView1<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstim
             f64::NAN
         },
         method: Method::Gsjs,
-    })
+    }
 }
 
 #[cfg(test)]
@@ -306,7 +478,7 @@ mod tests {
         // Exact: OLS through points on a line returns the line's intercept.
         let d = [0.1, 0.2, 0.4, 0.8];
         let g: Vec<f64> = d.iter().map(|v| 2.5 + 3.0 * v).collect();
-        let (a, _) = line_intercept(&d, &g);
+        let a = line_intercept(&d, &g);
         approx::assert_relative_eq!(a, 2.5, max_relative = 1e-12);
     }
 }

@@ -316,7 +316,7 @@ impl Loss for Squared {
             "bias_sq",
             if observed { "bias² (est.)" } else { "bias²" },
             if observed {
-                "bias²+noise − noise (est.): the squared bias with an estimated noise removed"
+                "bias²+noise − noise (est.): the squared bias with an estimated noise removed; its standard error includes the noise estimate's"
             } else {
                 "(mean prediction − truth)² − variance/R, unbiased"
             },
@@ -600,11 +600,14 @@ impl Loss for Squared {
     }
 
     fn adjust_stderr(&self, shape: &Shape, target: &Target<'_>, se: &mut [Row]) {
-        if !target.observed() {
+        let Target::Observed { noise, .. } = target else {
             return;
-        }
-        // On a table bias² = bias²+noise − an estimate that does not vary across blocks: its
-        // jackknife error is that of bias²+noise.
+        };
+        // On a table bias² = bias²+noise − σ̂². The estimate σ̂² does not vary across replicate
+        // blocks, so the jackknife sees only the Monte Carlo error of bias²+noise; the two errors
+        // are independent (σ̂² is a function of the table, bias²+noise's Monte Carlo error one of
+        // the resampling), so the standard error of the difference is
+        // √(se(bias²+noise)² + se(σ̂²)²). Without a noise standard error it stays unknown (NaN).
         let d = self.describe(shape, true);
         let (Some(b), Some(bpn)) = (
             d.iter().position(|t| t.key == "bias_sq"),
@@ -612,8 +615,9 @@ impl Loss for Squared {
         ) else {
             return;
         };
+        let se_noise = noise.map_or(f64::NAN, |(_, s)| s);
         for row in se.iter_mut() {
-            row[b] = row[bpn];
+            row[b] = (row[bpn] * row[bpn] + se_noise * se_noise).sqrt();
         }
     }
 }
@@ -883,5 +887,12 @@ mod tests {
         // Direct: mean of (1, 9, 4) = 14/3 = bias²+noise + V exactly.
         assert!((sum.value(0, "expected_loss_direct") - 14.0 / 3.0).abs() < 1e-12);
         assert!((sum.value(0, "bias_sq") - (bpn - 0.5)).abs() < 1e-12);
+        // Exact: the standard error of bias² = bias²+noise − σ̂² adds the two in quadrature.
+        let (a, b) = (sum.se(0, "bias_sq_plus_noise"), sum.se(0, "bias_sq"));
+        let want = (a * a + 0.1f64 * 0.1).sqrt();
+        assert!(
+            b.to_bits() == want.to_bits() || (a.is_nan() && b.is_nan()),
+            "{a} {b}"
+        );
     }
 }

@@ -1,8 +1,10 @@
 //! Synthetic data-generating processes: input distributions, the truth f(x) (a formula or a
-//! published test function) and the noise model. Everything here is deterministic given the
-//! random stream handed in; the runner owns the streams.
+//! published test function) and the noise model; a simulated twin's reference model
+//! ([`reference`]) and its inputs, noise correction and fit record ([`twin`]). Everything here is
+//! deterministic given the random stream handed in; the runner owns the streams.
 
 pub mod reference;
+pub mod twin;
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::Rng;
@@ -20,8 +22,9 @@ pub enum InputDist {
     Normal(f64, f64),
     /// Evenly spaced over the sample: point i of n sits at `lo + (hi-lo)·i/(n-1)`.
     Even(f64, f64),
-    /// Column `column` of a table's rows (a twin, see [`crate::twin`]). When every input is
-    /// empirical, whole rows are drawn with replacement, so the columns keep their joint law.
+    /// Column `column` of a table's rows (a twin, see [`twin`]). When every input is
+    /// empirical, whole rows are drawn with replacement, so the columns keep their joint law;
+    /// with `jitter`, each drawn row is then smoothed ([`twin::Jitter`]).
     Empirical {
         /// The table's input rows.
         rows: std::sync::Arc<ndarray::Array2<f64>>,
@@ -29,6 +32,8 @@ pub enum InputDist {
         column: usize,
         /// The table file, for descriptions.
         source: String,
+        /// The smoothed bootstrap shared by all columns (`None`: rows as they are).
+        jitter: Option<std::sync::Arc<twin::Jitter>>,
     },
 }
 
@@ -39,9 +44,19 @@ impl InputDist {
             InputDist::Uniform(a, b) => format!("uniform({a}, {b})"),
             InputDist::Normal(m, s) => format!("normal(mean {m}, sd {s})"),
             InputDist::Even(a, b) => format!("evenly spaced over [{a}, {b}]"),
-            InputDist::Empirical { rows, source, .. } => {
-                format!("the {} rows of {source}, resampled", rows.nrows())
-            }
+            InputDist::Empirical {
+                rows,
+                source,
+                jitter,
+                column,
+            } => match jitter.as_deref().filter(|j| !j.is_plain()) {
+                None => format!("the {} rows of {source}, resampled", rows.nrows()),
+                Some(j) => format!(
+                    "the {} rows of {source}, resampled, {}",
+                    rows.nrows(),
+                    j.describe_column(*column)
+                ),
+            },
         }
     }
 }
@@ -295,7 +310,10 @@ impl Synthetic {
     pub fn draw_inputs<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Array2<f64> {
         let p = self.inputs.len();
         if let Some(rows) = self.empirical_rows() {
-            return reference::resample_rows(rows, n, rng);
+            return match self.jitter() {
+                Some(j) => j.draw(rows, n, rng),
+                None => reference::resample_rows(rows, n, rng),
+            };
         }
         let mut x = Array2::<f64>::zeros((n, p));
         // Column by column so that each input's draws do not depend on the other inputs' kinds.
@@ -309,8 +327,17 @@ impl Synthetic {
                     }
                     // Mixed with other kinds (not produced by a plan): one row per value.
                     InputDist::Empirical {
-                        ref rows, column, ..
-                    } => rows[[rng.gen_range(0..rows.nrows()), column]],
+                        ref rows,
+                        column,
+                        ref jitter,
+                        ..
+                    } => {
+                        let v = rows[[rng.gen_range(0..rows.nrows()), column]];
+                        match jitter {
+                            Some(j) => j.perturb(column, v, rng),
+                            None => v,
+                        }
+                    }
                     InputDist::Even(a, b) => {
                         if n == 1 {
                             0.5 * (a + b)
@@ -337,37 +364,54 @@ impl Synthetic {
         all.then_some(rows.as_ref())
     }
 
-    /// A digest of the data behind a twin's reference (its responses, bit for bit); 0 for any
-    /// other process.
-    pub fn reference_digest(&self) -> u64 {
-        let r = match &self.response {
+    /// The smoothed bootstrap of a twin's inputs, when some column is jittered.
+    pub fn jitter(&self) -> Option<&twin::Jitter> {
+        match &self.inputs.first()?.dist {
+            InputDist::Empirical {
+                jitter: Some(j), ..
+            } if !j.is_plain() => Some(j.as_ref()),
+            _ => None,
+        }
+    }
+
+    /// The twin's reference (regression truth or class model), `None` for any other process.
+    pub fn reference(&self) -> Option<&reference::Reference> {
+        match &self.response {
             Response::Regression {
                 truth: Truth::Reference(r),
                 ..
-            } => r,
+            } => Some(r),
             Response::Classes(ClassModel {
                 kind: ClassKind::Reference(r),
                 ..
-            }) => r,
-            _ => return 0,
+            }) => Some(r),
+            _ => None,
+        }
+    }
+
+    /// A digest of the data behind a twin's reference (its responses bit for bit, its recipe and
+    /// the inputs' jitter); 0 for any other process.
+    pub fn reference_digest(&self) -> u64 {
+        let Some(r) = self.reference() else {
+            return 0;
         };
-        r.digest()
+        match self.jitter() {
+            None => r.digest(),
+            Some(j) => {
+                // The smoothed bootstrap changes every draw: its bandwidths join the digest.
+                let mut bytes = r.digest().to_le_bytes().to_vec();
+                for v in j.h.iter().chain(&j.lo).chain(&j.hi) {
+                    bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+                }
+                crate::codec::fnv1a64(&bytes)
+            }
+        }
     }
 
     /// The table file a twin's reference was fitted on (an input of the run); `None` for any
     /// other process.
     pub fn source_file(&self) -> Option<std::path::PathBuf> {
-        match &self.response {
-            Response::Regression {
-                truth: Truth::Reference(r),
-                ..
-            } => r.path.clone(),
-            Response::Classes(ClassModel {
-                kind: ClassKind::Reference(r),
-                ..
-            }) => r.path.clone(),
-            _ => None,
-        }
+        self.reference().and_then(|r| r.path.clone())
     }
 
     /// `true` for a twin (inputs resampled from a table's rows).

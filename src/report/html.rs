@@ -73,8 +73,9 @@ fn inline_svg(svg: &str, label: &str) -> String {
     )
 }
 
-/// The scenario in plain words: where the data come from, the model family and its grid, the
-/// loss.
+/// The scenario in plain words: where the data come from (invented by the scenario, a twin
+/// fitted to a table, or the table itself resampled), the model family and its grid, the loss,
+/// and which quantities are estimates.
 pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
     let s = &doc.scenario;
     let inputs: Vec<String> = s
@@ -82,6 +83,31 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
         .iter()
         .map(|i| format!("{} ({})", i.name, i.distribution))
         .collect();
+    let model = format!(
+        "Model: the {} family, fitted at {} = {} ({} values{}).",
+        doc.family,
+        doc.knob,
+        grid_words(&s.grid),
+        s.grid.len(),
+        if s.grid_kind == "log" {
+            ", spaced on a logarithmic scale"
+        } else {
+            ""
+        }
+    );
+    let mut out = match (&doc.table, s.source.as_str()) {
+        (Some(t), _) => table_words(doc, t, &inputs, model),
+        (None, "twin") => twin_words(doc, &inputs, model),
+        _ => synthetic_words(doc, &inputs, model),
+    };
+    if !s.about.is_empty() {
+        out.insert(0, s.about.clone());
+    }
+    out
+}
+
+fn design_words(doc: &ResultDoc) -> (&'static str, String) {
+    let s = &doc.scenario;
     let design = if s.design == "fixed" {
         "the same training inputs in every replicate (fixed design), with fresh noise"
     } else {
@@ -92,7 +118,13 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
     } else {
         format!("at {} evaluation points drawn once", s.eval_size)
     };
-    let mut out = vec![
+    (design, eval)
+}
+
+fn synthetic_words(doc: &ResultDoc, inputs: &[String], model: String) -> Vec<String> {
+    let s = &doc.scenario;
+    let (design, eval) = design_words(doc);
+    vec![
         format!(
             "Data ({}, invented by the scenario): {} training points per replicate, {design}. \
              Inputs: {}.",
@@ -109,26 +141,134 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
                 s.noise
             ),
         },
-        format!(
-            "Model: the {} family, fitted at {} = {} ({} values{}).",
-            doc.family,
-            doc.knob,
-            grid_words(&s.grid),
-            s.grid.len(),
-            if s.grid_kind == "log" {
-                ", spaced on a logarithmic scale"
-            } else {
-                ""
-            }
-        ),
+        model,
         format!(
             "Loss: {} loss, measured {eval}; each term is averaged over those points and over \
              {} replicate training sets.",
             doc.loss, doc.replicates
         ),
+    ]
+}
+
+fn twin_words(doc: &ResultDoc, inputs: &[String], model: String) -> Vec<String> {
+    let s = &doc.scenario;
+    let (design, eval) = design_words(doc);
+    let mut out = vec![
+        format!(
+            "Data (a simulated twin of a table): a process fitted to the table stands in for the \
+             unknown one, and {} training points per replicate are drawn from it, {design}. \
+             Inputs: {}.",
+            s.train_size,
+            inputs.join("; ")
+        ),
+        match &s.labels {
+            None => format!(
+                "Truth (within the twin; an estimate of the table's E[y | x]): {}. Noise \
+                 (estimated from the table, then known within the twin): {}.",
+                s.truth, s.noise
+            ),
+            Some(l) => format!(
+                "Classes: {}. Class probabilities (within the twin; an estimate from the table): \
+                 {}. {}.",
+                l.join(", "),
+                s.truth,
+                s.noise
+            ),
+        },
     ];
-    if !s.about.is_empty() {
-        out.insert(0, s.about.clone());
+    if let Some(t) = &s.twin {
+        out.extend(super::twin::words(t));
+    }
+    out.push(model);
+    out.push(format!(
+        "Loss: {} loss, measured {eval}; each term is averaged over those points and over {} \
+         replicate training sets. Noise, bias and variance are exact for the twin; how well they \
+         carry over to the table's own process depends on the twin (see the fidelity check).",
+        doc.loss, doc.replicates
+    ));
+    out
+}
+
+fn table_words(
+    doc: &ResultDoc,
+    t: &super::TableEcho,
+    inputs: &[String],
+    model: String,
+) -> Vec<String> {
+    let s = &doc.scenario;
+    let scheme = if t.resample == "bootstrap" {
+        format!(
+            "a bootstrap resample: {} rows drawn with replacement from the {} working rows \
+             (about 63.2% of them distinct)",
+            t.train_size, t.working_rows
+        )
+    } else {
+        format!(
+            "a subsample of {} of the {} working rows, drawn without replacement",
+            t.train_size, t.working_rows
+        )
+    };
+    let holdout = if t.holdout_rows > 0 {
+        format!(
+            "; {} more rows are locked away as a holdout and never used here",
+            t.holdout_rows
+        )
+    } else {
+        String::new()
+    };
+    let skipped = if t.skipped_rows > 0 {
+        format!(
+            "; {} rows held out fewer than twice are skipped",
+            t.skipped_rows
+        )
+    } else {
+        String::new()
+    };
+    let estimates: Vec<String> = doc
+        .term_docs()
+        .iter()
+        .filter(|d| d.estimated)
+        .map(|d| d.label.clone())
+        .collect();
+    let mut out = vec![
+        format!(
+            "Data (the table {} itself, {} rows read{holdout}): nothing is simulated. Each \
+             replicate trains on {scheme}, and is evaluated on the rows it left out \
+             (out-of-bag), against their observed responses. Inputs: {}.",
+            t.path,
+            t.rows,
+            inputs.join("; ")
+        ),
+        format!("Truth: {}. Noise: {}.", s.truth, s.noise),
+        model,
+        format!(
+            "Loss: {} loss on the out-of-bag rows; each row's terms average the replicates that \
+             held it out (on average {:.1}% of the rows per replicate), then the rows are \
+             averaged{skipped}; {} replicate resamples.",
+            doc.loss,
+            100.0 * t.held_out_share,
+            doc.replicates
+        ),
+    ];
+    if !estimates.is_empty() {
+        out.push(format!(
+            "Estimates: {} rest on an estimated noise and the observed responses, not on a \
+             known truth; their standard errors include the noise estimate's.",
+            estimates.join(", ")
+        ));
+    }
+    if let Some(n) = &doc.noise_estimate {
+        out.push(format!(
+            "Noise estimate: {}{} ({}).",
+            fmt_num(n.value),
+            n.stderr
+                .map(|se| format!(" ± {}", fmt_se(se)))
+                .unwrap_or_default(),
+            n.about
+        ));
+    }
+    if let Some(note) = &doc.scheme_note {
+        out.push(note.clone());
     }
     out
 }
@@ -273,19 +413,25 @@ pub fn render(
         e(&doc.scenario.name),
         e(&doc.knob)
     );
+    let resampled = doc.table.is_some();
     let _ = writeln!(
         h,
         "<h1>{}: bias and variance across {}</h1>\n<p class=\"lead\">How the expected test loss of \
          the {} family splits into noise, bias and variance as {} changes, estimated from {} \
-         simulated training sets.</p>",
+         {} training sets.</p>",
         e(&doc.scenario.name),
         e(&doc.knob),
         e(&doc.family),
         e(&doc.knob),
-        doc.replicates
+        doc.replicates,
+        if resampled { "resampled" } else { "simulated" }
     );
 
-    h.push_str("<h2>What was simulated</h2>\n");
+    h.push_str(if resampled {
+        "<h2>What was resampled</h2>\n"
+    } else {
+        "<h2>What was simulated</h2>\n"
+    });
     for line in scenario_words(doc) {
         let _ = writeln!(h, "<p>{}</p>", e(&line));
     }

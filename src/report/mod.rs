@@ -11,6 +11,7 @@ pub mod part;
 pub mod plot;
 pub mod selection;
 pub mod terminal;
+pub mod twin;
 
 use serde::de::Error as _;
 use serde::ser::SerializeMap;
@@ -74,6 +75,10 @@ pub struct ScenarioEcho {
     /// Fits per training set (`fit_seeds`; absent when 1).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub fit_seeds: Option<usize>,
+    /// A twin source: its reference, inputs, noise correction and fidelity check
+    /// ([`twin::TwinEcho`]; absent for other sources).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub twin: Option<twin::TwinEcho>,
 }
 
 /// The start of an evenly spaced input's description (`InputDist::Even`), recognised by
@@ -673,6 +678,7 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
                 grid_kind: model.grid_kind.name().into(),
                 blocks: plan.blocks,
                 fit_seeds,
+                twin: None,
             };
         }
     };
@@ -719,6 +725,7 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
         grid_kind: model.grid_kind.name().into(),
         blocks: plan.blocks,
         fit_seeds,
+        twin: twin::echo(&s.process),
     }
 }
 

@@ -60,18 +60,130 @@ pub struct AuditSpec {
     pub rule: Option<Spanned<String>>,
 }
 
-/// `reference = { family = "knn", k = 7, standardize = true }` of a twin source: the flexible
-/// fit of E[y | x] refitted on the table at plan time (see [`crate::twin`]).
+/// `reference = { family = "forest", k = 16, trees = 100, min_leaf = 5, seed = 7, ... }` of a
+/// twin source: the recipe of the flexible fit of E[y | x] refitted on the table at plan time
+/// (see [`crate::dgp::reference`]). `lossprism twin` writes it; the older form
+/// `{ family = "knn", k = 7, standardize = true }` is the k-NN reference alone.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ReferenceSpec {
-    /// Only `knn`.
+    /// `knn`, `forest`, `loclin` or `blend`.
     pub family: Spanned<String>,
-    /// Number of neighbours.
-    pub k: Spanned<i64>,
-    /// Standardize inputs with the table's mean and sd (default true).
+    /// Number of neighbours of the k-NN part (knn, a blend with a k-NN weight, classes, varying
+    /// noise).
+    #[serde(default)]
+    pub k: Option<Spanned<i64>>,
+    /// Standardize the k-NN inputs with the table's mean and sd (default true).
     #[serde(default)]
     pub standardize: Option<bool>,
+    /// Trees of the forest part.
+    #[serde(default)]
+    pub trees: Option<Spanned<i64>>,
+    /// Minimum samples per leaf of the forest's trees.
+    #[serde(default)]
+    pub min_leaf: Option<Spanned<i64>>,
+    /// Seed of the forest's bootstrap samples.
+    #[serde(default)]
+    pub seed: Option<Spanned<i64>>,
+    /// Bandwidth of the local-linear part (sd units of the standardized inputs).
+    #[serde(default)]
+    pub bandwidth: Option<Spanned<f64>>,
+    /// Weights of a blend (non-negative, at least one positive).
+    #[serde(default)]
+    pub weights: Option<Spanned<CandidateNumbers>>,
+    /// Cross-validated R² of each candidate when the choice was made (informational).
+    #[serde(default)]
+    pub cv_r2: Option<CandidateNumbers>,
+}
+
+/// One number per reference candidate (`{ knn = .., forest = .., loclin = .., blend = .. }`).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct CandidateNumbers {
+    /// k nearest neighbours.
+    #[serde(default)]
+    pub knn: Option<f64>,
+    /// Bagged trees.
+    #[serde(default)]
+    pub forest: Option<f64>,
+    /// Local-linear.
+    #[serde(default)]
+    pub loclin: Option<f64>,
+    /// The blend.
+    #[serde(default)]
+    pub blend: Option<f64>,
+}
+
+/// `[data.fit_report]` of a twin: what `lossprism twin` measured when it wrote the file
+/// (informational; `run` echoes it in the result's `scenario.twin`, nothing in the run depends
+/// on it).
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FitReportSpec {
+    /// The noise estimate and its correction.
+    #[serde(default)]
+    pub noise: Option<NoiseRecordSpec>,
+    /// The fidelity check.
+    #[serde(default)]
+    pub fidelity: Option<FidelitySpec>,
+}
+
+/// `noise = { method, raw, correction, value, stderr, tables }` of `[data.fit_report]`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct NoiseRecordSpec {
+    /// Estimator name.
+    pub method: String,
+    /// Raw estimate.
+    pub raw: f64,
+    /// Bias subtracted.
+    pub correction: f64,
+    /// Corrected σ².
+    pub value: f64,
+    /// Its standard error.
+    pub stderr: f64,
+    /// Bootstrap tables behind the standard error.
+    pub tables: u64,
+}
+
+/// `[data.fit_report.fidelity]`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FidelitySpec {
+    /// Tables drawn from the twin.
+    pub tables: u64,
+    /// Replicates of every run.
+    pub replicates: u64,
+    /// One entry per family checked.
+    pub models: Vec<FidelityModelSpec>,
+}
+
+/// One family of `[data.fit_report.fidelity]`.
+#[derive(Debug, Clone, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct FidelityModelSpec {
+    /// Family name.
+    pub family: String,
+    /// Knob name.
+    pub knob: String,
+    /// The twin's pick.
+    pub pick: f64,
+    /// The twin's one-standard-error set.
+    pub one_se: Vec<f64>,
+    /// The pick of each twin of a twin.
+    pub picks: Vec<f64>,
+    /// Share of those picks inside `one_se`.
+    pub in_one_se: f64,
+    /// Mean relative curve distance.
+    pub curve_error: f64,
+    /// The pick of the bias-corrected curve.
+    pub corrected_pick: f64,
+    /// The grid.
+    pub grid: Vec<f64>,
+    /// Expected loss on the twin per grid value.
+    pub loss: Vec<f64>,
+    /// Bias-corrected expected loss per grid value.
+    pub corrected_loss: Vec<f64>,
 }
 
 /// One training size or several.
@@ -150,12 +262,19 @@ pub struct DataSpec {
     /// Table: `regress` (default) or `classify` (labels from the target's values).
     #[serde(default)]
     pub task: Option<Spanned<String>>,
-    /// Table: `nn`, `gamma` or `gsjs` (default: `gsjs` with one input, else `nn`).
+    /// Table: `nn`, `gamma` or `gsjs` (default: `gsjs` with one input, else `gamma`).
     #[serde(default)]
     pub noise_estimator: Option<Spanned<String>>,
     /// Twin: the reference fit that serves as the truth.
     #[serde(default)]
     pub reference: Option<ReferenceSpec>,
+    /// Twin: the bandwidth multiplier c of the smoothed bootstrap of the rows (Silverman's rule
+    /// × c; default 0: rows resampled as they are).
+    #[serde(default)]
+    pub jitter: Option<Spanned<f64>>,
+    /// Twin: what `lossprism twin` measured (informational, echoed in results).
+    #[serde(default)]
+    pub fit_report: Option<FitReportSpec>,
 }
 
 /// `[data.classes]`: labels and the true class probabilities P(Y = c | x).

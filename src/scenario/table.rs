@@ -23,7 +23,8 @@ fn spanned_err<T>(
     }
 }
 
-/// Refuses the table keys of `[data]` in a non-table source (they would be ignored silently).
+/// Refuses the keys of the file sources in a synthetic source (they would be ignored silently):
+/// the table keys, and a twin's `jitter` and `[data.fit_report]`.
 pub fn reject_table_keys(
     d: &crate::scenario::spec::DataSpec,
     src: &str,
@@ -53,7 +54,23 @@ pub fn reject_table_keys(
     check(
         d.noise_estimator.as_ref().map(|s| s.span()),
         "noise_estimator",
-    )
+    )?;
+    for (present, key) in [
+        (d.jitter.as_ref().map(|s| s.span()), "jitter"),
+        (d.fit_report.as_ref().map(|_| d.source.span()), "fit_report"),
+    ] {
+        if let Some(span) = present {
+            return Err(ScenarioError {
+                file: file.to_string(),
+                line: Some(crate::scenario::line_of(src, span.start)),
+                key: Some(format!("data.{key}")),
+                message: format!(
+                    "belongs to `source = \"twin\"`; a {source} source does not use it"
+                ),
+            });
+        }
+    }
+    Ok(())
 }
 
 /// Builds the table source of a scenario from its `[data]` section: checks the keys (errors name
@@ -69,7 +86,9 @@ pub fn from_spec(
     let e =
         |v: Option<&toml::Spanned<String>>, key: &str, m: String| spanned_err(src, file, v, key, m);
     let src_span = Some(&d.source);
-    let unused: [(bool, &str); 5] = [
+    let unused: [(bool, &str); 7] = [
+        (d.jitter.is_some(), "jitter"),
+        (d.fit_report.is_some(), "fit_report"),
         (d.eval_size.is_some(), "eval_size"),
         (d.design.is_some(), "design"),
         (d.eval.is_some(), "eval"),

@@ -1,17 +1,300 @@
-//! Planning a `source = "twin"` section: loads the table, refits the reference named by
-//! `reference` (see [`crate::dgp::reference`]), and builds the synthetic process whose inputs are
-//! the table's rows.
+//! Planning a `source = "twin"` section: loads the table, refits the reference whose recipe
+//! `reference` records (see [`crate::dgp::reference`]), fits the smoothed bootstrap of the rows
+//! (`jitter`, see [`crate::dgp::twin`]) and builds the synthetic process whose inputs come from
+//! the table's rows. [`build`] does the same for a table in memory (the fidelity check of
+//! `lossprism twin` twins tables drawn from a twin).
 
 use std::path::Path;
 use std::sync::Arc;
 
-use crate::dataset::{self, Missing, TableOptions, TargetKind};
-use crate::dgp::reference::Reference;
+use crate::dataset::{self, Missing, Table, TableOptions, TargetKind};
+use crate::dgp::reference::{Candidate, Choice, ForestParams, Reference};
+use crate::dgp::twin::{FidelityModel, FidelityRecord, FitReport, Jitter, NoiseRecord};
 use crate::dgp::{ClassKind, ClassModel, Input, InputDist, Noise, Response, Synthetic, Truth};
 use crate::error::ScenarioError;
 use crate::family::Task;
-use crate::scenario::spec::DataSpec;
+use crate::scenario::spec::{DataSpec, FitReportSpec, ReferenceSpec};
 use crate::scenario::{Design, SyntheticPlan};
+
+/// Largest number of trees a reference forest may have.
+pub const MAX_TREES: i64 = 10_000;
+
+/// Largest jitter multiplier.
+pub const MAX_JITTER: f64 = 10.0;
+
+/// A twin's noise (regression).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum TwinNoise {
+    /// Gaussian with a constant standard deviation.
+    Constant(f64),
+    /// σ²(x) from the reference's k-NN smoothed squared residuals.
+    Varying,
+}
+
+/// Everything a twin process needs besides its table.
+#[derive(Debug, Clone)]
+pub struct TwinSpec {
+    /// The reference's recipe.
+    pub choice: Choice,
+    /// The smoothed bootstrap's multiplier c (0: rows as they are).
+    pub jitter: f64,
+    /// The noise (regression; `None` for classes).
+    pub noise: Option<TwinNoise>,
+    /// Training size n (the largest of `sizes`).
+    pub train_size: usize,
+    /// The training sizes of a learning curve (ascending; one entry for a single size).
+    pub sizes: Vec<usize>,
+    /// Evaluation points m.
+    pub eval_size: usize,
+    /// Random or fixed design.
+    pub design: Design,
+    /// Evaluate at the training inputs (fixed design only).
+    pub eval_at_design: bool,
+    /// What `lossprism twin` measured (echoed).
+    pub report: Option<FitReport>,
+}
+
+/// The twin process of table `t` (`shown`: the table's name in descriptions). Errors (one line)
+/// when the recipe lacks a part it needs.
+pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, String> {
+    let classes = match t.task {
+        Task::Classify { classes } => classes,
+        Task::Regress => 0,
+    };
+    let varying = spec.noise == Some(TwinNoise::Varying);
+    let mut fitted_ref = Reference::fit(
+        t.x.view(),
+        t.y.view(),
+        classes,
+        &spec.choice,
+        varying,
+        shown,
+    )?;
+    fitted_ref.path = Some(t.path.clone());
+    fitted_ref.report = spec.report.clone();
+    let fitted = Arc::new(fitted_ref);
+    let rows_arc = Arc::new(t.x.clone());
+    let jitter = (spec.jitter > 0.0).then(|| Arc::new(Jitter::fit(t.x.view(), spec.jitter)));
+    let inputs: Vec<Input> = t
+        .names
+        .iter()
+        .enumerate()
+        .map(|(j, name)| Input {
+            name: name.clone(),
+            dist: InputDist::Empirical {
+                rows: rows_arc.clone(),
+                column: j,
+                source: shown.to_string(),
+                jitter: jitter.clone(),
+            },
+        })
+        .collect();
+    let response = if classes > 0 {
+        Response::Classes(ClassModel {
+            labels: t.labels.clone(),
+            kind: ClassKind::Reference(fitted),
+        })
+    } else {
+        let noise = match spec.noise {
+            Some(TwinNoise::Constant(sd)) => Noise::Constant(sd),
+            Some(TwinNoise::Varying) => Noise::Reference(fitted.clone()),
+            None => return Err("a regression twin needs a noise".into()),
+        };
+        Response::Regression {
+            truth: Truth::Reference(fitted),
+            noise,
+        }
+    };
+    Ok(SyntheticPlan {
+        process: Synthetic { inputs, response },
+        train_size: spec.train_size,
+        sizes: spec.sizes.clone(),
+        eval_size: spec.eval_size,
+        design: spec.design,
+        eval_at_design: spec.eval_at_design,
+    })
+}
+
+/// The recipe written in `reference`, checked against a table of `rows` rows (`classes > 0`:
+/// classification, whose reference is k-NN). Errors name the key.
+fn choice_of(
+    r: &ReferenceSpec,
+    rows: usize,
+    classes: usize,
+    varying: bool,
+    err: &dyn Fn(std::ops::Range<usize>, &str, String) -> ScenarioError,
+) -> Result<Choice, ScenarioError> {
+    let fam_span = r.family.span();
+    let Some(family) = Candidate::from_name(r.family.get_ref()) else {
+        return Err(err(
+            fam_span,
+            "data.reference.family",
+            format!(
+                "unknown reference `{}`; expected `knn`, `forest`, `loclin` or `blend`",
+                r.family.get_ref()
+            ),
+        ));
+    };
+    if classes > 0 && family != Candidate::Knn {
+        return Err(err(
+            fam_span,
+            "data.reference.family",
+            "a classification twin's reference is `knn` (neighbour shares)".into(),
+        ));
+    }
+    let weights = match (&r.weights, family) {
+        (Some(w), Candidate::Blend) => {
+            let v = w.get_ref();
+            if v.blend.is_some() {
+                return Err(err(
+                    w.span(),
+                    "data.reference.weights",
+                    "takes `knn`, `forest` and `loclin`".into(),
+                ));
+            }
+            let ws = [
+                v.knn.unwrap_or(0.0),
+                v.forest.unwrap_or(0.0),
+                v.loclin.unwrap_or(0.0),
+            ];
+            if ws.iter().any(|x| !(x.is_finite() && *x >= 0.0)) || ws.iter().all(|x| *x == 0.0) {
+                return Err(err(
+                    w.span(),
+                    "data.reference.weights",
+                    "must be finite numbers >= 0, at least one of them > 0".into(),
+                ));
+            }
+            ws
+        }
+        (None, Candidate::Blend) => {
+            return Err(err(
+                fam_span,
+                "data.reference.weights",
+                "a blend needs `weights = { knn = .., forest = .., loclin = .. }`".into(),
+            ))
+        }
+        (Some(w), _) => {
+            return Err(err(
+                w.span(),
+                "data.reference.weights",
+                format!("belongs to `family = \"blend\"`, not `{}`", family.name()),
+            ))
+        }
+        (None, Candidate::Knn) => [1.0, 0.0, 0.0],
+        (None, Candidate::Forest) => [0.0, 1.0, 0.0],
+        (None, Candidate::LocLin) => [0.0, 0.0, 1.0],
+    };
+    let need = |key: &str| {
+        err(
+            fam_span.clone(),
+            &format!("data.reference.{key}"),
+            format!("`family = \"{}\"` needs `{key}`", family.name()),
+        )
+    };
+    let whole = |v: &toml::Spanned<i64>, key: &str, lo: i64, hi: i64| {
+        let x = *v.get_ref();
+        if x < lo || x > hi {
+            Err(err(
+                v.span(),
+                &format!("data.reference.{key}"),
+                format!("must be between {lo} and {hi}, got {x}"),
+            ))
+        } else {
+            Ok(x)
+        }
+    };
+    let k = match &r.k {
+        Some(k) => Some(whole(k, "k", 1, rows as i64)? as usize),
+        None if weights[0] > 0.0 || classes > 0 || varying => return Err(need("k")),
+        None => None,
+    };
+    let forest = if weights[1] > 0.0 {
+        let (Some(t), Some(l), Some(s)) = (&r.trees, &r.min_leaf, &r.seed) else {
+            return Err(need(if r.trees.is_none() {
+                "trees"
+            } else if r.min_leaf.is_none() {
+                "min_leaf"
+            } else {
+                "seed"
+            }));
+        };
+        Some(ForestParams {
+            trees: whole(t, "trees", 1, MAX_TREES)? as usize,
+            min_leaf: whole(l, "min_leaf", 1, rows as i64)? as usize,
+            seed: whole(s, "seed", 0, i64::MAX)? as u64,
+        })
+    } else {
+        None
+    };
+    let bandwidth = if weights[2] > 0.0 {
+        let Some(h) = &r.bandwidth else {
+            return Err(need("bandwidth"));
+        };
+        let v = *h.get_ref();
+        if !(v.is_finite() && v > 0.0) {
+            return Err(err(
+                h.span(),
+                "data.reference.bandwidth",
+                format!("must be a finite number > 0, got {v}"),
+            ));
+        }
+        Some(v)
+    } else {
+        None
+    };
+    let cv_r2 = r.cv_r2.as_ref().map(|c| {
+        [
+            c.knn.unwrap_or(f64::NAN),
+            c.forest.unwrap_or(f64::NAN),
+            c.loclin.unwrap_or(f64::NAN),
+            c.blend.unwrap_or(f64::NAN),
+        ]
+    });
+    Ok(Choice {
+        family,
+        standardize: r.standardize.unwrap_or(true),
+        k,
+        forest,
+        bandwidth,
+        weights,
+        cv_r2,
+    })
+}
+
+/// The record of `[data.fit_report]`.
+fn report_of(r: &FitReportSpec) -> FitReport {
+    FitReport {
+        noise: r.noise.as_ref().map(|n| NoiseRecord {
+            method: n.method.clone(),
+            raw: n.raw,
+            correction: n.correction,
+            value: n.value,
+            stderr: n.stderr,
+            tables: n.tables as usize,
+        }),
+        fidelity: r.fidelity.as_ref().map(|f| FidelityRecord {
+            tables: f.tables as usize,
+            replicates: f.replicates as usize,
+            models: f
+                .models
+                .iter()
+                .map(|m| FidelityModel {
+                    family: m.family.clone(),
+                    knob: m.knob.clone(),
+                    pick: m.pick,
+                    one_se: m.one_se.clone(),
+                    picks: m.picks.clone(),
+                    in_one_se: m.in_one_se,
+                    curve_error: m.curve_error,
+                    corrected_pick: m.corrected_pick,
+                    grid: m.grid.clone(),
+                    loss: m.loss.clone(),
+                    corrected_loss: m.corrected_loss.clone(),
+                })
+                .collect(),
+        }),
+    }
+}
 
 /// Builds the twin source of a scenario from its `[data]` section (`source = "twin"`): loads the
 /// table (path relative to `base`), refits the reference named by `reference`, and returns the
@@ -71,19 +354,9 @@ pub fn from_spec(
         return Err(err(
             at_source,
             "data.reference",
-            "a twin source needs `reference = { family = \"knn\", k = K }` (write one with `lossprism twin`)".into(),
+            "a twin source needs `reference = { family = .., ... }` (write one with `lossprism twin`)".into(),
         ));
     };
-    if reference.family.get_ref() != "knn" {
-        return Err(err(
-            reference.family.span(),
-            "data.reference.family",
-            format!(
-                "unknown reference `{}`; the only reference is `knn`",
-                reference.family.get_ref()
-            ),
-        ));
-    }
     let missing = match d.missing.as_ref().map(|s| s.get_ref().as_str()) {
         None | Some("error") => Missing::Error,
         Some("drop") => Missing::Drop,
@@ -143,15 +416,29 @@ pub fn from_spec(
         }
     })?;
     let rows = t.rows();
-    let k = *reference.k.get_ref();
-    if k < 1 || k as usize > rows {
-        return Err(err(
-            reference.k.span(),
-            "data.reference.k",
-            format!("must be between 1 and the table's {rows} rows, got {k}"),
-        ));
-    }
-    let standardize = reference.standardize.unwrap_or(true);
+    let classes = match t.task {
+        Task::Classify { classes } => classes,
+        Task::Regress => 0,
+    };
+    let varying = match d.noise.as_ref().and_then(|n| n.varying.as_ref()) {
+        Some(v) => *v.get_ref(),
+        None => false,
+    };
+    let choice = choice_of(reference, rows, classes, varying && classes == 0, &err)?;
+    let jitter = match &d.jitter {
+        None => 0.0,
+        Some(j) => {
+            let v = *j.get_ref();
+            if !(v.is_finite() && (0.0..=MAX_JITTER).contains(&v)) {
+                return Err(err(
+                    j.span(),
+                    "data.jitter",
+                    format!("must be between 0 and {MAX_JITTER}, got {v}"),
+                ));
+            }
+            v
+        }
+    };
     let size = |v: &Option<toml::Spanned<i64>>, key: &str, min: i64| match v {
         None => Ok(rows),
         Some(s) if *s.get_ref() >= min && *s.get_ref() <= 10_000_000 => Ok(*s.get_ref() as usize),
@@ -197,40 +484,7 @@ pub fn from_spec(
         size(&d.eval_size, "data.eval_size", 1)?
     };
     let shown = path.get_ref().clone();
-    let classes = match t.task {
-        Task::Classify { classes } => classes,
-        Task::Regress => 0,
-    };
-    let varying = match d.noise.as_ref().and_then(|n| n.varying.as_ref()) {
-        Some(v) => *v.get_ref(),
-        None => false,
-    };
-    let mut fitted_ref = Reference::fit(
-        t.x.view(),
-        t.y.view(),
-        classes,
-        k as usize,
-        standardize,
-        varying,
-        &shown,
-    );
-    fitted_ref.path = Some(t.path.clone());
-    let fitted = Arc::new(fitted_ref);
-    let rows_arc = Arc::new(t.x.clone());
-    let inputs: Vec<Input> = t
-        .names
-        .iter()
-        .enumerate()
-        .map(|(j, name)| Input {
-            name: name.clone(),
-            dist: InputDist::Empirical {
-                rows: rows_arc.clone(),
-                column: j,
-                source: shown.clone(),
-            },
-        })
-        .collect();
-    let response = if classes > 0 {
+    let noise = if classes > 0 {
         if let Some(n) = &d.noise {
             let span =
                 n.sd.as_ref()
@@ -242,12 +496,9 @@ pub fn from_spec(
                 "a classification twin has no [data.noise]: its label noise comes from the reference's class probabilities".into(),
             ));
         }
-        Response::Classes(ClassModel {
-            labels: t.labels.clone(),
-            kind: ClassKind::Reference(fitted),
-        })
+        None
     } else {
-        let noise = match &d.noise {
+        Some(match &d.noise {
             None => {
                 return Err(err(
                     at_source,
@@ -280,17 +531,21 @@ pub fn from_spec(
                                 format!("must be a finite number >= 0, got {v}"),
                             ));
                         }
-                        Noise::Constant(v)
+                        TwinNoise::Constant(v)
                     }
                     (_, true) => {
-                        if rows <= k as usize {
+                        let k = choice.k.unwrap_or(rows);
+                        if rows <= k {
                             return Err(err(
-                                reference.k.span(),
+                                n.varying
+                                    .as_ref()
+                                    .map(|v| v.span())
+                                    .unwrap_or(at_source.clone()),
                                 "data.noise.varying",
                                 format!("needs more than k = {k} rows"),
                             ));
                         }
-                        Noise::Reference(fitted.clone())
+                        TwinNoise::Varying
                     }
                     (None, false) => {
                         return Err(err(
@@ -301,18 +556,18 @@ pub fn from_spec(
                     }
                 }
             }
-        };
-        Response::Regression {
-            truth: Truth::Reference(fitted),
-            noise,
-        }
+        })
     };
-    Ok(SyntheticPlan {
-        process: Synthetic { inputs, response },
+    let spec = TwinSpec {
+        choice,
+        jitter,
+        noise,
         train_size,
         sizes,
         eval_size,
         design,
         eval_at_design,
-    })
+        report: d.fit_report.as_ref().map(report_of),
+    };
+    build(&t, &shown, &spec).map_err(|m| err(reference.family.span(), "data.reference", m))
 }

@@ -1,0 +1,557 @@
+//! The reference model of a simulated twin: a flexible fit of E[y | x] (or of P(y = c | x)) on a
+//! table that serves as the twin's truth, the recipe that rebuilds it, and its choice.
+//!
+//! **Regression**: four candidates, each tuned on the table, chosen by cross-validated R²
+//! ([`select`]): k nearest neighbours, bagged trees ([`forest`]), local-linear kernel
+//! regression ([`loclin`]) and a stacked non-negative blend of the three. A [`Choice`] records
+//! everything needed to refit the chosen reference exactly (which candidate, its knobs, the
+//! forest's seed, the blend's weights), and a twin scenario writes it as
+//! `reference = { family = "forest", k = 16, trees = 100, min_leaf = 5, seed = 7, ... }`; `run`
+//! refits it at plan time, bit for bit. The older form `{ family = "knn", k = 7, standardize =
+//! true }` is the k-NN candidate alone.
+//!
+//! **k-NN** is on inputs standardized by the table's mean and sd (each column centred and
+//! divided by its standard deviation, so an input in large units does not dominate the
+//! distance), ties in distance to the lower row index. [`fit`] chooses k alone by 10-fold
+//! cross-validation: the reference of classification twins and of the regression twins written
+//! before the candidates existed.
+//!
+//! **Varying noise** (`varying = true`): σ²(x) is the k-NN average (the recipe's k, same
+//! standardization) of the k-NN leave-one-out squared residuals times k/(k+1), the factor that
+//! removes the variance of the k-neighbour mean from a leave-one-out residual under constant
+//! noise (E[(y_i − f̂_{−i}(x_i))²] = σ²(1 + 1/k) + bias²).
+//!
+//! **Classes**: the reference's class probabilities are the neighbour shares with add-one
+//! smoothing, `(count_c + 1) / (k + K)`, so no probability is exactly 0 and the twin's labels
+//! keep some noise everywhere; k is chosen by the cross-validated Brier score and the quality
+//! printed is the cross-validated accuracy of the most probable class.
+
+pub mod forest;
+pub mod loclin;
+pub mod select;
+
+use std::sync::Arc;
+
+use ndarray::{Array2, ArrayView1, ArrayView2};
+use rand::Rng;
+
+use crate::dataset::noise::{self, NoiseEstimate};
+use crate::dataset::Table;
+use crate::error::Error;
+use crate::family::neighbours::{NeighbourIndex, Scratch};
+use crate::family::Task;
+
+pub use forest::{Forest, ForestParams};
+pub use loclin::LocLin;
+
+/// Folds of the cross-validation that chooses k in [`fit`].
+pub const CV_FOLDS: usize = 10;
+
+/// Candidate k values tried by [`fit`] (those that fit in a training fold).
+pub const K_CANDIDATES: [usize; 14] = [1, 2, 3, 4, 5, 7, 10, 15, 20, 30, 50, 75, 100, 150];
+
+/// A candidate reference.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Candidate {
+    /// k nearest neighbours.
+    Knn,
+    /// Bagged regression trees.
+    Forest,
+    /// Local-linear kernel regression.
+    LocLin,
+    /// Non-negative blend of the three.
+    Blend,
+}
+
+impl Candidate {
+    /// Name as written in scenario files (`family` of `reference`).
+    pub fn name(self) -> &'static str {
+        match self {
+            Candidate::Knn => "knn",
+            Candidate::Forest => "forest",
+            Candidate::LocLin => "loclin",
+            Candidate::Blend => "blend",
+        }
+    }
+
+    /// Parses a scenario-file name.
+    pub fn from_name(s: &str) -> Option<Candidate> {
+        match s {
+            "knn" => Some(Candidate::Knn),
+            "forest" => Some(Candidate::Forest),
+            "loclin" => Some(Candidate::LocLin),
+            "blend" => Some(Candidate::Blend),
+            _ => None,
+        }
+    }
+
+    /// In words, with its source.
+    pub fn describe(self) -> &'static str {
+        match self {
+            Candidate::Knn => "k nearest neighbours on standardized inputs",
+            Candidate::Forest => "bagged regression trees (Breiman 1996)",
+            Candidate::LocLin => "local-linear Gaussian-kernel regression (Fan and Gijbels 1996)",
+            Candidate::Blend => {
+                "non-negative stacked blend of k-NN, bagged trees and local-linear (Breiman 1996)"
+            }
+        }
+    }
+}
+
+/// The recipe of a reference: everything needed to refit it on the table exactly.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Choice {
+    /// The chosen candidate.
+    pub family: Candidate,
+    /// Standardize the k-NN inputs (local-linear always standardizes; trees need not).
+    pub standardize: bool,
+    /// The k-NN candidate's k (used with a positive k-NN weight, by classes and by varying
+    /// noise).
+    pub k: Option<usize>,
+    /// The forest (used with a positive forest weight).
+    pub forest: Option<ForestParams>,
+    /// The local-linear bandwidth in sd units (used with a positive local-linear weight).
+    pub bandwidth: Option<f64>,
+    /// Weights of k-NN, forest, local-linear: a single 1 for one candidate.
+    pub weights: [f64; 3],
+    /// Cross-validated R² of knn, forest, loclin, blend when the choice was made
+    /// (informational; not needed to refit).
+    pub cv_r2: Option<[f64; 4]>,
+}
+
+impl Choice {
+    /// The k-NN reference alone (the older scenario form, and classification).
+    pub fn knn(k: usize, standardize: bool) -> Choice {
+        Choice {
+            family: Candidate::Knn,
+            standardize,
+            k: Some(k),
+            forest: None,
+            bandwidth: None,
+            weights: [1.0, 0.0, 0.0],
+            cv_r2: None,
+        }
+    }
+
+    /// The recipe in words.
+    pub fn describe(&self) -> String {
+        let k = self.k.map(|k| format!("k = {k}")).unwrap_or_default();
+        let forest = self
+            .forest
+            .map(|f| {
+                format!(
+                    "{} trees, min_leaf = {}, seed {}",
+                    f.trees, f.min_leaf, f.seed
+                )
+            })
+            .unwrap_or_default();
+        let h = self
+            .bandwidth
+            .map(|h| format!("bandwidth {h} sd"))
+            .unwrap_or_default();
+        match self.family {
+            Candidate::Knn => format!(
+                "k-NN reference ({k}{})",
+                if self.standardize {
+                    ", standardized inputs"
+                } else {
+                    ""
+                }
+            ),
+            Candidate::Forest => format!("bagged-tree reference ({forest})"),
+            Candidate::LocLin => format!("local-linear reference ({h})"),
+            Candidate::Blend => {
+                let mut parts = Vec::new();
+                if self.weights[0] > 0.0 {
+                    parts.push(format!("{:.3} × k-NN ({k})", self.weights[0]));
+                }
+                if self.weights[1] > 0.0 {
+                    parts.push(format!("{:.3} × bagged trees ({forest})", self.weights[1]));
+                }
+                if self.weights[2] > 0.0 {
+                    parts.push(format!("{:.3} × local-linear ({h})", self.weights[2]));
+                }
+                format!("blended reference: {}", parts.join(" + "))
+            }
+        }
+    }
+}
+
+/// Per-thread scratch of [`Reference::mean_at`].
+#[derive(Default)]
+struct MeanScratch {
+    knn: Scratch,
+    buf: Vec<usize>,
+    loclin: loclin::Scratch,
+}
+
+thread_local! {
+    static SCRATCH: std::cell::RefCell<MeanScratch> = std::cell::RefCell::new(MeanScratch::default());
+}
+
+/// The k-NN part of a reference.
+#[derive(Debug, Clone)]
+struct KnnPart {
+    index: NeighbourIndex,
+    k: usize,
+}
+
+/// The reference fit: the fitted parts of a [`Choice`] over the table's rows.
+pub struct Reference {
+    /// The table file it was fitted on (for descriptions).
+    pub source: String,
+    /// The table file's path as resolved (an input of the run).
+    pub path: Option<std::path::PathBuf>,
+    /// The recipe.
+    pub choice: Choice,
+    /// Number of classes (0 for regression).
+    pub classes: usize,
+    /// What `lossprism twin` measured when it wrote the scenario (echoed in results).
+    pub report: Option<crate::dgp::twin::FitReport>,
+    knn: Option<KnnPart>,
+    forest: Option<Forest>,
+    loclin: Option<LocLin>,
+    y: Vec<f64>,
+    /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
+    sq_resid: Option<Vec<f64>>,
+}
+
+impl std::fmt::Debug for Reference {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.debug_struct("Reference")
+            .field("source", &self.source)
+            .field("choice", &self.choice)
+            .field("rows", &self.y.len())
+            .field("classes", &self.classes)
+            .finish()
+    }
+}
+
+impl Reference {
+    /// Fits the reference of `choice` on a table's inputs and response (class indices for
+    /// `classes > 0`, which use the k-NN part). With `varying`, also computes the smoothed
+    /// squared residuals for σ²(x) (regression; needs the recipe's k). Errors when the recipe
+    /// lacks a part it needs.
+    pub fn fit(
+        x: ArrayView2<'_, f64>,
+        y: ArrayView1<'_, f64>,
+        classes: usize,
+        choice: &Choice,
+        varying: bool,
+        source: &str,
+    ) -> Result<Reference, String> {
+        let n = x.nrows().max(1);
+        let w = choice.weights;
+        let need_knn = w[0] > 0.0 || classes > 0 || varying;
+        let yv = y.to_vec();
+        let knn = if need_knn {
+            let k = choice
+                .k
+                .ok_or("needs `k` (the k-NN part: weight, classes or varying noise)")?;
+            Some(KnnPart {
+                index: NeighbourIndex::new(x, choice.standardize),
+                k: k.clamp(1, n),
+            })
+        } else {
+            None
+        };
+        let forest = if w[1] > 0.0 {
+            let params = choice
+                .forest
+                .ok_or("needs `trees`, `min_leaf` and `seed`")?;
+            Some(Forest::fit(x, &yv, params))
+        } else {
+            None
+        };
+        let loclin = if w[2] > 0.0 {
+            let h = choice.bandwidth.ok_or("needs `bandwidth`")?;
+            Some(LocLin::fit(x, &yv, h))
+        } else {
+            None
+        };
+        let mut r = Reference {
+            source: source.to_string(),
+            path: None,
+            choice: choice.clone(),
+            classes,
+            report: None,
+            knn,
+            forest,
+            loclin,
+            y: yv,
+            sq_resid: None,
+        };
+        if varying && classes == 0 {
+            if let Some(kp) = &r.knn {
+                if x.nrows() > kp.k {
+                    let k = kp.k;
+                    let mut scratch = Scratch::default();
+                    let mut buf = Vec::new();
+                    let sq = (0..x.nrows())
+                        .map(|i| {
+                            let q = x.row(i).to_vec();
+                            kp.index
+                                .nearest_excluding(&q, k, |j| j == i, &mut scratch, &mut buf);
+                            let m = buf.iter().map(|&j| r.y[j]).sum::<f64>() / k as f64;
+                            (r.y[i] - m).powi(2) * k as f64 / (k as f64 + 1.0)
+                        })
+                        .collect();
+                    r.sq_resid = Some(sq);
+                }
+            }
+        }
+        Ok(r)
+    }
+
+    /// The k-NN part's k (0 without one).
+    pub fn k(&self) -> usize {
+        self.knn.as_ref().map_or(0, |p| p.k)
+    }
+
+    fn neighbours(&self, row: &[f64], scratch: &mut Scratch, buf: &mut Vec<usize>) {
+        if let Some(p) = &self.knn {
+            p.index.nearest(row, p.k, scratch, buf);
+        } else {
+            buf.clear();
+        }
+    }
+
+    /// The reference's E[y | x] at one input row (scratch space is kept per thread, so
+    /// evaluating many rows allocates once).
+    pub fn mean_at(&self, row: &[f64]) -> f64 {
+        SCRATCH.with(|cell| {
+            let mut s = cell.borrow_mut();
+            let s = &mut *s;
+            let w = self.choice.weights;
+            let mut v = 0.0;
+            if w[0] > 0.0 && self.knn.is_some() {
+                self.neighbours(row, &mut s.knn, &mut s.buf);
+                v += w[0] * (s.buf.iter().map(|&j| self.y[j]).sum::<f64>() / s.buf.len() as f64);
+            }
+            if let Some(f) = &self.forest {
+                v += w[1] * f.predict(ArrayView1::from(row));
+            }
+            if let Some(l) = &self.loclin {
+                v += w[2] * l.predict_with(row, &mut s.loclin);
+            }
+            v
+        })
+    }
+
+    /// Class probabilities at one input row: neighbour shares with add-one smoothing.
+    pub fn probs_at(&self, row: &[f64], out: &mut [f64]) {
+        let mut buf = Vec::with_capacity(self.k());
+        self.neighbours(row, &mut Scratch::default(), &mut buf);
+        out.iter_mut().for_each(|p| *p = 1.0);
+        for &j in &buf {
+            if let Some(p) = out.get_mut(self.y[j] as usize) {
+                *p += 1.0;
+            }
+        }
+        let total = buf.len() as f64 + out.len() as f64;
+        out.iter_mut().for_each(|p| *p /= total);
+    }
+
+    /// Varying noise: σ²(x), the k-NN average of the corrected squared leave-one-out residuals;
+    /// `None` without varying noise.
+    pub fn var_at(&self, row: &[f64]) -> Option<f64> {
+        let sq = self.sq_resid.as_ref()?;
+        let mut buf = Vec::with_capacity(self.k());
+        self.neighbours(row, &mut Scratch::default(), &mut buf);
+        Some(buf.iter().map(|&j| sq[j]).sum::<f64>() / buf.len() as f64)
+    }
+
+    /// FNV-1a of the reference's responses and recipe (part of a run's fingerprint). For the
+    /// k-NN reference alone it is the digest of earlier versions (k, standardize, responses).
+    pub fn digest(&self) -> u64 {
+        let mut bytes = Vec::with_capacity(8 * self.y.len() + 64);
+        bytes.extend_from_slice(&(self.k() as u64).to_le_bytes());
+        bytes.push(u8::from(self.choice.standardize));
+        for v in &self.y {
+            bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+        }
+        if self.choice.family != Candidate::Knn {
+            bytes.extend_from_slice(self.choice.family.name().as_bytes());
+            for w in self.choice.weights {
+                bytes.extend_from_slice(&w.to_bits().to_le_bytes());
+            }
+            if let Some(f) = self.choice.forest {
+                for v in [f.trees as u64, f.min_leaf as u64, f.seed] {
+                    bytes.extend_from_slice(&v.to_le_bytes());
+                }
+            }
+            if let Some(h) = self.choice.bandwidth {
+                bytes.extend_from_slice(&h.to_bits().to_le_bytes());
+            }
+        }
+        crate::codec::fnv1a64(&bytes)
+    }
+
+    /// Human-readable form.
+    pub fn describe(&self) -> String {
+        format!(
+            "{} fitted on the {} rows of {}",
+            self.choice.describe(),
+            self.y.len(),
+            self.source
+        )
+    }
+
+    /// Human-readable form of the varying noise.
+    pub fn describe_noise(&self) -> String {
+        format!(
+            "gaussian, sd(x)² = k-NN average (k = {}) of the k-NN leave-one-out squared residuals × k/(k+1)",
+            self.k()
+        )
+    }
+}
+
+/// The result of fitting a twin on a table.
+#[derive(Debug, Clone)]
+pub struct TwinFit {
+    /// The chosen k.
+    pub k: usize,
+    /// Cross-validated loss per tried k: mean squared error (regression) or Brier score (classes).
+    pub cv_curve: Vec<(usize, f64)>,
+    /// Cross-validated R² (regression) or accuracy (classes) at the chosen k.
+    pub quality: f64,
+    /// Its standard error (over rows).
+    pub quality_stderr: f64,
+    /// `R²` or `accuracy`.
+    pub quality_name: &'static str,
+    /// The noise estimate (regression).
+    pub noise: Option<NoiseEstimate>,
+    /// k/(k+1) × mean squared cross-validated residual at the chosen k (regression), shown for
+    /// comparison with `noise`.
+    pub cv_noise: Option<f64>,
+}
+
+/// Chooses the k-NN reference's k alone by `CV_FOLDS`-fold cross-validation (folds from
+/// `rng::stream(seed, purpose::TWIN, 0)`) and estimates the noise with the estimators of the
+/// twins written before the candidates existed (GSJS with one input, nearest-neighbour
+/// differences otherwise, uncorrected). Classification twins use it; regression twins use
+/// [`select::select`] and [`crate::dgp::twin`]. Errors when the table is too small for
+/// cross-validation.
+pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
+    let n = t.rows();
+    let folds = CV_FOLDS.min(n);
+    if n < 4 {
+        return Err(Error::Usage(format!(
+            "{}: {n} rows; a twin needs at least 4",
+            t.path.display()
+        )));
+    }
+    let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
+    let fold = crate::rng::fold_assignment(n, folds, &mut rng);
+    let min_train = (0..folds)
+        .map(|f| fold.iter().filter(|&&g| g != f).count())
+        .min()
+        .unwrap_or(0);
+    let ks: Vec<usize> = K_CANDIDATES
+        .iter()
+        .copied()
+        .filter(|&k| k <= min_train)
+        .collect();
+    let kmax = *ks.last().unwrap_or(&1);
+    let classes = match t.task {
+        Task::Classify { classes } => classes,
+        Task::Regress => 0,
+    };
+    let index = NeighbourIndex::new(t.x.view(), standardize);
+    let mut scratch = Scratch::default();
+    // Per row and candidate k: the cross-validated loss term.
+    let mut loss = vec![vec![0.0; n]; ks.len()];
+    let mut hit = vec![vec![0.0; n]; ks.len()];
+    let mut buf: Vec<usize> = Vec::with_capacity(n);
+    let mut counts = vec![0.0; classes];
+    let mut probs = vec![0.0; classes];
+    for i in 0..n {
+        let q = t.x.row(i).to_vec();
+        index.nearest_excluding(&q, kmax, |j| fold[j] == fold[i], &mut scratch, &mut buf);
+        let mut sum = 0.0;
+        counts.iter_mut().for_each(|v| *v = 0.0);
+        let mut next = 0;
+        for (m, &j) in buf.iter().enumerate() {
+            sum += t.y[j];
+            if classes > 0 {
+                counts[t.y[j] as usize] += 1.0;
+            }
+            while next < ks.len() && ks[next] == m + 1 {
+                let k = ks[next] as f64;
+                if classes == 0 {
+                    let e = t.y[i] - sum / k;
+                    loss[next][i] = e * e;
+                } else {
+                    for (p, cnt) in probs.iter_mut().zip(&counts) {
+                        *p = (cnt + 1.0) / (k + classes as f64);
+                    }
+                    let yi = t.y[i] as usize;
+                    loss[next][i] = probs
+                        .iter()
+                        .enumerate()
+                        .map(|(cl, p)| (p - if cl == yi { 1.0 } else { 0.0 }).powi(2))
+                        .sum();
+                    let best =
+                        (0..classes).fold(0, |b, cl| if probs[cl] > probs[b] { cl } else { b });
+                    hit[next][i] = if best == yi { 1.0 } else { 0.0 };
+                }
+                next += 1;
+            }
+        }
+    }
+    let mean = |v: &[f64]| v.iter().sum::<f64>() / v.len() as f64;
+    let cv_curve: Vec<(usize, f64)> = ks.iter().zip(&loss).map(|(&k, l)| (k, mean(l))).collect();
+    let bi = (0..cv_curve.len()).fold(0, |b, i| if cv_curve[i].1 < cv_curve[b].1 { i } else { b });
+    let k = ks[bi];
+    let se_of = |v: &[f64]| {
+        let m = mean(v);
+        (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / ((v.len() - 1) as f64 * v.len() as f64))
+            .sqrt()
+    };
+    let (quality, quality_stderr, quality_name, noise_est, cv_noise) = if classes == 0 {
+        let ym = mean(t.y.as_slice().unwrap_or(&t.y.to_vec()));
+        let var = t.y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n as f64;
+        let mse = cv_curve[bi].1;
+        let est = noise::estimate(
+            if t.x.ncols() == 1 {
+                noise::Method::Gsjs
+            } else {
+                noise::Method::NearestNeighbour
+            },
+            t.x.view(),
+            t.y.view(),
+        );
+        (
+            1.0 - mse / var,
+            se_of(&loss[bi]) / var,
+            "R²",
+            est,
+            Some(mse * k as f64 / (k as f64 + 1.0)),
+        )
+    } else {
+        (mean(&hit[bi]), se_of(&hit[bi]), "accuracy", None, None)
+    };
+    Ok(TwinFit {
+        k,
+        cv_curve,
+        quality,
+        quality_stderr,
+        quality_name,
+        noise: noise_est,
+        cv_noise,
+    })
+}
+
+/// Draws `n` rows (with replacement) of `rows` into an `n × p` matrix, one uniform index per row
+/// in order (the twin's input distribution).
+pub fn resample_rows<R: Rng + ?Sized>(rows: &Array2<f64>, n: usize, rng: &mut R) -> Array2<f64> {
+    let mut x = Array2::zeros((n, rows.ncols()));
+    for i in 0..n {
+        let r = rng.gen_range(0..rows.nrows());
+        x.row_mut(i).assign(&rows.row(r));
+    }
+    x
+}
+
+/// The reference shared by a twin's truth and (varying) noise.
+pub type SharedReference = Arc<Reference>;

@@ -1,0 +1,464 @@
+//! The parts of a simulated twin besides its reference ([`super::reference`]): the inputs
+//! (a smoothed bootstrap of the table's rows), the noise (an estimate corrected by a parametric
+//! bootstrap from the twin itself), and the record of what `lossprism twin` measured (echoed in
+//! results). Everything is deterministic given the seed; streams come from [`crate::rng`].
+//!
+//! **Inputs** ([`Jitter`]): a smoothed bootstrap (Silverman 1986, *Density Estimation for
+//! Statistics and Data Analysis*, §6.4): draw a row uniformly (one index per drawn row, shared
+//! by all columns, so the dependence between columns is kept), then add `h_j ε_j`, ε ~ N(0, 1),
+//! to each continuous column j, with Silverman's normal-reference rule for a d-dimensional
+//! Gaussian kernel (ch. 4) and his robust spread (ch. 3):
+//!
+//! `h_j = c · min(sd_j, IQR_j / 1.349) · (4 / ((d + 2) n))^{1/(d+4)}`,
+//!
+//! d = number of continuous columns, n = rows, c = `jitter` (1 by default, 0 = rows as they
+//! are). A value that leaves the column's observed range is reflected back into it (Silverman
+//! 1986, ch. 2). Columns whose values are all whole numbers (one-hot indicators, counts, codes)
+//! or that have at most 10 distinct values stay on their levels. Training inputs and the
+//! evaluation points (drawn once) both come from this law, so an evaluation point is never a
+//! copy of a training row — resampled rows would put the same rows on both sides and make
+//! complex models look better than on new inputs.
+//!
+//! **Noise** ([`correct_noise`]): the raw estimate of a table estimator
+//! ([`crate::dataset::noise`], [`noise::default_method`] by default) carries a roughness bias.
+//! Every estimator there is a quadratic form with `E[σ̂² | x] = σ² + est(x, f)`, so applying
+//! the estimator to tables `y* = f̂(x_i) + σ ε` drawn from the twin at the table's own rows (a
+//! parametric bootstrap; the design is held fixed because the bias depends on the neighbour
+//! geometry) gives the bias `est(x, f̂)` — exactly, whatever σ: that limit of the bootstrap mean
+//! is what [`correct_noise`] subtracts (`corrected = raw − est(x, f̂)`, floored at 5% of raw).
+//! f̂ is the reference's in-sample fit at the rows (held-out predictions put neighbouring rows
+//! under different fold models, adding roughness at the very scale the estimators difference
+//! over). The standard error is the spread of the estimator over [`NOISE_TABLES`] bootstrap
+//! tables at the corrected σ² (the error of using f̂ for f is not in it; measured small in
+//! `docs/twin-calibration.md`).
+
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
+use rand::Rng;
+use rand_distr::{Distribution, StandardNormal};
+
+use super::reference::select::{self, Rule, Selection};
+use super::reference::Reference;
+use crate::dataset::noise::{self, Method};
+use crate::rng::{purpose, stream};
+
+/// Evaluation points of a twin written by `lossprism twin` (drawn once from the smoothed
+/// bootstrap).
+pub const EVAL_SIZE: usize = 1000;
+
+/// Parametric-bootstrap tables behind the noise's standard error.
+pub const NOISE_TABLES: usize = 200;
+
+/// First index, within purpose `TWIN_BOOT`, of the streams of the tables drawn from a twin to
+/// measure its fidelity (the noise bootstrap uses indices `0..NOISE_TABLES`).
+pub const FIDELITY_STREAM: u64 = 1 << 32;
+
+/// Columns with at most this many distinct values stay on their levels.
+pub const DISCRETE_LEVELS: usize = 10;
+
+/// The smoothed bootstrap of a table's rows.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Jitter {
+    /// Bandwidth per column (0 for a column kept on its levels).
+    pub h: Vec<f64>,
+    /// Smallest observed value per column.
+    pub lo: Vec<f64>,
+    /// Largest observed value per column.
+    pub hi: Vec<f64>,
+    /// The multiplier c on Silverman's rule.
+    pub scale: f64,
+}
+
+/// Linear-interpolation quantile of sorted values.
+fn quantile(sorted: &[f64], q: f64) -> f64 {
+    let pos = q * (sorted.len() - 1) as f64;
+    let i = pos.floor() as usize;
+    let f = pos - i as f64;
+    if i + 1 < sorted.len() {
+        sorted[i] * (1.0 - f) + sorted[i + 1] * f
+    } else {
+        sorted[i]
+    }
+}
+
+impl Jitter {
+    /// Bandwidths from the rows of `x` (at least one row) with multiplier `scale` ≥ 0.
+    pub fn fit(x: ArrayView2<'_, f64>, scale: f64) -> Jitter {
+        let n = x.nrows();
+        let mut cont = Vec::new();
+        let mut spread = Vec::new();
+        let (mut lo, mut hi) = (Vec::new(), Vec::new());
+        for col in x.columns() {
+            let mut v: Vec<f64> = col.to_vec();
+            v.sort_by(f64::total_cmp);
+            lo.push(v[0]);
+            hi.push(v[n - 1]);
+            let mut distinct = v.clone();
+            distinct.dedup();
+            let whole = v.iter().all(|a| a.fract() == 0.0);
+            cont.push(!(whole || distinct.len() <= DISCRETE_LEVELS));
+            let m = v.iter().sum::<f64>() / n as f64;
+            let sd = if n > 1 {
+                (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / (n as f64 - 1.0)).sqrt()
+            } else {
+                0.0
+            };
+            let iqr = quantile(&v, 0.75) - quantile(&v, 0.25);
+            spread.push(if iqr > 0.0 { sd.min(iqr / 1.349) } else { sd });
+        }
+        let d = cont.iter().filter(|&&c| c).count().max(1) as f64;
+        let factor = (4.0 / ((d + 2.0) * n as f64)).powf(1.0 / (d + 4.0));
+        let h = cont
+            .iter()
+            .zip(&spread)
+            .map(|(&c, &s)| if c { scale * s * factor } else { 0.0 })
+            .collect();
+        Jitter { h, lo, hi, scale }
+    }
+
+    /// `true` when no column is jittered (the draws are then plain resampled rows).
+    pub fn is_plain(&self) -> bool {
+        self.h.iter().all(|h| *h == 0.0)
+    }
+
+    /// Column `j` of a drawn row starting from the table value `v`: `v + h_j ε` reflected into
+    /// the observed range (one normal draw from `rng` when `h_j > 0`, none otherwise).
+    pub fn perturb<R: Rng + ?Sized>(&self, j: usize, v: f64, rng: &mut R) -> f64 {
+        if self.h[j] <= 0.0 {
+            return v;
+        }
+        let e: f64 = StandardNormal.sample(rng);
+        let mut v = v + self.h[j] * e;
+        let (a, b) = (self.lo[j], self.hi[j]);
+        for _ in 0..64 {
+            if v < a {
+                v = 2.0 * a - v;
+            } else if v > b {
+                v = 2.0 * b - v;
+            } else {
+                break;
+            }
+        }
+        v.clamp(a, b)
+    }
+
+    /// Draws `m` rows: a uniform row of `rows` (one index per drawn row), then each column
+    /// perturbed in order. With every bandwidth 0 this is exactly
+    /// [`super::reference::resample_rows`].
+    pub fn draw<R: Rng + ?Sized>(&self, rows: &Array2<f64>, m: usize, rng: &mut R) -> Array2<f64> {
+        let p = rows.ncols();
+        let mut out = Array2::zeros((m, p));
+        for i in 0..m {
+            let r = rng.gen_range(0..rows.nrows());
+            for j in 0..p {
+                out[[i, j]] = self.perturb(j, rows[[r, j]], rng);
+            }
+        }
+        out
+    }
+
+    /// Column `j` in words.
+    pub fn describe_column(&self, j: usize) -> String {
+        if self.h[j] > 0.0 {
+            format!(
+                "plus N(0, h²) kernel jitter, h = {} ({} × Silverman's rule), reflected into [{}, {}]",
+                crate::fmt::fmt_num(self.h[j]),
+                self.scale,
+                self.lo[j],
+                self.hi[j]
+            )
+        } else {
+            "kept on its levels".into()
+        }
+    }
+}
+
+/// A noise estimate corrected for its roughness bias (see the module docs).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NoiseCorrection {
+    /// The estimator.
+    pub method: Method,
+    /// The raw estimate on the table.
+    pub raw: f64,
+    /// The raw estimate's own standard error.
+    pub raw_se: f64,
+    /// The bias subtracted: the estimator applied to the reference at the rows, `est(x, f̂)`
+    /// (the parametric bootstrap's mean minus its σ², exactly).
+    pub correction: f64,
+    /// `raw − correction`, at least 5% of `raw`.
+    pub value: f64,
+    /// Standard error: the estimator's spread over the bootstrap tables at `value`.
+    pub se: f64,
+    /// Bootstrap tables behind `se`.
+    pub tables: usize,
+    /// `true` when the floor (5% of raw) replaced `raw − correction`.
+    pub floored: bool,
+}
+
+/// Responses `f + σ ε` at the rows for bootstrap table `b` (stream `(seed, TWIN_BOOT, b)`).
+pub fn bootstrap_responses(f_rows: &[f64], sigma: f64, seed: u64, b: u64) -> Array1<f64> {
+    let mut rng = stream(seed, purpose::TWIN_BOOT, b);
+    f_rows
+        .iter()
+        .map(|v| {
+            let e: f64 = StandardNormal.sample(&mut rng);
+            v + sigma * e
+        })
+        .collect()
+}
+
+/// The raw estimate of `method` on (x, y), its bias correction with the reference's in-sample
+/// fit `f_rows` at the rows, and the standard error from `tables` parametric-bootstrap tables
+/// (streams `(seed, TWIN_BOOT, 0..tables)`). `None` when the estimator cannot run on the rows.
+pub fn correct_noise(
+    method: Method,
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    f_rows: &[f64],
+    tables: usize,
+    seed: u64,
+) -> Option<NoiseCorrection> {
+    let design = noise::Design::new(method, x)?;
+    let raw_est = design.estimate(Array1::from(y.to_vec()).view())?;
+    let raw = raw_est.value;
+    let correction = design.value(Array1::from(f_rows.to_vec()).view());
+    let floor = 0.05 * raw.max(0.0);
+    let diff = raw - correction;
+    let floored = diff.is_nan() || diff < floor;
+    let value = if floored { floor } else { diff };
+    let sigma = value.max(0.0).sqrt();
+    let draws: Vec<f64> = (0..tables)
+        .map(|b| design.value(bootstrap_responses(f_rows, sigma, seed, b as u64).view()))
+        .collect();
+    let se = if draws.len() >= 2 {
+        let m = draws.iter().sum::<f64>() / draws.len() as f64;
+        (draws.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / (draws.len() as f64 - 1.0)).sqrt()
+    } else {
+        f64::NAN
+    };
+    Some(NoiseCorrection {
+        method,
+        raw,
+        raw_se: raw_est.stderr,
+        correction,
+        value,
+        se,
+        tables,
+        floored,
+    })
+}
+
+/// A regression twin fitted on a table: the reference's choice, the reference, its in-sample
+/// fit at the rows and the corrected noise.
+#[derive(Debug)]
+pub struct RegressionFit {
+    /// What the cross-validation measured, and the recipe.
+    pub selection: Selection,
+    /// The reference fitted on the whole table.
+    pub reference: Reference,
+    /// f̂ at the table's rows (in-sample).
+    pub f_rows: Vec<f64>,
+    /// The corrected noise (`None` when the estimator cannot run on the rows).
+    pub noise: Option<NoiseCorrection>,
+}
+
+/// Fits a regression twin on rows `x` and responses `y`: chooses the reference by `rule`
+/// ([`select`]), fits it, and corrects the noise estimate of `method` (default
+/// [`noise::default_method`]) with [`NOISE_TABLES`] bootstrap tables. Deterministic given
+/// `seed`. Errors when the table has fewer than 6 rows.
+pub fn fit_regression(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    seed: u64,
+    rule: Rule,
+    method: Option<Method>,
+    source: &str,
+) -> Result<RegressionFit, String> {
+    if y.len() < select::FOLDS + 1 {
+        return Err(format!(
+            "{} rows; a regression twin needs at least {}",
+            y.len(),
+            select::FOLDS + 1
+        ));
+    }
+    let selection = select::select(x, y, seed, rule);
+    let reference = Reference::fit(x, ArrayView1::from(y), 0, &selection.choice, false, source)?;
+    let f_rows: Vec<f64> = x
+        .rows()
+        .into_iter()
+        .map(|r| reference.mean_at(&r.to_vec()))
+        .collect();
+    let method = method.unwrap_or(noise::default_method(x.ncols()));
+    let noise = correct_noise(method, x, y, &f_rows, NOISE_TABLES, seed);
+    Ok(RegressionFit {
+        selection,
+        reference,
+        f_rows,
+        noise,
+    })
+}
+
+/// What `lossprism twin` measured when it wrote a twin scenario (`[data.fit_report]`),
+/// informational: `run` echoes it in the result (`scenario.twin`) and the HTML report, and
+/// nothing in the run depends on it.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct FitReport {
+    /// The noise estimate and its correction.
+    pub noise: Option<NoiseRecord>,
+    /// The fidelity check.
+    pub fidelity: Option<FidelityRecord>,
+}
+
+/// The noise as `lossprism twin` estimated it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct NoiseRecord {
+    /// Estimator name (`gsjs`, `gamma`, `nn`).
+    pub method: String,
+    /// Raw estimate.
+    pub raw: f64,
+    /// Bias subtracted.
+    pub correction: f64,
+    /// Corrected σ² (the scenario's `sd` squared).
+    pub value: f64,
+    /// Its standard error.
+    pub stderr: f64,
+    /// Bootstrap tables behind the standard error.
+    pub tables: usize,
+}
+
+impl From<&NoiseCorrection> for NoiseRecord {
+    fn from(c: &NoiseCorrection) -> NoiseRecord {
+        NoiseRecord {
+            method: c.method.name().into(),
+            raw: c.raw,
+            correction: c.correction,
+            value: c.value,
+            stderr: c.se,
+            tables: c.tables,
+        }
+    }
+}
+
+/// The fidelity check: tables drawn from the twin, each twinned again, each family run on the
+/// twin of the twin and compared with its run on the twin.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FidelityRecord {
+    /// Tables drawn from the twin.
+    pub tables: usize,
+    /// Replicates of every run.
+    pub replicates: usize,
+    /// One entry per family checked.
+    pub models: Vec<FidelityModel>,
+}
+
+/// One family's fidelity.
+#[derive(Debug, Clone, PartialEq)]
+pub struct FidelityModel {
+    /// Family name.
+    pub family: String,
+    /// Knob name.
+    pub knob: String,
+    /// The knob value with the lowest expected loss on the twin.
+    pub pick: f64,
+    /// The twin's one-standard-error set.
+    pub one_se: Vec<f64>,
+    /// The pick of each twin of a twin.
+    pub picks: Vec<f64>,
+    /// Share of those picks inside `one_se`.
+    pub in_one_se: f64,
+    /// Mean over tables of the mean |EL*(g)/EL(g) − 1| over the grid.
+    pub curve_error: f64,
+    /// The pick of the bias-corrected curve (the lowest of `corrected_loss`).
+    pub corrected_pick: f64,
+    /// The grid.
+    pub grid: Vec<f64>,
+    /// The expected loss on the twin per grid value (the fidelity check's run).
+    pub loss: Vec<f64>,
+    /// The bias-corrected expected loss `2·EL(g) − mean_t EL*_t(g)` (the bootstrap bias
+    /// correction of Efron and Tibshirani, *An Introduction to the Bootstrap*, 1993, ch. 10,
+    /// applied per grid value, with the twins of the twin as the bootstrap worlds).
+    pub corrected_loss: Vec<f64>,
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use rand::SeedableRng;
+
+    #[test]
+    fn discrete_columns_stay_on_their_levels_and_draws_stay_in_range() {
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(1);
+        let x = Array2::from_shape_fn((200, 3), |(i, j)| match j {
+            0 => (i % 2) as f64,
+            1 => (i % 7) as f64 * 0.5,
+            _ => (i as f64 * 0.37).sin(),
+        });
+        let jit = Jitter::fit(x.view(), 1.0);
+        assert_eq!((jit.h[0], jit.h[1]), (0.0, 0.0));
+        assert!(jit.h[2] > 0.0);
+        let d = jit.draw(&x, 500, &mut rng);
+        assert!(d.column(0).iter().all(|v| *v == 0.0 || *v == 1.0));
+        assert!(d.column(1).iter().all(|v| (v * 2.0).fract() == 0.0));
+        assert!(d
+            .column(2)
+            .iter()
+            .all(|v| *v >= jit.lo[2] && *v <= jit.hi[2]));
+        // Silverman's rule with d = 1 continuous column: h = min(sd, IQR/1.349)·(4/(3n))^{1/5}.
+        let mut v: Vec<f64> = x.column(2).to_vec();
+        v.sort_by(f64::total_cmp);
+        let m = v.iter().sum::<f64>() / 200.0;
+        let sd = (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / 199.0).sqrt();
+        let iqr = quantile(&v, 0.75) - quantile(&v, 0.25);
+        let h = sd.min(iqr / 1.349) * (4.0f64 / 600.0).powf(0.2);
+        assert!((jit.h[2] - h).abs() < 1e-15, "{} vs {h}", jit.h[2]);
+    }
+
+    #[test]
+    fn plain_jitter_draws_the_resampled_rows() {
+        let x = Array2::from_shape_fn((30, 2), |(i, j)| (i * (j + 1)) as f64);
+        let jit = Jitter::fit(x.view(), 1.0);
+        assert!(jit.is_plain());
+        let mut a = rand_chacha::ChaCha8Rng::seed_from_u64(4);
+        let mut b = rand_chacha::ChaCha8Rng::seed_from_u64(4);
+        assert_eq!(
+            jit.draw(&x, 50, &mut a),
+            super::super::reference::resample_rows(&x, 50, &mut b)
+        );
+    }
+
+    #[test]
+    fn the_correction_is_the_bootstrap_mean_bias_in_the_limit() {
+        // Exact identity (quadratic forms, see the module docs): the mean over bootstrap tables
+        // of est(f̂ + σε) − σ² converges to est(x, f̂); checked within 4 Monte Carlo standard
+        // errors over 400 tables, for each estimator.
+        let n = 150;
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(8);
+        for (p, method) in [
+            (1, Method::Gsjs),
+            (2, Method::Gamma),
+            (2, Method::NearestNeighbour),
+        ] {
+            let x = Array2::from_shape_fn((n, p), |_| rng.gen::<f64>());
+            let f: Vec<f64> = x
+                .rows()
+                .into_iter()
+                .map(|r| (6.0 * r[0]).sin() + r.iter().sum::<f64>())
+                .collect();
+            let y: Vec<f64> = f.iter().map(|v| v + 0.3 * rng.gen::<f64>()).collect();
+            let c = correct_noise(method, x.view(), &y, &f, 20, 5).unwrap();
+            let design = noise::Design::new(method, x.view()).unwrap();
+            let s2: f64 = 0.25;
+            let d: Vec<f64> = (0..400)
+                .map(|b| design.value(bootstrap_responses(&f, s2.sqrt(), 11, b).view()) - s2)
+                .collect();
+            let m = d.iter().sum::<f64>() / d.len() as f64;
+            let sd = (d.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / 399.0).sqrt();
+            let se = sd / 20.0;
+            assert!(
+                (m - c.correction).abs() < 4.0 * se,
+                "{method:?}: bootstrap bias {m} ± {se}, exact {}",
+                c.correction
+            );
+            assert!(c.correction > 0.0 || method == Method::Gamma);
+        }
+    }
+}

@@ -1,0 +1,207 @@
+//! The `scenario.twin` section of a result: what a twin run can say about its own twin — the
+//! reference and the cross-validated R² of each candidate, the smoothed bootstrap of the inputs,
+//! and, when `lossprism twin` wrote the scenario, its noise correction and fidelity check
+//! (`[data.fit_report]`, echoed as written). Absent for every other source, so synthetic results
+//! are unchanged.
+
+use serde::{Deserialize, Serialize};
+
+use crate::dgp::Synthetic;
+use crate::fmt::{fmt_num, fmt_se, fmt_value};
+
+/// `scenario.twin`.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct TwinEcho {
+    /// The reference's candidate (`knn`, `forest`, `loclin`, `blend`).
+    pub reference: String,
+    /// Cross-validated R² of each candidate when the choice was made (absent for older twins).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub cv_r2: Vec<CandidateR2>,
+    /// The smoothed bootstrap's multiplier c on Silverman's rule (0: rows resampled as they
+    /// are).
+    pub jitter: f64,
+    /// The noise estimate and its correction (`lossprism twin`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise: Option<NoiseEcho>,
+    /// The fidelity check (`lossprism twin`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub fidelity: Option<FidelityEcho>,
+}
+
+/// One candidate's cross-validated R².
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct CandidateR2 {
+    /// Candidate name.
+    pub candidate: String,
+    /// Its cross-validated R².
+    pub r2: f64,
+}
+
+/// The noise as `lossprism twin` estimated it.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct NoiseEcho {
+    /// Estimator (`gsjs`, `gamma`, `nn`).
+    pub method: String,
+    /// Raw estimate.
+    pub raw: f64,
+    /// Bias subtracted.
+    pub correction: f64,
+    /// Corrected σ² (the twin's noise).
+    pub value: f64,
+    /// Its standard error.
+    pub stderr: f64,
+    /// Bootstrap tables behind the standard error.
+    pub tables: usize,
+}
+
+/// The fidelity check.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct FidelityEcho {
+    /// Tables drawn from the twin.
+    pub tables: usize,
+    /// Replicates of every run.
+    pub replicates: usize,
+    /// One entry per family checked.
+    pub models: Vec<FidelityModelEcho>,
+}
+
+/// One family's fidelity (see [`crate::dgp::twin::FidelityModel`]).
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct FidelityModelEcho {
+    /// Family.
+    pub family: String,
+    /// Knob.
+    pub knob: String,
+    /// Lowest expected loss on the twin.
+    pub pick: f64,
+    /// The twin's one-standard-error set.
+    pub one_se: Vec<f64>,
+    /// Picks of the twins of the twin.
+    pub picks: Vec<f64>,
+    /// Share of those picks inside `one_se`.
+    pub in_one_se: f64,
+    /// Mean relative curve distance of the twins of the twin.
+    pub curve_error: f64,
+    /// Pick of the bias-corrected curve.
+    pub corrected_pick: f64,
+    /// Grid.
+    pub grid: Vec<f64>,
+    /// Expected loss on the twin (the check's run).
+    pub loss: Vec<f64>,
+    /// Bias-corrected expected loss.
+    pub corrected_loss: Vec<f64>,
+}
+
+/// The twin section of a process; `None` unless it is a twin.
+pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
+    if !p.is_twin() {
+        return None;
+    }
+    let r = p.reference()?;
+    let names = ["knn", "forest", "loclin", "blend"];
+    let cv_r2 = r
+        .choice
+        .cv_r2
+        .map(|v| {
+            names
+                .iter()
+                .zip(v)
+                .filter(|(_, x)| x.is_finite())
+                .map(|(n, x)| CandidateR2 {
+                    candidate: n.to_string(),
+                    r2: x,
+                })
+                .collect()
+        })
+        .unwrap_or_default();
+    let rep = r.report.clone().unwrap_or_default();
+    Some(TwinEcho {
+        reference: r.choice.family.name().into(),
+        cv_r2,
+        jitter: p.jitter().map_or(0.0, |j| j.scale),
+        noise: rep.noise.map(|n| NoiseEcho {
+            method: n.method,
+            raw: n.raw,
+            correction: n.correction,
+            value: n.value,
+            stderr: n.stderr,
+            tables: n.tables,
+        }),
+        fidelity: rep.fidelity.map(|f| FidelityEcho {
+            tables: f.tables,
+            replicates: f.replicates,
+            models: f
+                .models
+                .into_iter()
+                .map(|m| FidelityModelEcho {
+                    family: m.family,
+                    knob: m.knob,
+                    pick: m.pick,
+                    one_se: m.one_se,
+                    picks: m.picks,
+                    in_one_se: m.in_one_se,
+                    curve_error: m.curve_error,
+                    corrected_pick: m.corrected_pick,
+                    grid: m.grid,
+                    loss: m.loss,
+                    corrected_loss: m.corrected_loss,
+                })
+                .collect(),
+        }),
+    })
+}
+
+fn values(v: &[f64]) -> String {
+    v.iter()
+        .map(|x| fmt_value(*x))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// The twin section in plain sentences (HTML report).
+pub fn words(t: &TwinEcho) -> Vec<String> {
+    let mut out = Vec::new();
+    if !t.cv_r2.is_empty() {
+        let r2: Vec<String> = t
+            .cv_r2
+            .iter()
+            .map(|c| format!("{} {}", c.candidate, fmt_num(c.r2)))
+            .collect();
+        out.push(format!(
+            "The twin's truth is the `{}` reference, chosen by cross-validated R² among the candidates ({}); it is an estimate of E[y | x], not the table's real truth.",
+            t.reference,
+            r2.join(", ")
+        ));
+    }
+    if let Some(n) = &t.noise {
+        out.push(format!(
+            "Its noise σ² = {} ± {} was estimated from the table ({} estimator: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
+            fmt_num(n.value),
+            fmt_se(n.stderr),
+            n.method,
+            fmt_num(n.raw),
+            fmt_num(n.correction),
+            n.tables
+        ));
+    }
+    if let Some(f) = &t.fidelity {
+        for m in &f.models {
+            let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
+            out.push(format!(
+                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
+                f.tables,
+                f.replicates,
+                m.family,
+                m.knob,
+                fmt_value(m.pick),
+                values(&m.one_se),
+                fmt_value(m.corrected_pick),
+                values(&m.picks),
+                inside,
+                m.picks.len(),
+                100.0 * m.curve_error
+            ));
+        }
+    }
+    out
+}
