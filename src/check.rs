@@ -232,12 +232,8 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
         Some(FORMAT) => {}
         Some(other) => {
             return Err(CheckError::BadDocument(format!(
-                "{what}: format `{other}` is not a result document (`{FORMAT}`){}",
-                if other.contains("part") {
-                    "; merge shard parts with `lossprism merge` first"
-                } else {
-                    ""
-                }
+                "{what}: {}",
+                crate::report::format_refusal(other)
             )))
         }
         None => {

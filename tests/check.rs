@@ -479,3 +479,16 @@ fn library_modes() {
     .unwrap();
     assert_eq!(r.mode, Mode::SamePoints);
 }
+
+/// A result written before the format's second version is refused with what to do (rerun, and
+/// accept a baseline with `--update`), not compared.
+#[test]
+fn results_of_the_first_format_are_refused_with_a_way_out() {
+    let old = r#"{"format": "lossprism-result/1", "version": "0.1.0", "points": []}"#;
+    let err = lossprism::check::parse_result(old, "baseline")
+        .unwrap_err()
+        .to_string();
+    assert!(err.contains("earlier lossprism"), "{err}");
+    assert!(err.contains("--update"), "{err}");
+    assert!(err.contains("lossprism-result/2"), "{err}");
+}

@@ -481,9 +481,9 @@ fn num(v: &Value, what: &str) -> f64 {
         .unwrap_or_else(|| panic!("`{what}` should be a number, got {v}"))
 }
 
-/// Checks the `lossprism-result/1` contract on a parsed document.
+/// Checks the `lossprism-result/2` contract on a parsed document.
 fn check_contract(doc: &Value, grid: &[f64], replicates: u64, seed: u64) {
-    assert_eq!(doc["format"], "lossprism-result/1");
+    assert_eq!(doc["format"], "lossprism-result/2");
     assert!(
         doc["version"].as_str().is_some_and(|v| !v.is_empty()),
         "version missing"

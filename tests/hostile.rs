@@ -2503,7 +2503,7 @@ fn a_link_to_standard_output_is_written_through_and_kept() {
     std::os::unix::fs::symlink("/proc/self/fd/1", dir.join("stdout-link")).unwrap();
     let (code, out, err) = status(dir, &["run", "s.toml", "--out", "stdout-link", "-q"]);
     assert_eq!(code, 0, "{err}");
-    assert!(out.contains("\"format\": \"lossprism-result/1\""), "{out}");
+    assert!(out.contains("\"format\": \"lossprism-result/2\""), "{out}");
     assert_eq!(
         fs::read_link(dir.join("stdout-link")).unwrap(),
         PathBuf::from("/proc/self/fd/1")

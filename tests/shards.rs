@@ -268,7 +268,7 @@ fn merge_refuses_parts_that_do_not_make_one_run() {
     ok(d, &["run", "s.toml", "--out", "result.json", "-q"]);
     let msg = refused(d, &["merge", "result.json"]);
     assert!(
-        msg.contains("result.json") && msg.contains("lossprism-result/1"),
+        msg.contains("result.json") && msg.contains("lossprism-result/2"),
         "{msg}"
     );
 }

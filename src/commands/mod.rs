@@ -573,14 +573,8 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
     match head.format() {
         Some(report::FORMAT) => Ok(text),
         Some(other) => Err(Error::Usage(format!(
-            "{name}: format `{}` is not a result document (`{}`){}",
-            crate::fmt::clip(other, 60),
-            report::FORMAT,
-            if other.contains("part") {
-                "; merge shard parts with `lossprism merge` first"
-            } else {
-                ""
-            }
+            "{name}: {}",
+            report::format_refusal(other)
         ))),
         None => Err(Error::Usage(format!(
             "{name}: no `format` field; expected a result document written by `lossprism run --out`"

@@ -1,4 +1,4 @@
-//! The result document (`lossprism-result/1`) and its renderings: JSON (here), CSV
+//! The result document (`lossprism-result/2`) and its renderings: JSON (here), CSV
 //! ([`csv`]), the terminal table ([`terminal`]), pictures ([`plot`]), the HTML report
 //! ([`html`]); part files of shards and checkpoints ([`part`]). The rows of a result are built
 //! from the loss's description of its terms ([`crate::decompose::TermInfo`]), which the document
@@ -26,7 +26,34 @@ use crate::scenario::{Design, Plan, Source};
 pub use selection::Selection;
 
 /// Identifier of the result format.
-pub const FORMAT: &str = "lossprism-result/1";
+pub const FORMAT: &str = "lossprism-result/2";
+
+/// The format tag of results written before study designs (one family, one training size, no
+/// leave-one-block-out values): recognised only to say that they must be rerun.
+pub const FORMAT_V1: &str = "lossprism-result/1";
+
+/// Why a document with format tag `other` is not read as a result: an older result must be
+/// rerun; shard parts must be merged first.
+pub fn format_refusal(other: &str) -> String {
+    if other == FORMAT_V1 {
+        format!(
+            "format `{other}` was written by an earlier lossprism; this version reads `{FORMAT}` \
+             (rows carry their training size and model, and the leave-one-block-out values that \
+             paired comparisons need): rerun the scenario (a baseline: rerun it and accept it \
+             with `check --update`)"
+        )
+    } else {
+        format!(
+            "format `{}` is not a result document (`{FORMAT}`){}",
+            crate::fmt::clip(other, 60),
+            if other.contains("part") {
+                "; merge shard parts with `lossprism merge` first"
+            } else {
+                ""
+            }
+        )
+    }
+}
 
 /// One input as resolved.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
@@ -410,7 +437,7 @@ pub struct Best {
     pub within_one_se: Vec<f64>,
 }
 
-/// The result document (`lossprism-result/1`).
+/// The result document (`lossprism-result/2`).
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct ResultDoc {
     /// Always [`FORMAT`].
