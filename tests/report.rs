@@ -386,6 +386,7 @@ fn selection_histogram_marks_the_oracle() {
         grid: vec![1.0, 2.0, 3.0, 4.0, 5.0],
         counts: vec![0, 3, 11, 7, 3],
         oracle: 3.0,
+        labels: Vec::new(),
     };
     let svg = plot::selection_svg(&v, "max_depth").unwrap();
     let (w, h, inked, _) = render(&svg);
@@ -628,6 +629,74 @@ fn cli_plot_selection_matches_plot_and_needs_an_audit() {
     ]);
     assert_eq!(out.status.code(), Some(2));
     assert!(!dir.path().join("all.svg").exists());
+}
+
+/// With several models the selection audit picks among every (model, knob value): the sentence
+/// names the candidate and the oracle by model, and the histogram has one named bar each.
+#[test]
+fn selection_among_several_models_names_the_candidates() {
+    let dir = tempfile::tempdir().unwrap();
+    let two = TINY.replace(
+        "[model]\nfamily = \"tree\"\ngrid = [1, 2, 3, 4]\n",
+        "[[model]]\nfamily = \"tree\"\ngrid = [1, 2, 3, 4]\n\n[[model]]\nfamily = \"knn\"\ngrid = [2, 8]\n\n[audit]\nfolds = 4\n",
+    );
+    assert_ne!(two, TINY, "the model section was not replaced");
+    std::fs::write(dir.path().join("two.toml"), two).unwrap();
+    let out = Command::new(bin())
+        .args([
+            "run",
+            "two.toml",
+            "--out",
+            "r.json",
+            "--plot-selection",
+            "sel.svg",
+        ])
+        .current_dir(dir.path())
+        .env("NO_COLOR", "1")
+        .output()
+        .unwrap();
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let table = String::from_utf8_lossy(&out.stdout).to_string();
+    let line = table
+        .lines()
+        .find(|l| l.starts_with("selection:"))
+        .expect("a selection line");
+    assert!(
+        line.contains("chose tree max_depth = ") || line.contains("chose knn k = "),
+        "{line}"
+    );
+    assert!(
+        line.contains("the oracle best is tree max_depth = ")
+            || line.contains("the oracle best is knn k = "),
+        "{line}"
+    );
+    let doc: serde_json::Value =
+        serde_json::from_slice(&std::fs::read(dir.path().join("r.json")).unwrap()).unwrap();
+    let sel = &doc["selection"];
+    assert_eq!(sel["candidates"].as_array().unwrap().len(), 6);
+    assert_eq!(sel["chosen_counts"].as_array().unwrap().len(), 6);
+    let total: u64 = sel["chosen_counts"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|c| c.as_u64().unwrap())
+        .sum();
+    assert_eq!(total, 24, "one choice per replicate");
+    let svg = std::fs::read_to_string(dir.path().join("sel.svg")).unwrap();
+    let t = texts(&svg);
+    for name in [
+        "tree max_depth = 1",
+        "tree max_depth = 4",
+        "knn k = 2",
+        "knn k = 8",
+    ] {
+        assert!(t.iter().any(|s| s == name), "bar {name} missing: {t:?}");
+    }
+    assert!(t.iter().any(|s| s == "oracle best"));
 }
 
 #[test]

@@ -1263,7 +1263,28 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             let candidates: Vec<PointRow> = (0..nm)
                 .flat_map(|i| rows(plan, outcome, plan.cell(last, i)))
                 .collect();
-            Some(selection::selection(a, &c.counts, &candidates, &best))
+            let mut sel = selection::selection(a, &c.counts, &candidates, &best);
+            if !sel.candidates.is_empty() {
+                // "label knob = value", as the ranking names them
+                sel.candidates = candidates
+                    .iter()
+                    .map(|p| {
+                        let label = p.family.as_deref().unwrap_or("");
+                        let knob = plan
+                            .models
+                            .iter()
+                            .find(|m| m.label == label)
+                            .map_or("value", |m| m.family.knob());
+                        format!("{label} {knob} = {}", fmt_value(p.value))
+                    })
+                    .collect();
+                sel.oracle_candidate = candidates
+                    .iter()
+                    .zip(&sel.candidates)
+                    .find(|(p, _)| p.family == best.family && p.value == best.value)
+                    .map(|(_, c)| c.clone());
+            }
+            Some(sel)
         }
         _ => None,
     };

@@ -1220,6 +1220,9 @@ pub struct SelectionView {
     pub counts: Vec<u64>,
     /// The grid value with the lowest expected loss.
     pub oracle: f64,
+    /// Several models: each bar's candidate name (`knn k = 10`; `grid` then holds the bar
+    /// indices 0, 1, …, and `oracle` the oracle's index). Empty for one model.
+    pub labels: Vec<String>,
 }
 
 impl SelectionView {
@@ -1236,6 +1239,31 @@ impl SelectionView {
             .filter_map(|v| v.as_f64())
             .collect();
         let cc = sel.get("chosen_counts")?;
+        // Several models: one bar per candidate, named in `candidates`.
+        if let Some(names) = sel.get("candidates").and_then(|c| c.as_array()) {
+            let labels: Vec<String> = names
+                .iter()
+                .map(|n| n.as_str().map(str::to_string))
+                .collect::<Option<_>>()?;
+            let counts: Vec<u64> = cc
+                .as_array()?
+                .iter()
+                .map(|v| v.as_u64())
+                .collect::<Option<_>>()?;
+            if labels.is_empty() || labels.len() != counts.len() {
+                return None;
+            }
+            let oracle_name = sel.get("oracle_candidate").and_then(|o| o.as_str());
+            let oracle = oracle_name
+                .and_then(|o| labels.iter().position(|l| l == o))
+                .map_or(-1.0, |i| i as f64);
+            return Some(SelectionView {
+                grid: (0..labels.len()).map(|i| i as f64).collect(),
+                counts,
+                oracle,
+                labels,
+            });
+        }
         let mut counts = vec![0u64; grid.len()];
         let put = |counts: &mut Vec<u64>, value: f64, n: u64| {
             if let Some(i) = grid.iter().position(|g| *g == value) {
@@ -1271,6 +1299,7 @@ impl SelectionView {
             grid,
             counts,
             oracle,
+            labels: Vec::new(),
         })
     }
 }
@@ -1292,8 +1321,14 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
         let root = SVGBackend::with_string(&mut buf, SELECTION_SIZE).into_drawing_area();
         root.fill(&PAPER).map_err(draw_err)?;
         let (head, body) = root.split_vertically(44);
+        let named = !v.labels.is_empty();
+        let what = if named {
+            "candidate".to_string()
+        } else {
+            knob.to_string()
+        };
         head.draw(&Text::new(
-            format!("Which {knob} cross-validation picked, in {total} replicates"),
+            format!("Which {what} cross-validation picked, in {total} replicates"),
             (18, 14),
             (FONT, 19).into_font().style(FontStyle::Bold).color(&INK),
         ))
@@ -1303,7 +1338,7 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
             .margin_left(10)
             .margin_right(20)
             .margin_bottom(8)
-            .x_label_area_size(48)
+            .x_label_area_size(if named { 150 } else { 48 })
             .y_label_area_size(64)
             .build_cartesian_2d(-0.6f64..(g as f64 - 0.4), 0f64..top * 1.18)
             .map_err(draw_err)?;
@@ -1315,19 +1350,39 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
             .x_labels(g.min(20) * 2 + 1)
             .x_label_formatter(&|x: &f64| {
                 let i = x.round();
-                if (x - i).abs() < 1e-6 && i >= 0.0 && (i as usize) < grid.len() {
+                if named {
+                    // drawn turned by hand below
+                    String::new()
+                } else if (x - i).abs() < 1e-6 && i >= 0.0 && (i as usize) < grid.len() {
                     fmt_value(grid[i as usize])
                 } else {
                     String::new()
                 }
             })
             .y_label_formatter(&|y: &f64| format!("{y:.0}"))
-            .x_desc(knob.to_string())
+            .x_desc(if named {
+                String::new()
+            } else {
+                knob.to_string()
+            })
             .y_desc("replicates choosing it")
             .axis_desc_style((FONT, 15))
             .label_style((FONT, 13))
             .draw()
             .map_err(draw_err)?;
+        // Candidate names, turned a quarter so that long names fit under narrow bars.
+        for (i, name) in v.labels.iter().enumerate() {
+            let (px, py) = chart.backend_coord(&(i as f64, 0.0));
+            root.draw(&Text::new(
+                name.clone(),
+                (px - 7, py + 8),
+                (FONT, 13)
+                    .into_font()
+                    .transform(FontTransform::Rotate90)
+                    .color(&INK),
+            ))
+            .map_err(draw_err)?;
+        }
         for (i, &n) in v.counts.iter().enumerate() {
             let oracle = Some(i) == oracle_i;
             let (fill, edge) = if oracle { (INK, INK) } else { (SKY, INK) };

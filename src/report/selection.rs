@@ -33,6 +33,9 @@ pub struct Selection {
     /// `chosen_counts`.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub candidates: Vec<String>,
+    /// Several models: the oracle's candidate (one of `candidates`).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub oracle_candidate: Option<String>,
 }
 
 fn same_family(p: &PointRow, best: &Best) -> bool {
@@ -98,6 +101,7 @@ pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &
         q90_excess_loss: q90,
         share_within_one_se: share(within),
         share_oracle: share(at_oracle),
+        oracle_candidate: None,
         candidates: if points.iter().any(|p| p.family.is_some()) {
             points
                 .iter()
@@ -125,15 +129,30 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
             b
         }
     });
+    // With several models the candidates carry their own names ("knn k = 10"); the oracle is
+    // the candidate of zero excess loss.
+    let (chosen, oracle) = if s.candidates.is_empty() {
+        (
+            format!(
+                "{knob} = {}",
+                grid.get(mode).map(|v| fmt_value(*v)).unwrap_or_default()
+            ),
+            fmt_value(s.oracle_best),
+        )
+    } else {
+        let oracle = s
+            .oracle_candidate
+            .clone()
+            .unwrap_or_else(|| fmt_value(s.oracle_best));
+        (s.candidates.get(mode).cloned().unwrap_or_default(), oracle)
+    };
     format!(
-        "{}-fold cross-validation ({} rule) chose {knob} = {} most often ({} of {total} replicates); \
-         the oracle best is {} (chosen in {:.0}%); {:.0}% of choices are within one standard error of it; \
+        "{}-fold cross-validation ({} rule) chose {chosen} most often ({} of {total} replicates); \
+         the oracle best is {oracle} (chosen in {:.0}%); {:.0}% of choices are within one standard error of it; \
          excess loss over the oracle: mean {}, 90% quantile {}.",
         s.folds,
         s.rule,
-        grid.get(mode).map(|v| fmt_value(*v)).unwrap_or_default(),
         s.chosen_counts.get(mode).copied().unwrap_or(0),
-        fmt_value(s.oracle_best),
         100.0 * s.share_oracle,
         100.0 * s.share_within_one_se,
         fmt_num(s.mean_excess_loss),
