@@ -489,3 +489,47 @@ fn twin_with_an_empty_cell_refuses_then_drops_rows_on_request() {
         "{err}"
     );
 }
+
+#[test]
+fn shipped_cold_store_twin_is_what_the_current_twin_writes() {
+    // scenarios/cold-store-twin.toml is regenerated with the command in its header; the
+    // reference recipe, the noise and the noise correction must match what `lossprism twin`
+    // writes today (the fidelity check is skipped here: it only adds [data.fit_report.fidelity]).
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let dir = tempfile::tempdir().unwrap();
+    let o = TwinOptions {
+        table: root.join("scenarios/data/cold-store.csv"),
+        target: "temp_c".into(),
+        features: Some(
+            ["hour", "door_openings", "load_tonnes", "compressor"]
+                .map(String::from)
+                .to_vec(),
+        ),
+        out: dir.path().join("cold-store-twin.toml"),
+        seed: 7,
+        fidelity: 0,
+        ..Default::default()
+    };
+    twin::command(&o).expect("twin");
+    let fresh = fs::read_to_string(&o.out).unwrap();
+    let shipped = fs::read_to_string(root.join("scenarios/cold-store-twin.toml")).unwrap();
+    for key in [
+        "reference = ",
+        "sd = ",
+        "noise = ",
+        "seed = ",
+        "train_size = ",
+    ] {
+        let line = |text: &str| {
+            text.lines()
+                .find(|l| l.starts_with(key))
+                .unwrap_or_else(|| panic!("no `{key}` line"))
+                .to_string()
+        };
+        assert_eq!(
+            line(&shipped),
+            line(&fresh),
+            "scenarios/cold-store-twin.toml is stale: regenerate it with the command in its header"
+        );
+    }
+}
