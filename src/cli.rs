@@ -83,6 +83,11 @@ pub struct TwinArgs {
     /// The target holds class labels (classification twin).
     #[arg(long)]
     pub classes: bool,
+    /// A row with an empty, missing or non-numeric cell in a used column: `error` (refuse the
+    /// table, naming line and column) or `drop` (leave the row out, print how many were left
+    /// out and write `missing = "drop"` in the scenario).
+    #[arg(long, default_value = "error", value_name = "error|drop")]
+    pub missing: String,
     /// Noise varying with x (smoothed squared residuals) instead of a constant.
     #[arg(long)]
     pub varying: bool,

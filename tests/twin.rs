@@ -373,3 +373,163 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     assert_eq!(n.method, "gamma");
     assert!((n.raw - n.correction - n.value).abs() < 1e-12 || n.value == 0.05 * n.raw);
 }
+
+/// The table of [`write_table`] with an empty `x` cell on file line 5 and an empty `y` cell on
+/// file line 9 (the header is line 1).
+fn write_table_with_holes(path: &Path, n: usize, seed: u64) {
+    write_table(path, n, seed);
+    let text = fs::read_to_string(path).unwrap();
+    let mut lines: Vec<String> = text.lines().map(String::from).collect();
+    let (_, y) = lines[4].split_once(',').unwrap();
+    lines[4] = format!(",{y}");
+    let (x, _) = lines[8].split_once(',').unwrap();
+    lines[8] = format!("{x},");
+    fs::write(path, lines.join("\n") + "\n").unwrap();
+}
+
+#[test]
+fn twin_with_an_empty_cell_refuses_then_drops_rows_on_request() {
+    // Issue #17 item 12c: the refusal names file, line and column and suggests the command's
+    // own option; with `--missing drop` the twin is written from the other rows, the count is
+    // printed, written in the scenario and echoed by the run.
+    let dir = tempfile::tempdir().unwrap();
+    write_table_with_holes(&dir.path().join("t.csv"), 60, 5);
+    let bin = env!("CARGO_BIN_EXE_lossprism");
+    let base = [
+        "twin",
+        "t.csv",
+        "--target",
+        "y",
+        "--out",
+        "twin.toml",
+        "--fidelity",
+        "0",
+    ];
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args(base)
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert_eq!(err.trim().lines().count(), 1, "one line: {err}");
+    for needle in ["t.csv:5", "column `x`", "missing a value", "--missing drop"] {
+        assert!(err.contains(needle), "`{needle}` not in: {err}");
+    }
+    assert!(
+        !err.contains("[data]"),
+        "no scenario advice on the command line: {err}"
+    );
+    assert!(!dir.path().join("twin.toml").exists(), "nothing written");
+
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args(base)
+        .args(["--missing", "drop"])
+        .output()
+        .unwrap();
+    let out = String::from_utf8_lossy(&o.stdout).into_owned();
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{out}{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    assert!(out.contains("t.csv: 58 rows"), "{out}");
+    assert!(out.contains("rows dropped: 2"), "{out}");
+    let text = fs::read_to_string(dir.path().join("twin.toml")).unwrap();
+    assert!(text.contains("missing = \"drop\""), "{text}");
+    assert!(text.contains("train_size = 58"), "{text}");
+
+    // The run reads the same 58 rows and echoes the 2 dropped ones.
+    let plan = load(&dir.path().join("twin.toml"));
+    let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
+        panic!("a twin plans as a synthetic source")
+    };
+    let r = sp.process.reference().expect("a reference");
+    assert_eq!(r.dropped_rows, 2);
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args([
+            "run",
+            "twin.toml",
+            "--replicates",
+            "20",
+            "--out",
+            "r.json",
+            "--quiet",
+        ])
+        .output()
+        .unwrap();
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let json = fs::read_to_string(dir.path().join("r.json")).unwrap();
+    assert!(
+        json.contains(
+            "fitted on the 58 rows of t.csv (2 more with a missing or non-numeric cell dropped)"
+        ),
+        "the run echoes the dropped rows"
+    );
+
+    // An unknown value is a one-line usage error.
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args(base)
+        .args(["--missing", "fill"])
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(
+        err.contains("--missing") && err.contains("error or drop"),
+        "{err}"
+    );
+}
+
+#[test]
+fn shipped_cold_store_twin_is_what_the_current_twin_writes() {
+    // scenarios/cold-store-twin.toml is regenerated with the command in its header; the
+    // reference recipe, the noise and the noise correction must match what `lossprism twin`
+    // writes today (the fidelity check is skipped here: it only adds [data.fit_report.fidelity]).
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let dir = tempfile::tempdir().unwrap();
+    let o = TwinOptions {
+        table: root.join("scenarios/data/cold-store.csv"),
+        target: "temp_c".into(),
+        features: Some(
+            ["hour", "door_openings", "load_tonnes", "compressor"]
+                .map(String::from)
+                .to_vec(),
+        ),
+        out: dir.path().join("cold-store-twin.toml"),
+        seed: 7,
+        fidelity: 0,
+        ..Default::default()
+    };
+    twin::command(&o).expect("twin");
+    let fresh = fs::read_to_string(&o.out).unwrap();
+    let shipped = fs::read_to_string(root.join("scenarios/cold-store-twin.toml")).unwrap();
+    for key in [
+        "reference = ",
+        "sd = ",
+        "noise = ",
+        "seed = ",
+        "train_size = ",
+    ] {
+        let line = |text: &str| {
+            text.lines()
+                .find(|l| l.starts_with(key))
+                .unwrap_or_else(|| panic!("no `{key}` line"))
+                .to_string()
+        };
+        assert_eq!(
+            line(&shipped),
+            line(&fresh),
+            "scenarios/cold-store-twin.toml is stale: regenerate it with the command in its header"
+        );
+    }
+}

@@ -521,7 +521,8 @@ fn calibration_study() {
     }
     // The brief's targets, asserted on what this study can support (see the docs for the
     // measured values): mean curve error of the new twin at most 8%, and its pick within 1% of
-    // the true minimum in at least 80% of the cases.
+    // the true minimum in at least 80% of the cases. Measured (docs/twin-calibration.md §1):
+    // seed 2026 fails the curve error (10.4%), seed 2027 passes (7.9%); not loosened.
     let new = pool(&|r| r.new.clone());
     let mare = mean(&new.iter().map(|c| c.mare).collect::<Vec<_>>());
     let near = new.iter().filter(|c| c.near).count() as f64 / new.len() as f64;

@@ -795,6 +795,15 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             ))
         })?),
     };
+    let missing = match a.missing.as_str() {
+        "error" => crate::dataset::Missing::Error,
+        "drop" => crate::dataset::Missing::Drop,
+        other => {
+            return Err(Error::Usage(format!(
+                "--missing: unknown `{other}`; expected error or drop"
+            )))
+        }
+    };
     if a.fidelity_replicates < 2 {
         return Err(Error::Usage(format!(
             "--fidelity-replicates must be at least 2, got {}",
@@ -806,6 +815,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         target: a.target,
         features: a.features,
         classes: a.classes,
+        missing,
         out: a.out,
         seed: a.seed,
         varying: a.varying,

@@ -78,6 +78,9 @@ pub struct TwinOptions {
     pub features: Option<Vec<String>>,
     /// Classification (labels from the target's values).
     pub classes: bool,
+    /// Rows with a missing or non-numeric cell: refuse the table (default) or drop them (the
+    /// scenario then says `missing = "drop"`, so `run` reads the same rows).
+    pub missing: Missing,
     /// Where the scenario goes (its folder anchors the relative `path`).
     pub out: PathBuf,
     /// Seed of the cross-validation folds, the forest, the bootstraps and the fidelity check,
@@ -110,6 +113,7 @@ impl Default for TwinOptions {
             target: String::new(),
             features: None,
             classes: false,
+            missing: Missing::Error,
             out: PathBuf::from("twin.toml"),
             seed: 1,
             varying: false,
@@ -270,6 +274,12 @@ fn data_common(o: &TwinOptions, t: &Table, table_rel: &str) -> String {
     if let Some(fs) = &o.features {
         let list: Vec<String> = fs.iter().map(|f| toml_str(f)).collect();
         s.push_str(&format!("features = [{}]\n", list.join(", ")));
+    }
+    if o.missing == Missing::Drop {
+        s.push_str(&format!(
+            "missing = \"drop\"  # {} of the table's rows had a missing or non-numeric cell and are left out\n",
+            t.dropped_rows
+        ));
     }
     s.push_str(&format!("train_size = {}\n", t.rows()));
     s
@@ -630,11 +640,16 @@ fn fidelity(
     })
 }
 
+/// The loader's advice for a missing cell, as written for a scenario's `[data]`.
+const MISSING_HINT_SCENARIO: &str = "set `missing = \"drop\"` in [data]";
+/// The same advice on the `twin` command line.
+const MISSING_HINT_COMMAND: &str = "pass `--missing drop` to leave such rows out";
+
 fn load(o: &TwinOptions) -> Result<Table, Error> {
     let opts = TableOptions {
         target: o.target.clone(),
         features: o.features.clone(),
-        missing: Missing::Error,
+        missing: o.missing,
         target_kind: if o.classes {
             TargetKind::Classes(None)
         } else {
@@ -642,7 +657,13 @@ fn load(o: &TwinOptions) -> Result<Table, Error> {
         },
         min_rows: 5,
     };
-    Ok(dataset::load_csv(&o.table, &opts)?)
+    dataset::load_csv(&o.table, &opts).map_err(|mut e| {
+        // The loader's advice names the scenario key; on this command the option says it.
+        e.message = e
+            .message
+            .replace(MISSING_HINT_SCENARIO, MISSING_HINT_COMMAND);
+        e.into()
+    })
 }
 
 fn check_plans(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
@@ -714,6 +735,12 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         t.x.ncols(),
         t.names.join(", ")
     );
+    if o.missing == Missing::Drop {
+        out.push_str(&format!(
+            "  rows dropped: {} (a missing or non-numeric cell; --missing drop, written as missing = \"drop\")\n",
+            t.dropped_rows
+        ));
+    }
     for e in &t.encodings {
         out.push_str(&format!("  {}\n", e.describe()));
     }

@@ -72,6 +72,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
     )?;
     fitted_ref.path = Some(t.path.clone());
     fitted_ref.report = spec.report.clone();
+    fitted_ref.dropped_rows = t.dropped_rows;
     let fitted = Arc::new(fitted_ref);
     let rows_arc = Arc::new(t.x.clone());
     let jitter = (spec.jitter > 0.0).then(|| Arc::new(Jitter::fit(t.x.view(), spec.jitter)));

@@ -208,6 +208,9 @@ pub struct Reference {
     pub classes: usize,
     /// What `lossprism twin` measured when it wrote the scenario (echoed in results).
     pub report: Option<crate::dgp::twin::FitReport>,
+    /// Table rows left out under `missing = "drop"` before the fit (echoed in the
+    /// description).
+    pub dropped_rows: usize,
     knn: Option<KnnPart>,
     forest: Option<Forest>,
     loclin: Option<LocLin>,
@@ -275,6 +278,7 @@ impl Reference {
             choice: choice.clone(),
             classes,
             report: None,
+            dropped_rows: 0,
             knn,
             forest,
             loclin,
@@ -389,8 +393,12 @@ impl Reference {
 
     /// Human-readable form.
     pub fn describe(&self) -> String {
+        let dropped = match self.dropped_rows {
+            0 => String::new(),
+            d => format!(" ({d} more with a missing or non-numeric cell dropped)"),
+        };
         format!(
-            "{} fitted on the {} rows of {}",
+            "{} fitted on the {} rows of {}{dropped}",
             self.choice.describe(),
             self.y.len(),
             self.source
