@@ -822,7 +822,7 @@ impl Loss for ZeroOne {
 
     fn reading_note(&self, s: &Summary, knob: &str, value: &str, best: usize) -> Option<String> {
         let n = s.value(best, "unstable_points");
-        if !(n >= 1.0) {
+        if n.is_nan() || n < 1.0 {
             return None;
         }
         let m = if s.total.shape.all_points {
