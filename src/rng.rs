@@ -24,6 +24,9 @@ pub mod purpose {
     pub const FIT: u64 = 7;
     /// Draws of the twin's parametric bootstrap and fidelity study.
     pub const TWIN_BOOT: u64 = 8;
+    /// Draws of the block bootstrap behind the standard errors of non-smooth terms (see
+    /// [`super::block_bootstrap`]).
+    pub const BLOCK_BOOT: u64 = 9;
 }
 
 /// The random stream for (seed, purpose, index): ChaCha8 keyed by the seed, with the stream
@@ -113,6 +116,27 @@ impl FitSeed {
     }
 }
 
+/// Resampling plans of a bootstrap over replicate blocks: `draws` vectors of length `blocks`,
+/// each the multiplicities of drawing `blocks` blocks with replacement (they sum to `blocks`).
+/// Draw `d` comes from its own stream `(seed, BLOCK_BOOT, d)`, so the plans depend only on the
+/// master seed and the number of blocks — never on threads, shards or resume. Empty when
+/// `blocks < 2`.
+pub fn block_bootstrap(seed: u64, blocks: usize, draws: usize) -> Vec<Vec<u32>> {
+    if blocks < 2 {
+        return Vec::new();
+    }
+    (0..draws)
+        .map(|d| {
+            let mut rng = stream(seed, purpose::BLOCK_BOOT, d as u64);
+            let mut m = vec![0u32; blocks];
+            for _ in 0..blocks {
+                m[rng.gen_range(0..blocks)] += 1;
+            }
+            m
+        })
+        .collect()
+}
+
 /// A uniformly random order of `0..n` (Fisher–Yates, Knuth's Algorithm P), from `rng`.
 pub fn permutation<R: Rng + ?Sized>(n: usize, rng: &mut R) -> Vec<usize> {
     let mut perm: Vec<usize> = (0..n).collect();
@@ -177,5 +201,16 @@ mod tests {
         assert_ne!(base.member_rng(2).next_u64(), base.member_rng(1).next_u64());
         // A fit stream is not a replicate stream of the same seed.
         assert_ne!(a, stream(9, purpose::REPLICATE, 5).next_u64());
+    }
+
+    #[test]
+    fn block_bootstrap_plans_repeat_and_draw_every_block_count() {
+        let a = block_bootstrap(4, 7, 50);
+        assert_eq!(a, block_bootstrap(4, 7, 50));
+        assert_eq!(a[..20], block_bootstrap(4, 7, 20)[..]);
+        assert_ne!(a, block_bootstrap(5, 7, 50));
+        assert!(a.iter().all(|m| m.len() == 7 && m.iter().sum::<u32>() == 7));
+        assert!(a.windows(2).any(|w| w[0] != w[1]));
+        assert!(block_bootstrap(4, 1, 50).is_empty());
     }
 }

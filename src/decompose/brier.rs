@@ -84,6 +84,7 @@ fn info(
         group,
         estimated: false,
         stderr,
+        bootstrap: false,
     }
 }
 

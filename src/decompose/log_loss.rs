@@ -92,6 +92,7 @@ fn info(
         group,
         estimated: false,
         stderr,
+        bootstrap: false,
     }
 }
 

@@ -207,7 +207,17 @@ pub struct TermInfo {
     pub estimated: bool,
     /// Whether a standard error is reported.
     pub stderr: bool,
+    /// `true` when the term is not a smooth function of the vote shares (it depends on which
+    /// class has the most votes, the main prediction): its standard error then comes from a
+    /// bootstrap over replicate blocks ([`bootstrap_se`]) instead of the jackknife, which cannot
+    /// see the jumps of such a statistic.
+    pub bootstrap: bool,
 }
+
+/// Number of bootstrap draws over replicate blocks behind the standard errors of the terms
+/// marked [`TermInfo::bootstrap`] (Monte Carlo error of such a standard error: about
+/// `1/√(2·200)` = 5 % relative, a common-practice figure for a bootstrap standard error).
+pub const BOOTSTRAP_DRAWS: usize = 200;
 
 /// An exact identity among a loss's terms: `total = Σ coefficient × part`, which holds at every
 /// grid value to rounding (tests check it on every run).
@@ -308,6 +318,19 @@ pub trait Loss: Send + Sync {
     /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
     /// label columns are written as class indices.
     fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64>;
+
+    /// A sentence the reading adds about a finished decomposition (for example, how many points
+    /// have an unstable main prediction at the best grid value `best`, whose knob reads
+    /// `value`). Default: none.
+    fn reading_note(
+        &self,
+        _s: &Summary,
+        _knob: &str,
+        _value: &str,
+        _best: usize,
+    ) -> Option<String> {
+        None
+    }
 }
 
 /// The built-in losses.
@@ -483,6 +506,28 @@ pub fn jackknife_se(leave_out: &[f64]) -> f64 {
     }
 }
 
+/// Bootstrap standard error from the terms of bootstrap draws over `blocks` replicate blocks:
+/// the standard deviation of the draws times `√(G/(G−1))`, so that for a mean over blocks it
+/// matches the delete-a-block jackknife (the plain bootstrap variance of a mean of G groups is
+/// `(G−1)/G` times the usual `s²/G`; Efron and Tibshirani 1993, §11.5 and Problem 11.2 — the
+/// factor is from memory). NaN with fewer than two draws or blocks, or a non-finite draw.
+pub fn bootstrap_se(draws: &[f64], blocks: usize) -> f64 {
+    let n = draws.len();
+    if n < 2 || blocks < 2 || draws.iter().any(|x| !x.is_finite()) {
+        return f64::NAN;
+    }
+    let nf = n as f64;
+    let mean = draws.iter().sum::<f64>() / nf;
+    let ss: f64 = draws.iter().map(|x| (x - mean) * (x - mean)).sum();
+    let g = blocks as f64;
+    let se = (ss / (nf - 1.0) * g / (g - 1.0)).sqrt();
+    if se <= 1e-12 * mean.abs() {
+        0.0
+    } else {
+        se
+    }
+}
+
 /// A finished decomposition: the folded accumulator, the terms per grid value, their jackknife
 /// standard errors (NaN where not reported or not computable), and the leave-one-block-out
 /// terms (blocks × grid × terms) that paired comparisons use.
@@ -509,6 +554,20 @@ pub struct Summary {
 /// (the same merges in the same order as folding without it, half the work). `None` for an
 /// empty block list.
 pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option<Summary> {
+    summarize_with(loss, blocks, target, &[])
+}
+
+/// [`summarize`], with the terms marked [`TermInfo::bootstrap`] given bootstrap standard errors
+/// over `plans` (each the multiplicities of the blocks in one draw, as made by
+/// `rng::block_bootstrap`; no randomness is drawn here). A draw folds the blocks in index order,
+/// block `b` merged `plan[b]` times, so the result depends only on the blocks and the plans.
+/// With no plans (or fewer than two blocks) those terms keep the jackknife.
+pub fn summarize_with(
+    loss: &dyn Loss,
+    blocks: &[Acc],
+    target: &Target<'_>,
+    plans: &[Vec<u32>],
+) -> Option<Summary> {
     let total = Acc::fold(loss, blocks)?;
     let terms = loss.describe(&total.shape, target.observed());
     let values = loss.evaluate(&total, target);
@@ -553,6 +612,32 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
                 .collect()
         })
         .collect();
+    let resampled: Vec<usize> = (0..terms.len())
+        .filter(|&t| terms[t].stderr && terms[t].bootstrap)
+        .collect();
+    if nb >= 2 && plans.len() >= 2 && !resampled.is_empty() {
+        let draws: Vec<Vec<Row>> = plans
+            .iter()
+            .filter_map(|plan| {
+                let mut acc: Option<Acc> = None;
+                for (b, &times) in blocks.iter().zip(plan) {
+                    for _ in 0..times {
+                        match &mut acc {
+                            None => acc = Some(b.clone()),
+                            Some(o) => o.merge(loss, b),
+                        }
+                    }
+                }
+                acc.map(|a| loss.evaluate(&a, target))
+            })
+            .collect();
+        for (g, row) in stderr.iter_mut().enumerate() {
+            for &t in &resampled {
+                let v: Vec<f64> = draws.iter().map(|d| d[g][t]).collect();
+                row[t] = bootstrap_se(&v, nb);
+            }
+        }
+    }
     loss.adjust_stderr(&total.shape, target, &mut stderr);
     Some(Summary {
         terms,

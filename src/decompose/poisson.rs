@@ -147,6 +147,7 @@ fn info(
         group,
         estimated: false,
         stderr,
+        bootstrap: false,
     }
 }
 

@@ -66,6 +66,7 @@ fn info(
         group,
         estimated,
         stderr,
+        bootstrap: false,
     }
 }
 

@@ -39,6 +39,20 @@
 //! - These are plug-in estimates (the mode of the empirical votes): they converge as R grows, but
 //!   unlike the master identity they are not unbiased at finite R.
 //!
+//! # Finite R: unstable main predictions
+//!
+//! The main prediction is the mode of R votes. Where a point's vote share is near a tie, the mode
+//! of a fresh set of R replicates would differ with a sizable probability, and every term that
+//! uses the main prediction (Domingos' bias, variance, net, unbiased and biased variance; James'
+//! systematic and variance effects) jumps with it. Two consequences, measured in
+//! `docs/zero-one-finite-r.md`: these plug-in terms are biased at finite R, and the
+//! delete-a-block jackknife — built for smooth statistics — misses the jumps (its standard error
+//! is often exactly 0). So these terms are marked [`TermInfo::bootstrap`]: their standard errors
+//! come from a bootstrap over replicate blocks. Per point, [`flip_probability`] is the
+//! probability that the main prediction of a fresh set of votes differs from the one observed
+//! (normal approximation to the vote margin), and the term `unstable_points` counts the points
+//! where it exceeds [`UNSTABLE_FLIP`].
+//!
 //! # Kohavi and Wolpert (1996, ICML, "Bias plus variance decomposition for zero-one loss functions")
 //!
 //! `noise = ½(1 − Σ p_t²)`, `bias² = ½ Σ (p_t − p_D)²`, `variance = ½(1 − Σ p_D²)`. Finite-R
@@ -77,6 +91,71 @@ use crate::family::Task;
 pub struct ZeroOne;
 
 const VOTES: usize = 0;
+
+/// A point's main prediction is called unstable when a fresh set of as many votes would pick
+/// another class with probability above this (5 %, a common-practice threshold, no source).
+pub const UNSTABLE_FLIP: f64 = 0.05;
+
+/// `erfc(x)`: the Chebyshev fit of Press et al., *Numerical Recipes in C*, 2nd ed., §6.2 (`erfcc`,
+/// fractional error below 1.2e-7 everywhere; coefficients written from memory and checked in
+/// the tests against tabulated normal quantiles).
+fn erfc(x: f64) -> f64 {
+    let z = x.abs();
+    let t = 1.0 / (1.0 + 0.5 * z);
+    let poly = -1.26551223
+        + t * (1.00002368
+            + t * (0.37409196
+                + t * (0.09678418
+                    + t * (-0.18628806
+                        + t * (0.27886807
+                            + t * (-1.13520398
+                                + t * (1.48851587 + t * (-0.82215223 + t * 0.17087277))))))));
+    let ans = t * (-z * z + poly).exp();
+    if x >= 0.0 {
+        ans
+    } else {
+        2.0 - ans
+    }
+}
+
+/// The standard normal distribution function `Φ(z) = ½ erfc(−z/√2)`.
+pub fn normal_cdf(z: f64) -> f64 {
+    0.5 * erfc(-z / std::f64::consts::SQRT_2)
+}
+
+/// The probability that the main prediction (mode, smallest class index among ties) of a fresh
+/// set of `Σ counts` votes, drawn with the observed shares `p_c = n_c / n`, differs from the main
+/// prediction of `counts`: the largest over rival classes c of `Φ(−d / s)`, with
+/// `d = p_m − p_c` and `s² = (p_m + p_c − d²) / n` the multinomial variance of the difference of
+/// two shares (normal approximation; exact enough for the 5 % flag, and ½ at an exact tie).
+/// 0 when every vote agrees or there are no votes.
+pub fn flip_probability(counts: &[u32]) -> f64 {
+    let n: u64 = counts.iter().map(|&c| u64::from(c)).sum();
+    if n == 0 {
+        return 0.0;
+    }
+    let nf = n as f64;
+    let main = argmax_first(counts.iter().copied());
+    let pm = counts[main] as f64 / nf;
+    let mut worst = 0.0f64;
+    for (c, &nc) in counts.iter().enumerate() {
+        if c == main || nc == 0 {
+            continue;
+        }
+        let pc = nc as f64 / nf;
+        let d = pm - pc;
+        let var = (pm + pc - d * d) / nf;
+        let p = if d <= 0.0 {
+            0.5
+        } else if var > 0.0 {
+            normal_cdf(-d / var.sqrt())
+        } else {
+            0.0
+        };
+        worst = worst.max(p);
+    }
+    worst
+}
 /// Per grid value (every point evaluated): Σ_r of the share of points misclassified against
 /// fresh labels.
 const DIRECT: usize = 0;
@@ -196,6 +275,9 @@ pub struct ZeroOneTerms {
     pub james_systematic: f64,
     /// James variance effect `p_t(y_m) − Σ p_t p_D`.
     pub james_variance: f64,
+    /// Points whose main prediction is unstable ([`flip_probability`] above [`UNSTABLE_FLIP`]):
+    /// 0 or 1 at a point, a count (not an average) over points.
+    pub unstable_points: f64,
 }
 
 /// Terms at one evaluation point and grid value (for a per-point CSV).
@@ -209,6 +291,9 @@ pub struct ZeroOnePoint {
     pub c1: f64,
     /// Domingos' c2 at the point.
     pub c2: f64,
+    /// Probability that a fresh set of as many votes has another main prediction
+    /// ([`flip_probability`]).
+    pub flip_probability: f64,
     /// The terms at this point (`expected_loss_direct` is NaN: not tracked per point).
     pub terms: ZeroOneTerms,
 }
@@ -240,6 +325,7 @@ pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
             bayes_class: bayes,
             c1: nan,
             c2: nan,
+            flip_probability: nan,
             terms: ZeroOneTerms {
                 expected_loss: nan,
                 expected_loss_direct: nan,
@@ -255,6 +341,7 @@ pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
                 kw_variance: nan,
                 james_systematic: nan,
                 james_variance: nan,
+                unstable_points: 0.0,
             },
         };
     }
@@ -286,12 +373,14 @@ pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
     // James (2003): SE = p_t(y*) − p_t(y_m), VE = p_t(y_m) − Σ p_t p_D.
     let james_systematic = p_true[bayes] - p_true[main];
     let james_variance = p_true[main] - agree;
+    let flip = flip_probability(counts);
 
     ZeroOnePoint {
         main_prediction: main,
         bayes_class: bayes,
         c1,
         c2,
+        flip_probability: flip,
         terms: ZeroOneTerms {
             expected_loss,
             expected_loss_direct: f64::NAN,
@@ -307,6 +396,7 @@ pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
             kw_variance,
             james_systematic,
             james_variance,
+            unstable_points: if flip > UNSTABLE_FLIP { 1.0 } else { 0.0 },
         },
     }
 }
@@ -327,6 +417,7 @@ fn info(
         group,
         estimated: false,
         stderr,
+        bootstrap: false,
     }
 }
 
@@ -382,6 +473,7 @@ fn averages(acc: &Acc, target: &Target<'_>, g: usize) -> (ZeroOneTerms, usize) {
         t.kw_variance += p.kw_variance;
         t.james_systematic += p.james_systematic;
         t.james_variance += p.james_variance;
+        t.unstable_points += p.unstable_points;
     }
     let m = if acc.shape.all_points && !target.observed() {
         acc.shape.points as f64
@@ -412,6 +504,18 @@ fn averages(acc: &Acc, target: &Target<'_>, g: usize) -> (ZeroOneTerms, usize) {
     };
     (t, used)
 }
+
+/// The terms that use the main prediction: not smooth in the vote shares, so their standard
+/// errors come from the block bootstrap ([`TermInfo::bootstrap`]).
+const BOOTSTRAP_KEYS: &[&str] = &[
+    "bias",
+    "variance",
+    "net_variance",
+    "unbiased_variance",
+    "biased_variance",
+    "james.systematic_effect",
+    "james.variance_effect",
+];
 
 impl Loss for ZeroOne {
     fn name(&self) -> &'static str {
@@ -619,6 +723,17 @@ impl Loss for ZeroOne {
                 ),
             ]);
         }
+        v.push(info(
+            "unstable_points",
+            "unstable main",
+            "points whose main (majority) prediction a fresh set of as many replicates would change with probability above 5 %; the terms that use the main prediction are biased there at this R",
+            Role::Other,
+            Detail,
+            false,
+        ));
+        for t in &mut v {
+            t.bootstrap = BOOTSTRAP_KEYS.contains(&t.key);
+        }
         v
     }
 
@@ -682,6 +797,7 @@ impl Loss for ZeroOne {
                         t.noise_term,
                     ]);
                 }
+                row.push(t.unstable_points);
                 if used == 0 {
                     row.iter_mut().for_each(|v| *v = f64::NAN);
                 }
@@ -704,6 +820,23 @@ impl Loss for ZeroOne {
         Ok(())
     }
 
+    fn reading_note(&self, s: &Summary, knob: &str, value: &str, best: usize) -> Option<String> {
+        let n = s.value(best, "unstable_points");
+        if n.is_nan() || n < 1.0 {
+            return None;
+        }
+        let m = if s.total.shape.all_points {
+            s.total.shape.points
+        } else {
+            s.total.used_points()
+        };
+        Some(format!(
+            "{n} of {m} evaluation points {has} a main prediction that flips with probability above 5 % at {knob} = {value}: there the Domingos and James terms carry a finite-R bias (docs/zero-one-finite-r.md).",
+            n = n as u64,
+            has = if n == 1.0 { "has" } else { "have" }
+        ))
+    }
+
     fn observed_loss(&self, value: f64, _probs: Option<&[f64]>, y: f64) -> f64 {
         if value == y {
             0.0
@@ -720,6 +853,7 @@ impl Loss for ZeroOne {
                 ("main_prediction", true),
                 ("bias_plus_noise", false),
                 ("variance", false),
+                ("flip_probability", false),
             ]
         } else {
             vec![
@@ -735,6 +869,7 @@ impl Loss for ZeroOne {
                 ("kw_variance", false),
                 ("james_systematic_effect", false),
                 ("james_variance_effect", false),
+                ("flip_probability", false),
             ]
         }
     }
@@ -754,6 +889,7 @@ impl Loss for ZeroOne {
                     p.main_prediction as f64,
                     if ok { t.bias } else { f64::NAN },
                     if ok { t.variance } else { f64::NAN },
+                    if ok { p.flip_probability } else { f64::NAN },
                 ]
             }
             Target::Known { .. } => vec![
@@ -769,6 +905,7 @@ impl Loss for ZeroOne {
                 t.kw_variance,
                 t.james_systematic,
                 t.james_variance,
+                p.flip_probability,
             ],
         }
     }
@@ -787,6 +924,14 @@ pub struct ZeroOneSummary {
 }
 
 fn from_row(r: &Row) -> ZeroOneTerms {
+    // a known truth's row has 15 terms, an observed one 9 (no Kohavi–Wolpert, James, c1·noise)
+    let known = |i: usize| {
+        if r.len() > 13 {
+            r[i]
+        } else {
+            f64::NAN
+        }
+    };
     ZeroOneTerms {
         expected_loss: r[0],
         bias: r[1],
@@ -796,12 +941,13 @@ fn from_row(r: &Row) -> ZeroOneTerms {
         net_variance: r[5],
         unbiased_variance: r[6],
         biased_variance: r[7],
-        kw_noise: r.get(8).copied().unwrap_or(f64::NAN),
-        kw_bias_sq: r.get(9).copied().unwrap_or(f64::NAN),
-        kw_variance: r.get(10).copied().unwrap_or(f64::NAN),
-        james_systematic: r.get(11).copied().unwrap_or(f64::NAN),
-        james_variance: r.get(12).copied().unwrap_or(f64::NAN),
-        noise_term: r.get(13).copied().unwrap_or(f64::NAN),
+        kw_noise: known(8),
+        kw_bias_sq: known(9),
+        kw_variance: known(10),
+        james_systematic: known(11),
+        james_variance: known(12),
+        noise_term: known(13),
+        unstable_points: r[r.len() - 1],
     }
 }
 
@@ -843,6 +989,22 @@ pub fn summarize(blocks: &[Acc], p_true: &[f64]) -> Option<ZeroOneSummary> {
         probs: Some(p_true),
     };
     view(&super::summarize(&ZeroOne, blocks, &target)?)
+}
+
+/// [`summarize`] with the bootstrap standard errors of the terms that use the main prediction,
+/// over the resampling `plans` (made by `rng::block_bootstrap`, as a run does).
+pub fn summarize_with(
+    blocks: &[Acc],
+    p_true: &[f64],
+    plans: &[Vec<u32>],
+) -> Option<ZeroOneSummary> {
+    let zeros = vec![0.0; blocks.first()?.shape.points];
+    let target = Target::Known {
+        truth: &zeros,
+        noise_var: &zeros,
+        probs: Some(p_true),
+    };
+    view(&super::summarize_with(&ZeroOne, blocks, &target, plans)?)
 }
 
 #[cfg(test)]
@@ -1206,9 +1368,10 @@ mod tests {
         assert_eq!(several.values, one.values);
         let noise = several.index("noise").unwrap();
         let kw_noise = several.index("kohavi_wolpert.noise").unwrap();
+        let unstable = several.index("unstable_points").unwrap();
         for r in &several.stderr {
             for (i, v) in r.iter().enumerate() {
-                if i == noise {
+                if i == noise || i == unstable {
                     assert!(v.is_nan(), "noise has no standard error");
                 } else if i == kw_noise {
                     assert_eq!(*v, 0.0, "a known term does not move");

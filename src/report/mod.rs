@@ -153,6 +153,10 @@ pub struct TermDoc {
     pub estimated: bool,
     /// Whether a standard error is reported.
     pub stderr: bool,
+    /// Whether that standard error comes from the bootstrap over replicate blocks (terms that
+    /// jump with the main prediction) rather than the jackknife. Absent when false.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub bootstrap: bool,
 }
 
 impl TermDoc {
@@ -180,6 +184,7 @@ impl TermDoc {
             .into(),
             estimated: t.estimated,
             stderr: t.stderr,
+            bootstrap: t.bootstrap,
         }
     }
 }
@@ -1227,6 +1232,18 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     if let Some(more) = split_reading(model.family.knob(), &main_rows, &best) {
         reading.push(' ');
         reading.push_str(&more);
+    }
+    if let Some(g) = main_rows.iter().position(|p| p.value == best.value) {
+        let s = &outcome.summaries[plan.cell(last, 0)];
+        if let Some(note) = plan.loss.reading_note(
+            s,
+            model.family.knob(),
+            &crate::fmt::fmt_value(best.value),
+            g,
+        ) {
+            reading.push(' ');
+            reading.push_str(&note);
+        }
     }
     let ranking = (nm > 1).then(|| rankings(plan, outcome));
     if let Some(r) = ranking.as_ref().and_then(|r| r.last()) {

@@ -72,9 +72,21 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
         .map(|t| format!("{} = {}", t.label, t.meaning))
         .collect();
     s.push_str(&parts.join("; "));
-    s.push_str(
-        "; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n",
-    );
+    let boot: Vec<&str> = terms
+        .iter()
+        .filter(|t| t.stderr && t.bootstrap)
+        .map(|t| t.label.as_str())
+        .collect();
+    if boot.is_empty() {
+        s.push_str(
+            "; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n",
+        );
+    } else {
+        s.push_str(&format!(
+            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction); * lowest expected loss.\n",
+            boot.join(", ")
+        ));
+    }
     if let Some(n) = &doc.noise_estimate {
         s.push_str(&format!(
             "noise estimate: {} ± {} by {}\n",

@@ -371,7 +371,21 @@ pub fn summarize(
     for c in 0..plan.cells() {
         let model = &plan.models[c % plan.models.len()];
         let accs: Vec<Acc> = blocks.values().map(|b| b.accs[c].clone()).collect();
-        let s = decompose::summarize(plan.loss, &accs, &target)
+        // Terms that jump with the main prediction get a bootstrap over the blocks; its plans
+        // come from the master seed only (the same for every cell), so results stay identical
+        // across threads, shards and resume.
+        let resampled = accs.first().is_some_and(|a| {
+            plan.loss
+                .describe(&a.shape, target.observed())
+                .iter()
+                .any(|t| t.bootstrap)
+        });
+        let plans = if resampled {
+            crate::rng::block_bootstrap(plan.seed, accs.len(), decompose::BOOTSTRAP_DRAWS)
+        } else {
+            Vec::new()
+        };
+        let s = decompose::summarize_with(plan.loss, &accs, &target, &plans)
             .ok_or_else(|| Error::Usage("no replicates to summarize".into()))?;
         for (g, row) in s.values.iter().enumerate() {
             for (t, v) in row.iter().enumerate() {
