@@ -812,10 +812,14 @@ fn points_csv_line_column_counts_file_lines_like_errors() {
     assert_eq!(seen.first(), Some(&2), "the first data row is line 2");
     assert!(!seen.contains(&7), "the dropped row (line 7) has no point");
     assert_eq!(seen.len(), 39);
-    // The same row made unreadable: the error names line 8 (row 6's line in the points file).
-    let bad = csv.replacen("6.5,", "x6.5,", 1);
+    // The same row made unreadable (missing cells now refused): the error names line 8, the
+    // row's line in the points file.
+    let bad = csv
+        .replacen("5.5,,1", "5.5,1,1", 1)
+        .replacen("6.5,", "x6.5,", 1);
     assert!(seen.contains(&8) && file_lines[7].starts_with("6.5,"));
     fs::write(dir.path().join("d.csv"), bad).unwrap();
+    fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
     let o = run_in(dir.path(), &["run", "s.toml"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("d.csv:8"), "{}", stderr(&o));
