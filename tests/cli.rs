@@ -813,7 +813,9 @@ fn help_examples_parse_and_name_shipped_files() {
     let joined: Vec<String> = cmds.iter().map(|c| c.join(" ")).collect();
     for needle in ["lossprism twin ", "--assess", "--plot ", "--report "] {
         assert!(
-            joined.iter().any(|c| c.contains(needle) || c.ends_with(needle.trim())),
+            joined
+                .iter()
+                .any(|c| c.contains(needle) || c.ends_with(needle.trim())),
             "no example with `{needle}`: {joined:#?}"
         );
     }
@@ -823,7 +825,10 @@ fn help_examples_parse_and_name_shipped_files() {
             panic!("example `{}` does not parse: {e}", c.join(" "));
         }
         // Every scenario or table it names is shipped.
-        for w in c.iter().filter(|w| w.ends_with(".toml") || w.ends_with(".csv")) {
+        for w in c
+            .iter()
+            .filter(|w| w.ends_with(".toml") || w.ends_with(".csv"))
+        {
             if w.starts_with("scenarios/") {
                 assert!(repo().join(w).is_file(), "`{w}` is not shipped");
             }
@@ -841,8 +846,16 @@ fn help_examples_run_as_written() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     fs::create_dir_all(d.join("scenarios/data")).unwrap();
-    for f in ["orchard-yield.toml", "seed-sorter-flip.toml", "cold-store-table.toml"] {
-        fs::copy(repo().join("scenarios").join(f), d.join("scenarios").join(f)).unwrap();
+    for f in [
+        "orchard-yield.toml",
+        "seed-sorter-flip.toml",
+        "cold-store-table.toml",
+    ] {
+        fs::copy(
+            repo().join("scenarios").join(f),
+            d.join("scenarios").join(f),
+        )
+        .unwrap();
     }
     fs::copy(
         repo().join("scenarios/data/cold-store.csv"),
@@ -876,7 +889,12 @@ fn help_examples_run_as_written() {
             text(&out.stderr)
         );
     }
-    for f in ["curve.svg", "report.html", "cold-twin.toml", "scenarios/cold-store-table.holdout-ledger.json"] {
+    for f in [
+        "curve.svg",
+        "report.html",
+        "cold-twin.toml",
+        "scenarios/cold-store-table.holdout-ledger.json",
+    ] {
         assert!(d.join(f).is_file(), "{f} not written");
     }
 }
@@ -899,7 +917,9 @@ fn families_columns_line_up() {
         "custom",
     ] {
         assert!(
-            heads.iter().any(|l| l.split_whitespace().next() == Some(name)),
+            heads
+                .iter()
+                .any(|l| l.split_whitespace().next() == Some(name)),
             "`{name}` not listed"
         );
     }

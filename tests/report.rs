@@ -851,11 +851,17 @@ fn per_point_view_draws_a_one_hot_input_as_points() {
     let v = plot::point_view(&plan, &outcome, &doc, Some("compressor=A"), (&t.0, &t.1)).unwrap();
     assert!(v.discrete);
     assert_eq!(v.x, vec![0.0, 1.0]);
-    assert!(v.curves.iter().all(|c| c.mean.len() == 2 && c.mean.iter().all(|m| m.is_finite())));
+    assert!(v
+        .curves
+        .iter()
+        .all(|c| c.mean.len() == 2 && c.mean.iter().all(|m| m.is_finite())));
     let svg = plot::points_svg(&v).unwrap();
     // No ±1 sd bands (the continuous view's translucent areas) and no lines through x = 0.5:
     // the x labels are the two levels only.
-    assert!(!svg.contains("opacity=\"0.16\""), "bands drawn for a 0/1 input");
+    assert!(
+        !svg.contains("opacity=\"0.16\""),
+        "bands drawn for a 0/1 input"
+    );
     let labels = texts(&svg);
     assert!(labels.iter().any(|s| s == "0") && labels.iter().any(|s| s == "1"));
     assert!(!labels.iter().any(|s| s == "0.5"), "{labels:?}");
@@ -868,7 +874,9 @@ fn per_point_view_draws_a_one_hot_input_as_points() {
     // A continuous input of the same run stays a line with bands.
     let hour = plot::point_view(&plan, &outcome, &doc, Some("hour"), (&t.0, &t.1)).unwrap();
     assert!(!hour.discrete);
-    assert!(plot::points_svg(&hour).unwrap().contains("opacity=\"0.16\""));
+    assert!(plot::points_svg(&hour)
+        .unwrap()
+        .contains("opacity=\"0.16\""));
 }
 
 /// Mean lines that lie on top of each other stay visible: each curve's colour shows in the plot
@@ -899,7 +907,13 @@ fn html_report_has_the_selection_audit_numbers() {
     let audited = format!("{TINY}\n[audit]\nfolds = 4\nrule = \"min\"\n");
     let (_, _, doc) = run(&audited);
     let sel = doc.selection.clone().expect("an audit");
-    let text = html::render(&doc, View::Domingos, &Pictures::default(), None, "wall time");
+    let text = html::render(
+        &doc,
+        View::Domingos,
+        &Pictures::default(),
+        None,
+        "wall time",
+    );
     let page = scraper::Html::parse_document(&text);
     assert!(page.errors.is_empty(), "{:?}", page.errors);
     let one = |css: &str| -> String {
@@ -929,7 +943,13 @@ fn html_report_has_the_selection_audit_numbers() {
     assert!(body.contains(line.trim_start_matches("selection: ")));
     // Without an audit there is no such section.
     let (_, _, plain) = run(TINY);
-    let text = html::render(&plain, View::Domingos, &Pictures::default(), None, "wall time");
+    let text = html::render(
+        &plain,
+        View::Domingos,
+        &Pictures::default(),
+        None,
+        "wall time",
+    );
     assert!(!text.contains("selection-audit"));
 }
 
@@ -971,7 +991,10 @@ fn reading_calls_the_choice_clear_only_beyond_two_standard_errors() {
             let (_, _, doc) = run(&src);
             let words = html::reading_words(&doc);
             let all = words.join(" ");
-            let Some(near) = words.iter().find(|w| w.starts_with("Next to the best value")) else {
+            let Some(near) = words
+                .iter()
+                .find(|w| w.starts_with("Next to the best value"))
+            else {
                 continue;
             };
             // The ratios quoted, "(1.2 standard errors of the difference)".
@@ -994,10 +1017,16 @@ fn reading_calls_the_choice_clear_only_beyond_two_standard_errors() {
             } else {
                 seen.1 += 1;
             }
-            assert!(near.contains("two standard errors of the difference"), "{near}");
+            assert!(
+                near.contains("two standard errors of the difference"),
+                "{near}"
+            );
         }
     }
-    assert!(seen.0 > 0 && seen.1 > 0, "both conclusions exercised: {seen:?}");
+    assert!(
+        seen.0 > 0 && seen.1 > 0,
+        "both conclusions exercised: {seen:?}"
+    );
 }
 
 /// The default 0-1 table fits in 100 columns, says what it left out, and `--decomposition all`

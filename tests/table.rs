@@ -854,9 +854,17 @@ fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
         args.extend_from_slice(extra);
         let o = run_in(dir.path(), &args);
         assert_eq!(o.status.code(), Some(2), "{flag}: {}", stderr(&o));
-        assert!(stderr(&o).contains(&format!("drop {flag}")), "{}", stderr(&o));
+        assert!(
+            stderr(&o).contains(&format!("drop {flag}")),
+            "{}",
+            stderr(&o)
+        );
         assert!(!ledger.exists(), "{flag}: an assessment was counted");
-        assert_eq!(fs::read_dir(dir.path()).unwrap().count(), 2, "{flag}: a file was written");
+        assert_eq!(
+            fs::read_dir(dir.path()).unwrap().count(),
+            2,
+            "{flag}: a file was written"
+        );
     }
     // Without them it prints the loss and counts it once.
     let o = run_in(dir.path(), &["run", "c.toml", "--assess", "4"]);

@@ -273,7 +273,6 @@ fn table_words(
     out
 }
 
-
 fn grid_words(grid: &[f64]) -> String {
     if grid.len() <= 8 {
         grid.iter()
@@ -343,7 +342,11 @@ pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
                 )
             }
             _ => (
-                format!("{knob} = {} is higher by {}", fmt_value(p.value), fmt_num(d)),
+                format!(
+                    "{knob} = {} is higher by {}",
+                    fmt_value(p.value),
+                    fmt_num(d)
+                ),
                 None,
             ),
         }
@@ -536,7 +539,11 @@ pub fn render(
         let _ = writeln!(
             h,
             "<p>{}</p>",
-            e(&super::selection::sentence(sel, &doc.knob, &doc.scenario.grid))
+            e(&super::selection::sentence(
+                sel,
+                &doc.knob,
+                &doc.scenario.grid
+            ))
         );
         h.push_str("<dl class=\"facts\" id=\"selection-audit\">\n");
         let pct = |v: f64| {

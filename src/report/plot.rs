@@ -1064,12 +1064,11 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
     }
     // A discrete input: the levels' smallest gap sets the room around each level, where the
     // curves' markers stand side by side.
-    let gap = v
-        .x
-        .windows(2)
-        .map(|w| w[1] - w[0])
-        .filter(|d| *d > 0.0)
-        .fold(f64::INFINITY, f64::min);
+    let gap =
+        v.x.windows(2)
+            .map(|w| w[1] - w[0])
+            .filter(|d| *d > 0.0)
+            .fold(f64::INFINITY, f64::min);
     let gap = if gap.is_finite() { gap } else { 1.0 };
     let (x0, x1) = if v.discrete {
         let lo = v.x.iter().copied().fold(f64::INFINITY, f64::min);
@@ -1158,13 +1157,14 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .map_err(draw_err)?;
         if v.discrete {
             // The levels are the only x labels, each with a faint guide line.
-            let label = (FONT, 13)
-                .into_font()
-                .color(&INK)
-                .pos(plotters::style::text_anchor::Pos::new(
-                    plotters::style::text_anchor::HPos::Center,
-                    plotters::style::text_anchor::VPos::Top,
-                ));
+            let label =
+                (FONT, 13)
+                    .into_font()
+                    .color(&INK)
+                    .pos(plotters::style::text_anchor::Pos::new(
+                        plotters::style::text_anchor::HPos::Center,
+                        plotters::style::text_anchor::VPos::Top,
+                    ));
             for &l in &v.x {
                 chart
                     .draw_series(std::iter::once(PathElement::new(
@@ -1243,8 +1243,7 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
                         .map_err(draw_err)?;
                 }
             }
-            let tpts: Vec<(f64, f64)> =
-                v.x.iter().copied().zip(v.truth.iter().copied()).collect();
+            let tpts: Vec<(f64, f64)> = v.x.iter().copied().zip(v.truth.iter().copied()).collect();
             chart
                 .draw_series(LineSeries::new(tpts, style(&truth_look)))
                 .map_err(draw_err)?;

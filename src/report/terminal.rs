@@ -108,7 +108,7 @@ pub fn fit(doc: &ResultDoc, view: View) -> Fit {
         if width(&f) <= WIDTH {
             return f;
         }
-        if f.terms.iter().all(|t| drop(t)) {
+        if f.terms.iter().all(drop) {
             continue;
         }
         f.hidden
