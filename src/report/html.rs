@@ -516,8 +516,9 @@ pub fn render(
             h,
             "<h2>Underfitting and overfitting as shapes</h2>\n<figure>{}<figcaption>The truth \
              and the mean prediction at the smallest, the best and the largest {} with ±1 \
-             prediction standard deviation; dots are one replicate's training set. A mean curve \
-             that misses the truth is bias; a wide band is variance.</figcaption></figure>",
+             prediction standard deviation (a band, or a bar at each value of an input with few \
+             values); dots are one replicate's training set. A mean that misses the truth is \
+             bias; a wide band or long bar is variance.</figcaption></figure>",
             inline_svg(svg, "per-point view of truth and mean predictions"),
             e(&doc.knob)
         );
