@@ -14,18 +14,23 @@ pub struct Cli {
     pub command: Command,
 }
 
-const EXAMPLES: &str = "\
+/// The top-level help's examples. Every line is a command that runs as written from the
+/// repository's root (the shipped scenarios; `r.json` and `base.json` from the lines before).
+pub const EXAMPLES: &str = "\
 Examples:
   lossprism run                                   run the embedded default scenario (an invented orchard)
   lossprism run scenarios/friedman1-tree.toml --out r.json --csv r.csv
   lossprism run scenarios/friedman1-knn.toml --replicates 50 --threads 2
-  lossprism validate my-scenario.toml             check a file without running it
+  lossprism run scenarios/orchard-yield.toml --plot curve.svg --report report.html   picture and HTML report
+  lossprism validate scenarios/seed-sorter-flip.toml   check a file without running it
   lossprism families                              list model families and their knobs
-  lossprism run s.toml --shard 2/8 --out part-2.json   one of 8 shards (e.g. a Slurm array task)
-  lossprism merge part-*.json --out r.json        combine the shards into one result
-  lossprism run s.toml --checkpoint ck.json --out r.json   resumable run (rerun after a kill)
-  lossprism check r.json --baseline base.json     fail (exit 1) when a term regressed
-  lossprism check r.json --baseline base.json --update   accept the new result as the baseline";
+  lossprism twin scenarios/data/cold-store.csv --target temp_c --out cold-twin.toml   simulated twin of a table
+  lossprism run scenarios/cold-store-table.toml --assess 4   one counted holdout assessment of max_depth = 4
+  lossprism run scenarios/friedman1-tree.toml --shard 2/8 --out part-2.json   one of 8 shards (e.g. a Slurm array task)
+  lossprism merge part-*.json --out merged.json   combine the 8 shards into one result
+  lossprism run scenarios/friedman1-tree.toml --checkpoint ck.json --out r.json   resumable run (rerun after a kill)
+  lossprism check r.json --baseline base.json --update   accept the result as the baseline
+  lossprism check r.json --baseline base.json     fail (exit 1) when a term regressed";
 
 /// Subcommands.
 // Parsed once per process: the size of the largest variant does not matter.
@@ -167,7 +172,9 @@ pub struct RunArgs {
     /// Write one CSV row per grid value here.
     #[arg(long, value_name = "FILE.csv")]
     pub csv: Option<PathBuf>,
-    /// Write one CSV row per evaluation point and grid value here.
+    /// Write one CSV row per evaluation point and grid value here. Its second column is `point`
+    /// (the evaluation point's index, from 0) for simulated data, or `line` for a table: the
+    /// row's line in the CSV file, the header being line 1, as in error messages.
     #[arg(long, value_name = "FILE.csv")]
     pub points: Option<PathBuf>,
     /// Override the number of replicates R (at least 2).
@@ -186,7 +193,9 @@ pub struct RunArgs {
     /// Worker threads (0 = one per core). Results do not depend on it.
     #[arg(long, allow_negative_numbers = true, default_value_t = 0)]
     pub threads: usize,
-    /// Which 0-1 loss decomposition the table shows (the JSON always holds all three).
+    /// Which 0-1 loss decomposition the table shows (the JSON always holds all three). The
+    /// default table is kept within 100 columns (a note names any term left out); `all` shows
+    /// every term.
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
     pub decomposition: DecompositionView,
     /// Do not print the table (nor the progress bar).
@@ -205,7 +214,8 @@ pub struct RunArgs {
     /// Draw the selection audit's histogram (SVG; scenarios with `[audit]`).
     #[arg(long, value_name = "FILE.svg")]
     pub plot_selection: Option<PathBuf>,
-    /// Draw the truth and mean predictions along one input (SVG; squared loss).
+    /// Draw the truth and mean predictions along one input (SVG; squared loss). An input with at
+    /// most 10 distinct values (a 0/1 column) is drawn as markers at its values.
     #[arg(long, value_name = "FILE.svg")]
     pub plot_points: Option<PathBuf>,
     /// The input on the x axis of --plot-points when the scenario has several (the others are

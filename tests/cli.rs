@@ -787,3 +787,164 @@ fn json_is_bit_identical_across_thread_counts() {
     );
     assert_eq!(out.stdout, a);
 }
+
+// ---------------------------------------------------------------------------------------------
+// Help examples and the families listing (issue 17).
+// ---------------------------------------------------------------------------------------------
+
+/// The commands of the top-level help's examples (the text before the description, which is
+/// set off by at least three spaces).
+fn help_examples() -> Vec<Vec<String>> {
+    lossprism::cli::EXAMPLES
+        .lines()
+        .skip(1)
+        .map(|l| {
+            let cmd = l.trim_start().split("   ").next().unwrap_or("").trim();
+            cmd.split_whitespace().map(str::to_string).collect()
+        })
+        .collect()
+}
+
+#[test]
+fn help_examples_parse_and_name_shipped_files() {
+    use clap::Parser;
+    let cmds = help_examples();
+    assert!(cmds.len() >= 10, "{cmds:?}");
+    let joined: Vec<String> = cmds.iter().map(|c| c.join(" ")).collect();
+    for needle in ["lossprism twin ", "--assess", "--plot ", "--report "] {
+        assert!(
+            joined
+                .iter()
+                .any(|c| c.contains(needle) || c.ends_with(needle.trim())),
+            "no example with `{needle}`: {joined:#?}"
+        );
+    }
+    for c in &cmds {
+        assert_eq!(c[0], "lossprism", "{c:?}");
+        if let Err(e) = lossprism::cli::Cli::try_parse_from(c) {
+            panic!("example `{}` does not parse: {e}", c.join(" "));
+        }
+        // Every scenario or table it names is shipped.
+        for w in c
+            .iter()
+            .filter(|w| w.ends_with(".toml") || w.ends_with(".csv"))
+        {
+            if w.starts_with("scenarios/") {
+                assert!(repo().join(w).is_file(), "`{w}` is not shipped");
+            }
+        }
+    }
+    // The help shows them.
+    let out = lossprism(&repo(), &["--help"]);
+    assert!(text(&out.stdout).contains("lossprism twin scenarios/data/cold-store.csv"));
+}
+
+/// The cheap examples run as written, in order, in a copy of the shipped scenarios (the twin
+/// with a small fidelity check, the assessment counted in the copy's ledger).
+#[test]
+fn help_examples_run_as_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::create_dir_all(d.join("scenarios/data")).unwrap();
+    for f in [
+        "orchard-yield.toml",
+        "seed-sorter-flip.toml",
+        "cold-store-table.toml",
+    ] {
+        fs::copy(
+            repo().join("scenarios").join(f),
+            d.join("scenarios").join(f),
+        )
+        .unwrap();
+    }
+    fs::copy(
+        repo().join("scenarios/data/cold-store.csv"),
+        d.join("scenarios/data/cold-store.csv"),
+    )
+    .unwrap();
+    for c in help_examples() {
+        let words: Vec<&str> = c.iter().skip(1).map(String::as_str).collect();
+        let runs_here = match words[0] {
+            "validate" | "families" | "twin" => true,
+            "run" => words.contains(&"--plot") || words.contains(&"--assess"),
+            _ => false,
+        };
+        if !runs_here {
+            continue;
+        }
+        let mut args = words.clone();
+        if words[0] == "twin" {
+            args.extend(["--fidelity", "0"]);
+        }
+        if words[0] == "run" && words.contains(&"--plot") {
+            args.extend(["--replicates", "10"]);
+        }
+        let out = lossprism(d, &args);
+        no_panic(&out);
+        assert_eq!(
+            out.status.code(),
+            Some(0),
+            "`{}`: {}",
+            c.join(" "),
+            text(&out.stderr)
+        );
+    }
+    for f in [
+        "curve.svg",
+        "report.html",
+        "cold-twin.toml",
+        "scenarios/cold-store-table.holdout-ledger.json",
+    ] {
+        assert!(d.join(f).is_file(), "{f} not written");
+    }
+}
+
+/// `families` lines up its columns for every family, whatever the length of its name or knob.
+#[test]
+fn families_columns_line_up() {
+    let out = lossprism(&repo(), &["families"]);
+    assert_eq!(out.status.code(), Some(0));
+    let s = text(&out.stdout);
+    let heads: Vec<&str> = s.lines().filter(|l| !l.starts_with(' ')).collect();
+    for name in [
+        "tree",
+        "forest",
+        "boost",
+        "knn",
+        "logistic",
+        "minnorm",
+        "random_features",
+        "custom",
+    ] {
+        assert!(
+            heads
+                .iter()
+                .any(|l| l.split_whitespace().next() == Some(name)),
+            "`{name}` not listed"
+        );
+    }
+    // The knob column and the meaning column start at the same character for every family.
+    let col = |l: &str, from: usize| -> usize {
+        let chars: Vec<char> = l.chars().collect();
+        let mut i = from;
+        // Skip the cell, then the spaces after it.
+        while i < chars.len() && !(chars[i] == ' ' && chars.get(i + 1) == Some(&' ')) {
+            i += 1;
+        }
+        while i < chars.len() && chars[i] == ' ' {
+            i += 1;
+        }
+        i
+    };
+    let knob_at: Vec<usize> = heads.iter().map(|l| col(l, 0)).collect();
+    let meaning_at: Vec<usize> = heads.iter().map(|l| col(l, knob_at[0] + 5)).collect();
+    assert!(knob_at.iter().all(|&c| c == knob_at[0]), "{knob_at:?}\n{s}");
+    assert!(
+        meaning_at.iter().all(|&c| c == meaning_at[0]),
+        "{meaning_at:?}\n{s}"
+    );
+    for l in s.lines().filter(|l| l.starts_with(' ')) {
+        let at = l.chars().take_while(|c| *c == ' ').count();
+        assert_eq!(at, knob_at[0], "{l}");
+    }
+}

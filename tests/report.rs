@@ -879,3 +879,277 @@ fn html_words_say_what_a_table_and_a_twin_run_did() {
     }
     assert!(!w.contains("invented by the scenario"), "{w}");
 }
+
+// ---------------------------------------------------------------------------------------------
+// A newcomer's frictions (issue 17): discrete inputs in the per-point view, overlapping mean
+// lines, the selection audit in the report, unambiguous readings, tables within 100 columns.
+// ---------------------------------------------------------------------------------------------
+
+/// Pixels of the plot area (left of the legend panel) within 40 (per channel) of `c`.
+fn pixels_of(p: &resvg::tiny_skia::Pixmap, c: (u8, u8, u8)) -> usize {
+    let w = p.width() as usize;
+    let plot_w = (plot::POINTS_SIZE.0 - 250) as usize;
+    p.pixels()
+        .iter()
+        .enumerate()
+        .filter(|(i, px)| {
+            i % w < plot_w
+                && (px.red() as i32 - c.0 as i32).abs() < 40
+                && (px.green() as i32 - c.1 as i32).abs() < 40
+                && (px.blue() as i32 - c.2 as i32).abs() < 40
+        })
+        .count()
+}
+
+/// A 0/1 (one-hot) input is drawn as markers at 0 and 1, not as a line across [0, 1]: the
+/// shipped twin of the cold-store table, whose `compressor=A` column is kept on its levels.
+#[test]
+fn per_point_view_draws_a_one_hot_input_as_points() {
+    let opts = PlanOptions {
+        replicates: Some(8),
+        ..Default::default()
+    };
+    let plan = scenario::load(
+        &common::repo().join("scenarios/cold-store-twin.toml"),
+        &opts,
+    )
+    .expect("the shipped twin plans");
+    let outcome = runner::run(&plan, 1).expect("run succeeds");
+    let doc = report::build(&plan, &outcome);
+    let t = train(&plan, &outcome);
+    let v = plot::point_view(&plan, &outcome, &doc, Some("compressor=A"), (&t.0, &t.1)).unwrap();
+    assert!(v.discrete);
+    assert_eq!(v.x, vec![0.0, 1.0]);
+    assert!(v
+        .curves
+        .iter()
+        .all(|c| c.mean.len() == 2 && c.mean.iter().all(|m| m.is_finite())));
+    let svg = plot::points_svg(&v).unwrap();
+    // No ±1 sd bands (the continuous view's translucent areas) and no lines through x = 0.5:
+    // the x labels are the two levels only.
+    assert!(
+        !svg.contains("opacity=\"0.16\""),
+        "bands drawn for a 0/1 input"
+    );
+    let labels = texts(&svg);
+    assert!(labels.iter().any(|s| s == "0") && labels.iter().any(|s| s == "1"));
+    assert!(!labels.iter().any(|s| s == "0.5"), "{labels:?}");
+    assert!(labels.join(" ").contains("takes 2 values"));
+    // Every curve's colour shows in the plot area (markers side by side, none hidden).
+    let (_, _, _, px) = render(&svg);
+    for c in [(0xb0, 0x4e, 0x0f), (0x1f, 0x1d, 0x3d), (0x4a, 0xa3, 0xdf)] {
+        assert!(pixels_of(&px, c) > 40, "colour {c:?} hidden");
+    }
+    // A continuous input of the same run stays a line with bands.
+    let hour = plot::point_view(&plan, &outcome, &doc, Some("hour"), (&t.0, &t.1)).unwrap();
+    assert!(!hour.discrete);
+    assert!(plot::points_svg(&hour)
+        .unwrap()
+        .contains("opacity=\"0.16\""));
+}
+
+/// Mean lines that lie on top of each other stay visible: each curve's colour shows in the plot
+/// area (thin dashed lines drawn over the thick solid one, markers staggered).
+#[test]
+fn per_point_view_keeps_overlapping_mean_lines_visible() {
+    let (plan, outcome, doc) = run(TINY);
+    let t = train(&plan, &outcome);
+    let mut v = plot::point_view(&plan, &outcome, &doc, None, (&t.0, &t.1)).unwrap();
+    assert!(!v.discrete, "30 distinct x values are continuous");
+    // Force the worst case: every curve equal to the first.
+    let first = v.curves[0].clone();
+    for c in v.curves.iter_mut().skip(1) {
+        c.mean = first.mean.clone();
+        c.sd = first.sd.clone();
+    }
+    let (_, _, _, px) = render(&plot::points_svg(&v).unwrap());
+    let colours = [(0xb0, 0x4e, 0x0f), (0x1f, 0x1d, 0x3d), (0x4a, 0xa3, 0xdf)];
+    for c in colours.iter().take(v.curves.len()) {
+        assert!(pixels_of(&px, *c) > 40, "colour {c:?} hidden");
+    }
+}
+
+/// The HTML report carries the selection audit's excess-loss numbers, identical to the
+/// terminal's `selection:` line.
+#[test]
+fn html_report_has_the_selection_audit_numbers() {
+    let audited = format!("{TINY}\n[audit]\nfolds = 4\nrule = \"min\"\n");
+    let (_, _, doc) = run(&audited);
+    let sel = doc.selection.clone().expect("an audit");
+    let text = html::render(
+        &doc,
+        View::Domingos,
+        &Pictures::default(),
+        None,
+        "wall time",
+    );
+    let page = scraper::Html::parse_document(&text);
+    assert!(page.errors.is_empty(), "{:?}", page.errors);
+    let one = |css: &str| -> String {
+        let s = scraper::Selector::parse(css).unwrap();
+        let found: Vec<String> = page
+            .select(&s)
+            .map(|e| e.text().collect::<String>())
+            .collect();
+        assert_eq!(found.len(), 1, "{css}: {found:?}");
+        found[0].clone()
+    };
+    let mean = lossprism::fmt::fmt_num(sel.mean_excess_loss);
+    let q90 = lossprism::fmt::fmt_num(sel.q90_excess_loss);
+    let within = format!("{:.0}%", 100.0 * sel.share_within_one_se);
+    assert_eq!(one("#selection-audit #mean-excess-loss"), mean);
+    assert_eq!(one("#selection-audit #q90-excess-loss"), q90);
+    assert_eq!(one("#selection-audit #share-within-one-se"), within);
+    let terminal = report::terminal::render(&doc);
+    let line = terminal
+        .lines()
+        .find(|l| l.starts_with("selection:"))
+        .expect("terminal selection line");
+    for n in [&mean, &q90, &within] {
+        assert!(line.contains(n.as_str()), "{n} not in {line}");
+    }
+    let body: String = page.root_element().text().collect();
+    assert!(body.contains(line.trim_start_matches("selection: ")));
+    // Without an audit there is no such section.
+    let (_, _, plain) = run(TINY);
+    let text = html::render(
+        &plain,
+        View::Domingos,
+        &Pictures::default(),
+        None,
+        "wall time",
+    );
+    assert!(!text.contains("selection-audit"));
+}
+
+/// The values within one standard error are named with the knob ("max_depth = 2 and 3 are
+/// within one standard error"), never as bare numbers.
+#[test]
+fn reading_names_the_values_within_one_standard_error() {
+    assert_eq!(
+        report::within_words("max_depth", &["6".into()]),
+        "max_depth = 6 is within one standard error"
+    );
+    assert_eq!(
+        report::within_words("k", &["5".into(), "8".into(), "12".into()]),
+        "k = 5, 8 and 12 are within one standard error"
+    );
+    let (_, _, doc) = run(TINY);
+    let others: Vec<String> = doc
+        .best
+        .within_one_se
+        .iter()
+        .filter(|v| **v != doc.best.value)
+        .map(|v| lossprism::fmt::fmt_value(*v))
+        .collect();
+    assert!(!others.is_empty(), "the fixture has values within one SE");
+    let want = format!("({} of it).", report::within_words("max_depth", &others));
+    assert!(doc.reading.ends_with(&want), "{}", doc.reading);
+    assert!(!doc.reading.contains("(2, 3 within"), "{}", doc.reading);
+}
+
+/// The report's rule ("clear beyond about two standard errors of the difference") and its
+/// conclusion agree: the choice is called clear exactly when every neighbour of the best is more
+/// than two standard errors of the difference worse.
+#[test]
+fn reading_calls_the_choice_clear_only_beyond_two_standard_errors() {
+    let mut seen = (0, 0);
+    for seed in 1..=6 {
+        for src in [TINY, TINY_LOG, TINY_CLASSES] {
+            let src = src.replacen("seed = ", &format!("seed = {seed}"), 1);
+            let (_, _, doc) = run(&src);
+            let words = html::reading_words(&doc);
+            let all = words.join(" ");
+            let Some(near) = words
+                .iter()
+                .find(|w| w.starts_with("Next to the best value"))
+            else {
+                continue;
+            };
+            // The ratios quoted, "(1.2 standard errors of the difference)".
+            let ratios: Vec<f64> = near
+                .split(" standard errors of the difference)")
+                .filter_map(|part| part.rsplit('(').next()?.parse().ok())
+                .collect();
+            let neighbours = near.matches(" is higher by ").count();
+            let clear = all.contains("is clear at this number of replicates");
+            let unclear = all.contains("is not clear at this number of replicates");
+            assert!(clear != unclear, "one conclusion: {all}");
+            // A neighbour without a ratio (equal losses, no spread) is never clearly worse.
+            assert_eq!(
+                clear,
+                ratios.len() == neighbours && ratios.iter().all(|z| *z > 2.0),
+                "{all}"
+            );
+            if clear {
+                seen.0 += 1;
+            } else {
+                seen.1 += 1;
+            }
+            assert!(
+                near.contains("two standard errors of the difference"),
+                "{near}"
+            );
+        }
+    }
+    assert!(
+        seen.0 > 0 && seen.1 > 0,
+        "both conclusions exercised: {seen:?}"
+    );
+}
+
+/// The default 0-1 table fits in 100 columns, says what it left out, and `--decomposition all`
+/// still shows every term.
+#[test]
+fn zero_one_default_table_fits_100_columns() {
+    let wide = |table: &str| -> usize {
+        table
+            .lines()
+            .skip_while(|l| !l.is_empty())
+            .skip(1)
+            .take_while(|l| !l.is_empty())
+            .map(|l| l.chars().count())
+            .max()
+            .unwrap_or(0)
+    };
+    let shipped = scenario::load(
+        &common::repo().join("scenarios/seed-sorter-flip.toml"),
+        &PlanOptions {
+            replicates: Some(20),
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    let out = runner::run(&shipped, 1).unwrap();
+    let flip = report::build(&shipped, &out);
+    let (_, _, tiny) = run(TINY_CLASSES);
+    for doc in [&flip, &tiny] {
+        let table = report::terminal::render_view(doc, View::Domingos);
+        assert!(wide(&table) <= report::terminal::WIDTH, "{table}");
+        assert!(wide(&table) > 40, "the table was found: {table}");
+        // The identity's terms stay: expected loss = c1·noise + bias + net variance.
+        let header = table.lines().find(|l| l.contains("expected loss")).unwrap();
+        for label in ["bias", "variance", "net variance", "c1·noise"] {
+            assert!(header.contains(label), "{label} missing: {header}");
+        }
+        let all = report::terminal::render_view(doc, View::All);
+        for t in doc.term_docs() {
+            assert!(all.contains(&t.label), "{} missing from all", t.label);
+        }
+        let fit = report::terminal::fit(doc, View::Domingos);
+        if !fit.hidden.is_empty() {
+            let note = table
+                .lines()
+                .find(|l| l.starts_with("not shown"))
+                .expect("a note");
+            for h in &fit.hidden {
+                assert!(note.contains(h.as_str()), "{note}");
+            }
+            assert!(note.contains("--decomposition all"));
+        }
+    }
+    // A squared-loss table that fits is left as it was.
+    let (_, _, sq) = run(TINY);
+    let fit = report::terminal::fit(&sq, View::Domingos);
+    assert!(fit.hidden.is_empty() && fit.gap == 3 && !fit.tight);
+}

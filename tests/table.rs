@@ -770,3 +770,105 @@ grid = [1, 5, 15]
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
     assert!(String::from_utf8_lossy(&o.stdout).contains("bias+noise"));
 }
+
+/// The `--points` CSV's `line` column counts file lines with the header as line 1, the same
+/// convention as error messages: a row dropped for a missing cell leaves a gap, and the line an
+/// error names is the line the points file gives for that row.
+#[test]
+fn points_csv_line_column_counts_file_lines_like_errors() {
+    let dir = tmp();
+    let mut csv = String::from("a,b,y\n");
+    for i in 0..40 {
+        let a = 0.5 + i as f64;
+        if i == 5 {
+            csv.push_str(&format!("{a},,1\n")); // line 7: dropped (missing cell)
+        } else {
+            csv.push_str(&format!("{a},{},{}\n", (i * 7) % 11, (i * 3) % 5));
+        }
+    }
+    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    let scen = TABLE_SCENARIO.replace("target = \"y\"", "target = \"y\"\nmissing = \"drop\"");
+    fs::write(dir.path().join("s.toml"), &scen).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml", "--points", "p.csv"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let file_lines: Vec<&str> = csv.lines().collect();
+    let points = fs::read_to_string(dir.path().join("p.csv")).unwrap();
+    let mut rows = points.lines();
+    let header: Vec<&str> = rows.next().unwrap().split(',').collect();
+    assert_eq!(&header[..3], &["value", "line", "a"]);
+    let mut seen = std::collections::BTreeSet::new();
+    for r in rows {
+        let cells: Vec<&str> = r.split(',').collect();
+        let line: usize = cells[1].parse().unwrap();
+        // File line `line` (1-based, header = 1) holds this row's input `a`.
+        let in_file = file_lines[line - 1].split(',').next().unwrap();
+        assert_eq!(
+            in_file.parse::<f64>().unwrap(),
+            cells[2].parse::<f64>().unwrap(),
+            "line {line}"
+        );
+        seen.insert(line);
+    }
+    assert_eq!(seen.first(), Some(&2), "the first data row is line 2");
+    assert!(!seen.contains(&7), "the dropped row (line 7) has no point");
+    assert_eq!(seen.len(), 39);
+    // The same row made unreadable (missing cells now refused): the error names line 8, the
+    // row's line in the points file.
+    let bad = csv
+        .replacen("5.5,,1", "5.5,1,1", 1)
+        .replacen("6.5,", "x6.5,", 1);
+    assert!(seen.contains(&8) && file_lines[7].starts_with("6.5,"));
+    fs::write(dir.path().join("d.csv"), bad).unwrap();
+    fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("d.csv:8"), "{}", stderr(&o));
+}
+
+/// `run --assess` counts an assessment only when it prints it: outputs it would ignore and
+/// `--quiet` are refused before the ledger is touched.
+#[test]
+fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
+    let dir = tmp();
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    fs::create_dir(dir.path().join("data")).unwrap();
+    fs::copy(
+        root.join("scenarios/data/cold-store.csv"),
+        dir.path().join("data/cold-store.csv"),
+    )
+    .unwrap();
+    fs::copy(
+        root.join("scenarios/cold-store-table.toml"),
+        dir.path().join("c.toml"),
+    )
+    .unwrap();
+    let ledger = dir.path().join("c.holdout-ledger.json");
+    for (extra, flag) in [
+        (&["--out", "r.json"][..], "--out"),
+        (&["--plot-points", "p.svg"][..], "--plot-points"),
+        (&["--plot-selection", "s.svg"][..], "--plot-selection"),
+        (&["--report", "r.html"][..], "--report"),
+        (&["--quiet"][..], "--quiet"),
+    ] {
+        let mut args = vec!["run", "c.toml", "--assess", "4"];
+        args.extend_from_slice(extra);
+        let o = run_in(dir.path(), &args);
+        assert_eq!(o.status.code(), Some(2), "{flag}: {}", stderr(&o));
+        assert!(
+            stderr(&o).contains(&format!("drop {flag}")),
+            "{}",
+            stderr(&o)
+        );
+        assert!(!ledger.exists(), "{flag}: an assessment was counted");
+        assert_eq!(
+            fs::read_dir(dir.path()).unwrap().count(),
+            2,
+            "{flag}: a file was written"
+        );
+    }
+    // Without them it prints the loss and counts it once.
+    let o = run_in(dir.path(), &["run", "c.toml", "--assess", "4"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert!(String::from_utf8_lossy(&o.stdout).contains("assessment 1"));
+    assert!(ledger.exists());
+}

@@ -665,12 +665,21 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
         ("--csv", &args.csv),
         ("--points", &args.points),
         ("--plot", &args.plot),
+        ("--plot-points", &args.plot_points),
+        ("--plot-selection", &args.plot_selection),
         ("--report", &args.report),
     ];
+    // Refused before the ledger counts anything: an assessment is never counted for a request
+    // that would be silently ignored.
     if let Some((flag, _)) = outputs.iter().find(|(_, p)| p.is_some()) {
         return Err(Error::Usage(format!(
             "--assess prints one holdout loss and writes no result; drop {flag}"
         )));
+    }
+    if args.quiet {
+        return Err(Error::Usage(
+            "--assess prints the holdout loss it counts in the ledger; drop --quiet".into(),
+        ));
     }
     let ledger = assess::ledger_path(path);
     let a = assess::assess(plan, value, &ledger)?;

@@ -5,7 +5,7 @@
 use std::fmt::Write as _;
 
 use super::terminal::{self, View};
-use super::{PointRow, ResultDoc};
+use super::ResultDoc;
 use crate::fmt::{fmt_num, fmt_se, fmt_value};
 
 /// The pictures of a report, as SVG text (from [`super::plot`]).
@@ -302,36 +302,103 @@ pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
     };
     let best = &pts[bi];
     let se_b = doc.best.stderr;
-    let gap = |p: &PointRow| -> String {
+    // The standard error of a difference from the best: paired over the replicate blocks when
+    // the document carries the leave-one-block-out values (both values were fitted on the same
+    // training sets), otherwise as if the two were independent.
+    let paired = |i: usize| -> Option<f64> {
+        let u = doc.uncertainty.as_ref()?;
+        if u.rows.len() != pts.len() {
+            return None;
+        }
+        let blocks = usize::try_from(u.blocks).ok()?;
+        let a = u.rows[i].leave_out_of("expected_loss", blocks)?;
+        let b = u.rows[bi].leave_out_of("expected_loss", blocks)?;
+        let d: Vec<f64> = a.iter().zip(&b).map(|(x, y)| x - y).collect();
+        let se = crate::decompose::jackknife_se(&d);
+        se.is_finite().then_some(se)
+    };
+    let mut any_unpaired = false;
+    // (sentence, how many standard errors of the difference, if known)
+    let mut gap = |i: usize| -> (String, Option<f64>) {
+        let p = &pts[i];
         let d = p.expected_loss() - best.expected_loss();
-        match (se_b, p.se("expected_loss")) {
-            (Some(a), Some(b)) if a > 0.0 || b > 0.0 => format!(
-                "{knob} = {} is higher by {} ({:.1} standard errors of the difference)",
-                fmt_value(p.value),
-                fmt_num(d),
-                d / (a * a + b * b).sqrt()
-            ),
-            _ => format!(
-                "{knob} = {} is higher by {}",
-                fmt_value(p.value),
-                fmt_num(d)
+        let se = paired(i).or_else(|| match (se_b, p.se("expected_loss")) {
+            (Some(a), Some(b)) if a > 0.0 || b > 0.0 => {
+                any_unpaired = true;
+                Some((a * a + b * b).sqrt())
+            }
+            _ => None,
+        });
+        match se {
+            Some(se) if se > 0.0 => {
+                let z = d / se;
+                (
+                    format!(
+                        "{knob} = {} is higher by {} ({z:.1} standard errors of the difference)",
+                        fmt_value(p.value),
+                        fmt_num(d)
+                    ),
+                    Some(z),
+                )
+            }
+            _ => (
+                format!(
+                    "{knob} = {} is higher by {}",
+                    fmt_value(p.value),
+                    fmt_num(d)
+                ),
+                None,
             ),
         }
     };
-    let mut near: Vec<String> = Vec::new();
-    if bi > 0 {
-        near.push(gap(&pts[bi - 1]));
-    }
-    if bi + 1 < pts.len() {
-        near.push(gap(&pts[bi + 1]));
+    let mut near: Vec<(String, Option<f64>, f64)> = Vec::new();
+    for i in [bi.checked_sub(1), Some(bi + 1).filter(|&j| j < pts.len())]
+        .into_iter()
+        .flatten()
+    {
+        let (words, z) = gap(i);
+        near.push((words, z, pts[i].value));
     }
     if !near.is_empty() {
+        let words: Vec<&str> = near.iter().map(|n| n.0.as_str()).collect();
         out.push(format!(
-            "Next to the best value, {}. Differences count as clear beyond about two standard \
-             errors; the standard errors of neighbouring values are positively correlated (they \
-             share training sets), so these ratios understate how clear the differences are.",
-            near.join(" and ")
+            "Next to the best value, {}. A difference counts as clear beyond about two standard \
+             errors of the difference{}.",
+            words.join(" and "),
+            if any_unpaired {
+                " (these treat the two values as independent; they share training sets, so the \
+                 ratios understate how clear the differences are)"
+            } else {
+                " (paired over the replicate blocks: both values were fitted on the same \
+                 training sets)"
+            }
         ));
+        let unclear: Vec<String> = near
+            .iter()
+            .filter(|n| !matches!(n.1, Some(z) if z > 2.0))
+            .map(|n| fmt_value(n.2))
+            .collect();
+        out.push(if unclear.is_empty() {
+            format!(
+                "{} more than two standard errors of the difference worse: the choice \
+                 {knob} = {} is clear at this number of replicates.",
+                if near.len() == 1 {
+                    "The neighbour is"
+                } else {
+                    "Both neighbours are"
+                },
+                fmt_value(doc.best.value)
+            )
+        } else {
+            format!(
+                "{knob} = {} {} not clearly worse (two standard errors or less): the choice of \
+                 {knob} = {} is not clear at this number of replicates; more replicates would \
+                 settle it.",
+                unclear.join(" and "),
+                if unclear.len() == 1 { "is" } else { "are" },
+                fmt_value(doc.best.value)
+            )
+        });
     }
     let others: Vec<String> = doc
         .best
@@ -340,22 +407,15 @@ pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
         .filter(|v| **v != doc.best.value)
         .map(|v| fmt_value(*v))
         .collect();
-    out.push(if others.is_empty() {
-        format!(
-            "No other {knob} comes within one standard error of the lowest expected loss: the \
-             choice {knob} = {} is clear at this number of replicates.",
+    if !others.is_empty() {
+        out.push(format!(
+            "{} of the lowest expected loss: with these replicates the data cannot tell {} apart \
+             from the best ({knob} = {}); the simplest of them is a safe pick.",
+            super::within_words(knob, &others),
+            if others.len() == 1 { "it" } else { "them" },
             fmt_value(doc.best.value)
-        )
-    } else {
-        format!(
-            "{knob} = {} {} within one standard error of the lowest expected loss: with these \
-             replicates the data cannot tell {} apart from the best; the simplest of them is a \
-             safe pick.",
-            others.join(", "),
-            if others.len() == 1 { "is" } else { "are" },
-            if others.len() == 1 { "it" } else { "them" }
-        )
-    });
+        ));
+    }
     if pts.len() > 1 && (bi == 0 || bi == pts.len() - 1) {
         out.push(format!(
             "The lowest expected loss lies at the {} end of the grid: the true best {knob} may \
@@ -456,21 +516,69 @@ pub fn render(
             h,
             "<h2>Underfitting and overfitting as shapes</h2>\n<figure>{}<figcaption>The truth \
              and the mean prediction at the smallest, the best and the largest {} with ±1 \
-             prediction standard deviation; dots are one replicate's training set. A mean curve \
-             that misses the truth is bias; a wide band is variance.</figcaption></figure>",
+             prediction standard deviation (a band, or a bar at each value of an input with few \
+             values); dots are one replicate's training set. A mean that misses the truth is \
+             bias; a wide band or long bar is variance.</figcaption></figure>",
             inline_svg(svg, "per-point view of truth and mean predictions"),
             e(&doc.knob)
         );
     }
+    if pictures.selection.is_some() || doc.selection.is_some() {
+        h.push_str("<h2>What cross-validation would pick</h2>\n");
+    }
     if let Some(svg) = &pictures.selection {
         let _ = writeln!(
             h,
-            "<h2>What cross-validation would pick</h2>\n<figure>{}<figcaption>How often \
-             cross-validation chose each {}; the dark bar is the value with the lowest expected \
-             loss.</figcaption></figure>",
+            "<figure>{}<figcaption>How often cross-validation chose each {}; the dark bar is \
+             the value with the lowest expected loss.</figcaption></figure>",
             inline_svg(svg, "histogram of the value chosen by cross-validation"),
             e(&doc.knob)
         );
+    }
+    if let Some(sel) = &doc.selection {
+        // The same numbers as the terminal's `selection:` line.
+        let _ = writeln!(
+            h,
+            "<p>{}</p>",
+            e(&super::selection::sentence(
+                sel,
+                &doc.knob,
+                &doc.scenario.grid
+            ))
+        );
+        h.push_str("<dl class=\"facts\" id=\"selection-audit\">\n");
+        let pct = |v: f64| {
+            if v.is_finite() {
+                format!("{:.0}%", 100.0 * v)
+            } else {
+                "n/a".into()
+            }
+        };
+        for (id, k, v) in [
+            (
+                "mean-excess-loss",
+                "mean excess loss over the oracle",
+                fmt_num(sel.mean_excess_loss),
+            ),
+            (
+                "q90-excess-loss",
+                "90% quantile of the excess loss",
+                fmt_num(sel.q90_excess_loss),
+            ),
+            (
+                "share-within-one-se",
+                "choices within one standard error of the oracle",
+                pct(sel.share_within_one_se),
+            ),
+            (
+                "share-oracle",
+                "choices of the oracle value itself",
+                pct(sel.share_oracle),
+            ),
+        ] {
+            let _ = writeln!(h, "<dt>{}</dt><dd id=\"{id}\">{}</dd>", e(k), e(&v));
+        }
+        h.push_str("</dl>\n");
     }
 
     for (heading, caption, svg) in &pictures.extra {

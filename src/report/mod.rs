@@ -1539,12 +1539,23 @@ pub fn reading(
     if others.is_empty() {
         out.push('.');
     } else {
-        out.push_str(&format!(
-            " ({} within one standard error).",
-            others.join(", ")
-        ));
+        out.push_str(&format!(" ({} of it).", within_words(knob, &others)));
     }
     out
+}
+
+/// Names the grid values within one standard error of the best without ambiguity:
+/// "max_depth = 6 is within one standard error", "max_depth = 5 and 6 are within …".
+pub fn within_words(knob: &str, others: &[String]) -> String {
+    let list = match others {
+        [] => return String::new(),
+        [one] => one.clone(),
+        [init @ .., last] => format!("{} and {last}", init.join(", ")),
+    };
+    format!(
+        "{knob} = {list} {} within one standard error",
+        if others.len() == 1 { "is" } else { "are" }
+    )
 }
 
 /// What the variance is made of and what averaging saves, when the loss reports those terms:

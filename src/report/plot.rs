@@ -875,7 +875,15 @@ pub struct PointView {
     pub train_x: Vec<f64>,
     /// Replicate 0's training responses.
     pub train_y: Vec<f64>,
+    /// The input takes at most [`DISCRETE_LEVELS`] distinct values (a 0/1 or one-hot column, a
+    /// count with few levels): `x` holds the levels, and the picture draws a marker with a ±1 sd
+    /// bar per level and curve (side by side) instead of lines and bands.
+    pub discrete: bool,
 }
+
+/// An input with at most this many distinct values among the evaluation points is drawn as
+/// points at its levels, not as a continuous line.
+pub const DISCRETE_LEVELS: usize = 10;
 
 /// The column of the input on the x axis of the per-point view; several inputs need a name.
 fn input_column(names: &[String], input: Option<&str>) -> Result<usize, Error> {
@@ -973,7 +981,16 @@ pub fn point_view(
     // of the chosen input otherwise.
     let mut order: Vec<usize> = (0..m).filter(|&e| ex[e].is_finite()).collect();
     order.sort_by(|&a, &b| ex[a].total_cmp(&ex[b]));
-    let groups: Vec<Vec<usize>> = if names.len() == 1 {
+    let mut levels: Vec<f64> = order.iter().map(|&e| ex[e]).collect();
+    levels.dedup();
+    let discrete = levels.len() <= DISCRETE_LEVELS;
+    let groups: Vec<Vec<usize>> = if discrete {
+        // One group per level (the other inputs, if any, averaged over within it).
+        levels
+            .iter()
+            .map(|&l| order.iter().copied().filter(|&e| ex[e] == l).collect())
+            .collect()
+    } else if names.len() == 1 {
         order.iter().map(|&e| vec![e]).collect()
     } else {
         let bins = (m / 25).clamp(5, 30);
@@ -1033,6 +1050,7 @@ pub fn point_view(
         curves,
         train_x: tx.column(col).to_vec(),
         train_y: ty.to_vec(),
+        discrete,
     })
 }
 
@@ -1044,7 +1062,24 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             "the per-point view has nothing to draw".into(),
         ));
     }
-    let (x0, x1) = padded(v.x.iter().chain(&v.train_x).copied(), &[], 0.02);
+    // A discrete input: the levels' smallest gap sets the room around each level, where the
+    // curves' markers stand side by side.
+    let gap =
+        v.x.windows(2)
+            .map(|w| w[1] - w[0])
+            .filter(|d| *d > 0.0)
+            .fold(f64::INFINITY, f64::min);
+    let gap = if gap.is_finite() { gap } else { 1.0 };
+    let (x0, x1) = if v.discrete {
+        let lo = v.x.iter().copied().fold(f64::INFINITY, f64::min);
+        let hi = v.x.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+        (lo - 0.5 * gap, hi + 0.5 * gap)
+    } else {
+        padded(v.x.iter().chain(&v.train_x).copied(), &[], 0.02)
+    };
+    let n_curves = v.curves.len() as f64;
+    // Horizontal offset of curve `i` at a level (discrete input).
+    let shift = |i: usize| (i as f64 - (n_curves - 1.0) / 2.0) * 0.12 * gap;
     let ys = v
         .truth
         .iter()
@@ -1111,6 +1146,7 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .configure_mesh()
             .light_line_style(RGBColor(0xf3, 0xf3, 0xf3))
             .bold_line_style(RGBColor(0xd8, 0xd8, 0xd8))
+            .x_labels(if v.discrete { 0 } else { 10 })
             .x_label_formatter(&|x: &f64| fmt_value(*x))
             .y_label_formatter(&|y: &f64| fmt_value(*y))
             .x_desc(v.input.clone())
@@ -1119,58 +1155,135 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .label_style((FONT, 13))
             .draw()
             .map_err(draw_err)?;
+        if v.discrete {
+            // The levels are the only x labels, each with a faint guide line.
+            let label =
+                (FONT, 13)
+                    .into_font()
+                    .color(&INK)
+                    .pos(plotters::style::text_anchor::Pos::new(
+                        plotters::style::text_anchor::HPos::Center,
+                        plotters::style::text_anchor::VPos::Top,
+                    ));
+            for &l in &v.x {
+                chart
+                    .draw_series(std::iter::once(PathElement::new(
+                        vec![(l, y0), (l, y1)],
+                        RGBColor(0xd8, 0xd8, 0xd8).stroke_width(1),
+                    )))
+                    .map_err(draw_err)?;
+                let (px, py) = chart.backend_coord(&(l, y0));
+                root.draw(&Text::new(fmt_value(l), (px, py + 8), label.clone()))
+                    .map_err(draw_err)?;
+            }
+        }
+        // Training points; at a discrete input spread sideways (a fixed pattern, not random)
+        // so that equal inputs do not pile up into one dot.
         chart
             .draw_series(
                 v.train_x
                     .iter()
                     .zip(&v.train_y)
-                    .filter(|(x, y)| x.is_finite() && y.is_finite())
-                    .map(|(x, y)| Circle::new((*x, *y), 2, STONE.mix(0.55).filled())),
+                    .enumerate()
+                    .filter(|(_, (x, y))| x.is_finite() && y.is_finite())
+                    .map(|(i, (x, y))| {
+                        let jitter = if v.discrete {
+                            ((i * 7919) % 61) as f64 / 60.0 - 0.5
+                        } else {
+                            0.0
+                        };
+                        Circle::new((*x + 0.44 * gap * jitter, *y), 2, STONE.mix(0.45).filled())
+                    }),
             )
             .map_err(draw_err)?;
-        for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
-            let lo: Vec<f64> = c.mean.iter().zip(&c.sd).map(|(m, s)| m - s).collect();
-            let hi: Vec<f64> = c.mean.iter().zip(&c.sd).map(|(m, s)| m + s).collect();
-            let poly = band(&v.x, &lo, &hi);
-            if poly.len() >= 3 {
+        if v.discrete {
+            // Truth: a wide bar at each level; each curve: its marker and a ±1 sd bar, side by
+            // side so that equal means stay visible.
+            for (&x, &t) in v.x.iter().zip(&v.truth) {
                 chart
-                    .draw_series(std::iter::once(Polygon::new(
-                        poly,
-                        look.color.mix(0.16).filled(),
+                    .draw_series(std::iter::once(PathElement::new(
+                        vec![(x - 0.3 * gap, t), (x + 0.3 * gap, t)],
+                        style(&truth_look),
                     )))
                     .map_err(draw_err)?;
             }
-        }
-        let tpts: Vec<(f64, f64)> = v.x.iter().copied().zip(v.truth.iter().copied()).collect();
-        chart
-            .draw_series(LineSeries::new(tpts, style(&truth_look)))
-            .map_err(draw_err)?;
-        for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
-            let pts: Vec<(f64, f64)> =
-                v.x.iter()
-                    .zip(&c.mean)
-                    .filter(|(x, y)| x.is_finite() && y.is_finite())
-                    .map(|(x, y)| (*x, *y))
-                    .collect();
-            match look.dash {
-                Dash::Solid => chart
-                    .draw_series(LineSeries::new(pts.clone(), style(look)))
-                    .map_err(draw_err)?,
-                Dash::Dashed(on, off) => chart
-                    .draw_series(DashedLineSeries::new(
-                        pts.clone(),
-                        on as i32,
-                        off as i32,
-                        style(look),
-                    ))
-                    .map_err(draw_err)?,
-            };
-            // A few markers along the curve so the styles stay apart in print.
-            let step = (pts.len() / 8).max(1);
-            let offset = step / 2;
-            for &(x, y) in pts.iter().skip(offset).step_by(step) {
-                let (px, py) = chart.backend_coord(&(x, y));
-                marker_at(&root, look.marker, look.color, (px, py))?;
+            for (i, (c, look)) in v.curves.iter().zip(curve_looks.iter().cycle()).enumerate() {
+                for ((&x, &m), &sd) in v.x.iter().zip(&c.mean).zip(&c.sd) {
+                    if !(x.is_finite() && m.is_finite()) {
+                        continue;
+                    }
+                    let xs = x + shift(i);
+                    if sd.is_finite() && sd > 0.0 {
+                        let (px, top) = chart.backend_coord(&(xs, m + sd));
+                        let (_, bottom) = chart.backend_coord(&(xs, m - sd));
+                        let st = look.color.stroke_width(2);
+                        for seg in [
+                            vec![(px, top), (px, bottom)],
+                            vec![(px - 5, top), (px + 5, top)],
+                            vec![(px - 5, bottom), (px + 5, bottom)],
+                        ] {
+                            root.draw(&PathElement::new(seg, st)).map_err(draw_err)?;
+                        }
+                    }
+                    let (px, py) = chart.backend_coord(&(xs, m));
+                    marker_at(&root, look.marker, look.color, (px, py))?;
+                }
+            }
+        } else {
+            for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
+                let lo: Vec<f64> = c.mean.iter().zip(&c.sd).map(|(m, s)| m - s).collect();
+                let hi: Vec<f64> = c.mean.iter().zip(&c.sd).map(|(m, s)| m + s).collect();
+                let poly = band(&v.x, &lo, &hi);
+                if poly.len() >= 3 {
+                    chart
+                        .draw_series(std::iter::once(Polygon::new(
+                            poly,
+                            look.color.mix(0.16).filled(),
+                        )))
+                        .map_err(draw_err)?;
+                }
+            }
+            let tpts: Vec<(f64, f64)> = v.x.iter().copied().zip(v.truth.iter().copied()).collect();
+            chart
+                .draw_series(LineSeries::new(tpts, style(&truth_look)))
+                .map_err(draw_err)?;
+            // The widest line first, so that thinner dashed lines on top stay visible where
+            // curves coincide; markers staggered along x so that they do not cover each other.
+            let mut drawing: Vec<(usize, &PointCurve, &Look)> = v
+                .curves
+                .iter()
+                .zip(curve_looks.iter().cycle())
+                .enumerate()
+                .map(|(i, (c, l))| (i, c, l))
+                .collect();
+            drawing.sort_by_key(|(i, _, l)| (std::cmp::Reverse(l.width), *i));
+            for &(i, c, look) in &drawing {
+                let pts: Vec<(f64, f64)> =
+                    v.x.iter()
+                        .zip(&c.mean)
+                        .filter(|(x, y)| x.is_finite() && y.is_finite())
+                        .map(|(x, y)| (*x, *y))
+                        .collect();
+                match look.dash {
+                    Dash::Solid => chart
+                        .draw_series(LineSeries::new(pts.clone(), style(look)))
+                        .map_err(draw_err)?,
+                    Dash::Dashed(on, off) => chart
+                        .draw_series(DashedLineSeries::new(
+                            pts.clone(),
+                            on as i32,
+                            off as i32,
+                            style(look),
+                        ))
+                        .map_err(draw_err)?,
+                };
+                // A few markers along the curve so the styles stay apart in print.
+                let step = (pts.len() / 8).max(1);
+                let offset = step * (i + 1) / (v.curves.len() + 1);
+                for &(x, y) in pts.iter().skip(offset).step_by(step) {
+                    let (px, py) = chart.backend_coord(&(x, y));
+                    marker_at(&root, look.marker, look.color, (px, py))?;
+                }
             }
         }
         let mut y = 16;
@@ -1178,7 +1291,15 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
         sample_line(&panel, &truth_look, 10, 58, y + 7)?;
         y = panel_text(&panel, "truth f", (68, y), 14, INK, 27)?.max(y + 22) + 6;
         for (c, look) in v.curves.iter().zip(curve_looks.iter().cycle()) {
-            sample_line(&panel, look, 10, 58, y + 7)?;
+            if v.discrete {
+                let st = look.color.stroke_width(2);
+                panel
+                    .draw(&PathElement::new(vec![(34, y - 3), (34, y + 17)], st))
+                    .map_err(draw_err)?;
+                marker_at(&panel, look.marker, look.color, (34, y + 7))?;
+            } else {
+                sample_line(&panel, look, 10, 58, y + 7)?;
+            }
             let label = format!(
                 "mean prediction, {} = {} ({})",
                 v.knob,
@@ -1192,15 +1313,27 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .map_err(draw_err)?;
         y = panel_text(&panel, "training set of replicate 0", (68, y), 14, INK, 24)?.max(y + 22)
             + 10;
-        let mut note = String::from(
-            "Bands: ±1 standard deviation of the prediction across replicates. A mean curve \
-             that misses the truth is bias (underfitting); a wide band is variance \
-             (overfitting).",
-        );
+        let mut note = if v.discrete {
+            format!(
+                "{} takes {} values: at each, the truth (bar) and each mean prediction (marker, \
+                 side by side) with ±1 standard deviation of the prediction across replicates. \
+                 A mean that misses the truth is bias (underfitting); a long bar is variance \
+                 (overfitting).",
+                v.input,
+                v.x.len()
+            )
+        } else {
+            String::from(
+                "Bands: ±1 standard deviation of the prediction across replicates. A mean curve \
+                 that misses the truth is bias (underfitting); a wide band is variance \
+                 (overfitting).",
+            )
+        };
         if !v.averaged_over.is_empty() {
             note.push_str(&format!(
-                " Averaged over {} within bins of {}.",
+                " Averaged over {} within {} of {}.",
                 v.averaged_over.join(", "),
+                if v.discrete { "each value" } else { "bins" },
                 v.input
             ));
         }

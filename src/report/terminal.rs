@@ -57,12 +57,84 @@ pub fn shown_terms(doc: &ResultDoc, view: View) -> Vec<TermDoc> {
     out
 }
 
-fn cell(p: &PointRow, t: &TermDoc) -> String {
+/// How the table of a view is laid out: the terms shown, the labels left out, the spaces
+/// between columns and whether `±` is written without spaces around it.
+#[derive(Debug, Clone)]
+pub struct Fit {
+    /// The terms shown, in order.
+    pub terms: Vec<TermDoc>,
+    /// Labels of the view's terms left out to fit [`WIDTH`] (`--decomposition all` shows them).
+    pub hidden: Vec<String>,
+    /// Spaces between columns.
+    pub gap: usize,
+    /// `0.1 ±0.01` instead of `0.1 ± 0.01`.
+    pub tight: bool,
+}
+
+/// The default view fitted to [`WIDTH`]: when its table would be wider, the direct check goes
+/// first, then a noise shown without a standard error (a constant column), then the gaps narrow
+/// from three spaces to two, then `±` loses the space after it. Other views are never trimmed.
+pub fn fit(doc: &ResultDoc, view: View) -> Fit {
+    let mut f = Fit {
+        terms: shown_terms(doc, view),
+        hidden: Vec::new(),
+        gap: 3,
+        tight: false,
+    };
+    if view != View::Domingos {
+        return f;
+    }
+    let width = |f: &Fit| -> usize {
+        let mut header: Vec<String> = vec![doc.knob.clone()];
+        header.extend(f.terms.iter().map(|t| t.label.clone()));
+        let rows: Vec<Vec<String>> = doc
+            .points
+            .iter()
+            .map(|p| {
+                let mut r = vec![format!("{} *", fmt_value(p.value))];
+                r.extend(f.terms.iter().map(|t| cell(p, t, f.tight)));
+                r
+            })
+            .collect();
+        layout_gap(&header, &rows, f.gap)
+            .lines()
+            .map(|l| l.chars().count())
+            .max()
+            .unwrap_or(0)
+    };
+    let droppable: [fn(&TermDoc) -> bool; 2] =
+        [|t| t.role == "direct", |t| t.role == "noise" && !t.stderr];
+    for drop in droppable {
+        if width(&f) <= WIDTH {
+            return f;
+        }
+        if f.terms.iter().all(drop) {
+            continue;
+        }
+        f.hidden
+            .extend(f.terms.iter().filter(|t| drop(t)).map(|t| t.label.clone()));
+        f.terms.retain(|t| !drop(t));
+    }
+    if width(&f) > WIDTH {
+        f.gap = 2;
+    }
+    if width(&f) > WIDTH {
+        f.tight = true;
+    }
+    f
+}
+
+fn cell(p: &PointRow, t: &TermDoc, tight: bool) -> String {
     if !p.has(&t.key) {
         return "n/a".into();
     }
     let se = if t.stderr { p.se(&t.key) } else { None };
-    with_se(p.get(&t.key), se)
+    let c = with_se(p.get(&t.key), se);
+    if tight {
+        c.replace("± ", "±")
+    } else {
+        c
+    }
 }
 
 fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
@@ -121,7 +193,7 @@ pub fn cells(doc: &ResultDoc, view: View) -> (Vec<String>, Vec<Vec<String>>, Str
         .iter()
         .map(|p| {
             let mut r = vec![fmt_value(p.value)];
-            r.extend(terms.iter().map(|t| cell(p, t)));
+            r.extend(terms.iter().map(|t| cell(p, t, false)));
             r
         })
         .collect();
@@ -133,8 +205,16 @@ pub fn render(doc: &ResultDoc) -> String {
     render_view(doc, View::Domingos)
 }
 
-/// Lays out header and rows in aligned columns.
+/// The widest the default view's table may be, in characters: it fits a 100-column terminal.
+pub const WIDTH: usize = 100;
+
+/// Lays out header and rows in aligned columns (three spaces between columns).
 fn layout(header: &[String], rows: &[Vec<String>]) -> String {
+    layout_gap(header, rows, 3)
+}
+
+/// Lays out header and rows in aligned columns, `gap` spaces between columns.
+fn layout_gap(header: &[String], rows: &[Vec<String>], gap: usize) -> String {
     let mut widths: Vec<usize> = header.iter().map(|h| h.chars().count()).collect();
     for r in rows {
         for (i, c) in r.iter().enumerate() {
@@ -145,7 +225,7 @@ fn layout(header: &[String], rows: &[Vec<String>]) -> String {
         let mut s = String::new();
         for (i, c) in cells.iter().enumerate() {
             let pad = widths[i] - c.chars().count();
-            s.push_str(&" ".repeat(pad + if i == 0 { 1 } else { 3 }));
+            s.push_str(&" ".repeat(pad + if i == 0 { 1 } else { gap }));
             s.push_str(c);
         }
         s.push('\n');
@@ -159,7 +239,8 @@ fn layout(header: &[String], rows: &[Vec<String>]) -> String {
 }
 
 /// The table of one curve (rows of one family at one size), the best row marked.
-fn curve_table(doc: &ResultDoc, terms: &[TermDoc], knob: &str, rows: &[PointRow]) -> String {
+fn curve_table(doc: &ResultDoc, f: &Fit, knob: &str, rows: &[PointRow]) -> String {
+    let terms = &f.terms;
     let best = rows
         .iter()
         .enumerate()
@@ -174,11 +255,11 @@ fn curve_table(doc: &ResultDoc, terms: &[TermDoc], knob: &str, rows: &[PointRow]
         .map(|(i, p)| {
             let mark = if Some(i) == best { " *" } else { "  " };
             let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
-            r.extend(terms.iter().map(|t| cell(p, t)));
+            r.extend(terms.iter().map(|t| cell(p, t, f.tight)));
             r
         })
         .collect();
-    layout(&header, &cells)
+    layout_gap(&header, &cells, f.gap)
 }
 
 /// Renders the table with the chosen view. A run with several models or training sizes gets
@@ -212,7 +293,8 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
         out.push('\n');
     }
     out.push('\n');
-    let terms = shown_terms(doc, view);
+    let f = fit(doc, view);
+    let terms = &f.terms;
     if !several {
         let rows: Vec<PointRow> = doc.points.clone();
         let mut header: Vec<String> = vec![doc.knob.clone()];
@@ -226,13 +308,13 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                     "  "
                 };
                 let mut r = vec![format!("{}{mark}", fmt_value(p.value))];
-                r.extend(terms.iter().map(|t| cell(p, t)));
+                r.extend(terms.iter().map(|t| cell(p, t, f.tight)));
                 r
             })
             .collect();
-        out.push_str(&layout(&header, &cells));
+        out.push_str(&layout_gap(&header, &cells, f.gap));
     } else {
-        for (i, f) in families.iter().enumerate() {
+        for (i, family) in families.iter().enumerate() {
             let knob = doc
                 .models
                 .get(i)
@@ -242,8 +324,8 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                 .last()
                 .map(|n| format!(" at {n} training rows"))
                 .unwrap_or_default();
-            out.push_str(&format!("{f}{size}:\n"));
-            out.push_str(&curve_table(doc, &terms, &knob, &doc.curve(f)));
+            out.push_str(&format!("{family}{size}:\n"));
+            out.push_str(&curve_table(doc, &f, &knob, &doc.curve(family)));
             out.push('\n');
         }
         let bias_label = terms
@@ -313,7 +395,13 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
     if !several {
         out.push('\n');
     }
-    out.push_str(&legend(doc, &terms));
+    if !f.hidden.is_empty() {
+        out.push_str(&format!(
+            "not shown to fit {WIDTH} columns: {} (every term: --decomposition all)\n",
+            f.hidden.join(", ")
+        ));
+    }
+    out.push_str(&legend(doc, terms));
     out.push_str(&format!("reading: {}\n", doc.reading));
     if let Some(sel) = &doc.selection {
         let sentence = super::selection::sentence(sel, &doc.knob, &doc.scenario.grid);
