@@ -286,6 +286,15 @@ pub trait Loss: Send + Sync {
     /// [`Loss::describe`]; NaN where a term cannot be computed.
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row>;
 
+    /// Per point, the first `terms` terms of `acc` at that point alone, written flat into `out`
+    /// (`points × grid × terms`, point-major): bit for bit what [`Loss::evaluate`] gives on the
+    /// accumulator restricted to each point, which is what the default computes. Called once per
+    /// delete-a-block fold of an all-points run, so a loss may override it with a direct
+    /// computation that allocates nothing per point.
+    fn per_point(&self, acc: &Acc, target: &Target<'_>, terms: usize, out: &mut Vec<f64>) {
+        per_point_generic(self, acc, target, terms, out);
+    }
+
     /// The loss of one prediction against an observed response (the selection audit's
     /// cross-validation loss): `value` is a real prediction or class index, `probs` the class
     /// probabilities when the loss uses them.
@@ -516,6 +525,7 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
     let mut leave_out: Vec<Vec<Row>> = Vec::with_capacity(nb);
     let mut noise = (nb >= 2 && total.shape.all_points && !target.observed())
         .then(|| PointNoise::new(total.shape.points, total.shape.grid, terms.len()));
+    let mut flat = Vec::new();
     if nb >= 2 {
         let mut prefix: Option<Acc> = None;
         for b in 0..nb {
@@ -529,7 +539,8 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
             let acc = acc.expect("at least one block remains");
             leave_out.push(loss.evaluate(&acc, target));
             if let Some(n) = &mut noise {
-                n.push(&per_point(loss, &acc, target));
+                loss.per_point(&acc, target, n.terms, &mut flat);
+                n.push(&flat);
             }
             match &mut prefix {
                 None => prefix = Some(blocks[b].clone()),
@@ -590,14 +601,17 @@ impl PointNoise {
         }
     }
 
-    /// Adds one fold's per-point terms (`points × grid × terms`).
-    fn push(&mut self, rows: &[Vec<Row>]) {
+    /// Adds one fold's per-point terms (flat, `points × grid × terms`, point-major).
+    fn push(&mut self, flat: &[f64]) {
         self.folds += 1;
+        let stride = self.grid * self.terms;
+        let points = if stride == 0 { 0 } else { flat.len() / stride };
+        let at = |e: usize, g: usize, t: usize| flat[e * stride + g * self.terms + t];
         for g in 0..self.grid {
             for t in 0..self.terms {
                 let (mut sum, mut k) = (0.0, 0u64);
-                for r in rows {
-                    let v = r[g][t];
+                for e in 0..points {
+                    let v = at(e, g, t);
                     if v.is_finite() {
                         sum += v;
                         k += 1;
@@ -607,8 +621,8 @@ impl PointNoise {
                     continue;
                 }
                 let centre = sum / k as f64;
-                for (e, r) in rows.iter().enumerate() {
-                    let v = r[g][t];
+                for e in 0..points {
+                    let v = at(e, g, t);
                     if !v.is_finite() {
                         continue;
                     }
@@ -652,30 +666,38 @@ impl PointNoise {
     }
 }
 
-/// Per point, the terms of `acc` at that point alone (`points × grid × terms`).
-fn per_point(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Vec<Row>> {
+/// [`Loss::per_point`] by definition: `evaluate` on the accumulator restricted to each point,
+/// flattened (`points × grid × terms`).
+pub fn per_point_generic<L: Loss + ?Sized>(
+    loss: &L,
+    acc: &Acc,
+    target: &Target<'_>,
+    terms: usize,
+    out: &mut Vec<f64>,
+) {
+    out.clear();
     let k = acc.shape.classes;
-    (0..acc.shape.points)
-        .map(|e| {
-            let one = one_point(acc, e);
-            let t = match target {
-                Target::Known {
-                    truth,
-                    noise_var,
-                    probs,
-                } => Target::Known {
-                    truth: &truth[e..e + 1],
-                    noise_var: &noise_var[e..e + 1],
-                    probs: probs.map(|p| &p[e * k..(e + 1) * k]),
-                },
-                Target::Observed { y, noise } => Target::Observed {
-                    y: &y[e..e + 1],
-                    noise: *noise,
-                },
-            };
-            loss.evaluate(&one, &t)
-        })
-        .collect()
+    for e in 0..acc.shape.points {
+        let one = one_point(acc, e);
+        let t = match target {
+            Target::Known {
+                truth,
+                noise_var,
+                probs,
+            } => Target::Known {
+                truth: &truth[e..e + 1],
+                noise_var: &noise_var[e..e + 1],
+                probs: probs.map(|p| &p[e * k..(e + 1) * k]),
+            },
+            Target::Observed { y, noise } => Target::Observed {
+                y: &y[e..e + 1],
+                noise: *noise,
+            },
+        };
+        for row in loss.evaluate(&one, &t) {
+            out.extend_from_slice(&row[..terms]);
+        }
+    }
 }
 
 /// The accumulator restricted to evaluation point `e` (every array laid out per cell keeps that
