@@ -580,12 +580,16 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
 /// fold's mean over points.
 struct PointNoise {
     folds: u64,
+    points: usize,
     grid: usize,
     terms: usize,
-    /// Per (point, grid, term): folds with a finite value.
-    n: Vec<u64>,
+    /// Per (grid, term, point), point fastest: folds with a finite value (whole numbers held as
+    /// `f64`, exact, so the running mean divides by them without a conversion).
+    n: Vec<f64>,
     mean: Vec<f64>,
     m2: Vec<f64>,
+    /// One (grid, term) column of a fold, gathered from the point-major fold.
+    col: Vec<f64>,
 }
 
 impl PointNoise {
@@ -593,61 +597,75 @@ impl PointNoise {
         let len = points * grid * terms;
         PointNoise {
             folds: 0,
+            points,
             grid,
             terms,
-            n: vec![0; len],
+            n: vec![0.0; len],
             mean: vec![0.0; len],
             m2: vec![0.0; len],
+            col: Vec::with_capacity(points),
         }
     }
 
     /// Adds one fold's per-point terms (flat, `points × grid × terms`, point-major).
     fn push(&mut self, flat: &[f64]) {
         self.folds += 1;
-        let stride = self.grid * self.terms;
-        let points = if stride == 0 { 0 } else { flat.len() / stride };
-        let at = |e: usize, g: usize, t: usize| flat[e * stride + g * self.terms + t];
-        for g in 0..self.grid {
-            for t in 0..self.terms {
-                let (mut sum, mut k) = (0.0, 0u64);
-                for e in 0..points {
-                    let v = at(e, g, t);
-                    if v.is_finite() {
-                        sum += v;
-                        k += 1;
-                    }
+        let PointNoise {
+            points,
+            grid,
+            terms,
+            n,
+            mean,
+            m2,
+            col,
+            ..
+        } = self;
+        let (points, stride) = (*points, *grid * *terms);
+        debug_assert_eq!(flat.len(), points * stride);
+        for o in 0..stride {
+            col.clear();
+            col.extend((0..points).map(|e| flat[e * stride + o]));
+            let (mut sum, mut k) = (0.0, 0u64);
+            for &v in col.iter() {
+                if v.is_finite() {
+                    sum += v;
+                    k += 1;
                 }
-                if k == 0 {
+            }
+            if k == 0 {
+                continue;
+            }
+            let centre = sum / k as f64;
+            let cells = o * points..(o + 1) * points;
+            let cells = n[cells.clone()]
+                .iter_mut()
+                .zip(&mut mean[cells.clone()])
+                .zip(&mut m2[cells]);
+            for (&v, ((n, mean), m2)) in col.iter().zip(cells) {
+                if !v.is_finite() {
                     continue;
                 }
-                let centre = sum / k as f64;
-                for e in 0..points {
-                    let v = at(e, g, t);
-                    if !v.is_finite() {
-                        continue;
-                    }
-                    let c = v - centre;
-                    let i = (e * self.grid + g) * self.terms + t;
-                    self.n[i] += 1;
-                    let d = c - self.mean[i];
-                    self.mean[i] += d / self.n[i] as f64;
-                    self.m2[i] += d * (c - self.mean[i]);
-                }
+                let c = v - centre;
+                *n += 1.0;
+                let d = c - *mean;
+                *mean += d / *n;
+                *m2 += d * (c - *mean);
             }
         }
     }
 
     fn finish(self) -> Vec<Row> {
         let b = self.folds as f64;
-        let points = self.n.len() / (self.grid * self.terms).max(1);
+        let folds = self.folds as f64;
+        let points = self.points;
         (0..self.grid)
             .map(|g| {
                 (0..self.terms)
                     .map(|t| {
                         let (mut sum, mut k) = (0.0, 0usize);
-                        for e in 0..points {
-                            let i = (e * self.grid + g) * self.terms + t;
-                            if self.n[i] == self.folds && self.folds >= 2 {
+                        let base = (g * self.terms + t) * points;
+                        for i in base..base + points {
+                            if self.n[i] == folds && self.folds >= 2 {
                                 // Delete-a-group jackknife variance (Efron and Tibshirani 1993,
                                 // eq. 11.5) of the point's centred term.
                                 sum += (b - 1.0) / b * self.m2[i];
