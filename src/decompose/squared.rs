@@ -87,7 +87,7 @@ pub struct SquaredPoint {
 }
 
 /// Terms at cell (g, e) against `truth` (f(x_e), or the observed y_e).
-#[inline]
+#[inline(always)]
 pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
     let sh = &acc.shape;
     let i = g * sh.points + e;
