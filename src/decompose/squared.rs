@@ -988,4 +988,52 @@ mod tests {
             "{a} {b}"
         );
     }
+
+    #[test]
+    fn per_point_equals_the_default_bit_for_bit() {
+        // The direct per-point terms must be exactly `evaluate` on each point alone, for every
+        // shape of the accumulator, including points with too few replicates (NaN rows).
+        for (fits, ensemble) in [(1, false), (2, false), (1, true), (2, true)] {
+            let (g, m) = (3, 5);
+            let mut s = 11u64;
+            let sh = Shape {
+                ensemble,
+                ..shape(g, m, fits)
+            };
+            let truth: Vec<f64> = (0..m).map(|e| e as f64 * 0.7 - 1.0).collect();
+            let noise_var: Vec<f64> = (0..m).map(|e| 0.25 + e as f64 * 0.1).collect();
+            let target = Target::Known {
+                truth: &truth,
+                noise_var: &noise_var,
+                probs: None,
+            };
+            let terms = Squared.describe(&sh, false).len();
+            let resp: Vec<f64> = (0..m).map(|e| e as f64 * 0.5).collect();
+            let mut acc = Acc::new(&Squared, sh);
+            for r in 0..7 {
+                let mut p = Array3::<f64>::zeros((fits, g, m));
+                p.iter_mut().for_each(|v| *v = lcg(&mut s) * 10.0 - 5.0);
+                let mut d = Array3::<f64>::zeros((fits, g, m));
+                d.iter_mut().for_each(|v| *v = lcg(&mut s));
+                let b = Batch {
+                    held: None,
+                    values: p.view(),
+                    probs: None,
+                    diversity: ensemble.then(|| d.view()),
+                    response: &resp,
+                };
+                acc.push(&Squared, &b);
+                if r == 0 || r == 6 {
+                    let (mut fast, mut slow) = (Vec::new(), Vec::new());
+                    Squared.per_point(&acc, &target, terms, &mut fast);
+                    crate::decompose::per_point_generic(&Squared, &acc, &target, terms, &mut slow);
+                    assert_eq!(fast.len(), m * g * terms);
+                    assert_eq!(fast.len(), slow.len());
+                    for (i, (a, b)) in fast.iter().zip(&slow).enumerate() {
+                        assert_eq!(a.to_bits(), b.to_bits(), "fits {fits}, ensemble {ensemble}, replicates {}, index {i}: {a} vs {b}", r + 1);
+                    }
+                }
+            }
+        }
+    }
 }
