@@ -3,8 +3,12 @@
 # (benches/compare/practitioner_loop.py: numpy + scikit-learn, one fit per replicate and grid
 # value) on the same workloads, same machine, same session: Friedman #1, n = 500, 10 inputs,
 # 1000 evaluation points, R = 200; tree depths 1..12 and k-NN k in 1,2,3,5,8,12,20,30,50.
+# Ensembles, R = 100 (benches/compare/friedman1-forest.toml, friedman1-boost.toml): a forest of
+# up to 100 trees and 200 boosting rounds of depth-3 trees, each fitted once per replicate on both
+# sides and read along the grid; timed in interleaved rounds (benches/compare/interleaved.py).
 #
 # Usage: benches/compare/run.sh [RUNS]   (default 3 timed runs per command, after one warm-up)
+#        WORKLOADS="forest boost" benches/compare/run.sh 3   (a subset; default: all four)
 # Needs: python3 with numpy and scikit-learn (`pip install numpy scikit-learn`); uses hyperfine
 # when installed (`apt-get install hyperfine`), plain timing otherwise. LOSSPRISM names the
 # binary (default: target/release/lossprism, built if missing). Results land in
@@ -31,7 +35,24 @@ echo "binary:  $LOSSPRISM ($("$LOSSPRISM" --version))"
 
 median_of() { sort -n | awk '{a[NR]=$1} END {print (NR%2 ? a[(NR+1)/2] : (a[NR/2]+a[NR/2+1])/2)}'; }
 
-for w in tree knn; do
+workloads="${WORKLOADS:-tree knn forest boost}"
+for w in $workloads; do
+    if [[ "$w" == forest || "$w" == boost ]]; then
+        echo
+        echo "== friedman1-$w, R = 100, $runs interleaved rounds"
+        python3 benches/compare/interleaved.py "$w" "benches/compare/friedman1-$w.toml" \
+            "$LOSSPRISM" "$runs" "$out"
+        python3 - "$out/lossprism-$w.json" "$out/python-$w.json" <<'PY'
+import json, sys
+a = json.load(open(sys.argv[1]))["points"]
+b = {p["value"]: p for p in json.load(open(sys.argv[2]))["points"]}
+print("  value   expected loss: lossprism ± se   python loop")
+for p in a:
+    q = b[int(p["value"])]
+    print(f"  {p['value']:>5g}   {p['expected_loss']:9.3f} ± {p['stderr']['expected_loss']:.3f}   {q['expected_loss']:9.3f}")
+PY
+        continue
+    fi
     scen="scenarios/friedman1-$w.toml"
     ours="$LOSSPRISM run $scen --quiet --out $out/lossprism-$w.json"
     ours1="$LOSSPRISM run $scen --quiet --threads 1 --out $out/lossprism-$w-1t.json"

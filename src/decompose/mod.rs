@@ -296,6 +296,15 @@ pub trait Loss: Send + Sync {
     /// [`Loss::describe`]; NaN where a term cannot be computed.
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row>;
 
+    /// Per point, the first `terms` terms of `acc` at that point alone, written flat into `out`
+    /// (`points × grid × terms`, point-major): bit for bit what [`Loss::evaluate`] gives on the
+    /// accumulator restricted to each point, which is what the default computes. Called once per
+    /// delete-a-block fold of an all-points run, so a loss may override it with a direct
+    /// computation that allocates nothing per point.
+    fn per_point(&self, acc: &Acc, target: &Target<'_>, terms: usize, out: &mut Vec<f64>) {
+        per_point_generic(self, acc, target, terms, out);
+    }
+
     /// The loss of one prediction against an observed response (the selection audit's
     /// cross-validation loss): `value` is a real prediction or class index, `probs` the class
     /// probabilities when the loss uses them.
@@ -575,6 +584,7 @@ pub fn summarize_with(
     let mut leave_out: Vec<Vec<Row>> = Vec::with_capacity(nb);
     let mut noise = (nb >= 2 && total.shape.all_points && !target.observed())
         .then(|| PointNoise::new(total.shape.points, total.shape.grid, terms.len()));
+    let mut flat = Vec::new();
     if nb >= 2 {
         let mut prefix: Option<Acc> = None;
         for b in 0..nb {
@@ -588,7 +598,8 @@ pub fn summarize_with(
             let acc = acc.expect("at least one block remains");
             leave_out.push(loss.evaluate(&acc, target));
             if let Some(n) = &mut noise {
-                n.push(&per_point(loss, &acc, target));
+                loss.per_point(&acc, target, n.terms, &mut flat);
+                n.push(&flat);
             }
             match &mut prefix {
                 None => prefix = Some(blocks[b].clone()),
@@ -654,12 +665,16 @@ pub fn summarize_with(
 /// fold's mean over points.
 struct PointNoise {
     folds: u64,
+    points: usize,
     grid: usize,
     terms: usize,
-    /// Per (point, grid, term): folds with a finite value.
-    n: Vec<u64>,
+    /// Per (grid, term, point), point fastest: folds with a finite value (whole numbers held as
+    /// `f64`, exact, so the running mean divides by them without a conversion).
+    n: Vec<f64>,
     mean: Vec<f64>,
     m2: Vec<f64>,
+    /// One (grid, term) column of a fold, gathered from the point-major fold.
+    col: Vec<f64>,
 }
 
 impl PointNoise {
@@ -667,58 +682,75 @@ impl PointNoise {
         let len = points * grid * terms;
         PointNoise {
             folds: 0,
+            points,
             grid,
             terms,
-            n: vec![0; len],
+            n: vec![0.0; len],
             mean: vec![0.0; len],
             m2: vec![0.0; len],
+            col: Vec::with_capacity(points),
         }
     }
 
-    /// Adds one fold's per-point terms (`points × grid × terms`).
-    fn push(&mut self, rows: &[Vec<Row>]) {
+    /// Adds one fold's per-point terms (flat, `points × grid × terms`, point-major).
+    fn push(&mut self, flat: &[f64]) {
         self.folds += 1;
-        for g in 0..self.grid {
-            for t in 0..self.terms {
-                let (mut sum, mut k) = (0.0, 0u64);
-                for r in rows {
-                    let v = r[g][t];
-                    if v.is_finite() {
-                        sum += v;
-                        k += 1;
-                    }
+        let PointNoise {
+            points,
+            grid,
+            terms,
+            n,
+            mean,
+            m2,
+            col,
+            ..
+        } = self;
+        let (points, stride) = (*points, *grid * *terms);
+        debug_assert_eq!(flat.len(), points * stride);
+        for o in 0..stride {
+            col.clear();
+            col.extend((0..points).map(|e| flat[e * stride + o]));
+            let (mut sum, mut k) = (0.0, 0u64);
+            for &v in col.iter() {
+                if v.is_finite() {
+                    sum += v;
+                    k += 1;
                 }
-                if k == 0 {
+            }
+            if k == 0 {
+                continue;
+            }
+            let centre = sum / k as f64;
+            let cells = o * points..(o + 1) * points;
+            let cells = n[cells.clone()]
+                .iter_mut()
+                .zip(&mut mean[cells.clone()])
+                .zip(&mut m2[cells]);
+            for (&v, ((n, mean), m2)) in col.iter().zip(cells) {
+                if !v.is_finite() {
                     continue;
                 }
-                let centre = sum / k as f64;
-                for (e, r) in rows.iter().enumerate() {
-                    let v = r[g][t];
-                    if !v.is_finite() {
-                        continue;
-                    }
-                    let c = v - centre;
-                    let i = (e * self.grid + g) * self.terms + t;
-                    self.n[i] += 1;
-                    let d = c - self.mean[i];
-                    self.mean[i] += d / self.n[i] as f64;
-                    self.m2[i] += d * (c - self.mean[i]);
-                }
+                let c = v - centre;
+                *n += 1.0;
+                let d = c - *mean;
+                *mean += d / *n;
+                *m2 += d * (c - *mean);
             }
         }
     }
 
     fn finish(self) -> Vec<Row> {
         let b = self.folds as f64;
-        let points = self.n.len() / (self.grid * self.terms).max(1);
+        let folds = self.folds as f64;
+        let points = self.points;
         (0..self.grid)
             .map(|g| {
                 (0..self.terms)
                     .map(|t| {
                         let (mut sum, mut k) = (0.0, 0usize);
-                        for e in 0..points {
-                            let i = (e * self.grid + g) * self.terms + t;
-                            if self.n[i] == self.folds && self.folds >= 2 {
+                        let base = (g * self.terms + t) * points;
+                        for i in base..base + points {
+                            if self.n[i] == folds && self.folds >= 2 {
                                 // Delete-a-group jackknife variance (Efron and Tibshirani 1993,
                                 // eq. 11.5) of the point's centred term.
                                 sum += (b - 1.0) / b * self.m2[i];
@@ -737,30 +769,38 @@ impl PointNoise {
     }
 }
 
-/// Per point, the terms of `acc` at that point alone (`points × grid × terms`).
-fn per_point(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Vec<Row>> {
+/// [`Loss::per_point`] by definition: `evaluate` on the accumulator restricted to each point,
+/// flattened (`points × grid × terms`).
+pub fn per_point_generic<L: Loss + ?Sized>(
+    loss: &L,
+    acc: &Acc,
+    target: &Target<'_>,
+    terms: usize,
+    out: &mut Vec<f64>,
+) {
+    out.clear();
     let k = acc.shape.classes;
-    (0..acc.shape.points)
-        .map(|e| {
-            let one = one_point(acc, e);
-            let t = match target {
-                Target::Known {
-                    truth,
-                    noise_var,
-                    probs,
-                } => Target::Known {
-                    truth: &truth[e..e + 1],
-                    noise_var: &noise_var[e..e + 1],
-                    probs: probs.map(|p| &p[e * k..(e + 1) * k]),
-                },
-                Target::Observed { y, noise } => Target::Observed {
-                    y: &y[e..e + 1],
-                    noise: *noise,
-                },
-            };
-            loss.evaluate(&one, &t)
-        })
-        .collect()
+    for e in 0..acc.shape.points {
+        let one = one_point(acc, e);
+        let t = match target {
+            Target::Known {
+                truth,
+                noise_var,
+                probs,
+            } => Target::Known {
+                truth: &truth[e..e + 1],
+                noise_var: &noise_var[e..e + 1],
+                probs: probs.map(|p| &p[e * k..(e + 1) * k]),
+            },
+            Target::Observed { y, noise } => Target::Observed {
+                y: &y[e..e + 1],
+                noise: *noise,
+            },
+        };
+        for row in loss.evaluate(&one, &t) {
+            out.extend_from_slice(&row[..terms]);
+        }
+    }
 }
 
 /// The accumulator restricted to evaluation point `e` (every array laid out per cell keeps that

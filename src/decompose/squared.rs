@@ -88,7 +88,7 @@ pub struct SquaredPoint {
 }
 
 /// Terms at cell (g, e) against `truth` (f(x_e), or the observed y_e).
-#[inline]
+#[inline(always)]
 pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
     let sh = &acc.shape;
     let i = g * sh.points + e;
@@ -549,6 +549,81 @@ impl Loss for Squared {
             .collect()
     }
 
+    /// Direct form of the default (`evaluate` on each point alone), for all-points runs against
+    /// a known truth: the same operations in the same order on the same numbers (a sum over one
+    /// point is `0.0 + term`, the average divides by 1), without building an accumulator per
+    /// point. Anything else takes the default.
+    fn per_point(&self, acc: &Acc, target: &Target<'_>, terms: usize, out: &mut Vec<f64>) {
+        let sh = acc.shape;
+        let Target::Known {
+            truth, noise_var, ..
+        } = target
+        else {
+            return super::per_point_generic(self, acc, target, terms, out);
+        };
+        let one = Shape { points: 1, ..sh };
+        let descr = self.describe(&one, false);
+        if !sh.all_points || descr.len() < terms {
+            return super::per_point_generic(self, acc, target, terms, out);
+        }
+        let idx = |k: &str| descr.iter().position(|t| t.key == k);
+        let (i_bpn, i_vd, i_vf, i_div, i_mv, i_ml) = (
+            idx("bias_sq_plus_noise"),
+            idx("variance_data"),
+            idx("variance_fit"),
+            idx("diversity"),
+            idx("member_variance"),
+            idx("member_loss"),
+        );
+        let u = one.points as f64;
+        let mut row = vec![f64::NAN; descr.len()];
+        out.clear();
+        out.reserve(sh.points * sh.grid * terms);
+        for e in 0..sh.points {
+            let r = acc.count[e];
+            let noise = noise_var[e..e + 1].iter().sum::<f64>() / u;
+            for g in 0..sh.grid {
+                row.iter_mut().for_each(|v| *v = f64::NAN);
+                if r >= 2 {
+                    let p = point(acc, g, e, truth[e]);
+                    let (b2, v, vd, vf, dv) = (
+                        0.0 + p.bias_sq,
+                        0.0 + p.variance,
+                        0.0 + p.variance_data,
+                        0.0 + p.variance_fit,
+                        0.0 + p.diversity,
+                    );
+                    let (b2, v) = (b2 / u, v / u);
+                    let direct = acc.floats[DIRECT][g] / acc.replicates as f64;
+                    let el = noise + b2 + v;
+                    row[0] = el;
+                    row[1] = b2;
+                    row[2] = v;
+                    row[3] = noise;
+                    row[4] = direct;
+                    if let Some(i) = i_bpn {
+                        row[i] = b2;
+                    }
+                    if let (Some(a), Some(b)) = (i_vd, i_vf) {
+                        row[a] = vd / u;
+                        row[b] = vf / u;
+                    }
+                    if let Some(i) = i_div {
+                        let d = dv / u;
+                        row[i] = d;
+                        if let Some(j) = i_mv {
+                            row[j] = v + d;
+                        }
+                        if let Some(j) = i_ml {
+                            row[j] = el + d;
+                        }
+                    }
+                }
+                out.extend_from_slice(&row[..terms]);
+            }
+        }
+    }
+
     fn observed_loss(&self, value: f64, _probs: Option<&[f64]>, y: f64) -> f64 {
         (value - y) * (value - y)
     }
@@ -634,6 +709,24 @@ fn push_plain(acc: &mut Acc, batch: &Batch<'_>) {
     let (m2v, rest) = rest.split_at_mut(1);
     let (meanv, m2v, direct) = (&mut head[MEAN], &mut m2v[0], &mut rest[0]);
     let values = batch.values.index_axis(ndarray::Axis(0), 0);
+    if let (Some(flat), true) = (values.as_slice(), points > 0) {
+        let resp = batch.response;
+        // Contiguous rows (the engine's own arrays): the same sums in the same order on plain
+        // slices, without ndarray's iterators.
+        for (g, row) in flat.chunks_exact(points).enumerate() {
+            let sse: f64 = row.iter().zip(resp).map(|(p, y)| (p - y) * (p - y)).sum();
+            let base = g * points;
+            let mean = &mut meanv[base..base + points];
+            let m2 = &mut m2v[base..base + points];
+            for ((mu, s), &y) in mean.iter_mut().zip(m2.iter_mut()).zip(row) {
+                let d = y - *mu;
+                *mu += d * inv;
+                *s += d * (y - *mu);
+            }
+            direct[g] += sse / m;
+        }
+        return;
+    }
     for (g, row) in values.rows().into_iter().enumerate() {
         let sse: f64 = row
             .iter()
@@ -895,5 +988,53 @@ mod tests {
             b.to_bits() == want.to_bits() || (a.is_nan() && b.is_nan()),
             "{a} {b}"
         );
+    }
+
+    #[test]
+    fn per_point_equals_the_default_bit_for_bit() {
+        // The direct per-point terms must be exactly `evaluate` on each point alone, for every
+        // shape of the accumulator, including points with too few replicates (NaN rows).
+        for (fits, ensemble) in [(1, false), (2, false), (1, true), (2, true)] {
+            let (g, m) = (3, 5);
+            let mut s = 11u64;
+            let sh = Shape {
+                ensemble,
+                ..shape(g, m, fits)
+            };
+            let truth: Vec<f64> = (0..m).map(|e| e as f64 * 0.7 - 1.0).collect();
+            let noise_var: Vec<f64> = (0..m).map(|e| 0.25 + e as f64 * 0.1).collect();
+            let target = Target::Known {
+                truth: &truth,
+                noise_var: &noise_var,
+                probs: None,
+            };
+            let terms = Squared.describe(&sh, false).len();
+            let resp: Vec<f64> = (0..m).map(|e| e as f64 * 0.5).collect();
+            let mut acc = Acc::new(&Squared, sh);
+            for r in 0..7 {
+                let mut p = Array3::<f64>::zeros((fits, g, m));
+                p.iter_mut().for_each(|v| *v = lcg(&mut s) * 10.0 - 5.0);
+                let mut d = Array3::<f64>::zeros((fits, g, m));
+                d.iter_mut().for_each(|v| *v = lcg(&mut s));
+                let b = Batch {
+                    held: None,
+                    values: p.view(),
+                    probs: None,
+                    diversity: ensemble.then(|| d.view()),
+                    response: &resp,
+                };
+                acc.push(&Squared, &b);
+                if r == 0 || r == 6 {
+                    let (mut fast, mut slow) = (Vec::new(), Vec::new());
+                    Squared.per_point(&acc, &target, terms, &mut fast);
+                    crate::decompose::per_point_generic(&Squared, &acc, &target, terms, &mut slow);
+                    assert_eq!(fast.len(), m * g * terms);
+                    assert_eq!(fast.len(), slow.len());
+                    for (i, (a, b)) in fast.iter().zip(&slow).enumerate() {
+                        assert_eq!(a.to_bits(), b.to_bits(), "fits {fits}, ensemble {ensemble}, replicates {}, index {i}: {a} vs {b}", r + 1);
+                    }
+                }
+            }
+        }
     }
 }

@@ -799,7 +799,12 @@ impl Grower<'_> {
             let Some(split) = self.best_split(start, end, stats) else {
                 continue;
             };
-            self.partition(start, end, split);
+            // Children that will not be split (at the depth limit, or too small to hold two
+            // leaves) only read input 0's list (their summaries sum in its order): the other
+            // lists need not be partitioned for them.
+            let final_children = depth + 1 >= max_depth
+                || (split.n_left < 2 * self.min_leaf && len - split.n_left < 2 * self.min_leaf);
+            self.partition(start, end, split, final_children);
             let left = nodes.len() as u32;
             let blank = Node {
                 threshold: 0.0,
@@ -1137,18 +1142,23 @@ impl Grower<'_> {
     }
 
     /// Stably partitions every input's sorted range `start..end` into the left child's samples
-    /// followed by the right child's.
-    fn partition(&mut self, start: usize, end: usize, split: Split) {
+    /// followed by the right child's; with `only_first`, just input 0's (the children will not
+    /// be split, and their summaries read only that list).
+    fn partition(&mut self, start: usize, end: usize, split: Split, only_first: bool) {
         let n = self.n;
         let mid = start + split.n_left;
         let fs = split.feature;
+        if only_first && fs == 0 {
+            return;
+        }
         for &i in &self.idx[fs * n + start..fs * n + mid] {
             self.goes_left[i as usize] = true;
         }
         for &i in &self.idx[fs * n + mid..fs * n + end] {
             self.goes_left[i as usize] = false;
         }
-        for f in 0..self.p {
+        let inputs = if only_first { 1 } else { self.p };
+        for f in 0..inputs {
             if f == fs {
                 continue;
             }
