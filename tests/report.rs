@@ -1153,3 +1153,24 @@ fn zero_one_default_table_fits_100_columns() {
     let fit = report::terminal::fit(&sq, View::Domingos);
     assert!(fit.hidden.is_empty() && fit.gap == 3 && !fit.tight);
 }
+
+/// A count term (`unstable_points`) is shown as a whole number, not with four digits.
+#[test]
+fn counts_are_shown_as_whole_numbers() {
+    let (_, _, doc) = run(TINY_CLASSES);
+    let t = doc
+        .term_docs()
+        .into_iter()
+        .find(|t| t.key == "unstable_points")
+        .expect("the 0-1 loss counts unstable points");
+    assert!(t.count);
+    let (header, rows, _) = report::terminal::cells(&doc, View::All);
+    let col = header
+        .iter()
+        .position(|h| h == &t.label)
+        .expect("the column is shown under all");
+    for r in &rows {
+        let c = r[col].trim();
+        assert!(c.parse::<u64>().is_ok(), "`{c}` is not a whole number");
+    }
+}

@@ -85,6 +85,7 @@ fn info(
         estimated: false,
         stderr,
         bootstrap: false,
+        count: false,
     }
 }
 

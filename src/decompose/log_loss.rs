@@ -93,6 +93,7 @@ fn info(
         estimated: false,
         stderr,
         bootstrap: false,
+        count: false,
     }
 }
 

@@ -212,6 +212,8 @@ pub struct TermInfo {
     /// bootstrap over replicate blocks ([`bootstrap_se`]) instead of the jackknife, which cannot
     /// see the jumps of such a statistic.
     pub bootstrap: bool,
+    /// `true` for a count (of evaluation points, say): shown as a whole number.
+    pub count: bool,
 }
 
 /// Number of bootstrap draws over replicate blocks behind the standard errors of the terms

@@ -148,6 +148,7 @@ fn info(
         estimated: false,
         stderr,
         bootstrap: false,
+        count: false,
     }
 }
 

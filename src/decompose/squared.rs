@@ -67,6 +67,7 @@ fn info(
         estimated,
         stderr,
         bootstrap: false,
+        count: false,
     }
 }
 

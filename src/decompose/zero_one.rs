@@ -418,6 +418,7 @@ fn info(
         estimated: false,
         stderr,
         bootstrap: false,
+        count: false,
     }
 }
 
@@ -733,6 +734,7 @@ impl Loss for ZeroOne {
         ));
         for t in &mut v {
             t.bootstrap = BOOTSTRAP_KEYS.contains(&t.key);
+            t.count = t.key == "unstable_points";
         }
         v
     }

@@ -157,6 +157,9 @@ pub struct TermDoc {
     /// jump with the main prediction) rather than the jackknife. Absent when false.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub bootstrap: bool,
+    /// Whether the term is a count (shown as a whole number).
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub count: bool,
 }
 
 impl TermDoc {
@@ -185,6 +188,7 @@ impl TermDoc {
             estimated: t.estimated,
             stderr: t.stderr,
             bootstrap: t.bootstrap,
+            count: t.count,
         }
     }
 }

@@ -129,7 +129,12 @@ fn cell(p: &PointRow, t: &TermDoc, tight: bool) -> String {
         return "n/a".into();
     }
     let se = if t.stderr { p.se(&t.key) } else { None };
-    let c = with_se(p.get(&t.key), se);
+    let v = p.get(&t.key);
+    let c = if t.count && v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15 {
+        format!("{}", v as i64)
+    } else {
+        with_se(v, se)
+    };
     if tight {
         c.replace("± ", "±")
     } else {
