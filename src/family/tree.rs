@@ -289,6 +289,18 @@ impl Tree {
     }
 }
 
+/// `y[i]` without a bounds check.
+///
+/// # Safety
+///
+/// `i < y.len()`. Holds for a sample id read from the sorted lists when `y.len() == n`: the
+/// lists hold sample ids below `n` by construction (see `TreeFamily::grow_from`).
+#[inline(always)]
+unsafe fn response(y: &[f64], i: u32) -> f64 {
+    debug_assert!((i as usize) < y.len());
+    *y.get_unchecked(i as usize)
+}
+
 /// 0 if `v` goes to `node`'s left child (`v <= threshold`), 1 if right (NaN goes right).
 #[inline]
 fn right_offset(v: f64, node: Node) -> usize {
@@ -870,11 +882,13 @@ impl Grower<'_> {
         let len = seg.len();
         match self.target {
             Target::Regress(y) => {
+                assert_eq!(y.len(), self.n);
                 let first = y[seg[0] as usize];
                 let mut sum = 0.0;
                 let mut all_equal = true;
                 for &i in seg {
-                    let v = y[i as usize];
+                    // SAFETY: `i` is a sample id and `y.len() == n` (asserted above).
+                    let v = unsafe { response(y, i) };
                     sum += v;
                     all_equal &= v == first;
                 }
@@ -884,7 +898,8 @@ impl Grower<'_> {
                 }
                 let mut sse = 0.0;
                 for &i in seg {
-                    let d = y[i as usize] - mean;
+                    // SAFETY: as above.
+                    let d = unsafe { response(y, i) } - mean;
                     sse += d * d;
                 }
                 (mean, Some((mean, sse)))
