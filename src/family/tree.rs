@@ -289,6 +289,18 @@ impl Tree {
     }
 }
 
+/// `y[i]` without a bounds check.
+///
+/// # Safety
+///
+/// `i < y.len()`. Holds for a sample id read from the sorted lists when `y.len() == n`: the
+/// lists hold sample ids below `n` by construction (see `TreeFamily::grow_from`).
+#[inline(always)]
+unsafe fn response(y: &[f64], i: u32) -> f64 {
+    debug_assert!((i as usize) < y.len());
+    *y.get_unchecked(i as usize)
+}
+
 /// 0 if `v` goes to `node`'s left child (`v <= threshold`), 1 if right (NaN goes right).
 #[inline]
 fn right_offset(v: f64, node: Node) -> usize {
@@ -870,11 +882,13 @@ impl Grower<'_> {
         let len = seg.len();
         match self.target {
             Target::Regress(y) => {
+                assert_eq!(y.len(), self.n);
                 let first = y[seg[0] as usize];
                 let mut sum = 0.0;
                 let mut all_equal = true;
                 for &i in seg {
-                    let v = y[i as usize];
+                    // SAFETY: `i` is a sample id and `y.len() == n` (asserted above).
+                    let v = unsafe { response(y, i) };
                     sum += v;
                     all_equal &= v == first;
                 }
@@ -884,7 +898,8 @@ impl Grower<'_> {
                 }
                 let mut sse = 0.0;
                 for &i in seg {
-                    let d = y[i as usize] - mean;
+                    // SAFETY: as above.
+                    let d = unsafe { response(y, i) } - mean;
                     sse += d * d;
                 }
                 (mean, Some((mean, sse)))
@@ -1158,28 +1173,39 @@ impl Grower<'_> {
             self.goes_left[i as usize] = false;
         }
         let inputs = if only_first { 1 } else { self.p };
+        let goes_left = &self.goes_left[..];
+        let (sidx, sval) = (&mut self.scratch_idx[..], &mut self.scratch_val[..]);
         for f in 0..inputs {
             if f == fs {
                 continue;
             }
             let idx = &mut self.idx[f * n + start..f * n + end];
             let val = &mut self.val[f * n + start..f * n + end];
+            let len = idx.len();
+            assert!(sidx.len() >= len && sval.len() >= len && val.len() == len);
             let mut w = 0;
             let mut r = 0;
             // Branch-free: write to both destinations, advance one (directions are unpredictable).
-            let (sidx, sval) = (&mut self.scratch_idx, &mut self.scratch_val);
-            for k in 0..idx.len() {
-                let (i, v) = (idx[k], val[k]);
-                let l = usize::from(self.goes_left[i as usize]);
-                idx[w] = i;
-                val[w] = v;
-                sidx[r] = i;
-                sval[r] = v;
-                w += l;
-                r += 1 - l;
+            for k in 0..len {
+                // SAFETY: `w + r == k < len`, so `w < len` (the node lists' length) and
+                // `r < len <= n` (the scratch length, checked above); every entry of the sorted
+                // lists is a sample id below `n == goes_left.len()` by construction (see
+                // `grow_from`).
+                unsafe {
+                    let i = *idx.get_unchecked(k);
+                    let v = *val.get_unchecked(k);
+                    debug_assert!((i as usize) < goes_left.len());
+                    let l = usize::from(*goes_left.get_unchecked(i as usize));
+                    *idx.get_unchecked_mut(w) = i;
+                    *val.get_unchecked_mut(w) = v;
+                    *sidx.get_unchecked_mut(r) = i;
+                    *sval.get_unchecked_mut(r) = v;
+                    w += l;
+                    r += 1 - l;
+                }
             }
-            idx[w..].copy_from_slice(&self.scratch_idx[..r]);
-            val[w..].copy_from_slice(&self.scratch_val[..r]);
+            idx[w..].copy_from_slice(&sidx[..r]);
+            val[w..].copy_from_slice(&sval[..r]);
         }
     }
 }
@@ -1202,9 +1228,20 @@ fn scan_regress(
     for &i in &idx[..ml - 1] {
         sl += y[i as usize] - mean;
     }
+    assert!(val.len() == len && ml >= 1 && ml <= len);
     for k in (ml - 1)..(len - ml) {
-        sl += y[idx[k] as usize] - mean;
-        let (a, b) = (val[k], val[k + 1]);
+        // SAFETY: `1 <= ml <= len`, so `k + 1 < len == idx.len() == val.len()`; the sorted lists hold
+        // sample ids below `n == y.len()` by construction (see `grow_from`).
+        let (yi, a, b) = unsafe {
+            let i = *idx.get_unchecked(k) as usize;
+            debug_assert!(i < y.len());
+            (
+                *y.get_unchecked(i),
+                *val.get_unchecked(k),
+                *val.get_unchecked(k + 1),
+            )
+        };
+        sl += yi - mean;
         if a == b {
             continue;
         }
