@@ -132,7 +132,8 @@ impl Outputs {
         }
     }
 
-    /// Registers an input file. `role` names it in messages ("scenario", "--baseline", "part");
+    /// Registers an input file. `role` names it in messages as a noun phrase ("the scenario file",
+    /// "a part file", "the baseline");
     /// `-` (standard input) clashes with nothing. Never fails: an input that cannot be resolved
     /// is compared by its absolute path.
     pub fn input(&mut self, role: &str, path: &Path) {
@@ -490,7 +491,7 @@ fn clash(
     for (role, path, ident) in inputs {
         if target.ident.same(ident) {
             return Err(Error::Usage(format!(
-                "{} names the {role} file {}, an input; choose another output file",
+                "{} names {role} {}, an input; choose another output file",
                 target.flag,
                 path.display()
             )));
@@ -1227,7 +1228,7 @@ mod tests {
             d.path().join("hard.toml"),
         ];
         for out in &spellings {
-            let msg = message(write_one("--out", out, &[("scenario", &s)], b"X"));
+            let msg = message(write_one("--out", out, &[("the scenario file", &s)], b"X"));
             assert!(
                 msg.contains("--out names the scenario file") && msg.contains("an input"),
                 "{}: {msg}",
@@ -1240,10 +1241,10 @@ mod tests {
         let msg = message(write_one(
             "--out",
             &s,
-            &[("--checkpoint", &d.path().join("alias.toml"))],
+            &[("the checkpoint file", &d.path().join("alias.toml"))],
             b"X",
         ));
-        assert!(msg.contains("--checkpoint"), "{msg}");
+        assert!(msg.contains("the checkpoint file"), "{msg}");
         assert_eq!(read(&s), "SCENARIO");
     }
 
@@ -1254,10 +1255,10 @@ mod tests {
         fs::write(&p1, "PART").unwrap();
         let mut set = Outputs::new();
         let id = set.output("--out", &p1).unwrap();
-        set.input("part", &p1);
+        set.input("a part file", &p1);
         assert!(set.check().is_err());
         let msg = message(set.commit(vec![(id, b"MERGED".to_vec())]));
-        assert!(msg.contains("--out names the part file"), "{msg}");
+        assert!(msg.contains("--out names a part file"), "{msg}");
         assert_eq!(read(&p1), "PART");
         assert_eq!(listing(d.path()), ["p1.json"]);
     }
@@ -1269,10 +1270,10 @@ mod tests {
         let msg = message(write_one(
             "--out",
             &d.path().join(".").join("ck.json"),
-            &[("--checkpoint", &ck)],
+            &[("the checkpoint file", &ck)],
             b"X",
         ));
-        assert!(msg.contains("--checkpoint"), "{msg}");
+        assert!(msg.contains("the checkpoint file"), "{msg}");
         assert!(listing(d.path()).is_empty());
     }
 

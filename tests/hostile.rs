@@ -1602,7 +1602,7 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
             "--out",
             "ck.json",
         ],
-        "--checkpoint",
+        "--out names the checkpoint file ck.json",
     );
     t.add(
         g,

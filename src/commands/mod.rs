@@ -272,7 +272,7 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         set.input("the scenario's data file", &p);
     }
     if let Some(ck) = &args.checkpoint {
-        set.input("--checkpoint", ck);
+        set.input("the checkpoint file", ck);
     }
     let ids = o.register(&mut set)?;
     if let Some(ck) = &args.checkpoint {
@@ -520,7 +520,7 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         crate::output::write_one(
             "--baseline",
             &args.baseline,
-            &[("the result", args.result.as_path())],
+            &[("the result document", args.result.as_path())],
             text.as_bytes(),
         )
     };
@@ -586,7 +586,7 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
 pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     let name = args.result.display().to_string();
     let mut set = Outputs::new();
-    set.input("the result", &args.result);
+    set.input("the result document", &args.result);
     let out_id = set.output("--out", &args.out)?;
     let sel_id = match &args.selection {
         Some(p) => Some(set.output("--selection", p)?),

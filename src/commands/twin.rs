@@ -868,7 +868,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     crate::output::write_one(
         "--out",
         &o.out,
-        &[("table", o.table.as_path())],
+        &[("the table", o.table.as_path())],
         text.as_bytes(),
     )?;
     out.push_str(&format!(
