@@ -475,6 +475,20 @@ fn scenario_cases(t: &mut Table) {
     );
     t.scenario(
         g,
+        "train_size list with a float",
+        &sc("train_size = 20", "train_size = [10, 1e3]"),
+        v,
+        "expected a whole number of rows",
+    );
+    t.scenario(
+        g,
+        "train_size a string",
+        &sc("train_size = 20", "train_size = \"many\""),
+        v,
+        "a whole number of rows, or a list of them",
+    );
+    t.scenario(
+        g,
         "train_size absurd",
         &sc("train_size = 20", "train_size = 1000000000000"),
         v,

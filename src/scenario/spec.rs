@@ -187,13 +187,63 @@ pub struct FidelityModelSpec {
 }
 
 /// One training size or several.
-#[derive(Debug, Clone, Deserialize)]
-#[serde(untagged)]
+#[derive(Debug, Clone)]
 pub enum Sizes {
     /// One size.
     One(i64),
     /// Several sizes (a learning curve).
     Many(Vec<i64>),
+}
+
+impl<'de> Deserialize<'de> for Sizes {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Sizes, D::Error> {
+        struct V;
+        impl<'de> serde::de::Visitor<'de> for V {
+            type Value = Sizes;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str("a whole number of rows, or a list of them like [100, 200, 400]")
+            }
+            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<Sizes, E> {
+                Ok(Sizes::One(v))
+            }
+            fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<Sizes, E> {
+                Ok(Sizes::One(i64::try_from(v).unwrap_or(i64::MAX)))
+            }
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(
+                self,
+                mut seq: A,
+            ) -> Result<Sizes, A::Error> {
+                let mut v = Vec::new();
+                while let Some(Rows(n)) = seq.next_element::<Rows>()? {
+                    v.push(n);
+                }
+                Ok(Sizes::Many(v))
+            }
+        }
+        d.deserialize_any(V)
+    }
+}
+
+/// One entry of a list of training sizes: a whole number of rows.
+struct Rows(i64);
+
+impl<'de> Deserialize<'de> for Rows {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Rows, D::Error> {
+        struct V;
+        impl serde::de::Visitor<'_> for V {
+            type Value = Rows;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str("a whole number of rows")
+            }
+            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<Rows, E> {
+                Ok(Rows(v))
+            }
+            fn visit_u64<E: serde::de::Error>(self, v: u64) -> Result<Rows, E> {
+                Ok(Rows(i64::try_from(v).unwrap_or(i64::MAX)))
+            }
+        }
+        d.deserialize_any(V)
+    }
 }
 
 impl Sizes {
