@@ -38,6 +38,7 @@
 //! `bias²+noise = ‖q̄ − e_y‖² − V̂_i/R_i` per row, and `bias²+noise + V̂_i` is exactly the row's
 //! mean out-of-bag Brier score; rows held out in fewer than two replicates are skipped.
 
+use super::term as info;
 use super::{
     Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Target, TermInfo,
 };
@@ -66,27 +67,6 @@ fn div_index(shape: &Shape) -> Option<usize> {
     shape
         .ensemble
         .then_some(2 + usize::from(shape.all_points) + usize::from(shape.fits >= 2))
-}
-
-fn info(
-    key: &'static str,
-    label: &'static str,
-    meaning: &'static str,
-    role: Role,
-    group: Group,
-    stderr: bool,
-) -> TermInfo {
-    TermInfo {
-        key,
-        label,
-        meaning,
-        role,
-        group,
-        estimated: false,
-        stderr,
-        bootstrap: false,
-        count: false,
-    }
 }
 
 /// Terms at one point.

@@ -61,6 +61,7 @@
 //! the bias: `bias+noise = −log q̄_y` and the expected loss is the out-of-bag log-loss
 //! `−ℓ̂_y`; rows held out in fewer than two replicates are skipped.
 
+use super::term as info;
 use super::{
     Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Target, TermInfo,
 };
@@ -75,27 +76,6 @@ const SUM_LOG: usize = 0;
 /// Per grid value (every point evaluated): Σ over replicates of the mean log-loss against fresh
 /// labels (averaged over the fit seeds).
 const DIRECT: usize = 1;
-
-fn info(
-    key: &'static str,
-    label: &'static str,
-    meaning: &'static str,
-    role: Role,
-    group: Group,
-    stderr: bool,
-) -> TermInfo {
-    TermInfo {
-        key,
-        label,
-        meaning,
-        role,
-        group,
-        estimated: false,
-        stderr,
-        bootstrap: false,
-        count: false,
-    }
-}
 
 /// `log Σ_c exp(v_c)`, computed without overflow.
 pub fn log_sum_exp(v: &[f64]) -> f64 {

@@ -216,6 +216,29 @@ pub struct TermInfo {
     pub count: bool,
 }
 
+/// A term known exactly or estimated from the replicates alone (`estimated: false`), with a
+/// jackknife standard error when `stderr`; the flags `bootstrap` and `count` off.
+pub(crate) fn term(
+    key: &'static str,
+    label: &'static str,
+    meaning: &'static str,
+    role: Role,
+    group: Group,
+    stderr: bool,
+) -> TermInfo {
+    TermInfo {
+        key,
+        label,
+        meaning,
+        role,
+        group,
+        estimated: false,
+        stderr,
+        bootstrap: false,
+        count: false,
+    }
+}
+
 /// Number of bootstrap draws over replicate blocks behind the standard errors of the terms
 /// marked [`TermInfo::bootstrap`] (Monte Carlo error of such a standard error: about
 /// `1/√(2·200)` = 5 % relative, a common-practice figure for a bootstrap standard error).

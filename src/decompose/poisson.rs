@@ -65,6 +65,7 @@
 //! D(y, μ̃)`, and the expected loss is the out-of-bag mean deviance
 //! `2[y(log y − ℓ̂) − y + m̂]`; rows held out in fewer than two replicates are skipped.
 
+use super::term as info;
 use super::{
     Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Target, TermInfo,
 };
@@ -129,27 +130,6 @@ pub fn expected_deviance(lambda: f64) -> f64 {
         sum += p * deviance(y, lambda);
     }
     sum / mass
-}
-
-fn info(
-    key: &'static str,
-    label: &'static str,
-    meaning: &'static str,
-    role: Role,
-    group: Group,
-    stderr: bool,
-) -> TermInfo {
-    TermInfo {
-        key,
-        label,
-        meaning,
-        role,
-        group,
-        estimated: false,
-        stderr,
-        bootstrap: false,
-        count: false,
-    }
 }
 
 /// Terms at one point.

@@ -59,15 +59,8 @@ fn info(
     stderr: bool,
 ) -> TermInfo {
     TermInfo {
-        key,
-        label,
-        meaning,
-        role,
-        group,
         estimated,
-        stderr,
-        bootstrap: false,
-        count: false,
+        ..super::term(key, label, meaning, role, group, stderr)
     }
 }
 

@@ -81,6 +81,7 @@
 //!
 //! With `fit_seeds = S`, every fit votes: `p_D` is the share over the R·S fits.
 
+use super::term as info;
 use super::{
     Acc, ArraySpec, Batch, Group, Identity, Kind, Loss, Role, Row, Shape, Summary, Target, TermInfo,
 };
@@ -398,27 +399,6 @@ pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
             james_variance,
             unstable_points: if flip > UNSTABLE_FLIP { 1.0 } else { 0.0 },
         },
-    }
-}
-
-fn info(
-    key: &'static str,
-    label: &'static str,
-    meaning: &'static str,
-    role: Role,
-    group: Group,
-    stderr: bool,
-) -> TermInfo {
-    TermInfo {
-        key,
-        label,
-        meaning,
-        role,
-        group,
-        estimated: false,
-        stderr,
-        bootstrap: false,
-        count: false,
     }
 }
 
