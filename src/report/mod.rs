@@ -1284,28 +1284,20 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             let candidates: Vec<PointRow> = (0..nm)
                 .flat_map(|i| rows(plan, outcome, plan.cell(last, i)))
                 .collect();
-            let mut sel = selection::selection(a, &c.counts, &candidates, &best);
-            if !sel.candidates.is_empty() {
-                // "label knob = value", as the ranking names them
-                sel.candidates = candidates
+            // candidates named "label knob = value", as the ranking names them
+            let knob_of = |label: &str| {
+                plan.models
                     .iter()
-                    .map(|p| {
-                        let label = p.family.as_deref().unwrap_or("");
-                        let knob = plan
-                            .models
-                            .iter()
-                            .find(|m| m.label == label)
-                            .map_or("value", |m| m.family.knob());
-                        format!("{label} {knob} = {}", fmt_value(p.value))
-                    })
-                    .collect();
-                sel.oracle_candidate = candidates
-                    .iter()
-                    .zip(&sel.candidates)
-                    .find(|(p, _)| p.family == best.family && p.value == best.value)
-                    .map(|(_, c)| c.clone());
-            }
-            Some(sel)
+                    .find(|m| m.label == label)
+                    .map_or("value", |m| m.family.knob())
+            };
+            Some(selection::selection(
+                a,
+                &c.counts,
+                &candidates,
+                &best,
+                &knob_of,
+            ))
         }
         _ => None,
     };

@@ -47,7 +47,14 @@ fn same_family(p: &PointRow, best: &Best) -> bool {
 
 /// Builds the selection section from the summed counts and the rows of the candidates, in the
 /// order of the counts (with several models: every model's grid at the largest size, end to end).
-pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &Best) -> Selection {
+/// With several models each candidate is named `label knob = value`, the knob from `knob_of`.
+pub fn selection(
+    audit: &AuditPlan,
+    counts: &[u64],
+    points: &[PointRow],
+    best: &Best,
+    knob_of: &dyn Fn(&str) -> &'static str,
+) -> Selection {
     let total: u64 = counts.iter().sum();
     let el: Vec<f64> = points.iter().map(|p| p.expected_loss()).collect();
     let min = el.iter().cloned().fold(f64::INFINITY, f64::min);
@@ -92,6 +99,11 @@ pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &
         .filter(|(p, _)| same_family(p, best) && p.value == best.value)
         .map(|(_, &c)| c)
         .sum();
+    let several = points.iter().any(|p| p.family.is_some());
+    let name = |p: &PointRow| {
+        let label = p.family.as_deref().unwrap_or("");
+        format!("{label} {} = {}", knob_of(label), fmt_value(p.value))
+    };
     Selection {
         folds: audit.folds,
         rule: audit.rule.name().into(),
@@ -101,18 +113,16 @@ pub fn selection(audit: &AuditPlan, counts: &[u64], points: &[PointRow], best: &
         q90_excess_loss: q90,
         share_within_one_se: share(within),
         share_oracle: share(at_oracle),
-        oracle_candidate: None,
-        candidates: if points.iter().any(|p| p.family.is_some()) {
-            points
-                .iter()
-                .map(|p| {
-                    format!(
-                        "{} {}",
-                        p.family.as_deref().unwrap_or(""),
-                        fmt_value(p.value)
-                    )
-                })
-                .collect()
+        oracle_candidate: several
+            .then(|| {
+                points
+                    .iter()
+                    .find(|p| p.family == best.family && p.value == best.value)
+                    .map(name)
+            })
+            .flatten(),
+        candidates: if several {
+            points.iter().map(name).collect()
         } else {
             Vec::new()
         },
