@@ -443,10 +443,9 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         for s in &mut series {
             for (i, v) in s.values.iter_mut().enumerate() {
                 if *v > t {
-                    if !clipped.iter().any(|c| c.0 == i) {
-                        clipped.push((i, *v));
-                    } else if let Some(c) = clipped.iter_mut().find(|c| c.0 == i) {
-                        c.1 = c.1.max(*v);
+                    match clipped.iter_mut().find(|c| c.0 == i) {
+                        Some(c) => c.1 = c.1.max(*v),
+                        None => clipped.push((i, *v)),
                     }
                     *v = t;
                 }
