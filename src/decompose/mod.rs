@@ -596,13 +596,15 @@ pub fn summarize(loss: &dyn Loss, blocks: &[Acc], target: &Target<'_>) -> Option
 /// `rng::block_bootstrap`; no randomness is drawn here). A draw folds the blocks in index order,
 /// block `b` merged `plan[b]` times, so the result depends only on the blocks and the plans.
 /// With no plans (or fewer than two blocks) those terms keep the jackknife.
-pub fn summarize_with(
+pub fn summarize_with<A: std::borrow::Borrow<Acc>>(
     loss: &dyn Loss,
-    blocks: &[Acc],
+    blocks: &[A],
     target: &Target<'_>,
     plans: &[Vec<u32>],
 ) -> Option<Summary> {
-    let total = Acc::fold(loss, blocks)?;
+    let blocks: Vec<&Acc> = blocks.iter().map(|b| b.borrow()).collect();
+    let blocks = &blocks[..];
+    let total = Acc::fold(loss, blocks.iter().copied())?;
     let terms = loss.describe(&total.shape, target.observed());
     let values = loss.evaluate(&total, target);
     let nb = blocks.len();
@@ -616,7 +618,7 @@ pub fn summarize_with(
             let mut acc = prefix.clone();
             for p in &blocks[b + 1..] {
                 match &mut acc {
-                    None => acc = Some(p.clone()),
+                    None => acc = Some((*p).clone()),
                     Some(o) => o.merge(loss, p),
                 }
             }
@@ -628,7 +630,7 @@ pub fn summarize_with(
             }
             match &mut prefix {
                 None => prefix = Some(blocks[b].clone()),
-                Some(o) => o.merge(loss, &blocks[b]),
+                Some(o) => o.merge(loss, blocks[b]),
             }
         }
     }
@@ -659,7 +661,7 @@ pub fn summarize_with(
                 for (b, &times) in blocks.iter().zip(plan) {
                     for _ in 0..times {
                         match &mut acc {
-                            None => acc = Some(b.clone()),
+                            None => acc = Some((*b).clone()),
                             Some(o) => o.merge(loss, b),
                         }
                     }
@@ -688,18 +690,22 @@ pub fn summarize_with(
 /// Streaming state of [`point_noise`]: per point, grid value and term, Welford's running mean
 /// and sum of squares over the leave-one-block-out folds of the point's term centred on the
 /// fold's mean over points.
+///
+/// The state is point-major like the folds (`e * stride + o`, `stride = grid × terms`), so a
+/// fold is read once, front to back. A cell whose term is not finite in some fold is poisoned
+/// (its sum of squares becomes NaN and stays NaN) instead of counted, and left out at the end:
+/// only cells finite in every fold count, as the jackknife needs.
 struct PointNoise {
     folds: u64,
     points: usize,
     grid: usize,
     terms: usize,
-    /// Per (grid, term, point), point fastest: folds with a finite value (whole numbers held as
-    /// `f64`, exact, so the running mean divides by them without a conversion).
-    n: Vec<f64>,
+    /// Per (point, grid, term), point-major.
     mean: Vec<f64>,
     m2: Vec<f64>,
-    /// One (grid, term) column of a fold, gathered from the point-major fold.
-    col: Vec<f64>,
+    /// Per (grid, term) of the current fold: sum and count of the finite values, then centre.
+    sum: Vec<f64>,
+    count: Vec<u64>,
 }
 
 impl PointNoise {
@@ -710,75 +716,68 @@ impl PointNoise {
             points,
             grid,
             terms,
-            n: vec![0.0; len],
             mean: vec![0.0; len],
             m2: vec![0.0; len],
-            col: Vec::with_capacity(points),
+            sum: vec![0.0; grid * terms],
+            count: vec![0; grid * terms],
         }
     }
 
     /// Adds one fold's per-point terms (flat, `points × grid × terms`, point-major).
     fn push(&mut self, flat: &[f64]) {
         self.folds += 1;
-        let PointNoise {
-            points,
-            grid,
-            terms,
-            n,
-            mean,
-            m2,
-            col,
-            ..
-        } = self;
-        let (points, stride) = (*points, *grid * *terms);
-        debug_assert_eq!(flat.len(), points * stride);
-        for o in 0..stride {
-            col.clear();
-            col.extend((0..points).map(|e| flat[e * stride + o]));
-            let (mut sum, mut k) = (0.0, 0u64);
-            for &v in col.iter() {
+        let k = self.folds as f64;
+        let stride = self.grid * self.terms;
+        debug_assert_eq!(flat.len(), self.points * stride);
+        let (sum, count) = (&mut self.sum, &mut self.count);
+        sum.iter_mut().for_each(|s| *s = 0.0);
+        count.iter_mut().for_each(|c| *c = 0);
+        // The centre of each (grid, term) column: its finite values summed in point order.
+        for row in flat.chunks_exact(stride) {
+            for ((s, c), &v) in sum.iter_mut().zip(count.iter_mut()).zip(row) {
                 if v.is_finite() {
-                    sum += v;
-                    k += 1;
+                    *s += v;
+                    *c += 1;
                 }
             }
-            if k == 0 {
-                continue;
-            }
-            let centre = sum / k as f64;
-            let cells = o * points..(o + 1) * points;
-            let cells = n[cells.clone()]
-                .iter_mut()
-                .zip(&mut mean[cells.clone()])
-                .zip(&mut m2[cells]);
-            for (&v, ((n, mean), m2)) in col.iter().zip(cells) {
-                if !v.is_finite() {
-                    continue;
-                }
-                let c = v - centre;
-                *n += 1.0;
-                let d = c - *mean;
-                *mean += d / *n;
-                *m2 += d * (c - *mean);
+        }
+        for (s, &c) in sum.iter_mut().zip(count.iter()) {
+            // No finite value in the column: every cell of it is poisoned.
+            *s = if c == 0 { f64::NAN } else { *s / c as f64 };
+        }
+        let centre = &self.sum[..stride];
+        for ((mean, m2), row) in self
+            .mean
+            .chunks_exact_mut(stride)
+            .zip(self.m2.chunks_exact_mut(stride))
+            .zip(flat.chunks_exact(stride))
+        {
+            let (mean, m2, row) = (&mut mean[..stride], &mut m2[..stride], &row[..stride]);
+            for o in 0..stride {
+                // A non-finite value or centre makes `m2` NaN for good (NaN and ∞ − ∞ propagate).
+                let c = row[o] - centre[o];
+                let d = c - mean[o];
+                mean[o] += d / k;
+                m2[o] += d * (c - mean[o]);
             }
         }
     }
 
     fn finish(self) -> Vec<Row> {
         let b = self.folds as f64;
-        let folds = self.folds as f64;
-        let points = self.points;
+        let (points, stride) = (self.points, self.grid * self.terms);
         (0..self.grid)
             .map(|g| {
                 (0..self.terms)
                     .map(|t| {
+                        let o = g * self.terms + t;
                         let (mut sum, mut k) = (0.0, 0usize);
-                        let base = (g * self.terms + t) * points;
-                        for i in base..base + points {
-                            if self.n[i] == folds && self.folds >= 2 {
+                        for e in 0..points {
+                            let m2 = self.m2[e * stride + o];
+                            if m2.is_finite() && self.folds >= 2 {
                                 // Delete-a-group jackknife variance (Efron and Tibshirani 1993,
                                 // eq. 11.5) of the point's centred term.
-                                sum += (b - 1.0) / b * self.m2[i];
+                                sum += (b - 1.0) / b * m2;
                                 k += 1;
                             }
                         }
@@ -880,26 +879,11 @@ pub fn point_spread(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Row>
     let mut n = vec![vec![0u64; n_terms]; sh.grid];
     let mut mean = vec![vec![0.0; n_terms]; sh.grid];
     let mut m2 = vec![vec![0.0; n_terms]; sh.grid];
-    let k = sh.classes;
-    for e in 0..sh.points {
-        let one = one_point(acc, e);
-        let t = match target {
-            Target::Known {
-                truth,
-                noise_var,
-                probs,
-            } => Target::Known {
-                truth: &truth[e..e + 1],
-                noise_var: &noise_var[e..e + 1],
-                probs: probs.map(|p| &p[e * k..(e + 1) * k]),
-            },
-            Target::Observed { y, noise } => Target::Observed {
-                y: &y[e..e + 1],
-                noise: *noise,
-            },
-        };
-        let rows = loss.evaluate(&one, &t);
-        for (g, row) in rows.iter().enumerate() {
+    // Each point's terms alone (`evaluate` on the point, bit for bit), point-major.
+    let mut flat = Vec::new();
+    loss.per_point(acc, target, n_terms, &mut flat);
+    for point in flat.chunks_exact((sh.grid * n_terms).max(1)) {
+        for (g, row) in point.chunks_exact(n_terms.max(1)).enumerate() {
             for (ti, &v) in row.iter().enumerate() {
                 if !v.is_finite() {
                     continue;
@@ -949,5 +933,77 @@ impl Summary {
             .zip(&self.values[g])
             .map(|(t, v)| (t.key, *v))
             .collect()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// The streaming per-point jackknife against its definition, computed in two passes:
+    /// per point, `(B−1)/B · Σ_b (c_b − c̄)²` of the term centred on each fold's mean over the
+    /// points finite in that fold, averaged over the points finite in every fold (divisor
+    /// `k − 1`). A value that is NaN or infinite in one fold removes its point from that cell
+    /// only; a column with no finite value at all is NaN.
+    #[test]
+    fn point_noise_matches_its_two_pass_definition() {
+        let (points, grid, terms, folds) = (7, 2, 3, 5);
+        let stride = grid * terms;
+        let mut s = 0x9e37_79b9_7f4a_7c15u64;
+        let mut next = || {
+            s = s
+                .wrapping_mul(6364136223846793005)
+                .wrapping_add(1442695040888963407);
+            (s >> 11) as f64 / (1u64 << 53) as f64 * 4.0 - 2.0
+        };
+        let mut data: Vec<Vec<f64>> = (0..folds)
+            .map(|_| (0..points * stride).map(|_| next()).collect())
+            .collect();
+        // Point 3, column 1 is NaN in fold 2 and point 5, column 4 infinite in fold 0; column 5
+        // has no finite value in fold 1.
+        data[2][3 * stride + 1] = f64::NAN;
+        data[0][5 * stride + 4] = f64::INFINITY;
+        for e in 0..points {
+            data[1][e * stride + 5] = f64::NAN;
+        }
+        let mut pn = PointNoise::new(points, grid, terms);
+        for f in &data {
+            pn.push(f);
+        }
+        let got = pn.finish();
+        let b = folds as f64;
+        for o in 0..stride {
+            let centres: Vec<f64> = data
+                .iter()
+                .map(|f| {
+                    let v: Vec<f64> = (0..points)
+                        .map(|e| f[e * stride + o])
+                        .filter(|v| v.is_finite())
+                        .collect();
+                    v.iter().sum::<f64>() / v.len() as f64
+                })
+                .collect();
+            let mut per_point = Vec::new();
+            for e in 0..points {
+                let c: Vec<f64> = (0..folds)
+                    .map(|f| data[f][e * stride + o] - centres[f])
+                    .collect();
+                if c.iter().all(|v| v.is_finite()) {
+                    let m = c.iter().sum::<f64>() / b;
+                    per_point
+                        .push((b - 1.0) / b * c.iter().map(|v| (v - m) * (v - m)).sum::<f64>());
+                }
+            }
+            let want = if per_point.len() >= 2 {
+                per_point.iter().sum::<f64>() / (per_point.len() - 1) as f64
+            } else {
+                f64::NAN
+            };
+            let g = &got[o / terms][o % terms];
+            match o {
+                5 => assert!(g.is_nan(), "column 5 has no finite value in fold 1: {g}"),
+                _ => approx::assert_relative_eq!(*g, want, max_relative = 1e-12),
+            }
+        }
     }
 }

@@ -466,6 +466,7 @@ impl Loss for Squared {
             idx("member_variance"),
             idx("member_loss"),
         );
+        let plain = sh.fits == 1 && !sh.ensemble && i_vd.is_none() && i_div.is_none();
         (0..sh.grid)
             .map(|g| {
                 let mut row = vec![f64::NAN; descr.len()];
@@ -476,7 +477,33 @@ impl Loss for Squared {
                     Target::Known { truth, .. } => truth[e],
                     Target::Observed { y, .. } => y[e],
                 };
+                if plain {
+                    // One fit per replicate, no members: `point`'s bias² and variance only,
+                    // the same operations in the same order.
+                    let (mean, m2) = (
+                        &acc.floats[MEAN][g * sh.points..(g + 1) * sh.points],
+                        &acc.floats[M2][g * sh.points..(g + 1) * sh.points],
+                    );
+                    for e in 0..sh.points {
+                        let r = acc.count[e];
+                        if r < 2 {
+                            continue;
+                        }
+                        used += 1;
+                        let rf = r as f64;
+                        let var = m2[e] / (rf - 1.0);
+                        let d = mean[e] - truth_at(e);
+                        b2 += d * d - var / rf;
+                        v += var;
+                        if !sh.all_points {
+                            direct += acc.floats[DIRECT][g * sh.points + e] / rf;
+                        }
+                    }
+                }
                 for e in 0..sh.points {
+                    if plain {
+                        break;
+                    }
                     let r = acc.count[e];
                     if r < 2 {
                         continue;
@@ -573,6 +600,29 @@ impl Loss for Squared {
         let mut row = vec![f64::NAN; descr.len()];
         out.clear();
         out.reserve(sh.points * sh.grid * terms);
+        if sh.fits == 1 && !sh.ensemble && descr.len() == 5 && terms == 5 {
+            // The plain accumulator (one fit per replicate, no members): the five terms of
+            // `point` written straight out, the same operations in the same order.
+            let (mean, m2, direct) = (&acc.floats[MEAN], &acc.floats[M2], &acc.floats[DIRECT]);
+            let reps = acc.replicates as f64;
+            out.resize(sh.points * sh.grid * 5, f64::NAN);
+            for (e, cells) in out.chunks_exact_mut(sh.grid * 5).enumerate() {
+                let r = acc.count[e];
+                if r < 2 {
+                    continue;
+                }
+                let rf = r as f64;
+                let noise = noise_var[e..e + 1].iter().sum::<f64>() / u;
+                for (g, cell) in cells.chunks_exact_mut(5).enumerate() {
+                    let i = g * sh.points + e;
+                    let v = m2[i] / (rf - 1.0);
+                    let d = mean[i] - truth[e];
+                    let (b2, v) = ((0.0 + (d * d - v / rf)) / u, (0.0 + v) / u);
+                    cell.copy_from_slice(&[noise + b2 + v, b2, v, noise, direct[g] / reps]);
+                }
+            }
+            return;
+        }
         for e in 0..sh.points {
             let r = acc.count[e];
             let noise = noise_var[e..e + 1].iter().sum::<f64>() / u;

@@ -370,7 +370,7 @@ pub fn summarize(
     let mut summaries = Vec::with_capacity(plan.cells());
     for c in 0..plan.cells() {
         let model = &plan.models[c % plan.models.len()];
-        let accs: Vec<Acc> = blocks.values().map(|b| b.accs[c].clone()).collect();
+        let accs: Vec<&Acc> = blocks.values().map(|b| &b.accs[c]).collect();
         // Terms that jump with the main prediction get a bootstrap over the blocks; its plans
         // come from the master seed only (the same for every cell), so results stay identical
         // across threads, shards and resume.
