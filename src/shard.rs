@@ -793,9 +793,10 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
     })))
 }
 
-/// Folds completed blocks (all of the plan's, in index order) into the run's outcome.
-pub fn outcome(plan: &Plan, done: Completed) -> Result<Outcome, Error> {
-    runner::summarize(plan, done.prepared, &done.blocks)
+/// Folds completed blocks (all of the plan's, in index order) into the run's outcome, on
+/// `threads` workers (0 = one per core; the result does not depend on it).
+pub fn outcome(plan: &Plan, done: Completed, threads: usize) -> Result<Outcome, Error> {
+    runner::summarize(plan, done.prepared, &done.blocks, threads)
 }
 
 /// A merged run: the plan rebuilt from the parts' embedded scenario and its outcome.
@@ -972,6 +973,7 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
             fingerprint: fp,
             resumed: 0,
         },
+        1,
     )?;
     Ok(Merged { plan, outcome })
 }

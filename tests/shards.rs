@@ -584,7 +584,7 @@ fn a_watch_stops_a_checkpointed_job_which_then_resumes_to_the_plain_result() {
     assert_eq!(done.resumed, 3);
     assert_eq!(watch.blocks.load(Ordering::SeqCst), 14);
     assert_eq!(watch.replicates.load(Ordering::SeqCst), 28);
-    let merged = shard::outcome(&plan, *done).unwrap();
+    let merged = shard::outcome(&plan, *done, 2).unwrap();
     let plain = lossprism::runner::run(&plan, 1).unwrap();
     assert_eq!(
         lossprism::report::to_json(&lossprism::report::build(&plan, &merged)),

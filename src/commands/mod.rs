@@ -433,7 +433,7 @@ fn run_in_blocks(
         }
         return Ok(0);
     }
-    let outcome = shard::outcome(plan, *done)?;
+    let outcome = shard::outcome(plan, *done, args.threads)?;
     emit(plan, &outcome, &o, set, ids)
 }
 

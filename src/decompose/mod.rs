@@ -602,38 +602,104 @@ pub fn summarize_with<A: std::borrow::Borrow<Acc>>(
     target: &Target<'_>,
     plans: &[Vec<u32>],
 ) -> Option<Summary> {
+    summarize_par(loss, blocks, target, plans, &Serial)
+}
+
+/// Runs independent tasks `0..n`, possibly at the same time. Whatever the width, every task
+/// does the same operations on the same numbers, so results never depend on it.
+pub trait ParFor: Sync {
+    /// How many tasks are worth running at once (1 = one after another).
+    fn width(&self) -> usize;
+    /// Calls `task(i)` once for every `i < n`, in any order and on any thread.
+    fn run(&self, n: usize, task: &(dyn Fn(usize) + Sync));
+}
+
+/// Tasks one after another on the calling thread.
+pub struct Serial;
+
+impl ParFor for Serial {
+    fn width(&self) -> usize {
+        1
+    }
+
+    fn run(&self, n: usize, task: &(dyn Fn(usize) + Sync)) {
+        (0..n).for_each(task);
+    }
+}
+
+/// [`summarize_with`], with the leave-one-block-out folds and the bootstrap draws run as tasks
+/// of `par` (the engine passes its worker pool). The folds are taken `par.width()` at a time:
+/// the folds' starting prefixes are made one after another, each task finishes its own fold
+/// (the same merges in the same order as alone), and the per-point noise takes the folds in
+/// order, so the result is bit for bit the serial one, whatever the width.
+pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
+    loss: &dyn Loss,
+    blocks: &[A],
+    target: &Target<'_>,
+    plans: &[Vec<u32>],
+    par: &dyn ParFor,
+) -> Option<Summary> {
     let blocks: Vec<&Acc> = blocks.iter().map(|b| b.borrow()).collect();
     let blocks = &blocks[..];
-    let total = Acc::fold(loss, blocks.iter().copied())?;
-    let terms = loss.describe(&total.shape, target.observed());
-    let values = loss.evaluate(&total, target);
     let nb = blocks.len();
+    let first = *blocks.first()?;
+    let terms = loss.describe(&first.shape, target.observed());
     let mut leave_out: Vec<Vec<Row>> = Vec::with_capacity(nb);
-    let mut noise = (nb >= 2 && total.shape.all_points && !target.observed())
-        .then(|| PointNoise::new(total.shape.points, total.shape.grid, terms.len()));
-    let mut flat = Vec::new();
-    if nb >= 2 {
-        let mut prefix: Option<Acc> = None;
-        for b in 0..nb {
-            let mut acc = prefix.clone();
-            for p in &blocks[b + 1..] {
-                match &mut acc {
-                    None => acc = Some((*p).clone()),
-                    Some(o) => o.merge(loss, p),
-                }
-            }
-            let acc = acc.expect("at least one block remains");
-            leave_out.push(loss.evaluate(&acc, target));
-            if let Some(n) = &mut noise {
-                loss.per_point(&acc, target, n.terms, &mut flat);
-                n.push(&flat);
-            }
+    let mut noise = (nb >= 2 && first.shape.all_points && !target.observed())
+        .then(|| PointNoise::new(first.shape.points, first.shape.grid, terms.len()));
+    let n_terms = terms.len();
+    // The fold of the blocks before the current one; after the last block, all of them (the
+    // same merges in the same order as `Acc::fold`).
+    let mut prefix: Option<Acc> = None;
+    let width = par.width().max(1);
+    let mut b0 = 0;
+    while b0 < nb {
+        let b1 = nb.min(b0 + width);
+        let mut starts: Vec<std::sync::Mutex<Option<Acc>>> = Vec::with_capacity(b1 - b0);
+        for b in b0..b1 {
+            starts.push(std::sync::Mutex::new(prefix.clone()));
             match &mut prefix {
                 None => prefix = Some(blocks[b].clone()),
                 Some(o) => o.merge(loss, blocks[b]),
             }
         }
+        if nb >= 2 {
+            type Fold = (Vec<Row>, Vec<f64>);
+            let done: Vec<std::sync::Mutex<Option<Fold>>> =
+                (b0..b1).map(|_| std::sync::Mutex::new(None)).collect();
+            let with_noise = noise.is_some();
+            par.run(b1 - b0, &|j| {
+                let b = b0 + j;
+                let mut acc = starts[j].lock().unwrap_or_else(|e| e.into_inner()).take();
+                for p in &blocks[b + 1..] {
+                    match &mut acc {
+                        None => acc = Some((*p).clone()),
+                        Some(o) => o.merge(loss, p),
+                    }
+                }
+                let acc = acc.expect("at least one block remains");
+                let rows = loss.evaluate(&acc, target);
+                let mut flat = Vec::new();
+                if with_noise {
+                    loss.per_point(&acc, target, n_terms, &mut flat);
+                }
+                *done[j].lock().unwrap_or_else(|e| e.into_inner()) = Some((rows, flat));
+            });
+            for slot in done {
+                let (rows, flat) = slot
+                    .into_inner()
+                    .unwrap_or_else(|e| e.into_inner())
+                    .expect("every fold task ran");
+                leave_out.push(rows);
+                if let Some(n) = &mut noise {
+                    n.push(&flat);
+                }
+            }
+        }
+        b0 = b1;
     }
+    let total = prefix?;
+    let values = loss.evaluate(&total, target);
     let mut stderr: Vec<Row> = (0..total.shape.grid)
         .map(|g| {
             terms
@@ -654,20 +720,24 @@ pub fn summarize_with<A: std::borrow::Borrow<Acc>>(
         .filter(|&t| terms[t].stderr && terms[t].bootstrap)
         .collect();
     if nb >= 2 && plans.len() >= 2 && !resampled.is_empty() {
-        let draws: Vec<Vec<Row>> = plans
-            .iter()
-            .filter_map(|plan| {
-                let mut acc: Option<Acc> = None;
-                for (b, &times) in blocks.iter().zip(plan) {
-                    for _ in 0..times {
-                        match &mut acc {
-                            None => acc = Some((*b).clone()),
-                            Some(o) => o.merge(loss, b),
-                        }
+        let slots: Vec<std::sync::Mutex<Option<Vec<Row>>>> =
+            plans.iter().map(|_| std::sync::Mutex::new(None)).collect();
+        par.run(plans.len(), &|i| {
+            let mut acc: Option<Acc> = None;
+            for (b, &times) in blocks.iter().zip(&plans[i]) {
+                for _ in 0..times {
+                    match &mut acc {
+                        None => acc = Some((*b).clone()),
+                        Some(o) => o.merge(loss, b),
                     }
                 }
-                acc.map(|a| loss.evaluate(&a, target))
-            })
+            }
+            *slots[i].lock().unwrap_or_else(|e| e.into_inner()) =
+                acc.map(|a| loss.evaluate(&a, target));
+        });
+        let draws: Vec<Vec<Row>> = slots
+            .into_iter()
+            .filter_map(|s| s.into_inner().unwrap_or_else(|e| e.into_inner()))
             .collect();
         for (g, row) in stderr.iter_mut().enumerate() {
             for &t in &resampled {

@@ -3,8 +3,9 @@
 //!
 //! The estimate adds up, in bytes:
 //! - **accumulators**: every block's accumulators of every model (kept to the end for the
-//!   jackknife), twice — the summary folds a copy of them — plus the few block-sized
-//!   accumulators of the jackknife;
+//!   jackknife), plus the block-sized accumulators the summary folds: the running prefix and
+//!   total, and per worker thread one leave-one-block-out fold and its per-point terms (counted
+//!   as two more accumulators);
 //! - **evaluation inputs**: the evaluation points (`m × p`) with the truth, noise level and class
 //!   probabilities there, a fixed design, and for a table its rows three times (the table, the
 //!   working rows, the evaluation points);
@@ -140,7 +141,7 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
             plan.models.iter().map(|m| m.grid.len()).sum::<usize>(),
             plan.eval_size()
         ),
-        bytes: 2.0 * acc + 3.0 * per_block,
+        bytes: acc + (3.0 + 2.0 * wf) * per_block,
     });
 
     let (m, eval, train_extra) = match &plan.source {

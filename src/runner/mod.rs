@@ -349,13 +349,43 @@ impl Outcome {
     }
 }
 
-/// Folds every block of a plan (all of them, in index order) into the run's outcome. A term
-/// that is not a finite number is an error naming the term, the knob value and the likely
-/// cause.
+/// The worker pool as the summary's [`decompose::ParFor`]: the leave-one-block-out folds and
+/// bootstrap draws of a cell run on the same workers as the replicates did.
+struct PoolPar<'a>(&'a rayon::ThreadPool);
+
+impl decompose::ParFor for PoolPar<'_> {
+    fn width(&self) -> usize {
+        self.0.current_num_threads()
+    }
+
+    fn run(&self, n: usize, task: &(dyn Fn(usize) + Sync)) {
+        self.0.install(|| (0..n).into_par_iter().for_each(task));
+    }
+}
+
+/// Folds every block of a plan (all of them, in index order) into the run's outcome, on
+/// `threads` workers (0 = one per core; the result does not depend on it). A term that is not
+/// a finite number is an error naming the term, the knob value and the likely cause.
 pub fn summarize(
     plan: &Plan,
     prepared: Prepared,
     blocks: &BTreeMap<u64, BlockResult>,
+    threads: usize,
+) -> Result<Outcome, Error> {
+    let pool = if threads == 1 {
+        None
+    } else {
+        Some(pool(threads)?)
+    };
+    summarize_on(plan, prepared, blocks, pool.as_ref())
+}
+
+/// [`summarize`] on an existing pool (`None`: on the calling thread).
+fn summarize_on(
+    plan: &Plan,
+    prepared: Prepared,
+    blocks: &BTreeMap<u64, BlockResult>,
+    pool: Option<&rayon::ThreadPool>,
 ) -> Result<Outcome, Error> {
     if blocks.len() as u64 != plan.blocks || blocks.keys().copied().ne(0..plan.blocks) {
         return Err(Error::Usage(format!(
@@ -385,8 +415,11 @@ pub fn summarize(
         } else {
             Vec::new()
         };
-        let s = decompose::summarize_with(plan.loss, &accs, &target, &plans)
-            .ok_or_else(|| Error::Usage("no replicates to summarize".into()))?;
+        let s = match pool {
+            Some(p) => decompose::summarize_par(plan.loss, &accs, &target, &plans, &PoolPar(p)),
+            None => decompose::summarize_par(plan.loss, &accs, &target, &plans, &decompose::Serial),
+        }
+        .ok_or_else(|| Error::Usage("no replicates to summarize".into()))?;
         for (g, row) in s.values.iter().enumerate() {
             for (t, v) in row.iter().enumerate() {
                 if !v.is_finite() {
@@ -494,5 +527,5 @@ pub fn run_watched(
             replicates: plan.replicates,
         }));
     }
-    summarize(plan, prepared, &s.done).map(Ok)
+    summarize(plan, prepared, &s.done, threads).map(Ok)
 }
