@@ -656,11 +656,11 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
     while b0 < nb {
         let b1 = nb.min(b0 + width);
         let mut starts: Vec<std::sync::Mutex<Option<Acc>>> = Vec::with_capacity(b1 - b0);
-        for b in b0..b1 {
+        for &block in &blocks[b0..b1] {
             starts.push(std::sync::Mutex::new(prefix.clone()));
             match &mut prefix {
-                None => prefix = Some(blocks[b].clone()),
-                Some(o) => o.merge(loss, blocks[b]),
+                None => prefix = Some(block.clone()),
+                Some(o) => o.merge(loss, block),
             }
         }
         if nb >= 2 {
