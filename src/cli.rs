@@ -69,7 +69,8 @@ pub enum Command {
     /// E[y|x] chosen among k-NN, bagged trees, local-linear regression and their blend by
     /// cross-validated R², inputs from a smoothed bootstrap of the rows, and a noise estimate
     /// corrected by a parametric bootstrap; then a fidelity check (tables drawn from the twin,
-    /// twinned again) says how often a twin of such a table picks the knob it should.
+    /// twinned again) says how often a twin of such a table picks the knob it should, and gives
+    /// the recommended pick per family (bias-corrected by the same runs).
     Twin(TwinArgs),
 }
 
@@ -118,8 +119,8 @@ pub struct TwinArgs {
     /// gamma otherwise).
     #[arg(long, value_name = "NAME")]
     pub noise_estimator: Option<String>,
-    /// Tables drawn from the twin for the fidelity check (0 skips it; more is slower and
-    /// steadier).
+    /// Tables drawn from the twin for the fidelity check (0 skips it, and with it the
+    /// bias-corrected recommended pick; more is slower and steadier).
     #[arg(long, default_value_t = 5, value_name = "T")]
     pub fidelity: usize,
     /// Replicates of every run of the fidelity check.

@@ -292,7 +292,18 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     );
     // The integer column stays on its levels.
     assert!(msg.contains("kept on their levels c"), "{msg}");
+    // The headline: the recommended (bias-corrected) pick of both families, printed last before
+    // the file is named, and written as a comment of the scenario.
+    let lines: Vec<&str> = msg.lines().collect();
+    let head = lines[lines.len() - 2];
+    assert!(
+        head.starts_with(
+            "Recommended pick (bias-corrected by the fidelity check): tree max_depth = "
+        ) && head.contains("; knn k = "),
+        "{msg}"
+    );
     let text = fs::read_to_string(&o.out).unwrap();
+    assert!(text.contains(&format!("# {head}\n")), "{text}");
     for key in [
         "jitter = 1.0",
         "eval_size = 1000",
@@ -363,12 +374,27 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
         .any(|v| !t.x.column(0).iter().any(|r| r == v)));
 
     let doc = report::build(&plan, &runner::run(&plan, 1).unwrap());
-    let tw = doc.scenario.twin.expect("twin section");
+    let tw = doc.scenario.twin.clone().expect("twin section");
     assert_eq!(tw.jitter, 1.0);
     assert_eq!(tw.cv_r2.len(), 4);
-    let f = tw.fidelity.expect("fidelity echoed");
+    let f = tw.fidelity.clone().expect("fidelity echoed");
     assert_eq!((f.tables, f.replicates, f.models.len()), (2, 12, 2));
     assert_eq!(f.models[0].picks.len(), 2);
+    // The recommended picks are echoed beside the record: the bias-corrected pick, with the
+    // twin's own lowest expected loss; the terminal says the same sentence the twin printed.
+    assert_eq!(tw.recommended.len(), 2);
+    for (r, m) in tw.recommended.iter().zip(&f.models) {
+        assert_eq!((&r.family, &r.knob), (&m.family, &m.knob));
+        assert_eq!((r.value, r.twin_lowest), (m.corrected_pick, m.pick));
+        assert_eq!(r.basis, "bias-corrected");
+    }
+    let json = report::to_json(&doc);
+    assert!(json.contains("\"recommended\": ["), "{json}");
+    let term = report::terminal::render(&doc);
+    assert!(
+        term.contains(&format!("twin: {head} (from `lossprism twin`")),
+        "{term}"
+    );
     let n = tw.noise.expect("noise echoed");
     assert_eq!(n.method, "gamma");
     assert!((n.raw - n.correction - n.value).abs() < 1e-12 || n.value == 0.05 * n.raw);

@@ -145,15 +145,63 @@ struct Curve {
     b2: Vec<f64>,
     pick: f64,
     one_se: Vec<f64>,
+    /// The one-SE set at a user's precision (truth curves only; see [`user_set`]).
+    one_se_user: Vec<f64>,
+    /// The same with the evaluation points' sampling error added (truth curves only; see
+    /// [`user_set`]).
+    one_se_points: Vec<f64>,
+    /// Per grid value: the spread over evaluation points of the true per-point expected loss
+    /// (`point_sd² − point_noise`, at least 0), and the number of evaluation points.
+    point_var: Vec<f64>,
+    points: usize,
     grid: Vec<f64>,
+}
+
+/// Replicates of a user's run, the precision of the second yardstick.
+const USER_R: usize = 200;
+
+/// The one-standard-error set of a truth run of `r` replicates at the precision of a run of
+/// [`USER_R`] replicates on the same process: grid values whose expected loss is within `se` of
+/// the lowest, where `se = SE(best) · √(r / USER_R)` (a jackknife standard error scales as
+/// 1/√R), i.e. the values an R = 200 run on the true process at the same evaluation points could
+/// not tell apart from the best by the one-SE rule; with `points`, `se² +
+/// point_var(best) / points` adds the sampling error of the truth's own evaluation points (the
+/// spread of the true per-point expected loss over the m points, over m), which the jackknife
+/// over replicates leaves out.
+fn user_set(c: &Curve, r: usize, points: bool) -> Vec<f64> {
+    let bi = (0..c.el.len()).fold(0, |b, g| if c.el[g] < c.el[b] { g } else { b });
+    let se = if c.se[bi].is_finite() { c.se[bi] } else { 0.0 };
+    let mut var = se * se * r as f64 / USER_R as f64;
+    if points {
+        var += c.point_var[bi] / c.points as f64;
+    }
+    let lim = c.el[bi] + var.sqrt();
+    c.grid
+        .iter()
+        .zip(&c.el)
+        .filter(|(_, e)| **e <= lim)
+        .map(|(g, _)| *g)
+        .collect()
 }
 
 fn curves(plan: &Plan) -> Vec<Curve> {
     let out = runner::run(plan, 0).expect("runs");
+    let doc = report::build(plan, &out);
+    let unc = doc.uncertainty.as_ref().expect("uncertainty");
+    let mut first = 0;
     (0..plan.models.len())
         .map(|i| {
             let rows = report::rows(plan, &out, i);
             let best = report::best_of(&rows);
+            let point_var = (0..rows.len())
+                .map(|g| {
+                    let u = &unc.rows[first + g];
+                    let sd = u.point_sd.get("expected_loss").copied().unwrap_or(0.0);
+                    let noise = u.point_noise.get("expected_loss").copied().unwrap_or(0.0);
+                    (sd * sd - noise).max(0.0)
+                })
+                .collect();
+            first += rows.len();
             Curve {
                 el: rows.iter().map(|r| r.expected_loss()).collect(),
                 se: rows
@@ -163,6 +211,10 @@ fn curves(plan: &Plan) -> Vec<Curve> {
                 b2: rows.iter().map(|r| r.get("bias_sq")).collect(),
                 pick: best.value,
                 one_se: best.within_one_se,
+                one_se_user: Vec::new(),
+                one_se_points: Vec::new(),
+                point_var,
+                points: out.prepared.points(),
                 grid: plan.models[i].grid.clone(),
             }
         })
@@ -191,7 +243,12 @@ fn truth(dir: &Path, proc: Process, n: usize, r: usize, m: usize, seed: u64) -> 
         proc.formula
     ));
     s.push_str(&models(n));
-    curves(&plan_text(dir, "truth.toml", &s))
+    let mut cs = curves(&plan_text(dir, "truth.toml", &s));
+    for c in &mut cs {
+        c.one_se_user = user_set(c, r, false);
+        c.one_se_points = user_set(c, r, true);
+    }
+    cs
 }
 
 /// The written twin scenario with its `[model]` replaced by both families and R replicates.
@@ -219,7 +276,12 @@ fn before_text(csv: &str, t: &lossprism::dataset::Table, seed: u64, r: usize) ->
 /// One (table, family) case measured against the truth.
 #[derive(Debug, Clone, Default)]
 struct Case {
+    /// Inside the truth's one-SE set at R = 2000 (the strict yardstick).
     in_set: bool,
+    /// Inside the truth's one-SE set at the precision of an R = 200 run ([`user_set`]).
+    in_user: bool,
+    /// The same with the truth's evaluation-point sampling error added.
+    in_points: bool,
     near: bool,
     mare: f64,
     regret: f64,
@@ -254,6 +316,8 @@ fn judge(truth: &Curve, el: &[f64], pick: f64) -> Case {
         / el.len() as f64;
     Case {
         in_set: truth.one_se.contains(&pick),
+        in_user: truth.one_se_user.contains(&pick),
+        in_points: truth.one_se_points.contains(&pick),
         near: regret <= 0.01,
         mare,
         regret,
@@ -267,6 +331,10 @@ struct TableResult {
     /// Per family: the new twin's pick, its bias-corrected pick, the old twin's pick.
     new: Vec<Case>,
     corrected: Vec<Case>,
+    /// The headline pick of `lossprism twin` ([`dgp_twin::FidelityModel::headline_pick`]).
+    headline: Vec<Case>,
+    /// Candidate: the bias-corrected pick restricted to the twin's one-SE set.
+    guarded: Vec<Case>,
     before: Vec<Case>,
     /// Per family: the fidelity check's in-set share and curve distance.
     fidelity: Vec<(f64, f64)>,
@@ -274,7 +342,7 @@ struct TableResult {
     sigma2_before: f64,
     /// Mean squared noise actually drawn in the table.
     sigma2_drawn: f64,
-    picks: Vec<(f64, f64, f64)>,
+    picks: Vec<(f64, f64, f64, f64)>,
     reference: String,
     /// The new twin's curves and its noise's standard error.
     twin: Vec<Curve>,
@@ -362,24 +430,46 @@ fn study_table(
             before_curves[i].pick,
             sigma2_before,
         ));
-        let (cp, fid, cl) = match report.fidelity.as_ref().map(|f| &f.models[i]) {
+        let (cp, fid, cl, hp, gp) = match report.fidelity.as_ref().map(|f| &f.models[i]) {
             Some(m) => (
                 m.corrected_pick,
                 (m.in_one_se, m.curve_error),
                 m.corrected_loss.clone(),
+                m.headline_pick(),
+                guarded_pick(m),
             ),
             None => (
                 twin_curves[i].pick,
                 (f64::NAN, f64::NAN),
                 twin_curves[i].el.clone(),
+                twin_curves[i].pick,
+                twin_curves[i].pick,
             ),
         };
         res.corrected.push(judge(tc, &cl, cp));
+        res.headline
+            .push(judge_noise(tc, &twin_curves[i].el, hp, sigma2_new));
+        res.guarded.push(judge(tc, &cl, gp));
         res.fidelity.push(fid);
         res.picks
-            .push((twin_curves[i].pick, cp, before_curves[i].pick));
+            .push((twin_curves[i].pick, cp, gp, before_curves[i].pick));
     }
     res
+}
+
+/// The lowest bias-corrected loss among the twin's own one-SE set (a candidate measured by the
+/// study, not used by `lossprism twin`).
+fn guarded_pick(m: &dgp_twin::FidelityModel) -> f64 {
+    let mut best: Option<usize> = None;
+    for (g, v) in m.grid.iter().enumerate() {
+        if !m.one_se.contains(v) {
+            continue;
+        }
+        if best.map_or(true, |b| m.corrected_loss[g] < m.corrected_loss[b]) {
+            best = Some(g);
+        }
+    }
+    best.map_or(m.pick, |b| m.grid[b])
 }
 
 fn share(v: &[bool]) -> (usize, usize) {
@@ -395,12 +485,16 @@ fn sd(v: &[f64]) -> f64 {
     (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / (v.len() as f64 - 1.0)).sqrt()
 }
 
-/// Summary over cases: (in-set, within 1%, mean MARE, mean regret).
+/// Summary over cases: (in-set strict, in-set at R = 200, in-set at R = 200 with the evaluation
+/// points' error, within 1%, mean MARE (σ² known),
+/// mean regret).
 fn summary(cases: &[&Case]) -> String {
     let (a, n) = share(&cases.iter().map(|c| c.in_set).collect::<Vec<_>>());
+    let (u, _) = share(&cases.iter().map(|c| c.in_user).collect::<Vec<_>>());
+    let (q, _) = share(&cases.iter().map(|c| c.in_points).collect::<Vec<_>>());
     let (b, _) = share(&cases.iter().map(|c| c.near).collect::<Vec<_>>());
     format!(
-        "{a}/{n} · {b}/{n} · {:.1}% ({:.1}%) · {:.2}%",
+        "{a}/{n} · {u}/{n} · {q}/{n} · {b}/{n} · {:.1}% ({:.1}%) · {:.2}%",
         100.0 * mean(&cases.iter().map(|c| c.mare).collect::<Vec<_>>()),
         100.0 * mean(&cases.iter().map(|c| c.mare_known).collect::<Vec<_>>()),
         100.0 * mean(&cases.iter().map(|c| c.regret).collect::<Vec<_>>())
@@ -421,6 +515,9 @@ fn calibration_study() {
     let r_true = env_usize("LOSSPRISM_CALIB_R_TRUE", 2000);
     let m_true = env_usize("LOSSPRISM_CALIB_M_TRUE", 4000);
     let base_seed = env_usize("LOSSPRISM_CALIB_SEED", 2026) as u64;
+    // The fidelity check's tables and replicates (`lossprism twin`'s defaults unless set).
+    let fid_tables = env_usize("LOSSPRISM_CALIB_FIDELITY", twin_cmd::FIDELITY_TABLES);
+    let fid_r = env_usize("LOSSPRISM_CALIB_FIDELITY_R", twin_cmd::FIDELITY_REPLICATES);
     let n = 400;
     let dir = tempfile::tempdir().unwrap();
     let mut all: Vec<(Process, Vec<TableResult>)> = Vec::new();
@@ -433,7 +530,7 @@ fn calibration_study() {
         let t0 = std::time::Instant::now();
         let tc = truth(dir.path(), proc, n, r_true, m_true, base_seed);
         println!(
-            "{}: truth in {:.1} s; tree {:?} set {:?}; knn {:?} set {:?}",
+            "{}: truth in {:.1} s; tree {:?} set {:?} (at R = {USER_R}: {:?}; with points: {:?}); knn {:?} set {:?} (at R = {USER_R}: {:?}; with points: {:?})",
             proc.name,
             t0.elapsed().as_secs_f64(),
             tc[0]
@@ -442,20 +539,33 @@ fn calibration_study() {
                 .map(|v| format!("{v:.4}"))
                 .collect::<Vec<_>>(),
             tc[0].one_se,
+            tc[0].one_se_user,
+            tc[0].one_se_points,
             tc[1]
                 .el
                 .iter()
                 .map(|v| format!("{v:.4}"))
                 .collect::<Vec<_>>(),
-            tc[1].one_se
+            tc[1].one_se,
+            tc[1].one_se_user,
+            tc[1].one_se_points
         );
+        for (c, fam) in tc.iter().zip(["tree", "knn"]) {
+            let se: Vec<String> = c.se.iter().map(|v| format!("{v:.4}")).collect();
+            let pts: Vec<String> = c
+                .point_var
+                .iter()
+                .map(|v| format!("{:.4}", (v / c.points as f64).sqrt()))
+                .collect();
+            println!("  {fam}: replicate SE {se:?}; evaluation-point SE {pts:?}");
+        }
         let mut res = Vec::new();
         for t in 0..tables {
             let t1 = std::time::Instant::now();
             let seed = base_seed * 1000 + 100 * pi as u64 + 17 * t as u64 + 1;
-            let r = study_table(dir.path(), proc, n, seed, &tc, 200, 5, 100);
+            let r = study_table(dir.path(), proc, n, seed, &tc, 200, fid_tables, fid_r);
             println!(
-                "  table {t}: ref {}, σ̂² new {:.3} before {:.3} drawn {:.3}; picks (new, corrected, before) {:?}; fidelity {:?}; new MARE {:.1}%/{:.1}%; before MARE {:.1}%/{:.1}% ({:.0} s)",
+                "  table {t}: ref {}, σ̂² new {:.3} before {:.3} drawn {:.3}; picks (new, corrected, guarded, before) {:?}; fidelity {:?}; new MARE {:.1}%/{:.1}%; before MARE {:.1}%/{:.1}% ({:.0} s)",
                 r.reference,
                 r.sigma2_new,
                 r.sigma2_before,
@@ -472,22 +582,26 @@ fn calibration_study() {
         }
         all.push((proc, res));
     }
-    println!("\n| process | family | before: in-set · ≤1% · MARE (with σ² known) · regret | new twin | new, bias-corrected pick | fidelity (self-reported in-set, curve distance) |");
-    println!("|---|---|---|---|---|---|");
+    println!("\n| process | family | before: in-set (R = 2000 set) · in-set (R = {USER_R} set) · in-set (R = {USER_R} + points set) · ≤1% · MARE (with σ² known) · regret | new twin | new, bias-corrected pick | new, headline pick | candidate: corrected within the twin's one-SE set | fidelity (self-reported in-set, curve distance) |");
+    println!("|---|---|---|---|---|---|---|---|");
     let fams = ["tree", "knn"];
     for (proc, res) in &all {
         for (i, fam) in fams.iter().enumerate() {
             let b: Vec<&Case> = res.iter().map(|r| &r.before[i]).collect();
             let w: Vec<&Case> = res.iter().map(|r| &r.new[i]).collect();
             let c: Vec<&Case> = res.iter().map(|r| &r.corrected[i]).collect();
+            let h: Vec<&Case> = res.iter().map(|r| &r.headline[i]).collect();
+            let g: Vec<&Case> = res.iter().map(|r| &r.guarded[i]).collect();
             let fi: Vec<f64> = res.iter().map(|r| r.fidelity[i].0).collect();
             let fm: Vec<f64> = res.iter().map(|r| r.fidelity[i].1).collect();
             println!(
-                "| {} | {fam} | {} | {} | {} | {:.0}% · {:.1}% |",
+                "| {} | {fam} | {} | {} | {} | {} | {} | {:.0}% · {:.1}% |",
                 proc.name,
                 summary(&b),
                 summary(&w),
                 summary(&c),
+                summary(&h),
+                summary(&g),
                 100.0 * mean(&fi),
                 100.0 * mean(&fm)
             );
@@ -502,9 +616,19 @@ fn calibration_study() {
         ("before", pool(&|r| r.before.clone())),
         ("new twin", pool(&|r| r.new.clone())),
         ("new, bias-corrected pick", pool(&|r| r.corrected.clone())),
+        ("new, headline pick", pool(&|r| r.headline.clone())),
+        (
+            "candidate: corrected within the twin's one-SE set",
+            pool(&|r| r.guarded.clone()),
+        ),
     ] {
         let refs: Vec<&Case> = cases.iter().collect();
         println!("| pooled | {label} | {} |", summary(&refs));
+        // Cases alternate tree, knn within a table.
+        for (i, fam) in fams.iter().enumerate() {
+            let per: Vec<&Case> = cases.iter().skip(i).step_by(fams.len()).collect();
+            println!("| pooled {fam} | {label} | {} |", summary(&per));
+        }
     }
     for (proc, res) in &all {
         let nw: Vec<f64> = res.iter().map(|r| r.sigma2_new).collect();
@@ -520,12 +644,14 @@ fn calibration_study() {
         );
     }
     // The brief's targets, asserted on what this study can support (see the docs for the
-    // measured values): mean curve error of the new twin at most 8%, and its pick within 1% of
-    // the true minimum in at least 80% of the cases. Measured (docs/twin-calibration.md §1):
-    // seed 2026 fails the curve error (10.4%), seed 2027 passes (7.9%); not loosened.
+    // measured values): mean curve error of the new twin at most 8%, and its headline pick (the
+    // pick `lossprism twin` recommends) within 1% of the true minimum in at least 80% of the
+    // cases. Measured (docs/twin-calibration.md §1): seed 2026 fails the curve error (10.4%),
+    // seed 2027 passes (7.9%); not loosened.
     let new = pool(&|r| r.new.clone());
+    let headline = pool(&|r| r.headline.clone());
     let mare = mean(&new.iter().map(|c| c.mare).collect::<Vec<_>>());
-    let near = new.iter().filter(|c| c.near).count() as f64 / new.len() as f64;
+    let near = headline.iter().filter(|c| c.near).count() as f64 / headline.len() as f64;
     assert!(mare <= 0.08, "mean curve error {mare}");
     assert!(near >= 0.8, "within 1% of the true minimum: {near}");
 }

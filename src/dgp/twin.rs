@@ -380,6 +380,15 @@ pub struct FidelityModel {
     pub corrected_loss: Vec<f64>,
 }
 
+impl FidelityModel {
+    /// The pick `lossprism twin` recommends for this family: the bias-corrected pick. In
+    /// `docs/twin-calibration.md` §1 it was inside the true one-SE set more often than the twin's
+    /// own lowest expected loss (`pick`, still reported beside it) and had the smaller regret.
+    pub fn headline_pick(&self) -> f64 {
+        self.corrected_pick
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -412,5 +412,15 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
         let sentence = super::selection::sentence(sel, &doc.knob, &doc.scenario.grid);
         out.push_str(&format!("selection: {sentence}\n"));
     }
+    if let Some(r) = doc
+        .scenario
+        .twin
+        .as_ref()
+        .and_then(|t| super::twin::recommended_sentence(&t.recommended))
+    {
+        out.push_str(&format!(
+            "twin: {r} (from `lossprism twin`, for its fidelity check's families and grids; scenario.twin in the JSON)\n"
+        ));
+    }
     out
 }

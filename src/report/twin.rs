@@ -1,11 +1,13 @@
 //! The `scenario.twin` section of a result: what a twin run can say about its own twin — the
 //! reference and the cross-validated R² of each candidate, the smoothed bootstrap of the inputs,
 //! and, when `lossprism twin` wrote the scenario, its noise correction and fidelity check
-//! (`[data.fit_report]`, echoed as written). Absent for every other source, so synthetic results
-//! are unchanged.
+//! (`[data.fit_report]`, echoed as written), and the pick it recommends per family
+//! ([`RecommendedPick`]: the fidelity check's bias-corrected pick, with the twin's own lowest
+//! expected loss beside it). Absent for every other source, so synthetic results are unchanged.
 
 use serde::{Deserialize, Serialize};
 
+use crate::dgp::twin::FidelityRecord;
 use crate::dgp::Synthetic;
 use crate::fmt::{fmt_num, fmt_se, fmt_value};
 
@@ -26,6 +28,67 @@ pub struct TwinEcho {
     /// The fidelity check (`lossprism twin`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub fidelity: Option<FidelityEcho>,
+    /// The recommended knob value per family of the fidelity check (empty without one; absent
+    /// in results written before it was added).
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub recommended: Vec<RecommendedPick>,
+}
+
+/// The knob value `lossprism twin` recommends for one family: the headline pick.
+#[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
+pub struct RecommendedPick {
+    /// Family.
+    pub family: String,
+    /// Knob.
+    pub knob: String,
+    /// The recommended value ([`crate::dgp::twin::FidelityModel::headline_pick`]).
+    pub value: f64,
+    /// How it was chosen (`bias-corrected`: the lowest of 2·EL(g) − mean EL*(g) over the twins
+    /// of the twin).
+    pub basis: String,
+    /// The value with the lowest expected loss on the twin itself (the plain pick).
+    pub twin_lowest: f64,
+}
+
+/// The recommended picks of a fidelity check, one per family.
+pub fn recommended(f: &FidelityRecord) -> Vec<RecommendedPick> {
+    f.models
+        .iter()
+        .map(|m| RecommendedPick {
+            family: m.family.clone(),
+            knob: m.knob.clone(),
+            value: m.headline_pick(),
+            basis: "bias-corrected".into(),
+            twin_lowest: m.pick,
+        })
+        .collect()
+}
+
+/// The recommended picks in one sentence (`None` when there are none), e.g. `Recommended pick
+/// (bias-corrected by the fidelity check): tree max_depth = 4 (lowest expected loss on the twin
+/// itself: 5); knn k = 12 (also the lowest on the twin itself).`
+pub fn recommended_sentence(picks: &[RecommendedPick]) -> Option<String> {
+    if picks.is_empty() {
+        return None;
+    }
+    let parts: Vec<String> = picks
+        .iter()
+        .map(|p| {
+            let plain = if p.twin_lowest == p.value {
+                "also the lowest on the twin itself".to_string()
+            } else {
+                format!(
+                    "lowest expected loss on the twin itself: {}",
+                    fmt_value(p.twin_lowest)
+                )
+            };
+            format!("{} {} = {} ({plain})", p.family, p.knob, fmt_value(p.value))
+        })
+        .collect();
+    Some(format!(
+        "Recommended pick (bias-corrected by the fidelity check): {}.",
+        parts.join("; ")
+    ))
 }
 
 /// One candidate's cross-validated R².
@@ -115,6 +178,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
         })
         .unwrap_or_default();
     let rep = r.report.clone().unwrap_or_default();
+    let recommended = rep.fidelity.as_ref().map(recommended).unwrap_or_default();
     Some(TwinEcho {
         reference: r.choice.family.name().into(),
         cv_r2,
@@ -148,6 +212,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
                 })
                 .collect(),
         }),
+        recommended,
     })
 }
 
@@ -184,11 +249,14 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             n.tables
         ));
     }
+    if let Some(r) = recommended_sentence(&t.recommended) {
+        out.push(r);
+    }
     if let Some(f) = &t.fidelity {
         for m in &f.models {
             let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
             out.push(format!(
-                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
+                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected (recommended) pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
                 f.tables,
                 f.replicates,
                 m.family,
@@ -204,4 +272,80 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
         }
     }
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::dgp::twin::FidelityModel;
+
+    fn model(family: &str, knob: &str, pick: f64, corrected: f64) -> FidelityModel {
+        FidelityModel {
+            family: family.into(),
+            knob: knob.into(),
+            pick,
+            one_se: vec![pick],
+            picks: vec![pick, pick],
+            in_one_se: 1.0,
+            curve_error: 0.05,
+            corrected_pick: corrected,
+            grid: vec![4.0, 5.0, 12.0, 20.0],
+            loss: vec![1.0; 4],
+            corrected_loss: vec![1.0; 4],
+        }
+    }
+
+    #[test]
+    fn the_recommended_pick_is_the_bias_corrected_one_with_the_plain_pick_beside_it() {
+        let f = FidelityRecord {
+            tables: 2,
+            replicates: 10,
+            models: vec![
+                model("tree", "max_depth", 5.0, 4.0),
+                model("knn", "k", 12.0, 12.0),
+            ],
+        };
+        let r = recommended(&f);
+        assert_eq!(r.len(), 2);
+        assert_eq!((r[0].value, r[0].twin_lowest), (4.0, 5.0));
+        assert_eq!((r[1].value, r[1].twin_lowest), (12.0, 12.0));
+        assert!(r.iter().all(|p| p.basis == "bias-corrected"));
+        let s = recommended_sentence(&r).expect("a sentence");
+        assert_eq!(
+            s,
+            "Recommended pick (bias-corrected by the fidelity check): tree max_depth = 4 \
+             (lowest expected loss on the twin itself: 5); knn k = 12 (also the lowest on the \
+             twin itself)."
+        );
+        assert_eq!(recommended_sentence(&[]), None);
+    }
+
+    #[test]
+    fn a_twin_section_without_recommended_picks_still_reads_and_is_not_written_empty() {
+        // Results written before `recommended` existed read as having none; an empty list is
+        // left out, so twins without a fidelity check write the same JSON as before.
+        let old = r#"{"reference": "knn", "jitter": 0.0}"#;
+        let t: TwinEcho = serde_json::from_str(old).expect("reads");
+        assert!(t.recommended.is_empty() && t.fidelity.is_none());
+        let back = serde_json::to_string(&t).unwrap();
+        assert!(!back.contains("recommended"), "{back}");
+        let with = TwinEcho {
+            recommended: recommended(&FidelityRecord {
+                tables: 1,
+                replicates: 2,
+                models: vec![model("knn", "k", 20.0, 12.0)],
+            }),
+            ..t
+        };
+        let json = serde_json::to_string(&with).unwrap();
+        assert!(
+            json.contains(r#""recommended":[{"family":"knn","knob":"k","value":12.0,"basis":"bias-corrected","twin_lowest":20.0}]"#),
+            "{json}"
+        );
+        let w = words(&with).join(" ");
+        assert!(
+            w.contains("knn k = 12 (lowest expected loss on the twin itself: 20)"),
+            "{w}"
+        );
+    }
 }
