@@ -721,6 +721,8 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
             raw.push((*m, Vec::new()));
         }
         let mut oracle = Vec::new();
+        // Per table: the value with the pilot's correction, the pilot's excess, the sampling SE.
+        let mut alt: Vec<(f64, f64, f64)> = Vec::new();
         for t in 0..tables {
             let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
             let yv = y.to_vec();
@@ -730,6 +732,7 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
             let c = fit.noise.expect("noise");
             corrected.push(c.value);
             ses.push(c.se);
+            alt.push((c.raw - c.pilot_correction, c.pilot_excess, c.sampling_se));
             for (m, v) in raw.iter_mut() {
                 let e = noise::estimate(*m, x.view(), y.view()).unwrap();
                 v.push((e.value, e.stderr, old_se(*m, &x, &y)));
@@ -745,6 +748,24 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
             .zip(&ses)
             .filter(|(v, se)| (*v - 1.0).abs() <= 2.0 * *se)
             .count();
+        let cov = |vals: &[f64], se: &[f64]| {
+            vals.iter()
+                .zip(se)
+                .filter(|(v, s)| (*v - 1.0).abs() <= 2.0 * *s)
+                .count()
+        };
+        let sampling: Vec<f64> = alt.iter().map(|a| a.2).collect();
+        let pilot_value: Vec<f64> = alt.iter().map(|a| a.0).collect();
+        let flags = alt.iter().filter(|a| a.1 > a.2).count();
+        let reference_error = format!(
+            "sampling SE alone: SE/sd {:.2}, ±2 SE coverage {}/{tables}; pilot excess mean {:.4}, flagged {flags}/{tables}; value with the pilot's correction instead: bias {:+.1}% ± {:.1}%, sd {:.3}",
+            mean(&sampling) / sd(&corrected),
+            cov(&corrected, &sampling),
+            mean(&alt.iter().map(|a| a.1).collect::<Vec<_>>()),
+            100.0 * (mean(&pilot_value) - 1.0),
+            100.0 * sd(&pilot_value) / (tables as f64).sqrt(),
+            sd(&pilot_value)
+        );
         let mut lines = vec![format!(
             "corrected ({}): bias {:+.1}% ± {:.1}%, sd {:.3}, SE/sd {:.2}, ±2 SE coverage {cover}/{tables}; oracle-f correction bias {:+.1}%",
             methods[0].name(),
@@ -754,6 +775,7 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
             mean(&ses) / s,
             100.0 * (mean(&oracle) - 1.0)
         )];
+        lines.push(reference_error);
         for (m, v) in &raw {
             let vals: Vec<f64> = v.iter().map(|a| a.0).collect();
             let s = sd(&vals);
@@ -884,6 +906,370 @@ fn twin_picks_near_the_truth_on_a_known_process() {
                 d / se
             );
             assert!(d.abs() <= 4.0 * se, "at the pick: {d} vs 4 × {se}");
+        }
+    }
+}
+
+/// Alternatives to the noise correction measured for `docs/twin-calibration.md` §2 (ideas that
+/// were not adopted), on the noise study's tables: A the shipped correction, B the additive
+/// iterated-bootstrap correction `raw − 2 est(f̂) + mean est(f̂**)` (reference refitted with
+/// the same recipe on tables drawn from the twin), C its multiplicative form
+/// `raw − est(f̂)² / mean est(f̂**)`, D a less-smooth pilot (k halved, leaf 2, the next smaller
+/// bandwidth) with its noise roughness removed in the twin's world, E the reference itself
+/// with its noise roughness removed; then the roughness terms behind them.
+#[test]
+#[ignore = "alternatives study, about a minute; results in docs/twin-calibration.md"]
+fn noise_variants() {
+    use lossprism::dgp::reference::loclin::H_CANDIDATES;
+    use lossprism::dgp::reference::Reference;
+    let tables = env_usize("LOSSPRISM_NOISE_TABLES", 30);
+    let nb = env_usize("LOSSPRISM_NOISE_REFITS", 6);
+    let procs = [SMOOTH1, KINK1, SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3];
+    let only = std::env::var("LOSSPRISM_NOISE_PROCS").unwrap_or_default();
+    let n = 300;
+    for (pi, proc) in procs.iter().enumerate() {
+        if !only.is_empty() && !only.split(',').any(|p| p == proc.name) {
+            continue;
+        }
+        let seed = 7000 + 10_000 * pi as u64;
+        let mut rows: Vec<Vec<f64>> = Vec::new();
+        for t in 0..tables {
+            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
+            let yv = y.to_vec();
+            let fit =
+                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
+                    .expect("fits");
+            let c = fit.noise.expect("noise");
+            let d = noise::Design::new(c.method, x.view()).unwrap();
+            let est = |v: &[f64]| d.value(Array1::from(v.to_vec()).view());
+            let choice = fit.selection.choice.clone();
+            let mut sharp = choice.clone();
+            sharp.k = sharp.k.map(|k| (k / 2).max(1));
+            if let Some(f) = sharp.forest.as_mut() {
+                f.min_leaf = 2;
+            }
+            if let Some(h) = sharp.bandwidth {
+                let i = H_CANDIDATES.iter().position(|c| *c == h).unwrap_or(0);
+                sharp.bandwidth = Some(H_CANDIDATES[i.saturating_sub(1)]);
+            }
+            let refit = |ch: &lossprism::dgp::reference::Choice, v: &[f64]| -> Vec<f64> {
+                let r =
+                    Reference::fit(x.view(), Array1::from(v.to_vec()).view(), 0, ch, false, "t")
+                        .unwrap();
+                x.rows()
+                    .into_iter()
+                    .map(|row| r.mean_at(&row.to_vec()))
+                    .collect()
+            };
+            let f = truth_at(*proc, &x);
+            let fh = &fit.f_rows;
+            let r0 = est(&f);
+            let r1 = est(fh);
+            let rf = est(&refit(&choice, &f));
+            let r2_0 = est(&refit(&choice, fh));
+            let sigma = c.value.max(0.0).sqrt();
+            let mut r2 = 0.0;
+            let mut s2 = 0.0;
+            for b in 0..nb {
+                let ys = dgp_twin::bootstrap_responses(fh, sigma, 99, b as u64);
+                r2 += est(&refit(&choice, ys.as_slice().unwrap()));
+                s2 += est(&refit(&sharp, ys.as_slice().unwrap()));
+            }
+            r2 /= nb as f64;
+            s2 /= nb as f64;
+            let s1 = est(&refit(&sharp, &yv));
+            let s2_0 = est(&refit(&sharp, fh));
+            rows.push(vec![
+                c.raw,
+                c.value,
+                c.raw - r0,
+                c.raw - 2.0 * r1 + r2,
+                if r2 > 0.0 && r1 > 0.0 {
+                    c.raw - r1 * r1 / r2
+                } else {
+                    c.value
+                },
+                c.raw - s1 + (s2 - s2_0),
+                c.raw - r1 + (r2 - r2_0),
+                r0,
+                r1,
+                rf,
+                r2_0,
+                r2,
+                s1,
+                s2_0,
+                s2,
+                c.sampling_se,
+            ]);
+        }
+        let names = [
+            "raw",
+            "A cur",
+            "oracle",
+            "B add",
+            "C mult",
+            "D sharp",
+            "E noise",
+            "R0 est f",
+            "R1 est fh",
+            "Rf P(f)",
+            "R2_0 P(fh)",
+            "R2 P(y*)",
+            "S1 P'(y)",
+            "S2_0 P'(fh)",
+            "S2 P'(y*)",
+            "se",
+        ];
+        println!("{} ({}):", proc.name, tables);
+        for (j, nm) in names.iter().enumerate() {
+            let v: Vec<f64> = rows.iter().map(|r| r[j]).collect();
+            let cover = if (1..7).contains(&j) {
+                let c = rows
+                    .iter()
+                    .filter(|r| (r[j] - 1.0).abs() <= 2.0 * r[15])
+                    .count();
+                format!(" cover {c}/{tables}")
+            } else {
+                String::new()
+            };
+            println!(
+                "  {nm:>12}: mean {:.4} ± {:.4} sd {:.4}{cover}",
+                mean(&v),
+                sd(&v) / (v.len() as f64).sqrt(),
+                sd(&v)
+            );
+        }
+    }
+}
+
+/// Alternative measured for `docs/twin-calibration.md` §2 (not adopted): the residual-based
+/// estimator `‖(I − S) y‖² / tr((I − S)ᵀ(I − S))` for the linear smoothers among the candidates
+/// (k-NN at the cross-validated k, local-linear at the cross-validated bandwidth), with S built
+/// explicitly (Buja, Hastie and Tibshirani 1989; Hastie and Tibshirani 1990, *Generalized
+/// Additive Models*, §3.4 — from memory).
+#[test]
+#[ignore = "alternatives study, a few minutes; results in docs/twin-calibration.md"]
+fn noise_df() {
+    use lossprism::dgp::reference::LocLin;
+    use lossprism::family::neighbours::{NeighbourIndex, Scratch};
+    let tables = env_usize("LOSSPRISM_NOISE_TABLES", 30);
+    let procs = [SMOOTH1, KINK1, SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3];
+    let only = std::env::var("LOSSPRISM_NOISE_PROCS").unwrap_or_default();
+    let n = 300;
+    // σ̂² = ‖(I − S) y‖² / tr((I − S)ᵀ(I − S)) for an explicit S (row i = weights of f̂(x_i)).
+    let df_est = |s: &Array2<f64>, y: &[f64]| -> (f64, f64, f64) {
+        let n = y.len();
+        let mut rss = 0.0;
+        let mut den = 0.0;
+        for i in 0..n {
+            let fi: f64 = (0..n).map(|j| s[[i, j]] * y[j]).sum();
+            rss += (y[i] - fi).powi(2);
+        }
+        // tr((I−S)ᵀ(I−S)) = Σ_ij (δ_ij − S_ij)².
+        for i in 0..n {
+            for j in 0..n {
+                let d = if i == j { 1.0 } else { 0.0 } - s[[i, j]];
+                den += d * d;
+            }
+        }
+        let tr: f64 = (0..n).map(|i| s[[i, i]]).sum();
+        (rss / den, tr, den)
+    };
+    for (pi, proc) in procs.iter().enumerate() {
+        if !only.is_empty() && !only.split(',').any(|p| p == proc.name) {
+            continue;
+        }
+        let seed = 7000 + 10_000 * pi as u64;
+        let mut rows: Vec<Vec<f64>> = Vec::new();
+        for t in 0..tables {
+            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
+            let yv = y.to_vec();
+            let fit =
+                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
+                    .expect("fits");
+            let c = fit.noise.expect("noise");
+            let k = fit.selection.choice.k.unwrap();
+            let idx = NeighbourIndex::new(x.view(), true);
+            let mut sk = Array2::zeros((n, n));
+            let mut sc = Scratch::default();
+            let mut buf = Vec::new();
+            for i in 0..n {
+                idx.nearest(&x.row(i).to_vec(), k, &mut sc, &mut buf);
+                for &j in &buf {
+                    sk[[i, j]] += 1.0 / buf.len() as f64;
+                }
+            }
+            let tuned = &fit.selection.scores[2].tuned;
+            let h: f64 = tuned
+                .trim_start_matches("bandwidth = ")
+                .trim_end_matches(" sd")
+                .parse()
+                .unwrap();
+            let mut sl = Array2::zeros((n, n));
+            for j in 0..n {
+                let mut e = vec![0.0; n];
+                e[j] = 1.0;
+                let l = LocLin::fit(x.view(), &e, h);
+                for i in 0..n {
+                    sl[[i, j]] = l.predict(&x.row(i).to_vec());
+                }
+            }
+            let (vk, trk, _) = df_est(&sk, &yv);
+            let (vl, trl, _) = df_est(&sl, &yv);
+            let f = truth_at(*proc, &x);
+            let (bk, _, _) = df_est(&sk, &f);
+            let (bl, _, _) = df_est(&sl, &f);
+            rows.push(vec![
+                c.value,
+                vk,
+                vl,
+                trk,
+                trl,
+                bk,
+                bl,
+                k as f64,
+                h,
+                c.sampling_se,
+            ]);
+        }
+        let names = [
+            "A cur",
+            "knn df",
+            "loclin df",
+            "tr S knn",
+            "tr S ll",
+            "knn bias",
+            "ll bias",
+            "k",
+            "h",
+            "se",
+        ];
+        println!("{} ({}):", proc.name, tables);
+        for (j, nm) in names.iter().enumerate() {
+            let v: Vec<f64> = rows.iter().map(|r| r[j]).collect();
+            let cover = if j < 3 {
+                let c = rows
+                    .iter()
+                    .filter(|r| (r[j] - 1.0).abs() <= 2.0 * r[9])
+                    .count();
+                format!(" cover(cur se) {c}/{tables}")
+            } else {
+                String::new()
+            };
+            println!(
+                "  {nm:>12}: mean {:.4} ± {:.4} sd {:.4}{cover}",
+                mean(&v),
+                sd(&v) / (v.len() as f64).sqrt(),
+                sd(&v)
+            );
+        }
+    }
+}
+
+/// Alternative measured for `docs/twin-calibration.md` §2 (not adopted as the value): the sharp
+/// pilot's correction as the subtracted bias, for pilot trees of several leaf sizes, with the
+/// pilot's noise roughness removed in the twin's world ("noise-term") or its whole bias in the
+/// twin's world removed ("twin-bias"), and the pilot's roughness on the true f.
+#[test]
+#[ignore = "alternatives study, about a minute; results in docs/twin-calibration.md"]
+fn noise_tree_pilot() {
+    use lossprism::family::tree::TreeFamily;
+    use lossprism::family::Task;
+    let tables = env_usize("LOSSPRISM_NOISE_TABLES", 30);
+    let nb = env_usize("LOSSPRISM_NOISE_REFITS", 10);
+    let procs = [SMOOTH1, KINK1, SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3];
+    let only = std::env::var("LOSSPRISM_NOISE_PROCS").unwrap_or_default();
+    let leaves = [2usize, 5, 10, 20, 40];
+    let n = 300;
+    for (pi, proc) in procs.iter().enumerate() {
+        if !only.is_empty() && !only.split(',').any(|p| p == proc.name) {
+            continue;
+        }
+        let seed = 7000 + 10_000 * pi as u64;
+        let mut rows: Vec<Vec<f64>> = Vec::new();
+        for t in 0..tables {
+            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
+            let yv = y.to_vec();
+            let fit =
+                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
+                    .expect("fits");
+            let c = fit.noise.expect("noise");
+            let d = noise::Design::new(c.method, x.view()).unwrap();
+            let est = |v: &[f64]| d.value(Array1::from(v.to_vec()).view());
+            // est of the tree fitted on v, for each leaf size (grown without a depth limit).
+            let tree_est = |v: &[f64]| -> Vec<f64> {
+                leaves
+                    .iter()
+                    .map(|&leaf| {
+                        let dp = 64;
+                        let tr = TreeFamily {
+                            min_samples_leaf: leaf,
+                            ..Default::default()
+                        }
+                        .grow(
+                            x.view(),
+                            Array1::from(v.to_vec()).view(),
+                            Task::Regress,
+                            64,
+                            &mut ChaCha8Rng::seed_from_u64(3),
+                        )
+                        .unwrap();
+                        let p: Vec<f64> = x
+                            .rows()
+                            .into_iter()
+                            .map(|r| tr.predict_at_depth(r, dp))
+                            .collect();
+                        est(&p)
+                    })
+                    .collect()
+            };
+            let fh = &fit.f_rows;
+            let r1 = est(fh);
+            let t1 = tree_est(&yv);
+            let t0 = tree_est(fh);
+            let sigma = c.value.max(0.0).sqrt();
+            let mut t2 = vec![0.0; leaves.len()];
+            for b in 0..nb {
+                let ys = dgp_twin::bootstrap_responses(fh, sigma, 99, b as u64);
+                for (a, v) in t2.iter_mut().zip(tree_est(ys.as_slice().unwrap())) {
+                    *a += v / nb as f64;
+                }
+            }
+            let f = truth_at(*proc, &x);
+            let tf = tree_est(&f);
+            let mut row = vec![c.value, c.raw - est(&f), c.sampling_se];
+            for i in 0..leaves.len() {
+                // noise term removed: raw − (T1 − (T2 − T0)); twin-world bias: raw − (T1 − (T2 − R1)).
+                row.push(c.raw - (t1[i] - (t2[i] - t0[i])));
+                row.push(c.raw - (t1[i] - (t2[i] - r1)));
+                row.push(tf[i]);
+            }
+            rows.push(row);
+        }
+        println!("{} ({}):", proc.name, tables);
+        let mut names = vec!["A cur".to_string(), "oracle".into(), "se".into()];
+        for leaf in leaves {
+            names.push(format!("noise-term leaf {leaf}"));
+            names.push(format!("twin-bias leaf {leaf}"));
+            names.push(format!("est tree(f) leaf {leaf}"));
+        }
+        for (j, nm) in names.iter().enumerate() {
+            let v: Vec<f64> = rows.iter().map(|r| r[j]).collect();
+            let cover = if j != 2 && (j < 3 || (j - 3) % 3 != 2) {
+                let c = rows
+                    .iter()
+                    .filter(|r| (r[j] - 1.0).abs() <= 2.0 * r[2])
+                    .count();
+                format!(" cover {c}/{tables}")
+            } else {
+                String::new()
+            };
+            println!(
+                "  {nm:>18}: mean {:.4} ± {:.4} sd {:.4}{cover}",
+                mean(&v),
+                sd(&v) / (v.len() as f64).sqrt(),
+                sd(&v)
+            );
         }
     }
 }

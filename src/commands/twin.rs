@@ -424,14 +424,36 @@ fn inputs_line(t: &Table, jitter: Option<&Jitter>, eval_size: usize) -> String {
 }
 
 fn noise_line(n: &NoiseCorrection) -> String {
+    let check = if n.pilot_excess.is_finite() {
+        format!(
+            " Check with a sharp pilot (one unpruned regression tree, {} rows per leaf, its own noise removed on the same tables): bias {}, {} the reference's{}.",
+            twin::PILOT_MIN_LEAF,
+            fmt_num(n.pilot_correction),
+            if n.pilot_excess > 0.0 {
+                format!("{} above", fmt_num(n.pilot_excess))
+            } else {
+                "not above".to_string()
+            },
+            if n.flagged() {
+                "; more than the sampling SE, so the reference may have rounded off a step and σ̂² may be high by up to that much (counted in the SE)"
+            } else if n.pilot_excess > 0.0 {
+                " (counted in the SE)"
+            } else {
+                ""
+            }
+        )
+    } else {
+        String::new()
+    };
     format!(
-        "Noise ({}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (SE from {} parametric-bootstrap tables drawn from the twin){}.",
+        "Noise ({}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from the twin, and the reference's possible error){}.{check}",
         n.method.describe(),
         fmt_num(n.raw),
         fmt_se(n.raw_se),
         fmt_num(n.correction),
         fmt_num(n.value),
         fmt_se(n.se),
+        fmt_se(n.sampling_se),
         n.tables,
         if n.floored {
             "; the correction exceeded the raw estimate, so σ̂² is floored at 5% of it"
