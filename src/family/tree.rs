@@ -515,6 +515,19 @@ impl TieRuns {
         self.runs.push((pos, 1));
     }
 
+    /// A new best from input position `pos`, attained by `count` of its candidates.
+    #[inline]
+    fn reset_to(&mut self, pos: usize, count: u64) {
+        self.runs.clear();
+        self.runs.push((pos, count));
+    }
+
+    /// `count` candidates of input position `pos` (a later input) equal to the best.
+    #[inline]
+    fn add_run(&mut self, pos: usize, count: u64) {
+        self.runs.push((pos, count));
+    }
+
     /// Another candidate equal to the best.
     #[inline]
     fn add(&mut self, pos: usize) {
@@ -980,15 +993,14 @@ impl Grower<'_> {
         runs.clear();
         for (pos, &f) in self.feats.iter().enumerate() {
             let (idx, val) = self.lists(f, start, end);
-            scan_regress(idx, val, y, mean, tc, ml, |k, score, a, b| {
-                if score > best_score {
-                    best_score = score;
-                    runs.reset(pos);
-                    best = Some(Split::new(f, k, a, b));
-                } else if score == best_score {
-                    runs.add(pos);
-                }
-            });
+            let r = scan_regress_running(idx, val, y, mean, tc, ml, best_score);
+            if r.improved {
+                best_score = r.best;
+                runs.reset_to(pos, r.count);
+                best = Some(Split::new(f, r.k, val[r.k], val[r.k + 1]));
+            } else if r.count > 0 {
+                runs.add_run(pos, r.count);
+            }
         }
         let decrease = best_score - tc * tc / len as f64;
         if decrease > REL_TOL * sse {
@@ -1249,6 +1261,77 @@ fn scan_regress(
         let nr = (len - k - 1) as f64;
         let sr = tc - sl;
         visit(k, sl * sl / nl + sr * sr / nr, a, b);
+    }
+}
+
+/// What one input's scan did to the running best score (see [`scan_regress_running`]).
+struct Running {
+    /// The running best after the input.
+    best: f64,
+    /// Whether one of the input's candidates beat the running best it started from.
+    improved: bool,
+    /// The first of the input's candidates attaining `best` (meaningful when `improved`).
+    k: usize,
+    /// How many of the input's candidates equal `best` (after its last improvement).
+    count: u64,
+}
+
+/// [`scan_regress`] folded into the running best over the node's inputs, with the state in
+/// locals (no closure): starting from `best`, a candidate scoring higher becomes the best (and
+/// the tie count restarts at 1), one scoring equal adds a tie. The running best is carried
+/// across inputs, so after the first input a candidate rarely beats it and the branch stays
+/// predictable.
+#[inline(always)]
+fn scan_regress_running(
+    idx: &[u32],
+    val: &[f64],
+    y: &[f64],
+    mean: f64,
+    tc: f64,
+    ml: usize,
+    mut best: f64,
+) -> Running {
+    let len = idx.len();
+    let mut sl = 0.0;
+    for &i in &idx[..ml - 1] {
+        sl += y[i as usize] - mean;
+    }
+    assert!(val.len() == len && ml >= 1 && ml <= len);
+    let (mut improved, mut bk, mut count) = (false, 0usize, 0u64);
+    for k in (ml - 1)..(len - ml) {
+        // SAFETY: as in `scan_regress`: `k + 1 < len == idx.len() == val.len()`, and the sorted
+        // lists hold sample ids below `n == y.len()` by construction (see `grow_from`).
+        let (yi, a, b) = unsafe {
+            let i = *idx.get_unchecked(k) as usize;
+            debug_assert!(i < y.len());
+            (
+                *y.get_unchecked(i),
+                *val.get_unchecked(k),
+                *val.get_unchecked(k + 1),
+            )
+        };
+        sl += yi - mean;
+        if a == b {
+            continue;
+        }
+        let nl = (k + 1) as f64;
+        let nr = (len - k - 1) as f64;
+        let sr = tc - sl;
+        let score = sl * sl / nl + sr * sr / nr;
+        if score > best {
+            best = score;
+            improved = true;
+            bk = k;
+            count = 1;
+        } else if score == best {
+            count += 1;
+        }
+    }
+    Running {
+        best,
+        improved,
+        k: bk,
+        count,
     }
 }
 
