@@ -664,7 +664,7 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
             }
         }
         if nb >= 2 {
-            type Fold = (Vec<Row>, Vec<f64>);
+            type Fold = (Vec<Row>, Vec<f64>, Vec<f64>);
             let done: Vec<std::sync::Mutex<Option<Fold>>> =
                 (b0..b1).map(|_| std::sync::Mutex::new(None)).collect();
             let with_noise = noise.is_some();
@@ -679,20 +679,21 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
                 }
                 let acc = acc.expect("at least one block remains");
                 let rows = loss.evaluate(&acc, target);
-                let mut flat = Vec::new();
+                let (mut flat, mut centre) = (Vec::new(), Vec::new());
                 if with_noise {
                     loss.per_point(&acc, target, n_terms, &mut flat);
+                    centre = fold_centres(&flat, acc.shape.grid * n_terms);
                 }
-                *done[j].lock().unwrap_or_else(|e| e.into_inner()) = Some((rows, flat));
+                *done[j].lock().unwrap_or_else(|e| e.into_inner()) = Some((rows, flat, centre));
             });
             for slot in done {
-                let (rows, flat) = slot
+                let (rows, flat, centre) = slot
                     .into_inner()
                     .unwrap_or_else(|e| e.into_inner())
                     .expect("every fold task ran");
                 leave_out.push(rows);
                 if let Some(n) = &mut noise {
-                    n.push(&flat);
+                    n.push(&flat, &centre, par);
                 }
             }
         }
@@ -757,85 +758,104 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
     })
 }
 
+/// Points per chunk of [`PointNoise`]'s state (the unit of its parallel update; fixed, so the
+/// result does not depend on the number of workers).
+const NOISE_CHUNK: usize = 256;
+
+/// The centre of each (grid, term) column of a fold (`points × stride`, point-major): the mean of
+/// its finite values, summed in point order; NaN for a column with none.
+fn fold_centres(flat: &[f64], stride: usize) -> Vec<f64> {
+    let mut sum = vec![0.0; stride];
+    let mut count = vec![0u64; stride];
+    for row in flat.chunks_exact(stride.max(1)) {
+        for ((s, c), &v) in sum.iter_mut().zip(count.iter_mut()).zip(row) {
+            if v.is_finite() {
+                *s += v;
+                *c += 1;
+            }
+        }
+    }
+    for (s, &c) in sum.iter_mut().zip(count.iter()) {
+        *s = if c == 0 { f64::NAN } else { *s / c as f64 };
+    }
+    sum
+}
+
 /// Streaming state of [`point_noise`]: per point, grid value and term, Welford's running mean
 /// and sum of squares over the leave-one-block-out folds of the point's term centred on the
 /// fold's mean over points.
 ///
-/// The state is point-major like the folds (`e * stride + o`, `stride = grid × terms`), so a
-/// fold is read once, front to back. A cell whose term is not finite in some fold is poisoned
-/// (its sum of squares becomes NaN and stays NaN) instead of counted, and left out at the end:
-/// only cells finite in every fold count, as the jackknife needs.
+/// The state is point-major like the folds (`e * stride + o`, `stride = grid × terms`), cut
+/// into chunks of [`NOISE_CHUNK`] points that are updated independently (in parallel when the
+/// engine gives workers). A cell whose term is not finite in some fold is poisoned (its sum of
+/// squares becomes NaN and stays NaN) instead of counted, and left out at the end: only cells
+/// finite in every fold count, as the jackknife needs.
 struct PointNoise {
     folds: u64,
     points: usize,
     grid: usize,
     terms: usize,
-    /// Per (point, grid, term), point-major.
-    mean: Vec<f64>,
-    m2: Vec<f64>,
-    /// Per (grid, term) of the current fold: sum and count of the finite values, then centre.
-    sum: Vec<f64>,
-    count: Vec<u64>,
+    /// Per chunk of points: the running means and sums of squares, point-major.
+    chunks: Vec<std::sync::Mutex<(Vec<f64>, Vec<f64>)>>,
 }
 
 impl PointNoise {
     fn new(points: usize, grid: usize, terms: usize) -> PointNoise {
-        let len = points * grid * terms;
+        let stride = grid * terms;
+        let chunks = (0..points.div_ceil(NOISE_CHUNK))
+            .map(|c| {
+                let len = (points - c * NOISE_CHUNK).min(NOISE_CHUNK) * stride;
+                std::sync::Mutex::new((vec![0.0; len], vec![0.0; len]))
+            })
+            .collect();
         PointNoise {
             folds: 0,
             points,
             grid,
             terms,
-            mean: vec![0.0; len],
-            m2: vec![0.0; len],
-            sum: vec![0.0; grid * terms],
-            count: vec![0; grid * terms],
+            chunks,
         }
     }
 
-    /// Adds one fold's per-point terms (flat, `points × grid × terms`, point-major).
-    fn push(&mut self, flat: &[f64]) {
+    /// Adds one fold's per-point terms (flat, `points × grid × terms`, point-major) with the
+    /// fold's column centres ([`fold_centres`]).
+    fn push(&mut self, flat: &[f64], centre: &[f64], par: &dyn ParFor) {
         self.folds += 1;
         let k = self.folds as f64;
         let stride = self.grid * self.terms;
         debug_assert_eq!(flat.len(), self.points * stride);
-        let (sum, count) = (&mut self.sum, &mut self.count);
-        sum.iter_mut().for_each(|s| *s = 0.0);
-        count.iter_mut().for_each(|c| *c = 0);
-        // The centre of each (grid, term) column: its finite values summed in point order.
-        for row in flat.chunks_exact(stride) {
-            for ((s, c), &v) in sum.iter_mut().zip(count.iter_mut()).zip(row) {
-                if v.is_finite() {
-                    *s += v;
-                    *c += 1;
+        debug_assert_eq!(centre.len(), stride);
+        let chunks = &self.chunks;
+        par.run(chunks.len(), &|c| {
+            let mut state = chunks[c].lock().unwrap_or_else(|e| e.into_inner());
+            let (mean, m2) = &mut *state;
+            let rows = &flat[c * NOISE_CHUNK * stride..c * NOISE_CHUNK * stride + mean.len()];
+            for ((mean, m2), row) in mean
+                .chunks_exact_mut(stride)
+                .zip(m2.chunks_exact_mut(stride))
+                .zip(rows.chunks_exact(stride))
+            {
+                let (mean, m2, row) = (&mut mean[..stride], &mut m2[..stride], &row[..stride]);
+                for o in 0..stride {
+                    // A non-finite value or centre makes `m2` NaN for good (NaN and ∞ − ∞
+                    // propagate).
+                    let c = row[o] - centre[o];
+                    let d = c - mean[o];
+                    mean[o] += d / k;
+                    m2[o] += d * (c - mean[o]);
                 }
             }
-        }
-        for (s, &c) in sum.iter_mut().zip(count.iter()) {
-            // No finite value in the column: every cell of it is poisoned.
-            *s = if c == 0 { f64::NAN } else { *s / c as f64 };
-        }
-        let centre = &self.sum[..stride];
-        for ((mean, m2), row) in self
-            .mean
-            .chunks_exact_mut(stride)
-            .zip(self.m2.chunks_exact_mut(stride))
-            .zip(flat.chunks_exact(stride))
-        {
-            let (mean, m2, row) = (&mut mean[..stride], &mut m2[..stride], &row[..stride]);
-            for o in 0..stride {
-                // A non-finite value or centre makes `m2` NaN for good (NaN and ∞ − ∞ propagate).
-                let c = row[o] - centre[o];
-                let d = c - mean[o];
-                mean[o] += d / k;
-                m2[o] += d * (c - mean[o]);
-            }
-        }
+        });
     }
 
     fn finish(self) -> Vec<Row> {
         let b = self.folds as f64;
         let (points, stride) = (self.points, self.grid * self.terms);
+        let chunks: Vec<(Vec<f64>, Vec<f64>)> = self
+            .chunks
+            .into_iter()
+            .map(|c| c.into_inner().unwrap_or_else(|e| e.into_inner()))
+            .collect();
         (0..self.grid)
             .map(|g| {
                 (0..self.terms)
@@ -843,7 +863,7 @@ impl PointNoise {
                         let o = g * self.terms + t;
                         let (mut sum, mut k) = (0.0, 0usize);
                         for e in 0..points {
-                            let m2 = self.m2[e * stride + o];
+                            let m2 = chunks[e / NOISE_CHUNK].1[(e % NOISE_CHUNK) * stride + o];
                             if m2.is_finite() && self.folds >= 2 {
                                 // Delete-a-group jackknife variance (Efron and Tibshirani 1993,
                                 // eq. 11.5) of the point's centred term.
@@ -1017,7 +1037,8 @@ mod tests {
     /// only; a column with no finite value at all is NaN.
     #[test]
     fn point_noise_matches_its_two_pass_definition() {
-        let (points, grid, terms, folds) = (7, 2, 3, 5);
+        // 600 points: three chunks of the state.
+        let (points, grid, terms, folds) = (600, 2, 3, 5);
         let stride = grid * terms;
         let mut s = 0x9e37_79b9_7f4a_7c15u64;
         let mut next = || {
@@ -1036,11 +1057,27 @@ mod tests {
         for e in 0..points {
             data[1][e * stride + 5] = f64::NAN;
         }
+        // Tasks in reverse order: the chunks are independent, so the order must not matter.
+        struct Reversed;
+        impl ParFor for Reversed {
+            fn width(&self) -> usize {
+                3
+            }
+            fn run(&self, n: usize, task: &(dyn Fn(usize) + Sync)) {
+                (0..n).rev().for_each(task);
+            }
+        }
         let mut pn = PointNoise::new(points, grid, terms);
+        let mut serial = PointNoise::new(points, grid, terms);
         for f in &data {
-            pn.push(f);
+            pn.push(f, &fold_centres(f, stride), &Reversed);
+            serial.push(f, &fold_centres(f, stride), &Serial);
         }
         let got = pn.finish();
+        let serial = serial.finish();
+        for (a, b) in got.iter().flatten().zip(serial.iter().flatten()) {
+            assert_eq!(a.to_bits(), b.to_bits());
+        }
         let b = folds as f64;
         for o in 0..stride {
             let centres: Vec<f64> = data

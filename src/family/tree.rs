@@ -351,6 +351,12 @@ fn sort_key(v: f64) -> u64 {
     }
 }
 
+/// The inverse of [`sort_key`]: the value whose key is `key` (`-0.0` comes back as `0.0`).
+#[inline]
+fn from_sort_key(key: u64) -> f64 {
+    f64::from_bits(if key >> 63 == 1 { key & !(1 << 63) } else { !key })
+}
+
 /// Sorts `pairs` by their `u64` key, stably (pairs with equal keys keep their order): a
 /// least-significant-digit radix sort on bytes, skipping the bytes every key shares. `tmp` is
 /// scratch of the same length. Linear in the length, where a comparison sort is not.
@@ -450,10 +456,12 @@ impl Presorted {
             );
             // Built in index order, so a stable sort by key is the sort by (key, index).
             radix_sort_stable(&mut pairs, &mut radix_tmp);
-            let col = x.column(f);
-            for (k, &(_, i)) in pairs.iter().enumerate() {
-                order[f * n + k] = i;
-                val[f * n + k] = col[i as usize] + 0.0;
+            // The value comes back from its key (the map is a bijection onto `v + 0.0`), so the
+            // column is not read again in sorted, scattered order.
+            let (order, val) = (&mut order[f * n..(f + 1) * n], &mut val[f * n..(f + 1) * n]);
+            for ((o, v), &(key, i)) in order.iter_mut().zip(val.iter_mut()).zip(&pairs) {
+                *o = i;
+                *v = from_sort_key(key);
             }
         }
         Ok(Presorted { n, p, order, val })
@@ -1552,6 +1560,33 @@ mod tests {
                 2.0
             }
         })
+    }
+
+    #[test]
+    fn sort_keys_invert_exactly_and_keep_the_order() {
+        let vals = [
+            f64::MIN,
+            -1e300,
+            -2.5,
+            -1.0,
+            -f64::MIN_POSITIVE,
+            -5e-324,
+            -0.0,
+            0.0,
+            5e-324,
+            f64::MIN_POSITIVE,
+            0.1,
+            1.0,
+            3.75,
+            1e300,
+            f64::MAX,
+        ];
+        for w in vals.windows(2) {
+            assert!(sort_key(w[0]) <= sort_key(w[1]), "{} {}", w[0], w[1]);
+        }
+        for &v in &vals {
+            assert_eq!(from_sort_key(sort_key(v)).to_bits(), (v + 0.0).to_bits(), "{v}");
+        }
     }
 
     #[test]
