@@ -768,11 +768,12 @@ fn fold_centres(flat: &[f64], stride: usize) -> Vec<f64> {
     let mut sum = vec![0.0; stride];
     let mut count = vec![0u64; stride];
     for row in flat.chunks_exact(stride.max(1)) {
-        for ((s, c), &v) in sum.iter_mut().zip(count.iter_mut()).zip(row) {
-            if v.is_finite() {
-                *s += v;
-                *c += 1;
-            }
+        let (sum, count, row) = (&mut sum[..stride], &mut count[..stride], &row[..stride]);
+        for o in 0..stride {
+            // Branch-free: a non-finite value adds −0.0, which leaves every sum as it is.
+            let finite = row[o].is_finite();
+            sum[o] += if finite { row[o] } else { -0.0 };
+            count[o] += u64::from(finite);
         }
     }
     for (s, &c) in sum.iter_mut().zip(count.iter()) {
@@ -826,6 +827,7 @@ impl PointNoise {
         debug_assert_eq!(flat.len(), self.points * stride);
         debug_assert_eq!(centre.len(), stride);
         let chunks = &self.chunks;
+        let centre = &centre[..stride];
         par.run(chunks.len(), &|c| {
             let mut state = chunks[c].lock().unwrap_or_else(|e| e.into_inner());
             let (mean, m2) = &mut *state;
