@@ -354,7 +354,11 @@ fn sort_key(v: f64) -> u64 {
 /// The inverse of [`sort_key`]: the value whose key is `key` (`-0.0` comes back as `0.0`).
 #[inline]
 fn from_sort_key(key: u64) -> f64 {
-    f64::from_bits(if key >> 63 == 1 { key & !(1 << 63) } else { !key })
+    f64::from_bits(if key >> 63 == 1 {
+        key & !(1 << 63)
+    } else {
+        !key
+    })
 }
 
 /// Sorts `pairs` by their `u64` key, stably (pairs with equal keys keep their order): a
@@ -1585,7 +1589,11 @@ mod tests {
             assert!(sort_key(w[0]) <= sort_key(w[1]), "{} {}", w[0], w[1]);
         }
         for &v in &vals {
-            assert_eq!(from_sort_key(sort_key(v)).to_bits(), (v + 0.0).to_bits(), "{v}");
+            assert_eq!(
+                from_sort_key(sort_key(v)).to_bits(),
+                (v + 0.0).to_bits(),
+                "{v}"
+            );
         }
     }
 
