@@ -1289,10 +1289,11 @@ struct Running {
 }
 
 /// [`scan_regress`] folded into the running best over the node's inputs, with the state in
-/// locals (no closure): starting from `best`, a candidate scoring higher becomes the best (and
-/// the tie count restarts at 1), one scoring equal adds a tie. The running best is carried
-/// across inputs, so after the first input a candidate rarely beats it and the branch stays
-/// predictable.
+/// the callee's locals (the visit closure captures nothing else, so after inlining the state
+/// and the running sums stay in registers): starting from `best`, a candidate scoring higher
+/// becomes the best (and the tie count restarts at 1), one scoring equal adds a tie. The
+/// running best is carried across inputs, so after the first input a candidate rarely beats it
+/// and the branch stays predictable.
 #[inline(always)]
 fn scan_regress_running(
     idx: &[u32],
@@ -1303,33 +1304,8 @@ fn scan_regress_running(
     ml: usize,
     mut best: f64,
 ) -> Running {
-    let len = idx.len();
-    let mut sl = 0.0;
-    for &i in &idx[..ml - 1] {
-        sl += y[i as usize] - mean;
-    }
-    assert!(val.len() == len && ml >= 1 && ml <= len);
     let (mut improved, mut bk, mut count) = (false, 0usize, 0u64);
-    for k in (ml - 1)..(len - ml) {
-        // SAFETY: as in `scan_regress`: `k + 1 < len == idx.len() == val.len()`, and the sorted
-        // lists hold sample ids below `n == y.len()` by construction (see `grow_from`).
-        let (yi, a, b) = unsafe {
-            let i = *idx.get_unchecked(k) as usize;
-            debug_assert!(i < y.len());
-            (
-                *y.get_unchecked(i),
-                *val.get_unchecked(k),
-                *val.get_unchecked(k + 1),
-            )
-        };
-        sl += yi - mean;
-        if a == b {
-            continue;
-        }
-        let nl = (k + 1) as f64;
-        let nr = (len - k - 1) as f64;
-        let sr = tc - sl;
-        let score = sl * sl / nl + sr * sr / nr;
+    scan_regress(idx, val, y, mean, tc, ml, |k, score, _, _| {
         if score > best {
             best = score;
             improved = true;
@@ -1338,7 +1314,7 @@ fn scan_regress_running(
         } else if score == best {
             count += 1;
         }
-    }
+    });
     Running {
         best,
         improved,
