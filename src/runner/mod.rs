@@ -22,7 +22,7 @@ use std::collections::BTreeMap;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Mutex;
 
-use ndarray::{Array3, Array4, ArrayView2, ArrayView3, Axis};
+use ndarray::{ArrayView2, ArrayView3, ArrayViewMut3, ArrayViewMut4, Axis};
 use rayon::prelude::*;
 
 pub use source::{draw, prepare, training_set, Draw, Prepared};
@@ -144,6 +144,11 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
         .as_ref()
         .map(|_| AuditAcc::new(plan.models.iter().map(|m| m.grid.len()).sum()));
     let mut held_share = matches!(plan.source, Source::Table(_)).then_some((0.0, 0.0));
+    // Prediction buffers reused by every replicate and model of the block (cleared to zeros
+    // before each fit, as fresh arrays would be): allocating them per replicate made the
+    // allocator hand the pages back and fault them in again every time.
+    let (mut vbuf, mut pbuf, mut dbuf): (Vec<f64>, Vec<f64>, Vec<f64>) =
+        (Vec::new(), Vec::new(), Vec::new());
     for r in start..end {
         let d = draw(plan, prep, r)?;
         if let (Some(a), Some(counts)) = (&plan.audit, audit_acc.as_mut()) {
@@ -164,10 +169,21 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
                 let g = model.grid.len();
                 let fits = model.fit_seeds;
                 let caps = model.family.caps(plan.task);
-                let mut values = Array3::<f64>::zeros((fits, g, m));
-                let mut probs = Array4::<f64>::zeros((fits, g, m, if needs_probs { k } else { 0 }));
-                let mut diversity =
-                    Array3::<f64>::zeros((fits, g, if caps.ensemble { m } else { 0 }));
+                let pk = if needs_probs { k } else { 0 };
+                let dm = if caps.ensemble { m } else { 0 };
+                let zeroed = |buf: &mut Vec<f64>, len: usize| {
+                    buf.clear();
+                    buf.resize(len, 0.0);
+                };
+                zeroed(&mut vbuf, fits * g * m);
+                zeroed(&mut pbuf, fits * g * m * pk);
+                zeroed(&mut dbuf, fits * g * dm);
+                let mut values = ArrayViewMut3::from_shape((fits, g, m), &mut vbuf[..])
+                    .expect("buffer sized to the shape");
+                let mut probs = ArrayViewMut4::from_shape((fits, g, m, pk), &mut pbuf[..])
+                    .expect("buffer sized to the shape");
+                let mut diversity = ArrayViewMut3::from_shape((fits, g, dm), &mut dbuf[..])
+                    .expect("buffer sized to the shape");
                 if m > 0 {
                     for s in 0..fits {
                         let input = FitInput {
