@@ -852,29 +852,31 @@ impl PointNoise {
 
     fn finish(self) -> Vec<Row> {
         let b = self.folds as f64;
-        let (points, stride) = (self.points, self.grid * self.terms);
-        let chunks: Vec<(Vec<f64>, Vec<f64>)> = self
-            .chunks
-            .into_iter()
-            .map(|c| c.into_inner().unwrap_or_else(|e| e.into_inner()))
-            .collect();
+        let stride = self.grid * self.terms;
+        // Per (grid, term): the jackknife variances of the points finite in every fold, summed
+        // in point order.
+        let mut sum = vec![0.0; stride];
+        let mut count = vec![0usize; stride];
+        for chunk in self.chunks {
+            let (_, m2) = chunk.into_inner().unwrap_or_else(|e| e.into_inner());
+            for row in m2.chunks_exact(stride.max(1)) {
+                for o in 0..stride {
+                    if row[o].is_finite() && self.folds >= 2 {
+                        // Delete-a-group jackknife variance (Efron and Tibshirani 1993, eq. 11.5)
+                        // of the point's centred term.
+                        sum[o] += (b - 1.0) / b * row[o];
+                        count[o] += 1;
+                    }
+                }
+            }
+        }
         (0..self.grid)
             .map(|g| {
                 (0..self.terms)
                     .map(|t| {
                         let o = g * self.terms + t;
-                        let (mut sum, mut k) = (0.0, 0usize);
-                        for e in 0..points {
-                            let m2 = chunks[e / NOISE_CHUNK].1[(e % NOISE_CHUNK) * stride + o];
-                            if m2.is_finite() && self.folds >= 2 {
-                                // Delete-a-group jackknife variance (Efron and Tibshirani 1993,
-                                // eq. 11.5) of the point's centred term.
-                                sum += (b - 1.0) / b * m2;
-                                k += 1;
-                            }
-                        }
-                        if k >= 2 {
-                            sum / (k - 1) as f64
+                        if count[o] >= 2 {
+                            sum[o] / (count[o] - 1) as f64
                         } else {
                             f64::NAN
                         }
@@ -968,31 +970,31 @@ fn one_point(acc: &Acc, e: usize) -> Acc {
 pub fn point_spread(loss: &dyn Loss, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
     let sh = acc.shape;
     let n_terms = loss.describe(&sh, target.observed()).len();
-    let mut n = vec![vec![0u64; n_terms]; sh.grid];
-    let mut mean = vec![vec![0.0; n_terms]; sh.grid];
-    let mut m2 = vec![vec![0.0; n_terms]; sh.grid];
+    let stride = sh.grid * n_terms;
+    let mut n = vec![0u64; stride];
+    let mut mean = vec![0.0; stride];
+    let mut m2 = vec![0.0; stride];
     // Each point's terms alone (`evaluate` on the point, bit for bit), point-major.
     let mut flat = Vec::new();
     loss.per_point(acc, target, n_terms, &mut flat);
-    for point in flat.chunks_exact((sh.grid * n_terms).max(1)) {
-        for (g, row) in point.chunks_exact(n_terms.max(1)).enumerate() {
-            for (ti, &v) in row.iter().enumerate() {
-                if !v.is_finite() {
-                    continue;
-                }
-                n[g][ti] += 1;
-                let d = v - mean[g][ti];
-                mean[g][ti] += d / n[g][ti] as f64;
-                m2[g][ti] += d * (v - mean[g][ti]);
+    for point in flat.chunks_exact(stride.max(1)) {
+        for (o, &v) in point.iter().enumerate() {
+            if !v.is_finite() {
+                continue;
             }
+            n[o] += 1;
+            let d = v - mean[o];
+            mean[o] += d / n[o] as f64;
+            m2[o] += d * (v - mean[o]);
         }
     }
     (0..sh.grid)
         .map(|g| {
             (0..n_terms)
                 .map(|t| {
-                    if n[g][t] >= 2 {
-                        (m2[g][t] / (n[g][t] - 1) as f64).sqrt()
+                    let o = g * n_terms + t;
+                    if n[o] >= 2 {
+                        (m2[o] / (n[o] - 1) as f64).sqrt()
                     } else {
                         f64::NAN
                     }
