@@ -299,11 +299,27 @@ pub fn schedule(
     watch: &dyn Watch,
     sink: &(dyn Fn(u64, &BlockResult) -> Result<bool, Error> + Sync),
 ) -> Result<Scheduled, Error> {
+    if blocks.is_empty() {
+        pool_check(threads)?;
+        return schedule_on(None, plan, prep, blocks, watch, sink);
+    }
+    let pool = pool(threads)?;
+    schedule_on(Some(&pool), plan, prep, blocks, watch, sink)
+}
+
+/// [`schedule`] on an existing pool (`None` only for an empty block list).
+fn schedule_on(
+    pool: Option<&rayon::ThreadPool>,
+    plan: &Plan,
+    prep: &Prepared,
+    blocks: &[u64],
+    watch: &dyn Watch,
+    sink: &(dyn Fn(u64, &BlockResult) -> Result<bool, Error> + Sync),
+) -> Result<Scheduled, Error> {
     let done = Mutex::new(BTreeMap::new());
     let interrupted = AtomicBool::new(false);
     let halted = AtomicBool::new(false);
-    if !blocks.is_empty() {
-        let pool = pool(threads)?;
+    if let (false, Some(pool)) = (blocks.is_empty(), pool) {
         let results: Vec<Result<(), Error>> = pool.install(|| {
             blocks
                 .par_iter()
@@ -398,6 +414,21 @@ pub fn summarize(
 
 /// [`summarize`] on an existing pool (`None`: on the calling thread).
 fn summarize_on(
+    plan: &Plan,
+    prepared: Prepared,
+    blocks: &BTreeMap<u64, BlockResult>,
+    pool: Option<&rayon::ThreadPool>,
+) -> Result<Outcome, Error> {
+    // Inside the pool, the summary's many small parallel steps start from a worker, with no
+    // hand-over from an outside thread for each of them.
+    match pool {
+        Some(p) => p.install(|| summarize_in(plan, prepared, blocks, pool)),
+        None => summarize_in(plan, prepared, blocks, None),
+    }
+}
+
+/// The body of [`summarize_on`].
+fn summarize_in(
     plan: &Plan,
     prepared: Prepared,
     blocks: &BTreeMap<u64, BlockResult>,
@@ -528,7 +559,9 @@ pub fn run_watched(
 ) -> Result<Result<Outcome, Stopped>, Error> {
     let prepared = prepare(plan)?;
     let ids: Vec<u64> = (0..plan.blocks).collect();
-    let s = schedule(plan, &prepared, &ids, threads, watch, &|_, _| Ok(true))?;
+    // One pool for the replicates and the summary.
+    let pool = pool(threads)?;
+    let s = schedule_on(Some(&pool), plan, &prepared, &ids, watch, &|_, _| Ok(true))?;
     if s.done.len() as u64 != plan.blocks {
         let replicates_done = s
             .done
@@ -543,5 +576,5 @@ pub fn run_watched(
             replicates: plan.replicates,
         }));
     }
-    summarize(plan, prepared, &s.done, threads).map(Ok)
+    summarize_on(plan, prepared, &s.done, (threads != 1).then_some(&pool)).map(Ok)
 }
