@@ -81,6 +81,63 @@ pub struct SquaredPoint {
     pub diversity: f64,
 }
 
+/// Where the optional terms sit in a description of the squared loss (`None`: not described
+/// for this shape), found once per `evaluate` or `per_point` call.
+struct Slots {
+    bpn: Option<usize>,
+    vd: Option<usize>,
+    vf: Option<usize>,
+    div: Option<usize>,
+    mv: Option<usize>,
+    ml: Option<usize>,
+}
+
+impl Slots {
+    fn of(descr: &[TermInfo]) -> Slots {
+        let idx = |k: &str| descr.iter().position(|t| t.key == k);
+        Slots {
+            bpn: idx("bias_sq_plus_noise"),
+            vd: idx("variance_data"),
+            vf: idx("variance_fit"),
+            div: idx("diversity"),
+            mv: idx("member_variance"),
+            ml: idx("member_loss"),
+        }
+    }
+
+    /// Writes one row: the five leading terms (`expected_loss`, `bias_sq`, `variance`, `noise`,
+    /// `expected_loss_direct`), then the optional ones from `b2` (the averaged bias² part) and
+    /// the sums `(vd, vf, dv)` of the data, fit and diversity variances over `u` points.
+    fn fill(
+        &self,
+        row: &mut [f64],
+        lead: [f64; 5],
+        b2: f64,
+        (vd, vf, dv): (f64, f64, f64),
+        u: f64,
+    ) {
+        row[..5].copy_from_slice(&lead);
+        let (el, v) = (lead[0], lead[2]);
+        if let Some(i) = self.bpn {
+            row[i] = b2;
+        }
+        if let (Some(a), Some(b)) = (self.vd, self.vf) {
+            row[a] = vd / u;
+            row[b] = vf / u;
+        }
+        if let Some(i) = self.div {
+            let d = dv / u;
+            row[i] = d;
+            if let Some(j) = self.mv {
+                row[j] = v + d;
+            }
+            if let Some(j) = self.ml {
+                row[j] = el + d;
+            }
+        }
+    }
+}
+
 /// Terms at cell (g, e) against `truth` (f(x_e), or the observed y_e).
 #[inline(always)]
 pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
@@ -457,16 +514,8 @@ impl Loss for Squared {
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
         let sh = acc.shape;
         let descr = self.describe(&sh, target.observed());
-        let idx = |k: &str| descr.iter().position(|t| t.key == k);
-        let (i_bpn, i_vd, i_vf, i_div, i_mv, i_ml) = (
-            idx("bias_sq_plus_noise"),
-            idx("variance_data"),
-            idx("variance_fit"),
-            idx("diversity"),
-            idx("member_variance"),
-            idx("member_loss"),
-        );
-        let plain = sh.fits == 1 && !sh.ensemble && i_vd.is_none() && i_div.is_none();
+        let slots = Slots::of(&descr);
+        let plain = sh.fits == 1 && !sh.ensemble && slots.vd.is_none() && slots.div.is_none();
         (0..sh.grid)
             .map(|g| {
                 let mut row = vec![f64::NAN; descr.len()];
@@ -499,24 +548,22 @@ impl Loss for Squared {
                             direct += acc.floats[DIRECT][g * sh.points + e] / rf;
                         }
                     }
-                }
-                for e in 0..sh.points {
-                    if plain {
-                        break;
-                    }
-                    let r = acc.count[e];
-                    if r < 2 {
-                        continue;
-                    }
-                    used += 1;
-                    let p = point(acc, g, e, truth_at(e));
-                    b2 += p.bias_sq;
-                    v += p.variance;
-                    vd += p.variance_data;
-                    vf += p.variance_fit;
-                    dv += p.diversity;
-                    if !sh.all_points {
-                        direct += acc.floats[DIRECT][g * sh.points + e] / r as f64;
+                } else {
+                    for e in 0..sh.points {
+                        let r = acc.count[e];
+                        if r < 2 {
+                            continue;
+                        }
+                        used += 1;
+                        let p = point(acc, g, e, truth_at(e));
+                        b2 += p.bias_sq;
+                        v += p.variance;
+                        vd += p.variance_data;
+                        vf += p.variance_fit;
+                        dv += p.diversity;
+                        if !sh.all_points {
+                            direct += acc.floats[DIRECT][g * sh.points + e] / r as f64;
+                        }
                     }
                 }
                 if used == 0 {
@@ -543,28 +590,13 @@ impl Loss for Squared {
                         (b2 + v, b2 - n, n)
                     }
                 };
-                row[0] = el;
-                row[1] = bias_sq;
-                row[2] = v;
-                row[3] = noise;
-                row[4] = direct;
-                if let Some(i) = i_bpn {
-                    row[i] = b2;
-                }
-                if let (Some(a), Some(b)) = (i_vd, i_vf) {
-                    row[a] = vd / u;
-                    row[b] = vf / u;
-                }
-                if let Some(i) = i_div {
-                    let d = dv / u;
-                    row[i] = d;
-                    if let Some(j) = i_mv {
-                        row[j] = v + d;
-                    }
-                    if let Some(j) = i_ml {
-                        row[j] = el + d;
-                    }
-                }
+                slots.fill(
+                    &mut row,
+                    [el, bias_sq, v, noise, direct],
+                    b2,
+                    (vd, vf, dv),
+                    u,
+                );
                 row
             })
             .collect()
@@ -587,15 +619,7 @@ impl Loss for Squared {
         if !sh.all_points || descr.len() < terms {
             return super::per_point_generic(self, acc, target, terms, out);
         }
-        let idx = |k: &str| descr.iter().position(|t| t.key == k);
-        let (i_bpn, i_vd, i_vf, i_div, i_mv, i_ml) = (
-            idx("bias_sq_plus_noise"),
-            idx("variance_data"),
-            idx("variance_fit"),
-            idx("diversity"),
-            idx("member_variance"),
-            idx("member_loss"),
-        );
+        let slots = Slots::of(&descr);
         let u = one.points as f64;
         let mut row = vec![f64::NAN; descr.len()];
         out.clear();
@@ -640,28 +664,7 @@ impl Loss for Squared {
                     let (b2, v) = (b2 / u, v / u);
                     let direct = acc.floats[DIRECT][g] / acc.replicates as f64;
                     let el = noise + b2 + v;
-                    row[0] = el;
-                    row[1] = b2;
-                    row[2] = v;
-                    row[3] = noise;
-                    row[4] = direct;
-                    if let Some(i) = i_bpn {
-                        row[i] = b2;
-                    }
-                    if let (Some(a), Some(b)) = (i_vd, i_vf) {
-                        row[a] = vd / u;
-                        row[b] = vf / u;
-                    }
-                    if let Some(i) = i_div {
-                        let d = dv / u;
-                        row[i] = d;
-                        if let Some(j) = i_mv {
-                            row[j] = v + d;
-                        }
-                        if let Some(j) = i_ml {
-                            row[j] = el + d;
-                        }
-                    }
+                    slots.fill(&mut row, [el, b2, v, noise, direct], b2, (vd, vf, dv), u);
                 }
                 out.extend_from_slice(&row[..terms]);
             }

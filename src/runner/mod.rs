@@ -300,16 +300,18 @@ pub fn schedule(
     sink: &(dyn Fn(u64, &BlockResult) -> Result<bool, Error> + Sync),
 ) -> Result<Scheduled, Error> {
     if blocks.is_empty() {
-        pool_check(threads)?;
-        return schedule_on(None, plan, prep, blocks, watch, sink);
+        return Ok(Scheduled {
+            done: BTreeMap::new(),
+            interrupted: false,
+            halted: false,
+        });
     }
-    let pool = pool(threads)?;
-    schedule_on(Some(&pool), plan, prep, blocks, watch, sink)
+    schedule_on(&pool(threads)?, plan, prep, blocks, watch, sink)
 }
 
-/// [`schedule`] on an existing pool (`None` only for an empty block list).
+/// [`schedule`] on an existing pool.
 fn schedule_on(
-    pool: Option<&rayon::ThreadPool>,
+    pool: &rayon::ThreadPool,
     plan: &Plan,
     prep: &Prepared,
     blocks: &[u64],
@@ -319,36 +321,34 @@ fn schedule_on(
     let done = Mutex::new(BTreeMap::new());
     let interrupted = AtomicBool::new(false);
     let halted = AtomicBool::new(false);
-    if let (false, Some(pool)) = (blocks.is_empty(), pool) {
-        let results: Vec<Result<(), Error>> = pool.install(|| {
-            blocks
-                .par_iter()
-                .map(|&b| {
-                    if halted.load(Ordering::SeqCst) {
-                        return Ok(());
-                    }
-                    if watch.stop() {
-                        interrupted.store(true, Ordering::SeqCst);
-                        return Ok(());
-                    }
-                    let result = run_block(plan, prep, b)?;
-                    let mut d = done.lock().unwrap_or_else(|e| e.into_inner());
-                    if halted.load(Ordering::SeqCst) {
-                        return Ok(());
-                    }
-                    if !sink(b, &result)? {
-                        halted.store(true, Ordering::SeqCst);
-                    }
-                    let (s, e) = plan.block_range(b);
-                    d.insert(b, result);
-                    drop(d);
-                    watch.block_done(e - s);
-                    Ok(())
-                })
-                .collect()
-        });
-        results.into_iter().collect::<Result<(), Error>>()?;
-    }
+    let results: Vec<Result<(), Error>> = pool.install(|| {
+        blocks
+            .par_iter()
+            .map(|&b| {
+                if halted.load(Ordering::SeqCst) {
+                    return Ok(());
+                }
+                if watch.stop() {
+                    interrupted.store(true, Ordering::SeqCst);
+                    return Ok(());
+                }
+                let result = run_block(plan, prep, b)?;
+                let mut d = done.lock().unwrap_or_else(|e| e.into_inner());
+                if halted.load(Ordering::SeqCst) {
+                    return Ok(());
+                }
+                if !sink(b, &result)? {
+                    halted.store(true, Ordering::SeqCst);
+                }
+                let (s, e) = plan.block_range(b);
+                d.insert(b, result);
+                drop(d);
+                watch.block_done(e - s);
+                Ok(())
+            })
+            .collect()
+    });
+    results.into_iter().collect::<Result<(), Error>>()?;
     Ok(Scheduled {
         done: done.into_inner().unwrap_or_else(|e| e.into_inner()),
         interrupted: interrupted.load(Ordering::SeqCst),
@@ -561,7 +561,7 @@ pub fn run_watched(
     let ids: Vec<u64> = (0..plan.blocks).collect();
     // One pool for the replicates and the summary.
     let pool = pool(threads)?;
-    let s = schedule_on(Some(&pool), plan, &prepared, &ids, watch, &|_, _| Ok(true))?;
+    let s = schedule_on(&pool, plan, &prepared, &ids, watch, &|_, _| Ok(true))?;
     if s.done.len() as u64 != plan.blocks {
         let replicates_done = s
             .done
