@@ -811,7 +811,7 @@ pub struct Merged {
 /// Merges shard parts into the run's outcome. Refuses (with a one-line [`Error::Usage`] naming the
 /// files) parts of different runs, of different shard counts, duplicated parts, and missing or
 /// duplicated blocks; checkpoints are refused too.
-pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
+pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Error> {
     let refuse = |m: String| Error::Usage(format!("merge: {m}"));
     if paths.is_empty() {
         return Err(refuse("no part files given".into()));
@@ -916,6 +916,10 @@ pub fn merge(paths: &[PathBuf]) -> Result<Merged, Error> {
         )));
     }
 
+    // A part's embedded scenario may ask for more than this machine holds: checked, as `run`
+    // does, before the evaluation points and the blocks are built (one thread: merging runs
+    // no fits).
+    runner::memory::check(&plan, 1, memory_limit)?;
     let prepared = runner::prepare(&plan)?;
     let points = prepared.points();
     let mut blocks: BTreeMap<u64, BlockResult> = BTreeMap::new();

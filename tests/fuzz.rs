@@ -534,7 +534,7 @@ fn part_decoder_refuses_damaged_accumulators() {
                 };
                 typed.checksum = shard::checksum(&typed);
                 fs::write(&path, shard::part_json(&typed)).unwrap();
-                match shard::merge(std::slice::from_ref(&path)) {
+                match shard::merge(std::slice::from_ref(&path), None) {
                     Ok(m) => {
                         for s in &m.outcome.summaries {
                             for row in &s.values {

@@ -1420,6 +1420,45 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["run", "s.toml", "--assess", "1", "--out", "r.json"],
         "drop --out",
     );
+    // The assessed value lies outside the scenario's grid: its fit is held to the memory limit
+    // too (the run's estimate covered the grid only).
+    let wide_assess = table_scenario(
+        "holdout = 0.25",
+        "family = \"random_features\"\ngrid = [1, 2]",
+    );
+    let csv = good_csv();
+    t.add(
+        g,
+        "--assess at a value beyond the memory limit",
+        &[
+            ("h.toml", wide_assess.as_bytes()),
+            ("t.csv", csv.as_bytes()),
+        ],
+        &[
+            "run",
+            "h.toml",
+            "--assess",
+            "100000",
+            "--memory-limit",
+            "60M",
+        ],
+        "fit work",
+    );
+    t.add(
+        g,
+        "merge above --memory-limit",
+        &[("p1.json", &docs.part1), ("p2.json", &docs.part2)],
+        &[
+            "merge",
+            "p1.json",
+            "p2.json",
+            "--out",
+            "m.json",
+            "--memory-limit",
+            "1K",
+        ],
+        "more than the --memory-limit",
+    );
     t.add(
         g,
         "--input without --plot-points",

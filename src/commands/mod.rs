@@ -473,7 +473,7 @@ pub fn merge(args: MergeArgs) -> Result<u8, Error> {
         set.input("a part file", p);
     }
     let ids = o.register(&mut set)?;
-    let merged = shard::merge(&args.parts)?;
+    let merged = shard::merge(&args.parts, args.memory_limit)?;
     for p in data_inputs(&merged.plan) {
         set.input("the scenario's data file", &p);
     }
@@ -681,6 +681,12 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
             "--assess prints the holdout loss it counts in the ledger; drop --quiet".into(),
         ));
     }
+    // The run's estimate was held for the scenario's grid; the assessed value may lie outside
+    // it (a larger depth, more features), so the fit at that value is checked too.
+    let mut one = plan.clone();
+    one.models.truncate(1);
+    one.models[0].grid = vec![value];
+    runner::memory::check(&one, 1, args.memory_limit)?;
     let ledger = assess::ledger_path(path);
     let a = assess::assess(plan, value, &ledger)?;
     println!(
