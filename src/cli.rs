@@ -67,10 +67,11 @@ pub enum Command {
     Plot(PlotArgs),
     /// Fit a simulated twin of a table and write a `source = "twin"` scenario: a reference for
     /// E[y|x] chosen among k-NN, bagged trees, local-linear regression and their blend by
-    /// cross-validated R², inputs from a smoothed bootstrap of the rows, and a noise estimate
-    /// corrected by a parametric bootstrap; then a fidelity check (tables drawn from the twin,
-    /// twinned again) says how often a twin of such a table picks the knob it should, and gives
-    /// the recommended pick per family (bias-corrected by the same runs).
+    /// cross-validated R² and twiced, inputs from a smoothed bootstrap of the rows, and a noise
+    /// estimate corrected by a parametric bootstrap; then a fidelity check (tables drawn from
+    /// the twin, twinned again) says how often a twin of such a table picks the knob it should,
+    /// and gives the recommended pick per family (the twin's lowest expected loss, with a
+    /// bias-corrected second opinion).
     Twin(TwinArgs),
 }
 
@@ -97,6 +98,10 @@ pub struct TwinArgs {
     /// Noise varying with x (smoothed squared residuals) instead of a constant.
     #[arg(long)]
     pub varying: bool,
+    /// Fit the regression reference once: no twicing (by default it is refitted to its own
+    /// residuals and added, which restores curvature the cross-validated fit rounds off).
+    #[arg(long)]
+    pub once: bool,
     /// Where to write the scenario.
     #[arg(long, default_value = "twin.toml", value_name = "FILE.toml")]
     pub out: PathBuf,
@@ -120,10 +125,12 @@ pub struct TwinArgs {
     #[arg(long, value_name = "NAME")]
     pub noise_estimator: Option<String>,
     /// Tables drawn from the twin for the fidelity check (0 skips it, and with it the
-    /// bias-corrected recommended pick; more is slower and steadier).
+    /// recommended pick line and the bias-corrected second opinion; more is slower and
+    /// steadier).
     #[arg(long, default_value_t = 5, value_name = "T")]
     pub fidelity: usize,
-    /// Replicates of every run of the fidelity check.
+    /// Replicates of every run of a twin of the twin in the fidelity check (the twin itself
+    /// runs at the scenario's 200).
     #[arg(long, default_value_t = 100, value_name = "R")]
     pub fidelity_replicates: usize,
     /// Worker threads of the fidelity check (0: all cores).

@@ -874,8 +874,9 @@ fn html_words_say_what_a_table_and_a_twin_run_did() {
         "an estimate of the table's E[y | x]",
         "estimated from the table",
         "Fidelity check",
-        // The headline of the shipped twin: its bias-corrected picks.
-        "Recommended pick (bias-corrected by the fidelity check): tree max_depth = 5 (also the lowest on the twin itself); knn k = 5 (lowest expected loss on the twin itself: 8).",
+        // The headline of the shipped twin: the twin's lowest expected loss, with the
+        // bias-corrected second opinion.
+        "Recommended pick (lowest expected loss on the twin): tree max_depth = 5 (the bias-corrected pick agrees); knn k = 5 (the bias-corrected pick agrees).",
     ] {
         assert!(w.contains(needle), "`{needle}` missing: {w}");
     }

@@ -81,6 +81,7 @@ fn twin_noise_and_best_knob_match_the_known_process() {
         o.seed,
         lossprism::dgp::reference::select::Rule::Best,
         None,
+        true,
         "t",
     )
     .unwrap();
@@ -251,6 +252,14 @@ fn bad_twin_scenarios_name_the_key() {
             "data.reference.k",
         ),
         ("reference = { family = \"knn\", k = 3 }\n", "data.noise"),
+        (
+            "reference = { family = \"knn\", k = 3, twice = true }\n[data.noise]\nvarying = true\n",
+            "data.reference.twice",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, twice = 1 }\n[data.noise]\nsd = 0.5\n",
+            "expected a boolean",
+        ),
     ] {
         let f = dir.path().join("bad.toml");
         fs::write(&f, format!("{base}{body}{model}")).unwrap();
@@ -292,18 +301,22 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     );
     // The integer column stays on its levels.
     assert!(msg.contains("kept on their levels c"), "{msg}");
-    // The headline: the recommended (bias-corrected) pick of both families, printed last before
-    // the file is named, and written as a comment of the scenario.
+    // The headline: the recommended pick (the twin's lowest expected loss) of both families,
+    // printed last before the file is named, and written as a comment of the scenario.
     let lines: Vec<&str> = msg.lines().collect();
     let head = lines[lines.len() - 2];
     assert!(
-        head.starts_with(
-            "Recommended pick (bias-corrected by the fidelity check): tree max_depth = "
-        ) && head.contains("; knn k = "),
+        head.starts_with("Recommended pick (lowest expected loss on the twin): tree max_depth = ")
+            && head.contains("; knn k = "),
         "{msg}"
     );
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains(&format!("# {head}\n")), "{text}");
+    // The reference is twiced, and says so.
+    assert!(
+        text.contains("twice = true") && msg.contains("then twiced"),
+        "{text}"
+    );
     for key in [
         "jitter = 1.0",
         "eval_size = 1000",
@@ -343,10 +356,12 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
         o.seed,
         lossprism::dgp::reference::select::Rule::Best,
         None,
+        true,
         "t",
     )
     .unwrap();
     assert_eq!(refit.choice.family, fit.selection.choice.family);
+    assert!(refit.choice.twice && fit.selection.choice.twice);
     for i in 0..40 {
         let q = [0.025 * i as f64, 1.0 - 0.02 * i as f64, (i % 4) as f64];
         assert_eq!(
@@ -380,14 +395,23 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     let f = tw.fidelity.clone().expect("fidelity echoed");
     assert_eq!((f.tables, f.replicates, f.models.len()), (2, 12, 2));
     assert_eq!(f.models[0].picks.len(), 2);
-    // The recommended picks are echoed beside the record: the bias-corrected pick, with the
-    // twin's own lowest expected loss; the terminal says the same sentence the twin printed.
+    // The recommended picks are echoed beside the record: the twin's own lowest expected loss,
+    // with the bias-corrected pick; the terminal says the same sentence the twin printed.
     assert_eq!(tw.recommended.len(), 2);
     for (r, m) in tw.recommended.iter().zip(&f.models) {
         assert_eq!((&r.family, &r.knob), (&m.family, &m.knob));
-        assert_eq!((r.value, r.twin_lowest), (m.corrected_pick, m.pick));
-        assert_eq!(r.basis, "bias-corrected");
+        assert_eq!(
+            (r.value, r.twin_lowest, r.bias_corrected),
+            (m.pick, m.pick, Some(m.corrected_pick))
+        );
+        assert_eq!(r.basis, "twin-lowest");
     }
+    // The recommended tree pick is the `*` of `run` on the written scenario as written (its
+    // [model] is the fidelity check's tree grid, at the same replicates).
+    let full = scenario::load(&o.out, &PlanOptions::default()).expect("plans");
+    let out = runner::run(&full, 0).unwrap();
+    let best = report::best_of(&report::rows(&full, &out, 0));
+    assert_eq!(best.value, tw.recommended[0].value);
     let json = report::to_json(&doc);
     assert!(json.contains("\"recommended\": ["), "{json}");
     let term = report::terminal::render(&doc);

@@ -81,6 +81,26 @@ const LAB: [Process; 3] = [
     },
 ];
 
+/// One- and two-input processes (invented), to check that twicing does not hurt where the
+/// reference already follows the truth closely (`LOSSPRISM_CALIB_PROCS=low`).
+const LOW: [Process; 3] = [
+    Process {
+        name: "wave1",
+        formula: "1.5*sin(2*pi*x1) + x1",
+        p: 1,
+    },
+    Process {
+        name: "step1",
+        formula: "1.5*(x1 > 0.6) + x1",
+        p: 1,
+    },
+    Process {
+        name: "dome2",
+        formula: "2*exp(-4*((x1 - 0.5)^2 + (x2 - 0.4)^2)) + sin(3*x2)",
+        p: 2,
+    },
+];
+
 const KS: [usize; 9] = [1, 2, 3, 5, 8, 12, 20, 30, 50];
 
 fn names(p: usize) -> Vec<String> {
@@ -378,6 +398,8 @@ fn study_table(
         seed,
         fidelity,
         fidelity_replicates: fidelity_r,
+        // `LOSSPRISM_CALIB_ONCE=1`: the reference fitted once (`twin --once`), for comparison.
+        twice: std::env::var("LOSSPRISM_CALIB_ONCE").is_err(),
         ..Default::default()
     };
     twin_cmd::command(&o).expect("twin");
@@ -521,10 +543,10 @@ fn calibration_study() {
     let n = 400;
     let dir = tempfile::tempdir().unwrap();
     let mut all: Vec<(Process, Vec<TableResult>)> = Vec::new();
-    let procs = if std::env::var("LOSSPRISM_CALIB_PROCS").as_deref() == Ok("lab") {
-        LAB
-    } else {
-        [SWELL3, LEDGE3, HINGE3]
+    let procs = match std::env::var("LOSSPRISM_CALIB_PROCS").as_deref() {
+        Ok("lab") => LAB,
+        Ok("low") => LOW,
+        _ => [SWELL3, LEDGE3, HINGE3],
     };
     for (pi, proc) in procs.into_iter().enumerate() {
         let t0 = std::time::Instant::now();
@@ -578,6 +600,28 @@ fn calibration_study() {
                 100.0 * r.before[1].mare,
                 t1.elapsed().as_secs_f64()
             );
+            if std::env::var("LOSSPRISM_CALIB_DIAG").is_ok() {
+                for (i, fam) in ["tree", "knn"].iter().enumerate() {
+                    let f = |v: &[f64]| {
+                        v.iter()
+                            .map(|x| format!("{x:.3}"))
+                            .collect::<Vec<_>>()
+                            .join(" ")
+                    };
+                    let tv: Vec<f64> = (0..tc[i].el.len())
+                        .map(|g| tc[i].el[g] - 1.0 - tc[i].b2[g])
+                        .collect();
+                    let wv: Vec<f64> = (0..r.twin[i].el.len())
+                        .map(|g| r.twin[i].el[g] - r.sigma2_new - r.twin[i].b2[g])
+                        .collect();
+                    println!(
+                        "    {fam} b2 true [{}] twin [{}]",
+                        f(&tc[i].b2),
+                        f(&r.twin[i].b2)
+                    );
+                    println!("    {fam} var true [{}] twin [{}]", f(&tv), f(&wv));
+                }
+            }
             res.push(r);
         }
         all.push((proc, res));
@@ -726,9 +770,16 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
         for t in 0..tables {
             let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
             let yv = y.to_vec();
-            let fit =
-                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
-                    .expect("fits");
+            let fit = dgp_twin::fit_regression(
+                x.view(),
+                &yv,
+                seed + t as u64,
+                Rule::Best,
+                None,
+                true,
+                "t",
+            )
+            .expect("fits");
             let c = fit.noise.expect("noise");
             corrected.push(c.value);
             ses.push(c.se);
@@ -844,7 +895,8 @@ fn corrected_noise_is_close_on_known_processes() {
         for t in 0..8 {
             let (x, y) = draw_table(proc, 300, 1.0, 900 + t);
             let fit =
-                dgp_twin::fit_regression(x.view(), &y.to_vec(), t, Rule::Best, None, "t").unwrap();
+                dgp_twin::fit_regression(x.view(), &y.to_vec(), t, Rule::Best, None, true, "t")
+                    .unwrap();
             let c = fit.noise.unwrap();
             v.push(c.value);
             ses.push(c.se);
@@ -936,9 +988,16 @@ fn noise_variants() {
         for t in 0..tables {
             let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
             let yv = y.to_vec();
-            let fit =
-                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
-                    .expect("fits");
+            let fit = dgp_twin::fit_regression(
+                x.view(),
+                &yv,
+                seed + t as u64,
+                Rule::Best,
+                None,
+                true,
+                "t",
+            )
+            .expect("fits");
             let c = fit.noise.expect("noise");
             let d = noise::Design::new(c.method, x.view()).unwrap();
             let est = |v: &[f64]| d.value(Array1::from(v.to_vec()).view());
@@ -1084,9 +1143,16 @@ fn noise_df() {
         for t in 0..tables {
             let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
             let yv = y.to_vec();
-            let fit =
-                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
-                    .expect("fits");
+            let fit = dgp_twin::fit_regression(
+                x.view(),
+                &yv,
+                seed + t as u64,
+                Rule::Best,
+                None,
+                true,
+                "t",
+            )
+            .expect("fits");
             let c = fit.noise.expect("noise");
             let k = fit.selection.choice.k.unwrap();
             let idx = NeighbourIndex::new(x.view(), true);
@@ -1190,9 +1256,16 @@ fn noise_tree_pilot() {
         for t in 0..tables {
             let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
             let yv = y.to_vec();
-            let fit =
-                dgp_twin::fit_regression(x.view(), &yv, seed + t as u64, Rule::Best, None, "t")
-                    .expect("fits");
+            let fit = dgp_twin::fit_regression(
+                x.view(),
+                &yv,
+                seed + t as u64,
+                Rule::Best,
+                None,
+                true,
+                "t",
+            )
+            .expect("fits");
             let c = fit.noise.expect("noise");
             let d = noise::Design::new(c.method, x.view()).unwrap();
             let est = |v: &[f64]| d.value(Array1::from(v.to_vec()).view());

@@ -842,6 +842,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         fidelity_replicates: a.fidelity_replicates,
         fidelity_families: Vec::new(),
         threads: a.threads,
+        twice: !a.once,
     })?;
     print!("{text}");
     Ok(0)

@@ -11,10 +11,12 @@
 //! and on each twin of the twin, and reports how often the twin of the twin picks a knob inside
 //! the twin's one-standard-error set and how far its expected-loss curve lies from the twin's —
 //! how far a twin of a table like this one can be trusted. The same runs give the **recommended
-//! pick** of each family, the headline of the output: the bias-corrected pick (the lowest of
-//! 2·EL(g) − mean EL*(g) over the twins of the twin; [`FidelityModel::headline_pick`]), printed
-//! with the twin's own lowest expected loss beside it. The scenario records all of it
-//! (`[data.fit_report]`, echoed in results with the recommended picks) and says it in comments.
+//! pick** of each family, the headline of the output: the twin's own lowest expected loss (its
+//! run at the scenario's replicates; [`FidelityModel::headline_pick`]), printed with the
+//! bias-corrected pick (the lowest of 2·EL(g) − mean EL*(g) over the twins of the twin) beside
+//! it as a second opinion. The reference is twiced by default ([`Choice::twice`]; `--once`
+//! fits it once). The scenario records all of it (`[data.fit_report]`, echoed in results with
+//! the recommended picks) and says it in comments.
 //!
 //! Classification twins keep the k-NN reference (k by cross-validated Brier score) and the
 //! resampled rows; the candidates, the smoothed bootstrap and the fidelity check were designed
@@ -38,8 +40,11 @@ use crate::scenario::{Design, Plan, Source};
 
 /// Default number of tables of the fidelity check.
 pub const FIDELITY_TABLES: usize = 5;
-/// Default replicates of every run of the fidelity check.
+/// Default replicates of every run of a twin of the twin in the fidelity check.
 pub const FIDELITY_REPLICATES: usize = 100;
+/// Replicates written in a twin scenario; the fidelity check runs the twin itself at this count
+/// too, so its recommended pick is the `*` row `run` shows for the same family and grid.
+pub const TWIN_REPLICATES: usize = 200;
 
 /// A family and grid checked by the fidelity check, as written in a `[[model]]` table.
 #[derive(Debug, Clone, PartialEq, Eq)]
@@ -107,6 +112,9 @@ pub struct TwinOptions {
     pub fidelity_families: Vec<FidelityFamily>,
     /// Worker threads of the fidelity runs (0: all cores).
     pub threads: usize,
+    /// Twice the reference (regression with constant noise; [`Choice::twice`]). On by default;
+    /// varying noise fits it once.
+    pub twice: bool,
 }
 
 impl Default for TwinOptions {
@@ -128,6 +136,7 @@ impl Default for TwinOptions {
             fidelity_replicates: FIDELITY_REPLICATES,
             fidelity_families: Vec::new(),
             threads: 0,
+            twice: true,
         }
     }
 }
@@ -196,6 +205,9 @@ pub fn reference_line(c: &Choice) -> String {
     }
     if let Some(h) = c.bandwidth {
         parts.push(format!("bandwidth = {}", toml_f64(h)));
+    }
+    if c.twice {
+        parts.push("twice = true".into());
     }
     if c.family == Candidate::Blend {
         parts.push(format!(
@@ -374,12 +386,22 @@ fn reference_lines(fit: &RegressionFit, rule: Rule) -> Vec<String> {
             sc.tuned
         ));
     }
+    let once = Choice {
+        twice: false,
+        ..sel.choice.clone()
+    };
     v.push(format!(
-        "chosen: {} ({}); `run` refits it on the table from `reference`.",
-        sel.choice.describe(),
+        "chosen: {} ({}){}; `run` refits it on the table from `reference`.",
+        once.describe(),
         match rule {
             Rule::Best => "highest cross-validated R²".to_string(),
             Rule::Only(c) => format!("`--reference {}` asked for it", c.name()),
+        },
+        if sel.choice.twice {
+            ", then twiced: refitted to its own in-sample residuals and added (Tukey's twicing), \
+             which gives back curvature the cross-validated fit rounds off (`--once` fits it once)"
+        } else {
+            ""
         }
     ));
     v
@@ -472,25 +494,25 @@ fn values(v: &[f64]) -> String {
 
 fn fidelity_lines(f: &FidelityRecord, rows: usize) -> Vec<String> {
     let mut v = vec![format!(
-        "Fidelity check: {} tables of {rows} rows drawn from this twin, each twinned again the same way (every run {} replicates):",
+        "Fidelity check: {} tables of {rows} rows drawn from this twin, each twinned again the same way (the twin run at {TWIN_REPLICATES} replicates, each twin of the twin at {}):",
         f.tables, f.replicates
     )];
     for m in &f.models {
         let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
         v.push(format!(
-            "  {} {}: bias-corrected pick {} (recommended); lowest expected loss on the twin at {} (one-SE set {}). Twins of the twin picked {} ({} of {} inside the set), mean curve distance {:.1}%.",
+            "  {} {}: lowest expected loss on the twin at {} (recommended; one-SE set {}), bias-corrected pick {}. Twins of the twin picked {} ({} of {} inside the set), mean curve distance {:.1}%.",
             m.family,
             m.knob,
             fmt_value(m.headline_pick()),
-            fmt_value(m.pick),
             values(&m.one_se),
+            fmt_value(m.corrected_pick),
             values(&m.picks),
             inside,
             m.picks.len(),
             100.0 * m.curve_error
         ));
     }
-    v.push("  The shares say how accurate twins of tables like this one typically are, not an error bar for this table; the bias-corrected pick (2·EL − mean EL of the twins of the twin) removes the pull of the twin's own smoothing and was the more reliable pick in docs/twin-calibration.md, so it is the recommended one.".into());
+    v.push("  The shares say how accurate twins of tables like this one typically are, not an error bar for this table. The bias-corrected pick (2·EL − mean EL of the twins of the twin) is a second opinion: with the twiced reference the twin's own lowest expected loss was the more reliable pick in docs/twin-calibration.md, so it is the recommended one.".into());
     v
 }
 
@@ -550,6 +572,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         o.seed,
         o.reference,
         o.noise_estimator,
+        o.twice && !o.varying,
         "a table drawn from the twin",
     )
     .map_err(Error::Usage)?;
@@ -598,13 +621,24 @@ fn fidelity(
         .map(|f| format!("\n[[model]]\nfamily = {}\n{}", toml_str(&f.family), f.body))
         .collect();
     let reps = o.fidelity_replicates.max(2);
-    let text = text_of(&models, reps);
     let file = format!("{} (fidelity check)", o.out.display());
-    let spec = crate::scenario::parse(&text, &file)?;
-    let plan = Plan::from_spec(&spec, &text, &file, folder, &Default::default())?;
-    let first = crate::runner::run(&plan, o.threads)?;
+    let plan_at = |r: usize| -> Result<Plan, Error> {
+        let text = text_of(&models, r);
+        let spec = crate::scenario::parse(&text, &file)?;
+        Ok(Plan::from_spec(
+            &spec,
+            &text,
+            &file,
+            folder,
+            &Default::default(),
+        )?)
+    };
+    // The twin itself at the scenario's replicates (what `run` shows), its twins at `reps`.
+    let twin_plan = plan_at(TWIN_REPLICATES)?;
+    let plan = plan_at(reps)?;
+    let first = crate::runner::run(&twin_plan, o.threads)?;
     let base: Vec<(Vec<f64>, f64, Vec<f64>)> = (0..families.len())
-        .map(|i| curve(&plan, &first, i))
+        .map(|i| curve(&twin_plan, &first, i))
         .collect();
     let mut tot: Vec<Vec<(Vec<f64>, f64)>> = vec![Vec::new(); families.len()];
     for k in 0..o.fidelity {
@@ -723,7 +757,7 @@ pub fn classification_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &
             f.quality_name, f.quality, f.quality_stderr
         ),
     ];
-    let mut s = header_and_top(o, t, &comments, 200);
+    let mut s = header_and_top(o, t, &comments, TWIN_REPLICATES);
     s.push_str(&data_common(o, t, table_rel));
     s.push_str(&reference_line(&Choice::knn(f.k, true)));
     s.push('\n');
@@ -801,9 +835,16 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 )));
             }
             let y = t.y.to_vec();
-            let fit =
-                twin::fit_regression(t.x.view(), &y, o.seed, o.reference, o.noise_estimator, &rel)
-                    .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
+            let fit = twin::fit_regression(
+                t.x.view(),
+                &y,
+                o.seed,
+                o.reference,
+                o.noise_estimator,
+                o.twice && !o.varying,
+                &rel,
+            )
+            .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             if let (Rule::Only(Candidate::LocLin), true) =
                 (o.reference, t.rows() > select::LOCLIN_MAX_ROWS)
             {
@@ -856,7 +897,12 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 fidelity: None,
             };
             check_plans(
-                &body(&rt, &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"), 200, true),
+                &body(
+                    &rt,
+                    &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"),
+                    TWIN_REPLICATES,
+                    true,
+                ),
                 &o.out,
                 &folder,
             )?;
@@ -891,9 +937,14 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                     }
                     out.push_str(&format!("{}\n", recommended_line(f)));
                 }
-                None => out.push_str("Fidelity check skipped (--fidelity 0): no bias-corrected pick; the twin's own lowest expected loss (`run`) is the only pick.\n"),
+                None => out.push_str("Fidelity check skipped (--fidelity 0): no fidelity gauge and no bias-corrected pick; `run` the scenario for the twin's lowest expected loss, the recommended pick.\n"),
             }
-            let text = body(&rt, &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"), 200, true);
+            let text = body(
+                &rt,
+                &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"),
+                TWIN_REPLICATES,
+                true,
+            );
             check_plans(&text, &o.out, &folder)?;
             text
         }

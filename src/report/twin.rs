@@ -2,8 +2,9 @@
 //! reference and the cross-validated R² of each candidate, the smoothed bootstrap of the inputs,
 //! and, when `lossprism twin` wrote the scenario, its noise correction and fidelity check
 //! (`[data.fit_report]`, echoed as written), and the pick it recommends per family
-//! ([`RecommendedPick`]: the fidelity check's bias-corrected pick, with the twin's own lowest
-//! expected loss beside it). Absent for every other source, so synthetic results are unchanged.
+//! ([`RecommendedPick`]: the twin's own lowest expected loss, with the fidelity check's
+//! bias-corrected pick beside it). Absent for every other source, so synthetic results are
+//! unchanged.
 
 use serde::{Deserialize, Serialize};
 
@@ -43,11 +44,16 @@ pub struct RecommendedPick {
     pub knob: String,
     /// The recommended value ([`crate::dgp::twin::FidelityModel::headline_pick`]).
     pub value: f64,
-    /// How it was chosen (`bias-corrected`: the lowest of 2·EL(g) − mean EL*(g) over the twins
-    /// of the twin).
+    /// How it was chosen: `twin-lowest` (the lowest expected loss on the twin; twins written
+    /// since the reference is twiced) or `bias-corrected` (the lowest of 2·EL(g) − mean EL*(g)
+    /// over the twins of the twin; results of earlier twins).
     pub basis: String,
     /// The value with the lowest expected loss on the twin itself (the plain pick).
     pub twin_lowest: f64,
+    /// The fidelity check's bias-corrected pick, the second opinion (absent in results of
+    /// earlier twins, whose `value` was this pick).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub bias_corrected: Option<f64>,
 }
 
 /// The recommended picks of a fidelity check, one per family.
@@ -58,35 +64,55 @@ pub fn recommended(f: &FidelityRecord) -> Vec<RecommendedPick> {
             family: m.family.clone(),
             knob: m.knob.clone(),
             value: m.headline_pick(),
-            basis: "bias-corrected".into(),
+            basis: "twin-lowest".into(),
             twin_lowest: m.pick,
+            bias_corrected: Some(m.corrected_pick),
         })
         .collect()
 }
 
 /// The recommended picks in one sentence (`None` when there are none), e.g. `Recommended pick
-/// (bias-corrected by the fidelity check): tree max_depth = 4 (lowest expected loss on the twin
-/// itself: 5); knn k = 12 (also the lowest on the twin itself).`
+/// (lowest expected loss on the twin): tree max_depth = 4 (the fidelity check's bias-corrected
+/// pick: 5); knn k = 12 (the bias-corrected pick agrees).` Results of earlier twins, whose
+/// recommendation was the bias-corrected pick, read as they were written.
 pub fn recommended_sentence(picks: &[RecommendedPick]) -> Option<String> {
-    if picks.is_empty() {
-        return None;
+    let first = picks.first()?;
+    if first.basis == "bias-corrected" {
+        let parts: Vec<String> = picks
+            .iter()
+            .map(|p| {
+                let plain = if p.twin_lowest == p.value {
+                    "also the lowest on the twin itself".to_string()
+                } else {
+                    format!(
+                        "lowest expected loss on the twin itself: {}",
+                        fmt_value(p.twin_lowest)
+                    )
+                };
+                format!("{} {} = {} ({plain})", p.family, p.knob, fmt_value(p.value))
+            })
+            .collect();
+        return Some(format!(
+            "Recommended pick (bias-corrected by the fidelity check): {}.",
+            parts.join("; ")
+        ));
     }
     let parts: Vec<String> = picks
         .iter()
         .map(|p| {
-            let plain = if p.twin_lowest == p.value {
-                "also the lowest on the twin itself".to_string()
-            } else {
-                format!(
-                    "lowest expected loss on the twin itself: {}",
-                    fmt_value(p.twin_lowest)
-                )
+            let second = match p.bias_corrected {
+                Some(c) if c == p.value => " (the bias-corrected pick agrees)".to_string(),
+                Some(c) => format!(
+                    " (the fidelity check's bias-corrected pick: {})",
+                    fmt_value(c)
+                ),
+                None => String::new(),
             };
-            format!("{} {} = {} ({plain})", p.family, p.knob, fmt_value(p.value))
+            format!("{} {} = {}{second}", p.family, p.knob, fmt_value(p.value))
         })
         .collect();
     Some(format!(
-        "Recommended pick (bias-corrected by the fidelity check): {}.",
+        "Recommended pick (lowest expected loss on the twin): {}.",
         parts.join("; ")
     ))
 }
@@ -256,7 +282,7 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
         for m in &f.models {
             let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
             out.push(format!(
-                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected (recommended) pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
+                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run of a twin of the twin), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
                 f.tables,
                 f.replicates,
                 m.family,
@@ -296,7 +322,7 @@ mod tests {
     }
 
     #[test]
-    fn the_recommended_pick_is_the_bias_corrected_one_with_the_plain_pick_beside_it() {
+    fn the_recommended_pick_is_the_twins_lowest_with_the_bias_corrected_pick_beside_it() {
         let f = FidelityRecord {
             tables: 2,
             replicates: 10,
@@ -307,17 +333,33 @@ mod tests {
         };
         let r = recommended(&f);
         assert_eq!(r.len(), 2);
-        assert_eq!((r[0].value, r[0].twin_lowest), (4.0, 5.0));
-        assert_eq!((r[1].value, r[1].twin_lowest), (12.0, 12.0));
-        assert!(r.iter().all(|p| p.basis == "bias-corrected"));
+        assert_eq!(
+            (r[0].value, r[0].twin_lowest, r[0].bias_corrected),
+            (5.0, 5.0, Some(4.0))
+        );
+        assert_eq!(
+            (r[1].value, r[1].twin_lowest, r[1].bias_corrected),
+            (12.0, 12.0, Some(12.0))
+        );
+        assert!(r.iter().all(|p| p.basis == "twin-lowest"));
         let s = recommended_sentence(&r).expect("a sentence");
         assert_eq!(
             s,
-            "Recommended pick (bias-corrected by the fidelity check): tree max_depth = 4 \
-             (lowest expected loss on the twin itself: 5); knn k = 12 (also the lowest on the \
-             twin itself)."
+            "Recommended pick (lowest expected loss on the twin): tree max_depth = 5 (the \
+             fidelity check's bias-corrected pick: 4); knn k = 12 (the bias-corrected pick \
+             agrees)."
         );
         assert_eq!(recommended_sentence(&[]), None);
+        // A result of an earlier twin, whose recommendation was the bias-corrected pick, reads
+        // as it was written.
+        let old = r#"[{"family":"tree","knob":"max_depth","value":4.0,"basis":"bias-corrected","twin_lowest":5.0}]"#;
+        let old: Vec<RecommendedPick> = serde_json::from_str(old).expect("reads");
+        assert_eq!(old[0].bias_corrected, None);
+        assert_eq!(
+            recommended_sentence(&old).unwrap(),
+            "Recommended pick (bias-corrected by the fidelity check): tree max_depth = 4 \
+             (lowest expected loss on the twin itself: 5)."
+        );
     }
 
     #[test]
@@ -339,12 +381,12 @@ mod tests {
         };
         let json = serde_json::to_string(&with).unwrap();
         assert!(
-            json.contains(r#""recommended":[{"family":"knn","knob":"k","value":12.0,"basis":"bias-corrected","twin_lowest":20.0}]"#),
+            json.contains(r#""recommended":[{"family":"knn","knob":"k","value":20.0,"basis":"twin-lowest","twin_lowest":20.0,"bias_corrected":12.0}]"#),
             "{json}"
         );
         let w = words(&with).join(" ");
         assert!(
-            w.contains("knn k = 12 (lowest expected loss on the twin itself: 20)"),
+            w.contains("knn k = 20 (the fidelity check's bias-corrected pick: 12)"),
             "{w}"
         );
     }

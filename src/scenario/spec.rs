@@ -94,6 +94,9 @@ pub struct ReferenceSpec {
     /// Cross-validated R² of each candidate when the choice was made (informational).
     #[serde(default)]
     pub cv_r2: Option<CandidateNumbers>,
+    /// Twicing: refit the recipe to its own in-sample residuals and add (regression).
+    #[serde(default)]
+    pub twice: Option<bool>,
 }
 
 /// One number per reference candidate (`{ knn = .., forest = .., loclin = .., blend = .. }`).

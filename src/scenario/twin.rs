@@ -243,6 +243,14 @@ fn choice_of(
     } else {
         None
     };
+    let twice = r.twice.unwrap_or(false);
+    if twice && (classes > 0 || varying) {
+        return Err(err(
+            fam_span,
+            "data.reference.twice",
+            "twicing applies to a regression twin with constant noise (`sd`)".into(),
+        ));
+    }
     let cv_r2 = r.cv_r2.as_ref().map(|c| {
         [
             c.knn.unwrap_or(f64::NAN),
@@ -259,6 +267,7 @@ fn choice_of(
         bandwidth,
         weights,
         cv_r2,
+        twice,
     })
 }
 

@@ -117,6 +117,11 @@ pub struct Choice {
     /// Cross-validated R² of knn, forest, loclin, blend when the choice was made
     /// (informational; not needed to refit).
     pub cv_r2: Option<[f64; 4]>,
+    /// Twicing (regression): the same recipe is fitted again to the in-sample residuals of the
+    /// first fit and the two are added, `f̂ = S y + S (y − S y)` (Tukey 1977, *Exploratory Data
+    /// Analysis*, "twicing"; one step of L2 boosting, Bühlmann and Yu 2003, *JASA* 98:324–339).
+    /// It restores curvature the cross-validated smoother rounds off.
+    pub twice: bool,
 }
 
 impl Choice {
@@ -130,6 +135,7 @@ impl Choice {
             bandwidth: None,
             weights: [1.0, 0.0, 0.0],
             cv_r2: None,
+            twice: false,
         }
     }
 
@@ -149,7 +155,7 @@ impl Choice {
             .bandwidth
             .map(|h| format!("bandwidth {h} sd"))
             .unwrap_or_default();
-        match self.family {
+        let plain = match self.family {
             Candidate::Knn => format!(
                 "k-NN reference ({k}{})",
                 if self.standardize {
@@ -173,6 +179,11 @@ impl Choice {
                 }
                 format!("blended reference: {}", parts.join(" + "))
             }
+        };
+        if self.twice {
+            format!("{plain}, twiced (refitted to its own residuals and added)")
+        } else {
+            plain
         }
     }
 }
@@ -217,6 +228,8 @@ pub struct Reference {
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
+    /// Twicing: the second fit, on the first fit's in-sample residuals.
+    second: Option<Box<Reference>>,
 }
 
 impl std::fmt::Debug for Reference {
@@ -243,6 +256,16 @@ impl Reference {
         varying: bool,
         source: &str,
     ) -> Result<Reference, String> {
+        if choice.twice {
+            if classes > 0 || varying {
+                return Err("twicing applies to a regression mean with constant noise".into());
+            }
+            let once = Choice {
+                twice: false,
+                ..choice.clone()
+            };
+            return Reference::fit(x, y, 0, &once, false, source)?.twiced(x, y);
+        }
         let n = x.nrows().max(1);
         let w = choice.weights;
         let need_knn = w[0] > 0.0 || classes > 0 || varying;
@@ -284,6 +307,7 @@ impl Reference {
             loclin,
             y: yv,
             sq_resid: None,
+            second: None,
         };
         if varying && classes == 0 {
             if let Some(kp) = &r.knn {
@@ -307,6 +331,29 @@ impl Reference {
         Ok(r)
     }
 
+    /// Twicing of a regression reference fitted once on `(x, y)`: its recipe is fitted again to
+    /// its in-sample residuals `y − f̂(x)` and added (see [`Choice::twice`]).
+    pub fn twiced(
+        mut self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView1<'_, f64>,
+    ) -> Result<Reference, String> {
+        if self.classes > 0 || self.sq_resid.is_some() || self.second.is_some() {
+            return Err("twicing applies once, to a regression mean with constant noise".into());
+        }
+        let resid: Vec<f64> = x
+            .rows()
+            .into_iter()
+            .zip(y)
+            .map(|(r, v)| v - self.mean_at(&r.to_vec()))
+            .collect();
+        let once = self.choice.clone();
+        let second = Reference::fit(x, ArrayView1::from(&resid), 0, &once, false, &self.source)?;
+        self.choice.twice = true;
+        self.second = Some(Box::new(second));
+        Ok(self)
+    }
+
     /// The k-NN part's k (0 without one).
     pub fn k(&self) -> usize {
         self.knn.as_ref().map_or(0, |p| p.k)
@@ -323,7 +370,7 @@ impl Reference {
     /// The reference's E[y | x] at one input row (scratch space is kept per thread, so
     /// evaluating many rows allocates once).
     pub fn mean_at(&self, row: &[f64]) -> f64 {
-        SCRATCH.with(|cell| {
+        let first = SCRATCH.with(|cell| {
             let mut s = cell.borrow_mut();
             let s = &mut *s;
             let w = self.choice.weights;
@@ -339,7 +386,11 @@ impl Reference {
                 v += w[2] * l.predict_with(row, &mut s.loclin);
             }
             v
-        })
+        });
+        match &self.second {
+            Some(s) => first + s.mean_at(row),
+            None => first,
+        }
     }
 
     /// Class probabilities at one input row: neighbour shares with add-one smoothing.
@@ -387,6 +438,9 @@ impl Reference {
             if let Some(h) = self.choice.bandwidth {
                 bytes.extend_from_slice(&h.to_bits().to_le_bytes());
             }
+        }
+        if self.choice.twice {
+            bytes.extend_from_slice(b"twice");
         }
         crate::codec::fnv1a64(&bytes)
     }
@@ -563,3 +617,85 @@ pub fn resample_rows<R: Rng + ?Sized>(rows: &Array2<f64>, n: usize, rng: &mut R)
 
 /// The reference shared by a twin's truth and (varying) noise.
 pub type SharedReference = Arc<Reference>;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::{Array1, Array2};
+
+    /// The k-NN smoother's matrix by brute force (unstandardized inputs, ties by index): row i
+    /// averages the k nearest table rows of `q_i`.
+    fn smoother(x: &Array2<f64>, q: &Array2<f64>, k: usize) -> Array2<f64> {
+        let mut s = Array2::zeros((q.nrows(), x.nrows()));
+        for i in 0..q.nrows() {
+            let mut d: Vec<(f64, usize)> = (0..x.nrows())
+                .map(|j| {
+                    let dd: f64 = (0..x.ncols())
+                        .map(|c| (q[[i, c]] - x[[j, c]]).powi(2))
+                        .sum();
+                    (dd, j)
+                })
+                .collect();
+            d.sort_by(|a, b| a.partial_cmp(b).unwrap());
+            for &(_, j) in &d[..k] {
+                s[[i, j]] = 1.0 / k as f64;
+            }
+        }
+        s
+    }
+
+    #[test]
+    fn twicing_a_knn_reference_is_two_s_minus_s_squared() {
+        // Distinct distances (irrational-ish spacing), so neighbour sets have no ties.
+        let n = 40;
+        let x = Array2::from_shape_fn((n, 2), |(i, c)| {
+            ((i as f64 + 1.0) * if c == 0 { 0.618_034 } else { 0.414_214 }).fract()
+        });
+        let y: Array1<f64> = (0..n)
+            .map(|i| (3.0 * x[[i, 0]]).sin() + x[[i, 1]] * x[[i, 1]] + 0.1 * (i % 3) as f64)
+            .collect();
+        let k = 4;
+        let choice = Choice {
+            twice: true,
+            ..Choice::knn(k, false)
+        };
+        let r = Reference::fit(x.view(), y.view(), 0, &choice, false, "t").unwrap();
+        assert!(r.choice.twice);
+        let s = smoother(&x, &x, k);
+        let once = s.dot(&y);
+        let resid = &y - &once;
+        // At the rows: (2S − S²) y; at new points q: S_q y + S_q (y − S y).
+        let want = &once + &s.dot(&resid);
+        for i in 0..n {
+            let got = r.mean_at(&x.row(i).to_vec());
+            assert!(
+                (got - want[i]).abs() < 1e-12,
+                "row {i}: {got} vs {}",
+                want[i]
+            );
+        }
+        let q = Array2::from_shape_fn((7, 2), |(i, c)| 0.05 + 0.13 * i as f64 + 0.02 * c as f64);
+        let sq = smoother(&x, &q, k);
+        let want_q = sq.dot(&y) + sq.dot(&resid);
+        for i in 0..q.nrows() {
+            let got = r.mean_at(&q.row(i).to_vec());
+            assert!(
+                (got - want_q[i]).abs() < 1e-12,
+                "point {i}: {got} vs {}",
+                want_q[i]
+            );
+        }
+        // Twicing changes the fit (the residuals are not all zero) and the digest.
+        let plain =
+            Reference::fit(x.view(), y.view(), 0, &Choice::knn(k, false), false, "t").unwrap();
+        assert!((0..n).any(|i| (plain.mean_at(&x.row(i).to_vec()) - want[i]).abs() > 1e-3));
+        assert_ne!(plain.digest(), r.digest());
+        // Classification and varying noise refuse it.
+        assert!(Reference::fit(x.view(), y.view(), 0, &choice, true, "t").is_err());
+        assert!(plain
+            .twiced(x.view(), y.view())
+            .unwrap()
+            .twiced(x.view(), y.view())
+            .is_err());
+    }
+}

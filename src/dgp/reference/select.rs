@@ -322,6 +322,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         bandwidth: (weights[2] > 0.0).then_some(bandwidth),
         weights,
         cv_r2: Some(cv_r2),
+        twice: false,
     };
     Selection {
         choice,
