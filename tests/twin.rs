@@ -81,7 +81,7 @@ fn twin_noise_and_best_knob_match_the_known_process() {
         o.seed,
         lossprism::dgp::reference::select::Rule::Best,
         None,
-        true,
+        lossprism::dgp::twin::Twicing::Auto,
         "t",
     )
     .unwrap();
@@ -97,6 +97,10 @@ fn twin_noise_and_best_knob_match_the_known_process() {
         "{:?}",
         rf.selection.scores
     );
+    // One input: the twicing check ran and decided.
+    let tc = rf.twicing.expect("the check runs below 3 inputs");
+    assert_eq!(rf.selection.choice.twice, tc.twice());
+    assert!(tc.once_r2 > 0.8 && tc.twice_r2 > 0.8, "{tc:?}");
 
     // Best knob: the same family and grid on the twin and on the true process, same n.
     let model = "\n[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 8 }\n";
@@ -312,10 +316,12 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     );
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains(&format!("# {head}\n")), "{text}");
-    // The reference is twiced, and says so.
+    // Three inputs: twiced by the inputs rule of `--twicing auto`, and said so.
     assert!(
-        text.contains("twice = true") && msg.contains("then twiced"),
-        "{text}"
+        msg.contains("then twiced")
+            && msg.contains("Twiced as every reference on 3 or more inputs is")
+            && text.contains("twice = true"),
+        "{msg}"
     );
     for key in [
         "jitter = 1.0",
@@ -356,12 +362,14 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
         o.seed,
         lossprism::dgp::reference::select::Rule::Best,
         None,
-        true,
+        lossprism::dgp::twin::Twicing::Auto,
         "t",
     )
     .unwrap();
     assert_eq!(refit.choice.family, fit.selection.choice.family);
-    assert!(refit.choice.twice && fit.selection.choice.twice);
+    // The rule decided (no check ran), and `run` refits the twiced reference.
+    assert!(fit.twicing.is_none());
+    assert!(fit.selection.choice.twice && refit.choice.twice);
     for i in 0..40 {
         let q = [0.025 * i as f64, 1.0 - 0.02 * i as f64, (i % 4) as f64];
         assert_eq!(

@@ -398,8 +398,12 @@ fn study_table(
         seed,
         fidelity,
         fidelity_replicates: fidelity_r,
-        // `LOSSPRISM_CALIB_ONCE=1`: the reference fitted once (`twin --once`), for comparison.
-        twice: std::env::var("LOSSPRISM_CALIB_ONCE").is_err(),
+        // `LOSSPRISM_CALIB_TWICING=on|off` overrides the twicing check (`twin --twicing`).
+        twicing: match std::env::var("LOSSPRISM_CALIB_TWICING").as_deref() {
+            Ok("on") => dgp_twin::Twicing::On,
+            Ok("off") => dgp_twin::Twicing::Off,
+            _ => dgp_twin::Twicing::Auto,
+        },
         ..Default::default()
     };
     twin_cmd::command(&o).expect("twin");
@@ -434,7 +438,11 @@ fn study_table(
         sigma2_new,
         sigma2_before,
         sigma2_drawn,
-        reference: refr.choice.family.name().to_string(),
+        reference: format!(
+            "{}{}",
+            refr.choice.family.name(),
+            if refr.choice.twice { " twiced" } else { "" }
+        ),
         twin: twin_curves.clone(),
         sigma2_se,
         ..Default::default()
@@ -776,7 +784,7 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
                 seed + t as u64,
                 Rule::Best,
                 None,
-                true,
+                dgp_twin::Twicing::Auto,
                 "t",
             )
             .expect("fits");
@@ -894,9 +902,16 @@ fn corrected_noise_is_close_on_known_processes() {
         let mut ses = Vec::new();
         for t in 0..8 {
             let (x, y) = draw_table(proc, 300, 1.0, 900 + t);
-            let fit =
-                dgp_twin::fit_regression(x.view(), &y.to_vec(), t, Rule::Best, None, true, "t")
-                    .unwrap();
+            let fit = dgp_twin::fit_regression(
+                x.view(),
+                &y.to_vec(),
+                t,
+                Rule::Best,
+                None,
+                dgp_twin::Twicing::Auto,
+                "t",
+            )
+            .unwrap();
             let c = fit.noise.unwrap();
             v.push(c.value);
             ses.push(c.se);
@@ -994,7 +1009,7 @@ fn noise_variants() {
                 seed + t as u64,
                 Rule::Best,
                 None,
-                true,
+                dgp_twin::Twicing::Auto,
                 "t",
             )
             .expect("fits");
@@ -1149,7 +1164,7 @@ fn noise_df() {
                 seed + t as u64,
                 Rule::Best,
                 None,
-                true,
+                dgp_twin::Twicing::Auto,
                 "t",
             )
             .expect("fits");
@@ -1262,7 +1277,7 @@ fn noise_tree_pilot() {
                 seed + t as u64,
                 Rule::Best,
                 None,
-                true,
+                dgp_twin::Twicing::Auto,
                 "t",
             )
             .expect("fits");

@@ -819,6 +819,12 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             )))
         }
     };
+    let twicing = crate::dgp::twin::Twicing::from_name(&a.twicing).ok_or_else(|| {
+        Error::Usage(format!(
+            "--twicing: unknown `{}`; expected auto, on or off",
+            a.twicing
+        ))
+    })?;
     if a.fidelity_replicates < 2 {
         return Err(Error::Usage(format!(
             "--fidelity-replicates must be at least 2, got {}",
@@ -842,7 +848,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         fidelity_replicates: a.fidelity_replicates,
         fidelity_families: Vec::new(),
         threads: a.threads,
-        twice: !a.once,
+        twicing,
     })?;
     print!("{text}");
     Ok(0)

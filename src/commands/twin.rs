@@ -29,7 +29,7 @@ use crate::dataset::{self, Missing, Table, TableOptions, TargetKind};
 use crate::dgp::reference::select::{self, Rule};
 use crate::dgp::reference::{self, Candidate, Choice, TwinFit};
 use crate::dgp::twin::{
-    self, FidelityModel, FidelityRecord, Jitter, NoiseCorrection, RegressionFit,
+    self, FidelityModel, FidelityRecord, Jitter, NoiseCorrection, RegressionFit, Twicing,
 };
 use crate::error::Error;
 use crate::family::Task;
@@ -112,9 +112,9 @@ pub struct TwinOptions {
     pub fidelity_families: Vec<FidelityFamily>,
     /// Worker threads of the fidelity runs (0: all cores).
     pub threads: usize,
-    /// Twice the reference (regression with constant noise; [`Choice::twice`]). On by default;
-    /// varying noise fits it once.
-    pub twice: bool,
+    /// Twicing of the reference (regression with constant noise; [`Choice::twice`]): by the
+    /// cross-validation check by default; varying noise fits it once.
+    pub twicing: Twicing,
 }
 
 impl Default for TwinOptions {
@@ -136,7 +136,7 @@ impl Default for TwinOptions {
             fidelity_replicates: FIDELITY_REPLICATES,
             fidelity_families: Vec::new(),
             threads: 0,
-            twice: true,
+            twicing: Twicing::Auto,
         }
     }
 }
@@ -367,6 +367,11 @@ fn fit_report_text(noise: Option<&NoiseCorrection>, fidelity: Option<&FidelityRe
 const DEFAULT_MODEL: &str = "\n[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 10 }\n";
 const DEFAULT_AUDIT: &str = "\n[audit]\nfolds = 5\n";
 
+/// Whether the reference was twiced by the inputs rule of `--twicing auto` (no check ran).
+fn rule_twice(fit: &RegressionFit) -> bool {
+    fit.twicing.is_none() && fit.twicing_mode == Twicing::Auto && fit.selection.choice.twice
+}
+
 /// Lines describing the reference candidates and the choice.
 fn reference_lines(fit: &RegressionFit, rule: Rule) -> Vec<String> {
     let sel = &fit.selection;
@@ -399,11 +404,27 @@ fn reference_lines(fit: &RegressionFit, rule: Rule) -> Vec<String> {
         },
         if sel.choice.twice {
             ", then twiced: refitted to its own in-sample residuals and added (Tukey's twicing), \
-             which gives back curvature the cross-validated fit rounds off (`--once` fits it once)"
+             which gives back curvature a cross-validated fit rounds off"
         } else {
             ""
         }
     ));
+    match &fit.twicing {
+        Some(c) => v.push(format!(
+            "Twicing check (the recipe refitted on the same {} folds, once and twiced): \
+             cross-validated R² {} once, {} twiced, so {} (`--twicing on|off` decides instead).",
+            sel.folds,
+            fmt_num(c.once_r2),
+            fmt_num(c.twice_r2),
+            if c.twice() { "twiced" } else { "fitted once" }
+        )),
+        None if sel.choice.twice && rule_twice(fit) => v.push(format!(
+            "Twiced as every reference on {} or more inputs is (`--twicing off` fits it once).",
+            twin::TWICE_FROM_INPUTS
+        )),
+        None if sel.choice.twice => v.push("Twiced because `--twicing on` asked for it.".into()),
+        None => {}
+    }
     v
 }
 
@@ -572,7 +593,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         o.seed,
         o.reference,
         o.noise_estimator,
-        o.twice && !o.varying,
+        if o.varying { Twicing::Off } else { o.twicing },
         "a table drawn from the twin",
     )
     .map_err(Error::Usage)?;
@@ -841,7 +862,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 o.seed,
                 o.reference,
                 o.noise_estimator,
-                o.twice && !o.varying,
+                if o.varying { Twicing::Off } else { o.twicing },
                 &rel,
             )
             .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;

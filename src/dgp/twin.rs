@@ -376,6 +376,40 @@ pub fn correct_noise(
     })
 }
 
+/// Whether a regression twin's reference is twiced ([`crate::dgp::reference::Choice::twice`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Twicing {
+    /// Twice on tables of [`TWICE_FROM_INPUTS`] or more inputs; on fewer, twice when it lowers
+    /// the cross-validated error of the chosen recipe ([`select::twicing_check`]).
+    #[default]
+    Auto,
+    /// Always twice.
+    On,
+    /// Fit once.
+    Off,
+}
+
+impl Twicing {
+    /// Parses `auto`, `on`, `off`.
+    pub fn from_name(s: &str) -> Option<Twicing> {
+        match s {
+            "auto" => Some(Twicing::Auto),
+            "on" => Some(Twicing::On),
+            "off" => Some(Twicing::Off),
+            _ => None,
+        }
+    }
+}
+
+/// Inputs from which [`Twicing::Auto`] always twices. With several inputs a cross-validated
+/// smoother has to average over wide neighbourhoods and rounds off the curvature the families'
+/// bias comes from; on invented 3-input processes twicing raised the twin's picks inside the
+/// true one-SE set from 15 to 28 of 30 (one seed; 76 of 90 over three), while the check of
+/// held-out error would have twiced only 7 of 15 tables there and reached 20 of 30. With one or
+/// two inputs, always twicing lost picks (18 of 30 against 23 of 30) and the check kept them
+/// (`docs/twin-calibration.md` §0). A threshold measured on invented processes, not a theorem.
+pub const TWICE_FROM_INPUTS: usize = 3;
+
 /// A regression twin fitted on a table: the reference's choice, the reference, its in-sample
 /// fit at the rows and the corrected noise.
 #[derive(Debug)]
@@ -388,22 +422,27 @@ pub struct RegressionFit {
     pub f_rows: Vec<f64>,
     /// The corrected noise (`None` when the estimator cannot run on the rows).
     pub noise: Option<NoiseCorrection>,
+    /// The twicing check ([`Twicing::Auto`] on fewer than [`TWICE_FROM_INPUTS`] inputs).
+    pub twicing: Option<select::TwicingCheck>,
+    /// The twicing asked for.
+    pub twicing_mode: Twicing,
 }
 
 /// Fits a regression twin on rows `x` and responses `y`: chooses the reference by `rule`
 /// ([`select`]), fits it, and corrects the noise estimate of `method` (default
 /// [`noise::default_method`]) with [`NOISE_TABLES`] bootstrap tables, using the fit made once.
-/// With `twice`, the twin's truth is the twiced fit ([`Reference::twiced`]): a cross-validated
-/// smoother rounds off the curvature a family's bias comes from, and twicing gives much of it
-/// back (measured in `docs/twin-calibration.md` §1). Deterministic given `seed`. Errors when
-/// the table has fewer than 6 rows.
+/// When `twicing` says so, the twin's truth is the twiced fit ([`Reference::twiced`]): a
+/// cross-validated smoother can round off the curvature a family's bias comes from, and
+/// twicing gives much of it back; [`Twicing::Auto`] twices when that predicts better on the
+/// table's folds (measured in `docs/twin-calibration.md` §1). Deterministic given `seed`.
+/// Errors when the table has fewer than 6 rows.
 pub fn fit_regression(
     x: ArrayView2<'_, f64>,
     y: &[f64],
     seed: u64,
     rule: Rule,
     method: Option<Method>,
-    twice: bool,
+    twicing: Twicing,
     source: &str,
 ) -> Result<RegressionFit, String> {
     if y.len() < select::FOLDS + 1 {
@@ -427,6 +466,17 @@ pub fn fit_regression(
     // (measured: docs/twin-calibration.md §1).
     let method = method.unwrap_or(noise::default_method(x.ncols()));
     let noise = correct_noise(method, x, y, &once_rows, NOISE_TABLES, seed);
+    let check = match twicing {
+        Twicing::Auto if x.ncols() < TWICE_FROM_INPUTS => {
+            select::twicing_check(x, y, seed, &selection.choice)
+        }
+        _ => None,
+    };
+    let twice = match twicing {
+        Twicing::On => true,
+        Twicing::Off => false,
+        Twicing::Auto => x.ncols() >= TWICE_FROM_INPUTS || check.is_some_and(|c| c.twice()),
+    };
     let (reference, f_rows) = if twice {
         let r = once.twiced(x, ArrayView1::from(y))?;
         selection.choice.twice = true;
@@ -440,6 +490,8 @@ pub fn fit_regression(
         reference,
         f_rows,
         noise,
+        twicing: check,
+        twicing_mode: twicing,
     })
 }
 

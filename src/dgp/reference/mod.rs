@@ -699,3 +699,62 @@ mod tests {
             .is_err());
     }
 }
+
+#[cfg(test)]
+mod twicing_check_tests {
+    use super::select::{twicing_check, FOLDS};
+    use super::*;
+    use crate::rng::{fold_assignment, purpose, stream};
+    use ndarray::{Array1, Array2, Axis};
+
+    /// A smooth signal on 200 rows of 2 inputs with noise of sd `sd` (a fixed pseudo-random
+    /// sequence, no engine stream).
+    fn data(sd: f64) -> (Array2<f64>, Array1<f64>) {
+        let n = 200;
+        let u = |i: usize, a: f64| ((i as f64 + 1.0) * a).fract();
+        let x = Array2::from_shape_fn((n, 2), |(i, c)| u(i, [0.618_034, 0.414_214][c]));
+        let y = (0..n)
+            .map(|i| {
+                let e = (u(i, 0.754_877) - 0.5) * 3.46 * sd; // uniform with sd `sd`
+                3.0 * (5.0 * x[[i, 0]]).sin() + 2.0 * x[[i, 1]] * x[[i, 1]] + e
+            })
+            .collect();
+        (x, y)
+    }
+
+    #[test]
+    fn the_check_scores_fold_refits_and_says_which_predicts_better() {
+        let (x, y) = data(0.3);
+        let seed = 9;
+        // Independent recomputation of the once score with the same folds.
+        let choice = Choice::knn(40, false);
+        let c = twicing_check(x.view(), y.as_slice().unwrap(), seed, &choice).unwrap();
+        let n = y.len();
+        let fold = fold_assignment(n, FOLDS, &mut stream(seed, purpose::TWIN, 0));
+        let mut sse = 0.0;
+        for f in 0..FOLDS {
+            let tr: Vec<usize> = (0..n).filter(|&i| fold[i] != f).collect();
+            let xt = x.select(Axis(0), &tr);
+            let yt = y.select(Axis(0), &tr);
+            let r = Reference::fit(xt.view(), yt.view(), 0, &choice, false, "t").unwrap();
+            for i in (0..n).filter(|&i| fold[i] == f) {
+                sse += (y[i] - r.mean_at(&x.row(i).to_vec())).powi(2);
+            }
+        }
+        let m = y.mean().unwrap();
+        let var = y.iter().map(|v| (v - m) * (v - m)).sum::<f64>();
+        assert!((c.once_r2 - (1.0 - sse / var)).abs() < 1e-12);
+        // 40 neighbours of 160 training rows round the sine off: twicing predicts better.
+        assert!(c.twice(), "{c:?}");
+        // Three neighbours on noisy rows already follow the noise: twicing only adds more.
+        let (x, y) = data(2.0);
+        let c = twicing_check(
+            x.view(),
+            y.as_slice().unwrap(),
+            seed,
+            &Choice::knn(3, false),
+        )
+        .unwrap();
+        assert!(!c.twice() && c.twice_r2 < c.once_r2 - 0.01, "{c:?}");
+    }
+}
