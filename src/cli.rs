@@ -67,7 +67,7 @@ pub enum Command {
     Plot(PlotArgs),
     /// Fit a simulated twin of a table and write a `source = "twin"` scenario: a reference for
     /// E[y|x] chosen among k-NN, bagged trees, local-linear regression and their blend by
-    /// cross-validated R² (twiced when that predicts better), inputs from a smoothed bootstrap
+    /// cross-validated R² (twiced with 3 or more inputs), inputs from a smoothed bootstrap
     /// of the rows, and a noise estimate corrected by a parametric bootstrap; then a fidelity
     /// check (tables drawn from the twin, twinned again) says how often a twin of such a table picks the knob it should,
     /// and gives the recommended pick per family (the twin's lowest expected loss, with a
@@ -99,8 +99,9 @@ pub struct TwinArgs {
     #[arg(long)]
     pub varying: bool,
     /// Twicing of the regression reference (refitted to its own residuals and added, which
-    /// restores curvature a cross-validated fit rounds off): `auto` twices when that lowers the
-    /// cross-validated error on the table, `on` always, `off` never (varying noise: off).
+    /// restores curvature a cross-validated fit rounds off): `auto` twices on tables of 3 or
+    /// more inputs and, with fewer, when that lowers the cross-validated error on the table;
+    /// `on` always, `off` never (varying noise: off).
     #[arg(long, default_value = "auto", value_name = "auto|on|off")]
     pub twicing: String,
     /// Where to write the scenario.

@@ -402,6 +402,10 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     assert_eq!(tw.cv_r2.len(), 4);
     let f = tw.fidelity.clone().expect("fidelity echoed");
     assert_eq!((f.tables, f.replicates, f.models.len()), (2, 12, 2));
+    // The twin's own run is at the scenario's replicates, and the echo says it is twiced.
+    assert_eq!(f.twin_replicates, Some(200));
+    assert!(tw.twice);
+    assert!(text.contains("twin_replicates = 200"), "{text}");
     assert_eq!(f.models[0].picks.len(), 2);
     // The recommended picks are echoed beside the record: the twin's own lowest expected loss,
     // with the bias-corrected pick; the terminal says the same sentence the twin printed.

@@ -14,8 +14,9 @@
 //! pick** of each family, the headline of the output: the twin's own lowest expected loss (its
 //! run at the scenario's replicates; [`FidelityModel::headline_pick`]), printed with the
 //! bias-corrected pick (the lowest of 2·EL(g) − mean EL*(g) over the twins of the twin) beside
-//! it as a second opinion. The reference is twiced by default ([`Choice::twice`]; `--once`
-//! fits it once). The scenario records all of it (`[data.fit_report]`, echoed in results with
+//! it as a second opinion. The reference is twiced ([`Choice::twice`]) as `--twicing auto`
+//! decides: always with 3 or more inputs, with fewer when that lowers the held-out error
+//! ([`Twicing`]); `--twicing off` fits it once. The scenario records all of it (`[data.fit_report]`, echoed in results with
 //! the recommended picks) and says it in comments.
 //!
 //! Classification twins keep the k-NN reference (k by cross-validated Brier score) and the
@@ -106,14 +107,16 @@ pub struct TwinOptions {
     pub noise_estimator: Option<Method>,
     /// Tables of the fidelity check (0 skips it).
     pub fidelity: usize,
-    /// Replicates of every run of the fidelity check.
+    /// Replicates of every run of a twin of the twin (the twin itself runs at
+    /// [`TWIN_REPLICATES`]).
     pub fidelity_replicates: usize,
     /// Families of the fidelity check (empty: [`default_fidelity_families`]).
     pub fidelity_families: Vec<FidelityFamily>,
     /// Worker threads of the fidelity runs (0: all cores).
     pub threads: usize,
-    /// Twicing of the reference (regression with constant noise; [`Choice::twice`]): by the
-    /// cross-validation check by default; varying noise fits it once.
+    /// Twicing of the reference (regression with constant noise; [`Choice::twice`]): by default
+    /// always with 3 or more inputs, with fewer when the cross-validation check says so;
+    /// varying noise fits it once.
     pub twicing: Twicing,
 }
 
@@ -343,6 +346,9 @@ fn fit_report_text(noise: Option<&NoiseCorrection>, fidelity: Option<&FidelityRe
             "\n[data.fit_report.fidelity]\ntables = {}\nreplicates = {}\n",
             f.tables, f.replicates
         ));
+        if let Some(r) = f.twin_replicates {
+            s.push_str(&format!("twin_replicates = {r}\n"));
+        }
         for m in &f.models {
             let curve_error = format!("{:.6}", m.curve_error);
             s.push_str(&format!(
@@ -489,7 +495,7 @@ fn noise_line(n: &NoiseCorrection) -> String {
         String::new()
     };
     format!(
-        "Noise ({}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from the twin, and the reference's possible error){}.{check}",
+        "Noise ({}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from that fit, and the reference's possible error){}.{check}",
         n.method.describe(),
         fmt_num(n.raw),
         fmt_se(n.raw_se),
@@ -583,20 +589,24 @@ pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<T
     })
 }
 
-/// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
-/// twin): the same pipeline as the first twin.
-fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
-    let y = t.y.to_vec();
-    let fit = twin::fit_regression(
+/// The regression fit of a twin of table `t` with the options of `o` (varying noise fits the
+/// reference once).
+fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, String> {
+    twin::fit_regression(
         t.x.view(),
-        &y,
+        &t.y.to_vec(),
         o.seed,
         o.reference,
         o.noise_estimator,
         if o.varying { Twicing::Off } else { o.twicing },
-        "a table drawn from the twin",
+        source,
     )
-    .map_err(Error::Usage)?;
+}
+
+/// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
+/// twin): the same pipeline as the first twin.
+fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
+    let fit = fit_table(o, t, "a table drawn from the twin").map_err(Error::Usage)?;
     let noise = if o.varying {
         TwinNoise::Varying
     } else {
@@ -721,6 +731,7 @@ fn fidelity(
         .collect();
     Ok(FidelityRecord {
         tables: o.fidelity,
+        twin_replicates: Some(TWIN_REPLICATES),
         replicates: reps,
         models,
     })
@@ -855,17 +866,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                     t.names.join(", ")
                 )));
             }
-            let y = t.y.to_vec();
-            let fit = twin::fit_regression(
-                t.x.view(),
-                &y,
-                o.seed,
-                o.reference,
-                o.noise_estimator,
-                if o.varying { Twicing::Off } else { o.twicing },
-                &rel,
-            )
-            .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
+            let fit = fit_table(o, &t, &rel)
+                .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             if let (Rule::Only(Candidate::LocLin), true) =
                 (o.reference, t.rows() > select::LOCLIN_MAX_ROWS)
             {

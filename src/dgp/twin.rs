@@ -433,8 +433,9 @@ pub struct RegressionFit {
 /// [`noise::default_method`]) with [`NOISE_TABLES`] bootstrap tables, using the fit made once.
 /// When `twicing` says so, the twin's truth is the twiced fit ([`Reference::twiced`]): a
 /// cross-validated smoother can round off the curvature a family's bias comes from, and
-/// twicing gives much of it back; [`Twicing::Auto`] twices when that predicts better on the
-/// table's folds (measured in `docs/twin-calibration.md` §1). Deterministic given `seed`.
+/// twicing gives much of it back; [`Twicing::Auto`] twices on [`TWICE_FROM_INPUTS`] or more
+/// inputs and, with fewer, when that predicts better on the table's folds (measured in
+/// `docs/twin-calibration.md` §0). Deterministic given `seed`.
 /// Errors when the table has fewer than 6 rows.
 pub fn fit_regression(
     x: ArrayView2<'_, f64>,
@@ -463,7 +464,7 @@ pub fn fit_regression(
     let once_rows = at_rows(&once);
     // The noise's correction is measured with the fit made once: the twiced fit carries more of
     // the table's noise, whose roughness the correction would count as the truth's and subtract
-    // (measured: docs/twin-calibration.md §1).
+    // (measured: docs/twin-calibration.md §0).
     let method = method.unwrap_or(noise::default_method(x.ncols()));
     let noise = correct_noise(method, x, y, &once_rows, NOISE_TABLES, seed);
     let check = match twicing {
@@ -542,8 +543,12 @@ impl From<&NoiseCorrection> for NoiseRecord {
 pub struct FidelityRecord {
     /// Tables drawn from the twin.
     pub tables: usize,
-    /// Replicates of every run.
+    /// Replicates of every run of a twin of the twin.
     pub replicates: usize,
+    /// Replicates of the twin's own run (the scenario's; `None` in scenarios written before the
+    /// twin's own pick became the recommended one, whose twin run had `replicates` and whose
+    /// recommendation was the bias-corrected pick).
+    pub twin_replicates: Option<usize>,
     /// One entry per family checked.
     pub models: Vec<FidelityModel>,
 }
@@ -582,7 +587,7 @@ impl FidelityModel {
     /// loss (`pick`, from a run at the scenario's replicates, so `run` marks the same value).
     /// With the twiced reference it was inside the true one-SE set more often than the
     /// bias-corrected pick (`corrected_pick`, still reported beside it) and had the smaller
-    /// regret (`docs/twin-calibration.md` §1); with the reference fitted once it was the other
+    /// regret (`docs/twin-calibration.md` §0); with the reference fitted once it was the other
     /// way round.
     pub fn headline_pick(&self) -> f64 {
         self.pick

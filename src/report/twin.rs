@@ -17,6 +17,10 @@ use crate::fmt::{fmt_num, fmt_se, fmt_value};
 pub struct TwinEcho {
     /// The reference's candidate (`knn`, `forest`, `loclin`, `blend`).
     pub reference: String,
+    /// The reference is twiced (refitted to its own residuals and added); absent when it is
+    /// not.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub twice: bool,
     /// Cross-validated R² of each candidate when the choice was made (absent for older twins).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub cv_r2: Vec<CandidateR2>,
@@ -56,17 +60,29 @@ pub struct RecommendedPick {
     pub bias_corrected: Option<f64>,
 }
 
-/// The recommended picks of a fidelity check, one per family.
+/// The recommended picks of a fidelity check, one per family. A record without
+/// `twin_replicates` was written when the recommendation was the bias-corrected pick, and keeps
+/// it.
 pub fn recommended(f: &FidelityRecord) -> Vec<RecommendedPick> {
     f.models
         .iter()
-        .map(|m| RecommendedPick {
-            family: m.family.clone(),
-            knob: m.knob.clone(),
-            value: m.headline_pick(),
-            basis: "twin-lowest".into(),
-            twin_lowest: m.pick,
-            bias_corrected: Some(m.corrected_pick),
+        .map(|m| match f.twin_replicates {
+            Some(_) => RecommendedPick {
+                family: m.family.clone(),
+                knob: m.knob.clone(),
+                value: m.headline_pick(),
+                basis: "twin-lowest".into(),
+                twin_lowest: m.pick,
+                bias_corrected: Some(m.corrected_pick),
+            },
+            None => RecommendedPick {
+                family: m.family.clone(),
+                knob: m.knob.clone(),
+                value: m.corrected_pick,
+                basis: "bias-corrected".into(),
+                twin_lowest: m.pick,
+                bias_corrected: None,
+            },
         })
         .collect()
 }
@@ -148,8 +164,12 @@ pub struct NoiseEcho {
 pub struct FidelityEcho {
     /// Tables drawn from the twin.
     pub tables: usize,
-    /// Replicates of every run.
+    /// Replicates of every run of a twin of the twin.
     pub replicates: usize,
+    /// Replicates of the twin's own run (absent for twins written when every run had
+    /// `replicates` and the recommendation was the bias-corrected pick).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub twin_replicates: Option<usize>,
     /// One entry per family checked.
     pub models: Vec<FidelityModelEcho>,
 }
@@ -207,6 +227,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
     let recommended = rep.fidelity.as_ref().map(recommended).unwrap_or_default();
     Some(TwinEcho {
         reference: r.choice.family.name().into(),
+        twice: r.choice.twice,
         cv_r2,
         jitter: p.jitter().map_or(0.0, |j| j.scale),
         noise: rep.noise.map(|n| NoiseEcho {
@@ -220,6 +241,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
         fidelity: rep.fidelity.map(|f| FidelityEcho {
             tables: f.tables,
             replicates: f.replicates,
+            twin_replicates: f.twin_replicates,
             models: f
                 .models
                 .into_iter()
@@ -259,9 +281,14 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             .map(|c| format!("{} {}", c.candidate, fmt_num(c.r2)))
             .collect();
         out.push(format!(
-            "The twin's truth is the `{}` reference, chosen by cross-validated R² among the candidates ({}); it is an estimate of E[y | x], not the table's real truth.",
+            "The twin's truth is the `{}` reference, chosen by cross-validated R² among the candidates ({}){}; it is an estimate of E[y | x], not the table's real truth.",
             t.reference,
-            r2.join(", ")
+            r2.join(", "),
+            if t.twice {
+                ", then twiced (refitted to its own residuals and added, which gives back curvature a cross-validated fit rounds off)"
+            } else {
+                ""
+            }
         ));
     }
     if let Some(n) = &t.noise {
@@ -282,9 +309,13 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
         for m in &f.models {
             let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
             out.push(format!(
-                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run of a twin of the twin), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
+                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run{}), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
                 f.tables,
                 f.replicates,
+                match f.twin_replicates {
+                    Some(r) => format!(" of a twin of the twin, {r} for the twin itself"),
+                    None => String::new(),
+                },
                 m.family,
                 m.knob,
                 fmt_value(m.pick),
@@ -326,6 +357,7 @@ mod tests {
         let f = FidelityRecord {
             tables: 2,
             replicates: 10,
+            twin_replicates: Some(200),
             models: vec![
                 model("tree", "max_depth", 5.0, 4.0),
                 model("knn", "k", 12.0, 12.0),
@@ -350,6 +382,18 @@ mod tests {
              agrees)."
         );
         assert_eq!(recommended_sentence(&[]), None);
+        // A scenario of an earlier twin (no `twin_replicates`) keeps the recommendation it was
+        // written with, the bias-corrected pick.
+        let old_record = FidelityRecord {
+            twin_replicates: None,
+            ..f.clone()
+        };
+        let r = recommended(&old_record);
+        assert_eq!(
+            (r[0].value, r[0].twin_lowest, r[0].bias_corrected),
+            (4.0, 5.0, None)
+        );
+        assert!(r.iter().all(|p| p.basis == "bias-corrected"));
         // A result of an earlier twin, whose recommendation was the bias-corrected pick, reads
         // as it was written.
         let old = r#"[{"family":"tree","knob":"max_depth","value":4.0,"basis":"bias-corrected","twin_lowest":5.0}]"#;
@@ -375,6 +419,7 @@ mod tests {
             recommended: recommended(&FidelityRecord {
                 tables: 1,
                 replicates: 2,
+                twin_replicates: Some(200),
                 models: vec![model("knn", "k", 20.0, 12.0)],
             }),
             ..t

@@ -155,8 +155,12 @@ pub struct NoiseRecordSpec {
 pub struct FidelitySpec {
     /// Tables drawn from the twin.
     pub tables: u64,
-    /// Replicates of every run.
+    /// Replicates of every run of a twin of the twin.
     pub replicates: u64,
+    /// Replicates of the twin's own run (absent in scenarios whose recommendation was the
+    /// bias-corrected pick).
+    #[serde(default)]
+    pub twin_replicates: Option<u64>,
     /// One entry per family checked.
     pub models: Vec<FidelityModelSpec>,
 }

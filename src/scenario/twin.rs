@@ -285,6 +285,7 @@ fn report_of(r: &FitReportSpec) -> FitReport {
         fidelity: r.fidelity.as_ref().map(|f| FidelityRecord {
             tables: f.tables as usize,
             replicates: f.replicates as usize,
+            twin_replicates: f.twin_replicates.map(|r| r as usize),
             models: f
                 .models
                 .iter()

@@ -692,6 +692,8 @@ mod tests {
         assert_ne!(plain.digest(), r.digest());
         // Classification and varying noise refuse it.
         assert!(Reference::fit(x.view(), y.view(), 0, &choice, true, "t").is_err());
+        let labels = y.mapv(|v| f64::from(u8::from(v > 1.0)));
+        assert!(Reference::fit(x.view(), labels.view(), 2, &choice, false, "t").is_err());
         assert!(plain
             .twiced(x.view(), y.view())
             .unwrap()
