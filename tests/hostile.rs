@@ -1526,6 +1526,13 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     );
     t.add(
         g,
+        "twin --twicing maybe",
+        &[("t.csv", good_csv().as_bytes())],
+        &["twin", "t.csv", "--target", "y", "--twicing", "maybe"],
+        "--twicing: unknown `maybe`",
+    );
+    t.add(
+        g,
         "--out in a missing folder",
         s,
         &["run", "s.toml", "--out", "no/such/r.json"],
