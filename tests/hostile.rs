@@ -2537,7 +2537,17 @@ fn a_fifo_given_as_the_output_receives_the_document_and_stays_a_fifo() {
             let fifo = fifo.clone();
             std::thread::spawn(move || fs::read(fifo).unwrap())
         };
-        let (code, _, err) = status(dir, args);
+        // The reader thread may not have opened the FIFO yet when the command looks for one
+        // (the command then refuses, writing nothing): try again until it has, for a while.
+        let (mut code, mut err) = (2, String::new());
+        for _ in 0..200 {
+            let (c, _, e) = status(dir, args);
+            (code, err) = (c, e);
+            if !(code == 2 && err.contains("no process is reading")) {
+                break;
+            }
+            std::thread::sleep(std::time::Duration::from_millis(25));
+        }
         assert_eq!(code, 0, "{args:?}: {err}");
         let got = reader.join().unwrap();
         assert!(

@@ -338,7 +338,7 @@ impl Reference {
         x: ArrayView2<'_, f64>,
         y: ArrayView1<'_, f64>,
     ) -> Result<Reference, String> {
-        if self.classes > 0 || self.sq_resid.is_some() || self.second.is_some() {
+        if self.classes > 0 || self.sq_resid.is_some() || self.choice.twice {
             return Err("twicing applies once, to a regression mean with constant noise".into());
         }
         let resid: Vec<f64> = x
@@ -348,10 +348,41 @@ impl Reference {
             .map(|(r, v)| v - self.mean_at(&r.to_vec()))
             .collect();
         let once = self.choice.clone();
-        let second = Reference::fit(x, ArrayView1::from(&resid), 0, &once, false, &self.source)?;
-        self.choice.twice = true;
-        self.second = Some(Box::new(second));
-        Ok(self)
+        let w = once.weights;
+        // The k-NN and local-linear parts are linear in the responses, S y + S r = S (y + r):
+        // one fit on y + r, so evaluating the twiced truth costs one smoother, not two.
+        let lin_y: Vec<f64> = y.iter().zip(&resid).map(|(a, b)| a + b).collect();
+        let lin = Choice {
+            weights: [w[0], 0.0, w[2]],
+            ..once.clone()
+        };
+        let mut out = Reference::fit(x, ArrayView1::from(&lin_y), 0, &lin, false, &self.source)?;
+        if w[1] > 0.0 {
+            // Bagged trees are not linear in the responses (their splits depend on them): the
+            // forest fitted once plus a forest fitted to the residuals.
+            let only_forest = Choice {
+                weights: [0.0, w[1], 0.0],
+                ..once.clone()
+            };
+            let on_resid = Reference::fit(
+                x,
+                ArrayView1::from(&resid),
+                0,
+                &only_forest,
+                false,
+                &self.source,
+            )?;
+            self.knn = None;
+            self.loclin = None;
+            self.choice = only_forest;
+            self.second = Some(Box::new(on_resid));
+            out.second = Some(Box::new(self));
+        }
+        out.choice = Choice {
+            twice: true,
+            ..once
+        };
+        Ok(out)
     }
 
     /// The k-NN part's k (0 without one).
@@ -690,6 +721,48 @@ mod tests {
             Reference::fit(x.view(), y.view(), 0, &Choice::knn(k, false), false, "t").unwrap();
         assert!((0..n).any(|i| (plain.mean_at(&x.row(i).to_vec()) - want[i]).abs() > 1e-3));
         assert_ne!(plain.digest(), r.digest());
+        // A blend with a forest part (not linear in the responses: its trees are refitted to the
+        // residuals) is the definition too: the recipe once, plus the recipe on the residuals.
+        let blend = Choice {
+            family: Candidate::Blend,
+            standardize: true,
+            k: Some(5),
+            forest: Some(forest::ForestParams {
+                trees: 10,
+                min_leaf: 3,
+                seed: 4,
+            }),
+            bandwidth: Some(0.5),
+            weights: [0.2, 0.5, 0.3],
+            cv_r2: None,
+            twice: false,
+        };
+        let once = Reference::fit(x.view(), y.view(), 0, &blend, false, "t").unwrap();
+        let r_once: Array1<f64> = (0..n)
+            .map(|i| y[i] - once.mean_at(&x.row(i).to_vec()))
+            .collect();
+        let on_resid = Reference::fit(x.view(), r_once.view(), 0, &blend, false, "t").unwrap();
+        let twiced = Reference::fit(
+            x.view(),
+            y.view(),
+            0,
+            &Choice {
+                twice: true,
+                ..blend.clone()
+            },
+            false,
+            "t",
+        )
+        .unwrap();
+        for i in 0..q.nrows() {
+            let row = q.row(i).to_vec();
+            let want = once.mean_at(&row) + on_resid.mean_at(&row);
+            let got = twiced.mean_at(&row);
+            assert!(
+                (got - want).abs() < 1e-9 * (1.0 + want.abs()),
+                "blend point {i}: {got} vs {want}"
+            );
+        }
         // Classification and varying noise refuse it.
         assert!(Reference::fit(x.view(), y.view(), 0, &choice, true, "t").is_err());
         let labels = y.mapv(|v| f64::from(u8::from(v > 1.0)));
