@@ -1533,6 +1533,21 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     );
     t.add(
         g,
+        "twin --twicing on --varying",
+        &[("t.csv", good_csv().as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--twicing",
+            "on",
+            "--varying",
+        ],
+        "constant noise",
+    );
+    t.add(
+        g,
         "--out in a missing folder",
         s,
         &["run", "s.toml", "--out", "no/such/r.json"],

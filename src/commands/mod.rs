@@ -825,6 +825,12 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             a.twicing
         ))
     })?;
+    if twicing == crate::dgp::twin::Twicing::On && (a.classes || a.varying) {
+        return Err(Error::Usage(format!(
+            "--twicing on: twicing applies to a regression reference with constant noise, not with {}; drop one of the two",
+            if a.classes { "--classes" } else { "--varying" }
+        )));
+    }
     if a.fidelity_replicates < 2 {
         return Err(Error::Usage(format!(
             "--fidelity-replicates must be at least 2, got {}",

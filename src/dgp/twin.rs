@@ -479,7 +479,7 @@ pub fn fit_regression(
         Twicing::Auto => x.ncols() >= TWICE_FROM_INPUTS || check.is_some_and(|c| c.twice()),
     };
     let (reference, f_rows) = if twice {
-        let r = once.twiced(x, ArrayView1::from(y))?;
+        let r = once.twiced_with_fit(x, ArrayView1::from(y), &once_rows)?;
         selection.choice.twice = true;
         let rows = at_rows(&r);
         (r, rows)
@@ -659,28 +659,49 @@ mod tests {
         assert_eq!(pilot.fit(&y).unwrap().to_vec(), y);
     }
 
+    /// `n` rows of x ~ U[0, 1]², the step f = `height` · [x₁ + x₂ > 1], y = f + `sd` · ε (all
+    /// inputs drawn first, then the noise, in row order).
+    fn step_table(
+        rng: &mut rand_chacha::ChaCha8Rng,
+        n: usize,
+        height: f64,
+        sd: f64,
+    ) -> (Array2<f64>, Vec<f64>, Vec<f64>) {
+        let x = Array2::from_shape_fn((n, 2), |_| rng.gen::<f64>());
+        let f: Vec<f64> = x
+            .rows()
+            .into_iter()
+            .map(|r| if r[0] + r[1] > 1.0 { height } else { 0.0 })
+            .collect();
+        let y = f
+            .iter()
+            .map(|v| {
+                let e: f64 = StandardNormal.sample(rng);
+                v + sd * e
+            })
+            .collect();
+        (x, f, y)
+    }
+
+    /// The step of [`step_table`] rounded off by a logistic ramp of width `w`: a smooth
+    /// reference that misses it.
+    fn rounded_step(x: &Array2<f64>, height: f64, w: f64) -> Vec<f64> {
+        x.rows()
+            .into_iter()
+            .map(|r| height / (1.0 + (-(r[0] + r[1] - 1.0) / w).exp()))
+            .collect()
+    }
+
     #[test]
     fn the_noise_check_scales_with_the_response_and_its_se_counts_the_excess() {
         // Exact: regression trees split the same way on 2y as on y and every estimator is a
         // quadratic form, so every variance (raw, corrections, the pilot's excess and both
         // standard errors) is multiplied by exactly 4 when the responses and the reference are
         // doubled (the bootstrap draws the same ε). The SE is sqrt(sampling_se² + excess⁺²).
-        let n = 120;
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(6);
-        let x = Array2::from_shape_fn((n, 2), |_| rng.gen::<f64>());
-        let f: Vec<f64> = x
-            .rows()
-            .into_iter()
-            .map(|r| if r[0] + r[1] > 1.0 { 1.5 } else { 0.0 })
-            .collect();
-        let e: Vec<f64> = (0..n).map(|_| StandardNormal.sample(&mut rng)).collect();
-        let y: Vec<f64> = f.iter().zip(&e).map(|(a, b)| a + 0.5 * b).collect();
+        let (x, _, y) = step_table(&mut rng, 120, 1.5, 0.5);
         // A smooth reference: the step rounded off.
-        let fh: Vec<f64> = x
-            .rows()
-            .into_iter()
-            .map(|r| 1.5 / (1.0 + (-(r[0] + r[1] - 1.0) / 0.15).exp()))
-            .collect();
+        let fh = rounded_step(&x, 1.5, 0.15);
         let a = correct_noise(Method::Gamma, x.view(), &y, &fh, 30, 4).unwrap();
         let twice = |v: &[f64]| v.iter().map(|t| 2.0 * t).collect::<Vec<_>>();
         let b = correct_noise(Method::Gamma, x.view(), &twice(&y), &twice(&fh), 30, 4).unwrap();
@@ -716,24 +737,8 @@ mod tests {
         let mut excess = Vec::new();
         for t in 0..tables as u64 {
             let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(100 + t);
-            let x = Array2::from_shape_fn((n, 2), |_| rng.gen::<f64>());
-            let f: Vec<f64> = x
-                .rows()
-                .into_iter()
-                .map(|r| if r[0] + r[1] > 1.0 { 3.0 } else { 0.0 })
-                .collect();
-            let y: Vec<f64> = f
-                .iter()
-                .map(|v| {
-                    let e: f64 = StandardNormal.sample(&mut rng);
-                    v + e
-                })
-                .collect();
-            let fh: Vec<f64> = x
-                .rows()
-                .into_iter()
-                .map(|r| 3.0 / (1.0 + (-(r[0] + r[1] - 1.0) / 0.1).exp()))
-                .collect();
+            let (x, f, y) = step_table(&mut rng, n, 3.0, 1.0);
+            let fh = rounded_step(&x, 3.0, 0.1);
             let c = correct_noise(Method::Gamma, x.view(), &y, &fh, 40, t).unwrap();
             let design = noise::Design::new(Method::Gamma, x.view()).unwrap();
             let truth = design.value(ArrayView1::from(&f[..]));

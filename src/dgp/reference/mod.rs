@@ -334,19 +334,33 @@ impl Reference {
     /// Twicing of a regression reference fitted once on `(x, y)`: its recipe is fitted again to
     /// its in-sample residuals `y − f̂(x)` and added (see [`Choice::twice`]).
     pub fn twiced(
+        self,
+        x: ArrayView2<'_, f64>,
+        y: ArrayView1<'_, f64>,
+    ) -> Result<Reference, String> {
+        let fit: Vec<f64> = x
+            .rows()
+            .into_iter()
+            .map(|r| self.mean_at(&r.to_vec()))
+            .collect();
+        self.twiced_with_fit(x, y, &fit)
+    }
+
+    /// [`Reference::twiced`] given this reference's in-sample fit `fit` at the rows of `x`
+    /// (callers that have it already need not evaluate it again).
+    pub fn twiced_with_fit(
         mut self,
         x: ArrayView2<'_, f64>,
         y: ArrayView1<'_, f64>,
+        fit: &[f64],
     ) -> Result<Reference, String> {
         if self.classes > 0 || self.sq_resid.is_some() || self.choice.twice {
             return Err("twicing applies once, to a regression mean with constant noise".into());
         }
-        let resid: Vec<f64> = x
-            .rows()
-            .into_iter()
-            .zip(y)
-            .map(|(r, v)| v - self.mean_at(&r.to_vec()))
-            .collect();
+        if fit.len() != y.len() || x.nrows() != y.len() {
+            return Err("twicing needs the in-sample fit at every row".into());
+        }
+        let resid: Vec<f64> = y.iter().zip(fit).map(|(v, f)| v - f).collect();
         let once = self.choice.clone();
         let w = once.weights;
         // The k-NN and local-linear parts are linear in the responses, S y + S r = S (y + r):
