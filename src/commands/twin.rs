@@ -664,9 +664,15 @@ fn fidelity(
             &Default::default(),
         )?)
     };
-    // The twin itself at the scenario's replicates (what `run` shows), its twins at `reps`.
+    // The twin itself at the scenario's replicates (what `run` shows), its twins at `reps`. The
+    // second plan differs only in R and its blocks (the twin's text sets no `blocks`, so they
+    // follow R as `Plan::from_spec` does); cloning it spares a second fit of the reference.
     let twin_plan = plan_at(TWIN_REPLICATES)?;
-    let plan = plan_at(reps)?;
+    let mut plan = twin_plan.clone();
+    plan.replicates = reps as u64;
+    plan.blocks = plan
+        .replicates
+        .min(crate::scenario::plan::DEFAULT_MAX_BLOCKS);
     let first = crate::runner::run(&twin_plan, o.threads)?;
     let base: Vec<(Vec<f64>, f64, Vec<f64>)> = (0..families.len())
         .map(|i| curve(&twin_plan, &first, i))
