@@ -916,10 +916,9 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         )));
     }
 
-    // A part's embedded scenario may ask for more than this machine holds: checked, as `run`
-    // does, before the evaluation points and the blocks are built (one thread: merging runs
-    // no fits).
-    runner::memory::check(&plan, 1, memory_limit)?;
+    // A part's embedded scenario may ask for more than this machine holds: checked before the
+    // evaluation points and the blocks are built (merging holds those and fits nothing).
+    runner::memory::check_merge(&plan, memory_limit)?;
     let prepared = runner::prepare(&plan)?;
     let points = prepared.points();
     let mut blocks: BTreeMap<u64, BlockResult> = BTreeMap::new();

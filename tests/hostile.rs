@@ -1457,7 +1457,7 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             "--memory-limit",
             "1K",
         ],
-        "more than the --memory-limit",
+        "merging its parts needs about",
     );
     t.add(
         g,
@@ -2781,4 +2781,32 @@ fn validate_is_linear_in_the_inputs_and_prints_the_memory_estimate() {
     assert!(secs < 10.0, "validate took {secs:.1} s");
     assert!(out.contains("memory: about"), "{out}");
     assert!(out.contains("largest term"), "{out}");
+}
+
+#[test]
+fn a_merge_is_held_to_what_merging_holds_not_to_the_fits() {
+    // Merging keeps every block's accumulators and the evaluation points and fits nothing: its
+    // estimate has exactly those two terms, equal to the run's, and leaves out the training
+    // sets, predictions and fit work that `run` counts.
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("s.toml"), BASE).unwrap();
+    let plan =
+        lossprism::scenario::load(&d.path().join("s.toml"), &Default::default()).expect("plan");
+    let run = lossprism::runner::memory::estimate(&plan, 1);
+    let merge = lossprism::runner::memory::merge_estimate(&plan);
+    let names: Vec<&str> = merge.terms.iter().map(|t| t.name).collect();
+    assert_eq!(names, ["accumulators", "evaluation inputs"]);
+    for t in &merge.terms {
+        let r = run.terms.iter().find(|r| r.name == t.name).unwrap();
+        assert_eq!(t.bytes, r.bytes, "{}", t.name);
+    }
+    let fits: f64 = run
+        .terms
+        .iter()
+        .filter(|t| !names.contains(&t.name))
+        .map(|t| t.bytes)
+        .sum();
+    assert!(fits > 0.0);
+    let gap = (merge.total() + fits - run.total()).abs();
+    assert!(gap <= 1e-9 * run.total(), "{gap}");
 }

@@ -257,7 +257,46 @@ pub fn check(
     threads: usize,
     limit: Option<u64>,
 ) -> Result<(Estimate, Option<u64>), Error> {
-    let e = estimate(plan, threads);
+    held_to(
+        plan,
+        estimate(plan, threads),
+        limit,
+        "the run",
+        "fewer rows, inputs, evaluation points, grid values, blocks or --threads",
+    )
+}
+
+/// The estimate of merging the parts of `plan`'s run: what a merge holds is every block's
+/// accumulators and the evaluation points; it fits nothing, so it has no training sets,
+/// predictions or fit work.
+pub fn merge_estimate(plan: &Plan) -> Estimate {
+    let mut e = estimate(plan, 1);
+    e.terms
+        .retain(|t| t.name == "accumulators" || t.name == "evaluation inputs");
+    e
+}
+
+/// Refuses merging the parts of `plan`'s run when [`merge_estimate`] exceeds `limit` bytes
+/// (`merge --memory-limit`), else the available memory.
+pub fn check_merge(plan: &Plan, limit: Option<u64>) -> Result<(Estimate, Option<u64>), Error> {
+    held_to(
+        plan,
+        merge_estimate(plan),
+        limit,
+        "merging its parts",
+        "fewer evaluation points, grid values or blocks in the scenario",
+    )
+}
+
+/// Refuses estimate `e` of `what` (for `plan`) above `limit`, else the available memory;
+/// `lower` says what to lower.
+fn held_to(
+    plan: &Plan,
+    e: Estimate,
+    limit: Option<u64>,
+    what: &str,
+    lower: &str,
+) -> Result<(Estimate, Option<u64>), Error> {
     let (cap, whose) = match limit {
         Some(l) => (Some(l), "the --memory-limit"),
         None => (available(), "the memory available on this machine"),
@@ -266,10 +305,9 @@ pub fn check(
         if e.total() > cap as f64 {
             let m = e.main();
             return Err(Error::Usage(format!(
-                "{}: the run needs about {} of memory, more than {whose} ({}); the largest term \
-                 is {} {} ({}): lower it (fewer rows, inputs, evaluation points, grid values, \
-                 blocks or --threads), or pass --memory-limit SIZE (e.g. --memory-limit {}) to \
-                 run anyway",
+                "{}: {what} needs about {} of memory, more than {whose} ({}); the largest term \
+                 is {} {} ({}): lower it ({lower}), or pass --memory-limit SIZE (e.g. \
+                 --memory-limit {}) to go ahead anyway",
                 plan.file,
                 fmt_bytes(e.total()),
                 fmt_bytes(cap as f64),
