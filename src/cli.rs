@@ -289,9 +289,9 @@ pub struct MergeArgs {
     /// Part documents written by `run --shard I/N --out FILE` (all shards of one run).
     #[arg(required = true, value_name = "PART.json")]
     pub parts: Vec<PathBuf>,
-    /// Merge even when the memory estimate of the merged run exceeds the memory available, up
-    /// to this size (`16G`); above it the merge is refused before the evaluation points and
-    /// the blocks are built.
+    /// Merge even when the memory estimate of merging (every block's accumulators and the
+    /// evaluation points) exceeds the memory available, up to this size (`16G`); above it the
+    /// merge is refused before the evaluation points and the blocks are built.
     #[arg(long, value_name = "SIZE", value_parser = crate::runner::memory::parse_size)]
     pub memory_limit: Option<u64>,
     /// Write the result document (JSON) here; `-` for standard output.
