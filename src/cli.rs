@@ -95,6 +95,12 @@ pub struct TwinArgs {
     /// out and write `missing = "drop"` in the scenario).
     #[arg(long, default_value = "error", value_name = "error|drop")]
     pub missing: String,
+    /// Rows that repeat an earlier row exactly (every used input and the target): `drop` keeps
+    /// each distinct row once, `keep` keeps them as separate observations. Default: `drop` for a
+    /// numeric target (a continuous response does not repeat, so they are copied records),
+    /// `keep` with --classes (labels repeat by nature). Written as `duplicates` in the scenario.
+    #[arg(long, value_name = "drop|keep")]
+    pub duplicates: Option<String>,
     /// Noise varying with x (smoothed squared residuals) instead of a constant.
     #[arg(long)]
     pub varying: bool,

@@ -359,6 +359,11 @@ fn csv_loader_never_panics() {
                     TargetKind::Numeric
                 },
                 min_rows: 3,
+                duplicates: if drop {
+                    dataset::Duplicates::Drop
+                } else {
+                    dataset::Duplicates::Keep
+                },
             };
             match dataset::load_csv(&path, &opts) {
                 Ok(t) => {

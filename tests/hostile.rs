@@ -326,6 +326,17 @@ fn scenario_cases(t: &mut Table) {
     let v = "validate";
     t.scenario(
         g,
+        "duplicates in a synthetic source",
+        &sc(
+            "source = \"synthetic\"",
+            "source = \"synthetic\"\nduplicates = \"drop\"",
+        ),
+        v,
+        "data.duplicates",
+    )
+    .also("belongs to `source = \"table\"`");
+    t.scenario(
+        g,
         "missing name",
         &sc("name = \"tiny\"\n", ""),
         v,
@@ -1064,6 +1075,19 @@ fn csv_cases(t: &mut Table) {
         "`1e400` is not a number",
     );
     t.table(
+        "unknown duplicates value",
+        good_csv().as_bytes(),
+        "duplicates = \"maybe\"",
+        "data.duplicates",
+    )
+    .also("expected `keep` or `drop`");
+    t.table(
+        "duplicates = drop leaves too few rows",
+        "a,b,y\n1,2,3\n1,2,3\n1,2,3\n1,2,3\n4,5,6\n4,5,6\n".as_bytes(),
+        "duplicates = \"drop\"",
+        "only 2 distinct rows after leaving out 4",
+    );
+    t.table(
         "missing cell",
         csv_rows(40, |i| if i == 3 { "".into() } else { i.to_string() }).as_bytes(),
         "",
@@ -1530,6 +1554,13 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &[("t.csv", good_csv().as_bytes())],
         &["twin", "t.csv", "--target", "y", "--twicing", "maybe"],
         "--twicing: unknown `maybe`",
+    );
+    t.add(
+        g,
+        "twin --duplicates maybe",
+        &[("t.csv", good_csv().as_bytes())],
+        &["twin", "t.csv", "--target", "y", "--duplicates", "maybe"],
+        "--duplicates: unknown `maybe`; expected drop or keep",
     );
     t.add(
         g,

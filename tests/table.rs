@@ -574,6 +574,55 @@ fn text_columns_are_one_hot_encoded_and_missing_rows_dropped_on_request() {
     assert_eq!(c.y.to_vec(), vec![0.0, 1.0, 0.0, 2.0, 1.0, 0.0]);
 }
 
+#[test]
+fn repeated_records_are_found_by_value_and_left_out_on_request() {
+    // Line 4 repeats line 2 by value (`1.0` = `1`, `-0` = `0`), line 6 repeats line 3; line 5
+    // shares line 2's inputs but not its target, so it is a separate observation.
+    let dir = tmp();
+    let p = dir.path().join("t.csv");
+    fs::write(
+        &p,
+        "a,b,y\n1,0,2.5\n3,1,4\n1.0,-0,2.50\n1,0,2.6\n3,1,4\n7,2,1\n8,3,1\n",
+    )
+    .unwrap();
+    let opts = TableOptions {
+        target: "y".into(),
+        ..Default::default()
+    };
+    let t = table::load_csv(&p, &opts).expect("loads");
+    assert_eq!(t.rows(), 7, "kept by default");
+    assert_eq!(table::repeated_rows(&t), vec![(2, 0), (4, 1)]);
+    let (d, k) = table::distinct_rows(&t);
+    assert_eq!(k, 2);
+    assert_eq!(d.lines, vec![2, 3, 5, 7, 8]);
+    assert_eq!(d.repeats_dropped, 2);
+    let dropped = table::load_csv(
+        &p,
+        &TableOptions {
+            duplicates: table::Duplicates::Drop,
+            ..opts.clone()
+        },
+    )
+    .expect("loads");
+    assert_eq!(dropped, d);
+    // Too few distinct rows left: one line saying so.
+    fs::write(&p, "a,y\n1,2\n1,2\n1,2\n2,3\n2,3\n3,4\n").unwrap();
+    let e = table::load_csv(
+        &p,
+        &TableOptions {
+            duplicates: table::Duplicates::Drop,
+            min_rows: 5,
+            ..opts
+        },
+    )
+    .unwrap_err();
+    assert!(
+        e.message
+            .contains("only 3 distinct rows after leaving out 3"),
+        "{e}"
+    );
+}
+
 // ---------------------------------------------------------------------------------------------
 // Command line: bad tables, the holdout ledger, classification.
 

@@ -595,3 +595,69 @@ fn shipped_cold_store_twin_is_what_the_current_twin_writes() {
         );
     }
 }
+
+/// The corrected noise `(value, stderr)` a twin scenario records in `[data.fit_report]`.
+fn recorded_noise(text: &str) -> (f64, f64) {
+    let v: toml::Value = toml::from_str(text).expect("the twin writes TOML");
+    let n = &v["data"]["fit_report"]["noise"];
+    (
+        n["value"].as_float().expect("value"),
+        n["stderr"].as_float().expect("stderr"),
+    )
+}
+
+#[test]
+fn copied_records_are_left_out_so_the_noise_is_not_fooled() {
+    // A table whose every record appears three times: neighbours at distance 0 with equal
+    // responses make any difference-based noise estimate collapse, and copies on both sides of a
+    // cross-validation split show the reference the answer. By default a regression twin keeps
+    // each distinct row once: its corrected σ̂² must lie within 4 of its standard errors of the
+    // true σ² = 0.25; kept, the copies pull σ̂² more than 4 of its standard errors below it.
+    let dir = tempfile::tempdir().unwrap();
+    let n = 150;
+    write_table(&dir.path().join("once.csv"), n, 21);
+    let once = fs::read_to_string(dir.path().join("once.csv")).unwrap();
+    let mut thrice = String::from("x,y\n");
+    for l in once.lines().skip(1) {
+        for _ in 0..3 {
+            thrice.push_str(l);
+            thrice.push('\n');
+        }
+    }
+    fs::write(dir.path().join("t.csv"), thrice).unwrap();
+
+    let o = opts(dir.path(), false, "y");
+    let msg = twin::command(&o).expect("twin");
+    assert!(
+        msg.contains("rows repeating an earlier row exactly (inputs and target): 300, e.g. line 3 repeats line 2; left out"),
+        "{msg}"
+    );
+    let text = fs::read_to_string(&o.out).unwrap();
+    assert!(text.contains("duplicates = \"drop\""), "{text}");
+    assert!(text.contains(&format!("train_size = {n}")), "{text}");
+    let (value, se) = recorded_noise(&text);
+    assert!((value - SD * SD).abs() < 4.0 * se, "σ̂² = {value} ± {se}");
+    // `run` reads the same distinct rows: the planned reference is the one `twin` fitted.
+    let plan = load(&o.out);
+    let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
+        panic!("a twin plans as a synthetic source")
+    };
+    assert_eq!(plan.train_size(), n);
+    assert!(sp.process.reference().is_some());
+
+    let keep = TwinOptions {
+        duplicates: Some(lossprism::dataset::Duplicates::Keep),
+        out: dir.path().join("keep.toml"),
+        ..o.clone()
+    };
+    let msg = twin::command(&keep).expect("twin");
+    assert!(msg.contains("kept as separate observations"), "{msg}");
+    let text = fs::read_to_string(&keep.out).unwrap();
+    assert!(text.contains("duplicates = \"keep\""), "{text}");
+    assert!(text.contains(&format!("train_size = {}", 3 * n)), "{text}");
+    let (kept, kept_se) = recorded_noise(&text);
+    assert!(
+        kept < SD * SD - 4.0 * kept_se,
+        "kept copies should collapse σ̂²: {kept} ± {kept_se}"
+    );
+}

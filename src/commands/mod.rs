@@ -819,6 +819,14 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             )))
         }
     };
+    let duplicates = match &a.duplicates {
+        None => None,
+        Some(d) => Some(crate::dataset::Duplicates::from_name(d).ok_or_else(|| {
+            Error::Usage(format!(
+                "--duplicates: unknown `{d}`; expected drop or keep"
+            ))
+        })?),
+    };
     let twicing = crate::dgp::twin::Twicing::from_name(&a.twicing).ok_or_else(|| {
         Error::Usage(format!(
             "--twicing: unknown `{}`; expected auto, on or off",
@@ -843,6 +851,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         features: a.features,
         classes: a.classes,
         missing,
+        duplicates,
         out: a.out,
         seed: a.seed,
         varying: a.varying,

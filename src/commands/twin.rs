@@ -1,6 +1,10 @@
 //! `lossprism twin`: fits a simulated twin of a table and writes its scenario file, which `run`
 //! then refits exactly at plan time.
 //!
+//! Rows that repeat an earlier row exactly are copied records for a numeric target (a continuous
+//! response does not repeat): a regression twin keeps each distinct row once unless
+//! `--duplicates keep` ([`dataset::distinct_rows`]); with classes they are kept and counted.
+//!
 //! Regression: the reference is chosen among k-NN, bagged trees, local-linear regression and
 //! their blend by cross-validated R² ([`crate::dgp::reference::select`]); the inputs are a
 //! smoothed bootstrap of the rows and the evaluation points are drawn once from it
@@ -26,7 +30,7 @@
 use std::path::{Path, PathBuf};
 
 use crate::dataset::noise::Method;
-use crate::dataset::{self, Missing, Table, TableOptions, TargetKind};
+use crate::dataset::{self, Duplicates, Missing, Table, TableOptions, TargetKind};
 use crate::dgp::reference::select::{self, Rule};
 use crate::dgp::reference::{self, Candidate, Choice, TwinFit};
 use crate::dgp::twin::{
@@ -90,6 +94,10 @@ pub struct TwinOptions {
     /// Rows with a missing or non-numeric cell: refuse the table (default) or drop them (the
     /// scenario then says `missing = "drop"`, so `run` reads the same rows).
     pub missing: Missing,
+    /// Rows repeating an earlier row exactly (inputs and target): `None` drops them for a
+    /// regression twin (a continuous response does not repeat, so they are copied records) and
+    /// keeps them for classes (labels repeat by nature); the scenario then says `duplicates`.
+    pub duplicates: Option<Duplicates>,
     /// Where the scenario goes (its folder anchors the relative `path`).
     pub out: PathBuf,
     /// Seed of the cross-validation folds, the forest, the bootstraps and the fidelity check,
@@ -128,6 +136,7 @@ impl Default for TwinOptions {
             features: None,
             classes: false,
             missing: Missing::Error,
+            duplicates: None,
             out: PathBuf::from("twin.toml"),
             seed: 1,
             varying: false,
@@ -298,6 +307,19 @@ fn data_common(o: &TwinOptions, t: &Table, table_rel: &str) -> String {
             "missing = \"drop\"  # {} of the table's rows had a missing or non-numeric cell and are left out\n",
             t.dropped_rows
         ));
+    }
+    if t.repeats_dropped > 0 {
+        s.push_str(&format!(
+            "duplicates = \"drop\"  # {} of the table's rows repeated an earlier row exactly (inputs and target) and are left out\n",
+            t.repeats_dropped
+        ));
+    } else if o.duplicates == Some(Duplicates::Keep) {
+        let k = dataset::repeated_rows(t).len();
+        if k > 0 {
+            s.push_str(&format!(
+                "duplicates = \"keep\"  # {k} of the table's rows repeat an earlier row exactly (inputs and target); kept as separate observations\n"
+            ));
+        }
     }
     s.push_str(&format!("train_size = {}\n", t.rows()));
     s
@@ -585,6 +607,7 @@ pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<T
         target: like.target.clone(),
         encodings: Vec::new(),
         dropped_rows: 0,
+        repeats_dropped: 0,
         lines: (2..n + 2).collect(),
     })
 }
@@ -759,6 +782,8 @@ fn load(o: &TwinOptions) -> Result<Table, Error> {
             TargetKind::Numeric
         },
         min_rows: 5,
+        // Repeats are counted and left out by the command (it names an example).
+        duplicates: Duplicates::Keep,
     };
     dataset::load_csv(&o.table, &opts).map_err(|mut e| {
         // The loader's advice names the scenario key; on this command the option says it.
@@ -826,6 +851,23 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         )));
     }
     let t = load(o)?;
+    let duplicates = o.duplicates.unwrap_or(if o.classes {
+        Duplicates::Keep
+    } else {
+        Duplicates::Drop
+    });
+    let repeats = dataset::repeated_rows(&t);
+    let example = repeats.first().map(|&(i, j)| (t.lines[i], t.lines[j]));
+    let t = if duplicates == Duplicates::Drop {
+        dataset::distinct_rows(&t).0
+    } else {
+        t
+    };
+    let o_dup = TwinOptions {
+        duplicates: Some(duplicates),
+        ..o.clone()
+    };
+    let o = &o_dup;
     let folder = match o.out.parent() {
         Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
         _ => PathBuf::from("."),
@@ -842,6 +884,16 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         out.push_str(&format!(
             "  rows dropped: {} (a missing or non-numeric cell; --missing drop, written as missing = \"drop\")\n",
             t.dropped_rows
+        ));
+    }
+    if let Some((line, earlier)) = example {
+        out.push_str(&format!(
+            "  rows repeating an earlier row exactly (inputs and target): {}, e.g. line {line} repeats line {earlier}; {}\n",
+            repeats.len(),
+            match duplicates {
+                Duplicates::Drop => "left out, each distinct row kept once (copies on both sides of a cross-validation split would show the reference the answer and make the noise look smaller; --duplicates keep if they are separate observations), written as duplicates = \"drop\"",
+                Duplicates::Keep => "kept as separate observations (--duplicates drop if they are copied records)",
+            }
         ));
     }
     for e in &t.encodings {

@@ -51,6 +51,78 @@ pub enum Missing {
     Drop,
 }
 
+/// What to do with rows that repeat an earlier row exactly (every used input and the target).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum Duplicates {
+    /// Keep every row (repeats are separate observations).
+    #[default]
+    Keep,
+    /// Keep each distinct row once, at its first line ([`distinct_rows`]).
+    Drop,
+}
+
+impl Duplicates {
+    /// Parses `keep` or `drop`.
+    pub fn from_name(s: &str) -> Option<Duplicates> {
+        match s {
+            "keep" => Some(Duplicates::Keep),
+            "drop" => Some(Duplicates::Drop),
+            _ => None,
+        }
+    }
+
+    /// The name as written in scenario files and on the command line.
+    pub fn name(self) -> &'static str {
+        match self {
+            Duplicates::Keep => "keep",
+            Duplicates::Drop => "drop",
+        }
+    }
+}
+
+/// The rows of `t` that repeat an earlier row exactly, as `(row, first earlier row with the same
+/// inputs and target)` in row order. Values compare as numbers after typing (`1` and `1.0` are
+/// equal, and so are `-0` and `0`); a loaded table holds no NaN.
+pub fn repeated_rows(t: &Table) -> Vec<(usize, usize)> {
+    let key = |i: usize| -> Vec<u64> {
+        t.x.row(i)
+            .iter()
+            .chain(std::iter::once(&t.y[i]))
+            .map(|&v| (v + 0.0).to_bits())
+            .collect()
+    };
+    let mut first: std::collections::HashMap<Vec<u64>, usize> =
+        std::collections::HashMap::with_capacity(t.rows());
+    let mut out = Vec::new();
+    for i in 0..t.rows() {
+        match first.entry(key(i)) {
+            std::collections::hash_map::Entry::Occupied(e) => out.push((i, *e.get())),
+            std::collections::hash_map::Entry::Vacant(e) => {
+                e.insert(i);
+            }
+        }
+    }
+    out
+}
+
+/// `t` with each distinct row kept once, at its first line, and how many rows were left out.
+/// Copies of a row on both sides of a split let cross-validation and out-of-bag evaluation see
+/// the answer, and neighbours at distance 0 with equal responses make a noise estimate too small.
+pub fn distinct_rows(t: &Table) -> (Table, usize) {
+    let repeats = repeated_rows(t);
+    if repeats.is_empty() {
+        return (t.clone(), 0);
+    }
+    let mut keep = vec![true; t.rows()];
+    for &(i, _) in &repeats {
+        keep[i] = false;
+    }
+    let idx: Vec<usize> = (0..t.rows()).filter(|&i| keep[i]).collect();
+    let mut d = t.select(&idx);
+    d.repeats_dropped = t.repeats_dropped + repeats.len();
+    (d, repeats.len())
+}
+
 /// How the target column is read.
 #[derive(Debug, Clone, PartialEq, Eq, Default)]
 pub enum TargetKind {
@@ -75,6 +147,8 @@ pub struct TableOptions {
     pub target_kind: TargetKind,
     /// Fewest usable rows accepted (at least 3 is always required).
     pub min_rows: usize,
+    /// Rows repeating an earlier row exactly: kept (default) or left out ([`distinct_rows`]).
+    pub duplicates: Duplicates,
 }
 
 /// How one text feature column was one-hot encoded.
@@ -128,6 +202,8 @@ pub struct Table {
     pub encodings: Vec<Encoding>,
     /// Rows dropped under `missing = "drop"`.
     pub dropped_rows: usize,
+    /// Rows left out because they repeated an earlier row exactly ([`distinct_rows`]).
+    pub repeats_dropped: usize,
     /// The file line (1-based, header = 1) of each kept row.
     pub lines: Vec<usize>,
 }
@@ -150,6 +226,7 @@ impl Table {
             target: self.target.clone(),
             encodings: self.encodings.clone(),
             dropped_rows: self.dropped_rows,
+            repeats_dropped: self.repeats_dropped,
             lines: idx.iter().map(|&i| self.lines[i]).collect(),
         }
     }
@@ -607,7 +684,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         }
     };
 
-    Ok(Table {
+    let table = Table {
         path: path.to_path_buf(),
         names,
         x,
@@ -617,8 +694,25 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         target: opts.target.clone(),
         encodings,
         dropped_rows: dropped,
+        repeats_dropped: 0,
         lines: rows.iter().map(|&r| lines[r]).collect(),
-    })
+    };
+    if opts.duplicates == Duplicates::Keep {
+        return Ok(table);
+    }
+    let (distinct, left_out) = distinct_rows(&table);
+    if distinct.rows() < min_rows {
+        return Err(err(
+            None,
+            None,
+            format!(
+                "only {} distinct rows after leaving out {left_out} that repeat an earlier row \
+                 exactly (`duplicates = \"drop\"`); at least {min_rows} are needed",
+                distinct.rows()
+            ),
+        ));
+    }
+    Ok(distinct)
 }
 
 /// The resampling scheme of a table decomposition.

@@ -316,6 +316,9 @@ pub struct DataSpec {
     /// Table: `error` (default) or `drop` for missing or non-numeric cells.
     #[serde(default)]
     pub missing: Option<Spanned<String>>,
+    /// Table: `keep` (default) or `drop` for rows repeating an earlier row exactly.
+    #[serde(default)]
+    pub duplicates: Option<Spanned<String>>,
     /// Table: `regress` (default) or `classify` (labels from the target's values).
     #[serde(default)]
     pub task: Option<Spanned<String>>,

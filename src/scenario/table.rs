@@ -4,7 +4,8 @@
 use std::path::Path;
 
 use crate::dataset::{
-    noise, plan_table, Missing, Scheme, TableOptions, TablePlan, TableRequest, TargetKind,
+    noise, plan_table, Duplicates, Missing, Scheme, TableOptions, TablePlan, TableRequest,
+    TargetKind,
 };
 use crate::error::ScenarioError;
 
@@ -50,6 +51,7 @@ pub fn reject_table_keys(
     )?;
     check(d.holdout.as_ref().map(|s| s.span()), "holdout")?;
     check(d.missing.as_ref().map(|s| s.span()), "missing")?;
+    check(d.duplicates.as_ref().map(|s| s.span()), "duplicates")?;
     check(d.task.as_ref().map(|s| s.span()), "task")?;
     check(
         d.noise_estimator.as_ref().map(|s| s.span()),
@@ -129,6 +131,7 @@ pub fn from_spec(
             ))
         }
     };
+    let duplicates = duplicates_of(d.duplicates.as_ref(), &|v, m| e(v, "data.duplicates", m))?;
     let classify = match d.task.as_ref().map(|s| s.get_ref().as_str()) {
         None => d.classes.is_some(),
         Some("classify") => true,
@@ -267,6 +270,7 @@ pub fn from_spec(
             missing,
             target_kind,
             min_rows: 5,
+            duplicates,
         },
         scheme,
         holdout,
@@ -301,4 +305,20 @@ pub fn from_spec(
         plan.sizes = Some(crate::scenario::plan::parse_sizes(&cx, ts, max)?);
     }
     Ok(plan)
+}
+
+/// Parses `data.duplicates` (`keep`, the default, or `drop`); `err` builds the error at the key.
+pub fn duplicates_of(
+    v: Option<&toml::Spanned<String>>,
+    err: &dyn Fn(Option<&toml::Spanned<String>>, String) -> ScenarioError,
+) -> Result<Duplicates, ScenarioError> {
+    match v {
+        None => Ok(Duplicates::Keep),
+        Some(s) => Duplicates::from_name(s.get_ref()).ok_or_else(|| {
+            err(
+                Some(s),
+                format!("unknown value `{}`; expected `keep` or `drop`", s.get_ref()),
+            )
+        }),
+    }
 }

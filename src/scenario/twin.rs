@@ -379,6 +379,13 @@ pub fn from_spec(
             ))
         }
     };
+    let duplicates = crate::scenario::table::duplicates_of(d.duplicates.as_ref(), &|v, m| {
+        err(
+            v.map(|s| s.span()).unwrap_or_else(|| at_source.clone()),
+            "data.duplicates",
+            m,
+        )
+    })?;
     let classify = match d.task.as_ref().map(|s| s.get_ref().as_str()) {
         None => d.classes.is_some(),
         Some("classify") => true,
@@ -414,6 +421,7 @@ pub fn from_spec(
         missing,
         target_kind,
         min_rows: 5,
+        duplicates,
     };
     let t = dataset::load_csv(&table_path, &opts).map_err(|e| {
         if e.line.is_none() && e.column.is_none() && e.message.starts_with("cannot read") {
