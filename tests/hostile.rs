@@ -1932,7 +1932,7 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             edit_json(&docs.result, |v| {
                 v["points"][0]["interval95"] = serde_json::json!({"variance": [null, 0.1]})
             }),
-            "`interval95.variance` must be [lower, upper] with two finite numbers",
+            "`interval95.variance` must be [lower, upper]: two finite numbers, or null",
         ),
         (
             "interval of no term",

@@ -438,15 +438,16 @@ fn flatten_intervals(
         } else {
             format!("{prefix}.{k}")
         };
+        let not_a_pair = || {
+            format!("`{INTERVAL_KEY}.{key}` must be [lower, upper]: two finite numbers, or null")
+        };
         match v {
             serde_json::Value::Null => out.push((key, (f64::NAN, f64::NAN))),
             serde_json::Value::Object(m) => flatten_intervals(&key, m, out)?,
             serde_json::Value::Array(a) => {
                 let bounds: Vec<f64> = a.iter().filter_map(|b| b.as_f64()).collect();
                 if a.len() != 2 || bounds.len() != 2 || bounds.iter().any(|b| !b.is_finite()) {
-                    return Err(format!(
-                        "`{INTERVAL_KEY}.{key}` must be [lower, upper] with two finite numbers (or null)"
-                    ));
+                    return Err(not_a_pair());
                 }
                 if bounds[0] > bounds[1] {
                     return Err(format!(
@@ -456,9 +457,7 @@ fn flatten_intervals(
                 }
                 out.push((key, (bounds[0], bounds[1])));
             }
-            _ => return Err(format!(
-                "`{INTERVAL_KEY}.{key}` must be [lower, upper] with two finite numbers (or null)"
-            )),
+            _ => return Err(not_a_pair()),
         }
     }
     Ok(())
