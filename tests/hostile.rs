@@ -1952,6 +1952,27 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             "cannot be negative",
         ),
         (
+            "inverted interval",
+            edit_json(&docs.result, |v| {
+                v["points"][0]["interval95"] = serde_json::json!({"variance": [0.2, 0.1]})
+            }),
+            "`interval95.variance` has lower bound 0.2 above upper bound 0.1",
+        ),
+        (
+            "interval with a null bound",
+            edit_json(&docs.result, |v| {
+                v["points"][0]["interval95"] = serde_json::json!({"variance": [null, 0.1]})
+            }),
+            "`interval95.variance` must be [lower, upper]: two finite numbers, or null",
+        ),
+        (
+            "interval of no term",
+            edit_json(&docs.result, |v| {
+                v["points"][0]["interval95"] = serde_json::json!({"wobble": [0.1, 0.2]})
+            }),
+            "`interval95.wobble` names no term",
+        ),
+        (
             "points of a string",
             edit_json(&docs.result, |v| v["points"] = "many".into()),
             "r.json",

@@ -1177,3 +1177,106 @@ fn counts_are_shown_as_whole_numbers() {
         assert!(c.parse::<u64>().is_ok(), "`{c}` is not a whole number");
     }
 }
+
+#[test]
+fn zero_one_percentile_intervals_round_trip_and_show_in_table_csv_and_html() {
+    let (_, _, doc) = run(TINY_CLASSES);
+    assert_eq!(doc.loss, "zero_one");
+    let boot: Vec<String> = doc
+        .terms
+        .iter()
+        .filter(|t| t.bootstrap)
+        .map(|t| t.key.clone())
+        .collect();
+    assert!(boot.len() >= 3, "{boot:?}");
+    for p in &doc.points {
+        let keys: Vec<&String> = p.interval.iter().map(|(k, _)| k).collect();
+        assert_eq!(
+            keys,
+            boot.iter().collect::<Vec<_>>(),
+            "exactly the bootstrap terms"
+        );
+        for k in &boot {
+            let (lo, hi) = p.interval(k).unwrap_or_else(|| panic!("{k}: no interval"));
+            assert!(lo <= hi, "{k}: [{lo}, {hi}]");
+        }
+    }
+    // JSON: written under `interval95` and read back (to the last digit serde_json parses: keys
+    // come back sorted and the last bit of a float may differ, as for every number of the
+    // document); a changed bound is a different row
+    let json = report::to_json(&doc);
+    assert!(json.contains("\"interval95\""));
+    let back: ResultDoc = serde_json::from_str(&json).unwrap();
+    for (a, b) in back.points.iter().zip(&doc.points) {
+        assert_eq!(a.interval.len(), b.interval.len());
+        for (k, (lo, hi)) in &b.interval {
+            let (l, h) = a.interval(k).unwrap();
+            assert!((l - lo).abs() <= 1e-15 * lo.abs() && (h - hi).abs() <= 1e-15 * hi.abs());
+        }
+    }
+    let mut other = doc.clone();
+    other.points[0].interval[0].1 .1 += 1e-9;
+    assert!(other != doc, "PartialEq compares the intervals");
+    // a bound that cannot be computed is `null`, as a standard error, and reads back as NaN
+    let mut nulls = doc.clone();
+    nulls.points[0].interval[0].1 = (f64::NAN, f64::NAN);
+    let text = report::to_json(&nulls);
+    let v: serde_json::Value = serde_json::from_str(&text).unwrap();
+    assert!(
+        v["points"][0]["interval95"][&boot[0]].is_null(),
+        "{}",
+        v["points"][0]
+    );
+    let back: ResultDoc = serde_json::from_str(&text).unwrap();
+    assert_eq!(back.points[0].interval(&boot[0]), None);
+    assert!(back.points[0].interval.iter().any(|(k, _)| *k == boot[0]));
+    // other losses carry no interval: no key at all
+    let (_, _, squared) = run(TINY);
+    assert!(squared.points.iter().all(|p| p.interval.is_empty()));
+    assert!(!report::to_json(&squared).contains("interval95"));
+    assert!(!report::csv::to_csv(&squared).contains("95_"));
+    assert!(!report::terminal::render(&squared).contains("percentile"));
+
+    // CSV: a lower95_/upper95_ pair per bootstrap term, before `knob`, the same numbers
+    let csv = report::csv::to_csv(&doc);
+    let mut lines = csv.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    assert_eq!(*header.last().unwrap(), "knob");
+    let first: Vec<&str> = lines.next().unwrap().split(',').collect();
+    for k in &boot {
+        let col = |name: String| {
+            let i = header.iter().position(|h| *h == name).expect("column");
+            first[i].parse::<f64>().unwrap()
+        };
+        let c = k.replace('.', "_");
+        let (lo, hi) = doc.points[0].interval(k).unwrap();
+        assert_eq!(col(format!("lower95_{c}")).to_bits(), lo.to_bits());
+        assert_eq!(col(format!("upper95_{c}")).to_bits(), hi.to_bits());
+    }
+    // terminal and HTML: the legend gives the intervals at the lowest expected loss
+    let best = doc
+        .points
+        .iter()
+        .find(|p| p.value == doc.best.value)
+        .unwrap();
+    let (lo, hi) = best.interval("bias").unwrap();
+    let want = format!(
+        "bias [{}, {}]",
+        lossprism::fmt::fmt_num(lo),
+        lossprism::fmt::fmt_num(hi)
+    );
+    let table = report::terminal::render(&doc);
+    let line = table
+        .lines()
+        .find(|l| l.starts_with("interval: 95 % bootstrap percentile interval at "))
+        .unwrap_or_else(|| panic!("no interval line:\n{table}"));
+    assert!(line.contains(&want), "{line}");
+    let pics = Pictures {
+        curve: None,
+        points: None,
+        selection: None,
+        extra: Vec::new(),
+    };
+    let page = html::render(&doc, View::Domingos, &pics, None, "wall time");
+    assert!(page.contains("95 % bootstrap percentile interval") && page.contains(&want));
+}

@@ -158,6 +158,120 @@ fn merged_shards_are_byte_identical_to_the_unsharded_run_zero_one_loss() {
 }
 
 #[test]
+fn percentile_intervals_are_identical_across_threads_shards_merge_and_resume() {
+    // The 95 % bootstrap percentile intervals (`interval95`, the CSV's lower95_/upper95_
+    // columns) come from the same block-bootstrap draws as the standard errors: one and two
+    // threads, a 3-way shard split merged, and a run stopped and resumed from a checkpoint give
+    // the same intervals bit for bit (and the same documents byte for byte).
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let s = packing_line(d);
+    let r = ["--replicates", "28"];
+    let run = |threads: &str, out: &str, csv: &str| {
+        ok(
+            d,
+            &[
+                "run",
+                s,
+                "--replicates",
+                "28",
+                "--threads",
+                threads,
+                "--out",
+                out,
+                "--csv",
+                csv,
+                "-q",
+            ],
+        );
+        read(d, out)
+    };
+    let one = run("1", "one.json", "one.csv");
+    let two = run("2", "two.json", "two.csv");
+    let merged = shard_and_merge(d, s, &r, 3);
+    ok(
+        d,
+        &[
+            "merge",
+            "part-3-1.json",
+            "part-3-2.json",
+            "part-3-3.json",
+            "--csv",
+            "merged.csv",
+            "-q",
+        ],
+    );
+    let base = [
+        "run",
+        s,
+        "--replicates",
+        "28",
+        "--checkpoint",
+        "ck.json",
+        "--out",
+        "resumed.json",
+        "-q",
+    ];
+    let mut stop = base.to_vec();
+    stop.extend_from_slice(&["--stop-after-blocks", "5"]);
+    assert_eq!(lossprism(d, &stop).status.code(), Some(3));
+    ok(d, &base);
+    let resumed = read(d, "resumed.json");
+
+    let intervals = |text: &str| -> Vec<Value> {
+        let v: Value = serde_json::from_str(text).unwrap();
+        v["points"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|p| p["interval95"].clone())
+            .collect()
+    };
+    let want = intervals(&one);
+    // exactly the bootstrap terms, each a finite [lower, upper] with lower ≤ upper
+    let v: Value = serde_json::from_str(&one).unwrap();
+    let boot: Vec<String> = v["terms"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .filter(|t| t["bootstrap"] == true)
+        .map(|t| t["key"].as_str().unwrap().to_string())
+        .collect();
+    assert_eq!(boot.len(), 7, "{boot:?}");
+    for iv in &want {
+        let mut found = 0;
+        for key in &boot {
+            let leaf = key.split('.').fold(iv, |o, k| &o[k]);
+            let b = leaf.as_array().unwrap_or_else(|| panic!("{key}: {leaf}"));
+            let (lo, hi) = (b[0].as_f64().unwrap(), b[1].as_f64().unwrap());
+            assert!(
+                lo.is_finite() && hi.is_finite() && lo <= hi,
+                "{key}: {leaf}"
+            );
+            found += 1;
+        }
+        let leaves = iv
+            .as_object()
+            .unwrap()
+            .values()
+            .fold(0, |n, x| n + x.as_object().map_or(1, serde_json::Map::len));
+        assert_eq!(found, leaves, "only bootstrap terms: {iv}");
+    }
+    for (name, text) in [
+        ("2 threads", &two),
+        ("3 shards merged", &merged),
+        ("resumed", &resumed),
+    ] {
+        assert_eq!(intervals(text), want, "{name}");
+        assert_eq!(text, &one, "{name}: the whole document");
+    }
+    // the CSV's interval columns agree too
+    assert!(read(d, "one.csv").contains(",lower95_bias,upper95_bias,"));
+    assert_eq!(read(d, "two.csv"), read(d, "one.csv"));
+    assert_eq!(read(d, "merged.csv"), read(d, "one.csv"));
+}
+
+#[test]
 fn merge_refuses_parts_that_do_not_make_one_run() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();

@@ -562,9 +562,29 @@ pub fn bootstrap_se(draws: &[f64], blocks: usize) -> f64 {
     }
 }
 
+/// Bootstrap percentile interval, nominal 95 % (Efron and Tibshirani 1993, *An Introduction to
+/// the Bootstrap*, ch. 13, from memory), from the terms of bootstrap draws over `blocks` replicate
+/// blocks. The draws are sorted and the bounds are the order statistics of ranks `k` and `n − k`
+/// (counted from 1), with `k = ⌊n/40⌋ = ⌊0.025·n⌋`: for the 200 draws of a run
+/// ([`BOOTSTRAP_DRAWS`]) the 5th and the 195th smallest, the rule measured in
+/// `docs/zero-one-finite-r.md`. `(NaN, NaN)` with fewer than 40 draws (then `k` would be 0),
+/// fewer than two blocks, or a non-finite draw, as for [`bootstrap_se`]. A pure function of the
+/// draws (sorted by value), so it does not depend on the order in which they were computed.
+pub fn percentile_interval(draws: &[f64], blocks: usize) -> (f64, f64) {
+    let n = draws.len();
+    let k = n / 40;
+    if k == 0 || blocks < 2 || draws.iter().any(|x| !x.is_finite()) {
+        return (f64::NAN, f64::NAN);
+    }
+    let mut v = draws.to_vec();
+    v.sort_by(f64::total_cmp);
+    (v[k - 1], v[n - k - 1])
+}
+
 /// A finished decomposition: the folded accumulator, the terms per grid value, their jackknife
-/// standard errors (NaN where not reported or not computable), and the leave-one-block-out
-/// terms (blocks × grid × terms) that paired comparisons use.
+/// standard errors (NaN where not reported or not computable), the bootstrap percentile
+/// intervals of the terms marked [`TermInfo::bootstrap`], and the leave-one-block-out terms
+/// (blocks × grid × terms) that paired comparisons use.
 #[derive(Debug, Clone)]
 pub struct Summary {
     /// The terms' description.
@@ -573,6 +593,12 @@ pub struct Summary {
     pub values: Vec<Row>,
     /// Standard errors per grid value.
     pub stderr: Vec<Row>,
+    /// Lower bounds of the 95 % bootstrap percentile interval ([`percentile_interval`]) per grid
+    /// value, from the same draws as the bootstrap standard errors; NaN for the other terms and
+    /// where it cannot be computed (no plans, fewer than two blocks, a non-finite draw).
+    pub lower: Vec<Row>,
+    /// Upper bounds, as [`Summary::lower`].
+    pub upper: Vec<Row>,
     /// Terms of each leave-one-block-out fold (empty with fewer than two blocks).
     pub leave_out: Vec<Vec<Row>>,
     /// Per grid value and term, the Monte Carlo share of the variance of the per-point terms
@@ -720,6 +746,8 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
     let resampled: Vec<usize> = (0..terms.len())
         .filter(|&t| terms[t].stderr && terms[t].bootstrap)
         .collect();
+    let mut lower: Vec<Row> = vec![vec![f64::NAN; terms.len()]; total.shape.grid];
+    let mut upper = lower.clone();
     if nb >= 2 && plans.len() >= 2 && !resampled.is_empty() {
         let slots: Vec<std::sync::Mutex<Option<Vec<Row>>>> =
             plans.iter().map(|_| std::sync::Mutex::new(None)).collect();
@@ -744,6 +772,7 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
             for &t in &resampled {
                 let v: Vec<f64> = draws.iter().map(|d| d[g][t]).collect();
                 row[t] = bootstrap_se(&v, nb);
+                (lower[g][t], upper[g][t]) = percentile_interval(&v, nb);
             }
         }
     }
@@ -752,6 +781,8 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
         terms,
         values,
         stderr,
+        lower,
+        upper,
         leave_out,
         point_noise: noise.map(|n| n.finish()).unwrap_or_default(),
         total,
@@ -1020,6 +1051,14 @@ impl Summary {
         self.index(key).map_or(f64::NAN, |t| self.stderr[g][t])
     }
 
+    /// The 95 % bootstrap percentile interval of term `key` at grid index `g`: `(NaN, NaN)` when
+    /// absent, not a bootstrap term or not computable.
+    pub fn interval(&self, g: usize, key: &str) -> (f64, f64) {
+        self.index(key).map_or((f64::NAN, f64::NAN), |t| {
+            (self.lower[g][t], self.upper[g][t])
+        })
+    }
+
     /// The terms at grid index `g` by key.
     pub fn named(&self, g: usize) -> std::collections::BTreeMap<&'static str, f64> {
         self.terms
@@ -1033,6 +1072,25 @@ impl Summary {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_percentile_interval_takes_the_ranks_of_its_rule() {
+        // 200 draws 1..=200 in a scrambled order: ranks 5 and 195 (k = 200/40 = 5)
+        let draws: Vec<f64> = (0..200).map(|i| f64::from((i * 77) % 200 + 1)).collect();
+        assert_eq!(percentile_interval(&draws, 32), (5.0, 195.0));
+        // 40 draws: k = 1, the smallest and the 39th
+        let forty: Vec<f64> = (1..=40).rev().map(f64::from).collect();
+        assert_eq!(percentile_interval(&forty, 8), (1.0, 39.0));
+        // too few draws or blocks, or a non-finite draw: NaN, as bootstrap_se
+        for (d, b) in [(&forty[..39], 8), (&forty[..], 1)] {
+            let (lo, hi) = percentile_interval(d, b);
+            assert!(lo.is_nan() && hi.is_nan(), "{} draws, {b} blocks", d.len());
+        }
+        let mut bad = draws.clone();
+        bad[17] = f64::NAN;
+        let (lo, hi) = percentile_interval(&bad, 32);
+        assert!(lo.is_nan() && hi.is_nan() && bootstrap_se(&bad, 32).is_nan());
+    }
 
     /// The streaming per-point jackknife against its definition, computed in two passes:
     /// per point, `(B−1)/B · Σ_b (c_b − c̄)²` of the term centred on each fold's mean over the

@@ -901,6 +901,11 @@ pub struct ZeroOneSummary {
     pub terms: Vec<ZeroOneTerms>,
     /// Standard errors per grid value (NaN where not reported).
     pub stderr: Vec<ZeroOneTerms>,
+    /// Lower bounds of the 95 % bootstrap percentile interval per grid value (NaN but for the
+    /// terms that use the main prediction, and without bootstrap plans).
+    pub lower: Vec<ZeroOneTerms>,
+    /// Upper bounds, as `lower`.
+    pub upper: Vec<ZeroOneTerms>,
     /// All blocks folded in order.
     pub total: Acc,
 }
@@ -941,6 +946,8 @@ pub fn view(s: &Summary) -> Option<ZeroOneSummary> {
     Some(ZeroOneSummary {
         terms: s.values.iter().map(from_row).collect(),
         stderr: s.stderr.iter().map(from_row).collect(),
+        lower: s.lower.iter().map(from_row).collect(),
+        upper: s.upper.iter().map(from_row).collect(),
         total: s.total.clone(),
     })
 }

@@ -20,7 +20,9 @@ fn column(key: &str) -> String {
 
 /// One header and one row per grid value: the knob value (`value`), the family and training
 /// size when a run has several, every term in the loss's order, `estimated` on tables, then
-/// `stderr_<term>` for every term with a standard error, and last the knob's name (`knob`).
+/// `stderr_<term>` for every term with a standard error, then — only when the rows carry them
+/// (terms with a bootstrap standard error) — `lower95_<term>` and `upper95_<term>`, the 95 %
+/// bootstrap percentile interval of each such term, and last the knob's name (`knob`).
 pub fn to_csv(doc: &ResultDoc) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
     let Some(first) = doc.points.first() else {
@@ -45,6 +47,10 @@ pub fn to_csv(doc: &ResultDoc) -> String {
             .iter()
             .map(|(k, _)| format!("stderr_{}", column(k))),
     );
+    for (k, _) in &first.interval {
+        header.push(format!("lower95_{}", column(k)));
+        header.push(format!("upper95_{}", column(k)));
+    }
     header.push("knob".into());
     w.write_record(&header).expect("in-memory csv");
     for p in &doc.points {
@@ -63,6 +69,11 @@ pub fn to_csv(doc: &ResultDoc) -> String {
             Some(v) => num(v),
             None => String::new(),
         }));
+        for (k, _) in &first.interval {
+            let (lo, hi) = p.interval(k).unwrap_or((f64::NAN, f64::NAN));
+            rec.push(num(lo));
+            rec.push(num(hi));
+        }
         rec.push(doc.knob.clone());
         w.write_record(&rec).expect("in-memory csv");
     }

@@ -195,8 +195,11 @@ impl TermDoc {
 
 /// One grid value's decomposition: the terms in the loss's order (JSON keys, dotted keys as
 /// nested objects), then `estimated` on tables, then the standard errors of the terms that have
-/// one (jackknife over replicate blocks; `null` where they cannot be computed). Two rows are
-/// equal when every number is the same bit for bit (so `null` equals `null`).
+/// one (jackknife over replicate blocks; `null` where they cannot be computed), then — only when
+/// some term's standard error comes from the block bootstrap — `interval95`, the 95 % bootstrap
+/// percentile interval `[lower, upper]` of each such term under the same nested keys (`null`
+/// where it cannot be computed, as a standard error). Two rows are equal when every number is
+/// the same bit for bit (so `null` equals `null`).
 #[derive(Debug, Clone)]
 pub struct PointRow {
     /// Knob value.
@@ -211,6 +214,10 @@ pub struct PointRow {
     pub estimated: Option<bool>,
     /// Standard errors in order: `(key, value)`, NaN written as `null`.
     pub stderr: Vec<(String, f64)>,
+    /// The 95 % bootstrap percentile intervals of the terms marked `bootstrap`, in order:
+    /// `(key, (lower, upper))`, NaN bounds written as `null`; empty (and absent from the JSON)
+    /// when no term is a bootstrap term.
+    pub interval: Vec<(String, (f64, f64))>,
 }
 
 impl PartialEq for PointRow {
@@ -227,6 +234,12 @@ impl PartialEq for PointRow {
             && self.estimated == o.estimated
             && same(&self.terms, &o.terms)
             && same(&self.stderr, &o.stderr)
+            && self.interval.len() == o.interval.len()
+            && self.interval.iter().zip(&o.interval).all(|(x, y)| {
+                x.0 == y.0
+                    && x.1 .0.to_bits() == y.1 .0.to_bits()
+                    && x.1 .1.to_bits() == y.1 .1.to_bits()
+            })
     }
 }
 
@@ -253,17 +266,50 @@ impl PointRow {
             .filter(|v| v.is_finite())
     }
 
+    /// The 95 % bootstrap percentile interval of term `key`: `None` when absent or not
+    /// computable.
+    pub fn interval(&self, key: &str) -> Option<(f64, f64)> {
+        self.interval
+            .iter()
+            .find(|(k, _)| k == key)
+            .map(|(_, v)| *v)
+            .filter(|(lo, hi)| lo.is_finite() && hi.is_finite())
+    }
+
     /// The expected loss.
     pub fn expected_loss(&self) -> f64 {
         self.get("expected_loss")
     }
 }
 
+/// A value of a [`Nested`] map: how it is written (non-finite numbers as `null`).
+trait Leaf: Copy {
+    /// The JSON form.
+    type Out: Serialize;
+    /// The value as written.
+    fn out(self) -> Self::Out;
+}
+
+impl Leaf for f64 {
+    type Out = Option<f64>;
+    fn out(self) -> Option<f64> {
+        finite(self)
+    }
+}
+
+/// An interval `(lower, upper)`: `[lower, upper]`, or `null` unless both are finite.
+impl Leaf for (f64, f64) {
+    type Out = Option<[f64; 2]>;
+    fn out(self) -> Option<[f64; 2]> {
+        (self.0.is_finite() && self.1.is_finite()).then_some([self.0, self.1])
+    }
+}
+
 /// Writes `(key, value)` pairs as a JSON map, grouping consecutive dotted keys with the same
 /// prefix into nested objects.
-struct Nested<'a>(&'a [(String, f64)]);
+struct Nested<'a, T>(&'a [(String, T)]);
 
-impl Serialize for Nested<'_> {
+impl<T: Leaf> Serialize for Nested<'_, T> {
     fn serialize<S: Serializer>(&self, ser: S) -> Result<S::Ok, S::Error> {
         let mut map = ser.serialize_map(None)?;
         let mut i = 0;
@@ -272,12 +318,12 @@ impl Serialize for Nested<'_> {
             let (k, v) = &items[i];
             match k.split_once('.') {
                 None => {
-                    map.serialize_entry(k, &finite(*v))?;
+                    map.serialize_entry(k, &v.out())?;
                     i += 1;
                 }
                 Some((prefix, _)) => {
                     let mut j = i;
-                    let mut inner: Vec<(String, f64)> = Vec::new();
+                    let mut inner: Vec<(String, T)> = Vec::new();
                     while j < items.len() {
                         match items[j].0.split_once('.') {
                             Some((p, rest)) if p == prefix => {
@@ -341,6 +387,9 @@ impl Serialize for PointRow {
             map.serialize_entry("estimated", &e)?;
         }
         map.serialize_entry("stderr", &Nested(&self.stderr))?;
+        if !self.interval.is_empty() {
+            map.serialize_entry(INTERVAL_KEY, &Nested(&self.interval))?;
+        }
         map.end()
     }
 }
@@ -372,6 +421,48 @@ fn flatten_numbers(
     Ok(())
 }
 
+/// The key of a point's bootstrap percentile intervals in the JSON.
+pub const INTERVAL_KEY: &str = "interval95";
+
+/// Flattens a point's `interval95` object into `(dotted key, (lower, upper))` pairs in document
+/// order: each leaf is `[lower, upper]` with finite bounds, lower ≤ upper, or `null` (not
+/// computable, read as NaN bounds). Anything else is an error naming the key.
+fn flatten_intervals(
+    prefix: &str,
+    obj: &serde_json::Map<String, serde_json::Value>,
+    out: &mut Vec<(String, (f64, f64))>,
+) -> Result<(), String> {
+    for (k, v) in obj {
+        let key = if prefix.is_empty() {
+            k.clone()
+        } else {
+            format!("{prefix}.{k}")
+        };
+        let not_a_pair = || {
+            format!("`{INTERVAL_KEY}.{key}` must be [lower, upper]: two finite numbers, or null")
+        };
+        match v {
+            serde_json::Value::Null => out.push((key, (f64::NAN, f64::NAN))),
+            serde_json::Value::Object(m) => flatten_intervals(&key, m, out)?,
+            serde_json::Value::Array(a) => {
+                let bounds: Vec<f64> = a.iter().filter_map(|b| b.as_f64()).collect();
+                if a.len() != 2 || bounds.len() != 2 || bounds.iter().any(|b| !b.is_finite()) {
+                    return Err(not_a_pair());
+                }
+                if bounds[0] > bounds[1] {
+                    return Err(format!(
+                        "`{INTERVAL_KEY}.{key}` has lower bound {} above upper bound {}",
+                        bounds[0], bounds[1]
+                    ));
+                }
+                out.push((key, (bounds[0], bounds[1])));
+            }
+            _ => return Err(not_a_pair()),
+        }
+    }
+    Ok(())
+}
+
 impl<'de> Deserialize<'de> for PointRow {
     fn deserialize<D: Deserializer<'de>>(de: D) -> Result<Self, D::Error> {
         let obj = serde_json::Map::<String, serde_json::Value>::deserialize(de)?;
@@ -398,9 +489,16 @@ impl<'de> Deserialize<'de> for PointRow {
         };
         let mut terms = Vec::new();
         let mut stderr = Vec::new();
+        let mut interval = Vec::new();
         for (k, v) in &obj {
             match k.as_str() {
                 "value" | "family" | "train_size" | "estimated" => {}
+                INTERVAL_KEY => {
+                    let m = v.as_object().ok_or_else(|| {
+                        D::Error::custom(format!("a point's `{INTERVAL_KEY}` is not an object"))
+                    })?;
+                    flatten_intervals("", m, &mut interval).map_err(D::Error::custom)?;
+                }
                 "stderr" => {
                     let m = v
                         .as_object()
@@ -419,6 +517,14 @@ impl<'de> Deserialize<'de> for PointRow {
                 "the standard error of `{k}` is {v}; a standard error cannot be negative"
             )));
         }
+        if let Some((k, _)) = interval
+            .iter()
+            .find(|(k, _)| !stderr.iter().any(|(s, _)| s == k))
+        {
+            return Err(D::Error::custom(format!(
+                "`{INTERVAL_KEY}.{k}` names no term with a standard error"
+            )));
+        }
         Ok(PointRow {
             value,
             family,
@@ -426,6 +532,7 @@ impl<'de> Deserialize<'de> for PointRow {
             terms,
             estimated,
             stderr,
+            interval,
         })
     }
 }
@@ -796,6 +903,13 @@ pub fn rows(plan: &Plan, outcome: &Outcome, c: usize) -> Vec<PointRow> {
                 .zip(&s.stderr[g])
                 .filter(|(t, _)| t.stderr)
                 .map(|(t, v)| (t.key.to_string(), *v))
+                .collect(),
+            interval: s
+                .terms
+                .iter()
+                .enumerate()
+                .filter(|(_, t)| t.stderr && t.bootstrap)
+                .map(|(i, t)| (t.key.to_string(), (s.lower[g][i], s.upper[g][i])))
                 .collect(),
         })
         .collect()

@@ -164,6 +164,9 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
             boot.join(", ")
         ));
     }
+    if let Some(line) = interval_line(doc, terms) {
+        s.push_str(&line);
+    }
     if let Some(n) = &doc.noise_estimate {
         s.push_str(&format!(
             "noise estimate: {} ± {} by {}\n",
@@ -185,6 +188,41 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
         s.push_str(&format!("scheme: {n}\n"));
     }
     s
+}
+
+/// The row of the lowest expected loss: `best`'s value (and family) at the largest training
+/// size.
+fn best_row(doc: &ResultDoc) -> Option<&PointRow> {
+    let largest = doc.sizes.last().map(|&n| n as u64);
+    doc.points.iter().find(|p| {
+        p.value == doc.best.value
+            && (doc.best.family.is_none() || p.family == doc.best.family)
+            && (largest.is_none() || p.train_size == largest)
+    })
+}
+
+/// The 95 % bootstrap percentile intervals of the shown terms that have one, at the lowest
+/// expected loss, as a legend line; `None` when there are none (every loss but 0-1, or no
+/// bootstrap draws).
+fn interval_line(doc: &ResultDoc, terms: &[TermDoc]) -> Option<String> {
+    let p = best_row(doc)?;
+    let parts: Vec<String> = terms
+        .iter()
+        .filter(|t| t.bootstrap)
+        .filter_map(|t| {
+            p.interval(&t.key)
+                .map(|(lo, hi)| format!("{} [{}, {}]", t.label, fmt_num(lo), fmt_num(hi)))
+        })
+        .collect();
+    if parts.is_empty() {
+        return None;
+    }
+    Some(format!(
+        "interval: 95 % bootstrap percentile interval at {} = {}: {} (at small R read it, not ± 2 SE, for the bias, net variance and James' effects; docs/zero-one-finite-r.md)\n",
+        doc.knob,
+        fmt_value(doc.best.value),
+        parts.join("; ")
+    ))
 }
 
 /// The table without layout, for other renderings (the HTML report): the header cells, one row
