@@ -1197,6 +1197,106 @@ fn csv_cases(t: &mut Table) {
     );
 }
 
+/// A twin scenario over `t.csv` (the good table) with a twiced blend reference and a
+/// `[data.fit_report]`.
+const TWIN: &str = r#"name = "tw"
+seed = 1
+replicates = 4
+blocks = 2
+
+[data]
+source = "twin"
+path = "t.csv"
+target = "y"
+train_size = 20
+eval_size = 10
+reference = { family = "blend", k = 5, trees = 10, min_leaf = 5, seed = 1, bandwidth = 0.5, twice = true, weights = { knn = 0.3, forest = 0.3, loclin = 0.4 } }
+
+[data.noise]
+sd = 0.3
+
+[data.fit_report]
+noise = { method = "gamma", raw = 0.1, correction = 0.01, value = 0.09, stderr = 0.02, tables = 200 }
+
+[data.fit_report.fidelity]
+tables = 5
+replicates = 100
+
+[[data.fit_report.fidelity.models]]
+family = "tree"
+knob = "max_depth"
+pick = 2.0
+one_se = [2.0]
+picks = [2.0, 2.0]
+in_one_se = 1.0
+curve_error = 0.05
+corrected_pick = 2.0
+grid = [1.0, 2.0]
+loss = [0.2, 0.1]
+corrected_loss = [0.2, 0.1]
+
+[model]
+family = "tree"
+grid = [1, 2]
+"#;
+
+fn twin_cases(t: &mut Table) {
+    let good = good_csv();
+    let twin = |from: &str, to: &str| {
+        assert!(
+            TWIN.contains(from),
+            "fixture: `{from}` not in the twin scenario"
+        );
+        TWIN.replacen(from, to, 1)
+    };
+    let cases: Vec<(&str, String, &str)> = vec![
+        // The reference fitted once is NaN everywhere (a bandwidth far below the spacing of
+        // the rows): twicing refitted bagged trees to NaN residuals and panicked.
+        (
+            "twiced reference with a 1e-300 bandwidth",
+            twin("bandwidth = 0.5", "bandwidth = 1e-300"),
+            "key `data.reference`: the reference fitted once gives NaN",
+        ),
+        // Without twicing the non-finite truth was reported under `data.truth.formula`, a key
+        // a twin does not have.
+        (
+            "reference fitted once with a 1e-300 bandwidth",
+            twin("bandwidth = 0.5", "bandwidth = 1e-300").replace("twice = true", "twice = false"),
+            "key `data.reference`: `blended reference",
+        ),
+        // The fit report is echoed in the result: a non-finite number came out as `null`.
+        (
+            "fit report noise value NaN",
+            twin("value = 0.09", "value = nan"),
+            "key `data.fit_report.noise.value`: must be a finite number, got NaN",
+        ),
+        (
+            "fit report stderr inf",
+            twin("stderr = 0.02", "stderr = inf"),
+            "data.fit_report.noise.stderr",
+        ),
+        (
+            "fit report pick NaN",
+            twin("pick = 2.0", "pick = nan"),
+            "key `data.fit_report.fidelity.models[0].pick`",
+        ),
+        (
+            "fit report loss -inf",
+            twin("loss = [0.2, 0.1]", "loss = [0.2, -inf]"),
+            "key `data.fit_report.fidelity.models[0].loss`",
+        ),
+    ];
+    for (name, scenario, needle) in cases {
+        t.add(
+            "twin",
+            name,
+            &[("s.toml", scenario.as_bytes()), ("t.csv", good.as_bytes())],
+            &["run", "s.toml", "--out", "r.json", "-q"],
+            needle,
+        );
+    }
+}
+
 fn cli_cases(t: &mut Table, docs: &Docs) {
     let g = "cli";
     let s: &[(&str, &[u8])] = &[("s.toml", BASE.as_bytes())];
@@ -2354,6 +2454,7 @@ fn all_cases(docs: &Docs) -> Vec<Case> {
     scenario_cases(&mut t);
     formula_cases(&mut t);
     csv_cases(&mut t);
+    twin_cases(&mut t);
     cli_cases(&mut t, docs);
     output_clash_cases(&mut t, docs);
     document_cases(&mut t, docs);
