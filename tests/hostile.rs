@@ -1125,6 +1125,22 @@ fn csv_cases(t: &mut Table) {
     );
     t.table("binary table", b"a,b,y\n\x00\x01\x02,1,2\n", "", "t.csv");
     t.table("not UTF-8", b"a,b,y\n\xff,1,2\n", "", "t.csv");
+    // Nearly every row in every training set: no row is held out twice, and the NaN terms
+    // were blamed on an overflow ("rescale the response").
+    t.table(
+        "train_fraction 0.99",
+        good.as_bytes(),
+        "resample = \"half\"\ntrain_fraction = 0.99",
+        "no row was held out in 2 or more of the 4 replicates",
+    )
+    .also("lower `train_fraction`");
+    // One training row: the message said "only 40 rows outside the holdout; at least 4".
+    t.table(
+        "train_fraction 0.01",
+        good.as_bytes(),
+        "resample = \"half\"\ntrain_fraction = 0.01",
+        "would hold 1 row (train_fraction = 0.01); at least 2 are needed",
+    );
     t.table(
         "unknown missing rule",
         good.as_bytes(),
@@ -2857,6 +2873,55 @@ fn two_replicates_say_what_to_change_for_standard_errors() {
     let (code, _, err) = status(dir, &["run", "s.toml", "--out", "c.json"]);
     assert_eq!(code, 0, "{err}");
     assert!(!err.contains("no standard errors"), "{err}");
+}
+
+#[test]
+fn responses_near_1e150_get_finite_standard_errors() {
+    // The terms are finite up to responses of about 1e154, but the jackknife's squared
+    // deviations overflowed from about 1e77 times smaller: every standard error was written as
+    // `null`, with exit 0 and no `±` in the table. Now they are computed on scaled values.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("s.toml"), with_formula("1e150*x")).unwrap();
+    let (code, out, err) = status(dir, &["run", "s.toml", "--out", "r.json"]);
+    assert_eq!(code, 0, "{err}");
+    let doc = fs::read_to_string(dir.join("r.json")).unwrap();
+    assert!(!doc.contains("null"), "{doc}");
+    let v: serde_json::Value = serde_json::from_str(&doc).unwrap();
+    for p in v["points"].as_array().unwrap() {
+        for (term, se) in p["stderr"].as_object().unwrap() {
+            let se = se.as_f64().unwrap();
+            assert!(se.is_finite() && se >= 0.0, "{term}: {se}");
+        }
+    }
+    assert!(out.contains(" ± "), "{out}");
+}
+
+#[test]
+fn a_table_run_without_standard_errors_says_so() {
+    // Five rows, R = 4 in 2 blocks: with a block left out no row is held out twice, so the
+    // result's standard errors are `null`; the run said nothing (the table's legend still
+    // promised "± one standard error").
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("t.csv"), csv_rows(5, |i| format!("{}", i * i))).unwrap();
+    fs::write(dir.join("s.toml"), table_scenario("", TREE)).unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r.json"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("the expected loss has no standard error at 2 grid value(s)"),
+        "{err}"
+    );
+    assert!(err.contains("raise `replicates`"), "{err}");
+    // Enough replicates: standard errors, and no note.
+    let (code, _, err) = status(
+        dir,
+        &["run", "s.toml", "--out", "r2.json", "--replicates", "40"],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert!(!err.contains("no standard error"), "{err}");
+    let doc = fs::read_to_string(dir.join("r2.json")).unwrap();
+    assert!(!doc.contains("null"), "{doc}");
 }
 
 #[test]
