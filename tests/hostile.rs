@@ -1640,6 +1640,45 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["twin", "t.csv", "--target", "y", "--seed", "-3"],
         "-3",
     );
+    // Options a classification twin has no use for were silently ignored.
+    let mut classes_csv = String::from("a,b,y\n");
+    for i in 0..40 {
+        classes_csv.push_str(&format!("{},{},{}\n", i % 7, i % 5, ["u", "v"][i % 2]));
+    }
+    for (flag, value) in [
+        ("--varying", None),
+        ("--noise-estimator", Some("nn")),
+        ("--reference", Some("forest")),
+        ("--jitter", Some("2")),
+    ] {
+        let mut args = vec!["twin", "t.csv", "--target", "y", "--classes", flag];
+        args.extend(value);
+        t.add(
+            g,
+            format!("twin --classes {flag}"),
+            &[("t.csv", classes_csv.as_bytes())],
+            &args,
+            &format!("{flag} applies to a regression twin"),
+        );
+    }
+    // The seed goes into the written scenario, whose integers stop at 2^63 − 1: the twin was
+    // fitted, then refused naming line 14 of a file that was never written.
+    t.add(
+        g,
+        "twin --seed 2^63",
+        &[("t.csv", good_csv().as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--seed",
+            "9223372036854775808",
+        ],
+        "--seed must be at most 9223372036854775807",
+    );
     t.add(
         g,
         "twin --twicing maybe",

@@ -866,6 +866,27 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             if a.classes { "--classes" } else { "--varying" }
         )));
     }
+    if a.classes {
+        // A classification twin is k-NN shares over the rows resampled as they are: these
+        // options have nothing to act on, and were silently ignored.
+        let unused = if a.varying {
+            Some("--varying")
+        } else if a.noise_estimator.is_some() {
+            Some("--noise-estimator")
+        } else if !matches!(a.reference.as_str(), "best" | "knn") {
+            Some("--reference")
+        } else if a.jitter != 1.0 {
+            Some("--jitter")
+        } else {
+            None
+        };
+        if let Some(flag) = unused {
+            return Err(Error::Usage(format!(
+                "{flag} applies to a regression twin; with --classes the reference is k-NN class \
+                 shares and the rows are resampled as they are; drop one of the two"
+            )));
+        }
+    }
     if a.fidelity_replicates < 2 {
         return Err(Error::Usage(format!(
             "--fidelity-replicates must be at least 2, got {}",
