@@ -1944,6 +1944,17 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             }),
             "p1.json",
         ),
+        // Shard 0/2 wrapped `index - 1` around: "outside its blocks 18446744073709551615..0".
+        (
+            "shard index 0",
+            edit_part(&docs.part1, true, |v| v["shard"]["index"] = 0.into()),
+            "claims to be shard 0/2, which no run writes",
+        ),
+        (
+            "shard index above the count",
+            edit_part(&docs.part1, true, |v| v["shard"]["index"] = 3.into()),
+            "claims to be shard 3/2",
+        ),
         (
             "block index outside",
             edit_part(&docs.part1, true, |v| v["completed"][0]["block"] = 7.into()),
