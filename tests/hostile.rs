@@ -625,6 +625,99 @@ fn scenario_cases(t: &mut Table) {
         v,
         "count",
     );
+    // The span 2e308 is +inf: its count saturated and `+ 1` wrapped to 0 ("is empty").
+    t.scenario(
+        g,
+        "range grid over the whole float range",
+        &sc("grid = [1, 2]", "grid = { from = -1e308, to = 1e308 }"),
+        v,
+        "range from -1e308 to 1e308 step 1 has more than 10000 values",
+    );
+    t.scenario(
+        g,
+        "range grid with a 1e-300 step",
+        &sc(
+            "grid = [1, 2]",
+            "grid = { from = 1, to = 2, step = 1e-300 }",
+        ),
+        v,
+        "has more than 10000 values",
+    );
+    // Numbers echoed in messages were printed digit by digit (1e308: 309 characters).
+    t.scenario(
+        g,
+        "tree depth 1e300",
+        &sc("grid = [1, 2]", "grid = [1e300]"),
+        v,
+        "max_depth = 1e300 is outside the allowed range 1..=64",
+    );
+    t.scenario(
+        g,
+        "boost learning rate 1e308",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"boost\"\ngrid = [1, 2]\nlearning_rate = 1e308",
+        ),
+        v,
+        "must be a number in [0, 1000], got 1e308",
+    );
+    t.scenario(
+        g,
+        "external timeout 0",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"external\"\ngrid = [1, 2]\ncommand = [\"true\"]\nknob = \"k\"\ntimeout_seconds = 0",
+        ),
+        v,
+        "must be a number in (0, 1000000], got 0",
+    );
+    t.scenario(
+        g,
+        "noise sd -1e308",
+        &sc("sd = 1.0", "sd = -1e308"),
+        v,
+        "must be a finite number >= 0, got -1e308",
+    );
+    // Text with a line break echoed as is made a message of two lines.
+    t.scenario(
+        g,
+        "family name with a line break",
+        &sc("family = \"tree\"", "family = \"tr\\nee\""),
+        v,
+        "unknown family `tr\\nee`",
+    );
+    t.scenario(
+        g,
+        "source with a line break",
+        &sc("source = \"synthetic\"", "source = \"syn\\nthetic\""),
+        v,
+        "unknown source `syn\\nthetic`",
+    );
+    t.scenario(
+        g,
+        "option key with a line break",
+        &sc("grid = [1, 2]", "grid = [1, 2]\n\"opt\\nion\" = 3"),
+        v,
+        "key `model.opt\\nion`",
+    );
+    t.add(
+        "csv",
+        "twin target with a line break",
+        &[("t.csv", good_csv().as_bytes())],
+        &["twin", "t.csv", "--target", "q\nr", "--out", "tw.toml"],
+        "no target column `q\\nr`",
+    );
+    // A knob name with a line break was echoed as is: a two-line message.
+    t.scenario(
+        g,
+        "external knob with a line break",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"external\"\ngrid = [1, 2]\ncommand = [\"true\"]\nknob = \"a b\\nc\"",
+        ),
+        v,
+        "`a b c` is not a knob name",
+    );
     t.scenario(
         g,
         "knn with k above n",
@@ -2511,6 +2604,20 @@ fn run_case(c: &Case, have_python: bool) -> (Verdict, String) {
             Verdict::WrongMessage,
             format!("a message of {} bytes", first.len()),
         );
+    }
+    // ... and it is one line: user text echoed in it (a name, a cell) keeps no line break.
+    let errors: Vec<&str> = stderr.lines().filter(|l| !l.is_empty()).collect();
+    if errors.len() > 1 && errors.iter().any(|l| l.starts_with("error:")) {
+        if let Some(extra) = errors
+            .iter()
+            .skip_while(|l| !l.starts_with("error:"))
+            .nth(1)
+        {
+            return (
+                Verdict::WrongMessage,
+                format!("the error goes on over a second line: {extra:?}"),
+            );
+        }
     }
     (Verdict::Clean, first.to_string())
 }

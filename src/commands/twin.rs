@@ -810,7 +810,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         return Err(Error::Usage(format!(
             "--jitter must be between 0 and {}, got {}",
             crate::scenario::twin::MAX_JITTER,
-            o.jitter
+            crate::fmt::fmt_exact(o.jitter)
         )));
     }
     if o.seed > i64::MAX as u64 {

@@ -236,7 +236,10 @@ fn choice_of(
             return Err(err(
                 h.span(),
                 "data.reference.bandwidth",
-                format!("must be a finite number > 0, got {v}"),
+                format!(
+                    "must be a finite number > 0, got {}",
+                    crate::fmt::fmt_exact(v)
+                ),
             ));
         }
         Some(v)
@@ -489,7 +492,10 @@ pub fn from_spec(
                 return Err(err(
                     j.span(),
                     "data.jitter",
-                    format!("must be between 0 and {MAX_JITTER}, got {v}"),
+                    format!(
+                        "must be between 0 and {MAX_JITTER}, got {}",
+                        crate::fmt::fmt_exact(v)
+                    ),
                 ));
             }
             v
@@ -584,7 +590,10 @@ pub fn from_spec(
                             return Err(err(
                                 sd.span(),
                                 "data.noise.sd",
-                                format!("must be a finite number >= 0, got {v}"),
+                                format!(
+                                    "must be a finite number >= 0, got {}",
+                                    crate::fmt::fmt_exact(v)
+                                ),
                             ));
                         }
                         TwinNoise::Constant(v)
