@@ -2223,6 +2223,23 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             },
         );
     }
+    // Finite numbers whose span overflows: the plotting library's tick search never ended.
+    for (name, edit) in [
+        ("expected losses of ±1e308", "expected_loss"),
+        ("grid values of ±1e308", "value"),
+    ] {
+        let bytes = edit_json(&docs.result, |v| {
+            v["points"][0][edit] = (1e308).into();
+            v["points"][1][edit] = (-1e308).into();
+        });
+        t.add(
+            g,
+            format!("plot: {name}"),
+            &[("r.json", &bytes)],
+            &["plot", "r.json", "--out", "c.svg"],
+            "beyond the range of floating-point numbers",
+        );
+    }
     t.add(
         g,
         "plot --selection without a selection",
@@ -3079,6 +3096,60 @@ fn a_table_run_without_standard_errors_says_so() {
     assert!(!err.contains("no standard error"), "{err}");
     let doc = fs::read_to_string(dir.join("r2.json")).unwrap();
     assert!(!doc.contains("null"), "{doc}");
+}
+
+#[test]
+fn the_zero_one_views_of_a_regression_curve_draw_its_own_terms() {
+    // `--decomposition james` (or kohavi-wolpert) with a curve picture of a squared-loss run
+    // indexed a variance series the view did not have and panicked; the table already showed
+    // the loss's own terms.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("s.toml"), BASE).unwrap();
+    for view in ["james", "kohavi-wolpert"] {
+        let svg = format!("{view}.svg");
+        let (code, _, err) = status(
+            dir,
+            &[
+                "run",
+                "s.toml",
+                "--decomposition",
+                view,
+                "--plot",
+                &svg,
+                "--report",
+                &format!("{view}.html"),
+                "--out",
+                &format!("{view}.json"),
+                "-q",
+            ],
+        );
+        assert_eq!(code, 0, "{view}: {err}");
+        assert!(fs::read_to_string(dir.join(&svg)).unwrap().contains("<svg"));
+        let again = format!("{view}-again.svg");
+        let (code, _, err) = status(
+            dir,
+            &[
+                "plot",
+                &format!("{view}.json"),
+                "--out",
+                &again,
+                "--decomposition",
+                view,
+            ],
+        );
+        assert_eq!(code, 0, "{view}: {err}");
+        // The same picture as the default view's.
+        let (code, _, err) = status(
+            dir,
+            &["plot", &format!("{view}.json"), "--out", "default.svg"],
+        );
+        assert_eq!(code, 0, "{err}");
+        assert_eq!(
+            fs::read(dir.join(&again)).unwrap(),
+            fs::read(dir.join("default.svg")).unwrap()
+        );
+    }
 }
 
 #[test]
