@@ -5,7 +5,7 @@ use std::path::PathBuf;
 
 /// An error in a scenario file: where it is and what is wrong.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
-#[error("{}{}{}", location(.file, .line), key_part(.key), .message)]
+#[error("{}{}{}", location(.file, .line), key_part(.key), one_line(.message))]
 pub struct ScenarioError {
     /// The scenario file as the user named it (`<embedded default>` for the built-in one).
     pub file: String,
@@ -18,6 +18,7 @@ pub struct ScenarioError {
 }
 
 fn location(file: &str, line: &Option<usize>) -> String {
+    let file = one_line(file);
     match line {
         Some(l) => format!("{file}:{l}: "),
         None => format!("{file}: "),
@@ -26,8 +27,18 @@ fn location(file: &str, line: &Option<usize>) -> String {
 
 fn key_part(key: &Option<String>) -> String {
     match key {
-        Some(k) => format!("key `{k}`: "),
+        Some(k) => format!("key `{}`: ", one_line(k)),
         None => String::new(),
+    }
+}
+
+/// Keeps a message on one line: a line break in text it quotes from the user (a family name,
+/// a key, a path, a cell) is shown as `\n` (or `\r`).
+pub fn one_line(s: &str) -> String {
+    if s.contains(['\n', '\r']) {
+        s.replace('\n', "\\n").replace('\r', "\\r")
+    } else {
+        s.to_string()
     }
 }
 
@@ -38,7 +49,7 @@ pub enum Error {
     #[error(transparent)]
     Scenario(#[from] ScenarioError),
     /// Reading or writing a file failed.
-    #[error("{}: {message}", .path.display())]
+    #[error("{}: {}", one_line(&.path.display().to_string()), one_line(.message))]
     Io {
         /// The file concerned.
         path: PathBuf,
@@ -47,10 +58,10 @@ pub enum Error {
     },
     /// A formula produced a value that is not a finite number (or a negative noise level) at a
     /// drawn input.
-    #[error("{0}")]
+    #[error("{}", one_line(.0))]
     Data(String),
     /// A model fit failed on a replicate's training set.
-    #[error("replicate {replicate}: {family} fit failed: {message}")]
+    #[error("replicate {replicate}: {} fit failed: {}", one_line(.family), one_line(.message))]
     Fit {
         /// Replicate index (0-based).
         replicate: u64,
@@ -60,7 +71,7 @@ pub enum Error {
         message: String,
     },
     /// A request that makes no sense (bad flag value, incompatible documents).
-    #[error("{0}")]
+    #[error("{}", one_line(.0))]
     Usage(String),
 }
 

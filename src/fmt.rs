@@ -55,6 +55,18 @@ pub fn fmt_num(v: f64) -> String {
     }
 }
 
+/// A number quoted in a message, exactly (shortest round-trip digits) but compact: `{}` prints
+/// `1e308` as 309 digits and `f64::MIN_POSITIVE` as 300, so magnitudes outside
+/// `[1e-6, 1e15)` use the exponent form (`1e308`, `2.2250738585072014e-308`).
+pub fn fmt_exact(v: f64) -> String {
+    let a = v.abs();
+    if v == 0.0 || !v.is_finite() || (1e-6..1e15).contains(&a) {
+        format!("{v}")
+    } else {
+        format!("{v:e}")
+    }
+}
+
 /// Shortens text quoted in a one-line message: at most `max` characters, then `…` and the full
 /// length (a 200 KB formula is never echoed whole). Line breaks become spaces.
 pub fn clip(s: &str, max: usize) -> String {

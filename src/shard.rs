@@ -824,6 +824,14 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
     let mut shards: Vec<ShardSpec> = Vec::with_capacity(docs.len());
     for (i, d) in docs.iter().enumerate() {
         match (d.checkpoint, d.shard) {
+            (false, Some(s)) if s.index == 0 || s.index > s.count => {
+                return Err(refuse(format!(
+                    "{} claims to be shard {}/{}, which no run writes (I/N needs 1 <= I <= N)",
+                    name(i),
+                    s.index,
+                    s.count
+                )))
+            }
             (false, Some(s)) => shards.push(ShardSpec {
                 index: s.index,
                 count: s.count,

@@ -636,6 +636,99 @@ fn scenario_cases(t: &mut Table) {
         v,
         "count",
     );
+    // The span 2e308 is +inf: its count saturated and `+ 1` wrapped to 0 ("is empty").
+    t.scenario(
+        g,
+        "range grid over the whole float range",
+        &sc("grid = [1, 2]", "grid = { from = -1e308, to = 1e308 }"),
+        v,
+        "range from -1e308 to 1e308 step 1 has more than 10000 values",
+    );
+    t.scenario(
+        g,
+        "range grid with a 1e-300 step",
+        &sc(
+            "grid = [1, 2]",
+            "grid = { from = 1, to = 2, step = 1e-300 }",
+        ),
+        v,
+        "has more than 10000 values",
+    );
+    // Numbers echoed in messages were printed digit by digit (1e308: 309 characters).
+    t.scenario(
+        g,
+        "tree depth 1e300",
+        &sc("grid = [1, 2]", "grid = [1e300]"),
+        v,
+        "max_depth = 1e300 is outside the allowed range 1..=64",
+    );
+    t.scenario(
+        g,
+        "boost learning rate 1e308",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"boost\"\ngrid = [1, 2]\nlearning_rate = 1e308",
+        ),
+        v,
+        "must be a number in [0, 1000], got 1e308",
+    );
+    t.scenario(
+        g,
+        "external timeout 0",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"external\"\ngrid = [1, 2]\ncommand = [\"true\"]\nknob = \"k\"\ntimeout_seconds = 0",
+        ),
+        v,
+        "must be a number in (0, 1000000], got 0",
+    );
+    t.scenario(
+        g,
+        "noise sd -1e308",
+        &sc("sd = 1.0", "sd = -1e308"),
+        v,
+        "must be a finite number >= 0, got -1e308",
+    );
+    // Text with a line break echoed as is made a message of two lines.
+    t.scenario(
+        g,
+        "family name with a line break",
+        &sc("family = \"tree\"", "family = \"tr\\nee\""),
+        v,
+        "unknown family `tr\\nee`",
+    );
+    t.scenario(
+        g,
+        "source with a line break",
+        &sc("source = \"synthetic\"", "source = \"syn\\nthetic\""),
+        v,
+        "unknown source `syn\\nthetic`",
+    );
+    t.scenario(
+        g,
+        "option key with a line break",
+        &sc("grid = [1, 2]", "grid = [1, 2]\n\"opt\\nion\" = 3"),
+        v,
+        "key `model.opt\\nion`",
+    );
+    t.add(
+        "csv",
+        "twin target with a line break",
+        &[("t.csv", good_csv().as_bytes())],
+        &["twin", "t.csv", "--target", "q\nr", "--out", "tw.toml"],
+        "no target column `q\\nr`",
+    );
+    // A knob name with a line break was echoed as is: a two-line message.
+    t.scenario(
+        g,
+        "external knob with a line break",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"external\"\ngrid = [1, 2]\ncommand = [\"true\"]\nknob = \"a b\\nc\"",
+        ),
+        v,
+        "`a b c` is not a knob name",
+    );
     t.scenario(
         g,
         "knn with k above n",
@@ -1149,6 +1242,22 @@ fn csv_cases(t: &mut Table) {
     );
     t.table("binary table", b"a,b,y\n\x00\x01\x02,1,2\n", "", "t.csv");
     t.table("not UTF-8", b"a,b,y\n\xff,1,2\n", "", "t.csv");
+    // Nearly every row in every training set: no row is held out twice, and the NaN terms
+    // were blamed on an overflow ("rescale the response").
+    t.table(
+        "train_fraction 0.99",
+        good.as_bytes(),
+        "resample = \"half\"\ntrain_fraction = 0.99",
+        "no row was held out in 2 or more of the 4 replicates",
+    )
+    .also("lower `train_fraction`");
+    // One training row: the message said "only 40 rows outside the holdout; at least 4".
+    t.table(
+        "train_fraction 0.01",
+        good.as_bytes(),
+        "resample = \"half\"\ntrain_fraction = 0.01",
+        "would hold 1 row (train_fraction = 0.01); at least 2 are needed",
+    );
     t.table(
         "unknown missing rule",
         good.as_bytes(),
@@ -1219,6 +1328,106 @@ fn csv_cases(t: &mut Table) {
         ],
         "distinct labels",
     );
+}
+
+/// A twin scenario over `t.csv` (the good table) with a twiced blend reference and a
+/// `[data.fit_report]`.
+const TWIN: &str = r#"name = "tw"
+seed = 1
+replicates = 4
+blocks = 2
+
+[data]
+source = "twin"
+path = "t.csv"
+target = "y"
+train_size = 20
+eval_size = 10
+reference = { family = "blend", k = 5, trees = 10, min_leaf = 5, seed = 1, bandwidth = 0.5, twice = true, weights = { knn = 0.3, forest = 0.3, loclin = 0.4 } }
+
+[data.noise]
+sd = 0.3
+
+[data.fit_report]
+noise = { method = "gamma", raw = 0.1, correction = 0.01, value = 0.09, stderr = 0.02, tables = 200 }
+
+[data.fit_report.fidelity]
+tables = 5
+replicates = 100
+
+[[data.fit_report.fidelity.models]]
+family = "tree"
+knob = "max_depth"
+pick = 2.0
+one_se = [2.0]
+picks = [2.0, 2.0]
+in_one_se = 1.0
+curve_error = 0.05
+corrected_pick = 2.0
+grid = [1.0, 2.0]
+loss = [0.2, 0.1]
+corrected_loss = [0.2, 0.1]
+
+[model]
+family = "tree"
+grid = [1, 2]
+"#;
+
+fn twin_cases(t: &mut Table) {
+    let good = good_csv();
+    let twin = |from: &str, to: &str| {
+        assert!(
+            TWIN.contains(from),
+            "fixture: `{from}` not in the twin scenario"
+        );
+        TWIN.replacen(from, to, 1)
+    };
+    let cases: Vec<(&str, String, &str)> = vec![
+        // The reference fitted once is NaN everywhere (a bandwidth far below the spacing of
+        // the rows): twicing refitted bagged trees to NaN residuals and panicked.
+        (
+            "twiced reference with a 1e-300 bandwidth",
+            twin("bandwidth = 0.5", "bandwidth = 1e-300"),
+            "key `data.reference`: the reference fitted once gives NaN",
+        ),
+        // Without twicing the non-finite truth was reported under `data.truth.formula`, a key
+        // a twin does not have.
+        (
+            "reference fitted once with a 1e-300 bandwidth",
+            twin("bandwidth = 0.5", "bandwidth = 1e-300").replace("twice = true", "twice = false"),
+            "key `data.reference`: `blended reference",
+        ),
+        // The fit report is echoed in the result: a non-finite number came out as `null`.
+        (
+            "fit report noise value NaN",
+            twin("value = 0.09", "value = nan"),
+            "key `data.fit_report.noise.value`: must be a finite number, got NaN",
+        ),
+        (
+            "fit report stderr inf",
+            twin("stderr = 0.02", "stderr = inf"),
+            "data.fit_report.noise.stderr",
+        ),
+        (
+            "fit report pick NaN",
+            twin("pick = 2.0", "pick = nan"),
+            "key `data.fit_report.fidelity.models[0].pick`",
+        ),
+        (
+            "fit report loss -inf",
+            twin("loss = [0.2, 0.1]", "loss = [0.2, -inf]"),
+            "key `data.fit_report.fidelity.models[0].loss`",
+        ),
+    ];
+    for (name, scenario, needle) in cases {
+        t.add(
+            "twin",
+            name,
+            &[("s.toml", scenario.as_bytes()), ("t.csv", good.as_bytes())],
+            &["run", "s.toml", "--out", "r.json", "-q"],
+            needle,
+        );
+    }
 }
 
 fn cli_cases(t: &mut Table, docs: &Docs) {
@@ -1548,6 +1757,45 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["twin", "t.csv", "--target", "y", "--seed", "-3"],
         "-3",
     );
+    // Options a classification twin has no use for were silently ignored.
+    let mut classes_csv = String::from("a,b,y\n");
+    for i in 0..40 {
+        classes_csv.push_str(&format!("{},{},{}\n", i % 7, i % 5, ["u", "v"][i % 2]));
+    }
+    for (flag, value) in [
+        ("--varying", None),
+        ("--noise-estimator", Some("nn")),
+        ("--reference", Some("forest")),
+        ("--jitter", Some("2")),
+    ] {
+        let mut args = vec!["twin", "t.csv", "--target", "y", "--classes", flag];
+        args.extend(value);
+        t.add(
+            g,
+            format!("twin --classes {flag}"),
+            &[("t.csv", classes_csv.as_bytes())],
+            &args,
+            &format!("{flag} applies to a regression twin"),
+        );
+    }
+    // The seed goes into the written scenario, whose integers stop at 2^63 − 1: the twin was
+    // fitted, then refused naming line 14 of a file that was never written.
+    t.add(
+        g,
+        "twin --seed 2^63",
+        &[("t.csv", good_csv().as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--seed",
+            "9223372036854775808",
+        ],
+        "--seed must be at most 9223372036854775807",
+    );
     t.add(
         g,
         "twin --twicing maybe",
@@ -1820,6 +2068,17 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             }),
             "p1.json",
         ),
+        // Shard 0/2 wrapped `index - 1` around: "outside its blocks 18446744073709551615..0".
+        (
+            "shard index 0",
+            edit_part(&docs.part1, true, |v| v["shard"]["index"] = 0.into()),
+            "claims to be shard 0/2, which no run writes",
+        ),
+        (
+            "shard index above the count",
+            edit_part(&docs.part1, true, |v| v["shard"]["index"] = 3.into()),
+            "claims to be shard 3/2",
+        ),
         (
             "block index outside",
             edit_part(&docs.part1, true, |v| v["completed"][0]["block"] = 7.into()),
@@ -2014,6 +2273,23 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             } else {
                 needle
             },
+        );
+    }
+    // Finite numbers whose span overflows: the plotting library's tick search never ended.
+    for (name, edit) in [
+        ("expected losses of ±1e308", "expected_loss"),
+        ("grid values of ±1e308", "value"),
+    ] {
+        let bytes = edit_json(&docs.result, |v| {
+            v["points"][0][edit] = (1e308).into();
+            v["points"][1][edit] = (-1e308).into();
+        });
+        t.add(
+            g,
+            format!("plot: {name}"),
+            &[("r.json", &bytes)],
+            &["plot", "r.json", "--out", "c.svg"],
+            "beyond the range of floating-point numbers",
         );
     }
     t.add(
@@ -2398,6 +2674,20 @@ fn run_case(c: &Case, have_python: bool) -> (Verdict, String) {
             format!("a message of {} bytes", first.len()),
         );
     }
+    // ... and it is one line: user text echoed in it (a name, a cell) keeps no line break.
+    let errors: Vec<&str> = stderr.lines().filter(|l| !l.is_empty()).collect();
+    if errors.len() > 1 && errors.iter().any(|l| l.starts_with("error:")) {
+        if let Some(extra) = errors
+            .iter()
+            .skip_while(|l| !l.starts_with("error:"))
+            .nth(1)
+        {
+            return (
+                Verdict::WrongMessage,
+                format!("the error goes on over a second line: {extra:?}"),
+            );
+        }
+    }
     (Verdict::Clean, first.to_string())
 }
 
@@ -2406,6 +2696,7 @@ fn all_cases(docs: &Docs) -> Vec<Case> {
     scenario_cases(&mut t);
     formula_cases(&mut t);
     csv_cases(&mut t);
+    twin_cases(&mut t);
     cli_cases(&mut t, docs);
     output_clash_cases(&mut t, docs);
     document_cases(&mut t, docs);
@@ -2808,6 +3099,109 @@ fn two_replicates_say_what_to_change_for_standard_errors() {
     let (code, _, err) = status(dir, &["run", "s.toml", "--out", "c.json"]);
     assert_eq!(code, 0, "{err}");
     assert!(!err.contains("no standard errors"), "{err}");
+}
+
+#[test]
+fn responses_near_1e150_get_finite_standard_errors() {
+    // The terms are finite up to responses of about 1e154, but the jackknife's squared
+    // deviations overflowed from about 1e77 times smaller: every standard error was written as
+    // `null`, with exit 0 and no `±` in the table. Now they are computed on scaled values.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("s.toml"), with_formula("1e150*x")).unwrap();
+    let (code, out, err) = status(dir, &["run", "s.toml", "--out", "r.json"]);
+    assert_eq!(code, 0, "{err}");
+    let doc = fs::read_to_string(dir.join("r.json")).unwrap();
+    assert!(!doc.contains("null"), "{doc}");
+    let v: serde_json::Value = serde_json::from_str(&doc).unwrap();
+    for p in v["points"].as_array().unwrap() {
+        for (term, se) in p["stderr"].as_object().unwrap() {
+            let se = se.as_f64().unwrap();
+            assert!(se.is_finite() && se >= 0.0, "{term}: {se}");
+        }
+    }
+    assert!(out.contains(" ± "), "{out}");
+}
+
+#[test]
+fn a_table_run_without_standard_errors_says_so() {
+    // Five rows, R = 4 in 2 blocks: with a block left out no row is held out twice, so the
+    // result's standard errors are `null`; the run said nothing (the table's legend still
+    // promised "± one standard error").
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("t.csv"), csv_rows(5, |i| format!("{}", i * i))).unwrap();
+    fs::write(dir.join("s.toml"), table_scenario("", TREE)).unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r.json"]);
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        err.contains("the expected loss has no standard error at 2 grid value(s)"),
+        "{err}"
+    );
+    assert!(err.contains("raise `replicates`"), "{err}");
+    // Enough replicates: standard errors, and no note.
+    let (code, _, err) = status(
+        dir,
+        &["run", "s.toml", "--out", "r2.json", "--replicates", "40"],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert!(!err.contains("no standard error"), "{err}");
+    let doc = fs::read_to_string(dir.join("r2.json")).unwrap();
+    assert!(!doc.contains("null"), "{doc}");
+}
+
+#[test]
+fn the_zero_one_views_of_a_regression_curve_draw_its_own_terms() {
+    // `--decomposition james` (or kohavi-wolpert) with a curve picture of a squared-loss run
+    // indexed a variance series the view did not have and panicked; the table already showed
+    // the loss's own terms.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("s.toml"), BASE).unwrap();
+    for view in ["james", "kohavi-wolpert"] {
+        let svg = format!("{view}.svg");
+        let (code, _, err) = status(
+            dir,
+            &[
+                "run",
+                "s.toml",
+                "--decomposition",
+                view,
+                "--plot",
+                &svg,
+                "--report",
+                &format!("{view}.html"),
+                "--out",
+                &format!("{view}.json"),
+                "-q",
+            ],
+        );
+        assert_eq!(code, 0, "{view}: {err}");
+        assert!(fs::read_to_string(dir.join(&svg)).unwrap().contains("<svg"));
+        let again = format!("{view}-again.svg");
+        let (code, _, err) = status(
+            dir,
+            &[
+                "plot",
+                &format!("{view}.json"),
+                "--out",
+                &again,
+                "--decomposition",
+                view,
+            ],
+        );
+        assert_eq!(code, 0, "{view}: {err}");
+        // The same picture as the default view's.
+        let (code, _, err) = status(
+            dir,
+            &["plot", &format!("{view}.json"), "--out", "default.svg"],
+        );
+        assert_eq!(code, 0, "{err}");
+        assert_eq!(
+            fs::read(dir.join(&again)).unwrap(),
+            fs::read(dir.join("default.svg")).unwrap()
+        );
+    }
 }
 
 #[test]

@@ -103,6 +103,9 @@ fn emit(
     ids: [Option<OutputId>; 7],
 ) -> Result<u8, Error> {
     let doc = report::build(plan, outcome);
+    if !o.quiet {
+        note_missing_stderr(plan, outcome);
+    }
     let several_models = !doc.models.is_empty();
     // A picture shows one decomposition: with `all` (tables only) the report draws Domingos's.
     let pic_view = if o.view == View::All {
@@ -725,8 +728,40 @@ fn warn_no_stderr(plan: &Plan, quiet: bool) {
         .unwrap_or(0);
     if plan.blocks < 2 || plan.replicates.saturating_sub(largest) < 2 {
         eprintln!(
-            "note: R = {} in {} blocks gives no standard errors (the jackknife leaves one block              out and needs at least 2 replicates in the rest); use `replicates` >= 3 with              `blocks` >= 2 for them",
+            "note: R = {} in {} blocks gives no standard errors (the jackknife leaves one block \
+             out and needs at least 2 replicates in the rest); use `replicates` >= 3 with \
+             `blocks` >= 2 for them",
             plan.replicates, plan.blocks
+        );
+    }
+}
+
+/// Says on standard error when a table run that should have standard errors (enough
+/// replicates and blocks, see [`warn_no_stderr`]) has none for the expected loss somewhere: a
+/// leave-one-block-out fold kept no row held out in 2 or more replicates (few rows, or a large
+/// `train_fraction`). The result then carries `null` there, as with R = 2.
+fn note_missing_stderr(plan: &Plan, outcome: &runner::Outcome) {
+    if !matches!(plan.source, Source::Table(_)) || plan.blocks < 2 {
+        return;
+    }
+    let missing = outcome
+        .summaries
+        .iter()
+        .filter_map(|s| {
+            let t = s.index("expected_loss")?;
+            Some(s.stderr.iter().filter(|row| row[t].is_nan()).count())
+        })
+        .sum::<usize>();
+    if missing > 0 {
+        eprintln!(
+            "note: the expected loss has no standard error at {missing} grid value(s): with one \
+             of the {} blocks left out, no row was held out in 2 or more of the remaining \
+             replicates; raise `replicates` (the table has {} rows to resample)",
+            plan.blocks,
+            match &plan.source {
+                Source::Table(tp) => tp.work.len(),
+                _ => 0,
+            }
         );
     }
 }
@@ -838,6 +873,27 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             "--twicing on: twicing applies to a regression reference with constant noise, not with {}; drop one of the two",
             if a.classes { "--classes" } else { "--varying" }
         )));
+    }
+    if a.classes {
+        // A classification twin is k-NN shares over the rows resampled as they are: these
+        // options have nothing to act on, and were silently ignored.
+        let unused = if a.varying {
+            Some("--varying")
+        } else if a.noise_estimator.is_some() {
+            Some("--noise-estimator")
+        } else if !matches!(a.reference.as_str(), "best" | "knn") {
+            Some("--reference")
+        } else if a.jitter != 1.0 {
+            Some("--jitter")
+        } else {
+            None
+        };
+        if let Some(flag) = unused {
+            return Err(Error::Usage(format!(
+                "{flag} applies to a regression twin; with --classes the reference is k-NN class \
+                 shares and the rows are resampled as they are; drop one of the two"
+            )));
+        }
     }
     if a.fidelity_replicates < 2 {
         return Err(Error::Usage(format!(

@@ -841,7 +841,18 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         return Err(Error::Usage(format!(
             "--jitter must be between 0 and {}, got {}",
             crate::scenario::twin::MAX_JITTER,
-            o.jitter
+            crate::fmt::fmt_exact(o.jitter)
+        )));
+    }
+    if o.seed > i64::MAX as u64 {
+        // The seed is written in the scenario (`seed`, the reference's `seed`), and a TOML
+        // integer stops at 2^63 − 1: refused before the fit rather than when the written file
+        // is read back.
+        return Err(Error::Usage(format!(
+            "--seed must be at most {} (it is written in the scenario, whose integers are \
+             64-bit signed), got {}",
+            i64::MAX,
+            o.seed
         )));
     }
     if o.eval_size < 1 || o.eval_size > 10_000_000 {

@@ -856,7 +856,24 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
     holdout.iter().for_each(|&i| is_h[i] = true);
     let work: Vec<usize> = (0..table.rows()).filter(|&i| !is_h[i]).collect();
     let file = req.path.display().to_string();
-    if work.len() < 4 || req.scheme.train_size(work.len()) < 2 {
+    if work.len() >= 4 && req.scheme.train_size(work.len()) < 2 {
+        return Err(TableError {
+            file,
+            line: None,
+            column: None,
+            message: format!(
+                "a training set of the {} rows outside the holdout would hold {} row ({}); at \
+                 least 2 are needed: raise `train_fraction`",
+                work.len(),
+                req.scheme.train_size(work.len()),
+                match req.scheme {
+                    Scheme::Subsample { fraction } => format!("train_fraction = {fraction}"),
+                    Scheme::Bootstrap => "bootstrap".into(),
+                }
+            ),
+        });
+    }
+    if work.len() < 4 {
         return Err(TableError {
             file,
             line: None,

@@ -530,6 +530,14 @@ pub fn jackknife_se(leave_out: &[f64]) -> f64 {
     let gf = g as f64;
     let mean = leave_out.iter().sum::<f64>() / gf;
     let ss: f64 = leave_out.iter().map(|x| (x - mean) * (x - mean)).sum();
+    if !(mean.is_finite() && ss.is_finite()) {
+        // Finite values whose sum or squared deviations overflow (terms beyond ~1e154): the
+        // same formula on the values divided by their largest magnitude, scaled back (+inf only
+        // when the standard error itself is beyond the float range).
+        let scale = max_abs(leave_out);
+        let scaled: Vec<f64> = leave_out.iter().map(|x| x / scale).collect();
+        return scale * jackknife_se(&scaled);
+    }
     let se = ((gf - 1.0) / gf * ss).sqrt();
     // A statistic that is the same in every block-deleted set (a share that no block moves)
     // differs across them only by rounding: report 0 rather than ~1e-16 of round-off.
@@ -538,6 +546,11 @@ pub fn jackknife_se(leave_out: &[f64]) -> f64 {
     } else {
         se
     }
+}
+
+/// The largest magnitude of finite values (the scale of the overflow-safe standard errors).
+fn max_abs(v: &[f64]) -> f64 {
+    v.iter().fold(0.0_f64, |a, x| a.max(x.abs()))
 }
 
 /// Bootstrap standard error from the terms of bootstrap draws over `blocks` replicate blocks:
@@ -553,6 +566,12 @@ pub fn bootstrap_se(draws: &[f64], blocks: usize) -> f64 {
     let nf = n as f64;
     let mean = draws.iter().sum::<f64>() / nf;
     let ss: f64 = draws.iter().map(|x| (x - mean) * (x - mean)).sum();
+    if !(mean.is_finite() && ss.is_finite()) {
+        // As in `jackknife_se`: scaled when the sums overflow.
+        let scale = max_abs(draws);
+        let scaled: Vec<f64> = draws.iter().map(|x| x / scale).collect();
+        return scale * bootstrap_se(&scaled, blocks);
+    }
     let g = blocks as f64;
     let se = (ss / (nf - 1.0) * g / (g - 1.0)).sqrt();
     if se <= 1e-12 * mean.abs() {
@@ -1090,6 +1109,24 @@ mod tests {
         bad[17] = f64::NAN;
         let (lo, hi) = percentile_interval(&bad, 32);
         assert!(lo.is_nan() && hi.is_nan() && bootstrap_se(&bad, 32).is_nan());
+    }
+
+    /// Exact identity: the standard errors are homogeneous of degree 1, so values whose squared
+    /// deviations overflow get `scale × se(values / scale)` instead of +inf or 0.
+    #[test]
+    fn standard_errors_of_huge_values_scale_instead_of_overflowing() {
+        let small = [1.0, 3.0, 2.5, 0.5];
+        for k in [1e160, 1e300, -1e300] {
+            let big: Vec<f64> = small.iter().map(|x| x * k).collect();
+            let (a, b) = (jackknife_se(&small), jackknife_se(&big));
+            assert!((b / (a * k.abs()) - 1.0).abs() < 1e-12, "{a} {b}");
+            let (a, b) = (bootstrap_se(&small, 4), bootstrap_se(&big, 4));
+            assert!((b / (a * k.abs()) - 1.0).abs() < 1e-12, "{a} {b}");
+        }
+        // Equal huge values: no spread, not an overflow.
+        assert_eq!(jackknife_se(&[1e308, 1e308, 1e308]), 0.0);
+        // A spread beyond the float range is +inf, which the runner refuses.
+        assert_eq!(jackknife_se(&[-1.7e308, 1.7e308, 1.7e308]), f64::INFINITY);
     }
 
     /// The streaming per-point jackknife against its definition, computed in two passes:

@@ -434,11 +434,11 @@ impl Synthetic {
             let v = truth.eval_row(&buf);
             if !v.is_finite() {
                 return Err(Error::Data(format!(
-                    "key `data.truth.{}`: `{}` gives {v} at {}",
-                    if matches!(truth, Truth::Builtin(_)) {
-                        "builtin"
-                    } else {
-                        "formula"
+                    "key `{}`: `{}` gives {v} at {}",
+                    match truth {
+                        Truth::Builtin(_) => "data.truth.builtin",
+                        Truth::Formula(_) => "data.truth.formula",
+                        Truth::Reference(_) => "data.reference",
                     },
                     crate::fmt::clip(&truth.describe(), 80),
                     describe_row(&self.inputs, &buf)

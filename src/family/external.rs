@@ -329,14 +329,18 @@ impl ExternalFamily {
             return Err(ConfigError {
                 key: "knob",
                 message: format!(
-                    "`{knob}` is not a knob name: use letters, digits, `_`, `-` or `.` (no spaces)"
+                    "`{}` is not a knob name: use letters, digits, `_`, `-` or `.` (no spaces)",
+                    crate::fmt::clip(knob, 60)
                 ),
             });
         }
         if !(timeout_seconds.is_finite() && timeout_seconds > 0.0 && timeout_seconds <= 1e6) {
             return Err(ConfigError {
                 key: "timeout_seconds",
-                message: format!("must be a number of seconds in (0, 1e6], got {timeout_seconds}"),
+                message: format!(
+                    "must be a number of seconds in (0, 1e6], got {}",
+                    crate::fmt::fmt_exact(timeout_seconds)
+                ),
             });
         }
         Ok(ExternalFamily {

@@ -116,7 +116,10 @@ impl Family for LogisticFamily {
 
     fn check_grid(&self, grid: &[f64], n_train: usize, _n_inputs: usize) -> Result<(), String> {
         if let Some(c) = bad_c(grid) {
-            return Err(format!("inverse_penalty must be finite and > 0, got {c}"));
+            return Err(format!(
+                "inverse_penalty must be finite and > 0, got {}",
+                crate::fmt::fmt_exact(c)
+            ));
         }
         if n_train == 0 {
             return Err("logistic needs at least one training row".into());
@@ -302,7 +305,8 @@ fn fit_path(input: &FitInput<'_>, grid: &[f64]) -> Result<PathFit, FitError> {
     }
     if let Some(c) = bad_c(grid) {
         return Err(FitError(format!(
-            "logistic: inverse_penalty must be finite and > 0, got {c}"
+            "logistic: inverse_penalty must be finite and > 0, got {}",
+            crate::fmt::fmt_exact(c)
         )));
     }
     let (n, p) = input.x.dim();

@@ -184,12 +184,13 @@ pub trait Family: Send + Sync {
 /// Checks that every grid value is a whole number in `[lo, hi]`; used by integer knobs.
 pub fn check_whole_grid(grid: &[f64], knob: &str, lo: f64, hi: f64) -> Result<(), String> {
     for &v in grid {
+        let shown = crate::fmt::fmt_exact(v);
         if !v.is_finite() || v.fract() != 0.0 {
-            return Err(format!("{knob} must be a whole number, got {v}"));
+            return Err(format!("{knob} must be a whole number, got {shown}"));
         }
         if v < lo || v > hi {
             return Err(format!(
-                "{knob} = {v} is outside the allowed range {lo}..={hi}"
+                "{knob} = {shown} is outside the allowed range {lo}..={hi}"
             ));
         }
     }

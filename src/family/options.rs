@@ -95,7 +95,19 @@ impl Options {
             }
         };
         if !x.is_finite() || x < lo || x > hi {
-            return Err(self.err(key, format!("must be a number in [{lo}, {hi}], got {x}")));
+            let lower = if lo == f64::MIN_POSITIVE {
+                "(0".to_string()
+            } else {
+                format!("[{}", crate::fmt::fmt_exact(lo))
+            };
+            return Err(self.err(
+                key,
+                format!(
+                    "must be a number in {lower}, {}], got {}",
+                    crate::fmt::fmt_exact(hi),
+                    crate::fmt::fmt_exact(x)
+                ),
+            ));
         }
         Ok(Some(x))
     }

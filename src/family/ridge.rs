@@ -67,7 +67,10 @@ impl Family for RidgeFamily {
     fn check_grid(&self, grid: &[f64], n_train: usize, _n_inputs: usize) -> Result<(), String> {
         for &l in grid {
             if !l.is_finite() || l < 0.0 {
-                return Err(format!("penalty must be finite and >= 0, got {l}"));
+                return Err(format!(
+                    "penalty must be finite and >= 0, got {}",
+                    crate::fmt::fmt_exact(l)
+                ));
             }
         }
         if n_train == 0 {
@@ -100,7 +103,8 @@ impl Family for RidgeFamily {
         check_shapes(input, grid.len(), out.dim())?;
         if let Some(&l) = grid.iter().find(|l| !l.is_finite() || **l < 0.0) {
             return Err(FitError(format!(
-                "ridge: penalty must be finite and >= 0, got {l}"
+                "ridge: penalty must be finite and >= 0, got {}",
+                crate::fmt::fmt_exact(l)
             )));
         }
         let (n, p) = input.x.dim();

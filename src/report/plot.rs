@@ -44,6 +44,21 @@ fn draw_err<E: std::error::Error + Send + Sync>(e: DrawingAreaErrorKind<E>) -> E
     Error::Usage(format!("cannot draw the picture: {e}"))
 }
 
+/// An axis range for the chart builder: refused when its ends or its width are not finite
+/// numbers (values near ±1e308 in an edited result make the width +inf, and the tick search of
+/// the plotting library never ends).
+fn axis(lo: f64, hi: f64, which: &str) -> Result<std::ops::Range<f64>, Error> {
+    if !(lo.is_finite() && hi.is_finite() && (hi - lo).is_finite()) {
+        return Err(Error::Usage(format!(
+            "cannot draw the picture: the {which} axis would run from {} to {}, beyond the range \
+             of floating-point numbers",
+            crate::fmt::fmt_exact(lo),
+            crate::fmt::fmt_exact(hi)
+        )));
+    }
+    Ok(lo..hi)
+}
+
 /// How a series is stroked: solid, or dashes of `on` pixels separated by `off` pixels.
 #[derive(Debug, Clone, Copy, PartialEq)]
 enum Dash {
@@ -406,6 +421,18 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
             "a curve picture shows one decomposition: choose --decomposition domingos, kohavi-wolpert or james (`all` is for tables)".into(),
         ));
     }
+    // A loss without the 0-1 decompositions (squared, log, Brier, Poisson) has only its own
+    // terms: the Kohavi-Wolpert and James views show those, as the terminal table does (they
+    // indexed a variance series that was not there and panicked).
+    let group = match view {
+        View::KohaviWolpert => Some("kohavi_wolpert"),
+        View::James => Some("james"),
+        View::Domingos | View::All => None,
+    };
+    let view = match group {
+        Some(g) if !doc.term_docs().iter().any(|t| t.group == g) => View::Domingos,
+        _ => view,
+    };
     let mut series = curve_series(doc, view);
     let split = variance_split(doc, view);
     let log = log_axis(doc);
@@ -492,7 +519,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
             .margin_bottom(8)
             .x_label_area_size(52)
             .y_label_area_size(74)
-            .build_cartesian_2d(x0..x1, y0..y1)
+            .build_cartesian_2d(axis(x0, x1, "x")?, axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         let xfmt = |v: &f64| {
             if log {
@@ -1139,7 +1166,7 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .margin_bottom(8)
             .x_label_area_size(52)
             .y_label_area_size(74)
-            .build_cartesian_2d(x0..x1, y0..y1)
+            .build_cartesian_2d(axis(x0, x1, "x")?, axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         chart
             .configure_mesh()
@@ -1738,7 +1765,7 @@ pub fn learning_svg(doc: &ResultDoc) -> Result<String, Error> {
             .margin(14)
             .x_label_area_size(48)
             .y_label_area_size(74)
-            .build_cartesian_2d(x0..x1, y0..y1)
+            .build_cartesian_2d(axis(x0, x1, "x")?, axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         chart
             .configure_mesh()
@@ -1880,7 +1907,7 @@ pub fn families_svg(doc: &ResultDoc) -> Result<String, Error> {
             .margin(14)
             .x_label_area_size(48)
             .y_label_area_size(74)
-            .build_cartesian_2d(-0.05f64..1.05f64, y0..y1)
+            .build_cartesian_2d(-0.05f64..1.05f64, axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         chart
             .configure_mesh()

@@ -476,7 +476,20 @@ fn summarize_in(
                         s.terms[t].key,
                         model.family.knob(),
                         fmt_value(model.grid[g]),
-                        not_finite_cause(plan, &prepared)
+                        not_finite_cause(plan, &prepared, &s.total)
+                    )));
+                }
+                // NaN marks a standard error that is not reported or not computable; an
+                // infinite one overflowed and would be written as `null`.
+                let se = s.stderr[g][t];
+                if se.is_infinite() {
+                    return Err(Error::Data(format!(
+                        "{}: the standard error of the term `{}` at {} = {} is {se}: {}",
+                        plan.file,
+                        s.terms[t].key,
+                        model.family.knob(),
+                        fmt_value(model.grid[g]),
+                        not_finite_cause(plan, &prepared, &s.total)
                     )));
                 }
             }
@@ -513,8 +526,24 @@ fn summarize_in(
     })
 }
 
-/// The likely cause of a non-finite term, in words.
-fn not_finite_cause(plan: &Plan, prep: &Prepared) -> String {
+/// The likely cause of a non-finite term, in words (`total`: all blocks folded).
+fn not_finite_cause(plan: &Plan, prep: &Prepared, total: &Acc) -> String {
+    if !total.count.is_empty() && total.count.iter().all(|&c| c < 2) {
+        // Out-of-bag evaluation (a table): the terms average over rows held out in at least
+        // two replicates, and there were none.
+        let fraction = match &plan.source {
+            Source::Table(tp) => match tp.scheme {
+                crate::dataset::Scheme::Subsample { .. } => " (or lower `train_fraction`)",
+                crate::dataset::Scheme::Bootstrap => "",
+            },
+            _ => "",
+        };
+        return format!(
+            "no row was held out in 2 or more of the {} replicates, and a row's spread needs 2; \
+             raise `replicates`{fraction}",
+            plan.replicates
+        );
+    }
     let big = prep
         .eval_truth
         .iter()

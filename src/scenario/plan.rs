@@ -1053,13 +1053,24 @@ fn expand_grid(
                 if step.is_nan() || step <= 0.0 || !from.is_finite() || !to.is_finite() || to < from
                 {
                     return Err(e(format!(
-                        "range from {from} to {to} step {step} is empty or invalid"
+                        "range from {} to {} step {} is empty or invalid",
+                        crate::fmt::fmt_exact(from),
+                        crate::fmt::fmt_exact(to),
+                        crate::fmt::fmt_exact(step)
                     )));
                 }
-                let n = ((to - from) / step + 1e-9).floor() as usize + 1;
-                if n > 10_000 {
-                    return Err(e(format!("range has {n} values; at most 10000")));
+                // Counted in floating point first: a span of 2e308 is +inf, and `as usize` of
+                // it saturates, so `+ 1` wrapped to an empty grid ("is empty").
+                let span = ((to - from) / step + 1e-9).floor();
+                if span.is_nan() || span >= 10_000.0 {
+                    return Err(e(format!(
+                        "range from {} to {} step {} has more than 10000 values; at most 10000",
+                        crate::fmt::fmt_exact(from),
+                        crate::fmt::fmt_exact(to),
+                        crate::fmt::fmt_exact(step)
+                    )));
                 }
+                let n = span as usize + 1;
                 (
                     (0..n).map(|i| from + step * i as f64).collect(),
                     GridKind::Range,
@@ -1079,7 +1090,10 @@ fn expand_grid(
     vals.sort_by(|a, b| a.total_cmp(b));
     for w in vals.windows(2) {
         if w[0] == w[1] {
-            return Err(e(format!("value {} appears twice", w[0])));
+            return Err(e(format!(
+                "value {} appears twice",
+                crate::fmt::fmt_exact(w[0])
+            )));
         }
     }
     Ok((vals, kind))
@@ -1454,7 +1468,10 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
                     return Err(cx.err(
                         Some(sd.span()),
                         "data.noise.sd",
-                        format!("must be a finite number >= 0, got {v}"),
+                        format!(
+                            "must be a finite number >= 0, got {}",
+                            crate::fmt::fmt_exact(v)
+                        ),
                     ));
                 }
                 Noise::Constant(v)
@@ -1611,7 +1628,7 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
                     return Err(cx.err(
                         Some(f.span()),
                         "data.classes.flip",
-                        format!("must be in [0, 1), got {v}"),
+                        format!("must be in [0, 1), got {}", crate::fmt::fmt_exact(v)),
                     ));
                 }
                 v

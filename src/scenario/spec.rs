@@ -334,7 +334,7 @@ pub struct DataSpec {
     pub jitter: Option<Spanned<f64>>,
     /// Twin: what `lossprism twin` measured (informational, echoed in results).
     #[serde(default)]
-    pub fit_report: Option<FitReportSpec>,
+    pub fit_report: Option<Spanned<FitReportSpec>>,
 }
 
 /// `[data.classes]`: labels and the true class probabilities P(Y = c | x).

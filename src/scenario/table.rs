@@ -59,7 +59,7 @@ pub fn reject_table_keys(
     )?;
     for (present, key) in [
         (d.jitter.as_ref().map(|s| s.span()), "jitter"),
-        (d.fit_report.as_ref().map(|_| d.source.span()), "fit_report"),
+        (d.fit_report.as_ref().map(|s| s.span()), "fit_report"),
     ] {
         if let Some(span) = present {
             return Err(ScenarioError {

@@ -236,7 +236,10 @@ fn choice_of(
             return Err(err(
                 h.span(),
                 "data.reference.bandwidth",
-                format!("must be a finite number > 0, got {v}"),
+                format!(
+                    "must be a finite number > 0, got {}",
+                    crate::fmt::fmt_exact(v)
+                ),
             ));
         }
         Some(v)
@@ -269,6 +272,51 @@ fn choice_of(
         cv_r2,
         twice,
     })
+}
+
+/// The first number of `[data.fit_report]` that is not finite, with its key (`noise.value`,
+/// `fidelity.models[1].loss`): the record is echoed in results, where it would read `null`.
+fn non_finite_in_report(r: &FitReportSpec) -> Option<(String, f64)> {
+    let bad = |v: f64| (!v.is_finite()).then_some(v);
+    if let Some(n) = &r.noise {
+        for (key, v) in [
+            ("raw", n.raw),
+            ("correction", n.correction),
+            ("value", n.value),
+            ("stderr", n.stderr),
+        ] {
+            if let Some(v) = bad(v) {
+                return Some((format!("noise.{key}"), v));
+            }
+        }
+    }
+    for (i, m) in r.fidelity.iter().flat_map(|f| f.models.iter()).enumerate() {
+        let scalars = [
+            ("pick", m.pick),
+            ("in_one_se", m.in_one_se),
+            ("curve_error", m.curve_error),
+            ("corrected_pick", m.corrected_pick),
+        ];
+        let lists = [
+            ("one_se", &m.one_se),
+            ("picks", &m.picks),
+            ("grid", &m.grid),
+            ("loss", &m.loss),
+            ("corrected_loss", &m.corrected_loss),
+        ];
+        let found = scalars
+            .into_iter()
+            .find_map(|(k, v)| bad(v).map(|v| (k, v)))
+            .or_else(|| {
+                lists
+                    .into_iter()
+                    .find_map(|(k, l)| l.iter().find_map(|&v| bad(v)).map(|v| (k, v)))
+            });
+        if let Some((k, v)) = found {
+            return Some((format!("fidelity.models[{i}].{k}"), v));
+        }
+    }
+    None
 }
 
 /// The record of `[data.fit_report]`.
@@ -452,7 +500,10 @@ pub fn from_spec(
                 return Err(err(
                     j.span(),
                     "data.jitter",
-                    format!("must be between 0 and {MAX_JITTER}, got {v}"),
+                    format!(
+                        "must be between 0 and {MAX_JITTER}, got {}",
+                        crate::fmt::fmt_exact(v)
+                    ),
                 ));
             }
             v
@@ -547,7 +598,10 @@ pub fn from_spec(
                             return Err(err(
                                 sd.span(),
                                 "data.noise.sd",
-                                format!("must be a finite number >= 0, got {v}"),
+                                format!(
+                                    "must be a finite number >= 0, got {}",
+                                    crate::fmt::fmt_exact(v)
+                                ),
                             ));
                         }
                         TwinNoise::Constant(v)
@@ -577,6 +631,15 @@ pub fn from_spec(
             }
         })
     };
+    if let Some(r) = &d.fit_report {
+        if let Some((key, v)) = non_finite_in_report(r.get_ref()) {
+            return Err(err(
+                r.span(),
+                &format!("data.fit_report.{key}"),
+                format!("must be a finite number, got {v} (the record `lossprism twin` wrote holds finite numbers only)"),
+            ));
+        }
+    }
     let spec = TwinSpec {
         choice,
         jitter,
@@ -586,7 +649,7 @@ pub fn from_spec(
         eval_size,
         design,
         eval_at_design,
-        report: d.fit_report.as_ref().map(report_of),
+        report: d.fit_report.as_ref().map(|r| report_of(r.get_ref())),
     };
     build(&t, &shown, &spec).map_err(|m| err(reference.family.span(), "data.reference", m))
 }

@@ -361,6 +361,15 @@ impl Reference {
             return Err("twicing needs the in-sample fit at every row".into());
         }
         let resid: Vec<f64> = y.iter().zip(fit).map(|(v, f)| v - f).collect();
+        if let Some(i) = resid.iter().position(|r| !r.is_finite()) {
+            return Err(format!(
+                "the reference fitted once gives {} at data row {} (response {}), so twicing has \
+                 no finite residual to refit; check the recipe's `bandwidth` and `weights`",
+                fit[i],
+                i + 1,
+                y[i]
+            ));
+        }
         let once = self.choice.clone();
         let w = once.weights;
         // The k-NN and local-linear parts are linear in the responses, S y + S r = S (y + r):
