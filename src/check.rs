@@ -242,8 +242,11 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
             )))
         }
     }
-    serde_json::from_value(v)
-        .map_err(|e| CheckError::BadDocument(format!("{what}: malformed result document: {e}")))
+    let doc: ResultDoc = serde_json::from_value(v)
+        .map_err(|e| CheckError::BadDocument(format!("{what}: malformed result document: {e}")))?;
+    doc.check_points()
+        .map_err(|e| CheckError::BadDocument(format!("{what}: {e}")))?;
+    Ok(doc)
 }
 
 /// Verdict on one term in one row.

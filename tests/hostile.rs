@@ -2232,6 +2232,21 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             "`interval95.wobble` names no term",
         ),
         (
+            "null term",
+            edit_json(&docs.result, |v| {
+                v["points"][0]["variance"] = serde_json::Value::Null
+            }),
+            "the term `variance` at value 1 is not a finite number",
+        ),
+        (
+            "a grid value twice",
+            edit_json(&docs.result, |v| {
+                let first = v["points"][0]["value"].clone();
+                v["points"][1]["value"] = first;
+            }),
+            "`points` hold max_depth = 1 twice",
+        ),
+        (
             "points of a string",
             edit_json(&docs.result, |v| v["points"] = "many".into()),
             "r.json",

@@ -598,6 +598,8 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     let text = read_result_text(&args.result)?;
     let doc: report::ResultDoc = serde_json::from_str(&text)
         .map_err(|e| Error::Usage(format!("{name}: not a lossprism result document: {e}")))?;
+    doc.check_points()
+        .map_err(|e| Error::Usage(format!("{name}: {e}")))?;
     let view: View = args.decomposition.into();
     let families = doc.families();
     if let Some(f) = &args.family {

@@ -512,6 +512,12 @@ impl<'de> Deserialize<'de> for PointRow {
                 }
             }
         }
+        if let Some((k, _)) = terms.iter().find(|(_, v)| !v.is_finite()) {
+            return Err(D::Error::custom(format!(
+                "the term `{k}` at value {value} is not a finite number; `run` never writes one, \
+                 so the document was edited or damaged"
+            )));
+        }
         if let Some((k, v)) = stderr.iter().find(|(_, v)| *v < 0.0) {
             return Err(D::Error::custom(format!(
                 "the standard error of `{k}` is {v}; a standard error cannot be negative"
@@ -615,6 +621,28 @@ pub struct ResultDoc {
 }
 
 impl ResultDoc {
+    /// Refuses a document whose `points` hold one grid value twice for the same family and
+    /// training size (`run` writes each once; curves and comparisons would pick one silently).
+    pub fn check_points(&self) -> Result<(), String> {
+        let mut seen = std::collections::HashSet::new();
+        for p in &self.points {
+            if !seen.insert((p.family.clone(), p.train_size, p.value.to_bits())) {
+                return Err(format!(
+                    "`points` hold {} = {} twice{}{}; `run` writes each grid value once, so the \
+                     document was edited or damaged",
+                    self.knob,
+                    crate::fmt::fmt_value(p.value),
+                    p.family
+                        .as_ref()
+                        .map_or(String::new(), |f| format!(" for family {f}")),
+                    p.train_size
+                        .map_or(String::new(), |n| format!(" at training size {n}")),
+                ));
+            }
+        }
+        Ok(())
+    }
+
     /// The description of the terms: the document's own, or (documents written before it was
     /// recorded) the loss's.
     pub fn term_docs(&self) -> Vec<TermDoc> {
