@@ -239,11 +239,28 @@ pub fn encode_acc(plan: &Plan, acc: &Acc) -> AccRecord {
 /// where the loss says so, counts consistent).
 pub fn decode_acc(plan: &Plan, i: usize, points: usize, rec: &AccRecord) -> Result<Acc, String> {
     let shape = plan.shape(i, points);
-    if rec.shape != shape_record(&shape) {
+    let want = shape_record(&shape);
+    if rec.shape != want {
+        let (a, b) = (&rec.shape, &want);
+        let differs: Vec<String> = [
+            ("grid", a.grid.to_string(), b.grid.to_string()),
+            ("points", a.points.to_string(), b.points.to_string()),
+            ("classes", a.classes.to_string(), b.classes.to_string()),
+            ("fits", a.fits.to_string(), b.fits.to_string()),
+            (
+                "all_points",
+                a.all_points.to_string(),
+                b.all_points.to_string(),
+            ),
+            ("ensemble", a.ensemble.to_string(), b.ensemble.to_string()),
+        ]
+        .into_iter()
+        .filter(|(_, x, y)| x != y)
+        .map(|(k, x, y)| format!("{k} {x} where the scenario has {y}"))
+        .collect();
         return Err(format!(
-            "accumulator shape {:?} does not match the scenario's {:?}",
-            rec.shape,
-            shape_record(&shape)
+            "accumulator shape does not match the scenario's: {}",
+            differs.join(", ")
         ));
     }
     let layout = plan.loss.layout(&shape);

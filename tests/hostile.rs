@@ -2055,6 +2055,13 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             "p1.json",
         ),
         (
+            "accumulator shape edited",
+            edit_part(&docs.part1, true, |v| {
+                v["completed"][0]["models"][0]["shape"]["grid"] = 7.into()
+            }),
+            "accumulator shape does not match the scenario's: grid 7 where the scenario has 2",
+        ),
+        (
             "replicate count edited",
             edit_part(&docs.part1, true, |v| {
                 v["completed"][0]["models"][0]["replicates"] = 99.into()
