@@ -839,6 +839,16 @@ fn scenario_cases(t: &mut Table) {
     );
     t.scenario(
         g,
+        "an empty class label",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+            "[data.classes]\nlabels = [\"a\", \" \"]\nprobability = \"x\"\n",
+        ),
+        v,
+        "label 2 is empty",
+    );
+    t.scenario(
+        g,
         "probability outside [0, 1]",
         &sc(
             "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",

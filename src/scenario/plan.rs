@@ -1557,6 +1557,16 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
         ));
     }
     for (i, l) in labels.iter().enumerate() {
+        if l.trim().is_empty() {
+            return Err(cx.err(
+                Some(c.labels.span()),
+                "data.classes.labels",
+                format!(
+                    "label {} is empty; labels name the classes in every output",
+                    i + 1
+                ),
+            ));
+        }
         if labels[..i].contains(l) {
             return Err(cx.err(
                 Some(c.labels.span()),
