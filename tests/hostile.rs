@@ -839,6 +839,13 @@ fn scenario_cases(t: &mut Table) {
     );
     t.scenario(
         g,
+        "seed beyond a TOML integer",
+        &sc("seed = 1", "seed = 18446744073709551615"),
+        v,
+        "key `seed`: number too large: whole numbers in a scenario go up to 9223372036854775807",
+    );
+    t.scenario(
+        g,
         "an empty class label",
         &sc(
             "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",

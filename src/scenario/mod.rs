@@ -24,7 +24,12 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
     toml::from_str::<spec::ScenarioSpec>(src).map_err(|e| {
         let line = e.span().map(|s| line_of(src, s.start));
         let mut message = e.message().trim().replace('\n', " ");
-        if let Some(span) = e.span() {
+        if message.starts_with("number too large to fit in target type") {
+            // The span holds only the first digit; say what the limit is instead.
+            message = "number too large: whole numbers in a scenario go up to \
+                       9223372036854775807 (2^63 − 1)"
+                .into();
+        } else if let Some(span) = e.span() {
             if let Some(text) = src.get(span.clone()) {
                 let text = text.lines().next().unwrap_or("").trim();
                 if !text.is_empty() && text.len() < 80 && !message.contains(text) {
