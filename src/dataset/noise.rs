@@ -186,16 +186,25 @@ impl Design {
         if y.len() != self.n {
             return None;
         }
-        Some(match &self.kind {
-            DesignKind::Nn(nb) => nn_estimate(nb, y),
-            DesignKind::Gamma { nn, delta } => gamma_estimate(nn, delta, y),
-            DesignKind::Gsjs { order, a } => gsjs_estimate(order, a, y),
-        })
+        Some(self.run(y, true))
     }
 
-    /// The estimate alone (NaN when `y` has another length): the fast path of a bootstrap.
+    fn run(&self, y: ArrayView1<'_, f64>, with_se: bool) -> NoiseEstimate {
+        match &self.kind {
+            DesignKind::Nn(nb) => nn_estimate(nb, y, with_se),
+            DesignKind::Gamma { nn, delta } => gamma_estimate(nn, delta, y, with_se),
+            DesignKind::Gsjs { order, a } => gsjs_estimate(order, a, y, with_se),
+        }
+    }
+
+    /// The estimate alone (NaN when `y` has another length): the fast path of a bootstrap. The
+    /// same value as [`Design::estimate`], bit for bit, without the standard error (whose
+    /// dependency-graph sum cost several times the estimate itself).
     pub fn value(&self, y: ArrayView1<'_, f64>) -> f64 {
-        self.estimate(y).map_or(f64::NAN, |e| e.value)
+        if y.len() != self.n {
+            return f64::NAN;
+        }
+        self.run(y, false).value
     }
 }
 
@@ -300,7 +309,7 @@ pub fn nearest_neighbour(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Opti
     estimate(Method::NearestNeighbour, x, y)
 }
 
-fn nn_estimate(nb: &[usize], y: ArrayView1<'_, f64>) -> NoiseEstimate {
+fn nn_estimate(nb: &[usize], y: ArrayView1<'_, f64>, with_se: bool) -> NoiseEstimate {
     let n = y.len();
     let t: Vec<f64> = (0..n)
         .map(|i| {
@@ -309,10 +318,15 @@ fn nn_estimate(nb: &[usize], y: ArrayView1<'_, f64>) -> NoiseEstimate {
         })
         .collect();
     let (value, _) = mean_se(&t);
-    let uses: Vec<Vec<usize>> = (0..n).map(|i| vec![i, nb[i]]).collect();
+    let stderr = if with_se {
+        let uses: Vec<Vec<usize>> = (0..n).map(|i| vec![i, nb[i]]).collect();
+        dependent_var_of_mean(&t, &uses, n).sqrt()
+    } else {
+        f64::NAN
+    };
     NoiseEstimate {
         value,
-        stderr: dependent_var_of_mean(&t, &uses, n).sqrt(),
+        stderr,
         method: Method::NearestNeighbour,
     }
 }
@@ -335,6 +349,7 @@ fn gamma_estimate(
     nn: &[Vec<(usize, f64)>],
     delta: &[f64],
     y: ArrayView1<'_, f64>,
+    with_se: bool,
 ) -> NoiseEstimate {
     let n = y.len();
     let p = delta.len();
@@ -346,6 +361,13 @@ fn gamma_estimate(
     }
     gamma.iter_mut().for_each(|g| *g /= n as f64);
     let a = line_intercept(delta, &gamma);
+    if !with_se {
+        return NoiseEstimate {
+            value: a,
+            stderr: f64::NAN,
+            method: Method::Gamma,
+        };
+    }
     let c = intercept_weights(delta);
     let u: Vec<f64> = nn
         .iter()
@@ -414,7 +436,12 @@ pub fn gsjs(x: ArrayView1<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstim
     estimate(Method::Gsjs, x.insert_axis(ndarray::Axis(1)), y)
 }
 
-fn gsjs_estimate(order: &[usize], a: &[f64], y: ArrayView1<'_, f64>) -> NoiseEstimate {
+fn gsjs_estimate(
+    order: &[usize],
+    a: &[f64],
+    y: ArrayView1<'_, f64>,
+    with_se: bool,
+) -> NoiseEstimate {
     let n = y.len();
     let ys: Vec<f64> = order.iter().map(|&i| y[i]).collect();
     let t: Vec<f64> = (1..n - 1)
@@ -427,6 +454,13 @@ fn gsjs_estimate(order: &[usize], a: &[f64], y: ArrayView1<'_, f64>) -> NoiseEst
         .collect();
     let m = t.len() as f64;
     let mean = t.iter().sum::<f64>() / m;
+    if !with_se {
+        return NoiseEstimate {
+            value: mean,
+            stderr: f64::NAN,
+            method: Method::Gsjs,
+        };
+    }
     let acov = |lag: usize| -> f64 {
         if lag >= t.len() {
             return 0.0;
@@ -453,6 +487,32 @@ fn gsjs_estimate(order: &[usize], a: &[f64], y: ArrayView1<'_, f64>) -> NoiseEst
 mod tests {
     use super::*;
     use ndarray::{Array1, Array2};
+
+    #[test]
+    fn the_bootstrap_fast_path_gives_the_estimate_bit_for_bit() {
+        // `value` skips the standard error; the value itself must not move.
+        let n = 60;
+        let x1 = Array2::from_shape_fn((n, 1), |(i, _)| ((i * 37) % n) as f64 / n as f64);
+        let x2 = Array2::from_shape_fn((n, 2), |(i, j)| ((i * (7 + 4 * j)) % 23) as f64);
+        let y = Array1::from_shape_fn(n, |i| ((i * 13) % 17) as f64 * 0.37 - (i as f64).sin());
+        for (m, x) in [
+            (Method::Gsjs, &x1),
+            (Method::Gamma, &x2),
+            (Method::NearestNeighbour, &x2),
+        ] {
+            let d = Design::new(m, x.view()).unwrap();
+            let e = d.estimate(y.view()).unwrap();
+            assert_eq!(
+                d.value(y.view()).to_bits(),
+                e.value.to_bits(),
+                "{}",
+                m.name()
+            );
+            assert!(e.stderr.is_finite(), "{}", m.name());
+        }
+        let d = Design::new(Method::Gamma, x2.view()).unwrap();
+        assert!(d.value(y.slice(ndarray::s![..10])).is_nan());
+    }
 
     #[test]
     fn gsjs_is_zero_on_an_exact_line() {
