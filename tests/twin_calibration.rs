@@ -109,6 +109,29 @@ fn names(p: usize) -> Vec<String> {
 }
 
 /// Draws a table of `n` rows from `proc` with noise sd `sd` (stream seeded by `seed`).
+/// Table `t` of a noise study (n rows, σ = 1, drawn from `seed + 101 t`) with its responses
+/// as a vector and the default regression twin's fit (seed `seed + t`).
+fn noise_study_table(
+    proc: Process,
+    n: usize,
+    seed: u64,
+    t: usize,
+) -> (Array2<f64>, Array1<f64>, Vec<f64>, dgp_twin::RegressionFit) {
+    let (x, y) = draw_table(proc, n, 1.0, seed + 101 * t as u64);
+    let yv = y.to_vec();
+    let fit = dgp_twin::fit_regression(
+        x.view(),
+        &yv,
+        seed + t as u64,
+        Rule::Best,
+        None,
+        dgp_twin::Twicing::Auto,
+        "t",
+    )
+    .expect("fits");
+    (x, y, yv, fit)
+}
+
 fn draw_table(proc: Process, n: usize, sd: f64, seed: u64) -> (Array2<f64>, Array1<f64>) {
     let nm = names(proc.p);
     let refs: Vec<&str> = nm.iter().map(String::as_str).collect();
@@ -777,18 +800,7 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
         // Per table: the value with the pilot's correction, the pilot's excess, the sampling SE.
         let mut alt: Vec<(f64, f64, f64)> = Vec::new();
         for t in 0..tables {
-            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
-            let yv = y.to_vec();
-            let fit = dgp_twin::fit_regression(
-                x.view(),
-                &yv,
-                seed + t as u64,
-                Rule::Best,
-                None,
-                dgp_twin::Twicing::Auto,
-                "t",
-            )
-            .expect("fits");
+            let (x, y, _, fit) = noise_study_table(*proc, n, seed, t);
             let c = fit.noise.expect("noise");
             corrected.push(c.value);
             ses.push(c.se);
@@ -1002,18 +1014,7 @@ fn noise_variants() {
         let seed = 7000 + 10_000 * pi as u64;
         let mut rows: Vec<Vec<f64>> = Vec::new();
         for t in 0..tables {
-            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
-            let yv = y.to_vec();
-            let fit = dgp_twin::fit_regression(
-                x.view(),
-                &yv,
-                seed + t as u64,
-                Rule::Best,
-                None,
-                dgp_twin::Twicing::Auto,
-                "t",
-            )
-            .expect("fits");
+            let (x, _, yv, fit) = noise_study_table(*proc, n, seed, t);
             let c = fit.noise.expect("noise");
             let d = noise::Design::new(c.method, x.view()).unwrap();
             let est = |v: &[f64]| d.value(Array1::from(v.to_vec()).view());
@@ -1157,18 +1158,7 @@ fn noise_df() {
         let seed = 7000 + 10_000 * pi as u64;
         let mut rows: Vec<Vec<f64>> = Vec::new();
         for t in 0..tables {
-            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
-            let yv = y.to_vec();
-            let fit = dgp_twin::fit_regression(
-                x.view(),
-                &yv,
-                seed + t as u64,
-                Rule::Best,
-                None,
-                dgp_twin::Twicing::Auto,
-                "t",
-            )
-            .expect("fits");
+            let (x, _, yv, fit) = noise_study_table(*proc, n, seed, t);
             let c = fit.noise.expect("noise");
             let k = fit.selection.choice.k.unwrap();
             let idx = NeighbourIndex::new(x.view(), true);
@@ -1270,18 +1260,7 @@ fn noise_tree_pilot() {
         let seed = 7000 + 10_000 * pi as u64;
         let mut rows: Vec<Vec<f64>> = Vec::new();
         for t in 0..tables {
-            let (x, y) = draw_table(*proc, n, 1.0, seed + 101 * t as u64);
-            let yv = y.to_vec();
-            let fit = dgp_twin::fit_regression(
-                x.view(),
-                &yv,
-                seed + t as u64,
-                Rule::Best,
-                None,
-                dgp_twin::Twicing::Auto,
-                "t",
-            )
-            .expect("fits");
+            let (x, _, yv, fit) = noise_study_table(*proc, n, seed, t);
             let c = fit.noise.expect("noise");
             let d = noise::Design::new(c.method, x.view()).unwrap();
             let est = |v: &[f64]| d.value(Array1::from(v.to_vec()).view());

@@ -394,12 +394,13 @@ impl Serialize for PointRow {
     }
 }
 
-/// Flattens a JSON object into `(dotted key, number)` pairs in document order; `null` becomes
-/// NaN. Anything else is an error naming the key.
-fn flatten_numbers(
+/// Flattens a JSON object into `(dotted key, leaf)` pairs in document order: nested objects are
+/// walked, every other value is read by `leaf` (given its dotted key), whose error is returned.
+fn flatten<T>(
     prefix: &str,
     obj: &serde_json::Map<String, serde_json::Value>,
-    out: &mut Vec<(String, f64)>,
+    out: &mut Vec<(String, T)>,
+    leaf: &dyn Fn(&str, &serde_json::Value) -> Result<T, String>,
 ) -> Result<(), String> {
     for (k, v) in obj {
         let key = if prefix.is_empty() {
@@ -408,17 +409,27 @@ fn flatten_numbers(
             format!("{prefix}.{k}")
         };
         match v {
-            serde_json::Value::Null => out.push((key, f64::NAN)),
-            serde_json::Value::Number(n) => out.push((
-                key.clone(),
-                n.as_f64()
-                    .ok_or_else(|| format!("`{key}` is not a number"))?,
-            )),
-            serde_json::Value::Object(m) => flatten_numbers(&key, m, out)?,
-            _ => return Err(format!("`{key}` is not a number")),
+            serde_json::Value::Object(m) => flatten(&key, m, out, leaf)?,
+            _ => {
+                let x = leaf(&key, v)?;
+                out.push((key, x));
+            }
         }
     }
     Ok(())
+}
+
+/// Flattens a JSON object into `(dotted key, number)` pairs in document order; `null` becomes
+/// NaN. Anything else is an error naming the key.
+fn flatten_numbers(
+    prefix: &str,
+    obj: &serde_json::Map<String, serde_json::Value>,
+    out: &mut Vec<(String, f64)>,
+) -> Result<(), String> {
+    flatten(prefix, obj, out, &|key, v| match v {
+        serde_json::Value::Null => Ok(f64::NAN),
+        _ => v.as_f64().ok_or_else(|| format!("`{key}` is not a number")),
+    })
 }
 
 /// The key of a point's bootstrap percentile intervals in the JSON.
@@ -432,18 +443,12 @@ fn flatten_intervals(
     obj: &serde_json::Map<String, serde_json::Value>,
     out: &mut Vec<(String, (f64, f64))>,
 ) -> Result<(), String> {
-    for (k, v) in obj {
-        let key = if prefix.is_empty() {
-            k.clone()
-        } else {
-            format!("{prefix}.{k}")
-        };
+    flatten(prefix, obj, out, &|key, v| {
         let not_a_pair = || {
             format!("`{INTERVAL_KEY}.{key}` must be [lower, upper]: two finite numbers, or null")
         };
         match v {
-            serde_json::Value::Null => out.push((key, (f64::NAN, f64::NAN))),
-            serde_json::Value::Object(m) => flatten_intervals(&key, m, out)?,
+            serde_json::Value::Null => Ok((f64::NAN, f64::NAN)),
             serde_json::Value::Array(a) => {
                 let bounds: Vec<f64> = a.iter().filter_map(|b| b.as_f64()).collect();
                 if a.len() != 2 || bounds.len() != 2 || bounds.iter().any(|b| !b.is_finite()) {
@@ -455,12 +460,11 @@ fn flatten_intervals(
                         bounds[0], bounds[1]
                     ));
                 }
-                out.push((key, (bounds[0], bounds[1])));
+                Ok((bounds[0], bounds[1]))
             }
-            _ => return Err(not_a_pair()),
+            _ => Err(not_a_pair()),
         }
-    }
-    Ok(())
+    })
 }
 
 impl<'de> Deserialize<'de> for PointRow {

@@ -468,23 +468,20 @@ fn summarize_in(
         }
         .ok_or_else(|| Error::Usage("no replicates to summarize".into()))?;
         for (g, row) in s.values.iter().enumerate() {
-            for (t, v) in row.iter().enumerate() {
-                if !v.is_finite() {
-                    return Err(Error::Data(format!(
-                        "{}: the term `{}` at {} = {} is {v}: {}",
-                        plan.file,
-                        s.terms[t].key,
-                        model.family.knob(),
-                        fmt_value(model.grid[g]),
-                        not_finite_cause(plan, &prepared, &s.total)
-                    )));
-                }
-                // NaN marks a standard error that is not reported or not computable; an
-                // infinite one overflowed and would be written as `null`.
+            for (t, &v) in row.iter().enumerate() {
+                // A term must be finite. NaN marks a standard error that is not reported or not
+                // computable; an infinite one overflowed and would be written as `null`.
                 let se = s.stderr[g][t];
-                if se.is_infinite() {
+                let bad = if !v.is_finite() {
+                    Some(("the term", v))
+                } else if se.is_infinite() {
+                    Some(("the standard error of the term", se))
+                } else {
+                    None
+                };
+                if let Some((what, x)) = bad {
                     return Err(Error::Data(format!(
-                        "{}: the standard error of the term `{}` at {} = {} is {se}: {}",
+                        "{}: {what} `{}` at {} = {} is {x}: {}",
                         plan.file,
                         s.terms[t].key,
                         model.family.knob(),
