@@ -738,7 +738,7 @@ fn warn_no_stderr(plan: &Plan, quiet: bool) {
     }
 }
 
-/// Says on standard error when a table run that should have standard errors (enough
+/// Says so when a table run that should have standard errors (enough
 /// replicates and blocks, see [`warn_no_stderr`]) has none for the expected loss somewhere: a
 /// leave-one-block-out fold kept no row held out in 2 or more replicates (few rows, or a large
 /// `train_fraction`). The result then carries `null` there, as with R = 2.
@@ -885,7 +885,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--noise-estimator")
         } else if !matches!(a.reference.as_str(), "best" | "knn") {
             Some("--reference")
-        } else if a.jitter != 1.0 {
+        } else if a.jitter != twin::DEFAULT_JITTER {
             Some("--jitter")
         } else {
             None

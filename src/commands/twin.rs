@@ -80,6 +80,9 @@ pub fn default_fidelity_families(rows: usize) -> Vec<FidelityFamily> {
     ]
 }
 
+/// Default kernel jitter of the smoothed bootstrap (a multiple of Silverman's bandwidth).
+pub const DEFAULT_JITTER: f64 = 1.0;
+
 /// Options of `lossprism twin`.
 #[derive(Debug, Clone)]
 pub struct TwinOptions {
@@ -140,7 +143,7 @@ impl Default for TwinOptions {
             out: PathBuf::from("twin.toml"),
             seed: 1,
             varying: false,
-            jitter: 1.0,
+            jitter: DEFAULT_JITTER,
             eval_size: twin::EVAL_SIZE,
             reference: Rule::Best,
             noise_estimator: None,
