@@ -119,7 +119,7 @@ pub struct TwinArgs {
     pub seed: u64,
     /// Kernel jitter of the smoothed bootstrap of the rows, as a multiple of Silverman's
     /// bandwidth (0: the rows resampled as they are).
-    #[arg(long, default_value_t = crate::commands::twin::DEFAULT_JITTER, value_name = "C")]
+    #[arg(long, default_value_t = crate::dgp::twin::DEFAULT_JITTER, value_name = "C")]
     pub jitter: f64,
     /// Evaluation points of the twin (drawn once).
     #[arg(long, default_value_t = 1000, value_name = "M")]

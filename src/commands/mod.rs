@@ -885,7 +885,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--noise-estimator")
         } else if !matches!(a.reference.as_str(), "best" | "knn") {
             Some("--reference")
-        } else if a.jitter != twin::DEFAULT_JITTER {
+        } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER {
             Some("--jitter")
         } else {
             None

@@ -80,9 +80,6 @@ pub fn default_fidelity_families(rows: usize) -> Vec<FidelityFamily> {
     ]
 }
 
-/// Default kernel jitter of the smoothed bootstrap (a multiple of Silverman's bandwidth).
-pub const DEFAULT_JITTER: f64 = 1.0;
-
 /// Options of `lossprism twin`.
 #[derive(Debug, Clone)]
 pub struct TwinOptions {
@@ -143,7 +140,7 @@ impl Default for TwinOptions {
             out: PathBuf::from("twin.toml"),
             seed: 1,
             varying: false,
-            jitter: DEFAULT_JITTER,
+            jitter: twin::DEFAULT_JITTER,
             eval_size: twin::EVAL_SIZE,
             reference: Rule::Best,
             noise_estimator: None,

@@ -376,6 +376,10 @@ pub fn correct_noise(
     })
 }
 
+/// Default kernel jitter of the smoothed bootstrap of `lossprism twin` (a multiple of
+/// Silverman's bandwidth, [`Jitter`]).
+pub const DEFAULT_JITTER: f64 = 1.0;
+
 /// Whether a regression twin's reference is twiced ([`crate::dgp::reference::Choice::twice`]).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum Twicing {
