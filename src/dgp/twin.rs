@@ -458,12 +458,7 @@ pub fn fit_regression(
         ));
     }
     let mut selection = select::select(x, y, seed, rule);
-    let at_rows = |r: &Reference| -> Vec<f64> {
-        x.rows()
-            .into_iter()
-            .map(|row| r.mean_at(&row.to_vec()))
-            .collect()
-    };
+    let at_rows = |r: &Reference| -> Vec<f64> { r.mean_at_rows(x) };
     let once = Reference::fit(x, ArrayView1::from(y), 0, &selection.choice, false, source)?;
     let once_rows = at_rows(&once);
     // The noise's correction is measured with the fit made once: the twiced fit carries more of

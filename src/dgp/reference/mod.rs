@@ -338,11 +338,7 @@ impl Reference {
         x: ArrayView2<'_, f64>,
         y: ArrayView1<'_, f64>,
     ) -> Result<Reference, String> {
-        let fit: Vec<f64> = x
-            .rows()
-            .into_iter()
-            .map(|r| self.mean_at(&r.to_vec()))
-            .collect();
+        let fit = self.mean_at_rows(x);
         self.twiced_with_fit(x, y, &fit)
     }
 
@@ -445,6 +441,43 @@ impl Reference {
             Some(s) => first + s.mean_at(row),
             None => first,
         }
+    }
+
+    /// The reference's E[y | x] at every row of `x`, equal bit for bit to [`Reference::mean_at`]
+    /// row by row; the forest part is evaluated for all rows at once
+    /// ([`Forest::predict_rows`]), which is several times faster on many rows.
+    pub fn mean_at_rows(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
+        let forest = self.forest.as_ref().map(|f| f.predict_rows(x));
+        let w = self.choice.weights;
+        let mut out = Vec::with_capacity(x.nrows());
+        SCRATCH.with(|cell| {
+            let mut s = cell.borrow_mut();
+            let s = &mut *s;
+            let mut row = Vec::with_capacity(x.ncols());
+            for (i, r) in x.rows().into_iter().enumerate() {
+                row.clear();
+                row.extend(r.iter().copied());
+                let mut v = 0.0;
+                if w[0] > 0.0 && self.knn.is_some() {
+                    self.neighbours(&row, &mut s.knn, &mut s.buf);
+                    v +=
+                        w[0] * (s.buf.iter().map(|&j| self.y[j]).sum::<f64>() / s.buf.len() as f64);
+                }
+                if let Some(f) = &forest {
+                    v += w[1] * f[i];
+                }
+                if let Some(l) = &self.loclin {
+                    v += w[2] * l.predict_with(&row, &mut s.loclin);
+                }
+                out.push(v);
+            }
+        });
+        if let Some(second) = &self.second {
+            for (o, t) in out.iter_mut().zip(second.mean_at_rows(x)) {
+                *o += t;
+            }
+        }
+        out
     }
 
     /// Class probabilities at one input row: neighbour shares with add-one smoothing.
@@ -785,6 +818,24 @@ mod tests {
                 (got - want).abs() < 1e-9 * (1.0 + want.abs()),
                 "blend point {i}: {got} vs {want}"
             );
+        }
+        // All rows at once (the forest part tree by tree) is the row-by-row value bit for bit,
+        // at the table's rows and at new points, for the blend and for its twiced form; more
+        // rows than one block of the forest's batch.
+        let many = Array2::from_shape_fn((1300, 2), |(i, c)| {
+            ((i * (7 + 3 * c)) % 113) as f64 / 113.0 + 0.001 * c as f64
+        });
+        for r in [&once, &twiced, &r] {
+            for pts in [x.view(), q.view(), many.view()] {
+                let batch = r.mean_at_rows(pts);
+                for (i, row) in pts.rows().into_iter().enumerate() {
+                    assert_eq!(
+                        batch[i].to_bits(),
+                        r.mean_at(&row.to_vec()).to_bits(),
+                        "row {i}"
+                    );
+                }
+            }
         }
         // Classification and varying noise refuse it.
         assert!(Reference::fit(x.view(), y.view(), 0, &choice, true, "t").is_err());

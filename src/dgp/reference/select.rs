@@ -380,12 +380,13 @@ pub fn twicing_check(
         let xt = x.select(Axis(0), &train);
         let yt: Vec<f64> = train.iter().map(|&i| y[i]).collect();
         let r = Reference::fit(xt.view(), ArrayView1::from(&yt), 0, &once, false, "a fold").ok()?;
-        for &i in &test {
-            p_once[i] = r.mean_at(&x.row(i).to_vec());
+        let xs = x.select(Axis(0), &test);
+        for (&i, v) in test.iter().zip(r.mean_at_rows(xs.view())) {
+            p_once[i] = v;
         }
         let r2 = r.twiced(xt.view(), ArrayView1::from(&yt)).ok()?;
-        for &i in &test {
-            p_twice[i] = r2.mean_at(&x.row(i).to_vec());
+        for (&i, v) in test.iter().zip(r2.mean_at_rows(xs.view())) {
+            p_twice[i] = v;
         }
     }
     Some(TwicingCheck {
