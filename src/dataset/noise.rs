@@ -20,6 +20,8 @@
 
 use ndarray::{ArrayView1, ArrayView2};
 
+use crate::family::neighbours::{NeighbourIndex, Scratch};
+
 /// Which estimator.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Method {
@@ -222,35 +224,25 @@ pub fn standardize(x: ArrayView2<'_, f64>) -> ndarray::Array2<f64> {
 }
 
 /// For each row, its `k` nearest other rows (squared Euclidean distance; ties to the lower
-/// index), nearest first: `(index, squared distance)`. O(n² p).
+/// index), nearest first: `(index, squared distance)`. The search is the product's one exact
+/// neighbour search ([`NeighbourIndex`], unstandardized: `z` is standardized already).
 pub fn nearest(z: ArrayView2<'_, f64>, k: usize) -> Vec<Vec<(usize, f64)>> {
     let n = z.nrows();
     let k = k.min(n.saturating_sub(1));
-    let mut out = Vec::with_capacity(n);
-    let mut d: Vec<(f64, usize)> = Vec::with_capacity(n);
-    for i in 0..n {
-        d.clear();
-        let zi = z.row(i);
-        for j in 0..n {
-            if j == i {
-                continue;
-            }
-            let dist: f64 = zi
-                .iter()
-                .zip(z.row(j).iter())
-                .map(|(a, b)| (a - b) * (a - b))
-                .sum();
-            d.push((dist, j));
-        }
-        let cmp = |a: &(f64, usize), b: &(f64, usize)| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1));
-        if k < d.len() {
-            d.select_nth_unstable_by(k, cmp);
-            d.truncate(k);
-        }
-        d.sort_by(cmp);
-        out.push(d.iter().map(|&(dist, j)| (j, dist)).collect());
-    }
-    out
+    let index = NeighbourIndex::new(z, false);
+    let mut scratch = Scratch::default();
+    let mut buf = Vec::with_capacity(k);
+    let mut row = Vec::with_capacity(z.ncols());
+    (0..n)
+        .map(|i| {
+            row.clear();
+            row.extend(z.row(i).iter().copied());
+            index.nearest_excluding(&row, k, |j| j == i, &mut scratch, &mut buf);
+            buf.iter()
+                .map(|&j| (j, index.squared_distance(j, &row)))
+                .collect()
+        })
+        .collect()
 }
 
 fn mean_se(t: &[f64]) -> (f64, f64) {
@@ -512,6 +504,67 @@ mod tests {
         }
         let d = Design::new(Method::Gamma, x2.view()).unwrap();
         assert!(d.value(y.slice(ndarray::s![..10])).is_nan());
+    }
+
+    #[test]
+    fn nearest_equals_a_plain_all_pairs_search() {
+        // The all-pairs search this function used to be, written out: every other row's squared
+        // distance summed over the inputs, then (distance, index) order. Inputs on a coarse grid
+        // (many ties, repeated rows) and continuous ones.
+        let brute = |z: ArrayView2<'_, f64>, k: usize| -> Vec<Vec<(usize, f64)>> {
+            let n = z.nrows();
+            (0..n)
+                .map(|i| {
+                    let mut d: Vec<(f64, usize)> = (0..n)
+                        .filter(|&j| j != i)
+                        .map(|j| {
+                            let s: f64 = z
+                                .row(i)
+                                .iter()
+                                .zip(z.row(j).iter())
+                                .map(|(a, b)| (a - b) * (a - b))
+                                .sum();
+                            (s, j)
+                        })
+                        .collect();
+                    d.sort_by(|a, b| a.0.total_cmp(&b.0).then(a.1.cmp(&b.1)));
+                    d.truncate(k);
+                    d.into_iter().map(|(s, j)| (j, s)).collect()
+                })
+                .collect()
+        };
+        for (n, p, grid) in [
+            (1, 2, 0.0),
+            (2, 1, 0.0),
+            (40, 1, 3.0),
+            (200, 3, 4.0),
+            (150, 2, 0.0),
+        ] {
+            let x = ndarray::Array2::from_shape_fn((n, p), |(i, c)| {
+                let u = ((i * 37 + c * 11) % 97) as f64 / 97.0 + 0.003 * (i % 5) as f64;
+                if grid > 0.0 {
+                    (u * grid).floor()
+                } else {
+                    u
+                }
+            });
+            let z = standardize(x.view());
+            for k in [1, 3, 10, 500] {
+                let got = nearest(z.view(), k);
+                let want = brute(z.view(), k);
+                assert_eq!(got.len(), want.len());
+                for (g, w) in got.iter().zip(&want) {
+                    assert_eq!(g.len(), w.len());
+                    for (a, b) in g.iter().zip(w) {
+                        assert_eq!(
+                            (a.0, a.1.to_bits()),
+                            (b.0, b.1.to_bits()),
+                            "n {n} p {p} k {k}"
+                        );
+                    }
+                }
+            }
+        }
     }
 
     #[test]
