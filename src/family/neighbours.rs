@@ -15,7 +15,7 @@
 //! - a **k-d tree** (`KdTree`), built by [`NeighbourIndex::new`] when the table has at most
 //!   `TREE_MAX_INPUTS` inputs, at least `TREE_MIN_ROWS` rows and only finite (standardized)
 //!   values, and used for a query when the query is finite and `k` is small against the rows
-//!   (`TREE_MAX_K_SHARE`). A query then visits the leaves near it and skips every node whose
+//!   (`tree_pays`). A query then visits the leaves near it and skips every node whose
 //!   box is provably farther than the current `k`-th nearest row: on a few thousand rows and
 //!   three inputs a query reads a few dozen rows instead of all of them (see the neighbour bench
 //!   in `benches/neighbours.rs`). The box bound is computed with the same floating-point
@@ -246,9 +246,14 @@ const TREE_MAX_INPUTS: usize = 8;
 /// Fewest rows for which [`NeighbourIndex::new`] builds a k-d tree.
 const TREE_MIN_ROWS: usize = 256;
 
-/// The tree serves a query only when `k × TREE_MAX_K_SHARE <= n`: for `k` close to `n` it would
-/// visit most leaves anyway.
-const TREE_MAX_K_SHARE: usize = 8;
+/// Whether the tree pays for a query of `k` neighbours among `n` rows with `p` inputs: when
+/// `2 · 2^p · k <= n`. A query visits roughly the leaves whose boxes meet the ball of its `k`
+/// nearest rows, a number that grows like `2^p` and with `k`; measured (`benches/neighbours.rs`,
+/// docs/performance.md) the tree wins from about that size on (at n = 1000, p = 5, k = 50 it is
+/// 2.5× slower than brute force; at n = 5000 it is 1.4× faster).
+fn tree_pays(n: usize, p: usize, k: usize) -> bool {
+    p < usize::BITS as usize - 2 && k.saturating_mul(2 << p) <= n
+}
 
 /// Most rows in a k-d tree leaf.
 const LEAF_SIZE: usize = 12;
@@ -562,7 +567,7 @@ impl NeighbourIndex {
     /// The tree, when it serves a query for `k` neighbours at the (standardized) `query`.
     fn tree_for(&self, query: &[f64], k: usize) -> Option<&KdTree> {
         let tree = self.tree.as_ref()?;
-        let sized = self.search == Search::Tree || k.saturating_mul(TREE_MAX_K_SHARE) <= self.n;
+        let sized = self.search == Search::Tree || tree_pays(self.n, self.p, k);
         (sized && query.iter().all(|v| v.is_finite())).then_some(tree)
     }
 
