@@ -120,6 +120,20 @@ impl Family for KnnFamily {
         true
     }
 
+    /// The neighbour index (standardized rows, and its k-d tree when one may be built), a copy
+    /// of the training rows while it is built, the standardized evaluation points, and the
+    /// search's per-row scratch: distances, up to `2n + 1` keys of 16 bytes, bucket counts, and
+    /// the responses or class labels.
+    fn work_bytes(&self, n: usize, p: usize, m: usize, _grid: &[f64], _task: Task) -> f64 {
+        let (n, p, m) = (n as f64, p as f64, m as f64);
+        NeighbourIndex::bytes(n as usize, p as usize)
+            + 8.0 * (n * p + m * p)
+            + 8.0 * n
+            + 16.0 * (2.0 * n + 1.0)
+            + 8.0 * (n + 2.0)
+            + 8.0 * n
+    }
+
     fn caps(&self, task: Task) -> Caps {
         Caps {
             probabilities: matches!(task, Task::Classify { .. }),
