@@ -129,7 +129,27 @@ enum DesignKind {
 impl Design {
     /// Prepares `method` for the rows of `x`; `None` when the estimator cannot run on them.
     pub fn new(method: Method, x: ArrayView2<'_, f64>) -> Option<Design> {
+        Design::weighted(method, x, None)
+    }
+
+    /// [`Design::new`] with the standardized inputs scaled by `weights` (one per column) before
+    /// any neighbour distance, so that the neighbours are near in the directions given weight;
+    /// GSJS (one input) ignores them.
+    pub fn weighted(
+        method: Method,
+        x: ArrayView2<'_, f64>,
+        weights: Option<&[f64]>,
+    ) -> Option<Design> {
         let n = x.nrows();
+        let standardize = |x: ArrayView2<'_, f64>| {
+            let mut z = standardize(x);
+            if let Some(w) = weights {
+                for (mut col, &wj) in z.columns_mut().into_iter().zip(w) {
+                    col.mapv_inplace(|v| v * wj);
+                }
+            }
+            z
+        };
         let kind = match method {
             Method::NearestNeighbour => {
                 if n < 3 {
