@@ -915,14 +915,20 @@ const STEP2: Process = Process {
     p: 2,
 };
 
+/// The processes of the noise studies: 1–3 inputs, or with `LOSSPRISM_NOISE_PROCS=wide` the 6-
+/// and 10-input ones; process i of the list draws its tables from seed 7000 + 10 000 i.
+fn noise_procs() -> Vec<Process> {
+    match std::env::var("LOSSPRISM_NOISE_PROCS").as_deref() {
+        Ok("wide") => WIDE.to_vec(),
+        _ => vec![SMOOTH1, KINK1, SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3],
+    }
+}
+
 #[test]
 #[ignore = "noise study, a few minutes; results in docs/twin-calibration.md"]
 fn noise_study() {
     let tables = env_usize("LOSSPRISM_NOISE_TABLES", 40);
-    let procs = match std::env::var("LOSSPRISM_NOISE_PROCS").as_deref() {
-        Ok("wide") => WIDE.to_vec(),
-        _ => vec![SMOOTH1, KINK1, SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3],
-    };
+    let procs = noise_procs();
     for (name, lines) in noise_runs(&procs, tables, 300, 7000) {
         println!("{name}:");
         for l in lines {
@@ -1378,18 +1384,10 @@ fn noise_tree_pilot() {
 fn noise_weights_study() {
     use lossprism::dgp::reference::Reference;
     let tables = env_usize("LOSSPRISM_NOISE_TABLES", 30);
-    let procs = match std::env::var("LOSSPRISM_NOISE_PROCS").as_deref() {
-        Ok("wide") => WIDE.to_vec(),
-        _ => vec![SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3],
-    };
-    let all = [SMOOTH1, KINK1, SMOOTH2, STEP2, SWELL3, LEDGE3, HINGE3];
-    for proc in procs {
-        // The seed of `noise_study` for this process (its place in that study's list).
-        let pi = all
-            .iter()
-            .chain(WIDE.iter())
-            .position(|p| p.name == proc.name)
-            .map_or(0, |i| if i >= all.len() { i - all.len() } else { i });
+    // The list and seeds of `noise_study`; the one-input processes are skipped (GSJS has no
+    // distances to weight).
+    let procs = noise_procs();
+    for (pi, proc) in procs.into_iter().enumerate().filter(|(_, p)| p.p > 1) {
         let seed = 7000 + 10_000 * pi as u64;
         let mut rows: Vec<[(f64, f64); 3]> = Vec::new();
         for t in 0..tables {

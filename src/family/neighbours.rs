@@ -195,21 +195,20 @@ fn bucket_nearest(
     debug_assert_eq!(w, c);
     let (cand, sorted) = keys.split_at_mut(c);
     let sorted = &mut sorted[..c];
-    let dist_of = |k: u128| f64::from_bits((k >> 64) as u64);
-    let cmax = cand.iter().map(|&k| dist_of(k)).fold(lo, f64::max);
+    let cmax = cand.iter().map(|&k| key_distance(k)).fold(lo, f64::max);
     let fine_scale = c as f64 / (cmax - lo);
     if cmax > lo && fine_scale.is_finite() {
         let fine = |d: f64| round_index((d - lo) * fine_scale).min(c);
         counts.clear();
         counts.resize(c + 2, 0);
         for &k in cand.iter() {
-            counts[fine(dist_of(k)) + 1] += 1;
+            counts[fine(key_distance(k)) + 1] += 1;
         }
         for b in 1..=c + 1 {
             counts[b] += counts[b - 1];
         }
         for &k in cand.iter() {
-            let b = fine(dist_of(k));
+            let b = fine(key_distance(k));
             sorted[counts[b]] = k;
             counts[b] += 1;
         }

@@ -217,10 +217,18 @@ impl Tree {
             row.len(),
             self.n_features
         );
+        self.walk(|f| row[f], depth)
+    }
+
+    /// The value of the node reached from the root by at most `depth` splits, reading input `f`
+    /// of the row as `value(f)`.
+    #[inline]
+    fn walk(&self, value: impl Fn(usize) -> f64, depth: usize) -> f64 {
         let mut node = self.nodes[0];
         let mut d = 0;
         while node.left != 0 && d < depth {
-            node = self.nodes[node.left as usize + right_offset(row[node.feature as usize], node)];
+            node =
+                self.nodes[node.left as usize + right_offset(value(node.feature as usize), node)];
             d += 1;
         }
         node.value
@@ -272,13 +280,7 @@ impl Tree {
             .iter_mut()
             .zip(groups.remainder().chunks_exact(p))
         {
-            let mut node = nodes[0];
-            let mut d = 0;
-            while node.left != 0 && d < depth {
-                node = nodes[node.left as usize + right_offset(row[node.feature as usize], node)];
-                d += 1;
-            }
-            *a += node.value;
+            *a += self.walk(|f| row[f], depth);
         }
     }
 

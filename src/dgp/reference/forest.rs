@@ -180,3 +180,37 @@ pub fn out_of_bag(x: ArrayView2<'_, f64>, y: &[f64], trees: usize, seed: u64) ->
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn predictions_at_many_rows_equal_the_row_by_row_mean_bit_for_bit() {
+        // Trees outer, rows in blocks and lanes: each row's sum still runs over the trees in
+        // order from -0.0, so every value equals `predict`'s. 1300 rows: more than two blocks
+        // and a remainder of lanes; the table's own rows and points outside its range.
+        let x = Array2::from_shape_fn((150, 3), |(i, c)| ((i * (5 + 2 * c)) % 37) as f64 / 37.0);
+        let y: Vec<f64> = (0..150)
+            .map(|i| (3.0 * x[[i, 0]]).sin() + x[[i, 1]] * x[[i, 2]] + 0.1 * (i % 4) as f64)
+            .collect();
+        let forest = Forest::fit(
+            x.view(),
+            &y,
+            ForestParams {
+                trees: 12,
+                min_leaf: 2,
+                seed: 9,
+            },
+        );
+        let many = Array2::from_shape_fn((1300, 3), |(i, c)| {
+            ((i * (7 + 3 * c)) % 113) as f64 / 100.0 - 0.05
+        });
+        for pts in [x.view(), many.view()] {
+            let batch = forest.predict_rows(pts);
+            for (i, row) in pts.rows().into_iter().enumerate() {
+                assert_eq!(batch[i].to_bits(), forest.predict(row).to_bits(), "row {i}");
+            }
+        }
+    }
+}

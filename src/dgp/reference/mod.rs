@@ -417,35 +417,16 @@ impl Reference {
         }
     }
 
-    /// The reference's E[y | x] at one input row (scratch space is kept per thread, so
-    /// evaluating many rows allocates once).
+    /// The reference's E[y | x] at one input row ([`Reference::mean_at_rows`] of that row).
     pub fn mean_at(&self, row: &[f64]) -> f64 {
-        let first = SCRATCH.with(|cell| {
-            let mut s = cell.borrow_mut();
-            let s = &mut *s;
-            let w = self.choice.weights;
-            let mut v = 0.0;
-            if w[0] > 0.0 && self.knn.is_some() {
-                self.neighbours(row, &mut s.knn, &mut s.buf);
-                v += w[0] * (s.buf.iter().map(|&j| self.y[j]).sum::<f64>() / s.buf.len() as f64);
-            }
-            if let Some(f) = &self.forest {
-                v += w[1] * f.predict(ArrayView1::from(row));
-            }
-            if let Some(l) = &self.loclin {
-                v += w[2] * l.predict_with(row, &mut s.loclin);
-            }
-            v
-        });
-        match &self.second {
-            Some(s) => first + s.mean_at(row),
-            None => first,
-        }
+        let x = ArrayView2::from_shape((1, row.len()), row).expect("one row");
+        self.mean_at_rows(x)[0]
     }
 
-    /// The reference's E[y | x] at every row of `x`, equal bit for bit to [`Reference::mean_at`]
-    /// row by row; the forest part is evaluated for all rows at once
-    /// ([`Forest::predict_rows`]), which is several times faster on many rows.
+    /// The reference's E[y | x] at every row of `x`: the weighted parts in the recipe's order
+    /// (k-NN, forest, local-linear), plus the second fit when twiced. The forest part is evaluated
+    /// for all rows at once ([`Forest::predict_rows`], bit for bit [`Forest::predict`] row by
+    /// row), which is several times faster on many rows; scratch space is kept per thread.
     pub fn mean_at_rows(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
         let forest = self.forest.as_ref().map(|f| f.predict_rows(x));
         let w = self.choice.weights;
@@ -818,24 +799,6 @@ mod tests {
                 (got - want).abs() < 1e-9 * (1.0 + want.abs()),
                 "blend point {i}: {got} vs {want}"
             );
-        }
-        // All rows at once (the forest part tree by tree) is the row-by-row value bit for bit,
-        // at the table's rows and at new points, for the blend and for its twiced form; more
-        // rows than one block of the forest's batch.
-        let many = Array2::from_shape_fn((1300, 2), |(i, c)| {
-            ((i * (7 + 3 * c)) % 113) as f64 / 113.0 + 0.001 * c as f64
-        });
-        for r in [&once, &twiced, &r] {
-            for pts in [x.view(), q.view(), many.view()] {
-                let batch = r.mean_at_rows(pts);
-                for (i, row) in pts.rows().into_iter().enumerate() {
-                    assert_eq!(
-                        batch[i].to_bits(),
-                        r.mean_at(&row.to_vec()).to_bits(),
-                        "row {i}"
-                    );
-                }
-            }
         }
         // Classification and varying noise refuse it.
         assert!(Reference::fit(x.view(), y.view(), 0, &choice, true, "t").is_err());
