@@ -264,6 +264,22 @@ fn bad_twin_scenarios_name_the_key() {
             "reference = { family = \"knn\", k = 3, twice = 1 }\n[data.noise]\nsd = 0.5\n",
             "expected a boolean",
         ),
+        (
+            "reference = { family = \"knn\", k = 3, metric = [1.0, 0.5] }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.metric",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, metric = [-1.0] }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.metric",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, metric = [0.0] }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.metric",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, standardize = false, metric = [1.0] }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.metric",
+        ),
     ] {
         let f = dir.path().join("bad.toml");
         fs::write(&f, format!("{base}{body}{model}")).unwrap();
@@ -366,7 +382,19 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
         "t",
     )
     .unwrap();
-    assert_eq!(refit.choice.family, fit.selection.choice.family);
+    // The whole recipe round-trips through the file (the informational R² are rounded), the
+    // input weights of this table's k-NN and local-linear distances bit for bit.
+    assert_eq!(
+        lossprism::dgp::reference::Choice {
+            cv_r2: None,
+            ..refit.choice.clone()
+        },
+        lossprism::dgp::reference::Choice {
+            cv_r2: None,
+            ..fit.selection.choice.clone()
+        }
+    );
+    assert!(refit.choice.metric.is_some(), "{:?}", refit.choice);
     // The rule decided (no check ran), and `run` refits the twiced reference.
     assert!(fit.twicing.is_none());
     assert!(fit.selection.choice.twice && refit.choice.twice);

@@ -221,6 +221,9 @@ pub fn reference_line(c: &Choice) -> String {
     if c.twice {
         parts.push("twice = true".into());
     }
+    if let Some(w) = &c.metric {
+        parts.push(format!("metric = {}", toml_list(w)));
+    }
     if c.family == Candidate::Blend {
         parts.push(format!(
             "weights = {{ knn = {}, forest = {}, loclin = {} }}",
@@ -401,7 +404,7 @@ fn rule_twice(fit: &RegressionFit) -> bool {
 }
 
 /// Lines describing the reference candidates and the choice.
-fn reference_lines(fit: &RegressionFit, rule: Rule) -> Vec<String> {
+fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<String> {
     let sel = &fit.selection;
     let mut v = vec![format!(
         "Reference for E[y | x], candidates by {}-fold cross-validated R² (± SE):",
@@ -417,6 +420,29 @@ fn reference_lines(fit: &RegressionFit, rule: Rule) -> Vec<String> {
                 "not tried".to_string()
             },
             sc.tuned
+        ));
+    }
+    if sel.metric_scores.len() > 1 {
+        let tried: Vec<String> = sel
+            .metric_scores
+            .iter()
+            .map(|(g, r2)| format!("γ = {g}: {}", fmt_num(*r2)))
+            .collect();
+        let kept = match &sel.choice.metric {
+            Some(w) => {
+                let ws: Vec<String> = names
+                    .iter()
+                    .zip(w)
+                    .map(|(n, v)| format!("{n} {}", fmt_num(*v)))
+                    .collect();
+                format!("kept: {}", ws.join(", "))
+            }
+            None => "kept: every input alike".into(),
+        };
+        v.push(format!(
+            "Input weights of the k-NN and local-linear distances (gradient of a bagged-tree \
+             pilot to the power γ; cross-validated R² of the chosen candidate): {}; {kept}.",
+            tried.join(", ")
         ));
     }
     let once = Choice {
@@ -957,7 +983,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 ..o.clone()
             };
             let body = |r: &RegressionText<'_>, model: &str, reps: usize, report: bool| {
-                let mut comments = reference_lines(r.fit, o.reference);
+                let mut comments = reference_lines(r.fit, o.reference, &t.names);
                 comments.push(inputs_line(&t, r.jitter.as_ref(), eval_size));
                 if let Some(n) = &r.fit.noise {
                     comments.push(noise_line(n));
@@ -1006,7 +1032,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 None
             };
             rt.fidelity = fid.as_ref();
-            for l in reference_lines(&fit, o.reference) {
+            for l in reference_lines(&fit, o.reference, &t.names) {
                 out.push_str(&format!("{l}\n"));
             }
             out.push_str(&format!(

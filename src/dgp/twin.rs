@@ -82,8 +82,7 @@ pub const PILOT_MIN_LEAF: usize = 5;
 /// tables' `0..NOISE_TABLES` and from the fidelity check's streams).
 pub const PILOT_STREAM: u64 = 1 << 40;
 
-/// Columns with at most this many distinct values stay on their levels.
-pub const DISCRETE_LEVELS: usize = 10;
+pub use super::reference::select::DISCRETE_LEVELS;
 
 /// The smoothed bootstrap of a table's rows.
 #[derive(Debug, Clone, PartialEq)]
@@ -508,57 +507,7 @@ pub fn fit_regression(
     })
 }
 
-/// Relevance of each input to a reference, for weighting a noise estimator's distances
-/// ([`correct_noise_weighted`]): the root-mean-square central difference of the reference along
-/// the input, per standard deviation of that input, over the table's rows (steps of a quarter
-/// standard deviation each way, kept inside the observed range), scaled so that the largest is
-/// 1 (all 1 when the reference is flat or not finite); an input the reference does not use gets
-/// 0. Gradient weights for neighbour methods: Kpotufe, Boularias, Schultz and Kim 2016,
-/// "Gradients weights improve regression and classification", *JMLR* 17 (from memory). Measured
-/// for the twin's noise and not adopted (`docs/twin-calibration.md` §2.5): they bring σ̂² closer
-/// on tables of 6–10 inputs but make the twin's curves worse there.
-pub fn gradient_weights(x: ArrayView2<'_, f64>, r: &Reference) -> Vec<f64> {
-    let (n, p) = x.dim();
-    let mut w = vec![0.0; p];
-    for (j, wj) in w.iter_mut().enumerate() {
-        let col = x.column(j);
-        let mean = col.sum() / n as f64;
-        let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
-        let (lo, hi) = col
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
-                (a.min(v), b.max(v))
-            });
-        if sd.is_nan() || sd <= 0.0 {
-            continue;
-        }
-        let h = 0.25 * sd;
-        let mut up = x.to_owned();
-        let mut down = x.to_owned();
-        let mut span = vec![0.0; n];
-        for i in 0..n {
-            let v = x[[i, j]];
-            let (a, b) = ((v - h).max(lo), (v + h).min(hi));
-            up[[i, j]] = b;
-            down[[i, j]] = a;
-            span[i] = (b - a) / sd;
-        }
-        let fu = r.mean_at_rows(up.view());
-        let fd = r.mean_at_rows(down.view());
-        let ss: f64 = (0..n)
-            .filter(|&i| span[i] > 0.0)
-            .map(|i| ((fu[i] - fd[i]) / span[i]).powi(2))
-            .sum();
-        *wj = (ss / n as f64).sqrt();
-    }
-    let top = w.iter().copied().fold(0.0, f64::max);
-    if top > 0.0 && top.is_finite() {
-        w.iter_mut().for_each(|v| *v /= top);
-    } else {
-        w.iter_mut().for_each(|v| *v = 1.0);
-    }
-    w
-}
+pub use super::reference::select::gradient_weights;
 
 /// What `lossprism twin` measured when it wrote a twin scenario (`[data.fit_report]`),
 /// informational: `run` echoes it in the result (`scenario.twin`) and the HTML report, and

@@ -521,9 +521,20 @@ impl NeighbourIndex {
         standardize: bool,
         search: Search,
     ) -> NeighbourIndex {
+        let std = standardize.then(|| Standardizer::fit(x));
+        NeighbourIndex::build(x, std, search)
+    }
+
+    /// Indexes the rows of `x` with inputs standardized by a given standardizer (for example the
+    /// table's statistics with weighted inputs, [`Standardizer::weighted`]); queries use the same.
+    pub fn with_standardizer(x: ArrayView2<'_, f64>, std: Standardizer) -> NeighbourIndex {
+        assert_eq!(std.len(), x.ncols(), "one standardizer column per input");
+        NeighbourIndex::build(x, Some(std), Search::Auto)
+    }
+
+    fn build(x: ArrayView2<'_, f64>, std: Option<Standardizer>, search: Search) -> NeighbourIndex {
         let (n, p) = x.dim();
         let rows = contiguous(&x);
-        let std = standardize.then(|| Standardizer::fit(x));
         let cols = column_major(&rows, n, p, std.as_ref());
         let wanted = match search {
             Search::Auto => p <= TREE_MAX_INPUTS && n >= TREE_MIN_ROWS,

@@ -64,6 +64,31 @@ impl Standardizer {
         }
     }
 
+    /// The same statistics with input j's standardized value multiplied by `w[j]`: `sd_j / w_j`
+    /// as the divisor, and a column with `w[j] = 0` treated as constant (it drops out of every
+    /// distance). Used by a twin's reference whose neighbour distances weight the inputs
+    /// ([`crate::dgp::reference::Choice::metric`]). `w` must be finite and non-negative, one per
+    /// column.
+    pub fn weighted(&self, w: &[f64]) -> Standardizer {
+        assert_eq!(w.len(), self.len(), "one weight per column");
+        let mut s = self.clone();
+        for (j, &wj) in w.iter().enumerate() {
+            if s.constant[j] {
+                continue;
+            }
+            let sd = s.sd[j] / wj;
+            if wj > 0.0 && sd.is_finite() && sd > 0.0 {
+                s.sd[j] = sd;
+                s.inv_sd[j] = 1.0 / sd;
+            } else {
+                s.sd[j] = 1.0;
+                s.inv_sd[j] = 0.0;
+                s.constant[j] = true;
+            }
+        }
+        s
+    }
+
     /// Number of columns.
     pub fn len(&self) -> usize {
         self.mean.len()
@@ -124,6 +149,24 @@ impl Standardizer {
 mod tests {
     use super::*;
     use ndarray::array;
+
+    #[test]
+    fn weighted_inputs_scale_the_standardized_values_and_zero_drops_a_column() {
+        let x = array![[1.0, 0.1, 5.0], [2.0, 0.1, 7.0], [4.0, 0.1, 6.0]];
+        let s = Standardizer::fit(x.view());
+        let w = s.weighted(&[0.5, 1.0, 0.0]);
+        for i in 0..3 {
+            let (a, b) = (w.z(0, x[[i, 0]]), 0.5 * s.z(0, x[[i, 0]]));
+            assert!((a - b).abs() <= 1e-15 * b.abs().max(1.0), "{a} vs {b}");
+            // Constant stays constant; a zero weight makes the column constant.
+            assert_eq!(w.z(1, x[[i, 1]]), 0.0);
+            assert_eq!(w.z(2, x[[i, 2]]), 0.0);
+            assert_eq!(w.z_mul(2, x[[i, 2]]), 0.0);
+        }
+        assert!(w.constant[2] && !s.constant[2]);
+        // Weights of 1 change nothing, bit for bit.
+        assert_eq!(s.weighted(&[1.0, 1.0, 1.0]), s);
+    }
 
     #[test]
     fn mean_zero_sd_one_and_constant_columns_vanish() {

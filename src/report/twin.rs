@@ -21,6 +21,10 @@ pub struct TwinEcho {
     /// not.
     #[serde(default, skip_serializing_if = "std::ops::Not::not")]
     pub twice: bool,
+    /// Input weights of the reference's k-NN and local-linear distances, one per input in the
+    /// table's order (`metric` of the recipe); absent when every input counts alike.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub input_weights: Vec<f64>,
     /// Cross-validated R² of each candidate when the choice was made (absent for older twins).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub cv_r2: Vec<CandidateR2>,
@@ -228,6 +232,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
     Some(TwinEcho {
         reference: r.choice.family.name().into(),
         twice: r.choice.twice,
+        input_weights: r.choice.metric.clone().unwrap_or_default(),
         cv_r2,
         jitter: p.jitter().map_or(0.0, |j| j.scale),
         noise: rep.noise.map(|n| NoiseEcho {
@@ -289,6 +294,12 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             } else {
                 ""
             }
+        ));
+    }
+    if !t.input_weights.is_empty() {
+        out.push(format!(
+            "Its neighbour distances weight the standardized inputs by {} (in the table's input order: the gradient of a bagged-tree pilot, kept because it raised the cross-validated R²), so inputs the response barely depends on count less.",
+            values(&t.input_weights)
         ));
     }
     if let Some(n) = &t.noise {

@@ -97,6 +97,10 @@ pub struct ReferenceSpec {
     /// Twicing: refit the recipe to its own in-sample residuals and add (regression).
     #[serde(default)]
     pub twice: Option<bool>,
+    /// Input weights of the k-NN and local-linear parts, one per input (standardized inputs
+    /// multiplied by them before any distance).
+    #[serde(default)]
+    pub metric: Option<Spanned<Vec<f64>>>,
 }
 
 /// One number per reference candidate (`{ knn = .., forest = .., loclin = .., blend = .. }`).

@@ -121,6 +121,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
 fn choice_of(
     r: &ReferenceSpec,
     rows: usize,
+    inputs: usize,
     classes: usize,
     varying: bool,
     err: &dyn Fn(std::ops::Range<usize>, &str, String) -> ScenarioError,
@@ -262,9 +263,38 @@ fn choice_of(
             c.blend.unwrap_or(f64::NAN),
         ]
     });
+    let standardize = r.standardize.unwrap_or(true);
+    let metric = match &r.metric {
+        None => None,
+        Some(m) => {
+            let w = m.get_ref();
+            let problem = if w.len() != inputs {
+                Some(format!(
+                    "has {} weights for the table's {inputs} inputs",
+                    w.len()
+                ))
+            } else if let Some(v) = w.iter().find(|v| !(v.is_finite() && **v >= 0.0)) {
+                Some(format!(
+                    "weights must be finite numbers >= 0, got {}",
+                    crate::fmt::fmt_exact(*v)
+                ))
+            } else if !w.iter().any(|v| *v > 0.0) {
+                Some("needs at least one weight > 0".into())
+            } else if !standardize {
+                Some("weights standardized inputs: remove `standardize = false`".into())
+            } else {
+                None
+            };
+            if let Some(msg) = problem {
+                return Err(err(m.span(), "data.reference.metric", msg));
+            }
+            Some(w.clone())
+        }
+    };
     Ok(Choice {
+        metric,
         family,
-        standardize: r.standardize.unwrap_or(true),
+        standardize,
         k,
         forest,
         bandwidth,
@@ -491,7 +521,14 @@ pub fn from_spec(
         Some(v) => *v.get_ref(),
         None => false,
     };
-    let choice = choice_of(reference, rows, classes, varying && classes == 0, &err)?;
+    let choice = choice_of(
+        reference,
+        rows,
+        t.x.ncols(),
+        classes,
+        varying && classes == 0,
+        &err,
+    )?;
     let jitter = match &d.jitter {
         None => 0.0,
         Some(j) => {

@@ -162,7 +162,12 @@ fn at_point(
 impl LocLin {
     /// Fits with bandwidth `h` (stores the standardized rows).
     pub fn fit(x: ArrayView2<'_, f64>, y: &[f64], h: f64) -> LocLin {
-        let std = Standardizer::fit(x);
+        LocLin::fit_with(x, y, h, Standardizer::fit(x))
+    }
+
+    /// [`LocLin::fit`] with inputs standardized by `std` (for example with weighted inputs,
+    /// [`Standardizer::weighted`]).
+    pub fn fit_with(x: ArrayView2<'_, f64>, y: &[f64], h: f64, std: Standardizer) -> LocLin {
         let z = standardized(x, &std);
         LocLin {
             h,
@@ -192,9 +197,18 @@ impl LocLin {
 /// Out-of-fold predictions for every bandwidth of [`H_CANDIDATES`] (`out[c][i]`: row i predicted
 /// from the rows of the other folds), standardizing with the whole table's statistics.
 pub fn out_of_fold(x: ArrayView2<'_, f64>, y: &[f64], fold: &[usize]) -> Vec<Vec<f64>> {
+    out_of_fold_with(x, y, fold, &Standardizer::fit(x))
+}
+
+/// [`out_of_fold`] with inputs standardized by `std`.
+pub fn out_of_fold_with(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    fold: &[usize],
+    std: &Standardizer,
+) -> Vec<Vec<f64>> {
     let n = y.len();
-    let std = Standardizer::fit(x);
-    let z = standardized(x, &std);
+    let z = standardized(x, std);
     let mut out = vec![vec![0.0; n]; H_CANDIDATES.len()];
     let mut tmp = vec![0.0; H_CANDIDATES.len()];
     let mut s = Scratch::default();

@@ -39,6 +39,7 @@ use crate::dataset::noise::{self, NoiseEstimate};
 use crate::dataset::Table;
 use crate::error::Error;
 use crate::family::neighbours::{NeighbourIndex, Scratch};
+use crate::family::standardize::Standardizer;
 use crate::family::Task;
 
 pub use forest::{Forest, ForestParams};
@@ -122,6 +123,12 @@ pub struct Choice {
     /// Analysis*, "twicing"; one step of L2 boosting, Bühlmann and Yu 2003, *JASA* 98:324–339).
     /// It restores curvature the cross-validated smoother rounds off.
     pub twice: bool,
+    /// Input weights of the k-NN and local-linear parts (one per input, finite, ≥ 0): each
+    /// standardized input is multiplied by its weight before any distance, so an input the
+    /// response barely depends on stops pushing neighbours apart (gradient weights, Kpotufe,
+    /// Boularias, Schultz and Kim 2016, *JMLR* 17, from memory; chosen in [`select`]). `None`:
+    /// every input counts alike. Needs `standardize`.
+    pub metric: Option<Vec<f64>>,
 }
 
 impl Choice {
@@ -136,6 +143,26 @@ impl Choice {
             weights: [1.0, 0.0, 0.0],
             cv_r2: None,
             twice: false,
+            metric: None,
+        }
+    }
+
+    /// The standardizer of the k-NN and local-linear parts on rows `x`: the table's mean and
+    /// sd, times the input weights of [`Choice::metric`] when there are any. Errors when the
+    /// weights do not match the inputs.
+    pub fn standardizer(&self, x: ArrayView2<'_, f64>) -> Result<Standardizer, String> {
+        let s = Standardizer::fit(x);
+        match &self.metric {
+            None => Ok(s),
+            Some(w) if w.len() != x.ncols() => Err(format!(
+                "`metric` has {} weights for {} inputs",
+                w.len(),
+                x.ncols()
+            )),
+            Some(w) if w.iter().any(|v| !(v.is_finite() && *v >= 0.0)) => {
+                Err("`metric` weights must be finite numbers >= 0".into())
+            }
+            Some(w) => Ok(s.weighted(w)),
         }
     }
 
@@ -179,6 +206,16 @@ impl Choice {
                 }
                 format!("blended reference: {}", parts.join(" + "))
             }
+        };
+        let plain = match &self.metric {
+            Some(w) if self.weights[0] > 0.0 || self.weights[2] > 0.0 => {
+                let ws: Vec<String> = w.iter().map(|v| format!("{v:.3}")).collect();
+                format!(
+                    "{plain}; neighbour distances weight the inputs by [{}]",
+                    ws.join(", ")
+                )
+            }
+            _ => plain,
         };
         if self.twice {
             format!("{plain}, twiced (refitted to its own residuals and added)")
@@ -274,8 +311,15 @@ impl Reference {
             let k = choice
                 .k
                 .ok_or("needs `k` (the k-NN part: weight, classes or varying noise)")?;
+            let index = match &choice.metric {
+                Some(_) if !choice.standardize => {
+                    return Err("`metric` weights standardized inputs: needs `standardize`".into())
+                }
+                Some(_) => NeighbourIndex::with_standardizer(x, choice.standardizer(x)?),
+                None => NeighbourIndex::new(x, choice.standardize),
+            };
             Some(KnnPart {
-                index: NeighbourIndex::new(x, choice.standardize),
+                index,
                 k: k.clamp(1, n),
             })
         } else {
@@ -291,7 +335,7 @@ impl Reference {
         };
         let loclin = if w[2] > 0.0 {
             let h = choice.bandwidth.ok_or("needs `bandwidth`")?;
-            Some(LocLin::fit(x, &yv, h))
+            Some(LocLin::fit_with(x, &yv, h, choice.standardizer(x)?))
         } else {
             None
         };
@@ -509,6 +553,12 @@ impl Reference {
         }
         if self.choice.twice {
             bytes.extend_from_slice(b"twice");
+        }
+        if let Some(w) = &self.choice.metric {
+            bytes.extend_from_slice(b"metric");
+            for v in w {
+                bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+            }
         }
         crate::codec::fnv1a64(&bytes)
     }
@@ -773,6 +823,9 @@ mod tests {
             weights: [0.2, 0.5, 0.3],
             cv_r2: None,
             twice: false,
+            // Weighted inputs ride along: the k-NN and local-linear parts carry them through
+            // the twicing's one fit on y + r.
+            metric: Some(vec![1.0, 0.6]),
         };
         let once = Reference::fit(x.view(), y.view(), 0, &blend, false, "t").unwrap();
         let r_once: Array1<f64> = (0..n)

@@ -29,6 +29,7 @@ use super::forest::{self, ForestParams};
 use super::loclin::{self, solve_spd};
 use super::{Candidate, Choice, Reference};
 use crate::family::neighbours::{NeighbourIndex, Scratch};
+use crate::family::standardize::Standardizer;
 use crate::rng::{fold_assignment, purpose, stream};
 
 /// Cross-validation folds of the reference choice.
@@ -71,6 +72,10 @@ pub struct Selection {
     pub scores: Vec<Score>,
     /// Folds used.
     pub folds: usize,
+    /// Each input metric tried, `(γ, cross-validated R² of the chosen candidate under it)`, γ
+    /// = 0 first (every input alike; see [`METRIC_POWERS`]). Only γ = 0 with one input or
+    /// when the pilot weights every input alike.
+    pub metric_scores: Vec<(f64, f64)>,
 }
 
 fn mse(y: &[f64], p: &[f64]) -> f64 {
@@ -141,13 +146,14 @@ pub fn nnls(cols: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
     best.1
 }
 
-/// Out-of-fold k-NN predictions for every tried k (`out[c][i]`), standardizing with the whole
-/// table's statistics; returns the tried k values too.
+/// Out-of-fold k-NN predictions for every tried k (`out[c][i]`), on inputs standardized by
+/// `std` (the whole table's statistics, possibly weighted); returns the tried k values too.
 fn knn_out_of_fold(
     x: ArrayView2<'_, f64>,
     y: &[f64],
     fold: &[usize],
     folds: usize,
+    std: &Standardizer,
 ) -> (Vec<usize>, Vec<Vec<f64>>) {
     let n = y.len();
     let min_train = (0..folds)
@@ -163,7 +169,7 @@ fn knn_out_of_fold(
         ks.push(1);
     }
     let kmax = *ks.last().unwrap_or(&1);
-    let index = NeighbourIndex::new(x, true);
+    let index = NeighbourIndex::with_standardizer(x, std.clone());
     let mut scratch = Scratch::default();
     let mut buf = Vec::with_capacity(kmax);
     let mut out = vec![vec![0.0; n]; ks.len()];
@@ -188,20 +194,45 @@ fn knn_out_of_fold(
     (ks, out)
 }
 
-/// Tunes every candidate on the table (rows `x`, responses `y`), builds the blend, and chooses
-/// by `rule`. Deterministic given `seed`. The table needs at least [`FOLDS`] + 1 rows.
-pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selection {
+/// Columns with at most this many distinct values stay on their levels: a twin's smoothed
+/// bootstrap does not jitter them, and [`gradient_weights`] differences them across
+/// neighbouring levels.
+pub const DISCRETE_LEVELS: usize = 10;
+
+/// Exponents γ tried for the input weights of the k-NN and local-linear candidates: each
+/// standardized input is multiplied by `g_j^γ`, where `g` are the [`gradient_weights`] of a
+/// pilot (the bagged trees at their out-of-bag leaf size, fitted on the whole table). γ = 0 is
+/// every input alike; the γ with the highest cross-validated R² of the chosen candidate wins
+/// (ties: the smaller γ).
+pub const METRIC_POWERS: [f64; 3] = [0.0, 0.5, 1.0];
+
+/// The k-NN, local-linear and blend candidates tuned under one input metric.
+struct Tuned {
+    ks: Vec<usize>,
+    ki: usize,
+    li: usize,
+    /// Blend weights of knn, forest, loclin.
+    weights: [f64; 3],
+    /// R² and its SE of knn, forest, loclin, blend.
+    r2: [(f64, f64); 4],
+}
+
+/// Tunes k-NN and local-linear on inputs standardized by `std`, and blends them with the
+/// forest's out-of-bag predictions `forest`.
+fn tune(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    fold: &[usize],
+    folds: usize,
+    std: &Standardizer,
+    forest: &[f64],
+    try_loclin: bool,
+) -> Tuned {
     let n = y.len();
-    let folds = FOLDS.min(n);
-    let mut rng = stream(seed, purpose::TWIN, 0);
-    let fold = fold_assignment(n, folds, &mut rng);
-    let (ks, kp) = knn_out_of_fold(x, y, &fold, folds);
+    let (ks, kp) = knn_out_of_fold(x, y, fold, folds, std);
     let ki = argmin(&kp.iter().map(|p| mse(y, p)).collect::<Vec<_>>());
-    let fp = forest::out_of_bag(x, y, forest::TREES, seed);
-    let fi = argmin(&fp.iter().map(|p| mse(y, p)).collect::<Vec<_>>());
-    let try_loclin = n <= LOCLIN_MAX_ROWS;
     let (li, lp) = if try_loclin {
-        let lp = loclin::out_of_fold(x, y, &fold);
+        let lp = loclin::out_of_fold_with(x, y, fold, std);
         (
             argmin(&lp.iter().map(|p| mse(y, p)).collect::<Vec<_>>()),
             lp,
@@ -209,7 +240,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
     } else {
         (0, Vec::new())
     };
-    let mut level1 = vec![kp[ki].clone(), fp[fi].clone()];
+    let mut level1 = vec![kp[ki].clone(), forest.to_vec()];
     if try_loclin {
         level1.push(lp[li].clone());
     }
@@ -238,12 +269,104 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         },
         r2_se(y, &blend_cv),
     ];
-    let weights = [w[0], w[1], if try_loclin { w[2] } else { 0.0 }];
+    Tuned {
+        ks,
+        ki,
+        li,
+        weights: [w[0], w[1], if try_loclin { w[2] } else { 0.0 }],
+        r2,
+    }
+}
+
+/// The candidate `rule` picks from scores `r2` (knn, forest, loclin, blend; NaN: not tried).
+fn pick(rule: Rule, r2: &[(f64, f64); 4]) -> Candidate {
+    let order = [
+        Candidate::Knn,
+        Candidate::Forest,
+        Candidate::LocLin,
+        Candidate::Blend,
+    ];
+    let chosen = match rule {
+        Rule::Only(c) => c,
+        Rule::Best => {
+            let mut best = 0;
+            for i in 1..4 {
+                if r2[i].0 > r2[best].0 {
+                    best = i;
+                }
+            }
+            order[best]
+        }
+    };
+    if chosen == Candidate::LocLin && r2[2].0.is_nan() {
+        Candidate::Blend
+    } else {
+        chosen
+    }
+}
+
+fn slot(c: Candidate) -> usize {
+    match c {
+        Candidate::Knn => 0,
+        Candidate::Forest => 1,
+        Candidate::LocLin => 2,
+        Candidate::Blend => 3,
+    }
+}
+
+/// Tunes every candidate on the table (rows `x`, responses `y`), builds the blend, and chooses
+/// by `rule`. With two or more inputs the k-NN and local-linear candidates (and so the blend)
+/// are tuned again under gradient-weighted inputs ([`METRIC_POWERS`]) and the metric that
+/// scores best is kept ([`Choice::metric`]). Deterministic given `seed`. The table needs at
+/// least [`FOLDS`] + 1 rows.
+pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selection {
+    let n = y.len();
+    let folds = FOLDS.min(n);
+    let mut rng = stream(seed, purpose::TWIN, 0);
+    let fold = fold_assignment(n, folds, &mut rng);
+    let fp = forest::out_of_bag(x, y, forest::TREES, seed);
+    let fi = argmin(&fp.iter().map(|p| mse(y, p)).collect::<Vec<_>>());
+    let try_loclin = n <= LOCLIN_MAX_ROWS;
     let forest_params = ForestParams {
         trees: forest::TREES,
         min_leaf: forest::LEAF_CANDIDATES[fi],
         seed,
     };
+    let base = Standardizer::fit(x);
+    let mut tried = vec![(
+        0.0,
+        None,
+        tune(x, y, &fold, folds, &base, &fp[fi], try_loclin),
+    )];
+    if x.ncols() >= 2 {
+        let pilot = Choice {
+            family: Candidate::Forest,
+            forest: Some(forest_params),
+            weights: [0.0, 1.0, 0.0],
+            k: None,
+            ..Choice::knn(1, true)
+        };
+        if let Ok(r) = Reference::fit(x, ArrayView1::from(y), 0, &pilot, false, "the pilot") {
+            let g = gradient_weights(x, &r);
+            if g.iter().any(|&v| v != 1.0) {
+                for &power in &METRIC_POWERS[1..] {
+                    let w: Vec<f64> = g.iter().map(|v| v.powf(power)).collect();
+                    let t = tune(x, y, &fold, folds, &base.weighted(&w), &fp[fi], try_loclin);
+                    tried.push((power, Some(w), t));
+                }
+            }
+        }
+    }
+    let score = |t: &Tuned| t.r2[slot(pick(rule, &t.r2))].0;
+    let mut best = 0;
+    for i in 1..tried.len() {
+        if score(&tried[i].2) > score(&tried[best].2) {
+            best = i;
+        }
+    }
+    let metric_scores: Vec<(f64, f64)> = tried.iter().map(|(g, _, t)| (*g, score(t))).collect();
+    let (power, metric, t) = tried.swap_remove(best);
+    let (ks, ki, li, r2) = (t.ks, t.ki, t.li, t.r2);
     let bandwidth = loclin::H_CANDIDATES[li];
     let fmt_w = |w: &[f64; 3]| {
         format!(
@@ -251,12 +374,17 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             w[0], w[1], w[2]
         )
     };
+    let weighted = if metric.is_some() {
+        format!(", inputs weighted (gradient^{power})")
+    } else {
+        String::new()
+    };
     let scores = vec![
         Score {
             candidate: Candidate::Knn,
             r2: r2[0].0,
             se: r2[0].1,
-            tuned: format!("k = {}", ks[ki]),
+            tuned: format!("k = {}{weighted}", ks[ki]),
         },
         Score {
             candidate: Candidate::Forest,
@@ -272,7 +400,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             r2: r2[2].0,
             se: r2[2].1,
             tuned: if try_loclin {
-                format!("bandwidth = {bandwidth} sd")
+                format!("bandwidth = {bandwidth} sd{weighted}")
             } else {
                 format!("not tried: more than {LOCLIN_MAX_ROWS} rows")
             },
@@ -281,39 +409,19 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             candidate: Candidate::Blend,
             r2: r2[3].0,
             se: r2[3].1,
-            tuned: fmt_w(&weights),
+            tuned: fmt_w(&t.weights),
         },
     ];
-    let chosen = match rule {
-        Rule::Only(c) => c,
-        Rule::Best => {
-            let order = [
-                Candidate::Knn,
-                Candidate::Forest,
-                Candidate::LocLin,
-                Candidate::Blend,
-            ];
-            let mut best = 0;
-            for i in 1..4 {
-                if r2[i].0 > r2[best].0 {
-                    best = i;
-                }
-            }
-            order[best]
-        }
-    };
-    let chosen = if chosen == Candidate::LocLin && !try_loclin {
-        Candidate::Blend
-    } else {
-        chosen
-    };
+    let chosen = pick(rule, &r2);
     let weights = match chosen {
         Candidate::Knn => [1.0, 0.0, 0.0],
         Candidate::Forest => [0.0, 1.0, 0.0],
         Candidate::LocLin => [0.0, 0.0, 1.0],
-        Candidate::Blend => weights,
+        Candidate::Blend => t.weights,
     };
     let cv_r2 = [r2[0].0, r2[1].0, r2[2].0, r2[3].0];
+    // The metric only matters to a k-NN or local-linear part; a forest alone keeps none.
+    let metric = metric.filter(|_| weights[0] > 0.0 || weights[2] > 0.0);
     let choice = Choice {
         family: chosen,
         standardize: true,
@@ -323,11 +431,13 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         weights,
         cv_r2: Some(cv_r2),
         twice: false,
+        metric,
     };
     Selection {
         choice,
         scores,
         folds,
+        metric_scores,
     }
 }
 
@@ -393,4 +503,173 @@ pub fn twicing_check(
         once_r2: r2_se(y, &p_once).0,
         twice_r2: r2_se(y, &p_twice).0,
     })
+}
+
+/// Relevance of each input to a reference, for weighting neighbour distances (the
+/// reference's input weights, [`Choice::metric`], and the noise estimator of
+/// [`crate::dgp::twin::correct_noise_weighted`]): the root-mean-square central difference of the reference along
+/// the input, per standard deviation of that input, over the table's rows (steps of a quarter
+/// standard deviation each way, kept inside the observed range; a column of at most
+/// [`DISCRETE_LEVELS`] distinct values steps to the neighbouring levels instead, so a step
+/// between levels is never missed), scaled so that the largest is 1 (all 1 when the reference
+/// is flat or not finite); an input the reference does not use gets 0. Gradient weights for neighbour methods: Kpotufe, Boularias, Schultz and Kim 2016,
+/// "Gradients weights improve regression and classification", *JMLR* 17 (from memory). For the
+/// twin's noise they were measured and not adopted (`docs/twin-calibration.md` §2.5).
+pub fn gradient_weights(x: ArrayView2<'_, f64>, r: &Reference) -> Vec<f64> {
+    let (n, p) = x.dim();
+    let mut w = vec![0.0; p];
+    for (j, wj) in w.iter_mut().enumerate() {
+        let col = x.column(j);
+        let mean = col.sum() / n as f64;
+        let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
+        let (lo, hi) = col
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
+                (a.min(v), b.max(v))
+            });
+        if sd.is_nan() || sd <= 0.0 {
+            continue;
+        }
+        let h = 0.25 * sd;
+        let mut levels: Vec<f64> = col.to_vec();
+        levels.sort_by(f64::total_cmp);
+        levels.dedup();
+        let on_levels = levels.len() <= DISCRETE_LEVELS;
+        let mut up = x.to_owned();
+        let mut down = x.to_owned();
+        let mut span = vec![0.0; n];
+        for i in 0..n {
+            let v = x[[i, j]];
+            let (a, b) = if on_levels {
+                let at = levels.partition_point(|l| *l < v);
+                (
+                    levels[at.saturating_sub(1)],
+                    levels[(at + 1).min(levels.len() - 1)],
+                )
+            } else {
+                ((v - h).max(lo), (v + h).min(hi))
+            };
+            up[[i, j]] = b;
+            down[[i, j]] = a;
+            span[i] = (b - a) / sd;
+        }
+        let fu = r.mean_at_rows(up.view());
+        let fd = r.mean_at_rows(down.view());
+        let ss: f64 = (0..n)
+            .filter(|&i| span[i] > 0.0)
+            .map(|i| ((fu[i] - fd[i]) / span[i]).powi(2))
+            .sum();
+        *wj = (ss / n as f64).sqrt();
+    }
+    let top = w.iter().copied().fold(0.0, f64::max);
+    if top > 0.0 && top.is_finite() {
+        w.iter_mut().for_each(|v| *v /= top);
+    } else {
+        w.iter_mut().for_each(|v| *v = 1.0);
+    }
+    w
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::Array2;
+    use rand::Rng;
+    use rand_distr::{Distribution, StandardNormal};
+
+    /// y depends on the first of four inputs only: the pilot's gradient weights must single it
+    /// out, and the weighted metric must predict better than counting every input alike (with
+    /// three irrelevant inputs the plain neighbours are spread over them).
+    #[test]
+    fn weighted_inputs_find_the_one_input_that_matters() {
+        let mut rng = stream(11, purpose::TWIN, 9);
+        let n = 300;
+        let x = Array2::from_shape_fn((n, 4), |_| rng.gen::<f64>());
+        let y: Vec<f64> = (0..n)
+            .map(|i| {
+                let z: f64 = StandardNormal.sample(&mut rng);
+                (6.0 * x[[i, 0]]).sin() * 2.0 + 0.3 * z
+            })
+            .collect();
+        let sel = select(x.view(), &y, 5, Rule::Best);
+        assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
+        assert_eq!(sel.metric_scores[0].0, 0.0);
+        let plain = sel.metric_scores[0].1;
+        let best = sel
+            .metric_scores
+            .iter()
+            .map(|s| s.1)
+            .fold(f64::NEG_INFINITY, f64::max);
+        let w = sel
+            .choice
+            .metric
+            .clone()
+            .expect("a weighted metric is kept");
+        assert_eq!(w[0], 1.0, "{w:?}");
+        assert!(w[1..].iter().all(|&v| v < 0.5), "{w:?}");
+        // The kept metric is the best scored, and it beats the plain one by more than its SE.
+        let chosen = sel
+            .scores
+            .iter()
+            .map(|s| s.r2)
+            .fold(f64::NEG_INFINITY, f64::max);
+        assert_eq!(chosen, best);
+        let se = sel.scores.iter().map(|s| s.se).fold(0.0, f64::max);
+        assert!(
+            best > plain + se,
+            "weighted {best} vs plain {plain} (SE {se})"
+        );
+        // The recipe refits: the reference built from the choice uses the weights.
+        let r = Reference::fit(x.view(), ArrayView1::from(&y), 0, &sel.choice, false, "t").unwrap();
+        assert!(
+            r.describe().contains("weight the inputs"),
+            "{}",
+            r.describe()
+        );
+    }
+
+    /// A column on four levels that the response steps along: differencing across neighbouring
+    /// levels sees the steps (a quarter-sd step inside a level would see none of them, since a
+    /// tree splits halfway between levels).
+    #[test]
+    fn gradient_weights_see_steps_between_levels() {
+        let mut rng = stream(13, purpose::TWIN, 9);
+        let n = 200;
+        let x = Array2::from_shape_fn((n, 2), |(_, j)| {
+            let u = rng.gen::<f64>();
+            if j == 1 {
+                (4.0 * u).floor()
+            } else {
+                u
+            }
+        });
+        let y: Vec<f64> = (0..n).map(|i| 2.0 * x[[i, 1]] + 0.1 * x[[i, 0]]).collect();
+        let pilot = Choice {
+            family: Candidate::Forest,
+            forest: Some(ForestParams {
+                trees: 20,
+                min_leaf: 5,
+                seed: 1,
+            }),
+            weights: [0.0, 1.0, 0.0],
+            k: None,
+            ..Choice::knn(1, true)
+        };
+        let r = Reference::fit(x.view(), ArrayView1::from(&y), 0, &pilot, false, "t").unwrap();
+        let w = gradient_weights(x.view(), &r);
+        assert_eq!(w[1], 1.0, "{w:?}");
+        assert!(w[0] < 0.2, "{w:?}");
+    }
+
+    /// One input: nothing to weight, only the plain metric is scored.
+    #[test]
+    fn one_input_scores_the_plain_metric_only() {
+        let mut rng = stream(12, purpose::TWIN, 9);
+        let n = 60;
+        let x = Array2::from_shape_fn((n, 1), |_| rng.gen::<f64>());
+        let y: Vec<f64> = (0..n).map(|i| x[[i, 0]] + 0.1 * rng.gen::<f64>()).collect();
+        let sel = select(x.view(), &y, 5, Rule::Best);
+        assert_eq!(sel.metric_scores.len(), 1);
+        assert!(sel.choice.metric.is_none());
+    }
 }
