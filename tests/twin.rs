@@ -277,6 +277,10 @@ fn bad_twin_scenarios_name_the_key() {
             "data.reference.metric",
         ),
         (
+            "reference = { family = \"loclin\", bandwidth = 0.5, metric = [1e300] }\n[data.noise]\nsd = 0.5\n",
+            "data.reference.metric",
+        ),
+        (
             "reference = { family = \"knn\", k = 3, standardize = false, metric = [1.0] }\n[data.noise]\nsd = 0.5\n",
             "data.reference.metric",
         ),

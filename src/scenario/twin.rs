@@ -116,6 +116,10 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
     })
 }
 
+/// Largest input weight of `metric` (the twin writes weights scaled so the largest is 1; a
+/// weight far above that would overflow squared distances).
+const MAX_METRIC_WEIGHT: f64 = 1e6;
+
 /// The recipe written in `reference`, checked against a table of `rows` rows (`classes > 0`:
 /// classification, whose reference is k-NN). Errors name the key.
 fn choice_of(
@@ -273,9 +277,12 @@ fn choice_of(
                     "has {} weights for the table's {inputs} inputs",
                     w.len()
                 ))
-            } else if let Some(v) = w.iter().find(|v| !(v.is_finite() && **v >= 0.0)) {
+            } else if let Some(v) = w
+                .iter()
+                .find(|v| !(v.is_finite() && (0.0..=MAX_METRIC_WEIGHT).contains(*v)))
+            {
                 Some(format!(
-                    "weights must be finite numbers >= 0, got {}",
+                    "weights must be numbers between 0 and {MAX_METRIC_WEIGHT}, got {}",
                     crate::fmt::fmt_exact(*v)
                 ))
             } else if !w.iter().any(|v| *v > 0.0) {
