@@ -432,6 +432,14 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     let tw = doc.scenario.twin.clone().expect("twin section");
     assert_eq!(tw.jitter, 1.0);
     assert_eq!(tw.cv_r2.len(), 4);
+    // The input weights of the reference's distances are echoed, in the table's input order,
+    // and the HTML report's description says so.
+    assert_eq!(Some(tw.input_weights.clone()), refit.choice.metric);
+    let words = lossprism::report::html::scenario_words(&doc).join(" ");
+    assert!(
+        words.contains("neighbour distances weight the standardized inputs by"),
+        "{words}"
+    );
     let f = tw.fidelity.clone().expect("fidelity echoed");
     assert_eq!((f.tables, f.replicates, f.models.len()), (2, 12, 2));
     // The twin's own run is at the scenario's replicates, and the echo says it is twiced.
