@@ -82,7 +82,8 @@ pub const PILOT_MIN_LEAF: usize = 5;
 /// tables' `0..NOISE_TABLES` and from the fidelity check's streams).
 pub const PILOT_STREAM: u64 = 1 << 40;
 
-pub use super::reference::select::DISCRETE_LEVELS;
+/// Columns with at most this many distinct values stay on their levels.
+pub const DISCRETE_LEVELS: usize = 10;
 
 /// The smoothed bootstrap of a table's rows.
 #[derive(Debug, Clone, PartialEq)]

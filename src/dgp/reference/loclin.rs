@@ -195,12 +195,8 @@ impl LocLin {
 }
 
 /// Out-of-fold predictions for every bandwidth of [`H_CANDIDATES`] (`out[c][i]`: row i predicted
-/// from the rows of the other folds), standardizing with the whole table's statistics.
-pub fn out_of_fold(x: ArrayView2<'_, f64>, y: &[f64], fold: &[usize]) -> Vec<Vec<f64>> {
-    out_of_fold_with(x, y, fold, &Standardizer::fit(x))
-}
-
-/// [`out_of_fold`] with inputs standardized by `std`.
+/// from the rows of the other folds), on inputs standardized by `std` (the whole table's
+/// statistics, possibly with weighted inputs).
 pub fn out_of_fold_with(
     x: ArrayView2<'_, f64>,
     y: &[f64],

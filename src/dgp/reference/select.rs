@@ -194,17 +194,14 @@ fn knn_out_of_fold(
     (ks, out)
 }
 
-/// Columns with at most this many distinct values stay on their levels: a twin's smoothed
-/// bootstrap does not jitter them, and [`gradient_weights`] differences them across
-/// neighbouring levels.
-pub const DISCRETE_LEVELS: usize = 10;
-
 /// Exponents γ tried for the input weights of the k-NN and local-linear candidates: each
 /// standardized input is multiplied by `g_j^γ`, where `g` are the [`gradient_weights`] of a
 /// pilot (the bagged trees at their out-of-bag leaf size, fitted on the whole table). γ = 0 is
 /// every input alike; the γ with the highest cross-validated R² of the chosen candidate wins
 /// (ties: the smaller γ).
 pub const METRIC_POWERS: [f64; 3] = [0.0, 0.5, 1.0];
+// The weighted metrics are g^½ (`sqrt`) and g itself; `select` relies on these two powers.
+const _: () = assert!(METRIC_POWERS[1] == 0.5 && METRIC_POWERS[2] == 1.0);
 
 /// The k-NN, local-linear and blend candidates tuned under one input metric.
 struct Tuned {
@@ -338,7 +335,8 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         None,
         tune(x, y, &fold, folds, &base, &fp[fi], try_loclin),
     )];
-    if x.ncols() >= 2 {
+    // Weights only matter to k-NN and local-linear: a forced forest skips their tuning.
+    if x.ncols() >= 2 && rule != Rule::Only(Candidate::Forest) {
         let pilot = Choice {
             family: Candidate::Forest,
             forest: Some(forest_params),
@@ -350,7 +348,11 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             let g = gradient_weights(x, &r);
             if g.iter().any(|&v| v != 1.0) {
                 for &power in &METRIC_POWERS[1..] {
-                    let w: Vec<f64> = g.iter().map(|v| v.powf(power)).collect();
+                    // No libm `powf`: the same bits on every platform.
+                    let w: Vec<f64> = g
+                        .iter()
+                        .map(|&v| if power == 0.5 { v.sqrt() } else { v })
+                        .collect();
                     let t = tune(x, y, &fold, folds, &base.weighted(&w), &fp[fi], try_loclin);
                     tried.push((power, Some(w), t));
                 }
@@ -420,8 +422,8 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         Candidate::Blend => t.weights,
     };
     let cv_r2 = [r2[0].0, r2[1].0, r2[2].0, r2[3].0];
-    // The metric only matters to a k-NN or local-linear part; a forest alone keeps none.
-    let metric = metric.filter(|_| weights[0] > 0.0 || weights[2] > 0.0);
+    // Kept as scored (a forest part ignores it; a blend with no k-NN or local-linear share
+    // still has `k` tuned under it, which varying noise uses).
     let choice = Choice {
         family: chosen,
         standardize: true,
@@ -505,16 +507,18 @@ pub fn twicing_check(
     })
 }
 
-/// Relevance of each input to a reference, for weighting neighbour distances (the
-/// reference's input weights, [`Choice::metric`], and the noise estimator of
-/// [`crate::dgp::twin::correct_noise_weighted`]): the root-mean-square central difference of the reference along
-/// the input, per standard deviation of that input, over the table's rows (steps of a quarter
-/// standard deviation each way, kept inside the observed range; a column of at most
-/// [`DISCRETE_LEVELS`] distinct values steps to the neighbouring levels instead, so a step
-/// between levels is never missed), scaled so that the largest is 1 (all 1 when the reference
-/// is flat or not finite); an input the reference does not use gets 0. Gradient weights for neighbour methods: Kpotufe, Boularias, Schultz and Kim 2016,
-/// "Gradients weights improve regression and classification", *JMLR* 17 (from memory). For the
-/// twin's noise they were measured and not adopted (`docs/twin-calibration.md` §2.5).
+/// Relevance of each input to a reference, for weighting neighbour distances (the reference's
+/// input weights, [`Choice::metric`], and the noise estimator of
+/// [`crate::dgp::twin::correct_noise_weighted`]): the root-mean-square central difference of the
+/// reference along the input, per standard deviation of that input, over the table's rows
+/// (steps of a quarter standard deviation each way, and at least to the neighbouring observed
+/// value, so a column on levels or a grid coarser than the step — where trees split halfway
+/// between values — is never read as flat; kept inside the observed range), scaled so that the
+/// largest is 1 (all 1 when the reference is flat or not finite); an input the reference does
+/// not use gets 0.
+/// Gradient weights for neighbour methods: Kpotufe, Boularias, Schultz and Kim 2016, "Gradients
+/// weights improve regression and classification", *JMLR* 17 (from memory). For the twin's noise
+/// they were measured and not adopted (`docs/twin-calibration.md` §2.5).
 pub fn gradient_weights(x: ArrayView2<'_, f64>, r: &Reference) -> Vec<f64> {
     let (n, p) = x.dim();
     let mut w = vec![0.0; p];
@@ -534,21 +538,15 @@ pub fn gradient_weights(x: ArrayView2<'_, f64>, r: &Reference) -> Vec<f64> {
         let mut levels: Vec<f64> = col.to_vec();
         levels.sort_by(f64::total_cmp);
         levels.dedup();
-        let on_levels = levels.len() <= DISCRETE_LEVELS;
         let mut up = x.to_owned();
         let mut down = x.to_owned();
         let mut span = vec![0.0; n];
         for i in 0..n {
             let v = x[[i, j]];
-            let (a, b) = if on_levels {
-                let at = levels.partition_point(|l| *l < v);
-                (
-                    levels[at.saturating_sub(1)],
-                    levels[(at + 1).min(levels.len() - 1)],
-                )
-            } else {
-                ((v - h).max(lo), (v + h).min(hi))
-            };
+            let at = levels.partition_point(|l| *l < v);
+            let prev = levels[at.saturating_sub(1)];
+            let next = levels[(at + 1).min(levels.len() - 1)];
+            let (a, b) = ((v - h).min(prev).max(lo), (v + h).max(next).min(hi));
             up[[i, j]] = b;
             down[[i, j]] = a;
             span[i] = (b - a) / sd;
@@ -626,6 +624,46 @@ mod tests {
             "{}",
             r.describe()
         );
+    }
+
+    /// A column of counts (12 levels, most rows 0 or 1, sd about 1.4) that the response steps
+    /// along between 0 and 1: a quarter-sd step (0.35) never reaches the split halfway between
+    /// them; stepping at least to the neighbouring observed value does.
+    #[test]
+    fn gradient_weights_see_steps_on_a_coarse_grid() {
+        let mut rng = stream(14, purpose::TWIN, 9);
+        let n = 300;
+        let x = Array2::from_shape_fn((n, 2), |(i, j)| {
+            let u = rng.gen::<f64>();
+            if j == 1 {
+                // Mostly 0 and 1, and each of 2..=11 at least once.
+                if i < 10 {
+                    (i + 2) as f64
+                } else {
+                    (u < 0.5) as u8 as f64
+                }
+            } else {
+                u
+            }
+        });
+        let y: Vec<f64> = (0..n)
+            .map(|i| 2.0 * (x[[i, 1]] >= 1.0) as u8 as f64 + 0.1 * x[[i, 0]])
+            .collect();
+        let pilot = Choice {
+            family: Candidate::Forest,
+            forest: Some(ForestParams {
+                trees: 20,
+                min_leaf: 5,
+                seed: 1,
+            }),
+            weights: [0.0, 1.0, 0.0],
+            k: None,
+            ..Choice::knn(1, true)
+        };
+        let r = Reference::fit(x.view(), ArrayView1::from(&y), 0, &pilot, false, "t").unwrap();
+        let w = gradient_weights(x.view(), &r);
+        assert_eq!(w[1], 1.0, "{w:?}");
+        assert!(w[0] < 0.2, "{w:?}");
     }
 
     /// A column on four levels that the response steps along: differencing across neighbouring
