@@ -626,6 +626,23 @@ mod tests {
         );
     }
 
+    /// Gradient weights of a small bagged-tree pilot fitted on `(x, y)`.
+    fn pilot_weights(x: &Array2<f64>, y: &[f64]) -> Vec<f64> {
+        let pilot = Choice {
+            family: Candidate::Forest,
+            forest: Some(ForestParams {
+                trees: 20,
+                min_leaf: 5,
+                seed: 1,
+            }),
+            weights: [0.0, 1.0, 0.0],
+            k: None,
+            ..Choice::knn(1, true)
+        };
+        let r = Reference::fit(x.view(), ArrayView1::from(y), 0, &pilot, false, "t").unwrap();
+        gradient_weights(x.view(), &r)
+    }
+
     /// A column of counts (12 levels, most rows 0 or 1, sd about 1.4) that the response steps
     /// along between 0 and 1: a quarter-sd step (0.35) never reaches the split halfway between
     /// them; stepping at least to the neighbouring observed value does.
@@ -649,19 +666,7 @@ mod tests {
         let y: Vec<f64> = (0..n)
             .map(|i| 2.0 * (x[[i, 1]] >= 1.0) as u8 as f64 + 0.1 * x[[i, 0]])
             .collect();
-        let pilot = Choice {
-            family: Candidate::Forest,
-            forest: Some(ForestParams {
-                trees: 20,
-                min_leaf: 5,
-                seed: 1,
-            }),
-            weights: [0.0, 1.0, 0.0],
-            k: None,
-            ..Choice::knn(1, true)
-        };
-        let r = Reference::fit(x.view(), ArrayView1::from(&y), 0, &pilot, false, "t").unwrap();
-        let w = gradient_weights(x.view(), &r);
+        let w = pilot_weights(&x, &y);
         assert_eq!(w[1], 1.0, "{w:?}");
         assert!(w[0] < 0.2, "{w:?}");
     }
@@ -682,19 +687,7 @@ mod tests {
             }
         });
         let y: Vec<f64> = (0..n).map(|i| 2.0 * x[[i, 1]] + 0.1 * x[[i, 0]]).collect();
-        let pilot = Choice {
-            family: Candidate::Forest,
-            forest: Some(ForestParams {
-                trees: 20,
-                min_leaf: 5,
-                seed: 1,
-            }),
-            weights: [0.0, 1.0, 0.0],
-            k: None,
-            ..Choice::knn(1, true)
-        };
-        let r = Reference::fit(x.view(), ArrayView1::from(&y), 0, &pilot, false, "t").unwrap();
-        let w = gradient_weights(x.view(), &r);
+        let w = pilot_weights(&x, &y);
         assert_eq!(w[1], 1.0, "{w:?}");
         assert!(w[0] < 0.2, "{w:?}");
     }
