@@ -8,7 +8,7 @@ use std::path::Path;
 use std::sync::Arc;
 
 use crate::dataset::{self, Missing, Table, TableOptions, TargetKind};
-use crate::dgp::reference::{Candidate, Choice, ForestParams, Reference};
+use crate::dgp::reference::{metric_problem, Candidate, Choice, ForestParams, Reference};
 use crate::dgp::twin::{FidelityModel, FidelityRecord, FitReport, Jitter, NoiseRecord};
 use crate::dgp::{ClassKind, ClassModel, Input, InputDist, Noise, Response, Synthetic, Truth};
 use crate::error::ScenarioError;
@@ -115,10 +115,6 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
         eval_at_design: spec.eval_at_design,
     })
 }
-
-/// Largest input weight of `metric` (the twin writes weights scaled so the largest is 1; a
-/// weight far above that would overflow squared distances).
-const MAX_METRIC_WEIGHT: f64 = 1e6;
 
 /// The recipe written in `reference`, checked against a table of `rows` rows (`classes > 0`:
 /// classification, whose reference is k-NN). Errors name the key.
@@ -271,31 +267,10 @@ fn choice_of(
     let metric = match &r.metric {
         None => None,
         Some(m) => {
-            let w = m.get_ref();
-            let problem = if w.len() != inputs {
-                Some(format!(
-                    "has {} weights for the table's {inputs} inputs",
-                    w.len()
-                ))
-            } else if let Some(v) = w
-                .iter()
-                .find(|v| !(v.is_finite() && (0.0..=MAX_METRIC_WEIGHT).contains(*v)))
-            {
-                Some(format!(
-                    "weights must be numbers between 0 and {MAX_METRIC_WEIGHT}, got {}",
-                    crate::fmt::fmt_exact(*v)
-                ))
-            } else if !w.iter().any(|v| *v > 0.0) {
-                Some("needs at least one weight > 0".into())
-            } else if !standardize {
-                Some("weights standardized inputs: remove `standardize = false`".into())
-            } else {
-                None
-            };
-            if let Some(msg) = problem {
+            if let Some(msg) = metric_problem(m.get_ref(), inputs, standardize) {
                 return Err(err(m.span(), "data.reference.metric", msg));
             }
-            Some(w.clone())
+            Some(m.get_ref().clone())
         }
     };
     Ok(Choice {

@@ -154,15 +154,10 @@ impl Choice {
         let s = Standardizer::fit(x);
         match &self.metric {
             None => Ok(s),
-            Some(w) if w.len() != x.ncols() => Err(format!(
-                "`metric` has {} weights for {} inputs",
-                w.len(),
-                x.ncols()
-            )),
-            Some(w) if w.iter().any(|v| !(v.is_finite() && *v >= 0.0)) => {
-                Err("`metric` weights must be finite numbers >= 0".into())
-            }
-            Some(w) => Ok(s.weighted(w)),
+            Some(w) => match metric_problem(w, x.ncols(), self.standardize) {
+                Some(msg) => Err(format!("`metric` {msg}")),
+                None => Ok(s.weighted(w)),
+            },
         }
     }
 
@@ -222,6 +217,35 @@ impl Choice {
         } else {
             plain
         }
+    }
+}
+
+/// Largest input weight of [`Choice::metric`] (`select` writes weights scaled so the largest is
+/// 1; a weight far above that would overflow squared distances).
+pub const MAX_METRIC_WEIGHT: f64 = 1e6;
+
+/// What is wrong with input weights `w` for a table of `inputs` inputs (the one check of
+/// [`Choice::metric`], for scenario files and library callers alike), or `None`.
+pub fn metric_problem(w: &[f64], inputs: usize, standardize: bool) -> Option<String> {
+    if w.len() != inputs {
+        Some(format!(
+            "has {} weights for the table's {inputs} inputs",
+            w.len()
+        ))
+    } else if let Some(v) = w
+        .iter()
+        .find(|v| !(v.is_finite() && (0.0..=MAX_METRIC_WEIGHT).contains(*v)))
+    {
+        Some(format!(
+            "weights must be numbers between 0 and {MAX_METRIC_WEIGHT}, got {}",
+            crate::fmt::fmt_exact(*v)
+        ))
+    } else if !w.iter().any(|v| *v > 0.0) {
+        Some("needs at least one weight > 0".into())
+    } else if !standardize {
+        Some("weights standardized inputs: remove `standardize = false`".into())
+    } else {
+        None
     }
 }
 
@@ -312,9 +336,6 @@ impl Reference {
                 .k
                 .ok_or("needs `k` (the k-NN part: weight, classes or varying noise)")?;
             let index = match &choice.metric {
-                Some(_) if !choice.standardize => {
-                    return Err("`metric` weights standardized inputs: needs `standardize`".into())
-                }
                 Some(_) => NeighbourIndex::with_standardizer(x, choice.standardizer(x)?),
                 None => NeighbourIndex::new(x, choice.standardize),
             };

@@ -521,23 +521,18 @@ pub fn twicing_check(
 /// they were measured and not adopted (`docs/twin-calibration.md` §2.5).
 pub fn gradient_weights(x: ArrayView2<'_, f64>, r: &Reference) -> Vec<f64> {
     let (n, p) = x.dim();
+    let std = Standardizer::fit(x);
     let mut w = vec![0.0; p];
     for (j, wj) in w.iter_mut().enumerate() {
-        let col = x.column(j);
-        let mean = col.sum() / n as f64;
-        let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n as f64).sqrt();
-        let (lo, hi) = col
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &v| {
-                (a.min(v), b.max(v))
-            });
-        if sd.is_nan() || sd <= 0.0 {
+        if std.constant[j] {
             continue;
         }
+        let sd = std.sd[j];
         let h = 0.25 * sd;
-        let mut levels: Vec<f64> = col.to_vec();
+        let mut levels: Vec<f64> = x.column(j).to_vec();
         levels.sort_by(f64::total_cmp);
         levels.dedup();
+        let (lo, hi) = (levels[0], levels[levels.len() - 1]);
         let mut up = x.to_owned();
         let mut down = x.to_owned();
         let mut span = vec![0.0; n];
