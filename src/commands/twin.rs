@@ -426,7 +426,20 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
         let tried: Vec<String> = sel
             .metric_scores
             .iter()
-            .map(|(g, r2)| format!("γ = {g}: {}", fmt_num(*r2)))
+            .map(|m| {
+                if m.power == 0.0 {
+                    format!("γ = 0: {}", fmt_num(m.r2))
+                } else {
+                    format!(
+                        "γ = {}: {} (gain {} ± {}{})",
+                        m.power,
+                        fmt_num(m.r2),
+                        fmt_num(m.gain.0),
+                        fmt_se(m.gain.1),
+                        if m.clears { "" } else { ", within one SE" }
+                    )
+                }
+            })
             .collect();
         let kept = match &sel.choice.metric {
             Some(w) => {
@@ -441,7 +454,8 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
         };
         v.push(format!(
             "Input weights of the k-NN and local-linear distances (gradient of a bagged-tree \
-             pilot to the power γ; cross-validated R² of the chosen candidate): {}; {kept}.",
+             pilot to the power γ; cross-validated R² of the chosen candidate, and its paired gain over \
+             γ = 0, kept only above one SE): {}; {kept}.",
             tried.join(", ")
         ));
     }

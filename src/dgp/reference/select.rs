@@ -72,10 +72,23 @@ pub struct Selection {
     pub scores: Vec<Score>,
     /// Folds used.
     pub folds: usize,
-    /// Each input metric tried, `(γ, cross-validated R² of the chosen candidate under it)`, γ
-    /// = 0 first (every input alike; see [`METRIC_POWERS`]). Only γ = 0 with one input or
-    /// when the pilot weights every input alike.
-    pub metric_scores: Vec<(f64, f64)>,
+    /// Each input metric tried, γ = 0 first (every input alike; see [`METRIC_POWERS`]). Only
+    /// γ = 0 with one input or when the pilot weights every input alike.
+    pub metric_scores: Vec<MetricScore>,
+}
+
+/// One input metric's score in the reference choice.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct MetricScore {
+    /// The power γ of the gradient weights (0: every input alike).
+    pub power: f64,
+    /// Cross-validated R² of the candidate the rule picks under this metric.
+    pub r2: f64,
+    /// Its gain in R² over every input alike (γ = 0), row by row on the same held-out
+    /// predictions, and the standard error of that paired gain (both 0 for γ = 0).
+    pub gain: (f64, f64),
+    /// Whether the gain clears [`metric_guard`]'s bar (false for γ = 0).
+    pub clears: bool,
 }
 
 fn mse(y: &[f64], p: &[f64]) -> f64 {
@@ -197,8 +210,9 @@ fn knn_out_of_fold(
 /// Exponents γ tried for the input weights of the k-NN and local-linear candidates: each
 /// standardized input is multiplied by `g_j^γ`, where `g` are the [`gradient_weights`] of a
 /// pilot (the bagged trees at their out-of-bag leaf size, fitted on the whole table). γ = 0 is
-/// every input alike; the γ with the highest cross-validated R² of the chosen candidate wins
-/// (ties: the smaller γ).
+/// every input alike, and stays unless a weighted γ's chosen candidate beats it by more than
+/// one paired standard error ([`metric_guard`]); among those that do, the highest
+/// cross-validated R² wins (ties: the smaller γ).
 pub const METRIC_POWERS: [f64; 3] = [0.0, 0.5, 1.0];
 // The weighted metrics are g^½ (`sqrt`) and g itself; `select` relies on these two powers.
 const _: () = assert!(METRIC_POWERS[1] == 0.5 && METRIC_POWERS[2] == 1.0);
@@ -212,6 +226,8 @@ struct Tuned {
     weights: [f64; 3],
     /// R² and its SE of knn, forest, loclin, blend.
     r2: [(f64, f64); 4],
+    /// Held-out predictions of knn, forest, loclin (empty when not tried), blend.
+    held_out: [Vec<f64>; 4],
 }
 
 /// Tunes k-NN and local-linear on inputs standardized by `std`, and blends them with the
@@ -266,13 +282,47 @@ fn tune(
         },
         r2_se(y, &blend_cv),
     ];
+    let loclin_cv = if try_loclin {
+        level1.pop().unwrap_or_default()
+    } else {
+        Vec::new()
+    };
+    let forest_cv = level1.pop().unwrap_or_default();
+    let knn_cv = level1.pop().unwrap_or_default();
     Tuned {
         ks,
         ki,
         li,
         weights: [w[0], w[1], if try_loclin { w[2] } else { 0.0 }],
         r2,
+        held_out: [knn_cv, forest_cv, loclin_cv, blend_cv],
     }
+}
+
+/// The gain in cross-validated R² of held-out predictions `weighted` over `plain`, and its
+/// standard error, from the paired row-by-row differences of squared error: `gain =
+/// mean_i d_i / var(y)`, `d_i = (y_i − plain_i)² − (y_i − weighted_i)²`, SE = sd(d)/√n /
+/// var(y). Pairing removes the rows' shared difficulty, which the candidates' own SEs carry.
+pub fn paired_gain(y: &[f64], plain: &[f64], weighted: &[f64]) -> (f64, f64) {
+    let n = y.len() as f64;
+    let ym = y.iter().sum::<f64>() / n;
+    let var = y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n;
+    let d: Vec<f64> = (0..y.len())
+        .map(|i| (y[i] - plain[i]).powi(2) - (y[i] - weighted[i]).powi(2))
+        .collect();
+    let m = d.iter().sum::<f64>() / n;
+    let sd = (d.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / (n - 1.0)).sqrt();
+    (m / var, sd / n.sqrt() / var)
+}
+
+/// The bar a weighted metric's paired [`gain`](paired_gain) must clear to be kept over every
+/// input alike: more than one standard error of the gain. This is the one-standard-error rule
+/// of model choice (Breiman, Friedman, Olshen and Stone 1984, *Classification and Regression
+/// Trees*, §3.4.3; Hastie, Tibshirani and Friedman 2009, *The Elements of Statistical
+/// Learning*, §7.10; both from memory) applied to the paired difference: the plainer metric
+/// stays unless the data show the weights help. Measured in `docs/twin-calibration.md` §0.2.
+pub fn metric_guard(gain: (f64, f64)) -> bool {
+    gain.0 > gain.1
 }
 
 /// The candidate `rule` picks from scores `r2` (knn, forest, loclin, blend; NaN: not tried).
@@ -313,8 +363,8 @@ fn slot(c: Candidate) -> usize {
 
 /// Tunes every candidate on the table (rows `x`, responses `y`), builds the blend, and chooses
 /// by `rule`. With two or more inputs the k-NN and local-linear candidates (and so the blend)
-/// are tuned again under gradient-weighted inputs ([`METRIC_POWERS`]) and the metric that
-/// scores best is kept ([`Choice::metric`]). Deterministic given `seed`. The table needs at
+/// are tuned again under gradient-weighted inputs ([`METRIC_POWERS`]); a weighted metric is
+/// kept ([`Choice::metric`]) only when it clears [`metric_guard`]. Deterministic given `seed`. The table needs at
 /// least [`FOLDS`] + 1 rows.
 pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selection {
     let n = y.len();
@@ -359,14 +409,37 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             }
         }
     }
-    let score = |t: &Tuned| t.r2[slot(pick(rule, &t.r2))].0;
+    let chosen_of = |t: &Tuned| slot(pick(rule, &t.r2));
+    let metric_scores: Vec<MetricScore> = tried
+        .iter()
+        .enumerate()
+        .map(|(i, (power, _, t))| {
+            let gain = if i == 0 {
+                (0.0, 0.0)
+            } else {
+                let plain = &tried[0].2;
+                paired_gain(
+                    y,
+                    &plain.held_out[chosen_of(plain)],
+                    &t.held_out[chosen_of(t)],
+                )
+            };
+            MetricScore {
+                power: *power,
+                r2: t.r2[chosen_of(t)].0,
+                gain,
+                clears: i > 0 && metric_guard(gain),
+            }
+        })
+        .collect();
+    // The plain metric unless a weighted one clears the bar; among those that do, the highest
+    // R² (ties: the smaller γ).
     let mut best = 0;
-    for i in 1..tried.len() {
-        if score(&tried[i].2) > score(&tried[best].2) {
+    for (i, m) in metric_scores.iter().enumerate().skip(1) {
+        if m.clears && (best == 0 || m.r2 > metric_scores[best].r2) {
             best = i;
         }
     }
-    let metric_scores: Vec<(f64, f64)> = tried.iter().map(|(g, _, t)| (*g, score(t))).collect();
     let (power, metric, t) = tried.swap_remove(best);
     let (ks, ki, li, r2) = (t.ks, t.ki, t.li, t.r2);
     let bandwidth = loclin::H_CANDIDATES[li];
@@ -586,13 +659,16 @@ mod tests {
             .collect();
         let sel = select(x.view(), &y, 5, Rule::Best);
         assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
-        assert_eq!(sel.metric_scores[0].0, 0.0);
-        let plain = sel.metric_scores[0].1;
+        assert_eq!(sel.metric_scores[0].power, 0.0);
+        assert!(!sel.metric_scores[0].clears);
+        let plain = sel.metric_scores[0].r2;
         let best = sel
             .metric_scores
             .iter()
-            .map(|s| s.1)
+            .map(|s| s.r2)
             .fold(f64::NEG_INFINITY, f64::max);
+        let kept = sel.metric_scores.iter().find(|s| s.r2 == best).unwrap();
+        assert!(kept.clears && kept.gain.0 > kept.gain.1, "{kept:?}");
         let w = sel
             .choice
             .metric
@@ -685,6 +761,25 @@ mod tests {
         let w = pilot_weights(&x, &y);
         assert_eq!(w[1], 1.0, "{w:?}");
         assert!(w[0] < 0.2, "{w:?}");
+    }
+
+    /// The paired gain against a hand computation, and the guard's two sides: equal predictions
+    /// gain nothing and are not kept; a gain of half a standard error is not kept either.
+    #[test]
+    fn paired_gain_and_the_one_se_guard() {
+        let y = [1.0, 2.0, 3.0, 4.0];
+        let plain = [1.5, 2.5, 2.5, 4.5];
+        let weighted = [1.0, 2.5, 3.0, 4.0];
+        // d = 0.25 − 0, 0.25 − 0.25, 0.25 − 0, 0.25 − 0 = [0.25, 0, 0.25, 0.25]; var(y) = 1.25.
+        let (g, se) = paired_gain(&y, &plain, &weighted);
+        let sd = (3.0f64 * 0.0625f64.powi(2) + 0.1875f64.powi(2)).sqrt() / 3.0f64.sqrt();
+        assert!((g - 0.1875 / 1.25).abs() < 1e-15, "{g}");
+        assert!((se - sd / 2.0 / 1.25).abs() < 1e-15, "{se} {sd}");
+        assert!(metric_guard((g, se)));
+        assert_eq!(paired_gain(&y, &plain, &plain), (0.0, 0.0));
+        assert!(!metric_guard((0.0, 0.0)));
+        assert!(!metric_guard((0.01, 0.02)));
+        assert!(metric_guard((0.03, 0.02)));
     }
 
     /// One input: nothing to weight, only the plain metric is scored.
