@@ -557,8 +557,13 @@ fn noise_line(n: &NoiseCorrection) -> String {
         String::new()
     };
     format!(
-        "Noise ({}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from that fit, and the reference's possible error){}.{check}",
+        "Noise ({}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from that fit, and the reference's possible error){}.{check}",
         n.method.describe(),
+        if n.weighted {
+            "; neighbour distances weight the inputs as the reference does"
+        } else {
+            ""
+        },
         fmt_num(n.raw),
         fmt_se(n.raw_se),
         fmt_num(n.correction),

@@ -231,6 +231,8 @@ pub struct NoiseCorrection {
     pub tables: usize,
     /// `true` when the floor (5% of raw) replaced `raw − correction`.
     pub floored: bool,
+    /// `true` when the estimator's neighbour distances weighted the inputs.
+    pub weighted: bool,
 }
 
 impl NoiseCorrection {
@@ -386,6 +388,7 @@ pub fn correct_noise_weighted(
         pilot_excess,
         tables,
         floored,
+        weighted: weights.is_some(),
     })
 }
 
@@ -478,7 +481,18 @@ pub fn fit_regression(
     // the table's noise, whose roughness the correction would count as the truth's and subtract
     // (measured: docs/twin-calibration.md §0).
     let method = method.unwrap_or(noise::default_method(x.ncols()));
-    let noise = correct_noise(method, x, y, &once_rows, NOISE_TABLES, seed);
+    // The estimator measures distance as the reference does: with the input weights the
+    // choice kept, inputs the response barely depends on no longer spread the neighbours
+    // (measured: docs/twin-calibration.md §0.2).
+    let noise = correct_noise_weighted(
+        method,
+        x,
+        selection.choice.metric.as_deref(),
+        y,
+        &once_rows,
+        NOISE_TABLES,
+        seed,
+    );
     let check = match twicing {
         Twicing::Auto if x.ncols() < TWICE_FROM_INPUTS => {
             select::twicing_check(x, y, seed, &selection.choice)
