@@ -20,7 +20,9 @@
 //! complex models look better than on new inputs.
 //!
 //! **Noise** ([`correct_noise`]): the raw estimate of a table estimator
-//! ([`crate::dataset::noise`], [`noise::default_method`] by default) carries a roughness bias.
+//! ([`crate::dataset::noise`], [`noise::default_method`] by default; its neighbour distances
+//! weight the inputs as the reference's kept metric does, [`correct_noise_weighted`], so inputs
+//! the response barely depends on do not spread the neighbours) carries a roughness bias.
 //! Every estimator there is a quadratic form with `E[σ̂² | x] = σ² + est(x, f)`, so applying
 //! the estimator to tables `y* = f̂(x_i) + σ ε` drawn from the twin at the table's own rows (a
 //! parametric bootstrap; the design is held fixed because the bias depends on the neighbour
@@ -450,7 +452,8 @@ pub struct RegressionFit {
 
 /// Fits a regression twin on rows `x` and responses `y`: chooses the reference by `rule`
 /// ([`select`]), fits it, and corrects the noise estimate of `method` (default
-/// [`noise::default_method`]) with [`NOISE_TABLES`] bootstrap tables, using the fit made once.
+/// [`noise::default_method`]; distances under the choice's input weights, when it kept some)
+/// with [`NOISE_TABLES`] bootstrap tables, using the fit made once.
 /// When `twicing` says so, the twin's truth is the twiced fit ([`Reference::twiced`]): a
 /// cross-validated smoother can round off the curvature a family's bias comes from, and
 /// twicing gives much of it back; [`Twicing::Auto`] twices on [`TWICE_FROM_INPUTS`] or more
@@ -780,6 +783,43 @@ mod tests {
         assert!(m > 4.0 * se, "excess {m} ± {se}");
     }
 
+    /// The twin's noise estimator measures distance as its reference does: with the input
+    /// weights the choice kept (one input of four matters here, so weights are kept), and with
+    /// plain inputs when none are kept (a forced forest tunes no weights).
+    #[test]
+    fn the_twin_noise_uses_the_kept_input_weights() {
+        use crate::dgp::reference::Choice;
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(12);
+        let n = 300;
+        let x = Array2::from_shape_fn((n, 4), |_| rng.gen::<f64>());
+        let y: Vec<f64> = (0..n)
+            .map(|i| {
+                let z: f64 = StandardNormal.sample(&mut rng);
+                2.0 * (6.0 * x[[i, 0]]).sin() + 0.3 * z
+            })
+            .collect();
+        let fit = fit_regression(x.view(), &y, 3, Rule::Best, None, Twicing::Auto, "t").unwrap();
+        let w = fit.selection.choice.metric.clone().expect("weights kept");
+        let once = Choice {
+            twice: false,
+            ..fit.selection.choice.clone()
+        };
+        let f = Reference::fit(x.view(), ArrayView1::from(&y[..]), 0, &once, false, "t")
+            .unwrap()
+            .mean_at_rows(x.view());
+        let noise = fit.noise.unwrap();
+        assert!(noise.weighted);
+        let m = Method::Gamma;
+        let by_hand = correct_noise_weighted(m, x.view(), Some(&w), &y, &f, NOISE_TABLES, 3);
+        assert_eq!(Some(noise), by_hand);
+        let plain = correct_noise(m, x.view(), &y, &f, NOISE_TABLES, 3).unwrap();
+        assert_ne!(noise.raw, plain.raw);
+        let forest = Rule::Only(crate::dgp::reference::Candidate::Forest);
+        let fit = fit_regression(x.view(), &y, 3, forest, None, Twicing::Auto, "t").unwrap();
+        assert!(fit.selection.choice.metric.is_none());
+        assert!(!fit.noise.unwrap().weighted);
+    }
+
     #[test]
     fn gradient_weights_find_the_input_the_reference_uses() {
         // y = 3·x1 exactly, x2 and x3 unused: a k-NN reference on the three standardized inputs
@@ -798,8 +838,16 @@ mod tests {
         let yv = y.to_vec();
         let f = r.mean_at_rows(x.view());
         let plain = correct_noise(Method::Gamma, x.view(), &yv, &f, 10, 1).unwrap();
-        let ones = correct_noise_weighted(Method::Gamma, x.view(), Some(&[1.0; 3]), &yv, &f, 10, 1);
-        assert_eq!(Some(plain), ones);
+        let ones = correct_noise_weighted(Method::Gamma, x.view(), Some(&[1.0; 3]), &yv, &f, 10, 1)
+            .unwrap();
+        assert!(ones.weighted && !plain.weighted);
+        assert_eq!(
+            plain,
+            NoiseCorrection {
+                weighted: false,
+                ..ones
+            }
+        );
         let weighted =
             correct_noise_weighted(Method::Gamma, x.view(), Some(&w), &yv, &f, 10, 1).unwrap();
         assert_ne!(weighted.raw, plain.raw);

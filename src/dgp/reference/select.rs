@@ -590,8 +590,9 @@ pub fn twicing_check(
 /// largest is 1 (all 1 when the reference is flat or not finite); an input the reference does
 /// not use gets 0.
 /// Gradient weights for neighbour methods: Kpotufe, Boularias, Schultz and Kim 2016, "Gradients
-/// weights improve regression and classification", *JMLR* 17 (from memory). For the twin's noise
-/// they were measured and not adopted (`docs/twin-calibration.md` §2.5).
+/// weights improve regression and classification", *JMLR* 17 (from memory). The twin's noise
+/// estimator uses the weights the choice kept (`docs/twin-calibration.md` §0.2; weights of a
+/// reference fitted once, measured alone in §2.5).
 pub fn gradient_weights(x: ArrayView2<'_, f64>, r: &Reference) -> Vec<f64> {
     let (n, p) = x.dim();
     let std = Standardizer::fit(x);
