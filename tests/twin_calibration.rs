@@ -1376,7 +1376,8 @@ fn noise_tree_pilot() {
 }
 
 /// Noise estimator with gradient-weighted distances (`dgp::twin::gradient_weights`, their
-/// square root, or none), measured and not adopted (docs/twin-calibration.md §2.5): the same
+/// square root, or none), measured alone (docs/twin-calibration.md §2.5; the twin now uses the
+/// weights its reference kept, §0.2): the same
 /// tables as `noise_study` (`LOSSPRISM_NOISE_PROCS=wide` for the 6- and 10-input processes);
 /// the weights come from the reference fitted once, as the twin's correction does.
 #[test]
