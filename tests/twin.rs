@@ -440,6 +440,14 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
         words.contains("neighbour distances weight the standardized inputs by"),
         "{words}"
     );
+    // The noise estimator measured distance with the same weights: the scenario records it,
+    // the result echoes it, and the report says so.
+    assert!(text.contains(", weighted = true }"), "{text}");
+    assert!(tw.noise.as_ref().expect("noise echoed").weighted);
+    assert!(
+        words.contains("its neighbour distances weighted as the reference's"),
+        "{words}"
+    );
     let f = tw.fidelity.clone().expect("fidelity echoed");
     assert_eq!((f.tables, f.replicates, f.models.len()), (2, 12, 2));
     // The twin's own run is at the scenario's replicates, and the echo says it is twiced.

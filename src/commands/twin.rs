@@ -357,13 +357,14 @@ fn fit_report_text(noise: Option<&NoiseCorrection>, fidelity: Option<&FidelityRe
     );
     if let Some(n) = noise {
         s.push_str(&format!(
-            "noise = {{ method = {}, raw = {}, correction = {}, value = {}, stderr = {}, tables = {} }}\n",
+            "noise = {{ method = {}, raw = {}, correction = {}, value = {}, stderr = {}, tables = {}{} }}\n",
             toml_str(n.method.name()),
             toml_f64(n.raw),
             toml_f64(n.correction),
             toml_f64(n.value),
             toml_f64(n.se),
-            n.tables
+            n.tables,
+            if n.weighted { ", weighted = true" } else { "" }
         ));
     }
     if let Some(f) = fidelity {

@@ -553,6 +553,9 @@ pub struct NoiseRecord {
     pub stderr: f64,
     /// Bootstrap tables behind the standard error.
     pub tables: usize,
+    /// Whether the estimator's neighbour distances weighted the inputs as the reference does
+    /// (`weighted = true`; absent in twins written before, which did not).
+    pub weighted: bool,
 }
 
 impl From<&NoiseCorrection> for NoiseRecord {
@@ -564,6 +567,7 @@ impl From<&NoiseCorrection> for NoiseRecord {
             value: c.value,
             stderr: c.se,
             tables: c.tables,
+            weighted: c.weighted,
         }
     }
 }

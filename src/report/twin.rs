@@ -161,6 +161,9 @@ pub struct NoiseEcho {
     pub stderr: f64,
     /// Bootstrap tables behind the standard error.
     pub tables: usize,
+    /// Whether the estimator's neighbour distances weighted the inputs as the reference does.
+    #[serde(default)]
+    pub weighted: bool,
 }
 
 /// The fidelity check.
@@ -242,6 +245,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
             value: n.value,
             stderr: n.stderr,
             tables: n.tables,
+            weighted: n.weighted,
         }),
         fidelity: rep.fidelity.map(|f| FidelityEcho {
             tables: f.tables,
@@ -298,16 +302,21 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
     }
     if !t.input_weights.is_empty() {
         out.push(format!(
-            "Its neighbour distances weight the standardized inputs by {} (in the table's input order: the gradient of a bagged-tree pilot, kept because it raised the cross-validated R²), so inputs the response barely depends on count less.",
+            "Its neighbour distances weight the standardized inputs by {} (in the table's input order: the gradient of a bagged-tree pilot, kept because it raised the cross-validated R² by more than one paired standard error), so inputs the response barely depends on count less.",
             values(&t.input_weights)
         ));
     }
     if let Some(n) = &t.noise {
         out.push(format!(
-            "Its noise σ² = {} ± {} was estimated from the table ({} estimator: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
+            "Its noise σ² = {} ± {} was estimated from the table ({} estimator{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
             fmt_num(n.value),
             fmt_se(n.stderr),
             n.method,
+            if n.weighted {
+                ", its neighbour distances weighted as the reference's"
+            } else {
+                ""
+            },
             fmt_num(n.raw),
             fmt_num(n.correction),
             n.tables

@@ -135,7 +135,8 @@ pub struct FitReportSpec {
     pub fidelity: Option<FidelitySpec>,
 }
 
-/// `noise = { method, raw, correction, value, stderr, tables }` of `[data.fit_report]`.
+/// `noise = { method, raw, correction, value, stderr, tables, weighted }` of
+/// `[data.fit_report]`.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct NoiseRecordSpec {
@@ -151,6 +152,9 @@ pub struct NoiseRecordSpec {
     pub stderr: f64,
     /// Bootstrap tables behind the standard error.
     pub tables: u64,
+    /// Whether the estimator's distances weighted the inputs (absent: no).
+    #[serde(default)]
+    pub weighted: bool,
 }
 
 /// `[data.fit_report.fidelity]`.

@@ -341,6 +341,7 @@ fn report_of(r: &FitReportSpec) -> FitReport {
             value: n.value,
             stderr: n.stderr,
             tables: n.tables as usize,
+            weighted: n.weighted,
         }),
         fidelity: r.fidelity.as_ref().map(|f| FidelityRecord {
             tables: f.tables as usize,
