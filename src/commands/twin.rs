@@ -9,8 +9,8 @@
 //! their blend by cross-validated R² ([`crate::dgp::reference::select`]); the inputs are a
 //! smoothed bootstrap of the rows and the evaluation points are drawn once from it
 //! ([`crate::dgp::twin::Jitter`]); the noise is the default estimator for the table's dimension,
-//! corrected for its roughness bias, with a standard error from a parametric bootstrap
-//! ([`crate::dgp::twin::correct_noise`]). Then the **fidelity check** draws tables of the same
+//! corrected for its roughness bias, with a standard error from a parametric bootstrap, its
+//! neighbour distances weighted as the reference's ([`crate::dgp::twin::correct_noise_weighted`]). Then the **fidelity check** draws tables of the same
 //! size from the fitted twin, twins each of them the same way, runs the families on the twin
 //! and on each twin of the twin, and reports how often the twin of the twin picks a knob inside
 //! the twin's one-standard-error set and how far its expected-loss curve lies from the twin's —
@@ -437,7 +437,7 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
                         fmt_num(m.r2),
                         fmt_num(m.gain.0),
                         fmt_se(m.gain.1),
-                        if m.clears { "" } else { ", within one SE" }
+                        if m.clears { "" } else { ", not above one SE" }
                     )
                 }
             })

@@ -390,7 +390,8 @@ pub fn correct_noise_weighted(
         pilot_excess,
         tables,
         floored,
-        weighted: weights.is_some(),
+        // GSJS orders one input and ignores weights.
+        weighted: weights.is_some() && method != Method::Gsjs,
     })
 }
 

@@ -302,7 +302,7 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
     }
     if !t.input_weights.is_empty() {
         out.push(format!(
-            "Its neighbour distances weight the standardized inputs by {} (in the table's input order: the gradient of a bagged-tree pilot, kept because it raised the cross-validated R² by more than one paired standard error), so inputs the response barely depends on count less.",
+            "Its neighbour distances weight the standardized inputs by {} (in the table's input order: the gradient of a bagged-tree pilot, chosen by cross-validation when `lossprism twin` wrote the twin), so inputs the response barely depends on count less.",
             values(&t.input_weights)
         ));
     }

@@ -73,7 +73,8 @@ pub struct Selection {
     /// Folds used.
     pub folds: usize,
     /// Each input metric tried, γ = 0 first (every input alike; see [`METRIC_POWERS`]). Only
-    /// γ = 0 with one input or when the pilot weights every input alike.
+    /// γ = 0 with one input, when the pilot weights every input alike or cannot be fitted, and
+    /// under `Rule::Only(Candidate::Forest)` (trees ignore the weights).
     pub metric_scores: Vec<MetricScore>,
 }
 
@@ -303,7 +304,11 @@ fn tune(
 /// standard error, from the paired row-by-row differences of squared error: `gain =
 /// mean_i d_i / var(y)`, `d_i = (y_i − plain_i)² − (y_i − weighted_i)²`, SE = sd(d)/√n /
 /// var(y). Pairing removes the rows' shared difficulty, which the candidates' own SEs carry.
+/// Slices of different lengths give `(NaN, NaN)`, which [`metric_guard`] turns down.
 pub fn paired_gain(y: &[f64], plain: &[f64], weighted: &[f64]) -> (f64, f64) {
+    if plain.len() != y.len() || weighted.len() != y.len() {
+        return (f64::NAN, f64::NAN);
+    }
     let n = y.len() as f64;
     let ym = y.iter().sum::<f64>() / n;
     let var = y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n;
@@ -321,6 +326,9 @@ pub fn paired_gain(y: &[f64], plain: &[f64], weighted: &[f64]) -> (f64, f64) {
 /// Trees*, §3.4.3; Hastie, Tibshirani and Friedman 2009, *The Elements of Statistical
 /// Learning*, §7.10; both from memory) applied to the paired difference: the plainer metric
 /// stays unless the data show the weights help. Measured in `docs/twin-calibration.md` §0.2.
+/// Stated optimism: the weights come from a pilot fitted on the whole table, k, the bandwidth
+/// and the blend are tuned on the same held-out predictions, and each weighted metric is tested
+/// on its own, so the bar is a little lower than one SE of a single pre-set comparison.
 pub fn metric_guard(gain: (f64, f64)) -> bool {
     gain.0 > gain.1
 }
@@ -661,7 +669,6 @@ mod tests {
         let sel = select(x.view(), &y, 5, Rule::Best);
         assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
         assert_eq!(sel.metric_scores[0].power, 0.0);
-        assert!(!sel.metric_scores[0].clears);
         let plain = sel.metric_scores[0].r2;
         let best = sel
             .metric_scores
@@ -669,7 +676,7 @@ mod tests {
             .map(|s| s.r2)
             .fold(f64::NEG_INFINITY, f64::max);
         let kept = sel.metric_scores.iter().find(|s| s.r2 == best).unwrap();
-        assert!(kept.clears && kept.gain.0 > kept.gain.1, "{kept:?}");
+        assert!(kept.clears, "{kept:?}");
         let w = sel
             .choice
             .metric
@@ -778,9 +785,40 @@ mod tests {
         assert!((se - sd / 2.0 / 1.25).abs() < 1e-15, "{se} {sd}");
         assert!(metric_guard((g, se)));
         assert_eq!(paired_gain(&y, &plain, &plain), (0.0, 0.0));
+        let short = paired_gain(&y, &plain, &weighted[..3]);
+        assert!(short.0.is_nan() && !metric_guard(short));
         assert!(!metric_guard((0.0, 0.0)));
         assert!(!metric_guard((0.01, 0.02)));
         assert!(metric_guard((0.03, 0.02)));
+    }
+
+    /// Three inputs that matter alike: a weighted metric scores a higher R² than plain inputs
+    /// on this table (the rule before the guard would have kept it), but by less than one
+    /// paired SE, so the plain metric stays; and a metric is kept exactly when one clears.
+    #[test]
+    fn the_guard_keeps_plain_inputs_when_the_gain_is_within_one_se() {
+        let mut rng = stream(5, purpose::TWIN, 9);
+        let n = 200;
+        let x = Array2::from_shape_fn((n, 3), |_| rng.gen::<f64>());
+        let y: Vec<f64> = (0..n)
+            .map(|i| {
+                let z: f64 = StandardNormal.sample(&mut rng);
+                (0..3).map(|j| (3.0 * x[[i, j]]).sin()).sum::<f64>() + 0.5 * z
+            })
+            .collect();
+        let sel = select(x.view(), &y, 5, Rule::Best);
+        let plain = sel.metric_scores[0].r2;
+        let best = sel.metric_scores[1..]
+            .iter()
+            .max_by(|a, b| a.r2.total_cmp(&b.r2))
+            .expect("weighted metrics scored");
+        assert!(best.r2 > plain, "{:?}", sel.metric_scores);
+        assert!(best.gain.0 > 0.0 && best.gain.0 <= best.gain.1, "{best:?}");
+        assert!(sel.choice.metric.is_none());
+        assert_eq!(
+            sel.choice.metric.is_some(),
+            sel.metric_scores.iter().any(|m| m.clears)
+        );
     }
 
     /// One input: nothing to weight, only the plain metric is scored.
