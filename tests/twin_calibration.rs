@@ -1375,7 +1375,7 @@ fn noise_tree_pilot() {
     }
 }
 
-/// Noise estimator with gradient-weighted distances (`dgp::twin::gradient_weights`, their
+/// Noise estimator with gradient-weighted distances (`dgp::reference::select::gradient_weights`, their
 /// square root, or none), measured alone (docs/twin-calibration.md §2.5; the twin now uses the
 /// weights its reference kept, §0.2): the same
 /// tables as `noise_study` (`LOSSPRISM_NOISE_PROCS=wide` for the 6- and 10-input processes);
@@ -1407,7 +1407,7 @@ fn noise_weights_study() {
             )
             .unwrap();
             let f_rows = once.mean_at_rows(x.view());
-            let g = dgp_twin::gradient_weights(x.view(), &once);
+            let g = lossprism::dgp::reference::select::gradient_weights(x.view(), &once);
             let root: Vec<f64> = g.iter().map(|v| v.sqrt()).collect();
             let mut row = [(0.0, 0.0); 3];
             for (slot, w) in [None, Some(&g[..]), Some(&root[..])]

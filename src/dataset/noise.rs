@@ -265,7 +265,9 @@ pub fn nearest(z: ArrayView2<'_, f64>, k: usize) -> Vec<Vec<(usize, f64)>> {
         .collect()
 }
 
-fn mean_se(t: &[f64]) -> (f64, f64) {
+/// The mean of `t` and its standard error (sample variance, divisor n − 1, over n; NaN with
+/// fewer than two terms).
+pub(crate) fn mean_se(t: &[f64]) -> (f64, f64) {
     let n = t.len() as f64;
     let mean = t.iter().sum::<f64>() / n;
     if t.len() < 2 {

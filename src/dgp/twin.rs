@@ -526,8 +526,6 @@ pub fn fit_regression(
     })
 }
 
-pub use super::reference::select::gradient_weights;
-
 /// What `lossprism twin` measured when it wrote a twin scenario (`[data.fit_report]`),
 /// informational: `run` echoes it in the result (`scenario.twin`) and the HTML report, and
 /// nothing in the run depends on it.
@@ -837,7 +835,7 @@ mod tests {
         let x = Array2::from_shape_fn((n, 3), |_| rng.gen::<f64>());
         let y: Array1<f64> = x.column(0).mapv(|v| 3.0 * v);
         let r = Reference::fit(x.view(), y.view(), 0, &Choice::knn(5, true), false, "t").unwrap();
-        let w = gradient_weights(x.view(), &r);
+        let w = select::gradient_weights(x.view(), &r);
         assert_eq!(w[0], 1.0);
         assert!(w[1] < 0.5 && w[2] < 0.5, "{w:?}");
         let yv = y.to_vec();

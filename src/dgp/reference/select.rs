@@ -28,6 +28,7 @@ use ndarray::{ArrayView1, ArrayView2, Axis};
 use super::forest::{self, ForestParams};
 use super::loclin::{self, solve_spd};
 use super::{Candidate, Choice, Reference};
+use crate::dataset::noise::mean_se;
 use crate::family::neighbours::{NeighbourIndex, Scratch};
 use crate::family::standardize::Standardizer;
 use crate::rng::{fold_assignment, purpose, stream};
@@ -102,13 +103,17 @@ fn argmin(v: &[f64]) -> usize {
 
 /// Cross-validated R² and its standard error of held-out predictions `pred`.
 fn r2_se(y: &[f64], pred: &[f64]) -> (f64, f64) {
+    let e: Vec<f64> = y.iter().zip(pred).map(|(a, b)| (a - b) * (a - b)).collect();
+    let (m, se) = mean_se(&e);
+    let var = population_variance(y);
+    (1.0 - m / var, se / var)
+}
+
+/// The population variance of `y` (divisor n), the denominator of every R² here.
+fn population_variance(y: &[f64]) -> f64 {
     let n = y.len() as f64;
     let ym = y.iter().sum::<f64>() / n;
-    let var = y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n;
-    let e: Vec<f64> = y.iter().zip(pred).map(|(a, b)| (a - b) * (a - b)).collect();
-    let m = e.iter().sum::<f64>() / n;
-    let sd = (e.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / (n - 1.0)).sqrt();
-    (1.0 - m / var, sd / n.sqrt() / var)
+    y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n
 }
 
 /// Non-negative least squares without intercept, `min ‖y − Σ_j w_j c_j‖²` subject to `w ≥ 0`,
@@ -309,15 +314,12 @@ pub fn paired_gain(y: &[f64], plain: &[f64], weighted: &[f64]) -> (f64, f64) {
     if plain.len() != y.len() || weighted.len() != y.len() {
         return (f64::NAN, f64::NAN);
     }
-    let n = y.len() as f64;
-    let ym = y.iter().sum::<f64>() / n;
-    let var = y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n;
     let d: Vec<f64> = (0..y.len())
         .map(|i| (y[i] - plain[i]).powi(2) - (y[i] - weighted[i]).powi(2))
         .collect();
-    let m = d.iter().sum::<f64>() / n;
-    let sd = (d.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / (n - 1.0)).sqrt();
-    (m / var, sd / n.sqrt() / var)
+    let (m, se) = mean_se(&d);
+    let var = population_variance(y);
+    (m / var, se / var)
 }
 
 /// The bar a weighted metric's paired [`gain`](paired_gain) must clear to be kept over every
@@ -652,20 +654,32 @@ mod tests {
     use rand::Rng;
     use rand_distr::{Distribution, StandardNormal};
 
+    /// `n` rows of `p` inputs uniform on [0, 1] (stream `(seed, TWIN, 9)`), then `y_i = f(x_i) +
+    /// sd · z_i` with standard normal z drawn row by row from the same stream.
+    fn uniform_table(
+        seed: u64,
+        n: usize,
+        p: usize,
+        sd: f64,
+        f: impl Fn(ndarray::ArrayView1<'_, f64>) -> f64,
+    ) -> (Array2<f64>, Vec<f64>) {
+        let mut rng = stream(seed, purpose::TWIN, 9);
+        let x = Array2::from_shape_fn((n, p), |_| rng.gen::<f64>());
+        let y = (0..n)
+            .map(|i| {
+                let z: f64 = StandardNormal.sample(&mut rng);
+                f(x.row(i)) + sd * z
+            })
+            .collect();
+        (x, y)
+    }
+
     /// y depends on the first of four inputs only: the pilot's gradient weights must single it
     /// out, and the weighted metric must predict better than counting every input alike (with
     /// three irrelevant inputs the plain neighbours are spread over them).
     #[test]
     fn weighted_inputs_find_the_one_input_that_matters() {
-        let mut rng = stream(11, purpose::TWIN, 9);
-        let n = 300;
-        let x = Array2::from_shape_fn((n, 4), |_| rng.gen::<f64>());
-        let y: Vec<f64> = (0..n)
-            .map(|i| {
-                let z: f64 = StandardNormal.sample(&mut rng);
-                (6.0 * x[[i, 0]]).sin() * 2.0 + 0.3 * z
-            })
-            .collect();
+        let (x, y) = uniform_table(11, 300, 4, 0.3, |r| (6.0 * r[0]).sin() * 2.0);
         let sel = select(x.view(), &y, 5, Rule::Best);
         assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
         assert_eq!(sel.metric_scores[0].power, 0.0);
@@ -797,15 +811,9 @@ mod tests {
     /// paired SE, so the plain metric stays; and a metric is kept exactly when one clears.
     #[test]
     fn the_guard_keeps_plain_inputs_when_the_gain_is_within_one_se() {
-        let mut rng = stream(5, purpose::TWIN, 9);
-        let n = 200;
-        let x = Array2::from_shape_fn((n, 3), |_| rng.gen::<f64>());
-        let y: Vec<f64> = (0..n)
-            .map(|i| {
-                let z: f64 = StandardNormal.sample(&mut rng);
-                (0..3).map(|j| (3.0 * x[[i, j]]).sin()).sum::<f64>() + 0.5 * z
-            })
-            .collect();
+        let (x, y) = uniform_table(5, 200, 3, 0.5, |r| {
+            (0..3).map(|j| (3.0 * r[j]).sin()).sum::<f64>()
+        });
         let sel = select(x.view(), &y, 5, Rule::Best);
         let plain = sel.metric_scores[0].r2;
         let best = sel.metric_scores[1..]
