@@ -1475,7 +1475,7 @@ fn noise_flat() {
     let n = 300;
     // Pure noise (f = 0) on 3 uniform inputs, 400 tables: the spread of the line's intercept,
     // of the mean of γ(1..10) and of the mean of ε² itself.
-    let (mut line, mut flat10, mut sq) = (Vec::new(), Vec::new(), Vec::new());
+    let (mut line, mut flat10, mut sq, mut pair) = (Vec::new(), Vec::new(), Vec::new(), Vec::new());
     for t in 0..400u64 {
         let mut rng = ChaCha8Rng::seed_from_u64(100 + t);
         let x = Array2::from_shape_fn((n, 3), |_| rng.gen::<f64>());
@@ -1490,11 +1490,13 @@ fn noise_flat() {
             .map(|(i, j)| 0.5 * (e[j] - e[i]).powi(2))
             .sum();
         flat10.push(g / (10 * n) as f64);
+        pair.push(pair_intercept(&nn, &e));
         sq.push(e.iter().map(|v| v * v).sum::<f64>() / n as f64);
     }
     println!(
-        "pure noise, 3 inputs: sd line {:.4}, mean of γ(1..10) {:.4}, mean ε² {:.4}",
+        "pure noise, 3 inputs: sd line {:.4}, pairwise line {:.4}, mean of γ(1..10) {:.4}, mean ε² {:.4}",
         sd(&line),
+        sd(&pair),
         sd(&flat10),
         sd(&sq)
     );
@@ -1546,9 +1548,13 @@ fn noise_flat() {
             for m in [10, 5, 3, 1] {
                 row.push(flat(&gy, m) - flat(&gf, m));
             }
+            row.push(pair_intercept(&nn, &yv) - pair_intercept(&nn, &fh));
+            row.push(pair_intercept(&nn, &yv) - pair_intercept(&nn, &f));
             rows.push(row);
         }
-        let names = ["cur", "F10", "F5", "F3", "F1", "O10", "O5", "O3", "O1"];
+        let names = [
+            "cur", "F10", "F5", "F3", "F1", "O10", "O5", "O3", "O1", "P", "PO",
+        ];
         println!("{} ({}):", proc.name, tables);
         for (j, nm) in names.iter().enumerate() {
             let v: Vec<f64> = rows.iter().map(|r| r[j]).collect();
@@ -1562,4 +1568,23 @@ fn noise_flat() {
             );
         }
     }
+}
+
+/// Least-squares intercept of `½ (v_j − v_i)²` on the squared distance `d²_ij` over every
+/// (row, neighbour) pair of `nn`, one point per pair (instead of one per neighbour order).
+fn pair_intercept(nn: &[Vec<(usize, f64)>], v: &[f64]) -> f64 {
+    let (mut n, mut sx, mut sy, mut sxx, mut sxy) = (0.0, 0.0, 0.0, 0.0, 0.0);
+    for (i, l) in nn.iter().enumerate() {
+        for &(j, d2) in l {
+            let g = 0.5 * (v[j] - v[i]).powi(2);
+            n += 1.0;
+            sx += d2;
+            sy += g;
+            sxx += d2 * d2;
+            sxy += d2 * g;
+        }
+    }
+    let (mx, my) = (sx / n, sy / n);
+    let slope = (sxy / n - mx * my) / (sxx / n - mx * mx);
+    my - slope * mx
 }
