@@ -476,8 +476,10 @@ impl fmt::Display for CheckReport {
             let rows: Vec<[String; COLS]> = moved
                 .iter()
                 .map(|c| {
-                    let rel = if c.baseline != 0.0 {
-                        format!(" ({:+.1}%)", 100.0 * c.diff / c.baseline.abs())
+                    // Divided first: 100 × a difference near the largest float overflows.
+                    let rel = c.diff / c.baseline.abs() * 100.0;
+                    let rel = if c.baseline != 0.0 && rel.is_finite() {
+                        format!(" ({rel:+.1}%)")
                     } else {
                         String::new()
                     };
@@ -889,6 +891,13 @@ pub fn compare(
                 }
             };
             let diff = va - vb;
+            if !diff.is_finite() {
+                return Err(CheckError::BadDocument(format!(
+                    "{}: the difference of {va:e} (result) and {vb:e} (baseline) overflows the \
+                     range of floating-point numbers",
+                    at()
+                )));
+            }
             let unpaired_se = match (sa, sb) {
                 (Some(x), Some(y)) => Some((x * x + y * y).sqrt()),
                 _ => None,

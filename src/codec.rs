@@ -208,6 +208,38 @@ pub fn read_document(
     })
 }
 
+/// The memory available to this process in bytes: `MemAvailable` of `/proc/meminfo` (else
+/// `MemTotal`), lowered by the cgroup (v2) limit minus current use when one is set; `None` when
+/// neither can be read.
+pub fn available_memory() -> Option<u64> {
+    let meminfo = std::fs::read_to_string("/proc/meminfo").ok();
+    let field = |name: &str| -> Option<u64> {
+        meminfo.as_deref()?.lines().find_map(|l| {
+            let rest = l.strip_prefix(name)?.strip_prefix(':')?;
+            let kb: u64 = rest.trim().trim_end_matches("kB").trim().parse().ok()?;
+            Some(kb.saturating_mul(1024))
+        })
+    };
+    let machine = field("MemAvailable").or_else(|| field("MemTotal"));
+    let cgroup = (|| {
+        let max: u64 = std::fs::read_to_string("/sys/fs/cgroup/memory.max")
+            .ok()?
+            .trim()
+            .parse()
+            .ok()?;
+        let cur: u64 = std::fs::read_to_string("/sys/fs/cgroup/memory.current")
+            .ok()?
+            .trim()
+            .parse()
+            .unwrap_or(0);
+        Some(max.saturating_sub(cur))
+    })();
+    match (machine, cgroup) {
+        (Some(a), Some(b)) => Some(a.min(b)),
+        (a, b) => a.or(b),
+    }
+}
+
 /// Seconds an input FIFO may take to get a writer before it is refused.
 pub const FIFO_WAIT_SECONDS: u64 = 10;
 

@@ -32,14 +32,23 @@ fn key_part(key: &Option<String>) -> String {
     }
 }
 
-/// Keeps a message on one line: a line break in text it quotes from the user (a family name,
-/// a key, a path, a cell) is shown as `\n` (or `\r`).
+/// Keeps a message on one line and inert on a terminal: a line break in text it quotes from
+/// the user (a family name, a key, a path, a cell) is shown as `\n` (or `\r`), and any other
+/// control character (an escape sequence, a bell) as `\u{1b}` and the like.
 pub fn one_line(s: &str) -> String {
-    if s.contains(['\n', '\r']) {
-        s.replace('\n', "\\n").replace('\r', "\\r")
-    } else {
-        s.to_string()
+    if !s.chars().any(char::is_control) {
+        return s.to_string();
     }
+    let mut out = String::with_capacity(s.len() + 8);
+    for c in s.chars() {
+        match c {
+            '\n' => out.push_str("\\n"),
+            '\r' => out.push_str("\\r"),
+            c if c.is_control() => out.extend(c.escape_default()),
+            c => out.push(c),
+        }
+    }
+    out
 }
 
 /// Any error the library reports.

@@ -17,7 +17,7 @@ fn main() -> ExitCode {
                 let _ = e.print();
                 return ExitCode::from(0);
             }
-            eprintln!("{}", one_line(&e.render().to_string()));
+            eprintln!("{}", terminal_safe(&one_line(&e.render().to_string())));
             return ExitCode::from(2);
         }
     };
@@ -36,10 +36,20 @@ fn main() -> ExitCode {
     match result {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
-            eprintln!("error: {e}");
+            eprintln!("error: {}", terminal_safe(&e.to_string()));
             ExitCode::from(2)
         }
     }
+}
+
+/// The longest error line printed, in characters: a message quoting a huge value from an input
+/// (a 20 MB string where a format name belongs) is cut to this.
+const MAX_ERROR_CHARS: usize = 4000;
+
+/// An error message as printed: control characters escaped (no escape sequence from an input
+/// reaches the terminal; [`lossprism::error::one_line`]) and cut to [`MAX_ERROR_CHARS`].
+fn terminal_safe(message: &str) -> String {
+    lossprism::error::one_line(&lossprism::fmt::clip(message, MAX_ERROR_CHARS))
 }
 
 /// A command-line parsing error on one line: the message, the items listed under it (a missing

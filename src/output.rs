@@ -504,6 +504,19 @@ fn clash(
                 target.flag, other.flag
             )));
         }
+        if shares_stdout(target, other) {
+            return Err(Error::Usage(format!(
+                "{} and {} both name standard output ({} is the pipe or file that - writes to); \
+                 at most one output may go there",
+                target.flag,
+                other.flag,
+                if matches!(target.place, Place::Stdout) {
+                    other.given.display()
+                } else {
+                    target.given.display()
+                }
+            )));
+        }
         if target.ident.same(&other.ident) {
             return Err(Error::Usage(format!(
                 "{} names the same file as {} ({})",
@@ -514,6 +527,26 @@ fn clash(
         }
     }
     Ok(())
+}
+
+/// Whether one of two outputs is `-` and the other names the pipe or file standard output
+/// writes to (`/dev/stdout`, `/dev/fd/1`, `/proc/self/fd/1` when standard output is a pipe): the
+/// two documents would run together in one stream. A terminal or other character device (the
+/// null device) may be shared.
+fn shares_stdout(a: &Target, b: &Target) -> bool {
+    let other = match (&a.place, &b.place) {
+        (Place::Stdout, Place::Stdout) => return false,
+        (Place::Stdout, _) => b,
+        (_, Place::Stdout) => a,
+        _ => return false,
+    };
+    let Ok(m) = fs::metadata("/dev/stdout") else {
+        return false;
+    };
+    if !(m.is_file() || sys::is_fifo(&m)) {
+        return false;
+    }
+    other.ident.file.is_some() && sys::dev_ino(&m) == other.ident.file
 }
 
 /// The folder and file name of a resolved path.

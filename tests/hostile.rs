@@ -1123,6 +1123,27 @@ fn formula_cases(t: &mut Table) {
 fn csv_cases(t: &mut Table) {
     let good = good_csv();
     t.table("empty file", b"", "", "the file is empty");
+    t.table(
+        "binary data (NUL bytes)",
+        &[0u8; 4096],
+        "",
+        "holds binary data (a NUL byte)",
+    );
+    let dev = table_scenario("", TREE).replace("\"t.csv\"", "\"/dev/zero\"");
+    t.add(
+        "csv",
+        "table is an endless device",
+        &[("s.toml", dev.as_bytes())],
+        &["run", "s.toml", "--out", "r.json"],
+        "is a device or a socket",
+    );
+    t.add(
+        "csv",
+        "twin of an endless device",
+        &[],
+        &["twin", "/dev/zero", "--target", "y", "--out", "tw.toml"],
+        "is a device or a socket",
+    );
     t.table("blank file", b"\n\n  \n", "", "the file is empty");
     t.table("header only", b"a,b,y\n", "", "no data rows");
     t.table("numeric header", b"1,2,3\n4,5,6\n", "", "no header");
@@ -1325,6 +1346,49 @@ fn csv_cases(t: &mut Table) {
     .extra(Extra::Dir("t.csv"));
     t.add(
         "csv",
+        "twin of a column beyond 1e150",
+        &[(
+            "t.csv",
+            csv_rows(40, |i| format!("{}e160", 1 + i % 7)).as_bytes(),
+        )],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--out",
+            "tw.toml",
+        ],
+        "column `y` reaches 7e160",
+    );
+    t.add(
+        "csv",
+        "twin whose evaluation points do not fit in memory",
+        &[("t.csv", good.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--eval-size",
+            "10000000",
+            "--out",
+            "tw.toml",
+        ],
+        "tw.toml was not written",
+    );
+    t.table(
+        "an escape sequence in a cell",
+        b"a,b,y\n1,2,3\n4,\x1b[2J,6\n",
+        "",
+        "\\u{1b}[2J",
+    );
+    t.add(
+        "csv",
         "twin of a missing target",
         &[("t.csv", good.as_bytes())],
         &["twin", "t.csv", "--target", "q", "--out", "tw.toml"],
@@ -1451,6 +1515,22 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     let g = "cli";
     let s: &[(&str, &[u8])] = &[("s.toml", BASE.as_bytes())];
     let with_results: &[(&str, &[u8])] = &[("r.json", &docs.result), ("b.json", &docs.result)];
+    // Expected losses at the ends of the float range: their difference overflows.
+    let extreme = |sign: f64| {
+        edit_json(&docs.result, |v| {
+            for p in v["points"].as_array_mut().unwrap() {
+                p["expected_loss"] = serde_json::json!(sign * 1.7e308);
+            }
+        })
+    };
+    let (high, low) = (extreme(1.0), extreme(-1.0));
+    t.add(
+        g,
+        "check: differences that overflow",
+        &[("r.json", &high), ("b.json", &low)],
+        &["check", "r.json", "--baseline", "b.json"],
+        "overflows the range",
+    );
     t.add(
         g,
         "--sigma -1",
@@ -2521,6 +2601,18 @@ fn external_cases(t: &mut Table) {
         )
         .python();
     }
+    // The script an external estimator runs is an input: no output may replace it (the
+    // output check refuses before anything starts, so no Python is needed).
+    let script = scenario("fit");
+    for flag in ["--out", "--csv"] {
+        t.add(
+            g,
+            format!("{flag} names the estimator's script"),
+            &[("s.toml", script.as_bytes()), ("m.py", PY_MODEL.as_bytes())],
+            &["run", "s.toml", flag, "m.py", "-q"],
+            "an input",
+        );
+    }
     let missing = sc(
         "family = \"tree\"\ngrid = [1, 2]",
         "family = \"external\"\ncommand = [\"./no-such-program\"]\nknob = \"k\"\ngrid = [1, 2]",
@@ -2960,6 +3052,26 @@ fn a_fifo_given_as_the_output_receives_the_document_and_stays_a_fifo() {
     assert_eq!(code, 2, "{err}");
     assert!(start.elapsed() < Duration::from_secs(30));
     assert!(fs::symlink_metadata(&fifo).unwrap().file_type().is_fifo());
+}
+
+#[test]
+fn two_outputs_on_one_standard_output_pipe_are_refused() {
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    // `status` reads standard output through a pipe, so /dev/stdout is that pipe.
+    for other in [
+        ["--csv", "/dev/stdout"],
+        ["--report", "/dev/fd/1"],
+        ["--points", "/proc/self/fd/1"],
+    ] {
+        let mut args = vec!["run", "s.toml", "--out", "-", "-q"];
+        args.extend(other);
+        let (code, out, err) = status(dir, &args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        assert!(err.contains("both name standard output"), "{err}");
+        assert!(out.is_empty(), "{out}");
+    }
 }
 
 #[test]

@@ -16,12 +16,17 @@ use crate::report::terminal::View;
 use crate::scenario::{self, Plan, PlanOptions, Source};
 use crate::{family, progress, report, runner, shard};
 
-/// The files a plan reads besides the scenario (a table, a twin's table).
+/// The files a plan reads besides the scenario (a table, a twin's table, the files an external
+/// estimator runs).
 fn data_inputs(plan: &Plan) -> Vec<PathBuf> {
-    match &plan.source {
+    let mut files: Vec<PathBuf> = match &plan.source {
         Source::Table(t) => vec![t.table.path.clone()],
         Source::Synthetic(s) => s.process.source_file().into_iter().collect(),
+    };
+    for m in &plan.models {
+        files.extend(m.family.input_files());
     }
+    files
 }
 
 /// Where a finished run's outputs go (shared by `run` and `merge`).

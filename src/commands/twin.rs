@@ -342,7 +342,7 @@ fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionTe
     if o.varying {
         s.push_str("varying = true\n");
     } else {
-        s.push_str(&format!("sd = {}\n", r.sd));
+        s.push_str(&format!("sd = {}\n", toml_f64(r.sd)));
     }
     s
 }
@@ -840,7 +840,48 @@ fn load(o: &TwinOptions) -> Result<Table, Error> {
     })
 }
 
+/// Largest magnitude a twin's column may reach: the twin squares and sums values (variances,
+/// noise estimates, distances), which overflow to infinity a little above 1e154.
+const TWIN_VALUE_MAX: f64 = 1e150;
+
+/// Refuses a table whose values a twin cannot square and sum, naming the column.
+fn check_scale(t: &Table) -> Result<(), Error> {
+    let columns =
+        t.x.columns()
+            .into_iter()
+            .zip(t.names.iter())
+            .chain(std::iter::once((t.y.view(), &t.target)));
+    for (col, name) in columns {
+        let big = col.iter().fold(0.0_f64, |m, v| m.max(v.abs()));
+        if big > TWIN_VALUE_MAX {
+            return Err(Error::Usage(format!(
+                "{}: column `{}` reaches {big:e}; a twin squares and sums its values, which \
+                 overflows beyond about {TWIN_VALUE_MAX:e}; rescale the column (for example \
+                 divide it by a power of ten)",
+                t.path.display(),
+                name
+            )));
+        }
+    }
+    Ok(())
+}
+
+/// Checks the scenario the twin is about to write as `run` will plan it. A refusal names the
+/// key of the scenario that was never written, so it is reported as the command's error.
 fn check_plans(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
+    check_written(text, out, folder).map_err(|e| match e {
+        Error::Scenario(s) => Error::Usage(format!(
+            "{} was not written: the twin scenario it would hold is refused at {}: {} (--eval-size \
+             sets its evaluation points)",
+            out.display(),
+            s.key.map_or("its text".to_string(), |k| format!("key `{k}`")),
+            s.message
+        )),
+        other => other,
+    })
+}
+
+fn check_written(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
     let spec = crate::scenario::parse(text, &out.display().to_string())?;
     Ok(Plan::from_spec(
         &spec,
@@ -908,6 +949,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         )));
     }
     let t = load(o)?;
+    check_scale(&t)?;
     let duplicates = o.duplicates.unwrap_or(if o.classes {
         Duplicates::Keep
     } else {

@@ -636,13 +636,25 @@ impl Synthetic {
     }
 }
 
+/// Means below this are drawn by inversion as 0 or 1 ([`draw_counts`]).
+pub const TINY_POISSON_MEAN: f64 = 1e-12;
+
 /// Draws one Poisson count per mean, `y_i ~ Poisson(λ_i)`, from `rng` in index order (the
 /// sampler of `rand_distr`; a mean that is not a finite number > 0 gives 0, but the plan has
-/// refused such a truth through [`Synthetic::sd_at`]).
+/// refused such a truth through [`Synthetic::sd_at`]). Below [`TINY_POISSON_MEAN`] that sampler
+/// returns −1 once `exp(−λ)` rounds to 1 (measured at λ = 1e-17), so such a mean is drawn by
+/// inversion: 1 with probability `1 − exp(−λ)`, else 0 (a count of 2 or more has probability
+/// below λ²/2 < 1e-24 there).
 pub fn draw_counts<R: Rng + ?Sized>(lambda: &Array1<f64>, rng: &mut R) -> Array1<f64> {
-    lambda.mapv(|l| match rand_distr::Poisson::new(l) {
-        Ok(d) => d.sample(rng),
-        Err(_) => 0.0,
+    lambda.mapv(|l| {
+        if l > 0.0 && l < TINY_POISSON_MEAN {
+            let u: f64 = rng.gen();
+            return if u < -(-l).exp_m1() { 1.0 } else { 0.0 };
+        }
+        match rand_distr::Poisson::new(l) {
+            Ok(d) => d.sample(rng),
+            Err(_) => 0.0,
+        }
     })
 }
 
@@ -658,6 +670,22 @@ pub fn add_noise<R: Rng + ?Sized>(f: &Array1<f64>, sd: &Array1<f64>, rng: &mut R
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn tiny_poisson_means_give_counts_never_minus_one() {
+        use rand::SeedableRng;
+        let lambda = ndarray::Array1::from(vec![1e-17, 1e-300, 5e-13, 1e-12, 0.5]);
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+        for _ in 0..2000 {
+            let y = super::draw_counts(&lambda, &mut rng);
+            assert!(y.iter().all(|v| *v >= 0.0 && v.fract() == 0.0), "{y}");
+            assert_eq!(
+                y[0] + y[1],
+                0.0,
+                "a count at a mean of 1e-17 is 0 but for 1e-17 odds"
+            );
+        }
+    }
+
     use super::*;
 
     #[test]

@@ -785,6 +785,17 @@ impl Family for ExternalFamily {
         self.larger_is_simpler
     }
 
+    /// Every word of the command that names an existing file, from the folder the processes
+    /// start in (the program when given as a path, a script, a model file it loads).
+    fn input_files(&self) -> Vec<PathBuf> {
+        let base = self.dir.clone().unwrap_or_default();
+        self.command
+            .iter()
+            .map(|w| base.join(w))
+            .filter(|p| p.is_file())
+            .collect()
+    }
+
     /// Any non-empty grid of finite numbers: the process judges its own knob values (it answers
     /// `error` for values it cannot use).
     fn check_grid(&self, grid: &[f64], _n_train: usize, _n_inputs: usize) -> Result<(), String> {

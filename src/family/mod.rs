@@ -164,6 +164,12 @@ pub trait Family: Send + Sync {
         Caps::default()
     }
 
+    /// Files the family reads while it runs (an external estimator's script or program), so
+    /// that no output of the run may replace them (default: none).
+    fn input_files(&self) -> Vec<std::path::PathBuf> {
+        Vec::new()
+    }
+
     /// Bytes one fit holds beyond its training set and the prediction buffers (the path fit's
     /// work: standardized copies, sort orders, design matrices, neighbour lists) for `n`
     /// training rows, `p` inputs, `m` evaluation points and the grid; the engine adds it per

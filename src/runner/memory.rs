@@ -217,38 +217,6 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
     Estimate { terms, workers: w }
 }
 
-/// The memory available to this process in bytes: `MemAvailable` of `/proc/meminfo` (else
-/// `MemTotal`), lowered by the cgroup (v2) limit minus current use when one is set; `None` when
-/// neither can be read.
-pub fn available() -> Option<u64> {
-    let meminfo = std::fs::read_to_string("/proc/meminfo").ok();
-    let field = |name: &str| -> Option<u64> {
-        meminfo.as_deref()?.lines().find_map(|l| {
-            let rest = l.strip_prefix(name)?.strip_prefix(':')?;
-            let kb: u64 = rest.trim().trim_end_matches("kB").trim().parse().ok()?;
-            Some(kb.saturating_mul(1024))
-        })
-    };
-    let machine = field("MemAvailable").or_else(|| field("MemTotal"));
-    let cgroup = (|| {
-        let max: u64 = std::fs::read_to_string("/sys/fs/cgroup/memory.max")
-            .ok()?
-            .trim()
-            .parse()
-            .ok()?;
-        let cur: u64 = std::fs::read_to_string("/sys/fs/cgroup/memory.current")
-            .ok()?
-            .trim()
-            .parse()
-            .unwrap_or(0);
-        Some(max.saturating_sub(cur))
-    })();
-    match (machine, cgroup) {
-        (Some(a), Some(b)) => Some(a.min(b)),
-        (a, b) => a.or(b),
-    }
-}
-
 /// Refuses `plan` on `threads` workers when its estimate exceeds `limit` bytes (the
 /// `--memory-limit` override), else the available memory; returns the estimate and the
 /// limit it was held to (`None`: the machine's memory is unknown, nothing was checked).
@@ -299,7 +267,10 @@ fn held_to(
 ) -> Result<(Estimate, Option<u64>), Error> {
     let (cap, whose) = match limit {
         Some(l) => (Some(l), "the --memory-limit"),
-        None => (available(), "the memory available on this machine"),
+        None => (
+            crate::codec::available_memory(),
+            "the memory available on this machine",
+        ),
     };
     if let Some(cap) = cap {
         if e.total() > cap as f64 {
@@ -359,7 +330,7 @@ mod tests {
     fn this_machine_reports_memory() {
         // Linux always has /proc/meminfo; elsewhere the check is skipped.
         if std::path::Path::new("/proc/meminfo").exists() {
-            assert!(available().is_some_and(|b| b > 0));
+            assert!(crate::codec::available_memory().is_some_and(|b| b > 0));
         }
     }
 }
