@@ -163,7 +163,8 @@ pub fn effective_df(x: ArrayView2<'_, f64>, penalty: f64) -> f64 {
 }
 
 /// `Z V = W` with orthogonal columns: `s2[j] = ‖w_j‖²` (0 for null directions),
-/// `g[j] = w_jᵀ (y - ȳ)` (0 for null directions), `v` column-major `p × p`.
+/// `g[j] = w_jᵀ (y - ȳ)` (0 for null directions), `v` column-major `p × k` (the k = min(n, p)
+/// directions, or all p when n ≥ p).
 struct Spectrum {
     p: usize,
     s2: Vec<f64>,
@@ -172,7 +173,52 @@ struct Spectrum {
 }
 
 impl Spectrum {
-    fn new(mut z: Vec<f64>, n: usize, p: usize, yc: &[f64]) -> Self {
+    fn new(z: Vec<f64>, n: usize, p: usize, yc: &[f64]) -> Self {
+        if n < p {
+            return Spectrum::wide(z, n, p, yc);
+        }
+        Spectrum::tall(z, n, p, yc)
+    }
+
+    /// More inputs than rows: the one-sided Jacobi SVD of `Zᵀ` (n columns of length p, work
+    /// O(n² p) per sweep, where `Z` itself would take O(p² n) and a p × p `V`). `Zᵀ Ṽ = W̃`
+    /// gives `Z = Ṽ W̃ᵀ`: the singular values `s_j = ‖w̃_j‖`, the right singular vectors
+    /// `v_j = w̃_j / s_j` and `g_j = s_j ṽ_jᵀ (y − ȳ)`, the same quantities as [`Spectrum::tall`]
+    /// up to rounding.
+    fn wide(z: Vec<f64>, n: usize, p: usize, yc: &[f64]) -> Self {
+        let mut zt = vec![0.0; n * p];
+        for j in 0..p {
+            for i in 0..n {
+                zt[i * p + j] = z[j * n + i];
+            }
+        }
+        let vt = jacobi_svd(&mut zt, p, n);
+        let s: Vec<f64> = (0..n).map(|j| norm(&zt[j * p..(j + 1) * p])).collect();
+        let s_max = s.iter().copied().fold(0.0_f64, f64::max);
+        let cut = (n.max(p) as f64) * f64::EPSILON * s_max;
+        let mut s2 = Vec::with_capacity(n);
+        let mut g = Vec::with_capacity(n);
+        let mut v = vec![0.0; p * n];
+        for (j, &sj) in s.iter().enumerate() {
+            if sj > cut && sj > 0.0 {
+                s2.push(sj * sj);
+                let u = &vt[j * n..(j + 1) * n];
+                g.push(sj * u.iter().zip(yc).map(|(a, b)| a * b).sum::<f64>());
+                for (vk, wk) in v[j * p..(j + 1) * p]
+                    .iter_mut()
+                    .zip(&zt[j * p..(j + 1) * p])
+                {
+                    *vk = wk / sj;
+                }
+            } else {
+                s2.push(0.0);
+                g.push(0.0);
+            }
+        }
+        Spectrum { p, s2, g, v }
+    }
+
+    fn tall(mut z: Vec<f64>, n: usize, p: usize, yc: &[f64]) -> Self {
         let (mut w, rows, rhs) = if n >= p {
             // Reduce to the p × p triangle first: Z = Q [R; 0], so Z V = Q [R V; 0].
             let mut qty = yc.to_vec();
@@ -207,13 +253,14 @@ impl Spectrum {
         Spectrum { p, s2, g, v }
     }
 
-    /// `β(λ) = V diag(1 / (s_j² + λ)) g` into `beta`; `w` is scratch of length `p`.
+    /// `β(λ) = V diag(1 / (s_j² + λ)) g` into `beta`; `w` is scratch of length `p` (only the
+    /// first k = `s2.len()` are used).
     fn coefficients(&self, lambda: f64, w: &mut [f64], beta: &mut [f64]) {
         for ((wj, &d), &gj) in w.iter_mut().zip(&self.s2).zip(&self.g) {
             *wj = if d > 0.0 { gj / (d + lambda) } else { 0.0 };
         }
         beta.fill(0.0);
-        for (k, &wk) in w.iter().enumerate() {
+        for (k, &wk) in w.iter().take(self.s2.len()).enumerate() {
             if wk == 0.0 {
                 continue;
             }
@@ -377,6 +424,46 @@ mod tests {
             for i in 0..12 {
                 let want = ybar + fitted[[i, 0]];
                 assert!((out[[g, i]] - want).abs() < 1e-9, "λ={lambda} i={i}");
+            }
+        }
+    }
+
+    #[test]
+    fn wide_design_predictions_match_the_dual_form() {
+        // p > n (the transposed SVD): ridge equals its dual (kernel) form,
+        // β = Zᵀ (Z Zᵀ + λI)⁻¹ (y − ȳ), from (ZᵀZ + λI)⁻¹ Zᵀ = Zᵀ (Z Zᵀ + λI)⁻¹ (Hastie,
+        // Tibshirani and Friedman 2009, §18.3.5, from memory), solved here by Gaussian
+        // elimination on the n × n system, at new points.
+        let (x, y) = data(8, 9, 25);
+        let (eval, _) = data(9, 7, 25);
+        let z = standardize(&x);
+        let ybar = y.mean().unwrap();
+        let yc = (&y - ybar).insert_axis(ndarray::Axis(1));
+        let grid = [0.05, 1.0, 30.0];
+        let out = fit(&x, &y, &eval, &grid);
+        // The evaluation points standardized by the training columns (population sd).
+        let mut ze = eval.clone();
+        for (j, mut c) in ze.columns_mut().into_iter().enumerate() {
+            let col = x.column(j);
+            let mu = col.mean().unwrap();
+            let sd = (col.iter().map(|v| (v - mu).powi(2)).sum::<f64>() / col.len() as f64).sqrt();
+            c.mapv_inplace(|v| (v - mu) / sd);
+        }
+        for (g, &lambda) in grid.iter().enumerate() {
+            let mut k = z.dot(&z.t());
+            for i in 0..9 {
+                k[[i, i]] += lambda;
+            }
+            let alpha = gauss_solve(k, yc.clone());
+            let beta = z.t().dot(&alpha);
+            let pred = ze.dot(&beta);
+            for i in 0..7 {
+                let want = ybar + pred[[i, 0]];
+                assert!(
+                    (out[[g, i]] - want).abs() < 1e-9 * (1.0 + want.abs()),
+                    "λ={lambda} i={i}: {} vs {want}",
+                    out[[g, i]]
+                );
             }
         }
     }
