@@ -1025,12 +1025,11 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             }
             let fit = fit_table(o, &t, &rel)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
-            if let (Rule::Only(Candidate::LocLin), true) =
-                (o.reference, t.rows() > select::LOCLIN_MAX_ROWS)
+            if let (Rule::Only(Candidate::LocLin), Some(why)) =
+                (o.reference, select::loclin_skipped(t.rows(), t.x.ncols()))
             {
                 out.push_str(&format!(
-                    "note: the local-linear candidate is not tried on more than {} rows; the blend stands in\n",
-                    select::LOCLIN_MAX_ROWS
+                    "note: the local-linear candidate is not tried on a table of {why}; the blend stands in\n"
                 ));
             }
             let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));

@@ -906,12 +906,15 @@ fn build_models(
                 &key("family"),
                 match task {
                     Task::Regress => format!("family `{}` does not do regression", fam.name()),
-                    Task::Classify { .. } => format!(
-                        "family `{}` does not classify; with [data.classes] use one of: {}",
+                    Task::Classify { classes } => format!(
+                        "family `{}` does not classify {classes} classes; with [data.classes] \
+                         use one of: {}",
                         fam.name(),
                         family::catalogue()
                             .iter()
-                            .filter(|f| f.tasks.contains("classification"))
+                            .filter(|f| f.tasks.contains("classification")
+                                && (classes <= 2
+                                    || !f.tasks.contains("classification with two classes")))
                             .map(|f| f.name)
                             .collect::<Vec<_>>()
                             .join(", ")

@@ -9,7 +9,8 @@
 //!   [`super::forest::LEAF_CANDIDATES`] by out-of-bag error;
 //! - **loclin**: local-linear kernel regression ([`super::loclin`]), bandwidth from
 //!   [`super::loclin::H_CANDIDATES`] by K-fold cross-validation (not tried on tables of more than
-//!   [`LOCLIN_MAX_ROWS`] rows, where its O(n² p²) cost would dominate);
+//!   [`LOCLIN_MAX_ROWS`] rows or [`LOCLIN_MAX_INPUTS`] inputs, where its O(n² p²) and p³ costs
+//!   would dominate);
 //! - **blend**: stacking (Wolpert 1992, "Stacked generalization", *Neural Networks* 5:241–259;
 //!   Breiman 1996, "Stacked regressions", *Machine Learning* 24:49–64): non-negative weights,
 //!   no intercept, minimizing `‖y − Σ_j w_j p_j‖²` over the candidates' held-out predictions
@@ -41,6 +42,29 @@ pub const K_CANDIDATES: [usize; 15] = [1, 2, 3, 4, 5, 7, 10, 13, 16, 20, 25, 30,
 
 /// Largest table on which the local-linear candidate is tried.
 pub const LOCLIN_MAX_ROWS: usize = 4000;
+
+/// Fewest rows per input with which weighted input metrics are tried (common practice, no
+/// source: a pilot's gradients on fewer rows per input are mostly noise, and the weights it
+/// gives are scored on folds it has seen).
+pub const METRIC_ROWS_PER_INPUT: usize = 10;
+
+/// Most inputs with which the local-linear candidate is tried: each prediction solves a
+/// (p + 1) × (p + 1) local system, so its cost grows like p³ (a 60-row table of 5000 inputs ran
+/// for more than 9 minutes), and a kernel in more dimensions than this holds too few rows to fit
+/// a local plane anyway (common practice, no source).
+pub const LOCLIN_MAX_INPUTS: usize = 30;
+
+/// Why the local-linear candidate is not tried on a table of `n` rows and `p` inputs (`None`:
+/// it is tried).
+pub fn loclin_skipped(n: usize, p: usize) -> Option<String> {
+    if n > LOCLIN_MAX_ROWS {
+        Some(format!("more than {LOCLIN_MAX_ROWS} rows"))
+    } else if p > LOCLIN_MAX_INPUTS {
+        Some(format!("more than {LOCLIN_MAX_INPUTS} inputs"))
+    } else {
+        None
+    }
+}
 
 /// Which candidates may be chosen.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -74,8 +98,9 @@ pub struct Selection {
     /// Folds used.
     pub folds: usize,
     /// Each input metric tried, γ = 0 first (every input alike; see [`METRIC_POWERS`]). Only
-    /// γ = 0 with one input, when the pilot weights every input alike or cannot be fitted, and
-    /// under `Rule::Only(Candidate::Forest)` (trees ignore the weights).
+    /// γ = 0 with one input, with fewer than [`METRIC_ROWS_PER_INPUT`] rows per input, when the
+    /// pilot weights every input alike or cannot be fitted, and under
+    /// `Rule::Only(Candidate::Forest)` (trees ignore the weights).
     pub metric_scores: Vec<MetricScore>,
 }
 
@@ -383,7 +408,8 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
     let fold = fold_assignment(n, folds, &mut rng);
     let fp = forest::out_of_bag(x, y, forest::TREES, seed);
     let fi = argmin(&fp.iter().map(|p| mse(y, p)).collect::<Vec<_>>());
-    let try_loclin = n <= LOCLIN_MAX_ROWS;
+    let loclin_skip = loclin_skipped(n, x.ncols());
+    let try_loclin = loclin_skip.is_none();
     let forest_params = ForestParams {
         trees: forest::TREES,
         min_leaf: forest::LEAF_CANDIDATES[fi],
@@ -395,8 +421,14 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         None,
         tune(x, y, &fold, folds, &base, &fp[fi], try_loclin),
     )];
-    // Weights only matter to k-NN and local-linear: a forced forest skips their tuning.
-    if x.ncols() >= 2 && rule != Rule::Only(Candidate::Forest) {
+    // Weights only matter to k-NN and local-linear: a forced forest skips their tuning. With
+    // fewer than METRIC_ROWS_PER_INPUT rows per input they are not tried: the pilot's weights
+    // have seen every fold, and on a wide table that optimism is large (60 rows of pure noise
+    // on 500 inputs scored a cross-validated R² of 0.59 with weights).
+    if x.ncols() >= 2
+        && n >= METRIC_ROWS_PER_INPUT * x.ncols()
+        && rule != Rule::Only(Candidate::Forest)
+    {
         let pilot = Choice {
             family: Candidate::Forest,
             forest: Some(forest_params),
@@ -487,7 +519,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             tuned: if try_loclin {
                 format!("bandwidth = {bandwidth} sd{weighted}")
             } else {
-                format!("not tried: more than {LOCLIN_MAX_ROWS} rows")
+                format!("not tried: {}", loclin_skip.clone().unwrap_or_default())
             },
         },
         Score {
@@ -672,6 +704,26 @@ mod tests {
             })
             .collect();
         (x, y)
+    }
+
+    /// A table of few rows and many inputs: the same signal as below, but with 60 rows on 35
+    /// inputs neither weighted metrics (fewer than METRIC_ROWS_PER_INPUT rows per input) nor the
+    /// local-linear candidate (more than LOCLIN_MAX_INPUTS inputs) are tried, and both say so.
+    #[test]
+    fn wide_tables_skip_weights_and_local_linear() {
+        let (x, y) = uniform_table(12, 60, 35, 0.3, |r| (6.0 * r[0]).sin() * 2.0);
+        let sel = select(x.view(), &y, 5, Rule::Best);
+        assert_eq!(sel.metric_scores.len(), 1, "{:?}", sel.metric_scores);
+        assert!(sel.choice.metric.is_none());
+        let loclin = &sel.scores[2];
+        assert!(loclin.r2.is_nan(), "{loclin:?}");
+        assert_eq!(loclin.tuned, "not tried: more than 30 inputs");
+        assert_ne!(sel.choice.family, Candidate::LocLin);
+        // Just inside both limits, both are tried.
+        let (x, y) = uniform_table(12, 300, 30, 0.3, |r| (6.0 * r[0]).sin() * 2.0);
+        let sel = select(x.view(), &y, 5, Rule::Best);
+        assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
+        assert!(sel.scores[2].r2.is_finite());
     }
 
     /// y depends on the first of four inputs only: the pilot's gradient weights must single it
