@@ -974,3 +974,27 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
         sizes: None,
     })
 }
+
+#[cfg(test)]
+mod tests {
+    use std::io::Read;
+
+    #[test]
+    fn a_capped_reader_fails_past_its_cap_and_not_before() {
+        let data = vec![b'a'; 100];
+        let mut ok = super::Capped {
+            inner: &data[..],
+            read: 0,
+            cap: 100,
+        };
+        let mut out = Vec::new();
+        assert_eq!(ok.read_to_end(&mut out).unwrap(), 100);
+        let mut over = super::Capped {
+            inner: &data[..],
+            read: 0,
+            cap: 99,
+        };
+        let e = over.read_to_end(&mut Vec::new()).unwrap_err();
+        assert!(e.to_string().contains("more than 99 bytes"), "{e}");
+    }
+}
