@@ -981,7 +981,7 @@ mod tests {
 
     #[test]
     fn a_capped_reader_fails_past_its_cap_and_not_before() {
-        let data = vec![b'a'; 100];
+        let data = [b'a'; 100];
         let mut ok = super::Capped {
             inner: &data[..],
             read: 0,
