@@ -162,6 +162,12 @@ pub fn effective_df(x: ArrayView2<'_, f64>, penalty: f64) -> f64 {
         .sum()
 }
 
+/// Singular values at or below this are null directions: `max(n, p) · ε · s_max`.
+fn rank_cut(s: &[f64], n: usize, p: usize) -> f64 {
+    let s_max = s.iter().copied().fold(0.0_f64, f64::max);
+    (n.max(p) as f64) * f64::EPSILON * s_max
+}
+
 /// `Z V = W` with orthogonal columns: `s2[j] = ‖w_j‖²` (0 for null directions),
 /// `g[j] = w_jᵀ (y - ȳ)` (0 for null directions), `v` column-major `p × k` (the k = min(n, p)
 /// directions, or all p when n ≥ p).
@@ -194,8 +200,7 @@ impl Spectrum {
         }
         let vt = jacobi_svd(&mut zt, p, n);
         let s: Vec<f64> = (0..n).map(|j| norm(&zt[j * p..(j + 1) * p])).collect();
-        let s_max = s.iter().copied().fold(0.0_f64, f64::max);
-        let cut = (n.max(p) as f64) * f64::EPSILON * s_max;
+        let cut = rank_cut(&s, n, p);
         let mut s2 = Vec::with_capacity(n);
         let mut g = Vec::with_capacity(n);
         let mut v = vec![0.0; p * n];
@@ -218,26 +223,22 @@ impl Spectrum {
         Spectrum { p, s2, g, v }
     }
 
+    /// At least as many rows as inputs: reduced to the p × p triangle first, `Z = Q [R; 0]`, so
+    /// `Z V = Q [R V; 0]`, then the one-sided Jacobi SVD of R.
     fn tall(mut z: Vec<f64>, n: usize, p: usize, yc: &[f64]) -> Self {
-        let (mut w, rows, rhs) = if n >= p {
-            // Reduce to the p × p triangle first: Z = Q [R; 0], so Z V = Q [R V; 0].
-            let mut qty = yc.to_vec();
-            let qr = HouseholderQr::factor(&mut z, n, p, None);
-            qr.apply_qt(&mut qty);
-            let mut r = vec![0.0; p * p];
-            for j in 0..p {
-                let top = (j + 1).min(qr.rank());
-                r[j * p..j * p + top].copy_from_slice(&z[j * n..j * n + top]);
-            }
-            qty.truncate(p);
-            (r, p, qty)
-        } else {
-            (z, n, yc.to_vec())
-        };
+        let mut rhs = yc.to_vec();
+        let qr = HouseholderQr::factor(&mut z, n, p, None);
+        qr.apply_qt(&mut rhs);
+        let mut w = vec![0.0; p * p];
+        for j in 0..p {
+            let top = (j + 1).min(qr.rank());
+            w[j * p..j * p + top].copy_from_slice(&z[j * n..j * n + top]);
+        }
+        rhs.truncate(p);
+        let rows = p;
         let v = jacobi_svd(&mut w, rows, p);
         let s: Vec<f64> = (0..p).map(|j| norm(&w[j * rows..(j + 1) * rows])).collect();
-        let s_max = s.iter().copied().fold(0.0_f64, f64::max);
-        let cut = (n.max(p) as f64) * f64::EPSILON * s_max;
+        let cut = rank_cut(&s, n, p);
         let mut s2 = Vec::with_capacity(p);
         let mut g = Vec::with_capacity(p);
         for (j, &sj) in s.iter().enumerate() {
