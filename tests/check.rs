@@ -138,12 +138,17 @@ fn command_line_check() {
     save("noisy.json", &run(noisy(), SMALL, None));
     let other = SMALL.replace("train_size = 40", "train_size = 50");
     save("other.json", &run(NadarayaWatson::default(), &other, None));
-    let one_block = SMALL.replace("replicates = 64", "replicates = 64\nblocks = 1");
-    save(
-        "one-a.json",
-        &run(NadarayaWatson::default(), &one_block, None),
-    );
-    save("one-b.json", &run(noisy(), &one_block, None));
+    // Results without standard errors (`null`), as runs with one block wrote them before such
+    // plans were refused: `check` must still say what is missing rather than compare.
+    let one_block = |fam: NadarayaWatson| {
+        let mut plan =
+            harness::plan_with_family(SMALL, Arc::new(fam), &PlanOptions::default()).unwrap();
+        plan.blocks = 1;
+        let outcome = lossprism::runner::run(&plan, 2).unwrap();
+        lossprism::report::build(&plan, &outcome)
+    };
+    save("one-a.json", &one_block(NadarayaWatson::default()));
+    save("one-b.json", &one_block(noisy()));
 
     let (code, out, _) = run3(d, &["check", "same.json", "--baseline", "base.json"]);
     assert_eq!(code, 0);

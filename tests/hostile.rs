@@ -524,14 +524,14 @@ fn scenario_cases(t: &mut Table) {
         "replicates 1",
         &sc("replicates = 4", "replicates = 1"),
         v,
-        "at least 2",
+        "at least 3",
     );
     t.scenario(
         g,
         "replicates 0",
         &sc("replicates = 4", "replicates = 0"),
         v,
-        "at least 2",
+        "at least 3",
     );
     t.scenario(
         g,
@@ -1515,11 +1515,12 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     let g = "cli";
     let s: &[(&str, &[u8])] = &[("s.toml", BASE.as_bytes())];
     let with_results: &[(&str, &[u8])] = &[("r.json", &docs.result), ("b.json", &docs.result)];
-    // Expected losses at the ends of the float range: their difference overflows.
+    // Bias² at the ends of the float range (a debiased bias² may be negative; an expected
+    // loss may not): their difference overflows.
     let extreme = |sign: f64| {
         edit_json(&docs.result, |v| {
             for p in v["points"].as_array_mut().unwrap() {
-                p["expected_loss"] = serde_json::json!(sign * 1.7e308);
+                p["bias_sq"] = serde_json::json!(sign * 1.7e308);
             }
         })
     };
@@ -1627,7 +1628,7 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         "--replicates 1",
         s,
         &["run", "s.toml", "--replicates", "1", "--out", "r.json"],
-        "at least 2",
+        "at least 3",
     );
     t.add(
         g,
@@ -2315,6 +2316,18 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             "cannot be negative",
         ),
         (
+            "negative variance",
+            edit_json(&docs.result, |v| v["points"][0]["variance"] = (-0.5).into()),
+            "`variance` is -0.5 at",
+        ),
+        (
+            "negative expected loss",
+            edit_json(&docs.result, |v| {
+                v["points"][1]["expected_loss"] = (-1e-3).into()
+            }),
+            "`expected_loss` is -0.001 at",
+        ),
+        (
             "inverted interval",
             edit_json(&docs.result, |v| {
                 v["points"][0]["interval95"] = serde_json::json!({"variance": [0.2, 0.1]})
@@ -2395,9 +2408,19 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         );
     }
     // Finite numbers whose span overflows: the plotting library's tick search never ended.
-    for (name, edit) in [
-        ("expected losses of ±1e308", "expected_loss"),
-        ("grid values of ±1e308", "value"),
+    // (A negative expected loss is refused before the plot: under squared loss it is a mean of
+    // squares.)
+    for (name, edit, needle) in [
+        (
+            "expected losses of ±1e308",
+            "expected_loss",
+            "`expected_loss` is -1e308 at",
+        ),
+        (
+            "grid values of ±1e308",
+            "value",
+            "beyond the range of floating-point numbers",
+        ),
     ] {
         let bytes = edit_json(&docs.result, |v| {
             v["points"][0][edit] = (1e308).into();
@@ -2408,7 +2431,7 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             format!("plot: {name}"),
             &[("r.json", &bytes)],
             &["plot", "r.json", "--out", "c.svg"],
-            "beyond the range of floating-point numbers",
+            needle,
         );
     }
     t.add(
@@ -3223,25 +3246,36 @@ fn a_constant_input_fits_with_poly_or_says_why() {
 }
 
 #[test]
-fn two_replicates_say_what_to_change_for_standard_errors() {
+fn runs_that_cannot_have_standard_errors_are_refused_before_they_run() {
+    // R = 2, or 3 replicates in 2 blocks, could only write standard errors as `null` with
+    // exit 0 (the jackknife leaves one block out and needs 2 replicates in the rest). Now the
+    // plan is refused by key, before any fit, and nothing is written.
     let d = tempfile::tempdir().unwrap();
     let dir = d.path();
     fs::write(dir.join("s.toml"), sc("replicates = 4", "replicates = 2")).unwrap();
     let (code, _, err) = status(dir, &["run", "s.toml", "--out", "a.json"]);
-    assert_eq!(code, 0, "{err}");
+    assert_eq!(code, 2, "{err}");
+    assert_eq!(err.lines().count(), 1, "{err}");
     assert!(
-        err.contains("no standard errors") && err.contains("`replicates` >= 3"),
+        err.contains("s.toml:") && err.contains("`replicates`") && err.contains("at least 3"),
         "{err}"
     );
+    assert!(!dir.join("a.json").exists());
+    fs::write(dir.join("s.toml"), sc("replicates = 4", "replicates = 3")).unwrap();
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "a.json"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(
+        err.contains("`blocks`") && err.contains("3 replicates in 2 blocks"),
+        "{err}"
+    );
+    assert!(!dir.join("a.json").exists());
     let (code, _, err) = status(
         dir,
-        &["run", "s.toml", "--out", "b.json", "--seed", "5", "-q"],
+        &["run", "s.toml", "--replicates", "2", "--out", "a.json"],
     );
-    assert_eq!(code, 0, "{err}");
-    let (code, _, err) = status(dir, &["check", "a.json", "--baseline", "b.json"]);
     assert_eq!(code, 2, "{err}");
-    assert!(err.contains("at least 3 replicates"), "{err}");
-    // Three replicates in three blocks: standard errors, and no note.
+    assert!(err.contains("--replicates"), "{err}");
+    // Three replicates in three blocks: standard errors everywhere, no `null`.
     fs::write(
         dir.join("s.toml"),
         sc("replicates = 4", "replicates = 3").replace("blocks = 2", "blocks = 3"),
@@ -3249,7 +3283,8 @@ fn two_replicates_say_what_to_change_for_standard_errors() {
     .unwrap();
     let (code, _, err) = status(dir, &["run", "s.toml", "--out", "c.json"]);
     assert_eq!(code, 0, "{err}");
-    assert!(!err.contains("no standard errors"), "{err}");
+    let doc = fs::read_to_string(dir.join("c.json")).unwrap();
+    assert!(!doc.contains("null"), "{doc}");
 }
 
 #[test]
@@ -3275,28 +3310,30 @@ fn responses_near_1e150_get_finite_standard_errors() {
 }
 
 #[test]
-fn a_table_run_without_standard_errors_says_so() {
-    // Five rows, R = 4 in 2 blocks: with a block left out no row is held out twice, so the
-    // result's standard errors are `null`; the run said nothing (the table's legend still
-    // promised "± one standard error").
+fn a_table_run_without_standard_errors_is_refused() {
+    // Five rows, R = 4 in 2 blocks: with a block left out no row is held out twice, so some
+    // standard errors cannot be computed. The run wrote them as `null` with exit 0 (at first
+    // without a word, later with a note); now it names the first one, writes nothing and exits
+    // with 2.
     let d = tempfile::tempdir().unwrap();
     let dir = d.path();
     fs::write(dir.join("t.csv"), csv_rows(5, |i| format!("{}", i * i))).unwrap();
     fs::write(dir.join("s.toml"), table_scenario("", TREE)).unwrap();
-    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r.json"]);
-    assert_eq!(code, 0, "{err}");
+    let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r.json", "--csv", "r.csv"]);
+    assert_eq!(code, 2, "{err}");
+    assert_eq!(err.lines().count(), 1, "{err}");
     assert!(
-        err.contains("the expected loss has no standard error at 2 grid value(s)"),
+        err.contains("nothing was written: the standard error of `")
+            && err.contains("raise `replicates`"),
         "{err}"
     );
-    assert!(err.contains("raise `replicates`"), "{err}");
-    // Enough replicates: standard errors, and no note.
+    assert!(!dir.join("r.json").exists() && !dir.join("r.csv").exists());
+    // Enough replicates: standard errors everywhere.
     let (code, _, err) = status(
         dir,
         &["run", "s.toml", "--out", "r2.json", "--replicates", "40"],
     );
     assert_eq!(code, 0, "{err}");
-    assert!(!err.contains("no standard error"), "{err}");
     let doc = fs::read_to_string(dir.join("r2.json")).unwrap();
     assert!(!doc.contains("null"), "{doc}");
 }

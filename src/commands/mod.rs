@@ -108,9 +108,7 @@ fn emit(
     ids: [Option<OutputId>; 7],
 ) -> Result<u8, Error> {
     let doc = report::build(plan, outcome);
-    if !o.quiet {
-        note_missing_stderr(plan, outcome);
-    }
+    refuse_missing(plan, &doc)?;
     let several_models = !doc.models.is_empty();
     // A picture shows one decomposition: with `all` (tables only) the report draws Domingos's.
     let pic_view = if o.view == View::All {
@@ -242,7 +240,6 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     runner::pool_check(args.threads)?;
     // Before anything is allocated: the evaluation points, the training sets, the accumulators.
     runner::memory::check(&plan, args.threads, args.memory_limit)?;
-    warn_no_stderr(&plan, args.quiet);
     if let Some(value) = args.assess {
         return assess(&args, &plan, value);
     }
@@ -720,57 +717,32 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
     Ok(0)
 }
 
-/// Says on standard error when the run will have no standard errors (fewer than 2 blocks, or a
-/// jackknife that leaves fewer than 2 replicates), and what to change.
-fn warn_no_stderr(plan: &Plan, quiet: bool) {
-    if quiet {
-        return;
-    }
-    let largest = (0..plan.blocks)
-        .map(|b| {
-            let (s, e) = plan.block_range(b);
-            e - s
-        })
-        .max()
-        .unwrap_or(0);
-    if plan.blocks < 2 || plan.replicates.saturating_sub(largest) < 2 {
-        eprintln!(
-            "note: R = {} in {} blocks gives no standard errors (the jackknife leaves one block \
-             out and needs at least 2 replicates in the rest); use `replicates` >= 3 with \
-             `blocks` >= 2 for them",
-            plan.replicates, plan.blocks
-        );
-    }
-}
-
-/// Says so when a table run that should have standard errors (enough
-/// replicates and blocks, see [`warn_no_stderr`]) has none for the expected loss somewhere: a
-/// leave-one-block-out fold kept no row held out in 2 or more replicates (few rows, or a large
-/// `train_fraction`). The result then carries `null` there, as with R = 2.
-fn note_missing_stderr(plan: &Plan, outcome: &runner::Outcome) {
-    if !matches!(plan.source, Source::Table(_)) || plan.blocks < 2 {
-        return;
-    }
-    let missing = outcome
-        .summaries
-        .iter()
-        .filter_map(|s| {
-            let t = s.index("expected_loss")?;
-            Some(s.stderr.iter().filter(|row| row[t].is_nan()).count())
-        })
-        .sum::<usize>();
-    if missing > 0 {
-        eprintln!(
-            "note: the expected loss has no standard error at {missing} grid value(s): with one \
-             of the {} blocks left out, no row was held out in 2 or more of the remaining \
-             replicates; raise `replicates` (the table has {} rows to resample)",
+/// Refuses a finished run whose result would hold a number that could not be computed (a
+/// standard error, an interval; written as `null`), before anything is written or printed:
+/// non-finite numbers are errors, never `null` with exit 0. Plans with too few replicates or
+/// blocks are refused before they run (`MIN_REPLICATES`); what is left is a table with so few
+/// rows (or so large a `train_fraction`) that, with one block left out, no row was held out in 2
+/// or more of the remaining replicates.
+fn refuse_missing(plan: &Plan, doc: &report::ResultDoc) -> Result<(), Error> {
+    let Some(what) = report::first_missing(doc) else {
+        return Ok(());
+    };
+    let why = match &plan.source {
+        Source::Table(tp) => format!(
+            "with one of the {} blocks left out, no row was held out in 2 or more of the \
+             remaining replicates; raise `replicates` (the table has {} rows to resample)",
             plan.blocks,
-            match &plan.source {
-                Source::Table(tp) => tp.work.len(),
-                _ => 0,
-            }
-        );
-    }
+            tp.work.len()
+        ),
+        _ => format!(
+            "it could not be computed from R = {} in {} blocks; raise `replicates`",
+            plan.replicates, plan.blocks
+        ),
+    };
+    Err(Error::Data(format!(
+        "{}: nothing was written: {what} cannot be computed: {why}",
+        plan.file
+    )))
 }
 
 /// `lossprism validate`.

@@ -643,6 +643,29 @@ impl ResultDoc {
                         .map_or(String::new(), |n| format!(" at training size {n}")),
                 ));
             }
+            // Under squared loss these two are means of squares (the variance an unbiased
+            // sample variance over replicates): never negative, unlike the debiased bias².
+            if self.loss == "squared" {
+                for key in ["expected_loss", "variance"] {
+                    let v = p.get(key);
+                    if v < 0.0 {
+                        return Err(format!(
+                            "`{key}` is {} at {} = {}{}: under squared loss it is a mean of \
+                             squares and cannot be negative, so the document was edited or damaged",
+                            if v.abs() < 1e6 {
+                                format!("{v}")
+                            } else {
+                                format!("{v:e}")
+                            },
+                            self.knob,
+                            crate::fmt::fmt_value(p.value),
+                            p.family
+                                .as_ref()
+                                .map_or(String::new(), |f| format!(" (family {f})"))
+                        ));
+                    }
+                }
+            }
         }
         Ok(())
     }
@@ -1593,6 +1616,56 @@ pub fn best_of(points: &[PointRow]) -> Best {
         stderr: se,
         within_one_se: within,
     }
+}
+
+/// The first number of `doc` that could not be computed (it would be written as `null`), named
+/// so that a user can find it: the term, family, training size and knob value of a grid row, or
+/// the JSON path elsewhere. `None` when every number is finite. A run refuses to write (or
+/// print) such a result: non-finite numbers are errors, never `null` with exit 0.
+pub fn first_missing(doc: &ResultDoc) -> Option<String> {
+    for p in &doc.points {
+        let bad = p
+            .stderr
+            .iter()
+            .find(|(_, v)| !v.is_finite())
+            .map(|(k, _)| format!("the standard error of `{k}`"))
+            .or_else(|| {
+                p.interval
+                    .iter()
+                    .find(|(_, (lo, hi))| !lo.is_finite() || !hi.is_finite())
+                    .map(|(k, _)| format!("the 95 % interval of `{k}`"))
+            });
+        if let Some(what) = bad {
+            let mut at = format!("{} = {}", doc.knob, fmt_value(p.value));
+            if let Some(f) = &p.family {
+                at = format!("{f}, {at}");
+            }
+            if let Some(n) = p.train_size {
+                at = format!("{at}, n = {n}");
+            }
+            return Some(format!("{what} at {at}"));
+        }
+    }
+    let v = serde_json::to_value(doc).ok()?;
+    fn walk(v: &serde_json::Value, path: &str) -> Option<String> {
+        match v {
+            serde_json::Value::Null => Some(format!("`{path}`")),
+            serde_json::Value::Array(a) => a
+                .iter()
+                .enumerate()
+                .find_map(|(i, x)| walk(x, &format!("{path}[{i}]"))),
+            serde_json::Value::Object(m) => m.iter().find_map(|(k, x)| {
+                let p = if path.is_empty() {
+                    k.clone()
+                } else {
+                    format!("{path}.{k}")
+                };
+                walk(x, &p)
+            }),
+            _ => None,
+        }
+    }
+    walk(&v, "")
 }
 
 /// The JSON text of a result (pretty, newline-terminated).

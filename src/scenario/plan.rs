@@ -24,6 +24,11 @@ use crate::family::{self, BuildContext, Family, Options, Task};
 pub const DEFAULT_REPLICATES: u64 = 200;
 /// Default master seed when the file gives none.
 pub const DEFAULT_SEED: u64 = 1;
+/// Fewest replicates a run accepts: every standard error is a jackknife that leaves one block of
+/// replicates out and needs 2 replicates in the rest, so R = 2 (or one block) could only write
+/// results without standard errors, which are refused (never `null` with exit 0).
+pub const MIN_REPLICATES: u64 = 3;
+
 /// Default number of blocks is `min(R, DEFAULT_MAX_BLOCKS)`.
 pub const DEFAULT_MAX_BLOCKS: u64 = 32;
 /// Most fits per training set (`fit_seeds`).
@@ -328,22 +333,53 @@ impl Plan {
                         ),
                     ));
                 }
-                if r < 2 {
+                if r < MIN_REPLICATES {
                     return Err(cx.err_line(
                         None,
                         "--replicates",
-                        format!("must be at least 2, got {r}"),
+                        format!(
+                            "must be at least {MIN_REPLICATES}, got {r} (every standard error \
+                             leaves one block of replicates out and needs 2 in the rest)"
+                        ),
                     ));
                 }
                 r
             }
-            (None, Some(r)) => cx.positive(r, "replicates", 2)?,
+            (None, Some(r)) => {
+                if i64::from(*r.get_ref()) < MIN_REPLICATES as i64 {
+                    return Err(cx.err(
+                        Some(r.span()),
+                        "replicates",
+                        format!(
+                            "must be at least {MIN_REPLICATES}, got {} (every standard error \
+                             leaves one block of replicates out and needs 2 in the rest)",
+                            r.get_ref()
+                        ),
+                    ));
+                }
+                cx.positive(r, "replicates", MIN_REPLICATES as i64)?
+            }
             (None, None) => DEFAULT_REPLICATES,
         };
         let blocks = match &spec.blocks {
-            Some(b) => {
-                let b = cx.positive(b, "blocks", 1)?;
-                b.min(replicates)
+            Some(bs) => {
+                let b = cx.positive(bs, "blocks", 2)?;
+                let b = b.min(replicates);
+                // The largest block left out must leave 2 replicates for a standard error.
+                let largest = replicates.div_ceil(b);
+                if replicates - largest < 2 {
+                    return Err(cx.err(
+                        Some(bs.span()),
+                        "blocks",
+                        format!(
+                            "{replicates} replicates in {b} blocks leave {} when the largest \
+                             block is left out, and a standard error needs 2; use `blocks = \
+                             {replicates}` or more replicates",
+                            replicates - largest
+                        ),
+                    ));
+                }
+                b
             }
             None => replicates.min(DEFAULT_MAX_BLOCKS),
         };
