@@ -346,7 +346,7 @@ impl Plan {
                 r
             }
             (None, Some(r)) => {
-                if i64::from(*r.get_ref()) < MIN_REPLICATES as i64 {
+                if *r.get_ref() < MIN_REPLICATES as i64 {
                     return Err(cx.err(
                         Some(r.span()),
                         "replicates",
