@@ -195,22 +195,24 @@ impl LocLin {
 }
 
 /// Out-of-fold predictions for every bandwidth of [`H_CANDIDATES`] (`out[c][i]`: row i predicted
-/// from the rows of the other folds), on inputs standardized by `std` (the whole table's
-/// statistics, possibly with weighted inputs).
+/// from the rows of the other folds), on inputs standardized by `stds` (the whole table's
+/// statistics, possibly with weighted inputs): one standardizer for every fold, or one per fold
+/// (row i's fold's).
 pub fn out_of_fold_with(
     x: ArrayView2<'_, f64>,
     y: &[f64],
     fold: &[usize],
-    std: &Standardizer,
+    stds: &[Standardizer],
 ) -> Vec<Vec<f64>> {
     let n = y.len();
-    let z = standardized(x, std);
+    let zs: Vec<_> = stds.iter().map(|s| standardized(x, s)).collect();
     let mut out = vec![vec![0.0; n]; H_CANDIDATES.len()];
     let mut tmp = vec![0.0; H_CANDIDATES.len()];
     let mut s = Scratch::default();
     for i in 0..n {
-        let q = z.row(i).to_vec();
         let fi = fold[i];
+        let z = &zs[if zs.len() == 1 { 0 } else { fi }];
+        let q = z.row(i).to_vec();
         at_point(
             z.view(),
             y,
