@@ -195,24 +195,22 @@ impl LocLin {
 }
 
 /// Out-of-fold predictions for every bandwidth of [`H_CANDIDATES`] (`out[c][i]`: row i predicted
-/// from the rows of the other folds), on inputs standardized by `stds` (the whole table's
-/// statistics, possibly with weighted inputs): one standardizer for every fold, or one per fold
-/// (row i's fold's).
+/// from the rows of the other folds), on inputs standardized by `std` (the whole table's
+/// statistics, possibly with weighted inputs).
 pub fn out_of_fold_with(
     x: ArrayView2<'_, f64>,
     y: &[f64],
     fold: &[usize],
-    stds: &[Standardizer],
+    std: &Standardizer,
 ) -> Vec<Vec<f64>> {
     let n = y.len();
-    let zs: Vec<_> = stds.iter().map(|s| standardized(x, s)).collect();
+    let z = standardized(x, std);
     let mut out = vec![vec![0.0; n]; H_CANDIDATES.len()];
     let mut tmp = vec![0.0; H_CANDIDATES.len()];
     let mut s = Scratch::default();
     for i in 0..n {
-        let fi = fold[i];
-        let z = &zs[if zs.len() == 1 { 0 } else { fi }];
         let q = z.row(i).to_vec();
+        let fi = fold[i];
         at_point(
             z.view(),
             y,
