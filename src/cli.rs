@@ -193,7 +193,7 @@ pub struct RunArgs {
     /// row's line in the CSV file, the header being line 1, as in error messages.
     #[arg(long, value_name = "FILE.csv")]
     pub points: Option<PathBuf>,
-    /// Override the number of replicates R (at least 2).
+    /// Override the number of replicates R (at least 3: standard errors leave one block out).
     #[arg(long, allow_negative_numbers = true, value_name = "R")]
     pub replicates: Option<u64>,
     /// Override the master seed: fresh training sets and fit seeds. The evaluation points and a

@@ -28,6 +28,9 @@ pub const DEFAULT_SEED: u64 = 1;
 /// replicates out and needs 2 replicates in the rest, so R = 2 (or one block) could only write
 /// results without standard errors, which are refused (never `null` with exit 0).
 pub const MIN_REPLICATES: u64 = 3;
+/// Why, in the words of the refusal.
+const WHY_MIN: &str =
+    "every standard error leaves one block of replicates out and needs 2 in the rest";
 
 /// Default number of blocks is `min(R, DEFAULT_MAX_BLOCKS)`.
 pub const DEFAULT_MAX_BLOCKS: u64 = 32;
@@ -337,10 +340,7 @@ impl Plan {
                     return Err(cx.err_line(
                         None,
                         "--replicates",
-                        format!(
-                            "must be at least {MIN_REPLICATES}, got {r} (every standard error \
-                             leaves one block of replicates out and needs 2 in the rest)"
-                        ),
+                        format!("must be at least {MIN_REPLICATES}, got {r} ({WHY_MIN})"),
                     ));
                 }
                 r
@@ -351,8 +351,7 @@ impl Plan {
                         Some(r.span()),
                         "replicates",
                         format!(
-                            "must be at least {MIN_REPLICATES}, got {} (every standard error \
-                             leaves one block of replicates out and needs 2 in the rest)",
+                            "must be at least {MIN_REPLICATES}, got {} ({WHY_MIN})",
                             r.get_ref()
                         ),
                     ));

@@ -23,11 +23,12 @@ pub struct ScenarioSpec {
     /// same points (see `lossprism check`).
     #[serde(default)]
     pub eval_seed: Option<u64>,
-    /// Number of replicate training sets R (at least 2).
+    /// Number of replicate training sets R (at least 3).
     #[serde(default)]
     pub replicates: Option<Spanned<i64>>,
     /// Number of replicate blocks (the unit of parallel work, shards, checkpoints and the
-    /// jackknife); default `min(R, 32)`.
+    /// jackknife); default `min(R, 32)`; at least 2, and leaving the largest out must keep 2
+    /// replicates.
     #[serde(default)]
     pub blocks: Option<Spanned<i64>>,
     /// Where training sets come from (required; missing is reported by the planner).
