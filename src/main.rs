@@ -17,7 +17,10 @@ fn main() -> ExitCode {
                 let _ = e.print();
                 return ExitCode::from(0);
             }
-            eprintln!("{}", terminal_safe(&one_line(&e.render().to_string())));
+            lossprism::output::tell(&format!(
+                "{}\n",
+                terminal_safe(&one_line(&e.render().to_string()))
+            ));
             return ExitCode::from(2);
         }
     };
@@ -36,7 +39,7 @@ fn main() -> ExitCode {
     match result {
         Ok(code) => ExitCode::from(code),
         Err(e) => {
-            eprintln!("error: {}", terminal_safe(&e.to_string()));
+            lossprism::output::tell(&format!("error: {}\n", terminal_safe(&e.to_string())));
             ExitCode::from(2)
         }
     }

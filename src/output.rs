@@ -874,6 +874,20 @@ fn wait(progress: Instant, nap: &mut Duration) -> io::Result<()> {
     Ok(())
 }
 
+/// Writes `text` to standard output. A failed write (a closed pipe, a full disk, a closed
+/// descriptor) is an error naming standard output — never the panic of `print!`.
+pub fn say(text: &str) -> Result<(), Error> {
+    let mut out = io::stdout().lock();
+    write_patiently(&mut out, text.as_bytes()).map_err(|e| Error::io("standard output", &e))
+}
+
+/// Writes `text` to standard error, ignoring a failed write: there is nowhere left to report it,
+/// and `eprint!` would panic.
+pub fn tell(text: &str) {
+    let mut err = io::stderr().lock();
+    let _ = err.write_all(text.as_bytes()).and_then(|_| err.flush());
+}
+
 /// Writes all of `bytes`, waiting out a full pipe (the file may be non-blocking) for at most
 /// [`STALL_LIMIT`] without progress.
 fn write_patiently(w: &mut impl Write, bytes: &[u8]) -> io::Result<()> {

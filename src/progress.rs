@@ -10,6 +10,13 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 
 use crate::runner::Watch;
 
+/// `eprintln!` without its panic: a failed write to standard error is ignored.
+macro_rules! tellln {
+    ($($t:tt)*) => {
+        $crate::output::tell(&format!("{}\n", format_args!($($t)*)))
+    };
+}
+
 /// Set by the Ctrl-C handler; read by [`Progress::stop`].
 static INTERRUPTED: AtomicBool = AtomicBool::new(false);
 
@@ -56,7 +63,7 @@ pub fn install_interrupt(mode: OnInterrupt) {
         OnInterrupt::ExitNow {
             checkpoint: Some(ck),
         } => {
-            eprintln!(
+            tellln!(
                 "\ninterrupted: the finished blocks are saved in {}; rerun the same command to \
                  resume",
                 ck.display()
@@ -64,22 +71,22 @@ pub fn install_interrupt(mode: OnInterrupt) {
             std::process::exit(130);
         }
         OnInterrupt::ExitNow { checkpoint: None } => {
-            eprintln!("\ninterrupted: nothing written");
+            tellln!("\ninterrupted: nothing written");
             std::process::exit(130);
         }
         OnInterrupt::FinishBlocks { checkpoint } => {
             if INTERRUPTED.swap(true, Ordering::SeqCst) {
                 match checkpoint {
-                    Some(ck) => eprintln!(
+                    Some(ck) => tellln!(
                         "\ninterrupted twice: stopping now; the finished blocks are saved in {}; \
                          rerun the same command to resume",
                         ck.display()
                     ),
-                    None => eprintln!("\ninterrupted twice: stopping now, nothing written"),
+                    None => tellln!("\ninterrupted twice: stopping now, nothing written"),
                 }
                 std::process::exit(130);
             }
-            eprintln!(
+            tellln!(
                 "\ninterrupt: finishing the blocks in flight, then stopping (Ctrl-C again to \
                  stop now)"
             );

@@ -779,6 +779,9 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         new_blocks: 0,
     });
     let sink = |b: u64, block: &BlockResult| -> Result<bool, Error> {
+        if job.checkpoint.is_some() || job.shard.is_some() {
+            runner::check_block(plan, &prepared, b, block)?;
+        }
         let mut st = state.lock().unwrap_or_else(|e| e.into_inner());
         st.blocks.insert(b, block.clone());
         st.new_blocks += 1;

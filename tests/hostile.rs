@@ -1144,6 +1144,105 @@ fn csv_cases(t: &mut Table) {
         &["twin", "/dev/zero", "--target", "y", "--out", "tw.toml"],
         "is a device or a socket",
     );
+    // Found by a hostile-input sweep (2026-12-03).
+    let csv = good_csv();
+    let huge_y = csv_rows(40, |i| format!("{:e}", (i % 7) as f64 * 1e80));
+    t.add(
+        "csv",
+        "twin of a target whose fourth powers overflow",
+        &[("t.csv", huge_y.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--out",
+            "tw.toml",
+        ],
+        "column `y` reaches 6e80",
+    );
+    t.add(
+        "csv",
+        "twin into a missing folder, refused before the fit",
+        &[("t.csv", csv.as_bytes())],
+        &["twin", "t.csv", "--target", "y", "--out", "nod/tw.toml"],
+        "does not exist",
+    );
+    t.add(
+        "csv",
+        "twin with an unbounded fidelity check",
+        &[("t.csv", csv.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "1000000000",
+            "--out",
+            "tw.toml",
+        ],
+        "--fidelity must be at most 1000",
+    );
+    t.add(
+        "csv",
+        "twin of a pipe",
+        &[],
+        &["twin", "t.csv", "--target", "y", "--out", "tw.toml"],
+        "a pipe, not a file",
+    )
+    .extra(Extra::Fifo("t.csv"));
+    t.add(
+        "csv",
+        "table scenario with [data.noise], named at its own line",
+        &[
+            (
+                "s.toml",
+                table_scenario("\n[data.noise]\nsd = 1.0", TREE).as_bytes(),
+            ),
+            ("t.csv", csv.as_bytes()),
+        ],
+        &["validate", "s.toml"],
+        "s.toml:11: key `data.noise`",
+    );
+    t.add(
+        "scenario",
+        "synthetic scenario with a twin's reference, named at its line",
+        &[(
+            "s.toml",
+            sc(
+                "source = \"synthetic\"\n",
+                "source = \"synthetic\"\nreference = { family = \"knn\", k = 3 }\n",
+            )
+            .as_bytes(),
+        )],
+        &["validate", "s.toml"],
+        "s.toml:8: key `data.reference`",
+    );
+    let overflow = sc("formula = \"x\"", "formula = \"1e200*x\"");
+    t.add(
+        "scenario",
+        "shard of a run whose sums overflow writes no part",
+        &[("s.toml", overflow.as_bytes())],
+        &["run", "s.toml", "--shard", "1/2", "--out", "p1.json"],
+        "rescale the response",
+    );
+    t.add(
+        "scenario",
+        "checkpoint of a run whose sums overflow is not written",
+        &[("s.toml", overflow.as_bytes())],
+        &[
+            "run",
+            "s.toml",
+            "--out",
+            "r.json",
+            "--checkpoint",
+            "ck.json",
+        ],
+        "rescale the response",
+    );
     t.table("blank file", b"\n\n  \n", "", "the file is empty");
     t.table("header only", b"a,b,y\n", "", "no data rows");
     t.table("numeric header", b"1,2,3\n4,5,6\n", "", "no header");
@@ -1760,6 +1859,16 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     let csv = good_csv();
     t.add(
         g,
+        "--assess a huge value, echoed short",
+        &[
+            ("h.toml", table_scenario("holdout = 0.25", TREE).as_bytes()),
+            ("t.csv", csv.as_bytes()),
+        ],
+        &["run", "h.toml", "--assess", "1e300"],
+        "--assess 1e300: max_depth = 1e300 is outside",
+    );
+    t.add(
+        g,
         "--assess at a value beyond the memory limit",
         &[
             ("h.toml", wide_assess.as_bytes()),
@@ -2070,6 +2179,23 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
         &["check", "r.json", "--baseline", "./r.json", "--update"],
         "--baseline",
     );
+    // The folders `--update` would create are removed again when it refuses (the catalogue
+    // checks that the folder is left as it was).
+    t.add(
+        g,
+        "check --update into a folder path leaves no folder behind",
+        &[("r.json", &docs.result)],
+        &["check", "r.json", "--baseline", "nd/sub/..", "--update"],
+        "names a folder",
+    );
+    t.add(
+        g,
+        "check --update onto a link to the result prints no comparison",
+        &[("r.json", &docs.result)],
+        &["check", "r.json", "--baseline", "link.json", "--update"],
+        "an input",
+    )
+    .extra(Extra::Link("link.json", "r.json"));
 }
 
 fn document_cases(t: &mut Table, docs: &Docs) {
@@ -3443,4 +3569,37 @@ fn a_merge_is_held_to_what_merging_holds_not_to_the_fits() {
     assert!(fits > 0.0);
     let gap = (merge.total() + fits - run.total()).abs();
     assert!(gap <= 1e-9 * run.total(), "{gap}");
+}
+
+#[test]
+fn a_failed_write_to_standard_output_is_an_error_not_a_panic() {
+    // `/dev/full` fails every write (no space left on device). Printing the table, the family
+    // list or the validation summary there must give a one-line error and exit 2, as a failed
+    // result file does — not the panic of `print!` (found by a hostile-input sweep).
+    let Ok(full) = fs::OpenOptions::new().write(true).open("/dev/full") else {
+        eprintln!("note: no /dev/full here; skipping");
+        return;
+    };
+    let d = tempfile::tempdir().unwrap();
+    fs::write(d.path().join("s.toml"), BASE).unwrap();
+    let cases: [&[&str]; 3] = [
+        &["validate", "s.toml"],
+        &["families"],
+        &["run", "s.toml", "--out", "r.json"],
+    ];
+    for args in cases {
+        let out = Command::new(bin())
+            .args(args)
+            .current_dir(d.path())
+            .stdout(full.try_clone().unwrap())
+            .stderr(Stdio::piped())
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{args:?}: {err}");
+        assert!(
+            err.starts_with("error: standard output:") && err.lines().count() == 1,
+            "{args:?}: {err}"
+        );
+    }
 }

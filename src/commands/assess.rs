@@ -77,7 +77,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
     model
         .family
         .check_grid(&[value], tp.work.len(), table.x.ncols())
-        .map_err(|m| Error::Usage(format!("--assess {value}: {m}")))?;
+        .map_err(|m| Error::Usage(format!("--assess {}: {m}", crate::fmt::fmt_exact(value))))?;
     let x = table.x.select(Axis(0), &tp.work);
     let y = table.y.select(Axis(0), &tp.work);
     let xh = table.x.select(Axis(0), &tp.holdout);

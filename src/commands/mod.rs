@@ -16,6 +16,34 @@ use crate::report::terminal::View;
 use crate::scenario::{self, Plan, PlanOptions, Source};
 use crate::{family, progress, report, runner, shard};
 
+/// `print!` without its panic: a failed write to standard output is an error (exit 2).
+macro_rules! say {
+    ($($t:tt)*) => {
+        $crate::output::say(&format!($($t)*))?
+    };
+}
+
+/// `println!` without its panic ([`say!`] with a newline).
+macro_rules! sayln {
+    ($($t:tt)*) => {
+        $crate::output::say(&format!("{}\n", format_args!($($t)*)))?
+    };
+}
+
+/// `eprintln!` without its panic: a failed write to standard error is ignored.
+macro_rules! tellln {
+    ($($t:tt)*) => {
+        $crate::output::tell(&format!("{}\n", format_args!($($t)*)))
+    };
+}
+
+/// `eprint!` without its panic.
+macro_rules! tell {
+    ($($t:tt)*) => {
+        $crate::output::tell(&format!($($t)*))
+    };
+}
+
 /// The files a plan reads besides the scenario (a table, a twin's table, the files an external
 /// estimator runs).
 fn data_inputs(plan: &Plan) -> Vec<PathBuf> {
@@ -210,9 +238,9 @@ fn emit(
     if !o.quiet {
         let table = report::terminal::render_view(&doc, o.view);
         if o.to_stdout() {
-            eprint!("{table}");
+            tell!("{table}");
         } else {
-            print!("{table}");
+            say!("{table}");
         }
     }
     Ok(0)
@@ -318,7 +346,7 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
             Ok(o) => o,
             Err(stopped) => {
                 watch.clear();
-                eprintln!(
+                tellln!(
                     "interrupted after {} of {} replicates (the blocks in flight finished); nothing \
                      was written: rerun to start again",
                     stopped.replicates_done, stopped.replicates
@@ -377,7 +405,7 @@ fn run_in_blocks(
                 ),
                 None => "nothing was written: rerun to start again".into(),
             };
-            eprintln!(
+            tellln!(
                 "interrupted after {} of {total} blocks ({new_blocks} completed in this session; \
                  the blocks in flight finished); {kept}",
                 total - remaining
@@ -394,7 +422,7 @@ fn run_in_blocks(
                 .as_ref()
                 .map(|p| p.display().to_string())
                 .unwrap_or_default();
-            eprintln!(
+            tellln!(
                 "stopped as asked after {new_blocks} newly completed blocks; {remaining} blocks \
                  remain; rerun the same command to resume from {ck}"
             );
@@ -404,7 +432,7 @@ fn run_in_blocks(
     };
     if done.resumed > 0 && !args.quiet {
         if let Some(ck) = &args.checkpoint {
-            eprintln!(
+            tellln!(
                 "resumed: {} of {total} blocks from {}",
                 done.resumed,
                 ck.display()
@@ -426,7 +454,7 @@ fn run_in_blocks(
         set.commit(vec![(id, shard::part_json(&doc).into_bytes())])?;
         let range = s.block_range(plan.blocks);
         if !args.quiet {
-            eprintln!(
+            tellln!(
                 "shard {s}: blocks {}..{} of {} written to {}; combine all {} parts with \
                  `lossprism merge`",
                 range.start,
@@ -516,22 +544,30 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         Ok((text, doc))
     };
     let (text, new) = read(&args.result)?;
-    let write_baseline = |text: &str| -> Result<(), Error> {
-        if let Some(dir) = args.baseline.parent() {
-            if !dir.as_os_str().is_empty() && !dir.exists() {
-                std::fs::create_dir_all(dir).map_err(|e| Error::io(dir, &e))?;
-            }
+    // `--update` creates the baseline's missing folders, checks the path before comparing (so a
+    // refused path prints no comparison), and removes the folders it made if it refuses.
+    let inputs = [("the result document", args.result.as_path())];
+    let made = if args.update {
+        make_folders(&args.baseline)?
+    } else {
+        Vec::new()
+    };
+    let undo = |e: Error| -> Error {
+        for d in made.iter().rev() {
+            let _ = std::fs::remove_dir(d);
         }
-        crate::output::write_one(
-            "--baseline",
-            &args.baseline,
-            &[("the result document", args.result.as_path())],
-            text.as_bytes(),
-        )
+        e
+    };
+    if args.update {
+        crate::output::check(&inputs, &[("--baseline", args.baseline.as_path())]).map_err(undo)?;
+    }
+    let write_baseline = |text: &str| -> Result<(), Error> {
+        crate::output::write_one("--baseline", &args.baseline, &inputs, text.as_bytes())
+            .map_err(undo)
     };
     if args.update && !args.baseline.exists() {
         write_baseline(&text)?;
-        println!(
+        sayln!(
             "baseline {} created from {}",
             args.baseline.display(),
             args.result.display()
@@ -548,13 +584,38 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
     }
     let (_, base) = read(&args.baseline)?;
     let rep = check::compare(&new, &base, &opts).map_err(|e| Error::Usage(e.to_string()))?;
-    print!("{rep}");
+    say!("{rep}");
     if args.update {
         write_baseline(&text)?;
-        println!("baseline {} updated", args.baseline.display());
+        sayln!("baseline {} updated", args.baseline.display());
         return Ok(0);
     }
     Ok(rep.exit_code())
+}
+
+/// Creates the missing folders above `path`, returning those it made (outermost first).
+fn make_folders(path: &Path) -> Result<Vec<PathBuf>, Error> {
+    let mut missing = Vec::new();
+    let mut dir = path.parent();
+    while let Some(d) = dir {
+        if d.as_os_str().is_empty() || d.exists() {
+            break;
+        }
+        missing.push(d.to_path_buf());
+        dir = d.parent();
+    }
+    missing.reverse();
+    let mut made = Vec::new();
+    for d in missing {
+        if let Err(e) = std::fs::create_dir(&d) {
+            for m in made.iter().rev() {
+                let _ = std::fs::remove_dir(m);
+            }
+            return Err(Error::io(&d, &e));
+        }
+        made.push(d);
+    }
+    Ok(made)
 }
 
 /// Reads a text file, refusing it before reading when it is larger than `limit` bytes (and
@@ -696,7 +757,7 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
     runner::memory::check(&one, 1, args.memory_limit)?;
     let ledger = assess::ledger_path(path);
     let a = assess::assess(plan, value, &ledger)?;
-    println!(
+    sayln!(
         "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
          (assessment {} of this holdout, hash {}, ledger {})",
         plan.name,
@@ -712,7 +773,7 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
         ledger.display()
     );
     if let Some(w) = &a.warning {
-        eprintln!("{w}");
+        tellln!("{w}");
     }
     Ok(0)
 }
@@ -762,14 +823,14 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
         .iter()
         .map(|m| format!("{} family, {} grid values", m.family.name(), m.grid.len()))
         .collect();
-    println!(
+    sayln!(
         "{}: valid ({}, R = {}, n = {})",
         scenario.display(),
         models.join("; "),
         plan.replicates,
         plan.train_size()
     );
-    println!(
+    sayln!(
         "memory: {} on {} worker threads; {}",
         estimate.describe(),
         estimate.workers,
@@ -795,12 +856,14 @@ pub fn families() -> Result<u8, Error> {
         .max()
         .unwrap_or(0);
     for f in cat {
-        println!(
+        sayln!(
             "{:<w_name$}  knob {:<w_knob$}  {}",
-            f.name, f.knob, f.meaning
+            f.name,
+            f.knob,
+            f.meaning
         );
-        println!("{:<w_name$}  tasks: {}", "", f.tasks);
-        println!("{:<w_name$}  options: {}", "", f.options);
+        sayln!("{:<w_name$}  tasks: {}", "", f.tasks);
+        sayln!("{:<w_name$}  options: {}", "", f.options);
     }
     Ok(0)
 }
@@ -900,7 +963,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         threads: a.threads,
         twicing,
     })?;
-    print!("{text}");
+    say!("{text}");
     Ok(0)
 }
 

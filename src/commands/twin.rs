@@ -357,14 +357,18 @@ fn fit_report_text(noise: Option<&NoiseCorrection>, fidelity: Option<&FidelityRe
     );
     if let Some(n) = noise {
         s.push_str(&format!(
-            "noise = {{ method = {}, raw = {}, correction = {}, value = {}, stderr = {}, tables = {}{} }}\n",
+            "noise = {{ method = {}, raw = {}, correction = {}, value = {}, stderr = {}, tables = {}{}{} }}\n",
             toml_str(n.method.name()),
             toml_f64(n.raw),
             toml_f64(n.correction),
             toml_f64(n.value),
             toml_f64(n.se),
             n.tables,
-            if n.weighted { ", weighted = true" } else { "" }
+            if n.weighted { ", weighted = true" } else { "" },
+            match n.left_out {
+                0 => String::new(),
+                r => format!(", left_out = {r}"),
+            }
         ));
     }
     if let Some(f) = fidelity {
@@ -558,12 +562,18 @@ fn noise_line(n: &NoiseCorrection) -> String {
         String::new()
     };
     format!(
-        "Noise ({}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from that fit, and the reference's possible error){}.{check}",
+        "Noise ({}{}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from that fit, and the reference's possible error){}.{check}",
         n.method.describe(),
         if n.weighted {
             "; neighbour distances weight the inputs as the reference does"
         } else {
             ""
+        },
+        match n.left_out {
+            0 => String::new(),
+            r => format!(
+                "; the {r} rows where the reference changes most between neighbours left out, since a step there would read as noise"
+            ),
         },
         fmt_num(n.raw),
         fmt_se(n.raw_se),
@@ -844,6 +854,15 @@ fn load(o: &TwinOptions) -> Result<Table, Error> {
 /// noise estimates, distances), which overflow to infinity a little above 1e154.
 const TWIN_VALUE_MAX: f64 = 1e150;
 
+/// Most tables of the fidelity check (`--fidelity`).
+pub const MAX_FIDELITY_TABLES: usize = 1000;
+/// Most replicates of a fidelity run (`--fidelity-replicates`).
+pub const MAX_FIDELITY_REPLICATES: usize = 100_000;
+
+/// Largest magnitude of a twin's target: the noise estimate's standard error sums squares of
+/// squared differences (fourth powers), which overflow a little above 1e76.
+const TWIN_TARGET_MAX: f64 = 1e75;
+
 /// Refuses a table whose values a twin cannot square and sum, naming the column.
 fn check_scale(t: &Table) -> Result<(), Error> {
     let columns =
@@ -853,11 +872,18 @@ fn check_scale(t: &Table) -> Result<(), Error> {
             .chain(std::iter::once((t.y.view(), &t.target)));
     for (col, name) in columns {
         let big = col.iter().fold(0.0_f64, |m, v| m.max(v.abs()));
-        if big > TWIN_VALUE_MAX {
+        let (max, what) = if name == &t.target {
+            (
+                TWIN_TARGET_MAX,
+                "the noise estimate's standard error sums fourth powers of the target",
+            )
+        } else {
+            (TWIN_VALUE_MAX, "a twin squares and sums its values")
+        };
+        if big > max {
             return Err(Error::Usage(format!(
-                "{}: column `{}` reaches {big:e}; a twin squares and sums its values, which \
-                 overflows beyond about {TWIN_VALUE_MAX:e}; rescale the column (for example \
-                 divide it by a power of ten)",
+                "{}: column `{}` reaches {big:e}; {what}, which overflows beyond about {max:e}; \
+                 rescale the column (for example divide it by a power of ten)",
                 t.path.display(),
                 name
             )));
@@ -948,6 +974,35 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             o.eval_size
         )));
     }
+    if o.fidelity > MAX_FIDELITY_TABLES || o.fidelity_replicates > MAX_FIDELITY_REPLICATES {
+        return Err(Error::Usage(format!(
+            "--fidelity must be at most {MAX_FIDELITY_TABLES} and --fidelity-replicates at most \
+             {MAX_FIDELITY_REPLICATES}, got {} and {} (each fidelity table twins the table again \
+             and runs it; the default 5 tables of 100 replicates take seconds)",
+            o.fidelity, o.fidelity_replicates
+        )));
+    }
+    // The scenario names the table by its path, and `run` reads it again: a pipe would be
+    // empty by then (devices are refused when the table is read).
+    #[cfg(unix)]
+    let is_pipe = |m: &std::fs::Metadata| std::os::unix::fs::FileTypeExt::is_fifo(&m.file_type());
+    #[cfg(not(unix))]
+    let is_pipe = |_: &std::fs::Metadata| false;
+    match std::fs::metadata(&o.table) {
+        Ok(m) if is_pipe(&m) => {
+            return Err(Error::Usage(format!(
+                "{}: a pipe, not a file; the twin scenario names the table by its path and `run` \
+                 reads it again, so save the table to a file first",
+                o.table.display()
+            )))
+        }
+        _ => {}
+    }
+    // The output path is checked before the fit (a missing folder, an input named as output).
+    crate::output::check(
+        &[("the table", o.table.as_path())],
+        &[("--out", o.out.as_path())],
+    )?;
     let t = load(o)?;
     check_scale(&t)?;
     let duplicates = o.duplicates.unwrap_or(if o.classes {

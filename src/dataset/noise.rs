@@ -198,6 +198,64 @@ impl Design {
         Some(Design { method, n, kind })
     }
 
+    /// The Gamma design with the share `share` of its rows left out as query rows: those whose
+    /// reference values `f` (one per row, such as a twin's fit at the rows) change most over
+    /// their neighbours, measured by `Σ_k (f_{N_k(i)} − f_i)²` (ties to the lower row index).
+    /// The rows still serve as neighbours of the others. Where f changes faster than the
+    /// neighbour distance can follow — a step — the difference estimators read the change as
+    /// noise, and a reference chosen by cross-validation rounds the step off, so subtracting its
+    /// roughness does not remove it (`docs/twin-calibration.md` §2); the rows around such a
+    /// change are those where the reference changes most, so leaving them out removes most of
+    /// the step's share at the cost of fewer terms. The result is still a quadratic form with
+    /// `tr A = 1` given the rows and the left-out set. The other estimators, a `share` outside
+    /// `(0, 1)`, an `f` of another length, or a cut that would keep fewer than 4 query rows
+    /// return the design unchanged.
+    pub fn trimmed(&self, f: &[f64], share: f64) -> Design {
+        let DesignKind::Gamma { nn, .. } = &self.kind else {
+            return self.clone();
+        };
+        let n = nn.len();
+        let drop = (share * n as f64).floor() as usize;
+        if !(share > 0.0 && share < 1.0) || f.len() != n || drop == 0 || n - drop < 4 {
+            return self.clone();
+        }
+        let change: Vec<f64> = nn
+            .iter()
+            .enumerate()
+            .map(|(i, l)| l.iter().map(|&(j, _)| (f[j] - f[i]).powi(2)).sum::<f64>())
+            .collect();
+        if change.iter().any(|c| !c.is_finite()) {
+            return self.clone();
+        }
+        let mut order: Vec<usize> = (0..n).collect();
+        order.sort_by(|&a, &b| change[b].total_cmp(&change[a]).then(a.cmp(&b)));
+        let mut nn = nn.clone();
+        for &i in &order[..drop] {
+            nn[i].clear();
+        }
+        let p = nn.iter().map(Vec::len).max().unwrap_or(0);
+        let mut delta = vec![0.0; p];
+        for list in &nn {
+            for (k, &(_, d2)) in list.iter().enumerate() {
+                delta[k] += d2;
+            }
+        }
+        delta.iter_mut().for_each(|d| *d /= (n - drop) as f64);
+        Design {
+            method: self.method,
+            n: self.n,
+            kind: DesignKind::Gamma { nn, delta },
+        }
+    }
+
+    /// Query rows the estimate averages over (fewer than the rows after [`Design::trimmed`]).
+    pub fn query_rows(&self) -> usize {
+        match &self.kind {
+            DesignKind::Gamma { nn, .. } => nn.iter().filter(|l| !l.is_empty()).count(),
+            _ => self.n,
+        }
+    }
+
     /// The estimator.
     pub fn method(&self) -> Method {
         self.method
@@ -373,7 +431,9 @@ fn gamma_estimate(
             gamma[k] += 0.5 * (y[j] - y[i]) * (y[j] - y[i]);
         }
     }
-    gamma.iter_mut().for_each(|g| *g /= n as f64);
+    // Query rows: every row, or those a trimmed design kept (an empty list is a left-out row).
+    let used = nn.iter().filter(|l| !l.is_empty()).count().max(1);
+    gamma.iter_mut().for_each(|g| *g /= used as f64);
     let a = line_intercept(delta, &gamma);
     if !with_se {
         return NoiseEstimate {
@@ -383,9 +443,8 @@ fn gamma_estimate(
         };
     }
     let c = intercept_weights(delta);
-    let u: Vec<f64> = nn
-        .iter()
-        .enumerate()
+    let rows = || nn.iter().enumerate().filter(|(_, l)| !l.is_empty());
+    let u: Vec<f64> = rows()
         .map(|(i, list)| {
             list.iter()
                 .zip(&c)
@@ -393,9 +452,7 @@ fn gamma_estimate(
                 .sum()
         })
         .collect();
-    let uses: Vec<Vec<usize>> = nn
-        .iter()
-        .enumerate()
+    let uses: Vec<Vec<usize>> = rows()
         .map(|(i, list)| {
             std::iter::once(i)
                 .chain(list.iter().map(|&(j, _)| j))
@@ -501,6 +558,8 @@ fn gsjs_estimate(
 mod tests {
     use super::*;
     use ndarray::{Array1, Array2};
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
 
     #[test]
     fn the_bootstrap_fast_path_gives_the_estimate_bit_for_bit() {
@@ -606,6 +665,54 @@ mod tests {
         let y = Array1::from(vec![1.0, 4.0, 9.0]);
         let e = nearest_neighbour(x.view(), y.view()).unwrap();
         approx::assert_relative_eq!(e.value, 43.0 / 6.0, max_relative = 1e-14);
+    }
+
+    #[test]
+    fn a_trimmed_gamma_design_is_a_quadratic_form_of_trace_one() {
+        // E[est(ε)] = σ² tr A for noise ε of variance σ²; the estimator is unbiased on pure noise
+        // only when tr A = 1, and tr A = Σ_i est(e_i) over the unit vectors (est(v) = vᵀAv).
+        // Exact identity, checked for the full and the trimmed design.
+        let mut rng = ChaCha8Rng::seed_from_u64(4);
+        let n = 60;
+        let x = Array2::from_shape_fn((n, 2), |_| rng.gen::<f64>());
+        let f: Vec<f64> = x
+            .rows()
+            .into_iter()
+            .map(|r| if r[0] + r[1] > 1.0 { 2.0 } else { 0.0 })
+            .collect();
+        let full = Design::new(Method::Gamma, x.view()).unwrap();
+        let cut = full.trimmed(&f, 0.2);
+        assert_eq!((full.query_rows(), cut.query_rows()), (n, n - 12));
+        for d in [&full, &cut] {
+            let trace: f64 = (0..n)
+                .map(|i| {
+                    let mut e = Array1::zeros(n);
+                    e[i] = 1.0;
+                    d.value(e.view())
+                })
+                .sum();
+            assert!((trace - 1.0).abs() < 1e-9, "tr A = {trace}");
+        }
+        // The step's share: the rows around it are where f changes most between neighbours.
+        let fv = ArrayView1::from(&f);
+        let (a, b) = (full.value(fv), cut.value(fv));
+        assert!(
+            a > 0.05 && b < 0.2 * a,
+            "step share {a} untrimmed, {b} trimmed"
+        );
+        // Nothing to leave out: the design unchanged, bit for bit.
+        let y = Array1::from_shape_fn(n, |_| rng.gen::<f64>());
+        for same in [
+            full.trimmed(&f, 0.0),
+            full.trimmed(&f[1..], 0.2),
+            full.trimmed(&f, 0.99),
+        ] {
+            assert_eq!(
+                same.value(y.view()).to_bits(),
+                full.value(y.view()).to_bits()
+            );
+            assert_eq!(same.query_rows(), n);
+        }
     }
 
     #[test]

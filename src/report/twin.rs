@@ -164,6 +164,10 @@ pub struct NoiseEcho {
     /// Whether the estimator's neighbour distances weighted the inputs as the reference does.
     #[serde(default)]
     pub weighted: bool,
+    /// Table rows the estimator left out as query rows, where the reference changes most over
+    /// their neighbours (0: none).
+    #[serde(default)]
+    pub left_out: usize,
 }
 
 /// The fidelity check.
@@ -246,6 +250,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
             stderr: n.stderr,
             tables: n.tables,
             weighted: n.weighted,
+            left_out: n.left_out,
         }),
         fidelity: rep.fidelity.map(|f| FidelityEcho {
             tables: f.tables,
@@ -308,7 +313,7 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
     }
     if let Some(n) = &t.noise {
         out.push(format!(
-            "Its noise σ² = {} ± {} was estimated from the table ({} estimator{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
+            "Its noise σ² = {} ± {} was estimated from the table ({} estimator{}{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
             fmt_num(n.value),
             fmt_se(n.stderr),
             n.method,
@@ -316,6 +321,12 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
                 ", its neighbour distances weighted as the reference's"
             } else {
                 ""
+            },
+            match n.left_out {
+                0 => String::new(),
+                r => format!(
+                    ", the {r} rows where the reference changes most between neighbours left out"
+                ),
             },
             fmt_num(n.raw),
             fmt_num(n.correction),

@@ -523,6 +523,24 @@ fn summarize_in(
     })
 }
 
+/// Refuses a finished block whose sums are not all finite, before a checkpoint or a shard part
+/// records it: its own reader would refuse the file, and the message would blame the file
+/// instead of the cause. The message names the model and the likely cause
+/// ([`not_finite_cause`]).
+pub fn check_block(plan: &Plan, prep: &Prepared, b: u64, block: &BlockResult) -> Result<(), Error> {
+    for (acc, model) in block.accs.iter().zip(&plan.models) {
+        if acc.floats.iter().flatten().any(|v| !v.is_finite()) {
+            return Err(Error::Data(format!(
+                "{}: block {b} of model `{}`: the decomposition's sums are not finite numbers: {}",
+                plan.file,
+                model.family.name(),
+                not_finite_cause(plan, prep, acc)
+            )));
+        }
+    }
+    Ok(())
+}
+
 /// The likely cause of a non-finite term, in words (`total`: all blocks folded).
 fn not_finite_cause(plan: &Plan, prep: &Prepared, total: &Acc) -> String {
     if !total.count.is_empty() && total.count.iter().all(|&c| c < 2) {

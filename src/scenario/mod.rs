@@ -117,6 +117,48 @@ pub fn load_default(opts: &PlanOptions) -> Result<Plan, Error> {
     )?)
 }
 
+/// 1-based line where key `key` of `[data]` is given: its own table header (`[data.key]`,
+/// `[[data.key]]`, `[data.key.sub]`), a `key = ...` line inside `[data]`, or a dotted
+/// `data.key = ...` / `key.sub = ...`; `None` when not found (an inline table, say). For messages
+/// about a key that is present but not used, which should point at the key and not at
+/// `source`.
+pub fn data_key_line(src: &str, key: &str) -> Option<usize> {
+    let mut section = String::new();
+    for (i, raw) in src.lines().enumerate() {
+        let l = raw.trim();
+        if l.starts_with('[') {
+            let name: String = l
+                .trim_start_matches('[')
+                .split(']')
+                .next()
+                .unwrap_or("")
+                .chars()
+                .filter(|c| !c.is_whitespace() && *c != '"')
+                .collect();
+            let full = format!("data.{key}");
+            if name == full || name.starts_with(&format!("{full}.")) {
+                return Some(i + 1);
+            }
+            section = name;
+            continue;
+        }
+        let Some((k, _)) = l.split_once('=') else {
+            continue;
+        };
+        let k: String = k
+            .chars()
+            .filter(|c| !c.is_whitespace() && *c != '"')
+            .collect();
+        let dotted = |prefix: &str| {
+            k == format!("{prefix}{key}") || k.starts_with(&format!("{prefix}{key}."))
+        };
+        if (section == "data" && dotted("")) || (section.is_empty() && dotted("data.")) {
+            return Some(i + 1);
+        }
+    }
+    None
+}
+
 /// 1-based line number of a byte offset.
 pub fn line_of(src: &str, offset: usize) -> usize {
     let end = offset.min(src.len());

@@ -136,7 +136,7 @@ pub struct FitReportSpec {
     pub fidelity: Option<FidelitySpec>,
 }
 
-/// `noise = { method, raw, correction, value, stderr, tables, weighted }` of
+/// `noise = { method, raw, correction, value, stderr, tables, weighted, left_out }` of
 /// `[data.fit_report]`.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
@@ -156,6 +156,9 @@ pub struct NoiseRecordSpec {
     /// Whether the estimator's distances weighted the inputs (absent: no).
     #[serde(default)]
     pub weighted: bool,
+    /// Table rows the estimator left out as query rows (absent: none).
+    #[serde(default)]
+    pub left_out: u64,
 }
 
 /// `[data.fit_report.fidelity]`.

@@ -88,22 +88,27 @@ pub fn from_spec(
     let e =
         |v: Option<&toml::Spanned<String>>, key: &str, m: String| spanned_err(src, file, v, key, m);
     let src_span = Some(&d.source);
-    let unused: [(bool, &str); 7] = [
+    let unused: [(bool, &str); 8] = [
         (d.jitter.is_some(), "jitter"),
         (d.fit_report.is_some(), "fit_report"),
         (d.eval_size.is_some(), "eval_size"),
         (d.design.is_some(), "design"),
         (d.eval.is_some(), "eval"),
         (d.inputs.is_some(), "inputs"),
-        (d.truth.is_some() || d.noise.is_some(), "truth"),
+        (d.truth.is_some(), "truth"),
+        (d.noise.is_some(), "noise"),
     ];
     for (present, key) in unused {
         if present {
-            return Err(e(
+            let mut err = e(
                 src_span,
                 &format!("data.{key}"),
                 format!("a table source takes its rows, inputs and responses from the file; remove `{key}`"),
-            ));
+            );
+            if let Some(l) = crate::scenario::data_key_line(src, key) {
+                err.line = Some(l);
+            }
+            return Err(err);
         }
     }
     let Some(path) = &d.path else {

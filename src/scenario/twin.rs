@@ -342,6 +342,7 @@ fn report_of(r: &FitReportSpec) -> FitReport {
             stderr: n.stderr,
             tables: n.tables as usize,
             weighted: n.weighted,
+            left_out: n.left_out as usize,
         }),
         fidelity: r.fidelity.as_ref().map(|f| FidelityRecord {
             tables: f.tables as usize,
@@ -401,11 +402,15 @@ pub fn from_spec(
     ];
     for (span, key) in unused {
         if let Some(span) = span {
-            return Err(err(
+            let mut e = err(
                 span,
                 &format!("data.{key}"),
                 format!("a twin takes its inputs from the table and its truth from `reference`; remove `{key}`"),
-            ));
+            );
+            if let Some(l) = crate::scenario::data_key_line(src, key) {
+                e.line = Some(l);
+            }
+            return Err(e);
         }
     }
     let Some(path) = &d.path else {
