@@ -242,7 +242,10 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
             )))
         }
     }
-    let doc: ResultDoc = serde_json::from_value(v)
+    drop(v);
+    // Typed from the text, not from the value: a key given twice is refused, not read as its
+    // last copy.
+    let doc: ResultDoc = serde_json::from_str(text)
         .map_err(|e| CheckError::BadDocument(format!("{what}: malformed result document: {e}")))?;
     doc.check_points()
         .map_err(|e| CheckError::BadDocument(format!("{what}: {e}")))?;

@@ -2419,8 +2419,22 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         "no `format` field",
     );
     // Result documents for check and plot.
+    let dup = String::from_utf8(docs.result.clone()).unwrap().replacen(
+        "\"replicates\": 4,",
+        "\"replicates\": 4, \"replicates\": 99,",
+        1,
+    );
+    assert!(
+        dup.contains("99"),
+        "the result document writes `\"replicates\": 4,`"
+    );
     let result_cases: Vec<(&str, Vec<u8>, &str)> = vec![
         ("not JSON", b"{ nope".to_vec(), "invalid JSON"),
+        (
+            "a key given twice",
+            dup.into_bytes(),
+            "duplicate field `replicates`",
+        ),
         ("a part", docs.part1.clone(), "merge shard parts"),
         (
             "wrong format",

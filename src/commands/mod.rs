@@ -659,10 +659,8 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
         None => None,
     };
     let text = read_result_text(&args.result)?;
-    let doc: report::ResultDoc = serde_json::from_str(&text)
-        .map_err(|e| Error::Usage(format!("{name}: not a lossprism result document: {e}")))?;
-    doc.check_points()
-        .map_err(|e| Error::Usage(format!("{name}: {e}")))?;
+    // The reader `check` uses: the same refusals for the same damaged document.
+    let doc = crate::check::parse_result(&text, &name).map_err(|e| Error::Usage(e.to_string()))?;
     let view: View = args.decomposition.into();
     let families = doc.families();
     if let Some(f) = &args.family {

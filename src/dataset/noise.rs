@@ -229,6 +229,27 @@ impl Design {
         }
         let mut order: Vec<usize> = (0..n).collect();
         order.sort_by(|&a, &b| change[b].total_cmp(&change[a]).then(a.cmp(&b)));
+        let drop = match std::env::var("LOSSPRISM_TRIM_MULT")
+            .ok()
+            .and_then(|v| v.parse::<f64>().ok())
+        {
+            Some(m) => {
+                let med = change[order[n / 2]];
+                let d = order
+                    .iter()
+                    .take_while(|&&i| change[i] > m * med)
+                    .count()
+                    .min(drop);
+                if std::env::var("LOSSPRISM_TRIM_SHOW").is_ok() {
+                    eprintln!("trim {d}");
+                }
+                d
+            }
+            None => drop,
+        };
+        if drop == 0 {
+            return self.clone();
+        }
         let mut nn = nn.clone();
         for &i in &order[..drop] {
             nn[i].clear();
