@@ -13,9 +13,15 @@ fn main() -> ExitCode {
         Ok(c) => c,
         Err(e) => {
             if !e.use_stderr() {
-                // --help and --version: printed in full on standard output
-                let _ = e.print();
-                return ExitCode::from(0);
+                // --help and --version: printed in full on standard output (a failed write is
+                // exit 2, as for every other printed text)
+                return match lossprism::output::say(&e.render().to_string()) {
+                    Ok(()) => ExitCode::from(0),
+                    Err(err) => {
+                        lossprism::output::tell(&format!("error: {err}\n"));
+                        ExitCode::from(2)
+                    }
+                };
             }
             lossprism::output::tell(&format!(
                 "{}\n",

@@ -2435,6 +2435,14 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             dup.into_bytes(),
             "duplicate field `replicates`",
         ),
+        (
+            "a term given twice in a point",
+            String::from_utf8(docs.result.clone())
+                .unwrap()
+                .replacen("\"bias_sq\": ", "\"bias_sq\": 1, \"bias_sq\": ", 1)
+                .into_bytes(),
+            "a point gives `bias_sq` twice",
+        ),
         ("a part", docs.part1.clone(), "merge shard parts"),
         (
             "wrong format",

@@ -584,12 +584,14 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
     }
     let (_, base) = read(&args.baseline)?;
     let rep = check::compare(&new, &base, &opts).map_err(|e| Error::Usage(e.to_string()))?;
-    say!("{rep}");
     if args.update {
+        // Written before anything is printed: a failed print cannot leave it stale.
         write_baseline(&text)?;
+        say!("{rep}");
         sayln!("baseline {} updated", args.baseline.display());
         return Ok(0);
     }
+    say!("{rep}");
     Ok(rep.exit_code())
 }
 
@@ -607,7 +609,15 @@ fn make_folders(path: &Path) -> Result<Vec<PathBuf>, Error> {
     missing.reverse();
     let mut made = Vec::new();
     for d in missing {
+        // A folder that appeared meanwhile (another process, or `a/../a` naming one twice) is
+        // not ours to remove.
+        if d.is_dir() {
+            continue;
+        }
         if let Err(e) = std::fs::create_dir(&d) {
+            if e.kind() == std::io::ErrorKind::AlreadyExists && d.is_dir() {
+                continue;
+            }
             for m in made.iter().rev() {
                 let _ = std::fs::remove_dir(m);
             }

@@ -572,7 +572,8 @@ fn noise_line(n: &NoiseCorrection) -> String {
         match n.left_out {
             0 => String::new(),
             r => format!(
-                "; the {r} rows where the reference changes most between neighbours left out, since a step there would read as noise"
+                "; the {r} {} where the reference changes most between neighbours left out, since a step there would read as noise",
+                if r == 1 { "row" } else { "rows" }
             ),
         },
         fmt_num(n.raw),

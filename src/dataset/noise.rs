@@ -207,9 +207,10 @@ impl Design {
     /// roughness does not remove it (`docs/twin-calibration.md` §2); the rows around such a
     /// change are those where the reference changes most, so leaving them out removes most of
     /// the step's share at the cost of fewer terms. The result is still a quadratic form with
-    /// `tr A = 1` given the rows and the left-out set. The other estimators, a `share` outside
-    /// `(0, 1)`, an `f` of another length, or a cut that would keep fewer than 4 query rows
-    /// return the design unchanged.
+    /// `tr A = 1` given the rows and the left-out set. Rows where `f` does not change at all are
+    /// never left out (at most those where it does). The other estimators, a `share` outside
+    /// `(0, 1)`, an `f` of another length or with non-finite values, or a cut that would keep
+    /// fewer than 4 query rows return the design unchanged.
     pub fn trimmed(&self, f: &[f64], share: f64) -> Design {
         let DesignKind::Gamma { nn, .. } = &self.kind else {
             return self.clone();
@@ -227,29 +228,14 @@ impl Design {
         if change.iter().any(|c| !c.is_finite()) {
             return self.clone();
         }
-        let mut order: Vec<usize> = (0..n).collect();
-        order.sort_by(|&a, &b| change[b].total_cmp(&change[a]).then(a.cmp(&b)));
-        let drop = match std::env::var("LOSSPRISM_TRIM_MULT")
-            .ok()
-            .and_then(|v| v.parse::<f64>().ok())
-        {
-            Some(m) => {
-                let med = change[order[n / 2]];
-                let d = order
-                    .iter()
-                    .take_while(|&&i| change[i] > m * med)
-                    .count()
-                    .min(drop);
-                if std::env::var("LOSSPRISM_TRIM_SHOW").is_ok() {
-                    eprintln!("trim {d}");
-                }
-                d
-            }
-            None => drop,
-        };
+        // Only rows where the reference changes at all: on a flat stretch the order would be
+        // the rows' order in the file, which must not decide anything.
+        let drop = drop.min(change.iter().filter(|&&c| c > 0.0).count());
         if drop == 0 {
             return self.clone();
         }
+        let mut order: Vec<usize> = (0..n).collect();
+        order.sort_by(|&a, &b| change[b].total_cmp(&change[a]).then(a.cmp(&b)));
         let mut nn = nn.clone();
         for &i in &order[..drop] {
             nn[i].clear();
@@ -721,12 +707,14 @@ mod tests {
             a > 0.05 && b < 0.2 * a,
             "step share {a} untrimmed, {b} trimmed"
         );
-        // Nothing to leave out: the design unchanged, bit for bit.
+        // Nothing to leave out: the design unchanged, bit for bit (a flat f changes nowhere).
         let y = Array1::from_shape_fn(n, |_| rng.gen::<f64>());
+        let flat = vec![1.5; n];
         for same in [
             full.trimmed(&f, 0.0),
             full.trimmed(&f[1..], 0.2),
             full.trimmed(&f, 0.99),
+            full.trimmed(&flat, 0.2),
         ] {
             assert_eq!(
                 same.value(y.view()).to_bits(),

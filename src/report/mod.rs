@@ -467,9 +467,34 @@ fn flatten_intervals(
     })
 }
 
+/// Reads a JSON object refusing a key given twice (a `serde_json::Map` keeps the last copy, and a
+/// damaged document would then be compared by its last `bias_sq`).
+struct UniqueKeys;
+
+impl<'de> serde::de::Visitor<'de> for UniqueKeys {
+    type Value = serde_json::Map<String, serde_json::Value>;
+
+    fn expecting(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        f.write_str("a JSON object")
+    }
+
+    fn visit_map<A: serde::de::MapAccess<'de>>(self, mut a: A) -> Result<Self::Value, A::Error> {
+        let mut m = serde_json::Map::new();
+        while let Some((k, v)) = a.next_entry::<String, serde_json::Value>()? {
+            if m.contains_key(&k) {
+                return Err(serde::de::Error::custom(format!(
+                    "a point gives `{k}` twice"
+                )));
+            }
+            m.insert(k, v);
+        }
+        Ok(m)
+    }
+}
+
 impl<'de> Deserialize<'de> for PointRow {
     fn deserialize<D: Deserializer<'de>>(de: D) -> Result<Self, D::Error> {
-        let obj = serde_json::Map::<String, serde_json::Value>::deserialize(de)?;
+        let obj = de.deserialize_map(UniqueKeys)?;
         let value = obj
             .get("value")
             .and_then(|v| v.as_f64())

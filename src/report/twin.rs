@@ -325,7 +325,8 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             match n.left_out {
                 0 => String::new(),
                 r => format!(
-                    ", the {r} rows where the reference changes most between neighbours left out"
+                    ", the {r} {} where the reference changes most between neighbours left out",
+                    if r == 1 { "row" } else { "rows" }
                 ),
             },
             fmt_num(n.raw),

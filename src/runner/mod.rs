@@ -337,8 +337,14 @@ fn schedule_on(
                 if halted.load(Ordering::SeqCst) {
                     return Ok(());
                 }
-                if !sink(b, &result)? {
-                    halted.store(true, Ordering::SeqCst);
+                match sink(b, &result) {
+                    Ok(true) => {}
+                    Ok(false) => halted.store(true, Ordering::SeqCst),
+                    Err(e) => {
+                        // A refused block stops the other workers too.
+                        halted.store(true, Ordering::SeqCst);
+                        return Err(e);
+                    }
                 }
                 let (s, e) = plan.block_range(b);
                 d.insert(b, result);

@@ -168,3 +168,21 @@ pub fn line_of(src: &str, offset: usize) -> usize {
         .count()
         + 1
 }
+
+#[cfg(test)]
+mod tests {
+    use super::data_key_line;
+
+    #[test]
+    fn a_data_key_is_found_at_its_own_line() {
+        let src = "name = \"x\"\n[data]\nsource = \"table\"\nreference = { k = 3 }\nnoise.sd = 1\n\n[data.truth]\nformula = \"x\"\n[[data.inputs]]\nname = \"a\"\n[model]\nnoise = 2\n";
+        assert_eq!(data_key_line(src, "reference"), Some(4));
+        assert_eq!(data_key_line(src, "noise"), Some(5));
+        assert_eq!(data_key_line(src, "truth"), Some(7));
+        assert_eq!(data_key_line(src, "inputs"), Some(9));
+        // A key of another table, or a longer key that starts the same, is not it.
+        assert_eq!(data_key_line(src, "formula"), None);
+        assert_eq!(data_key_line(src, "nois"), None);
+        assert_eq!(data_key_line("data.jitter = 1\n", "jitter"), Some(1));
+    }
+}
