@@ -888,6 +888,39 @@ pub fn tell(text: &str) {
     let _ = err.write_all(text.as_bytes()).and_then(|_| err.flush());
 }
 
+/// `print!` without its panic, for functions returning `Result<_, Error>`: [`say`] of the
+/// formatted text, a failed write returned as the error (exit 2).
+macro_rules! out {
+    ($($t:tt)*) => {
+        $crate::output::say(&format!($($t)*))?
+    };
+}
+pub(crate) use out;
+
+/// `println!` without its panic ([`out!`] with a newline).
+macro_rules! outln {
+    ($($t:tt)*) => {
+        $crate::output::say(&format!("{}\n", format_args!($($t)*)))?
+    };
+}
+pub(crate) use outln;
+
+/// `eprint!` without its panic: [`tell`] of the formatted text.
+macro_rules! note {
+    ($($t:tt)*) => {
+        $crate::output::tell(&format!($($t)*))
+    };
+}
+pub(crate) use note;
+
+/// `eprintln!` without its panic ([`note!`] with a newline).
+macro_rules! noteln {
+    ($($t:tt)*) => {
+        $crate::output::tell(&format!("{}\n", format_args!($($t)*)))
+    };
+}
+pub(crate) use noteln;
+
 /// Writes all of `bytes`, waiting out a full pipe (the file may be non-blocking) for at most
 /// [`STALL_LIMIT`] without progress.
 fn write_patiently(w: &mut impl Write, bytes: &[u8]) -> io::Result<()> {

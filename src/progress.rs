@@ -10,12 +10,7 @@ use indicatif::{ProgressBar, ProgressDrawTarget, ProgressStyle};
 
 use crate::runner::Watch;
 
-/// `eprintln!` without its panic: a failed write to standard error is ignored.
-macro_rules! tellln {
-    ($($t:tt)*) => {
-        $crate::output::tell(&format!("{}\n", format_args!($($t)*)))
-    };
-}
+use crate::output::noteln;
 
 /// Set by the Ctrl-C handler; read by [`Progress::stop`].
 static INTERRUPTED: AtomicBool = AtomicBool::new(false);
@@ -63,7 +58,7 @@ pub fn install_interrupt(mode: OnInterrupt) {
         OnInterrupt::ExitNow {
             checkpoint: Some(ck),
         } => {
-            tellln!(
+            noteln!(
                 "\ninterrupted: the finished blocks are saved in {}; rerun the same command to \
                  resume",
                 ck.display()
@@ -71,22 +66,22 @@ pub fn install_interrupt(mode: OnInterrupt) {
             std::process::exit(130);
         }
         OnInterrupt::ExitNow { checkpoint: None } => {
-            tellln!("\ninterrupted: nothing written");
+            noteln!("\ninterrupted: nothing written");
             std::process::exit(130);
         }
         OnInterrupt::FinishBlocks { checkpoint } => {
             if INTERRUPTED.swap(true, Ordering::SeqCst) {
                 match checkpoint {
-                    Some(ck) => tellln!(
+                    Some(ck) => noteln!(
                         "\ninterrupted twice: stopping now; the finished blocks are saved in {}; \
                          rerun the same command to resume",
                         ck.display()
                     ),
-                    None => tellln!("\ninterrupted twice: stopping now, nothing written"),
+                    None => noteln!("\ninterrupted twice: stopping now, nothing written"),
                 }
                 std::process::exit(130);
             }
-            tellln!(
+            noteln!(
                 "\ninterrupt: finishing the blocks in flight, then stopping (Ctrl-C again to \
                  stop now)"
             );

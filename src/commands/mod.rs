@@ -16,33 +16,7 @@ use crate::report::terminal::View;
 use crate::scenario::{self, Plan, PlanOptions, Source};
 use crate::{family, progress, report, runner, shard};
 
-/// `print!` without its panic: a failed write to standard output is an error (exit 2).
-macro_rules! say {
-    ($($t:tt)*) => {
-        $crate::output::say(&format!($($t)*))?
-    };
-}
-
-/// `println!` without its panic ([`say!`] with a newline).
-macro_rules! sayln {
-    ($($t:tt)*) => {
-        $crate::output::say(&format!("{}\n", format_args!($($t)*)))?
-    };
-}
-
-/// `eprintln!` without its panic: a failed write to standard error is ignored.
-macro_rules! tellln {
-    ($($t:tt)*) => {
-        $crate::output::tell(&format!("{}\n", format_args!($($t)*)))
-    };
-}
-
-/// `eprint!` without its panic.
-macro_rules! tell {
-    ($($t:tt)*) => {
-        $crate::output::tell(&format!($($t)*))
-    };
-}
+use crate::output::{note, noteln, out, outln};
 
 /// The files a plan reads besides the scenario (a table, a twin's table, the files an external
 /// estimator runs).
@@ -238,9 +212,9 @@ fn emit(
     if !o.quiet {
         let table = report::terminal::render_view(&doc, o.view);
         if o.to_stdout() {
-            tell!("{table}");
+            note!("{table}");
         } else {
-            say!("{table}");
+            out!("{table}");
         }
     }
     Ok(0)
@@ -346,7 +320,7 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
             Ok(o) => o,
             Err(stopped) => {
                 watch.clear();
-                tellln!(
+                noteln!(
                     "interrupted after {} of {} replicates (the blocks in flight finished); nothing \
                      was written: rerun to start again",
                     stopped.replicates_done, stopped.replicates
@@ -405,7 +379,7 @@ fn run_in_blocks(
                 ),
                 None => "nothing was written: rerun to start again".into(),
             };
-            tellln!(
+            noteln!(
                 "interrupted after {} of {total} blocks ({new_blocks} completed in this session; \
                  the blocks in flight finished); {kept}",
                 total - remaining
@@ -422,7 +396,7 @@ fn run_in_blocks(
                 .as_ref()
                 .map(|p| p.display().to_string())
                 .unwrap_or_default();
-            tellln!(
+            noteln!(
                 "stopped as asked after {new_blocks} newly completed blocks; {remaining} blocks \
                  remain; rerun the same command to resume from {ck}"
             );
@@ -432,7 +406,7 @@ fn run_in_blocks(
     };
     if done.resumed > 0 && !args.quiet {
         if let Some(ck) = &args.checkpoint {
-            tellln!(
+            noteln!(
                 "resumed: {} of {total} blocks from {}",
                 done.resumed,
                 ck.display()
@@ -454,7 +428,7 @@ fn run_in_blocks(
         set.commit(vec![(id, shard::part_json(&doc).into_bytes())])?;
         let range = s.block_range(plan.blocks);
         if !args.quiet {
-            tellln!(
+            noteln!(
                 "shard {s}: blocks {}..{} of {} written to {}; combine all {} parts with \
                  `lossprism merge`",
                 range.start,
@@ -567,7 +541,7 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
     };
     if args.update && !args.baseline.exists() {
         write_baseline(&text)?;
-        sayln!(
+        outln!(
             "baseline {} created from {}",
             args.baseline.display(),
             args.result.display()
@@ -587,11 +561,11 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
     if args.update {
         // Written before anything is printed: a failed print cannot leave it stale.
         write_baseline(&text)?;
-        say!("{rep}");
-        sayln!("baseline {} updated", args.baseline.display());
+        out!("{rep}");
+        outln!("baseline {} updated", args.baseline.display());
         return Ok(0);
     }
-    say!("{rep}");
+    out!("{rep}");
     Ok(rep.exit_code())
 }
 
@@ -765,7 +739,7 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
     runner::memory::check(&one, 1, args.memory_limit)?;
     let ledger = assess::ledger_path(path);
     let a = assess::assess(plan, value, &ledger)?;
-    sayln!(
+    outln!(
         "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
          (assessment {} of this holdout, hash {}, ledger {})",
         plan.name,
@@ -781,7 +755,7 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
         ledger.display()
     );
     if let Some(w) = &a.warning {
-        tellln!("{w}");
+        noteln!("{w}");
     }
     Ok(0)
 }
@@ -831,14 +805,14 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
         .iter()
         .map(|m| format!("{} family, {} grid values", m.family.name(), m.grid.len()))
         .collect();
-    sayln!(
+    outln!(
         "{}: valid ({}, R = {}, n = {})",
         scenario.display(),
         models.join("; "),
         plan.replicates,
         plan.train_size()
     );
-    sayln!(
+    outln!(
         "memory: {} on {} worker threads; {}",
         estimate.describe(),
         estimate.workers,
@@ -864,14 +838,14 @@ pub fn families() -> Result<u8, Error> {
         .max()
         .unwrap_or(0);
     for f in cat {
-        sayln!(
+        outln!(
             "{:<w_name$}  knob {:<w_knob$}  {}",
             f.name,
             f.knob,
             f.meaning
         );
-        sayln!("{:<w_name$}  tasks: {}", "", f.tasks);
-        sayln!("{:<w_name$}  options: {}", "", f.options);
+        outln!("{:<w_name$}  tasks: {}", "", f.tasks);
+        outln!("{:<w_name$}  options: {}", "", f.options);
     }
     Ok(0)
 }
@@ -971,7 +945,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         threads: a.threads,
         twicing,
     })?;
-    say!("{text}");
+    out!("{text}");
     Ok(0)
 }
 

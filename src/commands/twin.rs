@@ -975,29 +975,31 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             o.eval_size
         )));
     }
-    if o.fidelity > MAX_FIDELITY_TABLES || o.fidelity_replicates > MAX_FIDELITY_REPLICATES {
-        return Err(Error::Usage(format!(
-            "--fidelity must be at most {MAX_FIDELITY_TABLES} and --fidelity-replicates at most \
-             {MAX_FIDELITY_REPLICATES}, got {} and {} (each fidelity table twins the table again \
-             and runs it; the default 5 tables of 100 replicates take seconds)",
-            o.fidelity, o.fidelity_replicates
-        )));
+    for (flag, got, max) in [
+        ("--fidelity", o.fidelity, MAX_FIDELITY_TABLES),
+        (
+            "--fidelity-replicates",
+            o.fidelity_replicates,
+            MAX_FIDELITY_REPLICATES,
+        ),
+    ] {
+        if got > max {
+            return Err(Error::Usage(format!(
+                "{flag} must be at most {max}, got {got} (each fidelity table twins the table \
+                 again and runs it; the default 5 tables of 100 replicates take seconds)"
+            )));
+        }
     }
     // The scenario names the table by its path, and `run` reads it again: a pipe would be
     // empty by then (devices are refused when the table is read).
-    #[cfg(unix)]
-    let is_pipe = |m: &std::fs::Metadata| std::os::unix::fs::FileTypeExt::is_fifo(&m.file_type());
-    #[cfg(not(unix))]
-    let is_pipe = |_: &std::fs::Metadata| false;
-    match std::fs::metadata(&o.table) {
-        Ok(m) if is_pipe(&m) => {
-            return Err(Error::Usage(format!(
-                "{}: a pipe, not a file; the twin scenario names the table by its path and `run` \
-                 reads it again, so save the table to a file first",
-                o.table.display()
-            )))
-        }
-        _ => {}
+    if std::fs::metadata(&o.table)
+        .is_ok_and(|m| std::os::unix::fs::FileTypeExt::is_fifo(&m.file_type()))
+    {
+        return Err(Error::Usage(format!(
+            "{}: a pipe, not a file; the twin scenario names the table by its path and `run` \
+             reads it again, so save the table to a file first",
+            o.table.display()
+        )));
     }
     // The output path is checked before the fit (a missing folder, an input named as output).
     crate::output::check(

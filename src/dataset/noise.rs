@@ -258,7 +258,7 @@ impl Design {
     /// Query rows the estimate averages over (fewer than the rows after [`Design::trimmed`]).
     pub fn query_rows(&self) -> usize {
         match &self.kind {
-            DesignKind::Gamma { nn, .. } => nn.iter().filter(|l| !l.is_empty()).count(),
+            DesignKind::Gamma { nn, .. } => gamma_query_rows(nn),
             _ => self.n,
         }
     }
@@ -424,6 +424,12 @@ pub fn gamma_test(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<Nois
     estimate(Method::Gamma, x, y)
 }
 
+/// Query rows of a Gamma design: every row, or those a trimmed design kept (an empty neighbour
+/// list is a left-out row).
+fn gamma_query_rows(nn: &[Vec<(usize, f64)>]) -> usize {
+    nn.iter().filter(|l| !l.is_empty()).count()
+}
+
 fn gamma_estimate(
     nn: &[Vec<(usize, f64)>],
     delta: &[f64],
@@ -438,8 +444,7 @@ fn gamma_estimate(
             gamma[k] += 0.5 * (y[j] - y[i]) * (y[j] - y[i]);
         }
     }
-    // Query rows: every row, or those a trimmed design kept (an empty list is a left-out row).
-    let used = nn.iter().filter(|l| !l.is_empty()).count().max(1);
+    let used = gamma_query_rows(nn).max(1);
     gamma.iter_mut().for_each(|g| *g /= used as f64);
     let a = line_intercept(delta, &gamma);
     if !with_se {

@@ -842,9 +842,10 @@ mod tests {
         // The same 2-D step and rounded reference, on the design the twin uses: the rows where
         // the reference changes most are left out, and with them most of the step's share of
         // the estimate: est(x, f) on the kept rows, averaged over the tables, is below half its
-        // average on every row (no noise involved; about a fifth when written). Over 48 tables the corrected σ̂² is then within 4 standard
-        // errors (sd over tables / √48) of the true 1, where keeping every row leaves it high by
-        // more than that.
+        // average on every row (no noise involved; about a fifth when written). Over 48 tables
+        // the corrected σ̂² is then within 4 standard errors (sd over tables / √48) of the true
+        // σ² = 1 (known by construction), where keeping every row leaves it high by more than
+        // that.
         let n = 300;
         let tables = 48;
         let (mut kept, mut all) = (Vec::new(), Vec::new());

@@ -677,11 +677,7 @@ impl ResultDoc {
                         return Err(format!(
                             "`{key}` is {} at {} = {}{}: under squared loss it is a mean of \
                              squares and cannot be negative, so the document was edited or damaged",
-                            if v.abs() < 1e6 {
-                                format!("{v}")
-                            } else {
-                                format!("{v:e}")
-                            },
+                            crate::fmt::fmt_exact(v),
                             self.knob,
                             crate::fmt::fmt_value(p.value),
                             p.family

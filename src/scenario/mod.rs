@@ -159,6 +159,14 @@ pub fn data_key_line(src: &str, key: &str) -> Option<usize> {
     None
 }
 
+/// `e` pointed at the line where key `key` of `[data]` is given ([`data_key_line`]), when found.
+pub fn at_data_key(mut e: ScenarioError, src: &str, key: &str) -> ScenarioError {
+    if let Some(l) = data_key_line(src, key) {
+        e.line = Some(l);
+    }
+    e
+}
+
 /// 1-based line number of a byte offset.
 pub fn line_of(src: &str, offset: usize) -> usize {
     let end = offset.min(src.len());

@@ -1256,15 +1256,15 @@ fn formula(
 /// Refuses the twin-only keys (`reference`, `noise.varying`) in a synthetic source.
 fn reject_twin_keys(cx: &Ctx<'_>, d: &DataSpec) -> Result<(), ScenarioError> {
     if d.reference.is_some() {
-        let mut e = cx.err(
-            Some(d.source.span()),
-            "data.reference",
-            "belongs to `source = \"twin\"`; a synthetic source uses [data.truth]",
-        );
-        if let Some(l) = super::data_key_line(cx.src, "reference") {
-            e.line = Some(l);
-        }
-        return Err(e);
+        return Err(super::at_data_key(
+            cx.err(
+                Some(d.source.span()),
+                "data.reference",
+                "belongs to `source = \"twin\"`; a synthetic source uses [data.truth]",
+            ),
+            cx.src,
+            "reference",
+        ));
     }
     if let Some(v) = d.noise.as_ref().and_then(|n| n.varying.as_ref()) {
         return Err(cx.err(

@@ -100,15 +100,15 @@ pub fn from_spec(
     ];
     for (present, key) in unused {
         if present {
-            let mut err = e(
-                src_span,
-                &format!("data.{key}"),
-                format!("a table source takes its rows, inputs and responses from the file; remove `{key}`"),
-            );
-            if let Some(l) = crate::scenario::data_key_line(src, key) {
-                err.line = Some(l);
-            }
-            return Err(err);
+            return Err(crate::scenario::at_data_key(
+                e(
+                    src_span,
+                    &format!("data.{key}"),
+                    format!("a table source takes its rows, inputs and responses from the file; remove `{key}`"),
+                ),
+                src,
+                key,
+            ));
         }
     }
     let Some(path) = &d.path else {

@@ -402,15 +402,15 @@ pub fn from_spec(
     ];
     for (span, key) in unused {
         if let Some(span) = span {
-            let mut e = err(
-                span,
-                &format!("data.{key}"),
-                format!("a twin takes its inputs from the table and its truth from `reference`; remove `{key}`"),
-            );
-            if let Some(l) = crate::scenario::data_key_line(src, key) {
-                e.line = Some(l);
-            }
-            return Err(e);
+            return Err(crate::scenario::at_data_key(
+                err(
+                    span,
+                    &format!("data.{key}"),
+                    format!("a twin takes its inputs from the table and its truth from `reference`; remove `{key}`"),
+                ),
+                src,
+                key,
+            ));
         }
     }
     let Some(path) = &d.path else {
