@@ -1022,6 +1022,26 @@ fn scenario_cases(t: &mut Table) {
         &["run", "/dev/zero", "--out", "r.json"],
         "binary data",
     );
+    // Class-share options on a regression section were accepted and silently ignored.
+    for (family, option, needle) in [
+        ("tree", "criterion = \"entropy\"", "key `model.criterion`"),
+        ("tree", "alpha = 0.5", "key `model.alpha`"),
+        ("forest", "criterion = \"entropy\"", "key `model.criterion`"),
+        ("forest", "alpha = 0.5", "key `model.alpha`"),
+        ("knn", "alpha = 0.5", "key `model.alpha`"),
+    ] {
+        t.scenario(
+            g,
+            &format!("{family} {option} on regression"),
+            &sc(
+                "family = \"tree\"\ngrid = [1, 2]",
+                &format!("family = \"{family}\"\ngrid = [1, 2]\n{option}"),
+            ),
+            v,
+            needle,
+        )
+        .also("only classification uses");
+    }
 }
 
 fn formula_cases(t: &mut Table) {
@@ -1118,6 +1138,48 @@ fn formula_cases(t: &mut Table) {
         "the term `",
     )
     .also("rescale");
+    // Responses whose squares underflow: every term came out 0, with a reading drawn from the
+    // zeros and exit 0.
+    t.scenario(
+        g,
+        "truth 1e-200*x with noise sd 1e-200",
+        &with_formula("1e-200*x").replace("sd = 1.0", "sd = 1e-200"),
+        "run",
+        "the responses are at most 1.0e-200 in size, so their squares underflow to 0",
+    );
+    t.add(
+        "csv",
+        "table whose target is of size 1e-300",
+        &[
+            ("s.toml", table_scenario("", TREE).as_bytes()),
+            (
+                "t.csv",
+                csv_rows(40, |i| format!("{}e-300", 1 + i % 7)).as_bytes(),
+            ),
+        ],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "the responses are at most 7.0e-300 in size",
+    );
+    t.add(
+        "csv",
+        "twin of a target of size 1e-300",
+        &[(
+            "t.csv",
+            csv_rows(40, |i| format!("{}e-300", 1 + i % 7)).as_bytes(),
+        )],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--out",
+            "tw.toml",
+        ],
+        "column `y` is at most 7.0e-300 in size",
+    )
+    .also("underflow");
 }
 
 fn csv_cases(t: &mut Table) {
@@ -1407,6 +1469,24 @@ fn csv_cases(t: &mut Table) {
         good.as_bytes(),
         "holdout = -0.1",
         "holdout",
+    );
+    // A share that rounds to no row ran without a holdout, saying nothing (and `--assess` then
+    // asked for the `holdout` the file has).
+    t.table(
+        "holdout rounding to no row",
+        good.as_bytes(),
+        "holdout = 0.01",
+        "key `data.holdout`: 0.01 of the 40 rows locks no row",
+    );
+    t.add(
+        "csv",
+        "--assess with a holdout rounding to no row",
+        &[
+            ("s.toml", table_scenario("holdout = 1e-9", TREE).as_bytes()),
+            ("t.csv", good.as_bytes()),
+        ],
+        &["run", "s.toml", "--assess", "1"],
+        "key `data.holdout`: 1e-9 of the 40 rows locks no row",
     );
     t.table(
         "unknown task",

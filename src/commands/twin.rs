@@ -889,6 +889,18 @@ fn check_scale(t: &Table) -> Result<(), Error> {
                 name
             )));
         }
+        // The same powers underflow to 0 for tiny values: a twin of a target of size 1e-300
+        // was written with noise 0 and no candidate reference tried.
+        let min = 1.0 / max;
+        if big > 0.0 && big < min {
+            return Err(Error::Usage(format!(
+                "{}: column `{}` is at most {big:.1e} in size; {what}, which underflow to 0 \
+                 below about {min:.0e}; rescale the column (for example multiply it by a power of \
+                 ten)",
+                t.path.display(),
+                name
+            )));
+        }
     }
     Ok(())
 }

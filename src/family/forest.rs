@@ -165,7 +165,7 @@ impl Default for ForestFamily {
 
 /// Builds `family = "forest"` from its options (`knob`, `trees` or `max_depth`, `max_features`,
 /// `bootstrap`, `min_samples_leaf`, `criterion`, `alpha`).
-pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
     let mut f = ForestFamily::default();
     if let Some(k) = opts.choice("knob", &["trees", "max_depth"])? {
         f.knob = if k == "trees" {
@@ -202,6 +202,7 @@ pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Famil
         f.min_samples_leaf = l as usize;
     }
     if let Some(c) = opts.choice("criterion", &["gini", "entropy"])? {
+        cx.classification_only("criterion", "it is the split criterion of class labels")?;
         f.criterion = if c == "gini" {
             Criterion::Gini
         } else {
@@ -209,6 +210,7 @@ pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Famil
         };
     }
     if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
+        cx.classification_only("alpha", "it smooths the leaf class shares")?;
         f.alpha = a;
     }
     Ok(Arc::new(f))
@@ -858,6 +860,7 @@ mod tests {
         use toml::Value;
         let cx = BuildContext {
             base: std::path::Path::new("."),
+            task: Task::Regress,
         };
         let make = |pairs: &[(&str, Value)]| {
             let mut o = Options::new(
@@ -895,6 +898,15 @@ mod tests {
             .err()
             .expect("refused");
         assert!(e.message.contains("sqrt"), "{e}");
+        // Class-share options on a regression forest are refused, not ignored.
+        for (key, v) in [
+            ("criterion", Value::String("entropy".into())),
+            ("alpha", Value::Float(0.5)),
+        ] {
+            let e = make(&[(key, v)]).err().expect("refused");
+            assert_eq!(e.key, key);
+            assert!(e.message.contains("only classification uses"), "{e}");
+        }
         assert_eq!(MaxFeatures::ByTask.resolve(10, Task::Regress), 3);
         assert_eq!(
             MaxFeatures::ByTask.resolve(10, Task::Classify { classes: 2 }),

@@ -65,12 +65,13 @@ pub struct KnnFamily {
 }
 
 /// Builds `family = "knn"` from its options (`standardize`, `alpha`).
-pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
     let mut k = KnnFamily::default();
     if let Some(s) = opts.boolean("standardize")? {
         k.standardize = s;
     }
     if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
+        cx.classification_only("alpha", "it smooths the neighbour class shares")?;
         k.alpha = a;
     }
     Ok(Arc::new(k))

@@ -243,6 +243,25 @@ pub fn check_out(
 pub struct BuildContext<'a> {
     /// Folder that relative paths (an external estimator's program) resolve against.
     pub base: &'a Path,
+    /// The scenario's task: options that only classification reads are refused on regression.
+    pub task: Task,
+}
+
+impl BuildContext<'_> {
+    /// Refuses option `key`, which only a classification task reads (`what` says what it does),
+    /// in a regression section: it would be accepted and silently ignored.
+    pub fn classification_only(&self, key: &str, what: &str) -> Result<(), OptionError> {
+        if self.task == Task::Regress {
+            return Err(OptionError {
+                key: key.to_string(),
+                message: format!(
+                    "{what}, which only classification uses; this scenario is a regression: \
+                     remove `{key}`"
+                ),
+            });
+        }
+        Ok(())
+    }
 }
 
 /// Builds a family from the options of its `[model]` section; every option it reads is taken

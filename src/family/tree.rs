@@ -164,12 +164,13 @@ impl Default for TreeFamily {
 }
 
 /// Builds `family = "tree"` from its options (`min_samples_leaf`, `criterion`, `alpha`).
-pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
+pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
     let mut t = TreeFamily::default();
     if let Some(l) = opts.int("min_samples_leaf", 1, 1_000_000_000)? {
         t.min_samples_leaf = l as usize;
     }
     if let Some(c) = opts.choice("criterion", &["gini", "entropy"])? {
+        cx.classification_only("criterion", "it is the split criterion of class labels")?;
         t.criterion = if c == "gini" {
             Criterion::Gini
         } else {
@@ -177,6 +178,7 @@ pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Famil
         };
     }
     if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
+        cx.classification_only("alpha", "it smooths the leaf class shares")?;
         t.alpha = a;
     }
     Ok(Arc::new(t))

@@ -108,7 +108,34 @@ fn with_file(plan: &Plan, e: Error) -> Error {
 /// Draws the evaluation points (and a fixed design) of a plan; a table's working rows and
 /// noise estimate.
 pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
-    prepare_inner(plan).map_err(|e| with_file(plan, e))
+    let prepared = prepare_inner(plan).map_err(|e| with_file(plan, e))?;
+    check_scale(plan, &prepared).map_err(|e| with_file(plan, e))?;
+    Ok(prepared)
+}
+
+/// Smallest largest magnitude of a regression's responses: below it their squares (about
+/// 1e-300) and those of their differences underflow to 0.
+const RESPONSE_MIN: f64 = 1e-150;
+
+/// Refuses responses so small that every squared term underflows to 0: the run would report a
+/// decomposition of zeros, and a reading drawn from them, with exit 0.
+fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
+    if plan.task != Task::Regress || plan.loss.count_responses() {
+        return Ok(());
+    }
+    let big = p
+        .eval_truth
+        .iter()
+        .chain(p.eval_sd.iter())
+        .fold(0.0_f64, |a, v| a.max(v.abs()));
+    if big > 0.0 && big < RESPONSE_MIN {
+        return Err(Error::Data(format!(
+            "the responses are at most {big:.1e} in size, so their squares underflow to 0 and \
+             every term would be 0; rescale the response (for example multiply it by a power of \
+             ten)"
+        )));
+    }
+    Ok(())
 }
 
 fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {

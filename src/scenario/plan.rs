@@ -923,7 +923,7 @@ fn build_models(
         let mut opts = Options::new(&family_name, entries);
         let fam: Arc<dyn Family> = match info.build {
             Some(build) => {
-                let built = build(&mut opts, &BuildContext { base });
+                let built = build(&mut opts, &BuildContext { base, task });
                 let fam = built.map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;
                 opts.finish()
                     .map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;

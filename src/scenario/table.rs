@@ -295,6 +295,24 @@ pub fn from_spec(
         }
     })?;
     let mut plan = plan;
+    if let Some(h) = &d.holdout {
+        // A share that rounds to no row would run without a holdout, silently.
+        if holdout > 0.0 && plan.holdout.is_empty() {
+            let rows = plan.table.rows();
+            return Err(spanned_err(
+                src,
+                file,
+                Some(h),
+                "data.holdout",
+                format!(
+                    "{} of the {rows} rows locks no row (the share is rounded to whole rows{}); \
+                     raise it or remove `holdout`",
+                    crate::fmt::fmt_exact(holdout),
+                    if classify { " of each class" } else { "" }
+                ),
+            ));
+        }
+    }
     if let Some(ts) = &d.train_size {
         if d.resample.is_some() || d.train_fraction.is_some() {
             return Err(spanned_err(
