@@ -482,7 +482,7 @@ impl fmt::Display for CheckReport {
                     // Divided first: 100 × a difference near the largest float overflows.
                     let rel = c.diff / c.baseline.abs() * 100.0;
                     let rel = if c.baseline != 0.0 && rel.is_finite() {
-                        format!(" ({rel:+.1}%)")
+                        format!(" ({}%)", signed_1(rel))
                     } else {
                         String::new()
                     };
@@ -499,7 +499,7 @@ impl fmt::Display for CheckReport {
                             fmt_se(c.se)
                         ),
                         if z.is_finite() {
-                            format!("z = {z:+.1}")
+                            format!("z = {}", signed_1(z))
                         } else {
                             "z = n/a".to_string()
                         },
@@ -1020,6 +1020,16 @@ pub fn compare(
     })
 }
 
+/// A signed number with one decimal (`+24.0`), in exponent form from a million on (`+9.4e305`):
+/// `{:+.1}` prints a hand-edited 1e300 digit by digit.
+fn signed_1(v: f64) -> String {
+    if v.abs() < 1e6 {
+        format!("{v:+.1}")
+    } else {
+        format!("{v:+.1e}")
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -1168,6 +1178,28 @@ mod tests {
             .iter()
             .all(|c| c.verdict == Verdict::Unchanged));
         assert!(r.to_string().contains("eval_seed 7 against 1"), "{r}");
+    }
+
+    // A hand-edited term of 1e300 printed its relative change and z digit by digit (hundreds of
+    // characters on one line); from a million on they take the exponent form.
+    #[test]
+    fn huge_changes_print_compactly() {
+        let base = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        let mut new = base.clone();
+        new.seed = 2;
+        set(&mut new, "variance", 1e300);
+        let text = compare(&new, &base, &CheckOptions::default())
+            .unwrap()
+            .to_string();
+        assert!(text.contains("(+4.0e302%)"), "{text}");
+        assert!(text.contains("z = +7.1e301"), "{text}");
+        assert!(text.lines().all(|l| l.len() < 300), "{text}");
     }
 
     // The paired jackknife by hand: D_(b) = [0.06, 0.05, 0.07, 0.06], mean 0.06,
