@@ -11,6 +11,11 @@
 //! - [`gsjs`]: Gasser, Sroka, Jennen-Steinmetz (1986, *Biometrika* 73:625–633), one input:
 //!   pseudo-residuals from consecutive points in sorted x, exactly unbiased for linear f.
 //!
+//! Standard errors: each estimator's plug-in variance of its terms (with the covariances of
+//! terms that share a response), never below the Gaussian floor `√(2 tr A²) σ̂²`, the exact
+//! standard deviation of a Gaussian quadratic form whose truth it does not see
+//! ([`Design::trace_of_square`]); measured in `docs/twin-calibration.md` §3.
+//!
 //! [`default_method`] picks the estimator by the number of inputs (GSJS with one, the Gamma
 //! test otherwise). Every estimator here is a quadratic form `yᵀAy` with `tr A = 1` under
 //! unit-variance noise, so given the inputs its expectation is `σ² + fᵀAf`: the bias is the
@@ -277,10 +282,74 @@ impl Design {
     }
 
     fn run(&self, y: ArrayView1<'_, f64>, with_se: bool) -> NoiseEstimate {
-        match &self.kind {
+        let mut e = match &self.kind {
             DesignKind::Nn(nb) => nn_estimate(nb, y, with_se),
             DesignKind::Gamma { nn, delta } => gamma_estimate(nn, delta, y, with_se),
             DesignKind::Gsjs { order, a } => gsjs_estimate(order, a, y, with_se),
+        };
+        if with_se {
+            // The Gaussian floor (see `trace_of_square`): the sum over dependent pairs centres
+            // on the estimate and so loses most of the covariance when nearly every pair of a
+            // small table shares a response.
+            let floor = (2.0 * self.trace_of_square()).sqrt() * e.value.max(0.0);
+            if floor.is_finite() && (e.stderr.is_nan() || e.stderr < floor) {
+                e.stderr = floor;
+            }
+        }
+        e
+    }
+
+    /// `tr(A²)` of the estimator's quadratic form `σ̂² = yᵀAy` (A symmetric): for Gaussian noise
+    /// and a truth the form does not see (`Af = 0`: a constant, and for GSJS a line),
+    /// `Var(σ̂²) = 2σ⁴ tr(A²)` exactly (the variance of a Gaussian quadratic form, a textbook
+    /// identity, e.g. Searle 1971, *Linear Models*, §2.5, from memory); heavier-tailed noise adds
+    /// `(μ₄ − 3σ⁴) Σ A_ii²`. So `√(2 tr A²) σ̂²` is a floor under the standard error of
+    /// Gaussian or heavier-tailed noise, computed from the design alone. Every estimator here
+    /// is a sum of weighted squared contrasts `w_t (b_tᵀy)²`; `A = Σ_t w_t b_t b_tᵀ` is summed
+    /// entry by entry without storing it (neighbour pairs met from both ends are added once).
+    pub fn trace_of_square(&self) -> f64 {
+        match &self.kind {
+            DesignKind::Nn(nb) => {
+                let w = 0.5 / self.n as f64;
+                let lists: Vec<Vec<(usize, f64)>> = nb.iter().map(|&j| vec![(j, w)]).collect();
+                pair_trace_of_square(&lists)
+            }
+            DesignKind::Gamma { nn, delta } => {
+                let c = intercept_weights(delta);
+                let used = gamma_query_rows(nn).max(1) as f64;
+                let lists: Vec<Vec<(usize, f64)>> = nn
+                    .iter()
+                    .map(|l| {
+                        l.iter()
+                            .zip(&c)
+                            .map(|(&(j, _), ck)| (j, ck / (2.0 * used)))
+                            .collect()
+                    })
+                    .collect();
+                pair_trace_of_square(&lists)
+            }
+            DesignKind::Gsjs { a, .. } => {
+                // Contrast t (sorted positions t−1, t, t+1) with coefficients (a, −1, 1 − a) and
+                // weight 1/((a² + b² + 1)(n − 2)): A is a band of width 2 in sorted order.
+                let n = self.n;
+                if n < 3 {
+                    return f64::NAN;
+                }
+                let (mut d, mut o1, mut o2) = (vec![0.0; n], vec![0.0; n], vec![0.0; n]);
+                for t in 1..n - 1 {
+                    let a = a[t - 1];
+                    let b = 1.0 - a;
+                    let w = 1.0 / ((a * a + b * b + 1.0) * (n - 2) as f64);
+                    d[t - 1] += w * a * a;
+                    d[t] += w;
+                    d[t + 1] += w * b * b;
+                    o1[t - 1] -= w * a;
+                    o1[t] -= w * b;
+                    o2[t - 1] += w * a * b;
+                }
+                let sq = |v: &[f64]| v.iter().map(|x| x * x).sum::<f64>();
+                sq(&d) + 2.0 * sq(&o1) + 2.0 * sq(&o2)
+            }
         }
     }
 
@@ -293,6 +362,29 @@ impl Design {
         }
         self.run(y, false).value
     }
+}
+
+/// `tr(A²)` of `A = Σ_i Σ_{(j, w) ∈ lists[i]} w (e_i − e_j)(e_i − e_j)ᵀ` (a row's list holds
+/// distinct rows other than itself): `A_ii` sums the weights of the pairs that touch i, and
+/// `A_ij = −(w_{i→j} + w_{j→i})` over the two directions a pair may be listed in. O(Σ |list|²).
+fn pair_trace_of_square(lists: &[Vec<(usize, f64)>]) -> f64 {
+    let n = lists.len();
+    let mut diag = vec![0.0; n];
+    let mut off = 0.0;
+    for (i, l) in lists.iter().enumerate() {
+        for &(j, w) in l {
+            diag[i] += w;
+            diag[j] += w;
+            let back = lists[j].iter().find(|&&(k, _)| k == i).map(|&(_, v)| v);
+            match back {
+                // A mutual pair: counted once, from its lower row.
+                Some(v) if i < j => off += 2.0 * (w + v) * (w + v),
+                Some(_) => {}
+                None => off += 2.0 * w * w,
+            }
+        }
+    }
+    diag.iter().map(|d| d * d).sum::<f64>() + off
 }
 
 /// Inputs standardized column by column (mean 0, sd 1; constant columns become 0).
@@ -418,8 +510,11 @@ pub const GAMMA_K: usize = 10;
 /// fixed linear combination `Σ_k c_k γ(k)` (weights from the δ(k) alone, summing to 1), so
 /// `σ̂² = (1/n) Σ_i u_i` with `u_i = Σ_k c_k · ½(y_{N_k(i)} − y_i)²`; standard error: the
 /// variance of that mean over rows, with the covariances of rows that share a response
-/// (see `dependent_var_of_mean`). (The least-squares standard error of the intercept treats the
-/// ten dependent points of the line as independent and understated the spread.)
+/// (see `dependent_var_of_mean`), never below the Gaussian floor `√(2 tr A²) σ̂²`
+/// ([`Design::trace_of_square`]; on small tables nearly every pair of rows shares a response and
+/// the plug-in sum, centred on the estimate, loses most of the covariance). (The least-squares
+/// standard error of the intercept treats the ten dependent points of the line as independent
+/// and understated the spread.)
 pub fn gamma_test(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
     estimate(Method::Gamma, x, y)
 }
@@ -726,6 +821,52 @@ mod tests {
                 full.value(y.view()).to_bits()
             );
             assert_eq!(same.query_rows(), n);
+        }
+    }
+
+    #[test]
+    fn trace_of_square_equals_the_dense_form_built_from_the_estimator() {
+        // Exact: σ̂² = yᵀAy, so A_ii = est(e_i) and A_ij = (est(e_i + e_j) − A_ii − A_jj) / 2;
+        // tr(A²) = Σ_ij A_ij². Checked for every estimator, the trimmed Gamma design, and tables
+        // with mutual and one-way neighbours and tied inputs.
+        let mut rng = ChaCha8Rng::seed_from_u64(12);
+        let n = 23;
+        let x2 =
+            Array2::from_shape_fn((n, 2), |(i, _)| if i == 5 { 0.5 } else { rng.gen::<f64>() });
+        let mut x1 = Array2::from_shape_fn((n, 1), |_| rng.gen::<f64>());
+        x1[[3, 0]] = x1[[4, 0]];
+        let f: Vec<f64> = (0..n).map(|i| (i % 5) as f64).collect();
+        let gamma = Design::new(Method::Gamma, x2.view()).unwrap();
+        let designs = [
+            Design::new(Method::NearestNeighbour, x2.view()).unwrap(),
+            gamma.trimmed(&f, 0.2),
+            gamma,
+            Design::new(Method::Gsjs, x1.view()).unwrap(),
+        ];
+        for d in &designs {
+            let unit = |i: usize| {
+                let mut e = Array1::zeros(n);
+                e[i] = 1.0;
+                e
+            };
+            let diag: Vec<f64> = (0..n).map(|i| d.value(unit(i).view())).collect();
+            let mut dense = 0.0;
+            for i in 0..n {
+                for j in 0..n {
+                    let a = if i == j {
+                        diag[i]
+                    } else {
+                        (d.value((unit(i) + unit(j)).view()) - diag[i] - diag[j]) / 2.0
+                    };
+                    dense += a * a;
+                }
+            }
+            let got = d.trace_of_square();
+            assert!(
+                (got - dense).abs() <= 1e-12 * dense,
+                "{:?}: {got} against {dense}",
+                d.method()
+            );
         }
     }
 
