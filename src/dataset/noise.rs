@@ -311,22 +311,19 @@ impl Design {
         match &self.kind {
             DesignKind::Nn(nb) => {
                 let w = 0.5 / self.n as f64;
-                let lists: Vec<Vec<(usize, f64)>> = nb.iter().map(|&j| vec![(j, w)]).collect();
-                pair_trace_of_square(&lists)
+                pair_trace_of_square(nb.len(), |i, out| out.push((nb[i], w)))
             }
             DesignKind::Gamma { nn, delta } => {
                 let c = intercept_weights(delta);
                 let used = gamma_query_rows(nn).max(1) as f64;
-                let lists: Vec<Vec<(usize, f64)>> = nn
-                    .iter()
-                    .map(|l| {
-                        l.iter()
+                pair_trace_of_square(nn.len(), |i, out| {
+                    out.extend(
+                        nn[i]
+                            .iter()
                             .zip(&c)
-                            .map(|(&(j, _), ck)| (j, ck / (2.0 * used)))
-                            .collect()
-                    })
-                    .collect();
-                pair_trace_of_square(&lists)
+                            .map(|(&(j, _), ck)| (j, ck / (2.0 * used))),
+                    )
+                })
             }
             DesignKind::Gsjs { a, .. } => {
                 // Contrast t (sorted positions t−1, t, t+1) with coefficients (a, −1, 1 − a) and
@@ -364,18 +361,23 @@ impl Design {
     }
 }
 
-/// `tr(A²)` of `A = Σ_i Σ_{(j, w) ∈ lists[i]} w (e_i − e_j)(e_i − e_j)ᵀ` (a row's list holds
-/// distinct rows other than itself): `A_ii` sums the weights of the pairs that touch i, and
-/// `A_ij = −(w_{i→j} + w_{j→i})` over the two directions a pair may be listed in. O(Σ |list|²).
-fn pair_trace_of_square(lists: &[Vec<(usize, f64)>]) -> f64 {
-    let n = lists.len();
+/// `tr(A²)` of `A = Σ_i Σ_{(j, w) ∈ list(i)} w (e_i − e_j)(e_i − e_j)ᵀ` over `n` rows, where
+/// `list(i, out)` appends row i's pairs (distinct rows other than i): `A_ii` sums the weights of
+/// the pairs that touch i, and `A_ij = −(w_{i→j} + w_{j→i})` over the two directions a pair
+/// may be listed in. O(Σ |list|²) time and two lists of scratch, nothing of size n × list.
+fn pair_trace_of_square(n: usize, list: impl Fn(usize, &mut Vec<(usize, f64)>)) -> f64 {
     let mut diag = vec![0.0; n];
     let mut off = 0.0;
-    for (i, l) in lists.iter().enumerate() {
-        for &(j, w) in l {
+    let (mut l, mut other) = (Vec::new(), Vec::new());
+    for i in 0..n {
+        l.clear();
+        list(i, &mut l);
+        for &(j, w) in &l {
             diag[i] += w;
             diag[j] += w;
-            let back = lists[j].iter().find(|&&(k, _)| k == i).map(|&(_, v)| v);
+            other.clear();
+            list(j, &mut other);
+            let back = other.iter().find(|&&(k, _)| k == i).map(|&(_, v)| v);
             match back {
                 // A mutual pair: counted once, from its lower row.
                 Some(v) if i < j => off += 2.0 * (w + v) * (w + v),
