@@ -670,8 +670,30 @@ fn scenario_cases(t: &mut Table) {
             "family = \"boost\"\ngrid = [1, 2]\nlearning_rate = 1e308",
         ),
         v,
-        "must be a number in [0, 1000], got 1e308",
+        "must be a number in (0, 1000], got 1e308",
     );
+    // The ranges said `[0, ...]`, and 0 was then refused with another message.
+    for (option, needle) in [
+        (
+            "learning_rate = 0",
+            "key `model.learning_rate`: must be a number in (0, 1000], got 0",
+        ),
+        (
+            "subsample = 1.5",
+            "key `model.subsample`: must be a number in (0, 1], got 1.5",
+        ),
+    ] {
+        t.scenario(
+            g,
+            &format!("boost {option}"),
+            &sc(
+                "family = \"tree\"\ngrid = [1, 2]",
+                &format!("family = \"boost\"\ngrid = [1, 2]\n{option}"),
+            ),
+            v,
+            needle,
+        );
+    }
     t.scenario(
         g,
         "external timeout 0",

@@ -92,25 +92,15 @@ impl Default for BoostFamily {
 /// `min_samples_leaf`).
 pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
     let mut b = BoostFamily::default();
-    if let Some(v) = opts.number("learning_rate", 0.0, 1e3)? {
-        if v <= 0.0 {
-            return Err(OptionError {
-                key: "learning_rate".into(),
-                message: "must be greater than 0".into(),
-            });
-        }
+    // Both ranges are open at 0 (the message says `(0, ...]`; it said `[0, ...]` and then
+    // refused 0 with another message).
+    if let Some(v) = opts.number("learning_rate", f64::MIN_POSITIVE, 1e3)? {
         b.learning_rate = v;
     }
     if let Some(d) = opts.int("max_depth", 1, 64)? {
         b.max_depth = d as usize;
     }
-    if let Some(s) = opts.number("subsample", 0.0, 1.0)? {
-        if s <= 0.0 {
-            return Err(OptionError {
-                key: "subsample".into(),
-                message: "must be a share in (0, 1]".into(),
-            });
-        }
+    if let Some(s) = opts.number("subsample", f64::MIN_POSITIVE, 1.0)? {
         b.subsample = s;
     }
     if let Some(l) = opts.int("min_samples_leaf", 1, 1_000_000_000)? {
