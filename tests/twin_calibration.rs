@@ -155,17 +155,24 @@ fn noise_study_table(
     (x, y, yv, fit)
 }
 
+/// Draws a table; the noise is Gaussian, or with `LOSSPRISM_NOISE_TAILS=t5` Student's t with 5
+/// degrees of freedom scaled to the same variance (kurtosis 9: heavy tails).
 fn draw_table(proc: Process, n: usize, sd: f64, seed: u64) -> (Array2<f64>, Array1<f64>) {
     let nm = names(proc.p);
     let refs: Vec<&str> = nm.iter().map(String::as_str).collect();
     let f = Formula::parse(proc.formula, &refs).expect("formula parses");
+    let heavy = std::env::var("LOSSPRISM_NOISE_TAILS").as_deref() == Ok("t5");
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let x = Array2::from_shape_fn((n, proc.p), |_| rng.gen::<f64>());
     let y = x
         .rows()
         .into_iter()
         .map(|r| {
-            let e: f64 = StandardNormal.sample(&mut rng);
+            let mut e: f64 = StandardNormal.sample(&mut rng);
+            if heavy {
+                let c: f64 = rand_distr::ChiSquared::new(5.0).unwrap().sample(&mut rng);
+                e /= (c / 5.0).sqrt() * (5.0f64 / 3.0).sqrt();
+            }
             f.eval(&r.to_vec()) + sd * e
         })
         .collect();

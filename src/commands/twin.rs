@@ -562,7 +562,7 @@ fn noise_line(n: &NoiseCorrection) -> String {
         String::new()
     };
     format!(
-        "Noise ({}{}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {} from {} parametric-bootstrap tables drawn from that fit, and the reference's possible error){}.{check}",
+        "Noise ({}{}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {}: the larger of the spread over {} parametric-bootstrap tables drawn from that fit, {}, and the estimator's own SE, which also sees heavy-tailed noise; and the reference's possible error){}.{check}",
         n.method.describe(),
         if n.weighted {
             "; neighbour distances weight the inputs as the reference does"
@@ -583,6 +583,7 @@ fn noise_line(n: &NoiseCorrection) -> String {
         fmt_se(n.se),
         fmt_se(n.sampling_se),
         n.tables,
+        fmt_se(n.bootstrap_se),
         if n.floored {
             "; the correction exceeded the raw estimate, so σ̂² is floored at 5% of it"
         } else {

@@ -45,7 +45,11 @@
 //!
 //! and its excess over the reference's correction is counted in the standard error,
 //! `se = sqrt(sampling_se² + max(excess, 0)²)`, where `sampling_se` is the spread of the
-//! estimator over the [`NOISE_TABLES`] bootstrap tables at the corrected σ². The pilot is not
+//! estimator over the [`NOISE_TABLES`] bootstrap tables at the corrected σ², or the estimator's
+//! own standard error on the table when that is larger: the bootstrap draws Gaussian noise, so
+//! its spread misses the extra variance of heavier-tailed noise, which the estimator's plug-in
+//! variance of its terms sees (measured with Student-t noise: coverage 20–26/30 with the
+//! bootstrap spread alone, `docs/twin-calibration.md` §2.8). The pilot is not
 //! used for the value: measured on invented processes, subtracting its correction brought the
 //! two step processes from +6% and +10% to +5% but over-corrected smooth ones and had a larger
 //! spread than the bootstrap reports, so ±2 SE coverage fell to 25/30; as an error term it keeps
@@ -230,9 +234,12 @@ pub struct NoiseCorrection {
     pub value: f64,
     /// Standard error: `sqrt(sampling_se² + max(pilot_excess, 0)²)`.
     pub se: f64,
-    /// The estimator's spread over the bootstrap tables at `value` (the standard error before
-    /// the reference's error is counted).
+    /// The estimator's spread over the bootstrap tables at `value`, or its own standard error on
+    /// the table when that is larger (heavy-tailed noise; see the module docs): the standard
+    /// error before the reference's error is counted.
     pub sampling_se: f64,
+    /// The estimator's spread over the bootstrap tables alone (Gaussian noise at `value`).
+    pub bootstrap_se: f64,
     /// The bias the sharp pilot measures, `est(x, T(y)) − pilot noise` (NaN when the pilot
     /// cannot be grown).
     pub pilot_correction: f64,
@@ -404,7 +411,9 @@ pub fn correct_noise_on(
         _ => f64::NAN,
     };
     let pilot_excess = pilot_correction - correction;
-    let sampling_se = spread(&draws);
+    // `max` keeps the bootstrap spread when the estimator gives no standard error (NaN).
+    let bootstrap_se = spread(&draws);
+    let sampling_se = bootstrap_se.max(raw_est.stderr);
     let se = if pilot_excess > 0.0 {
         sampling_se.hypot(pilot_excess)
     } else {
@@ -418,6 +427,7 @@ pub fn correct_noise_on(
         value,
         se,
         sampling_se,
+        bootstrap_se,
         pilot_correction,
         pilot_excess,
         tables,
