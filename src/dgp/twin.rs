@@ -49,7 +49,7 @@
 //! own standard error on the table when that is larger: the bootstrap draws Gaussian noise, so
 //! its spread misses the extra variance of heavier-tailed noise, which the estimator's plug-in
 //! variance of its terms sees (measured with Student-t noise: coverage 20–26/30 with the
-//! bootstrap spread alone, `docs/twin-calibration.md` §2.8). The pilot is not
+//! bootstrap spread alone, `docs/twin-calibration.md` §2.7). The pilot is not
 //! used for the value: measured on invented processes, subtracting its correction brought the
 //! two step processes from +6% and +10% to +5% but over-corrected smooth ones and had a larger
 //! spread than the bootstrap reports, so ±2 SE coverage fell to 25/30; as an error term it keeps
