@@ -20,6 +20,58 @@ pub fn should_show(stderr_is_terminal: bool, quiet: bool) -> bool {
     stderr_is_terminal && !quiet
 }
 
+/// A spinner with the elapsed time and the current stage on standard error, for a command that
+/// works a while with no replicates to count (`twin`: the reference's choice, the noise, the
+/// fidelity check); drawn only on a terminal, and cleared when dropped, so nothing of it
+/// reaches a file or a pipe.
+pub struct Stage(Option<ProgressBar>);
+
+impl Stage {
+    /// A spinner on standard error when it is a terminal (hidden otherwise).
+    pub fn new() -> Stage {
+        Stage::with_terminal(std::io::stderr().is_terminal())
+    }
+
+    /// As [`Stage::new`], with the terminal test given (for tests).
+    pub fn with_terminal(stderr_is_terminal: bool) -> Stage {
+        if !stderr_is_terminal {
+            return Stage(None);
+        }
+        let style = ProgressStyle::with_template("{spinner} {elapsed} {msg}")
+            .unwrap_or_else(|_| ProgressStyle::default_spinner());
+        let bar =
+            ProgressBar::with_draw_target(None, ProgressDrawTarget::stderr()).with_style(style);
+        bar.enable_steady_tick(std::time::Duration::from_millis(250));
+        Stage(Some(bar))
+    }
+
+    /// Shows `what` as the current stage.
+    pub fn at(&self, what: &str) {
+        if let Some(bar) = &self.0 {
+            bar.set_message(what.to_string());
+        }
+    }
+
+    /// Whether the spinner is drawn.
+    pub fn shown(&self) -> bool {
+        self.0.is_some()
+    }
+}
+
+impl Default for Stage {
+    fn default() -> Self {
+        Stage::new()
+    }
+}
+
+impl Drop for Stage {
+    fn drop(&mut self) {
+        if let Some(bar) = &self.0 {
+            bar.finish_and_clear();
+        }
+    }
+}
+
 /// Whether coloured output is allowed: not when `NO_COLOR` is set to a non-empty value
 /// (<https://no-color.org> convention).
 pub fn colour_allowed() -> bool {
@@ -169,5 +221,15 @@ mod tests {
         p.block_done(4);
         assert_eq!(p.done(), 4);
         assert!(!p.stop());
+    }
+
+    #[test]
+    fn stage_spinner_only_on_a_terminal() {
+        // Off a terminal nothing is drawn and the stage calls are no-ops; on one it is drawn
+        // (the draw target is standard error, which the test harness captures or ignores).
+        let off = Stage::with_terminal(false);
+        off.at("stage");
+        assert!(!off.shown());
+        assert!(Stage::with_terminal(true).shown());
     }
 }

@@ -721,8 +721,10 @@ fn fidelity(
     o: &TwinOptions,
     t: &Table,
     folder: &Path,
+    stage: &crate::progress::Stage,
     text_of: &dyn Fn(&str, usize) -> String,
 ) -> Result<FidelityRecord, Error> {
+    stage.at("fidelity check: running the twin");
     let families = if o.fidelity_families.is_empty() {
         default_fidelity_families(t.rows())
     } else {
@@ -760,6 +762,11 @@ fn fidelity(
         .collect();
     let mut tot: Vec<Vec<(Vec<f64>, f64)>> = vec![Vec::new(); families.len()];
     for k in 0..o.fidelity {
+        stage.at(&format!(
+            "fidelity check: table {} of {}, twinned again and run",
+            k + 1,
+            o.fidelity
+        ));
         let drawn = draw_from_twin(&plan, t, t.rows(), k)?;
         let (p, _) = twin_of(o, &drawn, &plan)?;
         let out = crate::runner::run(&p, o.threads)?;
@@ -1094,6 +1101,11 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                     t.names.join(", ")
                 )));
             }
+            let stage = crate::progress::Stage::new();
+            stage.at(&format!(
+                "twin of {} rows: choosing the reference by cross-validation, then the noise",
+                t.rows()
+            ));
             let fit = fit_table(o, &t, &rel)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             if let (Rule::Only(Candidate::LocLin), Some(why)) =
@@ -1157,7 +1169,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 &folder,
             )?;
             let fid = if o.fidelity > 0 {
-                Some(fidelity(&o_eff, &t, &folder, &|models, reps| {
+                Some(fidelity(&o_eff, &t, &folder, &stage, &|models, reps| {
                     body(&rt, models, reps, false)
                 })?)
             } else {
