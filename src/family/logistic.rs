@@ -131,11 +131,18 @@ impl Family for LogisticFamily {
         matches!(task, Task::Classify { .. })
     }
 
-    /// Newton's gradient, Hessian and its working copy over `(K − 1)(p + 1)` coefficients, and
-    /// one coefficient vector per grid value, on top of the default.
+    /// Newton's gradient, Hessian and its working copy over `(K − 1)(p + 1)` coefficients (or,
+    /// above [`NEWTON_MAX_PARAMS`], L-BFGS's [`LBFGS_MEMORY`] pairs and a few vectors: a `d × d`
+    /// term there refused a 200-row table with 57 000 one-hot inputs as 97 GiB), and one
+    /// coefficient vector per grid value, on top of the default.
     fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], task: Task) -> f64 {
         let d = (task.classes().max(2) - 1) as f64 * (p as f64 + 1.0);
-        8.0 * (3.0 * n as f64 * p as f64 + (n + m) as f64 + 2.0 * d * d + grid.len() as f64 * d)
+        let solver = if d <= NEWTON_MAX_PARAMS as f64 {
+            2.0 * d * d
+        } else {
+            (2.0 * LBFGS_MEMORY as f64 + 5.0) * d
+        };
+        8.0 * (3.0 * n as f64 * p as f64 + (n + m) as f64 + solver + grid.len() as f64 * d)
     }
 
     fn caps(&self, task: Task) -> Caps {
@@ -774,6 +781,21 @@ fn log_sum_exp(v: &[f64]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_work_estimate_counts_the_solver_that_runs() {
+        let f = LogisticFamily;
+        let two = Task::Classify { classes: 2 };
+        // Newton at 51 parameters: its Hessian and working copy.
+        let newton = f.work_bytes(100, 50, 10, &[1.0], two);
+        assert_eq!(
+            newton,
+            8.0 * (3.0 * 5000.0 + 110.0 + 2.0 * 51.0 * 51.0 + 51.0)
+        );
+        // L-BFGS at 57 001 parameters: no d × d term (it was 52 GB).
+        let lbfgs = f.work_bytes(200, 57_000, 200, &[1.0, 2.0], two);
+        assert!(lbfgs < 1e9, "{lbfgs}");
+    }
     use ndarray::{Array1, Array2};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
