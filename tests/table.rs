@@ -874,8 +874,8 @@ fn points_csv_line_column_counts_file_lines_like_errors() {
     assert!(stderr(&o).contains("d.csv:8"), "{}", stderr(&o));
 }
 
-/// `run --assess` counts an assessment only when it prints it: outputs it would ignore and
-/// `--quiet` are refused before the ledger is touched.
+/// `run --assess` counts an assessment only when it prints it: outputs it would ignore,
+/// `--quiet` and `--replicates` (one fit, no replicates) are refused before the ledger is touched.
 #[test]
 fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
     let dir = tmp();
@@ -898,6 +898,7 @@ fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
         (&["--plot-selection", "s.svg"][..], "--plot-selection"),
         (&["--report", "r.html"][..], "--report"),
         (&["--quiet"][..], "--quiet"),
+        (&["--replicates", "50"][..], "it"),
     ] {
         let mut args = vec!["run", "c.toml", "--assess", "4"];
         args.extend_from_slice(extra);

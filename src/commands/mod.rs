@@ -731,6 +731,12 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
             "--assess prints the holdout loss it counts in the ledger; drop --quiet".into(),
         ));
     }
+    if args.replicates.is_some() {
+        return Err(Error::Usage(
+            "--assess fits the family once, on every row outside the holdout, so --replicates does not apply; drop it"
+                .into(),
+        ));
+    }
     // The run's estimate was held for the scenario's grid; the assessed value may lie outside
     // it (a larger depth, more features), so the fit at that value is checked too.
     let mut one = plan.clone();
