@@ -14,7 +14,7 @@
 //! Standard errors: each estimator's plug-in variance of its terms (with the covariances of
 //! terms that share a response), never below the Gaussian floor `√(2 tr A²) σ̂²`, the exact
 //! standard deviation of a Gaussian quadratic form whose truth it does not see
-//! ([`Design::trace_of_square`]); measured in `docs/twin-calibration.md` §3.
+//! ([`Design::trace_of_square`]); measured in `docs/twin-calibration.md` §3.1.
 //!
 //! [`default_method`] picks the estimator by the number of inputs (GSJS with one, the Gamma
 //! test otherwise). Every estimator here is a quadratic form `yᵀAy` with `tr A = 1` under
@@ -302,7 +302,7 @@ impl Design {
     /// `tr(A²)` of the estimator's quadratic form `σ̂² = yᵀAy` (A symmetric): for Gaussian noise
     /// and a truth the form does not see (`Af = 0`: a constant, and for GSJS a line),
     /// `Var(σ̂²) = 2σ⁴ tr(A²)` exactly (the variance of a Gaussian quadratic form, a textbook
-    /// identity, e.g. Searle 1971, *Linear Models*, §2.5, from memory); heavier-tailed noise adds
+    /// identity for quadratic forms in normal variables, from memory); heavier-tailed noise adds
     /// `(μ₄ − 3σ⁴) Σ A_ii²`. So `√(2 tr A²) σ̂²` is a floor under the standard error of
     /// Gaussian or heavier-tailed noise, computed from the design alone. Every estimator here
     /// is a sum of weighted squared contrasts `w_t (b_tᵀy)²`; `A = Σ_t w_t b_t b_tᵀ` is summed
