@@ -962,3 +962,59 @@ fn noise_standard_errors_cover_sigma_squared_on_small_tables() {
         assert!(ratio <= 1.2, "{m:?} {p}: SE / spread {ratio}");
     }
 }
+
+/// The study behind `docs/twin-calibration.md` §3.1 (ignored: about a minute): pure noise of
+/// variance 1 on inputs U[0, 1]^p, 1500 tables per (inputs, rows, estimator); prints the mean
+/// estimate, its spread over tables, the root-mean-square reported SE over that spread and the
+/// ±2 SE coverage of σ² = 1. Gaussian noise, or with `LOSSPRISM_NOISE_TAILS=t5` Student's t with
+/// 5 degrees of freedom scaled to variance 1. Run with
+/// `cargo test --release --test table -- --ignored --nocapture noise_se_study`.
+#[test]
+#[ignore = "study, about a minute; results in docs/twin-calibration.md §3.1"]
+fn noise_se_study() {
+    let heavy = std::env::var("LOSSPRISM_NOISE_TAILS").as_deref() == Ok("t5");
+    let sizes: &[usize] = if heavy {
+        &[50, 200, 1000]
+    } else {
+        &[50, 100, 200, 400, 1000]
+    };
+    let reps = 1500;
+    for p in [1usize, 2, 3] {
+        for &n in sizes {
+            for m in [
+                noise::Method::Gamma,
+                noise::Method::NearestNeighbour,
+                noise::Method::Gsjs,
+            ] {
+                if m == noise::Method::Gsjs && p != 1 {
+                    continue;
+                }
+                let (mut v, mut se2, mut cov) = (Vec::new(), 0.0, 0);
+                for s in 0..reps {
+                    let mut rng = ChaCha8Rng::seed_from_u64(7 + s as u64);
+                    let x = Array2::from_shape_fn((n, p), |_| rng.gen::<f64>());
+                    let y = Array1::from_shape_fn(n, |_| {
+                        let e: f64 = rand_distr::StandardNormal.sample(&mut rng);
+                        if heavy {
+                            let c: f64 = rand_distr::ChiSquared::new(5.0).unwrap().sample(&mut rng);
+                            e / (c / 5.0).sqrt() / (5.0f64 / 3.0).sqrt()
+                        } else {
+                            e
+                        }
+                    });
+                    let e = noise::estimate(m, x.view(), y.view()).unwrap();
+                    v.push(e.value);
+                    se2 += e.stderr * e.stderr;
+                    cov += usize::from((e.value - 1.0).abs() <= 2.0 * e.stderr);
+                }
+                let (mean, sd) = mean_sd(&v);
+                println!(
+                    "p {p} n {n} {m:?}: mean {mean:.4} sd {sd:.4} rms SE {:.4} ratio {:.3} cov2 {:.3}",
+                    (se2 / reps as f64).sqrt(),
+                    (se2 / reps as f64).sqrt() / sd,
+                    cov as f64 / reps as f64
+                );
+            }
+        }
+    }
+}
