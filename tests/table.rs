@@ -934,33 +934,54 @@ fn noise_standard_errors_cover_sigma_squared_on_small_tables() {
     // not overstate: the root-mean-square SE is at most 1.2 times the spread over tables (the
     // spread's own sampling error is about 3.5%; measured 1.03–1.08).
     let tables = 400;
-    let nd = Normal::new(0.0, 1.0).unwrap();
     for (m, p) in [
         (noise::Method::Gsjs, 1),
         (noise::Method::Gamma, 2),
         (noise::Method::Gamma, 3),
         (noise::Method::NearestNeighbour, 3),
     ] {
-        let mut values = Vec::new();
-        let mut se2 = 0.0;
-        let mut covered = 0;
-        for s in 0..tables {
-            let mut rng = ChaCha8Rng::seed_from_u64(40_000 + s);
-            let x = draw_x(&mut rng, 100, p);
-            let y = Array1::from_iter((0..100).map(|_| nd.sample(&mut rng)));
-            let e = noise::estimate(m, x.view(), y.view()).unwrap();
-            covered += usize::from((e.value - 1.0).abs() <= 2.0 * e.stderr);
-            se2 += e.stderr * e.stderr;
-            values.push(e.value);
-        }
+        let (values, rms_se, rate) = pure_noise_se(m, p, 100, tables, 40_000, false);
         let (_, sd) = mean_sd(&values);
-        let rate = covered as f64 / tables as f64;
-        let ratio = (se2 / tables as f64).sqrt() / sd;
+        let ratio = rms_se / sd;
         let band = 4.0 * (0.954 * 0.046 / tables as f64).sqrt();
         println!("{m:?} ({p} inputs): ±2 SE coverage {rate:.3}, rms SE / spread {ratio:.3}");
         assert!(rate >= 0.954 - band, "{m:?} {p}: coverage {rate}");
         assert!(ratio <= 1.2, "{m:?} {p}: SE / spread {ratio}");
     }
+}
+
+/// Noise of variance 1 alone (no signal) on `tables` tables of `n` rows and `p` inputs
+/// U[0, 1]^p, table `s` drawn from seed `seed0 + s`; Gaussian, or with `heavy` Student's t with
+/// 5 degrees of freedom scaled to variance 1. Returns the estimates, the root-mean-square
+/// reported SE and the share of tables whose ±2 SE covers σ² = 1.
+fn pure_noise_se(
+    m: noise::Method,
+    p: usize,
+    n: usize,
+    tables: u64,
+    seed0: u64,
+    heavy: bool,
+) -> (Vec<f64>, f64, f64) {
+    let (mut values, mut se2, mut covered) = (Vec::new(), 0.0, 0);
+    for s in 0..tables {
+        let mut rng = ChaCha8Rng::seed_from_u64(seed0 + s);
+        let x = draw_x(&mut rng, n, p);
+        let y = Array1::from_shape_fn(n, |_| {
+            let e: f64 = rand_distr::StandardNormal.sample(&mut rng);
+            if heavy {
+                let c: f64 = rand_distr::ChiSquared::new(5.0).unwrap().sample(&mut rng);
+                e / (c / 5.0).sqrt() / (5.0f64 / 3.0).sqrt()
+            } else {
+                e
+            }
+        });
+        let e = noise::estimate(m, x.view(), y.view()).unwrap();
+        covered += usize::from((e.value - 1.0).abs() <= 2.0 * e.stderr);
+        se2 += e.stderr * e.stderr;
+        values.push(e.value);
+    }
+    let t = tables as f64;
+    (values, (se2 / t).sqrt(), covered as f64 / t)
 }
 
 /// The study behind `docs/twin-calibration.md` §3.1 (ignored: about a minute): pure noise of
@@ -978,7 +999,6 @@ fn noise_se_study() {
     } else {
         &[50, 100, 200, 400, 1000]
     };
-    let reps = 1500;
     for p in [1usize, 2, 3] {
         for &n in sizes {
             for m in [
@@ -989,30 +1009,11 @@ fn noise_se_study() {
                 if m == noise::Method::Gsjs && p != 1 {
                     continue;
                 }
-                let (mut v, mut se2, mut cov) = (Vec::new(), 0.0, 0);
-                for s in 0..reps {
-                    let mut rng = ChaCha8Rng::seed_from_u64(7 + s as u64);
-                    let x = Array2::from_shape_fn((n, p), |_| rng.gen::<f64>());
-                    let y = Array1::from_shape_fn(n, |_| {
-                        let e: f64 = rand_distr::StandardNormal.sample(&mut rng);
-                        if heavy {
-                            let c: f64 = rand_distr::ChiSquared::new(5.0).unwrap().sample(&mut rng);
-                            e / (c / 5.0).sqrt() / (5.0f64 / 3.0).sqrt()
-                        } else {
-                            e
-                        }
-                    });
-                    let e = noise::estimate(m, x.view(), y.view()).unwrap();
-                    v.push(e.value);
-                    se2 += e.stderr * e.stderr;
-                    cov += usize::from((e.value - 1.0).abs() <= 2.0 * e.stderr);
-                }
+                let (v, rms_se, rate) = pure_noise_se(m, p, n, 1500, 7, heavy);
                 let (mean, sd) = mean_sd(&v);
                 println!(
-                    "p {p} n {n} {m:?}: mean {mean:.4} sd {sd:.4} rms SE {:.4} ratio {:.3} cov2 {:.3}",
-                    (se2 / reps as f64).sqrt(),
-                    (se2 / reps as f64).sqrt() / sd,
-                    cov as f64 / reps as f64
+                    "p {p} n {n} {m:?}: mean {mean:.4} sd {sd:.4} rms SE {rms_se:.4} ratio {:.3} cov2 {rate:.3}",
+                    rms_se / sd
                 );
             }
         }

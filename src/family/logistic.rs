@@ -781,6 +781,9 @@ fn log_sum_exp(v: &[f64]) -> f64 {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use ndarray::{Array1, Array2};
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
 
     #[test]
     fn the_work_estimate_counts_the_solver_that_runs() {
@@ -796,9 +799,6 @@ mod tests {
         let lbfgs = f.work_bytes(200, 57_000, 200, &[1.0, 2.0], two);
         assert!(lbfgs < 1e9, "{lbfgs}");
     }
-    use ndarray::{Array1, Array2};
-    use rand::{Rng, SeedableRng};
-    use rand_chacha::ChaCha8Rng;
 
     /// Invented scenario: a grading station on a fruit-sorting line records `p` readings on
     /// different scales and offsets; the grade (one of `k`) is drawn from a softmax of linear

@@ -279,6 +279,9 @@ impl Spectrum {
 #[cfg(test)]
 mod tests {
     use super::*;
+    use ndarray::{Array1, Array2};
+    use rand::{Rng, SeedableRng};
+    use rand_chacha::ChaCha8Rng;
 
     #[test]
     fn the_work_estimate_of_a_wide_design_has_no_p_by_p_term() {
@@ -292,9 +295,6 @@ mod tests {
         let wide = f.work_bytes(200, 57_000, 200, &[1.0, 2.0], Task::Regress);
         assert!(wide < 1e9, "{wide}");
     }
-    use ndarray::{Array1, Array2};
-    use rand::{Rng, SeedableRng};
-    use rand_chacha::ChaCha8Rng;
 
     fn fit(x: &Array2<f64>, y: &Array1<f64>, eval: &Array2<f64>, grid: &[f64]) -> Array2<f64> {
         let mut out = Array2::zeros((grid.len(), eval.nrows()));
