@@ -548,6 +548,33 @@ fn scenario_cases(t: &mut Table) {
         "replicates",
     );
     t.scenario(g, "blocks 0", &sc("blocks = 2", "blocks = 0"), v, "blocks");
+    // More blocks than replicates is refused at the key, never lowered.
+    for cmd in [v, "run"] {
+        t.scenario(
+            g,
+            &format!("blocks above replicates ({cmd})"),
+            &sc("blocks = 2", "blocks = 5"),
+            cmd,
+            "s.toml:4: key `blocks`: 5 blocks for 4 replicates (`replicates = 4`): a block \
+             holds at least one replicate, so `blocks` can be at most 4",
+        );
+    }
+    t.scenario(
+        g,
+        "blocks above the default replicates",
+        &sc("replicates = 4\n", "").replace("blocks = 2", "blocks = 201"),
+        v,
+        "s.toml:3: key `blocks`: 201 blocks for 200 replicates (the default): a block holds \
+         at least one replicate, so `blocks` can be at most 200",
+    );
+    t.add(
+        g,
+        "blocks above --replicates",
+        &[("s.toml", sc("blocks = 2", "blocks = 4").as_bytes())],
+        &["run", "s.toml", "--replicates", "3", "--out", "r.json"],
+        "s.toml:4: key `blocks`: 4 blocks for 3 replicates (--replicates 3): a block holds at \
+         least one replicate, so `blocks` can be at most 3",
+    );
     t.scenario(g, "seed negative", &sc("seed = 1", "seed = -1"), v, "seed");
     t.scenario(
         g,

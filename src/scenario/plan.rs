@@ -363,7 +363,23 @@ impl Plan {
         let blocks = match &spec.blocks {
             Some(bs) => {
                 let b = cx.positive(bs, "blocks", 2)?;
-                let b = b.min(replicates);
+                // A block holds at least one replicate; a larger `blocks` is refused, never
+                // lowered (it enters the shard fingerprint and the shard count).
+                if b > replicates {
+                    let from = match (opts.replicates, &spec.replicates) {
+                        (Some(_), _) => format!("--replicates {replicates}"),
+                        (None, Some(_)) => format!("`replicates = {replicates}`"),
+                        (None, None) => "the default".to_string(),
+                    };
+                    return Err(cx.err(
+                        Some(bs.span()),
+                        "blocks",
+                        format!(
+                            "{b} blocks for {replicates} replicates ({from}): a block holds at \
+                             least one replicate, so `blocks` can be at most {replicates}"
+                        ),
+                    ));
+                }
                 // The largest block left out must leave 2 replicates for a standard error.
                 let largest = replicates.div_ceil(b);
                 if replicates - largest < 2 {

@@ -27,8 +27,8 @@ pub struct ScenarioSpec {
     #[serde(default)]
     pub replicates: Option<Spanned<i64>>,
     /// Number of replicate blocks (the unit of parallel work, shards, checkpoints and the
-    /// jackknife); default `min(R, 32)`; at least 2, and leaving the largest out must keep 2
-    /// replicates.
+    /// jackknife); default `min(R, 32)`; at least 2, at most R (more is refused, never lowered),
+    /// and leaving the largest out must keep 2 replicates.
     #[serde(default)]
     pub blocks: Option<Spanned<i64>>,
     /// Where training sets come from (required; missing is reported by the planner).
