@@ -260,6 +260,10 @@ pub struct RunArgs {
     /// warning says the holdout is no longer an unbiased estimate.
     #[arg(long, value_name = "VALUE", conflicts_with_all = ["shard", "checkpoint"])]
     pub assess: Option<f64>,
+    /// The model --assess fits, by its `label` (else its family name); needed when the scenario
+    /// has several `[[model]]` sections (one model per look at the holdout).
+    #[arg(long, value_name = "NAME", requires = "assess")]
+    pub family: Option<String>,
 }
 
 /// Options of `check`.

@@ -1979,13 +1979,38 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["run", "s.toml", "--assess", "1", "--out", "r.json"],
         "drop --out",
     );
+    // Several models: --assess never picks the first silently; --family names the one.
+    let two_models = table_scenario("holdout = 0.25", TREE).replace("[model]", "[[model]]")
+        + "\n[[model]]\nfamily = \"knn\"\ngrid = [1, 3]\n";
+    let csv = good_csv();
+    let two = [("h.toml", two_models.as_bytes()), ("t.csv", csv.as_bytes())];
+    t.add(
+        g,
+        "--assess on several models without --family",
+        &two,
+        &["run", "h.toml", "--assess", "2"],
+        "--assess: h.toml has 2 models (tree, knn); choose the one to assess with --family NAME",
+    );
+    t.add(
+        g,
+        "--assess --family of no model",
+        &two,
+        &["run", "h.toml", "--assess", "2", "--family", "forest"],
+        "--family forest: h.toml has no such model; its models are tree, knn",
+    );
+    t.add(
+        g,
+        "--family without --assess",
+        &two,
+        &["run", "h.toml", "--family", "knn"],
+        "--assess",
+    );
     // The assessed value lies outside the scenario's grid: its fit is held to the memory limit
     // too (the run's estimate covered the grid only).
     let wide_assess = table_scenario(
         "holdout = 0.25",
         "family = \"random_features\"\ngrid = [1, 2]",
     );
-    let csv = good_csv();
     t.add(
         g,
         "--assess a huge value, echoed short",

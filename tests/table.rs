@@ -923,6 +923,63 @@ fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
     assert!(ledger.exists());
 }
 
+/// A scenario with several models: `--assess` refuses to guess one (exit 2, nothing counted);
+/// `--family` names it, and the assessment equals that model's own scenario's.
+#[test]
+fn assess_of_several_models_needs_family_and_fits_the_named_one() {
+    let dir = tmp();
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    fs::create_dir(dir.path().join("data")).unwrap();
+    fs::copy(
+        root.join("scenarios/data/cold-store.csv"),
+        dir.path().join("data/cold-store.csv"),
+    )
+    .unwrap();
+    let single = fs::read_to_string(root.join("scenarios/cold-store-table.toml")).unwrap();
+    let knn = "family = \"knn\"\ngrid = [1, 5, 20]\n";
+    let tree = "family = \"tree\"\ngrid = { from = 1, to = 8 }\n";
+    assert!(single.contains(&format!("[model]\n{tree}")));
+    let both = single.replace(
+        &format!("[model]\n{tree}"),
+        &format!("[[model]]\n{tree}\n[[model]]\n{knn}"),
+    );
+    fs::write(dir.path().join("m.toml"), both).unwrap();
+    fs::write(
+        dir.path().join("k.toml"),
+        single.replace(&format!("[model]\n{tree}"), &format!("[model]\n{knn}")),
+    )
+    .unwrap();
+    let o = run_in(dir.path(), &["run", "m.toml", "--assess", "5"]);
+    assert_eq!(o.status.code(), Some(2), "{}", stderr(&o));
+    assert!(
+        stderr(&o).contains("m.toml has 2 models (tree, knn)") && stderr(&o).contains("--family"),
+        "{}",
+        stderr(&o)
+    );
+    assert_eq!(stderr(&o).lines().count(), 1, "{}", stderr(&o));
+    assert!(!dir.path().join("m.holdout-ledger.json").exists());
+    let loss = |out: &Output| {
+        let text = String::from_utf8_lossy(&out.stdout).into_owned();
+        let at = text
+            .find("holdout squared loss = ")
+            .expect("a holdout loss");
+        text[at..].split(" over").next().unwrap().to_string()
+    };
+    let o = run_in(
+        dir.path(),
+        &["run", "m.toml", "--assess", "5", "--family", "knn"],
+    );
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert!(
+        out.contains("cold-store-table (knn): k = 5 fitted"),
+        "{out}"
+    );
+    let alone = run_in(dir.path(), &["run", "k.toml", "--assess", "5"]);
+    assert_eq!(alone.status.code(), Some(0), "{}", stderr(&alone));
+    assert_eq!(loss(&o), loss(&alone));
+}
+
 #[test]
 fn noise_standard_errors_cover_sigma_squared_on_small_tables() {
     // Pure Gaussian noise (σ² = 1), 400 tables of n = 100 rows per (estimator, inputs): ±2 SE

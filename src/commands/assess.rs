@@ -50,9 +50,18 @@ pub struct Assessment {
     pub warning: Option<String>,
 }
 
-/// Fits the family at `value` on every non-holdout row, reports the holdout loss, and records
-/// the assessment in the ledger at `ledger`.
+/// Fits the plan's model at `value` on every non-holdout row, reports the holdout loss, and
+/// records the assessment in the ledger at `ledger`. The plan must hold exactly one model (`run
+/// --assess` keeps the one `--family` names): a plan with several is refused, never assessed
+/// by its first.
 pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Error> {
+    if plan.models.len() != 1 {
+        return Err(Error::Usage(format!(
+            "--assess fits one model and {} has {}; choose one with --family NAME",
+            plan.file,
+            plan.models.len()
+        )));
+    }
     let tp: &TablePlan = match &plan.source {
         Source::Table(t) => t,
         _ => {

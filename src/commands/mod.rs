@@ -737,19 +737,48 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
                 .into(),
         ));
     }
+    // One model per assessment: a knob value means something else in each family, and every
+    // model assessed is one more look at the holdout.
+    let labels: Vec<&str> = plan.models.iter().map(|m| m.label.as_str()).collect();
+    let chosen = match &args.family {
+        Some(f) => labels.iter().position(|l| l == f).ok_or_else(|| {
+            Error::Usage(format!(
+                "--family {}: {} has no such model; its models are {}",
+                crate::fmt::clip(f, 40),
+                path.display(),
+                labels.join(", ")
+            ))
+        })?,
+        None if labels.len() > 1 => {
+            return Err(Error::Usage(format!(
+                "--assess: {} has {} models ({}); choose the one to assess with --family NAME \
+                 (each assessment is one look at the holdout)",
+                path.display(),
+                labels.len(),
+                labels.join(", ")
+            )))
+        }
+        None => 0,
+    };
+    let mut one = plan.clone();
+    one.models = vec![plan.models[chosen].clone()];
     // The run's estimate was held for the scenario's grid; the assessed value may lie outside
     // it (a larger depth, more features), so the fit at that value is checked too.
-    let mut one = plan.clone();
-    one.models.truncate(1);
-    one.models[0].grid = vec![value];
-    runner::memory::check(&one, 1, args.memory_limit)?;
+    let mut at_value = one.clone();
+    at_value.models[0].grid = vec![value];
+    runner::memory::check(&at_value, 1, args.memory_limit)?;
     let ledger = assess::ledger_path(path);
-    let a = assess::assess(plan, value, &ledger)?;
+    let a = assess::assess(&one, value, &ledger)?;
+    let name = if labels.len() > 1 {
+        format!("{} ({})", plan.name, labels[chosen])
+    } else {
+        plan.name.clone()
+    };
     outln!(
         "holdout assessment of {}: {} = {} fitted on {} rows; holdout {} loss = {} ± {} over {} rows \
          (assessment {} of this holdout, hash {}, ledger {})",
-        plan.name,
-        plan.model().family.knob(),
+        name,
+        one.model().family.knob(),
         crate::fmt::fmt_value(a.value),
         a.train_rows,
         plan.loss.name(),
