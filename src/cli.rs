@@ -104,6 +104,11 @@ pub struct TwinArgs {
     /// Noise varying with x (smoothed squared residuals) instead of a constant.
     #[arg(long)]
     pub varying: bool,
+    /// The noise's law in the twin: `gaussian`, or `residuals` (the table's standardized
+    /// residuals under the reference, drawn with replacement: keeps heavy tails or skew; the
+    /// noise's bootstrap draws them too). Written as `shape` in [data.noise].
+    #[arg(long, default_value = "gaussian", value_name = "gaussian|residuals")]
+    pub noise_shape: String,
     /// Twicing of the regression reference (refitted to its own residuals and added, which
     /// restores curvature a cross-validated fit rounds off): `auto` twices on tables of 3 or
     /// more inputs and, with fewer, when that lowers the cross-validated error on the table;

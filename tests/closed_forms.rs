@@ -200,6 +200,43 @@ grid = [1, 2, 3, 5, 8, 13, 21, 34]
     check_knn_fixed("1 input", &plan, &out, 0.8);
 }
 
+/// Test 1c: the same closed form with heavy-tailed noise (Student's t, 5 degrees of freedom,
+/// scaled to sd 0.8). ESL eq. 7.10 needs only the noise's variance, so the exact terms are the
+/// Gaussian case's; the replicates' spread, and so the standard errors, see the tails.
+#[test]
+fn knn_fixed_design_with_student_noise_matches_esl_7_10() {
+    let src = r#"
+# Invented scenario: the sensor line of test 1a with occasional large reading errors.
+name = "closed-form-knn-1d-student"
+seed = 17
+replicates = 320
+
+[data]
+source = "synthetic"
+train_size = 120
+design = "fixed"
+eval = "design"
+
+[[data.inputs]]
+name = "position"
+even = [0.0, 1.0]
+
+[data.truth]
+formula = "20 + 6*exp(-((position - 0.4)/0.12)^2) + 2*position"
+
+[data.noise]
+sd = 0.8
+shape = "student"
+df = 5
+
+[model]
+family = "knn"
+grid = [1, 2, 3, 5, 8, 13, 21, 34]
+"#;
+    let (plan, out) = run_text(src, &PlanOptions::default());
+    check_knn_fixed("1 input, student noise", &plan, &out, 0.8);
+}
+
 /// Test 1b: k-NN on a two-input fixed design drawn once from uniforms (invented).
 #[test]
 fn knn_fixed_design_two_inputs_matches_esl_7_10() {

@@ -142,17 +142,25 @@ fn noise_study_table(
 ) -> (Array2<f64>, Array1<f64>, Vec<f64>, dgp_twin::RegressionFit) {
     let (x, y) = draw_table(proc, n, 1.0, seed + 101 * t as u64);
     let yv = y.to_vec();
-    let fit = dgp_twin::fit_regression(
+    // `LOSSPRISM_NOISE_SHAPE=residuals`: the bootstrap resamples the standardized residuals
+    // (`twin --noise-shape residuals`).
+    let fit = dgp_twin::fit_regression_shaped(
         x.view(),
         &yv,
         seed + t as u64,
         Rule::Best,
         None,
         dgp_twin::Twicing::Auto,
+        resampled_shape("LOSSPRISM_NOISE_SHAPE"),
         "t",
     )
     .expect("fits");
     (x, y, yv, fit)
+}
+
+/// Whether the environment variable `var` asks for resampled residuals (`residuals`).
+fn resampled_shape(var: &str) -> bool {
+    std::env::var(var).as_deref() == Ok("residuals")
 }
 
 /// Draws a table; the noise is Gaussian, or with `LOSSPRISM_NOISE_TAILS=t5` Student's t with 5
@@ -316,6 +324,10 @@ fn truth(dir: &Path, proc: Process, n: usize, r: usize, m: usize, seed: u64) -> 
         "[data.truth]\nformula = \"{}\"\n[data.noise]\nsd = 1.0\n",
         proc.formula
     ));
+    if std::env::var("LOSSPRISM_NOISE_TAILS").as_deref() == Ok("t5") {
+        // The tables' noise law (`draw_table`), so the truth is the same process.
+        s.push_str("shape = \"student\"\ndf = 5\n");
+    }
     s.push_str(&models(n));
     let mut cs = curves(&plan_text(dir, "truth.toml", &s));
     for c in &mut cs {
@@ -465,6 +477,12 @@ fn study_table(
             Ok("on") => dgp_twin::Twicing::On,
             Ok("off") => dgp_twin::Twicing::Off,
             _ => dgp_twin::Twicing::Auto,
+        },
+        // `LOSSPRISM_CALIB_SHAPE=residuals` resamples the residuals (`twin --noise-shape`).
+        noise_shape: if resampled_shape("LOSSPRISM_CALIB_SHAPE") {
+            lossprism::scenario::plan::ShapeChoice::Residuals
+        } else {
+            lossprism::scenario::plan::ShapeChoice::Gaussian
         },
         ..Default::default()
     };

@@ -927,6 +927,21 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             a.twicing
         ))
     })?;
+    let noise_shape = match a.noise_shape.as_str() {
+        "gaussian" => crate::scenario::plan::ShapeChoice::Gaussian,
+        "residuals" if a.classes => {
+            return Err(Error::Usage(
+                "--noise-shape residuals: a classification twin has no additive noise (its labels come from the reference's class probabilities); drop one of the two".into(),
+            ))
+        }
+        "residuals" => crate::scenario::plan::ShapeChoice::Residuals,
+        other => {
+            return Err(Error::Usage(format!(
+                "--noise-shape: unknown `{}`; expected gaussian or residuals",
+                crate::fmt::clip(other, 40)
+            )))
+        }
+    };
     if twicing == crate::dgp::twin::Twicing::On && (a.classes || a.varying) {
         return Err(Error::Usage(format!(
             "--twicing on: twicing applies to a regression reference with constant noise, not with {}; drop one of the two",
@@ -970,6 +985,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         out: a.out,
         seed: a.seed,
         varying: a.varying,
+        noise_shape,
         jitter: a.jitter,
         eval_size: a.eval_size,
         reference,

@@ -40,6 +40,7 @@ use crate::error::Error;
 use crate::family::Task;
 use crate::fmt::{fmt_num, fmt_se, fmt_value};
 use crate::rng::{purpose, stream};
+use crate::scenario::plan::ShapeChoice;
 use crate::scenario::twin::{TwinNoise, TwinSpec};
 use crate::scenario::{Design, Plan, Source};
 
@@ -105,6 +106,9 @@ pub struct TwinOptions {
     pub seed: u64,
     /// Write `varying = true` noise instead of a constant.
     pub varying: bool,
+    /// The noise's law: Gaussian (default) or the table's standardized residuals resampled
+    /// (`shape = "residuals"`; Student's t is for scenarios written by hand).
+    pub noise_shape: ShapeChoice,
     /// The smoothed bootstrap's multiplier c on Silverman's rule (0: rows as they are).
     pub jitter: f64,
     /// Evaluation points of the twin (drawn once).
@@ -140,6 +144,7 @@ impl Default for TwinOptions {
             out: PathBuf::from("twin.toml"),
             seed: 1,
             varying: false,
+            noise_shape: ShapeChoice::Gaussian,
             jitter: twin::DEFAULT_JITTER,
             eval_size: twin::EVAL_SIZE,
             reference: Rule::Best,
@@ -343,6 +348,13 @@ fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionTe
         s.push_str("varying = true\n");
     } else {
         s.push_str(&format!("sd = {}\n", toml_f64(r.sd)));
+    }
+    match o.noise_shape {
+        ShapeChoice::Gaussian => {}
+        ShapeChoice::Residuals => s.push_str("shape = \"residuals\"\n"),
+        ShapeChoice::Student(df) => {
+            s.push_str(&format!("shape = \"student\"\ndf = {}\n", toml_f64(df)))
+        }
     }
     s
 }
@@ -562,7 +574,7 @@ fn noise_line(n: &NoiseCorrection) -> String {
         String::new()
     };
     format!(
-        "Noise ({}{}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {}: the larger of the spread over {} parametric-bootstrap tables drawn from that fit, {}, and the estimator's own SE, which also sees heavy-tailed noise; and the reference's possible error){}.{check}",
+        "Noise ({}{}{}): raw σ̂² = {} ± {} (its own SE); bias {} subtracted (the estimator on the reference's own fit at the rows, fitted once, before any twicing: the parametric bootstrap's bias, exactly); corrected σ̂² = {} ± {} (sampling SE {}: the larger of the spread over {} {} drawn from that fit, {}, and the estimator's own SE, which also sees heavy-tailed noise; and the reference's possible error){}.{check}",
         n.method.describe(),
         if n.weighted {
             "; neighbour distances weight the inputs as the reference does"
@@ -583,6 +595,11 @@ fn noise_line(n: &NoiseCorrection) -> String {
         fmt_se(n.se),
         fmt_se(n.sampling_se),
         n.tables,
+        if n.resampled {
+            "residual-bootstrap tables (noise resampled from its standardized residuals)"
+        } else {
+            "parametric-bootstrap tables"
+        },
         fmt_se(n.bootstrap_se),
         if n.floored {
             "; the correction exceeded the raw estimate, so σ̂² is floored at 5% of it"
@@ -673,13 +690,14 @@ pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<T
 /// The regression fit of a twin of table `t` with the options of `o` (varying noise fits the
 /// reference once).
 fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, String> {
-    twin::fit_regression(
+    twin::fit_regression_shaped(
         t.x.view(),
         &t.y.to_vec(),
         o.seed,
         o.reference,
         o.noise_estimator,
         if o.varying { Twicing::Off } else { o.twicing },
+        o.noise_shape == ShapeChoice::Residuals,
         source,
     )
 }
@@ -697,6 +715,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         choice: fit.selection.choice.clone(),
         jitter: o.jitter,
         noise: Some(noise),
+        shape: o.noise_shape,
         train_size: t.rows(),
         sizes: vec![t.rows()],
         eval_size: if o.jitter > 0.0 {
@@ -1135,6 +1154,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 if o.varying {
                     comments.push("Noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals.".into());
                 }
+                if o.noise_shape == ShapeChoice::Residuals {
+                    comments.push("Noise written as resampled residuals: each simulated noise value is σ̂ times one of the table's standardized residuals under the reference, drawn with replacement (keeps skew and heavy tails; `run` refits the reference and recomputes them).".into());
+                }
                 if let Some(f) = r.fidelity {
                     comments.push(recommended_line(f));
                     comments.extend(fidelity_lines(f, t.rows()));
@@ -1191,6 +1213,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 out.push_str(
                     "noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals\n",
                 );
+            }
+            if o.noise_shape == ShapeChoice::Residuals {
+                out.push_str("Noise written as resampled residuals: each simulated noise value is σ̂ times one of the table's standardized residuals under the reference, drawn with replacement (keeps skew and heavy tails; `run` refits the reference and recomputes them).\n");
             }
             match &fid {
                 Some(f) => {

@@ -215,6 +215,86 @@ impl Noise {
     }
 }
 
+/// The law of the standardized noise z in `y = f(x) + σ(x) z` (mean 0, variance 1, so σ(x)² is
+/// the noise variance whatever the shape; the squared loss's noise term needs nothing else).
+#[derive(Debug, Clone, Default, PartialEq)]
+pub enum NoiseShape {
+    /// Standard normal.
+    #[default]
+    Gaussian,
+    /// Student's t with `df` > 2 degrees of freedom scaled to variance 1, `z = t·√((df − 2)/df)`
+    /// (heavier tails: excess kurtosis 6/(df − 4) for df > 4).
+    Student(f64),
+    /// Drawn with replacement from a pool of standardized residuals (mean 0, mean square 1; see
+    /// [`standardized_residuals`]): the residual bootstrap, which keeps the table's noise shape.
+    Resampled(std::sync::Arc<Vec<f64>>),
+}
+
+impl NoiseShape {
+    /// Human-readable form of noise `noise` with this shape (Poisson counts have none).
+    pub fn describe(&self, noise: &Noise) -> String {
+        let base = noise.describe();
+        let rest = match base.strip_prefix("gaussian") {
+            Some(rest) => rest,
+            None => return base,
+        };
+        match self {
+            NoiseShape::Gaussian => base,
+            NoiseShape::Student(df) => format!("student t ({df} degrees of freedom, scaled to variance 1){rest}"),
+            NoiseShape::Resampled(pool) => format!(
+                "resampled residuals (the {} standardized in-sample residuals of the reference, drawn with replacement){rest}",
+                pool.len()
+            ),
+        }
+    }
+
+    /// One standardized noise draw from `rng`.
+    fn draw<R: Rng + ?Sized>(&self, rng: &mut R) -> f64 {
+        match self {
+            NoiseShape::Gaussian => StandardNormal.sample(rng),
+            NoiseShape::Student(df) => {
+                let t: f64 = rand_distr::StudentT::new(*df)
+                    .map(|d| d.sample(rng))
+                    .unwrap_or(0.0);
+                t * ((df - 2.0) / df).sqrt()
+            }
+            NoiseShape::Resampled(pool) => pool[rng.gen_range(0..pool.len())],
+        }
+    }
+}
+
+/// The residuals `(y_i − f_i) / s_i` of the rows with `s_i > 0`, centred and scaled to mean
+/// square 1: the pool of [`NoiseShape::Resampled`]. Errors (one line) when fewer than 2 rows have
+/// `s_i > 0`, or when the residuals are all equal (a fit through every point leaves no shape to
+/// resample) or not finite.
+pub fn standardized_residuals(y: &[f64], f: &[f64], s: &[f64]) -> Result<Vec<f64>, String> {
+    let mut z: Vec<f64> = y
+        .iter()
+        .zip(f)
+        .zip(s)
+        .filter(|(_, s)| **s > 0.0)
+        .map(|((y, f), s)| (y - f) / s)
+        .collect();
+    if z.len() < 2 {
+        return Err(format!(
+            "{} rows with noise; resampled residuals need at least 2",
+            z.len()
+        ));
+    }
+    let n = z.len() as f64;
+    let mean = z.iter().sum::<f64>() / n;
+    z.iter_mut().for_each(|v| *v -= mean);
+    let ms = z.iter().map(|v| v * v).sum::<f64>() / n;
+    if !(ms.is_finite() && ms > 0.0) {
+        return Err(format!(
+            "the reference's residuals have mean square {ms}; resampled residuals need a finite spread (use the Gaussian shape)"
+        ));
+    }
+    let scale = ms.sqrt();
+    z.iter_mut().for_each(|v| *v /= scale);
+    Ok(z)
+}
+
 /// How the true class probabilities are given.
 #[derive(Debug, Clone)]
 pub enum ClassKind {
@@ -275,6 +355,8 @@ pub enum Response {
         truth: Truth,
         /// σ(x).
         noise: Noise,
+        /// The law of z (Gaussian unless the scenario says otherwise; ignored by Poisson counts).
+        shape: NoiseShape,
     },
     /// `y ~ Categorical(p(x))`.
     Classes(ClassModel),
@@ -619,7 +701,7 @@ pub fn draw_labels<R: Rng + ?Sized>(probs: &Array2<f64>, rng: &mut R) -> Array1<
 impl Synthetic {
     /// Responses at rows with truth `f` and noise sd `sd` (from [`Synthetic::sd_at`]): Poisson
     /// counts with mean `f` for [`Noise::Poisson`] ([`draw_counts`]), else `f` plus Gaussian
-    /// noise ([`add_noise`]).
+    /// noise ([`add_noise`]) or noise of the process's [`NoiseShape`] ([`add_shaped_noise`]).
     pub fn respond<R: Rng + ?Sized>(
         &self,
         f: &Array1<f64>,
@@ -631,6 +713,9 @@ impl Synthetic {
                 noise: Noise::Poisson,
                 ..
             } => draw_counts(f, rng),
+            Response::Regression { shape, .. } if *shape != NoiseShape::Gaussian => {
+                add_shaped_noise(f, sd, shape, rng)
+            }
             _ => add_noise(f, sd, rng),
         }
     }
@@ -664,6 +749,21 @@ pub fn add_noise<R: Rng + ?Sized>(f: &Array1<f64>, sd: &Array1<f64>, rng: &mut R
     for (yi, s) in y.iter_mut().zip(sd.iter()) {
         let z: f64 = StandardNormal.sample(rng);
         *yi += s * z;
+    }
+    y
+}
+
+/// Adds noise of shape `shape`: `y_i = f_i + σ_i z_i` with z drawn from `rng` in index order
+/// ([`add_noise`] draws the same Gaussian stream).
+pub fn add_shaped_noise<R: Rng + ?Sized>(
+    f: &Array1<f64>,
+    sd: &Array1<f64>,
+    shape: &NoiseShape,
+    rng: &mut R,
+) -> Array1<f64> {
+    let mut y = f.clone();
+    for (yi, s) in y.iter_mut().zip(sd.iter()) {
+        *yi += s * shape.draw(rng);
     }
     y
 }
@@ -707,6 +807,7 @@ mod tests {
             response: Response::Regression {
                 truth: Truth::Builtin(Builtin::Friedman1),
                 noise: Noise::Constant(1.0),
+                shape: NoiseShape::Gaussian,
             },
         };
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(1);

@@ -254,6 +254,8 @@ pub struct NoiseCorrection {
     pub weighted: bool,
     /// Table rows left out as query rows ([`noise::Design::trimmed`]; 0 when none).
     pub left_out: usize,
+    /// The bootstrap tables resampled the standardized residuals instead of Gaussian noise.
+    pub resampled: bool,
 }
 
 impl NoiseCorrection {
@@ -319,11 +321,26 @@ fn spread(draws: &[f64]) -> f64 {
 
 /// Responses `f + σ ε` at the rows for bootstrap table `b` (stream `(seed, TWIN_BOOT, b)`).
 pub fn bootstrap_responses(f_rows: &[f64], sigma: f64, seed: u64, b: u64) -> Array1<f64> {
+    bootstrap_responses_from(f_rows, sigma, None, seed, b)
+}
+
+/// [`bootstrap_responses`] with the standardized noise drawn with replacement from `pool`
+/// (mean 0, mean square 1; [`crate::dgp::standardized_residuals`]) when given, else Gaussian.
+pub fn bootstrap_responses_from(
+    f_rows: &[f64],
+    sigma: f64,
+    pool: Option<&[f64]>,
+    seed: u64,
+    b: u64,
+) -> Array1<f64> {
     let mut rng = stream(seed, purpose::TWIN_BOOT, b);
     f_rows
         .iter()
         .map(|v| {
-            let e: f64 = StandardNormal.sample(&mut rng);
+            let e: f64 = match pool {
+                Some(p) => p[rng.gen_range(0..p.len())],
+                None => StandardNormal.sample(&mut rng),
+            };
             v + sigma * e
         })
         .collect()
@@ -356,13 +373,29 @@ pub fn correct_noise_weighted(
     tables: usize,
     seed: u64,
 ) -> Option<NoiseCorrection> {
+    correct_noise_weighted_from(method, x, weights, y, f_rows, tables, seed, None)
+}
+
+/// [`correct_noise_weighted`] with the bootstrap's noise resampled from `pool` when given
+/// ([`correct_noise_shaped`]).
+#[allow(clippy::too_many_arguments)]
+pub fn correct_noise_weighted_from(
+    method: Method,
+    x: ArrayView2<'_, f64>,
+    weights: Option<&[f64]>,
+    y: &[f64],
+    f_rows: &[f64],
+    tables: usize,
+    seed: u64,
+    pool: Option<&[f64]>,
+) -> Option<NoiseCorrection> {
     let mut design = noise::Design::weighted(method, x, weights)?;
     if x.ncols() <= TRIM_MAX_INPUTS {
         design = design.trimmed(f_rows, TRIM_SHARE);
     }
     // GSJS orders one input and ignores weights.
     let weighted = weights.is_some() && method != Method::Gsjs;
-    correct_noise_on(&design, x, y, f_rows, tables, seed, weighted)
+    correct_noise_shaped(&design, x, y, f_rows, tables, seed, weighted, pool)
 }
 
 /// [`correct_noise_weighted`] on a prepared estimator `design` of the rows `x` (the twin's
@@ -375,6 +408,23 @@ pub fn correct_noise_on(
     tables: usize,
     seed: u64,
     weighted: bool,
+) -> Option<NoiseCorrection> {
+    correct_noise_shaped(design, x, y, f_rows, tables, seed, weighted, None)
+}
+
+/// [`correct_noise_on`] with the bootstrap tables' noise resampled from `pool` (the
+/// standardized residuals of a twin whose noise is `shape = "residuals"`) when given, so that
+/// the spread also sees the table's noise shape; Gaussian otherwise.
+#[allow(clippy::too_many_arguments)]
+pub fn correct_noise_shaped(
+    design: &noise::Design,
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    f_rows: &[f64],
+    tables: usize,
+    seed: u64,
+    weighted: bool,
+    pool: Option<&[f64]>,
 ) -> Option<NoiseCorrection> {
     let method = design.method();
     let raw_est = design.estimate(ArrayView1::from(y))?;
@@ -390,7 +440,7 @@ pub fn correct_noise_on(
     let mut draws = Vec::with_capacity(tables);
     let mut pilot_sum = Some(0.0);
     for b in 0..tables {
-        let ys = bootstrap_responses(f_rows, sigma, seed, b as u64);
+        let ys = bootstrap_responses_from(f_rows, sigma, pool, seed, b as u64);
         draws.push(est(ys.view()));
         pilot_sum = match (pilot_sum, &pilot) {
             (Some(acc), Some(p)) => ys
@@ -434,6 +484,7 @@ pub fn correct_noise_on(
         floored,
         weighted,
         left_out: y.len() - design.query_rows(),
+        resampled: pool.is_some(),
     })
 }
 
@@ -524,6 +575,26 @@ pub fn fit_regression(
     twicing: Twicing,
     source: &str,
 ) -> Result<RegressionFit, String> {
+    fit_regression_shaped(x, y, seed, rule, method, twicing, false, source)
+}
+
+/// [`fit_regression`] for a twin whose noise is resampled from its residuals (`resample`):
+/// the noise's bootstrap tables then draw their noise from the standardized residuals of the
+/// fit made once ([`crate::dgp::standardized_residuals`]) instead of a Gaussian, so that its
+/// spread sees the table's noise shape (heavy tails; measured in
+/// `docs/twin-calibration.md` §2.8). Errors as [`fit_regression`] does, and when the residuals
+/// have no spread.
+#[allow(clippy::too_many_arguments)]
+pub fn fit_regression_shaped(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    seed: u64,
+    rule: Rule,
+    method: Option<Method>,
+    twicing: Twicing,
+    resample: bool,
+    source: &str,
+) -> Result<RegressionFit, String> {
     if y.len() < select::FOLDS + 1 {
         return Err(format!(
             "{} rows; a regression twin needs at least {}",
@@ -542,7 +613,16 @@ pub fn fit_regression(
     // The estimator measures distance as the reference does: with the input weights the
     // choice kept, inputs the response barely depends on no longer spread the neighbours
     // (measured: docs/twin-calibration.md §0.2).
-    let noise = correct_noise_weighted(
+    let pool = if resample {
+        Some(crate::dgp::standardized_residuals(
+            y,
+            &once_rows,
+            &vec![1.0; y.len()],
+        )?)
+    } else {
+        None
+    };
+    let noise = correct_noise_weighted_from(
         method,
         x,
         selection.choice.metric.as_deref(),
@@ -550,6 +630,7 @@ pub fn fit_regression(
         &once_rows,
         NOISE_TABLES,
         seed,
+        pool.as_deref(),
     );
     let check = match twicing {
         Twicing::Auto if x.ncols() < TWICE_FROM_INPUTS => {
@@ -1005,6 +1086,27 @@ mod tests {
                 c.correction
             );
             assert!(c.correction > 0.0 || method == Method::Gamma);
+            // The identity needs only i.i.d. noise of mean 0 and variance σ²: it holds for
+            // resampled skewed residuals (Exponential − 1, standardized) too.
+            let e: Vec<f64> = (0..n)
+                .map(|_| -(1.0 - rng.gen::<f64>()).ln() - 1.0)
+                .collect();
+            let pool =
+                crate::dgp::standardized_residuals(&e, &vec![0.0; n], &vec![1.0; n]).unwrap();
+            let d: Vec<f64> = (0..400)
+                .map(|b| {
+                    let ys = bootstrap_responses_from(&f, s2.sqrt(), Some(&pool), 11, b);
+                    design.value(ys.view()) - s2
+                })
+                .collect();
+            let m = d.iter().sum::<f64>() / d.len() as f64;
+            let sd = (d.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / 399.0).sqrt();
+            let se = sd / 20.0;
+            assert!(
+                (m - c.correction).abs() < 4.0 * se,
+                "{method:?}, resampled: bootstrap bias {m} ± {se}, exact {}",
+                c.correction
+            );
         }
     }
 }

@@ -933,7 +933,7 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
             Response::Classes(m) => m.describe(),
         },
         noise: match &s.process.response {
-            Response::Regression { noise, .. } => noise.describe(),
+            Response::Regression { noise, shape, .. } => shape.describe(noise),
             Response::Classes(_) => "label noise from the class probabilities".into(),
         },
         labels: match &s.process.response {

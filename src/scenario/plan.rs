@@ -14,7 +14,7 @@ use super::spec::{ClassesSpec, DataSpec, InputSpec, ScenarioSpec};
 use crate::dataset::TablePlan;
 use crate::decompose::{self, Loss, Shape};
 use crate::dgp::{
-    Builtin, ClassKind, ClassModel, Input, InputDist, Noise, Response, Synthetic, Truth,
+    Builtin, ClassKind, ClassModel, Input, InputDist, Noise, NoiseShape, Response, Synthetic, Truth,
 };
 use crate::error::ScenarioError;
 use crate::expr::Formula;
@@ -750,9 +750,100 @@ fn not_positive(family: &str, loss: &str) -> String {
     )
 }
 
+/// The noise shape a scenario asks for in `[data.noise]` (`shape`, `df`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum ShapeChoice {
+    /// Standard normal (the default).
+    Gaussian,
+    /// Student's t with this many degrees of freedom, scaled to variance 1.
+    Student(f64),
+    /// A twin's standardized residuals, resampled (built from the table when the twin is).
+    Residuals,
+}
+
+/// Largest `df` of `shape = "student"` (beyond it the law is Gaussian to working precision).
+pub const MAX_STUDENT_DF: f64 = 1e6;
+
+/// The shape of `[data.noise]` `n` (`twin`: the source is a twin, which also allows
+/// `residuals`). An error carries the span, the key and the message.
+pub fn shape_choice(
+    n: &super::spec::NoiseSpec,
+    twin: bool,
+) -> Result<ShapeChoice, (Range<usize>, &'static str, String)> {
+    let df = n.df.as_ref();
+    let Some(shape) = n.shape.as_ref() else {
+        return match df {
+            Some(d) => Err((
+                d.span(),
+                "data.noise.df",
+                "belongs to `shape = \"student\"`; add that key or remove `df`".into(),
+            )),
+            None => Ok(ShapeChoice::Gaussian),
+        };
+    };
+    if let Some(p) = n.poisson.as_ref().filter(|p| *p.get_ref()) {
+        return Err((
+            p.span(),
+            "data.noise.shape",
+            "Poisson counts have no noise shape; remove `shape` or `poisson`".into(),
+        ));
+    }
+    let choice = match shape.get_ref().as_str() {
+        "gaussian" => ShapeChoice::Gaussian,
+        "student" => {
+            let Some(d) = df else {
+                return Err((
+                    shape.span(),
+                    "data.noise.df",
+                    "`shape = \"student\"` needs `df`, its degrees of freedom (a number > 2)".into(),
+                ));
+            };
+            let v = *d.get_ref();
+            if !(v.is_finite() && v > 2.0 && v <= MAX_STUDENT_DF) {
+                return Err((
+                    d.span(),
+                    "data.noise.df",
+                    format!(
+                        "must be a number in (2, {MAX_STUDENT_DF:e}] (at 2 or fewer the variance is infinite), got {}",
+                        crate::fmt::fmt_exact(v)
+                    ),
+                ));
+            }
+            return Ok(ShapeChoice::Student(v));
+        }
+        "residuals" if twin => ShapeChoice::Residuals,
+        "residuals" => {
+            return Err((
+                shape.span(),
+                "data.noise.shape",
+                "`residuals` resamples a twin's table residuals; a synthetic source uses `gaussian` or `student`".into(),
+            ))
+        }
+        other => {
+            return Err((
+                shape.span(),
+                "data.noise.shape",
+                format!(
+                    "unknown shape `{}`; use `gaussian`, `student`{}",
+                    crate::fmt::clip(other, 40),
+                    if twin { " or `residuals`" } else { "" }
+                ),
+            ))
+        }
+    };
+    match df {
+        Some(d) => Err((
+            d.span(),
+            "data.noise.df",
+            "belongs to `shape = \"student\"`; remove `df`".into(),
+        )),
+        None => Ok(choice),
+    }
+}
+
 /// A loss on counts ([`Loss::count_responses`]) needs non-negative responses: Poisson counts
 /// from a synthetic source (`[data.noise] poisson = true`), or a table whose target is never
-/// negative. A twin's noise is Gaussian, so it is refused.
+/// negative. A twin's noise is continuous, so it is refused.
 fn check_counts(
     cx: &Ctx<'_>,
     spec: &ScenarioSpec,
@@ -770,7 +861,7 @@ fn check_counts(
             _ if s.process.is_twin() => Err(cx.err(
                 span,
                 "loss.kind",
-                format!("the `{name}` loss needs count responses, and a twin's noise is Gaussian; use a synthetic source with `poisson = true` in [data.noise], or the table itself"),
+                format!("the `{name}` loss needs count responses, and a twin's noise is continuous; use a synthetic source with `poisson = true` in [data.noise], or the table itself"),
             )),
             _ => Err(cx.err(
                 span,
@@ -1554,10 +1645,26 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             },
         },
     };
+    let shape = match d.noise.as_ref().map(|n| shape_choice(n, false)) {
+        None | Some(Ok(ShapeChoice::Gaussian)) => NoiseShape::Gaussian,
+        Some(Ok(ShapeChoice::Student(df))) => NoiseShape::Student(df),
+        Some(Ok(ShapeChoice::Residuals)) => {
+            return Err(cx.err(
+                Some(d.source.span()),
+                "data.noise.shape",
+                "`residuals` needs a twin source",
+            ))
+        }
+        Some(Err((span, key, m))) => return Err(cx.err(Some(span), key, m)),
+    };
     Ok(SyntheticPlan {
         process: Synthetic {
             inputs,
-            response: Response::Regression { truth, noise },
+            response: Response::Regression {
+                truth,
+                noise,
+                shape,
+            },
         },
         train_size,
         sizes,

@@ -418,6 +418,13 @@ pub struct NoiseSpec {
     /// Twin: σ²(x) from the reference's smoothed squared residuals instead of a constant.
     #[serde(default)]
     pub varying: Option<Spanned<bool>>,
+    /// The law of the standardized noise: `gaussian` (default), `student` (with `df`) or, in a
+    /// twin, `residuals` (the table's standardized residuals resampled).
+    #[serde(default)]
+    pub shape: Option<Spanned<String>>,
+    /// Degrees of freedom of `shape = "student"` (> 2, so that the variance is finite).
+    #[serde(default)]
+    pub df: Option<Spanned<f64>>,
 }
 
 /// `[loss]`.

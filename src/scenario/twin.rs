@@ -10,9 +10,13 @@ use std::sync::Arc;
 use crate::dataset::{self, Missing, Table, TableOptions, TargetKind};
 use crate::dgp::reference::{metric_problem, Candidate, Choice, ForestParams, Reference};
 use crate::dgp::twin::{FidelityModel, FidelityRecord, FitReport, Jitter, NoiseRecord};
-use crate::dgp::{ClassKind, ClassModel, Input, InputDist, Noise, Response, Synthetic, Truth};
+use crate::dgp::{
+    standardized_residuals, ClassKind, ClassModel, Input, InputDist, Noise, NoiseShape, Response,
+    Synthetic, Truth,
+};
 use crate::error::ScenarioError;
 use crate::family::Task;
+use crate::scenario::plan::{shape_choice, ShapeChoice};
 use crate::scenario::spec::{DataSpec, FitReportSpec, ReferenceSpec};
 use crate::scenario::{Design, SyntheticPlan};
 
@@ -40,6 +44,8 @@ pub struct TwinSpec {
     pub jitter: f64,
     /// The noise (regression; `None` for classes).
     pub noise: Option<TwinNoise>,
+    /// The law of the standardized noise (regression).
+    pub shape: ShapeChoice,
     /// Training size n (the largest of `sizes`).
     pub train_size: usize,
     /// The training sizes of a learning curve (ascending; one entry for a single size).
@@ -101,9 +107,17 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
             Some(TwinNoise::Varying) => Noise::Reference(fitted.clone()),
             None => return Err("a regression twin needs a noise".into()),
         };
+        let shape = match spec.shape {
+            ShapeChoice::Gaussian => NoiseShape::Gaussian,
+            ShapeChoice::Student(df) => NoiseShape::Student(df),
+            ShapeChoice::Residuals => {
+                NoiseShape::Resampled(Arc::new(residual_pool(t, &fitted, &noise)?))
+            }
+        };
         Response::Regression {
             truth: Truth::Reference(fitted),
             noise,
+            shape,
         }
     };
     Ok(SyntheticPlan {
@@ -114,6 +128,28 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
         design: spec.design,
         eval_at_design: spec.eval_at_design,
     })
+}
+
+/// The pool of a twin's resampled noise: the table's in-sample residuals under the reference
+/// `r`, each divided by the noise's sd at its row (constant, or σ(x) of varying noise), then
+/// centred and scaled to mean square 1 ([`standardized_residuals`]).
+pub fn residual_pool(t: &Table, r: &Reference, noise: &Noise) -> Result<Vec<f64>, String> {
+    let f = r.mean_at_rows(t.x.view());
+    let s: Vec<f64> = match noise {
+        Noise::Reference(r) => {
+            let mut buf = vec![0.0; t.x.ncols()];
+            t.x.rows()
+                .into_iter()
+                .map(|row| {
+                    buf.iter_mut().zip(row.iter()).for_each(|(b, v)| *b = *v);
+                    r.var_at(&buf).unwrap_or(0.0).max(0.0).sqrt()
+                })
+                .collect()
+        }
+        _ => vec![1.0; t.y.len()],
+    };
+    let y = t.y.to_vec();
+    standardized_residuals(&y, &f, &s).map_err(|m| format!("`shape = \"residuals\"`: {m}"))
 }
 
 /// The recipe written in `reference`, checked against a table of `rows` rows (`classes > 0`:
@@ -656,6 +692,10 @@ pub fn from_spec(
             }
         })
     };
+    let shape = match d.noise.as_ref().filter(|_| classes == 0) {
+        None => ShapeChoice::Gaussian,
+        Some(n) => shape_choice(n, true).map_err(|(span, key, m)| err(span, key, m))?,
+    };
     if let Some(r) = &d.fit_report {
         if let Some((key, v)) = non_finite_in_report(r.get_ref()) {
             return Err(err(
@@ -669,6 +709,7 @@ pub fn from_spec(
         choice,
         jitter,
         noise,
+        shape,
         train_size,
         sizes,
         eval_size,
