@@ -9,8 +9,10 @@ use lossprism::report::{self, ResultDoc};
 use lossprism::runner;
 use lossprism::scenario::{self, Plan, PlanOptions};
 
-/// Replicates used for every scenario here: enough for variances and block standard errors.
-const R: u64 = 8;
+/// Replicates used for every scenario here: enough for variances and block standard errors,
+/// and no fewer than any shipped scenario's own `blocks` (bakery-study: 20), which a smaller
+/// `--replicates` would be refused for.
+const R: u64 = 20;
 
 fn shipped() -> Vec<PathBuf> {
     let dir = PathBuf::from(env!("CARGO_MANIFEST_DIR")).join("scenarios");
