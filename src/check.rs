@@ -247,9 +247,249 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
     // last copy.
     let doc: ResultDoc = serde_json::from_str(text)
         .map_err(|e| CheckError::BadDocument(format!("{what}: malformed result document: {e}")))?;
-    doc.check_points()
-        .map_err(|e| CheckError::BadDocument(format!("{what}: {e}")))?;
+    validate(&doc).map_err(|e| CheckError::BadDocument(format!("{what}: {e}")))?;
     Ok(doc)
+}
+
+/// Why a refused document cannot be a result as `run` wrote it.
+const EDITED: &str = "`run` never writes that, so the document was edited or damaged";
+
+/// Refuses a result document that `run` cannot have written, naming the first bad key (a JSON
+/// path such as `points[3].stderr.variance`): a known loss; `points` without a repeated row
+/// ([`ResultDoc::check_points`]), one row per grid value of every model (`models`, else the
+/// scenario's `grid`) at every training size (`sizes`) and no other, each with the terms the
+/// description (`terms`) gives every model (loss, bias, variance, noise, direct check) and
+/// their standard errors, the same terms as the other rows of its model, and no standard error
+/// of a term it lacks; `best` one of the rows (with its expected loss) and `within_one_se` rows
+/// of its curve; `uncertainty` one entry per row, whose leave-one-block-out values decode to
+/// `blocks` numbers of terms with a standard error, finite where the standard error is.
+///
+/// Every reader of result documents applies it: [`parse_result`] (so `check`, `plot` and
+/// [`crate::harness::load_result`]) and [`compare`] (documents built in memory), so a picture is
+/// never drawn from a document `check` would refuse.
+pub fn validate(doc: &ResultDoc) -> Result<(), String> {
+    use std::collections::{HashMap, HashSet};
+    if doc.format != FORMAT {
+        return Err(format!(
+            "`format` is `{}`, expected `{FORMAT}`",
+            crate::fmt::clip(&doc.format, 40)
+        ));
+    }
+    if decompose::by_name(&doc.loss).is_none() {
+        let known: Vec<&str> = decompose::registry().iter().map(|l| l.name()).collect();
+        return Err(format!(
+            "`loss` is `{}`, which is not a loss (one of {}); {EDITED}",
+            crate::fmt::clip(&doc.loss, 40),
+            known.join(", ")
+        ));
+    }
+    doc.check_points()?;
+    let at = |i: usize| {
+        format!(
+            "`points[{i}]` ({})",
+            crate::fmt::clip(&row_name(doc, &doc.points[i]), 80)
+        )
+    };
+
+    // Rows: the grid of each model at each training size, once each (no repeats: check_points).
+    let grids: Vec<(Option<&str>, &[f64])> = if doc.models.is_empty() {
+        vec![(None, doc.scenario.grid.as_slice())]
+    } else {
+        doc.models
+            .iter()
+            .map(|m| (Some(m.id()), m.grid.as_slice()))
+            .collect()
+    };
+    let sizes: Vec<Option<u64>> = if doc.sizes.is_empty() {
+        vec![None]
+    } else {
+        doc.sizes.iter().map(|&n| Some(n as u64)).collect()
+    };
+    for (i, p) in doc.points.iter().enumerate() {
+        let Some((_, grid)) = grids.iter().find(|(f, _)| *f == p.family.as_deref()) else {
+            return Err(match &p.family {
+                Some(f) if doc.models.is_empty() => format!(
+                    "{}: `family` is `{}`, but the document has one model (no `models`); {EDITED}",
+                    at(i),
+                    crate::fmt::clip(f, 40)
+                ),
+                Some(f) => format!(
+                    "{}: `family` `{}` is none of `models` ({}); {EDITED}",
+                    at(i),
+                    crate::fmt::clip(f, 40),
+                    crate::fmt::clip(&doc.families().join(", "), 200)
+                ),
+                None => format!(
+                    "{}: no `family`, but the document has several `models`; {EDITED}",
+                    at(i)
+                ),
+            });
+        };
+        if !sizes.contains(&p.train_size) {
+            return Err(match p.train_size {
+                Some(n) if doc.sizes.is_empty() => format!(
+                    "{}: `train_size` is {n}, but the document has one training size (no \
+                     `sizes`); {EDITED}",
+                    at(i)
+                ),
+                Some(n) => format!(
+                    "{}: `train_size` {n} is none of `sizes` {:?}; {EDITED}",
+                    at(i),
+                    doc.sizes
+                ),
+                None => format!(
+                    "{}: no `train_size`, but the document has several `sizes`; {EDITED}",
+                    at(i)
+                ),
+            });
+        }
+        if !grid.contains(&p.value) {
+            return Err(format!(
+                "{}: `value` is not on the model's grid; {EDITED}",
+                at(i)
+            ));
+        }
+    }
+    let have: HashSet<_> = doc.points.iter().map(row_key).collect();
+    for (family, grid) in &grids {
+        for &n in &sizes {
+            if let Some(v) = grid
+                .iter()
+                .find(|v| !have.contains(&(*family, n, v.to_bits())))
+            {
+                let mut row = format!("{} = {}", doc.knob, fmt_value(*v));
+                if let Some(f) = family {
+                    row = format!("{} {row}", crate::fmt::clip(f, 40));
+                }
+                if let Some(n) = n {
+                    row.push_str(&format!(", n = {n}"));
+                }
+                return Err(format!("`points` have no row for {row}; {EDITED}"));
+            }
+        }
+    }
+
+    // Terms: those of every model in every row (with their standard errors), the same in every
+    // row of a model; standard errors of the row's terms only.
+    let described = doc.term_docs();
+    let mut first: HashMap<Option<&str>, usize> = HashMap::new();
+    for (i, p) in doc.points.iter().enumerate() {
+        for t in described.iter().filter(|t| t.role != "other") {
+            if !p.has(&t.key) {
+                return Err(format!(
+                    "{}: no `{}`, a term of the loss (`terms`); {EDITED}",
+                    at(i),
+                    t.key
+                ));
+            }
+            if t.stderr && !p.stderr.iter().any(|(k, _)| *k == t.key) {
+                return Err(format!(
+                    "{}: no `stderr.{}`; {EDITED} (a standard error that could not be computed \
+                     is written as null)",
+                    at(i),
+                    t.key
+                ));
+            }
+        }
+        if let Some((k, _)) = p.stderr.iter().find(|(k, _)| !p.has(k)) {
+            return Err(format!(
+                "{}: `stderr.{k}` is the standard error of no term of the row; {EDITED}",
+                at(i)
+            ));
+        }
+        // The same keys as the model's first row (a model's terms follow its shape).
+        let j = *first.entry(p.family.as_deref()).or_insert(i);
+        let q = &doc.points[j];
+        for (prefix, a, b) in [("", &p.terms, &q.terms), ("stderr.", &p.stderr, &q.stderr)] {
+            let lacks = |x: &[(String, f64)], y: &[(String, f64)]| {
+                x.iter()
+                    .find(|(k, _)| !y.iter().any(|(l, _)| l == k))
+                    .map(|(k, _)| k.clone())
+            };
+            let (has, lacking) = match (lacks(a, b), lacks(b, a)) {
+                (Some(k), _) => ((i, k), j),
+                (None, Some(k)) => ((j, k), i),
+                (None, None) => continue,
+            };
+            return Err(format!(
+                "{} has `{prefix}{}`, which {} of the same model lacks; {EDITED}",
+                at(has.0),
+                crate::fmt::clip(&has.1, 40),
+                at(lacking)
+            ));
+        }
+    }
+
+    // `best`: a row of the document (the largest training size) and rows of its curve.
+    let largest = sizes.iter().copied().max().flatten();
+    let on_curve = |v: f64| {
+        doc.points
+            .iter()
+            .find(|p| p.value == v && p.family == doc.best.family && p.train_size == largest)
+    };
+    match on_curve(doc.best.value) {
+        None => {
+            return Err(format!(
+                "`best.value` {} is no row of `points`; {EDITED}",
+                fmt_value(doc.best.value)
+            ))
+        }
+        Some(p) if p.expected_loss().to_bits() != doc.best.expected_loss.to_bits() => {
+            return Err(format!(
+                "`best.expected_loss` is {}, but its row's is {}; {EDITED}",
+                crate::fmt::fmt_exact(doc.best.expected_loss),
+                crate::fmt::fmt_exact(p.expected_loss())
+            ))
+        }
+        Some(_) => {}
+    }
+    if let Some(v) = doc
+        .best
+        .within_one_se
+        .iter()
+        .find(|v| on_curve(**v).is_none())
+    {
+        return Err(format!(
+            "`best.within_one_se` holds {}, no row of the best's curve; {EDITED}",
+            fmt_value(*v)
+        ));
+    }
+
+    // `uncertainty`: one entry per row; leave-one-block-out values that decode, finite where the
+    // standard error is.
+    if let Some(u) = &doc.uncertainty {
+        if u.rows.len() != doc.points.len() {
+            return Err(format!(
+                "`uncertainty.rows` has {} entries for {} points; {EDITED}",
+                u.rows.len(),
+                doc.points.len()
+            ));
+        }
+        let blocks = usize::try_from(u.blocks).unwrap_or(usize::MAX);
+        for (i, (row, p)) in u.rows.iter().zip(&doc.points).enumerate() {
+            for (k, packed) in &row.leave_out {
+                let key = format!(
+                    "`uncertainty.rows[{i}].leave_out.{}`",
+                    crate::fmt::clip(k, 40)
+                );
+                let Some(&(_, se)) = p.stderr.iter().find(|(s, _)| s == k) else {
+                    return Err(format!(
+                        "{key} is of no term with a standard error in `points[{i}]`; {EDITED}"
+                    ));
+                };
+                let values = crate::codec::unpack_floats(packed, blocks).map_err(|e| {
+                    format!("{key}: {e} (`uncertainty.blocks` = {}); {EDITED}", u.blocks)
+                })?;
+                if se.is_finite() && values.iter().any(|v| !v.is_finite()) {
+                    return Err(format!(
+                        "{key} holds a number that is not finite although the standard error \
+                         `points[{i}].stderr.{k}` is; {EDITED}"
+                    ));
+                }
+            }
+        }
+    }
+    Ok(())
 }
 
 /// Verdict on one term in one row.
@@ -748,11 +988,7 @@ fn uncertainties<'a>(
                  only an identical result can be judged against it; rerun the {what} with this \
                  version (a baseline: delete it and accept a new one with `check --update`)"
             ))),
-            Some(u) if u.rows.len() != d.points.len() => Err(CheckError::BadDocument(format!(
-                "the {what}'s `uncertainty` has {} rows for {} points",
-                u.rows.len(),
-                d.points.len()
-            ))),
+            // One entry per row: `validate`, before any comparison.
             Some(u) => Ok(u),
         }
     };
@@ -844,23 +1080,12 @@ pub fn compare(
 ) -> Result<CheckReport, CheckError> {
     opts.validate()?;
     for (d, what) in [(new, "result"), (baseline, "baseline")] {
-        if d.format != FORMAT {
-            return Err(CheckError::BadDocument(format!(
-                "the {what} has format `{}`, expected `{FORMAT}`",
-                d.format
-            )));
-        }
+        validate(d).map_err(|e| CheckError::BadDocument(format!("the {what}: {e}")))?;
     }
     if let Some(m) = mismatch(new, baseline) {
         return Err(CheckError::Mismatch(m));
     }
     let pairs = match_rows(new, baseline).map_err(CheckError::Mismatch)?;
-    if decompose::by_name(&new.loss).is_none() {
-        return Err(CheckError::BadDocument(format!(
-            "unknown loss `{}` in the result",
-            new.loss
-        )));
-    }
     let terms = compared_terms(new);
     let identical = pairs
         .iter()
@@ -1060,7 +1285,9 @@ mod tests {
             "best": { "value": 1.0, "expected_loss": 1.0, "stderr": null, "within_one_se": [] },
             "reading": ""
         });
-        serde_json::from_value(v).expect("a valid result document")
+        let mut d: ResultDoc = serde_json::from_value(v).expect("a valid result document");
+        d.best = crate::report::best_of(&d.points);
+        d
     }
 
     /// Adds an `uncertainty` section: every row gets the same leave-one-block-out values per
@@ -1093,10 +1320,11 @@ mod tests {
         d
     }
 
-    /// Sets term `key` of the first row.
+    /// Sets term `key` of the first row (and `best` from the rows, as `run` would).
     fn set(d: &mut ResultDoc, key: &str, v: f64) {
         let t = d.points[0].terms.iter_mut().find(|t| t.0 == key).unwrap();
         t.1 = v;
+        d.best = crate::report::best_of(&d.points);
     }
 
     fn verdicts(r: &CheckReport) -> Vec<(&str, Verdict)> {
@@ -1374,6 +1602,8 @@ mod tests {
         );
         let mut other = base.clone();
         other.scenario.grid = vec![1.0, 3.0];
+        other.points[1].value = 3.0;
+        other.best = crate::report::best_of(&other.points);
         let e = compare(&other, &base, &CheckOptions::default()).unwrap_err();
         assert!(
             e.to_string().starts_with("cannot compare: grid differs"),
@@ -1397,13 +1627,103 @@ mod tests {
         swapped.points.reverse();
         let r = compare(&swapped, &base, &CheckOptions::default()).unwrap();
         assert!(r.identical);
+        // A row the document cannot hold is refused before rows are matched.
         let mut sized = base.clone();
         sized.points[1].train_size = Some(50);
         let e = compare(&sized, &base, &CheckOptions::default()).unwrap_err();
         assert_eq!(
             e.to_string(),
-            "cannot compare: the row k = 2, n = 50 is in the result but not in the baseline"
+            format!(
+                "the result: `points[1]` (k = 2, n = 50): `train_size` is 50, but the document \
+                 has one training size (no `sizes`); {EDITED}"
+            )
         );
+    }
+
+    /// `validate` (every reader's check) refuses documents `run` cannot have written, naming
+    /// the key; `parse_result` and `compare` apply it.
+    #[test]
+    fn validate_names_the_first_bad_key() {
+        let good = with_unc(
+            doc(vec![
+                row(1.0, 1.0, 0.5, 0.25, Some(0.01)),
+                row(2.0, 0.9, 0.4, 0.25, Some(0.01)),
+            ]),
+            "p",
+            1,
+            &[("variance", [0.25; 4])],
+            0.1,
+        );
+        validate(&good).unwrap();
+        let text = serde_json::to_string(&good).unwrap();
+        assert_eq!(parse_result(&text, "r.json").unwrap(), good);
+        let refused = |f: &dyn Fn(&mut ResultDoc), needle: &str| {
+            let mut d = good.clone();
+            f(&mut d);
+            let e = validate(&d).unwrap_err();
+            assert!(e.contains(needle), "{e}");
+            assert!(!e.contains('\n'), "{e}");
+            let e = parse_result(&serde_json::to_string(&d).unwrap(), "r.json")
+                .unwrap_err()
+                .to_string();
+            assert!(e.starts_with("r.json: ") && e.contains(needle), "{e}");
+            let e = compare(&d, &good, &CheckOptions::default()).unwrap_err();
+            assert!(e.to_string().contains(needle), "{e}");
+        };
+        refused(&|d| d.loss = "wobble".into(), "`loss` is `wobble`");
+        refused(
+            &|d| d.points[1].terms.retain(|t| t.0 != "bias_sq"),
+            "`points[1]` (k = 2): no `bias_sq`",
+        );
+        refused(
+            &|d| d.points[0].stderr.retain(|t| t.0 != "variance"),
+            "`points[0]` (k = 1): no `stderr.variance`",
+        );
+        refused(
+            &|d| d.points[0].family = Some("g".into()),
+            "`points[0]` (g k = 1): `family` is `g`",
+        );
+        refused(
+            &|d| d.scenario.grid = vec![1.0, 2.0, 3.0],
+            "`points` have no row for k = 3",
+        );
+        refused(
+            &|d| d.best.value = 1.0,
+            "`best.expected_loss` is 0.9, but its row's is 1",
+        );
+        refused(
+            &|d| d.best.within_one_se = vec![7.0],
+            "`best.within_one_se` holds 7",
+        );
+        refused(
+            &|d| d.uncertainty.as_mut().unwrap().rows.truncate(1),
+            "`uncertainty.rows` has 1 entries for 2 points",
+        );
+        refused(
+            &|d| {
+                d.uncertainty.as_mut().unwrap().rows[1].leave_out.insert(
+                    "variance".into(),
+                    pack_floats(&[0.1, f64::INFINITY, 0.1, 0.1]),
+                );
+            },
+            "`uncertainty.rows[1].leave_out.variance` holds a number that is not finite",
+        );
+        refused(
+            &|d| {
+                d.uncertainty.as_mut().unwrap().rows[0]
+                    .leave_out
+                    .insert("noise".into(), pack_floats(&[0.25; 4]));
+            },
+            "`uncertainty.rows[0].leave_out.noise` is of no term with a standard error",
+        );
+        // A standard error that could not be computed (`null`, results of earlier versions)
+        // still reads: its leave-one-block-out values need not be finite.
+        let mut old = good.clone();
+        old.points[1].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);
+        old.uncertainty.as_mut().unwrap().rows[1]
+            .leave_out
+            .insert("variance".into(), pack_floats(&[f64::NAN; 4]));
+        validate(&old).unwrap();
     }
 
     #[test]

@@ -2665,6 +2665,91 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             }),
             "`points` hold max_depth = 1 twice",
         ),
+        // Documents `run` cannot have written: `check` and `plot` refuse them alike (one
+        // validation, `check::validate`).
+        (
+            "a term missing from a row",
+            edit_json(&docs.result, |v| {
+                v["points"][0].as_object_mut().unwrap().remove("bias_sq");
+            }),
+            "`points[0]` (max_depth = 1): no `bias_sq`",
+        ),
+        (
+            "a standard error missing from a row",
+            edit_json(&docs.result, |v| {
+                v["points"][0]["stderr"]
+                    .as_object_mut()
+                    .unwrap()
+                    .remove("variance");
+            }),
+            "`points[0]` (max_depth = 1): no `stderr.variance`",
+        ),
+        (
+            "a standard error of no term",
+            edit_json(&docs.result, |v| {
+                v["points"][1]["stderr"]["wobble"] = 0.1.into()
+            }),
+            "`points[1]` (max_depth = 2): `stderr.wobble` is the standard error of no term",
+        ),
+        (
+            "a term in one row only",
+            edit_json(&docs.result, |v| v["points"][1]["wobble"] = 0.1.into()),
+            "`points[1]` (max_depth = 2) has `wobble`, which `points[0]` (max_depth = 1) of the \
+             same model lacks",
+        ),
+        (
+            "an unknown loss",
+            edit_json(&docs.result, |v| v["loss"] = "wobble".into()),
+            "`loss` is `wobble`, which is not a loss",
+        ),
+        (
+            "a family in a one-model result",
+            edit_json(&docs.result, |v| v["points"][0]["family"] = "ghost".into()),
+            "`family` is `ghost`, but the document has one model",
+        ),
+        (
+            "rows off the grid",
+            edit_json(&docs.result, |v| {
+                v["scenario"]["grid"] = serde_json::json!([5.0, 6.0])
+            }),
+            "`points[0]` (max_depth = 1): `value` is not on the model's grid",
+        ),
+        (
+            "a grid value without its row",
+            edit_json(&docs.result, |v| {
+                v["points"].as_array_mut().unwrap().pop();
+                v["uncertainty"]["rows"].as_array_mut().unwrap().pop();
+            }),
+            "`points` have no row for max_depth = 2",
+        ),
+        (
+            "best off the rows",
+            edit_json(&docs.result, |v| v["best"]["value"] = 77.0.into()),
+            "`best.value` 77 is no row of `points`",
+        ),
+        (
+            "uncertainty for fewer rows",
+            edit_json(&docs.result, |v| {
+                v["uncertainty"]["rows"].as_array_mut().unwrap().pop();
+            }),
+            "`uncertainty.rows` has 1 entries for 2 points",
+        ),
+        (
+            "a non-finite leave-one-block-out value",
+            edit_json(&docs.result, |v| {
+                v["uncertainty"]["rows"][0]["leave_out"]["variance"] =
+                    lossprism::codec::pack_floats(&[f64::NAN, 1.0]).into()
+            }),
+            "`uncertainty.rows[0].leave_out.variance` holds a number that is not finite",
+        ),
+        (
+            "a leave-one-block-out value short",
+            edit_json(&docs.result, |v| {
+                v["uncertainty"]["rows"][0]["leave_out"]["variance"] =
+                    lossprism::codec::pack_floats(&[1.0]).into()
+            }),
+            "`uncertainty.rows[0].leave_out.variance`: expected 2 packed values",
+        ),
         (
             "points of a string",
             edit_json(&docs.result, |v| v["points"] = "many".into()),
@@ -2727,6 +2812,28 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         let bytes = edit_json(&docs.result, |v| {
             v["points"][0][edit] = (1e308).into();
             v["points"][1][edit] = (-1e308).into();
+            if edit == "value" {
+                // The grid and `best` moved with the rows (else the document is refused
+                // before the plot: its rows would be off the grid).
+                let moved = |x: &mut serde_json::Value| {
+                    *x = match x.as_f64() {
+                        Some(1.0) => 1e308.into(),
+                        Some(2.0) => (-1e308).into(),
+                        _ => x.clone(),
+                    }
+                };
+                v["scenario"]["grid"]
+                    .as_array_mut()
+                    .unwrap()
+                    .iter_mut()
+                    .for_each(moved);
+                moved(&mut v["best"]["value"]);
+                v["best"]["within_one_se"]
+                    .as_array_mut()
+                    .unwrap()
+                    .iter_mut()
+                    .for_each(moved);
+            }
         });
         t.add(
             g,
