@@ -1739,6 +1739,243 @@ fn twin_cases(t: &mut Table) {
     }
 }
 
+/// `[data.noise] shape` (and `df`) in synthetic and twin scenarios, and `twin --noise-shape`.
+fn noise_shape_cases(t: &mut Table) {
+    let g = "noise shape";
+    let v = "validate";
+    // In the base scenario `sd = 1.0` is line 19; the lines given here follow it.
+    let shaped = |lines: &str| sc("sd = 1.0", &format!("sd = 1.0\n{lines}"));
+    t.scenario(
+        g,
+        "unknown shape",
+        &shaped("shape = \"cauchy\""),
+        v,
+        "s.toml:20: key `data.noise.shape`: unknown shape `cauchy`; use `gaussian` or `student`",
+    );
+    t.scenario(
+        g,
+        "shape not a string",
+        &shaped("shape = 3"),
+        v,
+        "key `data.noise.shape`: invalid type",
+    );
+    t.scenario(
+        g,
+        "student without df",
+        &shaped("shape = \"student\""),
+        v,
+        "s.toml:20: key `data.noise.df`: `shape = \"student\"` needs `df`",
+    );
+    for (name, df) in [
+        ("NaN", "nan"),
+        ("inf", "inf"),
+        ("negative", "-3"),
+        ("2", "2"),
+        ("2 as a float", "2.0"),
+        ("1e300", "1e300"),
+        ("above 1e6", "1000001"),
+    ] {
+        t.scenario(
+            g,
+            &format!("student df {name}"),
+            &shaped(&format!("shape = \"student\"\ndf = {df}")),
+            v,
+            "s.toml:21: key `data.noise.df`: must be a number in (2, 1e6]",
+        );
+    }
+    t.scenario(
+        g,
+        "student df a string",
+        &shaped("shape = \"student\"\ndf = \"5\""),
+        v,
+        "s.toml:21: key `data.noise.df`: invalid type: string",
+    );
+    t.scenario(
+        g,
+        "df without shape",
+        &shaped("df = 5"),
+        v,
+        "s.toml:20: key `data.noise.df`: belongs to `shape = \"student\"`",
+    );
+    t.scenario(
+        g,
+        "gaussian with df",
+        &shaped("shape = \"gaussian\"\ndf = 5"),
+        v,
+        "s.toml:21: key `data.noise.df`: belongs to `shape = \"student\"`; remove `df`",
+    );
+    t.scenario(
+        g,
+        "residuals in a synthetic source",
+        &shaped("shape = \"residuals\""),
+        v,
+        "s.toml:20: key `data.noise.shape`: `residuals` resamples a twin's table residuals",
+    );
+    // The refusal named `data.noise.shape` at the line of `poisson`.
+    t.scenario(
+        g,
+        "student on Poisson counts",
+        &with_formula("1 + x").replace("sd = 1.0", "poisson = true\nshape = \"student\"\ndf = 5"),
+        v,
+        "s.toml:20: key `data.noise.shape`: Poisson counts have no noise shape",
+    );
+    t.scenario(
+        g,
+        "gaussian on Poisson counts",
+        &with_formula("1 + x").replace("sd = 1.0", "poisson = true\nshape = \"gaussian\""),
+        v,
+        "s.toml:20: key `data.noise.shape`: Poisson counts have no noise shape",
+    );
+    t.scenario(
+        g,
+        "student with the poisson loss",
+        &format!(
+            "{}\n[loss]\nkind = \"poisson\"\n",
+            shaped("shape = \"student\"\ndf = 5")
+        ),
+        v,
+        "key `loss.kind`: the `poisson` loss needs count responses",
+    );
+    t.scenario(
+        g,
+        "student on a classification synthetic",
+        "name = \"c\"\nreplicates = 4\nblocks = 2\n[data]\nsource = \"synthetic\"\n\
+         train_size = 30\neval_size = 10\n[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n\
+         [data.classes]\nlabels = [\"a\", \"b\"]\nrule = \"x > 0.5\"\n[data.noise]\n\
+         shape = \"student\"\ndf = 5\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\n",
+        v,
+        "key `data.classes`: give either [data.classes]",
+    );
+    t.add(
+        g,
+        "shape on a table source",
+        &[
+            (
+                "s.toml",
+                table_scenario("\n[data.noise]\nshape = \"residuals\"", TREE).as_bytes(),
+            ),
+            ("t.csv", good_csv().as_bytes()),
+        ],
+        &["validate", "s.toml"],
+        "key `data.noise`: a table source takes its rows",
+    );
+
+    // Twins.
+    let good = good_csv();
+    let twin = |lines: &str| TWIN.replacen("sd = 0.3", &format!("sd = 0.3\n{lines}"), 1);
+    let knn1 = "reference = { family = \"knn\", k = 1, standardize = true }";
+    let reference_line = TWIN
+        .lines()
+        .find(|l| l.starts_with("reference = "))
+        .expect("the twin fixture has a reference");
+    let cases: Vec<(&str, String, &str)> = vec![
+        (
+            "twin: unknown shape",
+            twin("shape = \"cauchy\""),
+            "key `data.noise.shape`: unknown shape `cauchy`; use `gaussian`, `student` or `residuals`",
+        ),
+        (
+            "twin: student df 2",
+            twin("shape = \"student\"\ndf = 2"),
+            "key `data.noise.df`: must be a number in (2, 1e6]",
+        ),
+        (
+            "twin: df without shape",
+            twin("df = 5"),
+            "key `data.noise.df`: belongs to `shape = \"student\"`",
+        ),
+        (
+            "twin: residuals with df",
+            twin("shape = \"residuals\"\ndf = 5"),
+            "key `data.noise.df`: belongs to `shape = \"student\"`; remove `df`",
+        ),
+        (
+            "twin: residuals with sd_formula",
+            twin("shape = \"residuals\"\nsd_formula = \"1\""),
+            "key `data.noise.sd_formula`",
+        ),
+        (
+            "twin: residuals with the poisson loss",
+            format!(
+                "{}\n[loss]\nkind = \"poisson\"\n",
+                twin("shape = \"residuals\"")
+            ),
+            "key `loss.kind`: the `poisson` loss needs count responses, and a twin's noise is continuous",
+        ),
+        // A 1-nearest-neighbour reference goes through every row: no residual is left to
+        // resample. The refusal named `data.reference`, not the key that asked for residuals.
+        (
+            "twin: residuals of a reference through every row",
+            twin("shape = \"residuals\"").replace(reference_line, knn1),
+            "s.toml:16: key `data.noise.shape`: `shape = \"residuals\"`: the reference's residuals have mean square 0",
+        ),
+    ];
+    // A classification twin has no [data.noise], shaped or not.
+    let mut labels = String::from("a,b,y\n");
+    for i in 0..40 {
+        labels.push_str(&format!("{},{},{}\n", i % 7, i % 5, ["u", "v"][i % 2]));
+    }
+    let classes = "name = \"ct\"\nreplicates = 4\nblocks = 2\n[data]\nsource = \"twin\"\n\
+                   path = \"t.csv\"\ntarget = \"y\"\ntrain_size = 20\n\
+                   reference = { family = \"knn\", k = 5, standardize = true }\n\
+                   [data.classes]\nlabels = [\"u\", \"v\"]\n[data.noise]\nshape = \"residuals\"\n\
+                   [model]\nfamily = \"tree\"\ngrid = [1, 2]\n";
+    for (name, scenario, needle) in cases {
+        t.add(
+            g,
+            name,
+            &[("s.toml", scenario.as_bytes()), ("t.csv", good.as_bytes())],
+            &["validate", "s.toml"],
+            needle,
+        );
+    }
+    t.add(
+        g,
+        "twin: shape on a classification twin",
+        &[("s.toml", classes.as_bytes()), ("t.csv", labels.as_bytes())],
+        &["validate", "s.toml"],
+        "key `data.noise`: a classification twin has no [data.noise]",
+    );
+
+    // `twin --noise-shape`.
+    for (name, args, needle) in [
+        (
+            "twin --noise-shape cauchy",
+            vec!["--noise-shape", "cauchy"],
+            "--noise-shape: unknown `cauchy`; expected gaussian or residuals",
+        ),
+        (
+            "twin --noise-shape student",
+            vec!["--noise-shape", "student"],
+            "--noise-shape: unknown `student`",
+        ),
+        (
+            "twin --noise-shape with a line break",
+            vec!["--noise-shape", "a\nb"],
+            "--noise-shape: unknown `a b`",
+        ),
+    ] {
+        let mut all = vec!["twin", "t.csv", "--target", "y", "--fidelity", "0"];
+        all.extend(args);
+        t.add(g, name, &[("t.csv", good.as_bytes())], &all, needle);
+    }
+    t.add(
+        g,
+        "twin --noise-shape residuals --classes",
+        &[("t.csv", labels.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--classes",
+            "--noise-shape",
+            "residuals",
+        ],
+        "--noise-shape residuals: a classification twin has no additive noise",
+    );
+}
+
 fn cli_cases(t: &mut Table, docs: &Docs) {
     let g = "cli";
     let s: &[(&str, &[u8])] = &[("s.toml", BASE.as_bytes())];
@@ -3260,6 +3497,7 @@ fn all_cases(docs: &Docs) -> Vec<Case> {
     formula_cases(&mut t);
     csv_cases(&mut t);
     twin_cases(&mut t);
+    noise_shape_cases(&mut t);
     cli_cases(&mut t, docs);
     output_clash_cases(&mut t, docs);
     document_cases(&mut t, docs);

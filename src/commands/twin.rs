@@ -728,7 +728,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         report: None,
     };
     let sp = crate::scenario::twin::build(t, "a table drawn from the twin", &spec)
-        .map_err(Error::Usage)?;
+        .map_err(|e| Error::Usage(e.message()))?;
     let mut plan = base.clone();
     plan.source = Source::Synthetic(sp);
     Ok((plan, fit))

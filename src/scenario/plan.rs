@@ -781,9 +781,9 @@ pub fn shape_choice(
             None => Ok(ShapeChoice::Gaussian),
         };
     };
-    if let Some(p) = n.poisson.as_ref().filter(|p| *p.get_ref()) {
+    if n.poisson.as_ref().is_some_and(|p| *p.get_ref()) {
         return Err((
-            p.span(),
+            shape.span(),
             "data.noise.shape",
             "Poisson counts have no noise shape; remove `shape` or `poisson`".into(),
         ));
@@ -824,9 +824,13 @@ pub fn shape_choice(
                 shape.span(),
                 "data.noise.shape",
                 format!(
-                    "unknown shape `{}`; use `gaussian`, `student`{}",
+                    "unknown shape `{}`; use {}",
                     crate::fmt::clip(other, 40),
-                    if twin { " or `residuals`" } else { "" }
+                    if twin {
+                        "`gaussian`, `student` or `residuals`"
+                    } else {
+                        "`gaussian` or `student`"
+                    }
                 ),
             ))
         }

@@ -60,9 +60,28 @@ pub struct TwinSpec {
     pub report: Option<FitReport>,
 }
 
+/// Why [`build`] failed (one line each).
+#[derive(Debug, Clone, PartialEq)]
+pub enum BuildError {
+    /// The reference: its recipe lacks a part it needs, or its fit failed.
+    Reference(String),
+    /// The pool of `shape = "residuals"` ([`residual_pool`]): the reference leaves no residual
+    /// spread to resample.
+    Shape(String),
+}
+
+impl BuildError {
+    /// The message, whichever part failed.
+    pub fn message(self) -> String {
+        match self {
+            BuildError::Reference(m) | BuildError::Shape(m) => m,
+        }
+    }
+}
+
 /// The twin process of table `t` (`shown`: the table's name in descriptions). Errors (one line)
-/// when the recipe lacks a part it needs.
-pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, String> {
+/// when the recipe lacks a part it needs, or when resampled residuals have nothing to resample.
+pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, BuildError> {
     let classes = match t.task {
         Task::Classify { classes } => classes,
         Task::Regress => 0,
@@ -75,7 +94,8 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
         &spec.choice,
         varying,
         shown,
-    )?;
+    )
+    .map_err(BuildError::Reference)?;
     fitted_ref.path = Some(t.path.clone());
     fitted_ref.report = spec.report.clone();
     fitted_ref.dropped_rows = t.dropped_rows;
@@ -105,14 +125,18 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, S
         let noise = match spec.noise {
             Some(TwinNoise::Constant(sd)) => Noise::Constant(sd),
             Some(TwinNoise::Varying) => Noise::Reference(fitted.clone()),
-            None => return Err("a regression twin needs a noise".into()),
+            None => {
+                return Err(BuildError::Reference(
+                    "a regression twin needs a noise".into(),
+                ))
+            }
         };
         let shape = match spec.shape {
             ShapeChoice::Gaussian => NoiseShape::Gaussian,
             ShapeChoice::Student(df) => NoiseShape::Student(df),
-            ShapeChoice::Residuals => {
-                NoiseShape::Resampled(Arc::new(residual_pool(t, &fitted, &noise)?))
-            }
+            ShapeChoice::Residuals => NoiseShape::Resampled(Arc::new(
+                residual_pool(t, &fitted, &noise).map_err(BuildError::Shape)?,
+            )),
         };
         Response::Regression {
             truth: Truth::Reference(fitted),
@@ -717,5 +741,15 @@ pub fn from_spec(
         eval_at_design,
         report: d.fit_report.as_ref().map(|r| report_of(r.get_ref())),
     };
-    build(&t, &shown, &spec).map_err(|m| err(reference.family.span(), "data.reference", m))
+    build(&t, &shown, &spec).map_err(|e| match e {
+        BuildError::Reference(m) => err(reference.family.span(), "data.reference", m),
+        BuildError::Shape(m) => err(
+            d.noise
+                .as_ref()
+                .and_then(|n| n.shape.as_ref())
+                .map_or(reference.family.span(), |s| s.span()),
+            "data.noise.shape",
+            m,
+        ),
+    })
 }
