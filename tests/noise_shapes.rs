@@ -144,7 +144,13 @@ fn wrong_shapes_are_refused_at_their_key() {
         (
             "sd = 1\nshape = \"student\"\ndf = 2",
             "data.noise.df",
-            "variance is infinite",
+            "fourth moment is infinite",
+        ),
+        // A finite variance but an infinite fourth moment: the standard errors undercover.
+        (
+            "sd = 1\nshape = \"student\"\ndf = 3",
+            "data.noise.df",
+            "must be a number in (4, 1e6]",
         ),
         (
             "sd = 1\nshape = \"student\"\ndf = nan",
@@ -173,6 +179,6 @@ fn wrong_shapes_are_refused_at_their_key() {
         assert!(e.contains("s.toml") && !e.contains('\n'), "{noise}: {e}");
     }
     // Accepted: a Student shape with a finite-variance df, and an explicit Gaussian.
-    assert_eq!(plan_error("sd = 1\nshape = \"student\"\ndf = 2.5"), "");
+    assert_eq!(plan_error("sd = 1\nshape = \"student\"\ndf = 4.5"), "");
     assert_eq!(plan_error("sd = 1\nshape = \"gaussian\""), "");
 }

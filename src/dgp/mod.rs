@@ -189,7 +189,8 @@ impl Truth {
     }
 }
 
-/// The noise: the standard deviation σ(x) of additive Gaussian noise, or Poisson counts.
+/// The noise: the standard deviation σ(x) of additive noise (Gaussian unless its [`NoiseShape`]
+/// says otherwise), or Poisson counts.
 #[derive(Debug, Clone)]
 pub enum Noise {
     /// Counts: `y ~ Poisson(f(x))`, so the truth is the mean (it must be > 0) and the noise
@@ -222,8 +223,10 @@ pub enum NoiseShape {
     /// Standard normal.
     #[default]
     Gaussian,
-    /// Student's t with `df` > 2 degrees of freedom scaled to variance 1, `z = t·√((df − 2)/df)`
-    /// (heavier tails: excess kurtosis 6/(df − 4) for df > 4).
+    /// Student's t with `df` degrees of freedom scaled to variance 1, `z = t·√((df − 2)/df)`
+    /// (heavier tails: excess kurtosis 6/(df − 4)). Scenarios ask for df > 4 (`MIN_STUDENT_DF`
+    /// in `scenario::plan`: a finite fourth moment, which the standard errors need); the draw
+    /// itself needs df > 2 (a finite variance).
     Student(f64),
     /// Drawn with replacement from a pool of standardized residuals (mean 0, mean square 1; see
     /// [`standardized_residuals`]): the residual bootstrap, which keeps the table's noise shape.

@@ -400,13 +400,14 @@ pub struct TruthSpec {
     pub builtin: Option<Spanned<String>>,
 }
 
-/// `[data.noise]`: Gaussian noise with a constant or input-dependent standard deviation, or
-/// Poisson counts with the truth as their mean.
+/// `[data.noise]`: additive noise with a constant or input-dependent standard deviation and a
+/// shape (Gaussian by default, Student's t, or a twin's resampled residuals), or Poisson counts
+/// with the truth as their mean.
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct NoiseSpec {
     /// Synthetic source: responses are counts drawn Poisson with mean f(x) (> 0), instead of
-    /// `f(x)` plus Gaussian noise.
+    /// `f(x)` plus additive noise.
     #[serde(default)]
     pub poisson: Option<Spanned<bool>>,
     /// Constant standard deviation.
@@ -422,7 +423,8 @@ pub struct NoiseSpec {
     /// twin, `residuals` (the table's standardized residuals resampled).
     #[serde(default)]
     pub shape: Option<Spanned<String>>,
-    /// Degrees of freedom of `shape = "student"` (> 2, so that the variance is finite).
+    /// Degrees of freedom of `shape = "student"` (> 4, so that the noise's fourth moment, and
+    /// with it every standard error, is finite).
     #[serde(default)]
     pub df: Option<Spanned<f64>>,
 }
