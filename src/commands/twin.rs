@@ -687,6 +687,9 @@ pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<T
     })
 }
 
+/// What `--noise-shape residuals` writes, said in the scenario's comments and on the terminal.
+const RESIDUALS_NOTE: &str = "Noise written as resampled residuals: each simulated noise value is the noise's sd (σ̂, or σ̂(x) when varying) times one of the table's standardized residuals under the reference, drawn with replacement (keeps skew and heavy tails; `run` refits the reference and recomputes them).";
+
 /// The regression fit of a twin of table `t` with the options of `o` (varying noise fits the
 /// reference once).
 fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, String> {
@@ -1155,7 +1158,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                     comments.push("Noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals.".into());
                 }
                 if o.noise_shape == ShapeChoice::Residuals {
-                    comments.push("Noise written as resampled residuals: each simulated noise value is σ̂ times one of the table's standardized residuals under the reference, drawn with replacement (keeps skew and heavy tails; `run` refits the reference and recomputes them).".into());
+                    comments.push(RESIDUALS_NOTE.into());
                 }
                 if let Some(f) = r.fidelity {
                     comments.push(recommended_line(f));
@@ -1215,7 +1218,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 );
             }
             if o.noise_shape == ShapeChoice::Residuals {
-                out.push_str("Noise written as resampled residuals: each simulated noise value is σ̂ times one of the table's standardized residuals under the reference, drawn with replacement (keeps skew and heavy tails; `run` refits the reference and recomputes them).\n");
+                out.push_str(RESIDUALS_NOTE);
+                out.push('\n');
             }
             match &fid {
                 Some(f) => {

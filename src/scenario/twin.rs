@@ -29,7 +29,7 @@ pub const MAX_JITTER: f64 = 10.0;
 /// A twin's noise (regression).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum TwinNoise {
-    /// Gaussian with a constant standard deviation.
+    /// A constant standard deviation (the noise's law is [`TwinSpec::shape`]).
     Constant(f64),
     /// σ²(x) from the reference's k-NN smoothed squared residuals.
     Varying,
