@@ -746,8 +746,15 @@ fn twin_with_resampled_residuals_keeps_a_skewed_noise() {
     }
     fs::write(dir.path().join("t.csv"), s).unwrap();
     let mut o = opts(dir.path(), false, "y");
+    // The Gaussian twin's output says the residuals are not Gaussian-like (skewness 2).
+    let msg = twin::command(&o).expect("twin");
+    assert!(
+        msg.contains("Residual shape") && msg.contains("`--noise-shape residuals` simulates"),
+        "{msg}"
+    );
     o.noise_shape = lossprism::scenario::plan::ShapeChoice::Residuals;
-    twin::command(&o).expect("twin");
+    let msg = twin::command(&o).expect("twin");
+    assert!(msg.contains("the twin resamples them"), "{msg}");
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains("shape = \"residuals\""), "{text}");
     let plan = scenario::load(

@@ -864,8 +864,12 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
         let mut oracle = Vec::new();
         // Per table: the value with the pilot's correction, the pilot's excess, the sampling SE.
         let mut alt: Vec<(f64, f64, f64)> = Vec::new();
+        // Tables whose residuals `twin` calls skewed or heavy-tailed (its shape line).
+        let mut non_gaussian = 0;
         for t in 0..tables {
-            let (x, y, _, fit) = noise_study_table(*proc, n, seed, t);
+            let (x, y, yv, fit) = noise_study_table(*proc, n, seed, t);
+            non_gaussian += dgp_twin::ResidualShape::of(&yv, &fit.f_rows)
+                .is_some_and(|s| s.non_gaussian()) as usize;
             let c = fit.noise.expect("noise");
             corrected.push(c.value);
             ses.push(c.se);
@@ -913,6 +917,10 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
             100.0 * (mean(&oracle) - 1.0)
         )];
         lines.push(reference_error);
+        lines.push(format!(
+            "residual shape beyond a Gaussian's ({} SE): {non_gaussian}/{tables} tables",
+            dgp_twin::SHAPE_Z
+        ));
         for (m, v) in &raw {
             let vals: Vec<f64> = v.iter().map(|a| a.0).collect();
             let s = sd(&vals);

@@ -551,6 +551,31 @@ fn inputs_line(t: &Table, jitter: Option<&Jitter>, eval_size: usize) -> String {
     }
 }
 
+/// The residuals' shape under the reference (skewness and excess kurtosis beside their
+/// Gaussian standard errors), and whether `--noise-shape residuals` would simulate it better;
+/// `None` with varying noise (heteroscedastic residuals have heavy tails of their own) or too
+/// few rows.
+fn shape_line(o: &TwinOptions, y: &[f64], fit: &RegressionFit) -> Option<String> {
+    if o.varying {
+        return None;
+    }
+    let s = twin::ResidualShape::of(y, &fit.f_rows)?;
+    let verdict = match (s.non_gaussian(), o.noise_shape) {
+        (true, ShapeChoice::Residuals) => "beyond a Gaussian's, and the twin resamples them",
+        (true, _) => "beyond a Gaussian's: `--noise-shape residuals` simulates the residuals' own law instead (it matters for trees and ensembles, not for linear smoothers such as k-NN; docs/twin-calibration.md §2.8)",
+        (false, _) => "within a Gaussian's",
+    };
+    Some(format!(
+        "Residual shape under the reference: skewness {} (a Gaussian's: 0 ± {}), excess kurtosis {} (0 ± {}); {} ({} SE).",
+        fmt_num(s.skewness),
+        fmt_se(s.skewness_se()),
+        fmt_num(s.excess_kurtosis),
+        fmt_se(s.kurtosis_se()),
+        verdict,
+        twin::SHAPE_Z
+    ))
+}
+
 fn noise_line(n: &NoiseCorrection) -> String {
     let check = if n.pilot_excess.is_finite() {
         format!(
@@ -1138,6 +1163,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 ));
             }
             let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));
+            let yv = t.y.to_vec();
             let sd = fit.noise.map_or(0.0, |n| n.value.max(0.0).sqrt());
             let eval_size = if o.jitter > 0.0 {
                 o.eval_size
@@ -1157,6 +1183,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 if o.varying {
                     comments.push("Noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals.".into());
                 }
+                comments.extend(shape_line(o, &yv, r.fit));
                 if o.noise_shape == ShapeChoice::Residuals {
                     comments.push(RESIDUALS_NOTE.into());
                 }
@@ -1216,6 +1243,10 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 out.push_str(
                     "noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals\n",
                 );
+            }
+            if let Some(l) = shape_line(o, &yv, &fit) {
+                out.push_str(&l);
+                out.push('\n');
             }
             if o.noise_shape == ShapeChoice::Residuals {
                 out.push_str(RESIDUALS_NOTE);
