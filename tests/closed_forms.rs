@@ -167,13 +167,14 @@ fn check_knn_fixed(label: &str, plan: &Plan, out: &Outcome, sigma: f64) {
     }
 }
 
-/// Test 1a: k-NN on an evenly spaced one-input fixed design (invented sensor line).
-#[test]
-fn knn_fixed_design_one_input_matches_esl_7_10() {
-    let src = r#"
+/// The scenario of tests 1a and 1c: k-NN on an evenly spaced one-input fixed design (an
+/// invented sensor line), with `noise` as its `[data.noise]` body.
+fn sensor_line(name: &str, seed: u64, noise: &str) -> String {
+    format!(
+        r#"
 # Invented scenario: a sensor reads a smooth temperature bump at 120 fixed positions.
-name = "closed-form-knn-1d"
-seed = 7
+name = "{name}"
+seed = {seed}
 replicates = 320
 
 [data]
@@ -190,50 +191,35 @@ even = [0.0, 1.0]
 formula = "20 + 6*exp(-((position - 0.4)/0.12)^2) + 2*position"
 
 [data.noise]
-sd = 0.8
+{noise}
 
 [model]
 family = "knn"
 grid = [1, 2, 3, 5, 8, 13, 21, 34]
-"#;
-    let (plan, out) = run_text(src, &PlanOptions::default());
+"#
+    )
+}
+
+/// Test 1a: k-NN on an evenly spaced one-input fixed design (invented sensor line).
+#[test]
+fn knn_fixed_design_one_input_matches_esl_7_10() {
+    let src = sensor_line("closed-form-knn-1d", 7, "sd = 0.8");
+    let (plan, out) = run_text(&src, &PlanOptions::default());
     check_knn_fixed("1 input", &plan, &out, 0.8);
 }
 
 /// Test 1c: the same closed form with heavy-tailed noise (Student's t, 5 degrees of freedom,
-/// scaled to sd 0.8). ESL eq. 7.10 needs only the noise's variance, so the exact terms are the
-/// Gaussian case's; the replicates' spread, and so the standard errors, see the tails.
+/// scaled to sd 0.8; the sensor line with occasional large reading errors). ESL eq. 7.10 needs
+/// only the noise's variance, so the exact terms are the Gaussian case's; the replicates'
+/// spread, and so the standard errors, see the tails.
 #[test]
 fn knn_fixed_design_with_student_noise_matches_esl_7_10() {
-    let src = r#"
-# Invented scenario: the sensor line of test 1a with occasional large reading errors.
-name = "closed-form-knn-1d-student"
-seed = 17
-replicates = 320
-
-[data]
-source = "synthetic"
-train_size = 120
-design = "fixed"
-eval = "design"
-
-[[data.inputs]]
-name = "position"
-even = [0.0, 1.0]
-
-[data.truth]
-formula = "20 + 6*exp(-((position - 0.4)/0.12)^2) + 2*position"
-
-[data.noise]
-sd = 0.8
-shape = "student"
-df = 5
-
-[model]
-family = "knn"
-grid = [1, 2, 3, 5, 8, 13, 21, 34]
-"#;
-    let (plan, out) = run_text(src, &PlanOptions::default());
+    let src = sensor_line(
+        "closed-form-knn-1d-student",
+        17,
+        "sd = 0.8\nshape = \"student\"\ndf = 5",
+    );
+    let (plan, out) = run_text(&src, &PlanOptions::default());
     check_knn_fixed("1 input, student noise", &plan, &out, 0.8);
 }
 

@@ -44,6 +44,16 @@ fn load(path: &Path) -> Plan {
     scenario::load(path, &PlanOptions::default()).expect("plans")
 }
 
+/// The scenario at `path` planned with `replicates` replicates.
+fn load_at(path: &Path, replicates: u64) -> Plan {
+    let opts = PlanOptions {
+        replicates: Some(replicates),
+        seed: None,
+        eval_seed: None,
+    };
+    scenario::load(path, &opts).expect("plans")
+}
+
 #[test]
 fn twin_noise_and_best_knob_match_the_known_process() {
     let dir = tempfile::tempdir().unwrap();
@@ -151,15 +161,7 @@ fn twin_scenario_round_trips_with_audit_and_varying_noise() {
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains("source = \"twin\"") && text.contains("varying = true"));
     assert!(text.contains("path = \"t.csv\""), "{text}");
-    let plan = scenario::load(
-        &o.out,
-        &PlanOptions {
-            replicates: Some(8),
-            seed: None,
-            eval_seed: None,
-        },
-    )
-    .expect("plans");
+    let plan = load_at(&o.out, 8);
     let out = runner::run(&plan, 1).unwrap();
     // Varying noise: σ(x) differs across evaluation points and is positive.
     let sd = &out.prepared.eval_sd;
@@ -193,15 +195,7 @@ fn classification_twin_has_no_zero_probability() {
     assert!(msg.contains("accuracy"), "{msg}");
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains("[data.classes]"), "{text}");
-    let plan = scenario::load(
-        &o.out,
-        &PlanOptions {
-            replicates: Some(6),
-            seed: None,
-            eval_seed: None,
-        },
-    )
-    .unwrap();
+    let plan = load_at(&o.out, 6);
     let out = runner::run(&plan, 0).unwrap();
     let probs = out
         .prepared
@@ -355,15 +349,7 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     twin::command(&o).expect("twin again");
     assert_eq!(fs::read_to_string(&o.out).unwrap(), text, "deterministic");
 
-    let plan = scenario::load(
-        &o.out,
-        &PlanOptions {
-            replicates: Some(6),
-            seed: None,
-            eval_seed: None,
-        },
-    )
-    .expect("plans");
+    let plan = load_at(&o.out, 6);
     let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
         panic!("a twin plans as a synthetic source")
     };
@@ -757,15 +743,7 @@ fn twin_with_resampled_residuals_keeps_a_skewed_noise() {
     assert!(msg.contains("the twin resamples them"), "{msg}");
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains("shape = \"residuals\""), "{text}");
-    let plan = scenario::load(
-        &o.out,
-        &PlanOptions {
-            replicates: Some(8),
-            seed: None,
-            eval_seed: None,
-        },
-    )
-    .expect("plans");
+    let plan = load_at(&o.out, 8);
     let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
         panic!("a twin plans as a synthetic source")
     };

@@ -1471,6 +1471,7 @@ fn noise_weights_study() {
                     &f_rows,
                     dgp_twin::NOISE_TABLES,
                     seed + t as u64,
+                    None,
                 )
                 .unwrap();
                 row[slot] = (c.value, c.se);

@@ -644,15 +644,7 @@ impl Synthetic {
                 Ok(f.mapv(f64::sqrt))
             }
             Noise::Constant(s) => Ok(Array1::from_elem(x.nrows(), *s)),
-            Noise::Reference(r) => {
-                let mut out = Array1::zeros(x.nrows());
-                let mut buf = vec![0.0; x.ncols()];
-                for (i, row) in x.rows().into_iter().enumerate() {
-                    copy_row(row, &mut buf);
-                    out[i] = r.var_at(&buf).unwrap_or(0.0).max(0.0).sqrt();
-                }
-                Ok(out)
-            }
+            Noise::Reference(r) => Ok(r.sd_at_rows(x)),
             Noise::Formula(f) => {
                 let mut out = Array1::zeros(x.nrows());
                 let mut buf = vec![0.0; x.ncols()];

@@ -360,26 +360,13 @@ pub fn correct_noise(
     tables: usize,
     seed: u64,
 ) -> Option<NoiseCorrection> {
-    correct_noise_weighted(method, x, None, y, f_rows, tables, seed)
+    correct_noise_weighted(method, x, None, y, f_rows, tables, seed, None)
 }
 
-/// [`correct_noise`] with the estimator's inputs weighted ([`noise::Design::weighted`]).
-pub fn correct_noise_weighted(
-    method: Method,
-    x: ArrayView2<'_, f64>,
-    weights: Option<&[f64]>,
-    y: &[f64],
-    f_rows: &[f64],
-    tables: usize,
-    seed: u64,
-) -> Option<NoiseCorrection> {
-    correct_noise_weighted_from(method, x, weights, y, f_rows, tables, seed, None)
-}
-
-/// [`correct_noise_weighted`] with the bootstrap's noise resampled from `pool` when given
-/// ([`correct_noise_shaped`]).
+/// [`correct_noise`] with the estimator's inputs weighted ([`noise::Design::weighted`]), and
+/// the bootstrap's noise resampled from `pool` when given ([`correct_noise_on`]).
 #[allow(clippy::too_many_arguments)]
-pub fn correct_noise_weighted_from(
+pub fn correct_noise_weighted(
     method: Method,
     x: ArrayView2<'_, f64>,
     weights: Option<&[f64]>,
@@ -395,28 +382,16 @@ pub fn correct_noise_weighted_from(
     }
     // GSJS orders one input and ignores weights.
     let weighted = weights.is_some() && method != Method::Gsjs;
-    correct_noise_shaped(&design, x, y, f_rows, tables, seed, weighted, pool)
+    correct_noise_on(&design, x, y, f_rows, tables, seed, weighted, pool)
 }
 
 /// [`correct_noise_weighted`] on a prepared estimator `design` of the rows `x` (the twin's
-/// choice of weights and left-out rows already made; `weighted` is recorded as given).
-pub fn correct_noise_on(
-    design: &noise::Design,
-    x: ArrayView2<'_, f64>,
-    y: &[f64],
-    f_rows: &[f64],
-    tables: usize,
-    seed: u64,
-    weighted: bool,
-) -> Option<NoiseCorrection> {
-    correct_noise_shaped(design, x, y, f_rows, tables, seed, weighted, None)
-}
-
-/// [`correct_noise_on`] with the bootstrap tables' noise resampled from `pool` (the
-/// standardized residuals of a twin whose noise is `shape = "residuals"`) when given, so that
-/// the spread also sees the table's noise shape; Gaussian otherwise.
+/// choice of weights and left-out rows already made; `weighted` is recorded as given). The
+/// bootstrap tables' noise is resampled from `pool` (the standardized residuals of a twin whose
+/// noise is `shape = "residuals"`) when given, so that the spread also sees the table's noise
+/// shape; Gaussian otherwise.
 #[allow(clippy::too_many_arguments)]
-pub fn correct_noise_shaped(
+pub fn correct_noise_on(
     design: &noise::Design,
     x: ArrayView2<'_, f64>,
     y: &[f64],
@@ -680,7 +655,7 @@ pub fn fit_regression_shaped(
     } else {
         None
     };
-    let noise = correct_noise_weighted_from(
+    let noise = correct_noise_weighted(
         method,
         x,
         selection.choice.metric.as_deref(),
@@ -973,7 +948,7 @@ mod tests {
             // it leaves out the rows around the step, and with them the step's share:
             // `a_left_out_step_leaves_the_estimate_nothing_to_miss`).
             let design = noise::Design::new(Method::Gamma, x.view()).unwrap();
-            let c = correct_noise_on(&design, x.view(), &y, &fh, 40, t, false).unwrap();
+            let c = correct_noise_on(&design, x.view(), &y, &fh, 40, t, false, None).unwrap();
             assert_eq!(c.left_out, 0);
             let truth = design.value(ArrayView1::from(&f[..]));
             assert!(c.correction < 0.5 * truth, "{} vs {truth}", c.correction);
@@ -1015,7 +990,7 @@ mod tests {
             shares.1 += share_cut / tables as f64;
             kept.push(c.value);
             all.push(
-                correct_noise_on(&every, x.view(), &y, &fh, 0, t, false)
+                correct_noise_on(&every, x.view(), &y, &fh, 0, t, false, None)
                     .unwrap()
                     .value,
             );
@@ -1059,7 +1034,7 @@ mod tests {
         let noise = fit.noise.unwrap();
         assert!(noise.weighted);
         let m = Method::Gamma;
-        let by_hand = correct_noise_weighted(m, x.view(), Some(&w), &y, &f, NOISE_TABLES, 3);
+        let by_hand = correct_noise_weighted(m, x.view(), Some(&w), &y, &f, NOISE_TABLES, 3, None);
         assert_eq!(Some(noise), by_hand);
         let plain = correct_noise(m, x.view(), &y, &f, NOISE_TABLES, 3).unwrap();
         assert_ne!(noise.raw, plain.raw);
@@ -1090,8 +1065,17 @@ mod tests {
         let yv = y.to_vec();
         let f = r.mean_at_rows(x.view());
         let plain = correct_noise(Method::Gamma, x.view(), &yv, &f, 10, 1).unwrap();
-        let ones = correct_noise_weighted(Method::Gamma, x.view(), Some(&[1.0; 3]), &yv, &f, 10, 1)
-            .unwrap();
+        let ones = correct_noise_weighted(
+            Method::Gamma,
+            x.view(),
+            Some(&[1.0; 3]),
+            &yv,
+            &f,
+            10,
+            1,
+            None,
+        )
+        .unwrap();
         assert!(ones.weighted && !plain.weighted);
         assert_eq!(
             plain,
@@ -1101,7 +1085,8 @@ mod tests {
             }
         );
         let weighted =
-            correct_noise_weighted(Method::Gamma, x.view(), Some(&w), &yv, &f, 10, 1).unwrap();
+            correct_noise_weighted(Method::Gamma, x.view(), Some(&w), &yv, &f, 10, 1, None)
+                .unwrap();
         assert_ne!(weighted.raw, plain.raw);
     }
 

@@ -160,16 +160,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
 pub fn residual_pool(t: &Table, r: &Reference, noise: &Noise) -> Result<Vec<f64>, String> {
     let f = r.mean_at_rows(t.x.view());
     let s: Vec<f64> = match noise {
-        Noise::Reference(r) => {
-            let mut buf = vec![0.0; t.x.ncols()];
-            t.x.rows()
-                .into_iter()
-                .map(|row| {
-                    buf.iter_mut().zip(row.iter()).for_each(|(b, v)| *b = *v);
-                    r.var_at(&buf).unwrap_or(0.0).max(0.0).sqrt()
-                })
-                .collect()
-        }
+        Noise::Reference(r) => r.sd_at_rows(t.x.view()).to_vec(),
         _ => vec![1.0; t.y.len()],
     };
     let y = t.y.to_vec();

@@ -32,7 +32,7 @@ pub mod select;
 
 use std::sync::Arc;
 
-use ndarray::{Array2, ArrayView1, ArrayView2};
+use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::Rng;
 
 use crate::dataset::noise::{self, NoiseEstimate};
@@ -547,6 +547,19 @@ impl Reference {
         let mut buf = Vec::with_capacity(self.k());
         self.neighbours(row, &mut Scratch::default(), &mut buf);
         Some(buf.iter().map(|&j| sq[j]).sum::<f64>() / buf.len() as f64)
+    }
+
+    /// Varying noise: σ(x) = √σ²(x) ([`Reference::var_at`]) at every row of `x`, 0 where it
+    /// is not positive or without varying noise.
+    pub fn sd_at_rows(&self, x: ArrayView2<'_, f64>) -> Array1<f64> {
+        let mut buf = vec![0.0; x.ncols()];
+        x.rows()
+            .into_iter()
+            .map(|row| {
+                buf.iter_mut().zip(row.iter()).for_each(|(b, v)| *b = *v);
+                self.var_at(&buf).unwrap_or(0.0).max(0.0).sqrt()
+            })
+            .collect()
     }
 
     /// FNV-1a of the reference's responses and recipe (part of a run's fingerprint). For the
