@@ -1851,6 +1851,20 @@ fn noise_shape_cases(t: &mut Table) {
         v,
         "key `data.classes`: give either [data.classes]",
     );
+    for (key, line) in [("level", "level = 1.0"), ("smooth_k", "smooth_k = 10")] {
+        t.add(
+            g,
+            format!("synthetic: {key}"),
+            &[(
+                "s.toml",
+                with_formula("1 + x")
+                    .replace("sd = 1.0", &format!("sd = 1.0\n{line}"))
+                    .as_bytes(),
+            )],
+            &["validate", "s.toml"],
+            &format!("key `data.noise.{key}`: belongs to a twin's varying noise"),
+        );
+    }
     t.add(
         g,
         "shape on a table source",
@@ -1915,6 +1929,72 @@ fn noise_shape_cases(t: &mut Table) {
             "s.toml:16: key `data.noise.shape`: `shape = \"residuals\"`: the reference's residuals have mean square 0",
         ),
     ];
+    // Varying noise's `level` and `smooth_k` (a twin with varying noise cannot be twiced).
+    let varying = |lines: &str| {
+        TWIN.replace("twice = true, ", "").replacen(
+            "sd = 0.3",
+            &format!("varying = true\n{lines}"),
+            1,
+        )
+    };
+    let mut cases = cases;
+    cases.extend([
+        (
+            "twin: level without varying noise",
+            twin("level = 1.0"),
+            "key `data.noise.level`: belongs to varying noise (`varying = true`)",
+        ),
+        (
+            "twin: smooth_k without varying noise",
+            twin("smooth_k = 10"),
+            "key `data.noise.smooth_k`: belongs to varying noise (`varying = true`)",
+        ),
+        (
+            "twin: level 0",
+            varying("level = 0.0"),
+            "key `data.noise.level`: must be a finite number > 0, got 0",
+        ),
+        (
+            "twin: level negative",
+            varying("level = -2.5"),
+            "key `data.noise.level`: must be a finite number > 0, got -2.5",
+        ),
+        (
+            "twin: level nan",
+            varying("level = nan"),
+            "key `data.noise.level`: must be a finite number > 0",
+        ),
+        (
+            "twin: level inf",
+            varying("level = inf"),
+            "key `data.noise.level`: must be a finite number > 0",
+        ),
+        (
+            "twin: level as text",
+            varying("level = \"1\""),
+            "data.noise.level",
+        ),
+        (
+            "twin: smooth_k 0",
+            varying("smooth_k = 0"),
+            "key `data.noise.smooth_k`: must be between 1 and",
+        ),
+        (
+            "twin: smooth_k negative",
+            varying("smooth_k = -3"),
+            "key `data.noise.smooth_k`: must be between 1 and",
+        ),
+        (
+            "twin: smooth_k beyond the rows",
+            varying("smooth_k = 1000000000000"),
+            "key `data.noise.smooth_k`: must be between 1 and",
+        ),
+        (
+            "twin: smooth_k fractional",
+            varying("smooth_k = 2.5"),
+            "data.noise.smooth_k",
+        ),
+    ]);
     // A classification twin has no [data.noise], shaped or not.
     let mut labels = String::from("a,b,y\n");
     for i in 0..40 {

@@ -161,6 +161,22 @@ fn twin_scenario_round_trips_with_audit_and_varying_noise() {
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains("source = \"twin\"") && text.contains("varying = true"));
     assert!(text.contains("path = \"t.csv\""), "{text}");
+    // The smoother chosen by cross-validation and the level set from the corrected estimate
+    // are written, with the estimate's record.
+    let value = |key: &str| -> f64 {
+        let line = text
+            .lines()
+            .find(|l| l.starts_with(&format!("{key} = ")))
+            .unwrap_or_else(|| panic!("no `{key}` in {text}"));
+        line[key.len() + 3..].trim().parse().unwrap()
+    };
+    let k = value("smooth_k");
+    assert!((1.0..120.0).contains(&k) && k.fract() == 0.0, "{k}");
+    assert!(value("level") > 0.0);
+    assert!(
+        text.contains("[data.fit_report.noise]") || text.contains("noise = {"),
+        "{text}"
+    );
     let plan = load_at(&o.out, 8);
     let out = runner::run(&plan, 1).unwrap();
     // Varying noise: σ(x) differs across evaluation points and is positive.

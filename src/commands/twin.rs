@@ -32,7 +32,7 @@ use std::path::{Path, PathBuf};
 use crate::dataset::noise::Method;
 use crate::dataset::{self, Duplicates, Missing, Table, TableOptions, TargetKind};
 use crate::dgp::reference::select::{self, Rule};
-use crate::dgp::reference::{self, Candidate, Choice, TwinFit};
+use crate::dgp::reference::{self, Candidate, Choice, Reference, TwinFit};
 use crate::dgp::twin::{
     self, FidelityModel, FidelityRecord, Jitter, NoiseCorrection, RegressionFit, Twicing,
 };
@@ -256,7 +256,8 @@ pub fn reference_line(c: &Choice) -> String {
 struct RegressionText<'a> {
     fit: &'a RegressionFit,
     jitter: Option<Jitter>,
-    sd: f64,
+    /// The noise written in `[data.noise]`.
+    noise: TwinNoise,
     fidelity: Option<&'a FidelityRecord>,
 }
 
@@ -344,10 +345,17 @@ fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionTe
     }
     s.push_str(&reference_line(&r.fit.selection.choice));
     s.push_str("\n\n[data.noise]\n");
-    if o.varying {
-        s.push_str("varying = true\n");
-    } else {
-        s.push_str(&format!("sd = {}\n", toml_f64(r.sd)));
+    match r.noise {
+        TwinNoise::Constant(sd) => s.push_str(&format!("sd = {}\n", toml_f64(sd))),
+        TwinNoise::Varying { smooth_k, level } => {
+            s.push_str("varying = true\n");
+            if let Some(k) = smooth_k {
+                s.push_str(&format!("smooth_k = {k}\n"));
+            }
+            if let Some(l) = level {
+                s.push_str(&format!("level = {}\n", toml_f64(l)));
+            }
+        }
     }
     match o.noise_shape {
         ShapeChoice::Gaussian => {}
@@ -730,15 +738,54 @@ fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, 
     )
 }
 
+/// What varying noise is, said on the terminal and in the scenario's comments (`None` for a
+/// constant sd).
+fn varying_line(noise: &TwinNoise) -> Option<String> {
+    let TwinNoise::Varying { smooth_k, level } = noise else {
+        return None;
+    };
+    let shape = match smooth_k {
+        Some(k) => format!("the average over the {k} nearest rows (chosen by leave-one-out cross-validation of that average on the squared residuals) of the k-NN leave-one-out squared residuals"),
+        None => "the k-NN average of the k-NN leave-one-out squared residuals".into(),
+    };
+    Some(match level {
+        Some(l) => format!("Noise written as varying: σ²(x) ∝ {shape}, scaled to a mean of {} over the rows, so that the noise estimate, which weighs the rows unevenly (it leaves some out and meets others more often as neighbours), would read the corrected σ̂² (the shape from the local residuals, the level from the corrected estimate).", fmt_num(*l)),
+        None => format!("Noise written as varying: σ²(x) = {shape} (no corrected estimate to set its level)."),
+    })
+}
+
+/// The noise a twin of table `t` under `fit` writes: the constant sd of the corrected noise
+/// estimate, or with `--varying` σ²(x) whose smoother is chosen by leave-one-out
+/// cross-validation on the squared residuals and whose level is the corrected noise estimate
+/// (see [`Reference::set_varying`]).
+fn twin_noise(o: &TwinOptions, t: &Table, fit: &RegressionFit) -> Result<TwinNoise, String> {
+    let level = fit.noise.map(|n| n.value);
+    if !o.varying {
+        return Ok(TwinNoise::Constant(
+            level.map_or(0.0, |v| v.max(0.0).sqrt()),
+        ));
+    }
+    let mut r = Reference::fit(
+        t.x.view(),
+        t.y.view(),
+        0,
+        &fit.selection.choice,
+        true,
+        "the table",
+    )?;
+    let smooth_k = r.choose_smooth_k(t.x.view());
+    r.set_varying(t.x.view(), smooth_k, None)?;
+    Ok(TwinNoise::Varying {
+        smooth_k,
+        level: level.and_then(|v| twin::varying_level(&r, t.x.view(), v, &fit.noise_weights)),
+    })
+}
+
 /// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
 /// twin): the same pipeline as the first twin.
 fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
     let fit = fit_table(o, t, "a table drawn from the twin").map_err(Error::Usage)?;
-    let noise = if o.varying {
-        TwinNoise::Varying
-    } else {
-        TwinNoise::Constant(fit.noise.map_or(0.0, |n| n.value.max(0.0).sqrt()))
-    };
+    let noise = twin_noise(o, t, &fit).map_err(Error::Usage)?;
     let spec = TwinSpec {
         choice: fit.selection.choice.clone(),
         jitter: o.jitter,
@@ -1164,7 +1211,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             }
             let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));
             let yv = t.y.to_vec();
-            let sd = fit.noise.map_or(0.0, |n| n.value.max(0.0).sqrt());
+            let noise = twin_noise(o, &t, &fit)
+                .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             let eval_size = if o.jitter > 0.0 {
                 o.eval_size
             } else {
@@ -1180,8 +1228,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 if let Some(n) = &r.fit.noise {
                     comments.push(noise_line(n));
                 }
-                if o.varying {
-                    comments.push("Noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals.".into());
+                if let Some(l) = varying_line(&r.noise) {
+                    comments.push(l);
                 }
                 comments.extend(shape_line(o, &yv, r.fit));
                 if o.noise_shape == ShapeChoice::Residuals {
@@ -1194,10 +1242,10 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 let mut s = header_and_top(&o_eff, &t, &comments, reps);
                 s.push_str(&regression_data(&o_eff, &t, &rel, r));
                 if report {
-                    let noise = if o.varying {
-                        None
-                    } else {
-                        r.fit.noise.as_ref()
+                    // Varying noise keeps the record when the estimate is σ²(x)'s level.
+                    let noise = match r.noise {
+                        TwinNoise::Varying { level: None, .. } => None,
+                        _ => r.fit.noise.as_ref(),
                     };
                     s.push_str(&fit_report_text(noise, r.fidelity));
                 }
@@ -1207,7 +1255,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             let mut rt = RegressionText {
                 fit: &fit,
                 jitter,
-                sd,
+                noise,
                 fidelity: None,
             };
             check_plans(
@@ -1239,10 +1287,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 Some(n) => out.push_str(&format!("{}\n", noise_line(n))),
                 None => out.push_str("Noise: the estimator cannot run on this table; σ = 0 written, edit [data.noise]\n"),
             }
-            if o.varying {
-                out.push_str(
-                    "noise written as varying: σ²(x) smoothed from the k-NN leave-one-out squared residuals\n",
-                );
+            if let Some(l) = varying_line(&rt.noise) {
+                out.push_str(&l);
+                out.push('\n');
             }
             if let Some(l) = shape_line(o, &yv, &fit) {
                 out.push_str(&l);

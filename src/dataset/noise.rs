@@ -350,6 +350,48 @@ impl Design {
         }
     }
 
+    /// The diagonal of the estimator's quadratic form `σ̂² = yᵀAy` over the rows (it sums to 1):
+    /// with noise whose variance σ²_r varies from row to row, the noise's part of the estimate
+    /// is `Σ_r A_rr σ²_r` in expectation, so these are the weights with which each row's noise
+    /// variance enters it (rows a trimmed design left out count only as neighbours).
+    pub fn noise_weights(&self) -> Vec<f64> {
+        let mut d = vec![0.0; self.n];
+        match &self.kind {
+            DesignKind::Nn(nb) => {
+                let w = 0.5 / self.n as f64;
+                for (i, &j) in nb.iter().enumerate() {
+                    d[i] += w;
+                    d[j] += w;
+                }
+            }
+            DesignKind::Gamma { nn, delta } => {
+                let c = intercept_weights(delta);
+                let used = gamma_query_rows(nn).max(1) as f64;
+                for (i, list) in nn.iter().enumerate() {
+                    for (&(j, _), ck) in list.iter().zip(&c) {
+                        let w = ck / (2.0 * used);
+                        d[i] += w;
+                        d[j] += w;
+                    }
+                }
+            }
+            DesignKind::Gsjs { order, a } => {
+                let n = self.n;
+                if n >= 3 {
+                    for t in 1..n - 1 {
+                        let a = a[t - 1];
+                        let b = 1.0 - a;
+                        let w = 1.0 / ((a * a + b * b + 1.0) * (n - 2) as f64);
+                        d[order[t - 1]] += w * a * a;
+                        d[order[t]] += w;
+                        d[order[t + 1]] += w * b * b;
+                    }
+                }
+            }
+        }
+        d
+    }
+
     /// The estimate alone (NaN when `y` has another length): the fast path of a bootstrap. The
     /// same value as [`Design::estimate`], bit for bit, without the standard error (whose
     /// dependency-graph sum cost several times the estimate itself).
@@ -669,6 +711,48 @@ mod tests {
     use ndarray::{Array1, Array2};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
+
+    #[test]
+    fn noise_weights_are_the_quadratic_forms_diagonal() {
+        // Each estimator is σ̂² = yᵀAy, so with y the unit vector of row r it returns A_rr
+        // exactly: the weights must match the estimator run on those vectors (an identity of
+        // quadratic forms), sum to 1 (a constant noise variance σ² gives E σ̂² = σ² for f = 0),
+        // and a trimmed Gamma design must count a left-out row only as a neighbour.
+        let n = 40;
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let x1 = Array2::from_shape_fn((n, 1), |_| rng.gen::<f64>());
+        let x3 = Array2::from_shape_fn((n, 3), |_| rng.gen::<f64>());
+        let f: Vec<f64> = x3
+            .rows()
+            .into_iter()
+            .map(|r| 3.0 * r[0] * r[1] + r[2])
+            .collect();
+        let gamma = Design::new(Method::Gamma, x3.view()).unwrap();
+        let trimmed = gamma.trimmed(&f, 0.2);
+        assert!(trimmed.query_rows() < n);
+        for d in [
+            Design::new(Method::Gsjs, x1.view()).unwrap(),
+            Design::new(Method::NearestNeighbour, x3.view()).unwrap(),
+            gamma,
+            trimmed,
+        ] {
+            let w = d.noise_weights();
+            assert!(
+                (w.iter().sum::<f64>() - 1.0).abs() < 1e-12,
+                "{:?}",
+                d.method()
+            );
+            for (r, wr) in w.iter().enumerate() {
+                let e = Array1::from_shape_fn(n, |i| f64::from(u8::from(i == r)));
+                let v = d.value(e.view());
+                assert!(
+                    (v - wr).abs() < 1e-12,
+                    "{:?} row {r}: {v} vs {wr}",
+                    d.method()
+                );
+            }
+        }
+    }
 
     #[test]
     fn the_bootstrap_fast_path_gives_the_estimate_bit_for_bit() {

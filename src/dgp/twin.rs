@@ -376,13 +376,57 @@ pub fn correct_noise_weighted(
     seed: u64,
     pool: Option<&[f64]>,
 ) -> Option<NoiseCorrection> {
-    let mut design = noise::Design::weighted(method, x, weights)?;
-    if x.ncols() <= TRIM_MAX_INPUTS {
-        design = design.trimmed(f_rows, TRIM_SHARE);
-    }
+    let design = noise_design(method, x, weights, f_rows)?;
     // GSJS orders one input and ignores weights.
     let weighted = weights.is_some() && method != Method::Gsjs;
     correct_noise_on(&design, x, y, f_rows, tables, seed, weighted, pool)
+}
+
+/// The estimator a twin's noise correction runs: `method` on the rows `x` with the inputs
+/// weighted by `weights` ([`noise::Design::weighted`]) and, on up to [`TRIM_MAX_INPUTS`]
+/// inputs, the rows where the reference's fit `f_rows` changes most left out
+/// ([`noise::Design::trimmed`]). `None` when the estimator cannot run on the rows.
+pub fn noise_design(
+    method: Method,
+    x: ArrayView2<'_, f64>,
+    weights: Option<&[f64]>,
+    f_rows: &[f64],
+) -> Option<noise::Design> {
+    let design = noise::Design::weighted(method, x, weights)?;
+    Some(if x.ncols() <= TRIM_MAX_INPUTS {
+        design.trimmed(f_rows, TRIM_SHARE)
+    } else {
+        design
+    })
+}
+
+/// The level of a twin's varying noise: σ²(x)'s mean over the table's rows `x` such that the
+/// noise estimate, which weighs row r's noise variance by `weights[r]`
+/// ([`noise::Design::noise_weights`]), would see the corrected value `corrected`:
+/// `corrected · mean_r v_r / Σ_r weights_r v_r`, with `v` the reference's σ²(x) at the rows as
+/// it stands. The estimator leaves some rows out and counts others more often as neighbours;
+/// with noise that varies, the corrected value is the noise variance averaged under those
+/// weights, not over the rows (measured: docs/twin-calibration.md §2.10). `None` without
+/// varying noise, for weights of another length, or when the weighted sum is not positive.
+pub fn varying_level(
+    r: &Reference,
+    x: ArrayView2<'_, f64>,
+    corrected: f64,
+    weights: &[f64],
+) -> Option<f64> {
+    if weights.len() != x.nrows() || x.nrows() == 0 || !(corrected.is_finite() && corrected > 0.0) {
+        return None;
+    }
+    let mut row = vec![0.0; x.ncols()];
+    let (mut plain, mut weighted) = (0.0, 0.0);
+    for (xr, w) in x.rows().into_iter().zip(weights) {
+        row.iter_mut().zip(xr.iter()).for_each(|(b, v)| *b = *v);
+        let v = r.var_at(&row)? / r.level_factor();
+        plain += v;
+        weighted += w * v;
+    }
+    let level = corrected * (plain / x.nrows() as f64) / weighted;
+    (weighted > 0.0 && level.is_finite() && level > 0.0).then_some(level)
 }
 
 /// [`correct_noise_weighted`] on a prepared estimator `design` of the rows `x` (the twin's
@@ -583,6 +627,10 @@ pub struct RegressionFit {
     pub f_rows: Vec<f64>,
     /// The corrected noise (`None` when the estimator cannot run on the rows).
     pub noise: Option<NoiseCorrection>,
+    /// The weight of each row's noise variance in the noise estimate
+    /// ([`noise::Design::noise_weights`]; empty without an estimate): what sets the level of
+    /// varying noise ([`varying_level`]).
+    pub noise_weights: Vec<f64>,
     /// The twicing check ([`Twicing::Auto`] on fewer than [`TWICE_FROM_INPUTS`] inputs).
     pub twicing: Option<select::TwicingCheck>,
     /// The twicing asked for.
@@ -655,16 +703,26 @@ pub fn fit_regression_shaped(
     } else {
         None
     };
-    let noise = correct_noise_weighted(
-        method,
-        x,
-        selection.choice.metric.as_deref(),
-        y,
-        &once_rows,
-        NOISE_TABLES,
-        seed,
-        pool.as_deref(),
-    );
+    let metric = selection.choice.metric.as_deref();
+    let design = noise_design(method, x, metric, &once_rows);
+    // GSJS orders one input and ignores weights.
+    let weighted = metric.is_some() && method != Method::Gsjs;
+    let noise = design.as_ref().and_then(|d| {
+        correct_noise_on(
+            d,
+            x,
+            y,
+            &once_rows,
+            NOISE_TABLES,
+            seed,
+            weighted,
+            pool.as_deref(),
+        )
+    });
+    let noise_weights = match (&design, &noise) {
+        (Some(d), Some(_)) => d.noise_weights(),
+        _ => Vec::new(),
+    };
     let check = match twicing {
         Twicing::Auto if x.ncols() < TWICE_FROM_INPUTS => {
             select::twicing_check(x, y, seed, &selection.choice)
@@ -689,6 +747,7 @@ pub fn fit_regression_shaped(
         reference,
         f_rows,
         noise,
+        noise_weights,
         twicing: check,
         twicing_mode: twicing,
     })
@@ -803,6 +862,48 @@ impl FidelityModel {
 mod tests {
     use super::*;
     use rand::SeedableRng;
+
+    #[test]
+    fn the_varying_level_undoes_the_estimators_row_weights() {
+        // σ²(x) = c·v(x): the level is the row mean of c·v with c chosen so that Σ_r w_r c v_r
+        // is the corrected estimate. Uniform weights give the estimate itself; weights on the
+        // rows where v is largest give a lower level, on the smallest a higher one.
+        let n = 80;
+        let x = Array2::from_shape_fn((n, 1), |(i, _)| (i as f64 * 0.618034).fract());
+        let y: Vec<f64> = (0..n)
+            .map(|i| x[[i, 0]] * ((i * 37 % 29) as f64 / 14.0 - 1.0) * 3.0)
+            .collect();
+        let r = Reference::fit(
+            x.view(),
+            ArrayView1::from(&y),
+            0,
+            &crate::dgp::reference::Choice::knn(4, false),
+            true,
+            "t",
+        )
+        .unwrap();
+        let uniform = vec![1.0 / n as f64; n];
+        let l = varying_level(&r, x.view(), 0.8, &uniform).unwrap();
+        assert!((l - 0.8).abs() < 1e-12, "{l}");
+        let v: Vec<f64> = (0..n).map(|i| r.var_at(&[x[[i, 0]]]).unwrap()).collect();
+        let mid = {
+            let mut s = v.clone();
+            s.sort_by(f64::total_cmp);
+            s[n / 2]
+        };
+        let on = |high: bool| -> Vec<f64> {
+            let w: Vec<f64> = v
+                .iter()
+                .map(|&a| f64::from(u8::from((a > mid) == high)))
+                .collect();
+            let t: f64 = w.iter().sum();
+            w.iter().map(|a| a / t).collect()
+        };
+        assert!(varying_level(&r, x.view(), 0.8, &on(true)).unwrap() < 0.8);
+        assert!(varying_level(&r, x.view(), 0.8, &on(false)).unwrap() > 0.8);
+        assert!(varying_level(&r, x.view(), 0.8, &uniform[1..]).is_none());
+        assert!(varying_level(&r, x.view(), -1.0, &uniform).is_none());
+    }
 
     #[test]
     fn discrete_columns_stay_on_their_levels_and_draws_stay_in_range() {

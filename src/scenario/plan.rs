@@ -1373,7 +1373,8 @@ fn formula(
     })
 }
 
-/// Refuses the twin-only keys (`reference`, `noise.varying`) in a synthetic source.
+/// Refuses the twin-only keys (`reference`, `noise.varying`, `noise.level`, `noise.smooth_k`)
+/// in a synthetic source.
 fn reject_twin_keys(cx: &Ctx<'_>, d: &DataSpec) -> Result<(), ScenarioError> {
     if d.reference.is_some() {
         return Err(super::at_data_key(
@@ -1392,6 +1393,20 @@ fn reject_twin_keys(cx: &Ctx<'_>, d: &DataSpec) -> Result<(), ScenarioError> {
             "data.noise.varying",
             "belongs to `source = \"twin\"`; a synthetic source uses `sd_formula`",
         ));
+    }
+    if let Some(n) = &d.noise {
+        for (span, key) in [
+            (n.level.as_ref().map(|v| v.span()), "level"),
+            (n.smooth_k.as_ref().map(|v| v.span()), "smooth_k"),
+        ] {
+            if let Some(span) = span {
+                return Err(cx.err(
+                    Some(span),
+                    &format!("data.noise.{key}"),
+                    "belongs to a twin's varying noise (`source = \"twin\"`, `varying = true`)",
+                ));
+            }
+        }
     }
     Ok(())
 }

@@ -419,6 +419,13 @@ pub struct NoiseSpec {
     /// Twin: σ²(x) from the reference's smoothed squared residuals instead of a constant.
     #[serde(default)]
     pub varying: Option<Spanned<bool>>,
+    /// Twin, varying noise: σ²(x)'s mean over the table's rows (the corrected noise estimate
+    /// `lossprism twin` measured); without it σ²(x) is the smoothed residuals as they are.
+    #[serde(default)]
+    pub level: Option<Spanned<f64>>,
+    /// Twin, varying noise: the neighbours σ²(x) averages (the reference's `k` when absent).
+    #[serde(default)]
+    pub smooth_k: Option<Spanned<i64>>,
     /// The law of the standardized noise: `gaussian` (default), `student` (with `df`) or, in a
     /// twin, `residuals` (the table's standardized residuals resampled).
     #[serde(default)]

@@ -32,7 +32,12 @@ pub enum TwinNoise {
     /// A constant standard deviation (the noise's law is [`TwinSpec::shape`]).
     Constant(f64),
     /// σ²(x) from the reference's k-NN smoothed squared residuals.
-    Varying,
+    Varying {
+        /// Neighbours σ²(x) averages (`smooth_k`; the recipe's k when `None`).
+        smooth_k: Option<usize>,
+        /// σ²(x)'s mean over the table's rows (`level`; unscaled when `None`).
+        level: Option<f64>,
+    },
 }
 
 /// Everything a twin process needs besides its table.
@@ -86,7 +91,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
         Task::Classify { classes } => classes,
         Task::Regress => 0,
     };
-    let varying = spec.noise == Some(TwinNoise::Varying);
+    let varying = matches!(spec.noise, Some(TwinNoise::Varying { .. }));
     let mut fitted_ref = Reference::fit(
         t.x.view(),
         t.y.view(),
@@ -96,6 +101,13 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
         shown,
     )
     .map_err(BuildError::Reference)?;
+    if let Some(TwinNoise::Varying { smooth_k, level }) = spec.noise {
+        if classes == 0 {
+            fitted_ref
+                .set_varying(t.x.view(), smooth_k, level)
+                .map_err(BuildError::Reference)?;
+        }
+    }
     fitted_ref.path = Some(t.path.clone());
     fitted_ref.report = spec.report.clone();
     fitted_ref.dropped_rows = t.dropped_rows;
@@ -124,7 +136,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
     } else {
         let noise = match spec.noise {
             Some(TwinNoise::Constant(sd)) => Noise::Constant(sd),
-            Some(TwinNoise::Varying) => Noise::Reference(fitted.clone()),
+            Some(TwinNoise::Varying { .. }) => Noise::Reference(fitted.clone()),
             None => {
                 return Err(BuildError::Reference(
                     "a regression twin needs a noise".into(),
@@ -667,6 +679,20 @@ pub fn from_spec(
                         "belongs to a synthetic source; a twin's noise is `sd` (constant) or `varying = true`".into(),
                     ));
                 }
+                if !varying {
+                    for (v, key) in [
+                        (n.level.as_ref().map(|v| v.span()), "level"),
+                        (n.smooth_k.as_ref().map(|v| v.span()), "smooth_k"),
+                    ] {
+                        if let Some(span) = v {
+                            return Err(err(
+                                span,
+                                &format!("data.noise.{key}"),
+                                "belongs to varying noise (`varying = true`)".into(),
+                            ));
+                        }
+                    }
+                }
                 match (&n.sd, varying) {
                     (Some(sd), false) => {
                         let v = *sd.get_ref();
@@ -694,7 +720,40 @@ pub fn from_spec(
                                 format!("needs more than k = {k} rows"),
                             ));
                         }
-                        TwinNoise::Varying
+                        let smooth_k = match &n.smooth_k {
+                            None => None,
+                            Some(v) if *v.get_ref() >= 1 && (*v.get_ref() as u64) < rows as u64 => {
+                                Some(*v.get_ref() as usize)
+                            }
+                            Some(v) => {
+                                return Err(err(
+                                    v.span(),
+                                    "data.noise.smooth_k",
+                                    format!(
+                                        "must be between 1 and {} (fewer than the table's rows), got {}",
+                                        rows - 1,
+                                        v.get_ref()
+                                    ),
+                                ))
+                            }
+                        };
+                        let level = match &n.level {
+                            None => None,
+                            Some(v) if v.get_ref().is_finite() && *v.get_ref() > 0.0 => {
+                                Some(*v.get_ref())
+                            }
+                            Some(v) => {
+                                return Err(err(
+                                    v.span(),
+                                    "data.noise.level",
+                                    format!(
+                                        "must be a finite number > 0, got {}",
+                                        crate::fmt::fmt_exact(*v.get_ref())
+                                    ),
+                                ))
+                            }
+                        };
+                        TwinNoise::Varying { smooth_k, level }
                     }
                     (None, false) => {
                         return Err(err(

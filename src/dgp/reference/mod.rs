@@ -48,6 +48,12 @@ pub use loclin::LocLin;
 /// Folds of the cross-validation that chooses k in [`fit`].
 pub const CV_FOLDS: usize = 10;
 
+/// Candidate neighbour counts of varying noise's variance smoother
+/// ([`Reference::choose_smooth_k`]): squared residuals are far noisier than responses (a
+/// Gaussian's has a relative sd of √2), so the range reaches further than [`K_CANDIDATES`].
+pub const SMOOTH_K_CANDIDATES: [usize; 13] =
+    [5, 10, 15, 20, 30, 50, 75, 100, 150, 200, 300, 500, 1000];
+
 /// Candidate k values tried by [`fit`] (those that fit in a training fold).
 pub const K_CANDIDATES: [usize; 14] = [1, 2, 3, 4, 5, 7, 10, 15, 20, 30, 50, 75, 100, 150];
 
@@ -289,6 +295,12 @@ pub struct Reference {
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
+    /// Varying noise: the neighbours σ²(x) averages (the recipe's k unless
+    /// [`Reference::set_varying`] chose another).
+    var_k: usize,
+    /// Varying noise: the factor that brings σ²(x) to its level (1 unless
+    /// [`Reference::set_varying`] set a level).
+    var_scale: f64,
     /// Twicing: the second fit, on the first fit's in-sample residuals.
     second: Option<Box<Reference>>,
 }
@@ -372,6 +384,8 @@ impl Reference {
             loclin,
             y: yv,
             sq_resid: None,
+            var_k: 0,
+            var_scale: 1.0,
             second: None,
         };
         if varying && classes == 0 {
@@ -390,6 +404,7 @@ impl Reference {
                         })
                         .collect();
                     r.sq_resid = Some(sq);
+                    r.var_k = k;
                 }
             }
         }
@@ -540,13 +555,116 @@ impl Reference {
         out.iter_mut().for_each(|p| *p /= total);
     }
 
-    /// Varying noise: σ²(x), the k-NN average of the corrected squared leave-one-out residuals;
-    /// `None` without varying noise.
+    /// Varying noise: σ²(x), the average over its [`Reference::smooth_k`] nearest table rows of
+    /// the corrected squared leave-one-out residuals, times the level's factor; `None` without
+    /// varying noise.
     pub fn var_at(&self, row: &[f64]) -> Option<f64> {
         let sq = self.sq_resid.as_ref()?;
-        let mut buf = Vec::with_capacity(self.k());
-        self.neighbours(row, &mut Scratch::default(), &mut buf);
-        Some(buf.iter().map(|&j| sq[j]).sum::<f64>() / buf.len() as f64)
+        let p = self.knn.as_ref()?;
+        let mut buf = Vec::with_capacity(self.var_k);
+        p.index
+            .nearest(row, self.var_k, &mut Scratch::default(), &mut buf);
+        Some(self.var_scale * buf.iter().map(|&j| sq[j]).sum::<f64>() / buf.len().max(1) as f64)
+    }
+
+    /// Varying noise: the neighbours σ²(x) averages (0 without varying noise).
+    pub fn smooth_k(&self) -> usize {
+        if self.sq_resid.is_some() {
+            self.var_k
+        } else {
+            0
+        }
+    }
+
+    /// Varying noise: the factor that brings σ²(x) to its level (1 unless
+    /// [`Reference::set_varying`] was given one).
+    pub fn level_factor(&self) -> f64 {
+        self.var_scale
+    }
+
+    /// Varying noise: σ²(x) averages `smooth_k` neighbours (the recipe's k when `None`) and,
+    /// with `level`, is scaled so that its mean over the rows of `x` (the table it was fitted
+    /// on) is `level`: the shape comes from the local squared residuals, the level from a noise
+    /// estimate that was corrected for the reference's bias. Errors (one line) without varying
+    /// noise, for `smooth_k` outside 1..rows, a `level` that is not a finite number > 0, or
+    /// squared residuals that are all 0.
+    pub fn set_varying(
+        &mut self,
+        x: ArrayView2<'_, f64>,
+        smooth_k: Option<usize>,
+        level: Option<f64>,
+    ) -> Result<(), String> {
+        let (Some(_), Some(p)) = (&self.sq_resid, &self.knn) else {
+            return Err("σ²(x) needs varying noise and the k-NN part".into());
+        };
+        let n = self.y.len();
+        let k = smooth_k.unwrap_or(p.k);
+        if k == 0 || k >= n {
+            return Err(format!(
+                "`smooth_k` must be between 1 and {}, got {k}",
+                n.saturating_sub(1)
+            ));
+        }
+        self.var_k = k;
+        self.var_scale = 1.0;
+        if let Some(level) = level {
+            if !(level.is_finite() && level > 0.0) {
+                return Err(format!("`level` must be a finite number > 0, got {level}"));
+            }
+            let mut row = vec![0.0; x.ncols()];
+            let mut total = 0.0;
+            for r in x.rows() {
+                row.iter_mut().zip(r.iter()).for_each(|(b, v)| *b = *v);
+                total += self.var_at(&row).unwrap_or(0.0);
+            }
+            let m = total / x.nrows().max(1) as f64;
+            if !(m.is_finite() && m > 0.0) {
+                return Err("the squared residuals are all 0: σ²(x) has no shape to scale".into());
+            }
+            self.var_scale = level / m;
+        }
+        Ok(())
+    }
+
+    /// Varying noise: the number of neighbours, among [`SMOOTH_K_CANDIDATES`] below the row
+    /// count, whose average of the other rows' corrected squared leave-one-out residuals best
+    /// predicts each row's own (leave-one-out cross-validation of the variance smoother, squared
+    /// error; ties to the larger k). `None` without varying noise or with fewer than 3 rows.
+    pub fn choose_smooth_k(&self, x: ArrayView2<'_, f64>) -> Option<usize> {
+        let sq = self.sq_resid.as_ref()?;
+        let p = self.knn.as_ref()?;
+        let n = sq.len();
+        let cands: Vec<usize> = SMOOTH_K_CANDIDATES
+            .iter()
+            .copied()
+            .filter(|&k| k < n)
+            .collect();
+        let kmax = *cands.last()?;
+        let mut err = vec![0.0; cands.len()];
+        let mut scratch = Scratch::default();
+        let mut buf = Vec::with_capacity(kmax);
+        let mut row = vec![0.0; x.ncols()];
+        for (i, r) in x.rows().into_iter().enumerate() {
+            row.iter_mut().zip(r.iter()).for_each(|(b, v)| *b = *v);
+            p.index
+                .nearest_excluding(&row, kmax, |j| j == i, &mut scratch, &mut buf);
+            let mut sum = 0.0;
+            let mut c = 0;
+            for (m, &j) in buf.iter().enumerate() {
+                sum += sq[j];
+                if c < cands.len() && m + 1 == cands[c] {
+                    err[c] += (sq[i] - sum / cands[c] as f64).powi(2);
+                    c += 1;
+                }
+            }
+        }
+        let mut best = 0;
+        for c in 1..cands.len() {
+            if err[c] <= err[best] {
+                best = c;
+            }
+        }
+        Some(cands[best])
     }
 
     /// Varying noise: σ(x) = √σ²(x) ([`Reference::var_at`]) at every row of `x`, 0 where it
@@ -613,10 +731,19 @@ impl Reference {
 
     /// Human-readable form of the varying noise.
     pub fn describe_noise(&self) -> String {
-        format!(
-            "gaussian, sd(x)² = k-NN average (k = {}) of the k-NN leave-one-out squared residuals × k/(k+1)",
+        let base = format!(
+            "gaussian, sd(x)² = average over the {} nearest rows of the k-NN (k = {}) leave-one-out squared residuals × k/(k+1)",
+            self.smooth_k(),
             self.k()
-        )
+        );
+        if self.var_scale == 1.0 {
+            base
+        } else {
+            format!(
+                "{base}, scaled by {} to the corrected noise estimate's level",
+                crate::fmt::fmt_num(self.var_scale)
+            )
+        }
     }
 }
 
@@ -794,6 +921,85 @@ mod tests {
             }
         }
         s
+    }
+
+    #[test]
+    fn varying_noise_smooths_and_scales_as_stated() {
+        // 1-D rows at distinct, unevenly spaced positions (no distance ties); responses whose
+        // spread grows with x. Checked against brute force: the corrected squared leave-one-out
+        // residuals, σ²(x) as the mean of the `smooth_k` nearest rows' values, the smoother
+        // chosen by leave-one-out squared error (ties to the larger k), and the level.
+        let n = 120;
+        let x = Array2::from_shape_fn((n, 1), |(i, _)| (i as f64 * 0.7548776662).fract());
+        let y = Array1::from_shape_fn(n, |i| {
+            let u = x[[i, 0]];
+            (3.0 * u).sin() + (0.2 + 2.0 * u) * ((i * 7919 % 101) as f64 / 50.0 - 1.0)
+        });
+        let k = 5;
+        let mut r =
+            Reference::fit(x.view(), y.view(), 0, &Choice::knn(k, false), true, "t").unwrap();
+        let order = |q: f64, skip: Option<usize>| {
+            let mut d: Vec<(f64, usize)> = (0..n)
+                .filter(|&j| Some(j) != skip)
+                .map(|j| ((x[[j, 0]] - q).abs(), j))
+                .collect();
+            d.sort_by(|a, b| a.partial_cmp(b).unwrap());
+            d.into_iter().map(|(_, j)| j).collect::<Vec<_>>()
+        };
+        let sq: Vec<f64> = (0..n)
+            .map(|i| {
+                let m = order(x[[i, 0]], Some(i))[..k]
+                    .iter()
+                    .map(|&j| y[j])
+                    .sum::<f64>()
+                    / k as f64;
+                (y[i] - m).powi(2) * k as f64 / (k as f64 + 1.0)
+            })
+            .collect();
+        let avg = |q: f64, m: usize, skip: Option<usize>| {
+            order(q, skip)[..m].iter().map(|&j| sq[j]).sum::<f64>() / m as f64
+        };
+        // As fitted: the recipe's k, unscaled.
+        assert_eq!(r.smooth_k(), k);
+        assert!((r.var_at(&[0.31]).unwrap() - avg(0.31, k, None)).abs() < 1e-12);
+        // The chosen smoother.
+        let cands: Vec<usize> = SMOOTH_K_CANDIDATES
+            .iter()
+            .copied()
+            .filter(|&c| c < n)
+            .collect();
+        let err: Vec<f64> = cands
+            .iter()
+            .map(|&m| {
+                (0..n)
+                    .map(|i| (sq[i] - avg(x[[i, 0]], m, Some(i))).powi(2))
+                    .sum()
+            })
+            .collect();
+        let mut best = 0;
+        for c in 1..cands.len() {
+            if err[c] <= err[best] {
+                best = c;
+            }
+        }
+        let chosen = r.choose_smooth_k(x.view()).unwrap();
+        assert_eq!(chosen, cands[best]);
+        // Smoothed over 30 rows and scaled to a mean of 0.7 over the rows.
+        r.set_varying(x.view(), Some(30), Some(0.7)).unwrap();
+        assert_eq!(r.smooth_k(), 30);
+        let at_rows: Vec<f64> = (0..n).map(|i| r.var_at(&[x[[i, 0]]]).unwrap()).collect();
+        assert!((at_rows.iter().sum::<f64>() / n as f64 - 0.7).abs() < 1e-12);
+        let plain: f64 = (0..n).map(|i| avg(x[[i, 0]], 30, None)).sum::<f64>() / n as f64;
+        assert!((r.var_at(&[0.31]).unwrap() - 0.7 * avg(0.31, 30, None) / plain).abs() < 1e-12);
+        // Refusals.
+        assert!(r.set_varying(x.view(), Some(0), None).is_err());
+        assert!(r.set_varying(x.view(), Some(n), None).is_err());
+        assert!(r.set_varying(x.view(), None, Some(0.0)).is_err());
+        assert!(r.set_varying(x.view(), None, Some(f64::NAN)).is_err());
+        let mut plain_ref =
+            Reference::fit(x.view(), y.view(), 0, &Choice::knn(k, false), false, "t").unwrap();
+        assert!(plain_ref.set_varying(x.view(), None, None).is_err());
+        assert!(plain_ref.choose_smooth_k(x.view()).is_none());
     }
 
     #[test]
