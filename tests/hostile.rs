@@ -1994,6 +1994,18 @@ fn noise_shape_cases(t: &mut Table) {
             varying("smooth_k = 2.5"),
             "data.noise.smooth_k",
         ),
+        // A level whose σ²(x) overflows: refused at the key, not a run stopped on an infinite
+        // response (1e308) or squares (1e305) naming no key.
+        (
+            "twin: level overflowing σ²(x)",
+            varying("level = 1e308"),
+            "s.toml:16: key `data.noise.level`: `level` = 1e308 would scale σ²(x) past the range of floating-point numbers",
+        ),
+        (
+            "twin: level overflowing the responses' squares",
+            varying("level = 1e300"),
+            "s.toml:16: key `data.noise.level`: `level` = 1e300 would scale σ²(x) to as much as",
+        ),
     ]);
     // A classification twin has no [data.noise], shaped or not.
     let mut labels = String::from("a,b,y\n");
@@ -2014,6 +2026,25 @@ fn noise_shape_cases(t: &mut Table) {
             needle,
         );
     }
+    // A level on squared residuals that are all 0 (each row's neighbours repeat its input and
+    // response): the refusal named `data.reference`, not the key that asked for a level.
+    let mut flat = String::from("a,b,y\n");
+    for i in 0..60 {
+        flat.push_str(&format!("{},0,{}\n", i % 3, i % 3));
+    }
+    let flat_twin = varying("level = 0.5")
+        .replace(
+            &reference_line.replace("twice = true, ", ""),
+            "reference = { family = \"knn\", k = 5, standardize = true }",
+        )
+        .replacen("target = \"y\"", "target = \"y\"\nduplicates = \"keep\"", 1);
+    t.add(
+        g,
+        "twin: level on squared residuals that are all 0",
+        &[("s.toml", flat_twin.as_bytes()), ("t.csv", flat.as_bytes())],
+        &["validate", "s.toml"],
+        "s.toml:17: key `data.noise.level`: the squared residuals are all 0: σ²(x) has no shape to scale",
+    );
     t.add(
         g,
         "twin: shape on a classification twin",

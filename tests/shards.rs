@@ -707,8 +707,9 @@ fn a_watch_stops_a_checkpointed_job_which_then_resumes_to_the_plain_result() {
 }
 
 /// Shaped noise draws from the replicate streams like Gaussian noise: a Student's t scenario and
-/// a twin with resampled residuals (constant and varying noise) give byte-identical results
-/// plain, on 1 thread, as 3 shards merged, and stopped and resumed from a checkpoint.
+/// a twin with resampled residuals (constant and varying noise, the latter also with its own
+/// `smooth_k` and `level`) give byte-identical results plain, on 1 thread, as 3 shards merged,
+/// and stopped and resumed from a checkpoint.
 #[test]
 fn shaped_noise_is_identical_across_threads_shards_and_resume() {
     let dir = tempfile::tempdir().unwrap();
@@ -741,6 +742,11 @@ fn shaped_noise_is_identical_across_threads_shards_and_resume() {
         ),
         ("residuals.toml", twin("sd = 0.3")),
         ("varying.toml", twin("varying = true")),
+        // Varying noise smoothed over its own neighbours and scaled to a level.
+        (
+            "leveled.toml",
+            twin("varying = true\nsmooth_k = 15\nlevel = 0.05"),
+        ),
     ];
     for (name, text) in &scenarios {
         fs::write(d.join(name), text).unwrap();

@@ -73,13 +73,16 @@ pub enum BuildError {
     /// The pool of `shape = "residuals"` ([`residual_pool`]): the reference leaves no residual
     /// spread to resample.
     Shape(String),
+    /// Varying noise's `smooth_k` or `level` ([`Reference::set_varying`]): say, a level on
+    /// squared residuals that are all 0, or one that overflows.
+    Noise(String),
 }
 
 impl BuildError {
     /// The message, whichever part failed.
     pub fn message(self) -> String {
         match self {
-            BuildError::Reference(m) | BuildError::Shape(m) => m,
+            BuildError::Reference(m) | BuildError::Shape(m) | BuildError::Noise(m) => m,
         }
     }
 }
@@ -105,7 +108,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
         if classes == 0 {
             fitted_ref
                 .set_varying(t.x.view(), smooth_k, level)
-                .map_err(BuildError::Reference)?;
+                .map_err(BuildError::Noise)?;
         }
     }
     fitted_ref.path = Some(t.path.clone());
@@ -801,5 +804,22 @@ pub fn from_spec(
             "data.noise.shape",
             m,
         ),
+        BuildError::Noise(m) => {
+            // The key that set σ²(x): its level, else its smoother, else `varying` itself.
+            let n = d.noise.as_ref();
+            let (span, key) = match n {
+                Some(n) if n.level.is_some() => {
+                    (n.level.as_ref().map(|v| v.span()), "data.noise.level")
+                }
+                Some(n) if n.smooth_k.is_some() => {
+                    (n.smooth_k.as_ref().map(|v| v.span()), "data.noise.smooth_k")
+                }
+                _ => (
+                    n.and_then(|n| n.varying.as_ref()).map(|v| v.span()),
+                    "data.noise.varying",
+                ),
+            };
+            err(span.unwrap_or(at_source.clone()), key, m)
+        }
     })
 }

@@ -54,6 +54,10 @@ pub const CV_FOLDS: usize = 10;
 pub const SMOOTH_K_CANDIDATES: [usize; 13] =
     [5, 10, 15, 20, 30, 50, 75, 100, 150, 200, 300, 500, 1000];
 
+/// Largest σ²(x) a [`Reference::set_varying`] level may scale varying noise to (σ(x) up to
+/// 1e150): beyond it the responses' squares, summed over points and replicates, overflow.
+pub const VAR_MAX: f64 = 1e300;
+
 /// Candidate k values tried by [`fit`] (those that fit in a training fold).
 pub const K_CANDIDATES: [usize; 14] = [1, 2, 3, 4, 5, 7, 10, 15, 20, 30, 50, 75, 100, 150];
 
@@ -586,8 +590,9 @@ impl Reference {
     /// with `level`, is scaled so that its mean over the rows of `x` (the table it was fitted
     /// on) is `level`: the shape comes from the local squared residuals, the level from a noise
     /// estimate that was corrected for the reference's bias. Errors (one line) without varying
-    /// noise, for `smooth_k` outside 1..rows, a `level` that is not a finite number > 0, or
-    /// squared residuals that are all 0.
+    /// noise, for `smooth_k` outside 1..rows, a `level` that is not a finite number > 0,
+    /// squared residuals that are all 0 or overflow, or a `level` that would take σ²(x) beyond
+    /// [`VAR_MAX`].
     pub fn set_varying(
         &mut self,
         x: ArrayView2<'_, f64>,
@@ -618,12 +623,45 @@ impl Reference {
                 total += self.var_at(&row).unwrap_or(0.0);
             }
             let m = total / x.nrows().max(1) as f64;
-            if !(m.is_finite() && m > 0.0) {
+            if !m.is_finite() {
+                return Err(
+                    "the squared residuals overflow: σ²(x) has no finite mean to scale; rescale the response".into(),
+                );
+            }
+            if m <= 0.0 {
                 return Err("the squared residuals are all 0: σ²(x) has no shape to scale".into());
             }
-            self.var_scale = level / m;
+            // σ²(x) anywhere (a jittered input included) averages `k` squared residuals, so it is
+            // at most the mean of the `k` largest: bounded so that the responses' squares stay
+            // finite (σ(x) up to 1e150, as the runner's own overflow check).
+            let scale = level / m;
+            let top = self.var_top(k) * scale;
+            if !(scale.is_finite() && top <= VAR_MAX) {
+                let reach = if top.is_finite() {
+                    format!("to as much as {top:e}")
+                } else {
+                    "past the range of floating-point numbers".into()
+                };
+                return Err(format!(
+                    "`level` = {} would scale σ²(x) {reach} (the mean of its {k} largest squared residuals), above {VAR_MAX:e}, where the responses' squares overflow; lower it (or rescale the response)",
+                    crate::fmt::fmt_exact(level),
+                ));
+            }
+            self.var_scale = scale;
         }
         Ok(())
+    }
+
+    /// Varying noise, unscaled: the mean of the `k` largest corrected squared residuals, the
+    /// most σ²(x) averaging `k` of them can reach at any input (0 without varying noise).
+    fn var_top(&self, k: usize) -> f64 {
+        let Some(sq) = &self.sq_resid else {
+            return 0.0;
+        };
+        let mut s = sq.clone();
+        s.sort_by(|a, b| b.total_cmp(a));
+        let k = k.clamp(1, s.len().max(1));
+        s.iter().take(k).sum::<f64>() / k as f64
     }
 
     /// Varying noise: the number of neighbours, among [`SMOOTH_K_CANDIDATES`] below the row
@@ -1000,6 +1038,48 @@ mod tests {
             Reference::fit(x.view(), y.view(), 0, &Choice::knn(k, false), false, "t").unwrap();
         assert!(plain_ref.set_varying(x.view(), None, None).is_err());
         assert!(plain_ref.choose_smooth_k(x.view()).is_none());
+    }
+
+    #[test]
+    fn a_level_that_would_overflow_the_responses_is_refused() {
+        // σ²(x) averages `smooth_k` squared residuals, so at any input it is at most the mean
+        // of the `smooth_k` largest: a level taking that bound beyond VAR_MAX is refused (before,
+        // level = 1e308 gave an infinite σ²(x), and a run stopped on a non-finite response
+        // without naming the key), one just below it is kept and reaches no more than it.
+        let n = 60;
+        let x = Array2::from_shape_fn((n, 1), |(i, _)| (i as f64 * 0.7548776662).fract());
+        let y = Array1::from_shape_fn(n, |i| {
+            x[[i, 0]] + (0.1 + x[[i, 0]]) * ((i * 7919 % 101) as f64 / 50.0 - 1.0)
+        });
+        let mut r =
+            Reference::fit(x.view(), y.view(), 0, &Choice::knn(5, false), true, "t").unwrap();
+        for k in [1, 5, 30] {
+            r.set_varying(x.view(), Some(k), None).unwrap();
+            let mean = (0..n).map(|i| r.var_at(&[x[[i, 0]]]).unwrap()).sum::<f64>() / n as f64;
+            let top = r.var_top(k);
+            assert!(top >= mean, "k {k}: {top} < {mean}");
+            // The largest level kept: VAR_MAX · mean / top (up to rounding).
+            let edge = VAR_MAX * mean / top;
+            r.set_varying(x.view(), Some(k), Some(edge * (1.0 - 1e-9)))
+                .unwrap();
+            let most = (0..400)
+                .map(|i| r.var_at(&[i as f64 / 399.0 * 1.2 - 0.1]).unwrap())
+                .fold(0.0_f64, f64::max);
+            assert!(most.is_finite() && most <= VAR_MAX, "k {k}: {most}");
+            for level in [edge * (1.0 + 1e-9), 1e308, f64::MAX] {
+                let e = r.set_varying(x.view(), Some(k), Some(level)).unwrap_err();
+                assert!(e.contains("above 1e300"), "{e}");
+                // A refusal leaves σ²(x) unscaled, not half set.
+                assert_eq!(r.level_factor(), 1.0);
+            }
+        }
+        // Residuals that are all 0 have no shape to scale.
+        let flat = Array1::from_shape_fn(n, |i| (i % 3) as f64);
+        let xf = Array2::from_shape_fn((n, 1), |(i, _)| (i % 3) as f64);
+        let mut z =
+            Reference::fit(xf.view(), flat.view(), 0, &Choice::knn(5, false), true, "t").unwrap();
+        let e = z.set_varying(xf.view(), None, Some(0.5)).unwrap_err();
+        assert!(e.contains("all 0"), "{e}");
     }
 
     #[test]
