@@ -41,6 +41,8 @@ struct Process {
     name: &'static str,
     formula: &'static str,
     p: usize,
+    /// The noise's sd, a formula over the same inputs (`"1"`: constant, σ = 1).
+    sd: &'static str,
 }
 
 /// Smooth: a tilted ripple plus a bowl (invented).
@@ -48,18 +50,21 @@ const SWELL3: Process = Process {
     name: "swell3",
     formula: "1.8*sin(2*pi*x1)*cos(pi*x2) + 2*x3^2 + x2",
     p: 3,
+    sd: "1",
 };
 /// A step along a slanted edge (invented).
 const LEDGE3: Process = Process {
     name: "ledge3",
     formula: "2.2*(x1 + 0.6*x2 > 0.75) + 1.5*sin(pi*x3) + x2*x3",
     p: 3,
+    sd: "1",
 };
 /// Two kinks (invented).
 const HINGE3: Process = Process {
     name: "hinge3",
     formula: "3*abs(x1 - 0.4) + 2*max(x2 + x3 - 1, 0)",
     p: 3,
+    sd: "1",
 };
 
 /// The research prototype's processes (`/work/scratch/twin-lab`, REPORT.md §4), used only to
@@ -70,16 +75,19 @@ const LAB: [Process; 3] = [
         name: "lab-smooth3",
         formula: "2*sin(2*pi*x1) + 2*x2^2 + x2*x3",
         p: 3,
+        sd: "1",
     },
     Process {
         name: "lab-step3",
         formula: "2.5*(x1 > 0.45) + 2*x2*x3 + sin(pi*x3)",
         p: 3,
+        sd: "1",
     },
     Process {
         name: "lab-kink3",
         formula: "3*abs(x1 + x2 - 1) + x3",
         p: 3,
+        sd: "1",
     },
 ];
 
@@ -90,16 +98,19 @@ const LOW: [Process; 3] = [
         name: "wave1",
         formula: "1.5*sin(2*pi*x1) + x1",
         p: 1,
+        sd: "1",
     },
     Process {
         name: "step1",
         formula: "1.5*(x1 > 0.6) + x1",
         p: 1,
+        sd: "1",
     },
     Process {
         name: "dome2",
         formula: "2*exp(-4*((x1 - 0.5)^2 + (x2 - 0.4)^2)) + sin(3*x2)",
         p: 2,
+        sd: "1",
     },
 ];
 
@@ -112,16 +123,19 @@ const WIDE: [Process; 3] = [
         name: "friedman1",
         formula: "10*sin(pi*x1*x2) + 20*(x3 - 0.5)^2 + 10*x4 + 5*x5",
         p: 10,
+        sd: "1",
     },
     Process {
         name: "ripple6",
         formula: "2*sin(2*pi*x1) + 1.5*x2*x3 + (x4 - 0.5)^2*4 + 0.5*x5 - x6",
         p: 6,
+        sd: "1",
     },
     Process {
         name: "terrace6",
         formula: "2*(x1 + x2 > 1) + sin(pi*x3) + x4*x5 + 0.3*x6",
         p: 6,
+        sd: "1",
     },
 ];
 
@@ -167,7 +181,13 @@ fn resampled_shape(var: &str) -> bool {
 /// degrees of freedom scaled to the same variance (kurtosis 9: heavy tails).
 fn draw_table(proc: Process, n: usize, sd: f64, seed: u64) -> (Array2<f64>, Array1<f64>) {
     let heavy = std::env::var("LOSSPRISM_NOISE_TAILS").as_deref() == Ok("t5");
-    draw_rows(proc.formula, &format!("{sd:?}"), proc.p, n, heavy, seed)
+    let sd = if proc.sd == "1" {
+        format!("{sd:?}")
+    } else {
+        assert_eq!(sd, 1.0, "{}: its sd is its own formula", proc.name);
+        proc.sd.to_string()
+    };
+    draw_rows(proc.formula, &sd, proc.p, n, heavy, seed)
 }
 
 /// `n` rows of `p` inputs uniform on the unit cube and responses `formula + sd · e`, with `sd`
@@ -241,6 +261,8 @@ struct Curve {
     se: Vec<f64>,
     /// bias² per grid value.
     b2: Vec<f64>,
+    /// The noise term (the mean of σ²(x) over the evaluation points).
+    noise: f64,
     pick: f64,
     one_se: Vec<f64>,
     /// The one-SE set at a user's precision (truth curves only; see [`user_set`]).
@@ -307,6 +329,7 @@ fn curves(plan: &Plan) -> Vec<Curve> {
                     .map(|r| r.se("expected_loss").unwrap_or(f64::NAN))
                     .collect(),
                 b2: rows.iter().map(|r| r.get("bias_sq")).collect(),
+                noise: rows[0].get("noise"),
                 pick: best.value,
                 one_se: best.within_one_se,
                 one_se_user: Vec::new(),
@@ -336,8 +359,13 @@ fn truth(dir: &Path, proc: Process, n: usize, r: usize, m: usize, seed: u64) -> 
             "[[data.inputs]]\nname = \"{nm}\"\nuniform = [0.0, 1.0]\n"
         ));
     }
+    let noise = if proc.sd == "1" {
+        "sd = 1.0".to_string()
+    } else {
+        format!("sd_formula = \"{}\"", proc.sd)
+    };
     s.push_str(&format!(
-        "[data.truth]\nformula = \"{}\"\n[data.noise]\nsd = 1.0\n",
+        "[data.truth]\nformula = \"{}\"\n[data.noise]\n{noise}\n",
         proc.formula
     ));
     if std::env::var("LOSSPRISM_NOISE_TAILS").as_deref() == Ok("t5") {
@@ -404,7 +432,7 @@ fn judge_noise(truth: &Curve, el: &[f64], pick: f64, s2: f64, drawn: f64) -> Cas
             .sum::<f64>()
             / el.len() as f64
     };
-    c.mare_known = with(1.0);
+    c.mare_known = with(truth.noise);
     c.mare_drawn = with(drawn);
     c
 }
@@ -494,6 +522,8 @@ fn study_table(
             Ok("off") => dgp_twin::Twicing::Off,
             _ => dgp_twin::Twicing::Auto,
         },
+        // `LOSSPRISM_CALIB_VARYING=on` writes varying noise (`twin --varying`).
+        varying: std::env::var("LOSSPRISM_CALIB_VARYING").as_deref() == Ok("on"),
         // `LOSSPRISM_CALIB_SHAPE=residuals` resamples the residuals (`twin --noise-shape`).
         noise_shape: if resampled_shape("LOSSPRISM_CALIB_SHAPE") {
             lossprism::scenario::plan::ShapeChoice::Residuals
@@ -548,7 +578,7 @@ fn study_table(
             tc,
             &twin_curves[i].el,
             twin_curves[i].pick,
-            sigma2_new,
+            twin_curves[i].noise,
             sigma2_drawn,
         ));
         res.before.push(judge_noise(
@@ -579,7 +609,7 @@ fn study_table(
             tc,
             &twin_curves[i].el,
             hp,
-            sigma2_new,
+            twin_curves[i].noise,
             sigma2_drawn,
         ));
         res.guarded.push(judge(tc, &cl, gp));
@@ -658,10 +688,11 @@ fn calibration_study() {
     let dir = tempfile::tempdir().unwrap();
     let mut all: Vec<(Process, Vec<TableResult>)> = Vec::new();
     let procs = match std::env::var("LOSSPRISM_CALIB_PROCS").as_deref() {
-        Ok("lab") => LAB,
-        Ok("low") => LOW,
-        Ok("wide") => WIDE,
-        _ => [SWELL3, LEDGE3, HINGE3],
+        Ok("lab") => LAB.to_vec(),
+        Ok("low") => LOW.to_vec(),
+        Ok("wide") => WIDE.to_vec(),
+        Ok("het") => HET.to_vec(),
+        _ => vec![SWELL3, LEDGE3, HINGE3],
     };
     for (pi, proc) in procs.into_iter().enumerate() {
         let t0 = std::time::Instant::now();
@@ -724,10 +755,10 @@ fn calibration_study() {
                             .join(" ")
                     };
                     let tv: Vec<f64> = (0..tc[i].el.len())
-                        .map(|g| tc[i].el[g] - 1.0 - tc[i].b2[g])
+                        .map(|g| tc[i].el[g] - tc[i].noise - tc[i].b2[g])
                         .collect();
                     let wv: Vec<f64> = (0..r.twin[i].el.len())
-                        .map(|g| r.twin[i].el[g] - r.sigma2_new - r.twin[i].b2[g])
+                        .map(|g| r.twin[i].el[g] - r.twin[i].noise - r.twin[i].b2[g])
                         .collect();
                     println!(
                         "    {fam} b2 true [{}] twin [{}]",
@@ -965,21 +996,25 @@ const SMOOTH1: Process = Process {
     name: "smooth1",
     formula: "2*sin(2*pi*x1) + x1",
     p: 1,
+    sd: "1",
 };
 const KINK1: Process = Process {
     name: "kink1",
     formula: "4*abs(x1 - 0.35)",
     p: 1,
+    sd: "1",
 };
 const SMOOTH2: Process = Process {
     name: "smooth2",
     formula: "2*sin(2*pi*x1) + 2*x2^2",
     p: 2,
+    sd: "1",
 };
 const STEP2: Process = Process {
     name: "step2",
     formula: "2*(x1 + x2 > 1) + x1*x2",
     p: 2,
+    sd: "1",
 };
 
 /// The processes of the noise studies: 1–3 inputs, or with `LOSSPRISM_NOISE_PROCS=wide` the 6-
@@ -1641,49 +1676,34 @@ fn pair_intercept(nn: &[Vec<(usize, f64)>], v: &[f64]) -> f64 {
     my - slope * mx
 }
 
-/// An invented process with noise whose sd varies with the inputs (`sd`, a formula over the
-/// same inputs; uniform inputs on the unit cube).
-#[derive(Clone, Copy)]
-struct HetProcess {
-    name: &'static str,
-    formula: &'static str,
-    sd: &'static str,
-    p: usize,
-}
-
 /// The invented processes of the varying-noise study: three heteroscedastic ones in 1, 2 and 3
 /// inputs, and a constant-noise control (σ = 1).
-const HET: [HetProcess; 4] = [
-    HetProcess {
+const HET: [Process; 4] = [
+    Process {
         name: "fan1",
         formula: "1.5*sin(2*pi*x1) + x1",
         sd: "0.3 + 1.2*x1",
         p: 1,
     },
-    HetProcess {
+    Process {
         name: "bump2",
         formula: "2*exp(-4*((x1 - 0.5)^2 + (x2 - 0.4)^2)) + sin(3*x2)",
         sd: "0.4 + 1.2*exp(-8*((x1 - 0.5)^2 + (x2 - 0.5)^2))",
         p: 2,
     },
-    HetProcess {
+    Process {
         name: "fan3",
         formula: "1.8*sin(2*pi*x1)*cos(pi*x2) + 2*x3^2 + x2",
         sd: "0.4 + 1.2*x2*x3",
         p: 3,
     },
-    HetProcess {
+    Process {
         name: "flat3",
         formula: "3*abs(x1 - 0.4) + 2*max(x2 + x3 - 1, 0)",
         sd: "1",
         p: 3,
     },
 ];
-
-/// A table of `proc` (inputs, responses).
-fn draw_het(proc: HetProcess, n: usize, seed: u64) -> (Array2<f64>, Array1<f64>) {
-    draw_rows(proc.formula, proc.sd, proc.p, n, false, seed)
-}
 
 /// Varying noise (`twin --varying`) against the truth, per table: the level (σ²(x) averaged
 /// over fresh inputs) and the shape (mean |σ̂(x) − σ(x)| / σ(x)), for σ²(x) as it was before
@@ -1693,6 +1713,10 @@ fn draw_het(proc: HetProcess, n: usize, seed: u64) -> (Array2<f64>, Array1<f64>)
 /// σ²(x).
 #[derive(Debug, Clone, Copy)]
 struct VaryingCase {
+    /// `twin`'s non-Gaussian verdict on the raw residuals, and on the residuals divided by
+    /// σ̂(x).
+    alarm_raw: bool,
+    alarm_std: bool,
     truth_level: f64,
     old_level: f64,
     new_level: f64,
@@ -1705,8 +1729,8 @@ struct VaryingCase {
     k: usize,
 }
 
-fn varying_case(proc: HetProcess, n: usize, seed: u64, fresh: &Array2<f64>) -> VaryingCase {
-    let (x, y) = draw_het(proc, n, seed);
+fn varying_case(proc: Process, n: usize, seed: u64, fresh: &Array2<f64>) -> VaryingCase {
+    let (x, y) = draw_table(proc, n, 1.0, seed);
     let fit = dgp_twin::fit_regression(
         x.view(),
         &y.to_vec(),
@@ -1757,7 +1781,20 @@ fn varying_case(proc: HetProcess, n: usize, seed: u64, fresh: &Array2<f64>) -> V
     r.set_varying(x.view(), Some(smooth_k), Some(level))
         .expect("scales");
     let new = at(&r);
+    // The residuals' shape verdict (`twin`'s line), raw and divided by σ̂(x) at their row.
+    let z: Vec<f64> = (0..n)
+        .map(|i| {
+            let row = x.row(i).to_vec();
+            (y[i] - fit.f_rows[i]) / r.var_at(&row).unwrap().max(1e-300).sqrt()
+        })
+        .collect();
+    let zeros = vec![0.0; n];
+    let alarm_raw =
+        dgp_twin::ResidualShape::of(&y.to_vec(), &fit.f_rows).is_some_and(|s| s.non_gaussian());
+    let alarm_std = dgp_twin::ResidualShape::of(&z, &zeros).is_some_and(|s| s.non_gaussian());
     VaryingCase {
+        alarm_raw,
+        alarm_std,
         truth_level: mean(&true_sd.iter().map(|t| t * t).collect::<Vec<_>>()),
         old_level: mean(&old),
         new_level: mean(&new),
@@ -1803,6 +1840,13 @@ fn varying_noise_study() {
             .filter(|c| (c.new_level - c.truth_level).abs() <= 2.0 * c.level_se)
             .count();
         let spread = sd(&cases.iter().map(|c| c.corrected).collect::<Vec<_>>());
+        println!(
+            "  non-Gaussian verdict (the noise is Gaussian: false alarms): raw residuals {}/{}, divided by σ̂(x) {}/{}",
+            cases.iter().filter(|c| c.alarm_raw).count(),
+            cases.len(),
+            cases.iter().filter(|c| c.alarm_std).count(),
+            cases.len()
+        );
         let mut ks: Vec<usize> = cases.iter().map(|c| c.smooth_k).collect();
         ks.sort_unstable();
         println!(

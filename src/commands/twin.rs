@@ -560,21 +560,39 @@ fn inputs_line(t: &Table, jitter: Option<&Jitter>, eval_size: usize) -> String {
 }
 
 /// The residuals' shape under the reference (skewness and excess kurtosis beside their
-/// Gaussian standard errors), and whether `--noise-shape residuals` would simulate it better;
-/// `None` with varying noise (heteroscedastic residuals have heavy tails of their own) or too
-/// few rows.
-fn shape_line(o: &TwinOptions, y: &[f64], fit: &RegressionFit) -> Option<String> {
-    if o.varying {
-        return None;
-    }
-    let s = twin::ResidualShape::of(y, &fit.f_rows)?;
+/// Gaussian standard errors), and whether `--noise-shape residuals` would simulate it better.
+/// With varying noise each residual is first divided by σ̂(x) at its row (`sd_rows`): noise
+/// whose variance varies has heavy tails of its own, which the raw residuals would report
+/// (measured: docs/twin-calibration.md §2.10). `None` with too few rows, or with varying noise
+/// and no σ̂(x).
+fn shape_line(
+    o: &TwinOptions,
+    y: &[f64],
+    fit: &RegressionFit,
+    sd_rows: Option<&[f64]>,
+) -> Option<String> {
+    let s = match (o.varying, sd_rows) {
+        (false, _) => twin::ResidualShape::of(y, &fit.f_rows)?,
+        (true, Some(sd)) if sd.len() == y.len() && sd.iter().all(|v| *v > 0.0) => {
+            let z: Vec<f64> = (0..y.len())
+                .map(|i| (y[i] - fit.f_rows[i]) / sd[i])
+                .collect();
+            twin::ResidualShape::of(&z, &vec![0.0; z.len()])?
+        }
+        (true, _) => return None,
+    };
     let verdict = match (s.non_gaussian(), o.noise_shape) {
         (true, ShapeChoice::Residuals) => "beyond a Gaussian's, and the twin resamples them",
         (true, _) => "beyond a Gaussian's: `--noise-shape residuals` simulates the residuals' own law instead (it matters for trees and ensembles, not for linear smoothers such as k-NN; docs/twin-calibration.md §2.8)",
         (false, _) => "within a Gaussian's",
     };
     Some(format!(
-        "Residual shape under the reference: skewness {} (a Gaussian's: 0 ± {}), excess kurtosis {} (0 ± {}); {} ({} SE).",
+        "Residual shape under the reference{}: skewness {} (a Gaussian's: 0 ± {}), excess kurtosis {} (0 ± {}); {} ({} SE).",
+        if o.varying {
+            ", each residual divided by σ̂(x) at its row"
+        } else {
+            ""
+        },
         fmt_num(s.skewness),
         fmt_se(s.skewness_se()),
         fmt_num(s.excess_kurtosis),
@@ -757,12 +775,18 @@ fn varying_line(noise: &TwinNoise) -> Option<String> {
 /// The noise a twin of table `t` under `fit` writes: the constant sd of the corrected noise
 /// estimate, or with `--varying` σ²(x) whose smoother is chosen by leave-one-out
 /// cross-validation on the squared residuals and whose level is the corrected noise estimate
-/// (see [`Reference::set_varying`]).
-fn twin_noise(o: &TwinOptions, t: &Table, fit: &RegressionFit) -> Result<TwinNoise, String> {
+/// (see [`Reference::set_varying`]); with `--varying`, also σ̂(x) at the table's rows up to
+/// that level (what [`shape_line`] divides the residuals by).
+fn twin_noise(
+    o: &TwinOptions,
+    t: &Table,
+    fit: &RegressionFit,
+) -> Result<(TwinNoise, Option<Vec<f64>>), String> {
     let level = fit.noise.map(|n| n.value);
     if !o.varying {
-        return Ok(TwinNoise::Constant(
-            level.map_or(0.0, |v| v.max(0.0).sqrt()),
+        return Ok((
+            TwinNoise::Constant(level.map_or(0.0, |v| v.max(0.0).sqrt())),
+            None,
         ));
     }
     let mut r = Reference::fit(
@@ -775,17 +799,16 @@ fn twin_noise(o: &TwinOptions, t: &Table, fit: &RegressionFit) -> Result<TwinNoi
     )?;
     let smooth_k = r.choose_smooth_k(t.x.view());
     r.set_varying(t.x.view(), smooth_k, None)?;
-    Ok(TwinNoise::Varying {
-        smooth_k,
-        level: level.and_then(|v| twin::varying_level(&r, t.x.view(), v, &fit.noise_weights)),
-    })
+    let level = level.and_then(|v| twin::varying_level(&r, t.x.view(), v, &fit.noise_weights));
+    let sd_rows = r.sd_at_rows(t.x.view()).to_vec();
+    Ok((TwinNoise::Varying { smooth_k, level }, Some(sd_rows)))
 }
 
 /// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
 /// twin): the same pipeline as the first twin.
 fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
     let fit = fit_table(o, t, "a table drawn from the twin").map_err(Error::Usage)?;
-    let noise = twin_noise(o, t, &fit).map_err(Error::Usage)?;
+    let (noise, _) = twin_noise(o, t, &fit).map_err(Error::Usage)?;
     let spec = TwinSpec {
         choice: fit.selection.choice.clone(),
         jitter: o.jitter,
@@ -1211,7 +1234,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             }
             let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));
             let yv = t.y.to_vec();
-            let noise = twin_noise(o, &t, &fit)
+            let (noise, sd_rows) = twin_noise(o, &t, &fit)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             let eval_size = if o.jitter > 0.0 {
                 o.eval_size
@@ -1231,7 +1254,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 if let Some(l) = varying_line(&r.noise) {
                     comments.push(l);
                 }
-                comments.extend(shape_line(o, &yv, r.fit));
+                comments.extend(shape_line(o, &yv, r.fit, sd_rows.as_deref()));
                 if o.noise_shape == ShapeChoice::Residuals {
                     comments.push(RESIDUALS_NOTE.into());
                 }
@@ -1291,7 +1314,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 out.push_str(&l);
                 out.push('\n');
             }
-            if let Some(l) = shape_line(o, &yv, &fit) {
+            if let Some(l) = shape_line(o, &yv, &fit, sd_rows.as_deref()) {
                 out.push_str(&l);
                 out.push('\n');
             }

@@ -313,7 +313,7 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
     }
     if let Some(n) = &t.noise {
         out.push(format!(
-            "Its noise σ² = {} ± {} (with varying noise, the level σ²(x) is scaled to) was estimated from the table ({} estimator{}{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
+            "Its noise σ² = {} ± {} (with varying noise, σ²(x) is scaled so that the estimator would read this value) was estimated from the table ({} estimator{}{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
             fmt_num(n.value),
             fmt_se(n.stderr),
             n.method,
