@@ -751,7 +751,10 @@ fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, 
         o.reference,
         o.noise_estimator,
         if o.varying { Twicing::Off } else { o.twicing },
-        o.noise_shape == ShapeChoice::Residuals,
+        twin::NoiseFit {
+            resample: o.noise_shape == ShapeChoice::Residuals,
+            all_rows: o.varying,
+        },
         source,
     )
 }
@@ -768,7 +771,7 @@ fn varying_line(noise: &TwinNoise) -> Option<String> {
     };
     Some(match level {
         Some(l) => format!("Noise written as varying: σ²(x) ∝ {shape}, scaled to a mean of {} over the rows, so that the noise estimate, which weighs the rows unevenly (it leaves some out and meets others more often as neighbours), would read the corrected σ̂² (the shape from the local residuals, the level from the corrected estimate).", fmt_num(*l)),
-        None => format!("Noise written as varying: σ²(x) = {shape} (no corrected estimate to set its level)."),
+        None => format!("Noise written as varying: σ²(x) = {shape}, unscaled (no level could be set: the noise estimate did not run, or the smoothed squared residuals carry no weight at the rows the estimator uses)."),
     })
 }
 

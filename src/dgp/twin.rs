@@ -656,15 +656,37 @@ pub fn fit_regression(
     twicing: Twicing,
     source: &str,
 ) -> Result<RegressionFit, String> {
-    fit_regression_shaped(x, y, seed, rule, method, twicing, false, source)
+    fit_regression_shaped(
+        x,
+        y,
+        seed,
+        rule,
+        method,
+        twicing,
+        NoiseFit::default(),
+        source,
+    )
 }
 
-/// [`fit_regression`] for a twin whose noise is resampled from its residuals (`resample`):
-/// the noise's bootstrap tables then draw their noise from the standardized residuals of the
-/// fit made once ([`crate::dgp::standardized_residuals`]) instead of a Gaussian, so that its
-/// spread sees the table's noise shape (heavy tails; measured in
-/// `docs/twin-calibration.md` §2.8). Errors as [`fit_regression`] does, and when the residuals
-/// have no spread.
+/// How [`fit_regression_shaped`] measures the noise.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq)]
+pub struct NoiseFit {
+    /// The noise's bootstrap tables draw from the standardized residuals (a twin whose noise is
+    /// `shape = "residuals"`).
+    pub resample: bool,
+    /// Every row is a query row of the estimator: none of the rows where the reference changes
+    /// most is left out ([`noise_design`]). For varying noise, whose largest values often sit
+    /// exactly there (the reference follows noise where there is most of it), so that leaving
+    /// them out would hide them (measured: docs/twin-calibration.md §2.10).
+    pub all_rows: bool,
+}
+
+/// [`fit_regression`] with the noise measured as `how` says. For a twin whose noise is
+/// resampled from its residuals (`how.resample`) the noise's bootstrap tables draw their noise
+/// from the standardized residuals of the fit made once ([`crate::dgp::standardized_residuals`])
+/// instead of a Gaussian, so that its spread sees the table's noise shape (heavy tails; measured
+/// in `docs/twin-calibration.md` §2.8); for varying noise (`how.all_rows`) no row is left out
+/// of the estimator. Errors as [`fit_regression`] does, and when the residuals have no spread.
 #[allow(clippy::too_many_arguments)]
 pub fn fit_regression_shaped(
     x: ArrayView2<'_, f64>,
@@ -673,7 +695,7 @@ pub fn fit_regression_shaped(
     rule: Rule,
     method: Option<Method>,
     twicing: Twicing,
-    resample: bool,
+    how: NoiseFit,
     source: &str,
 ) -> Result<RegressionFit, String> {
     if y.len() < select::FOLDS + 1 {
@@ -694,7 +716,7 @@ pub fn fit_regression_shaped(
     // The estimator measures distance as the reference does: with the input weights the
     // choice kept, inputs the response barely depends on no longer spread the neighbours
     // (measured: docs/twin-calibration.md §0.2).
-    let pool = if resample {
+    let pool = if how.resample {
         Some(crate::dgp::standardized_residuals(
             y,
             &once_rows,
@@ -704,7 +726,11 @@ pub fn fit_regression_shaped(
         None
     };
     let metric = selection.choice.metric.as_deref();
-    let design = noise_design(method, x, metric, &once_rows);
+    let design = if how.all_rows {
+        noise::Design::weighted(method, x, metric)
+    } else {
+        noise_design(method, x, metric, &once_rows)
+    };
     // GSJS orders one input and ignores weights.
     let weighted = metric.is_some() && method != Method::Gsjs;
     let noise = design.as_ref().and_then(|d| {
