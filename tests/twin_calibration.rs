@@ -1723,6 +1723,8 @@ const HET: [Process; 5] = [
 /// σ²(x).
 #[derive(Debug, Clone, Copy)]
 struct VaryingCase {
+    /// The spread test's z (`Reference::spread_test` at the chosen smoother).
+    spread_z: f64,
     /// No level could be set (the weighted smoothed residuals are not positive).
     no_level: bool,
     /// `twin`'s non-Gaussian verdict on the raw residuals, and on the residuals divided by
@@ -1788,6 +1790,7 @@ fn varying_case(proc: Process, n: usize, seed: u64, fresh: &Array2<f64>) -> Vary
     };
     let old = at(&r);
     let smooth_k = r.choose_smooth_k(x.view()).expect("a smoother");
+    let spread_z = r.spread_test(x.view(), smooth_k).map_or(f64::NAN, |g| g.1);
     r.set_varying(x.view(), Some(smooth_k), None)
         .expect("smooths");
     let level = match std::env::var("LOSSPRISM_VARYING_LEVEL").as_deref() {
@@ -1819,6 +1822,7 @@ fn varying_case(proc: Process, n: usize, seed: u64, fresh: &Array2<f64>) -> Vary
         dgp_twin::ResidualShape::of(&y.to_vec(), &fit.f_rows).is_some_and(|s| s.non_gaussian());
     let alarm_std = dgp_twin::ResidualShape::of(&z, &zeros).is_some_and(|s| s.non_gaussian());
     VaryingCase {
+        spread_z,
         no_level,
         alarm_raw,
         alarm_std,
@@ -1867,6 +1871,12 @@ fn varying_noise_study() {
             .filter(|c| (c.new_level - c.truth_level).abs() <= 2.0 * c.level_se)
             .count();
         let spread = sd(&cases.iter().map(|c| c.corrected).collect::<Vec<_>>());
+        println!(
+            "  spread test z > {}: {}/{}",
+            SPREAD_Z,
+            cases.iter().filter(|c| c.spread_z > SPREAD_Z).count(),
+            cases.len()
+        );
         println!(
             "  no level set: {}/{}",
             cases.iter().filter(|c| c.no_level).count(),
@@ -1940,4 +1950,47 @@ fn varying_noise_level_is_close_on_a_known_process() {
         covered >= floor,
         "coverage {covered} of {tables}, floor {floor}"
     );
+}
+
+/// `twin`'s threshold for suggesting `--varying` (the spread test's z).
+const SPREAD_Z: f64 = dgp_twin::SPREAD_Z;
+
+#[test]
+#[ignore = "calibration study, about a minute; results in docs/twin-calibration.md §2.10"]
+fn spread_test_study() {
+    // False alarms of the spread test on the constant-noise processes of the noise study
+    // (n = 300, σ = 1): how often `twin` would suggest `--varying` on a table whose noise does
+    // not vary.
+    let tables = env_usize("LOSSPRISM_NOISE_TABLES", 30);
+    for proc in noise_procs() {
+        let mut alarms = 0;
+        let mut zs = Vec::new();
+        for t in 0..tables {
+            let (x, y) = draw_table(proc, 300, 1.0, 7000 + 101 * t as u64);
+            let fit = dgp_twin::fit_regression(
+                x.view(),
+                &y.to_vec(),
+                7000 + t as u64,
+                Rule::Best,
+                None,
+                dgp_twin::Twicing::Off,
+                "t",
+            )
+            .expect("fits");
+            let r =
+                reference::Reference::fit(x.view(), y.view(), 0, &fit.selection.choice, true, "t")
+                    .expect("varying reference");
+            let k = r.choose_smooth_k(x.view()).expect("a smoother");
+            let z = r.spread_test(x.view(), k).map_or(f64::NAN, |g| g.1);
+            alarms += usize::from(z > SPREAD_Z);
+            zs.push(z);
+        }
+        zs.sort_by(f64::total_cmp);
+        println!(
+            "{}: spread test z > {SPREAD_Z} on {alarms}/{tables} tables (median z {:.2}, largest {:.2})",
+            proc.name,
+            zs[zs.len() / 2],
+            zs[zs.len() - 1]
+        );
+    }
 }

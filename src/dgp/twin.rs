@@ -565,6 +565,12 @@ impl ResidualShape {
     }
 }
 
+/// The spread test's z ([`Reference::spread_test`]) beyond which `twin` says the noise's
+/// variance changes with x and suggests `--varying`: a rule of thumb (no source), set at 4 so
+/// that tables whose noise is constant rarely trip it (measured: docs/twin-calibration.md
+/// §2.10).
+pub const SPREAD_Z: f64 = 4.0;
+
 /// Share of the table's rows the Gamma test leaves out as query rows: those where the
 /// reference fitted once changes most between neighbours ([`noise::Design::trimmed`]). A rule of
 /// thumb with no source, set on the invented processes of `docs/twin-calibration.md` §2.6: with

@@ -664,6 +664,44 @@ impl Reference {
         s.iter().take(k).sum::<f64>() / k as f64
     }
 
+    /// Varying noise: whether each row's corrected squared leave-one-out residual rises with the
+    /// average of its `k` nearest other rows' (noise whose variance changes with x makes them
+    /// rise together): `(rho, z)`, Spearman's rank correlation of the two over the rows and
+    /// `z = rho·√(n − 1)`, the scale of Spearman's rho under independence (its large-sample null
+    /// law, from memory). Rows are not independent here (neighbours' leave-one-out residuals
+    /// share responses), and on constant noise the median z measured −3.9 to +1.0 (one input
+    /// to a step; docs/twin-calibration.md §2.10), so the threshold is set on measurements,
+    /// not on the normal law. A test in the
+    /// spirit of regressing squared residuals on the inputs (Breusch and Pagan 1979, from
+    /// memory) with a k-NN smoother in place of their linear regression and ranks in place of
+    /// values, since squared residuals have heavy tails. `None` without varying noise or with
+    /// fewer than `k + 2` rows.
+    pub fn spread_test(&self, x: ArrayView2<'_, f64>, k: usize) -> Option<(f64, f64)> {
+        let sq = self.sq_resid.as_ref()?;
+        let p = self.knn.as_ref()?;
+        let n = sq.len();
+        if k == 0 || n < k + 2 {
+            return None;
+        }
+        let mut scratch = Scratch::default();
+        let mut buf = Vec::with_capacity(k);
+        let mut row = vec![0.0; x.ncols()];
+        let local: Vec<f64> = x
+            .rows()
+            .into_iter()
+            .enumerate()
+            .map(|(i, r)| {
+                row.iter_mut().zip(r.iter()).for_each(|(b, v)| *b = *v);
+                p.index
+                    .nearest_excluding(&row, k, |j| j == i, &mut scratch, &mut buf);
+                buf.iter().map(|&j| sq[j]).sum::<f64>() / buf.len().max(1) as f64
+            })
+            .collect();
+        let rho = pearson(&ranks(sq), &ranks(&local));
+        let z = rho * ((n - 1) as f64).sqrt();
+        (rho.is_finite() && z.is_finite()).then_some((rho, z))
+    }
+
     /// Varying noise: the number of neighbours, among [`SMOOTH_K_CANDIDATES`] below the row
     /// count, whose average of the other rows' corrected squared leave-one-out residuals best
     /// predicts each row's own (leave-one-out cross-validation of the variance smoother, squared
@@ -783,6 +821,39 @@ impl Reference {
             )
         }
     }
+}
+
+/// Ranks 1..n of `v` (ties share their mean rank).
+fn ranks(v: &[f64]) -> Vec<f64> {
+    let mut order: Vec<usize> = (0..v.len()).collect();
+    order.sort_by(|&a, &b| v[a].total_cmp(&v[b]).then(a.cmp(&b)));
+    let mut r = vec![0.0; v.len()];
+    let mut i = 0;
+    while i < order.len() {
+        let mut j = i;
+        while j + 1 < order.len() && v[order[j + 1]] == v[order[i]] {
+            j += 1;
+        }
+        let mean_rank = (i + j) as f64 / 2.0 + 1.0;
+        for &o in &order[i..=j] {
+            r[o] = mean_rank;
+        }
+        i = j + 1;
+    }
+    r
+}
+
+/// Pearson's correlation of `a` and `b` (NaN when either is constant).
+fn pearson(a: &[f64], b: &[f64]) -> f64 {
+    let n = a.len() as f64;
+    let (ma, mb) = (a.iter().sum::<f64>() / n, b.iter().sum::<f64>() / n);
+    let (mut sab, mut saa, mut sbb) = (0.0, 0.0, 0.0);
+    for (x, y) in a.iter().zip(b) {
+        sab += (x - ma) * (y - mb);
+        saa += (x - ma) * (x - ma);
+        sbb += (y - mb) * (y - mb);
+    }
+    sab / (saa * sbb).sqrt()
 }
 
 /// The result of fitting a twin on a table.
@@ -959,6 +1030,32 @@ mod tests {
             }
         }
         s
+    }
+
+    #[test]
+    fn ranks_share_ties_and_the_spread_test_sees_a_fan() {
+        assert_eq!(ranks(&[3.0, 1.0, 3.0, 2.0]), vec![3.5, 1.0, 3.5, 2.0]);
+        assert!((pearson(&[1.0, 2.0, 3.0], &[2.0, 4.0, 6.0]) - 1.0).abs() < 1e-15);
+        assert!((pearson(&[1.0, 2.0, 3.0], &[3.0, 2.0, 1.0]) + 1.0).abs() < 1e-15);
+        // 1-D rows, a constant truth; noise sd 1 everywhere, or rising from 0.1 to 2.1. The
+        // fan's z is far above the threshold the twin uses (4), the constant's is not.
+        let n = 300;
+        let x = Array2::from_shape_fn((n, 1), |(i, _)| (i as f64 * 0.7548776662).fract());
+        let e: Vec<f64> = {
+            use rand::SeedableRng;
+            use rand_distr::{Distribution, StandardNormal};
+            let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+            (0..n).map(|_| StandardNormal.sample(&mut rng)).collect()
+        };
+        let z_of = |sd: &dyn Fn(f64) -> f64| {
+            let y = Array1::from_shape_fn(n, |i| sd(x[[i, 0]]) * e[i]);
+            let r =
+                Reference::fit(x.view(), y.view(), 0, &Choice::knn(20, false), true, "t").unwrap();
+            r.spread_test(x.view(), 50).unwrap().1
+        };
+        let flat = z_of(&|_| 1.0);
+        let fan = z_of(&|u| 0.1 + 2.0 * u);
+        assert!(flat < 4.0 && fan > 8.0, "flat {flat}, fan {fan}");
     }
 
     #[test]
