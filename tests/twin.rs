@@ -809,3 +809,48 @@ fn twin_with_resampled_residuals_keeps_a_skewed_noise() {
         doc.scenario.noise
     );
 }
+
+#[test]
+fn the_noise_spread_line_tells_a_fan_from_constant_noise() {
+    // Two invented 1-input tables of 300 rows, the same truth: noise sd 1 everywhere, and noise
+    // whose sd rises from 0.1 to 3.1 across the input (a fan). `twin` must call the fan varying
+    // and suggest `--varying`, say so in the scenario's comments, and then explain the heavy
+    // residual tails by it; on constant noise it must find no sign (docs/twin-calibration.md
+    // §2.10: 0 of 270 constant-noise tables and 192 of 240 varying ones called varying).
+    let run = |fan: bool| -> (String, String) {
+        let dir = tempfile::tempdir().unwrap();
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(41);
+        let mut s = String::from("x,y\n");
+        for _ in 0..300 {
+            let x: f64 = rng.gen();
+            let z: f64 = StandardNormal.sample(&mut rng);
+            let sd = if fan { 0.1 + 3.0 * x } else { 1.0 };
+            s.push_str(&format!("{x},{}\n", (3.0 * x).sin() + sd * z));
+        }
+        fs::write(dir.path().join("t.csv"), s).unwrap();
+        let o = opts(dir.path(), false, "y");
+        let msg = twin::command(&o).expect("twin");
+        (msg, fs::read_to_string(&o.out).unwrap())
+    };
+    let (fan_msg, fan_text) = run(true);
+    let line = |m: &str| {
+        m.lines()
+            .find(|l| l.contains("Noise spread:"))
+            .unwrap_or_else(|| panic!("no spread line in {m}"))
+            .to_string()
+    };
+    assert!(
+        line(&fan_msg).contains("seems to change with x: `--varying` simulates that"),
+        "{fan_msg}"
+    );
+    assert!(fan_text.contains("# Noise spread:"), "{fan_text}");
+    assert!(
+        fan_msg.contains("as noise whose variance changes with x makes them"),
+        "{fan_msg}"
+    );
+    let (flat_msg, _) = run(false);
+    assert!(
+        line(&flat_msg).contains("no sign that the noise's variance changes with x"),
+        "{flat_msg}"
+    );
+}
