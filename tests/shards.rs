@@ -78,6 +78,23 @@ fn packing_line(dir: &Path) -> &'static str {
     "packing.toml"
 }
 
+/// Runs `args` (a `run` command writing `out`) with `--checkpoint ck.json`, stops it after 5
+/// blocks (exit 3), runs it again to resume from the checkpoint, and returns `out`'s text.
+fn stop_and_resume(dir: &Path, args: &[&str], out: &str) -> String {
+    let _ = fs::remove_file(dir.join("ck.json"));
+    let mut base = args.to_vec();
+    base.extend_from_slice(&["--checkpoint", "ck.json"]);
+    let mut stop = base.clone();
+    stop.extend_from_slice(&["--stop-after-blocks", "5"]);
+    assert_eq!(
+        lossprism(dir, &stop).status.code(),
+        Some(3),
+        "{args:?}: stop"
+    );
+    ok(dir, &base);
+    read(dir, out)
+}
+
 /// Runs every shard of an `n`-way split (extra args appended) and merges them; returns the
 /// merged JSON text.
 fn shard_and_merge(dir: &Path, scenario: &str, extra: &[&str], n: u64) -> String {
@@ -201,22 +218,19 @@ fn percentile_intervals_are_identical_across_threads_shards_merge_and_resume() {
             "-q",
         ],
     );
-    let base = [
-        "run",
-        s,
-        "--replicates",
-        "28",
-        "--checkpoint",
-        "ck.json",
-        "--out",
+    let resumed = stop_and_resume(
+        d,
+        &[
+            "run",
+            s,
+            "--replicates",
+            "28",
+            "--out",
+            "resumed.json",
+            "-q",
+        ],
         "resumed.json",
-        "-q",
-    ];
-    let mut stop = base.to_vec();
-    stop.extend_from_slice(&["--stop-after-blocks", "5"]);
-    assert_eq!(lossprism(d, &stop).status.code(), Some(3));
-    ok(d, &base);
-    let resumed = read(d, "resumed.json");
+    );
 
     let intervals = |text: &str| -> Vec<Value> {
         let v: Value = serde_json::from_str(text).unwrap();
@@ -605,20 +619,8 @@ fn shards_and_checkpoints_carry_the_selection_audit() {
     let v: Value = serde_json::from_str(&full).unwrap();
     assert!(v.get("selection").is_some(), "the audit is in the result");
     assert_eq!(shard_and_merge(d, "a.toml", &[], 3), full);
-    let base = [
-        "run",
-        "a.toml",
-        "--checkpoint",
-        "ck.json",
-        "--out",
-        "r.json",
-        "-q",
-    ];
-    let mut stop = base.to_vec();
-    stop.extend_from_slice(&["--stop-after-blocks", "5"]);
-    assert_eq!(lossprism(d, &stop).status.code(), Some(3));
-    ok(d, &base);
-    assert_eq!(read(d, "r.json"), full);
+    let resumed = stop_and_resume(d, &["run", "a.toml", "--out", "r.json", "-q"], "r.json");
+    assert_eq!(resumed, full);
 }
 
 /// A watch that asks to stop once `after` blocks have finished, counting the replicates it is
@@ -762,20 +764,11 @@ fn shaped_noise_is_identical_across_threads_shards_and_resume() {
             full,
             "{name}: 3 shards"
         );
-        let _ = fs::remove_file(d.join("ck.json"));
-        let base = [
-            "run",
-            name,
-            "--checkpoint",
-            "ck.json",
-            "--out",
+        let resumed = stop_and_resume(
+            d,
+            &["run", name, "--out", "resumed.json", "-q"],
             "resumed.json",
-            "-q",
-        ];
-        let mut stop = base.to_vec();
-        stop.extend_from_slice(&["--stop-after-blocks", "5"]);
-        assert_eq!(lossprism(d, &stop).status.code(), Some(3), "{name}: stop");
-        ok(d, &base);
-        assert_eq!(read(d, "resumed.json"), full, "{name}: resumed");
+        );
+        assert_eq!(resumed, full, "{name}: resumed");
     }
 }

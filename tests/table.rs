@@ -23,6 +23,19 @@ fn tmp() -> tempfile::TempDir {
     tempfile::tempdir().expect("temp dir")
 }
 
+/// Copies the invented cold-store table to `dir/data/cold-store.csv`, where the shipped table
+/// scenarios find it; returns the repository root (for the scenarios themselves).
+fn cold_store_table_in(dir: &Path) -> &'static Path {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    fs::create_dir(dir.join("data")).unwrap();
+    fs::copy(
+        root.join("scenarios/data/cold-store.csv"),
+        dir.join("data/cold-store.csv"),
+    )
+    .unwrap();
+    root
+}
+
 fn write_csv(path: &Path, header: &[&str], rows: &[Vec<f64>]) {
     let mut s = header.join(",");
     s.push('\n');
@@ -703,13 +716,7 @@ fn many_levels() -> String {
 #[test]
 fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     let dir = tmp();
-    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-    fs::create_dir(dir.path().join("data")).unwrap();
-    fs::copy(
-        root.join("scenarios/data/cold-store.csv"),
-        dir.path().join("data/cold-store.csv"),
-    )
-    .unwrap();
+    let root = cold_store_table_in(dir.path());
     fs::copy(
         root.join("scenarios/cold-store-table.toml"),
         dir.path().join("c.toml"),
@@ -879,13 +886,7 @@ fn points_csv_line_column_counts_file_lines_like_errors() {
 #[test]
 fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
     let dir = tmp();
-    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-    fs::create_dir(dir.path().join("data")).unwrap();
-    fs::copy(
-        root.join("scenarios/data/cold-store.csv"),
-        dir.path().join("data/cold-store.csv"),
-    )
-    .unwrap();
+    let root = cold_store_table_in(dir.path());
     fs::copy(
         root.join("scenarios/cold-store-table.toml"),
         dir.path().join("c.toml"),
@@ -928,13 +929,7 @@ fn assess_refuses_ignored_outputs_and_quiet_before_counting() {
 #[test]
 fn assess_of_several_models_needs_family_and_fits_the_named_one() {
     let dir = tmp();
-    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
-    fs::create_dir(dir.path().join("data")).unwrap();
-    fs::copy(
-        root.join("scenarios/data/cold-store.csv"),
-        dir.path().join("data/cold-store.csv"),
-    )
-    .unwrap();
+    let root = cold_store_table_in(dir.path());
     let single = fs::read_to_string(root.join("scenarios/cold-store-table.toml")).unwrap();
     let knn = "family = \"knn\"\ngrid = [1, 5, 20]\n";
     let tree = "family = \"tree\"\ngrid = { from = 1, to = 8 }\n";

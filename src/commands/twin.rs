@@ -783,15 +783,9 @@ fn varying_line(noise: &TwinNoise) -> Option<String> {
 /// smoother cross-validation chooses), said on the terminal and in the scenario's comments,
 /// with the advice that follows from `docs/twin-calibration.md` §2.10. `None` when the test
 /// cannot run (too few rows, no k-NN part).
-fn spread_line(o: &TwinOptions, t: &Table, fit: &RegressionFit) -> Option<(String, bool)> {
-    // The recipe fitted once (σ²(x) comes from its k-NN part, which twicing does not touch).
-    let once = Choice {
-        twice: false,
-        ..fit.selection.choice.clone()
-    };
-    let r = Reference::fit(t.x.view(), t.y.view(), 0, &once, true, "the table").ok()?;
-    let k = r.choose_smooth_k(t.x.view())?;
-    let (rho, z) = r.spread_test(t.x.view(), k)?;
+fn spread_line(o: &TwinOptions, t: &Table, vf: Option<&VaryingFit>) -> Option<(String, bool)> {
+    let (r, k) = vf?;
+    let (rho, z) = r.spread_test(t.x.view(), *k)?;
     let verdict = match (z > twin::SPREAD_Z, o.varying) {
         (true, true) => "the noise's variance seems to change with x, and the twin simulates that (`varying = true`)".to_string(),
         (true, false) => "the noise's variance seems to change with x: `--varying` simulates that (it mattered where the noise is concentrated, little where it changes smoothly: docs/twin-calibration.md §2.10)".to_string(),
@@ -818,6 +812,7 @@ fn twin_noise(
     o: &TwinOptions,
     t: &Table,
     fit: &RegressionFit,
+    vf: Option<VaryingFit>,
 ) -> Result<(TwinNoise, Option<Vec<f64>>), String> {
     let level = fit.noise.map(|n| n.value);
     if !o.varying {
@@ -826,26 +821,47 @@ fn twin_noise(
             None,
         ));
     }
-    let mut r = Reference::fit(
-        t.x.view(),
-        t.y.view(),
-        0,
-        &fit.selection.choice,
-        true,
-        "the table",
-    )?;
-    let smooth_k = r.choose_smooth_k(t.x.view());
-    r.set_varying(t.x.view(), smooth_k, None)?;
+    let (mut r, k) = match vf {
+        Some(v) => v,
+        None => varying_fit(t, fit)?,
+    };
+    r.set_varying(t.x.view(), Some(k), None)?;
     let level = level.and_then(|v| twin::varying_level(&r, t.x.view(), v, &fit.noise_weights));
     let sd_rows = r.sd_at_rows(t.x.view()).to_vec();
-    Ok((TwinNoise::Varying { smooth_k, level }, Some(sd_rows)))
+    Ok((
+        TwinNoise::Varying {
+            smooth_k: Some(k),
+            level,
+        },
+        Some(sd_rows),
+    ))
+}
+
+/// The reference fitted with varying noise's squared residuals, and the smoother chosen for
+/// them ([`Reference::choose_smooth_k`]).
+type VaryingFit = (Reference, usize);
+
+/// [`VaryingFit`] of table `t` under `fit`: its recipe fitted once (σ²(x) comes from the k-NN
+/// part, which twicing does not touch). Errors (one line) when the recipe has no k-NN part or
+/// the table is too small for a smoother. Fitted once per twin and shared by the noise spread
+/// line and the noise.
+fn varying_fit(t: &Table, fit: &RegressionFit) -> Result<VaryingFit, String> {
+    let once = Choice {
+        twice: false,
+        ..fit.selection.choice.clone()
+    };
+    let r = Reference::fit(t.x.view(), t.y.view(), 0, &once, true, "the table")?;
+    let k = r
+        .choose_smooth_k(t.x.view())
+        .ok_or("too few rows to smooth the squared residuals")?;
+    Ok((r, k))
 }
 
 /// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
 /// twin): the same pipeline as the first twin.
 fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
     let fit = fit_table(o, t, "a table drawn from the twin").map_err(Error::Usage)?;
-    let (noise, _) = twin_noise(o, t, &fit).map_err(Error::Usage)?;
+    let (noise, _) = twin_noise(o, t, &fit, None).map_err(Error::Usage)?;
     let spec = TwinSpec {
         choice: fit.selection.choice.clone(),
         jitter: o.jitter,
@@ -1271,9 +1287,10 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             }
             let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));
             let yv = t.y.to_vec();
-            let spread = spread_line(o, &t, &fit);
+            let vf = varying_fit(&t, &fit).ok();
+            let spread = spread_line(o, &t, vf.as_ref());
             let spread_seen = spread.as_ref().is_some_and(|s| s.1);
-            let (noise, sd_rows) = twin_noise(o, &t, &fit)
+            let (noise, sd_rows) = twin_noise(o, &t, &fit, vf)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             let eval_size = if o.jitter > 0.0 {
                 o.eval_size
