@@ -133,8 +133,8 @@ pub struct TwinArgs {
     /// `blend`.
     #[arg(long, default_value = "best", value_name = "NAME")]
     pub reference: String,
-    /// Noise estimator: `gsjs` (one input), `gamma` or `nn` (default: gsjs with one input,
-    /// gamma otherwise).
+    /// Noise estimator: `gsjs` (one input), `plane`, `gamma` or `nn` (default: gsjs with one
+    /// input, plane with 2 or 3, gamma with more).
     #[arg(long, value_name = "NAME")]
     pub noise_estimator: Option<String>,
     /// Tables drawn from the twin for the fidelity check (0 skips it, and with it the

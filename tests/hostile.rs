@@ -2471,6 +2471,57 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["twin", "t.csv", "--target", "y", "--seed", "-3"],
         "-3",
     );
+    // The plane noise estimator solves a p × p system per row: refused on wide tables, naming
+    // the limit, in the twin and in a table scenario; an unknown name lists it.
+    let mut wide_csv = (1..=31)
+        .map(|j| format!("x{j}"))
+        .collect::<Vec<_>>()
+        .join(",")
+        + ",y\n";
+    for i in 0..40 {
+        let row: Vec<String> = (1..=32).map(|j| format!("{}", (i * j) % 11)).collect();
+        wide_csv.push_str(&(row.join(",") + "\n"));
+    }
+    t.add(
+        g,
+        "twin --noise-estimator plane on 31 inputs",
+        &[("w.csv", wide_csv.as_bytes())],
+        &[
+            "twin",
+            "w.csv",
+            "--target",
+            "y",
+            "--noise-estimator",
+            "plane",
+        ],
+        "--noise-estimator plane runs on at most 30 inputs",
+    );
+    let wide_scenario =
+        "name = \"w\"\n[data]\nsource = \"table\"\npath = \"w.csv\"\ntarget = \"y\"\nnoise_estimator = \"plane\"\n\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\n";
+    t.add(
+        g,
+        "table scenario noise_estimator plane on 31 inputs",
+        &[
+            ("w.csv", wide_csv.as_bytes()),
+            ("s.toml", wide_scenario.as_bytes()),
+        ],
+        &["run", "s.toml"],
+        "the plane noise estimator runs on at most 30 input columns",
+    );
+    t.add(
+        g,
+        "twin --noise-estimator unknown",
+        &[("t.csv", good_csv().as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--noise-estimator",
+            "flat",
+        ],
+        "expected gsjs, plane, gamma or nn",
+    );
     // Options a classification twin has no use for were silently ignored.
     let mut classes_csv = String::from("a,b,y\n");
     for i in 0..40 {

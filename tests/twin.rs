@@ -491,7 +491,7 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
         "{term}"
     );
     let n = tw.noise.expect("noise echoed");
-    assert_eq!(n.method, "gamma");
+    assert_eq!(n.method, "plane");
     assert!((n.raw - n.correction - n.value).abs() < 1e-12 || n.value == 0.05 * n.raw);
 }
 

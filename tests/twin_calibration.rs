@@ -15,7 +15,8 @@
 //!   `docs/twin-calibration.md`; run it with
 //!   `cargo test --release --test twin_calibration -- --ignored --nocapture calibration_study`.
 //! - `noise_study` (ignored) measures the corrected noise estimate over many tables in 1, 2 and
-//!   3 dimensions at n = 300.
+//!   3 dimensions at n = 300 (`LOSSPRISM_NOISE_SIGNAL=k` multiplies each truth by k: the same
+//!   as noise of sd 1/k, for tables with little noise next to the signal).
 //! - `twin_picks_near_the_truth_on_a_known_process` and `corrected_noise_is_close_on_known_processes`
 //!   are fast versions in the normal suite.
 
@@ -154,16 +155,30 @@ fn noise_study_table(
     seed: u64,
     t: usize,
 ) -> (Array2<f64>, Array1<f64>, Vec<f64>, dgp_twin::RegressionFit) {
-    let (x, y) = draw_table(proc, n, 1.0, seed + 101 * t as u64);
+    let (x, mut y) = draw_table(proc, n, 1.0, seed + 101 * t as u64);
+    // `LOSSPRISM_NOISE_SIGNAL=k`: the truth times k with the same noise draws, the same table
+    // as noise sd 1/k with the truth as written, in units of that sd (every estimator, its
+    // correction and the reference are equivariant under rescaling the response).
+    let k = signal();
+    if k != 1.0 {
+        for (v, f) in y.iter_mut().zip(truth_at(proc, &x)) {
+            *v += (k - 1.0) * f;
+        }
+    }
     let yv = y.to_vec();
     // `LOSSPRISM_NOISE_SHAPE=residuals`: the bootstrap resamples the standardized residuals
-    // (`twin --noise-shape residuals`).
+    // (`twin --noise-shape residuals`); `LOSSPRISM_NOISE_METHOD=gamma` (or another name): the
+    // twin's `--noise-estimator` (`gamma` on 2 and 3 inputs is the default before §2.11).
+    let method = std::env::var("LOSSPRISM_NOISE_METHOD")
+        .ok()
+        .map(|m| Method::from_name(&m).expect("LOSSPRISM_NOISE_METHOD names an estimator"))
+        .filter(|_| proc.p > 1);
     let fit = dgp_twin::fit_regression_shaped(
         x.view(),
         &yv,
         seed + t as u64,
         Rule::Best,
-        None,
+        method,
         dgp_twin::Twicing::Auto,
         dgp_twin::NoiseFit {
             resample: resampled_shape("LOSSPRISM_NOISE_SHAPE"),
@@ -173,6 +188,15 @@ fn noise_study_table(
     )
     .expect("fits");
     (x, y, yv, fit)
+}
+
+/// The noise study's signal multiplier (`LOSSPRISM_NOISE_SIGNAL`, default 1; see
+/// `noise_study_table`).
+fn signal() -> f64 {
+    std::env::var("LOSSPRISM_NOISE_SIGNAL")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(1.0)
 }
 
 /// Whether the environment variable `var` asks for resampled residuals (`residuals`).
@@ -890,7 +914,7 @@ fn old_se(m: Method, x: &Array2<f64>, y: &Array1<f64>) -> f64 {
                 .sum();
             (rss / (m - 2.0) * (1.0 / m + dm * dm / sdd)).sqrt()
         }
-        Method::Gsjs => noise::estimate(m, x.view(), y.view()).unwrap().stderr,
+        Method::Gsjs | Method::Plane => noise::estimate(m, x.view(), y.view()).unwrap().stderr,
     }
 }
 
@@ -905,11 +929,19 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
         // Per estimator: (estimate, its standard error, the standard error reported before).
         type Raw = Vec<(f64, f64, f64)>;
         let mut raw: Vec<(Method, Raw)> = Vec::new();
-        let methods: Vec<Method> = if proc.p == 1 {
-            vec![Method::Gsjs, Method::Gamma, Method::NearestNeighbour]
-        } else {
-            vec![Method::Gamma, Method::NearestNeighbour]
-        };
+        // The twin's own estimator first (the corrected line names it), then the others raw.
+        let own = std::env::var("LOSSPRISM_NOISE_METHOD")
+            .ok()
+            .and_then(|m| Method::from_name(&m))
+            .filter(|_| proc.p > 1)
+            .unwrap_or(dgp_twin::twin_noise_method(proc.p));
+        let methods: Vec<Method> = std::iter::once(own)
+            .chain(
+                [Method::Gamma, Method::NearestNeighbour]
+                    .into_iter()
+                    .filter(|m| *m != own),
+            )
+            .collect();
         for m in &methods {
             raw.push((*m, Vec::new()));
         }
@@ -931,7 +963,7 @@ fn noise_runs(procs: &[Process], tables: usize, n: usize, seed: u64) -> Vec<(Str
                 v.push((e.value, e.stderr, old_se(*m, &x, &y)));
             }
             // The same correction with the true f (the best a reference can do).
-            let f = truth_at(*proc, &x);
+            let f: Vec<f64> = truth_at(*proc, &x).iter().map(|v| v * signal()).collect();
             let d = noise::Design::new(c.method, x.view()).unwrap();
             oracle.push(c.raw - d.value(Array1::from(f).view()));
         }

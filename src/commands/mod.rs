@@ -900,7 +900,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         None => None,
         Some(s) => Some(crate::dataset::noise::Method::from_name(s).ok_or_else(|| {
             Error::Usage(format!(
-                "--noise-estimator: unknown `{s}`; expected gsjs, gamma or nn"
+                "--noise-estimator: unknown `{s}`; expected gsjs, plane, gamma or nn"
             ))
         })?),
     };

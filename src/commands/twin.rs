@@ -29,7 +29,7 @@
 
 use std::path::{Path, PathBuf};
 
-use crate::dataset::noise::Method;
+use crate::dataset::noise::{self, Method};
 use crate::dataset::{self, Duplicates, Missing, Table, TableOptions, TargetKind};
 use crate::dgp::reference::select::{self, Rule};
 use crate::dgp::reference::{self, Candidate, Choice, Reference, TwinFit};
@@ -1265,10 +1265,18 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         Task::Regress => {
             if o.noise_estimator == Some(Method::Gsjs) && t.x.ncols() != 1 {
                 return Err(Error::Usage(format!(
-                    "--noise-estimator gsjs needs exactly one input; {} has {} ({}); use gamma or nn",
+                    "--noise-estimator gsjs needs exactly one input; {} has {} ({}); use plane, gamma or nn",
                     o.table.display(),
                     t.x.ncols(),
                     t.names.join(", ")
+                )));
+            }
+            if o.noise_estimator == Some(Method::Plane) && t.x.ncols() > noise::PLANE_MAX_INPUTS {
+                return Err(Error::Usage(format!(
+                    "--noise-estimator plane runs on at most {} inputs; {} has {}; use gamma or nn",
+                    noise::PLANE_MAX_INPUTS,
+                    o.table.display(),
+                    t.x.ncols()
                 )));
             }
             let stage = crate::progress::Stage::new();

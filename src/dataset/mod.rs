@@ -958,9 +958,21 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
             line: None,
             column: None,
             message: format!(
-                "the GSJS noise estimator needs exactly one input column; this table has {} ({}); use `nn` or `gamma`",
+                "the GSJS noise estimator needs exactly one input column; this table has {} ({}); use `nn`, `gamma` or `plane`",
                 table.x.ncols(),
                 table.names.join(", ")
+            ),
+        });
+    }
+    if noise_method == noise::Method::Plane && table.x.ncols() > noise::PLANE_MAX_INPUTS {
+        return Err(TableError {
+            file,
+            line: None,
+            column: None,
+            message: format!(
+                "the plane noise estimator runs on at most {} input columns; this table has {}; use `nn` or `gamma`",
+                noise::PLANE_MAX_INPUTS,
+                table.x.ncols()
             ),
         });
     }

@@ -10,6 +10,12 @@
 //!   intercept estimates σ².
 //! - [`gsjs`]: Gasser, Sroka, Jennen-Steinmetz (1986, *Biometrika* 73:625–633), one input:
 //!   pseudo-residuals from consecutive points in sorted x, exactly unbiased for linear f.
+//! - [`plane`]: local-linear pseudo-residuals, GSJS's idea in any number of inputs: each row's
+//!   response minus the least-squares plane through its [`PLANE_NEIGHBOURS_PER_PARAMETER`]·(p+1)
+//!   nearest rows, evaluated at the row, scaled so that its noise part has variance σ². Exactly
+//!   unbiased for a linear f (a difference-based estimator of the kind studied by Munk, Bissantz,
+//!   Wagner and Freitag 2005, *JRSS B* 67:19–41, and Spokoiny 2002, *Annals of Statistics*
+//!   30:1084–1116, both from memory; the construction here is written out in [`plane`]).
 //!
 //! Standard errors: each estimator's plug-in variance of its terms (with the covariances of
 //! terms that share a response), never below the Gaussian floor `√(2 tr A²) σ̂²`, the exact
@@ -36,6 +42,8 @@ pub enum Method {
     Gamma,
     /// Gasser–Sroka–Jennen-Steinmetz (`gsjs`), one input only.
     Gsjs,
+    /// Local-linear pseudo-residuals (`plane`).
+    Plane,
 }
 
 impl Method {
@@ -45,6 +53,7 @@ impl Method {
             Method::NearestNeighbour => "nn",
             Method::Gamma => "gamma",
             Method::Gsjs => "gsjs",
+            Method::Plane => "plane",
         }
     }
 
@@ -54,6 +63,7 @@ impl Method {
             "nn" => Some(Method::NearestNeighbour),
             "gamma" => Some(Method::Gamma),
             "gsjs" => Some(Method::Gsjs),
+            "plane" => Some(Method::Plane),
             _ => None,
         }
     }
@@ -66,6 +76,9 @@ impl Method {
             }
             Method::Gamma => "Gamma test, k = 1..10 (Stefánsson, Končar, Jones 1997)",
             Method::Gsjs => "Gasser-Sroka-Jennen-Steinmetz pseudo-residuals (1986)",
+            Method::Plane => {
+                "local-linear pseudo-residuals: each row against the least-squares plane through its nearest rows"
+            }
         }
     }
 }
@@ -129,6 +142,13 @@ enum DesignKind {
     },
     /// Rows in sorted-x order and the weights `a` of the interior points.
     Gsjs { order: Vec<usize>, a: Vec<f64> },
+    /// Each query row's neighbours with the weights of the plane's value at the row
+    /// (`Σ_j w_j y_j`), and the row's scale `c = 1/(1 + Σ w_j²)`; an empty list is a left-out
+    /// row.
+    Plane {
+        w: Vec<Vec<(usize, f64)>>,
+        c: Vec<f64>,
+    },
 }
 
 impl Design {
@@ -199,6 +219,25 @@ impl Design {
                     .collect();
                 DesignKind::Gsjs { order, a }
             }
+            Method::Plane => {
+                let p = x.ncols();
+                let m = PLANE_NEIGHBOURS_PER_PARAMETER * (p + 1);
+                if n < 4 || p > PLANE_MAX_INPUTS {
+                    return None;
+                }
+                let z = standardize(x);
+                let nn = nearest(z.view(), m.min(n - 1));
+                let w: Vec<Vec<(usize, f64)>> = nn
+                    .iter()
+                    .enumerate()
+                    .map(|(i, l)| plane_weights(z.view(), i, l))
+                    .collect();
+                let c = w
+                    .iter()
+                    .map(|l| 1.0 / (1.0 + l.iter().map(|&(_, a)| a * a).sum::<f64>()))
+                    .collect();
+                DesignKind::Plane { w, c }
+            }
         };
         Some(Design { method, n, kind })
     }
@@ -217,18 +256,26 @@ impl Design {
     /// `(0, 1)`, an `f` of another length or with non-finite values, or a cut that would keep
     /// fewer than 4 query rows return the design unchanged.
     pub fn trimmed(&self, f: &[f64], share: f64) -> Design {
-        let DesignKind::Gamma { nn, .. } = &self.kind else {
-            return self.clone();
+        let lists: Vec<Vec<usize>> = match &self.kind {
+            DesignKind::Gamma { nn, .. } => nn
+                .iter()
+                .map(|l| l.iter().map(|&(j, _)| j).collect())
+                .collect(),
+            DesignKind::Plane { w, .. } => w
+                .iter()
+                .map(|l| l.iter().map(|&(j, _)| j).collect())
+                .collect(),
+            _ => return self.clone(),
         };
-        let n = nn.len();
+        let n = lists.len();
         let drop = (share * n as f64).floor() as usize;
         if !(share > 0.0 && share < 1.0) || f.len() != n || drop == 0 || n - drop < 4 {
             return self.clone();
         }
-        let change: Vec<f64> = nn
+        let change: Vec<f64> = lists
             .iter()
             .enumerate()
-            .map(|(i, l)| l.iter().map(|&(j, _)| (f[j] - f[i]).powi(2)).sum::<f64>())
+            .map(|(i, l)| l.iter().map(|&j| (f[j] - f[i]).powi(2)).sum::<f64>())
             .collect();
         if change.iter().any(|c| !c.is_finite()) {
             return self.clone();
@@ -241,22 +288,36 @@ impl Design {
         }
         let mut order: Vec<usize> = (0..n).collect();
         order.sort_by(|&a, &b| change[b].total_cmp(&change[a]).then(a.cmp(&b)));
-        let mut nn = nn.clone();
-        for &i in &order[..drop] {
-            nn[i].clear();
-        }
-        let p = nn.iter().map(Vec::len).max().unwrap_or(0);
-        let mut delta = vec![0.0; p];
-        for list in &nn {
-            for (k, &(_, d2)) in list.iter().enumerate() {
-                delta[k] += d2;
+        let left_out = &order[..drop];
+        let kind = match &self.kind {
+            DesignKind::Gamma { nn, .. } => {
+                let mut nn = nn.clone();
+                for &i in left_out {
+                    nn[i].clear();
+                }
+                let p = nn.iter().map(Vec::len).max().unwrap_or(0);
+                let mut delta = vec![0.0; p];
+                for list in &nn {
+                    for (k, &(_, d2)) in list.iter().enumerate() {
+                        delta[k] += d2;
+                    }
+                }
+                delta.iter_mut().for_each(|d| *d /= (n - drop) as f64);
+                DesignKind::Gamma { nn, delta }
             }
-        }
-        delta.iter_mut().for_each(|d| *d /= (n - drop) as f64);
+            DesignKind::Plane { w, c } => {
+                let mut w = w.clone();
+                for &i in left_out {
+                    w[i].clear();
+                }
+                DesignKind::Plane { w, c: c.clone() }
+            }
+            _ => unreachable!("only the Gamma and plane designs are trimmed"),
+        };
         Design {
             method: self.method,
             n: self.n,
-            kind: DesignKind::Gamma { nn, delta },
+            kind,
         }
     }
 
@@ -264,6 +325,7 @@ impl Design {
     pub fn query_rows(&self) -> usize {
         match &self.kind {
             DesignKind::Gamma { nn, .. } => gamma_query_rows(nn),
+            DesignKind::Plane { w, .. } => gamma_query_rows(w),
             _ => self.n,
         }
     }
@@ -286,6 +348,7 @@ impl Design {
             DesignKind::Nn(nb) => nn_estimate(nb, y, with_se),
             DesignKind::Gamma { nn, delta } => gamma_estimate(nn, delta, y, with_se),
             DesignKind::Gsjs { order, a } => gsjs_estimate(order, a, y, with_se),
+            DesignKind::Plane { w, c } => plane_estimate(w, c, y, with_se),
         };
         if with_se {
             // The Gaussian floor (see `trace_of_square`): the sum over dependent pairs centres
@@ -347,6 +410,7 @@ impl Design {
                 let sq = |v: &[f64]| v.iter().map(|x| x * x).sum::<f64>();
                 sq(&d) + 2.0 * sq(&o1) + 2.0 * sq(&o2)
             }
+            DesignKind::Plane { w, c } => plane_trace_of_square(w, c, self.n),
         }
     }
 
@@ -385,6 +449,19 @@ impl Design {
                         d[order[t - 1]] += w * a * a;
                         d[order[t]] += w;
                         d[order[t + 1]] += w * b * b;
+                    }
+                }
+            }
+            DesignKind::Plane { w, c } => {
+                let used = gamma_query_rows(w).max(1) as f64;
+                for (i, (list, ci)) in w.iter().zip(c).enumerate() {
+                    if list.is_empty() {
+                        continue;
+                    }
+                    let s = ci / used;
+                    d[i] += s;
+                    for &(j, a) in list {
+                        d[j] += s * a * a;
                     }
                 }
             }
@@ -644,6 +721,220 @@ fn line_intercept(d: &[f64], g: &[f64]) -> f64 {
     gm - slope * dm
 }
 
+/// Neighbours per parameter of the plane estimator: the plane through a row's neighbours has
+/// p + 1 parameters (an intercept and one slope per input) and is fitted to twice as many rows.
+/// Fewer make the pseudo-residual's weights larger (more spread); more reach farther, where f
+/// curves (more bias). Two is a rule of thumb set on the invented processes of
+/// `docs/twin-calibration.md` §2.11 (no source).
+pub const PLANE_NEIGHBOURS_PER_PARAMETER: usize = 2;
+
+/// Widest table (in inputs) the plane estimator runs on: each row solves a p × p system over
+/// 2(p + 1) neighbours, O(p³) per row, and past a few dozen inputs the nearest rows of a table
+/// are no longer near (a limit of the product, no source). [`Design::new`] returns `None` beyond.
+pub const PLANE_MAX_INPUTS: usize = 30;
+
+/// The weights `w_j` over row i's neighbours `l` (inputs `z`) such that `Σ_j w_j y_j` is the
+/// value at `z_i` of the least-squares plane through the neighbours' `(z_j, y_j)`. With the
+/// neighbours' inputs centred, `u_j = z_j − z_i − ū`, the plane's value at z_i is
+/// `ȳ − ūᵀb` with `b = (UᵀU + λI)⁻¹ Uᵀy`, so `w = 1/m − U (UᵀU + λI)⁻¹ ū`. The weights sum to 1
+/// whatever λ (a constant f leaves no residual); λ is 0 unless UᵀU is singular to working
+/// precision (neighbours on a line, a constant input), and then the smallest multiple of
+/// `10⁻¹² tr(UᵀU)` (times ten each try) that makes it positive definite, so the plane is
+/// still defined and the estimator exact for the directions the neighbours span.
+fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(usize, f64)> {
+    let m = l.len();
+    let p = z.ncols();
+    if m == 0 {
+        return Vec::new();
+    }
+    let mf = m as f64;
+    let mut ubar = vec![0.0; p];
+    for &(j, _) in l {
+        for (c, u) in ubar.iter_mut().enumerate() {
+            *u += z[[j, c]] - z[[i, c]];
+        }
+    }
+    ubar.iter_mut().for_each(|u| *u /= mf);
+    let u: Vec<Vec<f64>> = l
+        .iter()
+        .map(|&(j, _)| (0..p).map(|c| z[[j, c]] - z[[i, c]] - ubar[c]).collect())
+        .collect();
+    let mut g = vec![0.0; p * p];
+    for r in &u {
+        for a in 0..p {
+            for b in 0..p {
+                g[a * p + b] += r[a] * r[b];
+            }
+        }
+    }
+    let trace: f64 = (0..p).map(|a| g[a * p + a]).sum();
+    // v = (UᵀU + λI)⁻¹ ū by Cholesky, λ raised until it succeeds.
+    let mut lambda = 0.0;
+    let v = loop {
+        if let Some(v) = cholesky_solve(&g, lambda, &ubar, p) {
+            break v;
+        }
+        lambda = if lambda == 0.0 {
+            1e-12 * trace.max(f64::MIN_POSITIVE)
+        } else {
+            lambda * 10.0
+        };
+        if !lambda.is_finite() {
+            break vec![0.0; p];
+        }
+    };
+    l.iter()
+        .zip(&u)
+        .map(|(&(j, _), r)| {
+            (
+                j,
+                1.0 / mf - r.iter().zip(&v).map(|(a, b)| a * b).sum::<f64>(),
+            )
+        })
+        .collect()
+}
+
+/// Solves `(G + λI) v = b` for a symmetric p × p `G` (row-major) by Cholesky; `None` when
+/// `G + λI` is not positive definite to working precision (a pivot at or below `10⁻¹⁰` of the
+/// largest diagonal entry, or not finite).
+fn cholesky_solve(g: &[f64], lambda: f64, b: &[f64], p: usize) -> Option<Vec<f64>> {
+    if p == 0 {
+        return Some(Vec::new());
+    }
+    let mut a: Vec<f64> = g.to_vec();
+    for k in 0..p {
+        a[k * p + k] += lambda;
+    }
+    let scale = (0..p).map(|k| a[k * p + k]).fold(0.0f64, f64::max);
+    if !(scale > 0.0 && scale.is_finite()) {
+        return None;
+    }
+    let mut low = vec![0.0; p * p];
+    for r in 0..p {
+        for c in 0..=r {
+            let s = a[r * p + c] - (0..c).map(|k| low[r * p + k] * low[c * p + k]).sum::<f64>();
+            if r == c {
+                if s.is_nan() || s <= 1e-10 * scale || !s.is_finite() {
+                    return None;
+                }
+                low[r * p + r] = s.sqrt();
+            } else {
+                low[r * p + c] = s / low[c * p + c];
+            }
+        }
+    }
+    let mut y = vec![0.0; p];
+    for r in 0..p {
+        y[r] = (b[r] - (0..r).map(|k| low[r * p + k] * y[k]).sum::<f64>()) / low[r * p + r];
+    }
+    let mut v = vec![0.0; p];
+    for r in (0..p).rev() {
+        v[r] = (y[r] - (r + 1..p).map(|k| low[k * p + r] * v[k]).sum::<f64>()) / low[r * p + r];
+    }
+    v.iter().all(|x| x.is_finite()).then_some(v)
+}
+
+/// `σ̂² = (1/m) Σ_i c_i (y_i − Σ_j w_ij y_j)²` over the m query rows; standard error as the
+/// other estimators' (terms that share a response are dependent).
+fn plane_estimate(
+    w: &[Vec<(usize, f64)>],
+    c: &[f64],
+    y: ArrayView1<'_, f64>,
+    with_se: bool,
+) -> NoiseEstimate {
+    let rows = || {
+        w.iter()
+            .zip(c)
+            .enumerate()
+            .filter(|(_, (l, _))| !l.is_empty())
+    };
+    let term = |i: usize, l: &[(usize, f64)], ci: f64| {
+        let fit: f64 = l.iter().map(|&(j, a)| a * y[j]).sum();
+        ci * (y[i] - fit) * (y[i] - fit)
+    };
+    let used = gamma_query_rows(w).max(1) as f64;
+    let value = rows().map(|(i, (l, &ci))| term(i, l, ci)).sum::<f64>() / used;
+    if !with_se {
+        return NoiseEstimate {
+            value,
+            stderr: f64::NAN,
+            method: Method::Plane,
+        };
+    }
+    let u: Vec<f64> = rows().map(|(i, (l, &ci))| term(i, l, ci)).collect();
+    let uses: Vec<Vec<usize>> = rows()
+        .map(|(i, (l, _))| {
+            std::iter::once(i)
+                .chain(l.iter().map(|&(j, _)| j))
+                .collect()
+        })
+        .collect();
+    NoiseEstimate {
+        value,
+        stderr: dependent_var_of_mean(&u, &uses, y.len()).sqrt(),
+        method: Method::Plane,
+    }
+}
+
+/// `tr(A²)` of the plane estimator's `A = (1/m) Σ_i c_i b_i b_iᵀ` with `b_i = e_i − Σ_j w_ij e_j`:
+/// `(1/m²) Σ_{i,i'} c_i c_i' (b_iᵀ b_i')²`, summed over the pairs of contrasts that share a row.
+fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
+    let contrast = |i: usize| -> Vec<(usize, f64)> {
+        if w[i].is_empty() {
+            return Vec::new();
+        }
+        std::iter::once((i, 1.0))
+            .chain(w[i].iter().map(|&(j, a)| (j, -a)))
+            .collect()
+    };
+    let mut users: Vec<Vec<usize>> = vec![Vec::new(); n];
+    for i in 0..w.len() {
+        for (r, _) in contrast(i) {
+            users[r].push(i);
+        }
+    }
+    let used = gamma_query_rows(w).max(1) as f64;
+    let mut dense = vec![0.0; n];
+    let mut stamp = vec![usize::MAX; w.len()];
+    let mut total = 0.0;
+    for i in 0..w.len() {
+        let bi = contrast(i);
+        if bi.is_empty() {
+            continue;
+        }
+        for &(r, v) in &bi {
+            dense[r] += v;
+        }
+        for &(r, _) in &bi {
+            for &k in &users[r] {
+                if stamp[k] == i {
+                    continue;
+                }
+                stamp[k] = i;
+                let dot: f64 = contrast(k).iter().map(|&(q, v)| v * dense[q]).sum();
+                total += c[i] * c[k] * dot * dot;
+            }
+        }
+        for &(r, _) in &bi {
+            dense[r] = 0.0;
+        }
+    }
+    total / (used * used)
+}
+
+/// Local-linear pseudo-residual estimator on standardized inputs, any number of inputs (see the
+/// module docs): with `w_ij` the weights that give the least-squares plane through row i's
+/// [`PLANE_NEIGHBOURS_PER_PARAMETER`]·(p+1) nearest rows at `x_i` (`plane_weights`), the
+/// pseudo-residual `y_i − Σ_j w_ij y_j` has no f part when f is linear and noise variance
+/// `σ²(1 + Σ_j w_ij²)`, so `σ̂² = (1/n) Σ_i (y_i − Σ_j w_ij y_j)² / (1 + Σ_j w_ij²)` is exactly
+/// unbiased for a linear f (with one input and two neighbours on either side this is GSJS's
+/// construction). For curved f its bias is the estimator applied to f, of the order of f's
+/// curvature times the squared neighbour distance (a difference of first order in the Gamma
+/// test). Standard error as the other estimators'.
+pub fn plane(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
+    estimate(Method::Plane, x, y)
+}
+
 /// Gasser–Sroka–Jennen-Steinmetz estimator (1986) for one input. With the data sorted by x and
 /// interior point i between i−1 and i+1: `a = (x_{i+1} − x_i)/(x_{i+1} − x_{i−1})`,
 /// `b = 1 − a`, pseudo-residual `ε̃_i = a y_{i−1} + b y_{i+1} − y_i`, weight
@@ -711,6 +1002,7 @@ mod tests {
     use ndarray::{Array1, Array2};
     use rand::{Rng, SeedableRng};
     use rand_chacha::ChaCha8Rng;
+    use rand_distr::{Distribution, StandardNormal};
 
     #[test]
     fn noise_weights_are_the_quadratic_forms_diagonal() {
@@ -730,11 +1022,16 @@ mod tests {
         let gamma = Design::new(Method::Gamma, x3.view()).unwrap();
         let trimmed = gamma.trimmed(&f, 0.2);
         assert!(trimmed.query_rows() < n);
+        let plane = Design::new(Method::Plane, x3.view()).unwrap();
+        let plane_trimmed = plane.trimmed(&f, 0.2);
+        assert!(plane_trimmed.query_rows() < n);
         for d in [
             Design::new(Method::Gsjs, x1.view()).unwrap(),
             Design::new(Method::NearestNeighbour, x3.view()).unwrap(),
             gamma,
             trimmed,
+            plane,
+            plane_trimmed,
         ] {
             let w = d.noise_weights();
             assert!(
@@ -765,6 +1062,7 @@ mod tests {
             (Method::Gsjs, &x1),
             (Method::Gamma, &x2),
             (Method::NearestNeighbour, &x2),
+            (Method::Plane, &x2),
         ] {
             let d = Design::new(m, x.view()).unwrap();
             let e = d.estimate(y.view()).unwrap();
@@ -923,11 +1221,14 @@ mod tests {
         x1[[3, 0]] = x1[[4, 0]];
         let f: Vec<f64> = (0..n).map(|i| (i % 5) as f64).collect();
         let gamma = Design::new(Method::Gamma, x2.view()).unwrap();
+        let plane = Design::new(Method::Plane, x2.view()).unwrap();
         let designs = [
             Design::new(Method::NearestNeighbour, x2.view()).unwrap(),
             gamma.trimmed(&f, 0.2),
             gamma,
             Design::new(Method::Gsjs, x1.view()).unwrap(),
+            plane.trimmed(&f, 0.2),
+            plane,
         ];
         for d in &designs {
             let unit = |i: usize| {
@@ -954,6 +1255,68 @@ mod tests {
                 d.method()
             );
         }
+    }
+
+    #[test]
+    fn the_plane_reads_no_noise_in_an_exact_plane_and_none_is_lost_with_a_constant_input() {
+        // Exact (the construction in `plane`): the least-squares plane through points of a plane
+        // passes through every one of them, so each pseudo-residual of a linear truth is 0, in
+        // 1, 2 and 3 inputs, with inputs on a coarse grid (tied distances) and with an input
+        // that never changes (its column standardizes to 0 and the plane's Gram matrix is
+        // singular: the ridge path). A constant truth gives 0 whatever λ.
+        let mut rng = ChaCha8Rng::seed_from_u64(31);
+        for p in 1..=3 {
+            let n = 80;
+            let x = Array2::from_shape_fn((n, p), |(_, j)| {
+                if j == 1 {
+                    (rng.gen_range(0..6) as f64) * 0.2
+                } else {
+                    rng.gen::<f64>()
+                }
+            });
+            let f = Array1::from_shape_fn(n, |i| {
+                2.0 - 3.0 * x[[i, 0]] + (1..p).map(|j| (j as f64 + 0.5) * x[[i, j]]).sum::<f64>()
+            });
+            let d = Design::new(Method::Plane, x.view()).unwrap();
+            let scale = f.iter().map(|v| v * v).sum::<f64>() / n as f64;
+            assert!(d.value(f.view()).abs() < 1e-12 * scale, "p = {p}");
+            let mut xc = x.clone();
+            xc.column_mut(0).fill(0.25);
+            let dc = Design::new(Method::Plane, xc.view()).unwrap();
+            let fc = Array1::from_shape_fn(n, |i| 1.5 + (1..p).map(|j| xc[[i, j]]).sum::<f64>());
+            let v = dc.value(fc.view());
+            assert!(v.is_finite() && v.abs() < 1e-10, "p = {p}: {v}");
+            assert!(dc.value(Array1::from_elem(n, 7.0).view()).abs() < 1e-20);
+        }
+    }
+
+    #[test]
+    fn the_plane_is_unbiased_for_pure_noise_and_its_spread_is_the_gaussian_form() {
+        // Monte Carlo against two exact facts about a quadratic form σ̂² = εᵀAε with tr A = 1
+        // and Gaussian ε (a textbook identity, from memory): E σ̂² = σ², Var σ̂² = 2σ⁴ tr(A²).
+        // 400 noise vectors on fixed inputs; tolerances 4 standard errors of the Monte Carlo
+        // mean and of the sample variance (its SE for Gaussian-like draws, √(2/(R−1)) of it).
+        let mut rng = ChaCha8Rng::seed_from_u64(5);
+        let n = 150;
+        let x = Array2::from_shape_fn((n, 3), |_| rng.gen::<f64>());
+        let d = Design::new(Method::Plane, x.view()).unwrap();
+        let sigma2: f64 = 2.0;
+        let reps = 400;
+        let draws: Vec<f64> = (0..reps)
+            .map(|_| {
+                let e = Array1::from_shape_fn(n, |_| {
+                    let z: f64 = StandardNormal.sample(&mut rng);
+                    z * sigma2.sqrt()
+                });
+                d.value(e.view())
+            })
+            .collect();
+        let (mean, se) = mean_se(&draws);
+        assert!((mean - sigma2).abs() < 4.0 * se, "{mean} ± {se}");
+        let var = se * se * reps as f64;
+        let exact = 2.0 * sigma2 * sigma2 * d.trace_of_square();
+        let var_se = exact * (2.0 / (reps as f64 - 1.0)).sqrt();
+        assert!((var - exact).abs() < 4.0 * var_se, "{var} against {exact}");
     }
 
     #[test]

@@ -20,7 +20,7 @@
 //! complex models look better than on new inputs.
 //!
 //! **Noise** ([`correct_noise`]): the raw estimate of a table estimator
-//! ([`crate::dataset::noise`], [`noise::default_method`] by default; its neighbour distances
+//! ([`crate::dataset::noise`], [`twin_noise_method`] by default; its neighbour distances
 //! weight the inputs as the reference's kept metric does, [`correct_noise_weighted`], so inputs
 //! the response barely depends on do not spread the neighbours) carries a roughness bias.
 //! Every estimator there is a quadratic form with `E[σ̂² | x] = σ² + est(x, f)`, so applying
@@ -57,8 +57,8 @@
 //! ([`NoiseCorrection::flagged`], which also fires on some smooth tables: it is a warning, not a
 //! test).
 //!
-//! **Rows left out** ([`TRIM_SHARE`], up to [`TRIM_MAX_INPUTS`] inputs): the Gamma test
-//! averages over the table's rows but the fifth where the reference fitted once changes most
+//! **Rows left out** ([`TRIM_SHARE`], up to [`TRIM_MAX_INPUTS`] inputs): the Gamma test and
+//! the plane ([`twin_noise_method`]) average over the table's rows but the fifth where the reference fitted once changes most
 //! between neighbours ([`noise::Design::trimmed`]). A step the reference rounds off still makes
 //! the reference change fastest there, so those rows hold most of the step's share of the raw
 //! estimate; the same rows are left out of the correction and of every bootstrap table, so the
@@ -66,6 +66,7 @@
 //! processes (`docs/twin-calibration.md` §2.6): the 2- and 3-input step processes from +5.9%
 //! and +10.6% to +2.6% and +4.8%, the other processes within ±5%, pure noise unchanged (−0.2%
 //! and −0.6% over 60 tables), and the spread up by about 10% where nothing needed removing.
+//! The plane, the default on 2 and 3 inputs since §2.11, leaves out the same share.
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::Rng;
@@ -393,11 +394,13 @@ pub fn noise_design(
     f_rows: &[f64],
 ) -> Option<noise::Design> {
     let design = noise::Design::weighted(method, x, weights)?;
-    Some(if x.ncols() <= TRIM_MAX_INPUTS {
-        design.trimmed(f_rows, TRIM_SHARE)
-    } else {
-        design
-    })
+    Some(
+        if x.ncols() <= TRIM_MAX_INPUTS && matches!(method, Method::Gamma | Method::Plane) {
+            design.trimmed(f_rows, TRIM_SHARE)
+        } else {
+            design
+        },
+    )
 }
 
 /// The level of a twin's varying noise: σ²(x)'s mean over the table's rows `x` such that the
@@ -571,6 +574,22 @@ impl ResidualShape {
 /// §2.10).
 pub const SPREAD_Z: f64 = 4.0;
 
+/// A regression twin's default noise estimator for a table of `p` inputs: GSJS with one input,
+/// local-linear pseudo-residuals ([`Method::Plane`]) with 2 to [`TRIM_MAX_INPUTS`], the Gamma
+/// test with more. On 2 and 3 inputs the plane is exactly unbiased for a linear truth where the
+/// Gamma test's line only removes the first-order roughness on average; on tables with little
+/// noise next to a curved truth the Gamma test read the curvature as noise (+20% on a smooth
+/// 3-input process at a quarter of the noise, the plane +1%), and with unit noise the two agree
+/// (measured: docs/twin-calibration.md §2.11). Wider tables keep the Gamma test (the plane
+/// there was measured on one process only).
+pub fn twin_noise_method(p: usize) -> Method {
+    match p {
+        1 => Method::Gsjs,
+        p if p <= TRIM_MAX_INPUTS => Method::Plane,
+        _ => Method::Gamma,
+    }
+}
+
 /// Share of the table's rows the Gamma test leaves out as query rows: those where the
 /// reference fitted once changes most between neighbours ([`noise::Design::trimmed`]). A rule of
 /// thumb with no source, set on the invented processes of `docs/twin-calibration.md` §2.6: with
@@ -645,7 +664,7 @@ pub struct RegressionFit {
 
 /// Fits a regression twin on rows `x` and responses `y`: chooses the reference by `rule`
 /// ([`select`]), fits it, and corrects the noise estimate of `method` (default
-/// [`noise::default_method`]; distances under the choice's input weights, when it kept some)
+/// [`twin_noise_method`]; distances under the choice's input weights, when it kept some)
 /// with [`NOISE_TABLES`] bootstrap tables, using the fit made once.
 /// When `twicing` says so, the twin's truth is the twiced fit ([`Reference::twiced`]): a
 /// cross-validated smoother can round off the curvature a family's bias comes from, and
@@ -718,7 +737,7 @@ pub fn fit_regression_shaped(
     // The noise's correction is measured with the fit made once: the twiced fit carries more of
     // the table's noise, whose roughness the correction would count as the truth's and subtract
     // (measured: docs/twin-calibration.md §0).
-    let method = method.unwrap_or(noise::default_method(x.ncols()));
+    let method = method.unwrap_or(twin_noise_method(x.ncols()));
     // The estimator measures distance as the reference does: with the input weights the
     // choice kept, inputs the response barely depends on no longer spread the neighbours
     // (measured: docs/twin-calibration.md §0.2).
@@ -732,13 +751,13 @@ pub fn fit_regression_shaped(
         None
     };
     let metric = selection.choice.metric.as_deref();
+    // GSJS orders one input and ignores weights.
+    let weighted = metric.is_some() && method != Method::Gsjs;
     let design = if how.all_rows {
         noise::Design::weighted(method, x, metric)
     } else {
         noise_design(method, x, metric, &once_rows)
     };
-    // GSJS orders one input and ignores weights.
-    let weighted = metric.is_some() && method != Method::Gsjs;
     let noise = design.as_ref().and_then(|d| {
         correct_noise_on(
             d,
@@ -1261,6 +1280,8 @@ mod tests {
             (1, Method::Gsjs),
             (2, Method::Gamma),
             (2, Method::NearestNeighbour),
+            (2, Method::Plane),
+            (3, Method::Plane),
         ] {
             let x = Array2::from_shape_fn((n, p), |_| rng.gen::<f64>());
             let f: Vec<f64> = x
@@ -1275,7 +1296,8 @@ mod tests {
             let design = noise::Design::new(method, x.view())
                 .unwrap()
                 .trimmed(&f, TRIM_SHARE);
-            assert_eq!(c.left_out, if method == Method::Gamma { n / 5 } else { 0 });
+            let trims = matches!(method, Method::Gamma | Method::Plane);
+            assert_eq!(c.left_out, if trims { n / 5 } else { 0 });
             let s2: f64 = 0.25;
             // The mean bias over 400 bootstrap tables must lie within 4 of its standard
             // errors of the exact correction.

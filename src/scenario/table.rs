@@ -253,7 +253,7 @@ pub fn from_spec(
                 Some(s),
                 "data.noise_estimator",
                 format!(
-                    "unknown estimator `{}`; expected `nn`, `gamma` or `gsjs`",
+                    "unknown estimator `{}`; expected `nn`, `gamma`, `gsjs` or `plane`",
                     s.get_ref()
                 ),
             )
