@@ -134,7 +134,8 @@ pub struct TwinArgs {
     #[arg(long, default_value = "best", value_name = "NAME")]
     pub reference: String,
     /// Noise estimator: `gsjs` (one input), `plane`, `gamma` or `nn` (default: gsjs with one
-    /// input, plane with 2 or 3, gamma with more).
+    /// input; with 2 or 3, plane when the reference's cross-validated R² is at least 0.7, else
+    /// gamma; gamma with more).
     #[arg(long, value_name = "NAME")]
     pub noise_estimator: Option<String>,
     /// Tables drawn from the twin for the fidelity check (0 skips it, and with it the

@@ -66,7 +66,8 @@
 //! processes (`docs/twin-calibration.md` §2.6): the 2- and 3-input step processes from +5.9%
 //! and +10.6% to +2.6% and +4.8%, the other processes within ±5%, pure noise unchanged (−0.2%
 //! and −0.6% over 60 tables), and the spread up by about 10% where nothing needed removing.
-//! The plane, the default on 2 and 3 inputs since §2.11, leaves out the same share.
+//! The plane, the default on 2 and 3 inputs when the reference explains most of the response
+//! (§2.11), leaves out the same share.
 
 use ndarray::{Array1, Array2, ArrayView1, ArrayView2};
 use rand::Rng;
@@ -574,20 +575,39 @@ impl ResidualShape {
 /// §2.10).
 pub const SPREAD_Z: f64 = 4.0;
 
-/// A regression twin's default noise estimator for a table of `p` inputs: GSJS with one input,
-/// local-linear pseudo-residuals ([`Method::Plane`]) with 2 to [`TRIM_MAX_INPUTS`], the Gamma
-/// test with more. On 2 and 3 inputs the plane is exactly unbiased for a linear truth where the
-/// Gamma test's line only removes the first-order roughness on average; on tables with little
-/// noise next to a curved truth the Gamma test read the curvature as noise (+20% on a smooth
-/// 3-input process at a quarter of the noise, the plane +1%), and with unit noise the two agree
-/// (measured: docs/twin-calibration.md §2.11). Wider tables keep the Gamma test (the plane
-/// there was measured on one process only).
-pub fn twin_noise_method(p: usize) -> Method {
+/// Cross-validated R² of the reference at or above which a twin of 2 or 3 inputs measures its
+/// noise with the plane ([`twin_noise_method`]): 0.7, a rule of thumb (no source) set on the
+/// invented processes of docs/twin-calibration.md §2.11, between their unit-noise tables (R² at
+/// most 0.57 on 3 inputs at n = 400), where the two estimators agree on the noise and the Gamma
+/// test's curves were a little closer, and the same truths with half the noise (0.71–0.79 on the
+/// smooth and the step process), where the Gamma test starts to read curvature as noise (+5%).
+pub const PLANE_FROM_R2: f64 = 0.7;
+
+/// A regression twin's default noise estimator for a table of `p` inputs whose chosen reference
+/// has cross-validated R² `cv_r2`: GSJS with one input; with 2 to [`TRIM_MAX_INPUTS`],
+/// local-linear pseudo-residuals ([`Method::Plane`]) when `cv_r2 ≥` [`PLANE_FROM_R2`] and the
+/// Gamma test otherwise; the Gamma test with more inputs. The plane is exactly unbiased for a
+/// linear truth, where the Gamma test's line removes the first-order roughness only on average:
+/// on a table with little noise next to a curved truth the Gamma test read the curvature as
+/// noise (+22% on a smooth 3-input process at a quarter of the unit noise, the plane +4.6%);
+/// with unit noise the two agree on the noise and the Gamma test's curves were a little closer
+/// (measured: docs/twin-calibration.md §2.11). Wider tables keep the Gamma test (the plane was
+/// measured there on one process only).
+pub fn twin_noise_method(p: usize, cv_r2: f64) -> Method {
     match p {
         1 => Method::Gsjs,
-        p if p <= TRIM_MAX_INPUTS => Method::Plane,
+        p if p <= TRIM_MAX_INPUTS && cv_r2 >= PLANE_FROM_R2 => Method::Plane,
         _ => Method::Gamma,
     }
+}
+
+/// Cross-validated R² of the reference `selection` chose (NaN when it was not scored).
+pub fn chosen_r2(selection: &Selection) -> f64 {
+    selection
+        .scores
+        .iter()
+        .find(|s| s.candidate == selection.choice.family)
+        .map_or(f64::NAN, |s| s.r2)
 }
 
 /// Share of the table's rows the Gamma test leaves out as query rows: those where the
@@ -737,7 +757,7 @@ pub fn fit_regression_shaped(
     // The noise's correction is measured with the fit made once: the twiced fit carries more of
     // the table's noise, whose roughness the correction would count as the truth's and subtract
     // (measured: docs/twin-calibration.md §0).
-    let method = method.unwrap_or(twin_noise_method(x.ncols()));
+    let method = method.unwrap_or(twin_noise_method(x.ncols(), chosen_r2(&selection)));
     // The estimator measures distance as the reference does: with the input weights the
     // choice kept, inputs the response barely depends on no longer spread the neighbours
     // (measured: docs/twin-calibration.md §0.2).
