@@ -927,8 +927,8 @@ fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
 /// [`PLANE_NEIGHBOURS_PER_PARAMETER`]·(p+1) nearest rows at `x_i` (`plane_weights`), the
 /// pseudo-residual `y_i − Σ_j w_ij y_j` has no f part when f is linear and noise variance
 /// `σ²(1 + Σ_j w_ij²)`, so `σ̂² = (1/n) Σ_i (y_i − Σ_j w_ij y_j)² / (1 + Σ_j w_ij²)` is exactly
-/// unbiased for a linear f (with one input and two neighbours on either side this is GSJS's
-/// construction). For curved f its bias is the estimator applied to f, of the order of f's
+/// unbiased for a linear f (GSJS is the one-input case with the line through the two rows on
+/// either side of x_i; here the neighbours are the nearest rows, on whichever side). For curved f its bias is the estimator applied to f, of the order of f's
 /// curvature times the squared neighbour distance (a difference of first order in the Gamma
 /// test). Standard error as the other estimators'.
 pub fn plane(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<NoiseEstimate> {
