@@ -854,3 +854,40 @@ fn the_noise_spread_line_tells_a_fan_from_constant_noise() {
         "{flat_msg}"
     );
 }
+
+#[test]
+fn a_twin_says_why_it_reads_a_low_noise_table_with_the_plane() {
+    // Two invented 2-input tables of 300 rows, the same curved truth: noise sd 0.2 (the
+    // reference explains most of the response) and sd 2 (it does not). The first twin must
+    // measure its noise with the plane, say why on screen and in the scenario's comments, and
+    // record `method = "plane"`; the second keeps the Gamma test and prints no such line
+    // (docs/twin-calibration.md §2.11).
+    let run = |sd: f64| -> (String, String) {
+        let dir = tempfile::tempdir().unwrap();
+        let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(43);
+        let mut s = String::from("a,b,y\n");
+        for _ in 0..300 {
+            let (a, b): (f64, f64) = (rng.gen(), rng.gen());
+            let z: f64 = StandardNormal.sample(&mut rng);
+            s.push_str(&format!(
+                "{a},{b},{}\n",
+                2.0 * (3.0 * a).sin() + b * b + sd * z
+            ));
+        }
+        fs::write(dir.path().join("t.csv"), s).unwrap();
+        let mut o = opts(dir.path(), false, "y");
+        o.fidelity = 0;
+        let msg = twin::command(&o).expect("twin");
+        (msg, fs::read_to_string(&o.out).unwrap())
+    };
+    let (msg, text) = run(0.2);
+    assert!(msg.contains("Noise estimator: the plane, since"), "{msg}");
+    assert!(
+        text.contains("# Noise estimator: the plane, since"),
+        "{text}"
+    );
+    assert!(text.contains("method = \"plane\""), "{text}");
+    let (msg, text) = run(2.0);
+    assert!(!msg.contains("Noise estimator:"), "{msg}");
+    assert!(text.contains("method = \"gamma\""), "{text}");
+}

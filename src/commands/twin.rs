@@ -606,6 +606,21 @@ fn shape_line(
     ))
 }
 
+/// Why the noise estimator is the plane when the twin chose it (2 or 3 inputs, no
+/// `--noise-estimator`, the reference's cross-validated R² at least [`twin::PLANE_FROM_R2`]);
+/// `None` otherwise, so that twins measured with the usual estimator read as before.
+fn estimator_line(o: &TwinOptions, fit: &RegressionFit) -> Option<String> {
+    let n = fit.noise.as_ref()?;
+    if o.noise_estimator.is_some() || n.method != Method::Plane {
+        return None;
+    }
+    Some(format!(
+        "Noise estimator: the plane, since the reference explains most of the response (cross-validated R² {} ≥ {}): with little noise next to a curved truth the Gamma test reads curvature as noise (+22% against the plane's +4.6% on an invented smooth process at a quarter of the unit noise, docs/twin-calibration.md §2.11; the threshold is a rule of thumb).",
+        fmt_num(twin::chosen_r2(&fit.selection)),
+        twin::PLANE_FROM_R2
+    ))
+}
+
 fn noise_line(n: &NoiseCorrection) -> String {
     let check = if n.pilot_excess.is_finite() {
         format!(
@@ -1313,6 +1328,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 let mut comments = reference_lines(r.fit, o.reference, &t.names);
                 comments.push(inputs_line(&t, r.jitter.as_ref(), eval_size));
                 if let Some(n) = &r.fit.noise {
+                    comments.extend(estimator_line(o, r.fit));
                     comments.push(noise_line(n));
                 }
                 if let Some(l) = varying_line(&r.noise) {
@@ -1371,6 +1387,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 "{}\n",
                 inputs_line(&t, rt.jitter.as_ref(), eval_size)
             ));
+            if let Some(l) = estimator_line(o, &fit) {
+                out.push_str(&format!("{l}\n"));
+            }
             match &fit.noise {
                 Some(n) => out.push_str(&format!("{}\n", noise_line(n))),
                 None => out.push_str("Noise: the estimator cannot run on this table; σ = 0 written, edit [data.noise]\n"),
