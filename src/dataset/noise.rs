@@ -107,7 +107,8 @@ pub fn default_method(p: usize) -> Method {
 }
 
 /// Runs the chosen estimator. Returns `None` when the data cannot support it (fewer than 3
-/// rows; GSJS with more than one input; Gamma with fewer than 4 rows).
+/// rows; GSJS with more than one input; Gamma with fewer than 4 rows; the plane with fewer than
+/// 4 rows or more than [`PLANE_MAX_INPUTS`] inputs).
 pub fn estimate(
     method: Method,
     x: ArrayView2<'_, f64>,
@@ -242,7 +243,7 @@ impl Design {
         Some(Design { method, n, kind })
     }
 
-    /// The Gamma design with the share `share` of its rows left out as query rows: those whose
+    /// The Gamma or plane design with the share `share` of its rows left out as query rows: those whose
     /// reference values `f` (one per row, such as a twin's fit at the rows) change most over
     /// their neighbours, measured by `Σ_k (f_{N_k(i)} − f_i)²` (ties to the lower row index).
     /// The rows still serve as neighbours of the others. Where f changes faster than the
@@ -737,10 +738,16 @@ pub const PLANE_MAX_INPUTS: usize = 30;
 /// value at `z_i` of the least-squares plane through the neighbours' `(z_j, y_j)`. With the
 /// neighbours' inputs centred, `u_j = z_j − z_i − ū`, the plane's value at z_i is
 /// `ȳ − ūᵀb` with `b = (UᵀU + λI)⁻¹ Uᵀy`, so `w = 1/m − U (UᵀU + λI)⁻¹ ū`. The weights sum to 1
-/// whatever λ (a constant f leaves no residual); λ is 0 unless UᵀU is singular to working
-/// precision (neighbours on a line, a constant input), and then the smallest multiple of
-/// `10⁻¹² tr(UᵀU)` (times ten each try) that makes it positive definite, so the plane is
-/// still defined and the estimator exact for the directions the neighbours span.
+/// whatever λ (a constant f leaves no residual). An input on which every neighbour has the same
+/// value (copies of one row, an indicator that only the row itself has) says nothing about the
+/// plane's slope along it: its column of U is set to exactly 0 and left out of ū, since the
+/// rounding left by centring would otherwise be read as a direction and make the weights huge.
+/// λ is 0 unless UᵀU is singular to working precision (neighbours on a line), and then the
+/// smallest multiple of `10⁻¹² tr(UᵀU)` (times ten each try) that makes it positive definite,
+/// so the plane is still defined and the estimator exact for the directions the neighbours
+/// span. Finally the weights are shifted equally so that they sum to 1 in floating point too,
+/// and when they are not finite or their squares sum past 10¹² the neighbours' plain mean is
+/// used instead (a plane so ill-determined reads nothing useful).
 fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(usize, f64)> {
     let m = l.len();
     let p = z.ncols();
@@ -755,9 +762,28 @@ fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(u
         }
     }
     ubar.iter_mut().for_each(|u| *u /= mf);
+    // Inputs on which every neighbour agrees: no slope along them can be fitted.
+    let shared: Vec<bool> = (0..p)
+        .map(|c| l.iter().all(|&(j, _)| z[[j, c]] == z[[l[0].0, c]]))
+        .collect();
+    for (u, &sh) in ubar.iter_mut().zip(&shared) {
+        if sh {
+            *u = 0.0;
+        }
+    }
     let u: Vec<Vec<f64>> = l
         .iter()
-        .map(|&(j, _)| (0..p).map(|c| z[[j, c]] - z[[i, c]] - ubar[c]).collect())
+        .map(|&(j, _)| {
+            (0..p)
+                .map(|c| {
+                    if shared[c] {
+                        0.0
+                    } else {
+                        z[[j, c]] - z[[i, c]] - ubar[c]
+                    }
+                })
+                .collect()
+        })
         .collect();
     let mut g = vec![0.0; p * p];
     for r in &u {
@@ -783,7 +809,8 @@ fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(u
             break vec![0.0; p];
         }
     };
-    l.iter()
+    let mut w: Vec<(usize, f64)> = l
+        .iter()
         .zip(&u)
         .map(|(&(j, _), r)| {
             (
@@ -791,8 +818,20 @@ fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(u
                 1.0 / mf - r.iter().zip(&v).map(|(a, b)| a * b).sum::<f64>(),
             )
         })
-        .collect()
+        .collect();
+    let shift = (1.0 - w.iter().map(|&(_, a)| a).sum::<f64>()) / mf;
+    w.iter_mut().for_each(|(_, a)| *a += shift);
+    let sq: f64 = w.iter().map(|&(_, a)| a * a).sum();
+    if !(sq.is_finite() && sq <= PLANE_MAX_SQUARED_WEIGHTS) {
+        w.iter_mut().for_each(|(_, a)| *a = 1.0 / mf);
+    }
+    w
 }
+
+/// Largest sum of squared weights a row's plane may have before [`plane_weights`] falls back to
+/// the neighbours' plain mean (a pseudo-residual whose noise variance is 10¹² times σ² carries
+/// no information, and its square would swamp the sum in rounding).
+const PLANE_MAX_SQUARED_WEIGHTS: f64 = 1e12;
 
 /// Solves `(G + λI) v = b` for a symmetric p × p `G` (row-major) by Cholesky; `None` when
 /// `G + λI` is not positive definite to working precision (a pivot at or below `10⁻¹⁰` of the
@@ -879,17 +918,20 @@ fn plane_estimate(
 /// `tr(A²)` of the plane estimator's `A = (1/m) Σ_i c_i b_i b_iᵀ` with `b_i = e_i − Σ_j w_ij e_j`:
 /// `(1/m²) Σ_{i,i'} c_i c_i' (b_iᵀ b_i')²`, summed over the pairs of contrasts that share a row.
 fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
-    let contrast = |i: usize| -> Vec<(usize, f64)> {
-        if w[i].is_empty() {
-            return Vec::new();
-        }
-        std::iter::once((i, 1.0))
-            .chain(w[i].iter().map(|&(j, a)| (j, -a)))
-            .collect()
-    };
+    let contrasts: Vec<Vec<(usize, f64)>> = (0..w.len())
+        .map(|i| {
+            if w[i].is_empty() {
+                return Vec::new();
+            }
+            std::iter::once((i, 1.0))
+                .chain(w[i].iter().map(|&(j, a)| (j, -a)))
+                .collect()
+        })
+        .collect();
+    let contrast = |i: usize| contrasts[i].as_slice();
     let mut users: Vec<Vec<usize>> = vec![Vec::new(); n];
-    for i in 0..w.len() {
-        for (r, _) in contrast(i) {
+    for (i, b) in contrasts.iter().enumerate() {
+        for &(r, _) in b {
             users[r].push(i);
         }
     }
@@ -902,10 +944,10 @@ fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
         if bi.is_empty() {
             continue;
         }
-        for &(r, v) in &bi {
+        for &(r, v) in bi {
             dense[r] += v;
         }
-        for &(r, _) in &bi {
+        for &(r, _) in bi {
             for &k in &users[r] {
                 if stamp[k] == i {
                     continue;
@@ -915,7 +957,7 @@ fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
                 total += c[i] * c[k] * dot * dot;
             }
         }
-        for &(r, _) in &bi {
+        for &(r, _) in bi {
             dense[r] = 0.0;
         }
     }
@@ -1287,6 +1329,74 @@ mod tests {
             let v = dc.value(fc.view());
             assert!(v.is_finite() && v.abs() < 1e-10, "p = {p}: {v}");
             assert!(dc.value(Array1::from_elem(n, 7.0).view()).abs() < 1e-20);
+        }
+    }
+
+    #[test]
+    fn the_plane_cancels_a_large_constant_when_neighbours_share_an_input_the_row_lacks() {
+        // Found by a second reading: when every neighbour of a row has the same value on an
+        // input the row does not (an indicator only the row has; copies of one other point),
+        // centring left rounding in that column, the ridge read it as a direction and the
+        // weights stopped summing to 1, so a response level of 1000 leaked into σ̂² (a twin
+        // wrote sd 49 for a true 0.1). Exact: the weights sum to 1, so a constant, however
+        // large, gives 0; and a response linear in the other input too.
+        let mut rng = ChaCha8Rng::seed_from_u64(17);
+        // Whether the rounding appears depends on the indicator's standardized values, so on
+        // the table's size: every size from 300 to 311 (the bug showed at 4 of these 12).
+        for n in 300..312 {
+            let x = Array2::from_shape_fn((n, 2), |(i, j)| {
+                if j == 0 {
+                    rng.gen::<f64>()
+                } else {
+                    f64::from(u8::from(i == 0))
+                }
+            });
+            let d = Design::new(Method::Plane, x.view()).unwrap();
+            let level = Array1::from_elem(n, 1000.0);
+            let v = d.value(level.view());
+            assert!(v.abs() < 1e-16, "n = {n}: {v}");
+        }
+        let n = 310;
+        let x = Array2::from_shape_fn((n, 2), |(i, j)| {
+            if j == 0 {
+                rng.gen::<f64>()
+            } else {
+                f64::from(u8::from(i == 7))
+            }
+        });
+        // Ten points written twelve times each, and forty single rows near them.
+        let mut dup = Array2::zeros((160, 2));
+        for r in 0..160 {
+            let (a, b) = if r < 120 {
+                ((r % 10) as f64 * 0.1, (r % 10) as f64 * 0.07)
+            } else {
+                let k = r % 10;
+                (
+                    k as f64 * 0.1 + 0.01 * rng.gen::<f64>(),
+                    k as f64 * 0.07 + 0.01,
+                )
+            };
+            dup[[r, 0]] = a;
+            dup[[r, 1]] = b;
+        }
+        for x in [&x, &dup] {
+            let d = Design::new(Method::Plane, x.view()).unwrap();
+            let m = x.nrows();
+            let level = Array1::from_elem(m, 1000.0);
+            assert!(
+                d.value(level.view()).abs() < 1e-16,
+                "{}",
+                d.value(level.view())
+            );
+            let line = Array1::from_shape_fn(m, |i| 1000.0 + 3.0 * x[[i, 0]]);
+            let v = d.value(line.view());
+            assert!(v.abs() < 1e-3 * 9.0 / m as f64, "{v}");
+            let noisy = Array1::from_shape_fn(m, |i| {
+                let z: f64 = StandardNormal.sample(&mut rng);
+                line[i] + 0.01 * z
+            });
+            let v = d.value(noisy.view());
+            assert!(v > 0.5e-4 && v < 2e-4, "σ̂² {v} against 1e-4");
         }
     }
 
