@@ -810,6 +810,17 @@ fn twin_with_resampled_residuals_keeps_a_skewed_noise() {
     );
 }
 
+/// `lossprism twin` on the table `csv` (target `y`) written to a fresh directory, with the
+/// options of [`opts`] as `edit` changes them: its terminal message and the scenario it wrote.
+fn twin_of_csv(csv: &str, edit: impl Fn(&mut TwinOptions)) -> (String, String) {
+    let dir = tempfile::tempdir().unwrap();
+    fs::write(dir.path().join("t.csv"), csv).unwrap();
+    let mut o = opts(dir.path(), false, "y");
+    edit(&mut o);
+    let msg = twin::command(&o).expect("twin");
+    (msg, fs::read_to_string(&o.out).unwrap())
+}
+
 #[test]
 fn the_noise_spread_line_tells_a_fan_from_constant_noise() {
     // Two invented 1-input tables of 300 rows, the same truth: noise sd 1 everywhere, and noise
@@ -817,8 +828,7 @@ fn the_noise_spread_line_tells_a_fan_from_constant_noise() {
     // and suggest `--varying`, say so in the scenario's comments, and then explain the heavy
     // residual tails by it; on constant noise it must find no sign (docs/twin-calibration.md
     // §2.10: 0 of 270 constant-noise tables and 192 of 240 varying ones called varying).
-    let run = |fan: bool| -> (String, String) {
-        let dir = tempfile::tempdir().unwrap();
+    let run = |fan: bool| {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(41);
         let mut s = String::from("x,y\n");
         for _ in 0..300 {
@@ -827,10 +837,7 @@ fn the_noise_spread_line_tells_a_fan_from_constant_noise() {
             let sd = if fan { 0.1 + 3.0 * x } else { 1.0 };
             s.push_str(&format!("{x},{}\n", (3.0 * x).sin() + sd * z));
         }
-        fs::write(dir.path().join("t.csv"), s).unwrap();
-        let o = opts(dir.path(), false, "y");
-        let msg = twin::command(&o).expect("twin");
-        (msg, fs::read_to_string(&o.out).unwrap())
+        twin_of_csv(&s, |_| {})
     };
     let (fan_msg, fan_text) = run(true);
     let line = |m: &str| {
@@ -862,8 +869,7 @@ fn a_twin_says_why_it_reads_a_low_noise_table_with_the_plane() {
     // measure its noise with the plane, say why on screen and in the scenario's comments, and
     // record `method = "plane"`; the second keeps the Gamma test and prints no such line
     // (docs/twin-calibration.md §2.11).
-    let run = |sd: f64| -> (String, String) {
-        let dir = tempfile::tempdir().unwrap();
+    let run = |sd: f64| {
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(43);
         let mut s = String::from("a,b,y\n");
         for _ in 0..300 {
@@ -874,11 +880,7 @@ fn a_twin_says_why_it_reads_a_low_noise_table_with_the_plane() {
                 2.0 * (3.0 * a).sin() + b * b + sd * z
             ));
         }
-        fs::write(dir.path().join("t.csv"), s).unwrap();
-        let mut o = opts(dir.path(), false, "y");
-        o.fidelity = 0;
-        let msg = twin::command(&o).expect("twin");
-        (msg, fs::read_to_string(&o.out).unwrap())
+        twin_of_csv(&s, |o| o.fidelity = 0)
     };
     let (msg, text) = run(0.2);
     assert!(msg.contains("Noise estimator: the plane, since"), "{msg}");

@@ -31,6 +31,7 @@
 
 use ndarray::{ArrayView1, ArrayView2};
 
+use crate::family::linalg::solve_spd;
 use crate::family::neighbours::{NeighbourIndex, Scratch};
 
 /// Which estimator.
@@ -325,8 +326,8 @@ impl Design {
     /// Query rows the estimate averages over (fewer than the rows after [`Design::trimmed`]).
     pub fn query_rows(&self) -> usize {
         match &self.kind {
-            DesignKind::Gamma { nn, .. } => gamma_query_rows(nn),
-            DesignKind::Plane { w, .. } => gamma_query_rows(w),
+            DesignKind::Gamma { nn, .. } => query_rows_of(nn),
+            DesignKind::Plane { w, .. } => query_rows_of(w),
             _ => self.n,
         }
     }
@@ -379,7 +380,7 @@ impl Design {
             }
             DesignKind::Gamma { nn, delta } => {
                 let c = intercept_weights(delta);
-                let used = gamma_query_rows(nn).max(1) as f64;
+                let used = query_rows_of(nn).max(1) as f64;
                 pair_trace_of_square(nn.len(), |i, out| {
                     out.extend(
                         nn[i]
@@ -431,7 +432,7 @@ impl Design {
             }
             DesignKind::Gamma { nn, delta } => {
                 let c = intercept_weights(delta);
-                let used = gamma_query_rows(nn).max(1) as f64;
+                let used = query_rows_of(nn).max(1) as f64;
                 for (i, list) in nn.iter().enumerate() {
                     for (&(j, _), ck) in list.iter().zip(&c) {
                         let w = ck / (2.0 * used);
@@ -454,7 +455,7 @@ impl Design {
                 }
             }
             DesignKind::Plane { w, c } => {
-                let used = gamma_query_rows(w).max(1) as f64;
+                let used = query_rows_of(w).max(1) as f64;
                 for (i, (list, ci)) in w.iter().zip(c).enumerate() {
                     if list.is_empty() {
                         continue;
@@ -641,10 +642,25 @@ pub fn gamma_test(x: ArrayView2<'_, f64>, y: ArrayView1<'_, f64>) -> Option<Nois
     estimate(Method::Gamma, x, y)
 }
 
-/// Query rows of a Gamma design: every row, or those a trimmed design kept (an empty neighbour
-/// list is a left-out row).
-fn gamma_query_rows(nn: &[Vec<(usize, f64)>]) -> usize {
+/// Query rows of a design with one neighbour list per row (Gamma, plane): every row, or those
+/// a trimmed design kept (an empty list is a left-out row).
+fn query_rows_of(nn: &[Vec<(usize, f64)>]) -> usize {
     nn.iter().filter(|l| !l.is_empty()).count()
+}
+
+/// The responses each kept query row's term reads (the row and its neighbours), for
+/// `dependent_var_of_mean`.
+fn uses_of(lists: &[Vec<(usize, f64)>]) -> Vec<Vec<usize>> {
+    lists
+        .iter()
+        .enumerate()
+        .filter(|(_, l)| !l.is_empty())
+        .map(|(i, l)| {
+            std::iter::once(i)
+                .chain(l.iter().map(|&(j, _)| j))
+                .collect()
+        })
+        .collect()
 }
 
 fn gamma_estimate(
@@ -661,7 +677,7 @@ fn gamma_estimate(
             gamma[k] += 0.5 * (y[j] - y[i]) * (y[j] - y[i]);
         }
     }
-    let used = gamma_query_rows(nn).max(1);
+    let used = query_rows_of(nn).max(1);
     gamma.iter_mut().for_each(|g| *g /= used as f64);
     let a = line_intercept(delta, &gamma);
     if !with_se {
@@ -681,16 +697,9 @@ fn gamma_estimate(
                 .sum()
         })
         .collect();
-    let uses: Vec<Vec<usize>> = rows()
-        .map(|(i, list)| {
-            std::iter::once(i)
-                .chain(list.iter().map(|&(j, _)| j))
-                .collect()
-        })
-        .collect();
     NoiseEstimate {
         value: a,
-        stderr: dependent_var_of_mean(&u, &uses, n).sqrt(),
+        stderr: dependent_var_of_mean(&u, &uses_of(nn), n).sqrt(),
         method: Method::Gamma,
     }
 }
@@ -797,7 +806,7 @@ fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(u
     // v = (UᵀU + λI)⁻¹ ū by Cholesky, λ raised until it succeeds.
     let mut lambda = 0.0;
     let v = loop {
-        if let Some(v) = cholesky_solve(&g, lambda, &ubar, p) {
+        if let Some(v) = ridge_solve(&g, lambda, &ubar, p) {
             break v;
         }
         lambda = if lambda == 0.0 {
@@ -833,10 +842,10 @@ fn plane_weights(z: ArrayView2<'_, f64>, i: usize, l: &[(usize, f64)]) -> Vec<(u
 /// no information, and its square would swamp the sum in rounding).
 const PLANE_MAX_SQUARED_WEIGHTS: f64 = 1e12;
 
-/// Solves `(G + λI) v = b` for a symmetric p × p `G` (row-major) by Cholesky; `None` when
-/// `G + λI` is not positive definite to working precision (a pivot at or below `10⁻¹⁰` of the
-/// largest diagonal entry, or not finite).
-fn cholesky_solve(g: &[f64], lambda: f64, b: &[f64], p: usize) -> Option<Vec<f64>> {
+/// Solves `(G + λI) v = b` for a symmetric p × p `G` (row-major) by Cholesky
+/// ([`solve_spd`]); `None` when `G + λI` is not positive definite to working precision (a
+/// pivot at or below `10⁻¹⁰` of the largest diagonal entry) or the solution is not finite.
+fn ridge_solve(g: &[f64], lambda: f64, b: &[f64], p: usize) -> Option<Vec<f64>> {
     if p == 0 {
         return Some(Vec::new());
     }
@@ -848,29 +857,7 @@ fn cholesky_solve(g: &[f64], lambda: f64, b: &[f64], p: usize) -> Option<Vec<f64
     if !(scale > 0.0 && scale.is_finite()) {
         return None;
     }
-    let mut low = vec![0.0; p * p];
-    for r in 0..p {
-        for c in 0..=r {
-            let s = a[r * p + c] - (0..c).map(|k| low[r * p + k] * low[c * p + k]).sum::<f64>();
-            if r == c {
-                if s.is_nan() || s <= 1e-10 * scale || !s.is_finite() {
-                    return None;
-                }
-                low[r * p + r] = s.sqrt();
-            } else {
-                low[r * p + c] = s / low[c * p + c];
-            }
-        }
-    }
-    let mut y = vec![0.0; p];
-    for r in 0..p {
-        y[r] = (b[r] - (0..r).map(|k| low[r * p + k] * y[k]).sum::<f64>()) / low[r * p + r];
-    }
-    let mut v = vec![0.0; p];
-    for r in (0..p).rev() {
-        v[r] = (y[r] - (r + 1..p).map(|k| low[k * p + r] * v[k]).sum::<f64>()) / low[r * p + r];
-    }
-    v.iter().all(|x| x.is_finite()).then_some(v)
+    solve_spd(&a, b, p, 1e-10 * scale).filter(|v| v.iter().all(|x| x.is_finite()))
 }
 
 /// `σ̂² = (1/m) Σ_i c_i (y_i − Σ_j w_ij y_j)²` over the m query rows; standard error as the
@@ -891,7 +878,7 @@ fn plane_estimate(
         let fit: f64 = l.iter().map(|&(j, a)| a * y[j]).sum();
         ci * (y[i] - fit) * (y[i] - fit)
     };
-    let used = gamma_query_rows(w).max(1) as f64;
+    let used = query_rows_of(w).max(1) as f64;
     let value = rows().map(|(i, (l, &ci))| term(i, l, ci)).sum::<f64>() / used;
     if !with_se {
         return NoiseEstimate {
@@ -901,16 +888,9 @@ fn plane_estimate(
         };
     }
     let u: Vec<f64> = rows().map(|(i, (l, &ci))| term(i, l, ci)).collect();
-    let uses: Vec<Vec<usize>> = rows()
-        .map(|(i, (l, _))| {
-            std::iter::once(i)
-                .chain(l.iter().map(|&(j, _)| j))
-                .collect()
-        })
-        .collect();
     NoiseEstimate {
         value,
-        stderr: dependent_var_of_mean(&u, &uses, y.len()).sqrt(),
+        stderr: dependent_var_of_mean(&u, &uses_of(w), y.len()).sqrt(),
         method: Method::Plane,
     }
 }
@@ -935,7 +915,7 @@ fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
             users[r].push(i);
         }
     }
-    let used = gamma_query_rows(w).max(1) as f64;
+    let used = query_rows_of(w).max(1) as f64;
     let mut dense = vec![0.0; n];
     let mut stamp = vec![usize::MAX; w.len()];
     let mut total = 0.0;

@@ -1,6 +1,48 @@
 //! Small dense linear algebra shared by the linear families (pure Rust, no BLAS/LAPACK):
 //! a left-looking Householder QR with optional dropping of dependent columns (poly; minnorm and
-//! ridge without dropping) and a one-sided Jacobi SVD (ridge, minnorm).
+//! ridge without dropping), a one-sided Jacobi SVD (ridge, minnorm), and a Cholesky solve of a
+//! small symmetric positive definite system ([`solve_spd`]: the twin's local-linear reference and
+//! the plane noise estimator).
+
+/// Solves the symmetric positive definite `k × k` system `a w = b` (row-major `a`) by Cholesky;
+/// `None` when a squared pivot is at or below `min_pivot` (0: not positive) or NaN. Shared by
+/// the local-linear reference and the plane noise estimator.
+pub fn solve_spd(a: &[f64], b: &[f64], k: usize, min_pivot: f64) -> Option<Vec<f64>> {
+    let mut l = vec![0.0; k * k];
+    for i in 0..k {
+        for j in 0..=i {
+            let mut s = a[i * k + j];
+            for m in 0..j {
+                s -= l[i * k + m] * l[j * k + m];
+            }
+            if i == j {
+                if s.is_nan() || s <= min_pivot {
+                    return None;
+                }
+                l[i * k + i] = s.sqrt();
+            } else {
+                l[i * k + j] = s / l[j * k + j];
+            }
+        }
+    }
+    let mut z = vec![0.0; k];
+    for i in 0..k {
+        let mut s = b[i];
+        for m in 0..i {
+            s -= l[i * k + m] * z[m];
+        }
+        z[i] = s / l[i * k + i];
+    }
+    let mut w = vec![0.0; k];
+    for i in (0..k).rev() {
+        let mut s = z[i];
+        for m in i + 1..k {
+            s -= l[m * k + i] * w[m];
+        }
+        w[i] = s / l[i * k + i];
+    }
+    Some(w)
+}
 
 /// Left-looking Householder QR of a column-major `rows × cols` matrix, optionally dropping
 /// (numerically) dependent columns.

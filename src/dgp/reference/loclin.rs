@@ -15,6 +15,7 @@
 
 use ndarray::{Array2, ArrayView2};
 
+use crate::family::linalg::solve_spd;
 use crate::family::standardize::Standardizer;
 
 /// Bandwidths tried by cross-validation (sd units of the standardized inputs).
@@ -42,45 +43,6 @@ fn standardized(x: ArrayView2<'_, f64>, std: &Standardizer) -> Array2<f64> {
         }
     }
     z
-}
-
-/// Solves the symmetric positive definite `k × k` system `a w = b` (row-major `a`) by Cholesky;
-/// `None` when a pivot is not positive.
-pub(crate) fn solve_spd(a: &[f64], b: &[f64], k: usize) -> Option<Vec<f64>> {
-    let mut l = vec![0.0; k * k];
-    for i in 0..k {
-        for j in 0..=i {
-            let mut s = a[i * k + j];
-            for m in 0..j {
-                s -= l[i * k + m] * l[j * k + m];
-            }
-            if i == j {
-                if s.is_nan() || s <= 0.0 {
-                    return None;
-                }
-                l[i * k + i] = s.sqrt();
-            } else {
-                l[i * k + j] = s / l[j * k + j];
-            }
-        }
-    }
-    let mut z = vec![0.0; k];
-    for i in 0..k {
-        let mut s = b[i];
-        for m in 0..i {
-            s -= l[i * k + m] * z[m];
-        }
-        z[i] = s / l[i * k + i];
-    }
-    let mut w = vec![0.0; k];
-    for i in (0..k).rev() {
-        let mut s = z[i];
-        for m in i + 1..k {
-            s -= l[m * k + i] * w[m];
-        }
-        w[i] = s / l[i * k + i];
-    }
-    Some(w)
 }
 
 /// Scratch of a prediction (reused across predictions on one thread).
@@ -152,7 +114,7 @@ fn at_point(
         for r in 1..k {
             s.a[r * k + r] += SLOPE_RIDGE * h * h * sw;
         }
-        *o = match solve_spd(&s.a, &s.b, k) {
+        *o = match solve_spd(&s.a, &s.b, k, 0.0) {
             Some(beta) if beta[0].is_finite() => beta[0],
             _ => swy / sw,
         };

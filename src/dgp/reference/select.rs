@@ -27,9 +27,10 @@
 use ndarray::{ArrayView1, ArrayView2, Axis};
 
 use super::forest::{self, ForestParams};
-use super::loclin::{self, solve_spd};
+use super::loclin;
 use super::{Candidate, Choice, Reference};
 use crate::dataset::noise::mean_se;
+use crate::family::linalg::solve_spd;
 use crate::family::neighbours::{NeighbourIndex, Scratch};
 use crate::family::standardize::Standardizer;
 use crate::rng::{fold_assignment, purpose, stream};
@@ -167,7 +168,7 @@ pub fn nnls(cols: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
         for r in 0..q {
             a[r * q + r] += 1e-10 * tr;
         }
-        let Some(w) = solve_spd(&a, &b, q) else {
+        let Some(w) = solve_spd(&a, &b, q, 0.0) else {
             continue;
         };
         if w.iter().any(|&v| v < 0.0 || !v.is_finite()) {
