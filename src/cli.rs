@@ -115,6 +115,11 @@ pub struct TwinArgs {
     /// `on` always, `off` never (varying noise: off).
     #[arg(long, default_value = "auto", value_name = "auto|on|off")]
     pub twicing: String,
+    /// Sharpening of the regression reference after cross-validation tuned it: its k, leaf
+    /// size and bandwidth times F (in [0.25, 1]; 1 keeps the cross-validated tuning), so that
+    /// the twin's truth keeps more of the curvature the families' bias comes from.
+    #[arg(long, default_value_t = crate::dgp::twin::SHARPEN, value_name = "F")]
+    pub sharpen: f64,
     /// Where to write the scenario.
     #[arg(long, default_value = "twin.toml", value_name = "FILE.toml")]
     pub out: PathBuf,

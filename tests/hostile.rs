@@ -2496,6 +2496,33 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         ],
         "--noise-estimator plane runs on at most 30 inputs",
     );
+    // A text column's indicators count as inputs, and the refusal says so.
+    let mut site_csv = String::from("a,b,c,site,zone,y\n");
+    for i in 0..90 {
+        site_csv.push_str(&format!(
+            "{},{},{},s{},z{},{}\n",
+            i % 7,
+            i % 5,
+            i % 4,
+            i % 15,
+            (i / 6) % 15,
+            i % 3
+        ));
+    }
+    t.add(
+        g,
+        "twin --noise-estimator plane on 31 inputs, 28 of them indicators",
+        &[("s.csv", site_csv.as_bytes())],
+        &[
+            "twin",
+            "s.csv",
+            "--target",
+            "y",
+            "--noise-estimator",
+            "plane",
+        ],
+        "has 31 (28 of them indicators of the text columns `site`, `zone`)",
+    );
     let wide_scenario =
         "name = \"w\"\n[data]\nsource = \"table\"\npath = \"w.csv\"\ntarget = \"y\"\nnoise_estimator = \"plane\"\n\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\n";
     t.add(
@@ -2506,7 +2533,7 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             ("s.toml", wide_scenario.as_bytes()),
         ],
         &["run", "s.toml"],
-        "the plane noise estimator runs on at most 30 input columns",
+        "`data.noise_estimator`: the plane noise estimator runs on at most 30 input columns; this table has 31; use",
     );
     t.add(
         g,
@@ -2532,6 +2559,7 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         ("--noise-estimator", Some("nn")),
         ("--reference", Some("forest")),
         ("--jitter", Some("2")),
+        ("--sharpen", Some("0.5")),
     ] {
         let mut args = vec!["twin", "t.csv", "--target", "y", "--classes", flag];
         args.extend(value);
@@ -2541,6 +2569,17 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             &[("t.csv", classes_csv.as_bytes())],
             &args,
             &format!("{flag} applies to a regression twin"),
+        );
+    }
+    // The reference's sharpening is a factor in [0.25, 1]: 0 would make every k 1, above 1 it
+    // smooths more than cross-validation chose, and a non-number has no meaning.
+    for value in ["0", "1.5", "NaN", "inf", "0.2"] {
+        t.add(
+            g,
+            format!("twin --sharpen {value}"),
+            &[("t.csv", good_csv().as_bytes())],
+            &["twin", "t.csv", "--target", "y", "--sharpen", value],
+            "--sharpen must be between 0.25 and 1",
         );
     }
     // The seed goes into the written scenario, whose integers stop at 2^63 − 1: the twin was

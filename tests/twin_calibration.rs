@@ -183,6 +183,7 @@ fn noise_study_table(
         dgp_twin::NoiseFit {
             resample: resampled_shape("LOSSPRISM_NOISE_SHAPE"),
             all_rows: false,
+            sharpen: dgp_twin::SHARPEN,
         },
         "t",
     )
@@ -557,6 +558,12 @@ fn study_table(
         } else {
             lossprism::scenario::plan::ShapeChoice::Gaussian
         },
+        // `LOSSPRISM_CALIB_SHARPEN=F` sets the reference's sharpening (`twin --sharpen`; 1: the
+        // cross-validated tuning, the twin before §0.5).
+        sharpen: std::env::var("LOSSPRISM_CALIB_SHARPEN")
+            .ok()
+            .map(|v| v.parse().expect("LOSSPRISM_CALIB_SHARPEN is a number"))
+            .unwrap_or(dgp_twin::SHARPEN),
         ..Default::default()
     };
     twin_cmd::command(&o).expect("twin");
@@ -1836,6 +1843,7 @@ fn varying_case(proc: Process, n: usize, seed: u64, fresh: &Array2<f64>) -> Vary
         dgp_twin::NoiseFit {
             resample: false,
             all_rows: std::env::var("LOSSPRISM_VARYING_TRIM").as_deref() != Ok("on"),
+            sharpen: dgp_twin::SHARPEN,
         },
         "t",
     )

@@ -959,6 +959,8 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--reference")
         } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER {
             Some("--jitter")
+        } else if a.sharpen != crate::dgp::twin::SHARPEN {
+            Some("--sharpen")
         } else {
             None
         };
@@ -995,6 +997,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         fidelity_families: Vec::new(),
         threads: a.threads,
         twicing,
+        sharpen: a.sharpen,
     })?;
     out!("{text}");
     Ok(0)

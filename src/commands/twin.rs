@@ -20,7 +20,9 @@
 //! bias-corrected pick (the lowest of 2·EL(g) − mean EL*(g) over the twins of the twin) beside
 //! it as a second opinion. The reference is twiced ([`Choice::twice`]) as `--twicing auto`
 //! decides: always with 3 or more inputs, with fewer when that lowers the held-out error
-//! ([`Twicing`]); `--twicing off` fits it once. The scenario records all of it (`[data.fit_report]`, echoed in results with
+//! ([`Twicing`]); `--twicing off` fits it once. Its smoothing is then sharpened to
+//! [`twin::SHARPEN`] of the cross-validated tuning (`--sharpen`; the noise is measured before,
+//! with the cross-validated recipe). The scenario records all of it (`[data.fit_report]`, echoed in results with
 //! the recommended picks) and says it in comments.
 //!
 //! Classification twins keep the k-NN reference (k by cross-validated Brier score) and the
@@ -130,6 +132,9 @@ pub struct TwinOptions {
     /// always with 3 or more inputs, with fewer when the cross-validation check says so;
     /// varying noise fits it once.
     pub twicing: Twicing,
+    /// Sharpening of the regression reference ([`twin::SHARPEN`]; 1: the cross-validated
+    /// tuning).
+    pub sharpen: f64,
 }
 
 impl Default for TwinOptions {
@@ -154,6 +159,7 @@ impl Default for TwinOptions {
             fidelity_families: Vec::new(),
             threads: 0,
             twicing: Twicing::Auto,
+            sharpen: twin::SHARPEN,
         }
     }
 }
@@ -486,7 +492,7 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
     }
     let once = Choice {
         twice: false,
-        ..sel.choice.clone()
+        ..fit.cv_choice.clone()
     };
     v.push(format!(
         "chosen: {} ({}){}; `run` refits it on the table from `reference`.",
@@ -502,6 +508,15 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             ""
         }
     ));
+    let sharpened = sel.choice.sharpening_words(&fit.cv_choice);
+    if !sharpened.is_empty() {
+        v.push(format!(
+            "Sharpened for the twin: {sharpened} ({} × the cross-validated tuning, so that the twin's \
+             truth keeps more of the curvature the families' bias comes from; `--sharpen 1` keeps \
+             the cross-validated values); the scenario records these.",
+            crate::fmt::fmt_exact(fit.sharpen)
+        ));
+    }
     match &fit.twicing {
         Some(c) => v.push(format!(
             "Twicing check (the recipe refitted on the same {} folds, once and twiced): \
@@ -773,6 +788,7 @@ fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, 
         twin::NoiseFit {
             resample: o.noise_shape == ShapeChoice::Residuals,
             all_rows: o.varying,
+            sharpen: o.sharpen,
         },
         source,
     )
@@ -1156,6 +1172,13 @@ pub fn classification_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &
 /// `lossprism twin`: loads the table, fits the twin, runs the fidelity check, writes the
 /// scenario to `o.out` and returns the lines to print.
 pub fn command(o: &TwinOptions) -> Result<String, Error> {
+    if !(o.sharpen.is_finite() && (twin::MIN_SHARPEN..=1.0).contains(&o.sharpen)) {
+        return Err(Error::Usage(format!(
+            "--sharpen must be between {} and 1, got {}",
+            twin::MIN_SHARPEN,
+            crate::fmt::fmt_exact(o.sharpen)
+        )));
+    }
     if !(o.jitter.is_finite() && (0.0..=crate::scenario::twin::MAX_JITTER).contains(&o.jitter)) {
         return Err(Error::Usage(format!(
             "--jitter must be between 0 and {}, got {}",
@@ -1291,7 +1314,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                     "--noise-estimator plane runs on at most {} inputs; {} has {}; use gamma or nn",
                     noise::PLANE_MAX_INPUTS,
                     o.table.display(),
-                    t.x.ncols()
+                    t.input_count_words()
                 )));
             }
             let stage = crate::progress::Stage::new();

@@ -257,6 +257,30 @@ impl Table {
             lines: idx.iter().map(|&i| self.lines[i]).collect(),
         }
     }
+
+    /// The number of input columns in words, saying how many are indicators of text columns:
+    /// `31 (29 of them indicators of the text column `site`)`, or `31` when none are.
+    pub fn input_count_words(&self) -> String {
+        let p = self.x.ncols();
+        let indicators: usize = self
+            .encodings
+            .iter()
+            .map(|e| e.levels.len().saturating_sub(1))
+            .sum();
+        if indicators == 0 {
+            return p.to_string();
+        }
+        let cols: Vec<String> = self
+            .encodings
+            .iter()
+            .map(|e| format!("`{}`", crate::fmt::clip(&e.column, 60)))
+            .collect();
+        format!(
+            "{p} ({indicators} of them indicators of the text column{} {})",
+            if cols.len() == 1 { "" } else { "s" },
+            cols.join(", ")
+        )
+    }
 }
 
 /// A table that cannot be used: the file, the line and column when known, and what is wrong.
@@ -952,13 +976,21 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
     let noise_method = req
         .noise_method
         .unwrap_or(noise::default_method(table.x.ncols()));
+    // The scenario names the estimator only in `data.noise_estimator`; the default is never
+    // refused.
+    let chosen_by = if req.noise_method.is_some() {
+        "`data.noise_estimator`: "
+    } else {
+        ""
+    };
     if noise_method == noise::Method::Gsjs && table.x.ncols() != 1 {
         return Err(TableError {
             file,
             line: None,
             column: None,
             message: format!(
-                "the GSJS noise estimator needs exactly one input column; this table has {} ({}); use `nn`, `gamma` or `plane`",
+                "{}the GSJS noise estimator needs exactly one input column; this table has {} ({}); use `nn`, `gamma` or `plane`",
+                chosen_by,
                 table.x.ncols(),
                 table.names.join(", ")
             ),
@@ -970,9 +1002,10 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
             line: None,
             column: None,
             message: format!(
-                "the plane noise estimator runs on at most {} input columns; this table has {}; use `nn` or `gamma`",
+                "{}the plane noise estimator runs on at most {} input columns; this table has {}; use `nn` or `gamma`",
+                chosen_by,
                 noise::PLANE_MAX_INPUTS,
-                table.x.ncols()
+                table.input_count_words()
             ),
         });
     }

@@ -157,6 +157,45 @@ impl Choice {
         }
     }
 
+    /// The recipe with every smoothing knob scaled by `factor` (in (0, 1]: less smoothing): the
+    /// k-NN part's k and the forest's leaf size rounded (at least 1), the local-linear bandwidth
+    /// multiplied. Candidate, weights, input weights and twicing are kept. The twin sharpens
+    /// its reference this way ([`crate::dgp::twin::SHARPEN`]).
+    pub fn sharpened(&self, factor: f64) -> Choice {
+        let scale = |v: usize| ((v as f64 * factor).round() as usize).max(1);
+        Choice {
+            k: self.k.map(scale),
+            forest: self.forest.map(|f| ForestParams {
+                min_leaf: scale(f.min_leaf),
+                ..f
+            }),
+            bandwidth: self.bandwidth.map(|h| h * factor),
+            ..self.clone()
+        }
+    }
+
+    /// What [`Choice::sharpened`] changed from `cv` to `self`, in words (`k 15 → 13, bandwidth
+    /// 0.400 → 0.340 sd`), for the parts the recipe uses; empty when nothing changed.
+    pub fn sharpening_words(&self, cv: &Choice) -> String {
+        let mut parts = Vec::new();
+        if let (Some(a), Some(b)) = (cv.k, self.k) {
+            if (self.weights[0] > 0.0 || self.family == Candidate::Knn) && a != b {
+                parts.push(format!("k {a} → {b}"));
+            }
+        }
+        if let (Some(a), Some(b)) = (cv.forest, self.forest) {
+            if self.weights[1] > 0.0 && a.min_leaf != b.min_leaf {
+                parts.push(format!("min_leaf {} → {}", a.min_leaf, b.min_leaf));
+            }
+        }
+        if let (Some(a), Some(b)) = (cv.bandwidth, self.bandwidth) {
+            if self.weights[2] > 0.0 && a != b {
+                parts.push(format!("bandwidth {a:.3} → {b:.3} sd"));
+            }
+        }
+        parts.join(", ")
+    }
+
     /// The standardizer of the k-NN and local-linear parts on rows `x`: the table's mean and
     /// sd, times the input weights of [`Choice::metric`] when there are any. Errors when the
     /// weights do not match the inputs.
@@ -1030,6 +1069,46 @@ mod tests {
             }
         }
         s
+    }
+
+    #[test]
+    fn sharpening_scales_every_knob_a_blend_uses_and_says_so() {
+        let cv = Choice {
+            family: Candidate::Blend,
+            standardize: true,
+            k: Some(15),
+            forest: Some(ForestParams {
+                trees: 100,
+                min_leaf: 5,
+                seed: 3,
+            }),
+            bandwidth: Some(0.4),
+            weights: [0.5, 0.0, 0.5],
+            cv_r2: None,
+            twice: true,
+            metric: Some(vec![1.0, 0.5]),
+        };
+        let s = cv.sharpened(0.85);
+        // 15 × 0.85 = 12.75 → 13; 5 × 0.85 = 4.25 → 4; the rest kept.
+        assert_eq!(s.k, Some(13));
+        assert_eq!(
+            s.forest.map(|f| (f.min_leaf, f.trees, f.seed)),
+            Some((4, 100, 3))
+        );
+        assert!((s.bandwidth.unwrap() - 0.34).abs() < 1e-15);
+        assert_eq!(
+            (s.weights, s.twice, &s.metric),
+            (cv.weights, cv.twice, &cv.metric)
+        );
+        // The forest has no weight in this blend: its leaf size is not reported.
+        assert_eq!(
+            s.sharpening_words(&cv),
+            "k 15 → 13, bandwidth 0.400 → 0.340 sd"
+        );
+        assert_eq!(cv.sharpened(1.0), cv);
+        assert_eq!(cv.sharpened(1.0).sharpening_words(&cv), "");
+        // Never below 1.
+        assert_eq!(Choice::knn(1, true).sharpened(0.25).k, Some(1));
     }
 
     #[test]
