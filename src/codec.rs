@@ -240,27 +240,111 @@ pub fn available_memory() -> Option<u64> {
     }
 }
 
-/// Seconds an input FIFO may take to get a writer before it is refused.
+/// Seconds an input FIFO may take to get a writer, and then to send more bytes or close, before
+/// it is refused.
 pub const FIFO_WAIT_SECONDS: u64 = 10;
 
+/// An opened input: a file, or a FIFO read through a pump thread so that a writer that falls
+/// silent without closing is an error after [`FIFO_WAIT_SECONDS`] instead of a hang.
+pub enum Input {
+    /// A regular file (or anything that is not a FIFO).
+    File(std::fs::File),
+    /// A FIFO: chunks as its pump thread read them, an empty chunk at the end.
+    Fifo {
+        /// Chunks from the pump thread.
+        rx: std::sync::mpsc::Receiver<std::io::Result<Vec<u8>>>,
+        /// The current chunk and how much of it was handed out.
+        chunk: (Vec<u8>, usize),
+        /// The writer closed (end of input).
+        done: bool,
+    },
+}
+
+impl std::io::Read for Input {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        match self {
+            Input::File(f) => f.read(buf),
+            Input::Fifo { rx, chunk, done } => {
+                while chunk.1 >= chunk.0.len() {
+                    if *done {
+                        return Ok(0);
+                    }
+                    let wait = std::time::Duration::from_secs(FIFO_WAIT_SECONDS);
+                    match rx.recv_timeout(wait) {
+                        Ok(Ok(c)) if c.is_empty() => *done = true,
+                        Ok(Ok(c)) => *chunk = (c, 0),
+                        Ok(Err(e)) => return Err(e),
+                        Err(_) => {
+                            return Err(std::io::Error::new(
+                                std::io::ErrorKind::TimedOut,
+                                format!(
+                                    "a FIFO whose writer sent nothing for {FIFO_WAIT_SECONDS} s without closing it"
+                                ),
+                            ))
+                        }
+                    }
+                }
+                let n = buf.len().min(chunk.0.len() - chunk.1);
+                buf[..n].copy_from_slice(&chunk.0[chunk.1..chunk.1 + n]);
+                chunk.1 += n;
+                Ok(n)
+            }
+        }
+    }
+}
+
 /// Opens an input file for reading. A FIFO blocks its reader until something writes to it: a
-/// FIFO that gets no writer within [`FIFO_WAIT_SECONDS`] is an error instead of a hang.
-pub fn open_input(path: &std::path::Path) -> std::io::Result<std::fs::File> {
+/// FIFO that gets no writer within [`FIFO_WAIT_SECONDS`], or whose writer then sends nothing
+/// for that long without closing, is an error instead of a hang (the pump thread left blocked
+/// ends with the process).
+pub fn open_input(path: &std::path::Path) -> std::io::Result<Input> {
+    use std::io::Read;
     use std::os::unix::fs::FileTypeExt;
     let is_fifo = std::fs::metadata(path)
         .map(|m| m.file_type().is_fifo())
         .unwrap_or(false);
     if !is_fifo {
-        return std::fs::File::open(path);
+        return std::fs::File::open(path).map(Input::File);
     }
-    let (tx, rx) = std::sync::mpsc::channel();
+    let (open_tx, open_rx) = std::sync::mpsc::channel();
+    // At most a few chunks ahead of the reader: memory stays bounded whatever the writer sends.
+    let (tx, rx) = std::sync::mpsc::sync_channel(4);
     let p = path.to_path_buf();
-    // The thread stays blocked in `open` if nothing ever writes; the process ends without it.
     std::thread::spawn(move || {
-        let _ = tx.send(std::fs::File::open(p));
+        let mut f = match std::fs::File::open(p) {
+            Ok(f) => {
+                let _ = open_tx.send(Ok(()));
+                f
+            }
+            Err(e) => {
+                let _ = open_tx.send(Err(e));
+                return;
+            }
+        };
+        loop {
+            let mut c = vec![0u8; 1 << 16];
+            match f.read(&mut c) {
+                Ok(n) => {
+                    c.truncate(n);
+                    if tx.send(Ok(c)).is_err() || n == 0 {
+                        return;
+                    }
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+                Err(e) => {
+                    let _ = tx.send(Err(e));
+                    return;
+                }
+            }
+        }
     });
-    match rx.recv_timeout(std::time::Duration::from_secs(FIFO_WAIT_SECONDS)) {
-        Ok(r) => r,
+    match open_rx.recv_timeout(std::time::Duration::from_secs(FIFO_WAIT_SECONDS)) {
+        Ok(Ok(())) => Ok(Input::Fifo {
+            rx,
+            chunk: (Vec::new(), 0),
+            done: false,
+        }),
+        Ok(Err(e)) => Err(e),
         Err(_) => Err(std::io::Error::new(
             std::io::ErrorKind::TimedOut,
             format!("a FIFO that nothing wrote to within {FIFO_WAIT_SECONDS} s"),
