@@ -896,50 +896,41 @@ fn plane_estimate(
 }
 
 /// `tr(A²)` of the plane estimator's `A = (1/m) Σ_i c_i b_i b_iᵀ` with `b_i = e_i − Σ_j w_ij e_j`:
-/// `(1/m²) Σ_{i,i'} c_i c_i' (b_iᵀ b_i')²`, summed over the pairs of contrasts that share a row.
+/// `Σ_r ‖A_r‖²`, each row `A_r = (1/m) Σ_{i : r ∈ b_i} c_i b_i[r] b_i` summed from the contrasts
+/// that touch r. The cost is `Σ_i |b_i|²`, linear in the rows whatever the inputs (summing over
+/// pairs of contrasts that share a row was quadratic where thousands of rows share a few
+/// distinct inputs).
 fn plane_trace_of_square(w: &[Vec<(usize, f64)>], c: &[f64], n: usize) -> f64 {
-    let contrasts: Vec<Vec<(usize, f64)>> = (0..w.len())
-        .map(|i| {
-            if w[i].is_empty() {
-                return Vec::new();
-            }
-            std::iter::once((i, 1.0))
-                .chain(w[i].iter().map(|&(j, a)| (j, -a)))
-                .collect()
-        })
-        .collect();
-    let contrast = |i: usize| contrasts[i].as_slice();
-    let mut users: Vec<Vec<usize>> = vec![Vec::new(); n];
-    for (i, b) in contrasts.iter().enumerate() {
-        for &(r, _) in b {
-            users[r].push(i);
+    let contrast = |i: usize| std::iter::once((i, 1.0)).chain(w[i].iter().map(|&(j, a)| (j, -a)));
+    // users[r]: (contrast i, b_i[r]) for every contrast that touches row r.
+    let mut users: Vec<Vec<(usize, f64)>> = vec![Vec::new(); n];
+    for (i, wi) in w.iter().enumerate() {
+        if wi.is_empty() {
+            continue;
+        }
+        for (r, v) in contrast(i) {
+            users[r].push((i, v));
         }
     }
     let used = query_rows_of(w).max(1) as f64;
     let mut dense = vec![0.0; n];
-    let mut stamp = vec![usize::MAX; w.len()];
+    let mut touched: Vec<usize> = Vec::new();
     let mut total = 0.0;
-    for i in 0..w.len() {
-        let bi = contrast(i);
-        if bi.is_empty() {
-            continue;
-        }
-        for &(r, v) in bi {
-            dense[r] += v;
-        }
-        for &(r, _) in bi {
-            for &k in &users[r] {
-                if stamp[k] == i {
-                    continue;
+    for user in &users {
+        for &(i, vr) in user {
+            let scale = c[i] * vr;
+            for (q, v) in contrast(i) {
+                if dense[q] == 0.0 {
+                    touched.push(q);
                 }
-                stamp[k] = i;
-                let dot: f64 = contrast(k).iter().map(|&(q, v)| v * dense[q]).sum();
-                total += c[i] * c[k] * dot * dot;
+                dense[q] += scale * v;
             }
         }
-        for &(r, _) in bi {
-            dense[r] = 0.0;
+        for &q in &touched {
+            total += dense[q] * dense[q];
+            dense[q] = 0.0;
         }
+        touched.clear();
     }
     total / (used * used)
 }
