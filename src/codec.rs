@@ -274,7 +274,12 @@ impl std::io::Read for Input {
                         Ok(Ok(c)) if c.is_empty() => *done = true,
                         Ok(Ok(c)) => *chunk = (c, 0),
                         Ok(Err(e)) => return Err(e),
-                        Err(_) => {
+                        Err(std::sync::mpsc::RecvTimeoutError::Disconnected) => {
+                            return Err(std::io::Error::other(
+                                "the FIFO's reading thread stopped before the end of input",
+                            ))
+                        }
+                        Err(std::sync::mpsc::RecvTimeoutError::Timeout) => {
                             return Err(std::io::Error::new(
                                 std::io::ErrorKind::TimedOut,
                                 format!(

@@ -958,3 +958,42 @@ fn sharpening_changes_the_twin_truth_not_the_noise_and_is_said() {
         "{msg}\n{msg1}"
     );
 }
+
+#[test]
+fn sharpening_leaves_a_varying_twin_noise_alone_when_the_knn_part_has_no_weight() {
+    // A local-linear reference carries a k-NN k only for varying noise's smoother: the
+    // sharpening scales the bandwidth the fit uses, not that k, so the written noise (its
+    // smoother's k and level) is the same bit for bit as with `--sharpen 1` (a second reading
+    // found the k scaled, and the level moved, with no line saying so).
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("t.csv"), 300, 17);
+    let csv = fs::read_to_string(dir.path().join("t.csv")).unwrap();
+    let with = |sharpen: f64| {
+        twin_of_csv(&csv, |o| {
+            o.varying = true;
+            o.reference = reference::select::Rule::Only(reference::Candidate::LocLin);
+            o.sharpen = sharpen;
+        })
+    };
+    let ((msg, text), (_, text1)) = (with(twin::TwinOptions::default().sharpen), with(1.0));
+    let noise = |t: &str| -> String {
+        let at = t.find("[data.noise]").expect("noise block");
+        t[at..]
+            .lines()
+            .take_while(|l| !l.is_empty())
+            .collect::<Vec<_>>()
+            .join("\n")
+    };
+    assert_eq!(noise(&text), noise(&text1));
+    let k = |t: &str| -> String {
+        let r = t
+            .lines()
+            .find(|l| l.starts_with("reference = {"))
+            .expect("reference");
+        let at = r.find(" k = ").expect("k");
+        r[at..].split(',').next().unwrap().to_string()
+    };
+    assert_eq!(k(&text), k(&text1));
+    assert!(msg.contains("Sharpened for the twin: bandwidth "), "{msg}");
+    assert!(!msg.contains("Sharpened for the twin: k "), "{msg}");
+}

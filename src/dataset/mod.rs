@@ -259,7 +259,7 @@ impl Table {
     }
 
     /// The number of input columns in words, saying how many are indicators of text columns:
-    /// `31 (29 of them indicators of the text column `site`)`, or `31` when none are.
+    /// `31 (28 of them indicators of the text columns `site`, `zone`)`, or `31` when none are.
     pub fn input_count_words(&self) -> String {
         let p = self.x.ncols();
         let indicators: usize = self
@@ -273,6 +273,7 @@ impl Table {
         let cols: Vec<String> = self
             .encodings
             .iter()
+            .filter(|e| e.levels.len() > 1)
             .map(|e| format!("`{}`", crate::fmt::clip(&e.column, 60)))
             .collect();
         format!(

@@ -157,19 +157,27 @@ impl Choice {
         }
     }
 
-    /// The recipe with every smoothing knob scaled by `factor` (in (0, 1]: less smoothing): the
-    /// k-NN part's k and the forest's leaf size rounded (at least 1), the local-linear bandwidth
-    /// multiplied. Candidate, weights, input weights and twicing are kept. The twin sharpens
-    /// its reference this way ([`crate::dgp::twin::SHARPEN`]).
+    /// The recipe with the smoothing knob of every part the fit uses (a positive weight)
+    /// scaled by `factor` (in (0, 1]: less smoothing): the k-NN part's k and the forest's leaf
+    /// size rounded (at least 1), the local-linear bandwidth multiplied. A part with no weight
+    /// keeps its knob (a k-NN k without weight still sets varying noise's smoother, which the
+    /// sharpening is not meant to touch). Candidate, weights, input weights and twicing are
+    /// kept. The twin sharpens its reference this way ([`crate::dgp::twin::SHARPEN`]).
     pub fn sharpened(&self, factor: f64) -> Choice {
         let scale = |v: usize| ((v as f64 * factor).round() as usize).max(1);
+        let alone = [Candidate::Knn, Candidate::Forest, Candidate::LocLin];
+        let used = |part: usize| self.weights[part] > 0.0 || self.family == alone[part];
         Choice {
-            k: self.k.map(scale),
+            k: self.k.map(|k| if used(0) { scale(k) } else { k }),
             forest: self.forest.map(|f| ForestParams {
-                min_leaf: scale(f.min_leaf),
+                min_leaf: if used(1) {
+                    scale(f.min_leaf)
+                } else {
+                    f.min_leaf
+                },
                 ..f
             }),
-            bandwidth: self.bandwidth.map(|h| h * factor),
+            bandwidth: self.bandwidth.map(|h| if used(2) { h * factor } else { h }),
             ..self.clone()
         }
     }
@@ -179,17 +187,17 @@ impl Choice {
     pub fn sharpening_words(&self, cv: &Choice) -> String {
         let mut parts = Vec::new();
         if let (Some(a), Some(b)) = (cv.k, self.k) {
-            if (self.weights[0] > 0.0 || self.family == Candidate::Knn) && a != b {
+            if a != b {
                 parts.push(format!("k {a} → {b}"));
             }
         }
         if let (Some(a), Some(b)) = (cv.forest, self.forest) {
-            if self.weights[1] > 0.0 && a.min_leaf != b.min_leaf {
+            if a.min_leaf != b.min_leaf {
                 parts.push(format!("min_leaf {} → {}", a.min_leaf, b.min_leaf));
             }
         }
         if let (Some(a), Some(b)) = (cv.bandwidth, self.bandwidth) {
-            if self.weights[2] > 0.0 && a != b {
+            if a != b {
                 parts.push(format!("bandwidth {a:.3} → {b:.3} sd"));
             }
         }
@@ -1089,11 +1097,11 @@ mod tests {
             metric: Some(vec![1.0, 0.5]),
         };
         let s = cv.sharpened(0.85);
-        // 15 × 0.85 = 12.75 → 13; 5 × 0.85 = 4.25 → 4; the rest kept.
+        // 15 × 0.85 = 12.75 → 13; the forest has no weight in this blend: its leaf size kept.
         assert_eq!(s.k, Some(13));
         assert_eq!(
             s.forest.map(|f| (f.min_leaf, f.trees, f.seed)),
-            Some((4, 100, 3))
+            Some((5, 100, 3))
         );
         assert!((s.bandwidth.unwrap() - 0.34).abs() < 1e-15);
         assert_eq!(
@@ -1105,6 +1113,26 @@ mod tests {
             s.sharpening_words(&cv),
             "k 15 → 13, bandwidth 0.400 → 0.340 sd"
         );
+        // With a forest weight, 5 × 0.85 = 4.25 → 4; without a local-linear weight the
+        // bandwidth is kept.
+        let with_forest = Choice {
+            weights: [0.5, 0.5, 0.0],
+            ..cv.clone()
+        };
+        let sf = with_forest.sharpened(0.85);
+        assert_eq!(sf.forest.map(|f| f.min_leaf), Some(4));
+        assert_eq!(sf.bandwidth, Some(0.4));
+        assert_eq!(
+            sf.sharpening_words(&with_forest),
+            "k 15 → 13, min_leaf 5 → 4"
+        );
+        // A local-linear reference keeps the k that varying noise's smoother uses.
+        let loclin = Choice {
+            family: Candidate::LocLin,
+            weights: [0.0, 0.0, 1.0],
+            ..cv.clone()
+        };
+        assert_eq!(loclin.sharpened(0.85).k, Some(15));
         assert_eq!(cv.sharpened(1.0), cv);
         assert_eq!(cv.sharpened(1.0).sharpening_words(&cv), "");
         // Never below 1.
