@@ -1713,6 +1713,11 @@ fn twin_cases(t: &mut Table) {
             "key `data.fit_report.noise.value`: must be a finite number, got NaN",
         ),
         (
+            "fit report sharpen NaN",
+            twin("[data.fit_report]\n", "[data.fit_report]\nsharpen = nan\n"),
+            "key `data.fit_report.sharpen`: must be a finite number, got NaN",
+        ),
+        (
             "fit report stderr inf",
             twin("stderr = 0.02", "stderr = inf"),
             "data.fit_report.noise.stderr",

@@ -434,12 +434,18 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     let tw = doc.scenario.twin.clone().expect("twin section");
     assert_eq!(tw.jitter, 1.0);
     assert_eq!(tw.cv_r2.len(), 4);
+    // The sharpening is recorded, echoed and said.
+    assert!(text.contains("\nsharpen = 0.85\n"), "{text}");
+    assert_eq!(tw.sharpen, Some(0.85));
     // The input weights of the reference's distances are echoed, in the table's input order,
     // and the HTML report's description says so.
     assert_eq!(Some(tw.input_weights.clone()), refit.choice.metric);
     let words = lossprism::report::html::scenario_words(&doc).join(" ");
     assert!(
-        words.contains("neighbour distances weight the standardized inputs by"),
+        words.contains("neighbour distances weight the standardized inputs by")
+            && words.contains(
+                "smoothing (k, leaf size, bandwidth of the parts it uses) was multiplied by 0.85"
+            ),
         "{words}"
     );
     // The noise estimator measured distance with the same weights: the scenario records it,
@@ -951,6 +957,8 @@ fn sharpening_changes_the_twin_truth_not_the_noise_and_is_said() {
         !msg1.contains("Sharpened") && !text1.contains("Sharpened"),
         "{msg1}"
     );
+    // The factor is recorded in `[data.fit_report]` only when there is one.
+    assert!(text.contains("\nsharpen = 0.85\n") && !text1.contains("sharpen ="));
     // Both name the cross-validated choice.
     let chosen = format!("chosen: k-NN reference (k = {k_cv}");
     assert!(

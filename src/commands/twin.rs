@@ -373,14 +373,21 @@ fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionTe
     s
 }
 
-fn fit_report_text(noise: Option<&NoiseCorrection>, fidelity: Option<&FidelityRecord>) -> String {
+fn fit_report_text(
+    sharpen: Option<f64>,
+    noise: Option<&NoiseCorrection>,
+    fidelity: Option<&FidelityRecord>,
+) -> String {
     let mut s = String::new();
-    if noise.is_none() && fidelity.is_none() {
+    if sharpen.is_none() && noise.is_none() && fidelity.is_none() {
         return s;
     }
     s.push_str(
         "\n[data.fit_report]  # measured by `lossprism twin`; informational, echoed in results\n",
     );
+    if let Some(f) = sharpen {
+        s.push_str(&format!("sharpen = {}\n", toml_f64(f)));
+    }
     if let Some(n) = noise {
         s.push_str(&format!(
             "noise = {{ method = {}, raw = {}, correction = {}, value = {}, stderr = {}, tables = {}{}{} }}\n",
@@ -1374,7 +1381,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                         TwinNoise::Varying { level: None, .. } => None,
                         _ => r.fit.noise.as_ref(),
                     };
-                    s.push_str(&fit_report_text(noise, r.fidelity));
+                    let sharpen = (r.fit.sharpen != 1.0).then_some(r.fit.sharpen);
+                    s.push_str(&fit_report_text(sharpen, noise, r.fidelity));
                 }
                 s.push_str(model);
                 s

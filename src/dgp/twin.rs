@@ -875,6 +875,9 @@ pub fn fit_regression_shaped(
 /// nothing in the run depends on it.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct FitReport {
+    /// The factor the reference's smoothing was sharpened by ([`SHARPEN`]; `None`: not
+    /// sharpened, or a twin written before the sharpening).
+    pub sharpen: Option<f64>,
     /// The noise estimate and its correction.
     pub noise: Option<NoiseRecord>,
     /// The fidelity check.

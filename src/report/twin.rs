@@ -28,6 +28,10 @@ pub struct TwinEcho {
     /// Cross-validated R² of each candidate when the choice was made (absent for older twins).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub cv_r2: Vec<CandidateR2>,
+    /// The factor the reference's smoothing (k, leaf size, bandwidth of the parts it uses) was
+    /// multiplied by after cross-validation chose it; absent when it was not sharpened.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub sharpen: Option<f64>,
     /// The smoothed bootstrap's multiplier c on Silverman's rule (0: rows resampled as they
     /// are).
     pub jitter: f64,
@@ -241,6 +245,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
         twice: r.choice.twice,
         input_weights: r.choice.metric.clone().unwrap_or_default(),
         cv_r2,
+        sharpen: rep.sharpen,
         jitter: p.jitter().map_or(0.0, |j| j.scale),
         noise: rep.noise.map(|n| NoiseEcho {
             method: n.method,
@@ -303,6 +308,12 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             } else {
                 ""
             }
+        ));
+    }
+    if let Some(f) = t.sharpen {
+        out.push(format!(
+            "After cross-validation chose it, the reference's smoothing (k, leaf size, bandwidth of the parts it uses) was multiplied by {}, so that the twin's truth keeps more of the curvature a family's bias comes from; the scenario's recipe is the sharpened one, the R² above are those of the cross-validated candidates.",
+            fmt_value(f)
         ));
     }
     if !t.input_weights.is_empty() {

@@ -128,6 +128,10 @@ pub struct CandidateNumbers {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct FitReportSpec {
+    /// The factor the reference's smoothing was sharpened by after cross-validation (absent:
+    /// none, as in twins written before the sharpening).
+    #[serde(default)]
+    pub sharpen: Option<f64>,
     /// The noise estimate and its correction.
     #[serde(default)]
     pub noise: Option<NoiseRecordSpec>,

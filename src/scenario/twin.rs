@@ -356,6 +356,9 @@ fn choice_of(
 /// `fidelity.models[1].loss`): the record is echoed in results, where it would read `null`.
 fn non_finite_in_report(r: &FitReportSpec) -> Option<(String, f64)> {
     let bad = |v: f64| (!v.is_finite()).then_some(v);
+    if let Some(v) = r.sharpen.and_then(bad) {
+        return Some(("sharpen".into(), v));
+    }
     if let Some(n) = &r.noise {
         for (key, v) in [
             ("raw", n.raw),
@@ -400,6 +403,7 @@ fn non_finite_in_report(r: &FitReportSpec) -> Option<(String, f64)> {
 /// The record of `[data.fit_report]`.
 fn report_of(r: &FitReportSpec) -> FitReport {
     FitReport {
+        sharpen: r.sharpen,
         noise: r.noise.as_ref().map(|n| NoiseRecord {
             method: n.method.clone(),
             raw: n.raw,
