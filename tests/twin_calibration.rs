@@ -183,8 +183,8 @@ fn noise_study_table(
         dgp_twin::NoiseFit {
             resample: resampled_shape("LOSSPRISM_NOISE_SHAPE"),
             all_rows: false,
-            sharpen: dgp_twin::SHARPEN,
         },
+        dgp_twin::SHARPEN,
         "t",
     )
     .expect("fits");
@@ -1843,8 +1843,8 @@ fn varying_case(proc: Process, n: usize, seed: u64, fresh: &Array2<f64>) -> Vary
         dgp_twin::NoiseFit {
             resample: false,
             all_rows: std::env::var("LOSSPRISM_VARYING_TRIM").as_deref() != Ok("on"),
-            sharpen: dgp_twin::SHARPEN,
         },
+        dgp_twin::SHARPEN,
         "t",
     )
     .expect("fits");

@@ -795,8 +795,8 @@ fn fit_table(o: &TwinOptions, t: &Table, source: &str) -> Result<RegressionFit, 
         twin::NoiseFit {
             resample: o.noise_shape == ShapeChoice::Residuals,
             all_rows: o.varying,
-            sharpen: o.sharpen,
         },
+        o.sharpen,
         source,
     )
 }
