@@ -180,7 +180,28 @@ pub fn relative_path(path: &Path, from: &Path) -> String {
     for c in &pc[common..] {
         out.push(c.as_os_str());
     }
-    out.to_string_lossy().replace('\\', "/")
+    let s = out.to_string_lossy();
+    if cfg!(windows) {
+        s.replace('\\', "/")
+    } else {
+        // On Unix a backslash is an ordinary character of a file name.
+        s.into_owned()
+    }
+}
+
+/// `s` with the characters a TOML comment cannot hold (control characters other than tab,
+/// and DEL) written as `\u{…}`, so that a column or file name with them cannot break the
+/// scenario's comment lines.
+fn comment_safe(s: &str) -> String {
+    s.chars()
+        .map(|c| {
+            if c.is_control() && c != '\t' {
+                format!("\\u{{{:x}}}", c as u32)
+            } else {
+                c.to_string()
+            }
+        })
+        .collect()
 }
 
 fn toml_str(s: &str) -> String {
@@ -190,7 +211,9 @@ fn toml_str(s: &str) -> String {
             '"' => out.push_str("\\\""),
             '\\' => out.push_str("\\\\"),
             '\n' => out.push_str("\\n"),
-            c if (c as u32) < 0x20 => out.push_str(&format!("\\u{:04x}", c as u32)),
+            c if (c as u32) < 0x20 || c == '\u{7f}' => {
+                out.push_str(&format!("\\u{:04x}", c as u32))
+            }
             c => out.push(c),
         }
     }
@@ -278,15 +301,25 @@ fn header_and_top(o: &TwinOptions, t: &Table, comments: &[String], replicates: u
     let mut s = String::new();
     s.push_str(&format!(
         "# Simulated twin of {}, written by `lossprism twin`.\n",
-        o.table.display()
+        comment_safe(&o.table.display().to_string())
     ));
     for c in comments {
-        s.push_str(&format!("# {c}\n"));
+        // One comment may hold several lines; each becomes its own comment line.
+        for line in c.split('\n') {
+            s.push_str(&format!("# {}\n", comment_safe(line)));
+        }
     }
     s.push_str("# Edit [model] to the family and grid you want to study.\n");
     s.push_str(&format!(
         "name = {}\n",
-        toml_str(&format!("{}-twin", stem_of(o)))
+        toml_str(&format!(
+            "{}-twin",
+            // A scenario's name is one line of printable text.
+            stem_of(o)
+                .chars()
+                .map(|c| if c.is_control() { '_' } else { c })
+                .collect::<String>()
+        ))
     ));
     s.push_str(&format!(
         "about = {}\n",
@@ -454,6 +487,8 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             sc.candidate.name(),
             if sc.r2.is_finite() {
                 format!("{} ± {}", fmt_num(sc.r2), fmt_se(sc.se))
+            } else if sc.candidate == Candidate::Blend {
+                "no blend".to_string()
             } else {
                 "not tried".to_string()
             },
@@ -506,7 +541,14 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
         once.describe(),
         match rule {
             Rule::Best => "highest cross-validated R²".to_string(),
-            Rule::Only(c) => format!("`--reference {}` asked for it", c.name()),
+            Rule::Only(c) if c == once.family => {
+                format!("`--reference {}` asked for it", c.name())
+            }
+            Rule::Only(c) => format!(
+                "`--reference {}` asked for it, which this table does not allow (above), so the {} stands in",
+                c.name(),
+                once.family.name()
+            ),
         },
         if sel.choice.twice {
             ", then twiced: refitted to its own in-sample residuals and added (Tukey's twicing), \
@@ -1265,6 +1307,20 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         _ => PathBuf::from("."),
     };
     let rel = relative_path(&o.table, &folder);
+    // The scenario is UTF-8 text: a path with bytes that are not UTF-8 would be written mangled
+    // and name another file (or none).
+    let resolves = |p: &Path| std::fs::canonicalize(p).ok();
+    let named = if Path::new(&rel).is_absolute() {
+        PathBuf::from(&rel)
+    } else {
+        folder.join(&rel)
+    };
+    if resolves(&named).is_none() || resolves(&named) != resolves(&o.table) {
+        return Err(Error::Usage(format!(
+            "{}: its path cannot be written in the twin scenario (a UTF-8 text file) so that `run` finds the table again (a name that is not UTF-8?); rename or move the table",
+            o.table.display()
+        )));
+    }
     let mut out = format!(
         "{}: {} rows, {} inputs ({})\n",
         o.table.display(),

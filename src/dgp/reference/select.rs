@@ -312,7 +312,14 @@ fn tune(
         } else {
             nan
         },
-        r2_se(y, &blend_cv),
+        // Weights all 0: no non-negative mix of the candidates predicts better than 0, as on
+        // a table of noise around 0 that no input predicts; a blend of nothing is no
+        // reference, so it is not a candidate (`pick` takes the best single one).
+        if w.iter().all(|v| *v == 0.0) {
+            nan
+        } else {
+            r2_se(y, &blend_cv)
+        },
     ];
     let loclin_cv = if try_loclin {
         level1.pop().unwrap_or_default()
@@ -381,8 +388,14 @@ fn pick(rule: Rule, r2: &[(f64, f64); 4]) -> Candidate {
             order[best]
         }
     };
-    if chosen == Candidate::LocLin && r2[2].0.is_nan() {
+    let chosen = if chosen == Candidate::LocLin && r2[2].0.is_nan() {
         Candidate::Blend
+    } else {
+        chosen
+    };
+    if chosen == Candidate::Blend && r2[3].0.is_nan() {
+        // No blend (every weight 0): the best single candidate.
+        pick(Rule::Best, &[r2[0], r2[1], r2[2], (f64::NAN, f64::NAN)])
     } else {
         chosen
     }
@@ -527,7 +540,11 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             candidate: Candidate::Blend,
             r2: r2[3].0,
             se: r2[3].1,
-            tuned: fmt_w(&t.weights),
+            tuned: if t.weights.iter().all(|v| *v == 0.0) {
+                "every weight 0: no mix of the others predicts better than 0".to_string()
+            } else {
+                fmt_w(&t.weights)
+            },
         },
     ];
     let chosen = pick(rule, &r2);
