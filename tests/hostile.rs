@@ -1718,6 +1718,19 @@ fn twin_cases(t: &mut Table) {
             "key `data.fit_report.sharpen`: must be a finite number, got NaN",
         ),
         (
+            "fit report sharpen out of range",
+            twin("[data.fit_report]\n", "[data.fit_report]\nsharpen = -5\n"),
+            "key `data.fit_report.sharpen`: must be between 0.25 and 1",
+        ),
+        (
+            "reference cv_r2 NaN",
+            twin(
+                "loclin = 0.4 } }",
+                "loclin = 0.4 }, cv_r2 = { knn = nan, blend = 0.5 } }",
+            ),
+            "key `data.reference.cv_r2.knn`: must be a finite number",
+        ),
+        (
             "fit report stderr inf",
             twin("stderr = 0.02", "stderr = inf"),
             "data.fit_report.noise.stderr",
@@ -2323,6 +2336,15 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["run", "s.toml", "--stop-after-blocks", "1"],
         "--checkpoint",
     );
+    for ck in ["-", "/dev/null"] {
+        t.add(
+            g,
+            format!("--checkpoint {ck} cannot be read back"),
+            s,
+            &["run", "s.toml", "--checkpoint", ck],
+            "a checkpoint must be a file",
+        );
+    }
     t.add(
         g,
         "--assess without a holdout",

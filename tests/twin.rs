@@ -1094,3 +1094,42 @@ fn odd_file_and_column_names_give_a_twin_that_finds_its_table() {
         "{e}"
     );
 }
+
+/// `twin --out -` writes the scenario alone on standard output (what the README promises for
+/// `-`): the words go to standard error, and the captured output validates as a scenario.
+#[test]
+fn twin_to_standard_output_writes_the_scenario_alone() {
+    let bin = env!("CARGO_BIN_EXE_lossprism");
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("t.csv"), 80, 11);
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args([
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--out",
+            "-",
+        ])
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert!(
+        err.contains("Reference for E[y | x]") && err.contains("standard output"),
+        "{err}"
+    );
+    let toml = String::from_utf8(o.stdout).unwrap();
+    assert!(toml.starts_with("# Simulated twin"), "{toml}");
+    assert!(
+        !toml
+            .lines()
+            .any(|l| l.starts_with("t.csv: ") || l.starts_with("wrote ")),
+        "the terminal's words are not in the scenario: {toml}"
+    );
+    fs::write(dir.path().join("saved.toml"), &toml).unwrap();
+    load(&dir.path().join("saved.toml"));
+}

@@ -279,6 +279,16 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         set.input("the scenario's data file", &p);
     }
     if let Some(ck) = &args.checkpoint {
+        // A checkpoint is rewritten as the run goes and read back to resume: standard
+        // output, a device or a pipe cannot hold it.
+        let not_a_file = std::fs::metadata(ck).is_ok_and(|m| !m.is_file());
+        if ck.as_os_str() == "-" || not_a_file {
+            return Err(Error::Usage(format!(
+                "--checkpoint {}: a checkpoint must be a file (it is rewritten as the run goes \
+                 and read back to resume), not standard output, a device, a pipe or a folder",
+                ck.display()
+            )));
+        }
         set.input("the checkpoint file", ck);
     }
     let ids = o.register(&mut set)?;
@@ -977,6 +987,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             a.fidelity_replicates
         )));
     }
+    let out_is_stdout = a.out.as_os_str() == "-";
     let text = twin::command(&twin::TwinOptions {
         table: a.table,
         target: a.target,
@@ -999,7 +1010,13 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         twicing,
         sharpen: a.sharpen,
     })?;
-    out!("{text}");
+    if out_is_stdout {
+        // The scenario went to standard output: the words go to standard error, so the
+        // output is the scenario alone (`lossprism twin T --target y --out - > twin.toml`).
+        note!("{text}");
+    } else {
+        out!("{text}");
+    }
     Ok(0)
 }
 

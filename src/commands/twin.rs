@@ -1522,10 +1522,17 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         &[("the table", o.table.as_path())],
         text.as_bytes(),
     )?;
-    out.push_str(&format!(
-        "wrote {} (edit [model]; run it with `lossprism run {}`)\n",
-        o.out.display(),
-        o.out.display()
-    ));
+    if o.out.as_os_str() == "-" {
+        out.push_str(
+            "wrote the scenario to standard output (save it in the folder you ran this from, \
+             whose path to the table it holds; edit [model]; run it with `lossprism run FILE`)\n",
+        );
+    } else {
+        out.push_str(&format!(
+            "wrote {} (edit [model]; run it with `lossprism run {}`)\n",
+            o.out.display(),
+            o.out.display()
+        ));
+    }
     Ok(out)
 }

@@ -321,6 +321,26 @@ fn choice_of(
             "twicing applies to a regression twin with constant noise (`sd`)".into(),
         ));
     }
+    if let Some(c) = &r.cv_r2 {
+        // A candidate that was not tried has no key; a value given must be a number (it is
+        // echoed in results, where NaN would read as a candidate that was never scored).
+        for (name, v) in [
+            ("knn", c.knn),
+            ("forest", c.forest),
+            ("loclin", c.loclin),
+            ("blend", c.blend),
+        ] {
+            if let Some(v) = v.filter(|v| !v.is_finite()) {
+                return Err(err(
+                    fam_span,
+                    &format!("data.reference.cv_r2.{name}"),
+                    format!(
+                        "must be a finite number, got {v} (leave the key out for a candidate that was not tried)"
+                    ),
+                ));
+            }
+        }
+    }
     let cv_r2 = r.cv_r2.as_ref().map(|c| {
         [
             c.knn.unwrap_or(f64::NAN),
@@ -784,6 +804,18 @@ pub fn from_spec(
                 &format!("data.fit_report.{key}"),
                 format!("must be a finite number, got {v} (the record `lossprism twin` wrote holds finite numbers only)"),
             ));
+        }
+        if let Some(v) = r.get_ref().sharpen {
+            if !(crate::dgp::twin::MIN_SHARPEN..=1.0).contains(&v) {
+                return Err(err(
+                    r.span(),
+                    "data.fit_report.sharpen",
+                    format!(
+                        "must be between {} and 1 (the factors `lossprism twin --sharpen` takes), got {v}",
+                        crate::dgp::twin::MIN_SHARPEN
+                    ),
+                ));
+            }
         }
     }
     let spec = TwinSpec {
