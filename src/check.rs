@@ -466,6 +466,23 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
             ));
         }
         let blocks = usize::try_from(u.blocks).unwrap_or(usize::MAX);
+        // A run stores the leave-one-block-out values of a term in every row or in none: a
+        // term one row lacks and another holds was deleted.
+        let stored: std::collections::BTreeSet<&String> =
+            u.rows.iter().flat_map(|r| r.leave_out.keys()).collect();
+        for (i, (row, p)) in u.rows.iter().zip(&doc.points).enumerate() {
+            if let Some((k, _)) = p
+                .stderr
+                .iter()
+                .find(|(k, _)| stored.contains(k) && !row.leave_out.contains_key(k))
+            {
+                return Err(format!(
+                    "`uncertainty.rows[{i}].leave_out.{}` is missing (the other rows have their \
+                     leave-one-block-out values); {EDITED}",
+                    crate::fmt::clip(k, 40)
+                ));
+            }
+        }
         for (i, (row, p)) in u.rows.iter().zip(&doc.points).enumerate() {
             for (k, packed) in &row.leave_out {
                 let key = format!(

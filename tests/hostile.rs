@@ -1354,10 +1354,31 @@ fn csv_cases(t: &mut Table) {
         ],
         "rescale the response",
     );
+    let overflow_audit = format!("{overflow}\n[audit]\nfolds = 2\n");
+    t.add(
+        "scenario",
+        "audit of a run whose responses overflow names the file",
+        &[("s.toml", overflow_audit.as_bytes())],
+        &["run", "s.toml", "--out", "r.json"],
+        "s.toml: the audit's cross-validation: the responses reach",
+    );
     t.table("blank file", b"\n\n  \n", "", "the file is empty");
     t.table("header only", b"a,b,y\n", "", "no data rows");
     t.table("numeric header", b"1,2,3\n4,5,6\n", "", "no header");
     t.table("column twice", b"a,a,y\n1,2,3\n", "", "appears twice");
+    {
+        // A column named like the one-hot indicator of another column's level.
+        let mut csv = String::from("c=B,c,y\n");
+        for i in 0..30 {
+            csv.push_str(&format!("{},{},{}\n", i % 3, ["A", "B", "C"][i % 3], i % 7));
+        }
+        t.table(
+            "indicator named like a column",
+            csv.as_bytes(),
+            "",
+            "column `c=B`: appears twice among the inputs",
+        );
+    }
     t.table("empty column name", b"a,,y\n1,2,3\n", "", "empty name");
     t.table(
         "no target column",
@@ -2597,6 +2618,43 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             &format!("{flag} applies to a regression twin"),
         );
     }
+    // The loader's advice names the command's options, not a scenario's keys.
+    let mut ramp = String::from("a,y\n");
+    for i in 0..40 {
+        ramp.push_str(&format!("{i},{}\n", i * 7 % 40));
+    }
+    let mut copies = String::from("a,y\n");
+    for i in 0..40 {
+        copies.push_str(&format!("{},{}\n", i % 3, i % 3));
+    }
+    for (name, csv, args, needle) in [
+        (
+            "twin of a text target",
+            &classes_csv,
+            &["twin", "t.csv", "--target", "y"][..],
+            "the target is not numeric; for class labels pass `--classes`",
+        ),
+        (
+            "twin --classes of a continuous target",
+            &ramp,
+            &["twin", "t.csv", "--target", "y", "--classes"][..],
+            "is the target continuous? drop `--classes`",
+        ),
+        (
+            "twin --target ''",
+            &ramp,
+            &["twin", "t.csv", "--target", ""][..],
+            "the target column's name is empty",
+        ),
+        (
+            "twin of copies of 3 rows",
+            &copies,
+            &["twin", "t.csv", "--target", "y"][..],
+            "3 distinct rows after leaving out 37 that repeat an earlier row exactly",
+        ),
+    ] {
+        t.add(g, name, &[("t.csv", csv.as_bytes())], args, needle);
+    }
     // The reference's sharpening is a factor in [0.25, 1]: 0 would make every k 1, above 1 it
     // smooths more than cross-validation chose, and a non-number has no meaning.
     for value in ["0", "1.5", "NaN", "inf", "0.2"] {
@@ -3218,6 +3276,16 @@ fn document_cases(t: &mut Table, docs: &Docs) {
                     lossprism::codec::pack_floats(&[1.0]).into()
             }),
             "`uncertainty.rows[0].leave_out.variance`: expected 2 packed values",
+        ),
+        (
+            "a leave-one-block-out term deleted",
+            edit_json(&docs.result, |v| {
+                v["uncertainty"]["rows"][1]["leave_out"]
+                    .as_object_mut()
+                    .unwrap()
+                    .remove("variance");
+            }),
+            "`uncertainty.rows[1].leave_out.variance` is missing",
         ),
         (
             "points of a string",

@@ -1104,7 +1104,15 @@ fn load(o: &TwinOptions) -> Result<Table, Error> {
         // The loader's advice names the scenario key; on this command the option says it.
         e.message = e
             .message
-            .replace(MISSING_HINT_SCENARIO, MISSING_HINT_COMMAND);
+            .replace(MISSING_HINT_SCENARIO, MISSING_HINT_COMMAND)
+            .replace(
+                "add `task = \"classify\"` or [data.classes]",
+                "pass `--classes`",
+            )
+            .replace(
+                "drop `task = \"classify\"` (or list the labels in [data.classes])",
+                "drop `--classes`",
+            );
         e.into()
     })
 }
@@ -1297,6 +1305,17 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     } else {
         t
     };
+    if !o.classes && !repeats.is_empty() && t.rows() < select::FOLDS + 1 {
+        return Err(Error::Usage(format!(
+            "{}: {} distinct rows after leaving out {} that repeat an earlier row exactly \
+             (inputs and target); a regression twin needs at least {} (`--duplicates keep` keeps \
+             the repeats as separate observations)",
+            o.table.display(),
+            t.rows(),
+            repeats.len(),
+            select::FOLDS + 1
+        )));
+    }
     let o_dup = TwinOptions {
         duplicates: Some(duplicates),
         ..o.clone()

@@ -479,7 +479,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         })
     };
     if opts.target.is_empty() {
-        return Err(err(None, None, "no target column named".into()));
+        return Err(err(None, None, "the target column's name is empty".into()));
     }
     let target_col = col_of(&opts.target, "target")?;
     let feature_cols: Vec<usize> = match &opts.features {
@@ -663,6 +663,21 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 column: header[c].clone(),
                 levels,
             });
+        }
+    }
+    // An indicator's name `column=level` can be another column's name (a header `c=B` beside
+    // a text column `c` with a level `B`): two inputs of one name could not be told apart in
+    // outputs or in `--input NAME=VALUE`.
+    let mut seen = std::collections::HashSet::new();
+    for a in &names {
+        if !seen.insert(a.as_str()) {
+            return Err(err(
+                Some(1),
+                Some(a),
+                "appears twice among the inputs: it is a column and also the one-hot indicator \
+                 of a text column's level; rename the column"
+                    .into(),
+            ));
         }
     }
     let n = rows.len();

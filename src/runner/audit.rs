@@ -150,6 +150,16 @@ pub fn choose(
                     sum += plan.loss.observed_loss(preds[[gi, j]], q.as_deref(), y[i]);
                 }
                 if !sum.is_finite() {
+                    let big = y.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+                    if big > 1e150 || !big.is_finite() {
+                        // The same words as the run's own check of its sums.
+                        return Err(Error::Usage(format!(
+                            "{}: the audit's cross-validation: the responses reach {big:e}, so \
+                             their squares overflow; rescale the response (for example divide it \
+                             by a power of ten)",
+                            plan.file
+                        )));
+                    }
                     return Err(fit_err(format!(
                         "the {} loss is not finite at {} = {}",
                         plan.loss.name(),

@@ -320,7 +320,7 @@ pub fn from_spec(
                 file,
                 Some(ts),
                 "data.train_size",
-                "several training sizes on a table draw nested subsamples of the rows; remove `resample` and `train_fraction`",
+                "on a table, `train_size` sets the training sizes of a learning curve (nested subsamples of the rows), which `resample` and `train_fraction` would set another way: remove them, or remove `train_size`",
             ));
         }
         let cx = crate::scenario::plan::Ctx { file, src };
