@@ -569,7 +569,60 @@ fn study_table(
     twin_cmd::command(&o).expect("twin");
     let written = fs::read_to_string(&out).unwrap();
     let plan = plan_text(dir, "twin-run.toml", &with_models(&written, r_twin, n));
-    let twin_curves = curves(&plan);
+    let mut twin_curves = curves(&plan);
+    if std::env::var("LOSSPRISM_CALIB_NULL").is_ok() {
+        // `LOSSPRISM_CALIB_NULL=m` (docs/twin-calibration.md §0.6, measured and not kept): the
+        // twin's recipe refitted, in m more runs, on pure Gaussian noise of the twin's σ̂² at
+        // the same rows. The twin's truth is the reference `S y = S f + S ε`; for a linear
+        // smoother S and a model whose mean fit is linear in the truth, the twin's bias² is
+        // that of `S f` plus the bias² of the fitted noise `S ε`, whose expectation the null
+        // run's bias² estimates. The twin's curve is reported with it subtracted.
+        let s2 = {
+            let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
+                panic!("a twin plans as a synthetic source")
+            };
+            sp.process
+                .reference()
+                .unwrap()
+                .report
+                .clone()
+                .unwrap_or_default()
+                .noise
+                .as_ref()
+                .map_or(1.0, |n| n.value)
+        };
+        let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0x9e37);
+        let reps = env_usize("LOSSPRISM_CALIB_NULL", 1);
+        let mut acc: Vec<Vec<f64>> = twin_curves.iter().map(|c| vec![0.0; c.b2.len()]).collect();
+        for rep in 0..reps {
+            let ys: Array1<f64> = (0..n)
+                .map(|_| s2.sqrt() * rng.sample::<f64, _>(StandardNormal))
+                .collect();
+            let ncsv = format!("{}-{seed}-null{rep}.csv", proc.name);
+            write_csv(&dir.join(&ncsv), &x, &ys);
+            let text = with_models(&written, r_twin, n)
+                .replace(&format!("path = \"{csv}\""), &format!("path = \"{ncsv}\""));
+            assert!(text.contains(&ncsv));
+            let nc = curves(&plan_text(dir, "null-run.toml", &text));
+            for (a, c) in acc.iter_mut().zip(&nc) {
+                for (v, b) in a.iter_mut().zip(&c.b2) {
+                    *v += b / reps as f64;
+                }
+            }
+        }
+        for (c, a) in twin_curves.iter_mut().zip(&acc) {
+            println!(
+                "    null b2 [{}]",
+                a.iter()
+                    .map(|v| format!("{v:.3}"))
+                    .collect::<Vec<_>>()
+                    .join(" ")
+            );
+            for (e, v) in c.el.iter_mut().zip(a) {
+                *e -= v;
+            }
+        }
+    }
     let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
         panic!("a twin plans as a synthetic source")
     };
