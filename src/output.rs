@@ -243,6 +243,21 @@ pub fn check(inputs: &[(&str, &Path)], outputs: &[(&str, &Path)]) -> Result<(), 
 
 /// Writes one output safely (checked against `inputs`, given as `(role, path)`): staged and
 /// renamed for a regular file, in place for a device or FIFO, standard output for `-`.
+/// `p` names standard output: `-`, or a path to what file descriptor 1 holds (`/dev/stdout`,
+/// `/dev/fd/1`, or the very file standard output is redirected to). A command writing an
+/// output there sends its words to standard error instead, as with `-`, so they cannot land in
+/// (or over) the output.
+pub fn is_stdout(p: &Path) -> bool {
+    if p.as_os_str() == "-" {
+        return true;
+    }
+    let id = |q: &Path| fs::metadata(q).ok().as_ref().and_then(sys::dev_ino);
+    match (id(p), id(Path::new("/dev/stdout"))) {
+        (Some(a), Some(b)) => a == b,
+        _ => false,
+    }
+}
+
 pub fn write_one(
     flag: &str,
     path: &Path,

@@ -1378,6 +1378,38 @@ fn csv_cases(t: &mut Table) {
             "",
             "column `c=B`: appears twice among the inputs",
         );
+        let mut two = String::from("a,a=b,y\n");
+        let mut target = String::from("c,c=B\n");
+        for i in 0..30 {
+            two.push_str(&format!(
+                "{},{},{}\n",
+                ["A", "b=c"][i % 2],
+                ["A", "c"][i % 2],
+                i % 7
+            ));
+            target.push_str(&format!("{},{}\n", ["A", "B", "C"][i % 3], i % 7));
+        }
+        t.table(
+            "two indicators of one name",
+            two.as_bytes(),
+            "",
+            "column `a=b=c`: appears twice among the inputs: the one-hot indicators",
+        );
+        t.add(
+            "csv",
+            "indicator named like the target",
+            &[
+                (
+                    "s.toml",
+                    table_scenario("", TREE)
+                        .replace("target = \"y\"", "target = \"c=B\"")
+                        .as_bytes(),
+                ),
+                ("t.csv", target.as_bytes()),
+            ],
+            &["run", "s.toml", "--out", "r.json", "-q"],
+            "column `c=B`: is the target's name and also an input's",
+        );
     }
     t.table("empty column name", b"a,,y\n1,2,3\n", "", "empty name");
     t.table(
@@ -2651,6 +2683,12 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             &copies,
             &["twin", "t.csv", "--target", "y"][..],
             "3 distinct rows after leaving out 37 that repeat an earlier row exactly",
+        ),
+        (
+            "twin of 5 rows with one repeat kept",
+            &"a,y\n1,1\n1,1\n2,3\n3,2\n4,5\n".to_string(),
+            &["twin", "t.csv", "--target", "y", "--duplicates", "keep"][..],
+            "5 rows; a regression twin needs at least 6",
         ),
     ] {
         t.add(g, name, &[("t.csv", csv.as_bytes())], args, needle);

@@ -1133,3 +1133,45 @@ fn twin_to_standard_output_writes_the_scenario_alone() {
     fs::write(dir.path().join("saved.toml"), &toml).unwrap();
     load(&dir.path().join("saved.toml"));
 }
+
+/// An output path that is standard output under another name (`/dev/stdout` with standard
+/// output redirected to a file) is treated as `-`: the words go to standard error, and the file
+/// holds the scenario alone, which names the table from the folder the command ran in. A
+/// checkpoint there is refused (it could not be read back).
+#[test]
+fn standard_output_under_another_name_is_treated_as_standard_output() {
+    let bin = env!("CARGO_BIN_EXE_lossprism");
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("t.csv"), 80, 12);
+    let saved = dir.path().join("saved.toml");
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args(["twin", "t.csv", "--target", "y", "--fidelity", "0"])
+        .args(["--out", "/dev/stdout"])
+        .stdout(fs::File::create(&saved).unwrap())
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(0), "{err}");
+    assert!(err.contains("Reference for E[y | x]"), "{err}");
+    let toml = fs::read_to_string(&saved).unwrap();
+    assert!(toml.starts_with("# Simulated twin"), "{toml}");
+    assert!(toml.contains("path = \"t.csv\""), "{toml}");
+    load(&saved);
+    let o = std::process::Command::new(bin)
+        .current_dir(dir.path())
+        .args([
+            "run",
+            "saved.toml",
+            "--replicates",
+            "4",
+            "--checkpoint",
+            "/dev/stdout",
+        ])
+        .stdout(fs::File::create(dir.path().join("ck.json")).unwrap())
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(2), "{err}");
+    assert!(err.contains("a checkpoint must be a file"), "{err}");
+}

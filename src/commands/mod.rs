@@ -97,7 +97,7 @@ impl Outputs2<'_> {
             self.plot_selection,
         ]
         .iter()
-        .any(|p| p.is_some_and(|p| p.as_os_str() == "-"))
+        .any(|p| p.is_some_and(crate::output::is_stdout))
     }
 }
 
@@ -282,7 +282,9 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         // A checkpoint is rewritten as the run goes and read back to resume: standard
         // output, a device or a pipe cannot hold it.
         let not_a_file = std::fs::metadata(ck).is_ok_and(|m| !m.is_file());
-        if ck.as_os_str() == "-" || not_a_file {
+        let descriptor = std::fs::canonicalize(ck.parent().unwrap_or(Path::new(".")))
+            .is_ok_and(|d| d.starts_with("/proc") || d.starts_with("/dev"));
+        if crate::output::is_stdout(ck) || not_a_file || descriptor {
             return Err(Error::Usage(format!(
                 "--checkpoint {}: a checkpoint must be a file (it is rewritten as the run goes \
                  and read back to resume), not standard output, a device, a pipe or a folder",
@@ -987,7 +989,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             a.fidelity_replicates
         )));
     }
-    let out_is_stdout = a.out.as_os_str() == "-";
+    let out_is_stdout = crate::output::is_stdout(&a.out);
     let text = twin::command(&twin::TwinOptions {
         table: a.table,
         target: a.target,

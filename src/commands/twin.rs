@@ -547,7 +547,12 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             Rule::Only(c) => format!(
                 "`--reference {}` asked for it, which this table does not allow (above), so the {} stands in",
                 c.name(),
-                once.family.name()
+                match once.family {
+                    Candidate::Knn => "k-NN reference",
+                    Candidate::Forest => "bagged-tree reference",
+                    Candidate::LocLin => "local-linear reference",
+                    Candidate::Blend => "blend",
+                }
             ),
         },
         if sel.choice.twice {
@@ -1112,7 +1117,8 @@ fn load(o: &TwinOptions) -> Result<Table, Error> {
             .replace(
                 "drop `task = \"classify\"` (or list the labels in [data.classes])",
                 "drop `--classes`",
-            );
+            )
+            .replace("`features`", "`--features`");
         e.into()
     })
 }
@@ -1305,14 +1311,23 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     } else {
         t
     };
-    if !o.classes && !repeats.is_empty() && t.rows() < select::FOLDS + 1 {
+    if !o.classes
+        && duplicates == Duplicates::Drop
+        && !repeats.is_empty()
+        && t.rows() < select::FOLDS + 1
+    {
         return Err(Error::Usage(format!(
-            "{}: {} distinct rows after leaving out {} that repeat an earlier row exactly \
+            "{}: {} distinct rows after leaving out {} that {} an earlier row exactly \
              (inputs and target); a regression twin needs at least {} (`--duplicates keep` keeps \
              the repeats as separate observations)",
             o.table.display(),
             t.rows(),
             repeats.len(),
+            if repeats.len() == 1 {
+                "repeats"
+            } else {
+                "repeat"
+            },
             select::FOLDS + 1
         )));
     }
@@ -1321,8 +1336,10 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         ..o.clone()
     };
     let o = &o_dup;
+    // Written to standard output, the scenario is saved by the user where they run this.
+    let to_stdout = crate::output::is_stdout(&o.out);
     let folder = match o.out.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        Some(p) if !p.as_os_str().is_empty() && !to_stdout => p.to_path_buf(),
         _ => PathBuf::from("."),
     };
     let rel = relative_path(&o.table, &folder);
@@ -1541,7 +1558,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         &[("the table", o.table.as_path())],
         text.as_bytes(),
     )?;
-    if o.out.as_os_str() == "-" {
+    if crate::output::is_stdout(&o.out) {
         out.push_str(
             "wrote the scenario to standard output (save it in the folder you ran this from, \
              whose path to the table it holds; edit [model]; run it with `lossprism run FILE`)\n",

@@ -670,15 +670,19 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     // outputs or in `--input NAME=VALUE`.
     let mut seen = std::collections::HashSet::new();
     for a in &names {
-        if !seen.insert(a.as_str()) {
-            return Err(err(
-                Some(1),
-                Some(a),
-                "appears twice among the inputs: it is a column and also the one-hot indicator \
-                 of a text column's level; rename the column"
-                    .into(),
-            ));
-        }
+        let why = if *a == opts.target {
+            "is the target's name and also an input's, the one-hot indicator of a text column's \
+             level; rename the target column"
+        } else if seen.insert(a.as_str()) {
+            continue;
+        } else if header.contains(a) {
+            "appears twice among the inputs: it is a column and also the one-hot indicator of a \
+             text column's level; rename the column"
+        } else {
+            "appears twice among the inputs: the one-hot indicators (`column=level`) of two text \
+             columns get this name; rename one of the columns"
+        };
+        return Err(err(Some(1), Some(a), why.into()));
     }
     let n = rows.len();
     let p = columns.len();

@@ -811,8 +811,9 @@ pub fn from_spec(
                     r.span(),
                     "data.fit_report.sharpen",
                     format!(
-                        "must be between {} and 1 (the factors `lossprism twin --sharpen` takes), got {v}",
-                        crate::dgp::twin::MIN_SHARPEN
+                        "must be between {} and 1 (the factors `lossprism twin --sharpen` takes), got {}",
+                        crate::dgp::twin::MIN_SHARPEN,
+                        crate::fmt::fmt_exact(v)
                     ),
                 ));
             }
