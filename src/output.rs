@@ -892,13 +892,36 @@ fn wait(progress: Instant, nap: &mut Duration) -> io::Result<()> {
 /// Writes `text` to standard output. A failed write (a closed pipe, a full disk, a closed
 /// descriptor) is an error naming standard output — never the panic of `print!`.
 pub fn say(text: &str) -> Result<(), Error> {
+    let text = terminal_text(text);
     let mut out = io::stdout().lock();
     write_patiently(&mut out, text.as_bytes()).map_err(|e| Error::io("standard output", &e))
+}
+
+/// `text` with the control characters other than newline and tab written as `\u{1b}`: the
+/// words printed for a person carry names from the user's files (columns, levels, paths), and
+/// an escape sequence in one must not reach the terminal as one.
+fn terminal_text(text: &str) -> std::borrow::Cow<'_, str> {
+    if !text
+        .chars()
+        .any(|c| c.is_control() && c != '\n' && c != '\t')
+    {
+        return std::borrow::Cow::Borrowed(text);
+    }
+    let mut out = String::with_capacity(text.len() + 8);
+    for c in text.chars() {
+        if c.is_control() && c != '\n' && c != '\t' {
+            out.extend(c.escape_default());
+        } else {
+            out.push(c);
+        }
+    }
+    std::borrow::Cow::Owned(out)
 }
 
 /// Writes `text` to standard error, ignoring a failed write: there is nowhere left to report it,
 /// and `eprint!` would panic.
 pub fn tell(text: &str) {
+    let text = terminal_text(text);
     let mut err = io::stderr().lock();
     let _ = err.write_all(text.as_bytes()).and_then(|_| err.flush());
 }
@@ -1077,6 +1100,16 @@ mod tests {
     use std::os::unix::fs::{FileTypeExt, MetadataExt, OpenOptionsExt, PermissionsExt};
     use std::process::Command;
     use std::sync::mpsc;
+
+    #[test]
+    fn terminal_text_escapes_control_characters_but_keeps_lines_and_tabs() {
+        assert_eq!(terminal_text("a\tb\nc"), "a\tb\nc");
+        assert_eq!(
+            terminal_text("col \u{1b}[31mred\u{7}\r"),
+            "col \\u{1b}[31mred\\u{7}\\r"
+        );
+        assert_eq!(terminal_text("plain ± σ̂²"), "plain ± σ̂²");
+    }
 
     /// Sorted file names in `dir` (temporaries and backups are hidden files, so they show).
     fn listing(dir: &Path) -> Vec<String> {
