@@ -1144,7 +1144,7 @@ pub fn compare(
                 )));
             }
             let unpaired_se = match (sa, sb) {
-                (Some(x), Some(y)) => Some((x * x + y * y).sqrt()),
+                (Some(x), Some(y)) => Some(x.hypot(y)),
                 _ => None,
             };
             let margin = opts.margin_for(term);
@@ -1200,7 +1200,7 @@ pub fn compare(
                 }
                 Mode::SamePoints => {
                     let (x, y) = unpaired()?;
-                    (x * x + y * y).sqrt()
+                    x.hypot(y)
                 }
                 Mode::OtherPoints => {
                     let (x, y) = unpaired()?;
@@ -1225,9 +1225,17 @@ pub fn compare(
                     };
                     let pa = spread(ua, i, "result")?;
                     let pb = spread(ub, j, "baseline")?;
-                    (x * x + y * y + pa + pb).sqrt()
+                    x.hypot(y).hypot((pa + pb).sqrt())
                 }
             };
+            if !se.is_finite() {
+                // An infinite error would make every z 0 and call any change unchanged.
+                return Err(CheckError::BadDocument(format!(
+                    "{}: the standard error of the difference overflows the range of \
+                     floating-point numbers (the terms are near 1e300); rescale the response",
+                    at()
+                )));
+            }
             c.se = se;
             let m = margin * vb.abs();
             c.verdict = if diff == 0.0 {
@@ -1423,6 +1431,51 @@ mod tests {
             .iter()
             .all(|c| c.verdict == Verdict::Unchanged));
         assert!(r.to_string().contains("eval_seed 7 against 1"), "{r}");
+    }
+
+    // Standard errors near 1e300 (a response of 1e152): the unpaired error √(a² + b²) was
+    // infinite, every z 0 and a tripled variance read "unchanged" with exit 0 (a hostile-input
+    // sweep). Now the error is computed without overflow (hypot), and one that is still infinite
+    // is refused.
+    #[test]
+    fn unpaired_errors_near_the_float_range_do_not_hide_a_change() {
+        let base = with_unc(
+            doc(vec![row(1.0, 3e303, 1e303, 1e303, Some(1e302))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        let mut new = with_unc(
+            doc(vec![row(1.0, 6e303, 1e303, 4e303, Some(1e302))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        new.seed = 2;
+        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        assert!(r.regressed(), "{r}");
+        assert!(r.worse_terms().iter().any(|t| t == "variance"), "{r}");
+        // Two errors of 1.5e308: √(a² + b²) = 2.1e308 is past the largest float.
+        let far = |el: f64, var: f64, seed: u64| {
+            let mut d = with_unc(
+                doc(vec![row(1.0, el, 1e303, var, Some(1.5e308))]),
+                "p",
+                1,
+                &[],
+                0.1,
+            );
+            d.seed = seed;
+            d
+        };
+        let e = compare(
+            &far(6e303, 4e303, 2),
+            &far(3e303, 1e303, 1),
+            &CheckOptions::default(),
+        )
+        .unwrap_err();
+        assert!(e.to_string().contains("overflows"), "{e}");
     }
 
     // A hand-edited term of 1e300 printed its relative change and z digit by digit (hundreds of

@@ -418,6 +418,38 @@ fn scenario_cases(t: &mut Table) {
         v,
         "overflow",
     );
+    // Inputs whose squares overflow: a standardized or ridge fit ignored them and gave wrong
+    // numbers with exit 0 (a hostile-input sweep, at ±1e160).
+    {
+        let labels: Vec<String> = (0..10_001).map(|i| format!("\"l{i}\"")).collect();
+        t.scenario(
+            g,
+            "ten thousand and one labels",
+            &sc(
+                "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+                &format!(
+                    "[data.classes]\nlabels = [{}]\nprobability = \"x\"\n",
+                    labels.join(",")
+                ),
+            ),
+            v,
+            "10001 labels; at most 10000 classes",
+        );
+    }
+    t.scenario(
+        g,
+        "uniform whose squares overflow",
+        &sc("uniform = [0.0, 1.0]", "uniform = [-1e160, 1e160]"),
+        v,
+        "key `data.inputs[0].uniform`: [-1e160, 1e160] reaches beyond ±1e150",
+    );
+    t.scenario(
+        g,
+        "normal whose squares overflow",
+        &sc("uniform = [0.0, 1.0]", "normal = [0.0, 1e155]"),
+        v,
+        "key `data.inputs[0].normal`",
+    );
     t.scenario(
         g,
         "uniform of one number",

@@ -1307,7 +1307,7 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         if sd <= 0.0 {
             return Err(cx.err(Some(n.span()), &format!("{key}.normal"), "sd must be > 0"));
         }
-        // Draws reach about 10 standard deviations; beyond 1e300 they overflow to infinity.
+        // Draws reach about 10 standard deviations; beyond INPUT_MAX their squares overflow.
         if m.abs() + 10.0 * sd > INPUT_MAX {
             return Err(cx.err(
                 Some(n.span()),
@@ -1332,9 +1332,15 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
     Ok(Input { name, dist })
 }
 
-/// Largest input magnitude accepted: beyond it a width, a square or a standardization
-/// overflows.
-const INPUT_MAX: f64 = 1e300;
+/// Most labels of a synthetic classification scenario (a rule of thumb, no source: far above
+/// any class count measured here, 1000 classes ran; checks over the labels stay fast).
+const MAX_LABELS: usize = 10_000;
+
+/// Largest input magnitude accepted: beyond it a square overflows (a little above 1.3e154), and
+/// with it a standardization, a ridge or k-NN distance, which then ignore the input and give
+/// wrong numbers with no error (found by a hostile-input sweep at ±1e160); 1e150 leaves room for
+/// sums of squares, as a twin's columns do (`commands::twin::TWIN_VALUE_MAX`).
+const INPUT_MAX: f64 = 1e150;
 
 /// Refuses an input range whose ends or width overflow (`uniform = [-1e308, 1e308]` is 2e308
 /// wide: every draw would be infinite).
@@ -1350,8 +1356,9 @@ fn overflowing_range(
             Some(v.span()),
             key,
             format!(
-                "[{a:e}, {b:e}] reaches beyond ±{INPUT_MAX:e}: its width or the draws overflow \
-                 (to infinity); rescale the input"
+                "[{a:e}, {b:e}] reaches beyond ±{INPUT_MAX:e}: the draws' squares (a \
+                 standardization, a distance, a ridge fit) would overflow to infinity; rescale \
+                 the input"
             ),
         ));
     }
@@ -1749,6 +1756,18 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
             format!("needs at least 2 labels, got {}", labels.len()),
         ));
     }
+    if labels.len() > MAX_LABELS {
+        return Err(cx.err(
+            Some(c.labels.span()),
+            "data.classes.labels",
+            format!(
+                "{} labels; at most {MAX_LABELS} classes (every evaluation point keeps a \
+                 probability per class)",
+                labels.len()
+            ),
+        ));
+    }
+    let mut seen = std::collections::HashSet::new();
     for (i, l) in labels.iter().enumerate() {
         if l.trim().is_empty() {
             return Err(cx.err(
@@ -1760,7 +1779,7 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
                 ),
             ));
         }
-        if labels[..i].contains(l) {
+        if !seen.insert(l.as_str()) {
             return Err(cx.err(
                 Some(c.labels.span()),
                 "data.classes.labels",
