@@ -947,6 +947,9 @@ pub fn per_point_generic<L: Loss + ?Sized>(
     out: &mut Vec<f64>,
 ) {
     out.clear();
+    // Exactly the size it ends at: grown by doubling it could reach twice that (the memory
+    // estimate counts it once, `runner::memory`).
+    out.reserve_exact(acc.shape.points * acc.shape.grid * terms);
     let k = acc.shape.classes;
     for e in 0..acc.shape.points {
         let one = one_point(acc, e);

@@ -623,6 +623,7 @@ impl Loss for Squared {
         let u = one.points as f64;
         let mut row = vec![f64::NAN; descr.len()];
         out.clear();
+        out.reserve_exact(sh.points * sh.grid * terms);
         out.reserve(sh.points * sh.grid * terms);
         if sh.fits == 1 && !sh.ensemble && descr.len() == 5 && terms == 5 {
             // The plain accumulator (one fit per replicate, no members): the five terms of

@@ -193,6 +193,29 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
         detail: format!("{w} threads × fits × grid values × {m} points"),
         bytes: wf * predictions,
     });
+    // Every point's terms at once (points × grid values × terms): once for the report's spread
+    // over evaluation points (`decompose::point_spread`); with a known truth and several blocks,
+    // also the per-point noise of the standard errors (`decompose::PointNoise`, a mean and a
+    // sum of squares) and one leave-one-block-out fold's terms per worker while the folds are
+    // summarized (`decompose::summarize_par`). Measured with heaptrack on 3-class 0-1 loss:
+    // these, not the accumulators, were the peak (a sweep found 930 MB against 262 MiB
+    // estimated).
+    let observed = matches!(plan.source, Source::Table(_));
+    let point_noise = !observed && plan.blocks >= 2;
+    let copies = if point_noise { 2.0 + wf } else { 1.0 };
+    let per_point: f64 = (0..plan.models.len())
+        .map(|i| {
+            let sh = plan.shape(i, m as usize);
+            8.0 * m * sh.grid as f64 * plan.loss.describe(&sh, observed).len() as f64
+        })
+        .fold(0.0, f64::max);
+    terms.push(Term {
+        name: "per-point terms",
+        detail: format!(
+            "{copies} × {m} points × grid values × the loss's terms, for their spread and noise"
+        ),
+        bytes: copies * per_point,
+    });
     let work = plan
         .models
         .iter()
