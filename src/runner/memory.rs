@@ -258,12 +258,13 @@ pub fn check(
 }
 
 /// The estimate of merging the parts of `plan`'s run: what a merge holds is every block's
-/// accumulators and the evaluation points; it fits nothing, so it has no training sets,
-/// predictions or fit work.
+/// accumulators, the evaluation points and, as it summarizes, every point's terms; it fits
+/// nothing, so it has no training sets, predictions or fit work.
 pub fn merge_estimate(plan: &Plan) -> Estimate {
     let mut e = estimate(plan, 1);
-    e.terms
-        .retain(|t| t.name == "accumulators" || t.name == "evaluation inputs");
+    e.terms.retain(|t| {
+        t.name == "accumulators" || t.name == "evaluation inputs" || t.name == "per-point terms"
+    });
     e
 }
 
