@@ -4476,9 +4476,10 @@ fn validate_is_linear_in_the_inputs_and_prints_the_memory_estimate() {
 
 #[test]
 fn a_merge_is_held_to_what_merging_holds_not_to_the_fits() {
-    // Merging keeps every block's accumulators and the evaluation points and fits nothing: its
-    // estimate has exactly those two terms, equal to the run's, and leaves out the training
-    // sets, predictions and fit work that `run` counts.
+    // Merging keeps every block's accumulators, the evaluation points and, as it summarizes,
+    // their terms, and fits nothing: its estimate has exactly those three terms, equal to the
+    // run's (estimated on one worker), and leaves out the training sets, predictions and fit
+    // work that `run` counts.
     let d = tempfile::tempdir().unwrap();
     fs::write(d.path().join("s.toml"), BASE).unwrap();
     let plan =
@@ -4486,7 +4487,10 @@ fn a_merge_is_held_to_what_merging_holds_not_to_the_fits() {
     let run = lossprism::runner::memory::estimate(&plan, 1);
     let merge = lossprism::runner::memory::merge_estimate(&plan);
     let names: Vec<&str> = merge.terms.iter().map(|t| t.name).collect();
-    assert_eq!(names, ["accumulators", "evaluation inputs"]);
+    assert_eq!(
+        names,
+        ["accumulators", "evaluation inputs", "per-point terms"]
+    );
     for t in &merge.terms {
         let r = run.terms.iter().find(|r| r.name == t.name).unwrap();
         assert_eq!(t.bytes, r.bytes, "{}", t.name);
