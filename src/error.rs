@@ -70,8 +70,10 @@ pub enum Error {
     #[error("{}", one_line(.0))]
     Data(String),
     /// A model fit failed on a replicate's training set.
-    #[error("replicate {replicate}: {} fit failed: {}", one_line(.family), one_line(.message))]
+    #[error("{}replicate {replicate}: {} fit failed: {}", file_prefix(.file), one_line(.family), one_line(.message))]
     Fit {
+        /// The scenario file (empty: not known where the fit ran).
+        file: String,
         /// Replicate index (0-based).
         replicate: u64,
         /// Family name.
@@ -82,6 +84,15 @@ pub enum Error {
     /// A request that makes no sense (bad flag value, incompatible documents).
     #[error("{}", one_line(.0))]
     Usage(String),
+}
+
+/// `file: ` in front of a message, or nothing for an empty name.
+fn file_prefix(file: &str) -> String {
+    if file.is_empty() {
+        String::new()
+    } else {
+        format!("{}: ", one_line(file))
+    }
 }
 
 impl Error {

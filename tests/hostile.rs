@@ -652,6 +652,16 @@ fn scenario_cases(t: &mut Table) {
     );
     t.scenario(
         g,
+        "grid of -0 and 0 (one value)",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"ridge\"\ngrid = [-0.0, 0]",
+        ),
+        v,
+        "value 0 appears twice",
+    );
+    t.scenario(
+        g,
         "negative tree depth",
         &sc("grid = [1, 2]", "grid = [-1, 2]"),
         v,
@@ -1029,6 +1039,15 @@ fn scenario_cases(t: &mut Table) {
         &["run", "s.toml", "--out", "r.json", "--memory-limit", "1K"],
         "more than the --memory-limit",
     );
+    for size in ["0.5", "1e-300K"] {
+        t.add(
+            g,
+            format!("--memory-limit {size} (under a byte)"),
+            &[("s.toml", BASE.as_bytes())],
+            &["run", "s.toml", "--out", "r.json", "--memory-limit", size],
+            "is not a memory size",
+        );
+    }
     t.add(
         g,
         "validate above --memory-limit",
@@ -3662,7 +3681,9 @@ fn external_cases(t: &mut Table) {
         &[("s.toml", missing.as_bytes())],
         &["run", "s.toml", "--out", "r.json", "-q"],
         "cannot start",
-    );
+    )
+    // A fit that fails names the scenario file.
+    .also("s.toml: replicate");
     let empty = sc(
         "family = \"tree\"\ngrid = [1, 2]",
         "family = \"external\"\ncommand = []\nknob = \"k\"\ngrid = [1, 2]",

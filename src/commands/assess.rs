@@ -111,6 +111,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         .family
         .fit_predict(&input, &[value], out)
         .map_err(|e| Error::Fit {
+            file: plan.file.to_string(),
             replicate: 0,
             family: model.family.name().to_string(),
             message: e.0,
@@ -124,6 +125,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
             plan.loss
                 .check_prediction(pred[[0, j]], q.as_deref())
                 .map_err(|m| Error::Fit {
+                    file: plan.file.to_string(),
                     replicate: 0,
                     family: model.family.name().to_string(),
                     message: format!("holdout row {j}: {m}"),

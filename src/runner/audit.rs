@@ -133,6 +133,7 @@ pub fn choose(
                 diversity: None,
             };
             let fit_err = |message: String| Error::Fit {
+                file: plan.file.to_string(),
                 replicate: r,
                 family: model.family.name().to_string(),
                 message: format!("cross-validation fold {}: {message}", f + 1),

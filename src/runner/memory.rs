@@ -105,7 +105,8 @@ pub fn parse_size(s: &str) -> Result<u64, String> {
         _ => (stripped, 1.0),
     };
     match num.trim().parse::<f64>() {
-        Ok(v) if v.is_finite() && v > 0.0 && v * scale < 1.8e19 => Ok((v * scale) as u64),
+        // At least one byte: `0.5` or `1e-300K` would hold a run to 0 bytes.
+        Ok(v) if v.is_finite() && v * scale >= 1.0 && v * scale < 1.8e19 => Ok((v * scale) as u64),
         _ => Err(format!(
             "`{s}` is not a memory size; write bytes or a number with K, M, G or T (`512M`, `16G`)"
         )),

@@ -199,6 +199,7 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
                             },
                         };
                         let fit_err = |message: String| Error::Fit {
+                            file: plan.file.to_string(),
                             replicate: r,
                             family: model.family.name().to_string(),
                             message,

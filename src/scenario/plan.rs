@@ -1245,6 +1245,10 @@ fn expand_grid(
     if vals.is_empty() {
         return Err(e("is empty; give at least one value".into()));
     }
+    // -0 is 0: written as `-0` in the outputs it would read as another value.
+    for v in vals.iter_mut() {
+        *v += 0.0;
+    }
     vals.sort_by(|a, b| a.total_cmp(b));
     for w in vals.windows(2) {
         if w[0] == w[1] {
