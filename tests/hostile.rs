@@ -3781,12 +3781,7 @@ fn run_case(c: &Case, have_python: bool) -> (Verdict, String) {
             .unwrap(),
         Extra::Link(n, target) => std::os::unix::fs::symlink(target, dir.join(n)).unwrap(),
         Extra::Fifo(n) => {
-            let made = Command::new("mkfifo")
-                .arg(dir.join(n))
-                .status()
-                .map(|s| s.success())
-                .unwrap_or(false);
-            if !made {
+            if !mkfifo(&dir.join(n)) {
                 return (Verdict::Skipped, "mkfifo failed".into());
             }
         }
@@ -4063,6 +4058,16 @@ fn a_private_null_device_given_as_any_output_stays_a_device() {
     assert!(is_null_device(&dev));
 }
 
+/// Makes a FIFO at `path` with `mkfifo`; false when that fails (the FIFO cases are then
+/// skipped, saying so).
+fn mkfifo(path: &Path) -> bool {
+    Command::new("mkfifo")
+        .arg(path)
+        .status()
+        .map(|s| s.success())
+        .unwrap_or(false)
+}
+
 #[test]
 fn a_fifo_given_as_the_output_receives_the_document_and_stays_a_fifo() {
     use std::os::unix::fs::FileTypeExt;
@@ -4070,12 +4075,7 @@ fn a_fifo_given_as_the_output_receives_the_document_and_stays_a_fifo() {
     let d = workspace(&docs);
     let dir = d.path();
     let fifo = dir.join("pipe");
-    let made = Command::new("mkfifo")
-        .arg(&fifo)
-        .status()
-        .map(|s| s.success())
-        .unwrap_or(false);
-    if !made {
+    if !mkfifo(&fifo) {
         println!("note: mkfifo failed; the FIFO case is skipped");
         return;
     }
@@ -4121,12 +4121,7 @@ fn an_input_fifo_whose_writer_falls_silent_without_closing_is_refused_not_waited
     // read stops after FIFO_WAIT_SECONDS (10 s) with a one-line error and exit 2.
     let dir = tempfile::tempdir().unwrap();
     let fifo = dir.path().join("s.toml");
-    let made = Command::new("mkfifo")
-        .arg(&fifo)
-        .status()
-        .map(|s| s.success())
-        .unwrap_or(false);
-    if !made {
+    if !mkfifo(&fifo) {
         println!("note: mkfifo failed; the FIFO case is skipped");
         return;
     }
