@@ -263,7 +263,8 @@ pub struct RunArgs {
     #[arg(long, value_name = "FILE.json")]
     pub checkpoint: Option<PathBuf>,
     /// Testing aid: stop with exit code 3 after K newly completed blocks (needs --checkpoint).
-    #[arg(long, value_name = "K", hide = true, requires = "checkpoint")]
+    #[arg(long, value_name = "K", hide = true, requires = "checkpoint",
+          value_parser = clap::value_parser!(u64).range(1..))]
     pub stop_after_blocks: Option<u64>,
     /// Table scenarios with a locked holdout (`holdout = 0.2` in [data]): fit the family at this
     /// knob value on every non-holdout row and report the holdout loss once. Each assessment is

@@ -791,11 +791,8 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
         }
         Ok(job.stop_after_blocks != Some(st.new_blocks))
     };
-    let mut interrupted = false;
-    if job.stop_after_blocks != Some(0) {
-        let s = runner::schedule(plan, &prepared, &todo, job.threads, job.watch, &sink)?;
-        interrupted = s.interrupted;
-    }
+    let interrupted =
+        runner::schedule(plan, &prepared, &todo, job.threads, job.watch, &sink)?.interrupted;
     let st = state.into_inner().unwrap_or_else(|e| e.into_inner());
     let remaining = (wanted.end - wanted.start) - st.blocks.len() as u64;
     if remaining > 0 {

@@ -1122,6 +1122,31 @@ fn scenario_cases(t: &mut Table) {
         &["run", "/dev/zero", "--out", "r.json"],
         "binary data",
     );
+    // Boosting's probabilities that underflow to 0 under the log-loss: the advice was add-α
+    // smoothing (`alpha`), which the boost family refuses.
+    t.scenario(
+        g,
+        "boost probability 0 under the log-loss",
+        "name = \"b\"\nseed = 1\nreplicates = 4\n[data]\nsource = \"synthetic\"\ntrain_size = 60\n\
+         eval_size = 20\n[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n[data.classes]\n\
+         labels = [\"a\", \"b\"]\nprobability = \"0.1 + 0.8*x\"\n[model]\nfamily = \"boost\"\n\
+         learning_rate = 1.0\ngrid = [1, 400]\n[loss]\nkind = \"log\"\n",
+        "run",
+        "smaller `learning_rate`",
+    )
+    .also("probability 0");
+    // A forest asked to try more inputs per node than the model has was silently held to all.
+    t.scenario(
+        g,
+        "forest max_features above the inputs",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"forest\"\ngrid = [1, 2]\nmax_features = 40",
+        ),
+        v,
+        "max_features = 40, but the model sees",
+    )
+    .also("key `model.max_features`");
     // Class-share options on a regression section were accepted and silently ignored.
     for (family, option, needle) in [
         ("tree", "criterion = \"entropy\"", "key `model.criterion`"),
@@ -1220,22 +1245,22 @@ fn formula_cases(t: &mut Table) {
         v,
         "gives NaN",
     );
-    // Finite truths whose squares overflow: the run stops naming term, grid value and cause.
+    // Finite truths whose squares overflow: refused before any work, by `validate` too (the run
+    // used to do all its work and then refuse its non-finite terms; `validate` passed them).
     t.scenario(
         g,
         "truth 1e200*x",
         &with_formula("1e200*x"),
-        "run",
-        "the term `",
+        v,
+        "s.toml: the responses reach",
     )
-    .also("max_depth = 1")
-    .also("rescale");
+    .also("so their squares overflow; rescale");
     t.scenario(
         g,
         "noise sd 1e200",
         &sc("sd = 1.0", "sd = 1e200"),
-        "run",
-        "the term `",
+        v,
+        "s.toml: the responses reach 1.0e200 in size",
     )
     .also("rescale");
     // Responses whose squares underflow: every term came out 0, with a reading drawn from the
@@ -1411,7 +1436,7 @@ fn csv_cases(t: &mut Table) {
         "audit of a run whose responses overflow names the file",
         &[("s.toml", overflow_audit.as_bytes())],
         &["run", "s.toml", "--out", "r.json"],
-        "s.toml: the audit's cross-validation: the responses reach",
+        "s.toml: the responses reach",
     );
     t.table("blank file", b"\n\n  \n", "", "the file is empty");
     t.table("header only", b"a,b,y\n", "", "no data rows");
@@ -1657,7 +1682,7 @@ fn csv_cases(t: &mut Table) {
         "target of 1e308: the tree's leaf means overflow",
         csv_rows(40, |i| format!("{}e307", 5 + i % 5)).as_bytes(),
         "",
-        "prediction inf",
+        "the responses (column `y` of",
     )
     .also("rescale");
     let s = table_scenario("", TREE);
@@ -2439,6 +2464,21 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         s,
         &["run", "s.toml", "--stop-after-blocks", "1"],
         "--checkpoint",
+    );
+    // 0 promised a checkpoint to resume from and wrote none.
+    t.add(
+        g,
+        "--stop-after-blocks 0",
+        s,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "c.json",
+            "--stop-after-blocks",
+            "0",
+        ],
+        "0 is not in 1..",
     );
     for ck in ["-", "/dev/null"] {
         t.add(

@@ -128,7 +128,10 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
                     file: plan.file.to_string(),
                     replicate: 0,
                     family: model.family.name().to_string(),
-                    message: format!("holdout row {j}: {m}"),
+                    message: format!(
+                        "holdout row {j}: {}",
+                        crate::runner::with_remedy(plan, model, m)
+                    ),
                 })?;
             Ok(plan.loss.observed_loss(pred[[0, j]], q.as_deref(), yh[j]))
         })

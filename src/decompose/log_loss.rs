@@ -51,9 +51,10 @@
 //! leaf or of a k-NN neighbourhood without that class; logistic for a class absent from the
 //! training set) makes the expected loss infinite. Such a prediction is refused where every
 //! prediction is checked ([`Loss::check_prediction`], called from
-//! `runner::check_predictions`): the run stops (exit 2) and the message names the family and the
-//! remedy, add-α smoothing (`alpha = 0.5` in `[model]` of tree and k-NN). Nothing infinite is
-//! ever accumulated or written.
+//! `runner::check_predictions`): the run stops (exit 2) and the message names the family and
+//! its remedy (the family's `zero_probability_remedy`: add-α smoothing, `alpha = 0.5` in
+//! `[model]`, for tree, k-NN and forest; fewer rounds or a smaller learning rate for boosting).
+//! Nothing infinite is ever accumulated or written.
 //!
 //! # Tables (observed labels)
 //!
@@ -374,10 +375,7 @@ impl Loss for LogLoss {
         match q.iter().position(|&v| v <= 0.0) {
             None => Ok(()),
             Some(c) => Err(format!(
-                "class {c} has probability 0, and the log-loss of a zero probability is infinite; \
-                 smooth the class shares with add-α: set `alpha = 0.5` (for example) in [model] \
-                 (key `model.alpha`, tree and knn). The logistic family gives 0 only to a class \
-                 absent from a training set: enlarge `train_size`"
+                "class {c} has probability 0, and the log-loss of a zero probability is infinite"
             )),
         }
     }

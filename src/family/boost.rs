@@ -140,6 +140,10 @@ impl Family for BoostFamily {
         "boost"
     }
 
+    fn zero_probability_remedy(&self) -> &'static str {
+        "boosting gives 0 when a class's score runs far below the others': fewer rounds (a smaller grid) or a smaller `learning_rate`"
+    }
+
     fn knob(&self) -> &'static str {
         "rounds"
     }

@@ -403,6 +403,10 @@ impl Family for ForestFamily {
         "forest"
     }
 
+    fn zero_probability_remedy(&self) -> &'static str {
+        "smooth the class shares with add-α: set `alpha = 0.5` (for example) in [model] (key `model.alpha`)"
+    }
+
     fn knob(&self) -> &'static str {
         match self.knob {
             ForestKnob::Trees => "trees",
@@ -417,6 +421,20 @@ impl Family for ForestFamily {
         match self.knob {
             ForestKnob::Trees => check_whole_grid(grid, "trees", 1.0, MAX_TREES as f64),
             ForestKnob::MaxDepth => check_whole_grid(grid, "max_depth", 1.0, MAX_DEPTH as f64),
+        }
+    }
+
+    fn check_inputs(&self, n_inputs: usize) -> Result<(), (&'static str, String)> {
+        match self.max_features {
+            MaxFeatures::Count(c) if c > n_inputs => Err((
+                "max_features",
+                format!(
+                    "max_features = {c}, but the model sees {n_inputs} input{}: at most {n_inputs} \
+                     (or \"all\")",
+                    if n_inputs == 1 { "" } else { "s" }
+                ),
+            )),
+            _ => Ok(()),
         }
     }
 

@@ -102,6 +102,10 @@ impl Family for KnnFamily {
         "knn"
     }
 
+    fn zero_probability_remedy(&self) -> &'static str {
+        "smooth the class shares with add-α: set `alpha = 0.5` (for example) in [model] (key `model.alpha`)"
+    }
+
     fn knob(&self) -> &'static str {
         "k"
     }

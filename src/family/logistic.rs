@@ -110,6 +110,10 @@ impl Family for LogisticFamily {
         "logistic"
     }
 
+    fn zero_probability_remedy(&self) -> &'static str {
+        "the logistic family gives 0 only to a class absent from a training set: enlarge `train_size`"
+    }
+
     fn knob(&self) -> &'static str {
         "inverse_penalty"
     }

@@ -156,8 +156,20 @@ pub trait Family: Send + Sync {
     /// The message names the offending value; the caller adds file and key.
     fn check_grid(&self, grid: &[f64], n_train: usize, n_inputs: usize) -> Result<(), String>;
 
+    /// Checks the family's options against the number of inputs the model sees (after one-hot
+    /// expansion): an error names the option's key (within `[model]`) and says why.
+    fn check_inputs(&self, _n_inputs: usize) -> Result<(), (&'static str, String)> {
+        Ok(())
+    }
+
     /// Whether the family supports the task (regression, or classification with K classes).
     fn supports(&self, task: Task) -> bool;
+
+    /// What to change when the family gives a class probability of exactly 0, which the
+    /// log-loss cannot score (added to the run's message; default: another loss).
+    fn zero_probability_remedy(&self) -> &'static str {
+        "score with a loss that accepts a probability of 0 (`kind = \"brier\"` or `\"zero_one\"` in [loss])"
+    }
 
     /// What the family can fill beyond values for `task` (default: values only).
     fn caps(&self, _task: Task) -> Caps {

@@ -121,11 +121,25 @@ pub fn check_predictions(
             }
             None => None,
         };
-        plan.loss
-            .check_prediction(v, q)
-            .map_err(|m| format!("at evaluation point {e}, {}: {m}", knob(g)))?;
+        plan.loss.check_prediction(v, q).map_err(|m| {
+            format!(
+                "at evaluation point {e}, {}: {}",
+                knob(g),
+                with_remedy(plan, model, m)
+            )
+        })?;
     }
     Ok(())
+}
+
+/// Adds the family's remedy to a loss's refusal of a zero class probability (the loss knows the
+/// problem, the family knows what to change).
+pub fn with_remedy(plan: &Plan, model: &ModelPlan, message: String) -> String {
+    if plan.loss.needs_probs() {
+        format!("{message}; {}", model.family.zero_probability_remedy())
+    } else {
+        message
+    }
 }
 
 /// Runs the replicates of block `b` sequentially: the replicate loop of every source. Each

@@ -117,8 +117,15 @@ pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
 /// 1e-300) and those of their differences underflow to 0.
 const RESPONSE_MIN: f64 = 1e-150;
 
-/// Refuses responses so small that every squared term underflows to 0: the run would report a
-/// decomposition of zeros, and a reading drawn from them, with exit 0.
+/// Largest largest magnitude of a regression's responses (truth or noise sd at the evaluation
+/// points; a table's responses): beyond it the squares of draws a few sds out overflow, and the
+/// run would fail with non-finite terms after all its work.
+const RESPONSE_MAX: f64 = 1e150;
+
+/// Refuses responses so small that every squared term underflows to 0 (the run would report a
+/// decomposition of zeros, and a reading drawn from them, with exit 0), or so large that their
+/// squares overflow (the run would do all its work and then refuse its non-finite terms).
+/// `validate` runs it too, through [`prepare`].
 fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     if plan.task != Task::Regress || plan.loss.count_responses() {
         return Ok(());
@@ -128,6 +135,20 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
         .iter()
         .chain(p.eval_sd.iter())
         .fold(0.0_f64, |a, v| a.max(v.abs()));
+    if !(big <= RESPONSE_MAX) {
+        let whose = match &plan.source {
+            Source::Table(t) => format!(
+                " (column `{}` of {})",
+                t.table.target,
+                t.table.path.display()
+            ),
+            _ => String::new(),
+        };
+        return Err(Error::Data(format!(
+            "the responses{whose} reach {big:.1e} in size, so their squares overflow; rescale \
+             the response (for example divide it by a power of ten)"
+        )));
+    }
     if big > 0.0 && big < RESPONSE_MIN {
         return Err(Error::Data(format!(
             "the responses are at most {big:.1e} in size, so their squares underflow to 0 and \
