@@ -135,7 +135,7 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
         .iter()
         .chain(p.eval_sd.iter())
         .fold(0.0_f64, |a, v| a.max(v.abs()));
-    if !(big <= RESPONSE_MAX) {
+    if big > RESPONSE_MAX || !big.is_finite() {
         let whose = match &plan.source {
             Source::Table(t) => format!(
                 " (column `{}` of {})",
