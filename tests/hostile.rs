@@ -1263,6 +1263,19 @@ fn formula_cases(t: &mut Table) {
         "s.toml: the responses reach 1.0e200 in size",
     )
     .also("rescale");
+    // Mean counts of 1e15 under the Poisson deviance: its terms lost their digits and a
+    // negative expected loss and bias came out with exit 0.
+    t.scenario(
+        g,
+        "Poisson mean count 1e15",
+        "name = \"p\"\nseed = 3\nreplicates = 6\n[data]\nsource = \"synthetic\"\ntrain_size = 40\n\
+         eval_size = 30\n[[data.inputs]]\nname = \"x\"\nuniform = [0, 1]\n[data.truth]\n\
+         formula = \"1e15\"\n[data.noise]\npoisson = true\n[model]\nfamily = \"knn\"\n\
+         grid = [1, 40]\n[loss]\nkind = \"poisson\"\n",
+        v,
+        "s.toml: the mean count (the truth at the evaluation points) reaches 1.0e15, above 1e8",
+    )
+    .also("kind = \"squared\"");
     // Responses whose squares underflow: every term came out 0, with a reading drawn from the
     // zeros and exit 0.
     t.scenario(

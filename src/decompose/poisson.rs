@@ -59,6 +59,14 @@
 //! (every count averaged is 0) stops the run where every prediction is checked
 //! ([`Loss::check_prediction`]) with a message naming the remedy (average more counts).
 //!
+//! # Precision
+//!
+//! The terms are of order 1 but are computed from sums of `μ` and `log μ`, numbers of order λ:
+//! they keep about `16 − log10 λ` digits. Measured on a constant mean with k-NN (400 replicates)
+//! the terms held to well within their standard errors up to λ = 1e10, the bias moved by ten
+//! standard errors at 1e11 and went negative at 1e12. Runs with mean counts above 1e8 are
+//! refused before they start (`runner`'s `COUNT_MAX`), with the squared loss as the advice.
+//!
 //! # Tables (observed counts)
 //!
 //! The observed count stands for λ and the noise is folded into the bias: `bias+noise =
