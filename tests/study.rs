@@ -183,6 +183,68 @@ fn several_families_equal_their_single_family_runs() {
     }
 }
 
+/// The CSV outputs of a study name each row's own model: `--csv` its knob, `--points` every
+/// (training size, model) cell (it wrote the first model at the largest size alone, with no
+/// column saying so), each cell's rows equal to that family's own run.
+#[test]
+fn study_csv_rows_carry_their_own_model_and_size() {
+    let sizes = "[60, 120]";
+    let both = BAKERY
+        .replace("SIZES", sizes)
+        .replace("MODELS", &format!("{TREE}{KNN}"));
+    let (plan, outcome, doc) = run_text(&both, &PlanOptions::default());
+    // --csv: the knob column is the row's own model's.
+    let table = report::csv::to_csv(&doc);
+    let mut lines = table.lines();
+    let header: Vec<&str> = lines.next().unwrap().split(',').collect();
+    let at = |name: &str| header.iter().position(|h| *h == name).unwrap();
+    let (fam, knob) = (at("family"), at("knob"));
+    let mut seen = 0;
+    for line in lines {
+        let f: Vec<&str> = line.split(',').collect();
+        let want = if f[fam] == "tree" { "max_depth" } else { "k" };
+        assert_eq!(f[knob], want, "{line}");
+        seen += 1;
+    }
+    assert_eq!(seen, 2 * (7 + 5));
+    // --points: every cell, each equal to the family's own run at that size.
+    let points = report::csv::points_csv(&plan, &outcome);
+    let mut lines = points.lines();
+    let header: Vec<String> = lines.next().unwrap().split(',').map(String::from).collect();
+    assert_eq!(
+        &header[..5],
+        ["value", "family", "knob", "train_size", "point"]
+    );
+    let body: Vec<Vec<String>> = lines
+        .map(|l| l.split(',').map(String::from).collect())
+        .collect();
+    assert_eq!(body.len(), 2 * (7 + 5) * 150);
+    for (family, section) in [("tree", TREE), ("knn", KNN)] {
+        let alone = BAKERY.replace("SIZES", sizes).replace("MODELS", section);
+        let (p1, o1, _) = run_text(&alone, &PlanOptions::default());
+        let single = report::csv::points_csv(&p1, &o1);
+        let mut sl = single.lines();
+        let sh: Vec<&str> = sl.next().unwrap().split(',').collect();
+        assert_eq!(&sh[..3], ["value", "train_size", "point"]);
+        // The single run's rows, with the study's `family` and `knob` put back in.
+        let want: Vec<Vec<String>> = sl
+            .map(|l| {
+                let mut v: Vec<String> = l.split(',').map(String::from).collect();
+                let knob = if family == "tree" { "max_depth" } else { "k" };
+                v.insert(1, knob.into());
+                v.insert(1, family.into());
+                v
+            })
+            .collect();
+        let got: Vec<Vec<String>> = body.iter().filter(|r| r[1] == family).cloned().collect();
+        assert_eq!(got.len(), want.len());
+        assert!(
+            got == want,
+            "{family}: the study's per-point rows differ from its own run"
+        );
+    }
+}
+
 /// The largest size of a study is the single-size run at that size (the same draw), and a
 /// smaller size agrees statistically with an independent single-size run on the same
 /// evaluation points (4 combined standard errors).

@@ -22,7 +22,8 @@ fn column(key: &str) -> String {
 /// size when a run has several, every term in the loss's order, `estimated` on tables, then
 /// `stderr_<term>` for every term with a standard error, then — only when the rows carry them
 /// (terms with a bootstrap standard error) — `lower95_<term>` and `upper95_<term>`, the 95 %
-/// bootstrap percentile interval of each such term, and last the knob's name (`knob`).
+/// bootstrap percentile interval of each such term, and last the knob's name (`knob`: the row's
+/// own model's knob when a run has several models).
 pub fn to_csv(doc: &ResultDoc) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
     let Some(first) = doc.points.first() else {
@@ -74,20 +75,28 @@ pub fn to_csv(doc: &ResultDoc) -> String {
             rec.push(num(lo));
             rec.push(num(hi));
         }
-        rec.push(doc.knob.clone());
+        // Several models: each row's own model's knob (rows name the model by its id).
+        let knob = p
+            .family
+            .as_deref()
+            .and_then(|id| doc.models.iter().find(|m| m.id() == id))
+            .map_or(doc.knob.as_str(), |m| m.knob.as_str());
+        rec.push(knob.to_string());
         w.write_record(&rec).expect("in-memory csv");
     }
     String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
 }
 
-/// One row per (grid value, evaluation point): the knob value, the point's index (a table's
-/// working rows: its line in the file, the header being line 1), its inputs, then the loss's
-/// per-point columns (class indices written as their labels).
+/// One row per (grid value, evaluation point): the knob value, the model (`family`, its label,
+/// and `knob`) when a run has several, the training size (`train_size`) when it has several, the
+/// point's index (a table's working rows: its line in the file, the header being line 1), its
+/// inputs, then the loss's per-point columns (class indices written as their labels). Every
+/// (training size, model) of a study is written, sizes ascending and models in scenario order; a
+/// per-point column that only some models have (an ensemble's `diversity`) is empty for the
+/// others.
 pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());
     let prep = &outcome.prepared;
-    let s = outcome.summary();
-    let acc = &s.total;
     let observed = prep.table.is_some();
     let (names, labels, lines): (Vec<String>, Vec<String>, Option<Vec<usize>>) = match &plan.source
     {
@@ -108,34 +117,73 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
             )
         }
     };
-    let cols = plan.loss.point_columns(&acc.shape, observed);
-    let mut header = vec![
-        "value".to_string(),
-        if observed { "line" } else { "point" }.to_string(),
-    ];
+    let with_model = plan.models.len() > 1;
+    let with_size = plan.sizes.len() > 1;
+    // The cells in order, and the union of their per-point columns in order of appearance.
+    let cells: Vec<(usize, usize)> = (0..plan.sizes.len())
+        .flat_map(|s| (0..plan.models.len()).map(move |i| (s, i)))
+        .collect();
+    let mut cols: Vec<(&'static str, bool)> = Vec::new();
+    for &(s, i) in &cells {
+        let shape = &outcome.summaries[plan.cell(s, i)].total.shape;
+        for c in plan.loss.point_columns(shape, observed) {
+            if !cols.iter().any(|d| d.0 == c.0) {
+                cols.push(c);
+            }
+        }
+    }
+    let mut header = vec!["value".to_string()];
+    if with_model {
+        header.push("family".into());
+        header.push("knob".into());
+    }
+    if with_size {
+        header.push("train_size".into());
+    }
+    header.push(if observed { "line" } else { "point" }.to_string());
     header.extend(names.iter().cloned());
     header.extend(cols.iter().map(|c| c.0.to_string()));
     w.write_record(&header).expect("in-memory csv");
     let noise_var = prep.noise_var();
     let probs = prep.flat_probs();
     let target = prep.target(&noise_var, &probs);
-    for (g, &value) in plan.model().grid.iter().enumerate() {
-        for e in 0..acc.shape.points {
-            let mut rec = vec![
-                value.to_string(),
-                lines.as_ref().map_or(e, |l| l[e]).to_string(),
-            ];
-            rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
-            let vals = plan.loss.point_values(acc, &target, g, e);
-            for (v, (_, is_label)) in vals.iter().zip(&cols) {
-                if *is_label && v.is_finite() {
-                    let c = *v as usize;
-                    rec.push(labels.get(c).cloned().unwrap_or_else(|| c.to_string()));
-                } else {
-                    rec.push(num(*v));
+    for &(s, i) in &cells {
+        let model = &plan.models[i];
+        let acc = &outcome.summaries[plan.cell(s, i)].total;
+        let own: Vec<&'static str> = plan
+            .loss
+            .point_columns(&acc.shape, observed)
+            .iter()
+            .map(|c| c.0)
+            .collect();
+        for (g, &value) in model.grid.iter().enumerate() {
+            for e in 0..acc.shape.points {
+                let mut rec = vec![value.to_string()];
+                if with_model {
+                    rec.push(model.label.clone());
+                    rec.push(model.family.knob().to_string());
                 }
+                if with_size {
+                    rec.push(plan.sizes[s].to_string());
+                }
+                rec.push(lines.as_ref().map_or(e, |l| l[e]).to_string());
+                rec.extend(prep.eval_x.row(e).iter().map(|v| v.to_string()));
+                let vals = plan.loss.point_values(acc, &target, g, e);
+                for (name, is_label) in &cols {
+                    let Some(k) = own.iter().position(|o| o == name) else {
+                        rec.push(String::new());
+                        continue;
+                    };
+                    let v = vals[k];
+                    if *is_label && v.is_finite() {
+                        let c = v as usize;
+                        rec.push(labels.get(c).cloned().unwrap_or_else(|| c.to_string()));
+                    } else {
+                        rec.push(num(v));
+                    }
+                }
+                w.write_record(&rec).expect("in-memory csv");
             }
-            w.write_record(&rec).expect("in-memory csv");
         }
     }
     String::from_utf8(w.into_inner().expect("in-memory csv")).expect("utf-8")
