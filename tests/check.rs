@@ -236,6 +236,35 @@ fn command_line_check() {
     );
     assert_eq!(code, 0);
     assert!(d.join("new.json").exists());
+    // A baseline of the first format: the refusal says to accept a new one with --update, and
+    // --update replaces it (it refused, repeating the same advice); without --update it stays.
+    let v1 = r#"{"format": "lossprism-result/1", "version": "0.1.0", "points": []}"#;
+    std::fs::write(d.join("v1.json"), v1).unwrap();
+    let (code, _, err) = run3(d, &["check", "same.json", "--baseline", "v1.json"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("--update"), "{err}");
+    assert_eq!(std::fs::read_to_string(d.join("v1.json")).unwrap(), v1);
+    let (code, out, err) = run3(
+        d,
+        &["check", "same.json", "--baseline", "v1.json", "--update"],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert!(out.contains("written by an earlier lossprism"), "{out}");
+    assert_eq!(
+        std::fs::read(d.join("v1.json")).unwrap(),
+        std::fs::read(d.join("same.json")).unwrap()
+    );
+    // Anything else that is not a result is not replaced, with or without --update.
+    std::fs::write(d.join("notes.json"), r#"{"format": "my-notes"}"#).unwrap();
+    let (code, _, _) = run3(
+        d,
+        &["check", "same.json", "--baseline", "notes.json", "--update"],
+    );
+    assert_eq!(code, 2);
+    assert_eq!(
+        std::fs::read_to_string(d.join("notes.json")).unwrap(),
+        r#"{"format": "my-notes"}"#
+    );
 }
 
 #[test]

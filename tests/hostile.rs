@@ -739,17 +739,27 @@ fn scenario_cases(t: &mut Table) {
             "family = \"boost\"\ngrid = [1, 2]\nlearning_rate = 1e308",
         ),
         v,
-        "must be a number in (0, 1000], got 1e308",
+        "must be a number in (0, 1], got 1e308",
     );
     // The ranges said `[0, ...]`, and 0 was then refused with another message.
     for (option, needle) in [
         (
             "learning_rate = 0",
-            "key `model.learning_rate`: must be a number in (0, 1000], got 0",
+            "key `model.learning_rate`: must be a number in (0, 1], got 0",
         ),
         (
             "subsample = 1.5",
             "key `model.subsample`: must be a number in (0, 1], got 1.5",
+        ),
+        // Accepted up to 1000: the rounds diverged to 4.6e299 with exit 0.
+        (
+            "learning_rate = 2.5",
+            "key `model.learning_rate`: must be a number in (0, 1], got 2.5",
+        ),
+        // Inside "(0, ..." as written, refused with no reason.
+        (
+            "learning_rate = 1e-310",
+            "below the smallest number this key takes",
         ),
     ] {
         t.scenario(
@@ -1135,6 +1145,42 @@ fn scenario_cases(t: &mut Table) {
         "smaller `learning_rate`",
     )
     .also("probability 0");
+    // A leaf size that leaves no split possible: every grid value fitted the same constant.
+    for (family, extra, needle) in [
+        (
+            "tree",
+            "",
+            "min_samples_leaf = 1000 leaves no split possible on",
+        ),
+        (
+            "forest",
+            "",
+            "min_samples_leaf = 1000 leaves no split possible on",
+        ),
+        (
+            "boost",
+            "",
+            "min_samples_leaf = 1000 leaves no split possible on",
+        ),
+        (
+            "boost",
+            "\nsubsample = 0.25",
+            "rows per round (`subsample` of the training rows)",
+        ),
+    ] {
+        let leaf = if extra.is_empty() { 1000 } else { 3 };
+        t.scenario(
+            g,
+            &format!("{family}{extra} min_samples_leaf = {leaf}"),
+            &sc(
+                "family = \"tree\"\ngrid = [1, 2]",
+                &format!("family = \"{family}\"\ngrid = [1, 2]\nmin_samples_leaf = {leaf}{extra}"),
+            ),
+            v,
+            needle,
+        )
+        .also("key `model.min_samples_leaf`");
+    }
     // A forest asked to try more inputs per node than the model has was silently held to all.
     t.scenario(
         g,

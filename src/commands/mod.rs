@@ -568,6 +568,18 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
             args.baseline.display()
         )));
     }
+    if args.update && older_result(&args.baseline) {
+        // A baseline written by an earlier lossprism cannot be compared; `--update` is how the
+        // refusal tells the user to replace it.
+        write_baseline(&text)?;
+        outln!(
+            "baseline {} (format `{}`, written by an earlier lossprism; not compared) replaced by {}",
+            args.baseline.display(),
+            report::FORMAT_V1,
+            args.result.display()
+        );
+        return Ok(0);
+    }
     let (_, base) = read(&args.baseline)?;
     let rep = check::compare(&new, &base, &opts).map_err(|e| Error::Usage(e.to_string()))?;
     if args.update {
@@ -626,6 +638,20 @@ pub const MAX_RESULT_BYTES: u64 = 1 << 30;
 /// Reads a result document's text with the streamed checks: size, a JSON object at the start,
 /// then its `format` read without building the document, so junk of any size is refused
 /// quickly and in little memory.
+/// Whether `p` is a result document of the earlier format (`lossprism-result/1`), which only
+/// `check --update` replaces; anything else (unreadable, another document) is not.
+fn older_result(p: &Path) -> bool {
+    let what = "lossprism result document";
+    crate::codec::read_document(p, MAX_RESULT_BYTES, what, &crate::codec::json_object)
+        .ok()
+        .and_then(|text| {
+            crate::codec::JsonHead::of(&text)
+                .ok()
+                .and_then(|h| h.format().map(|f| f == report::FORMAT_V1))
+        })
+        .unwrap_or(false)
+}
+
 fn read_result_text(p: &Path) -> Result<String, Error> {
     let what = "lossprism result document";
     let text = crate::codec::read_document(p, MAX_RESULT_BYTES, what, &crate::codec::json_object)?;

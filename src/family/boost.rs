@@ -93,8 +93,11 @@ impl Default for BoostFamily {
 pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Family>, OptionError> {
     let mut b = BoostFamily::default();
     // Both ranges are open at 0 (the message says `(0, ...]`; it said `[0, ...]` and then
-    // refused 0 with another message).
-    if let Some(v) = opts.number("learning_rate", f64::MIN_POSITIVE, 1e3)? {
+    // refused 0 with another message). The shrinkage is at most 1 (Friedman 2001, eq. 36,
+    // `0 < ν ≤ 1`; cited from memory): above it the rounds overshoot and, past 2, diverge (a
+    // hostile sweep's `learning_rate = 1000` printed 4.6e299 with exit 0, or blamed the
+    // response's scale).
+    if let Some(v) = opts.number("learning_rate", f64::MIN_POSITIVE, 1.0)? {
         b.learning_rate = v;
     }
     if let Some(d) = opts.int("max_depth", 1, 64)? {
@@ -157,6 +160,21 @@ impl Family for BoostFamily {
 
     fn supports(&self, task: Task) -> bool {
         matches!(task, Task::Regress | Task::Classify { classes: 2 })
+    }
+
+    fn check_options(
+        &self,
+        n_train: usize,
+        _n_inputs: usize,
+    ) -> Result<(), (&'static str, String)> {
+        // Each round grows its tree on ⌊subsample · n⌋ rows (at least 1).
+        let rows = ((self.subsample * n_train as f64).floor() as usize).max(1);
+        let what = if rows < n_train {
+            "rows per round (`subsample` of the training rows)"
+        } else {
+            "training rows"
+        };
+        super::check_leaf_size(self.min_samples_leaf, rows, what)
     }
 
     fn caps(&self, task: Task) -> Caps {

@@ -424,7 +424,8 @@ impl Family for ForestFamily {
         }
     }
 
-    fn check_inputs(&self, n_inputs: usize) -> Result<(), (&'static str, String)> {
+    fn check_options(&self, n_train: usize, n_inputs: usize) -> Result<(), (&'static str, String)> {
+        super::check_leaf_size(self.min_samples_leaf, n_train, "training rows")?;
         match self.max_features {
             MaxFeatures::Count(c) if c > n_inputs => Err((
                 "max_features",

@@ -111,7 +111,9 @@ impl Family for LogisticFamily {
     }
 
     fn zero_probability_remedy(&self) -> &'static str {
-        "the logistic family gives 0 only to a class absent from a training set: enlarge `train_size`"
+        "the logistic family gives 0 to a class absent from a training set (enlarge `train_size`), or \
+         when a weak penalty lets it separate the classes and a probability underflows (smaller \
+         `inverse_penalty` values in the grid)"
     }
 
     fn knob(&self) -> &'static str {

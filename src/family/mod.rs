@@ -156,9 +156,14 @@ pub trait Family: Send + Sync {
     /// The message names the offending value; the caller adds file and key.
     fn check_grid(&self, grid: &[f64], n_train: usize, n_inputs: usize) -> Result<(), String>;
 
-    /// Checks the family's options against the number of inputs the model sees (after one-hot
-    /// expansion): an error names the option's key (within `[model]`) and says why.
-    fn check_inputs(&self, _n_inputs: usize) -> Result<(), (&'static str, String)> {
+    /// Checks the family's options against the smallest training size and the number of inputs
+    /// the model sees (after one-hot expansion), so that no option is silently without effect:
+    /// an error names the option's key (within `[model]`) and says why.
+    fn check_options(
+        &self,
+        _n_train: usize,
+        _n_inputs: usize,
+    ) -> Result<(), (&'static str, String)> {
         Ok(())
     }
 
@@ -321,7 +326,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             knob: "rounds",
             meaning: "boosting rounds of small regression trees (staged predictions; 0 = the constant start); larger = more complex",
             tasks: "regression (squared loss), classification with two classes (log-loss)",
-            options: "learning_rate (default 0.1), max_depth (default 3), subsample (share of rows per round, default 1), min_samples_leaf (default 1)",
+            options: "learning_rate (in (0, 1], default 0.1), max_depth (default 3), subsample (share of rows per round, default 1), min_samples_leaf (default 1)",
             build: Some(boost::build),
         },
         FamilyInfo {
@@ -409,4 +414,25 @@ pub fn smoothed_shares(counts: &[f64], alpha: f64, out: &mut [f64]) {
     } else {
         out.iter_mut().for_each(|o| *o = 1.0 / k);
     }
+}
+
+/// Refuses a `min_samples_leaf` that leaves no split possible on `rows` training rows (a split
+/// needs `2 × min_samples_leaf`): every knob value would then fit the same constant model.
+pub fn check_leaf_size(
+    min_samples_leaf: usize,
+    rows: usize,
+    what: &str,
+) -> Result<(), (&'static str, String)> {
+    if min_samples_leaf.saturating_mul(2) > rows {
+        return Err((
+            "min_samples_leaf",
+            format!(
+                "min_samples_leaf = {min_samples_leaf} leaves no split possible on {rows} \
+                 {what}: a split needs 2 × min_samples_leaf rows, so every grid value would fit \
+                 the same constant; at most {}",
+                (rows / 2).max(1)
+            ),
+        ));
+    }
+    Ok(())
 }

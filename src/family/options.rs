@@ -100,10 +100,19 @@ impl Options {
             } else {
                 format!("[{}", crate::fmt::fmt_exact(lo))
             };
+            // A positive number below the smallest normal one is inside "(0, ..." as written.
+            let tiny = if x > 0.0 && x < lo {
+                format!(
+                    ", below the smallest number this key takes, {}",
+                    crate::fmt::fmt_exact(lo)
+                )
+            } else {
+                String::new()
+            };
             return Err(self.err(
                 key,
                 format!(
-                    "must be a number in {lower}, {}], got {}",
+                    "must be a number in {lower}, {}], got {}{tiny}",
                     crate::fmt::fmt_exact(hi),
                     crate::fmt::fmt_exact(x)
                 ),

@@ -1491,6 +1491,14 @@ impl Family for TreeFamily {
         true
     }
 
+    fn check_options(
+        &self,
+        n_train: usize,
+        _n_inputs: usize,
+    ) -> Result<(), (&'static str, String)> {
+        super::check_leaf_size(self.min_samples_leaf, n_train, "training rows")
+    }
+
     fn caps(&self, task: Task) -> Caps {
         Caps {
             probabilities: matches!(task, Task::Classify { .. }),

@@ -1104,7 +1104,7 @@ fn build_models(
         })?;
         fam.check_grid(&grid, n_train, n_inputs)
             .map_err(|m| cx.err_line(grid_line, &key("grid"), m))?;
-        fam.check_inputs(n_inputs)
+        fam.check_options(n_train, n_inputs)
             .map_err(|(k, m)| cx.err_line(line(k), &key(k), m))?;
         if fit_seeds > 1
             && !fam.caps(task).stochastic
