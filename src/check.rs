@@ -138,7 +138,12 @@ impl CheckOptions {
                 self.margin
             )));
         }
-        for (t, m) in &self.term_margins {
+        for (i, (t, m)) in self.term_margins.iter().enumerate() {
+            if self.term_margins[..i].iter().any(|(u, _)| u == t) {
+                return Err(CheckError::Options(format!(
+                    "--margin-term: term `{t}` given twice; give each term one margin"
+                )));
+            }
             if !all_terms().contains(&t.as_str()) {
                 return Err(CheckError::Options(format!(
                     "--margin-term: unknown term `{t}`; terms: {}",
@@ -417,6 +422,59 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                 crate::fmt::clip(&has.1, 40),
                 at(lacking)
             ));
+        }
+    }
+
+    // What every run satisfies: at least MIN_REPLICATES replicates, a noise term that is not
+    // negative (a variance, an entropy, an expected deviance), and the exact identities the loss
+    // declares (ESL eq. 7.9 and the others in `decompose`) to rounding in every row.
+    if doc.replicates < crate::scenario::plan::MIN_REPLICATES {
+        return Err(format!(
+            "`replicates` is {}, but a run has at least {}; {EDITED}",
+            doc.replicates,
+            crate::scenario::plan::MIN_REPLICATES
+        ));
+    }
+    let loss = decompose::by_name(&doc.loss).expect("checked above");
+    let observed = doc.table.is_some();
+    for (i, p) in doc.points.iter().enumerate() {
+        if p.has("noise") && p.get("noise") < 0.0 {
+            return Err(format!(
+                "{}: `noise` is {}, and a noise term cannot be negative; {EDITED}",
+                at(i),
+                crate::fmt::fmt_exact(p.get("noise"))
+            ));
+        }
+        let shape = decompose::Shape {
+            grid: 1,
+            points: 0,
+            classes: doc.scenario.labels.as_ref().map_or(0, Vec::len),
+            fits: if p.has("variance_fit") { 2 } else { 1 },
+            all_points: !observed,
+            ensemble: p.has("diversity"),
+        };
+        for id in loss.identities(&shape, observed) {
+            let keys = std::iter::once(id.total).chain(id.parts.iter().map(|(k, _)| *k));
+            if keys.clone().any(|k| !p.has(k) || !p.get(k).is_finite()) {
+                continue;
+            }
+            let total = p.get(id.total);
+            let sum: f64 = id.parts.iter().map(|(k, c)| c * p.get(k)).sum();
+            let scale = total.abs()
+                + id.parts
+                    .iter()
+                    .map(|(k, c)| (c * p.get(k)).abs())
+                    .sum::<f64>();
+            if !scale.is_finite() || (total - sum).abs() > 1e-9 * scale {
+                return Err(format!(
+                    "{}: `{}` is {} but its parts add up to {} ({}); {EDITED}",
+                    at(i),
+                    id.total,
+                    crate::fmt::fmt_exact(total),
+                    crate::fmt::fmt_exact(sum),
+                    id.name
+                ));
+            }
         }
     }
 
@@ -1286,10 +1344,12 @@ mod tests {
     use crate::codec::pack_floats;
     use std::collections::BTreeMap;
 
+    /// A row whose noise makes ESL eq. 7.9 hold exactly, as every run's rows do (`validate`
+    /// refuses a row where it does not).
     fn row(value: f64, el: f64, b2: f64, var: f64, se: Option<f64>) -> serde_json::Value {
         serde_json::json!({
             "value": value, "expected_loss": el, "bias_sq": b2, "variance": var,
-            "noise": 0.25, "expected_loss_direct": el,
+            "noise": el - b2 - var, "expected_loss_direct": el,
             "stderr": { "expected_loss": se, "bias_sq": se, "variance": se,
                         "expected_loss_direct": se }
         })
@@ -1345,10 +1405,13 @@ mod tests {
         d
     }
 
-    /// Sets term `key` of the first row (and `best` from the rows, as `run` would).
+    /// Sets term `key` of the first row (and its noise, so that ESL eq. 7.9 still holds, and
+    /// `best` from the rows, as `run` would).
     fn set(d: &mut ResultDoc, key: &str, v: f64) {
-        let t = d.points[0].terms.iter_mut().find(|t| t.0 == key).unwrap();
-        t.1 = v;
+        let p = &mut d.points[0];
+        p.terms.iter_mut().find(|t| t.0 == key).unwrap().1 = v;
+        let noise = p.get("expected_loss") - p.get("bias_sq") - p.get("variance");
+        p.terms.iter_mut().find(|t| t.0 == "noise").unwrap().1 = noise;
         d.best = crate::report::best_of(&d.points);
     }
 
@@ -1491,6 +1554,8 @@ mod tests {
         );
         let mut new = base.clone();
         new.seed = 2;
+        // The expected loss grows with it (a run's rows satisfy ESL eq. 7.9).
+        set(&mut new, "expected_loss", 1e300);
         set(&mut new, "variance", 1e300);
         let text = compare(&new, &base, &CheckOptions::default())
             .unwrap()

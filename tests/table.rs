@@ -881,6 +881,104 @@ fn points_csv_line_column_counts_file_lines_like_errors() {
     assert!(stderr(&o).contains("d.csv:8"), "{}", stderr(&o));
 }
 
+/// `duplicates = "drop"` says how many repeats it left out, on the terminal, in the JSON and in
+/// the HTML report (a run said "0 dropped" and nothing else).
+#[test]
+fn dropped_repeats_are_counted_in_every_output() {
+    let dir = tmp();
+    let mut csv = String::from("a,b,y\n");
+    for i in 0..15 {
+        let row = format!("{},{},{}\n", 0.5 + i as f64, (i * 7) % 11, (i * 3) % 5);
+        csv.push_str(&row.repeat(3));
+    }
+    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    let scen = TABLE_SCENARIO.replace("target = \"y\"", "target = \"y\"\nduplicates = \"drop\"");
+    fs::write(dir.path().join("s.toml"), &scen).unwrap();
+    let o = run_in(
+        dir.path(),
+        &["run", "s.toml", "--out", "r.json", "--report", "r.html"],
+    );
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let out = String::from_utf8_lossy(&o.stdout).to_string();
+    assert!(
+        out.contains("15 rows (0 dropped, 30 repeats of an earlier row left out"),
+        "{out}"
+    );
+    let doc: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(dir.path().join("r.json")).unwrap()).unwrap();
+    assert_eq!(doc["table"]["repeats_dropped"], 30);
+    let html = fs::read_to_string(dir.path().join("r.html")).unwrap();
+    assert!(html.contains("after leaving out 30 rows that repeat an earlier row"));
+    // Without repeats the JSON has no such field (the documents of earlier runs are unchanged).
+    fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
+    let mut once = String::from("a,b,y\n");
+    for i in 0..40 {
+        once.push_str(&format!(
+            "{},{},{}\n",
+            0.5 + i as f64,
+            (i * 7) % 11,
+            (i * 3) % 5
+        ));
+    }
+    fs::write(dir.path().join("d.csv"), &once).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml", "--out", "r2.json"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let doc: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(dir.path().join("r2.json")).unwrap()).unwrap();
+    assert!(doc["table"].get("repeats_dropped").is_none());
+}
+
+/// Line numbers are physical lines for every line ending: CRLF read one line short, a lone CR
+/// put every row on line 1, and 64 KiB of leading blank lines were not counted (a file with
+/// 70 000 of them named line 4475 for line 70011).
+#[test]
+fn line_numbers_are_physical_lines_for_every_line_ending() {
+    let dir = tmp();
+    let rows: Vec<String> = (0..40)
+        .map(|i| format!("{},{},{}", 0.5 + i as f64, (i * 7) % 11, (i * 3) % 5))
+        .collect();
+    for (ending, lead) in [
+        ("\r\n", 0),
+        ("\r", 0),
+        ("\n", 70_000),
+        ("\r\n", 3),
+        ("\r", 2),
+    ] {
+        let what = format!("{ending:?} with {lead} blank lines first");
+        let text = format!(
+            "{}a,b,y{ending}{}{ending}",
+            ending.repeat(lead),
+            rows.join(ending)
+        );
+        fs::write(dir.path().join("d.csv"), &text).unwrap();
+        fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
+        let o = run_in(dir.path(), &["run", "s.toml", "--points", "p.csv"]);
+        assert_eq!(o.status.code(), Some(0), "{what}: {}", stderr(&o));
+        // The file's physical lines, as an editor numbers them.
+        let physical: Vec<&str> = text
+            .split("\r\n")
+            .flat_map(|l| l.split(['\r', '\n']))
+            .collect();
+        let points = fs::read_to_string(dir.path().join("p.csv")).unwrap();
+        let mut seen = 0;
+        for r in points.lines().skip(1) {
+            let cells: Vec<&str> = r.split(',').collect();
+            let line: usize = cells[1].parse().unwrap();
+            let a = physical[line - 1].split(',').next().unwrap();
+            assert_eq!(a, cells[2], "{what}: line {line}");
+            seen += 1;
+        }
+        assert!(seen >= 40, "{what}");
+        // Row 7 (0-based 6) made unreadable: the error names its physical line.
+        let bad = text.replacen("6.5,", "x6.5,", 1);
+        fs::write(dir.path().join("d.csv"), bad).unwrap();
+        let o = run_in(dir.path(), &["run", "s.toml"]);
+        assert_eq!(o.status.code(), Some(2), "{what}");
+        let want = format!("d.csv:{}:", lead + 8);
+        assert!(stderr(&o).contains(&want), "{what}: {}", stderr(&o));
+    }
+}
+
 /// `run --assess` counts an assessment only when it prints it: outputs it would ignore,
 /// `--quiet` and `--replicates` (one fit, no replicates) are refused before the ledger is touched.
 #[test]

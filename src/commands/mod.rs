@@ -274,6 +274,9 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     let mut set = Outputs::new();
     if let Some(p) = &args.scenario {
         set.input("the scenario file", p);
+        // The holdout ledger counts the looks at the holdout: replacing it would reset the
+        // count and lose the warning.
+        set.input("the scenario's holdout ledger", &assess::ledger_path(p));
     }
     for p in data_inputs(&plan) {
         set.input("the scenario's data file", &p);

@@ -1423,6 +1423,25 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             ));
             let fit = fit_table(o, &t, &rel)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
+            // A variance is never negative; the Gamma test's intercept can be, and a twin
+            // "corrected" a raw −21 into a noise with an SE fourteen times its size.
+            if let Some(n) = fit.noise.as_ref().filter(|n| n.raw < 0.0) {
+                return Err(Error::Usage(format!(
+                    "{}: the noise estimate ({}) is {} ± {}, below 0, which a variance cannot be: \
+                     the responses do not change like a smooth function plus noise at the \
+                     neighbours' scale{}; fix the table, or pass --noise-estimator nn or plane \
+                     (never negative)",
+                    o.table.display(),
+                    n.method.name(),
+                    fmt_num(n.raw),
+                    fmt_num(n.raw_se),
+                    crate::dataset::noise::negative_estimate_causes(
+                        t.x.view(),
+                        &t.names,
+                        Some(&t.lines)
+                    )
+                )));
+            }
             if let (Rule::Only(Candidate::LocLin), Some(why)) =
                 (o.reference, select::loclin_skipped(t.rows(), t.x.ncols()))
             {

@@ -341,6 +341,68 @@ fn number(cell: &str) -> Option<f64> {
     cell.parse::<f64>().ok().filter(|v| v.is_finite())
 }
 
+/// Offsets where physical lines start, seen so far and not yet passed, and how many were passed:
+/// a line ends at LF, at CRLF (one break) or at a CR alone.
+#[derive(Debug, Default)]
+struct LineStarts {
+    /// Bytes seen.
+    offset: u64,
+    /// Whether the last byte seen was a CR.
+    prev_cr: bool,
+    /// Line starts not yet passed by [`LineStarts::line_at`], ascending.
+    pending: std::collections::VecDeque<u64>,
+    /// Line starts passed.
+    passed: usize,
+}
+
+impl LineStarts {
+    fn see(&mut self, bytes: &[u8]) {
+        for &b in bytes {
+            self.offset += 1;
+            match b {
+                // CRLF is one break; the next line is taken to start at its LF, where the CSV
+                // reader places a record that follows a CRLF.
+                b'\r' => self.pending.push_back(self.offset),
+                b'\n' if !self.prev_cr => self.pending.push_back(self.offset),
+                _ => {}
+            }
+            self.prev_cr = b == b'\r';
+        }
+    }
+
+    /// The 1-based physical line holding byte `x`; `x` never decreases between calls.
+    fn line_at(&mut self, x: u64) -> usize {
+        while self.pending.front().is_some_and(|&s| s <= x) {
+            self.pending.pop_front();
+            self.passed += 1;
+        }
+        self.passed + 1
+    }
+}
+
+/// A reader that feeds every byte it passes to a [`LineStarts`].
+struct LineCounter<R> {
+    inner: R,
+    starts: std::rc::Rc<std::cell::RefCell<LineStarts>>,
+}
+
+impl<R: std::io::Read> std::io::Read for LineCounter<R> {
+    fn read(&mut self, buf: &mut [u8]) -> std::io::Result<usize> {
+        let n = self.inner.read(buf)?;
+        self.starts.borrow_mut().see(&buf[..n]);
+        Ok(n)
+    }
+}
+
+/// A CSV reader's error in one line, with its own line number replaced by the physical one.
+fn csv_error_text(e: &csv::Error, line: Option<usize>) -> String {
+    let text = format!("{e}").replace('\n', " ");
+    match (e.position(), line) {
+        (Some(p), Some(l)) => text.replace(&format!("line: {}", p.line()), &format!("line: {l}")),
+        _ => text,
+    }
+}
+
 /// Reads and types a CSV file with a header. See the module docs for the typing rules.
 pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     let file = path.display().to_string();
@@ -398,7 +460,15 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         read: 0,
         cap,
     };
+    // Physical lines counted as the bytes pass (LF, CRLF and CR alike), so that messages and
+    // the `line` column name the line an editor shows.
+    let line_starts = std::rc::Rc::new(std::cell::RefCell::new(LineStarts::default()));
+    let f = LineCounter {
+        inner: f,
+        starts: line_starts.clone(),
+    };
     let mut reader = std::io::BufReader::with_capacity(1 << 16, f);
+    let mut skipped: u64 = 0;
     // Skip leading blank space to tell an empty file from a table.
     loop {
         use std::io::BufRead;
@@ -423,10 +493,14 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             Some(_) => break,
             None => {
                 let n = buf.len();
+                skipped += n as u64;
                 reader.consume(n);
             }
         }
     }
+    // The physical line of a byte offset of the CSV reader (which starts after the skipped
+    // blank space).
+    let line_of = |p: &csv::Position| line_starts.borrow_mut().line_at(skipped + p.byte());
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
         .trim(csv::Trim::All)
@@ -472,8 +546,16 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 Some(1),
                 None,
                 format!(
-                    "no {what} column `{name}`; the columns are: {}",
-                    crate::fmt::clip(&header.join(", "), 300)
+                    "no {what} column `{name}`; the columns are: {}{}",
+                    crate::fmt::clip(&header.join(", "), 300),
+                    // One column whose name holds `;` or a tab: another delimiter.
+                    match header.as_slice() {
+                        [only] if only.contains(';') =>
+                            " (the file seems to separate its columns with `;`; lossprism reads commas)",
+                        [only] if only.contains('\t') =>
+                            " (the file seems to separate its columns with tabs; lossprism reads commas)",
+                        _ => "",
+                    }
                 ),
             )
         })
@@ -517,10 +599,10 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     let mut lines: Vec<usize> = Vec::new();
     for rec in rdr.records() {
         let rec = rec.map_err(|e| {
-            let line = e.position().map(|p| p.line() as usize);
-            err(line, None, format!("{}", e).replace('\n', " "))
+            let line = e.position().map(line_of);
+            err(line, None, csv_error_text(&e, line))
         })?;
-        let line = rec.position().map(|p| p.line() as usize).unwrap_or(0);
+        let line = rec.position().map(line_of).unwrap_or(0);
         if rec.iter().all(|c| c.is_empty()) {
             continue;
         }
@@ -577,10 +659,20 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             let bad = if is_missing(cell) {
                 Some("is missing a value".to_string())
             } else if is_num && !is_target_label && number(cell).is_none() {
-                Some(format!(
-                    "`{}` is not a number (the column is numeric)",
-                    crate::fmt::clip(cell, 60)
-                ))
+                // A number too large for a float parses to infinity: say so.
+                let overflows = cell.parse::<f64>().is_ok_and(f64::is_infinite)
+                    && cell.chars().any(|ch| ch.is_ascii_digit());
+                Some(if overflows {
+                    format!(
+                        "`{}` is beyond the range of floating-point numbers (about ±1.8e308)",
+                        crate::fmt::clip(cell, 60)
+                    )
+                } else {
+                    format!(
+                        "`{}` is not a number (the column is numeric)",
+                        crate::fmt::clip(cell, 60)
+                    )
+                })
             } else {
                 None
             };
@@ -721,6 +813,9 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         }
         TargetKind::Classes(given) => {
             let mut labels: Vec<String> = given.clone().unwrap_or_default();
+            // Labels read from the data that are numbers, with the first line of each: `1` and
+            // `1.0` would otherwise be two classes.
+            let mut numeric: Vec<(f64, usize)> = Vec::new();
             let mut y = Vec::with_capacity(n);
             for &r in &rows {
                 let v = &cells[r][target_col];
@@ -738,6 +833,22 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                                      in [data.classes])"
                                 ),
                             ));
+                        }
+                        if let Some(x) = number(v) {
+                            if let Some(&(_, k)) = numeric.iter().find(|(u, _)| *u == x) {
+                                return Err(err(
+                                    Some(lines[r]),
+                                    Some(&opts.target),
+                                    format!(
+                                        "label `{}` is the number of label `{}` written another \
+                                         way, so they would be two classes; write each class \
+                                         one way",
+                                        crate::fmt::clip(v, 60),
+                                        crate::fmt::clip(&labels[k], 60)
+                                    ),
+                                ));
+                            }
+                            numeric.push((x, labels.len()));
                         }
                         labels.push(v.to_string());
                         labels.len() - 1

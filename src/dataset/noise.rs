@@ -95,6 +95,73 @@ pub struct NoiseEstimate {
     pub method: Method,
 }
 
+/// Why a table's noise estimate came out negative (only the Gamma test's intercept can), in words
+/// to add to the refusal: the input value furthest from its column's median in robust standard
+/// deviations (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than
+/// 10 of them away, with its line (`lines`, 1-based, when known); and how many rows repeat
+/// another row's inputs. Empty when neither shows.
+pub fn negative_estimate_causes(
+    x: ArrayView2<'_, f64>,
+    names: &[String],
+    lines: Option<&[usize]>,
+) -> String {
+    let median = |v: &mut Vec<f64>| -> f64 {
+        v.sort_by(f64::total_cmp);
+        let n = v.len();
+        if n % 2 == 1 {
+            v[n / 2]
+        } else {
+            0.5 * (v[n / 2 - 1] + v[n / 2])
+        }
+    };
+    let mut worst: Option<(f64, usize, usize)> = None; // (robust z, column, row)
+    for (j, col) in x.columns().into_iter().enumerate() {
+        if col.is_empty() {
+            continue;
+        }
+        let mut v: Vec<f64> = col.to_vec();
+        let med = median(&mut v);
+        let mut dev: Vec<f64> = col.iter().map(|a| (a - med).abs()).collect();
+        let scale = 1.4826 * median(&mut dev);
+        if scale.is_nan() || scale <= 0.0 {
+            continue;
+        }
+        for (i, a) in col.iter().enumerate() {
+            let z = (a - med).abs() / scale;
+            if z > 10.0 && worst.map_or(true, |w| z > w.0) {
+                worst = Some((z, j, i));
+            }
+        }
+    }
+    let mut causes = Vec::new();
+    if let Some((z, j, i)) = worst {
+        let name = names.get(j).map_or("?", String::as_str);
+        let at = lines
+            .and_then(|l| l.get(i))
+            .map_or(format!("row {}", i + 1), |l| format!("line {l}"));
+        causes.push(format!(
+            "column `{name}` holds {} on {at}, {} robust standard deviations from its median: \
+             a mistyped value?",
+            crate::fmt::fmt_exact(x[[i, j]]),
+            crate::fmt::fmt_num(z)
+        ));
+    }
+    let mut seen = std::collections::HashSet::new();
+    let repeats = x
+        .rows()
+        .into_iter()
+        .filter(|r| !seen.insert(r.iter().map(|v| v.to_bits()).collect::<Vec<u64>>()))
+        .count();
+    if repeats > 0 {
+        causes.push(format!("{repeats} rows repeat another row's inputs"));
+    }
+    if causes.is_empty() {
+        String::new()
+    } else {
+        format!(" ({})", causes.join("; "))
+    }
+}
+
 /// The default estimator for a table with `p` inputs: the one with the smallest measured bias
 /// for that dimension (`docs/twin-calibration.md`, noise study): GSJS with one input (exactly
 /// unbiased for a linear truth), the Gamma test otherwise (its intercept removes the first-order

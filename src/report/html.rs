@@ -216,6 +216,14 @@ fn table_words(
     } else {
         String::new()
     };
+    let repeats = if t.repeats_dropped > 0 {
+        format!(
+            ", after leaving out {} rows that repeat an earlier row (`duplicates = \"drop\"`)",
+            t.repeats_dropped
+        )
+    } else {
+        String::new()
+    };
     let skipped = if t.skipped_rows > 0 {
         format!(
             "; {} rows held out fewer than twice are skipped",
@@ -232,7 +240,7 @@ fn table_words(
         .collect();
     let mut out = vec![
         format!(
-            "Data (the table {} itself, {} rows read{holdout}): nothing is simulated. Each \
+            "Data (the table {} itself, {} rows read{repeats}{holdout}): nothing is simulated. Each \
              replicate trains on {scheme}, and is evaluated on the rows it left out \
              (out-of-bag), against their observed responses. Inputs: {}.",
             t.path,

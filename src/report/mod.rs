@@ -809,6 +809,11 @@ pub struct NoiseEstimateEcho {
     pub about: String,
 }
 
+/// `true` for 0 (a count written only when there is something to count).
+fn is_zero(n: &usize) -> bool {
+    *n == 0
+}
+
 /// How a table was read and resampled (`table`).
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct TableEcho {
@@ -820,6 +825,10 @@ pub struct TableEcho {
     pub rows: usize,
     /// Rows dropped under `missing = "drop"`.
     pub dropped_rows: usize,
+    /// Rows left out as repeats of an earlier row under `duplicates = "drop"` (written only
+    /// when some were).
+    #[serde(default, skip_serializing_if = "is_zero")]
+    pub repeats_dropped: usize,
     /// Rows locked in the holdout (never used by the decomposition).
     pub holdout_rows: usize,
     /// Rows the decomposition resamples.
@@ -1500,6 +1509,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             target: tp.table.target.clone(),
             rows: tp.table.rows(),
             dropped_rows: tp.table.dropped_rows,
+            repeats_dropped: tp.table.repeats_dropped,
             holdout_rows: tp.holdout.len(),
             working_rows: tp.work.len(),
             skipped_rows: outcome

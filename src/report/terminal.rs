@@ -177,8 +177,19 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
     }
     if let Some(t) = &doc.table {
         s.push_str(&format!(
-            "table: {} · target `{}` · {} rows ({} dropped, {} locked in the holdout, {} resampled; {} skipped: held out in fewer than 2 replicates)\n",
-            t.path, t.target, t.rows, t.dropped_rows, t.holdout_rows, t.working_rows, t.skipped_rows
+            "table: {} · target `{}` · {} rows ({} dropped{}, {} locked in the holdout, {} resampled; {} skipped: held out in fewer than 2 replicates)\n",
+            t.path,
+            t.target,
+            t.rows,
+            t.dropped_rows,
+            if t.repeats_dropped > 0 {
+                format!(", {} repeats of an earlier row left out", t.repeats_dropped)
+            } else {
+                String::new()
+            },
+            t.holdout_rows,
+            t.working_rows,
+            t.skipped_rows
         ));
         for e in &t.encodings {
             s.push_str(&format!("encoding: {e}\n"));

@@ -59,15 +59,27 @@ impl Estimate {
             .fold(&self.terms[0], |a, t| if t.bytes > a.bytes { t } else { a })
     }
 
-    /// One line: the total and its largest term.
-    pub fn describe(&self) -> String {
+    /// The largest part in words: the run's largest term, or the program itself when that is
+    /// larger (a small run; the term was named as the largest while 32 MiB went unnamed).
+    pub fn largest(&self) -> String {
         let m = self.main();
+        let term = format!("{} {} ({})", m.name, fmt_bytes(m.bytes), m.detail);
+        if BASE_BYTES > m.bytes {
+            format!(
+                "the program itself, {} (code, thread stacks, buffers); the run's largest term is {term}",
+                fmt_bytes(BASE_BYTES)
+            )
+        } else {
+            term
+        }
+    }
+
+    /// One line: the total and its largest part.
+    pub fn describe(&self) -> String {
         format!(
-            "about {} (largest term: {} {}, {})",
+            "about {} (largest part: {})",
             fmt_bytes(self.total()),
-            m.name,
-            fmt_bytes(m.bytes),
-            m.detail
+            self.largest()
         )
     }
 }
@@ -299,17 +311,18 @@ fn held_to(
     };
     if let Some(cap) = cap {
         if e.total() > cap as f64 {
-            let m = e.main();
+            let lower = if BASE_BYTES > e.main().bytes {
+                ": pass".to_string()
+            } else {
+                format!(": lower it ({lower}), or pass")
+            };
             return Err(Error::Usage(format!(
-                "{}: {what} needs about {} of memory, more than {whose} ({}); the largest term \
-                 is {} {} ({}): lower it ({lower}), or pass --memory-limit SIZE (e.g. \
-                 --memory-limit {}) to go ahead anyway",
+                "{}: {what} needs about {} of memory, more than {whose} ({}); the largest part \
+                 is {}{lower} --memory-limit SIZE (e.g. --memory-limit {}) to go ahead anyway",
                 plan.file,
                 fmt_bytes(e.total()),
                 fmt_bytes(cap as f64),
-                m.name,
-                fmt_bytes(m.bytes),
-                m.detail,
+                e.largest(),
                 suggest(e.total())
             )));
         }

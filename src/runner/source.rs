@@ -127,6 +127,22 @@ const RESPONSE_MAX: f64 = 1e150;
 /// squares overflow (the run would do all its work and then refuse its non-finite terms).
 /// `validate` runs it too, through [`prepare`].
 fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
+    // A table's input columns: standardizing (k-NN, ridge, the noise estimators) squares and
+    // sums them; beyond about 1e154 the sums overflow and a column was silently standardized to
+    // zeros (a synthetic input is held to the same bound when it is planned).
+    if let Source::Table(t) = &plan.source {
+        for (col, name) in p.eval_x.columns().into_iter().zip(&t.table.names) {
+            let big = col.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+            if big > RESPONSE_MAX {
+                return Err(Error::Data(format!(
+                    "column `{name}` of {} reaches {big:.1e}; the fits square and sum their \
+                     inputs, which overflows beyond about {RESPONSE_MAX:.0e}; rescale the column \
+                     (for example divide it by a power of ten)",
+                    t.table.path.display()
+                )));
+            }
+        }
+    }
     if plan.task != Task::Regress {
         return Ok(());
     }
@@ -205,6 +221,21 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                 }
                 _ => None,
             };
+            // A variance is never negative; the Gamma test's intercept can be, and a negative
+            // estimate inflated bias² with exit 0 (one mistyped input value did it).
+            if let Some(n) = noise.as_ref().filter(|n| n.value < 0.0) {
+                return Err(Error::Data(format!(
+                    "the noise estimate of {} ({}) is {} ± {}, below 0, which a variance cannot \
+                     be: its responses do not change like a smooth function plus noise at the \
+                     neighbours' scale{}; fix the table, or set `noise_estimator = \"nn\"` or \
+                     `\"plane\"` in [data] (never negative)",
+                    t.table.path.display(),
+                    n.method.name(),
+                    crate::fmt::fmt_num(n.value),
+                    crate::fmt::fmt_num(n.stderr),
+                    noise::negative_estimate_causes(work.x.view(), &work.names, Some(&work.lines))
+                )));
+            }
             return Ok(Prepared {
                 eval_x: work.x.clone(),
                 eval_truth: work.y.clone(),

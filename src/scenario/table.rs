@@ -118,6 +118,13 @@ pub fn from_spec(
             "a table source needs `path` (the CSV file, relative to this scenario's folder)".into(),
         ));
     };
+    if path.get_ref().trim().is_empty() {
+        return Err(e(
+            src_span,
+            "data.path",
+            "is empty; give the CSV file, relative to this scenario's folder".into(),
+        ));
+    }
     let Some(target) = &d.target else {
         return Err(e(
             src_span,
@@ -296,6 +303,22 @@ pub fn from_spec(
     })?;
     let mut plan = plan;
     if let Some(h) = &d.holdout {
+        // A single locked row has no spread: its assessment printed "± n/a" and was still
+        // counted in the ledger.
+        if plan.holdout.len() == 1 {
+            let rows = plan.table.rows();
+            return Err(spanned_err(
+                src,
+                file,
+                Some(h),
+                "data.holdout",
+                format!(
+                    "{} of the {rows} rows locks 1 row, and a holdout loss needs at least 2 for \
+                     its standard error; raise it or remove `holdout`",
+                    crate::fmt::fmt_exact(holdout)
+                ),
+            ));
+        }
         // A share that rounds to no row would run without a holdout, silently.
         if holdout > 0.0 && plan.holdout.is_empty() {
             let rows = plan.table.rows();

@@ -510,6 +510,13 @@ pub fn from_spec(
             "a twin source needs `path` (the CSV file, relative to this scenario's folder)".into(),
         ));
     };
+    if path.get_ref().trim().is_empty() {
+        return Err(err(
+            at_source,
+            "data.path",
+            "is empty; give the CSV file, relative to this scenario's folder".into(),
+        ));
+    }
     let Some(target) = &d.target else {
         return Err(err(
             at_source,
