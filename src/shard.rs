@@ -990,7 +990,9 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
             None => "no shard holds it".into(),
         };
         return Err(refuse(format!(
-            "block {b} (replicates {r0}..{r1}) is missing: {why}"
+            "block {b} of blocks 0..{} (replicates {r0}..{r1}; blocks and replicates count \
+             from 0, shards from 1) is missing: {why}",
+            plan.blocks
         )));
     }
     let outcome = outcome(

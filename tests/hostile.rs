@@ -1778,10 +1778,36 @@ fn csv_cases(t: &mut Table) {
         "ragged rows",
         format!("{good}1,2\n").as_bytes(),
         "",
-        "t.csv",
+        "t.csv:42: has 2 fields, but the header has 3",
+    );
+    // The CSV reader's own words were "found record with 1 fields" for a line of spaces, a
+    // 0-based field for a byte that is not UTF-8, and a field count for an open quote.
+    // `good` with its line `n` (1-based, header = 1) rewritten.
+    let with_line = |n: usize, f: fn(&str) -> String| -> String {
+        good.lines()
+            .enumerate()
+            .map(|(i, l)| if i + 1 == n { f(l) } else { l.to_string() } + "\n")
+            .collect()
+    };
+    t.table(
+        "a comma at the end of a line",
+        with_line(2, |l| format!("{l},")).as_bytes(),
+        "",
+        "t.csv:2: has 4 fields, but the header has 3 (a comma at the end of the line?)",
+    );
+    t.table(
+        "a quote left open",
+        with_line(3, |l| format!("\"{l}")).as_bytes(),
+        "",
+        "a quote `\"` left open runs on",
     );
     t.table("binary table", b"a,b,y\n\x00\x01\x02,1,2\n", "", "t.csv");
-    t.table("not UTF-8", b"a,b,y\n\xff,1,2\n", "", "t.csv");
+    t.table(
+        "not UTF-8",
+        b"a,b,y\n\xff,1,2\n",
+        "",
+        "t.csv:2: column `a`: is not UTF-8 text",
+    );
     // Nearly every row in every training set: no row is held out twice, and the NaN terms
     // were blamed on an overflow ("rescale the response").
     t.table(

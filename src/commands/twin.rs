@@ -1582,6 +1582,12 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             "wrote the scenario to standard output (save it in the folder you ran this from, \
              whose path to the table it holds; edit [model]; run it with `lossprism run FILE`)\n",
         );
+    } else if !std::fs::metadata(&o.out).is_ok_and(|m| m.is_file()) {
+        // A device or a pipe: nothing is kept to run.
+        out.push_str(&format!(
+            "wrote the scenario to {}, which is not a file: nothing was kept to run\n",
+            o.out.display()
+        ));
     } else {
         out.push_str(&format!(
             "wrote {} (edit [model]; run it with `lossprism run {}`)\n",

@@ -501,13 +501,30 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     // The physical line of a byte offset of the CSV reader (which starts after the skipped
     // blank space).
     let line_of = |p: &csv::Position| line_starts.borrow_mut().line_at(skipped + p.byte());
+    // Flexible: a record whose field count differs from the header's is refused below in our
+    // own words (the reader's said "found record with 1 fields" for a line of spaces).
     let mut rdr = csv::ReaderBuilder::new()
         .has_headers(true)
+        .flexible(true)
         .trim(csv::Trim::All)
         .from_reader(reader);
     let header: Vec<String> = rdr
         .headers()
-        .map_err(|e| err(Some(1), None, format!("cannot read the header: {e}")))?
+        .map_err(|e| match e.kind() {
+            csv::ErrorKind::Utf8 { .. } => err(
+                Some(1),
+                None,
+                "the header is not UTF-8 text (save the file as UTF-8)".into(),
+            ),
+            _ => err(
+                Some(1),
+                None,
+                format!(
+                    "cannot read the header: {}",
+                    format!("{e}").replace('\n', " ")
+                ),
+            ),
+        })?
         .iter()
         .map(|h| crate::fmt::clip(h, 200))
         .collect();
@@ -600,11 +617,37 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     for rec in rdr.records() {
         let rec = rec.map_err(|e| {
             let line = e.position().map(line_of);
-            err(line, None, csv_error_text(&e, line))
+            match e.kind() {
+                csv::ErrorKind::Utf8 { err: u, .. } => err(
+                    line,
+                    header.get(u.field()).map(String::as_str),
+                    "is not UTF-8 text (save the file as UTF-8)".into(),
+                ),
+                _ => err(line, None, csv_error_text(&e, line)),
+            }
         })?;
         let line = rec.position().map(line_of).unwrap_or(0);
         if rec.iter().all(|c| c.is_empty()) {
+            // A blank line, or one of spaces only.
             continue;
+        }
+        if rec.len() != header.len() {
+            let quote = if rec.iter().any(|c| c.contains('\n') || c.contains('\r')) {
+                " (a quote `\"` left open runs on over the lines after it)"
+            } else if rec.len() == header.len() + 1 && rec.iter().next_back() == Some("") {
+                " (a comma at the end of the line?)"
+            } else {
+                ""
+            };
+            return Err(err(
+                Some(line),
+                None,
+                format!(
+                    "has {} fields, but the header has {}{quote}",
+                    rec.len(),
+                    header.len()
+                ),
+            ));
         }
         cells.push(rec);
         lines.push(line);

@@ -1232,7 +1232,19 @@ fn expand_grid(
                 }
                 let n = span as usize + 1;
                 (
-                    (0..n).map(|i| from + step * i as f64).collect(),
+                    (0..n)
+                        .map(|i| {
+                            // Twelve significant digits when that is only a rounding away, so
+                            // that 0.1 steps give 0.3, not 0.30000000000000004.
+                            let v = from + step * i as f64;
+                            let r = format!("{v:.11e}").parse::<f64>().unwrap_or(v);
+                            if (r - v).abs() <= 1e-9 * step {
+                                r
+                            } else {
+                                v
+                            }
+                        })
+                        .collect(),
                     GridKind::Range,
                 )
             }
