@@ -27,6 +27,9 @@ pub mod purpose {
     /// Draws of the block bootstrap behind the standard errors of non-smooth terms (see
     /// [`super::block_bootstrap`]).
     pub const BLOCK_BOOT: u64 = 9;
+    /// `validate`'s probe of the formulas at inputs drawn like the training inputs (no result
+    /// depends on it).
+    pub const PROBE: u64 = 10;
 }
 
 /// The random stream for (seed, purpose, index): ChaCha8 keyed by the seed, with the stream

@@ -1287,6 +1287,22 @@ fn formula_cases(t: &mut Table) {
         v,
         "gives inf",
     );
+    // Not finite only near the top of the input range (10 evaluation points miss it; training
+    // draws reach it): `validate` passed the file, `run` stopped at its first such draw.
+    t.scenario(
+        g,
+        "NaN only where training draws may land",
+        &with_formula("sqrt(0.999 - x)"),
+        v,
+        "`sqrt(0.999 - x)` gives NaN at x = 0.999",
+    );
+    t.scenario(
+        g,
+        "noise sd NaN only near the top of the inputs",
+        &sc("sd = 1.0", "sd_formula = \"sqrt(0.999 - x)\""),
+        v,
+        "gives NaN at x = 0.999",
+    );
     t.scenario(
         g,
         "square root of a negative",

@@ -876,6 +876,17 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, 0, memory_limit)?;
     runner::prepare(&plan)?;
+    // The formulas at many draws of the inputs (about 2 million values at most): a formula
+    // that is not finite only where some training draw lands was found by `run` alone.
+    if let Source::Synthetic(s) = &plan.source {
+        let p = s.process.inputs.len().max(1);
+        let n = (2_000_000 / p).clamp(20, 10_000);
+        let mut rng = crate::rng::stream(plan.seed, crate::rng::purpose::PROBE, 0);
+        s.process.probe(n, &mut rng).map_err(|e| match e {
+            Error::Data(m) => Error::Data(format!("{}: {m}", plan.file)),
+            other => other,
+        })?;
+    }
     let models: Vec<String> = plan
         .models
         .iter()

@@ -504,6 +504,32 @@ impl Synthetic {
         self.empirical_rows().is_some()
     }
 
+    /// Evaluates the process's formulas (truth and sd, or class probabilities) at `n` inputs
+    /// drawn from `rng`, so that `validate` finds a formula that is not finite somewhere the
+    /// training draws may reach (the run stopped at its first such draw; `validate` passed the
+    /// file). A twin's reference is not probed (it is finite where it was fitted). The error is
+    /// the one a run gives.
+    pub fn probe<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Result<(), Error> {
+        if let Response::Regression {
+            truth: Truth::Reference(_),
+            ..
+        } = &self.response
+        {
+            return Ok(());
+        }
+        let x = self.draw_inputs(n, rng);
+        match &self.response {
+            Response::Regression { .. } => {
+                self.truth_at(x.view())?;
+                self.sd_at(x.view())?;
+            }
+            Response::Classes(_) => {
+                self.probs_at(x.view())?;
+            }
+        }
+        Ok(())
+    }
+
     /// f at each row (regression); an error names the formula and the input values where it is
     /// not finite.
     pub fn truth_at(&self, x: ArrayView2<'_, f64>) -> Result<Array1<f64>, Error> {
