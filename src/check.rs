@@ -524,19 +524,20 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
             ));
         }
         let blocks = usize::try_from(u.blocks).unwrap_or(usize::MAX);
-        // A run stores the leave-one-block-out values of a term in every row or in none: a
-        // term one row lacks and another holds was deleted.
-        let stored: std::collections::BTreeSet<&String> =
-            u.rows.iter().flat_map(|r| r.leave_out.keys()).collect();
+        // A run stores the leave-one-block-out values of every term with a standard error in
+        // every row, or (no jackknife) of none: a term some row lacks while any row holds
+        // values was deleted, from that row or from all of them.
+        let stored = u.rows.iter().any(|r| !r.leave_out.is_empty());
         for (i, (row, p)) in u.rows.iter().zip(&doc.points).enumerate() {
             if let Some((k, _)) = p
                 .stderr
                 .iter()
-                .find(|(k, _)| stored.contains(k) && !row.leave_out.contains_key(k))
+                .find(|(k, _)| stored && !row.leave_out.contains_key(k))
             {
                 return Err(format!(
-                    "`uncertainty.rows[{i}].leave_out.{}` is missing (the other rows have their \
-                     leave-one-block-out values); {EDITED}",
+                    "`uncertainty.rows[{i}].leave_out.{}` is missing (a run stores the \
+                     leave-one-block-out values of every term with a standard error, and this \
+                     document holds others); {EDITED}",
                     crate::fmt::clip(k, 40)
                 ));
             }
@@ -1384,11 +1385,25 @@ mod tests {
         leave_out: &[(&str, [f64; 4])],
         point_sd: f64,
     ) -> ResultDoc {
+        // A run stores every term with a standard error or none: terms the test does not give
+        // get constant values (no jackknife spread).
+        let mut leave_out: BTreeMap<String, String> = leave_out
+            .iter()
+            .map(|(t, v)| (t.to_string(), pack_floats(v)))
+            .collect();
+        if !leave_out.is_empty() {
+            for p in &d.points {
+                for (k, v) in &p.terms {
+                    if p.stderr.iter().any(|(s, _)| s == k) {
+                        leave_out
+                            .entry(k.clone())
+                            .or_insert_with(|| pack_floats(&[*v; 4]));
+                    }
+                }
+            }
+        }
         let row = RowUncertainty {
-            leave_out: leave_out
-                .iter()
-                .map(|(t, v)| (t.to_string(), pack_floats(v)))
-                .collect(),
+            leave_out,
             point_sd: ["expected_loss", "bias_sq", "variance"]
                 .iter()
                 .map(|t| (t.to_string(), point_sd))

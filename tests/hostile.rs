@@ -3659,6 +3659,16 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             }),
             "`uncertainty.rows[1].leave_out.variance` is missing",
         ),
+        // Deleted from every row: `check` read it as a term it "cannot judge".
+        (
+            "a leave-one-block-out term deleted from every row",
+            edit_json(&docs.result, |v| {
+                for r in v["uncertainty"]["rows"].as_array_mut().unwrap() {
+                    r["leave_out"].as_object_mut().unwrap().remove("variance");
+                }
+            }),
+            "`uncertainty.rows[0].leave_out.variance` is missing",
+        ),
         (
             "points of a string",
             edit_json(&docs.result, |v| v["points"] = "many".into()),
