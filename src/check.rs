@@ -425,8 +425,8 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
         }
     }
 
-    // What every run satisfies: at least MIN_REPLICATES replicates, a noise term that is not
-    // negative (a variance, an entropy, an expected deviance), and the exact identities the loss
+    // What every run satisfies: at least MIN_REPLICATES replicates, a known noise term that is
+    // not negative (a variance, an entropy, an expected deviance), and the exact identities the loss
     // declares (ESL eq. 7.9 and the others in `decompose`) to rounding in every row.
     if doc.replicates < crate::scenario::plan::MIN_REPLICATES {
         return Err(format!(
@@ -438,7 +438,8 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
     let loss = decompose::by_name(&doc.loss).expect("checked above");
     let observed = doc.table.is_some();
     for (i, p) in doc.points.iter().enumerate() {
-        if p.has("noise") && p.get("noise") < 0.0 {
+        // A table's noise is an estimate, which can be below 0 by sampling.
+        if !observed && p.has("noise") && p.get("noise") < 0.0 {
             return Err(format!(
                 "{}: `noise` is {}, and a noise term cannot be negative; {EDITED}",
                 at(i),
@@ -1034,7 +1035,14 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
     let tb = serde_json::to_value(&base.table).unwrap_or_default();
     match (ta.as_object(), tb.as_object()) {
         (Some(ma), Some(mb)) => {
-            let skip = ["path", "held_out_share", "held_out_share_stderr"];
+            // `repeats_dropped` is a count of what `rows` already holds (and absent from the
+            // documents of versions before it).
+            let skip = [
+                "path",
+                "held_out_share",
+                "held_out_share_stderr",
+                "repeats_dropped",
+            ];
             for (k, va) in ma.iter().filter(|(k, _)| !skip.contains(&k.as_str())) {
                 if mb.get(k) != Some(va) {
                     let null = serde_json::Value::Null;
@@ -1158,10 +1166,25 @@ pub fn compare(
     for (d, what) in [(new, "result"), (baseline, "baseline")] {
         validate(d).map_err(|e| CheckError::BadDocument(format!("the {what}: {e}")))?;
     }
+    // Written by another version, a difference may be the version's (how a grid is rounded, a
+    // field a table's echo gained): say so, and how to move the baseline on.
+    let versions = |m: String| {
+        if new.version == baseline.version {
+            CheckError::Mismatch(m)
+        } else {
+            CheckError::Mismatch(format!(
+                "{m} (the baseline was written by lossprism {}, the result by {}: if the \
+                 scenario is the same, the difference is the version's; delete the baseline and \
+                 accept the result with `check --update`)",
+                crate::fmt::clip(&baseline.version, 20),
+                crate::fmt::clip(&new.version, 20)
+            ))
+        }
+    };
     if let Some(m) = mismatch(new, baseline) {
-        return Err(CheckError::Mismatch(m));
+        return Err(versions(m));
     }
-    let pairs = match_rows(new, baseline).map_err(CheckError::Mismatch)?;
+    let pairs = match_rows(new, baseline).map_err(versions)?;
     let terms = compared_terms(new);
     let identical = pairs
         .iter()
@@ -1896,6 +1919,27 @@ mod tests {
             .unwrap_err()
             .contains("unknown term"));
         assert!(parse_term_margin("variance").is_err());
+    }
+
+    /// Documents of two versions that cannot be compared: the refusal says the difference may
+    /// be the version's, and how to move the baseline on.
+    #[test]
+    fn a_mismatch_across_versions_says_how_to_move_on() {
+        let base = doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]);
+        let mut new = base.clone();
+        new.knob = "k2".into();
+        let same = compare(&new, &base, &CheckOptions::default()).unwrap_err();
+        assert!(!same.to_string().contains("written by lossprism"), "{same}");
+        new.version = "9.9.9".into();
+        let other = compare(&new, &base, &CheckOptions::default())
+            .unwrap_err()
+            .to_string();
+        assert!(other.contains("knob differs"), "{other}");
+        assert!(
+            other.contains("the baseline was written by lossprism 0, the result by 9.9.9"),
+            "{other}"
+        );
+        assert!(other.contains("check --update"), "{other}");
     }
 
     #[test]

@@ -202,7 +202,7 @@ pub struct RunArgs {
     /// Write one CSV row per evaluation point and grid value here, for every model and training
     /// size of a study (then with `family`, `knob` and `train_size` columns after the value).
     /// The point's column is `point` (the evaluation point's index, from 0) for simulated data,
-    /// or `line` for a table: the row's line in the CSV file, the header being line 1, as in
+    /// or `line` for a table: the row's physical line in the CSV file (the header's is 1 unless blank lines precede it), as in
     /// error messages.
     #[arg(long, value_name = "FILE.csv")]
     pub points: Option<PathBuf>,

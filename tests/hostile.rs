@@ -1184,6 +1184,31 @@ fn scenario_cases(t: &mut Table) {
         )
         .also("key `model.min_samples_leaf`");
     }
+    // Boosting on 1 row per round: the leaf-size advice refused the value it recommended.
+    t.scenario(
+        g,
+        "boost subsample leaving one row per round",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"boost\"\ngrid = [1, 2]\nsubsample = 0.02",
+        ),
+        v,
+        "subsample = 0.02 of 20 training rows leaves 1 row per round",
+    )
+    .also("key `model.subsample`");
+    // The audit's fold fits train on fewer rows: a leaf size fine for 20 rows splits nothing
+    // on 10 (the audit reported every fold "within one SE").
+    t.scenario(
+        g,
+        "min_samples_leaf too large for the audit's folds",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"tree\"\ngrid = [1, 2]\nmin_samples_leaf = 6\n[audit]\nfolds = 2",
+        ),
+        v,
+        "with 2 folds a fold fit trains on 10 of the 20 rows",
+    )
+    .also("min_samples_leaf = 6 leaves no split");
     // A forest asked to try more inputs per node than the model has was silently held to all.
     t.scenario(
         g,
@@ -1286,6 +1311,13 @@ fn formula_cases(t: &mut Table) {
         &with_formula("exp(1000 + 1000*x)"),
         v,
         "gives inf",
+    );
+    t.scenario(
+        g,
+        "NaN only where training draws may land (run)",
+        &with_formula("sqrt(0.999 - x)"),
+        "run",
+        "`sqrt(0.999 - x)` gives NaN at x = 0.999",
     );
     // Not finite only near the top of the input range (10 evaluation points miss it; training
     // draws reach it): `validate` passed the file, `run` stopped at its first such draw.
@@ -1725,23 +1757,62 @@ fn csv_cases(t: &mut Table) {
         "label `0.0` is the number of label `0` written another way",
     );
     {
-        // One mistyped input (row 10, line 11: a = 50): the Gamma test's noise estimate was
-        // negative and inflated bias².
-        let mut typo = String::from("a,b,y\n");
-        for i in 0..40 {
-            let a = (i * 7 % 13) as f64 / 13.0;
-            let b = (i * 5 % 11) as f64 / 11.0;
-            let y = (3.0 * a).sin() + b + 0.3 * ((i * 3 % 17) as f64 / 17.0 - 0.5);
-            let a = if i == 9 { 50.0 } else { a };
-            typo.push_str(&format!("{a},{b},{y}\n"));
-        }
+        // One mistyped input (line 11: b = 50 among values 0-10): the Gamma test's noise
+        // estimate was -8.5 ± 1.6 and inflated bias², with exit 0. (Within two standard errors
+        // of 0 a negative estimate is sampling, and runs.)
+        let typo: String = [
+            "a,b,y",
+            "1.344,4.237,6.219",
+            "4.954,2.247,-0.077",
+            "6.516,3.944,4.505",
+            "8.358,2.164,3.982",
+            "7.623,0.011,1.205",
+            "2.288,4.726,6.502",
+            "9.014,0.153,1.568",
+            "9.391,1.906,2.073",
+            "2.166,2.111,4.115",
+            "4.379,50,0.653",
+            "2.331,1.154,2.712",
+            "2.898,0.107,1.133",
+            "8.376,2.782,4.315",
+            "9.925,4.3,3.091",
+            "1.209,1.663,3.393",
+            "9.364,2.111,1.457",
+            "8.3,3.352,4.937",
+            "8.825,4.231,5.988",
+            "5.053,2.945,1.424",
+            "7.974,2.072,4.138",
+            "1.73,2.744,4.501",
+            "3.747,2.195,0.34",
+            "5.084,3.892,1.533",
+            "4.897,0.148,-1.884",
+            "0.435,3.517,5.027",
+            "3.936,0.852,-0.646",
+            "5.022,4.91,3.085",
+            "8.603,1.161,2.008",
+            "5.138,4.762,2.451",
+            "2.693,2.74,3.347",
+            "9.571,0.029,-0.068",
+            "8.862,3.703,3.864",
+            "8.091,2.593,4.049",
+            "0.561,4.35,5.216",
+            "5.7,0.999,-0.678",
+            "3.568,1.73,0.886",
+            "5.385,3.117,1.132",
+            "0.28,1.148,1.341",
+            "1.772,2.922,5.456",
+            "7.971,4.082,5.382",
+        ]
+        .iter()
+        .map(|l| format!("{l}\n"))
+        .collect();
         t.table(
             "a mistyped input makes the Gamma test negative",
             typo.as_bytes(),
             "",
-            "below 0, which a variance cannot be",
+            "more than two standard errors below 0, which a variance cannot be",
         )
-        .also("column `a` holds 50 on line 11")
+        .also("column `b` holds 50 on line 11")
         .also("noise_estimator = \"nn\"");
         let mut huge = String::from("a,b,y\n");
         for i in 0..40 {
@@ -1810,6 +1881,17 @@ fn csv_cases(t: &mut Table) {
         with_line(2, |l| format!("{l},")).as_bytes(),
         "",
         "t.csv:2: has 4 fields, but the header has 3 (a comma at the end of the line?)",
+    );
+    // In the last column the open quote kept the field count: 9 of 30 rows were read.
+    t.table(
+        "a quote left open in the last column",
+        with_line(3, |l| {
+            let (head, last) = l.rsplit_once(',').unwrap();
+            format!("{head},\"{last}")
+        })
+        .as_bytes(),
+        "",
+        "t.csv:3: column `y`: holds a line break (a quote `\"` left open",
     );
     t.table(
         "a quote left open",

@@ -928,6 +928,88 @@ fn dropped_repeats_are_counted_in_every_output() {
     assert!(doc["table"].get("repeats_dropped").is_none());
 }
 
+/// A table with no noise at all (y = a + 2b): the Gamma test's intercept lands a little below 0
+/// by sampling, and the run goes on with the estimate and its standard error as they are (a
+/// refusal of every negative estimate refused such tables with "fix the table"). Only an
+/// estimate more than two standard errors below 0 is refused (tests/hostile.rs).
+#[test]
+fn noise_free_tables_run_with_a_small_negative_estimate() {
+    let dir = tmp();
+    let mut csv = String::from("a,b,y\n");
+    for i in 0..200 {
+        let a = (i * 37 % 101) as f64 / 101.0;
+        let b = (i * 53 % 97) as f64 / 97.0;
+        csv.push_str(&format!("{a},{b},{}\n", a + 2.0 * b));
+    }
+    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml", "--out", "r.json"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let doc: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(dir.path().join("r.json")).unwrap()).unwrap();
+    let n = &doc["noise_estimate"];
+    let (v, se) = (n["value"].as_f64().unwrap(), n["stderr"].as_f64().unwrap());
+    // The case this test is about: below 0, within two standard errors of it.
+    assert!(v < 0.0 && v + 2.0 * se >= 0.0, "{n}");
+    // And `check` reads the document (a table's noise is an estimate, which may be below 0).
+    let o = run_in(dir.path(), &["check", "r.json", "--baseline", "r.json"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+}
+
+/// Trees compare inputs and never square them: a classification table (no noise estimator)
+/// with an input of size 1e200 runs with a tree, and is refused with k-NN, which standardizes.
+#[test]
+fn huge_inputs_are_refused_only_where_they_are_squared() {
+    let dir = tmp();
+    let mut csv = String::from("a,b,y\n");
+    for i in 0..60 {
+        csv.push_str(&format!(
+            "{}e200,{},{}\n",
+            1 + i % 7,
+            i % 5,
+            ["u", "w"][(i / 3) % 2]
+        ));
+    }
+    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    let classes = TABLE_SCENARIO.replace("target = \"y\"", "target = \"y\"\ntask = \"classify\"");
+    fs::write(dir.path().join("s.toml"), &classes).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let knn = classes.replace("family = \"tree\"", "family = \"knn\"");
+    fs::write(dir.path().join("s.toml"), knn).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("column `a` of d.csv reaches 7.0e200"),
+        "{}",
+        stderr(&o)
+    );
+}
+
+/// The header's line is its physical line (blank lines, and lines of spaces, may come first;
+/// the lines of spaces were taken for the header).
+#[test]
+fn the_header_is_named_at_its_own_line() {
+    let dir = tmp();
+    fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
+    let rows: String = (0..40)
+        .map(|i| format!("{},{},{}\n", 0.5 + i as f64, (i * 7) % 11, (i * 3) % 5))
+        .collect();
+    // Three blank lines (one of spaces) and no column `y`: the header is line 4.
+    fs::write(dir.path().join("d.csv"), format!("\n   \n\na,b,z\n{rows}")).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("d.csv:4: no target column `y`"),
+        "{}",
+        stderr(&o)
+    );
+    // With the right header it runs.
+    fs::write(dir.path().join("d.csv"), format!("\n   \n\na,b,y\n{rows}")).unwrap();
+    let o = run_in(dir.path(), &["run", "s.toml"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+}
+
 /// Line numbers are physical lines for every line ending: CRLF read one line short, a lone CR
 /// put every row on line 1, and 64 KiB of leading blank lines were not counted (a file with
 /// 70 000 of them named line 4475 for line 70011).

@@ -275,8 +275,13 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     if let Some(p) = &args.scenario {
         set.input("the scenario file", p);
         // The holdout ledger counts the looks at the holdout: replacing it would reset the
-        // count and lose the warning.
-        set.input("the scenario's holdout ledger", &assess::ledger_path(p));
+        // count and lose the warning. (Protected when the scenario locks a holdout, or when a
+        // ledger is already there.)
+        let ledger = assess::ledger_path(p);
+        let holdout = matches!(&plan.source, Source::Table(t) if !t.holdout.is_empty());
+        if holdout || ledger.exists() {
+            set.input("the scenario's holdout ledger", &ledger);
+        }
     }
     for p in data_inputs(&plan) {
         set.input("the scenario's data file", &p);
@@ -638,9 +643,6 @@ pub fn read_limited(p: &Path, limit: u64) -> Result<String, Error> {
 /// Largest result document read by `check` and `plot` (bytes).
 pub const MAX_RESULT_BYTES: u64 = 1 << 30;
 
-/// Reads a result document's text with the streamed checks: size, a JSON object at the start,
-/// then its `format` read without building the document, so junk of any size is refused
-/// quickly and in little memory.
 /// Whether `p` is a result document of the earlier format (`lossprism-result/1`), which only
 /// `check --update` replaces; anything else (unreadable, another document) is not.
 fn older_result(p: &Path) -> bool {
@@ -655,6 +657,9 @@ fn older_result(p: &Path) -> bool {
         .unwrap_or(false)
 }
 
+/// Reads a result document's text with the streamed checks: size, a JSON object at the start,
+/// then its `format` read without building the document, so junk of any size is refused
+/// quickly and in little memory.
 fn read_result_text(p: &Path) -> Result<String, Error> {
     let what = "lossprism result document";
     let text = crate::codec::read_document(p, MAX_RESULT_BYTES, what, &crate::codec::json_object)?;
@@ -876,17 +881,6 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, 0, memory_limit)?;
     runner::prepare(&plan)?;
-    // The formulas at many draws of the inputs (about 2 million values at most): a formula
-    // that is not finite only where some training draw lands was found by `run` alone.
-    if let Source::Synthetic(s) = &plan.source {
-        let p = s.process.inputs.len().max(1);
-        let n = (2_000_000 / p).clamp(20, 10_000);
-        let mut rng = crate::rng::stream(plan.seed, crate::rng::purpose::PROBE, 0);
-        s.process.probe(n, &mut rng).map_err(|e| match e {
-            Error::Data(m) => Error::Data(format!("{}: {m}", plan.file)),
-            other => other,
-        })?;
-    }
     let models: Vec<String> = plan
         .models
         .iter()

@@ -1424,10 +1424,16 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             let fit = fit_table(o, &t, &rel)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             // A variance is never negative; the Gamma test's intercept can be, and a twin
-            // "corrected" a raw −21 into a noise with an SE fourteen times its size.
-            if let Some(n) = fit.noise.as_ref().filter(|n| n.raw < 0.0) {
+            // "corrected" a raw −21 ± 3.8 into a noise with an SE fourteen times its size.
+            // Within two standard errors of 0 it is sampling (little noise), corrected as before.
+            if let Some(n) = fit
+                .noise
+                .as_ref()
+                .filter(|n| crate::runner::clearly_negative(n.raw, n.raw_se))
+            {
                 return Err(Error::Usage(format!(
-                    "{}: the noise estimate ({}) is {} ± {}, below 0, which a variance cannot be: \
+                    "{}: the noise estimate ({}) is {} ± {}, more than two standard errors below \
+                     0, which a variance cannot be: \
                      the responses do not change like a smooth function plus noise at the \
                      neighbours' scale{}; fix the table, or pass --noise-estimator nn or plane \
                      (never negative)",

@@ -490,7 +490,15 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             ));
         }
         match buf.iter().position(|b| !b.is_ascii_whitespace()) {
-            Some(_) => break,
+            Some(pos) => {
+                // Whole blank lines before it (of spaces, too) are skipped here: the CSV reader
+                // took a line of spaces for the header.
+                if let Some(cut) = buf[..pos].iter().rposition(|&b| b == b'\n' || b == b'\r') {
+                    skipped += cut as u64 + 1;
+                    reader.consume(cut + 1);
+                }
+                break;
+            }
             None => {
                 let n = buf.len();
                 skipped += n as u64;
@@ -508,29 +516,30 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         .flexible(true)
         .trim(csv::Trim::All)
         .from_reader(reader);
-    let header: Vec<String> = rdr
-        .headers()
-        .map_err(|e| match e.kind() {
-            csv::ErrorKind::Utf8 { .. } => err(
-                Some(1),
-                None,
-                "the header is not UTF-8 text (save the file as UTF-8)".into(),
+    let header_record = rdr.headers().map_err(|e| match e.kind() {
+        csv::ErrorKind::Utf8 { .. } => err(
+            e.position().map(line_of),
+            None,
+            "the header is not UTF-8 text (save the file as UTF-8)".into(),
+        ),
+        _ => err(
+            e.position().map(line_of),
+            None,
+            format!(
+                "cannot read the header: {}",
+                format!("{e}").replace('\n', " ")
             ),
-            _ => err(
-                Some(1),
-                None,
-                format!(
-                    "cannot read the header: {}",
-                    format!("{e}").replace('\n', " ")
-                ),
-            ),
-        })?
+        ),
+    })?;
+    // The header's own physical line (blank lines may come first).
+    let header_line = header_record.position().map(line_of).unwrap_or(1);
+    let header: Vec<String> = header_record
         .iter()
         .map(|h| crate::fmt::clip(h, 200))
         .collect();
     if header.len() > MAX_COLUMNS {
         return Err(err(
-            Some(1),
+            Some(header_line),
             None,
             format!(
                 "the header has {} columns; a table may have at most {MAX_COLUMNS}",
@@ -540,7 +549,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     }
     if header.iter().all(|h| number(h).is_some() || h.is_empty()) {
         return Err(err(
-            Some(1),
+            Some(header_line),
             None,
             "no header: the first line must name the columns (it holds numbers or nothing)".into(),
         ));
@@ -548,19 +557,23 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     for (i, h) in header.iter().enumerate() {
         if h.is_empty() {
             return Err(err(
-                Some(1),
+                Some(header_line),
                 None,
                 format!("column {} has an empty name", i + 1),
             ));
         }
         if header[..i].contains(h) {
-            return Err(err(Some(1), Some(h), "appears twice in the header".into()));
+            return Err(err(
+                Some(header_line),
+                Some(h),
+                "appears twice in the header".into(),
+            ));
         }
     }
     let col_of = |name: &str, what: &str| -> Result<usize, TableError> {
         header.iter().position(|h| h == name).ok_or_else(|| {
             err(
-                Some(1),
+                Some(header_line),
                 None,
                 format!(
                     "no {what} column `{name}`; the columns are: {}{}",
@@ -698,6 +711,17 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     for (ri, row) in cells.iter().enumerate() {
         for &(c, is_num) in &used {
             let cell = &row[c];
+            // A quote left open in the last column swallows the lines after it into one cell
+            // with the right field count: 9 of 30 rows were read, with exit 0.
+            if cell.contains(['\n', '\r']) {
+                return Err(err(
+                    Some(lines[ri]),
+                    Some(&header[c]),
+                    "holds a line break (a quote `\"` left open runs on over the lines after \
+                     it); lossprism reads one line per cell"
+                        .into(),
+                ));
+            }
             let is_target_label = c == target_col && classify;
             let bad = if is_missing(cell) {
                 Some("is missing a value".to_string())
@@ -817,7 +841,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             "appears twice among the inputs: the one-hot indicators (`column=level`) of two text \
              columns get this name; rename one of the columns"
         };
-        return Err(err(Some(1), Some(a), why.into()));
+        return Err(err(Some(header_line), Some(a), why.into()));
     }
     let n = rows.len();
     let p = columns.len();

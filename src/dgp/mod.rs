@@ -505,10 +505,10 @@ impl Synthetic {
     }
 
     /// Evaluates the process's formulas (truth and sd, or class probabilities) at `n` inputs
-    /// drawn from `rng`, so that `validate` finds a formula that is not finite somewhere the
-    /// training draws may reach (the run stopped at its first such draw; `validate` passed the
-    /// file). A twin's reference is not probed (it is finite where it was fitted). The error is
-    /// the one a run gives.
+    /// drawn from `rng`, so that `validate` and `run` find, before any work, a formula that is
+    /// not finite somewhere the training draws may reach (the run stopped at its first such
+    /// draw; `validate` passed the file). A twin's reference is not probed (it is finite where
+    /// it was fitted). The error is the one a draw gives.
     pub fn probe<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Result<(), Error> {
         if let Response::Regression {
             truth: Truth::Reference(_),

@@ -169,6 +169,17 @@ impl Family for BoostFamily {
     ) -> Result<(), (&'static str, String)> {
         // Each round grows its tree on ⌊subsample · n⌋ rows (at least 1).
         let rows = ((self.subsample * n_train as f64).floor() as usize).max(1);
+        if rows < 2 && n_train >= 2 {
+            // No leaf size helps: the share of rows is what is too small.
+            return Err((
+                "subsample",
+                format!(
+                    "subsample = {} of {n_train} training rows leaves {rows} row per round, too \
+                     few to split; raise it so that subsample × {n_train} is at least 2",
+                    crate::fmt::fmt_exact(self.subsample)
+                ),
+            ));
+        }
         let what = if rows < n_train {
             "rows per round (`subsample` of the training rows)"
         } else {

@@ -89,7 +89,7 @@ pub fn to_csv(doc: &ResultDoc) -> String {
 
 /// One row per (grid value, evaluation point): the knob value, the model (`family`, its label,
 /// and `knob`) when a run has several, the training size (`train_size`) when it has several, the
-/// point's index (a table's working rows: its line in the file, the header being line 1), its
+/// point's index (a table's working rows: its physical line in the file), its
 /// inputs, then the loss's per-point columns (class indices written as their labels). Every
 /// (training size, model) of a study is written, sizes ascending and models in scenario order; a
 /// per-point column that only some models have (an ensemble's `diversity`) is empty for the

@@ -113,11 +113,17 @@ pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
     Ok(prepared)
 }
 
+/// A noise-variance estimate more than two standard errors below 0 (a standard error that is
+/// not finite counts as none).
+pub fn clearly_negative(value: f64, stderr: f64) -> bool {
+    value < 0.0 && (!stderr.is_finite() || value + 2.0 * stderr < 0.0)
+}
+
 /// Smallest largest magnitude of a regression's responses: below it their squares (about
 /// 1e-300) and those of their differences underflow to 0.
 const RESPONSE_MIN: f64 = 1e-150;
 
-/// Largest largest magnitude of a regression's responses (truth or noise sd at the evaluation
+/// Largest magnitude of a regression's responses (truth or noise sd at the evaluation
 /// points; a table's responses): beyond it the squares of draws a few sds out overflow, and the
 /// run would fail with non-finite terms after all its work.
 const RESPONSE_MAX: f64 = 1e150;
@@ -130,14 +136,21 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     // A table's input columns: standardizing (k-NN, ridge, the noise estimators) squares and
     // sums them; beyond about 1e154 the sums overflow and a column was silently standardized to
     // zeros (a synthetic input is held to the same bound when it is planned).
-    if let Source::Table(t) = &plan.source {
+    // Trees compare inputs and never square them: with only tree families and no noise
+    // estimator (a classification table) a large column is fine.
+    let squares = plan
+        .models
+        .iter()
+        .any(|m| !matches!(m.family.name(), "tree" | "forest" | "boost"))
+        || (plan.task == Task::Regress && !plan.loss.count_responses());
+    if let (Source::Table(t), true) = (&plan.source, squares) {
         for (col, name) in p.eval_x.columns().into_iter().zip(&t.table.names) {
             let big = col.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
             if big > RESPONSE_MAX {
                 return Err(Error::Data(format!(
-                    "column `{name}` of {} reaches {big:.1e}; the fits square and sum their \
-                     inputs, which overflows beyond about {RESPONSE_MAX:.0e}; rescale the column \
-                     (for example divide it by a power of ten)",
+                    "column `{name}` of {} reaches {big:.1e}; the fits or the noise estimate \
+                     square and sum the inputs, which overflows beyond about {RESPONSE_MAX:.0e}; \
+                     rescale the column (for example divide it by a power of ten)",
                     t.table.path.display()
                 )));
             }
@@ -221,14 +234,21 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                 }
                 _ => None,
             };
-            // A variance is never negative; the Gamma test's intercept can be, and a negative
-            // estimate inflated bias² with exit 0 (one mistyped input value did it).
-            if let Some(n) = noise.as_ref().filter(|n| n.value < 0.0) {
+            // A variance is never negative; the Gamma test's intercept can be. Within two
+            // standard errors of 0 that is sampling (a table with little or no noise: the
+            // estimate and its standard error are reported as they are); further below, the
+            // table is not a smooth function plus noise at the neighbours' scale (one mistyped
+            // input value or repeated inputs do it), and the bias² it would give is not to be
+            // believed.
+            if let Some(n) = noise
+                .as_ref()
+                .filter(|n| clearly_negative(n.value, n.stderr))
+            {
                 return Err(Error::Data(format!(
-                    "the noise estimate of {} ({}) is {} ± {}, below 0, which a variance cannot \
-                     be: its responses do not change like a smooth function plus noise at the \
-                     neighbours' scale{}; fix the table, or set `noise_estimator = \"nn\"` or \
-                     `\"plane\"` in [data] (never negative)",
+                    "the noise estimate of {} ({}) is {} ± {}, more than two standard errors \
+                     below 0, which a variance cannot be: its responses do not change like a \
+                     smooth function plus noise at the neighbours' scale{}; fix the table, or set \
+                     `noise_estimator = \"nn\"` or `\"plane\"` in [data] (never negative)",
                     t.table.path.display(),
                     n.method.name(),
                     crate::fmt::fmt_num(n.value),
@@ -247,6 +267,15 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
             });
         }
     };
+    // The formulas at many draws of the inputs (its own stream; about 2 million values at
+    // most): a formula that is not finite only where some training draws land stopped the run
+    // at its first such draw, after `validate` had passed the file.
+    {
+        let p = s.process.inputs.len().max(1);
+        let n = (2_000_000 / p).clamp(20, 10_000);
+        let mut rng = stream(plan.seed, purpose::PROBE, 0);
+        s.process.probe(n, &mut rng)?;
+    }
     let classify = matches!(plan.task, Task::Classify { .. });
     let mut fixed_probs = None;
     let fixed = if s.design == Design::Fixed {

@@ -72,15 +72,18 @@ pub fn from_spec(
         }
     };
     let smallest = n_train - n_train.div_ceil(folds);
-    family.check_grid(grid, smallest, n_inputs).map_err(|m| {
-        err(
-            a.folds.span(),
-            "audit.folds",
-            format!(
-                "with {folds} folds a fold fit trains on {smallest} of the {n_train} rows, too few for this grid: {m}"
-            ),
-        )
-    })?;
+    family
+        .check_grid(grid, smallest, n_inputs)
+        .and_then(|()| family.check_options(smallest, n_inputs).map_err(|(_, m)| m))
+        .map_err(|m| {
+            err(
+                a.folds.span(),
+                "audit.folds",
+                format!(
+                    "with {folds} folds a fold fit trains on {smallest} of the {n_train} rows, too few for this model: {m}"
+                ),
+            )
+        })?;
     Ok(AuditPlan {
         folds,
         rule,

@@ -489,7 +489,14 @@ impl Plan {
         if let Some(a) = &audit {
             for m in &models[1..] {
                 let smallest = n_train - n_train.div_ceil(a.folds);
-                m.family.check_grid(&m.grid, smallest, n_inputs).map_err(|msg| {
+                m.family
+                    .check_grid(&m.grid, smallest, n_inputs)
+                    .and_then(|()| {
+                        m.family
+                            .check_options(smallest, n_inputs)
+                            .map_err(|(_, msg)| msg)
+                    })
+                    .map_err(|msg| {
                     cx.err_line(
                         None,
                         "audit.folds",
@@ -1237,7 +1244,12 @@ fn expand_grid(
                             // Twelve significant digits when that is only a rounding away, so
                             // that 0.1 steps give 0.3, not 0.30000000000000004.
                             let v = from + step * i as f64;
-                            let r = format!("{v:.11e}").parse::<f64>().unwrap_or(v);
+                            // 0 itself (from −0.3 by 0.1 reached 5.55e-17).
+                            let r = if v.abs() <= 1e-9 * step {
+                                0.0
+                            } else {
+                                format!("{v:.11e}").parse::<f64>().unwrap_or(v)
+                            };
                             if (r - v).abs() <= 1e-9 * step {
                                 r
                             } else {
