@@ -461,4 +461,6 @@ fn range_grids_with_decimal_steps_give_decimal_values() {
         grid("{ from = 0, to = 5 }"),
         vec![0.0, 1.0, 2.0, 3.0, 4.0, 5.0]
     );
+    // The user's own `from` is kept as written (a value near 0 is not snapped to 0).
+    assert_eq!(grid("{ from = 1e-10, to = 3, step = 1 }")[0], 1e-10);
 }

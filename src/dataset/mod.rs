@@ -718,7 +718,8 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                     Some(lines[ri]),
                     Some(&header[c]),
                     "holds a line break (a quote `\"` left open runs on over the lines after \
-                     it); lossprism reads one line per cell"
+                     it, or a text cell spans lines); lossprism reads one line per cell: close \
+                     the quote, or leave the column out with `features`"
                         .into(),
                 ));
             }

@@ -508,12 +508,17 @@ impl Synthetic {
     /// drawn from `rng`, so that `validate` and `run` find, before any work, a formula that is
     /// not finite somewhere the training draws may reach (the run stopped at its first such
     /// draw; `validate` passed the file). A twin's reference is not probed (it is finite where
-    /// it was fitted). The error is the one a draw gives.
+    /// it was fitted), nor evenly spaced inputs (the same points in every draw of a size). The
+    /// error is the one a draw gives.
     pub fn probe<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Result<(), Error> {
-        if let Response::Regression {
-            truth: Truth::Reference(_),
-            ..
-        } = &self.response
+        // A twin's reference (regression or classes) is finite where it was fitted; evenly
+        // spaced inputs are the same points in every draw of a size, so 10 000 of them are
+        // points no run uses.
+        if self.reference().is_some()
+            || self
+                .inputs
+                .iter()
+                .any(|i| matches!(i.dist, InputDist::Even(..)))
         {
             return Ok(());
         }

@@ -270,7 +270,9 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     // The formulas at many draws of the inputs (its own stream; about 2 million values at
     // most): a formula that is not finite only where some training draws land stopped the run
     // at its first such draw, after `validate` had passed the file.
-    {
+    // A fixed design evaluates the formulas only at its own rows and the evaluation points,
+    // both checked below.
+    if s.design != Design::Fixed {
         let p = s.process.inputs.len().max(1);
         let n = (2_000_000 / p).clamp(20, 10_000);
         let mut rng = stream(plan.seed, purpose::PROBE, 0);

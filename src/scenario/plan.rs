@@ -1245,7 +1245,9 @@ fn expand_grid(
                             // that 0.1 steps give 0.3, not 0.30000000000000004.
                             let v = from + step * i as f64;
                             // 0 itself (from −0.3 by 0.1 reached 5.55e-17).
-                            let r = if v.abs() <= 1e-9 * step {
+                            let r = if i == 0 {
+                                v
+                            } else if v.abs() <= 1e-9 * step {
                                 0.0
                             } else {
                                 format!("{v:.11e}").parse::<f64>().unwrap_or(v)
