@@ -437,8 +437,18 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
     }
     let loss = decompose::by_name(&doc.loss).expect("checked above");
     let observed = doc.table.is_some();
+    // A table's noise is an estimate, which can be below 0 by sampling, but `run` refuses one
+    // more than two standard errors below 0.
+    if let Some(n) = &doc.noise_estimate {
+        if crate::runner::clearly_negative(n.value, n.stderr.unwrap_or(f64::NAN)) {
+            return Err(format!(
+                "`noise_estimate.value` is {}, more than two standard errors below 0, which \
+                 `run` refuses; {EDITED}",
+                crate::fmt::fmt_exact(n.value)
+            ));
+        }
+    }
     for (i, p) in doc.points.iter().enumerate() {
-        // A table's noise is an estimate, which can be below 0 by sampling.
         if !observed && p.has("noise") && p.get("noise") < 0.0 {
             return Err(format!(
                 "{}: `noise` is {}, and a noise term cannot be negative; {EDITED}",

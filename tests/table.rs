@@ -951,9 +951,20 @@ fn noise_free_tables_run_with_a_small_negative_estimate() {
     let (v, se) = (n["value"].as_f64().unwrap(), n["stderr"].as_f64().unwrap());
     // The case this test is about: below 0, within two standard errors of it.
     assert!(v < 0.0 && v + 2.0 * se >= 0.0, "{n}");
-    // And `check` reads the document (a table's noise is an estimate, which may be below 0).
+    // And `check` reads the document (a table's noise is an estimate, which may be below 0),
+    // but not one edited to an estimate `run` refuses.
     let o = run_in(dir.path(), &["check", "r.json", "--baseline", "r.json"]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let mut edited = doc.clone();
+    edited["noise_estimate"]["value"] = serde_json::json!(-1000.0);
+    fs::write(dir.path().join("e.json"), edited.to_string()).unwrap();
+    let o = run_in(dir.path(), &["check", "e.json", "--baseline", "r.json"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        stderr(&o).contains("`noise_estimate.value` is -1000, more than two standard errors"),
+        "{}",
+        stderr(&o)
+    );
 }
 
 /// Trees compare inputs and never square them: a classification table (no noise estimator)

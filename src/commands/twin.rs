@@ -1432,15 +1432,13 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 .filter(|n| crate::runner::clearly_negative(n.raw, n.raw_se))
             {
                 return Err(Error::Usage(format!(
-                    "{}: the noise estimate ({}) is {} ± {}, more than two standard errors below \
-                     0, which a variance cannot be: \
-                     the responses do not change like a smooth function plus noise at the \
+                    "{}: the noise estimate ({}) is {}, which a variance cannot be: the \
+                     responses do not change like a smooth function plus noise at the \
                      neighbours' scale{}; fix the table, or pass --noise-estimator nn or plane \
                      (never negative)",
                     o.table.display(),
                     n.method.name(),
-                    fmt_num(n.raw),
-                    fmt_num(n.raw_se),
+                    crate::runner::source::negative_words(n.raw, n.raw_se),
                     crate::dataset::noise::negative_estimate_causes(
                         t.x.view(),
                         &t.names,

@@ -113,6 +113,23 @@ pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
     Ok(prepared)
 }
 
+/// A clearly negative estimate in words: `-8.521 ± 1.646, more than two standard errors below
+/// 0`, or `-8.521 (no standard error), below 0` when its standard error is not finite.
+pub fn negative_words(value: f64, se: f64) -> String {
+    if se.is_finite() {
+        format!(
+            "{} ± {}, more than two standard errors below 0",
+            crate::fmt::fmt_num(value),
+            crate::fmt::fmt_num(se)
+        )
+    } else {
+        format!(
+            "{} (no standard error), below 0",
+            crate::fmt::fmt_num(value)
+        )
+    }
+}
+
 /// A noise-variance estimate more than two standard errors below 0 (a standard error that is
 /// not finite counts as none).
 pub fn clearly_negative(value: f64, stderr: f64) -> bool {
@@ -245,14 +262,13 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                 .filter(|n| clearly_negative(n.value, n.stderr))
             {
                 return Err(Error::Data(format!(
-                    "the noise estimate of {} ({}) is {} ± {}, more than two standard errors \
-                     below 0, which a variance cannot be: its responses do not change like a \
-                     smooth function plus noise at the neighbours' scale{}; fix the table, or set \
-                     `noise_estimator = \"nn\"` or `\"plane\"` in [data] (never negative)",
+                    "the noise estimate of {} ({}) is {}, which a variance cannot be: its \
+                     responses do not change like a smooth function plus noise at the \
+                     neighbours' scale{}; fix the table, or set `noise_estimator = \"nn\"` or \
+                     `\"plane\"` in [data] (never negative)",
                     t.table.path.display(),
                     n.method.name(),
-                    crate::fmt::fmt_num(n.value),
-                    crate::fmt::fmt_num(n.stderr),
+                    negative_words(n.value, n.stderr),
                     noise::negative_estimate_causes(work.x.view(), &work.names, Some(&work.lines))
                 )));
             }
