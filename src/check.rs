@@ -440,7 +440,7 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
     // A table's noise is an estimate, which can be below 0 by sampling, but `run` refuses one
     // more than two standard errors below 0.
     if let Some(n) = &doc.noise_estimate {
-        if crate::runner::clearly_negative(n.value, n.stderr.unwrap_or(f64::NAN)) {
+        if crate::dataset::noise::clearly_negative(n.value, n.stderr.unwrap_or(f64::NAN)) {
             return Err(format!(
                 "`noise_estimate.value` is {}, more than two standard errors below 0, which \
                  `run` refuses; {EDITED}",

@@ -241,8 +241,6 @@ pub fn check(inputs: &[(&str, &Path)], outputs: &[(&str, &Path)]) -> Result<(), 
     Ok(())
 }
 
-/// Writes one output safely (checked against `inputs`, given as `(role, path)`): staged and
-/// renamed for a regular file, in place for a device or FIFO, standard output for `-`.
 /// `p` names standard output: `-`, or a path to what file descriptor 1 holds (`/dev/stdout`,
 /// `/dev/fd/1`, or the very file standard output is redirected to). A command writing an
 /// output there sends its words to standard error instead, as with `-`, so they cannot land in
@@ -258,6 +256,8 @@ pub fn is_stdout(p: &Path) -> bool {
     }
 }
 
+/// Writes one output safely (checked against `inputs`, given as `(role, path)`): staged and
+/// renamed for a regular file, in place for a device or FIFO, standard output for `-`.
 pub fn write_one(
     flag: &str,
     path: &Path,

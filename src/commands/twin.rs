@@ -1426,25 +1426,21 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             // A variance is never negative; the Gamma test's intercept can be, and a twin
             // "corrected" a raw −21 ± 3.8 into a noise with an SE fourteen times its size.
             // Within two standard errors of 0 it is sampling (little noise), corrected as before.
-            if let Some(n) = fit
-                .noise
-                .as_ref()
-                .filter(|n| crate::runner::clearly_negative(n.raw, n.raw_se))
-            {
-                return Err(Error::Usage(format!(
-                    "{}: the noise estimate ({}) is {}, which a variance cannot be: the \
-                     responses do not change like a smooth function plus noise at the \
-                     neighbours' scale{}; fix the table, or pass --noise-estimator nn or plane \
-                     (never negative)",
-                    o.table.display(),
-                    n.method.name(),
-                    crate::runner::source::negative_words(n.raw, n.raw_se),
-                    crate::dataset::noise::negative_estimate_causes(
-                        t.x.view(),
-                        &t.names,
-                        Some(&t.lines)
-                    )
-                )));
+            if let Some(n) = fit.noise.as_ref() {
+                if let Some(why) = crate::dataset::noise::negative_refusal(
+                    n.method,
+                    n.raw,
+                    n.raw_se,
+                    t.x.view(),
+                    &t.names,
+                    &t.lines,
+                ) {
+                    return Err(Error::Usage(format!(
+                        "{}: {why}; fix the table, or pass --noise-estimator nn or plane (never \
+                         negative)",
+                        o.table.display()
+                    )));
+                }
             }
             if let (Rule::Only(Candidate::LocLin), Some(why)) =
                 (o.reference, select::loclin_skipped(t.rows(), t.x.ncols()))

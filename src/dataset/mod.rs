@@ -394,6 +394,9 @@ impl<R: std::io::Read> std::io::Read for LineCounter<R> {
     }
 }
 
+/// The likely cause of a cell that spans lines.
+const OPEN_QUOTE: &str = "a quote `\"` left open runs on over the lines after it";
+
 /// A CSV reader's error in one line, with its own line number replaced by the physical one.
 fn csv_error_text(e: &csv::Error, line: Option<usize>) -> String {
     let text = format!("{e}").replace('\n', " ");
@@ -527,7 +530,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             None,
             format!(
                 "cannot read the header: {}",
-                format!("{e}").replace('\n', " ")
+                csv_error_text(&e, e.position().map(line_of))
             ),
         ),
     })?;
@@ -645,8 +648,8 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             continue;
         }
         if rec.len() != header.len() {
-            let quote = if rec.iter().any(|c| c.contains('\n') || c.contains('\r')) {
-                " (a quote `\"` left open runs on over the lines after it)"
+            let quote = if rec.iter().any(|c| c.contains(['\n', '\r'])) {
+                &format!(" ({OPEN_QUOTE})")
             } else if rec.len() == header.len() + 1 && rec.iter().next_back() == Some("") {
                 " (a comma at the end of the line?)"
             } else {
@@ -717,10 +720,11 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 return Err(err(
                     Some(lines[ri]),
                     Some(&header[c]),
-                    "holds a line break (a quote `\"` left open runs on over the lines after \
-                     it, or a text cell spans lines); lossprism reads one line per cell: close \
-                     the quote, or leave the column out with `features`"
-                        .into(),
+                    format!(
+                        "holds a line break ({OPEN_QUOTE}, or a text cell spans lines); \
+                         lossprism reads one line per cell: close the quote, or leave the \
+                         column out with `features`"
+                    ),
                 ));
             }
             let is_target_label = c == target_col && classify;

@@ -95,6 +95,47 @@ pub struct NoiseEstimate {
     pub method: Method,
 }
 
+/// A noise-variance estimate more than two standard errors below 0 (a standard error that is
+/// not finite counts as none). Within two standard errors of 0 a negative estimate is sampling
+/// (a table with little or no noise) and is reported as it is.
+pub fn clearly_negative(value: f64, stderr: f64) -> bool {
+    value < 0.0 && (!stderr.is_finite() || value + 2.0 * stderr < 0.0)
+}
+
+/// The refusal of a clearly negative estimate ([`clearly_negative`]) in words, with its likely
+/// causes ([`negative_estimate_causes`]); `None` when the estimate is not clearly negative. The
+/// caller adds the file and the way out (a scenario key or a flag).
+pub fn negative_refusal(
+    method: Method,
+    value: f64,
+    stderr: f64,
+    x: ArrayView2<'_, f64>,
+    names: &[String],
+    lines: &[usize],
+) -> Option<String> {
+    if !clearly_negative(value, stderr) {
+        return None;
+    }
+    let estimate = if stderr.is_finite() {
+        format!(
+            "{} ± {}, more than two standard errors below 0",
+            crate::fmt::fmt_num(value),
+            crate::fmt::fmt_num(stderr)
+        )
+    } else {
+        format!(
+            "{} (no standard error), below 0",
+            crate::fmt::fmt_num(value)
+        )
+    };
+    Some(format!(
+        "the noise estimate ({}) is {estimate}, which a variance cannot be: the responses do not \
+         change like a smooth function plus noise at the neighbours' scale{}",
+        method.name(),
+        negative_estimate_causes(x, names, Some(lines))
+    ))
+}
+
 /// Why a table's noise estimate came out negative (only the Gamma test's intercept can), in words
 /// to add to the refusal: the input value furthest from its column's median in robust standard
 /// deviations (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than

@@ -143,6 +143,10 @@ impl Family for BoostFamily {
         "boost"
     }
 
+    fn squares_inputs(&self) -> bool {
+        false
+    }
+
     fn zero_probability_remedy(&self) -> &'static str {
         "boosting gives 0 when a class's score runs far below the others': fewer rounds (a smaller grid) or a smaller `learning_rate`"
     }

@@ -403,6 +403,10 @@ impl Family for ForestFamily {
         "forest"
     }
 
+    fn squares_inputs(&self) -> bool {
+        false
+    }
+
     fn zero_probability_remedy(&self) -> &'static str {
         "smooth the class shares with add-α: set `alpha = 0.5` (for example) in [model] (key `model.alpha`)"
     }

@@ -170,6 +170,13 @@ pub trait Family: Send + Sync {
     /// Whether the family supports the task (regression, or classification with K classes).
     fn supports(&self, task: Task) -> bool;
 
+    /// Whether a fit squares and sums its inputs (a standardization, a distance, a design
+    /// matrix), so that inputs beyond about 1e154 overflow; trees only compare them (default:
+    /// true).
+    fn squares_inputs(&self) -> bool {
+        true
+    }
+
     /// What to change when the family gives a class probability of exactly 0, which the
     /// log-loss cannot score (added to the run's message; default: another loss).
     fn zero_probability_remedy(&self) -> &'static str {

@@ -1472,6 +1472,10 @@ impl Family for TreeFamily {
         "tree"
     }
 
+    fn squares_inputs(&self) -> bool {
+        false
+    }
+
     fn zero_probability_remedy(&self) -> &'static str {
         "smooth the class shares with add-α: set `alpha = 0.5` (for example) in [model] (key `model.alpha`)"
     }

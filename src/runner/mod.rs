@@ -25,7 +25,7 @@ use std::sync::Mutex;
 use ndarray::{ArrayView2, ArrayView3, ArrayViewMut3, ArrayViewMut4, Axis};
 use rayon::prelude::*;
 
-pub use source::{clearly_negative, draw, prepare, training_set, Draw, Prepared};
+pub use source::{draw, prepare, training_set, Draw, Prepared};
 
 use crate::decompose::{self, Acc, Batch, Summary};
 use crate::error::Error;

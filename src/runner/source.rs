@@ -113,29 +113,6 @@ pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
     Ok(prepared)
 }
 
-/// A clearly negative estimate in words: `-8.521 ± 1.646, more than two standard errors below
-/// 0`, or `-8.521 (no standard error), below 0` when its standard error is not finite.
-pub fn negative_words(value: f64, se: f64) -> String {
-    if se.is_finite() {
-        format!(
-            "{} ± {}, more than two standard errors below 0",
-            crate::fmt::fmt_num(value),
-            crate::fmt::fmt_num(se)
-        )
-    } else {
-        format!(
-            "{} (no standard error), below 0",
-            crate::fmt::fmt_num(value)
-        )
-    }
-}
-
-/// A noise-variance estimate more than two standard errors below 0 (a standard error that is
-/// not finite counts as none).
-pub fn clearly_negative(value: f64, stderr: f64) -> bool {
-    value < 0.0 && (!stderr.is_finite() || value + 2.0 * stderr < 0.0)
-}
-
 /// Smallest largest magnitude of a regression's responses: below it their squares (about
 /// 1e-300) and those of their differences underflow to 0.
 const RESPONSE_MIN: f64 = 1e-150;
@@ -155,10 +132,7 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     // zeros (a synthetic input is held to the same bound when it is planned).
     // Trees compare inputs and never square them: with only tree families and no noise
     // estimator (a classification table) a large column is fine.
-    let squares = plan
-        .models
-        .iter()
-        .any(|m| !matches!(m.family.name(), "tree" | "forest" | "boost"))
+    let squares = plan.models.iter().any(|m| m.family.squares_inputs())
         || (plan.task == Task::Regress && !plan.loss.count_responses());
     if let (Source::Table(t), true) = (&plan.source, squares) {
         for (col, name) in p.eval_x.columns().into_iter().zip(&t.table.names) {
@@ -185,14 +159,7 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
         .chain(p.eval_sd.iter())
         .fold(0.0_f64, |a, v| a.max(v.abs()));
     if big > RESPONSE_MAX || !big.is_finite() {
-        let whose = match &plan.source {
-            Source::Table(t) => format!(
-                " (column `{}` of {})",
-                t.table.target,
-                t.table.path.display()
-            ),
-            _ => String::new(),
-        };
+        let whose = target_column(plan).map_or(String::new(), |c| format!(" ({c})"));
         return Err(Error::Data(format!(
             "the responses{whose} reach {big:.1e} in size, so their squares overflow; rescale \
              the response (for example divide it by a power of ten)"
@@ -208,6 +175,18 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     Ok(())
 }
 
+/// A table's target in words (`column `y` of t.csv`); `None` for a synthetic source.
+fn target_column(plan: &Plan) -> Option<String> {
+    match &plan.source {
+        Source::Table(t) => Some(format!(
+            "column `{}` of {}",
+            t.table.target,
+            t.table.path.display()
+        )),
+        _ => None,
+    }
+}
+
 /// Largest mean count the Poisson deviance's terms are computed for. Its terms (of order 1) are
 /// differences of sums of numbers of order λ, so they keep about 16 − log10 λ digits: measured
 /// with k-NN on a constant mean (`lossprism` itself, 400 replicates), the bias at k = n moved by
@@ -220,14 +199,10 @@ pub const COUNT_MAX: f64 = 1e8;
 fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     let big = p.eval_truth.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
     if big > COUNT_MAX || !big.is_finite() {
-        let whose = match &plan.source {
-            Source::Table(t) => format!(
-                "the counts (column `{}` of {}) reach",
-                t.table.target,
-                t.table.path.display()
-            ),
-            _ => "the mean count (the truth at the evaluation points) reaches".into(),
-        };
+        let whose = target_column(plan).map_or(
+            "the mean count (the truth at the evaluation points) reaches".into(),
+            |c| format!("the counts ({c}) reach"),
+        );
         return Err(Error::Data(format!(
             "{whose} {big:.1e}, above {COUNT_MAX:.0e}: the Poisson deviance's terms there are \
              differences of numbers that large and lose their digits; counts this large are \
@@ -257,20 +232,21 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
             // table is not a smooth function plus noise at the neighbours' scale (one mistyped
             // input value or repeated inputs do it), and the bias² it would give is not to be
             // believed.
-            if let Some(n) = noise
-                .as_ref()
-                .filter(|n| clearly_negative(n.value, n.stderr))
-            {
-                return Err(Error::Data(format!(
-                    "the noise estimate of {} ({}) is {}, which a variance cannot be: its \
-                     responses do not change like a smooth function plus noise at the \
-                     neighbours' scale{}; fix the table, or set `noise_estimator = \"nn\"` or \
-                     `\"plane\"` in [data] (never negative)",
-                    t.table.path.display(),
-                    n.method.name(),
-                    negative_words(n.value, n.stderr),
-                    noise::negative_estimate_causes(work.x.view(), &work.names, Some(&work.lines))
-                )));
+            if let Some(n) = noise.as_ref() {
+                if let Some(why) = noise::negative_refusal(
+                    n.method,
+                    n.value,
+                    n.stderr,
+                    work.x.view(),
+                    &work.names,
+                    &work.lines,
+                ) {
+                    return Err(Error::Data(format!(
+                        "{}: {why}; fix the table, or set `noise_estimator = \"nn\"` or \
+                         `\"plane\"` in [data] (never negative)",
+                        t.table.path.display()
+                    )));
+                }
             }
             return Ok(Prepared {
                 eval_x: work.x.clone(),

@@ -2,6 +2,7 @@
 //! replicate will do (the engine runs it, see [`crate::runner::audit`]).
 
 use crate::error::ScenarioError;
+use crate::family::Family;
 use crate::scenario::spec::AuditSpec;
 
 /// How the cross-validated loss curve becomes a choice.
@@ -40,7 +41,7 @@ pub fn from_spec(
     a: &AuditSpec,
     src: &str,
     file: &str,
-    family: &dyn crate::family::Family,
+    family: &dyn Family,
     grid: &[f64],
     n_train: usize,
     n_inputs: usize,
@@ -72,10 +73,7 @@ pub fn from_spec(
         }
     };
     let smallest = n_train - n_train.div_ceil(folds);
-    family
-        .check_grid(grid, smallest, n_inputs)
-        .and_then(|()| family.check_options(smallest, n_inputs).map_err(|(_, m)| m))
-        .map_err(|m| {
+    check_fold_fits(family, grid, smallest, n_inputs).map_err(|m| {
             err(
                 a.folds.span(),
                 "audit.folds",
@@ -89,4 +87,17 @@ pub fn from_spec(
         rule,
         larger_is_simpler: family.larger_is_simpler(),
     })
+}
+
+/// Checks that a fold fit of `rows` training rows can fit `family` across `grid`: the grid
+/// ([`Family::check_grid`]) and the family's options ([`Family::check_options`]: a leaf size or
+/// a subsample that splits nothing on the fold's rows).
+pub fn check_fold_fits(
+    family: &dyn Family,
+    grid: &[f64],
+    rows: usize,
+    n_inputs: usize,
+) -> Result<(), String> {
+    family.check_grid(grid, rows, n_inputs)?;
+    family.check_options(rows, n_inputs).map_err(|(_, m)| m)
 }

@@ -489,13 +489,7 @@ impl Plan {
         if let Some(a) = &audit {
             for m in &models[1..] {
                 let smallest = n_train - n_train.div_ceil(a.folds);
-                m.family
-                    .check_grid(&m.grid, smallest, n_inputs)
-                    .and_then(|()| {
-                        m.family
-                            .check_options(smallest, n_inputs)
-                            .map_err(|(_, msg)| msg)
-                    })
+                super::audit::check_fold_fits(m.family.as_ref(), &m.grid, smallest, n_inputs)
                     .map_err(|msg| {
                     cx.err_line(
                         None,
@@ -1199,8 +1193,7 @@ fn expand_grid(
                         } else {
                             // Twelve significant digits, so that decades print as 10, not
                             // 9.999999999999993.
-                            let v = (a + (b - a) * i as f64 / (n - 1) as f64).exp();
-                            format!("{v:.11e}").parse::<f64>().unwrap_or(v)
+                            twelve_digits((a + (b - a) * i as f64 / (n - 1) as f64).exp())
                         }
                     })
                     .collect();
@@ -1241,21 +1234,19 @@ fn expand_grid(
                 (
                     (0..n)
                         .map(|i| {
-                            // Twelve significant digits when that is only a rounding away, so
-                            // that 0.1 steps give 0.3, not 0.30000000000000004.
+                            // After `from` (kept as written), 0 itself (from −0.3 by 0.1
+                            // reached 5.55e-17) and twelve significant digits when that is only
+                            // a rounding away: 0.1 steps give 0.3, not 0.30000000000000004.
                             let v = from + step * i as f64;
-                            // 0 itself (from −0.3 by 0.1 reached 5.55e-17).
-                            let r = if i == 0 {
+                            let tol = 1e-9 * step;
+                            if i == 0 {
                                 v
-                            } else if v.abs() <= 1e-9 * step {
+                            } else if v.abs() <= tol {
                                 0.0
                             } else {
-                                format!("{v:.11e}").parse::<f64>().unwrap_or(v)
-                            };
-                            if (r - v).abs() <= 1e-9 * step {
-                                r
-                            } else {
-                                v
+                                Some(twelve_digits(v))
+                                    .filter(|r| (r - v).abs() <= tol)
+                                    .unwrap_or(v)
                             }
                         })
                         .collect(),
@@ -1362,6 +1353,11 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         unreachable!("exactly one distribution checked above")
     };
     Ok(Input { name, dist })
+}
+
+/// `v` to twelve significant digits (a grid value as written, not its rounding error).
+fn twelve_digits(v: f64) -> f64 {
+    format!("{v:.11e}").parse::<f64>().unwrap_or(v)
 }
 
 /// Most labels of a synthetic classification scenario (a rule of thumb, no source: far above

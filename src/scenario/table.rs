@@ -303,37 +303,32 @@ pub fn from_spec(
     })?;
     let mut plan = plan;
     if let Some(h) = &d.holdout {
-        // A single locked row has no spread: its assessment printed "± n/a" and was still
-        // counted in the ledger.
-        if plan.holdout.len() == 1 {
-            let rows = plan.table.rows();
-            return Err(spanned_err(
+        let refuse = |locks: String| {
+            spanned_err(
                 src,
                 file,
                 Some(h),
                 "data.holdout",
                 format!(
-                    "{} of the {rows} rows locks 1 row, and a holdout loss needs at least 2 for \
-                     its standard error; raise it or remove `holdout`",
-                    crate::fmt::fmt_exact(holdout)
+                    "{} of the {} rows locks {locks}; raise it or remove `holdout`",
+                    crate::fmt::fmt_exact(holdout),
+                    plan.table.rows()
                 ),
+            )
+        };
+        // A single locked row has no spread: its assessment printed "± n/a" and was still
+        // counted in the ledger.
+        if plan.holdout.len() == 1 {
+            return Err(refuse(
+                "1 row, and a holdout loss needs at least 2 for its standard error".into(),
             ));
         }
         // A share that rounds to no row would run without a holdout, silently.
         if holdout > 0.0 && plan.holdout.is_empty() {
-            let rows = plan.table.rows();
-            return Err(spanned_err(
-                src,
-                file,
-                Some(h),
-                "data.holdout",
-                format!(
-                    "{} of the {rows} rows locks no row (the share is rounded to whole rows{}); \
-                     raise it or remove `holdout`",
-                    crate::fmt::fmt_exact(holdout),
-                    if classify { " of each class" } else { "" }
-                ),
-            ));
+            return Err(refuse(format!(
+                "no row (the share is rounded to whole rows{})",
+                if classify { " of each class" } else { "" }
+            )));
         }
     }
     if let Some(ts) = &d.train_size {
