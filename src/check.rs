@@ -438,12 +438,16 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
     let loss = decompose::by_name(&doc.loss).expect("checked above");
     let observed = doc.table.is_some();
     // A table's noise is an estimate, which can be below 0 by sampling, but `run` refuses one
-    // more than two standard errors below 0.
+    // more than two standard errors and a tenth of the responses' variance below 0.
     if let Some(n) = &doc.noise_estimate {
-        if crate::dataset::noise::clearly_negative(n.value, n.stderr.unwrap_or(f64::NAN)) {
+        if crate::dataset::noise::clearly_negative(
+            n.value,
+            n.stderr.unwrap_or(f64::NAN),
+            n.response_variance.unwrap_or(f64::NAN),
+        ) {
             return Err(format!(
-                "`noise_estimate.value` is {}, more than two standard errors below 0, which \
-                 `run` refuses; {EDITED}",
+                "`noise_estimate.value` is {}, further below 0 than `run` allows (two standard \
+                 errors, and a tenth of the responses' variance); {EDITED}",
                 crate::fmt::fmt_exact(n.value)
             ));
         }

@@ -1425,13 +1425,14 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             // A variance is never negative; the Gamma test's intercept can be, and a twin
             // "corrected" a raw −21 ± 3.8 into a noise with an SE fourteen times its size.
-            // Within two standard errors of 0 it is sampling (little noise), corrected as before.
+            // Within two standard errors or a tenth of the responses' variance of 0 it is sampling (little noise), corrected as before.
             if let Some(n) = fit.noise.as_ref() {
                 if let Some(why) = crate::dataset::noise::negative_refusal(
                     n.method,
                     n.raw,
                     n.raw_se,
                     t.x.view(),
+                    t.y.view(),
                     &t.names,
                     &t.lines,
                 ) {

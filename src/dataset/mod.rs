@@ -473,11 +473,19 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     let mut reader = std::io::BufReader::with_capacity(1 << 16, f);
     let mut skipped: u64 = 0;
     // Skip leading blank space to tell an empty file from a table.
+    let mut first = true;
     loop {
         use std::io::BufRead;
         let buf = reader
             .fill_buf()
             .map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+        // A byte-order mark first: skipped with the blank lines after it (the header after
+        // them was named line 1).
+        if std::mem::take(&mut first) && buf.starts_with(&[0xEF, 0xBB, 0xBF]) {
+            skipped += 3;
+            reader.consume(3);
+            continue;
+        }
         if buf.is_empty() {
             return Err(err(
                 None,
@@ -662,6 +670,24 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                     "has {} fields, but the header has {}{quote}",
                     rec.len(),
                     header.len()
+                ),
+            ));
+        }
+        // A quote left open in a column the run does not use swallows the records after it
+        // into one cell with the right field count (exit 0 with rows lost): a cell holding
+        // a line that reads as a record is refused in every column.
+        let looks_like_record = |cell: &str| {
+            cell.split(['\n', '\r'])
+                .skip(1)
+                .any(|l| l.matches(',').count() + 1 >= header.len())
+        };
+        if let Some(c) = rec.iter().position(looks_like_record) {
+            return Err(err(
+                Some(line),
+                header.get(c).map(String::as_str),
+                format!(
+                    "holds lines that read as records ({OPEN_QUOTE}, swallowing the rows \
+                     below it); close the quote"
                 ),
             ));
         }

@@ -807,6 +807,11 @@ pub struct NoiseEstimateEcho {
     pub method: String,
     /// The method in words, with its source.
     pub about: String,
+    /// The variance of the responses the estimate used (divisor n): the scale a negative
+    /// estimate is judged against (`check` refuses what `run` would have refused). Absent
+    /// from documents before version 0.3.1.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub response_variance: Option<f64>,
 }
 
 /// `true` for 0 (a count written only when there is something to count).
@@ -1534,6 +1539,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             stderr: finite(n.stderr),
             method: n.method.name().into(),
             about: n.method.describe().into(),
+            response_variance: finite(crate::dataset::noise::response_variance(run.work.y.view())),
         });
         scheme_note = Some(tp.note());
     }

@@ -227,8 +227,9 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                 _ => None,
             };
             // A variance is never negative; the Gamma test's intercept can be. Within two
-            // standard errors of 0 that is sampling (a table with little or no noise: the
-            // estimate and its standard error are reported as they are); further below, the
+            // standard errors or a tenth of the responses' variance of 0 that is sampling (a
+            // table with little or no noise: the estimate and its standard error are reported
+            // as they are); further below, the
             // table is not a smooth function plus noise at the neighbours' scale (one mistyped
             // input value or repeated inputs do it), and the bias² it would give is not to be
             // believed.
@@ -238,6 +239,7 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                     n.value,
                     n.stderr,
                     work.x.view(),
+                    work.y.view(),
                     &work.names,
                     &work.lines,
                 ) {
