@@ -740,10 +740,10 @@ fn noise_line(n: &NoiseCorrection) -> String {
             "parametric-bootstrap tables"
         },
         fmt_se(n.bootstrap_se),
-        if n.floored {
-            "; the correction exceeded the raw estimate, so σ̂² is floored at 5% of it"
-        } else {
-            ""
+        match (n.floored, n.raw > 0.0) {
+            (true, true) => "; the correction exceeded the raw estimate, so σ̂² is floored at 5% of it",
+            (true, false) => "; the raw estimate is not above 0, so σ̂² is 0 (a twin without noise)",
+            _ => "",
         }
     )
 }
@@ -1425,7 +1425,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
             // A variance is never negative; the Gamma test's intercept can be, and a twin
             // "corrected" a raw −21 ± 3.8 into a noise with an SE fourteen times its size.
-            // Within two standard errors or a tenth of the responses' variance of 0 it is sampling (little noise), corrected as before.
+            // Within two standard errors or a tenth of the responses' variance of 0 it is
+            // sampling (little noise), corrected as before.
             if let Some(n) = fit.noise.as_ref() {
                 if let Some(why) = crate::dataset::noise::negative_refusal(
                     n.method,
@@ -1440,6 +1441,37 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                         "{}: {why}; fix the table, or pass --noise-estimator nn or plane (never \
                          negative)",
                         o.table.display()
+                    )));
+                }
+                // A twin's noise must be told apart from both 0 and the responses' whole
+                // variance. A table without noise gives an estimate near 0 with a small
+                // standard error, and its twin has almost no noise, rightly; an estimate within
+                // two standard errors of 0 whose standard error is beyond a tenth of the
+                // responses' variance says nothing (40 rows of pure noise on 100 inputs: raw
+                // -0.78 ± 0.74 against a variance of 0.73 wrote sd = 0, and the twin's expected
+                // losses were 0.02-0.03 against at least 0.73; on 30 inputs 0.014 ± 0.45
+                // against 1.1).
+                let var = crate::dataset::noise::response_variance(t.y.view());
+                let share = crate::dataset::noise::NEGATIVE_SHARE * var;
+                let uninformative =
+                    (n.value < 2.0 * n.se && n.se > share) || (n.floored && !(n.raw_se <= share));
+                if uninformative {
+                    return Err(Error::Usage(format!(
+                        "{}: the noise cannot be measured on this table: the estimate ({}) is \
+                         {} ± {} (raw {} ± {}) against the responses' variance {}, which cannot \
+                         tell a twin without noise from one of noise alone; with {} rows for {} \
+                         inputs the neighbours may be too far apart: leave inputs out \
+                         (--features), add rows, or pass --noise-estimator nn (never negative; \
+                         biased up by the reference's change between neighbours)",
+                        o.table.display(),
+                        n.method.name(),
+                        fmt_num(n.value),
+                        fmt_num(n.se),
+                        fmt_num(n.raw),
+                        fmt_num(n.raw_se),
+                        fmt_num(var),
+                        t.rows(),
+                        t.input_count_words()
                     )));
                 }
             }
