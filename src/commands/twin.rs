@@ -1453,8 +1453,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 // against 1.1).
                 let var = crate::dataset::noise::response_variance(t.y.view());
                 let share = crate::dataset::noise::NEGATIVE_SHARE * var;
-                let uninformative =
-                    (n.value < 2.0 * n.se && n.se > share) || (n.floored && !(n.raw_se <= share));
+                let uninformative = (n.value < 2.0 * n.se && n.se > share)
+                    || (n.floored && (n.raw_se > share || n.raw_se.is_nan()));
                 if uninformative {
                     return Err(Error::Usage(format!(
                         "{}: the noise cannot be measured on this table: the estimate ({}) is \
