@@ -41,6 +41,15 @@ const STALL_LIMIT: Duration = Duration::from_secs(60);
 #[cfg(test)]
 const STALL_LIMIT: Duration = Duration::from_millis(300);
 
+/// The start of a holdout ledger's format tag. A ledger counts the looks at a holdout, so no
+/// output but the ledger's own update ([`LEDGER_OUTPUT`]) may replace a file holding it,
+/// whatever the scenario that names it (a scenario reached through a link or another name
+/// had its ledger replaced by a result document).
+pub const LEDGER_TAG: &str = "lossprism-holdout-ledger/";
+
+/// The flag under which the holdout assessment writes its ledger.
+pub const LEDGER_OUTPUT: &str = "ledger";
+
 /// Symlink hops followed before a path is declared a loop (Linux's own limit).
 const MAX_LINKS: usize = 40;
 
@@ -451,7 +460,10 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
             )))
         }
         Some(m) if m.is_file() && loc.proc_fd => Place::Direct(loc.full.clone(), Stream::ProcFile),
-        Some(m) if m.is_file() => Place::Staged(loc.full.clone()),
+        Some(m) if m.is_file() => {
+            replaceable(flag, &shown, &loc.full)?;
+            Place::Staged(loc.full.clone())
+        }
         Some(m) if sys::is_fifo(m) => Place::Direct(loc.full.clone(), Stream::Fifo),
         Some(_) => Place::Direct(loc.full.clone(), Stream::Device),
     };
@@ -469,6 +481,36 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         },
         place,
     })
+}
+
+/// An existing regular file an output may replace: one the user may write (a rename needs only
+/// the folder's permission, and a read-only file, or another user's, was silently replaced),
+/// and not a holdout ledger unless the output is the ledger's own update.
+fn replaceable(flag: &str, shown: &dyn std::fmt::Display, full: &Path) -> Result<(), Error> {
+    if let Err(e) = OpenOptions::new().write(true).open(full) {
+        if e.kind() == io::ErrorKind::PermissionDenied {
+            return Err(Error::Usage(format!(
+                "{flag}: {shown} is not writable; lossprism replaces only files you may write"
+            )));
+        }
+    }
+    if flag != LEDGER_OUTPUT {
+        let mut head = Vec::with_capacity(512);
+        if let Ok(f) = File::open(full) {
+            use std::io::Read;
+            let _ = f.take(512).read_to_end(&mut head);
+        }
+        let text = String::from_utf8_lossy(&head);
+        let tag = format!("\"format\": \"{LEDGER_TAG}");
+        let compact = format!("\"format\":\"{LEDGER_TAG}");
+        if text.contains(&tag) || text.contains(&compact) {
+            return Err(Error::Usage(format!(
+                "{flag}: {shown} is a holdout ledger, which counts the looks at a holdout; no \
+                 output replaces it (choose another file)"
+            )));
+        }
+    }
+    Ok(())
 }
 
 /// Checks that the folder of `target` accepts new files by creating and removing one.

@@ -122,8 +122,9 @@ impl ScenarioSource {
 /// version, resolved scenario echo, the scenario file's settings (parsed, so comments and layout
 /// do not count; `replicates` is taken after overrides; the file's own `seed` stays, since it
 /// places the evaluation points and a table's holdout even under `--seed`), the models (family,
-/// knob, grid bit patterns, fits), the loss, seed and evaluation seed after overrides,
-/// replicates, blocks, and a digest of any data the plan read from files.
+/// knob, grid bit patterns, fits, the content of the files an external estimator runs), the
+/// loss, seed and evaluation seed after overrides, replicates, blocks, and a digest of any data
+/// the plan read from files.
 pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let mut spec: toml::Table = text
         .parse()
@@ -132,18 +133,27 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let fail = |e: serde_json::Error| Error::Usage(format!("fingerprint: {e}"));
     let echo = serde_json::to_value(report::scenario_echo(plan)).map_err(fail)?;
     let settings = serde_json::to_value(&spec).map_err(fail)?;
-    let models: Vec<serde_json::Value> = plan
-        .models
-        .iter()
-        .map(|m| {
-            serde_json::json!({
-                "family": m.family.name(),
-                "knob": m.family.knob(),
-                "grid": m.grid.iter().map(|v| format!("{:016x}", v.to_bits())).collect::<Vec<_>>(),
-                "fit_seeds": m.fit_seeds,
-            })
-        })
-        .collect();
+    let mut models: Vec<serde_json::Value> = Vec::with_capacity(plan.models.len());
+    for m in &plan.models {
+        let mut model = serde_json::json!({
+            "family": m.family.name(),
+            "knob": m.family.knob(),
+            "grid": m.grid.iter().map(|v| format!("{:016x}", v.to_bits())).collect::<Vec<_>>(),
+            "fit_seeds": m.fit_seeds,
+        });
+        // The files an external estimator runs, by content: a script edited between a stop
+        // and its resume, or between shards, was folded into one result with exit 0.
+        let files = m.family.input_files();
+        if !files.is_empty() {
+            let mut digests = Vec::with_capacity(files.len());
+            for f in &files {
+                let bytes = std::fs::read(f).map_err(|e| Error::io(f, &e))?;
+                digests.push(format!("{:016x}", fnv1a64(&bytes)));
+            }
+            model["files"] = serde_json::json!(digests);
+        }
+        models.push(model);
+    }
     let material = serde_json::json!({
         "format": PART_FORMAT,
         "version": VERSION,
@@ -167,18 +177,7 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
 fn data_digest(plan: &Plan) -> Option<String> {
     let mut bytes: Vec<u8> = Vec::new();
     match &plan.source {
-        Source::Table(t) => {
-            let tb = &t.table;
-            bytes.extend_from_slice(&(tb.x.nrows() as u64).to_le_bytes());
-            bytes.extend_from_slice(&(tb.x.ncols() as u64).to_le_bytes());
-            for name in tb.names.iter().chain(&tb.labels).chain([&tb.target]) {
-                bytes.extend_from_slice(name.as_bytes());
-                bytes.push(0);
-            }
-            for v in tb.x.iter().chain(tb.y.iter()) {
-                bytes.extend_from_slice(&v.to_bits().to_le_bytes());
-            }
-        }
+        Source::Table(t) => return Some(t.table.digest()),
         Source::Synthetic(s) => {
             let rows = s.process.empirical_rows()?;
             for v in rows.iter() {
@@ -719,7 +718,7 @@ fn load_checkpoint(
             format!(" ({what})")
         };
         return Err(Error::Usage(format!(
-            "checkpoint {shown} belongs to another scenario/seed{what}; {fix}"
+            "checkpoint {shown} belongs to another run: the scenario, seed, data table or an external estimator's files differ{what}; {fix}"
         )));
     }
     if doc.shard != here.shard {
@@ -823,6 +822,9 @@ pub struct Merged {
     pub plan: Plan,
     /// The outcome, identical to the unsharded run's.
     pub outcome: Outcome,
+    /// The scenario file the parts were run from, as they record it (an input `merge` may not
+    /// replace).
+    pub scenario_file: PathBuf,
 }
 
 /// Merges shard parts into the run's outcome. Refuses (with a one-line [`Error::Usage`] naming the
@@ -1005,7 +1007,11 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         },
         1,
     )?;
-    Ok(Merged { plan, outcome })
+    Ok(Merged {
+        plan,
+        outcome,
+        scenario_file: PathBuf::from(&first.scenario_file),
+    })
 }
 
 #[cfg(test)]

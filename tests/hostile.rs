@@ -335,6 +335,23 @@ fn scenario_cases(t: &mut Table) {
         "data.duplicates",
     )
     .also("belongs to `source = \"table\"`");
+    // Friedman's functions read x1 … x5 by position: the inputs declared as x5, x4, …, x1
+    // ran Friedman #1 on the reversed columns with exit 0.
+    t.scenario(
+        g,
+        "builtin inputs out of order",
+        &sc(
+            "[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n\n[data.truth]\nformula = \"x\"",
+            &((1..=5)
+                .rev()
+                .map(|i| format!("[[data.inputs]]\nname = \"x{i}\"\nuniform = [0.0, 1.0]\n\n"))
+                .collect::<String>()
+                + "[data.truth]\nbuiltin = \"friedman1\""),
+        ),
+        v,
+        "data.inputs[0].name",
+    )
+    .also("input 1 is `x5`, not `x1`");
     t.scenario(
         g,
         "missing name",
@@ -2574,6 +2591,14 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         })
     };
     let (high, low) = (extreme(1.0), extreme(-1.0));
+    // Standard output keeps no baseline: the document was printed and "created" said, exit 0.
+    t.add(
+        g,
+        "check --update onto standard output",
+        &[("r.json", &docs.result)],
+        &["check", "r.json", "--baseline", "-", "--update"],
+        "a baseline is read back by the next check, so it must be a file",
+    );
     t.add(
         g,
         "check: differences that overflow",
@@ -2788,6 +2813,33 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         s,
         &["run", "s.toml", "-q"],
         "--quiet with no output",
+    );
+    // The parts name s.toml: `merge --out s.toml` replaced the scenario with exit 0.
+    t.add(
+        g,
+        "merge --out names the parts' scenario",
+        &[
+            ("s.toml", BASE.as_bytes()),
+            ("p1.json", &docs.part1),
+            ("p2.json", &docs.part2),
+        ],
+        &["merge", "p1.json", "p2.json", "--out", "s.toml"],
+        "--out names the parts' scenario file s.toml, an input",
+    );
+    // A ledger is kept whatever scenario names it (a scenario reached through a link or a
+    // second name had its ledger replaced by a result document).
+    t.add(
+        g,
+        "run --out onto another scenario's holdout ledger",
+        &[
+            ("s.toml", BASE.as_bytes()),
+            (
+                "other.holdout-ledger.json",
+                b"{\n  \"format\": \"lossprism-holdout-ledger/1\",\n  \"holdouts\": []\n}\n",
+            ),
+        ],
+        &["run", "s.toml", "--out", "other.holdout-ledger.json"],
+        "other.holdout-ledger.json is a holdout ledger",
     );
     t.add(
         g,
@@ -3918,7 +3970,7 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         (
             "of another seed",
             docs.checkpoint.clone(),
-            "another scenario/seed",
+            "belongs to another run",
         ),
     ];
     for (name, bytes, needle) in ck_cases {

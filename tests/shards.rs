@@ -539,7 +539,7 @@ fn a_stale_checkpoint_from_another_seed_is_refused_and_left_alone() {
         ],
     );
     assert!(
-        msg.contains("checkpoint ck.json belongs to another scenario/seed")
+        msg.contains("checkpoint ck.json belongs to another run")
             && msg.contains("seed 3 vs 4")
             && msg.contains("delete it or choose another file"),
         "{msg}"
@@ -771,4 +771,28 @@ fn shaped_noise_is_identical_across_threads_shards_and_resume() {
         );
         assert_eq!(resumed, full, "{name}: resumed");
     }
+}
+
+/// The fingerprint of a run with an external estimator covers the files it runs: a script
+/// edited between a stop and its resume (or between shards) was folded into one result with
+/// exit 0, a mix neither script gives. Planning starts no process, so no interpreter is needed.
+#[test]
+fn the_fingerprint_covers_an_external_estimators_script() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let text = "name = \"ext\"\nseed = 5\nreplicates = 20\n[data]\nsource = \"synthetic\"\n\
+                train_size = 40\neval_size = 20\n[data.truth]\nbuiltin = \"friedman1\"\n\
+                [model]\nfamily = \"external\"\ncommand = [\"python3\", \"m.py\"]\nknob = \"k\"\n\
+                grid = [1, 3]\n";
+    fs::write(d.join("s.toml"), text).unwrap();
+    let print = || {
+        let plan = lossprism::scenario::load(&d.join("s.toml"), &Default::default()).unwrap();
+        lossprism::shard::fingerprint(&plan, text).unwrap()
+    };
+    fs::write(d.join("m.py"), "print('one')\n").unwrap();
+    let (a, again) = (print(), print());
+    fs::write(d.join("m.py"), "print('two')\n").unwrap();
+    let b = print();
+    assert_eq!(a, again);
+    assert_ne!(a, b);
 }

@@ -1211,3 +1211,42 @@ fn a_noise_estimate_that_cannot_tell_zero_from_everything_is_refused() {
     let (value, _) = recorded_noise(&text);
     assert!(value > 0.5, "{text}");
 }
+
+/// A twin records the table it was fitted to: the table rescaled afterwards (y × 100, units
+/// changed) was refitted by the reference while the noise stayed as measured, with exit 0.
+/// Now the plan is refused at `table_digest`; the same table, rewritten with other line endings,
+/// still plans (the digest is of the values read, not of the bytes).
+#[test]
+fn a_twin_refuses_a_table_changed_since_it_was_written() {
+    let dir = tempfile::tempdir().unwrap();
+    let csv = dir.path().join("t.csv");
+    write_table(&csv, 80, 5);
+    let o = opts(dir.path(), false, "y");
+    twin::command(&o).expect("twin");
+    assert!(fs::read_to_string(&o.out)
+        .unwrap()
+        .contains("table_digest = \"fnv1a64:"));
+    let text = fs::read_to_string(&csv).unwrap();
+    fs::write(&csv, text.replace('\n', "\r\n")).unwrap();
+    scenario::load(&o.out, &PlanOptions::default()).expect("same values, other line endings");
+    let scaled: String = text
+        .lines()
+        .enumerate()
+        .map(|(i, l)| {
+            if i == 0 {
+                format!("{l}\n")
+            } else {
+                let (x, y) = l.split_once(',').unwrap();
+                format!("{x},{}\n", y.parse::<f64>().unwrap() * 100.0)
+            }
+        })
+        .collect();
+    fs::write(&csv, scaled).unwrap();
+    let e = scenario::load(&o.out, &PlanOptions::default())
+        .expect_err("refused")
+        .to_string();
+    assert!(
+        e.contains("data.table_digest") && e.contains("is not the table this twin was fitted to"),
+        "{e}"
+    );
+}

@@ -15,11 +15,16 @@ use crate::error::Error;
 use crate::family::{FitInput, FitSeed, Out};
 use crate::scenario::{Plan, Source};
 
-/// Identifier of the ledger format.
+/// Identifier of the ledger format (it starts with [`crate::output::LEDGER_TAG`], which keeps
+/// every other output off a ledger).
 pub const LEDGER_FORMAT: &str = "lossprism-holdout-ledger/1";
 
-/// The ledger file of a scenario: `<folder>/<stem>.holdout-ledger.json`.
+/// The ledger file of a scenario: `<folder>/<stem>.holdout-ledger.json`, beside the scenario
+/// file itself (symbolic links followed: a scenario named through a link had a ledger of its
+/// own, which reset the count).
 pub fn ledger_path(scenario: &Path) -> PathBuf {
+    let resolved = std::fs::canonicalize(scenario).ok();
+    let scenario = resolved.as_deref().unwrap_or(scenario);
     let stem = scenario
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
@@ -254,6 +259,26 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
     entry["values"] = json!(values);
     let mut text = serde_json::to_string_pretty(&doc).expect("json values serialize");
     text.push('\n');
-    crate::output::write_one("ledger", ledger, &[], text.as_bytes())?;
+    crate::output::write_one(crate::output::LEDGER_OUTPUT, ledger, &[], text.as_bytes())?;
     Ok((count, values))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// A scenario named through a symbolic link shares the ledger of the file it points to (it
+    /// had a ledger of its own, which counted its holdout looks from 1 again), and the ledger's
+    /// format tag is the one `output` keeps every other output off.
+    #[test]
+    fn a_linked_scenario_shares_its_ledger() {
+        let d = tempfile::tempdir().unwrap();
+        let s = d.path().join("s.toml");
+        std::fs::write(&s, "name = \"x\"\n").unwrap();
+        let link = d.path().join("link.toml");
+        std::os::unix::fs::symlink(&s, &link).unwrap();
+        assert_eq!(ledger_path(&link), ledger_path(&s));
+        assert!(ledger_path(&s).ends_with("s.holdout-ledger.json"));
+        assert!(LEDGER_FORMAT.starts_with(crate::output::LEDGER_TAG));
+    }
 }

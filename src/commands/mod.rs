@@ -501,6 +501,12 @@ pub fn merge(args: MergeArgs) -> Result<u8, Error> {
     }
     let ids = o.register(&mut set)?;
     let merged = shard::merge(&args.parts, args.memory_limit)?;
+    // The scenario the parts name, and its holdout ledger (`merge --out` replaced both).
+    set.input("the parts' scenario file", &merged.scenario_file);
+    let ledger = assess::ledger_path(&merged.scenario_file);
+    if ledger.exists() {
+        set.input("the scenario's holdout ledger", &ledger);
+    }
     for p in data_inputs(&merged.plan) {
         set.input("the scenario's data file", &p);
     }
@@ -538,6 +544,15 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         Ok((text, doc))
     };
     let (text, new) = read(&args.result)?;
+    // A baseline is read back by the next check: standard output keeps nothing (it printed the
+    // document, then "baseline - created", with exit 0).
+    if args.update && crate::output::is_stdout(&args.baseline) {
+        return Err(Error::Usage(format!(
+            "--baseline {} with --update: a baseline is read back by the next check, so it must \
+             be a file",
+            args.baseline.display()
+        )));
+    }
     // `--update` creates the baseline's missing folders, checks the path before comparing (so a
     // refused path prints no comparison), and removes the folders it made if it refuses.
     let inputs = [("the result document", args.result.as_path())];

@@ -370,6 +370,10 @@ fn data_common(o: &TwinOptions, t: &Table, table_rel: &str) -> String {
         }
     }
     s.push_str(&format!("train_size = {}\n", t.rows()));
+    s.push_str(&format!(
+        "table_digest = {}  # the table as read; `run` refuses this twin if the table changes\n",
+        toml_str(&t.digest())
+    ));
     s
 }
 

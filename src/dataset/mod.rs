@@ -241,6 +241,23 @@ impl Table {
         self.y.len()
     }
 
+    /// FNV-1a (64 bit) of the table as read: its shape, column names, class labels and target
+    /// name, and every input and response bit for bit (`fnv1a64:` and 16 hex digits). A run's
+    /// fingerprint and a twin's `table_digest` use it.
+    pub fn digest(&self) -> String {
+        let mut bytes: Vec<u8> = Vec::new();
+        bytes.extend_from_slice(&(self.x.nrows() as u64).to_le_bytes());
+        bytes.extend_from_slice(&(self.x.ncols() as u64).to_le_bytes());
+        for name in self.names.iter().chain(&self.labels).chain([&self.target]) {
+            bytes.extend_from_slice(name.as_bytes());
+            bytes.push(0);
+        }
+        for v in self.x.iter().chain(self.y.iter()) {
+            bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+        }
+        format!("fnv1a64:{:016x}", crate::codec::fnv1a64(&bytes))
+    }
+
     /// The rows `idx` as a new table (same columns and encodings).
     pub fn select(&self, idx: &[usize]) -> Table {
         Table {

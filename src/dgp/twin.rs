@@ -142,7 +142,11 @@ impl Jitter {
             hi.push(v[n - 1]);
             let mut distinct = v.clone();
             distinct.dedup();
-            let whole = v.iter().all(|a| a.fract() == 0.0);
+            // Every float beyond 2^53 is a whole number: such a column is measured, not
+            // counted (one of size 1e140 was resampled without jitter).
+            let whole = v
+                .iter()
+                .all(|a| a.fract() == 0.0 && a.abs() < 9_007_199_254_740_992.0);
             cont.push(!(whole || distinct.len() <= DISCRETE_LEVELS));
             let m = v.iter().sum::<f64>() / n as f64;
             let sd = if n > 1 {
@@ -976,6 +980,17 @@ impl FidelityModel {
 mod tests {
     use super::*;
     use rand::SeedableRng;
+
+    /// A measured column beyond 2^53 (every float there is whole) is jittered, and a column of
+    /// a few whole levels is not.
+    #[test]
+    fn huge_measured_columns_are_jittered_and_counts_are_not() {
+        let n = 60;
+        let huge = Array2::from_shape_fn((n, 1), |(i, _)| 1e140 * ((i * 37 % 61) as f64 / 61.0));
+        assert!(!Jitter::fit(huge.view(), 1.0).is_plain());
+        let levels = Array2::from_shape_fn((n, 1), |(i, _)| (i % 4) as f64);
+        assert!(Jitter::fit(levels.view(), 1.0).is_plain());
+    }
 
     #[test]
     fn the_varying_level_undoes_the_estimators_row_weights() {

@@ -1635,6 +1635,31 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
                     ),
                 ));
             }
+            // The function reads its inputs by position: inputs declared in another order,
+            // or under other names, changed the process silently and labelled the columns of
+            // `--points` wrongly.
+            if let Some(i) = (0..b.min_inputs()).find(|&i| inputs[i].name != format!("x{}", i + 1))
+            {
+                let span = d
+                    .inputs
+                    .as_ref()
+                    .and_then(|l| l.get(i))
+                    .map(|s| s.name.span());
+                return Err(cx.err(
+                    span,
+                    &format!("data.inputs[{i}].name"),
+                    format!(
+                        "{} reads its inputs by position as x1 … x{}, so they must come first \
+                         and in that order: input {} is `{}`, not `x{}` (or write the function \
+                         as a `formula` over your own names)",
+                        b.name(),
+                        b.min_inputs(),
+                        i + 1,
+                        crate::fmt::clip(&inputs[i].name, 60),
+                        i + 1
+                    ),
+                ));
+            }
             Truth::Builtin(b)
         }
         (None, None) => {

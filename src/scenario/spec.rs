@@ -348,6 +348,10 @@ pub struct DataSpec {
     /// × c; default 0: rows resampled as they are).
     #[serde(default)]
     pub jitter: Option<Spanned<f64>>,
+    /// Twin: the digest of the table the twin was fitted to ([`crate::dataset::Table::digest`]);
+    /// `run` refuses the twin when the table no longer gives it.
+    #[serde(default)]
+    pub table_digest: Option<Spanned<String>>,
     /// Twin: what `lossprism twin` measured (informational, echoed in results).
     #[serde(default)]
     pub fit_report: Option<Spanned<FitReportSpec>>,

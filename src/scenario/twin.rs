@@ -597,6 +597,24 @@ pub fn from_spec(
             ScenarioError::from(e)
         }
     })?;
+    // The table the twin was fitted to: a table changed since (rescaled, say) was refitted
+    // by the reference while the noise stayed as measured on the old one, with exit 0.
+    if let Some(want) = &d.table_digest {
+        let have = t.digest();
+        if want.get_ref() != &have {
+            return Err(err(
+                want.span(),
+                "data.table_digest",
+                format!(
+                    "{} is not the table this twin was fitted to (digest {have}, the twin's {}): \
+                     the reference would be refitted to it while the noise and the recommended \
+                     picks stay as measured on the old one; run `lossprism twin` on it again",
+                    table_path.display(),
+                    crate::fmt::clip(want.get_ref(), 40)
+                ),
+            ));
+        }
+    }
     let rows = t.rows();
     let classes = match t.task {
         Task::Classify { classes } => classes,
