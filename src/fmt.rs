@@ -67,6 +67,20 @@ pub fn fmt_exact(v: f64) -> String {
     }
 }
 
+/// A message with every number quoted in backticks that is longer than 24 characters written
+/// as [`fmt_exact`] writes it (a parser printed `replicates = 1e308` as 309 digits).
+pub fn shorten_quoted_numbers(message: &str) -> String {
+    message
+        .split('`')
+        .enumerate()
+        .map(|(i, part)| match part.parse::<f64>() {
+            Ok(v) if i % 2 == 1 && part.len() > 24 => fmt_exact(v),
+            _ => part.to_string(),
+        })
+        .collect::<Vec<_>>()
+        .join("`")
+}
+
 /// Shortens text quoted in a one-line message: at most `max` characters, then `…` and the full
 /// length (a 200 KB formula is never echoed whole). Line breaks become spaces.
 pub fn clip(s: &str, max: usize) -> String {

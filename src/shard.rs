@@ -915,8 +915,23 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         eval_seed: first.eval_seed,
     };
     let plan = source.plan(&opts).map_err(|e| {
+        // The scenario's files are read again, relative to where the shards ran.
+        let text = e.to_string();
+        let hint = if text.contains("cannot read") {
+            format!(
+                " (its files are read relative to {}, the scenario's folder as the shards \
+                 recorded it: run `merge` from the folder the shards ran in)",
+                if source.base.as_os_str().is_empty() {
+                    "the current folder".to_string()
+                } else {
+                    source.base.display().to_string()
+                }
+            )
+        } else {
+            String::new()
+        };
         refuse(format!(
-            "{}: its embedded scenario does not plan: {e}",
+            "{}: its embedded scenario does not plan: {text}{hint}",
             name(0)
         ))
     })?;

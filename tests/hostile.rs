@@ -352,6 +352,39 @@ fn scenario_cases(t: &mut Table) {
         "data.inputs[0].name",
     )
     .also("input 1 is `x5`, not `x1`");
+    // Words a sweep found unclear: a 309-digit number, a tab called "more than one line", and
+    // a mixed grid blamed on `count`.
+    t.scenario(
+        g,
+        "replicates 1e308",
+        &sc("replicates = 4", "replicates = 1e308"),
+        v,
+        "floating point `1e308`",
+    );
+    t.scenario(
+        g,
+        "name with a tab",
+        &sc("name = \"tiny\"", "name = \"ti\\tny\""),
+        v,
+        "holds the control character U+0009",
+    );
+    t.scenario(
+        g,
+        "name with a right-to-left override",
+        &sc("name = \"tiny\"", "name = \"ti\u{202e}ny\""),
+        v,
+        "holds the control character U+202E",
+    );
+    t.scenario(
+        g,
+        "grid mixing log and range keys",
+        &sc(
+            "grid = [1, 2]",
+            "grid = { from = 1, to = 4, step = 1, log = [1, 2] }",
+        ),
+        v,
+        "mix of `log` with `from`/`to`/`step`",
+    );
     t.scenario(
         g,
         "missing name",

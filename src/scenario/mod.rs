@@ -23,7 +23,8 @@ pub const DEFAULT_NAME: &str = "<embedded default: orchard-yield>";
 pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError> {
     toml::from_str::<spec::ScenarioSpec>(src).map_err(|e| {
         let line = e.span().map(|s| line_of(src, s.start));
-        let mut message = e.message().trim().replace('\n', " ");
+        let mut message =
+            crate::fmt::shorten_quoted_numbers(&e.message().trim().replace('\n', " "));
         if message.starts_with("number too large to fit in target type") {
             // The span holds only the first digit; say what the limit is instead.
             message = "number too large: whole numbers in a scenario go up to \

@@ -317,11 +317,25 @@ impl Plan {
         if name.is_empty() {
             return Err(cx.err(Some(name_spec.span()), "name", "must not be empty"));
         }
-        if name.chars().count() > 200 || name.chars().any(char::is_control) {
+        let chars = name.chars().count();
+        if chars > 200 {
             return Err(cx.err(
                 Some(name_spec.span()),
                 "name",
-                "must be one line of at most 200 characters",
+                format!("must be at most 200 characters; it has {chars}"),
+            ));
+        }
+        // Control characters, and the marks that reorder text on a terminal (a name with
+        // U+202E printed backwards in every report).
+        let reorders = |c: char| matches!(c, '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}');
+        if let Some(c) = name.chars().find(|&c| c.is_control() || reorders(c)) {
+            return Err(cx.err(
+                Some(name_spec.span()),
+                "name",
+                format!(
+                    "holds the control character U+{:04X}; a name is one line of printable text",
+                    c as u32
+                ),
             ));
         }
         let replicates = match (opts.replicates, &spec.replicates) {
@@ -1173,14 +1187,14 @@ fn expand_grid(
                 if pair.len() != 2 || !(pair[0] > 0.0 && pair[1] > pair[0] && pair[1].is_finite()) {
                     return Err(e("`log` must be [lo, hi] with 0 < lo < hi".into()));
                 }
-                let count = t.get("count").and_then(|c| c.as_integer()).unwrap_or(0);
-                if !(2..=10_000).contains(&count) {
-                    return Err(e("`count` must be a whole number from 2 to 10000".into()));
-                }
                 if t.contains_key("from") || t.contains_key("to") || t.contains_key("step") {
                     return Err(e(
                         "mix of `log` with `from`/`to`/`step`; use one form".into()
                     ));
+                }
+                let count = t.get("count").and_then(|c| c.as_integer()).unwrap_or(0);
+                if !(2..=10_000).contains(&count) {
+                    return Err(e("`count` must be a whole number from 2 to 10000".into()));
                 }
                 let (a, b) = (pair[0].ln(), pair[1].ln());
                 let n = count as usize;

@@ -232,7 +232,7 @@ impl Choice {
             .unwrap_or_default();
         let h = self
             .bandwidth
-            .map(|h| format!("bandwidth {h} sd"))
+            .map(|h| format!("bandwidth {} sd", crate::fmt::fmt_exact(h)))
             .unwrap_or_default();
         let plain = match self.family {
             Candidate::Knn => format!(
