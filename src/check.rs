@@ -440,6 +440,15 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
     // A table's noise is an estimate, which can be below 0 by sampling, but `run` refuses one
     // more than two standard errors and a tenth of the responses' variance below 0.
     if let Some(n) = &doc.noise_estimate {
+        if let Some(v) = n
+            .response_variance
+            .filter(|v| !(v.is_finite() && *v >= 0.0))
+        {
+            return Err(format!(
+                "`noise_estimate.response_variance` is {}, which a variance cannot be; {EDITED}",
+                crate::fmt::fmt_exact(v)
+            ));
+        }
         if crate::dataset::noise::clearly_negative(
             n.value,
             n.stderr.unwrap_or(f64::NAN),

@@ -122,9 +122,9 @@ impl ScenarioSource {
 /// version, resolved scenario echo, the scenario file's settings (parsed, so comments and layout
 /// do not count; `replicates` is taken after overrides; the file's own `seed` stays, since it
 /// places the evaluation points and a table's holdout even under `--seed`), the models (family,
-/// knob, grid bit patterns, fits, the content of the files an external estimator runs), the
-/// loss, seed and evaluation seed after overrides, replicates, blocks, and a digest of any data
-/// the plan read from files.
+/// knob, grid bit patterns, fits), the loss, seed and evaluation seed after overrides,
+/// replicates, blocks, and a digest of any data the plan read from files; then, after
+/// `+scripts:`, a digest of the scripts an external estimator runs, when it names any.
 pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let mut spec: toml::Table = text
         .parse()
@@ -135,24 +135,26 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
     let settings = serde_json::to_value(&spec).map_err(fail)?;
     let mut models: Vec<serde_json::Value> = Vec::with_capacity(plan.models.len());
     for m in &plan.models {
-        let mut model = serde_json::json!({
+        models.push(serde_json::json!({
             "family": m.family.name(),
             "knob": m.family.knob(),
             "grid": m.grid.iter().map(|v| format!("{:016x}", v.to_bits())).collect::<Vec<_>>(),
             "fit_seeds": m.fit_seeds,
-        });
-        // The files an external estimator runs, by content: a script edited between a stop
-        // and its resume, or between shards, was folded into one result with exit 0.
-        let files = m.family.input_files();
-        if !files.is_empty() {
-            let mut digests = Vec::with_capacity(files.len());
-            for f in &files {
-                let bytes = std::fs::read(f).map_err(|e| Error::io(f, &e))?;
-                digests.push(format!("{:016x}", fnv1a64(&bytes)));
-            }
-            model["files"] = serde_json::json!(digests);
+        }));
+    }
+    // The scripts an external estimator runs, by content, after the rest (`+scripts:`): a
+    // script edited between a stop and its resume, or between shards, was folded into one
+    // result with exit 0. Only words naming script files count ([`SCRIPT_EXTENSIONS`]): a log
+    // the estimator writes would change between shards, and an interpreter's path between
+    // machines. `merge` compares the parts' whole fingerprints with each other, and only the
+    // part before `+` with its own reading of the embedded scenario, so that parts merge
+    // where the scripts are not.
+    let mut scripts: Vec<u8> = Vec::new();
+    for m in &plan.models {
+        for f in m.family.input_files().into_iter().filter(|f| is_script(f)) {
+            let bytes = std::fs::read(&f).map_err(|e| Error::io(&f, &e))?;
+            scripts.extend_from_slice(&fnv1a64(&bytes).to_le_bytes());
         }
-        models.push(model);
     }
     let material = serde_json::json!({
         "format": PART_FORMAT,
@@ -168,7 +170,29 @@ pub fn fingerprint(plan: &Plan, text: &str) -> Result<String, Error> {
         "data": data_digest(plan),
     });
     let canonical = serde_json::to_string(&material).map_err(fail)?;
-    Ok(format!("fnv1a64:{:016x}", fnv1a64(canonical.as_bytes())))
+    let base = format!("fnv1a64:{:016x}", fnv1a64(canonical.as_bytes()));
+    Ok(if scripts.is_empty() {
+        base
+    } else {
+        format!("{base}+scripts:{:016x}", fnv1a64(&scripts))
+    })
+}
+
+/// The part of a fingerprint before an external estimator's scripts ([`fingerprint`]).
+fn without_scripts(fp: &str) -> &str {
+    fp.split_once("+scripts:").map_or(fp, |(base, _)| base)
+}
+
+/// File name endings of the scripts whose content a run's fingerprint covers when an external
+/// estimator's `command` names them.
+pub const SCRIPT_EXTENSIONS: [&str; 10] =
+    ["py", "r", "jl", "sh", "pl", "rb", "js", "m", "lua", "awk"];
+
+/// `true` when `f` ends in one of [`SCRIPT_EXTENSIONS`] (any case).
+fn is_script(f: &Path) -> bool {
+    f.extension()
+        .and_then(|e| e.to_str())
+        .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
 }
 
 /// FNV-1a digest of the data a plan read from files (a table's or a twin's shape, names, labels,
@@ -579,6 +603,8 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
         format!("lossprism version {} vs {}", a.version, b.version)
     } else if a.scenario_text != b.scenario_text {
         "scenario settings (the grid or other keys) differ".into()
+    } else if without_scripts(&a.fingerprint) == without_scripts(&b.fingerprint) {
+        "an external estimator's script differs between them (its content)".into()
     } else if a.fingerprint != b.fingerprint {
         format!("fingerprint {} vs {}", a.fingerprint, b.fingerprint)
     } else {
@@ -935,8 +961,9 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
             name(0)
         ))
     })?;
+    // The scripts need not be here: the parts agree on them (compared above).
     let fp = fingerprint(&plan, &source.text)?;
-    if fp != first.fingerprint || plan.blocks != first.blocks {
+    if without_scripts(&fp) != without_scripts(&first.fingerprint) || plan.blocks != first.blocks {
         let why = if first.version != VERSION {
             format!(
                 "it was written by lossprism {}, this is {VERSION}",
@@ -1017,7 +1044,7 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         Completed {
             prepared,
             blocks,
-            fingerprint: fp,
+            fingerprint: first.fingerprint.clone(),
             resumed: 0,
         },
         1,

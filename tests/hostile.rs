@@ -1982,6 +1982,27 @@ fn csv_cases(t: &mut Table) {
         "",
         "t.csv:6: column `note`: holds a line break",
     );
+    // `-` for a missing value in most cells: read as text, every number became a category.
+    t.table(
+        "a number column with a word for missing",
+        {
+            let mut rows = String::from("a,b,y\n");
+            for (i, l) in good.lines().skip(1).enumerate() {
+                let (a, rest) = l.split_once(',').unwrap();
+                let (_, y) = rest.split_once(',').unwrap();
+                let b = if i % 3 == 0 {
+                    format!("{}", i % 7)
+                } else {
+                    "-".into()
+                };
+                rows.push_str(&format!("{a},{b},{y}\n"));
+            }
+            rows
+        }
+        .as_bytes(),
+        "",
+        "t.csv:3: column `b`: 7 of its 8 distinct values are numbers, beside the text `-`",
+    );
     t.table("binary table", b"a,b,y\n\x00\x01\x02,1,2\n", "", "t.csv");
     t.table(
         "not UTF-8",

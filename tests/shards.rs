@@ -795,4 +795,12 @@ fn the_fingerprint_covers_an_external_estimators_script() {
     let b = print();
     assert_eq!(a, again);
     assert_ne!(a, b);
+    // Only the scripts: the part before them is the run's, which `merge` checks against its
+    // own reading of the embedded scenario where the scripts may be absent.
+    assert_eq!(
+        a.split_once("+scripts:").unwrap().0,
+        b.split_once("+scripts:").unwrap().0
+    );
+    fs::remove_file(d.join("m.py")).unwrap();
+    assert_eq!(print(), a.split_once("+scripts:").unwrap().0);
 }

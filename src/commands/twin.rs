@@ -1447,26 +1447,39 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                         o.table.display()
                     )));
                 }
-                // A twin's noise must be told apart from both 0 and the responses' whole
-                // variance. A table without noise gives an estimate near 0 with a small
-                // standard error, and its twin has almost no noise, rightly; an estimate within
-                // two standard errors of 0 whose standard error is beyond a tenth of the
-                // responses' variance says nothing (40 rows of pure noise on 100 inputs: raw
-                // -0.78 ± 0.74 against a variance of 0.73 wrote sd = 0, and the twin's expected
-                // losses were 0.02-0.03 against at least 0.73; on 30 inputs 0.014 ± 0.45
-                // against 1.1).
+                // A twin's noise must be told apart from 0. A table without noise gives an
+                // estimate near 0 with a small standard error, and its twin has almost no noise,
+                // rightly; a small estimate (below a tenth of the responses' variance) whose
+                // standard error is larger than that says nothing (40 rows of pure noise on 100
+                // inputs: raw -0.78 ± 0.74 against a variance of 0.73 wrote sd = 0, and the
+                // twin's expected losses were 0.02-0.03 against at least 0.73; on 30 inputs
+                // 0.014 ± 0.45 against 1.1). A larger estimate with a large standard error is a
+                // small table's honest uncertainty, and is written as before.
+                // And the twin must then also fail to hold the table's spread: its truth's
+                // variance at the rows plus its noise below half the responses' variance (a
+                // table without noise whose reference fits it holds nearly all of it).
                 let var = crate::dataset::noise::response_variance(t.y.view());
                 let share = crate::dataset::noise::NEGATIVE_SHARE * var;
-                let uninformative = (n.value < 2.0 * n.se && n.se > share)
+                let uninformative = (n.value < share && n.value < 2.0 * n.se && n.se > share)
                     || (n.floored && (n.raw_se > share || n.raw_se.is_nan()));
-                if uninformative {
+                let held = crate::dataset::noise::response_variance(ndarray::ArrayView1::from(
+                    &fit.f_rows[..],
+                )) + n.value.max(0.0);
+                if uninformative && held < 0.5 * var {
+                    let p = t.x.ncols();
+                    let advice = if p > 1 {
+                        "leave inputs out (--features), add rows, or pass"
+                    } else {
+                        "add rows, or pass"
+                    };
                     return Err(Error::Usage(format!(
                         "{}: the noise cannot be measured on this table: the estimate ({}) is \
-                         {} ± {} (raw {} ± {}) against the responses' variance {}, which cannot \
-                         tell a twin without noise from one of noise alone; with {} rows for {} \
-                         inputs the neighbours may be too far apart: leave inputs out \
-                         (--features), add rows, or pass --noise-estimator nn (never negative; \
-                         biased up by the reference's change between neighbours)",
+                         {} ± {} (raw {} ± {}), below a tenth of the responses' variance {} and \
+                         less precise than that, and with it the twin would hold {} of that \
+                         variance (its truth's at the rows plus its noise); with {} rows for {} \
+                         the neighbours may be too far apart: {advice} --noise-estimator nn \
+                         (never negative; biased up by the reference's change between \
+                         neighbours)",
                         o.table.display(),
                         n.method.name(),
                         fmt_num(n.value),
@@ -1474,8 +1487,13 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                         fmt_num(n.raw),
                         fmt_num(n.raw_se),
                         fmt_num(var),
+                        fmt_num(held),
                         t.rows(),
-                        t.input_count_words()
+                        if p == 1 {
+                            "1 input".to_string()
+                        } else {
+                            format!("{} inputs", t.input_count_words())
+                        }
                     )));
                 }
             }

@@ -692,11 +692,17 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         }
         // A quote left open in a column the run does not use swallows the records after it
         // into one cell with the right field count (exit 0 with rows lost): a cell holding
-        // a line that reads as a record is refused in every column.
+        // a line that reads as a record is refused in every column. A line reads as a record
+        // when it has the header's field count, every column the run uses is filled, and one
+        // of them at least is a number (a quoted address over two lines is not refused).
         let looks_like_record = |cell: &str| {
-            cell.split(['\n', '\r'])
-                .skip(1)
-                .any(|l| l.matches(',').count() + 1 >= header.len())
+            cell.split(['\n', '\r']).skip(1).any(|l| {
+                let fields: Vec<&str> = l.split(',').map(str::trim).collect();
+                let used = || feature_cols.iter().chain([&target_col]).map(|&c| fields[c]);
+                fields.len() == header.len()
+                    && used().all(|f| !f.is_empty())
+                    && used().any(|f| number(f).is_some())
+            })
         };
         if let Some(c) = rec.iter().position(looks_like_record) {
             return Err(err(
@@ -857,6 +863,36 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                     }
                     levels.push(v.to_string());
                 }
+            }
+            // Mostly numbers beside a word: the word is likely a missing-value marker (`-`,
+            // `n/a`, `missing`), and read as text every number became a category of its own,
+            // with exit 0.
+            let numeric_levels = levels.iter().filter(|l| number(l).is_some()).count();
+            if levels.len() >= 3 && 2 * numeric_levels > levels.len() {
+                let word = levels
+                    .iter()
+                    .filter(|l| number(l).is_none())
+                    .max_by_key(|l| rows.iter().filter(|&&r| &cells[r][c] == l.as_str()).count())
+                    .cloned()
+                    .unwrap_or_default();
+                let first = rows
+                    .iter()
+                    .find(|&&r| cells[r][c] == word)
+                    .map(|&r| lines[r]);
+                return Err(err(
+                    first,
+                    Some(&header[c]),
+                    format!(
+                        "{numeric_levels} of its {} distinct values are numbers, beside the text \
+                         `{}`: read as a text column, each number would be a category of its \
+                         own. If `{}` marks a missing value, write it as an empty cell or NA \
+                         (and set `missing = \"drop\"`); otherwise leave the column out of \
+                         `features`",
+                        levels.len(),
+                        crate::fmt::clip(&word, 40),
+                        crate::fmt::clip(&word, 40)
+                    ),
+                ));
             }
             for l in &levels[1..] {
                 names.push(format!("{}={l}", header[c]));
@@ -1123,6 +1159,9 @@ pub struct TablePlan {
     pub work: Vec<usize>,
     /// Noise estimator.
     pub noise_method: noise::Method,
+    /// `true` when the scenario named the estimator (`noise_estimator`); the default may give
+    /// way to nearest-neighbour differences where it reads a clearly negative variance.
+    pub noise_named: bool,
     /// Several training sizes (a learning curve): each replicate draws a random order of the
     /// working rows; size n trains on the first n rows and is evaluated on the rest.
     pub sizes: Option<Vec<usize>>,
@@ -1262,6 +1301,7 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
         holdout,
         work,
         noise_method,
+        noise_named: req.noise_method.is_some(),
         sizes: None,
     })
 }

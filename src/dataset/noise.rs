@@ -163,16 +163,10 @@ pub fn negative_refusal(
     ))
 }
 
-/// Why a table's noise estimate came out negative (only the Gamma test's intercept can), in words
-/// to add to the refusal: the input value furthest from its column's median in robust standard
-/// deviations (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than
-/// 10 of them away, with its line (`lines`, 1-based, when known); and how many rows repeat
-/// another row's inputs. Empty when neither shows.
-pub fn negative_estimate_causes(
-    x: ArrayView2<'_, f64>,
-    names: &[String],
-    lines: Option<&[usize]>,
-) -> String {
+/// The input value furthest from its column's median in robust standard deviations
+/// (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than 10 of them
+/// away: (robust distance, column, row).
+pub fn far_input(x: ArrayView2<'_, f64>) -> Option<(f64, usize, usize)> {
     let median = |v: &mut Vec<f64>| -> f64 {
         v.sort_by(f64::total_cmp);
         let n = v.len();
@@ -182,7 +176,7 @@ pub fn negative_estimate_causes(
             0.5 * (v[n / 2 - 1] + v[n / 2])
         }
     };
-    let mut worst: Option<(f64, usize, usize)> = None; // (robust z, column, row)
+    let mut worst: Option<(f64, usize, usize)> = None;
     for (j, col) in x.columns().into_iter().enumerate() {
         if col.is_empty() {
             continue;
@@ -201,6 +195,20 @@ pub fn negative_estimate_causes(
             }
         }
     }
+    worst
+}
+
+/// Why a table's noise estimate came out negative (only the Gamma test's intercept can), in words
+/// to add to the refusal: the input value furthest from its column's median in robust standard
+/// deviations (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than
+/// 10 of them away, with its line (`lines`, 1-based, when known); and how many rows repeat
+/// another row's inputs. Empty when neither shows.
+pub fn negative_estimate_causes(
+    x: ArrayView2<'_, f64>,
+    names: &[String],
+    lines: Option<&[usize]>,
+) -> String {
+    let worst = far_input(x);
     let mut causes = Vec::new();
     if let Some((z, j, i)) = worst {
         let name = names.get(j).map_or("?", String::as_str);
