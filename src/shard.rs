@@ -184,15 +184,25 @@ fn without_scripts(fp: &str) -> &str {
 }
 
 /// File name endings of the scripts whose content a run's fingerprint covers when an external
-/// estimator's `command` names them.
+/// estimator's `command` names them (with files that start with `#!`).
 pub const SCRIPT_EXTENSIONS: [&str; 10] =
     ["py", "r", "jl", "sh", "pl", "rb", "js", "m", "lua", "awk"];
 
-/// `true` when `f` ends in one of [`SCRIPT_EXTENSIONS`] (any case).
+/// `true` when `f` ends in one of [`SCRIPT_EXTENSIONS`] (any case) or starts with `#!` (an
+/// executable script without an extension); a compiled program or an interpreter is not a
+/// script here (its path and build differ between machines).
 fn is_script(f: &Path) -> bool {
-    f.extension()
+    let by_name = f
+        .extension()
         .and_then(|e| e.to_str())
-        .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
+        .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()));
+    by_name || {
+        use std::io::Read;
+        let mut head = [0u8; 2];
+        std::fs::File::open(f)
+            .and_then(|mut h| h.read_exact(&mut head))
+            .is_ok_and(|_| &head == b"#!")
+    }
 }
 
 /// FNV-1a digest of the data a plan read from files (a table's or a twin's shape, names, labels,

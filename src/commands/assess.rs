@@ -19,10 +19,23 @@ use crate::scenario::{Plan, Source};
 /// every other output off a ledger).
 pub const LEDGER_FORMAT: &str = "lossprism-holdout-ledger/1";
 
-/// The ledger file of a scenario: `<folder>/<stem>.holdout-ledger.json`, beside the scenario
-/// as named (as its data paths are resolved; a ledger is kept from every other output by its
-/// content, see [`crate::output::LEDGER_TAG`]).
+/// The ledger file of a scenario: `<folder>/<stem>.holdout-ledger.json`. A ledger beside the
+/// scenario as named is used when there is one; otherwise the ledger is beside the file the
+/// name resolves to (symbolic links followed), so a scenario reached through a link shares the
+/// count of the file it points to (it counted from 1 again). A ledger is kept from every other
+/// output by its content ([`crate::output::LEDGER_TAG`]).
 pub fn ledger_path(scenario: &Path) -> PathBuf {
+    let named = beside(scenario);
+    if named.exists() {
+        return named;
+    }
+    std::fs::canonicalize(scenario)
+        .map(|p| beside(&p))
+        .unwrap_or(named)
+}
+
+/// `<folder>/<stem>.holdout-ledger.json` of a path as it is.
+fn beside(scenario: &Path) -> PathBuf {
     let stem = scenario
         .file_stem()
         .map(|s| s.to_string_lossy().into_owned())
@@ -265,12 +278,23 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
 mod tests {
     use super::*;
 
-    /// The ledger sits beside the scenario as named, and its format tag is the one `output`
-    /// keeps every other output off.
+    /// A scenario named through a symbolic link shares the ledger of the file it points to,
+    /// unless a ledger already sits beside the link (kept, so its count goes on); the ledger's
+    /// format tag is the one `output` keeps every other output off.
     #[test]
-    fn the_ledger_is_beside_the_scenario_and_carries_the_protected_tag() {
-        let p = Path::new("runs/s.toml");
-        assert_eq!(ledger_path(p), Path::new("runs/s.holdout-ledger.json"));
+    fn a_linked_scenario_shares_its_ledger_and_an_existing_one_is_kept() {
+        let d = tempfile::tempdir().unwrap();
+        let s = d.path().join("s.toml");
+        std::fs::write(&s, "name = \"x\"\n").unwrap();
+        let link = d.path().join("link.toml");
+        std::os::unix::fs::symlink(&s, &link).unwrap();
+        let canonical = std::fs::canonicalize(&s).unwrap();
+        assert_eq!(ledger_path(&link), beside(&canonical));
+        std::fs::write(d.path().join("link.holdout-ledger.json"), "{}").unwrap();
+        assert_eq!(
+            ledger_path(&link),
+            d.path().join("link.holdout-ledger.json")
+        );
         assert!(LEDGER_FORMAT.starts_with(crate::output::LEDGER_TAG));
     }
 }

@@ -68,6 +68,13 @@ pub const MAX_COLUMNS: usize = 100_000;
 /// Cell spellings read as missing.
 pub const MISSING_SPELLINGS: [&str; 6] = ["NA", "N/A", "NaN", "nan", "null", "?"];
 
+/// Words that, beside mostly numeric values in a column, read as a missing-value marker (lower
+/// case; common spellings, no source): such a column is refused rather than read as text.
+const MISSING_LIKE: [&str; 14] = [
+    "-", "--", "---", ".", "n/a", "na", "n.a.", "none", "missing", "unknown", "nil", "#n/a", "nd",
+    "n.d.",
+];
+
 /// What to do with a row whose numeric cell is missing or not a number.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum Missing {
@@ -867,14 +874,17 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             // Mostly numbers beside a word: the word is likely a missing-value marker (`-`,
             // `n/a`, `missing`), and read as text every number became a category of its own,
             // with exit 0.
+            // Only a word that reads as a missing value counts: a real category beside a few
+            // numeric levels (`ground`, `1`, `2` floors) is read as text, as before.
             let numeric_levels = levels.iter().filter(|l| number(l).is_some()).count();
-            if levels.len() >= 3 && 2 * numeric_levels > levels.len() {
-                let word = levels
-                    .iter()
-                    .filter(|l| number(l).is_none())
-                    .max_by_key(|l| rows.iter().filter(|&&r| &cells[r][c] == l.as_str()).count())
-                    .cloned()
-                    .unwrap_or_default();
+            let missing_word = levels
+                .iter()
+                .find(|l| MISSING_LIKE.contains(&l.to_ascii_lowercase().as_str()));
+            if let (true, Some(word)) = (
+                levels.len() >= 3 && 2 * numeric_levels > levels.len(),
+                missing_word,
+            ) {
+                let word = word.clone();
                 let first = rows
                     .iter()
                     .find(|&&r| cells[r][c] == word)
@@ -886,8 +896,8 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                         "{numeric_levels} of its {} distinct values are numbers, beside the text \
                          `{}`: read as a text column, each number would be a category of its \
                          own. If `{}` marks a missing value, write it as an empty cell or NA \
-                         (and set `missing = \"drop\"`); otherwise leave the column out of \
-                         `features`",
+                         (and set `missing = \"drop\"`); if the numbers are category codes, spell \
+                         them as words (`c1`, `c2`, …); or leave the column out of `features`",
                         levels.len(),
                         crate::fmt::clip(&word, 40),
                         crate::fmt::clip(&word, 40)
@@ -1159,9 +1169,6 @@ pub struct TablePlan {
     pub work: Vec<usize>,
     /// Noise estimator.
     pub noise_method: noise::Method,
-    /// `true` when the scenario named the estimator (`noise_estimator`); the default may give
-    /// way to nearest-neighbour differences where it reads a clearly negative variance.
-    pub noise_named: bool,
     /// Several training sizes (a learning curve): each replicate draws a random order of the
     /// working rows; size n trains on the first n rows and is evaluated on the rest.
     pub sizes: Option<Vec<usize>>,
@@ -1301,7 +1308,6 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
         holdout,
         work,
         noise_method,
-        noise_named: req.noise_method.is_some(),
         sizes: None,
     })
 }

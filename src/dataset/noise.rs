@@ -163,10 +163,12 @@ pub fn negative_refusal(
     ))
 }
 
-/// The input value furthest from its column's median in robust standard deviations
-/// (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than 10 of them
-/// away: (robust distance, column, row).
+/// The input value furthest from its column's median in robust spreads, when it is more than 10
+/// of them away: (robust distance, column, row). The spread is `1.4826 × MAD` (a
+/// normal-consistent scale; common practice), or, when more than half the column is one value,
+/// the range of the other values without the furthest one.
 pub fn far_input(x: ArrayView2<'_, f64>) -> Option<(f64, usize, usize)> {
+    let dev_of = |a: f64, med: f64| (a - med).abs();
     let median = |v: &mut Vec<f64>| -> f64 {
         v.sort_by(f64::total_cmp);
         let n = v.len();
@@ -184,9 +186,28 @@ pub fn far_input(x: ArrayView2<'_, f64>) -> Option<(f64, usize, usize)> {
         let mut v: Vec<f64> = col.to_vec();
         let med = median(&mut v);
         let mut dev: Vec<f64> = col.iter().map(|a| (a - med).abs()).collect();
-        let scale = 1.4826 * median(&mut dev);
-        if scale.is_nan() || scale <= 0.0 {
+        let mut scale = 1.4826 * median(&mut dev);
+        if scale.is_nan() {
             continue;
+        }
+        if scale <= 0.0 {
+            // More than half the column is one value (a 0/1 indicator, say): the spread of the
+            // other values stands in, without the furthest one (a 0/1 column with one 100
+            // was skipped, so its typo read as a lattice).
+            let far =
+                (0..col.len()).max_by(|&a, &b| dev_of(col[a], med).total_cmp(&dev_of(col[b], med)));
+            let Some(far) = far else { continue };
+            let (lo, hi) = col
+                .iter()
+                .enumerate()
+                .filter(|&(i, _)| i != far)
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), (_, &a)| {
+                    (lo.min(a), hi.max(a))
+                });
+            scale = hi - lo;
+            if !(scale > 0.0 && scale.is_finite()) {
+                continue;
+            }
         }
         for (i, a) in col.iter().enumerate() {
             let z = (a - med).abs() / scale;
@@ -199,10 +220,9 @@ pub fn far_input(x: ArrayView2<'_, f64>) -> Option<(f64, usize, usize)> {
 }
 
 /// Why a table's noise estimate came out negative (only the Gamma test's intercept can), in words
-/// to add to the refusal: the input value furthest from its column's median in robust standard
-/// deviations (`1.4826 × MAD`, a normal-consistent scale; common practice), when it is more than
-/// 10 of them away, with its line (`lines`, 1-based, when known); and how many rows repeat
-/// another row's inputs. Empty when neither shows.
+/// to add to the refusal: the input value furthest from its column's median ([`far_input`]),
+/// with its line (`lines`, 1-based, when known), or else that lattices and few groups do it; and
+/// how many rows repeat another row's inputs.
 pub fn negative_estimate_causes(
     x: ArrayView2<'_, f64>,
     names: &[String],
@@ -216,8 +236,8 @@ pub fn negative_estimate_causes(
             .and_then(|l| l.get(i))
             .map_or(format!("row {}", i + 1), |l| format!("line {l}"));
         causes.push(format!(
-            "column `{name}` holds {} on {at}, {} robust standard deviations from its median: \
-             a mistyped value?",
+            "column `{name}` holds {} on {at}, {} robust spreads from its median: a mistyped \
+             value?",
             crate::fmt::fmt_exact(x[[i, j]]),
             crate::fmt::fmt_num(z)
         ));
@@ -229,7 +249,23 @@ pub fn negative_estimate_causes(
         .filter(|r| !seen.insert(r.iter().map(|v| v.to_bits()).collect::<Vec<u64>>()))
         .count();
     if repeats > 0 {
-        causes.push(format!("{repeats} rows repeat another row's inputs"));
+        causes.push(format!(
+            "{repeats} {} another row's inputs",
+            if repeats == 1 {
+                "row repeats"
+            } else {
+                "rows repeat"
+            }
+        ));
+    }
+    if worst.is_none() {
+        // Nothing far out: lattice designs and few groups do it (up to -52% of the responses'
+        // variance on 40 points of a two-level design of 6 inputs, with little noise).
+        causes.push(
+            "no input value lies far out: inputs on a lattice or in a few groups make the Gamma \
+             test fall below 0 on tables with little noise, where `nn` or `plane` estimate it"
+                .into(),
+        );
     }
     if causes.is_empty() {
         String::new()

@@ -1541,10 +1541,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             about: n.method.describe().into(),
             response_variance: finite(crate::dataset::noise::response_variance(run.work.y.view())),
         });
-        scheme_note = Some(match &run.noise_note {
-            Some(n) => format!("{} {n}", tp.note()),
-            None => tp.note(),
-        });
+        scheme_note = Some(tp.note());
     }
     let models = if nm > 1 {
         plan.models

@@ -49,8 +49,6 @@ pub struct TableRun {
     pub work: Table,
     /// The noise-variance estimate on the working rows (regression only).
     pub noise: Option<NoiseEstimate>,
-    /// Why the estimate is not the scenario's default estimator's, when it gave way.
-    pub noise_note: Option<String>,
 }
 
 impl Prepared {
@@ -222,13 +220,12 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
             let m = work.rows();
             // The Gaussian noise-variance estimate splits the squared loss's bias²+noise; a loss
             // on counts folds the noise into the bias instead.
-            let mut noise = match plan.task {
+            let noise = match plan.task {
                 Task::Regress if !plan.loss.count_responses() => {
                     noise::estimate(t.noise_method, work.x.view(), work.y.view())
                 }
                 _ => None,
             };
-            let mut noise_note = None;
             // A variance is never negative; the Gamma test's intercept can be. Within two
             // standard errors or a tenth of the responses' variance of 0 that is sampling (a
             // table with little or no noise: the estimate and its standard error are reported
@@ -236,7 +233,7 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
             // table is not a smooth function plus noise at the neighbours' scale (one mistyped
             // input value or repeated inputs do it), and the bias² it would give is not to be
             // believed.
-            if let Some(n) = noise {
+            if let Some(n) = noise.as_ref() {
                 if let Some(why) = noise::negative_refusal(
                     n.method,
                     n.value,
@@ -246,31 +243,11 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                     &work.names,
                     &work.lines,
                 ) {
-                    // No input value far out: inputs on a lattice, or in a few groups, make
-                    // the Gamma test's intercept fall below 0 on tables with little noise (up
-                    // to -52% of the responses' variance on a 2-level design of 6 inputs); the
-                    // default then gives way to nearest-neighbour differences, which are never
-                    // negative. A far value (a mistyped input?) or a named estimator is refused.
-                    if t.noise_named || noise::far_input(work.x.view()).is_some() {
-                        return Err(Error::Data(format!(
-                            "{}: {why}; fix the table, or set `noise_estimator = \"nn\"` or \
-                             `\"plane\"` in [data] (never negative)",
-                            t.table.path.display()
-                        )));
-                    }
-                    noise = noise::estimate(
-                        noise::Method::NearestNeighbour,
-                        work.x.view(),
-                        work.y.view(),
-                    );
-                    noise_note = Some(format!(
-                        "The noise is estimated by nearest-neighbour differences: the Gamma test \
-                         read {} ± {}, a variance below 0 (inputs on a lattice or in a few groups \
-                         do it on tables with little noise); nearest-neighbour differences are \
-                         never negative, and biased up by the truth's change between neighbours.",
-                        crate::fmt::fmt_num(n.value),
-                        crate::fmt::fmt_num(n.stderr)
-                    ));
+                    return Err(Error::Data(format!(
+                        "{}: {why}; fix the table, or set `noise_estimator = \"nn\"` or \
+                         `\"plane\"` in [data] (never negative)",
+                        t.table.path.display()
+                    )));
                 }
             }
             return Ok(Prepared {
@@ -280,11 +257,7 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                 eval_probs: None,
                 fixed: None,
                 fixed_probs: None,
-                table: Some(TableRun {
-                    work,
-                    noise,
-                    noise_note,
-                }),
+                table: Some(TableRun { work, noise }),
             });
         }
     };
