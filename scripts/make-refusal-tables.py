@@ -1,6 +1,6 @@
 #!/usr/bin/env python3
 """Invented tables for the noise-refusal study (docs/noise-refusals.md): y = f(x) + Gaussian noise, f an invented smooth or stepped function. Standard library only.
-usage: gen.py OUT.csv n p share fkind xkind seed
+usage: make-refusal-tables.py OUT.csv n p share fkind xkind seed
   fkind: smooth | step | const (y = noise only, f = 0)
   xkind: uniform | grid (full-factorial lattice, no repeated inputs) | lattice5 (5 levels, repeats)
          | int (integers 0..20) | cat (last input is text with 3 levels) | mistype (uniform, one value x1 *1000)
