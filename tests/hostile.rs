@@ -1399,15 +1399,17 @@ fn formula_cases(t: &mut Table) {
         "truth 1e200*x",
         &with_formula("1e200*x"),
         v,
-        "s.toml: the responses reach",
+        "s.toml: the responses (the truth, [data.truth]) reach",
     )
     .also("so their squares overflow; rescale");
+
     t.scenario(
         g,
         "noise sd 1e200",
         &sc("sd = 1.0", "sd = 1e200"),
         v,
-        "s.toml: the responses reach 1.0e200 in size",
+        // The key that makes them large is named (it named none).
+        "s.toml: the responses (the noise's standard deviation, [data.noise]) reach 1.0e200 in size",
     )
     .also("rescale");
     // Mean counts of 1e15 under the Poisson deviance: its terms lost their digits and a
@@ -1625,7 +1627,7 @@ fn csv_cases(t: &mut Table) {
         "audit of a run whose responses overflow names the file",
         &[("s.toml", overflow_audit.as_bytes())],
         &["run", "s.toml", "--out", "r.json"],
-        "s.toml: the responses reach",
+        "s.toml: the responses (",
     );
     t.table("blank file", b"\n\n  \n", "", "the file is empty");
     t.table("header only", b"a,b,y\n", "", "no data rows");

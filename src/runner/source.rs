@@ -159,7 +159,14 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
         .chain(p.eval_sd.iter())
         .fold(0.0_f64, |a, v| a.max(v.abs()));
     if big > RESPONSE_MAX || !big.is_finite() {
-        let whose = target_column(plan).map_or(String::new(), |c| format!(" ({c})"));
+        // A synthetic source names the key that makes them large (`sd = 1e152` named none).
+        let truth_big = p.eval_truth.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+        let key = if truth_big >= big || truth_big.is_nan() {
+            " (the truth, [data.truth])"
+        } else {
+            " (the noise's standard deviation, [data.noise])"
+        };
+        let whose = target_column(plan).map_or(key.to_string(), |c| format!(" ({c})"));
         return Err(Error::Data(format!(
             "the responses{whose} reach {big:.1e} in size, so their squares overflow; rescale \
              the response (for example divide it by a power of ten)"
