@@ -1951,36 +1951,28 @@ fn csv_cases(t: &mut Table) {
         "",
         "a quote `\"` left open runs on",
     );
+    // `good` with a text column `note` before `y`: "fine" on every row but the fifth (line 6),
+    // which holds `note` as written.
+    let with_note = |note: &str| -> String {
+        let mut rows = String::from("a,b,note,y\n");
+        for (i, l) in good.lines().skip(1).enumerate() {
+            let (head, last) = l.rsplit_once(',').unwrap();
+            let cell = if i == 4 { note } else { "fine" };
+            rows.push_str(&format!("{head},{cell},{last}\n"));
+        }
+        rows
+    };
     // In a column the run does not read, the open quote swallowed 7 of 30 rows with exit 0.
     t.table(
         "a quote left open in a column left out",
-        {
-            let mut rows = String::from("a,b,note,y\n");
-            for (i, l) in good.lines().skip(1).enumerate() {
-                let (head, last) = l.rsplit_once(',').unwrap();
-                let note = if i == 4 { "\"left open" } else { "fine" };
-                rows.push_str(&format!("{head},{note},{last}\n"));
-            }
-            rows.push_str("1,2,x\",3\n");
-            rows
-        }
-        .as_bytes(),
+        (with_note("\"left open") + "1,2,x\",3\n").as_bytes(),
         "features = [\"a\", \"b\"]",
         "t.csv:6: column `note`: holds lines that read as records",
     );
     // A quoted text cell that spans two lines, in a column the run reads.
     t.table(
         "a text cell over two lines",
-        {
-            let mut rows = String::from("a,b,note,y\n");
-            for (i, l) in good.lines().skip(1).enumerate() {
-                let (head, last) = l.rsplit_once(',').unwrap();
-                let note = if i == 4 { "\"two\nlines\"" } else { "fine" };
-                rows.push_str(&format!("{head},{note},{last}\n"));
-            }
-            rows
-        }
-        .as_bytes(),
+        with_note("\"two\nlines\"").as_bytes(),
         "",
         "t.csv:6: column `note`: holds a line break",
     );

@@ -643,6 +643,13 @@ fn run_in(dir: &Path, args: &[&str]) -> Output {
     bin().current_dir(dir).args(args).output().expect("runs")
 }
 
+/// `run s.toml --out r.json` in `dir`, which must exit 0, and the result document it wrote.
+fn run_doc(dir: &Path) -> serde_json::Value {
+    let o = run_in(dir, &["run", "s.toml", "--out", "r.json"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    serde_json::from_str(&fs::read_to_string(dir.join("r.json")).unwrap()).unwrap()
+}
+
 fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()
 }
@@ -928,6 +935,18 @@ fn dropped_repeats_are_counted_in_every_output() {
     assert!(doc["table"].get("repeats_dropped").is_none());
 }
 
+/// A noise-free table y = a + 2b of `rows` rows, with a = (i·m mod p)/p for `a = (m, p)`
+/// and b likewise (points on a lattice, none repeated while i < p).
+fn noise_free_plane(rows: usize, a: (usize, usize), b: (usize, usize)) -> String {
+    let mut csv = String::from("a,b,y\n");
+    for i in 0..rows {
+        let x = (i * a.0 % a.1) as f64 / a.1 as f64;
+        let z = (i * b.0 % b.1) as f64 / b.1 as f64;
+        csv.push_str(&format!("{x},{z},{}\n", x + 2.0 * z));
+    }
+    csv
+}
+
 /// A table with no noise at all (y = a + 2b): the Gamma test's intercept lands a little below 0
 /// by sampling, and the run goes on with the estimate and its standard error as they are (a
 /// refusal of every negative estimate refused such tables with "fix the table"). Only an
@@ -936,18 +955,13 @@ fn dropped_repeats_are_counted_in_every_output() {
 #[test]
 fn noise_free_tables_run_with_a_small_negative_estimate() {
     let dir = tmp();
-    let mut csv = String::from("a,b,y\n");
-    for i in 0..200 {
-        let a = (i * 37 % 101) as f64 / 101.0;
-        let b = (i * 53 % 97) as f64 / 97.0;
-        csv.push_str(&format!("{a},{b},{}\n", a + 2.0 * b));
-    }
-    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    fs::write(
+        dir.path().join("d.csv"),
+        noise_free_plane(200, (37, 101), (53, 97)),
+    )
+    .unwrap();
     fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
-    let o = run_in(dir.path(), &["run", "s.toml", "--out", "r.json"]);
-    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
-    let doc: serde_json::Value =
-        serde_json::from_str(&fs::read_to_string(dir.path().join("r.json")).unwrap()).unwrap();
+    let doc = run_doc(dir.path());
     let n = &doc["noise_estimate"];
     let (v, se) = (n["value"].as_f64().unwrap(), n["stderr"].as_f64().unwrap());
     // The case this test is about: below 0, within two standard errors of it.
@@ -975,18 +989,13 @@ fn noise_free_tables_run_with_a_small_negative_estimate() {
 #[test]
 fn a_noise_free_table_beyond_two_standard_errors_runs_when_the_estimate_is_small() {
     let dir = tmp();
-    let mut csv = String::from("a,b,y\n");
-    for i in 0..50 {
-        let a = (i * 3 % 53) as f64 / 53.0;
-        let b = (i * 5 % 47) as f64 / 47.0;
-        csv.push_str(&format!("{a},{b},{}\n", a + 2.0 * b));
-    }
-    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    fs::write(
+        dir.path().join("d.csv"),
+        noise_free_plane(50, (3, 53), (5, 47)),
+    )
+    .unwrap();
     fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
-    let o = run_in(dir.path(), &["run", "s.toml", "--out", "r.json"]);
-    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
-    let doc: serde_json::Value =
-        serde_json::from_str(&fs::read_to_string(dir.path().join("r.json")).unwrap()).unwrap();
+    let doc = run_doc(dir.path());
     let n = &doc["noise_estimate"];
     let (v, se) = (n["value"].as_f64().unwrap(), n["stderr"].as_f64().unwrap());
     let var = n["response_variance"].as_f64().unwrap();
@@ -1331,10 +1340,7 @@ fn a_quoted_address_over_two_lines_in_a_column_left_out_is_read() {
     fs::write(dir.path().join("d.csv"), &csv).unwrap();
     let s = TABLE_SCENARIO.replace("target = \"y\"", "target = \"y\"\nfeatures = [\"x\"]");
     fs::write(dir.path().join("s.toml"), s).unwrap();
-    let o = run_in(dir.path(), &["run", "s.toml", "--out", "r.json"]);
-    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
-    let doc: serde_json::Value =
-        serde_json::from_str(&fs::read_to_string(dir.path().join("r.json")).unwrap()).unwrap();
+    let doc = run_doc(dir.path());
     assert_eq!(doc["table"]["rows"], 40);
 }
 

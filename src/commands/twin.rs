@@ -1432,15 +1432,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             // Within two standard errors or a tenth of the responses' variance of 0 it is
             // sampling (little noise), corrected as before.
             if let Some(n) = fit.noise.as_ref() {
-                if let Some(why) = crate::dataset::noise::negative_refusal(
-                    n.method,
-                    n.raw,
-                    n.raw_se,
-                    t.x.view(),
-                    t.y.view(),
-                    &t.names,
-                    &t.lines,
-                ) {
+                if let Some(why) =
+                    crate::dataset::noise::negative_refusal(n.method, n.raw, n.raw_se, &t)
+                {
                     return Err(Error::Usage(format!(
                         "{}: {why}; fix the table, or pass --noise-estimator nn or plane (never \
                          negative)",

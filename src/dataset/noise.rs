@@ -125,18 +125,16 @@ pub fn clearly_negative(value: f64, stderr: f64, response_variance: f64) -> bool
 }
 
 /// The refusal of a clearly negative estimate ([`clearly_negative`]) in words, with its likely
-/// causes ([`negative_estimate_causes`]); `None` when the estimate is not clearly negative. The
-/// caller adds the file and the way out (a scenario key or a flag).
+/// causes ([`negative_estimate_causes`]) among `table`'s inputs, judged against its responses'
+/// variance; `None` when the estimate is not clearly negative. The caller adds the file and the
+/// way out (a scenario key or a flag).
 pub fn negative_refusal(
     method: Method,
     value: f64,
     stderr: f64,
-    x: ArrayView2<'_, f64>,
-    y: ArrayView1<'_, f64>,
-    names: &[String],
-    lines: &[usize],
+    table: &super::Table,
 ) -> Option<String> {
-    let var = response_variance(y);
+    let var = response_variance(table.y.view());
     if !clearly_negative(value, stderr, var) {
         return None;
     }
@@ -159,7 +157,7 @@ pub fn negative_refusal(
         "the noise estimate ({}) is {estimate}, which a variance cannot be: the responses do not \
          change like a smooth function plus noise at the neighbours' scale{}",
         method.name(),
-        negative_estimate_causes(x, names, Some(lines))
+        negative_estimate_causes(table.x.view(), &table.names, Some(&table.lines))
     ))
 }
 

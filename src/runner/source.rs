@@ -241,15 +241,7 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
             // input value or repeated inputs do it), and the bias² it would give is not to be
             // believed.
             if let Some(n) = noise.as_ref() {
-                if let Some(why) = noise::negative_refusal(
-                    n.method,
-                    n.value,
-                    n.stderr,
-                    work.x.view(),
-                    work.y.view(),
-                    &work.names,
-                    &work.lines,
-                ) {
+                if let Some(why) = noise::negative_refusal(n.method, n.value, n.stderr, &work) {
                     return Err(Error::Data(format!(
                         "{}: {why}; fix the table, or set `noise_estimator = \"nn\"` or \
                          `\"plane\"` in [data] (never negative)",

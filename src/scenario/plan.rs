@@ -1571,16 +1571,18 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
         ));
     }
     // A set, not a scan of the earlier names: a file may declare 100 000 inputs.
+    // Where input `i`'s name is written, for messages about it.
+    let name_span = |i: usize| {
+        d.inputs
+            .as_ref()
+            .and_then(|l| l.get(i))
+            .map(|s| s.name.span())
+    };
     let mut seen = std::collections::HashSet::with_capacity(inputs.len());
     for (i, a) in inputs.iter().enumerate() {
         if !seen.insert(a.name.as_str()) {
-            let span = d
-                .inputs
-                .as_ref()
-                .and_then(|l| l.get(i))
-                .map(|s| s.name.span());
             return Err(cx.err(
-                span,
+                name_span(i),
                 &format!("data.inputs[{i}].name"),
                 format!("input `{}` is defined twice", a.name),
             ));
@@ -1654,13 +1656,8 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
             // `--points` wrongly.
             if let Some(i) = (0..b.min_inputs()).find(|&i| inputs[i].name != format!("x{}", i + 1))
             {
-                let span = d
-                    .inputs
-                    .as_ref()
-                    .and_then(|l| l.get(i))
-                    .map(|s| s.name.span());
                 return Err(cx.err(
-                    span,
+                    name_span(i),
                     &format!("data.inputs[{i}].name"),
                     format!(
                         "{} reads its inputs by position as x1 … x{}, so they must come first \
