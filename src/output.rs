@@ -400,6 +400,12 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         return Err(Error::Usage(format!("{flag}: empty file name")));
     }
     if given.as_os_str() == "-" {
+        if sys::stdout_closed_at_start() {
+            return Err(Error::Usage(format!(
+                "{flag} -: standard output is closed, so the output would be lost; name a file \
+                 (or redirect standard output to one)"
+            )));
+        }
         // Standard output redirected to a regular file (`> r.json`) must not be another output
         // or an input; a terminal or pipe shared with an input is harmless.
         let file = fs::metadata("/dev/stdout")
@@ -1110,6 +1116,25 @@ mod sys {
             }
         }
     }
+
+    /// Standard output was closed when the process started. The Rust runtime then opens
+    /// `/dev/null` read-write in its place, so writes succeed and vanish; a shell's `> /dev/null`
+    /// opens it write-only. Read from `/proc` on Linux; elsewhere never reported.
+    pub fn stdout_closed_at_start() -> bool {
+        if !cfg!(any(target_os = "linux", target_os = "android")) {
+            return false;
+        }
+        let null = std::fs::read_link("/proc/self/fd/1")
+            .map(|p| p == std::path::Path::new("/dev/null"))
+            .unwrap_or(false);
+        let read_write = || {
+            let info = std::fs::read_to_string("/proc/self/fdinfo/1").ok()?;
+            let flags = info.lines().find_map(|l| l.strip_prefix("flags:"))?.trim();
+            // O_ACCMODE is 3 and O_RDWR 2 on every Linux architecture.
+            Some(u32::from_str_radix(flags, 8).ok()? & 3 == 2)
+        };
+        null && read_write().unwrap_or(false)
+    }
 }
 
 /// Platform details where there are no device numbers, FIFOs or open flags to speak of.
@@ -1134,6 +1159,10 @@ mod sys {
     pub fn no_wait(_: &mut OpenOptions) {}
 
     pub fn copy_owner(_: &File, _: &Metadata) {}
+
+    pub fn stdout_closed_at_start() -> bool {
+        false
+    }
 }
 
 #[cfg(all(test, target_os = "linux"))]

@@ -662,6 +662,34 @@ fn out_dash_writes_json_to_stdout_and_table_to_stderr() {
     );
 }
 
+/// A closed standard output is reopened on `/dev/null` by the runtime, so `--out -` would lose
+/// the result with exit 0; it is refused. A shell's `> /dev/null` is the user's choice and runs.
+#[cfg(target_os = "linux")]
+#[test]
+fn out_dash_with_standard_output_closed_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = put(dir.path(), "ok.toml", BASE);
+    let run = |redirect: &str| {
+        std::process::Command::new("sh")
+            .current_dir(dir.path())
+            .args([
+                "-c",
+                &format!("exec \"$0\" run \"$1\" --out - --quiet {redirect}"),
+            ])
+            .args([bin(), f.as_str()])
+            .output()
+            .unwrap()
+    };
+    let closed = run(">&-");
+    no_panic(&closed);
+    assert_eq!(closed.status.code(), Some(2), "{}", text(&closed.stderr));
+    let err = text(&closed.stderr);
+    assert!(err.contains("--out -: standard output is closed"), "{err}");
+    let null = run(">/dev/null");
+    assert_eq!(null.status.code(), Some(0), "{}", text(&null.stderr));
+    assert_eq!(listing(dir.path()), ["ok.toml"]);
+}
+
 #[test]
 fn missing_output_folder_fails_cleanly() {
     let dir = tempfile::tempdir().unwrap();
