@@ -98,10 +98,22 @@ fn file_prefix(file: &str) -> String {
 impl Error {
     /// Builds an I/O error for `path`.
     pub fn io(path: impl Into<PathBuf>, err: &std::io::Error) -> Self {
-        Error::Io {
-            path: path.into(),
-            message: err.to_string(),
-        }
+        let path = path.into();
+        // "Not a directory" alone does not say which part of the path is wrong: most often a
+        // file name written with a trailing slash, or a file used as a folder on the way.
+        let message = if err.kind() == std::io::ErrorKind::NotADirectory {
+            let text = path.to_string_lossy();
+            if text.ends_with('/') && std::fs::metadata(text.trim_end_matches('/')).is_ok() {
+                "a file name written with a trailing slash, as if it were a folder; drop the \
+                 slash"
+                    .to_string()
+            } else {
+                "a part of this path before its last name is a file, not a folder".to_string()
+            }
+        } else {
+            err.to_string()
+        };
+        Error::Io { path, message }
     }
 }
 

@@ -690,6 +690,33 @@ fn out_dash_with_standard_output_closed_is_refused() {
     assert_eq!(listing(dir.path()), ["ok.toml"]);
 }
 
+/// A checkpoint that standard output is redirected to is named as such (the words of the run
+/// would land in it), and the file is left as it was.
+#[cfg(target_os = "linux")]
+#[test]
+fn checkpoint_under_standard_output_is_named() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = put(dir.path(), "ok.toml", BASE);
+    let out = std::process::Command::new("sh")
+        .current_dir(dir.path())
+        .args([
+            "-c",
+            "exec \"$0\" run \"$1\" --checkpoint ck.json --out r.json > ck.json",
+        ])
+        .args([bin(), f.as_str()])
+        .output()
+        .unwrap();
+    no_panic(&out);
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
+    let err = text(&out.stderr);
+    assert!(
+        err.contains("--checkpoint ck.json: standard output is redirected to this file"),
+        "{err}"
+    );
+    assert_eq!(fs::read(dir.path().join("ck.json")).unwrap(), b"");
+    assert_eq!(listing(dir.path()), ["ck.json", "ok.toml"]);
+}
+
 #[test]
 fn missing_output_folder_fails_cleanly() {
     let dir = tempfile::tempdir().unwrap();

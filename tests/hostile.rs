@@ -1118,6 +1118,21 @@ fn scenario_cases(t: &mut Table) {
         &["validate", "s.toml", "--memory-limit", "1M"],
         "the run needs about",
     );
+    // "Not a directory (os error 20)" named no cause.
+    t.add(
+        g,
+        "scenario named with a trailing slash",
+        &[("s.toml", BASE.as_bytes())],
+        &["run", "s.toml/"],
+        "s.toml/: a file name written with a trailing slash",
+    );
+    t.add(
+        g,
+        "a file used as a folder in the scenario's path",
+        &[("s.toml", BASE.as_bytes())],
+        &["validate", "s.toml/inner.toml"],
+        "before its last name is a file, not a folder",
+    );
     t.add(
         g,
         "empty scenario file",
