@@ -101,7 +101,10 @@ impl Error {
         let path = path.into();
         // "Not a directory" alone does not say which part of the path is wrong: most often a
         // file name written with a trailing slash, or a file used as a folder on the way.
-        let message = if err.kind() == std::io::ErrorKind::NotADirectory {
+        // ENOTDIR is 20 on Linux, the BSDs and macOS (`ErrorKind::NotADirectory` is newer than
+        // the crate's minimum Rust).
+        let not_a_folder = cfg!(unix) && err.raw_os_error() == Some(20);
+        let message = if not_a_folder {
             let text = path.to_string_lossy();
             if text.ends_with('/') && std::fs::metadata(text.trim_end_matches('/')).is_ok() {
                 "a file name written with a trailing slash, as if it were a folder; drop the \
