@@ -265,6 +265,13 @@ while True:
             time.sleep(120)
         if mode == "count":
             m -= 1
+        if mode == "extra":
+            out.write("ok %s\n" % rid)
+            for _ in range(g + 1):
+                out.write("pred " + " ".join(["0.5"] * m) + "\n")
+            out.flush()
+            done += 1
+            continue
         if mode == "text":
             out.write("ok %s\n" % rid)
             out.write("pred " + " ".join(["0.5"] * (m - 1) + ["oops"]) + "\n")
@@ -334,6 +341,41 @@ fn assert_clean_failure(mode: &str, good: u32, timeout: Option<u32>, needle: &st
     assert!(err.contains("request"), "{mode}: request not named: {err}");
     assert!(err.contains(needle), "{mode}: {err}");
     assert!(secs < max_secs, "{mode}: took {secs} s");
+}
+
+/// One answer line too many, from processes that each serve a single request (one block per
+/// thread): nothing follows in the protocol to show it, so the run reads what each process
+/// wrote after its answer when it ends. Before, the run exited 0 with the grid read shifted by
+/// a line where one thread per block ran, and failed with two blocks per thread.
+#[test]
+fn an_answer_with_a_line_too_many_fails_the_run_whatever_the_threads() {
+    if !python_ok() {
+        println!("skipped: python3 is not available");
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    std::fs::write(dir.path().join("bad.py"), BAD).unwrap();
+    let model = "family = \"external\"\ncommand = [\"python3\", \"bad.py\", \"extra\", \"0\"]\nknob = \"k\"";
+    let text = regression(model).replace("replicates = 24", "replicates = 3\nblocks = 3");
+    std::fs::write(dir.path().join("s.toml"), text).unwrap();
+    for threads in ["1", "3"] {
+        let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+            .args(["run", "s.toml", "--threads", threads, "--out", "r.json"])
+            .current_dir(dir.path())
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "threads {threads}: {err}");
+        assert!(
+            err.contains("more line after its answer to request 1")
+                || err.contains("answered request 2"),
+            "threads {threads}: {err}"
+        );
+        if threads == "3" {
+            assert!(err.contains("more line after its answer"), "{err}");
+        }
+        assert!(!dir.path().join("r.json").exists());
+    }
 }
 
 #[test]

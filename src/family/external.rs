@@ -268,6 +268,33 @@ impl Worker {
         self.kill();
     }
 
+    /// Closes standard input and reads standard output to its end (the process should exit),
+    /// for at most half a second; then stops the process as [`Worker::close`] does. Returns the
+    /// lines that came after the last answer (at most the first few) and their count: anything
+    /// there means earlier answers may have been read shifted by those lines.
+    fn drain(&mut self) -> (Option<String>, usize) {
+        self.requests = None;
+        let deadline = Instant::now() + Duration::from_millis(500);
+        let (mut first, mut count) = (None, 0);
+        loop {
+            let left = deadline.saturating_duration_since(Instant::now());
+            match self.lines.recv_timeout(left) {
+                Ok(Line::Text(t)) => {
+                    count += 1;
+                    first.get_or_insert(t);
+                }
+                Ok(Line::TooLong(_)) => {
+                    count += 1;
+                    first.get_or_insert_with(|| "(a line too long to keep)".into());
+                    break;
+                }
+                Ok(Line::Eof) | Ok(Line::Failed(_)) | Err(_) => break,
+            }
+        }
+        self.close();
+        (first, count)
+    }
+
     fn last_stderr(&self) -> Option<String> {
         let tail = self.stderr_tail.lock().ok()?;
         tail.iter().rev().find(|l| !l.trim().is_empty()).cloned()
@@ -362,6 +389,34 @@ impl ExternalFamily {
     /// The per-request deadline.
     pub fn timeout(&self) -> Duration {
         self.timeout
+    }
+
+    /// Stops every idle process as [`ExternalFamily::shutdown`] does, first reading what each
+    /// wrote after its last answer: a process that answered with more lines than asked fails
+    /// the run. (A process that serves several requests shows such lines at its next request;
+    /// one that serves a single request, as with one block per thread or per shard, shows them
+    /// only here.)
+    fn finish_all(&self) -> Result<(), String> {
+        let workers: Vec<Worker> = match self.idle.lock() {
+            Ok(mut g) => g.drain(..).collect(),
+            Err(_) => Vec::new(),
+        };
+        let mut first = None;
+        for mut w in workers {
+            let (line, count) = w.drain();
+            if count > 0 && first.is_none() {
+                first = Some(format!(
+                    "{} wrote {count} more {} after its answer to request {} (the first: \
+                     {:?}): an answer is exactly the `ok` line and its `pred`/`prob` lines, \
+                     and what came before may have been read shifted",
+                    self.who(),
+                    if count == 1 { "line" } else { "lines" },
+                    w.sent,
+                    clip(line.as_deref().unwrap_or(""))
+                ));
+            }
+        }
+        first.map_or(Ok(()), Err)
     }
 
     /// Stops every idle process (end of input, then kill after half a second) and reaps it.
@@ -864,6 +919,10 @@ impl Family for ExternalFamily {
                 Err(self.fail(e))
             }
         }
+    }
+
+    fn finish(&self) -> Result<(), FitError> {
+        self.finish_all().map_err(|e| self.fail(e))
     }
 }
 

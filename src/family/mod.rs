@@ -209,6 +209,13 @@ pub trait Family: Send + Sync {
     /// into `out` (see [`Out`]).
     fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], out: Out<'_>)
         -> Result<(), FitError>;
+
+    /// Called once when the scheduler has run its blocks: releases what the fits held and
+    /// reports what could only be seen at the end (an external process that wrote more than
+    /// its answers). Default: nothing to do.
+    fn finish(&self) -> Result<(), FitError> {
+        Ok(())
+    }
 }
 
 /// Checks that every grid value is a whole number in `[lo, hi]`; used by integer knobs.

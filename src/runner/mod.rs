@@ -369,12 +369,33 @@ fn schedule_on(
             })
             .collect()
     });
+    let finished = finish_families(plan);
     results.into_iter().collect::<Result<(), Error>>()?;
+    finished?;
     Ok(Scheduled {
         done: done.into_inner().unwrap_or_else(|e| e.into_inner()),
         interrupted: interrupted.load(Ordering::SeqCst),
         halted: halted.load(Ordering::SeqCst),
     })
+}
+
+/// Tells every model's family that the scheduler is done ([`crate::family::Family::finish`]);
+/// the first failure in model order wins.
+fn finish_families(plan: &Plan) -> Result<(), Error> {
+    let mut first = Ok(());
+    for model in &plan.models {
+        if let Err(e) = model.family.finish() {
+            if first.is_ok() {
+                first = Err(Error::Data(format!(
+                    "{}: {} fits: {}",
+                    plan.file,
+                    model.family.name(),
+                    e.0
+                )));
+            }
+        }
+    }
+    first
 }
 
 /// A finished run.
