@@ -375,6 +375,20 @@ fn scenario_cases(t: &mut Table) {
         v,
         "holds the control character U+202E",
     );
+    // `about` reached the HTML report and the terminal with NUL, BEL, ESC and U+202E raw.
+    for (c, code) in [("\\u0007", "U+0007"), ("\u{202e}", "U+202E")] {
+        t.scenario(
+            g,
+            &format!("about with {code}"),
+            &sc(
+                "name = \"tiny\"",
+                &format!("name = \"tiny\"\nabout = \"one\\ntwo\\tthree {c}\""),
+            ),
+            v,
+            &format!("key `about`: holds the control character {code}"),
+        )
+        .also("s.toml:2:");
+    }
     t.scenario(
         g,
         "grid mixing log and range keys",

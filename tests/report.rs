@@ -198,6 +198,36 @@ fn curve_has_four_series_bands_and_marks_the_best() {
     assert!(!t.iter().any(|s| s.contains("logarithmic")));
 }
 
+/// Text from an edited result document (a name with NUL, BEL, ESC and a right-to-left
+/// override, which `run` itself refuses) reaches the labels: the SVG must stay well-formed XML
+/// (one such byte made every XML parser refuse the file) and the HTML must not carry them.
+#[test]
+fn control_characters_in_a_result_document_do_not_break_the_svg_or_the_html() {
+    let (_, _, mut doc) = run(TINY);
+    doc.scenario.name = "N\u{0}ul\u{7}\u{1b}[31m \u{202e}drow".into();
+    let svg = plot::curve_svg(&doc, View::Domingos).unwrap();
+    assert!(
+        !svg.chars()
+            .any(|c| (c.is_control() && !"\t\n\r".contains(c)) || c == '\u{202e}'),
+        "control characters in the SVG"
+    );
+    assert!(
+        svg.contains('\u{fffd}'),
+        "the name's characters are marked as replaced"
+    );
+    render(&svg);
+    let pics = Pictures {
+        curve: Some(svg),
+        points: None,
+        selection: None,
+        extra: Vec::new(),
+    };
+    let text = html::render(&doc, View::Domingos, &pics, Some(1.25), "wall time");
+    assert!(!text
+        .chars()
+        .any(|c| (c.is_control() && !"\t\n\r".contains(c)) || c == '\u{202e}'));
+}
+
 /// One huge value (an interpolation peak, say) is clipped by default and marked with its value;
 /// `linear` shows it on the axis; `clip` clips even a modest outlier; `all` is refused.
 #[test]

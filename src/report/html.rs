@@ -31,6 +31,7 @@ pub fn escape(s: &str) -> String {
             '>' => out.push_str("&gt;"),
             '"' => out.push_str("&quot;"),
             '\'' => out.push_str("&#39;"),
+            c if super::plot::unsafe_char(c) => out.push('\u{fffd}'),
             c => out.push(c),
         }
     }

@@ -40,6 +40,25 @@ const OCHRE: RGBColor = RGBColor(0xb8, 0x8a, 0x00);
 const DEEP: RGBColor = RGBColor(0x1f, 0x5f, 0x96);
 const FONT: &str = "sans-serif";
 
+/// Replaces the characters XML 1.0 does not allow (controls other than tab, line feed and
+/// carriage return; U+FFFE, U+FFFF) and the bidirectional-override controls with U+FFFD: text
+/// from an edited result document reaches the labels as it is, and one such character made the
+/// whole SVG unreadable to an XML parser.
+pub fn xml_chars(svg: String) -> String {
+    if !svg.chars().any(unsafe_char) {
+        return svg;
+    }
+    svg.chars()
+        .map(|c| if unsafe_char(c) { '\u{fffd}' } else { c })
+        .collect()
+}
+
+/// A character [`xml_chars`] replaces.
+pub fn unsafe_char(c: char) -> bool {
+    (c.is_control() && !matches!(c, '\t' | '\n' | '\r'))
+        || matches!(c, '\u{fffe}' | '\u{ffff}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}')
+}
+
 fn draw_err<E: std::error::Error + Send + Sync>(e: DrawingAreaErrorKind<E>) -> Error {
     Error::Usage(format!("cannot draw the picture: {e}"))
 }
@@ -802,7 +821,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         panel_text(&panel, &note, (8, y), 12, STONE, 38)?;
         root.present().map_err(draw_err)?;
     }
-    Ok(buf)
+    Ok(xml_chars(buf))
 }
 
 /// The footnote of the curve picture, derived from the knob's direction and the view.
@@ -1366,7 +1385,7 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
         panel_text(&panel, &note, (8, y), 12, STONE, 38)?;
         root.present().map_err(draw_err)?;
     }
-    Ok(buf)
+    Ok(xml_chars(buf))
 }
 
 /// What the selection histogram needs: how often cross-validation chose each grid value, and
@@ -1567,7 +1586,7 @@ pub fn selection_svg(v: &SelectionView, knob: &str) -> Result<String, Error> {
         }
         root.present().map_err(draw_err)?;
     }
-    Ok(buf)
+    Ok(xml_chars(buf))
 }
 
 /// Width and height of the study pictures (heatmap, learning curves, families).
@@ -1728,7 +1747,7 @@ pub fn heatmap_svg(doc: &ResultDoc, family: &str) -> Result<String, Error> {
         }
         root.present().map_err(draw_err)?;
     }
-    Ok(buf)
+    Ok(xml_chars(buf))
 }
 
 /// Learning curves: at each family's best knob value for each training size, the expected loss
@@ -1863,7 +1882,7 @@ pub fn learning_svg(doc: &ResultDoc) -> Result<String, Error> {
         )?;
         root.present().map_err(draw_err)?;
     }
-    Ok(buf)
+    Ok(xml_chars(buf))
 }
 
 /// Every family's expected-loss curve (largest training size) on one picture: the x axis runs
@@ -1994,5 +2013,5 @@ pub fn families_svg(doc: &ResultDoc) -> Result<String, Error> {
         )?;
         root.present().map_err(draw_err)?;
     }
-    Ok(buf)
+    Ok(xml_chars(buf))
 }

@@ -338,6 +338,27 @@ impl Plan {
                 ),
             ));
         }
+        // The description may run over lines; other controls and reordering marks reached the
+        // HTML report and the terminal raw.
+        if let Some(c) = spec.about.as_deref().and_then(|a| {
+            a.chars()
+                .find(|&c| (c.is_control() && !matches!(c, '\n' | '\t')) || reorders(c))
+        }) {
+            let line = src
+                .lines()
+                .take_while(|l| !l.trim_start().starts_with('['))
+                .position(|l| l.split_once('=').is_some_and(|(k, _)| k.trim() == "about"))
+                .map(|i| i + 1);
+            return Err(cx.err_line(
+                line,
+                "about",
+                format!(
+                    "holds the control character U+{:04X}; a description is printable text \
+                     (lines and tabs are kept)",
+                    c as u32
+                ),
+            ));
+        }
         let replicates = match (opts.replicates, &spec.replicates) {
             (Some(r), _) => {
                 if r > upper_limit("--replicates") as u64 {
