@@ -168,6 +168,14 @@ pub fn parse_margin(s: &str) -> Result<f64, String> {
         None => (t, 1.0),
     };
     match num.parse::<f64>() {
+        // `--margin 5` read as the fraction 5 let a term grow by 500% unflagged; a bare number
+        // is a fraction below 1, and a larger margin is written as a percentage.
+        Ok(v) if scale == 1.0 && v >= 1.0 && v.is_finite() => Err(format!(
+            "`{t}` would be a fraction, {} of the baseline's value: write `{t}%` for {t} \
+             percent, or `{}` if that much is meant",
+            pct(v),
+            pct(v)
+        )),
         Ok(v) if v.is_finite() && v >= 0.0 => Ok(v * scale),
         Ok(v) if v < 0.0 => Err(format!(
             "`{s}`: a margin cannot be negative (it is how much a term may grow before it \
@@ -1928,6 +1936,11 @@ mod tests {
         assert_eq!(parse_margin("0.05").unwrap(), 0.05);
         assert!(parse_margin("-1%").unwrap_err().contains("negative"));
         assert!(parse_margin("abc").is_err());
+        // A bare 5 was the fraction 5 (500%); it is refused with both readings named.
+        let five = parse_margin("5").unwrap_err();
+        assert!(five.contains("`5%`") && five.contains("`500%`"), "{five}");
+        assert_eq!(parse_margin("500%").unwrap(), 5.0);
+        assert_eq!(parse_margin("0.99").unwrap(), 0.99);
         assert_eq!(pct(0.07), "7%");
         assert_eq!(pct(0.005), "0.5%");
         assert_eq!(
