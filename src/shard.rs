@@ -185,8 +185,7 @@ fn without_scripts(fp: &str) -> &str {
 
 /// File name endings of the scripts whose content a run's fingerprint covers when an external
 /// estimator's `command` names them (with files that start with `#!`).
-pub const SCRIPT_EXTENSIONS: [&str; 10] =
-    ["py", "r", "jl", "sh", "pl", "rb", "js", "m", "lua", "awk"];
+pub use crate::family::external::SCRIPT_EXTENSIONS;
 
 /// `true` when `f` ends in one of [`SCRIPT_EXTENSIONS`] (any case) or starts with `#!` (an
 /// executable script without an extension); a compiled program or an interpreter is not a
@@ -794,7 +793,7 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
     let plan = job.plan;
     let fp = fingerprint(plan, &job.source.text)?;
     let wanted = job_blocks(plan, job.shard)?;
-    let prepared = runner::prepare(plan)?;
+    let prepared = runner::prepare_to_fit(plan)?;
     let points = prepared.points();
     let start = match job.checkpoint {
         Some(path) => load_checkpoint(path, job, &fp, &wanted, points)?.unwrap_or_default(),

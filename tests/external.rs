@@ -378,6 +378,53 @@ fn an_answer_with_a_line_too_many_fails_the_run_whatever_the_threads() {
     }
 }
 
+/// A script that is not where `command` says was found only by the first fit (after
+/// `validate` had said "valid"), and one whose `#!` names a missing interpreter was reported as
+/// the script itself missing. Neither needs Python.
+#[test]
+fn missing_scripts_and_interpreters_are_named_before_any_fit() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let model = "family = \"external\"\ncommand = [\"python3\", \"gone.py\"]\nknob = \"k\"";
+    std::fs::write(d.join("s.toml"), regression(model)).unwrap();
+    for args in [
+        &["validate", "s.toml"][..],
+        &["run", "s.toml", "--out", "r.json"],
+    ] {
+        let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+            .args(args)
+            .current_dir(d)
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{args:?}: {err}");
+        assert!(
+            err.contains("`command` names the script `gone.py`, which does not exist"),
+            "{args:?}: {err}"
+        );
+    }
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        let script = d.join("odd.py");
+        std::fs::write(&script, "#!/nonexistent/bin/python9\nprint(1)\n").unwrap();
+        std::fs::set_permissions(&script, std::fs::Permissions::from_mode(0o755)).unwrap();
+        let model = "family = \"external\"\ncommand = [\"./odd.py\"]\nknob = \"k\"";
+        std::fs::write(d.join("t.toml"), regression(model)).unwrap();
+        let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+            .args(["run", "t.toml", "--out", "r.json"])
+            .current_dir(d)
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{err}");
+        assert!(
+            err.contains("its first line, `#!/nonexistent/bin/python9`, names an interpreter"),
+            "{err}"
+        );
+    }
+}
+
 #[test]
 fn crash_mid_run_is_a_clear_error() {
     assert_clean_failure("crash", 3, None, "simulated crash in the estimator", 20.0);

@@ -263,7 +263,7 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     if args.quiet && !o.any() && args.shard.is_none() && args.checkpoint.is_none() {
         // Report a bad scenario first (its data errors show when the evaluation points are
         // drawn), then the pointless request.
-        runner::prepare(&plan)?;
+        runner::prepare_to_fit(&plan)?;
         return Err(Error::Usage(
             "--quiet with no output file would compute a result and show nothing: add --out \
              FILE.json (or --csv, --plot, --report), or drop --quiet"
@@ -902,7 +902,7 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
     let plan = scenario::load(scenario, &PlanOptions::default())?;
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, 0, memory_limit)?;
-    runner::prepare(&plan)?;
+    runner::prepare_to_fit(&plan)?;
     let models: Vec<String> = plan
         .models
         .iter()

@@ -83,6 +83,23 @@ pub const PROTOCOL_VERSION: u32 = 2;
 /// discarded as it arrives).
 const STDERR_LINE_MAX: usize = 2000;
 
+/// File name endings of the scripts an external estimator's `command` can name: such a word
+/// must name a file that exists (checked when the scenario is read), and the run's fingerprint
+/// covers its content (`shard::fingerprint`).
+pub const SCRIPT_EXTENSIONS: [&str; 10] =
+    ["py", "r", "jl", "sh", "pl", "rb", "js", "m", "lua", "awk"];
+
+/// `word` of a `command` names a script file by its ending (not an option such as `-m` or
+/// `--config=x.py`).
+fn names_script(word: &str) -> bool {
+    !word.starts_with('-')
+        && !word.contains('=')
+        && Path::new(word)
+            .extension()
+            .and_then(|e| e.to_str())
+            .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
+}
+
 /// Seconds to wait for an answer when the scenario gives no `timeout_seconds`.
 pub const DEFAULT_TIMEOUT_SECONDS: f64 = 60.0;
 
@@ -448,7 +465,22 @@ impl ExternalFamily {
                 .as_ref()
                 .map(|d| format!(" in {}", d.display()))
                 .unwrap_or_default();
-            format!("cannot start {}{dir}: {e}", self.who())
+            // "No such file or directory" for a script that is there: its `#!` line names an
+            // interpreter that is not.
+            let program = self.dir.clone().unwrap_or_default().join(&self.command[0]);
+            let interpreter = (e.kind() == std::io::ErrorKind::NotFound && program.is_file())
+                .then(|| first_line(&program))
+                .flatten()
+                .filter(|l| l.starts_with("#!"));
+            match interpreter {
+                Some(l) => format!(
+                    "cannot start {}{dir}: its first line, `{}`, names an interpreter that \
+                     cannot be started ({e})",
+                    self.who(),
+                    crate::fmt::clip(&l, 200)
+                ),
+                None => format!("cannot start {}{dir}: {e}", self.who()),
+            }
         })?;
         let (stdin, stdout, stderr) =
             match (child.stdin.take(), child.stdout.take(), child.stderr.take()) {
@@ -528,7 +560,12 @@ impl ExternalFamily {
         std::thread::sleep(Duration::from_millis(20));
         let last = w
             .last_stderr()
-            .map(|l| format!("; last line on its standard error: {}", clip(&l)))
+            .map(|l| {
+                format!(
+                    "; last line on its standard error: {}",
+                    crate::fmt::clip(l.trim_end(), 300)
+                )
+            })
             .unwrap_or_default();
         format!("{} stopped during {what}: {how}{last}", self.who())
     }
@@ -719,6 +756,14 @@ fn fmt_secs(d: Duration) -> String {
     } else {
         format!("{s}")
     }
+}
+
+/// The first line of a file (at most 1000 bytes read), without its line end.
+fn first_line(path: &Path) -> Option<String> {
+    let mut buf = vec![0u8; 1000];
+    let n = std::fs::File::open(path).ok()?.read(&mut buf).ok()?;
+    let text = String::from_utf8_lossy(&buf[..n]).into_owned();
+    Some(text.lines().next().unwrap_or("").trim_end().to_string())
 }
 
 /// Shortens a line for an error message.
@@ -923,6 +968,32 @@ impl Family for ExternalFamily {
 
     fn finish(&self) -> Result<(), FitError> {
         self.finish_all().map_err(|e| self.fail(e))
+    }
+
+    /// A script `command` names must exist: one that is not there was found only when the
+    /// first fit started it, after `validate` had passed the file. (Not checked when the
+    /// scenario is read: `merge` reads it where the scripts may be absent.)
+    fn check_ready(&self) -> Result<(), String> {
+        let dir = self.dir.clone().unwrap_or_default();
+        let Some(w) = self
+            .command
+            .iter()
+            .find(|w| names_script(w) && !dir.join(w).exists())
+        else {
+            return Ok(());
+        };
+        let place = if Path::new(w).is_absolute() || dir.as_os_str().is_empty() {
+            String::new()
+        } else {
+            format!(
+                " (relative to the scenario's folder, {})",
+                crate::fmt::clip(&dir.display().to_string(), 200)
+            )
+        };
+        Err(format!(
+            "`command` names the script `{}`, which does not exist{place}",
+            crate::fmt::clip(w, 200)
+        ))
     }
 }
 

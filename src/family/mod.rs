@@ -210,6 +210,12 @@ pub trait Family: Send + Sync {
     fn fit_predict(&self, input: &FitInput<'_>, grid: &[f64], out: Out<'_>)
         -> Result<(), FitError>;
 
+    /// Checks, before a run or `validate`, what the family needs from outside the scenario
+    /// (an external estimator's script files); the message names the key. Default: nothing.
+    fn check_ready(&self) -> Result<(), String> {
+        Ok(())
+    }
+
     /// Called once when the scheduler has run its blocks: releases what the fits held and
     /// reports what could only be seen at the end (an external process that wrote more than
     /// its answers). Default: nothing to do.

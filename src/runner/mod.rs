@@ -25,7 +25,7 @@ use std::sync::Mutex;
 use ndarray::{ArrayView2, ArrayView3, ArrayViewMut3, ArrayViewMut4, Axis};
 use rayon::prelude::*;
 
-pub use source::{draw, prepare, training_set, Draw, Prepared};
+pub use source::{draw, prepare, prepare_to_fit, training_set, Draw, Prepared};
 
 use crate::decompose::{self, Acc, Batch, Summary};
 use crate::error::Error;
@@ -643,7 +643,7 @@ pub fn run_watched(
     threads: usize,
     watch: &dyn Watch,
 ) -> Result<Result<Outcome, Stopped>, Error> {
-    let prepared = prepare(plan)?;
+    let prepared = prepare_to_fit(plan)?;
     let ids: Vec<u64> = (0..plan.blocks).collect();
     // One pool for the replicates and the summary.
     let pool = pool(threads)?;

@@ -105,6 +105,22 @@ fn with_file(plan: &Plan, e: Error) -> Error {
     }
 }
 
+/// [`prepare`] for a run that fits (or `validate`): first every family's
+/// [`crate::family::Family::check_ready`]. (`merge` prepares without it: it fits nothing, and
+/// an external estimator's scripts may be absent where it runs.)
+pub fn prepare_to_fit(plan: &Plan) -> Result<Prepared, Error> {
+    for model in &plan.models {
+        model.family.check_ready().map_err(|m| {
+            Error::Usage(format!(
+                "{}: [model] `{}`: {m}",
+                plan.file,
+                crate::fmt::clip(&model.label, 64)
+            ))
+        })?;
+    }
+    prepare(plan)
+}
+
 /// Draws the evaluation points (and a fixed design) of a plan; a table's working rows and
 /// noise estimate.
 pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
