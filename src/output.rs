@@ -940,6 +940,16 @@ fn wait(progress: Instant, nap: &mut Duration) -> io::Result<()> {
 /// Writes `text` to standard output. A failed write (a closed pipe, a full disk, a closed
 /// descriptor) is an error naming standard output — never the panic of `print!`.
 pub fn say(text: &str) -> Result<(), Error> {
+    // A closed standard output was reopened on /dev/null by the runtime: every write succeeds
+    // and the words (a run's table) vanish with exit 0.
+    static CLOSED: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
+    if *CLOSED.get_or_init(sys::stdout_closed_at_start) {
+        return Err(Error::Usage(
+            "standard output is closed, so what lossprism prints there would be lost; \
+             redirect it to a file (or to /dev/null to discard it)"
+                .into(),
+        ));
+    }
     let text = terminal_text(text);
     let mut out = io::stdout().lock();
     write_patiently(&mut out, text.as_bytes()).map_err(|e| Error::io("standard output", &e))

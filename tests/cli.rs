@@ -688,6 +688,15 @@ fn out_dash_with_standard_output_closed_is_refused() {
     let null = run(">/dev/null");
     assert_eq!(null.status.code(), Some(0), "{}", text(&null.stderr));
     assert_eq!(listing(dir.path()), ["ok.toml"]);
+    // The table of a plain run goes to standard output too.
+    let table = std::process::Command::new("sh")
+        .current_dir(dir.path())
+        .args(["-c", "exec \"$0\" run \"$1\" >&-"])
+        .args([bin(), f.as_str()])
+        .output()
+        .unwrap();
+    assert_eq!(table.status.code(), Some(2), "{}", text(&table.stderr));
+    assert!(text(&table.stderr).contains("standard output is closed"));
 }
 
 /// A checkpoint that standard output is redirected to is named as such (the words of the run
