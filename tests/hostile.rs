@@ -514,6 +514,22 @@ fn scenario_cases(t: &mut Table) {
         v,
         "key `data.inputs[0].normal`",
     );
+    // Inputs whose squared differences underflow: ridge and standardized k-NN read an input on
+    // [0, 1e-200] as constant and gave another curve with exit 0 (a hostile-input sweep).
+    t.scenario(
+        g,
+        "uniform too narrow to square",
+        &sc("uniform = [0.0, 1.0]", "uniform = [0.0, 1e-200]"),
+        v,
+        "key `data.inputs[0].uniform`: [0e0, 1e-200] is only 1.0e-200 wide",
+    );
+    t.scenario(
+        g,
+        "normal too narrow to square",
+        &sc("uniform = [0.0, 1.0]", "normal = [0.0, 1e-170]"),
+        v,
+        "key `data.inputs[0].normal`: sd 1.0e-170 is so small",
+    );
     t.scenario(
         g,
         "uniform of one number",
@@ -1659,6 +1675,21 @@ fn csv_cases(t: &mut Table) {
         "s.toml: the responses (",
     );
     t.table("blank file", b"\n\n  \n", "", "the file is empty");
+    {
+        // Column `a` times 1e-200: the noise estimate and standardized fits read it as constant.
+        let mut tiny = String::from("a,b,y\n");
+        for i in 0..40 {
+            let a = (i * 7 % 13) as f64 / 13.0 * 1e-200;
+            let b = (i * 5 % 11) as f64 / 11.0;
+            tiny.push_str(&format!("{a:e},{b},{}\n", (i * 3 % 17) as f64 / 17.0));
+        }
+        t.table(
+            "a column too narrow to square",
+            tiny.as_bytes(),
+            "",
+            "column `a` of t.csv varies by only 9.2e-201",
+        );
+    }
     t.table("header only", b"a,b,y\n", "", "no data rows");
     t.table("numeric header", b"1,2,3\n4,5,6\n", "", "no header");
     t.table("column twice", b"a,a,y\n1,2,3\n", "", "appears twice");

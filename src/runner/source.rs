@@ -161,6 +161,21 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
                     t.table.path.display()
                 )));
             }
+            let (lo, hi) = col
+                .iter()
+                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
+                    (lo.min(v), hi.max(v))
+                });
+            let spread = hi - lo;
+            if spread > 0.0 && spread < crate::scenario::plan::INPUT_MIN_SPREAD {
+                return Err(Error::Data(format!(
+                    "column `{name}` of {} varies by only {spread:.1e}; the fits or the noise \
+                     estimate square differences of inputs, which underflow to 0 below about \
+                     1e-154, so the column would be read as constant; rescale it (for example \
+                     multiply it by a power of ten)",
+                    t.table.path.display()
+                )));
+            }
         }
     }
     if plan.task != Task::Regress {

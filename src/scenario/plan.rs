@@ -1365,6 +1365,17 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         if sd <= 0.0 {
             return Err(cx.err(Some(n.span()), &format!("{key}.normal"), "sd must be > 0"));
         }
+        if sd < INPUT_MIN_SPREAD {
+            return Err(cx.err(
+                Some(n.span()),
+                &format!("{key}.normal"),
+                format!(
+                    "sd {sd:.1e} is so small that the squares of differences of the draws \
+                     underflow to 0 once the inputs are scaled, and the input would be read as \
+                     constant; rescale the input (multiply it by a power of ten)"
+                ),
+            ));
+        }
         // Draws reach about 10 standard deviations; beyond INPUT_MAX their squares overflow.
         if m.abs() + 10.0 * sd > INPUT_MAX {
             return Err(cx.err(
@@ -1405,7 +1416,13 @@ const MAX_LABELS: usize = 10_000;
 /// sums of squares, as a twin's columns do (`commands::twin::TWIN_VALUE_MAX`).
 const INPUT_MAX: f64 = 1e150;
 
-/// Refuses an input range whose ends or width overflow (`uniform = [-1e308, 1e308]` is 2e308
+/// Smallest spread of an input accepted (a uniform or even range's width, a normal sd): below
+/// about 1e-154 the squares of differences underflow, and a standardization (ridge, k-NN, the
+/// noise estimators) read the input as constant with no error (found by a hostile-input sweep:
+/// an input on [0, 1e-200] was ignored, exit 0). The mirror of [`INPUT_MAX`].
+pub const INPUT_MIN_SPREAD: f64 = 1e-150;
+
+/// Refuses an input range whose ends or width overflow, or whose width underflows (`uniform = [-1e308, 1e308]` is 2e308
 /// wide: every draw would be infinite).
 fn overflowing_range(
     cx: &Ctx<'_>,
@@ -1414,6 +1431,18 @@ fn overflowing_range(
     a: f64,
     b: f64,
 ) -> Result<(), ScenarioError> {
+    if b - a < INPUT_MIN_SPREAD {
+        return Err(cx.err(
+            Some(v.span()),
+            key,
+            format!(
+                "[{a:e}, {b:e}] is only {:.1e} wide: the squares of differences of such draws \
+                 (a standardization, a distance, a ridge fit) underflow to 0, and the input \
+                 would be read as constant; rescale the input (multiply it by a power of ten)",
+                b - a
+            ),
+        ));
+    }
     if a.abs() > INPUT_MAX || b.abs() > INPUT_MAX || !(b - a).is_finite() {
         return Err(cx.err(
             Some(v.span()),
