@@ -271,14 +271,14 @@ pub fn write_one(
     flag: &str,
     path: &Path,
     inputs: &[(&str, &Path)],
-    bytes: &[u8],
+    bytes: impl Into<Vec<u8>>,
 ) -> Result<(), Error> {
     let mut set = Outputs::new();
     for (role, p) in inputs {
         set.input(role, p);
     }
     let id = set.output(flag, path)?;
-    set.commit(vec![(id, bytes.to_vec())])
+    set.commit(vec![(id, bytes.into())])
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -466,6 +466,10 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
             )))
         }
         Some(m) if m.is_file() && loc.proc_fd => Place::Direct(loc.full.clone(), Stream::ProcFile),
+        // The very file standard output is redirected to (`--out r.json > r.json`): written
+        // through standard output, as `-` is. Replacing it by a rename sent the run's words into
+        // the old, unlinked file, and `>> log` lost the log's earlier lines.
+        Some(m) if m.is_file() && is_stdout(given) => Place::Stdout,
         Some(m) if m.is_file() => {
             replaceable(flag, &shown, &loc.full)?;
             Place::Staged(loc.full.clone())

@@ -699,6 +699,38 @@ fn out_dash_with_standard_output_closed_is_refused() {
     assert!(text(&table.stderr).contains("standard output is closed"));
 }
 
+/// An output named by the very file standard output is redirected to is written through
+/// standard output, as `-` is (the table goes to standard error): a rename replaced the file,
+/// so the table went into the old, unlinked one and `>> log` lost the log's earlier lines.
+#[cfg(target_os = "linux")]
+#[test]
+fn an_output_that_is_the_redirected_standard_output_is_written_through_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let f = put(dir.path(), "ok.toml", BASE);
+    let sh = |script: &str| {
+        std::process::Command::new("sh")
+            .current_dir(dir.path())
+            .args(["-c", script])
+            .args([bin(), f.as_str()])
+            .output()
+            .unwrap()
+    };
+    let out = sh("exec \"$0\" run \"$1\" --out r.json > r.json");
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let doc: Value = serde_json::from_slice(&fs::read(dir.path().join("r.json")).unwrap())
+        .expect("the file holds exactly the result document");
+    check_contract(&doc, &BASE_GRID, 4, 3);
+    assert!(
+        text(&out.stderr).contains("reading:"),
+        "the table on standard error"
+    );
+    fs::write(dir.path().join("a.log"), "earlier line\n").unwrap();
+    let out = sh("exec \"$0\" run \"$1\" --out a.log --quiet >> a.log");
+    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+    let log = fs::read_to_string(dir.path().join("a.log")).unwrap();
+    assert!(log.starts_with("earlier line\n{"), "{}", &log[..40]);
+}
+
 /// A checkpoint that standard output is redirected to is named as such (the words of the run
 /// would land in it), and the file is left as it was.
 #[cfg(target_os = "linux")]

@@ -1096,7 +1096,9 @@ fn scenario_cases(t: &mut Table) {
             .replace("replicates = 4", "replicates = 100000"),
         v,
         "GiB",
-    );
+    )
+    // The key that made them large: it named the grid's line for `blocks = 100000`.
+    .also("s.toml:4: key `blocks`");
     // 100 000 inputs × 10 000 training rows: refused at once by the memory estimate.
     let mut wide = String::from(BASE.split("[[data.inputs]]").next().unwrap());
     for i in 0..100_000 {
@@ -1122,6 +1124,30 @@ fn scenario_cases(t: &mut Table) {
         "run",
         "--memory-limit",
     );
+    // A checkpoint (or shard part) holds every block's accumulators again, encoded, and its
+    // text: a run that passed the check at about 190 MiB needed about 500 with a checkpoint
+    // and aborted on an allocation under a tighter limit (a hostile-input sweep).
+    {
+        let big_eval = sc("eval_size = 10", "eval_size = 20000")
+            .replace("replicates = 4\nblocks = 2", "replicates = 32")
+            .replace("grid = [1, 2]", "grid = [1, 2, 3, 4, 5, 6, 7, 8, 9, 10]");
+        t.add(
+            g,
+            "a checkpoint's document counted in the memory check",
+            &[("s.toml", big_eval.as_bytes())],
+            &[
+                "run",
+                "s.toml",
+                "--checkpoint",
+                "ck.json",
+                "--out",
+                "r.json",
+                "--memory-limit",
+                "200M",
+            ],
+            "the largest part is checkpoint or part document",
+        );
+    }
     t.add(
         g,
         "memory above --memory-limit",

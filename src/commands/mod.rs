@@ -241,7 +241,12 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     refuse_custom(&plan)?;
     runner::pool_check(args.threads)?;
     // Before anything is allocated: the evaluation points, the training sets, the accumulators.
-    runner::memory::check(&plan, args.threads, args.memory_limit)?;
+    let document_blocks = if args.checkpoint.is_some() || args.shard.is_some() {
+        job_block_count(&plan, args.shard)
+    } else {
+        0
+    };
+    runner::memory::check_writing(&plan, args.threads, args.memory_limit, document_blocks)?;
     if let Some(value) = args.assess {
         return assess(&args, &plan, value);
     }

@@ -1477,7 +1477,7 @@ impl Family for TreeFamily {
     }
 
     fn zero_probability_remedy(&self) -> &'static str {
-        "smooth the class shares with add-α: set `alpha = 0.5` (for example) in [model] (key `model.alpha`)"
+        "smooth the class shares with add-α: set `alpha` in [model] (key `model.alpha`), or raise it, to 0.5 for example"
     }
 
     fn knob(&self) -> &'static str {

@@ -555,9 +555,18 @@ impl Plan {
             bytes += accumulator_bytes(blocks, loss, &shape);
         }
         if bytes > MAX_ACCUMULATOR_BYTES {
+            // A `blocks` above the default of at most 32 is named: it, not the grid, made the
+            // accumulators large (the grid's line was named for `blocks = 100000`).
+            let (line, key) = match &spec.blocks {
+                Some(bs) if blocks > 32 => (Some(super::line_of(src, bs.span().start)), "blocks"),
+                _ => (
+                    key_line(src, model_sections(src).first().copied(), "grid"),
+                    "model.grid",
+                ),
+            };
             return Err(cx.err_line(
-                key_line(src, model_sections(src).first().copied(), "grid"),
-                "model.grid",
+                line,
+                key,
                 format!(
                     "{blocks} blocks × the grid × {n_eval} evaluation points need {:.1} GiB of accumulators (at most 8); lower `blocks`, the grid or `eval_size`",
                     bytes / 1024f64.powi(3)
