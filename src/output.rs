@@ -1304,7 +1304,7 @@ mod tests {
             }
             got
         });
-        write_one("--out", &fifo, &[], &bytes).unwrap();
+        write_one("--out", &fifo, &[], bytes.clone()).unwrap();
         let got = handle.join().unwrap();
         assert!(got == bytes, "the reader got {} bytes", got.len());
         assert!(fs::symlink_metadata(&fifo).unwrap().file_type().is_fifo());
@@ -1348,7 +1348,7 @@ mod tests {
         let (tx, rx) = mpsc::channel();
         let fifo2 = fifo.clone();
         std::thread::spawn(move || {
-            let _ = tx.send(write_one("--out", &fifo2, &[], &vec![b'x'; 1 << 20]));
+            let _ = tx.send(write_one("--out", &fifo2, &[], vec![b'x'; 1 << 20]));
         });
         let res = rx
             .recv_timeout(STALL_LIMIT + Duration::from_secs(3))

@@ -456,7 +456,7 @@ fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
         "r.json",
         "-q",
     ];
-    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+    let child = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
         .args(args)
         .current_dir(d)
         .stderr(std::process::Stdio::piped())
