@@ -432,6 +432,49 @@ impl Loss for Brier {
         v
     }
 
+    /// `bias_sq = mean_e ‖p̄_e − p_e‖² − V̂/R` is quadratic in the errors of the mean
+    /// probability vectors: its second-order sampling variance is added to the jackknife's, as
+    /// for the squared loss (`squared::Squared::second_order_stderr`), with the covariance of
+    /// the points' probability vectors (points × classes). Known truths only.
+    fn second_order_stderr(
+        &self,
+        blocks: &[&Acc],
+        total: &Acc,
+        target: &Target<'_>,
+        se: &mut [Row],
+    ) {
+        let sh = total.shape;
+        if target.observed() || !sh.all_points || sh.points == 0 {
+            return;
+        }
+        let Some(b) = self
+            .describe(&sh, false)
+            .iter()
+            .position(|t| t.key == "bias_sq")
+        else {
+            return;
+        };
+        let width = sh.points * sh.classes;
+        let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
+        for (g, row) in se.iter_mut().enumerate() {
+            let cells = g * width..(g + 1) * width;
+            let means: Vec<&[f64]> = blocks
+                .iter()
+                .map(|a| &a.floats[MEAN][cells.clone()])
+                .collect();
+            if let Some(v) = super::second_order_var(
+                &means,
+                &sizes,
+                &total.floats[MEAN][cells.clone()],
+                sh.points,
+                total.replicates as f64,
+                1.0,
+            ) {
+                super::add_in_quadrature(&mut row[b], v);
+            }
+        }
+    }
+
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
         let sh = acc.shape;
         let k = sh.classes;

@@ -345,6 +345,18 @@ pub trait Loss: Send + Sync {
     /// noise estimate). Default: nothing.
     fn adjust_stderr(&self, _shape: &Shape, _target: &Target<'_>, _se: &mut [Row]) {}
 
+    /// Adds to the jackknife's standard errors what it cannot see in the replicate blocks
+    /// `blocks` (folded into `total`): for a term quadratic in the mean prediction, the
+    /// second-order part of its sampling error. Default: nothing.
+    fn second_order_stderr(
+        &self,
+        _blocks: &[&Acc],
+        _total: &Acc,
+        _target: &Target<'_>,
+        _se: &mut [Row],
+    ) {
+    }
+
     /// Per-point columns for the per-point CSV: name, and whether the value is a class index to
     /// be written as its label.
     fn point_columns(&self, shape: &Shape, observed: bool) -> Vec<(&'static str, bool)>;
@@ -517,6 +529,74 @@ impl Acc {
             return Err("more arrays than the loss defines".into());
         }
         Ok(())
+    }
+}
+
+/// An unbiased estimate of `tr(C²)`, where `C` is the covariance of one replicate's values
+/// across the evaluation points, from the blocks' mean values: `means[b]` holds block `b`'s
+/// means over its `sizes[b]` replicates (every block evaluates every point) and `centre` the
+/// means over all blocks. With `x_b = √n_b (m_b − m)` and `S = Σ_b x_b x_bᵀ / N` (`N` = blocks −
+/// 1 degrees of freedom), `N² / ((N − 1)(N + 2)) · (tr S² − (tr S)² / N)` is unbiased for
+/// `tr C²` under normality (Srivastava 2005, *Journal of the Japan Statistical Society* 35:
+/// 251–272, from memory); it is computed from the blocks' Gram matrix, `tr S² = ‖G‖²/N²`,
+/// `tr S = tr G / N`. `None` with fewer than 4 blocks.
+pub fn trace_cov_squared(means: &[&[f64]], sizes: &[f64], centre: &[f64]) -> Option<f64> {
+    let b = means.len();
+    if b < 4 || sizes.len() != b {
+        return None;
+    }
+    let x: Vec<Vec<f64>> = means
+        .iter()
+        .zip(sizes)
+        .map(|(m, &n)| {
+            let w = n.sqrt();
+            m.iter().zip(centre).map(|(a, c)| w * (a - c)).collect()
+        })
+        .collect();
+    let mut frob = 0.0;
+    let mut trace = 0.0;
+    for i in 0..b {
+        for j in i..b {
+            let g: f64 = x[i].iter().zip(&x[j]).map(|(a, c)| a * c).sum();
+            if i == j {
+                trace += g;
+                frob += g * g;
+            } else {
+                frob += 2.0 * g * g;
+            }
+        }
+    }
+    let n = (b - 1) as f64;
+    let ts2 = frob / (n * n);
+    let ts = trace / n;
+    let est = n * n / ((n - 1.0) * (n + 2.0)) * (ts2 - ts * ts / n);
+    est.is_finite().then_some(est.max(0.0))
+}
+
+/// The variance of the second-order part of a term `scale · mean_e Σ_c d²_{e,c}` (minus its
+/// finite-R correction), where `d` are the errors of the mean over all replicates of the
+/// per-replicate vectors whose block means `means[b]` hold (`points` evaluation points, `R` =
+/// `replicates` in all): `2 scale² tr(C²) / (points² R²)` for Gaussian errors, with `tr C²` from
+/// [`trace_cov_squared`]. `None` with fewer than 4 blocks.
+pub fn second_order_var(
+    means: &[&[f64]],
+    sizes: &[f64],
+    centre: &[f64],
+    points: usize,
+    replicates: f64,
+    scale: f64,
+) -> Option<f64> {
+    let tr = trace_cov_squared(means, sizes, centre)?;
+    let e = points as f64;
+    let v = 2.0 * scale * scale * tr / (e * e * replicates * replicates);
+    v.is_finite().then_some(v)
+}
+
+/// Adds `var` to the standard error `se` in quadrature (a standard error that is not finite
+/// stays as it is).
+pub fn add_in_quadrature(se: &mut f64, var: f64) {
+    if se.is_finite() && var.is_finite() && var >= 0.0 {
+        *se = (*se * *se + var).sqrt();
     }
 }
 
@@ -794,6 +874,9 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
                 (lower[g][t], upper[g][t]) = percentile_interval(&v, nb);
             }
         }
+    }
+    if nb >= 2 {
+        loss.second_order_stderr(blocks, &total, target, &mut stderr);
     }
     loss.adjust_stderr(&total.shape, target, &mut stderr);
     Some(Summary {
