@@ -1046,18 +1046,39 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
             })
             .collect::<Vec<_>>()
     };
+    // A single-model or single-size document lists none (its one model and size are the
+    // scenario's): said as such, not as "[]".
+    let one_model = |d: &ResultDoc| {
+        let grid: Vec<String> = d.scenario.grid.iter().map(|v| fmt_value(*v)).collect();
+        format!("one model ({} {} [{}])", d.family, d.knob, grid.join(", "))
+    };
     let (ma, mb) = (models(new), models(base));
     if ma != mb {
+        let say = |m: &[String], d: &ResultDoc| {
+            if m.is_empty() {
+                one_model(d)
+            } else {
+                format!("[{}]", m.join("; "))
+            }
+        };
         return Some(format!(
-            "the models differ: [{}] in the result, [{}] in the baseline",
-            ma.join("; "),
-            mb.join("; ")
+            "the models differ: {} in the result, {} in the baseline",
+            say(&ma, new),
+            say(&mb, base)
         ));
     }
     if new.sizes != base.sizes {
+        let say = |d: &ResultDoc| {
+            if d.sizes.is_empty() {
+                format!("one size ({})", d.scenario.train_size)
+            } else {
+                format!("{:?}", d.sizes)
+            }
+        };
         return Some(format!(
-            "the training sizes differ: {:?} in the result, {:?} in the baseline",
-            new.sizes, base.sizes
+            "the training sizes differ: {} in the result, {} in the baseline",
+            say(new),
+            say(base)
         ));
     }
     // A table source: the same data and resampling (Monte Carlo shares and the file's location

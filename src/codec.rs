@@ -200,6 +200,11 @@ pub fn read_document(
         }
         head(&bytes).map_err(|m| refuse(format!("not a {what}: {m}")))?;
     }
+    // A byte-order mark (an editor's, on Windows) is not part of the text: JSON and TOML
+    // parsers refused it as an invalid character at line 1, column 1.
+    if bytes.starts_with(b"\xef\xbb\xbf") {
+        bytes.drain(..3);
+    }
     String::from_utf8(bytes).map_err(|e| {
         refuse(format!(
             "not UTF-8 text (invalid byte at offset {}), not a {what}",
@@ -372,7 +377,12 @@ pub fn json_object(head: &[u8]) -> Result<(), String> {
             "a JSON object (`{{ ... }}`) was expected, the text starts with `{}`",
             char::from(*b).escape_default()
         )),
-        None => Err("the file is empty".into()),
+        None if skip.is_empty() => Err("the file is empty".into()),
+        // Only blank space as far as the probe reaches: the whole file when it is shorter than
+        // a probe (a blank file), else the parse of the whole text decides (a valid document
+        // after 64 KiB of blank lines was refused as "empty").
+        None if head.len() < 1 << 16 => Err("the file holds only blank space".into()),
+        None => Ok(()),
     }
 }
 

@@ -154,6 +154,26 @@ fn command_line_check() {
     assert_eq!(code, 0);
     assert!(out.starts_with("identical"), "{out}");
 
+    // A baseline saved by an editor with a byte-order mark, or after more blank space than
+    // the first look reads (64 KiB), is the same document: both were refused ("invalid JSON at
+    // line 1 column 1"; "the file is empty").
+    let text = std::fs::read(d.join("base.json")).unwrap();
+    let mut bom = b"\xef\xbb\xbf".to_vec();
+    bom.extend_from_slice(&text);
+    std::fs::write(d.join("bom.json"), bom).unwrap();
+    let mut blank = vec![b' '; 66_000];
+    blank.extend_from_slice(&text);
+    std::fs::write(d.join("blank.json"), blank).unwrap();
+    for b in ["bom.json", "blank.json"] {
+        let (code, out, err) = run3(d, &["check", "same.json", "--baseline", b]);
+        assert_eq!(code, 0, "{b}: {err}");
+        assert!(out.starts_with("identical"), "{b}: {out}");
+    }
+    std::fs::write(d.join("spaces.json"), b"  \n\n  ").unwrap();
+    let (code, _, err) = run3(d, &["check", "same.json", "--baseline", "spaces.json"]);
+    assert_eq!(code, 2);
+    assert!(err.contains("holds only blank space"), "{err}");
+
     let (code, out, _) = run3(d, &["check", "noisy.json", "--baseline", "base.json"]);
     assert_eq!(code, 1, "{out}");
     assert!(
