@@ -20,13 +20,24 @@ use crate::output::{note, noteln, out, outln};
 
 /// The files a plan reads besides the scenario (a table, a twin's table, the files an external
 /// estimator runs).
-fn data_inputs(plan: &Plan) -> Vec<PathBuf> {
-    let mut files: Vec<PathBuf> = match &plan.source {
-        Source::Table(t) => vec![t.table.path.clone()],
-        Source::Synthetic(s) => s.process.source_file().into_iter().collect(),
+fn data_inputs(plan: &Plan) -> Vec<(&'static str, PathBuf)> {
+    let data = "the scenario's data file";
+    let mut files: Vec<(&'static str, PathBuf)> = match &plan.source {
+        Source::Table(t) => vec![(data, t.table.path.clone())],
+        Source::Synthetic(s) => s
+            .process
+            .source_file()
+            .map(|f| (data, f))
+            .into_iter()
+            .collect(),
     };
     for m in &plan.models {
-        files.extend(m.family.input_files());
+        files.extend(
+            m.family
+                .input_files()
+                .into_iter()
+                .map(|f| ("a file the external estimator runs", f)),
+        );
     }
     files
 }
@@ -288,8 +299,8 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
             set.input("the scenario's holdout ledger", &ledger);
         }
     }
-    for p in data_inputs(&plan) {
-        set.input("the scenario's data file", &p);
+    for (role, p) in data_inputs(&plan) {
+        set.input(role, &p);
     }
     if let Some(ck) = &args.checkpoint {
         // A checkpoint is rewritten as the run goes and read back to resume: standard
@@ -321,8 +332,8 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
             inputs.push(("the scenario file", p));
         }
         let data = data_inputs(&plan);
-        for p in &data {
-            inputs.push(("the scenario's data file", p));
+        for (role, p) in &data {
+            inputs.push((role, p));
         }
         let mut outs: Vec<(&str, &Path)> = vec![("--checkpoint", ck)];
         for (flag, p) in [
@@ -519,8 +530,8 @@ pub fn merge(args: MergeArgs) -> Result<u8, Error> {
     if ledger.exists() {
         set.input("the scenario's holdout ledger", &ledger);
     }
-    for p in data_inputs(&merged.plan) {
-        set.input("the scenario's data file", &p);
+    for (role, p) in data_inputs(&merged.plan) {
+        set.input(role, &p);
     }
     if args.plot_points.is_some() {
         report::plot::check_point_request(&merged.plan, args.input.as_deref())?;

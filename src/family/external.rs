@@ -166,7 +166,12 @@ pub fn parse_head(line: &str, id: u64) -> Result<Head, String> {
         Some("ok") if right_id => Ok(Head::Ok),
         Some("error") if right_id => {
             let rest: Vec<&str> = t.collect();
-            Ok(Head::Failed(clip(&rest.join(" "))))
+            let why = rest.join(" ");
+            Ok(Head::Failed(if why.trim().is_empty() {
+                "(no reason given)".into()
+            } else {
+                clip(&why)
+            }))
         }
         Some("ok") | Some("error") if !right_id => Err(format!(
             "{:?}: wrong request id (expected `ok {id}`)",
@@ -630,7 +635,8 @@ impl ExternalFamily {
         };
         let what = format!(
             "request {id} (fit: task {task}, n = {n} training rows, p = {p} inputs, \
-             m = {m} evaluation points, {g} values of {})",
+             m = {m} evaluation points, {g} {} of {})",
+            if g == 1 { "value" } else { "values" },
             self.knob
         );
         let mut req = String::with_capacity(32 * (n * (p + 1) + m * p + g) + 128);
@@ -684,7 +690,16 @@ impl ExternalFamily {
         }
         let mut row = vec![0.0; m * classes.max(1)];
         for (gi, &v) in grid.iter().enumerate() {
-            let line = self.recv(w, deadline, &what)?;
+            // A missing line shows only as a timeout: say how far the answer got.
+            let line = if gi == 0 {
+                self.recv(w, deadline, &what)?
+            } else {
+                self.recv(
+                    w,
+                    deadline,
+                    &format!("{what}, after {gi} of {g} `pred` lines"),
+                )?
+            };
             let at = format!("{} = {v}", self.knob);
             if let Err(e) = parse_row(&line, "pred", &mut row[..m]) {
                 w.kill();
