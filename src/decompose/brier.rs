@@ -443,36 +443,9 @@ impl Loss for Brier {
         target: &Target<'_>,
         se: &mut [Row],
     ) {
-        let sh = total.shape;
-        if target.observed() || !sh.all_points || sh.points == 0 {
-            return;
-        }
-        let Some(b) = self
-            .describe(&sh, false)
-            .iter()
-            .position(|t| t.key == "bias_sq")
-        else {
-            return;
-        };
-        let width = sh.points * sh.classes;
-        let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
-        for (g, row) in se.iter_mut().enumerate() {
-            let cells = g * width..(g + 1) * width;
-            let means: Vec<&[f64]> = blocks
-                .iter()
-                .map(|a| &a.floats[MEAN][cells.clone()])
-                .collect();
-            if let Some(v) = super::second_order_var(
-                &means,
-                &sizes,
-                &total.floats[MEAN][cells.clone()],
-                sh.points,
-                total.replicates as f64,
-                1.0,
-            ) {
-                super::add_in_quadrature(&mut row[b], v);
-            }
-        }
+        let w = total.shape.points * total.shape.classes;
+        let means = super::BlockMeans::Floats(MEAN);
+        super::add_second_order(self, "bias_sq", blocks, total, target, se, 1.0, w, means);
     }
 
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {

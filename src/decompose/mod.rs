@@ -592,11 +592,73 @@ pub fn second_order_var(
     v.is_finite().then_some(v)
 }
 
-/// Adds `var` to the standard error `se` in quadrature (a standard error that is not finite
-/// stays as it is).
-pub fn add_in_quadrature(se: &mut f64, var: f64) {
-    if se.is_finite() && var.is_finite() && var >= 0.0 {
-        *se = (*se * *se + var).sqrt();
+/// Where [`add_second_order`] reads the per-block mean vectors: a float array of means, or a
+/// count array turned into shares of the block's replicates (vote shares).
+#[derive(Debug, Clone, Copy)]
+pub enum BlockMeans {
+    /// `floats[i]`, already means.
+    Floats(usize),
+    /// `counts[i] / replicates`.
+    Shares(usize),
+}
+
+impl BlockMeans {
+    fn read<'a>(self, a: &'a Acc, cells: std::ops::Range<usize>) -> std::borrow::Cow<'a, [f64]> {
+        match self {
+            BlockMeans::Floats(i) => std::borrow::Cow::Borrowed(&a.floats[i][cells]),
+            BlockMeans::Shares(i) => {
+                let n = a.replicates.max(1) as f64;
+                a.counts[i][cells].iter().map(|&c| c as f64 / n).collect()
+            }
+        }
+    }
+}
+
+/// Adds to the standard error of term `key` (of `loss`, at every grid value) the second-order
+/// variance of [`second_order_var`]: the term is `scale` times a mean over the points of
+/// squared errors of per-replicate vectors, `width` values per grid value (the points, or
+/// points × classes), whose block means `means` holds. Only with a known truth and every point
+/// evaluated by every block (synthetic and twin sources); a standard error that is not finite
+/// stays as it is.
+#[allow(clippy::too_many_arguments)]
+pub fn add_second_order(
+    loss: &dyn Loss,
+    key: &str,
+    blocks: &[&Acc],
+    total: &Acc,
+    target: &Target<'_>,
+    se: &mut [Row],
+    scale: f64,
+    width: usize,
+    means: BlockMeans,
+) {
+    let sh = total.shape;
+    if target.observed() || !sh.all_points || sh.points == 0 {
+        return;
+    }
+    let Some(t) = loss.describe(&sh, false).iter().position(|i| i.key == key) else {
+        return;
+    };
+    let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
+    for (g, row) in se.iter_mut().enumerate() {
+        let cells = g * width..(g + 1) * width;
+        let per_block: Vec<std::borrow::Cow<'_, [f64]>> = blocks
+            .iter()
+            .map(|a| means.read(a, cells.clone()))
+            .collect();
+        let slices: Vec<&[f64]> = per_block.iter().map(|c| c.as_ref()).collect();
+        let centre = means.read(total, cells);
+        let var = second_order_var(
+            &slices,
+            &sizes,
+            &centre,
+            sh.points,
+            total.replicates as f64,
+            scale,
+        );
+        if let (Some(v), true) = (var, row[t].is_finite()) {
+            row[t] = (row[t] * row[t] + v).sqrt();
+        }
     }
 }
 

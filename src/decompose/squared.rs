@@ -741,37 +741,9 @@ impl Loss for Squared {
         target: &Target<'_>,
         se: &mut [Row],
     ) {
-        let sh = total.shape;
-        if target.observed() || !sh.all_points || sh.points == 0 {
-            return;
-        }
-        let Some(b) = self
-            .describe(&sh, false)
-            .iter()
-            .position(|t| t.key == "bias_sq")
-        else {
-            return;
-        };
-        let e = sh.points;
-        let r = total.replicates as f64;
-        let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
-        for (g, row) in se.iter_mut().enumerate() {
-            let cells = g * e..(g + 1) * e;
-            let means: Vec<&[f64]> = blocks
-                .iter()
-                .map(|a| &a.floats[MEAN][cells.clone()])
-                .collect();
-            if let Some(var2) = super::second_order_var(
-                &means,
-                &sizes,
-                &total.floats[MEAN][cells.clone()],
-                e,
-                r,
-                1.0,
-            ) {
-                super::add_in_quadrature(&mut row[b], var2);
-            }
-        }
+        let e = total.shape.points;
+        let means = super::BlockMeans::Floats(MEAN);
+        super::add_second_order(self, "bias_sq", blocks, total, target, se, 1.0, e, means);
     }
 
     fn adjust_stderr(&self, shape: &Shape, target: &Target<'_>, se: &mut [Row]) {

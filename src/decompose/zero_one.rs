@@ -767,40 +767,13 @@ impl Loss for ZeroOne {
         target: &Target<'_>,
         se: &mut [Row],
     ) {
-        let sh = total.shape;
-        if target.observed() || !sh.all_points || sh.points == 0 || sh.fits != 1 {
+        if total.shape.fits != 1 {
             return;
         }
-        let Some(b) = self
-            .describe(&sh, false)
-            .iter()
-            .position(|t| t.key == "kohavi_wolpert.bias_sq")
-        else {
-            return;
-        };
-        let width = sh.points * sh.classes;
-        let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
-        let shares = |a: &Acc, g: usize| -> Vec<f64> {
-            let n = a.replicates.max(1) as f64;
-            a.counts[VOTES][g * width..(g + 1) * width]
-                .iter()
-                .map(|&c| c as f64 / n)
-                .collect()
-        };
-        for (g, row) in se.iter_mut().enumerate() {
-            let per_block: Vec<Vec<f64>> = blocks.iter().map(|a| shares(a, g)).collect();
-            let means: Vec<&[f64]> = per_block.iter().map(Vec::as_slice).collect();
-            if let Some(v) = super::second_order_var(
-                &means,
-                &sizes,
-                &shares(total, g),
-                sh.points,
-                total.replicates as f64,
-                0.5,
-            ) {
-                super::add_in_quadrature(&mut row[b], v);
-            }
-        }
+        let w = total.shape.points * total.shape.classes;
+        let means = super::BlockMeans::Shares(VOTES);
+        let key = "kohavi_wolpert.bias_sq";
+        super::add_second_order(self, key, blocks, total, target, se, 0.5, w, means);
     }
 
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {
