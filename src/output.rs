@@ -641,6 +641,48 @@ fn side_name(name: &OsStr, what: &str) -> OsString {
     ))
 }
 
+/// Removes the staged copies (`.NAME.PID.N.tmp`) that a process killed while writing `path`
+/// left beside it (a SIGKILL during a checkpoint's rewrite left a 51 MB `.ck.json.31421.12.tmp`
+/// that no later run removed). Only files of processes that no longer run are removed (Linux:
+/// `/proc/PID` is gone); backups (`.bak`), which may hold the only copy of a replaced file, are
+/// kept. Elsewhere nothing is removed. Errors are ignored: this is tidying.
+pub fn remove_stale_staging(path: &Path) {
+    if !Path::new("/proc/self").exists() {
+        return;
+    }
+    let (dir, name) = split(path);
+    let full = name.to_string_lossy();
+    let mut cut = full.len().min(120);
+    while !full.is_char_boundary(cut) {
+        cut -= 1;
+    }
+    let prefix = format!(".{}.", &full[..cut]);
+    let Ok(entries) = fs::read_dir(dir) else {
+        return;
+    };
+    for entry in entries.flatten() {
+        let file = entry.file_name();
+        let file = file.to_string_lossy();
+        let Some(rest) = file
+            .strip_prefix(&prefix)
+            .and_then(|r| r.strip_suffix(".tmp"))
+        else {
+            continue;
+        };
+        let mut parts = rest.split('.');
+        let (Some(pid), Some(n), None) = (parts.next(), parts.next(), parts.next()) else {
+            continue;
+        };
+        if pid.parse::<u32>().is_err() || n.parse::<u64>().is_err() {
+            continue;
+        }
+        let alive = Path::new("/proc").join(pid).exists();
+        if !alive && entry.file_type().is_ok_and(|t| t.is_file()) {
+            let _ = fs::remove_file(entry.path());
+        }
+    }
+}
+
 // ---------------------------------------------------------------------------------------------
 // Writing
 

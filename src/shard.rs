@@ -852,6 +852,9 @@ pub fn execute(job: &Job<'_>) -> Result<Finish, Error> {
     let wanted = job_blocks(plan, job.shard)?;
     let prepared = runner::prepare_to_fit(plan)?;
     let points = prepared.points();
+    if let Some(path) = job.checkpoint {
+        crate::output::remove_stale_staging(path);
+    }
     let start = match job.checkpoint {
         Some(path) => load_checkpoint(path, job, &fp, &wanted, points)?.unwrap_or_default(),
         None => BTreeMap::new(),

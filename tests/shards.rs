@@ -496,6 +496,40 @@ fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
     assert_eq!(read(d, "r.json"), read(d, "full.json"));
 }
 
+/// Staged copies left beside a checkpoint by a killed process are removed when a run uses the
+/// checkpoint again; those of a running process and backups are kept.
+#[cfg(target_os = "linux")]
+#[test]
+fn a_killed_writers_staged_copies_are_removed_and_nothing_else() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), SMALL).unwrap();
+    // 4294967 is above Linux's largest process id (pid_max is at most 2^22).
+    let stale = ".ck.json.4294967.12.tmp";
+    let live = format!(".ck.json.{}.3.tmp", std::process::id());
+    let backup = ".ck.json.4294967.4.bak";
+    let other = ".other.json.4294967.1.tmp";
+    for f in [stale, live.as_str(), backup, other] {
+        fs::write(d.join(f), "partial").unwrap();
+    }
+    ok(
+        d,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "ck.json",
+            "--out",
+            "r.json",
+            "-q",
+        ],
+    );
+    assert!(!d.join(stale).exists());
+    for f in [live.as_str(), backup, other] {
+        assert!(d.join(f).exists(), "{f} was removed");
+    }
+}
+
 #[test]
 fn an_interrupted_run_resumes_to_the_uninterrupted_result() {
     let dir = tempfile::tempdir().unwrap();

@@ -111,9 +111,11 @@ impl Family for LogisticFamily {
     }
 
     fn zero_probability_remedy(&self) -> &'static str {
-        "the logistic family gives 0 to a class absent from a training set (enlarge `train_size`), or \
-         when a weak penalty lets it separate the classes and a probability underflows (smaller \
-         `inverse_penalty` values in the grid)"
+        "the logistic family gives 0 to a class absent from a training set (a class on very few \
+         rows of a table is absent whenever they are held out: merge or drop it, or score with \
+         `kind = \"brier\"`; a small `train_size` does it too), or when a weak penalty lets it \
+         separate the classes and a probability underflows (smaller `inverse_penalty` values in \
+         the grid)"
     }
 
     fn knob(&self) -> &'static str {
