@@ -106,7 +106,11 @@ pub enum OnInterrupt {
 
 /// Installs the Ctrl-C handler. Installing twice is harmless (the second call is ignored).
 pub fn install_interrupt(mode: OnInterrupt) {
-    let _ = ctrlc::set_handler(move || match &mode {
+    // The handler also takes SIGTERM (a batch system's time limit, `timeout`) and SIGHUP; a
+    // SIGHUP that was ignored at start (`nohup`) stays ignored, or a closed terminal would stop
+    // a run started to outlive it.
+    let hup_ignored = hangup::ignored();
+    let installed = ctrlc::set_handler(move || match &mode {
         OnInterrupt::ExitNow {
             checkpoint: Some(ck),
         } => {
@@ -139,6 +143,39 @@ pub fn install_interrupt(mode: OnInterrupt) {
             );
         }
     });
+    if installed.is_ok() && hup_ignored {
+        hangup::ignore();
+    }
+}
+
+/// Whether SIGHUP is ignored, and ignoring it again (Unix; elsewhere there is none).
+mod hangup {
+    #[cfg(unix)]
+    pub fn ignored() -> bool {
+        // SAFETY: sigaction with a null new action only reads the current one into `old`, a
+        // zeroed plain C struct owned here.
+        unsafe {
+            let mut old: libc::sigaction = std::mem::zeroed();
+            libc::sigaction(libc::SIGHUP, std::ptr::null(), &mut old) == 0
+                && old.sa_sigaction == libc::SIG_IGN
+        }
+    }
+
+    #[cfg(unix)]
+    pub fn ignore() {
+        // SAFETY: setting SIG_IGN installs no Rust code as a handler.
+        unsafe {
+            libc::signal(libc::SIGHUP, libc::SIG_IGN);
+        }
+    }
+
+    #[cfg(not(unix))]
+    pub fn ignored() -> bool {
+        false
+    }
+
+    #[cfg(not(unix))]
+    pub fn ignore() {}
 }
 
 /// The progress display of one run; a [`Watch`] for [`crate::runner::run_watched`].

@@ -424,16 +424,9 @@ fn bad_shard_flags_are_usage_errors_naming_the_flag() {
     assert!(!d.join("p.json").exists());
 }
 
-/// SIGTERM (what Slurm, `timeout` and service managers send) stops a run as Ctrl-C does: the
-/// blocks in flight finish, the checkpoint keeps every finished block, and resuming gives the
-/// uninterrupted result. Before, the process died at once with no word, and a staging file
-/// could be left beside the checkpoint.
-#[cfg(unix)]
-#[test]
-fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
-    let slow = SMALL
+/// A run of a few seconds (k-NN, 12 000 replicates in 100 blocks), for signals.
+fn slow_scenario() -> String {
+    SMALL
         .replace(
             "replicates = 28\nblocks = 14",
             "replicates = 12000\nblocks = 100",
@@ -445,8 +438,51 @@ fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
         .replace(
             "family = \"tree\"\ngrid = [1, 2, 3, 4]",
             "family = \"knn\"\ngrid = [1, 2, 3, 5, 8, 13, 21]",
-        );
-    fs::write(d.join("s.toml"), slow).unwrap();
+        )
+}
+
+/// A SIGHUP ignored at start (`nohup`) stays ignored: the handler that stops a run on SIGTERM
+/// also takes SIGHUP, and a `nohup` run was stopped, nothing written, when its terminal closed.
+#[cfg(unix)]
+#[test]
+fn a_run_started_with_hangups_ignored_ignores_them() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), slow_scenario()).unwrap();
+    let child = std::process::Command::new("sh")
+        .current_dir(d)
+        .args([
+            "-c",
+            "trap '' HUP; exec \"$0\" run s.toml --checkpoint ck.json --out r.json -q",
+            env!("CARGO_BIN_EXE_lossprism"),
+        ])
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let waited = std::time::Instant::now();
+    while !d.join("ck.json").exists() && waited.elapsed().as_secs() < 60 {
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    let status = std::process::Command::new("kill")
+        .args(["-HUP", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(status.success());
+    let out = child.wait_with_output().unwrap();
+    assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
+    assert!(d.join("r.json").exists());
+}
+
+/// SIGTERM (what Slurm, `timeout` and service managers send) stops a run as Ctrl-C does: the
+/// blocks in flight finish, the checkpoint keeps every finished block, and resuming gives the
+/// uninterrupted result. Before, the process died at once with no word, and a staging file
+/// could be left beside the checkpoint.
+#[cfg(unix)]
+#[test]
+fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), slow_scenario()).unwrap();
     let args = [
         "run",
         "s.toml",
