@@ -8,7 +8,42 @@ use clap::Parser;
 use lossprism::cli::{Cli, Command};
 use lossprism::commands;
 
+/// Whether standard output was closed when the process started, read before the Rust runtime
+/// reopens a closed descriptor on `/dev/null` (after which every write succeeds and vanishes).
+/// Linux only (an `.init_array` constructor); elsewhere it is never reported.
+#[cfg(any(target_os = "linux", target_os = "android"))]
+mod stdout_probe {
+    use std::sync::atomic::{AtomicBool, Ordering};
+
+    static CLOSED: AtomicBool = AtomicBool::new(false);
+
+    extern "C" fn probe() {
+        // SAFETY: fcntl(F_GETFD) on descriptor 1 only reads its flags; nothing else runs yet.
+        if unsafe { libc::fcntl(1, libc::F_GETFD) } == -1 {
+            CLOSED.store(true, Ordering::Relaxed);
+        }
+    }
+
+    // Runs before `main` and before the runtime's own start-up (which reopens closed standard
+    // descriptors), as every `.init_array` entry does.
+    #[used]
+    #[link_section = ".init_array"]
+    static PROBE: extern "C" fn() = probe;
+
+    pub fn closed() -> bool {
+        CLOSED.load(Ordering::Relaxed)
+    }
+}
+
+#[cfg(not(any(target_os = "linux", target_os = "android")))]
+mod stdout_probe {
+    pub fn closed() -> bool {
+        false
+    }
+}
+
 fn main() -> ExitCode {
+    lossprism::output::set_stdout_closed_at_start(stdout_probe::closed());
     let cli = match Cli::try_parse() {
         Ok(c) => c,
         Err(e) => {

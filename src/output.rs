@@ -400,7 +400,7 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         return Err(Error::Usage(format!("{flag}: empty file name")));
     }
     if given.as_os_str() == "-" {
-        if sys::stdout_closed_at_start() {
+        if stdout_closed_at_start() {
             return Err(Error::Usage(format!(
                 "{flag} -: standard output is closed, so the output would be lost; name a file \
                  (or redirect standard output to one)"
@@ -469,7 +469,16 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         // The very file standard output is redirected to (`--out r.json > r.json`): written
         // through standard output, as `-` is. Replacing it by a rename sent the run's words into
         // the old, unlinked file, and `>> log` lost the log's earlier lines.
-        Some(m) if m.is_file() && is_stdout(given) => Place::Stdout,
+        Some(m) if m.is_file() && is_stdout(given) => {
+            if !stdout_starts_empty() {
+                return Err(Error::Usage(format!(
+                    "{flag}: {shown} is the file standard output is redirected to, opened to \
+                     append (`>>`) or to read and write (`1<>`), so the output would be mixed \
+                     with what the file holds; name another file, or use `{flag} -` with `>`"
+                )));
+            }
+            Place::Stdout
+        }
         Some(m) if m.is_file() => {
             replaceable(flag, &shown, &loc.full)?;
             Place::Staged(loc.full.clone())
@@ -491,6 +500,29 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         },
         place,
     })
+}
+
+/// Standard output is a file opened write-only, not to append, at its start (a shell's `>`): an
+/// output written through it is the whole file. Read from `/proc/self/fdinfo/1` on Linux;
+/// elsewhere assumed.
+fn stdout_starts_empty() -> bool {
+    let Ok(info) = fs::read_to_string("/proc/self/fdinfo/1") else {
+        return true;
+    };
+    let field = |name: &str| {
+        info.lines()
+            .find_map(|l| l.strip_prefix(name))
+            .map(|v| v.trim().to_string())
+    };
+    let flags = field("flags:").and_then(|f| u32::from_str_radix(&f, 8).ok());
+    let pos = field("pos:").and_then(|p| p.parse::<u64>().ok());
+    // O_ACCMODE 3, O_WRONLY 1 and O_APPEND 0o2000 on every Linux architecture but a few old
+    // ones (Alpha, SPARC, PA-RISC, MIPS use other O_APPEND bits: there the append test is
+    // the position's).
+    match (flags, pos) {
+        (Some(f), Some(p)) => f & 3 == 1 && f & 0o2000 == 0 && p == 0,
+        _ => true,
+    }
 }
 
 /// An existing regular file an output may replace: one the user may write (a rename needs only
@@ -983,18 +1015,28 @@ fn wait(progress: Instant, nap: &mut Duration) -> io::Result<()> {
     Ok(())
 }
 
+static STDOUT_CLOSED: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// Records that standard output was closed when the process started (the binary reads it before
+/// the Rust runtime reopens the descriptor on `/dev/null`, where writes succeed and vanish).
+pub fn set_stdout_closed_at_start(closed: bool) {
+    STDOUT_CLOSED.store(closed, std::sync::atomic::Ordering::Relaxed);
+}
+
+/// Whether standard output was closed at start ([`set_stdout_closed_at_start`]; never in a
+/// library caller that did not say so).
+pub fn stdout_closed_at_start() -> bool {
+    STDOUT_CLOSED.load(std::sync::atomic::Ordering::Relaxed)
+}
+
 /// Writes `text` to standard output. A failed write (a closed pipe, a full disk, a closed
 /// descriptor) is an error naming standard output — never the panic of `print!`.
 pub fn say(text: &str) -> Result<(), Error> {
-    // A closed standard output was reopened on /dev/null by the runtime: every write succeeds
-    // and the words (a run's table) vanish with exit 0.
-    static CLOSED: std::sync::OnceLock<bool> = std::sync::OnceLock::new();
-    if *CLOSED.get_or_init(sys::stdout_closed_at_start) {
-        return Err(Error::Usage(
-            "standard output is closed, so what lossprism prints there would be lost; \
-             redirect it to a file (or to /dev/null to discard it)"
-                .into(),
-        ));
+    // A standard output closed at start was chosen by whoever started the process: words
+    // printed there are discarded (a run that would print only there is refused before it
+    // starts, `commands::run`).
+    if stdout_closed_at_start() {
+        return Ok(());
     }
     let text = terminal_text(text);
     let mut out = io::stdout().lock();
@@ -1172,25 +1214,6 @@ mod sys {
             }
         }
     }
-
-    /// Standard output was closed when the process started. The Rust runtime then opens
-    /// `/dev/null` read-write in its place, so writes succeed and vanish; a shell's `> /dev/null`
-    /// opens it write-only. Read from `/proc` on Linux; elsewhere never reported.
-    pub fn stdout_closed_at_start() -> bool {
-        if !cfg!(any(target_os = "linux", target_os = "android")) {
-            return false;
-        }
-        let null = std::fs::read_link("/proc/self/fd/1")
-            .map(|p| p == std::path::Path::new("/dev/null"))
-            .unwrap_or(false);
-        let read_write = || {
-            let info = std::fs::read_to_string("/proc/self/fdinfo/1").ok()?;
-            let flags = info.lines().find_map(|l| l.strip_prefix("flags:"))?.trim();
-            // O_ACCMODE is 3 and O_RDWR 2 on every Linux architecture.
-            Some(u32::from_str_radix(flags, 8).ok()? & 3 == 2)
-        };
-        null && read_write().unwrap_or(false)
-    }
 }
 
 /// Platform details where there are no device numbers, FIFOs or open flags to speak of.
@@ -1215,10 +1238,6 @@ mod sys {
     pub fn no_wait(_: &mut OpenOptions) {}
 
     pub fn copy_owner(_: &File, _: &Metadata) {}
-
-    pub fn stdout_closed_at_start() -> bool {
-        false
-    }
 }
 
 #[cfg(all(test, target_os = "linux"))]

@@ -696,12 +696,30 @@ fn out_dash_with_standard_output_closed_is_refused() {
         .output()
         .unwrap();
     assert_eq!(table.status.code(), Some(2), "{}", text(&table.stderr));
-    assert!(text(&table.stderr).contains("standard output is closed"));
+    assert!(text(&table.stderr).contains("standard output is closed and no output file is named"));
+    // /dev/null opened read-write (Python's subprocess.DEVNULL, a shell's `1<>/dev/null`) is a
+    // choice to discard, not a closed descriptor: it ran before and runs now (a first version of
+    // the check read it as closed).
+    for redirect in ["1<>/dev/null", ">&- --out r2.json"] {
+        let out = std::process::Command::new("sh")
+            .current_dir(dir.path())
+            .args(["-c", &format!("exec \"$0\" run \"$1\" {redirect}")])
+            .args([bin(), f.as_str()])
+            .output()
+            .unwrap();
+        assert_eq!(
+            out.status.code(),
+            Some(0),
+            "{redirect}: {}",
+            text(&out.stderr)
+        );
+    }
+    assert!(dir.path().join("r2.json").exists());
 }
 
-/// An output named by the very file standard output is redirected to is written through
+/// An output named by the very file standard output is redirected to (`>`) is written through
 /// standard output, as `-` is (the table goes to standard error): a rename replaced the file,
-/// so the table went into the old, unlinked one and `>> log` lost the log's earlier lines.
+/// so the table went into the old, unlinked one, and `>> log` lost the log's earlier lines.
 #[cfg(target_os = "linux")]
 #[test]
 fn an_output_that_is_the_redirected_standard_output_is_written_through_it() {
@@ -724,11 +742,27 @@ fn an_output_that_is_the_redirected_standard_output_is_written_through_it() {
         text(&out.stderr).contains("reading:"),
         "the table on standard error"
     );
-    fs::write(dir.path().join("a.log"), "earlier line\n").unwrap();
-    let out = sh("exec \"$0\" run \"$1\" --out a.log --quiet >> a.log");
-    assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
-    let log = fs::read_to_string(dir.path().join("a.log")).unwrap();
-    assert!(log.starts_with("earlier line\n{"), "{}", &log[..40]);
+    // Opened to append or to read and write, the file would hold the output after (or over)
+    // what it held, which is no result document: refused, the file untouched (a second
+    // reading found `1<>` leaving an old tail after the JSON, exit 0).
+    for (redirect, held) in [(">>", "earlier line\n"), ("1<>", "a longer earlier text\n")] {
+        fs::write(dir.path().join("a.log"), held).unwrap();
+        let out = sh(&format!(
+            "exec \"$0\" run \"$1\" --out a.log --quiet {redirect} a.log"
+        ));
+        assert_eq!(
+            out.status.code(),
+            Some(2),
+            "{redirect}: {}",
+            text(&out.stderr)
+        );
+        assert!(
+            text(&out.stderr).contains("opened to append"),
+            "{}",
+            text(&out.stderr)
+        );
+        assert_eq!(fs::read_to_string(dir.path().join("a.log")).unwrap(), held);
+    }
 }
 
 /// A checkpoint that standard output is redirected to is named as such (the words of the run

@@ -276,6 +276,19 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         started,
         wall_label: "wall time",
     };
+    if crate::output::stdout_closed_at_start()
+        && !args.quiet
+        && !o.any()
+        && args.shard.is_none()
+        && args.checkpoint.is_none()
+    {
+        // The table is the only result, and a closed standard output would swallow it.
+        return Err(Error::Usage(
+            "standard output is closed and no output file is named, so the result would be \
+             lost: add --out FILE.json (or --csv, --report), or redirect standard output"
+                .into(),
+        ));
+    }
     if args.quiet && !o.any() && args.shard.is_none() && args.checkpoint.is_none() {
         // Report a bad scenario first (its data errors show when the evaluation points are
         // drawn), then the pointless request.
