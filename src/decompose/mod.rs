@@ -539,10 +539,10 @@ impl Acc {
 /// 1 degrees of freedom), `N² / ((N − 1)(N + 2)) · (tr S² − (tr S)² / N)` is unbiased for
 /// `tr C²` under normality (Srivastava 2005, *Journal of the Japan Statistical Society* 35:
 /// 251–272, from memory); it is computed from the blocks' Gram matrix, `tr S² = ‖G‖²/N²`,
-/// `tr S = tr G / N`. `None` with fewer than 4 blocks.
+/// `tr S = tr G / N`. `None` with fewer than 3 blocks (N − 1 = 0).
 pub fn trace_cov_squared(means: &[&[f64]], sizes: &[f64], centre: &[f64]) -> Option<f64> {
     let b = means.len();
-    if b < 4 || sizes.len() != b {
+    if b < 3 || sizes.len() != b {
         return None;
     }
     let x: Vec<Vec<f64>> = means
@@ -577,7 +577,7 @@ pub fn trace_cov_squared(means: &[&[f64]], sizes: &[f64], centre: &[f64]) -> Opt
 /// finite-R correction), where `d` are the errors of the mean over all replicates of the
 /// per-replicate vectors whose block means `means[b]` hold (`points` evaluation points, `R` =
 /// `replicates` in all): `2 scale² tr(C²) / (points² R²)` for Gaussian errors, with `tr C²` from
-/// [`trace_cov_squared`]. `None` with fewer than 4 blocks.
+/// [`trace_cov_squared`]. `None` with fewer than 3 blocks.
 pub fn second_order_var(
     means: &[&[f64]],
     sizes: &[f64],

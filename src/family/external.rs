@@ -290,13 +290,10 @@ impl Worker {
         self.kill();
     }
 
-    /// Closes standard input and reads standard output to its end (the process should exit),
-    /// for at most half a second; then stops the process as [`Worker::close`] does. Returns the
-    /// lines that came after the last answer (at most the first few) and their count: anything
-    /// there means earlier answers may have been read shifted by those lines.
-    fn drain(&mut self) -> (Option<String>, usize) {
-        self.requests = None;
-        let deadline = Instant::now() + Duration::from_millis(500);
+    /// Reads standard output (its standard input already closed) to its end or to `deadline`,
+    /// whichever comes first. Returns the first line that came after the last answer and how
+    /// many there were: anything there means earlier answers may have been read shifted.
+    fn drain_until(&mut self, deadline: Instant) -> (Option<String>, usize) {
         let (mut first, mut count) = (None, 0);
         loop {
             let left = deadline.saturating_duration_since(Instant::now());
@@ -313,7 +310,6 @@ impl Worker {
                 Ok(Line::Eof) | Ok(Line::Failed(_)) | Err(_) => break,
             }
         }
-        self.close();
         (first, count)
     }
 
@@ -419,23 +415,34 @@ impl ExternalFamily {
     /// one that serves a single request, as with one block per thread or per shard, shows them
     /// only here.)
     fn finish_all(&self) -> Result<(), String> {
-        let workers: Vec<Worker> = match self.idle.lock() {
+        let mut workers: Vec<Worker> = match self.idle.lock() {
             Ok(mut g) => g.drain(..).collect(),
             Err(_) => Vec::new(),
         };
+        // Every standard input closed first, then one shared half second for all of them (one
+        // after another, a slow exit cost half a second to a second per process).
+        for w in &mut workers {
+            w.requests = None;
+        }
+        let deadline = Instant::now() + Duration::from_millis(500);
         let mut first = None;
-        for mut w in workers {
-            let (line, count) = w.drain();
+        for w in &mut workers {
+            let (line, count) = w.drain_until(deadline);
             if count > 0 && first.is_none() {
                 first = Some(format!(
-                    "{} wrote {count} more {} after its answer to request {} (the first: \
-                     {:?}): an answer is exactly the `ok` line and its `pred`/`prob` lines, \
-                     and what came before may have been read shifted",
+                    "{} wrote {count} more {} after its last answer, before it exited (the \
+                     first: {:?}): an answer is exactly the `ok` line and its `pred`/`prob` \
+                     lines, and what came before may have been read shifted",
                     self.who(),
                     if count == 1 { "line" } else { "lines" },
-                    w.sent,
                     clip(line.as_deref().unwrap_or(""))
                 ));
+            }
+        }
+        // The half second is over for every process: reap those that exited, kill the rest.
+        for w in &mut workers {
+            if !matches!(w.child.try_wait(), Ok(Some(_))) {
+                w.kill();
             }
         }
         first.map_or(Ok(()), Err)
@@ -990,11 +997,18 @@ impl Family for ExternalFamily {
     /// scenario is read: `merge` reads it where the scripts may be absent.)
     fn check_ready(&self) -> Result<(), String> {
         let dir = self.dir.clone().unwrap_or_default();
-        let Some(w) = self
-            .command
-            .iter()
-            .find(|w| names_script(w) && !dir.join(w).exists())
-        else {
+        // Not checked: the program itself when it has no `/` (found on PATH), a word after an
+        // option that takes code (`sh -c "..."`, `perl -e`), a word with spaces (code, not a
+        // file name).
+        let takes_code = |w: &str| matches!(w, "-c" | "-e" | "-E" | "--eval" | "--command");
+        let Some(w) = self.command.iter().enumerate().find_map(|(i, w)| {
+            let checked = if i == 0 {
+                w.contains('/')
+            } else {
+                !takes_code(&self.command[i - 1]) && !w.chars().any(char::is_whitespace)
+            };
+            (checked && names_script(w) && !dir.join(w).exists()).then_some(w)
+        }) else {
             return Ok(());
         };
         let place = if Path::new(w).is_absolute() || dir.as_os_str().is_empty() {
