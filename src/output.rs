@@ -265,6 +265,25 @@ pub fn is_stdout(p: &Path) -> bool {
     }
 }
 
+/// Refuses a standard output that is one of the command's `inputs` (`(role, path)`), opened
+/// with `1<>` or `>>` (with `>` the shell has already emptied it): the words printed would be
+/// written over or after the input (a scenario, a baseline, a part), with exit 0.
+pub fn guard_inputs(inputs: &[(&str, &Path)]) -> Result<(), Error> {
+    for (role, path) in inputs {
+        if path.as_os_str() == "-" || !fs::metadata(path).is_ok_and(|m| m.is_file()) {
+            continue;
+        }
+        if is_stdout(path) {
+            return Err(Error::Usage(format!(
+                "standard output is redirected to {role} {}, so what lossprism prints would be \
+                 written into it; redirect standard output elsewhere",
+                path.display()
+            )));
+        }
+    }
+    Ok(())
+}
+
 /// Writes one output safely (checked against `inputs`, given as `(role, path)`): staged and
 /// renamed for a regular file, in place for a device or FIFO, standard output for `-`.
 pub fn write_one(
@@ -406,6 +425,13 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
                  (or redirect standard output to one)"
             )));
         }
+        if stderr_is_stdout() {
+            return Err(Error::Usage(format!(
+                "{flag} -: standard output and standard error go to the same file (`2>&1`), so \
+                 the words printed would be mixed into the output; send standard error \
+                 elsewhere"
+            )));
+        }
         // Standard output redirected to a regular file (`> r.json`) must not be another output
         // or an input; a terminal or pipe shared with an input is harmless.
         let file = fs::metadata("/dev/stdout")
@@ -470,6 +496,13 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         // through standard output, as `-` is. Replacing it by a rename sent the run's words into
         // the old, unlinked file, and `>> log` lost the log's earlier lines.
         Some(m) if m.is_file() && is_stdout(given) => {
+            if stderr_is_stdout() {
+                return Err(Error::Usage(format!(
+                    "{flag}: {shown} is where standard output and standard error both go \
+                     (`2>&1`), so the words printed would be mixed into the output; send \
+                     standard error elsewhere"
+                )));
+            }
             if !stdout_starts_empty() {
                 return Err(Error::Usage(format!(
                     "{flag}: {shown} is the file standard output is redirected to, opened to \
@@ -500,6 +533,18 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         },
         place,
     })
+}
+
+/// Standard error is the very regular file standard output is (`> F 2>&1`).
+fn stderr_is_stdout() -> bool {
+    let id = |q: &str| {
+        fs::metadata(q)
+            .ok()
+            .filter(Metadata::is_file)
+            .as_ref()
+            .and_then(sys::dev_ino)
+    };
+    matches!((id("/dev/stdout"), id("/dev/stderr")), (Some(a), Some(b)) if a == b)
 }
 
 /// Standard output is a file opened write-only, not to append, at its start (a shell's `>`): an

@@ -763,6 +763,21 @@ fn an_output_that_is_the_redirected_standard_output_is_written_through_it() {
         );
         assert_eq!(fs::read_to_string(dir.path().join("a.log")).unwrap(), held);
     }
+    // Standard error into the same file (`2>&1`): the table would follow the JSON (a sweep
+    // found exit 0 and an unreadable result).
+    let out = sh("exec \"$0\" run \"$1\" --out m.json > m.json 2>&1");
+    assert_eq!(out.status.code(), Some(2));
+    let m = fs::read_to_string(dir.path().join("m.json")).unwrap();
+    assert!(
+        m.contains("standard output and standard error both go"),
+        "{m}"
+    );
+    // Standard output opened on an input with `1<>`: the table was written over the scenario.
+    let before = fs::read_to_string(dir.path().join(&f)).unwrap();
+    let out = sh("exec \"$0\" run \"$1\" --out x.json 1<> \"$1\"");
+    assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
+    assert!(text(&out.stderr).contains("standard output is redirected to the scenario file"));
+    assert_eq!(fs::read_to_string(dir.path().join(&f)).unwrap(), before);
 }
 
 /// A checkpoint that standard output is redirected to is named as such (the words of the run

@@ -242,6 +242,14 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     };
     let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
     let plan = source.plan(&opts)?;
+    {
+        let data = data_inputs(&plan);
+        let mut inputs: Vec<(&str, &Path)> = data.iter().map(|(r, p)| (*r, p.as_path())).collect();
+        if let Some(p) = &args.scenario {
+            inputs.push(("the scenario file", p));
+        }
+        crate::output::guard_inputs(&inputs)?;
+    }
     if args.eval_seed.is_some() && matches!(plan.source, Source::Table(_)) {
         return Err(Error::Usage(format!(
             "{}: --eval-seed applies to synthetic and twin sources; a table's evaluation points \
@@ -511,6 +519,12 @@ fn job_block_count(plan: &Plan, shard: Option<shard::ShardSpec>) -> u64 {
 pub fn merge(args: MergeArgs) -> Result<u8, Error> {
     // The HTML report's wall time is the merge's own, labelled so.
     let started = std::time::Instant::now();
+    let parts: Vec<(&str, &Path)> = args
+        .parts
+        .iter()
+        .map(|p| ("the part", p.as_path()))
+        .collect();
+    crate::output::guard_inputs(&parts)?;
     let o = Outputs2 {
         out: args.out.as_deref(),
         csv: args.csv.as_deref(),
@@ -583,12 +597,23 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
     // A baseline is read back by the next check: standard output keeps nothing (it printed the
     // document, then "baseline - created", with exit 0).
     if args.update && crate::output::is_stdout(&args.baseline) {
+        let why = if args.baseline.as_os_str() == "-" {
+            "a baseline is read back by the next check, so it must be a file".to_string()
+        } else {
+            // `> B.json`: the shell emptied the baseline before lossprism started.
+            "standard output is redirected to it, and the shell empties such a file before the \
+             command starts; name the baseline without redirecting standard output to it"
+                .to_string()
+        };
         return Err(Error::Usage(format!(
-            "--baseline {} with --update: a baseline is read back by the next check, so it must \
-             be a file",
+            "--baseline {} with --update: {why}",
             args.baseline.display()
         )));
     }
+    crate::output::guard_inputs(&[
+        ("the result document", args.result.as_path()),
+        ("the baseline", args.baseline.as_path()),
+    ])?;
     // `--update` creates the baseline's missing folders, checks the path before comparing (so a
     // refused path prints no comparison), and removes the folders it made if it refuses.
     let inputs = [("the result document", args.result.as_path())];
@@ -731,6 +756,7 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
 
 /// `lossprism plot`: the curve picture (and the selection histogram) of a saved result document.
 pub fn plot(args: PlotArgs) -> Result<u8, Error> {
+    crate::output::guard_inputs(&[("the result document", &args.result)])?;
     let name = args.result.display().to_string();
     let mut set = Outputs::new();
     set.input("the result document", &args.result);
@@ -928,6 +954,7 @@ pub fn validate(scenario: &Path) -> Result<u8, Error> {
 /// `lossprism validate --memory-limit SIZE`: checks the file, prints its memory estimate and
 /// refuses it when the estimate exceeds `memory_limit` (else the memory available).
 pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, Error> {
+    crate::output::guard_inputs(&[("the scenario file", scenario)])?;
     let plan = scenario::load(scenario, &PlanOptions::default())?;
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, 0, memory_limit)?;
@@ -985,6 +1012,10 @@ pub fn families() -> Result<u8, Error> {
 /// `lossprism twin`.
 pub fn twin(a: TwinArgs) -> Result<u8, Error> {
     use crate::dgp::reference::{select::Rule, Candidate};
+    crate::output::guard_inputs(&[("the table", &a.table)])?;
+    // SIGTERM (a batch system, `timeout`) or Ctrl-C: a clear word and exit 130, nothing written
+    // (it was killed by the signal, exit 143 and no word).
+    progress::install_interrupt(progress::OnInterrupt::ExitNow { checkpoint: None });
     let reference = match a.reference.as_str() {
         "best" => Rule::Best,
         other => Rule::Only(Candidate::from_name(other).ok_or_else(|| {
