@@ -425,13 +425,8 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
                  (or redirect standard output to one)"
             )));
         }
-        if stderr_is_stdout() {
-            return Err(Error::Usage(format!(
-                "{flag} -: standard output and standard error go to the same file (`2>&1`), so \
-                 the words printed would be mixed into the output; send standard error \
-                 elsewhere"
-            )));
-        }
+        // (With `2>&1` into a file, `-` is the user's explicit choice, and `--quiet` keeps the
+        // words out: not refused, unlike a file named by its path below.)
         // Standard output redirected to a regular file (`> r.json`) must not be another output
         // or an input; a terminal or pipe shared with an input is harmless.
         let file = fs::metadata("/dev/stdout")
