@@ -429,10 +429,7 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         // words out: not refused, unlike a file named by its path below.)
         // Standard output redirected to a regular file (`> r.json`) must not be another output
         // or an input; a terminal or pipe shared with an input is harmless.
-        let file = fs::metadata("/dev/stdout")
-            .ok()
-            .filter(Metadata::is_file)
-            .and_then(|m| sys::dev_ino(&m));
+        let file = regular_file_id("/dev/stdout");
         return Ok(Target {
             flag: flag.to_string(),
             given: given.to_path_buf(),
@@ -532,14 +529,19 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
 
 /// Standard error is the very regular file standard output is (`> F 2>&1`).
 fn stderr_is_stdout() -> bool {
-    let id = |q: &str| {
-        fs::metadata(q)
-            .ok()
-            .filter(Metadata::is_file)
-            .as_ref()
-            .and_then(sys::dev_ino)
-    };
-    matches!((id("/dev/stdout"), id("/dev/stderr")), (Some(a), Some(b)) if a == b)
+    matches!(
+        (regular_file_id("/dev/stdout"), regular_file_id("/dev/stderr")),
+        (Some(a), Some(b)) if a == b
+    )
+}
+
+/// Device and inode of `path` when it is (or leads to) a regular file.
+fn regular_file_id(path: &str) -> Option<(u64, u64)> {
+    fs::metadata(path)
+        .ok()
+        .filter(Metadata::is_file)
+        .as_ref()
+        .and_then(sys::dev_ino)
 }
 
 /// Standard output is a file opened write-only, not to append, at its start (a shell's `>`): an
@@ -700,17 +702,22 @@ fn split(path: &Path) -> (&Path, &OsStr) {
 /// A hidden name beside `name` that no other process or call uses: `.NAME.PID.N.WHAT`.
 fn side_name(name: &OsStr, what: &str) -> OsString {
     let n = NEXT_SIDE_NAME.fetch_add(1, Ordering::Relaxed);
+    OsString::from(format!(
+        "{}{}.{n}.{what}",
+        side_prefix(name),
+        std::process::id()
+    ))
+}
+
+/// The start of every side name of `name`, `.NAME.` (the name cut to 120 bytes, so that the
+/// whole side name stays within the usual 255-byte limit).
+fn side_prefix(name: &OsStr) -> String {
     let full = name.to_string_lossy();
-    // Keep the whole name within the usual 255-byte limit.
     let mut cut = full.len().min(120);
     while !full.is_char_boundary(cut) {
         cut -= 1;
     }
-    OsString::from(format!(
-        ".{}.{}.{n}.{what}",
-        &full[..cut],
-        std::process::id()
-    ))
+    format!(".{}.", &full[..cut])
 }
 
 /// Removes the staged copies (`.NAME.PID.N.tmp`) that a process killed while writing `path`
@@ -723,12 +730,7 @@ pub fn remove_stale_staging(path: &Path) {
         return;
     }
     let (dir, name) = split(path);
-    let full = name.to_string_lossy();
-    let mut cut = full.len().min(120);
-    while !full.is_char_boundary(cut) {
-        cut -= 1;
-    }
-    let prefix = format!(".{}.", &full[..cut]);
+    let prefix = side_prefix(name);
     let Ok(entries) = fs::read_dir(dir) else {
         return;
     };

@@ -191,11 +191,7 @@ pub use crate::family::external::SCRIPT_EXTENSIONS;
 /// executable script without an extension); a compiled program or an interpreter is not a
 /// script here (its path and build differ between machines).
 fn is_script(f: &Path) -> bool {
-    let by_name = f
-        .extension()
-        .and_then(|e| e.to_str())
-        .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()));
-    by_name || {
+    crate::family::external::script_extension(f) || {
         use std::io::Read;
         let mut head = [0u8; 2];
         std::fs::File::open(f)

@@ -800,7 +800,7 @@ fn checkpoint_under_standard_output_is_named() {
     assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
     let err = text(&out.stderr);
     assert!(
-        err.contains("--checkpoint ck.json: standard output is redirected to this file"),
+        err.contains("standard output is redirected to the checkpoint ck.json"),
         "{err}"
     );
     assert_eq!(fs::read(dir.path().join("ck.json")).unwrap(), b"");

@@ -441,21 +441,27 @@ fn slow_scenario() -> String {
         )
 }
 
-/// A SIGHUP ignored at start (`nohup`) stays ignored: the handler that stops a run on SIGTERM
-/// also takes SIGHUP, and a `nohup` run was stopped, nothing written, when its terminal closed.
+/// The checkpointed run the signal and staging tests use.
+const CHECKPOINTED: [&str; 7] = [
+    "run",
+    "s.toml",
+    "--checkpoint",
+    "ck.json",
+    "--out",
+    "r.json",
+    "-q",
+];
+
+/// Runs [`slow_scenario`] in `d` as [`CHECKPOINTED`] through `sh -c "{shell} exec ..."`, sends
+/// `signal` once its checkpoint exists, and returns how it ended.
 #[cfg(unix)]
-#[test]
-fn a_run_started_with_hangups_ignored_ignores_them() {
-    let dir = tempfile::tempdir().unwrap();
-    let d = dir.path();
+fn signalled(d: &Path, shell: &str, signal: &str) -> std::process::Output {
     fs::write(d.join("s.toml"), slow_scenario()).unwrap();
     let child = std::process::Command::new("sh")
         .current_dir(d)
-        .args([
-            "-c",
-            "trap '' HUP; exec \"$0\" run s.toml --checkpoint ck.json --out r.json -q",
-            env!("CARGO_BIN_EXE_lossprism"),
-        ])
+        .args(["-c", &format!("{shell} exec \"$0\" \"$@\"")])
+        .arg(env!("CARGO_BIN_EXE_lossprism"))
+        .args(CHECKPOINTED)
         .stderr(std::process::Stdio::piped())
         .spawn()
         .unwrap();
@@ -464,11 +470,21 @@ fn a_run_started_with_hangups_ignored_ignores_them() {
         std::thread::sleep(std::time::Duration::from_millis(5));
     }
     let status = std::process::Command::new("kill")
-        .args(["-HUP", &child.id().to_string()])
+        .args([signal, &child.id().to_string()])
         .status()
         .unwrap();
     assert!(status.success());
-    let out = child.wait_with_output().unwrap();
+    child.wait_with_output().unwrap()
+}
+
+/// A SIGHUP ignored at start (`nohup`) stays ignored: the handler that stops a run on SIGTERM
+/// also takes SIGHUP, and a `nohup` run was stopped, nothing written, when its terminal closed.
+#[cfg(unix)]
+#[test]
+fn a_run_started_with_hangups_ignored_ignores_them() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let out = signalled(d, "trap '' HUP;", "-HUP");
     assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
     assert!(d.join("r.json").exists());
 }
@@ -482,32 +498,7 @@ fn a_run_started_with_hangups_ignored_ignores_them() {
 fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
-    fs::write(d.join("s.toml"), slow_scenario()).unwrap();
-    let args = [
-        "run",
-        "s.toml",
-        "--checkpoint",
-        "ck.json",
-        "--out",
-        "r.json",
-        "-q",
-    ];
-    let child = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
-        .args(args)
-        .current_dir(d)
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    let waited = std::time::Instant::now();
-    while !d.join("ck.json").exists() && waited.elapsed().as_secs() < 60 {
-        std::thread::sleep(std::time::Duration::from_millis(5));
-    }
-    let status = std::process::Command::new("kill")
-        .args(["-TERM", &child.id().to_string()])
-        .status()
-        .unwrap();
-    assert!(status.success());
-    let out = child.wait_with_output().unwrap();
+    let out = signalled(d, "", "-TERM");
     let err = stderr(&out);
     if out.status.code() == Some(0) {
         // The run finished before the signal arrived (a very fast machine): nothing to test.
@@ -527,7 +518,7 @@ fn a_terminated_run_keeps_its_checkpoint_and_resumes_to_the_same_result() {
         .filter(|n| n.ends_with(".tmp"))
         .collect();
     assert!(staged.is_empty(), "{staged:?}");
-    ok(d, &args);
+    ok(d, &CHECKPOINTED);
     ok(d, &["run", "s.toml", "--out", "full.json", "-q"]);
     assert_eq!(read(d, "r.json"), read(d, "full.json"));
 }
@@ -548,18 +539,7 @@ fn a_killed_writers_staged_copies_are_removed_and_nothing_else() {
     for f in [stale, live.as_str(), backup, other] {
         fs::write(d.join(f), "partial").unwrap();
     }
-    ok(
-        d,
-        &[
-            "run",
-            "s.toml",
-            "--checkpoint",
-            "ck.json",
-            "--out",
-            "r.json",
-            "-q",
-        ],
-    );
+    ok(d, &CHECKPOINTED);
     assert!(!d.join(stale).exists());
     for f in [live.as_str(), backup, other] {
         assert!(d.join(f).exists(), "{f} was removed");

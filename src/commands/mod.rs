@@ -248,6 +248,9 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         if let Some(p) = &args.scenario {
             inputs.push(("the scenario file", p));
         }
+        if let Some(ck) = &args.checkpoint {
+            inputs.push(("the checkpoint", ck));
+        }
         crate::output::guard_inputs(&inputs)?;
     }
     if args.eval_seed.is_some() && matches!(plan.source, Source::Table(_)) {
@@ -329,13 +332,6 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         let not_a_file = std::fs::metadata(ck).is_ok_and(|m| !m.is_file());
         let descriptor = std::fs::canonicalize(ck.parent().unwrap_or(Path::new(".")))
             .is_ok_and(|d| d.starts_with("/proc") || d.starts_with("/dev"));
-        if ck.as_os_str() != "-" && !not_a_file && !descriptor && crate::output::is_stdout(ck) {
-            return Err(Error::Usage(format!(
-                "--checkpoint {}: standard output is redirected to this file, so the run's \
-                 words would be written over the checkpoint; name another file",
-                ck.display()
-            )));
-        }
         if crate::output::is_stdout(ck) || not_a_file || descriptor {
             return Err(Error::Usage(format!(
                 "--checkpoint {}: a checkpoint must be a file (it is rewritten as the run goes \

@@ -92,12 +92,14 @@ pub const SCRIPT_EXTENSIONS: [&str; 10] =
 /// `word` of a `command` names a script file by its ending (not an option such as `-m` or
 /// `--config=x.py`).
 fn names_script(word: &str) -> bool {
-    !word.starts_with('-')
-        && !word.contains('=')
-        && Path::new(word)
-            .extension()
-            .and_then(|e| e.to_str())
-            .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
+    !word.starts_with('-') && !word.contains('=') && script_extension(Path::new(word))
+}
+
+/// `path` ends in one of [`SCRIPT_EXTENSIONS`] (any case).
+pub fn script_extension(path: &Path) -> bool {
+    path.extension()
+        .and_then(|e| e.to_str())
+        .is_some_and(|e| SCRIPT_EXTENSIONS.contains(&e.to_ascii_lowercase().as_str()))
 }
 
 /// Seconds to wait for an answer when the scenario gives no `timeout_seconds`.
