@@ -273,6 +273,14 @@ pub fn guard_inputs(inputs: &[(&str, &Path)]) -> Result<(), Error> {
         if path.as_os_str() == "-" || !fs::metadata(path).is_ok_and(|m| m.is_file()) {
             continue;
         }
+        // A descriptor's name (`/dev/stdout`, `/proc/self/fd/1`) is standard output by name; the
+        // command's own checks say what it may be used for.
+        let parent = path.parent().filter(|p| !p.as_os_str().is_empty());
+        let descriptor = fs::canonicalize(parent.unwrap_or(Path::new(".")))
+            .is_ok_and(|d| d.starts_with("/proc") || d.starts_with("/dev"));
+        if descriptor {
+            continue;
+        }
         if is_stdout(path) {
             return Err(Error::Usage(format!(
                 "standard output is redirected to {role} {}, so what lossprism prints would be \
