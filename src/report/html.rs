@@ -275,6 +275,9 @@ fn table_words(
                 .unwrap_or_default(),
             n.about
         ));
+        if let Some(w) = &n.warning {
+            out.push(format!("Warning: {w}."));
+        }
     }
     if let Some(note) = &doc.scheme_note {
         out.push(note.clone());

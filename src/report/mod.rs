@@ -812,6 +812,10 @@ pub struct NoiseEstimateEcho {
     /// from documents before version 0.3.1.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub response_variance: Option<f64>,
+    /// Why the estimate may be far off, when an input value lies far out
+    /// ([`crate::dataset::noise::far_input_warning`]); written only then (from version 0.3.2).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub warning: Option<String>,
 }
 
 /// `true` for 0 (a count written only when there is something to count).
@@ -1540,6 +1544,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             method: n.method.name().into(),
             about: n.method.describe().into(),
             response_variance: finite(crate::dataset::noise::response_variance(run.work.y.view())),
+            warning: crate::dataset::noise::far_input_warning(n.method, &run.work),
         });
         scheme_note = Some(tp.note());
     }

@@ -174,6 +174,9 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
             fmt_se(n.stderr.unwrap_or(f64::NAN)),
             n.about
         ));
+        if let Some(w) = &n.warning {
+            s.push_str(&format!("warning: {w}\n"));
+        }
     }
     if let Some(t) = &doc.table {
         s.push_str(&format!(
