@@ -631,3 +631,35 @@ fn model_labels_name_the_candidates() {
     let text = report::terminal::render(&doc);
     assert!(text.contains("knn-a = knn"), "{text}");
 }
+
+/// `[audit]` beside several models checks each model's grid against its own family: a tree
+/// beside a boost whose grid holds 0 rounds plans (before, the boost's 0 was read as a tree
+/// depth and refused), and a grid that a fold fit cannot use is still refused, naming its
+/// family.
+#[test]
+fn an_audit_beside_several_families_checks_each_grid_against_its_own_family() {
+    let base = |second: &str| {
+        format!(
+            "name = \"audit-two\"\nseed = 9\nreplicates = 20\n[data]\nsource = \"synthetic\"\n\
+             train_size = 60\neval_size = 80\n[[data.inputs]]\nname = \"x\"\nuniform = [0.0, \
+             1.0]\n[data.truth]\nformula = \"sin(3*x)\"\n[data.noise]\nsd = 0.3\n[[model]]\n\
+             family = \"tree\"\ngrid = [1, 2, 3]\n[[model]]\n{second}\n[audit]\nfolds = 3\n"
+        )
+    };
+    for second in [
+        "family = \"boost\"\ngrid = [0, 5, 20]",
+        "family = \"ridge\"\ngrid = [0.01, 1, 100]",
+    ] {
+        let src = base(second);
+        let spec = parse(&src, "inline.toml").expect("parses");
+        Plan::from_spec(&spec, &src, "inline.toml", Path::new("."), &seeded(9))
+            .unwrap_or_else(|e| panic!("{second}: {e}"));
+    }
+    // k = 50 cannot be fitted on a fold of 40 rows.
+    let src = base("family = \"knn\"\ngrid = [1, 50]");
+    let spec = parse(&src, "inline.toml").expect("parses");
+    let e = Plan::from_spec(&spec, &src, "inline.toml", Path::new("."), &seeded(9))
+        .expect_err("k = 50 on 40 rows")
+        .to_string();
+    assert!(e.contains("audit.folds") && e.contains("`knn`"), "{e}");
+}

@@ -1127,6 +1127,65 @@ fn line_numbers_are_physical_lines_for_every_line_ending() {
     }
 }
 
+/// Blank lines between the records (empty or of spaces; the CSV reader places the record after
+/// empty lines at the first of them) do not shift the line of the record that follows: it was
+/// named one or more lines early, in errors and in `--points`.
+#[test]
+fn records_after_blank_lines_are_named_at_their_own_line() {
+    let dir = tmp();
+    fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
+    for ending in ["\n", "\r\n", "\r"] {
+        let mut text = format!("a,b,y{ending}");
+        for i in 0..40 {
+            if i == 3 {
+                text.push_str(ending);
+            }
+            if i == 6 {
+                text.push_str(&format!("{ending}  {ending}{ending}"));
+            }
+            text.push_str(&format!(
+                "{},{},{}{ending}",
+                0.5 + i as f64,
+                (i * 7) % 11,
+                (i * 3) % 5
+            ));
+        }
+        let physical: Vec<String> = text
+            .split("\r\n")
+            .flat_map(|l| l.split(['\r', '\n']))
+            .map(str::to_string)
+            .collect();
+        let what = format!("{ending:?}");
+        fs::write(dir.path().join("d.csv"), &text).unwrap();
+        let o = run_in(dir.path(), &["run", "s.toml", "--points", "p.csv"]);
+        assert_eq!(o.status.code(), Some(0), "{what}: {}", stderr(&o));
+        let points = fs::read_to_string(dir.path().join("p.csv")).unwrap();
+        let mut seen = 0;
+        for r in points.lines().skip(1) {
+            let cells: Vec<&str> = r.split(',').collect();
+            let line: usize = cells[1].parse().unwrap();
+            let a = physical[line - 1].split(',').next().unwrap();
+            assert_eq!(a, cells[2], "{what}: line {line}");
+            seen += 1;
+        }
+        assert!(seen >= 30, "{what}");
+        // The first record after each run of blank lines made unreadable.
+        for first in ["3.5,", "6.5,"] {
+            let bad = text.replacen(first, &format!("x{first}"), 1);
+            let line = 1 + physical.iter().position(|l| l.starts_with(first)).unwrap();
+            fs::write(dir.path().join("d.csv"), bad).unwrap();
+            let o = run_in(dir.path(), &["run", "s.toml"]);
+            assert_eq!(o.status.code(), Some(2), "{what}");
+            let want = format!("d.csv:{line}:");
+            assert!(
+                stderr(&o).contains(&want),
+                "{what}: {want} in {}",
+                stderr(&o)
+            );
+        }
+    }
+}
+
 /// `run --assess` counts an assessment only when it prints it: outputs it would ignore,
 /// `--quiet` and `--replicates` (one fit, no replicates) are refused before the ledger is touched.
 #[test]

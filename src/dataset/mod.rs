@@ -366,17 +366,25 @@ fn number(cell: &str) -> Option<f64> {
 }
 
 /// Offsets where physical lines start, seen so far and not yet passed, and how many were passed:
-/// a line ends at LF, at CRLF (one break) or at a CR alone.
+/// a line ends at LF, at CRLF (one break) or at a CR alone. Each start carries whether its line
+/// is blank (nothing but spaces and tabs), since the CSV reader places a record that follows
+/// blank lines at the first of them.
 #[derive(Debug, Default)]
 struct LineStarts {
     /// Bytes seen.
     offset: u64,
     /// Whether the last byte seen was a CR.
     prev_cr: bool,
-    /// Line starts not yet passed by [`LineStarts::line_at`], ascending.
-    pending: std::collections::VecDeque<u64>,
+    /// Line starts not yet passed by [`LineStarts::line_at`], ascending, with whether the line
+    /// is blank as far as seen.
+    pending: std::collections::VecDeque<(u64, bool)>,
     /// Line starts passed.
     passed: usize,
+    /// Whether the line [`LineStarts::line_at`] last returned is blank (the first line: as far
+    /// as seen while it is still the last one).
+    current_blank: bool,
+    /// Whether anything but spaces and tabs came on the first line (before any break).
+    first_has_content: bool,
 }
 
 impl LineStarts {
@@ -386,9 +394,13 @@ impl LineStarts {
             match b {
                 // CRLF is one break; the next line is taken to start at its LF, where the CSV
                 // reader places a record that follows a CRLF.
-                b'\r' => self.pending.push_back(self.offset),
-                b'\n' if !self.prev_cr => self.pending.push_back(self.offset),
-                _ => {}
+                b'\r' => self.pending.push_back((self.offset, true)),
+                b'\n' if !self.prev_cr => self.pending.push_back((self.offset, true)),
+                b'\n' | b' ' | b'\t' => {}
+                _ => match self.pending.back_mut() {
+                    Some(last) => last.1 = false,
+                    None => self.first_has_content = true,
+                },
             }
             self.prev_cr = b == b'\r';
         }
@@ -396,9 +408,30 @@ impl LineStarts {
 
     /// The 1-based physical line holding byte `x`; `x` never decreases between calls.
     fn line_at(&mut self, x: u64) -> usize {
-        while self.pending.front().is_some_and(|&s| s <= x) {
+        if self.passed == 0 {
+            self.current_blank = !self.first_has_content;
+        }
+        while let Some(&(_, blank)) = self.pending.front().filter(|p| p.0 <= x) {
             self.pending.pop_front();
             self.passed += 1;
+            self.current_blank = blank;
+        }
+        self.passed + 1
+    }
+
+    /// The 1-based physical line of a record the CSV reader places at byte `x`: the first line
+    /// at or after `x`'s that is not blank (the reader skips blank lines and places the record
+    /// after them at the first: a record after one blank line was named the blank line).
+    fn record_line_at(&mut self, x: u64) -> usize {
+        self.line_at(x);
+        while self.current_blank {
+            match self.pending.pop_front() {
+                Some((_, blank)) => {
+                    self.passed += 1;
+                    self.current_blank = blank;
+                }
+                None => break,
+            }
         }
         self.passed + 1
     }
@@ -543,7 +576,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     }
     // The physical line of a byte offset of the CSV reader (which starts after the skipped
     // blank space).
-    let line_of = |p: &csv::Position| line_starts.borrow_mut().line_at(skipped + p.byte());
+    let line_of = |p: &csv::Position| line_starts.borrow_mut().record_line_at(skipped + p.byte());
     // Flexible: a record whose field count differs from the header's is refused below in our
     // own words (the reader's said "found record with 1 fields" for a line of spaces).
     let mut rdr = csv::ReaderBuilder::new()

@@ -512,10 +512,10 @@ impl Plan {
                 src,
                 file,
                 models[0].family.as_ref(),
-                &models
-                    .iter()
-                    .flat_map(|m| m.grid.iter().copied())
-                    .collect::<Vec<_>>(),
+                // Its own grid: every other model's is checked against its own family below
+                // (the grids of all models against the first's family refused a tree beside a
+                // boost whose grid holds 0 rounds).
+                &models[0].grid,
                 n_train,
                 n_inputs,
             )?),
