@@ -530,6 +530,41 @@ fn scenario_cases(t: &mut Table) {
         v,
         "key `data.inputs[0].normal`: sd 1.0e-170 is so small",
     );
+    // A spread hidden by an offset: ridge and standardized k-NN read an input uniform on
+    // [4e11, 4e11 + 1] as rounding, i.e. constant, and fitted a constant with exit 0 (a
+    // hostile-input sweep); trees do not standardize, so a tree scenario keeps running.
+    for model in [
+        "family = \"ridge\"\ngrid = [0.01, 1]",
+        "family = \"knn\"\nstandardize = true\ngrid = [1, 2]",
+    ] {
+        t.scenario(
+            g,
+            &format!("offset input under {}", &model[10..15]),
+            &sc("uniform = [0.0, 1.0]", "uniform = [4e11, 400000000001.0]")
+                .replace("formula = \"x\"", "formula = \"x - 4e11\"")
+                .replace("family = \"tree\"\ngrid = [1, 2]", model),
+            v,
+            "data.inputs[0].uniform`: input `x` has a standard deviation of 2.89e-1 beside values of 4.000e11",
+        );
+    }
+    t.scenario(
+        g,
+        "normal input with its spread hidden by an offset",
+        &sc("uniform = [0.0, 1.0]", "normal = [-3e13, 1.0]")
+            .replace("family = \"tree\"", "family = \"ridge\"")
+            .replace("grid = [1, 2]", "grid = [1]"),
+        v,
+        "data.inputs[0].normal`: input `x` has a standard deviation of 1.00e0 beside values of 3.000e13",
+    );
+    let offset_csv = b"t,y\n400000000000.25,1\n400000000000.5,2\n400000000000.75,3\n400000000000.1,0.5\n400000000000.9,3.1\n400000000000.3,1.2\n400000000000.6,2.2\n400000000000.4,1.9\n";
+    let ridge_table = table_scenario("", "family = \"ridge\"\ngrid = [1]");
+    t.add(
+        g,
+        "a table column whose spread is hidden by an offset, under ridge",
+        &[("s.toml", ridge_table.as_bytes()), ("t.csv", offset_csv)],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "column `t` of t.csv has a standard deviation of 2.50e-1 beside values of 4.000e11",
+    );
     t.scenario(
         g,
         "uniform of one number",

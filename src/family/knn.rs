@@ -98,6 +98,10 @@ fn check_k_values(grid: &[f64], n_train: usize) -> Result<(), String> {
 }
 
 impl Family for KnnFamily {
+    fn standardizes_inputs(&self) -> bool {
+        self.standardize
+    }
+
     fn name(&self) -> &'static str {
         "knn"
     }

@@ -106,6 +106,10 @@ const LBFGS_MEMORY: usize = 10;
 pub struct LogisticFamily;
 
 impl Family for LogisticFamily {
+    fn standardizes_inputs(&self) -> bool {
+        true
+    }
+
     fn name(&self) -> &'static str {
         "logistic"
     }

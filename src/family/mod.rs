@@ -170,6 +170,13 @@ pub trait Family: Send + Sync {
     /// Whether the family supports the task (regression, or classification with K classes).
     fn supports(&self, task: Task) -> bool;
 
+    /// Whether a fit scales its inputs by their training standard deviations
+    /// ([`standardize::Standardizer`]), which reads a column whose spread is below
+    /// [`standardize::CONSTANT_RTOL`] of its magnitude as constant (default: false).
+    fn standardizes_inputs(&self) -> bool {
+        false
+    }
+
     /// Whether a fit squares and sums its inputs (a standardization, a distance, a design
     /// matrix), so that inputs beyond about 1e154 overflow; trees only compare them (default:
     /// true).

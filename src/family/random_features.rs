@@ -73,6 +73,10 @@ pub fn build(opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Famil
 }
 
 impl Family for RandomFeaturesFamily {
+    fn standardizes_inputs(&self) -> bool {
+        true
+    }
+
     /// The random features of the training and evaluation points, the feature weights and a Gram
     /// matrix of the smaller side with its factorization, for the widest grid value.
     fn work_bytes(&self, n: usize, p: usize, m: usize, grid: &[f64], _task: Task) -> f64 {

@@ -52,6 +52,10 @@ pub fn build(_opts: &mut Options, _cx: &BuildContext<'_>) -> Result<Arc<dyn Fami
 pub struct RidgeFamily;
 
 impl Family for RidgeFamily {
+    fn standardizes_inputs(&self) -> bool {
+        true
+    }
+
     fn name(&self) -> &'static str {
         "ridge"
     }

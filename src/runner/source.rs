@@ -167,6 +167,27 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
                     (lo.min(v), hi.max(v))
                 });
             let spread = hi - lo;
+            // A spread hidden by an offset, more than rounding (1e-13 of the values, about 450
+            // units in the last place) but a standard deviation below the share a standardizing
+            // fit reads as constant.
+            let size = lo.abs().max(hi.abs());
+            let share = crate::scenario::plan::offset_share();
+            let standardizes = plan.models.iter().find(|m| m.family.standardizes_inputs());
+            if let (Some(m), true) = (standardizes, spread > 1e-13 * size) {
+                let n = col.len() as f64;
+                let mean = col.sum() / n;
+                let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
+                if sd < share * size {
+                    return Err(Error::Data(format!(
+                        "column `{name}` of {} has a standard deviation of {sd:.2e} beside \
+                         values of {size:.3e}, below {share:e} of their size: `{}` standardizes \
+                         its inputs and reads such a column as rounding, i.e. as constant, so \
+                         the fit would ignore it; subtract an offset from the column",
+                        t.table.path.display(),
+                        m.family.name()
+                    )));
+                }
+            }
             if spread > 0.0 && spread < crate::scenario::plan::INPUT_MIN_SPREAD {
                 return Err(Error::Data(format!(
                     "column `{name}` of {} varies by only {spread:.1e}; the fits or the noise \

@@ -506,6 +506,12 @@ impl Plan {
         };
         let smallest = sizes[0];
         let models = build_models(&cx, model_spec, base, task, loss, smallest, n_inputs)?;
+        if let (Source::Synthetic(s), Some(m)) = (
+            &source,
+            models.iter().find(|m| m.family.standardizes_inputs()),
+        ) {
+            offset_inputs(&cx, data, s, m.family.name())?;
+        }
         let audit = match &spec.audit {
             Some(a) => Some(super::audit::from_spec(
                 a,
@@ -1430,6 +1436,63 @@ const INPUT_MAX: f64 = 1e150;
 /// noise estimators) read the input as constant with no error (found by a hostile-input sweep:
 /// an input on [0, 1e-200] was ignored, exit 0). The mirror of [`INPUT_MAX`].
 pub const INPUT_MIN_SPREAD: f64 = 1e-150;
+
+/// How many times [`crate::family::standardize::CONSTANT_RTOL`] an input's standard deviation
+/// must be, as a share of its magnitude, when a family standardizes its inputs: a training set's
+/// spread varies around the law's, and ten times keeps it clear of the line.
+pub const OFFSET_MARGIN: f64 = 10.0;
+
+/// The share of its magnitude below which an input's spread reads as rounding to a family that
+/// standardizes its inputs ([`OFFSET_MARGIN`] times the standardizer's own line).
+pub fn offset_share() -> f64 {
+    OFFSET_MARGIN * crate::family::standardize::CONSTANT_RTOL
+}
+
+/// Refuses a synthetic input whose standard deviation is below [`offset_share`] of its
+/// magnitude when `family` standardizes its inputs: the fit would read it as rounding, i.e. as
+/// constant, and ignore it (found by a hostile-input sweep: an input uniform on
+/// [4e11, 4e11 + 1] was dropped by ridge and standardized k-NN, which fitted a constant, exit 0).
+fn offset_inputs(
+    cx: &Ctx<'_>,
+    data: &DataSpec,
+    s: &SyntheticPlan,
+    family: &str,
+) -> Result<(), ScenarioError> {
+    for (i, inp) in s.process.inputs.iter().enumerate() {
+        let (sd, size, law) = match inp.dist {
+            InputDist::Uniform(a, b) => ((b - a) / 12f64.sqrt(), a.abs().max(b.abs()), "uniform"),
+            InputDist::Even(a, b) => ((b - a) / 12f64.sqrt(), a.abs().max(b.abs()), "even"),
+            InputDist::Normal(m, sd) => (sd, m.abs(), "normal"),
+            InputDist::Empirical { .. } => continue,
+        };
+        if sd >= offset_share() * size {
+            continue;
+        }
+        let span = data
+            .inputs
+            .as_ref()
+            .and_then(|v| v.get(i))
+            .and_then(|spec| match law {
+                "uniform" => spec.uniform.as_ref().map(|v| v.span()),
+                "even" => spec.even.as_ref().map(|v| v.span()),
+                _ => spec.normal.as_ref().map(|v| v.span()),
+            });
+        return Err(cx.err_line(
+            span.map(|sp| crate::scenario::line_of(cx.src, sp.start)),
+            &format!("data.inputs[{i}].{law}"),
+            format!(
+                "input `{}` has a standard deviation of {sd:.2e} beside values of {size:.3e}, \
+                 below {:e} of their size: `{family}` standardizes its inputs and reads such a \
+                 column as rounding, i.e. as constant, so the fit would ignore the input; \
+                 subtract an offset (draw the input minus {size:.3e} and write the formulas \
+                 with it)",
+                inp.name,
+                offset_share()
+            ),
+        ));
+    }
+    Ok(())
+}
 
 /// Refuses an input range whose ends or width overflow, or whose width underflows (`uniform = [-1e308, 1e308]` is 2e308
 /// wide: every draw would be infinite).
