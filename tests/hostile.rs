@@ -556,6 +556,21 @@ fn scenario_cases(t: &mut Table) {
         v,
         "data.inputs[0].normal`: input `x` has a standard deviation of 1.00e0 beside values of 3.000e13",
     );
+    let two_classes = b"a,y\n1,no\n2,yes\n3,no\n4,yes\n5,no\n6,yes\n7,no\n8,yes\n";
+    let repeated_label = table_scenario(
+        "[data.classes]\nlabels = [\"no\", \"yes\", \"no\"]",
+        "family = \"tree\"\ngrid = [1]",
+    );
+    t.add(
+        g,
+        "a table's class label given twice",
+        &[
+            ("s.toml", repeated_label.as_bytes()),
+            ("t.csv", two_classes),
+        ],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "key `data.classes.labels`: label `no` appears twice",
+    );
     let offset_csv = b"t,y\n400000000000.25,1\n400000000000.5,2\n400000000000.75,3\n400000000000.1,0.5\n400000000000.9,3.1\n400000000000.3,1.2\n400000000000.6,2.2\n400000000000.4,1.9\n";
     let ridge_table = table_scenario("", "family = \"ridge\"\ngrid = [1]");
     t.add(
