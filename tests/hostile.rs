@@ -571,6 +571,25 @@ fn scenario_cases(t: &mut Table) {
         &["run", "s.toml", "--out", "r.json", "-q"],
         "key `data.classes.labels`: label `no` appears twice",
     );
+    // A word in a mostly numeric column: named, with how to make the column a category.
+    let mut floors = String::from("floor,y\n");
+    for i in 0..12 {
+        let level = if i % 3 == 0 {
+            "ground".to_string()
+        } else {
+            (i % 3).to_string()
+        };
+        floors.push_str(&format!("{level},{}\n", i as f64 * 0.5));
+    }
+    let floor_scenario = table_scenario("", TREE);
+    t.add(
+        g,
+        "a word among numbers, a third of the cells",
+        &[("s.toml", floor_scenario.as_bytes()), ("t.csv", floors.as_bytes())],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "t.csv:2: column `floor`: `ground` is not a number (the column is numeric: 8 of its 12 filled cells are numbers",
+    )
+    .also("spell its levels as words");
     let offset_csv = b"t,y\n400000000000.25,1\n400000000000.5,2\n400000000000.75,3\n400000000000.1,0.5\n400000000000.9,3.1\n400000000000.3,1.2\n400000000000.6,2.2\n400000000000.4,1.9\n";
     let ridge_table = table_scenario("", "family = \"ridge\"\ngrid = [1]");
     t.add(

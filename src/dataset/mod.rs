@@ -829,9 +829,21 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                         crate::fmt::clip(cell, 60)
                     )
                 } else {
+                    // A word in a column read as numbers: it may be a real level (floors
+                    // `ground`, `1`, `2`), which dropping the rows would lose.
+                    let filled: Vec<&str> = cells
+                        .iter()
+                        .map(|r| &r[c][..])
+                        .filter(|v| !is_missing(v))
+                        .collect();
+                    let nums = filled.iter().filter(|v| number(v).is_some()).count();
                     format!(
-                        "`{}` is not a number (the column is numeric)",
-                        crate::fmt::clip(cell, 60)
+                        "`{}` is not a number (the column is numeric: {nums} of its {} filled \
+                         cells are numbers; a column is text when fewer than half are); if the \
+                         column is a category, spell its levels as words (`f1`, `f2`, …) and it \
+                         is one-hot encoded",
+                        crate::fmt::clip(cell, 60),
+                        filled.len()
                     )
                 })
             } else {

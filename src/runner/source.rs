@@ -213,7 +213,13 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     if big > RESPONSE_MAX || !big.is_finite() {
         // A synthetic source names the key that makes them large (`sd = 1e152` named none).
         let truth_big = p.eval_truth.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
-        let key = if truth_big >= big || truth_big.is_nan() {
+        let twin = matches!(&plan.source, Source::Synthetic(s) if s.process.is_twin());
+        let key = if (truth_big >= big || truth_big.is_nan()) && twin {
+            // A twin's truth is its reference: a hand-edited blend weight or part made it
+            // large (a hostile sweep found the message naming a [data.truth] a twin lacks).
+            " (the twin's truth, its reference in [data.reference]: check its `weights` and \
+             parts against what `lossprism twin` wrote)"
+        } else if truth_big >= big || truth_big.is_nan() {
             " (the truth, [data.truth])"
         } else {
             " (the noise's standard deviation, [data.noise])"
