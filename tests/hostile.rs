@@ -4139,6 +4139,35 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         &["plot", "r.json", "--out", "c.svg", "--selection", "h.svg"],
         "no `selection` section",
     );
+    // An edited selection section: cut short, or counting more choices than replicates (the
+    // first was reported as a missing section, the second drawn with exit 0).
+    for (name, counts, needle) in [
+        (
+            "cut short",
+            serde_json::json!([4]),
+            "`selection.chosen_counts` has 1 entries for 2 grid values",
+        ),
+        (
+            "more choices than replicates",
+            serde_json::json!([30, 70]),
+            "`selection.chosen_counts` add up to 100 choices for 4 replicates",
+        ),
+    ] {
+        let bytes = edit_json(&docs.result, |v| {
+            v["selection"] = serde_json::json!({
+                "folds": 3, "rule": "min", "chosen_counts": counts,
+                "oracle_best": 1.0, "mean_excess_loss": 0.0, "q90_excess_loss": 0.0,
+                "share_within_one_se": 1.0, "share_oracle": 1.0
+            });
+        });
+        t.add(
+            g,
+            format!("plot --selection, {name}"),
+            &[("r.json", &bytes)],
+            &["plot", "r.json", "--out", "c.svg", "--selection", "h.svg"],
+            needle,
+        );
+    }
     // Checkpoints: the run refuses and leaves the checkpoint as it was.
     let ck_cases: Vec<(&str, Vec<u8>, &str)> = vec![
         ("not JSON", b"garbage".to_vec(), "checkpoint"),
