@@ -1,7 +1,9 @@
 //! Whole-pipeline checks (scenario text → plan → runner → decomposition) against closed forms
 //! that do not come from the project: ESL's fixed-design formulas for k-NN, least squares and
 //! ridge, the exact moments of Friedman #1 under the sample-mean predictor, the unbiasedness of
-//! the squared-bias estimator, and the direct fresh-response cross-check.
+//! the squared-bias estimator, the direct fresh-response cross-check, and the finite-sample
+//! Wishart moments of least squares and minimum-norm least squares under a random Gaussian
+//! design, on both sides of the interpolation threshold.
 //!
 //! Every Monte Carlo comparison uses a tolerance of 4 standard errors, taken from the run's own
 //! delete-a-block jackknife standard errors or from the spread across seeds; none is widened by
@@ -857,6 +859,87 @@ grid = [1, 5, 20]
             t.expected_loss_direct,
             t.expected_loss,
             combined,
+        );
+    }
+}
+
+/// Exact finite-sample terms of least squares (p < n − 1) and minimum-norm least squares
+/// (p > n + 1) on the first p of `beta.len()` independent N(0, 1) inputs, linear truth, at the
+/// evaluation point `x0`: `(bias², variance)`. Least squares: `Cov b = σ_e² I/(n − p − 1)`, the
+/// inverse-Wishart mean (Anderson, *An Introduction to Multivariate Statistical Analysis*;
+/// Breiman and Freedman 1983, *JASA* 78:131–136; from memory), with `σ_e² = σ² + |β_omitted|²`.
+/// Minimum norm: `b = P β_p + X⁺ e`, P the projection on the row space of X (uniformly random of
+/// rank n): `E b = (n/p) β_p` and `Cov b = (a − n²/p²) β_p β_pᵀ + (g |β_p|² + σ_e² n/(p(p − n −
+/// 1))) I`, with `g = n(p − n)/(p(p + 2)(p − 1))` and `a = n(n + 2)/(p(p + 2)) − g` from
+/// `P₁₁ ~ Beta(n/2, (p − n)/2)`; derived for `scripts/exact-checks/case6_minnorm.py`.
+fn minnorm_exact(x0: &[f64], beta: &[f64], p: usize, n: usize, sigma: f64) -> (f64, f64) {
+    let (bp, bo) = beta.split_at(p);
+    let s2e = sigma * sigma + bo.iter().map(|b| b * b).sum::<f64>();
+    let lin: f64 = bp.iter().zip(x0).map(|(b, x)| b * x).sum();
+    let omit: f64 = bo.iter().zip(&x0[p..]).map(|(b, x)| b * x).sum();
+    let nx2: f64 = x0[..p].iter().map(|x| x * x).sum();
+    let nb2: f64 = bp.iter().map(|b| b * b).sum();
+    let (pf, nf) = (p as f64, n as f64);
+    let (mean, var) = if p + 1 < n {
+        (lin, s2e * nx2 / (nf - pf - 1.0))
+    } else {
+        assert!(p > n + 1, "p too close to n");
+        let g = nf * (pf - nf) / (pf * (pf + 2.0) * (pf - 1.0));
+        let a = nf * (nf + 2.0) / (pf * (pf + 2.0)) - g;
+        let r = nf / pf;
+        (
+            r * lin,
+            (a - r * r) * lin * lin + g * nb2 * nx2 + s2e * nf / (pf * (pf - nf - 1.0)) * nx2,
+        )
+    };
+    let f = lin + omit;
+    ((mean - f) * (mean - f), var)
+}
+
+#[test]
+fn minnorm_random_gaussian_design_matches_the_wishart_moments() {
+    // Invented: 30 independent standard normal inputs, coefficients 1/j, noise sd 0.5, n = 20;
+    // p on both sides of the interpolation threshold (not within 1 of n, where the moments are
+    // infinite, nor next to it, where the variance's standard error runs short:
+    // docs/exact-checks.md, case 6).
+    let (inputs, n, sigma) = (30usize, 20usize, 0.5);
+    let beta: Vec<f64> = (1..=inputs).map(|j| 1.0 / j as f64).collect();
+    let mut src = format!(
+        "name = \"minnorm-exact\"\nseed = 5\neval_seed = 9\nreplicates = 2000\n[data]\nsource = \
+         \"synthetic\"\ntrain_size = {n}\neval_size = 150\ndesign = \"random\"\n"
+    );
+    for j in 1..=inputs {
+        src.push_str(&format!(
+            "[[data.inputs]]\nname = \"x{j}\"\nnormal = [0.0, 1.0]\n"
+        ));
+    }
+    let formula: Vec<String> = (1..=inputs).map(|j| format!("x{j}/{j}")).collect();
+    src.push_str(&format!(
+        "[data.truth]\nformula = \"{}\"\n[data.noise]\nsd = {sigma}\n[model]\nfamily = \
+         \"minnorm\"\ngrid = [3, 10, 26, 30]\n",
+        formula.join(" + ")
+    ));
+    let (plan, out) = run_text(&src, &PlanOptions::default());
+    let s = sq(&out);
+    let x = &out.prepared.eval_x;
+    for (g, &p) in plan.model().grid.iter().enumerate() {
+        let p = p as usize;
+        let (mut b2, mut var) = (0.0, 0.0);
+        for row in x.rows() {
+            let (b, v) = minnorm_exact(&row.to_vec(), &beta, p, n, sigma);
+            b2 += b;
+            var += v;
+        }
+        let m = x.nrows() as f64;
+        let (b2, var) = (b2 / m, var / m);
+        let (t, e) = (&s.terms[g], &s.stderr[g]);
+        assert_within(&format!("p = {p}: bias²"), t.bias_sq, b2, e.bias_sq);
+        assert_within(&format!("p = {p}: variance"), t.variance, var, e.variance);
+        assert_within(
+            &format!("p = {p}: expected loss"),
+            t.expected_loss,
+            sigma * sigma + b2 + var,
+            e.expected_loss,
         );
     }
 }
