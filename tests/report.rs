@@ -1310,3 +1310,47 @@ fn zero_one_percentile_intervals_round_trip_and_show_in_table_csv_and_html() {
     let page = html::render(&doc, View::Domingos, &pics, None, "wall time");
     assert!(page.contains("95 % bootstrap percentile interval") && page.contains(&want));
 }
+
+/// A study (two models at two training sizes): the HTML table names each row's model and size
+/// and marks only the best model's row at the largest size, and the reading compares the best
+/// with its neighbours on its own curve (every row whose knob value equalled the best's was
+/// marked, and the neighbours came from another model or size: differences of −20 standard
+/// errors were printed).
+#[test]
+fn html_report_of_a_study_marks_one_row_and_reads_the_best_curve() {
+    let src = "name = \"study\"\nseed = 3\nreplicates = 20\n[data]\nsource = \"synthetic\"\n\
+               train_size = [30, 300]\neval_size = 100\n[[data.inputs]]\nname = \"x\"\n\
+               uniform = [0, 1]\n[data.truth]\nformula = \"sin(6*x)\"\n[data.noise]\nsd = 0.5\n\
+               [[model]]\nfamily = \"knn\"\ngrid = [1, 5, 25]\n[[model]]\nfamily = \"tree\"\n\
+               grid = [1, 5, 25]\n";
+    let (_, _, doc) = run(src);
+    let text = html::render(
+        &doc,
+        View::Domingos,
+        &Pictures::default(),
+        None,
+        "wall time",
+    );
+    let page = scraper::Html::parse_document(&text);
+    assert!(page.errors.is_empty(), "{:?}", page.errors);
+    let sel = |s: &str| scraper::Selector::parse(s).unwrap();
+    let marked: Vec<Vec<String>> = page
+        .select(&sel("tbody tr.best"))
+        .map(|r| r.select(&sel("td")).map(|c| c.text().collect()).collect())
+        .collect();
+    assert_eq!(marked.len(), 1, "{marked:?}");
+    let fam = doc
+        .best
+        .family
+        .clone()
+        .expect("a study's best names its model");
+    assert_eq!(marked[0][0], fam);
+    assert_eq!(marked[0][1], "300");
+    // The neighbours in the reading are on the best's curve, so none is lower than the best.
+    let words = html::reading_words(&doc).join(" ");
+    assert!(
+        words.contains(&format!("For {fam} at 300 training rows")),
+        "{words}"
+    );
+    assert!(!words.contains("higher by -"), "{words}");
+}

@@ -306,6 +306,49 @@ fn grid_words(grid: &[f64]) -> String {
 /// variance-dominated (the document's `reading`), where the lowest expected loss lies and how
 /// sure that is given the standard errors.
 pub fn reading_words(doc: &ResultDoc) -> Vec<String> {
+    if doc.models.is_empty() && doc.sizes.is_empty() {
+        return curve_reading(doc);
+    }
+    // Several models or sizes: the best model's curve at the largest size (its rows, knob and
+    // paired uncertainty), as a single run of it would be read; the rows of every model and
+    // size side by side were read as one curve (the neighbours of the best came from another
+    // model or size, and differences of −20 standard errors were printed).
+    let fam = doc.best.family.clone().unwrap_or_else(|| doc.first_model());
+    let mut sub = doc.single(&fam);
+    if let Some(u) = doc
+        .uncertainty
+        .as_ref()
+        .filter(|u| u.rows.len() == doc.points.len())
+    {
+        let largest = doc.sizes.last().map(|&n| n as u64);
+        let rows: Vec<_> = doc
+            .points
+            .iter()
+            .zip(&u.rows)
+            .filter(|(p, _)| p.family.as_deref().map_or(true, |f| f == fam))
+            .filter(|(p, _)| largest.is_none() || p.train_size == largest)
+            .map(|(_, r)| r.clone())
+            .collect();
+        if rows.len() == sub.points.len() {
+            let mut u = u.clone();
+            u.rows = rows;
+            sub.uncertainty = Some(u);
+        }
+    }
+    let mut out = curve_reading(&sub);
+    if let Some(first) = out.get_mut(1) {
+        let at = doc
+            .sizes
+            .last()
+            .map(|n| format!(" at {n} training rows"))
+            .unwrap_or_default();
+        *first = format!("For {fam}{at}: {first}");
+    }
+    out
+}
+
+/// [`reading_words`] for one curve (a single model at a single size).
+fn curve_reading(doc: &ResultDoc) -> Vec<String> {
     let knob = &doc.knob;
     let pts = &doc.points;
     let mut out = vec![doc.reading.clone()];
@@ -605,12 +648,36 @@ pub fn render(
 
     h.push_str("<h2>The numbers</h2>\n<div class=\"wide\"><table>\n<thead><tr>");
     let (header, rows, legend) = terminal::cells(doc, view);
+    // Several models or sizes: every row says its model and size, and only the best row (the
+    // best model at the largest size) is marked (rows of every model and size whose knob value
+    // equalled the best's were all marked "lowest").
+    let study = !(doc.models.is_empty() && doc.sizes.is_empty());
+    if study {
+        h.push_str("<th>model</th><th>training rows</th>");
+    }
     for c in &header {
         let _ = write!(h, "<th>{}</th>", e(c));
     }
     h.push_str("<th></th></tr></thead>\n<tbody>\n");
+    let best_row = terminal::best_row(doc);
     for (p, r) in doc.points.iter().zip(&rows) {
-        let best = p.value == doc.best.value;
+        let best = best_row.is_some_and(|b| std::ptr::eq(b, p));
+        if study {
+            let _ = write!(
+                h,
+                "<tr{} data-value=\"{}\"><td>{}</td><td>{}</td>",
+                if best { " class=\"best\"" } else { "" },
+                p.value,
+                e(p.family.as_deref().unwrap_or(&doc.first_model())),
+                p.train_size
+                    .map_or(doc.scenario.train_size.to_string(), |n| n.to_string())
+            );
+            for c in r {
+                let _ = write!(h, "<td>{}</td>", e(c));
+            }
+            let _ = writeln!(h, "<td>{}</td></tr>", if best { "lowest" } else { "" });
+            continue;
+        }
         let _ = write!(
             h,
             "<tr{} data-value=\"{}\">",

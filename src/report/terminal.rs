@@ -206,7 +206,7 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
 
 /// The row of the lowest expected loss: `best`'s value (and family) at the largest training
 /// size.
-fn best_row(doc: &ResultDoc) -> Option<&PointRow> {
+pub fn best_row(doc: &ResultDoc) -> Option<&PointRow> {
     let largest = doc.sizes.last().map(|&n| n as u64);
     doc.points.iter().find(|p| {
         p.value == doc.best.value
