@@ -590,6 +590,20 @@ fn scenario_cases(t: &mut Table) {
         "t.csv:2: column `floor`: `ground` is not a number (the column is numeric: 8 of its 12 filled cells are numbers",
     )
     .also("spell its levels as words");
+    // `--assess` far beyond a polynomial's degrees: the memory estimate, which comes first,
+    // counted that many basis steps (1e9 took 6.7 s, 4294967295 or more never finished).
+    let poly_holdout = table_scenario("holdout = 0.25", "family = \"poly\"\ngrid = [0, 1]");
+    let poly_rows = csv_rows(24, |i| format!("{}", i % 5));
+    t.add(
+        g,
+        "--assess 1e300 on a polynomial",
+        &[
+            ("s.toml", poly_holdout.as_bytes()),
+            ("t.csv", poly_rows.as_bytes()),
+        ],
+        &["run", "s.toml", "--assess", "1e300"],
+        "degree = 1e300 is outside the allowed range 0..=20",
+    );
     let offset_csv = b"t,y\n400000000000.25,1\n400000000000.5,2\n400000000000.75,3\n400000000000.1,0.5\n400000000000.9,3.1\n400000000000.3,1.2\n400000000000.6,2.2\n400000000000.4,1.9\n";
     let ridge_table = table_scenario("", "family = \"ridge\"\ngrid = [1]");
     t.add(
@@ -4262,6 +4276,8 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         ("count -1", serde_json::json!(-1)),
         ("count of text", serde_json::json!("many")),
         ("count 1.5", serde_json::json!(1.5)),
+        // One assessment made: a count of 0 beside its value dropped the reuse warning.
+        ("count 0 beside one value", serde_json::json!(0)),
     ] {
         let mut l = real.clone();
         l["holdouts"][0]["assessments"] = count;
@@ -4278,6 +4294,22 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             "the ledger was edited or damaged",
         );
     }
+    // The holdout listed twice (each entry could be edited down on its own).
+    let mut twice = real.clone();
+    let first = twice["holdouts"][0].clone();
+    twice["holdouts"].as_array_mut().unwrap().push(first);
+    let body = serde_json::to_vec_pretty(&twice).unwrap();
+    t.add(
+        g,
+        "ledger with the holdout twice",
+        &[
+            ("s.toml", hs.as_bytes()),
+            ("t.csv", good.as_bytes()),
+            ("s.holdout-ledger.json", &body),
+        ],
+        &["run", "s.toml", "--assess", "2"],
+        "is listed twice; the ledger was edited or damaged",
+    );
 }
 
 const PY_MODEL: &str = r#"import sys, time

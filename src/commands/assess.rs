@@ -229,9 +229,16 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
         .get_mut("holdouts")
         .and_then(Value::as_array_mut)
         .ok_or_else(|| Error::Usage(format!("{}: no `holdouts` list", ledger.display())))?;
-    let pos = list
-        .iter()
-        .position(|e| e.get("hash").and_then(Value::as_str) == Some(hash));
+    let same = |e: &Value| e.get("hash").and_then(Value::as_str) == Some(hash);
+    // Two entries of one holdout split its count (each could be edited down on its own).
+    if list.iter().filter(|e| same(e)).count() > 1 {
+        return Err(Error::Usage(format!(
+            "{}: holdout {hash} is listed twice; the ledger was edited or damaged: move it away \
+             to start a new one",
+            ledger.display()
+        )));
+    }
+    let pos = list.iter().position(same);
     let entry = match pos {
         Some(p) => &mut list[p],
         None => {
@@ -259,6 +266,18 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
         if !ok {
             return Err(bad("`values` is not a list of numbers"));
         }
+    }
+    // Every assessment adds one value: a count below the values was edited down, and the
+    // reuse warning was lost with it.
+    let listed = entry
+        .get("values")
+        .and_then(Value::as_array)
+        .map_or(0, Vec::len) as u64;
+    if listed != count - 1 {
+        return Err(bad(&format!(
+            "`assessments` is {} but `values` lists {listed} assessed values",
+            count - 1
+        )));
     }
     entry["assessments"] = json!(count);
     let mut values: Vec<f64> = entry
