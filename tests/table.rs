@@ -1511,3 +1511,50 @@ fn an_input_far_out_is_named_beside_the_noise_estimate() {
     assert!(doc["noise_estimate"].get("warning").is_none(), "{doc}");
     assert!(doc["noise_estimate"]["value"].as_f64().is_some());
 }
+
+/// A table run records its file as the scenario writes it (relative to the scenario's folder),
+/// so the result does not depend on the folder `run` starts in: started from the scenario's
+/// folder, from its parent and with an absolute path, the documents are identical byte for byte
+/// (they differed in the table's path, and `check` and `merge` refused identical runs).
+#[test]
+fn a_table_run_does_not_depend_on_the_folder_it_starts_in() {
+    let dir = tmp();
+    let sub = dir.path().join("sub");
+    fs::create_dir(&sub).unwrap();
+    cold_store_table_in(&sub);
+    let scenario = "name = \"folder\"\nseed = 7\nreplicates = 20\n[data]\nsource = \"table\"\n\
+                    path = \"data/cold-store.csv\"\ntarget = \"temp_c\"\nfeatures = [\"hour\", \
+                    \"load_tonnes\"]\n[model]\nfamily = \"knn\"\ngrid = [1, 5]\n";
+    fs::write(sub.join("s.toml"), scenario).unwrap();
+    let absolute = sub.join("s.toml").display().to_string();
+    let runs = [
+        (sub.clone(), "s.toml".to_string(), "a.json"),
+        (
+            dir.path().to_path_buf(),
+            "sub/s.toml".to_string(),
+            "sub/b.json",
+        ),
+        (dir.path().to_path_buf(), absolute, "sub/c.json"),
+    ];
+    for (cwd, file, out) in &runs {
+        let o = bin()
+            .current_dir(cwd)
+            .args(["run", file, "--out", out, "-q"])
+            .output()
+            .unwrap();
+        assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    }
+    let a = fs::read(sub.join("a.json")).unwrap();
+    assert_eq!(
+        a,
+        fs::read(sub.join("b.json")).unwrap(),
+        "from the parent folder"
+    );
+    assert_eq!(
+        a,
+        fs::read(sub.join("c.json")).unwrap(),
+        "with an absolute path"
+    );
+    let doc: serde_json::Value = serde_json::from_slice(&a).unwrap();
+    assert_eq!(doc["table"]["path"], "data/cold-store.csv");
+}

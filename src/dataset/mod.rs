@@ -1217,9 +1217,20 @@ pub struct TablePlan {
     /// Several training sizes (a learning curve): each replicate draws a random order of the
     /// working rows; size n trains on the first n rows and is evaluated on the rest.
     pub sizes: Option<Vec<usize>>,
+    /// The file as the scenario writes it (relative to the scenario's folder): what results
+    /// and fingerprints record, so that a run does not depend on the folder it was started
+    /// from. `None` for a plan made without a scenario.
+    pub written: Option<String>,
 }
 
 impl TablePlan {
+    /// The file as results record it: [`TablePlan::written`], else the path it was read from.
+    pub fn recorded_path(&self) -> String {
+        self.written
+            .clone()
+            .unwrap_or_else(|| self.table.path.display().to_string())
+    }
+
     /// Training rows per replicate (the largest size of a learning curve).
     pub fn train_size(&self) -> usize {
         match &self.sizes {
@@ -1354,6 +1365,7 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
         work,
         noise_method,
         sizes: None,
+        written: None,
     })
 }
 

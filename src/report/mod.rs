@@ -864,6 +864,7 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
         Source::Synthetic(s) => s,
         Source::Table(t) => {
             let table = &t.table;
+            let file = t.recorded_path();
             let encoded: Vec<&str> = table.encodings.iter().map(|e| e.column.as_str()).collect();
             return ScenarioEcho {
                 eval_seed: None,
@@ -887,15 +888,11 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
                             Some((col, level)) if encoded.contains(&col) => {
                                 format!("indicator of `{col}` = \"{level}\" (one-hot)")
                             }
-                            _ => format!("column of {}", table.path.display()),
+                            _ => format!("column of {file}"),
                         },
                     })
                     .collect(),
-                truth: format!(
-                    "unknown: observed `{}` in {}",
-                    table.target,
-                    table.path.display()
-                ),
+                truth: format!("unknown: observed `{}` in {file}", table.target),
                 noise: match plan.task {
                     crate::family::Task::Regress if plan.loss.count_responses() => {
                         "unknown; folded into the bias against the observed counts".into()
@@ -1514,7 +1511,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         reading.push_str(plan.loss.observed_note());
         let (share, share_se) = outcome.held_share.unwrap_or((f64::NAN, f64::NAN));
         table = Some(TableEcho {
-            path: tp.table.path.display().to_string(),
+            path: tp.recorded_path(),
             target: tp.table.target.clone(),
             rows: tp.table.rows(),
             dropped_rows: tp.table.dropped_rows,

@@ -316,6 +316,7 @@ pub fn from_spec(
         }
     })?;
     let mut plan = plan;
+    plan.written = Some(path.get_ref().clone());
     if let Some(h) = &d.holdout {
         let refuse = |locks: String| {
             spanned_err(
