@@ -1089,11 +1089,15 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
         (Some(ma), Some(mb)) => {
             // `repeats_dropped` is a count of what `rows` already holds (and absent from the
             // documents of versions before it).
+            // `skipped_rows` (rows held out in fewer than 2 replicates, left out of the
+            // averages) depends on the seed like the held-out share: a rerun with a fresh seed
+            // skipped one row where the baseline skipped none and was refused (exit 2).
             let skip = [
                 "path",
                 "held_out_share",
                 "held_out_share_stderr",
                 "repeats_dropped",
+                "skipped_rows",
             ];
             for (k, va) in ma.iter().filter(|(k, _)| !skip.contains(&k.as_str())) {
                 if mb.get(k) != Some(va) {
@@ -1152,11 +1156,21 @@ fn choose_mode(new: &ResultDoc, base: &ResultDoc) -> Result<(Mode, String), Chec
         } else {
             ""
         };
+        // A table's rows held out in fewer than 2 replicates are left out of its averages, and
+        // which they are depends on the seed: said, since the rows then differ by those few.
+        let skipped = match (&new.table, &base.table) {
+            (Some(a), Some(b)) if a.skipped_rows + b.skipped_rows > 0 => format!(
+                " (apart from the rows each run skipped as held out in fewer than 2 \
+                 replicates: {} in the result, {} in the baseline, of {})",
+                a.skipped_rows, b.skipped_rows, a.working_rows
+            ),
+            _ => String::new(),
+        };
         return Ok((
             Mode::SamePoints,
             format!(
-                "unpaired, same evaluation points (seed {} against {}: independent training \
-                 sets); se = sqrt(se_new² + se_base²){shared}",
+                "unpaired, same evaluation points{skipped} (seed {} against {}: independent \
+                 training sets); se = sqrt(se_new² + se_base²){shared}",
                 new.seed, base.seed
             ),
         ));

@@ -1558,3 +1558,53 @@ fn a_table_run_does_not_depend_on_the_folder_it_starts_in() {
     let doc: serde_json::Value = serde_json::from_slice(&a).unwrap();
     assert_eq!(doc["table"]["path"], "data/cold-store.csv");
 }
+
+/// `check` of table runs with different seeds (the README's unpaired recipe) accepts runs that
+/// skipped different rows (held out in fewer than 2 replicates) and says so in its mode line:
+/// at R = 20 seed 9 skips no row of the cold-store table and seed 7 one, which was refused
+/// (exit 2, "table.skipped_rows differs").
+#[test]
+fn check_accepts_table_runs_that_skipped_different_rows() {
+    let dir = tmp();
+    let root = cold_store_table_in(dir.path());
+    fs::copy(
+        root.join("scenarios/cold-store-table.toml"),
+        dir.path().join("s.toml"),
+    )
+    .unwrap();
+    for seed in ["7", "9"] {
+        let out = format!("r{seed}.json");
+        let o = run_in(
+            dir.path(),
+            &[
+                "run",
+                "s.toml",
+                "--replicates",
+                "20",
+                "--seed",
+                seed,
+                "--out",
+                &out,
+                "-q",
+            ],
+        );
+        assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    }
+    let skipped = |f: &str| {
+        let d: serde_json::Value =
+            serde_json::from_str(&fs::read_to_string(dir.path().join(f)).unwrap()).unwrap();
+        d["table"]["skipped_rows"].as_u64().unwrap()
+    };
+    assert_ne!(
+        skipped("r7.json"),
+        skipped("r9.json"),
+        "the case this test needs"
+    );
+    let o = run_in(dir.path(), &["check", "r9.json", "--baseline", "r7.json"]);
+    let out = String::from_utf8_lossy(&o.stdout);
+    assert_eq!(o.status.code(), Some(0), "{out}{}", stderr(&o));
+    assert!(
+        out.contains("apart from the rows each run skipped"),
+        "{out}"
+    );
+}
