@@ -5163,6 +5163,10 @@ fn the_zero_one_views_of_a_regression_curve_draw_its_own_terms() {
         );
         assert_eq!(code, 0, "{view}: {err}");
         assert!(fs::read_to_string(dir.join(&svg)).unwrap().contains("<svg"));
+        // The table says the view has none of its terms for this loss.
+        let (code, out, _) = status(dir, &["run", "s.toml", "--decomposition", view]);
+        assert_eq!(code, 0);
+        assert!(out.contains("note: --decomposition"), "{view}: {out}");
         let again = format!("{view}-again.svg");
         let (code, _, err) = status(
             dir,
@@ -5176,6 +5180,11 @@ fn the_zero_one_views_of_a_regression_curve_draw_its_own_terms() {
             ],
         );
         assert_eq!(code, 0, "{view}: {err}");
+        // Said, since the view has none of its own terms here (it was drawn with no word).
+        assert!(
+            err.contains("shows none of its terms here"),
+            "{view}: {err}"
+        );
         // The same picture as the default view's.
         let (code, _, err) = status(
             dir,

@@ -1608,3 +1608,35 @@ fn check_accepts_table_runs_that_skipped_different_rows() {
         "{out}"
     );
 }
+
+/// On a classification table the 0-1 "direct check" is the out-of-bag misclassification rate
+/// summed directly, equal to the expected loss, and says so (it was described as a rate
+/// against fresh labels, an independent estimate, which a table does not have).
+#[test]
+fn a_classification_table_describes_its_direct_check_as_what_it_is() {
+    let dir = tmp();
+    let mut csv = String::from("a,b,y\n");
+    for i in 0..60 {
+        csv.push_str(&format!(
+            "{},{},{}\n",
+            i % 7,
+            i % 5,
+            ["u", "w"][(i / 3) % 2]
+        ));
+    }
+    fs::write(dir.path().join("d.csv"), &csv).unwrap();
+    let classes = TABLE_SCENARIO.replace("target = \"y\"", "target = \"y\"\ntask = \"classify\"");
+    fs::write(dir.path().join("s.toml"), &classes).unwrap();
+    let doc = run_doc(dir.path());
+    let terms = doc["terms"].as_array().unwrap();
+    let direct = terms
+        .iter()
+        .find(|t| t["key"] == "expected_loss_direct")
+        .expect("a direct check");
+    let meaning = direct["meaning"].as_str().unwrap();
+    assert!(meaning.contains("summed directly"), "{meaning}");
+    assert!(!meaning.contains("fresh labels"), "{meaning}");
+    for p in doc["points"].as_array().unwrap() {
+        assert_eq!(p["expected_loss_direct"], p["expected_loss"], "{p}");
+    }
+}

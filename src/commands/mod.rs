@@ -765,6 +765,11 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     // The reader `check` uses: the same refusals for the same damaged document.
     let doc = crate::check::parse_result(&text, &name).map_err(|e| Error::Usage(e.to_string()))?;
     let view: View = args.decomposition.into();
+    // A picture of a view with none of its terms draws the loss's own terms, as `run --plot`
+    // does; said on standard error (it was drawn with no word).
+    if let Some(why) = report::terminal::view_missing(&doc, view) {
+        eprintln!("note: {name}: {why}; the picture shows the loss's own terms");
+    }
     let families = doc.families();
     if let Some(f) = &args.family {
         if !families.contains(f) {

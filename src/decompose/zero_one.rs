@@ -577,7 +577,11 @@ impl Loss for ZeroOne {
         let mut v = vec![
             info(
                 "expected_loss",
-                if observed { "expected loss (OOB)" } else { "expected loss" },
+                if observed {
+                    "expected loss (OOB)"
+                } else {
+                    "expected loss"
+                },
                 if observed {
                     "out-of-bag misclassification rate 1 − p_D(observed label)"
                 } else {
@@ -622,7 +626,11 @@ impl Loss for ZeroOne {
             info(
                 "expected_loss_direct",
                 "direct check",
-                "misclassification rate against fresh labels, an independent estimate of the expected loss",
+                if observed {
+                    "mean out-of-bag misclassification rate summed directly (equals expected loss)"
+                } else {
+                    "misclassification rate against fresh labels, an independent estimate of the expected loss"
+                },
                 Role::Direct,
                 if observed { Detail } else { Main },
                 true,

@@ -57,6 +57,32 @@ pub fn shown_terms(doc: &ResultDoc, view: View) -> Vec<TermDoc> {
     out
 }
 
+/// Why `view` shows none of its own terms for `doc` (Kohavi–Wolpert and James are defined for
+/// the 0-1 loss against true class probabilities: another loss, or a table, has none), in
+/// words; `None` when it shows them (or is the main or the full view). The table then showed
+/// only the expected loss, with no word.
+pub fn view_missing(doc: &ResultDoc, view: View) -> Option<String> {
+    let (group, flag) = match view {
+        View::KohaviWolpert => ("kohavi_wolpert", "kohavi-wolpert"),
+        View::James => ("james", "james"),
+        View::Domingos | View::All => return None,
+    };
+    if doc.term_docs().iter().any(|t| t.group == group) {
+        return None;
+    }
+    let table = if doc.table.is_some() {
+        " on a table (the bias there is measured against the observed labels)"
+    } else {
+        ""
+    };
+    Some(format!(
+        "--decomposition {flag} shows none of its terms here: they are defined for the 0-1 loss \
+         against true class probabilities (a synthetic or twin source), and this result holds \
+         the {} loss{table}",
+        doc.loss
+    ))
+}
+
 /// How the table of a view is laid out: the terms shown, the labels left out, the spaces
 /// between columns and whether `±` is written without spaces around it.
 #[derive(Debug, Clone)]
@@ -370,6 +396,9 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
             })
             .collect();
         out.push_str(&layout_gap(&header, &cells, f.gap));
+        if let Some(note) = view_missing(doc, view) {
+            out.push_str(&format!("\nnote: {note}\n"));
+        }
     } else {
         for (i, family) in families.iter().enumerate() {
             let knob = doc
@@ -384,6 +413,9 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
             out.push_str(&format!("{family}{size}:\n"));
             out.push_str(&curve_table(doc, &f, &knob, &doc.curve(family)));
             out.push('\n');
+        }
+        if let Some(note) = view_missing(doc, view) {
+            out.push_str(&format!("note: {note}\n\n"));
         }
         let bias_label = terms
             .iter()
