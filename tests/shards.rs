@@ -926,3 +926,40 @@ fn the_fingerprint_covers_an_external_estimators_script() {
     fs::remove_file(d.join("m.py")).unwrap();
     assert_eq!(print(), a.split_once("+scripts:").unwrap().0);
 }
+
+/// Without a checkpoint nothing keeps the blocks in flight, so SIGTERM ends the run at once,
+/// exit 130, nothing written (it waited for the blocks in flight, 49 s on a large run, then
+/// threw them away; a batch system's SIGKILL can come first). Two blocks of 50 000 replicates:
+/// waiting for them takes the whole run.
+#[cfg(unix)]
+#[test]
+fn a_terminated_run_without_a_checkpoint_stops_at_once() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let text = slow_scenario().replace(
+        "replicates = 12000\nblocks = 100",
+        "replicates = 100000\nblocks = 2",
+    );
+    fs::write(d.join("s.toml"), text).unwrap();
+    let child = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .current_dir(d)
+        .args(["run", "s.toml", "--out", "r.json", "-q"])
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    std::thread::sleep(std::time::Duration::from_millis(800));
+    let sent = std::time::Instant::now();
+    let status = std::process::Command::new("kill")
+        .args(["-TERM", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(status.success());
+    let out = child.wait_with_output().unwrap();
+    let waited = sent.elapsed();
+    assert_eq!(out.status.code(), Some(130), "{}", stderr(&out));
+    assert!(stderr(&out).contains("nothing written"), "{}", stderr(&out));
+    assert!(!d.join("r.json").exists());
+    // The blocks in flight are the whole run (two blocks of 50 000 replicates, tens of
+    // seconds); stopping at once takes milliseconds.
+    assert!(waited.as_secs() < 5, "stopped {waited:?} after the signal");
+}

@@ -371,8 +371,15 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
     let checkpointed = args.shard.is_some() || args.checkpoint.is_some();
-    progress::install_interrupt(progress::OnInterrupt::FinishBlocks {
-        checkpoint: args.checkpoint.clone(),
+    // Without a checkpoint or a part nothing keeps the blocks in flight, so a signal ends the
+    // run at once (it waited for them, 49 s on a large run, then threw them away; a batch
+    // system's SIGKILL can come first).
+    progress::install_interrupt(if checkpointed {
+        progress::OnInterrupt::FinishBlocks {
+            checkpoint: args.checkpoint.clone(),
+        }
+    } else {
+        progress::OnInterrupt::ExitNow { checkpoint: None }
     });
     if !checkpointed {
         let watch = progress::Progress::new(plan.replicates, args.quiet);
