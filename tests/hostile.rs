@@ -4148,6 +4148,13 @@ fn document_cases(t: &mut Table, docs: &Docs) {
     }
     t.add(
         g,
+        "check --baseline -",
+        &[("r.json", &docs.result)],
+        &["check", "r.json", "--baseline", "-"],
+        "--baseline -: a baseline is a file (standard input is not read)",
+    );
+    t.add(
+        g,
         "plot --selection without a selection",
         &[("r.json", &docs.result)],
         &["plot", "r.json", "--out", "c.svg", "--selection", "h.svg"],

@@ -647,6 +647,15 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         );
         return Ok(0);
     }
+    if args.baseline.as_os_str() == "-" {
+        // `-` is no file to read a baseline from, nor one `--update` could create (the hint
+        // below suggested `--baseline - --update`, which is refused).
+        return Err(Error::Usage(
+            "--baseline -: a baseline is a file (standard input is not read); name the baseline \
+             file, and create it once with --update"
+                .into(),
+        ));
+    }
     if !args.baseline.exists() {
         return Err(Error::Usage(format!(
             "{}: baseline not found; create it with `lossprism check {} --baseline {} --update`",
