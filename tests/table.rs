@@ -1075,6 +1075,29 @@ fn the_header_is_named_at_its_own_line() {
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
 }
 
+/// A file's physical lines, as an editor numbers them (LF, CRLF and CR endings).
+fn physical_lines(text: &str) -> Vec<String> {
+    text.split("\r\n")
+        .flat_map(|l| l.split(['\r', '\n']))
+        .map(str::to_string)
+        .collect()
+}
+
+/// Checks that every row of `dir/p.csv` (`--points`) names the physical line holding its first
+/// input; returns how many rows it checked.
+fn points_on_their_lines(dir: &Path, physical: &[String], what: &str) -> usize {
+    let points = fs::read_to_string(dir.join("p.csv")).unwrap();
+    let mut seen = 0;
+    for r in points.lines().skip(1) {
+        let cells: Vec<&str> = r.split(',').collect();
+        let line: usize = cells[1].parse().unwrap();
+        let a = physical[line - 1].split(',').next().unwrap();
+        assert_eq!(a, cells[2], "{what}: line {line}");
+        seen += 1;
+    }
+    seen
+}
+
 /// Line numbers are physical lines for every line ending: CRLF read one line short, a lone CR
 /// put every row on line 1, and 64 KiB of leading blank lines were not counted (a file with
 /// 70 000 of them named line 4475 for line 70011).
@@ -1102,20 +1125,7 @@ fn line_numbers_are_physical_lines_for_every_line_ending() {
         fs::write(dir.path().join("s.toml"), TABLE_SCENARIO).unwrap();
         let o = run_in(dir.path(), &["run", "s.toml", "--points", "p.csv"]);
         assert_eq!(o.status.code(), Some(0), "{what}: {}", stderr(&o));
-        // The file's physical lines, as an editor numbers them.
-        let physical: Vec<&str> = text
-            .split("\r\n")
-            .flat_map(|l| l.split(['\r', '\n']))
-            .collect();
-        let points = fs::read_to_string(dir.path().join("p.csv")).unwrap();
-        let mut seen = 0;
-        for r in points.lines().skip(1) {
-            let cells: Vec<&str> = r.split(',').collect();
-            let line: usize = cells[1].parse().unwrap();
-            let a = physical[line - 1].split(',').next().unwrap();
-            assert_eq!(a, cells[2], "{what}: line {line}");
-            seen += 1;
-        }
+        let seen = points_on_their_lines(dir.path(), &physical_lines(&text), &what);
         assert!(seen >= 40, "{what}");
         // Row 7 (0-based 6) made unreadable: the error names its physical line.
         let bad = text.replacen("6.5,", "x6.5,", 1);
@@ -1150,25 +1160,15 @@ fn records_after_blank_lines_are_named_at_their_own_line() {
                 (i * 3) % 5
             ));
         }
-        let physical: Vec<String> = text
-            .split("\r\n")
-            .flat_map(|l| l.split(['\r', '\n']))
-            .map(str::to_string)
-            .collect();
+        let physical = physical_lines(&text);
         let what = format!("{ending:?}");
         fs::write(dir.path().join("d.csv"), &text).unwrap();
         let o = run_in(dir.path(), &["run", "s.toml", "--points", "p.csv"]);
         assert_eq!(o.status.code(), Some(0), "{what}: {}", stderr(&o));
-        let points = fs::read_to_string(dir.path().join("p.csv")).unwrap();
-        let mut seen = 0;
-        for r in points.lines().skip(1) {
-            let cells: Vec<&str> = r.split(',').collect();
-            let line: usize = cells[1].parse().unwrap();
-            let a = physical[line - 1].split(',').next().unwrap();
-            assert_eq!(a, cells[2], "{what}: line {line}");
-            seen += 1;
-        }
-        assert!(seen >= 30, "{what}");
+        assert!(
+            points_on_their_lines(dir.path(), &physical, &what) >= 30,
+            "{what}"
+        );
         // The first record after each run of blank lines made unreadable.
         for first in ["3.5,", "6.5,"] {
             let bad = text.replacen(first, &format!("x{first}"), 1);
