@@ -813,7 +813,8 @@ pub struct NoiseEstimateEcho {
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub response_variance: Option<f64>,
     /// Why the estimate may be far off, when an input value lies far out
-    /// ([`crate::dataset::noise::far_input_warning`]); written only then (from version 0.3.2).
+    /// ([`crate::dataset::noise::far_input_warning`]); written only then (absent from earlier
+    /// documents).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub warning: Option<String>,
 }
