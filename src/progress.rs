@@ -15,6 +15,16 @@ use crate::output::noteln;
 /// Set by the Ctrl-C handler; read by [`Progress::stop`].
 static INTERRUPTED: AtomicBool = AtomicBool::new(false);
 
+/// Set while the outputs are written: an [`OnInterrupt::ExitNow`] signal then lets the writes
+/// finish (they are all-or-nothing only as a whole: an exit between two renames kept one).
+static WRITING: AtomicBool = AtomicBool::new(false);
+
+/// Marks the start of the outputs' writing: from here a signal no longer ends the process at
+/// once (the computation is done; the writes take moments).
+pub fn writing_outputs() {
+    WRITING.store(true, Ordering::SeqCst);
+}
+
 /// Whether the bar is shown: only when standard error is a terminal and the run is not quiet.
 pub fn should_show(stderr_is_terminal: bool, quiet: bool) -> bool {
     stderr_is_terminal && !quiet
@@ -122,6 +132,15 @@ pub fn install_interrupt(mode: OnInterrupt) {
             std::process::exit(130);
         }
         OnInterrupt::ExitNow { checkpoint: None } => {
+            if WRITING.load(Ordering::SeqCst) {
+                // Once: a second signal while writing ends the process like any other.
+                if !INTERRUPTED.swap(true, Ordering::SeqCst) {
+                    noteln!("\ninterrupt: finishing the outputs being written (again to stop now)");
+                    return;
+                }
+                noteln!("\ninterrupted while writing: outputs may be incomplete");
+                std::process::exit(130);
+            }
             noteln!("\ninterrupted: nothing written");
             std::process::exit(130);
         }

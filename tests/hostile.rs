@@ -604,6 +604,26 @@ fn scenario_cases(t: &mut Table) {
         &["run", "s.toml", "--assess", "1e300"],
         "degree = 1e300 is outside the allowed range 0..=20",
     );
+    // A word in a numeric target: no advice to make it a category (a target is not one-hot
+    // encoded).
+    let word_target = csv_rows(12, |i| {
+        if i == 4 {
+            "high".into()
+        } else {
+            format!("{i}")
+        }
+    });
+    let tree_table = table_scenario("", TREE);
+    t.add(
+        g,
+        "a word in a numeric target",
+        &[
+            ("s.toml", tree_table.as_bytes()),
+            ("t.csv", word_target.as_bytes()),
+        ],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "column `y`: `high` is not a number (the column is numeric); fix the cell",
+    );
     let offset_csv = b"t,y\n400000000000.25,1\n400000000000.5,2\n400000000000.75,3\n400000000000.1,0.5\n400000000000.9,3.1\n400000000000.3,1.2\n400000000000.6,2.2\n400000000000.4,1.9\n";
     let ridge_table = table_scenario("", "family = \"ridge\"\ngrid = [1]");
     t.add(
@@ -5170,10 +5190,12 @@ fn the_zero_one_views_of_a_regression_curve_draw_its_own_terms() {
         );
         assert_eq!(code, 0, "{view}: {err}");
         assert!(fs::read_to_string(dir.join(&svg)).unwrap().contains("<svg"));
-        // The table says the view has none of its terms for this loss.
+        // The table and the report say the view has none of its terms for this loss.
         let (code, out, _) = status(dir, &["run", "s.toml", "--decomposition", view]);
         assert_eq!(code, 0);
         assert!(out.contains("note: --decomposition"), "{view}: {out}");
+        let html = fs::read_to_string(dir.join(format!("{view}.html"))).unwrap();
+        assert!(html.contains("shows none of its terms here"), "{view}");
         let again = format!("{view}-again.svg");
         let (code, _, err) = status(
             dir,

@@ -396,6 +396,7 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
             }
         };
         watch.clear();
+        progress::writing_outputs();
         return emit(&plan, &outcome, &o, set, ids);
     }
     run_in_blocks(&args, &plan, &source, o, set, ids)

@@ -1178,12 +1178,13 @@ fn check_scale(t: &Table) -> Result<(), Error> {
             let mean = col.sum() / n;
             let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
             let share = crate::scenario::plan::offset_share();
-            if hi - lo > 1e-13 * big && sd < share * big {
+            if hi - lo > 1e-13 * big && hi - lo < 1e-10 * big && sd < share * big {
                 return Err(Error::Usage(format!(
                     "{}: column `{name}` has a standard deviation of {sd:.2e} beside values of \
                      {big:.3e}, below {share:e} of their size: the reference's k-NN and \
-                     local-linear candidates standardize the inputs and would read it as \
-                     rounding, i.e. as constant; subtract an offset from the column",
+                     local-linear candidates standardize the inputs and read a spread below a \
+                     tenth of that as rounding, i.e. as constant; subtract an offset from the \
+                     column",
                     t.path.display()
                 )));
             }

@@ -828,9 +828,15 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                         "`{}` is beyond the range of floating-point numbers (about ±1.8e308)",
                         crate::fmt::clip(cell, 60)
                     )
+                } else if c == target_col || opts.missing == Missing::Drop {
+                    format!(
+                        "`{}` is not a number (the column is numeric)",
+                        crate::fmt::clip(cell, 60)
+                    )
                 } else {
-                    // A word in a column read as numbers: it may be a real level (floors
-                    // `ground`, `1`, `2`), which dropping the rows would lose.
+                    // A word in an input read as numbers: it may be a real level (floors
+                    // `ground`, `1`, `2`), which dropping the rows would lose. Counted only on
+                    // the way to the error (counting for every dropped row was quadratic).
                     let filled: Vec<&str> = cells
                         .iter()
                         .map(|r| &r[c][..])

@@ -27,7 +27,6 @@ pub mod squared;
 pub mod zero_one;
 
 use ndarray::{ArrayView3, ArrayView4};
-use rayon::prelude::*;
 
 use crate::family::Task;
 
@@ -641,9 +640,7 @@ pub fn add_second_order(
         return;
     };
     let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
-    // One grid value per task: each row's arithmetic is its own, so the result does not depend
-    // on the threads (the Gram matrix over blocks is the costly part on wide runs).
-    se.par_iter_mut().enumerate().for_each(|(g, row)| {
+    for (g, row) in se.iter_mut().enumerate() {
         let cells = g * width..(g + 1) * width;
         let per_block: Vec<std::borrow::Cow<'_, [f64]>> = blocks
             .iter()
@@ -662,7 +659,7 @@ pub fn add_second_order(
         if let (Some(v), true) = (var, row[t].is_finite()) {
             row[t] = (row[t] * row[t] + v).sqrt();
         }
-    });
+    }
 }
 
 /// Delete-one-group jackknife standard error: `sqrt((G-1)/G Σ (θ_(g) - θ̄)²)` (Efron and Tibshirani,

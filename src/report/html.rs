@@ -275,9 +275,6 @@ fn table_words(
                 .unwrap_or_default(),
             n.about
         ));
-        if let Some(w) = &n.warning {
-            out.push(format!("Warning: {w}."));
-        }
     }
     if let Some(note) = &doc.scheme_note {
         out.push(note.clone());
@@ -694,6 +691,9 @@ pub fn render(
         "</tbody>\n</table></div>\n<p class=\"legend\">{}</p>",
         e(legend.trim_start_matches("legend: "))
     );
+    if let Some(note) = terminal::view_missing(doc, view) {
+        let _ = writeln!(h, "<p class=\"legend\">Note: {}.</p>", e(&note));
+    }
 
     h.push_str("<h2>The run</h2>\n<dl class=\"facts\">\n");
     let mut fact = |k: &str, v: String| {

@@ -71,7 +71,7 @@ pub fn view_missing(doc: &ResultDoc, view: View) -> Option<String> {
         return None;
     }
     let table = if doc.table.is_some() {
-        " on a table (the bias there is measured against the observed labels)"
+        " on a table (whose truth is unknown)"
     } else {
         ""
     };

@@ -173,7 +173,10 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
             let size = lo.abs().max(hi.abs());
             let share = crate::scenario::plan::offset_share();
             let standardizes = plan.models.iter().find(|m| m.family.standardizes_inputs());
-            if let (Some(m), true) = (standardizes, spread > 1e-13 * size) {
+            // A constant column with one value off is not an offset (its sd shrinks like
+            // 1/√rows while its spread stays): only a spread below 1e-10 of the size counts.
+            let hidden = spread > 1e-13 * size && spread < 1e-10 * size;
+            if let (Some(m), true) = (standardizes, hidden) {
                 let n = col.len() as f64;
                 let mean = col.sum() / n;
                 let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
@@ -181,8 +184,9 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
                     return Err(Error::Data(format!(
                         "column `{name}` of {} has a standard deviation of {sd:.2e} beside \
                          values of {size:.3e}, below {share:e} of their size: `{}` standardizes \
-                         its inputs and reads such a column as rounding, i.e. as constant, so \
-                         the fit would ignore it; subtract an offset from the column",
+                         its inputs and reads a training set whose spread falls below a tenth \
+                         of that as rounding, i.e. as constant; subtract an offset from the \
+                         column",
                         t.table.path.display(),
                         m.family.name()
                     )));

@@ -1482,12 +1482,14 @@ fn offset_inputs(
             &format!("data.inputs[{i}].{law}"),
             format!(
                 "input `{}` has a standard deviation of {sd:.2e} beside values of {size:.3e}, \
-                 below {:e} of their size: `{family}` standardizes its inputs and reads such a \
-                 column as rounding, i.e. as constant, so the fit would ignore the input; \
+                 below {:e} of their size: `{family}` standardizes its inputs and reads a \
+                 training set whose spread falls below {:e} of its size as rounding, i.e. as \
+                 constant, and this input's training sets come within ten times of that line; \
                  subtract an offset (draw the input minus {size:.3e} and write the formulas \
                  with it)",
                 inp.name,
-                offset_share()
+                offset_share(),
+                crate::family::standardize::CONSTANT_RTOL
             ),
         ));
     }
