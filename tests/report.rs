@@ -1346,6 +1346,14 @@ fn html_report_of_a_study_marks_one_row_and_reads_the_best_curve() {
         .expect("a study's best names its model");
     assert_eq!(marked[0][0], fam);
     assert_eq!(marked[0][1], "300");
+    // Each row's knob is its own model's (k-NN rows stood under the first model's knob).
+    let knob = if fam == "knn" { "k = " } else { "max_depth = " };
+    assert!(marked[0][2].starts_with(knob), "{marked:?}");
+    let headers: Vec<String> = page
+        .select(&sel("thead th"))
+        .map(|c| c.text().collect())
+        .collect();
+    assert_eq!(headers[2], "knob", "{headers:?}");
     // The neighbours in the reading are on the best's curve, so none is lower than the best.
     let words = html::reading_words(&doc).join(" ");
     assert!(

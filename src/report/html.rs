@@ -652,7 +652,14 @@ pub fn render(
     if study {
         h.push_str("<th>model</th><th>training rows</th>");
     }
-    for c in &header {
+    for (i, c) in header.iter().enumerate() {
+        // Several models: the knob column holds each row's own knob (k-NN rows stood under
+        // the first model's `max_depth`).
+        let c = if study && i == 0 && doc.models.len() > 1 {
+            "knob"
+        } else {
+            c.as_str()
+        };
         let _ = write!(h, "<th>{}</th>", e(c));
     }
     h.push_str("<th></th></tr></thead>\n<tbody>\n");
@@ -669,8 +676,21 @@ pub fn render(
                 p.train_size
                     .map_or(doc.scenario.train_size.to_string(), |n| n.to_string())
             );
-            for c in r {
-                let _ = write!(h, "<td>{}</td>", e(c));
+            let knob = doc
+                .models
+                .iter()
+                .find(|m| p.family.as_deref() == Some(m.id()))
+                .filter(|_| doc.models.len() > 1)
+                .map(|m| m.knob.as_str());
+            for (i, c) in r.iter().enumerate() {
+                match knob {
+                    Some(k) if i == 0 => {
+                        let _ = write!(h, "<td>{}</td>", e(&format!("{k} = {c}")));
+                    }
+                    _ => {
+                        let _ = write!(h, "<td>{}</td>", e(c));
+                    }
+                }
             }
             let _ = writeln!(h, "<td>{}</td></tr>", if best { "lowest" } else { "" });
             continue;
