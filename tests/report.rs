@@ -439,7 +439,7 @@ fn selection_histogram_marks_the_oracle() {
         "selection": {"chosen_counts": [4, 2], "oracle_best": 1.0}
     });
     assert_eq!(SelectionView::from_json(&doc).unwrap().counts, vec![4, 2]);
-    assert!(SelectionView::from_json(&serde_json::json!({"scenario": {"grid": [1.0]}})).is_none());
+    assert!(SelectionView::from_json(&serde_json::json!({"scenario": {"grid": [1.0]}})).is_err());
 }
 
 #[test]

@@ -177,8 +177,8 @@ fn emit(
     };
     let selection = match (o.report.or(o.plot_selection), serde_json::to_value(&doc)) {
         (Some(_), Ok(v)) => match report::plot::SelectionView::from_json(&v) {
-            Some(sel) => Some(report::plot::selection_svg(&sel, &doc.knob)?),
-            None => None,
+            Ok(sel) => Some(report::plot::selection_svg(&sel, &doc.knob)?),
+            Err(_) => None,
         },
         _ => None,
     };
@@ -825,7 +825,7 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
             let value: serde_json::Value = serde_json::from_str(&text)
                 .map_err(|e| Error::Usage(format!("{name}: not a result document (JSON): {e}")))?;
             let sel = report::plot::SelectionView::from_json(&value)
-                .ok_or_else(|| Error::Usage(format!("{name}: {}", selection_problem(&value))))?;
+                .map_err(|why| Error::Usage(format!("{name}: {why}")))?;
             // Every replicate chooses one candidate: counts that add up to anything else were
             // edited (a histogram of 100 choices out of 20 replicates was drawn, exit 0).
             let total: u64 = sel.counts.iter().sum();
@@ -849,52 +849,6 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     }
     set.commit(contents)?;
     Ok(0)
-}
-
-/// Why a document's `selection` section cannot be drawn, naming the key: the section is
-/// absent (no cross-validation audit), or a part of it is missing or does not fit the grid (a
-/// cut `chosen_counts` was reported as a missing section).
-fn selection_problem(doc: &serde_json::Value) -> String {
-    let Some(sel) = doc.get("selection") else {
-        return "no `selection` section (run the cross-validation audit first); drop --selection"
-            .into();
-    };
-    let grid = doc
-        .get("scenario")
-        .and_then(|s| s.get("grid"))
-        .and_then(|g| g.as_array());
-    let several = sel.get("candidates").and_then(|c| c.as_array());
-    let bars = several.or(grid).map(Vec::len);
-    match (sel.get("chosen_counts"), bars) {
-        (None, _) => "`selection.chosen_counts` is missing: the document was edited".into(),
-        (_, None) => "`scenario.grid` is missing or not a list: the document was edited".into(),
-        (Some(serde_json::Value::Array(a)), Some(n))
-            if a.iter().all(|v| v.is_number()) && a.len() != n =>
-        {
-            format!(
-                "`selection.chosen_counts` has {} entries for {n} {}: the document was edited",
-                a.len(),
-                if several.is_some() {
-                    "candidates"
-                } else {
-                    "grid values"
-                }
-            )
-        }
-        (Some(serde_json::Value::Array(a)), _)
-            if a.iter().any(|v| v.is_number() && v.as_u64().is_none()) =>
-        {
-            "`selection.chosen_counts` holds a count that is not a whole number: the document \
-             was edited"
-                .into()
-        }
-        _ if sel.get("oracle_best").is_none() => {
-            "`selection.oracle_best` is missing: the document was edited".into()
-        }
-        _ => "the `selection` section cannot be read (`chosen_counts` or `oracle_best` is not \
-              what `run` writes): the document was edited"
-            .into(),
-    }
 }
 
 /// `run --assess VALUE` on a table scenario with a holdout: the one-off holdout assessment,

@@ -1168,26 +1168,17 @@ fn check_scale(t: &Table) -> Result<(), Error> {
         // A spread hidden by an offset (an input uniform on [4e11, 4e11 + 1]): the
         // reference's k-NN and local-linear candidates standardize the inputs and read it as
         // rounding, i.e. as constant (their cross-validated R² fell from 0.91 to -0.03).
-        if name != &t.target {
-            let (lo, hi) = col
-                .iter()
-                .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
-                    (lo.min(v), hi.max(v))
-                });
-            let n = col.len() as f64;
-            let mean = col.sum() / n;
-            let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
-            let share = crate::scenario::plan::offset_share();
-            if hi - lo > 1e-13 * big && hi - lo < 1e-10 * big && sd < share * big {
-                return Err(Error::Usage(format!(
-                    "{}: column `{name}` has a standard deviation of {sd:.2e} beside values of \
-                     {big:.3e}, below {share:e} of their size: the reference's k-NN and \
-                     local-linear candidates standardize the inputs and read a spread below a \
-                     tenth of that as rounding, i.e. as constant; subtract an offset from the \
-                     column",
-                    t.path.display()
-                )));
-            }
+        if let (true, Some((sd, size))) =
+            (name != &t.target, crate::scenario::plan::offset_hidden(col))
+        {
+            return Err(Error::Usage(format!(
+                "{}: column `{name}` has a standard deviation of {sd:.2e} beside values of \
+                 {size:.3e}, below {:e} of their size: the reference's k-NN and local-linear \
+                 candidates standardize the inputs and read a spread below a tenth of that as \
+                 rounding, i.e. as constant; subtract an offset from the column",
+                t.path.display(),
+                crate::scenario::plan::offset_share()
+            )));
         }
         // The same powers underflow to 0 for tiny values: a twin of a target of size 1e-300
         // was written with noise 0 and no candidate reference tried.

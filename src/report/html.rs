@@ -666,43 +666,35 @@ pub fn render(
     let best_row = terminal::best_row(doc);
     for (p, r) in doc.points.iter().zip(&rows) {
         let best = best_row.is_some_and(|b| std::ptr::eq(b, p));
-        if study {
-            let _ = write!(
-                h,
-                "<tr{} data-value=\"{}\"><td>{}</td><td>{}</td>",
-                if best { " class=\"best\"" } else { "" },
-                p.value,
-                e(p.family.as_deref().unwrap_or(&doc.first_model())),
-                p.train_size
-                    .map_or(doc.scenario.train_size.to_string(), |n| n.to_string())
-            );
-            let knob = doc
-                .models
-                .iter()
-                .find(|m| p.family.as_deref() == Some(m.id()))
-                .filter(|_| doc.models.len() > 1)
-                .map(|m| m.knob.as_str());
-            for (i, c) in r.iter().enumerate() {
-                match knob {
-                    Some(k) if i == 0 => {
-                        let _ = write!(h, "<td>{}</td>", e(&format!("{k} = {c}")));
-                    }
-                    _ => {
-                        let _ = write!(h, "<td>{}</td>", e(c));
-                    }
-                }
-            }
-            let _ = writeln!(h, "<td>{}</td></tr>", if best { "lowest" } else { "" });
-            continue;
-        }
         let _ = write!(
             h,
             "<tr{} data-value=\"{}\">",
             if best { " class=\"best\"" } else { "" },
             p.value
         );
-        for c in r {
-            let _ = write!(h, "<td>{}</td>", e(c));
+        // Several models: each row's own knob before its value.
+        let mut knob = None;
+        if study {
+            let _ = write!(
+                h,
+                "<td>{}</td><td>{}</td>",
+                e(p.family.as_deref().unwrap_or(&doc.first_model())),
+                p.train_size
+                    .map_or(doc.scenario.train_size.to_string(), |n| n.to_string())
+            );
+            knob = doc
+                .models
+                .iter()
+                .find(|m| p.family.as_deref() == Some(m.id()))
+                .filter(|_| doc.models.len() > 1)
+                .map(|m| m.knob.as_str());
+        }
+        for (i, c) in r.iter().enumerate() {
+            let c = match knob {
+                Some(k) if i == 0 => format!("{k} = {c}"),
+                _ => c.clone(),
+            };
+            let _ = write!(h, "<td>{}</td>", e(&c));
         }
         let _ = writeln!(h, "<td>{}</td></tr>", if best { "lowest" } else { "" });
     }

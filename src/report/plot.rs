@@ -1404,38 +1404,68 @@ pub struct SelectionView {
 }
 
 impl SelectionView {
-    /// Reads the `selection` section of a result document's JSON, when it is there: an object
-    /// with `chosen_counts` (a list of counts in grid order, a list of `{value, count}` objects,
-    /// or an object from value to count) and `oracle_best` (a number or `{value, ...}`).
-    pub fn from_json(doc: &serde_json::Value) -> Option<SelectionView> {
-        let sel = doc.get("selection")?;
+    /// Reads the `selection` section of a result document's JSON: an object with
+    /// `chosen_counts` (a list of counts in grid order, a list of `{value, count}` objects, or
+    /// an object from value to count) and `oracle_best` (a number or `{value, ...}`). The error
+    /// says why it cannot be drawn, naming the key: no section (no cross-validation audit), or
+    /// a part missing or not fitting the grid (a cut `chosen_counts` was reported as a missing
+    /// section).
+    pub fn from_json(doc: &serde_json::Value) -> Result<SelectionView, String> {
+        const EDITED: &str = "the document was edited";
+        let sel = doc.get("selection").ok_or(
+            "no `selection` section (run the cross-validation audit first); drop --selection",
+        )?;
         let grid: Vec<f64> = doc
-            .get("scenario")?
-            .get("grid")?
-            .as_array()?
+            .get("scenario")
+            .and_then(|s| s.get("grid"))
+            .and_then(|g| g.as_array())
+            .ok_or(format!(
+                "`scenario.grid` is missing or not a list: {EDITED}"
+            ))?
             .iter()
             .filter_map(|v| v.as_f64())
             .collect();
-        let cc = sel.get("chosen_counts")?;
+        let cc = sel
+            .get("chosen_counts")
+            .ok_or(format!("`selection.chosen_counts` is missing: {EDITED}"))?;
+        let whole = || {
+            format!("`selection.chosen_counts` holds a count that is not a whole number: {EDITED}")
+        };
+        let entries = |n: usize, of: usize, what: &str| {
+            format!("`selection.chosen_counts` has {n} entries for {of} {what}: {EDITED}")
+        };
+        let oracle_best = || -> Result<f64, String> {
+            let ob = sel
+                .get("oracle_best")
+                .ok_or(format!("`selection.oracle_best` is missing: {EDITED}"))?;
+            ob.as_f64()
+                .or_else(|| ob.get("value").and_then(|v| v.as_f64()))
+                .ok_or(format!("`selection.oracle_best` is not a number: {EDITED}"))
+        };
         // Several models: one bar per candidate, named in `candidates`.
         if let Some(names) = sel.get("candidates").and_then(|c| c.as_array()) {
             let labels: Vec<String> = names
                 .iter()
                 .map(|n| n.as_str().map(str::to_string))
-                .collect::<Option<_>>()?;
+                .collect::<Option<_>>()
+                .ok_or(format!(
+                    "`selection.candidates` holds a name that is not text: {EDITED}"
+                ))?;
             let counts: Vec<u64> = cc
-                .as_array()?
+                .as_array()
+                .ok_or(format!("`selection.chosen_counts` is not a list: {EDITED}"))?
                 .iter()
                 .map(|v| v.as_u64())
-                .collect::<Option<_>>()?;
+                .collect::<Option<_>>()
+                .ok_or_else(whole)?;
             if labels.is_empty() || labels.len() != counts.len() {
-                return None;
+                return Err(entries(counts.len(), labels.len(), "candidates"));
             }
             let oracle_name = sel.get("oracle_candidate").and_then(|o| o.as_str());
             let oracle = oracle_name
                 .and_then(|o| labels.iter().position(|l| l == o))
                 .map_or(-1.0, |i| i as f64);
-            return Some(SelectionView {
+            return Ok(SelectionView {
                 grid: (0..labels.len()).map(|i| i as f64).collect(),
                 counts,
                 oracle,
@@ -1448,35 +1478,42 @@ impl SelectionView {
                 counts[i] += n;
             }
         };
+        let unread = || {
+            format!(
+                "`selection.chosen_counts` is not what `run` writes (counts, or value and count \
+                 pairs): {EDITED}"
+            )
+        };
         match cc {
             serde_json::Value::Array(a) if a.iter().all(|v| v.is_number()) => {
                 if a.len() != grid.len() {
-                    return None;
+                    return Err(entries(a.len(), grid.len(), "grid values"));
                 }
-                counts = a.iter().map(|v| v.as_u64().unwrap_or(0)).collect();
+                counts = a
+                    .iter()
+                    .map(|v| v.as_u64())
+                    .collect::<Option<_>>()
+                    .ok_or_else(whole)?;
             }
             serde_json::Value::Array(a) => {
                 for e in a {
-                    let value = e.get("value")?.as_f64()?;
-                    let n = e.get("count")?.as_u64()?;
+                    let value = e.get("value").and_then(|v| v.as_f64()).ok_or_else(unread)?;
+                    let n = e.get("count").and_then(|v| v.as_u64()).ok_or_else(whole)?;
                     put(&mut counts, value, n);
                 }
             }
             serde_json::Value::Object(o) => {
                 for (k, n) in o {
-                    put(&mut counts, k.parse().ok()?, n.as_u64()?);
+                    let value = k.parse().map_err(|_| unread())?;
+                    put(&mut counts, value, n.as_u64().ok_or_else(whole)?);
                 }
             }
-            _ => return None,
+            _ => return Err(unread()),
         }
-        let ob = sel.get("oracle_best")?;
-        let oracle = ob
-            .as_f64()
-            .or_else(|| ob.get("value").and_then(|v| v.as_f64()))?;
-        Some(SelectionView {
+        Ok(SelectionView {
             grid,
             counts,
-            oracle,
+            oracle: oracle_best()?,
             labels: Vec::new(),
         })
     }

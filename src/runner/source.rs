@@ -167,30 +167,19 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
                     (lo.min(v), hi.max(v))
                 });
             let spread = hi - lo;
-            // A spread hidden by an offset, more than rounding (1e-13 of the values, about 450
-            // units in the last place) but a standard deviation below the share a standardizing
-            // fit reads as constant.
-            let size = lo.abs().max(hi.abs());
-            let share = crate::scenario::plan::offset_share();
             let standardizes = plan.models.iter().find(|m| m.family.standardizes_inputs());
-            // A constant column with one value off is not an offset (its sd shrinks like
-            // 1/√rows while its spread stays): only a spread below 1e-10 of the size counts.
-            let hidden = spread > 1e-13 * size && spread < 1e-10 * size;
-            if let (Some(m), true) = (standardizes, hidden) {
-                let n = col.len() as f64;
-                let mean = col.sum() / n;
-                let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
-                if sd < share * size {
-                    return Err(Error::Data(format!(
-                        "column `{name}` of {} has a standard deviation of {sd:.2e} beside \
-                         values of {size:.3e}, below {share:e} of their size: `{}` standardizes \
-                         its inputs and reads a training set whose spread falls below a tenth \
-                         of that as rounding, i.e. as constant; subtract an offset from the \
-                         column",
-                        t.table.path.display(),
-                        m.family.name()
-                    )));
-                }
+            if let (Some(m), Some((sd, size))) =
+                (standardizes, crate::scenario::plan::offset_hidden(col))
+            {
+                return Err(Error::Data(format!(
+                    "column `{name}` of {} has a standard deviation of {sd:.2e} beside values of \
+                     {size:.3e}, below {:e} of their size: `{}` standardizes its inputs and \
+                     reads a training set whose spread falls below a tenth of that as rounding, \
+                     i.e. as constant; subtract an offset from the column",
+                    t.table.path.display(),
+                    crate::scenario::plan::offset_share(),
+                    m.family.name()
+                )));
             }
             if spread > 0.0 && spread < crate::scenario::plan::INPUT_MIN_SPREAD {
                 return Err(Error::Data(format!(

@@ -1448,6 +1448,27 @@ pub fn offset_share() -> f64 {
     OFFSET_MARGIN * crate::family::standardize::CONSTANT_RTOL
 }
 
+/// A table column whose spread an offset hides: more than rounding (a spread above 1e-13 of
+/// its largest magnitude, about 450 units in the last place), a spread below 1e-10 of it (a
+/// constant column with one value off is not an offset: its sd shrinks like 1/√rows while its
+/// spread stays), and a standard deviation (divisor n) below [`offset_share`] of it. Returns
+/// `(sd, size)` for the refusal's words.
+pub fn offset_hidden(col: ndarray::ArrayView1<'_, f64>) -> Option<(f64, f64)> {
+    let (lo, hi) = col
+        .iter()
+        .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &v| {
+            (lo.min(v), hi.max(v))
+        });
+    let (spread, size) = (hi - lo, lo.abs().max(hi.abs()));
+    if !(spread > 1e-13 * size && spread < 1e-10 * size) {
+        return None;
+    }
+    let n = col.len() as f64;
+    let mean = col.sum() / n;
+    let sd = (col.iter().map(|v| (v - mean) * (v - mean)).sum::<f64>() / n).sqrt();
+    (sd < offset_share() * size).then_some((sd, size))
+}
+
 /// Refuses a synthetic input whose standard deviation is below [`offset_share`] of its
 /// magnitude when `family` standardizes its inputs: the fit would read it as rounding, i.e. as
 /// constant, and ignore it (found by a hostile-input sweep: an input uniform on
