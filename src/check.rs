@@ -1011,7 +1011,9 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
         for k in keys {
             // The number of blocks is a precision setting, like the number of replicates; the
             // evaluation seed decides the mode (the points' fingerprints are compared there).
-            if k == "blocks" || k == "eval_seed" {
+            // The scenario's name and description change no number: a baseline kept in CI
+            // must survive a reworded `about` ("cannot compare: scenario.about differs").
+            if k == "blocks" || k == "eval_seed" || k == "name" || k == "about" {
                 continue;
             }
             let (va, vb) = (ma.get(k.as_str()), mb.get(k.as_str()));
@@ -1832,6 +1834,11 @@ mod tests {
             row(1.0, 1.0, 0.5, 0.25, None),
             row(2.0, 1.0, 0.5, 0.25, None),
         ]);
+        let mut other = base.clone();
+        other.scenario.name = "renamed".into();
+        other.scenario.about = "reworded".into();
+        let r = compare(&other, &base, &CheckOptions::default()).expect("comparable");
+        assert!(r.identical, "a new name or description changes no number");
         let mut other = base.clone();
         other.scenario.train_size = 20;
         let e = compare(&other, &base, &CheckOptions::default()).unwrap_err();

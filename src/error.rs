@@ -51,6 +51,12 @@ pub fn one_line(s: &str) -> String {
     out
 }
 
+/// A path as information lines show it: [`one_line`] of its display, so a file name holding a
+/// newline or an escape sequence cannot break or forge the line it is printed on.
+pub fn shown(path: impl AsRef<std::path::Path>) -> String {
+    one_line(&path.as_ref().display().to_string())
+}
+
 /// Any error the library reports.
 #[derive(Debug, thiserror::Error)]
 pub enum Error {

@@ -96,10 +96,60 @@ impl Ident {
     }
 }
 
+/// What an output holds, so that an existing file is replaced only by its own kind: a picture
+/// pointed at the scenario or the table a result was made from (which `plot` cannot know) was
+/// written over it, exit 0.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kind {
+    /// Anything (a CSV table, a checkpoint, a part): no check of what it replaces.
+    Any,
+    /// An SVG picture: replaces only a file starting `<svg`, or `<?xml` with an `<svg` soon after.
+    Svg,
+    /// A result or part document: replaces only a file of either format (other JSON files, a
+    /// configuration say, are often some program's input).
+    Json,
+    /// An HTML report: replaces only a file starting `<!doctype html` or `<html`.
+    Html,
+}
+
+impl Kind {
+    /// A non-empty file starting `head` may be replaced by this kind.
+    fn accepts(self, head: &[u8]) -> bool {
+        let text = String::from_utf8_lossy(head);
+        let t = text
+            .trim_start_matches('\u{feff}')
+            .trim_start()
+            .to_ascii_lowercase();
+        match self {
+            Kind::Any => true,
+            _ if t.is_empty() => true,
+            Kind::Svg => (t.starts_with("<svg") || t.starts_with("<?xml")) && t.contains("<svg"),
+            Kind::Json => {
+                t.starts_with('{')
+                    && (t.contains("\"lossprism-result/") || t.contains("\"lossprism-part/"))
+            }
+            Kind::Html => t.starts_with("<!doctype html") || t.starts_with("<html"),
+        }
+    }
+
+    fn noun(self) -> &'static str {
+        match self {
+            Kind::Any => "a file",
+            Kind::Svg => "an SVG picture",
+            Kind::Json => "a lossprism result or part document",
+            Kind::Html => "an HTML report",
+        }
+    }
+}
+
+/// How much of an existing file [`same_kind`] reads to tell its kind.
+const HEAD_BYTES: usize = 512;
+
 /// One checked output.
 #[derive(Debug, Clone)]
 struct Target {
     flag: String,
+    kind: Kind,
     given: PathBuf,
     ident: Ident,
     place: Place,
@@ -153,9 +203,16 @@ impl Outputs {
     /// name an input or an earlier output, its folder must exist and accept new files, and it
     /// must not be a folder or a socket. `-` means standard output.
     pub fn output(&mut self, flag: &str, path: &Path) -> Result<OutputId, Error> {
+        self.output_of(flag, path, Kind::Any)
+    }
+
+    /// [`Outputs::output`] for an output of a known [`Kind`]: an existing non-empty regular file
+    /// is replaced only if it holds that kind too (refused otherwise, naming the flag).
+    pub fn output_of(&mut self, flag: &str, path: &Path, kind: Kind) -> Result<OutputId, Error> {
         let inputs = self.input_idents();
-        let target = examine(flag, path, true)?;
+        let target = examine(flag, path, true, kind)?;
         clash(&target, &inputs, &self.outputs)?;
+        same_kind(&target)?;
         self.outputs.push(target);
         Ok(OutputId {
             set: self.set,
@@ -228,8 +285,9 @@ impl Outputs {
         let inputs = self.input_idents();
         let mut fresh: Vec<Target> = Vec::with_capacity(self.outputs.len());
         for old in &self.outputs {
-            let target = examine(&old.flag, &old.given, probe)?;
+            let target = examine(&old.flag, &old.given, probe, old.kind)?;
             clash(&target, &inputs, &fresh)?;
+            same_kind(&target)?;
             fresh.push(target);
         }
         Ok(fresh)
@@ -421,7 +479,7 @@ fn lexical_absolute(path: &Path) -> Option<PathBuf> {
 
 /// Resolves one output path and checks what it names. `probe` also checks that the folder of a
 /// staged output accepts new files, by creating and removing one.
-fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
+fn examine(flag: &str, given: &Path, probe: bool, kind: Kind) -> Result<Target, Error> {
     let shown = given.display();
     if given.as_os_str().is_empty() {
         return Err(Error::Usage(format!("{flag}: empty file name")));
@@ -440,6 +498,7 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
         let file = regular_file_id("/dev/stdout");
         return Ok(Target {
             flag: flag.to_string(),
+            kind,
             given: given.to_path_buf(),
             ident: Ident { path: None, file },
             place: Place::Stdout,
@@ -526,6 +585,7 @@ fn examine(flag: &str, given: &Path, probe: bool) -> Result<Target, Error> {
     }
     Ok(Target {
         flag: flag.to_string(),
+        kind,
         given: given.to_path_buf(),
         ident: Ident {
             path: Some(loc.full),
@@ -603,6 +663,32 @@ fn replaceable(flag: &str, shown: &dyn std::fmt::Display, full: &Path) -> Result
         }
     }
     Ok(())
+}
+
+/// Refuses to replace an existing non-empty regular file that does not hold the output's own
+/// [`Kind`] (checked after the clashes with inputs and other outputs, whose messages say more).
+fn same_kind(target: &Target) -> Result<(), Error> {
+    let Place::Staged(full) = &target.place else {
+        return Ok(());
+    };
+    if target.kind == Kind::Any || !fs::metadata(full).is_ok_and(|m| m.is_file()) {
+        return Ok(());
+    }
+    let mut head = Vec::with_capacity(HEAD_BYTES);
+    if let Ok(f) = File::open(full) {
+        use std::io::Read;
+        let _ = f.take(HEAD_BYTES as u64).read_to_end(&mut head);
+    }
+    if target.kind.accepts(&head) {
+        return Ok(());
+    }
+    Err(Error::Usage(format!(
+        "{}: {} exists and is not {}; lossprism replaces a file only with its own kind of output \
+         (choose another file, or remove it first)",
+        target.flag,
+        crate::error::shown(&target.given),
+        target.kind.noun()
+    )))
 }
 
 /// Checks that the folder of `target` accepts new files by creating and removing one.
@@ -1519,7 +1605,7 @@ mod tests {
             .is_symlink());
         assert_eq!(listing(d.path()), ["sink.txt", "stdout"]);
         // The real /dev/stdout is never staged and renamed over, whatever it is here.
-        if let Ok(t) = examine("--out", Path::new("/dev/stdout"), false) {
+        if let Ok(t) = examine("--out", Path::new("/dev/stdout"), false, Kind::Any) {
             assert!(!matches!(t.place, Place::Staged(_)), "{:?}", t.place);
         }
         drop(open);

@@ -928,9 +928,14 @@ pub struct Merged {
     pub plan: Plan,
     /// The outcome, identical to the unsharded run's.
     pub outcome: Outcome,
-    /// The scenario file the parts were run from, as they record it (an input `merge` may not
-    /// replace).
+    /// The scenario file the parts were run from, as the first part records it.
     pub scenario_file: PathBuf,
+    /// Every place a part's scenario file may be, none of which `merge` may replace: each
+    /// part's recorded path as given (relative to the folder `merge` runs in) and relative to
+    /// the part's own folder (the shards ran there, most likely). Parts of one run may name the
+    /// scenario differently (a copy, another spelling), and only the first part's, relative to
+    /// the merge's folder, was protected.
+    pub scenario_files: Vec<PathBuf>,
 }
 
 /// Merges shard parts into the run's outcome. Refuses (with a one-line [`Error::Usage`] naming the
@@ -1129,10 +1134,21 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         },
         1,
     )?;
+    let mut scenario_files: Vec<PathBuf> = Vec::new();
+    for (d, p) in docs.iter().zip(paths) {
+        let recorded = PathBuf::from(&d.scenario_file);
+        let beside = p.parent().map(|dir| dir.join(&recorded));
+        for f in std::iter::once(recorded).chain(beside) {
+            if !scenario_files.contains(&f) {
+                scenario_files.push(f);
+            }
+        }
+    }
     Ok(Merged {
         plan,
         outcome,
         scenario_file: PathBuf::from(&first.scenario_file),
+        scenario_files,
     })
 }
 

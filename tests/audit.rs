@@ -193,3 +193,68 @@ fn bad_audit_sections_name_the_key() {
     .to_string();
     assert!(err.contains("audit.folds"), "{err}");
 }
+
+#[test]
+fn a_study_counts_choices_of_any_model_within_one_se_of_the_oracle() {
+    // Two models on one curve of candidates: a choice of the other model whose expected loss
+    // is within one standard error of the oracle's is within one SE too (only the oracle's own
+    // model was counted: 50% where every choice was inside).
+    let text = r#"
+name = "two-models"
+seed = 3
+replicates = 6
+blocks = 3
+
+[data]
+source = "synthetic"
+train_size = [20, 40]
+eval_size = 15
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "x^2"
+
+[data.noise]
+sd = 0.3
+
+[[model]]
+family = "tree"
+grid = [1, 2, 3]
+
+[[model]]
+family = "knn"
+grid = [1, 4]
+
+[audit]
+folds = 3
+"#;
+    let (doc, sel) = selection(text, 1);
+    let best = &doc.best;
+    let bar = best.expected_loss + best.stderr.expect("a standard error");
+    let largest = *doc.sizes.last().unwrap() as u64;
+    let candidates: Vec<_> = doc
+        .points
+        .iter()
+        .filter(|p| p.train_size == Some(largest))
+        .collect();
+    assert_eq!(candidates.len(), sel.chosen_counts.len());
+    let r: u64 = sel.chosen_counts.iter().sum();
+    let within: u64 = candidates
+        .iter()
+        .zip(&sel.chosen_counts)
+        .filter(|(p, _)| p.expected_loss() <= bar)
+        .map(|(_, &c)| c)
+        .sum();
+    // The case of the finding: some choice fell on the other model, inside the bar.
+    let other_inside: u64 = candidates
+        .iter()
+        .zip(&sel.chosen_counts)
+        .filter(|(p, _)| p.family != best.family && p.expected_loss() <= bar)
+        .map(|(_, &c)| c)
+        .sum();
+    assert!(other_inside > 0, "the scenario no longer shows the case");
+    assert_eq!(sel.share_within_one_se, within as f64 / r as f64);
+}

@@ -3061,7 +3061,10 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             ("p2.json", &docs.part2),
         ],
         &["merge", "p1.json", "p2.json", "--out", "s.toml"],
-        "--out names the parts' scenario file s.toml, an input",
+        // Refused when the outputs are registered, before the parts are read: a scenario is
+        // not a result (`Kind::Json`); the clash with the parts' scenario is checked again at
+        // the commit.
+        "--out: s.toml exists and is not a lossprism result or part document",
     );
     // A ledger is kept whatever scenario names it (a scenario reached through a link or a
     // second name had its ledger replaced by a result document).
@@ -3587,6 +3590,38 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
         &[("r.json", &docs.result)],
         &["plot", "r.json", "--out", "c.svg", "--selection", "r.json"],
         "--selection",
+    );
+    // An output replaces only its own kind: plot cannot know the scenario or table a result
+    // came from, and a picture was written over them (exit 0).
+    t.add(
+        g,
+        "plot --out a scenario file",
+        &[("r.json", &docs.result), ("s.toml", BASE.as_bytes())],
+        &["plot", "r.json", "--out", "s.toml"],
+        "is not an SVG picture",
+    );
+    t.add(
+        g,
+        "plot --learning a table",
+        &[("r.json", &docs.result), ("t.csv", b"x,y\n1,2\n")],
+        &["plot", "r.json", "--out", "c.svg", "--learning", "t.csv"],
+        "--learning: t.csv exists and is not an SVG picture",
+    );
+    t.add(
+        g,
+        "run --out another scenario",
+        &[("s.toml", BASE.as_bytes()), ("other.toml", BASE.as_bytes())],
+        &["run", "s.toml", "--out", "other.toml", "-q"],
+        "--out: other.toml exists and is not a lossprism result or part document",
+    );
+    t.add(
+        g,
+        "run --report a picture",
+        &[("s.toml", BASE.as_bytes()), ("c.svg", b"<svg></svg>")],
+        &[
+            "run", "s.toml", "--out", "r.json", "--report", "c.svg", "-q",
+        ],
+        "--report: c.svg exists and is not an HTML report",
     );
     t.add(
         g,
@@ -5021,7 +5056,12 @@ fn several_outputs_are_replaced_together() {
     let d = workspace(&docs);
     let dir = d.path();
     fs::write(dir.join("c.csv"), "old").unwrap();
-    fs::write(dir.join("r.json"), "old").unwrap();
+    // An older result (a result replaces only a result or a part: `Kind::Json`).
+    fs::write(
+        dir.join("r.json"),
+        "{\"format\": \"lossprism-result/2\", \"old\": true}",
+    )
+    .unwrap();
     let (code, _, err) = status(
         dir,
         &["run", "s.toml", "--out", "r.json", "--csv", "c.csv", "-q"],
@@ -5315,4 +5355,102 @@ fn a_failed_write_to_standard_output_is_an_error_not_a_panic() {
             "{args:?}: {err}"
         );
     }
+}
+
+#[test]
+fn merge_protects_every_part_scenario_wherever_it_runs() {
+    // Parts of one run from two scenario files (the same settings), and a merge run from
+    // another folder: `merge --csv` replaced the second part's scenario, and from elsewhere the
+    // scenario beside the parts, with exit 0.
+    let d = tempfile::tempdir().unwrap();
+    let run = d.path().join("run");
+    let elsewhere = d.path().join("elsewhere");
+    fs::create_dir(&run).unwrap();
+    fs::create_dir(&elsewhere).unwrap();
+    fs::write(run.join("a.toml"), BASE).unwrap();
+    fs::write(run.join("b.toml"), format!("# a copy\n{BASE}")).unwrap();
+    for (s, shard, part) in [("a.toml", "1/2", "p1.json"), ("b.toml", "2/2", "p2.json")] {
+        let (code, _, err) = status(&run, &["run", s, "--shard", shard, "--out", part, "-q"]);
+        assert_eq!(code, 0, "{err}");
+    }
+    let before = snapshot(d.path());
+    for (dir, args) in [
+        (
+            &run,
+            vec!["merge", "p1.json", "p2.json", "--csv", "b.toml", "-q"],
+        ),
+        (
+            &run,
+            vec!["merge", "p2.json", "p1.json", "--points", "a.toml", "-q"],
+        ),
+        (
+            &elsewhere,
+            vec![
+                "merge",
+                "../run/p1.json",
+                "../run/p2.json",
+                "--csv",
+                "../run/a.toml",
+                "-q",
+            ],
+        ),
+    ] {
+        let (code, _, err) = status(dir, &args);
+        assert_eq!(code, 2, "{args:?}: {err}");
+        assert!(err.contains("the parts' scenario file"), "{args:?}: {err}");
+        assert_eq!(snapshot(d.path()), before, "{args:?} changed the files");
+    }
+    // A part records its scenario's name as text: a name that is not UTF-8 is refused at once.
+    use std::os::unix::ffi::OsStrExt;
+    let odd = std::ffi::OsStr::from_bytes(b"s\xff.toml");
+    fs::write(run.join(odd), BASE).unwrap();
+    let out = Command::new(bin())
+        .arg("run")
+        .arg(odd)
+        .args(["--shard", "1/2", "--out", "p3.json", "-q"])
+        .current_dir(&run)
+        .stdin(Stdio::null())
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        text(&out.stderr).contains("not UTF-8"),
+        "{}",
+        text(&out.stderr)
+    );
+    assert!(!run.join("p3.json").exists());
+}
+
+#[test]
+fn information_lines_escape_line_breaks_in_file_names() {
+    // A baseline or checkpoint named with a line break printed its name over two lines (error
+    // messages already escaped it).
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    let (code, out, err) = status(
+        dir,
+        &["check", "r.json", "--baseline", "b\nx.json", "--update"],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        out.contains("baseline b\\nx.json created from r.json"),
+        "{out}"
+    );
+    assert_eq!(out.lines().count(), 1, "{out}");
+    let (code, _, err) = status(
+        dir,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "c\nk.json",
+            "--stop-after-blocks",
+            "1",
+            "-q",
+        ],
+    );
+    assert_eq!(code, 3, "{err}");
+    assert!(err.contains("resume from c\\nk.json"), "{err}");
+    assert_eq!(err.trim_end().lines().count(), 1, "{err}");
 }

@@ -488,6 +488,27 @@ fn shipped_study_has_rankings_learning_curves_and_pictures() {
         assert!(g.stderr.is_some_and(|s| s > 0.0));
     }
     assert!(doc.reading.contains("tree") && doc.reading.contains("knn"));
+    // The report's words describe every model and size (the first model's knob and grid, and
+    // the largest size alone, were said as if the study had one model).
+    let words = report::html::scenario_words(&doc).join(" ");
+    assert!(words.contains("Models (2, fitted on the same training sets): tree at max_depth"));
+    assert!(words.contains("; knn at k = "), "{words}");
+    let sizes: Vec<String> = doc.sizes.iter().map(|n| n.to_string()).collect();
+    let (last, rest) = sizes.split_last().unwrap();
+    let said = format!(
+        "{} and {last} training points per replicate",
+        rest.join(", ")
+    );
+    assert!(words.contains(&said), "{words}");
+    let html = report::html::render(
+        &doc,
+        report::terminal::View::Domingos,
+        &report::html::Pictures::default(),
+        None,
+        "",
+    );
+    assert!(html.contains("bias and variance across 2 models and 4 training sizes"));
+    assert!(html.contains("each of 2 models (tree, knn)"));
     for svg in [
         report::plot::families_svg(&doc).unwrap(),
         report::plot::learning_svg(&doc).unwrap(),
@@ -662,4 +683,53 @@ fn an_audit_beside_several_families_checks_each_grid_against_its_own_family() {
         .expect_err("k = 50 on 40 rows")
         .to_string();
     assert!(e.contains("audit.folds") && e.contains("`knn`"), "{e}");
+}
+
+#[test]
+fn a_learning_curve_that_rises_clearly_is_read_as_a_rise() {
+    // Minimum-norm least squares on p = 10 isotropic Gaussian inputs: at n = 9 = p − 1 the
+    // variance σ² n / (p − n − 1) has no finite mean (the inverse-Wishart moment of
+    // tests/closed_forms.rs), at n = 4 it is 4/5 σ²: the curve rises from 4 to 9 rows. The
+    // reading said "within 2 standard errors, so no gain" of any rise, however clear.
+    let inputs: Vec<String> = (1..=10)
+        .map(|i| format!("    {{ name = \"a{i}\", normal = [0.0, 1.0] }},"))
+        .collect();
+    let formula: Vec<String> = (1..=10).map(|i| format!("a{i}")).collect();
+    let src = format!(
+        "name = \"rise\"\nseed = 3\nreplicates = 200\n\n[data]\nsource = \"synthetic\"\n\
+         train_size = [4, 9]\neval_size = 100\ninputs = [\n{}\n]\n\n[data.truth]\n\
+         formula = \"{}\"\n\n[data.noise]\nsd = 1.0\n\n[[model]]\nfamily = \"minnorm\"\n\
+         grid = [10]\n\n[[model]]\nfamily = \"knn\"\ngrid = [1, 2]\n",
+        inputs.join("\n"),
+        formula.join(" + ")
+    );
+    let (_, _, doc) = run_text(&src, &PlanOptions::default());
+    let gain = |f: &str| {
+        doc.learning
+            .iter()
+            .find(|l| l.family == f)
+            .and_then(|l| l.gain.clone())
+            .expect("a gain")
+    };
+    let mn = gain("minnorm");
+    let se = mn.stderr.expect("a standard error");
+    assert!(mn.drop < -2.0 * se, "drop {} ± {se}", mn.drop);
+    assert!(mn.reading.contains("rises by"), "{}", mn.reading);
+    assert!(
+        mn.reading.contains("beyond 2 standard errors"),
+        "{}",
+        mn.reading
+    );
+    assert!(
+        !mn.reading.contains("within 2 standard errors"),
+        "{}",
+        mn.reading
+    );
+    // k-NN falls with more rows: its reading is unchanged.
+    let knn = gain("knn");
+    assert!(
+        knn.drop > 0.0 && knn.reading.contains("falls by"),
+        "{}",
+        knn.reading
+    );
 }

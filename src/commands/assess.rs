@@ -172,7 +172,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
                 .map(|v| crate::fmt::fmt_value(*v))
                 .collect::<Vec<_>>()
                 .join(", "),
-            ledger.display()
+            crate::error::shown(ledger)
         )
     });
     Ok(Assessment {

@@ -11,7 +11,7 @@ use std::path::{Path, PathBuf};
 
 use crate::cli::{CheckArgs, DecompositionView, MergeArgs, PlotArgs, RunArgs, TwinArgs};
 use crate::error::Error;
-use crate::output::{OutputId, Outputs};
+use crate::output::{Kind, OutputId, Outputs};
 use crate::report::terminal::View;
 use crate::scenario::{self, Plan, PlanOptions, Source};
 use crate::{family, progress, report, runner, shard};
@@ -64,20 +64,20 @@ impl Outputs2<'_> {
     /// out, csv, points, plot, plot_points, report, plot_selection.
     fn register(&self, set: &mut Outputs) -> Result<[Option<OutputId>; 7], Error> {
         let mut ids = [None; 7];
-        for (i, (flag, p)) in [
-            ("--out", self.out),
-            ("--csv", self.csv),
-            ("--points", self.points),
-            ("--plot", self.plot),
-            ("--plot-points", self.plot_points),
-            ("--report", self.report),
-            ("--plot-selection", self.plot_selection),
+        for (i, (flag, p, kind)) in [
+            ("--out", self.out, Kind::Json),
+            ("--csv", self.csv, Kind::Any),
+            ("--points", self.points, Kind::Any),
+            ("--plot", self.plot, Kind::Svg),
+            ("--plot-points", self.plot_points, Kind::Svg),
+            ("--report", self.report, Kind::Html),
+            ("--plot-selection", self.plot_selection, Kind::Svg),
         ]
         .into_iter()
         .enumerate()
         {
             if let Some(p) = p {
-                ids[i] = Some(set.output(flag, p)?);
+                ids[i] = Some(set.output_of(flag, p, kind)?);
             }
         }
         Ok(ids)
@@ -310,6 +310,17 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
                 .into(),
         ));
     }
+    // A part records its scenario's path as text, and `merge` protects the file by that path:
+    // a name that is not UTF-8 was recorded altered, and `merge --out` replaced the scenario.
+    if let (Some(p), true) = (&args.scenario, args.shard.is_some()) {
+        if p.to_str().is_none() {
+            return Err(Error::Usage(format!(
+                "{}: a part records its scenario file's name as text, and this name is not \
+                 UTF-8; rename the scenario file to run it in shards",
+                crate::error::shown(p)
+            )));
+        }
+    }
     // Every path is checked before any work.
     let mut set = Outputs::new();
     if let Some(p) = &args.scenario {
@@ -443,7 +454,7 @@ fn run_in_blocks(
             let kept = match &args.checkpoint {
                 Some(p) => format!(
                     "the checkpoint {} holds them: rerun the same command to resume",
-                    p.display()
+                    crate::error::shown(p)
                 ),
                 None => "nothing was written: rerun to start again".into(),
             };
@@ -462,7 +473,7 @@ fn run_in_blocks(
             let ck = args
                 .checkpoint
                 .as_ref()
-                .map(|p| p.display().to_string())
+                .map(crate::error::shown)
                 .unwrap_or_default();
             noteln!(
                 "stopped as asked after {new_blocks} newly completed blocks; {remaining} blocks \
@@ -477,7 +488,7 @@ fn run_in_blocks(
             noteln!(
                 "resumed: {} of {total} blocks from {}",
                 done.resumed,
-                ck.display()
+                crate::error::shown(ck)
             );
         }
     }
@@ -502,7 +513,7 @@ fn run_in_blocks(
                 range.start,
                 range.end,
                 plan.blocks,
-                args.out.as_deref().unwrap_or(Path::new("-")).display(),
+                crate::error::shown(args.out.as_deref().unwrap_or(Path::new("-"))),
                 s.count
             );
         }
@@ -556,10 +567,12 @@ pub fn merge(args: MergeArgs) -> Result<u8, Error> {
     let ids = o.register(&mut set)?;
     let merged = shard::merge(&args.parts, args.memory_limit)?;
     // The scenario the parts name, and its holdout ledger (`merge --out` replaced both).
-    set.input("the parts' scenario file", &merged.scenario_file);
-    let ledger = assess::ledger_path(&merged.scenario_file);
-    if ledger.exists() {
-        set.input("the scenario's holdout ledger", &ledger);
+    for f in &merged.scenario_files {
+        set.input("the parts' scenario file", f);
+        let ledger = assess::ledger_path(f);
+        if ledger.exists() {
+            set.input("the scenario's holdout ledger", &ledger);
+        }
     }
     for (role, p) in data_inputs(&merged.plan) {
         set.input(role, &p);
@@ -643,8 +656,8 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         write_baseline(&text)?;
         outln!(
             "baseline {} created from {}",
-            args.baseline.display(),
-            args.result.display()
+            crate::error::shown(&args.baseline),
+            crate::error::shown(&args.result)
         );
         return Ok(0);
     }
@@ -671,9 +684,9 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         write_baseline(&text)?;
         outln!(
             "baseline {} (format `{}`, written by an earlier lossprism; not compared) replaced by {}",
-            args.baseline.display(),
+            crate::error::shown(&args.baseline),
             report::FORMAT_V1,
-            args.result.display()
+            crate::error::shown(&args.result)
         );
         return Ok(0);
     }
@@ -683,7 +696,7 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         // Written before anything is printed: a failed print cannot leave it stale.
         write_baseline(&text)?;
         out!("{rep}");
-        outln!("baseline {} updated", args.baseline.display());
+        outln!("baseline {} updated", crate::error::shown(&args.baseline));
         return Ok(0);
     }
     out!("{rep}");
@@ -770,12 +783,12 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
 /// `lossprism plot`: the curve picture (and the selection histogram) of a saved result document.
 pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     crate::output::guard_inputs(&[("the result document", &args.result)])?;
-    let name = args.result.display().to_string();
+    let name = crate::error::shown(&args.result);
     let mut set = Outputs::new();
     set.input("the result document", &args.result);
-    let out_id = set.output("--out", &args.out)?;
+    let out_id = set.output_of("--out", &args.out, Kind::Svg)?;
     let sel_id = match &args.selection {
-        Some(p) => Some(set.output("--selection", p)?),
+        Some(p) => Some(set.output_of("--selection", p, Kind::Svg)?),
         None => None,
     };
     let text = read_result_text(&args.result)?;
@@ -807,11 +820,11 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     };
     let mut extra = Vec::new();
     if let Some(p) = &args.learning {
-        let id = set.output("--learning", p)?;
+        let id = set.output_of("--learning", p, Kind::Svg)?;
         extra.push((id, report::plot::learning_svg(&doc)?));
     }
     if let Some(p) = &args.heatmap {
-        let id = set.output("--heatmap", p)?;
+        let id = set.output_of("--heatmap", p, Kind::Svg)?;
         if doc.sizes.is_empty() {
             return Err(Error::Usage(format!(
                 "{name}: --heatmap needs a result with several training sizes (`train_size = [..]`)"
@@ -936,7 +949,7 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
         a.rows,
         a.count,
         a.hash,
-        ledger.display()
+        crate::error::shown(ledger)
     );
     if let Some(w) = &a.warning {
         noteln!("{w}");
@@ -992,7 +1005,7 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
         .collect();
     outln!(
         "{}: valid ({}, R = {}, n = {})",
-        scenario.display(),
+        crate::error::shown(scenario),
         models.join("; "),
         plan.replicates,
         plan.train_size()

@@ -1378,7 +1378,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     }
     let mut out = format!(
         "{}: {} rows, {} inputs ({})\n",
-        o.table.display(),
+        crate::error::shown(&o.table),
         t.rows(),
         t.x.ncols(),
         t.names.join(", ")

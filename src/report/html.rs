@@ -84,18 +84,50 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
         .iter()
         .map(|i| format!("{} ({})", i.name, i.distribution))
         .collect();
-    let model = format!(
-        "Model: the {} family, fitted at {} = {} ({} values{}).",
-        doc.family,
-        doc.knob,
-        grid_words(&s.grid),
-        s.grid.len(),
-        if s.grid_kind == "log" {
+    let log_words = |kind: &str| {
+        if kind == "log" {
             ", spaced on a logarithmic scale"
         } else {
             ""
         }
-    );
+    };
+    // A study names every model with its own knob and grid (the first model's alone was
+    // described, as if the others were not there).
+    let model = if doc.models.len() > 1 {
+        let each: Vec<String> = doc
+            .models
+            .iter()
+            .map(|m| {
+                let name = m.label.as_deref().unwrap_or(&m.family);
+                let family = if name == m.family {
+                    String::new()
+                } else {
+                    format!(" (the {} family)", m.family)
+                };
+                format!(
+                    "{name}{family} at {} = {} ({} values{})",
+                    m.knob,
+                    grid_words(&m.grid),
+                    m.grid.len(),
+                    log_words(&m.grid_kind)
+                )
+            })
+            .collect();
+        format!(
+            "Models ({}, fitted on the same training sets): {}.",
+            doc.models.len(),
+            each.join("; ")
+        )
+    } else {
+        format!(
+            "Model: the {} family, fitted at {} = {} ({} values{}).",
+            doc.family,
+            doc.knob,
+            grid_words(&s.grid),
+            s.grid.len(),
+            log_words(&s.grid_kind)
+        )
+    };
     let mut out = match (&doc.table, s.source.as_str()) {
         (Some(t), _) => table_words(doc, t, &inputs, model),
         (None, "twin") => twin_words(doc, &inputs, model),
@@ -105,6 +137,64 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
         out.insert(0, s.about.clone());
     }
     out
+}
+
+/// The training size, or every size of a study ("400 and 800"; the largest alone was said).
+fn size_words(doc: &ResultDoc) -> String {
+    match doc.sizes.as_slice() {
+        [] | [_] => doc.scenario.train_size.to_string(),
+        [rest @ .., last] => format!(
+            "{} and {last}",
+            rest.iter()
+                .map(|n| n.to_string())
+                .collect::<Vec<_>>()
+                .join(", ")
+        ),
+    }
+}
+
+/// What the report's title and lead say is varied: the knob of a single model, or the models
+/// (and sizes) of a study.
+fn varied_words(doc: &ResultDoc) -> (String, String) {
+    let names: Vec<&str> = doc
+        .models
+        .iter()
+        .map(|m| m.label.as_deref().unwrap_or(&m.family))
+        .collect();
+    let sizes = if doc.sizes.len() > 1 {
+        format!(" and {} training sizes", doc.sizes.len())
+    } else {
+        String::new()
+    };
+    if names.len() > 1 {
+        (
+            format!("{} models{sizes}", names.len()),
+            format!(
+                "each of {} models ({}) splits into noise, bias and variance along its own knob{}",
+                names.len(),
+                names.join(", "),
+                if sizes.is_empty() {
+                    String::new()
+                } else {
+                    format!(" at {} training sizes", doc.sizes.len())
+                }
+            ),
+        )
+    } else {
+        (
+            format!("{}{sizes}", doc.knob),
+            format!(
+                "the {} family splits into noise, bias and variance as {} changes{}",
+                doc.family,
+                doc.knob,
+                if sizes.is_empty() {
+                    String::new()
+                } else {
+                    format!(" and the training size grows ({})", size_words(doc))
+                }
+            ),
+        )
+    }
 }
 
 fn design_words(doc: &ResultDoc) -> (&'static str, String) {
@@ -130,7 +220,7 @@ fn synthetic_words(doc: &ResultDoc, inputs: &[String], model: String) -> Vec<Str
             "Data ({}, invented by the scenario): {} training points per replicate, {design}. \
              Inputs: {}.",
             s.source,
-            s.train_size,
+            size_words(doc),
             inputs.join("; ")
         ),
         match &s.labels {
@@ -159,7 +249,7 @@ fn twin_words(doc: &ResultDoc, inputs: &[String], model: String) -> Vec<String> 
             "Data (a simulated twin of a table): a process fitted to the table stands in for the \
              unknown one, and {} training points per replicate are drawn from it, {design}. \
              Inputs: {}.",
-            s.train_size,
+            size_words(doc),
             inputs.join("; ")
         ),
         match &s.labels {
@@ -523,18 +613,17 @@ pub fn render(
          <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n\
          <title>{} · bias and variance across {}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<main>\n",
         e(&doc.scenario.name),
-        e(&doc.knob)
+        e(&varied_words(doc).0)
     );
     let resampled = doc.table.is_some();
+    let (across, lead) = varied_words(doc);
     let _ = writeln!(
         h,
         "<h1>{}: bias and variance across {}</h1>\n<p class=\"lead\">How the expected test loss of \
-         the {} family splits into noise, bias and variance as {} changes, estimated from {} \
-         {} training sets.</p>",
+         {}, estimated from {} {} training sets.</p>",
         e(&doc.scenario.name),
-        e(&doc.knob),
-        e(&doc.family),
-        e(&doc.knob),
+        e(&across),
+        e(&lead),
         doc.replicates,
         if resampled { "resampled" } else { "simulated" }
     );
@@ -554,13 +643,26 @@ pub fn render(
     }
 
     if let Some(svg) = &pictures.curve {
+        // Several models share one picture of their expected losses (`families_svg`), each
+        // along its own grid: the caption of a single curve named the first model's knob.
+        let caption = if doc.models.is_empty() {
+            format!(
+                "Expected loss and its parts against {}, with bands of ±2 standard errors; the \
+                 ring marks the lowest expected loss, the pale column the values within one \
+                 standard error of it.",
+                doc.knob
+            )
+        } else {
+            "Expected loss of every model at the largest training size, each along its own grid \
+             from its simplest value (left) to its most complex (right); rings mark each model's \
+             lowest expected loss."
+                .to_string()
+        };
         let _ = writeln!(
             h,
-            "<figure>{}<figcaption>Expected loss and its parts against {}, with bands of ±2 \
-             standard errors; the ring marks the lowest expected loss, the pale column the values \
-             within one standard error of it.</figcaption></figure>",
+            "<figure>{}<figcaption>{}</figcaption></figure>",
             inline_svg(svg, "curve of expected loss, bias, variance and noise"),
-            e(&doc.knob)
+            e(&caption)
         );
     }
     if let Some(svg) = &pictures.points {

@@ -1373,7 +1373,14 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 let mut reading = format!(
                     "From {from} to {to} rows the lowest expected loss of {fam} {change}{se_text} (paired over replicate blocks) and {moved}; "
                 );
-                if !clear {
+                // A rise beyond two standard errors is a finding too (it was read as "within 2
+                // standard errors" at z = −2.25).
+                let rose = se.is_some_and(|s| -drop > 2.0 * s);
+                if rose {
+                    reading.push_str(&format!(
+                        "that rise is beyond 2 standard errors: on this grid more data made the best of {fam} worse (learning curves can rise, near an interpolation threshold for one; a wider grid may hold a better {knob}).",
+                    ));
+                } else if !clear {
                     reading.push_str(&format!(
                         "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of the reducible loss at {to} rows).",
                         100.0 * share
