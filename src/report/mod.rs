@@ -1569,7 +1569,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     } else {
         Vec::new()
     };
-    ResultDoc {
+    let mut doc = ResultDoc {
         format: FORMAT.into(),
         version: env!("CARGO_PKG_VERSION").into(),
         scenario: scenario_echo(plan),
@@ -1601,7 +1601,102 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         ranking: ranking.unwrap_or_default(),
         learning: learning_curves.unwrap_or_default(),
         uncertainty: Some(uncertainty(plan, outcome)),
+    };
+    if let Some(w) = heavy_tail_words(&doc, &|label| {
+        plan.models
+            .iter()
+            .find(|m| m.label == label)
+            .map_or(model.family.knob(), |m| m.family.knob())
+    }) {
+        doc.reading.push(' ');
+        doc.reading.push_str(&w);
     }
+    doc
+}
+
+/// Fewest replicate blocks for [`heavy_tail_words`] to judge: with fewer, one block carries
+/// most of the spread by chance too often (with 10 blocks of skewed but light-tailed values,
+/// 9% of the time; measured by simulation, `docs/heavy-tails.md`).
+pub const TAIL_MIN_BLOCKS: u64 = 20;
+
+/// Share of its largest possible value, `(B − 1)/B`, above which one block's leave-one-out
+/// deviation is said to carry the spread ([`heavy_tail_words`]).
+pub const TAIL_SHARE: f64 = 0.9;
+
+/// The terms [`heavy_tail_words`] examines.
+const TAIL_TERMS: [&str; 3] = ["expected_loss", "variance", "bias_sq"];
+
+/// A sentence for the reading when one replicate block carries nearly all of a term's standard
+/// error: the largest squared deviation of the leave-one-block-out values from their mean is
+/// more than [`TAIL_SHARE`] of its largest possible share of their sum (an outlier statistic of
+/// Grubbs's kind over the blocks). A few replicates' predictions then dominate the term (a
+/// model that extrapolates wildly now and then, such as least squares on random ReLU features
+/// that few training rows activate, or minimum norm next to `p = n`), and its standard error is
+/// not a reliable measure of its error, whatever R. `None` with fewer than [`TAIL_MIN_BLOCKS`]
+/// blocks or when no row shows it. `knob_of` names a row's knob from its model label.
+pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> &'static str) -> Option<String> {
+    let u = doc.uncertainty.as_ref()?;
+    if u.blocks < TAIL_MIN_BLOCKS || u.rows.len() != doc.points.len() {
+        return None;
+    }
+    let b = usize::try_from(u.blocks).ok()?;
+    let bound = TAIL_SHARE * (b - 1) as f64 / b as f64;
+    let mut hits: Vec<String> = Vec::new();
+    let mut worst = 0.0f64;
+    for (p, r) in doc.points.iter().zip(&u.rows) {
+        let mut terms = Vec::new();
+        for t in TAIL_TERMS {
+            let Some(v) = r.leave_out_of(t, b) else {
+                continue;
+            };
+            if v.iter().any(|x| !x.is_finite()) {
+                continue;
+            }
+            let mean = v.iter().sum::<f64>() / b as f64;
+            let d: Vec<f64> = v.iter().map(|x| (x - mean) * (x - mean)).collect();
+            let sum: f64 = d.iter().sum();
+            let max = d.iter().cloned().fold(0.0, f64::max);
+            if sum > 0.0 && max / sum > bound {
+                worst = worst.max(max / sum);
+                terms.push(t.replace("_sq", "²").replace('_', " "));
+            }
+        }
+        if !terms.is_empty() {
+            let label = p.family.as_deref().unwrap_or(&doc.family);
+            let model = if doc.models.is_empty() {
+                String::new()
+            } else {
+                format!("{label} ")
+            };
+            let size = p
+                .train_size
+                .map(|n| format!(" at {n} rows"))
+                .unwrap_or_default();
+            hits.push(format!(
+                "{model}{} = {}{size} ({})",
+                knob_of(label),
+                fmt_value(p.value),
+                terms.join(", ")
+            ));
+        }
+    }
+    if hits.is_empty() {
+        return None;
+    }
+    let n = hits.len();
+    let shown: Vec<String> = hits.into_iter().take(4).collect();
+    let more = if n > shown.len() {
+        format!(" and {} more", n - shown.len())
+    } else {
+        String::new()
+    };
+    Some(format!(
+        "Heavy tail: at {}{more}, one of the {b} replicate blocks carries up to {:.0}% of the \
+         spread behind the standard error, so a few replicates dominate those terms and their \
+         standard errors are not reliable (more replicates may not settle them).",
+        shown.join("; "),
+        100.0 * worst
+    ))
 }
 
 /// The reading of a ranking: the best candidate, and how far each other family's best is behind
