@@ -1364,8 +1364,8 @@ fn html_report_of_a_study_marks_one_row_and_reads_the_best_curve() {
 }
 
 /// Least squares on 5 random ReLU features of 2 uniform inputs, 50 training rows: now and then
-/// a feature that few training rows activate gets a huge coefficient and one replicate's
-/// predictions explode at an edge point (found by a coverage audit: ±2 SE covered 14% of
+/// the nearly collinear features (or one that few rows activate) get huge coefficients and one
+/// replicate's predictions explode at an edge point (found by a coverage audit: ±2 SE covered 14% of
 /// runs). The reading says the standard errors there are not reliable.
 const RELU_TAIL: &str = r#"
 name = "relu-tail"

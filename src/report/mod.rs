@@ -1630,8 +1630,8 @@ const TAIL_TERMS: [&str; 3] = ["expected_loss", "variance", "bias_sq"];
 /// error: the largest squared deviation of the leave-one-block-out values from their mean is
 /// more than [`TAIL_SHARE`] of its largest possible share of their sum (an outlier statistic of
 /// Grubbs's kind over the blocks). A few replicates' predictions then dominate the term (a
-/// model that extrapolates wildly now and then, such as least squares on random ReLU features
-/// that few training rows activate, or minimum norm next to `p = n`), and its standard error is
+/// model that extrapolates wildly now and then, such as least squares on nearly collinear
+/// random ReLU features in few inputs, or minimum norm next to `p = n`), and its standard error is
 /// not a reliable measure of its error, whatever R. `None` with fewer than [`TAIL_MIN_BLOCKS`]
 /// blocks or when no row shows it. `knob_of` names a row's knob from its model label.
 pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> &'static str) -> Option<String> {
