@@ -729,6 +729,10 @@ pub struct CheckReport {
     pub options: CheckOptions,
     /// Every comparison, row by row in the result's order.
     pub comparisons: Vec<Comparison>,
+    /// The heavy-tail sentences of the result and the baseline
+    /// ([`crate::report::heavy_tail_words`]): rows whose standard errors, and so whose
+    /// verdicts, are not reliable.
+    pub tails: Vec<String>,
 }
 
 impl CheckReport {
@@ -816,6 +820,9 @@ impl fmt::Display for CheckReport {
             );
         }
         writeln!(f, "mode: {}", self.about)?;
+        for t in &self.tails {
+            writeln!(f, "note: {t}")?;
+        }
         let sigma = self.options.sigma;
         let moved: Vec<&Comparison> = self
             .comparisons
@@ -1417,7 +1424,22 @@ pub fn compare(
         about,
         options: opts.clone(),
         comparisons,
+        tails: [("the result", new), ("the baseline", baseline)]
+            .into_iter()
+            .filter_map(|(who, d)| {
+                crate::report::heavy_tail_words(d, &|label| knob_of(d, label))
+                    .map(|w| format!("{who}: {w} Verdicts on those rows may be wrong either way."))
+            })
+            .collect(),
     })
+}
+
+/// The knob of the model labelled `label` in `d` (the document's knob for a single model).
+fn knob_of(d: &ResultDoc, label: &str) -> String {
+    d.models
+        .iter()
+        .find(|m| m.label.as_deref().unwrap_or(&m.family) == label)
+        .map_or_else(|| d.knob.clone(), |m| m.knob.clone())
 }
 
 /// A signed number with one decimal (`+24.0`), in exponent form from a million on (`+9.4e305`):

@@ -1416,4 +1416,18 @@ fn one_block_carrying_a_term_is_read_as_a_heavy_tail() {
     // A light-tailed run says nothing: the same inputs under k-NN.
     let (_, _, calm) = run(&RELU_TAIL.replace("random_features", "knn"));
     assert!(!calm.reading.contains("Heavy tail"), "{}", calm.reading);
+    // `check` says so beside its verdicts, for whichever document has the tail.
+    let (_, _, other) = run(&RELU_TAIL.replace("seed = 272", "seed = 5"));
+    let opts = lossprism::check::CheckOptions::default();
+    let r = lossprism::check::compare(&doc, &other, &opts).expect("comparable");
+    let text = r.to_string();
+    assert!(
+        text.contains("note: the result: Heavy tail: at width = 5"),
+        "{text}"
+    );
+    let back = lossprism::check::compare(&other, &doc, &opts).expect("comparable");
+    assert!(
+        back.to_string().contains("note: the baseline: Heavy tail"),
+        "{back}"
+    );
 }

@@ -1607,6 +1607,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             .iter()
             .find(|m| m.label == label)
             .map_or(model.family.knob(), |m| m.family.knob())
+            .to_string()
     }) {
         doc.reading.push(' ');
         doc.reading.push_str(&w);
@@ -1634,7 +1635,7 @@ const TAIL_TERMS: [&str; 3] = ["expected_loss", "variance", "bias_sq"];
 /// random ReLU features in few inputs, or minimum norm next to `p = n`), and its standard error is
 /// not a reliable measure of its error, whatever R. `None` with fewer than [`TAIL_MIN_BLOCKS`]
 /// blocks or when no row shows it. `knob_of` names a row's knob from its model label.
-pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> &'static str) -> Option<String> {
+pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> String) -> Option<String> {
     let u = doc.uncertainty.as_ref()?;
     if u.blocks < TAIL_MIN_BLOCKS || u.rows.len() != doc.points.len() {
         return None;
