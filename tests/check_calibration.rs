@@ -461,3 +461,32 @@ fn calibration_study() {
         );
     }
 }
+
+// Paired comparisons where the bias is zero: the Nadaraya–Watson smoother is exactly unbiased
+// for a constant truth (its weights sum to one), so bias² is estimated near 0, where the
+// jackknife of a squared mean misses the second-order part of its spread
+// (docs/bias-se-second-order.md). Equally good estimators (rows 1-4 of 5 against rows 2-5 of 5):
+// `cargo test --release --test check_calibration -- --ignored --nocapture zero_bias_paired_study`.
+#[test]
+#[ignore]
+fn zero_bias_paired_study() {
+    let n: u64 = std::env::var("LOSSPRISM_CHECK_SEEDS")
+        .ok()
+        .and_then(|v| v.parse().ok())
+        .unwrap_or(300);
+    let flat = SMOOTH.replace("0.5 * sin(hours) + 0.05 * hours", "1.0");
+    let header = "| term | comparisons | mean z | sd z | share abs(z) <= 1.96 | z > 2 / z < -2 | z > 4 / z < -4 |\n|---|---|---|---|---|---|---|";
+    println!("### Paired, equally good, constant truth (bias 0): {n} seeds\n\n{header}");
+    let t = tally(
+        (0..n).map(|i| {
+            (
+                smooth_text(&flat, sub(0), 90_000 + i),
+                smooth_text(&flat, sub(4), 90_000 + i),
+            )
+        }),
+        Mode::Paired,
+    );
+    for (k, v) in &t {
+        println!("{}", v.line(k));
+    }
+}
