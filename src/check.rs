@@ -693,6 +693,8 @@ impl Comparison {
     /// The rule that produced the verdict, e.g. `z > 4 and d > 2% of |base|`.
     pub fn rule(&self, sigma: f64) -> String {
         let m = pct(self.margin);
+        // `{sigma}` printed 1e308 digit by digit.
+        let sigma = fmt_value(sigma);
         match (self.verdict, self.margin_only()) {
             (Verdict::Worse, false) => format!("z > {sigma} and d > {m} of |base|"),
             (Verdict::Better, false) => format!("z < -{sigma} and |d| > {m} of |base|"),
@@ -890,8 +892,9 @@ impl fmt::Display for CheckReport {
         let better = self.better().count();
         let unchanged = n - worse - better;
         let mut rule = format!(
-            "{}; worse when z > {sigma} and d > {} of |base|",
+            "{}; worse when z > {} and d > {} of |base|",
             self.mode.word(),
+            fmt_value(sigma),
             pct(self.options.margin)
         );
         if !self.options.term_margins.is_empty() {

@@ -105,11 +105,14 @@ pub enum Kind {
     Any,
     /// An SVG picture: replaces only a file starting `<svg`, or `<?xml` with an `<svg` soon after.
     Svg,
-    /// A result or part document: replaces only a file of either format (other JSON files, a
-    /// configuration say, are often some program's input).
+    /// A result or part document: replaces only a file of either format, and not a checkpoint
+    /// (other JSON files, a configuration say, are often some program's input).
     Json,
     /// An HTML report: replaces only a file starting `<!doctype html` or `<html`.
     Html,
+    /// A twin scenario (`lossprism twin --out`): replaces only a scenario whose data section says
+    /// `source = "twin"` (a script, a result or the table scenario beside it were replaced).
+    Twin,
 }
 
 impl Kind {
@@ -124,11 +127,28 @@ impl Kind {
             Kind::Any => true,
             _ if t.is_empty() => true,
             Kind::Svg => (t.starts_with("<svg") || t.starts_with("<?xml")) && t.contains("<svg"),
+            // Not a checkpoint: the saved state of a run that may be resumed.
             Kind::Json => {
-                t.starts_with('{')
-                    && (t.contains("\"lossprism-result/") || t.contains("\"lossprism-part/"))
+                let compact: String = t.chars().filter(|c| !c.is_whitespace()).collect();
+                compact.starts_with('{')
+                    && (compact.contains("\"lossprism-result/")
+                        || compact.contains("\"lossprism-part/"))
+                    && !compact.contains("\"checkpoint\":true")
             }
             Kind::Html => t.starts_with("<!doctype html") || t.starts_with("<html"),
+            Kind::Twin => t.lines().any(|l| {
+                let l: String = l.chars().filter(|c| !c.is_whitespace()).collect();
+                l == "source=\"twin\"" || l.starts_with("source=\"twin\"#")
+            }),
+        }
+    }
+
+    /// Bytes of an existing file read to tell its kind: a twin scenario names its source after
+    /// its comments, the other kinds say what they are at once.
+    fn head_bytes(self) -> usize {
+        match self {
+            Kind::Twin => 4 << 20,
+            _ => HEAD_BYTES,
         }
     }
 
@@ -138,6 +158,7 @@ impl Kind {
             Kind::Svg => "an SVG picture",
             Kind::Json => "a lossprism result or part document",
             Kind::Html => "an HTML report",
+            Kind::Twin => "a twin scenario (`source = \"twin\"`)",
         }
     }
 }
@@ -364,6 +385,36 @@ pub fn write_one(
     }
     let id = set.output(flag, path)?;
     set.commit(vec![(id, bytes.into())])
+}
+
+/// [`write_one`] for an output of a known [`Kind`].
+pub fn write_one_of(
+    flag: &str,
+    path: &Path,
+    inputs: &[(&str, &Path)],
+    bytes: impl Into<Vec<u8>>,
+    kind: Kind,
+) -> Result<(), Error> {
+    let mut set = Outputs::new();
+    for (role, p) in inputs {
+        set.input(role, p);
+    }
+    let id = set.output_of(flag, path, kind)?;
+    set.commit(vec![(id, bytes.into())])
+}
+
+/// [`check`] of one output of a known [`Kind`].
+pub fn check_one_of(
+    inputs: &[(&str, &Path)],
+    flag: &str,
+    path: &Path,
+    kind: Kind,
+) -> Result<(), Error> {
+    let mut set = Outputs::new();
+    for (role, p) in inputs {
+        set.input(role, p);
+    }
+    set.output_of(flag, path, kind).map(|_| ())
 }
 
 // ---------------------------------------------------------------------------------------------
@@ -674,10 +725,12 @@ fn same_kind(target: &Target) -> Result<(), Error> {
     if target.kind == Kind::Any || !fs::metadata(full).is_ok_and(|m| m.is_file()) {
         return Ok(());
     }
-    let mut head = Vec::with_capacity(HEAD_BYTES);
+    let mut head = Vec::new();
     if let Ok(f) = File::open(full) {
         use std::io::Read;
-        let _ = f.take(HEAD_BYTES as u64).read_to_end(&mut head);
+        let _ = f
+            .take(target.kind.head_bytes() as u64)
+            .read_to_end(&mut head);
     }
     if target.kind.accepts(&head) {
         return Ok(());
@@ -1379,6 +1432,41 @@ mod sys {
 #[cfg(all(test, target_os = "linux"))]
 mod tests {
     use super::*;
+
+    #[test]
+    fn each_kind_replaces_only_its_own_files() {
+        let ok = |k: Kind, head: &str| k.accepts(head.as_bytes());
+        for k in [Kind::Any, Kind::Svg, Kind::Json, Kind::Html] {
+            assert!(ok(k, ""), "{k:?}: an empty file");
+            assert!(ok(k, " \n\t"), "{k:?}: whitespace");
+        }
+        assert!(ok(Kind::Any, "name = \"s\"\n[data]"));
+        assert!(ok(Kind::Svg, "<svg width=\"9\">"));
+        assert!(ok(Kind::Svg, "\u{feff}<?xml version=\"1.0\"?>\n<svg>"));
+        assert!(!ok(Kind::Svg, "<?xml version=\"1.0\"?>\n<project>"));
+        assert!(!ok(Kind::Svg, "x,y\n1,2\n"));
+        assert!(ok(Kind::Json, "{\n  \"format\": \"lossprism-result/2\","));
+        assert!(ok(
+            Kind::Json,
+            "{\"format\":\"lossprism-part/2\",\"checkpoint\":false"
+        ));
+        assert!(!ok(
+            Kind::Json,
+            "{\"format\":\"lossprism-part/2\",\"checkpoint\": true"
+        ));
+        assert!(!ok(Kind::Json, "{\"settings\": 1}"));
+        assert!(!ok(Kind::Json, "name = \"lossprism-result/2\""));
+        assert!(ok(Kind::Html, "<!DOCTYPE html>\n<html lang=\"en\">"));
+        assert!(ok(Kind::Html, "<html>"));
+        assert!(!ok(Kind::Html, "<svg>"));
+        assert!(ok(
+            Kind::Twin,
+            "# Simulated twin\n[data]\nsource = \"twin\"\n"
+        ));
+        assert!(ok(Kind::Twin, "[data]\n  source=\"twin\"  # a comment\n"));
+        assert!(!ok(Kind::Twin, "[data]\nsource = \"table\"\n"));
+        assert!(!ok(Kind::Twin, "import sys\n"));
+    }
     use std::os::unix::fs::{FileTypeExt, MetadataExt, OpenOptionsExt, PermissionsExt};
     use std::process::Command;
     use std::sync::mpsc;

@@ -5454,3 +5454,88 @@ fn information_lines_escape_line_breaks_in_file_names() {
     assert!(err.contains("resume from c\\nk.json"), "{err}");
     assert_eq!(err.trim_end().lines().count(), 1, "{err}");
 }
+
+#[test]
+fn assessments_started_together_are_all_counted() {
+    // Six `--assess` runs at once each read the same count: the ledger ended at 1 or 2 of 6.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    fs::write(dir.join("h.toml"), table_scenario("holdout = 0.25", TREE)).unwrap();
+    fs::write(dir.join("t.csv"), good_csv()).unwrap();
+    let children: Vec<_> = (1..=6)
+        .map(|k| {
+            Command::new(bin())
+                .args(["run", "h.toml", "--assess", &k.to_string()])
+                .current_dir(dir)
+                .stdin(Stdio::null())
+                .stdout(Stdio::piped())
+                .stderr(Stdio::piped())
+                .spawn()
+                .unwrap()
+        })
+        .collect();
+    let mut said: Vec<String> = Vec::new();
+    for c in children {
+        let out = c.wait_with_output().unwrap();
+        assert_eq!(out.status.code(), Some(0), "{}", text(&out.stderr));
+        let t = text(&out.stdout);
+        let n = t
+            .split("(assessment ")
+            .nth(1)
+            .and_then(|r| r.split(' ').next())
+            .unwrap_or("?")
+            .to_string();
+        said.push(n);
+    }
+    said.sort();
+    assert_eq!(said, ["1", "2", "3", "4", "5", "6"]);
+    let ledger: serde_json::Value =
+        serde_json::from_slice(&fs::read(dir.join("h.holdout-ledger.json")).unwrap()).unwrap();
+    assert_eq!(ledger["holdouts"][0]["assessments"], 6);
+    assert_eq!(ledger["holdouts"][0]["values"].as_array().unwrap().len(), 6);
+}
+
+#[test]
+fn twin_out_replaces_only_a_twin_scenario() {
+    // `twin --out` wrote a scenario over a script, a result and a table scenario (exit 0).
+    let docs = make_docs();
+    let d = workspace(&docs);
+    let dir = d.path();
+    fs::write(dir.join("model.py"), "import sys\n").unwrap();
+    let before = snapshot(dir);
+    for target in ["model.py", "r.json", "s.toml"] {
+        let (code, _, err) = status(
+            dir,
+            &[
+                "twin",
+                "t.csv",
+                "--target",
+                "y",
+                "--fidelity",
+                "0",
+                "--out",
+                target,
+            ],
+        );
+        assert_eq!(code, 2, "{target}: {err}");
+        assert!(err.contains("is not a twin scenario"), "{target}: {err}");
+        assert_eq!(snapshot(dir), before, "{target}");
+    }
+    // A twin scenario is replaced by the same command run again.
+    let again = [
+        "twin",
+        "t.csv",
+        "--target",
+        "y",
+        "--fidelity",
+        "0",
+        "--out",
+        "tw.toml",
+    ];
+    let (code, _, err) = status(dir, &again);
+    assert_eq!(code, 0, "{err}");
+    let first = fs::read(dir.join("tw.toml")).unwrap();
+    let (code, _, err) = status(dir, &again);
+    assert_eq!(code, 0, "{err}");
+    assert_eq!(fs::read(dir.join("tw.toml")).unwrap(), first);
+}

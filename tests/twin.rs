@@ -489,6 +489,28 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     let out = runner::run(&full, 0).unwrap();
     let best = report::best_of(&report::rows(&full, &out, 0));
     assert_eq!(best.value, tw.recommended[0].value);
+    // So is the k-NN pick, with the check's own grid and options (`standardize = true`, which
+    // the twin's lines now name: plain k-NN put `run`'s `*` elsewhere).
+    let written = fs::read_to_string(&o.out).unwrap();
+    let knn = twin::default_fidelity_families(full.train_size())
+        .into_iter()
+        .find(|f| f.family == "knn")
+        .unwrap();
+    assert!(
+        written.contains("knn k (with standardize = true): lowest expected loss"),
+        "{written}"
+    );
+    let with_knn = written.replace(
+        "[model]\nfamily = \"tree\"\ngrid = { from = 1, to = 10 }\n",
+        &format!("[model]\nfamily = \"knn\"\n{}", knn.body),
+    );
+    assert_ne!(with_knn, written, "the [model] section moved");
+    let knn_path = o.out.with_file_name("knn-twin.toml");
+    fs::write(&knn_path, &with_knn).unwrap();
+    let plan = scenario::load(&knn_path, &PlanOptions::default()).expect("plans");
+    let out = runner::run(&plan, 0).unwrap();
+    let best = report::best_of(&report::rows(&plan, &out, 0));
+    assert_eq!(best.value, tw.recommended[1].value);
     let json = report::to_json(&doc);
     assert!(json.contains("\"recommended\": ["), "{json}");
     let term = report::terminal::render(&doc);

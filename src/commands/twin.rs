@@ -759,7 +759,34 @@ fn values(v: &[f64]) -> String {
         .join(", ")
 }
 
-fn fidelity_lines(f: &FidelityRecord, rows: usize) -> Vec<String> {
+/// The fidelity check's lines. `families` are the options' families (empty: the defaults),
+/// whose options other than the grid are named, so that a `[model]` of `run` can repeat them:
+/// the check's k-NN standardizes its inputs, which the family does not by default, and `run`
+/// with plain k-NN put its `*` elsewhere than the recommended pick.
+fn fidelity_lines(f: &FidelityRecord, rows: usize, families: &[FidelityFamily]) -> Vec<String> {
+    let families = if families.is_empty() {
+        default_fidelity_families(rows)
+    } else {
+        families.to_vec()
+    };
+    let options = |family: &str| -> String {
+        let opts: Vec<&str> = families
+            .iter()
+            .find(|f| f.family == family)
+            .map(|f| {
+                f.body
+                    .lines()
+                    .map(str::trim)
+                    .filter(|l| !l.is_empty() && !l.starts_with("grid"))
+                    .collect()
+            })
+            .unwrap_or_default();
+        if opts.is_empty() {
+            String::new()
+        } else {
+            format!(" (with {})", opts.join(", "))
+        }
+    };
     let mut v = vec![format!(
         "Fidelity check: {} tables of {rows} rows drawn from this twin, each twinned again the same way (the twin run at {TWIN_REPLICATES} replicates, each twin of the twin at {}):",
         f.tables, f.replicates
@@ -767,9 +794,10 @@ fn fidelity_lines(f: &FidelityRecord, rows: usize) -> Vec<String> {
     for m in &f.models {
         let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
         v.push(format!(
-            "  {} {}: lowest expected loss on the twin at {} (recommended; one-SE set {}), bias-corrected pick {}. Twins of the twin picked {} ({} of {} inside the set), mean curve distance {:.1}%.",
+            "  {} {}{}: lowest expected loss on the twin at {} (recommended; one-SE set {}), bias-corrected pick {}. Twins of the twin picked {} ({} of {} inside the set), mean curve distance {:.1}%.",
             m.family,
             m.knob,
+            options(&m.family),
             fmt_value(m.headline_pick()),
             values(&m.one_se),
             fmt_value(m.corrected_pick),
@@ -1312,9 +1340,11 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         )));
     }
     // The output path is checked before the fit (a missing folder, an input named as output).
-    crate::output::check(
+    crate::output::check_one_of(
         &[("the table", o.table.as_path())],
-        &[("--out", o.out.as_path())],
+        "--out",
+        o.out.as_path(),
+        crate::output::Kind::Twin,
     )?;
     let t = load(o)?;
     check_scale(&t)?;
@@ -1546,7 +1576,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 }
                 if let Some(f) = r.fidelity {
                     comments.push(recommended_line(f));
-                    comments.extend(fidelity_lines(f, t.rows()));
+                    comments.extend(fidelity_lines(f, t.rows(), &o.fidelity_families));
                 }
                 let mut s = header_and_top(&o_eff, &t, &comments, reps);
                 s.push_str(&regression_data(&o_eff, &t, &rel, r));
@@ -1618,7 +1648,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             }
             match &fid {
                 Some(f) => {
-                    for l in fidelity_lines(f, t.rows()) {
+                    for l in fidelity_lines(f, t.rows(), &o.fidelity_families) {
                         out.push_str(&format!("{l}\n"));
                     }
                     out.push_str(&format!("{}\n", recommended_line(f)));
@@ -1635,11 +1665,12 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             text
         }
     };
-    crate::output::write_one(
+    crate::output::write_one_of(
         "--out",
         &o.out,
         &[("the table", o.table.as_path())],
         text.as_bytes(),
+        crate::output::Kind::Twin,
     )?;
     if crate::output::is_stdout(&o.out) {
         out.push_str(

@@ -1322,8 +1322,11 @@ pub fn plan_table(req: &TableRequest) -> Result<TablePlan, TableError> {
             line: None,
             column: None,
             message: format!(
-                "only {} rows outside the holdout; at least 4 are needed for a resampling decomposition",
-                work.len()
+                "only {} outside the holdout; at least 4 are needed for a resampling decomposition",
+                match work.len() {
+                    1 => "1 row".to_string(),
+                    n => format!("{n} rows"),
+                }
             ),
         });
     }
