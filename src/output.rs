@@ -126,13 +126,34 @@ impl Kind {
         match self {
             Kind::Any => true,
             _ if t.is_empty() => true,
-            Kind::Svg => (t.starts_with("<svg") || t.starts_with("<?xml")) && t.contains("<svg"),
-            // Not a checkpoint: the saved state of a run that may be resumed.
+            Kind::Svg => {
+                // An XML declaration, comments and a doctype may come before the element.
+                let mut rest = t.as_str();
+                loop {
+                    rest = rest.trim_start();
+                    let end = if rest.starts_with("<?xml") {
+                        rest.find("?>").map(|i| i + 2)
+                    } else if rest.starts_with("<!--") {
+                        rest.find("-->").map(|i| i + 3)
+                    } else if rest.starts_with("<!doctype") {
+                        rest.find('>').map(|i| i + 1)
+                    } else {
+                        break;
+                    };
+                    match end {
+                        Some(i) => rest = &rest[i..],
+                        None => return false,
+                    }
+                }
+                rest.starts_with("<svg")
+            }
+            // A result or part as lossprism writes it, `format` first (a file that merely
+            // mentions the tag, or a configuration, is not one), and not a checkpoint: the
+            // saved state of a run that may be resumed.
             Kind::Json => {
                 let compact: String = t.chars().filter(|c| !c.is_whitespace()).collect();
-                compact.starts_with('{')
-                    && (compact.contains("\"lossprism-result/")
-                        || compact.contains("\"lossprism-part/"))
+                (compact.starts_with("{\"format\":\"lossprism-result/")
+                    || compact.starts_with("{\"format\":\"lossprism-part/"))
                     && !compact.contains("\"checkpoint\":true")
             }
             Kind::Html => t.starts_with("<!doctype html") || t.starts_with("<html"),
@@ -726,13 +747,13 @@ fn same_kind(target: &Target) -> Result<(), Error> {
         return Ok(());
     }
     let mut head = Vec::new();
-    if let Ok(f) = File::open(full) {
+    let read = File::open(full).and_then(|f| {
         use std::io::Read;
-        let _ = f
-            .take(target.kind.head_bytes() as u64)
-            .read_to_end(&mut head);
-    }
-    if target.kind.accepts(&head) {
+        f.take(target.kind.head_bytes() as u64)
+            .read_to_end(&mut head)
+    });
+    // A file that cannot be read cannot be told apart: refused, as anything else unknown.
+    if read.is_ok() && target.kind.accepts(&head) {
         return Ok(());
     }
     Err(Error::Usage(format!(
@@ -1444,6 +1465,11 @@ mod tests {
         assert!(ok(Kind::Svg, "<svg width=\"9\">"));
         assert!(ok(Kind::Svg, "\u{feff}<?xml version=\"1.0\"?>\n<svg>"));
         assert!(!ok(Kind::Svg, "<?xml version=\"1.0\"?>\n<project>"));
+        assert!(ok(
+            Kind::Svg,
+            "<!-- drawn by hand -->\n<!DOCTYPE svg>\n<svg>"
+        ));
+        assert!(!ok(Kind::Svg, "<!-- <svg> in a comment -->\n<html>"));
         assert!(!ok(Kind::Svg, "x,y\n1,2\n"));
         assert!(ok(Kind::Json, "{\n  \"format\": \"lossprism-result/2\","));
         assert!(ok(
@@ -1456,6 +1482,7 @@ mod tests {
         ));
         assert!(!ok(Kind::Json, "{\"settings\": 1}"));
         assert!(!ok(Kind::Json, "name = \"lossprism-result/2\""));
+        assert!(!ok(Kind::Json, "{\"note\": \"see lossprism-result/2\"}"));
         assert!(ok(Kind::Html, "<!DOCTYPE html>\n<html lang=\"en\">"));
         assert!(ok(Kind::Html, "<html>"));
         assert!(!ok(Kind::Html, "<svg>"));

@@ -127,7 +127,7 @@ pub fn install_interrupt(mode: OnInterrupt) {
             noteln!(
                 "\ninterrupted: the finished blocks are saved in {}; rerun the same command to \
                  resume",
-                ck.display()
+                crate::error::shown(ck)
             );
             std::process::exit(130);
         }
@@ -150,7 +150,7 @@ pub fn install_interrupt(mode: OnInterrupt) {
                     Some(ck) => noteln!(
                         "\ninterrupted twice: stopping now; the finished blocks are saved in {}; \
                          rerun the same command to resume",
-                        ck.display()
+                        crate::error::shown(ck)
                     ),
                     None => noteln!("\ninterrupted twice: stopping now, nothing written"),
                 }

@@ -928,8 +928,6 @@ pub struct Merged {
     pub plan: Plan,
     /// The outcome, identical to the unsharded run's.
     pub outcome: Outcome,
-    /// The scenario file the parts were run from, as the first part records it.
-    pub scenario_file: PathBuf,
     /// Every place a part's scenario file may be, none of which `merge` may replace: each
     /// part's recorded path as given (relative to the folder `merge` runs in) and relative to
     /// the part's own folder (the shards ran there, most likely). Parts of one run may name the
@@ -1147,7 +1145,6 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
     Ok(Merged {
         plan,
         outcome,
-        scenario_file: PathBuf::from(&first.scenario_file),
         scenario_files,
     })
 }

@@ -509,6 +509,18 @@ fn shipped_study_has_rankings_learning_curves_and_pictures() {
     );
     assert!(html.contains("bias and variance across 2 models and 4 training sizes"));
     assert!(html.contains("each of 2 models (tree, knn)"));
+    // The best is named with its own model and knob (the first model's knob was written).
+    let fam = doc
+        .best
+        .family
+        .clone()
+        .expect("a study's best names its model");
+    let knob = if fam == "tree" { "max_depth" } else { "k" };
+    let said = format!(
+        "{fam} {knob} = {} (expected loss",
+        lossprism::fmt::fmt_value(doc.best.value)
+    );
+    assert!(html.contains(&said), "{said}");
     for svg in [
         report::plot::families_svg(&doc).unwrap(),
         report::plot::learning_svg(&doc).unwrap(),

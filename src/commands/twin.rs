@@ -1681,13 +1681,13 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         // A device or a pipe: nothing is kept to run.
         out.push_str(&format!(
             "wrote the scenario to {}, which is not a file: nothing was kept to run\n",
-            o.out.display()
+            crate::error::shown(&o.out)
         ));
     } else {
         out.push_str(&format!(
             "wrote {} (edit [model]; run it with `lossprism run {}`)\n",
-            o.out.display(),
-            o.out.display()
+            crate::error::shown(&o.out),
+            crate::error::shown(&o.out)
         ));
     }
     Ok(out)

@@ -153,6 +153,15 @@ fn size_words(doc: &ResultDoc) -> String {
     }
 }
 
+/// A table run's training size, or every size of a study ("100, 200 and 400").
+fn table_sizes(doc: &ResultDoc, t: &super::TableEcho) -> String {
+    if doc.sizes.len() > 1 {
+        size_words(doc)
+    } else {
+        t.train_size.to_string()
+    }
+}
+
 /// What the report's title and lead say is varied: the knob of a single model, or the models
 /// (and sizes) of a study.
 fn varied_words(doc: &ResultDoc) -> (String, String) {
@@ -291,12 +300,14 @@ fn table_words(
         format!(
             "a bootstrap resample: {} rows drawn with replacement from the {} working rows \
              (about 63.2% of them distinct)",
-            t.train_size, t.working_rows
+            table_sizes(doc, t),
+            t.working_rows
         )
     } else {
         format!(
             "a subsample of {} of the {} working rows, drawn without replacement",
-            t.train_size, t.working_rows
+            table_sizes(doc, t),
+            t.working_rows
         )
     };
     let holdout = if t.holdout_rows > 0 {
@@ -684,9 +695,19 @@ pub fn render(
         let _ = writeln!(
             h,
             "<figure>{}<figcaption>How often cross-validation chose each {}; the dark bar is \
-             the value with the lowest expected loss.</figcaption></figure>",
+             the {} with the lowest expected loss.</figcaption></figure>",
             inline_svg(svg, "histogram of the value chosen by cross-validation"),
-            e(&doc.knob)
+            // A study's choices span every model's grid.
+            e(if doc.models.is_empty() {
+                &doc.knob
+            } else {
+                "candidate (model and knob value)"
+            }),
+            if doc.models.is_empty() {
+                "value"
+            } else {
+                "candidate"
+            }
         );
     }
     if let Some(sel) = &doc.selection {
@@ -831,7 +852,19 @@ pub fn render(
         "best value",
         format!(
             "{} = {} (expected loss {}{})",
-            doc.knob,
+            // A study's best names its model and that model's knob (the first model's knob
+            // was written beside another model's value).
+            match &doc.best.family {
+                Some(f) if !doc.models.is_empty() => {
+                    let knob = doc
+                        .models
+                        .iter()
+                        .find(|m| m.label.as_deref().unwrap_or(&m.family) == f.as_str())
+                        .map_or(doc.knob.as_str(), |m| m.knob.as_str());
+                    format!("{f} {knob}")
+                }
+                _ => doc.knob.clone(),
+            },
             fmt_value(doc.best.value),
             fmt_num(doc.best.expected_loss),
             doc.best

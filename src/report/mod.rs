@@ -588,6 +588,14 @@ pub struct Best {
     pub within_one_se: Vec<f64>,
 }
 
+impl Best {
+    /// An expected loss within one standard error of the best's (at most its expected loss plus
+    /// its standard error): the one rule of `within_one_se` and of the selection audit's share.
+    pub fn admits(&self, expected_loss: f64) -> bool {
+        expected_loss <= self.expected_loss + self.stderr.unwrap_or(0.0)
+    }
+}
+
 /// The result document (`lossprism-result/2`).
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct ResultDoc {
@@ -1477,7 +1485,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             .filter(|p| {
                 p.family.as_deref() == Some(top.family.as_str())
                     && p.train_size.map_or(true, |n| n as usize == r.train_size)
-                    && p.expected_loss() <= top.expected_loss + top.stderr.unwrap_or(0.0)
+                    && best.admits(p.expected_loss())
             })
             .map(|p| p.value)
             .collect();
@@ -1620,6 +1628,9 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
 /// 9% of the time; measured by simulation, `docs/heavy-tails.md`).
 pub const TAIL_MIN_BLOCKS: u64 = 20;
 
+/// Fewest replicates per block on average for [`heavy_tail_words`] to judge.
+pub const TAIL_MIN_PER_BLOCK: u64 = 3;
+
 /// Share of its largest possible value, `(B − 1)/B`, above which one block's leave-one-out
 /// deviation is said to carry the spread ([`heavy_tail_words`]).
 pub const TAIL_SHARE: f64 = 0.9;
@@ -1633,11 +1644,18 @@ const TAIL_TERMS: [&str; 3] = ["expected_loss", "variance", "bias_sq"];
 /// Grubbs's kind over the blocks). A few replicates' predictions then dominate the term (a
 /// model that extrapolates wildly now and then, such as least squares on nearly collinear
 /// random ReLU features in few inputs, or minimum norm next to `p = n`), and its standard error is
-/// not a reliable measure of its error, whatever R. `None` with fewer than [`TAIL_MIN_BLOCKS`]
-/// blocks or when no row shows it. `knob_of` names a row's knob from its model label.
+/// not a reliable measure of its error at this R (nor at any R when the tail has no finite
+/// variance). `None` with fewer than [`TAIL_MIN_BLOCKS`] blocks, fewer than
+/// [`TAIL_MIN_PER_BLOCK`] replicates per block, or when no row shows it. `knob_of` names a row's
+/// knob from its model label.
 pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> String) -> Option<String> {
     let u = doc.uncertainty.as_ref()?;
-    if u.blocks < TAIL_MIN_BLOCKS || u.rows.len() != doc.points.len() {
+    // Blocks of one or two replicates are skewed enough to trip it by chance (a stump on a
+    // flat truth at R = 64 in 32 blocks, once in 30 seeds).
+    if u.blocks < TAIL_MIN_BLOCKS
+        || doc.replicates < TAIL_MIN_PER_BLOCK * u.blocks
+        || u.rows.len() != doc.points.len()
+    {
         return None;
     }
     let b = usize::try_from(u.blocks).ok()?;
@@ -1653,8 +1671,17 @@ pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> String) -> Op
             if v.iter().any(|x| !x.is_finite()) {
                 continue;
             }
-            let mean = v.iter().sum::<f64>() / b as f64;
-            let d: Vec<f64> = v.iter().map(|x| (x - mean) * (x - mean)).collect();
+            // Deviations scaled by the largest before squaring: terms near 1e155 and beyond,
+            // the tails this is for, overflowed to inf / inf.
+            let scale = v.iter().fold(0.0f64, |a, x| a.max(x.abs()));
+            if scale == 0.0 {
+                continue;
+            }
+            let mean = v.iter().map(|x| x / scale).sum::<f64>() / b as f64;
+            let d: Vec<f64> = v
+                .iter()
+                .map(|x| (x / scale - mean) * (x / scale - mean))
+                .collect();
             let sum: f64 = d.iter().sum();
             let max = d.iter().cloned().fold(0.0, f64::max);
             if sum > 0.0 && max / sum > bound {
@@ -1694,7 +1721,8 @@ pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> String) -> Op
     Some(format!(
         "Heavy tail: at {}{more}, one of the {b} replicate blocks carries up to {:.0}% of the \
          spread behind the standard error, so a few replicates dominate those terms and their \
-         standard errors are not reliable (more replicates may not settle them).",
+         standard errors are not reliable at this number of replicates (if the predictions' \
+         tail has no finite variance, more replicates will not settle them).",
         shown.join("; "),
         100.0 * worst
     ))
@@ -1746,19 +1774,19 @@ pub fn best_of(points: &[PointRow]) -> Best {
         }
     }
     let b = &points[bi];
-    let se = b.se("expected_loss");
-    let within = points
-        .iter()
-        .filter(|p| p.expected_loss() <= b.expected_loss() + se.unwrap_or(0.0))
-        .map(|p| p.value)
-        .collect();
-    Best {
+    let mut best = Best {
         family: b.family.clone(),
         value: b.value,
         expected_loss: b.expected_loss(),
-        stderr: se,
-        within_one_se: within,
-    }
+        stderr: b.se("expected_loss"),
+        within_one_se: Vec::new(),
+    };
+    best.within_one_se = points
+        .iter()
+        .filter(|p| best.admits(p.expected_loss()))
+        .map(|p| p.value)
+        .collect();
+    best
 }
 
 /// The first number of `doc` that could not be computed (it would be written as `null`), named

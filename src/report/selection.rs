@@ -98,7 +98,7 @@ pub fn selection(
         .zip(counts)
         .filter(|(p, _)| {
             if several {
-                p.expected_loss() <= best.expected_loss + best.stderr.unwrap_or(0.0)
+                best.admits(p.expected_loss())
             } else {
                 same_family(p, best) && best.within_one_se.contains(&p.value)
             }
