@@ -1121,6 +1121,18 @@ fn scenario_cases(t: &mut Table) {
         v,
         "classes",
     );
+    // Add-α smoothing shapes class shares, which the 0-1 loss never reads: accepted, it
+    // changed no number.
+    t.scenario(
+        g,
+        "alpha under the 0-1 loss",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\n",
+            "[data.classes]\nlabels = [\"a\", \"b\"]\nprobability = \"x\"\n\n[model]\nfamily = \"tree\"\ngrid = [1, 2]\nalpha = 0.5\n\n[loss]\nkind = \"zero_one\"\n",
+        ),
+        v,
+        "key `model.alpha`: it smooths the leaf class shares, which the 0-1 loss never reads",
+    );
     t.scenario(
         g,
         "seed beyond a TOML integer",

@@ -1431,3 +1431,45 @@ fn one_block_carrying_a_term_is_read_as_a_heavy_tail() {
         "{back}"
     );
 }
+
+#[test]
+fn a_grid_on_one_side_of_the_trade_off_is_read_as_such_not_as_overfitting() {
+    // A straight-line truth under polynomials of degree 1 to 3: degree 1 is the exact model
+    // (bias² 0) and the best, and variance exceeds bias² everywhere; the reading called the
+    // family overfitting across the whole grid.
+    let src = r#"
+name = "exact-line"
+seed = 4
+replicates = 100
+
+[data]
+source = "synthetic"
+train_size = 30
+eval_size = 50
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "2*x"
+
+[data.noise]
+sd = 0.5
+
+[model]
+family = "poly"
+grid = [1, 2, 3]
+"#;
+    let (_, _, doc) = run(src);
+    assert_eq!(doc.best.value, 1.0, "{}", doc.reading);
+    assert!(
+        doc.reading.starts_with(
+            "Variance exceeds bias² at every degree tried: the whole grid lies on the \
+             variance-dominated side"
+        ),
+        "{}",
+        doc.reading
+    );
+    assert!(!doc.reading.contains("overfits"), "{}", doc.reading);
+}

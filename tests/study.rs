@@ -477,8 +477,28 @@ fn paired_difference_calibration_long() {
 fn shipped_study_has_rankings_learning_curves_and_pictures() {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/bakery-study.toml");
     let src = std::fs::read_to_string(&path).unwrap();
-    let (_, _, doc) = run_text(&src, &PlanOptions::default());
+    let (plan, outcome, doc) = run_text(&src, &PlanOptions::default());
     assert_eq!(doc.families(), vec!["tree".to_string(), "knn".to_string()]);
+    // The per-point picture shows the first model at the largest size, with that curve's own
+    // best (the study's overall best, a k-NN k, was looked up in the tree's grid).
+    let (tx, ty) = lossprism::runner::training_set(&plan, &outcome.prepared, 0).unwrap();
+    let view =
+        report::plot::point_view(&plan, &outcome, &doc, Some("footfall"), (&tx, &ty)).unwrap();
+    let tree_best = doc.learning[0].sizes.last().unwrap().value;
+    let shown: Vec<(f64, &str)> = view
+        .curves
+        .iter()
+        .map(|c| (c.value, c.role.as_str()))
+        .collect();
+    assert!(
+        shown.contains(&(tree_best, "best")),
+        "{shown:?} for tree's best {tree_best}"
+    );
+    assert!(
+        view.scenario.contains("model tree at 800 training rows"),
+        "{}",
+        view.scenario
+    );
     assert!(doc.sizes.len() >= 3);
     assert_eq!(doc.ranking.len(), doc.sizes.len());
     assert_eq!(doc.learning.len(), 2);
@@ -492,7 +512,15 @@ fn shipped_study_has_rankings_learning_curves_and_pictures() {
     // the largest size alone, were said as if the study had one model).
     let words = report::html::scenario_words(&doc).join(" ");
     assert!(words.contains("Models (2, fitted on the same training sets): tree at max_depth"));
-    assert!(words.contains("; knn at k = "), "{words}");
+    // A hand-listed grid is listed, not shortened as if evenly spaced ("1, 2, 3, …, 50").
+    assert!(
+        words.contains("; knn at k = 1, 2, 3, 5, 8, 12, 20, 30, 50 (9 values)"),
+        "{words}"
+    );
+    assert!(
+        words.contains("tree at max_depth = 1, 2, 3, …, 10 (10 values)"),
+        "{words}"
+    );
     let sizes: Vec<String> = doc.sizes.iter().map(|n| n.to_string()).collect();
     let (last, rest) = sizes.split_last().unwrap();
     let said = format!(

@@ -210,7 +210,7 @@ pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family
         };
     }
     if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
-        cx.classification_only("alpha", "it smooths the leaf class shares")?;
+        cx.probabilities_only("alpha", "it smooths the leaf class shares")?;
         f.alpha = a;
     }
     Ok(Arc::new(f))
@@ -884,6 +884,7 @@ mod tests {
         let cx = BuildContext {
             base: std::path::Path::new("."),
             task: Task::Regress,
+            labels_only: false,
         };
         let make = |pairs: &[(&str, Value)]| {
             let mut o = Options::new(

@@ -71,7 +71,7 @@ pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family
         k.standardize = s;
     }
     if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
-        cx.classification_only("alpha", "it smooths the neighbour class shares")?;
+        cx.probabilities_only("alpha", "it smooths the neighbour class shares")?;
         k.alpha = a;
     }
     Ok(Arc::new(k))

@@ -289,6 +289,9 @@ pub struct BuildContext<'a> {
     pub base: &'a Path,
     /// The scenario's task: options that only classification reads are refused on regression.
     pub task: Task,
+    /// The loss reads predicted labels only (the 0-1 loss), not class probabilities: options
+    /// that only shape the probabilities are refused.
+    pub labels_only: bool,
 }
 
 impl BuildContext<'_> {
@@ -301,6 +304,24 @@ impl BuildContext<'_> {
                 message: format!(
                     "{what}, which only classification uses; this scenario is a regression: \
                      remove `{key}`"
+                ),
+            });
+        }
+        Ok(())
+    }
+
+    /// Refuses option `key`, which only shapes class probabilities (`what` says how), where no
+    /// probability is read: a regression, or the 0-1 loss, which takes the most likely class
+    /// (`alpha` under the 0-1 loss changed no number and was accepted).
+    pub fn probabilities_only(&self, key: &str, what: &str) -> Result<(), OptionError> {
+        self.classification_only(key, what)?;
+        if self.labels_only {
+            return Err(OptionError {
+                key: key.to_string(),
+                message: format!(
+                    "{what}, which the 0-1 loss never reads (it scores the most likely class, \
+                     which `{key}` does not change): remove `{key}`, or use `kind = \"log\"` or \
+                     `\"brier\"`"
                 ),
             });
         }

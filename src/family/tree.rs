@@ -178,7 +178,7 @@ pub fn build(opts: &mut Options, cx: &BuildContext<'_>) -> Result<Arc<dyn Family
         };
     }
     if let Some(a) = opts.number("alpha", 0.0, 1e6)? {
-        cx.classification_only("alpha", "it smooths the leaf class shares")?;
+        cx.probabilities_only("alpha", "it smooths the leaf class shares")?;
         t.alpha = a;
     }
     Ok(Arc::new(t))

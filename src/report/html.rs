@@ -107,7 +107,7 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
                 format!(
                     "{name}{family} at {} = {} ({} values{})",
                     m.knob,
-                    grid_words(&m.grid),
+                    grid_words(&m.grid, &m.grid_kind),
                     m.grid.len(),
                     log_words(&m.grid_kind)
                 )
@@ -123,7 +123,7 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
             "Model: the {} family, fitted at {} = {} ({} values{}).",
             doc.family,
             doc.knob,
-            grid_words(&s.grid),
+            grid_words(&s.grid, &s.grid_kind),
             s.grid.len(),
             log_words(&s.grid_kind)
         )
@@ -327,10 +327,10 @@ fn table_words(
         String::new()
     };
     let skipped = if t.skipped_rows > 0 {
-        format!(
-            "; {} rows held out fewer than twice are skipped",
-            t.skipped_rows
-        )
+        match t.skipped_rows {
+            1 => "; 1 row held out fewer than twice is skipped".to_string(),
+            n => format!("; {n} rows held out fewer than twice are skipped"),
+        }
     } else {
         String::new()
     };
@@ -383,7 +383,23 @@ fn table_words(
     out
 }
 
-fn grid_words(grid: &[f64]) -> String {
+/// A grid in words: every value when there are few, or when they are listed by hand (`1, 2,
+/// 3, …, 50` read as every whole number to 50 for k ∈ {1, 2, 3, 5, …, 50}); an evenly spaced
+/// `range` as its first values and its last.
+fn grid_words(grid: &[f64], kind: &str) -> String {
+    let all = |g: &[f64]| {
+        g.iter()
+            .map(|v| fmt_value(*v))
+            .collect::<Vec<_>>()
+            .join(", ")
+    };
+    if kind != "range" && grid.len() > 8 {
+        return if grid.len() <= 16 {
+            all(grid)
+        } else {
+            format!("{}, …, {}", all(&grid[..4]), all(&grid[grid.len() - 2..]))
+        };
+    }
     if grid.len() <= 8 {
         grid.iter()
             .map(|v| fmt_value(*v))

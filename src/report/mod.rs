@@ -1894,10 +1894,13 @@ pub fn reading(
     let bias_dominates = |p: &PointRow| p.get(bias_key) > p.get("variance");
     let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
     let mut out = if n_bias == points.len() {
-        format!("{bias_word} exceeds variance at every {knob} tried: the family underfits across the whole grid.")
+        // Said of the grid, not the family: an exact model at the best value, with bias² 0 and
+        // a little variance, was called overfitting.
+        format!("{bias_word} exceeds variance at every {knob} tried: the whole grid lies on the bias-dominated side (no value tried lets variance dominate).")
     } else if n_bias == 0 {
         format!(
-            "Variance exceeds {} at every {knob} tried: the family overfits across the whole grid.",
+            "Variance exceeds {} at every {knob} tried: the whole grid lies on the variance-dominated side (no value tried lets {} dominate).",
+            bias_word.to_lowercase(),
             bias_word.to_lowercase()
         )
     } else {

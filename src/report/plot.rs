@@ -1007,7 +1007,17 @@ pub fn point_view(
     let m = acc.shape.points;
     let ex: Vec<f64> = prep.eval_x.column(col).to_vec();
     let grid = &plan.model().grid;
-    let best_g = grid.iter().position(|v| *v == doc.best.value).unwrap_or(0);
+    // The best of the model shown (the first, at the largest size): a study's overall best may
+    // be another model's value, and was looked up in this grid (a tree's "best" at depth 5 was
+    // the k-NN's k = 5).
+    let el = sum.index("expected_loss").unwrap_or(0);
+    let best_g = (0..sum.values.len())
+        .min_by(|&a, &b| {
+            sum.values[a][el]
+                .total_cmp(&sum.values[b][el])
+                .then(a.cmp(&b))
+        })
+        .unwrap_or(0);
     let mut picks: Vec<(usize, &str)> = vec![(0, "smallest")];
     if best_g != 0 {
         picks.push((best_g, "best"));
@@ -1079,8 +1089,19 @@ pub fn point_view(
         })
         .collect();
     let (tx, ty) = train;
+    // A study says which model and size the picture shows.
+    let shown = if plan.models.len() > 1 || plan.sizes.len() > 1 {
+        format!(
+            "{}, model {} at {} training rows",
+            plan.name,
+            plan.model().label,
+            plan.sizes.last().copied().unwrap_or_default()
+        )
+    } else {
+        plan.name.clone()
+    };
     Ok(PointView {
-        scenario: plan.name.clone(),
+        scenario: shown,
         family: plan.model().family.name().to_string(),
         knob: plan.model().family.knob().to_string(),
         input: names[col].clone(),

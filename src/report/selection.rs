@@ -152,23 +152,36 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
     });
     // With several models the candidates carry their own names ("knn k = 10"); the oracle is
     // the candidate of zero excess loss.
+    // Every candidate chosen as often as the most chosen one (a tie named one of two values).
+    let top = s.chosen_counts.get(mode).copied().unwrap_or(0);
+    let tied: Vec<usize> = (0..s.chosen_counts.len())
+        .filter(|&j| s.chosen_counts[j] == top)
+        .collect();
+    let name = |j: usize| {
+        if s.candidates.is_empty() {
+            grid.get(j).map(|v| fmt_value(*v)).unwrap_or_default()
+        } else {
+            s.candidates.get(j).cloned().unwrap_or_default()
+        }
+    };
+    let names: Vec<String> = tied.iter().map(|&j| name(j)).collect();
+    let listed = match names.as_slice() {
+        [one] => one.clone(),
+        [rest @ .., last] => format!("{} and {last}", rest.join(", ")),
+        [] => String::new(),
+    };
     let (chosen, oracle) = if s.candidates.is_empty() {
-        (
-            format!(
-                "{knob} = {}",
-                grid.get(mode).map(|v| fmt_value(*v)).unwrap_or_default()
-            ),
-            fmt_value(s.oracle_best),
-        )
+        (format!("{knob} = {listed}"), fmt_value(s.oracle_best))
     } else {
         let oracle = s
             .oracle_candidate
             .clone()
             .unwrap_or_else(|| fmt_value(s.oracle_best));
-        (s.candidates.get(mode).cloned().unwrap_or_default(), oracle)
+        (listed, oracle)
     };
+    let each = if tied.len() > 1 { " each" } else { "" };
     format!(
-        "{}-fold cross-validation ({} rule) chose {chosen} most often ({} of {total} replicates); \
+        "{}-fold cross-validation ({} rule) chose {chosen} most often ({} of {total} replicates{each}); \
          the oracle best is {oracle} (chosen in {:.0}%); {:.0}% of choices are within one standard error of it; \
          excess loss over the oracle: mean {}, 90% quantile {}.",
         s.folds,
@@ -179,4 +192,39 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
         fmt_num(s.mean_excess_loss),
         fmt_num(s.q90_excess_loss)
     )
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn sel(counts: &[u64]) -> Selection {
+        Selection {
+            folds: 5,
+            rule: "min".into(),
+            chosen_counts: counts.to_vec(),
+            oracle_best: 5.0,
+            mean_excess_loss: 0.0,
+            q90_excess_loss: 0.0,
+            share_within_one_se: 1.0,
+            share_oracle: 0.35,
+            candidates: Vec::new(),
+            oracle_candidate: None,
+        }
+    }
+
+    #[test]
+    fn a_tie_for_most_chosen_names_every_tied_value() {
+        let grid = [1.0, 2.0, 3.0, 4.0, 5.0, 6.0];
+        let s = sentence(&sel(&[0, 0, 5, 7, 7, 1]), "max_depth", &grid);
+        assert!(
+            s.contains("chose max_depth = 4 and 5 most often (7 of 20 replicates each)"),
+            "{s}"
+        );
+        let s = sentence(&sel(&[0, 0, 5, 8, 6, 1]), "max_depth", &grid);
+        assert!(
+            s.contains("chose max_depth = 4 most often (8 of 20 replicates);"),
+            "{s}"
+        );
+    }
 }

@@ -1094,7 +1094,12 @@ fn build_models(
         let mut opts = Options::new(&family_name, entries);
         let fam: Arc<dyn Family> = match info.build {
             Some(build) => {
-                let built = build(&mut opts, &BuildContext { base, task });
+                let cx_build = BuildContext {
+                    base,
+                    task,
+                    labels_only: loss.name() == "zero_one",
+                };
+                let built = build(&mut opts, &cx_build);
                 let fam = built.map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;
                 opts.finish()
                     .map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;
