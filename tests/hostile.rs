@@ -1279,7 +1279,7 @@ fn scenario_cases(t: &mut Table) {
             format!("--memory-limit {size} (under a byte)"),
             &[("s.toml", BASE.as_bytes())],
             &["run", "s.toml", "--out", "r.json", "--memory-limit", size],
-            "is not a memory size",
+            "is less than one byte",
         );
     }
     t.add(
@@ -3245,7 +3245,7 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         "--memory-limit 0",
         s,
         &["validate", "s.toml", "--memory-limit", "0"],
-        "not a memory size",
+        "`0` is less than one byte",
     );
     t.add(
         g,
@@ -3618,6 +3618,13 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
         &[("r.json", &docs.result), ("t.csv", b"x,y\n1,2\n")],
         &["plot", "r.json", "--out", "c.svg", "--learning", "t.csv"],
         "--learning: t.csv exists and is not an SVG picture",
+    );
+    t.add(
+        g,
+        "plot --learning of a single size",
+        &[("r.json", &docs.result)],
+        &["plot", "r.json", "--out", "c.svg", "--learning", "l.svg"],
+        "r.json: --learning needs a result with several training sizes",
     );
     t.add(
         g,

@@ -821,6 +821,12 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     let mut extra = Vec::new();
     if let Some(p) = &args.learning {
         let id = set.output_of("--learning", p, Kind::Svg)?;
+        // Named as `--heatmap` is: the file and the flag.
+        if doc.learning.is_empty() {
+            return Err(Error::Usage(format!(
+                "{name}: --learning needs a result with several training sizes (`train_size = [..]`)"
+            )));
+        }
         extra.push((id, report::plot::learning_svg(&doc)?));
     }
     if let Some(p) = &args.heatmap {

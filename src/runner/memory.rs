@@ -93,7 +93,9 @@ pub fn fmt_bytes(b: f64) -> String {
         v /= 1024.0;
         u += 1;
     }
-    if u == 0 {
+    if u == 0 && format!("{v:.0}") == "1" {
+        "1 byte".to_string()
+    } else if u == 0 {
         format!("{v:.0} bytes")
     } else {
         format!("{v:.1} {}", UNITS[u])
@@ -108,6 +110,7 @@ pub fn parse_size(s: &str) -> Result<u64, String> {
     let stripped = upper
         .strip_suffix("IB")
         .or_else(|| upper.strip_suffix('B'))
+        .or_else(|| upper.strip_suffix('I'))
         .unwrap_or(&upper);
     let (num, scale) = match stripped.chars().last() {
         Some('K') => (&stripped[..stripped.len() - 1], 1024f64),
@@ -119,6 +122,13 @@ pub fn parse_size(s: &str) -> Result<u64, String> {
     match num.trim().parse::<f64>() {
         // At least one byte: `0.5` or `1e-300K` would hold a run to 0 bytes.
         Ok(v) if v.is_finite() && v * scale >= 1.0 && v * scale < 1.8e19 => Ok((v * scale) as u64),
+        // A number, but no size a run could be held to (it was called "not a memory size").
+        Ok(v) if v.is_finite() && v * scale >= 1.8e19 => Err(format!(
+            "`{s}` is beyond any memory (at most 16 EiB); write a size such as `16G`"
+        )),
+        Ok(v) if v.is_finite() => Err(format!(
+            "`{s}` is less than one byte; write bytes or a number with K, M, G or T (`512M`, `16G`)"
+        )),
         _ => Err(format!(
             "`{s}` is not a memory size; write bytes or a number with K, M, G or T (`512M`, `16G`)"
         )),
@@ -148,10 +158,17 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
     let per_block = acc / plan.blocks.max(1) as f64;
     terms.push(Term {
         name: "accumulators",
+        // A study keeps every training size's accumulators (the sizes were missing from the
+        // product, which then did not give the bytes shown).
         detail: format!(
-            "{} blocks × {} grid values × {} evaluation points, kept for the jackknife",
+            "{} blocks × {} grid values{} × {} evaluation points, kept for the jackknife",
             plan.blocks,
             plan.models.iter().map(|m| m.grid.len()).sum::<usize>(),
+            if plan.sizes.len() > 1 {
+                format!(" × {} training sizes", plan.sizes.len())
+            } else {
+                String::new()
+            },
             plan.eval_size()
         ),
         bytes: acc + (3.0 + 2.0 * wf) * per_block,
@@ -382,9 +399,19 @@ mod tests {
         assert_eq!(parse_size("16G").unwrap(), 16 << 30);
         assert_eq!(parse_size("1.5GiB").unwrap(), 3 << 29);
         assert_eq!(parse_size("1T").unwrap(), 1 << 40);
+        assert_eq!(parse_size("16Gi").unwrap(), 16 << 30);
         for bad in ["", "-1G", "G", "lots", "1e30", "0", "nan"] {
             assert!(parse_size(bad).is_err(), "{bad}");
         }
+        assert!(parse_size("1e30")
+            .unwrap_err()
+            .contains("beyond any memory"));
+        assert!(parse_size("0.5")
+            .unwrap_err()
+            .contains("less than one byte"));
+        assert!(parse_size("lots")
+            .unwrap_err()
+            .contains("not a memory size"));
     }
 
     #[test]
