@@ -2,7 +2,7 @@
 
 use std::path::PathBuf;
 
-use clap::{Args, Parser, Subcommand, ValueEnum};
+use clap::{ArgGroup, Args, Parser, Subcommand, ValueEnum};
 
 /// Splits expected test error into noise, bias² and variance across a model family's complexity
 /// grid, by Monte Carlo over many training sets.
@@ -190,6 +190,7 @@ pub struct PlotArgs {
 
 /// Options of `run`.
 #[derive(Debug, Args)]
+#[command(group(ArgGroup::new("curve_picture").args(["plot", "report"]).multiple(true)))]
 pub struct RunArgs {
     /// Scenario file (TOML). Without it, the embedded default scenario runs.
     pub scenario: Option<PathBuf>,
@@ -237,8 +238,9 @@ pub struct RunArgs {
     /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
-    /// The y axis of the curve picture (--plot and the report).
-    #[arg(long, value_enum, default_value_t = YScaleArg::Auto)]
+    /// The y axis of the curve picture (--plot and the report; refused without either, where
+    /// it would change nothing).
+    #[arg(long, value_enum, default_value_t = YScaleArg::Auto, requires = "curve_picture")]
     pub y_scale: YScaleArg,
     /// Draw the selection audit's histogram (SVG; scenarios with `[audit]`).
     #[arg(long, value_name = "FILE.svg")]
@@ -309,6 +311,7 @@ pub struct CheckArgs {
 
 /// Options of `merge`.
 #[derive(Debug, Args)]
+#[command(group(ArgGroup::new("curve_picture").args(["plot", "report"]).multiple(true)))]
 pub struct MergeArgs {
     /// Part documents written by `run --shard I/N --out FILE` (all shards of one run).
     #[arg(required = true, value_name = "PART.json")]
@@ -336,8 +339,9 @@ pub struct MergeArgs {
     /// Draw the curve of expected loss, bias², variance and noise against the knob (SVG).
     #[arg(long, value_name = "FILE.svg")]
     pub plot: Option<PathBuf>,
-    /// The y axis of the curve picture (--plot and the report).
-    #[arg(long, value_enum, default_value_t = YScaleArg::Auto)]
+    /// The y axis of the curve picture (--plot and the report; refused without either, where
+    /// it would change nothing).
+    #[arg(long, value_enum, default_value_t = YScaleArg::Auto, requires = "curve_picture")]
     pub y_scale: YScaleArg,
     /// Draw the selection audit's histogram (SVG; scenarios with `[audit]`).
     #[arg(long, value_name = "FILE.svg")]

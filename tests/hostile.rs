@@ -3226,6 +3226,14 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         &["run", "s.toml", "--input", "x"],
         "--plot-points",
     );
+    // The y axis of a picture that is not drawn changed nothing and was accepted.
+    t.add(
+        g,
+        "--y-scale without a picture",
+        s,
+        &["run", "s.toml", "--out", "r.json", "--y-scale", "clip"],
+        "<--plot <FILE.svg>|--report <FILE.html>>",
+    );
     t.add(
         g,
         "--plot-points of an unknown input",
