@@ -937,9 +937,8 @@ fn term_of(row: &PointRow, term: &str) -> Option<(f64, Option<f64>)> {
 fn row_name(doc: &ResultDoc, p: &PointRow) -> String {
     let knob = p
         .family
-        .as_ref()
-        .and_then(|f| doc.models.iter().find(|m| &m.family == f))
-        .map_or(doc.knob.as_str(), |m| m.knob.as_str());
+        .as_deref()
+        .map_or(doc.knob.as_str(), |f| doc.knob_of(f));
     let mut s = match &p.family {
         Some(f) => format!("{f} {knob} = {}", fmt_value(p.value)),
         None => format!("{knob} = {}", fmt_value(p.value)),
@@ -1430,19 +1429,11 @@ pub fn compare(
         tails: [("the result", new), ("the baseline", baseline)]
             .into_iter()
             .filter_map(|(who, d)| {
-                crate::report::heavy_tail_words(d, &|label| knob_of(d, label))
+                crate::report::heavy_tail_words(d)
                     .map(|w| format!("{who}: {w} Verdicts on those rows may be wrong either way."))
             })
             .collect(),
     })
-}
-
-/// The knob of the model labelled `label` in `d` (the document's knob for a single model).
-fn knob_of(d: &ResultDoc, label: &str) -> String {
-    d.models
-        .iter()
-        .find(|m| m.label.as_deref().unwrap_or(&m.family) == label)
-        .map_or_else(|| d.knob.clone(), |m| m.knob.clone())
 }
 
 /// A signed number with one decimal (`+24.0`), in exponent form from a million on (`+9.4e305`):

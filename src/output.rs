@@ -400,12 +400,7 @@ pub fn write_one(
     inputs: &[(&str, &Path)],
     bytes: impl Into<Vec<u8>>,
 ) -> Result<(), Error> {
-    let mut set = Outputs::new();
-    for (role, p) in inputs {
-        set.input(role, p);
-    }
-    let id = set.output(flag, path)?;
-    set.commit(vec![(id, bytes.into())])
+    write_one_of(flag, path, inputs, bytes, Kind::Any)
 }
 
 /// [`write_one`] for an output of a known [`Kind`].

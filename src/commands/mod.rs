@@ -798,7 +798,7 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     // A picture of a view with none of its terms draws the loss's own terms, as `run --plot`
     // does; said on standard error (it was drawn with no word).
     if let Some(why) = report::terminal::view_missing(&doc, view) {
-        eprintln!("note: {name}: {why}; the picture shows the loss's own terms");
+        noteln!("note: {name}: {why}; the picture shows the loss's own terms");
     }
     let families = doc.families();
     if let Some(f) = &args.family {

@@ -1159,6 +1159,14 @@ pub enum Scheme {
     },
 }
 
+/// The expected share of distinct rows among `draws` rows drawn with replacement from `rows`:
+/// `rows (1 − (1 − 1/rows)^draws) / draws` (each row is missed by all draws with probability
+/// `(1 − 1/rows)^draws`), `1 − (1 − 1/n)^n` for a bootstrap of n rows.
+pub fn distinct_share(draws: usize, rows: usize) -> f64 {
+    let (d, r) = (draws.max(1) as f64, rows.max(1) as f64);
+    r * (1.0 - (1.0 - 1.0 / r).powf(d)) / d
+}
+
 impl Scheme {
     /// Training rows per replicate out of `n` working rows.
     pub fn train_size(&self, n: usize) -> usize {
@@ -1183,7 +1191,7 @@ impl Scheme {
     pub fn note(&self, n: usize) -> String {
         match self {
             Scheme::Bootstrap => {
-                let distinct = 1.0 - (1.0 - 1.0 / n as f64).powi(n as i32);
+                let distinct = distinct_share(n, n);
                 format!(
                     "bootstrap: each training set draws {n} rows with replacement and holds about {:.1}% distinct rows \
                      (1 - (1 - 1/n)^n), so each row is out-of-bag in about {:.1}% of replicates; a model sees fewer \

@@ -98,7 +98,7 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
             .models
             .iter()
             .map(|m| {
-                let name = m.label.as_deref().unwrap_or(&m.family);
+                let name = m.id();
                 let family = if name == m.family {
                     String::new()
                 } else {
@@ -165,11 +165,7 @@ fn table_sizes(doc: &ResultDoc, t: &super::TableEcho) -> String {
 /// What the report's title and lead say is varied: the knob of a single model, or the models
 /// (and sizes) of a study.
 fn varied_words(doc: &ResultDoc) -> (String, String) {
-    let names: Vec<&str> = doc
-        .models
-        .iter()
-        .map(|m| m.label.as_deref().unwrap_or(&m.family))
-        .collect();
+    let names: Vec<&str> = doc.models.iter().map(|m| m.id()).collect();
     let sizes = if doc.sizes.len() > 1 {
         format!(" and {} training sizes", doc.sizes.len())
     } else {
@@ -297,13 +293,9 @@ fn table_words(
 ) -> Vec<String> {
     let s = &doc.scenario;
     let scheme = if t.resample == "bootstrap" {
-        // The expected share for this table, as the scheme's own note gives it (63.2%, the
-        // limit, stood beside the note's 63.3% for 240 rows).
-        // n draws from N rows hold N (1 − (1 − 1/N)^n) distinct ones on average (at the
-        // largest size of a study).
-        let big_n = t.working_rows.max(1) as f64;
-        let n = t.train_size.max(1) as f64;
-        let distinct = big_n * (1.0 - (1.0 - 1.0 / big_n).powf(n)) / n;
+        // For this table, as the scheme's note says it (the limit, 63.2%, stood beside the
+        // note's 63.3% for 240 rows); at the largest size of a study.
+        let distinct = crate::dataset::distinct_share(t.train_size, t.working_rows);
         format!(
             "a bootstrap resample: {} rows drawn with replacement from the {} working rows \
              (about {:.1}% of them distinct)",
@@ -401,26 +393,12 @@ fn grid_words(grid: &[f64], kind: &str) -> String {
             .collect::<Vec<_>>()
             .join(", ")
     };
-    if kind != "range" && grid.len() > 8 {
-        return if grid.len() <= 16 {
-            all(grid)
-        } else {
-            format!("{}, …, {}", all(&grid[..4]), all(&grid[grid.len() - 2..]))
-        };
-    }
-    if grid.len() <= 8 {
-        grid.iter()
-            .map(|v| fmt_value(*v))
-            .collect::<Vec<_>>()
-            .join(", ")
-    } else {
-        format!(
-            "{}, {}, {}, …, {}",
-            fmt_value(grid[0]),
-            fmt_value(grid[1]),
-            fmt_value(grid[2]),
-            fmt_value(grid[grid.len() - 1])
-        )
+    let n = grid.len();
+    match (kind == "range", n) {
+        (_, 0..=8) => all(grid),
+        (true, _) => format!("{}, …, {}", all(&grid[..3]), all(&grid[n - 1..])),
+        (false, 9..=16) => all(grid),
+        (false, _) => format!("{}, …, {}", all(&grid[..4]), all(&grid[n - 2..])),
     }
 }
 
@@ -642,16 +620,16 @@ pub fn render(
 ) -> String {
     let mut h = String::new();
     let e = escape;
+    let (across, lead) = varied_words(doc);
     let _ = write!(
         h,
         "<!DOCTYPE html>\n<html lang=\"en\">\n<head>\n<meta charset=\"utf-8\">\n\
          <meta name=\"viewport\" content=\"width=device-width, initial-scale=1\">\n\
          <title>{} · bias and variance across {}</title>\n<style>{STYLE}</style>\n</head>\n<body>\n<main>\n",
         e(&doc.scenario.name),
-        e(&varied_words(doc).0)
+        e(&across)
     );
     let resampled = doc.table.is_some();
-    let (across, lead) = varied_words(doc);
     let _ = writeln!(
         h,
         "<h1>{}: bias and variance across {}</h1>\n<p class=\"lead\">How the expected test loss of \
@@ -879,14 +857,7 @@ pub fn render(
             // A study's best names its model and that model's knob (the first model's knob
             // was written beside another model's value).
             match &doc.best.family {
-                Some(f) if !doc.models.is_empty() => {
-                    let knob = doc
-                        .models
-                        .iter()
-                        .find(|m| m.label.as_deref().unwrap_or(&m.family) == f.as_str())
-                        .map_or(doc.knob.as_str(), |m| m.knob.as_str());
-                    format!("{f} {knob}")
-                }
+                Some(f) if !doc.models.is_empty() => format!("{f} {}", doc.knob_of(f)),
                 _ => doc.knob.clone(),
             },
             fmt_value(doc.best.value),

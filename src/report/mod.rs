@@ -788,6 +788,15 @@ impl ResultDoc {
         self.curve(&self.first_model())
     }
 
+    /// The knob of the model rows name `id` ([`ModelEcho::id`]); the document's knob for a
+    /// single model or an id no model has.
+    pub fn knob_of(&self, id: &str) -> &str {
+        self.models
+            .iter()
+            .find(|m| m.id() == id)
+            .map_or(self.knob.as_str(), |m| m.knob.as_str())
+    }
+
     /// The name rows give the first model: its label, else the family name.
     pub fn first_model(&self) -> String {
         self.models
@@ -1245,7 +1254,8 @@ fn paired_se(a: &Summary, ga: usize, b: &Summary, gb: usize, t: usize) -> Option
 }
 
 /// The grid index of the lowest expected loss of a summary (first on exact ties).
-fn best_index(s: &Summary) -> usize {
+/// The grid index of a cell's lowest expected loss (the first on exact ties).
+pub(crate) fn best_index(s: &Summary) -> usize {
     let el = s.index("expected_loss").unwrap_or(0);
     let mut bi = 0;
     for (g, row) in s.values.iter().enumerate() {
@@ -1610,13 +1620,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         learning: learning_curves.unwrap_or_default(),
         uncertainty: Some(uncertainty(plan, outcome)),
     };
-    if let Some(w) = heavy_tail_words(&doc, &|label| {
-        plan.models
-            .iter()
-            .find(|m| m.label == label)
-            .map_or(model.family.knob(), |m| m.family.knob())
-            .to_string()
-    }) {
+    if let Some(w) = heavy_tail_words(&doc) {
         doc.reading.push(' ');
         doc.reading.push_str(&w);
     }
@@ -1646,9 +1650,8 @@ const TAIL_TERMS: [&str; 3] = ["expected_loss", "variance", "bias_sq"];
 /// random ReLU features in few inputs, or minimum norm next to `p = n`), and its standard error is
 /// not a reliable measure of its error at this R (nor at any R when the tail has no finite
 /// variance). `None` with fewer than [`TAIL_MIN_BLOCKS`] blocks, fewer than
-/// [`TAIL_MIN_PER_BLOCK`] replicates per block, or when no row shows it. `knob_of` names a row's
-/// knob from its model label.
-pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> String) -> Option<String> {
+/// [`TAIL_MIN_PER_BLOCK`] replicates per block, or when no row shows it.
+pub fn heavy_tail_words(doc: &ResultDoc) -> Option<String> {
     let u = doc.uncertainty.as_ref()?;
     // Blocks of one or two replicates are skewed enough to trip it by chance (a stump on a
     // flat truth at R = 64 in 32 blocks, once in 30 seeds).
@@ -1702,7 +1705,7 @@ pub fn heavy_tail_words(doc: &ResultDoc, knob_of: &dyn Fn(&str) -> String) -> Op
                 .unwrap_or_default();
             hits.push(format!(
                 "{model}{} = {}{size} ({})",
-                knob_of(label),
+                doc.knob_of(label),
                 fmt_value(p.value),
                 terms.join(", ")
             ));

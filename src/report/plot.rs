@@ -1010,14 +1010,7 @@ pub fn point_view(
     // The best of the model shown (the first, at the largest size): a study's overall best may
     // be another model's value, and was looked up in this grid (a tree's "best" at depth 5 was
     // the k-NN's k = 5).
-    let el = sum.index("expected_loss").unwrap_or(0);
-    let best_g = (0..sum.values.len())
-        .min_by(|&a, &b| {
-            sum.values[a][el]
-                .total_cmp(&sum.values[b][el])
-                .then(a.cmp(&b))
-        })
-        .unwrap_or(0);
+    let best_g = super::best_index(sum);
     let mut picks: Vec<(usize, &str)> = vec![(0, "smallest")];
     if best_g != 0 {
         picks.push((best_g, "best"));

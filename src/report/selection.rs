@@ -143,17 +143,8 @@ pub fn selection(
 /// One plain sentence for the table output.
 pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
     let total: u64 = s.chosen_counts.iter().sum();
-    let mode = (0..s.chosen_counts.len()).fold(0, |b, j| {
-        if s.chosen_counts[j] > s.chosen_counts[b] {
-            j
-        } else {
-            b
-        }
-    });
-    // With several models the candidates carry their own names ("knn k = 10"); the oracle is
-    // the candidate of zero excess loss.
     // Every candidate chosen as often as the most chosen one (a tie named one of two values).
-    let top = s.chosen_counts.get(mode).copied().unwrap_or(0);
+    let top = s.chosen_counts.iter().copied().max().unwrap_or(0);
     let tied: Vec<usize> = (0..s.chosen_counts.len())
         .filter(|&j| s.chosen_counts[j] == top)
         .collect();
@@ -170,6 +161,8 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
         [rest @ .., last] => format!("{} and {last}", rest.join(", ")),
         [] => String::new(),
     };
+    // With several models the candidates carry their own names ("knn k = 10"); the oracle is
+    // the candidate of zero excess loss.
     let (chosen, oracle) = if s.candidates.is_empty() {
         (format!("{knob} = {listed}"), fmt_value(s.oracle_best))
     } else {
@@ -186,7 +179,7 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
          excess loss over the oracle: mean {}, 90% quantile {}.",
         s.folds,
         s.rule,
-        s.chosen_counts.get(mode).copied().unwrap_or(0),
+        top,
         100.0 * s.share_oracle,
         100.0 * s.share_within_one_se,
         fmt_num(s.mean_excess_loss),
