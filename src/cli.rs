@@ -131,11 +131,16 @@ pub struct TwinArgs {
     /// bandwidth (0: the rows resampled as they are).
     #[arg(long, default_value_t = crate::dgp::twin::DEFAULT_JITTER, value_name = "C")]
     pub jitter: f64,
+    /// What the jitter does to each column's variance: `table` (each jittered column is
+    /// shrunk toward its mean so it keeps the table's variance) or `added` (the plain smoothed
+    /// bootstrap: the table's variance plus the kernel's).
+    #[arg(long, default_value = "table", value_name = "HOW")]
+    pub jitter_variance: String,
     /// Evaluation points of the twin (drawn once).
     #[arg(long, default_value_t = 1000, value_name = "M")]
     pub eval_size: usize,
-    /// Reference candidate: `best` (highest cross-validated R²), `knn`, `forest`, `loclin` or
-    /// `blend`.
+    /// Reference candidate: `best` (highest cross-validated R²), `knn`, `forest`, `loclin`,
+    /// `poly` or `blend`.
     #[arg(long, default_value = "best", value_name = "NAME")]
     pub reference: String,
     /// Noise estimator: `gsjs` (one input), `plane`, `gamma` or `nn` (default: gsjs with one

@@ -17,9 +17,9 @@
 //! - functions `sin cos tan exp ln log10 sqrt abs tanh atan logistic` (one argument),
 //!   `min max` (two or more), `atan2(y, x)` and `if(cond, a, b)`.
 //!
-//! NaN handling differs from `f64` in two deliberate places so that a NaN is never silently
-//! hidden: `min`/`max` return NaN if any argument is NaN, and `if` returns NaN when its condition
-//! is NaN. Both branches of `if` are evaluated (they have no side effects).
+//! NaN handling differs from `f64` in three deliberate places so that a NaN is never silently
+//! hidden: `min`/`max` return NaN if any argument is NaN, a comparison returns NaN when either
+//! side is NaN (not 0), and `if` returns NaN when its condition is NaN. Both branches of `if` are evaluated (they have no side effects).
 
 use ndarray::{s, ArrayView2};
 
@@ -78,12 +78,12 @@ impl Bin {
             Bin::Mul => a * b,
             Bin::Div => a / b,
             Bin::Pow => a.powf(b),
-            Bin::Lt => f64::from(a < b),
-            Bin::Le => f64::from(a <= b),
-            Bin::Gt => f64::from(a > b),
-            Bin::Ge => f64::from(a >= b),
-            Bin::Eq => f64::from(a == b),
-            Bin::Ne => f64::from(a != b),
+            Bin::Lt => compare(a, b, a < b),
+            Bin::Le => compare(a, b, a <= b),
+            Bin::Gt => compare(a, b, a > b),
+            Bin::Ge => compare(a, b, a >= b),
+            Bin::Eq => compare(a, b, a == b),
+            Bin::Ne => compare(a, b, a != b),
             Bin::Min => nan_min(a, b),
             Bin::Max => nan_max(a, b),
             Bin::Atan2 => a.atan2(b),
@@ -178,6 +178,17 @@ fn function_names() -> String {
         .map(|(n, _, _)| *n)
         .collect::<Vec<_>>()
         .join(", ")
+}
+
+/// A comparison's value: 1 or 0, and NaN when either side is NaN (an `f64` comparison with NaN
+/// is simply false, which would turn `sqrt(x) > 0.5` at x < 0 into a silent 0).
+#[inline(always)]
+fn compare(a: f64, b: f64, holds: bool) -> f64 {
+    if a.is_nan() || b.is_nan() {
+        f64::NAN
+    } else {
+        f64::from(holds)
+    }
 }
 
 #[inline]
@@ -1136,6 +1147,19 @@ mod tests {
         assert!(ev("min(x, 1)", &["x"], &[f64::NAN]).is_nan());
         assert!(ev("max(1, x)", &["x"], &[f64::NAN]).is_nan());
         assert!(ev("if(x, 1, 2)", &["x"], &[f64::NAN]).is_nan());
+        for f in [
+            "(x > 0.5)",
+            "(x < 0)",
+            "(x == x)",
+            "(x != 1)",
+            "(1 <= x)",
+            "(x >= 1)",
+        ] {
+            assert!(ev(f, &["x"], &[f64::NAN]).is_nan(), "{f}");
+            assert!(ev(&format!("{f} + 1"), &["x"], &[f64::NAN]).is_nan(), "{f}");
+        }
+        assert_eq!(ev("(x > 0.5)", &["x"], &[0.7]), 1.0);
+        assert_eq!(ev("(x > 0.5)", &["x"], &[0.2]), 0.0);
         assert!(c("sqrt(-1)").is_nan());
         assert!(c("1/0").is_infinite());
         // The untaken branch's NaN does not leak.

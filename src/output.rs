@@ -101,8 +101,11 @@ impl Ident {
 /// written over it, exit 0.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Kind {
-    /// Anything (a CSV table, a checkpoint, a part): no check of what it replaces.
+    /// Anything (a checkpoint, a part): no check of what it replaces.
     Any,
+    /// A CSV table (`--csv`, `--points`): replaces anything but a lossprism JSON document (a
+    /// result, part, checkpoint or holdout ledger), which a table written over it would lose.
+    Csv,
     /// An SVG picture: replaces only a file starting `<svg`, or `<?xml` with an `<svg` soon after.
     Svg,
     /// A result or part document: replaces only a file of either format, and not a checkpoint
@@ -126,6 +129,10 @@ impl Kind {
         match self {
             Kind::Any => true,
             _ if t.is_empty() => true,
+            Kind::Csv => {
+                let compact: String = t.chars().filter(|c| !c.is_whitespace()).collect();
+                !compact.starts_with("{\"format\":\"lossprism-")
+            }
             Kind::Svg => {
                 // An XML declaration, comments and a doctype may come before the element.
                 let mut rest = t.as_str();
@@ -176,6 +183,7 @@ impl Kind {
     fn noun(self) -> &'static str {
         match self {
             Kind::Any => "a file",
+            Kind::Csv => "a file other than a lossprism result, part, checkpoint or ledger",
             Kind::Svg => "an SVG picture",
             Kind::Json => "a lossprism result or part document",
             Kind::Html => "an HTML report",
@@ -305,6 +313,8 @@ impl Outputs {
             }
         }
         let targets = self.recheck(false)?;
+        // A signal that ends the process waits for this commit (`wait_for_commit`).
+        let _gate = wait_for_commit();
         let mut tx = Transaction::default();
         match tx.run(&targets, &bytes) {
             Ok(()) => {
@@ -883,6 +893,24 @@ fn side_prefix(name: &OsStr) -> String {
     format!(".{}.", &full[..cut])
 }
 
+/// Held by every commit from its first staged file to its last rename or rollback.
+static COMMIT_GATE: std::sync::Mutex<()> = std::sync::Mutex::new(());
+
+/// Waits until no commit is in progress and keeps the next from starting while the guard
+/// lives: a signal handler takes it before ending the process, so an exit never leaves staged
+/// copies behind or lands between two renames of a multi-file output.
+pub fn wait_for_commit() -> std::sync::MutexGuard<'static, ()> {
+    COMMIT_GATE.lock().unwrap_or_else(|e| e.into_inner())
+}
+
+/// Whether a commit is writing right now (the gate of [`wait_for_commit`] is held).
+pub fn commit_in_progress() -> bool {
+    matches!(
+        COMMIT_GATE.try_lock(),
+        Err(std::sync::TryLockError::WouldBlock)
+    )
+}
+
 /// Removes the staged copies (`.NAME.PID.N.tmp`) that a process killed while writing `path`
 /// left beside it (a SIGKILL during a checkpoint's rewrite left a 51 MB `.ck.json.31421.12.tmp`
 /// that no later run removed). Only files of processes that no longer run are removed (Linux:
@@ -943,10 +971,12 @@ struct Transaction {
 
 impl Transaction {
     fn run(&mut self, targets: &[Target], bytes: &[Vec<u8>]) -> Result<(), Error> {
-        // 1. Stage every regular-file output; nothing visible changes.
+        // 1. Stage every regular-file output; nothing visible changes. Staged copies that a
+        // killed earlier process left beside an output go first (tidying).
         let mut staged = Vec::new();
         for (t, b) in targets.iter().zip(bytes) {
             if let Place::Staged(path) = &t.place {
+                remove_stale_staging(path);
                 staged.push((t, path, self.stage(t, path, b)?));
             }
         }
@@ -1452,11 +1482,25 @@ mod tests {
     #[test]
     fn each_kind_replaces_only_its_own_files() {
         let ok = |k: Kind, head: &str| k.accepts(head.as_bytes());
-        for k in [Kind::Any, Kind::Svg, Kind::Json, Kind::Html] {
+        for k in [Kind::Any, Kind::Csv, Kind::Svg, Kind::Json, Kind::Html] {
             assert!(ok(k, ""), "{k:?}: an empty file");
             assert!(ok(k, " \n\t"), "{k:?}: whitespace");
         }
         assert!(ok(Kind::Any, "name = \"s\"\n[data]"));
+        // A CSV output replaces an older table or any other file, never a lossprism document
+        // (a checkpoint, a result or a ledger would be lost under a table).
+        assert!(ok(
+            Kind::Csv,
+            "family,max_depth,expected_loss\ntree,1,0.5\n"
+        ));
+        assert!(ok(Kind::Csv, "{\"hello\": 1}"));
+        for doc in [
+            "{\"format\":\"lossprism-part/2\",\"checkpoint\":true}",
+            "{\n  \"format\": \"lossprism-result/3\"",
+            "{\"format\":\"lossprism-holdout-ledger/1\"}",
+        ] {
+            assert!(!ok(Kind::Csv, doc), "{doc}");
+        }
         assert!(ok(Kind::Svg, "<svg width=\"9\">"));
         assert!(ok(Kind::Svg, "\u{feff}<?xml version=\"1.0\"?>\n<svg>"));
         assert!(!ok(Kind::Svg, "<?xml version=\"1.0\"?>\n<project>"));

@@ -120,46 +120,66 @@ pub fn install_interrupt(mode: OnInterrupt) {
     // SIGHUP that was ignored at start (`nohup`) stays ignored, or a closed terminal would stop
     // a run started to outlive it.
     let hup_ignored = hangup::ignored();
-    let installed = ctrlc::set_handler(move || match &mode {
-        OnInterrupt::ExitNow {
-            checkpoint: Some(ck),
-        } => {
-            noteln!(
-                "\ninterrupted: the finished blocks are saved in {}; rerun the same command to \
-                 resume",
-                crate::error::shown(ck)
-            );
-            std::process::exit(130);
-        }
-        OnInterrupt::ExitNow { checkpoint: None } => {
-            if WRITING.load(Ordering::SeqCst) {
-                // Once: a second signal while writing ends the process like any other.
-                if !INTERRUPTED.swap(true, Ordering::SeqCst) {
+    let installed = ctrlc::set_handler(move || {
+        // Every way out waits for a commit in progress (staging, renames, tidying: moments),
+        // so a signal never leaves staged copies behind or half of a multi-file output.
+        // External estimators started by the run end with it (they would otherwise run on
+        // until their current fit ends when only lossprism was signalled).
+        let exit = || -> ! {
+            let _gate = crate::output::wait_for_commit();
+            crate::family::external::kill_running();
+            std::process::exit(130)
+        };
+        match &mode {
+            OnInterrupt::ExitNow {
+                checkpoint: Some(ck),
+            } => {
+                noteln!(
+                    "\ninterrupted: the finished blocks are saved in {}; rerun the same command \
+                     to resume",
+                    crate::error::shown(ck)
+                );
+                exit();
+            }
+            OnInterrupt::ExitNow { checkpoint: None } => {
+                if WRITING.load(Ordering::SeqCst) || crate::output::commit_in_progress() {
+                    // Once: a second signal while writing ends the process like any other.
+                    if !INTERRUPTED.swap(true, Ordering::SeqCst) {
+                        noteln!(
+                            "\ninterrupt: finishing the outputs being written (again to stop now)"
+                        );
+                        return;
+                    }
+                    noteln!(
+                        "\ninterrupted again: stopping once the outputs being written are whole \
+                         (all of them or none)"
+                    );
+                    exit();
+                }
+                noteln!("\ninterrupted: nothing written");
+                exit();
+            }
+            OnInterrupt::FinishBlocks { checkpoint } => {
+                if INTERRUPTED.swap(true, Ordering::SeqCst) {
+                    match checkpoint {
+                        Some(ck) => noteln!(
+                            "\ninterrupted twice: stopping now; the finished blocks are saved in \
+                             {}; rerun the same command to resume",
+                            crate::error::shown(ck)
+                        ),
+                        None => noteln!("\ninterrupted twice: stopping now, nothing written"),
+                    }
+                    exit();
+                }
+                if WRITING.load(Ordering::SeqCst) || crate::output::commit_in_progress() {
                     noteln!("\ninterrupt: finishing the outputs being written (again to stop now)");
-                    return;
+                } else {
+                    noteln!(
+                        "\ninterrupt: finishing the blocks in flight, then stopping (Ctrl-C again \
+                         to stop now)"
+                    );
                 }
-                noteln!("\ninterrupted while writing: outputs may be incomplete");
-                std::process::exit(130);
             }
-            noteln!("\ninterrupted: nothing written");
-            std::process::exit(130);
-        }
-        OnInterrupt::FinishBlocks { checkpoint } => {
-            if INTERRUPTED.swap(true, Ordering::SeqCst) {
-                match checkpoint {
-                    Some(ck) => noteln!(
-                        "\ninterrupted twice: stopping now; the finished blocks are saved in {}; \
-                         rerun the same command to resume",
-                        crate::error::shown(ck)
-                    ),
-                    None => noteln!("\ninterrupted twice: stopping now, nothing written"),
-                }
-                std::process::exit(130);
-            }
-            noteln!(
-                "\ninterrupt: finishing the blocks in flight, then stopping (Ctrl-C again to \
-                 stop now)"
-            );
         }
     });
     if installed.is_ok() && hup_ignored {

@@ -30,6 +30,40 @@ const VERSION: &str = env!("CARGO_PKG_VERSION");
 /// Largest part or checkpoint file read (larger files are refused before reading).
 pub const MAX_PART_BYTES: u64 = 4 << 30;
 
+/// Bytes of a part or checkpoint file per byte of the accumulators it holds: the arrays are
+/// written as base64 (4 characters per 3 bytes); measured: 85 336 100 bytes for 64 MB of
+/// accumulators (2 blocks × 40 grid values × 50 000 points), 4/3 of them to 0.01%.
+const DOCUMENT_BYTES_PER_ACCUMULATOR_BYTE: f64 = 4.0 / 3.0;
+
+/// Refuses, before any work, a run whose part or checkpoint file would be larger than
+/// [`MAX_PART_BYTES`], the most that is read back (the file would be written at the end of a
+/// long run and then refused by `merge` or on resume). Says how many shards keep each part
+/// under the limit.
+pub fn check_document_size(plan: &Plan, shard: Option<ShardSpec>, flag: &str) -> Result<(), Error> {
+    let blocks = job_blocks(plan, shard)?;
+    let share = (blocks.end - blocks.start) as f64 / plan.blocks.max(1) as f64;
+    let bytes = DOCUMENT_BYTES_PER_ACCUMULATOR_BYTE * share * plan.accumulator_bytes()
+        + (1u64 << 20) as f64;
+    if bytes <= MAX_PART_BYTES as f64 {
+        return Ok(());
+    }
+    let whole = DOCUMENT_BYTES_PER_ACCUMULATOR_BYTE * plan.accumulator_bytes();
+    let shards = (whole / (MAX_PART_BYTES as f64 * 0.95)).ceil().max(2.0) as u64;
+    let gib = |b: f64| b / (1u64 << 30) as f64;
+    let split = if shards <= plan.blocks {
+        format!("run it as {shards} or more shards (`--shard I/{shards}`, each with its own checkpoint)")
+    } else {
+        "raise `blocks` and run it as more shards".to_string()
+    };
+    Err(Error::Usage(format!(
+        "{flag}: the file would hold about {:.1} GiB of encoded accumulators, more than the {} \
+         GiB lossprism reads back (it would be refused by `merge` or on resume); {split}, or \
+         lower `eval_size` or the grid",
+        gib(bytes),
+        MAX_PART_BYTES >> 30
+    )))
+}
+
 /// A shard of a run: `index` of `count`, 1-based (`--shard 2/8`, as in `sbatch --array=1-8`).
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct ShardSpec {
@@ -611,13 +645,7 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
     } else if a.loss != b.loss {
         format!("loss {} vs {}", a.loss, b.loss)
     } else if a.grids != b.grids {
-        let words = |g: &[Vec<String>]| {
-            g.iter()
-                .map(|grid| grid_words(grid))
-                .collect::<Vec<_>>()
-                .join(" and ")
-        };
-        format!("grid {} vs {}", words(&a.grids), words(&b.grids))
+        grids_difference(&a.grids, &b.grids)
     } else if a.seed != b.seed {
         format!("seed {} vs {}", a.seed, b.seed)
     } else if a.eval_seed != b.eval_seed {
@@ -634,10 +662,50 @@ pub fn difference(a: &PartDoc, b: &PartDoc) -> String {
     } else if without_scripts(&a.fingerprint) == without_scripts(&b.fingerprint) {
         "an external estimator's script differs between them (its content)".into()
     } else if a.fingerprint != b.fingerprint {
-        format!("fingerprint {} vs {}", a.fingerprint, b.fingerprint)
+        format!(
+            "the data the scenario reads differ: a table, a twin's table or an external \
+             estimator's files changed (fingerprint {} vs {})",
+            a.fingerprint, b.fingerprint
+        )
     } else {
         String::new()
     }
+}
+
+/// How two runs' grids differ, briefly: the whole grids when both are short, else the first
+/// model whose grid differs, its sizes or its first differing value (a 10 000-value grid
+/// printed whole made a 157 535-character message).
+fn grids_difference(a: &[Vec<String>], b: &[Vec<String>]) -> String {
+    const SHORT: usize = 12;
+    let total = |g: &[Vec<String>]| g.iter().map(Vec::len).sum::<usize>();
+    if total(a) <= SHORT && total(b) <= SHORT {
+        let words = |g: &[Vec<String>]| {
+            g.iter()
+                .map(|grid| grid_words(grid))
+                .collect::<Vec<_>>()
+                .join(" and ")
+        };
+        return format!("grid {} vs {}", words(a), words(b));
+    }
+    if a.len() != b.len() {
+        return format!("{} model grids vs {}", a.len(), b.len());
+    }
+    for (i, (ga, gb)) in a.iter().zip(b).enumerate() {
+        if ga.len() != gb.len() {
+            return format!("model {} grid: {} values vs {}", i + 1, ga.len(), gb.len());
+        }
+        if let Some(k) = (0..ga.len()).find(|&k| ga[k] != gb[k]) {
+            let v = |h: &String| grid_words(std::slice::from_ref(h));
+            return format!(
+                "model {} grid: value {} is {} vs {}",
+                i + 1,
+                k + 1,
+                v(&ga[k]),
+                v(&gb[k])
+            );
+        }
+    }
+    String::new()
 }
 
 fn grid_words(hex: &[String]) -> String {
@@ -750,18 +818,21 @@ fn load_checkpoint(
     }
     let shown = path.display();
     let fix = "delete it or choose another file";
+    // A file that is not a checkpoint (a result, a part, a user's file) is never to be deleted
+    // on lossprism's word.
+    let other = "it is not a checkpoint, so lossprism leaves it alone: choose another file";
     let doc = read_part(path).map_err(|e| {
         // The damaged-checksum message already says what to do.
         let e = e.to_string();
         if e.contains("delete the checkpoint") {
             Error::Usage(format!("checkpoint {e}"))
         } else {
-            Error::Usage(format!("checkpoint {e}; {fix}"))
+            Error::Usage(format!("checkpoint {e}; {other}"))
         }
     })?;
     if !doc.checkpoint {
         return Err(Error::Usage(format!(
-            "checkpoint {shown} is a finished shard part, not a checkpoint; {fix}"
+            "checkpoint {shown} is a finished shard part; {other}"
         )));
     }
     let here = part_doc(

@@ -324,6 +324,36 @@ impl Case {
 fn scenario_cases(t: &mut Table) {
     let g = "scenario";
     let v = "validate";
+    // A comparison with NaN read as 0: half of U[-1, 1] silently got 0 for `sqrt(x) > 0.5`.
+    t.scenario(
+        g,
+        "a comparison of NaN in the truth",
+        &sc(
+            "uniform = [0.0, 1.0]\n\n[data.truth]\nformula = \"x\"",
+            "uniform = [-1.0, 1.0]\n\n[data.truth]\nformula = \"(sqrt(x) > 0.5) + 1\"",
+        ),
+        v,
+        "NaN",
+    );
+    // A subnormal inverse penalty passed `validate`, then every fit failed.
+    t.scenario(
+        g,
+        "a subnormal logistic inverse_penalty",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n\n[model]\nfamily = \"tree\"\ngrid = [1, 2]",
+            "[data.classes]\nlabels = [\"a\", \"b\"]\nprobability = \"0.2 + 0.6*x\"\n\n[model]\nfamily = \"logistic\"\ngrid = [5e-324]",
+        ),
+        v,
+        "inverse_penalty",
+    );
+    // A `[data.noise]` without sd was reported at the `source` line.
+    t.scenario(
+        g,
+        "noise without sd names its own line",
+        &sc("[data.noise]\nsd = 1.0", "[data.noise]\ndf = 5"),
+        v,
+        "s.toml:18: key `data.noise`",
+    );
     t.scenario(
         g,
         "duplicates in a synthetic source",
@@ -3544,6 +3574,44 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
 fn output_clash_cases(t: &mut Table, docs: &Docs) {
     let g = "output=input";
     let good = good_csv();
+    // A checkpoint at a table scenario's ledger path (no holdout yet) was written there, and a
+    // later `--assess` then failed on it.
+    let tab = table_scenario("", TREE);
+    t.add(
+        g,
+        "run --checkpoint at the ledger path",
+        &[("t.csv", good.as_bytes()), ("s.toml", tab.as_bytes())],
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "s.holdout-ledger.json",
+            "-q",
+        ],
+        "holdout ledger",
+    );
+    // A CSV output replaced another run's checkpoint (and a result, a ledger).
+    for (what, doc, needle) in [
+        (
+            "checkpoint",
+            &docs.checkpoint,
+            "not a file other than a lossprism result, part, checkpoint or ledger",
+        ),
+        (
+            "result",
+            &docs.result,
+            "not a file other than a lossprism result, part, checkpoint or ledger",
+        ),
+        ("ledger", &docs.ledger, "is a holdout ledger"),
+    ] {
+        t.add(
+            g,
+            format!("run --csv over a {what}"),
+            &[("s.toml", BASE.as_bytes()), ("keep.json", doc.as_slice())],
+            &["run", "s.toml", "--csv", "keep.json", "-q"],
+            needle,
+        );
+    }
     t.add(
         g,
         "twin --out the table",

@@ -670,8 +670,11 @@ fn a_stale_checkpoint_from_another_seed_is_refused_and_left_alone() {
     // a file that is not a checkpoint at all
     fs::write(d.join("junk.json"), "{\"hello\": 1}").unwrap();
     let msg = refused(d, &["run", "s.toml", "--checkpoint", "junk.json", "-q"]);
+    // lossprism never tells the user to delete a file that is not its checkpoint.
     assert!(
-        msg.contains("junk.json") && msg.contains("delete it"),
+        msg.contains("junk.json")
+            && msg.contains("not a checkpoint, so lossprism leaves it alone")
+            && !msg.contains("delete"),
         "{msg}"
     );
 }

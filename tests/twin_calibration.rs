@@ -564,6 +564,9 @@ fn study_table(
             .ok()
             .map(|v| v.parse().expect("LOSSPRISM_CALIB_SHARPEN is a number"))
             .unwrap_or(dgp_twin::SHARPEN),
+        // `LOSSPRISM_CALIB_JITTER_VARIANCE=added` jitters as the plain smoothed bootstrap
+        // (`twin --jitter-variance added`, the twin before §0.8).
+        keep_variance: std::env::var("LOSSPRISM_CALIB_JITTER_VARIANCE").as_deref() != Ok("added"),
         ..Default::default()
     };
     twin_cmd::command(&o).expect("twin");

@@ -66,8 +66,8 @@ impl Outputs2<'_> {
         let mut ids = [None; 7];
         for (i, (flag, p, kind)) in [
             ("--out", self.out, Kind::Json),
-            ("--csv", self.csv, Kind::Any),
-            ("--points", self.points, Kind::Any),
+            ("--csv", self.csv, Kind::Csv),
+            ("--points", self.points, Kind::Csv),
             ("--plot", self.plot, Kind::Svg),
             ("--plot-points", self.plot_points, Kind::Svg),
             ("--report", self.report, Kind::Html),
@@ -323,16 +323,18 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     }
     // Every path is checked before any work.
     let mut set = Outputs::new();
+    // The holdout ledger counts the looks at the holdout: replacing it would reset the count
+    // and lose the warning. Protected for every table scenario (a checkpoint written there
+    // before any holdout existed made a later `--assess` fail) and wherever a ledger is.
+    let ledger = args.scenario.as_ref().and_then(|p| {
+        let ledger = assess::ledger_path(p);
+        (matches!(&plan.source, Source::Table(_)) || ledger.exists()).then_some(ledger)
+    });
     if let Some(p) = &args.scenario {
         set.input("the scenario file", p);
-        // The holdout ledger counts the looks at the holdout: replacing it would reset the
-        // count and lose the warning. (Protected when the scenario locks a holdout, or when a
-        // ledger is already there.)
-        let ledger = assess::ledger_path(p);
-        let holdout = matches!(&plan.source, Source::Table(t) if !t.holdout.is_empty());
-        if holdout || ledger.exists() {
-            set.input("the scenario's holdout ledger", &ledger);
-        }
+    }
+    if let Some(l) = &ledger {
+        set.input("the scenario's holdout ledger", l);
     }
     for (role, p) in data_inputs(&plan) {
         set.input(role, &p);
@@ -359,6 +361,9 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         if let Some(p) = &args.scenario {
             inputs.push(("the scenario file", p));
         }
+        if let Some(l) = &ledger {
+            inputs.push(("the scenario's holdout ledger", l));
+        }
         let data = data_inputs(&plan);
         for (role, p) in &data {
             inputs.push((role, p));
@@ -382,6 +387,14 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
     let checkpointed = args.shard.is_some() || args.checkpoint.is_some();
+    if checkpointed {
+        let flag = if args.checkpoint.is_some() {
+            "--checkpoint"
+        } else {
+            "--shard"
+        };
+        shard::check_document_size(&plan, args.shard, flag)?;
+    }
     // Without a checkpoint or a part nothing keeps the blocks in flight, so a signal ends the
     // run at once (it waited for them, 49 s on a large run, then threw them away; a batch
     // system's SIGKILL can come first).
@@ -483,6 +496,23 @@ fn run_in_blocks(
         }
         shard::Finish::Done(done) => done,
     };
+    // A signal after the last block (the summary of a large run takes a while): stop as the
+    // signal asks, with every block kept in the checkpoint, instead of writing and exiting 0.
+    let stop_after_blocks = |what: &str| -> u8 {
+        let kept = match &args.checkpoint {
+            Some(p) => format!(
+                "the checkpoint {} holds every block: rerun the same command to write the outputs \
+                 without computing again",
+                crate::error::shown(p)
+            ),
+            None => "nothing was written: rerun to start again".into(),
+        };
+        noteln!("interrupted {what}; {kept}");
+        130
+    };
+    if progress::interrupted() {
+        return Ok(stop_after_blocks("after the last block"));
+    }
     if done.resumed > 0 && !args.quiet {
         if let Some(ck) = &args.checkpoint {
             noteln!(
@@ -493,6 +523,7 @@ fn run_in_blocks(
         }
     }
     if let Some(s) = args.shard {
+        progress::writing_outputs();
         let doc = shard::part_doc(
             plan,
             source,
@@ -520,6 +551,10 @@ fn run_in_blocks(
         return Ok(0);
     }
     let outcome = shard::outcome(plan, *done, args.threads)?;
+    if progress::interrupted() {
+        return Ok(stop_after_blocks("while the summary was computed"));
+    }
+    progress::writing_outputs();
     emit(plan, &outcome, &o, set, ids)
 }
 
@@ -532,6 +567,9 @@ fn job_block_count(plan: &Plan, shard: Option<shard::ShardSpec>) -> u64 {
 
 /// `lossprism merge`.
 pub fn merge(args: MergeArgs) -> Result<u8, Error> {
+    // A signal ends the command at once, but never in the middle of writing its outputs
+    // (they are written whole or not at all, and no staged copy is left behind).
+    progress::install_interrupt(progress::OnInterrupt::ExitNow { checkpoint: None });
     // The HTML report's wall time is the merge's own, labelled so.
     let started = std::time::Instant::now();
     let parts: Vec<(&str, &Path)> = args
@@ -597,6 +635,9 @@ fn refuse_custom(plan: &Plan) -> Result<(), Error> {
 
 /// `lossprism check`: compare a result with a baseline; exit 0 nothing worse, 1 something worse.
 pub fn check(args: CheckArgs) -> Result<u8, Error> {
+    // A signal ends the command at once, but never in the middle of writing its outputs
+    // (they are written whole or not at all, and no staged copy is left behind).
+    progress::install_interrupt(progress::OnInterrupt::ExitNow { checkpoint: None });
     use crate::check;
     let opts = check::CheckOptions {
         sigma: args.sigma,
@@ -782,6 +823,9 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
 
 /// `lossprism plot`: the curve picture (and the selection histogram) of a saved result document.
 pub fn plot(args: PlotArgs) -> Result<u8, Error> {
+    // A signal ends the command at once, but never in the middle of writing its outputs
+    // (they are written whole or not at all, and no staged copy is left behind).
+    progress::install_interrupt(progress::OnInterrupt::ExitNow { checkpoint: None });
     crate::output::guard_inputs(&[("the result document", &args.result)])?;
     let name = crate::error::shown(&args.result);
     let mut set = Outputs::new();
@@ -1065,7 +1109,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         "best" => Rule::Best,
         other => Rule::Only(Candidate::from_name(other).ok_or_else(|| {
             Error::Usage(format!(
-                "--reference: unknown `{other}`; expected best, knn, forest, loclin or blend"
+                "--reference: unknown `{other}`; expected best, knn, forest, loclin, poly or blend"
             ))
         })?),
     };
@@ -1121,6 +1165,16 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             if a.classes { "--classes" } else { "--varying" }
         )));
     }
+    let keep_variance = match a.jitter_variance.as_str() {
+        "table" => true,
+        "added" => false,
+        other => {
+            return Err(Error::Usage(format!(
+                "--jitter-variance: unknown `{}`; expected table or added",
+                crate::fmt::clip(other, 40)
+            )))
+        }
+    };
     if a.classes {
         // A classification twin is k-NN shares over the rows resampled as they are: these
         // options have nothing to act on, and were silently ignored.
@@ -1132,6 +1186,8 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--reference")
         } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER {
             Some("--jitter")
+        } else if a.jitter_variance != "table" {
+            Some("--jitter-variance")
         } else if a.sharpen != crate::dgp::twin::SHARPEN {
             Some("--sharpen")
         } else {
@@ -1163,6 +1219,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         varying: a.varying,
         noise_shape,
         jitter: a.jitter,
+        keep_variance,
         eval_size: a.eval_size,
         reference,
         noise_estimator,

@@ -113,6 +113,9 @@ pub struct TwinOptions {
     pub noise_shape: ShapeChoice,
     /// The smoothed bootstrap's multiplier c on Silverman's rule (0: rows as they are).
     pub jitter: f64,
+    /// Shrink each jittered column toward its mean so it keeps the table's variance
+    /// ([`Jitter::fit_keeping`]; written as `jitter_variance = "table"`).
+    pub keep_variance: bool,
     /// Evaluation points of the twin (drawn once).
     pub eval_size: usize,
     /// Which reference candidates may be chosen.
@@ -151,6 +154,7 @@ impl Default for TwinOptions {
             varying: false,
             noise_shape: ShapeChoice::Gaussian,
             jitter: twin::DEFAULT_JITTER,
+            keep_variance: true,
             eval_size: twin::EVAL_SIZE,
             reference: Rule::Best,
             noise_estimator: None,
@@ -252,6 +256,9 @@ pub fn reference_line(c: &Choice) -> String {
     if let Some(h) = c.bandwidth {
         parts.push(format!("bandwidth = {}", toml_f64(h)));
     }
+    if let Some(d) = c.degree {
+        parts.push(format!("degree = {d}"));
+    }
     if c.twice {
         parts.push("twice = true".into());
     }
@@ -259,15 +266,22 @@ pub fn reference_line(c: &Choice) -> String {
         parts.push(format!("metric = {}", toml_list(w)));
     }
     if c.family == Candidate::Blend {
+        // The polynomial's weight only when it has one: a blend of the first three reads as
+        // it did before the polynomial part.
+        let poly = if c.weights[3] > 0.0 {
+            format!(", poly = {}", toml_f64(c.weights[3]))
+        } else {
+            String::new()
+        };
         parts.push(format!(
-            "weights = {{ knn = {}, forest = {}, loclin = {} }}",
+            "weights = {{ knn = {}, forest = {}, loclin = {}{poly} }}",
             toml_f64(c.weights[0]),
             toml_f64(c.weights[1]),
             toml_f64(c.weights[2])
         ));
     }
     if let Some(r2) = c.cv_r2 {
-        let names = ["knn", "forest", "loclin", "blend"];
+        let names = ["knn", "forest", "loclin", "poly", "blend"];
         let items: Vec<String> = names
             .iter()
             .zip(r2)
@@ -383,6 +397,10 @@ fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionTe
     if o.jitter > 0.0 {
         s.push_str(&format!("eval_size = {}\n", o.eval_size));
         s.push_str(&format!("jitter = {}\n", toml_f64(o.jitter)));
+        s.push_str(&format!(
+            "jitter_variance = \"{}\"\n",
+            if o.keep_variance { "table" } else { "added" }
+        ));
     } else if o.eval_size != t.rows() {
         s.push_str(&format!("eval_size = {}\n", o.eval_size));
     }
@@ -544,7 +562,23 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
         "chosen: {} ({}){}; `run` refits it on the table from `reference`.",
         once.describe(),
         match rule {
-            Rule::Best => "highest cross-validated R²".to_string(),
+            Rule::Best => {
+                let r2_of = |c: Candidate| {
+                    sel.scores
+                        .iter()
+                        .find(|sc| sc.candidate == c)
+                        .map_or(f64::NAN, |sc| sc.r2)
+                };
+                if once.family != Candidate::Poly
+                    && r2_of(Candidate::Poly) > r2_of(once.family)
+                {
+                    "highest cross-validated R² but the polynomial's, which did not clear its bar \
+                     (above)"
+                        .to_string()
+                } else {
+                    "highest cross-validated R²".to_string()
+                }
+            }
             Rule::Only(c) if c == once.family => {
                 format!("`--reference {}` asked for it", c.name())
             }
@@ -555,6 +589,7 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
                     Candidate::Knn => "k-NN reference",
                     Candidate::Forest => "bagged-tree reference",
                     Candidate::LocLin => "local-linear reference",
+                    Candidate::Poly => "polynomial reference",
                     Candidate::Blend => "blend",
                 }
             ),
@@ -612,9 +647,14 @@ fn inputs_line(t: &Table, jitter: Option<&Jitter>, eval_size: usize) -> String {
                 .map(|(n, _)| n.as_str())
                 .collect();
             format!(
-                "Inputs: smoothed bootstrap of the {} rows (a row drawn with replacement plus Gaussian jitter, Silverman's rule × {}, reflected into the observed range): jittered {}{}; {} evaluation points drawn once from the same law.",
+                "Inputs: smoothed bootstrap of the {} rows (a row drawn with replacement plus Gaussian jitter, Silverman's rule × {}, reflected into the observed range{}): jittered {}{}; {} evaluation points drawn once from the same law.",
                 t.rows(),
                 j.scale,
+                if j.keeps_variance() {
+                    ", then shrunk toward the column's mean so it keeps the table's variance"
+                } else {
+                    ""
+                },
                 shaken.join(", "),
                 if kept.is_empty() {
                     String::new()
@@ -982,6 +1022,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
     let spec = TwinSpec {
         choice: fit.selection.choice.clone(),
         jitter: o.jitter,
+        keep_variance: o.keep_variance,
         noise: Some(noise),
         shape: o.noise_shape,
         train_size: t.rows(),
@@ -1543,7 +1584,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                     "note: the local-linear candidate is not tried on a table of {why}; the blend stands in\n"
                 ));
             }
-            let jitter = (o.jitter > 0.0).then(|| Jitter::fit(t.x.view(), o.jitter));
+            let jitter = (o.jitter > 0.0)
+                .then(|| Jitter::fit_keeping(t.x.view(), o.jitter, o.keep_variance));
             let yv = t.y.to_vec();
             let vf = varying_fit(&t, &fit).ok();
             let spread = spread_line(o, &t, vf.as_ref());

@@ -270,6 +270,29 @@ struct Worker {
     killed_by_us: bool,
 }
 
+/// Process ids of the external processes started and not yet reaped, so that a signal that
+/// ends lossprism at once can end them too ([`kill_running`]). An id leaves the list as soon as
+/// its process is reaped, before the id can be reused.
+static RUNNING: Mutex<Vec<u32>> = Mutex::new(Vec::new());
+
+fn running() -> std::sync::MutexGuard<'static, Vec<u32>> {
+    RUNNING.lock().unwrap_or_else(|e| e.into_inner())
+}
+
+/// Kills every external process still running (SIGKILL; Unix only). A signal handler calls it
+/// before ending lossprism at once: a process that only lossprism was signalled would otherwise
+/// outlive it until its current fit ends (`docs/external-protocol.md`: none outlives the run).
+pub fn kill_running() {
+    #[cfg(unix)]
+    for &pid in running().iter() {
+        // SAFETY: kill(2) with a process id this process started and has not reaped (so the
+        // id still names that child); no memory is touched.
+        unsafe {
+            libc::kill(pid as libc::pid_t, libc::SIGKILL);
+        }
+    }
+}
+
 impl Worker {
     /// Kills the process (if still running) and reaps it.
     fn kill(&mut self) {
@@ -277,6 +300,24 @@ impl Worker {
         self.killed_by_us = true;
         let _ = self.child.kill();
         let _ = self.child.wait();
+        self.forget();
+    }
+
+    /// Takes the process off [`RUNNING`] (it was reaped).
+    fn forget(&self) {
+        let pid = self.child.id();
+        running().retain(|p| *p != pid);
+    }
+
+    /// `try_wait`, taking a reaped process off [`RUNNING`].
+    fn try_reap(&mut self) -> Option<std::process::ExitStatus> {
+        match self.child.try_wait() {
+            Ok(Some(st)) => {
+                self.forget();
+                Some(st)
+            }
+            _ => None,
+        }
     }
 
     /// Closes standard input, gives the process half a second to exit, then kills it.
@@ -284,7 +325,10 @@ impl Worker {
         self.requests = None;
         for _ in 0..50 {
             match self.child.try_wait() {
-                Ok(Some(_)) => return,
+                Ok(Some(_)) => {
+                    self.forget();
+                    return;
+                }
                 Ok(None) => std::thread::sleep(Duration::from_millis(10)),
                 Err(_) => break,
             }
@@ -443,7 +487,7 @@ impl ExternalFamily {
         }
         // The half second is over for every process: reap those that exited, kill the rest.
         for w in &mut workers {
-            if !matches!(w.child.try_wait(), Ok(Some(_))) {
+            if w.try_reap().is_none() {
                 w.kill();
             }
         }
@@ -505,6 +549,7 @@ impl ExternalFamily {
                     return Err(format!("cannot connect to {}", self.who()));
                 }
             };
+        running().push(child.id());
         let (req_tx, req_rx) = mpsc::channel::<Vec<u8>>();
         std::thread::spawn(move || write_loop(stdin, req_rx));
         let (line_tx, line_rx) = mpsc::channel::<Line>();
@@ -557,7 +602,7 @@ impl ExternalFamily {
         // Did it end by itself? Give it a moment to exit after closing its output.
         let mut exited = None;
         for _ in 0..20 {
-            if let Ok(Some(st)) = w.child.try_wait() {
+            if let Some(st) = w.try_reap() {
                 exited = Some(st);
                 break;
             }

@@ -129,7 +129,8 @@ impl Family for LogisticFamily {
     fn check_grid(&self, grid: &[f64], n_train: usize, _n_inputs: usize) -> Result<(), String> {
         if let Some(c) = bad_c(grid) {
             return Err(format!(
-                "inverse_penalty must be finite and > 0, got {}",
+                "inverse_penalty must be finite and at least 2.2250738585072014e-308 (the \
+                 smallest normal number; below it the penalty 1/C overflows), got {}",
                 crate::fmt::fmt_exact(c)
             ));
         }
@@ -220,8 +221,13 @@ fn prefix(e: FitError) -> FitError {
 }
 
 /// First grid value that is not a finite positive number.
+/// The first grid value that is not a usable inverse penalty: not finite, not above 0, or
+/// subnormal (below `f64::MIN_POSITIVE`, where the penalty 1/C overflows to infinity and the
+/// objective to NaN; 5e-324 passed `validate` and failed every fit).
 fn bad_c(grid: &[f64]) -> Option<f64> {
-    grid.iter().copied().find(|c| !c.is_finite() || *c <= 0.0)
+    grid.iter()
+        .copied()
+        .find(|c| !c.is_finite() || *c < f64::MIN_POSITIVE)
 }
 
 /// What the training labels call for.

@@ -187,6 +187,141 @@ impl Family for PolyFamily {
     }
 }
 
+/// A polynomial least-squares fit of one degree, kept for predictions at any rows (a twin's
+/// reference part, [`crate::dgp::reference`]): the same basis, scaling and dropping of
+/// dependent columns as the family, so its predictions at a query are those the family gives
+/// for that degree.
+#[derive(Debug, Clone)]
+pub struct PolyFit {
+    degree: usize,
+    scaler: Scaler,
+    exps: Vec<Vec<u8>>,
+    used: Vec<usize>,
+    coef: Vec<f64>,
+}
+
+impl PolyFit {
+    /// Fits total degree `degree` on rows `x` and responses `y` (finite; as many basis columns
+    /// as rows at most).
+    pub fn fit(x: ArrayView2<'_, f64>, y: &[f64], degree: usize) -> Result<PolyFit, String> {
+        let (n, p) = x.dim();
+        if degree > MAX_DEGREE {
+            return Err(format!("degree = {degree} is above {MAX_DEGREE}"));
+        }
+        let cols = match n_basis(p, degree) {
+            Some(c) if c <= n && y.len() == n => c,
+            _ => {
+                return Err(format!(
+                    "degree = {degree} needs more coefficients than the {n} rows"
+                ))
+            }
+        };
+        let exps = graded_exponents(p, degree);
+        let scaler = Scaler::from_training(x);
+        let mut design = basis_matrix(x, &scaler, &exps, degree);
+        let mut qty = y.to_vec();
+        let qr = HouseholderQr::factor(&mut design, n, cols, Some(DROP_RTOL));
+        qr.apply_qt(&mut qty);
+        let mut coef = Vec::with_capacity(cols);
+        let used = qr.solve_leading(&design, &qty, cols, &mut coef);
+        if coef.iter().any(|c| !c.is_finite()) {
+            return Err(format!("degree = {degree} gave a non-finite coefficient"));
+        }
+        Ok(PolyFit {
+            degree,
+            scaler,
+            exps,
+            used,
+            coef,
+        })
+    }
+
+    /// The fitted polynomial at every row of `x`.
+    pub fn predict(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
+        let m = x.nrows();
+        let basis = basis_matrix(x, &self.scaler, &self.exps, self.degree);
+        (0..m)
+            .map(|e| {
+                self.used
+                    .iter()
+                    .zip(&self.coef)
+                    .map(|(&j, &b)| b * basis[j * m + e])
+                    .sum()
+            })
+            .collect()
+    }
+}
+
+/// Out-of-fold predictions of polynomial least squares at every degree of `degrees`
+/// (ascending), one path fit per fold (`fold[i]` in `0..folds`): `out[g][i]` is row i's
+/// prediction by degree `degrees[g]` fitted on the other folds. A degree with more basis
+/// columns than some fold's training rows is left out (`None`).
+pub fn out_of_fold(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    fold: &[usize],
+    folds: usize,
+    degrees: &[usize],
+) -> Vec<Option<Vec<f64>>> {
+    let (n, p) = x.dim();
+    let smallest = (0..folds)
+        .map(|f| fold.iter().filter(|&&g| g != f).count())
+        .min()
+        .unwrap_or(0);
+    let ok: Vec<usize> = degrees
+        .iter()
+        .copied()
+        .filter(|&d| n_basis(p, d).is_some_and(|c| c <= smallest))
+        .collect();
+    let mut out: Vec<Option<Vec<f64>>> = degrees
+        .iter()
+        .map(|d| ok.contains(d).then(|| vec![0.0; n]))
+        .collect();
+    if ok.is_empty() {
+        return out;
+    }
+    let grid: Vec<f64> = ok.iter().map(|&d| d as f64).collect();
+    for f in 0..folds {
+        let train: Vec<usize> = (0..n).filter(|&i| fold[i] != f).collect();
+        let held: Vec<usize> = (0..n).filter(|&i| fold[i] == f).collect();
+        if held.is_empty() {
+            continue;
+        }
+        let xt = x.select(ndarray::Axis(0), &train);
+        let yt = ndarray::Array1::from_iter(train.iter().map(|&i| y[i]));
+        let xe = x.select(ndarray::Axis(0), &held);
+        let mut pred = ndarray::Array2::zeros((grid.len(), held.len()));
+        let input = FitInput {
+            x: xt.view(),
+            y: yt.view(),
+            eval: xe.view(),
+            task: Task::Regress,
+            seed: crate::rng::FitSeed::fixed(0),
+        };
+        if PolyFamily
+            .fit_predict(&input, &grid, Out::values(pred.view_mut()))
+            .is_err()
+        {
+            for (g, d) in degrees.iter().enumerate() {
+                if ok.contains(d) {
+                    out[g] = None;
+                }
+            }
+            return out;
+        }
+        let mut row = 0;
+        for (g, d) in degrees.iter().enumerate() {
+            if let (true, Some(o)) = (ok.contains(d), out[g].as_mut()) {
+                for (e, &i) in held.iter().enumerate() {
+                    o[i] = pred[[row, e]];
+                }
+                row += 1;
+            }
+        }
+    }
+    out
+}
+
 /// Checks the shapes shared by the linear families; also rejects non-finite data, naming the
 /// row and column.
 pub fn check_shapes(
@@ -238,6 +373,7 @@ pub fn check_shapes(
 }
 
 /// Affine map of each input to `[-1, 1]` from its training range.
+#[derive(Debug, Clone)]
 struct Scaler {
     /// `(offset, factor)`: `u = (x - offset) * factor - 1`; factor 0 for a constant column
     /// (then `u` is forced to 0).
@@ -368,6 +504,47 @@ mod tests {
 
     fn cubic(x: f64) -> f64 {
         1.0 - 2.0 * x + 3.0 * x * x - 0.5 * x * x * x
+    }
+
+    #[test]
+    fn a_kept_fit_predicts_what_the_family_predicts() {
+        // `PolyFit` (a twin's reference part) against the family's own path fit, degree by
+        // degree, on 3 inputs with a dependent column (x3 = 2 x1 - 1, dropped alike), bit for
+        // bit; and the out-of-fold predictions equal fits on the other folds.
+        let mut rng = ChaCha8Rng::seed_from_u64(3);
+        let mut x = uniform(&mut rng, 60, 3, -2.0, 3.0);
+        for i in 0..60 {
+            x[[i, 2]] = 2.0 * x[[i, 0]] - 1.0;
+        }
+        let y = Array1::from_shape_fn(60, |i| cubic(x[[i, 0]]) * x[[i, 1]] + rng.gen::<f64>());
+        let eval = uniform(&mut rng, 9, 3, -2.0, 3.0);
+        let grid = [0.0, 1.0, 2.0, 3.0];
+        let fam = fit(&x, &y, &eval, &grid);
+        for (g, d) in grid.iter().enumerate() {
+            let kept = PolyFit::fit(x.view(), y.as_slice().unwrap(), *d as usize).unwrap();
+            let p = kept.predict(eval.view());
+            for e in 0..9 {
+                assert_eq!(
+                    p[e].to_bits(),
+                    fam[[g, e]].to_bits(),
+                    "degree {d}, point {e}"
+                );
+            }
+        }
+        let fold: Vec<usize> = (0..60).map(|i| i % 4).collect();
+        let oof = out_of_fold(x.view(), y.as_slice().unwrap(), &fold, 4, &[2, 9]);
+        assert!(oof[1].is_none(), "degree 9 has more columns than 45 rows");
+        let o2 = oof[0].as_ref().unwrap();
+        let train: Vec<usize> = (0..60).filter(|i| i % 4 != 1).collect();
+        let xt = x.select(ndarray::Axis(0), &train);
+        let yt: Vec<f64> = train.iter().map(|&i| y[i]).collect();
+        let held = x.select(ndarray::Axis(0), &[1, 5]);
+        let p = PolyFit::fit(xt.view(), &yt, 2)
+            .unwrap()
+            .predict(held.view());
+        assert_eq!(p[0].to_bits(), o2[1].to_bits());
+        assert_eq!(p[1].to_bits(), o2[5].to_bits());
+        assert!(PolyFit::fit(x.view(), y.as_slice().unwrap(), 21).is_err());
     }
 
     #[test]

@@ -1895,23 +1895,41 @@ pub fn reading(
     best: &Best,
 ) -> String {
     let bias_dominates = |p: &PointRow| p.get(bias_key) > p.get("variance");
+    let variance_dominates = |p: &PointRow| p.get("variance") > p.get(bias_key);
     let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
-    let mut out = if n_bias == points.len() {
+    let n_var = points.iter().filter(|p| variance_dominates(p)).count();
+    let n_tie = points.len() - n_bias - n_var;
+    let mut out = if n_tie == points.len() {
+        // Both exactly 0 (a model that reproduces a noiseless truth) or equal: neither side.
+        format!(
+            "{bias_word} and variance are equal at every {knob} tried: neither dominates anywhere."
+        )
+    } else if n_bias == points.len() {
         // Said of the grid, not the family: an exact model at the best value, with bias² 0 and
         // a little variance, was called overfitting.
         format!("{bias_word} exceeds variance at every {knob} tried: the whole grid lies on the bias-dominated side (no value tried lets variance dominate).")
-    } else if n_bias == 0 {
+    } else if n_var == points.len() {
         format!(
             "Variance exceeds {} at every {knob} tried: the whole grid lies on the variance-dominated side (no value tried lets {} dominate).",
             bias_word.to_lowercase(),
             bias_word.to_lowercase()
         )
     } else {
-        format!(
-            "{bias_word} dominates at {knob} {}; variance dominates at {knob} {}.",
-            runs(points, bias_dominates),
-            runs(points, |p| !bias_dominates(p))
-        )
+        let side = |n: usize, who: &str, f: &dyn Fn(&PointRow) -> bool| {
+            (n > 0).then(|| format!("{who} at {knob} {}", runs(points, f)))
+        };
+        let tie = |p: &PointRow| !bias_dominates(p) && !variance_dominates(p);
+        let parts: Vec<String> = [
+            side(n_bias, &format!("{bias_word} dominates"), &bias_dominates),
+            side(n_var, "variance dominates", &variance_dominates),
+            side(n_tie, "the two are equal", &tie),
+        ]
+        .into_iter()
+        .flatten()
+        .collect();
+        let mut text = parts.join("; ");
+        text.push('.');
+        text
     };
     let se = best
         .stderr

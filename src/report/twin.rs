@@ -15,7 +15,7 @@ use crate::fmt::{fmt_num, fmt_se, fmt_value};
 /// `scenario.twin`.
 #[derive(Debug, Clone, Serialize, Deserialize, PartialEq)]
 pub struct TwinEcho {
-    /// The reference's candidate (`knn`, `forest`, `loclin`, `blend`).
+    /// The reference's candidate (`knn`, `forest`, `loclin`, `poly`, `blend`).
     pub reference: String,
     /// The reference is twiced (refitted to its own residuals and added); absent when it is
     /// not.
@@ -222,7 +222,7 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
         return None;
     }
     let r = p.reference()?;
-    let names = ["knn", "forest", "loclin", "blend"];
+    let names = ["knn", "forest", "loclin", "poly", "blend"];
     let cv_r2 = r
         .choice
         .cv_r2

@@ -68,7 +68,7 @@ pub struct AuditSpec {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ReferenceSpec {
-    /// `knn`, `forest`, `loclin` or `blend`.
+    /// `knn`, `forest`, `loclin`, `poly` or `blend`.
     pub family: Spanned<String>,
     /// Number of neighbours of the k-NN part (knn, a blend with a k-NN weight, classes, varying
     /// noise).
@@ -89,6 +89,9 @@ pub struct ReferenceSpec {
     /// Bandwidth of the local-linear part (sd units of the standardized inputs).
     #[serde(default)]
     pub bandwidth: Option<Spanned<f64>>,
+    /// The polynomial part's total degree (family `poly`, or a blend with a `poly` weight).
+    #[serde(default)]
+    pub degree: Option<Spanned<i64>>,
     /// Weights of a blend (non-negative, at least one positive).
     #[serde(default)]
     pub weights: Option<Spanned<CandidateNumbers>>,
@@ -117,6 +120,9 @@ pub struct CandidateNumbers {
     /// Local-linear.
     #[serde(default)]
     pub loclin: Option<f64>,
+    /// Polynomial least squares.
+    #[serde(default)]
+    pub poly: Option<f64>,
     /// The blend.
     #[serde(default)]
     pub blend: Option<f64>,
@@ -348,6 +354,11 @@ pub struct DataSpec {
     /// × c; default 0: rows resampled as they are).
     #[serde(default)]
     pub jitter: Option<Spanned<f64>>,
+    /// Twin: `table` (each jittered column shrunk toward its mean to keep the table's
+    /// variance) or `added` (the plain smoothed bootstrap; the default, as twins written before
+    /// this key).
+    #[serde(default)]
+    pub jitter_variance: Option<Spanned<String>>,
     /// Twin: the digest of the table the twin was fitted to ([`crate::dataset::Table::digest`]);
     /// `run` refuses the twin when the table no longer gives it.
     #[serde(default)]

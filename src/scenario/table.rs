@@ -59,6 +59,10 @@ pub fn reject_table_keys(
     )?;
     for (present, key) in [
         (d.jitter.as_ref().map(|s| s.span()), "jitter"),
+        (
+            d.jitter_variance.as_ref().map(|s| s.span()),
+            "jitter_variance",
+        ),
         (d.table_digest.as_ref().map(|s| s.span()), "table_digest"),
         (d.fit_report.as_ref().map(|s| s.span()), "fit_report"),
     ] {
@@ -89,8 +93,9 @@ pub fn from_spec(
     let e =
         |v: Option<&toml::Spanned<String>>, key: &str, m: String| spanned_err(src, file, v, key, m);
     let src_span = Some(&d.source);
-    let unused: [(bool, &str); 9] = [
+    let unused: [(bool, &str); 10] = [
         (d.jitter.is_some(), "jitter"),
+        (d.jitter_variance.is_some(), "jitter_variance"),
         (d.table_digest.is_some(), "table_digest"),
         (d.fit_report.is_some(), "fit_report"),
         (d.eval_size.is_some(), "eval_size"),

@@ -47,6 +47,8 @@ pub struct TwinSpec {
     pub choice: Choice,
     /// The smoothed bootstrap's multiplier c (0: rows as they are).
     pub jitter: f64,
+    /// Each jittered column keeps the table's variance ([`Jitter::fit_keeping`]).
+    pub keep_variance: bool,
     /// The noise (regression; `None` for classes).
     pub noise: Option<TwinNoise>,
     /// The law of the standardized noise (regression).
@@ -116,7 +118,13 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
     fitted_ref.dropped_rows = t.dropped_rows;
     let fitted = Arc::new(fitted_ref);
     let rows_arc = Arc::new(t.x.clone());
-    let jitter = (spec.jitter > 0.0).then(|| Arc::new(Jitter::fit(t.x.view(), spec.jitter)));
+    let jitter = (spec.jitter > 0.0).then(|| {
+        Arc::new(Jitter::fit_keeping(
+            t.x.view(),
+            spec.jitter,
+            spec.keep_variance,
+        ))
+    });
     let inputs: Vec<Input> = t
         .names
         .iter()
@@ -198,7 +206,7 @@ fn choice_of(
             fam_span,
             "data.reference.family",
             format!(
-                "unknown reference `{}`; expected `knn`, `forest`, `loclin` or `blend`",
+                "unknown reference `{}`; expected `knn`, `forest`, `loclin`, `poly` or `blend`",
                 r.family.get_ref()
             ),
         ));
@@ -217,13 +225,14 @@ fn choice_of(
                 return Err(err(
                     w.span(),
                     "data.reference.weights",
-                    "takes `knn`, `forest` and `loclin`".into(),
+                    "takes `knn`, `forest`, `loclin` and `poly`".into(),
                 ));
             }
             let ws = [
                 v.knn.unwrap_or(0.0),
                 v.forest.unwrap_or(0.0),
                 v.loclin.unwrap_or(0.0),
+                v.poly.unwrap_or(0.0),
             ];
             if ws.iter().any(|x| !(x.is_finite() && *x >= 0.0)) || ws.iter().all(|x| *x == 0.0) {
                 return Err(err(
@@ -238,7 +247,7 @@ fn choice_of(
             return Err(err(
                 fam_span,
                 "data.reference.weights",
-                "a blend needs `weights = { knn = .., forest = .., loclin = .. }`".into(),
+                "a blend needs `weights = { knn = .., forest = .., loclin = .., poly = .. }` (a missing one is 0)".into(),
             ))
         }
         (Some(w), _) => {
@@ -248,9 +257,10 @@ fn choice_of(
                 format!("belongs to `family = \"blend\"`, not `{}`", family.name()),
             ))
         }
-        (None, Candidate::Knn) => [1.0, 0.0, 0.0],
-        (None, Candidate::Forest) => [0.0, 1.0, 0.0],
-        (None, Candidate::LocLin) => [0.0, 0.0, 1.0],
+        (None, Candidate::Knn) => [1.0, 0.0, 0.0, 0.0],
+        (None, Candidate::Forest) => [0.0, 1.0, 0.0, 0.0],
+        (None, Candidate::LocLin) => [0.0, 0.0, 1.0, 0.0],
+        (None, Candidate::Poly) => [0.0, 0.0, 0.0, 1.0],
     };
     let need = |key: &str| {
         err(
@@ -313,6 +323,27 @@ fn choice_of(
     } else {
         None
     };
+    let degree = if weights[3] > 0.0 {
+        let Some(d) = &r.degree else {
+            return Err(need("degree"));
+        };
+        let d = whole(d, "degree", 1, crate::family::poly::MAX_DEGREE as i64)? as usize;
+        match crate::family::poly::n_basis(inputs, d) {
+            Some(c) if c <= rows => Some(d),
+            _ => {
+                return Err(err(
+                    r.degree.as_ref().map_or(fam_span.clone(), |s| s.span()),
+                    "data.reference.degree",
+                    format!(
+                        "degree {d} needs more polynomial coefficients with {inputs} input(s) \
+                         than the table's {rows} rows"
+                    ),
+                ))
+            }
+        }
+    } else {
+        None
+    };
     let twice = r.twice.unwrap_or(false);
     if twice && (classes > 0 || varying) {
         return Err(err(
@@ -328,6 +359,7 @@ fn choice_of(
             ("knn", c.knn),
             ("forest", c.forest),
             ("loclin", c.loclin),
+            ("poly", c.poly),
             ("blend", c.blend),
         ] {
             if let Some(v) = v.filter(|v| !v.is_finite()) {
@@ -346,6 +378,7 @@ fn choice_of(
             c.knn.unwrap_or(f64::NAN),
             c.forest.unwrap_or(f64::NAN),
             c.loclin.unwrap_or(f64::NAN),
+            c.poly.unwrap_or(f64::NAN),
             c.blend.unwrap_or(f64::NAN),
         ]
     });
@@ -366,6 +399,7 @@ fn choice_of(
         k,
         forest,
         bandwidth,
+        degree,
         weights,
         cv_r2,
         twice,
@@ -649,6 +683,23 @@ pub fn from_spec(
             v
         }
     };
+    let keep_variance = match &d.jitter_variance {
+        None => false,
+        Some(s) => match s.get_ref().as_str() {
+            "table" => true,
+            "added" => false,
+            other => {
+                return Err(err(
+                    s.span(),
+                    "data.jitter_variance",
+                    format!(
+                        "unknown `{}`; expected \"table\" or \"added\"",
+                        crate::fmt::clip(other, 40)
+                    ),
+                ))
+            }
+        },
+    };
     let size = |v: &Option<toml::Spanned<i64>>, key: &str, min: i64| match v {
         None => Ok(rows),
         Some(s) if *s.get_ref() >= min && *s.get_ref() <= 10_000_000 => Ok(*s.get_ref() as usize),
@@ -847,6 +898,7 @@ pub fn from_spec(
     let spec = TwinSpec {
         choice,
         jitter,
+        keep_variance,
         noise,
         shape,
         train_size,

@@ -1,11 +1,13 @@
 //! The reference model of a simulated twin: a flexible fit of E[y | x] (or of P(y = c | x)) on a
 //! table that serves as the twin's truth, the recipe that rebuilds it, and its choice.
 //!
-//! **Regression**: four candidates, each tuned on the table, chosen by cross-validated R²
+//! **Regression**: five candidates, each tuned on the table, chosen by cross-validated R²
 //! ([`select`]): k nearest neighbours, bagged trees ([`forest`]), local-linear kernel
-//! regression ([`loclin`]) and a stacked non-negative blend of the three. A [`Choice`] records
-//! everything needed to refit the chosen reference exactly (which candidate, its knobs, the
-//! forest's seed, the blend's weights), and a twin scenario writes it as
+//! regression ([`loclin`]), polynomial least squares of total degree 1 to 3
+//! ([`crate::family::poly::PolyFit`], the `poly` family's basis; the one candidate that follows
+//! a polynomial trend, such as a product of inputs, into the table's sparse tails) and a stacked
+//! non-negative blend of the four. A [`Choice`] records everything needed to refit the chosen
+//! reference exactly (which candidate, its knobs, the forest's seed, the blend's weights), and a twin scenario writes it as
 //! `reference = { family = "forest", k = 16, trees = 100, min_leaf = 5, seed = 7, ... }`; `run`
 //! refits it at plan time, bit for bit. The older form `{ family = "knn", k = 7, standardize =
 //! true }` is the k-NN candidate alone.
@@ -39,6 +41,7 @@ use crate::dataset::noise::{self, NoiseEstimate};
 use crate::dataset::Table;
 use crate::error::Error;
 use crate::family::neighbours::{NeighbourIndex, Scratch};
+use crate::family::poly::PolyFit;
 use crate::family::standardize::Standardizer;
 use crate::family::Task;
 
@@ -70,7 +73,9 @@ pub enum Candidate {
     Forest,
     /// Local-linear kernel regression.
     LocLin,
-    /// Non-negative blend of the three.
+    /// Polynomial least squares (total degree by cross-validation).
+    Poly,
+    /// Non-negative blend of the others.
     Blend,
 }
 
@@ -81,6 +86,7 @@ impl Candidate {
             Candidate::Knn => "knn",
             Candidate::Forest => "forest",
             Candidate::LocLin => "loclin",
+            Candidate::Poly => "poly",
             Candidate::Blend => "blend",
         }
     }
@@ -91,6 +97,7 @@ impl Candidate {
             "knn" => Some(Candidate::Knn),
             "forest" => Some(Candidate::Forest),
             "loclin" => Some(Candidate::LocLin),
+            "poly" => Some(Candidate::Poly),
             "blend" => Some(Candidate::Blend),
             _ => None,
         }
@@ -102,8 +109,10 @@ impl Candidate {
             Candidate::Knn => "k nearest neighbours on standardized inputs",
             Candidate::Forest => "bagged regression trees (Breiman 1996)",
             Candidate::LocLin => "local-linear Gaussian-kernel regression (Fan and Gijbels 1996)",
+            Candidate::Poly => "polynomial least squares in the inputs (total degree 1 to 3)",
             Candidate::Blend => {
-                "non-negative stacked blend of k-NN, bagged trees and local-linear (Breiman 1996)"
+                "non-negative stacked blend of k-NN, bagged trees, local-linear and polynomial \
+                 (Breiman 1996)"
             }
         }
     }
@@ -123,11 +132,13 @@ pub struct Choice {
     pub forest: Option<ForestParams>,
     /// The local-linear bandwidth in sd units (used with a positive local-linear weight).
     pub bandwidth: Option<f64>,
-    /// Weights of k-NN, forest, local-linear: a single 1 for one candidate.
-    pub weights: [f64; 3],
-    /// Cross-validated R² of knn, forest, loclin, blend when the choice was made
-    /// (informational; not needed to refit).
-    pub cv_r2: Option<[f64; 4]>,
+    /// The polynomial part's total degree (used with a positive polynomial weight).
+    pub degree: Option<usize>,
+    /// Weights of k-NN, forest, local-linear, polynomial: a single 1 for one candidate.
+    pub weights: [f64; 4],
+    /// Cross-validated R² of knn, forest, loclin, poly, blend when the choice was made
+    /// (informational; not needed to refit; NaN: not tried).
+    pub cv_r2: Option<[f64; 5]>,
     /// Twicing (regression): the same recipe is fitted again to the in-sample residuals of the
     /// first fit and the two are added, `f̂ = S y + S (y − S y)` (Tukey 1977, *Exploratory Data
     /// Analysis*, "twicing"; one step of L2 boosting, Bühlmann and Yu 2003, *JASA* 98:324–339).
@@ -150,7 +161,8 @@ impl Choice {
             k: Some(k),
             forest: None,
             bandwidth: None,
-            weights: [1.0, 0.0, 0.0],
+            degree: None,
+            weights: [1.0, 0.0, 0.0, 0.0],
             cv_r2: None,
             twice: false,
             metric: None,
@@ -161,11 +173,16 @@ impl Choice {
     /// scaled by `factor` (in (0, 1]: less smoothing): the k-NN part's k and the forest's leaf
     /// size rounded (at least 1), the local-linear bandwidth multiplied. A part with no weight
     /// keeps its knob (a k-NN k without weight still sets varying noise's smoother, which the
-    /// sharpening is not meant to touch). Candidate, weights, input weights and twicing are
-    /// kept. The twin sharpens its reference this way ([`crate::dgp::twin::SHARPEN`]).
+    /// sharpening is not meant to touch). Candidate, weights, input weights, twicing and the
+    /// polynomial's degree (no smoothing knob to scale) are kept. The twin sharpens its reference this way ([`crate::dgp::twin::SHARPEN`]).
     pub fn sharpened(&self, factor: f64) -> Choice {
         let scale = |v: usize| ((v as f64 * factor).round() as usize).max(1);
-        let alone = [Candidate::Knn, Candidate::Forest, Candidate::LocLin];
+        let alone = [
+            Candidate::Knn,
+            Candidate::Forest,
+            Candidate::LocLin,
+            Candidate::Poly,
+        ];
         let used = |part: usize| self.weights[part] > 0.0 || self.family == alone[part];
         Choice {
             k: self.k.map(|k| if used(0) { scale(k) } else { k }),
@@ -234,6 +251,10 @@ impl Choice {
             .bandwidth
             .map(|h| format!("bandwidth {} sd", crate::fmt::fmt_exact(h)))
             .unwrap_or_default();
+        let deg = self
+            .degree
+            .map(|d| format!("degree {d}"))
+            .unwrap_or_default();
         let plain = match self.family {
             Candidate::Knn => format!(
                 "k-NN reference ({k}{})",
@@ -245,6 +266,7 @@ impl Choice {
             ),
             Candidate::Forest => format!("bagged-tree reference ({forest})"),
             Candidate::LocLin => format!("local-linear reference ({h})"),
+            Candidate::Poly => format!("polynomial reference ({deg})"),
             Candidate::Blend => {
                 let mut parts = Vec::new();
                 if self.weights[0] > 0.0 {
@@ -255,6 +277,9 @@ impl Choice {
                 }
                 if self.weights[2] > 0.0 {
                     parts.push(format!("{:.3} × local-linear ({h})", self.weights[2]));
+                }
+                if self.weights[3] > 0.0 {
+                    parts.push(format!("{:.3} × polynomial ({deg})", self.weights[3]));
                 }
                 format!("blended reference: {}", parts.join(" + "))
             }
@@ -343,6 +368,7 @@ pub struct Reference {
     knn: Option<KnnPart>,
     forest: Option<Forest>,
     loclin: Option<LocLin>,
+    poly: Option<PolyFit>,
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
@@ -423,6 +449,12 @@ impl Reference {
         } else {
             None
         };
+        let poly = if w[3] > 0.0 {
+            let d = choice.degree.ok_or("needs `degree`")?;
+            Some(PolyFit::fit(x, &yv, d).map_err(|m| format!("the polynomial part: {m}"))?)
+        } else {
+            None
+        };
         let mut r = Reference {
             source: source.to_string(),
             path: None,
@@ -433,6 +465,7 @@ impl Reference {
             knn,
             forest,
             loclin,
+            poly,
             y: yv,
             sq_resid: None,
             var_k: 0,
@@ -499,11 +532,12 @@ impl Reference {
         }
         let once = self.choice.clone();
         let w = once.weights;
-        // The k-NN and local-linear parts are linear in the responses, S y + S r = S (y + r):
-        // one fit on y + r, so evaluating the twiced truth costs one smoother, not two.
+        // The k-NN, local-linear and polynomial parts are linear in the responses,
+        // S y + S r = S (y + r): one fit on y + r, so evaluating the twiced truth costs one
+        // smoother, not two.
         let lin_y: Vec<f64> = y.iter().zip(&resid).map(|(a, b)| a + b).collect();
         let lin = Choice {
-            weights: [w[0], 0.0, w[2]],
+            weights: [w[0], 0.0, w[2], w[3]],
             ..once.clone()
         };
         let mut out = Reference::fit(x, ArrayView1::from(&lin_y), 0, &lin, false, &self.source)?;
@@ -511,7 +545,7 @@ impl Reference {
             // Bagged trees are not linear in the responses (their splits depend on them): the
             // forest fitted once plus a forest fitted to the residuals.
             let only_forest = Choice {
-                weights: [0.0, w[1], 0.0],
+                weights: [0.0, w[1], 0.0, 0.0],
                 ..once.clone()
             };
             let on_resid = Reference::fit(
@@ -524,6 +558,7 @@ impl Reference {
             )?;
             self.knn = None;
             self.loclin = None;
+            self.poly = None;
             self.choice = only_forest;
             self.second = Some(Box::new(on_resid));
             out.second = Some(Box::new(self));
@@ -555,11 +590,12 @@ impl Reference {
     }
 
     /// The reference's E[y | x] at every row of `x`: the weighted parts in the recipe's order
-    /// (k-NN, forest, local-linear), plus the second fit when twiced. The forest part is evaluated
+    /// (k-NN, forest, local-linear, polynomial), plus the second fit when twiced. The forest part is evaluated
     /// for all rows at once ([`Forest::predict_rows`], bit for bit [`Forest::predict`] row by
     /// row), which is several times faster on many rows; scratch space is kept per thread.
     pub fn mean_at_rows(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
         let forest = self.forest.as_ref().map(|f| f.predict_rows(x));
+        let poly = self.poly.as_ref().map(|p| p.predict(x));
         let w = self.choice.weights;
         let mut out = Vec::with_capacity(x.nrows());
         SCRATCH.with(|cell| {
@@ -580,6 +616,9 @@ impl Reference {
                 }
                 if let Some(l) = &self.loclin {
                     v += w[2] * l.predict_with(&row, &mut s.loclin);
+                }
+                if let Some(p) = &poly {
+                    v += w[3] * p[i];
                 }
                 out.push(v);
             }
@@ -814,8 +853,15 @@ impl Reference {
         }
         if self.choice.family != Candidate::Knn {
             bytes.extend_from_slice(self.choice.family.name().as_bytes());
-            for w in self.choice.weights {
+            // The first three weights as before the polynomial part (digests of older
+            // recipes unchanged); the polynomial's weight and degree only when it is used.
+            for w in &self.choice.weights[..3] {
                 bytes.extend_from_slice(&w.to_bits().to_le_bytes());
+            }
+            if self.choice.weights[3] > 0.0 {
+                bytes.extend_from_slice(b"poly");
+                bytes.extend_from_slice(&self.choice.weights[3].to_bits().to_le_bytes());
+                bytes.extend_from_slice(&(self.choice.degree.unwrap_or(0) as u64).to_le_bytes());
             }
             if let Some(f) = self.choice.forest {
                 for v in [f.trees as u64, f.min_leaf as u64, f.seed] {
@@ -1091,7 +1137,8 @@ mod tests {
                 seed: 3,
             }),
             bandwidth: Some(0.4),
-            weights: [0.5, 0.0, 0.5],
+            degree: None,
+            weights: [0.5, 0.0, 0.5, 0.0],
             cv_r2: None,
             twice: true,
             metric: Some(vec![1.0, 0.5]),
@@ -1116,7 +1163,7 @@ mod tests {
         // With a forest weight, 5 × 0.85 = 4.25 → 4; without a local-linear weight the
         // bandwidth is kept.
         let with_forest = Choice {
-            weights: [0.5, 0.5, 0.0],
+            weights: [0.5, 0.5, 0.0, 0.0],
             ..cv.clone()
         };
         let sf = with_forest.sharpened(0.85);
@@ -1129,7 +1176,7 @@ mod tests {
         // A local-linear reference keeps the k that varying noise's smoother uses.
         let loclin = Choice {
             family: Candidate::LocLin,
-            weights: [0.0, 0.0, 1.0],
+            weights: [0.0, 0.0, 1.0, 0.0],
             ..cv.clone()
         };
         assert_eq!(loclin.sharpened(0.85).k, Some(15));
@@ -1344,7 +1391,10 @@ mod tests {
                 seed: 4,
             }),
             bandwidth: Some(0.5),
-            weights: [0.2, 0.5, 0.3],
+            // The polynomial part is linear in the responses too (a least-squares projection):
+            // it rides in the one fit on y + r.
+            degree: Some(2),
+            weights: [0.2, 0.4, 0.2, 0.2],
             cv_r2: None,
             twice: false,
             // Weighted inputs ride along: the k-NN and local-linear parts carry them through
@@ -1377,6 +1427,16 @@ mod tests {
                 "blend point {i}: {got} vs {want}"
             );
         }
+        // Evaluated for many rows at once, the same bits as row by row.
+        let all = twiced.mean_at_rows(q.view());
+        for (i, v) in all.iter().enumerate() {
+            assert_eq!(
+                v.to_bits(),
+                twiced.mean_at(&q.row(i).to_vec()).to_bits(),
+                "row {i}"
+            );
+        }
+        assert_ne!(twiced.digest(), once.digest());
         // Classification and varying noise refuse it.
         assert!(Reference::fit(x.view(), y.view(), 0, &choice, true, "t").is_err());
         let labels = y.mapv(|v| f64::from(u8::from(v > 1.0)));

@@ -1,5 +1,5 @@
 //! Choosing a twin's reference by cross-validation on the table: each candidate is tuned on the
-//! table, a stacked blend of the three is built, and the candidate (blend included) with the
+//! table, a stacked blend of k-NN, forest and local-linear is built, and the candidate (blend included) with the
 //! highest cross-validated R² is chosen.
 //!
 //! - **knn**: k nearest neighbours on standardized inputs, k from [`K_CANDIDATES`] (those that
@@ -11,6 +11,14 @@
 //!   [`super::loclin::H_CANDIDATES`] by K-fold cross-validation (not tried on tables of more than
 //!   [`LOCLIN_MAX_ROWS`] rows or [`LOCLIN_MAX_INPUTS`] inputs, where its O(n² p²) and p³ costs
 //!   would dominate);
+//! - **poly**: polynomial least squares ([`crate::family::poly::PolyFit`], the `poly` family's
+//!   basis), total degree from [`POLY_DEGREES`] by K-fold cross-validation on the same folds
+//!   (one path fit per fold serves every degree; a degree is tried only with
+//!   [`POLY_ROWS_PER_TERM`] training rows per basis column and within [`POLY_MAX_WORK`]). It is
+//!   the one candidate that follows a polynomial trend — a product of inputs, a quadratic
+//!   bowl — into the sparse tails of the table, where the local candidates flatten it
+//!   (`docs/twin-calibration.md` §0.8). It does not depend on the input weights, stays out of
+//!   the blend, and is chosen only by [`choose`]'s one-SE rule;
 //! - **blend**: stacking (Wolpert 1992, "Stacked generalization", *Neural Networks* 5:241–259;
 //!   Breiman 1996, "Stacked regressions", *Machine Learning* 24:49–64): non-negative weights,
 //!   no intercept, minimizing `‖y − Σ_j w_j p_j‖²` over the candidates' held-out predictions
@@ -254,16 +262,18 @@ struct Tuned {
     ks: Vec<usize>,
     ki: usize,
     li: usize,
-    /// Blend weights of knn, forest, loclin.
-    weights: [f64; 3],
-    /// R² and its SE of knn, forest, loclin, blend.
-    r2: [(f64, f64); 4],
-    /// Held-out predictions of knn, forest, loclin (empty when not tried), blend.
-    held_out: [Vec<f64>; 4],
+    /// Blend weights of knn, forest, loclin, poly.
+    weights: [f64; 4],
+    /// R² and its SE of knn, forest, loclin, poly, blend.
+    r2: [(f64, f64); 5],
+    /// Held-out predictions of knn, forest, loclin, poly (empty when not tried), blend.
+    held_out: [Vec<f64>; 5],
 }
 
 /// Tunes k-NN and local-linear on inputs standardized by `std`, and blends them with the
-/// forest's out-of-bag predictions `forest`.
+/// forest's out-of-bag predictions `forest`; the polynomial's out-of-fold predictions `poly`
+/// (`None`: not tried) are scored beside them but kept out of the blend (see [`choose`]).
+#[allow(clippy::too_many_arguments)]
 fn tune(
     x: ArrayView2<'_, f64>,
     y: &[f64],
@@ -271,6 +281,7 @@ fn tune(
     folds: usize,
     std: &Standardizer,
     forest: &[f64],
+    poly: Option<&[f64]>,
     try_loclin: bool,
 ) -> Tuned {
     let n = y.len();
@@ -285,9 +296,13 @@ fn tune(
     } else {
         (0, Vec::new())
     };
+    // Level-one columns: k-NN, forest, then local-linear and the polynomial when tried;
+    // `slots[j]` is column j's place in the recipe's weights.
     let mut level1 = vec![kp[ki].clone(), forest.to_vec()];
+    let mut slots = vec![0, 1];
     if try_loclin {
         level1.push(lp[li].clone());
+        slots.push(2);
     }
     let w = nnls(&level1, y);
     let mut blend_cv = vec![0.0; n];
@@ -304,37 +319,32 @@ fn tune(
         }
     }
     let nan = (f64::NAN, f64::NAN);
-    let r2 = [
-        r2_se(y, &level1[0]),
-        r2_se(y, &level1[1]),
-        if try_loclin {
-            r2_se(y, &level1[2])
-        } else {
-            nan
-        },
-        // Weights all 0: no non-negative mix of the candidates predicts better than 0, as on
-        // a table of noise around 0 that no input predicts; a blend of nothing is no
-        // reference, so it is not a candidate (`pick` takes the best single one).
-        if w.iter().all(|v| *v == 0.0) {
-            nan
-        } else {
-            r2_se(y, &blend_cv)
-        },
-    ];
-    let loclin_cv = if try_loclin {
-        level1.pop().unwrap_or_default()
-    } else {
-        Vec::new()
-    };
-    let forest_cv = level1.pop().unwrap_or_default();
-    let knn_cv = level1.pop().unwrap_or_default();
+    let mut r2 = [nan; 5];
+    let mut weights = [0.0; 4];
+    let mut held_out: [Vec<f64>; 5] = Default::default();
+    for (j, col) in level1.into_iter().enumerate() {
+        r2[slots[j]] = r2_se(y, &col);
+        weights[slots[j]] = w[j];
+        held_out[slots[j]] = col;
+    }
+    // Weights all 0: no non-negative mix of the candidates predicts better than 0, as on a
+    // table of noise around 0 that no input predicts; a blend of nothing is no reference, so it
+    // is not a candidate (`pick` takes the best single one).
+    if w.iter().any(|v| *v != 0.0) {
+        r2[4] = r2_se(y, &blend_cv);
+    }
+    held_out[4] = blend_cv;
+    if let Some(pp) = poly {
+        r2[3] = r2_se(y, pp);
+        held_out[3] = pp.to_vec();
+    }
     Tuned {
         ks,
         ki,
         li,
-        weights: [w[0], w[1], if try_loclin { w[2] } else { 0.0 }],
+        weights,
         r2,
-        held_out: [knn_cv, forest_cv, loclin_cv, blend_cv],
+        held_out,
     }
 }
 
@@ -368,19 +378,23 @@ pub fn metric_guard(gain: (f64, f64)) -> bool {
     gain.0 > gain.1
 }
 
-/// The candidate `rule` picks from scores `r2` (knn, forest, loclin, blend; NaN: not tried).
-fn pick(rule: Rule, r2: &[(f64, f64); 4]) -> Candidate {
+/// The candidate `rule` picks from scores `r2` (knn, forest, loclin, poly, blend; NaN: not
+/// tried). A forced candidate that was not tried (local-linear or the polynomial on a table
+/// where they are skipped) gives way to the blend.
+fn pick(rule: Rule, r2: &[(f64, f64); 5]) -> Candidate {
     let order = [
         Candidate::Knn,
         Candidate::Forest,
         Candidate::LocLin,
+        Candidate::Poly,
         Candidate::Blend,
     ];
     let chosen = match rule {
         Rule::Only(c) => c,
         Rule::Best => {
             let mut best = 0;
-            for i in 1..4 {
+            for i in 1..5 {
+                // NaN never wins: `>` is false for it.
                 if r2[i].0 > r2[best].0 {
                     best = i;
                 }
@@ -388,14 +402,17 @@ fn pick(rule: Rule, r2: &[(f64, f64); 4]) -> Candidate {
             order[best]
         }
     };
-    let chosen = if chosen == Candidate::LocLin && r2[2].0.is_nan() {
-        Candidate::Blend
-    } else {
-        chosen
-    };
-    if chosen == Candidate::Blend && r2[3].0.is_nan() {
+    let chosen =
+        if matches!(chosen, Candidate::LocLin | Candidate::Poly) && r2[slot(chosen)].0.is_nan() {
+            Candidate::Blend
+        } else {
+            chosen
+        };
+    if chosen == Candidate::Blend && r2[4].0.is_nan() {
         // No blend (every weight 0): the best single candidate.
-        pick(Rule::Best, &[r2[0], r2[1], r2[2], (f64::NAN, f64::NAN)])
+        let mut single = *r2;
+        single[4] = (f64::NAN, f64::NAN);
+        pick(Rule::Best, &single)
     } else {
         chosen
     }
@@ -406,8 +423,77 @@ fn slot(c: Candidate) -> usize {
         Candidate::Knn => 0,
         Candidate::Forest => 1,
         Candidate::LocLin => 2,
-        Candidate::Blend => 3,
+        Candidate::Poly => 3,
+        Candidate::Blend => 4,
     }
+}
+
+/// Share of the best other candidate's held-out error that the polynomial must remove to be
+/// chosen ([`choose`]; a rule of thumb set on invented processes, no source: a cubic took 2–3%
+/// of the error off tables with kinks, where it makes a worse truth, and 63% off a product of
+/// three inputs).
+pub const POLY_MIN_CUT: f64 = 0.1;
+
+/// The candidate `rule` picks, given the scores `r2` and held-out predictions `held_out` of
+/// knn, forest, loclin, poly, blend: [`pick`] among the others, then, under [`Rule::Best`], the
+/// polynomial only when it removes at least [`POLY_MIN_CUT`] of that pick's held-out error and
+/// more than one standard error of the paired gain ([`metric_guard`], the one-SE rule as for
+/// input weights). Measured on invented processes (`docs/twin-calibration.md` §0.8): chosen on
+/// its R² alone, or as a part of the blend, a cubic won 15 of 60 tables with kinks, ripples and
+/// a step by a few percent of the error, and as the twin's truth its global smoothness rounded
+/// them off (−5 picks of 120, curve error +0.8 points); with the one-SE rule alone it still won
+/// 6 of 30 kinked tables. Prediction is not what a twin's truth is for; a polynomial the table
+/// clearly prefers (a product of inputs: R² 0.81 against 0.49) is still chosen.
+fn choose(rule: Rule, y: &[f64], r2: &[(f64, f64); 5], held_out: &[Vec<f64>; 5]) -> Candidate {
+    if rule != Rule::Best {
+        return pick(rule, r2);
+    }
+    let mut others = *r2;
+    others[3] = (f64::NAN, f64::NAN);
+    let base = pick(rule, &others);
+    if !r2[3].0.is_nan() && poly_clears(poly_gain(y, held_out, base), others[slot(base)].0) {
+        Candidate::Poly
+    } else {
+        base
+    }
+}
+
+/// Whether the polynomial's paired gain `gain` (in R², with its SE) over a candidate of
+/// cross-validated R² `base_r2` clears [`choose`]'s bar.
+fn poly_clears(gain: (f64, f64), base_r2: f64) -> bool {
+    metric_guard(gain) && gain.0 >= POLY_MIN_CUT * (1.0 - base_r2)
+}
+
+/// The polynomial's paired gain in R² over candidate `base` (NaN when it was not tried).
+fn poly_gain(y: &[f64], held_out: &[Vec<f64>; 5], base: Candidate) -> (f64, f64) {
+    paired_gain(y, &held_out[slot(base)], &held_out[3])
+}
+
+/// Total degrees tried for the polynomial candidate.
+pub const POLY_DEGREES: [usize; 3] = [1, 2, 3];
+
+/// Most work of one polynomial fit, training rows × basis columns² (a cap on time, common
+/// practice, no source: a fold's QR then takes well under a second on these machines); degrees
+/// beyond it are not tried (3 200 training rows: a cubic in up to 10 inputs, a quadratic in up
+/// to 26).
+pub const POLY_MAX_WORK: f64 = 5e8;
+
+/// Fewest training rows per basis column of a polynomial degree that is tried (common
+/// practice, no source: fewer leave least squares mostly fitting noise).
+pub const POLY_ROWS_PER_TERM: usize = 4;
+
+/// The polynomial degrees tried on a table of `n` rows and `p` inputs.
+pub fn poly_degrees(n: usize, p: usize) -> Vec<usize> {
+    let train = n - n.div_ceil(FOLDS.min(n.max(1)));
+    POLY_DEGREES
+        .iter()
+        .copied()
+        .filter(|&d| {
+            crate::family::poly::n_basis(p, d).is_some_and(|c| {
+                c * POLY_ROWS_PER_TERM <= train && train as f64 * (c * c) as f64 <= POLY_MAX_WORK
+            })
+        })
+        .collect()
 }
 
 /// Tunes every candidate on the table (rows `x`, responses `y`), builds the blend, and chooses
@@ -430,10 +516,24 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         seed,
     };
     let base = Standardizer::fit(x);
+    let degrees = poly_degrees(n, x.ncols());
+    let pp = crate::family::poly::out_of_fold(x, y, &fold, folds, &degrees);
+    let mut poly_best: Option<(usize, Vec<f64>)> = None;
+    for (d, pred) in degrees.iter().zip(pp) {
+        if let Some(pred) = pred.filter(|p| p.iter().all(|v| v.is_finite())) {
+            if poly_best
+                .as_ref()
+                .map_or(true, |(_, b)| mse(y, &pred) < mse(y, b))
+            {
+                poly_best = Some((*d, pred));
+            }
+        }
+    }
+    let poly_cv = poly_best.as_ref().map(|(_, p)| p.as_slice());
     let mut tried = vec![(
         0.0,
         None,
-        tune(x, y, &fold, folds, &base, &fp[fi], try_loclin),
+        tune(x, y, &fold, folds, &base, &fp[fi], poly_cv, try_loclin),
     )];
     // Weights only matter to k-NN and local-linear: a forced forest skips their tuning. With
     // fewer than METRIC_ROWS_PER_INPUT rows per input they are not tried: the pilot's weights
@@ -446,7 +546,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         let pilot = Choice {
             family: Candidate::Forest,
             forest: Some(forest_params),
-            weights: [0.0, 1.0, 0.0],
+            weights: [0.0, 1.0, 0.0, 0.0],
             k: None,
             ..Choice::knn(1, true)
         };
@@ -459,13 +559,22 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
                         .iter()
                         .map(|&v| if power == 0.5 { v.sqrt() } else { v })
                         .collect();
-                    let t = tune(x, y, &fold, folds, &base.weighted(&w), &fp[fi], try_loclin);
+                    let t = tune(
+                        x,
+                        y,
+                        &fold,
+                        folds,
+                        &base.weighted(&w),
+                        &fp[fi],
+                        poly_cv,
+                        try_loclin,
+                    );
                     tried.push((power, Some(w), t));
                 }
             }
         }
     }
-    let chosen_of = |t: &Tuned| slot(pick(rule, &t.r2));
+    let chosen_of = |t: &Tuned| slot(choose(rule, y, &t.r2, &t.held_out));
     let metric_scores: Vec<MetricScore> = tried
         .iter()
         .enumerate()
@@ -498,8 +607,26 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
     }
     let (power, metric, t) = tried.swap_remove(best);
     let (ks, ki, li, r2) = (t.ks, t.ki, t.li, t.r2);
+    let poly_words = match &poly_best {
+        Some((d, _)) => {
+            let mut others = r2;
+            others[3] = (f64::NAN, f64::NAN);
+            let base = pick(Rule::Best, &others);
+            let (g, se) = poly_gain(y, &t.held_out, base);
+            format!(
+                "degree = {d}; chosen only when it removes at least {}% of the {}'s held-out \
+                 error and more than one paired SE: gain in R² {} ± {}, {}% of that error",
+                POLY_MIN_CUT * 100.0,
+                base.name(),
+                crate::fmt::fmt_num(g),
+                crate::fmt::fmt_num(se),
+                crate::fmt::fmt_num(100.0 * g / (1.0 - others[slot(base)].0))
+            )
+        }
+        None => "not tried: too few rows for a basis of degree 1".to_string(),
+    };
     let bandwidth = loclin::H_CANDIDATES[li];
-    let fmt_w = |w: &[f64; 3]| {
+    let fmt_w = |w: &[f64; 4]| {
         format!(
             "weights knn {:.3}, forest {:.3}, loclin {:.3}",
             w[0], w[1], w[2]
@@ -537,9 +664,15 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             },
         },
         Score {
-            candidate: Candidate::Blend,
+            candidate: Candidate::Poly,
             r2: r2[3].0,
             se: r2[3].1,
+            tuned: poly_words,
+        },
+        Score {
+            candidate: Candidate::Blend,
+            r2: r2[4].0,
+            se: r2[4].1,
             tuned: if t.weights.iter().all(|v| *v == 0.0) {
                 "every weight 0: no mix of the others predicts better than 0".to_string()
             } else {
@@ -547,14 +680,15 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             },
         },
     ];
-    let chosen = pick(rule, &r2);
+    let chosen = choose(rule, y, &r2, &t.held_out);
     let weights = match chosen {
-        Candidate::Knn => [1.0, 0.0, 0.0],
-        Candidate::Forest => [0.0, 1.0, 0.0],
-        Candidate::LocLin => [0.0, 0.0, 1.0],
+        Candidate::Knn => [1.0, 0.0, 0.0, 0.0],
+        Candidate::Forest => [0.0, 1.0, 0.0, 0.0],
+        Candidate::LocLin => [0.0, 0.0, 1.0, 0.0],
+        Candidate::Poly => [0.0, 0.0, 0.0, 1.0],
         Candidate::Blend => t.weights,
     };
-    let cv_r2 = [r2[0].0, r2[1].0, r2[2].0, r2[3].0];
+    let cv_r2 = [r2[0].0, r2[1].0, r2[2].0, r2[3].0, r2[4].0];
     // Kept as scored (a forest part ignores it; a blend with no k-NN or local-linear share
     // still has `k` tuned under it, which varying noise uses).
     let choice = Choice {
@@ -563,6 +697,11 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         k: Some(ks[ki]),
         forest: (weights[1] > 0.0).then_some(forest_params),
         bandwidth: (weights[2] > 0.0).then_some(bandwidth),
+        degree: if weights[3] > 0.0 {
+            poly_best.as_ref().map(|(d, _)| *d)
+        } else {
+            None
+        },
         weights,
         cv_r2: Some(cv_r2),
         twice: false,
@@ -769,13 +908,20 @@ mod tests {
         assert_eq!(w[0], 1.0, "{w:?}");
         assert!(w[1..].iter().all(|&v| v < 0.5), "{w:?}");
         // The kept metric is the best scored, and it beats the plain one by more than its SE.
+        // (The polynomial is scored beside the others but chosen by its own bar.)
         let chosen = sel
             .scores
             .iter()
+            .filter(|s| s.candidate != Candidate::Poly)
             .map(|s| s.r2)
             .fold(f64::NEG_INFINITY, f64::max);
         assert_eq!(chosen, best);
-        let se = sel.scores.iter().map(|s| s.se).fold(0.0, f64::max);
+        let se = sel
+            .scores
+            .iter()
+            .filter(|s| s.candidate != Candidate::Poly)
+            .map(|s| s.se)
+            .fold(0.0, f64::max);
         assert!(
             best > plain + se,
             "weighted {best} vs plain {plain} (SE {se})"
@@ -798,7 +944,7 @@ mod tests {
                 min_leaf: 5,
                 seed: 1,
             }),
-            weights: [0.0, 1.0, 0.0],
+            weights: [0.0, 1.0, 0.0, 0.0],
             k: None,
             ..Choice::knn(1, true)
         };
