@@ -46,6 +46,10 @@ pub enum Command {
         /// Hold the memory estimate to this size instead of the memory available (`16G`).
         #[arg(long, value_name = "SIZE", value_parser = crate::runner::memory::parse_size)]
         memory_limit: Option<u64>,
+        /// Worker threads the memory estimate assumes, as `run --threads` (0 = one per core;
+        /// each worker holds its own training set and fit work).
+        #[arg(long, default_value_t = 0)]
+        threads: usize,
     },
     /// List the model families, their knobs and what the knob means.
     Families,

@@ -74,7 +74,8 @@ fn main() -> ExitCode {
         Command::Validate {
             scenario,
             memory_limit,
-        } => commands::validate_with(&scenario, memory_limit),
+            threads,
+        } => commands::validate_with(&scenario, memory_limit, threads),
         Command::Families => commands::families(),
     };
     match result {

@@ -1037,16 +1037,20 @@ fn refuse_missing(plan: &Plan, doc: &report::ResultDoc) -> Result<(), Error> {
 
 /// `lossprism validate`.
 pub fn validate(scenario: &Path) -> Result<u8, Error> {
-    validate_with(scenario, None)
+    validate_with(scenario, None, 0)
 }
 
 /// `lossprism validate --memory-limit SIZE`: checks the file, prints its memory estimate and
 /// refuses it when the estimate exceeds `memory_limit` (else the memory available).
-pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, Error> {
+pub fn validate_with(
+    scenario: &Path,
+    memory_limit: Option<u64>,
+    threads: usize,
+) -> Result<u8, Error> {
     crate::output::guard_inputs(&[("the scenario file", scenario)])?;
     let plan = scenario::load(scenario, &PlanOptions::default())?;
     refuse_custom(&plan)?;
-    let (estimate, cap) = runner::memory::check(&plan, 0, memory_limit)?;
+    let (estimate, cap) = runner::memory::check(&plan, threads, memory_limit)?;
     runner::prepare_to_fit(&plan)?;
     let models: Vec<String> = plan
         .models
@@ -1061,9 +1065,10 @@ pub fn validate_with(scenario: &Path, memory_limit: Option<u64>) -> Result<u8, E
         plan.train_size()
     );
     outln!(
-        "memory: {} on {} worker threads; {}",
+        "memory: {} on {} worker thread{}; {}",
         estimate.describe(),
         estimate.workers,
+        if estimate.workers == 1 { "" } else { "s" },
         match cap {
             Some(c) => format!("limit {}", runner::memory::fmt_bytes(c as f64)),
             None => "the machine's memory is unknown (not checked)".into(),
