@@ -2974,6 +2974,13 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     );
     t.add(
         g,
+        "validate --threads 100000",
+        s,
+        &["validate", "s.toml", "--threads", "100000"],
+        "at most 512 worker threads",
+    );
+    t.add(
+        g,
         "--threads 4294967297",
         s,
         &[

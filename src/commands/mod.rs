@@ -1047,6 +1047,7 @@ pub fn validate_with(
     memory_limit: Option<u64>,
     threads: usize,
 ) -> Result<u8, Error> {
+    runner::pool_check(threads)?;
     crate::output::guard_inputs(&[("the scenario file", scenario)])?;
     let plan = scenario::load(scenario, &PlanOptions::default())?;
     refuse_custom(&plan)?;
