@@ -70,8 +70,8 @@ pub enum Command {
     /// when the result holds a cross-validation audit.
     Plot(PlotArgs),
     /// Fit a simulated twin of a table and write a `source = "twin"` scenario: a reference for
-    /// E[y|x] chosen among k-NN, bagged trees, local-linear regression and their blend by
-    /// cross-validated R² (twiced with 3 or more inputs), inputs from a smoothed bootstrap
+    /// E[y|x] chosen among k-NN, bagged trees, local-linear regression, their blend and a
+    /// polynomial by cross-validated R² (twiced with 3 or more inputs), inputs from a smoothed bootstrap
     /// of the rows, and a noise estimate corrected by a parametric bootstrap; then a fidelity
     /// check (tables drawn from the twin, twinned again) says how often a twin of such a table picks the knob it should,
     /// and gives the recommended pick per family (the twin's lowest expected loss, with a
@@ -136,14 +136,15 @@ pub struct TwinArgs {
     #[arg(long, default_value_t = crate::dgp::twin::DEFAULT_JITTER, value_name = "C")]
     pub jitter: f64,
     /// What the jitter does to each column's variance: `table` (each jittered column is
-    /// shrunk toward its mean so it keeps the table's variance) or `added` (the plain smoothed
+    /// shrunk toward its mean so its variance does not exceed the table's) or `added` (the plain smoothed
     /// bootstrap: the table's variance plus the kernel's).
     #[arg(long, default_value = "table", value_name = "HOW")]
     pub jitter_variance: String,
     /// Evaluation points of the twin (drawn once).
     #[arg(long, default_value_t = 1000, value_name = "M")]
     pub eval_size: usize,
-    /// Reference candidate: `best` (highest cross-validated R²), `knn`, `forest`, `loclin`,
+    /// Reference candidate: `best` (highest cross-validated R²; the polynomial only when it
+    /// removes at least a tenth of the best other candidate's held-out error), `knn`, `forest`, `loclin`,
     /// `poly` or `blend`.
     #[arg(long, default_value = "best", value_name = "NAME")]
     pub reference: String,

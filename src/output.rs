@@ -129,10 +129,10 @@ impl Kind {
         match self {
             Kind::Any => true,
             _ if t.is_empty() => true,
-            Kind::Csv => {
-                let compact: String = t.chars().filter(|c| !c.is_whitespace()).collect();
-                !compact.starts_with("{\"format\":\"lossprism-")
-            }
+            // A JSON object that names a lossprism format anywhere in its first 4 MiB: the
+            // format need not come first (`jq -S` sorts it after `best`), and a table never
+            // starts with `{`.
+            Kind::Csv => !(t.starts_with('{') && t.contains("\"lossprism-")),
             Kind::Svg => {
                 // An XML declaration, comments and a doctype may come before the element.
                 let mut rest = t.as_str();
@@ -175,7 +175,7 @@ impl Kind {
     /// its comments, the other kinds say what they are at once.
     fn head_bytes(self) -> usize {
         match self {
-            Kind::Twin => 4 << 20,
+            Kind::Twin | Kind::Csv => 4 << 20,
             _ => HEAD_BYTES,
         }
     }
@@ -313,12 +313,17 @@ impl Outputs {
             }
         }
         let targets = self.recheck(false)?;
-        // A signal that ends the process waits for this commit (`wait_for_commit`).
-        let _gate = wait_for_commit();
+        // A signal that ends the process waits for the staging and the renames
+        // (`wait_for_commit`); the gate is let go before any stream is written, which may block.
+        let gate = wait_for_commit();
+        COMMITTING.store(true, std::sync::atomic::Ordering::SeqCst);
         let mut tx = Transaction::default();
-        match tx.run(&targets, &bytes) {
+        let result = tx.run(&targets, &bytes, gate);
+        COMMITTING.store(false, std::sync::atomic::Ordering::SeqCst);
+        match result {
             Ok(()) => {
                 tx.finish();
+                COMMITTED.store(true, std::sync::atomic::Ordering::SeqCst);
                 Ok(())
             }
             Err(e) => Err(tx.abort(e)),
@@ -761,6 +766,14 @@ fn same_kind(target: &Target) -> Result<(), Error> {
     if read.is_ok() && target.kind.accepts(&head) {
         return Ok(());
     }
+    if target.kind == Kind::Csv {
+        return Err(Error::Usage(format!(
+            "{}: {} is a lossprism result, part, checkpoint or ledger; a CSV table never \
+             replaces one (choose another file)",
+            target.flag,
+            crate::error::shown(&target.given)
+        )));
+    }
     Err(Error::Usage(format!(
         "{}: {} exists and is not {}; lossprism replaces a file only with its own kind of output \
          (choose another file, or remove it first)",
@@ -773,6 +786,8 @@ fn same_kind(target: &Target) -> Result<(), Error> {
 /// Checks that the folder of `target` accepts new files by creating and removing one.
 fn probe_folder(flag: &str, target: &Path) -> Result<(), Error> {
     let (dir, name) = split(target);
+    // A signal's exit waits for the probe to be removed, as for a commit.
+    let _gate = wait_for_commit();
     for _ in 0..100 {
         let probe = dir.join(side_name(name, "probe"));
         match OpenOptions::new().write(true).create_new(true).open(&probe) {
@@ -893,22 +908,51 @@ fn side_prefix(name: &OsStr) -> String {
     format!(".{}.", &full[..cut])
 }
 
-/// Held by every commit from its first staged file to its last rename or rollback.
+/// Held by every commit from its first staged file to its last rename (not while streams and
+/// standard output are written: a stalled reader must not hold a signal's exit).
 static COMMIT_GATE: std::sync::Mutex<()> = std::sync::Mutex::new(());
 
-/// Waits until no commit is in progress and keeps the next from starting while the guard
-/// lives: a signal handler takes it before ending the process, so an exit never leaves staged
-/// copies behind or lands between two renames of a multi-file output.
+/// Set while a commit writes (staging, renames, streams).
+static COMMITTING: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// Set once a commit has written everything (what a signal handler reports).
+static COMMITTED: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// Waits until no commit is staging or renaming and keeps the next from starting while the
+/// guard lives: a signal handler takes it before ending the process, so an exit never leaves
+/// staged copies behind or lands between two renames of a multi-file output.
 pub fn wait_for_commit() -> std::sync::MutexGuard<'static, ()> {
     COMMIT_GATE.lock().unwrap_or_else(|e| e.into_inner())
 }
 
-/// Whether a commit is writing right now (the gate of [`wait_for_commit`] is held).
+/// [`wait_for_commit`], giving up after `limit` (`None`: the gate is still held; a signal
+/// handler then ends the process anyway rather than hang on a stuck disk).
+pub fn wait_for_commit_within(
+    limit: std::time::Duration,
+) -> Option<std::sync::MutexGuard<'static, ()>> {
+    let end = std::time::Instant::now() + limit;
+    loop {
+        match COMMIT_GATE.try_lock() {
+            Ok(g) => return Some(g),
+            Err(std::sync::TryLockError::Poisoned(e)) => return Some(e.into_inner()),
+            Err(std::sync::TryLockError::WouldBlock) => {
+                if std::time::Instant::now() >= end {
+                    return None;
+                }
+                std::thread::sleep(std::time::Duration::from_millis(5));
+            }
+        }
+    }
+}
+
+/// Whether a commit of this process has written all its outputs.
+pub fn committed() -> bool {
+    COMMITTED.load(std::sync::atomic::Ordering::SeqCst)
+}
+
+/// Whether a commit is writing right now (staging, renaming or writing a stream).
 pub fn commit_in_progress() -> bool {
-    matches!(
-        COMMIT_GATE.try_lock(),
-        Err(std::sync::TryLockError::WouldBlock)
-    )
+    COMMITTING.load(std::sync::atomic::Ordering::SeqCst)
 }
 
 /// Removes the staged copies (`.NAME.PID.N.tmp`) that a process killed while writing `path`
@@ -970,7 +1014,12 @@ struct Transaction {
 }
 
 impl Transaction {
-    fn run(&mut self, targets: &[Target], bytes: &[Vec<u8>]) -> Result<(), Error> {
+    fn run(
+        &mut self,
+        targets: &[Target],
+        bytes: &[Vec<u8>],
+        gate: std::sync::MutexGuard<'static, ()>,
+    ) -> Result<(), Error> {
         // 1. Stage every regular-file output; nothing visible changes. Staged copies that a
         // killed earlier process left beside an output go first (tidying).
         let mut staged = Vec::new();
@@ -991,7 +1040,9 @@ impl Transaction {
         for (t, path, tmp) in staged {
             self.install(t, path, &tmp)?;
         }
-        // 4. Streams, then standard output.
+        // 4. Streams, then standard output: a reader that stalls would hold a signal's exit
+        // for as long, and what is written there cannot be taken back anyway.
+        drop(gate);
         for (t, mut file, b) in streams {
             write_patiently(&mut file, b).map_err(|e| Error::io(&t.given, &e))?;
         }
@@ -1498,6 +1549,8 @@ mod tests {
             "{\"format\":\"lossprism-part/2\",\"checkpoint\":true}",
             "{\n  \"format\": \"lossprism-result/3\"",
             "{\"format\":\"lossprism-holdout-ledger/1\"}",
+            // Keys sorted (`jq -S`): the format after others.
+            "{\"best\": {\"value\": 3}, \"format\": \"lossprism-result/3\"}",
         ] {
             assert!(!ok(Kind::Csv, doc), "{doc}");
         }

@@ -126,7 +126,7 @@ pub fn install_interrupt(mode: OnInterrupt) {
         // External estimators started by the run end with it (they would otherwise run on
         // until their current fit ends when only lossprism was signalled).
         let exit = || -> ! {
-            let _gate = crate::output::wait_for_commit();
+            let _gate = crate::output::wait_for_commit_within(std::time::Duration::from_secs(30));
             crate::family::external::kill_running();
             std::process::exit(130)
         };
@@ -156,12 +156,25 @@ pub fn install_interrupt(mode: OnInterrupt) {
                     );
                     exit();
                 }
-                noteln!("\ninterrupted: nothing written");
+                // A commit that was about to start finishes first (the gate); say what happened.
+                let gate =
+                    crate::output::wait_for_commit_within(std::time::Duration::from_secs(30));
+                if crate::output::committed() {
+                    noteln!("\ninterrupted after the outputs were written");
+                } else {
+                    noteln!("\ninterrupted: nothing written");
+                }
+                drop(gate);
                 exit();
             }
             OnInterrupt::FinishBlocks { checkpoint } => {
                 if INTERRUPTED.swap(true, Ordering::SeqCst) {
+                    let gate =
+                        crate::output::wait_for_commit_within(std::time::Duration::from_secs(30));
                     match checkpoint {
+                        _ if crate::output::committed() => {
+                            noteln!("\ninterrupted twice, after the outputs were written")
+                        }
                         Some(ck) => noteln!(
                             "\ninterrupted twice: stopping now; the finished blocks are saved in \
                              {}; rerun the same command to resume",
@@ -169,14 +182,15 @@ pub fn install_interrupt(mode: OnInterrupt) {
                         ),
                         None => noteln!("\ninterrupted twice: stopping now, nothing written"),
                     }
+                    drop(gate);
                     exit();
                 }
                 if WRITING.load(Ordering::SeqCst) || crate::output::commit_in_progress() {
                     noteln!("\ninterrupt: finishing the outputs being written (again to stop now)");
                 } else {
                     noteln!(
-                        "\ninterrupt: finishing the blocks in flight, then stopping (Ctrl-C again \
-                         to stop now)"
+                        "\ninterrupt: finishing the blocks in flight, then stopping (a second \
+                         Ctrl-C or SIGTERM stops now)"
                     );
                 }
             }

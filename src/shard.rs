@@ -47,13 +47,17 @@ pub fn check_document_size(plan: &Plan, shard: Option<ShardSpec>, flag: &str) ->
     if bytes <= MAX_PART_BYTES as f64 {
         return Ok(());
     }
-    let whole = DOCUMENT_BYTES_PER_ACCUMULATOR_BYTE * plan.accumulator_bytes();
-    let shards = (whole / (MAX_PART_BYTES as f64 * 0.95)).ceil().max(2.0) as u64;
+    // Shards split the blocks as evenly as they can (`ShardSpec::block_range`), so the largest
+    // holds ceil(blocks / shards) of them: the advice counts blocks, not bytes.
+    let per_block =
+        DOCUMENT_BYTES_PER_ACCUMULATOR_BYTE * plan.accumulator_bytes() / plan.blocks.max(1) as f64;
+    let room = ((MAX_PART_BYTES - (1u64 << 20)) as f64 / per_block).floor() as u64;
     let gib = |b: f64| b / (1u64 << 30) as f64;
-    let split = if shards <= plan.blocks {
+    let split = if room >= 1 {
+        let shards = plan.blocks.div_ceil(room).max(2);
         format!("run it as {shards} or more shards (`--shard I/{shards}`, each with its own checkpoint)")
     } else {
-        "raise `blocks` and run it as more shards".to_string()
+        "one replicate block alone is too large, so sharding cannot help".to_string()
     };
     Err(Error::Usage(format!(
         "{flag}: the file would hold about {:.1} GiB of encoded accumulators, more than the {} \

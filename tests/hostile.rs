@@ -3602,13 +3602,9 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
         (
             "checkpoint",
             &docs.checkpoint,
-            "not a file other than a lossprism result, part, checkpoint or ledger",
+            "a CSV table never replaces one",
         ),
-        (
-            "result",
-            &docs.result,
-            "not a file other than a lossprism result, part, checkpoint or ledger",
-        ),
+        ("result", &docs.result, "a CSV table never replaces one"),
         ("ledger", &docs.ledger, "is a holdout ledger"),
     ] {
         t.add(

@@ -235,6 +235,17 @@ fn emit(
 pub fn run(args: RunArgs) -> Result<u8, Error> {
     // Wall time goes to the HTML report only, never into the result document.
     let started = std::time::Instant::now();
+    // The handler first, before any output path is probed. Without a checkpoint or a part
+    // nothing keeps the blocks in flight, so a signal ends the run at once (it waited for them,
+    // 49 s on a large run, then threw them away; a batch system's SIGKILL can come first).
+    let checkpointed = args.shard.is_some() || args.checkpoint.is_some();
+    progress::install_interrupt(if checkpointed {
+        progress::OnInterrupt::FinishBlocks {
+            checkpoint: args.checkpoint.clone(),
+        }
+    } else {
+        progress::OnInterrupt::ExitNow { checkpoint: None }
+    });
     let opts = PlanOptions {
         replicates: args.replicates,
         seed: args.seed,
@@ -386,7 +397,6 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     if args.plot_points.is_some() {
         report::plot::check_point_request(&plan, args.input.as_deref())?;
     }
-    let checkpointed = args.shard.is_some() || args.checkpoint.is_some();
     if checkpointed {
         let flag = if args.checkpoint.is_some() {
             "--checkpoint"
@@ -395,16 +405,6 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         };
         shard::check_document_size(&plan, args.shard, flag)?;
     }
-    // Without a checkpoint or a part nothing keeps the blocks in flight, so a signal ends the
-    // run at once (it waited for them, 49 s on a large run, then threw them away; a batch
-    // system's SIGKILL can come first).
-    progress::install_interrupt(if checkpointed {
-        progress::OnInterrupt::FinishBlocks {
-            checkpoint: args.checkpoint.clone(),
-        }
-    } else {
-        progress::OnInterrupt::ExitNow { checkpoint: None }
-    });
     if !checkpointed {
         let watch = progress::Progress::new(plan.replicates, args.quiet);
         let outcome = match runner::run_watched(&plan, args.threads, &watch)? {

@@ -624,6 +624,12 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             twin::TWICE_FROM_INPUTS
         )),
         None if sel.choice.twice => v.push("Twiced because `--twicing on` asked for it.".into()),
+        None if fit.twicing_mode == Twicing::Auto && sel.choice.family == Candidate::Poly => v
+            .push(
+            "Not twiced: a polynomial least-squares fit is a projection, so twicing it would give \
+             back the same fit."
+                .into(),
+        ),
         None => {}
     }
     v
@@ -651,7 +657,7 @@ fn inputs_line(t: &Table, jitter: Option<&Jitter>, eval_size: usize) -> String {
                 t.rows(),
                 j.scale,
                 if j.keeps_variance() {
-                    ", then shrunk toward the column's mean so it keeps the table's variance"
+                    ", then shrunk toward the column's mean so its variance does not exceed the table's"
                 } else {
                     ""
                 },

@@ -306,7 +306,7 @@ impl Jitter {
         if self.h[j] > 0.0 {
             let kept = if self.shrink[j] != 1.0 {
                 format!(
-                    ", then shrunk toward the mean by {} to keep the table's variance",
+                    ", then shrunk toward the mean by {} so its variance is the table's",
                     crate::fmt::fmt_num(self.shrink[j])
                 )
             } else {
@@ -931,10 +931,15 @@ pub fn fit_regression_shaped(
         }
         _ => None,
     };
+    // A polynomial reference is a least-squares projection: twicing it gives back the same
+    // fit, so the rule leaves it once (`--twicing on` still twices it, to no effect).
+    let projection = selection.choice.family == super::reference::Candidate::Poly;
     let twice = match twicing {
         Twicing::On => true,
         Twicing::Off => false,
-        Twicing::Auto => x.ncols() >= TWICE_FROM_INPUTS || check.is_some_and(|c| c.twice()),
+        Twicing::Auto => {
+            !projection && (x.ncols() >= TWICE_FROM_INPUTS || check.is_some_and(|c| c.twice()))
+        }
     };
     // The twin's truth is sharpened after the noise was measured and the twicing decided,
     // both with the cross-validated recipe (measured so: docs/twin-calibration.md §0.5).

@@ -271,8 +271,9 @@ struct Worker {
 }
 
 /// Process ids of the external processes started and not yet reaped, so that a signal that
-/// ends lossprism at once can end them too ([`kill_running`]). An id leaves the list as soon as
-/// its process is reaped, before the id can be reused.
+/// ends lossprism at once can end them too ([`kill_running`]). A process is reaped only while
+/// this list's lock is held, and its id leaves the list under the same lock, so
+/// [`kill_running`] (which holds it too) never signals an id the system may have reused.
 static RUNNING: Mutex<Vec<u32>> = Mutex::new(Vec::new());
 
 fn running() -> std::sync::MutexGuard<'static, Vec<u32>> {
@@ -285,10 +286,12 @@ fn running() -> std::sync::MutexGuard<'static, Vec<u32>> {
 pub fn kill_running() {
     #[cfg(unix)]
     for &pid in running().iter() {
-        // SAFETY: kill(2) with a process id this process started and has not reaped (so the
-        // id still names that child); no memory is touched.
+        // SAFETY: kill(2) and waitpid(2) on a process id this process started and has not
+        // reaped (so the id still names that child), with a null status pointer; no memory is
+        // touched. Reaped here, so no zombie is left for an init that may not reap it.
         unsafe {
             libc::kill(pid as libc::pid_t, libc::SIGKILL);
+            libc::waitpid(pid as libc::pid_t, std::ptr::null_mut(), 0);
         }
     }
 }
@@ -298,22 +301,20 @@ impl Worker {
     fn kill(&mut self) {
         self.requests = None;
         self.killed_by_us = true;
+        let pid = self.child.id();
+        let mut list = running();
         let _ = self.child.kill();
         let _ = self.child.wait();
-        self.forget();
+        list.retain(|p| *p != pid);
     }
 
-    /// Takes the process off [`RUNNING`] (it was reaped).
-    fn forget(&self) {
-        let pid = self.child.id();
-        running().retain(|p| *p != pid);
-    }
-
-    /// `try_wait`, taking a reaped process off [`RUNNING`].
+    /// `try_wait`; a reaped process leaves [`RUNNING`] under the same lock.
     fn try_reap(&mut self) -> Option<std::process::ExitStatus> {
+        let pid = self.child.id();
+        let mut list = running();
         match self.child.try_wait() {
             Ok(Some(st)) => {
-                self.forget();
+                list.retain(|p| *p != pid);
                 Some(st)
             }
             _ => None,
@@ -324,14 +325,10 @@ impl Worker {
     fn close(&mut self) {
         self.requests = None;
         for _ in 0..50 {
-            match self.child.try_wait() {
-                Ok(Some(_)) => {
-                    self.forget();
-                    return;
-                }
-                Ok(None) => std::thread::sleep(Duration::from_millis(10)),
-                Err(_) => break,
+            if self.try_reap().is_some() {
+                return;
             }
+            std::thread::sleep(Duration::from_millis(10));
         }
         self.kill();
     }

@@ -299,10 +299,22 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             .iter()
             .map(|c| format!("{} {}", c.candidate, fmt_num(c.r2)))
             .collect();
+        // The polynomial is chosen by its own bar, not by the highest R² alone.
+        let poly_passed = t.reference != "poly"
+            && t.cv_r2.iter().any(|c| c.candidate == "poly")
+            && t.cv_r2
+                .iter()
+                .filter(|c| c.candidate != "poly")
+                .all(|c| t.cv_r2.iter().any(|p| p.candidate == "poly" && p.r2 > c.r2));
         out.push(format!(
-            "The twin's truth is the `{}` reference, chosen by cross-validated R² among the candidates ({}){}; it is an estimate of E[y | x], not the table's real truth.",
+            "The twin's truth is the `{}` reference, chosen by cross-validated R² among the candidates ({}{}){}; it is an estimate of E[y | x], not the table's real truth.",
             t.reference,
             r2.join(", "),
+            if poly_passed {
+                "; the polynomial scored highest but is chosen only when it removes at least a tenth of the best other candidate's held-out error, which it did not"
+            } else {
+                ""
+            },
             if t.twice {
                 ", then twiced (refitted to its own residuals and added, which gives back curvature a cross-validated fit rounds off)"
             } else {

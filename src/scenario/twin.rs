@@ -685,6 +685,15 @@ pub fn from_spec(
     };
     let keep_variance = match &d.jitter_variance {
         None => false,
+        Some(s) if jitter == 0.0 => {
+            return Err(err(
+                s.span(),
+                "data.jitter_variance",
+                "shapes the jitter, and this twin has none (`jitter` is 0 or absent): remove \
+                 it or set `jitter`"
+                    .into(),
+            ))
+        }
         Some(s) => match s.get_ref().as_str() {
             "table" => true,
             "added" => false,

@@ -5,8 +5,9 @@
 //! ([`select`]): k nearest neighbours, bagged trees ([`forest`]), local-linear kernel
 //! regression ([`loclin`]), polynomial least squares of total degree 1 to 3
 //! ([`crate::family::poly::PolyFit`], the `poly` family's basis; the one candidate that follows
-//! a polynomial trend, such as a product of inputs, into the table's sparse tails) and a stacked
-//! non-negative blend of the four. A [`Choice`] records everything needed to refit the chosen
+//! a polynomial trend, such as a product of inputs, into the table's sparse tails; never part of
+//! the blend `select` builds, though a hand-written recipe may give it a weight) and a stacked
+//! non-negative blend of the first three. A [`Choice`] records everything needed to refit the chosen
 //! reference exactly (which candidate, its knobs, the forest's seed, the blend's weights), and a twin scenario writes it as
 //! `reference = { family = "forest", k = 16, trees = 100, min_leaf = 5, seed = 7, ... }`; `run`
 //! refits it at plan time, bit for bit. The older form `{ family = "knn", k = 7, standardize =
@@ -109,10 +110,12 @@ impl Candidate {
             Candidate::Knn => "k nearest neighbours on standardized inputs",
             Candidate::Forest => "bagged regression trees (Breiman 1996)",
             Candidate::LocLin => "local-linear Gaussian-kernel regression (Fan and Gijbels 1996)",
-            Candidate::Poly => "polynomial least squares in the inputs (total degree 1 to 3)",
+            Candidate::Poly => {
+                "polynomial least squares in the inputs (total degree 1 to 3 when chosen by \
+                 cross-validation)"
+            }
             Candidate::Blend => {
-                "non-negative stacked blend of k-NN, bagged trees, local-linear and polynomial \
-                 (Breiman 1996)"
+                "non-negative stacked blend of k-NN, bagged trees and local-linear (Breiman 1996)"
             }
         }
     }

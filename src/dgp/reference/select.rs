@@ -409,8 +409,10 @@ fn pick(rule: Rule, r2: &[(f64, f64); 5]) -> Candidate {
             chosen
         };
     if chosen == Candidate::Blend && r2[4].0.is_nan() {
-        // No blend (every weight 0): the best single candidate.
+        // No blend (every weight 0): the best single candidate (not the polynomial, which
+        // only `choose`'s bar or a forced rule picks).
         let mut single = *r2;
+        single[3] = (f64::NAN, f64::NAN);
         single[4] = (f64::NAN, f64::NAN);
         pick(Rule::Best, &single)
     } else {
@@ -430,7 +432,7 @@ fn slot(c: Candidate) -> usize {
 
 /// Share of the best other candidate's held-out error that the polynomial must remove to be
 /// chosen ([`choose`]; a rule of thumb set on invented processes, no source: a cubic took 2–3%
-/// of the error off tables with kinks, where it makes a worse truth, and 63% off a product of
+/// of the error off tables with kinks, where it makes a worse truth, and 58–64% off a product of
 /// three inputs).
 pub const POLY_MIN_CUT: f64 = 0.1;
 
@@ -574,7 +576,16 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             }
         }
     }
-    let chosen_of = |t: &Tuned| slot(choose(rule, y, &t.r2, &t.held_out));
+    // Input metrics are compared on the candidates they change (the polynomial ignores them):
+    // comparing `choose`'s picks let a metric that made k-NN and local-linear worse lower the
+    // polynomial's bar. The polynomial then meets its bar once, against the kept metric's pick.
+    let chosen_of = |t: &Tuned| {
+        let mut others = t.r2;
+        if rule == Rule::Best {
+            others[3] = (f64::NAN, f64::NAN);
+        }
+        slot(pick(rule, &others))
+    };
     let metric_scores: Vec<MetricScore> = tried
         .iter()
         .enumerate()
@@ -623,7 +634,10 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
                 crate::fmt::fmt_num(100.0 * g / (1.0 - others[slot(base)].0))
             )
         }
-        None => "not tried: too few rows for a basis of degree 1".to_string(),
+        None if degrees.is_empty() => {
+            "too few rows for a basis of degree 1 (4 training rows per coefficient)".to_string()
+        }
+        None => "its least-squares fit failed (a non-finite prediction)".to_string(),
     };
     let bandwidth = loclin::H_CANDIDATES[li];
     let fmt_w = |w: &[f64; 4]| {
