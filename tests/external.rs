@@ -522,3 +522,49 @@ fn external_keys_are_checked() {
         .unwrap();
     assert_eq!(out.status.code(), Some(0));
 }
+
+/// A signal to lossprism alone (not its process group, as a supervisor sends it) ends the
+/// external estimator too: the process was left running under PID 1 until its current fit
+/// ended (a hostile-input sweep), though every process is to be waited for.
+#[cfg(unix)]
+#[test]
+fn a_signal_to_lossprism_ends_its_external_processes() {
+    if !python_ok() {
+        println!("skipped: python3 is not available");
+        return;
+    }
+    let dir = tempfile::tempdir().unwrap();
+    let tag = format!("lp_ext_signal_{}", std::process::id());
+    let script = format!("{tag}.py");
+    std::fs::write(dir.path().join(&script), BAD).unwrap();
+    // `sleep` after 0 good answers: the first fit sleeps 120 s.
+    let model =
+        format!("family = \"external\"\ncommand = [\"python3\", \"{script}\", \"sleep\", \"0\"]\nknob = \"k\"");
+    std::fs::write(dir.path().join("s.toml"), regression(&model)).unwrap();
+    let child = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .args(["run", "s.toml", "--threads", "1", "-q", "--out", "r.json"])
+        .current_dir(dir.path())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    // Wait until the estimator runs, then signal lossprism's own id only.
+    let start = Instant::now();
+    while !leftover(&tag) && start.elapsed().as_secs() < 20 {
+        std::thread::sleep(std::time::Duration::from_millis(50));
+    }
+    assert!(leftover(&tag), "the estimator never started");
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    let status = Command::new("kill")
+        .args(["-TERM", &child.id().to_string()])
+        .status()
+        .unwrap();
+    assert!(status.success());
+    let out = child.wait_with_output().unwrap();
+    assert_eq!(out.status.code(), Some(130));
+    std::thread::sleep(std::time::Duration::from_millis(300));
+    assert!(
+        !leftover(&tag),
+        "the estimator outlived lossprism: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+}

@@ -511,7 +511,16 @@ fn run_in_blocks(
         130
     };
     if progress::interrupted() {
-        return Ok(stop_after_blocks("after the last block"));
+        if args.shard.is_some() && args.checkpoint.is_none() {
+            // Nothing else keeps a finished shard's blocks, and its part takes moments to
+            // write: written, rather than thrown away (a batch system's time limit).
+            noteln!(
+                "interrupted after the last block: writing the part, which nothing else would \
+                 keep"
+            );
+        } else {
+            return Ok(stop_after_blocks("after the last block"));
+        }
     }
     if done.resumed > 0 && !args.quiet {
         if let Some(ck) = &args.checkpoint {
