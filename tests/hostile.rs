@@ -325,6 +325,7 @@ fn scenario_cases(t: &mut Table) {
     let g = "scenario";
     let v = "validate";
     // A comparison with NaN read as 0: half of U[-1, 1] silently got 0 for `sqrt(x) > 0.5`.
+    // (And the message names the formula's line, which data errors did not.)
     t.scenario(
         g,
         "a comparison of NaN in the truth",
@@ -333,8 +334,9 @@ fn scenario_cases(t: &mut Table) {
             "uniform = [-1.0, 1.0]\n\n[data.truth]\nformula = \"(sqrt(x) > 0.5) + 1\"",
         ),
         v,
-        "NaN",
-    );
+        "s.toml:16: key `data.truth.formula`",
+    )
+    .also("NaN");
     // A subnormal inverse penalty passed `validate`, then every fit failed.
     t.scenario(
         g,
