@@ -912,6 +912,10 @@ fn side_prefix(name: &OsStr) -> String {
 /// standard output are written: a stalled reader must not hold a signal's exit).
 static COMMIT_GATE: std::sync::Mutex<()> = std::sync::Mutex::new(());
 
+/// Output paths whose folder was tidied of stale staged copies in this process.
+static TIDIED: std::sync::Mutex<std::collections::BTreeSet<PathBuf>> =
+    std::sync::Mutex::new(std::collections::BTreeSet::new());
+
 /// Set while a commit writes (staging, renames, streams).
 static COMMITTING: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
 
@@ -1021,11 +1025,18 @@ impl Transaction {
         gate: std::sync::MutexGuard<'static, ()>,
     ) -> Result<(), Error> {
         // 1. Stage every regular-file output; nothing visible changes. Staged copies that a
-        // killed earlier process left beside an output go first (tidying).
+        // killed earlier process left beside an output go first (tidying, once per path in a
+        // process: a checkpoint is rewritten after every block).
         let mut staged = Vec::new();
         for (t, b) in targets.iter().zip(bytes) {
             if let Place::Staged(path) = &t.place {
-                remove_stale_staging(path);
+                let first = TIDIED
+                    .lock()
+                    .unwrap_or_else(|e| e.into_inner())
+                    .insert(path.clone());
+                if first {
+                    remove_stale_staging(path);
+                }
                 staged.push((t, path, self.stage(t, path, b)?));
             }
         }

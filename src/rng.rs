@@ -164,6 +164,15 @@ pub fn fold_assignment<R: Rng + ?Sized>(n: usize, folds: usize, rng: &mut R) -> 
     fold
 }
 
+/// Rows in the smallest training set of a fold assignment (`fold[i]` in `0..folds`): the rows
+/// outside the largest fold.
+pub fn smallest_training_fold(fold: &[usize], folds: usize) -> usize {
+    (0..folds)
+        .map(|f| fold.iter().filter(|&&g| g != f).count())
+        .min()
+        .unwrap_or(0)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

@@ -180,6 +180,7 @@ impl Jitter {
     pub fn fit_keeping(x: ArrayView2<'_, f64>, scale: f64, keep_variance: bool) -> Jitter {
         let n = x.nrows();
         let mut cont = Vec::new();
+        let mut center = Vec::new();
         let mut spread = Vec::new();
         let (mut lo, mut hi) = (Vec::new(), Vec::new());
         for col in x.columns() {
@@ -195,6 +196,8 @@ impl Jitter {
                 .iter()
                 .all(|a| a.fract() == 0.0 && a.abs() < 9_007_199_254_740_992.0);
             cont.push(!(whole || distinct.len() <= DISCRETE_LEVELS));
+            // In the column's own order (the centre of the shrink, as `run` refits it).
+            center.push(col.iter().sum::<f64>() / n as f64);
             let m = v.iter().sum::<f64>() / n as f64;
             let sd = if n > 1 {
                 (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / (n as f64 - 1.0)).sqrt()
@@ -210,11 +213,6 @@ impl Jitter {
             .iter()
             .zip(&spread)
             .map(|(&c, &s)| if c { scale * s * factor } else { 0.0 })
-            .collect();
-        let center: Vec<f64> = x
-            .columns()
-            .into_iter()
-            .map(|c| c.iter().sum::<f64>() / n as f64)
             .collect();
         let mut shrink = vec![1.0; h.len()];
         if keep_variance {

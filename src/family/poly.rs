@@ -264,10 +264,7 @@ pub fn out_of_fold(
     degrees: &[usize],
 ) -> Vec<Option<Vec<f64>>> {
     let (n, p) = x.dim();
-    let smallest = (0..folds)
-        .map(|f| fold.iter().filter(|&&g| g != f).count())
-        .min()
-        .unwrap_or(0);
+    let smallest = crate::rng::smallest_training_fold(fold, folds);
     let ok: Vec<usize> = degrees
         .iter()
         .copied()

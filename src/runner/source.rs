@@ -107,8 +107,13 @@ fn with_file(plan: &Plan, e: Error) -> Error {
                 .strip_prefix("key `")
                 .and_then(|r| r.split_once('`'))
                 .and_then(|(key, _)| {
+                    // The key itself (`data.truth.formula`), else the table it is in.
+                    let key = key.strip_prefix("data.")?;
                     let text = std::fs::read_to_string(&plan.file).ok()?;
-                    key_line(&text, key)
+                    crate::scenario::data_key_line(&text, key).or_else(|| {
+                        let (table, _) = key.rsplit_once('.')?;
+                        crate::scenario::data_key_line(&text, table)
+                    })
                 });
             match line {
                 Some(l) => Error::Data(format!("{}:{l}: {m}", plan.file)),
@@ -117,31 +122,6 @@ fn with_file(plan: &Plan, e: Error) -> Error {
         }
         other => other,
     }
-}
-
-/// The 1-based line of dotted `key` in a scenario's text: `last = ...` inside the section
-/// `[head]` (the key without its last part), else that section's header line (`key` itself a
-/// section, as `data.truth`). `None` when neither is found.
-fn key_line(text: &str, key: &str) -> Option<usize> {
-    let header = |name: &str| {
-        text.lines()
-            .position(|l| l.trim().replace(' ', "") == format!("[{name}]"))
-    };
-    if let Some((head, last)) = key.rsplit_once('.') {
-        if let Some(start) = header(head) {
-            let found = text
-                .lines()
-                .enumerate()
-                .skip(start + 1)
-                .take_while(|(_, l)| !l.trim_start().starts_with('['))
-                .find(|(_, l)| {
-                    l.split_once('=')
-                        .is_some_and(|(k, _)| k.trim().trim_matches('"') == last)
-                });
-            return Some(found.map_or(start, |(i, _)| i) + 1);
-        }
-    }
-    header(key).map(|i| i + 1)
 }
 
 /// [`prepare`] for a run that fits (or `validate`): first every family's

@@ -120,9 +120,9 @@ pub fn load_default(opts: &PlanOptions) -> Result<Plan, Error> {
 
 /// 1-based line where key `key` of `[data]` is given: its own table header (`[data.key]`,
 /// `[[data.key]]`, `[data.key.sub]`), a `key = ...` line inside `[data]`, or a dotted
-/// `data.key = ...` / `key.sub = ...`; `None` when not found (an inline table, say). For messages
-/// about a key that is present but not used, which should point at the key and not at
-/// `source`.
+/// `data.key = ...` / `key.sub = ...`; `key` may itself be dotted (`truth.formula`: the
+/// `formula = ...` line of `[data.truth]`). `None` when not found (an inline table, say). For
+/// messages about a key, which should point at the key and not at `source`.
 pub fn data_key_line(src: &str, key: &str) -> Option<usize> {
     let mut section = String::new();
     for (i, raw) in src.lines().enumerate() {
@@ -150,10 +150,14 @@ pub fn data_key_line(src: &str, key: &str) -> Option<usize> {
             .chars()
             .filter(|c| !c.is_whitespace() && *c != '"')
             .collect();
-        let dotted = |prefix: &str| {
-            k == format!("{prefix}{key}") || k.starts_with(&format!("{prefix}{key}."))
+        // The key's full dotted name in this section.
+        let name = if section.is_empty() {
+            k
+        } else {
+            format!("{section}.{k}")
         };
-        if (section == "data" && dotted("")) || (section.is_empty() && dotted("data.")) {
+        let full = format!("data.{key}");
+        if name == full || name.starts_with(&format!("{full}.")) {
             return Some(i + 1);
         }
     }
@@ -189,6 +193,9 @@ mod tests {
         assert_eq!(data_key_line(src, "noise"), Some(5));
         assert_eq!(data_key_line(src, "truth"), Some(7));
         assert_eq!(data_key_line(src, "inputs"), Some(9));
+        // A key inside a `[data]` sub-table, by its dotted name.
+        assert_eq!(data_key_line(src, "truth.formula"), Some(8));
+        assert_eq!(data_key_line(src, "truth.sd"), None);
         // A key of another table, or a longer key that starts the same, is not it.
         assert_eq!(data_key_line(src, "formula"), None);
         assert_eq!(data_key_line(src, "nois"), None);

@@ -266,27 +266,6 @@ fn model_sections(src: &str) -> Vec<(usize, usize)> {
         .collect()
 }
 
-/// 1-based line of the `[data.noise]` header in `src`, or of a `noise = ...` key inside
-/// `[data]`.
-fn src_line_of_noise(src: &str) -> Option<usize> {
-    let mut in_data = false;
-    for (i, l) in src.lines().enumerate() {
-        let t = l.trim();
-        if t.starts_with('[') {
-            if t.replace(' ', "") == "[data.noise]" {
-                return Some(i + 1);
-            }
-            in_data = t.replace(' ', "") == "[data]";
-        } else if in_data
-            && t.split_once('=')
-                .is_some_and(|(k, _)| k.trim().trim_matches('"') == "noise")
-        {
-            return Some(i + 1);
-        }
-    }
-    None
-}
-
 /// 1-based line of `key = ...` within section `(start, end)` of `src`, else the section's header.
 fn key_line(src: &str, section: Option<(usize, usize)>, key: &str) -> Option<usize> {
     let (start, end) = section?;
@@ -1908,7 +1887,7 @@ fn synthetic(cx: &Ctx<'_>, d: &DataSpec) -> Result<SyntheticPlan, ScenarioError>
                 None => {
                     // The `[data.noise]` header's line (an inline `noise = {...}` in `[data]`:
                     // that key's line), not the `source` line.
-                    let line = src_line_of_noise(cx.src)
+                    let line = super::data_key_line(cx.src, "noise")
                         .unwrap_or_else(|| super::line_of(cx.src, d.source.span().start));
                     return Err(cx.err_line(
                         Some(line),

@@ -989,10 +989,7 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
     }
     let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
     let fold = crate::rng::fold_assignment(n, folds, &mut rng);
-    let min_train = (0..folds)
-        .map(|f| fold.iter().filter(|&&g| g != f).count())
-        .min()
-        .unwrap_or(0);
+    let min_train = crate::rng::smallest_training_fold(&fold, folds);
     let ks: Vec<usize> = K_CANDIDATES
         .iter()
         .copied()

@@ -209,10 +209,7 @@ fn knn_out_of_fold(
     std: &Standardizer,
 ) -> (Vec<usize>, Vec<Vec<f64>>) {
     let n = y.len();
-    let min_train = (0..folds)
-        .map(|f| fold.iter().filter(|&&g| g != f).count())
-        .min()
-        .unwrap_or(0);
+    let min_train = crate::rng::smallest_training_fold(fold, folds);
     let mut ks: Vec<usize> = K_CANDIDATES
         .iter()
         .copied()
@@ -450,25 +447,26 @@ fn choose(rule: Rule, y: &[f64], r2: &[(f64, f64); 5], held_out: &[Vec<f64>; 5])
     if rule != Rule::Best {
         return pick(rule, r2);
     }
-    let mut others = *r2;
-    others[3] = (f64::NAN, f64::NAN);
-    let base = pick(rule, &others);
-    if !r2[3].0.is_nan() && poly_clears(poly_gain(y, held_out, base), others[slot(base)].0) {
+    let (base, base_r2, gain) = without_poly(y, r2, held_out);
+    if !r2[3].0.is_nan() && metric_guard(gain) && gain.0 >= POLY_MIN_CUT * (1.0 - base_r2) {
         Candidate::Poly
     } else {
         base
     }
 }
 
-/// Whether the polynomial's paired gain `gain` (in R², with its SE) over a candidate of
-/// cross-validated R² `base_r2` clears [`choose`]'s bar.
-fn poly_clears(gain: (f64, f64), base_r2: f64) -> bool {
-    metric_guard(gain) && gain.0 >= POLY_MIN_CUT * (1.0 - base_r2)
-}
-
-/// The polynomial's paired gain in R² over candidate `base` (NaN when it was not tried).
-fn poly_gain(y: &[f64], held_out: &[Vec<f64>; 5], base: Candidate) -> (f64, f64) {
-    paired_gain(y, &held_out[slot(base)], &held_out[3])
+/// The best candidate but the polynomial ([`pick`] under [`Rule::Best`]), its cross-validated
+/// R², and the polynomial's paired gain in R² over it (NaN when the polynomial was not tried).
+fn without_poly(
+    y: &[f64],
+    r2: &[(f64, f64); 5],
+    held_out: &[Vec<f64>; 5],
+) -> (Candidate, f64, (f64, f64)) {
+    let mut others = *r2;
+    others[3] = (f64::NAN, f64::NAN);
+    let base = pick(Rule::Best, &others);
+    let gain = paired_gain(y, &held_out[slot(base)], &held_out[3]);
+    (base, others[slot(base)].0, gain)
 }
 
 /// Total degrees tried for the polynomial candidate.
@@ -484,9 +482,8 @@ pub const POLY_MAX_WORK: f64 = 5e8;
 /// practice, no source: fewer leave least squares mostly fitting noise).
 pub const POLY_ROWS_PER_TERM: usize = 4;
 
-/// The polynomial degrees tried on a table of `n` rows and `p` inputs.
-pub fn poly_degrees(n: usize, p: usize) -> Vec<usize> {
-    let train = n - n.div_ceil(FOLDS.min(n.max(1)));
+/// The polynomial degrees tried with `train` rows in the smallest training fold and `p` inputs.
+pub fn poly_degrees(train: usize, p: usize) -> Vec<usize> {
     POLY_DEGREES
         .iter()
         .copied()
@@ -518,7 +515,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         seed,
     };
     let base = Standardizer::fit(x);
-    let degrees = poly_degrees(n, x.ncols());
+    let degrees = poly_degrees(crate::rng::smallest_training_fold(&fold, folds), x.ncols());
     let pp = crate::family::poly::out_of_fold(x, y, &fold, folds, &degrees);
     let mut poly_best: Option<(usize, Vec<f64>)> = None;
     for (d, pred) in degrees.iter().zip(pp) {
@@ -580,11 +577,11 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
     // comparing `choose`'s picks let a metric that made k-NN and local-linear worse lower the
     // polynomial's bar. The polynomial then meets its bar once, against the kept metric's pick.
     let chosen_of = |t: &Tuned| {
-        let mut others = t.r2;
-        if rule == Rule::Best {
-            others[3] = (f64::NAN, f64::NAN);
-        }
-        slot(pick(rule, &others))
+        slot(if rule == Rule::Best {
+            without_poly(y, &t.r2, &t.held_out).0
+        } else {
+            pick(rule, &t.r2)
+        })
     };
     let metric_scores: Vec<MetricScore> = tried
         .iter()
@@ -620,10 +617,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
     let (ks, ki, li, r2) = (t.ks, t.ki, t.li, t.r2);
     let poly_words = match &poly_best {
         Some((d, _)) => {
-            let mut others = r2;
-            others[3] = (f64::NAN, f64::NAN);
-            let base = pick(Rule::Best, &others);
-            let (g, se) = poly_gain(y, &t.held_out, base);
+            let (base, base_r2, (g, se)) = without_poly(y, &r2, &t.held_out);
             format!(
                 "degree = {d}; chosen only when it removes at least {}% of the {}'s held-out \
                  error and more than one paired SE: gain in R² {} ± {}, {}% of that error",
@@ -631,7 +625,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
                 base.name(),
                 crate::fmt::fmt_num(g),
                 crate::fmt::fmt_num(se),
-                crate::fmt::fmt_num(100.0 * g / (1.0 - others[slot(base)].0))
+                crate::fmt::fmt_num(100.0 * g / (1.0 - base_r2))
             )
         }
         None if degrees.is_empty() => {
