@@ -1665,6 +1665,42 @@ fn formula_cases(t: &mut Table) {
         &["run", "s.toml", "--out", "r.json", "-q"],
         "the responses are at most 7.0e-300 in size",
     );
+    // The remedy of a zero probability named `model.alpha` in a run of several models, whose
+    // keys are `model[i].alpha` everywhere else.
+    t.scenario(
+        "csv",
+        "log-loss zero probability in the second of two models",
+        "name = \"p\"\nseed = 3\nreplicates = 10\n[data]\nsource = \"synthetic\"\ntrain_size = 40\n\
+         eval_size = 20\n[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n[data.classes]\n\
+         labels = [\"a\", \"b\"]\nprobability = \"0.2 + 0.6*x\"\n[[model]]\nfamily = \"knn\"\n\
+         grid = [10, 20]\nalpha = 0.5\n[[model]]\nfamily = \"tree\"\ngrid = [1, 6]\n[loss]\n\
+         kind = \"log\"\n",
+        "run",
+        "in its [[model]] section (key `model[1].alpha`)",
+    );
+    // Counts of size 1e-200 under the Poisson deviance: the deviance scales with them and
+    // every standard error underflowed to 0, printed as "± 0.00" with exit 0.
+    t.add(
+        "csv",
+        "Poisson table whose counts are of size 1e-200",
+        &[
+            (
+                "s.toml",
+                table_scenario(
+                    "",
+                    "family = \"knn\"\ngrid = [3, 5]\n[loss]\nkind = \"poisson\"",
+                )
+                .as_bytes(),
+            ),
+            (
+                "t.csv",
+                csv_rows(40, |i| format!("{}e-200", 1 + i % 7)).as_bytes(),
+            ),
+        ],
+        &["run", "s.toml", "--out", "r.json", "-q"],
+        "the counts (column `y` of t.csv) are at most 7.0e-200 in size",
+    )
+    .also("underflow");
     t.add(
         "csv",
         "twin of a target of size 1e-300",

@@ -1263,6 +1263,18 @@ fn zero_one_percentile_intervals_round_trip_and_show_in_table_csv_and_html() {
     let back: ResultDoc = serde_json::from_str(&text).unwrap();
     assert_eq!(back.points[0].interval(&boot[0]), None);
     assert!(back.points[0].interval.iter().any(|(k, _)| *k == boot[0]));
+    // The interval contains the estimate ± 2 SE (the percentile interval alone under-covered
+    // a small finite-R bias where ± 2 SE did, docs/zero-one-finite-r.md).
+    for p in &doc.points {
+        for k in &boot {
+            let (lo, hi) = p.interval(k).unwrap();
+            let (v, se) = (p.get(k), p.se(k).unwrap());
+            assert!(
+                lo <= v - 2.0 * se && hi >= v + 2.0 * se,
+                "{k}: [{lo}, {hi}] {v} ± {se}"
+            );
+        }
+    }
     // other losses carry no interval: no key at all
     let (_, _, squared) = run(TINY);
     assert!(squared.points.iter().all(|p| p.interval.is_empty()));
@@ -1301,7 +1313,11 @@ fn zero_one_percentile_intervals_round_trip_and_show_in_table_csv_and_html() {
     let table = report::terminal::render(&doc);
     let line = table
         .lines()
-        .find(|l| l.starts_with("interval: 95 % bootstrap percentile interval at "))
+        .find(|l| {
+            l.starts_with(
+                "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at ",
+            )
+        })
         .unwrap_or_else(|| panic!("no interval line:\n{table}"));
     assert!(line.contains(&want), "{line}");
     let pics = Pictures {

@@ -1642,7 +1642,11 @@ fn a_classification_table_describes_its_direct_check_as_what_it_is() {
     assert!(!meaning.contains("fresh labels"), "{meaning}");
     for p in doc["points"].as_array().unwrap() {
         assert_eq!(p["expected_loss_direct"], p["expected_loss"], "{p}");
+        // The noise is unknown on a classification table (folded into the bias): no value is
+        // reported for it (it was written as 0.0).
+        assert!(p.get("noise").is_none(), "{p}");
     }
+    assert!(terms.iter().all(|t| t["key"] != "noise"), "{terms:?}");
 }
 
 /// A constant column with one value off (a timestamp of 1.7e9 with one row a second later) is

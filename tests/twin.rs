@@ -316,6 +316,19 @@ fn bad_twin_scenarios_name_the_key() {
             "reference = { family = \"knn\", k = 3 }\njitter = 1.0\njitter_variance = \"kept\"\n[data.noise]\nsd = 0.5\n",
             "data.jitter_variance",
         ),
+        // Knobs of parts the recipe does not use (they were accepted and ignored).
+        (
+            "reference = { family = \"knn\", k = 3, degree = 2 }\n[data.noise]\nsd = 0.5\n",
+            "key `data.reference.degree`: belongs to the polynomial part, which this `family = \"knn\"` reference does not have",
+        ),
+        (
+            "reference = { family = \"loclin\", bandwidth = 0.5, trees = 10 }\n[data.noise]\nsd = 0.5\n",
+            "key `data.reference.trees`: belongs to the forest part",
+        ),
+        (
+            "reference = { family = \"blend\", k = 3, bandwidth = 0.5, weights = { knn = 1.0 } }\n[data.noise]\nsd = 0.5\n",
+            "key `data.reference.bandwidth`: belongs to the local-linear part, which this `family = \"blend\"` reference gives no weight",
+        ),
     ] {
         let f = dir.path().join("bad.toml");
         fs::write(&f, format!("{base}{body}{model}")).unwrap();
@@ -455,6 +468,9 @@ fn twin_with_fidelity_writes_a_report_that_runs_echo_and_refits_bit_for_bit() {
     let doc = report::build(&plan, &runner::run(&plan, 1).unwrap());
     let tw = doc.scenario.twin.clone().expect("twin section");
     assert_eq!(tw.jitter, 1.0);
+    // `lossprism twin` keeps the table's variance by default, and the result says so.
+    assert!(text.contains("jitter_variance = \"table\""), "{text}");
+    assert_eq!(tw.jitter_variance.as_deref(), Some("table"));
     // k-NN, forest, local-linear, polynomial and blend.
     assert_eq!(tw.cv_r2.len(), 5);
     // The sharpening is recorded, echoed and said.
@@ -1344,6 +1360,9 @@ fn a_product_of_inputs_gets_a_polynomial_reference_and_inputs_keep_their_varianc
     let lossprism::scenario::Source::Synthetic(sp) = &plan.source else {
         panic!("a twin plans as a synthetic process")
     };
+    // The result's twin section records the mode (it did not).
+    let echo = report::twin::echo(&sp.process).expect("twin section");
+    assert_eq!(echo.jitter_variance.as_deref(), Some("table"));
     // The twin's training inputs: many draws of one replicate's inputs.
     let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
     let draws = sp.process.draw_inputs(100_000, &mut rng);

@@ -365,11 +365,11 @@ fn bootstrap_standard_errors_cover_the_exact_finite_r_values_as_the_long_study_m
     assert!(s.at_r[0] - s.limit[0] > 0.02);
 }
 
-/// Coverage of the exact E at R by the 95 % bootstrap percentile interval (ranks 5 and 195 of
-/// the same 200 draws) at m = 200, R = 100, 32 blocks over the 1000 seeds of
-/// `finite_r_calibration_study` (docs/zero-one-finite-r.md, "An interval that is not symmetric
-/// does cover"), in the order of [`NAMES`].
-const STUDY_PERCENTILE_R100: [f64; 5] = [0.945, 0.919, 0.961, 0.950, 0.964];
+/// Coverage of the exact E at R by the reported 95 % interval (ranks 5 and 195 of the same 200
+/// bootstrap draws, widened to contain the estimate ± 2 SE) at m = 200, R = 100, 32 blocks over
+/// the 1000 seeds of `finite_r_calibration_study` (docs/zero-one-finite-r.md, "The interval
+/// widened to contain ± 2 SE"), in the order of [`NAMES`].
+const STUDY_PERCENTILE_R100: [f64; 5] = [0.950, 0.944, 0.970, 0.954, 0.973];
 
 #[test]
 fn percentile_intervals_cover_the_exact_finite_r_values_as_the_long_study_measured() {

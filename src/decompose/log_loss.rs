@@ -116,11 +116,13 @@ pub fn terms(mean_log: &[f64], p: &[f64]) -> LogPoint {
             bias += pc * (pc.ln() - (l - lse));
         }
     }
+    // Both are ≥ 0 exactly (a KL divergence; Jensen: Σ_c exp ℓ̂_c ≤ Σ_c q̄_c = 1); rounding
+    // alone can leave −1e-17, which would print as a negative variance.
     LogPoint {
         expected_loss,
         noise,
-        bias,
-        variance: -lse,
+        bias: bias.max(0.0),
+        variance: (-lse).max(0.0),
         central: mean_log.iter().map(|l| (l - lse).exp()).collect(),
     }
 }
@@ -538,7 +540,7 @@ mod tests {
                             .map(|c| p[e][c] * (p[e][c] / t.central[c]).ln())
                             .sum();
                         assert!((kl_bias - t.bias).abs() < 1e-12);
-                        assert!(t.variance >= -1e-15 && t.bias >= -1e-15);
+                        assert!(t.variance >= 0.0 && t.bias >= 0.0);
                         assert!((t.central.iter().sum::<f64>() - 1.0).abs() < 1e-12);
                     }
                 }
@@ -563,8 +565,22 @@ mod tests {
         };
         let t = point(&acc, &target, 0, 0).unwrap();
         let kl: f64 = (0..3).map(|c| p[c] * (p[c] / q[c]).ln()).sum();
-        assert!(t.variance.abs() < 1e-15);
+        assert!(t.variance >= 0.0 && t.variance < 1e-15);
         assert!((t.bias - kl).abs() < 1e-14);
+        // A constant prediction's log-sum-exp is 0 only up to rounding (it was −4e-17 for some
+        // q): the variance is never printed below 0.
+        let mut negative = 0;
+        for i in 1..400 {
+            let a = 0.001 + f64::from(i) / 401.0 * 0.5;
+            let q = [a, 0.5 * (1.0 - a), 0.5 * (1.0 - a)];
+            let logs: Vec<f64> = q.iter().map(|v: &f64| v.ln()).collect();
+            negative += usize::from(-log_sum_exp(&logs) < 0.0);
+            assert!(terms(&logs, &p).variance >= 0.0);
+        }
+        assert!(
+            negative > 0,
+            "no q tried rounds below 0: the check cannot fail"
+        );
         let row = &LogLoss.evaluate(&acc, &target)[0];
         // direct: every fresh label is class 2: −log 0.5
         assert!((row[4] - (-(0.5f64).ln())).abs() < 1e-14);

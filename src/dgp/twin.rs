@@ -120,6 +120,9 @@ pub struct Jitter {
     /// drawn column keeps the table's variance (1: not shrunk, as for a column on its levels,
     /// or when the variance is not kept; see [`Jitter::fit_keeping`]).
     pub shrink: Vec<f64>,
+    /// The mode it was fitted in: `true` for `jitter_variance = "table"` (shrunk where the
+    /// jitter would add variance), `false` for `"added"`.
+    pub table_variance: bool,
 }
 
 /// Standard-normal nodes and weights on [−8, 8] (801 points, trapezoid, weights summing to 1)
@@ -253,6 +256,7 @@ impl Jitter {
             scale,
             center,
             shrink,
+            table_variance: keep_variance,
         }
     }
 

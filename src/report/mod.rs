@@ -197,7 +197,7 @@ impl TermDoc {
 /// nested objects), then `estimated` on tables, then the standard errors of the terms that have
 /// one (jackknife over replicate blocks; `null` where they cannot be computed), then — only when
 /// some term's standard error comes from the block bootstrap — `interval95`, the 95 % bootstrap
-/// percentile interval `[lower, upper]` of each such term under the same nested keys (`null`
+/// percentile interval widened to contain ± 2 SE, `[lower, upper]`, of each such term under the same nested keys (`null`
 /// where it cannot be computed, as a standard error). Two rows are equal when every number is
 /// the same bit for bit (so `null` equals `null`).
 #[derive(Debug, Clone)]
@@ -214,7 +214,7 @@ pub struct PointRow {
     pub estimated: Option<bool>,
     /// Standard errors in order: `(key, value)`, NaN written as `null`.
     pub stderr: Vec<(String, f64)>,
-    /// The 95 % bootstrap percentile intervals of the terms marked `bootstrap`, in order:
+    /// The 95 % intervals (bootstrap percentile, widened to ± 2 SE) of the terms marked `bootstrap`, in order:
     /// `(key, (lower, upper))`, NaN bounds written as `null`; empty (and absent from the JSON)
     /// when no term is a bootstrap term.
     pub interval: Vec<(String, (f64, f64))>,
@@ -266,7 +266,7 @@ impl PointRow {
             .filter(|v| v.is_finite())
     }
 
-    /// The 95 % bootstrap percentile interval of term `key`: `None` when absent or not
+    /// The 95 % interval (bootstrap percentile, widened to ± 2 SE) of term `key`: `None` when absent or not
     /// computable.
     pub fn interval(&self, key: &str) -> Option<(f64, f64)> {
         self.interval
@@ -981,6 +981,13 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
     }
 }
 
+/// Whether a term has a value to report. A table's noise is unknown unless it is estimated
+/// (the squared loss's `noise (est.)`): the classification and count losses fold it into the
+/// bias, and their accumulators hold 0 for it, which is not a value to print as the noise.
+fn reported(t: &TermInfo, observed: bool) -> bool {
+    !(observed && t.role == Role::Noise && !t.estimated)
+}
+
 /// The rows of cell `c` (a training size and a model, see [`Plan::cell`]) of a finished run;
 /// rows carry `family` when the run has several models and `train_size` when it has several
 /// sizes.
@@ -1003,6 +1010,7 @@ pub fn rows(plan: &Plan, outcome: &Outcome, c: usize) -> Vec<PointRow> {
                 .terms
                 .iter()
                 .zip(&s.values[g])
+                .filter(|(t, _)| reported(t, observed))
                 .map(|(t, v)| (t.key.to_string(), *v))
                 .collect(),
             estimated: observed.then_some(true),
@@ -1607,6 +1615,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             .summary()
             .terms
             .iter()
+            .filter(|t| reported(t, outcome.prepared.table.is_some()))
             .map(TermDoc::from_info)
             .collect(),
         larger_is_simpler: model.family.larger_is_simpler(),

@@ -258,7 +258,7 @@ fn interval_line(doc: &ResultDoc, terms: &[TermDoc]) -> Option<String> {
         return None;
     }
     Some(format!(
-        "interval: 95 % bootstrap percentile interval at {} = {}: {} (at small R read it, not ± 2 SE, for the bias, net and biased variance and James' effects; docs/zero-one-finite-r.md)\n",
+        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {} = {}: {} (at small R read it, not ± 2 SE, for the bias, net and biased variance and James' effects; docs/zero-one-finite-r.md)\n",
         doc.knob,
         fmt_value(doc.best.value),
         parts.join("; ")

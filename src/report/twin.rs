@@ -35,6 +35,11 @@ pub struct TwinEcho {
     /// The smoothed bootstrap's multiplier c on Silverman's rule (0: rows resampled as they
     /// are).
     pub jitter: f64,
+    /// How the jitter treats the table's variance: `table` (kept: jittered columns shrunk
+    /// toward their means) or `added` (the plain smoothed bootstrap); absent without a jitter
+    /// and in results written before it was recorded.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub jitter_variance: Option<String>,
     /// The noise estimate and its correction (`lossprism twin`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub noise: Option<NoiseEcho>,
@@ -247,6 +252,10 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
         cv_r2,
         sharpen: rep.sharpen,
         jitter: p.jitter().map_or(0.0, |j| j.scale),
+        jitter_variance: p
+            .jitter()
+            .filter(|j| j.scale > 0.0)
+            .map(|j| if j.table_variance { "table" } else { "added" }.to_string()),
         noise: rep.noise.map(|n| NoiseEcho {
             method: n.method,
             raw: n.raw,

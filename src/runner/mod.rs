@@ -136,7 +136,19 @@ pub fn check_predictions(
 /// problem, the family knows what to change).
 pub fn with_remedy(plan: &Plan, model: &ModelPlan, message: String) -> String {
     if plan.loss.needs_probs() {
-        format!("{message}; {}", model.family.zero_probability_remedy())
+        let remedy = model.family.zero_probability_remedy();
+        // A run of several models names the section as the scenario's errors do (`model[2]`).
+        let i = plan.models.iter().position(|m| std::ptr::eq(m, model));
+        match i.filter(|_| plan.models.len() > 1) {
+            Some(i) => format!(
+                "{message}; {}",
+                remedy.replace(
+                    "in [model] (key `model.",
+                    &format!("in its [[model]] section (key `model[{i}].")
+                )
+            ),
+            None => format!("{message}; {remedy}"),
+        }
     } else {
         message
     }

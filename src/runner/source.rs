@@ -272,7 +272,8 @@ fn target_column(plan: &Plan) -> Option<String> {
 pub const COUNT_MAX: f64 = 1e8;
 
 /// Refuses mean counts (a synthetic truth at the evaluation points, a table's counts) above
-/// [`COUNT_MAX`]: the run would report rounding as bias and variance, with exit 0.
+/// [`COUNT_MAX`] (the run would report rounding as bias and variance, with exit 0), or with
+/// none above [`RESPONSE_MIN`] (every standard error would underflow to 0).
 fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     let big = p.eval_truth.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
     if big > COUNT_MAX || !big.is_finite() {
@@ -284,6 +285,19 @@ fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
             "{whose} {big:.1e}, above {COUNT_MAX:.0e}: the Poisson deviance's terms there are \
              differences of numbers that large and lose their digits; counts this large are \
              nearly Gaussian, so score them with `kind = \"squared\"` in [loss]"
+        )));
+    }
+    // The deviance scales with the counts, and its standard errors are built from its squares:
+    // counts of 1e-200 printed every standard error as 0 with exit 0.
+    if big > 0.0 && big < RESPONSE_MIN {
+        let whose = target_column(plan).map_or(
+            "the mean counts (the truth at the evaluation points) are".into(),
+            |c| format!("the counts ({c}) are"),
+        );
+        return Err(Error::Data(format!(
+            "{whose} at most {big:.1e} in size, so the squares behind the standard errors \
+             underflow to 0; counts are whole numbers of events: rescale the column (for \
+             example multiply it by a power of ten)"
         )));
     }
     Ok(())

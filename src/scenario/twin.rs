@@ -281,6 +281,45 @@ fn choice_of(
             Ok(x)
         }
     };
+    // A knob of a part the recipe gives no weight is never read: refused, as a hand edit that
+    // would otherwise change nothing (a `degree` on a k-NN recipe was accepted).
+    let unused = |given: Option<std::ops::Range<usize>>, key: &str, part: &str, w: f64| match given
+    {
+        Some(span) if w == 0.0 => Err(err(
+            span,
+            &format!("data.reference.{key}"),
+            format!(
+                "belongs to the {part} part, which this `family = \"{}\"` reference {}: \
+                     remove it",
+                family.name(),
+                if family == Candidate::Blend {
+                    "gives no weight"
+                } else {
+                    "does not have"
+                }
+            ),
+        )),
+        _ => Ok(()),
+    };
+    for (span, key) in [
+        (r.trees.as_ref().map(|v| v.span()), "trees"),
+        (r.min_leaf.as_ref().map(|v| v.span()), "min_leaf"),
+        (r.seed.as_ref().map(|v| v.span()), "seed"),
+    ] {
+        unused(span, key, "forest", weights[1])?;
+    }
+    unused(
+        r.bandwidth.as_ref().map(|v| v.span()),
+        "bandwidth",
+        "local-linear",
+        weights[2],
+    )?;
+    unused(
+        r.degree.as_ref().map(|v| v.span()),
+        "degree",
+        "polynomial",
+        weights[3],
+    )?;
     let k = match &r.k {
         Some(k) => Some(whole(k, "k", 1, rows as i64)? as usize),
         None if weights[0] > 0.0 || classes > 0 || varying => return Err(need("k")),
