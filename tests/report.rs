@@ -1492,3 +1492,30 @@ grid = [1, 2, 3]
     );
     assert!(!doc.reading.contains("overfits"), "{}", doc.reading);
 }
+
+/// Unpenalized least squares with few training rows per coefficient: the reading warns at the
+/// grid values below 5 rows per coefficient and only there (a cubic on 10 rows covered its
+/// variance by ± 2 SE in 40% of runs, docs/exact-checks.md); other families never get it.
+#[test]
+fn few_rows_per_least_squares_coefficient_are_said() {
+    let cubic = TINY.replace("train_size = 40", "train_size = 10").replace(
+        "family = \"tree\"\ngrid = [1, 2, 3, 4]",
+        "family = \"poly\"\ngrid = [1, 2, 3]",
+    );
+    let (_, _, doc) = run(&cubic);
+    assert!(
+        doc.reading.contains(
+            "Few rows per coefficient at degree = 2 (3 coefficients from 10 training rows) and \
+             degree = 3 (4 coefficients from 10 training rows): fewer than 5 training rows"
+        ),
+        "{}",
+        doc.reading
+    );
+    assert!(!doc.reading.contains("degree = 1 ("), "{}", doc.reading);
+    // 40 rows: 4 coefficients need 20.
+    let enough = cubic.replace("train_size = 10", "train_size = 40");
+    let (_, _, doc) = run(&enough);
+    assert!(!doc.reading.contains("Few rows"), "{}", doc.reading);
+    let (_, _, tree) = run(&TINY.replace("train_size = 40", "train_size = 10"));
+    assert!(!tree.reading.contains("Few rows"), "{}", tree.reading);
+}

@@ -152,6 +152,14 @@ pub trait Family: Send + Sync {
         false
     }
 
+    /// The number of least-squares coefficients a fit estimates at knob value `value` with
+    /// `n_inputs` inputs, for a family whose fit is unpenalized least squares (`None`, the
+    /// default, for the others). With few training rows per coefficient the predictions have a
+    /// heavy tail across training sets, and the run's reading says so.
+    fn least_squares_coefficients(&self, _value: f64, _n_inputs: usize) -> Option<usize> {
+        None
+    }
+
     /// Checks a grid against the training size and the number of inputs before any fit.
     /// The message names the offending value; the caller adds file and key.
     fn check_grid(&self, grid: &[f64], n_train: usize, n_inputs: usize) -> Result<(), String>;

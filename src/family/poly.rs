@@ -85,6 +85,10 @@ impl Family for PolyFamily {
         "degree"
     }
 
+    fn least_squares_coefficients(&self, value: f64, n_inputs: usize) -> Option<usize> {
+        n_basis(n_inputs, value as usize)
+    }
+
     fn check_grid(&self, grid: &[f64], n_train: usize, n_inputs: usize) -> Result<(), String> {
         check_whole_grid(grid, "degree", 0.0, MAX_DEGREE as f64)?;
         for &d in grid {

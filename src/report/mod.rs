@@ -1633,7 +1633,77 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         doc.reading.push(' ');
         doc.reading.push_str(&w);
     }
+    if let Some(w) = few_rows_words(plan) {
+        doc.reading.push(' ');
+        doc.reading.push_str(&w);
+    }
     doc
+}
+
+/// Training rows per least-squares coefficient below which the reading warns
+/// ([`few_rows_words`]). A rule of thumb (common practice, no source): an independent check
+/// found a cubic on 10 rows of one uniform input (2.5 rows per coefficient) with ± 2 SE
+/// covering the variance in 40% of runs (docs/exact-checks.md, "Few rows per coefficient").
+pub const ROWS_PER_COEFFICIENT: usize = 5;
+
+/// A sentence for the reading when an unpenalized least-squares fit
+/// ([`crate::family::Family::least_squares_coefficients`]) has fewer than
+/// [`ROWS_PER_COEFFICIENT`] training rows per coefficient at some grid value and training
+/// size. Now and then the training inputs bunch up or an evaluation point lies outside their
+/// range, and the fit extrapolates wildly: its predictions across training sets have a heavy
+/// tail (with one input and degree d, the chance that all n rows fall in a width ε falls like
+/// ε^(n−1) while a degree-d extrapolation grows like ε^(−d), so the prediction's 4th moment,
+/// which the variance's standard error needs, is infinite once n − 1 ≤ 4d; a derivation written
+/// here), and the variance's standard error can be far too small. The block statistic of
+/// [`heavy_tail_words`] sees only a share of such runs.
+fn few_rows_words(plan: &Plan) -> Option<String> {
+    let q = plan.n_inputs();
+    let mut hits: Vec<String> = Vec::new();
+    let several = plan.models.len() > 1;
+    for m in &plan.models {
+        for &n in &plan.sizes {
+            for &v in &m.grid {
+                let Some(p) = m.family.least_squares_coefficients(v, q) else {
+                    continue;
+                };
+                if p.saturating_mul(ROWS_PER_COEFFICIENT) > n {
+                    hits.push(format!(
+                        "{}{} = {} ({p} coefficients from {n} training rows)",
+                        if several {
+                            format!("{}: ", m.label)
+                        } else {
+                            String::new()
+                        },
+                        m.family.knob(),
+                        fmt_value(v)
+                    ));
+                }
+            }
+        }
+    }
+    if hits.is_empty() {
+        return None;
+    }
+    let shown = hits.len().min(4);
+    let listed = if hits.len() > shown {
+        format!(
+            "{} and {} more",
+            hits[..shown].join(", "),
+            hits.len() - shown
+        )
+    } else if shown == 1 {
+        hits[0].clone()
+    } else {
+        format!("{} and {}", hits[..shown - 1].join(", "), hits[shown - 1])
+    };
+    Some(format!(
+        "Few rows per coefficient at {listed}: fewer than {ROWS_PER_COEFFICIENT} training rows \
+         per least-squares coefficient (a rule of thumb). There the fit extrapolates wildly \
+         when the training inputs bunch up, its variance across training sets has a heavy \
+         tail, and its standard error can be far too small (±2 SE covered 40% of runs for a \
+         cubic on 10 rows; docs/exact-checks.md): read the variance there as a lower bound, \
+         or raise the training size."
+    ))
 }
 
 /// Fewest replicate blocks for [`heavy_tail_words`] to judge: with fewer, one block carries
