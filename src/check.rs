@@ -1170,11 +1170,14 @@ fn choose_mode(new: &ResultDoc, base: &ResultDoc) -> Result<(Mode, String), Chec
                 ),
             ));
         }
-        let shared = if new.seed == base.seed {
-            " (same seed with different replicates or blocks: the runs share training sets, so \
-             this is conservative)"
+        let (sets, shared) = if new.seed == base.seed {
+            (
+                "training sets in part shared",
+                " (same seed with different replicates or blocks: the runs share training sets, \
+                 so this is conservative)",
+            )
         } else {
-            ""
+            ("independent training sets", "")
         };
         // A table's rows held out in fewer than 2 replicates are left out of its averages, and
         // which they are depends on the seed: said, since the rows then differ by those few.
@@ -1189,8 +1192,8 @@ fn choose_mode(new: &ResultDoc, base: &ResultDoc) -> Result<(Mode, String), Chec
         return Ok((
             Mode::SamePoints,
             format!(
-                "unpaired, same evaluation points{skipped} (seed {} against {}: independent \
-                 training sets); se = sqrt(se_new² + se_base²){shared}",
+                "unpaired, same evaluation points{skipped} (seed {} against {}: {sets}); \
+                 se = sqrt(se_new² + se_base²){shared}",
                 new.seed, base.seed
             ),
         ));
@@ -1272,6 +1275,15 @@ pub fn compare(
     }
     let pairs = match_rows(new, baseline).map_err(versions)?;
     let terms = compared_terms(new);
+    // A margin for a term these documents never compare would be echoed as if it applied (the
+    // noise, the direct check, a 0-1 term on a squared-loss result).
+    if let Some((t, _)) = opts.term_margins.iter().find(|(t, _)| !terms.contains(t)) {
+        return Err(CheckError::Options(format!(
+            "--margin-term: `{t}` is not compared for this result ({} loss); compared terms: {}",
+            new.loss,
+            terms.join(", ")
+        )));
+    }
     let identical = pairs
         .iter()
         .enumerate()

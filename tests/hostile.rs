@@ -1900,6 +1900,23 @@ fn csv_cases(t: &mut Table) {
         );
     }
     t.table("header only", b"a,b,y\n", "", "no data rows");
+    // A row of empty cells and a short row of empty quoted cells were skipped as blank lines.
+    let mut empties = good_csv();
+    empties.push_str(",,\n");
+    t.table(
+        "a row of empty cells",
+        empties.as_bytes(),
+        "",
+        "t.csv:42: column `a`: is missing a value",
+    );
+    let mut short = good_csv();
+    short.push_str("\"\",\"\"\n");
+    t.table(
+        "a short row of empty quoted cells",
+        short.as_bytes(),
+        "",
+        "t.csv:42: has 2 fields, but the header has 3",
+    );
     t.table("numeric header", b"1,2,3\n4,5,6\n", "", "no header");
     t.table("column twice", b"a,a,y\n1,2,3\n", "", "appears twice");
     {
@@ -2538,6 +2555,40 @@ fn twin_cases(t: &mut Table) {
             needle,
         );
     }
+    // The fidelity check ran its twins with no memory check: 40 rows of 5000 inputs at 800 000
+    // evaluation points grew past 1.5 GB with no refusal (about 110 GiB were needed).
+    let mut wide = (1..=5000)
+        .map(|j| format!("x{j}"))
+        .collect::<Vec<_>>()
+        .join(",");
+    wide.push_str(",y\n");
+    for i in 0..40 {
+        let row: Vec<String> = (1..=5000)
+            .map(|j| format!("{}", ((i * 7 + j * 13) % 97) as f64 / 97.0))
+            .collect();
+        wide.push_str(&format!(
+            "{},{}\n",
+            row.join(","),
+            (i * 5 % 11) as f64 / 11.0
+        ));
+    }
+    t.add(
+        "twin",
+        "fidelity check of a wide table at 800000 evaluation points",
+        &[("w.csv", wide.as_bytes())],
+        &[
+            "twin",
+            "w.csv",
+            "--target",
+            "y",
+            "--eval-size",
+            "800000",
+            "--out",
+            "w.toml",
+        ],
+        "the fidelity check needs about",
+    )
+    .also("--fidelity 0 to skip the check");
 }
 
 /// `[data.noise] shape` (and `df`) in synthetic and twin scenarios, and `twin --noise-shape`.
@@ -3003,6 +3054,23 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         ],
         "term `variance` given twice",
     );
+    // Terms the documents never compare were accepted and echoed as margins that applied.
+    for term in ["noise", "expected_loss_direct", "james.systematic_effect"] {
+        t.add(
+            g,
+            format!("--margin-term {term} on a squared-loss result"),
+            with_results,
+            &[
+                "check",
+                "r.json",
+                "--baseline",
+                "b.json",
+                "--margin-term",
+                &format!("{term}=5%"),
+            ],
+            &format!("--margin-term: `{term}` is not compared for this result (squared loss)"),
+        );
+    }
     t.add(
         g,
         "--threads 100000",
@@ -3455,6 +3523,9 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         ("--reference", Some("forest")),
         ("--jitter", Some("2")),
         ("--sharpen", Some("0.5")),
+        ("--eval-size", Some("5")),
+        ("--fidelity", Some("3")),
+        ("--fidelity-replicates", Some("7")),
     ] {
         let mut args = vec!["twin", "t.csv", "--target", "y", "--classes", flag];
         args.extend(value);
@@ -5370,6 +5441,9 @@ fn the_zero_one_views_of_a_regression_curve_draw_its_own_terms() {
         let (code, out, _) = status(dir, &["run", "s.toml", "--decomposition", view]);
         assert_eq!(code, 0);
         assert!(out.contains("note: --decomposition"), "{view}: {out}");
+        // ... and shows the loss's own terms (it showed only the expected loss).
+        let head = out.lines().nth(2).unwrap_or_default();
+        assert!(head.contains("variance"), "{view}: {out}");
         let html = fs::read_to_string(dir.join(format!("{view}.html"))).unwrap();
         assert!(html.contains("shows none of its terms here"), "{view}");
         let again = format!("{view}-again.svg");

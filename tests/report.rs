@@ -1519,3 +1519,32 @@ fn few_rows_per_least_squares_coefficient_are_said() {
     let (_, _, tree) = run(&TINY.replace("train_size = 40", "train_size = 10"));
     assert!(!tree.reading.contains("Few rows"), "{}", tree.reading);
 }
+
+/// An input named like a column of the `--points` CSV (`variance`, `value`) is written as
+/// `input_<name>`: the header held `variance` twice, and a reader selecting it by name got the
+/// input.
+#[test]
+fn points_csv_names_every_column_once() {
+    let src = TINY
+        .replace("name = \"x\"", "name = \"variance\"")
+        .replace("sin(6*x)", "sin(6*variance)");
+    let plan = plan_of(&src);
+    let outcome = runner::run(&plan, 1).expect("runs");
+    let text = report::csv::points_csv(&plan, &outcome);
+    let header: Vec<&str> = text.lines().next().unwrap().split(',').collect();
+    assert_eq!(
+        header,
+        [
+            "value",
+            "point",
+            "input_variance",
+            "truth",
+            "noise",
+            "mean_prediction",
+            "bias_sq",
+            "variance"
+        ]
+    );
+    let mut seen = std::collections::HashSet::new();
+    assert!(header.iter().all(|h| seen.insert(*h)), "{header:?}");
+}

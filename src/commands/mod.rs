@@ -488,9 +488,18 @@ fn run_in_blocks(
                 .as_ref()
                 .map(crate::error::shown)
                 .unwrap_or_default();
+            let blocks = |n: u64| {
+                if n == 1 {
+                    "1 block".to_string()
+                } else {
+                    format!("{n} blocks")
+                }
+            };
             noteln!(
-                "stopped as asked after {new_blocks} newly completed blocks; {remaining} blocks \
-                 remain; rerun the same command to resume from {ck}"
+                "stopped as asked after {} newly completed; {} left; rerun the same command to \
+                 resume from {ck}",
+                blocks(new_blocks),
+                blocks(remaining)
             );
             return Ok(3);
         }
@@ -1205,6 +1214,13 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--jitter-variance")
         } else if a.sharpen != crate::dgp::twin::SHARPEN {
             Some("--sharpen")
+        } else if a.eval_size != 1000 {
+            // Its evaluation points are the table's rows.
+            Some("--eval-size")
+        } else if a.fidelity != 5 && a.fidelity != 0 {
+            Some("--fidelity")
+        } else if a.fidelity_replicates != 100 {
+            Some("--fidelity-replicates")
         } else {
             None
         };

@@ -1090,6 +1090,17 @@ fn fidelity(
     plan.blocks = plan
         .replicates
         .min(crate::scenario::plan::DEFAULT_MAX_BLOCKS);
+    // Sizes against memory before anything is allocated: the check runs the twin and its
+    // twins with its own models, which `validate` of the written twin does not see (a wide
+    // table at a large --eval-size grew past 1.5 GB with no refusal).
+    for p in [&twin_plan, &plan] {
+        crate::runner::memory::check_as(
+            p,
+            o.threads,
+            "the fidelity check",
+            "a smaller --eval-size, fewer --threads, or --fidelity 0 to skip the check",
+        )?;
+    }
     let first = crate::runner::run(&twin_plan, o.threads)?;
     let base: Vec<(Vec<f64>, f64, Vec<f64>)> = (0..families.len())
         .map(|i| curve(&twin_plan, &first, i))

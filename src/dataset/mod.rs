@@ -708,8 +708,10 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             }
         })?;
         let line = rec.position().map(line_of).unwrap_or(0);
-        if rec.iter().all(|c| c.is_empty()) {
-            // A blank line, or one of spaces only.
+        if rec.len() <= 1 && rec.iter().all(|c| c.is_empty()) {
+            // A blank line, or one of spaces only. A row of empty cells (`,,`) is a row whose
+            // every value is missing, and a short one (`"",""`) a row with too few fields: both
+            // were skipped without a word.
             continue;
         }
         if rec.len() != header.len() {

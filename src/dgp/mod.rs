@@ -623,8 +623,9 @@ impl Synthetic {
                     let v = rule.eval(&buf);
                     if !(v.is_finite() && v >= 0.0 && v.fract() == 0.0 && (v as usize) < k) {
                         return Err(Error::Data(format!(
-                            "key `data.classes.rule`: `{}` gives {v} at {} (must be a class index 0 to {}, {k} classes)",
+                            "key `data.classes.rule`: `{}` gives {} at {} (must be a class index 0 to {}, {k} classes)",
                             crate::fmt::clip(rule.source(), 80),
+                            crate::fmt::fmt_exact(v),
                             at(),
                             k - 1
                         )));

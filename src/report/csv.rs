@@ -90,7 +90,8 @@ pub fn to_csv(doc: &ResultDoc) -> String {
 /// One row per (grid value, evaluation point): the knob value, the model (`family`, its label,
 /// and `knob`) when a run has several, the training size (`train_size`) when it has several, the
 /// point's index (a table's working rows: its physical line in the file), its
-/// inputs, then the loss's per-point columns (class indices written as their labels). Every
+/// inputs (an input named like another column, `variance` say, as `input_variance`), then the
+/// loss's per-point columns (class indices written as their labels). Every
 /// (training size, model) of a study is written, sizes ascending and models in scenario order; a
 /// per-point column that only some models have (an ensemble's `diversity`) is empty for the
 /// others.
@@ -141,7 +142,22 @@ pub fn points_csv(plan: &Plan, outcome: &Outcome) -> String {
         header.push("train_size".into());
     }
     header.push(if observed { "line" } else { "point" }.to_string());
-    header.extend(names.iter().cloned());
+    // An input named like another column (`variance`, `value`, `knob`) is written as
+    // `input_<name>`: a reader selecting the column by name got the input (a hostile sweep).
+    let taken: Vec<String> = header
+        .iter()
+        .cloned()
+        .chain(cols.iter().map(|c| c.0.to_string()))
+        .collect();
+    let mut inputs: Vec<String> = Vec::with_capacity(names.len());
+    for n in &names {
+        let mut name = n.clone();
+        while taken.contains(&name) || inputs.contains(&name) {
+            name = format!("input_{name}");
+        }
+        inputs.push(name);
+    }
+    header.extend(inputs);
     header.extend(cols.iter().map(|c| c.0.to_string()));
     w.write_record(&header).expect("in-memory csv");
     let noise_var = prep.noise_var();

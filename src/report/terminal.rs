@@ -29,6 +29,14 @@ fn with_se(v: f64, se: Option<f64>) -> String {
 
 /// The terms shown in `view`, in order; the direct check goes last.
 pub fn shown_terms(doc: &ResultDoc, view: View) -> Vec<TermDoc> {
+    // A view with none of its terms for this loss shows the loss's own, as the picture does
+    // (the table showed only the expected loss, without the bias and variance the reading
+    // spoke of; [`view_missing`] says so).
+    let view = if view_missing(doc, view).is_some() {
+        View::Domingos
+    } else {
+        view
+    };
     let terms = doc.term_docs();
     let keep = |t: &TermDoc| match view {
         View::All => true,
@@ -78,7 +86,7 @@ pub fn view_missing(doc: &ResultDoc, view: View) -> Option<String> {
     Some(format!(
         "--decomposition {flag} shows none of its terms here: they are defined for the 0-1 loss \
          against true class probabilities (a synthetic or twin source), and this result holds \
-         the {} loss{table}",
+         the {} loss{table}; the loss's own terms are shown",
         doc.loss
     ))
 }

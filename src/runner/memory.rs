@@ -202,7 +202,7 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
     });
     terms.push(Term {
         name: "training sets",
-        detail: format!("{w} threads × {n} rows × {p} inputs"),
+        detail: format!("{} × {n} rows × {p} inputs", threads_word(w)),
         bytes: wf * (8.0 * n * (p + 4.0) + train_extra),
     });
     let probs = if plan.loss.needs_probs() { k } else { 0.0 };
@@ -220,7 +220,7 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
         .fold(0.0, f64::max);
     terms.push(Term {
         name: "predictions",
-        detail: format!("{w} threads × fits × grid values × {m} points"),
+        detail: format!("{} × fits × grid values × {m} points", threads_word(w)),
         bytes: wf * predictions,
     });
     // Every point's terms at once (points × grid values × terms): once for the report's spread
@@ -262,7 +262,8 @@ pub fn estimate(plan: &Plan, threads: usize) -> Estimate {
     terms.push(Term {
         name: "fit work",
         detail: format!(
-            "{w} threads × the {} family's path fit on {n} rows × {p} inputs",
+            "{} × the {} family's path fit on {n} rows × {p} inputs",
+            threads_word(w),
             plan.model().family.name()
         ),
         bytes: wf * work,
@@ -315,6 +316,28 @@ pub fn check_writing(
         "the run",
         "fewer rows, inputs, evaluation points, grid values, blocks or --threads",
     )
+}
+
+/// [`check`] against the available memory for a run another command makes (`twin`'s fidelity
+/// check), named `what` in the refusal, which suggests `lower`.
+pub fn check_as(
+    plan: &Plan,
+    threads: usize,
+    what: &str,
+    lower: &str,
+) -> Result<(Estimate, Option<u64>), Error> {
+    let (e, cap) = (estimate(plan, threads), crate::codec::available_memory());
+    match cap {
+        Some(cap) if e.total() > cap as f64 => Err(Error::Usage(format!(
+            "{}: {what} needs about {} of memory, more than the memory available on this \
+             machine ({}); the largest part is {}: lower it ({lower})",
+            plan.file,
+            fmt_bytes(e.total()),
+            fmt_bytes(cap as f64),
+            e.largest(),
+        ))),
+        _ => Ok((e, cap)),
+    }
 }
 
 /// The estimate of merging the parts of `plan`'s run: what a merge holds is every block's
@@ -375,6 +398,15 @@ fn held_to(
         }
     }
     Ok((e, cap))
+}
+
+/// `1 thread`, `2 threads`.
+fn threads_word(w: usize) -> String {
+    if w == 1 {
+        "1 thread".into()
+    } else {
+        format!("{w} threads")
+    }
 }
 
 /// A `--memory-limit` value a little above `bytes`, in whole GiB (or MiB below 1 GiB).

@@ -625,7 +625,14 @@ fn not_finite_cause(plan: &Plan, prep: &Prepared, total: &Acc) -> String {
     } else if plan.replicates < 4 {
         "too few replicates per block to estimate it; raise `replicates`".into()
     } else {
-        "the predictions or responses overflow the range of floating-point numbers; rescale the response".into()
+        // The responses are in range (above): the fits' predictions are what overflowed (an
+        // external estimator answering 1e154 next to responses of order 1 was told to rescale
+        // the response).
+        format!(
+            "the predictions overflow the range of floating-point numbers while the responses \
+             are at most {big:.1e} in size: a fit extrapolates far past them (check the grid \
+             value named, or an external estimator's answers)"
+        )
     }
 }
 

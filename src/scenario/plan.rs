@@ -1402,8 +1402,10 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
                 Some(n.span()),
                 &format!("{key}.normal"),
                 format!(
-                    "mean {m:e} and sd {sd:e} give draws beyond ±{INPUT_MAX:e}, which overflow \
-                     (to infinity) once the inputs are scaled or squared; rescale the input"
+                    "mean {} and sd {} give draws beyond ±{INPUT_MAX:e}, which overflow \
+                     (to infinity) once the inputs are scaled or squared; rescale the input",
+                    crate::fmt::fmt_exact(m),
+                    crate::fmt::fmt_exact(sd)
                 ),
             ));
         }
