@@ -1548,3 +1548,31 @@ fn points_csv_names_every_column_once() {
     let mut seen = std::collections::HashSet::new();
     assert!(header.iter().all(|h| seen.insert(*h)), "{header:?}");
 }
+
+/// Exact ties of the true class probabilities at the top (`probability = "0.5"`): the Bayes
+/// class there is a convention, and the reading says the bias/variance split rests on it; a
+/// process without ties gets no such sentence.
+#[test]
+fn bayes_ties_under_the_zero_one_loss_are_said() {
+    let (_, _, doc) = run(TINY_CLASSES);
+    assert!(!doc.reading.contains("tie at the top"), "{}", doc.reading);
+    let tied = TINY_CLASSES.replace("\"logistic(-2*firmness)\"", "\"0.5\"");
+    let (_, _, doc) = run(&tied);
+    assert!(
+        doc.reading
+            .contains("The true class probabilities tie at the top at 50 of 50 evaluation points"),
+        "{}",
+        doc.reading
+    );
+    // Half of them: a step at 0 on a normal input, exactly 0.5 on one side.
+    let half = TINY_CLASSES.replace("\"logistic(-2*firmness)\"", "\"0.5 + 0.3*(firmness > 0)\"");
+    let (_, _, doc) = run(&half);
+    let n = doc
+        .reading
+        .split("tie at the top at ")
+        .nth(1)
+        .and_then(|r| r.split(' ').next())
+        .and_then(|v| v.parse::<usize>().ok())
+        .expect("a tie sentence");
+    assert!(n > 10 && n < 40, "{n}: {}", doc.reading);
+}

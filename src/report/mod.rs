@@ -1637,7 +1637,39 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         doc.reading.push(' ');
         doc.reading.push_str(&w);
     }
+    if let Some(w) = bayes_tie_words(plan, outcome) {
+        doc.reading.push(' ');
+        doc.reading.push_str(&w);
+    }
     doc
+}
+
+/// A sentence for the reading of a 0-1 loss run whose true class probabilities tie exactly at
+/// the top at some evaluation points (`probability = "0.5"`): the Bayes class there is the
+/// first of the tied labels by convention, and the bias and variance split (and a reading of
+/// which dominates) rests on it there; the expected loss does not.
+fn bayes_tie_words(plan: &Plan, outcome: &Outcome) -> Option<String> {
+    if plan.loss.name() != "zero_one" {
+        return None;
+    }
+    let probs = outcome.prepared.eval_probs.as_ref()?;
+    let m = probs.nrows();
+    let tied = probs
+        .rows()
+        .into_iter()
+        .filter(|r| {
+            let top = r.iter().cloned().fold(f64::NEG_INFINITY, f64::max);
+            r.iter().filter(|&&v| v == top).count() > 1
+        })
+        .count();
+    (tied > 0).then(|| {
+        format!(
+            "The true class probabilities tie at the top at {tied} of {m} evaluation points: \
+             the Bayes class there is the first of the tied labels by convention, so the bias \
+             and the variance there, and which dominates, rest on that convention; the expected \
+             loss does not."
+        )
+    })
 }
 
 /// Training rows per least-squares coefficient below which the reading warns
