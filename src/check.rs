@@ -706,6 +706,7 @@ impl Comparison {
         let sigma = fmt_value(sigma);
         match (self.verdict, self.margin_only()) {
             (Verdict::Worse, false) => format!("z > {sigma} and d > {m} of |base|"),
+            (Verdict::Better, false) if sigma == "0" => format!("z < 0 and |d| > {m} of |base|"),
             (Verdict::Better, false) => format!("z < -{sigma} and |d| > {m} of |base|"),
             (Verdict::Worse, true) => format!("se = 0, so by the margin alone: d > {m} of |base|"),
             (Verdict::Better, true) => {

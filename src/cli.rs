@@ -141,7 +141,7 @@ pub struct TwinArgs {
     #[arg(long, default_value = "table", value_name = "HOW")]
     pub jitter_variance: String,
     /// Evaluation points of the twin (drawn once).
-    #[arg(long, default_value_t = 1000, value_name = "M")]
+    #[arg(long, default_value_t = crate::dgp::twin::EVAL_SIZE, value_name = "M")]
     pub eval_size: usize,
     /// Reference candidate: `best` (highest cross-validated R²; the polynomial only when it
     /// removes at least a tenth of the best other candidate's held-out error), `knn`, `forest`, `loclin`,
@@ -156,11 +156,11 @@ pub struct TwinArgs {
     /// Tables drawn from the twin for the fidelity check (0 skips it, and with it the
     /// recommended pick line and the bias-corrected second opinion; more is slower and
     /// steadier).
-    #[arg(long, default_value_t = 5, value_name = "T")]
+    #[arg(long, default_value_t = crate::dgp::twin::FIDELITY_TABLES, value_name = "T")]
     pub fidelity: usize,
     /// Replicates of every run of a twin of the twin in the fidelity check (the twin itself
     /// runs at the scenario's 200).
-    #[arg(long, default_value_t = 100, value_name = "R")]
+    #[arg(long, default_value_t = crate::dgp::twin::FIDELITY_REPLICATES, value_name = "R")]
     pub fidelity_replicates: usize,
     /// Worker threads of the fidelity check (0: all cores).
     #[arg(long, default_value_t = 0)]

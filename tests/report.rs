@@ -1518,6 +1518,9 @@ fn few_rows_per_least_squares_coefficient_are_said() {
     assert!(!doc.reading.contains("Few rows"), "{}", doc.reading);
     let (_, _, tree) = run(&TINY.replace("train_size = 40", "train_size = 10"));
     assert!(!tree.reading.contains("Few rows"), "{}", tree.reading);
+    // A fixed design trains on the same inputs every time: nothing bunches up.
+    let (_, _, fixed) = run(&cubic.replace("design = \"random\"", "design = \"fixed\""));
+    assert!(!fixed.reading.contains("Few rows"), "{}", fixed.reading);
 }
 
 /// An input named like a column of the `--points` CSV (`variance`, `value`) is written as

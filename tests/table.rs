@@ -1647,6 +1647,14 @@ fn a_classification_table_describes_its_direct_check_as_what_it_is() {
         assert!(p.get("noise").is_none(), "{p}");
     }
     assert!(terms.iter().all(|t| t["key"] != "noise"), "{terms:?}");
+    // A learning curve on the same table: the noise at each size is unknown, not NaN (such
+    // studies were refused: "`learning[0].sizes[0].noise` cannot be computed"), and absent.
+    let study = classes.replace("target = \"y\"", "target = \"y\"\ntrain_size = [20, 40]");
+    fs::write(dir.path().join("s.toml"), &study).unwrap();
+    let doc = run_doc(dir.path());
+    let sizes = doc["learning"][0]["sizes"].as_array().unwrap();
+    assert_eq!(sizes.len(), 2, "{sizes:?}");
+    assert!(sizes.iter().all(|s| s.get("noise").is_none()), "{sizes:?}");
 }
 
 /// A constant column with one value off (a timestamp of 1.7e9 with one row a second later) is

@@ -860,7 +860,7 @@ pub fn plot(args: PlotArgs) -> Result<u8, Error> {
     // A picture of a view with none of its terms draws the loss's own terms, as `run --plot`
     // does; said on standard error (it was drawn with no word).
     if let Some(why) = report::terminal::view_missing(&doc, view) {
-        noteln!("note: {name}: {why}; the picture shows the loss's own terms");
+        noteln!("note: {name}: {why}");
     }
     let families = doc.families();
     if let Some(f) = &args.family {
@@ -998,7 +998,25 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
     at_value.models[0].grid = vec![value];
     runner::memory::check(&at_value, 1, args.memory_limit)?;
     let ledger = assess::ledger_path(path);
-    let a = assess::assess(&one, value, &ledger)?;
+    // The plan was cut to the chosen model: a remedy naming its key names the scenario's
+    // section (`model[1].alpha`), as a run of the whole scenario does.
+    let a = assess::assess(&one, value, &ledger).map_err(|e| match e {
+        Error::Fit {
+            file,
+            replicate,
+            family,
+            message,
+        } if labels.len() > 1 => Error::Fit {
+            file,
+            replicate,
+            family,
+            message: message.replace(
+                "in [model] (key `model.",
+                &format!("in its [[model]] section (key `model[{chosen}]."),
+            ),
+        },
+        other => other,
+    })?;
     let name = if labels.len() > 1 {
         format!("{} ({})", plan.name, labels[chosen])
     } else {
@@ -1214,12 +1232,12 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--jitter-variance")
         } else if a.sharpen != crate::dgp::twin::SHARPEN {
             Some("--sharpen")
-        } else if a.eval_size != 1000 {
+        } else if a.eval_size != crate::dgp::twin::EVAL_SIZE {
             // Its evaluation points are the table's rows.
             Some("--eval-size")
-        } else if a.fidelity != 5 && a.fidelity != 0 {
+        } else if a.fidelity != twin::FIDELITY_TABLES && a.fidelity != 0 {
             Some("--fidelity")
-        } else if a.fidelity_replicates != 100 {
+        } else if a.fidelity_replicates != twin::FIDELITY_REPLICATES {
             Some("--fidelity-replicates")
         } else {
             None

@@ -46,10 +46,7 @@ use crate::scenario::plan::ShapeChoice;
 use crate::scenario::twin::{TwinNoise, TwinSpec};
 use crate::scenario::{Design, Plan, Source};
 
-/// Default number of tables of the fidelity check.
-pub const FIDELITY_TABLES: usize = 5;
-/// Default replicates of every run of a twin of the twin in the fidelity check.
-pub const FIDELITY_REPLICATES: usize = 100;
+pub use crate::dgp::twin::{FIDELITY_REPLICATES, FIDELITY_TABLES};
 /// Replicates written in a twin scenario; the fidelity check runs the twin itself at this count
 /// too, so its recommended pick is the `*` row `run` shows for the same family and grid.
 pub const TWIN_REPLICATES: usize = 200;
@@ -1033,10 +1030,13 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         shape: o.noise_shape,
         train_size: t.rows(),
         sizes: vec![t.rows()],
+        // As the twin itself (its evaluation points are capped at the rows without a jitter):
+        // the fidelity check's memory check measures the twin's sizes, and these runs used
+        // every row whatever `--eval-size` said.
         eval_size: if o.jitter > 0.0 {
             o.eval_size
         } else {
-            t.rows()
+            o.eval_size.min(t.rows())
         },
         design: Design::Random,
         eval_at_design: false,

@@ -84,6 +84,12 @@ use crate::rng::{purpose, stream};
 /// bootstrap).
 pub const EVAL_SIZE: usize = 1000;
 
+/// Default number of tables of `lossprism twin`'s fidelity check (here, below the command line
+/// that shows it as a default).
+pub const FIDELITY_TABLES: usize = 5;
+/// Default replicates of every run of a twin of the twin in the fidelity check.
+pub const FIDELITY_REPLICATES: usize = 100;
+
 /// Parametric-bootstrap tables behind the noise's standard error.
 pub const NOISE_TABLES: usize = 200;
 

@@ -1108,8 +1108,11 @@ pub struct SizeBest {
     pub bias: f64,
     /// The variance term at the best value.
     pub variance: f64,
-    /// The noise term at the best value.
-    pub noise: f64,
+    /// The noise term at the best value; absent where it is unknown (a table scored by a
+    /// classification or count loss, which folds it into the bias: such studies were refused
+    /// when it was written as NaN).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub noise: Option<f64>,
 }
 
 /// What the largest size gained over the next one, paired over replicate blocks.
@@ -1340,6 +1343,7 @@ fn rankings(plan: &Plan, outcome: &Outcome) -> Vec<Ranking> {
 /// Each family's learning curve, with the gain of the largest size read in a sentence.
 fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
     let nz = plan.sizes.len();
+    let observed = outcome.prepared.table.is_some();
     plan.models
         .iter()
         .enumerate()
@@ -1364,7 +1368,15 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                         stderr: finite(s.se(g, "expected_loss")),
                         bias: at(Role::Bias),
                         variance: at(Role::Variance),
-                        noise: at(Role::Noise),
+                        noise: s
+                            .terms
+                            .iter()
+                            .position(|t| {
+                                t.role == Role::Noise
+                                    && t.group == Group::Main
+                                    && reported(t, observed)
+                            })
+                            .map(|t| s.values[g][t]),
                     }
                 })
                 .collect();
@@ -1378,7 +1390,8 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 let drop = a.value(ga, "expected_loss") - b.value(gb, "expected_loss");
                 let se = paired_se(a, ga, b, gb, t);
                 let last = sizes.last().expect("a size");
-                let reducible = last.expected_loss - if last.noise.is_finite() { last.noise } else { 0.0 };
+                let reducible =
+                    last.expected_loss - last.noise.filter(|v| v.is_finite()).unwrap_or(0.0);
                 let share = last.variance / reducible;
                 let (from, to) = (plan.sizes[nz - 2], plan.sizes[nz - 1]);
                 let clear = se.is_some_and(|s| drop > 2.0 * s);
@@ -1681,14 +1694,19 @@ pub const ROWS_PER_COEFFICIENT: usize = 5;
 /// A sentence for the reading when an unpenalized least-squares fit
 /// ([`crate::family::Family::least_squares_coefficients`]) has fewer than
 /// [`ROWS_PER_COEFFICIENT`] training rows per coefficient at some grid value and training
-/// size. Now and then the training inputs bunch up or an evaluation point lies outside their
-/// range, and the fit extrapolates wildly: its predictions across training sets have a heavy
+/// size of a random design (a table's resampled rows included; never a fixed design). Now and
+/// then the training inputs bunch up or an evaluation point lies outside their range, and the
+/// fit extrapolates wildly: its predictions across training sets have a heavy
 /// tail (with one input and degree d, the chance that all n rows fall in a width ε falls like
 /// ε^(n−1) while a degree-d extrapolation grows like ε^(−d), so the prediction's 4th moment,
 /// which the variance's standard error needs, is infinite once n − 1 ≤ 4d; a derivation written
 /// here), and the variance's standard error can be far too small. The block statistic of
 /// [`heavy_tail_words`] sees only a share of such runs.
 fn few_rows_words(plan: &Plan) -> Option<String> {
+    // A fixed design trains on the same inputs in every replicate: they never bunch up.
+    if matches!(&plan.source, Source::Synthetic(s) if s.design == Design::Fixed) {
+        return None;
+    }
     let q = plan.n_inputs();
     let mut hits: Vec<String> = Vec::new();
     let several = plan.models.len() > 1;

@@ -857,18 +857,21 @@ fn curve_note(doc: &ResultDoc, view: View) -> String {
             }
             .unwrap_or_else(|| "bias²".to_string());
             let has = |k: &str| doc.term_docs().iter().any(|t| t.key == k);
+            // A table scored by a classification or count loss folds the noise into its bias
+            // (`bias+noise`): there is no noise term to add (it read "noise + bias+noise").
+            let noise = if has("noise") { "noise + " } else { "" };
             let mut note = if has("diversity") {
                 // Averaging exchangeable members: more members leave the bias alone and shrink
                 // only the variance, so "overfitting" is not what the right side shows.
                 format!(
-                    "Expected loss = noise + {bias} + variance = avg member loss − diversity \
+                    "Expected loss = {noise}{bias} + variance = avg member loss − diversity \
                      (Krogh and Vedelsby 1995; Wood et al. 2023): averaging the members takes \
                      their diversity off the loss of a single member. {simple} of the best value \
                      the model is simpler, {complex} of it more complex."
                 )
             } else {
                 format!(
-                    "Expected loss = noise + {bias} + variance. {simple} of the best value the \
+                    "Expected loss = {noise}{bias} + variance. {simple} of the best value the \
                      model is simpler and {bias} tends to dominate (underfitting); {complex} of \
                      it variance grows (overfitting)."
                 )

@@ -266,7 +266,7 @@ fn interval_line(doc: &ResultDoc, terms: &[TermDoc]) -> Option<String> {
         return None;
     }
     Some(format!(
-        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {} = {}: {} (at small R read it, not ± 2 SE, for the bias, net and biased variance and James' effects; docs/zero-one-finite-r.md)\n",
+        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {} = {}: {} (at small R read it rather than the symmetric ± 2 SE for the bias, net and biased variance and James' effects: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
         doc.knob,
         fmt_value(doc.best.value),
         parts.join("; ")
@@ -455,7 +455,7 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                         with_se(s.expected_loss, s.stderr),
                         fmt_num(s.bias),
                         fmt_num(s.variance),
-                        fmt_num(s.noise),
+                        s.noise.map_or("unknown".to_string(), fmt_num),
                     ]
                 })
                 .collect();

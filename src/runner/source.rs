@@ -294,10 +294,15 @@ fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
             "the mean counts (the truth at the evaluation points) are".into(),
             |c| format!("the counts ({c}) are"),
         );
+        let what = if target_column(plan).is_some() {
+            "the column"
+        } else {
+            "the truth in [data.truth]"
+        };
         return Err(Error::Data(format!(
             "{whose} at most {big:.1e} in size, so the squares behind the standard errors \
-             underflow to 0; counts are whole numbers of events: rescale the column (for \
-             example multiply it by a power of ten)"
+             underflow to 0; counts are whole numbers of events: rescale {what} (for example \
+             multiply it by a power of ten)"
         )));
     }
     Ok(())
