@@ -693,6 +693,50 @@ fn scenario_cases(t: &mut Table) {
         v,
         "overflow",
     );
+    for (name, law, needle) in [
+        (
+            "lognormal sdlog 0",
+            "lognormal = [0.0, 0.0]",
+            "sdlog must be > 0",
+        ),
+        (
+            "lognormal one number",
+            "lognormal = [1.0]",
+            "must be two finite numbers",
+        ),
+        (
+            "lognormal overflowing",
+            "lognormal = [300.0, 10.0]",
+            "give draws beyond 1e150",
+        ),
+        (
+            "lognormal underflowing",
+            "lognormal = [-400.0, 1.0]",
+            "underflow to 0",
+        ),
+        (
+            "exponential rate 0",
+            "exponential = 0.0",
+            "the rate must be a finite number > 0",
+        ),
+        (
+            "exponential rate -1",
+            "exponential = -1.0",
+            "the rate must be a finite number > 0",
+        ),
+        (
+            "exponential rate 1e-160",
+            "exponential = 1e-160",
+            "overflow or underflow",
+        ),
+        (
+            "two laws for one input",
+            "uniform = [0.0, 1.0]\nexponential = 2.0",
+            "needs exactly one of `uniform`, `normal`, `even`, `lognormal`, `exponential`",
+        ),
+    ] {
+        t.scenario(g, name, &sc("uniform = [0.0, 1.0]", law), v, needle);
+    }
     t.scenario(
         g,
         "even overflowing",

@@ -22,6 +22,10 @@ pub enum InputDist {
     Normal(f64, f64),
     /// Evenly spaced over the sample: point i of n sits at `lo + (hi-lo)·i/(n-1)`.
     Even(f64, f64),
+    /// Lognormal: `exp(meanlog + sdlog·z)`, z standard normal.
+    LogNormal(f64, f64),
+    /// Exponential with rate λ (mean 1/λ), by inversion: `−ln(1 − u)/λ`, u uniform on [0, 1).
+    Exponential(f64),
     /// Column `column` of a table's rows (a twin, see [`twin`]). When every input is
     /// empirical, whole rows are drawn with replacement, so the columns keep their joint law;
     /// with `jitter`, each drawn row is then smoothed ([`twin::Jitter`]).
@@ -44,6 +48,8 @@ impl InputDist {
             InputDist::Uniform(a, b) => format!("uniform({a}, {b})"),
             InputDist::Normal(m, s) => format!("normal(mean {m}, sd {s})"),
             InputDist::Even(a, b) => format!("evenly spaced over [{a}, {b}]"),
+            InputDist::LogNormal(m, s) => format!("lognormal(meanlog {m}, sdlog {s})"),
+            InputDist::Exponential(r) => format!("exponential(rate {r})"),
             InputDist::Empirical {
                 rows,
                 source,
@@ -410,6 +416,11 @@ impl Synthetic {
                         let z: f64 = StandardNormal.sample(rng);
                         m + s * z
                     }
+                    InputDist::LogNormal(m, s) => {
+                        let z: f64 = StandardNormal.sample(rng);
+                        (m + s * z).exp()
+                    }
+                    InputDist::Exponential(r) => -(1.0 - rng.gen::<f64>()).ln() / r,
                     // Mixed with other kinds (not produced by a plan): one row per value.
                     InputDist::Empirical {
                         ref rows,

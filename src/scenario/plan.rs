@@ -1362,15 +1362,24 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
             ),
         ));
     }
-    let given = [s.uniform.is_some(), s.normal.is_some(), s.even.is_some()]
-        .iter()
-        .filter(|&&b| b)
-        .count();
+    let given = [
+        s.uniform.is_some(),
+        s.normal.is_some(),
+        s.even.is_some(),
+        s.lognormal.is_some(),
+        s.exponential.is_some(),
+    ]
+    .iter()
+    .filter(|&&b| b)
+    .count();
     if given != 1 {
         return Err(cx.err(
             Some(s.name.span()),
             &key,
-            format!("input `{name}` needs exactly one of `uniform`, `normal`, `even`"),
+            format!(
+                "input `{name}` needs exactly one of `uniform`, `normal`, `even`, `lognormal`, \
+                 `exponential`"
+            ),
         ));
     }
     let dist = if let Some(u) = &s.uniform {
@@ -1417,10 +1426,71 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
         }
         overflowing_range(cx, ev, &format!("{key}.even"), a, b)?;
         InputDist::Even(a, b)
+    } else if let Some(l) = &s.lognormal {
+        let k = format!("{key}.lognormal");
+        let (m, sd) = pair(cx, l, &k)?;
+        if sd <= 0.0 {
+            return Err(cx.err(Some(l.span()), &k, "sdlog must be > 0"));
+        }
+        // Draws reach about exp(meanlog + 10 sdlog); beyond INPUT_MAX their squares overflow.
+        if m + 10.0 * sd > INPUT_MAX.ln() {
+            return Err(cx.err(
+                Some(l.span()),
+                &k,
+                format!(
+                    "meanlog {} and sdlog {} give draws beyond {INPUT_MAX:e} (exp(meanlog + 10 \
+                     sdlog)), which overflow once the inputs are scaled or squared; lower them",
+                    crate::fmt::fmt_exact(m),
+                    crate::fmt::fmt_exact(sd)
+                ),
+            ));
+        }
+        if lognormal_sd(m, sd) < INPUT_MIN_SPREAD {
+            return Err(cx.err(
+                Some(l.span()),
+                &k,
+                "its draws are so small or so close together that the squares of their \
+                 differences underflow to 0 once the inputs are scaled; raise meanlog or sdlog",
+            ));
+        }
+        InputDist::LogNormal(m, sd)
+    } else if let Some(r) = &s.exponential {
+        let k = format!("{key}.exponential");
+        let rate = *r.get_ref();
+        if !(rate.is_finite() && rate > 0.0) {
+            return Err(cx.err(
+                Some(r.span()),
+                &k,
+                format!(
+                    "the rate must be a finite number > 0, got {}",
+                    crate::fmt::fmt_exact(rate)
+                ),
+            ));
+        }
+        // Draws reach about 40/rate (a chance of e^-40 beyond); the sd is 1/rate.
+        if 40.0 / rate > INPUT_MAX || 1.0 / rate < INPUT_MIN_SPREAD {
+            return Err(cx.err(
+                Some(r.span()),
+                &k,
+                format!(
+                    "rate {} gives draws of size {:e}, whose squares overflow or underflow once \
+                     the inputs are scaled; rescale the input",
+                    crate::fmt::fmt_exact(rate),
+                    1.0 / rate
+                ),
+            ));
+        }
+        InputDist::Exponential(rate)
     } else {
         unreachable!("exactly one distribution checked above")
     };
     Ok(Input { name, dist })
+}
+
+/// Standard deviation of a lognormal input, `exp(m + s²/2)·√(exp(s²) − 1)` (a textbook
+/// moment, from memory), computed so that a tiny `s` does not round to 0.
+fn lognormal_sd(m: f64, s: f64) -> f64 {
+    (m + 0.5 * s * s).exp() * (s * s).exp_m1().sqrt()
 }
 
 /// `v` to twelve significant digits (a grid value as written, not its rounding error).
@@ -1491,6 +1561,9 @@ fn offset_inputs(
             InputDist::Uniform(a, b) => ((b - a) / 12f64.sqrt(), a.abs().max(b.abs()), "uniform"),
             InputDist::Even(a, b) => ((b - a) / 12f64.sqrt(), a.abs().max(b.abs()), "even"),
             InputDist::Normal(m, sd) => (sd, m.abs(), "normal"),
+            InputDist::LogNormal(m, s) => (lognormal_sd(m, s), m.exp(), "lognormal"),
+            // Its spread is its mean: never an offset.
+            InputDist::Exponential(_) => continue,
             InputDist::Empirical { .. } => continue,
         };
         if sd >= offset_share() * size {
@@ -1503,6 +1576,7 @@ fn offset_inputs(
             .and_then(|spec| match law {
                 "uniform" => spec.uniform.as_ref().map(|v| v.span()),
                 "even" => spec.even.as_ref().map(|v| v.span()),
+                "lognormal" => spec.lognormal.as_ref().map(|v| v.span()),
                 _ => spec.normal.as_ref().map(|v| v.span()),
             });
         return Err(cx.err_line(

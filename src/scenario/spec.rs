@@ -405,6 +405,12 @@ pub struct InputSpec {
     /// `[lo, hi]`: evenly spaced over the sample (point i of n at lo + (hi-lo)·i/(n-1)).
     #[serde(default)]
     pub even: Option<Spanned<Vec<f64>>>,
+    /// `[meanlog, sdlog]`: lognormal, `exp(meanlog + sdlog·z)` with z standard normal.
+    #[serde(default)]
+    pub lognormal: Option<Spanned<Vec<f64>>>,
+    /// `rate`: exponential with that rate (mean 1/rate).
+    #[serde(default)]
+    pub exponential: Option<Spanned<f64>>,
 }
 
 /// `[data.truth]`: a formula or a built-in published test function.
