@@ -160,6 +160,20 @@ impl CheckOptions {
     }
 }
 
+/// Refuses a `--margin-term` for a term `doc` is never compared on (the noise, the direct
+/// check, a 0-1 term on a squared-loss result): it was echoed as if it applied.
+pub fn margins_apply(opts: &CheckOptions, doc: &ResultDoc) -> Result<(), CheckError> {
+    let terms = compared_terms(doc);
+    match opts.term_margins.iter().find(|(t, _)| !terms.contains(t)) {
+        Some((t, _)) => Err(CheckError::Options(format!(
+            "--margin-term: `{t}` is not compared for this result ({} loss); compared terms: {}",
+            doc.loss,
+            terms.join(", ")
+        ))),
+        None => Ok(()),
+    }
+}
+
 /// Parses a margin: `2%` (percent) or `0.02` (a fraction).
 pub fn parse_margin(s: &str) -> Result<f64, String> {
     let t = s.trim();
@@ -1276,15 +1290,7 @@ pub fn compare(
     }
     let pairs = match_rows(new, baseline).map_err(versions)?;
     let terms = compared_terms(new);
-    // A margin for a term these documents never compare would be echoed as if it applied (the
-    // noise, the direct check, a 0-1 term on a squared-loss result).
-    if let Some((t, _)) = opts.term_margins.iter().find(|(t, _)| !terms.contains(t)) {
-        return Err(CheckError::Options(format!(
-            "--margin-term: `{t}` is not compared for this result ({} loss); compared terms: {}",
-            new.loss,
-            terms.join(", ")
-        )));
-    }
+    margins_apply(opts, new)?;
     let identical = pairs
         .iter()
         .enumerate()

@@ -3115,6 +3115,22 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             &format!("--margin-term: `{term}` is not compared for this result (squared loss)"),
         );
     }
+    // ... also when `--update` creates the baseline (it was accepted once).
+    t.add(
+        g,
+        "--margin-term noise with --update creating the baseline",
+        with_results,
+        &[
+            "check",
+            "r.json",
+            "--baseline",
+            "fresh.json",
+            "--update",
+            "--margin-term",
+            "noise=5%",
+        ],
+        "--margin-term: `noise` is not compared for this result (squared loss)",
+    );
     t.add(
         g,
         "--threads 100000",

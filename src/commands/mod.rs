@@ -670,6 +670,9 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         Ok((text, doc))
     };
     let (text, new) = read(&args.result)?;
+    // Also when `--update` creates the baseline without comparing (accepted once, then
+    // refused at the next check).
+    check::margins_apply(&opts, &new).map_err(|e| Error::Usage(e.to_string()))?;
     // A baseline is read back by the next check: standard output keeps nothing (it printed the
     // document, then "baseline - created", with exit 0).
     if args.update && crate::output::is_stdout(&args.baseline) {
