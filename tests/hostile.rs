@@ -706,8 +706,20 @@ fn scenario_cases(t: &mut Table) {
         ),
         (
             "lognormal overflowing",
-            "lognormal = [300.0, 10.0]",
+            "lognormal = [340.0, 1.0]",
             "give draws beyond 1e150",
+        ),
+        // Judged by its overall sd (the rare huge draws'), a law with its bulk near 1e-260 was
+        // accepted and k-NN ignored the input, exit 0; centring such a spread loses digits.
+        (
+            "lognormal sdlog 20",
+            "lognormal = [-600.0, 20.0]",
+            "sdlog 20 spreads the draws",
+        ),
+        (
+            "lognormal sdlog 6",
+            "lognormal = [0.0, 6.0]",
+            "keep sdlog at most 5",
         ),
         (
             "lognormal underflowing",

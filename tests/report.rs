@@ -1579,3 +1579,36 @@ fn bayes_ties_under_the_zero_one_loss_are_said() {
         .expect("a tie sentence");
     assert!(n > 10 && n < 40, "{n}: {}", doc.reading);
 }
+
+/// With several models the 0-1 interval line names the best row's own model and knob (it
+/// printed the first model's knob beside another model's value and interval).
+#[test]
+fn the_interval_line_names_the_best_models_knob() {
+    let two = TINY_CLASSES.replace(
+        "[model]\nfamily = \"tree\"\ngrid = [1, 2, 3]",
+        "[[model]]\nfamily = \"tree\"\ngrid = [1, 2, 3]\n[[model]]\nfamily = \"knn\"\ngrid = [5, 15, 25]",
+    );
+    assert_ne!(two, TINY_CLASSES, "fixture");
+    let (_, _, doc) = run(&two);
+    let table = report::terminal::render(&doc);
+    let line = table
+        .lines()
+        .find(|l| l.starts_with("interval: "))
+        .unwrap_or_else(|| panic!("no interval line:\n{table}"));
+    let fam = doc.best.family.clone().expect("a best model");
+    // The second model is the best here, where the first model's knob was printed.
+    assert_eq!(fam, "knn", "fixture: {}", doc.reading);
+    let knob = doc.knob_of(&fam).to_string();
+    let want = format!(
+        "at {fam} {knob} = {}:",
+        lossprism::fmt::fmt_value(doc.best.value)
+    );
+    assert!(line.contains(&want), "{want} not in {line}");
+    let row = report::terminal::best_row(&doc).unwrap();
+    let (lo, hi) = row.interval("bias").unwrap();
+    assert!(line.contains(&format!(
+        "[{}, {}]",
+        lossprism::fmt::fmt_num(lo),
+        lossprism::fmt::fmt_num(hi)
+    )));
+}

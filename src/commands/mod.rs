@@ -1229,7 +1229,8 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--noise-estimator")
         } else if !matches!(a.reference.as_str(), "best" | "knn") {
             Some("--reference")
-        } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER {
+        } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER && a.jitter != 0.0 {
+            // 0 is what a classification twin does anyway: its rows as they are.
             Some("--jitter")
         } else if a.jitter_variance != "table" {
             Some("--jitter-variance")

@@ -1710,15 +1710,28 @@ fn few_rows_words(plan: &Plan) -> Option<String> {
     let q = plan.n_inputs();
     let mut hits: Vec<String> = Vec::new();
     let several = plan.models.len() > 1;
+    // A bootstrap sample of a table holds fewer distinct rows than it draws (about 63%): those
+    // are what the coefficients are fitted from.
+    let distinct = |n: usize| match &plan.source {
+        Source::Table(t) if t.scheme == crate::dataset::Scheme::Bootstrap => {
+            let d = crate::dataset::distinct_share(n, t.work.len()) * n as f64;
+            (
+                d.round() as usize,
+                format!("{n} training rows, about {} distinct", d.round()),
+            )
+        }
+        _ => (n, format!("{n} training rows")),
+    };
     for m in &plan.models {
         for &n in &plan.sizes {
+            let (rows, words) = distinct(n);
             for &v in &m.grid {
                 let Some(p) = m.family.least_squares_coefficients(v, q) else {
                     continue;
                 };
-                if p.saturating_mul(ROWS_PER_COEFFICIENT) > n {
+                if p.saturating_mul(ROWS_PER_COEFFICIENT) > rows {
                     hits.push(format!(
-                        "{}{} = {} ({p} coefficients from {n} training rows)",
+                        "{}{} = {} ({p} coefficients from {words})",
                         if several {
                             format!("{}: ", m.label)
                         } else {

@@ -265,9 +265,14 @@ fn interval_line(doc: &ResultDoc, terms: &[TermDoc]) -> Option<String> {
     if parts.is_empty() {
         return None;
     }
+    // The best row's own model and knob (a run of several models printed the first model's
+    // knob beside another model's value and interval).
+    let (who, knob) = match p.family.as_deref() {
+        Some(f) => (format!("{f} "), doc.knob_of(f)),
+        None => (String::new(), doc.knob.as_str()),
+    };
     Some(format!(
-        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {} = {}: {} (at small R read it rather than the symmetric ± 2 SE for the bias, net and biased variance and James' effects: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
-        doc.knob,
+        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {who}{knob} = {}: {} (at small R read it rather than the symmetric ± 2 SE for the bias, net and biased variance and James' effects: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
         fmt_value(doc.best.value),
         parts.join("; ")
     ))

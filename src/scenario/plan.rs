@@ -1445,7 +1445,26 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
                 ),
             ));
         }
-        if lognormal_sd(m, sd) < INPUT_MIN_SPREAD {
+        // Centring draws spread over more than about 20 orders of magnitude loses the bulk's
+        // digits (its values vanish beside the mean of the rare huge ones), and a standardizing
+        // family then reads them as one value; the median must also stay clear of underflow
+        // (a law judged by its overall sd, the rare huge draws', passed with its bulk at 1e-260,
+        // and k-NN ignored the input with exit 0).
+        if sd > LOGNORMAL_MAX_SDLOG {
+            return Err(cx.err(
+                Some(l.span()),
+                &k,
+                format!(
+                    "sdlog {} spreads the draws over more than {:.0} orders of magnitude: \
+                     centring and scaling them (as standardizing families do) loses the digits \
+                     of most of them; draw the log as a normal input and write the formula with \
+                     exp() of it, or keep sdlog at most {LOGNORMAL_MAX_SDLOG}",
+                    crate::fmt::fmt_exact(sd),
+                    8.0 * LOGNORMAL_MAX_SDLOG / std::f64::consts::LN_10
+                ),
+            ));
+        }
+        if m.exp() < INPUT_MIN_SPREAD || lognormal_sd(m, sd) < INPUT_MIN_SPREAD {
             return Err(cx.err(
                 Some(l.span()),
                 &k,
@@ -1473,10 +1492,9 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
                 Some(r.span()),
                 &k,
                 format!(
-                    "rate {} gives draws of size {:e}, whose squares overflow or underflow once \
-                     the inputs are scaled; rescale the input",
-                    crate::fmt::fmt_exact(rate),
-                    1.0 / rate
+                    "rate {} gives draws of mean 1/rate, whose squares overflow or underflow \
+                     once the inputs are scaled; rescale the input",
+                    crate::fmt::fmt_exact(rate)
                 ),
             ));
         }
@@ -1486,6 +1504,12 @@ fn input(cx: &Ctx<'_>, i: usize, s: &InputSpec) -> Result<Input, ScenarioError> 
     };
     Ok(Input { name, dist })
 }
+
+/// Largest `sdlog` of a lognormal input: the mean of its draws is exp(sdlog²/2) times their
+/// median (e^12.5 ≈ 3e5 at 5), so centring them keeps about 10 of a median draw's 16 digits.
+/// A bound set by that arithmetic; real skewed quantities rarely exceed sdlog 2 (common
+/// practice, no source).
+pub const LOGNORMAL_MAX_SDLOG: f64 = 5.0;
 
 /// Standard deviation of a lognormal input, `exp(m + s²/2)·√(exp(s²) − 1)` (a textbook
 /// moment, from memory), computed so that a tiny `s` does not round to 0.
