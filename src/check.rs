@@ -1057,6 +1057,22 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
                 } else {
                     format!("scenario.{k}")
                 };
+                // A section (the twin's): name its first differing field, since the clipped
+                // values often began alike (a field a newer version writes was not named).
+                if let (Some(serde_json::Value::Object(oa)), Some(serde_json::Value::Object(ob))) =
+                    (va, vb)
+                {
+                    let mut sub: Vec<&String> = oa.keys().chain(ob.keys()).collect();
+                    sub.sort();
+                    sub.dedup();
+                    if let Some(f) = sub.into_iter().find(|f| oa.get(*f) != ob.get(*f)) {
+                        return Some(format!(
+                            "{what}.{f} differs: {} in the result, {} in the baseline",
+                            show(oa.get(f).unwrap_or(&null)),
+                            show(ob.get(f).unwrap_or(&null))
+                        ));
+                    }
+                }
                 return Some(format!(
                     "{what} differs: {} in the result, {} in the baseline",
                     show(va.unwrap_or(&null)),
@@ -1889,6 +1905,29 @@ mod tests {
         assert_eq!(
             e.to_string(),
             "cannot compare: scenario.train_size differs: 20 in the result, 10 in the baseline"
+        );
+        // A section names its first differing field (a twin baseline written before
+        // `jitter_variance` was refused with two clipped values that began alike).
+        let twin = |jv: Option<&str>| crate::report::twin::TwinEcho {
+            reference: "blend".into(),
+            twice: true,
+            input_weights: Vec::new(),
+            cv_r2: Vec::new(),
+            sharpen: None,
+            jitter: 1.0,
+            jitter_variance: jv.map(str::to_string),
+            noise: None,
+            fidelity: None,
+            recommended: Vec::new(),
+        };
+        let (mut a, mut b) = (base.clone(), base.clone());
+        a.scenario.twin = Some(twin(Some("table")));
+        b.scenario.twin = Some(twin(None));
+        let e = compare(&a, &b, &CheckOptions::default()).unwrap_err();
+        assert!(
+            e.to_string()
+                .starts_with("cannot compare: scenario.twin.jitter_variance differs: "),
+            "{e}"
         );
         let mut other = base.clone();
         other.scenario.grid = vec![1.0, 3.0];

@@ -1269,10 +1269,19 @@ fn zero_one_percentile_intervals_round_trip_and_show_in_table_csv_and_html() {
         for k in &boot {
             let (lo, hi) = p.interval(k).unwrap();
             let (v, se) = (p.get(k), p.se(k).unwrap());
+            // Terms that cannot be negative stop at 0; the net variance and the variance
+            // effect can be negative and keep the full ± 2 SE.
+            let signed = ["net_variance", "james.variance_effect"].contains(&k.as_str());
+            let floor = if signed {
+                v - 2.0 * se
+            } else {
+                (v - 2.0 * se).max(0.0)
+            };
             assert!(
-                lo <= v - 2.0 * se && hi >= v + 2.0 * se,
+                lo <= floor && hi >= v + 2.0 * se,
                 "{k}: [{lo}, {hi}] {v} ± {se}"
             );
+            assert!(signed || lo >= 0.0, "{k}: [{lo}, {hi}]");
         }
     }
     // other losses carry no interval: no key at all

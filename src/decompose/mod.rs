@@ -361,6 +361,13 @@ pub trait Loss: Send + Sync {
     /// be written as its label.
     fn point_columns(&self, shape: &Shape, observed: bool) -> Vec<(&'static str, bool)>;
 
+    /// Whether term `key` cannot be negative by its definition (a share of disagreeing votes):
+    /// its reported interval then stops at 0 where widening it to ± 2 SE would cross it
+    /// (default: none).
+    fn nonnegative(&self, _key: &str) -> bool {
+        false
+    }
+
     /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
     /// label columns are written as class indices.
     fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64>;
@@ -951,6 +958,11 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
             if lower[g][t].is_finite() && se.is_finite() {
                 lower[g][t] = lower[g][t].min(v - 2.0 * se);
                 upper[g][t] = upper[g][t].max(v + 2.0 * se);
+                // The truth of a term that cannot be negative is not below 0 either, so the
+                // coverage is the same (it printed `bias [-0.002094, 0.2100]`).
+                if loss.nonnegative(terms[t].key) {
+                    lower[g][t] = lower[g][t].max(0.0);
+                }
             }
         }
     }

@@ -886,6 +886,19 @@ impl Loss for ZeroOne {
         }
     }
 
+    /// Domingos' bias (a share of points), the variances (shares of disagreeing votes) and
+    /// James' systematic effect (the Bayes class's probability minus the main prediction's).
+    fn nonnegative(&self, key: &str) -> bool {
+        matches!(
+            key,
+            "bias"
+                | "variance"
+                | "unbiased_variance"
+                | "biased_variance"
+                | "james.systematic_effect"
+        )
+    }
+
     fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64> {
         let k = acc.shape.classes;
         let mut buf = Vec::with_capacity(k);
