@@ -1073,6 +1073,20 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
                         ));
                     }
                 }
+                // A list of the same length (the inputs): its first differing entry.
+                if let (Some(serde_json::Value::Array(la)), Some(serde_json::Value::Array(lb))) =
+                    (va, vb)
+                {
+                    if la.len() == lb.len() && k != "grid" {
+                        if let Some(i) = (0..la.len()).find(|&i| la[i] != lb[i]) {
+                            return Some(format!(
+                                "{what}[{i}] differs: {} in the result, {} in the baseline",
+                                show(&la[i]),
+                                show(&lb[i])
+                            ));
+                        }
+                    }
+                }
                 return Some(format!(
                     "{what} differs: {} in the result, {} in the baseline",
                     show(va.unwrap_or(&null)),
@@ -1927,6 +1941,15 @@ mod tests {
         assert!(
             e.to_string()
                 .starts_with("cannot compare: scenario.twin.jitter_variance differs: "),
+            "{e}"
+        );
+        // ... and a list its first differing entry (inputs whose descriptions begin alike).
+        let (mut a, b) = (base.clone(), base.clone());
+        a.scenario.inputs[0].distribution = "lognormal(meanlog 0, sdlog 1)".into();
+        let e = compare(&a, &b, &CheckOptions::default()).unwrap_err();
+        assert!(
+            e.to_string()
+                .starts_with("cannot compare: scenario.inputs[0] differs: "),
             "{e}"
         );
         let mut other = base.clone();

@@ -1380,3 +1380,35 @@ fn a_product_of_inputs_gets_a_polynomial_reference_and_inputs_keep_their_varianc
         );
     }
 }
+
+/// A twin without jitter draws the table's rows with replacement, as a table's bootstrap does:
+/// the few-rows reading counts the distinct rows a training set holds (it counted every draw
+/// and said nothing where a cubic had fewer than 5 distinct rows per coefficient).
+#[test]
+fn few_rows_reading_counts_a_plain_twins_distinct_rows() {
+    let dir = tempfile::tempdir().unwrap();
+    write_table(&dir.path().join("t.csv"), 30, 1);
+    let text = |jitter: &str| {
+        format!(
+            "name = \"t\"\nseed = 2\nreplicates = 8\n[data]\nsource = \"twin\"\npath = \"t.csv\"\n\
+             target = \"y\"\ntrain_size = 24\neval_size = 30\n{jitter}reference = {{ family = \"knn\", k = 3 }}\n\
+             [data.noise]\nsd = 0.5\n[model]\nfamily = \"poly\"\ngrid = [1, 3]\n"
+        )
+    };
+    let reading = |jitter: &str| {
+        let f = dir.path().join("s.toml");
+        fs::write(&f, text(jitter)).unwrap();
+        let plan = load(&f);
+        report::build(&plan, &runner::run(&plan, 1).unwrap()).reading
+    };
+    // 24 draws from 30 rows hold about 30·(1 − (29/30)²⁴) ≈ 17 distinct rows: the cubic's 4
+    // coefficients need 20.
+    let plain = reading("");
+    assert!(
+        plain.contains("degree = 3 (4 coefficients from 24 training rows, about 17 distinct)"),
+        "{plain}"
+    );
+    // Jittered draws are all distinct: 24 rows are enough for 4 coefficients.
+    let jittered = reading("jitter = 1.0\n");
+    assert!(!jittered.contains("Few rows"), "{jittered}");
+}

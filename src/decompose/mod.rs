@@ -763,7 +763,8 @@ pub struct Summary {
     pub stderr: Vec<Row>,
     /// Lower bounds of the 95 % interval per grid value: the bootstrap percentile interval
     /// ([`percentile_interval`], from the same draws as the bootstrap standard errors) widened
-    /// to contain the value ± 2 standard errors; NaN for the other terms and where it cannot be
+    /// to contain the value ± 2 standard errors, but not below 0 for a term that cannot be
+    /// negative ([`Loss::nonnegative`]); NaN for the other terms and where it cannot be
     /// computed (no plans, fewer than two blocks, a non-finite draw).
     pub lower: Vec<Row>,
     /// Upper bounds, as [`Summary::lower`].

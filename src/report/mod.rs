@@ -197,7 +197,7 @@ impl TermDoc {
 /// nested objects), then `estimated` on tables, then the standard errors of the terms that have
 /// one (jackknife over replicate blocks; `null` where they cannot be computed), then — only when
 /// some term's standard error comes from the block bootstrap — `interval95`, the 95 % bootstrap
-/// percentile interval widened to contain ± 2 SE, `[lower, upper]`, of each such term under the same nested keys (`null`
+/// percentile interval widened to contain ± 2 SE (not below 0 for a term that cannot be negative), `[lower, upper]`, of each such term under the same nested keys (`null`
 /// where it cannot be computed, as a standard error). Two rows are equal when every number is
 /// the same bit for bit (so `null` equals `null`).
 #[derive(Debug, Clone)]
@@ -214,7 +214,7 @@ pub struct PointRow {
     pub estimated: Option<bool>,
     /// Standard errors in order: `(key, value)`, NaN written as `null`.
     pub stderr: Vec<(String, f64)>,
-    /// The 95 % intervals (bootstrap percentile, widened to ± 2 SE) of the terms marked `bootstrap`, in order:
+    /// The 95 % intervals (bootstrap percentile, widened to ± 2 SE, not below 0 for a term that cannot be negative) of the terms marked `bootstrap`, in order:
     /// `(key, (lower, upper))`, NaN bounds written as `null`; empty (and absent from the JSON)
     /// when no term is a bootstrap term.
     pub interval: Vec<(String, (f64, f64))>,
@@ -266,7 +266,7 @@ impl PointRow {
             .filter(|v| v.is_finite())
     }
 
-    /// The 95 % interval (bootstrap percentile, widened to ± 2 SE) of term `key`: `None` when absent or not
+    /// The 95 % interval (bootstrap percentile, widened to ± 2 SE, not below 0 for a term that cannot be negative) of term `key`: `None` when absent or not
     /// computable.
     pub fn interval(&self, key: &str) -> Option<(f64, f64)> {
         self.interval
@@ -1710,11 +1710,19 @@ fn few_rows_words(plan: &Plan) -> Option<String> {
     let q = plan.n_inputs();
     let mut hits: Vec<String> = Vec::new();
     let several = plan.models.len() > 1;
-    // A bootstrap sample of a table holds fewer distinct rows than it draws (about 63%): those
-    // are what the coefficients are fitted from.
-    let distinct = |n: usize| match &plan.source {
-        Source::Table(t) if t.scheme == crate::dataset::Scheme::Bootstrap => {
-            let d = crate::dataset::distinct_share(n, t.work.len()) * n as f64;
+    // A bootstrap sample of a table, or of a twin's rows drawn as they are (no jitter), holds
+    // fewer distinct rows than it draws (about 63%): those are what the coefficients are
+    // fitted from.
+    let pool = match &plan.source {
+        Source::Table(t) if t.scheme == crate::dataset::Scheme::Bootstrap => Some(t.work.len()),
+        Source::Synthetic(s) if s.process.jitter().map_or(true, |j| j.is_plain()) => {
+            s.process.empirical_rows().map(|r| r.nrows())
+        }
+        _ => None,
+    };
+    let distinct = |n: usize| match pool {
+        Some(rows) => {
+            let d = crate::dataset::distinct_share(n, rows) * n as f64;
             (
                 d.round() as usize,
                 format!("{n} training rows, about {} distinct", d.round()),
