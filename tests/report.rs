@@ -397,6 +397,26 @@ fn per_point_view_needs_an_input_name_with_several_inputs() {
     assert_eq!(v.averaged_over, vec!["a".to_string()]);
     assert!(v.x.len() >= 2 && v.x.len() <= 40);
     assert!(plot::points_svg(&v).is_ok());
+    // A skewed input: equal-width bins put most points in the first bin; equal-count bins
+    // spread them (every bin holds at most a third of the points, none is empty).
+    let skewed = TINY_LOG.replace("uniform = [-1.0, 1.0]", "lognormal = [0.0, 2.0]");
+    assert_ne!(skewed, TINY_LOG, "fixture");
+    let (splan, sout, sdoc) = run(&skewed);
+    let a = splan.n_inputs();
+    assert_eq!(a, 2);
+    let sv = plot::point_view(
+        &splan,
+        &sout,
+        &sdoc,
+        Some("a"),
+        (&train(&splan, &sout).0, &train(&splan, &sout).1),
+    )
+    .unwrap();
+    assert!(sv.x.len() >= 5, "{:?}", sv.x);
+    assert!(sv.x.windows(2).all(|w| w[0] <= w[1]));
+    // The bins' centres follow the draws' quantiles: half of them below the median e^0 = 1.
+    let below = sv.x.iter().filter(|x| **x < 1.0).count();
+    assert!(below * 3 >= sv.x.len(), "{:?}", sv.x);
     let (cplan, cout, cdoc) = run(TINY_CLASSES);
     assert!(plot::point_view(
         &cplan,

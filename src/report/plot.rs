@@ -1029,7 +1029,8 @@ pub fn point_view(
     }
     let cell = |g: usize, e: usize| crate::decompose::squared::point(acc, g, e, prep.eval_truth[e]);
     // Group evaluation points: one group per point (sorted by x) for one input, equal-width bins
-    // of the chosen input otherwise.
+    // of the chosen input otherwise (equal-count bins when one equal-width bin would hold more
+    // than a third of the points).
     let mut order: Vec<usize> = (0..m).filter(|&e| ex[e].is_finite()).collect();
     order.sort_by(|&a, &b| ex[a].total_cmp(&ex[b]));
     let mut levels: Vec<f64> = order.iter().map(|&e| ex[e]).collect();
@@ -1059,7 +1060,14 @@ pub fn point_view(
             let b = (((ex[e] - lo) / w) as usize).min(bins - 1);
             g[b].push(e);
         }
-        g.into_iter().filter(|v| !v.is_empty()).collect()
+        // A skewed input (lognormal, exponential) piles most points into the first equal-width
+        // bin (93% of them for a lognormal with sdlog 2): then bins of equal counts, in order.
+        if g.iter().any(|v| 3 * v.len() > order.len()) {
+            let per = order.len().div_ceil(bins).max(1);
+            order.chunks(per).map(<[usize]>::to_vec).collect()
+        } else {
+            g.into_iter().filter(|v| !v.is_empty()).collect()
+        }
     };
     let avg = |v: &dyn Fn(usize) -> f64, grp: &[usize]| {
         grp.iter().map(|&e| v(e)).sum::<f64>() / grp.len() as f64
