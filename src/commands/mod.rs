@@ -1013,10 +1013,7 @@ fn assess(args: &RunArgs, plan: &Plan, value: f64) -> Result<u8, Error> {
             file,
             replicate,
             family,
-            message: message.replace(
-                "in [model] (key `model.",
-                &format!("in its [[model]] section (key `model[{chosen}]."),
-            ),
+            message: runner::in_section(&message, chosen),
         },
         other => other,
     })?;

@@ -388,6 +388,16 @@ fn data_common(o: &TwinOptions, t: &Table, table_rel: &str) -> String {
     s
 }
 
+/// A regression twin's evaluation points: `--eval-size`, at most the table's `rows` without a
+/// jitter (its points are then rows of the table).
+fn eval_size(o: &TwinOptions, rows: usize) -> usize {
+    if o.jitter > 0.0 {
+        o.eval_size
+    } else {
+        o.eval_size.min(rows)
+    }
+}
+
 /// The `[data]` section of a regression twin (without `[data.fit_report]`).
 fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionText<'_>) -> String {
     let mut s = data_common(o, t, table_rel);
@@ -1030,14 +1040,9 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         shape: o.noise_shape,
         train_size: t.rows(),
         sizes: vec![t.rows()],
-        // As the twin itself (its evaluation points are capped at the rows without a jitter):
-        // the fidelity check's memory check measures the twin's sizes, and these runs used
-        // every row whatever `--eval-size` said.
-        eval_size: if o.jitter > 0.0 {
-            o.eval_size
-        } else {
-            o.eval_size.min(t.rows())
-        },
+        // As the twin itself: the fidelity check's memory check measures the twin's sizes,
+        // and these runs used every row whatever `--eval-size` said.
+        eval_size: eval_size(o, t.rows()),
         design: Design::Random,
         eval_at_design: false,
         report: None,
@@ -1609,11 +1614,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             let spread_seen = spread.as_ref().is_some_and(|s| s.1);
             let (noise, sd_rows) = twin_noise(o, &t, &fit, vf)
                 .map_err(|m| Error::Usage(format!("{}: {m}", o.table.display())))?;
-            let eval_size = if o.jitter > 0.0 {
-                o.eval_size
-            } else {
-                o.eval_size.min(t.rows())
-            };
+            let eval_size = eval_size(o, t.rows());
             let o_eff = TwinOptions {
                 eval_size,
                 ..o.clone()

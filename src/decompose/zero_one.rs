@@ -944,8 +944,9 @@ pub struct ZeroOneSummary {
     pub terms: Vec<ZeroOneTerms>,
     /// Standard errors per grid value (NaN where not reported).
     pub stderr: Vec<ZeroOneTerms>,
-    /// Lower bounds of the 95 % interval (bootstrap percentile, widened to ± 2 SE, not below 0 for a term that cannot be negative) per grid value (NaN but for the
-    /// terms that use the main prediction, and without bootstrap plans).
+    /// Lower bounds of the 95 % interval (bootstrap percentile, widened to ± 2 SE, not below 0
+    /// for a term that cannot be negative) per grid value (NaN but for the terms that use the
+    /// main prediction, and without bootstrap plans).
     pub lower: Vec<ZeroOneTerms>,
     /// Upper bounds, as `lower`.
     pub upper: Vec<ZeroOneTerms>,

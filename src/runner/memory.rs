@@ -326,18 +326,7 @@ pub fn check_as(
     what: &str,
     lower: &str,
 ) -> Result<(Estimate, Option<u64>), Error> {
-    let (e, cap) = (estimate(plan, threads), crate::codec::available_memory());
-    match cap {
-        Some(cap) if e.total() > cap as f64 => Err(Error::Usage(format!(
-            "{}: {what} needs about {} of memory, more than the memory available on this \
-             machine ({}); the largest part is {}: lower it ({lower})",
-            plan.file,
-            fmt_bytes(e.total()),
-            fmt_bytes(cap as f64),
-            e.largest(),
-        ))),
-        _ => Ok((e, cap)),
-    }
+    refuse_above(plan, estimate(plan, threads), None, what, lower, false)
 }
 
 /// The estimate of merging the parts of `plan`'s run: what a merge holds is every block's
@@ -372,6 +361,19 @@ fn held_to(
     what: &str,
     lower: &str,
 ) -> Result<(Estimate, Option<u64>), Error> {
+    refuse_above(plan, e, limit, what, lower, true)
+}
+
+/// [`held_to`], with the advice to pass `--memory-limit` only when the command has the option
+/// (`go_ahead`).
+fn refuse_above(
+    plan: &Plan,
+    e: Estimate,
+    limit: Option<u64>,
+    what: &str,
+    lower: &str,
+    go_ahead: bool,
+) -> Result<(Estimate, Option<u64>), Error> {
     let (cap, whose) = match limit {
         Some(l) => (Some(l), "the --memory-limit"),
         None => (
@@ -381,19 +383,25 @@ fn held_to(
     };
     if let Some(cap) = cap {
         if e.total() > cap as f64 {
-            let lower = if BASE_BYTES > e.main().bytes {
-                ": pass".to_string()
-            } else {
-                format!(": lower it ({lower}), or pass")
+            let advice = match (BASE_BYTES > e.main().bytes, go_ahead) {
+                (true, true) => format!(
+                    ": pass --memory-limit SIZE (e.g. --memory-limit {}) to go ahead anyway",
+                    suggest(e.total())
+                ),
+                (false, true) => format!(
+                    ": lower it ({lower}), or pass --memory-limit SIZE (e.g. --memory-limit {}) \
+                     to go ahead anyway",
+                    suggest(e.total())
+                ),
+                (_, false) => format!(": lower it ({lower})"),
             };
             return Err(Error::Usage(format!(
                 "{}: {what} needs about {} of memory, more than {whose} ({}); the largest part \
-                 is {}{lower} --memory-limit SIZE (e.g. --memory-limit {}) to go ahead anyway",
+                 is {}{advice}",
                 plan.file,
                 fmt_bytes(e.total()),
                 fmt_bytes(cap as f64),
                 e.largest(),
-                suggest(e.total())
             )));
         }
     }

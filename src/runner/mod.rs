@@ -140,18 +140,21 @@ pub fn with_remedy(plan: &Plan, model: &ModelPlan, message: String) -> String {
         // A run of several models names the section as the scenario's errors do (`model[2]`).
         let i = plan.models.iter().position(|m| std::ptr::eq(m, model));
         match i.filter(|_| plan.models.len() > 1) {
-            Some(i) => format!(
-                "{message}; {}",
-                remedy.replace(
-                    "in [model] (key `model.",
-                    &format!("in its [[model]] section (key `model[{i}].")
-                )
-            ),
+            Some(i) => format!("{message}; {}", in_section(remedy, i)),
             None => format!("{message}; {remedy}"),
         }
     } else {
         message
     }
+}
+
+/// `text` (a family's remedy) with its `[model]` key named as the key of the scenario's `i`-th
+/// `[[model]]` section: `model.alpha` → `model[i].alpha`.
+pub fn in_section(text: &str, i: usize) -> String {
+    text.replace(
+        "in [model] (key `model.",
+        &format!("in its [[model]] section (key `model[{i}]."),
+    )
 }
 
 /// Runs the replicates of block `b` sequentially: the replicate loop of every source. Each

@@ -290,14 +290,12 @@ fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     // The deviance scales with the counts, and its standard errors are built from its squares:
     // counts of 1e-200 printed every standard error as 0 with exit 0.
     if big > 0.0 && big < RESPONSE_MIN {
-        let whose = target_column(plan).map_or(
-            "the mean counts (the truth at the evaluation points) are".into(),
-            |c| format!("the counts ({c}) are"),
-        );
-        let what = if target_column(plan).is_some() {
-            "the column"
-        } else {
-            "the truth in [data.truth]"
+        let (whose, what) = match target_column(plan) {
+            Some(c) => (format!("the counts ({c}) are"), "the column"),
+            None => (
+                "the mean counts (the truth at the evaluation points) are".to_string(),
+                "the truth in [data.truth]",
+            ),
         };
         return Err(Error::Data(format!(
             "{whose} at most {big:.1e} in size, so the squares behind the standard errors \
