@@ -588,6 +588,29 @@ fn scenario_cases(t: &mut Table) {
         v,
         "data.inputs[0].normal`: input `x` has a standard deviation of 1.00e0 beside values of 3.000e13",
     );
+    // A formula that overflows only at a lognormal input's rare large draws: 10 000 random
+    // draws missed it, so `validate` passed and the run stopped at such a draw.
+    t.scenario(
+        g,
+        "formula overflowing at a lognormal's far quantile",
+        &sc("uniform = [0.0, 1.0]", "lognormal = [2.0, 1.0]")
+            .replace("formula = \"x\"", "formula = \"exp(x) / 1e100\"")
+            .replace("replicates = 4", "replicates = 20000")
+            .replace("train_size = 20", "train_size = 40"),
+        v,
+        "the inputs' far quantiles (1.2e-6 from either end), which a run of 800010 input draws",
+    );
+    // A lognormal law has no offset to subtract: the remedy is its normal logarithm.
+    t.scenario(
+        g,
+        "lognormal input with a tiny sdlog",
+        &sc("uniform = [0.0, 1.0]", "lognormal = [2.0, 1e-12]")
+            .replace("family = \"tree\"", "family = \"ridge\"")
+            .replace("grid = [1, 2]", "grid = [1]"),
+        v,
+        "draw its logarithm minus meanlog instead (`normal = [0, 1e-12]`) and write the formulas \
+         with `7.389056e0 * exp(x)`",
+    );
     let two_classes = b"a,y\n1,no\n2,yes\n3,no\n4,yes\n5,no\n6,yes\n7,no\n8,yes\n";
     let repeated_label = table_scenario(
         "[data.classes]\nlabels = [\"no\", \"yes\", \"no\"]",

@@ -1289,19 +1289,15 @@ fn zero_one_percentile_intervals_round_trip_and_show_in_table_csv_and_html() {
         for k in &boot {
             let (lo, hi) = p.interval(k).unwrap();
             let (v, se) = (p.get(k), p.se(k).unwrap());
-            // Terms that cannot be negative stop at 0; the net variance and the variance
-            // effect can be negative and keep the full ± 2 SE.
+            // Shares (bias, variances, systematic effect) stop at 0 and 1; the net variance
+            // and the variance effect, differences of two shares, at -1 and 1.
             let signed = ["net_variance", "james.variance_effect"].contains(&k.as_str());
-            let floor = if signed {
-                v - 2.0 * se
-            } else {
-                (v - 2.0 * se).max(0.0)
-            };
+            let (lo_b, hi_b) = if signed { (-1.0, 1.0) } else { (0.0, 1.0) };
             assert!(
-                lo <= floor && hi >= v + 2.0 * se,
+                lo <= (v - 2.0 * se).max(lo_b) && hi >= (v + 2.0 * se).min(hi_b),
                 "{k}: [{lo}, {hi}] {v} ± {se}"
             );
-            assert!(signed || lo >= 0.0, "{k}: [{lo}, {hi}]");
+            assert!(lo >= lo_b && hi <= hi_b, "{k}: [{lo}, {hi}]");
         }
     }
     // other losses carry no interval: no key at all

@@ -771,6 +771,23 @@ fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     let b2 = p["bias_sq"].as_f64().unwrap();
     let ne = doc["noise_estimate"]["value"].as_f64().unwrap();
     approx::assert_relative_eq!(b2, bpn - ne, max_relative = 1e-12);
+    // Another seed draws another holdout: its first assessment is no fresh look either, and
+    // says so (the ledger's count used to start again at 1 without a word).
+    let text = fs::read_to_string(dir.path().join("c.toml")).unwrap();
+    assert!(text.contains("\nseed = 7\n"));
+    fs::write(
+        dir.path().join("c.toml"),
+        text.replace("\nseed = 7\n", "\nseed = 99\n"),
+    )
+    .unwrap();
+    let third = run_in(dir.path(), &["run", "c.toml", "--assess", "4"]);
+    assert_eq!(third.status.code(), Some(0), "{}", stderr(&third));
+    assert!(String::from_utf8_lossy(&third.stdout).contains("assessment 1 of this holdout"));
+    assert!(
+        stderr(&third).contains("is new, but the ledger counts 2 earlier assessments"),
+        "{}",
+        stderr(&third)
+    );
 }
 
 #[test]

@@ -160,8 +160,23 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         f64::NAN
     };
     let h = hash(table, &tp.holdout);
-    let (count, values) = record(ledger, &h, tp.holdout.len(), value)?;
-    let warning = (count >= 2).then(|| {
+    let (count, values, earlier) = record(ledger, &h, tp.holdout.len(), value)?;
+    // A holdout drawn anew (another seed or holdout share, or an edited table) after an earlier
+    // one's loss was seen: the choice may already carry what that look said, and rows of the
+    // earlier holdout may be in this one.
+    let redrawn =
+        (count == 1 && earlier > 0).then(|| {
+            format!(
+            "warning: this holdout ({} rows, hash {h}) is new, but the ledger counts {earlier} \
+             earlier {} of other holdouts of this scenario (another seed, holdout share or table): \
+             a holdout drawn again after looking at one is no fresh test set, as the choice may \
+             carry what the earlier looks said. Ledger: {}",
+            tp.holdout.len(),
+            if earlier == 1 { "assessment" } else { "assessments" },
+            crate::error::shown(ledger)
+        )
+        });
+    let warning = redrawn.or_else(|| (count >= 2).then(|| {
         format!(
             "warning: this holdout ({} rows, hash {h}) has now been assessed {count} times (values {}); \
              once results have been looked at and compared, its loss is no longer an unbiased estimate of \
@@ -174,7 +189,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
                 .join(", "),
             crate::error::shown(ledger)
         )
-    });
+    }));
     Ok(Assessment {
         value,
         loss,
@@ -192,8 +207,13 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
 const MAX_LEDGER_BYTES: u64 = 64 << 20;
 
 /// Adds one assessment of holdout `hash` to the ledger (creating it), and returns the count and
-/// values so far.
-fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Vec<f64>), Error> {
+/// values so far, and the number of assessments of the ledger's other holdouts.
+fn record(
+    ledger: &Path,
+    hash: &str,
+    rows: usize,
+    value: f64,
+) -> Result<(u64, Vec<f64>, u64), Error> {
     use serde_json::{json, Value};
     // Read, count and write under a lock on the ledger's folder: six assessments started
     // together each read the same count and the ledger ended at 1 (exit 0 every time).
@@ -241,6 +261,11 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
             ledger.display()
         )));
     }
+    let earlier: u64 = list
+        .iter()
+        .filter(|e| !same(e))
+        .map(|e| e.get("assessments").and_then(Value::as_u64).unwrap_or(0))
+        .fold(0, u64::saturating_add);
     let pos = list.iter().position(same);
     let entry = match pos {
         Some(p) => &mut list[p],
@@ -293,7 +318,7 @@ fn record(ledger: &Path, hash: &str, rows: usize, value: f64) -> Result<(u64, Ve
     let mut text = serde_json::to_string_pretty(&doc).expect("json values serialize");
     text.push('\n');
     crate::output::write_one(crate::output::LEDGER_OUTPUT, ledger, &[], text.as_bytes())?;
-    Ok((count, values))
+    Ok((count, values, earlier))
 }
 
 /// An exclusive advisory lock (`flock`) on a ledger's folder, held until dropped: assessments

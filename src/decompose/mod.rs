@@ -361,11 +361,11 @@ pub trait Loss: Send + Sync {
     /// be written as its label.
     fn point_columns(&self, shape: &Shape, observed: bool) -> Vec<(&'static str, bool)>;
 
-    /// Whether term `key` cannot be negative by its definition (a share of disagreeing votes):
-    /// its reported interval then stops at 0 where widening it to ± 2 SE would cross it
-    /// (default: none).
-    fn nonnegative(&self, _key: &str) -> bool {
-        false
+    /// The range term `key` cannot leave by its definition (a share of disagreeing votes lies
+    /// in [0, 1]): its reported interval stops at these bounds where widening it to ± 2 SE
+    /// would cross them (default: unbounded).
+    fn bounds(&self, _key: &str) -> (f64, f64) {
+        (f64::NEG_INFINITY, f64::INFINITY)
     }
 
     /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
@@ -763,8 +763,8 @@ pub struct Summary {
     pub stderr: Vec<Row>,
     /// Lower bounds of the 95 % interval per grid value: the bootstrap percentile interval
     /// ([`percentile_interval`], from the same draws as the bootstrap standard errors) widened
-    /// to contain the value ± 2 standard errors, but not below 0 for a term that cannot be
-    /// negative ([`Loss::nonnegative`]); NaN for the other terms and where it cannot be
+    /// to contain the value ± 2 standard errors, but not beyond the range a term cannot leave
+    /// ([`Loss::bounds`], 0 and 1 for a share); NaN for the other terms and where it cannot be
     /// computed (no plans, fewer than two blocks, a non-finite draw).
     pub lower: Vec<Row>,
     /// Upper bounds, as [`Summary::lower`].
@@ -959,11 +959,11 @@ pub fn summarize_par<A: std::borrow::Borrow<Acc>>(
             if lower[g][t].is_finite() && se.is_finite() {
                 lower[g][t] = lower[g][t].min(v - 2.0 * se);
                 upper[g][t] = upper[g][t].max(v + 2.0 * se);
-                // The truth of a term that cannot be negative is not below 0 either, so the
-                // coverage is the same (it printed `bias [-0.002094, 0.2100]`).
-                if loss.nonnegative(terms[t].key) {
-                    lower[g][t] = lower[g][t].max(0.0);
-                }
+                // The truth of a term lies in its range too, so the coverage is the same (it
+                // printed `bias [-0.002094, 0.2100]`).
+                let (lo, hi) = loss.bounds(terms[t].key);
+                lower[g][t] = lower[g][t].max(lo);
+                upper[g][t] = upper[g][t].min(hi);
             }
         }
     }

@@ -887,16 +887,19 @@ impl Loss for ZeroOne {
     }
 
     /// Domingos' bias (a share of points), the variances (shares of disagreeing votes) and
-    /// James' systematic effect (the Bayes class's probability minus the main prediction's).
-    fn nonnegative(&self, key: &str) -> bool {
-        matches!(
-            key,
+    /// James' systematic effect (the Bayes class's probability minus the main prediction's) lie
+    /// in [0, 1]; the net variance and James' variance effect (differences of two shares) in
+    /// [−1, 1].
+    fn bounds(&self, key: &str) -> (f64, f64) {
+        match key {
             "bias"
-                | "variance"
-                | "unbiased_variance"
-                | "biased_variance"
-                | "james.systematic_effect"
-        )
+            | "variance"
+            | "unbiased_variance"
+            | "biased_variance"
+            | "james.systematic_effect" => (0.0, 1.0),
+            "net_variance" | "james.variance_effect" => (-1.0, 1.0),
+            _ => (f64::NEG_INFINITY, f64::INFINITY),
+        }
     }
 
     fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64> {
@@ -944,8 +947,8 @@ pub struct ZeroOneSummary {
     pub terms: Vec<ZeroOneTerms>,
     /// Standard errors per grid value (NaN where not reported).
     pub stderr: Vec<ZeroOneTerms>,
-    /// Lower bounds of the 95 % interval (bootstrap percentile, widened to ± 2 SE, not below 0
-    /// for a term that cannot be negative) per grid value (NaN but for the terms that use the
+    /// Lower bounds of the 95 % interval (bootstrap percentile, widened to ± 2 SE, not outside
+    /// the range a term cannot leave) per grid value (NaN but for the terms that use the
     /// main prediction, and without bootstrap plans).
     pub lower: Vec<ZeroOneTerms>,
     /// Upper bounds, as `lower`.

@@ -521,7 +521,10 @@ impl Synthetic {
     /// draw; `validate` passed the file). A twin's reference is not probed (it is finite where
     /// it was fitted), nor evenly spaced inputs (the same points in every draw of a size). The
     /// error is the one a draw gives.
-    pub fn probe<R: Rng + ?Sized>(&self, n: usize, rng: &mut R) -> Result<(), Error> {
+    ///
+    /// Beside the random draws it evaluates the inputs' far quantiles, `1/draws` from each end
+    /// (`draws`: the run's input draws), which a run reaches with probability about 63 %.
+    pub fn probe<R: Rng + ?Sized>(&self, n: usize, draws: f64, rng: &mut R) -> Result<(), Error> {
         // A twin's reference (regression or classes) is finite where it was fitted; evenly
         // spaced inputs are the same points in every draw of a size, so 10 000 of them are
         // points no run uses.
@@ -534,16 +537,81 @@ impl Synthetic {
             return Ok(());
         }
         let x = self.draw_inputs(n, rng);
+        self.formulas_at(x.view())?;
+        // The laws' far quantiles, which `n` random draws seldom reach but a run's `draws` do
+        // (a lognormal input's rare large draw overflowed `exp(x) / 1e100` in the run only).
+        let q = 1.0 / draws.max(2.0);
+        let x = self.extreme_rows(q);
+        if x.nrows() > 0 {
+            self.formulas_at(x.view()).map_err(|e| {
+                Error::Data(format!(
+                    "{e}: the inputs' far quantiles ({q:.1e} from either end), which a run of \
+                     {draws:.0} input draws passes with probability about 63 %"
+                ))
+            })?;
+        }
+        Ok(())
+    }
+
+    /// The truth and sd, or the class probabilities, at the rows of `x` (errors as a draw's).
+    fn formulas_at(&self, x: ArrayView2<'_, f64>) -> Result<(), Error> {
         match &self.response {
             Response::Regression { .. } => {
-                self.truth_at(x.view())?;
-                self.sd_at(x.view())?;
+                self.truth_at(x)?;
+                self.sd_at(x)?;
             }
             Response::Classes(_) => {
-                self.probs_at(x.view())?;
+                self.probs_at(x)?;
             }
         }
         Ok(())
+    }
+
+    /// Rows at the inputs' `q` and `1 − q` quantiles: every input low, every input high, and each
+    /// input alone low or high with the others at their medians (2 + 2p rows; only the first
+    /// two beyond [`EXTREME_EACH_MAX`] inputs); none when some input's law has no quantiles here
+    /// (a table's rows).
+    fn extreme_rows(&self, q: f64) -> Array2<f64> {
+        let p = self.inputs.len();
+        let each = if p <= EXTREME_EACH_MAX { p } else { 0 };
+        let at = |d: &InputDist, q: f64| -> Option<f64> {
+            match *d {
+                InputDist::Uniform(a, b) => Some(a + (b - a) * q),
+                InputDist::Normal(m, s) => Some(m + s * normal_quantile(q)),
+                InputDist::LogNormal(m, s) => Some((m + s * normal_quantile(q)).exp()),
+                InputDist::Exponential(r) => Some(-(-q).ln_1p() / r),
+                InputDist::Even(..) | InputDist::Empirical { .. } => None,
+            }
+        };
+        let (Some(lo), Some(mid), Some(hi)) = (
+            self.inputs
+                .iter()
+                .map(|i| at(&i.dist, q))
+                .collect::<Option<Vec<f64>>>(),
+            self.inputs
+                .iter()
+                .map(|i| at(&i.dist, 0.5))
+                .collect::<Option<Vec<f64>>>(),
+            self.inputs
+                .iter()
+                .map(|i| at(&i.dist, 1.0 - q))
+                .collect::<Option<Vec<f64>>>(),
+        ) else {
+            return Array2::zeros((0, p));
+        };
+        let mut x = Array2::zeros((2 + 2 * each, p));
+        for j in 0..p {
+            x[[0, j]] = lo[j];
+            x[[1, j]] = hi[j];
+        }
+        for j in 0..each {
+            for (r, ends) in [(2 + 2 * j, &lo), (3 + 2 * j, &hi)] {
+                for (k, v) in mid.iter().enumerate() {
+                    x[[r, k]] = if k == j { ends[j] } else { *v };
+                }
+            }
+        }
+        x
     }
 
     /// f at each row (regression); an error names the formula and the input values where it is
@@ -806,8 +874,48 @@ pub fn add_shaped_noise<R: Rng + ?Sized>(
     y
 }
 
+/// Inputs up to which [`Synthetic::probe`] also moves each input alone to its far quantiles
+/// (2 + 2p rows of p values: about 2 million values at this bound).
+const EXTREME_EACH_MAX: usize = 1000;
+
+/// The standard normal quantile at `q` in (0, 1), by bisection on [`normal_cdf`] (its relative
+/// error below 1.2e-7 in the tails moves the quantile by less than 1e-6 there).
+///
+/// [`normal_cdf`]: crate::decompose::zero_one::normal_cdf
+fn normal_quantile(q: f64) -> f64 {
+    let upper = q > 0.5;
+    // Φ(−z) = q for the lower tail; the upper by symmetry.
+    let tail = if upper { 1.0 - q } else { q };
+    let (mut a, mut b) = (0.0_f64, 40.0_f64);
+    for _ in 0..100 {
+        let z = 0.5 * (a + b);
+        if crate::decompose::zero_one::normal_cdf(-z) > tail {
+            a = z;
+        } else {
+            b = z;
+        }
+    }
+    let z = 0.5 * (a + b);
+    if upper {
+        z
+    } else {
+        -z
+    }
+}
+
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn normal_quantiles_match_tabulated_values() {
+        // Standard normal quantiles as tabulated (Abramowitz and Stegun 1964, table 26.5;
+        // from memory): 1.959964 at 0.975, 3.090232 at 0.999, 4.753424 at 1 − 1e-6.
+        for (q, z) in [(0.975, 1.959964), (0.999, 3.090232), (1.0 - 1e-6, 4.753424)] {
+            assert!((super::normal_quantile(q) - z).abs() < 1e-5, "{q}");
+            assert!((super::normal_quantile(1.0 - q) + z).abs() < 1e-5, "{q}");
+        }
+        assert!(super::normal_quantile(0.5).abs() < 1e-6);
+    }
+
     #[test]
     fn tiny_poisson_means_give_counts_never_minus_one() {
         use rand::SeedableRng;

@@ -22,8 +22,8 @@ fn column(key: &str) -> String {
 /// size when a run has several, every term in the loss's order, `estimated` on tables, then
 /// `stderr_<term>` for every term with a standard error, then — only when the rows carry them
 /// (terms with a bootstrap standard error) — `lower95_<term>` and `upper95_<term>`, the 95 %
-/// interval of each such term (bootstrap percentile, widened to ± 2 SE, not below 0 for a
-/// term that cannot be negative), and last the knob's name (`knob`: the row's own model's knob
+/// interval of each such term (bootstrap percentile, widened to ± 2 SE, not outside the
+/// range a term cannot leave, 0 to 1 for a share), and last the knob's name (`knob`: the row's own model's knob
 /// when a run has several models).
 pub fn to_csv(doc: &ResultDoc) -> String {
     let mut w = csv::Writer::from_writer(Vec::new());

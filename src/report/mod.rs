@@ -197,8 +197,8 @@ impl TermDoc {
 /// nested objects), then `estimated` on tables, then the standard errors of the terms that have
 /// one (jackknife over replicate blocks; `null` where they cannot be computed), then — only when
 /// some term's standard error comes from the block bootstrap — `interval95`, the 95 % bootstrap
-/// percentile interval widened to contain ± 2 SE (not below 0 for a term that cannot be
-/// negative), `[lower, upper]`, of each such term under the same nested keys (`null` where it
+/// percentile interval widened to contain ± 2 SE (not outside the range a term cannot
+/// leave, 0 to 1 for a share), `[lower, upper]`, of each such term under the same nested keys (`null` where it
 /// cannot be computed, as a standard error). Two rows are equal when every number is
 /// the same bit for bit (so `null` equals `null`).
 #[derive(Debug, Clone)]
@@ -215,8 +215,8 @@ pub struct PointRow {
     pub estimated: Option<bool>,
     /// Standard errors in order: `(key, value)`, NaN written as `null`.
     pub stderr: Vec<(String, f64)>,
-    /// The 95 % intervals (bootstrap percentile, widened to ± 2 SE, not below 0 for a term that
-    /// cannot be negative) of the terms marked `bootstrap`, in order: `(key, (lower, upper))`, NaN bounds written as `null`; empty (and absent from the JSON)
+    /// The 95 % intervals (bootstrap percentile, widened to ± 2 SE, not outside the range a
+    /// term cannot leave) of the terms marked `bootstrap`, in order: `(key, (lower, upper))`, NaN bounds written as `null`; empty (and absent from the JSON)
     /// when no term is a bootstrap term.
     pub interval: Vec<(String, (f64, f64))>,
 }
@@ -267,8 +267,8 @@ impl PointRow {
             .filter(|v| v.is_finite())
     }
 
-    /// The 95 % interval (bootstrap percentile, widened to ± 2 SE, not below 0 for a term that
-    /// cannot be negative) of term `key`: `None` when absent or not computable.
+    /// The 95 % interval (bootstrap percentile, widened to ± 2 SE, not outside the range a
+    /// term cannot leave) of term `key`: `None` when absent or not computable.
     pub fn interval(&self, key: &str) -> Option<(f64, f64)> {
         self.interval
             .iter()

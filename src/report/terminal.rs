@@ -272,7 +272,7 @@ fn interval_line(doc: &ResultDoc, terms: &[TermDoc]) -> Option<String> {
         None => (String::new(), doc.knob.as_str()),
     };
     Some(format!(
-        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {who}{knob} = {}: {} (not below 0 for a term that cannot be negative; at small R read it rather than the symmetric ± 2 SE for the bias, net and biased variance and James' effects: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
+        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {who}{knob} = {}: {} (not outside the range a term cannot leave, 0 to 1 for a share; at small R read it rather than the symmetric ± 2 SE for the bias, net and biased variance and James' effects: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
         fmt_value(doc.best.value),
         parts.join("; ")
     ))

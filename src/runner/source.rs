@@ -355,8 +355,11 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     if s.design != Design::Fixed {
         let p = s.process.inputs.len().max(1);
         let n = (2_000_000 / p).clamp(20, 10_000);
+        // Every training draw of every replicate and size, and the evaluation points.
+        let sizes: f64 = s.sizes.iter().map(|&m| m as f64).sum();
+        let draws = plan.replicates as f64 * sizes + s.eval_size as f64;
         let mut rng = stream(plan.seed, purpose::PROBE, 0);
-        s.process.probe(n, &mut rng)?;
+        s.process.probe(n, draws, &mut rng)?;
     }
     let classify = matches!(plan.task, Task::Classify { .. });
     let mut fixed_probs = None;

@@ -1611,11 +1611,23 @@ fn offset_inputs(
                  below {:e} of their size: `{family}` standardizes its inputs and reads a \
                  training set whose spread falls below {:e} of its size as rounding, i.e. as \
                  constant, and this input's training sets come within ten times of that line; \
-                 subtract an offset (draw the input minus {size:.3e} and write the formulas \
-                 with it)",
+                 {}",
                 inp.name,
                 offset_share(),
-                crate::family::standardize::CONSTANT_RTOL
+                crate::family::standardize::CONSTANT_RTOL,
+                match inp.dist {
+                    // A lognormal law has no offset to subtract: its logarithm is normal.
+                    InputDist::LogNormal(m, s) => format!(
+                        "draw its logarithm minus meanlog instead (`normal = [0, {s:e}]`) and \
+                         write the formulas with `{:.6e} * exp({})`",
+                        m.exp(),
+                        inp.name
+                    ),
+                    _ => format!(
+                        "subtract an offset (draw the input minus {size:.3e} and write the \
+                         formulas with it)"
+                    ),
+                }
             ),
         ));
     }
