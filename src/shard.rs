@@ -1005,9 +1005,10 @@ pub struct Merged {
     pub outcome: Outcome,
     /// Every place a part's scenario file may be, none of which `merge` may replace: each
     /// part's recorded path as given (relative to the folder `merge` runs in) and relative to
-    /// the part's own folder (the shards ran there, most likely). Parts of one run may name the
-    /// scenario differently (a copy, another spelling), and only the first part's, relative to
-    /// the merge's folder, was protected.
+    /// the part's own folder (the shards ran there, most likely), and any shorter tail of it,
+    /// beside the part or relative to the merge's folder, whose file holds the scenario's very
+    /// text. Parts of one run may name the scenario differently (a copy, another spelling), and
+    /// only the first part's, relative to the merge's folder, was protected.
     pub scenario_files: Vec<PathBuf>,
 }
 
@@ -1210,8 +1211,22 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
     let mut scenario_files: Vec<PathBuf> = Vec::new();
     for (d, p) in docs.iter().zip(paths) {
         let recorded = PathBuf::from(&d.scenario_file);
-        let beside = p.parent().map(|dir| dir.join(&recorded));
-        for f in std::iter::once(recorded).chain(beside) {
+        let dir = p.parent().map(Path::to_path_buf).unwrap_or_default();
+        let beside = dir.join(&recorded);
+        // Parts run from a parent folder (`run ex/s.toml`) and merged inside `ex`: the recorded
+        // path leads nowhere from there, but a shorter tail of it, beside the part or here,
+        // holds the scenario's very text.
+        let comps: Vec<_> = recorded.components().collect();
+        let tails = (1..comps.len())
+            .map(|i| comps[i..].iter().collect::<PathBuf>())
+            .flat_map(|t| [dir.join(&t), t])
+            .filter(|f| {
+                f.is_file()
+                    && std::fs::metadata(f).is_ok_and(|m| m.len() == d.scenario_text.len() as u64)
+                    && std::fs::read_to_string(f).is_ok_and(|t| t == d.scenario_text)
+            });
+        let found: Vec<PathBuf> = tails.collect();
+        for f in [recorded, beside].into_iter().chain(found) {
             if !scenario_files.contains(&f) {
                 scenario_files.push(f);
             }

@@ -568,3 +568,98 @@ fn a_signal_to_lossprism_ends_its_external_processes() {
         String::from_utf8_lossy(&out.stderr)
     );
 }
+
+/// `lossprism` in `dir` with `args`: exit code and standard error.
+fn lp(dir: &Path, args: &[&str]) -> (i32, String) {
+    let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .current_dir(dir)
+        .args(args)
+        .output()
+        .unwrap();
+    (
+        out.status.code().unwrap_or(-1),
+        String::from_utf8_lossy(&out.stderr).into_owned(),
+    )
+}
+
+// Found by a hostile-input sweep: parts run in a folder and merged from its parent (or the
+// other way round) read the estimator's script from another folder than the one it is in, and
+// `merge --csv` replaced the script with a CSV, exit 0.
+#[test]
+fn merge_from_another_folder_never_replaces_the_estimators_script() {
+    if !python_ok() {
+        println!("skipped: python3 is not available");
+        return;
+    }
+    let d = tempfile::tempdir().unwrap();
+    let (top, ex) = (d.path(), d.path().join("ex"));
+    std::fs::create_dir(&ex).unwrap();
+    let script = std::fs::read(repo().join("docs/examples/knn_stdlib.py")).unwrap();
+    std::fs::write(ex.join("m.py"), &script).unwrap();
+    std::fs::write(
+        ex.join("x.toml"),
+        regression("family = \"external\"\ncommand = [\"python3\", \"m.py\"]\nknob = \"k\""),
+    )
+    .unwrap();
+    // Shards run inside ex, merged from the parent folder.
+    for i in ["1", "2"] {
+        let (code, err) = lp(
+            &ex,
+            &[
+                "run",
+                "x.toml",
+                "--shard",
+                &format!("{i}/2"),
+                "--out",
+                &format!("p{i}.json"),
+                "-q",
+            ],
+        );
+        assert_eq!(code, 0, "{err}");
+    }
+    for flag in ["--csv", "--points"] {
+        let (code, err) = lp(
+            top,
+            &["merge", "ex/p1.json", "ex/p2.json", flag, "ex/m.py", "-q"],
+        );
+        assert_eq!(code, 2, "{flag}: {err}");
+        assert!(
+            err.contains("a file the external estimator runs"),
+            "{flag}: {err}"
+        );
+    }
+    // Shards run from the parent folder, merged inside ex.
+    for i in ["1", "2"] {
+        let (code, err) = lp(
+            top,
+            &[
+                "run",
+                "ex/x.toml",
+                "--shard",
+                &format!("{i}/2"),
+                "--out",
+                &format!("ex/q{i}.json"),
+                "-q",
+            ],
+        );
+        assert_eq!(code, 0, "{err}");
+    }
+    for (flag, target) in [("--csv", "m.py"), ("--csv", "x.toml")] {
+        let (code, err) = lp(&ex, &["merge", "q1.json", "q2.json", flag, target, "-q"]);
+        assert_eq!(code, 2, "{flag} {target}: {err}");
+    }
+    assert_eq!(std::fs::read(ex.join("m.py")).unwrap(), script);
+    // Merged where the paths lead to it, the merge itself still works.
+    let (code, err) = lp(
+        top,
+        &[
+            "merge",
+            "ex/p1.json",
+            "ex/p2.json",
+            "--csv",
+            "ex/m.csv",
+            "-q",
+        ],
+    );
+    assert_eq!(code, 0, "{err}");
+}

@@ -1698,7 +1698,32 @@ fn formula_cases(t: &mut Table) {
         v,
         "s.toml: the responses (the truth, [data.truth]) reach",
     )
-    .also("so their squares overflow; rescale");
+    .also("standard errors sum fourth powers of the responses");
+    // Fourth powers overflow from about 1e77 and lose their digits below 1e-77: the bias²'s
+    // standard error lost its second-order part (21-37% short) at 1e80, and at 1e-100 every
+    // standard error was 0.00, exit 0 (a hostile sweep).
+    t.scenario(
+        g,
+        "truth 1e80*x",
+        &with_formula("1e80*x").replace("sd = 1.0", "sd = 1e80"),
+        v,
+        "reach 1.0e80 in size, above 1e60: the standard errors sum fourth powers",
+    );
+    t.scenario(
+        g,
+        "truth 1e-100*x",
+        &with_formula("1e-100*x").replace("sd = 1.0", "sd = 1e-100"),
+        v,
+        "are at most 1.0e-100 in size, below 1e-60",
+    );
+    t.scenario(
+        g,
+        "noise sd 1e-70 beside a truth of size 1",
+        &sc("sd = 1.0", "sd = 1e-70"),
+        v,
+        "the noise's standard deviation ([data.noise]) is at most 1.0e-70, below 1e-60",
+    )
+    .also("give `sd = 0.0` for a noise-free process");
 
     t.scenario(
         g,
@@ -1729,7 +1754,7 @@ fn formula_cases(t: &mut Table) {
         "truth 1e-200*x with noise sd 1e-200",
         &with_formula("1e-200*x").replace("sd = 1.0", "sd = 1e-200"),
         "run",
-        "the responses are at most 1.0e-200 in size, so their squares underflow to 0",
+        "the responses are at most 1.0e-200 in size, below 1e-60",
     );
     t.add(
         "csv",
@@ -1742,7 +1767,7 @@ fn formula_cases(t: &mut Table) {
             ),
         ],
         &["run", "s.toml", "--out", "r.json", "-q"],
-        "the responses are at most 7.0e-300 in size",
+        "are at most 7.0e-300 in size, below 1e-60",
     );
     // The remedy of a zero probability named `model.alpha` in a run of several models, whose
     // keys are `model[i].alpha` everywhere else.
@@ -5454,25 +5479,41 @@ fn runs_that_cannot_have_standard_errors_are_refused_before_they_run() {
 }
 
 #[test]
-fn responses_near_1e150_get_finite_standard_errors() {
-    // The terms are finite up to responses of about 1e154, but the jackknife's squared
-    // deviations overflowed from about 1e77 times smaller: every standard error was written as
-    // `null`, with exit 0 and no `±` in the table. Now they are computed on scaled values.
+fn standard_errors_scale_with_the_responses_up_to_the_refused_range() {
+    // The terms scale with the responses squared, and so must their standard errors: at 1e80
+    // the bias²'s lost its second-order part (21-37% short, exit 0) and at 1e-100 every one was
+    // 0 (a hostile sweep), so responses beyond 1e±60 are refused. Within the range, the
+    // standard errors over S² agree with those at S = 1 to rounding.
     let d = tempfile::tempdir().unwrap();
     let dir = d.path();
-    fs::write(dir.join("s.toml"), with_formula("1e150*x")).unwrap();
-    let (code, out, err) = status(dir, &["run", "s.toml", "--out", "r.json"]);
-    assert_eq!(code, 0, "{err}");
-    let doc = fs::read_to_string(dir.join("r.json")).unwrap();
-    assert!(!doc.contains("null"), "{doc}");
-    let v: serde_json::Value = serde_json::from_str(&doc).unwrap();
-    for p in v["points"].as_array().unwrap() {
-        for (term, se) in p["stderr"].as_object().unwrap() {
-            let se = se.as_f64().unwrap();
-            assert!(se.is_finite() && se >= 0.0, "{term}: {se}");
+    let se_over = |s: f64| -> Vec<f64> {
+        let text = with_formula(&format!("{s:e}*sin(6*x)"))
+            .replace("sd = 1.0", &format!("sd = {:e}", 0.3 * s))
+            .replace(
+                "family = \"tree\"\ngrid = [1, 2]",
+                "family = \"knn\"\ngrid = [1, 5]",
+            );
+        fs::write(dir.join("s.toml"), text).unwrap();
+        let (code, _, err) = status(dir, &["run", "s.toml", "--out", "r.json", "-q"]);
+        assert_eq!(code, 0, "{s:e}: {err}");
+        let v: serde_json::Value =
+            serde_json::from_str(&fs::read_to_string(dir.join("r.json")).unwrap()).unwrap();
+        let mut out = Vec::new();
+        for p in v["points"].as_array().unwrap() {
+            for (term, se) in p["stderr"].as_object().unwrap() {
+                let se = se.as_f64().unwrap_or_else(|| panic!("{s:e} {term}: {se}"));
+                out.push(se / (s * s));
+            }
+        }
+        out
+    };
+    let one = se_over(1.0);
+    assert!(one.iter().all(|&x| x > 0.0), "{one:?}");
+    for s in [1e55, 1e-55] {
+        for (a, b) in se_over(s).iter().zip(&one) {
+            assert!((a - b).abs() <= 1e-9 * b, "{s:e}: {a} against {b}");
         }
     }
-    assert!(out.contains(" ± "), "{out}");
 }
 
 #[test]

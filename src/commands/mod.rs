@@ -633,6 +633,26 @@ pub fn merge(args: MergeArgs) -> Result<u8, Error> {
     for (role, p) in data_inputs(&merged.plan) {
         set.input(role, &p);
     }
+    // The plan reads relative paths from where `merge` runs; the parts may have been run from
+    // another folder, where those paths lead elsewhere (an external estimator's script was
+    // replaced by `merge --csv` run from the parent folder). Wherever the scenario was found
+    // (by its text, beside the parts), its data files and scripts are inputs too.
+    let recorded = Path::new(&merged.plan.file)
+        .parent()
+        .unwrap_or(Path::new(""));
+    for f in merged.scenario_files.iter().filter(|f| f.is_file()) {
+        let folder = f.parent().unwrap_or(Path::new(""));
+        for (role, p) in data_inputs(&merged.plan) {
+            if let Ok(rel) = p.strip_prefix(recorded) {
+                set.input(role, &folder.join(rel));
+            }
+        }
+        for m in &merged.plan.models {
+            for script in m.family.input_files_in(folder) {
+                set.input("a file the external estimator runs", &script);
+            }
+        }
+    }
     if args.plot_points.is_some() {
         report::plot::check_point_request(&merged.plan, args.input.as_deref())?;
     }

@@ -1228,8 +1228,9 @@ pub const MAX_FIDELITY_TABLES: usize = 1000;
 pub const MAX_FIDELITY_REPLICATES: usize = 100_000;
 
 /// Largest magnitude of a twin's target: the noise estimate's standard error sums squares of
-/// squared differences (fourth powers), which overflow a little above 1e76.
-const TWIN_TARGET_MAX: f64 = 1e75;
+/// squared differences (fourth powers), which overflow a little above 1e76; and `run` holds the
+/// twin's responses to the same bound as any ([`crate::runner::source::RESPONSE_MAX`]).
+const TWIN_TARGET_MAX: f64 = crate::runner::source::RESPONSE_MAX;
 
 /// Refuses a table whose values a twin cannot square and sum, naming the column.
 fn check_scale(t: &Table) -> Result<(), Error> {

@@ -954,10 +954,13 @@ impl Family for ExternalFamily {
     /// Every word of the command that names an existing file, from the folder the processes
     /// start in (the program when given as a path, a script, a model file it loads).
     fn input_files(&self) -> Vec<PathBuf> {
-        let base = self.dir.clone().unwrap_or_default();
+        self.input_files_in(&self.dir.clone().unwrap_or_default())
+    }
+
+    fn input_files_in(&self, folder: &Path) -> Vec<PathBuf> {
         self.command
             .iter()
-            .map(|w| base.join(w))
+            .map(|w| folder.join(w))
             .filter(|p| p.is_file())
             .collect()
     }

@@ -209,6 +209,13 @@ pub trait Family: Send + Sync {
         Vec::new()
     }
 
+    /// [`Family::input_files`] as they would be if the scenario's folder were `folder` (`merge`
+    /// finds the scenario by its text beside the parts, which may have been run from another
+    /// folder than the one it runs in; default: none).
+    fn input_files_in(&self, _folder: &std::path::Path) -> Vec<std::path::PathBuf> {
+        Vec::new()
+    }
+
     /// Bytes one fit holds beyond its training set and the prediction buffers (the path fit's
     /// work: standardized copies, sort orders, design matrices, neighbour lists) for `n`
     /// training rows, `p` inputs, `m` evaluation points and the grid; the engine adds it per

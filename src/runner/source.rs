@@ -148,14 +148,26 @@ pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
     Ok(prepared)
 }
 
-/// Smallest largest magnitude of a regression's responses: below it their squares (about
-/// 1e-300) and those of their differences underflow to 0.
-const RESPONSE_MIN: f64 = 1e-150;
+/// Smallest largest magnitude of a regression's responses under the squared loss (truth or
+/// noise sd at the evaluation points; a table's responses), and of a synthetic noise sd that is
+/// not 0: the terms are squares, and their standard errors sum squares of terms, i.e. fourth
+/// powers of the responses, which fall into the subnormal range below about 1e-77 (a hostile
+/// sweep: responses of 1e-100 printed every standard error as 0.00, exit 0, and `check` then
+/// called same-sized terms worse).
+pub const RESPONSE_MIN: f64 = 1e-60;
 
-/// Largest magnitude of a regression's responses (truth or noise sd at the evaluation
-/// points; a table's responses): beyond it the squares of draws a few sds out overflow, and the
-/// run would fail with non-finite terms after all its work.
-const RESPONSE_MAX: f64 = 1e150;
+/// Largest magnitude of a regression's responses under the squared loss: the fourth powers
+/// behind the standard errors overflow a little above 1e76 (a hostile sweep: from 1e77 up the
+/// bias²'s standard error lost its second-order part, 21–37 % too small, exit 0).
+pub const RESPONSE_MAX: f64 = 1e60;
+
+/// Largest magnitude of a table's input column that a fit or noise estimate standardizes: the
+/// squares of the column, summed, overflow beyond about 1e154.
+const COLUMN_MAX: f64 = 1e150;
+
+/// Smallest largest mean count under the Poisson deviance: its standard errors are built from
+/// squared deviances (of the counts' order), which underflow below about 1e-154.
+const COUNT_MIN: f64 = 1e-150;
 
 /// Refuses responses so small that every squared term underflows to 0 (the run would report a
 /// decomposition of zeros, and a reading drawn from them, with exit 0), or so large that their
@@ -172,10 +184,10 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     if let (Source::Table(t), true) = (&plan.source, squares) {
         for (col, name) in p.eval_x.columns().into_iter().zip(&t.table.names) {
             let big = col.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
-            if big > RESPONSE_MAX {
+            if big > COLUMN_MAX {
                 return Err(Error::Data(format!(
                     "column `{name}` of {} reaches {big:.1e}; the fits or the noise estimate \
-                     square and sum the inputs, which overflows beyond about {RESPONSE_MAX:.0e}; \
+                     square and sum the inputs, which overflows beyond about {COLUMN_MAX:.0e}; \
                      rescale the column (for example divide it by a power of ten)",
                     t.table.path.display()
                 )));
@@ -238,15 +250,30 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
         };
         let whose = target_column(plan).map_or(key.to_string(), |c| format!(" ({c})"));
         return Err(Error::Data(format!(
-            "the responses{whose} reach {big:.1e} in size, so their squares overflow; rescale \
-             the response (for example divide it by a power of ten)"
+            "the responses{whose} reach {big:.1e} in size, above {RESPONSE_MAX:.0e}: the \
+             standard errors sum fourth powers of the responses, which overflow beyond about \
+             1e76 (their squares beyond 1e154); rescale the response (for example divide it by \
+             a power of ten)"
         )));
     }
     if big > 0.0 && big < RESPONSE_MIN {
         return Err(Error::Data(format!(
-            "the responses are at most {big:.1e} in size, so their squares underflow to 0 and \
-             every term would be 0; rescale the response (for example multiply it by a power of \
-             ten)"
+            "the responses{} are at most {big:.1e} in size, below {RESPONSE_MIN:.0e}: the \
+             standard errors sum fourth powers of the responses, which lose their digits below \
+             about 1e-77 (and underflow to 0); rescale the response (for example multiply it by \
+             a power of ten)",
+            target_column(plan).map_or(String::new(), |c| format!(" ({c})"))
+        )));
+    }
+    // A tiny noise beside a truth of ordinary size: the fits' variances are of the noise's
+    // order squared, and their standard errors of its fourth power.
+    let sd_big = p.eval_sd.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
+    if sd_big > 0.0 && sd_big < RESPONSE_MIN {
+        return Err(Error::Data(format!(
+            "the noise's standard deviation ([data.noise]) is at most {sd_big:.1e}, below \
+             {RESPONSE_MIN:.0e}: the variances are of its order squared and their standard \
+             errors of its fourth power, which loses its digits below about 1e-77; give `sd = \
+             0.0` for a noise-free process, or rescale the response"
         )));
     }
     Ok(())
@@ -273,7 +300,7 @@ pub const COUNT_MAX: f64 = 1e8;
 
 /// Refuses mean counts (a synthetic truth at the evaluation points, a table's counts) above
 /// [`COUNT_MAX`] (the run would report rounding as bias and variance, with exit 0), or with
-/// none above [`RESPONSE_MIN`] (every standard error would underflow to 0).
+/// none above [`COUNT_MIN`] (every standard error would underflow to 0).
 fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     let big = p.eval_truth.iter().fold(0.0_f64, |a, v| a.max(v.abs()));
     if big > COUNT_MAX || !big.is_finite() {
@@ -289,7 +316,7 @@ fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     }
     // The deviance scales with the counts, and its standard errors are built from its squares:
     // counts of 1e-200 printed every standard error as 0 with exit 0.
-    if big > 0.0 && big < RESPONSE_MIN {
+    if big > 0.0 && big < COUNT_MIN {
         let (whose, what) = match target_column(plan) {
             Some(c) => (format!("the counts ({c}) are"), "the column"),
             None => (
