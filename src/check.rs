@@ -567,6 +567,131 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
             fmt_value(*v)
         ));
     }
+    // ... and the lowest expected loss at the largest size, with its one-SE set (an edited best
+    // at the worst row was drawn as the best and compared as identical).
+    let at_largest = || doc.points.iter().filter(|p| p.train_size == largest);
+    if let Some(p) = at_largest().find(|p| p.expected_loss() < doc.best.expected_loss) {
+        return Err(format!(
+            "`best` is {} = {}, but {} has a lower expected loss; {EDITED}",
+            doc.knob,
+            fmt_value(doc.best.value),
+            crate::fmt::clip(&row_name(doc, p), 80)
+        ));
+    }
+    let set: Vec<f64> = at_largest()
+        .filter(|p| p.family == doc.best.family && doc.best.admits(p.expected_loss()))
+        .map(|p| p.value)
+        .collect();
+    if set.len() != doc.best.within_one_se.len()
+        || set.iter().any(|v| !doc.best.within_one_se.contains(v))
+    {
+        return Err(format!(
+            "`best.within_one_se` is not the set of the best curve's values within one standard \
+             error of the best; {EDITED}"
+        ));
+    }
+
+    // `terms`: the loss's own description of the first row's model (keys, roles, views and
+    // flags); pictures and comparisons read the roles (an edited role made `plot` panic and
+    // `check` call a document identical to a baseline it differs from).
+    if let (false, Some(p)) = (doc.terms.is_empty(), doc.points.first()) {
+        let shape = decompose::Shape {
+            grid: 1,
+            points: 0,
+            classes: doc.scenario.labels.as_ref().map_or(0, Vec::len),
+            fits: if p.has("variance_fit") { 2 } else { 1 },
+            all_points: !observed,
+            ensemble: p.has("diversity"),
+        };
+        let want: Vec<crate::report::TermDoc> = loss
+            .describe(&shape, observed)
+            .iter()
+            .filter(|t| crate::report::reported(t, observed))
+            .map(crate::report::TermDoc::from_info)
+            .collect();
+        let sig = |t: &crate::report::TermDoc| {
+            (
+                t.key.clone(),
+                t.role.clone(),
+                t.group.clone(),
+                t.stderr,
+                t.bootstrap,
+                t.count,
+            )
+        };
+        if let Some((i, _)) = (0..want.len().max(doc.terms.len())).find_map(|i| {
+            let (a, b) = (doc.terms.get(i).map(sig), want.get(i).map(sig));
+            (a != b).then_some((i, ()))
+        }) {
+            return Err(format!(
+                "`terms[{i}]` is not the {} loss's own description of its terms{}; {EDITED}",
+                doc.loss,
+                want.get(i)
+                    .map(|t| format!(" (there: `{}`, role `{}`)", t.key, t.role))
+                    .unwrap_or_default()
+            ));
+        }
+    }
+
+    // Learning curves and rankings: rows of `points`, each the lowest of its curve (an edited
+    // curve made `plot --learning` panic, and was drawn where it pointed).
+    let row_of = |family: Option<&str>, n: usize, v: f64| {
+        doc.points.iter().find(|p| {
+            p.family.as_deref() == family
+                && p.train_size.map_or(true, |m| m as usize == n)
+                && p.value.to_bits() == v.to_bits()
+        })
+    };
+    let family_of = |f: &str| (!doc.models.is_empty()).then(|| f.to_string());
+    for (c, lc) in doc.learning.iter().enumerate() {
+        let sizes: Vec<usize> = lc.sizes.iter().map(|s| s.train_size).collect();
+        if sizes != doc.sizes {
+            return Err(format!(
+                "`learning[{c}].sizes` are at {sizes:?}, but the document's sizes are {:?}; \
+                 {EDITED}",
+                doc.sizes
+            ));
+        }
+        let fam = family_of(&lc.family);
+        for (k, sb) in lc.sizes.iter().enumerate() {
+            let row = row_of(fam.as_deref(), sb.train_size, sb.value);
+            let lowest = doc
+                .points
+                .iter()
+                .filter(|p| {
+                    p.family == fam && p.train_size.map_or(true, |m| m as usize == sb.train_size)
+                })
+                .map(|p| p.expected_loss())
+                .fold(f64::INFINITY, f64::min);
+            match row {
+                Some(p)
+                    if p.expected_loss().to_bits() == sb.expected_loss.to_bits()
+                        && sb.expected_loss <= lowest => {}
+                _ => {
+                    return Err(format!(
+                        "`learning[{c}].sizes[{k}]` is not the lowest expected loss of `{}` at \
+                         n = {} in `points`; {EDITED}",
+                        crate::fmt::clip(&lc.family, 40),
+                        sb.train_size
+                    ))
+                }
+            }
+        }
+    }
+    for (r, rk) in doc.ranking.iter().enumerate() {
+        for (k, cand) in rk.candidates.iter().enumerate() {
+            let fam = family_of(&cand.family);
+            let ok = row_of(fam.as_deref(), rk.train_size, cand.value)
+                .is_some_and(|p| p.expected_loss().to_bits() == cand.expected_loss.to_bits());
+            let sorted = k == 0 || rk.candidates[k - 1].expected_loss <= cand.expected_loss;
+            if !ok || !sorted {
+                return Err(format!(
+                    "`ranking[{r}].candidates[{k}]` is not a row of `points` in order of \
+                     expected loss; {EDITED}"
+                ));
+            }
+        }
+    }
 
     // `uncertainty`: one entry per row; leave-one-block-out values that decode, finite where the
     // standard error is.

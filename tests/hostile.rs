@@ -4362,6 +4362,40 @@ fn document_cases(t: &mut Table, docs: &Docs) {
             "`points[1]` (max_depth = 2) has `wobble`, which `points[0]` (max_depth = 1) of the \
              same model lacks",
         ),
+        // Found by a second reading: an edited role made `plot` panic (exit 101), a trimmed
+        // term list let `check` pass a regression, and a best moved to the worst row was drawn
+        // as the best and compared as identical.
+        (
+            "an edited term role",
+            edit_json(&docs.result, |v| {
+                for t in v["terms"].as_array_mut().unwrap() {
+                    if t["role"] == "bias" {
+                        t["role"] = "b".into();
+                    }
+                }
+            }),
+            "is not the squared loss's own description of its terms",
+        ),
+        (
+            "a trimmed term list",
+            edit_json(&docs.result, |v| {
+                v["terms"].as_array_mut().unwrap().truncate(1);
+            }),
+            "`terms[1]` is not the squared loss's own description of its terms",
+        ),
+        (
+            "best at the worst row",
+            edit_json(&docs.result, |v| {
+                let el = |i: usize| v["points"][i]["expected_loss"].as_f64().unwrap();
+                let worst = usize::from(el(1) > el(0));
+                let row = v["points"][worst].clone();
+                v["best"]["value"] = row["value"].clone();
+                v["best"]["expected_loss"] = row["expected_loss"].clone();
+                v["best"]["stderr"] = row["stderr"]["expected_loss"].clone();
+                v["best"]["within_one_se"] = serde_json::json!([row["value"].clone()]);
+            }),
+            "has a lower expected loss",
+        ),
         (
             "an unknown loss",
             edit_json(&docs.result, |v| v["loss"] = "wobble".into()),
@@ -5884,4 +5918,60 @@ fn twin_out_replaces_only_a_twin_scenario() {
     let (code, _, err) = status(dir, &again);
     assert_eq!(code, 0, "{err}");
     assert_eq!(fs::read(dir.join("tw.toml")).unwrap(), first);
+}
+
+#[test]
+fn an_edited_learning_curve_is_refused_not_drawn() {
+    // Found by a second reading: one size popped from a study's `learning` made `plot
+    // --learning` panic (exit 101), and a curve pointing at another value was drawn there.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    let study =
+        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/bakery-study.toml");
+    let (code, _, err) = status(
+        dir,
+        &[
+            "run",
+            study.to_str().unwrap(),
+            "--replicates",
+            "40",
+            "--out",
+            "s.json",
+            "-q",
+        ],
+    );
+    assert_eq!(code, 0, "{err}");
+    let good = fs::read(dir.join("s.json")).unwrap();
+    let cases: [(&str, Vec<u8>); 2] = [
+        (
+            "a size popped",
+            edit_json(&good, |v| {
+                v["learning"][0]["sizes"].as_array_mut().unwrap().pop();
+            }),
+        ),
+        (
+            "another value",
+            edit_json(&good, |v| {
+                let g = v["scenario"]["grid"].clone();
+                let other = g
+                    .as_array()
+                    .unwrap()
+                    .iter()
+                    .find(|x| **x != v["learning"][0]["sizes"][0]["value"])
+                    .unwrap()
+                    .clone();
+                v["learning"][0]["sizes"][0]["value"] = other;
+            }),
+        ),
+    ];
+    for (what, bytes) in cases {
+        fs::write(dir.join("e.json"), bytes).unwrap();
+        let (code, _, err) = status(
+            dir,
+            &["plot", "e.json", "--out", "c.svg", "--learning", "l.svg"],
+        );
+        assert_eq!(code, 2, "{what}: {err}");
+        assert!(err.contains("`learning[0].sizes"), "{what}: {err}");
+        assert!(!dir.join("l.svg").exists(), "{what}");
+    }
 }

@@ -985,7 +985,7 @@ pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
 /// Whether a term has a value to report. A table's noise is unknown unless it is estimated
 /// (the squared loss's `noise (est.)`): the classification and count losses fold it into the
 /// bias, and their accumulators hold 0 for it, which is not a value to print as the noise.
-fn reported(t: &TermInfo, observed: bool) -> bool {
+pub(crate) fn reported(t: &TermInfo, observed: bool) -> bool {
     !(observed && t.role == Role::Noise && !t.estimated)
 }
 
