@@ -1314,10 +1314,55 @@ fn check_written(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
     )?)
 }
 
+/// A classification twin's Bayes error (the mean over the table's rows of `1 − max_c p̂_c(x)`
+/// under its reference, the noise term of its runs) beside the table's own cross-validated error
+/// of that reference. A faithful twin's Bayes error is below the error any classifier reaches on
+/// the table; the k-NN reference averages class probabilities over neighbours, which pulls them
+/// toward the middle, and on two invented processes (docs/twin-calibration.md §5) that put the
+/// twin's Bayes error 0.07-0.08 above the truth and its expected losses 17-32% high.
+fn blur_line(plan: &Plan, f: &TwinFit) -> Result<String, Error> {
+    let crate::scenario::Source::Synthetic(s) = &plan.source else {
+        return Ok(String::new());
+    };
+    let Some(rows) = s.process.empirical_rows() else {
+        return Ok(String::new());
+    };
+    let p = s.process.probs_at(rows.view())?;
+    let bayes = p
+        .rows()
+        .into_iter()
+        .map(|r| 1.0 - r.iter().copied().fold(0.0_f64, f64::max))
+        .sum::<f64>()
+        / p.nrows().max(1) as f64;
+    let cv_error = 1.0 - f.quality;
+    let verdict = if bayes > cv_error {
+        "above it, which no faithful twin is (the best possible classifier cannot err more \
+         than k-NN does on the table): the reference blurs the class probabilities, so this \
+         twin's expected losses run high; read the shape of its curves, not their level"
+    } else {
+        "below it, as a faithful twin's is; the k-NN reference still pulls class \
+         probabilities toward the middle, so the twin's losses may run high"
+    };
+    Ok(format!(
+        "Bayes error of the twin {} against the table's cross-validated error of the reference {} \
+         ± {}: {verdict} (on two invented processes the k-NN reference's twins were 17-32% high, \
+         docs/twin-calibration.md §5).",
+        fmt_num(bayes),
+        fmt_num(cv_error),
+        fmt_se(f.quality_stderr)
+    ))
+}
+
 /// The text of a classification twin's scenario (`table_rel`: the CSV relative to the
 /// scenario's folder).
-pub fn classification_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &str) -> String {
-    let comments = vec![
+pub fn classification_text(
+    o: &TwinOptions,
+    t: &Table,
+    f: &TwinFit,
+    table_rel: &str,
+    blur: Option<&str>,
+) -> String {
+    let mut comments = vec![
         format!(
             "Inputs: the table's {} rows resampled with replacement; truth: k-NN reference (k = {} by {}-fold",
             t.rows(),
@@ -1329,6 +1374,7 @@ pub fn classification_text(o: &TwinOptions, t: &Table, f: &TwinFit, table_rel: &
             f.quality_name, f.quality, f.quality_stderr
         ),
     ];
+    comments.extend(blur.map(str::to_string));
     let mut s = header_and_top(o, t, &comments, TWIN_REPLICATES);
     s.push_str(&data_common(o, t, table_rel));
     s.push_str(&reference_line(&Choice::knn(f.k, true)));
@@ -1499,8 +1545,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     let text = match t.task {
         Task::Classify { .. } => {
             let f = reference::fit(&t, o.seed, true)?;
-            let text = classification_text(o, &t, &f, &rel);
-            check_plans(&text, &o.out, &folder)?;
+            let plan = check_plans(&classification_text(o, &t, &f, &rel, None), &o.out, &folder)?;
+            let blur = blur_line(&plan, &f)?;
+            let text = classification_text(o, &t, &f, &rel, Some(&blur));
             out.push_str(&format!(
                 "reference: k-NN on standardized inputs, k = {} chosen by {}-fold cross-validation; cross-validated {} = {} ± {}\n",
                 f.k,
@@ -1510,6 +1557,8 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 fmt_se(f.quality_stderr)
             ));
             out.push_str("inputs: the table's rows resampled with replacement (classification twins keep the k-NN reference and resampled rows); fidelity check: regression twins only\n");
+            out.push_str(&blur);
+            out.push('\n');
             text
         }
         Task::Regress => {
