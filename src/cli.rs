@@ -235,8 +235,9 @@ pub struct RunArgs {
     pub threads: usize,
     /// Which 0-1 loss decomposition the table shows (the JSON always holds all three). The
     /// default table is kept within 100 columns (a note names any term left out); `all` shows
-    /// every term.
-    #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
+    /// every term. Refused with --shard and --assess, which show no table.
+    #[arg(long, value_enum, default_value_t = DecompositionView::Domingos,
+          conflicts_with_all = ["shard", "assess"])]
     pub decomposition: DecompositionView,
     /// Do not print the table (nor the progress bar).
     #[arg(long, short)]

@@ -427,7 +427,7 @@ fn version_one_processes_still_run_and_version_two_carries_probabilities() {
 }
 
 /// A range grid with a decimal step gives the decimal values (0.3, not 0.30000000000000004, in
-/// the fits, the JSON and the CSV), and a step finer than twelve digits keeps its exact values.
+/// the fits, the JSON and the CSV), and a step finer than the printed digits is refused.
 #[test]
 fn range_grids_with_decimal_steps_give_decimal_values() {
     let grid = |g: &str| -> Vec<f64> {
@@ -454,9 +454,24 @@ fn range_grids_with_decimal_steps_give_decimal_values() {
         grid("{ from = 0.1, to = 1.0, step = 0.1 }"),
         vec![0.1, 0.2, 0.3, 0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 1.0]
     );
-    let fine = grid("{ from = 1.0, to = 1.00000000000031, step = 1e-13 }");
-    assert_eq!(fine.len(), 4);
-    assert!(fine.windows(2).all(|w| w[1] > w[0]), "{fine:?}");
+    // A step finer than the four significant digits every table, picture and reading shows
+    // gives values that all print as `1`: refused, naming two of them (it planned four rows
+    // labelled alike).
+    let src = "name = \"g\"\nseed = 1\nreplicates = 4\n[data]\nsource = \"synthetic\"\n\
+               train_size = 20\neval_size = 10\n[[data.inputs]]\nname = \"x\"\n\
+               uniform = [0.0, 1.0]\n[data.truth]\nformula = \"x\"\n[data.noise]\nsd = 1.0\n\
+               [model]\nfamily = \"ridge\"\n\
+               grid = { from = 1.0, to = 1.00000000000031, step = 1e-13 }\n";
+    let spec = lossprism::scenario::parse(src, "g.toml").expect("parses");
+    let e = lossprism::scenario::Plan::from_spec(
+        &spec,
+        src,
+        "g.toml",
+        Path::new("."),
+        &PlanOptions::default(),
+    )
+    .expect_err("values that print alike");
+    assert!(e.message.contains("both print as 1"), "{e:?}");
     assert_eq!(
         grid("{ from = 0, to = 5 }"),
         vec![0.0, 1.0, 2.0, 3.0, 4.0, 5.0]

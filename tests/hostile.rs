@@ -600,6 +600,18 @@ fn scenario_cases(t: &mut Table) {
         v,
         "the inputs' far quantiles (1.2e-6 from either end), which a run of 800010 input draws",
     );
+    // Grid values that agree to four significant digits printed as two rows of `0.5` and a
+    // reading naming `0.5` twice (a hostile sweep).
+    t.scenario(
+        g,
+        "grid values that print alike",
+        &sc(
+            "family = \"tree\"\ngrid = [1, 2]",
+            "family = \"ridge\"\ngrid = [0.5, 0.50001, 2]",
+        ),
+        v,
+        "values 0.5 and 0.50001 both print as 0.5",
+    );
     // A lognormal law has no offset to subtract: the remedy is its normal logarithm.
     t.scenario(
         g,
@@ -3496,6 +3508,23 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         s,
         &["run", "s.toml", "--out", "r.json", "--y-scale", "clip"],
         "<--plot <FILE.svg>|--report <FILE.html>>",
+    );
+    // A 0-1 view of a run that shows no table changed nothing and was accepted.
+    t.add(
+        g,
+        "--decomposition with --shard",
+        s,
+        &[
+            "run",
+            "s.toml",
+            "--shard",
+            "1/2",
+            "--out",
+            "p.json",
+            "--decomposition",
+            "james",
+        ],
+        "'--shard <I/N>' cannot be used with '--decomposition <DECOMPOSITION>'",
     );
     t.add(
         g,

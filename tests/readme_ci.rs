@@ -1,6 +1,6 @@
 //! The README's CI recipe ("In a project's CI") works verbatim: its command block is read from
-//! README.md and run in a temporary folder, with `lossprism` replaced by the built binary and a
-//! small scenario in place of `scenarios/my-model.toml`.
+//! README.md and run top to bottom in a temporary folder holding a copy of the shipped
+//! scenarios, with `lossprism` replaced by the built binary.
 
 mod common;
 use common::{bin, repo, text};
@@ -24,41 +24,23 @@ fn recipe() -> Vec<Vec<String>> {
         .collect()
 }
 
-/// A small invented scenario standing in for the project's own.
-const SCENARIO: &str = r#"
-name = "my-model"
-seed = 3
-replicates = 16
-
-[data]
-source = "synthetic"
-train_size = 40
-eval_size = 30
-
-[[data.inputs]]
-name = "x"
-uniform = [0.0, 1.0]
-
-[data.truth]
-formula = "sin(6 * x)"
-
-[data.noise]
-sd = 0.5
-
-[model]
-family = "knn"
-grid = [1, 3, 9]
-"#;
-
 #[test]
 fn readme_ci_recipe_runs_verbatim() {
     let cmds = recipe();
-    assert_eq!(cmds.len(), 3, "{cmds:?}");
+    assert_eq!(cmds.len(), 4, "{cmds:?}");
     assert!(cmds.iter().all(|c| c[0] == "lossprism"), "{cmds:?}");
+    // The block runs a shipped scenario, followed top to bottom in a copy of the repository's
+    // scenarios.
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
     std::fs::create_dir(d.join("scenarios")).unwrap();
-    std::fs::write(d.join("scenarios/my-model.toml"), SCENARIO).unwrap();
+    let shipped = repo().join("scenarios");
+    for e in std::fs::read_dir(&shipped).unwrap() {
+        let p = e.unwrap().path();
+        if p.extension().is_some_and(|x| x == "toml") {
+            std::fs::copy(&p, d.join("scenarios").join(p.file_name().unwrap())).unwrap();
+        }
+    }
     let run = |c: &[String]| {
         let out = Command::new(bin())
             .args(&c[1..])
@@ -72,16 +54,16 @@ fn readme_ci_recipe_runs_verbatim() {
             text(&out.stderr),
         )
     };
-    // First time: the run succeeds, the check finds no baseline (exit 2, saying to use
-    // --update), and --update creates it together with its folder.
-    let codes: Vec<(i32, String, String)> = cmds.iter().map(|c| run(c)).collect();
-    assert_eq!(codes[0].0, 0, "{:?}", codes[0]);
-    assert_eq!(codes[1].0, 2, "{:?}", codes[1]);
-    assert!(codes[1].2.contains("--update"), "{:?}", codes[1]);
-    assert_eq!(codes[2].0, 0, "{:?}", codes[2]);
-    assert!(d.join("baselines/my-model.json").exists());
-    // Every later CI run: the same numbers, so `identical` and exit 0 throughout.
+    // In order: the run, --update creating the baseline and its folder, a later CI run whose
+    // check finds the same numbers (`identical`, exit 0).
     let codes: Vec<(i32, String, String)> = cmds.iter().map(|c| run(c)).collect();
     assert!(codes.iter().all(|c| c.0 == 0), "{codes:?}");
-    assert!(codes[1].1.starts_with("identical"), "{:?}", codes[1]);
+    let baseline = cmds[1].iter().position(|w| w == "--baseline").unwrap() + 1;
+    assert!(d.join(&cmds[1][baseline]).exists());
+    assert!(codes[3].1.starts_with("identical"), "{:?}", codes[3]);
+    // Without the baseline, the check alone is refused and says to use --update.
+    std::fs::remove_file(d.join(&cmds[1][baseline])).unwrap();
+    let missing = run(&cmds[3]);
+    assert_eq!(missing.0, 2, "{missing:?}");
+    assert!(missing.2.contains("--update"), "{missing:?}");
 }

@@ -13,6 +13,7 @@ use crate::dataset::holdout::hash;
 use crate::dataset::TablePlan;
 use crate::error::Error;
 use crate::family::{FitInput, FitSeed, Out};
+use crate::fmt::fmt_value;
 use crate::scenario::{Plan, Source};
 
 /// Identifier of the ledger format (it starts with [`crate::output::LEDGER_TAG`], which keeps
@@ -60,8 +61,8 @@ pub struct Assessment {
     pub hash: String,
     /// Assessments of this holdout so far, this one included.
     pub count: u64,
-    /// Values assessed so far, this one included.
-    pub values: Vec<f64>,
+    /// What each assessment so far fitted (`tree max_depth = 5`), this one included.
+    pub looks: Vec<String>,
     /// Set from the second assessment on.
     pub warning: Option<String>,
 }
@@ -160,7 +161,14 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         f64::NAN
     };
     let h = hash(table, &tp.holdout);
-    let (count, values, earlier) = record(ledger, &h, tp.holdout.len(), value)?;
+    let model = &plan.models[0];
+    let look = format!(
+        "{} {} = {}",
+        model.label,
+        model.family.knob(),
+        fmt_value(value)
+    );
+    let (count, looks, earlier) = record(ledger, &h, tp.holdout.len(), value, &look)?;
     // A holdout drawn anew (another seed or holdout share, or an edited table) after an earlier
     // one's loss was seen: the choice may already carry what that look said, and rows of the
     // earlier holdout may be in this one.
@@ -178,15 +186,11 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         });
     let warning = redrawn.or_else(|| (count >= 2).then(|| {
         format!(
-            "warning: this holdout ({} rows, hash {h}) has now been assessed {count} times (values {}); \
+            "warning: this holdout ({} rows, hash {h}) has now been assessed {count} times ({}); \
              once results have been looked at and compared, its loss is no longer an unbiased estimate of \
              the test error of the chosen model. Ledger: {}",
             tp.holdout.len(),
-            values
-                .iter()
-                .map(|v| crate::fmt::fmt_value(*v))
-                .collect::<Vec<_>>()
-                .join(", "),
+            looks.join(", "),
             crate::error::shown(ledger)
         )
     }));
@@ -198,7 +202,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         train_rows: tp.work.len(),
         hash: h,
         count,
-        values,
+        looks,
         warning,
     })
 }
@@ -213,7 +217,8 @@ fn record(
     hash: &str,
     rows: usize,
     value: f64,
-) -> Result<(u64, Vec<f64>, u64), Error> {
+    look: &str,
+) -> Result<(u64, Vec<String>, u64), Error> {
     use serde_json::{json, Value};
     // Read, count and write under a lock on the ledger's folder: six assessments started
     // together each read the same count and the ledger ended at 1 (exit 0 every time).
@@ -315,10 +320,24 @@ fn record(
         .unwrap_or_default();
     values.push(value);
     entry["values"] = json!(values);
+    // What each look fitted (`tree max_depth = 5`): values alone read "5, 5" for two models.
+    // Ledgers written before 0.3.5 have no `looks`; their earlier looks are shown as values.
+    let mut looks: Vec<String> = match entry.get("looks").and_then(Value::as_array) {
+        Some(a) if a.len() + 1 == values.len() => a
+            .iter()
+            .map(|x| x.as_str().unwrap_or("?").to_string())
+            .collect(),
+        _ => values[..values.len() - 1]
+            .iter()
+            .map(|v| fmt_value(*v))
+            .collect(),
+    };
+    looks.push(look.to_string());
+    entry["looks"] = json!(looks);
     let mut text = serde_json::to_string_pretty(&doc).expect("json values serialize");
     text.push('\n');
     crate::output::write_one(crate::output::LEDGER_OUTPUT, ledger, &[], text.as_bytes())?;
-    Ok((count, values, earlier))
+    Ok((count, looks, earlier))
 }
 
 /// An exclusive advisory lock (`flock`) on a ledger's folder, held until dropped: assessments

@@ -156,8 +156,11 @@ fn reflect(mut v: f64, a: f64, b: f64) -> f64 {
     v.clamp(a, b)
 }
 
-/// Linear-interpolation quantile of sorted values.
+/// Linear-interpolation quantile of sorted values (NaN for none).
 fn quantile(sorted: &[f64], q: f64) -> f64 {
+    if sorted.is_empty() {
+        return f64::NAN;
+    }
     let pos = q * (sorted.len() - 1) as f64;
     let i = pos.floor() as usize;
     let f = pos - i as f64;

@@ -1331,6 +1331,18 @@ fn expand_grid(
                 crate::fmt::fmt_exact(w[0])
             )));
         }
+        // Every table, picture and reading names a grid value with four significant digits:
+        // two values that agree to them printed as two rows of `0.5` and a reading naming the
+        // same value twice (a hostile sweep).
+        let (a, b) = (crate::fmt::fmt_value(w[0]), crate::fmt::fmt_value(w[1]));
+        if a == b {
+            return Err(e(format!(
+                "values {} and {} both print as {a} (tables, pictures and readings show four \
+                 significant digits): give grid values that differ in them",
+                crate::fmt::fmt_exact(w[0]),
+                crate::fmt::fmt_exact(w[1])
+            )));
+        }
     }
     Ok((vals, kind))
 }
