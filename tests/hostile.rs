@@ -1295,6 +1295,16 @@ fn scenario_cases(t: &mut Table) {
     );
     t.scenario(
         g,
+        "temperature on a synthetic process",
+        &sc(
+            "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",
+            "[data.classes]\nlabels = [\"a\", \"b\"]\nprobability = \"x\"\ntemperature = 0.5\n",
+        ),
+        v,
+        "key `data.classes.temperature`: belongs to a twin's reference",
+    );
+    t.scenario(
+        g,
         "flip rule outside the classes",
         &sc(
             "[data.truth]\nformula = \"x\"\n\n[data.noise]\nsd = 1.0\n",

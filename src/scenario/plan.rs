@@ -2130,6 +2130,14 @@ fn class_model(cx: &Ctx<'_>, c: &ClassesSpec, names: &[&str]) -> Result<ClassMod
         }
     }
     let k = labels.len();
+    if let Some(t) = &c.temperature {
+        return Err(cx.err(
+            Some(t.span()),
+            "data.classes.temperature",
+            "belongs to a twin's reference (`source = \"twin\"`), whose class shares it sharpens; \
+             a synthetic process states its probabilities itself",
+        ));
+    }
     if c.flip.is_some() && c.rule.is_none() {
         let span = c.flip.as_ref().map(|f| f.span());
         return Err(cx.err(span, "data.classes.flip", "`flip` goes with `rule`"));

@@ -388,6 +388,10 @@ pub struct ClassesSpec {
     /// the other classes, chosen uniformly.
     #[serde(default)]
     pub flip: Option<Spanned<f64>>,
+    /// A twin's reference only: the temperature τ in (0, 1] that sharpens its class shares,
+    /// `p_c ∝ p_c^(1/τ)` (`lossprism twin` calibrates it; 1 or absent: the shares as they are).
+    #[serde(default)]
+    pub temperature: Option<Spanned<f64>>,
 }
 
 /// `[[data.inputs]]`: one input and its distribution (exactly one of the distribution keys).

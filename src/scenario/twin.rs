@@ -40,6 +40,10 @@ pub enum TwinNoise {
     },
 }
 
+/// Smallest temperature a classification twin's reference takes (`[data.classes]
+/// temperature`): below it the shares are all but 0 or 1.
+pub const TEMPERATURE_MIN: f64 = 0.05;
+
 /// Everything a twin process needs besides its table.
 #[derive(Debug, Clone)]
 pub struct TwinSpec {
@@ -63,6 +67,8 @@ pub struct TwinSpec {
     pub design: Design,
     /// Evaluate at the training inputs (fixed design only).
     pub eval_at_design: bool,
+    /// Classes: the temperature that sharpens the reference's class shares (1: as they are).
+    pub temperature: f64,
     /// What `lossprism twin` measured (echoed).
     pub report: Option<FitReport>,
 }
@@ -112,6 +118,9 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
                 .set_varying(t.x.view(), smooth_k, level)
                 .map_err(BuildError::Noise)?;
         }
+    }
+    if classes > 0 {
+        fitted_ref.temperature = spec.temperature;
     }
     fitted_ref.path = Some(t.path.clone());
     fitted_ref.report = spec.report.clone();
@@ -636,6 +645,20 @@ pub fn from_spec(
     };
     let target_kind = match (&d.classes, classify) {
         (Some(c), _) => {
+            if let Some(t) = &c.temperature {
+                let v = *t.get_ref();
+                if !(v.is_finite() && (TEMPERATURE_MIN..=1.0).contains(&v)) {
+                    return Err(err(
+                        t.span(),
+                        "data.classes.temperature",
+                        format!(
+                            "must be a number from {TEMPERATURE_MIN} to 1 (1: the reference's \
+                             class shares as they are), got {}",
+                            crate::fmt::fmt_exact(v)
+                        ),
+                    ));
+                }
+            }
             if c.probability.is_some() || c.logits.is_some() || c.rule.is_some() || c.flip.is_some()
             {
                 return Err(err(
@@ -955,6 +978,11 @@ pub fn from_spec(
         design,
         eval_at_design,
         report: d.fit_report.as_ref().map(|r| report_of(r.get_ref())),
+        temperature: d
+            .classes
+            .as_ref()
+            .and_then(|c| c.temperature.as_ref())
+            .map_or(1.0, |t| *t.get_ref()),
     };
     build(&t, &shown, &spec).map_err(|e| match e {
         BuildError::Reference(m) => err(reference.family.span(), "data.reference", m),

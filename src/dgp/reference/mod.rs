@@ -383,6 +383,9 @@ pub struct Reference {
     var_scale: f64,
     /// Twicing: the second fit, on the first fit's in-sample residuals.
     second: Option<Box<Reference>>,
+    /// Classes: the temperature τ that sharpens the class shares, `p_c ∝ p_c^(1/τ)` (1: as
+    /// they are; see [`calibrate_temperature`]).
+    pub temperature: f64,
 }
 
 impl std::fmt::Debug for Reference {
@@ -474,6 +477,7 @@ impl Reference {
             var_k: 0,
             var_scale: 1.0,
             second: None,
+            temperature: 1.0,
         };
         if varying && classes == 0 {
             if let Some(kp) = &r.knn {
@@ -646,6 +650,9 @@ impl Reference {
         }
         let total = buf.len() as f64 + out.len() as f64;
         out.iter_mut().for_each(|p| *p /= total);
+        if self.temperature != 1.0 {
+            sharpen(out, self.temperature);
+        }
     }
 
     /// Varying noise: σ²(x), the average over its [`Reference::smooth_k`] nearest table rows of
@@ -1085,6 +1092,149 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
     })
 }
 
+/// Sharpens class probabilities in place: `p_c ∝ p_c^(1/τ)`, computed on the logarithms so
+/// that small shares do not underflow (`τ = 1` leaves them as they are; every `p_c > 0`).
+pub fn sharpen(p: &mut [f64], tau: f64) {
+    let top = p.iter().fold(f64::NEG_INFINITY, |a, &v| a.max(v.ln()));
+    let mut sum = 0.0;
+    for v in p.iter_mut() {
+        *v = ((v.ln() - top) / tau).exp();
+        sum += *v;
+    }
+    p.iter_mut().for_each(|v| *v /= sum);
+}
+
+/// Labels drawn per table by [`calibrate_temperature`].
+pub const TEMPERATURE_DRAWS: usize = 40;
+
+/// The stream index (under `purpose::TWIN_BOOT`) of [`calibrate_temperature`]'s labels.
+const TEMPERATURE_STREAM: u64 = 1 << 40;
+
+/// What [`calibrate_temperature`] found.
+#[derive(Debug, Clone, Copy)]
+pub struct Temperature {
+    /// The temperature (1: no sharpening).
+    pub tau: f64,
+    /// The table's cross-validated error of the reference's k-NN classifier.
+    pub observed: f64,
+    /// The same cross-validation on labels drawn from the twin, at τ = 1 (mean over draws).
+    pub at_one: f64,
+    /// ... and at `tau`.
+    pub at_tau: f64,
+}
+
+/// Calibrates the temperature of a classification twin's reference (k-NN class shares with
+/// add-one smoothing at `fit.k`, standardized inputs) so that the twin reproduces what the
+/// table shows: the reference's own cross-validated error. The shares average class
+/// probabilities over k neighbours and so pull them toward the middle (a helper study put such
+/// twins' Bayes error 0.07 too high and their curves 23% high, docs/twin-calibration.md §5); a
+/// twin world whose labels are drawn from them makes the same k-NN err more than it does on the
+/// table. For τ in [`tau_min`, 1], labels are drawn at the
+/// table's rows from the sharpened shares ([`TEMPERATURE_DRAWS`] tables, the same uniforms for
+/// every τ) and the same folds and neighbours give their cross-validated error; τ is the value
+/// where that error equals the table's (bisection; 1 when the shares as they are already err no
+/// more than the table). A simulated method of moments (indirect inference: Gouriéroux,
+/// Monfort and Renault 1993, from memory) with one parameter and one moment.
+pub fn calibrate_temperature(t: &Table, fit: &TwinFit, seed: u64, tau_min: f64) -> Temperature {
+    let n = t.rows();
+    let classes = match t.task {
+        Task::Classify { classes } => classes,
+        Task::Regress => 0,
+    };
+    let observed = 1.0 - fit.quality;
+    if classes < 2 || n < 4 {
+        return Temperature {
+            tau: 1.0,
+            observed,
+            at_one: f64::NAN,
+            at_tau: f64::NAN,
+        };
+    }
+    let k = fit.k;
+    let folds = CV_FOLDS.min(n);
+    let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
+    let fold = crate::rng::fold_assignment(n, folds, &mut rng);
+    let index = NeighbourIndex::new(t.x.view(), true);
+    let mut scratch = Scratch::default();
+    let mut buf: Vec<usize> = Vec::with_capacity(k + 1);
+    // Each row's cross-validation neighbours, and its shares under the reference (its k
+    // nearest rows, itself among them, as the twin's reference has them).
+    let mut cv: Vec<Vec<usize>> = Vec::with_capacity(n);
+    let mut shares = vec![0.0; n * classes];
+    for i in 0..n {
+        let q = t.x.row(i).to_vec();
+        index.nearest_excluding(&q, k, |j| fold[j] == fold[i], &mut scratch, &mut buf);
+        cv.push(buf.clone());
+        index.nearest(&q, k, &mut scratch, &mut buf);
+        let row = &mut shares[i * classes..(i + 1) * classes];
+        row.iter_mut().for_each(|p| *p = 1.0);
+        for &j in &buf {
+            row[t.y[j] as usize] += 1.0;
+        }
+        let total = buf.len() as f64 + classes as f64;
+        row.iter_mut().for_each(|p| *p /= total);
+    }
+    let mut draw = crate::rng::stream(seed, crate::rng::purpose::TWIN_BOOT, TEMPERATURE_STREAM);
+    let u: Vec<f64> = (0..TEMPERATURE_DRAWS * n)
+        .map(|_| draw.gen::<f64>())
+        .collect();
+    let error_at = |tau: f64| -> f64 {
+        let mut p = shares.clone();
+        if tau != 1.0 {
+            p.chunks_mut(classes).for_each(|r| sharpen(r, tau));
+        }
+        let mut labels = vec![0usize; n];
+        let mut counts = vec![0usize; classes];
+        let mut misses = 0usize;
+        for b in 0..TEMPERATURE_DRAWS {
+            for (i, l) in labels.iter_mut().enumerate() {
+                let (mut acc, mut c) = (0.0, 0);
+                let r = &p[i * classes..(i + 1) * classes];
+                while c + 1 < classes {
+                    acc += r[c];
+                    if u[b * n + i] < acc {
+                        break;
+                    }
+                    c += 1;
+                }
+                *l = c;
+            }
+            for i in 0..n {
+                counts.iter_mut().for_each(|c| *c = 0);
+                for &j in &cv[i] {
+                    counts[labels[j]] += 1;
+                }
+                let best = (0..classes).fold(0, |b, c| if counts[c] > counts[b] { c } else { b });
+                misses += usize::from(best != labels[i]);
+            }
+        }
+        misses as f64 / (TEMPERATURE_DRAWS * n) as f64
+    };
+    let at_one = error_at(1.0);
+    let tau = if at_one <= observed {
+        1.0
+    } else if error_at(tau_min) >= observed {
+        tau_min
+    } else {
+        let (mut lo, mut hi) = (tau_min, 1.0);
+        for _ in 0..30 {
+            let mid = 0.5 * (lo + hi);
+            if error_at(mid) > observed {
+                hi = mid;
+            } else {
+                lo = mid;
+            }
+        }
+        0.5 * (lo + hi)
+    };
+    Temperature {
+        tau,
+        observed,
+        at_one,
+        at_tau: error_at(tau),
+    }
+}
+
 /// Draws `n` rows (with replacement) of `rows` into an `n × p` matrix, one uniform index per row
 /// in order (the twin's input distribution).
 pub fn resample_rows<R: Rng + ?Sized>(rows: &Array2<f64>, n: usize, rng: &mut R) -> Array2<f64> {
@@ -1101,6 +1251,19 @@ pub type SharedReference = Arc<Reference>;
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn sharpening_raises_shares_to_the_inverse_temperature() {
+        let mut p = [0.2, 0.3, 0.5];
+        super::sharpen(&mut p, 0.5);
+        let z = 0.04 + 0.09 + 0.25;
+        for (a, b) in p.iter().zip([0.04 / z, 0.09 / z, 0.25 / z]) {
+            assert!((a - b).abs() < 1e-12, "{p:?}");
+        }
+        let mut q = [0.25, 0.75];
+        super::sharpen(&mut q, 1.0);
+        assert!((q[0] - 0.25).abs() < 1e-15 && (q[1] - 0.75).abs() < 1e-15);
+    }
+
     use super::*;
     use ndarray::{Array1, Array2};
 
