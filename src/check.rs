@@ -281,6 +281,18 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
 /// Why a refused document cannot be a result as `run` wrote it.
 const EDITED: &str = "`run` never writes that, so the document was edited or damaged";
 
+/// The shape of the model of row `p` as its terms tell it (classes, fit seeds, ensemble).
+fn row_shape(doc: &ResultDoc, p: &crate::report::PointRow, observed: bool) -> decompose::Shape {
+    decompose::Shape {
+        grid: 1,
+        points: 0,
+        classes: doc.scenario.labels.as_ref().map_or(0, Vec::len),
+        fits: if p.has("variance_fit") { 2 } else { 1 },
+        all_points: !observed,
+        ensemble: p.has("diversity"),
+    }
+}
+
 /// Refuses a result document that `run` cannot have written, naming the first bad key (a JSON
 /// path such as `points[3].stderr.variance`): a known loss; `points` without a repeated row
 /// ([`ResultDoc::check_points`]), one row per grid value of every model (`models`, else the
@@ -491,14 +503,7 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                 crate::fmt::fmt_exact(p.get("noise"))
             ));
         }
-        let shape = decompose::Shape {
-            grid: 1,
-            points: 0,
-            classes: doc.scenario.labels.as_ref().map_or(0, Vec::len),
-            fits: if p.has("variance_fit") { 2 } else { 1 },
-            all_points: !observed,
-            ensemble: p.has("diversity"),
-        };
+        let shape = row_shape(doc, p, observed);
         // A table's unknown noise is not reported (classification and count losses fold it into
         // the bias): it enters their identities as 0.
         let get = |k: &str| {
@@ -595,14 +600,7 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
     // flags); pictures and comparisons read the roles (an edited role made `plot` panic and
     // `check` call a document identical to a baseline it differs from).
     if let (false, Some(p)) = (doc.terms.is_empty(), doc.points.first()) {
-        let shape = decompose::Shape {
-            grid: 1,
-            points: 0,
-            classes: doc.scenario.labels.as_ref().map_or(0, Vec::len),
-            fits: if p.has("variance_fit") { 2 } else { 1 },
-            all_points: !observed,
-            ensemble: p.has("diversity"),
-        };
+        let shape = row_shape(doc, p, observed);
         let want: Vec<crate::report::TermDoc> = loss
             .describe(&shape, observed)
             .iter()
@@ -1370,9 +1368,21 @@ fn choose_mode(new: &ResultDoc, base: &ResultDoc) -> Result<(Mode, String), Chec
     }
     let (sa, sb) = (ua.eval_seed, ub.eval_seed);
     if sa == sb {
+        // Another version may compute the same scenario's truth differently (a twin's bagged
+        // trees moved by 1e-7 when tree ties changed in 0.3.5, and the message blamed the
+        // scenario).
+        let why = if new.version != base.version {
+            format!(
+                "the scenario's data changed, or lossprism {} computes them otherwise than {} \
+                 did (a twin's reference, say): accept the new version's numbers with --update",
+                new.version, base.version
+            )
+        } else {
+            "the scenario's data changed".to_string()
+        };
         return Err(CheckError::Mismatch(format!(
             "the evaluation points or the truth there differ although both use eval_seed {sa}: \
-             the scenario's data changed"
+             {why}"
         )));
     }
     if let Some(why) = new
@@ -2010,6 +2020,20 @@ mod tests {
         )
         .unwrap_err();
         assert!(e.to_string().contains("data changed"), "{e}");
+        // Written by two versions: the message says either may be why.
+        let mut older = plain.clone();
+        older.version = "0.0.1".into();
+        let e = compare(
+            &with_unc(changed.clone(), "q", 1, &[], 0.1),
+            &with_unc(older, "p", 1, &[], 0.1),
+            &CheckOptions::default(),
+        )
+        .unwrap_err();
+        assert!(
+            e.to_string()
+                .contains("computes them otherwise than 0.0.1 did"),
+            "{e}"
+        );
         // Paired without leave-one-block-out values (a single block): cannot judge.
         let mut one = plain.clone();
         one.points[0].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);

@@ -506,6 +506,9 @@ pub fn part_doc(
         eval_seed: plan.eval_seed_explicit.then_some(plan.eval_seed),
         scenario_file: source.file.clone(),
         scenario_text: source.text.clone(),
+        scenario_path: std::fs::canonicalize(&source.file)
+            .ok()
+            .and_then(|p| p.to_str().map(str::to_string)),
         completed: blocks
             .iter()
             .map(|(&b, block)| encode_block(plan, b, block))
@@ -1225,7 +1228,13 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
                     && std::fs::metadata(f).is_ok_and(|m| m.len() == d.scenario_text.len() as u64)
                     && std::fs::read_to_string(f).is_ok_and(|t| t == d.scenario_text)
             });
-        let found: Vec<PathBuf> = tails.collect();
+        // The absolute path the part recorded, when it still holds the scenario's text.
+        let absolute = d
+            .scenario_path
+            .as_ref()
+            .map(PathBuf::from)
+            .filter(|f| std::fs::read_to_string(f).is_ok_and(|t| t == d.scenario_text));
+        let found: Vec<PathBuf> = tails.chain(absolute).collect();
         for f in [recorded, beside].into_iter().chain(found) {
             if !scenario_files.contains(&f) {
                 scenario_files.push(f);

@@ -648,7 +648,32 @@ fn merge_from_another_folder_never_replaces_the_estimators_script() {
         let (code, err) = lp(&ex, &["merge", "q1.json", "q2.json", flag, target, "-q"]);
         assert_eq!(code, 2, "{flag} {target}: {err}");
     }
+    // Shards run inside ex writing their parts to the parent folder, merged there: neither the
+    // recorded name nor the part's folder leads to the scenario, but the part records where it
+    // was (a second sweep replaced the scenario with `--csv ex/x.toml`).
+    for i in ["1", "2"] {
+        let (code, err) = lp(
+            &ex,
+            &[
+                "run",
+                "x.toml",
+                "--shard",
+                &format!("{i}/2"),
+                "--out",
+                &format!("../r{i}.json"),
+                "-q",
+            ],
+        );
+        assert_eq!(code, 0, "{err}");
+    }
+    for (flag, target) in [("--csv", "ex/x.toml"), ("--points", "ex/m.py")] {
+        let (code, err) = lp(top, &["merge", "r1.json", "r2.json", flag, target, "-q"]);
+        assert_eq!(code, 2, "{flag} {target}: {err}");
+    }
     assert_eq!(std::fs::read(ex.join("m.py")).unwrap(), script);
+    assert!(std::fs::read_to_string(ex.join("x.toml"))
+        .unwrap()
+        .contains("family = \"external\""));
     // Merged where the paths lead to it, the merge itself still works.
     let (code, err) = lp(
         top,

@@ -6014,3 +6014,34 @@ fn an_edited_learning_curve_is_refused_not_drawn() {
         assert!(!dir.join("l.svg").exists(), "{what}");
     }
 }
+
+#[test]
+fn a_formula_bad_only_where_every_input_is_far_out_at_once_is_accepted() {
+    // The formula probe moves each input alone to its far quantiles (1/N from either end for N
+    // input draws). It once moved every input there at once too, a corner of probability about
+    // q^p per draw, and refused `ln(a + b)` of two normal inputs far from 0, whose sum a run
+    // meets below 0 once in thousands of runs (a second sweep); the one-input overflow it was
+    // added for is still refused.
+    let d = tempfile::tempdir().unwrap();
+    let dir = d.path();
+    let two = BASE
+        .replace(
+            "[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n",
+            "[[data.inputs]]\nname = \"a\"\nnormal = [2.0, 0.5]\n\n[[data.inputs]]\nname = \"b\"\nnormal = [2.0, 0.5]\n",
+        )
+        .replace("formula = \"x\"", "formula = \"ln(a + b)\"")
+        .replace("replicates = 4", "replicates = 200")
+        .replace("train_size = 20", "train_size = 300");
+    assert!(
+        two.contains("ln(a + b)") && two.contains("name = \"b\""),
+        "{two}"
+    );
+    fs::write(dir.join("s.toml"), &two).unwrap();
+    let (code, _, err) = status(dir, &["validate", "s.toml"]);
+    assert_eq!(code, 0, "{err}");
+    let one = two.replace("formula = \"ln(a + b)\"", "formula = \"ln(a)\"");
+    fs::write(dir.join("s.toml"), &one).unwrap();
+    let (code, _, err) = status(dir, &["validate", "s.toml"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("the inputs' far quantiles"), "{err}");
+}

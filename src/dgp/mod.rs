@@ -525,19 +525,20 @@ impl Synthetic {
     /// Beside the random draws it evaluates the inputs' far quantiles, `1/draws` from each end
     /// (`draws`: the run's input draws), which a run reaches with probability about 63 %.
     pub fn probe<R: Rng + ?Sized>(&self, n: usize, draws: f64, rng: &mut R) -> Result<(), Error> {
-        // A twin's reference (regression or classes) is finite where it was fitted; evenly
-        // spaced inputs are the same points in every draw of a size, so 10 000 of them are
-        // points no run uses.
-        if self.reference().is_some()
-            || self
-                .inputs
-                .iter()
-                .any(|i| matches!(i.dist, InputDist::Even(..)))
-        {
+        // A twin's reference (regression or classes) is finite where it was fitted.
+        if self.reference().is_some() {
             return Ok(());
         }
-        let x = self.draw_inputs(n, rng);
-        self.formulas_at(x.view())?;
+        // Evenly spaced inputs are the same points in every draw of a size, so 10 000 of them
+        // are points no run uses: random draws only without them (their ends are probed below).
+        if !self
+            .inputs
+            .iter()
+            .any(|i| matches!(i.dist, InputDist::Even(..)))
+        {
+            let x = self.draw_inputs(n, rng);
+            self.formulas_at(x.view())?;
+        }
         // The laws' far quantiles, which `n` random draws seldom reach but a run's `draws` do
         // (a lognormal input's rare large draw overflowed `exp(x) / 1e100` in the run only).
         let q = 1.0 / draws.max(2.0);
@@ -567,10 +568,11 @@ impl Synthetic {
         Ok(())
     }
 
-    /// Rows at the inputs' `q` and `1 − q` quantiles: every input low, every input high, and each
-    /// input alone low or high with the others at their medians (2 + 2p rows; only the first
-    /// two beyond [`EXTREME_EACH_MAX`] inputs); none when some input's law has no quantiles here
-    /// (a table's rows).
+    /// Rows at the inputs' `q` and `1 − q` quantiles: each input alone low or high with the
+    /// others at their medians (2p rows; none beyond [`EXTREME_EACH_MAX`] inputs, or when some
+    /// input's law has no quantiles here, a table's rows). Not every input at once: that corner
+    /// has probability about q^p per draw, and `ln(a + b)` of two normal inputs far from 0 was
+    /// refused where a run would meet a negative sum once in 2000 runs (a second sweep).
     fn extreme_rows(&self, q: f64) -> Array2<f64> {
         let p = self.inputs.len();
         let each = if p <= EXTREME_EACH_MAX { p } else { 0 };
@@ -580,7 +582,15 @@ impl Synthetic {
                 InputDist::Normal(m, s) => Some(m + s * normal_quantile(q)),
                 InputDist::LogNormal(m, s) => Some((m + s * normal_quantile(q)).exp()),
                 InputDist::Exponential(r) => Some(-(-q).ln_1p() / r),
-                InputDist::Even(..) | InputDist::Empirical { .. } => None,
+                // Its ends are points of every draw: the range itself.
+                InputDist::Even(a, b) => Some(if q < 0.5 {
+                    a
+                } else if q > 0.5 {
+                    b
+                } else {
+                    0.5 * (a + b)
+                }),
+                InputDist::Empirical { .. } => None,
             }
         };
         let (Some(lo), Some(mid), Some(hi)) = (
@@ -599,13 +609,9 @@ impl Synthetic {
         ) else {
             return Array2::zeros((0, p));
         };
-        let mut x = Array2::zeros((2 + 2 * each, p));
-        for j in 0..p {
-            x[[0, j]] = lo[j];
-            x[[1, j]] = hi[j];
-        }
+        let mut x = Array2::zeros((2 * each, p));
         for j in 0..each {
-            for (r, ends) in [(2 + 2 * j, &lo), (3 + 2 * j, &hi)] {
+            for (r, ends) in [(2 * j, &lo), (2 * j + 1, &hi)] {
                 for (k, v) in mid.iter().enumerate() {
                     x[[r, k]] = if k == j { ends[j] } else { *v };
                 }
@@ -875,7 +881,7 @@ pub fn add_shaped_noise<R: Rng + ?Sized>(
 }
 
 /// Inputs up to which [`Synthetic::probe`] also moves each input alone to its far quantiles
-/// (2 + 2p rows of p values: about 2 million values at this bound).
+/// (2p rows of p values: about 2 million values at this bound).
 const EXTREME_EACH_MAX: usize = 1000;
 
 /// The standard normal quantile at `q` in (0, 1), by bisection on [`normal_cdf`] (its relative

@@ -132,6 +132,12 @@ pub struct PartDoc {
     pub scenario_file: String,
     /// The scenario file's text, verbatim.
     pub scenario_text: String,
+    /// The scenario file's absolute path where the part was written, so that `merge` run from
+    /// another folder still finds it, and keeps its outputs off it, its table and the files an
+    /// external estimator runs; absent when it could not be resolved (and in parts written before
+    /// 0.3.5).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub scenario_path: Option<String>,
     /// Completed blocks, ascending by index.
     pub completed: Vec<BlockRecord>,
     /// FNV-1a (64 bit) of the document's compact JSON with this field empty: any change to the
