@@ -1220,21 +1220,19 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         // path leads nowhere from there, but a shorter tail of it, beside the part or here,
         // holds the scenario's very text.
         let comps: Vec<_> = recorded.components().collect();
+        // A regular file of the text's very length is read, nothing else (a FIFO would block,
+        // a huge file would be read whole).
+        let holds_text = |f: &PathBuf| {
+            std::fs::metadata(f)
+                .is_ok_and(|m| m.is_file() && m.len() == d.scenario_text.len() as u64)
+                && std::fs::read_to_string(f).is_ok_and(|t| t == d.scenario_text)
+        };
         let tails = (1..comps.len())
             .map(|i| comps[i..].iter().collect::<PathBuf>())
-            .flat_map(|t| [dir.join(&t), t])
-            .filter(|f| {
-                f.is_file()
-                    && std::fs::metadata(f).is_ok_and(|m| m.len() == d.scenario_text.len() as u64)
-                    && std::fs::read_to_string(f).is_ok_and(|t| t == d.scenario_text)
-            });
+            .flat_map(|t| [dir.join(&t), t]);
         // The absolute path the part recorded, when it still holds the scenario's text.
-        let absolute = d
-            .scenario_path
-            .as_ref()
-            .map(PathBuf::from)
-            .filter(|f| std::fs::read_to_string(f).is_ok_and(|t| t == d.scenario_text));
-        let found: Vec<PathBuf> = tails.chain(absolute).collect();
+        let absolute = d.scenario_path.as_ref().map(PathBuf::from);
+        let found: Vec<PathBuf> = tails.chain(absolute).filter(holds_text).collect();
         for f in [recorded, beside].into_iter().chain(found) {
             if !scenario_files.contains(&f) {
                 scenario_files.push(f);

@@ -27,7 +27,11 @@ pub const LEDGER_FORMAT: &str = "lossprism-holdout-ledger/1";
 /// output by its content ([`crate::output::LEDGER_TAG`]).
 pub fn ledger_path(scenario: &Path) -> PathBuf {
     let named = beside(scenario);
-    if named.exists() {
+    // Not a link: beside the name as given (a folder reached through a link is the same folder),
+    // so the first assessment names the ledger as every later one does (it printed the
+    // absolute path the first time only).
+    let linked = std::fs::symlink_metadata(scenario).is_ok_and(|m| m.file_type().is_symlink());
+    if named.exists() || !linked {
         return named;
     }
     std::fs::canonicalize(scenario)
