@@ -91,7 +91,8 @@ pub struct TwinArgs {
     /// Feature columns, comma-separated (default: every other column).
     #[arg(long, value_delimiter = ',')]
     pub features: Option<Vec<String>>,
-    /// The target holds class labels (classification twin).
+    /// The target holds class labels (classification twin: k-NN class shares, sharpened by a
+    /// temperature calibrated so that the twin's k-NN errs as on the table).
     #[arg(long)]
     pub classes: bool,
     /// A row with an empty, missing or non-numeric cell in a used column: `error` (refuse the
