@@ -676,7 +676,52 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
             }
         }
     }
+    if let Some((c, g)) = doc
+        .learning
+        .iter()
+        .enumerate()
+        .find_map(|(c, lc)| lc.gain.as_ref().map(|g| (c, g)))
+        .filter(|(_, g)| {
+            let n = doc.sizes.len();
+            n < 2 || g.from != doc.sizes[n - 2] || g.to != doc.sizes[n - 1]
+        })
+    {
+        return Err(format!(
+            "`learning[{c}].gain` runs from {} to {} rows, not between the two largest sizes; \
+             {EDITED}",
+            g.from, g.to
+        ));
+    }
+    for (c, lc) in doc.learning.iter().enumerate() {
+        let (Some(g), [.., a, b]) = (&lc.gain, lc.sizes.as_slice()) else {
+            continue;
+        };
+        let d = a.expected_loss - b.expected_loss;
+        if (g.drop - d).abs() > 1e-9 * (a.expected_loss.abs() + b.expected_loss.abs()) {
+            return Err(format!(
+                "`learning[{c}].gain.drop` is not the fall of the curve's lowest expected loss \
+                 between its two largest sizes; {EDITED}"
+            ));
+        }
+    }
+    if !doc.ranking.is_empty() && doc.ranking.len() != doc.sizes.len().max(1) {
+        return Err(format!(
+            "`ranking` has {} entries for {} training sizes; {EDITED}",
+            doc.ranking.len(),
+            doc.sizes.len().max(1)
+        ));
+    }
     for (r, rk) in doc.ranking.iter().enumerate() {
+        let top = rk.candidates.first().map_or(0.0, |c| c.expected_loss);
+        if let Some(k) = rk.candidates.iter().position(|c| {
+            let d = c.expected_loss - top;
+            (c.difference - d).abs() > 1e-9 * (c.expected_loss.abs() + top.abs())
+        }) {
+            return Err(format!(
+                "`ranking[{r}].candidates[{k}].difference` is not its expected loss minus the \
+                 best's; {EDITED}"
+            ));
+        }
         for (k, cand) in rk.candidates.iter().enumerate() {
             let fam = family_of(&cand.family);
             let ok = row_of(fam.as_deref(), rk.train_size, cand.value)

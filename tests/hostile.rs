@@ -612,6 +612,28 @@ fn scenario_cases(t: &mut Table) {
         v,
         "values 0.5 and 0.50001 both print as 0.5",
     );
+    // A third sweep: training draws reach further into an input's tail than the evaluation
+    // points, and `exp(15 x)` of an exponential input reached 1e86 there (expected loss 3e162,
+    // exit 0); evenly spaced inputs hit `sin(a)/a` at a design point 0 only in the run.
+    t.scenario(
+        g,
+        "responses beyond 1e60 at an input's far quantile",
+        &sc("uniform = [0.0, 1.0]", "exponential = 1.0")
+            .replace("formula = \"x\"", "formula = \"exp(15*x)\"")
+            .replace("replicates = 4", "replicates = 2000")
+            .replace("train_size = 20", "train_size = 300"),
+        v,
+        "at the inputs' far quantiles (1.7e-6 from either end",
+    );
+    t.scenario(
+        g,
+        "an evenly spaced design point where the formula fails",
+        &sc("uniform = [0.0, 1.0]", "even = [-1.0, 1.0]")
+            .replace("formula = \"x\"", "formula = \"sin(x)/x\"")
+            .replace("train_size = 20", "train_size = 21"),
+        v,
+        "`sin(x)/x` gives NaN at x = 0",
+    );
     // A lognormal law has no offset to subtract: the remedy is its normal logarithm.
     t.scenario(
         g,
@@ -2206,6 +2228,12 @@ fn csv_cases(t: &mut Table) {
         csv_rows(40, |_| "u".into()).as_bytes(),
         "task = \"classify\"",
         "single class",
+    );
+    t.table(
+        "a temperature on a table's classes",
+        csv_rows(40, |i| if i % 2 == 0 { "u".into() } else { "v".into() }).as_bytes(),
+        "[data.classes]\nlabels = [\"u\", \"v\"]\ntemperature = 0.5",
+        "a table's classes come from the target column: give only `labels`",
     );
     t.table(
         "label not listed",
@@ -6037,6 +6065,14 @@ fn a_formula_bad_only_where_every_input_is_far_out_at_once_is_accepted() {
         "{two}"
     );
     fs::write(dir.join("s.toml"), &two).unwrap();
+    let (code, _, err) = status(dir, &["validate", "s.toml"]);
+    assert_eq!(code, 0, "{err}");
+    // An input at the middle of a symmetric law is exactly 0, where `sin(a)/a` is 0/0 though
+    // no draw lands there: the others are held off the middle.
+    let sinc = two
+        .replace("normal = [2.0, 0.5]", "uniform = [-1.0, 1.0]")
+        .replace("formula = \"ln(a + b)\"", "formula = \"sin(a)/a + b\"");
+    fs::write(dir.join("s.toml"), &sinc).unwrap();
     let (code, _, err) = status(dir, &["validate", "s.toml"]);
     assert_eq!(code, 0, "{err}");
     let one = two.replace("formula = \"ln(a + b)\"", "formula = \"ln(a)\"");

@@ -524,13 +524,24 @@ impl Synthetic {
     ///
     /// Beside the random draws it evaluates the inputs' far quantiles, `1/draws` from each end
     /// (`draws`: the run's input draws), which a run reaches with probability about 63 %.
-    pub fn probe<R: Rng + ?Sized>(&self, n: usize, draws: f64, rng: &mut R) -> Result<(), Error> {
+    ///
+    /// With evenly spaced inputs it evaluates instead the draws of each size in `sizes` (the
+    /// training sizes and the evaluation points), whose evenly spaced values are the very points
+    /// a run uses (`sin(a)/a` on an odd number of points of [-1, 1] passed `validate`).
+    pub fn probe<R: Rng + ?Sized>(
+        &self,
+        n: usize,
+        draws: f64,
+        sizes: &[usize],
+        rng: &mut R,
+    ) -> Result<(), Error> {
         // A twin's reference (regression or classes) is finite where it was fitted.
         if self.reference().is_some() {
             return Ok(());
         }
         // Evenly spaced inputs are the same points in every draw of a size, so 10 000 of them
         // are points no run uses: random draws only without them (their ends are probed below).
+        let p = self.inputs.len().max(1);
         if !self
             .inputs
             .iter()
@@ -538,6 +549,11 @@ impl Synthetic {
         {
             let x = self.draw_inputs(n, rng);
             self.formulas_at(x.view())?;
+        } else {
+            for &m in sizes.iter().filter(|&&m| m.saturating_mul(p) <= 2_000_000) {
+                let x = self.draw_inputs(m, rng);
+                self.formulas_at(x.view())?;
+            }
         }
         // The laws' far quantiles, which `n` random draws seldom reach but a run's `draws` do
         // (a lognormal input's rare large draw overflowed `exp(x) / 1e100` in the run only).
@@ -552,6 +568,25 @@ impl Synthetic {
             })?;
         }
         Ok(())
+    }
+
+    /// The largest |truth| and sd at the inputs' far quantiles for a run of `draws` input draws
+    /// (see [`Synthetic::probe`]); `(0, 0)` for classes, a twin or a process without such rows.
+    /// The run holds them to the responses' range as it does the evaluation points': training
+    /// draws reach further into the tails (`exp(15 x)` of an exponential input reached 1e86
+    /// there and the run reported an expected loss of 3e162, exit 0).
+    pub fn far_sizes(&self, draws: f64) -> (f64, f64) {
+        if self.reference().is_some() || !matches!(self.response, Response::Regression { .. }) {
+            return (0.0, 0.0);
+        }
+        let x = self.extreme_rows(1.0 / draws.max(2.0));
+        if x.nrows() == 0 {
+            return (0.0, 0.0);
+        }
+        let big = |v: Result<Array1<f64>, Error>| {
+            v.map_or(0.0, |a| a.iter().fold(0.0_f64, |m, v| m.max(v.abs())))
+        };
+        (big(self.truth_at(x.view())), big(self.sd_at(x.view())))
     }
 
     /// The truth and sd, or the class probabilities, at the rows of `x` (errors as a draw's).
@@ -569,7 +604,7 @@ impl Synthetic {
     }
 
     /// Rows at the inputs' `q` and `1 − q` quantiles: each input alone low or high with the
-    /// others at their medians (2p rows; none beyond [`EXTREME_EACH_MAX`] inputs, or when some
+    /// others at [`OTHERS_QUANTILE`] (2p rows; none beyond [`EXTREME_EACH_MAX`] inputs, or when some
     /// input's law has no quantiles here, a table's rows). Not every input at once: that corner
     /// has probability about q^p per draw, and `ln(a + b)` of two normal inputs far from 0 was
     /// refused where a run would meet a negative sum once in 2000 runs (a second sweep).
@@ -583,16 +618,18 @@ impl Synthetic {
                 InputDist::LogNormal(m, s) => Some((m + s * normal_quantile(q)).exp()),
                 InputDist::Exponential(r) => Some(-(-q).ln_1p() / r),
                 // Its ends are points of every draw: the range itself.
-                InputDist::Even(a, b) => Some(if q < 0.5 {
+                InputDist::Even(a, b) => Some(if q < 0.01 {
                     a
-                } else if q > 0.5 {
+                } else if q > 0.99 {
                     b
                 } else {
-                    0.5 * (a + b)
+                    a + (b - a) * q
                 }),
                 InputDist::Empirical { .. } => None,
             }
         };
+        // The others sit at a quantile off the middle: a symmetric law's median is often
+        // exactly 0, where `sin(a)/a` is 0/0 although no draw ever lands (a second sweep).
         let (Some(lo), Some(mid), Some(hi)) = (
             self.inputs
                 .iter()
@@ -600,7 +637,7 @@ impl Synthetic {
                 .collect::<Option<Vec<f64>>>(),
             self.inputs
                 .iter()
-                .map(|i| at(&i.dist, 0.5))
+                .map(|i| at(&i.dist, OTHERS_QUANTILE))
                 .collect::<Option<Vec<f64>>>(),
             self.inputs
                 .iter()
@@ -879,6 +916,11 @@ pub fn add_shaped_noise<R: Rng + ?Sized>(
     }
     y
 }
+
+/// The quantile at which [`Synthetic::probe`] holds the other inputs while it moves one to
+/// its far quantiles: off the middle (an arbitrary value, no source), where a symmetric law's
+/// median would be exactly 0.
+const OTHERS_QUANTILE: f64 = 0.5377;
 
 /// Inputs up to which [`Synthetic::probe`] also moves each input alone to its far quantiles
 /// (2p rows of p values: about 2 million values at this bound).

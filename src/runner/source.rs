@@ -256,6 +256,30 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
              a power of ten)"
         )));
     }
+    // Training draws reach further into the inputs' tails than the evaluation points do.
+    if let Source::Synthetic(s) = &plan.source {
+        if s.design != Design::Fixed {
+            let sizes: f64 = s.sizes.iter().map(|&m| m as f64).sum();
+            let draws = plan.replicates as f64 * sizes + s.eval_size as f64;
+            let (truth, sd) = s.process.far_sizes(draws);
+            let far = truth.max(sd);
+            if far > RESPONSE_MAX {
+                let what = if truth >= sd {
+                    "the truth, [data.truth]"
+                } else {
+                    "the noise's standard deviation, [data.noise]"
+                };
+                return Err(Error::Data(format!(
+                    "the responses ({what}) reach {far:.1e} in size at the inputs' far quantiles \
+                     ({:.1e} from either end, which a run of {draws:.0} input draws passes with \
+                     probability about 63 %), above {RESPONSE_MAX:.0e}: the standard errors sum \
+                     fourth powers of the responses, which overflow beyond about 1e76; rescale \
+                     the response or narrow the inputs' laws",
+                    1.0 / draws.max(2.0)
+                )));
+            }
+        }
+    }
     if big > 0.0 && big < RESPONSE_MIN {
         return Err(Error::Data(format!(
             "the responses{} are at most {big:.1e} in size, below {RESPONSE_MIN:.0e}: the \
@@ -386,7 +410,9 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
         let sizes: f64 = s.sizes.iter().map(|&m| m as f64).sum();
         let draws = plan.replicates as f64 * sizes + s.eval_size as f64;
         let mut rng = stream(plan.seed, purpose::PROBE, 0);
-        s.process.probe(n, draws, &mut rng)?;
+        let mut sizes = s.sizes.clone();
+        sizes.push(s.eval_size);
+        s.process.probe(n, draws, &sizes, &mut rng)?;
     }
     let classify = matches!(plan.task, Task::Classify { .. });
     let mut fixed_probs = None;

@@ -179,6 +179,7 @@ pub fn from_spec(
                     || c.logits.is_some()
                     || c.rule.is_some()
                     || c.flip.is_some()
+                    || c.temperature.is_some()
                 {
                     return Err(spanned_err(
                         src,
