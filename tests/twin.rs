@@ -191,21 +191,34 @@ fn twin_scenario_round_trips_with_audit_and_varying_noise() {
     assert_eq!(report::to_json(&again), report::to_json(&doc));
 }
 
-#[test]
-fn classification_twin_has_no_zero_probability() {
-    let dir = tempfile::tempdir().unwrap();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(9);
+/// Writes `t.csv` in `dir`: `n` rows of inputs a, b uniform on [0, 1] and a `grade` label,
+/// "sound" where `sound(a, rng)` says so and "bruised" elsewhere, drawn from seed `seed`.
+fn write_grades(
+    dir: &Path,
+    seed: u64,
+    n: usize,
+    sound: impl Fn(f64, &mut rand_chacha::ChaCha8Rng) -> bool,
+) {
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
     let mut s = String::from("a,b,grade\n");
-    for _ in 0..150 {
+    for _ in 0..n {
         let (a, b): (f64, f64) = (rng.gen(), rng.gen());
-        let label = if a + 0.3 * rng.gen::<f64>() > 0.6 {
+        let grade = if sound(a, &mut rng) {
             "sound"
         } else {
             "bruised"
         };
-        s.push_str(&format!("{a},{b},{label}\n"));
+        s.push_str(&format!("{a},{b},{grade}\n"));
     }
-    fs::write(dir.path().join("t.csv"), s).unwrap();
+    fs::write(dir.join("t.csv"), s).unwrap();
+}
+
+#[test]
+fn classification_twin_has_no_zero_probability() {
+    let dir = tempfile::tempdir().unwrap();
+    write_grades(dir.path(), 9, 150, |a, rng| {
+        a + 0.3 * rng.gen::<f64>() > 0.6
+    });
     let o = opts(dir.path(), true, "grade");
     let msg = twin::command(&o).expect("twin");
     assert!(msg.contains("accuracy"), "{msg}");
@@ -235,16 +248,7 @@ fn classification_twin_sharpens_its_shares_until_it_errs_as_the_table_does() {
     // labels from the sharpened shares (a helper study measured k-NN twins 23% high before,
     // docs/twin-calibration.md §5).
     let dir = tempfile::tempdir().unwrap();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(5);
-    let mut s = String::from("a,b,grade\n");
-    for _ in 0..200 {
-        let (a, b): (f64, f64) = (rng.gen(), rng.gen());
-        s.push_str(&format!(
-            "{a},{b},{}\n",
-            if a > 0.5 { "sound" } else { "bruised" }
-        ));
-    }
-    fs::write(dir.path().join("t.csv"), s).unwrap();
+    write_grades(dir.path(), 5, 200, |a, _| a > 0.5);
     let o = opts(dir.path(), true, "grade");
     let msg = twin::command(&o).expect("twin");
     let numbers = |line: &str| -> Vec<f64> {
@@ -306,18 +310,9 @@ fn classification_twin_sharpens_its_shares_until_it_errs_as_the_table_does() {
 #[test]
 fn a_classification_twins_temperature_is_held_to_its_range() {
     let dir = tempfile::tempdir().unwrap();
-    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(6);
-    let mut s = String::from("a,b,grade\n");
-    for _ in 0..120 {
-        let (a, b): (f64, f64) = (rng.gen(), rng.gen());
-        let label = if a + 0.4 * rng.gen::<f64>() > 0.7 {
-            "sound"
-        } else {
-            "bruised"
-        };
-        s.push_str(&format!("{a},{b},{label}\n"));
-    }
-    fs::write(dir.path().join("t.csv"), s).unwrap();
+    write_grades(dir.path(), 6, 120, |a, rng| {
+        a + 0.4 * rng.gen::<f64>() > 0.7
+    });
     let o = opts(dir.path(), true, "grade");
     twin::command(&o).expect("twin");
     let text = fs::read_to_string(&o.out).unwrap();
