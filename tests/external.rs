@@ -569,6 +569,26 @@ fn a_signal_to_lossprism_ends_its_external_processes() {
     );
 }
 
+/// Runs `scenario` in `dir` as shards 1/2 and 2/2, into `out` with `#` the shard's number.
+fn shards(dir: &Path, scenario: &str, out: &str) {
+    for i in ["1", "2"] {
+        let part = out.replace('#', i);
+        let (code, err) = lp(
+            dir,
+            &[
+                "run",
+                scenario,
+                "--shard",
+                &format!("{i}/2"),
+                "--out",
+                &part,
+                "-q",
+            ],
+        );
+        assert_eq!(code, 0, "{err}");
+    }
+}
+
 /// `lossprism` in `dir` with `args`: exit code and standard error.
 fn lp(dir: &Path, args: &[&str]) -> (i32, String) {
     let out = Command::new(env!("CARGO_BIN_EXE_lossprism"))
@@ -602,21 +622,7 @@ fn merge_from_another_folder_never_replaces_the_estimators_script() {
     )
     .unwrap();
     // Shards run inside ex, merged from the parent folder.
-    for i in ["1", "2"] {
-        let (code, err) = lp(
-            &ex,
-            &[
-                "run",
-                "x.toml",
-                "--shard",
-                &format!("{i}/2"),
-                "--out",
-                &format!("p{i}.json"),
-                "-q",
-            ],
-        );
-        assert_eq!(code, 0, "{err}");
-    }
+    shards(&ex, "x.toml", "p#.json");
     for flag in ["--csv", "--points"] {
         let (code, err) = lp(
             top,
@@ -629,21 +635,7 @@ fn merge_from_another_folder_never_replaces_the_estimators_script() {
         );
     }
     // Shards run from the parent folder, merged inside ex.
-    for i in ["1", "2"] {
-        let (code, err) = lp(
-            top,
-            &[
-                "run",
-                "ex/x.toml",
-                "--shard",
-                &format!("{i}/2"),
-                "--out",
-                &format!("ex/q{i}.json"),
-                "-q",
-            ],
-        );
-        assert_eq!(code, 0, "{err}");
-    }
+    shards(top, "ex/x.toml", "ex/q#.json");
     for (flag, target) in [("--csv", "m.py"), ("--csv", "x.toml")] {
         let (code, err) = lp(&ex, &["merge", "q1.json", "q2.json", flag, target, "-q"]);
         assert_eq!(code, 2, "{flag} {target}: {err}");
@@ -651,21 +643,7 @@ fn merge_from_another_folder_never_replaces_the_estimators_script() {
     // Shards run inside ex writing their parts to the parent folder, merged there: neither the
     // recorded name nor the part's folder leads to the scenario, but the part records where it
     // was (a second sweep replaced the scenario with `--csv ex/x.toml`).
-    for i in ["1", "2"] {
-        let (code, err) = lp(
-            &ex,
-            &[
-                "run",
-                "x.toml",
-                "--shard",
-                &format!("{i}/2"),
-                "--out",
-                &format!("../r{i}.json"),
-                "-q",
-            ],
-        );
-        assert_eq!(code, 0, "{err}");
-    }
+    shards(&ex, "x.toml", "../r#.json");
     for (flag, target) in [("--csv", "ex/x.toml"), ("--points", "ex/m.py")] {
         let (code, err) = lp(top, &["merge", "r1.json", "r2.json", flag, target, "-q"]);
         assert_eq!(code, 2, "{flag} {target}: {err}");

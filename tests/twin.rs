@@ -191,6 +191,13 @@ fn twin_scenario_round_trips_with_audit_and_varying_noise() {
     assert_eq!(report::to_json(&again), report::to_json(&doc));
 }
 
+/// The class probabilities at the evaluation points of the twin scenario at `path` (6
+/// replicates; the probabilities do not depend on them).
+fn class_probs(path: &Path) -> ndarray::Array2<f64> {
+    let out = runner::run(&load_at(path, 6), 0).unwrap();
+    out.prepared.eval_probs.expect("class probabilities")
+}
+
 /// Writes `t.csv` in `dir`: `n` rows of inputs a, b uniform on [0, 1] and a `grade` label,
 /// "sound" where `sound(a, rng)` says so and "bruised" elsewhere, drawn from seed `seed`.
 fn write_grades(
@@ -224,13 +231,7 @@ fn classification_twin_has_no_zero_probability() {
     assert!(msg.contains("accuracy"), "{msg}");
     let text = fs::read_to_string(&o.out).unwrap();
     assert!(text.contains("[data.classes]"), "{text}");
-    let plan = load_at(&o.out, 6);
-    let out = runner::run(&plan, 0).unwrap();
-    let probs = out
-        .prepared
-        .eval_probs
-        .as_ref()
-        .expect("class probabilities");
+    let probs = class_probs(&o.out);
     // Add-one smoothing: every probability is at least 1/(k + K) > 0; rows sum to 1.
     assert!(probs.iter().all(|p| *p > 0.0));
     for row in probs.rows() {
@@ -287,13 +288,7 @@ fn classification_twin_sharpens_its_shares_until_it_errs_as_the_table_does() {
         .and_then(|v| v.trim().parse().ok())
         .unwrap_or_else(|| panic!("{text}"));
     // The run's class probabilities are the add-one shares sharpened by that temperature.
-    let plan = load_at(&o.out, 6);
-    let out = runner::run(&plan, 0).unwrap();
-    let probs = out
-        .prepared
-        .eval_probs
-        .as_ref()
-        .expect("class probabilities");
+    let probs = class_probs(&o.out);
     let mut lowest: f64 = 1.0;
     for row in probs.rows() {
         assert!((row.sum() - 1.0).abs() < 1e-12);

@@ -523,7 +523,11 @@ impl Synthetic {
     /// error is the one a draw gives.
     ///
     /// Beside the random draws it evaluates the inputs' far quantiles, `1/draws` from each end
-    /// (`draws`: the run's input draws), which a run reaches with probability about 63 %.
+    /// (`draws`: the run's input draws), which a run reaches with probability about 63 %, and
+    /// returns the largest |truth| and sd there (`(0, 0)` for classes, a twin, or a process
+    /// without such rows): training draws reach further into the tails than the evaluation
+    /// points, and the run holds them to the responses' range too (`exp(15 x)` of an
+    /// exponential input reached 1e86 there, and a run reported an expected loss of 3e162).
     ///
     /// With evenly spaced inputs it evaluates instead the draws of each size in `sizes` (the
     /// training sizes and the evaluation points), whose evenly spaced values are the very points
@@ -534,10 +538,10 @@ impl Synthetic {
         draws: f64,
         sizes: &[usize],
         rng: &mut R,
-    ) -> Result<(), Error> {
+    ) -> Result<(f64, f64), Error> {
         // A twin's reference (regression or classes) is finite where it was fitted.
         if self.reference().is_some() {
-            return Ok(());
+            return Ok((0.0, 0.0));
         }
         // Evenly spaced inputs are the same points in every draw of a size, so 10 000 of them
         // are points no run uses: random draws only without them (their ends are probed below).
@@ -559,34 +563,26 @@ impl Synthetic {
         // (a lognormal input's rare large draw overflowed `exp(x) / 1e100` in the run only).
         let q = 1.0 / draws.max(2.0);
         let x = self.extreme_rows(q);
-        if x.nrows() > 0 {
-            self.formulas_at(x.view()).map_err(|e| {
-                Error::Data(format!(
-                    "{e}: the inputs' far quantiles ({q:.1e} from either end), which a run of \
-                     {draws:.0} input draws passes with probability about 63 %"
-                ))
-            })?;
-        }
-        Ok(())
-    }
-
-    /// The largest |truth| and sd at the inputs' far quantiles for a run of `draws` input draws
-    /// (see [`Synthetic::probe`]); `(0, 0)` for classes, a twin or a process without such rows.
-    /// The run holds them to the responses' range as it does the evaluation points': training
-    /// draws reach further into the tails (`exp(15 x)` of an exponential input reached 1e86
-    /// there and the run reported an expected loss of 3e162, exit 0).
-    pub fn far_sizes(&self, draws: f64) -> (f64, f64) {
-        if self.reference().is_some() || !matches!(self.response, Response::Regression { .. }) {
-            return (0.0, 0.0);
-        }
-        let x = self.extreme_rows(1.0 / draws.max(2.0));
         if x.nrows() == 0 {
-            return (0.0, 0.0);
+            return Ok((0.0, 0.0));
         }
-        let big = |v: Result<Array1<f64>, Error>| {
-            v.map_or(0.0, |a| a.iter().fold(0.0_f64, |m, v| m.max(v.abs())))
+        let far = |e: Error| {
+            Error::Data(format!(
+                "{e}: the inputs' far quantiles ({q:.1e} from either end), which a run of \
+                 {draws:.0} input draws passes with probability about 63 %"
+            ))
         };
-        (big(self.truth_at(x.view())), big(self.sd_at(x.view())))
+        let largest = |a: Array1<f64>| a.iter().fold(0.0_f64, |m, v| m.max(v.abs()));
+        match &self.response {
+            Response::Regression { .. } => Ok((
+                largest(self.truth_at(x.view()).map_err(far)?),
+                largest(self.sd_at(x.view()).map_err(far)?),
+            )),
+            Response::Classes(_) => {
+                self.probs_at(x.view()).map_err(far)?;
+                Ok((0.0, 0.0))
+            }
+        }
     }
 
     /// The truth and sd, or the class probabilities, at the rows of `x` (errors as a draw's).

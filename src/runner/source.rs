@@ -20,7 +20,7 @@ use crate::dgp::draw_labels;
 use crate::error::Error;
 use crate::family::Task;
 use crate::rng::{purpose, stream};
-use crate::scenario::{Design, Plan, Source};
+use crate::scenario::{Design, Plan, Source, SyntheticPlan};
 
 /// Everything fixed across replicates.
 #[derive(Debug, Clone)]
@@ -143,9 +143,16 @@ pub fn prepare_to_fit(plan: &Plan) -> Result<Prepared, Error> {
 /// Draws the evaluation points (and a fixed design) of a plan; a table's working rows and
 /// noise estimate.
 pub fn prepare(plan: &Plan) -> Result<Prepared, Error> {
-    let prepared = prepare_inner(plan).map_err(|e| with_file(plan, e))?;
-    check_scale(plan, &prepared).map_err(|e| with_file(plan, e))?;
+    let (prepared, far) = prepare_inner(plan).map_err(|e| with_file(plan, e))?;
+    check_scale(plan, &prepared, far).map_err(|e| with_file(plan, e))?;
     Ok(prepared)
+}
+
+/// Every input draw of a synthetic run: each replicate's training draws at every size, and
+/// the evaluation points.
+fn input_draws(plan: &Plan, s: &SyntheticPlan) -> f64 {
+    let sizes: f64 = s.sizes.iter().map(|&m| m as f64).sum();
+    plan.replicates as f64 * sizes + s.eval_size as f64
 }
 
 /// Smallest largest magnitude of a regression's responses under the squared loss (truth or
@@ -173,7 +180,8 @@ const COUNT_MIN: f64 = 1e-150;
 /// decomposition of zeros, and a reading drawn from them, with exit 0), or so large that their
 /// squares overflow (the run would do all its work and then refuse its non-finite terms).
 /// `validate` runs it too, through [`prepare`].
-fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
+/// `far`: the largest |truth| and sd at the inputs' far quantiles ([`crate::dgp::Synthetic::probe`]).
+fn check_scale(plan: &Plan, p: &Prepared, far: (f64, f64)) -> Result<(), Error> {
     // A table's input columns: standardizing (k-NN, ridge, the noise estimators) squares and
     // sums them; beyond about 1e154 the sums overflow and a column was silently standardized to
     // zeros (a synthetic input is held to the same bound when it is planned).
@@ -257,28 +265,23 @@ fn check_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
         )));
     }
     // Training draws reach further into the inputs' tails than the evaluation points do.
-    if let Source::Synthetic(s) = &plan.source {
-        if s.design != Design::Fixed {
-            let sizes: f64 = s.sizes.iter().map(|&m| m as f64).sum();
-            let draws = plan.replicates as f64 * sizes + s.eval_size as f64;
-            let (truth, sd) = s.process.far_sizes(draws);
-            let far = truth.max(sd);
-            if far > RESPONSE_MAX {
-                let what = if truth >= sd {
-                    "the truth, [data.truth]"
-                } else {
-                    "the noise's standard deviation, [data.noise]"
-                };
-                return Err(Error::Data(format!(
-                    "the responses ({what}) reach {far:.1e} in size at the inputs' far quantiles \
-                     ({:.1e} from either end, which a run of {draws:.0} input draws passes with \
-                     probability about 63 %), above {RESPONSE_MAX:.0e}: the standard errors sum \
-                     fourth powers of the responses, which overflow beyond about 1e76; rescale \
-                     the response or narrow the inputs' laws",
-                    1.0 / draws.max(2.0)
-                )));
-            }
-        }
+    let (truth, sd) = far;
+    if let (Source::Synthetic(s), true) = (&plan.source, truth.max(sd) > RESPONSE_MAX) {
+        let draws = input_draws(plan, s);
+        let what = if truth >= sd {
+            "the truth, [data.truth]"
+        } else {
+            "the noise's standard deviation, [data.noise]"
+        };
+        return Err(Error::Data(format!(
+            "the responses ({what}) reach {:.1e} in size at the inputs' far quantiles ({:.1e} \
+             from either end, which a run of {draws:.0} input draws passes with probability \
+             about 63 %), above {RESPONSE_MAX:.0e}: the standard errors sum fourth powers of \
+             the responses, which overflow beyond about 1e76; rescale the response or narrow the \
+             inputs' laws",
+            truth.max(sd),
+            1.0 / draws.max(2.0)
+        )));
     }
     if big > 0.0 && big < RESPONSE_MIN {
         return Err(Error::Data(format!(
@@ -357,7 +360,9 @@ fn check_count_scale(plan: &Plan, p: &Prepared) -> Result<(), Error> {
     Ok(())
 }
 
-fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
+/// The prepared run, and the largest |truth| and sd at the inputs' far quantiles (`(0, 0)`
+/// where they are not probed).
+fn prepare_inner(plan: &Plan) -> Result<(Prepared, (f64, f64)), Error> {
     let s = match &plan.source {
         Source::Synthetic(s) => s,
         Source::Table(t) => {
@@ -387,15 +392,18 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
                     )));
                 }
             }
-            return Ok(Prepared {
-                eval_x: work.x.clone(),
-                eval_truth: work.y.clone(),
-                eval_sd: Array1::zeros(m),
-                eval_probs: None,
-                fixed: None,
-                fixed_probs: None,
-                table: Some(TableRun { work, noise }),
-            });
+            return Ok((
+                Prepared {
+                    eval_x: work.x.clone(),
+                    eval_truth: work.y.clone(),
+                    eval_sd: Array1::zeros(m),
+                    eval_probs: None,
+                    fixed: None,
+                    fixed_probs: None,
+                    table: Some(TableRun { work, noise }),
+                },
+                (0.0, 0.0),
+            ));
         }
     };
     // The formulas at many draws of the inputs (its own stream; about 2 million values at
@@ -403,17 +411,16 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     // at its first such draw, after `validate` had passed the file.
     // A fixed design evaluates the formulas only at its own rows and the evaluation points,
     // both checked below.
-    if s.design != Design::Fixed {
+    let far = if s.design != Design::Fixed {
         let p = s.process.inputs.len().max(1);
         let n = (2_000_000 / p).clamp(20, 10_000);
-        // Every training draw of every replicate and size, and the evaluation points.
-        let sizes: f64 = s.sizes.iter().map(|&m| m as f64).sum();
-        let draws = plan.replicates as f64 * sizes + s.eval_size as f64;
         let mut rng = stream(plan.seed, purpose::PROBE, 0);
         let mut sizes = s.sizes.clone();
         sizes.push(s.eval_size);
-        s.process.probe(n, draws, &sizes, &mut rng)?;
-    }
+        s.process.probe(n, input_draws(plan, s), &sizes, &mut rng)?
+    } else {
+        (0.0, 0.0)
+    };
     let classify = matches!(plan.task, Task::Classify { .. });
     let mut fixed_probs = None;
     let fixed = if s.design == Design::Fixed {
@@ -442,27 +449,33 @@ fn prepare_inner(plan: &Plan) -> Result<Prepared, Error> {
     if classify {
         let probs = s.process.probs_at(eval_x.view())?;
         let bayes = Array1::from_iter(probs.rows().into_iter().map(|r| argmax(r) as f64));
-        Ok(Prepared {
-            eval_x,
-            eval_truth: bayes,
-            eval_sd: Array1::zeros(m),
-            eval_probs: Some(probs),
-            fixed,
-            fixed_probs,
-            table: None,
-        })
+        Ok((
+            Prepared {
+                eval_x,
+                eval_truth: bayes,
+                eval_sd: Array1::zeros(m),
+                eval_probs: Some(probs),
+                fixed,
+                fixed_probs,
+                table: None,
+            },
+            far,
+        ))
     } else {
         let eval_truth = s.process.truth_at(eval_x.view())?;
         let eval_sd = s.process.sd_at(eval_x.view())?;
-        Ok(Prepared {
-            eval_x,
-            eval_truth,
-            eval_sd,
-            eval_probs: None,
-            fixed,
-            fixed_probs,
-            table: None,
-        })
+        Ok((
+            Prepared {
+                eval_x,
+                eval_truth,
+                eval_sd,
+                eval_probs: None,
+                fixed,
+                fixed_probs,
+                table: None,
+            },
+            far,
+        ))
     }
 }
 

@@ -994,8 +994,7 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
             t.path.display()
         )));
     }
-    let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
-    let fold = crate::rng::fold_assignment(n, folds, &mut rng);
+    let fold = cv_folds(n, seed);
     let min_train = crate::rng::smallest_training_fold(&fold, folds);
     let ks: Vec<usize> = K_CANDIDATES
         .iter()
@@ -1092,6 +1091,13 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
     })
 }
 
+/// The folds of [`fit`]'s cross-validation (`CV_FOLDS`, at most one per row), from the twin's
+/// seed; [`calibrate_temperature`] repeats that cross-validation on drawn labels.
+fn cv_folds(n: usize, seed: u64) -> Vec<usize> {
+    let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
+    crate::rng::fold_assignment(n, CV_FOLDS.min(n), &mut rng)
+}
+
 /// Sharpens class probabilities in place: `p_c ∝ p_c^(1/τ)`, computed on the logarithms so
 /// that small shares do not underflow (`τ = 1` leaves them as they are; every `p_c > 0`).
 pub fn sharpen(p: &mut [f64], tau: f64) {
@@ -1151,28 +1157,34 @@ pub fn calibrate_temperature(t: &Table, fit: &TwinFit, seed: u64, tau_min: f64) 
         };
     }
     let k = fit.k;
-    let folds = CV_FOLDS.min(n);
-    let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
-    let fold = crate::rng::fold_assignment(n, folds, &mut rng);
+    // The shares of the reference the scenario records (its own code, as `run` refits it).
+    let Ok(reference) = Reference::fit(
+        t.x.view(),
+        t.y.view(),
+        classes,
+        &Choice::knn(k, true),
+        false,
+        "",
+    ) else {
+        return Temperature {
+            tau: 1.0,
+            observed,
+            at_one: f64::NAN,
+            at_tau: f64::NAN,
+        };
+    };
+    // Each row's neighbours in the cross-validation that gave `fit.quality` (its folds).
+    let fold = cv_folds(n, seed);
     let index = NeighbourIndex::new(t.x.view(), true);
     let mut scratch = Scratch::default();
     let mut buf: Vec<usize> = Vec::with_capacity(k + 1);
-    // Each row's cross-validation neighbours, and its shares under the reference (its k
-    // nearest rows, itself among them, as the twin's reference has them).
     let mut cv: Vec<Vec<usize>> = Vec::with_capacity(n);
     let mut shares = vec![0.0; n * classes];
     for i in 0..n {
         let q = t.x.row(i).to_vec();
         index.nearest_excluding(&q, k, |j| fold[j] == fold[i], &mut scratch, &mut buf);
         cv.push(buf.clone());
-        index.nearest(&q, k, &mut scratch, &mut buf);
-        let row = &mut shares[i * classes..(i + 1) * classes];
-        row.iter_mut().for_each(|p| *p = 1.0);
-        for &j in &buf {
-            row[t.y[j] as usize] += 1.0;
-        }
-        let total = buf.len() as f64 + classes as f64;
-        row.iter_mut().for_each(|p| *p /= total);
+        reference.probs_at(&q, &mut shares[i * classes..(i + 1) * classes]);
     }
     let mut draw = crate::rng::stream(seed, crate::rng::purpose::TWIN_BOOT, TEMPERATURE_STREAM);
     let u: Vec<f64> = (0..TEMPERATURE_DRAWS * n)
