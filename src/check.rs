@@ -503,6 +503,54 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                 crate::fmt::fmt_exact(p.get("noise"))
             ));
         }
+        // Each term within the range its definition allows (a negative variance, a share of
+        // votes above 1, a fractional count were plotted and compared with exit 0).
+        let scale = p.expected_loss().abs();
+        for (k, v) in &p.terms {
+            let (lo, hi) = loss.range(k, observed);
+            let tol = 1e-9 * (scale + v.abs()) + 1e-300;
+            if v.is_finite() && (*v < lo - tol || *v > hi + tol) {
+                return Err(format!(
+                    "{}: `{}` is {}, outside [{}, {}], where the {} loss's `{}` lies by its \
+                     definition; {EDITED}",
+                    at(i),
+                    crate::fmt::clip(k, 40),
+                    crate::fmt::fmt_exact(*v),
+                    crate::fmt::fmt_exact(lo),
+                    crate::fmt::fmt_exact(hi),
+                    doc.loss,
+                    crate::fmt::clip(k, 40)
+                ));
+            }
+            if k == "unstable_points" && v.is_finite() && v.fract() != 0.0 {
+                return Err(format!(
+                    "{}: `unstable_points` is {}, and a count is a whole number; {EDITED}",
+                    at(i),
+                    crate::fmt::fmt_exact(*v)
+                ));
+            }
+        }
+        // An interval holds its own estimate (the bootstrap percentile interval widened to
+        // ± 2 SE around it).
+        for (k, (lo, hi)) in &p.interval {
+            let v = p.get(k);
+            let tol = 1e-9 * (v.abs() + lo.abs() + hi.abs());
+            if lo.is_finite()
+                && hi.is_finite()
+                && v.is_finite()
+                && !(*lo - tol <= v && v <= *hi + tol)
+            {
+                return Err(format!(
+                    "{}: `interval95.{}` is [{}, {}], which does not hold the row's estimate {}; \
+                     {EDITED}",
+                    at(i),
+                    crate::fmt::clip(k, 40),
+                    crate::fmt::fmt_exact(*lo),
+                    crate::fmt::fmt_exact(*hi),
+                    crate::fmt::fmt_exact(v)
+                ));
+            }
+        }
         let shape = row_shape(doc, p, observed);
         // A table's unknown noise is not reported (classification and count losses fold it into
         // the bias): it enters their identities as 0.
@@ -1101,7 +1149,8 @@ impl fmt::Display for CheckReport {
         if self.mode == Mode::Paired {
             if let Some(r) = self.se_ratio() {
                 rule.push_str(&format!(
-                    "; paired standard errors are {r:.2} of the unpaired ones (median)"
+                    "; paired standard errors are {} of the unpaired ones (median)",
+                    crate::fmt::fmt_num(r)
                 ));
             }
         }

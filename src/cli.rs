@@ -146,7 +146,8 @@ pub struct TwinArgs {
     pub eval_size: usize,
     /// Reference candidate: `best` (highest cross-validated R²; the polynomial only when it
     /// removes at least a tenth of the best other candidate's held-out error), `knn`, `forest`, `loclin`,
-    /// `poly` or `blend`.
+    /// `poly` or `blend`. With --classes: `best` (lowest cross-validated log-loss), `knn` (k-NN
+    /// shares), `logit` (logistic polynomial) or `tree` (probability tree).
     #[arg(long, default_value = "best", value_name = "NAME")]
     pub reference: String,
     /// Noise estimator: `gsjs` (one input), `plane`, `gamma` or `nn` (default: gsjs with one

@@ -118,7 +118,36 @@ struct Docs {
     result: Vec<u8>,
     /// The holdout ledger after one assessment of the holdout table scenario.
     ledger: Vec<u8>,
+    /// A result document of a small 0-1 loss scenario with bootstrap intervals.
+    zero_one: Vec<u8>,
 }
+
+/// A small two-class scenario whose 0-1 result carries bootstrap intervals.
+const ZERO_ONE: &str = r#"name = "tiny classes"
+seed = 2
+replicates = 8
+blocks = 4
+
+[data]
+source = "synthetic"
+train_size = 30
+eval_size = 12
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.classes]
+labels = ["a", "b"]
+probability = "0.2 + 0.6*(x > 0.5)"
+
+[model]
+family = "tree"
+grid = [1, 2]
+
+[loss]
+kind = "zero_one"
+"#;
 
 fn run_ok(dir: &Path, args: &[&str]) {
     let out = Command::new(bin())
@@ -163,6 +192,8 @@ fn make_docs() -> Docs {
     fs::write(dir.join("h.toml"), table_scenario("holdout = 0.25", TREE)).unwrap();
     fs::write(dir.join("t.csv"), good_csv()).unwrap();
     run_ok(dir, &["run", "h.toml", "--assess", "2"]);
+    fs::write(dir.join("z.toml"), ZERO_ONE).unwrap();
+    run_ok(dir, &["run", "z.toml", "--out", "z.json", "-q"]);
     let r = |n: &str| fs::read(dir.join(n)).unwrap();
     Docs {
         part1: r("p1.json"),
@@ -170,6 +201,7 @@ fn make_docs() -> Docs {
         checkpoint: r("ck.json"),
         result: r("r.json"),
         ledger: r("h.holdout-ledger.json"),
+        zero_one: r("z.json"),
     }
 }
 
@@ -3113,6 +3145,76 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         })
     };
     let (high, low) = (extreme(1.0), extreme(-1.0));
+    // Terms outside the range their definition allows were plotted and compared with exit 0:
+    // a negative variance or direct loss, a share above 1, a count that is negative or
+    // fractional, an interval that excludes its own estimate.
+    let set = |doc: &[u8], key: &'static str, value: serde_json::Value| {
+        edit_json(doc, |v| {
+            let p = &mut v["points"][0];
+            let mut at = &mut *p;
+            let parts: Vec<&str> = key.split('.').collect();
+            for k in &parts[..parts.len() - 1] {
+                at = &mut at[*k];
+            }
+            at[*parts.last().unwrap()] = value;
+        })
+    };
+    for (name, doc, needle) in [
+        (
+            "squared: negative expected_loss_direct",
+            set(
+                &docs.result,
+                "expected_loss_direct",
+                serde_json::json!(-5.0),
+            ),
+            "`expected_loss_direct` is -5, outside [0, inf]",
+        ),
+        (
+            "0-1: expected_loss_direct above 1",
+            set(
+                &docs.zero_one,
+                "expected_loss_direct",
+                serde_json::json!(7.0),
+            ),
+            "outside [0, 1]",
+        ),
+        (
+            "0-1: negative Kohavi-Wolpert variance",
+            set(
+                &docs.zero_one,
+                "kohavi_wolpert.variance",
+                serde_json::json!(-0.79),
+            ),
+            "`kohavi_wolpert.variance` is -0.79, outside [0, 1]",
+        ),
+        (
+            "0-1: negative unstable points",
+            set(&docs.zero_one, "unstable_points", serde_json::json!(-3)),
+            "`unstable_points` is -3",
+        ),
+        (
+            "0-1: fractional unstable points",
+            set(&docs.zero_one, "unstable_points", serde_json::json!(2.5)),
+            "a count is a whole number",
+        ),
+        (
+            "0-1: an interval that excludes its estimate",
+            set(
+                &docs.zero_one,
+                "interval95.bias",
+                serde_json::json!([0.999, 1.0]),
+            ),
+            "which does not hold the row's estimate",
+        ),
+    ] {
+        t.add(
+            g,
+            format!("plot: {name}"),
+            &[("r.json", &doc)],
+            &["plot", "r.json", "--out", "r.html"],
+            needle,
+        );
+    }
     // Standard output keeps no baseline: the document was printed and "created" said, exit 0.
     t.add(
         g,
@@ -3724,6 +3826,43 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             &format!("{flag} applies to a regression twin"),
         );
     }
+    // The classification references are refused for a regression twin, and one that cannot
+    // be fitted on a tiny table is named.
+    for reference in ["logit", "tree"] {
+        t.add(
+            g,
+            format!("twin --reference {reference} without --classes"),
+            &[("t.csv", good_csv().as_bytes())],
+            &["twin", "t.csv", "--target", "y", "--reference", reference],
+            "is a classification reference (with --classes)",
+        );
+    }
+    let mut tiny_classes = String::from("a,b,c,d,y\n");
+    for i in 0..8 {
+        tiny_classes.push_str(&format!(
+            "{},{},{},{},{}\n",
+            i % 7,
+            i % 5,
+            i % 3,
+            i * i % 11,
+            ["u", "v"][i % 2]
+        ));
+    }
+    t.add(
+        g,
+        "twin --classes --reference logit on 8 rows of 4 inputs",
+        &[("t.csv", tiny_classes.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--classes",
+            "--reference",
+            "logit",
+        ],
+        "--reference logit cannot be fitted on this table",
+    );
     // The loader's advice names the command's options, not a scenario's keys.
     let mut ramp = String::from("a,y\n");
     for i in 0..40 {
@@ -4885,6 +5024,40 @@ fn external_cases(t: &mut Table) {
             "an input",
         );
     }
+    // ... and so is a module run with `-m` (`python3 -m m` runs m.py, `-m est` a package's
+    // __main__.py): `--csv` replaced it, exit 0.
+    let module = sc(
+        "family = \"tree\"\ngrid = [1, 2]",
+        "family = \"external\"\ncommand = [\"python3\", \"-m\", \"m\", \"fit\"]\nknob = \"k\"\ngrid = [1, 2]",
+    );
+    for (flag, target) in [
+        ("--csv", "m.py"),
+        ("--points", "m.py"),
+        ("--csv", "est/__main__.py"),
+    ] {
+        t.add(
+            g,
+            format!("{flag} names the source of a module run with -m ({target})"),
+            &[
+                (
+                    "s.toml",
+                    module
+                        .replace(
+                            "\"m\", \"fit\"",
+                            if target == "m.py" {
+                                "\"m\", \"fit\""
+                            } else {
+                                "\"est\", \"fit\""
+                            },
+                        )
+                        .as_bytes(),
+                ),
+                (target, PY_MODEL.as_bytes()),
+            ],
+            &["run", "s.toml", flag, target, "-q"],
+            "an input",
+        );
+    }
     let missing = sc(
         "family = \"tree\"\ngrid = [1, 2]",
         "family = \"external\"\ncommand = [\"./no-such-program\"]\nknob = \"k\"\ngrid = [1, 2]",
@@ -4984,6 +5157,9 @@ fn run_case(c: &Case, have_python: bool) -> (Verdict, String) {
     let d = tempfile::tempdir().unwrap();
     let dir = d.path();
     for (name, bytes) in &c.files {
+        if let Some(parent) = Path::new(name).parent() {
+            fs::create_dir_all(dir.join(parent)).unwrap();
+        }
         fs::write(dir.join(name), bytes).unwrap();
     }
     match &c.extra {

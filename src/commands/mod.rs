@@ -1171,10 +1171,18 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         "best" => Rule::Best,
         other => Rule::Only(Candidate::from_name(other).ok_or_else(|| {
             Error::Usage(format!(
-                "--reference: unknown `{other}`; expected best, knn, forest, loclin, poly or blend"
+                "--reference: unknown `{other}`; expected best, knn, forest, loclin, poly or blend \
+                 (with --classes: best, knn, logit or tree)"
             ))
         })?),
     };
+    if !a.classes && matches!(a.reference.as_str(), "logit" | "tree") {
+        return Err(Error::Usage(format!(
+            "--reference {} is a classification reference (with --classes); a regression twin's \
+             is best, knn, forest, loclin, poly or blend",
+            a.reference
+        )));
+    }
     let noise_estimator = match &a.noise_estimator {
         None => None,
         Some(s) => Some(crate::dataset::noise::Method::from_name(s).ok_or_else(|| {
@@ -1244,7 +1252,7 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
             Some("--varying")
         } else if a.noise_estimator.is_some() {
             Some("--noise-estimator")
-        } else if !matches!(a.reference.as_str(), "best" | "knn") {
+        } else if !matches!(a.reference.as_str(), "best" | "knn" | "logit" | "tree") {
             Some("--reference")
         } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER && a.jitter != 0.0 {
             // 0 is what a classification twin does anyway: its rows as they are.
@@ -1265,8 +1273,8 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         };
         if let Some(flag) = unused {
             return Err(Error::Usage(format!(
-                "{flag} applies to a regression twin; with --classes the reference is k-NN class \
-                 shares and the rows are resampled as they are; drop one of the two"
+                "{flag} applies to a regression twin; with --classes the reference gives class \
+                 probabilities and the rows are resampled as they are; drop one of the two"
             )));
         }
     }

@@ -150,6 +150,20 @@ fn argmax_first(xs: &[f64]) -> usize {
 }
 
 impl Loss for Brier {
+    /// Means of squares and unbiased variances are never negative (the unbiased squared bias
+    /// and `variance_data` can be).
+    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+        match key {
+            "expected_loss"
+            | "expected_loss_direct"
+            | "variance"
+            | "diversity"
+            | "member_variance"
+            | "member_loss" => (0.0, f64::INFINITY),
+            _ => self.bounds(key),
+        }
+    }
+
     fn name(&self) -> &'static str {
         "brier"
     }

@@ -172,6 +172,14 @@ pub fn point(acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Option<LogPo
 }
 
 impl Loss for LogLoss {
+    /// Means of squares and divergences are never negative.
+    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+        match key {
+            "expected_loss" | "expected_loss_direct" | "variance" | "bias" => (0.0, f64::INFINITY),
+            _ => self.bounds(key),
+        }
+    }
+
     fn name(&self) -> &'static str {
         "log"
     }

@@ -368,6 +368,13 @@ pub trait Loss: Send + Sync {
         (f64::NEG_INFINITY, f64::INFINITY)
     }
 
+    /// The range a reported term's value cannot leave in any run (`observed`: a table source),
+    /// which `check` holds edited result documents to: [`Loss::bounds`] and, per loss, the terms
+    /// that are means of squares or divergences (≥ 0). Default: [`Loss::bounds`].
+    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+        self.bounds(key)
+    }
+
     /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
     /// label columns are written as class indices.
     fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64>;

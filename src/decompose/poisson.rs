@@ -212,6 +212,14 @@ fn noise_terms(target: &Target<'_>, points: usize) -> Vec<f64> {
 }
 
 impl Loss for Poisson {
+    /// Means of squares and divergences are never negative.
+    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+        match key {
+            "expected_loss" | "expected_loss_direct" | "variance" | "bias" => (0.0, f64::INFINITY),
+            _ => self.bounds(key),
+        }
+    }
+
     fn name(&self) -> &'static str {
         "poisson"
     }

@@ -192,6 +192,20 @@ pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
 }
 
 impl Loss for Squared {
+    /// Means of squares and unbiased variances are never negative (the unbiased squared bias,
+    /// `(m − f)² − V̂/R`, and `variance_data` can be).
+    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+        match key {
+            "expected_loss"
+            | "expected_loss_direct"
+            | "variance"
+            | "diversity"
+            | "member_variance"
+            | "member_loss" => (0.0, f64::INFINITY),
+            _ => self.bounds(key),
+        }
+    }
+
     fn name(&self) -> &'static str {
         "squared"
     }

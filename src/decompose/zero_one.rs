@@ -890,6 +890,21 @@ impl Loss for ZeroOne {
     /// James' systematic effect (the Bayes class's probability minus the main prediction's) lie
     /// in [0, 1]; the net variance and James' variance effect (differences of two shares) in
     /// [−1, 1].
+    /// Shares, losses and the Kohavi–Wolpert noise and variance lie in [0, 1] (its squared bias,
+    /// corrected by the unbiased sum of squared vote shares, can be below 0); the unstable points
+    /// are a count (checked as such by `check`).
+    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+        match key {
+            "expected_loss"
+            | "expected_loss_direct"
+            | "noise"
+            | "kohavi_wolpert.noise"
+            | "kohavi_wolpert.variance" => (0.0, 1.0),
+            "unstable_points" => (0.0, f64::INFINITY),
+            _ => self.bounds(key),
+        }
+    }
+
     fn bounds(&self, key: &str) -> (f64, f64) {
         match key {
             "bias"

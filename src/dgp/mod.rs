@@ -320,7 +320,8 @@ pub enum ClassKind {
         /// Flip probability.
         flip: f64,
     },
-    /// A twin's reference fit: neighbour shares with add-one smoothing.
+    /// A twin's reference fit: k-NN shares with add-one smoothing, a logistic polynomial or a
+    /// probability tree ([`reference::Reference::probs_at`]).
     Reference(std::sync::Arc<reference::Reference>),
 }
 

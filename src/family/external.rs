@@ -952,17 +952,38 @@ impl Family for ExternalFamily {
     }
 
     /// Every word of the command that names an existing file, from the folder the processes
-    /// start in (the program when given as a path, a script, a model file it loads).
+    /// start in (the program when given as a path, a script, a model file it loads), and the
+    /// source of a module run with `-m` (`python3 -m pkg.est`: `pkg/est.py`, or the package's
+    /// `__init__.py` and `__main__.py`), which the interpreter finds from that folder too.
     fn input_files(&self) -> Vec<PathBuf> {
         self.input_files_in(&self.dir.clone().unwrap_or_default())
     }
 
     fn input_files_in(&self, folder: &Path) -> Vec<PathBuf> {
-        self.command
+        let mut out: Vec<PathBuf> = self
+            .command
             .iter()
             .map(|w| folder.join(w))
             .filter(|p| p.is_file())
-            .collect()
+            .collect();
+        for pair in self.command.windows(2) {
+            if pair[0] != "-m" || pair[1].starts_with('-') || pair[1].contains('/') {
+                continue;
+            }
+            let module = folder.join(pair[1].replace('.', "/"));
+            let mut with_py = module.clone().into_os_string();
+            with_py.push(".py");
+            for f in [
+                PathBuf::from(with_py),
+                module.join("__init__.py"),
+                module.join("__main__.py"),
+            ] {
+                if f.is_file() && !out.contains(&f) {
+                    out.push(f);
+                }
+            }
+        }
+        out
     }
 
     /// Any non-empty grid of finite numbers: the process judges its own knob values (it answers

@@ -256,6 +256,44 @@ impl PolyFit {
     }
 }
 
+/// The family's polynomial basis of total degree `degree`, scaled on the rows it was built
+/// from (each input mapped to [-1, 1] by its range there; tensor-product Legendre
+/// polynomials), for fits other than least squares: the logistic-polynomial reference of
+/// classification twins ([`crate::dgp::reference::classes`]). Column 0 is the constant.
+#[derive(Debug, Clone)]
+pub struct Basis {
+    degree: usize,
+    scaler: Scaler,
+    exps: Vec<Vec<u8>>,
+}
+
+impl Basis {
+    /// The basis of total degree `degree` (at most [`MAX_DEGREE`]) scaled on rows `x`.
+    pub fn on(x: ArrayView2<'_, f64>, degree: usize) -> Basis {
+        let degree = degree.min(MAX_DEGREE);
+        Basis {
+            degree,
+            scaler: Scaler::from_training(x),
+            exps: graded_exponents(x.ncols(), degree),
+        }
+    }
+
+    /// Number of basis columns (the constant included).
+    pub fn len(&self) -> usize {
+        self.exps.len()
+    }
+
+    /// Whether the basis has no column (never: the constant is always there).
+    pub fn is_empty(&self) -> bool {
+        self.exps.is_empty()
+    }
+
+    /// The basis at every row of `x`, column-major (`rows × len`).
+    pub fn matrix(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
+        basis_matrix(x, &self.scaler, &self.exps, self.degree)
+    }
+}
+
 /// Out-of-fold predictions of polynomial least squares at every degree of `degrees`
 /// (ascending), one path fit per fold (`fold[i]` in `0..folds`): `out[g][i]` is row i's
 /// prediction by degree `degrees[g]` fitted on the other folds. A degree with more basis

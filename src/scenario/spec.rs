@@ -68,7 +68,7 @@ pub struct AuditSpec {
 #[derive(Debug, Clone, Deserialize)]
 #[serde(deny_unknown_fields)]
 pub struct ReferenceSpec {
-    /// `knn`, `forest`, `loclin`, `poly` or `blend`.
+    /// `knn`, `forest`, `loclin`, `poly` or `blend`; classes: `knn`, `logit` or `tree`.
     pub family: Spanned<String>,
     /// Number of neighbours of the k-NN part (knn, a blend with a k-NN weight, classes, varying
     /// noise).
@@ -105,6 +105,12 @@ pub struct ReferenceSpec {
     /// multiplied by them before any distance).
     #[serde(default)]
     pub metric: Option<Spanned<Vec<f64>>>,
+    /// Classes, `family = "logit"`: the ridge penalty (its degree is `degree`).
+    #[serde(default)]
+    pub ridge: Option<Spanned<f64>>,
+    /// Classes, `family = "tree"`: the probability tree's depth (with `min_leaf` and `seed`).
+    #[serde(default)]
+    pub depth: Option<Spanned<i64>>,
 }
 
 /// One number per reference candidate (`{ knn = .., forest = .., loclin = .., blend = .. }`).

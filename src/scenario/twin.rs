@@ -220,12 +220,44 @@ fn choice_of(
             ),
         ));
     };
+    if matches!(family, Candidate::Logit | Candidate::Tree) {
+        if classes == 0 {
+            return Err(err(
+                fam_span,
+                "data.reference.family",
+                format!(
+                    "`{}` is a classification reference; a regression twin's is `knn`, \
+                     `forest`, `loclin`, `poly` or `blend`",
+                    family.name()
+                ),
+            ));
+        }
+        return class_choice_of(r, family, rows, inputs, classes, err);
+    }
     if classes > 0 && family != Candidate::Knn {
         return Err(err(
             fam_span,
             "data.reference.family",
-            "a classification twin's reference is `knn` (neighbour shares)".into(),
+            "a classification twin's reference is `knn` (neighbour shares), `logit` (logistic \
+             polynomial) or `tree` (probability tree)"
+                .into(),
         ));
+    }
+    for (span, key) in [
+        (r.ridge.as_ref().map(|v| v.span()), "ridge"),
+        (r.depth.as_ref().map(|v| v.span()), "depth"),
+    ] {
+        if let Some(span) = span {
+            return Err(err(
+                span,
+                &format!("data.reference.{key}"),
+                format!(
+                    "belongs to a classification reference (`family = \"{}\"`), not `{}`: remove it",
+                    if key == "ridge" { "logit" } else { "tree" },
+                    family.name()
+                ),
+            ));
+        }
     }
     let weights = match (&r.weights, family) {
         (Some(w), Candidate::Blend) => {
@@ -270,26 +302,12 @@ fn choice_of(
         (None, Candidate::Forest) => [0.0, 1.0, 0.0, 0.0],
         (None, Candidate::LocLin) => [0.0, 0.0, 1.0, 0.0],
         (None, Candidate::Poly) => [0.0, 0.0, 0.0, 1.0],
+        // Returned by `class_choice_of` above.
+        (None, Candidate::Logit | Candidate::Tree) => [0.0; 4],
     };
-    let need = |key: &str| {
-        err(
-            fam_span.clone(),
-            &format!("data.reference.{key}"),
-            format!("`family = \"{}\"` needs `{key}`", family.name()),
-        )
-    };
-    let whole = |v: &toml::Spanned<i64>, key: &str, lo: i64, hi: i64| {
-        let x = *v.get_ref();
-        if x < lo || x > hi {
-            Err(err(
-                v.span(),
-                &format!("data.reference.{key}"),
-                format!("must be between {lo} and {hi}, got {x}"),
-            ))
-        } else {
-            Ok(x)
-        }
-    };
+    let need = |key: &str| needs_key(&fam_span, family, key, err);
+    let whole =
+        |v: &toml::Spanned<i64>, key: &str, lo: i64, hi: i64| whole_key(v, key, lo, hi, err);
     // A knob of a part the recipe gives no weight is never read: refused, as a hand edit that
     // would otherwise change nothing (a `degree` on a k-NN recipe was accepted).
     let unused = |given: Option<std::ops::Range<usize>>, key: &str, part: &str, w: f64| match given
@@ -441,6 +459,8 @@ fn choice_of(
         }
     };
     Ok(Choice {
+        ridge: None,
+        tree: None,
         metric,
         family,
         standardize,
@@ -452,6 +472,140 @@ fn choice_of(
         cv_r2,
         twice,
     })
+}
+
+/// The error for a recipe of `family` that lacks `data.reference.{key}`.
+fn needs_key(
+    fam_span: &std::ops::Range<usize>,
+    family: Candidate,
+    key: &str,
+    err: &dyn Fn(std::ops::Range<usize>, &str, String) -> ScenarioError,
+) -> ScenarioError {
+    err(
+        fam_span.clone(),
+        &format!("data.reference.{key}"),
+        format!("`family = \"{}\"` needs `{key}`", family.name()),
+    )
+}
+
+/// `data.reference.{key}`'s whole number, held to `lo..=hi`.
+fn whole_key(
+    v: &toml::Spanned<i64>,
+    key: &str,
+    lo: i64,
+    hi: i64,
+    err: &dyn Fn(std::ops::Range<usize>, &str, String) -> ScenarioError,
+) -> Result<i64, ScenarioError> {
+    let x = *v.get_ref();
+    if x < lo || x > hi {
+        Err(err(
+            v.span(),
+            &format!("data.reference.{key}"),
+            format!("must be between {lo} and {hi}, got {x}"),
+        ))
+    } else {
+        Ok(x)
+    }
+}
+
+/// The recipe of a classification reference other than k-NN (`logit`: `degree` and `ridge`;
+/// `tree`: `depth`, `min_leaf` and `seed`), every other key refused. Errors name the key.
+fn class_choice_of(
+    r: &ReferenceSpec,
+    family: Candidate,
+    rows: usize,
+    inputs: usize,
+    classes: usize,
+    err: &dyn Fn(std::ops::Range<usize>, &str, String) -> ScenarioError,
+) -> Result<Choice, ScenarioError> {
+    let fam_span = r.family.span();
+    let logit = family == Candidate::Logit;
+    let allowed: &[&str] = if logit {
+        &["degree", "ridge"]
+    } else {
+        &["depth", "min_leaf", "seed"]
+    };
+    let given = [
+        ("k", r.k.as_ref().map(|v| v.span())),
+        ("standardize", r.standardize.map(|_| fam_span.clone())),
+        ("trees", r.trees.as_ref().map(|v| v.span())),
+        ("min_leaf", r.min_leaf.as_ref().map(|v| v.span())),
+        ("seed", r.seed.as_ref().map(|v| v.span())),
+        ("bandwidth", r.bandwidth.as_ref().map(|v| v.span())),
+        ("degree", r.degree.as_ref().map(|v| v.span())),
+        ("weights", r.weights.as_ref().map(|v| v.span())),
+        ("cv_r2", r.cv_r2.as_ref().map(|_| fam_span.clone())),
+        ("twice", r.twice.map(|_| fam_span.clone())),
+        ("metric", r.metric.as_ref().map(|v| v.span())),
+        ("ridge", r.ridge.as_ref().map(|v| v.span())),
+        ("depth", r.depth.as_ref().map(|v| v.span())),
+    ];
+    for (key, span) in given {
+        if let Some(span) = span {
+            if !allowed.contains(&key) {
+                return Err(err(
+                    span,
+                    &format!("data.reference.{key}"),
+                    format!(
+                        "`family = \"{}\"` takes {}: remove `{key}`",
+                        family.name(),
+                        allowed
+                            .iter()
+                            .map(|k| format!("`{k}`"))
+                            .collect::<Vec<_>>()
+                            .join(", ")
+                    ),
+                ));
+            }
+        }
+    }
+    let need = |key: &str| needs_key(&fam_span, family, key, err);
+    let whole =
+        |v: &toml::Spanned<i64>, key: &str, lo: i64, hi: i64| whole_key(v, key, lo, hi, err);
+    if logit {
+        let d = r.degree.as_ref().ok_or_else(|| need("degree"))?;
+        let degree = whole(d, "degree", 1, crate::family::poly::MAX_DEGREE as i64)? as usize;
+        let cols = crate::family::poly::n_basis(inputs, degree);
+        let most = crate::dgp::reference::classes::MAX_LOGIT_PARAMS;
+        if !cols.is_some_and(|c| c <= rows && c * (classes - 1) <= most) {
+            return Err(err(
+                d.span(),
+                "data.reference.degree",
+                format!(
+                    "degree {degree} with {inputs} input(s) and {classes} classes needs more \
+                     coefficients than the table's {rows} rows or the {most} a logistic \
+                     polynomial may have"
+                ),
+            ));
+        }
+        let rg = r.ridge.as_ref().ok_or_else(|| need("ridge"))?;
+        let ridge = *rg.get_ref();
+        if !(ridge.is_finite() && ridge > 0.0) {
+            return Err(err(
+                rg.span(),
+                "data.reference.ridge",
+                format!(
+                    "must be a finite number > 0, got {}",
+                    crate::fmt::fmt_exact(ridge)
+                ),
+            ));
+        }
+        return Ok(Choice::logit(degree, ridge));
+    }
+    let (Some(d), Some(l), Some(sd)) = (&r.depth, &r.min_leaf, &r.seed) else {
+        return Err(need(if r.depth.is_none() {
+            "depth"
+        } else if r.min_leaf.is_none() {
+            "min_leaf"
+        } else {
+            "seed"
+        }));
+    };
+    Ok(Choice::tree(crate::dgp::reference::TreeParams {
+        depth: whole(d, "depth", 1, 64)? as usize,
+        min_leaf: whole(l, "min_leaf", 1, rows.max(1) as i64)? as usize,
+        seed: whole(sd, "seed", 0, i64::MAX)? as u64,
+    }))
 }
 
 /// The first number of `[data.fit_report]` that is not finite, with its key (`noise.value`,

@@ -24,11 +24,14 @@
 //! removes the variance of the k-neighbour mean from a leave-one-out residual under constant
 //! noise (E[(y_i − f̂_{−i}(x_i))²] = σ²(1 + 1/k) + bias²).
 //!
-//! **Classes**: the reference's class probabilities are the neighbour shares with add-one
-//! smoothing, `(count_c + 1) / (k + K)`, so no probability is exactly 0 and the twin's labels
-//! keep some noise everywhere; k is chosen by the cross-validated Brier score and the quality
-//! printed is the cross-validated accuracy of the most probable class.
+//! **Classes**: three references, compared by cross-validated log-loss on the same folds
+//! (`commands::twin::class_reference`): the neighbour shares with add-one smoothing,
+//! `(count_c + 1) / (k + K)`, so no probability is exactly 0 and the twin's labels keep some
+//! noise everywhere (k chosen by the cross-validated Brier score, [`fit`]); and the logistic
+//! polynomial and probability tree of [`classes`]. The quality printed is the cross-validated
+//! accuracy of the most probable class.
 
+pub mod classes;
 pub mod forest;
 pub mod loclin;
 pub mod select;
@@ -78,6 +81,10 @@ pub enum Candidate {
     Poly,
     /// Non-negative blend of the others.
     Blend,
+    /// Classes: logistic polynomial ([`classes::Logit`]; `degree` and `ridge`).
+    Logit,
+    /// Classes: probability tree ([`classes::ProbTree`]; `depth`, `min_leaf`, `seed`).
+    Tree,
 }
 
 impl Candidate {
@@ -89,6 +96,8 @@ impl Candidate {
             Candidate::LocLin => "loclin",
             Candidate::Poly => "poly",
             Candidate::Blend => "blend",
+            Candidate::Logit => "logit",
+            Candidate::Tree => "tree",
         }
     }
 
@@ -100,6 +109,8 @@ impl Candidate {
             "loclin" => Some(Candidate::LocLin),
             "poly" => Some(Candidate::Poly),
             "blend" => Some(Candidate::Blend),
+            "logit" => Some(Candidate::Logit),
+            "tree" => Some(Candidate::Tree),
             _ => None,
         }
     }
@@ -117,6 +128,11 @@ impl Candidate {
             Candidate::Blend => {
                 "non-negative stacked blend of k-NN, bagged trees and local-linear (Breiman 1996)"
             }
+            Candidate::Logit => {
+                "logistic polynomial: multinomial logistic regression on the polynomial basis, \
+                 ridge-penalized"
+            }
+            Candidate::Tree => "probability tree: Gini CART with add-one leaf shares",
         }
     }
 }
@@ -153,6 +169,21 @@ pub struct Choice {
     /// Boularias, Schultz and Kim 2016, *JMLR* 17, from memory; chosen in [`select`]). `None`:
     /// every input counts alike. Needs `standardize`.
     pub metric: Option<Vec<f64>>,
+    /// Classes, the logistic polynomial: its ridge penalty (its degree is `degree`).
+    pub ridge: Option<f64>,
+    /// Classes, the probability tree: depth, smallest leaf and the seed of its tie draws.
+    pub tree: Option<TreeParams>,
+}
+
+/// The probability tree of a classification reference ([`classes::ProbTree`]).
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct TreeParams {
+    /// Depth (root 0).
+    pub depth: usize,
+    /// Smallest number of rows in each child of a split.
+    pub min_leaf: usize,
+    /// Seed of the stream its exact ties are drawn from.
+    pub seed: u64,
 }
 
 impl Choice {
@@ -169,6 +200,31 @@ impl Choice {
             cv_r2: None,
             twice: false,
             metric: None,
+            ridge: None,
+            tree: None,
+        }
+    }
+
+    /// The logistic polynomial of a classification twin (degree `degree`, ridge `ridge`).
+    pub fn logit(degree: usize, ridge: f64) -> Choice {
+        Choice {
+            family: Candidate::Logit,
+            k: None,
+            degree: Some(degree),
+            weights: [0.0; 4],
+            ridge: Some(ridge),
+            ..Choice::knn(1, true)
+        }
+    }
+
+    /// The probability tree of a classification twin.
+    pub fn tree(params: TreeParams) -> Choice {
+        Choice {
+            family: Candidate::Tree,
+            k: None,
+            weights: [0.0; 4],
+            tree: Some(params),
+            ..Choice::knn(1, true)
         }
     }
 
@@ -286,6 +342,17 @@ impl Choice {
                 }
                 format!("blended reference: {}", parts.join(" + "))
             }
+            Candidate::Logit => format!(
+                "logistic-polynomial reference ({deg}, ridge {})",
+                crate::fmt::fmt_exact(self.ridge.unwrap_or(f64::NAN))
+            ),
+            Candidate::Tree => match self.tree {
+                Some(t) => format!(
+                    "probability-tree reference (depth {}, min_leaf = {}, seed {})",
+                    t.depth, t.min_leaf, t.seed
+                ),
+                None => "probability-tree reference".into(),
+            },
         };
         let plain = match &self.metric {
             Some(w) if self.weights[0] > 0.0 || self.weights[2] > 0.0 => {
@@ -372,6 +439,8 @@ pub struct Reference {
     forest: Option<Forest>,
     loclin: Option<LocLin>,
     poly: Option<PolyFit>,
+    logit: Option<classes::Logit>,
+    ptree: Option<classes::ProbTree>,
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
@@ -424,7 +493,7 @@ impl Reference {
         }
         let n = x.nrows().max(1);
         let w = choice.weights;
-        let need_knn = w[0] > 0.0 || classes > 0 || varying;
+        let need_knn = w[0] > 0.0 || (classes > 0 && choice.family == Candidate::Knn) || varying;
         let yv = y.to_vec();
         let knn = if need_knn {
             let k = choice
@@ -461,6 +530,31 @@ impl Reference {
         } else {
             None
         };
+        let (logit, ptree) = match (classes, choice.family) {
+            (0, _) => (None, None),
+            (_, Candidate::Knn) => (None, None),
+            (_, Candidate::Logit) => {
+                let (Some(d), Some(r)) = (choice.degree, choice.ridge) else {
+                    return Err("needs `degree` and `ridge`".into());
+                };
+                let labels: Vec<usize> = yv.iter().map(|&v| v as usize).collect();
+                let m = classes::Logit::fit(x, &labels, classes, d, r)
+                    .map_err(|m| format!("the logistic polynomial: {m}"))?;
+                (Some(m), None)
+            }
+            (_, Candidate::Tree) => {
+                let t = choice.tree.ok_or("needs `depth`, `min_leaf` and `seed`")?;
+                let m = classes::ProbTree::fit(x, y, classes, t.depth, t.min_leaf, t.seed)
+                    .map_err(|m| format!("the probability tree: {m}"))?;
+                (None, Some(m))
+            }
+            (_, other) => {
+                return Err(format!(
+                    "a classification twin's reference is `knn`, `logit` or `tree`, not `{}`",
+                    other.name()
+                ))
+            }
+        };
         let mut r = Reference {
             source: source.to_string(),
             path: None,
@@ -472,6 +566,8 @@ impl Reference {
             forest,
             loclin,
             poly,
+            logit,
+            ptree,
             y: yv,
             sq_resid: None,
             var_k: 0,
@@ -638,18 +734,27 @@ impl Reference {
         out
     }
 
-    /// Class probabilities at one input row: neighbour shares with add-one smoothing.
+    /// Class probabilities at one input row: neighbour shares with add-one smoothing (k-NN),
+    /// the logistic polynomial's, or the probability tree's leaf shares; sharpened by the
+    /// temperature.
     pub fn probs_at(&self, row: &[f64], out: &mut [f64]) {
-        let mut buf = Vec::with_capacity(self.k());
-        self.neighbours(row, &mut Scratch::default(), &mut buf);
-        out.iter_mut().for_each(|p| *p = 1.0);
-        for &j in &buf {
-            if let Some(p) = out.get_mut(self.y[j] as usize) {
-                *p += 1.0;
+        if let Some(m) = &self.logit {
+            let x = ArrayView2::from_shape((1, row.len()), row).expect("one row");
+            out.copy_from_slice(&m.probs_rows(x));
+        } else if let Some(t) = &self.ptree {
+            t.probs_at(row, out);
+        } else {
+            let mut buf = Vec::with_capacity(self.k());
+            self.neighbours(row, &mut Scratch::default(), &mut buf);
+            out.iter_mut().for_each(|p| *p = 1.0);
+            for &j in &buf {
+                if let Some(p) = out.get_mut(self.y[j] as usize) {
+                    *p += 1.0;
+                }
             }
+            let total = buf.len() as f64 + out.len() as f64;
+            out.iter_mut().for_each(|p| *p /= total);
         }
-        let total = buf.len() as f64 + out.len() as f64;
-        out.iter_mut().for_each(|p| *p /= total);
         if self.temperature != 1.0 {
             sharpen(out, self.temperature);
         }
@@ -882,6 +987,17 @@ impl Reference {
                 bytes.extend_from_slice(&h.to_bits().to_le_bytes());
             }
         }
+        if let (Candidate::Logit, Some(d), Some(r)) =
+            (self.choice.family, self.choice.degree, self.choice.ridge)
+        {
+            bytes.extend_from_slice(&(d as u64).to_le_bytes());
+            bytes.extend_from_slice(&r.to_bits().to_le_bytes());
+        }
+        if let Some(t) = self.choice.tree {
+            for v in [t.depth as u64, t.min_leaf as u64, t.seed] {
+                bytes.extend_from_slice(&v.to_le_bytes());
+            }
+        }
         if self.choice.twice {
             bytes.extend_from_slice(b"twice");
         }
@@ -977,6 +1093,10 @@ pub struct TwinFit {
     /// k/(k+1) × mean squared cross-validated residual at the chosen k (regression), shown for
     /// comparison with `noise`.
     pub cv_noise: Option<f64>,
+    /// Classes: the cross-validated log-loss of the add-one shares at the chosen k and its
+    /// standard error over rows (the score [`classes::cross_validate`]'s candidates are compared
+    /// on); `None` for regression.
+    pub cv_logloss: Option<(f64, f64)>,
 }
 
 /// Chooses the k-NN reference's k alone by `CV_FOLDS`-fold cross-validation (folds from
@@ -1011,6 +1131,7 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
     // Per row and candidate k: the cross-validated loss term.
     let mut loss = vec![vec![0.0; n]; ks.len()];
     let mut hit = vec![vec![0.0; n]; ks.len()];
+    let mut logloss = vec![vec![0.0; n]; ks.len()];
     let mut buf: Vec<usize> = Vec::with_capacity(n);
     let mut counts = vec![0.0; classes];
     let mut probs = vec![0.0; classes];
@@ -1043,6 +1164,7 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
                     let best =
                         (0..classes).fold(0, |b, cl| if probs[cl] > probs[b] { cl } else { b });
                     hit[next][i] = if best == yi { 1.0 } else { 0.0 };
+                    logloss[next][i] = -probs[yi].ln();
                 }
                 next += 1;
             }
@@ -1057,6 +1179,7 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
         (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / ((v.len() - 1) as f64 * v.len() as f64))
             .sqrt()
     };
+    let cv_logloss = (classes > 0).then(|| (mean(&logloss[bi]), se_of(&logloss[bi])));
     let (quality, quality_stderr, quality_name, noise_est, cv_noise) = if classes == 0 {
         let ym = mean(t.y.as_slice().unwrap_or(&t.y.to_vec()));
         let var = t.y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n as f64;
@@ -1088,12 +1211,13 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
         quality_name,
         noise: noise_est,
         cv_noise,
+        cv_logloss,
     })
 }
 
 /// The folds of [`fit`]'s cross-validation (`CV_FOLDS`, at most one per row), from the twin's
 /// seed; [`calibrate_temperature`] repeats that cross-validation on drawn labels.
-fn cv_folds(n: usize, seed: u64) -> Vec<usize> {
+pub fn cv_folds(n: usize, seed: u64) -> Vec<usize> {
     let mut rng = crate::rng::stream(seed, crate::rng::purpose::TWIN, 0);
     crate::rng::fold_assignment(n, CV_FOLDS.min(n), &mut rng)
 }
@@ -1129,19 +1253,26 @@ pub struct Temperature {
     pub at_tau: f64,
 }
 
-/// Calibrates the temperature of a classification twin's reference (k-NN class shares with
-/// add-one smoothing at `fit.k`, standardized inputs) so that the twin reproduces what the
-/// table shows: the reference's own cross-validated error. The shares average class
-/// probabilities over k neighbours and so pull them toward the middle (a helper study put such
-/// twins' Bayes error 0.07 too high and their curves 23% high, docs/twin-calibration.md §5); a
-/// twin world whose labels are drawn from them makes the same k-NN err more than it does on the
-/// table. For τ in [`tau_min`, 1], labels are drawn at the
-/// table's rows from the sharpened shares ([`TEMPERATURE_DRAWS`] tables, the same uniforms for
-/// every τ) and the same folds and neighbours give their cross-validated error; τ is the value
-/// where that error equals the table's (bisection; 1 when the shares as they are already err no
-/// more than the table). A simulated method of moments (indirect inference: Gouriéroux,
-/// Monfort and Renault 1993, from memory) with one parameter and one moment.
-pub fn calibrate_temperature(t: &Table, fit: &TwinFit, seed: u64, tau_min: f64) -> Temperature {
+/// Calibrates the temperature of a classification twin's reference (the recipe `choice`: k-NN
+/// shares, logistic polynomial or probability tree) so that the twin reproduces what the table
+/// shows: the cross-validated error of a fixed yardstick, the k-NN classifier at `fit.k` on
+/// standardized inputs with `fit`'s folds. Shares that average class probabilities over
+/// neighbours pull them toward the middle (a helper study put such twins' Bayes error 0.07 too
+/// high and their curves 23% high, docs/twin-calibration.md §5); a twin world whose labels are
+/// drawn from them makes the yardstick err more than it does on the table. For τ in
+/// [`tau_min`, 1], labels are drawn at the table's rows from the sharpened probabilities
+/// ([`TEMPERATURE_DRAWS`] tables, the same uniforms for every τ) and the same folds and
+/// neighbours give the yardstick's cross-validated error; τ is the value where that error
+/// equals the table's (bisection; 1 when the probabilities as they are already err no more than
+/// the table). A simulated method of moments (indirect inference: Gouriéroux, Monfort and
+/// Renault 1993, from memory) with one parameter and one moment.
+pub fn calibrate_temperature(
+    t: &Table,
+    fit: &TwinFit,
+    choice: &Choice,
+    seed: u64,
+    tau_min: f64,
+) -> Temperature {
     let n = t.rows();
     let classes = match t.task {
         Task::Classify { classes } => classes,
@@ -1158,14 +1289,7 @@ pub fn calibrate_temperature(t: &Table, fit: &TwinFit, seed: u64, tau_min: f64) 
     }
     let k = fit.k;
     // The shares of the reference the scenario records (its own code, as `run` refits it).
-    let Ok(reference) = Reference::fit(
-        t.x.view(),
-        t.y.view(),
-        classes,
-        &Choice::knn(k, true),
-        false,
-        "",
-    ) else {
+    let Ok(reference) = Reference::fit(t.x.view(), t.y.view(), classes, choice, false, "") else {
         return Temperature {
             tau: 1.0,
             observed,
@@ -1303,6 +1427,8 @@ mod tests {
     #[test]
     fn sharpening_scales_every_knob_a_blend_uses_and_says_so() {
         let cv = Choice {
+            ridge: None,
+            tree: None,
             family: Candidate::Blend,
             standardize: true,
             k: Some(15),
@@ -1557,6 +1683,8 @@ mod tests {
         // A blend with a forest part (not linear in the responses: its trees are refitted to the
         // residuals) is the definition too: the recipe once, plus the recipe on the residuals.
         let blend = Choice {
+            ridge: None,
+            tree: None,
             family: Candidate::Blend,
             standardize: true,
             k: Some(5),

@@ -424,6 +424,8 @@ fn slot(c: Candidate) -> usize {
         Candidate::LocLin => 2,
         Candidate::Poly => 3,
         Candidate::Blend => 4,
+        // Classification references are never scored here (regression only).
+        Candidate::Logit | Candidate::Tree => 4,
     }
 }
 
@@ -694,7 +696,8 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         Candidate::Forest => [0.0, 1.0, 0.0, 0.0],
         Candidate::LocLin => [0.0, 0.0, 1.0, 0.0],
         Candidate::Poly => [0.0, 0.0, 0.0, 1.0],
-        Candidate::Blend => t.weights,
+        // `--reference logit|tree` is refused for regression before the selection.
+        Candidate::Blend | Candidate::Logit | Candidate::Tree => t.weights,
     };
     let cv_r2 = [r2[0].0, r2[1].0, r2[2].0, r2[3].0, r2[4].0];
     // Kept as scored (a forest part ignores it; a blend with no k-NN or local-linear share
@@ -714,6 +717,8 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         cv_r2: Some(cv_r2),
         twice: false,
         metric,
+        ridge: None,
+        tree: None,
     };
     Selection {
         choice,
