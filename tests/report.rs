@@ -1548,6 +1548,49 @@ fn few_rows_per_least_squares_coefficient_are_said() {
     assert!(!fixed.reading.contains("Few rows"), "{}", fixed.reading);
 }
 
+/// Minimum-norm fits near their interpolation threshold (about as many coefficients as
+/// training rows): the reading warns there and only there (their variance has an infinite mean
+/// at the threshold for Gaussian inputs, Belkin, Hsu and Xu 2020, Theorem 1).
+#[test]
+fn minimum_norm_fits_near_the_interpolation_threshold_are_said() {
+    let mut inputs = String::new();
+    for j in 1..=30 {
+        inputs.push_str(&format!(
+            "[[data.inputs]]\nname = \"x{j}\"\nnormal = [0.0, 1.0]\n\n"
+        ));
+    }
+    let src = TINY
+        .replace("train_size = 40", "train_size = 12")
+        .replace(
+            "[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n",
+            &inputs,
+        )
+        .replace("sin(6*x)", "x1 - x2")
+        .replace(
+            "family = \"tree\"\ngrid = [1, 2, 3, 4]",
+            "family = \"minnorm\"\ngrid = [2, 11, 12, 14, 30]",
+        );
+    let (_, _, doc) = run(&src);
+    assert!(
+        doc.reading.contains(
+            "Near the interpolation threshold at features = 11 (11 coefficients, 12 training rows), \
+             features = 12 (12 coefficients, 12 training rows), features = 14 (14 coefficients, \
+             12 training rows)"
+        ),
+        "{}",
+        doc.reading
+    );
+    assert!(!doc.reading.contains("features = 2 ("), "{}", doc.reading);
+    assert!(!doc.reading.contains("features = 30 ("), "{}", doc.reading);
+    let far = src.replace("grid = [2, 11, 12, 14, 30]", "grid = [2, 30]");
+    let (_, _, doc) = run(&far);
+    assert!(
+        !doc.reading.contains("interpolation threshold"),
+        "{}",
+        doc.reading
+    );
+}
+
 /// An input named like a column of the `--points` CSV (`variance`, `value`) is written as
 /// `input_<name>`: the header held `variance` twice, and a reader selecting it by name got the
 /// input.

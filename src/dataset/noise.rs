@@ -75,7 +75,7 @@ impl Method {
             Method::NearestNeighbour => {
                 "nearest-neighbour difference estimator on standardized inputs (Devroye, Györfi, Lugosi, Walk 2018)"
             }
-            Method::Gamma => "Gamma test, k = 1..10 (Stefánsson, Končar, Jones 1997)",
+            Method::Gamma => "Gamma test, k = 1..min(10, n − 1) (Stefánsson, Končar, Jones 1997)",
             Method::Gsjs => "Gasser-Sroka-Jennen-Steinmetz pseudo-residuals (1986)",
             Method::Plane => {
                 "local-linear pseudo-residuals: each row against the least-squares plane through its nearest rows"

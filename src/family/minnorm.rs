@@ -198,6 +198,10 @@ impl Family for MinNormFamily {
         "features"
     }
 
+    fn min_norm_coefficients(&self, value: f64, n_inputs: usize) -> Option<usize> {
+        Some((value as usize).min(n_inputs) + usize::from(self.intercept))
+    }
+
     fn check_grid(&self, grid: &[f64], n_train: usize, n_inputs: usize) -> Result<(), String> {
         if grid.is_empty() {
             return Err("features grid is empty".into());

@@ -160,6 +160,15 @@ pub trait Family: Send + Sync {
         None
     }
 
+    /// For a family whose fit is the minimum-norm least-squares solution (`minnorm`,
+    /// `random_features`): the number of coefficients it fits at knob value `value`, the
+    /// intercept of a centred fit included (`None`, the default, for the others). Where that
+    /// number is close to the training rows the fit is near its interpolation threshold, its
+    /// variance across training sets has a heavy tail, and the run's reading says so.
+    fn min_norm_coefficients(&self, _value: f64, _n_inputs: usize) -> Option<usize> {
+        None
+    }
+
     /// Checks a grid against the training size and the number of inputs before any fit.
     /// The message names the offending value; the caller adds file and key.
     fn check_grid(&self, grid: &[f64], n_train: usize, n_inputs: usize) -> Result<(), String>;

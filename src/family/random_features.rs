@@ -97,6 +97,10 @@ impl Family for RandomFeaturesFamily {
         "width"
     }
 
+    fn min_norm_coefficients(&self, value: f64, _n_inputs: usize) -> Option<usize> {
+        Some(value as usize + usize::from(self.intercept))
+    }
+
     fn check_grid(&self, grid: &[f64], n_train: usize, _n_inputs: usize) -> Result<(), String> {
         if grid.is_empty() {
             return Err("width grid is empty".into());

@@ -1645,6 +1645,10 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         doc.reading.push(' ');
         doc.reading.push_str(&w);
     }
+    if let Some(w) = threshold_words(plan) {
+        doc.reading.push(' ');
+        doc.reading.push_str(&w);
+    }
     if let Some(w) = bayes_tie_words(plan, outcome) {
         doc.reading.push(' ');
         doc.reading.push_str(&w);
@@ -1686,6 +1690,88 @@ fn bayes_tie_words(plan: &Plan, outcome: &Outcome) -> Option<String> {
 /// covering the variance in 40% of runs (docs/exact-checks.md, "Few rows per coefficient").
 pub const ROWS_PER_COEFFICIENT: usize = 5;
 
+/// The training rows a fit of `n` draws learns from, and their words: a bootstrap sample of a
+/// table, or of a twin's rows drawn as they are (no jitter), holds fewer distinct rows than it
+/// draws (about 63%), and those are what coefficients are fitted from.
+fn distinct_rows(plan: &Plan, n: usize) -> (usize, String) {
+    let pool = match &plan.source {
+        Source::Table(t) if t.scheme == crate::dataset::Scheme::Bootstrap => Some(t.work.len()),
+        Source::Synthetic(s) if s.process.jitter().map_or(true, |j| j.is_plain()) => {
+            s.process.empirical_rows().map(|r| r.nrows())
+        }
+        _ => None,
+    };
+    match pool {
+        Some(rows) => {
+            let d = crate::dataset::distinct_share(n, rows) * n as f64;
+            (
+                d.round() as usize,
+                format!("{n} training rows, about {} distinct", d.round()),
+            )
+        }
+        _ => (n, format!("{n} training rows")),
+    }
+}
+
+/// How close to the training rows a minimum-norm fit's coefficients come before
+/// [`threshold_words`] speaks: the standard error of the variance needs the predictions' fourth
+/// moment, which for Gaussian inputs involves the second moment of an inverse Wishart matrix,
+/// finite only a few rows away from the threshold (a rule of thumb from that moment condition,
+/// from memory; not measured here).
+pub const THRESHOLD_NEAR: usize = 4;
+
+/// A sentence for the reading when a minimum-norm family (`minnorm`, `random_features`) fits,
+/// at some grid value and training size of a random design, a number of coefficients within
+/// [`THRESHOLD_NEAR`] of the training rows: there its variance across training sets has a heavy
+/// tail (for centred Gaussian inputs its mean is infinite within one row of the threshold:
+/// Belkin, Hsu and Xu 2020, *SIAM J. Math. Data Sci.* 2(4), Theorem 1, from memory), and the
+/// variance's standard error can be far too small.
+fn threshold_words(plan: &Plan) -> Option<String> {
+    if matches!(&plan.source, Source::Synthetic(s) if s.design == Design::Fixed) {
+        return None;
+    }
+    let q = plan.n_inputs();
+    let several = plan.models.len() > 1;
+    let mut hits: Vec<String> = Vec::new();
+    for m in &plan.models {
+        for &n in &plan.sizes {
+            let (rows, words) = distinct_rows(plan, n);
+            for &v in &m.grid {
+                let Some(c) = m.family.min_norm_coefficients(v, q) else {
+                    continue;
+                };
+                if c.abs_diff(rows) <= THRESHOLD_NEAR {
+                    hits.push(format!(
+                        "{}{} = {} ({c} coefficients, {words})",
+                        if several {
+                            format!("{}: ", m.label)
+                        } else {
+                            String::new()
+                        },
+                        m.family.knob(),
+                        fmt_value(v)
+                    ));
+                }
+            }
+        }
+    }
+    if hits.is_empty() {
+        return None;
+    }
+    let shown = hits.len().min(4);
+    let mut listed = hits[..shown].join(", ");
+    if hits.len() > shown {
+        listed.push_str(&format!(" and {} more", hits.len() - shown));
+    }
+    Some(format!(
+        "Near the interpolation threshold at {listed}: a minimum-norm fit with about as many \
+         coefficients as training rows has a variance with a heavy tail across training sets \
+         (for Gaussian inputs its mean is infinite within one row of the threshold; Belkin, Hsu \
+         and Xu 2020, Theorem 1), so its standard error can be far too small there: read the \
+         variance there as a lower bound."
+    ))
+}
+
 /// A sentence for the reading when an unpenalized least-squares fit
 /// ([`crate::family::Family::least_squares_coefficients`]) has fewer than
 /// [`ROWS_PER_COEFFICIENT`] training rows per coefficient at some grid value and training
@@ -1705,26 +1791,7 @@ fn few_rows_words(plan: &Plan) -> Option<String> {
     let q = plan.n_inputs();
     let mut hits: Vec<String> = Vec::new();
     let several = plan.models.len() > 1;
-    // A bootstrap sample of a table, or of a twin's rows drawn as they are (no jitter), holds
-    // fewer distinct rows than it draws (about 63%): those are what the coefficients are
-    // fitted from.
-    let pool = match &plan.source {
-        Source::Table(t) if t.scheme == crate::dataset::Scheme::Bootstrap => Some(t.work.len()),
-        Source::Synthetic(s) if s.process.jitter().map_or(true, |j| j.is_plain()) => {
-            s.process.empirical_rows().map(|r| r.nrows())
-        }
-        _ => None,
-    };
-    let distinct = |n: usize| match pool {
-        Some(rows) => {
-            let d = crate::dataset::distinct_share(n, rows) * n as f64;
-            (
-                d.round() as usize,
-                format!("{n} training rows, about {} distinct", d.round()),
-            )
-        }
-        _ => (n, format!("{n} training rows")),
-    };
+    let distinct = |n: usize| distinct_rows(plan, n);
     for m in &plan.models {
         for &n in &plan.sizes {
             let (rows, words) = distinct(n);
