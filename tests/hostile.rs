@@ -3198,6 +3198,15 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             "a count is a whole number",
         ),
         (
+            "0-1: an interval beyond the term's range",
+            set(
+                &docs.zero_one,
+                "interval95.bias",
+                serde_json::json!([-5.0, 5.0]),
+            ),
+            "within the term's range",
+        ),
+        (
             "0-1: an interval that excludes its estimate",
             set(
                 &docs.zero_one,

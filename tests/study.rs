@@ -773,3 +773,51 @@ fn a_learning_curve_that_rises_clearly_is_read_as_a_rise() {
         knn.reading
     );
 }
+
+/// A learning curve whose best model has neither bias nor variance left (a twin of an invented,
+/// perfectly separable table, `tests/fixtures/separable-100.csv`): its variance share was 0/0,
+/// and the finished run was refused ("cannot be computed ... raise replicates"; a hostile
+/// sweep). It now reads 0 and says that the loss is the noise alone; and on 0-1 losses the share
+/// stays within [0, 1] (Domingos' variance divided by the expected loss minus the noise read
+/// 140-769%).
+#[test]
+fn a_learning_curve_with_nothing_left_to_learn_reads_back() {
+    let csv = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/fixtures/separable-100.csv");
+    let src = format!(
+        r#"name = "separable"
+seed = 2
+replicates = 20
+[data]
+source = "twin"
+path = "{}"
+target = "y"
+train_size = [40, 80]
+reference = {{ family = "tree", depth = 1, min_leaf = 10, seed = 1 }}
+[data.classes]
+labels = ["lo", "hi"]
+temperature = 0.4559
+[model]
+family = "tree"
+grid = [1, 2]
+[loss]
+kind = "zero_one"
+"#,
+        csv.display()
+    );
+    let mut nothing_left = 0;
+    for seed in 1..=6 {
+        let (_, _, doc) = run_text(&src, &seeded(seed));
+        let text = report::to_json(&doc);
+        let back = lossprism::check::parse_result(&text, "separable").expect("reads back");
+        lossprism::check::validate(&back).expect("valid");
+        for c in &doc.learning {
+            let g = c.gain.as_ref().expect("two sizes");
+            assert!((0.0..=1.0).contains(&g.variance_share), "{}", g.reading);
+            if g.reading.contains("neither bias nor variance left") {
+                assert_eq!(g.variance_share, 0.0);
+                nothing_left += 1;
+            }
+        }
+    }
+    assert!(nothing_left > 0, "no seed of 1..=6 left nothing to learn");
+}

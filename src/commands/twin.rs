@@ -1308,13 +1308,22 @@ fn check_scale(t: &Table) -> Result<(), Error> {
 /// key of the scenario that was never written, so it is reported as the command's error.
 fn check_plans(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
     check_written(text, out, folder).map_err(|e| match e {
-        Error::Scenario(s) => Error::Usage(format!(
-            "{} was not written: the twin scenario it would hold is refused at {}: {} (--eval-size \
-             sets its evaluation points)",
-            out.display(),
-            s.key.map_or("its text".to_string(), |k| format!("key `{k}`")),
-            s.message
-        )),
+        Error::Scenario(s) => {
+            // The hint only where the refusal is about the evaluation points (it was given for
+            // a tree's `min_leaf`, and `--eval-size` is refused with `--classes`).
+            let hint = if s.key.as_deref().is_some_and(|k| k.contains("eval")) {
+                " (--eval-size sets its evaluation points)"
+            } else {
+                ""
+            };
+            Error::Usage(format!(
+                "{} was not written: the twin scenario it would hold is refused at {}: {}{hint}",
+                out.display(),
+                s.key
+                    .map_or("its text".to_string(), |k| format!("key `{k}`")),
+                s.message
+            ))
+        }
         other => other,
     })
 }
@@ -1413,15 +1422,17 @@ pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<
     if let Some((d, sc)) = cv.tree {
         cands.push((
             Candidate::Tree,
+            // A table of fewer rows than the leaf size records its row count (the recipe's
+            // `min_leaf` is at most the rows; 7 rows wrote 10 and the twin was refused).
             Choice::tree(reference::TreeParams {
                 depth: d,
-                min_leaf: classes::TREE_MIN_LEAF,
+                min_leaf: classes::TREE_MIN_LEAF.min(n),
                 seed,
             }),
             sc,
             format!(
                 "probability tree (depth {d}, leaves of at least {} rows)",
-                classes::TREE_MIN_LEAF
+                classes::TREE_MIN_LEAF.min(n)
             ),
         ));
     }

@@ -171,8 +171,11 @@ pub fn terms(mean_log: f64, mean_mu: f64, lambda: f64, noise: f64) -> PoissonPoi
         mean: mean_mu,
         expected_loss: noise + 2.0 * (lin - lambda + mean_mu),
         noise,
-        bias: 2.0 * (lin - lambda + central),
-        variance: 2.0 * (mean_mu - central),
+        // Both are ≥ 0 exactly (a deviance; the arithmetic mean is at least the geometric one),
+        // but when every prediction is the same they are differences of equal numbers, and
+        // rounding left −1.6e-16, which `check` then refused as a negative variance.
+        bias: (2.0 * (lin - lambda + central)).max(0.0),
+        variance: (2.0 * (mean_mu - central)).max(0.0),
     }
 }
 
@@ -213,6 +216,11 @@ fn noise_terms(target: &Target<'_>, points: usize) -> Vec<f64> {
 
 impl Loss for Poisson {
     /// Means of squares and divergences are never negative.
+    /// Terms built from logarithms or shares of order one round at about 1e-16 absolute.
+    fn identity_floor(&self) -> f64 {
+        1e-12
+    }
+
     fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
         match key {
             "expected_loss" | "expected_loss_direct" | "variance" | "bias" => (0.0, f64::INFINITY),

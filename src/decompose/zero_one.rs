@@ -893,6 +893,11 @@ impl Loss for ZeroOne {
     /// Shares, losses and the Kohavi–Wolpert noise and variance lie in [0, 1] (its squared bias,
     /// corrected by the unbiased sum of squared vote shares, can be below 0); the unstable points
     /// are a count (checked as such by `check`).
+    /// Terms built from logarithms or shares of order one round at about 1e-16 absolute.
+    fn identity_floor(&self) -> f64 {
+        1e-12
+    }
+
     fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
         match key {
             "expected_loss"

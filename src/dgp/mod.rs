@@ -350,7 +350,20 @@ impl ClassModel {
                 )
             }
             ClassKind::Reference(r) => {
-                format!("class shares (add-one smoothed) of the {}", r.describe())
+                let what = match r.choice.family {
+                    reference::Candidate::Knn => "class shares (add-one smoothed)",
+                    reference::Candidate::Tree => "leaf class shares (add-one smoothed)",
+                    _ => "class probabilities",
+                };
+                let temp = if r.temperature != 1.0 {
+                    format!(
+                        ", sharpened at temperature {}",
+                        crate::fmt::fmt_exact(r.temperature)
+                    )
+                } else {
+                    String::new()
+                };
+                format!("{what} of the {}{temp}", r.describe())
             }
         }
     }

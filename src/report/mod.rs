@@ -1127,7 +1127,10 @@ pub struct Gain {
     pub drop: f64,
     /// Its jackknife standard error (paired: nested prefixes of the same draws).
     pub stderr: Option<f64>,
-    /// Variance's share of the reducible loss (expected loss minus noise) at `to`.
+    /// Variance's share of bias plus variance at `to`, each taken at 0 or above (an unbiased
+    /// bias² can fall below 0): for the additive losses its share of the reducible loss
+    /// (expected loss minus noise), for the 0-1 loss of Domingos' bias and variance, which do not
+    /// add up to it. 0 when neither is left.
     pub variance_share: f64,
     /// One sentence reading it.
     pub reading: String,
@@ -1385,9 +1388,13 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 let drop = a.value(ga, "expected_loss") - b.value(gb, "expected_loss");
                 let se = paired_se(a, ga, b, gb, t);
                 let last = sizes.last().expect("a size");
-                let reducible =
-                    last.expected_loss - last.noise.filter(|v| v.is_finite()).unwrap_or(0.0);
-                let share = last.variance / reducible;
+                // Variance over bias plus variance: divided by the expected loss minus the noise,
+                // a perfect best model made it 0/0 and the finished run was refused, the 0-1
+                // loss's Domingos variance (not a part of that difference) read 140-769%, and an
+                // unbiased bias² below 0 read 111%.
+                let (bias, var) = (last.bias.max(0.0), last.variance.max(0.0));
+                let left = bias + var;
+                let share = if left > 0.0 { var / left } else { 0.0 };
                 let (from, to) = (plan.sizes[nz - 2], plan.sizes[nz - 1]);
                 let clear = se.is_some_and(|s| drop > 2.0 * s);
                 let fam = m.label.as_str();
@@ -1410,28 +1417,32 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 // A rise beyond two standard errors is a finding too (it was read as "within 2
                 // standard errors" at z = −2.25).
                 let rose = se.is_some_and(|s| -drop > 2.0 * s);
-                if rose {
+                if left <= 0.0 {
+                    reading.push_str(&format!(
+                        "its best model has neither bias nor variance left at {to} rows: its loss is the noise alone, and more data cannot lower it."
+                    ));
+                } else if rose {
                     reading.push_str(&format!(
                         "that rise is beyond 2 standard errors: on this grid more data made the best of {fam} worse (learning curves can rise, near an interpolation threshold for one; a wider grid may hold a better {knob}).",
                     ));
                 } else if !clear {
                     reading.push_str(&format!(
-                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of the reducible loss at {to} rows).",
+                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of bias plus variance at {to} rows).",
                         100.0 * share
                     ));
                 } else if share >= 0.5 {
                     reading.push_str(&format!(
-                        "variance is {:.0}% of the reducible loss at {to} rows, so more data should keep lowering it.",
+                        "variance is {:.0}% of bias plus variance at {to} rows, so more data should keep lowering it.",
                         100.0 * share
                     ));
                 } else if va != vb {
                     reading.push_str(&format!(
-                        "bias is {:.0}% of the reducible loss at {to} rows: more data still helps, mostly by allowing a different {knob}.",
+                        "bias is {:.0}% of bias plus variance at {to} rows: more data still helps, mostly by allowing a different {knob}.",
                         100.0 * (1.0 - share)
                     ));
                 } else {
                     reading.push_str(&format!(
-                        "bias is {:.0}% of the reducible loss at {to} rows and more data does not change the best {knob}, so a more flexible family would gain more than more data.",
+                        "bias is {:.0}% of bias plus variance at {to} rows and more data does not change the best {knob}, so a more flexible family would gain more than more data.",
                         100.0 * (1.0 - share)
                     ));
                 }

@@ -215,7 +215,8 @@ fn choice_of(
             fam_span,
             "data.reference.family",
             format!(
-                "unknown reference `{}`; expected `knn`, `forest`, `loclin`, `poly` or `blend`",
+                "unknown reference `{}`; expected `knn`, `forest`, `loclin`, `poly` or `blend` \
+                 (a classification twin: `knn`, `logit` or `tree`)",
                 r.family.get_ref()
             ),
         ));
@@ -567,7 +568,7 @@ fn class_choice_of(
         let degree = whole(d, "degree", 1, crate::family::poly::MAX_DEGREE as i64)? as usize;
         let cols = crate::family::poly::n_basis(inputs, degree);
         let most = crate::dgp::reference::classes::MAX_LOGIT_PARAMS;
-        if !cols.is_some_and(|c| c <= rows && c * (classes - 1) <= most) {
+        if !cols.is_some_and(|c| c <= rows && c * classes <= most) {
             return Err(err(
                 d.span(),
                 "data.reference.degree",

@@ -15,10 +15,12 @@
 //! from a stream of the recipe's `seed`), so `run` refits them bit for bit.
 //!
 //! **Logistic polynomial** (degree `d`, ridge `λ`): with `φ(x)` the basis of total degree `d`
-//! (constant first), class 0 the baseline, `η_c(x) = θ_cᵀ φ(x)` for `c ≥ 1`, `p_c ∝ e^{η_c}`,
-//! the fit minimises `Σ_i −log p_{y_i}(x_i) + (λ/2) Σ_{c ≥ 1} Σ_{j ≥ 1} θ_{cj}²` (the constant is
-//! not penalized; Hastie, Tibshirani and Friedman 2009, *The Elements of Statistical Learning*
-//! §4.4, from memory) by Newton's method with step halving.
+//! (constant first), `η_c(x) = θ_cᵀ φ(x)` for every class c, `p_c ∝ e^{η_c}`, the fit minimises
+//! `Σ_i −log p_{y_i}(x_i) + (λ/2) Σ_c Σ_{j ≥ 1} θ_{cj}²` (the constants are not penalized, and
+//! class 0's is held at 0; this symmetric form does not depend on the order of the classes:
+//! Friedman, Hastie and Tibshirani 2010, *J. Stat. Softw.* 33(1), §4; Hastie, Tibshirani and
+//! Friedman 2009, *The Elements of Statistical Learning* §4.4; both from memory) by Newton's
+//! method with step halving.
 //!
 //! **Probability tree** (depth `D`, leaves of at least `min_leaf` rows): the tree family's Gini
 //! CART ([`crate::family::tree`]) grown to depth `D`; a row's probabilities are its leaf's
@@ -37,7 +39,7 @@ pub const RIDGES: [f64; 5] = [0.01, 0.1, 1.0, 10.0, 100.0];
 /// Largest total degree tried for the logistic polynomial.
 pub const MAX_LOGIT_DEGREE: usize = 3;
 
-/// Most coefficients (basis columns times classes − 1) a logistic polynomial tried in
+/// Most coefficients (basis columns times classes) a logistic polynomial tried in
 /// cross-validation may have: the Newton system is that size squared (a rule of thumb that keeps
 /// the choice within seconds; no source).
 pub const MAX_LOGIT_PARAMS: usize = 200;
@@ -56,10 +58,13 @@ const P_FLOOR: f64 = 1e-12;
 /// probability of exactly 0 would make a label impossible and its log-loss infinite.
 pub const LOGIT_P_MIN: f64 = 1e-12;
 
-/// Largest `rows × coefficients²` a logistic polynomial is cross-validated at (the cost of one
-/// Newton step; about 0.1 s): bigger tables try smaller degrees, or none (a rule of thumb that
-/// keeps `twin` within seconds; no source).
-pub const LOGIT_MAX_WORK: f64 = 4e8;
+/// Largest total cost of the logistic polynomial's cross-validation, counted as training rows ×
+/// coefficients² × 400 summed over the degrees tried (one Newton step costs about rows ×
+/// coefficients²; 5 ridges × 10 folds × about 8 steps): degrees are tried from 1 up while the sum
+/// stays below it, so a table of 400 rows tries all three and one of 20 000 rows with 3 inputs
+/// degree 1 only (which kept `twin --classes` at 8 s there instead of 20 s; a rule of thumb, no
+/// source).
+pub const LOGIT_CV_BUDGET: f64 = 2e9;
 
 /// Stream index (under `purpose::TWIN`) of the probability tree's tie draws; fold `f` of the
 /// cross-validation uses the next index plus `f`.
@@ -70,16 +75,16 @@ pub const TREE_STREAM: u64 = 1 << 41;
 pub struct Logit {
     basis: Basis,
     classes: usize,
-    /// `theta[j * (classes - 1) + (c - 1)]`: basis column j's coefficient for class c ≥ 1.
+    /// `theta[j * classes + c]`: basis column j's coefficient for class c (class 0's constant
+    /// is 0).
     theta: Vec<f64>,
 }
 
-/// Class probabilities from the logits of classes 1.. (class 0's logit is 0).
-fn softmax_baseline(eta: &[f64], out: &mut [f64]) {
-    let top = eta.iter().fold(0.0_f64, |a, &v| a.max(v));
-    out[0] = (-top).exp();
-    let mut sum = out[0];
-    for (o, &e) in out[1..].iter_mut().zip(eta) {
+/// Class probabilities from the logits of every class (softmax, shifted by the largest).
+fn softmax(eta: &[f64], out: &mut [f64]) {
+    let top = eta.iter().fold(f64::NEG_INFINITY, |a, &v| a.max(v));
+    let mut sum = 0.0;
+    for (o, &e) in out.iter_mut().zip(eta) {
         *o = (e - top).exp();
         sum += *o;
     }
@@ -118,14 +123,13 @@ impl Logit {
     pub fn probs_rows(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
         let m = x.nrows();
         let design = self.basis.matrix(x);
-        let k1 = self.classes - 1;
         let f = self.basis.len();
         let mut out = vec![0.0; m * self.classes];
-        let mut eta = vec![0.0; k1];
+        let mut eta = vec![0.0; self.classes];
         for e in 0..m {
             logits(&design, m, f, &self.theta, e, &mut eta);
             let p = &mut out[e * self.classes..(e + 1) * self.classes];
-            softmax_baseline(&eta, p);
+            softmax(&eta, p);
             if p.iter().any(|&v| v < LOGIT_P_MIN) {
                 p.iter_mut().for_each(|v| *v = v.max(LOGIT_P_MIN));
                 let sum: f64 = p.iter().sum();
@@ -136,14 +140,14 @@ impl Logit {
     }
 }
 
-/// The logits of classes 1.. at row `i` of the column-major `rows × f` design.
+/// The logits of every class at row `i` of the column-major `rows × f` design.
 fn logits(design: &[f64], rows: usize, f: usize, theta: &[f64], i: usize, eta: &mut [f64]) {
-    let k1 = eta.len();
+    let k = eta.len();
     eta.iter_mut().for_each(|v| *v = 0.0);
     for j in 0..f {
         let b = design[j * rows + i];
         for (c, v) in eta.iter_mut().enumerate() {
-            *v += theta[j * k1 + c] * b;
+            *v += theta[j * k + c] * b;
         }
     }
 }
@@ -170,20 +174,24 @@ fn objective(pb: &Problem<'_>, theta: &[f64], probs: &mut [f64]) -> f64 {
         classes,
         ridge,
     } = *pb;
-    let k1 = classes - 1;
-    let mut eta = vec![0.0; k1];
+    let mut eta = vec![0.0; classes];
     let mut loss = 0.0;
     for i in 0..n {
         logits(design, n, f, theta, i, &mut eta);
         let p = &mut probs[i * classes..(i + 1) * classes];
-        softmax_baseline(&eta, p);
+        softmax(&eta, p);
         loss -= p[y[i]].max(f64::MIN_POSITIVE).ln();
     }
-    let pen: f64 = theta[k1..].iter().map(|t| t * t).sum();
+    let pen: f64 = theta[classes..].iter().map(|t| t * t).sum();
     loss + 0.5 * ridge * pen
 }
 
-/// Newton's method with step halving for the logistic polynomial's coefficients.
+/// Newton's method with step halving for the logistic polynomial's coefficients, in the
+/// symmetric parameterization: a coefficient vector per class, every non-constant coefficient
+/// penalized, class 0's constant held at 0 (the constants are unpenalized, so which one is held
+/// changes no probability). Penalizing classes 1.. only, against class 0 as a baseline, made the
+/// fit depend on which label the table lists first (up to 0.13 in a probability with three
+/// classes; an independent re-implementation found it).
 fn newton(pb: &Problem<'_>) -> Result<Vec<f64>, String> {
     let Problem {
         design,
@@ -193,8 +201,7 @@ fn newton(pb: &Problem<'_>) -> Result<Vec<f64>, String> {
         classes,
         ridge,
     } = *pb;
-    let k1 = classes.saturating_sub(1);
-    if k1 == 0 || y.len() != n || y.iter().any(|&c| c >= classes) {
+    if classes < 2 || y.len() != n || y.iter().any(|&c| c >= classes) {
         return Err(
             "the logistic polynomial needs at least two classes and a label per row".into(),
         );
@@ -202,18 +209,20 @@ fn newton(pb: &Problem<'_>) -> Result<Vec<f64>, String> {
     if !(ridge.is_finite() && ridge > 0.0) {
         return Err(format!("ridge must be a finite number > 0, got {ridge}"));
     }
-    let d = f * k1;
-    if d > MAX_LOGIT_PARAMS {
+    let full = f * classes;
+    if full > MAX_LOGIT_PARAMS {
         return Err(format!(
-            "{d} coefficients, more than {MAX_LOGIT_PARAMS} (lower the degree)"
+            "{full} coefficients, more than {MAX_LOGIT_PARAMS} (lower the degree)"
         ));
     }
-    let mut theta = vec![0.0; d];
+    // The free coefficients: every (j, c) but class 0's constant (full index 0).
+    let d = full - 1;
+    let mut theta = vec![0.0; full];
     let mut probs = vec![0.0; n * classes];
     let mut obj = objective(pb, &theta, &mut probs);
     let mut grad = vec![0.0; d];
     let mut hess = vec![0.0; d * d];
-    let mut trial = vec![0.0; d];
+    let mut trial = vec![0.0; full];
     let mut trial_probs = vec![0.0; n * classes];
     for _ in 0..100 {
         grad.iter_mut().for_each(|v| *v = 0.0);
@@ -225,26 +234,32 @@ fn newton(pb: &Problem<'_>) -> Result<Vec<f64>, String> {
                 if bj == 0.0 {
                     continue;
                 }
-                for c in 0..k1 {
-                    let r = p[c + 1] - f64::from(u8::from(y[i] == c + 1));
-                    grad[j * k1 + c] += r * bj;
-                }
-                for l in 0..=j {
-                    let bjl = bj * design[l * n + i];
-                    for c in 0..k1 {
-                        for e in 0..k1 {
+                for c in 0..classes {
+                    let a = j * classes + c;
+                    if a == 0 {
+                        continue;
+                    }
+                    let r = p[c] - f64::from(u8::from(y[i] == c));
+                    grad[a - 1] += r * bj;
+                    for l in 0..=j {
+                        let bjl = bj * design[l * n + i];
+                        for e in 0..classes {
+                            let b = l * classes + e;
+                            if b == 0 || b > a {
+                                continue;
+                            }
                             let w = if c == e {
-                                p[c + 1] * (1.0 - p[c + 1])
+                                p[c] * (1.0 - p[c])
                             } else {
-                                -p[c + 1] * p[e + 1]
+                                -p[c] * p[e]
                             };
-                            hess[(j * k1 + c) * d + l * k1 + e] += w * bjl;
+                            hess[(a - 1) * d + b - 1] += w * bjl;
                         }
                     }
                 }
             }
         }
-        // The lower blocks were filled (l ≤ j); mirror them.
+        // The lower triangle was filled (b ≤ a); mirror it.
         for a in 0..d {
             for b in a + 1..d {
                 hess[a * d + b] = hess[b * d + a];
@@ -257,34 +272,39 @@ fn newton(pb: &Problem<'_>) -> Result<Vec<f64>, String> {
             .map(|a| hess[a * d + a])
             .fold(0.0_f64, f64::max)
             .max(1.0);
-        for a in 0..k1 {
+        for a in 0..classes - 1 {
             hess[a * d + a] += 1e-12 * scale;
         }
-        for a in k1..d {
-            grad[a] += ridge * theta[a];
+        for a in classes - 1..d {
+            grad[a] += ridge * theta[a + 1];
             hess[a * d + a] += ridge;
         }
         let Some(step) = solve_spd(&hess, &grad, d, 0.0) else {
             return Err("the Newton system is not positive definite".into());
         };
+        // Near the optimum the objective's change is below its rounding: a Newton decrement
+        // that small ends the iteration with the full step (a strict decrease would reject it
+        // on rounding and stop short, about 1e-9 in a probability).
+        let decrement: f64 = grad.iter().zip(&step).map(|(g, s)| g * s).sum();
+        if decrement.abs() <= 1e-14 * obj.abs().max(1.0) {
+            for a in 0..d {
+                theta[a + 1] -= step[a];
+            }
+            return finite(theta);
+        }
         let mut t = 1.0;
         let mut accepted = false;
         for _ in 0..40 {
+            trial[0] = 0.0;
             for a in 0..d {
-                trial[a] = theta[a] - t * step[a];
+                trial[a + 1] = theta[a + 1] - t * step[a];
             }
             let o = objective(pb, &trial, &mut trial_probs);
             if o.is_finite() && o <= obj {
                 accepted = true;
-                let size = theta.iter().fold(1.0_f64, |a, v| a.max(v.abs()));
-                let moved = step.iter().fold(0.0_f64, |a, v| a.max((t * v).abs()));
-                let done = moved <= 1e-10 * size || obj - o <= 1e-15 * obj.abs();
                 std::mem::swap(&mut theta, &mut trial);
                 std::mem::swap(&mut probs, &mut trial_probs);
                 obj = o;
-                if done {
-                    return finite(theta);
-                }
                 break;
             }
             t *= 0.5;
@@ -406,7 +426,7 @@ fn score_row(p: &[f64], yi: usize, ll: &mut f64, hit: &mut f64) {
 
 /// Cross-validates the logistic polynomial (degrees 1..=[`MAX_LOGIT_DEGREE`] with at most
 /// [`MAX_LOGIT_PARAMS`] coefficients, at most a quarter of the smallest training fold's rows in
-/// basis columns and at most [`LOGIT_MAX_WORK`] per Newton step, each ridge of [`RIDGES`]) and
+/// basis columns, within [`LOGIT_CV_BUDGET`]; each ridge of [`RIDGES`]) and
 /// the probability tree (depths
 /// 1..=[`MAX_TREE_DEPTH`], leaves of [`TREE_MIN_LEAF`]) on the folds `fold` (values
 /// `0..folds`), and returns each one's setting of lowest mean log-loss.
@@ -425,13 +445,13 @@ pub fn cross_validate(
     }
     let labels: Vec<usize> = y.iter().map(|&v| v as usize).collect();
     let min_train = crate::rng::smallest_training_fold(fold, folds);
+    let mut spent = 0.0;
     let degrees: Vec<usize> = (1..=MAX_LOGIT_DEGREE)
-        .filter(|&d| {
+        .take_while(|&d| {
             n_basis(p, d).is_some_and(|b| {
-                let coefs = b * (classes - 1);
-                coefs <= MAX_LOGIT_PARAMS
-                    && 4 * b <= min_train.max(1)
-                    && min_train as f64 * (coefs as f64).powi(2) <= LOGIT_MAX_WORK
+                let coefs = b * classes;
+                spent += 400.0 * min_train as f64 * (coefs as f64).powi(2);
+                coefs <= MAX_LOGIT_PARAMS && 4 * b <= min_train.max(1) && spent <= LOGIT_CV_BUDGET
             })
         })
         .collect();
@@ -545,8 +565,8 @@ mod tests {
         let x = Array2::from_shape_vec((9, 1), xs.to_vec()).unwrap();
         let m = Logit::fit(x.view(), &ys, 2, 1, 1e-9).unwrap();
         let p = m.probs_rows(x.view());
-        assert!((p[1] - 0.25).abs() < 1e-6, "{}", p[1]);
-        assert!((p[4 * 2 + 1] - 0.8).abs() < 1e-6, "{}", p[9]);
+        assert!((p[1] - 0.25).abs() < 1e-8, "{}", p[1]);
+        assert!((p[4 * 2 + 1] - 0.8).abs() < 1e-8, "{}", p[9]);
         // Three classes on a saturated 0/1 input: each level's class shares.
         let ys3 = [0, 1, 2, 2, 1, 1, 0, 2, 1];
         let m3 = Logit::fit(x.view(), &ys3, 3, 1, 1e-9).unwrap();
@@ -554,9 +574,9 @@ mod tests {
         let want0 = [0.25, 0.25, 0.5];
         let want1 = [0.2, 0.6, 0.2];
         for c in 0..3 {
-            assert!((p3[c] - want0[c]).abs() < 1e-6, "{c} {}", p3[c]);
+            assert!((p3[c] - want0[c]).abs() < 1e-8, "{c} {}", p3[c]);
             assert!(
-                (p3[4 * 3 + c] - want1[c]).abs() < 1e-6,
+                (p3[4 * 3 + c] - want1[c]).abs() < 1e-8,
                 "{c} {}",
                 p3[12 + c]
             );
@@ -572,6 +592,45 @@ mod tests {
         let p = m.probs_rows(x.view());
         for i in 0..40 {
             assert!((p[i * 2 + 1] - 0.25).abs() < 1e-6, "{}", p[i * 2 + 1]);
+        }
+    }
+
+    /// The penalized fit does not depend on which class is numbered first: relabelling the
+    /// classes permutes the probabilities (with class 0 as an unpenalized baseline it moved a
+    /// probability by up to 0.13 at ridge 1; an independent re-implementation found it).
+    #[test]
+    fn a_penalized_logit_does_not_depend_on_the_order_of_the_classes() {
+        let n = 90;
+        let x = Array2::from_shape_fn((n, 2), |(i, j)| ((i * (7 + 4 * j) + j) % 23) as f64 / 23.0);
+        let ys: Vec<usize> = (0..n)
+            .map(|i| {
+                let (a, b) = (x[[i, 0]], x[[i, 1]]);
+                if a + 0.3 * ((i * 13) % 7) as f64 / 7.0 > 0.8 {
+                    2
+                } else if b > 0.5 {
+                    1
+                } else {
+                    0
+                }
+            })
+            .collect();
+        let p = Logit::fit(x.view(), &ys, 3, 2, 1.0)
+            .unwrap()
+            .probs_rows(x.view());
+        for perm in [[1usize, 2, 0], [2, 0, 1], [0, 2, 1]] {
+            let relabelled: Vec<usize> = ys.iter().map(|&c| perm[c]).collect();
+            let q = Logit::fit(x.view(), &relabelled, 3, 2, 1.0)
+                .unwrap()
+                .probs_rows(x.view());
+            for i in 0..n {
+                for c in 0..3 {
+                    let (a, b) = (p[i * 3 + c], q[i * 3 + perm[c]]);
+                    assert!(
+                        (a - b).abs() < 1e-9,
+                        "{perm:?} row {i} class {c}: {a} against {b}"
+                    );
+                }
+            }
         }
     }
 
