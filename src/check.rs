@@ -1686,7 +1686,10 @@ pub fn compare(
                 )));
             }
             c.se = se;
-            let m = margin * vb.abs();
+            // Rounding is no change: a Poisson bias of −5e-16 against +4e-16 read "+175%, z =
+            // +10" (the loss's absolute floor; 0, and so no effect, for the squared loss).
+            let floor = crate::decompose::by_name(&new.loss).map_or(0.0, |l| l.identity_floor());
+            let m = (margin * vb.abs()).max(floor);
             c.verdict = if diff == 0.0 {
                 Verdict::Unchanged
             } else if se == 0.0 {

@@ -91,8 +91,9 @@ pub struct TwinArgs {
     /// Feature columns, comma-separated (default: every other column).
     #[arg(long, value_delimiter = ',')]
     pub features: Option<Vec<String>>,
-    /// The target holds class labels (classification twin: k-NN class shares, sharpened by a
-    /// temperature calibrated so that the twin's k-NN errs as on the table).
+    /// The target holds class labels (classification twin: k-NN class shares, a logistic
+    /// polynomial or a probability tree, the lowest cross-validated log-loss kept, sharpened by a
+    /// temperature calibrated so that a k-NN classifier errs on the twin as on the table).
     #[arg(long)]
     pub classes: bool,
     /// A row with an empty, missing or non-numeric cell in a used column: `error` (refuse the

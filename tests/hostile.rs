@@ -3818,7 +3818,6 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
     for (flag, value) in [
         ("--varying", None),
         ("--noise-estimator", Some("nn")),
-        ("--reference", Some("forest")),
         ("--jitter", Some("2")),
         ("--sharpen", Some("0.5")),
         ("--eval-size", Some("5")),
@@ -3835,6 +3834,21 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             &format!("{flag} applies to a regression twin"),
         );
     }
+    t.add(
+        g,
+        "twin --classes --reference forest",
+        &[("t.csv", classes_csv.as_bytes())],
+        &[
+            "twin",
+            "t.csv",
+            "--target",
+            "y",
+            "--classes",
+            "--reference",
+            "forest",
+        ],
+        "with --classes it is best, knn, logit or tree",
+    );
     // The classification references are refused for a regression twin, and one that cannot
     // be fitted on a tiny table is named.
     for reference in ["logit", "tree"] {

@@ -1593,8 +1593,8 @@ fn near_deterministic_documents_read_back() {
 }
 
 /// Minimum-norm fits near their interpolation threshold (about as many coefficients as
-/// training rows): the reading warns there and only there (their variance has an infinite mean
-/// at the threshold for Gaussian inputs, Belkin, Hsu and Xu 2020, Theorem 1).
+/// training rows): the reading warns there and only there, closest first (their variance has an
+/// infinite mean at the threshold for Gaussian inputs, Belkin, Hsu and Xu 2020, Theorem 1).
 #[test]
 fn minimum_norm_fits_near_the_interpolation_threshold_are_said() {
     let mut inputs = String::new();
@@ -1617,8 +1617,8 @@ fn minimum_norm_fits_near_the_interpolation_threshold_are_said() {
     let (_, _, doc) = run(&src);
     assert!(
         doc.reading.contains(
-            "Near the interpolation threshold at features = 11 (11 coefficients, 12 training rows), \
-             features = 12 (12 coefficients, 12 training rows), features = 14 (14 coefficients, \
+            "Near the interpolation threshold at features = 12 (12 coefficients, 12 training rows), \
+             features = 11 (11 coefficients, 12 training rows), features = 14 (14 coefficients, \
              12 training rows)"
         ),
         "{}",

@@ -1253,7 +1253,11 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         } else if a.noise_estimator.is_some() {
             Some("--noise-estimator")
         } else if !matches!(a.reference.as_str(), "best" | "knn" | "logit" | "tree") {
-            Some("--reference")
+            return Err(Error::Usage(format!(
+                "--reference {} is a regression reference; with --classes it is best, knn, logit \
+                 or tree",
+                crate::fmt::clip(&a.reference, 40)
+            )));
         } else if a.jitter != crate::dgp::twin::DEFAULT_JITTER && a.jitter != 0.0 {
             // 0 is what a classification twin does anyway: its rows as they are.
             Some("--jitter")

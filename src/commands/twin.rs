@@ -1449,12 +1449,15 @@ pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<
         Rule::Only(c) => cands.iter().position(|x| x.0 == c).ok_or_else(|| {
             Error::Usage(format!(
                 "{}: --reference {} cannot be fitted on this table ({} rows, {} inputs, {} \
-                 classes: too few rows per coefficient or a fit that failed); use best or knn",
+                 classes: fewer than 4 rows per basis column in a training fold, more than {} \
+                 coefficients, beyond the cross-validation's cost budget, or a fit that failed); \
+                 use best or knn",
                 t.path.display(),
                 c.name(),
                 n,
                 t.x.ncols(),
-                classes
+                classes,
+                classes::MAX_LOGIT_PARAMS
             ))
         })?,
     };

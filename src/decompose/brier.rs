@@ -150,13 +150,13 @@ fn argmax_first(xs: &[f64]) -> usize {
 }
 
 impl Loss for Brier {
-    /// Means of squares and unbiased variances are never negative (the unbiased squared bias
-    /// and `variance_data` can be).
-    /// Terms built from logarithms or shares of order one round at about 1e-16 absolute.
+    /// Squared differences of probabilities round at about 1e-16 absolute.
     fn identity_floor(&self) -> f64 {
         1e-12
     }
 
+    /// Means of squares and unbiased variances are never negative (the unbiased squared bias
+    /// and `variance_data` can be).
     fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
         match key {
             "expected_loss"

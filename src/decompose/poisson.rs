@@ -166,16 +166,26 @@ pub fn terms(mean_log: f64, mean_mu: f64, lambda: f64, noise: f64) -> PoissonPoi
     } else {
         lambda * (lambda.ln() - mean_log)
     };
+    // Both are ≥ 0 exactly (a deviance; the arithmetic mean is at least the geometric one),
+    // but when every prediction is the same they are differences of equal numbers, and rounding
+    // left −1.6e-16 (−1e-9 at counts near 1e6), which `check` then refused as a negative
+    // variance. A term clamped at 0 makes the expected loss their sum, so the identity holds
+    // exactly there; elsewhere nothing changes.
+    let bias = 2.0 * (lin - lambda + central);
+    let variance = 2.0 * (mean_mu - central);
+    let expected_loss = noise + 2.0 * (lin - lambda + mean_mu);
+    let (b, v) = (bias.max(0.0), variance.max(0.0));
     PoissonPoint {
         central,
         mean: mean_mu,
-        expected_loss: noise + 2.0 * (lin - lambda + mean_mu),
+        expected_loss: if b != bias || v != variance {
+            noise + b + v
+        } else {
+            expected_loss
+        },
         noise,
-        // Both are ≥ 0 exactly (a deviance; the arithmetic mean is at least the geometric one),
-        // but when every prediction is the same they are differences of equal numbers, and
-        // rounding left −1.6e-16, which `check` then refused as a negative variance.
-        bias: (2.0 * (lin - lambda + central)).max(0.0),
-        variance: (2.0 * (mean_mu - central)).max(0.0),
+        bias: b,
+        variance: v,
     }
 }
 
@@ -215,12 +225,12 @@ fn noise_terms(target: &Target<'_>, points: usize) -> Vec<f64> {
 }
 
 impl Loss for Poisson {
-    /// Means of squares and divergences are never negative.
-    /// Terms built from logarithms or shares of order one round at about 1e-16 absolute.
+    /// Deviances of counts of order one round at about 1e-16 absolute (larger counts round more; `run` makes the identity exact where it clamps a term at 0).
     fn identity_floor(&self) -> f64 {
         1e-12
     }
 
+    /// Means of squares and divergences are never negative.
     fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
         match key {
             "expected_loss" | "expected_loss_direct" | "variance" | "bias" => (0.0, f64::INFINITY),

@@ -886,18 +886,14 @@ impl Loss for ZeroOne {
         }
     }
 
-    /// Domingos' bias (a share of points), the variances (shares of disagreeing votes) and
-    /// James' systematic effect (the Bayes class's probability minus the main prediction's) lie
-    /// in [0, 1]; the net variance and James' variance effect (differences of two shares) in
-    /// [−1, 1].
-    /// Shares, losses and the Kohavi–Wolpert noise and variance lie in [0, 1] (its squared bias,
-    /// corrected by the unbiased sum of squared vote shares, can be below 0); the unstable points
-    /// are a count (checked as such by `check`).
-    /// Terms built from logarithms or shares of order one round at about 1e-16 absolute.
+    /// Shares of order one round at about 1e-16 absolute.
     fn identity_floor(&self) -> f64 {
         1e-12
     }
 
+    /// Shares, losses and the Kohavi–Wolpert noise and variance lie in [0, 1] (its squared bias,
+    /// corrected by the unbiased sum of squared vote shares, can be below 0); the unstable points
+    /// are a count (checked as such by `check`).
     fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
         match key {
             "expected_loss"
@@ -910,6 +906,10 @@ impl Loss for ZeroOne {
         }
     }
 
+    /// Domingos' bias (a share of points), the variances (shares of disagreeing votes) and
+    /// James' systematic effect (the Bayes class's probability minus the main prediction's) lie
+    /// in [0, 1]; the net variance and James' variance effect (differences of two shares) in
+    /// [−1, 1].
     fn bounds(&self, key: &str) -> (f64, f64) {
         match key {
             "bias"

@@ -973,11 +973,18 @@ impl Family for ExternalFamily {
             let module = folder.join(pair[1].replace('.', "/"));
             let mut with_py = module.clone().into_os_string();
             with_py.push(".py");
+            // `python -m a.b.c` also runs the packages' `a/__init__.py` and `a/b/__init__.py`.
+            let parts: Vec<&str> = pair[1].split('.').collect();
+            let packages =
+                (1..parts.len()).map(|k| folder.join(parts[..k].join("/")).join("__init__.py"));
             for f in [
                 PathBuf::from(with_py),
                 module.join("__init__.py"),
                 module.join("__main__.py"),
-            ] {
+            ]
+            .into_iter()
+            .chain(packages)
+            {
                 if f.is_file() && !out.contains(&f) {
                     out.push(f);
                 }

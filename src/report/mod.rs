@@ -1347,6 +1347,15 @@ fn rankings(plan: &Plan, outcome: &Outcome) -> Vec<Ranking> {
 /// Each family's learning curve, with the gain of the largest size read in a sentence.
 fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
     let nz = plan.sizes.len();
+    // The responses' scale, squared (the truth or the observed responses at the evaluation
+    // points): losses of fits exact to rounding are about 1e-32 of it.
+    let t = &outcome.prepared.eval_truth;
+    let truth_square = t
+        .iter()
+        .filter(|v| v.is_finite())
+        .map(|v| v * v)
+        .sum::<f64>()
+        / t.len().max(1) as f64;
     let observed = outcome.prepared.table.is_some();
     plan.models
         .iter()
@@ -1396,7 +1405,14 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 let left = bias + var;
                 let share = if left > 0.0 { var / left } else { 0.0 };
                 let (from, to) = (plan.sizes[nz - 2], plan.sizes[nz - 1]);
-                let clear = se.is_some_and(|s| drop > 2.0 * s);
+                // A change at the level of rounding is no change (a noise-free constant truth
+                // read "rises by 7.889e-31 ± 0.00 ... beyond 2 standard errors").
+                let rounding = 1e-9
+                    * a.value(ga, "expected_loss")
+                        .abs()
+                        .max(b.value(gb, "expected_loss").abs())
+                    + 1e-12 * truth_square;
+                let clear = se.is_some_and(|s| drop > 2.0 * s && drop > rounding);
                 let fam = m.label.as_str();
                 let se_text = se.map(|s| format!(" ± {}", fmt_se(s))).unwrap_or_default();
                 let (va, vb) = (m.grid[ga], m.grid[gb]);
@@ -1416,11 +1432,15 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 );
                 // A rise beyond two standard errors is a finding too (it was read as "within 2
                 // standard errors" at z = −2.25).
-                let rose = se.is_some_and(|s| -drop > 2.0 * s);
+                let rose = se.is_some_and(|s| -drop > 2.0 * s && -drop > rounding);
                 if left <= 0.0 {
                     reading.push_str(&format!(
                         "its best model has neither bias nor variance left at {to} rows: its loss is the noise alone, and more data cannot lower it."
                     ));
+                } else if drop.abs() <= rounding {
+                    reading.push_str(
+                        "that change is at the level of rounding: the best model's loss does not move with more data.",
+                    );
                 } else if rose {
                     reading.push_str(&format!(
                         "that rise is beyond 2 standard errors: on this grid more data made the best of {fam} worse (learning curves can rise, near an interpolation threshold for one; a wider grid may hold a better {knob}).",
@@ -1743,7 +1763,7 @@ fn threshold_words(plan: &Plan) -> Option<String> {
     }
     let q = plan.n_inputs();
     let several = plan.models.len() > 1;
-    let mut hits: Vec<String> = Vec::new();
+    let mut hits: Vec<(usize, String)> = Vec::new();
     for m in &plan.models {
         for &n in &plan.sizes {
             let (rows, words) = distinct_rows(plan, n);
@@ -1752,15 +1772,18 @@ fn threshold_words(plan: &Plan) -> Option<String> {
                     continue;
                 };
                 if c.abs_diff(rows) <= THRESHOLD_NEAR {
-                    hits.push(format!(
-                        "{}{} = {} ({c} coefficients, {words})",
-                        if several {
-                            format!("{}: ", m.label)
-                        } else {
-                            String::new()
-                        },
-                        m.family.knob(),
-                        fmt_value(v)
+                    hits.push((
+                        c.abs_diff(rows),
+                        format!(
+                            "{}{} = {} ({c} coefficients, {words})",
+                            if several {
+                                format!("{}: ", m.label)
+                            } else {
+                                String::new()
+                            },
+                            m.family.knob(),
+                            fmt_value(v)
+                        ),
                     ));
                 }
             }
@@ -1769,6 +1792,10 @@ fn threshold_words(plan: &Plan) -> Option<String> {
     if hits.is_empty() {
         return None;
     }
+    // Closest to the threshold first (stable: grid order among equals), so a long list never
+    // hides the threshold itself in "and N more".
+    hits.sort_by_key(|h| h.0);
+    let hits: Vec<String> = hits.into_iter().map(|h| h.1).collect();
     let shown = hits.len().min(4);
     let mut listed = hits[..shown].join(", ");
     if hits.len() > shown {
