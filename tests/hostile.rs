@@ -5053,6 +5053,21 @@ fn external_cases(t: &mut Table) {
         "family = \"tree\"\ngrid = [1, 2]",
         "family = \"external\"\ncommand = [\"python3\", \"-m\", \"m\", \"fit\"]\nknob = \"k\"\ngrid = [1, 2]",
     );
+    // Other spellings of `-m` (attached to the module, after other switches) were not seen.
+    for (spelling, name) in [
+        ("\"-mm\"", "-mm"),
+        ("\"-um\", \"m\"", "-um m"),
+        ("\"-Bmm\"", "-Bmm"),
+    ] {
+        let s = module.replace("\"-m\", \"m\"", spelling);
+        t.add(
+            g,
+            format!("--csv names the source of a module run as python3 {name}"),
+            &[("s.toml", s.as_bytes()), ("m.py", PY_MODEL.as_bytes())],
+            &["run", "s.toml", "--csv", "m.py", "-q"],
+            "an input",
+        );
+    }
     for (flag, target) in [
         ("--csv", "m.py"),
         ("--points", "m.py"),

@@ -1633,6 +1633,23 @@ fn minimum_norm_fits_near_the_interpolation_threshold_are_said() {
         "{}",
         doc.reading
     );
+    // A fixed design: the minimum-norm fit of fixed inputs is linear in Gaussian noise (no
+    // sentence), but random features are drawn anew in every replicate (the sentence stays).
+    let fixed = src.replace("design = \"random\"", "design = \"fixed\"");
+    let (_, _, doc) = run(&fixed);
+    assert!(
+        !doc.reading.contains("interpolation threshold"),
+        "{}",
+        doc.reading
+    );
+    let features = fixed.replace("family = \"minnorm\"", "family = \"random_features\"");
+    let (_, _, doc) = run(&features);
+    assert!(
+        doc.reading
+            .contains("Near the interpolation threshold at width = "),
+        "{}",
+        doc.reading
+    );
 }
 
 /// An input named like a column of the `--points` CSV (`variance`, `value`) is written as

@@ -89,6 +89,39 @@ const STDERR_LINE_MAX: usize = 2000;
 pub const SCRIPT_EXTENSIONS: [&str; 10] =
     ["py", "r", "jl", "sh", "pl", "rb", "js", "m", "lua", "awk"];
 
+/// The modules a command runs with Python's `-m`, in every spelling: `-m pkg.mod`, `-mpkg.mod`,
+/// and `-m` after other one-letter switches (`-um pkg.mod`, `-Bmpkg.mod`); a switch that takes
+/// the rest of its word (`-c`, `-W`, `-X`) ends the search in that word. A word of another
+/// program that happens to read so names no existing file, and adds nothing.
+fn python_modules(command: &[String]) -> Vec<&str> {
+    let mut out = Vec::new();
+    for (i, w) in command.iter().enumerate() {
+        let Some(flags) = w.strip_prefix('-') else {
+            continue;
+        };
+        if flags.starts_with('-') {
+            continue;
+        }
+        for (pos, ch) in flags.char_indices() {
+            match ch {
+                'm' => {
+                    let rest = &flags[pos + 1..];
+                    if !rest.is_empty() {
+                        out.push(rest);
+                    } else if let Some(next) = command.get(i + 1) {
+                        out.push(next.as_str());
+                    }
+                    break;
+                }
+                'c' | 'W' | 'X' => break,
+                c if c.is_ascii_alphabetic() => {}
+                _ => break,
+            }
+        }
+    }
+    out
+}
+
 /// `word` of a `command` names a script file by its ending (not an option such as `-m` or
 /// `--config=x.py`).
 fn names_script(word: &str) -> bool {
@@ -966,15 +999,15 @@ impl Family for ExternalFamily {
             .map(|w| folder.join(w))
             .filter(|p| p.is_file())
             .collect();
-        for pair in self.command.windows(2) {
-            if pair[0] != "-m" || pair[1].starts_with('-') || pair[1].contains('/') {
+        for name in python_modules(&self.command) {
+            if name.is_empty() || name.starts_with('-') || name.contains('/') {
                 continue;
             }
-            let module = folder.join(pair[1].replace('.', "/"));
+            let module = folder.join(name.replace('.', "/"));
             let mut with_py = module.clone().into_os_string();
             with_py.push(".py");
             // `python -m a.b.c` also runs the packages' `a/__init__.py` and `a/b/__init__.py`.
-            let parts: Vec<&str> = pair[1].split('.').collect();
+            let parts: Vec<&str> = name.split('.').collect();
             let packages =
                 (1..parts.len()).map(|k| folder.join(parts[..k].join("/")).join("__init__.py"));
             for f in [
