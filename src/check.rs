@@ -529,6 +529,16 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                     crate::fmt::fmt_exact(*v)
                 ));
             }
+            // ... of evaluation points, so at most their number (1e9 of 200 was accepted).
+            let points = doc.uncertainty.as_ref().map_or(0, |u| u.eval_points);
+            if k == "unstable_points" && points > 0 && *v > points as f64 {
+                return Err(format!(
+                    "{}: `unstable_points` is {}, more than the {points} evaluation points; \
+                     {EDITED}",
+                    at(i),
+                    crate::fmt::fmt_exact(*v)
+                ));
+            }
         }
         // An interval holds its own estimate (the bootstrap percentile interval widened to
         // ± 2 SE around it).

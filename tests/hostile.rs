@@ -3193,6 +3193,11 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             "`unstable_points` is -3",
         ),
         (
+            "0-1: more unstable points than evaluation points",
+            set(&docs.zero_one, "unstable_points", serde_json::json!(1e9)),
+            "more than the 12 evaluation points",
+        ),
+        (
             "0-1: fractional unstable points",
             set(&docs.zero_one, "unstable_points", serde_json::json!(2.5)),
             "a count is a whole number",
