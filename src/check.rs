@@ -507,7 +507,7 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
         // votes above 1, a fractional count were plotted and compared with exit 0).
         let scale = p.expected_loss().abs();
         for (k, v) in &p.terms {
-            let (lo, hi) = loss.range(k, observed);
+            let (lo, hi) = loss.range(k);
             let tol = 1e-9 * (scale + v.abs()) + loss.identity_floor();
             if v.is_finite() && (*v < lo - tol || *v > hi + tol) {
                 return Err(format!(

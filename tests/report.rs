@@ -1618,7 +1618,7 @@ fn minimum_norm_fits_near_the_interpolation_threshold_are_said() {
     assert!(
         doc.reading.contains(
             "Near the interpolation threshold at features = 12 (12 coefficients, 12 training rows), \
-             features = 11 (11 coefficients, 12 training rows), features = 14 (14 coefficients, \
+             features = 11 (11 coefficients, 12 training rows) and features = 14 (14 coefficients, \
              12 training rows)"
         ),
         "{}",

@@ -1341,6 +1341,11 @@ fn check_written(text: &str, out: &Path, folder: &Path) -> Result<Plan, Error> {
 
 /// What the temperature calibration found, in one sentence.
 fn temperature_line(t: &reference::Temperature) -> String {
+    if t.at_one.is_nan() {
+        return "Temperature 1: not calibrated (too few rows or classes to cross-validate the \
+                yardstick, or the reference could not be refitted)."
+            .into();
+    }
     let what = format!(
         "the k-NN classifier of the table's cross-validation errs {} on the table and {} on \
          labels drawn from the reference's class probabilities ({} tables)",

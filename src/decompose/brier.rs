@@ -150,23 +150,8 @@ fn argmax_first(xs: &[f64]) -> usize {
 }
 
 impl Loss for Brier {
-    /// Squared differences of probabilities round at about 1e-16 absolute.
-    fn identity_floor(&self) -> f64 {
-        1e-12
-    }
-
-    /// Means of squares and unbiased variances are never negative (the unbiased squared bias
-    /// and `variance_data` can be).
-    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
-        match key {
-            "expected_loss"
-            | "expected_loss_direct"
-            | "variance"
-            | "diversity"
-            | "member_variance"
-            | "member_loss" => (0.0, f64::INFINITY),
-            _ => self.bounds(key),
-        }
+    fn nonnegative_terms(&self) -> &'static [&'static str] {
+        &super::MEAN_SQUARE_TERMS
     }
 
     fn name(&self) -> &'static str {

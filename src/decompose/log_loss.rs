@@ -172,17 +172,8 @@ pub fn point(acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Option<LogPo
 }
 
 impl Loss for LogLoss {
-    /// Terms built from logarithms of order one round at about 1e-16 absolute.
-    fn identity_floor(&self) -> f64 {
-        1e-12
-    }
-
-    /// Means of squares and divergences are never negative.
-    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
-        match key {
-            "expected_loss" | "expected_loss_direct" | "variance" | "bias" => (0.0, f64::INFINITY),
-            _ => self.bounds(key),
-        }
+    fn nonnegative_terms(&self) -> &'static [&'static str] {
+        &super::DIVERGENCE_TERMS
     }
 
     fn name(&self) -> &'static str {

@@ -368,20 +368,32 @@ pub trait Loss: Send + Sync {
         (f64::NEG_INFINITY, f64::INFINITY)
     }
 
-    /// The range a reported term's value cannot leave in any run (`observed`: a table source),
-    /// which `check` holds edited result documents to: [`Loss::bounds`] and, per loss, the terms
-    /// that are means of squares or divergences (≥ 0). Default: [`Loss::bounds`].
-    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
-        self.bounds(key)
+    /// The terms that are never below 0 in any run, table sources included: means of squares,
+    /// unbiased variances and divergences (an unbiased squared bias, `(m − f)² − V̂/R`, can be).
+    /// Default: none.
+    fn nonnegative_terms(&self) -> &'static [&'static str] {
+        &[]
     }
 
-    /// Absolute rounding, in the loss's own units, that `check` allows a row's identities and
-    /// ranges beyond their relative tolerance (default 0: relative only). Losses whose terms
-    /// are differences of logarithms of order one (log-loss, Poisson deviance) or of shares
-    /// carry about 1e-16 of absolute rounding however small the row's expected loss: a
-    /// near-deterministic fit's expected log-loss of 5.4e-13 had parts adding up to 5.405e-13.
+    /// The range a reported term's value cannot leave in any run, which `check` holds edited
+    /// result documents to. Default: `[0, ∞)` for [`Loss::nonnegative_terms`], else
+    /// [`Loss::bounds`].
+    fn range(&self, key: &str) -> (f64, f64) {
+        if self.nonnegative_terms().contains(&key) {
+            (0.0, f64::INFINITY)
+        } else {
+            self.bounds(key)
+        }
+    }
+
+    /// Absolute rounding, in the loss's own units, that `check` allows a row's identities,
+    /// ranges and comparisons beyond their relative tolerance. Default 1e-12: losses whose terms
+    /// are differences of logarithms of order one (log-loss, Poisson deviance) or of shares carry
+    /// about 1e-16 of absolute rounding however small the row's expected loss (a
+    /// near-deterministic fit's expected log-loss of 5.4e-13 had parts adding up to 5.405e-13).
+    /// The squared loss, in the response's own units, takes 0 (relative only).
     fn identity_floor(&self) -> f64 {
-        0.0
+        1e-12
     }
 
     /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
@@ -401,6 +413,21 @@ pub trait Loss: Send + Sync {
         None
     }
 }
+
+/// Means of squares and unbiased variances of the squared and Brier losses
+/// ([`Loss::nonnegative_terms`]).
+pub const MEAN_SQUARE_TERMS: [&str; 6] = [
+    "expected_loss",
+    "expected_loss_direct",
+    "variance",
+    "diversity",
+    "member_variance",
+    "member_loss",
+];
+
+/// Divergences of the log-loss and the Poisson deviance ([`Loss::nonnegative_terms`]).
+pub const DIVERGENCE_TERMS: [&str; 4] =
+    ["expected_loss", "expected_loss_direct", "variance", "bias"];
 
 /// The built-in losses.
 pub fn registry() -> Vec<&'static dyn Loss> {

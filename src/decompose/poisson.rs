@@ -225,17 +225,8 @@ fn noise_terms(target: &Target<'_>, points: usize) -> Vec<f64> {
 }
 
 impl Loss for Poisson {
-    /// Deviances of counts of order one round at about 1e-16 absolute (larger counts round more; `run` makes the identity exact where it clamps a term at 0).
-    fn identity_floor(&self) -> f64 {
-        1e-12
-    }
-
-    /// Means of squares and divergences are never negative.
-    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
-        match key {
-            "expected_loss" | "expected_loss_direct" | "variance" | "bias" => (0.0, f64::INFINITY),
-            _ => self.bounds(key),
-        }
+    fn nonnegative_terms(&self) -> &'static [&'static str] {
+        &super::DIVERGENCE_TERMS
     }
 
     fn name(&self) -> &'static str {

@@ -192,18 +192,13 @@ pub fn point(acc: &Acc, g: usize, e: usize, truth: f64) -> SquaredPoint {
 }
 
 impl Loss for Squared {
-    /// Means of squares and unbiased variances are never negative (the unbiased squared bias,
-    /// `(m − f)² − V̂/R`, and `variance_data` can be).
-    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
-        match key {
-            "expected_loss"
-            | "expected_loss_direct"
-            | "variance"
-            | "diversity"
-            | "member_variance"
-            | "member_loss" => (0.0, f64::INFINITY),
-            _ => self.bounds(key),
-        }
+    fn nonnegative_terms(&self) -> &'static [&'static str] {
+        &super::MEAN_SQUARE_TERMS
+    }
+
+    /// In the response's own units, whose scale a document does not carry: relative only.
+    fn identity_floor(&self) -> f64 {
+        0.0
     }
 
     fn name(&self) -> &'static str {

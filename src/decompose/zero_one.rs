@@ -886,15 +886,10 @@ impl Loss for ZeroOne {
         }
     }
 
-    /// Shares of order one round at about 1e-16 absolute.
-    fn identity_floor(&self) -> f64 {
-        1e-12
-    }
-
     /// Shares, losses and the Kohavi–Wolpert noise and variance lie in [0, 1] (its squared bias,
     /// corrected by the unbiased sum of squared vote shares, can be below 0); the unstable points
     /// are a count (checked as such by `check`).
-    fn range(&self, key: &str, _observed: bool) -> (f64, f64) {
+    fn range(&self, key: &str) -> (f64, f64) {
         match key {
             "expected_loss"
             | "expected_loss_direct"

@@ -1761,52 +1761,21 @@ fn threshold_words(plan: &Plan) -> Option<String> {
     // A fixed design fits the same inputs every time: a deterministic fit's predictions are then
     // linear in Gaussian noise, with no heavy tail; random features are still drawn anew in
     // every replicate (a width-20 variance of 4e6 ± 4e6 on 20 fixed rows went unremarked).
-    let fixed = matches!(&plan.source, Source::Synthetic(s) if s.design == Design::Fixed);
     let q = plan.n_inputs();
-    let several = plan.models.len() > 1;
-    let mut hits: Vec<(usize, String)> = Vec::new();
-    for m in &plan.models {
-        if fixed && !m.family.caps(plan.task).stochastic {
-            continue;
-        }
-        for &n in &plan.sizes {
-            let (rows, words) = distinct_rows(plan, n);
-            for &v in &m.grid {
-                let Some(c) = m.family.min_norm_coefficients(v, q) else {
-                    continue;
-                };
-                // Within a quarter of the rows at most (1 feature of 5 rows was flagged).
-                if c.abs_diff(rows) <= THRESHOLD_NEAR.min(rows / 4).max(1) {
-                    hits.push((
-                        c.abs_diff(rows),
-                        format!(
-                            "{}{} = {} ({c} coefficient{}, {words})",
-                            if several {
-                                format!("{}: ", m.label)
-                            } else {
-                                String::new()
-                            },
-                            m.family.knob(),
-                            fmt_value(v),
-                            if c == 1 { "" } else { "s" }
-                        ),
-                    ));
-                }
-            }
-        }
-    }
-    if hits.is_empty() {
-        return None;
-    }
-    // Closest to the threshold first (stable: grid order among equals), so a long list never
-    // hides the threshold itself in "and N more".
-    hits.sort_by_key(|h| h.0);
-    let hits: Vec<String> = hits.into_iter().map(|h| h.1).collect();
-    let shown = hits.len().min(4);
-    let mut listed = hits[..shown].join(", ");
-    if hits.len() > shown {
-        listed.push_str(&format!(" and {} more", hits.len() - shown));
-    }
+    let listed = flagged_values(
+        plan,
+        |m| m.family.caps(plan.task).stochastic,
+        |m, rows, words, v| {
+            let c = m.family.min_norm_coefficients(v, q)?;
+            // Within a quarter of the rows at most (1 feature of 5 rows was flagged); closest
+            // first, so a long list never hides the threshold itself in "and N more".
+            let off = c.abs_diff(rows);
+            (off <= THRESHOLD_NEAR.min(rows / 4).max(1)).then(|| {
+                let s = if c == 1 { "" } else { "s" };
+                (off, format!("{c} coefficient{s}, {words}"))
+            })
+        },
+    )?;
     Some(format!(
         "Near the interpolation threshold at {listed}: a minimum-norm fit with about as many \
          coefficients as training rows has a variance with a heavy tail across training sets \
@@ -1814,6 +1783,55 @@ fn threshold_words(plan: &Plan) -> Option<String> {
          and Xu 2020, Theorem 1), so its standard error can be far too small there: read the \
          variance there as a lower bound."
     ))
+}
+
+/// The grid values a reading flags, listed for its sentence: `flag(model, rows, words, value)`
+/// gives, for each model, training size (its `rows` after [`distinct_rows`], in `words`) and
+/// grid value, a rank and the words in brackets, or `None`. On a fixed design only models for
+/// which `on_fixed` holds are looked at. The list reads "knob = v (words), ... and knob = w
+/// (words)", lowest rank first (grid order among equals), at most four and "N more"; the model's
+/// label leads each item when there are several. `None` when nothing is flagged.
+fn flagged_values(
+    plan: &Plan,
+    on_fixed: impl Fn(&crate::scenario::ModelPlan) -> bool,
+    flag: impl Fn(&crate::scenario::ModelPlan, usize, &str, f64) -> Option<(usize, String)>,
+) -> Option<String> {
+    let fixed = matches!(&plan.source, Source::Synthetic(s) if s.design == Design::Fixed);
+    let several = plan.models.len() > 1;
+    let mut hits: Vec<(usize, String)> = Vec::new();
+    for m in plan.models.iter().filter(|m| !fixed || on_fixed(m)) {
+        for &n in &plan.sizes {
+            let (rows, words) = distinct_rows(plan, n);
+            for &v in &m.grid {
+                if let Some((rank, what)) = flag(m, rows, &words, v) {
+                    let label = if several {
+                        format!("{}: ", m.label)
+                    } else {
+                        String::new()
+                    };
+                    let knob = m.family.knob();
+                    hits.push((rank, format!("{label}{knob} = {} ({what})", fmt_value(v))));
+                }
+            }
+        }
+    }
+    if hits.is_empty() {
+        return None;
+    }
+    hits.sort_by_key(|h| h.0);
+    let hits: Vec<String> = hits.into_iter().map(|h| h.1).collect();
+    let shown = hits.len().min(4);
+    Some(if hits.len() > shown {
+        format!(
+            "{} and {} more",
+            hits[..shown].join(", "),
+            hits.len() - shown
+        )
+    } else if shown == 1 {
+        hits[0].clone()
+    } else {
+        format!("{} and {}", hits[..shown - 1].join(", "), hits[shown - 1])
+    })
 }
 
 /// A sentence for the reading when an unpenalized least-squares fit
@@ -1828,51 +1846,17 @@ fn threshold_words(plan: &Plan) -> Option<String> {
 /// here), and the variance's standard error can be far too small. The block statistic of
 /// [`heavy_tail_words`] sees only a share of such runs.
 fn few_rows_words(plan: &Plan) -> Option<String> {
-    // A fixed design trains on the same inputs in every replicate: they never bunch up.
-    if matches!(&plan.source, Source::Synthetic(s) if s.design == Design::Fixed) {
-        return None;
-    }
     let q = plan.n_inputs();
-    let mut hits: Vec<String> = Vec::new();
-    let several = plan.models.len() > 1;
-    let distinct = |n: usize| distinct_rows(plan, n);
-    for m in &plan.models {
-        for &n in &plan.sizes {
-            let (rows, words) = distinct(n);
-            for &v in &m.grid {
-                let Some(p) = m.family.least_squares_coefficients(v, q) else {
-                    continue;
-                };
-                if p.saturating_mul(ROWS_PER_COEFFICIENT) > rows {
-                    hits.push(format!(
-                        "{}{} = {} ({p} coefficients from {words})",
-                        if several {
-                            format!("{}: ", m.label)
-                        } else {
-                            String::new()
-                        },
-                        m.family.knob(),
-                        fmt_value(v)
-                    ));
-                }
-            }
-        }
-    }
-    if hits.is_empty() {
-        return None;
-    }
-    let shown = hits.len().min(4);
-    let listed = if hits.len() > shown {
-        format!(
-            "{} and {} more",
-            hits[..shown].join(", "),
-            hits.len() - shown
-        )
-    } else if shown == 1 {
-        hits[0].clone()
-    } else {
-        format!("{} and {}", hits[..shown - 1].join(", "), hits[shown - 1])
-    };
+    let listed = flagged_values(
+        plan,
+        // A fixed design trains on the same inputs in every replicate: they never bunch up.
+        |_| false,
+        |m, rows, words, v| {
+            let p = m.family.least_squares_coefficients(v, q)?;
+            (p.saturating_mul(ROWS_PER_COEFFICIENT) > rows)
+                .then(|| (0, format!("{p} coefficients from {words}")))
+        },
+    )?;
     Some(format!(
         "Few rows per coefficient at {listed}: fewer than {ROWS_PER_COEFFICIENT} training rows \
          per least-squares coefficient (a rule of thumb). There the fit extrapolates wildly \

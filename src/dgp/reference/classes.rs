@@ -51,11 +51,9 @@ pub const MAX_TREE_DEPTH: usize = 8;
 /// common practice for probability estimates, no source).
 pub const TREE_MIN_LEAF: usize = 10;
 
-/// Probabilities below this count as it in a log-loss (a class a fit drove to 0).
-const P_FLOOR: f64 = 1e-12;
-
 /// Smallest class probability a logistic polynomial gives a twin (the rest renormalized): a
-/// probability of exactly 0 would make a label impossible and its log-loss infinite.
+/// probability of exactly 0 would make a label impossible and its log-loss infinite. A
+/// cross-validated log-loss counts a smaller probability as this one.
 pub const LOGIT_P_MIN: f64 = 1e-12;
 
 /// Largest total cost of the logistic polynomial's cross-validation, counted as training rows ×
@@ -417,9 +415,10 @@ pub fn scored(ll: &[f64], hit: &[f64]) -> Scored {
     }
 }
 
-/// Adds row `i`'s log-loss and hit under probabilities `p`.
-fn score_row(p: &[f64], yi: usize, ll: &mut f64, hit: &mut f64) {
-    *ll = -p[yi].max(P_FLOOR).ln();
+/// Row `i`'s log-loss and hit (its most probable class, the first among ties, is its label)
+/// under probabilities `p`; the k-NN shares of [`super::fit`] are scored here too.
+pub fn score_row(p: &[f64], yi: usize, ll: &mut f64, hit: &mut f64) {
+    *ll = -p[yi].max(LOGIT_P_MIN).ln();
     let best = (0..p.len()).fold(0, |b, c| if p[c] > p[b] { c } else { b });
     *hit = f64::from(u8::from(best == yi));
 }

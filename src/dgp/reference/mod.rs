@@ -760,6 +760,33 @@ impl Reference {
         }
     }
 
+    /// Class probabilities at every row of `x` (`rows × classes`), [`Reference::probs_at`] row by
+    /// row, bit for bit; the logistic polynomial builds its basis once for all rows (the twin
+    /// draws labels at every training row of every replicate).
+    pub fn probs_rows(&self, x: ArrayView2<'_, f64>) -> Array2<f64> {
+        let k = self.classes;
+        let mut out = Array2::zeros((x.nrows(), k));
+        if let Some(m) = &self.logit {
+            let p = m.probs_rows(x);
+            for (mut row, src) in out.rows_mut().into_iter().zip(p.chunks_exact(k.max(1))) {
+                row.iter_mut().zip(src).for_each(|(o, v)| *o = *v);
+                if self.temperature != 1.0 {
+                    sharpen(
+                        row.as_slice_mut().expect("a standard-layout row"),
+                        self.temperature,
+                    );
+                }
+            }
+        } else {
+            let mut buf = vec![0.0; x.ncols()];
+            for (mut row, src) in out.rows_mut().into_iter().zip(x.rows()) {
+                buf.iter_mut().zip(src).for_each(|(b, v)| *b = *v);
+                self.probs_at(&buf, row.as_slice_mut().expect("a standard-layout row"));
+            }
+        }
+        out
+    }
+
     /// Varying noise: σ²(x), the average over its [`Reference::smooth_k`] nearest table rows of
     /// the corrected squared leave-one-out residuals, times the level's factor; `None` without
     /// varying noise.
@@ -1161,10 +1188,7 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
                         .enumerate()
                         .map(|(cl, p)| (p - if cl == yi { 1.0 } else { 0.0 }).powi(2))
                         .sum();
-                    let best =
-                        (0..classes).fold(0, |b, cl| if probs[cl] > probs[b] { cl } else { b });
-                    hit[next][i] = if best == yi { 1.0 } else { 0.0 };
-                    logloss[next][i] = -probs[yi].ln();
+                    classes::score_row(&probs, yi, &mut logloss[next][i], &mut hit[next][i]);
                 }
                 next += 1;
             }
@@ -1179,7 +1203,8 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
         (v.iter().map(|a| (a - m) * (a - m)).sum::<f64>() / ((v.len() - 1) as f64 * v.len() as f64))
             .sqrt()
     };
-    let cv_logloss = (classes > 0).then(|| (mean(&logloss[bi]), se_of(&logloss[bi])));
+    let class_scores = (classes > 0).then(|| classes::scored(&logloss[bi], &hit[bi]));
+    let cv_logloss = class_scores.map(|s| (s.logloss, s.logloss_se));
     let (quality, quality_stderr, quality_name, noise_est, cv_noise) = if classes == 0 {
         let ym = mean(t.y.as_slice().unwrap_or(&t.y.to_vec()));
         let var = t.y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n as f64;
@@ -1201,7 +1226,8 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
             Some(mse * k as f64 / (k as f64 + 1.0)),
         )
     } else {
-        (mean(&hit[bi]), se_of(&hit[bi]), "accuracy", None, None)
+        let s = class_scores.expect("scored above for classes");
+        (s.accuracy, s.accuracy_se, "accuracy", None, None)
     };
     Ok(TwinFit {
         k,
