@@ -293,6 +293,123 @@ fn row_shape(doc: &ResultDoc, p: &crate::report::PointRow, observed: bool) -> de
     }
 }
 
+/// The largest training size of a document's rows (`None` with one size).
+fn largest_size(sizes: &[Option<u64>]) -> Option<u64> {
+    sizes.iter().copied().max().flatten()
+}
+
+/// The selection audit's section: one count per candidate (every model's grid at the largest
+/// size, end to end), adding up to the replicates, and every figure derived from the counts and
+/// the rows as `run` derives it (`report::selection::selection`). `plot --selection` alone checked
+/// the counts; `check` accepted an oracle share of 1.5.
+fn validate_selection(
+    doc: &ResultDoc,
+    sel: &crate::report::selection::Selection,
+    grids: &[(Option<&str>, &[f64])],
+    largest: Option<u64>,
+) -> Result<(), String> {
+    use crate::scenario::audit::{AuditPlan, Rule};
+    let rule = match sel.rule.as_str() {
+        "min" => Rule::Min,
+        "one_se" => Rule::OneSe,
+        other => {
+            return Err(format!(
+                "`selection.rule` is `{}`, not `min` or `one_se`; {EDITED}",
+                crate::fmt::clip(other, 40)
+            ))
+        }
+    };
+    let candidates: Vec<PointRow> = grids
+        .iter()
+        .flat_map(|(family, grid)| {
+            grid.iter().filter_map(move |v| {
+                doc.points.iter().find(|p| {
+                    p.family.as_deref() == *family
+                        && p.train_size == largest
+                        && p.value.to_bits() == v.to_bits()
+                })
+            })
+        })
+        .cloned()
+        .collect();
+    let total: u64 = sel
+        .chosen_counts
+        .iter()
+        .fold(0u64, |a, c| a.saturating_add(*c));
+    if sel.chosen_counts.len() != candidates.len() || total != doc.replicates || sel.folds < 2 {
+        return Err(format!(
+            "`selection` has {} counts adding up to {total} over {} folds, for {} candidates and \
+             {} replicates (each replicate chooses once); {EDITED}",
+            sel.chosen_counts.len(),
+            sel.folds,
+            candidates.len(),
+            doc.replicates
+        ));
+    }
+    let audit = AuditPlan {
+        folds: sel.folds,
+        rule,
+        larger_is_simpler: doc.larger_is_simpler,
+    };
+    let again = crate::report::selection::selection(
+        &audit,
+        &sel.chosen_counts,
+        &candidates,
+        &doc.best,
+        &|_| "value",
+    );
+    let close =
+        |a: f64, b: f64| a.to_bits() == b.to_bits() || (a - b).abs() <= 1e-12 * (a.abs() + b.abs());
+    for (key, written, derived) in [
+        ("oracle_best", sel.oracle_best, again.oracle_best),
+        (
+            "mean_excess_loss",
+            sel.mean_excess_loss,
+            again.mean_excess_loss,
+        ),
+        (
+            "q90_excess_loss",
+            sel.q90_excess_loss,
+            again.q90_excess_loss,
+        ),
+        (
+            "share_within_one_se",
+            sel.share_within_one_se,
+            again.share_within_one_se,
+        ),
+        ("share_oracle", sel.share_oracle, again.share_oracle),
+    ] {
+        if !close(written, derived) {
+            return Err(format!(
+                "`selection.{key}` is {}, but the counts and the rows give {}; {EDITED}",
+                crate::fmt::fmt_exact(written),
+                crate::fmt::fmt_exact(derived)
+            ));
+        }
+    }
+    if sel.candidates.len() != again.candidates.len()
+        || sel
+            .oracle_candidate
+            .as_ref()
+            .is_some_and(|o| !sel.candidates.contains(o))
+    {
+        return Err(format!(
+            "`selection.candidates` do not name the {} candidates; {EDITED}",
+            candidates.len()
+        ));
+    }
+    Ok(())
+}
+
+/// Whether `version` (`major.minor.patch`) is before `than`; false when it cannot be read.
+fn written_before(version: &str, than: (u64, u64, u64)) -> bool {
+    let parts: Vec<u64> = version.split('.').map_while(|p| p.parse().ok()).collect();
+    match parts.as_slice() {
+        [a, b, c, ..] => (*a, *b, *c) < than,
+        _ => false,
+    }
+}
+
 /// Refuses a result document that `run` cannot have written, naming the first bad key (a JSON
 /// path such as `points[3].stderr.variance`): a known loss; `points` without a repeated row
 /// ([`ResultDoc::check_points`]), one row per grid value of every model (`models`, else the
@@ -540,27 +657,97 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                 ));
             }
         }
-        // An interval holds its own estimate (the bootstrap percentile interval widened to
-        // ± 2 SE around it).
+        let se_of = |k: &str| {
+            p.stderr
+                .iter()
+                .find(|(s, _)| s == k)
+                .map_or(f64::NAN, |s| s.1)
+        };
+        // The noise of K classes is at most that of K equal shares (a Brier noise of 0.9 with
+        // two classes was accepted).
+        let classes = doc.scenario.labels.as_ref().map_or(0, Vec::len);
+        if classes > 0 && p.has("noise") {
+            let (v, max) = (p.get("noise"), loss.noise_max(classes));
+            if v.is_finite() && v > max + 1e-9 * max + loss.identity_floor() {
+                return Err(format!(
+                    "{}: `noise` is {}, more than {} classes allow ({}, when every class is \
+                     equally likely); {EDITED}",
+                    at(i),
+                    crate::fmt::fmt_exact(v),
+                    classes,
+                    crate::fmt::fmt_exact(max)
+                ));
+            }
+        }
+        // The standard error of a term bounded to a range of width w: each leave-one-block-out
+        // estimate lies in the range, so their jackknife error is at most w·√(blocks − 1)/2, and a
+        // bootstrap's at most w/2 (an edited 1e300 was accepted).
+        let blocks = doc.scenario.blocks.max(1) as f64;
+        for (k, se) in &p.stderr {
+            let (lo, hi) = loss.range(k);
+            let most = (hi - lo) * blocks.sqrt();
+            if most.is_finite() && se.is_finite() && *se > most {
+                return Err(format!(
+                    "{}: `stderr.{}` is {}, more than a term within [{}, {}] can have over {} \
+                     blocks; {EDITED}",
+                    at(i),
+                    crate::fmt::clip(k, 40),
+                    crate::fmt::fmt_exact(*se),
+                    crate::fmt::fmt_exact(lo),
+                    crate::fmt::fmt_exact(hi),
+                    doc.scenario.blocks
+                ));
+            }
+        }
+        // The direct check on a table is the same sum as the expected loss, to rounding (in the
+        // responses' squared units for the squared loss: exact fits left 9e-33 against 7e-33).
+        // With a known truth it is an independent estimate from fresh labels, which can miss a
+        // rare event entirely, so it is held to its range only.
+        if observed && p.has("expected_loss_direct") {
+            let (d, el) = (p.get("expected_loss_direct"), p.expected_loss());
+            let scale = doc
+                .noise_estimate
+                .as_ref()
+                .and_then(|n| n.response_variance)
+                .filter(|v| v.is_finite())
+                .unwrap_or(0.0);
+            let allowed = 1e-9 * (d.abs() + el.abs()) + loss.identity_floor().max(1e-12 * scale);
+            if d.is_finite() && el.is_finite() && (d - el).abs() > allowed {
+                return Err(format!(
+                    "{}: `expected_loss_direct` is {} against an `expected_loss` of {}, but on a \
+                     table they are the same sum; {EDITED}",
+                    at(i),
+                    crate::fmt::fmt_exact(d),
+                    crate::fmt::fmt_exact(el)
+                ));
+            }
+        }
+        // An interval holds its own estimate: the bootstrap percentile interval widened to
+        // ± 2 SE around it, then clipped to the term's bounds.
         for (k, (lo, hi)) in &p.interval {
             let v = p.get(k);
             let tol = 1e-9 * (v.abs() + lo.abs() + hi.abs()) + loss.identity_floor();
             // `run` clips an interval to the term's bounds (not to its wider range).
             let (min, max) = loss.bounds(k);
             let outside = *lo < min - tol || *hi > max + tol;
+            let se = se_of(k);
+            let narrow = se.is_finite()
+                && (*lo > (v - 2.0 * se).max(min) + tol + 1e-9 * se
+                    || *hi < (v + 2.0 * se).min(max) - tol - 1e-9 * se);
             if lo.is_finite()
                 && hi.is_finite()
                 && v.is_finite()
-                && (outside || !(*lo - tol <= v && v <= *hi + tol))
+                && (outside || narrow || !(*lo - tol <= v && v <= *hi + tol))
             {
                 return Err(format!(
                     "{}: `interval95.{}` is [{}, {}], which does not hold the row's estimate {} \
-                     within the term's range; {EDITED}",
+                     ± 2 standard errors ({}) within the term's range; {EDITED}",
                     at(i),
                     crate::fmt::clip(k, 40),
                     crate::fmt::fmt_exact(*lo),
                     crate::fmt::fmt_exact(*hi),
-                    crate::fmt::fmt_exact(v)
+                    crate::fmt::fmt_exact(v),
+                    crate::fmt::fmt_exact(se)
                 ));
             }
         }
@@ -599,6 +786,111 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
         }
     }
 
+    // The noise does not depend on the model or the training size: one number in every row (a
+    // known truth's at the same evaluation points; a table's its estimate). An edited 4.4 in
+    // one row was read as a regression.
+    let noises: Vec<(usize, f64)> = doc
+        .points
+        .iter()
+        .enumerate()
+        .filter(|(_, p)| p.has("noise"))
+        .map(|(i, p)| (i, p.get("noise")))
+        .collect();
+    if let Some(&(i0, n0)) = noises.first() {
+        let close =
+            |a: f64, b: f64| (a - b).abs() <= 1e-9 * (a.abs() + b.abs()) + loss.identity_floor();
+        if let Some(&(i, n)) = noises.iter().find(|(_, n)| !close(*n, n0)) {
+            return Err(format!(
+                "{}: `noise` is {}, but {} has {}, and the noise is the same for every model and \
+                 training size; {EDITED}",
+                at(i),
+                crate::fmt::fmt_exact(n),
+                at(i0),
+                crate::fmt::fmt_exact(n0)
+            ));
+        }
+        if let Some(e) = doc.noise_estimate.as_ref().filter(|_| observed) {
+            if !close(n0, e.value) {
+                return Err(format!(
+                    "{}: `noise` is {}, but `noise_estimate.value` is {}; {EDITED}",
+                    at(i0),
+                    crate::fmt::fmt_exact(n0),
+                    crate::fmt::fmt_exact(e.value)
+                ));
+            }
+        }
+    }
+    // A standard error is the jackknife of the row's own leave-one-block-out values, or at least
+    // that where the loss adds a second-order or noise-estimate part
+    // (`Loss::stderr_beyond_jackknife`): alternating leave-outs of ±1000 under a standard error
+    // of 0.15 made a paired `check` call a regression better, and standard errors of 1e3 hid
+    // one in an unpaired check.
+    if let Some(u) = &doc.uncertainty {
+        let b = usize::try_from(u.blocks).unwrap_or(0);
+        for (i, (p, r)) in doc.points.iter().zip(&u.rows).enumerate() {
+            for (k, se) in &p.stderr {
+                let bootstrap = described.iter().any(|t| &t.key == k && t.bootstrap);
+                let Some(v) = r.leave_out_of(k, b).filter(|_| b >= 2 && !bootstrap) else {
+                    continue;
+                };
+                let jack = crate::decompose::jackknife_se(&v);
+                let tol = 1e-9 * se.abs().max(jack.abs()) + loss.identity_floor();
+                let (low, high) = (*se < jack - tol, *se > jack + tol);
+                let beyond = loss.stderr_beyond_jackknife(k);
+                if se.is_finite() && jack.is_finite() && (low || (high && !beyond)) {
+                    return Err(format!(
+                        "{}: `stderr.{}` is {}, {} the jackknife of its own leave-one-block-out \
+                         values in `uncertainty` ({}); {EDITED}",
+                        at(i),
+                        crate::fmt::clip(k, 40),
+                        crate::fmt::fmt_exact(*se),
+                        if low { "below" } else { "not" },
+                        crate::fmt::fmt_exact(jack)
+                    ));
+                }
+            }
+        }
+    }
+    // A table's counts and shares.
+    if let Some(se) = doc.noise_estimate.as_ref().and_then(|n| n.stderr) {
+        if se < 0.0 || se.is_nan() {
+            return Err(format!(
+                "`noise_estimate.stderr` is {}, and a standard error is not negative; {EDITED}",
+                crate::fmt::fmt_exact(se)
+            ));
+        }
+    }
+    if let Some(t) = &doc.table {
+        let share_ok = (0.0..=1.0).contains(&t.held_out_share) || t.held_out_share.is_nan();
+        if !share_ok
+            || t.held_out_share_stderr
+                .is_some_and(|s| s < 0.0 || s.is_nan())
+        {
+            return Err(format!(
+                "`table.held_out_share` is {} ± {}, not a share in [0, 1] with a standard error; \
+                 {EDITED}",
+                crate::fmt::fmt_exact(t.held_out_share),
+                crate::fmt::fmt_exact(t.held_out_share_stderr.unwrap_or(f64::NAN))
+            ));
+        }
+    }
+    if let Some(sel) = &doc.selection {
+        validate_selection(doc, sel, &grids, largest_size(&sizes))?;
+    }
+    for (r, rk) in doc.ranking.iter().enumerate() {
+        for (k, c) in rk.candidates.iter().enumerate() {
+            let bad = [c.stderr, c.difference_stderr, c.unpaired_stderr]
+                .into_iter()
+                .flatten()
+                .any(|s| s < 0.0 || s.is_nan());
+            if bad {
+                return Err(format!(
+                    "`ranking[{r}].candidates[{k}]` has a negative standard error; {EDITED}"
+                ));
+            }
+        }
+    }
+
     // `best`: a row of the document (the largest training size) and rows of its curve.
     let largest = sizes.iter().copied().max().flatten();
     let on_curve = |v: f64| {
@@ -620,7 +912,22 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                 crate::fmt::fmt_exact(p.expected_loss())
             ))
         }
-        Some(_) => {}
+        Some(p) => {
+            // ... with its standard error (three times it widened the one-SE set, accepted).
+            let se = p
+                .stderr
+                .iter()
+                .find(|(t, _)| t == "expected_loss")
+                .map_or(f64::NAN, |t| t.1);
+            let written = doc.best.stderr.unwrap_or(f64::NAN);
+            if written.to_bits() != se.to_bits() && !(written.is_nan() && se.is_nan()) {
+                return Err(format!(
+                    "`best.stderr` is {}, but its row's `stderr.expected_loss` is {}; {EDITED}",
+                    crate::fmt::fmt_exact(written),
+                    crate::fmt::fmt_exact(se)
+                ));
+            }
+        }
     }
     if let Some(v) = doc
         .best
@@ -722,10 +1029,13 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                 })
                 .map(|p| p.expected_loss())
                 .fold(f64::INFINITY, f64::min);
-            match row {
+            let p = match row {
                 Some(p)
                     if p.expected_loss().to_bits() == sb.expected_loss.to_bits()
-                        && sb.expected_loss <= lowest => {}
+                        && sb.expected_loss <= lowest =>
+                {
+                    p
+                }
                 _ => {
                     return Err(format!(
                         "`learning[{c}].sizes[{k}]` is not the lowest expected loss of `{}` at \
@@ -733,6 +1043,51 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
                         crate::fmt::clip(&lc.family, 40),
                         sb.train_size
                     ))
+                }
+            };
+            // Its other numbers are its row's (a bias of 500 and a variance of −50 were drawn).
+            let main = |role: &str| {
+                described
+                    .iter()
+                    .find(|t| t.role == role && t.group == "main")
+                    .map_or(f64::NAN, |t| p.get(&t.key))
+            };
+            let same = |a: f64, b: f64| a.to_bits() == b.to_bits() || (a.is_nan() && b.is_nan());
+            let se = p
+                .stderr
+                .iter()
+                .find(|(t, _)| t == "expected_loss")
+                .map_or(f64::NAN, |t| t.1);
+            let copied = [
+                ("bias", sb.bias, main("bias")),
+                ("variance", sb.variance, main("variance")),
+                ("stderr", sb.stderr.unwrap_or(f64::NAN), se),
+                (
+                    "noise",
+                    sb.noise.unwrap_or(f64::NAN),
+                    sb.noise.map_or(f64::NAN, |_| p.get("noise")),
+                ),
+            ];
+            if let Some((key, ..)) = copied.iter().find(|(_, a, b)| !same(*a, *b)) {
+                return Err(format!(
+                    "`learning[{c}].sizes[{k}].{key}` is not its row's in `points`; {EDITED}"
+                ));
+            }
+        }
+        // The share of variance in what is left: variance over bias plus variance, each at 0
+        // or above, 0 when neither is left (before 0.3.6 it was the variance over the loss
+        // minus the noise, up to 8.3).
+        if let (Some(g), Some(last)) = (&lc.gain, lc.sizes.last()) {
+            if !written_before(&doc.version, (0, 3, 6)) {
+                let (b, v) = (last.bias.max(0.0), last.variance.max(0.0));
+                let share = if b + v > 0.0 { v / (b + v) } else { 0.0 };
+                if (g.variance_share - share).abs() > 1e-12 || g.variance_share.is_nan() {
+                    return Err(format!(
+                        "`learning[{c}].gain.variance_share` is {}, but the largest size's \
+                         variance over its bias plus variance is {}; {EDITED}",
+                        crate::fmt::fmt_exact(g.variance_share),
+                        crate::fmt::fmt_exact(share)
+                    ));
                 }
             }
         }
@@ -1577,6 +1932,17 @@ pub fn compare(
         .iter()
         .map(|m| (m.family.clone(), m.knob.clone()))
         .collect();
+    // The curves' scale: their largest expected loss (and a table's responses' variance).
+    let scale = [new, baseline]
+        .iter()
+        .flat_map(|d| {
+            d.points
+                .iter()
+                .map(|p| p.expected_loss())
+                .chain(d.noise_estimate.iter().filter_map(|n| n.response_variance))
+        })
+        .filter(|v| v.is_finite())
+        .fold(0.0f64, |a, v| a.max(v.abs()));
     let mut comparisons = Vec::new();
     for (i, &j) in pairs.iter().enumerate() {
         let (a, b) = (&new.points[i], &baseline.points[j]);
@@ -1697,8 +2063,12 @@ pub fn compare(
             }
             c.se = se;
             // Rounding is no change: a Poisson bias of −5e-16 against +4e-16 read "+175%, z =
-            // +10" (the loss's absolute floor; 0, and so no effect, for the squared loss).
-            let floor = crate::decompose::by_name(&new.loss).map_or(0.0, |l| l.identity_floor());
+            // +10" (the loss's absolute floor); for the squared loss, in the response's units,
+            // 1e-12 of the largest expected loss of either curve (or of a table's responses'
+            // variance): exact fits of 4e-31 and 2.2e-30 beside an underfit row read "+450%".
+            let floor = crate::decompose::by_name(&new.loss)
+                .map_or(0.0, |l| l.identity_floor())
+                .max(1e-12 * scale);
             let m = (margin * vb.abs()).max(floor);
             c.verdict = if diff == 0.0 {
                 Verdict::Unchanged
@@ -1796,36 +2166,60 @@ mod tests {
         point_sd: f64,
     ) -> ResultDoc {
         // A run stores every term with a standard error or none: terms the test does not give
-        // get constant values (no jackknife spread).
-        let mut leave_out: BTreeMap<String, String> = leave_out
+        // get values whose jackknife is the row's standard error (v ± se/√3 over 4 blocks), as
+        // `validate` holds a document to.
+        let given: BTreeMap<String, String> = leave_out
             .iter()
             .map(|(t, v)| (t.to_string(), pack_floats(v)))
             .collect();
-        if !leave_out.is_empty() {
-            for p in &d.points {
-                for (k, v) in &p.terms {
-                    if p.stderr.iter().any(|(s, _)| s == k) {
-                        leave_out
-                            .entry(k.clone())
-                            .or_insert_with(|| pack_floats(&[*v; 4]));
+        // ... and a given term's standard error is the jackknife of its values (at least that
+        // for bias², which may add a second-order part).
+        for p in &mut d.points {
+            for (k, se) in p.stderr.iter_mut() {
+                if let Some((_, v)) = leave_out.iter().find(|(t, _)| t == k) {
+                    let jack = decompose::jackknife_se(v);
+                    if se.is_finite() && (k != "bias_sq" || *se < jack) {
+                        *se = jack;
                     }
                 }
             }
         }
-        let row = RowUncertainty {
-            leave_out,
-            point_sd: ["expected_loss", "bias_sq", "variance"]
-                .iter()
-                .map(|t| (t.to_string(), point_sd))
-                .collect::<BTreeMap<_, _>>(),
-            point_noise: BTreeMap::new(),
-        };
+        d.best = crate::report::best_of(&d.points);
+        let rows: Vec<RowUncertainty> = d
+            .points
+            .iter()
+            .map(|p| {
+                let mut leave_out = given.clone();
+                if !leave_out.is_empty() {
+                    for (k, v) in &p.terms {
+                        if let Some((_, se)) = p.stderr.iter().find(|(s, _)| s == k) {
+                            let c = if se.is_finite() {
+                                se / 3f64.sqrt()
+                            } else {
+                                0.0
+                            };
+                            leave_out
+                                .entry(k.clone())
+                                .or_insert_with(|| pack_floats(&[v + c, v - c, v + c, v - c]));
+                        }
+                    }
+                }
+                RowUncertainty {
+                    leave_out,
+                    point_sd: ["expected_loss", "bias_sq", "variance"]
+                        .iter()
+                        .map(|t| (t.to_string(), point_sd))
+                        .collect::<BTreeMap<_, _>>(),
+                    point_noise: BTreeMap::new(),
+                }
+            })
+            .collect();
         d.uncertainty = Some(Uncertainty {
             eval_fingerprint: fingerprint.into(),
             eval_points: 5,
             eval_seed,
             blocks: 4,
-            rows: vec![row; d.points.len()],
+            rows,
         });
         d
     }
@@ -1849,6 +2243,37 @@ mod tests {
 
     // Hand-computed cases of the unpaired rule (different seeds, same points):
     // se = √(0.01² + 0.01²) = 0.014142; 4·se = 0.056569.
+    /// Exact fits differ by rounding: beside an underfit row of expected loss 1, 4e-31 against
+    /// 2.2e-30 is no change (it read "+450%, worse"); the same change on a row of 1 would be.
+    #[test]
+    fn squared_rounding_is_no_change_beside_the_curves_scale() {
+        let make = |tiny: f64, seed: u64| {
+            let mut d = with_unc(
+                doc(vec![
+                    row(1.0, 1.0, 0.5, 0.5, Some(0.01)),
+                    row(2.0, tiny, tiny / 2.0, tiny / 2.0, Some(1e-32)),
+                ]),
+                "p",
+                1,
+                &[],
+                0.1,
+            );
+            d.seed = seed;
+            d
+        };
+        let r = compare(&make(2.2e-30, 2), &make(4e-31, 1), &CheckOptions::default()).unwrap();
+        assert!(!r.regressed(), "{r}");
+        assert!(
+            r.comparisons
+                .iter()
+                .all(|c| c.verdict == Verdict::Unchanged),
+            "{r}"
+        );
+        // Above the floor (1e-12 of the curve's scale) a change still counts.
+        let r = compare(&make(0.5, 2), &make(0.25, 1), &CheckOptions::default()).unwrap();
+        assert!(r.regressed(), "{r}");
+    }
+
     #[test]
     fn unpaired_rule_on_hand_made_numbers() {
         let base = with_unc(
@@ -1996,7 +2421,7 @@ mod tests {
     fn paired_rule_on_hand_made_numbers() {
         let lo_base = [0.25, 0.26, 0.24, 0.25];
         let lo_new = [0.31, 0.31, 0.31, 0.31];
-        let el = [1.0, 1.0, 1.0, 1.0];
+        let el = [1.0, 1.01, 0.99, 1.0];
         let base = with_unc(
             doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.05))]),
             "p",
@@ -2020,8 +2445,9 @@ mod tests {
         let v = &r.comparisons[2];
         assert_eq!(v.term, "variance");
         assert!((v.se - 0.00015f64.sqrt()).abs() < 1e-12, "{}", v.se);
-        // Unpaired, the same change would be 0.06 / 0.0707 = 0.85 standard errors.
-        assert!((v.unpaired_se.unwrap() - 0.05 * 2f64.sqrt()).abs() < 1e-15);
+        // Unpaired, the standard errors are the jackknifes of each side's own leave-outs (the
+        // base's 0.0122, the new one's 0): the same change is 0.06 / 0.0122 = 4.9 of them.
+        assert!((v.unpaired_se.unwrap() - 0.00015f64.sqrt()).abs() < 1e-12);
         assert_eq!(v.verdict, Verdict::Worse);
         assert!(
             (r.se_ratio().unwrap() - 0.0).abs() < 1e-12,
@@ -2045,7 +2471,7 @@ mod tests {
             let u = n2.uncertainty.as_mut().unwrap();
             u.rows[0]
                 .leave_out
-                .insert("expected_loss".into(), pack_floats(&[1.0 + shift; 4]));
+                .insert("expected_loss".into(), pack_floats(&el.map(|x| x + shift)));
             let r = compare(&n2, &base, &CheckOptions::default()).unwrap();
             let c = &r.comparisons[0];
             assert_eq!((c.se, c.verdict), (0.0, verdict), "{r}");
@@ -2331,6 +2757,7 @@ mod tests {
         // still reads: its leave-one-block-out values need not be finite.
         let mut old = good.clone();
         old.points[1].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);
+        old.best = crate::report::best_of(&old.points);
         old.uncertainty.as_mut().unwrap().rows[1]
             .leave_out
             .insert("variance".into(), pack_floats(&[f64::NAN; 4]));

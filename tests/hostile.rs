@@ -120,7 +120,40 @@ struct Docs {
     ledger: Vec<u8>,
     /// A result document of a small 0-1 loss scenario with bootstrap intervals.
     zero_one: Vec<u8>,
+    /// A result document of a small table scenario (squared loss, out-of-bag).
+    table: Vec<u8>,
+    /// A result document of a small study: two training sizes and a selection audit.
+    study: Vec<u8>,
 }
+
+/// A small study: two training sizes (a learning curve) and a selection audit.
+const STUDY: &str = r#"name = "tiny study"
+seed = 3
+replicates = 8
+blocks = 4
+
+[data]
+source = "synthetic"
+train_size = [20, 40]
+eval_size = 12
+
+[[data.inputs]]
+name = "x"
+uniform = [0.0, 1.0]
+
+[data.truth]
+formula = "sin(6 * x)"
+
+[data.noise]
+sd = 0.3
+
+[model]
+family = "tree"
+grid = [1, 2, 3]
+
+[audit]
+folds = 3
+"#;
 
 /// A small two-class scenario whose 0-1 result carries bootstrap intervals.
 const ZERO_ONE: &str = r#"name = "tiny classes"
@@ -194,6 +227,10 @@ fn make_docs() -> Docs {
     run_ok(dir, &["run", "h.toml", "--assess", "2"]);
     fs::write(dir.join("z.toml"), ZERO_ONE).unwrap();
     run_ok(dir, &["run", "z.toml", "--out", "z.json", "-q"]);
+    fs::write(dir.join("tb.toml"), table_scenario("", TREE)).unwrap();
+    run_ok(dir, &["run", "tb.toml", "--out", "tb.json", "-q"]);
+    fs::write(dir.join("st.toml"), STUDY).unwrap();
+    run_ok(dir, &["run", "st.toml", "--out", "st.json", "-q"]);
     let r = |n: &str| fs::read(dir.join(n)).unwrap();
     Docs {
         part1: r("p1.json"),
@@ -202,6 +239,8 @@ fn make_docs() -> Docs {
         result: r("r.json"),
         ledger: r("h.holdout-ledger.json"),
         zero_one: r("z.json"),
+        table: r("tb.json"),
+        study: r("st.json"),
     }
 }
 
@@ -2647,7 +2686,7 @@ sd = 0.3
 noise = { method = "gamma", raw = 0.1, correction = 0.01, value = 0.09, stderr = 0.02, tables = 200 }
 
 [data.fit_report.fidelity]
-tables = 5
+tables = 2
 replicates = 100
 
 [[data.fit_report.fidelity.models]]
@@ -2730,6 +2769,38 @@ fn twin_cases(t: &mut Table) {
             "fit report loss -inf",
             twin("loss = [0.2, 0.1]", "loss = [0.2, -inf]"),
             "key `data.fit_report.fidelity.models[0].loss`",
+        ),
+        // A hand-edited record contradicting itself or the scenario was printed as the twin's
+        // recommendation (a pick of 99 off the grid) and noise (σ² = −3 beside sd = 0.3).
+        (
+            "fit report pick off the grid",
+            twin("pick = 2.0", "pick = 99.0"),
+            "key `data.fit_report.fidelity.models[0].pick`: is 99, not the grid value of the lowest `loss`",
+        ),
+        (
+            "fit report pick not the lowest loss",
+            twin("pick = 2.0", "pick = 1.0"),
+            "not the grid value of the lowest `loss`",
+        ),
+        (
+            "fit report noise not the scenario's",
+            twin("value = 0.09", "value = -3.0"),
+            "key `data.fit_report.noise.value`: is -3, but the scenario's noise has sd = 0.3",
+        ),
+        (
+            "fit report share of picks not theirs",
+            twin("in_one_se = 1.0", "in_one_se = 7.5"),
+            "key `data.fit_report.fidelity.models[0].in_one_se`: is 7.5, but 2 of the 2 picks",
+        ),
+        (
+            "fit report picks for other tables",
+            twin("tables = 2\n", "tables = 5\n"),
+            "key `data.fit_report.fidelity.models[0].picks`: has 2 values for 5 tables",
+        ),
+        (
+            "fit report lists of different lengths",
+            twin("corrected_loss = [0.2, 0.1]", "corrected_loss = [0.2]"),
+            "key `data.fit_report.fidelity.models[0].loss`: has 2 values and `corrected_loss` 1",
         ),
     ];
     for (name, scenario, needle) in cases {
@@ -3090,6 +3161,18 @@ fn noise_shape_cases(t: &mut Table) {
         &["validate", "s.toml"],
         "key `data.noise`: a classification twin has no [data.noise]",
     );
+    // A label given twice: the table's rows were refused under another label.
+    let twice = classes
+        .replace("labels = [\"u\", \"v\"]", "labels = [\"u\", \"u\", \"v\"]")
+        .replace("[data.noise]\nshape = \"residuals\"\n", "");
+    assert_ne!(twice, classes);
+    t.add(
+        g,
+        "twin: a class label given twice",
+        &[("s.toml", twice.as_bytes()), ("t.csv", labels.as_bytes())],
+        &["validate", "s.toml"],
+        "key `data.classes.labels`: label `u` appears twice",
+    );
 
     // `twin --noise-shape`.
     for (name, args, needle) in [
@@ -3210,6 +3293,119 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
                 serde_json::json!([-5.0, 5.0]),
             ),
             "within the term's range",
+        ),
+        (
+            "0-1: an interval narrower than ± 2 standard errors",
+            edit_json(&docs.zero_one, |v| {
+                let p = &mut v["points"][0];
+                let v = p["variance"].clone();
+                p["interval95"]["variance"] = serde_json::json!([v, v]);
+            }),
+            "± 2 standard errors",
+        ),
+        (
+            "0-1: a standard error beyond what a share can have",
+            set(&docs.zero_one, "stderr.bias", serde_json::json!(1e300)),
+            "`stderr.bias` is 1e300, more than a term within [0, 1] can have",
+        ),
+        (
+            "0-1: a noise beyond two equally likely classes",
+            set(&docs.zero_one, "noise", serde_json::json!(0.7)),
+            "more than 2 classes allow (0.5",
+        ),
+        (
+            "table: a direct check that is not the expected loss",
+            edit_json(&docs.table, |v| {
+                let p = &mut v["points"][0];
+                let el = p["expected_loss"].as_f64().unwrap();
+                p["expected_loss_direct"] = serde_json::json!(el * 1.5);
+            }),
+            "but on a table they are the same sum",
+        ),
+        (
+            "leave-one-block-out values that disagree with their standard error",
+            edit_json(&docs.result, |v| {
+                let b = v["uncertainty"]["blocks"].as_u64().unwrap() as usize;
+                let lo = &mut v["uncertainty"]["rows"][0]["leave_out"]["bias_sq"];
+                let vals: Vec<f64> = (0..b)
+                    .map(|j| if j % 2 == 0 { -1e3 } else { 1e3 })
+                    .collect();
+                *lo = serde_json::json!(lossprism::codec::pack_floats(&vals));
+            }),
+            "below the jackknife of its own leave-one-block-out values",
+        ),
+        (
+            "a standard error that is not the jackknife of its leave-outs",
+            edit_json(&docs.result, |v| {
+                let se = v["points"][0]["stderr"]["expected_loss"].as_f64().unwrap();
+                v["points"][0]["stderr"]["expected_loss"] = serde_json::json!(se * 1e3);
+            }),
+            "not the jackknife of its own leave-one-block-out values",
+        ),
+        (
+            "a noise that differs between two rows",
+            edit_json(&docs.result, |v| {
+                let p = &mut v["points"][1];
+                let n = p["noise"].as_f64().unwrap();
+                p["noise"] = serde_json::json!(n + 0.4);
+                let el = p["expected_loss"].as_f64().unwrap();
+                p["expected_loss"] = serde_json::json!(el + 0.4);
+            }),
+            "the noise is the same for every model and training size",
+        ),
+        (
+            "best: a standard error that is not its row's",
+            edit_json(&docs.result, |v| {
+                let se = v["best"]["stderr"].as_f64().unwrap();
+                v["best"]["stderr"] = serde_json::json!(se * 3.0);
+            }),
+            "`best.stderr` is",
+        ),
+        (
+            "table: a noise that is not the noise estimate",
+            edit_json(&docs.table, |v| {
+                for p in v["points"].as_array_mut().unwrap() {
+                    let n = p["noise"].as_f64().unwrap();
+                    p["noise"] = serde_json::json!(n - 1.0);
+                    let b = p["bias_sq"].as_f64().unwrap();
+                    p["bias_sq"] = serde_json::json!(b + 1.0);
+                }
+            }),
+            "but `noise_estimate.value` is",
+        ),
+        (
+            "table: bias² that is not bias²+noise minus the noise",
+            set(&docs.table, "bias_sq", serde_json::json!(-0.5)),
+            "table bias² = (bias² + noise) − the noise estimate",
+        ),
+        (
+            "study: a variance share above 1",
+            edit_json(&docs.study, |v| {
+                v["learning"][0]["gain"]["variance_share"] = serde_json::json!(1.5);
+            }),
+            "`learning[0].gain.variance_share` is 1.5",
+        ),
+        (
+            "study: a learning-curve variance that is not its row's",
+            edit_json(&docs.study, |v| {
+                v["learning"][0]["sizes"][0]["variance"] = serde_json::json!(-50.0);
+            }),
+            "`learning[0].sizes[0].variance` is not its row's",
+        ),
+        (
+            "study: selection counts for more choices than replicates",
+            edit_json(&docs.study, |v| {
+                let c = v["selection"]["chosen_counts"][0].as_u64().unwrap();
+                v["selection"]["chosen_counts"][0] = serde_json::json!(c + 1);
+            }),
+            "each replicate chooses once",
+        ),
+        (
+            "study: a selection share that the counts do not give",
+            edit_json(&docs.study, |v| {
+                v["selection"]["share_oracle"] = serde_json::json!(1.5);
+            }),
+            "`selection.share_oracle` is 1.5, but the counts and the rows give",
         ),
         (
             "0-1: an interval that excludes its estimate",
@@ -4816,12 +5012,12 @@ fn document_cases(t: &mut Table, docs: &Docs) {
         (
             "cut short",
             serde_json::json!([4]),
-            "`selection.chosen_counts` has 1 entries for 2 grid values",
+            "`selection` has 1 counts adding up to 4 over 3 folds, for 2 candidates",
         ),
         (
             "more choices than replicates",
             serde_json::json!([30, 70]),
-            "`selection.chosen_counts` add up to 100 choices for 4 replicates",
+            "`selection` has 2 counts adding up to 100 over 3 folds, for 2 candidates and 4 replicates",
         ),
     ] {
         let bytes = edit_json(&docs.result, |v| {

@@ -548,6 +548,18 @@ fn classification_twin_verdicts_say_where_they_stop() {
             "{temp}"
         );
         assert_eq!(temp.contains("still give"), bound, "{temp}");
+        if bound {
+            // With digits enough to tell the two apart (30 classes printed "0.0667, more than
+            // the table's 0.0667").
+            let give = temp.split("still give ").nth(1).unwrap();
+            let (a, rest) = give.split_once(", more than the table's ").unwrap();
+            let b = rest.split(':').next().unwrap();
+            assert!(
+                a.parse::<f64>().unwrap() > b.parse::<f64>().unwrap(),
+                "{temp}"
+            );
+            assert_ne!(a, b, "{temp}");
+        }
     }
     // Labels unrelated to `a`: the twin's Bayes error lands near the table's error, on either
     // side; above it by less than one SE must not read "below".

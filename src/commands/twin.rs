@@ -1354,12 +1354,19 @@ fn temperature_line(t: &reference::Temperature) -> String {
         reference::TEMPERATURE_DRAWS
     );
     if t.tau <= crate::scenario::twin::TEMPERATURE_MIN && t.at_tau > t.observed {
+        // Digits enough to tell the two apart (30 classes printed "0.0667, more than 0.0667").
+        let d = (3..=17)
+            .find(|&d| format!("{:.*}", d, t.at_tau) != format!("{:.*}", d, t.observed))
+            .unwrap_or(17);
+        let (at, table) = (
+            format!("{:.*}", d, t.at_tau),
+            format!("{:.*}", d, t.observed),
+        );
         format!(
             "Temperature {} (its lower bound): {what}, so the probabilities are too close to the \
-             middle; sharpened as far as the bound allows, the twin's labels still give {}, \
-             more than the table's error: this twin's expected losses run high.",
-            fmt_num(t.tau),
-            fmt_num(t.at_tau)
+             middle; sharpened as far as the bound allows, the twin's labels still give {at}, \
+             more than the table's {table}: this twin's expected losses run high.",
+            fmt_num(t.tau)
         )
     } else if t.tau < 1.0 {
         format!(
@@ -1456,13 +1463,18 @@ pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<
                 "{}: --reference {} cannot be fitted on this table ({} rows, {} inputs, {} \
                  classes: fewer than 4 rows per basis column in a training fold, more than {} \
                  coefficients, beyond the cross-validation's cost budget, or a fit that failed); \
-                 use best or knn",
+                 use best or one that was fitted here: {}",
                 t.path.display(),
                 c.name(),
                 n,
                 t.x.ncols(),
                 classes,
-                classes::MAX_LOGIT_PARAMS
+                classes::MAX_LOGIT_PARAMS,
+                cands
+                    .iter()
+                    .map(|x| x.0.name())
+                    .collect::<Vec<_>>()
+                    .join(", ")
             ))
         })?,
     };

@@ -154,6 +154,33 @@ impl Loss for Brier {
         &super::MEAN_SQUARE_TERMS
     }
 
+    /// A squared distance between two probability vectors is at most 2; the noise `1 − Σ p²`
+    /// and a variance of probability vectors (`E ‖q‖² − ‖E q‖² ≤ 1`) at most 1.
+    fn range(&self, key: &str) -> (f64, f64) {
+        let lo = if self.nonnegative_terms().contains(&key) {
+            0.0
+        } else {
+            f64::NEG_INFINITY
+        };
+        match key {
+            "expected_loss" | "expected_loss_direct" | "member_loss" | "bias_sq" => (lo, 2.0),
+            "noise" => (0.0, 1.0),
+            "variance" | "variance_data" | "variance_fit" | "member_variance" | "diversity" => {
+                (lo, 1.0)
+            }
+            _ => self.bounds(key),
+        }
+    }
+
+    /// The second-order part of `bias_sq` (and on a table the noise estimate's error).
+    fn stderr_beyond_jackknife(&self, key: &str) -> bool {
+        key == "bias_sq"
+    }
+
+    fn noise_max(&self, classes: usize) -> f64 {
+        1.0 - 1.0 / classes.max(1) as f64
+    }
+
     fn name(&self) -> &'static str {
         "brier"
     }

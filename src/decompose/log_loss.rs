@@ -176,6 +176,10 @@ impl Loss for LogLoss {
         &super::DIVERGENCE_TERMS
     }
 
+    fn noise_max(&self, classes: usize) -> f64 {
+        (classes.max(1) as f64).ln()
+    }
+
     fn name(&self) -> &'static str {
         "log"
     }

@@ -396,6 +396,22 @@ pub trait Loss: Send + Sync {
         1e-12
     }
 
+    /// Whether the standard error of term `key` adds a part to the jackknife of its
+    /// leave-one-block-out values ([`Loss::second_order_stderr`], [`Loss::adjust_stderr`]);
+    /// every other jackknifed term's standard error is that jackknife exactly, which `check`
+    /// holds documents to. Default: none.
+    fn stderr_beyond_jackknife(&self, _key: &str) -> bool {
+        false
+    }
+
+    /// The largest noise term `classes` classes allow: the noise of equal shares, where every
+    /// class is as likely as the others (1 − 1/K for the 0-1 and Brier losses, ln K for the
+    /// log-loss; textbook maxima of the Gini impurity and the entropy). `check` refuses a noise
+    /// beyond it. Default: no bound (real responses, counts).
+    fn noise_max(&self, _classes: usize) -> f64 {
+        f64::INFINITY
+    }
+
     /// Per-point values at grid value `g`, point `e` (same order as [`Loss::point_columns`]);
     /// label columns are written as class indices.
     fn point_values(&self, acc: &Acc, target: &Target<'_>, g: usize, e: usize) -> Vec<f64>;

@@ -484,6 +484,11 @@ impl Loss for Squared {
         v
     }
 
+    /// The second-order part of `bias_sq` (and on a table the noise estimate's error).
+    fn stderr_beyond_jackknife(&self, key: &str) -> bool {
+        key == "bias_sq"
+    }
+
     fn identities(&self, shape: &Shape, observed: bool) -> Vec<Identity> {
         let mut v = vec![if observed {
             Identity {
@@ -498,6 +503,13 @@ impl Loss for Squared {
                 parts: &[("noise", 1.0), ("bias_sq", 1.0), ("variance", 1.0)],
             }
         }];
+        if observed {
+            v.push(Identity {
+                name: "table bias² = (bias² + noise) − the noise estimate",
+                total: "bias_sq_plus_noise",
+                parts: &[("bias_sq", 1.0), ("noise", 1.0)],
+            });
+        }
         if shape.fits >= 2 {
             v.push(Identity {
                 name: "law of total variance: variance = variance_data + variance_fit",

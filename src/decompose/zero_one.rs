@@ -499,6 +499,15 @@ const BOOTSTRAP_KEYS: &[&str] = &[
 ];
 
 impl Loss for ZeroOne {
+    /// The second-order part of the Kohavi–Wolpert bias².
+    fn stderr_beyond_jackknife(&self, key: &str) -> bool {
+        key == "kohavi_wolpert.bias_sq"
+    }
+
+    fn noise_max(&self, classes: usize) -> f64 {
+        1.0 - 1.0 / classes.max(1) as f64
+    }
+
     fn name(&self) -> &'static str {
         "zero_one"
     }

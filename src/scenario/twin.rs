@@ -657,6 +657,108 @@ fn non_finite_in_report(r: &FitReportSpec) -> Option<(String, f64)> {
     None
 }
 
+/// The first statement of `[data.fit_report]` that contradicts itself or the scenario, with its
+/// key: a noise record whose σ² is not the scenario's `sd` squared (`sd` is the square root of
+/// the corrected value, 0 below 0), or a standard error below 0; a fidelity record whose pick
+/// is not the lowest of its curve, whose one-SE set or picks leave its grid, whose share of
+/// picks inside the set is not theirs, or whose lists differ in length (a hand-edited pick of 99
+/// off the grid was printed as the recommended pick, and σ² = −3 beside an `sd` of 0.54).
+fn inconsistent_report(r: &FitReportSpec, sd: Option<f64>) -> Option<(String, String)> {
+    let num = crate::fmt::fmt_exact;
+    if let Some(n) = &r.noise {
+        if n.stderr < 0.0 {
+            return Some((
+                "noise.stderr".into(),
+                format!("is {}, below 0", num(n.stderr)),
+            ));
+        }
+        if let Some(sd) = sd {
+            let written = n.value.max(0.0);
+            if (sd * sd - written).abs() > 1e-9 * written.max(sd * sd) + 1e-300 {
+                return Some((
+                    "noise.value".into(),
+                    format!(
+                        "is {}, but the scenario's noise has sd = {} (σ² = {})",
+                        num(n.value),
+                        num(sd),
+                        num(sd * sd)
+                    ),
+                ));
+            }
+        }
+    }
+    let tables = r.fidelity.as_ref().map_or(0, |f| f.tables as usize);
+    for (i, m) in r.fidelity.iter().flat_map(|f| f.models.iter()).enumerate() {
+        let key = |k: &str| format!("fidelity.models[{i}].{k}");
+        let n = m.grid.len();
+        if n == 0 || m.loss.len() != n || m.corrected_loss.len() != n {
+            return Some((
+                key("loss"),
+                format!(
+                    "has {} values and `corrected_loss` {} for a grid of {n}",
+                    m.loss.len(),
+                    m.corrected_loss.len()
+                ),
+            ));
+        }
+        let on_grid = |v: f64| m.grid.contains(&v);
+        let lowest = |l: &[f64]| l.iter().copied().fold(f64::INFINITY, f64::min);
+        let at = |v: f64, l: &[f64]| m.grid.iter().position(|g| *g == v).map(|j| l[j]);
+        if at(m.pick, &m.loss) != Some(lowest(&m.loss)) {
+            return Some((
+                key("pick"),
+                format!(
+                    "is {}, not the grid value of the lowest `loss`",
+                    num(m.pick)
+                ),
+            ));
+        }
+        if at(m.corrected_pick, &m.corrected_loss) != Some(lowest(&m.corrected_loss)) {
+            return Some((
+                key("corrected_pick"),
+                format!(
+                    "is {}, not the grid value of the lowest `corrected_loss`",
+                    num(m.corrected_pick)
+                ),
+            ));
+        }
+        if !m.one_se.contains(&m.pick) || !m.one_se.iter().all(|v| on_grid(*v)) {
+            return Some((
+                key("one_se"),
+                "does not hold the pick, or holds a value off the grid".into(),
+            ));
+        }
+        if m.picks.len() != tables || !m.picks.iter().all(|v| on_grid(*v)) {
+            return Some((
+                key("picks"),
+                format!(
+                    "has {} values for {tables} tables, or a value off the grid",
+                    m.picks.len()
+                ),
+            ));
+        }
+        let inside = m.picks.iter().filter(|p| m.one_se.contains(p)).count();
+        let share = inside as f64 / m.picks.len().max(1) as f64;
+        if (m.in_one_se - share).abs() > 1e-12 {
+            return Some((
+                key("in_one_se"),
+                format!(
+                    "is {}, but {inside} of the {} picks are in `one_se`",
+                    num(m.in_one_se),
+                    m.picks.len()
+                ),
+            ));
+        }
+        if m.curve_error < 0.0 {
+            return Some((
+                key("curve_error"),
+                format!("is {}, below 0", num(m.curve_error)),
+            ));
+        }
+    }
+    None
+}
+
 /// The record of `[data.fit_report]`.
 fn report_of(r: &FitReportSpec) -> FitReport {
     FitReport {
@@ -821,6 +923,15 @@ pub fn from_spec(
                     "data.classes",
                     "a twin's class probabilities come from the reference: give only `labels`"
                         .into(),
+                ));
+            }
+            // A label given twice: the table's rows were then refused under another label.
+            let mut seen = std::collections::HashSet::new();
+            if let Some(l) = c.labels.get_ref().iter().find(|l| !seen.insert(l.as_str())) {
+                return Err(err(
+                    c.labels.span(),
+                    "data.classes.labels",
+                    format!("label `{}` appears twice", crate::fmt::clip(l, 60)),
                 ));
             }
             TargetKind::Classes(Some(c.labels.get_ref().clone()))
@@ -1105,6 +1216,20 @@ pub fn from_spec(
                 r.span(),
                 &format!("data.fit_report.{key}"),
                 format!("must be a finite number, got {v} (the record `lossprism twin` wrote holds finite numbers only)"),
+            ));
+        }
+        let sd = match &noise {
+            Some(TwinNoise::Constant(sd)) => Some(*sd),
+            _ => None,
+        };
+        if let Some((key, why)) = inconsistent_report(r.get_ref(), sd) {
+            return Err(err(
+                r.span(),
+                &format!("data.fit_report.{key}"),
+                format!(
+                    "{why}: the record `lossprism twin` wrote does not say that (remove \
+                     [data.fit_report] if the scenario was changed on purpose)"
+                ),
             ));
         }
         if let Some(v) = r.get_ref().sharpen {
