@@ -820,6 +820,67 @@ pub fn validate(doc: &ResultDoc) -> Result<(), String> {
             }
         }
     }
+    // The uncertainty section describes this run: its blocks, evaluation points and seed are the
+    // scenario's (edited ones switched a paired comparison to an unpaired one, and turned the
+    // bounded terms' rule off); per-point spreads are standard deviations and variances; each
+    // leave-one-block-out value within its term's range.
+    if let Some(u) = &doc.uncertainty {
+        let seed_differs = doc.scenario.eval_seed.is_some_and(|s| s != u.eval_seed);
+        if u.blocks != doc.scenario.blocks
+            || u.blocks > doc.replicates
+            || u.eval_points != doc.scenario.eval_size
+            || seed_differs
+        {
+            return Err(format!(
+                "`uncertainty` has {} blocks and {} evaluation points (seed {}), but the run has \
+                 {} blocks of {} replicates and {} evaluation points{}; {EDITED}",
+                u.blocks,
+                u.eval_points,
+                u.eval_seed,
+                doc.scenario.blocks,
+                doc.replicates,
+                doc.scenario.eval_size,
+                doc.scenario
+                    .eval_seed
+                    .map_or(String::new(), |s| format!(" (seed {s})"))
+            ));
+        }
+        let b = usize::try_from(u.blocks).unwrap_or(0);
+        for (i, r) in u.rows.iter().enumerate() {
+            let spreads = r.point_sd.iter().chain(&r.point_noise);
+            if let Some((k, v)) = spreads
+                .clone()
+                .find(|(_, v)| !(v.is_finite() && **v >= 0.0))
+            {
+                return Err(format!(
+                    "`uncertainty.rows[{i}]`: the spread of `{}` across evaluation points is {}, \
+                     not a finite number >= 0; {EDITED}",
+                    crate::fmt::clip(k, 40),
+                    crate::fmt::fmt_exact(*v)
+                ));
+            }
+            for k in r.leave_out.keys() {
+                let (lo, hi) = loss.range(k);
+                let Some(v) = r.leave_out_of(k, b) else {
+                    continue;
+                };
+                let tol = |x: f64| 1e-9 * x.abs() + loss.identity_floor();
+                if let Some(x) = v
+                    .iter()
+                    .find(|x| x.is_finite() && (**x < lo - tol(**x) || **x > hi + tol(**x)))
+                {
+                    return Err(format!(
+                        "`uncertainty.rows[{i}].leave_out.{}` holds {}, outside [{}, {}], where \
+                         the term lies by its definition; {EDITED}",
+                        crate::fmt::clip(k, 40),
+                        crate::fmt::fmt_exact(*x),
+                        crate::fmt::fmt_exact(lo),
+                        crate::fmt::fmt_exact(hi)
+                    ));
+                }
+            }
+        }
+    }
     // A standard error is the jackknife of the row's own leave-one-block-out values, or at least
     // that where the loss adds a second-order or noise-estimate part
     // (`Loss::stderr_beyond_jackknife`): alternating leave-outs of ±1000 under a standard error
@@ -1278,6 +1339,10 @@ pub struct Comparison {
     pub unpaired_se: Option<f64>,
     /// The relative margin that applied to this term.
     pub margin: f64,
+    /// The threshold `|z|` had to pass: the quantile of Student's t, at the degrees of freedom
+    /// of `se` (the blocks' less one, paired; Welch–Satterthwaite's over both runs' blocks,
+    /// unpaired), whose tail is that of a normal beyond `--sigma` ([`t_threshold`]).
+    pub crit: f64,
     /// The verdict.
     pub verdict: Verdict,
 }
@@ -1300,8 +1365,8 @@ impl Comparison {
     /// The rule that produced the verdict, e.g. `z > 4 and d > 2% of |base|`.
     pub fn rule(&self, sigma: f64) -> String {
         let m = pct(self.margin);
-        // `{sigma}` printed 1e308 digit by digit.
-        let sigma = fmt_value(sigma);
+        // `{sigma}` printed 1e308 digit by digit; the Student-t threshold to 3 digits.
+        let sigma = crit_words(sigma, self.crit);
         match (self.verdict, self.margin_only()) {
             (Verdict::Worse, false) => format!("z > {sigma} and d > {m} of |base|"),
             (Verdict::Better, false) if sigma == "0" => format!("z < 0 and |d| > {m} of |base|"),
@@ -1499,10 +1564,34 @@ impl fmt::Display for CheckReport {
         let worse = self.worse().count();
         let better = self.better().count();
         let unchanged = n - worse - better;
+        let crits: Vec<f64> = self
+            .comparisons
+            .iter()
+            .filter(|c| c.se > 0.0)
+            .map(|c| c.crit)
+            .collect();
+        let (lo, hi) = crits
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(a, b), &c| {
+                (a.min(c), b.max(c))
+            });
+        let threshold = if crits.is_empty() || crit_words(sigma, hi) == fmt_value(sigma) {
+            format!("z > {}", fmt_value(sigma))
+        } else {
+            let range = if crit_words(sigma, lo) == crit_words(sigma, hi) {
+                crit_words(sigma, hi)
+            } else {
+                format!("{}-{}", crit_words(sigma, lo), crit_words(sigma, hi))
+            };
+            format!(
+                "z > {range}, the Student t quantiles (over the blocks' degrees of freedom) of a \
+                 normal's tail beyond {}",
+                fmt_value(sigma)
+            )
+        };
         let mut rule = format!(
-            "{}; worse when z > {} and d > {} of |base|",
+            "{}; worse when {threshold} and d > {} of |base|",
             self.mode.word(),
-            fmt_value(sigma),
             pct(self.options.margin)
         );
         if !self.options.term_margins.is_empty() {
@@ -1535,6 +1624,135 @@ impl fmt::Display for CheckReport {
             )
         }
     }
+}
+
+/// The threshold `z` must pass: 3 significant digits of the Student-t quantile `crit`, or
+/// `sigma` as written when they agree to those digits (many degrees of freedom).
+fn crit_words(sigma: f64, crit: f64) -> String {
+    if crit.is_finite() && (crit - sigma).abs() <= 5e-4 * sigma.max(1.0) {
+        fmt_value(sigma)
+    } else if crit.is_finite() && crit < 1e3 {
+        format!("{crit:.3}")
+    } else if crit.is_finite() {
+        crate::fmt::fmt_num(crit)
+    } else {
+        "infinity".into()
+    }
+}
+
+/// The z threshold of `--sigma` at `df` degrees of freedom: the quantile of Student's t with
+/// the same upper tail as a standard normal beyond `sigma`. A jackknife standard error over B
+/// blocks is itself estimated from B values, so `d / se` follows t with about B − 1 degrees of
+/// freedom rather than the normal (common practice for group jackknives; `docs/check-calibration.md`
+/// measured the heavier tail at B = 32), and at 6 blocks `z > 4` was passed by genuine runs one
+/// time in 15. `sigma` itself with infinitely many degrees of freedom; infinite when the
+/// normal tail underflows (`sigma` beyond about 37).
+pub fn t_threshold(sigma: f64, df: f64) -> f64 {
+    if !(df.is_finite() && df < 1e7) || sigma <= 0.0 {
+        return sigma;
+    }
+    let df = df.max(1.0);
+    let p = crate::decompose::zero_one::normal_cdf(-sigma);
+    if p <= 0.0 || p.is_nan() {
+        return f64::INFINITY;
+    }
+    let (mut lo, mut hi) = (sigma, sigma.max(1.0));
+    while student_t_sf(hi, df) > p {
+        hi *= 2.0;
+        if hi > 1e12 {
+            return hi;
+        }
+    }
+    for _ in 0..200 {
+        let mid = 0.5 * (lo + hi);
+        if student_t_sf(mid, df) > p {
+            lo = mid;
+        } else {
+            hi = mid;
+        }
+        if hi - lo <= 1e-12 * hi {
+            break;
+        }
+    }
+    hi
+}
+
+/// `P(T > t)` for Student's t with `df` degrees of freedom, `t ≥ 0`: `½ I_{df/(df+t²)}(df/2,
+/// 1/2)`, the regularized incomplete beta function (Abramowitz and Stegun 1964, 26.7.1 and
+/// 26.5.1; from memory).
+fn student_t_sf(t: f64, df: f64) -> f64 {
+    0.5 * incomplete_beta(df / (df + t * t), 0.5 * df, 0.5)
+}
+
+/// The regularized incomplete beta function `I_x(a, b)`, by its continued fraction evaluated
+/// with the modified Lentz method (Press, Teukolsky, Vetterling and Flannery, *Numerical
+/// Recipes*, 3rd ed., 2007, §6.4; from memory).
+fn incomplete_beta(x: f64, a: f64, b: f64) -> f64 {
+    if x <= 0.0 {
+        return 0.0;
+    }
+    if x >= 1.0 {
+        return 1.0;
+    }
+    let front =
+        (ln_gamma(a + b) - ln_gamma(a) - ln_gamma(b) + a * x.ln() + b * (1.0 - x).ln()).exp();
+    if x < (a + 1.0) / (a + b + 2.0) {
+        front * beta_fraction(x, a, b) / a
+    } else {
+        1.0 - front * beta_fraction(1.0 - x, b, a) / b
+    }
+}
+
+/// The continued fraction of [`incomplete_beta`].
+fn beta_fraction(x: f64, a: f64, b: f64) -> f64 {
+    const TINY: f64 = 1e-300;
+    let tiny = |v: f64| if v.abs() < TINY { TINY } else { v };
+    let (qab, qap, qam) = (a + b, a + 1.0, a - 1.0);
+    let mut c = 1.0;
+    let mut d = 1.0 / tiny(1.0 - qab * x / qap);
+    let mut h = d;
+    for m in 1..=500 {
+        let m = m as f64;
+        let m2 = 2.0 * m;
+        let aa = m * (b - m) * x / ((qam + m2) * (a + m2));
+        d = 1.0 / tiny(1.0 + aa * d);
+        c = tiny(1.0 + aa / c);
+        h *= d * c;
+        let aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2));
+        d = 1.0 / tiny(1.0 + aa * d);
+        c = tiny(1.0 + aa / c);
+        let step = d * c;
+        h *= step;
+        if (step - 1.0).abs() < 1e-15 {
+            break;
+        }
+    }
+    h
+}
+
+/// `ln Γ(x)` for `x ≥ 1/2`: the Lanczos approximation with g = 7 and nine coefficients
+/// (Lanczos 1964, *SIAM J. Numer. Anal.* B 1:86–96; the coefficients as commonly tabulated,
+/// from memory), accurate to about 1e-15.
+fn ln_gamma(x: f64) -> f64 {
+    const G: f64 = 7.0;
+    const C: [f64; 9] = [
+        0.999_999_999_999_809_9,
+        676.520_368_121_885_1,
+        -1_259.139_216_722_402_8,
+        771.323_428_777_653_1,
+        -176.615_029_162_140_6,
+        12.507_343_278_686_905,
+        -0.138_571_095_265_720_12,
+        9.984_369_578_019_572e-6,
+        1.505_632_735_149_311_6e-7,
+    ];
+    let x = x - 1.0;
+    let mut a = C[0];
+    for (i, c) in C.iter().enumerate().skip(1) {
+        a += c / (x + i as f64);
+    }
+    let t = x + G + 0.5;
+    0.5 * (2.0 * std::f64::consts::PI).ln() + (x + 0.5) * t.ln() - t + a.ln()
 }
 
 /// Value and standard error of a term in a row. Outer `None`: the term is absent from the row.
@@ -1984,6 +2202,7 @@ pub fn compare(
                 se: 0.0,
                 unpaired_se,
                 margin,
+                crit: opts.sigma,
                 verdict: Verdict::Unchanged,
             };
             if mode == Mode::Identical {
@@ -2004,11 +2223,35 @@ pub fn compare(
                 (None, _) => Err(no_se("result")),
                 (_, None) => Err(no_se("baseline")),
             };
+            // Degrees of freedom of a run's jackknife: its blocks less one.
+            let dof = |d: &ResultDoc| {
+                let b = d
+                    .uncertainty
+                    .as_ref()
+                    .map_or(d.scenario.blocks, |u| u.blocks);
+                (b.max(2) - 1) as f64
+            };
+            // Welch–Satterthwaite (Welch 1947, Biometrika 34:28–35): independent errors x and
+            // y of `dof` each, plus a part known with many degrees of freedom (the evaluation
+            // points' spread, over hundreds of points: none counted).
+            let welch = |x: f64, y: f64| {
+                let (x2, y2) = (x * x, y * y);
+                let den = x2 * x2 / dof(new) + y2 * y2 / dof(baseline);
+                move |total: f64| {
+                    if den > 0.0 {
+                        (total * total) * (total * total) / den
+                    } else {
+                        f64::INFINITY
+                    }
+                }
+            };
+            let mut df = f64::INFINITY;
             let se = match mode {
                 Mode::Identical => 0.0,
                 Mode::Paired => {
                     let (ua, ub) = uncertainties(new, baseline)?;
                     let blocks = usize::try_from(ua.blocks).unwrap_or(0);
+                    df = blocks.max(2) as f64 - 1.0;
                     match paired_se(&ua.rows[i], &ub.rows[j], term, blocks) {
                         Some(s) if s.is_finite() => s,
                         _ => {
@@ -2025,6 +2268,7 @@ pub fn compare(
                 }
                 Mode::SamePoints => {
                     let (x, y) = unpaired()?;
+                    df = welch(x, y)(x.hypot(y));
                     x.hypot(y)
                 }
                 Mode::OtherPoints => {
@@ -2050,7 +2294,9 @@ pub fn compare(
                     };
                     let pa = spread(ua, i, "result")?;
                     let pb = spread(ub, j, "baseline")?;
-                    x.hypot(y).hypot((pa + pb).sqrt())
+                    let total = x.hypot(y).hypot((pa + pb).sqrt());
+                    df = welch(x, y)(total);
+                    total
                 }
             };
             if !se.is_finite() {
@@ -2062,6 +2308,7 @@ pub fn compare(
                 )));
             }
             c.se = se;
+            c.crit = t_threshold(opts.sigma, df);
             // Rounding is no change: a Poisson bias of −5e-16 against +4e-16 read "+175%, z =
             // +10" (the loss's absolute floor); for the squared loss, in the response's units,
             // 1e-12 of the largest expected loss of either curve (or of a table's responses'
@@ -2081,9 +2328,9 @@ pub fn compare(
                 } else {
                     Verdict::Unchanged
                 }
-            } else if diff > opts.sigma * se && diff > m {
+            } else if diff > c.crit * se && diff > m {
                 Verdict::Worse
-            } else if diff < -opts.sigma * se && diff.abs() > m {
+            } else if diff < -c.crit * se && diff.abs() > m {
                 Verdict::Better
             } else {
                 Verdict::Unchanged
@@ -2274,6 +2521,66 @@ mod tests {
         assert!(r.regressed(), "{r}");
     }
 
+    /// Student's t against closed forms (1 degree of freedom is Cauchy: P(T > t) = ½ − atan(t)/π;
+    /// 2: ½ (1 − t/√(2 + t²)); textbook identities) and printed tables (t₀.₉₇₅(10) = 2.228,
+    /// t₀.₉₉₅(5) = 4.032, t₀.₉₇₅(30) = 2.042; from memory), and `--sigma`'s threshold.
+    #[test]
+    fn student_t_against_closed_forms_and_tables() {
+        use std::f64::consts::PI;
+        for t in [0.1f64, 0.5, 1.0, 3.0, 40.0, 1e4] {
+            let cauchy = 0.5 - t.atan() / PI;
+            assert!(
+                (student_t_sf(t, 1.0) - cauchy).abs() < 1e-13 * cauchy.max(1e-3),
+                "{t}"
+            );
+            let two = 0.5 * (1.0 - t / (2.0 + t * t).sqrt());
+            assert!(
+                (student_t_sf(t, 2.0) - two).abs() < 1e-12 * two.max(1e-3),
+                "{t}"
+            );
+        }
+        for (t, df, tail) in [
+            (2.228, 10.0, 0.025),
+            (4.032, 5.0, 0.005),
+            (2.042, 30.0, 0.025),
+        ] {
+            assert!(
+                (student_t_sf(t, df) - tail).abs() < 2e-4 * tail * 10.0,
+                "{t} {df}"
+            );
+        }
+        assert!((ln_gamma(5.0) - 24f64.ln()).abs() < 1e-13);
+        assert!((ln_gamma(0.5) - PI.sqrt().ln()).abs() < 1e-13);
+        // The threshold: sigma itself with many degrees of freedom, beyond it with few, with
+        // the normal's tail.
+        assert_eq!(t_threshold(4.0, f64::INFINITY), 4.0);
+        assert_eq!(t_threshold(0.0, 5.0), 0.0);
+        let p = crate::decompose::zero_one::normal_cdf(-4.0);
+        let mut last = f64::INFINITY;
+        for df in [1.0, 5.0, 31.0, 300.0, 1e6] {
+            let c = t_threshold(4.0, df);
+            assert!(c > 4.0 && c < last, "{df}: {c}");
+            assert!((student_t_sf(c, df) / p - 1.0).abs() < 1e-8, "{df}");
+            last = c;
+        }
+        assert!((t_threshold(4.0, 1e6) - 4.0).abs() < 1e-3);
+    }
+
+    /// The `--sigma` whose Student-t threshold at `df` degrees of freedom is `crit`: the hand-made
+    /// documents below have 4 blocks, and their arithmetic is written for a threshold of 4.
+    fn sigma_at(crit: f64, df: f64) -> f64 {
+        let (mut lo, mut hi) = (0.0, crit);
+        for _ in 0..200 {
+            let mid = 0.5 * (lo + hi);
+            if t_threshold(mid, df) < crit {
+                lo = mid;
+            } else {
+                hi = mid;
+            }
+        }
+        0.5 * (lo + hi)
+    }
+
     #[test]
     fn unpaired_rule_on_hand_made_numbers() {
         let base = with_unc(
@@ -2293,7 +2600,13 @@ mod tests {
             0.1,
         );
         new.seed = 2;
-        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        // 4 blocks each: Welch's degrees of freedom (2·0.01²)² / (2·0.01⁴/3) = 6.
+        let four = CheckOptions {
+            sigma: sigma_at(4.0, 6.0),
+            ..CheckOptions::default()
+        };
+        let r = compare(&new, &base, &four).unwrap();
+        assert!((r.comparisons[2].crit - 4.0).abs() < 1e-9);
         assert_eq!(r.mode, Mode::SamePoints);
         assert_eq!(
             verdicts(&r),
@@ -2313,7 +2626,7 @@ mod tests {
         );
         assert!(text.contains("REGRESSED: 1 worse (variance)"), "{text}");
         assert!(
-            text.contains("[unpaired, same points: z > 4 and d > 2% of |base|]"),
+            text.contains("[unpaired, same points: z > 4.000 and d > 2% of |base|]"),
             "{text}"
         );
         assert!(text.contains("worse   k = 1  variance"), "{text}");
@@ -2328,7 +2641,7 @@ mod tests {
         // A 30 % margin on variance hides the +0.06 (24 %) change.
         let opts = CheckOptions {
             term_margins: vec![("variance".into(), 0.3)],
-            ..CheckOptions::default()
+            ..four.clone()
         };
         assert!(!compare(&new, &base, &opts).unwrap().regressed());
 
@@ -2336,7 +2649,7 @@ mod tests {
         // se = 0.064807, 4·se = 0.259: nothing is flagged any more.
         new.uncertainty.as_mut().unwrap().eval_fingerprint = "q".into();
         new.uncertainty.as_mut().unwrap().eval_seed = 7;
-        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        let r = compare(&new, &base, &four).unwrap();
         assert_eq!(r.mode, Mode::OtherPoints);
         assert!((r.comparisons[2].se - 0.0042f64.sqrt()).abs() < 1e-15);
         assert!(r
@@ -2440,7 +2753,12 @@ mod tests {
             &[("variance", lo_new), ("expected_loss", el), ("bias_sq", el)],
             0.1,
         );
-        let r = compare(&new, &base, &CheckOptions::default()).unwrap();
+        // 4 blocks: 3 degrees of freedom.
+        let four = CheckOptions {
+            sigma: sigma_at(4.0, 3.0),
+            ..CheckOptions::default()
+        };
+        let r = compare(&new, &base, &four).unwrap();
         assert_eq!(r.mode, Mode::Paired);
         let v = &r.comparisons[2];
         assert_eq!(v.term, "variance");
@@ -2459,7 +2777,7 @@ mod tests {
         let text = r.to_string();
         assert!(text.starts_with("mode: paired (same seed 1"), "{text}");
         assert!(
-            text.contains("[paired: z > 4 and d > 2% of |base|]"),
+            text.contains("[paired: z > 4.000 and d > 2% of |base|]"),
             "{text}"
         );
 

@@ -305,7 +305,9 @@ pub struct CheckArgs {
     /// The stored baseline result document.
     #[arg(long, value_name = "BASE.json")]
     pub baseline: PathBuf,
-    /// Standard errors of the difference a change must exceed to count (|z| > SIGMA).
+    /// Standard errors of the difference a change must exceed to count: |z| beyond the Student t
+    /// quantile, at the blocks' degrees of freedom, of a normal's tail beyond SIGMA (SIGMA itself
+    /// with many blocks; 4.62 at 32 blocks paired).
     #[arg(long, default_value = "4", allow_hyphen_values = true, value_name = "SIGMA",
           value_parser = crate::check::parse_sigma)]
     pub sigma: f64,

@@ -344,7 +344,7 @@ fn command_line_modes_and_refusals() {
         "{out}"
     );
     assert!(
-        out.contains("[paired: z > 4 and d > 2% of |base|]"),
+        out.contains("[paired: z > 4.622 and d > 2% of |base|]"),
         "{out}"
     );
     assert!(

@@ -2798,6 +2798,11 @@ fn twin_cases(t: &mut Table) {
             "key `data.fit_report.fidelity.models[0].picks`: has 2 values for 5 tables",
         ),
         (
+            "fit report fidelity of no replicates",
+            twin("replicates = 100\n", "replicates = 0\n"),
+            "key `data.fit_report.fidelity.replicates`: is 0 over 2 tables",
+        ),
+        (
             "fit report lists of different lengths",
             twin("corrected_loss = [0.2, 0.1]", "corrected_loss = [0.2]"),
             "key `data.fit_report.fidelity.models[0].loss`: has 2 values and `corrected_loss` 1",
@@ -3377,6 +3382,40 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             "table: bias² that is not bias²+noise minus the noise",
             set(&docs.table, "bias_sq", serde_json::json!(-0.5)),
             "table bias² = (bias² + noise) − the noise estimate",
+        ),
+        (
+            "uncertainty: blocks that are not the run's",
+            edit_json(&docs.result, |v| {
+                v["scenario"]["blocks"] = serde_json::json!(1_000_000_000u64);
+            }),
+            "but the run has 1000000000 blocks",
+        ),
+        (
+            "uncertainty: evaluation points that are not the run's",
+            edit_json(&docs.result, |v| {
+                v["uncertainty"]["eval_points"] = serde_json::json!(1);
+            }),
+            "`uncertainty` has",
+        ),
+        (
+            "uncertainty: a negative spread across evaluation points",
+            edit_json(&docs.result, |v| {
+                let sd = v["uncertainty"]["rows"][0]["point_sd"]
+                    .as_object_mut()
+                    .unwrap();
+                let k = sd.keys().next().unwrap().clone();
+                sd[&k] = serde_json::json!(-1e6);
+            }),
+            "not a finite number >= 0",
+        ),
+        (
+            "uncertainty: a leave-one-block-out variance below 0",
+            edit_json(&docs.result, |v| {
+                let b = v["uncertainty"]["blocks"].as_u64().unwrap() as usize;
+                let lo = &mut v["uncertainty"]["rows"][0]["leave_out"]["variance"];
+                *lo = serde_json::json!(lossprism::codec::pack_floats(&vec![-14.0; b]));
+            }),
+            "`uncertainty.rows[0].leave_out.variance` holds -14, outside [0, inf]",
         ),
         (
             "study: a variance share above 1",

@@ -875,7 +875,7 @@ fn fidelity_lines(f: &FidelityRecord, rows: usize, families: &[FidelityFamily]) 
             100.0 * m.curve_error
         ));
     }
-    v.push("  The shares say how accurate twins of tables like this one typically are, not an error bar for this table. The bias-corrected pick (2·EL − mean EL of the twins of the twin) is a second opinion: with the twiced reference the twin's own lowest expected loss was the more reliable pick in docs/twin-calibration.md, so it is the recommended one.".into());
+    v.push("  The shares say how accurate twins of tables like this one typically are, not an error bar for this table. The bias-corrected pick (2·EL − mean EL of the twins of the twin) is a second opinion: on the regression processes of docs/twin-calibration.md the twin's own lowest expected loss was the more reliable pick, so it is the recommended one (for classification twins the choice rests on that measurement too).".into());
     v
 }
 
@@ -908,16 +908,23 @@ pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<T
         twin::FIDELITY_STREAM + t as u64,
     );
     let x = sp.process.draw_inputs(n, &mut rng);
-    let f = sp.process.truth_at(x.view())?;
-    let sd = sp.process.sd_at(x.view())?;
-    let y = sp.process.respond(&f, &sd, &mut rng);
+    // A classification twin's labels are drawn from its class probabilities (the reference's,
+    // sharpened by the temperature), as `run` draws them.
+    let y = match like.task {
+        Task::Classify { .. } => crate::dgp::draw_labels(&sp.process.probs_at(x.view())?, &mut rng),
+        Task::Regress => {
+            let f = sp.process.truth_at(x.view())?;
+            let sd = sp.process.sd_at(x.view())?;
+            sp.process.respond(&f, &sd, &mut rng)
+        }
+    };
     Ok(Table {
         path: like.path.clone(),
         names: like.names.clone(),
         x,
         y,
-        task: Task::Regress,
-        labels: Vec::new(),
+        task: like.task,
+        labels: like.labels.clone(),
         target: like.target.clone(),
         encodings: Vec::new(),
         dropped_rows: 0,
@@ -1044,7 +1051,39 @@ fn varying_fit(t: &Table, fit: &RegressionFit) -> Result<VaryingFit, String> {
 
 /// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
 /// twin): the same pipeline as the first twin.
-fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionFit), Error> {
+fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<Plan, Error> {
+    if let Task::Classify { .. } = t.task {
+        // The same pipeline as the first classification twin: the reference chosen by
+        // cross-validated log-loss, its temperature calibrated, the rows resampled as they are.
+        let f = reference::fit(t, o.seed, true)?;
+        let pick = class_reference(t, &f, o.seed, o.reference)?;
+        let temp = reference::calibrate_temperature(
+            t,
+            &f,
+            &pick.choice,
+            o.seed,
+            crate::scenario::twin::TEMPERATURE_MIN,
+        );
+        let spec = TwinSpec {
+            choice: pick.choice,
+            jitter: 0.0,
+            keep_variance: false,
+            noise: None,
+            shape: ShapeChoice::Gaussian,
+            train_size: t.rows(),
+            sizes: vec![t.rows()],
+            eval_size: eval_size(o, t.rows()),
+            design: Design::Random,
+            eval_at_design: false,
+            report: None,
+            temperature: temp.tau,
+        };
+        let sp = crate::scenario::twin::build(t, "a table drawn from the twin", &spec)
+            .map_err(|e| Error::Usage(e.message()))?;
+        let mut plan = base.clone();
+        plan.source = Source::Synthetic(sp);
+        return Ok(plan);
+    }
     let fit = fit_table(o, t, "a table drawn from the twin").map_err(Error::Usage)?;
     let (noise, _) = twin_noise(o, t, &fit, None).map_err(Error::Usage)?;
     let spec = TwinSpec {
@@ -1067,11 +1106,13 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<(Plan, RegressionF
         .map_err(|e| Error::Usage(e.message()))?;
     let mut plan = base.clone();
     plan.source = Source::Synthetic(sp);
-    Ok((plan, fit))
+    Ok(plan)
 }
 
-/// The fidelity check of a regression twin (see the module docs). `text_of` gives the scenario
-/// text for a `[model]` part and a replicate count.
+/// The fidelity check of a twin (see the module docs): regression, or classification with the
+/// labels drawn from the twin's class probabilities and each drawn table twinned by the same
+/// choice of reference and temperature. `text_of` gives the scenario text for a `[model]` part
+/// and a replicate count.
 fn fidelity(
     o: &TwinOptions,
     t: &Table,
@@ -1134,7 +1175,7 @@ fn fidelity(
             o.fidelity
         ));
         let drawn = draw_from_twin(&plan, t, t.rows(), k)?;
-        let (p, _) = twin_of(o, &drawn, &plan)?;
+        let p = twin_of(o, &drawn, &plan)?;
         let out = crate::runner::run(&p, o.threads)?;
         for (i, slot) in tot.iter_mut().enumerate() {
             let (el, pick, _) = curve(&p, &out, i);
@@ -1560,6 +1601,34 @@ pub fn classification_text(
     temp: &reference::Temperature,
     blur: Option<&str>,
 ) -> String {
+    let model = format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}");
+    class_body(
+        o,
+        t,
+        pick,
+        table_rel,
+        temp,
+        blur,
+        None,
+        &model,
+        TWIN_REPLICATES,
+    )
+}
+
+/// [`classification_text`] with the fidelity check's record (its lines among the comments and
+/// its `[data.fit_report]`), a `[model]` part and a replicate count of its own.
+#[allow(clippy::too_many_arguments)]
+fn class_body(
+    o: &TwinOptions,
+    t: &Table,
+    pick: &ClassPick,
+    table_rel: &str,
+    temp: &reference::Temperature,
+    blur: Option<&str>,
+    fidelity: Option<&FidelityRecord>,
+    model: &str,
+    reps: usize,
+) -> String {
     let mut comments = vec![
         format!(
             "Inputs: the table's {} rows resampled with replacement; truth: {},",
@@ -1574,7 +1643,11 @@ pub fn classification_text(
     comments.extend(pick.lines.iter().map(|l| l.trim_start().to_string()));
     comments.push(temperature_line(temp));
     comments.extend(blur.map(str::to_string));
-    let mut s = header_and_top(o, t, &comments, TWIN_REPLICATES);
+    if let Some(f) = fidelity {
+        comments.push(recommended_line(f));
+        comments.extend(fidelity_lines(f, t.rows(), &o.fidelity_families));
+    }
+    let mut s = header_and_top(o, t, &comments, reps);
     s.push_str(&data_common(o, t, table_rel));
     s.push_str(&reference_line(&pick.choice));
     s.push('\n');
@@ -1589,8 +1662,10 @@ pub fn classification_text(
             toml_f64(temp.tau)
         ));
     }
-    s.push_str(DEFAULT_MODEL);
-    s.push_str(DEFAULT_AUDIT);
+    if fidelity.is_some() {
+        s.push_str(&fit_report_text(None, None, fidelity));
+    }
+    s.push_str(model);
     s
 }
 
@@ -1767,17 +1842,49 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 &folder,
             )?;
             let blur = blur_line(&plan, pick.accuracy)?;
-            let text = classification_text(o, &t, &pick, &rel, &temp, Some(&blur));
+            let o_eff = TwinOptions {
+                eval_size: eval_size(o, t.rows()),
+                ..o.clone()
+            };
+            let fid = if o.fidelity > 0 {
+                let stage = crate::progress::Stage::new();
+                Some(fidelity(&o_eff, &t, &folder, &stage, &|models, reps| {
+                    class_body(o, &t, &pick, &rel, &temp, Some(&blur), None, models, reps)
+                })?)
+            } else {
+                None
+            };
+            let model = format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}");
+            let text = class_body(
+                o,
+                &t,
+                &pick,
+                &rel,
+                &temp,
+                Some(&blur),
+                fid.as_ref(),
+                &model,
+                TWIN_REPLICATES,
+            );
             for l in &pick.lines {
                 out.push_str(l);
                 out.push('\n');
             }
             out.push_str(&format!("reference: {}\n", pick.words));
-            out.push_str("inputs: the table's rows resampled with replacement (classification twins resample rows as they are); fidelity check: regression twins only\n");
+            out.push_str("inputs: the table's rows resampled with replacement (classification twins resample rows as they are)\n");
             out.push_str(&temperature_line(&temp));
             out.push('\n');
             out.push_str(&blur);
             out.push('\n');
+            match &fid {
+                Some(f) => {
+                    for l in fidelity_lines(f, t.rows(), &o.fidelity_families) {
+                        out.push_str(&format!("{l}\n"));
+                    }
+                    out.push_str(&format!("{}\n", recommended_line(f)));
+                }
+                None => out.push_str("Fidelity check skipped (--fidelity 0): no fidelity gauge and no bias-corrected pick; `run` the scenario for the twin's lowest expected loss, the recommended pick.\n"),
+            }
             text
         }
         Task::Regress => {

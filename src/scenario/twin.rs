@@ -688,6 +688,19 @@ fn inconsistent_report(r: &FitReportSpec, sd: Option<f64>) -> Option<(String, St
         }
     }
     let tables = r.fidelity.as_ref().map_or(0, |f| f.tables as usize);
+    if let Some(f) = &r.fidelity {
+        // A fidelity run has at least 2 replicates, and a check at least one table.
+        if f.replicates < 2 || f.tables < 1 {
+            return Some((
+                "fidelity.replicates".into(),
+                format!(
+                    "is {} over {} tables: a fidelity check draws at least 1 table and runs at \
+                     least 2 replicates",
+                    f.replicates, f.tables
+                ),
+            ));
+        }
+    }
     for (i, m) in r.fidelity.iter().flat_map(|f| f.models.iter()).enumerate() {
         let key = |k: &str| format!("fidelity.models[{i}].{k}");
         let n = m.grid.len();
