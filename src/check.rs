@@ -424,6 +424,24 @@ fn written_before(version: &str, than: (u64, u64, u64)) -> bool {
 /// [`crate::harness::load_result`]) and [`compare`] (documents built in memory), so a picture is
 /// never drawn from a document `check` would refuse.
 pub fn validate(doc: &ResultDoc) -> Result<(), String> {
+    // A document of another version may differ by what that version wrote (an interval not yet
+    // widened to ± 2 SE in 0.3.3): its refusal says so rather than only "edited".
+    validate_as_written(doc).map_err(|e| {
+        let this = env!("CARGO_PKG_VERSION");
+        if doc.version != this && e.contains(EDITED) {
+            format!(
+                "{e}, or written by another version (lossprism {}; this is {this}), whose \
+                 documents this one does not read: rerun it with this version",
+                crate::fmt::clip(&doc.version, 20)
+            )
+        } else {
+            e
+        }
+    })
+}
+
+/// [`validate`]'s rules.
+fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
     use std::collections::{HashMap, HashSet};
     if doc.format != FORMAT {
         return Err(format!(
@@ -2490,6 +2508,28 @@ mod tests {
 
     // Hand-computed cases of the unpaired rule (different seeds, same points):
     // se = √(0.01² + 0.01²) = 0.014142; 4·se = 0.056569.
+    /// A document of another version that breaks a rule says it may be that version's, not
+    /// only "edited" (0.3.3's intervals were not widened to ± 2 SE).
+    #[test]
+    fn refusals_of_other_versions_name_the_version() {
+        let mut d = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        d.best.stderr = Some(0.5);
+        let e = validate(&d).unwrap_err();
+        assert!(
+            e.contains("or written by another version (lossprism 0; this is "),
+            "{e}"
+        );
+        d.version = env!("CARGO_PKG_VERSION").into();
+        let e = validate(&d).unwrap_err();
+        assert!(e.ends_with(EDITED), "{e}");
+    }
+
     /// Exact fits differ by rounding: beside an underfit row of expected loss 1, 4e-31 against
     /// 2.2e-30 is no change (it read "+450%, worse"); the same change on a row of 1 would be.
     #[test]
@@ -2984,6 +3024,7 @@ mod tests {
         assert!(r.identical);
         // A row the document cannot hold is refused before rows are matched.
         let mut sized = base.clone();
+        sized.version = env!("CARGO_PKG_VERSION").into();
         sized.points[1].train_size = Some(50);
         let e = compare(&sized, &base, &CheckOptions::default()).unwrap_err();
         assert_eq!(

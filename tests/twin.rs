@@ -1811,3 +1811,216 @@ fn few_rows_reading_counts_a_plain_twins_distinct_rows() {
     let jittered = reading("jitter = 1.0\n");
     assert!(!jittered.contains("Few rows"), "{jittered}");
 }
+
+/// Writes `t.csv` in `dir` (invented data): `n` rows of a relevant input `a` and irrelevant
+/// inputs `b`, `c` uniform on [0, 1] and `d` roughly normal; the label is "sound" when
+/// a > 0.5, each label flipped with probability 0.1.
+fn write_grades_with_irrelevant_inputs(dir: &Path, seed: u64, n: usize) {
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(seed);
+    let mut s = String::from("a,b,c,d,grade\n");
+    for _ in 0..n {
+        let (a, b, c): (f64, f64, f64) = (rng.gen(), rng.gen(), rng.gen());
+        let d: f64 = StandardNormal.sample(&mut rng);
+        let sound = (a > 0.5) != (rng.gen::<f64>() < 0.1);
+        s.push_str(&format!(
+            "{a},{b},{c},{d},{}\n",
+            if sound { "sound" } else { "bruised" }
+        ));
+    }
+    fs::write(dir.join("t.csv"), s).unwrap();
+}
+
+#[test]
+fn classification_twin_leaves_irrelevant_inputs_out_of_its_logit_and_tree_and_run_refits_them() {
+    use lossprism::dgp::reference::classes::{Logit, ProbTree};
+    use lossprism::dgp::reference::select::Rule;
+    use lossprism::dgp::reference::Candidate;
+    let dir = tempfile::tempdir().unwrap();
+    write_grades_with_irrelevant_inputs(dir.path(), 21, 300);
+    let o = opts(dir.path(), true, "grade");
+    let t = lossprism::dataset::load_csv(
+        &o.table,
+        &lossprism::dataset::TableOptions {
+            target: "grade".into(),
+            target_kind: lossprism::dataset::TargetKind::Classes(None),
+            ..Default::default()
+        },
+    )
+    .unwrap();
+    // The choice: `a` kept, every irrelevant input left out, each by more than one SE.
+    let sel = reference::select_class_inputs(&t, o.seed).expect("selects");
+    assert!(sel.searched);
+    let w = sel.metric.clone().expect("an input is left out");
+    assert_eq!(w, vec![1.0, 0.0, 0.0, 0.0], "{:?}", sel.steps);
+    assert!(
+        sel.steps
+            .iter()
+            .filter(|s| s.dropped)
+            .all(|s| s.gain > s.se && s.input != 0),
+        "{:?}",
+        sel.steps
+    );
+    // The k-NN shares and the yardstick keep every input: `plain` is the fit of old.
+    assert_eq!(sel.plain.k, reference::fit(&t, o.seed, true).unwrap().k);
+    for (family, key) in [(Candidate::Logit, "logit"), (Candidate::Tree, "tree")] {
+        let o = TwinOptions {
+            reference: Rule::Only(family),
+            ..o.clone()
+        };
+        let msg = twin::command(&o).expect("twin");
+        assert!(
+            msg.contains("inputs of the logistic polynomial and the probability tree: a (")
+                && msg.contains("left out"),
+            "{msg}"
+        );
+        let text = fs::read_to_string(&o.out).unwrap();
+        let line = text
+            .lines()
+            .find(|l| l.starts_with("reference = "))
+            .expect("a reference line");
+        assert!(
+            line.contains(&format!("family = \"{key}\""))
+                && line.contains("metric = [1.0, 0.0, 0.0, 0.0]"),
+            "{line}"
+        );
+        // `run` refits the reference on `a` alone, bit for bit: the same fit on the kept
+        // column, sharpened by the written temperature, gives the run's probabilities.
+        let tau = text
+            .lines()
+            .find_map(|l| l.strip_prefix("temperature = "))
+            .map_or(1.0, |v| {
+                v.split_whitespace().next().unwrap().parse().unwrap()
+            });
+        let out = runner::run(&load_at(&o.out, 4), 0).unwrap();
+        let p = out.prepared.eval_probs.expect("probabilities");
+        let xa = t.x.select(ndarray::Axis(1), &[0]);
+        let ea = out.prepared.eval_x.select(ndarray::Axis(1), &[0]);
+        let labels: Vec<usize> = t.y.iter().map(|&v| v as usize).collect();
+        let num = |k: &str| -> f64 {
+            let at = line.find(&format!("{k} = ")).unwrap() + k.len() + 3;
+            line[at..]
+                .split([',', ' ', '}'])
+                .next()
+                .unwrap()
+                .parse()
+                .unwrap()
+        };
+        let mut want = vec![0.0; ea.nrows() * 2];
+        if family == Candidate::Logit {
+            let m =
+                Logit::fit(xa.view(), &labels, 2, num("degree") as usize, num("ridge")).unwrap();
+            want = m.probs_rows(ea.view());
+        } else {
+            let m = ProbTree::fit(
+                xa.view(),
+                t.y.view(),
+                2,
+                num("depth") as usize,
+                num("min_leaf") as usize,
+                num("seed") as u64,
+            )
+            .unwrap();
+            for (i, r) in ea.rows().into_iter().enumerate() {
+                m.probs_at(&r.to_vec(), &mut want[2 * i..2 * i + 2]);
+            }
+        }
+        if tau != 1.0 {
+            want.chunks_mut(2).for_each(|r| reference::sharpen(r, tau));
+        }
+        for (got, want) in p.iter().zip(&want) {
+            assert_eq!(got.to_bits(), want.to_bits(), "{key}: {got} against {want}");
+        }
+    }
+}
+
+#[test]
+fn classification_twin_keeps_inputs_that_matter() {
+    // Both inputs set the label (invented data): the search leaves neither out.
+    let dir = tempfile::tempdir().unwrap();
+    write_grades(dir.path(), 5, 300, |a, rng| {
+        (a > 0.5) != (rng.gen::<f64>() < 0.1)
+    });
+    let csv = fs::read_to_string(dir.path().join("t.csv")).unwrap();
+    // Make the label depend on b as well: sound rows with b < 0.3 become bruised.
+    let edited: String = csv
+        .lines()
+        .enumerate()
+        .map(|(i, l)| {
+            let f: Vec<&str> = l.split(',').collect();
+            if i > 0 && f[1].parse::<f64>().unwrap() < 0.3 {
+                format!("{},{},bruised\n", f[0], f[1])
+            } else {
+                format!("{l}\n")
+            }
+        })
+        .collect();
+    fs::write(dir.path().join("t.csv"), edited).unwrap();
+    let o = opts(dir.path(), true, "grade");
+    let msg = twin::command(&o).expect("twin");
+    assert!(
+        msg.contains("inputs of the logistic polynomial and the probability tree: all 2 (a, b)"),
+        "{msg}"
+    );
+    let text = fs::read_to_string(&o.out).unwrap();
+    assert!(!text.contains("metric"), "{text}");
+}
+
+/// A classification twin runs the fidelity check too: tables drawn from the twin's class
+/// probabilities, each twinned again by the same reference choice and temperature. Its record
+/// agrees with itself (each pick the lowest of its curve, on the grid), is echoed by `run`, and
+/// is the same on a second twin of the same table (the draws are the engine's seeded streams).
+/// Invented table: a grade that is "sound" mostly when `a` > 0.4.
+#[test]
+fn classification_twin_has_a_fidelity_check() {
+    let dir = tempfile::tempdir().unwrap();
+    write_grades(dir.path(), 17, 150, |a, rng| {
+        (a > 0.4) != (rng.gen::<f64>() < 0.15)
+    });
+    let o = TwinOptions {
+        fidelity: 2,
+        fidelity_replicates: 20,
+        ..opts(dir.path(), true, "grade")
+    };
+    let msg = twin::command(&o).expect("twin");
+    assert!(
+        msg.contains("Fidelity check: 2 tables of 150 rows drawn from this twin"),
+        "{msg}"
+    );
+    assert!(
+        msg.contains("Recommended pick (lowest expected loss on the twin): tree max_depth = "),
+        "{msg}"
+    );
+    let text = fs::read_to_string(&o.out).unwrap();
+    assert!(text.contains("[data.fit_report.fidelity]"), "{text}");
+    let v: toml::Value = toml::from_str(&text).unwrap();
+    let models = v["data"]["fit_report"]["fidelity"]["models"]
+        .as_array()
+        .unwrap();
+    assert_eq!(models.len(), 2);
+    for m in models {
+        let nums = |k: &str| -> Vec<f64> {
+            m[k].as_array()
+                .unwrap()
+                .iter()
+                .map(|x| x.as_float().unwrap())
+                .collect()
+        };
+        let (grid, loss, picks) = (nums("grid"), nums("loss"), nums("picks"));
+        let pick = m["pick"].as_float().unwrap();
+        let lowest = loss.iter().cloned().fold(f64::INFINITY, f64::min);
+        let at = grid
+            .iter()
+            .position(|g| *g == pick)
+            .expect("the pick is on the grid");
+        assert_eq!(loss[at], lowest, "{m:?}");
+        assert_eq!(picks.len(), 2);
+        assert!(picks.iter().all(|p| grid.contains(p)), "{m:?}");
+    }
+    // `run` reads the record back (its checks hold) and marks the recommended pick.
+    let plan = load(&o.out);
+    assert!(plan.replicates > 0);
+    // The same table twinned again: the same record, bit for bit.
+    let first = text.clone();
+    twin::command(&o).expect("twin again");
+    assert_eq!(fs::read_to_string(&o.out).unwrap(), first);
+}

@@ -245,12 +245,18 @@ pub fn reference_line(c: &Choice) -> String {
         (Candidate::Logit, Some(d), Some(r), _) => {
             parts.push(format!("degree = {d}"));
             parts.push(format!("ridge = {}", toml_f64(r)));
+            if let Some(w) = &c.metric {
+                parts.push(format!("metric = {}", toml_list(w)));
+            }
             return format!("reference = {{ {} }}", parts.join(", "));
         }
         (Candidate::Tree, _, _, Some(t)) => {
             parts.push(format!("depth = {}", t.depth));
             parts.push(format!("min_leaf = {}", t.min_leaf));
             parts.push(format!("seed = {}", t.seed));
+            if let Some(w) = &c.metric {
+                parts.push(format!("metric = {}", toml_list(w)));
+            }
             return format!("reference = {{ {} }}", parts.join(", "));
         }
         _ => {}
@@ -1053,17 +1059,9 @@ fn varying_fit(t: &Table, fit: &RegressionFit) -> Result<VaryingFit, String> {
 /// twin): the same pipeline as the first twin.
 fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<Plan, Error> {
     if let Task::Classify { .. } = t.task {
-        // The same pipeline as the first classification twin: the reference chosen by
-        // cross-validated log-loss, its temperature calibrated, the rows resampled as they are.
-        let f = reference::fit(t, o.seed, true)?;
-        let pick = class_reference(t, &f, o.seed, o.reference)?;
-        let temp = reference::calibrate_temperature(
-            t,
-            &f,
-            &pick.choice,
-            o.seed,
-            crate::scenario::twin::TEMPERATURE_MIN,
-        );
+        // The same pipeline as the first classification twin ([`class_fit`]), the rows
+        // resampled as they are.
+        let (pick, temp) = class_fit(o, t)?;
         let spec = TwinSpec {
             choice: pick.choice,
             jitter: 0.0,
@@ -1422,6 +1420,101 @@ fn temperature_line(t: &reference::Temperature) -> String {
     }
 }
 
+/// What [`reference::select_class_inputs`] chose, in one line (printed and written in the
+/// scenario's comments).
+pub fn class_inputs_line(t: &Table, sel: &reference::ClassInputs) -> String {
+    let name = |j: usize| t.names.get(j).cloned().unwrap_or_else(|| format!("#{j}"));
+    let p = t.x.ncols();
+    let head = "inputs of the logistic polynomial and the probability tree";
+    if !sel.searched {
+        return format!(
+            "{head}: all {p} ({}), not searched ({})",
+            t.names.join(", "),
+            if p < 2 {
+                "a single input".to_string()
+            } else if p > reference::CLASS_SELECT_MAX_INPUTS {
+                format!("more than {} inputs", reference::CLASS_SELECT_MAX_INPUTS)
+            } else {
+                "too few rows or classes".to_string()
+            }
+        );
+    }
+    let rule = "backward elimination on the k-NN shares' cross-validated log-loss, an input left \
+                out only when that lowers it by more than one standard error of the paired \
+                difference";
+    let dropped: Vec<String> = sel
+        .steps
+        .iter()
+        .filter(|s| s.dropped)
+        .map(|s| {
+            format!(
+                "{} (log-loss lower by {} ± {} without it)",
+                name(s.input),
+                fmt_num(s.gain),
+                fmt_se(s.se)
+            )
+        })
+        .collect();
+    let next = sel
+        .steps
+        .iter()
+        .find(|s| !s.dropped)
+        .map(|s| {
+            format!(
+                "; the next candidate, {}, {} by {} ± {} and stays",
+                name(s.input),
+                if s.gain > 0.0 {
+                    "lowered it only"
+                } else {
+                    "raised it"
+                },
+                fmt_num(s.gain.abs()),
+                fmt_se(s.se)
+            )
+        })
+        .unwrap_or_default();
+    match &sel.metric {
+        None => format!(
+            "{head}: all {p} ({}) by {rule}{next}; the k-NN shares keep every input",
+            t.names.join(", ")
+        ),
+        Some(w) => {
+            let kept: Vec<String> = reference::positive_columns(w)
+                .into_iter()
+                .map(name)
+                .collect();
+            format!(
+                "{head}: {} (their recipe's `metric`); left out {} by {rule}{next}; the k-NN \
+                 shares keep every input",
+                kept.join(", "),
+                dropped.join(", ")
+            )
+        }
+    }
+}
+
+/// A classification twin's reference and temperature: the inputs that help the k-NN shares
+/// kept for the logistic polynomial and the probability tree (docs/twin-calibration.md §5.3), the
+/// reference chosen by cross-validated log-loss ([`class_reference_on`]; its first line says
+/// which inputs were kept), and the temperature calibrated for it. Every reference is
+/// calibrated: on 80 tables of two processes the candidates were not designed on
+/// (docs/twin-calibration.md §5.2) the temperature brought the curve error of twins with a
+/// logistic-polynomial reference from 13.6% to 9.3%.
+fn class_fit(o: &TwinOptions, t: &Table) -> Result<(ClassPick, reference::Temperature), Error> {
+    let sel = reference::select_class_inputs(t, o.seed)?;
+    let f = &sel.plain;
+    let mut pick = class_reference_on(t, f, sel.metric.as_deref(), o.seed, o.reference)?;
+    pick.lines.insert(0, class_inputs_line(t, &sel));
+    let temp = reference::calibrate_temperature(
+        t,
+        f,
+        &pick.choice,
+        o.seed,
+        crate::scenario::twin::TEMPERATURE_MIN,
+    );
+    Ok((pick, temp))
+}
+
 /// The reference a classification twin keeps, with what cross-validation said of each
 /// candidate.
 pub struct ClassPick {
@@ -1437,8 +1530,23 @@ pub struct ClassPick {
 
 /// Chooses a classification twin's reference among the k-NN shares (already cross-validated in
 /// `f`), the logistic polynomial and the probability tree by cross-validated log-loss on the
-/// same folds ([`reference::classes::cross_validate`]); `rule` may ask for one of them.
+/// same folds ([`reference::classes::cross_validate`]); `rule` may ask for one of them. Every
+/// input is used; [`class_reference_on`] takes the inputs of the polynomial and the tree.
 pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<ClassPick, Error> {
+    class_reference_on(t, f, None, seed, rule)
+}
+
+/// [`class_reference`] with the logistic polynomial and the probability tree tuned and written
+/// on the inputs of positive weight in `inputs` (one weight per input, as
+/// [`reference::select_class_inputs`] chooses them; recorded as the recipe's `metric`, so `run`
+/// refits them on the same inputs). The k-NN shares keep every input.
+pub fn class_reference_on(
+    t: &Table,
+    f: &TwinFit,
+    inputs: Option<&[f64]>,
+    seed: u64,
+    rule: Rule,
+) -> Result<ClassPick, Error> {
     use reference::classes::{self, Scored};
     let classes = match t.task {
         Task::Classify { classes } => classes,
@@ -1447,7 +1555,16 @@ pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<
     let n = t.rows();
     let folds = reference::CV_FOLDS.min(n);
     let fold = reference::cv_folds(n, seed);
-    let cv = classes::cross_validate(t.x.view(), t.y.view(), classes, &fold, folds, seed);
+    // The logistic polynomial and the tree are tuned on the inputs kept.
+    let xs = inputs.map(|w| {
+        t.x.select(ndarray::Axis(1), &reference::positive_columns(w))
+    });
+    let xv = xs.as_ref().map_or(t.x.view(), |a| a.view());
+    let cv = classes::cross_validate(xv, t.y.view(), classes, &fold, folds, seed);
+    let with_metric = |c: Choice| Choice {
+        metric: inputs.map(<[f64]>::to_vec),
+        ..c
+    };
     let (ll, ll_se) = f.cv_logloss.unwrap_or((f64::NAN, f64::NAN));
     let knn = Scored {
         logloss: ll,
@@ -1464,7 +1581,7 @@ pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<
     if let Some((d, r, sc)) = cv.logit {
         cands.push((
             Candidate::Logit,
-            Choice::logit(d, r),
+            with_metric(Choice::logit(d, r)),
             sc,
             format!(
                 "logistic polynomial (degree {d}, ridge {})",
@@ -1477,11 +1594,11 @@ pub fn class_reference(t: &Table, f: &TwinFit, seed: u64, rule: Rule) -> Result<
             Candidate::Tree,
             // A table of fewer rows than the leaf size records its row count (the recipe's
             // `min_leaf` is at most the rows; 7 rows wrote 10 and the twin was refused).
-            Choice::tree(reference::TreeParams {
+            with_metric(Choice::tree(reference::TreeParams {
                 depth: d,
                 min_leaf: classes::TREE_MIN_LEAF.min(n),
                 seed,
-            }),
+            })),
             sc,
             format!(
                 "probability tree (depth {d}, leaves of at least {} rows)",
@@ -1824,18 +1941,9 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     }
     let text = match t.task {
         Task::Classify { .. } => {
-            let f = reference::fit(&t, o.seed, true)?;
-            let pick = class_reference(&t, &f, o.seed, o.reference)?;
-            // Every reference is calibrated: on 80 tables of two processes the candidates were
-            // not designed on (docs/twin-calibration.md §5.2) the temperature brought the curve
-            // error of twins with a logistic-polynomial reference from 13.6% to 9.3%.
-            let temp = reference::calibrate_temperature(
-                &t,
-                &f,
-                &pick.choice,
-                o.seed,
-                crate::scenario::twin::TEMPERATURE_MIN,
-            );
+            // Inputs that do not help the k-NN shares are left out of the logistic polynomial
+            // and the probability tree (docs/twin-calibration.md §5.3).
+            let (pick, temp) = class_fit(o, &t)?;
             let plan = check_plans(
                 &classification_text(o, &t, &pick, &rel, &temp, None),
                 &o.out,

@@ -510,7 +510,8 @@ fn whole_key(
 }
 
 /// The recipe of a classification reference other than k-NN (`logit`: `degree` and `ridge`;
-/// `tree`: `depth`, `min_leaf` and `seed`), every other key refused. Errors name the key.
+/// `tree`: `depth`, `min_leaf` and `seed`; either: `metric`, whose inputs of positive weight are
+/// the ones used), every other key refused. Errors name the key.
 fn class_choice_of(
     r: &ReferenceSpec,
     family: Candidate,
@@ -522,10 +523,23 @@ fn class_choice_of(
     let fam_span = r.family.span();
     let logit = family == Candidate::Logit;
     let allowed: &[&str] = if logit {
-        &["degree", "ridge"]
+        &["degree", "ridge", "metric"]
     } else {
-        &["depth", "min_leaf", "seed"]
+        &["depth", "min_leaf", "seed", "metric"]
     };
+    // Input weights: the logistic polynomial and the tree use the inputs of positive weight.
+    let metric = match &r.metric {
+        None => None,
+        Some(m) => {
+            if let Some(msg) = metric_problem(m.get_ref(), inputs, true) {
+                return Err(err(m.span(), "data.reference.metric", msg));
+            }
+            Some(m.get_ref().clone())
+        }
+    };
+    let used = metric
+        .as_ref()
+        .map_or(inputs, |w| crate::dgp::reference::positive_columns(w).len());
     let given = [
         ("k", r.k.as_ref().map(|v| v.span())),
         ("standardize", r.standardize.map(|_| fam_span.clone())),
@@ -566,14 +580,14 @@ fn class_choice_of(
     if logit {
         let d = r.degree.as_ref().ok_or_else(|| need("degree"))?;
         let degree = whole(d, "degree", 1, crate::family::poly::MAX_DEGREE as i64)? as usize;
-        let cols = crate::family::poly::n_basis(inputs, degree);
+        let cols = crate::family::poly::n_basis(used, degree);
         let most = crate::dgp::reference::classes::MAX_LOGIT_PARAMS;
         if !cols.is_some_and(|c| c <= rows && c * classes <= most) {
             return Err(err(
                 d.span(),
                 "data.reference.degree",
                 format!(
-                    "degree {degree} with {inputs} input(s) and {classes} classes needs more \
+                    "degree {degree} with {used} input(s) and {classes} classes needs more \
                      coefficients than the table's {rows} rows or the {most} a logistic \
                      polynomial may have"
                 ),
@@ -591,7 +605,10 @@ fn class_choice_of(
                 ),
             ));
         }
-        return Ok(Choice::logit(degree, ridge));
+        return Ok(Choice {
+            metric,
+            ..Choice::logit(degree, ridge)
+        });
     }
     let (Some(d), Some(l), Some(sd)) = (&r.depth, &r.min_leaf, &r.seed) else {
         return Err(need(if r.depth.is_none() {
@@ -602,11 +619,14 @@ fn class_choice_of(
             "seed"
         }));
     };
-    Ok(Choice::tree(crate::dgp::reference::TreeParams {
-        depth: whole(d, "depth", 1, 64)? as usize,
-        min_leaf: whole(l, "min_leaf", 1, rows.max(1) as i64)? as usize,
-        seed: whole(sd, "seed", 0, i64::MAX)? as u64,
-    }))
+    Ok(Choice {
+        metric,
+        ..Choice::tree(crate::dgp::reference::TreeParams {
+            depth: whole(d, "depth", 1, 64)? as usize,
+            min_leaf: whole(l, "min_leaf", 1, rows.max(1) as i64)? as usize,
+            seed: whole(sd, "seed", 0, i64::MAX)? as u64,
+        })
+    })
 }
 
 /// The first number of `[data.fit_report]` that is not finite, with its key (`noise.value`,

@@ -28,8 +28,10 @@
 //! (`commands::twin::class_reference`): the neighbour shares with add-one smoothing,
 //! `(count_c + 1) / (k + K)`, so no probability is exactly 0 and the twin's labels keep some
 //! noise everywhere (k chosen by the cross-validated Brier score, [`fit`]); and the logistic
-//! polynomial and probability tree of [`classes`]. The quality printed is the cross-validated
-//! accuracy of the most probable class.
+//! polynomial and probability tree of [`classes`], both on the inputs that
+//! [`select_class_inputs`] keeps (backward elimination on the k-NN shares' cross-validated
+//! log-loss with a one-SE guard). The quality printed is the cross-validated accuracy of the
+//! most probable class.
 
 pub mod classes;
 pub mod forest;
@@ -167,7 +169,9 @@ pub struct Choice {
     /// standardized input is multiplied by its weight before any distance, so an input the
     /// response barely depends on stops pushing neighbours apart (gradient weights, Kpotufe,
     /// Boularias, Schultz and Kim 2016, *JMLR* 17, from memory; chosen in [`select`]). `None`:
-    /// every input counts alike. Needs `standardize`.
+    /// every input counts alike. Needs `standardize`. A classification twin's logistic
+    /// polynomial and probability tree use the inputs of positive weight only (0/1 weights
+    /// chosen by [`select_class_inputs`]; the size of a positive weight does not matter there).
     pub metric: Option<Vec<f64>>,
     /// Classes, the logistic polynomial: its ridge penalty (its degree is `degree`).
     pub ridge: Option<f64>,
@@ -362,6 +366,13 @@ impl Choice {
                     ws.join(", ")
                 )
             }
+            Some(w) if matches!(self.family, Candidate::Logit | Candidate::Tree) => {
+                let ws: Vec<String> = w.iter().map(|v| format!("{v:.3}")).collect();
+                format!(
+                    "{plain}; on the inputs of positive weight in [{}]",
+                    ws.join(", ")
+                )
+            }
             _ => plain,
         };
         if self.twice {
@@ -399,6 +410,12 @@ pub fn metric_problem(w: &[f64], inputs: usize, standardize: bool) -> Option<Str
     } else {
         None
     }
+}
+
+/// The inputs of positive weight in `w` (the columns a classification twin's logistic
+/// polynomial and probability tree use when the recipe has input weights).
+pub fn positive_columns(w: &[f64]) -> Vec<usize> {
+    (0..w.len()).filter(|&j| w[j] > 0.0).collect()
 }
 
 /// Per-thread scratch of [`Reference::mean_at`].
@@ -441,6 +458,9 @@ pub struct Reference {
     poly: Option<PolyFit>,
     logit: Option<classes::Logit>,
     ptree: Option<classes::ProbTree>,
+    /// Classes, the logistic polynomial and the tree: the inputs they use (those of positive
+    /// weight in [`Choice::metric`]); `None`: every input.
+    cols: Option<Vec<usize>>,
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
@@ -530,6 +550,21 @@ impl Reference {
         } else {
             None
         };
+        // The logistic polynomial and the tree see only the inputs of positive weight.
+        let cols = match (&choice.metric, classes, choice.family) {
+            (Some(w), 1.., Candidate::Logit | Candidate::Tree) => {
+                if let Some(msg) = metric_problem(w, x.ncols(), true) {
+                    return Err(format!("`metric` {msg}"));
+                }
+                Some(positive_columns(w))
+            }
+            _ => None,
+        };
+        let x_sel = cols.as_ref().map(|c| x.select(ndarray::Axis(1), c));
+        let xc = match &x_sel {
+            Some(a) => a.view(),
+            None => x.view(),
+        };
         let (logit, ptree) = match (classes, choice.family) {
             (0, _) => (None, None),
             (_, Candidate::Knn) => (None, None),
@@ -538,13 +573,13 @@ impl Reference {
                     return Err("needs `degree` and `ridge`".into());
                 };
                 let labels: Vec<usize> = yv.iter().map(|&v| v as usize).collect();
-                let m = classes::Logit::fit(x, &labels, classes, d, r)
+                let m = classes::Logit::fit(xc, &labels, classes, d, r)
                     .map_err(|m| format!("the logistic polynomial: {m}"))?;
                 (Some(m), None)
             }
             (_, Candidate::Tree) => {
                 let t = choice.tree.ok_or("needs `depth`, `min_leaf` and `seed`")?;
-                let m = classes::ProbTree::fit(x, y, classes, t.depth, t.min_leaf, t.seed)
+                let m = classes::ProbTree::fit(xc, y, classes, t.depth, t.min_leaf, t.seed)
                     .map_err(|m| format!("the probability tree: {m}"))?;
                 (None, Some(m))
             }
@@ -568,6 +603,7 @@ impl Reference {
             poly,
             logit,
             ptree,
+            cols,
             y: yv,
             sq_resid: None,
             var_k: 0,
@@ -738,11 +774,19 @@ impl Reference {
     /// the logistic polynomial's, or the probability tree's leaf shares; sharpened by the
     /// temperature.
     pub fn probs_at(&self, row: &[f64], out: &mut [f64]) {
+        let picked: Vec<f64>;
+        let sel = match &self.cols {
+            Some(c) => {
+                picked = c.iter().map(|&j| row[j]).collect();
+                picked.as_slice()
+            }
+            None => row,
+        };
         if let Some(m) = &self.logit {
-            let x = ArrayView2::from_shape((1, row.len()), row).expect("one row");
+            let x = ArrayView2::from_shape((1, sel.len()), sel).expect("one row");
             out.copy_from_slice(&m.probs_rows(x));
         } else if let Some(t) = &self.ptree {
-            t.probs_at(row, out);
+            t.probs_at(sel, out);
         } else {
             let mut buf = Vec::with_capacity(self.k());
             self.neighbours(row, &mut Scratch::default(), &mut buf);
@@ -767,7 +811,10 @@ impl Reference {
         let k = self.classes;
         let mut out = Array2::zeros((x.nrows(), k));
         if let Some(m) = &self.logit {
-            let p = m.probs_rows(x);
+            let p = match &self.cols {
+                Some(c) => m.probs_rows(x.select(ndarray::Axis(1), c).view()),
+                None => m.probs_rows(x),
+            };
             for (mut row, src) in out.rows_mut().into_iter().zip(p.chunks_exact(k.max(1))) {
                 row.iter_mut().zip(src).for_each(|(o, v)| *o = *v);
                 if self.temperature != 1.0 {
@@ -1124,6 +1171,9 @@ pub struct TwinFit {
     /// standard error over rows (the score [`classes::cross_validate`]'s candidates are compared
     /// on); `None` for regression.
     pub cv_logloss: Option<(f64, f64)>,
+    /// Classes: each row's cross-validated log-loss at the chosen k (what
+    /// [`select_class_inputs`] pairs); empty for regression.
+    pub cv_logloss_rows: Vec<f64>,
 }
 
 /// Chooses the k-NN reference's k alone by `CV_FOLDS`-fold cross-validation (folds from
@@ -1133,6 +1183,17 @@ pub struct TwinFit {
 /// [`select::select`] and [`crate::dgp::twin`]. Errors when the table is too small for
 /// cross-validation.
 pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
+    fit_weighted(t, seed, standardize, None)
+}
+
+/// [`fit`] with neighbour distances on standardized inputs times the weights `metric` (one per
+/// input, as [`Choice::metric`]; a weight 0 leaves the input out). `None` is [`fit`].
+pub fn fit_weighted(
+    t: &Table,
+    seed: u64,
+    standardize: bool,
+    metric: Option<&[f64]>,
+) -> Result<TwinFit, Error> {
     let n = t.rows();
     let folds = CV_FOLDS.min(n);
     if n < 4 {
@@ -1153,7 +1214,15 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
         Task::Classify { classes } => classes,
         Task::Regress => 0,
     };
-    let index = NeighbourIndex::new(t.x.view(), standardize);
+    let index = match metric {
+        Some(w) => {
+            if let Some(msg) = metric_problem(w, t.x.ncols(), standardize) {
+                return Err(Error::Usage(format!("`metric` {msg}")));
+            }
+            NeighbourIndex::with_standardizer(t.x.view(), Standardizer::fit(t.x.view()).weighted(w))
+        }
+        None => NeighbourIndex::new(t.x.view(), standardize),
+    };
     let mut scratch = Scratch::default();
     // Per row and candidate k: the cross-validated loss term.
     let mut loss = vec![vec![0.0; n]; ks.len()];
@@ -1238,7 +1307,132 @@ pub fn fit(t: &Table, seed: u64, standardize: bool) -> Result<TwinFit, Error> {
         noise: noise_est,
         cv_noise,
         cv_logloss,
+        cv_logloss_rows: if classes > 0 {
+            logloss.swap_remove(bi)
+        } else {
+            Vec::new()
+        },
     })
+}
+
+/// Most inputs [`select_class_inputs`] tries to leave out: each step repeats the k-NN
+/// cross-validation once per input still in (a rule of thumb that keeps wide tables within
+/// seconds; no source). A wider table keeps every input.
+pub const CLASS_SELECT_MAX_INPUTS: usize = 16;
+
+/// One step of [`select_class_inputs`]: the input whose leaving out lowered the k-NN shares'
+/// cross-validated log-loss most, and by how much.
+#[derive(Debug, Clone, Copy)]
+pub struct InputStep {
+    /// The input (column index).
+    pub input: usize,
+    /// Mean over rows of the log-loss with it minus without it (positive: better without).
+    pub gain: f64,
+    /// The standard error of that paired mean (sd of the differences / √rows).
+    pub se: f64,
+    /// Whether it was left out (the gain above one standard error).
+    pub dropped: bool,
+}
+
+/// What [`select_class_inputs`] chose.
+#[derive(Debug, Clone)]
+pub struct ClassInputs {
+    /// The k-NN fit on every input ([`fit`]): the k-NN shares candidate and the temperature's
+    /// yardstick use it as before (weighting them too measured worse, docs/twin-calibration.md
+    /// §5.3).
+    pub plain: TwinFit,
+    /// The inputs of the logistic polynomial and the probability tree as [`Choice::metric`]
+    /// weights (1 kept, 0 left out); `None` when every input is kept.
+    pub metric: Option<Vec<f64>>,
+    /// The steps taken; the last one was not dropped when the guard stopped the search.
+    pub steps: Vec<InputStep>,
+    /// Whether the search ran (two classes or more, 2 to [`CLASS_SELECT_MAX_INPUTS`] inputs).
+    pub searched: bool,
+}
+
+/// The inputs of a classification twin's logistic polynomial and probability tree, by backward
+/// elimination on the k-NN shares' cross-validated log-loss ([`fit_weighted`] with weight 0 on
+/// the inputs left out; the same folds; k chosen again by the Brier score at every step): while
+/// two or more inputs are in, the input whose leaving out lowers the log-loss most is left out
+/// if it lowers it by more than one standard error of the paired per-row difference, and the
+/// search stops otherwise. The k-NN shares serve as the instrument because they assume no
+/// form: an input that does not move the class shares of neighbours does not help any
+/// reference. The guard is the one-SE rule of model choice (Breiman, Friedman, Olshen and Stone
+/// 1984, *Classification and Regression Trees*, §3.4.3, from memory) applied against the
+/// change, as the regression twin's input weights (`select::metric_guard`): an input stays
+/// unless the table shows clearly that the shares do better without it. Stated optimism: each
+/// step picks the best of the inputs still in on the same held-out rows, so the bar is a little
+/// lower than one standard error of a single pre-set comparison. Backward elimination is the
+/// classic stepwise search (Hastie, Tibshirani and Friedman 2009, *The Elements of Statistical
+/// Learning*, §3.3.2, from memory).
+pub fn select_class_inputs(t: &Table, seed: u64) -> Result<ClassInputs, Error> {
+    let plain = fit(t, seed, true)?;
+    let p = t.x.ncols();
+    let classes = match t.task {
+        Task::Classify { classes } => classes,
+        Task::Regress => 0,
+    };
+    if classes < 2 || !(2..=CLASS_SELECT_MAX_INPUTS).contains(&p) || plain.cv_logloss_rows.len() < 2
+    {
+        return Ok(ClassInputs {
+            plain,
+            metric: None,
+            steps: Vec::new(),
+            searched: false,
+        });
+    }
+    let mut w = vec![1.0; p];
+    let mut cur = plain.cv_logloss_rows.clone();
+    let mut steps = Vec::new();
+    while positive_columns(&w).len() >= 2 {
+        let mut best: Option<(InputStep, Vec<f64>)> = None;
+        for j in positive_columns(&w) {
+            let mut wj = w.clone();
+            wj[j] = 0.0;
+            let f = fit_weighted(t, seed, true, Some(&wj))?;
+            let (gain, se) = paired_logloss_gain(&cur, &f.cv_logloss_rows);
+            let better = match &best {
+                None => true,
+                Some(b) => gain > b.0.gain || (b.0.gain.is_nan() && !gain.is_nan()),
+            };
+            if better {
+                let step = InputStep {
+                    input: j,
+                    gain,
+                    se,
+                    dropped: gain > se,
+                };
+                best = Some((step, f.cv_logloss_rows));
+            }
+        }
+        let Some((step, rows)) = best else { break };
+        steps.push(step);
+        if !step.dropped {
+            break;
+        }
+        w[step.input] = 0.0;
+        cur = rows;
+    }
+    let metric = w.contains(&0.0).then_some(w);
+    Ok(ClassInputs {
+        plain,
+        metric,
+        steps,
+        searched: true,
+    })
+}
+
+/// Mean and standard error over rows of `before_i − after_i` (per-row log-losses on the same
+/// held-out rows). NaN when either is not finite.
+fn paired_logloss_gain(before: &[f64], after: &[f64]) -> (f64, f64) {
+    let n = before.len().min(after.len());
+    if n < 2 {
+        return (f64::NAN, f64::NAN);
+    }
+    let d: Vec<f64> = before.iter().zip(after).map(|(a, b)| a - b).collect();
+    let m = d.iter().sum::<f64>() / n as f64;
+    let var = d.iter().map(|v| (v - m) * (v - m)).sum::<f64>() / (n - 1) as f64;
+    (m, (var / n as f64).sqrt())
 }
 
 /// The folds of [`fit`]'s cross-validation (`CV_FOLDS`, at most one per row), from the twin's
