@@ -293,11 +293,6 @@ fn row_shape(doc: &ResultDoc, p: &crate::report::PointRow, observed: bool) -> de
     }
 }
 
-/// The largest training size of a document's rows (`None` with one size).
-fn largest_size(sizes: &[Option<u64>]) -> Option<u64> {
-    sizes.iter().copied().max().flatten()
-}
-
 /// The selection audit's section: one count per candidate (every model's grid at the largest
 /// size, end to end), adding up to the replicates, and every figure derived from the counts and
 /// the rows as `run` derives it (`report::selection::selection`). `plot --selection` alone checked
@@ -479,6 +474,7 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
     } else {
         doc.sizes.iter().map(|&n| Some(n as u64)).collect()
     };
+    let largest = sizes.iter().copied().max().flatten();
     for (i, p) in doc.points.iter().enumerate() {
         let Some((_, grid)) = grids.iter().find(|(f, _)| *f == p.family.as_deref()) else {
             return Err(match &p.family {
@@ -699,7 +695,8 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
         }
         // The standard error of a term bounded to a range of width w: each leave-one-block-out
         // estimate lies in the range, so their jackknife error is at most w·√(blocks − 1)/2, and a
-        // bootstrap's at most w/2 (an edited 1e300 was accepted).
+        // bootstrap's at most w/2; w·√blocks leaves room for a second-order part (an edited 1e300
+        // was accepted).
         let blocks = doc.scenario.blocks.max(1) as f64;
         for (k, se) in &p.stderr {
             let (lo, hi) = loss.range(k);
@@ -916,7 +913,10 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 let tol = 1e-9 * se.abs().max(jack.abs()) + loss.identity_floor();
                 let (low, high) = (*se < jack - tol, *se > jack + tol);
                 let beyond = loss.stderr_beyond_jackknife(k);
-                if se.is_finite() && jack.is_finite() && (low || (high && !beyond)) {
+                // A standard error written as null (not computable) beside leave-outs whose
+                // jackknife is a number: `run` writes the number.
+                let hidden = se.is_nan() && jack.is_finite() && !beyond;
+                if hidden || (se.is_finite() && jack.is_finite() && (low || (high && !beyond))) {
                     return Err(format!(
                         "{}: `stderr.{}` is {}, {} the jackknife of its own leave-one-block-out \
                          values in `uncertainty` ({}); {EDITED}",
@@ -928,6 +928,83 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                     ));
                 }
             }
+        }
+    }
+    // A twin's echoed record (what `twin` measured): consistent with itself, as the scenario
+    // loader holds it, and its recommended picks those of its fidelity models (an edited share
+    // of 7.5 and a recommended value of 1e308 were accepted and stored as a baseline).
+    if let Some(tw) = &doc.scenario.twin {
+        let bad = |key: String, why: String| Err(format!("`scenario.twin.{key}` {why}; {EDITED}"));
+        if let Some((j, w)) = tw
+            .input_weights
+            .iter()
+            .enumerate()
+            .find(|(_, w)| !(w.is_finite() && **w >= 0.0))
+        {
+            return bad(
+                format!("input_weights[{j}]"),
+                format!("is {}, not a weight", crate::fmt::fmt_exact(*w)),
+            );
+        }
+        if let Some(n) = tw
+            .noise
+            .as_ref()
+            .filter(|n| n.stderr < 0.0 || n.stderr.is_nan())
+        {
+            return bad(
+                "noise.stderr".into(),
+                format!("is {}, below 0", crate::fmt::fmt_exact(n.stderr)),
+            );
+        }
+        if let Some(f) = &tw.fidelity {
+            if f.replicates < 2 || f.tables < 1 {
+                return bad(
+                    "fidelity".into(),
+                    format!(
+                        "has {} replicates over {} tables (at least 2 over 1)",
+                        f.replicates, f.tables
+                    ),
+                );
+            }
+            for (i, m) in f.models.iter().enumerate() {
+                let view = crate::dgp::twin::FidelityView {
+                    pick: m.pick,
+                    one_se: &m.one_se,
+                    picks: &m.picks,
+                    in_one_se: m.in_one_se,
+                    curve_error: m.curve_error,
+                    corrected_pick: m.corrected_pick,
+                    grid: &m.grid,
+                    loss: &m.loss,
+                    corrected_loss: &m.corrected_loss,
+                };
+                if let Some((k, why)) = view.problem(f.tables) {
+                    return bad(format!("fidelity.models[{i}].{k}"), why);
+                }
+            }
+            let agrees = tw.recommended.len() == f.models.len()
+                && tw.recommended.iter().zip(&f.models).all(|(r, m)| {
+                    let value = if f.twin_replicates.is_some() {
+                        m.pick
+                    } else {
+                        m.corrected_pick
+                    };
+                    r.family == m.family
+                        && r.knob == m.knob
+                        && r.value == value
+                        && r.twin_lowest == m.pick
+                });
+            if !agrees {
+                return bad(
+                    "recommended".into(),
+                    "is not the picks of its fidelity models".into(),
+                );
+            }
+        } else if !tw.recommended.is_empty() {
+            return bad(
+                "recommended".into(),
+                "holds picks without a fidelity check".into(),
+            );
         }
     }
     // A table's counts and shares.
@@ -954,7 +1031,7 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
         }
     }
     if let Some(sel) = &doc.selection {
-        validate_selection(doc, sel, &grids, largest_size(&sizes))?;
+        validate_selection(doc, sel, &grids, largest)?;
     }
     for (r, rk) in doc.ranking.iter().enumerate() {
         for (k, c) in rk.candidates.iter().enumerate() {
@@ -971,7 +1048,6 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
     }
 
     // `best`: a row of the document (the largest training size) and rows of its curve.
-    let largest = sizes.iter().copied().max().flatten();
     let on_curve = |v: f64| {
         doc.points
             .iter()
@@ -1599,7 +1675,7 @@ impl fmt::Display for CheckReport {
             let range = if crit_words(sigma, lo) == crit_words(sigma, hi) {
                 crit_words(sigma, hi)
             } else {
-                format!("{}-{}", crit_words(sigma, lo), crit_words(sigma, hi))
+                format!("{} to {}", crit_words(sigma, lo), crit_words(sigma, hi))
             };
             format!(
                 "z > {range}, the Student t quantiles (over the blocks' degrees of freedom) of a \
@@ -1670,29 +1746,55 @@ pub fn t_threshold(sigma: f64, df: f64) -> f64 {
         return sigma;
     }
     let df = df.max(1.0);
-    let p = crate::decompose::zero_one::normal_cdf(-sigma);
-    if p <= 0.0 || p.is_nan() {
+    // In logarithms: the normal tail beyond 38 and the t quantiles beyond 1e12 (1e149 at one
+    // degree of freedom and sigma 37) are out of reach of the plain numbers.
+    let target = ln_normal_tail(sigma);
+    let (mut lo, mut hi) = (sigma.ln(), 709.0f64);
+    if ln_student_t_sf(hi, df) > target {
         return f64::INFINITY;
-    }
-    let (mut lo, mut hi) = (sigma, sigma.max(1.0));
-    while student_t_sf(hi, df) > p {
-        hi *= 2.0;
-        if hi > 1e12 {
-            return hi;
-        }
     }
     for _ in 0..200 {
         let mid = 0.5 * (lo + hi);
-        if student_t_sf(mid, df) > p {
+        if ln_student_t_sf(mid, df) > target {
             lo = mid;
         } else {
             hi = mid;
         }
-        if hi - lo <= 1e-12 * hi {
+        if hi - lo <= 1e-14 * hi.abs().max(1.0) {
             break;
         }
     }
-    hi
+    hi.exp()
+}
+
+/// `ln P(Z > s)` for a standard normal: directly up to 30, then by the asymptotic series of
+/// Mills' ratio, `φ(s)/s · (1 − 1/s² + 3/s⁴ − 15/s⁶)` (Abramowitz and Stegun 1964, 26.2.12;
+/// from memory), whose error there is below 1e-9 of the tail.
+fn ln_normal_tail(s: f64) -> f64 {
+    if s < 30.0 {
+        crate::decompose::zero_one::normal_cdf(-s).ln()
+    } else {
+        let s2 = s * s;
+        -0.5 * s2 - s.ln() - 0.5 * (2.0 * std::f64::consts::PI).ln()
+            + (1.0 - 1.0 / s2 + 3.0 / (s2 * s2) - 15.0 / (s2 * s2 * s2)).ln()
+    }
+}
+
+/// `ln P(T > e^u)` for Student's t with `df` degrees of freedom ([`student_t_sf`] in logarithms,
+/// so that `t` up to e^709 and tails far below 1e-308 keep their digits).
+fn ln_student_t_sf(u: f64, df: f64) -> f64 {
+    let (a, b) = (0.5 * df, 0.5);
+    // x = df / (df + t²) and 1 − x, without forming t² (e^1418 overflows).
+    let r = (df.ln() - 2.0 * u).exp(); // df / t²
+    let ln_x = df.ln() - 2.0 * u - r.ln_1p();
+    let ln_1mx = -r.ln_1p();
+    let x = ln_x.exp();
+    if x < (a + 1.0) / (a + b + 2.0) {
+        let ln_front = ln_gamma(a + b) - ln_gamma(a) - ln_gamma(b) + a * ln_x + b * ln_1mx;
+        0.5f64.ln() + ln_front + beta_fraction(x, a, b).ln() - a.ln()
+    } else {
+        student_t_sf(u.exp(), df).ln()
+    }
 }
 
 /// `P(T > t)` for Student's t with `df` degrees of freedom, `t ≥ 0`: `½ I_{df/(df+t²)}(df/2,
@@ -1854,8 +1956,17 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
             ));
         }
     }
-    let ea = serde_json::to_value(&new.scenario).unwrap_or_default();
-    let eb = serde_json::to_value(&base.scenario).unwrap_or_default();
+    let mut ea = serde_json::to_value(&new.scenario).unwrap_or_default();
+    let mut eb = serde_json::to_value(&base.scenario).unwrap_or_default();
+    // A twin's fidelity record and the pick it recommends are what `twin` measured, not what the
+    // run computes: the same twin written with `--fidelity 0` gave the same numbers and was
+    // refused ("scenario.twin.fidelity differs").
+    for e in [&mut ea, &mut eb] {
+        if let Some(t) = e.get_mut("twin").and_then(|t| t.as_object_mut()) {
+            t.remove("fidelity");
+            t.remove("recommended");
+        }
+    }
     if let (Some(ma), Some(mb)) = (ea.as_object(), eb.as_object()) {
         let mut keys: Vec<&String> = ma.keys().chain(mb.keys()).collect();
         keys.sort();
@@ -2168,20 +2279,26 @@ pub fn compare(
         .iter()
         .map(|m| (m.family.clone(), m.knob.clone()))
         .collect();
-    // The curves' scale: their largest expected loss (and a table's responses' variance).
-    let scale = [new, baseline]
-        .iter()
-        .flat_map(|d| {
-            d.points
-                .iter()
-                .map(|p| p.expected_loss())
-                .chain(d.noise_estimate.iter().filter_map(|n| n.response_variance))
-        })
-        .filter(|v| v.is_finite())
-        .fold(0.0f64, |a, v| a.max(v.abs()));
+    // A curve's scale (one family at one training size): its largest expected loss in either
+    // document, and a table's responses' variance. Per curve, so that one model's peak (a
+    // minimum-norm fit at its interpolation threshold) does not raise another's floor.
+    let scale_of = |p: &PointRow| {
+        [new, baseline]
+            .iter()
+            .flat_map(|d| {
+                d.points
+                    .iter()
+                    .filter(|q| q.family == p.family && q.train_size == p.train_size)
+                    .map(|q| q.expected_loss())
+                    .chain(d.noise_estimate.iter().filter_map(|n| n.response_variance))
+            })
+            .filter(|v| v.is_finite())
+            .fold(0.0f64, |a, v| a.max(v.abs()))
+    };
     let mut comparisons = Vec::new();
     for (i, &j) in pairs.iter().enumerate() {
         let (a, b) = (&new.points[i], &baseline.points[j]);
+        let scale = scale_of(a);
         for term in &terms {
             let term = term.as_str();
             let at = || format!("`{term}` at {}", row_name(new, a));
@@ -2250,14 +2367,16 @@ pub fn compare(
                 (b.max(2) - 1) as f64
             };
             // Welch–Satterthwaite (Welch 1947, Biometrika 34:28–35): independent errors x and
-            // y of `dof` each, plus a part known with many degrees of freedom (the evaluation
-            // points' spread, over hundreds of points: none counted).
+            // y of `dof` each, plus a part treated as known (the evaluation points' spread, over
+            // as many points as the run has, usually hundreds: its own error is not counted).
+            // In shares of the total, so that errors near 1e±77 neither overflow nor underflow.
             let welch = |x: f64, y: f64| {
-                let (x2, y2) = (x * x, y * y);
-                let den = x2 * x2 / dof(new) + y2 * y2 / dof(baseline);
+                let (dn, db) = (dof(new), dof(baseline));
                 move |total: f64| {
-                    if den > 0.0 {
-                        (total * total) * (total * total) / den
+                    let (a, b) = ((x / total).powi(4), (y / total).powi(4));
+                    let den = a / dn + b / db;
+                    if total > 0.0 && den > 0.0 {
+                        1.0 / den
                     } else {
                         f64::INFINITY
                     }
@@ -2328,9 +2447,9 @@ pub fn compare(
             c.se = se;
             c.crit = t_threshold(opts.sigma, df);
             // Rounding is no change: a Poisson bias of −5e-16 against +4e-16 read "+175%, z =
-            // +10" (the loss's absolute floor); for the squared loss, in the response's units,
-            // 1e-12 of the largest expected loss of either curve (or of a table's responses'
-            // variance): exact fits of 4e-31 and 2.2e-30 beside an underfit row read "+450%".
+            // +10" (the loss's absolute floor), and, for every loss, nor is a change below 1e-12
+            // of the curve's scale (for the squared loss, in the response's units, the only
+            // floor: exact fits of 4e-31 and 2.2e-30 beside an underfit row read "+450%").
             let floor = crate::decompose::by_name(&new.loss)
                 .map_or(0.0, |l| l.identity_floor())
                 .max(1e-12 * scale);
@@ -2508,6 +2627,84 @@ mod tests {
 
     // Hand-computed cases of the unpaired rule (different seeds, same points):
     // se = √(0.01² + 0.01²) = 0.014142; 4·se = 0.056569.
+    /// A twin's echoed fidelity record is held to itself and its recommended picks (an edited
+    /// share of 7.5 and a recommended 1e308 were accepted and stored as a baseline).
+    #[test]
+    fn a_twin_echo_is_held_to_its_fidelity_record() {
+        use crate::report::twin::{FidelityEcho, FidelityModelEcho, RecommendedPick, TwinEcho};
+        let model = FidelityModelEcho {
+            family: "tree".into(),
+            knob: "max_depth".into(),
+            pick: 2.0,
+            one_se: vec![2.0],
+            picks: vec![2.0, 1.0],
+            in_one_se: 0.5,
+            curve_error: 0.05,
+            corrected_pick: 2.0,
+            grid: vec![1.0, 2.0],
+            loss: vec![0.2, 0.1],
+            corrected_loss: vec![0.2, 0.1],
+        };
+        let echo = TwinEcho {
+            reference: "knn".into(),
+            twice: false,
+            input_weights: Vec::new(),
+            cv_r2: Vec::new(),
+            sharpen: None,
+            jitter: 0.0,
+            jitter_variance: None,
+            noise: None,
+            fidelity: Some(FidelityEcho {
+                tables: 2,
+                replicates: 100,
+                twin_replicates: Some(200),
+                models: vec![model],
+            }),
+            recommended: vec![RecommendedPick {
+                family: "tree".into(),
+                knob: "max_depth".into(),
+                value: 2.0,
+                basis: "twin-lowest".into(),
+                twin_lowest: 2.0,
+                bias_corrected: Some(2.0),
+            }],
+        };
+        let mut d = with_unc(
+            doc(vec![row(1.0, 1.0, 0.5, 0.25, Some(0.01))]),
+            "p",
+            1,
+            &[],
+            0.1,
+        );
+        d.scenario.twin = Some(echo);
+        validate(&d).unwrap();
+        type Edit<'a> = (&'a dyn Fn(&mut TwinEcho), &'a str);
+        let edits: [Edit; 4] = [
+            (
+                &|e| e.fidelity.as_mut().unwrap().models[0].in_one_se = 7.5,
+                "`scenario.twin.fidelity.models[0].in_one_se` is 7.5, but 1 of the 2 picks",
+            ),
+            (
+                &|e| e.recommended[0].value = 1e308,
+                "`scenario.twin.recommended` is not the picks of its fidelity models",
+            ),
+            (
+                &|e| e.fidelity.as_mut().unwrap().models[0].pick = 1.0,
+                "`scenario.twin.fidelity.models[0].pick` is 1, not the grid value of the lowest",
+            ),
+            (
+                &|e| e.input_weights = vec![-1.0],
+                "`scenario.twin.input_weights[0]` is -1, not a weight",
+            ),
+        ];
+        for (edit, needle) in edits {
+            let mut e = d.clone();
+            edit(e.scenario.twin.as_mut().unwrap());
+            let msg = validate(&e).unwrap_err();
+            assert!(msg.contains(needle), "{msg}");
+        }
+    }
+
     /// A document of another version that breaks a rule says it may be that version's, not
     /// only "edited" (0.3.3's intervals were not widened to ± 2 SE).
     #[test]
@@ -2604,6 +2801,21 @@ mod tests {
             last = c;
         }
         assert!((t_threshold(4.0, 1e6) - 4.0).abs() < 1e-3);
+        // Far tails, in logarithms: at one degree of freedom the quantile of a tail p is
+        // cot(πp) ≈ 1/(πp) (Cauchy); it grows with sigma (it stopped near 1e12 and fell); sigma
+        // 38 with 399 degrees of freedom is a number, not infinity.
+        let mut last = 0.0;
+        for sigma in [8.0, 10.0, 12.0, 20.0, 30.0, 37.0] {
+            let c = t_threshold(sigma, 1.0);
+            let p = ln_normal_tail(sigma).exp();
+            assert!((c * PI * p - 1.0).abs() < 1e-6, "{sigma}: {c}");
+            assert!(c > last, "{sigma}");
+            last = c;
+            assert!(t_threshold(sigma, 2.0) > t_threshold(sigma, 3.0));
+        }
+        let c = t_threshold(38.0, 399.0);
+        assert!(c.is_finite() && c > 38.0 && c < 1000.0, "{c}");
+        assert!((ln_normal_tail(29.999) - ln_normal_tail(30.0)).abs() < 0.05);
     }
 
     /// The `--sigma` whose Student-t threshold at `df` degrees of freedom is `crit`: the hand-made
@@ -2986,6 +3198,39 @@ mod tests {
                 .starts_with("cannot compare: scenario.twin.jitter_variance differs: "),
             "{e}"
         );
+        // The recommended pick is what `twin` measured, not the run's: one written with
+        // `--fidelity 0` (none) compares with one that has it.
+        let (mut a, mut b) = (base.clone(), base.clone());
+        a.scenario.twin = Some(twin(None));
+        let mut with_pick = twin(None);
+        with_pick.fidelity = Some(crate::report::twin::FidelityEcho {
+            tables: 1,
+            replicates: 10,
+            twin_replicates: Some(200),
+            models: vec![crate::report::twin::FidelityModelEcho {
+                family: "tree".into(),
+                knob: "max_depth".into(),
+                pick: 3.0,
+                one_se: vec![3.0],
+                picks: vec![3.0],
+                in_one_se: 1.0,
+                curve_error: 0.1,
+                corrected_pick: 3.0,
+                grid: vec![3.0],
+                loss: vec![0.5],
+                corrected_loss: vec![0.5],
+            }],
+        });
+        with_pick.recommended = vec![crate::report::twin::RecommendedPick {
+            family: "tree".into(),
+            knob: "max_depth".into(),
+            value: 3.0,
+            basis: "twin-lowest".into(),
+            twin_lowest: 3.0,
+            bias_corrected: Some(3.0),
+        }];
+        b.scenario.twin = Some(with_pick);
+        assert!(compare(&a, &b, &CheckOptions::default()).unwrap().identical);
         // ... and a list its first differing entry (inputs whose descriptions begin alike).
         let (mut a, b) = (base.clone(), base.clone());
         a.scenario.inputs[0].distribution = "lognormal(meanlog 0, sdlog 1)".into();
@@ -3117,10 +3362,26 @@ mod tests {
         let mut old = good.clone();
         old.points[1].stderr.iter_mut().for_each(|s| s.1 = f64::NAN);
         old.best = crate::report::best_of(&old.points);
-        old.uncertainty.as_mut().unwrap().rows[1]
-            .leave_out
-            .insert("variance".into(), pack_floats(&[f64::NAN; 4]));
+        for t in [
+            "variance",
+            "expected_loss",
+            "bias_sq",
+            "expected_loss_direct",
+        ] {
+            old.uncertainty.as_mut().unwrap().rows[1]
+                .leave_out
+                .insert(t.into(), pack_floats(&[f64::NAN; 4]));
+        }
         validate(&old).unwrap();
+        // ... but a null beside leave-outs whose jackknife is a number is not what `run` writes.
+        let mut hidden = good.clone();
+        hidden.points[1]
+            .stderr
+            .iter_mut()
+            .for_each(|s| s.1 = f64::NAN);
+        hidden.best = crate::report::best_of(&hidden.points);
+        let e = validate(&hidden).unwrap_err();
+        assert!(e.contains("is NaN, not the jackknife"), "{e}");
     }
 
     #[test]

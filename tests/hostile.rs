@@ -4061,8 +4061,6 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
         ("--jitter", Some("2")),
         ("--sharpen", Some("0.5")),
         ("--eval-size", Some("5")),
-        ("--fidelity", Some("3")),
-        ("--fidelity-replicates", Some("7")),
     ] {
         let mut args = vec!["twin", "t.csv", "--target", "y", "--classes", flag];
         args.extend(value);

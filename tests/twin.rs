@@ -2016,11 +2016,48 @@ fn classification_twin_has_a_fidelity_check() {
         assert_eq!(picks.len(), 2);
         assert!(picks.iter().all(|p| grid.contains(p)), "{m:?}");
     }
-    // `run` reads the record back (its checks hold) and marks the recommended pick.
+    // `run` reads the record back (its checks hold).
     let plan = load(&o.out);
     assert!(plan.replicates > 0);
+    // The twins of the twin are evaluated at the rows, as the twin is: the regression jitter
+    // (which a classification twin does not use) changed their evaluation points to 1000 and
+    // every number of the record.
+    let no_jitter = TwinOptions {
+        jitter: 0.0,
+        out: dir.path().join("no-jitter.toml"),
+        ..o.clone()
+    };
+    twin::command(&no_jitter).expect("twin without jitter");
+    let record = |t: &str| t[t.find("[data.fit_report]").unwrap()..].to_string();
+    assert_eq!(
+        record(&fs::read_to_string(&no_jitter.out).unwrap()),
+        record(&text)
+    );
     // The same table twinned again: the same record, bit for bit.
     let first = text.clone();
     twin::command(&o).expect("twin again");
     assert_eq!(fs::read_to_string(&o.out).unwrap(), first);
+}
+
+/// Separable classes (invented: a gap between the two labels' inputs): the twin's expected 0-1
+/// loss rounds to 0 at every depth, and the fidelity check's curve distance was 0/0, written
+/// as `curve_error = NaN`, a scenario nothing could read. The distance is 0 when both are 0.
+#[test]
+fn a_separable_classification_twin_writes_a_readable_fidelity_record() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut s = String::from("x,y\n");
+    for i in (0..40).chain(60..100) {
+        s.push_str(&format!("{i},{}\n", if i < 50 { "a" } else { "b" }));
+    }
+    fs::write(dir.path().join("t.csv"), s).unwrap();
+    let o = TwinOptions {
+        fidelity: 2,
+        fidelity_replicates: 10,
+        ..opts(dir.path(), true, "y")
+    };
+    let msg = twin::command(&o).expect("twin");
+    assert!(!msg.contains("NaN"), "{msg}");
+    let text = fs::read_to_string(&o.out).unwrap();
+    assert!(!text.contains("NaN"), "{text}");
+    load(&o.out);
 }

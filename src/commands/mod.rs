@@ -1268,10 +1268,6 @@ pub fn twin(a: TwinArgs) -> Result<u8, Error> {
         } else if a.eval_size != crate::dgp::twin::EVAL_SIZE {
             // Its evaluation points are the table's rows.
             Some("--eval-size")
-        } else if a.fidelity != twin::FIDELITY_TABLES && a.fidelity != 0 {
-            Some("--fidelity")
-        } else if a.fidelity_replicates != twin::FIDELITY_REPLICATES {
-            Some("--fidelity-replicates")
         } else {
             None
         };

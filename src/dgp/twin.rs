@@ -1093,6 +1093,111 @@ impl FidelityModel {
     }
 }
 
+/// One model of a fidelity record, as `twin` writes it (`[data.fit_report.fidelity]`) and a
+/// result echoes it (`scenario.twin.fidelity`): the fields its consistency is read from.
+pub struct FidelityView<'a> {
+    /// The twin's pick.
+    pub pick: f64,
+    /// The twin's one-SE set.
+    pub one_se: &'a [f64],
+    /// The picks of the twins of the twin.
+    pub picks: &'a [f64],
+    /// The share of `picks` inside `one_se`.
+    pub in_one_se: f64,
+    /// The mean curve distance.
+    pub curve_error: f64,
+    /// The bias-corrected pick.
+    pub corrected_pick: f64,
+    /// The grid.
+    pub grid: &'a [f64],
+    /// The twin's expected loss per grid value.
+    pub loss: &'a [f64],
+    /// The bias-corrected expected loss per grid value.
+    pub corrected_loss: &'a [f64],
+}
+
+impl FidelityView<'_> {
+    /// The first field that contradicts the others (with `tables` tables drawn), and why: lists
+    /// of different lengths, a pick that is not the lowest of its curve or off the grid, a
+    /// one-SE set without the pick, picks off the grid or not one per table, a share of picks
+    /// inside the set that is not theirs, a negative curve distance. Read by the scenario
+    /// loader and by `check`, so a hand-edited record is refused wherever it is read (a pick
+    /// of 99 off the grid was printed as the twin's recommendation).
+    pub fn problem(&self, tables: usize) -> Option<(&'static str, String)> {
+        let num = crate::fmt::fmt_exact;
+        let n = self.grid.len();
+        if n == 0 || self.loss.len() != n || self.corrected_loss.len() != n {
+            return Some((
+                "loss",
+                format!(
+                    "has {} values and `corrected_loss` {} for a grid of {n}",
+                    self.loss.len(),
+                    self.corrected_loss.len()
+                ),
+            ));
+        }
+        let on_grid = |v: f64| self.grid.contains(&v);
+        let lowest = |l: &[f64]| l.iter().copied().fold(f64::INFINITY, f64::min);
+        let at = |v: f64, l: &[f64]| self.grid.iter().position(|g| *g == v).map(|j| l[j]);
+        if at(self.pick, self.loss) != Some(lowest(self.loss)) {
+            return Some((
+                "pick",
+                format!(
+                    "is {}, not the grid value of the lowest `loss`",
+                    num(self.pick)
+                ),
+            ));
+        }
+        if at(self.corrected_pick, self.corrected_loss) != Some(lowest(self.corrected_loss)) {
+            return Some((
+                "corrected_pick",
+                format!(
+                    "is {}, not the grid value of the lowest `corrected_loss`",
+                    num(self.corrected_pick)
+                ),
+            ));
+        }
+        if !self.one_se.contains(&self.pick) || !self.one_se.iter().all(|v| on_grid(*v)) {
+            return Some((
+                "one_se",
+                "does not hold the pick, or holds a value off the grid".into(),
+            ));
+        }
+        if self.picks.len() != tables || !self.picks.iter().all(|v| on_grid(*v)) {
+            return Some((
+                "picks",
+                format!(
+                    "has {} values for {tables} tables, or a value off the grid",
+                    self.picks.len()
+                ),
+            ));
+        }
+        let inside = self
+            .picks
+            .iter()
+            .filter(|p| self.one_se.contains(p))
+            .count();
+        let share = inside as f64 / self.picks.len().max(1) as f64;
+        if (self.in_one_se - share).abs() > 1e-12 {
+            return Some((
+                "in_one_se",
+                format!(
+                    "is {}, but {inside} of the {} picks are in `one_se`",
+                    num(self.in_one_se),
+                    self.picks.len()
+                ),
+            ));
+        }
+        if self.curve_error < 0.0 || self.curve_error.is_nan() {
+            return Some((
+                "curve_error",
+                format!("is {}, below 0", num(self.curve_error)),
+            ));
+        }
+        None
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

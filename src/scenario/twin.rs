@@ -722,71 +722,19 @@ fn inconsistent_report(r: &FitReportSpec, sd: Option<f64>) -> Option<(String, St
         }
     }
     for (i, m) in r.fidelity.iter().flat_map(|f| f.models.iter()).enumerate() {
-        let key = |k: &str| format!("fidelity.models[{i}].{k}");
-        let n = m.grid.len();
-        if n == 0 || m.loss.len() != n || m.corrected_loss.len() != n {
-            return Some((
-                key("loss"),
-                format!(
-                    "has {} values and `corrected_loss` {} for a grid of {n}",
-                    m.loss.len(),
-                    m.corrected_loss.len()
-                ),
-            ));
-        }
-        let on_grid = |v: f64| m.grid.contains(&v);
-        let lowest = |l: &[f64]| l.iter().copied().fold(f64::INFINITY, f64::min);
-        let at = |v: f64, l: &[f64]| m.grid.iter().position(|g| *g == v).map(|j| l[j]);
-        if at(m.pick, &m.loss) != Some(lowest(&m.loss)) {
-            return Some((
-                key("pick"),
-                format!(
-                    "is {}, not the grid value of the lowest `loss`",
-                    num(m.pick)
-                ),
-            ));
-        }
-        if at(m.corrected_pick, &m.corrected_loss) != Some(lowest(&m.corrected_loss)) {
-            return Some((
-                key("corrected_pick"),
-                format!(
-                    "is {}, not the grid value of the lowest `corrected_loss`",
-                    num(m.corrected_pick)
-                ),
-            ));
-        }
-        if !m.one_se.contains(&m.pick) || !m.one_se.iter().all(|v| on_grid(*v)) {
-            return Some((
-                key("one_se"),
-                "does not hold the pick, or holds a value off the grid".into(),
-            ));
-        }
-        if m.picks.len() != tables || !m.picks.iter().all(|v| on_grid(*v)) {
-            return Some((
-                key("picks"),
-                format!(
-                    "has {} values for {tables} tables, or a value off the grid",
-                    m.picks.len()
-                ),
-            ));
-        }
-        let inside = m.picks.iter().filter(|p| m.one_se.contains(p)).count();
-        let share = inside as f64 / m.picks.len().max(1) as f64;
-        if (m.in_one_se - share).abs() > 1e-12 {
-            return Some((
-                key("in_one_se"),
-                format!(
-                    "is {}, but {inside} of the {} picks are in `one_se`",
-                    num(m.in_one_se),
-                    m.picks.len()
-                ),
-            ));
-        }
-        if m.curve_error < 0.0 {
-            return Some((
-                key("curve_error"),
-                format!("is {}, below 0", num(m.curve_error)),
-            ));
+        let view = crate::dgp::twin::FidelityView {
+            pick: m.pick,
+            one_se: &m.one_se,
+            picks: &m.picks,
+            in_one_se: m.in_one_se,
+            curve_error: m.curve_error,
+            corrected_pick: m.corrected_pick,
+            grid: &m.grid,
+            loss: &m.loss,
+            corrected_loss: &m.corrected_loss,
+        };
+        if let Some((k, why)) = view.problem(tables) {
+            return Some((format!("fidelity.models[{i}].{k}"), why));
         }
     }
     None
