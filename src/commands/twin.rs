@@ -889,9 +889,30 @@ fn fidelity_lines(
     v.push("  The shares say how accurate twins of tables like this one typically are, not an error bar for this table. The bias-corrected pick (2·EL − mean EL of the twins of the twin) is a second opinion: on the regression processes of docs/twin-calibration.md the twin's own lowest expected loss was the more reliable pick, so it is the recommended one (for classification twins the choice rests on that measurement too).".into());
     if classes {
         // docs/twin-calibration.md §5.4: 224 (table, family) cases of four invented processes.
-        v.push("  For classification twins this gauge is coarse: on four invented processes the curve distance matched the twins' average curve error (1.04-1.12 times it) but did not tell a worse table's twin from a better one, and the shares inside the set ran 0.1-0.3 above how often the twin's pick was inside the truth's one-SE set (docs/twin-calibration.md §5.4).".into());
+        v.push("  For classification twins this gauge is coarse: on four invented processes the curve distance matched the twins' average curve error (1.04-1.12 times it) but did not tell a worse table's twin from a better one, and for trees the shares inside the set ran 0.1-0.3 above how often the twin's pick was inside the truth's one-SE set (for k-NN within 0.15) (docs/twin-calibration.md §5.4).".into());
     }
     v
+}
+
+/// What the terminal shows of the fidelity check: its lines and the recommended pick, or that
+/// it was skipped.
+fn fidelity_output(
+    fid: Option<&FidelityRecord>,
+    rows: usize,
+    families: &[FidelityFamily],
+    classes: bool,
+) -> String {
+    match fid {
+        Some(f) => {
+            let mut s: String = fidelity_lines(f, rows, families, classes)
+                .into_iter()
+                .map(|l| format!("{l}\n"))
+                .collect();
+            s.push_str(&format!("{}\n", recommended_line(f)));
+            s
+        }
+        None => "Fidelity check skipped (--fidelity 0): no fidelity gauge and no bias-corrected pick; `run` the scenario for the twin's lowest expected loss, the recommended pick.\n".into(),
+    }
 }
 
 /// The headline: the recommended pick of every family of the fidelity check.
@@ -2024,15 +2045,12 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             out.push('\n');
             out.push_str(&blur);
             out.push('\n');
-            match &fid {
-                Some(f) => {
-                    for l in fidelity_lines(f, t.rows(), &o.fidelity_families, true) {
-                        out.push_str(&format!("{l}\n"));
-                    }
-                    out.push_str(&format!("{}\n", recommended_line(f)));
-                }
-                None => out.push_str("Fidelity check skipped (--fidelity 0): no fidelity gauge and no bias-corrected pick; `run` the scenario for the twin's lowest expected loss, the recommended pick.\n"),
-            }
+            out.push_str(&fidelity_output(
+                fid.as_ref(),
+                t.rows(),
+                &o.fidelity_families,
+                true,
+            ));
             text
         }
         Task::Regress => {
@@ -2230,15 +2248,12 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                 out.push_str(RESIDUALS_NOTE);
                 out.push('\n');
             }
-            match &fid {
-                Some(f) => {
-                    for l in fidelity_lines(f, t.rows(), &o.fidelity_families, false) {
-                        out.push_str(&format!("{l}\n"));
-                    }
-                    out.push_str(&format!("{}\n", recommended_line(f)));
-                }
-                None => out.push_str("Fidelity check skipped (--fidelity 0): no fidelity gauge and no bias-corrected pick; `run` the scenario for the twin's lowest expected loss, the recommended pick.\n"),
-            }
+            out.push_str(&fidelity_output(
+                fid.as_ref(),
+                t.rows(),
+                &o.fidelity_families,
+                false,
+            ));
             let text = body(
                 &rt,
                 &format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}"),
