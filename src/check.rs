@@ -671,12 +671,7 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 ));
             }
         }
-        let se_of = |k: &str| {
-            p.stderr
-                .iter()
-                .find(|(s, _)| s == k)
-                .map_or(f64::NAN, |s| s.1)
-        };
+        let se_of = |k: &str| p.se(k).unwrap_or(f64::NAN);
         // The noise of K classes is at most that of K equal shares (a Brier noise of 0.9 with
         // two classes was accepted).
         let classes = doc.scenario.labels.as_ref().map_or(0, Vec::len);
@@ -957,44 +952,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
             );
         }
         if let Some(f) = &tw.fidelity {
-            if f.replicates < 2 || f.tables < 1 {
-                return bad(
-                    "fidelity".into(),
-                    format!(
-                        "has {} replicates over {} tables (at least 2 over 1)",
-                        f.replicates, f.tables
-                    ),
-                );
+            let record = crate::dgp::twin::FidelityRecord::from(f);
+            if let Some((k, why)) = record.problem() {
+                return bad(format!("fidelity.{k}"), why);
             }
-            for (i, m) in f.models.iter().enumerate() {
-                let view = crate::dgp::twin::FidelityView {
-                    pick: m.pick,
-                    one_se: &m.one_se,
-                    picks: &m.picks,
-                    in_one_se: m.in_one_se,
-                    curve_error: m.curve_error,
-                    corrected_pick: m.corrected_pick,
-                    grid: &m.grid,
-                    loss: &m.loss,
-                    corrected_loss: &m.corrected_loss,
-                };
-                if let Some((k, why)) = view.problem(f.tables) {
-                    return bad(format!("fidelity.models[{i}].{k}"), why);
-                }
-            }
-            let agrees = tw.recommended.len() == f.models.len()
-                && tw.recommended.iter().zip(&f.models).all(|(r, m)| {
-                    let value = if f.twin_replicates.is_some() {
-                        m.pick
-                    } else {
-                        m.corrected_pick
-                    };
-                    r.family == m.family
-                        && r.knob == m.knob
-                        && r.value == value
-                        && r.twin_lowest == m.pick
-                });
-            if !agrees {
+            if tw.recommended != crate::report::twin::recommended(&record) {
                 return bad(
                     "recommended".into(),
                     "is not the picks of its fidelity models".into(),
@@ -1069,11 +1031,7 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
         }
         Some(p) => {
             // ... with its standard error (three times it widened the one-SE set, accepted).
-            let se = p
-                .stderr
-                .iter()
-                .find(|(t, _)| t == "expected_loss")
-                .map_or(f64::NAN, |t| t.1);
+            let se = p.se("expected_loss").unwrap_or(f64::NAN);
             let written = doc.best.stderr.unwrap_or(f64::NAN);
             if written.to_bits() != se.to_bits() && !(written.is_nan() && se.is_nan()) {
                 return Err(format!(
@@ -1208,11 +1166,7 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                     .map_or(f64::NAN, |t| p.get(&t.key))
             };
             let same = |a: f64, b: f64| a.to_bits() == b.to_bits() || (a.is_nan() && b.is_nan());
-            let se = p
-                .stderr
-                .iter()
-                .find(|(t, _)| t == "expected_loss")
-                .map_or(f64::NAN, |t| t.1);
+            let se = p.se("expected_loss").unwrap_or(f64::NAN);
             let copied = [
                 ("bias", sb.bias, main("bias")),
                 ("variance", sb.variance, main("variance")),
@@ -2370,16 +2324,12 @@ pub fn compare(
             // y of `dof` each, plus a part treated as known (the evaluation points' spread, over
             // as many points as the run has, usually hundreds: its own error is not counted).
             // In shares of the total, so that errors near 1e±77 neither overflow nor underflow.
-            let welch = |x: f64, y: f64| {
-                let (dn, db) = (dof(new), dof(baseline));
-                move |total: f64| {
-                    let (a, b) = ((x / total).powi(4), (y / total).powi(4));
-                    let den = a / dn + b / db;
-                    if total > 0.0 && den > 0.0 {
-                        1.0 / den
-                    } else {
-                        f64::INFINITY
-                    }
+            let welch = |x: f64, y: f64, total: f64| {
+                let den = (x / total).powi(4) / dof(new) + (y / total).powi(4) / dof(baseline);
+                if total > 0.0 && den > 0.0 {
+                    1.0 / den
+                } else {
+                    f64::INFINITY
                 }
             };
             let mut df = f64::INFINITY;
@@ -2405,7 +2355,7 @@ pub fn compare(
                 }
                 Mode::SamePoints => {
                     let (x, y) = unpaired()?;
-                    df = welch(x, y)(x.hypot(y));
+                    df = welch(x, y, x.hypot(y));
                     x.hypot(y)
                 }
                 Mode::OtherPoints => {
@@ -2432,7 +2382,7 @@ pub fn compare(
                     let pa = spread(ua, i, "result")?;
                     let pb = spread(ub, j, "baseline")?;
                     let total = x.hypot(y).hypot((pa + pb).sqrt());
-                    df = welch(x, y)(total);
+                    df = welch(x, y, total);
                     total
                 }
             };

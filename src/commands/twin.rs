@@ -1770,33 +1770,10 @@ fn blur_line(plan: &Plan, accuracy: (f64, f64)) -> Result<String, Error> {
 }
 
 /// The text of a classification twin's scenario (`table_rel`: the CSV relative to the
-/// scenario's folder).
-pub fn classification_text(
-    o: &TwinOptions,
-    t: &Table,
-    pick: &ClassPick,
-    table_rel: &str,
-    temp: &reference::Temperature,
-    blur: Option<&str>,
-) -> String {
-    let model = format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}");
-    class_body(
-        o,
-        t,
-        pick,
-        table_rel,
-        temp,
-        blur,
-        None,
-        &model,
-        TWIN_REPLICATES,
-    )
-}
-
-/// [`classification_text`] with the fidelity check's record (its lines among the comments and
-/// its `[data.fit_report]`), a `[model]` part and a replicate count of its own.
+/// scenario's folder), with the fidelity check's record when there is one (its lines among the
+/// comments and its `[data.fit_report]`), a `[model]` part and a replicate count.
 #[allow(clippy::too_many_arguments)]
-fn class_body(
+pub fn classification_text(
     o: &TwinOptions,
     t: &Table,
     pick: &ClassPick,
@@ -2005,36 +1982,26 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
             // Inputs that do not help the k-NN shares are left out of the logistic polynomial
             // and the probability tree (docs/twin-calibration.md §5.3).
             let (pick, temp) = class_fit(o, &t)?;
+            let text_of = |blur: Option<&str>, fid: Option<&FidelityRecord>, model: &str, reps| {
+                classification_text(o, &t, &pick, &rel, &temp, blur, fid, model, reps)
+            };
+            let model = format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}");
             let plan = check_plans(
-                &classification_text(o, &t, &pick, &rel, &temp, None),
+                &text_of(None, None, &model, TWIN_REPLICATES),
                 &o.out,
                 &folder,
             )?;
             let blur = blur_line(&plan, pick.accuracy)?;
-            let o_eff = TwinOptions {
-                eval_size: eval_size(o, t.rows()),
-                ..o.clone()
-            };
+            // The twins of the twin are evaluated at their rows (`twin_of`), as the twin is.
             let fid = if o.fidelity > 0 {
                 let stage = crate::progress::Stage::new();
-                Some(fidelity(&o_eff, &t, &folder, &stage, &|models, reps| {
-                    class_body(o, &t, &pick, &rel, &temp, Some(&blur), None, models, reps)
+                Some(fidelity(o, &t, &folder, &stage, &|models, reps| {
+                    text_of(Some(&blur), None, models, reps)
                 })?)
             } else {
                 None
             };
-            let model = format!("{DEFAULT_MODEL}{DEFAULT_AUDIT}");
-            let text = class_body(
-                o,
-                &t,
-                &pick,
-                &rel,
-                &temp,
-                Some(&blur),
-                fid.as_ref(),
-                &model,
-                TWIN_REPLICATES,
-            );
+            let text = text_of(Some(&blur), fid.as_ref(), &model, TWIN_REPLICATES);
             for l in &pick.lines {
                 out.push_str(l);
                 out.push('\n');

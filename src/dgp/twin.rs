@@ -1093,36 +1093,11 @@ impl FidelityModel {
     }
 }
 
-/// One model of a fidelity record, as `twin` writes it (`[data.fit_report.fidelity]`) and a
-/// result echoes it (`scenario.twin.fidelity`): the fields its consistency is read from.
-pub struct FidelityView<'a> {
-    /// The twin's pick.
-    pub pick: f64,
-    /// The twin's one-SE set.
-    pub one_se: &'a [f64],
-    /// The picks of the twins of the twin.
-    pub picks: &'a [f64],
-    /// The share of `picks` inside `one_se`.
-    pub in_one_se: f64,
-    /// The mean curve distance.
-    pub curve_error: f64,
-    /// The bias-corrected pick.
-    pub corrected_pick: f64,
-    /// The grid.
-    pub grid: &'a [f64],
-    /// The twin's expected loss per grid value.
-    pub loss: &'a [f64],
-    /// The bias-corrected expected loss per grid value.
-    pub corrected_loss: &'a [f64],
-}
-
-impl FidelityView<'_> {
+impl FidelityModel {
     /// The first field that contradicts the others (with `tables` tables drawn), and why: lists
     /// of different lengths, a pick that is not the lowest of its curve or off the grid, a
     /// one-SE set without the pick, picks off the grid or not one per table, a share of picks
-    /// inside the set that is not theirs, a negative curve distance. Read by the scenario
-    /// loader and by `check`, so a hand-edited record is refused wherever it is read (a pick
-    /// of 99 off the grid was printed as the twin's recommendation).
+    /// inside the set that is not theirs, a negative curve distance ([`FidelityRecord::problem`]).
     pub fn problem(&self, tables: usize) -> Option<(&'static str, String)> {
         let num = crate::fmt::fmt_exact;
         let n = self.grid.len();
@@ -1139,7 +1114,7 @@ impl FidelityView<'_> {
         let on_grid = |v: f64| self.grid.contains(&v);
         let lowest = |l: &[f64]| l.iter().copied().fold(f64::INFINITY, f64::min);
         let at = |v: f64, l: &[f64]| self.grid.iter().position(|g| *g == v).map(|j| l[j]);
-        if at(self.pick, self.loss) != Some(lowest(self.loss)) {
+        if at(self.pick, &self.loss) != Some(lowest(&self.loss)) {
             return Some((
                 "pick",
                 format!(
@@ -1148,7 +1123,7 @@ impl FidelityView<'_> {
                 ),
             ));
         }
-        if at(self.corrected_pick, self.corrected_loss) != Some(lowest(self.corrected_loss)) {
+        if at(self.corrected_pick, &self.corrected_loss) != Some(lowest(&self.corrected_loss)) {
             return Some((
                 "corrected_pick",
                 format!(
@@ -1195,6 +1170,30 @@ impl FidelityView<'_> {
             ));
         }
         None
+    }
+}
+
+impl FidelityRecord {
+    /// The first statement of the record that contradicts itself, with its key (`replicates`,
+    /// `models[1].pick`) and why: fewer than 2 replicates or no table, or a model's
+    /// [`FidelityModel::problem`]. Read by the scenario loader (`[data.fit_report.fidelity]`)
+    /// and by `check` (a result's `scenario.twin.fidelity`), so a hand-edited record is refused
+    /// wherever it is read (a pick of 99 off the grid was printed as the twin's recommendation).
+    pub fn problem(&self) -> Option<(String, String)> {
+        if self.replicates < 2 || self.tables < 1 {
+            return Some((
+                "replicates".into(),
+                format!(
+                    "is {} over {} tables: a fidelity check draws at least 1 table and runs at \
+                     least 2 replicates",
+                    self.replicates, self.tables
+                ),
+            ));
+        }
+        self.models.iter().enumerate().find_map(|(i, m)| {
+            m.problem(self.tables)
+                .map(|(k, why)| (format!("models[{i}].{k}"), why))
+        })
     }
 }
 

@@ -8,7 +8,7 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::dgp::twin::FidelityRecord;
+use crate::dgp::twin::{FidelityModel, FidelityRecord};
 use crate::dgp::Synthetic;
 use crate::fmt::{fmt_num, fmt_se, fmt_value};
 
@@ -219,6 +219,35 @@ pub struct FidelityModelEcho {
     pub loss: Vec<f64>,
     /// Bias-corrected expected loss.
     pub corrected_loss: Vec<f64>,
+}
+
+/// The record a result echoes, read back (for `check`, which holds it to
+/// [`FidelityRecord::problem`] and [`recommended`]).
+impl From<&FidelityEcho> for FidelityRecord {
+    fn from(f: &FidelityEcho) -> FidelityRecord {
+        FidelityRecord {
+            tables: f.tables,
+            replicates: f.replicates,
+            twin_replicates: f.twin_replicates,
+            models: f
+                .models
+                .iter()
+                .map(|m| FidelityModel {
+                    family: m.family.clone(),
+                    knob: m.knob.clone(),
+                    pick: m.pick,
+                    one_se: m.one_se.clone(),
+                    picks: m.picks.clone(),
+                    in_one_se: m.in_one_se,
+                    curve_error: m.curve_error,
+                    corrected_pick: m.corrected_pick,
+                    grid: m.grid.clone(),
+                    loss: m.loss.clone(),
+                    corrected_loss: m.corrected_loss.clone(),
+                })
+                .collect(),
+        }
+    }
 }
 
 /// The twin section of a process; `None` unless it is a twin.

@@ -707,37 +707,10 @@ fn inconsistent_report(r: &FitReportSpec, sd: Option<f64>) -> Option<(String, St
             }
         }
     }
-    let tables = r.fidelity.as_ref().map_or(0, |f| f.tables as usize);
-    if let Some(f) = &r.fidelity {
-        // A fidelity run has at least 2 replicates, and a check at least one table.
-        if f.replicates < 2 || f.tables < 1 {
-            return Some((
-                "fidelity.replicates".into(),
-                format!(
-                    "is {} over {} tables: a fidelity check draws at least 1 table and runs at \
-                     least 2 replicates",
-                    f.replicates, f.tables
-                ),
-            ));
-        }
-    }
-    for (i, m) in r.fidelity.iter().flat_map(|f| f.models.iter()).enumerate() {
-        let view = crate::dgp::twin::FidelityView {
-            pick: m.pick,
-            one_se: &m.one_se,
-            picks: &m.picks,
-            in_one_se: m.in_one_se,
-            curve_error: m.curve_error,
-            corrected_pick: m.corrected_pick,
-            grid: &m.grid,
-            loss: &m.loss,
-            corrected_loss: &m.corrected_loss,
-        };
-        if let Some((k, why)) = view.problem(tables) {
-            return Some((format!("fidelity.models[{i}].{k}"), why));
-        }
-    }
-    None
+    report_of(r)
+        .fidelity
+        .and_then(|f| f.problem())
+        .map(|(k, why)| (format!("fidelity.{k}"), why))
 }
 
 /// The record of `[data.fit_report]`.
