@@ -126,6 +126,10 @@ fn one_line(rendered: &str) -> String {
     if let Some(t) = tip {
         out.push_str(&format!(" ({t})"));
     }
+    // The bare command's first line is the program's description, which ends a sentence.
+    if out.ends_with('.') {
+        out.pop();
+    }
     out.push_str("; see --help");
     out
 }

@@ -578,3 +578,67 @@ fn every_shipped_scenario_writes_a_document_check_accepts() {
         assert_eq!(code, 0, "{name}: {err}");
     }
 }
+
+#[test]
+fn a_table_scenario_moved_elsewhere_compares_with_its_baseline() {
+    // The table's location is not part of the run: the same scenario moved into another folder
+    // and given its table by an absolute path is identical to the baseline; the same scenario
+    // on a table with one value changed is refused (its evaluation points' truth differs).
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let repo = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios");
+    let text = std::fs::read_to_string(repo.join("cold-store-table.toml")).unwrap();
+    let csv = std::fs::read_to_string(repo.join("data/cold-store.csv")).unwrap();
+    std::fs::create_dir_all(d.join("a/data")).unwrap();
+    std::fs::create_dir_all(d.join("b/deep")).unwrap();
+    std::fs::write(d.join("a/data/cold-store.csv"), &csv).unwrap();
+    std::fs::write(d.join("a/s.toml"), &text).unwrap();
+    let moved = d.join("b/deep/t.csv");
+    std::fs::write(&moved, &csv).unwrap();
+    let abs = text.replace(
+        "path = \"data/cold-store.csv\"",
+        &format!("path = {:?}", moved.to_string_lossy()),
+    );
+    assert_ne!(
+        abs, text,
+        "the scenario names its table as data/cold-store.csv"
+    );
+    std::fs::write(d.join("b/deep/s.toml"), &abs).unwrap();
+    let go = |s: &str, out: &str| {
+        let (code, _, err) = run3(d, &["run", s, "--replicates", "12", "--out", out, "-q"]);
+        assert_eq!(code, 0, "{err}");
+    };
+    go("a/s.toml", "base.json");
+    go("b/deep/s.toml", "moved.json");
+    let (code, text_out, err) = run3(d, &["check", "moved.json", "--baseline", "base.json"]);
+    assert_eq!(code, 0, "{text_out}{err}");
+    assert!(text_out.starts_with("identical"), "{text_out}");
+    // One temperature changed: refused, not compared.
+    let mut lines: Vec<String> = csv.lines().map(str::to_string).collect();
+    let last = lines[4].rfind(',').unwrap();
+    lines[4] = format!("{},99.5", &lines[4][..last]);
+    std::fs::write(&moved, lines.join("\n") + "\n").unwrap();
+    go("b/deep/s.toml", "changed.json");
+    let (code, _, err) = run3(d, &["check", "changed.json", "--baseline", "base.json"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("the scenario's data changed"), "{err}");
+}
+
+#[test]
+fn a_twin_result_of_0_2_0_still_reads() {
+    // Written by lossprism 0.2.0 (commit a723367^, built from `git archive`): the cold-store
+    // twin (`twin scenarios/data/cold-store.csv --target temp_c --seed 7 --fidelity 2
+    // --fidelity-replicates 20`) run at 20 replicates. Its twin section has a fidelity record
+    // and no recommended picks, which came later; a CI baseline of it was refused as "not the
+    // picks of its fidelity models".
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let old = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
+        .join("tests/fixtures/twin-result-0.2.0.json");
+    let old = old.to_string_lossy();
+    let (code, out, err) = run3(d, &["check", &old, "--baseline", &old]);
+    assert_eq!(code, 0, "{out}{err}");
+    assert!(out.starts_with("identical"), "{out}");
+    let (code, _, err) = run3(d, &["plot", &old, "--out", "old.svg"]);
+    assert_eq!(code, 0, "{err}");
+}

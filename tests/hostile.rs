@@ -1349,6 +1349,21 @@ fn scenario_cases(t: &mut Table) {
         v,
         "key `model.alpha`: it smooths the leaf class shares, which the 0-1 loss never reads",
     );
+    // The TOML parser's message was empty on these ("error: s.toml:1: ").
+    t.add(
+        g,
+        "CR-only line endings",
+        &[("s.toml", b"# an old editor's file\rname = \"x\"\n")],
+        &["validate", "s.toml"],
+        "s.toml:1: a carriage return without a line feed: the file has CR-only line endings",
+    );
+    t.add(
+        g,
+        "a control character in a comment",
+        &[("s.toml", b"# a bell \x07 here\nname = \"x\"\n")],
+        &["validate", "s.toml"],
+        "s.toml:1: control character U+0007 is not allowed in TOML",
+    );
     t.scenario(
         g,
         "seed beyond a TOML integer",
@@ -3338,6 +3353,34 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
                 *lo = serde_json::json!(lossprism::codec::pack_floats(&vals));
             }),
             "below the jackknife of its own leave-one-block-out values",
+        ),
+        // Sweep 64: values moved together so that every identity holds, away from their own
+        // leave-outs (one row raised by 1e13 hid every regression of a paired check; every
+        // bias² set to the baseline's turned "worse" into "better").
+        (
+            "a row's terms moved together, away from their own leave-outs",
+            edit_json(&docs.result, |v| {
+                let p = &mut v["points"][0];
+                for k in ["bias_sq", "expected_loss", "expected_loss_direct"] {
+                    let x = p[k].as_f64().unwrap();
+                    p[k] = serde_json::json!(x + 1e13);
+                }
+            }),
+            "`bias_sq` is 10000000000",
+        ),
+        // (A shift of a few standard errors at 32 blocks: `check`'s unit tests; this document
+        // has 2 blocks, where a term may also sit 8 times its size from its leave-outs.)
+        (
+            "a row's terms moved by ten times their size, away from their own leave-outs",
+            edit_json(&docs.result, |v| {
+                let p = &mut v["points"][1];
+                let add = 10.0 * p["expected_loss"].as_f64().unwrap().abs() + 1.0;
+                for k in ["bias_sq", "expected_loss", "expected_loss_direct"] {
+                    let x = p[k].as_f64().unwrap();
+                    p[k] = serde_json::json!(x + add);
+                }
+            }),
+            "far from the mean of its",
         ),
         (
             "a standard error that is not the jackknife of its leave-outs",

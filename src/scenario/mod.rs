@@ -25,7 +25,26 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
         let line = e.span().map(|s| line_of(src, s.start));
         let mut message =
             crate::fmt::shorten_quoted_numbers(&e.message().trim().replace('\n', " "));
-        if message.starts_with("number too large to fit in target type") {
+        if message.is_empty() {
+            // The parser says nothing on a bare carriage return or a control character (its
+            // message was empty: "error: s.toml:1: ").
+            let at = e
+                .span()
+                .and_then(|s| src.get(s.start..))
+                .and_then(|t| t.chars().next());
+            message = match at {
+                Some('\r') => "a carriage return without a line feed: the file has CR-only line \
+                               endings; save it with LF (or CRLF) line endings"
+                    .into(),
+                Some(c) if c.is_control() => format!(
+                    "control character U+{:04X} is not allowed in TOML, even in a comment or a \
+                     string; remove it",
+                    c as u32
+                ),
+                Some(c) => format!("the TOML parser refused the character `{c}` here"),
+                None => "the TOML parser refused the file here".into(),
+            };
+        } else if message.starts_with("number too large to fit in target type") {
             // The span holds only the first digit; say what the limit is instead.
             message = "number too large: whole numbers in a scenario go up to \
                        9223372036854775807 (2^63 − 1)"

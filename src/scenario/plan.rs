@@ -1097,7 +1097,8 @@ fn build_models(
                 let cx_build = BuildContext {
                     base,
                     task,
-                    labels_only: loss.name() == "zero_one",
+                    // A loss that reads no class probability scores labels only.
+                    labels_only: !loss.needs_probs(),
                 };
                 let built = build(&mut opts, &cx_build);
                 let fam = built.map_err(|e| cx.err_line(line(&e.key), &key(&e.key), e.message))?;

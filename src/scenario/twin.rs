@@ -917,7 +917,32 @@ pub fn from_spec(
     // by the reference while the noise stayed as measured on the old one, with exit 0.
     if let Some(want) = &d.table_digest {
         let have = t.digest();
+        // Labels given in another order than the twin wrote them number the classes
+        // differently, which changes the digest of the same file: say so, not "another table".
+        let reordered = || {
+            let TargetKind::Classes(Some(given)) = &opts.target_kind else {
+                return None;
+            };
+            let plain = TableOptions {
+                target_kind: TargetKind::Classes(None),
+                ..opts.clone()
+            };
+            let t0 = dataset::load_csv(&table_path, &plain).ok()?;
+            let own = t0.labels.clone();
+            (t0.digest() == *want.get_ref() && own != *given).then_some(own)
+        };
         if want.get_ref() != &have {
+            if let Some(own) = reordered() {
+                return Err(err(
+                    d.classes.as_ref().map_or(want.span(), |c| c.labels.span()),
+                    "data.classes.labels",
+                    format!(
+                        "the labels are in another order than the twin wrote them ({}): the \
+                         reference's class probabilities are in that order; restore it",
+                        crate::fmt::clip(&format!("{own:?}"), 120)
+                    ),
+                ));
+            }
             return Err(err(
                 want.span(),
                 "data.table_digest",
