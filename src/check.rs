@@ -932,7 +932,12 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                          values in `uncertainty` ({}); {EDITED}",
                         at(i),
                         crate::fmt::clip(k, 40),
-                        crate::fmt::fmt_exact(*se),
+                        // A standard error that is not a number was written as `null`.
+                        if se.is_nan() {
+                            "null".to_string()
+                        } else {
+                            crate::fmt::fmt_exact(*se)
+                        },
                         if low { "below" } else { "not" },
                         crate::fmt::fmt_exact(jack)
                     ));
@@ -3446,7 +3451,7 @@ mod tests {
             .for_each(|s| s.1 = f64::NAN);
         hidden.best = crate::report::best_of(&hidden.points);
         let e = validate(&hidden).unwrap_err();
-        assert!(e.contains("is NaN, not the jackknife"), "{e}");
+        assert!(e.contains("is null, not the jackknife"), "{e}");
     }
 
     #[test]

@@ -2215,13 +2215,13 @@ fn csv_cases(t: &mut Table) {
         "target as feature",
         good.as_bytes(),
         "features = [\"y\"]",
-        "cannot also be a feature",
+        "key `data.features`: `y` is the target; it cannot also be a feature",
     );
     t.table(
         "feature twice",
         good.as_bytes(),
         "features = [\"a\", \"a\"]",
-        "listed twice",
+        "key `data.features`: `a` is listed twice",
     );
     t.table(
         "text cell in a numeric column",

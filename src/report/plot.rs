@@ -436,9 +436,21 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         return Err(Error::Usage("the result has no grid values to plot".into()));
     }
     if view == View::All {
-        return Err(Error::Usage(
-            "a curve picture shows one decomposition: choose --decomposition domingos, kohavi-wolpert or james (`all` is for tables)".into(),
-        ));
+        let zero_one = doc
+            .term_docs()
+            .iter()
+            .any(|t| t.group == "kohavi_wolpert" || t.group == "james");
+        return Err(Error::Usage(if zero_one {
+            "a curve picture shows one decomposition: choose --decomposition domingos, \
+             kohavi-wolpert or james (`all` is for tables)"
+                .into()
+        } else {
+            format!(
+                "`--decomposition all` is for 0-1 loss tables; a {} loss result has one \
+                 decomposition: leave --decomposition out",
+                doc.loss
+            )
+        }));
     }
     // A loss without the 0-1 decompositions (squared, log, Brier, Poisson) has only its own
     // terms: the Kohavi-Wolpert and James views show those, as the terminal table does (they

@@ -24,6 +24,36 @@ fn spanned_err<T>(
     }
 }
 
+/// Refuses a `features` list that names the target or a column twice, at the scenario's line
+/// and key (the table reader's refusal named the CSV file, whose header is not what is wrong).
+pub fn check_features(
+    d: &crate::scenario::spec::DataSpec,
+    target: &str,
+    src: &str,
+    file: &str,
+) -> Result<(), ScenarioError> {
+    let Some(fs) = &d.features else {
+        return Ok(());
+    };
+    let mut seen = std::collections::HashSet::new();
+    let why = fs.get_ref().iter().find_map(|f| {
+        if f == target {
+            Some(format!(
+                "`{}` is the target; it cannot also be a feature",
+                crate::fmt::clip(f, 60)
+            ))
+        } else if !seen.insert(f.as_str()) {
+            Some(format!("`{}` is listed twice", crate::fmt::clip(f, 60)))
+        } else {
+            None
+        }
+    });
+    match why {
+        Some(m) => Err(spanned_err(src, file, Some(fs), "data.features", m)),
+        None => Ok(()),
+    }
+}
+
 /// Refuses the keys of the file sources in a synthetic source (they would be ignored silently):
 /// the table keys, and a twin's `jitter` and `[data.fit_report]`.
 pub fn reject_table_keys(
@@ -294,6 +324,7 @@ pub fn from_spec(
             "noise estimators apply to a numeric target; with classes the bias is measured against the observed labels (noise folded in)".into(),
         ));
     }
+    check_features(d, target.get_ref(), src, file)?;
     let req = TableRequest {
         path: base.join(path.get_ref()),
         options: TableOptions {

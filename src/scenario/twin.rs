@@ -893,6 +893,7 @@ pub fn from_spec(
         (None, true) => TargetKind::Classes(None),
         (None, false) => TargetKind::Numeric,
     };
+    crate::scenario::table::check_features(d, target.get_ref(), src, file)?;
     let table_path = base.join(path.get_ref());
     let opts = TableOptions {
         target: target.get_ref().clone(),
