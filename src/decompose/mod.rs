@@ -611,33 +611,83 @@ pub fn trace_cov_squared(means: &[&[f64]], sizes: &[f64], centre: &[f64]) -> Opt
     if b < 3 || sizes.len() != b {
         return None;
     }
-    let x: Vec<Vec<f64>> = means
-        .iter()
-        .zip(sizes)
-        .map(|(m, &n)| {
-            let w = n.sqrt();
-            m.iter().zip(centre).map(|(a, c)| w * (a - c)).collect()
-        })
-        .collect();
-    let mut frob = 0.0;
-    let mut trace = 0.0;
-    for i in 0..b {
-        for j in i..b {
-            let g: f64 = x[i].iter().zip(&x[j]).map(|(a, c)| a * c).sum();
-            if i == j {
-                trace += g;
-                frob += g * g;
-            } else {
-                frob += 2.0 * g * g;
+    let mut gram = Gram::new(sizes);
+    gram.add(means, centre);
+    gram.trace_cov_squared()
+}
+
+/// The blocks' Gram matrix of [`trace_cov_squared`] (`G_ij = Σ_e x_ie x_je`, upper triangle),
+/// accumulated over the evaluation points a slice at a time: the per-block vectors of 250
+/// classes × 2000 points were read whole for every block, and twice (256 MB for 32 blocks, the
+/// largest allocation of such a run and not in its memory estimate). Every `G_ij` adds its
+/// products in point order, as a sum over the whole vectors does: the same bits.
+struct Gram {
+    weights: Vec<f64>,
+    g: Vec<f64>,
+    x: Vec<f64>,
+}
+
+impl Gram {
+    fn new(sizes: &[f64]) -> Gram {
+        let b = sizes.len();
+        Gram {
+            weights: sizes.iter().map(|n| n.sqrt()).collect(),
+            g: vec![0.0; b * b],
+            x: Vec::new(),
+        }
+    }
+
+    /// Adds the points of one slice: block `i`'s means `means[i]` and the overall `centre`.
+    fn add(&mut self, means: &[&[f64]], centre: &[f64]) {
+        let b = self.weights.len();
+        let len = centre.len();
+        // Point-major: x[e·b + i] = √n_i (m_ie − c_e).
+        self.x.clear();
+        self.x.resize(len * b, 0.0);
+        for (i, (m, w)) in means.iter().zip(&self.weights).enumerate() {
+            for (e, (a, c)) in m.iter().zip(centre).enumerate() {
+                self.x[e * b + i] = w * (a - c);
+            }
+        }
+        for xe in self.x.chunks_exact(b) {
+            for i in 0..b {
+                let row = &mut self.g[i * b..(i + 1) * b];
+                for j in i..b {
+                    row[j] += xe[i] * xe[j];
+                }
             }
         }
     }
-    let n = (b - 1) as f64;
-    let ts2 = frob / (n * n);
-    let ts = trace / n;
-    let est = n * n / ((n - 1.0) * (n + 2.0)) * (ts2 - ts * ts / n);
-    est.is_finite().then_some(est.max(0.0))
+
+    /// `tr C²` from the accumulated matrix (see [`trace_cov_squared`]).
+    fn trace_cov_squared(&self) -> Option<f64> {
+        let b = self.weights.len();
+        if b < 3 {
+            return None;
+        }
+        let mut frob = 0.0;
+        let mut trace = 0.0;
+        for i in 0..b {
+            for j in i..b {
+                let g = self.g[i * b + j];
+                if i == j {
+                    trace += g;
+                    frob += g * g;
+                } else {
+                    frob += 2.0 * g * g;
+                }
+            }
+        }
+        let n = (b - 1) as f64;
+        let ts2 = frob / (n * n);
+        let ts = trace / n;
+        let est = n * n / ((n - 1.0) * (n + 2.0)) * (ts2 - ts * ts / n);
+        est.is_finite().then_some(est.max(0.0))
+    }
 }
+
+/// Points per slice of [`Gram::add`] in [`add_second_order`].
+const GRAM_SLICE: usize = 4096;
 
 /// The variance of the second-order part of a term `scale · mean_e Σ_c d²_{e,c}` (minus its
 /// finite-R correction), where `d` are the errors of the mean over all replicates of the
@@ -652,7 +702,16 @@ pub fn second_order_var(
     replicates: f64,
     scale: f64,
 ) -> Option<f64> {
-    let tr = trace_cov_squared(means, sizes, centre)?;
+    second_order_of(
+        trace_cov_squared(means, sizes, centre)?,
+        points,
+        replicates,
+        scale,
+    )
+}
+
+/// `2 scale² tr(C²) / (points² R²)` of [`second_order_var`], `None` when not finite.
+fn second_order_of(tr: f64, points: usize, replicates: f64, scale: f64) -> Option<f64> {
     let e = points as f64;
     let v = 2.0 * scale * scale * tr / (e * e * replicates * replicates);
     v.is_finite().then_some(v)
@@ -707,21 +766,21 @@ pub fn add_second_order(
     };
     let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
     for (g, row) in se.iter_mut().enumerate() {
-        let cells = g * width..(g + 1) * width;
-        let per_block: Vec<std::borrow::Cow<'_, [f64]>> = blocks
-            .iter()
-            .map(|a| means.read(a, cells.clone()))
-            .collect();
-        let slices: Vec<&[f64]> = per_block.iter().map(|c| c.as_ref()).collect();
-        let centre = means.read(total, cells);
-        let var = second_order_var(
-            &slices,
-            &sizes,
-            &centre,
-            sh.points,
-            total.replicates as f64,
-            scale,
-        );
+        let mut gram = Gram::new(&sizes);
+        let mut at = g * width;
+        while at < (g + 1) * width {
+            let cells = at..(at + GRAM_SLICE).min((g + 1) * width);
+            let per_block: Vec<std::borrow::Cow<'_, [f64]>> = blocks
+                .iter()
+                .map(|a| means.read(a, cells.clone()))
+                .collect();
+            let slices: Vec<&[f64]> = per_block.iter().map(|c| c.as_ref()).collect();
+            gram.add(&slices, &means.read(total, cells.clone()));
+            at = cells.end;
+        }
+        let var = gram
+            .trace_cov_squared()
+            .and_then(|tr| second_order_of(tr, sh.points, total.replicates as f64, scale));
         if let (Some(v), true) = (var, row[t].is_finite()) {
             row[t] = (row[t] * row[t] + v).sqrt();
         }
@@ -1324,6 +1383,59 @@ impl Summary {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn the_gram_matrix_over_slices_is_the_whole_ones_to_the_bit() {
+        // 5 blocks of unequal sizes, 10 000 points: the Gram matrix added 4096 points at a time
+        // (as `add_second_order` reads them) gives the bits of one pass over whole vectors, and
+        // both equal the direct formula from the sample covariance (Srivastava 2005's
+        // estimator, written out here).
+        let (b, len) = (5, 10_000);
+        let sizes = [7.0, 7.0, 6.0, 6.0, 6.0];
+        let means: Vec<Vec<f64>> = (0..b)
+            .map(|i| {
+                (0..len)
+                    .map(|e| ((e * 31 + i * 17) % 97) as f64 / 97.0 + 0.01 * i as f64)
+                    .collect()
+            })
+            .collect();
+        let centre: Vec<f64> = (0..len)
+            .map(|e| (0..b).map(|i| sizes[i] * means[i][e]).sum::<f64>() / 32.0)
+            .collect();
+        let whole: Vec<&[f64]> = means.iter().map(|m| m.as_slice()).collect();
+        let once = trace_cov_squared(&whole, &sizes, &centre).unwrap();
+        let mut gram = Gram::new(&sizes);
+        let mut at = 0;
+        while at < len {
+            let end = (at + GRAM_SLICE).min(len);
+            let part: Vec<&[f64]> = means.iter().map(|m| &m[at..end]).collect();
+            gram.add(&part, &centre[at..end]);
+            at = end;
+        }
+        assert_eq!(gram.trace_cov_squared().unwrap().to_bits(), once.to_bits());
+        // Direct: S = Σ_b x_b x_bᵀ / N over points, tr S² and tr S summed over point pairs.
+        let n = (b - 1) as f64;
+        let x: Vec<Vec<f64>> = (0..b)
+            .map(|i| {
+                (0..len)
+                    .map(|e| sizes[i].sqrt() * (means[i][e] - centre[e]))
+                    .collect()
+            })
+            .collect();
+        let g = |i: usize, j: usize| -> f64 { (0..len).map(|e| x[i][e] * x[j][e]).sum() };
+        let (mut ts2, mut ts) = (0.0, 0.0);
+        for i in 0..b {
+            ts += g(i, i) / n;
+            for j in 0..b {
+                ts2 += g(i, j) * g(i, j) / (n * n);
+            }
+        }
+        let direct = n * n / ((n - 1.0) * (n + 2.0)) * (ts2 - ts * ts / n);
+        assert!(
+            (direct - once).abs() <= 1e-9 * direct.abs(),
+            "{direct} vs {once}"
+        );
+    }
 
     #[test]
     fn the_percentile_interval_takes_the_ranks_of_its_rule() {
