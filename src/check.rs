@@ -912,7 +912,8 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                     continue;
                 };
                 let jack = crate::decompose::jackknife_se(&v);
-                if let Some(why) = off_its_leave_outs(p.get(k), &v, jack, largest) {
+                let mean_term = doc.table.is_none() && MEAN_TERMS.contains(&k.as_str());
+                if let Some(why) = off_its_leave_outs(p.get(k), &v, largest).filter(|_| mean_term) {
                     return Err(format!(
                         "{}: `{}` is {}, {why}; {EDITED}",
                         at(i),
@@ -1942,7 +1943,16 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
     // refused ("scenario.inputs[0] differs: column of /ci/data/t.csv ... column of data/t.csv").
     for (e, d) in [(&mut ea, new), (&mut eb, base)] {
         if let Some(t) = d.table.as_ref().filter(|t| !t.path.is_empty()) {
-            unname_table(e, &t.path);
+            if let Some(inputs) = e.get_mut("inputs").and_then(|v| v.as_array_mut()) {
+                for i in inputs {
+                    if let Some(d) = i.get_mut("distribution") {
+                        unname_table(d, &t.path);
+                    }
+                }
+            }
+            if let Some(truth) = e.get_mut("truth") {
+                unname_table(truth, &t.path);
+            }
         }
     }
     // A twin's fidelity record and the pick it recommends are what `twin` measured, not what the
@@ -2100,63 +2110,48 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
     None
 }
 
-/// Leave-one-block-out values per block of the estimate: its jackknife bias estimate
-/// `(B − 1)(mean of the leave-outs − estimate)` may be at most this many jackknife standard
-/// errors. Measured on 5,500 genuine documents of every loss, family and source (850,000 rows
-/// and terms, R from 3 to 2,000): at 6 blocks or more the largest ratio was below 10; terms
-/// that are means of replicates have 0 (the estimate is the leave-outs' weighted mean). Edits
-/// that moved a row's values away from its own leave-outs (one bias² set to 1e13, or every
-/// bias² set to the baseline's, 20-30 standard errors from its leave-outs) were accepted
-/// before it.
-pub const LEAVE_OUT_RATIO: f64 = 20.0;
+/// The terms that are means over replicates where the truth is known (synthetic and twin
+/// sources): the expected loss and its direct check, each replicate's loss averaged. Such an
+/// estimate is a weighted mean of its leave-one-block-out values with positive weights
+/// (`Σ_b (N − n_b) θ_(b) = (B − 1) N θ`, `n_b` block b's replicates of `N`), so it lies between
+/// the smallest and the largest of them. Terms that are not means (a variance, a bias², a vote
+/// share's decomposition) and a table's out-of-bag averages (rows counted in some leave-outs
+/// and not others) have no such bound: holding them to their leave-outs by a multiple of the
+/// jackknife standard error refused genuine documents (plug-in bias terms of the Poisson and
+/// log-loss over many points, Kohavi–Wolpert terms whose leave-outs all agree, a table's
+/// log-loss bias).
+pub const MEAN_TERMS: [&str; 2] = ["expected_loss", "expected_loss_direct"];
 
-/// Blocks below which a statistic that is not a mean (a variance, a bias² or a diversity over
-/// few replicates) may sit further from its leave-outs than [`LEAVE_OUT_RATIO`] allows (48
-/// jackknife SEs measured on a Poisson variance at 3 replicates): there a row is also allowed
-/// [`FEW_BLOCKS_SCALE`] times its own magnitude.
-pub const FEW_BLOCKS: usize = 6;
-
-/// See [`FEW_BLOCKS`] (the measured largest: 1.2 times the magnitude, at 10 replicates).
-pub const FEW_BLOCKS_SCALE: f64 = 8.0;
-
-/// Why `value` cannot be the estimate whose leave-one-block-out values are `leave_out` (their
-/// jackknife standard error `jack`; `largest` the document's largest value, the scale of its
-/// rounding), or `None` when it can (see [`LEAVE_OUT_RATIO`]).
-fn off_its_leave_outs(value: f64, leave_out: &[f64], jack: f64, largest: f64) -> Option<String> {
+/// Why `value`, a term of [`MEAN_TERMS`], cannot be the estimate whose leave-one-block-out
+/// values are `leave_out` (`largest`: the document's largest value, the scale of its
+/// rounding), or `None` when it can: it must lie within their range, to rounding. A hand edit
+/// that moved a row's terms together (one row raised by 1e13, or every row's bias² and expected
+/// loss set to the baseline's) kept every identity and hid regressions from a paired check.
+fn off_its_leave_outs(value: f64, leave_out: &[f64], largest: f64) -> Option<String> {
     let b = leave_out.len();
     if b < 2 || !value.is_finite() || leave_out.iter().any(|x| !x.is_finite()) {
         return None;
     }
-    let mean = leave_out.iter().sum::<f64>() / b as f64;
-    // The leave-outs' magnitude (not the value's: an edit must not widen its own allowance).
-    let scale = leave_out.iter().fold(0.0, |a: f64, x| a.max(x.abs()));
-    let shift = (b as f64 - 1.0) * (mean - value).abs();
-    // Rounding: relative to the values, to the document's scale, and absolute (exact Poisson
-    // fits write 1.6e-16 beside leave-outs of 0: the rounding of responses near 1).
-    let mut allowed = LEAVE_OUT_RATIO * jack.max(0.0) + 1e-9 * scale + 1e-12 * largest + 1e-14;
-    if b < FEW_BLOCKS {
-        allowed += FEW_BLOCKS_SCALE * scale;
-    }
-    (shift > allowed).then(|| {
+    let lo = leave_out.iter().copied().fold(f64::INFINITY, f64::min);
+    let hi = leave_out.iter().copied().fold(f64::NEG_INFINITY, f64::max);
+    let tol = 1e-9 * lo.abs().max(hi.abs()) + 1e-12 * largest + 1e-14;
+    (value < lo - tol || value > hi + tol).then(|| {
         format!(
-            "far from the mean of its {b} leave-one-block-out values in `uncertainty`, {} (a \
-             run's estimate differs from that mean by at most {}/{} of their jackknife \
-             standard error, here {})",
-            crate::fmt::fmt_exact(mean),
-            LEAVE_OUT_RATIO,
-            b - 1,
-            crate::fmt::fmt_exact(jack)
+            "outside the range of its {b} leave-one-block-out values in `uncertainty`, [{}, {}] \
+             (a mean over replicates is a weighted mean of them)",
+            crate::fmt::fmt_exact(lo),
+            crate::fmt::fmt_exact(hi)
         )
     })
 }
 
-/// Every string in `v` with the table's recorded `path` replaced by a placeholder.
+/// A table echo's text (`column of <path>`, `unknown: observed `y` in <path>`) with the table's
+/// recorded `path` at its end replaced by a placeholder.
 fn unname_table(v: &mut serde_json::Value, path: &str) {
-    match v {
-        serde_json::Value::String(s) if s.contains(path) => *s = s.replace(path, "<the table>"),
-        serde_json::Value::Array(a) => a.iter_mut().for_each(|e| unname_table(e, path)),
-        serde_json::Value::Object(o) => o.values_mut().for_each(|e| unname_table(e, path)),
-        _ => {}
+    if let serde_json::Value::String(s) = v {
+        if let Some(head) = s.strip_suffix(path) {
+            *s = format!("{head}<the table>");
+        }
     }
 }
 
@@ -2770,35 +2765,34 @@ mod tests {
         assert!(e.ends_with(EDITED), "{e}");
     }
 
-    /// Exact fits differ by rounding: beside an underfit row of expected loss 1, 4e-31 against
-    /// 2.2e-30 is no change (it read "+450%, worse"); the same change on a row of 1 would be.
     #[test]
-    fn an_estimate_is_held_to_its_own_leave_outs() {
-        // A mean over 32 equal blocks is the mean of its leave-outs exactly.
-        let v: Vec<f64> = (0..32)
-            .map(|i| 2.0 + 0.01 * ((i * 7 % 32) as f64 - 15.5))
+    fn a_mean_over_replicates_lies_within_its_leave_outs() {
+        // 32 blocks of 7 and 6 replicates: the estimate is the weighted mean of the leave-outs
+        // (weights N − n_b), inside their range; one jackknife SE beyond the largest is not.
+        let sizes: Vec<f64> = (0..32).map(|b| if b < 8 { 7.0 } else { 6.0 }).collect();
+        let means: Vec<f64> = (0..32)
+            .map(|b| 2.0 + 0.01 * ((b * 7 % 32) as f64 - 15.5))
             .collect();
-        let mean = v.iter().sum::<f64>() / 32.0;
+        let n: f64 = sizes.iter().sum();
+        let total = sizes.iter().zip(&means).map(|(s, m)| s * m).sum::<f64>() / n;
+        let v: Vec<f64> = sizes
+            .iter()
+            .zip(&means)
+            .map(|(s, m)| (n * total - s * m) / (n - s))
+            .collect();
+        assert!(off_its_leave_outs(total, &v, 2.0).is_none());
+        let hi = v.iter().copied().fold(f64::NEG_INFINITY, f64::max);
         let jack = crate::decompose::jackknife_se(&v);
-        assert!(off_its_leave_outs(mean, &v, jack, 2.0).is_none());
-        // A nonlinear term's jackknife bias: within LEAVE_OUT_RATIO jackknife SEs over B − 1.
-        let inside = mean + 0.9 * LEAVE_OUT_RATIO * jack / 31.0;
-        assert!(off_its_leave_outs(inside, &v, jack, 2.0).is_none());
-        // One jackknife SE away (an edit that hides a regression of one SE) is refused, and
-        // so is an edit far away; the message names the leave-outs' mean.
-        let e = off_its_leave_outs(mean + jack, &v, jack, 2.0).unwrap();
-        assert!(e.contains(&crate::fmt::fmt_exact(mean)), "{e}");
-        assert!(off_its_leave_outs(1e13, &v, jack, 2.0).is_some());
+        let e = off_its_leave_outs(hi + jack, &v, 2.0).unwrap();
+        assert!(e.contains("outside the range"), "{e}");
+        assert!(off_its_leave_outs(1e13, &v, 2.0).is_some());
         // Rounding beside the document's largest value is not an edit.
         let flat = vec![1e-17; 32];
-        assert!(off_its_leave_outs(3e-17, &flat, 0.0, 1.0).is_none());
-        // Few blocks: a term may also sit FEW_BLOCKS_SCALE times its size from them.
-        let few = [0.30, 0.34, 0.32];
-        let j3 = crate::decompose::jackknife_se(&few);
-        assert!(off_its_leave_outs(0.36, &few, j3, 1.0).is_none());
-        assert!(off_its_leave_outs(40.0, &few, j3, 1.0).is_some());
+        assert!(off_its_leave_outs(3e-17, &flat, 1.0).is_none());
     }
 
+    /// Exact fits differ by rounding: beside an underfit row of expected loss 1, 4e-31 against
+    /// 2.2e-30 is no change (it read "+450%, worse"); the same change on a row of 1 would be.
     #[test]
     fn squared_rounding_is_no_change_beside_the_curves_scale() {
         let make = |tiny: f64, seed: u64| {

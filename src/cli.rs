@@ -93,7 +93,9 @@ pub struct TwinArgs {
     pub features: Option<Vec<String>>,
     /// The target holds class labels (classification twin: k-NN class shares, a logistic
     /// polynomial or a probability tree, the lowest cross-validated log-loss kept, sharpened by a
-    /// temperature calibrated so that a k-NN classifier errs on the twin as on the table).
+    /// temperature calibrated so that a k-NN classifier errs on the twin as on the table; the
+    /// class shares alone, the same at every input, when no candidate beats them by one standard
+    /// error of its own log-loss).
     #[arg(long)]
     pub classes: bool,
     /// A row with an empty, missing or non-numeric cell in a used column: `error` (refuse the
@@ -147,8 +149,9 @@ pub struct TwinArgs {
     pub eval_size: usize,
     /// Reference candidate: `best` (highest cross-validated R²; the polynomial only when it
     /// removes at least a tenth of the best other candidate's held-out error), `knn`, `forest`, `loclin`,
-    /// `poly` or `blend`. With --classes: `best` (lowest cross-validated log-loss), `knn` (k-NN
-    /// shares), `logit` (logistic polynomial) or `tree` (probability tree).
+    /// `poly` or `blend`. With --classes: `best` (lowest cross-validated log-loss; the class
+    /// shares alone when no candidate beats them by one standard error), `knn` (k-NN shares),
+    /// `logit` (logistic polynomial) or `tree` (probability tree).
     #[arg(long, default_value = "best", value_name = "NAME")]
     pub reference: String,
     /// Noise estimator: `gsjs` (one input), `plane`, `gamma` or `nn` (default: gsjs with one

@@ -1355,7 +1355,26 @@ fn scenario_cases(t: &mut Table) {
         "CR-only line endings",
         &[("s.toml", b"# an old editor's file\rname = \"x\"\n")],
         &["validate", "s.toml"],
-        "s.toml:1: a carriage return without a line feed: the file has CR-only line endings",
+        "s.toml:1: a carriage return without a line feed (CR-only line endings",
+    );
+    // Sweep 65: a stray CR in one line, a file ending in a bare CR, a form feed in a comment
+    // got the parser's "expected newline, `#`".
+    t.add(
+        g,
+        "a stray carriage return in one line",
+        &[(
+            "s.toml",
+            b"name = \"x\"\nseed = 3\r# a note\nreplicates = 4\n",
+        )],
+        &["validate", "s.toml"],
+        "s.toml:2: key `seed`: a carriage return without a line feed",
+    );
+    t.add(
+        g,
+        "a form feed in a comment",
+        &[("s.toml", b"name = \"x\"\nseed = 3 \x0c# a note\n")],
+        &["validate", "s.toml"],
+        "control character U+000C is not allowed in TOML",
     );
     t.add(
         g,
@@ -3366,10 +3385,10 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
                     p[k] = serde_json::json!(x + 1e13);
                 }
             }),
-            "`bias_sq` is 10000000000",
+            "`expected_loss` is 10000000000",
         ),
-        // (A shift of a few standard errors at 32 blocks: `check`'s unit tests; this document
-        // has 2 blocks, where a term may also sit 8 times its size from its leave-outs.)
+        // (A shift of one standard error beyond the leave-outs at 32 blocks: `check`'s unit
+        // tests.)
         (
             "a row's terms moved by ten times their size, away from their own leave-outs",
             edit_json(&docs.result, |v| {
@@ -3380,7 +3399,7 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
                     p[k] = serde_json::json!(x + add);
                 }
             }),
-            "far from the mean of its",
+            "outside the range of its 2 leave-one-block-out values",
         ),
         (
             "a standard error that is not the jackknife of its leave-outs",

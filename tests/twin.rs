@@ -2119,3 +2119,42 @@ fn labels_unrelated_to_the_inputs_give_a_twin_of_the_class_shares_alone() {
         );
     }
 }
+
+#[test]
+fn reordered_twin_labels_are_named_as_such() {
+    // The twin's labels in another order number the classes differently (its reference's
+    // probabilities are in the written order): refused as a reordering, not as another table;
+    // a label added is not a reordering.
+    let dir = tempfile::tempdir().unwrap();
+    write_grades(dir.path(), 5, 120, |a, rng| rng.gen::<f64>() < a);
+    let o = opts(dir.path(), true, "grade");
+    twin::command(&o).expect("twin");
+    let text = fs::read_to_string(&o.out).unwrap();
+    let line = text
+        .lines()
+        .find(|l| l.starts_with("labels = "))
+        .unwrap()
+        .to_string();
+    let labels: Vec<String> = line
+        .trim_start_matches("labels = [")
+        .trim_end_matches(']')
+        .split(", ")
+        .map(str::to_string)
+        .collect();
+    assert_eq!(labels.len(), 2, "{line}");
+    let swapped = format!("labels = [{}, {}]", labels[1], labels[0]);
+    fs::write(&o.out, text.replace(&line, &swapped)).unwrap();
+    let e = scenario::load(&o.out, &PlanOptions::default())
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("the labels are in another order than the twin wrote them"),
+        "{e}"
+    );
+    let added = format!("labels = [{}, {}, \"extra\"]", labels[0], labels[1]);
+    fs::write(&o.out, text.replace(&line, &added)).unwrap();
+    let e = scenario::load(&o.out, &PlanOptions::default())
+        .unwrap_err()
+        .to_string();
+    assert!(!e.contains("another order"), "{e}");
+}

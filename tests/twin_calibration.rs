@@ -669,26 +669,7 @@ fn study_table(
     // twin and the truth, from which any other noise value's curve error is computed.
     let sigma2_alt = if std::env::var("LOSSPRISM_CALIB_COMBO").is_ok() {
         let yv = y.to_vec();
-        let fit = |m| {
-            dgp_twin::fit_regression_shaped(
-                x.view(),
-                &yv,
-                seed,
-                Rule::Best,
-                Some(m),
-                dgp_twin::Twicing::Auto,
-                dgp_twin::NoiseFit {
-                    resample: false,
-                    all_rows: false,
-                },
-                dgp_twin::SHARPEN,
-                "t",
-            )
-            .unwrap()
-            .noise
-            .unwrap()
-            .value
-        };
+        let fit = |m| corrected_noise(&x, &yv, seed, m).value;
         let (g, p) = (fit(Method::Gamma), fit(Method::Plane));
         println!(
             "    combo: twin {sigma2_new:.4} gamma {g:.4} plane {p:.4} drawn {sigma2_drawn:.4}"
@@ -2177,6 +2158,33 @@ fn spread_test_study() {
     }
 }
 
+/// The twin's corrected noise estimate of `method` on (x, y) (Gaussian bootstrap, every
+/// default otherwise).
+fn corrected_noise(
+    x: &Array2<f64>,
+    y: &[f64],
+    seed: u64,
+    method: Method,
+) -> dgp_twin::NoiseCorrection {
+    dgp_twin::fit_regression_shaped(
+        x.view(),
+        y,
+        seed,
+        Rule::Best,
+        Some(method),
+        dgp_twin::Twicing::Auto,
+        dgp_twin::NoiseFit {
+            resample: false,
+            all_rows: false,
+        },
+        dgp_twin::SHARPEN,
+        "t",
+    )
+    .expect("fits")
+    .noise
+    .expect("a noise estimate")
+}
+
 /// The corrected Gamma test and plane on the noise study's tables (2 and 3 inputs), each alone,
 /// their mean and their inverse-variance mean: bias, spread, root-mean-square error and the
 /// correlation of their errors (docs/twin-calibration.md §0.11, measured and not built).
@@ -2193,25 +2201,7 @@ fn noise_pair_study() {
         let (mut g, mut p, mut gs, mut ps) = (vec![], vec![], vec![], vec![]);
         for t in 0..tables {
             let (x, _y, yv, _fit) = noise_study_table(*proc, 300, seed, t);
-            let fit = |m| {
-                dgp_twin::fit_regression_shaped(
-                    x.view(),
-                    &yv,
-                    seed + t as u64,
-                    Rule::Best,
-                    Some(m),
-                    dgp_twin::Twicing::Auto,
-                    dgp_twin::NoiseFit {
-                        resample: false,
-                        all_rows: false,
-                    },
-                    dgp_twin::SHARPEN,
-                    "t",
-                )
-                .unwrap()
-                .noise
-                .unwrap()
-            };
+            let fit = |m| corrected_noise(&x, &yv, seed + t as u64, m);
             let a = fit(Method::Gamma);
             let b = fit(Method::Plane);
             g.push(a.value);

@@ -446,8 +446,9 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
                 .into()
         } else {
             format!(
-                "`--decomposition all` is for 0-1 loss tables; a {} loss result has one \
-                 decomposition: leave --decomposition out",
+                "`--decomposition all` is for the 0-1 loss's terminal table (`run \
+                 --decomposition all`); a {} loss result has one decomposition: leave \
+                 --decomposition out",
                 doc.loss
             )
         }));

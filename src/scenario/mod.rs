@@ -25,25 +25,12 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
         let line = e.span().map(|s| line_of(src, s.start));
         let mut message =
             crate::fmt::shorten_quoted_numbers(&e.message().trim().replace('\n', " "));
-        if message.is_empty() {
-            // The parser says nothing on a bare carriage return or a control character (its
-            // message was empty: "error: s.toml:1: ").
-            let at = e
-                .span()
-                .and_then(|s| src.get(s.start..))
-                .and_then(|t| t.chars().next());
-            message = match at {
-                Some('\r') => "a carriage return without a line feed: the file has CR-only line \
-                               endings; save it with LF (or CRLF) line endings"
-                    .into(),
-                Some(c) if c.is_control() => format!(
-                    "control character U+{:04X} is not allowed in TOML, even in a comment or a \
-                     string; remove it",
-                    c as u32
-                ),
-                Some(c) => format!("the TOML parser refused the character `{c}` here"),
-                None => "the TOML parser refused the file here".into(),
-            };
+        // The parser says nothing, or "expected newline", where a line holds a bare carriage
+        // return or a control character (its message was empty: "error: s.toml:1: ").
+        if let Some(why) = e.span().and_then(|sp| odd_character(src, sp.start)) {
+            message = why;
+        } else if message.is_empty() {
+            message = "the TOML parser refused the file here".into();
         } else if message.starts_with("number too large to fit in target type") {
             // The span holds only the first digit; say what the limit is instead.
             message = "number too large: whole numbers in a scenario go up to \
@@ -64,6 +51,38 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
             message,
         }
     })
+}
+
+/// What is wrong with the line holding byte `offset` when it holds a carriage return that
+/// does not end a CRLF line ending, or a control character other than a tab: TOML allows
+/// neither, and the parser's own message does not say so.
+fn odd_character(src: &str, offset: usize) -> Option<String> {
+    let offset = offset.min(src.len());
+    let start = src[..offset].rfind('\n').map_or(0, |i| i + 1);
+    let end = src[offset..].find('\n').map_or(src.len(), |i| offset + i);
+    let line = &src[start..end];
+    // A CRLF line ends in one CR before its LF; the last line has no LF to pair with.
+    let body = if end < src.len() {
+        line.strip_suffix('\r').unwrap_or(line)
+    } else {
+        line
+    };
+    if body.contains('\r') {
+        return Some(
+            "a carriage return without a line feed (CR-only line endings, or a stray CR); save \
+             the file with LF (or CRLF) line endings"
+                .into(),
+        );
+    }
+    body.chars()
+        .find(|c| c.is_control() && *c != '\t')
+        .map(|c| {
+            format!(
+                "control character U+{:04X} is not allowed in TOML, even in a comment or a \
+                 string; remove it",
+                c as u32
+            )
+        })
 }
 
 /// The dotted key path of the `key = value` line holding byte `offset` (`model.depth`), with the

@@ -930,7 +930,12 @@ pub fn from_spec(
             };
             let t0 = dataset::load_csv(&table_path, &plain).ok()?;
             let own = t0.labels.clone();
-            (t0.digest() == *want.get_ref() && own != *given).then_some(own)
+            // A permutation of the table's own labels only (a label added or renamed is
+            // another table's, or another refusal's).
+            let (mut a, mut b) = (own.clone(), given.clone());
+            a.sort();
+            b.sort();
+            (t0.digest() == *want.get_ref() && own != *given && a == b).then_some(own)
         };
         if want.get_ref() != &have {
             if let Some(own) = reordered() {

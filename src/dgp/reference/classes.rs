@@ -370,7 +370,9 @@ impl ProbTree {
     }
 }
 
-fn leaf_shares(counts: &[u32], classes: usize, out: &mut [f64]) {
+/// Add-one shares of class counts, `(count_c + 1)/(m + K)`: a probability tree's leaf and the
+/// class shares alone (the k-NN shares over every row of a fold).
+pub fn leaf_shares(counts: &[u32], classes: usize, out: &mut [f64]) {
     let m: f64 = counts.iter().map(|&c| f64::from(c)).sum();
     for (o, &c) in out.iter_mut().zip(counts) {
         *o = (f64::from(c) + 1.0) / (m + classes as f64);
