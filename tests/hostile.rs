@@ -1369,6 +1369,17 @@ fn scenario_cases(t: &mut Table) {
         &["validate", "s.toml"],
         "s.toml:2: key `seed`: a carriage return without a line feed",
     );
+    // A C1 control (U+0085) is legal in a comment: the line's real error is named.
+    t.add(
+        g,
+        "a C1 control in a comment beside a wrong type",
+        &[(
+            "s.toml",
+            "name = \"x\"\nseed = \"42\"  # note \u{85} here\n".as_bytes(),
+        )],
+        &["validate", "s.toml"],
+        "key `seed`: invalid type: string \"42\", expected u64",
+    );
     t.add(
         g,
         "a form feed in a comment",

@@ -74,8 +74,10 @@ fn odd_character(src: &str, offset: usize) -> Option<String> {
                 .into(),
         );
     }
+    // The C0 controls but the tab, and DEL: TOML allows the C1 controls (U+0080–U+009F) in
+    // comments and strings.
     body.chars()
-        .find(|c| c.is_control() && *c != '\t')
+        .find(|c| matches!(c, '\0'..='\x08' | '\x0a'..='\x1f' | '\x7f'))
         .map(|c| {
             format!(
                 "control character U+{:04X} is not allowed in TOML, even in a comment or a \
