@@ -978,10 +978,10 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 return bad(format!("fidelity.{k}"), why);
             }
             // Results of twins written before the recommended picks were (lossprism 0.2.0)
-            // carry a fidelity record and no `recommended`; they still read.
-            if !tw.recommended.is_empty()
-                && tw.recommended != crate::report::twin::recommended(&record)
-            {
+            // carry a fidelity record and no `recommended`; they still read. From 0.3.0 on a
+            // record always comes with its picks.
+            let old = tw.recommended.is_empty() && written_before(&doc.version, (0, 3, 0));
+            if !old && tw.recommended != crate::report::twin::recommended(&record) {
                 return bad(
                     "recommended".into(),
                     "is not the picks of its fidelity models".into(),

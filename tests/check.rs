@@ -641,4 +641,31 @@ fn a_twin_result_of_0_2_0_still_reads() {
     assert!(out.starts_with("identical"), "{out}");
     let (code, _, err) = run3(d, &["plot", &old, "--out", "old.svg"]);
     assert_eq!(code, 0, "{err}");
+    // A result of this version whose twin section lost its picks is edited, not old.
+    let twin =
+        std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("scenarios/cold-store-twin.toml");
+    let (code, _, err) = run3(
+        d,
+        &[
+            "run",
+            &twin.to_string_lossy(),
+            "--replicates",
+            "12",
+            "--out",
+            "tw.json",
+            "-q",
+        ],
+    );
+    assert_eq!(code, 0, "{err}");
+    let mut v: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(d.join("tw.json")).unwrap()).unwrap();
+    assert!(v["scenario"]["twin"]["recommended"].is_array(), "{v}");
+    v["scenario"]["twin"]
+        .as_object_mut()
+        .unwrap()
+        .remove("recommended");
+    std::fs::write(d.join("tw2.json"), v.to_string()).unwrap();
+    let (code, _, err) = run3(d, &["check", "tw2.json", "--baseline", "tw2.json"]);
+    assert_eq!(code, 2, "{err}");
+    assert!(err.contains("`scenario.twin.recommended`"), "{err}");
 }
