@@ -913,7 +913,10 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 };
                 let jack = crate::decompose::jackknife_se(&v);
                 let mean_term = doc.table.is_none() && MEAN_TERMS.contains(&k.as_str());
-                if let Some(why) = off_its_leave_outs(p.get(k), &v, largest).filter(|_| mean_term) {
+                if let Some(why) = mean_term
+                    .then(|| off_its_leave_outs(p.get(k), &v, largest))
+                    .flatten()
+                {
                     return Err(format!(
                         "{}: `{}` is {}, {why}; {EDITED}",
                         at(i),
@@ -1944,9 +1947,9 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
     for (e, d) in [(&mut ea, new), (&mut eb, base)] {
         if let Some(t) = d.table.as_ref().filter(|t| !t.path.is_empty()) {
             if let Some(inputs) = e.get_mut("inputs").and_then(|v| v.as_array_mut()) {
-                for i in inputs {
-                    if let Some(d) = i.get_mut("distribution") {
-                        unname_table(d, &t.path);
+                for input in inputs {
+                    if let Some(text) = input.get_mut("distribution") {
+                        unname_table(text, &t.path);
                     }
                 }
             }
@@ -2137,7 +2140,7 @@ fn off_its_leave_outs(value: f64, leave_out: &[f64], largest: f64) -> Option<Str
     // Rounding: `run` computes the expected loss from the predictions' mean and spread, whose
     // rounding scales with the responses, not the loss: a truth of 1e10 with noise sd 1e-6 put a
     // genuine value 6e-7 of itself outside (a second reading). A ten-thousandth of the values
-    // is far below any change `check` calls one (its margin is 2%).
+    // is far below any change `check` calls one at its default margin (2%).
     let tol = 1e-4 * lo.abs().max(hi.abs()) + 1e-12 * largest + 1e-14;
     (value < lo - tol || value > hi + tol).then(|| {
         format!(

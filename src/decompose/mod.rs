@@ -691,27 +691,10 @@ const GRAM_SLICE: usize = 4096;
 
 /// The variance of the second-order part of a term `scale · mean_e Σ_c d²_{e,c}` (minus its
 /// finite-R correction), where `d` are the errors of the mean over all replicates of the
-/// per-replicate vectors whose block means `means[b]` hold (`points` evaluation points, `R` =
-/// `replicates` in all): `2 scale² tr(C²) / (points² R²)` for Gaussian errors, with `tr C²` from
-/// [`trace_cov_squared`]. `None` with fewer than 3 blocks.
-pub fn second_order_var(
-    means: &[&[f64]],
-    sizes: &[f64],
-    centre: &[f64],
-    points: usize,
-    replicates: f64,
-    scale: f64,
-) -> Option<f64> {
-    second_order_of(
-        trace_cov_squared(means, sizes, centre)?,
-        points,
-        replicates,
-        scale,
-    )
-}
-
-/// `2 scale² tr(C²) / (points² R²)` of [`second_order_var`], `None` when not finite.
-fn second_order_of(tr: f64, points: usize, replicates: f64, scale: f64) -> Option<f64> {
+/// per-replicate vectors (`points` evaluation points, `R` = `replicates` in all):
+/// `2 scale² tr(C²) / (points² R²)` for Gaussian errors, with `tr C²` from the blocks' means
+/// ([`trace_cov_squared`]); `None` when not finite.
+fn second_order_var(tr: f64, points: usize, replicates: f64, scale: f64) -> Option<f64> {
     let e = points as f64;
     let v = 2.0 * scale * scale * tr / (e * e * replicates * replicates);
     v.is_finite().then_some(v)
@@ -740,7 +723,7 @@ impl BlockMeans {
 }
 
 /// Adds to the standard error of term `key` (of `loss`, at every grid value) the second-order
-/// variance of [`second_order_var`]: the term is `scale` times a mean over the points of
+/// variance of `second_order_var`: the term is `scale` times a mean over the points of
 /// squared errors of per-replicate vectors, `width` values per grid value (the points, or
 /// points × classes), whose block means `means` holds. Only with a known truth and every point
 /// evaluated by every block (synthetic and twin sources); a standard error that is not finite
@@ -780,7 +763,7 @@ pub fn add_second_order(
         }
         let var = gram
             .trace_cov_squared()
-            .and_then(|tr| second_order_of(tr, sh.points, total.replicates as f64, scale));
+            .and_then(|tr| second_order_var(tr, sh.points, total.replicates as f64, scale));
         if let (Some(v), true) = (var, row[t].is_finite()) {
             row[t] = (row[t] * row[t] + v).sqrt();
         }
