@@ -2700,6 +2700,7 @@ mod tests {
             jitter: 0.0,
             jitter_variance: None,
             noise: None,
+            varying_noise: false,
             fidelity: Some(FidelityEcho {
                 tables: 2,
                 replicates: 100,
@@ -3262,6 +3263,7 @@ mod tests {
             jitter: 1.0,
             jitter_variance: jv.map(str::to_string),
             noise: None,
+            varying_noise: false,
             fidelity: None,
             recommended: Vec::new(),
         };

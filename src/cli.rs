@@ -196,7 +196,8 @@ pub struct PlotArgs {
     /// Write the selection histogram here (needs the result's `selection` section).
     #[arg(long, value_name = "FILE.svg")]
     pub selection: Option<PathBuf>,
-    /// Which 0-1 loss decomposition the curve shows (one per picture).
+    /// Which 0-1 loss decomposition the curve shows (one per picture; `all` is for the terminal
+    /// table and refused here).
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
     pub decomposition: DecompositionView,
     /// The y axis of the curve picture.
@@ -239,9 +240,10 @@ pub struct RunArgs {
     /// Worker threads (0 = one per core). Results do not depend on it.
     #[arg(long, allow_negative_numbers = true, default_value_t = 0)]
     pub threads: usize,
-    /// Which 0-1 loss decomposition the table shows (the JSON always holds all three). The
-    /// default table is kept within 100 columns (a note names any term left out); `all` shows
-    /// every term. Refused with --shard and --assess, which show no table.
+    /// Which terms the table shows: for the 0-1 loss, which decomposition (the JSON always
+    /// holds all three); `all` shows every term of any loss. The default table is kept within
+    /// 100 columns (a note names any term left out). Refused with --shard and --assess, which
+    /// show no table.
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos,
           conflicts_with_all = ["shard", "assess"])]
     pub decomposition: DecompositionView,
@@ -349,7 +351,8 @@ pub struct MergeArgs {
     /// Write one CSV row per evaluation point and grid value here.
     #[arg(long, value_name = "FILE.csv")]
     pub points: Option<PathBuf>,
-    /// Which 0-1 loss decomposition the table shows (the JSON always holds all three).
+    /// Which terms the table shows: for the 0-1 loss, which decomposition (the JSON always
+    /// holds all three); `all` shows every term of any loss.
     #[arg(long, value_enum, default_value_t = DecompositionView::Domingos)]
     pub decomposition: DecompositionView,
     /// Do not print the table.
@@ -410,6 +413,7 @@ pub enum DecompositionView {
     KohaviWolpert,
     /// James (2003): systematic and variance effects.
     James,
-    /// All three.
+    /// Every term: all three decompositions of the 0-1 loss, and for any loss the columns a
+    /// 100-column table leaves out (tables only, not pictures).
     All,
 }

@@ -903,9 +903,11 @@ fn html_words_say_what_a_table_and_a_twin_run_did() {
         "bootstrap resample",
         "out-of-bag",
         "240 working rows",
-        "60 more rows are locked away",
+        // The holdout is part of the 300 rows read ("60 more" said otherwise).
+        "300 rows read; 60 of them are locked away as a holdout",
         "bias² (est.)",
-        "include the noise estimate's",
+        "the standard error of bias² (est.) includes it",
+        "Monte Carlo error of resampling this one table",
         // 1 − (1 − 1/240)^240 = 63.29%, the scheme note's figure (63.2%, the limit, was
         // written beside it).
         "(about 63.3% of them distinct)",

@@ -846,9 +846,29 @@ grid = [1, 5, 15]
         assert!(t["expected_loss"] > 0.0 && t["expected_loss"] < 0.5);
     }
     let dir_path: PathBuf = dir.path().to_path_buf();
-    let o = run_in(&dir_path, &["run", "s.toml"]);
+    let o = run_in(&dir_path, &["run", "s.toml", "--out", "r.json"]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
-    assert!(String::from_utf8_lossy(&o.stdout).contains("bias+noise"));
+    let text = String::from_utf8_lossy(&o.stdout);
+    assert!(text.contains("bias+noise"));
+    // The column holds the noise too: the reading claims no bias dominance from it (it called
+    // this table's whole grid bias-dominated), and names the column by its own label.
+    let reading = text
+        .lines()
+        .find(|l| l.starts_with("reading:"))
+        .expect("a reading line");
+    assert!(!reading.contains("bias-dominated side"), "{reading}");
+    assert!(!reading.contains("Bias (Domingos) dominates"), "{reading}");
+    assert!(
+        reading.contains("noise cannot be separated from the bias")
+            || reading.contains("Variance exceeds bias+noise at every"),
+        "{reading}"
+    );
+    // No term depends on an estimated noise here: every row says so.
+    let doc: serde_json::Value =
+        serde_json::from_str(&fs::read_to_string(dir_path.join("r.json")).unwrap()).unwrap();
+    for p in doc["points"].as_array().unwrap() {
+        assert_eq!(p["estimated"], serde_json::Value::Bool(false), "{p}");
+    }
 }
 
 /// The `--points` CSV's `line` column counts file lines with the header as line 1, the same

@@ -2158,3 +2158,50 @@ fn reordered_twin_labels_are_named_as_such() {
         .to_string();
     assert!(!e.contains("another order"), "{e}");
 }
+
+/// A twin run says that its noise was estimated from the table, with its standard error, and
+/// that the terms' ± leave that error out (the legend called it "known exactly from the
+/// scenario" and nothing else was said).
+#[test]
+fn a_twin_run_names_its_estimated_noise_and_what_the_standard_errors_leave_out() {
+    let bin = env!("CARGO_BIN_EXE_lossprism");
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    let o = std::process::Command::new(bin)
+        .current_dir(root)
+        .args([
+            "run",
+            "scenarios/cold-store-twin.toml",
+            "--replicates",
+            "6",
+            "--threads",
+            "1",
+        ])
+        .output()
+        .unwrap();
+    let out = String::from_utf8_lossy(&o.stdout).into_owned();
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let scen = std::fs::read_to_string(root.join("scenarios/cold-store-twin.toml")).unwrap();
+    let value: f64 = scen
+        .split("value = ")
+        .nth(1)
+        .and_then(|s| s.split(',').next())
+        .and_then(|s| s.trim().parse().ok())
+        .expect("the fit report's noise value");
+    let line = out
+        .lines()
+        .find(|l| l.starts_with("twin noise: "))
+        .unwrap_or_else(|| panic!("no twin noise line: {out}"));
+    assert!(
+        line.contains(&format!("σ² = {}", lossprism::fmt::fmt_num(value))),
+        "{line}"
+    );
+    assert!(
+        line.contains("estimated from the table") && line.contains("do not include its error"),
+        "{line}"
+    );
+}

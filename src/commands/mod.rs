@@ -155,7 +155,7 @@ fn emit(
         if !doc.sizes.is_empty() {
             extra.push((
                 "Would more data help?".into(),
-                "At each family's best knob value for each training size: expected loss (solid, ±2 standard errors), bias (dashed) and variance (dotted).".into(),
+                "At each family's best knob value for each training size: expected loss (solid, ±2 standard errors), the bias-type term (dashed; bias² for the squared loss) and variance (dotted).".into(),
                 report::plot::learning_svg(&doc)?,
             ));
             for f in doc.families() {

@@ -2053,10 +2053,11 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
         )));
     }
     let mut out = format!(
-        "{}: {} rows, {} inputs ({})\n",
+        "{}: {} rows, {} input{} ({})\n",
         crate::error::shown(&o.table),
         t.rows(),
         t.x.ncols(),
+        if t.x.ncols() == 1 { "" } else { "s" },
         t.names.join(", ")
     );
     if o.missing == Missing::Drop {

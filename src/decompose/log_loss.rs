@@ -281,9 +281,9 @@ impl Loss for LogLoss {
                 "bias",
                 if observed { "bias+noise" } else { "bias (KL)" },
                 if observed {
-                    "−log q̄(observed label), q̄ the normalized geometric mean of the out-of-bag probabilities (Heskes 1998, noise folded in)"
+                    "−log q̄(observed label), q̄ the normalized geometric mean of the out-of-bag probabilities (Heskes 1998, noise folded in); at finite R biased by order 1/R, opposite to the variance's bias (their sum is unbiased; ± covers the finite-R value)"
                 } else {
-                    "Heskes (1998): KL(p_true ‖ q̄), q̄ the normalized geometric mean of the predicted probabilities"
+                    "Heskes (1998): KL(p_true ‖ q̄), q̄ the normalized geometric mean of the predicted probabilities; at finite R biased by order 1/R, opposite to the variance's bias (their sum is unbiased; ± covers the finite-R value)"
                 },
                 Role::Bias,
                 Main,
@@ -292,7 +292,7 @@ impl Loss for LogLoss {
             info(
                 "variance",
                 "variance",
-                "Heskes (1998): mean over training sets of KL(q̄ ‖ q) = −log Σ_c exp(mean log q_c)",
+                "Heskes (1998): mean over training sets of KL(q̄ ‖ q) = −log Σ_c exp(mean log q_c); at finite R biased by order 1/R, opposite to the bias's bias (their sum is unbiased; ± covers the finite-R value)",
                 Role::Variance,
                 Main,
                 true,

@@ -314,9 +314,9 @@ impl Loss for Poisson {
                 "bias",
                 if observed { "bias+noise" } else { "bias" },
                 if observed {
-                    "D(observed count, μ̃), μ̃ the geometric mean of the out-of-bag predicted means (noise folded in)"
+                    "D(observed count, μ̃), μ̃ the geometric mean of the out-of-bag predicted means (noise folded in); at finite R biased by order 1/R, opposite to the variance's bias (their sum is unbiased; ± covers the finite-R value)"
                 } else {
-                    "Pfau (2013): D(λ, μ̃), μ̃ the geometric mean of the predicted means (the Bregman central prediction)"
+                    "Pfau (2013): D(λ, μ̃), μ̃ the geometric mean of the predicted means (the Bregman central prediction); at finite R biased by order 1/R, opposite to the variance's bias (their sum is unbiased; ± covers the finite-R value)"
                 },
                 Role::Bias,
                 Main,
@@ -325,7 +325,7 @@ impl Loss for Poisson {
             info(
                 "variance",
                 "variance",
-                "Pfau (2013): mean over training sets of D(μ̃, μ) = 2 (arithmetic − geometric mean of the predicted means)",
+                "Pfau (2013): mean over training sets of D(μ̃, μ) = 2 (arithmetic − geometric mean of the predicted means); at finite R biased by order 1/R, opposite to the bias's bias (their sum is unbiased; ± covers the finite-R value)",
                 Role::Variance,
                 Main,
                 true,

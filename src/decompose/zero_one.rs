@@ -852,7 +852,12 @@ impl Loss for ZeroOne {
             s.total.used_points()
         };
         Some(format!(
-            "{n} of {m} evaluation points {has} a main prediction that flips with probability above 5 % at {knob} = {value}: there the Domingos and James terms carry a finite-R bias (docs/zero-one-finite-r.md).",
+            "{n} of {m} evaluation points {has} a main prediction that flips with probability above 5 % at {knob} = {value}: there the {which} carry a finite-R bias (docs/zero-one-finite-r.md).",
+            which = if s.terms.iter().any(|t| t.key.starts_with("james")) {
+                "Domingos and James terms"
+            } else {
+                "Domingos terms"
+            },
             n = n as u64,
             has = if n == 1.0 { "has" } else { "have" }
         ))

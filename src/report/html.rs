@@ -279,8 +279,14 @@ fn twin_words(doc: &ResultDoc, inputs: &[String], model: String) -> Vec<String> 
     out.push(format!(
         "Loss: {} loss, measured {eval}; each term is averaged over those points and over {} \
          replicate training sets. Noise, bias and variance are exact for the twin; how well they \
-         carry over to the table's own process depends on the twin (see the fidelity check).",
-        doc.loss, doc.replicates
+         carry over to the table's own process depends on the twin{}.",
+        doc.loss,
+        doc.replicates,
+        if s.twin.as_ref().is_some_and(|t| t.fidelity.is_some()) {
+            " (see the fidelity check)"
+        } else {
+            " (`lossprism twin` without `--fidelity 0` measures it)"
+        }
     ));
     out
 }
@@ -312,8 +318,9 @@ fn table_words(
     };
     let holdout = if t.holdout_rows > 0 {
         format!(
-            "; {} more rows are locked away as a holdout and never used here",
-            t.holdout_rows
+            "; {} of them are locked away as a holdout and never used here, leaving {} working \
+             rows",
+            t.holdout_rows, t.working_rows
         )
     } else {
         String::new()
@@ -353,17 +360,25 @@ fn table_words(
         model,
         format!(
             "Loss: {} loss on the out-of-bag rows; each row's terms average the replicates that \
-             held it out (on average {:.1}% of the rows per replicate), then the rows are \
-             averaged{skipped}; {} replicate resamples.",
+             held it out (on average {:.1}% of the rows per replicate{}), then the rows are \
+             averaged{skipped}; {} replicate resamples. The ± of every term is the Monte Carlo \
+             error of resampling this one table (jackknife over replicate blocks): it is not the \
+             uncertainty of a model's error on new data from the table's process.",
             doc.loss,
             100.0 * t.held_out_share,
+            if doc.sizes.len() > 1 {
+                " at the largest training size; smaller sizes leave out more"
+            } else {
+                ""
+            },
             doc.replicates
         ),
     ];
     if !estimates.is_empty() {
         out.push(format!(
             "Estimates: {} rest on an estimated noise and the observed responses, not on a \
-             known truth; their standard errors include the noise estimate's.",
+             known truth; the noise estimate's own standard error is given below, and the \
+             standard error of bias² (est.) includes it.",
             estimates.join(", ")
         ));
     }
@@ -547,8 +562,8 @@ fn curve_reading(doc: &ResultDoc) -> Vec<String> {
         } else {
             format!(
                 "{knob} = {} {} not clearly worse (two standard errors or less): the choice of \
-                 {knob} = {} is not clear at this number of replicates; more replicates would \
-                 settle it.",
+                 {knob} = {} is not clear at this number of replicates; more replicates may \
+                 separate them, or show that they are equally good.",
                 unclear.join(" and "),
                 if unclear.len() == 1 { "is" } else { "are" },
                 fmt_value(doc.best.value)
@@ -563,12 +578,21 @@ fn curve_reading(doc: &ResultDoc) -> Vec<String> {
         .map(|v| fmt_value(*v))
         .collect();
     if !others.is_empty() {
+        // The simplest of the set, by the knob's direction (for k-NN the largest k).
+        let set = doc.best.within_one_se.iter().chain([&doc.best.value]);
+        let simplest = if doc.larger_is_simpler {
+            set.fold(f64::NEG_INFINITY, |a, &v| a.max(v))
+        } else {
+            set.fold(f64::INFINITY, |a, &v| a.min(v))
+        };
         out.push(format!(
             "{} of the lowest expected loss: with these replicates the data cannot tell {} apart \
-             from the best ({knob} = {}); the simplest of them is a safe pick.",
+             from the best ({knob} = {}); the simplest of them, {knob} = {}, is a safe pick (the \
+             one-standard-error rule).",
             super::within_words(knob, &others),
             if others.len() == 1 { "it" } else { "them" },
-            fmt_value(doc.best.value)
+            fmt_value(doc.best.value),
+            fmt_value(simplest)
         ));
     }
     if pts.len() > 1 && (bi == 0 || bi == pts.len() - 1) {
@@ -726,7 +750,7 @@ pub fn render(
         h.push_str("<dl class=\"facts\" id=\"selection-audit\">\n");
         let pct = |v: f64| {
             if v.is_finite() {
-                format!("{:.0}%", 100.0 * v)
+                format!("{:.0}%", (100.0 * v).round())
             } else {
                 "n/a".into()
             }
@@ -826,7 +850,11 @@ pub fn render(
     let _ = writeln!(
         h,
         "</tbody>\n</table></div>\n<p class=\"legend\">{}</p>",
-        e(legend.trim_start_matches("legend: "))
+        // The HTML table marks the best row "lowest" in its last column, not with `*`.
+        e(&legend.trim_start_matches("legend: ").replace(
+            "; * lowest expected loss.",
+            "; \"lowest\" marks the lowest expected loss."
+        ))
     );
     if let Some(note) = terminal::view_missing(doc, view) {
         let _ = writeln!(h, "<p class=\"legend\">Note: {}.</p>", e(&note));

@@ -1014,7 +1014,10 @@ pub fn rows(plan: &Plan, outcome: &Outcome, c: usize) -> Vec<PointRow> {
                 .filter(|(t, _)| reported(t, observed))
                 .map(|(t, v)| (t.key.to_string(), *v))
                 .collect(),
-            estimated: observed.then_some(true),
+            // True where a term depends on the estimated noise: a table under the squared loss
+            // (the classification and count losses fold the noise into the bias, estimating none).
+            estimated: observed
+                .then(|| s.terms.iter().any(|t| t.estimated && reported(t, observed))),
             stderr: s
                 .terms
                 .iter()
@@ -1448,22 +1451,22 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                 } else if !clear {
                     reading.push_str(&format!(
                         "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of bias plus variance at {to} rows).",
-                        100.0 * share
+                        (100.0 * share).round()
                     ));
                 } else if share >= 0.5 {
                     reading.push_str(&format!(
                         "variance is {:.0}% of bias plus variance at {to} rows, so more data should keep lowering it.",
-                        100.0 * share
+                        (100.0 * share).round()
                     ));
                 } else if va != vb {
                     reading.push_str(&format!(
                         "bias is {:.0}% of bias plus variance at {to} rows: more data still helps, mostly by allowing a different {knob}.",
-                        100.0 * (1.0 - share)
+                        (100.0 * (1.0 - share)).round()
                     ));
                 } else {
                     reading.push_str(&format!(
                         "bias is {:.0}% of bias plus variance at {to} rows and more data does not change the best {knob}, so a more flexible family would gain more than more data.",
-                        100.0 * (1.0 - share)
+                        (100.0 * (1.0 - share)).round()
                     ));
                 }
                 Gain {
@@ -1497,17 +1500,27 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     // The curve read by `best` and the reading: the first model at the largest size.
     let main_rows = rows(plan, outcome, plan.cell(last, 0));
     let mut best = best_of(&main_rows);
-    let bias_key = outcome
+    let bias_term = outcome
         .summary()
         .terms
         .iter()
-        .find(|t| t.role == Role::Bias && t.group == Group::Main)
-        .map(|t| t.key)
-        .unwrap_or("bias_sq");
+        .find(|t| t.role == Role::Bias && t.group == Group::Main);
+    let bias_key = bias_term.map(|t| t.key).unwrap_or("bias_sq");
+    // A table under a loss whose noise is not estimated: the bias term holds the noise too.
+    let folded = matches!(plan.source, Source::Table(_))
+        && !outcome
+            .summary()
+            .terms
+            .iter()
+            .any(|t| t.role == Role::Noise && reported(t, true));
     let mut reading = reading(
         model.family.knob(),
-        plan.loss.bias_word(),
+        match bias_term {
+            Some(t) if folded => t.label,
+            _ => plan.loss.bias_word(),
+        },
         bias_key,
+        folded,
         &main_rows,
         &best,
     );
@@ -1581,7 +1594,9 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     };
     let (mut table, mut noise_estimate, mut scheme_note) = (None, None, None);
     if let (Source::Table(tp), Some(run)) = (&plan.source, &outcome.prepared.table) {
-        reading.push_str(plan.loss.observed_note());
+        if !folded {
+            reading.push_str(plan.loss.observed_note());
+        }
         let (share, share_se) = outcome.held_share.unwrap_or((f64::NAN, f64::NAN));
         table = Some(TableEcho {
             path: tp.recorded_path(),
@@ -1967,7 +1982,7 @@ pub fn heavy_tail_words(doc: &ResultDoc) -> Option<String> {
          standard errors are not reliable at this number of replicates (if the predictions' \
          tail has no finite variance, more replicates will not settle them).",
         shown.join("; "),
-        100.0 * worst
+        (100.0 * worst).round()
     ))
 }
 
@@ -2127,10 +2142,16 @@ fn runs(points: &[PointRow], pick: impl Fn(&PointRow) -> bool) -> String {
 /// One plain sentence (or two) reading the curve: where the bias-type term (`bias_key`,
 /// called `bias_word`) dominates the variance, where the variance does, and where the lowest
 /// expected loss lies.
+///
+/// `folded`: the bias term holds the noise too (a table under a loss whose noise is not
+/// estimated, `bias+noise`). Variance above it is above the bias alone, so variance dominance
+/// is still read; the term above the variance says nothing of the bias, so no bias dominance is
+/// claimed (a 0-1 table whose noise made most of `bias+noise` was called bias-dominated).
 pub fn reading(
     knob: &str,
     bias_word: &str,
     bias_key: &str,
+    folded: bool,
     points: &[PointRow],
     best: &Best,
 ) -> String {
@@ -2139,7 +2160,28 @@ pub fn reading(
     let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
     let n_var = points.iter().filter(|p| variance_dominates(p)).count();
     let n_tie = points.len() - n_bias - n_var;
-    let mut out = if n_tie == points.len() {
+    let mut out = if folded {
+        let cannot = "on a table the noise cannot be separated from the bias under this loss, so \
+                      this does not show that the family underfits";
+        if n_var == points.len() {
+            format!(
+                "Variance exceeds {bias_word} at every {knob} tried, so it exceeds the bias alone \
+                 too: the whole grid lies on the variance-dominated side."
+            )
+        } else if n_var == 0 {
+            format!(
+                "{} is at least the variance at every {knob} tried; {cannot}.",
+                upper_first(bias_word)
+            )
+        } else {
+            format!(
+                "Variance dominates at {knob} {} (it exceeds {bias_word}, so the bias alone too); \
+                 at {knob} {} {bias_word} is at least the variance, and {cannot}.",
+                runs(points, variance_dominates),
+                runs(points, |p| !variance_dominates(p))
+            )
+        }
+    } else if n_tie == points.len() {
         // Both exactly 0 (a model that reproduces a noiseless truth) or equal: neither side.
         format!(
             "{bias_word} and variance are equal at every {knob} tried: neither dominates anywhere."
@@ -2151,8 +2193,8 @@ pub fn reading(
     } else if n_var == points.len() {
         format!(
             "Variance exceeds {} at every {knob} tried: the whole grid lies on the variance-dominated side (no value tried lets {} dominate).",
-            bias_word.to_lowercase(),
-            bias_word.to_lowercase()
+            lower_first(bias_word),
+            lower_first(bias_word)
         )
     } else {
         let side = |n: usize, who: &str, f: &dyn Fn(&PointRow) -> bool| {
@@ -2194,6 +2236,22 @@ pub fn reading(
     out
 }
 
+/// `s` with its first letter in lower case (`Bias (Domingos)` → `bias (Domingos)`).
+fn lower_first(s: &str) -> String {
+    let mut c = s.chars();
+    c.next()
+        .map(|f| f.to_lowercase().chain(c).collect())
+        .unwrap_or_default()
+}
+
+/// `s` with its first letter in upper case (`bias+noise` → `Bias+noise`).
+fn upper_first(s: &str) -> String {
+    let mut c = s.chars();
+    c.next()
+        .map(|f| f.to_uppercase().chain(c).collect())
+        .unwrap_or_default()
+}
+
 /// Names the grid values within one standard error of the best without ambiguity:
 /// "max_depth = 6 is within one standard error", "max_depth = 5 and 6 are within …".
 pub fn within_words(knob: &str, others: &[String]) -> String {
@@ -2230,7 +2288,7 @@ pub fn split_reading(knob: &str, points: &[PointRow], best: &Best) -> Option<Str
             return None;
         }
         let fit = (vf / v).clamp(0.0, 1.0);
-        let pct = |x: f64| format!("{:.0}%", 100.0 * x);
+        let pct = |x: f64| format!("{:.0}%", (100.0 * x).round());
         Some(if fit >= 0.5 {
             format!(
                 "mostly the learner's own randomness ({} var (fit), the spread across fit seeds on one training set)",

@@ -446,9 +446,9 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
                 .into()
         } else {
             format!(
-                "`--decomposition all` is for the 0-1 loss's terminal table (`run \
-                 --decomposition all`); a {} loss result has one decomposition: leave \
-                 --decomposition out",
+                "`--decomposition all` is for the terminal table (`run --decomposition all` \
+                 shows every term); a picture of a {} loss result shows its one decomposition: \
+                 leave --decomposition out",
                 doc.loss
             )
         }));
@@ -742,7 +742,17 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         // Above the plot area: which parts of the grid are bias-dominated, which
         // variance-dominated, one label per run of neighbouring grid values (a label that would
         // overlap the previous one is left out).
+        // A table under a loss whose noise is not estimated draws bias+noise: only where the
+        // variance is above it is a side known (the variance is then above the bias alone).
+        let folded = doc.table.is_some() && !doc.term_docs().iter().any(|t| t.role == "noise");
         let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
+        let bias_dom = |i: usize| {
+            if folded {
+                series[1].values[i] >= series[2].values[i]
+            } else {
+                bias_dom(i)
+            }
+        };
         let mut runs: Vec<(usize, usize)> = Vec::new();
         for i in 0..xs.len() {
             match runs.last_mut() {
@@ -755,7 +765,9 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         let hi = chart.backend_coord(&(x1, y1)).0;
         let mut right_edge = i32::MIN;
         for (a, b) in runs {
-            let text = if bias_dom(a) {
+            let text = if bias_dom(a) && folded {
+                "bias+noise above variance"
+            } else if bias_dom(a) {
                 "bias-dominated"
             } else {
                 "variance-dominated"
@@ -845,6 +857,16 @@ fn curve_note(doc: &ResultDoc, view: View) -> String {
         ("Left", "right")
     };
     match view {
+        View::Domingos | View::All
+            if doc.table.is_some() && doc.term_docs().iter().any(|t| t.key == "net_variance") =>
+        {
+            format!(
+                "Domingos on a table: expected loss = (bias+noise) + net variance, the noise folded \
+                 into the bias. A net variance below zero means variance helps where the majority \
+                 prediction is wrong. {simple} of the best value the model is simpler, {complex} of \
+                 it more complex."
+            )
+        }
         View::Domingos | View::All if doc.term_docs().iter().any(|t| t.key == "net_variance") => format!(
             "Domingos: expected loss = c1·noise + bias + net variance. A net variance below zero \
              means variance helps where the majority prediction is wrong. {simple} of the best \
@@ -973,8 +995,8 @@ pub fn check_point_request(plan: &Plan, input: Option<&str>) -> Result<(), Error
         || plan.loss.name() != "squared"
     {
         return Err(Error::Usage(
-            "--plot-points needs a synthetic scenario with squared loss (a known truth and mean \
-             predictions)"
+            "--plot-points needs a synthetic or twin scenario with squared loss (a known truth \
+             and mean predictions; a table's truth is unknown)"
                 .into(),
         ));
     }
@@ -1829,6 +1851,12 @@ pub fn heatmap_svg(doc: &ResultDoc, family: &str) -> Result<String, Error> {
 /// (solid, with a ±2 standard error band), the bias-type term (dashed) and the variance
 /// (dotted), against the training size on a logarithmic axis; one colour per family.
 pub fn learning_svg(doc: &ResultDoc) -> Result<String, Error> {
+    // The bias-type term drawn dashed, by the loss's own label (bias², bias² (est.), bias, ...).
+    let bias_label = doc
+        .term_docs()
+        .iter()
+        .find(|t| t.role == "bias" && t.group == "main")
+        .map_or("bias term".to_string(), |t| t.label.clone());
     if doc.learning.is_empty() {
         return Err(Error::Usage(
             "the result has one training size: give `train_size = [..]` for learning curves".into(),
@@ -1939,7 +1967,7 @@ pub fn learning_svg(doc: &ResultDoc) -> Result<String, Error> {
                 ..look
             };
             sample_line(&panel, &dashed, 10, 58, y + 7)?;
-            y = panel_text(&panel, "bias term", (68, y), 14, INK, 24)? + 6;
+            y = panel_text(&panel, &bias_label, (68, y), 14, INK, 24)? + 6;
             let dotted = Look {
                 dash: Dash::Dashed(3, 4),
                 ..dashed

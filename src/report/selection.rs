@@ -180,8 +180,8 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
         s.folds,
         s.rule,
         top,
-        100.0 * s.share_oracle,
-        100.0 * s.share_within_one_se,
+        (100.0 * s.share_oracle).round(),
+        (100.0 * s.share_within_one_se).round(),
         fmt_num(s.mean_excess_loss),
         fmt_num(s.q90_excess_loss)
     )

@@ -188,13 +188,19 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
         .filter(|t| t.stderr && t.bootstrap)
         .map(|t| t.label.as_str())
         .collect();
+    // What the ± covers on a table: the resampling of this one table, nothing beyond it.
+    let scope = if doc.table.is_some() {
+        "; on a table, the Monte Carlo error of resampling this one table, not the uncertainty of a model's error on new data from its process"
+    } else {
+        ""
+    };
     if boot.is_empty() {
-        s.push_str(
-            "; ± one standard error (jackknife over replicate blocks); * lowest expected loss.\n",
-        );
+        s.push_str(&format!(
+            "; ± one standard error (jackknife over replicate blocks{scope}); * lowest expected loss.\n",
+        ));
     } else {
         s.push_str(&format!(
-            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction); * lowest expected loss.\n",
+            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction{scope}); * lowest expected loss.\n",
             boot.join(", ")
         ));
     }
@@ -272,7 +278,7 @@ fn interval_line(doc: &ResultDoc, terms: &[TermDoc]) -> Option<String> {
         None => (String::new(), doc.knob.as_str()),
     };
     Some(format!(
-        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {who}{knob} = {}: {} (not outside the range a term cannot leave, 0 to 1 for a share; at small R read it rather than the symmetric ± 2 SE for the bias, net and biased variance and James' effects: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
+        "interval: 95 % bootstrap percentile interval, widened to contain ± 2 SE, at {who}{knob} = {}: {} (not outside the range a term cannot leave, 0 to 1 for a share; at small R read it rather than the symmetric ± 2 SE for these terms: it also covers skewed draws; docs/zero-one-finite-r.md)\n",
         fmt_value(doc.best.value),
         parts.join("; ")
     ))
@@ -380,8 +386,21 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                 .join(", ")
         )
     };
+    // Several fits per training set: the squared loss splits the variance into data and fit
+    // parts; the other losses pool the fits (a 0-1 loss's R·S fits all vote), which said
+    // nothing before.
+    let seeds = match doc.scenario.fit_seeds {
+        Some(s) if doc.term_docs().iter().any(|t| t.key == "variance_fit") => {
+            format!(" · {s} fits per training set")
+        }
+        Some(s) => format!(
+            " · {s} fits per training set, pooled (R·{s} predictions; no data/fit split of the \
+             variance for this loss)"
+        ),
+        None => String::new(),
+    };
     out.push_str(&format!(
-        "{} · {family_words} · {} loss · R = {} replicates · seed {}\n",
+        "{} · {family_words} · {} loss · R = {} replicates{seeds} · seed {}\n",
         doc.scenario.name, doc.loss, doc.replicates, doc.seed
     ));
     if !doc.scenario.about.is_empty() {
@@ -434,6 +453,11 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
             .iter()
             .find(|t| t.role == "bias")
             .map_or("bias".to_string(), |t| t.label.clone());
+        // A table's noise is an estimate (`noise (est.)`, as in the main table).
+        let noise_label = terms
+            .iter()
+            .find(|t| t.role == "noise" && t.group == "main")
+            .map_or("noise".to_string(), |t| t.label.clone());
         for c in &doc.learning {
             out.push_str(&format!(
                 "learning curve of {} (its best {} at each training size):\n",
@@ -445,7 +469,7 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                 "expected loss",
                 bias_label.as_str(),
                 "variance",
-                "noise",
+                noise_label.as_str(),
             ]
             .iter()
             .map(|s| s.to_string())
@@ -508,6 +532,16 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
     if let Some(sel) = &doc.selection {
         let sentence = super::selection::sentence(sel, &doc.knob, &doc.scenario.grid);
         out.push_str(&format!("selection: {sentence}\n"));
+    }
+    if let Some(n) = doc.scenario.twin.as_ref().and_then(|t| t.noise.as_ref()) {
+        out.push_str(&format!(
+            "twin noise: σ² = {} ± {}, estimated from the table by `lossprism twin` ({}) and fixed in \
+             the twin: exact within it, so the ± above do not include its error, which would move \
+             every expected loss up or down together\n",
+            fmt_num(n.value),
+            fmt_se(n.stderr),
+            n.method
+        ));
     }
     if let Some(r) = doc
         .scenario

@@ -43,6 +43,10 @@ pub struct TwinEcho {
     /// The noise estimate and its correction (`lossprism twin`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub noise: Option<NoiseEcho>,
+    /// The twin's noise varies with x (σ(x) from the reference's residuals, scaled to the
+    /// corrected estimate's level); absent when it is constant.
+    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    pub varying_noise: bool,
     /// The fidelity check (`lossprism twin`).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub fidelity: Option<FidelityEcho>,
@@ -295,6 +299,13 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
             weighted: n.weighted,
             left_out: n.left_out,
         }),
+        varying_noise: matches!(
+            &p.response,
+            crate::dgp::Response::Regression {
+                noise: crate::dgp::Noise::Reference(_),
+                ..
+            }
+        ),
         fidelity: rep.fidelity.map(|f| FidelityEcho {
             tables: f.tables,
             replicates: f.replicates,
@@ -374,9 +385,14 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
     }
     if let Some(n) = &t.noise {
         out.push(format!(
-            "Its noise σ² = {} ± {} (with varying noise, σ²(x) is scaled so that the estimator would read this value) was estimated from the table ({} estimator{}{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin, with the standard error from {} bootstrap tables); the decomposition treats it as known.",
+            "Its noise σ² = {} ± {}{} was estimated from the table ({} estimator{}{}: raw {}, minus its bias {} measured by a parametric bootstrap from the twin; the standard error is the larger of the spread over {} bootstrap tables and the estimator's own standard error, combined with the reference's possible error as a sharp pilot measures it: `lossprism twin` prints the parts); the decomposition treats it as known, so the ± of the terms do not include its error, which moves the whole curve up or down together.",
             fmt_num(n.value),
             fmt_se(n.stderr),
+            if t.varying_noise {
+                " (it varies with x: σ²(x) is scaled so that the estimator would read this value)"
+            } else {
+                ""
+            },
             n.method,
             if n.weighted {
                 ", its neighbour distances weighted as the reference's"

@@ -142,8 +142,15 @@ pub fn choose(
                 .family
                 .fit_predict(&input, &model.grid, out)
                 .map_err(|e| fit_err(e.0))?;
-            super::check_predictions(plan, model, preds.view(), needs_probs.then(|| probs.view()))
-                .map_err(fit_err)?;
+            let point = |e: usize| format!("held-out row {} of the fold", e + 1);
+            super::check_predictions(
+                plan,
+                model,
+                preds.view(),
+                needs_probs.then(|| probs.view()),
+                &point,
+            )
+            .map_err(fit_err)?;
             for gi in 0..g {
                 let mut sum = 0.0;
                 for (j, &i) in held.iter().enumerate() {

@@ -59,6 +59,7 @@ pub fn check_predictions(
     model: &ModelPlan,
     values: ArrayView2<'_, f64>,
     probs: Option<ArrayView3<'_, f64>>,
+    point: &dyn Fn(usize) -> String,
 ) -> Result<(), String> {
     let knob = |g: usize| format!("{} = {}", model.family.knob(), fmt_value(model.grid[g]));
     for (g, row) in values.rows().into_iter().enumerate() {
@@ -69,9 +70,10 @@ pub fn check_predictions(
                 }
                 if let Some((e, bad)) = row.iter().enumerate().find(|(_, v)| !v.is_finite()) {
                     return Err(format!(
-                        "prediction {bad} at evaluation point {e}, {}: not a finite number (are \
+                        "prediction {bad} at {}, {}: not a finite number (are \
                          the responses too large? rescale them, for example divide by a power \
                          of ten)",
+                        point(e),
                         knob(g)
                     ));
                 }
@@ -83,7 +85,8 @@ pub fn check_predictions(
                     .find(|(_, v)| !(v.fract() == 0.0 && **v >= 0.0 && **v < classes as f64))
                 {
                     return Err(format!(
-                        "predicted {bad} at evaluation point {e}, {}: not a class index 0 to {} ({classes} classes)",
+                        "predicted {bad} at {}, {}: not a class index 0 to {} ({classes} classes)",
+                        point(e),
                         knob(g),
                         classes - 1
                     ));
@@ -100,8 +103,9 @@ pub fn check_predictions(
                 .find(|v| !(v.is_finite() && **v >= 0.0 && **v <= 1.0));
             if bad.is_some() || (sum - 1.0).abs() > 1e-9 * q.len() as f64 {
                 return Err(format!(
-                    "class probabilities {:?} at evaluation point {e}, {}: not a probability vector (values in [0, 1] adding up to 1)",
+                    "class probabilities {:?} at {}, {}: not a probability vector (values in [0, 1] adding up to 1)",
                     q.to_vec(),
+                    point(e),
                     knob(g)
                 ));
             }
@@ -123,7 +127,8 @@ pub fn check_predictions(
         };
         plan.loss.check_prediction(v, q).map_err(|m| {
             format!(
-                "at evaluation point {e}, {}: {}",
+                "at {}, {}: {}",
+                point(e),
                 knob(g),
                 with_remedy(plan, model, m)
             )
@@ -186,6 +191,15 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
         }
         for (si, &n) in plan.sizes.iter().enumerate() {
             let sd = d.size(n, prep);
+            // A refused prediction names its point as the messages about the table do: by the
+            // row's line in the CSV file.
+            let point = |e: usize| match &prep.table {
+                Some(t) => {
+                    let row = sd.held.as_deref().map_or(e, |h| h[e]);
+                    format!("the row on line {} of the table", t.work.lines[row])
+                }
+                None => format!("evaluation point {e}"),
+            };
             if si + 1 == plan.sizes.len() {
                 if let (Some((s, s2)), Some(h)) = (held_share.as_mut(), &sd.held) {
                     let share = h.len() as f64 / points as f64;
@@ -247,6 +261,7 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
                             model,
                             values.index_axis(Axis(0), s),
                             needs_probs.then(|| probs.index_axis(Axis(0), s)),
+                            &point,
                         )
                         .map_err(fit_err)?;
                     }

@@ -629,11 +629,11 @@ impl Plan {
         s * self.models.len() + i
     }
 
-    /// Number of evaluation points (a table's rows, holdout included).
+    /// Number of evaluation points (a table's working rows: its holdout is never evaluated).
     pub fn eval_size(&self) -> usize {
         match &self.source {
             Source::Synthetic(s) => s.eval_size,
-            Source::Table(t) => t.table.x.nrows(),
+            Source::Table(t) => t.work.len(),
         }
     }
 
