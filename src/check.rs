@@ -452,6 +452,34 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
             known.join(", ")
         ));
     }
+    // A built-in family has its own knob (a tree result edited to `"knob": "k"` drew "Where k
+    // balances bias against variance"): external and library-supplied families name theirs.
+    let named: Vec<(&str, &str)> = if doc.models.is_empty() {
+        vec![(doc.family.as_str(), doc.knob.as_str())]
+    } else {
+        doc.models
+            .iter()
+            .map(|m| (m.family.as_str(), m.knob.as_str()))
+            .collect()
+    };
+    for (family, knob) in named {
+        let Some(info) = crate::family::catalogue().iter().find(|f| f.name == family) else {
+            continue;
+        };
+        if info.knob.starts_with('(') {
+            continue;
+        }
+        // The forest's knob is its tree count, or their depth with `knob = "max_depth"`.
+        let alt = (family == "forest").then_some("max_depth");
+        if knob != info.knob && Some(knob) != alt {
+            return Err(format!(
+                "`knob` is `{}`, but the `{family}` family's knob is `{}`{}; {EDITED}",
+                crate::fmt::clip(knob, 40),
+                info.knob,
+                alt.map(|a| format!(" or `{a}`")).unwrap_or_default()
+            ));
+        }
+    }
     doc.check_points()?;
     let at = |i: usize| {
         format!(

@@ -92,3 +92,21 @@ pub fn clip(s: &str, max: usize) -> String {
     let head: String = s.chars().take(max).collect();
     format!("{}… ({n} characters)", one_line(&head))
 }
+
+/// Bytes as `12.3 MiB`.
+pub fn fmt_bytes(b: f64) -> String {
+    const UNITS: [&str; 6] = ["bytes", "KiB", "MiB", "GiB", "TiB", "PiB"];
+    let mut v = b.max(0.0);
+    let mut u = 0;
+    while v >= 1024.0 && u + 1 < UNITS.len() {
+        v /= 1024.0;
+        u += 1;
+    }
+    if u == 0 && format!("{v:.0}") == "1" {
+        "1 byte".to_string()
+    } else if u == 0 {
+        format!("{v:.0} bytes")
+    } else {
+        format!("{v:.1} {}", UNITS[u])
+    }
+}

@@ -2762,6 +2762,16 @@ fn twin_cases(t: &mut Table) {
         TWIN.replacen(from, to, 1)
     };
     let cases: Vec<(&str, String, &str)> = vec![
+        // Sweep 66: a twiced polynomial (a projection: twicing gives back the same fit) was
+        // written by `--reference poly --twicing on` and read without a word.
+        (
+            "twin: a twiced polynomial reference",
+            twin(
+                r#"reference = { family = "blend", k = 5, trees = 10, min_leaf = 5, seed = 1, bandwidth = 0.5, twice = true, weights = { knn = 0.3, forest = 0.3, loclin = 0.4 } }"#,
+                r#"reference = { family = "poly", degree = 2, twice = true }"#,
+            ),
+            "key `data.reference.twice`: a polynomial reference is a least-squares projection",
+        ),
         // The reference fitted once is NaN everywhere (a bandwidth far below the spacing of
         // the rows): twicing refitted bagged trees to NaN residuals and panicked.
         (
@@ -3096,6 +3106,12 @@ fn noise_shape_cases(t: &mut Table) {
             1,
         )
     };
+    let unrecorded = |s: String| {
+        s.replace(
+            "noise = { method = \"gamma\", raw = 0.1, correction = 0.01, value = 0.09, stderr = 0.02, tables = 200 }\n",
+            "",
+        )
+    };
     let mut cases = cases;
     cases.extend([
         (
@@ -3155,14 +3171,26 @@ fn noise_shape_cases(t: &mut Table) {
         ),
         // A level whose σ²(x) overflows: refused at the key, not a run stopped on an infinite
         // response (1e308) or squares (1e305) naming no key.
+        // A level far from the recorded σ̂² (1e100 beside 0.09 ran): refused against the record.
+        (
+            "twin: level far from the recorded noise",
+            varying("level = 1e100"),
+            "s.toml:16: key `data.noise.level`: is 1e100, more than 100 times away from the noise `lossprism twin` recorded (σ̂² = 0.09)",
+        ),
+        (
+            "twin: sd beside varying noise",
+            varying("sd = 100.0"),
+            "key `data.noise.sd`: belongs to constant noise; varying noise (`varying = true`) takes its level from `level`",
+        ),
+        // Without the record (its noise line removed) the overflow checks are what refuses.
         (
             "twin: level overflowing σ²(x)",
-            varying("level = 1e308"),
+            unrecorded(varying("level = 1e308")),
             "s.toml:16: key `data.noise.level`: `level` = 1e308 would scale σ²(x) past the range of floating-point numbers",
         ),
         (
             "twin: level overflowing the responses' squares",
-            varying("level = 1e300"),
+            unrecorded(varying("level = 1e300")),
             "s.toml:16: key `data.noise.level`: `level` = 1e300 would scale σ²(x) to as much as",
         ),
     ]);
@@ -3383,6 +3411,18 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
                 *lo = serde_json::json!(lossprism::codec::pack_floats(&vals));
             }),
             "below the jackknife of its own leave-one-block-out values",
+        ),
+        // Sweep 66: a knob that is not the family's (`plot` drew "Where k balances bias against
+        // variance" for a tree), or a family whose knob is another (`check` said identical).
+        (
+            "a knob edited to another family's",
+            edit_json(&docs.result, |v| v["knob"] = "k".into()),
+            "`knob` is `k`, but the `tree` family's knob is `max_depth`",
+        ),
+        (
+            "a family edited to one with another knob",
+            edit_json(&docs.result, |v| v["family"] = "knn".into()),
+            "`knob` is `max_depth`, but the `knn` family's knob is `k`",
         ),
         // Sweep 64: values moved together so that every identity holds, away from their own
         // leave-outs (one row raised by 1e13 hid every regression of a paired check; every

@@ -652,8 +652,7 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             twin::TWICE_FROM_INPUTS
         )),
         None if sel.choice.twice => v.push("Twiced because `--twicing on` asked for it.".into()),
-        None if fit.twicing_mode == Twicing::Auto && sel.choice.family == Candidate::Poly => v
-            .push(
+        None if fit.twicing_mode != Twicing::Off && sel.choice.family == Candidate::Poly => v.push(
             "Not twiced: a polynomial least-squares fit is a projection, so twicing it would give \
              back the same fit."
                 .into(),

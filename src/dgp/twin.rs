@@ -943,10 +943,11 @@ pub fn fit_regression_shaped(
         _ => None,
     };
     // A polynomial reference is a least-squares projection: twicing it gives back the same
-    // fit, so the rule leaves it once (`--twicing on` still twices it, to no effect).
+    // fit, so it is left once whatever `--twicing` says (`on` wrote `twice = true` and said it
+    // "gives back curvature", to no effect; the scenario reader refuses that recipe).
     let projection = selection.choice.family == super::reference::Candidate::Poly;
     let twice = match twicing {
-        Twicing::On => true,
+        Twicing::On => !projection,
         Twicing::Off => false,
         Twicing::Auto => {
             !projection && (x.ncols() >= TWICE_FROM_INPUTS || check.is_some_and(|c| c.twice()))

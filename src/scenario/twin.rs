@@ -95,6 +95,24 @@ impl BuildError {
     }
 }
 
+/// The parts of a recipe that set its size, in words (`10000 trees, min_leaf = 1, twiced`).
+fn describe_size(c: &Choice) -> String {
+    let mut parts = Vec::new();
+    if let Some(f) = c.forest.filter(|_| c.weights[1] > 0.0) {
+        parts.push(format!("{} trees, min_leaf = {}", f.trees, f.min_leaf));
+    }
+    if let Some(t) = c.tree {
+        parts.push(format!("a tree of depth {}", t.depth));
+    }
+    if c.twice {
+        parts.push("twiced".into());
+    }
+    if parts.is_empty() {
+        parts.push("its copies of the table".into());
+    }
+    parts.join(", ")
+}
+
 /// The twin process of table `t` (`shown`: the table's name in descriptions). Errors (one line)
 /// when the recipe lacks a part it needs, or when resampled residuals have nothing to resample.
 pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, BuildError> {
@@ -103,6 +121,21 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
         Task::Regress => 0,
     };
     let varying = matches!(spec.noise, Some(TwinNoise::Varying { .. }));
+    // Before the fit allocates: a recipe (edited by hand, say, to 10 000 trees) must fit in the
+    // memory available, with the run beside it.
+    let need = crate::dgp::reference::fitted_bytes(&spec.choice, t.rows(), t.x.ncols(), classes);
+    if let Some(avail) = crate::codec::available_memory() {
+        if need > avail as f64 / 2.0 {
+            return Err(BuildError::Reference(format!(
+                "the reference would take about {} fitted on {} rows ({}), more than half of \
+                 the {} of memory available; use fewer `trees` or a larger `min_leaf`",
+                crate::fmt::fmt_bytes(need),
+                t.rows(),
+                describe_size(&spec.choice),
+                crate::fmt::fmt_bytes(avail as f64)
+            )));
+        }
+    }
     let mut fitted_ref = Reference::fit(
         t.x.view(),
         t.y.view(),
@@ -417,6 +450,15 @@ fn choice_of(
             fam_span,
             "data.reference.twice",
             "twicing applies to a regression twin with constant noise (`sd`)".into(),
+        ));
+    }
+    if twice && family == Candidate::Poly {
+        return Err(err(
+            fam_span,
+            "data.reference.twice",
+            "a polynomial reference is a least-squares projection: twicing it gives back the \
+             same fit, so `lossprism twin` never writes it; remove `twice`"
+                .into(),
         ));
     }
     if let Some(c) = &r.cv_r2 {
@@ -953,9 +995,12 @@ pub fn from_spec(
                 want.span(),
                 "data.table_digest",
                 format!(
-                    "{} is not the table this twin was fitted to (digest {have}, the twin's {}): \
-                     the reference would be refitted to it while the noise and the recommended \
-                     picks stay as measured on the old one; run `lossprism twin` on it again",
+                    "{} as this scenario reads it is not the table this twin was fitted to \
+                     (digest {have}, the twin's {}; the digest covers the rows and the names of \
+                     the target, the features and the labels, so an edited `target`, `features` \
+                     or `labels` changes it too): the reference would be refitted to it while \
+                     the noise and the recommended picks stay as measured on the old one; undo \
+                     the edit, or run `lossprism twin` on the table again",
                     table_path.display(),
                     crate::fmt::clip(want.get_ref(), 40)
                 ),
@@ -1133,7 +1178,17 @@ pub fn from_spec(
                         }
                         TwinNoise::Constant(v)
                     }
-                    (_, true) => {
+                    (Some(sd), true) => {
+                        // Ignored before: the level of varying noise is `level`.
+                        return Err(err(
+                            sd.span(),
+                            "data.noise.sd",
+                            "belongs to constant noise; varying noise (`varying = true`) takes \
+                             its level from `level`: remove one of the two"
+                                .into(),
+                        ));
+                    }
+                    (None, true) => {
                         let k = choice.k.unwrap_or(rows);
                         if rows <= k {
                             return Err(err(
@@ -1207,6 +1262,31 @@ pub fn from_spec(
             Some(TwinNoise::Constant(sd)) => Some(*sd),
             _ => None,
         };
+        // Varying noise's level is scaled so that the estimator, which weighs the rows unevenly,
+        // reads the recorded σ̂²: it stays near that value (a level of 1e100 beside a recorded
+        // 0.26 ran). A factor of 100 either way is a sanity bound (a rule of thumb, no source).
+        if let (Some(TwinNoise::Varying { level: Some(l), .. }), Some(rec)) =
+            (&noise, r.get_ref().noise.as_ref().filter(|n| n.value > 0.0))
+        {
+            if !(l / rec.value >= 0.01 && l / rec.value <= 100.0) {
+                let span = d
+                    .noise
+                    .as_ref()
+                    .and_then(|n| n.level.as_ref().map(|v| v.span()))
+                    .unwrap_or(r.span());
+                return Err(err(
+                    span,
+                    "data.noise.level",
+                    format!(
+                        "is {}, more than 100 times away from the noise `lossprism twin` recorded \
+                         (σ̂² = {}), which the level is scaled to reproduce: remove \
+                         [data.fit_report] if the scenario was changed on purpose",
+                        crate::fmt::fmt_exact(*l),
+                        crate::fmt::fmt_exact(rec.value)
+                    ),
+                ));
+            }
+        }
         if let Some((key, why)) = inconsistent_report(r.get_ref(), sd) {
             return Err(err(
                 r.span(),

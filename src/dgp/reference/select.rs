@@ -20,10 +20,10 @@
 //!   (`docs/twin-calibration.md` §0.8). It does not depend on the input weights, stays out of
 //!   the blend, and is chosen only by [`choose`]'s one-SE rule;
 //! - **blend**: stacking (Wolpert 1992, "Stacked generalization", *Neural Networks* 5:241–259;
-//!   Breiman 1996, "Stacked regressions", *Machine Learning* 24:49–64): non-negative weights,
-//!   no intercept, minimizing `‖y − Σ_j w_j p_j‖²` over the candidates' held-out predictions
-//!   p_j (k-NN and local-linear out-of-fold, forest out-of-bag), by exact non-negative least
-//!   squares ([`nnls`]). The blend's own CV R² refits the weights without fold f and applies
+//!   Breiman 1996, "Stacked regressions", *Machine Learning* 24:49–64): non-negative weights
+//!   summing to one, no intercept, minimizing `‖y − Σ_j w_j p_j‖²` over the candidates'
+//!   held-out predictions p_j (k-NN and local-linear out-of-fold, forest out-of-bag), exactly
+//!   ([`convex_weights`]; the sum makes them the same when a constant is added to y). The blend's own CV R² refits the weights without fold f and applies
 //!   them to fold f; the level-one predictions are reused, a small optimism stated here.
 //!
 //! CV R² = 1 − (mean held-out squared error) / (population variance of y); its standard error
@@ -150,46 +150,77 @@ fn population_variance(y: &[f64]) -> f64 {
     y.iter().map(|v| (v - ym) * (v - ym)).sum::<f64>() / n
 }
 
-/// Non-negative least squares without intercept, `min ‖y − Σ_j w_j c_j‖²` subject to `w ≥ 0`,
-/// for a few columns (`cols[j]` is column j, at most 8): exact, by solving the unconstrained
-/// problem on every subset of columns and keeping the feasible solution with the smallest
-/// residual (the NNLS solution is such a subset solution; Lawson and Hanson, *Solving Least
-/// Squares Problems*, 1974, ch. 23, give the active-set algorithm that reaches the same point).
-/// A ridge of `1e-10 ×` the mean diagonal keeps nearly collinear columns solvable. Ties keep the
-/// subset enumerated first.
-pub fn nnls(cols: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
+/// Convex least squares: `min ‖y − Σ_j w_j c_j‖²` subject to `w ≥ 0` and `Σ_j w_j = 1`, for a
+/// few columns (`cols[j]` is column j, at most 8). Exact: on every subset of columns the
+/// equality-constrained problem is solved (one column as the base, the others as differences
+/// from it: `y − c_b = Σ_{j≠b} w_j (c_j − c_b)`), and the feasible solution with the smallest
+/// residual is kept (the constrained optimum is such a subset solution, its inactive weights at
+/// 0; Lawson and Hanson, *Solving Least Squares Problems*, 1974, ch. 23, for the active-set
+/// view). The weights sum to one, so adding a constant to `y` and to every column, or scaling
+/// them alike, leaves them unchanged: without the constraint a response offset by 1e10 pulled
+/// the weights to equal shares (its ridge then outweighed the signal), and 1e4 already moved
+/// them. Weights that sum to one are the super learner's convex combination (van der Laan,
+/// Polley and Hubbard 2007, *Statistical Applications in Genetics and Molecular Biology* 6:25;
+/// from memory); Breiman's stacked regressions (1996) found the non-negative weights summing to
+/// about one anyway. A ridge of `1e-10 ×` the mean diagonal of the differences keeps nearly
+/// collinear columns solvable. Ties keep the subset enumerated first.
+pub fn convex_weights(cols: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
     let k = cols.len();
-    assert!((1..=8).contains(&k), "nnls takes 1 to 8 columns");
+    assert!((1..=8).contains(&k), "convex_weights takes 1 to 8 columns");
     let mut best = (f64::INFINITY, vec![0.0; k]);
     for mask in 1u32..(1 << k) {
         let idx: Vec<usize> = (0..k).filter(|j| mask & (1 << j) != 0).collect();
-        let q = idx.len();
-        let mut a = vec![0.0; q * q];
-        let mut b = vec![0.0; q];
-        for (r, &i) in idx.iter().enumerate() {
-            b[r] = cols[i].iter().zip(y).map(|(u, v)| u * v).sum();
-            for (c, &j) in idx.iter().enumerate() {
-                a[r * q + c] = cols[i].iter().zip(&cols[j]).map(|(u, v)| u * v).sum();
+        let (base, rest) = (idx[0], &idx[1..]);
+        let q = rest.len();
+        let mut w_rest = Vec::new();
+        if q > 0 {
+            let d: Vec<Vec<f64>> = rest
+                .iter()
+                .map(|&j| {
+                    cols[j]
+                        .iter()
+                        .zip(&cols[base])
+                        .map(|(u, v)| u - v)
+                        .collect()
+                })
+                .collect();
+            let yb: Vec<f64> = y.iter().zip(&cols[base]).map(|(u, v)| u - v).collect();
+            let mut a = vec![0.0; q * q];
+            let mut b = vec![0.0; q];
+            for r in 0..q {
+                b[r] = d[r].iter().zip(&yb).map(|(u, v)| u * v).sum();
+                for c in 0..q {
+                    a[r * q + c] = d[r].iter().zip(&d[c]).map(|(u, v)| u * v).sum();
+                }
             }
+            let tr: f64 = (0..q).map(|r| a[r * q + r]).sum::<f64>() / q as f64;
+            for r in 0..q {
+                a[r * q + r] += 1e-10 * tr;
+            }
+            let Some(w) = solve_spd(&a, &b, q, 0.0) else {
+                continue;
+            };
+            w_rest = w;
         }
-        let tr: f64 = (0..q).map(|r| a[r * q + r]).sum::<f64>() / q as f64;
-        for r in 0..q {
-            a[r * q + r] += 1e-10 * tr;
-        }
-        let Some(w) = solve_spd(&a, &b, q, 0.0) else {
-            continue;
-        };
-        if w.iter().any(|&v| v < 0.0 || !v.is_finite()) {
+        let wb = 1.0 - w_rest.iter().sum::<f64>();
+        if wb < 0.0 || w_rest.iter().any(|&v| v < 0.0 || !v.is_finite()) {
             continue;
         }
         let mut full = vec![0.0; k];
-        for (r, &i) in idx.iter().enumerate() {
-            full[i] = w[r];
+        full[base] = wb;
+        for (r, &i) in rest.iter().enumerate() {
+            full[i] = w_rest[r];
         }
+        // The residual about the base column, so that an offset common to y and the columns
+        // does not enter the comparison's rounding.
         let rss: f64 = (0..y.len())
             .map(|t| {
-                let p: f64 = (0..k).map(|j| full[j] * cols[j][t]).sum();
-                (y[t] - p) * (y[t] - p)
+                let p: f64 = (0..k)
+                    .filter(|&j| j != base)
+                    .map(|j| full[j] * (cols[j][t] - cols[base][t]))
+                    .sum();
+                let e = (y[t] - cols[base][t]) - p;
+                e * e
             })
             .sum();
         if rss < best.0 {
@@ -301,7 +332,7 @@ fn tune(
         level1.push(lp[li].clone());
         slots.push(2);
     }
-    let w = nnls(&level1, y);
+    let w = convex_weights(&level1, y);
     let mut blend_cv = vec![0.0; n];
     for f in 0..folds {
         let rows: Vec<usize> = (0..n).filter(|&i| fold[i] != f).collect();
@@ -310,7 +341,7 @@ fn tune(
             .map(|c| rows.iter().map(|&i| c[i]).collect())
             .collect();
         let yy: Vec<f64> = rows.iter().map(|&i| y[i]).collect();
-        let wf = nnls(&cols, &yy);
+        let wf = convex_weights(&cols, &yy);
         for i in (0..n).filter(|&i| fold[i] == f) {
             blend_cv[i] = (0..level1.len()).map(|j| wf[j] * level1[j][i]).sum();
         }
@@ -324,9 +355,8 @@ fn tune(
         weights[slots[j]] = w[j];
         held_out[slots[j]] = col;
     }
-    // Weights all 0: no non-negative mix of the candidates predicts better than 0, as on a
-    // table of noise around 0 that no input predicts; a blend of nothing is no reference, so it
-    // is not a candidate (`pick` takes the best single one).
+    // Weights all 0 (only when no subset could be solved, non-finite predictions): a blend of
+    // nothing is no reference, so it is not a candidate (`pick` takes the best single one).
     if w.iter().any(|v| *v != 0.0) {
         r2[4] = r2_se(y, &blend_cv);
     }
@@ -856,6 +886,64 @@ mod tests {
     use rand::Rng;
     use rand_distr::{Distribution, StandardNormal};
 
+    /// The blend's weights: non-negative, summing to one, the same when a constant is added to
+    /// the response and the columns (1e10 pulled the old non-negative weights to equal shares),
+    /// and the exact optimum (checked against a fine grid over the simplex).
+    #[test]
+    fn convex_weights_are_optimal_and_do_not_move_with_an_offset() {
+        let mut rng = crate::rng::stream(3, crate::rng::purpose::TWIN, 1);
+        let n = 200;
+        let y: Vec<f64> = (0..n).map(|_| rng.gen::<f64>() * 4.0).collect();
+        let cols: Vec<Vec<f64>> = (0..3)
+            .map(|j| {
+                y.iter()
+                    .map(|v| {
+                        let z: f64 = StandardNormal.sample(&mut rng);
+                        v + (0.3 + 0.4 * j as f64) * z
+                    })
+                    .collect()
+            })
+            .collect();
+        let w = convex_weights(&cols, &y);
+        assert!(w.iter().all(|&v| v >= 0.0), "{w:?}");
+        assert!((w.iter().sum::<f64>() - 1.0).abs() < 1e-12, "{w:?}");
+        let rss = |w: &[f64]| -> f64 {
+            (0..n)
+                .map(|t| {
+                    let p: f64 = (0..3).map(|j| w[j] * cols[j][t]).sum();
+                    (y[t] - p) * (y[t] - p)
+                })
+                .sum()
+        };
+        let steps = 200;
+        for a in 0..=steps {
+            for b in 0..=(steps - a) {
+                let g = [
+                    a as f64 / steps as f64,
+                    b as f64 / steps as f64,
+                    (steps - a - b) as f64 / steps as f64,
+                ];
+                assert!(rss(&w) <= rss(&g) * (1.0 + 1e-12), "{w:?} worse than {g:?}");
+            }
+        }
+        for c in [1e4, 1e8, 1e10, 1e12] {
+            let yc: Vec<f64> = y.iter().map(|v| v + c).collect();
+            let cc: Vec<Vec<f64>> = cols
+                .iter()
+                .map(|col| col.iter().map(|v| v + c).collect())
+                .collect();
+            let wc = convex_weights(&cc, &yc);
+            for (a, b) in w.iter().zip(&wc) {
+                // The offset costs the differences' last digits: at 1e12 on values of a few
+                // units about 1e-4 of relative precision is left.
+                assert!(
+                    (a - b).abs() < 1e-3 * c.log10(),
+                    "offset {c}: {w:?} against {wc:?}"
+                );
+            }
+        }
+    }
+
     /// `n` rows of `p` inputs uniform on [0, 1] (stream `(seed, TWIN, 9)`), then `y_i = f(x_i) +
     /// sd · z_i` with standard normal z drawn row by row from the same stream.
     fn uniform_table(
@@ -1040,21 +1128,37 @@ mod tests {
     /// paired SE, so the plain metric stays; and a metric is kept exactly when one clears.
     #[test]
     fn the_guard_keeps_plain_inputs_when_the_gain_is_within_one_se() {
-        let (x, y) = uniform_table(5, 200, 3, 0.5, |r| {
-            (0..3).map(|j| (3.0 * r[j]).sin()).sum::<f64>()
-        });
-        let sel = select(x.view(), &y, 5, Rule::Best);
-        let plain = sel.metric_scores[0].r2;
-        let best = sel.metric_scores[1..]
-            .iter()
-            .max_by(|a, b| a.r2.total_cmp(&b.r2))
-            .expect("weighted metrics scored");
-        assert!(best.r2 > plain, "{:?}", sel.metric_scores);
-        assert!(best.gain.0 > 0.0 && best.gain.0 <= best.gain.1, "{best:?}");
-        assert!(sel.choice.metric.is_none());
-        assert_eq!(
-            sel.choice.metric.is_some(),
-            sel.metric_scores.iter().any(|m| m.clears)
+        // Tables whose best weighted metric scores higher than the plain one, but by less than
+        // one paired SE (found among the first seeds; which seeds do depends on every
+        // candidate's numbers, so the test looks for them rather than naming one).
+        let mut seen = 0;
+        for seed in 1..=60 {
+            let (x, y) = uniform_table(seed, 200, 3, 0.5, |r| {
+                (0..3).map(|j| (3.0 * r[j]).sin()).sum::<f64>()
+            });
+            let sel = select(x.view(), &y, seed, Rule::Best);
+            assert_eq!(
+                sel.choice.metric.is_some(),
+                sel.metric_scores.iter().any(|m| m.clears),
+                "seed {seed}: {:?}",
+                sel.metric_scores
+            );
+            let plain = sel.metric_scores[0].r2;
+            let best = sel.metric_scores[1..]
+                .iter()
+                .max_by(|a, b| a.r2.total_cmp(&b.r2))
+                .expect("weighted metrics scored");
+            if best.r2 > plain && best.gain.0 > 0.0 && best.gain.0 <= best.gain.1 {
+                assert!(sel.choice.metric.is_none(), "seed {seed}: {best:?}");
+                seen += 1;
+                if seen == 2 {
+                    break;
+                }
+            }
+        }
+        assert!(
+            seen >= 1,
+            "no table with a gain within one SE among the seeds tried"
         );
     }
 
