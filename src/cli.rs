@@ -120,7 +120,8 @@ pub struct TwinArgs {
     /// Twicing of the regression reference (refitted to its own residuals and added, which
     /// restores curvature a cross-validated fit rounds off): `auto` twices on tables of 3 or
     /// more inputs and, with fewer, when that lowers the cross-validated error on the table;
-    /// `on` always, `off` never (varying noise: off).
+    /// `on` always, `off` never (varying noise: off; a polynomial reference, a least-squares
+    /// projection that twicing would give back unchanged, is never twiced).
     #[arg(long, default_value = "auto", value_name = "auto|on|off")]
     pub twicing: String,
     /// Sharpening of the regression reference after cross-validation tuned it: its k, leaf

@@ -863,6 +863,27 @@ grid = [1, 5, 15]
             || reading.contains("Variance exceeds bias+noise at every"),
         "{reading}"
     );
+    // A learning curve on the same table: its sentence reads bias+noise, never the bias's share
+    // ("bias is 89% of bias plus variance … a more flexible family would gain more" was read
+    // from the column that holds the noise).
+    let study = fs::read_to_string(dir_path.join("s.toml"))
+        .unwrap()
+        .replace("resample = \"half\"", "train_size = [40, 100]");
+    fs::write(dir_path.join("l.toml"), study).unwrap();
+    let o = run_in(&dir_path, &["run", "l.toml"]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let text = String::from_utf8_lossy(&o.stdout);
+    let reading = text
+        .lines()
+        .find(|l| l.starts_with("reading:"))
+        .expect("a reading line");
+    assert!(reading.contains("From 40 to 100 rows"), "{reading}");
+    assert!(!reading.contains("bias is "), "{reading}");
+    assert!(
+        !reading.contains("more flexible family would gain more"),
+        "{reading}"
+    );
+    assert!(!reading.contains("of bias plus variance"), "{reading}");
     // No term depends on an estimated noise here: every row says so.
     let doc: serde_json::Value =
         serde_json::from_str(&fs::read_to_string(dir_path.join("r.json")).unwrap()).unwrap();

@@ -119,8 +119,23 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
             each.join("; ")
         )
     } else {
+        // Several fits per training set: split into data and fit variance for the squared
+        // loss, pooled otherwise (the terminal's header says the same).
+        let seeds = match s.fit_seeds {
+            Some(n) if doc.term_docs().iter().any(|t| t.key == "variance_fit") => format!(
+                " Each training set is fitted {n} times with different fit seeds; the variance is \
+                 split into its data and fit parts."
+            ),
+            Some(n) => format!(
+                " Each training set is fitted {n} times with different fit seeds, and the {n} \
+                 fits are pooled (R·{n} predictions; the {} loss has no data/fit split of the \
+                 variance).",
+                doc.loss
+            ),
+            None => String::new(),
+        };
         format!(
-            "Model: the {} family, fitted at {} = {} ({} values{}).",
+            "Model: the {} family, fitted at {} = {} ({} values{}).{seeds}",
             doc.family,
             doc.knob,
             grid_words(&s.grid, &s.grid_kind),
@@ -375,11 +390,21 @@ fn table_words(
         ),
     ];
     if !estimates.is_empty() {
+        let se_known = doc
+            .noise_estimate
+            .as_ref()
+            .is_some_and(|n| n.stderr.is_some_and(f64::is_finite));
         out.push(format!(
             "Estimates: {} rest on an estimated noise and the observed responses, not on a \
-             known truth; the noise estimate's own standard error is given below, and the \
-             standard error of bias² (est.) includes it.",
-            estimates.join(", ")
+             known truth{}",
+            estimates.join(", "),
+            if se_known {
+                "; the noise estimate's own standard error is given below, and the standard \
+                 error of bias² (est.) includes it."
+            } else {
+                "; the noise estimate's own standard error could not be computed, so neither \
+                 can the standard error of bias² (est.)."
+            }
         ));
     }
     if let Some(n) = &doc.noise_estimate {

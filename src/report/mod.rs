@@ -1349,6 +1349,7 @@ fn rankings(plan: &Plan, outcome: &Outcome) -> Vec<Ranking> {
 
 /// Each family's learning curve, with the gain of the largest size read in a sentence.
 fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
+    let folded = noise_folded(plan, outcome);
     let nz = plan.sizes.len();
     // The responses' scale, squared (the truth or the observed responses at the evaluation
     // points): losses of fits exact to rounding are about 1e-32 of it.
@@ -1450,13 +1451,22 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                     ));
                 } else if !clear {
                     reading.push_str(&format!(
-                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of bias plus variance at {to} rows).",
-                        (100.0 * share).round()
+                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of {} plus variance at {to} rows).",
+                        (100.0 * share).round(),
+                        if folded { "bias+noise" } else { "bias" }
                     ));
                 } else if share >= 0.5 {
                     reading.push_str(&format!(
-                        "variance is {:.0}% of bias plus variance at {to} rows, so more data should keep lowering it.",
-                        (100.0 * share).round()
+                        "variance is {:.0}% of {} plus variance at {to} rows, so more data should keep lowering it.",
+                        (100.0 * share).round(),
+                        if folded { "bias+noise" } else { "bias" }
+                    ));
+                } else if folded {
+                    // bias+noise: how much of it is bias, which a more flexible family or more
+                    // data could remove, is not known on a table under this loss.
+                    reading.push_str(&format!(
+                        "bias+noise is {:.0}% of bias+noise plus variance at {to} rows; on a table the noise cannot be separated from the bias under this loss, so these numbers do not say whether a more flexible family would gain.",
+                        (100.0 * (1.0 - share)).round()
                     ));
                 } else if va != vb {
                     reading.push_str(&format!(
@@ -1488,6 +1498,18 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
         .collect()
 }
 
+/// Whether the bias term holds the noise too: a table under a loss whose noise is not
+/// estimated (`bias+noise`: the 0-1, log, Brier and Poisson losses; the squared loss estimates
+/// the noise and subtracts it).
+fn noise_folded(plan: &Plan, outcome: &Outcome) -> bool {
+    matches!(plan.source, Source::Table(_))
+        && !outcome
+            .summary()
+            .terms
+            .iter()
+            .any(|t| t.role == Role::Noise && reported(t, true))
+}
+
 /// Builds the result document of a finished run.
 pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     let model = plan.model();
@@ -1507,12 +1529,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         .find(|t| t.role == Role::Bias && t.group == Group::Main);
     let bias_key = bias_term.map(|t| t.key).unwrap_or("bias_sq");
     // A table under a loss whose noise is not estimated: the bias term holds the noise too.
-    let folded = matches!(plan.source, Source::Table(_))
-        && !outcome
-            .summary()
-            .terms
-            .iter()
-            .any(|t| t.role == Role::Noise && reported(t, true));
+    let folded = noise_folded(plan, outcome);
     let mut reading = reading(
         model.family.knob(),
         match bias_term {
@@ -1520,7 +1537,10 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             _ => plan.loss.bias_word(),
         },
         bias_key,
-        folded,
+        Fold {
+            folded,
+            additive: plan.loss.name() != "zero_one",
+        },
         &main_rows,
         &best,
     );
@@ -1594,7 +1614,8 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
     };
     let (mut table, mut noise_estimate, mut scheme_note) = (None, None, None);
     if let (Source::Table(tp), Some(run)) = (&plan.source, &outcome.prepared.table) {
-        if !folded {
+        // The folded reading says it itself; a study's ranking replaces it and does not.
+        if !folded || nm > 1 {
             reading.push_str(plan.loss.observed_note());
         }
         let (share, share_se) = outcome.held_share.unwrap_or((f64::NAN, f64::NAN));
@@ -2143,15 +2164,26 @@ fn runs(points: &[PointRow], pick: impl Fn(&PointRow) -> bool) -> String {
 /// called `bias_word`) dominates the variance, where the variance does, and where the lowest
 /// expected loss lies.
 ///
-/// `folded`: the bias term holds the noise too (a table under a loss whose noise is not
-/// estimated, `bias+noise`). Variance above it is above the bias alone, so variance dominance
-/// is still read; the term above the variance says nothing of the bias, so no bias dominance is
-/// claimed (a 0-1 table whose noise made most of `bias+noise` was called bias-dominated).
+/// How a table's bias term holds the noise ([`reading`]).
+#[derive(Debug, Clone, Copy)]
+pub struct Fold {
+    /// The bias term holds the noise too (a table under a loss whose noise is not estimated,
+    /// `bias+noise`): the term above the variance says nothing of the bias, so no bias
+    /// dominance is claimed (a 0-1 table whose noise made most of `bias+noise` was called
+    /// bias-dominated).
+    pub folded: bool,
+    /// The folded term is at least the bias (log, Brier, Poisson: noise + bias in
+    /// expectation), so variance above it is above the bias alone. Not for Domingos' 0-1
+    /// terms: where the majority is wrong the folded term averages p(y*), below that bias of 1.
+    pub additive: bool,
+}
+
+/// `fold`: see [`Fold`].
 pub fn reading(
     knob: &str,
     bias_word: &str,
     bias_key: &str,
-    folded: bool,
+    fold: Fold,
     points: &[PointRow],
     best: &Best,
 ) -> String {
@@ -2160,14 +2192,16 @@ pub fn reading(
     let n_bias = points.iter().filter(|p| bias_dominates(p)).count();
     let n_var = points.iter().filter(|p| variance_dominates(p)).count();
     let n_tie = points.len() - n_bias - n_var;
-    let mut out = if folded {
+    let mut out = if fold.folded {
         let cannot = "on a table the noise cannot be separated from the bias under this loss, so \
                       this does not show that the family underfits";
-        if n_var == points.len() {
+        if n_var == points.len() && fold.additive {
             format!(
                 "Variance exceeds {bias_word} at every {knob} tried, so it exceeds the bias alone \
                  too: the whole grid lies on the variance-dominated side."
             )
+        } else if n_var == points.len() {
+            format!("Variance exceeds {bias_word} at every {knob} tried.")
         } else if n_var == 0 {
             format!(
                 "{} is at least the variance at every {knob} tried; {cannot}.",
@@ -2175,9 +2209,14 @@ pub fn reading(
             )
         } else {
             format!(
-                "Variance dominates at {knob} {} (it exceeds {bias_word}, so the bias alone too); \
-                 at {knob} {} {bias_word} is at least the variance, and {cannot}.",
+                "Variance exceeds {bias_word} at {knob} {}{}; at {knob} {} {bias_word} is at \
+                 least the variance, and {cannot}.",
                 runs(points, variance_dominates),
+                if fold.additive {
+                    " (so the bias alone too: variance dominates there)"
+                } else {
+                    ""
+                },
                 runs(points, |p| !variance_dominates(p))
             )
         }

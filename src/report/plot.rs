@@ -765,8 +765,12 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         let hi = chart.backend_coord(&(x1, y1)).0;
         let mut right_edge = i32::MIN;
         for (a, b) in runs {
+            // Domingos' folded term can be below the bias (where the majority is wrong), so
+            // for the 0-1 loss variance above it says nothing of which side dominates.
             let text = if bias_dom(a) && folded {
                 "bias+noise above variance"
+            } else if folded && doc.loss == "zero_one" {
+                "variance above bias+noise"
             } else if bias_dom(a) {
                 "bias-dominated"
             } else {

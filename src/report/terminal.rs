@@ -162,7 +162,13 @@ fn cell(p: &PointRow, t: &TermDoc, tight: bool) -> String {
     if !p.has(&t.key) {
         return "n/a".into();
     }
-    let se = if t.stderr { p.se(&t.key) } else { None };
+    // A noise known exactly (the Kohavi–Wolpert noise of a synthetic source) has a standard
+    // error of 0: shown bare, as `noise (Bayes)` is, rather than as `± 0.00`.
+    let se = match (t.stderr, p.se(&t.key)) {
+        (true, Some(s)) if t.role == "noise" && s == 0.0 => None,
+        (true, s) => s,
+        (false, _) => None,
+    };
     let v = p.get(&t.key);
     let c = if t.count && v.is_finite() && v.fract() == 0.0 && v.abs() < 1e15 {
         format!("{}", v as i64)
@@ -190,17 +196,17 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
         .collect();
     // What the ± covers on a table: the resampling of this one table, nothing beyond it.
     let scope = if doc.table.is_some() {
-        "; on a table, the Monte Carlo error of resampling this one table, not the uncertainty of a model's error on new data from its process"
+        ", on a table the Monte Carlo error of resampling this one table, not the uncertainty of a model's error on new data from its process"
     } else {
         ""
     };
     if boot.is_empty() {
         s.push_str(&format!(
-            "; ± one standard error (jackknife over replicate blocks{scope}); * lowest expected loss.\n",
+            "; ± one standard error (jackknife over replicate blocks){scope}; * lowest expected loss.\n",
         ));
     } else {
         s.push_str(&format!(
-            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction{scope}); * lowest expected loss.\n",
+            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction){scope}; * lowest expected loss.\n",
             boot.join(", ")
         ));
     }
@@ -533,13 +539,25 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
         let sentence = super::selection::sentence(sel, &doc.knob, &doc.scenario.grid);
         out.push_str(&format!("selection: {sentence}\n"));
     }
-    if let Some(n) = doc.scenario.twin.as_ref().and_then(|t| t.noise.as_ref()) {
+    if let Some((t, n)) = doc
+        .scenario
+        .twin
+        .as_ref()
+        .and_then(|t| t.noise.as_ref().map(|n| (t, n)))
+    {
+        let what = if t.varying_noise {
+            format!(
+                "σ²(x) varies with x, its level scaled so that the estimator reads σ̂² = {} ± {}",
+                fmt_num(n.value),
+                fmt_se(n.stderr)
+            )
+        } else {
+            format!("σ² = {} ± {}", fmt_num(n.value), fmt_se(n.stderr))
+        };
         out.push_str(&format!(
-            "twin noise: σ² = {} ± {}, estimated from the table by `lossprism twin` ({}) and fixed in \
+            "twin noise: {what}, estimated from the table by `lossprism twin` ({}) and fixed in \
              the twin: exact within it, so the ± above do not include its error, which would move \
              every expected loss up or down together\n",
-            fmt_num(n.value),
-            fmt_se(n.stderr),
             n.method
         ));
     }

@@ -95,6 +95,30 @@ impl BuildError {
     }
 }
 
+/// Why a reference of `choice` on `rows` × `p` cannot be fitted in `avail` bytes: its
+/// [`fitted_bytes`](crate::dgp::reference::fitted_bytes) above half of them (the run needs the
+/// rest), in words; `None` when it fits or the memory is unknown.
+pub fn memory_problem(
+    choice: &Choice,
+    rows: usize,
+    p: usize,
+    classes: usize,
+    avail: Option<u64>,
+) -> Option<String> {
+    let need = crate::dgp::reference::fitted_bytes(choice, rows, p, classes);
+    let avail = avail?;
+    (need > avail as f64 / 2.0).then(|| {
+        format!(
+            "the reference would take about {} fitted on {rows} rows ({}), more than half of the \
+             {} of memory available: a recipe with fewer `trees` or a larger `min_leaf` (or, for \
+             `lossprism twin`, a smaller table or `--reference` of another candidate) fits",
+            crate::fmt::fmt_bytes(need),
+            describe_size(choice),
+            crate::fmt::fmt_bytes(avail as f64)
+        )
+    })
+}
+
 /// The parts of a recipe that set its size, in words (`10000 trees, min_leaf = 1, twiced`).
 fn describe_size(c: &Choice) -> String {
     let mut parts = Vec::new();
@@ -123,18 +147,14 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
     let varying = matches!(spec.noise, Some(TwinNoise::Varying { .. }));
     // Before the fit allocates: a recipe (edited by hand, say, to 10 000 trees) must fit in the
     // memory available, with the run beside it.
-    let need = crate::dgp::reference::fitted_bytes(&spec.choice, t.rows(), t.x.ncols(), classes);
-    if let Some(avail) = crate::codec::available_memory() {
-        if need > avail as f64 / 2.0 {
-            return Err(BuildError::Reference(format!(
-                "the reference would take about {} fitted on {} rows ({}), more than half of \
-                 the {} of memory available; use fewer `trees` or a larger `min_leaf`",
-                crate::fmt::fmt_bytes(need),
-                t.rows(),
-                describe_size(&spec.choice),
-                crate::fmt::fmt_bytes(avail as f64)
-            )));
-        }
+    if let Some(m) = memory_problem(
+        &spec.choice,
+        t.rows(),
+        t.x.ncols(),
+        classes,
+        crate::codec::available_memory(),
+    ) {
+        return Err(BuildError::Reference(m));
     }
     let mut fitted_ref = Reference::fit(
         t.x.view(),

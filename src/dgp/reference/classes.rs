@@ -330,6 +330,13 @@ pub struct ProbTree {
     classes: usize,
 }
 
+impl ProbTree {
+    /// Nodes held by the tree (what [`super::fitted_bytes`] bounds).
+    pub fn nodes(&self) -> usize {
+        self.tree.n_nodes()
+    }
+}
+
 /// The tree family the probability tree grows with.
 fn tree_family(min_leaf: usize) -> TreeFamily {
     TreeFamily {

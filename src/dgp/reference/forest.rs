@@ -87,6 +87,11 @@ fn grow(
 }
 
 impl Forest {
+    /// Nodes held by all its trees (what [`super::fitted_bytes`] bounds).
+    pub fn nodes(&self) -> usize {
+        self.trees.iter().map(Tree::n_nodes).sum()
+    }
+
     /// Grows the forest of `params` on rows `x` and responses `y`.
     pub fn fit(x: ArrayView2<'_, f64>, y: &[f64], params: ForestParams) -> Forest {
         let n = y.len();

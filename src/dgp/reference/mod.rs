@@ -503,14 +503,18 @@ impl std::fmt::Debug for Reference {
 pub fn fitted_bytes(choice: &Choice, n: usize, p: usize, classes: usize) -> f64 {
     let (nf, pf, kf) = (n as f64, p as f64, classes as f64);
     let node = 24.0 + 4.0 * kf;
-    let nodes = |min_leaf: usize| 2.0 * (nf / min_leaf.max(1) as f64).min(0.64 * nf + 1.0) + 1.0;
+    // Leaves: at most one per `min_leaf` samples and one per distinct row (a bootstrap sample
+    // holds about 63.2% of them; the probability tree grows on the whole table).
+    let nodes = |min_leaf: usize, distinct: f64| {
+        2.0 * (nf / min_leaf.max(1) as f64).min(distinct * nf + 1.0) + 1.0
+    };
     let w = choice.weights;
     let forest = match choice.forest {
-        Some(f) if w[1] > 0.0 => f.trees as f64 * nodes(f.min_leaf) * node,
+        Some(f) if w[1] > 0.0 => f.trees as f64 * nodes(f.min_leaf, 0.64) * node,
         _ => 0.0,
     };
     let tree = choice.tree.map_or(0.0, |t| {
-        nodes(t.min_leaf).min(2f64.powi(t.depth.min(60) as i32 + 1)) * node
+        nodes(t.min_leaf, 1.0).min(2f64.powi(t.depth.min(60) as i32 + 1)) * node
     });
     let tables = 4.0 * 8.0 * nf * (pf + 2.0);
     let once = forest + tree + tables;
@@ -522,6 +526,14 @@ pub fn fitted_bytes(choice: &Choice, n: usize, p: usize, classes: usize) -> f64 
 }
 
 impl Reference {
+    /// Tree nodes the fitted reference holds (its forest's and its probability tree's, the
+    /// twiced second stage's included): what [`fitted_bytes`] bounds at 24 bytes a node.
+    pub fn tree_nodes(&self) -> usize {
+        self.forest.as_ref().map_or(0, Forest::nodes)
+            + self.ptree.as_ref().map_or(0, classes::ProbTree::nodes)
+            + self.second.as_ref().map_or(0, |r| r.tree_nodes())
+    }
+
     /// Fits the reference of `choice` on a table's inputs and response (class indices for
     /// `classes > 0`, which use the k-NN part). With `varying`, also computes the smoothed
     /// squared residuals for σ²(x) (regression; needs the recipe's k). Errors when the recipe

@@ -162,7 +162,10 @@ fn population_variance(y: &[f64]) -> f64 {
 /// them. Weights that sum to one are the super learner's convex combination (van der Laan,
 /// Polley and Hubbard 2007, *Statistical Applications in Genetics and Molecular Biology* 6:25;
 /// from memory); Breiman's stacked regressions (1996) found the non-negative weights summing to
-/// about one anyway. A ridge of `1e-10 ×` the mean diagonal of the differences keeps nearly
+/// about one anyway. Fitting the weights on the response and candidates centred on the
+/// response's mean (shift-invariant too, the sum left free) was measured beside it and not
+/// kept: the recorded weights would then need the centre in every blend, moving twins written
+/// before, for no resolved gain (docs/twin-calibration.md §0.12). A ridge of `1e-10 ×` the mean diagonal of the differences keeps nearly
 /// collinear columns solvable. Ties keep the subset enumerated first.
 pub fn convex_weights(cols: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
     let k = cols.len();
@@ -436,7 +439,8 @@ fn pick(rule: Rule, r2: &[(f64, f64); 5]) -> Candidate {
             chosen
         };
     if chosen == Candidate::Blend && r2[4].0.is_nan() {
-        // No blend (every weight 0): the best single candidate (not the polynomial, which
+        // No blend (every weight 0, only with non-finite held-out predictions since the weights
+        // sum to one): the best single candidate (not the polynomial, which
         // only `choose`'s bar or a forced rule picks).
         let mut single = *r2;
         single[3] = (f64::NAN, f64::NAN);
@@ -714,7 +718,7 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             r2: r2[4].0,
             se: r2[4].1,
             tuned: if t.weights.iter().all(|v| *v == 0.0) {
-                "every weight 0: no mix of the others predicts better than 0".to_string()
+                "not fitted: the candidates' held-out predictions are not all finite".to_string()
             } else {
                 fmt_w(&t.weights)
             },
