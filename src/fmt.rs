@@ -93,6 +93,12 @@ pub fn clip(s: &str, max: usize) -> String {
     format!("{}… ({n} characters)", one_line(&head))
 }
 
+/// A share as a whole percentage, halves rounded up (`0.125` → `13%`; formatting `12.5` with
+/// `{:.0}` rounds half to even and printed 12% beside 28% for 0.275).
+pub fn fmt_percent(share: f64) -> String {
+    format!("{:.0}%", (100.0 * share).round())
+}
+
 /// Bytes as `12.3 MiB`.
 pub fn fmt_bytes(b: f64) -> String {
     const UNITS: [&str; 6] = ["bytes", "KiB", "MiB", "GiB", "TiB", "PiB"];

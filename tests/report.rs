@@ -922,6 +922,13 @@ fn html_words_say_what_a_table_and_a_twin_run_did() {
         assert!(!t.contains(wrong), "`{wrong}` in: {t}");
     }
     assert!(page.contains("resampled training sets") && page.contains("What was resampled"));
+    // The HTML table marks the best row "lowest" in a column of its own, not with `*`: its
+    // legend says so (a legend taken from the terminal's promised a `*` no row carried).
+    assert!(
+        page.contains("&quot;lowest&quot; marks the lowest expected loss")
+            && !page.contains("* lowest expected loss"),
+        "legend"
+    );
     assert!(!page.contains("simulated training sets"));
     let (w, _) = words("cold-store-twin.toml");
     for needle in [

@@ -274,6 +274,14 @@ pub trait Loss: Send + Sync {
     /// The sentence a reading adds on a table (what the bias means there).
     fn observed_note(&self) -> &'static str;
 
+    /// On a table whose noise this loss folds into the bias (`bias+noise`), whether that term
+    /// is at least the bias, so that variance above it is above the bias alone (log, Brier,
+    /// Poisson: noise + bias in expectation). Not for Domingos' 0-1 terms: where the majority
+    /// is wrong the folded term averages p(y*), below that point's bias of 1.
+    fn folded_covers_bias(&self) -> bool {
+        true
+    }
+
     /// Whether the loss needs class probabilities from the family.
     fn needs_probs(&self) -> bool {
         false

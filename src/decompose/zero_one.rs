@@ -520,6 +520,10 @@ impl Loss for ZeroOne {
         "Bias (Domingos)"
     }
 
+    fn folded_covers_bias(&self) -> bool {
+        false
+    }
+
     fn observed_note(&self) -> &'static str {
         " (On a table, the bias is measured against the observed labels, noise included.)"
     }

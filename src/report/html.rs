@@ -121,12 +121,12 @@ pub fn scenario_words(doc: &ResultDoc) -> Vec<String> {
     } else {
         // Several fits per training set: split into data and fit variance for the squared
         // loss, pooled otherwise (the terminal's header says the same).
-        let seeds = match s.fit_seeds {
-            Some(n) if doc.term_docs().iter().any(|t| t.key == "variance_fit") => format!(
+        let seeds = match doc.fit_seeds_split() {
+            Some((n, true)) => format!(
                 " Each training set is fitted {n} times with different fit seeds; the variance is \
                  split into its data and fit parts."
             ),
-            Some(n) => format!(
+            Some((n, false)) => format!(
                 " Each training set is fitted {n} times with different fit seeds, and the {n} \
                  fits are pooled (R·{n} predictions; the {} loss has no data/fit split of the \
                  variance).",
@@ -775,7 +775,7 @@ pub fn render(
         h.push_str("<dl class=\"facts\" id=\"selection-audit\">\n");
         let pct = |v: f64| {
             if v.is_finite() {
-                format!("{:.0}%", (100.0 * v).round())
+                crate::fmt::fmt_percent(v)
             } else {
                 "n/a".into()
             }
@@ -877,7 +877,7 @@ pub fn render(
         "</tbody>\n</table></div>\n<p class=\"legend\">{}</p>",
         // The HTML table marks the best row "lowest" in its last column, not with `*`.
         e(&legend.trim_start_matches("legend: ").replace(
-            "; * lowest expected loss.",
+            terminal::BEST_MARK,
             "; \"lowest\" marks the lowest expected loss."
         ))
     );

@@ -700,6 +700,19 @@ impl ResultDoc {
         Ok(())
     }
 
+    /// Whether the bias term holds the noise too: a table whose loss estimates no noise (the
+    /// document's view of the rule `build` applies to a finished run).
+    pub fn noise_folded(&self) -> bool {
+        self.table.is_some() && !self.term_docs().iter().any(|t| t.role == "noise")
+    }
+
+    /// Several fits per training set: their number, and whether the variance is split into its
+    /// data and fit parts (the squared loss) rather than the fits pooled (the others).
+    pub fn fit_seeds_split(&self) -> Option<(usize, bool)> {
+        let n = self.scenario.fit_seeds?;
+        Some((n, self.term_docs().iter().any(|t| t.key == "variance_fit")))
+    }
+
     /// The description of the terms: the document's own, or (documents written before it was
     /// recorded) the loss's.
     pub fn term_docs(&self) -> Vec<TermDoc> {
@@ -1451,32 +1464,32 @@ fn learning(plan: &Plan, outcome: &Outcome) -> Vec<LearningCurve> {
                     ));
                 } else if !clear {
                     reading.push_str(&format!(
-                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {:.0}% of {} plus variance at {to} rows).",
-                        (100.0 * share).round(),
+                        "that is within 2 standard errors, so no gain from more data is visible at this precision (variance is {} of {} plus variance at {to} rows).",
+                        crate::fmt::fmt_percent(share),
                         if folded { "bias+noise" } else { "bias" }
                     ));
                 } else if share >= 0.5 {
                     reading.push_str(&format!(
-                        "variance is {:.0}% of {} plus variance at {to} rows, so more data should keep lowering it.",
-                        (100.0 * share).round(),
+                        "variance is {} of {} plus variance at {to} rows, so more data should keep lowering it.",
+                        crate::fmt::fmt_percent(share),
                         if folded { "bias+noise" } else { "bias" }
                     ));
                 } else if folded {
                     // bias+noise: how much of it is bias, which a more flexible family or more
                     // data could remove, is not known on a table under this loss.
                     reading.push_str(&format!(
-                        "bias+noise is {:.0}% of bias+noise plus variance at {to} rows; on a table the noise cannot be separated from the bias under this loss, so these numbers do not say whether a more flexible family would gain.",
-                        (100.0 * (1.0 - share)).round()
+                        "bias+noise is {} of bias+noise plus variance at {to} rows; on a table the noise cannot be separated from the bias under this loss, so these numbers do not say whether a more flexible family would gain.",
+                        crate::fmt::fmt_percent(1.0 - share)
                     ));
                 } else if va != vb {
                     reading.push_str(&format!(
-                        "bias is {:.0}% of bias plus variance at {to} rows: more data still helps, mostly by allowing a different {knob}.",
-                        (100.0 * (1.0 - share)).round()
+                        "bias is {} of bias plus variance at {to} rows: more data still helps, mostly by allowing a different {knob}.",
+                        crate::fmt::fmt_percent(1.0 - share)
                     ));
                 } else {
                     reading.push_str(&format!(
-                        "bias is {:.0}% of bias plus variance at {to} rows and more data does not change the best {knob}, so a more flexible family would gain more than more data.",
-                        (100.0 * (1.0 - share)).round()
+                        "bias is {} of bias plus variance at {to} rows and more data does not change the best {knob}, so a more flexible family would gain more than more data.",
+                        crate::fmt::fmt_percent(1.0 - share)
                     ));
                 }
                 Gain {
@@ -1539,7 +1552,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         bias_key,
         Fold {
             folded,
-            additive: plan.loss.name() != "zero_one",
+            additive: plan.loss.folded_covers_bias(),
         },
         &main_rows,
         &best,
@@ -1998,12 +2011,12 @@ pub fn heavy_tail_words(doc: &ResultDoc) -> Option<String> {
         String::new()
     };
     Some(format!(
-        "Heavy tail: at {}{more}, one of the {b} replicate blocks carries up to {:.0}% of the \
+        "Heavy tail: at {}{more}, one of the {b} replicate blocks carries up to {} of the \
          spread behind the standard error, so a few replicates dominate those terms and their \
          standard errors are not reliable at this number of replicates (if the predictions' \
          tail has no finite variance, more replicates will not settle them).",
         shown.join("; "),
-        (100.0 * worst).round()
+        crate::fmt::fmt_percent(worst)
     ))
 }
 
@@ -2172,9 +2185,8 @@ pub struct Fold {
     /// dominance is claimed (a 0-1 table whose noise made most of `bias+noise` was called
     /// bias-dominated).
     pub folded: bool,
-    /// The folded term is at least the bias (log, Brier, Poisson: noise + bias in
-    /// expectation), so variance above it is above the bias alone. Not for Domingos' 0-1
-    /// terms: where the majority is wrong the folded term averages p(y*), below that bias of 1.
+    /// The folded term is at least the bias, so variance above it is above the bias alone
+    /// ([`crate::decompose::Loss::folded_covers_bias`]).
     pub additive: bool,
 }
 
@@ -2327,7 +2339,7 @@ pub fn split_reading(knob: &str, points: &[PointRow], best: &Best) -> Option<Str
             return None;
         }
         let fit = (vf / v).clamp(0.0, 1.0);
-        let pct = |x: f64| format!("{:.0}%", (100.0 * x).round());
+        let pct = crate::fmt::fmt_percent;
         Some(if fit >= 0.5 {
             format!(
                 "mostly the learner's own randomness ({} var (fit), the spread across fit seeds on one training set)",

@@ -744,7 +744,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         // overlap the previous one is left out).
         // A table under a loss whose noise is not estimated draws bias+noise: only where the
         // variance is above it is a side known (the variance is then above the bias alone).
-        let folded = doc.table.is_some() && !doc.term_docs().iter().any(|t| t.role == "noise");
+        let folded = doc.noise_folded();
         let bias_dom = |i: usize| series[1].values[i] > series[2].values[i];
         let bias_dom = |i: usize| {
             if folded {
@@ -765,11 +765,13 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
         let hi = chart.backend_coord(&(x1, y1)).0;
         let mut right_edge = i32::MIN;
         for (a, b) in runs {
-            // Domingos' folded term can be below the bias (where the majority is wrong), so
-            // for the 0-1 loss variance above it says nothing of which side dominates.
+            // A folded term that can be below the bias (Domingos', where the majority is wrong):
+            // variance above it says nothing of which side dominates.
             let text = if bias_dom(a) && folded {
                 "bias+noise above variance"
-            } else if folded && doc.loss == "zero_one" {
+            } else if folded
+                && crate::decompose::by_name(&doc.loss).is_some_and(|l| !l.folded_covers_bias())
+            {
                 "variance above bias+noise"
             } else if bias_dom(a) {
                 "bias-dominated"

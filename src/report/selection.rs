@@ -175,13 +175,13 @@ pub fn sentence(s: &Selection, knob: &str, grid: &[f64]) -> String {
     let each = if tied.len() > 1 { " each" } else { "" };
     format!(
         "{}-fold cross-validation ({} rule) chose {chosen} most often ({} of {total} replicates{each}); \
-         the oracle best is {oracle} (chosen in {:.0}%); {:.0}% of choices are within one standard error of it; \
+         the oracle best is {oracle} (chosen in {}); {} of choices are within one standard error of it; \
          excess loss over the oracle: mean {}, 90% quantile {}.",
         s.folds,
         s.rule,
         top,
-        (100.0 * s.share_oracle).round(),
-        (100.0 * s.share_within_one_se).round(),
+        crate::fmt::fmt_percent(s.share_oracle),
+        crate::fmt::fmt_percent(s.share_within_one_se),
         fmt_num(s.mean_excess_loss),
         fmt_num(s.q90_excess_loss)
     )

@@ -182,6 +182,10 @@ fn cell(p: &PointRow, t: &TermDoc, tight: bool) -> String {
     }
 }
 
+/// The legend's last words, on the `*` that marks the best row (the HTML table marks it
+/// "lowest" and rewrites them).
+pub const BEST_MARK: &str = "; * lowest expected loss.";
+
 fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
     let mut s = String::from("legend: ");
     let parts: Vec<String> = terms
@@ -202,11 +206,11 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
     };
     if boot.is_empty() {
         s.push_str(&format!(
-            "; ± one standard error (jackknife over replicate blocks){scope}; * lowest expected loss.\n",
+            "; ± one standard error (jackknife over replicate blocks){scope}{BEST_MARK}\n",
         ));
     } else {
         s.push_str(&format!(
-            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction){scope}; * lowest expected loss.\n",
+            "; ± one standard error (jackknife over replicate blocks; for {}: bootstrap over replicate blocks, as they jump with the main prediction){scope}{BEST_MARK}\n",
             boot.join(", ")
         ));
     }
@@ -395,11 +399,9 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
     // Several fits per training set: the squared loss splits the variance into data and fit
     // parts; the other losses pool the fits (a 0-1 loss's R·S fits all vote), which said
     // nothing before.
-    let seeds = match doc.scenario.fit_seeds {
-        Some(s) if doc.term_docs().iter().any(|t| t.key == "variance_fit") => {
-            format!(" · {s} fits per training set")
-        }
-        Some(s) => format!(
+    let seeds = match doc.fit_seeds_split() {
+        Some((s, true)) => format!(" · {s} fits per training set"),
+        Some((s, false)) => format!(
             " · {s} fits per training set, pooled (R·{s} predictions; no data/fit split of the \
              variance for this loss)"
         ),

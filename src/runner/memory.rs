@@ -21,6 +21,7 @@
 //! term and the override flag; a machine whose memory cannot be read is not checked.
 
 use crate::error::Error;
+pub use crate::fmt::fmt_bytes;
 use crate::scenario::{Design, Plan, Source};
 
 /// Bytes the program itself needs besides the run (code, thread stacks, buffers).
@@ -83,8 +84,6 @@ impl Estimate {
         )
     }
 }
-
-pub use crate::fmt::fmt_bytes;
 
 /// Parses a memory size: bytes (`1000000`) or with a unit `K`, `M`, `G`, `T` (powers of 1024,
 /// an optional `iB`/`B` after it): `512M`, `16G`, `1.5GiB`.

@@ -23,8 +23,9 @@
 //!   Breiman 1996, "Stacked regressions", *Machine Learning* 24:49–64): non-negative weights
 //!   summing to one, no intercept, minimizing `‖y − Σ_j w_j p_j‖²` over the candidates'
 //!   held-out predictions p_j (k-NN and local-linear out-of-fold, forest out-of-bag), exactly
-//!   ([`convex_weights`]; the sum makes them the same when a constant is added to y). The blend's own CV R² refits the weights without fold f and applies
-//!   them to fold f; the level-one predictions are reused, a small optimism stated here.
+//!   ([`convex_weights`]; the sum makes them the same when a constant is added to y). The
+//!   blend's own CV R² refits the weights without fold f and applies them to fold f; the
+//!   level-one predictions are reused, a small optimism stated here.
 //!
 //! CV R² = 1 − (mean held-out squared error) / (population variance of y); its standard error
 //! is the standard deviation of the held-out squared errors over √n, divided by the variance.
@@ -165,8 +166,9 @@ fn population_variance(y: &[f64]) -> f64 {
 /// about one anyway. Fitting the weights on the response and candidates centred on the
 /// response's mean (shift-invariant too, the sum left free) was measured beside it and not
 /// kept: the recorded weights would then need the centre in every blend, moving twins written
-/// before, for no resolved gain (docs/twin-calibration.md §0.12). A ridge of `1e-10 ×` the mean diagonal of the differences keeps nearly
-/// collinear columns solvable. Ties keep the subset enumerated first.
+/// before, for no resolved gain (docs/twin-calibration.md §0.12). A ridge of `1e-10 ×` the
+/// mean diagonal of the differences keeps nearly collinear columns solvable. Ties keep the
+/// subset enumerated first.
 pub fn convex_weights(cols: &[Vec<f64>], y: &[f64]) -> Vec<f64> {
     let k = cols.len();
     assert!((1..=8).contains(&k), "convex_weights takes 1 to 8 columns");
