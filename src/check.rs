@@ -466,17 +466,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
         let Some(info) = crate::family::catalogue().iter().find(|f| f.name == family) else {
             continue;
         };
-        if info.knob.starts_with('(') {
-            continue;
-        }
-        // The forest's knob is its tree count, or their depth with `knob = "max_depth"`.
-        let alt = (family == "forest").then_some("max_depth");
-        if knob != info.knob && Some(knob) != alt {
+        if !info.owns_knob(knob) {
             return Err(format!(
-                "`knob` is `{}`, but the `{family}` family's knob is `{}`{}; {EDITED}",
+                "`knob` is `{}`, but the `{family}` family's knob is {}; {EDITED}",
                 crate::fmt::clip(knob, 40),
-                info.knob,
-                alt.map(|a| format!(" or `{a}`")).unwrap_or_default()
+                info.knob_names()
             ));
         }
     }

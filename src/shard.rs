@@ -1101,6 +1101,7 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
         replicates: Some(first.replicates),
         seed: Some(first.seed),
         eval_seed: first.eval_seed,
+        memory_limit,
     };
     let plan = source.plan(&opts).map_err(|e| {
         // The scenario's files are read again, relative to where the shards ran.

@@ -51,6 +51,7 @@ fn run(fam: NadarayaWatson, text: &str, seed: Option<u64>) -> lossprism::report:
         seed,
         replicates: None,
         eval_seed: None,
+        memory_limit: None,
     };
     harness::run_with_family_opts(text, Arc::new(fam), &opts, 2).expect("run succeeds")
 }

@@ -59,6 +59,7 @@ fn knn(seed: u64, eval_seed: Option<u64>) -> ResultDoc {
         seed: Some(seed),
         replicates: None,
         eval_seed,
+        memory_limit: None,
     };
     let plan = Plan::from_spec(&spec, KNN, "tiny-knn.toml", Path::new("."), &opts).expect("plans");
     let out = runner::run(&plan, 1).expect("runs");

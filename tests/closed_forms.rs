@@ -296,6 +296,7 @@ fn check_poly_fixed(label: &str, src: &str, sigma: f64, coefs: &dyn Fn(usize) ->
             seed: Some(plan.seed + 1 + s),
             replicates: Some(BIAS_R),
             eval_seed: None,
+            memory_limit: None,
         };
         let (_, o) = run_text(src, &opts);
         for (g, v) in b2.iter_mut().enumerate() {
@@ -690,6 +691,7 @@ grid = [1]
             seed: Some(1000 + s),
             replicates: Some(r),
             eval_seed: None,
+            memory_limit: None,
         };
         let plan =
             Plan::from_spec(&spec, &src, "inline.toml", Path::new("."), &opts).expect("plans");
@@ -754,6 +756,7 @@ grid = [0]
         seed: Some(seed),
         replicates: Some(replicates),
         eval_seed: None,
+        memory_limit: None,
     };
     let (_, out) = run_text(src, &opts);
     let t = &sq(&out).terms[0];

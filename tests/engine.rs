@@ -479,3 +479,55 @@ fn range_grids_with_decimal_steps_give_decimal_values() {
     // The user's own `from` is kept as written (a value near 0 is not snapped to 0).
     assert_eq!(grid("{ from = 1e-10, to = 3, step = 1 }")[0], 1e-10);
 }
+
+/// [`HalfTree`] under another name, to test names that collide with built-in families.
+struct Named(&'static str, &'static str);
+
+impl Family for Named {
+    fn name(&self) -> &'static str {
+        self.0
+    }
+    fn knob(&self) -> &'static str {
+        self.1
+    }
+    fn check_grid(&self, grid: &[f64], n: usize, p: usize) -> Result<(), String> {
+        HalfTree.check_grid(grid, n, p)
+    }
+    fn supports(&self, task: Task) -> bool {
+        HalfTree.supports(task)
+    }
+    fn caps(&self, task: Task) -> lossprism::family::Caps {
+        HalfTree.caps(task)
+    }
+    fn fit_predict(
+        &self,
+        input: &FitInput<'_>,
+        grid: &[f64],
+        out: Out<'_>,
+    ) -> Result<(), FitError> {
+        HalfTree.fit_predict(input, grid, out)
+    }
+}
+
+#[test]
+fn an_estimator_named_like_a_built_in_family_keeps_its_knob_or_is_refused_when_planned() {
+    let opts = PlanOptions::default();
+    // `check` and `plot` hold a built-in family's name to its knob, so such a document would be
+    // refused after the run; the plan refuses it first, naming the key.
+    let e = match harness::plan_with_family(TOY, Arc::new(Named("knn", "max_depth")), &opts) {
+        Ok(_) => panic!("a `knn` estimator with the knob `max_depth` was planned"),
+        Err(e) => e.to_string(),
+    };
+    assert!(
+        e.contains("model.family") && e.contains("`knn`") && e.contains("`k`"),
+        "{e}"
+    );
+    // The same name with the built-in's knob runs, and its document passes `check`'s rules.
+    let doc =
+        harness::run_with_family_opts(TOY, Arc::new(Named("tree", "max_depth")), &opts, 1).unwrap();
+    lossprism::check::validate(&doc).unwrap();
+    // So does a name of its own.
+    let doc = harness::run_with_family_opts(TOY, Arc::new(Named("half_tree", "depth")), &opts, 1)
+        .unwrap();
+    lossprism::check::validate(&doc).unwrap();
+}

@@ -884,6 +884,7 @@ fn html_words_say_what_a_table_and_a_twin_run_did() {
         replicates: Some(12),
         seed: None,
         eval_seed: None,
+        memory_limit: None,
     };
     let words = |name: &str| {
         let plan = scenario::load(&root.join(name), &opts).expect("plans");

@@ -48,8 +48,7 @@ fn load(path: &Path) -> Plan {
 fn load_at(path: &Path, replicates: u64) -> Plan {
     let opts = PlanOptions {
         replicates: Some(replicates),
-        seed: None,
-        eval_seed: None,
+        ..PlanOptions::default()
     };
     scenario::load(path, &opts).expect("plans")
 }
@@ -2262,7 +2261,8 @@ fn a_reference_too_large_for_memory_is_refused_before_it_is_fitted() {
     let shipped = sp.process.reference().expect("a reference").choice.clone();
     let gib = 1u64 << 30;
     let problem = lossprism::scenario::twin::memory_problem;
-    assert_eq!(problem(&shipped, 300, 4, 0, Some(16 * gib)), None);
+    assert_eq!(problem(&shipped, 300, 4, 0, Some(16 * gib), None), None);
+    assert_eq!(problem(&shipped, 300, 4, 0, None, Some(10 << 20)), None);
     let huge = reference::Choice {
         forest: Some(reference::ForestParams {
             trees: 10_000,
@@ -2273,11 +2273,53 @@ fn a_reference_too_large_for_memory_is_refused_before_it_is_fitted() {
         twice: false,
         ..shipped
     };
-    let m = problem(&huge, 100_000, 4, 0, Some(16 * gib)).expect("refused");
+    let m = problem(&huge, 100_000, 4, 0, Some(16 * gib), None).expect("refused");
     assert!(
         m.contains("10000 trees, min_leaf = 1") && m.contains("more than half of the 16.0 GiB"),
         "{m}"
     );
-    assert_eq!(problem(&huge, 100_000, 4, 0, None), None);
-    assert_eq!(problem(&huge, 1_000, 4, 0, Some(16 * gib)), None);
+    assert_eq!(problem(&huge, 100_000, 4, 0, None, None), None);
+    assert_eq!(problem(&huge, 1_000, 4, 0, Some(16 * gib), None), None);
+    // `--memory-limit` is compared before the fit too: 10 000 trees on 1 000 rows fit in 16 GiB
+    // but not in 10 MiB.
+    let m = problem(&huge, 1_000, 4, 0, Some(16 * gib), Some(10 << 20)).expect("refused");
+    assert!(m.contains("--memory-limit of 10.0 MiB"), "{m}");
+}
+
+/// `--memory-limit` is compared with a twin's reference before the reference is fitted: a
+/// recipe edited to 10 000 trees of leaves of one row (about 177 MiB by `fitted_bytes`) is
+/// refused under 64 MiB by `run` and `validate`, naming the key, with no fit made.
+#[test]
+fn memory_limit_refuses_a_large_reference_before_fitting_it() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    std::fs::create_dir(d.join("data")).unwrap();
+    std::fs::copy(
+        root.join("scenarios/data/cold-store.csv"),
+        d.join("data/cold-store.csv"),
+    )
+    .unwrap();
+    let text = std::fs::read_to_string(root.join("scenarios/cold-store-twin.toml")).unwrap();
+    assert!(text.contains("trees = 100,") && text.contains("min_leaf = 4"));
+    let edited = text
+        .replace("trees = 100,", "trees = 10000,")
+        .replace("min_leaf = 4", "min_leaf = 1");
+    std::fs::write(d.join("t.toml"), edited).unwrap();
+    for cmd in ["run", "validate"] {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+            .current_dir(d)
+            .args([cmd, "t.toml", "--memory-limit", "64M"])
+            .output()
+            .unwrap();
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert_eq!(out.status.code(), Some(2), "{cmd}: {err}");
+        assert!(
+            err.contains("`data.reference`")
+                && err.contains("--memory-limit of 64.0 MiB")
+                && err.contains("10000 trees, min_leaf = 1")
+                && err.lines().count() == 1,
+            "{cmd}: {err}"
+        );
+    }
 }

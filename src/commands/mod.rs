@@ -250,6 +250,7 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
         replicates: args.replicates,
         seed: args.seed,
         eval_seed: args.eval_seed,
+        memory_limit: args.memory_limit,
     };
     let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
     let plan = source.plan(&opts)?;
@@ -1131,7 +1132,11 @@ pub fn validate_with(
 ) -> Result<u8, Error> {
     runner::pool_check(threads)?;
     crate::output::guard_inputs(&[("the scenario file", scenario)])?;
-    let plan = scenario::load(scenario, &PlanOptions::default())?;
+    let opts = PlanOptions {
+        memory_limit,
+        ..PlanOptions::default()
+    };
+    let plan = scenario::load(scenario, &opts)?;
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, threads, memory_limit)?;
     runner::prepare_to_fit(&plan)?;

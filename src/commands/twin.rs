@@ -1106,6 +1106,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<Plan, Error> {
             eval_at_design: false,
             report: None,
             temperature: temp.tau,
+            memory_limit: None,
         };
         let sp = crate::scenario::twin::build(t, "a table drawn from the twin", &spec)
             .map_err(|e| Error::Usage(e.message()))?;
@@ -1130,6 +1131,7 @@ fn twin_of(o: &TwinOptions, t: &Table, base: &Plan) -> Result<Plan, Error> {
         eval_at_design: false,
         report: None,
         temperature: 1.0,
+        memory_limit: None,
     };
     let sp = crate::scenario::twin::build(t, "a table drawn from the twin", &spec)
         .map_err(|e| Error::Usage(e.message()))?;

@@ -374,6 +374,27 @@ pub struct FamilyInfo {
     pub build: Option<Builder>,
 }
 
+impl FamilyInfo {
+    /// Whether a result of this family may name `knob` as its knob: its own knob, the forest's
+    /// `max_depth` (its trees' depth as the knob), or anything for a family that lets the
+    /// estimator name its knob (`external`, `custom`).
+    pub fn owns_knob(&self, knob: &str) -> bool {
+        self.knob.starts_with('(')
+            || knob == self.knob
+            || (self.name == "forest" && knob == "max_depth")
+    }
+
+    /// The knob names [`FamilyInfo::owns_knob`] accepts, for messages: "`max_depth`", or
+    /// "`trees` or `max_depth`".
+    pub fn knob_names(&self) -> String {
+        if self.name == "forest" {
+            format!("`{}` or `max_depth`", self.knob)
+        } else {
+            format!("`{}`", self.knob)
+        }
+    }
+}
+
 /// The built-in families, in the order `lossprism families` lists them.
 pub fn catalogue() -> &'static [FamilyInfo] {
     &[

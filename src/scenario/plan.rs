@@ -46,6 +46,9 @@ pub struct PlanOptions {
     pub seed: Option<u64>,
     /// Replaces `eval_seed` (`run --eval-seed`): moves the evaluation points and a fixed design.
     pub eval_seed: Option<u64>,
+    /// `--memory-limit` in bytes: a twin's reference that alone would take more is refused
+    /// before it is fitted (the whole run is held to the limit once planned).
+    pub memory_limit: Option<u64>,
 }
 
 /// Training-input design.
@@ -449,7 +452,13 @@ impl Plan {
                 reject_twin_keys(&cx, data)?;
                 Source::Synthetic(synthetic(&cx, data)?)
             }
-            "twin" => Source::Synthetic(super::twin::from_spec(data, src, file, base)?),
+            "twin" => Source::Synthetic(super::twin::from_spec(
+                data,
+                src,
+                file,
+                base,
+                opts.memory_limit,
+            )?),
             "table" if data.reference.is_some() || spec.audit.is_some() => {
                 return Err(cx.err(
                     Some(data.source.span()),
@@ -672,6 +681,24 @@ impl Plan {
             key: Some(key.to_string()),
             message,
         };
+        // A result names its family and knob; `check` and `plot` hold a built-in family's name to
+        // its own knob (an edited knob is refused there), so an estimator named like a built-in
+        // family with another knob would write a document they refuse. Refuse it here instead.
+        if let Some(info) = crate::family::catalogue()
+            .iter()
+            .find(|f| f.name == family.name() && !f.owns_knob(family.knob()))
+        {
+            return Err(err(
+                "model.family",
+                format!(
+                    "the estimator is named `{}`, a built-in family whose knob is {}, but its knob \
+                     is `{}`; give it a name of its own",
+                    family.name(),
+                    info.knob_names(),
+                    crate::fmt::clip(family.knob(), 40)
+                ),
+            ));
+        }
         if !family.supports(self.task) {
             return Err(err(
                 "model.family",

@@ -71,6 +71,8 @@ pub struct TwinSpec {
     pub temperature: f64,
     /// What `lossprism twin` measured (echoed).
     pub report: Option<FitReport>,
+    /// `--memory-limit` in bytes, if given: a reference larger than it is refused unfitted.
+    pub memory_limit: Option<u64>,
 }
 
 /// Why [`build`] failed (one line each).
@@ -95,17 +97,29 @@ impl BuildError {
     }
 }
 
-/// Why a reference of `choice` on `rows` × `p` cannot be fitted in `avail` bytes: its
-/// [`fitted_bytes`](crate::dgp::reference::fitted_bytes) above half of them (the run needs the
-/// rest), in words; `None` when it fits or the memory is unknown.
+/// Why a reference of `choice` on `rows` × `p` cannot be fitted: its
+/// [`fitted_bytes`](crate::dgp::reference::fitted_bytes) above `limit` (`--memory-limit`, which
+/// the whole run must also fit in), or above half of the `avail` bytes available (the run needs
+/// the rest), in words; `None` when it fits or neither is known.
 pub fn memory_problem(
     choice: &Choice,
     rows: usize,
     p: usize,
     classes: usize,
     avail: Option<u64>,
+    limit: Option<u64>,
 ) -> Option<String> {
     let need = crate::dgp::reference::fitted_bytes(choice, rows, p, classes);
+    if let Some(limit) = limit.filter(|&l| need > l as f64) {
+        return Some(format!(
+            "the reference would take about {} fitted on {rows} rows ({}), more than the \
+             --memory-limit of {}: a recipe with fewer `trees` or a larger `min_leaf`, or a \
+             larger limit, fits",
+            crate::fmt::fmt_bytes(need),
+            describe_size(choice),
+            crate::fmt::fmt_bytes(limit as f64)
+        ));
+    }
     let avail = avail?;
     (need > avail as f64 / 2.0).then(|| {
         format!(
@@ -153,6 +167,7 @@ pub fn build(t: &Table, shown: &str, spec: &TwinSpec) -> Result<SyntheticPlan, B
         t.x.ncols(),
         classes,
         crate::codec::available_memory(),
+        spec.memory_limit,
     ) {
         return Err(BuildError::Reference(m));
     }
@@ -822,6 +837,7 @@ pub fn from_spec(
     src: &str,
     file: &str,
     base: &Path,
+    memory_limit: Option<u64>,
 ) -> Result<SyntheticPlan, ScenarioError> {
     let line = |span: std::ops::Range<usize>| Some(crate::scenario::line_of(src, span.start));
     let err = |span: std::ops::Range<usize>, key: &str, m: String| ScenarioError {
@@ -1348,6 +1364,7 @@ pub fn from_spec(
             .as_ref()
             .and_then(|c| c.temperature.as_ref())
             .map_or(1.0, |t| *t.get_ref()),
+        memory_limit,
     };
     build(&t, &shown, &spec).map_err(|e| match e {
         BuildError::Reference(m) => err(reference.family.span(), "data.reference", m),
