@@ -891,6 +891,30 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                     crate::fmt::fmt_exact(*v)
                 ));
             }
+            // A term that is never negative at any point averages its per-point values into the
+            // row, so their standard deviation is at most the row's value × √m (Σx² ≤ (Σx)² for
+            // x ≥ 0, with m points or fewer): a baseline's spread edited to 10 beside a mean
+            // of 0.12 over 20 points hid a regression in a comparison at other points.
+            let m = u.eval_points as f64;
+            for (k, sd) in &r.point_sd {
+                let Some(p) = doc.points.get(i) else { break };
+                if !loss.nonnegative_terms().contains(&k.as_str()) || !p.has(k) {
+                    continue;
+                }
+                let most = p.get(k).abs() * m.sqrt();
+                if *sd > most * (1.0 + 1e-9) + loss.identity_floor() {
+                    return Err(format!(
+                        "`uncertainty.rows[{i}]`: the spread of `{}` across evaluation points is \
+                         {}, more than a term that is never negative can have with a mean of {} \
+                         over {} points (at most {}); {EDITED}",
+                        crate::fmt::clip(k, 40),
+                        crate::fmt::fmt_exact(*sd),
+                        crate::fmt::fmt_exact(p.get(k)),
+                        u.eval_points,
+                        crate::fmt::fmt_exact(most)
+                    ));
+                }
+            }
             for k in r.leave_out.keys() {
                 let (lo, hi) = loss.range(k);
                 let Some(v) = r.leave_out_of(k, b) else {
@@ -2841,6 +2865,14 @@ mod tests {
                 &[],
                 0.1,
             );
+            // The tiny row's spread across points on its own scale (a spread of 0.1 beside a
+            // mean of 2.2e-30 is refused).
+            for sd in d.uncertainty.as_mut().unwrap().rows[1]
+                .point_sd
+                .values_mut()
+            {
+                *sd = tiny / 4.0;
+            }
             d.seed = seed;
             d
         };
@@ -3435,6 +3467,17 @@ mod tests {
         refused(
             &|d| d.best.within_one_se = vec![7.0],
             "`best.within_one_se` holds 7",
+        );
+        // Sweep 67: an edited spread hid a regression in a comparison at other points.
+        refused(
+            &|d| {
+                d.uncertainty.as_mut().unwrap().rows[0]
+                    .point_sd
+                    .insert("variance".into(), 10.0);
+            },
+            "`uncertainty.rows[0]`: the spread of `variance` across evaluation points is 10, more \
+             than a term that is never negative can have with a mean of 0.25 over 5 points (at \
+             most 0.5590169943749475)",
         );
         refused(
             &|d| d.uncertainty.as_mut().unwrap().rows.truncate(1),

@@ -13,7 +13,9 @@
 //!   target is kept aside (a hard link, or a copy where links are unsupported) until the whole
 //!   commit has succeeded; if anything fails, targets already renamed get their old content back
 //!   and new ones are removed. Temporary and backup names carry the process id and a counter, and
-//!   are removed on every path out of [`Outputs::commit`].
+//!   are removed on every path out of [`Outputs::commit`]. The renames run under a
+//!   [`FolderLock`] on the outputs' folders, so two processes committing into one folder do
+//!   not interleave their sets.
 //! - **Everything else is written in place.** An existing target that is not a regular file (a
 //!   character or block device, a FIFO, a descriptor under `/proc` such as `/dev/stdout`) is
 //!   opened for writing without creation or truncation and never replaced. A FIFO nobody reads
@@ -999,6 +1001,79 @@ pub fn remove_stale_staging(path: &Path) {
 // ---------------------------------------------------------------------------------------------
 // Writing
 
+/// Exclusive advisory locks (`flock`) on folders, held until dropped, so that processes that
+/// write into one folder take turns: commits rename their files one set at a time (two runs
+/// writing the same `--out` and `--csv` at once left one's JSON beside the other's CSV, both
+/// exiting 0), and assessments count a ledger's looks one at a time. A folder this process
+/// already holds is not locked again (a second descriptor would wait on the first). Folders are
+/// locked in the order of their device and inode, so two processes never wait on each other in
+/// a cycle. Unix only; elsewhere nothing is locked.
+pub struct FolderLock {
+    held: Vec<(File, (u64, u64))>,
+}
+
+/// Folders (device, inode) locked by this process.
+static HELD_FOLDERS: std::sync::Mutex<std::collections::BTreeSet<(u64, u64)>> =
+    std::sync::Mutex::new(std::collections::BTreeSet::new());
+
+impl FolderLock {
+    /// Locks every folder in `dirs` (an empty path is the working folder), waiting for other
+    /// processes that hold one of them; a folder that cannot be opened or locked is left
+    /// unlocked.
+    pub fn take(dirs: &[&Path]) -> FolderLock {
+        let mut lock = FolderLock { held: Vec::new() };
+        if cfg!(not(unix)) {
+            return lock;
+        }
+        let mut open = Vec::new();
+        for d in dirs {
+            let d = if d.as_os_str().is_empty() {
+                Path::new(".")
+            } else {
+                d
+            };
+            // Best effort: a folder that cannot be opened for reading (write and search
+            // permission only) or locked (some network file systems) is written unlocked, as
+            // before locks were taken.
+            let Ok(f) = File::open(d) else { continue };
+            let Some(id) = f.metadata().ok().as_ref().and_then(sys::dev_ino) else {
+                continue;
+            };
+            open.push((f, id));
+        }
+        open.sort_by_key(|(_, id)| *id);
+        open.dedup_by_key(|(_, id)| *id);
+        for (f, id) in open {
+            if HELD_FOLDERS
+                .lock()
+                .unwrap_or_else(|e| e.into_inner())
+                .contains(&id)
+            {
+                continue;
+            }
+            if sys::lock_exclusive(&f).is_err() {
+                continue;
+            }
+            HELD_FOLDERS
+                .lock()
+                .unwrap_or_else(|e| e.into_inner())
+                .insert(id);
+            lock.held.push((f, id));
+        }
+        lock
+    }
+}
+
+impl Drop for FolderLock {
+    fn drop(&mut self) {
+        let mut held = HELD_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
+        for (_, id) in &self.held {
+            held.remove(id);
+        }
+        // Closing each descriptor (as `held` drops) lets its lock go.
+    }
+}
+
 /// One staged output during a commit.
 struct Install {
     target: PathBuf,
@@ -1015,6 +1090,8 @@ struct Transaction {
     temps: Vec<PathBuf>,
     installs: Vec<Install>,
     closed: bool,
+    /// The staged files' folders, locked while they are renamed (and rolled back).
+    folders: Option<FolderLock>,
 }
 
 impl Transaction {
@@ -1047,10 +1124,15 @@ impl Transaction {
                 streams.push((t, open_in_place(t, path, *kind)?, b));
             }
         }
-        // 3. Rename the staged files over their targets, keeping the old content aside.
+        // 3. Rename the staged files over their targets, keeping the old content aside, with
+        // their folders locked against other processes' commits (held until the renames are
+        // over or rolled back).
+        let folders: Vec<&Path> = staged.iter().map(|(_, path, _)| split(path).0).collect();
+        self.folders = Some(FolderLock::take(&folders));
         for (t, path, tmp) in staged {
             self.install(t, path, &tmp)?;
         }
+        self.folders = None;
         // 4. Streams, then standard output: a reader that stalls would hold a signal's exit
         // for as long, and what is written there cannot be taken back anyway.
         drop(gate);
@@ -1490,6 +1572,21 @@ mod sys {
         Some((m.dev(), m.ino()))
     }
 
+    /// Takes an exclusive `flock` on `file`, waiting for other holders (and through signals).
+    pub fn lock_exclusive(file: &File) -> std::io::Result<()> {
+        use std::os::unix::io::AsRawFd;
+        loop {
+            // SAFETY: flock on a descriptor `file` owns for the call; it only takes a lock.
+            if unsafe { libc::flock(file.as_raw_fd(), libc::LOCK_EX) } == 0 {
+                return Ok(());
+            }
+            let e = std::io::Error::last_os_error();
+            if e.kind() != std::io::ErrorKind::Interrupted {
+                return Err(e);
+            }
+        }
+    }
+
     pub fn is_fifo(m: &Metadata) -> bool {
         m.file_type().is_fifo()
     }
@@ -1522,6 +1619,10 @@ mod sys {
 
     pub fn dev_ino(_: &Metadata) -> Option<(u64, u64)> {
         None
+    }
+
+    pub fn lock_exclusive(_: &File) -> std::io::Result<()> {
+        Ok(())
     }
 
     pub fn is_fifo(_: &Metadata) -> bool {
@@ -2064,5 +2165,96 @@ mod tests {
         assert!(x.to_string_lossy().contains(&pid));
         let long = "é".repeat(200);
         assert!(side_name(OsStr::new(&long), "bak").len() < 255);
+    }
+
+    /// Whether the `flock` program (util-linux) is here to hold a lock from another process.
+    #[cfg(unix)]
+    fn flock_program() -> bool {
+        Command::new("flock")
+            .arg("--version")
+            .output()
+            .is_ok_and(|o| o.status.success())
+    }
+
+    /// A folder lock is a real `flock` another process sees, let go when dropped; a folder this
+    /// process holds is not locked twice (the ledger's lock, then its commit).
+    #[cfg(unix)]
+    #[test]
+    fn a_folder_lock_excludes_other_processes_until_dropped() {
+        if !flock_program() {
+            eprintln!("note: no flock program; skipping");
+            return;
+        }
+        let d = tempfile::tempdir().unwrap();
+        let try_other = || {
+            Command::new("flock")
+                .args(["-n", "-E", "7"])
+                .arg(d.path())
+                .arg("true")
+                .status()
+                .unwrap()
+                .code()
+        };
+        assert_eq!(try_other(), Some(0));
+        let lock = FolderLock::take(&[d.path(), d.path()]);
+        assert_eq!(try_other(), Some(7), "another process took a held folder");
+        // Taken again by this process (a commit inside an assessment's lock): no wait.
+        let inner = FolderLock::take(&[d.path()]);
+        assert!(inner.held.is_empty());
+        drop(inner);
+        assert_eq!(
+            try_other(),
+            Some(7),
+            "the inner guard let the outer lock go"
+        );
+        drop(lock);
+        assert_eq!(try_other(), Some(0));
+    }
+
+    /// A commit waits while another process holds its output's folder (sweep 67: two runs
+    /// writing the same `--out` and `--csv` at once could leave one's JSON beside the other's
+    /// CSV): the files appear only after the other process lets go.
+    #[cfg(unix)]
+    #[test]
+    fn a_commit_waits_for_another_process_holding_the_folder() {
+        if !flock_program() {
+            eprintln!("note: no flock program; skipping");
+            return;
+        }
+        let d = tempfile::tempdir().unwrap();
+        let gone = d.path().join("gone");
+        // The other process holds the folder until the file `gone` appears.
+        let mut holder = Command::new("flock")
+            .arg(d.path())
+            .args([
+                "sh",
+                "-c",
+                "touch held; while [ ! -e gone ]; do sleep 0.05; done",
+            ])
+            .current_dir(d.path())
+            .spawn()
+            .unwrap();
+        let start = Instant::now();
+        while !d.path().join("held").exists() {
+            assert!(
+                start.elapsed() < Duration::from_secs(20),
+                "the holder never started"
+            );
+            std::thread::sleep(Duration::from_millis(10));
+        }
+        let out = d.path().join("a.json");
+        let writer = {
+            let out = out.clone();
+            std::thread::spawn(move || write_one("--out", &out, &[], b"{}\n".to_vec()))
+        };
+        std::thread::sleep(Duration::from_millis(400));
+        assert!(
+            !out.exists(),
+            "the commit renamed while another process held the folder"
+        );
+        fs::write(&gone, b"").unwrap();
+        writer.join().unwrap().unwrap();
+        assert_eq!(fs::read(&out).unwrap(), b"{}\n");
+        holder.wait().unwrap();
     }
 }

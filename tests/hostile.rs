@@ -1989,6 +1989,19 @@ fn formula_cases(t: &mut Table) {
 
 fn csv_cases(t: &mut Table) {
     let good = good_csv();
+    // Sweep 67: both were reported at the `source` line (7), not at their own.
+    t.table(
+        "an audit on a table source names its own line",
+        good_csv().as_bytes(),
+        "[audit]\nfolds = 3",
+        "s.toml:11: key `audit`: belongs to a synthetic or twin source",
+    );
+    t.table(
+        "a reference on a table source names its own line",
+        good_csv().as_bytes(),
+        "reference = { family = \"knn\", k = 5 }",
+        "s.toml:10: key `data.reference`: belongs to a synthetic or twin source",
+    );
     t.table("empty file", b"", "", "the file is empty");
     t.table(
         "binary data (NUL bytes)",
@@ -2762,6 +2775,13 @@ fn twin_cases(t: &mut Table) {
         TWIN.replacen(from, to, 1)
     };
     let cases: Vec<(&str, String, &str)> = vec![
+        // Sweep 67: blend weights edited to sum to 2 ran with a truth twice the table's (a mean
+        // of −31 over a table's −15.6), and with twicing its sign flipped.
+        (
+            "twin: blend weights summing to 2",
+            twin("loclin = 0.4 }", "loclin = 1.4 }"),
+            "key `data.reference.weights`: sum to 2, but a blend's weights are shares that sum to 1",
+        ),
         // Sweep 66: a twiced polynomial (a projection: twicing gives back the same fit) was
         // written by `--reference poly --twicing on` and read without a word.
         (

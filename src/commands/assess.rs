@@ -226,7 +226,8 @@ fn record(
     use serde_json::{json, Value};
     // Read, count and write under a lock on the ledger's folder: six assessments started
     // together each read the same count and the ledger ended at 1 (exit 0 every time).
-    let _lock = FolderLock::take(ledger)?;
+    let dir = ledger.parent().unwrap_or(Path::new(""));
+    let _lock = crate::output::FolderLock::take(&[dir]);
     let read = match ledger.try_exists() {
         Ok(true) => crate::codec::read_document(
             ledger,
@@ -342,42 +343,6 @@ fn record(
     text.push('\n');
     crate::output::write_one(crate::output::LEDGER_OUTPUT, ledger, &[], text.as_bytes())?;
     Ok((count, looks, earlier))
-}
-
-/// An exclusive advisory lock (`flock`) on a ledger's folder, held until dropped: assessments
-/// of scenarios in one folder count their looks one at a time. Unix only; elsewhere nothing.
-struct FolderLock {
-    #[cfg(unix)]
-    _dir: std::fs::File,
-}
-
-impl FolderLock {
-    fn take(ledger: &Path) -> Result<FolderLock, Error> {
-        #[cfg(unix)]
-        {
-            use std::os::unix::io::AsRawFd;
-            let dir = ledger
-                .parent()
-                .filter(|d| !d.as_os_str().is_empty())
-                .unwrap_or(Path::new("."));
-            let f = std::fs::File::open(dir).map_err(|e| Error::io(dir, &e))?;
-            loop {
-                // SAFETY: flock on a descriptor this function owns; it only takes a lock.
-                if unsafe { libc::flock(f.as_raw_fd(), libc::LOCK_EX) } == 0 {
-                    return Ok(FolderLock { _dir: f });
-                }
-                let e = std::io::Error::last_os_error();
-                if e.kind() != std::io::ErrorKind::Interrupted {
-                    return Err(Error::io(dir, &e));
-                }
-            }
-        }
-        #[cfg(not(unix))]
-        {
-            let _ = ledger;
-            Ok(FolderLock {})
-        }
-    }
 }
 
 #[cfg(test)]

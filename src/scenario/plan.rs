@@ -460,15 +460,17 @@ impl Plan {
                 opts.memory_limit,
             )?),
             "table" if data.reference.is_some() || spec.audit.is_some() => {
+                // At the key's own line (sweep 67: both were reported at `source`).
+                let (span, key) = match (&spec.audit, &data.reference) {
+                    (Some(a), _) => (a.folds.span(), "audit"),
+                    (None, Some(r)) => (r.family.span(), "data.reference"),
+                    (None, None) => (data.source.span(), "data.source"),
+                };
                 return Err(cx.err(
-                    Some(data.source.span()),
-                    if spec.audit.is_some() {
-                        "audit"
-                    } else {
-                        "data.reference"
-                    },
+                    Some(span),
+                    key,
                     "belongs to a synthetic or twin source, not to `source = \"table\"`",
-                ))
+                ));
             }
             "table" => Source::Table(Box::new(super::table::from_spec(
                 data,

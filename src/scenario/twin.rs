@@ -97,6 +97,11 @@ impl BuildError {
     }
 }
 
+/// How far a blend's weights may sum from 1 (a sanity bound, no source: the weights `twin` wrote
+/// before they were held to sum to 1 came within about 0.002 of it where the response is far
+/// from 0, and a hand edit that doubles one weight moves the sum by far more).
+pub const BLEND_SUM_TOLERANCE: f64 = 0.01;
+
 /// Why a reference of `choice` on `rows` × `p` cannot be fitted: its
 /// [`fitted_bytes`](crate::dgp::reference::fitted_bytes) above `limit` (`--memory-limit`, which
 /// the whole run must also fit in), or above half of the `avail` bytes available (the run needs
@@ -349,6 +354,21 @@ fn choice_of(
                     w.span(),
                     "data.reference.weights",
                     "must be finite numbers >= 0, at least one of them > 0".into(),
+                ));
+            }
+            // The blend is `Σ w_j p_j`: weights summing to 2 double the twin's truth. `twin`
+            // writes shares summing to 1 (to the last digit since 0.3.9; before, free sums that
+            // came within about 0.002 of 1 on a response far from 0); 0.01 is a sanity bound.
+            let sum: f64 = ws.iter().sum();
+            if (sum - 1.0).abs() > BLEND_SUM_TOLERANCE {
+                return Err(err(
+                    w.span(),
+                    "data.reference.weights",
+                    format!(
+                        "sum to {}, but a blend's weights are shares that sum to 1 (the twin's \
+                         truth would be scaled by that sum): divide them by it",
+                        crate::fmt::fmt_exact(sum)
+                    ),
                 ));
             }
             ws
