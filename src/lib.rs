@@ -26,6 +26,10 @@
 //! println!("{}", report::terminal::render(&doc));
 //! ```
 
+// Every public item says what it is (`cargo clippy -- -D warnings` turns a missing one into an
+// error).
+#![warn(missing_docs)]
+
 pub mod check;
 pub mod cli;
 pub mod codec;

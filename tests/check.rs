@@ -119,6 +119,39 @@ fn mismatched_scenario_is_refused() {
     assert!(e.to_string().contains("grid differs"), "{e}");
 }
 
+/// The README's library recipe: a fresh run against the same estimator's saved result is
+/// `identical` (it was `paired`: a document read back lists its terms alphabetically, a fresh
+/// one in the loss's order, and rows were compared by position; and serde_json's default float
+/// parser is not correctly rounded, so 0.0015879777906180961 came back 1 ulp off).
+#[test]
+fn a_fresh_run_is_identical_to_its_saved_result() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("base.json");
+    harness::save_result(&path, &run(NadarayaWatson::default(), SMALL, None)).unwrap();
+    let base = harness::load_result(&path).unwrap();
+    let new = run(NadarayaWatson::default(), SMALL, None);
+    assert_ne!(
+        new.points[0].terms.iter().map(|t| &t.0).collect::<Vec<_>>(),
+        base.points[0]
+            .terms
+            .iter()
+            .map(|t| &t.0)
+            .collect::<Vec<_>>(),
+        "the fixture no longer tests the order"
+    );
+    let r = check::compare(&new, &base, &CheckOptions::default()).unwrap();
+    assert!(r.identical, "{r}");
+    // One bit of one term still breaks it.
+    let mut off = new.clone();
+    let v = &mut off.points[1].terms[2].1;
+    *v = f64::from_bits(v.to_bits() + 1);
+    assert!(
+        !check::compare(&off, &base, &CheckOptions::default())
+            .unwrap()
+            .identical
+    );
+}
+
 #[test]
 fn custom_family_must_accept_the_grid() {
     let bad = SMALL.replace("[0.3, 0.8, 2.0]", "[0.3, -1]");

@@ -55,14 +55,42 @@ fn rust_files(dir: &Path, out: &mut Vec<std::path::PathBuf>) {
 /// `super::`-free imports are within the module by construction.
 fn crate_refs(text: &str) -> BTreeSet<String> {
     let mut out = BTreeSet::new();
-    for line in text.lines() {
-        let code = match line.find("//") {
+    // Comments stripped, lines joined: a `use crate::{…}` group may span lines.
+    let code: String = text
+        .lines()
+        .map(|line| match line.find("//") {
             Some(i) => &line[..i],
             None => line,
-        };
-        let mut rest = code;
-        while let Some(i) = rest.find("crate::") {
-            let after = &rest[i + "crate::".len()..];
+        })
+        .collect::<Vec<_>>()
+        .join(" ");
+    let mut rest = code.as_str();
+    while let Some(i) = rest.find("crate::") {
+        let after = &rest[i + "crate::".len()..];
+        if let Some(group) = after.strip_prefix('{') {
+            // `crate::{a, b::{c, d}, e}`: the first name of each top-level item.
+            let mut depth = 0usize;
+            let mut item_start = true;
+            for (j, c) in group.char_indices() {
+                match c {
+                    '{' => depth += 1,
+                    '}' if depth == 0 => break,
+                    '}' => depth -= 1,
+                    ',' if depth == 0 => item_start = true,
+                    c if item_start && (c.is_ascii_alphanumeric() || c == '_') => {
+                        let name: String = group[j..]
+                            .chars()
+                            .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
+                            .collect();
+                        if name != "self" {
+                            out.insert(name);
+                        }
+                        item_start = false;
+                    }
+                    _ => {}
+                }
+            }
+        } else {
             let name: String = after
                 .chars()
                 .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
@@ -70,24 +98,18 @@ fn crate_refs(text: &str) -> BTreeSet<String> {
             if !name.is_empty() {
                 out.insert(name);
             }
-            rest = after;
         }
-        // `use crate::{a, b}` groups
-        if let Some(i) = code.find("crate::{") {
-            let group = &code[i + "crate::{".len()..];
-            for part in group.split(&[',', '}'][..]) {
-                let name: String = part
-                    .trim()
-                    .chars()
-                    .take_while(|c| c.is_ascii_alphanumeric() || *c == '_')
-                    .collect();
-                if !name.is_empty() && name != "self" {
-                    out.insert(name);
-                }
-            }
-        }
+        rest = after;
     }
     out
+}
+
+/// The scanner reads groups over several lines and nested groups by their first names.
+#[test]
+fn crate_references_are_read_from_multi_line_and_nested_groups() {
+    let text = "use crate::{\n    fmt,\n    report::{self, ResultDoc}, // note crate::x\n    runner,\n};\nlet e = crate::error::Error::Usage;";
+    let got: Vec<String> = crate_refs(text).into_iter().collect();
+    assert_eq!(got, ["error", "fmt", "report", "runner"]);
 }
 
 #[test]

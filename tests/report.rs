@@ -1456,7 +1456,7 @@ fn one_block_carrying_a_term_is_read_as_a_heavy_tail() {
     let (_, _, doc) = run(RELU_TAIL);
     assert!(
         doc.reading
-            .contains("Heavy tail: at width = 5 (expected loss, variance"),
+            .contains("Heavy tail: at width = 5 (expected loss, bias², variance)"),
         "{}",
         doc.reading
     );

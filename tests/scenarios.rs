@@ -83,10 +83,16 @@ fn check(what: &str, plan: &Plan, doc: &ResultDoc) {
                 for (k, v) in &p.terms {
                     assert!(v.is_finite(), "{what} at {g}: `{k}` = {v}");
                 }
+                // The main variance-type term, by role (a loss may key it otherwise).
+                let variance = doc
+                    .terms
+                    .iter()
+                    .find(|t| t.role == "variance" && t.group == "main")
+                    .map_or("variance", |t| t.key.as_str());
                 assert!(
-                    p.get("variance") >= 0.0,
-                    "{what} at {g}: variance {}",
-                    p.get("variance")
+                    p.get(variance) >= 0.0,
+                    "{what} at {g}: {variance} {}",
+                    p.get(variance)
                 );
                 for id in &identities {
                     let sum: f64 = id.parts.iter().map(|(k, c)| c * p.get(k)).sum();

@@ -306,6 +306,9 @@ pub fn cell(acc: &Acc, g: usize, e: usize) -> &[u32] {
     &acc.counts[VOTES][i..i + k]
 }
 
+/// The 0-1 terms of evaluation point `e` at grid value `g` from its vote counts, with
+/// `p_true` the true class probabilities there (known truths; a table passes the observed
+/// class as a probability of 1).
 pub fn point(acc: &Acc, g: usize, e: usize, p_true: &[f64]) -> ZeroOnePoint {
     debug_assert_eq!(p_true.len(), acc.shape.classes);
     let counts = cell(acc, g, e);
