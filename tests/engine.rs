@@ -215,7 +215,11 @@ fn an_out_of_range_class_stops_synthetic_and_table_runs_alike() {
             &lossprism(d, &["run", f]),
             &["predicted 7", "0 to 1", "2 classes"],
         );
-        assert!(line.contains("external"), "{f}: {line}");
+        // The process is named by its command line (sweep 68: only "external fit failed").
+        assert!(
+            line.contains("external process `python3 seven.py` answered: predicted 7"),
+            "{f}: {line}"
+        );
     }
 }
 

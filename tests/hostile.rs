@@ -419,6 +419,14 @@ fn scenario_cases(t: &mut Table) {
         v,
         "inverse_penalty",
     );
+    // Sweep 68: a whole number with no exact f64 ran rounded.
+    t.scenario(
+        g,
+        "a grid value beyond 2^53",
+        &sc("grid = [1, 2]", "grid = [9007199254740993, 2]"),
+        v,
+        "entry 1 is 9007199254740993, a whole number a 64-bit float cannot hold exactly",
+    );
     // A `[data.noise]` without sd was reported at the `source` line.
     t.scenario(
         g,
@@ -5405,6 +5413,21 @@ fn external_cases(t: &mut Table) {
             needle,
         )
         .python();
+    }
+    // Sweep 68: a script named without `./` is looked up on PATH; `validate` passed it and
+    // `run` blamed its working `#!` line.
+    let bare = sc(
+        "family = \"tree\"\ngrid = [1, 2]",
+        "family = \"external\"\ncommand = [\"m.py\", \"fit\"]\nknob = \"k\"\ngrid = [1, 2]",
+    );
+    for cmd in ["validate", "run"] {
+        t.add(
+            g,
+            format!("{cmd}: a script in the folder named without ./"),
+            &[("s.toml", bare.as_bytes()), ("m.py", PY_MODEL.as_bytes())],
+            &[cmd, "s.toml"],
+            "not on PATH, where a program named without a `/` is looked up: write `./m.py`",
+        );
     }
     // The script an external estimator runs is an input: no output may replace it (the
     // output check refuses before anything starts, so no Python is needed).

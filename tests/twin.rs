@@ -2323,3 +2323,98 @@ fn memory_limit_refuses_a_large_reference_before_fitting_it() {
         );
     }
 }
+
+/// 30 rows of pure noise on 60 inputs (invented): with a noise estimate far above the
+/// responses' own variance the twin would hold more than twice it, and is refused (sweep 68:
+/// such a twin was written with σ̂² = 1.51 ± 2.3 against a variance of 0.607, and its expected
+/// losses were 3.9 times what predicting the mean gives on the table).
+#[test]
+fn a_twin_holding_more_than_twice_the_tables_variance_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let mut state: u64 = WIDE_NOISE_SEED;
+    let mut u = || {
+        state = state
+            .wrapping_mul(6364136223846793005)
+            .wrapping_add(1442695040888963407);
+        ((state >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    };
+    let mut csv: String = (0..60).map(|j| format!("f{j},")).collect();
+    csv.push_str("y\n");
+    for _ in 0..30 {
+        for _ in 0..60 {
+            csv.push_str(&format!("{:.3},", u()));
+        }
+        // Box-Muller: a standard normal response.
+        let (a, b) = (u(), u());
+        let y = (-2.0 * a.ln()).sqrt() * (std::f64::consts::TAU * b).cos();
+        csv.push_str(&format!("{y:.3}\n"));
+    }
+    fs::write(d.join("wide.csv"), csv).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .current_dir(d)
+        .args([
+            "twin",
+            "wide.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--out",
+            "w.toml",
+        ])
+        .output()
+        .unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    assert!(
+        err.contains("more than twice the responses' own") && err.contains("30 rows for 60 inputs"),
+        "{err}"
+    );
+    assert!(!d.join("w.toml").exists());
+}
+
+/// The seed of [`a_twin_holding_more_than_twice_the_tables_variance_is_refused`]'s table.
+const WIDE_NOISE_SEED: u64 = 5;
+
+/// An input that is the target in other units is named as a possible leak (sweep 68: a copy of
+/// the target gave a noise-free twin whose truth was that column, with no word); an input that
+/// merely predicts it well is not.
+#[test]
+fn an_input_copying_the_target_is_named() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let mut csv = String::from("a,b,kelvin,close,y\n");
+    for i in 0..120 {
+        let (a, b) = ((i * 7 % 31) as f64 / 31.0, (i * 11 % 17) as f64 / 17.0);
+        let y = a + b * b + 0.3 * (((i * 13 % 29) as f64 / 29.0) - 0.5);
+        let close = y + 1e-3 * ((i % 3) as f64 - 1.0);
+        csv.push_str(&format!("{a},{b},{},{close},{y}\n", y + 273.15));
+    }
+    fs::write(d.join("leak.csv"), csv).unwrap();
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .current_dir(d)
+        .args([
+            "twin",
+            "leak.csv",
+            "--target",
+            "y",
+            "--fidelity",
+            "0",
+            "--out",
+            "l.toml",
+        ])
+        .output()
+        .unwrap();
+    let text = format!(
+        "{}{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(
+        text.contains("note: input `kelvin` is the target up to a linear change of scale"),
+        "{text}"
+    );
+    assert!(!text.contains("input `close`"), "{text}");
+    assert!(!text.contains("input `a`"), "{text}");
+}

@@ -128,6 +128,13 @@ fn names_script(word: &str) -> bool {
     !word.starts_with('-') && !word.contains('=') && script_extension(Path::new(word))
 }
 
+/// Whether a program named `name` (no `/`) is a file in one of PATH's folders, as the process
+/// start would find it.
+fn on_path(name: &str) -> bool {
+    std::env::var_os("PATH")
+        .is_some_and(|p| std::env::split_paths(&p).any(|d| d.join(name).is_file()))
+}
+
 /// `path` ends in one of [`SCRIPT_EXTENSIONS`] (any case).
 pub fn script_extension(path: &Path) -> bool {
     path.extension()
@@ -450,7 +457,7 @@ impl ExternalFamily {
             return Err(ConfigError {
                 key: "knob",
                 message: format!(
-                    "`{}` is not a knob name: use letters, digits, `_`, `-` or `.` (no spaces)",
+                    "`{}` is not a knob name: use ASCII letters, digits, `_`, `-` or `.` (no spaces)",
                     crate::fmt::clip(knob, 60)
                 ),
             });
@@ -554,13 +561,29 @@ impl ExternalFamily {
                 .map(|d| format!(" in {}", d.display()))
                 .unwrap_or_default();
             // "No such file or directory" for a script that is there: its `#!` line names an
-            // interpreter that is not.
+            // interpreter that is not. A program named without a `/` is looked up on PATH, not
+            // in the scenario's folder, so a file of that name there is not what failed.
+            let bare = !self.command[0].contains('/');
             let program = self.dir.clone().unwrap_or_default().join(&self.command[0]);
-            let interpreter = (e.kind() == std::io::ErrorKind::NotFound && program.is_file())
-                .then(|| first_line(&program))
-                .flatten()
-                .filter(|l| l.starts_with("#!"));
+            let interpreter =
+                (e.kind() == std::io::ErrorKind::NotFound && program.is_file() && !bare)
+                    .then(|| first_line(&program))
+                    .flatten()
+                    .filter(|l| l.starts_with("#!"));
             match interpreter {
+                None if bare && program.exists() => format!(
+                    "cannot start {}{dir}: {e}; a program named without a `/` is looked up on \
+                     PATH, not in the scenario's folder: write `./{}` (or name its interpreter \
+                     first, as [\"python3\", \"{}\"])",
+                    self.who(),
+                    crate::fmt::clip(&self.command[0], 200),
+                    crate::fmt::clip(&self.command[0], 200)
+                ),
+                None if program.is_dir() => format!(
+                    "cannot start {}{dir}: `{}` is a folder, not a program",
+                    self.who(),
+                    crate::fmt::clip(&self.command[0], 200)
+                ),
                 Some(l) => format!(
                     "cannot start {}{dir}: its first line, `{}`, names an interpreter that \
                      cannot be started ({e})",
@@ -1103,11 +1126,29 @@ impl Family for ExternalFamily {
     /// A script `command` names must exist: one that is not there was found only when the
     /// first fit started it, after `validate` had passed the file. (Not checked when the
     /// scenario is read: `merge` reads it where the scripts may be absent.)
+    fn answered_by(&self) -> Option<String> {
+        Some(self.who())
+    }
+
     fn check_ready(&self) -> Result<(), String> {
         let dir = self.dir.clone().unwrap_or_default();
         // Not checked: the program itself when it has no `/` (found on PATH), a word after an
         // option that takes code (`sh -c "..."`, `perl -e`), a word with spaces (code, not a
         // file name).
+        // A program named without a `/` is looked up on PATH: a script of that name in the
+        // scenario's folder (`command = ["est.py"]`) is not what would run (sweep 68: `run`
+        // blamed its working `#!` line).
+        let first = &self.command[0];
+        if !first.contains('/') && dir.join(first).is_file() && !on_path(first) {
+            return Err(format!(
+                "`command` starts with `{}`, which is in the scenario's folder but not on PATH, \
+                 where a program named without a `/` is looked up: write `./{}` (or name its \
+                 interpreter first, as [\"python3\", \"{}\"])",
+                crate::fmt::clip(first, 200),
+                crate::fmt::clip(first, 200),
+                crate::fmt::clip(first, 200)
+            ));
+        }
         let takes_code = |w: &str| matches!(w, "-c" | "-e" | "-E" | "--eval" | "--command");
         let Some(w) = self.command.iter().enumerate().find_map(|(i, w)| {
             let checked = if i == 0 {

@@ -247,6 +247,12 @@ pub trait Family: Send + Sync {
         Ok(())
     }
 
+    /// How an error about this estimator's answers names it beyond its family name (an
+    /// external process: its command line). Default: `None`, the family name says it.
+    fn answered_by(&self) -> Option<String> {
+        None
+    }
+
     /// Called once when the scheduler has run its blocks: releases what the fits held and
     /// reports what could only be seen at the end (an external process that wrote more than
     /// its answers). Default: nothing to do.

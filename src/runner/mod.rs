@@ -70,9 +70,10 @@ pub fn check_predictions(
                 }
                 if let Some((e, bad)) = row.iter().enumerate().find(|(_, v)| !v.is_finite()) {
                     return Err(format!(
-                        "prediction {bad} at {}, {}: not a finite number (are \
+                        "prediction {} at {}, {}: not a finite number (are \
                          the responses too large? rescale them, for example divide by a power \
                          of ten)",
+                        crate::fmt::fmt_exact(*bad),
                         point(e),
                         knob(g)
                     ));
@@ -85,7 +86,8 @@ pub fn check_predictions(
                     .find(|(_, v)| !(v.fract() == 0.0 && **v >= 0.0 && **v < classes as f64))
                 {
                     return Err(format!(
-                        "predicted {bad} at {}, {}: not a class index 0 to {} ({classes} classes)",
+                        "predicted {} at {}, {}: not a class index 0 to {} ({classes} classes)",
+                        crate::fmt::fmt_exact(*bad),
                         point(e),
                         knob(g),
                         classes - 1
@@ -263,7 +265,14 @@ pub fn run_block(plan: &Plan, prep: &Prepared, b: u64) -> Result<BlockResult, Er
                             needs_probs.then(|| probs.index_axis(Axis(0), s)),
                             &point,
                         )
-                        .map_err(fit_err)?;
+                        .map_err(|m| {
+                            // Sweep 68: a class index out of range from an external process
+                            // named neither the process nor its command line.
+                            fit_err(match model.family.answered_by() {
+                                Some(who) => format!("{who} answered: {m}"),
+                                None => m,
+                            })
+                        })?;
                     }
                 }
                 let batch = Batch {

@@ -1235,6 +1235,17 @@ fn expand_grid(
         toml::Value::Array(a) => {
             let mut out = Vec::with_capacity(a.len());
             for (i, v) in a.iter().enumerate() {
+                // A whole number beyond 2^53 has no exact f64 (9007199254740993 ran as ...992).
+                if let toml::Value::Integer(w) = v {
+                    if (*w as f64) as i128 != *w as i128 {
+                        return Err(e(format!(
+                            "entry {} is {w}, a whole number a 64-bit float cannot hold exactly \
+                             (it would run as {}); use one of at most 2^53",
+                            i + 1,
+                            *w as f64
+                        )));
+                    }
+                }
                 match number(v) {
                     Some(x) if x.is_finite() => out.push(x),
                     _ => return Err(e(format!("entry {} is not a finite number", i + 1))),

@@ -658,12 +658,19 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
             let (base, base_r2, (g, se)) = without_poly(y, &r2, &t.held_out);
             format!(
                 "degree = {d}; chosen only when it removes at least {}% of the {}'s held-out \
-                 error and more than one paired SE: gain in R² {} ± {}, {}% of that error",
+                 error and more than one paired SE: gain in R² {} ± {}, {}",
                 POLY_MIN_CUT * 100.0,
                 base.name(),
                 crate::fmt::fmt_num(g),
                 crate::fmt::fmt_num(se),
-                crate::fmt::fmt_num(100.0 * g / (1.0 - base_r2))
+                // A base that leaves no held-out error (R² 1) has none to remove (it printed
+                // "n/a% of that error").
+                match 100.0 * g / (1.0 - base_r2) {
+                    share if share.is_finite() => {
+                        format!("{}% of that error", crate::fmt::fmt_num(share))
+                    }
+                    _ => "and that error is 0".to_string(),
+                }
             )
         }
         None if degrees.is_empty() => {
