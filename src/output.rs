@@ -13,9 +13,10 @@
 //!   target is kept aside (a hard link, or a copy where links are unsupported) until the whole
 //!   commit has succeeded; if anything fails, targets already renamed get their old content back
 //!   and new ones are removed. Temporary and backup names carry the process id and a counter, and
-//!   are removed on every path out of [`Outputs::commit`]. The renames run under a
-//!   [`FolderLock`] on the outputs' folders, so two processes committing into one folder do
-//!   not interleave their sets.
+//!   are removed on every path out of [`Outputs::commit`]. This holds within one process: two
+//!   processes writing the same files at once each rename their own set, and the last rename
+//!   of each file wins (no lock is taken on the user's folders: a `flock DIR lossprism ...`
+//!   wrapper, common on clusters, would then wait on itself).
 //! - **Everything else is written in place.** An existing target that is not a regular file (a
 //!   character or block device, a FIFO, a descriptor under `/proc` such as `/dev/stdout`) is
 //!   opened for writing without creation or truncation and never replaced. A FIFO nobody reads
@@ -51,6 +52,10 @@ pub const LEDGER_TAG: &str = "lossprism-holdout-ledger/";
 
 /// The flag under which the holdout assessment writes its ledger.
 pub const LEDGER_OUTPUT: &str = "ledger";
+
+/// The flag a checkpoint is written under: its rewrites after each block are not the run's
+/// outputs ([`committed`]).
+pub const CHECKPOINT_OUTPUT: &str = "--checkpoint";
 
 /// Symlink hops followed before a path is declared a loop (Linux's own limit).
 const MAX_LINKS: usize = 40;
@@ -325,7 +330,11 @@ impl Outputs {
         match result {
             Ok(()) => {
                 tx.finish();
-                COMMITTED.store(true, std::sync::atomic::Ordering::SeqCst);
+                // A checkpoint's rewrite is not the run's outputs (sweep 69: a second signal
+                // after one said "after the outputs were written" with no `--out` file).
+                if targets.iter().any(|t| t.flag != CHECKPOINT_OUTPUT) {
+                    COMMITTED.store(true, std::sync::atomic::Ordering::SeqCst);
+                }
                 Ok(())
             }
             Err(e) => Err(tx.abort(e)),
@@ -951,7 +960,8 @@ pub fn wait_for_commit_within(
     }
 }
 
-/// Whether a commit of this process has written all its outputs.
+/// Whether a commit of this process has written its outputs (a checkpoint's rewrite alone does
+/// not count).
 pub fn committed() -> bool {
     COMMITTED.load(std::sync::atomic::Ordering::SeqCst)
 }
@@ -1001,66 +1011,82 @@ pub fn remove_stale_staging(path: &Path) {
 // ---------------------------------------------------------------------------------------------
 // Writing
 
-/// Exclusive advisory locks (`flock`) on folders, held until dropped, so that processes that
-/// write into one folder take turns: commits rename their files one set at a time (two runs
-/// writing the same `--out` and `--csv` at once left one's JSON beside the other's CSV, both
-/// exiting 0), and assessments count a ledger's looks one at a time. A folder this process
-/// already holds is not locked again (a second descriptor would wait on the first). Folders are
-/// locked in the order of their device and inode, so two processes never wait on each other in
-/// a cycle. Unix only; elsewhere nothing is locked.
+/// An exclusive advisory lock (`flock`) on a folder, held until dropped: assessments of
+/// scenarios in one folder count a holdout ledger's looks one at a time. A folder this process
+/// already holds is not locked again (a second descriptor would wait on the first). The lock
+/// is tried without blocking for up to [`FOLDER_LOCK_WAIT`]: a lock nobody lets go (a
+/// `flock DIR lossprism ...` wrapper holds the same folder, and lossprism inherits it) is then
+/// an error naming the folder, never a hang. A folder that cannot be opened for reading or
+/// cannot be locked at all (some network file systems) is left unlocked. Unix only.
 pub struct FolderLock {
     held: Vec<(File, (u64, u64))>,
 }
+
+/// How long [`FolderLock::take`] tries before it gives up.
+#[cfg(not(test))]
+pub const FOLDER_LOCK_WAIT: Duration = Duration::from_secs(30);
+/// How long [`FolderLock::take`] tries before it gives up (short in unit tests).
+#[cfg(test)]
+pub const FOLDER_LOCK_WAIT: Duration = Duration::from_millis(500);
 
 /// Folders (device, inode) locked by this process.
 static HELD_FOLDERS: std::sync::Mutex<std::collections::BTreeSet<(u64, u64)>> =
     std::sync::Mutex::new(std::collections::BTreeSet::new());
 
 impl FolderLock {
-    /// Locks every folder in `dirs` (an empty path is the working folder), waiting for other
-    /// processes that hold one of them; a folder that cannot be opened or locked is left
-    /// unlocked.
-    pub fn take(dirs: &[&Path]) -> FolderLock {
+    /// Locks `dir` (an empty path is the working folder), waiting up to [`FOLDER_LOCK_WAIT`]
+    /// for another process that holds it.
+    pub fn take(dir: &Path) -> Result<FolderLock, Error> {
         let mut lock = FolderLock { held: Vec::new() };
         if cfg!(not(unix)) {
-            return lock;
+            return Ok(lock);
         }
-        let mut open = Vec::new();
-        for d in dirs {
-            let d = if d.as_os_str().is_empty() {
-                Path::new(".")
-            } else {
-                d
-            };
-            // Best effort: a folder that cannot be opened for reading (write and search
-            // permission only) or locked (some network file systems) is written unlocked, as
-            // before locks were taken.
-            let Ok(f) = File::open(d) else { continue };
-            let Some(id) = f.metadata().ok().as_ref().and_then(sys::dev_ino) else {
-                continue;
-            };
-            open.push((f, id));
+        let dir = if dir.as_os_str().is_empty() {
+            Path::new(".")
+        } else {
+            dir
+        };
+        let Ok(f) = File::open(dir) else {
+            return Ok(lock);
+        };
+        let Some(id) = f.metadata().ok().as_ref().and_then(sys::dev_ino) else {
+            return Ok(lock);
+        };
+        if HELD_FOLDERS
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .contains(&id)
+        {
+            return Ok(lock);
         }
-        open.sort_by_key(|(_, id)| *id);
-        open.dedup_by_key(|(_, id)| *id);
-        for (f, id) in open {
-            if HELD_FOLDERS
-                .lock()
-                .unwrap_or_else(|e| e.into_inner())
-                .contains(&id)
-            {
-                continue;
+        let end = Instant::now() + FOLDER_LOCK_WAIT;
+        loop {
+            match sys::try_lock_exclusive(&f) {
+                Ok(true) => break,
+                Ok(false) if Instant::now() < end => {
+                    std::thread::sleep(Duration::from_millis(20));
+                }
+                Ok(false) => {
+                    return Err(Error::Io {
+                        path: dir.to_path_buf(),
+                        message: format!(
+                            "another process has held a lock on this folder for {} s (a `flock` \
+                             wrapper around lossprism takes the same lock: lock another file or \
+                             folder, such as `flock job.lock lossprism ...`)",
+                            FOLDER_LOCK_WAIT.as_secs()
+                        ),
+                    })
+                }
+                // Not lockable here: left unlocked, as before locks were taken.
+                Err(_) => return Ok(lock),
             }
-            if sys::lock_exclusive(&f).is_err() {
-                continue;
-            }
-            HELD_FOLDERS
-                .lock()
-                .unwrap_or_else(|e| e.into_inner())
-                .insert(id);
-            lock.held.push((f, id));
         }
-        lock
+        HELD_FOLDERS
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .insert(id);
+        lock.held.push((f, id));
+        Ok(lock)
     }
 }
 
@@ -1090,8 +1116,6 @@ struct Transaction {
     temps: Vec<PathBuf>,
     installs: Vec<Install>,
     closed: bool,
-    /// The staged files' folders, locked while they are renamed (and rolled back).
-    folders: Option<FolderLock>,
 }
 
 impl Transaction {
@@ -1124,15 +1148,10 @@ impl Transaction {
                 streams.push((t, open_in_place(t, path, *kind)?, b));
             }
         }
-        // 3. Rename the staged files over their targets, keeping the old content aside, with
-        // their folders locked against other processes' commits (held until the renames are
-        // over or rolled back).
-        let folders: Vec<&Path> = staged.iter().map(|(_, path, _)| split(path).0).collect();
-        self.folders = Some(FolderLock::take(&folders));
+        // 3. Rename the staged files over their targets, keeping the old content aside.
         for (t, path, tmp) in staged {
             self.install(t, path, &tmp)?;
         }
-        self.folders = None;
         // 4. Streams, then standard output: a reader that stalls would hold a signal's exit
         // for as long, and what is written there cannot be taken back anyway.
         drop(gate);
@@ -1572,17 +1591,20 @@ mod sys {
         Some((m.dev(), m.ino()))
     }
 
-    /// Takes an exclusive `flock` on `file`, waiting for other holders (and through signals).
-    pub fn lock_exclusive(file: &File) -> std::io::Result<()> {
+    /// Tries an exclusive `flock` on `file` without waiting: `Ok(false)` when another open
+    /// file description holds it.
+    pub fn try_lock_exclusive(file: &File) -> std::io::Result<bool> {
         use std::os::unix::io::AsRawFd;
         loop {
             // SAFETY: flock on a descriptor `file` owns for the call; it only takes a lock.
-            if unsafe { libc::flock(file.as_raw_fd(), libc::LOCK_EX) } == 0 {
-                return Ok(());
+            if unsafe { libc::flock(file.as_raw_fd(), libc::LOCK_EX | libc::LOCK_NB) } == 0 {
+                return Ok(true);
             }
             let e = std::io::Error::last_os_error();
-            if e.kind() != std::io::ErrorKind::Interrupted {
-                return Err(e);
+            match e.kind() {
+                std::io::ErrorKind::Interrupted => continue,
+                std::io::ErrorKind::WouldBlock => return Ok(false),
+                _ => return Err(e),
             }
         }
     }
@@ -1621,8 +1643,8 @@ mod sys {
         None
     }
 
-    pub fn lock_exclusive(_: &File) -> std::io::Result<()> {
-        Ok(())
+    pub fn try_lock_exclusive(_: &File) -> std::io::Result<bool> {
+        Ok(true)
     }
 
     pub fn is_fifo(_: &Metadata) -> bool {
@@ -2177,10 +2199,11 @@ mod tests {
     }
 
     /// A folder lock is a real `flock` another process sees, let go when dropped; a folder this
-    /// process holds is not locked twice (the ledger's lock, then its commit).
+    /// process holds is not locked twice; a folder another process holds is waited for and then
+    /// refused by name (a `flock DIR lossprism ...` wrapper: never a hang).
     #[cfg(unix)]
     #[test]
-    fn a_folder_lock_excludes_other_processes_until_dropped() {
+    fn a_folder_lock_excludes_other_processes_and_never_hangs() {
         if !flock_program() {
             eprintln!("note: no flock program; skipping");
             return;
@@ -2196,10 +2219,9 @@ mod tests {
                 .code()
         };
         assert_eq!(try_other(), Some(0));
-        let lock = FolderLock::take(&[d.path(), d.path()]);
+        let lock = FolderLock::take(d.path()).unwrap();
         assert_eq!(try_other(), Some(7), "another process took a held folder");
-        // Taken again by this process (a commit inside an assessment's lock): no wait.
-        let inner = FolderLock::take(&[d.path()]);
+        let inner = FolderLock::take(d.path()).unwrap();
         assert!(inner.held.is_empty());
         drop(inner);
         assert_eq!(
@@ -2209,28 +2231,10 @@ mod tests {
         );
         drop(lock);
         assert_eq!(try_other(), Some(0));
-    }
-
-    /// A commit waits while another process holds its output's folder (sweep 67: two runs
-    /// writing the same `--out` and `--csv` at once could leave one's JSON beside the other's
-    /// CSV): the files appear only after the other process lets go.
-    #[cfg(unix)]
-    #[test]
-    fn a_commit_waits_for_another_process_holding_the_folder() {
-        if !flock_program() {
-            eprintln!("note: no flock program; skipping");
-            return;
-        }
-        let d = tempfile::tempdir().unwrap();
-        let gone = d.path().join("gone");
-        // The other process holds the folder until the file `gone` appears.
+        // Held by another process for longer than the wait: an error naming the folder.
         let mut holder = Command::new("flock")
             .arg(d.path())
-            .args([
-                "sh",
-                "-c",
-                "touch held; while [ ! -e gone ]; do sleep 0.05; done",
-            ])
+            .args(["sh", "-c", "touch held; sleep 3"])
             .current_dir(d.path())
             .spawn()
             .unwrap();
@@ -2242,19 +2246,15 @@ mod tests {
             );
             std::thread::sleep(Duration::from_millis(10));
         }
-        let out = d.path().join("a.json");
-        let writer = {
-            let out = out.clone();
-            std::thread::spawn(move || write_one("--out", &out, &[], b"{}\n".to_vec()))
+        let e = match FolderLock::take(d.path()) {
+            Ok(_) => panic!("a held folder was taken"),
+            Err(e) => e,
         };
-        std::thread::sleep(Duration::from_millis(400));
         assert!(
-            !out.exists(),
-            "the commit renamed while another process held the folder"
+            e.to_string().contains("another process has held a lock"),
+            "{e}"
         );
-        fs::write(&gone, b"").unwrap();
-        writer.join().unwrap().unwrap();
-        assert_eq!(fs::read(&out).unwrap(), b"{}\n");
         holder.wait().unwrap();
+        assert!(FolderLock::take(d.path()).is_ok());
     }
 }

@@ -910,7 +910,12 @@ fn save_checkpoint(job: &Job<'_>, fp: &str, path: &Path, st: &mut Progress) -> R
         let doc = part_doc(job.plan, job.source, fp, job.shard, true, &st.blocks);
         part_json(&doc)
     };
-    crate::output::write_one("--checkpoint", path, &[], text.into_bytes())?;
+    crate::output::write_one(
+        crate::output::CHECKPOINT_OUTPUT,
+        path,
+        &[],
+        text.into_bytes(),
+    )?;
     st.last_write = Some((std::time::Instant::now(), start.elapsed()));
     st.unsaved = false;
     Ok(())
@@ -1139,6 +1144,32 @@ pub fn merge(paths: &[PathBuf], memory_limit: Option<u64>) -> Result<Merged, Err
             "{}: fingerprint does not match its embedded scenario ({why})",
             name(0)
         )));
+    }
+    // Every other part's embedded scenario must plan to the fingerprint it carries too (sweep
+    // 69: a part whose `scenario_text` was edited merged when it was not the first). A text
+    // equal to the first's was checked above; one that differs (a comment edited between
+    // shards, say) is planned on its own.
+    for (i, d) in docs.iter().enumerate().skip(1) {
+        if d.scenario_text == first.scenario_text {
+            continue;
+        }
+        let other = ScenarioSource {
+            file: d.scenario_file.clone(),
+            text: d.scenario_text.clone(),
+            base: source.base.clone(),
+        };
+        let same = other
+            .plan(&opts)
+            .ok()
+            .and_then(|p| fingerprint(&p, &other.text).ok())
+            .is_some_and(|f| without_scripts(&f) == without_scripts(&d.fingerprint));
+        if !same {
+            return Err(refuse(format!(
+                "{}: fingerprint does not match its embedded scenario (the part was edited, or its \
+                 scenario's data file changed since the shards ran)",
+                name(i)
+            )));
+        }
     }
     if count > plan.blocks {
         return Err(refuse(format!(

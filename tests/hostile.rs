@@ -427,6 +427,16 @@ fn scenario_cases(t: &mut Table) {
         v,
         "entry 1 is 9007199254740993, a whole number a 64-bit float cannot hold exactly",
     );
+    t.scenario(
+        g,
+        "a grid range starting beyond 2^53",
+        &sc(
+            "grid = [1, 2]",
+            "grid = { from = 9007199254740993, to = 9007199254741001, step = 2 }",
+        ),
+        v,
+        "`from` is 9007199254740993, a whole number a 64-bit float cannot hold exactly",
+    );
     // A `[data.noise]` without sd was reported at the `source` line.
     t.scenario(
         g,

@@ -115,6 +115,9 @@ fn shard_and_merge(dir: &Path, scenario: &str, extra: &[&str], n: u64) -> String
     read(dir, &out)
 }
 
+/// The noise line of [`SMALL`], which a hand edit changes.
+const SMALL_NOISE: &str = "sd = 0.5";
+
 /// An edited part document with its checksum recomputed, as the program computes it.
 fn reseal(v: &Value) -> String {
     let mut doc: lossprism::report::part::PartDoc =
@@ -360,6 +363,42 @@ fn merge_refuses_parts_that_do_not_make_one_run() {
     let msg = refused(d, &["merge", "ck.json"]);
     assert!(msg.contains("ck.json is a checkpoint"), "{msg}");
 
+    // Sweep 69: a part whose embedded scenario was edited (checksum resealed) merged when it
+    // was not the first part; it is refused in any position.
+    let mut v: Value = serde_json::from_str(&read(d, "p3.json")).unwrap();
+    let text = v["scenario_text"].as_str().unwrap().to_string();
+    assert!(text.contains(SMALL_NOISE), "fixture: no `{SMALL_NOISE}`");
+    v["scenario_text"] = Value::from(text.replace(SMALL_NOISE, "sd = 0.9"));
+    fs::write(d.join("text.json"), reseal(&v)).unwrap();
+    for order in [
+        ["p1.json", "p2.json", "text.json"],
+        ["text.json", "p1.json", "p2.json"],
+    ] {
+        let mut args = vec!["merge"];
+        args.extend(order);
+        let msg = refused(d, &args);
+        assert!(
+            msg.contains("text.json") && msg.contains("fingerprint does not match"),
+            "{order:?}: {msg}"
+        );
+    }
+    // A comment edited between shards changes no number: that part still merges.
+    let mut v: Value = serde_json::from_str(&read(d, "p3.json")).unwrap();
+    let text = v["scenario_text"].as_str().unwrap().to_string();
+    v["scenario_text"] = Value::from(format!("# a comment added later\n{text}"));
+    fs::write(d.join("comment.json"), reseal(&v)).unwrap();
+    ok(
+        d,
+        &[
+            "merge",
+            "p1.json",
+            "p2.json",
+            "comment.json",
+            "--out",
+            "c.json",
+        ],
+    );
+
     // an edited part is refused by its checksum, naming the file
     let mut v: Value = serde_json::from_str(&read(d, "p2.json")).unwrap();
     v["completed"].as_array_mut().unwrap().remove(1);
@@ -475,6 +514,46 @@ fn signalled(d: &Path, shell: &str, signal: &str) -> std::process::Output {
         .unwrap();
     assert!(status.success());
     child.wait_with_output().unwrap()
+}
+
+/// Two signals: the second stops the run at once, and says that the checkpoint, not the
+/// outputs, holds the finished blocks (sweep 69: a checkpoint's rewrite counted as "the outputs
+/// were written" with no `--out` file).
+#[cfg(unix)]
+#[test]
+fn a_second_signal_says_the_checkpoint_holds_the_blocks_not_the_outputs() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    fs::write(d.join("s.toml"), slow_scenario()).unwrap();
+    let child = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .current_dir(d)
+        .args(CHECKPOINTED)
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let waited = std::time::Instant::now();
+    while !d.join("ck.json").exists() && waited.elapsed().as_secs() < 60 {
+        std::thread::sleep(std::time::Duration::from_millis(5));
+    }
+    let pid = child.id().to_string();
+    for _ in 0..2 {
+        std::process::Command::new("kill")
+            .args(["-TERM", &pid])
+            .status()
+            .unwrap();
+    }
+    let out = child.wait_with_output().unwrap();
+    let err = stderr(&out);
+    if out.status.code() == Some(0) || !err.contains("interrupted twice") {
+        // The run (or its first stop) ended before the second signal arrived.
+        println!("the second signal came too late to test: {err}");
+        return;
+    }
+    assert!(
+        err.contains("interrupted twice: stopping now; the finished blocks are saved in ck.json"),
+        "{err}"
+    );
+    assert!(!d.join("r.json").exists());
 }
 
 /// A SIGHUP ignored at start (`nohup`) stays ignored: the handler that stops a run on SIGTERM

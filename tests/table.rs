@@ -720,6 +720,10 @@ fn many_levels() -> String {
     s
 }
 
+/// The `features` line of `scenarios/cold-store-table.toml`.
+const FEATURES_LINE: &str =
+    "features = [\"hour\", \"door_openings\", \"load_tonnes\", \"compressor\"]";
+
 #[test]
 fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     let dir = tmp();
@@ -771,6 +775,50 @@ fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     let b2 = p["bias_sq"].as_f64().unwrap();
     let ne = doc["noise_estimate"]["value"].as_f64().unwrap();
     approx::assert_relative_eq!(b2, bpn - ne, max_relative = 1e-12);
+    // Sweep 69: the same held-out rows under other `features` are the same holdout (dropping
+    // one feature restarted the count at 1 and called the holdout new).
+    let text = fs::read_to_string(dir.path().join("c.toml")).unwrap();
+    let fewer = FEATURES_LINE.replace(", \"compressor\"", "");
+    assert!(
+        text.contains(FEATURES_LINE),
+        "fixture: no `{FEATURES_LINE}`"
+    );
+    fs::write(
+        dir.path().join("f.toml"),
+        text.replace(FEATURES_LINE, &fewer),
+    )
+    .unwrap();
+    fs::copy(
+        dir.path().join("c.holdout-ledger.json"),
+        dir.path().join("f.holdout-ledger.json"),
+    )
+    .unwrap();
+    let other = run_in(dir.path(), &["run", "f.toml", "--assess", "4"]);
+    assert_eq!(other.status.code(), Some(0), "{}", stderr(&other));
+    assert!(
+        String::from_utf8_lossy(&other.stdout).contains("assessment 3 of this holdout"),
+        "{}",
+        String::from_utf8_lossy(&other.stdout)
+    );
+    // A ledger of 0.3.9 or before, keyed by the values' hash, carries its count on.
+    let mut old: serde_json::Value = serde_json::from_str(
+        &fs::read_to_string(dir.path().join("c.holdout-ledger.json")).unwrap(),
+    )
+    .unwrap();
+    let plan = lossprism::scenario::load(&dir.path().join("c.toml"), &Default::default()).unwrap();
+    let lossprism::scenario::Source::Table(tp) = &plan.source else {
+        panic!("a table source")
+    };
+    let legacy = lossprism::dataset::holdout::hash_values(&tp.table, &tp.holdout);
+    assert_ne!(legacy, old["holdouts"][0]["hash"].as_str().unwrap());
+    old["holdouts"][0]["hash"] = serde_json::json!(legacy);
+    fs::write(dir.path().join("c.holdout-ledger.json"), old.to_string()).unwrap();
+    let carried = run_in(dir.path(), &["run", "c.toml", "--assess", "4"]);
+    assert!(
+        String::from_utf8_lossy(&carried.stdout).contains("assessment 3 of this holdout"),
+        "{}",
+        String::from_utf8_lossy(&carried.stdout)
+    );
     // Another seed draws another holdout: its first assessment is no fresh look either, and
     // says so (the ledger's count used to start again at 1 without a word).
     let text = fs::read_to_string(dir.path().join("c.toml")).unwrap();
@@ -784,7 +832,7 @@ fn holdout_assessment_is_counted_and_warns_from_the_second_time() {
     assert_eq!(third.status.code(), Some(0), "{}", stderr(&third));
     assert!(String::from_utf8_lossy(&third.stdout).contains("assessment 1 of this holdout"));
     assert!(
-        stderr(&third).contains("is new, but the ledger counts 2 earlier assessments"),
+        stderr(&third).contains("is new, but the ledger counts 3 earlier assessments"),
         "{}",
         stderr(&third)
     );

@@ -2284,6 +2284,12 @@ fn a_reference_too_large_for_memory_is_refused_before_it_is_fitted() {
     // but not in 10 MiB.
     let m = problem(&huge, 1_000, 4, 0, Some(16 * gib), Some(10 << 20)).expect("refused");
     assert!(m.contains("--memory-limit of 10.0 MiB"), "{m}");
+    // ... and a limit replaces the memory available, as for the whole run: 29 GiB fits a
+    // limit of 64 GiB on a machine of 16.
+    assert_eq!(
+        problem(&huge, 100_000, 4, 0, Some(16 * gib), Some(64 * gib)),
+        None
+    );
 }
 
 /// `--memory-limit` is compared with a twin's reference before the reference is fitted: a
@@ -2417,4 +2423,44 @@ fn an_input_copying_the_target_is_named() {
     );
     assert!(!text.contains("input `close`"), "{text}");
     assert!(!text.contains("input `a`"), "{text}");
+}
+
+/// Twin files written before 0.3.9 held free blend weights (sums of 0.05-1.10 on responses near
+/// 0) and still run as written; a sum above 1.5 (an edit doubling the truth) is refused.
+#[test]
+fn blend_weights_of_older_twins_run_and_a_doubled_truth_is_refused() {
+    let dir = tempfile::tempdir().unwrap();
+    let d = dir.path();
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"));
+    fs::create_dir(d.join("data")).unwrap();
+    fs::copy(
+        root.join("scenarios/data/cold-store.csv"),
+        d.join("data/cold-store.csv"),
+    )
+    .unwrap();
+    let text = fs::read_to_string(root.join("scenarios/cold-store-twin.toml")).unwrap();
+    let written = "weights = { knn = 0.2357292662060524, forest = 0.009671841616611842, loclin = 0.7545988921773358 }";
+    assert!(
+        text.contains(written),
+        "fixture: the shipped weights changed"
+    );
+    let validate = |weights: &str| {
+        fs::write(d.join("t.toml"), text.replace(written, weights)).unwrap();
+        std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+            .current_dir(d)
+            .args(["validate", "t.toml"])
+            .output()
+            .unwrap()
+    };
+    let old = validate("weights = { knn = 0.1, forest = 0.03, loclin = 0.3 }");
+    assert_eq!(
+        old.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&old.stderr)
+    );
+    let doubled = validate("weights = { knn = 0.5, forest = 0.5, loclin = 1.0 }");
+    let err = String::from_utf8_lossy(&doubled.stderr);
+    assert_eq!(doubled.status.code(), Some(2), "{err}");
+    assert!(err.contains("`data.reference.weights`: sum to 2"), "{err}");
 }

@@ -165,6 +165,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         f64::NAN
     };
     let h = hash(table, &tp.holdout);
+    let legacy = crate::dataset::holdout::hash_values(table, &tp.holdout);
     let model = &plan.models[0];
     let look = format!(
         "{} {} = {}",
@@ -172,7 +173,7 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
         model.family.knob(),
         fmt_value(value)
     );
-    let (count, looks, earlier) = record(ledger, &h, tp.holdout.len(), value, &look)?;
+    let (count, looks, earlier) = record(ledger, (&h, &legacy), tp.holdout.len(), value, &look)?;
     // A holdout drawn anew (another seed or holdout share, or an edited table) after an earlier
     // one's loss was seen: the choice may already carry what that look said, and rows of the
     // earlier holdout may be in this one.
@@ -214,11 +215,12 @@ pub fn assess(plan: &Plan, value: f64, ledger: &Path) -> Result<Assessment, Erro
 /// Largest holdout ledger read (bytes); a ledger grows by a few dozen bytes per assessment.
 const MAX_LEDGER_BYTES: u64 = 64 << 20;
 
-/// Adds one assessment of holdout `hash` to the ledger (creating it), and returns the count and
+/// Adds one assessment of holdout `hash` (or of the entry a ledger of 0.3.9 or before kept under
+/// `legacy`, the values' hash) to the ledger (creating it), and returns the count and
 /// values so far, and the number of assessments of the ledger's other holdouts.
 fn record(
     ledger: &Path,
-    hash: &str,
+    (hash, legacy): (&str, &str),
     rows: usize,
     value: f64,
     look: &str,
@@ -226,8 +228,10 @@ fn record(
     use serde_json::{json, Value};
     // Read, count and write under a lock on the ledger's folder: six assessments started
     // together each read the same count and the ledger ended at 1 (exit 0 every time).
-    let dir = ledger.parent().unwrap_or(Path::new(""));
-    let _lock = crate::output::FolderLock::take(&[dir]);
+    // The folder the ledger resolves to (a ledger linked into another folder is written there).
+    let resolved = std::fs::canonicalize(ledger).unwrap_or_else(|_| ledger.to_path_buf());
+    let dir = resolved.parent().unwrap_or(Path::new(""));
+    let _lock = crate::output::FolderLock::take(dir)?;
     let read = match ledger.try_exists() {
         Ok(true) => crate::codec::read_document(
             ledger,
@@ -262,6 +266,19 @@ fn record(
         .get_mut("holdouts")
         .and_then(Value::as_array_mut)
         .ok_or_else(|| Error::Usage(format!("{}: no `holdouts` list", ledger.display())))?;
+    // An entry written before 0.3.10 under the values' hash is this holdout's: it is carried on
+    // under the records' hash (once; a ledger holding both is refused below as a double entry).
+    if !list
+        .iter()
+        .any(|e| e.get("hash").and_then(Value::as_str) == Some(hash))
+    {
+        if let Some(e) = list
+            .iter_mut()
+            .find(|e| e.get("hash").and_then(Value::as_str) == Some(legacy))
+        {
+            e["hash"] = json!(hash);
+        }
+    }
     let same = |e: &Value| e.get("hash").and_then(Value::as_str) == Some(hash);
     // Two entries of one holdout split its count (each could be edited down on its own).
     if list.iter().filter(|e| same(e)).count() > 1 {

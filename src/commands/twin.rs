@@ -965,6 +965,7 @@ pub fn draw_from_twin(plan: &Plan, like: &Table, n: usize, t: usize) -> Result<T
         dropped_rows: 0,
         repeats_dropped: 0,
         lines: (2..n + 2).collect(),
+        records: Vec::new(),
     })
 }
 
@@ -2119,10 +2120,14 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
     for j in copies_of_target(&t) {
         // Sweep 68: a column equal to the target gave a twin without noise whose truth was that
         // column, and nothing said so.
+        let consequence = match t.task {
+            Task::Regress => "the twin's truth will be that column and its noise about 0",
+            Task::Classify { .. } => "the twin's classes will follow that column almost surely",
+        };
         out.push_str(&format!(
             "  note: input `{}` is the target up to a linear change of scale (|correlation| 1 to \
-             9 digits): the twin's truth will be that column and its noise about 0; if it is \
-             the target leaking into the inputs, leave it out with --features\n",
+             9 digits): {consequence}; if it is the target leaking into the inputs, leave it out \
+             with --features\n",
             crate::fmt::clip(t.names.get(j).map_or("?", String::as_str), 80)
         ));
     }

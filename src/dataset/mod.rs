@@ -240,6 +240,11 @@ pub struct Table {
     pub repeats_dropped: usize,
     /// The file line (1-based, header = 1) of each kept row.
     pub lines: Vec<usize>,
+    /// FNV-1a (64 bit) of each kept row's whole record as read (every column, trimmed): the
+    /// observation, whichever columns a run uses (the holdout's identity in the ledger, so that
+    /// editing `features` or `target` does not restart its count). Empty for tables built in
+    /// memory.
+    pub records: Vec<u64>,
 }
 
 impl Table {
@@ -279,6 +284,11 @@ impl Table {
             dropped_rows: self.dropped_rows,
             repeats_dropped: self.repeats_dropped,
             lines: idx.iter().map(|&i| self.lines[i]).collect(),
+            records: if self.records.len() == self.rows() {
+                idx.iter().map(|&i| self.records[i]).collect()
+            } else {
+                Vec::new()
+            },
         }
     }
 
@@ -1130,6 +1140,17 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         dropped_rows: dropped,
         repeats_dropped: 0,
         lines: rows.iter().map(|&r| lines[r]).collect(),
+        records: rows
+            .iter()
+            .map(|&r| {
+                let mut bytes = Vec::new();
+                for cell in cells[r].iter() {
+                    bytes.extend_from_slice(cell.as_bytes());
+                    bytes.push(0);
+                }
+                crate::codec::fnv1a64(&bytes)
+            })
+            .collect(),
     };
     if opts.duplicates == Duplicates::Keep {
         return Ok(table);

@@ -1123,13 +1123,13 @@ impl Family for ExternalFamily {
         self.finish_all().map_err(|e| self.fail(e))
     }
 
-    /// A script `command` names must exist: one that is not there was found only when the
-    /// first fit started it, after `validate` had passed the file. (Not checked when the
-    /// scenario is read: `merge` reads it where the scripts may be absent.)
     fn answered_by(&self) -> Option<String> {
         Some(self.who())
     }
 
+    /// A script `command` names must exist: one that is not there was found only when the
+    /// first fit started it, after `validate` had passed the file. (Not checked when the
+    /// scenario is read: `merge` reads it where the scripts may be absent.)
     fn check_ready(&self) -> Result<(), String> {
         let dir = self.dir.clone().unwrap_or_default();
         // Not checked: the program itself when it has no `/` (found on PATH), a word after an

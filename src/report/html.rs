@@ -517,6 +517,13 @@ fn curve_reading(doc: &ResultDoc) -> Vec<String> {
     let mut gap = |i: usize| -> (String, Option<f64>) {
         let p = &pts[i];
         let d = p.expected_loss() - best.expected_loss();
+        if d == 0.0 {
+            // An exact tie (sweep 69: "is higher by 0.000").
+            return (
+                format!("{knob} = {} ties it exactly", fmt_value(p.value)),
+                None,
+            );
+        }
         let se = paired(i).or_else(|| match (se_b, p.se("expected_loss")) {
             (Some(a), Some(b)) if a > 0.0 || b > 0.0 => {
                 any_unpaired = true;

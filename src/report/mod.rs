@@ -228,9 +228,13 @@ impl PartialEq for PointRow {
     /// got `paired`).
     fn eq(&self, o: &Self) -> bool {
         fn same<T>(a: &[(String, T)], b: &[(String, T)], eq: impl Fn(&T, &T) -> bool) -> bool {
+            // Each side's keys found on the other with equal values, and as many of each
+            // (a row built in memory may repeat a key: [x, x] is not [x, y]).
+            let count = |v: &[(String, T)], k: &str| v.iter().filter(|(l, _)| l == k).count();
             a.len() == b.len()
-                && a.iter()
-                    .all(|(k, x)| b.iter().any(|(l, y)| k == l && eq(x, y)))
+                && a.iter().all(|(k, x)| {
+                    count(a, k) == count(b, k) && b.iter().any(|(l, y)| k == l && eq(x, y))
+                })
         }
         let bits = |x: &f64, y: &f64| x.to_bits() == y.to_bits();
         self.value.to_bits() == o.value.to_bits()
@@ -2056,6 +2060,16 @@ pub fn ranking_reading(r: &Ranking) -> String {
             .map(|s| format!(" ± {}", fmt_se(s)))
             .unwrap_or_default();
         let clear = c.difference_stderr.is_some_and(|s| c.difference > 2.0 * s);
+        if c.difference == 0.0 {
+            // An exact tie (sweep 69: "is 0.000 ± 0.00 worse").
+            parts.push(format!(
+                "{} {} = {} ties it exactly.",
+                c.family,
+                c.knob,
+                fmt_value(c.value)
+            ));
+            continue;
+        }
         parts.push(format!(
             "{} {} = {} is {}{se} worse{}.",
             c.family,
@@ -2410,6 +2424,33 @@ mod tests {
         assert!(d.starts_with(EVEN_DESCRIPTION), "{d}");
         let u = crate::dgp::InputDist::Uniform(0.0, 1.0).describe();
         assert!(!u.starts_with(EVEN_DESCRIPTION), "{u}");
+    }
+
+    /// An exact tie in a ranking is said as one (sweep 69: "is 0.000 ± 0.00 worse").
+    #[test]
+    fn a_ranking_says_an_exact_tie_as_a_tie() {
+        let cand = |family: &str, value: f64, difference: f64| Candidate {
+            family: family.into(),
+            knob: if family == "tree" { "max_depth" } else { "k" }.into(),
+            value,
+            expected_loss: 0.5 + difference,
+            stderr: Some(0.01),
+            difference,
+            difference_stderr: Some(0.0),
+            unpaired_stderr: Some(0.014),
+        };
+        let r = Ranking {
+            train_size: 3,
+            candidates: vec![
+                cand("tree", 2.0, 0.0),
+                cand("knn", 1.0, 0.0),
+                cand("ridge", 0.5, 0.1),
+            ],
+        };
+        let text = ranking_reading(&r);
+        assert!(text.contains("knn k = 1 ties it exactly."), "{text}");
+        assert!(!text.contains("0.000"), "{text}");
+        assert!(text.contains("is 0.1000 ± 0.00 worse"), "{text}");
     }
 
     /// The reading compares the bias-type and variance-type terms it is given, whatever their

@@ -512,6 +512,8 @@ pub fn render_view(doc: &ResultDoc, view: View) -> String {
                     "  1. {what}: {}\n",
                     with_se(c.expected_loss, c.stderr)
                 ));
+            } else if c.difference == 0.0 {
+                out.push_str(&format!("  {}. {what}: ties it exactly\n", i + 1));
             } else {
                 let unpaired = c
                     .unpaired_stderr

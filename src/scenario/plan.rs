@@ -1217,6 +1217,19 @@ fn build_models(
     Ok(out)
 }
 
+/// A whole number beyond 2^53 that no f64 holds exactly, in words (sweep 68:
+/// 9007199254740993 ran as 9007199254740992); `None` for anything else.
+fn inexact_whole(v: &toml::Value) -> Option<String> {
+    match v {
+        toml::Value::Integer(w) if (*w as f64) as i128 != *w as i128 => Some(format!(
+            "{w}, a whole number a 64-bit float cannot hold exactly (it would run as {}); use \
+             one of at most 2^53",
+            *w as f64
+        )),
+        _ => None,
+    }
+}
+
 fn number(v: &toml::Value) -> Option<f64> {
     match v {
         toml::Value::Integer(i) => Some(*i as f64),
@@ -1235,16 +1248,8 @@ fn expand_grid(
         toml::Value::Array(a) => {
             let mut out = Vec::with_capacity(a.len());
             for (i, v) in a.iter().enumerate() {
-                // A whole number beyond 2^53 has no exact f64 (9007199254740993 ran as ...992).
-                if let toml::Value::Integer(w) = v {
-                    if (*w as f64) as i128 != *w as i128 {
-                        return Err(e(format!(
-                            "entry {} is {w}, a whole number a 64-bit float cannot hold exactly \
-                             (it would run as {}); use one of at most 2^53",
-                            i + 1,
-                            *w as f64
-                        )));
-                    }
+                if let Some(m) = inexact_whole(v) {
+                    return Err(e(format!("entry {} is {m}", i + 1)));
                 }
                 match number(v) {
                     Some(x) if x.is_finite() => out.push(x),
@@ -1295,6 +1300,11 @@ fn expand_grid(
                     .collect();
                 (v, GridKind::Log)
             } else {
+                for key in ["from", "to", "step"] {
+                    if let Some(m) = t.get(key).and_then(inexact_whole) {
+                        return Err(e(format!("`{key}` is {m}")));
+                    }
+                }
                 let from = t.get("from").and_then(number);
                 let to = t.get("to").and_then(number);
                 let step = t.get("step").map(number).unwrap_or(Some(1.0));
