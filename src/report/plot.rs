@@ -78,6 +78,74 @@ fn axis(lo: f64, hi: f64, which: &str) -> Result<std::ops::Range<f64>, Error> {
     Ok(lo..hi)
 }
 
+/// A value axis from `lo` to `hi` ([`axis`]) whose labels sit at round values chosen here
+/// ([`round_ticks`]): the plotting library's own choice failed on tiny ranges (expected losses
+/// near 1e-19 got one label, `-3.433e-20`, and ranges near 1e-17 labels that were not round).
+fn value_axis(lo: f64, hi: f64, which: &str) -> Result<RoundAxis, Error> {
+    let r = axis(lo, hi, which)?;
+    Ok(RoundAxis {
+        inner: r.clone().into(),
+        lo: r.start,
+        hi: r.end,
+    })
+}
+
+/// [`value_axis`]'s coordinate: the library's linear mapping, with round label positions.
+#[derive(Clone)]
+struct RoundAxis {
+    inner: plotters::coord::types::RangedCoordf64,
+    lo: f64,
+    hi: f64,
+}
+
+impl plotters::coord::ranged1d::Ranged for RoundAxis {
+    type FormatOption = plotters::coord::ranged1d::DefaultFormatting;
+    type ValueType = f64;
+
+    fn map(&self, value: &f64, limit: (i32, i32)) -> i32 {
+        self.inner.map(value, limit)
+    }
+
+    fn key_points<Hint: plotters::coord::ranged1d::KeyPointHint>(&self, hint: Hint) -> Vec<f64> {
+        if hint.weight().allow_light_points() {
+            // No light grid lines between the labelled ones.
+            return Vec::new();
+        }
+        let most = hint.max_num_points().max(2);
+        let mut n = most;
+        loop {
+            let ticks = round_ticks(self.lo, self.hi, n);
+            if ticks.len() <= most || n <= 2 {
+                return ticks;
+            }
+            n -= 1;
+        }
+    }
+
+    fn range(&self) -> std::ops::Range<f64> {
+        self.lo..self.hi
+    }
+}
+
+/// About `n` round values (1, 2 or 5 times a power of ten apart) within `[lo, hi]`; the two
+/// ends when the range is empty or not finite.
+fn round_ticks(lo: f64, hi: f64, n: usize) -> Vec<f64> {
+    let span = hi - lo;
+    if !(span > 0.0 && span.is_finite()) || n == 0 {
+        return vec![lo, hi];
+    }
+    let raw = span / n as f64;
+    let power = 10f64.powi(raw.log10().floor() as i32);
+    let step = [1.0, 2.0, 5.0, 10.0]
+        .iter()
+        .map(|m| m * power)
+        .find(|s| *s >= raw)
+        .unwrap_or(10.0 * power);
+    let first = (lo / step).ceil() as i64;
+    let last = (hi / step).floor() as i64;
+    (first..=last).map(|k| k as f64 * step).collect()
+}
+
 /// How a series is stroked: solid, or dashes of `on` pixels separated by `off` pixels.
 #[derive(Debug, Clone, Copy, PartialEq)]
 enum Dash {
@@ -551,7 +619,7 @@ pub fn curve_svg_scaled(doc: &ResultDoc, view: View, scale: YScale) -> Result<St
             .margin_bottom(8)
             .x_label_area_size(52)
             .y_label_area_size(74)
-            .build_cartesian_2d(axis(x0, x1, "x")?, axis(y0, y1, "y")?)
+            .build_cartesian_2d(axis(x0, x1, "x")?, value_axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         let xfmt = |v: &f64| {
             if log {
@@ -1251,7 +1319,7 @@ pub fn points_svg(v: &PointView) -> Result<String, Error> {
             .margin_bottom(8)
             .x_label_area_size(52)
             .y_label_area_size(74)
-            .build_cartesian_2d(axis(x0, x1, "x")?, axis(y0, y1, "y")?)
+            .build_cartesian_2d(axis(x0, x1, "x")?, value_axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         chart
             .configure_mesh()
@@ -1893,7 +1961,7 @@ pub fn learning_svg(doc: &ResultDoc) -> Result<String, Error> {
             .margin(14)
             .x_label_area_size(48)
             .y_label_area_size(74)
-            .build_cartesian_2d(axis(x0, x1, "x")?, axis(y0, y1, "y")?)
+            .build_cartesian_2d(axis(x0, x1, "x")?, value_axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         chart
             .configure_mesh()
@@ -2035,7 +2103,7 @@ pub fn families_svg(doc: &ResultDoc) -> Result<String, Error> {
             .margin(14)
             .x_label_area_size(48)
             .y_label_area_size(74)
-            .build_cartesian_2d(-0.05f64..1.05f64, axis(y0, y1, "y")?)
+            .build_cartesian_2d(-0.05f64..1.05f64, value_axis(y0, y1, "y")?)
             .map_err(draw_err)?;
         chart
             .configure_mesh()
@@ -2123,4 +2191,33 @@ pub fn families_svg(doc: &ResultDoc) -> Result<String, Error> {
         root.present().map_err(draw_err)?;
     }
     Ok(xml_chars(buf))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// Round labels at every scale (sweep 69: losses near 1e-19 got one label, -3.433e-20):
+    /// 1, 2 or 5 times a power of ten apart, inside the range, about as many as asked.
+    #[test]
+    fn value_axis_labels_are_round_at_every_scale() {
+        for scale in [1e-300, 1e-19, 1e-15, 1.0, 1e12, 1e150] {
+            let (lo, hi) = (1.37 * scale, 2.11 * scale);
+            let t = round_ticks(lo, hi, 8);
+            assert!((4..=10).contains(&t.len()), "{scale}: {t:?}");
+            assert!(t.iter().all(|v| *v >= lo && *v <= hi), "{scale}: {t:?}");
+            let step = t[1] - t[0];
+            let mantissa = step / 10f64.powf((step.log10() + 1e-9).floor());
+            assert!(
+                [1.0, 2.0, 5.0].iter().any(|m| (mantissa - m).abs() < 1e-6),
+                "{scale}: step {step}"
+            );
+        }
+        let t = round_ticks(0.0, 1.0, 5);
+        assert_eq!(t.len(), 6, "{t:?}");
+        assert!(
+            (t[3] - 0.6).abs() < 1e-12 && t[0] == 0.0 && t[5] == 1.0,
+            "{t:?}"
+        );
+    }
 }
