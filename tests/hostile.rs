@@ -2600,6 +2600,13 @@ fn csv_cases(t: &mut Table) {
         "no row was held out in 2 or more of the 4 replicates",
     )
     .also("lower `train_fraction`");
+    // Sweep 69: on a learning curve the refusal named no training size.
+    t.table(
+        "learning curve whose largest size holds out one row",
+        good.as_bytes(),
+        "train_size = [5, 39]",
+        "the term `expected_loss` at training size 39, max_depth = 1 is NaN",
+    );
     // One training row: the message said "only 40 rows outside the holdout; at least 4".
     t.table(
         "train_fraction 0.01",

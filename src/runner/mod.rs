@@ -561,8 +561,20 @@ fn summarize_in(
                     None
                 };
                 if let Some((what, x)) = bad {
+                    // Which model and training size, where there are several (sweep 69: a
+                    // learning curve's refusal named neither).
+                    let of = if plan.models.len() > 1 {
+                        format!(" of model `{}`", model.label)
+                    } else {
+                        String::new()
+                    };
+                    let size = if plan.sizes.len() > 1 {
+                        format!("training size {}, ", plan.sizes[c / plan.models.len()])
+                    } else {
+                        String::new()
+                    };
                     return Err(Error::Data(format!(
-                        "{}: {what} `{}` at {} = {} is {x}: {}",
+                        "{}: {what} `{}`{of} at {size}{} = {} is {x}: {}",
                         plan.file,
                         s.terms[t].key,
                         model.family.knob(),
