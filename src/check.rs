@@ -1196,6 +1196,23 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
         })
     };
     let family_of = |f: &str| (!doc.models.is_empty()).then(|| f.to_string());
+    // A run with several training sizes writes one learning curve per model, and none
+    // otherwise (sweep 69: a document whose `learning` was emptied drew "--learning needs a
+    // result with several training sizes" beside its three sizes).
+    let curves = if doc.sizes.len() > 1 {
+        doc.models.len().max(1)
+    } else {
+        0
+    };
+    if doc.learning.len() != curves {
+        return Err(format!(
+            "`learning` holds {} curves, but a run with {} training size{} writes {curves}; \
+             {EDITED}",
+            doc.learning.len(),
+            doc.sizes.len().max(1),
+            if doc.sizes.len() > 1 { "s" } else { "" }
+        ));
+    }
     for (c, lc) in doc.learning.iter().enumerate() {
         let sizes: Vec<usize> = lc.sizes.iter().map(|s| s.train_size).collect();
         if sizes != doc.sizes {

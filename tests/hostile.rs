@@ -3589,6 +3589,15 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             }),
             "`learning[0].sizes[0].variance` is not its row's",
         ),
+        // Sweep 69: an emptied `learning` drew "--learning needs a result with several
+        // training sizes" beside the document's two sizes.
+        (
+            "study: learning curves deleted",
+            edit_json(&docs.study, |v| {
+                v["learning"] = serde_json::json!([]);
+            }),
+            "`learning` holds 0 curves, but a run with 2 training sizes writes 1",
+        ),
         (
             "study: selection counts for more choices than replicates",
             edit_json(&docs.study, |v| {
