@@ -1012,14 +1012,15 @@ pub fn remove_stale_staging(path: &Path) {
 // Writing
 
 /// An exclusive advisory lock (`flock`) on a folder, held until dropped: assessments of
-/// scenarios in one folder count a holdout ledger's looks one at a time. A folder this process
-/// already holds is not locked again (a second descriptor would wait on the first). The lock
-/// is tried without blocking for up to [`FOLDER_LOCK_WAIT`]: a lock nobody lets go (a
-/// `flock DIR lossprism ...` wrapper holds the same folder, and lossprism inherits it) is then
-/// an error naming the folder, never a hang. A folder that cannot be opened for reading or
-/// cannot be locked at all (some network file systems) is left unlocked. Unix only.
+/// scenarios in one folder count a holdout ledger's looks one at a time (the one lock a
+/// process takes). The lock is tried without blocking for up to [`FOLDER_LOCK_WAIT`]: a lock
+/// nobody lets go (a `flock DIR lossprism ...` wrapper holds the same folder, and lossprism
+/// inherits it) is then an error naming the folder, never a hang. A folder that cannot be
+/// opened for reading or cannot be locked at all (some network file systems) is left
+/// unlocked. Unix only.
 pub struct FolderLock {
-    held: Vec<(File, (u64, u64))>,
+    /// The folder's descriptor holding the lock (closing it lets the lock go).
+    _held: Option<File>,
 }
 
 /// How long [`FolderLock::take`] tries before it gives up.
@@ -1029,17 +1030,13 @@ pub const FOLDER_LOCK_WAIT: Duration = Duration::from_secs(30);
 #[cfg(test)]
 pub const FOLDER_LOCK_WAIT: Duration = Duration::from_millis(500);
 
-/// Folders (device, inode) locked by this process.
-static HELD_FOLDERS: std::sync::Mutex<std::collections::BTreeSet<(u64, u64)>> =
-    std::sync::Mutex::new(std::collections::BTreeSet::new());
-
 impl FolderLock {
     /// Locks `dir` (an empty path is the working folder), waiting up to [`FOLDER_LOCK_WAIT`]
     /// for another process that holds it.
     pub fn take(dir: &Path) -> Result<FolderLock, Error> {
-        let mut lock = FolderLock { held: Vec::new() };
+        let unlocked = FolderLock { _held: None };
         if cfg!(not(unix)) {
-            return Ok(lock);
+            return Ok(unlocked);
         }
         let dir = if dir.as_os_str().is_empty() {
             Path::new(".")
@@ -1047,22 +1044,12 @@ impl FolderLock {
             dir
         };
         let Ok(f) = File::open(dir) else {
-            return Ok(lock);
+            return Ok(unlocked);
         };
-        let Some(id) = f.metadata().ok().as_ref().and_then(sys::dev_ino) else {
-            return Ok(lock);
-        };
-        if HELD_FOLDERS
-            .lock()
-            .unwrap_or_else(|e| e.into_inner())
-            .contains(&id)
-        {
-            return Ok(lock);
-        }
         let end = Instant::now() + FOLDER_LOCK_WAIT;
         loop {
             match sys::try_lock_exclusive(&f) {
-                Ok(true) => break,
+                Ok(true) => return Ok(FolderLock { _held: Some(f) }),
                 Ok(false) if Instant::now() < end => {
                     std::thread::sleep(Duration::from_millis(20));
                 }
@@ -1078,25 +1065,9 @@ impl FolderLock {
                     })
                 }
                 // Not lockable here: left unlocked, as before locks were taken.
-                Err(_) => return Ok(lock),
+                Err(_) => return Ok(unlocked),
             }
         }
-        HELD_FOLDERS
-            .lock()
-            .unwrap_or_else(|e| e.into_inner())
-            .insert(id);
-        lock.held.push((f, id));
-        Ok(lock)
-    }
-}
-
-impl Drop for FolderLock {
-    fn drop(&mut self) {
-        let mut held = HELD_FOLDERS.lock().unwrap_or_else(|e| e.into_inner());
-        for (_, id) in &self.held {
-            held.remove(id);
-        }
-        // Closing each descriptor (as `held` drops) lets its lock go.
     }
 }
 
@@ -2198,9 +2169,9 @@ mod tests {
             .is_ok_and(|o| o.status.success())
     }
 
-    /// A folder lock is a real `flock` another process sees, let go when dropped; a folder this
-    /// process holds is not locked twice; a folder another process holds is waited for and then
-    /// refused by name (a `flock DIR lossprism ...` wrapper: never a hang).
+    /// A folder lock is a real `flock` another process sees, let go when dropped; a folder another
+    /// process holds is waited for and then refused by name (a `flock DIR lossprism ...`
+    /// wrapper: never a hang).
     #[cfg(unix)]
     #[test]
     fn a_folder_lock_excludes_other_processes_and_never_hangs() {
@@ -2221,14 +2192,6 @@ mod tests {
         assert_eq!(try_other(), Some(0));
         let lock = FolderLock::take(d.path()).unwrap();
         assert_eq!(try_other(), Some(7), "another process took a held folder");
-        let inner = FolderLock::take(d.path()).unwrap();
-        assert!(inner.held.is_empty());
-        drop(inner);
-        assert_eq!(
-            try_other(),
-            Some(7),
-            "the inner guard let the outer lock go"
-        );
         drop(lock);
         assert_eq!(try_other(), Some(0));
         // Held by another process for longer than the wait: an error naming the folder.

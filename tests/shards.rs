@@ -491,11 +491,17 @@ const CHECKPOINTED: [&str; 7] = [
     "-q",
 ];
 
-/// Runs [`slow_scenario`] in `d` as [`CHECKPOINTED`] through `sh -c "{shell} exec ..."`, sends
-/// `signal` once its checkpoint exists, and returns how it ended.
+/// Runs `scenario` in `d` as [`CHECKPOINTED`] through `sh -c "{shell} exec ..."`, sends
+/// `signal` `times` times once its checkpoint exists, and returns how it ended.
 #[cfg(unix)]
-fn signalled(d: &Path, shell: &str, signal: &str) -> std::process::Output {
-    fs::write(d.join("s.toml"), slow_scenario()).unwrap();
+fn signalled_times(
+    d: &Path,
+    scenario: &str,
+    shell: &str,
+    signal: &str,
+    times: usize,
+) -> std::process::Output {
+    fs::write(d.join("s.toml"), scenario).unwrap();
     let child = std::process::Command::new("sh")
         .current_dir(d)
         .args(["-c", &format!("{shell} exec \"$0\" \"$@\"")])
@@ -508,12 +514,24 @@ fn signalled(d: &Path, shell: &str, signal: &str) -> std::process::Output {
     while !d.join("ck.json").exists() && waited.elapsed().as_secs() < 60 {
         std::thread::sleep(std::time::Duration::from_millis(5));
     }
-    let status = std::process::Command::new("kill")
-        .args([signal, &child.id().to_string()])
-        .status()
-        .unwrap();
-    assert!(status.success());
+    for i in 0..times {
+        if i > 0 {
+            // Two signals of one kind sent together may arrive as one (they are not queued).
+            std::thread::sleep(std::time::Duration::from_millis(50));
+        }
+        let status = std::process::Command::new("kill")
+            .args([signal, &child.id().to_string()])
+            .status()
+            .unwrap();
+        assert!(status.success());
+    }
     child.wait_with_output().unwrap()
+}
+
+/// [`signalled_times`] on [`slow_scenario`], once.
+#[cfg(unix)]
+fn signalled(d: &Path, shell: &str, signal: &str) -> std::process::Output {
+    signalled_times(d, &slow_scenario(), shell, signal, 1)
 }
 
 /// Two signals: the second stops the run at once, and says that the checkpoint, not the
@@ -524,25 +542,16 @@ fn signalled(d: &Path, shell: &str, signal: &str) -> std::process::Output {
 fn a_second_signal_says_the_checkpoint_holds_the_blocks_not_the_outputs() {
     let dir = tempfile::tempdir().unwrap();
     let d = dir.path();
-    fs::write(d.join("s.toml"), slow_scenario()).unwrap();
-    let child = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
-        .current_dir(d)
-        .args(CHECKPOINTED)
-        .stderr(std::process::Stdio::piped())
-        .spawn()
-        .unwrap();
-    let waited = std::time::Instant::now();
-    while !d.join("ck.json").exists() && waited.elapsed().as_secs() < 60 {
-        std::thread::sleep(std::time::Duration::from_millis(5));
-    }
-    let pid = child.id().to_string();
-    for _ in 0..2 {
-        std::process::Command::new("kill")
-            .args(["-TERM", &pid])
-            .status()
-            .unwrap();
-    }
-    let out = child.wait_with_output().unwrap();
+    // Blocks of 2000 replicates, so that the blocks in flight outlast the second signal.
+    let slow = slow_scenario();
+    assert!(slow.contains("blocks = 100"));
+    let out = signalled_times(
+        d,
+        &slow.replace("blocks = 100", "blocks = 6"),
+        "",
+        "-TERM",
+        2,
+    );
     let err = stderr(&out);
     if out.status.code() == Some(0) || !err.contains("interrupted twice") {
         // The run (or its first stop) ended before the second signal arrived.

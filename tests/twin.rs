@@ -2208,6 +2208,15 @@ fn a_twin_run_names_its_estimated_noise_and_what_the_standard_errors_leave_out()
     );
 }
 
+/// Runs the binary in `d` with `args`.
+fn lossprism_in(d: &Path, args: &[&str]) -> std::process::Output {
+    std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
+        .current_dir(d)
+        .args(args)
+        .output()
+        .unwrap()
+}
+
 /// The memory estimate counts a twin's fitted reference, which lives for the whole run: a
 /// hand-edited recipe of 10 000 trees on 3 000 rows peaked at 937 MB under an estimate of
 /// 33 MiB. Here the shipped twin's trees (100, leaves of at least 4 rows, twiced) on its 300
@@ -2313,11 +2322,7 @@ fn memory_limit_refuses_a_large_reference_before_fitting_it() {
         .replace("min_leaf = 4", "min_leaf = 1");
     std::fs::write(d.join("t.toml"), edited).unwrap();
     for cmd in ["run", "validate"] {
-        let out = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
-            .current_dir(d)
-            .args([cmd, "t.toml", "--memory-limit", "64M"])
-            .output()
-            .unwrap();
+        let out = lossprism_in(d, &[cmd, "t.toml", "--memory-limit", "64M"]);
         let err = String::from_utf8_lossy(&out.stderr);
         assert_eq!(out.status.code(), Some(2), "{cmd}: {err}");
         assert!(
@@ -2357,9 +2362,9 @@ fn a_twin_holding_more_than_twice_the_tables_variance_is_refused() {
         csv.push_str(&format!("{y:.3}\n"));
     }
     fs::write(d.join("wide.csv"), csv).unwrap();
-    let out = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
-        .current_dir(d)
-        .args([
+    let out = lossprism_in(
+        d,
+        &[
             "twin",
             "wide.csv",
             "--target",
@@ -2368,9 +2373,8 @@ fn a_twin_holding_more_than_twice_the_tables_variance_is_refused() {
             "0",
             "--out",
             "w.toml",
-        ])
-        .output()
-        .unwrap();
+        ],
+    );
     let err = String::from_utf8_lossy(&out.stderr);
     assert_eq!(out.status.code(), Some(2), "{err}");
     assert!(
@@ -2398,9 +2402,9 @@ fn an_input_copying_the_target_is_named() {
         csv.push_str(&format!("{a},{b},{},{close},{y}\n", y + 273.15));
     }
     fs::write(d.join("leak.csv"), csv).unwrap();
-    let out = std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
-        .current_dir(d)
-        .args([
+    let out = lossprism_in(
+        d,
+        &[
             "twin",
             "leak.csv",
             "--target",
@@ -2409,9 +2413,8 @@ fn an_input_copying_the_target_is_named() {
             "0",
             "--out",
             "l.toml",
-        ])
-        .output()
-        .unwrap();
+        ],
+    );
     let text = format!(
         "{}{}",
         String::from_utf8_lossy(&out.stdout),
@@ -2446,11 +2449,7 @@ fn blend_weights_of_older_twins_run_and_a_doubled_truth_is_refused() {
     );
     let validate = |weights: &str| {
         fs::write(d.join("t.toml"), text.replace(written, weights)).unwrap();
-        std::process::Command::new(env!("CARGO_BIN_EXE_lossprism"))
-            .current_dir(d)
-            .args(["validate", "t.toml"])
-            .output()
-            .unwrap()
+        lossprism_in(d, &["validate", "t.toml"])
     };
     let old = validate("weights = { knn = 0.1, forest = 0.03, loclin = 0.3 }");
     assert_eq!(

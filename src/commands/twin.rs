@@ -2254,11 +2254,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                         fmt_num(var),
                         fmt_num(held),
                         t.rows(),
-                        if p == 1 {
-                            "1 input".to_string()
-                        } else {
-                            format!("{} inputs", t.input_count_words())
-                        }
+                        t.inputs_words()
                     )));
                 }
                 // The mirror image: a twin holding more than twice the table's variance (sweep
@@ -2278,11 +2274,7 @@ pub fn command(o: &TwinOptions) -> Result<String, Error> {
                         fmt_num(n.se),
                         fmt_num(var),
                         t.rows(),
-                        if p == 1 {
-                            "1 input".to_string()
-                        } else {
-                            format!("{} inputs", t.input_count_words())
-                        },
+                        t.inputs_words(),
                         if p > 1 {
                             "leave inputs out (--features) or add rows"
                         } else {

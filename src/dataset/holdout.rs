@@ -47,36 +47,28 @@ pub fn hash(table: &Table, rows: &[usize]) -> String {
     if table.records.len() != table.rows() {
         return hash_values(table, rows);
     }
-    let mut h: u64 = 0xcbf29ce484222325;
-    let mut eat = |v: u64| {
-        for b in v.to_le_bytes() {
-            h ^= b as u64;
-            h = h.wrapping_mul(0x100000001b3);
-        }
-    };
-    eat(rows.len() as u64);
-    for &i in rows {
-        eat(table.records[i]);
-    }
-    format!("{h:016x}")
+    words_hash(std::iter::once(rows.len() as u64).chain(rows.iter().map(|&i| table.records[i])))
 }
 
 /// The holdout's hash before 0.3.10: its row count, then each row's inputs (the columns the run
 /// uses) and response as IEEE bits. A ledger entry under it is carried on under [`hash`].
 pub fn hash_values(table: &Table, rows: &[usize]) -> String {
-    let mut h: u64 = 0xcbf29ce484222325;
-    let mut eat = |v: u64| {
-        for b in v.to_le_bytes() {
-            h ^= b as u64;
-            h = h.wrapping_mul(0x100000001b3);
-        }
-    };
-    eat(rows.len() as u64);
-    for &i in rows {
-        for v in table.x.row(i) {
-            eat(v.to_bits());
-        }
-        eat(table.y[i].to_bits());
-    }
-    format!("{h:016x}")
+    words_hash(
+        std::iter::once(rows.len() as u64).chain(rows.iter().flat_map(|&i| {
+            table
+                .x
+                .row(i)
+                .iter()
+                .chain(std::iter::once(&table.y[i]))
+                .map(|v| v.to_bits())
+                .collect::<Vec<_>>()
+        })),
+    )
+}
+
+/// FNV-1a (64 bit, [`crate::codec::fnv1a64`]) of `words` as little-endian bytes, in 16 hex
+/// digits.
+fn words_hash(words: impl Iterator<Item = u64>) -> String {
+    let bytes: Vec<u8> = words.flat_map(u64::to_le_bytes).collect();
+    format!("{:016x}", crate::codec::fnv1a64(&bytes))
 }

@@ -292,6 +292,16 @@ impl Table {
         }
     }
 
+    /// [`Table::input_count_words`] with its noun: `1 input`, `31 inputs`, `31 (28 of them
+    /// indicators of …) inputs`.
+    pub fn inputs_words(&self) -> String {
+        if self.x.ncols() == 1 {
+            "1 input".to_string()
+        } else {
+            format!("{} inputs", self.input_count_words())
+        }
+    }
+
     /// The number of input columns in words, saying how many are indicators of text columns:
     /// `31 (28 of them indicators of the text columns `site`, `zone`)`, or `31` when none are.
     pub fn input_count_words(&self) -> String {

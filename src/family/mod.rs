@@ -370,6 +370,9 @@ pub struct FamilyInfo {
     pub name: &'static str,
     /// Knob name.
     pub knob: &'static str,
+    /// A second knob the family can vary instead (`knob = "..."` in `[model]`): the forest's
+    /// `max_depth`.
+    pub other_knob: Option<&'static str>,
     /// What the knob means and which way is more complex.
     pub meaning: &'static str,
     /// Tasks supported.
@@ -381,22 +384,19 @@ pub struct FamilyInfo {
 }
 
 impl FamilyInfo {
-    /// Whether a result of this family may name `knob` as its knob: its own knob, the forest's
-    /// `max_depth` (its trees' depth as the knob), or anything for a family that lets the
-    /// estimator name its knob (`external`, `custom`).
+    /// Whether a result of this family may name `knob` as its knob: its own knob, its
+    /// [`FamilyInfo::other_knob`], or anything for a family that lets the estimator name its
+    /// knob (`external`, `custom`).
     pub fn owns_knob(&self, knob: &str) -> bool {
-        self.knob.starts_with('(')
-            || knob == self.knob
-            || (self.name == "forest" && knob == "max_depth")
+        self.knob.starts_with('(') || knob == self.knob || self.other_knob == Some(knob)
     }
 
     /// The knob names [`FamilyInfo::owns_knob`] accepts, for messages: "`max_depth`", or
     /// "`trees` or `max_depth`".
     pub fn knob_names(&self) -> String {
-        if self.name == "forest" {
-            format!("`{}` or `max_depth`", self.knob)
-        } else {
-            format!("`{}`", self.knob)
+        match self.other_knob {
+            Some(o) => format!("`{}` or `{o}`", self.knob),
+            None => format!("`{}`", self.knob),
         }
     }
 }
@@ -407,6 +407,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "tree",
             knob: "max_depth",
+            other_knob: None,
             meaning: "CART tree depth limit (splits on a root-to-leaf path); larger = more complex; exact ties between splits are broken at random with the fit seed",
             tasks: "regression (squared-error splits; leaf means of counts suit the poisson loss), classification (gini or entropy)",
             options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (add-alpha smoothing of leaf class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a pure leaf gives a class probability 0)",
@@ -415,6 +416,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "forest",
             knob: "trees",
+            other_knob: Some("max_depth"),
             meaning: "number of bagged CART trees averaged (or, with knob = \"max_depth\", their depth limit); larger = more complex",
             tasks: "regression (mean of trees), classification (majority vote; probabilities = mean leaf class shares)",
             options: "knob = \"trees\" | \"max_depth\" (default trees), max_depth (knob trees; default 64) or trees (knob max_depth; default 100), max_features = whole number | \"sqrt\" | \"third\" | \"all\" (default p/3 regression, sqrt(p) classification), bootstrap = true | false (default true), min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (default 0)",
@@ -423,6 +425,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "boost",
             knob: "rounds",
+            other_knob: None,
             meaning: "boosting rounds of small regression trees (staged predictions; 0 = the constant start); larger = more complex",
             tasks: "regression (squared loss), classification with two classes (log-loss)",
             options: "learning_rate (in (0, 1], default 0.1), max_depth (default 3), subsample (share of rows per round, default 1), min_samples_leaf (default 1)",
@@ -431,6 +434,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "knn",
             knob: "k",
+            other_knob: None,
             meaning: "number of nearest neighbours averaged; smaller = more complex",
             tasks: "regression (mean; means of counts suit the poisson loss), classification (majority vote)",
             options: "standardize = true | false (default false), alpha (add-alpha smoothing of neighbour class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a neighbourhood without a class gives it probability 0)",
@@ -439,6 +443,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "poly",
             knob: "degree",
+            other_knob: None,
             meaning: "total degree of a least-squares polynomial in the inputs; larger = more complex",
             tasks: "regression",
             options: "none",
@@ -447,6 +452,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "ridge",
             knob: "penalty",
+            other_knob: None,
             meaning: "ridge penalty λ on standardized inputs (sum-of-squares scale); smaller = more complex",
             tasks: "regression",
             options: "none",
@@ -455,6 +461,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "minnorm",
             knob: "features",
+            other_knob: None,
             meaning: "minimum-norm least squares on the first p inputs (pseudo-inverse; interpolates when p > n); larger = more complex",
             tasks: "regression",
             options: "intercept = true | false (default false)",
@@ -463,6 +470,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "random_features",
             knob: "width",
+            other_knob: None,
             meaning: "minimum-norm least squares on the first `width` random ReLU features of the standardized inputs (drawn from the fit seed); larger = more complex",
             tasks: "regression",
             options: "intercept = true | false (default true)",
@@ -471,6 +479,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "logistic",
             knob: "inverse_penalty",
+            other_knob: None,
             meaning: "C = 1/λ, inverse strength of an L2 penalty on standardized inputs; larger = more complex",
             tasks: "classification (two classes: logistic; K > 2: multinomial)",
             options: "none",
@@ -479,6 +488,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "external",
             knob: "(`knob`)",
+            other_knob: None,
             meaning: "an estimator in any language, run as a long-lived process speaking docs/external-protocol.md; the knob is whatever it names",
             tasks: "whatever the process implements",
             options: "command = [\"python3\", \"model.py\"], knob = \"name\", timeout_seconds (default 60), larger_is_simpler (default false)",
@@ -487,6 +497,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
         FamilyInfo {
             name: "custom",
             knob: "(the estimator's)",
+            other_knob: None,
             meaning: "a Rust estimator supplied through lossprism::harness (library use only; the command line refuses it)",
             tasks: "whatever the estimator supports",
             options: "none",
