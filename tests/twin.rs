@@ -725,6 +725,27 @@ fn bad_twin_scenarios_name_the_key() {
             "reference = { family = \"knn\", k = 3 }\njitter = 1.0\njitter_variance = \"kept\"\n[data.noise]\nsd = 0.5\n",
             "data.jitter_variance",
         ),
+        // `inputs` names the table's inputs, each once, with constant noise only.
+        (
+            "reference = { family = \"knn\", k = 3, inputs = [\"q\"] }\n[data.noise]\nsd = 0.5\n",
+            "key `data.reference.inputs`: names `q`, which is not one of the table's inputs (x)",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, inputs = [\"x\", \"x\"] }\n[data.noise]\nsd = 0.5\n",
+            "key `data.reference.inputs`: names `x` twice",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, inputs = [] }\n[data.noise]\nsd = 0.5\n",
+            "key `data.reference.inputs`: must name at least one input",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, inputs = [\"x\"] }\n[data.noise]\nvarying = true\n",
+            "key `data.reference.inputs`: applies to a twin with constant noise",
+        ),
+        (
+            "reference = { family = \"knn\", k = 3, inputs = [1] }\n[data.noise]\nsd = 0.5\n",
+            "invalid type: integer `1`, expected a string",
+        ),
         // Knobs of parts the recipe does not use (they were accepted and ignored).
         (
             "reference = { family = \"knn\", k = 3, degree = 2 }\n[data.noise]\nsd = 0.5\n",
@@ -746,6 +767,55 @@ fn bad_twin_scenarios_name_the_key() {
             .to_string();
         assert!(err.contains(key), "{err}");
     }
+}
+
+/// An invented table of 400 rows: y moves with x1 and x2, and three more columns (n1, n2, n3)
+/// are pure noise. The twin must leave the three out of its reference, say so, write `inputs`
+/// in the recipe, and measure the noise exactly as on a table of x1 and x2 alone (measured on
+/// Friedman's first test function in docs/twin-calibration.md §0.13: σ̂² 1.63 → 0.96 of a true
+/// 1); `run` then plans the scenario.
+#[test]
+fn a_twin_leaves_out_inputs_the_response_does_not_move_with() {
+    let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(23);
+    let mut s = String::from("x1,n1,x2,n2,n3,y\n");
+    for _ in 0..400 {
+        let v: Vec<f64> = (0..5).map(|_| rng.gen::<f64>()).collect();
+        let z: f64 = StandardNormal.sample(&mut rng);
+        let f = 2.0 * (2.0 * std::f64::consts::PI * v[0]).sin() + 3.0 * v[2] * v[2];
+        s.push_str(&format!(
+            "{},{},{},{},{},{}\n",
+            v[0],
+            v[1],
+            v[2],
+            v[3],
+            v[4],
+            f + z
+        ));
+    }
+    let (msg, text) = twin_of_csv(&s, |_| {});
+    let line = msg
+        .lines()
+        .find(|l| l.starts_with("Inputs of the reference"))
+        .unwrap_or_else(|| panic!("no input line in {msg}"));
+    assert!(
+        line.contains("left out n1") && line.contains("left out n2"),
+        "{line}"
+    );
+    assert!(
+        line.contains("left out n3") && line.contains("stopped at x"),
+        "{line}"
+    );
+    assert!(line.contains("above one SE: it is kept"), "{line}");
+    assert!(text.contains("inputs = [\"x1\", \"x2\"]"), "{text}");
+    assert!(text.contains("# Inputs of the reference"), "{text}");
+    let (_, alone) = twin_of_csv(&s, |o| o.features = Some(vec!["x1".into(), "x2".into()]));
+    assert_eq!(recorded_noise(&text), recorded_noise(&alone));
+    let dir = tempfile::tempdir().unwrap();
+    fs::write(dir.path().join("t.csv"), &s).unwrap();
+    fs::write(dir.path().join("twin.toml"), &text).unwrap();
+    let plan = load_at(&dir.path().join("twin.toml"), 4);
+    let doc = report::build(&plan, &runner::run(&plan, 1).unwrap());
+    assert!(doc.points.iter().all(|p| p.expected_loss().is_finite()));
 }
 
 #[test]

@@ -33,7 +33,7 @@ use std::path::{Path, PathBuf};
 
 use crate::dataset::noise::{self, Method};
 use crate::dataset::{self, Duplicates, Missing, Table, TableOptions, TargetKind};
-use crate::dgp::reference::select::{self, Rule};
+use crate::dgp::reference::select::{self, Rule, Selection};
 use crate::dgp::reference::{self, Candidate, Choice, Reference, TwinFit};
 use crate::dgp::twin::{
     self, FidelityModel, FidelityRecord, Jitter, NoiseCorrection, RegressionFit, Twicing,
@@ -238,8 +238,9 @@ fn toml_list6(v: &[f64]) -> String {
     format!("[{}]", items.join(", "))
 }
 
-/// The `reference = { ... }` line of a recipe.
-pub fn reference_line(c: &Choice) -> String {
+/// The `reference = { ... }` line of a recipe (`names`: the table's inputs, which
+/// `inputs` names).
+pub fn reference_line(c: &Choice, names: &[String]) -> String {
     let mut parts = vec![format!("family = {}", toml_str(c.family.name()))];
     match (c.family, c.degree, c.ridge, c.tree) {
         (Candidate::Logit, Some(d), Some(r), _) => {
@@ -281,6 +282,13 @@ pub fn reference_line(c: &Choice) -> String {
     }
     if let Some(w) = &c.metric {
         parts.push(format!("metric = {}", toml_list(w)));
+    }
+    if let Some(cols) = &c.inputs {
+        let items: Vec<String> = cols
+            .iter()
+            .map(|&j| toml_str(names.get(j).map_or("?", |n| n.as_str())))
+            .collect();
+        parts.push(format!("inputs = [{}]", items.join(", ")));
     }
     if c.family == Candidate::Blend {
         // The polynomial's weight only when it has one: a blend of the first three reads as
@@ -431,7 +439,7 @@ fn regression_data(o: &TwinOptions, t: &Table, table_rel: &str, r: &RegressionTe
     } else if o.eval_size != t.rows() {
         s.push_str(&format!("eval_size = {}\n", o.eval_size));
     }
-    s.push_str(&reference_line(&r.fit.selection.choice));
+    s.push_str(&reference_line(&r.fit.selection.choice, &t.names));
     s.push_str("\n\n[data.noise]\n");
     match r.noise {
         TwinNoise::Constant(sd) => s.push_str(&format!("sd = {}\n", toml_f64(sd))),
@@ -523,6 +531,55 @@ fn rule_twice(fit: &RegressionFit) -> bool {
     fit.twicing.is_none() && fit.twicing_mode == Twicing::Auto && fit.selection.choice.twice
 }
 
+/// What the search for inputs the reference can do without found, in one line (`None` when it
+/// did not run).
+fn input_search_line(sel: &Selection, names: &[String]) -> Option<String> {
+    let search = &sel.inputs;
+    if !search.searched {
+        return None;
+    }
+    let name = |j: usize| names.get(j).map_or("?", |n| n.as_str()).to_string();
+    let steps: Vec<String> = search
+        .steps
+        .iter()
+        .map(|st| {
+            format!(
+                "{} {} ({} ± {})",
+                if st.dropped { "left out" } else { "stopped at" },
+                name(st.input),
+                fmt_num(st.gain),
+                fmt_se(st.se)
+            )
+        })
+        .collect();
+    let rule = "backward elimination on k-NN's cross-validated R², an input left out when the \
+                neighbours do better without it by more than one paired SE";
+    let outcome = match (search.kept.len() == names.len(), sel.subset_gain) {
+        (true, _) => "every input kept".to_string(),
+        (false, Some(g)) => {
+            let kept: Vec<String> = search.kept.iter().map(|&j| name(j)).collect();
+            format!(
+                "the reference chosen again on {} changes the cross-validated R² of the one on \
+                 every input by {} ± {}, {}",
+                kept.join(", "),
+                fmt_num(g.0),
+                fmt_se(g.1),
+                if sel.choice.inputs.is_some() {
+                    "above one SE: it is kept, so the twin's truth ignores the other inputs and \
+                     the noise is measured on these alone"
+                } else {
+                    "not above one SE: every input is kept"
+                }
+            )
+        }
+        (false, None) => "every input kept".to_string(),
+    };
+    Some(format!(
+        "Inputs of the reference ({rule}): {}; {outcome}.",
+        steps.join(", ")
+    ))
+}
+
 /// Lines describing the reference candidates and the choice.
 fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<String> {
     let sel = &fit.selection;
@@ -543,6 +600,9 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             },
             sc.tuned
         ));
+    }
+    if let Some(line) = input_search_line(sel, names) {
+        v.push(line);
     }
     if sel.metric_scores.len() > 1 {
         let tried: Vec<String> = sel
@@ -1012,8 +1072,8 @@ fn varying_line(noise: &TwinNoise) -> Option<String> {
 /// with the advice that follows from `docs/twin-calibration.md` §2.10. `None` when the test
 /// cannot run (too few rows, no k-NN part).
 fn spread_line(o: &TwinOptions, t: &Table, vf: Option<&VaryingFit>) -> Option<(String, bool)> {
-    let (r, k) = vf?;
-    let (rho, z) = r.spread_test(t.x.view(), *k)?;
+    let (r, k, rows) = vf?;
+    let (rho, z) = r.spread_test(rows.as_ref().map_or(t.x.view(), |x| x.view()), *k)?;
     let verdict = match (z > twin::SPREAD_Z, o.varying) {
         (true, true) => "the noise's variance seems to change with x, and the twin simulates that (`varying = true`)".to_string(),
         (true, false) => "the noise's variance seems to change with x: `--varying` simulates that (it mattered where the noise is concentrated, little where it changes smoothly: docs/twin-calibration.md §2.10)".to_string(),
@@ -1061,7 +1121,7 @@ fn twin_noise(
             None,
         ));
     }
-    let (mut r, k) = match vf {
+    let (mut r, k, _) = match vf {
         Some(v) => v,
         None => varying_fit(t, fit)?,
     };
@@ -1077,24 +1137,33 @@ fn twin_noise(
     ))
 }
 
-/// The reference fitted with varying noise's squared residuals, and the smoother chosen for
-/// them ([`Reference::choose_smooth_k`]).
-type VaryingFit = (Reference, usize);
+/// The reference fitted with varying noise's squared residuals, the smoother chosen for them
+/// ([`Reference::choose_smooth_k`]), and the rows it was fitted on when the recipe left inputs
+/// out (`None`: the table's).
+type VaryingFit = (Reference, usize, Option<ndarray::Array2<f64>>);
 
 /// [`VaryingFit`] of table `t` under `fit`: its recipe fitted once (σ²(x) comes from the k-NN
 /// part, which twicing does not touch). Errors (one line) when the recipe has no k-NN part or
 /// the table is too small for a smoother. Fitted once per twin and shared by the noise spread
 /// line and the noise.
 fn varying_fit(t: &Table, fit: &RegressionFit) -> Result<VaryingFit, String> {
+    // With inputs left out (constant noise only) the noise spread is tested on those kept.
     let once = Choice {
         twice: false,
-        ..fit.selection.choice.clone()
+        ..fit.selection.choice.on_kept_inputs()
     };
-    let r = Reference::fit(t.x.view(), t.y.view(), 0, &once, true, "the table")?;
+    let rows = fit
+        .selection
+        .choice
+        .inputs
+        .as_ref()
+        .map(|c| reference::columns(t.x.view(), c));
+    let x = rows.as_ref().map_or(t.x.view(), |x| x.view());
+    let r = Reference::fit(x, t.y.view(), 0, &once, true, "the table")?;
     let k = r
-        .choose_smooth_k(t.x.view())
+        .choose_smooth_k(x)
         .ok_or("too few rows to smooth the squared residuals")?;
-    Ok((r, k))
+    Ok((r, k, rows))
 }
 
 /// The twin of a table in memory, with the options of `o` (the fidelity check's twins of the
@@ -1943,7 +2012,7 @@ pub fn classification_text(
     }
     let mut s = header_and_top(o, t, &comments, reps);
     s.push_str(&data_common(o, t, table_rel));
-    s.push_str(&reference_line(&pick.choice));
+    s.push_str(&reference_line(&pick.choice, &t.names));
     s.push('\n');
     let labels: Vec<String> = t.labels.iter().map(|l| toml_str(l)).collect();
     s.push_str(&format!(

@@ -161,6 +161,42 @@ pub fn negative_refusal(
     ))
 }
 
+/// Why a table run's noise estimate `value ± stderr` cannot be believed because it is more than
+/// twice the responses' own variance (which holds the noise and the signal both), or `None`.
+/// The mirror of [`negative_refusal`], and of the twin's refusal of a twin holding more than
+/// twice the table's variance: found by a hostile-input sweep (40 rows of pure noise on 300
+/// inputs read σ̂² = 0.21 ± 0.55 against a variance of 0.074, and the table's bias² came out
+/// −0.12 with a reading built on it). Neighbours in many inputs are far apart, so the estimator
+/// extrapolates far; twice the variance is the twin's bar (a rule of thumb, no source).
+pub fn excessive_refusal(
+    method: Method,
+    value: f64,
+    stderr: f64,
+    table: &super::Table,
+) -> Option<String> {
+    let var = response_variance(table.y.view());
+    if value.is_nan() || value <= 2.0 * var {
+        return None;
+    }
+    let p = table.x.ncols();
+    Some(format!(
+        "the noise estimate ({}) is {} ± {}, more than twice the responses' own variance {}, \
+         which holds the noise and the signal both: with {} rows for {} the neighbours are too \
+         far apart for it to be trusted, and the table's bias² would be that much too low; {}",
+        method.name(),
+        crate::fmt::fmt_num(value),
+        crate::fmt::fmt_num(stderr),
+        crate::fmt::fmt_num(var),
+        table.rows(),
+        table.inputs_words(),
+        if p > 1 {
+            "leave inputs out (`features` in [data]) or add rows"
+        } else {
+            "add rows"
+        }
+    ))
+}
+
 /// How far from its column's median, in robust spreads, an input value must lie for a table
 /// run to warn about it ([`far_input_warning`]). A rule of thumb, no published source: Gaussian
 /// inputs never come near it, a log-normal input (σ = 1) passes it with probability about

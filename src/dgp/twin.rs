@@ -892,13 +892,27 @@ pub fn fit_regression_shaped(
             select::FOLDS + 1
         ));
     }
-    let mut selection = select::select(x, y, seed, rule);
+    // Varying noise keeps every input: its σ²(x) smoother is not measured on inputs left out.
+    let mut selection = select::select(x, y, seed, rule, !how.all_rows);
     let at_rows = |r: &Reference| -> Vec<f64> { r.mean_at_rows(x) };
     let once = Reference::fit(x, ArrayView1::from(y), 0, &selection.choice, false, source)?;
     let once_rows = at_rows(&once);
     // The noise's correction is measured with the fit made once: the twiced fit carries more of
     // the table's noise, whose roughness the correction would count as the truth's and subtract
     // (measured: docs/twin-calibration.md §0).
+    // With inputs left out ([`Choice::inputs`]) the noise is measured on the inputs kept, as on
+    // a table of those columns alone: the estimator, its design and its correction never see
+    // the others (measured: docs/twin-calibration.md §0.13).
+    let (x_full, cut) = (
+        x,
+        selection
+            .choice
+            .inputs
+            .as_ref()
+            .map(|c| super::reference::columns(x, c)),
+    );
+    let x = cut.as_ref().map_or(x.view(), |c| c.view());
+    let kept_metric = selection.choice.on_kept_inputs().metric;
     let method = method.unwrap_or(twin_noise_method(x.ncols(), chosen_r2(&selection)));
     // The estimator measures distance as the reference does: with the input weights the
     // choice kept, inputs the response barely depends on no longer spread the neighbours
@@ -912,7 +926,7 @@ pub fn fit_regression_shaped(
     } else {
         None
     };
-    let metric = selection.choice.metric.as_deref();
+    let metric = kept_metric.as_deref();
     // GSJS orders one input and ignores weights.
     let weighted = metric.is_some() && method != Method::Gsjs;
     let design = if how.all_rows {
@@ -938,7 +952,7 @@ pub fn fit_regression_shaped(
     };
     let check = match twicing {
         Twicing::Auto if x.ncols() < TWICE_FROM_INPUTS => {
-            select::twicing_check(x, y, seed, &selection.choice)
+            select::twicing_check(x_full, y, seed, &selection.choice)
         }
         _ => None,
     };
@@ -958,14 +972,21 @@ pub fn fit_regression_shaped(
     let mut cv_choice = selection.choice.clone();
     let (once, once_rows) = if sharpen != 1.0 {
         selection.choice = cv_choice.sharpened(sharpen);
-        let r = Reference::fit(x, ArrayView1::from(y), 0, &selection.choice, false, source)?;
+        let r = Reference::fit(
+            x_full,
+            ArrayView1::from(y),
+            0,
+            &selection.choice,
+            false,
+            source,
+        )?;
         let rows = at_rows(&r);
         (r, rows)
     } else {
         (once, once_rows)
     };
     let (reference, f_rows) = if twice {
-        let r = once.twiced_with_fit(x, ArrayView1::from(y), &once_rows)?;
+        let r = once.twiced_with_fit(x_full, ArrayView1::from(y), &once_rows)?;
         selection.choice.twice = true;
         cv_choice.twice = true;
         let rows = at_rows(&r);
@@ -1518,21 +1539,47 @@ mod tests {
     }
 
     /// The twin's noise estimator measures distance as its reference does: with the input
-    /// weights the choice kept (one input of four matters here, so weights are kept), and with
-    /// plain inputs when none are kept (a forced forest tunes no weights).
+    /// weights the choice kept (one input of four matters much, the others a little, so weights
+    /// are kept and no input is left out), with plain inputs when none are kept (a forced
+    /// forest tunes no weights), and on the inputs kept alone when the others are left out
+    /// (then exactly the estimate on a table of those columns).
     #[test]
     fn the_twin_noise_uses_the_kept_input_weights() {
         use crate::dgp::reference::Choice;
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(12);
         let n = 300;
         let x = Array2::from_shape_fn((n, 4), |_| rng.gen::<f64>());
+        let z: Vec<f64> = (0..n).map(|_| StandardNormal.sample(&mut rng)).collect();
+        // Only the first input matters: the other three are left out.
+        let y: Vec<f64> = (0..n)
+            .map(|i| 2.0 * (6.0 * x[[i, 0]]).sin() + 0.3 * z[i])
+            .collect();
+        let fit = fit_regression(x.view(), &y, 3, Rule::Best, None, Twicing::Auto, "t").unwrap();
+        assert_eq!(fit.selection.choice.inputs, Some(vec![0]));
+        let x1 = x.select(ndarray::Axis(1), &[0]);
+        let alone = fit_regression(x1.view(), &y, 3, Rule::Best, None, Twicing::Auto, "t").unwrap();
+        assert_eq!(fit.noise, alone.noise);
+        assert_eq!(fit.noise_weights, alone.noise_weights);
+        assert_eq!(
+            fit.reference.mean_at_rows(x.view()),
+            alone.reference.mean_at_rows(x1.view())
+        );
+        // Every input matters, the first most: weights are kept, nothing is left out.
         let y: Vec<f64> = (0..n)
             .map(|i| {
-                let z: f64 = StandardNormal.sample(&mut rng);
-                2.0 * (6.0 * x[[i, 0]]).sin() + 0.3 * z
+                2.0 * (6.0 * x[[i, 0]]).sin()
+                    + 0.8 * x[[i, 1]]
+                    + 0.6 * x[[i, 2]]
+                    + 0.5 * x[[i, 3]]
+                    + 0.3 * z[i]
             })
             .collect();
         let fit = fit_regression(x.view(), &y, 3, Rule::Best, None, Twicing::Auto, "t").unwrap();
+        assert_eq!(
+            fit.selection.choice.inputs, None,
+            "{:?}",
+            fit.selection.inputs
+        );
         let w = fit.selection.choice.metric.clone().expect("weights kept");
         // The noise is measured with the cross-validated recipe, before the sharpening.
         assert_eq!(fit.selection.choice, fit.cv_choice.sharpened(SHARPEN));

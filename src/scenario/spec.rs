@@ -105,6 +105,10 @@ pub struct ReferenceSpec {
     /// multiplied by them before any distance).
     #[serde(default)]
     pub metric: Option<Spanned<Vec<f64>>>,
+    /// Regression: the inputs (feature names) the reference is fitted on, when `lossprism
+    /// twin` left the others out.
+    #[serde(default)]
+    pub inputs: Option<Spanned<Vec<String>>>,
     /// Classes, `family = "logit"`: the ridge penalty (its degree is `degree`).
     #[serde(default)]
     pub ridge: Option<Spanned<f64>>,

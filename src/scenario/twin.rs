@@ -280,11 +280,12 @@ pub fn residual_pool(t: &Table, r: &Reference, noise: &Noise) -> Result<Vec<f64>
 fn choice_of(
     r: &ReferenceSpec,
     rows: usize,
-    inputs: usize,
+    names: &[String],
     classes: usize,
     varying: bool,
     err: &dyn Fn(std::ops::Range<usize>, &str, String) -> ScenarioError,
 ) -> Result<Choice, ScenarioError> {
+    let inputs = names.len();
     let fam_span = r.family.span();
     let Some(family) = Candidate::from_name(r.family.get_ref()) else {
         return Err(err(
@@ -399,6 +400,41 @@ fn choice_of(
         // Returned by `class_choice_of` above.
         (None, Candidate::Logit | Candidate::Tree) => [0.0; 4],
     };
+    // `inputs`: feature names, turned into ascending column indices.
+    let kept = match &r.inputs {
+        None => None,
+        Some(list) => {
+            let span = list.span();
+            let bad = |msg: String| err(span.clone(), "data.reference.inputs", msg);
+            if varying {
+                return Err(bad(
+                    "applies to a twin with constant noise (`sd`): varying noise's smoother \
+                     sees every input; remove it"
+                        .into(),
+                ));
+            }
+            let mut cols = Vec::new();
+            for name in list.get_ref() {
+                let Some(j) = names.iter().position(|n| n == name) else {
+                    return Err(bad(format!(
+                        "names `{}`, which is not one of the table's inputs ({})",
+                        crate::fmt::clip(name, 40),
+                        crate::fmt::clip(&names.join(", "), 120)
+                    )));
+                };
+                if cols.contains(&j) {
+                    return Err(bad(format!("names `{}` twice", crate::fmt::clip(name, 40))));
+                }
+                cols.push(j);
+            }
+            if cols.is_empty() {
+                return Err(bad("must name at least one input".into()));
+            }
+            cols.sort_unstable();
+            Some(cols)
+        }
+    };
+    let used_inputs = kept.as_ref().map_or(inputs, |c| c.len());
     let need = |key: &str| needs_key(&fam_span, family, key, err);
     let whole =
         |v: &toml::Spanned<i64>, key: &str, lo: i64, hi: i64| whole_key(v, key, lo, hi, err);
@@ -488,15 +524,15 @@ fn choice_of(
             return Err(need("degree"));
         };
         let d = whole(d, "degree", 1, crate::family::poly::MAX_DEGREE as i64)? as usize;
-        match crate::family::poly::n_basis(inputs, d) {
+        match crate::family::poly::n_basis(used_inputs, d) {
             Some(c) if c <= rows => Some(d),
             _ => {
                 return Err(err(
                     r.degree.as_ref().map_or(fam_span.clone(), |s| s.span()),
                     "data.reference.degree",
                     format!(
-                        "degree {d} needs more polynomial coefficients with {inputs} input(s) \
-                         than the table's {rows} rows"
+                        "degree {d} needs more polynomial coefficients with {used_inputs} \
+                         input(s) than the table's {rows} rows"
                     ),
                 ))
             }
@@ -558,12 +594,22 @@ fn choice_of(
             if let Some(msg) = metric_problem(m.get_ref(), inputs, standardize) {
                 return Err(err(m.span(), "data.reference.metric", msg));
             }
+            if let Some(c) = &kept {
+                if c.iter().all(|&j| m.get_ref()[j] == 0.0) {
+                    return Err(err(
+                        m.span(),
+                        "data.reference.metric",
+                        "gives weight 0 to every input named in `inputs`".into(),
+                    ));
+                }
+            }
             Some(m.get_ref().clone())
         }
     };
     Ok(Choice {
         ridge: None,
         tree: None,
+        inputs: kept,
         metric,
         family,
         standardize,
@@ -654,6 +700,7 @@ fn class_choice_of(
         ("cv_r2", r.cv_r2.as_ref().map(|_| fam_span.clone())),
         ("twice", r.twice.map(|_| fam_span.clone())),
         ("metric", r.metric.as_ref().map(|v| v.span())),
+        ("inputs", r.inputs.as_ref().map(|v| v.span())),
         ("ridge", r.ridge.as_ref().map(|v| v.span())),
         ("depth", r.depth.as_ref().map(|v| v.span())),
     ];
@@ -1080,7 +1127,7 @@ pub fn from_spec(
     let choice = choice_of(
         reference,
         rows,
-        t.x.ncols(),
+        &t.names,
         classes,
         varying && classes == 0,
         &err,

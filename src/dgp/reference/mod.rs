@@ -173,6 +173,11 @@ pub struct Choice {
     /// polynomial and probability tree use the inputs of positive weight only (0/1 weights
     /// chosen by [`select_class_inputs`]; the size of a positive weight does not matter there).
     pub metric: Option<Vec<f64>>,
+    /// Regression: the inputs (column indices, ascending) every part of the reference is
+    /// fitted on, when [`select::eliminate_inputs`] left the others out; the twin's truth does
+    /// not move with those. `metric` then has weight 0 on them (the noise estimator's
+    /// distances follow it). `None`: every input. Written `inputs = ["x1", ...]` by name.
+    pub inputs: Option<Vec<usize>>,
     /// Classes, the logistic polynomial: its ridge penalty (its degree is `degree`).
     pub ridge: Option<f64>,
     /// Classes, the probability tree: depth, smallest leaf and the seed of its tie draws.
@@ -204,6 +209,7 @@ impl Choice {
             cv_r2: None,
             twice: false,
             metric: None,
+            inputs: None,
             ridge: None,
             tree: None,
         }
@@ -282,6 +288,30 @@ impl Choice {
             }
         }
         parts.join(", ")
+    }
+
+    /// The recipe as fitted on the columns [`Choice::inputs`] keeps (the same recipe when it
+    /// keeps every input): no `inputs`, and the metric cut to those columns — or none when it
+    /// weighs each of them 1 (the recipe writes those weights to say which inputs are left out;
+    /// fitted as the plain metric, bit for bit the twin of a table of those columns alone).
+    pub fn on_kept_inputs(&self) -> Choice {
+        let Some(cols) = &self.inputs else {
+            return self.clone();
+        };
+        let metric = match &self.metric {
+            Some(w) if cols.iter().all(|&j| w.get(j) == Some(&1.0)) => None,
+            Some(w) => Some(
+                cols.iter()
+                    .map(|&j| w.get(j).copied().unwrap_or(0.0))
+                    .collect(),
+            ),
+            None => None,
+        };
+        Choice {
+            inputs: None,
+            metric,
+            ..self.clone()
+        }
     }
 
     /// The standardizer of the k-NN and local-linear parts on rows `x`: the table's mean and
@@ -375,6 +405,16 @@ impl Choice {
             }
             _ => plain,
         };
+        let plain = match &self.inputs {
+            Some(c) => {
+                let cols: Vec<String> = c.iter().map(|j| (j + 1).to_string()).collect();
+                format!(
+                    "{plain}; fitted on inputs {} only (the others left out)",
+                    cols.join(", ")
+                )
+            }
+            None => plain,
+        };
         if self.twice {
             format!("{plain}, twiced (refitted to its own residuals and added)")
         } else {
@@ -407,6 +447,30 @@ pub fn metric_problem(w: &[f64], inputs: usize, standardize: bool) -> Option<Str
         Some("needs at least one weight > 0".into())
     } else if !standardize {
         Some("weights standardized inputs: remove `standardize = false`".into())
+    } else {
+        None
+    }
+}
+
+/// The columns `cols` of `x`, in row-major order (`select` along columns can give a
+/// column-major array, whose column sums are added in another order: the same table cut by
+/// `inputs` or read with only those `features` must give the same bits).
+pub fn columns(x: ArrayView2<'_, f64>, cols: &[usize]) -> Array2<f64> {
+    Array2::from_shape_fn((x.nrows(), cols.len()), |(i, c)| x[[i, cols[c]]])
+}
+
+/// What is wrong with the column list of [`Choice::inputs`] for a table of `inputs` inputs, or
+/// `None`: it must name at least one input, each once, in the table's order.
+pub fn inputs_problem(cols: &[usize], inputs: usize) -> Option<String> {
+    if cols.is_empty() {
+        Some("must name at least one input".into())
+    } else if let Some(&j) = cols.iter().find(|&&j| j >= inputs) {
+        Some(format!(
+            "names input {} of a table with {inputs} inputs",
+            j + 1
+        ))
+    } else if cols.windows(2).any(|w| w[0] >= w[1]) {
+        Some("must name each input once, in the table's order".into())
     } else {
         None
     }
@@ -461,6 +525,9 @@ pub struct Reference {
     /// Classes, the logistic polynomial and the tree: the inputs they use (those of positive
     /// weight in [`Choice::metric`]); `None`: every input.
     cols: Option<Vec<usize>>,
+    /// Regression: the inputs every part was fitted on ([`Choice::inputs`]); the rows given to
+    /// [`Reference::mean_at_rows`] are cut to them. `None`: every input.
+    sub: Option<Vec<usize>>,
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
@@ -556,6 +623,29 @@ impl Reference {
             };
             return Reference::fit(x, y, 0, &once, false, source)?.twiced(x, y);
         }
+        if let Some(cols) = &choice.inputs {
+            if let Some(msg) = inputs_problem(cols, x.ncols()) {
+                return Err(format!("`inputs` {msg}"));
+            }
+            if classes > 0 || varying {
+                return Err(
+                    "`inputs` applies to a regression reference with constant noise".into(),
+                );
+            }
+            if choice.metric.as_ref().is_some_and(|w| w.len() != x.ncols()) {
+                return Err(format!(
+                    "`metric` has {} weights for the table's {} inputs",
+                    choice.metric.as_ref().map_or(0, |w| w.len()),
+                    x.ncols()
+                ));
+            }
+            let inner = choice.on_kept_inputs();
+            let xs = columns(x, cols);
+            let mut r = Reference::fit(xs.view(), y, 0, &inner, false, source)?;
+            r.choice = choice.clone();
+            r.sub = Some(cols.clone());
+            return Ok(r);
+        }
         let n = x.nrows().max(1);
         let w = choice.weights;
         let need_knn = w[0] > 0.0 || (classes > 0 && choice.family == Candidate::Knn) || varying;
@@ -649,6 +739,7 @@ impl Reference {
             logit,
             ptree,
             cols,
+            sub: None,
             y: yv,
             sq_resid: None,
             var_k: 0,
@@ -790,6 +881,9 @@ impl Reference {
     /// for all rows at once ([`Forest::predict_rows`], bit for bit [`Forest::predict`] row by
     /// row), which is several times faster on many rows; scratch space is kept per thread.
     pub fn mean_at_rows(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
+        let full = x;
+        let cut = self.sub.as_ref().map(|c| columns(x, c));
+        let x = cut.as_ref().map_or(x.view(), |c| c.view());
         let forest = self.forest.as_ref().map(|f| f.predict_rows(x));
         let poly = self.poly.as_ref().map(|p| p.predict(x));
         let w = self.choice.weights;
@@ -820,7 +914,7 @@ impl Reference {
             }
         });
         if let Some(second) = &self.second {
-            for (o, t) in out.iter_mut().zip(second.mean_at_rows(x)) {
+            for (o, t) in out.iter_mut().zip(second.mean_at_rows(full)) {
                 *o += t;
             }
         }
@@ -1138,6 +1232,12 @@ impl Reference {
             bytes.extend_from_slice(b"metric");
             for v in w {
                 bytes.extend_from_slice(&v.to_bits().to_le_bytes());
+            }
+        }
+        if let Some(c) = &self.choice.inputs {
+            bytes.extend_from_slice(b"inputs");
+            for &j in c {
+                bytes.extend_from_slice(&(j as u64).to_le_bytes());
             }
         }
         crate::codec::fnv1a64(&bytes)
@@ -1707,6 +1807,7 @@ mod tests {
     fn sharpening_scales_every_knob_a_blend_uses_and_says_so() {
         let cv = Choice {
             ridge: None,
+            inputs: None,
             tree: None,
             family: Candidate::Blend,
             standardize: true,
@@ -1913,6 +2014,81 @@ mod tests {
         assert!(e.contains("all 0"), "{e}");
     }
 
+    /// A recipe with `inputs` is the same recipe fitted on those columns alone, bit for bit
+    /// (a twiced blend of every part, with weighted distances): the other columns never move
+    /// the twin's truth. Recipes it cannot refit are refused with a one-line reason.
+    #[test]
+    fn a_reference_on_some_inputs_is_the_reference_fitted_on_those_columns() {
+        let mut rng = crate::rng::stream(8, crate::rng::purpose::TWIN, 3);
+        let n = 150;
+        let x = Array2::from_shape_fn((n, 4), |_| rng.gen::<f64>());
+        let y: Array1<f64> = (0..n)
+            .map(|i| (4.0 * x[[i, 0]]).sin() + x[[i, 2]] + 0.3 * rng.gen::<f64>())
+            .collect();
+        let cols = vec![0, 2];
+        let sub = Choice {
+            family: Candidate::Blend,
+            k: Some(7),
+            forest: Some(ForestParams {
+                trees: 8,
+                min_leaf: 4,
+                seed: 2,
+            }),
+            bandwidth: Some(0.6),
+            degree: Some(2),
+            weights: [0.25, 0.25, 0.25, 0.25],
+            twice: true,
+            metric: Some(vec![1.0, 0.4]),
+            ..Choice::knn(1, true)
+        };
+        let full = Choice {
+            inputs: Some(cols.clone()),
+            metric: Some(vec![1.0, 0.0, 0.4, 0.0]),
+            ..sub.clone()
+        };
+        let xs = x.select(ndarray::Axis(1), &cols);
+        let a = Reference::fit(x.view(), y.view(), 0, &full, false, "t").unwrap();
+        let b = Reference::fit(xs.view(), y.view(), 0, &sub, false, "t").unwrap();
+        let (pa, pb) = (a.mean_at_rows(x.view()), b.mean_at_rows(xs.view()));
+        assert!(pa.iter().zip(&pb).all(|(u, v)| u.to_bits() == v.to_bits()));
+        // Other values in the columns left out change nothing.
+        let mut moved = x.clone();
+        moved.column_mut(1).mapv_inplace(|v| 1.0 - v);
+        moved.column_mut(3).fill(7.5);
+        let pm = a.mean_at_rows(moved.view());
+        assert!(pa.iter().zip(&pm).all(|(u, v)| u.to_bits() == v.to_bits()));
+        assert_eq!(a.mean_at(&moved.row(5).to_vec()).to_bits(), pa[5].to_bits());
+        assert_ne!(a.digest(), b.digest());
+        assert!(a.choice.describe().contains("fitted on inputs 1, 3 only"));
+        // Refusals.
+        for (cols, want) in [
+            (vec![], "must name at least one input"),
+            (vec![4], "names input 5 of a table with 4 inputs"),
+            (vec![2, 0], "each input once"),
+            (vec![1, 1], "each input once"),
+        ] {
+            let c = Choice {
+                inputs: Some(cols),
+                ..full.clone()
+            };
+            let e = Reference::fit(x.view(), y.view(), 0, &c, false, "t").unwrap_err();
+            assert!(e.contains(want), "{e}");
+        }
+        let once = Choice {
+            twice: false,
+            ..full.clone()
+        };
+        let e = Reference::fit(x.view(), y.view(), 0, &once, true, "t").unwrap_err();
+        assert!(e.contains("constant noise"), "{e}");
+        let classes = Array1::from_shape_fn(n, |i| (i % 2) as f64);
+        let knn = Choice {
+            inputs: Some(vec![0]),
+            ..Choice::knn(3, true)
+        };
+        let e = Reference::fit(x.view(), classes.view(), 2, &knn, false, "t").unwrap_err();
+        assert!(e.contains("regression"), "{e}");
+    }
+
     #[test]
     fn twicing_a_knn_reference_is_two_s_minus_s_squared() {
         // Distinct distances (irrational-ish spacing), so neighbour sets have no ties.
@@ -1963,6 +2139,7 @@ mod tests {
         // residuals) is the definition too: the recipe once, plus the recipe on the residuals.
         let blend = Choice {
             ridge: None,
+            inputs: None,
             tree: None,
             family: Candidate::Blend,
             standardize: true,

@@ -112,6 +112,12 @@ pub struct Selection {
     /// pilot weights every input alike or cannot be fitted, and under
     /// `Rule::Only(Candidate::Forest)` (trees ignore the weights).
     pub metric_scores: Vec<MetricScore>,
+    /// The backward search for inputs the reference can do without ([`eliminate_inputs`]).
+    pub inputs: InputSearch,
+    /// When that search left inputs out: the paired gain in cross-validated R² (and its SE) of
+    /// the choice made on the inputs it kept over the choice made on every input; the first is
+    /// taken when it clears [`subset_guard`].
+    pub subset_gain: Option<(f64, f64)>,
 }
 
 /// One input metric's score in the reference choice.
@@ -380,6 +386,130 @@ fn tune(
     }
 }
 
+/// Most inputs [`eliminate_inputs`] searches (its cost grows like p² k-NN cross-validations).
+pub const ELIMINATE_MAX_INPUTS: usize = 16;
+
+/// One step of [`eliminate_inputs`]'s backward path: the input whose leaving out raised the
+/// k-NN's cross-validated error least, and the paired change in R².
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct InputStep {
+    /// The input (column index).
+    pub input: usize,
+    /// Paired gain in cross-validated R² without it (positive: better without), as
+    /// [`paired_gain`].
+    pub gain: f64,
+    /// Its standard error.
+    pub se: f64,
+    /// Whether it was left out.
+    pub dropped: bool,
+}
+
+/// What [`eliminate_inputs`] found.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct InputSearch {
+    /// Whether the search ran (2 to [`ELIMINATE_MAX_INPUTS`] inputs, at least
+    /// [`METRIC_ROWS_PER_INPUT`] rows per input).
+    pub searched: bool,
+    /// The steps taken; the last one was not dropped when the guard stopped the search.
+    pub steps: Vec<InputStep>,
+    /// The inputs kept (every input when none was dropped).
+    pub kept: Vec<usize>,
+}
+
+/// Out-of-fold predictions of k-NN on the inputs where `mask` is 1 (standardized by `base`),
+/// at the k of lowest cross-validated error.
+fn masked_knn(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    fold: &[usize],
+    folds: usize,
+    base: &Standardizer,
+    mask: &[f64],
+) -> Vec<f64> {
+    let (_, kp) = knn_out_of_fold(x, y, fold, folds, &base.weighted(mask));
+    let ki = argmin(&kp.iter().map(|p| mse(y, p)).collect::<Vec<_>>());
+    kp.into_iter().nth(ki).unwrap_or_default()
+}
+
+/// The inputs a regression reference uses, by backward elimination on k-NN's cross-validated
+/// error (inputs standardized, every kept input alike, k chosen again at every step; the
+/// choice's own folds): while two or more inputs are in, the input whose leaving out raises the
+/// error least is left out if that lowers the error by more than one standard error of the
+/// paired per-row difference ([`metric_guard`]), and the search stops otherwise. k-NN is the
+/// instrument because it assumes no form: an input that does not move the response of
+/// neighbours helps no reference, and an irrelevant input in its distance spreads the
+/// neighbours as much as a relevant one. The guard is the one-SE rule of model choice applied
+/// against the change, as the classification twin's input search
+/// ([`super::select_class_inputs`]): an input stays unless the table shows clearly that the
+/// neighbours do better without it. Stated optimism: each step picks the best of the inputs
+/// still in on the same held-out rows, so the bar is a little lower than one standard error of
+/// a single pre-set comparison. Backward elimination is the classic stepwise search (Hastie,
+/// Tibshirani and Friedman 2009, *The Elements of Statistical Learning*, §3.3.2, from memory).
+pub fn eliminate_inputs(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    fold: &[usize],
+    folds: usize,
+) -> InputSearch {
+    let (n, p) = x.dim();
+    let all: Vec<usize> = (0..p).collect();
+    if !(2..=ELIMINATE_MAX_INPUTS).contains(&p) || n < METRIC_ROWS_PER_INPUT * p {
+        return InputSearch {
+            searched: false,
+            steps: Vec::new(),
+            kept: all,
+        };
+    }
+    let base = Standardizer::fit(x);
+    let mut mask: Vec<f64> = (0..p)
+        .map(|j| if base.constant[j] { 0.0 } else { 1.0 })
+        .collect();
+    let mut cur = masked_knn(x, y, fold, folds, &base, &mask);
+    let mut steps = Vec::new();
+    while mask.iter().filter(|&&m| m > 0.0).count() >= 2 {
+        let mut best: Option<(InputStep, Vec<f64>)> = None;
+        for j in (0..p).filter(|&j| mask[j] > 0.0) {
+            let mut mj = mask.clone();
+            mj[j] = 0.0;
+            let pred = masked_knn(x, y, fold, folds, &base, &mj);
+            let (gain, se) = paired_gain(y, &cur, &pred);
+            if best.as_ref().map_or(true, |b| gain > b.0.gain) {
+                let step = InputStep {
+                    input: j,
+                    gain,
+                    se,
+                    dropped: metric_guard((gain, se)),
+                };
+                best = Some((step, pred));
+            }
+        }
+        let Some((step, pred)) = best else { break };
+        steps.push(step);
+        if !step.dropped {
+            break;
+        }
+        mask[step.input] = 0.0;
+        cur = pred;
+    }
+    let dropped: Vec<usize> = steps
+        .iter()
+        .filter(|s| s.dropped)
+        .map(|s| s.input)
+        .collect();
+    InputSearch {
+        searched: true,
+        steps,
+        kept: all.into_iter().filter(|j| !dropped.contains(j)).collect(),
+    }
+}
+
+/// The bar the choice made on the inputs [`eliminate_inputs`] kept must clear to replace the
+/// choice on every input: a paired gain in cross-validated R² above one standard error
+/// ([`metric_guard`]'s one-SE rule, applied against the change).
+pub fn subset_guard(gain: (f64, f64)) -> bool {
+    metric_guard(gain)
+}
+
 /// The gain in cross-validated R² of held-out predictions `weighted` over `plain`, and its
 /// standard error, from the paired row-by-row differences of squared error: `gain =
 /// mean_i d_i / var(y)`, `d_i = (y_i − plain_i)² − (y_i − weighted_i)²`, SE = sd(d)/√n /
@@ -536,9 +666,68 @@ pub fn poly_degrees(train: usize, p: usize) -> Vec<usize> {
 /// Tunes every candidate on the table (rows `x`, responses `y`), builds the blend, and chooses
 /// by `rule`. With two or more inputs the k-NN and local-linear candidates (and so the blend)
 /// are tuned again under gradient-weighted inputs ([`METRIC_POWERS`]); a weighted metric is
-/// kept ([`Choice::metric`]) only when it clears [`metric_guard`]. Deterministic given `seed`. The table needs at
+/// kept ([`Choice::metric`]) only when it clears [`metric_guard`]. When [`eliminate_inputs`]
+/// leaves inputs out, the whole choice is made again on the inputs it kept, and that choice is
+/// taken ([`Choice::inputs`], its metric widened with weight 0 on the inputs left out) only
+/// when its chosen candidate beats the choice on every input by [`subset_guard`] on the same
+/// folds: the k-NN instrument also leaves out inputs whose weak signal the other candidates
+/// would use (docs/twin-calibration.md §0.13). No search without `search_inputs`.
+/// Deterministic given `seed`. The table needs at
 /// least [`FOLDS`] + 1 rows.
-pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selection {
+pub fn select(
+    x: ArrayView2<'_, f64>,
+    y: &[f64],
+    seed: u64,
+    rule: Rule,
+    search_inputs: bool,
+) -> Selection {
+    let n = y.len();
+    let folds = FOLDS.min(n);
+    let mut rng = stream(seed, purpose::TWIN, 0);
+    let fold = fold_assignment(n, folds, &mut rng);
+    let search = if search_inputs {
+        eliminate_inputs(x, y, &fold, folds)
+    } else {
+        InputSearch {
+            kept: (0..x.ncols()).collect(),
+            ..InputSearch::default()
+        }
+    };
+    let (mut all, all_held) = select_on(x, y, seed, rule);
+    if search.kept.len() == x.ncols() {
+        all.inputs = search;
+        return all;
+    }
+    let sub = super::columns(x, &search.kept);
+    let (mut kept, kept_held) = select_on(sub.view(), y, seed, rule);
+    let gain = paired_gain(y, &all_held, &kept_held);
+    if !subset_guard(gain) {
+        all.inputs = search;
+        all.subset_gain = Some(gain);
+        return all;
+    }
+    // The recipe speaks of the table's inputs: weights of the inputs left out are 0.
+    let p = x.ncols();
+    let widen = |w: &[f64]| {
+        let mut full = vec![0.0; p];
+        for (c, &j) in search.kept.iter().enumerate() {
+            full[j] = w[c];
+        }
+        full
+    };
+    kept.choice.metric = Some(match &kept.choice.metric {
+        Some(w) => widen(w),
+        None => widen(&vec![1.0; search.kept.len()]),
+    });
+    kept.choice.inputs = Some(search.kept.clone());
+    kept.inputs = search;
+    kept.subset_gain = Some(gain);
+    kept
+}
+
+/// [`select`] on the inputs of `x` as given; also returns the chosen candidate's held-out
+/// predictions.
+fn select_on(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> (Selection, Vec<f64>) {
     let n = y.len();
     let folds = FOLDS.min(n);
     let mut rng = stream(seed, purpose::TWIN, 0);
@@ -760,15 +949,22 @@ pub fn select(x: ArrayView2<'_, f64>, y: &[f64], seed: u64, rule: Rule) -> Selec
         cv_r2: Some(cv_r2),
         twice: false,
         metric,
+        inputs: None,
         ridge: None,
         tree: None,
     };
-    Selection {
-        choice,
-        scores,
-        folds,
-        metric_scores,
-    }
+    let held = t.held_out[slot(chosen)].clone();
+    (
+        Selection {
+            choice,
+            scores,
+            folds,
+            metric_scores,
+            inputs: InputSearch::default(),
+            subset_gain: None,
+        },
+        held,
+    )
 }
 
 /// Whether twicing the chosen recipe predicts better: the recipe refitted on every training fold
@@ -977,13 +1173,65 @@ mod tests {
         (x, y)
     }
 
+    /// Three inputs that move the response and four that do not (invented, 400 rows): the
+    /// backward search must leave out exactly the four, the choice made again on the three must
+    /// beat the one on all seven, and the recipe must say so (`inputs`, and 0 in the metric for
+    /// the four). On the three inputs alone nothing is left out and the choice is the one made
+    /// without the search, field for field. Friedman's first test function, measured the same
+    /// way in docs/twin-calibration.md §0.13, kept its five relevant inputs on six of six tables.
+    #[test]
+    fn the_input_search_leaves_out_inputs_the_response_does_not_move_with() {
+        let f = |r: ndarray::ArrayView1<'_, f64>| {
+            2.0 * (2.0 * std::f64::consts::PI * r[0]).sin()
+                + 3.0 * (r[1] - 0.5).powi(2) * 4.0
+                + 2.0 * r[2]
+        };
+        let (x, y) = uniform_table(21, 400, 7, 1.0, f);
+        let sel = select(x.view(), &y, 3, Rule::Best, true);
+        assert!(sel.inputs.searched);
+        assert_eq!(sel.inputs.kept, vec![0, 1, 2], "{:?}", sel.inputs.steps);
+        let dropped: Vec<usize> = sel
+            .inputs
+            .steps
+            .iter()
+            .filter(|s| s.dropped)
+            .map(|s| s.input)
+            .collect();
+        assert_eq!(dropped.len(), 4, "{:?}", sel.inputs.steps);
+        let last = sel.inputs.steps.last().unwrap();
+        assert!(!last.dropped && last.gain < 0.0, "{last:?}");
+        let g = sel.subset_gain.expect("compared");
+        assert!(subset_guard(g), "{g:?}");
+        assert_eq!(sel.choice.inputs, Some(vec![0, 1, 2]));
+        let w = sel.choice.metric.clone().expect("widened metric");
+        assert_eq!(w.len(), 7);
+        assert!(
+            w[3..].iter().all(|&v| v == 0.0) && w[..3].iter().all(|&v| v > 0.0),
+            "{w:?}"
+        );
+        // Without the search (varying noise) every input stays.
+        let plain = select(x.view(), &y, 3, Rule::Best, false);
+        assert!(!plain.inputs.searched && plain.choice.inputs.is_none());
+        // On the three alone: searched, nothing left out, the same choice as without it.
+        let x3 = x.select(Axis(1), &[0, 1, 2]);
+        let a = select(x3.view(), &y, 3, Rule::Best, true);
+        let b = select(x3.view(), &y, 3, Rule::Best, false);
+        assert!(
+            a.inputs.searched && a.inputs.kept == vec![0, 1, 2],
+            "{:?}",
+            a.inputs
+        );
+        assert_eq!(a.choice, b.choice);
+        assert!(a.subset_gain.is_none());
+    }
+
     /// A table of few rows and many inputs: the same signal as below, but with 60 rows on 35
     /// inputs neither weighted metrics (fewer than METRIC_ROWS_PER_INPUT rows per input) nor the
     /// local-linear candidate (more than LOCLIN_MAX_INPUTS inputs) are tried, and both say so.
     #[test]
     fn wide_tables_skip_weights_and_local_linear() {
         let (x, y) = uniform_table(12, 60, 35, 0.3, |r| (6.0 * r[0]).sin() * 2.0);
-        let sel = select(x.view(), &y, 5, Rule::Best);
+        let sel = select(x.view(), &y, 5, Rule::Best, true);
         assert_eq!(sel.metric_scores.len(), 1, "{:?}", sel.metric_scores);
         assert!(sel.choice.metric.is_none());
         let loclin = &sel.scores[2];
@@ -992,18 +1240,26 @@ mod tests {
         assert_ne!(sel.choice.family, Candidate::LocLin);
         // Just inside both limits, both are tried.
         let (x, y) = uniform_table(12, 300, 30, 0.3, |r| (6.0 * r[0]).sin() * 2.0);
-        let sel = select(x.view(), &y, 5, Rule::Best);
+        let sel = select(x.view(), &y, 5, Rule::Best, true);
         assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
         assert!(sel.scores[2].r2.is_finite());
     }
 
     /// y depends on the first of four inputs only: the pilot's gradient weights must single it
     /// out, and the weighted metric must predict better than counting every input alike (with
-    /// three irrelevant inputs the plain neighbours are spread over them).
+    /// three irrelevant inputs the plain neighbours are spread over them). With the input search
+    /// on, the three are left out altogether.
     #[test]
     fn weighted_inputs_find_the_one_input_that_matters() {
         let (x, y) = uniform_table(11, 300, 4, 0.3, |r| (6.0 * r[0]).sin() * 2.0);
-        let sel = select(x.view(), &y, 5, Rule::Best);
+        let searched = select(x.view(), &y, 5, Rule::Best, true);
+        assert_eq!(
+            searched.choice.inputs,
+            Some(vec![0]),
+            "{:?}",
+            searched.inputs
+        );
+        let sel = select(x.view(), &y, 5, Rule::Best, false);
         assert_eq!(sel.metric_scores.len(), METRIC_POWERS.len());
         assert_eq!(sel.metric_scores[0].power, 0.0);
         let plain = sel.metric_scores[0].r2;
@@ -1149,7 +1405,7 @@ mod tests {
             let (x, y) = uniform_table(seed, 200, 3, 0.5, |r| {
                 (0..3).map(|j| (3.0 * r[j]).sin()).sum::<f64>()
             });
-            let sel = select(x.view(), &y, seed, Rule::Best);
+            let sel = select(x.view(), &y, seed, Rule::Best, true);
             assert_eq!(
                 sel.choice.metric.is_some(),
                 sel.metric_scores.iter().any(|m| m.clears),
@@ -1182,7 +1438,7 @@ mod tests {
         let n = 60;
         let x = Array2::from_shape_fn((n, 1), |_| rng.gen::<f64>());
         let y: Vec<f64> = (0..n).map(|i| x[[i, 0]] + 0.1 * rng.gen::<f64>()).collect();
-        let sel = select(x.view(), &y, 5, Rule::Best);
+        let sel = select(x.view(), &y, 5, Rule::Best, true);
         assert_eq!(sel.metric_scores.len(), 1);
         assert!(sel.choice.metric.is_none());
     }
