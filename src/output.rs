@@ -785,6 +785,21 @@ fn same_kind(target: &Target) -> Result<(), Error> {
             crate::error::shown(&target.given)
         )));
     }
+    // A checkpoint is a lossprism document too, but the saved state of a run that may be
+    // resumed: "is not a result or part document" left the user wondering (sweep 70).
+    let compact: String = String::from_utf8_lossy(&head)
+        .chars()
+        .filter(|c| !c.is_whitespace())
+        .collect();
+    if target.kind == Kind::Json && compact.contains("\"checkpoint\":true") {
+        return Err(Error::Usage(format!(
+            "{}: {} is a checkpoint (the saved state of a run that `--resume` continues); a \
+             result or part never replaces one (choose another file, or remove it once the run \
+             it belongs to is done)",
+            target.flag,
+            crate::error::shown(&target.given)
+        )));
+    }
     Err(Error::Usage(format!(
         "{}: {} exists and is not {}; lossprism replaces a file only with its own kind of output \
          (choose another file, or remove it first)",

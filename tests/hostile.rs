@@ -395,6 +395,24 @@ impl Case {
 fn scenario_cases(t: &mut Table) {
     let g = "scenario";
     let v = "validate";
+    // Sweep 70: an unknown table was reported without its path, and `[model]` beside
+    // `[[model]]` with the parser's words alone.
+    let base = "name = \"t\"\n[data]\nsource = \"synthetic\"\ntrain_size = 20\n[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n[data.truth]\nformula = \"x\"\n[data.noise]\nsd = 1.0\n";
+    let knn = "family = \"knn\"\ngrid = [1]\n";
+    t.scenario(
+        g,
+        "an unknown table under a known one",
+        &format!("{base}[data.noise.extra]\nq = 1\n[model]\n{knn}"),
+        v,
+        "s.toml:12: key `data.noise.extra`: unknown field `extra`",
+    );
+    t.scenario(
+        g,
+        "[model] and [[model]] together",
+        &format!("{base}[model]\n{knn}[[model]]\n{knn}"),
+        v,
+        "a scenario has one `[model]` table or several `[[model]]` tables, not both",
+    );
     // A comparison with NaN read as 0: half of U[-1, 1] silently got 0 for `sqrt(x) > 0.5`.
     // (And the message names the formula's line, which data errors did not.)
     t.scenario(
@@ -4507,6 +4525,18 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
             needle,
         );
     }
+    // Sweep 70: a result written over a checkpoint was refused as "not a lossprism result or
+    // part document", though the file is a lossprism document.
+    t.add(
+        g,
+        "run --out over a checkpoint",
+        &[
+            ("s.toml", BASE.as_bytes()),
+            ("keep.json", docs.checkpoint.as_slice()),
+        ],
+        &["run", "s.toml", "--out", "keep.json", "-q"],
+        "keep.json is a checkpoint (the saved state of a run that `--resume` continues)",
+    );
     t.add(
         g,
         "twin --out the table",

@@ -926,8 +926,10 @@ fn fidelity_lines(
         }
     };
     let mut v = vec![format!(
-        "Fidelity check: {} tables of {rows} rows drawn from this twin, each twinned again the same way (the twin run at {TWIN_REPLICATES} replicates, each twin of the twin at {}):",
-        f.tables, f.replicates
+        "Fidelity check: {} {} of {rows} rows drawn from this twin, each twinned again the same way (the twin run at {TWIN_REPLICATES} replicates, each twin of the twin at {}):",
+        f.tables,
+        if f.tables == 1 { "table" } else { "tables" },
+        f.replicates
     )];
     for m in &f.models {
         let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;

@@ -36,6 +36,12 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
             message = "number too large: whole numbers in a scenario go up to \
                        9223372036854775807 (2^63 − 1)"
                 .into();
+        } else if message.contains("duplicate key `model`") {
+            // Sweep 70: the parser's words alone did not say what to do.
+            message = format!(
+                "{message}: a scenario has one `[model]` table or several `[[model]]` tables, \
+                 not both; pick one form"
+            );
         } else if let Some(span) = e.span() {
             if let Some(text) = src.get(span.clone()) {
                 let text = text.lines().next().unwrap_or("").trim();
@@ -93,6 +99,19 @@ pub fn key_path_at(src: &str, offset: usize) -> Option<String> {
     let offset = offset.min(src.len());
     let start = src[..offset].rfind('\n').map_or(0, |i| i + 1);
     let line = src[start..].lines().next().unwrap_or("");
+    // A table header (`[data.noise.extra]`, `[[model]]`): its own dotted path (sweep 70: an
+    // unknown table was reported without it).
+    let head = line.trim();
+    if head.starts_with('[') && !line.contains('=') {
+        let path = head
+            .trim_start_matches('[')
+            .split(']')
+            .next()
+            .unwrap_or("")
+            .trim();
+        let plain = |c: char| c.is_ascii_alphanumeric() || c == '_' || c == '-' || c == '.';
+        return (!path.is_empty() && path.chars().all(plain)).then(|| path.to_string());
+    }
     let (key, _) = line.split_once('=')?;
     let key = key.trim().trim_matches('"');
     if key.is_empty()
