@@ -708,23 +708,37 @@ fn second_order_var(tr: f64, points: usize, replicates: f64, scale: f64) -> Opti
     v.is_finite().then_some(v)
 }
 
-/// Where [`add_second_order`] reads the per-block mean vectors: a float array of means, or a
-/// count array turned into shares of the block's replicates (vote shares).
+/// Where [`add_second_order`] reads the per-block mean vectors: a float array of means, a
+/// count array turned into shares of the block's replicates (vote shares), or a float array of
+/// sums over every fit turned into means and weighted cell by cell.
 #[derive(Debug, Clone, Copy)]
-pub enum BlockMeans {
+pub enum BlockMeans<'w> {
     /// `floats[i]`, already means.
     Floats(usize),
     /// `counts[i] / replicates`.
     Shares(usize),
+    /// `w_c · floats[i][c] / (replicates × fits)` for every cell `c` (grid × points): the mean
+    /// over the fits of a per-fit sum, times the square root of the cell's weight in a weighted
+    /// quadratic form `mean_e ω_e d_e²` (`w_c = √ω_c`; the Poisson bias, whose weights are the
+    /// central predictions), so that `tr((Ω^½ C Ω^½)²)` is estimated as `tr C²` is.
+    WeightedSums(usize, &'w [f64]),
 }
 
-impl BlockMeans {
+impl BlockMeans<'_> {
     fn read<'a>(self, a: &'a Acc, cells: std::ops::Range<usize>) -> std::borrow::Cow<'a, [f64]> {
         match self {
             BlockMeans::Floats(i) => std::borrow::Cow::Borrowed(&a.floats[i][cells]),
             BlockMeans::Shares(i) => {
                 let n = a.replicates.max(1) as f64;
                 a.counts[i][cells].iter().map(|&c| c as f64 / n).collect()
+            }
+            BlockMeans::WeightedSums(i, w) => {
+                let n = (a.replicates.max(1) * a.shape.fits.max(1) as u64) as f64;
+                a.floats[i][cells.clone()]
+                    .iter()
+                    .zip(&w[cells])
+                    .map(|(s, w)| w * (s / n))
+                    .collect()
             }
         }
     }
@@ -733,9 +747,10 @@ impl BlockMeans {
 /// Adds to the standard error of term `key` (of `loss`, at every grid value) the second-order
 /// variance of `second_order_var`: the term is `scale` times a mean over the points of
 /// squared errors of per-replicate vectors, `width` values per grid value (the points, or
-/// points × classes), whose block means `means` holds. Only with a known truth and every point
-/// evaluated by every block (synthetic and twin sources); a standard error that is not finite
-/// stays as it is.
+/// points × classes), whose block means `means` holds (a weighted mean of squared errors,
+/// `mean_e ω_e d_e²`, reads its vectors scaled by `√ω_e`: [`BlockMeans::WeightedSums`]). Only
+/// with a known truth and every point evaluated by every block (synthetic and twin sources); a
+/// standard error that is not finite stays as it is.
 #[allow(clippy::too_many_arguments)]
 pub fn add_second_order(
     loss: &dyn Loss,
@@ -746,7 +761,7 @@ pub fn add_second_order(
     se: &mut [Row],
     scale: f64,
     width: usize,
-    means: BlockMeans,
+    means: BlockMeans<'_>,
 ) {
     let sh = total.shape;
     if target.observed() || !sh.all_points || sh.points == 0 {
