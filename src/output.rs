@@ -791,7 +791,10 @@ fn same_kind(target: &Target) -> Result<(), Error> {
         .chars()
         .filter(|c| !c.is_whitespace())
         .collect();
-    if target.kind == Kind::Json && compact.contains("\"checkpoint\":true") {
+    if target.kind == Kind::Json
+        && compact.starts_with("{\"format\":\"lossprism-part/")
+        && compact.contains("\"checkpoint\":true")
+    {
         return Err(Error::Usage(format!(
             "{}: {} is a checkpoint (the saved state of a run that `--resume` continues); a \
              result or part never replaces one (choose another file, or remove it once the run \

@@ -411,7 +411,7 @@ fn scenario_cases(t: &mut Table) {
         "[model] and [[model]] together",
         &format!("{base}[model]\n{knn}[[model]]\n{knn}"),
         v,
-        "a scenario has one `[model]` table or several `[[model]]` tables, not both",
+        "a scenario has either one `[model]` table or several `[[model]]` tables",
     );
     // A comparison with NaN read as 0: half of U[-1, 1] silently got 0 for `sqrt(x) > 0.5`.
     // (And the message names the formula's line, which data errors did not.)
@@ -2060,35 +2060,6 @@ fn csv_cases(t: &mut Table) {
         &["twin", "/dev/zero", "--target", "y", "--out", "tw.toml"],
         "is a device or a socket",
     );
-    {
-        // Sweep 70: 40 rows of pure noise on 300 inputs; the table run read a noise estimate
-        // three times the responses' variance, a bias² of -0.12, and a reading built on it.
-        let mut state = 0x2545_f491_4f6c_dd1du64;
-        let mut next = move || {
-            state ^= state << 13;
-            state ^= state >> 7;
-            state ^= state << 17;
-            (state >> 11) as f64 / (1u64 << 53) as f64
-        };
-        let mut wide = (0..300).map(|j| format!("c{j},")).collect::<String>() + "y\n";
-        for _ in 0..40 {
-            let row: Vec<String> = (0..301).map(|_| format!("{:.3}", next())).collect();
-            wide.push_str(&row.join(","));
-            wide.push('\n');
-        }
-        t.add(
-            "csv",
-            "table run whose noise estimate is far above the responses' variance",
-            &[
-                ("t.csv", wide.as_bytes()),
-                ("s.toml", table_scenario("", TREE).as_bytes()),
-            ],
-            &["run", "s.toml", "--out", "r.json"],
-            "more than twice the responses' own variance",
-        )
-        .also("with 40 rows for 300 inputs")
-        .also("leave inputs out (`features` in [data]) or add rows");
-    }
     // Found by a hostile-input sweep (2026-12-03).
     let csv = good_csv();
     let huge_y = csv_rows(40, |i| format!("{:e}", (i % 7) as f64 * 1e80));

@@ -816,6 +816,25 @@ fn a_twin_leaves_out_inputs_the_response_does_not_move_with() {
     let plan = load_at(&dir.path().join("twin.toml"), 4);
     let doc = report::build(&plan, &runner::run(&plan, 1).unwrap());
     assert!(doc.points.iter().all(|p| p.expected_loss().is_finite()));
+    let echo = doc.scenario.twin.as_ref().expect("a twin");
+    assert_eq!(echo.inputs, vec!["x1".to_string(), "x2".to_string()]);
+    // A hand edit giving weight to an input `inputs` leaves out is refused by name.
+    let start = text.find("metric = [").expect("a metric") + "metric = [".len();
+    let end = start + text[start..].find(']').unwrap();
+    let mut w: Vec<String> = text[start..end].split(", ").map(String::from).collect();
+    assert_eq!(w[1], "0.0");
+    w[1] = "0.5".into();
+    let edited = format!("{}{}{}", &text[..start], w.join(", "), &text[end..]);
+    fs::write(dir.path().join("twin.toml"), edited).unwrap();
+    let err = scenario::load(&dir.path().join("twin.toml"), &PlanOptions::default())
+        .expect_err("refused")
+        .to_string();
+    assert!(
+        err.contains(
+            "key `data.reference.metric`: gives weight 0.5 to `n1`, which `inputs` leaves out"
+        ),
+        "{err}"
+    );
 }
 
 #[test]

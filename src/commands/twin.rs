@@ -583,10 +583,21 @@ fn input_search_line(sel: &Selection, names: &[String]) -> Option<String> {
 /// Lines describing the reference candidates and the choice.
 fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<String> {
     let sel = &fit.selection;
-    let mut v = vec![format!(
-        "Reference for E[y | x], candidates by {}-fold cross-validated R² (± SE):",
-        sel.folds
-    )];
+    let mut v: Vec<String> = input_search_line(sel, names).into_iter().collect();
+    v.push(format!(
+        "Reference for E[y | x], candidates by {}-fold cross-validated R² (± SE){}:",
+        sel.folds,
+        match &sel.choice.inputs {
+            Some(c) => format!(
+                ", on {} alone",
+                c.iter()
+                    .map(|&j| names.get(j).map_or("?", |n| n.as_str()))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+            None => String::new(),
+        }
+    ));
     for sc in &sel.scores {
         v.push(format!(
             "  {:<7} {}  ({})",
@@ -600,9 +611,6 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
             },
             sc.tuned
         ));
-    }
-    if let Some(line) = input_search_line(sel, names) {
-        v.push(line);
     }
     if sel.metric_scores.len() > 1 {
         let tried: Vec<String> = sel

@@ -161,38 +161,47 @@ pub fn negative_refusal(
     ))
 }
 
-/// Why a table run's noise estimate `value ± stderr` cannot be believed because it is more than
-/// twice the responses' own variance (which holds the noise and the signal both), or `None`.
-/// The mirror of [`negative_refusal`], and of the twin's refusal of a twin holding more than
-/// twice the table's variance: found by a hostile-input sweep (40 rows of pure noise on 300
-/// inputs read σ̂² = 0.21 ± 0.55 against a variance of 0.074, and the table's bias² came out
-/// −0.12 with a reading built on it). Neighbours in many inputs are far apart, so the estimator
-/// extrapolates far; twice the variance is the twin's bar (a rule of thumb, no source).
-pub fn excessive_refusal(
-    method: Method,
-    value: f64,
-    stderr: f64,
-    table: &super::Table,
-) -> Option<String> {
+/// A warning for a table run whose noise estimate `value ± stderr` says almost nothing: more
+/// than twice the responses' own variance (which holds the noise and the signal both), or with
+/// a standard error above that variance. `None` otherwise. Found by a hostile-input sweep (40
+/// rows of pure noise on 300 inputs read σ̂² = 0.21 ± 0.55 against a variance of 0.074; the
+/// table's bias² came out −0.12, and the reading compared it with the variance without a
+/// word). Not a refusal: honest small tables with many inputs reach it too (30 rows of pure
+/// noise on 10 inputs, 5 of 100 above twice the variance, measured by a second reader), and
+/// their expected loss and variance do not depend on the noise. Twice the variance is the
+/// twin's bar for the variance it holds (a rule of thumb, no source).
+pub fn uninformative_warning(value: f64, stderr: f64, table: &super::Table) -> Option<String> {
     let var = response_variance(table.y.view());
-    if value.is_nan() || value <= 2.0 * var {
+    let what = if value > 2.0 * var {
+        format!(
+            "is {} ± {}, more than twice the responses' own variance {}, which holds the noise \
+             and the signal both",
+            crate::fmt::fmt_num(value),
+            crate::fmt::fmt_num(stderr),
+            crate::fmt::fmt_num(var)
+        )
+    } else if stderr > var {
+        format!(
+            "is {} ± {}, a standard error above the responses' own variance {}",
+            crate::fmt::fmt_num(value),
+            crate::fmt::fmt_num(stderr),
+            crate::fmt::fmt_num(var)
+        )
+    } else {
         return None;
-    }
+    };
     let p = table.x.ncols();
     Some(format!(
-        "the noise estimate ({}) is {} ± {}, more than twice the responses' own variance {}, \
-         which holds the noise and the signal both: with {} rows for {} the neighbours are too \
-         far apart for it to be trusted, and the table's bias² would be that much too low; {}",
-        method.name(),
-        crate::fmt::fmt_num(value),
-        crate::fmt::fmt_num(stderr),
-        crate::fmt::fmt_num(var),
+        "the noise estimate {what}: with {} rows for {} it says almost nothing, so the bias² \
+         terms (expected loss minus variance minus this estimate) and any reading of bias² \
+         against variance are not to be trusted; the expected loss and the variance do not \
+         depend on it. {}`noise_estimator = \"nn\"` in [data] (never negative, biased up)",
         table.rows(),
         table.inputs_words(),
         if p > 1 {
-            "leave inputs out (`features` in [data]) or add rows"
+            "Leave inputs out (`features` in [data]), add rows, or try "
         } else {
-            "add rows"
+            "Add rows, or try "
         }
     ))
 }

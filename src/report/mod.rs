@@ -1607,6 +1607,20 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             .collect();
         reading = ranking_reading(r);
     }
+    // A table whose noise estimate says almost nothing: its bias² split is not to be read
+    // (sweep 70: the reading compared a bias² of -0.12 ± 0.55 with the variance).
+    if let Some(run) = outcome.prepared.table.as_ref().filter(|_| !folded) {
+        if let Some(n) = run.noise.as_ref() {
+            if crate::dataset::noise::uninformative_warning(n.value, n.stderr, &run.work).is_some()
+            {
+                reading.push_str(
+                    " But the noise estimate says almost nothing on this table (see the \
+                     warning beside it), so neither the bias² terms nor their comparison with \
+                     the variance are to be read; the expected loss and its lowest point stand.",
+                );
+            }
+        }
+    }
     let learning_curves = (plan.sizes.len() > 1).then(|| learning(plan, outcome));
     if let Some(curves) = &learning_curves {
         for c in curves {
@@ -1676,7 +1690,15 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             method: n.method.name().into(),
             about: n.method.describe().into(),
             response_variance: finite(crate::dataset::noise::response_variance(run.work.y.view())),
-            warning: crate::dataset::noise::far_input_warning(n.method, &run.work),
+            warning: {
+                let far = crate::dataset::noise::far_input_warning(n.method, &run.work);
+                let weak =
+                    crate::dataset::noise::uninformative_warning(n.value, n.stderr, &run.work);
+                match (far, weak) {
+                    (Some(a), Some(b)) => Some(format!("{a}; and {b}")),
+                    (a, b) => a.or(b),
+                }
+            },
         });
         scheme_note = Some(tp.note());
     }

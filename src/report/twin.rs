@@ -25,6 +25,10 @@ pub struct TwinEcho {
     /// table's order (`metric` of the recipe); absent when every input counts alike.
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub input_weights: Vec<f64>,
+    /// The inputs the reference is fitted on when `lossprism twin` left the others out (the
+    /// recipe's `inputs`); absent when it uses every input.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub inputs: Vec<String>,
     /// Cross-validated R² of each candidate when the choice was made (absent for older twins).
     #[serde(default, skip_serializing_if = "Vec::is_empty")]
     pub cv_r2: Vec<CandidateR2>,
@@ -282,6 +286,16 @@ pub fn echo(p: &Synthetic) -> Option<TwinEcho> {
         reference: r.choice.family.name().into(),
         twice: r.choice.twice,
         input_weights: r.choice.metric.clone().unwrap_or_default(),
+        inputs: r
+            .choice
+            .inputs
+            .as_ref()
+            .map(|c| {
+                c.iter()
+                    .map(|&j| p.inputs.get(j).map_or("?".into(), |i| i.name.clone()))
+                    .collect()
+            })
+            .unwrap_or_default(),
         cv_r2,
         sharpen: rep.sharpen,
         jitter: p.jitter().map_or(0.0, |j| j.scale),
@@ -377,10 +391,32 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
             fmt_value(f)
         ));
     }
-    if !t.input_weights.is_empty() {
+    if !t.inputs.is_empty() {
         out.push(format!(
-            "Its neighbour distances weight the standardized inputs by {} (in the table's input order: the gradient of a bagged-tree pilot, chosen by cross-validation when `lossprism twin` wrote the twin), so inputs the response barely depends on count less.",
-            values(&t.input_weights)
+            "Its truth is fitted on {} only: `lossprism twin`'s search found that the response does not move with the table's other inputs (they are still drawn, and the families see them), and its noise was measured on these alone.",
+            t.inputs.join(", ")
+        ));
+    }
+    // Weights of 1 on every input kept only say which inputs are left out (no weighting).
+    let kept_weights: Vec<f64> = t
+        .input_weights
+        .iter()
+        .copied()
+        .filter(|&w| t.inputs.is_empty() || w > 0.0)
+        .collect();
+    let weighs = !kept_weights.is_empty()
+        && (t.inputs.is_empty() || kept_weights.iter().any(|&w| w != 1.0))
+        && t.reference != "forest"
+        && t.reference != "poly";
+    if weighs {
+        out.push(format!(
+            "Its neighbour distances weight the standardized inputs by {} (in {}: the gradient of a bagged-tree pilot, chosen by cross-validation when `lossprism twin` wrote the twin), so inputs the response barely depends on count less.",
+            values(&kept_weights),
+            if t.inputs.is_empty() {
+                "the table's input order"
+            } else {
+                "the order of the inputs above"
+            }
         ));
     }
     if let Some(n) = &t.noise {
@@ -418,8 +454,9 @@ pub fn words(t: &TwinEcho) -> Vec<String> {
         for m in &f.models {
             let inside = (m.in_one_se * m.picks.len() as f64).round() as usize;
             out.push(format!(
-                "Fidelity check ({} tables drawn from the twin and twinned again, {} replicates per run{}), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
+                "Fidelity check ({} {} drawn from the twin and twinned again, {} replicates per run{}), {} {}: the twin's lowest expected loss is at {} (one-SE set {}), the bias-corrected pick is {}; the twins of the twin picked {} ({} of {} inside the set) with a mean curve distance of {:.1}% — how accurate twins of tables like this one typically are, not an error bar for this table.",
                 f.tables,
+                if f.tables == 1 { "table" } else { "tables" },
                 f.replicates,
                 match f.twin_replicates {
                     Some(r) => format!(" of a twin of the twin, {r} for the twin itself"),

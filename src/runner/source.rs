@@ -391,9 +391,6 @@ fn prepare_inner(plan: &Plan) -> Result<(Prepared, (f64, f64)), Error> {
                         t.table.path.display()
                     )));
                 }
-                if let Some(why) = noise::excessive_refusal(n.method, n.value, n.stderr, &work) {
-                    return Err(Error::Data(format!("{}: {why}", t.table.path.display())));
-                }
             }
             return Ok((
                 Prepared {

@@ -39,8 +39,8 @@ pub fn parse(src: &str, file: &str) -> Result<spec::ScenarioSpec, ScenarioError>
         } else if message.contains("duplicate key `model`") {
             // Sweep 70: the parser's words alone did not say what to do.
             message = format!(
-                "{message}: a scenario has one `[model]` table or several `[[model]]` tables, \
-                 not both; pick one form"
+                "{message}: a scenario has either one `[model]` table or several `[[model]]` \
+                 tables (double brackets), each family in its own"
             );
         } else if let Some(span) = e.span() {
             if let Some(text) = src.get(span.clone()) {
@@ -101,8 +101,8 @@ pub fn key_path_at(src: &str, offset: usize) -> Option<String> {
     let line = src[start..].lines().next().unwrap_or("");
     // A table header (`[data.noise.extra]`, `[[model]]`): its own dotted path (sweep 70: an
     // unknown table was reported without it).
-    let head = line.trim();
-    if head.starts_with('[') && !line.contains('=') {
+    let head = line.split('#').next().unwrap_or("").trim();
+    if head.starts_with('[') && !head.contains('=') {
         let path = head
             .trim_start_matches('[')
             .split(']')

@@ -595,6 +595,18 @@ fn choice_of(
                 return Err(err(m.span(), "data.reference.metric", msg));
             }
             if let Some(c) = &kept {
+                if let Some(j) = (0..inputs).find(|j| !c.contains(j) && m.get_ref()[*j] > 0.0) {
+                    return Err(err(
+                        m.span(),
+                        "data.reference.metric",
+                        format!(
+                            "gives weight {} to `{}`, which `inputs` leaves out: the reference \
+                             never sees it; write 0 there",
+                            crate::fmt::fmt_exact(m.get_ref()[j]),
+                            crate::fmt::clip(&names[j], 40)
+                        ),
+                    ));
+                }
                 if c.iter().all(|&j| m.get_ref()[j] == 0.0) {
                     return Err(err(
                         m.span(),

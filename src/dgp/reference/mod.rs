@@ -388,7 +388,10 @@ impl Choice {
                 None => "probability-tree reference".into(),
             },
         };
-        let plain = match &self.metric {
+        // With inputs left out, only the kept inputs' weights are used, and weights of 1 on all
+        // of them are no weighting (they only say which inputs are left out).
+        let kept = self.on_kept_inputs();
+        let plain = match &kept.metric {
             Some(w) if self.weights[0] > 0.0 || self.weights[2] > 0.0 => {
                 let ws: Vec<String> = w.iter().map(|v| format!("{v:.3}")).collect();
                 format!(
@@ -409,7 +412,9 @@ impl Choice {
             Some(c) => {
                 let cols: Vec<String> = c.iter().map(|j| (j + 1).to_string()).collect();
                 format!(
-                    "{plain}; fitted on inputs {} only (the others left out)",
+                    "{plain}; on {} of the table's inputs only (by position in its input \
+                     order: {}; the others left out)",
+                    c.len(),
                     cols.join(", ")
                 )
             }
@@ -2059,7 +2064,16 @@ mod tests {
         assert!(pa.iter().zip(&pm).all(|(u, v)| u.to_bits() == v.to_bits()));
         assert_eq!(a.mean_at(&moved.row(5).to_vec()).to_bits(), pa[5].to_bits());
         assert_ne!(a.digest(), b.digest());
-        assert!(a.choice.describe().contains("fitted on inputs 1, 3 only"));
+        let words = a.choice.describe();
+        assert!(
+            words
+                .contains("on 2 of the table's inputs only (by position in its input order: 1, 3;"),
+            "{words}"
+        );
+        assert!(
+            words.contains("weight the inputs by [1.000, 0.400]"),
+            "{words}"
+        );
         // Refusals.
         for (cols, want) in [
             (vec![], "must name at least one input"),
