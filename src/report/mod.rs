@@ -891,6 +891,11 @@ pub struct TableEcho {
     pub held_out_share_stderr: Option<f64>,
     /// One line per one-hot encoded text column.
     pub encodings: Vec<String>,
+    /// Class labels listed in `[data.classes]` that no row of the table holds (a typo there
+    /// went unnoticed, and the losses still count them as possible classes); absent when every
+    /// listed label occurs.
+    #[serde(default, skip_serializing_if = "Vec::is_empty")]
+    pub absent_labels: Vec<String>,
 }
 
 /// Resolved scenario echo of a plan.
@@ -1683,6 +1688,13 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             held_out_share: share,
             held_out_share_stderr: finite(share_se),
             encodings: tp.table.encodings.iter().map(|e| e.describe()).collect(),
+            absent_labels: match tp.table.task {
+                crate::family::Task::Classify { classes } => (0..classes)
+                    .filter(|&c| !tp.table.y.iter().any(|&v| v as usize == c))
+                    .map(|c| tp.table.labels.get(c).cloned().unwrap_or_default())
+                    .collect(),
+                crate::family::Task::Regress => Vec::new(),
+            },
         });
         noise_estimate = run.noise.map(|n| NoiseEstimateEcho {
             value: n.value,
