@@ -1990,6 +1990,29 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
             s
         }
     };
+    // The same models listed in another order (sweep 70: "family differs: `tree` in the result,
+    // `knn` in the baseline", though both hold both).
+    let names = |d: &ResultDoc| -> Vec<String> {
+        d.models
+            .iter()
+            .map(|m| m.label.clone().unwrap_or_else(|| m.family.clone()))
+            .collect()
+    };
+    let (na, nb) = (names(new), names(base));
+    if na != nb && na.len() > 1 {
+        let (mut sa, mut sb) = (na.clone(), nb.clone());
+        sa.sort();
+        sb.sort();
+        if sa == sb {
+            return Some(format!(
+                "the models are listed in another order: {} in the result, {} in the baseline; \
+                 write the `[[model]]` tables in the baseline's order (the order is part of the \
+                 scenario, and results are compared row by row)",
+                na.join(", "),
+                nb.join(", ")
+            ));
+        }
+    }
     for (what, a, b) in [
         ("family", &new.family, &base.family),
         ("knob", &new.knob, &base.knob),
@@ -2627,6 +2650,37 @@ mod tests {
             "stderr": { "expected_loss": se, "bias_sq": se, "variance": se,
                         "expected_loss_direct": se }
         })
+    }
+
+    /// The same models in another order are said to be so (sweep 70: "family differs: `tree`
+    /// in the result, `knn` in the baseline", though both held both); other model lists fall
+    /// through to the first difference, as before.
+    #[test]
+    fn models_in_another_order_are_named_so() {
+        let m = |f: &str| crate::report::ModelEcho {
+            family: f.into(),
+            label: None,
+            knob: "k".into(),
+            grid: vec![1.0],
+            grid_kind: "list".into(),
+            fit_seeds: 1,
+            larger_is_simpler: false,
+        };
+        let mut a = doc(vec![row(1.0, 1.0, 0.2, 0.3, Some(0.1))]);
+        let mut b = a.clone();
+        a.models = vec![m("knn"), m("tree")];
+        b.models = vec![m("tree"), m("knn")];
+        b.family = "tree".into();
+        let why = mismatch(&a, &b).expect("incomparable");
+        assert!(
+            why.contains(
+                "listed in another order: knn, tree in the result, tree, knn in the baseline"
+            ),
+            "{why}"
+        );
+        b.models = vec![m("tree"), m("ridge")];
+        let why = mismatch(&a, &b).expect("incomparable");
+        assert!(why.starts_with("family differs"), "{why}");
     }
 
     fn doc(points: Vec<serde_json::Value>) -> ResultDoc {

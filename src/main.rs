@@ -126,8 +126,9 @@ fn one_line(rendered: &str) -> String {
     if let Some(t) = tip {
         out.push_str(&format!(" ({t})"));
     }
-    // The bare command's first line is the program's description, which ends a sentence.
-    if out.ends_with('.') {
+    // The bare command's first line is the program's description, which ends a sentence (but
+    // a listed argument that takes several values ends in "...", which stays whole).
+    if out.ends_with('.') && !out.ends_with("...") {
         out.pop();
     }
     out.push_str("; see --help");

@@ -84,6 +84,17 @@ fn base_fixture_is_valid() {
     assert!(text(&out.stdout).contains("valid"));
 }
 
+/// `merge` with no parts names the argument it needs whole (sweep 69: `<PART.json>..`, the
+/// ellipsis cut as if it ended a sentence).
+#[test]
+fn merge_without_parts_names_the_argument_whole() {
+    let dir = tempfile::tempdir().unwrap();
+    assert_bad(
+        &lossprism(dir.path(), &["merge", "--out", "m.json"]),
+        &["<PART.json>...; see --help"],
+    );
+}
+
 #[test]
 fn missing_file() {
     let dir = tempfile::tempdir().unwrap();
