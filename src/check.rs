@@ -474,6 +474,25 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
             ));
         }
     }
+    // A study names its first model at the top (sweep 69: `models` cut to its second entry
+    // drew the curves under the first model's knob); `models` is written only with two or more.
+    if let Some(first) = doc.models.first() {
+        if doc.models.len() < 2 {
+            return Err(format!(
+                "`models` lists one model, but it is written only for two or more; {EDITED}"
+            ));
+        }
+        if first.family != doc.family || first.knob != doc.knob {
+            return Err(format!(
+                "`family` and `knob` are `{}` and `{}`, but the first of `models` is `{}` with \
+                 `{}`; {EDITED}",
+                crate::fmt::clip(&doc.family, 40),
+                crate::fmt::clip(&doc.knob, 40),
+                crate::fmt::clip(&first.family, 40),
+                crate::fmt::clip(&first.knob, 40)
+            ));
+        }
+    }
     doc.check_points()?;
     let at = |i: usize| {
         format!(
@@ -2681,6 +2700,19 @@ mod tests {
         b.models = vec![m("tree"), m("ridge")];
         let why = mismatch(&a, &b).expect("incomparable");
         assert!(why.starts_with("family differs"), "{why}");
+        // A study names its first model at the top, and lists two or more (sweep 69: `models`
+        // cut to its second entry drew the curves under the first model's knob).
+        let mut d = doc(vec![row(1.0, 1.0, 0.2, 0.3, Some(0.1))]);
+        d.family = "mine".into();
+        d.models = vec![m("other"), m("mine")];
+        let why = validate_as_written(&d).expect_err("refused");
+        assert!(
+            why.contains("but the first of `models` is `other`"),
+            "{why}"
+        );
+        d.models = vec![m("mine")];
+        let why = validate_as_written(&d).expect_err("refused");
+        assert!(why.contains("`models` lists one model"), "{why}");
     }
 
     fn doc(points: Vec<serde_json::Value>) -> ResultDoc {
