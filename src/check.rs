@@ -2011,12 +2011,8 @@ fn mismatch(new: &ResultDoc, base: &ResultDoc) -> Option<String> {
     };
     // The same models listed in another order (sweep 70: "family differs: `tree` in the result,
     // `knn` in the baseline", though both hold both).
-    let names = |d: &ResultDoc| -> Vec<String> {
-        d.models
-            .iter()
-            .map(|m| m.label.clone().unwrap_or_else(|| m.family.clone()))
-            .collect()
-    };
+    let names =
+        |d: &ResultDoc| -> Vec<String> { d.models.iter().map(|m| m.id().to_string()).collect() };
     let (na, nb) = (names(new), names(base));
     if na != nb && na.len() > 1 {
         let (mut sa, mut sb) = (na.clone(), nb.clone());

@@ -165,10 +165,10 @@ impl Kind {
             // mentions the tag, or a configuration, is not one), and not a checkpoint: the
             // saved state of a run that may be resumed.
             Kind::Json => {
-                let compact: String = t.chars().filter(|c| !c.is_whitespace()).collect();
+                let compact = compact_json(&t);
                 (compact.starts_with("{\"format\":\"lossprism-result/")
                     || compact.starts_with("{\"format\":\"lossprism-part/"))
-                    && !compact.contains("\"checkpoint\":true")
+                    && !compact.contains(CHECKPOINT_FLAG)
             }
             Kind::Html => t.starts_with("<!doctype html") || t.starts_with("<html"),
             Kind::Twin => t.lines().any(|l| {
@@ -197,6 +197,15 @@ impl Kind {
             Kind::Twin => "a twin scenario (`source = \"twin\"`)",
         }
     }
+}
+
+/// How a checkpoint (a part document of a run that may be resumed) says what it is, in
+/// [`compact_json`] form.
+const CHECKPOINT_FLAG: &str = "\"checkpoint\":true";
+
+/// The head of a JSON document without whitespace, to read its first keys whatever the layout.
+fn compact_json(text: &str) -> String {
+    text.chars().filter(|c| !c.is_whitespace()).collect()
 }
 
 /// How much of an existing file [`same_kind`] reads to tell its kind.
@@ -787,13 +796,10 @@ fn same_kind(target: &Target) -> Result<(), Error> {
     }
     // A checkpoint is a lossprism document too, but the saved state of a run that may be
     // resumed: "is not a result or part document" left the user wondering (sweep 70).
-    let compact: String = String::from_utf8_lossy(&head)
-        .chars()
-        .filter(|c| !c.is_whitespace())
-        .collect();
+    let compact = compact_json(&String::from_utf8_lossy(&head));
     if target.kind == Kind::Json
         && compact.starts_with("{\"format\":\"lossprism-part/")
-        && compact.contains("\"checkpoint\":true")
+        && compact.contains(CHECKPOINT_FLAG)
     {
         return Err(Error::Usage(format!(
             "{}: {} is a checkpoint (the saved state of a run that `--resume` continues); a \

@@ -238,6 +238,13 @@ fn toml_list6(v: &[f64]) -> String {
     format!("[{}]", items.join(", "))
 }
 
+/// The names of the inputs at `cols` among the table's `names` (`?` past the end).
+fn input_names<'a>(names: &'a [String], cols: &[usize]) -> Vec<&'a str> {
+    cols.iter()
+        .map(|&j| names.get(j).map_or("?", String::as_str))
+        .collect()
+}
+
 /// The `reference = { ... }` line of a recipe (`names`: the table's inputs, which
 /// `inputs` names).
 pub fn reference_line(c: &Choice, names: &[String]) -> String {
@@ -284,10 +291,7 @@ pub fn reference_line(c: &Choice, names: &[String]) -> String {
         parts.push(format!("metric = {}", toml_list(w)));
     }
     if let Some(cols) = &c.inputs {
-        let items: Vec<String> = cols
-            .iter()
-            .map(|&j| toml_str(names.get(j).map_or("?", |n| n.as_str())))
-            .collect();
+        let items: Vec<String> = input_names(names, cols).into_iter().map(toml_str).collect();
         parts.push(format!("inputs = [{}]", items.join(", ")));
     }
     if c.family == Candidate::Blend {
@@ -538,7 +542,7 @@ fn input_search_line(sel: &Selection, names: &[String]) -> Option<String> {
     if !search.searched {
         return None;
     }
-    let name = |j: usize| names.get(j).map_or("?", |n| n.as_str()).to_string();
+    let name = |j: usize| input_names(names, &[j])[0];
     let steps: Vec<String> = search
         .steps
         .iter()
@@ -557,7 +561,7 @@ fn input_search_line(sel: &Selection, names: &[String]) -> Option<String> {
     let outcome = match (search.kept.len() == names.len(), sel.subset_gain) {
         (true, _) => "every input kept".to_string(),
         (false, Some(g)) => {
-            let kept: Vec<String> = search.kept.iter().map(|&j| name(j)).collect();
+            let kept = input_names(names, &search.kept);
             format!(
                 "the reference chosen again on {} changes the cross-validated R² of the one on \
                  every input by {} ± {}, {}",
@@ -588,13 +592,7 @@ fn reference_lines(fit: &RegressionFit, rule: Rule, names: &[String]) -> Vec<Str
         "Reference for E[y | x], candidates by {}-fold cross-validated R² (± SE){}:",
         sel.folds,
         match &sel.choice.inputs {
-            Some(c) => format!(
-                ", on {} alone",
-                c.iter()
-                    .map(|&j| names.get(j).map_or("?", |n| n.as_str()))
-                    .collect::<Vec<_>>()
-                    .join(", ")
-            ),
+            Some(c) => format!(", on {} alone", input_names(names, c).join(", ")),
             None => String::new(),
         }
     ));

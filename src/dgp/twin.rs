@@ -903,14 +903,12 @@ pub fn fit_regression_shaped(
     // With inputs left out ([`Choice::inputs`]) the noise is measured on the inputs kept, as on
     // a table of those columns alone: the estimator, its design and its correction never see
     // the others (measured: docs/twin-calibration.md §0.13).
-    let (x_full, cut) = (
-        x,
-        selection
-            .choice
-            .inputs
-            .as_ref()
-            .map(|c| super::reference::columns(x, c)),
-    );
+    let x_full = x;
+    let cut = selection
+        .choice
+        .inputs
+        .as_ref()
+        .map(|c| super::reference::columns(x, c));
     let x = cut.as_ref().map_or(x.view(), |c| c.view());
     let kept_metric = selection.choice.on_kept_inputs().metric;
     let method = method.unwrap_or(twin_noise_method(x.ncols(), chosen_r2(&selection)));

@@ -1613,18 +1613,18 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
         reading = ranking_reading(r);
     }
     // A table whose noise estimate says almost nothing: its bias² split is not to be read
-    // (sweep 70: the reading compared a bias² of -0.12 ± 0.55 with the variance).
-    if let Some(run) = outcome.prepared.table.as_ref().filter(|_| !folded) {
-        if let Some(n) = run.noise.as_ref() {
-            if crate::dataset::noise::uninformative_warning(n.value, n.stderr, &run.work).is_some()
-            {
-                reading.push_str(
-                    " But the noise estimate says almost nothing on this table (see the \
-                     warning beside it), so neither the bias² terms nor their comparison with \
-                     the variance are to be read; the expected loss and its lowest point stand.",
-                );
-            }
-        }
+    // (sweep 70: the reading compared a bias² of -0.12 ± 0.55 with the variance). The same
+    // words are the estimate's warning below.
+    let weak_noise = outcome.prepared.table.as_ref().and_then(|run| {
+        let n = run.noise.as_ref()?;
+        crate::dataset::noise::uninformative_warning(n.value, n.stderr, &run.work)
+    });
+    if weak_noise.is_some() {
+        reading.push_str(
+            " But the noise estimate says almost nothing on this table (see the warning beside \
+             it), so neither the bias² terms nor their comparison with the variance are to be \
+             read; the expected loss and its lowest point stand.",
+        );
     }
     let learning_curves = (plan.sizes.len() > 1).then(|| learning(plan, outcome));
     if let Some(curves) = &learning_curves {
@@ -1704,9 +1704,7 @@ pub fn build(plan: &Plan, outcome: &Outcome) -> ResultDoc {
             response_variance: finite(crate::dataset::noise::response_variance(run.work.y.view())),
             warning: {
                 let far = crate::dataset::noise::far_input_warning(n.method, &run.work);
-                let weak =
-                    crate::dataset::noise::uninformative_warning(n.value, n.stderr, &run.work);
-                match (far, weak) {
+                match (far, weak_noise) {
                     (Some(a), Some(b)) => Some(format!("{a}; and {b}")),
                     (a, b) => a.or(b),
                 }

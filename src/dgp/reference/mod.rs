@@ -530,9 +530,6 @@ pub struct Reference {
     /// Classes, the logistic polynomial and the tree: the inputs they use (those of positive
     /// weight in [`Choice::metric`]); `None`: every input.
     cols: Option<Vec<usize>>,
-    /// Regression: the inputs every part was fitted on ([`Choice::inputs`]); the rows given to
-    /// [`Reference::mean_at_rows`] are cut to them. `None`: every input.
-    sub: Option<Vec<usize>>,
     y: Vec<f64>,
     /// Varying noise: k/(k+1) × squared leave-one-out residual per table row.
     sq_resid: Option<Vec<f64>>,
@@ -648,7 +645,6 @@ impl Reference {
             let xs = columns(x, cols);
             let mut r = Reference::fit(xs.view(), y, 0, &inner, false, source)?;
             r.choice = choice.clone();
-            r.sub = Some(cols.clone());
             return Ok(r);
         }
         let n = x.nrows().max(1);
@@ -744,7 +740,6 @@ impl Reference {
             logit,
             ptree,
             cols,
-            sub: None,
             y: yv,
             sq_resid: None,
             var_k: 0,
@@ -887,7 +882,9 @@ impl Reference {
     /// row), which is several times faster on many rows; scratch space is kept per thread.
     pub fn mean_at_rows(&self, x: ArrayView2<'_, f64>) -> Vec<f64> {
         let full = x;
-        let cut = self.sub.as_ref().map(|c| columns(x, c));
+        // A recipe with `inputs` was fitted on those columns ([`Reference::fit`]), so every row
+        // is cut to them.
+        let cut = self.choice.inputs.as_ref().map(|c| columns(x, c));
         let x = cut.as_ref().map_or(x.view(), |c| c.view());
         let forest = self.forest.as_ref().map(|f| f.predict_rows(x));
         let poly = self.poly.as_ref().map(|p| p.predict(x));
@@ -1484,13 +1481,16 @@ pub fn fit_weighted(
 /// seconds; no source). A wider table keeps every input.
 pub const CLASS_SELECT_MAX_INPUTS: usize = 16;
 
-/// One step of [`select_class_inputs`]: the input whose leaving out lowered the k-NN shares'
-/// cross-validated log-loss most, and by how much.
-#[derive(Debug, Clone, Copy)]
+/// One step of a backward search for inputs ([`backward_elimination`]: the classification
+/// twin's [`select_class_inputs`], the regression twin's [`select::eliminate_inputs`]): the
+/// input whose leaving out helped the instrument most, and by how much.
+#[derive(Debug, Clone, Copy, PartialEq)]
 pub struct InputStep {
     /// The input (column index).
     pub input: usize,
-    /// Mean over rows of the log-loss with it minus without it (positive: better without).
+    /// Mean over rows of the paired gain without it (positive: better without): the k-NN
+    /// shares' log-loss with it minus without it (classes), or the paired gain in k-NN's
+    /// cross-validated R² ([`select::paired_gain`], regression).
     pub gain: f64,
     /// The standard error of that paired mean (sd of the differences / √rows).
     pub se: f64,
@@ -1545,38 +1545,12 @@ pub fn select_class_inputs(t: &Table, seed: u64) -> Result<ClassInputs, Error> {
             searched: false,
         });
     }
-    let mut w = vec![1.0; p];
-    let mut cur = plain.cv_logloss_rows.clone();
-    let mut steps = Vec::new();
-    while positive_columns(&w).len() >= 2 {
-        let mut best: Option<(InputStep, Vec<f64>)> = None;
-        for j in positive_columns(&w) {
-            let mut wj = w.clone();
-            wj[j] = 0.0;
-            let f = fit_weighted(t, seed, true, Some(&wj))?;
-            let (gain, se) = paired_logloss_gain(&cur, &f.cv_logloss_rows);
-            let better = match &best {
-                None => true,
-                Some(b) => gain > b.0.gain || (b.0.gain.is_nan() && !gain.is_nan()),
-            };
-            if better {
-                let step = InputStep {
-                    input: j,
-                    gain,
-                    se,
-                    dropped: gain > se,
-                };
-                best = Some((step, f.cv_logloss_rows));
-            }
-        }
-        let Some((step, rows)) = best else { break };
-        steps.push(step);
-        if !step.dropped {
-            break;
-        }
-        w[step.input] = 0.0;
-        cur = rows;
-    }
+    let (w, steps) = backward_elimination(
+        vec![1.0; p],
+        plain.cv_logloss_rows.clone(),
+        |wj| Ok::<_, Error>(fit_weighted(t, seed, true, Some(wj))?.cv_logloss_rows),
+        paired_logloss_gain,
+    )?;
     let metric = w.contains(&0.0).then_some(w);
     Ok(ClassInputs {
         plain,
@@ -1584,6 +1558,53 @@ pub fn select_class_inputs(t: &Table, seed: u64) -> Result<ClassInputs, Error> {
         steps,
         searched: true,
     })
+}
+
+/// Backward elimination over the inputs of positive weight in `mask` (the stepwise search,
+/// Hastie, Tibshirani and Friedman 2009, *The Elements of Statistical Learning*, §3.3.2, from
+/// memory): while two or more are in, each is left out in turn and `score` gives the per-row
+/// held-out values of the instrument without it; the input of the largest paired `gain` over
+/// the current rows `cur` is left out when that gain is above its standard error (the one-SE
+/// rule applied against the change), and the search stops otherwise. Returns the final mask and
+/// the steps taken (the last one not dropped when the guard stopped the search). Ties keep the
+/// lower index; a NaN gain never beats a number.
+pub fn backward_elimination<E>(
+    mut mask: Vec<f64>,
+    mut cur: Vec<f64>,
+    mut score: impl FnMut(&[f64]) -> Result<Vec<f64>, E>,
+    gain: impl Fn(&[f64], &[f64]) -> (f64, f64),
+) -> Result<(Vec<f64>, Vec<InputStep>), E> {
+    let mut steps = Vec::new();
+    while positive_columns(&mask).len() >= 2 {
+        let mut best: Option<(InputStep, Vec<f64>)> = None;
+        for j in positive_columns(&mask) {
+            let mut without = mask.clone();
+            without[j] = 0.0;
+            let rows = score(&without)?;
+            let (g, se) = gain(&cur, &rows);
+            let better = match &best {
+                None => true,
+                Some(b) => g > b.0.gain || (b.0.gain.is_nan() && !g.is_nan()),
+            };
+            if better {
+                let step = InputStep {
+                    input: j,
+                    gain: g,
+                    se,
+                    dropped: g > se,
+                };
+                best = Some((step, rows));
+            }
+        }
+        let Some((step, rows)) = best else { break };
+        steps.push(step);
+        if !step.dropped {
+            break;
+        }
+        mask[step.input] = 0.0;
+        cur = rows;
+    }
+    Ok((mask, steps))
 }
 
 /// Mean and standard error over rows of `before_i − after_i` (per-row log-losses on the same

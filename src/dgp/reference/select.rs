@@ -37,7 +37,7 @@ use ndarray::{ArrayView1, ArrayView2, Axis};
 
 use super::forest::{self, ForestParams};
 use super::loclin;
-use super::{Candidate, Choice, Reference};
+use super::{Candidate, Choice, InputStep, Reference};
 use crate::dataset::noise::mean_se;
 use crate::family::linalg::solve_spd;
 use crate::family::neighbours::{NeighbourIndex, Scratch};
@@ -389,21 +389,6 @@ fn tune(
 /// Most inputs [`eliminate_inputs`] searches (its cost grows like p² k-NN cross-validations).
 pub const ELIMINATE_MAX_INPUTS: usize = 16;
 
-/// One step of [`eliminate_inputs`]'s backward path: the input whose leaving out raised the
-/// k-NN's cross-validated error least, and the paired change in R².
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub struct InputStep {
-    /// The input (column index).
-    pub input: usize,
-    /// Paired gain in cross-validated R² without it (positive: better without), as
-    /// [`paired_gain`].
-    pub gain: f64,
-    /// Its standard error.
-    pub se: f64,
-    /// Whether it was left out.
-    pub dropped: bool,
-}
-
 /// What [`eliminate_inputs`] found.
 #[derive(Debug, Clone, PartialEq, Default)]
 pub struct InputSearch {
@@ -435,7 +420,8 @@ fn masked_knn(
 /// error (inputs standardized, every kept input alike, k chosen again at every step; the
 /// choice's own folds): while two or more inputs are in, the input whose leaving out raises the
 /// error least is left out if that lowers the error by more than one standard error of the
-/// paired per-row difference ([`metric_guard`]), and the search stops otherwise. k-NN is the
+/// paired per-row difference ([`metric_guard`]'s rule), and the search stops otherwise
+/// ([`super::backward_elimination`], the loop the classification twin's search uses). k-NN is the
 /// instrument because it assumes no form: an input that does not move the response of
 /// neighbours helps no reference, and an irrelevant input in its distance spreads the
 /// neighbours as much as a relevant one. The guard is the one-SE rule of model choice applied
@@ -461,36 +447,16 @@ pub fn eliminate_inputs(
         };
     }
     let base = Standardizer::fit(x);
-    let mut mask: Vec<f64> = (0..p)
+    let mask: Vec<f64> = (0..p)
         .map(|j| if base.constant[j] { 0.0 } else { 1.0 })
         .collect();
-    let mut cur = masked_knn(x, y, fold, folds, &base, &mask);
-    let mut steps = Vec::new();
-    while mask.iter().filter(|&&m| m > 0.0).count() >= 2 {
-        let mut best: Option<(InputStep, Vec<f64>)> = None;
-        for j in (0..p).filter(|&j| mask[j] > 0.0) {
-            let mut mj = mask.clone();
-            mj[j] = 0.0;
-            let pred = masked_knn(x, y, fold, folds, &base, &mj);
-            let (gain, se) = paired_gain(y, &cur, &pred);
-            if best.as_ref().map_or(true, |b| gain > b.0.gain) {
-                let step = InputStep {
-                    input: j,
-                    gain,
-                    se,
-                    dropped: metric_guard((gain, se)),
-                };
-                best = Some((step, pred));
-            }
-        }
-        let Some((step, pred)) = best else { break };
-        steps.push(step);
-        if !step.dropped {
-            break;
-        }
-        mask[step.input] = 0.0;
-        cur = pred;
-    }
+    let cur = masked_knn(x, y, fold, folds, &base, &mask);
+    let Ok((_, steps)) = super::backward_elimination(
+        mask,
+        cur,
+        |m| Ok::<_, std::convert::Infallible>(masked_knn(x, y, fold, folds, &base, m)),
+        |before, after| paired_gain(y, before, after),
+    );
     let dropped: Vec<usize> = steps
         .iter()
         .filter(|s| s.dropped)
