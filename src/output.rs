@@ -400,6 +400,12 @@ pub fn is_stdout(p: &Path) -> bool {
     }
 }
 
+/// `p` is an existing regular file of zero bytes (followed through links): it holds nothing an
+/// output could lose, so `--out`, `--checkpoint` and `check --update` treat it as absent.
+pub fn is_empty_file(p: &Path) -> bool {
+    fs::metadata(p).is_ok_and(|m| m.is_file() && m.len() == 0)
+}
+
 /// Refuses a standard output that is one of the command's `inputs` (`(role, path)`), opened
 /// with `1<>` or `>>` (with `>` the shell has already emptied it): the words printed would be
 /// written over or after the input (a scenario, a baseline, a part), with exit 0.

@@ -820,7 +820,9 @@ fn load_checkpoint(
     wanted: &Range<u64>,
     points: usize,
 ) -> Result<Option<BTreeMap<u64, BlockResult>>, Error> {
-    if !path.exists() {
+    // An empty file holds nothing to resume or to lose (as for `--out`): the run starts afresh
+    // and the checkpoint replaces it.
+    if !path.exists() || crate::output::is_empty_file(path) {
         return Ok(None);
     }
     let shown = path.display();

@@ -207,6 +207,27 @@ fn command_line_check() {
     let (code, _, err) = run3(d, &["check", "same.json", "--baseline", "spaces.json"]);
     assert_eq!(code, 2);
     assert!(err.contains("holds only blank space"), "{err}");
+    // An empty baseline (made by `touch`) holds nothing to compare with: `check` says how to
+    // create it, and `--update` creates it as it creates a missing one.
+    std::fs::write(d.join("empty.json"), b"").unwrap();
+    let (code, _, err) = run3(d, &["check", "same.json", "--baseline", "empty.json"]);
+    assert_eq!(code, 2);
+    assert!(
+        err.contains("empty.json: baseline is empty; create it with"),
+        "{err}"
+    );
+    let (code, out, err) = run3(
+        d,
+        &["check", "same.json", "--baseline", "empty.json", "--update"],
+    );
+    assert_eq!(code, 0, "{err}");
+    assert!(
+        out.contains("baseline empty.json created from same.json"),
+        "{out}"
+    );
+    let (code, out, _) = run3(d, &["check", "same.json", "--baseline", "empty.json"]);
+    assert_eq!(code, 0);
+    assert!(out.starts_with("identical"), "{out}");
 
     let (code, out, _) = run3(d, &["check", "noisy.json", "--baseline", "base.json"]);
     assert_eq!(code, 1, "{out}");

@@ -765,6 +765,23 @@ fn a_stale_checkpoint_from_another_seed_is_refused_and_left_alone() {
             && !msg.contains("delete"),
         "{msg}"
     );
+    // An empty file (made by `touch`) holds nothing to resume or to lose: the run starts
+    // afresh and writes its checkpoint there, as `--out` replaces an empty file.
+    fs::write(d.join("empty.json"), "").unwrap();
+    let o = lossprism(
+        d,
+        &[
+            "run",
+            "s.toml",
+            "--checkpoint",
+            "empty.json",
+            "--stop-after-blocks",
+            "2",
+            "-q",
+        ],
+    );
+    assert_eq!(o.status.code(), Some(3), "{}", stderr(&o));
+    assert!(read(d, "empty.json").contains("checkpoint"));
 }
 
 #[test]

@@ -636,6 +636,52 @@ fn repeated_records_are_found_by_value_and_left_out_on_request() {
     );
 }
 
+/// Only the columns a run reads must be UTF-8 text: a notes column in another encoding is
+/// read around, and two rows that differ only in its bytes stay two records for the holdout
+/// ledger. A byte that is not UTF-8 in a column the run reads is refused by line and column.
+#[test]
+fn bytes_that_are_not_utf8_matter_only_in_the_columns_read() {
+    let dir = tmp();
+    let p = dir.path().join("t.csv");
+    let mut bytes = b"a,note,y\n".to_vec();
+    for i in 0..12 {
+        bytes.extend_from_slice(format!("{i},caf").as_bytes());
+        // Latin-1 `\xe9` and `\xe8`: different bytes, both replaced alike in text.
+        bytes.push(if i % 2 == 0 { 0xe9 } else { 0xe8 });
+        bytes.extend_from_slice(format!(",{}\n", i % 3).as_bytes());
+    }
+    fs::write(&p, &bytes).unwrap();
+    let opts = TableOptions {
+        target: "y".into(),
+        features: Some(vec!["a".into()]),
+        ..Default::default()
+    };
+    let t = table::load_csv(&p, &opts).expect("the note column is not read");
+    assert_eq!(t.rows(), 12);
+    // The first row with its note's byte swapped is another record; the others are not.
+    let mut swapped = bytes.clone();
+    let at = swapped.iter().position(|&b| b == 0xe9).unwrap();
+    swapped[at] = 0xe8;
+    fs::write(&p, &swapped).unwrap();
+    let u = table::load_csv(&p, &opts).expect("loads");
+    assert_ne!(t.records[0], u.records[0], "the raw bytes name the record");
+    assert_eq!(t.records[1..], u.records[1..]);
+    // Read by default (every column a feature), the same byte is refused where it stands.
+    let e = table::load_csv(
+        &p,
+        &TableOptions {
+            target: "y".into(),
+            ..Default::default()
+        },
+    )
+    .unwrap_err();
+    assert!(
+        e.to_string()
+            .contains("t.csv:2: column `note`: is not UTF-8 text"),
+        "{e}"
+    );
+}
+
 // ---------------------------------------------------------------------------------------------
 // Command line: bad tables, the holdout ledger, classification.
 
@@ -1873,7 +1919,16 @@ fn a_listed_class_label_no_row_holds_is_named() {
         text.contains("note: `9` listed in [data.classes] but held by no row of the table"),
         "{text}"
     );
+    // The HTML report's description of the data says it too.
+    let html = report::html::scenario_words(&doc).join("\n");
+    assert!(
+        html.contains("Note: `9` listed in [data.classes] but held by no row of the table"),
+        "{html}"
+    );
     let doc = run("\"0\", \"2\", \"7\"");
     assert!(doc.table.as_ref().unwrap().absent_labels.is_empty());
     assert!(!report::terminal::render(&doc).contains("held by no row"));
+    assert!(!report::html::scenario_words(&doc)
+        .join("\n")
+        .contains("held by no row"));
 }

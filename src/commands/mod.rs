@@ -735,7 +735,9 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
         crate::output::write_one("--baseline", &args.baseline, &inputs, text.as_bytes())
             .map_err(undo)
     };
-    if args.update && !args.baseline.exists() {
+    // An empty baseline (a file made by `touch`) holds nothing to compare with or to lose.
+    let absent = !args.baseline.exists() || crate::output::is_empty_file(&args.baseline);
+    if args.update && absent {
         write_baseline(&text)?;
         outln!(
             "baseline {} created from {}",
@@ -753,10 +755,15 @@ pub fn check(args: CheckArgs) -> Result<u8, Error> {
                 .into(),
         ));
     }
-    if !args.baseline.exists() {
+    if absent {
         return Err(Error::Usage(format!(
-            "{}: baseline not found; create it with `lossprism check {} --baseline {} --update`",
+            "{}: baseline {}; create it with `lossprism check {} --baseline {} --update`",
             args.baseline.display(),
+            if args.baseline.exists() {
+                "is empty"
+            } else {
+                "not found"
+            },
             args.result.display(),
             args.baseline.display()
         )));

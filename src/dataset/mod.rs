@@ -713,21 +713,36 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
 
     // Read every record once (as text), with its line.
     // One allocation per record (not per cell).
+    // Read as bytes: only the columns the run uses must be UTF-8 text (a notes column in
+    // another encoding that the run never reads was refused). The record's fingerprint (the
+    // holdout ledger's identity of a row) is taken over its raw bytes, as before for UTF-8.
     let mut cells: Vec<csv::StringRecord> = Vec::new();
     let mut lines: Vec<usize> = Vec::new();
-    for rec in rdr.records() {
+    let mut fingerprints: Vec<u64> = Vec::new();
+    for rec in rdr.byte_records() {
         let rec = rec.map_err(|e| {
             let line = e.position().map(line_of);
-            match e.kind() {
-                csv::ErrorKind::Utf8 { err: u, .. } => err(
-                    line,
-                    header.get(u.field()).map(String::as_str),
-                    "is not UTF-8 text (save the file as UTF-8)".into(),
-                ),
-                _ => err(line, None, csv_error_text(&e, line)),
-            }
+            err(line, None, csv_error_text(&e, line))
         })?;
         let line = rec.position().map(line_of).unwrap_or(0);
+        for &c in feature_cols.iter().chain([&target_col]) {
+            if rec.get(c).is_some_and(|b| std::str::from_utf8(b).is_err()) {
+                return Err(err(
+                    Some(line),
+                    Some(&header[c]),
+                    "is not UTF-8 text (save the file as UTF-8)".into(),
+                ));
+            }
+        }
+        let fingerprint = {
+            let mut bytes = Vec::new();
+            for cell in rec.iter() {
+                bytes.extend_from_slice(cell);
+                bytes.push(0);
+            }
+            crate::codec::fnv1a64(&bytes)
+        };
+        let rec: csv::StringRecord = rec.iter().map(String::from_utf8_lossy).collect();
         if rec.len() <= 1 && rec.iter().all(|c| c.is_empty()) {
             // A blank line, or one of spaces only. A row of empty cells (`,,`) is a row whose
             // every value is missing, and a short one (`"",""`) a row with too few fields: both
@@ -778,6 +793,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         }
         cells.push(rec);
         lines.push(line);
+        fingerprints.push(fingerprint);
     }
     if cells.is_empty() {
         return Err(err(
@@ -1150,17 +1166,7 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         dropped_rows: dropped,
         repeats_dropped: 0,
         lines: rows.iter().map(|&r| lines[r]).collect(),
-        records: rows
-            .iter()
-            .map(|&r| {
-                let mut bytes = Vec::new();
-                for cell in cells[r].iter() {
-                    bytes.extend_from_slice(cell.as_bytes());
-                    bytes.push(0);
-                }
-                crate::codec::fnv1a64(&bytes)
-            })
-            .collect(),
+        records: rows.iter().map(|&r| fingerprints[r]).collect(),
     };
     if opts.duplicates == Duplicates::Keep {
         return Ok(table);

@@ -417,6 +417,9 @@ fn table_words(
             n.about
         ));
     }
+    if let Some(note) = t.absent_labels_note() {
+        out.push(format!("Note: {note}."));
+    }
     if let Some(note) = &doc.scheme_note {
         out.push(note.clone());
     }

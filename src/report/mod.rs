@@ -898,6 +898,35 @@ pub struct TableEcho {
     pub absent_labels: Vec<String>,
 }
 
+impl TableEcho {
+    /// The words on [`TableEcho::absent_labels`] shared by the terminal and the HTML report;
+    /// `None` when every listed label occurs.
+    pub fn absent_labels_note(&self) -> Option<String> {
+        if self.absent_labels.is_empty() {
+            return None;
+        }
+        let names: Vec<String> = self
+            .absent_labels
+            .iter()
+            .map(|l| format!("`{}`", crate::fmt::clip(l, 40)))
+            .collect();
+        let one = names.len() == 1;
+        Some(format!(
+            "{} listed in [data.classes] but held by no row of the table: no model can learn {},              yet the losses count {} (a smoothed probability goes to {}); remove {} from              `labels` if {} a typo",
+            names.join(", "),
+            if one { "it" } else { "them" },
+            if one {
+                "it as a possible class"
+            } else {
+                "them as possible classes"
+            },
+            if one { "it" } else { "each" },
+            if one { "it" } else { "them" },
+            if one { "it is" } else { "they are" },
+        ))
+    }
+}
+
 /// Resolved scenario echo of a plan.
 pub fn scenario_echo(plan: &Plan) -> ScenarioEcho {
     let model = plan.model();

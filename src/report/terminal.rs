@@ -247,28 +247,8 @@ fn legend(doc: &ResultDoc, terms: &[TermDoc]) -> String {
         for e in &t.encodings {
             s.push_str(&format!("encoding: {e}\n"));
         }
-        if !t.absent_labels.is_empty() {
-            let names: Vec<String> = t
-                .absent_labels
-                .iter()
-                .map(|l| format!("`{}`", crate::fmt::clip(l, 40)))
-                .collect();
-            let one = names.len() == 1;
-            s.push_str(&format!(
-                "note: {} listed in [data.classes] but held by no row of the table: no model \
-                 can learn {}, yet the losses count {} (a smoothed probability goes to {}); \
-                 remove {} from `labels` if {} a typo\n",
-                names.join(", "),
-                if one { "it" } else { "them" },
-                if one {
-                    "it as a possible class"
-                } else {
-                    "them as possible classes"
-                },
-                if one { "it" } else { "each" },
-                if one { "it" } else { "them" },
-                if one { "it is" } else { "they are" },
-            ));
+        if let Some(note) = t.absent_labels_note() {
+            s.push_str(&format!("note: {note}\n"));
         }
     }
     if let Some(n) = &doc.scheme_note {
