@@ -33,7 +33,7 @@ use std::ffi::{OsStr, OsString};
 use std::fs::{self, File, Metadata, OpenOptions};
 use std::io::{self, Write};
 use std::path::{Component, Path, PathBuf};
-use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::atomic::{AtomicU64, AtomicU8, Ordering};
 use std::time::{Duration, Instant};
 
 use crate::error::Error;
@@ -422,16 +422,55 @@ pub fn guard_inputs(inputs: &[(&str, &Path)]) -> Result<(), Error> {
         if descriptor {
             continue;
         }
-        if is_stdout(path) {
+        let (out_here, err_here) = (is_stdout(path), is_stderr(path));
+        if err_here {
+            // The refusal itself must not land in the input: it goes to standard output, or
+            // nowhere when that is the input too.
+            STDERR_ROUTE.store(
+                if out_here {
+                    ROUTE_NOWHERE
+                } else {
+                    ROUTE_STDOUT
+                },
+                Ordering::Relaxed,
+            );
+        }
+        if out_here || err_here {
+            let which = match (out_here, err_here) {
+                (true, true) => "standard output and standard error are",
+                (true, false) => "standard output is",
+                _ => "standard error is",
+            };
             return Err(Error::Usage(format!(
-                "standard output is redirected to {role} {}, so what lossprism prints would be \
-                 written into it; redirect standard output elsewhere",
-                path.display()
+                "{which} redirected to {role} {}, so what lossprism prints would be written into \
+                 it; redirect {} elsewhere",
+                path.display(),
+                if err_here && !out_here {
+                    "standard error"
+                } else if err_here {
+                    "them"
+                } else {
+                    "standard output"
+                }
             )));
         }
     }
     Ok(())
 }
+
+/// `p` is the very file standard error is (`2>> F`, `2<> F`), as [`is_stdout`] for standard
+/// output.
+fn is_stderr(p: &Path) -> bool {
+    let id = |q: &Path| fs::metadata(q).ok().as_ref().and_then(sys::dev_ino);
+    matches!((id(p), id(Path::new("/dev/stderr"))), (Some(a), Some(b)) if a == b)
+}
+
+/// Where [`tell`] writes: standard error, or (when standard error is one of the command's
+/// inputs, [`guard_inputs`]) standard output or nowhere.
+static STDERR_ROUTE: AtomicU8 = AtomicU8::new(ROUTE_STDERR);
+const ROUTE_STDERR: u8 = 0;
+const ROUTE_STDOUT: u8 = 1;
+const ROUTE_NOWHERE: u8 = 2;
 
 /// Writes one output safely (checked against `inputs`, given as `(role, path)`): staged and
 /// renamed for a regular file, in place for a device or FIFO, standard output for `-`.
@@ -1467,6 +1506,15 @@ fn terminal_text(text: &str) -> std::borrow::Cow<'_, str> {
 /// and `eprint!` would panic.
 pub fn tell(text: &str) {
     let text = terminal_text(text);
+    match STDERR_ROUTE.load(Ordering::Relaxed) {
+        ROUTE_STDERR => {}
+        ROUTE_STDOUT => {
+            let mut out = io::stdout().lock();
+            let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
+            return;
+        }
+        _ => return,
+    }
     let mut err = io::stderr().lock();
     let _ = err.write_all(text.as_bytes()).and_then(|_| err.flush());
 }

@@ -789,6 +789,22 @@ fn an_output_that_is_the_redirected_standard_output_is_written_through_it() {
     assert_eq!(out.status.code(), Some(2), "{}", text(&out.stderr));
     assert!(text(&out.stderr).contains("standard output is redirected to the scenario file"));
     assert_eq!(fs::read_to_string(dir.path().join(&f)).unwrap(), before);
+    // Standard error opened on the scenario (`2>>`, `2<>`): the table (`--out -` prints it
+    // there) and error messages were written into it with exit 0 (sweep 71). The refusal goes
+    // to standard output, or nowhere when that is the scenario too.
+    for redirect in ["2>>", "2<>"] {
+        let out = sh(&format!("exec \"$0\" run \"$1\" --out - {redirect} \"$1\""));
+        assert_eq!(out.status.code(), Some(2), "{redirect}");
+        assert!(
+            text(&out.stdout).contains("standard error is redirected to the scenario file"),
+            "{redirect}: {}",
+            text(&out.stdout)
+        );
+        assert_eq!(fs::read_to_string(dir.path().join(&f)).unwrap(), before);
+    }
+    let out = sh("exec \"$0\" run \"$1\" --out x.json >> \"$1\" 2>&1");
+    assert_eq!(out.status.code(), Some(2));
+    assert_eq!(fs::read_to_string(dir.path().join(&f)).unwrap(), before);
 }
 
 /// A checkpoint that standard output is redirected to is named as such (the words of the run
