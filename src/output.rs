@@ -793,6 +793,14 @@ fn replaceable(flag: &str, shown: &dyn std::fmt::Display, full: &Path) -> Result
             )));
         }
     }
+    if sys::sticky_forbids(full) {
+        // The rename over it would fail after the other outputs were staged (and a link kept
+        // aside to it could not be removed).
+        return Err(Error::Usage(format!(
+            "{flag}: {shown} belongs to another user in a shared folder where only a file's owner \
+             may replace it (the folder's sticky bit, as on /tmp); choose another file"
+        )));
+    }
     if flag != LEDGER_OUTPUT {
         let mut head = Vec::with_capacity(512);
         if let Ok(f) = File::open(full) {
@@ -1316,7 +1324,12 @@ impl Transaction {
                     }
                 }
                 (Some(b), false) => {
-                    let _ = fs::remove_file(b);
+                    if let Err(e) = fs::remove_file(b) {
+                        problems.push(format!(
+                            "could not remove the copy kept aside {} ({e})",
+                            b.display()
+                        ));
+                    }
                 }
                 (None, true) => {
                     if let Err(e) = fs::remove_file(&i.target) {
@@ -1671,6 +1684,25 @@ mod sys {
         options.custom_flags(FLAGS.0 | FLAGS.1);
     }
 
+    /// The folder of `path` has the sticky bit (a shared folder such as `/tmp`) and neither
+    /// it nor the file `path` belongs to this process's user (who is not root): the kernel
+    /// refuses to rename over the file, or to remove a link to it, there.
+    pub fn sticky_forbids(path: &std::path::Path) -> bool {
+        // SAFETY: geteuid has no preconditions and cannot fail.
+        let me = unsafe { libc::geteuid() };
+        if me == 0 {
+            return false;
+        }
+        let dir = match path.parent() {
+            Some(p) if !p.as_os_str().is_empty() => p,
+            _ => std::path::Path::new("."),
+        };
+        match (std::fs::metadata(dir), std::fs::symlink_metadata(path)) {
+            (Ok(d), Ok(f)) => d.mode() & 0o1000 != 0 && d.uid() != me && f.uid() != me,
+            _ => false,
+        }
+    }
+
     /// Gives `file` the owner of `old` where permitted (as root); otherwise leaves it.
     pub fn copy_owner(file: &File, old: &Metadata) {
         if let Ok(new) = file.metadata() {
@@ -1690,6 +1722,10 @@ mod sys {
 
     pub fn dev_ino(_: &Metadata) -> Option<(u64, u64)> {
         None
+    }
+
+    pub fn sticky_forbids(_: &std::path::Path) -> bool {
+        false
     }
 
     pub fn try_lock_exclusive(_: &File) -> std::io::Result<bool> {

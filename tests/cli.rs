@@ -4,6 +4,7 @@
 
 use std::fs;
 use std::path::{Path, PathBuf};
+use std::process::Command;
 
 mod common;
 use common::*;
@@ -1119,4 +1120,78 @@ fn families_columns_line_up() {
         let at = l.chars().take_while(|c| *c == ' ').count();
         assert_eq!(at, knob_at[0], "{l}");
     }
+}
+
+/// In a shared folder with the sticky bit (as `/tmp`), a file of another user cannot be renamed
+/// over or have a link to it removed, even when its mode lets everyone write it. Sweep 71: `run
+/// --out new.json --csv shared.csv` staged both, failed at the rename with "Operation not
+/// permitted" and left a `.bak` link to the other user's file that its own user could not
+/// remove. It is refused before anything is written. Runs only as root with `setpriv` (to act
+/// as the unprivileged user 65534); otherwise it says so and checks nothing.
+#[test]
+fn another_users_file_in_a_sticky_folder_is_refused_before_anything_is_written() {
+    let root = Command::new("id")
+        .arg("-u")
+        .output()
+        .is_ok_and(|o| text(&o.stdout).trim() == "0");
+    let setpriv = Command::new("setpriv").arg("--version").output().is_ok();
+    if !root || !setpriv {
+        println!("note: not root or no setpriv; the sticky-folder case is skipped");
+        return;
+    }
+    use std::os::unix::fs::PermissionsExt;
+    let dir = tempfile::tempdir().unwrap();
+    let top = dir.path();
+    fs::set_permissions(top, fs::Permissions::from_mode(0o755)).unwrap();
+    let exe = top.join("lossprism");
+    fs::copy(bin(), &exe).unwrap();
+    fs::set_permissions(&exe, fs::Permissions::from_mode(0o755)).unwrap();
+    let shared = top.join("shared");
+    fs::create_dir(&shared).unwrap();
+    fs::set_permissions(&shared, fs::Permissions::from_mode(0o1777)).unwrap();
+    fs::write(
+        shared.join("s.toml"),
+        "name = \"sticky\"\nseed = 3\nreplicates = 20\n[data]\nsource = \"synthetic\"\n\
+         train_size = 50\neval_size = 40\n[[data.inputs]]\nname = \"x\"\nuniform = [0.0, 1.0]\n\
+         [data.truth]\nformula = \"sin(3*x)\"\n[data.noise]\nsd = 0.5\n[model]\n\
+         family = \"tree\"\ngrid = [1, 2, 3]\n",
+    )
+    .unwrap();
+    fs::write(shared.join("shared.csv"), "root's file\n").unwrap();
+    fs::set_permissions(shared.join("shared.csv"), fs::Permissions::from_mode(0o666)).unwrap();
+    let out = Command::new("setpriv")
+        .args(["--reuid=65534", "--regid=65534", "--clear-groups"])
+        .arg(&exe)
+        .args([
+            "run",
+            "s.toml",
+            "--out",
+            "new.json",
+            "--csv",
+            "shared.csv",
+            "--quiet",
+        ])
+        .current_dir(&shared)
+        .output()
+        .unwrap();
+    let err = text(&out.stderr);
+    assert_eq!(out.status.code(), Some(2), "{err}");
+    assert!(
+        err.contains("--csv: shared.csv belongs to another user in a shared folder"),
+        "{err}"
+    );
+    let mut left: Vec<String> = fs::read_dir(&shared)
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    left.sort();
+    assert_eq!(
+        left,
+        ["s.toml", "shared.csv"],
+        "nothing written or kept aside"
+    );
+    assert_eq!(
+        fs::read_to_string(shared.join("shared.csv")).unwrap(),
+        "root's file\n"
+    );
 }
