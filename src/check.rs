@@ -454,15 +454,30 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
     }
     // A built-in family has its own knob (a tree result edited to `"knob": "k"` drew "Where k
     // balances bias against variance"): external and library-supplied families name theirs.
-    let named: Vec<(&str, &str)> = if doc.models.is_empty() {
-        vec![(doc.family.as_str(), doc.knob.as_str())]
+    // Nor does it choose which way is simpler (sweep 71: `larger_is_simpler` edited to false on a
+    // k-NN result passed, and `plot` drew the curve's reading reversed).
+    let named: Vec<(&str, &str, bool, String)> = if doc.models.is_empty() {
+        vec![(
+            doc.family.as_str(),
+            doc.knob.as_str(),
+            doc.larger_is_simpler,
+            "larger_is_simpler".to_string(),
+        )]
     } else {
         doc.models
             .iter()
-            .map(|m| (m.family.as_str(), m.knob.as_str()))
+            .enumerate()
+            .map(|(i, m)| {
+                (
+                    m.family.as_str(),
+                    m.knob.as_str(),
+                    m.larger_is_simpler,
+                    format!("models[{i}].larger_is_simpler"),
+                )
+            })
             .collect()
     };
-    for (family, knob) in named {
+    for (family, knob, simpler, key) in named {
         let Some(info) = crate::family::catalogue().iter().find(|f| f.name == family) else {
             continue;
         };
@@ -471,6 +486,18 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 "`knob` is `{}`, but the `{family}` family's knob is {}; {EDITED}",
                 crate::fmt::clip(knob, 40),
                 info.knob_names()
+            ));
+        }
+        let fixed = !info.knob.starts_with('(');
+        if fixed && simpler != info.larger_is_simpler {
+            return Err(format!(
+                "`{key}` is {simpler}, but for the `{family}` family a larger `{knob}` is {}; \
+                 {EDITED}",
+                if info.larger_is_simpler {
+                    "simpler"
+                } else {
+                    "more complex"
+                }
             ));
         }
     }

@@ -3487,6 +3487,14 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             edit_json(&docs.result, |v| v["family"] = "knn".into()),
             "`knob` is `max_depth`, but the `knn` family's knob is `k`",
         ),
+        // Sweep 71: which way is simpler is the family's too (`plot` read a tree's curve
+        // reversed).
+        (
+            "a tree result said to be simpler at larger depths",
+            edit_json(&docs.result, |v| v["larger_is_simpler"] = true.into()),
+            "`larger_is_simpler` is true, but for the `tree` family a larger `max_depth` is more \
+             complex",
+        ),
         // Sweep 64: values moved together so that every identity holds, away from their own
         // leave-outs (one row raised by 1e13 hid every regression of a paired check; every
         // bias² set to the baseline's turned "worse" into "better").

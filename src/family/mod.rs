@@ -373,6 +373,10 @@ pub struct FamilyInfo {
     /// A second knob the family can vary instead (`knob = "..."` in `[model]`): the forest's
     /// `max_depth`.
     pub other_knob: Option<&'static str>,
+    /// Whether a larger knob value is the simpler model ([`Family::larger_is_simpler`] of the
+    /// built family; a unit test holds the two equal). `external` and `custom` say it in their
+    /// own options, so theirs is not fixed here.
+    pub larger_is_simpler: bool,
     /// What the knob means and which way is more complex.
     pub meaning: &'static str,
     /// Tasks supported.
@@ -408,6 +412,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "tree",
             knob: "max_depth",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "CART tree depth limit (splits on a root-to-leaf path); larger = more complex; exact ties between splits are broken at random with the fit seed",
             tasks: "regression (squared-error splits; leaf means of counts suit the poisson loss), classification (gini or entropy)",
             options: "min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (add-alpha smoothing of leaf class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a pure leaf gives a class probability 0)",
@@ -417,6 +422,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "forest",
             knob: "trees",
             other_knob: Some("max_depth"),
+            larger_is_simpler: false,
             meaning: "number of bagged CART trees averaged (or, with knob = \"max_depth\", their depth limit); larger = more complex",
             tasks: "regression (mean of trees), classification (majority vote; probabilities = mean leaf class shares)",
             options: "knob = \"trees\" | \"max_depth\" (default trees), max_depth (knob trees; default 64) or trees (knob max_depth; default 100), max_features = whole number | \"sqrt\" | \"third\" | \"all\" (default p/3 regression, sqrt(p) classification), bootstrap = true | false (default true), min_samples_leaf (default 1), criterion = \"gini\" | \"entropy\", alpha (default 0)",
@@ -426,6 +432,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "boost",
             knob: "rounds",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "boosting rounds of small regression trees (staged predictions; 0 = the constant start); larger = more complex",
             tasks: "regression (squared loss), classification with two classes (log-loss)",
             options: "learning_rate (in (0, 1], default 0.1), max_depth (default 3), subsample (share of rows per round, default 1), min_samples_leaf (default 1)",
@@ -435,6 +442,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "knn",
             knob: "k",
             other_knob: None,
+            larger_is_simpler: true,
             meaning: "number of nearest neighbours averaged; smaller = more complex",
             tasks: "regression (mean; means of counts suit the poisson loss), classification (majority vote)",
             options: "standardize = true | false (default false), alpha (add-alpha smoothing of neighbour class shares, default 0; the log loss needs alpha > 0, for example 0.5, since a neighbourhood without a class gives it probability 0)",
@@ -444,6 +452,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "poly",
             knob: "degree",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "total degree of a least-squares polynomial in the inputs; larger = more complex",
             tasks: "regression",
             options: "none",
@@ -453,6 +462,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "ridge",
             knob: "penalty",
             other_knob: None,
+            larger_is_simpler: true,
             meaning: "ridge penalty λ on standardized inputs (sum-of-squares scale); smaller = more complex",
             tasks: "regression",
             options: "none",
@@ -462,6 +472,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "minnorm",
             knob: "features",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "minimum-norm least squares on the first p inputs (pseudo-inverse; interpolates when p > n); larger = more complex",
             tasks: "regression",
             options: "intercept = true | false (default false)",
@@ -471,6 +482,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "random_features",
             knob: "width",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "minimum-norm least squares on the first `width` random ReLU features of the standardized inputs (drawn from the fit seed); larger = more complex",
             tasks: "regression",
             options: "intercept = true | false (default true)",
@@ -480,6 +492,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "logistic",
             knob: "inverse_penalty",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "C = 1/λ, inverse strength of an L2 penalty on standardized inputs; larger = more complex",
             tasks: "classification (two classes: logistic; K > 2: multinomial)",
             options: "none",
@@ -489,6 +502,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "external",
             knob: "(`knob`)",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "an estimator in any language, run as a long-lived process speaking docs/external-protocol.md; the knob is whatever it names",
             tasks: "whatever the process implements",
             options: "command = [\"python3\", \"model.py\"], knob = \"name\", timeout_seconds (default 60), larger_is_simpler (default false)",
@@ -498,6 +512,7 @@ pub fn catalogue() -> &'static [FamilyInfo] {
             name: "custom",
             knob: "(the estimator's)",
             other_knob: None,
+            larger_is_simpler: false,
             meaning: "a Rust estimator supplied through lossprism::harness (library use only; the command line refuses it)",
             tasks: "whatever the estimator supports",
             options: "none",
@@ -545,4 +560,40 @@ pub fn check_leaf_size(
         ));
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    /// [`FamilyInfo::larger_is_simpler`] is what the built family says (`check` holds a result's
+    /// `larger_is_simpler` to it).
+    #[test]
+    fn the_catalogue_says_which_way_is_simpler_as_the_families_do() {
+        let mut built = 0;
+        for info in catalogue() {
+            let (Some(build), false) = (info.build, info.knob.starts_with('(')) else {
+                continue;
+            };
+            let family = [Task::Regress, Task::Classify { classes: 2 }]
+                .into_iter()
+                .find_map(|task| {
+                    let cx = BuildContext {
+                        base: Path::new("."),
+                        task,
+                        labels_only: false,
+                    };
+                    build(&mut Options::new(info.name, Vec::new()), &cx).ok()
+                })
+                .unwrap_or_else(|| panic!("{} builds with its default options", info.name));
+            assert_eq!(
+                family.larger_is_simpler(),
+                info.larger_is_simpler,
+                "{}",
+                info.name
+            );
+            built += 1;
+        }
+        assert_eq!(built, 9);
+    }
 }
