@@ -1494,19 +1494,23 @@ pub fn say(text: &str) -> Result<(), Error> {
     write_patiently(&mut out, text.as_bytes()).map_err(|e| Error::io("standard output", &e))
 }
 
-/// `text` with the control characters other than newline and tab written as `\u{1b}`: the
-/// words printed for a person carry names from the user's files (columns, levels, paths), and
-/// an escape sequence in one must not reach the terminal as one.
+/// `text` with the control characters other than newline and tab, and the bidirectional marks
+/// and overrides, written as `\u{1b}`: the words printed for a person carry names from the
+/// user's files (columns, levels, paths), and an escape sequence in one must not reach the
+/// terminal as one.
 fn terminal_text(text: &str) -> std::borrow::Cow<'_, str> {
-    if !text
-        .chars()
-        .any(|c| c.is_control() && c != '\n' && c != '\t')
-    {
+    // The bidirectional marks and overrides too: a column name holding U+202E printed the rest
+    // of its line backwards (sweep 71; a scenario's `name` refuses them).
+    let escaped = |c: char| {
+        (c.is_control() && c != '\n' && c != '\t')
+            || matches!(c, '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}')
+    };
+    if !text.chars().any(escaped) {
         return std::borrow::Cow::Borrowed(text);
     }
     let mut out = String::with_capacity(text.len() + 8);
     for c in text.chars() {
-        if c.is_control() && c != '\n' && c != '\t' {
+        if escaped(c) {
             out.extend(c.escape_default());
         } else {
             out.push(c);
@@ -1817,6 +1821,7 @@ mod tests {
             "col \\u{1b}[31mred\\u{7}\\r"
         );
         assert_eq!(terminal_text("plain ± σ̂²"), "plain ± σ̂²");
+        assert_eq!(terminal_text("b\u{202e}x"), "b\\u{202e}x");
     }
 
     /// Sorted file names in `dir` (temporaries and backups are hidden files, so they show).
