@@ -260,7 +260,10 @@ pub fn parse_result(text: &str, what: &str) -> Result<ResultDoc, CheckError> {
         Some(other) => {
             return Err(CheckError::BadDocument(format!(
                 "{what}: {}",
-                crate::report::format_refusal(other)
+                crate::report::format_refusal(
+                    other,
+                    v.get("checkpoint").and_then(|c| c.as_bool()) == Some(true)
+                )
             )))
         }
         None => {
@@ -595,7 +598,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 .iter()
                 .find(|v| !have.contains(&(*family, n, v.to_bits())))
             {
-                let mut row = format!("{} = {}", doc.knob, fmt_value(*v));
+                // The knob of the row's own model (a study's second model has its own).
+                let knob = family
+                    .and_then(|f| doc.models.iter().find(|m| m.id() == f))
+                    .map_or(doc.knob.as_str(), |m| m.knob.as_str());
+                let mut row = format!("{knob} = {}", fmt_value(*v));
                 if let Some(f) = family {
                     row = format!("{} {row}", crate::fmt::clip(f, 40));
                 }

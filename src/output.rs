@@ -855,8 +855,8 @@ fn same_kind(target: &Target) -> Result<(), Error> {
         && compact.contains(CHECKPOINT_FLAG)
     {
         return Err(Error::Usage(format!(
-            "{}: {} is a checkpoint (the saved state of a run that `--resume` continues); a \
-             result or part never replaces one (choose another file, or remove it once the run \
+            "{}: {} is a checkpoint (the saved state of a run, which rerunning it with the same \
+             `--checkpoint` continues); a result or part never replaces one (choose another file, or remove it once the run \
              it belongs to is done)",
             target.flag,
             crate::error::shown(&target.given)

@@ -4514,8 +4514,22 @@ fn output_clash_cases(t: &mut Table, docs: &Docs) {
             ("keep.json", docs.checkpoint.as_slice()),
         ],
         &["run", "s.toml", "--out", "keep.json", "-q"],
-        "keep.json is a checkpoint (the saved state of a run that `--resume` continues)",
+        "keep.json is a checkpoint (the saved state of a run, which rerunning it with the same `--checkpoint` continues)",
     );
+    // Sweep 71: `plot` and `check` of a checkpoint advised `lossprism merge`.
+    for cmd in [
+        &["plot", "ck.json", "--out", "x.svg"][..],
+        &["check", "ck.json", "--baseline", "ck.json"][..],
+    ] {
+        t.add(
+            g,
+            format!("{} of a checkpoint", cmd[0]),
+            &[("ck.json", docs.checkpoint.as_slice())],
+            cmd,
+            "ck.json: is a checkpoint (format `lossprism-part/2`), the saved state of an \
+             unfinished run",
+        );
+    }
     t.add(
         g,
         "twin --out the table",

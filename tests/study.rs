@@ -183,6 +183,19 @@ fn several_families_equal_their_single_family_runs() {
     }
 }
 
+/// A study's missing row is named by its own model's knob (sweep 71: a study without its k-NN
+/// rows was said to have "no row for knn max_depth = 1", the first model's knob).
+#[test]
+fn a_missing_row_of_a_study_is_named_by_its_own_knob() {
+    let both = BAKERY
+        .replace("SIZES", "[60]")
+        .replace("MODELS", &format!("{TREE}{KNN}"));
+    let (_, _, mut doc) = run_text(&both, &PlanOptions::default());
+    doc.points.retain(|p| p.family.as_deref() != Some("knn"));
+    let e = lossprism::check::validate(&doc).unwrap_err();
+    assert!(e.contains("`points` have no row for knn k = "), "{e}");
+}
+
 /// The CSV outputs of a study name each row's own model: `--csv` its knob, `--points` every
 /// (training size, model) cell (it wrote the first model at the largest size alone, with no
 /// column saying so), each cell's rows equal to that family's own run.

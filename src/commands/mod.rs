@@ -888,7 +888,13 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
         Some(report::FORMAT) => Ok(text),
         Some(other) => Err(Error::Usage(format!(
             "{name}: {}",
-            report::format_refusal(other)
+            report::format_refusal(
+                other,
+                serde_json::from_str::<serde_json::Value>(&text)
+                    .ok()
+                    .and_then(|v| v.get("checkpoint")?.as_bool())
+                    == Some(true)
+            )
         ))),
         None => Err(Error::Usage(format!(
             "{name}: no `format` field; expected a result document written by `lossprism run --out`"

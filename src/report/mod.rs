@@ -33,14 +33,22 @@ pub const FORMAT: &str = "lossprism-result/2";
 pub const FORMAT_V1: &str = "lossprism-result/1";
 
 /// Why a document with format tag `other` is not read as a result: an older result must be
-/// rerun; shard parts must be merged first.
-pub fn format_refusal(other: &str) -> String {
+/// rerun; shard parts must be merged first; a checkpoint (`checkpoint`: its `checkpoint` flag)
+/// is finished by rerunning its run.
+pub fn format_refusal(other: &str, checkpoint: bool) -> String {
     if other == FORMAT_V1 {
         format!(
             "format `{other}` was written by an earlier lossprism; this version reads `{FORMAT}` \
              (rows carry their training size and model, and the leave-one-block-out values that \
              paired comparisons need): rerun the scenario (a baseline: rerun it and accept it \
              with `check --update`)"
+        )
+    } else if checkpoint {
+        format!(
+            "is a checkpoint (format `{}`), the saved state of an unfinished run, not a result \
+             document (`{FORMAT}`); rerun the command that wrote it (with the same \
+             `--checkpoint`) and add `--out FILE.json` to write the result",
+            crate::fmt::clip(other, 60)
         )
     } else {
         format!(

@@ -78,7 +78,7 @@ pub fn from_spec(
                 a.folds.span(),
                 "audit.folds",
                 format!(
-                    "with {folds} folds a fold fit trains on {smallest} of the {n_train} rows, too few for this model: {m}"
+                    "with {folds} folds a fold fit trains on {smallest} of the {n_train} rows, too few for this model ({m}); use fewer folds or a larger `train_size`"
                 ),
             )
         })?;
