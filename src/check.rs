@@ -807,6 +807,32 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 ));
             }
         }
+        // `run` writes an interval for every term whose standard error is a block bootstrap's,
+        // and for no other (sweep 71: one deleted, or added for `expected_loss`, passed).
+        let wants = |k: &str| {
+            described
+                .iter()
+                .any(|t| t.key == k && t.stderr && t.bootstrap)
+        };
+        if let Some((k, _)) = p.interval.iter().find(|(k, _)| !wants(k)) {
+            return Err(format!(
+                "{}: `interval95.{}` is written, but `run` gives intervals only to terms whose \
+                 standard error is a bootstrap's; {EDITED}",
+                at(i),
+                crate::fmt::clip(k, 40)
+            ));
+        }
+        if let Some(t) = described
+            .iter()
+            .find(|t| t.stderr && t.bootstrap && p.interval.iter().all(|(k, _)| *k != t.key))
+        {
+            return Err(format!(
+                "{}: no `interval95.{}`, which `run` writes beside every bootstrap standard \
+                 error; {EDITED}",
+                at(i),
+                t.key
+            ));
+        }
         // An interval holds its own estimate: the bootstrap percentile interval widened to
         // ± 2 SE around it, then clipped to the term's bounds.
         for (k, (lo, hi)) in &p.interval {
@@ -1373,7 +1399,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
             ));
         }
     }
-    if !doc.ranking.is_empty() && doc.ranking.len() != doc.sizes.len().max(1) {
+    // A run of several models ranks them at every training size, and a run of one does not
+    // (sweep 71: a study's `ranking` deleted passed as "identical").
+    if (doc.models.len() > 1 || !doc.ranking.is_empty())
+        && doc.ranking.len() != doc.sizes.len().max(1)
+    {
         return Err(format!(
             "`ranking` has {} entries for {} training sizes; {EDITED}",
             doc.ranking.len(),

@@ -3444,6 +3444,24 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             }),
             "± 2 standard errors",
         ),
+        // Sweep 71: an interval deleted, or added where `run` writes none, passed.
+        (
+            "0-1: an interval deleted",
+            edit_json(&docs.zero_one, |v| {
+                v["points"][0]["interval95"]
+                    .as_object_mut()
+                    .unwrap()
+                    .remove("bias");
+            }),
+            "no `interval95.bias`, which `run` writes beside every bootstrap standard error",
+        ),
+        (
+            "0-1: an interval for a term whose standard error is a jackknife's",
+            edit_json(&docs.zero_one, |v| {
+                v["points"][0]["interval95"]["expected_loss"] = serde_json::json!([0.0, 1.0]);
+            }),
+            "`interval95.expected_loss` is written, but `run` gives intervals only to terms",
+        ),
         (
             "0-1: a standard error beyond what a share can have",
             set(&docs.zero_one, "stderr.bias", serde_json::json!(1e300)),

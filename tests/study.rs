@@ -196,6 +196,23 @@ fn a_missing_row_of_a_study_is_named_by_its_own_knob() {
     assert!(e.contains("`points` have no row for knn k = "), "{e}");
 }
 
+/// A run of several models ranks them at every size: a study whose `ranking` was deleted is
+/// refused (sweep 71: `check` called it identical to the original).
+#[test]
+fn a_study_without_its_ranking_is_refused() {
+    let both = BAKERY
+        .replace("SIZES", "[60]")
+        .replace("MODELS", &format!("{TREE}{KNN}"));
+    let (_, _, mut doc) = run_text(&both, &PlanOptions::default());
+    lossprism::check::validate(&doc).expect("as written");
+    doc.ranking.clear();
+    let e = lossprism::check::validate(&doc).unwrap_err();
+    assert!(
+        e.contains("`ranking` has 0 entries for 1 training sizes"),
+        "{e}"
+    );
+}
+
 /// The CSV outputs of a study name each row's own model: `--csv` its knob, `--points` every
 /// (training size, model) cell (it wrote the first model at the largest size alone, with no
 /// column saying so), each cell's rows equal to that family's own run.
