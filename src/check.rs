@@ -522,6 +522,12 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 crate::fmt::clip(&first.knob, 40)
             ));
         }
+        if first.larger_is_simpler != doc.larger_is_simpler {
+            return Err(format!(
+                "`larger_is_simpler` is {}, but the first of `models` says {}; {EDITED}",
+                doc.larger_is_simpler, first.larger_is_simpler
+            ));
+        }
     }
     doc.check_points()?;
     let at = |i: usize| {

@@ -154,6 +154,7 @@ pub fn read_document(
     let shown = path.display();
     let refuse = |m: String| crate::error::Error::Usage(format!("{shown}: {m}"));
     let meta = std::fs::metadata(path).map_err(|e| crate::error::Error::io(path, &e))?;
+    crate::output::register_input(path);
     if meta.is_dir() {
         return Err(refuse(format!("is a folder, not a {what}")));
     }
@@ -397,6 +398,9 @@ pub struct JsonHead {
     /// The `version` field, when present.
     #[serde(default)]
     pub version: Option<serde_json::Value>,
+    /// The `checkpoint` field of a part document, when present.
+    #[serde(default)]
+    pub checkpoint: Option<serde_json::Value>,
 }
 
 impl JsonHead {
@@ -414,6 +418,14 @@ impl JsonHead {
     /// The `version` field when it is a string.
     pub fn version(&self) -> Option<&str> {
         self.version.as_ref().and_then(serde_json::Value::as_str)
+    }
+
+    /// The document says it is a checkpoint (`"checkpoint": true`).
+    pub fn is_checkpoint(&self) -> bool {
+        self.checkpoint
+            .as_ref()
+            .and_then(serde_json::Value::as_bool)
+            == Some(true)
     }
 }
 

@@ -1,5 +1,5 @@
-//! Number formatting shared by every rendering: knob values, estimates with four significant
-//! digits, standard errors with two.
+//! Number formatting shared by every rendering (knob values, estimates with four significant
+//! digits, standard errors with two), and the text marks every rendering keeps out ([`reorders`]).
 
 /// Formats a knob value compactly (`3`, `0.01`, `1e-4`).
 pub fn fmt_value(v: f64) -> String {
@@ -115,4 +115,15 @@ pub fn fmt_bytes(b: f64) -> String {
     } else {
         format!("{v:.1} {}", UNITS[u])
     }
+}
+
+/// A mark that reorders text when it is shown (the bidirectional marks, embeddings,
+/// overrides and isolates of Unicode's bidirectional algorithm, the Arabic letter mark
+/// among them): a name holding U+202E printed the rest of its line backwards. Printed words
+/// escape them, scenario names refuse them and pictures replace them.
+pub fn reorders(c: char) -> bool {
+    matches!(
+        c,
+        '\u{061c}' | '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}'
+    )
 }

@@ -33,7 +33,7 @@ use std::ffi::{OsStr, OsString};
 use std::fs::{self, File, Metadata, OpenOptions};
 use std::io::{self, Write};
 use std::path::{Component, Path, PathBuf};
-use std::sync::atomic::{AtomicU64, AtomicU8, Ordering};
+use std::sync::atomic::{AtomicU64, Ordering};
 use std::time::{Duration, Instant};
 
 use crate::error::Error;
@@ -422,19 +422,8 @@ pub fn guard_inputs(inputs: &[(&str, &Path)]) -> Result<(), Error> {
         if descriptor {
             continue;
         }
+        register_input(path);
         let (out_here, err_here) = (is_stdout(path), is_stderr(path));
-        if err_here {
-            // The refusal itself must not land in the input: it goes to standard output, or
-            // nowhere when that is the input too.
-            STDERR_ROUTE.store(
-                if out_here {
-                    ROUTE_NOWHERE
-                } else {
-                    ROUTE_STDOUT
-                },
-                Ordering::Relaxed,
-            );
-        }
         if out_here || err_here {
             let which = match (out_here, err_here) {
                 (true, true) => "standard output and standard error are",
@@ -465,12 +454,50 @@ fn is_stderr(p: &Path) -> bool {
     matches!((id(p), id(Path::new("/dev/stderr"))), (Some(a), Some(b)) if a == b)
 }
 
-/// Where [`tell`] writes: standard error, or (when standard error is one of the command's
-/// inputs, [`guard_inputs`]) standard output or nowhere.
-static STDERR_ROUTE: AtomicU8 = AtomicU8::new(ROUTE_STDERR);
-const ROUTE_STDERR: u8 = 0;
-const ROUTE_STDOUT: u8 = 1;
-const ROUTE_NOWHERE: u8 = 2;
+/// The regular files the command has read as inputs (device and inode; [`register_input`]).
+/// [`tell`] never writes into one: standard error opened on an input (`2>> table.csv`) had
+/// the table printed, or the error message, appended to it.
+static INPUT_FILES: std::sync::Mutex<Vec<(u64, u64)>> = std::sync::Mutex::new(Vec::new());
+
+/// Records `path` (when it is a regular file) as an input of this command, so that nothing
+/// [`tell`] prints lands in it. Called where inputs are read (scenario files, tables, result
+/// and part documents) and by [`guard_inputs`].
+pub fn register_input(path: &Path) {
+    let Some(id) = fs::metadata(path)
+        .ok()
+        .filter(Metadata::is_file)
+        .as_ref()
+        .and_then(sys::dev_ino)
+    else {
+        return;
+    };
+    let mut inputs = INPUT_FILES.lock().unwrap_or_else(|e| e.into_inner());
+    if !inputs.contains(&id) {
+        inputs.push(id);
+    }
+}
+
+/// Where [`tell`] writes now: standard error; standard output when standard error is an input
+/// ([`register_input`]); nowhere when both are.
+fn stderr_route() -> Route {
+    let inputs = INPUT_FILES.lock().unwrap_or_else(|e| e.into_inner());
+    if inputs.is_empty() {
+        return Route::Stderr;
+    }
+    let is_input = |fd: &str| regular_file_id(fd).is_some_and(|id| inputs.contains(&id));
+    match (is_input("/dev/stderr"), is_input("/dev/stdout")) {
+        (false, _) => Route::Stderr,
+        (true, false) => Route::Stdout,
+        (true, true) => Route::Nowhere,
+    }
+}
+
+/// See [`stderr_route`].
+enum Route {
+    Stderr,
+    Stdout,
+    Nowhere,
+}
 
 /// Writes one output safely (checked against `inputs`, given as `(role, path)`): staged and
 /// renamed for a regular file, in place for a device or FIFO, standard output for `-`.
@@ -1501,10 +1528,7 @@ pub fn say(text: &str) -> Result<(), Error> {
 fn terminal_text(text: &str) -> std::borrow::Cow<'_, str> {
     // The bidirectional marks and overrides too: a column name holding U+202E printed the rest
     // of its line backwards (sweep 71; a scenario's `name` refuses them).
-    let escaped = |c: char| {
-        (c.is_control() && c != '\n' && c != '\t')
-            || matches!(c, '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}')
-    };
+    let escaped = |c: char| (c.is_control() && c != '\n' && c != '\t') || crate::fmt::reorders(c);
     if !text.chars().any(escaped) {
         return std::borrow::Cow::Borrowed(text);
     }
@@ -1523,14 +1547,14 @@ fn terminal_text(text: &str) -> std::borrow::Cow<'_, str> {
 /// and `eprint!` would panic.
 pub fn tell(text: &str) {
     let text = terminal_text(text);
-    match STDERR_ROUTE.load(Ordering::Relaxed) {
-        ROUTE_STDERR => {}
-        ROUTE_STDOUT => {
+    match stderr_route() {
+        Route::Stderr => {}
+        Route::Stdout => {
             let mut out = io::stdout().lock();
             let _ = out.write_all(text.as_bytes()).and_then(|_| out.flush());
             return;
         }
-        _ => return,
+        Route::Nowhere => return,
     }
     let mut err = io::stderr().lock();
     let _ = err.write_all(text.as_bytes()).and_then(|_| err.flush());

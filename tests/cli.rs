@@ -806,6 +806,44 @@ fn an_output_that_is_the_redirected_standard_output_is_written_through_it() {
     let out = sh("exec \"$0\" run \"$1\" --out x.json >> \"$1\" 2>&1");
     assert_eq!(out.status.code(), Some(2));
     assert_eq!(fs::read_to_string(dir.path().join(&f)).unwrap(), before);
+    // An input found wrong before the check of the redirections (a scenario that does not
+    // parse, a table with a short row, read by `run` and by `validate`): the error goes to
+    // standard output, not into the input (the second reading found it appended there).
+    fs::write(dir.path().join("bad.toml"), "name = \"x\"\nbogus = 1\n").unwrap();
+    fs::write(dir.path().join("short.csv"), "a,b,y\n1,2\n").unwrap();
+    fs::write(
+        dir.path().join("t.toml"),
+        "name = \"t\"\n[data]\nsource = \"table\"\npath = \"short.csv\"\ntarget = \"y\"\n\
+         [model]\nfamily = \"tree\"\ngrid = [1, 2]\n",
+    )
+    .unwrap();
+    for (script, input, said) in [
+        (
+            "exec \"$0\" run bad.toml 2>> bad.toml",
+            "bad.toml",
+            "unknown field `bogus`",
+        ),
+        (
+            "exec \"$0\" run t.toml 2>> short.csv",
+            "short.csv",
+            "short.csv:2: has 2 fields",
+        ),
+        (
+            "exec \"$0\" validate t.toml 2>> short.csv",
+            "short.csv",
+            "short.csv:2: has 2 fields",
+        ),
+    ] {
+        let held = fs::read(dir.path().join(input)).unwrap();
+        let out = sh(script);
+        assert_eq!(out.status.code(), Some(2), "{script}");
+        assert!(
+            text(&out.stdout).contains(said),
+            "{script}: {}",
+            text(&out.stdout)
+        );
+        assert_eq!(fs::read(dir.path().join(input)).unwrap(), held, "{script}");
+    }
 }
 
 /// A checkpoint that standard output is redirected to is named as such (the words of the run

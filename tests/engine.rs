@@ -526,6 +526,16 @@ fn an_estimator_named_like_a_built_in_family_keeps_its_knob_or_is_refused_when_p
         e.contains("model.family") && e.contains("`knn`") && e.contains("`k`"),
         "{e}"
     );
+    // Nor may it read the knob the other way (`check` holds the name to its direction too):
+    // `knn` with the knob `k` but the default `larger_is_simpler` (false).
+    let e = match harness::plan_with_family(TOY, Arc::new(Named("knn", "k")), &opts) {
+        Ok(_) => panic!("a `knn` estimator for which larger k is more complex was planned"),
+        Err(e) => e.to_string(),
+    };
+    assert!(
+        e.contains("model.family") && e.contains("larger `k` is simpler"),
+        "{e}"
+    );
     // The same name with the built-in's knob runs, and its document passes `check`'s rules.
     let doc =
         harness::run_with_family_opts(TOY, Arc::new(Named("tree", "max_depth")), &opts, 1).unwrap();

@@ -666,6 +666,22 @@ fn bytes_that_are_not_utf8_matter_only_in_the_columns_read() {
     let u = table::load_csv(&p, &opts).expect("loads");
     assert_ne!(t.records[0], u.records[0], "the raw bytes name the record");
     assert_eq!(t.records[1..], u.records[1..]);
+    // A UTF-8 cell is trimmed of Unicode white space as the text reader trimmed it: a number
+    // followed by a non-breaking space is a number, and the fingerprint is over the trimmed
+    // text, `fnv1a64` of the cells each followed by a 0 byte (so a holdout ledger written
+    // before bytes were read keeps its rows).
+    fs::write(
+        &p,
+        "a,note,y\n1\u{a0},caf\u{e9}\u{a0},2\n3,x,4\n5,y,6\n7,z,8\n9,w,1\n",
+    )
+    .unwrap();
+    let v = table::load_csv(&p, &opts).expect("loads");
+    assert_eq!(v.x[[0, 0]], 1.0);
+    assert_eq!(
+        v.records[0],
+        lossprism::codec::fnv1a64(b"1\x00caf\xc3\xa9\x002\x00")
+    );
+    fs::write(&p, &swapped).unwrap();
     // Read by default (every column a feature), the same byte is refused where it stands.
     let e = table::load_csv(
         &p,
@@ -1916,7 +1932,11 @@ fn a_listed_class_label_no_row_holds_is_named() {
     );
     let text = report::terminal::render(&doc);
     assert!(
-        text.contains("note: `9` listed in [data.classes] but held by no row of the table"),
+        text.contains(
+            "note: `9` listed in [data.classes] but held by no row of the table: no model can \
+             learn it, yet the losses count it as a possible class (a smoothed probability goes \
+             to it); remove it from `labels` if it is a typo\n"
+        ),
         "{text}"
     );
     // The HTML report's description of the data says it too.

@@ -888,13 +888,7 @@ fn read_result_text(p: &Path) -> Result<String, Error> {
         Some(report::FORMAT) => Ok(text),
         Some(other) => Err(Error::Usage(format!(
             "{name}: {}",
-            report::format_refusal(
-                other,
-                serde_json::from_str::<serde_json::Value>(&text)
-                    .ok()
-                    .and_then(|v| v.get("checkpoint")?.as_bool())
-                    == Some(true)
-            )
+            report::format_refusal(other, head.is_checkpoint())
         ))),
         None => Err(Error::Usage(format!(
             "{name}: no `format` field; expected a result document written by `lossprism run --out`"
@@ -1150,6 +1144,11 @@ pub fn validate_with(
         ..PlanOptions::default()
     };
     let plan = scenario::load(scenario, &opts)?;
+    {
+        let data = data_inputs(&plan);
+        let inputs: Vec<(&str, &Path)> = data.iter().map(|(r, p)| (*r, p.as_path())).collect();
+        crate::output::guard_inputs(&inputs)?;
+    }
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, threads, memory_limit)?;
     runner::prepare_to_fit(&plan)?;

@@ -494,6 +494,8 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
     };
     // Streamed, never read whole: a malformed record stops the read where it is.
     let meta = std::fs::metadata(path).map_err(|e| err(None, None, format!("cannot read: {e}")))?;
+    // Nothing printed may land in the table (standard error opened on it).
+    crate::output::register_input(path);
     if meta.is_dir() {
         return Err(err(None, None, "is a folder, not a CSV file".into()));
     }
@@ -711,11 +713,13 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
         ));
     }
 
-    // Read every record once (as text), with its line.
-    // One allocation per record (not per cell).
-    // Read as bytes: only the columns the run uses must be UTF-8 text (a notes column in
-    // another encoding that the run never reads was refused). The record's fingerprint (the
-    // holdout ledger's identity of a row) is taken over its raw bytes, as before for UTF-8.
+    // Read every record once, with its line, as bytes: only the columns the run uses must be
+    // UTF-8 text (a notes column in another encoding that the run never reads was refused; the
+    // header line, which names every column, still must be). A
+    // UTF-8 cell is trimmed of Unicode white space (U+00A0 too), as the text reader trimmed
+    // it; a cell in another encoding keeps its bytes (trimmed of ASCII white space). The
+    // record's fingerprint (the holdout ledger's identity of a row) is taken over those cells,
+    // so a UTF-8 table keeps the fingerprints it had when every column was read as text.
     let mut cells: Vec<csv::StringRecord> = Vec::new();
     let mut lines: Vec<usize> = Vec::new();
     let mut fingerprints: Vec<u64> = Vec::new();
@@ -734,15 +738,24 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 ));
             }
         }
+        let cell_bytes = |b: &'_ [u8]| -> Vec<u8> {
+            match std::str::from_utf8(b) {
+                Ok(t) => t.trim().as_bytes().to_vec(),
+                Err(_) => b.to_vec(),
+            }
+        };
         let fingerprint = {
             let mut bytes = Vec::new();
             for cell in rec.iter() {
-                bytes.extend_from_slice(cell);
+                bytes.extend_from_slice(&cell_bytes(cell));
                 bytes.push(0);
             }
             crate::codec::fnv1a64(&bytes)
         };
-        let rec: csv::StringRecord = rec.iter().map(String::from_utf8_lossy).collect();
+        let rec: csv::StringRecord = rec
+            .iter()
+            .map(|b| String::from_utf8_lossy(&cell_bytes(b)).into_owned())
+            .collect();
         if rec.len() <= 1 && rec.iter().all(|c| c.is_empty()) {
             // A blank line, or one of spaces only. A row of empty cells (`,,`) is a row whose
             // every value is missing, and a short one (`"",""`) a row with too few fields: both

@@ -476,7 +476,7 @@ impl Loss for Brier {
     ) {
         let w = total.shape.points * total.shape.classes;
         let means = super::BlockMeans::Floats(MEAN);
-        super::add_second_order(self, "bias_sq", blocks, total, target, se, 1.0, w, means);
+        super::add_second_order(self, &["bias_sq"], blocks, total, target, se, 1.0, w, means);
     }
 
     fn evaluate(&self, acc: &Acc, target: &Target<'_>) -> Vec<Row> {

@@ -744,7 +744,8 @@ impl BlockMeans<'_> {
     }
 }
 
-/// Adds to the standard error of term `key` (of `loss`, at every grid value) the second-order
+/// Adds to the standard error of each term of `keys` (of `loss`, at every grid value; terms
+/// whose quadratic parts are the same form, so one variance serves them all) the second-order
 /// variance of `second_order_var`: the term is `scale` times a mean over the points of
 /// squared errors of per-replicate vectors, `width` values per grid value (the points, or
 /// points × classes), whose block means `means` holds (a weighted mean of squared errors,
@@ -754,7 +755,7 @@ impl BlockMeans<'_> {
 #[allow(clippy::too_many_arguments)]
 pub fn add_second_order(
     loss: &dyn Loss,
-    key: &str,
+    keys: &[&str],
     blocks: &[&Acc],
     total: &Acc,
     target: &Target<'_>,
@@ -767,9 +768,14 @@ pub fn add_second_order(
     if target.observed() || !sh.all_points || sh.points == 0 {
         return;
     }
-    let Some(t) = loss.describe(&sh, false).iter().position(|i| i.key == key) else {
+    let described = loss.describe(&sh, false);
+    let columns: Vec<usize> = keys
+        .iter()
+        .filter_map(|k| described.iter().position(|i| i.key == *k))
+        .collect();
+    if columns.is_empty() {
         return;
-    };
+    }
     let sizes: Vec<f64> = blocks.iter().map(|a| a.replicates as f64).collect();
     for (g, row) in se.iter_mut().enumerate() {
         let mut gram = Gram::new(&sizes);
@@ -787,8 +793,12 @@ pub fn add_second_order(
         let var = gram
             .trace_cov_squared()
             .and_then(|tr| second_order_var(tr, sh.points, total.replicates as f64, scale));
-        if let (Some(v), true) = (var, row[t].is_finite()) {
-            row[t] = (row[t] * row[t] + v).sqrt();
+        if let Some(v) = var {
+            for &t in &columns {
+                if row[t].is_finite() {
+                    row[t] = (row[t] * row[t] + v).sqrt();
+                }
+            }
         }
     }
 }

@@ -289,7 +289,7 @@ impl Loss for Poisson {
             total.shape.points,
             super::BlockMeans::WeightedSums(SUM_LOG, &root),
         );
-        super::add_second_order(self, "bias", blocks, total, target, se, 1.0, e, means);
+        super::add_second_order(self, &["bias"], blocks, total, target, se, 1.0, e, means);
     }
 
     fn layout(&self, shape: &Shape) -> Vec<ArraySpec> {

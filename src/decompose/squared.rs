@@ -764,7 +764,7 @@ impl Loss for Squared {
     ) {
         let e = total.shape.points;
         let means = super::BlockMeans::Floats(MEAN);
-        super::add_second_order(self, "bias_sq", blocks, total, target, se, 1.0, e, means);
+        super::add_second_order(self, &["bias_sq"], blocks, total, target, se, 1.0, e, means);
     }
 
     fn adjust_stderr(&self, shape: &Shape, target: &Target<'_>, se: &mut [Row]) {

@@ -920,7 +920,9 @@ impl TableEcho {
             .collect();
         let one = names.len() == 1;
         Some(format!(
-            "{} listed in [data.classes] but held by no row of the table: no model can learn {},              yet the losses count {} (a smoothed probability goes to {}); remove {} from              `labels` if {} a typo",
+            "{} listed in [data.classes] but held by no row of the table: no model can learn {}, \
+             yet the losses count {} (a smoothed probability goes to {}); remove {} from \
+             `labels` if {} a typo",
             names.join(", "),
             if one { "it" } else { "them" },
             if one {

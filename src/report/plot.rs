@@ -56,7 +56,8 @@ pub fn xml_chars(svg: String) -> String {
 /// A character [`xml_chars`] replaces.
 pub fn unsafe_char(c: char) -> bool {
     (c.is_control() && !matches!(c, '\t' | '\n' | '\r'))
-        || matches!(c, '\u{fffe}' | '\u{ffff}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}')
+        || matches!(c, '\u{fffe}' | '\u{ffff}')
+        || crate::fmt::reorders(c)
 }
 
 fn draw_err<E: std::error::Error + Send + Sync>(e: DrawingAreaErrorKind<E>) -> Error {

@@ -330,8 +330,10 @@ impl Plan {
         }
         // Control characters, and the marks that reorder text on a terminal (a name with
         // U+202E printed backwards in every report).
-        let reorders = |c: char| matches!(c, '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}');
-        if let Some(c) = name.chars().find(|&c| c.is_control() || reorders(c)) {
+        if let Some(c) = name
+            .chars()
+            .find(|&c| c.is_control() || crate::fmt::reorders(c))
+        {
             return Err(cx.err(
                 Some(name_spec.span()),
                 "name",
@@ -345,7 +347,7 @@ impl Plan {
         // HTML report and the terminal raw.
         if let Some(c) = spec.about.as_deref().and_then(|a| {
             a.chars()
-                .find(|&c| (c.is_control() && !matches!(c, '\n' | '\t')) || reorders(c))
+                .find(|&c| (c.is_control() && !matches!(c, '\n' | '\t')) || crate::fmt::reorders(c))
         }) {
             let line = src
                 .lines()
@@ -698,6 +700,27 @@ impl Plan {
                     family.name(),
                     info.knob_names(),
                     crate::fmt::clip(family.knob(), 40)
+                ),
+            ));
+        }
+        // Nor which way is simpler (`check` holds a built-in family's name to its direction).
+        if let Some(info) = crate::family::catalogue().iter().find(|f| {
+            f.name == family.name()
+                && !f.knob.starts_with('(')
+                && f.larger_is_simpler != family.larger_is_simpler()
+        }) {
+            return Err(err(
+                "model.family",
+                format!(
+                    "the estimator is named `{}`, a built-in family whose larger `{}` is {}, but \
+                     its `larger_is_simpler` says otherwise; give it a name of its own",
+                    family.name(),
+                    info.knob,
+                    if info.larger_is_simpler {
+                        "simpler"
+                    } else {
+                        "more complex"
+                    }
                 ),
             ));
         }
