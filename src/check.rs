@@ -1059,8 +1059,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 let (low, high) = (*se < jack - tol, *se > jack + tol);
                 let beyond = loss.stderr_beyond_jackknife(k);
                 // A standard error written as null (not computable) beside leave-outs whose
-                // jackknife is a number: `run` writes the number.
-                let hidden = se.is_nan() && jack.is_finite() && !beyond;
+                // jackknife is a number: `run` writes the number, unless the term adds an
+                // estimate's error that could not be computed (a table's bias², beside a noise
+                // estimate without a standard error).
+                let estimated = described.iter().any(|t| &t.key == k && t.estimated);
+                let hidden = se.is_nan() && jack.is_finite() && !(beyond && estimated);
                 if hidden || (se.is_finite() && jack.is_finite() && (low || (high && !beyond))) {
                     return Err(format!(
                         "{}: `stderr.{}` is {}, {} the jackknife of its own leave-one-block-out \

@@ -3462,6 +3462,17 @@ fn cli_cases(t: &mut Table, docs: &Docs) {
             }),
             "`interval95.expected_loss` is written, but `run` gives intervals only to terms",
         ),
+        // A term whose standard error may exceed the jackknife is still never null beside a
+        // finite one when nothing estimated enters it (the second reading of 0.3.12).
+        (
+            "0-1: the Kohavi–Wolpert variance's standard error edited to null",
+            set(
+                &docs.zero_one,
+                "stderr.kohavi_wolpert.variance",
+                serde_json::Value::Null,
+            ),
+            "`stderr.kohavi_wolpert.variance` is null, not the jackknife",
+        ),
         (
             "0-1: a standard error beyond what a share can have",
             set(&docs.zero_one, "stderr.bias", serde_json::json!(1e300)),

@@ -1638,6 +1638,20 @@ fn minimum_norm_fits_near_the_interpolation_threshold_are_said() {
     );
     assert!(!doc.reading.contains("features = 2 ("), "{}", doc.reading);
     assert!(!doc.reading.contains("features = 30 ("), "{}", doc.reading);
+    // Eight rows: 4 features (n − 4) are flagged too (an audit found the variance covered in
+    // 87-89% of seeds there), 2 features are not.
+    let small = src
+        .replace("train_size = 12", "train_size = 8")
+        .replace("grid = [2, 11, 12, 14, 30]", "grid = [2, 4, 16]");
+    let (_, _, doc) = run(&small);
+    assert!(
+        doc.reading
+            .contains("features = 4 (4 coefficients, 8 training rows)")
+            && !doc.reading.contains("features = 2 (")
+            && !doc.reading.contains("features = 16 ("),
+        "{}",
+        doc.reading
+    );
     let far = src.replace("grid = [2, 11, 12, 14, 30]", "grid = [2, 30]");
     let (_, _, doc) = run(&far);
     assert!(
