@@ -491,16 +491,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 info.knob_names()
             ));
         }
-        let fixed = !info.knob.starts_with('(');
-        if fixed && simpler != info.larger_is_simpler {
+        if info.fixed_direction().is_some_and(|d| d != simpler) {
             return Err(format!(
                 "`{key}` is {simpler}, but for the `{family}` family a larger `{knob}` is {}; \
                  {EDITED}",
-                if info.larger_is_simpler {
-                    "simpler"
-                } else {
-                    "more complex"
-                }
+                info.direction_words()
             ));
         }
     }
@@ -623,6 +618,13 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
     // Terms: those of every model in every row (with their standard errors), the same in every
     // row of a model; standard errors of the row's terms only.
     let described = doc.term_docs();
+    // The terms `run` gives an interval (`interval95`): those whose standard error is a block
+    // bootstrap's.
+    let with_interval: Vec<&str> = described
+        .iter()
+        .filter(|t| t.stderr && t.bootstrap)
+        .map(|t| t.key.as_str())
+        .collect();
     let mut first: HashMap<Option<&str>, usize> = HashMap::new();
     for (i, p) in doc.points.iter().enumerate() {
         for t in described.iter().filter(|t| t.role != "other") {
@@ -815,12 +817,11 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
         }
         // `run` writes an interval for every term whose standard error is a block bootstrap's,
         // and for no other (sweep 71: one deleted, or added for `expected_loss`, passed).
-        let wants = |k: &str| {
-            described
-                .iter()
-                .any(|t| t.key == k && t.stderr && t.bootstrap)
-        };
-        if let Some((k, _)) = p.interval.iter().find(|(k, _)| !wants(k)) {
+        if let Some((k, _)) = p
+            .interval
+            .iter()
+            .find(|(k, _)| !with_interval.contains(&k.as_str()))
+        {
             return Err(format!(
                 "{}: `interval95.{}` is written, but `run` gives intervals only to terms whose \
                  standard error is a bootstrap's; {EDITED}",
@@ -828,15 +829,14 @@ fn validate_as_written(doc: &ResultDoc) -> Result<(), String> {
                 crate::fmt::clip(k, 40)
             ));
         }
-        if let Some(t) = described
+        if let Some(k) = with_interval
             .iter()
-            .find(|t| t.stderr && t.bootstrap && p.interval.iter().all(|(k, _)| *k != t.key))
+            .find(|k| p.interval.iter().all(|(have, _)| have != *k))
         {
             return Err(format!(
-                "{}: no `interval95.{}`, which `run` writes beside every bootstrap standard \
+                "{}: no `interval95.{k}`, which `run` writes beside every bootstrap standard \
                  error; {EDITED}",
-                at(i),
-                t.key
+                at(i)
             ));
         }
         // An interval holds its own estimate: the bootstrap percentile interval widened to
@@ -3567,7 +3567,6 @@ mod tests {
             ),
             "{r:?}"
         );
-
         // Replicates, blocks, seed and eval_seed may differ.
         let mut other = base.clone();
         other.replicates = 16;

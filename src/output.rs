@@ -390,14 +390,13 @@ pub fn check(inputs: &[(&str, &Path)], outputs: &[(&str, &Path)]) -> Result<(), 
 /// output there sends its words to standard error instead, as with `-`, so they cannot land in
 /// (or over) the output.
 pub fn is_stdout(p: &Path) -> bool {
-    if p.as_os_str() == "-" {
-        return true;
-    }
+    p.as_os_str() == "-" || same_file(p, "/dev/stdout")
+}
+
+/// `p` and the descriptor named `fd` (`/dev/stdout`, `/dev/stderr`) are the same file.
+fn same_file(p: &Path, fd: &str) -> bool {
     let id = |q: &Path| fs::metadata(q).ok().as_ref().and_then(sys::dev_ino);
-    match (id(p), id(Path::new("/dev/stdout"))) {
-        (Some(a), Some(b)) => a == b,
-        _ => false,
-    }
+    matches!((id(p), id(Path::new(fd))), (Some(a), Some(b)) if a == b)
 }
 
 /// `p` is an existing regular file of zero bytes (followed through links): it holds nothing an
@@ -450,8 +449,7 @@ pub fn guard_inputs(inputs: &[(&str, &Path)]) -> Result<(), Error> {
 /// `p` is the very file standard error is (`2>> F`, `2<> F`), as [`is_stdout`] for standard
 /// output.
 fn is_stderr(p: &Path) -> bool {
-    let id = |q: &Path| fs::metadata(q).ok().as_ref().and_then(sys::dev_ino);
-    matches!((id(p), id(Path::new("/dev/stderr"))), (Some(a), Some(b)) if a == b)
+    same_file(p, "/dev/stderr")
 }
 
 /// The regular files the command has read as inputs (device and inode; [`register_input`]).
@@ -883,8 +881,8 @@ fn same_kind(target: &Target) -> Result<(), Error> {
     {
         return Err(Error::Usage(format!(
             "{}: {} is a checkpoint (the saved state of a run, which rerunning it with the same \
-             `--checkpoint` continues); a result or part never replaces one (choose another file, or remove it once the run \
-             it belongs to is done)",
+             `--checkpoint` continues); a result or part never replaces one (choose another \
+             file, or remove it once the run it belongs to is done)",
             target.flag,
             crate::error::shown(&target.given)
         )));

@@ -42,6 +42,15 @@ fn data_inputs(plan: &Plan) -> Vec<(&'static str, PathBuf)> {
     files
 }
 
+/// Refuses a standard output or error opened on one of the plan's data inputs
+/// ([`data_inputs`]) or on one of `more` (`output::guard_inputs`).
+fn guard_plan_inputs(plan: &Plan, more: &[(&str, &Path)]) -> Result<(), Error> {
+    let data = data_inputs(plan);
+    let mut inputs: Vec<(&str, &Path)> = data.iter().map(|(r, p)| (*r, p.as_path())).collect();
+    inputs.extend_from_slice(more);
+    crate::output::guard_inputs(&inputs)
+}
+
 /// Where a finished run's outputs go (shared by `run` and `merge`).
 struct Outputs2<'a> {
     out: Option<&'a Path>,
@@ -255,15 +264,14 @@ pub fn run(args: RunArgs) -> Result<u8, Error> {
     let source = shard::ScenarioSource::read(args.scenario.as_deref())?;
     let plan = source.plan(&opts)?;
     {
-        let data = data_inputs(&plan);
-        let mut inputs: Vec<(&str, &Path)> = data.iter().map(|(r, p)| (*r, p.as_path())).collect();
+        let mut more: Vec<(&str, &Path)> = Vec::new();
         if let Some(p) = &args.scenario {
-            inputs.push(("the scenario file", p));
+            more.push(("the scenario file", p));
         }
         if let Some(ck) = &args.checkpoint {
-            inputs.push(("the checkpoint", ck));
+            more.push(("the checkpoint", ck));
         }
-        crate::output::guard_inputs(&inputs)?;
+        guard_plan_inputs(&plan, &more)?;
     }
     if args.eval_seed.is_some() && matches!(plan.source, Source::Table(_)) {
         return Err(Error::Usage(format!(
@@ -1144,11 +1152,7 @@ pub fn validate_with(
         ..PlanOptions::default()
     };
     let plan = scenario::load(scenario, &opts)?;
-    {
-        let data = data_inputs(&plan);
-        let inputs: Vec<(&str, &Path)> = data.iter().map(|(r, p)| (*r, p.as_path())).collect();
-        crate::output::guard_inputs(&inputs)?;
-    }
+    guard_plan_inputs(&plan, &[])?;
     refuse_custom(&plan)?;
     let (estimate, cap) = runner::memory::check(&plan, threads, memory_limit)?;
     runner::prepare_to_fit(&plan)?;

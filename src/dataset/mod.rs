@@ -715,11 +715,11 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
 
     // Read every record once, with its line, as bytes: only the columns the run uses must be
     // UTF-8 text (a notes column in another encoding that the run never reads was refused; the
-    // header line, which names every column, still must be). A
-    // UTF-8 cell is trimmed of Unicode white space (U+00A0 too), as the text reader trimmed
-    // it; a cell in another encoding keeps its bytes (trimmed of ASCII white space). The
-    // record's fingerprint (the holdout ledger's identity of a row) is taken over those cells,
-    // so a UTF-8 table keeps the fingerprints it had when every column was read as text.
+    // header line, which names every column, still must be). A UTF-8 cell is trimmed of Unicode
+    // white space (U+00A0 too), as the text reader trimmed it; a cell in another encoding keeps
+    // its bytes (trimmed of ASCII white space). The record's fingerprint (the holdout ledger's
+    // identity of a row) is taken over those cells, so a UTF-8 table keeps the fingerprints it
+    // had when every column was read as text.
     let mut cells: Vec<csv::StringRecord> = Vec::new();
     let mut lines: Vec<usize> = Vec::new();
     let mut fingerprints: Vec<u64> = Vec::new();
@@ -729,8 +729,13 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             err(line, None, csv_error_text(&e, line))
         })?;
         let line = rec.position().map(line_of).unwrap_or(0);
+        // Each cell once: its trimmed text, or its bytes when they are not UTF-8.
+        let texts: Vec<Result<&str, &[u8]>> = rec
+            .iter()
+            .map(|b| std::str::from_utf8(b).map(str::trim).map_err(|_| b))
+            .collect();
         for &c in feature_cols.iter().chain([&target_col]) {
-            if rec.get(c).is_some_and(|b| std::str::from_utf8(b).is_err()) {
+            if texts.get(c).is_some_and(Result::is_err) {
                 return Err(err(
                     Some(line),
                     Some(&header[c]),
@@ -738,23 +743,23 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
                 ));
             }
         }
-        let cell_bytes = |b: &'_ [u8]| -> Vec<u8> {
-            match std::str::from_utf8(b) {
-                Ok(t) => t.trim().as_bytes().to_vec(),
-                Err(_) => b.to_vec(),
-            }
-        };
         let fingerprint = {
             let mut bytes = Vec::new();
-            for cell in rec.iter() {
-                bytes.extend_from_slice(&cell_bytes(cell));
+            for t in &texts {
+                bytes.extend_from_slice(match t {
+                    Ok(t) => t.as_bytes(),
+                    Err(b) => b,
+                });
                 bytes.push(0);
             }
             crate::codec::fnv1a64(&bytes)
         };
-        let rec: csv::StringRecord = rec
+        let rec: csv::StringRecord = texts
             .iter()
-            .map(|b| String::from_utf8_lossy(&cell_bytes(b)).into_owned())
+            .map(|t| match t {
+                Ok(t) => std::borrow::Cow::Borrowed(*t),
+                Err(b) => String::from_utf8_lossy(b),
+            })
             .collect();
         if rec.len() <= 1 && rec.iter().all(|c| c.is_empty()) {
             // A blank line, or one of spaces only. A row of empty cells (`,,`) is a row whose
@@ -931,8 +936,9 @@ pub fn load_csv(path: &Path, opts: &TableOptions) -> Result<Table, TableError> {
             None,
             None,
             format!(
-                "only {} usable rows{}; at least {min_rows} are needed",
+                "only {} usable row{}{}; at least {min_rows} are needed",
                 rows.len(),
+                if rows.len() == 1 { "" } else { "s" },
                 if dropped > 0 {
                     format!(" after dropping {dropped}")
                 } else {

@@ -784,10 +784,11 @@ impl Loss for ZeroOne {
 
     /// Kohavi–Wolpert bias² `= ½ mean_e Σ_c (p_t − p̂_c)² − correction` and variance are
     /// quadratic in the errors of the vote shares: their second-order sampling variance
-    /// (scale ½) is added to the jackknife's, as for the squared loss (`squared::Squared::second_order_stderr`), with the
-    /// covariance of the points' one-hot votes. An independent check found 0.019 ± 0.0029 for
-    /// an exact 0.041 (k-NN with k = n, whose votes are one label for every point). Known
-    /// truths and one fit per training set only (several fits' votes are not independent).
+    /// (scale ½) is added to the jackknife's, as for the squared loss
+    /// (`squared::Squared::second_order_stderr`), with the covariance of the points' one-hot
+    /// votes. An independent check found 0.019 ± 0.0029 for an exact 0.041 of the bias² (k-NN
+    /// with k = n, whose votes are one label for every point). Known truths and one fit per
+    /// training set only (several fits' votes are not independent).
     fn second_order_stderr(
         &self,
         blocks: &[&Acc],

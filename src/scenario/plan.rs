@@ -706,8 +706,8 @@ impl Plan {
         // Nor which way is simpler (`check` holds a built-in family's name to its direction).
         if let Some(info) = crate::family::catalogue().iter().find(|f| {
             f.name == family.name()
-                && !f.knob.starts_with('(')
-                && f.larger_is_simpler != family.larger_is_simpler()
+                && f.fixed_direction()
+                    .is_some_and(|d| d != family.larger_is_simpler())
         }) {
             return Err(err(
                 "model.family",
@@ -716,11 +716,7 @@ impl Plan {
                      its `larger_is_simpler` says otherwise; give it a name of its own",
                     family.name(),
                     info.knob,
-                    if info.larger_is_simpler {
-                        "simpler"
-                    } else {
-                        "more complex"
-                    }
+                    info.direction_words()
                 ),
             ));
         }
